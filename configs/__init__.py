@@ -1,0 +1,1 @@
+"""Built-in configs (installed as cyclesim.configs)."""

@@ -1,0 +1,209 @@
+"""Python API: load configs, simulate batches of cases, get plain-data results.
+
+>>> import cyclesim
+>>> res = cyclesim.run("demo")                       # the built-in demo engine
+>>> res.summary["imep_net_bar"], res.summary["ca50_deg"]
+>>> cases = [cyclesim.load_config("demo", [f"burn.spark_advance_deg={a}"]) for a in (10, 20, 30)]
+>>> results = cyclesim.simulate(cases)               # one batch, three cases
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Callable, Sequence
+
+import numpy as np
+
+from .config import Case, flat_inputs, load_config
+from .errors import CyclesimError, PluginError, SolverError
+
+__all__ = ["CaseResult", "simulate", "run", "load_config", "load_cases", "Case"]
+
+
+@dataclass
+class CaseResult:
+    """Result of one case: inputs, summary figures, trace and messages.
+
+    Attributes
+    ----------
+    name : str
+    inputs : dict
+        Flat ``section.key`` -> value of every validated input.
+    summary : dict
+        Figures with units in the keys (floats), plus ``energy_balance`` (a dict).
+    trace : dict of ndarray
+        Crank-angle resolved columns (1-D, equal length), units in the keys.
+    warnings : list of str
+        Things the user needs to know (not converged, validity ranges, ...).
+    error : str or None
+        Why the case failed; then ``summary`` and ``trace`` are empty.
+    models : dict
+        Submodel chosen per role.
+    references : list of str
+        Published sources of the submodels used.
+    """
+
+    name: str
+    inputs: dict
+    summary: dict = field(default_factory=dict)
+    trace: dict = field(default_factory=dict)
+    warnings: list = field(default_factory=list)
+    error: str | None = None
+    models: dict = field(default_factory=dict)
+    references: list = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return self.error is None
+
+    def summary_json(self) -> dict:
+        """Summary, inputs and messages as JSON-ready plain data."""
+        return {
+            "name": self.name,
+            "error": self.error,
+            "warnings": list(self.warnings),
+            "models": dict(self.models),
+            "summary": _plain(self.summary),
+            "inputs": _plain(self.inputs),
+            "references": list(self.references),
+        }
+
+
+def _plain(x: Any) -> Any:
+    if isinstance(x, dict):
+        return {k: _plain(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_plain(v) for v in x]
+    if isinstance(x, (np.bool_, bool)):
+        return bool(x)
+    if isinstance(x, (np.integer,)):
+        return int(x)
+    if isinstance(x, (np.floating, float)):
+        v = float(x)
+        return v if np.isfinite(v) else None
+    return x
+
+
+def load_cases(path, overrides: Sequence[str] = ()) -> list[Case]:
+    return [load_config(path, overrides)]
+
+
+def _registry_for(cases: Sequence[Case]):
+    from .registry import get_registry
+
+    plugins: tuple[str, ...] = ()
+    for c in cases:
+        for p in c.plugins:
+            if p not in plugins:
+                plugins += (p,)
+    return get_registry(plugins)
+
+
+def _run_batch(cases: list[Case], registry, progress=None) -> list[CaseResult]:
+    from .batch import build_batch
+    from .figures import compute_figures, derived_trace, output_trace
+
+    batch = build_batch(cases, registry)
+    from .solver import integrate
+
+    tr = integrate(batch, progress=progress)
+    d = derived_trace(batch, tr)
+    figs = compute_figures(batch, tr, d)
+    step = float(batch.simulation.output_step_deg) or None
+    cols = output_trace(batch, tr, d, step)
+    extra = {}
+    for got in registry.pm.hook.cyclesim_extra_figures(summary=figs, trace=cols, cases=cases):
+        if got:
+            extra.update(got)
+    model_figs = {}
+    model_warn = [[] for _ in cases]
+    for role, model in batch.models.items():
+        try:
+            model_figs.update(model.figures(cols))
+            for i, w in enumerate(model.warnings(cols)):
+                model_warn[i].extend(w)
+        except CyclesimError:
+            raise
+        except Exception as exc:  # noqa: BLE001
+            raise PluginError(f"{role} model {model.name!r} raised {type(exc).__name__} in figures(): {exc}") from exc
+    refs: list[str] = []
+    for model in batch.models.values():
+        for r in getattr(model, "references", ()):
+            if r not in refs:
+                refs.append(r)
+    results = []
+    for i, case in enumerate(cases):
+        res = CaseResult(
+            name=case.name,
+            inputs=flat_inputs(case),
+            models={r: ch.model for r, ch in case.submodels.items()},
+            references=refs,
+        )
+        if tr.failed[i]:
+            res.error = tr.failed[i]
+            results.append(res)
+            continue
+        summ = {}
+        for k, v in {**figs, **model_figs, **extra}.items():
+            if isinstance(v, dict):
+                summ[k] = {kk: float(np.asarray(vv)[i]) for kk, vv in v.items()}
+            else:
+                val = np.asarray(v)[i]
+                summ[k] = bool(val) if val.dtype == bool else float(val)
+        res.summary = summ
+        res.trace = {k: np.array(v[i]) for k, v in cols.items()}
+        if batch.simulation.mode == "full" and not tr.converged[i]:
+            res.warnings.append(
+                f"not settled: net IMEP or trapped mass still changed by more than"
+                f" {batch.simulation.tolerance:g} after {int(tr.cycles[i])} cycles"
+                f" (raise simulation.max_cycles)"
+            )
+        res.warnings.extend(model_warn[i])
+        results.append(res)
+    return results
+
+
+def simulate(cases: Sequence[Case], progress: Callable[[int], None] | None = None,
+             isolate: bool = True) -> list[CaseResult]:
+    """Simulate cases, batched where they share submodels and grid; results in input order.
+
+    A batch that fails as a whole (a plug-in raising, say) is re-run case by
+    case when ``isolate`` is true, so one bad case does not spoil the others.
+    """
+    from .batch import group_cases
+
+    cases = list(cases)
+    registry = _registry_for(cases)
+    out: list[CaseResult | None] = [None] * len(cases)
+    for idx in group_cases(cases, registry):
+        group = [cases[i] for i in idx]
+        try:
+            res = _run_batch(group, registry, progress)
+        except (PluginError, SolverError) as exc:
+            if not isolate or len(group) == 1:
+                if len(group) == 1 and isolate:
+                    res = [CaseResult(name=group[0].name, inputs=flat_inputs(group[0]), error=str(exc))]
+                else:
+                    raise
+            else:
+                res = []
+                for c in group:
+                    try:
+                        res.extend(_run_batch([c], registry, progress))
+                    except (PluginError, SolverError) as e1:
+                        res.append(CaseResult(name=c.name, inputs=flat_inputs(c), error=str(e1)))
+        for i, r in zip(idx, res):
+            out[i] = r
+    return out  # type: ignore[return-value]
+
+
+def run(config="demo", overrides: Sequence[str] = ()) -> CaseResult:
+    """Load one config (path or built-in name), apply ``overrides``, simulate it.
+
+    Raises :class:`cyclesim.errors.CyclesimError` if the case fails.
+    """
+    case = config if isinstance(config, Case) else load_config(config, list(overrides))
+    res = simulate([case], isolate=False)[0]
+    if res.error:
+        raise SolverError(res.error)
+    return res

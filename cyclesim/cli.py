@@ -1,0 +1,151 @@
+"""Command line: a thin shell over the Python API.
+
+Every error a user can cause prints one line and exits with status 2;
+``--debug`` shows the traceback instead.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+from .errors import CyclesimError
+
+
+def _common(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
+                   help="override any config value, e.g. --set operating.speed_rpm=2000 (repeatable)")
+    p.add_argument("--debug", action="store_true", help="show tracebacks")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    ap = argparse.ArgumentParser(
+        prog="cyclesim",
+        description="Crank-angle simulation of a real four-stroke spark-ignition engine cycle.",
+    )
+    ap.add_argument("--version", action="store_true", help="print the version")
+    sub = ap.add_subparsers(dest="command")
+
+    r = sub.add_parser("run", help="simulate one operating point and print its figures")
+    r.add_argument("config", nargs="?", default="demo",
+                   help="config file, or a built-in config name (default: demo)")
+    r.add_argument("--out", type=Path, help="write summary.json, trace.csv and plots here")
+    r.add_argument("--force", action="store_true", help="write into a non-empty --out folder")
+    r.add_argument("--no-plots", action="store_true", help="with --out: skip the PNG plots")
+    r.add_argument("--json", action="store_true", help="print the summary as JSON instead of the table")
+    _common(r)
+
+    pl = sub.add_parser("plugins", help="list the installed submodels and their parameters")
+    pl.add_argument("role", nargs="?", help="only this role (burn, heat_transfer, ...)")
+    pl.add_argument("--debug", action="store_true")
+
+    c = sub.add_parser("configs", help="list the built-in configs")
+    c.add_argument("--debug", action="store_true")
+
+    sh = sub.add_parser("show", help="print the merged, validated config with every default filled in")
+    sh.add_argument("config", nargs="?", default="demo")
+    _common(sh)
+    return ap
+
+
+def cmd_run(args) -> int:
+    from . import api
+    from .output import prepare_out_dir, summary_table, write_case
+    import json
+
+    t0 = time.perf_counter()
+    case = api.load_config(args.config, args.overrides)
+    if args.out:
+        prepare_out_dir(args.out, args.force)
+    res = api.simulate([case], isolate=False)[0]
+    if res.error:
+        raise CyclesimError(res.error)
+    elapsed = time.perf_counter() - t0
+    if args.json:
+        print(json.dumps(res.summary_json(), indent=2))
+    else:
+        print(summary_table(res))
+        print(f"simulated in {elapsed:.2f} s")
+    if args.out:
+        files = write_case(res, args.out, plots=not args.no_plots)
+        print(f"wrote {len(files)} files to {args.out}/: " + ", ".join(f.name for f in files))
+    return 0
+
+
+def cmd_plugins(args) -> int:
+    from .registry import get_registry
+    from .roles import ROLES
+
+    reg = get_registry()
+    roles = [args.role] if args.role else list(ROLES)
+    for role in roles:
+        if role not in reg.submodels:
+            from .params import suggestion
+
+            raise CyclesimError(f"plugins {role!r}: unknown role" + suggestion(role, ROLES) + f"; roles: {', '.join(ROLES)}")
+        print(f"[{role}]")
+        for name, cls in sorted(reg.submodels[role].items()):
+            print(f"  {name}: {cls.summary}  ({cls.__module__})")
+            for p in cls.params:
+                default = "required" if p.required else repr(p.default)
+                print(f"      {p.name:<28s} [{p.unit}] default {default}; {p.range_text()}. {p.doc}")
+            for ref in cls.references:
+                print(f"      ref: {ref}")
+        print()
+    return 0
+
+
+def cmd_configs(args) -> int:
+    from .config import builtin_config_dir, read_yaml
+
+    d = builtin_config_dir()
+    for p in sorted(d.glob("*.yaml")):
+        desc = read_yaml(p).get("description", "")
+        print(f"  {p.stem:<24s} {desc}")
+    print(f"(folder: {d})")
+    return 0
+
+
+def cmd_show(args) -> int:
+    import yaml
+
+    from .config import CORE_SCHEMA, load_config
+
+    case = load_config(args.config, args.overrides)
+    out = {"name": case.name}
+    for sec in CORE_SCHEMA:
+        out[sec] = dict(vars(case.section(sec)))
+    for role, ch in case.submodels.items():
+        out[role] = {"model": ch.model, **ch.params}
+    print(yaml.safe_dump(out, sort_keys=False))
+    return 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = build_parser()
+    args = ap.parse_args(argv)
+    if args.version:
+        from . import __version__
+
+        print(f"cyclesim {__version__}")
+        return 0
+    if not args.command:
+        ap.print_help()
+        return 0
+    handlers = {"run": cmd_run, "plugins": cmd_plugins, "configs": cmd_configs, "show": cmd_show}
+    try:
+        return handlers[args.command](args)
+    except CyclesimError as exc:
+        if getattr(args, "debug", False):
+            raise
+        print(f"cyclesim: error: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("cyclesim: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,453 @@
+"""YAML configs: safe loading, inheritance, overrides and validation into typed cases.
+
+A config file has core sections (``engine``, ``valves``, ``operating``,
+``fuel``, ``gas``, ``walls``, ``simulation``) and one section per submodel
+role (``burn``, ``heat_transfer``, ``blowby``, ``valve_flow``, ``boundary``,
+``friction``, ``knock``) naming the plug-in (``model:``) and its parameters.
+Every key carries its unit in its name.  ``extends: base.yaml`` (a path
+relative to the file, or the name of a built-in config) inherits everything
+and overrides section by section, key by key.
+
+Errors are :class:`cyclesim.errors.ConfigError` with one line naming the key,
+the value and what was expected.
+"""
+
+from __future__ import annotations
+
+import copy
+import importlib.resources
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import SimpleNamespace
+from typing import Any, Mapping
+
+import yaml
+
+from .errors import ConfigError, CyclesimError
+from .params import REQUIRED, Param, suggestion, validate_section
+from .roles import ROLES
+
+P = Param
+
+CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
+    "engine": (
+        P("bore_mm", "mm", REQUIRED, "cylinder bore", 0, 500, min_exclusive=True),
+        P("stroke_mm", "mm", REQUIRED, "piston stroke", 0, 1000, min_exclusive=True),
+        P("conrod_mm", "mm", REQUIRED, "connecting-rod length, centre to centre", 0, 3000, min_exclusive=True),
+        P("compression_ratio", "-", REQUIRED, "geometric compression ratio", 1, 40, min_exclusive=True),
+        P("pin_offset_mm", "mm", 0.0, "piston-pin offset from the cylinder axis (thrust side positive)", -20, 20),
+        P("cylinders", "-", 1, "number of cylinders (torque and power are for the whole engine)", 1, 24, kind="int"),
+        P("head_area_factor", "-", 1.1, "cylinder-head surface area / bore area", 0.5, 3),
+        P("piston_area_factor", "-", 1.0, "piston-crown surface area / bore area", 0.5, 3),
+    ),
+    "valves": (
+        P("ivo_deg", "deg", REQUIRED, "intake valve opening (0 = firing TDC; about -360 is gas-exchange TDC)", -540, -180),
+        P("ivc_deg", "deg", REQUIRED, "intake valve closing", -360, 0),
+        P("evo_deg", "deg", REQUIRED, "exhaust valve opening", 0, 360),
+        P("evc_deg", "deg", REQUIRED, "exhaust valve closing", 180, 540),
+        P("threshold_lift_mm", "mm", 0.1, "lift at which the event angles are defined", 0, 5, min_exclusive=True),
+        P("intake_diameter_mm", "mm", 30.0, "intake valve head (seat) diameter", 0, 300, min_exclusive=True),
+        P("exhaust_diameter_mm", "mm", 26.0, "exhaust valve head (seat) diameter", 0, 300, min_exclusive=True),
+        P("intake_max_lift_mm", "mm", 8.5, "maximum intake valve lift", 0, 100, min_exclusive=True),
+        P("exhaust_max_lift_mm", "mm", 8.0, "maximum exhaust valve lift", 0, 100, min_exclusive=True),
+        P("intake_count", "-", 2, "intake valves per cylinder", 1, 6, kind="int"),
+        P("exhaust_count", "-", 2, "exhaust valves per cylinder", 1, 6, kind="int"),
+    ),
+    "operating": (
+        P("speed_rpm", "rpm", REQUIRED, "engine speed", 0, 30000, min_exclusive=True),
+        P("lambda", "-", 1.0, "air-fuel equivalence ratio lambda (1 = stoichiometric)", 0.3, 3.0),
+        P("intake_pressure_bar", "bar", 1.0, "intake plenum pressure (absolute)", 0, 10, min_exclusive=True),
+        P("intake_temperature_K", "K", 300.0, "intake plenum temperature", 150, 600),
+        P("exhaust_pressure_bar", "bar", 1.05, "exhaust plenum pressure (absolute)", 0, 10, min_exclusive=True),
+        P("exhaust_temperature_K", "K", 900.0, "exhaust plenum temperature (for backflow)", 250, 2000),
+        P("egr_fraction", "-", 0.0, "external EGR mass fraction of the intake charge", 0, 1, max_exclusive=True),
+        P("ivc_pressure_bar", "bar", 1.0, "closed-cycle mode: cylinder pressure at IVC", 0, 20, min_exclusive=True),
+        P("ivc_temperature_K", "K", 340.0, "closed-cycle mode: cylinder temperature at IVC", 150, 1000),
+        P("residual_fraction", "-", 0.05, "closed-cycle mode: burned-gas mass fraction at IVC", 0, 1, max_exclusive=True),
+    ),
+    "fuel": (
+        P("name", "-", "gasoline", "built-in fuel, or a name for a custom CxHyOz fuel", kind="str", sweepable=False),
+        P("C", "-", None, "custom fuel: carbon atoms per molecule", 0, 50, kind="float"),
+        P("H", "-", None, "custom fuel: hydrogen atoms per molecule", 0, 100, kind="float"),
+        P("O", "-", 0.0, "custom fuel: oxygen atoms per molecule", 0, 20, kind="float"),
+        P("lhv_MJ_per_kg", "MJ/kg", None, "custom fuel: lower heating value", 1, 150, kind="float"),
+    ),
+    "gas": (
+        P("burned_gas", "-", "equilibrium", "burned-gas composition model", kind="choice",
+          choices=("equilibrium", "complete"), sweepable=False),
+    ),
+    "walls": (
+        P("head_temperature_K", "K", 480.0, "cylinder-head wall temperature", 0, 1500, min_exclusive=True),
+        P("piston_temperature_K", "K", 520.0, "piston-crown wall temperature", 0, 1500, min_exclusive=True),
+        P("liner_temperature_K", "K", 420.0, "liner wall temperature", 0, 1500, min_exclusive=True),
+    ),
+    "simulation": (
+        P("mode", "-", "full", "full 720 deg cycle to periodic steady state, or closed cycle IVC..EVO",
+          kind="choice", choices=("full", "closed"), sweepable=False),
+        P("step_deg", "deg", 0.5, "integration step (fixed-step 4th-order Runge-Kutta)", 0.01, 5, sweepable=False),
+        P("output_step_deg", "deg", 0.0, "trace output spacing (0 = the integration step; finer is interpolated)",
+          0, 5, sweepable=False),
+        P("max_cycles", "-", 30, "full mode: most cycles to reach periodic steady state", 1, 500, kind="int",
+          sweepable=False),
+        P("tolerance", "-", 5e-4, "full mode: relative change of net IMEP and trapped mass that counts as settled",
+          0, 0.1, min_exclusive=True, sweepable=False),
+    ),
+}
+"""Core sections and their declared keys (the single source for validation and docs)."""
+
+# Keys of the fuel section that only a custom fuel uses (None = not given).
+_FUEL_CUSTOM = ("C", "H", "O", "lhv_MJ_per_kg")
+
+DEFAULT_MODELS = {
+    "burn": "wiebe",
+    "heat_transfer": "woschni",
+    "blowby": "orifice",
+    "valve_flow": "poppet",
+    "boundary": "constant",
+    "friction": "components",
+    "knock": "none",
+}
+META_KEYS = ("name", "description", "extends", "plugins")
+TOP_KEYS = tuple(CORE_SCHEMA) + ROLES + META_KEYS
+
+
+@dataclass
+class SubmodelChoice:
+    """The plug-in chosen for one role and its validated parameters."""
+
+    role: str
+    model: str
+    params: dict[str, Any]
+
+
+@dataclass
+class Case:
+    """One validated operating point: core sections as namespaces plus submodel choices.
+
+    Attributes
+    ----------
+    name : str
+    engine, valves, operating, fuel, gas, walls, simulation : SimpleNamespace
+        Core sections with every key filled in (units in the names).
+    submodels : dict[str, SubmodelChoice]
+        One per role.
+    plugins : tuple of str
+        Extra plug-in modules listed explicitly in the config.
+    raw : dict
+        The merged config (after inheritance and overrides), for records.
+    base_dir : Path
+        Folder of the config file (relative paths resolve here).
+    """
+
+    name: str
+    engine: SimpleNamespace
+    valves: SimpleNamespace
+    operating: SimpleNamespace
+    fuel: SimpleNamespace
+    gas: SimpleNamespace
+    walls: SimpleNamespace
+    simulation: SimpleNamespace
+    submodels: dict[str, SubmodelChoice]
+    plugins: tuple[str, ...] = ()
+    raw: dict = field(default_factory=dict)
+    base_dir: Path = field(default_factory=Path.cwd)
+
+    def section(self, name: str) -> SimpleNamespace:
+        return getattr(self, name)
+
+
+# --------------------------------------------------------------------------
+# YAML reading
+# --------------------------------------------------------------------------
+
+
+class _StrictLoader(yaml.SafeLoader):
+    """Safe loader that rejects duplicated keys (no object construction)."""
+
+
+def _construct_mapping(loader, node, deep=False):
+    seen: dict[Any, Any] = {}
+    for key_node, _ in node.value:
+        key = loader.construct_object(key_node, deep=deep)
+        if key in seen:
+            raise ConfigError(
+                f"{getattr(loader, 'name', '<config>')} line {key_node.start_mark.line + 1}:"
+                f" duplicated key {key!r}"
+            )
+        seen[key] = True
+    return yaml.SafeLoader.construct_mapping(loader, node, deep=deep)
+
+
+_StrictLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _construct_mapping)
+
+
+def read_yaml(path: Path) -> dict:
+    """Read one YAML file safely into a dict; malformed input raises ConfigError."""
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except OSError as exc:
+        raise ConfigError(f"{path}: cannot read config ({exc.strerror or exc})") from exc
+    loader = _StrictLoader(text)
+    loader.name = str(path)
+    try:
+        data = loader.get_single_data()
+    except ConfigError:
+        raise
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f" line {mark.line + 1}, column {mark.column + 1}" if mark else ""
+        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+        raise ConfigError(f"{path}{where}: malformed YAML ({problem})") from exc
+    finally:
+        loader.dispose()
+    if data is None:
+        data = {}
+    if not isinstance(data, dict):
+        raise ConfigError(f"{path}: expected a mapping of sections at the top level, got {type(data).__name__}")
+    return data
+
+
+def builtin_config_dir() -> Path:
+    """Folder of the configs shipped with the package (``configs/`` in the repository)."""
+    return Path(str(importlib.resources.files("cyclesim.configs")))
+
+
+def builtin_configs() -> list[str]:
+    return sorted(p.stem for p in builtin_config_dir().glob("*.yaml"))
+
+
+def resolve_config_path(spec: str | Path, relative_to: Path | None = None) -> Path:
+    """A config path, or the name of a built-in config (``demo``)."""
+    p = Path(spec)
+    candidates = []
+    if relative_to is not None and not p.is_absolute():
+        candidates.append(relative_to / p)
+    candidates.append(p)
+    for c in candidates:
+        if c.is_file():
+            return c.resolve()
+    name = p.stem if p.suffix in (".yaml", ".yml") else p.name
+    builtin = builtin_config_dir() / f"{name}.yaml"
+    if builtin.is_file() and (p.parent == Path(".") or relative_to is not None):
+        return builtin
+    raise ConfigError(
+        f"config {str(spec)!r}: no such file or built-in config"
+        + suggestion(name, builtin_configs())
+        + f"; built-in: {', '.join(builtin_configs())}"
+    )
+
+
+def deep_merge(base: dict, over: Mapping) -> dict:
+    """Merge ``over`` into a copy of ``base``, section by section, key by key."""
+    out = copy.deepcopy(base)
+    for k, v in over.items():
+        if isinstance(v, Mapping) and isinstance(out.get(k), Mapping):
+            # a change of model replaces the submodel's parameters entirely
+            if k in ROLES and "model" in v and v.get("model") != out[k].get("model"):
+                out[k] = copy.deepcopy(dict(v))
+            else:
+                out[k] = deep_merge(out[k], v)
+        else:
+            out[k] = copy.deepcopy(v)
+    return out
+
+
+def load_raw(path: str | Path, _seen: tuple = ()) -> tuple[dict, Path]:
+    """Read a config and everything it extends; return the merged dict and its folder."""
+    path = resolve_config_path(path)
+    if path in _seen:
+        raise ConfigError(f"{path}: 'extends' forms a loop ({' -> '.join(str(s) for s in _seen + (path,))})")
+    data = read_yaml(path)
+    ext = data.pop("extends", None)
+    if ext is None:
+        return data, path.parent
+    bases = [ext] if isinstance(ext, str) else ext
+    if not isinstance(bases, list) or not all(isinstance(b, str) for b in bases):
+        raise ConfigError(f"{path}: extends: expected a file name or a list of them, got {ext!r}")
+    merged: dict = {}
+    for b in bases:
+        bpath = resolve_config_path(b, relative_to=path.parent)
+        base, _ = load_raw(bpath, _seen + (path,))
+        merged = deep_merge(merged, base)
+    return deep_merge(merged, data), path.parent
+
+
+def parse_override(text: str) -> tuple[list[str], Any]:
+    """Parse ``dotted.key=value`` (value read as YAML: numbers, true/false, text)."""
+    if "=" not in text:
+        raise ConfigError(f"--set {text!r}: expected dotted.key=value, e.g. operating.speed_rpm=2000")
+    key, _, value = text.partition("=")
+    parts = [k for k in key.strip().split(".") if k]
+    if not parts:
+        raise ConfigError(f"--set {text!r}: empty key")
+    try:
+        val = yaml.safe_load(value) if value.strip() else None
+    except yaml.YAMLError:
+        val = value
+    return parts, val
+
+
+def apply_override(raw: dict, parts: list[str], value: Any) -> dict:
+    """Set one dotted key in a raw config dict (returns a new dict)."""
+    out = copy.deepcopy(raw)
+    node = out
+    for i, k in enumerate(parts[:-1]):
+        if k not in node or not isinstance(node[k], dict):
+            if i == 0 and k not in TOP_KEYS:
+                raise ConfigError(
+                    f"{'.'.join(parts)}: unknown section {k!r}" + suggestion(k, TOP_KEYS)
+                )
+            node[k] = {}
+        node = node[k]
+    node[parts[-1]] = value
+    return out
+
+
+def set_dotted(raw: dict, dotted: str, value: Any) -> dict:
+    return apply_override(raw, [k for k in dotted.split(".") if k], value)
+
+
+def get_dotted(raw: Mapping, dotted: str, default: Any = None) -> Any:
+    node: Any = raw
+    for k in dotted.split("."):
+        if not isinstance(node, Mapping) or k not in node:
+            return default
+        node = node[k]
+    return node
+
+
+# --------------------------------------------------------------------------
+# Validation
+# --------------------------------------------------------------------------
+
+
+def _check_cross(case: Case) -> None:
+    e, v = case.engine, case.valves
+    crank_r = e.stroke_mm / 2
+    if e.conrod_mm <= crank_r + abs(e.pin_offset_mm):
+        raise ConfigError(
+            f"engine.conrod_mm = {e.conrod_mm:g}: must be longer than the crank radius"
+            f" ({crank_r:g} mm) plus the pin offset ({abs(e.pin_offset_mm):g} mm)"
+        )
+    if not (v.ivo_deg < v.ivc_deg < v.evo_deg < v.evc_deg < v.ivc_deg + 720):
+        raise ConfigError(
+            f"valves: events out of order (ivo {v.ivo_deg:g}, ivc {v.ivc_deg:g}, evo {v.evo_deg:g},"
+            f" evc {v.evc_deg:g} deg): expected ivo < ivc < evo < evc < ivc + 720"
+        )
+    for port, (o, c) in {"intake": (v.ivo_deg, v.ivc_deg), "exhaust": (v.evo_deg, v.evc_deg)}.items():
+        if c - o > 360:
+            raise ConfigError(
+                f"valves: {port} open for {c - o:g} deg (from {o:g} to {c:g}): at most 360 deg is possible"
+            )
+    for port in ("intake", "exhaust"):
+        if getattr(v, f"{port}_max_lift_mm") <= v.threshold_lift_mm:
+            raise ConfigError(
+                f"valves.{port}_max_lift_mm = {getattr(v, f'{port}_max_lift_mm'):g}: must exceed"
+                f" threshold_lift_mm ({v.threshold_lift_mm:g})"
+            )
+    f = case.fuel
+    custom = [k for k in _FUEL_CUSTOM if getattr(f, k) not in (None,) and k != "O"]
+    if custom and len(custom) < 3:
+        missing = [k for k in ("C", "H", "lhv_MJ_per_kg") if getattr(f, k) is None]
+        raise ConfigError(f"fuel: a custom fuel needs C, H and lhv_MJ_per_kg; missing {', '.join(missing)}")
+
+
+def build_case(raw: Mapping, base_dir: Path | None = None, registry=None) -> Case:
+    """Validate a merged raw config into a :class:`Case` (raises ConfigError/PluginError)."""
+    if not isinstance(raw, Mapping):
+        raise ConfigError(f"config: expected a mapping of sections, got {raw!r}")
+    for key in raw:
+        if key not in TOP_KEYS:
+            raise ConfigError(
+                f"{key}: unknown section" + suggestion(str(key), TOP_KEYS)
+                + f"; sections: {', '.join(TOP_KEYS[:-2])}"
+            )
+    sections = {}
+    for sec, params in CORE_SCHEMA.items():
+        sections[sec] = SimpleNamespace(**validate_section(raw.get(sec), params, sec))
+    plugins = raw.get("plugins") or ()
+    if isinstance(plugins, str):
+        plugins = (plugins,)
+    if not isinstance(plugins, (list, tuple)) or not all(isinstance(x, str) for x in plugins):
+        raise ConfigError(f"plugins: expected a list of module names or .py paths, got {plugins!r}")
+    bdir = Path(base_dir) if base_dir is not None else Path.cwd()
+    plugins = tuple(
+        str((bdir / p).resolve()) if p.endswith(".py") and not Path(p).is_absolute() else p for p in plugins
+    )
+    if registry is None:
+        from .registry import get_registry
+
+        registry = get_registry(plugins)
+    subs = {}
+    for role in ROLES:
+        sec = raw.get(role) or {}
+        if isinstance(sec, str):
+            sec = {"model": sec}
+        if not isinstance(sec, Mapping):
+            raise ConfigError(f"{role}: expected a mapping with 'model' and its parameters, got {sec!r}")
+        model = sec.get("model", DEFAULT_MODELS[role])
+        if not isinstance(model, str):
+            raise ConfigError(f"{role}.model: expected a model name, got {model!r}")
+        cls = registry.submodel_class(role, model, where=f"{role}.model")
+        params = validate_section(sec, cls.params, f"{role}", ignore=("model",))
+        subs[role] = SubmodelChoice(role, model, params)
+    case = Case(
+        name=str(raw.get("name") or "case"),
+        submodels=subs,
+        plugins=plugins,
+        raw=copy.deepcopy(dict(raw)),
+        base_dir=bdir,
+        **sections,
+    )
+    _check_cross(case)
+    return case
+
+
+def load_config(path: str | Path = "demo", overrides: list[str] | tuple = (), registry=None) -> Case:
+    """Load, merge, override and validate one config (a path or a built-in name).
+
+    Parameters
+    ----------
+    path : str or Path
+        A YAML file, or the name of a built-in config such as ``"demo"``.
+    overrides : list of str
+        ``dotted.key=value`` strings applied after inheritance.
+    """
+    raw, base_dir = load_raw(path)
+    for text in overrides:
+        parts, value = parse_override(text)
+        raw = apply_override(raw, parts, value)
+    return build_case(raw, base_dir, registry)
+
+
+def case_with(case: Case, changes: Mapping[str, Any]) -> Case:
+    """A new validated case with dotted keys changed (used by sweeps)."""
+    raw = case.raw
+    for k, v in changes.items():
+        raw = set_dotted(raw, k, v)
+    raw = dict(raw)
+    return build_case(raw, case.base_dir)
+
+
+def flat_inputs(case: Case) -> dict[str, Any]:
+    """All validated inputs as ``section.key`` -> value (for tables and records)."""
+    out: dict[str, Any] = {}
+    for sec in CORE_SCHEMA:
+        for k, v in vars(case.section(sec)).items():
+            out[f"{sec}.{k}"] = v
+    for role, ch in case.submodels.items():
+        out[f"{role}.model"] = ch.model
+        for k, v in ch.params.items():
+            out[f"{role}.{k}"] = v
+    return out
+
+
+def is_number(x: Any) -> bool:
+    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(float(x))
+
+
+__all__ = [
+    "CORE_SCHEMA", "Case", "SubmodelChoice", "load_config", "build_case", "case_with",
+    "flat_inputs", "parse_override", "apply_override", "CyclesimError",
+]

@@ -1,0 +1,190 @@
+"""Writing results: atomic files, summary JSON, trace CSV, the printed table."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+import tempfile
+from pathlib import Path
+from typing import Iterable
+
+import numpy as np
+
+from .errors import CyclesimError
+
+CAUTION = (
+    "Results are model estimates. On a real engine approach spark advance, boost and knock"
+    " limits gradually, with knock detection, within the manufacturer's limits and the test"
+    " cell's procedures, local codes and licensed practice."
+)
+
+
+def atomic_write_text(path: Path, text: str) -> None:
+    """Write a file through a temporary file and a rename (never half-written)."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+
+
+def atomic_write_bytes(path: Path, data: bytes) -> None:
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+
+
+def prepare_out_dir(out: Path, force: bool) -> Path:
+    """Create the output folder; refuse to write into a non-empty one without ``force``."""
+    out = Path(out)
+    if out.exists():
+        if not out.is_dir():
+            raise CyclesimError(f"--out {out}: exists and is not a folder")
+        if any(out.iterdir()) and not force:
+            raise CyclesimError(f"--out {out}: folder exists and is not empty; use --force to overwrite")
+    out.mkdir(parents=True, exist_ok=True)
+    return out
+
+
+def trace_csv(trace: dict) -> str:
+    keys = list(trace)
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(keys)
+    cols = [np.asarray(trace[k]) for k in keys]
+    for row in zip(*cols):
+        w.writerow([f"{float(v):.10g}" for v in row])
+    return buf.getvalue()
+
+
+def write_case(res, out: Path, plots: bool = True) -> list[Path]:
+    """Write ``summary.json``, ``trace.csv`` and the plots of one case into ``out``."""
+    out = Path(out)
+    written = []
+    data = res.summary_json()
+    data["caution"] = CAUTION
+    data["conventions"] = {
+        "crank_angle": "degrees, 0 = firing TDC, negative before it; -360/360 = gas-exchange TDC",
+        "units": "in every key's name",
+    }
+    atomic_write_text(out / "summary.json", json.dumps(data, indent=2) + "\n")
+    written.append(out / "summary.json")
+    if res.trace:
+        atomic_write_text(out / "trace.csv", trace_csv(res.trace))
+        written.append(out / "trace.csv")
+    if plots and res.trace:
+        from .plots import plot_case
+
+        written.extend(plot_case(res, out))
+    return written
+
+
+def _fmt(v, spec=".2f"):
+    if v is None or (isinstance(v, float) and not np.isfinite(v)):
+        return "-"
+    return format(v, spec)
+
+
+def summary_table(res) -> str:
+    """The short printed table, grouped the way a test engineer reads it."""
+    s = res.summary
+    lines: list[str] = []
+    mode = res.inputs.get("simulation.mode", "full")
+
+    def row(label, key, unit="", spec=".2f", scale=1.0):
+        v = s.get(key)
+        if v is None:
+            return
+        lines.append(f"  {label:<34s}{_fmt(v * scale if isinstance(v, float) else v, spec):>10s}  {unit}")
+
+    def head(t):
+        lines.append(t)
+
+    eng = f"{res.inputs.get('engine.cylinders', 1)} cyl"
+    lines.append(f"{res.name}  ({eng}, {res.inputs['operating.speed_rpm']:g} rpm, lambda {res.inputs['operating.lambda']:g})")
+    if mode == "full":
+        conv = "settled" if s.get("converged") else "NOT settled"
+        lines.append(f"full 720 deg cycle, {conv} after {int(s.get('cycles_to_converge', 0))} cycles")
+        head("Indicated")
+        row("net IMEP", "imep_net_bar", "bar")
+        row("gross IMEP", "imep_gross_bar", "bar")
+        row("PMEP (pumping loss)", "pmep_bar", "bar")
+        row("net indicated efficiency", "eta_indicated_net", "%", ".1f", 100)
+        head("Losses")
+        row("FMEP (friction + accessories)", "fmep_bar", "bar")
+        row("mechanical efficiency", "mechanical_efficiency", "%", ".1f", 100)
+        head("Brake")
+        row("BMEP", "bmep_bar", "bar")
+        row("torque (engine)", "torque_Nm", "N m", ".1f")
+        row("power (engine)", "power_kW", "kW", ".1f")
+        row("BSFC", "bsfc_g_per_kWh", "g/kWh", ".0f")
+        row("brake efficiency", "eta_brake", "%", ".1f", 100)
+        head("Gas exchange")
+        row("volumetric efficiency", "volumetric_efficiency", "%", ".1f", 100)
+        row("trapped mass", "trapped_mass_mg", "mg", ".1f")
+        row("residual gas fraction", "residual_fraction", "%", ".1f", 100)
+        row("blowby (of trapped mass)", "blowby_fraction", "%", ".2f", 100)
+        row("exhaust temperature (enthalpy avg)", "exhaust_temperature_K", "K", ".0f")
+    else:
+        lines.append("closed cycle, IVC to EVO")
+        row("closed-cycle IMEP", "imep_closed_bar", "bar")
+        row("closed-cycle efficiency", "eta_closed_cycle", "%", ".1f", 100)
+        row("trapped mass", "trapped_mass_mg", "mg", ".1f")
+        row("blowby (of trapped mass)", "blowby_fraction", "%", ".2f", 100)
+    head("Combustion")
+    row("spark advance", "spark_advance_deg", "deg BTDC", ".1f")
+    row("CA10 / CA50 / CA90", "ca10_deg", "", ".1f")
+    if "ca10_deg" in s:
+        lines[-1] = (
+            f"  {'CA10 / CA50 / CA90':<34s}{_fmt(s['ca10_deg'], '.1f'):>6s} /{_fmt(s['ca50_deg'], '.1f'):>6s}"
+            f" /{_fmt(s['ca90_deg'], '.1f'):>6s}  deg"
+        )
+    row("10-90 % burn duration", "burn_10_90_deg", "deg", ".1f")
+    row("peak pressure", "p_max_bar", "bar", ".1f")
+    row("angle of peak pressure", "theta_pmax_deg", "deg ATDC", ".1f")
+    row("max pressure rise rate", "dp_dtheta_max_bar_per_deg", "bar/deg", ".2f")
+    row("peak mean gas temperature", "T_max_K", "K", ".0f")
+    row("combustion efficiency", "combustion_efficiency", "%", ".1f", 100)
+    eb = s.get("energy_balance")
+    if isinstance(eb, dict):
+        base_key = "fuel_energy_J" if "fuel_energy_J" in eb else "chemical_energy_released_J"
+        base = eb[base_key]
+        head(f"Energy balance (% of {'fuel energy' if base_key == 'fuel_energy_J' else 'chemical energy released'}, {base:.1f} J)")
+        for k, v in eb.items():
+            if k in (base_key, "closure_fraction"):
+                continue
+            label = k.replace("_J", "").replace("_", " ")
+            lines.append(f"  {label:<34s}{100 * v / base:>10.2f}  %")
+    for w in res.warnings:
+        lines.append(f"warning: {w}")
+    lines.append(f"note: {CAUTION}")
+    return "\n".join(lines)
+
+
+def write_rows_csv(path: Path, rows: Iterable[dict], columns: list[str]) -> None:
+    buf = io.StringIO()
+    w = csv.DictWriter(buf, fieldnames=columns, extrasaction="ignore", lineterminator="\n")
+    w.writeheader()
+    for r in rows:
+        w.writerow(r)
+    atomic_write_text(path, buf.getvalue())

@@ -1,0 +1,144 @@
+"""Plots (the only module that imports matplotlib)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+
+def _plt():
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    plt.rcParams.update({
+        "figure.dpi": 110, "axes.grid": True, "grid.alpha": 0.3, "axes.spines.top": False,
+        "axes.spines.right": False, "font.size": 10, "axes.titlesize": 11,
+    })
+    return plt
+
+
+def _save(fig, path: Path) -> Path:
+    from .output import atomic_write_bytes
+    import io
+
+    buf = io.BytesIO()
+    fig.tight_layout()
+    fig.savefig(buf, format="png")
+    atomic_write_bytes(path, buf.getvalue())
+    import matplotlib.pyplot as plt
+
+    plt.close(fig)
+    return path
+
+
+def _tdc_lines(ax, th):
+    for x in (-360, -180, 0, 180, 360):
+        if th.min() <= x <= th.max():
+            ax.axvline(x, color="0.6", lw=0.6, ls=":")
+
+
+def plot_case(res, out: Path) -> list[Path]:
+    """Pressure vs crank angle, p-V, log p - log V, heat release and mfb, valves, energy balance."""
+    plt = _plt()
+    out = Path(out)
+    t = res.trace
+    th = t["crank_deg"]
+    p = t["pressure_bar"]
+    V = t["volume_m3"] * 1e6  # cm^3
+    s = res.summary
+    files = []
+    title = res.name
+
+    fig, ax = plt.subplots(figsize=(7.5, 4.2))
+    ax.plot(th, p, color="tab:blue", lw=1.4, label="cylinder")
+    if "motored_pressure_bar" in t:
+        closed = np.isfinite(t["motored_pressure_bar"])
+        ax.plot(th[closed], t["motored_pressure_bar"][closed], color="0.5", lw=1, ls="--", label="motored (Woschni reference)")
+    if "theta_pmax_deg" in s:
+        ax.plot([s["theta_pmax_deg"]], [s["p_max_bar"]], "o", color="tab:red", ms=4,
+                label=f"peak {s['p_max_bar']:.1f} bar at {s['theta_pmax_deg']:.1f} deg")
+    if np.isfinite(s.get("spark_deg", np.nan)) and th.min() <= s["spark_deg"] <= th.max():
+        ax.axvline(s["spark_deg"], color="tab:orange", lw=0.9, ls="--", label=f"spark {s['spark_advance_deg']:.1f} deg BTDC")
+    _tdc_lines(ax, th)
+    ax.set_xlabel("crank angle [deg]  (0 = firing TDC)")
+    ax.set_ylabel("cylinder pressure [bar]")
+    ax.set_title(f"Cylinder pressure - {title}")
+    ax.legend(frameon=False, fontsize=8)
+    files.append(_save(fig, out / "pressure.png"))
+
+    fig, ax = plt.subplots(figsize=(6, 4.5))
+    ax.plot(V, p, color="tab:blue", lw=1.3)
+    ax.set_xlabel("cylinder volume [cm$^3$]")
+    ax.set_ylabel("cylinder pressure [bar]")
+    ax.set_title("Indicator diagram p-V")
+    files.append(_save(fig, out / "pv.png"))
+
+    fig, ax = plt.subplots(figsize=(6, 4.5))
+    ax.loglog(V, p, color="tab:blue", lw=1.3)
+    ax.set_xlabel("cylinder volume [cm$^3$] (log)")
+    ax.set_ylabel("cylinder pressure [bar] (log)")
+    ax.set_title("log p - log V" + (" (pumping loop at the bottom)" if "pmep_bar" in s else ""))
+    ax.grid(True, which="both", alpha=0.25)
+    files.append(_save(fig, out / "logp_logv.png"))
+
+    fig, ax1 = plt.subplots(figsize=(7.5, 4.2))
+    lo = s.get("spark_deg", -40) - 10 if np.isfinite(s.get("spark_deg", np.nan)) else -60
+    hi = (s.get("ca90_deg", 60) or 60) + 40 if np.isfinite(s.get("ca90_deg", np.nan)) else 100
+    win = (th >= lo) & (th <= hi)
+    ax1.plot(th[win], t["heat_release_rate_J_per_deg"][win], color="tab:red", lw=1.4, label="heat release rate")
+    ax1.plot(th[win], t["wall_heat_rate_J_per_deg"][win], color="tab:purple", lw=1.0, ls="--", label="wall heat rate")
+    ax1.set_xlabel("crank angle [deg]  (0 = firing TDC)")
+    ax1.set_ylabel("rate [J/deg]")
+    ax2 = ax1.twinx()
+    ax2.plot(th[win], t["mfb"][win], color="tab:green", lw=1.2, label="mass fraction burned")
+    ax2.set_ylabel("mass fraction burned [-]")
+    ax2.set_ylim(0, 1.05)
+    ax2.grid(False)
+    for key, lab in (("ca10_deg", "CA10"), ("ca50_deg", "CA50"), ("ca90_deg", "CA90")):
+        v = s.get(key)
+        if v is not None and np.isfinite(v):
+            ax2.axvline(v, color="tab:green", lw=0.6, ls=":")
+            ax2.text(v, 1.01, lab, fontsize=7, ha="center", color="tab:green")
+    h1, l1 = ax1.get_legend_handles_labels()
+    h2, l2 = ax2.get_legend_handles_labels()
+    ax1.legend(h1 + h2, l1 + l2, frameon=False, fontsize=8, loc="center right")
+    ax1.set_title("Heat release and mass fraction burned")
+    files.append(_save(fig, out / "heat_release.png"))
+
+    if "intake_lift_mm" in t:
+        fig, (a1, a2) = plt.subplots(2, 1, figsize=(7.5, 5.5), sharex=True)
+        a1.plot(th, t["intake_lift_mm"], color="tab:blue", label="intake")
+        a1.plot(th, t["exhaust_lift_mm"], color="tab:red", label="exhaust")
+        a1.set_ylabel("valve lift [mm]")
+        a1.legend(frameon=False, fontsize=8)
+        a1.set_title("Valve lift and mass flow (positive into the cylinder)")
+        a2.plot(th, t["intake_flow_g_per_s"], color="tab:blue", label="intake valves")
+        a2.plot(th, t["exhaust_flow_g_per_s"], color="tab:red", label="exhaust valves")
+        a2.axhline(0, color="0.4", lw=0.6)
+        a2.set_ylabel("mass flow [g/s]")
+        a2.set_xlabel("crank angle [deg]  (0 = firing TDC)")
+        a2.legend(frameon=False, fontsize=8)
+        for a in (a1, a2):
+            _tdc_lines(a, th)
+        files.append(_save(fig, out / "valves.png"))
+
+    eb = s.get("energy_balance")
+    if isinstance(eb, dict) and "fuel_energy_J" in eb:
+        base = eb["fuel_energy_J"]
+        keys = [k for k in eb if k not in ("fuel_energy_J", "closure_fraction")]
+        vals = [100 * eb[k] / base for k in keys]
+        labels = [k.replace("_J", "").replace("_", " ") for k in keys]
+        fig, ax = plt.subplots(figsize=(7.5, 4.2))
+        colors = ["tab:green", "tab:olive", "tab:purple", "tab:red", "tab:brown", "tab:gray", "0.7", "0.85"]
+        bars = ax.barh(labels[::-1], vals[::-1], color=colors[: len(vals)][::-1])
+        for b, v in zip(bars, vals[::-1]):
+            ax.text(b.get_width() + 0.5 if v >= 0 else b.get_width() - 0.5, b.get_y() + b.get_height() / 2,
+                    f"{v:.1f} %", va="center", ha="left" if v >= 0 else "right", fontsize=8)
+        ax.set_xlabel("share of fuel energy [%]")
+        ax.set_title(f"Where the fuel energy goes ({base:.0f} J per cylinder and cycle)")
+        ax.axvline(0, color="0.3", lw=0.6)
+        files.append(_save(fig, out / "energy_balance.png"))
+    return files

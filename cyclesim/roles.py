@@ -1,0 +1,349 @@
+"""Submodel roles: the small interfaces the solver knows submodels by.
+
+A *role* is one physical concern (burn rate, wall heat transfer, ring
+leakage, valve flow, boundary plenums, friction, end-gas knock).  A plug-in
+implements a role by subclassing its base class below, declaring ``name``,
+``summary``, ``params`` and ``references``, and registering the class through
+the ``cyclesim_register_submodels`` hook (see :mod:`cyclesim.hookspecs`).
+
+Conventions for implementers
+----------------------------
+* Every array has a leading case axis of length ``B``.  Parameter values
+  arrive as float arrays of shape ``(B,)`` (numbers) or plain Python values
+  (choices, paths, tables; equal for all cases of a batch).
+* SI units inside the code.  Physical rates are per **second** (kg/s, W);
+  the solver converts to crank angle.  The one exception is the burn role,
+  whose rate is per crank **degree** because burn laws are written that way.
+* A submodel may add integrated state components (:meth:`Submodel.states`)
+  and return their time derivatives from :meth:`Submodel.derivatives`.
+* Never mutate the :class:`GasState` you are given; it is shared by all
+  submodels within one right-hand-side evaluation.
+* Methods are called in the hot loop: keep them to a few vectorised numpy
+  operations, no Python loops over cases, no pluggy calls.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from types import SimpleNamespace
+from typing import Any, ClassVar, Mapping
+
+import numpy as np
+
+from .params import Param, StateVar
+
+ROLES = (
+    "burn",
+    "heat_transfer",
+    "blowby",
+    "valve_flow",
+    "boundary",
+    "friction",
+    "knock",
+)
+"""Role names in the order they appear in a config."""
+
+
+@dataclass
+class SetupContext:
+    """What a submodel may use when it is built (once per batch).
+
+    Attributes
+    ----------
+    B : int
+        Number of cases in the batch.
+    geometry : cyclesim.geometry.Geometry
+        Engine geometry, arrays of shape (B,).
+    speed_rpm : ndarray (B,)
+        Engine speed [rpm].
+    events : SimpleNamespace
+        Valve events as arrays (B,) [deg]: ``ivo``, ``ivc``, ``evo``, ``evc``
+        (crank angle, 0 = firing TDC, negative before it), and
+        ``threshold_lift_m``.
+    valves : SimpleNamespace
+        The ``valves`` config section as arrays (B,) (diameters, lifts, counts).
+    operating : SimpleNamespace
+        The ``operating`` config section as arrays (B,) (SI-suffixed keys as
+        written, e.g. ``intake_pressure_bar``).
+    gas : cyclesim.thermo.GasTables
+        Property tables of the batch's fresh charge and burned gas.
+    base_dir : pathlib.Path
+        Folder of the config file, for resolving relative paths.
+    """
+
+    B: int
+    geometry: Any
+    speed_rpm: np.ndarray
+    events: SimpleNamespace
+    valves: SimpleNamespace
+    operating: SimpleNamespace
+    gas: Any
+    base_dir: Any
+    walls: SimpleNamespace = field(default_factory=SimpleNamespace)
+
+
+class GasState:
+    """The cylinder state at one right-hand-side evaluation (read-only by convention).
+
+    All arrays have shape (B,) unless noted.  Built once per evaluation by the
+    solver and handed to every submodel.
+
+    Attributes
+    ----------
+    theta : float
+        Crank angle [deg], 0 = firing TDC; the full cycle runs on past 360.
+    omega_deg : ndarray
+        Crank speed [deg/s] (= 6 x rpm).
+    V, dV : ndarray
+        Volume [m^3] and its crank-angle derivative [m^3/deg].
+    A_head, A_piston, A_liner : ndarray
+        Exposed wall areas [m^2].
+    Sp : ndarray
+        Mean piston speed [m/s].
+    m, T, p, rho : ndarray
+        Cylinder mass [kg], temperature [K], pressure [Pa], density [kg/m^3].
+    R, cv, cp, gamma : ndarray
+        Mixture gas constant [J/(kg K)], frozen specific heats [J/(kg K)],
+        and their ratio [-].
+    y_b : ndarray
+        Mass fraction of burned gas (residual, EGR, and products) [-].
+    x_b : ndarray
+        Burn progress of the current charge, 0..1 [-].
+    burning : ndarray of bool
+        True from the start of combustion to the end of the cycle's closed part.
+    closed : ndarray of bool
+        True between intake valve closing and exhaust valve opening.
+    p_ivc, T_ivc, V_ivc : ndarray
+        State at the last intake valve closing [Pa, K, m^3] (Woschni's reference).
+    T_wall_head, T_wall_piston, T_wall_liner : ndarray
+        Wall temperatures [K].
+    p_int, T_int, R_int, gamma_int, y_b_int : ndarray
+        Intake plenum state (filled from the boundary role).
+    p_exh, T_exh, R_exh, gamma_exh : ndarray
+        Exhaust plenum state.
+    sub : dict[str, ndarray]
+        Submodel state components by ``"role.name"``.
+    geometry : cyclesim.geometry.Geometry
+    """
+
+    __slots__ = (
+        "theta", "omega_deg", "V", "dV", "A_head", "A_piston", "A_liner", "Sp",
+        "m", "T", "p", "rho", "R", "cv", "cp", "gamma", "y_b", "x_b",
+        "burning", "closed", "p_ivc", "T_ivc", "V_ivc",
+        "T_wall_head", "T_wall_piston", "T_wall_liner",
+        "p_int", "T_int", "R_int", "gamma_int", "y_b_int",
+        "p_exh", "T_exh", "R_exh", "gamma_exh",
+        "mdot_int", "mdot_exh", "mdot_blowby", "Qdot_wall",
+        "sub", "geometry",
+    )
+
+    def __init__(self, **kw: Any) -> None:
+        for k, v in kw.items():
+            setattr(self, k, v)
+
+
+class Submodel:
+    """Base of every submodel.  Subclass one of the role classes below.
+
+    Class attributes to declare
+    ---------------------------
+    name : str
+        The name a config selects it by (``model: woschni``).
+    summary : str
+        One line for ``cyclesim plugins``.
+    params : tuple of Param
+        Declared parameters (name with unit, default, range, meaning).
+    references : tuple of str
+        Published sources of the method and its default coefficients.
+    """
+
+    role: ClassVar[str] = ""
+    name: ClassVar[str] = ""
+    summary: ClassVar[str] = ""
+    params: ClassVar[tuple[Param, ...]] = ()
+    references: ClassVar[tuple[str, ...]] = ()
+
+    def __init__(self, values: Mapping[str, Any], ctx: SetupContext) -> None:
+        self.p = SimpleNamespace(**values)
+        self.ctx = ctx
+        self.B = ctx.B
+
+    # -- optional integrated state ------------------------------------
+    def states(self) -> tuple[StateVar, ...]:
+        """State components this submodel integrates (default: none)."""
+        return ()
+
+    def derivatives(self, s: GasState) -> Mapping[str, np.ndarray]:
+        """Time derivatives [unit/s] of the components named in :meth:`states`."""
+        return {}
+
+    # -- optional end-of-run figures ----------------------------------
+    def figures(self, trace: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+        """Extra summary figures (unit in the key) from the finished trace.
+
+        ``trace`` holds the solver's output arrays of shape (B, n) keyed as in
+        ``trace.csv`` plus this submodel's states as ``"role.name"``.
+        """
+        return {}
+
+    def warnings(self, trace: Mapping[str, np.ndarray]) -> list[list[str]]:
+        """Per-case warning texts (a list of B lists), e.g. validity-range exits."""
+        return [[] for _ in range(self.B)]
+
+
+class BurnRate(Submodel):
+    """Rate of burning of the charge (mass fraction burned per crank degree)."""
+
+    role = "burn"
+
+    def start_deg(self) -> np.ndarray:
+        """Start of combustion [deg] per case (spark plus ignition delay)."""
+        raise NotImplementedError
+
+    def spark_deg(self) -> np.ndarray:
+        """Spark timing as a crank angle [deg] (negative = before TDC)."""
+        return self.start_deg()
+
+    def combustion_efficiency(self) -> np.ndarray:
+        """Fraction of the charge's fuel energy that is released (B,) [-]."""
+        return np.ones(self.B)
+
+    def rate(self, s: GasState) -> np.ndarray:
+        """dx_b/dtheta [1/deg] of the burn progress, zero before the start."""
+        raise NotImplementedError
+
+    def fraction(self, theta_deg: np.ndarray) -> np.ndarray | None:
+        """Closed-form burn progress x_b on a crank grid (B, n), if the law has one."""
+        return None
+
+
+class WallHeatTransfer(Submodel):
+    """Convective (and optionally radiative) heat transfer from gas to walls."""
+
+    role = "heat_transfer"
+
+    def coefficient(self, s: GasState) -> np.ndarray:
+        """Heat-transfer coefficient [W/(m^2 K)] (B,)."""
+        raise NotImplementedError
+
+    def heat_flow(self, s: GasState) -> np.ndarray:
+        """Heat flow from gas to walls [W] (B,), positive = gas loses heat."""
+        h = self.coefficient(s)
+        return h * (
+            s.A_head * (s.T - s.T_wall_head)
+            + s.A_piston * (s.T - s.T_wall_piston)
+            + s.A_liner * (s.T - s.T_wall_liner)
+        )
+
+
+class RingLeakage(Submodel):
+    """Leakage (blowby) past the ring pack to the crankcase."""
+
+    role = "blowby"
+
+    def mass_flow(self, s: GasState) -> np.ndarray:
+        """Mass flow from cylinder to crankcase [kg/s] (B,), >= 0."""
+        raise NotImplementedError
+
+
+class ValveFlow(Submodel):
+    """Gas exchange through the intake and exhaust valves."""
+
+    role = "valve_flow"
+
+    def mass_flows(self, s: GasState) -> tuple[np.ndarray, np.ndarray]:
+        """(intake, exhaust) mass flows [kg/s] (B,), positive **into** the cylinder.
+
+        ``s`` carries the plenum states (``p_int``, ``T_int``, ... ``p_exh``).
+        """
+        raise NotImplementedError
+
+    def lift(self, theta_deg: np.ndarray) -> dict[str, np.ndarray]:
+        """Valve lift [m] on a crank grid: ``{"intake": (B,n), "exhaust": (B,n)}``."""
+        raise NotImplementedError
+
+    def flow_area(self, theta_deg: np.ndarray) -> dict[str, np.ndarray]:
+        """Effective flow area C_D x A [m^2] on a crank grid, as :meth:`lift`."""
+        raise NotImplementedError
+
+
+class Boundary(Submodel):
+    """Intake and exhaust plenum states seen by the valves."""
+
+    role = "boundary"
+    constant: ClassVar[bool] = False
+    """True if the plenum states never change: the solver then evaluates them once."""
+
+    def intake(self, theta: float, sub: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Intake plenum (pressure [Pa], temperature [K], burned-gas (EGR) mass fraction [-])."""
+        raise NotImplementedError
+
+    def exhaust(self, theta: float, sub: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+        """Exhaust plenum (pressure [Pa], temperature [K]); its gas is burned gas."""
+        raise NotImplementedError
+
+
+@dataclass
+class FrictionInputs:
+    """What a friction correlation may use, all arrays (B,) unless noted.
+
+    Attributes
+    ----------
+    geometry : Geometry
+    speed_rpm, Sp : ndarray
+        Engine speed [rpm] and mean piston speed [m/s].
+    p_max : ndarray
+        Peak cylinder pressure [Pa].
+    p_intake : ndarray
+        Intake plenum pressure [Pa].
+    imep_gross : ndarray
+        Gross IMEP [Pa].
+    theta_deg : ndarray (n,)
+        Crank grid of the pressure trace [deg].
+    p_trace : ndarray (B, n)
+        Cylinder pressure on that grid [Pa].
+    n_cylinders : ndarray
+    """
+
+    geometry: Any
+    speed_rpm: np.ndarray
+    Sp: np.ndarray
+    p_max: np.ndarray
+    p_intake: np.ndarray
+    imep_gross: np.ndarray
+    theta_deg: np.ndarray
+    p_trace: np.ndarray
+    n_cylinders: np.ndarray
+
+
+class Friction(Submodel):
+    """Mechanical friction (rubbing plus accessories), as mean effective pressure.
+
+    Pumping is accounted separately by the cycle; a correlation fitted to
+    motored data that includes pumping must say so in ``summary`` and set
+    ``includes_pumping = True`` so it is not added to PMEP again.
+    """
+
+    role = "friction"
+    includes_pumping: ClassVar[bool] = False
+
+    def fmep(self, f: FrictionInputs) -> dict[str, np.ndarray]:
+        """FMEP components [Pa] by name (each (B,)); their sum is the total."""
+        raise NotImplementedError
+
+
+class Knock(Submodel):
+    """End-gas autoignition indicator (integrates its own state)."""
+
+    role = "knock"
+
+
+ROLE_BASES: dict[str, type[Submodel]] = {
+    "burn": BurnRate,
+    "heat_transfer": WallHeatTransfer,
+    "blowby": RingLeakage,
+    "valve_flow": ValveFlow,
+    "boundary": Boundary,
+    "friction": Friction,
+    "knock": Knock,
+}

@@ -1,0 +1,662 @@
+"""Gas properties: species polynomials, fresh charge, burned gas, and the solver's tables.
+
+Three layers, bottom up:
+
+1. Species properties from NASA 7-coefficient polynomials
+   (:mod:`cyclesim.data.nasa7`): :func:`species_thermo_dimless`,
+   :func:`species_cp_mole`, :func:`species_h_mole`, :func:`species_s_mole`.
+2. Ideal-gas mixtures of fixed composition: their polynomial is the
+   mole-weighted sum of the species' (:func:`mixture_nasa7`); the fresh charge
+   of air and fuel vapour at an equivalence ratio (:func:`fresh_charge`).
+3. :class:`GasTables`, built by :func:`build_gas_tables`: what the cycle
+   solver calls in its right-hand side.  The cylinder gas is a mass-weighted
+   mix of fresh charge (mass fraction ``1 - y``) and burned gas (``y``: the
+   products of that same fresh charge; residual and EGR count as burned).
+
+Energy datum
+------------
+All energies and enthalpies are "absolute": they include the enthalpy of
+formation, with the elements in their reference states at 298.15 K as zero
+(the datum of the NASA and GRI-Mech data sets).  Burning at constant
+temperature therefore lowers ``u`` by the heat of reaction, and the solver
+needs no separate heat-release term.
+
+Units are SI and per unit mass [J/kg, J/(kg K)] unless a name says ``_mole``.
+"""
+
+from __future__ import annotations
+
+import functools
+from collections import namedtuple
+from typing import TYPE_CHECKING, Mapping, Sequence
+
+import numpy as np
+
+from .data.nasa7 import ATOMIC_MASS_KG_PER_MOL, NASA7
+from .errors import ConfigError
+from .params import suggestion
+
+if TYPE_CHECKING:  # pragma: no cover
+    from .fuels import Fuel
+
+R_U = 8.314462618
+"""Molar gas constant [J/(mol K)] (CODATA 2018, exact by the 2019 SI)."""
+
+P_REF = 101325.0
+"""Standard-state pressure of the polynomial data sets [Pa] (1 atm, GRI-Mech 3.0)."""
+
+T_REF = 298.15
+"""Reference temperature of the enthalpy datum [K]."""
+
+T_MID = 1000.0
+"""Common switch temperature of the low and high polynomial ranges [K]."""
+
+AIR_MOLE_FRACTIONS: dict[str, float] = {"O2": 0.2095, "N2": 0.7812, "AR": 0.0093}
+"""Dry air by mole (common practice; CO2 and traces folded into N2 and Ar)."""
+
+ELEMENTS = ("C", "H", "O", "N", "AR")
+"""Element order of element-amount vectors (``b`` arrays) [-]."""
+
+K_WGS_COMPLETE = 3.5
+"""Water-gas-shift constant [CO][H2O]/([CO2][H2]) used for rich complete-combustion
+products (Heywood 1988, section 4.9.1, from memory: 3.5 as a representative value)."""
+
+
+# ----------------------------------------------------------------------------
+# 1. Species
+# ----------------------------------------------------------------------------
+def molar_mass(elements: Mapping[str, float]) -> float:
+    """Molar mass [kg/mol] of a formula given as ``{element: atoms}``."""
+    return float(sum(ATOMIC_MASS_KG_PER_MOL[e] * n for e, n in elements.items()))
+
+
+def species_molar_mass(name: str) -> float:
+    """Molar mass [kg/mol] of a species in :data:`cyclesim.data.nasa7.NASA7`."""
+    return molar_mass(_species_record(name)[5])
+
+
+def _species_record(name: str) -> tuple:
+    try:
+        return NASA7[name]
+    except KeyError:
+        raise ConfigError(
+            f"unknown species {name!r}" + suggestion(name, NASA7)
+        ) from None
+
+
+def nasa7_arrays(names: Sequence[str]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Stacked coefficients of several species.
+
+    Returns
+    -------
+    low, high : ndarray (S, 7)
+        Coefficients of the low and high temperature ranges [-].
+    t_mid : ndarray (S,)
+        Switch temperatures [K].
+    """
+    recs = [_species_record(n) for n in names]
+    low = np.array([r[3] for r in recs], dtype=float)
+    high = np.array([r[4] for r in recs], dtype=float)
+    t_mid = np.array([r[1] for r in recs], dtype=float)
+    return low, high, t_mid
+
+
+def nasa7_dimless(low, high, t_mid: float, T) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """cp/R, h/(R T) and s°/R of one polynomial at temperatures ``T``.
+
+    Parameters
+    ----------
+    low, high : array_like (7,)
+        Coefficients of the low and high range [-].
+    t_mid : float
+        Switch temperature [K].
+    T : numeric
+        Temperature [K], any shape.
+
+    Returns
+    -------
+    cp_R, h_RT, s_R : ndarray
+        Dimensionless heat capacity, enthalpy and standard entropy (at
+        :data:`P_REF`), shape of ``T``.
+    """
+    T = np.asarray(T, dtype=float)
+    low = np.asarray(low, dtype=float)[None, :]
+    high = np.asarray(high, dtype=float)[None, :]
+    cp, h, s = _dimless_many(low, high, np.array([t_mid], dtype=float), T)
+    return cp[..., 0], h[..., 0], s[..., 0]
+
+
+def species_thermo_dimless(names: Sequence[str], T) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """cp/R, h/(RT), s°/R of species ``names`` at ``T``; shape ``T.shape + (S,)``."""
+    low, high, t_mid = nasa7_arrays(names)
+    T = np.asarray(T, dtype=float)
+    return _dimless_many(low, high, t_mid, T)
+
+
+def _dimless_many(low, high, t_mid, T):
+    """As :func:`nasa7_dimless` for S species: result shape ``T.shape + (S,)``."""
+    Tn = T[..., None]
+    a = np.where(Tn[..., None] < t_mid[:, None], low, high)  # (..., S, 7)
+    a1, a2, a3, a4, a5, a6, a7 = (a[..., i] for i in range(7))
+    cp = a1 + Tn * (a2 + Tn * (a3 + Tn * (a4 + Tn * a5)))
+    h = a1 + Tn * (a2 / 2 + Tn * (a3 / 3 + Tn * (a4 / 4 + Tn * a5 / 5))) + a6 / Tn
+    s = a1 * np.log(Tn) + Tn * (a2 + Tn * (a3 / 2 + Tn * (a4 / 3 + Tn * a5 / 4))) + a7
+    return cp, h, s
+
+
+def species_cp_mole(name: str, T) -> np.ndarray:
+    """Molar isobaric heat capacity [J/(mol K)] of one species at ``T`` [K]."""
+    return species_thermo_dimless([name], T)[0][..., 0] * R_U
+
+
+def species_h_mole(name: str, T) -> np.ndarray:
+    """Absolute molar enthalpy [J/mol] (formation included) of one species at ``T`` [K]."""
+    T = np.asarray(T, dtype=float)
+    return species_thermo_dimless([name], T)[1][..., 0] * R_U * T
+
+
+def species_s_mole(name: str, T) -> np.ndarray:
+    """Molar standard entropy at :data:`P_REF` [J/(mol K)] of one species at ``T`` [K]."""
+    return species_thermo_dimless([name], T)[2][..., 0] * R_U
+
+
+def poly_h_mole(nasa: tuple, T) -> np.ndarray:
+    """Absolute molar enthalpy [J/mol] from a ``(T_low, T_mid, T_high, low7, high7)`` record."""
+    T = np.asarray(T, dtype=float)
+    return nasa7_dimless(nasa[3], nasa[4], nasa[1], T)[1] * R_U * T
+
+
+def poly_cp_mole(nasa: tuple, T) -> np.ndarray:
+    """Molar isobaric heat capacity [J/(mol K)] from a NASA-7 record."""
+    return nasa7_dimless(nasa[3], nasa[4], nasa[1], T)[0] * R_U
+
+
+# ----------------------------------------------------------------------------
+# 2. Mixtures of fixed composition
+# ----------------------------------------------------------------------------
+def mixture_nasa7(
+    mole_fractions: Mapping[str, float], records: Mapping[str, tuple] | None = None
+) -> tuple[np.ndarray, np.ndarray, float]:
+    """Polynomial of an ideal-gas mixture of fixed composition.
+
+    The mixture's cp/R, h/RT, s°/R (the last without the mixing entropy) are
+    the mole-weighted sums of the species', hence so are the coefficients.
+
+    Parameters
+    ----------
+    mole_fractions : mapping
+        Species name -> mole fraction [-] (normalised here).
+    records : mapping, optional
+        Extra NASA-7 records ``(T_low, T_mid, T_high, low7, high7, elements)``
+        by name (e.g. a fuel vapour) that are not in the species data.
+
+    Returns
+    -------
+    low, high : ndarray (7,)
+        Mixture coefficients (per mole of mixture) [-].
+    M : float
+        Mixture molar mass [kg/mol].
+    """
+    records = {} if records is None else records
+    total = float(sum(mole_fractions.values()))
+    low = np.zeros(7)
+    high = np.zeros(7)
+    M = 0.0
+    for name, x in mole_fractions.items():
+        rec = records[name] if name in records else _species_record(name)
+        if abs(rec[1] - T_MID) > 1e-9:
+            raise ValueError(f"{name}: polynomial switch at {rec[1]} K, mixing needs {T_MID} K")
+        x = x / total
+        low += x * np.asarray(rec[3], dtype=float)
+        high += x * np.asarray(rec[4], dtype=float)
+        M += x * molar_mass(rec[5])
+    return low, high, M
+
+
+def stoich_o2_per_fuel(C: float, H: float, O: float) -> float:
+    """Moles of O2 needed per mole of fuel C_c H_h O_o for complete combustion [-]."""
+    return C + H / 4.0 - O / 2.0
+
+
+def air_molar_mass() -> float:
+    """Molar mass of the dry air of :data:`AIR_MOLE_FRACTIONS` [kg/mol]."""
+    return sum(x * species_molar_mass(n) for n, x in AIR_MOLE_FRACTIONS.items())
+
+
+def fresh_charge(fuel: "Fuel", phi: float) -> dict[str, float]:
+    """Moles of each component of the fresh charge per mole of fuel [-].
+
+    Keys ``"FUEL"``, ``"O2"``, ``"N2"``, ``"AR"``.  ``phi`` is the fuel-air
+    equivalence ratio (actual over stoichiometric fuel/air) [-].
+    """
+    n_o2 = stoich_o2_per_fuel(fuel.C, fuel.H, fuel.O) / phi
+    n_air = n_o2 / AIR_MOLE_FRACTIONS["O2"]
+    return {
+        "FUEL": 1.0,
+        "O2": n_o2,
+        "N2": n_air * AIR_MOLE_FRACTIONS["N2"],
+        "AR": n_air * AIR_MOLE_FRACTIONS["AR"],
+    }
+
+
+def fresh_charge_elements(fuel: "Fuel", phi: float) -> tuple[np.ndarray, float]:
+    """Element amounts of the fresh charge [mol/kg] (order :data:`ELEMENTS`) and y_fuel [-]."""
+    n = fresh_charge(fuel, phi)
+    m = (
+        fuel.molar_mass_kg_per_mol
+        + n["O2"] * species_molar_mass("O2")
+        + n["N2"] * species_molar_mass("N2")
+        + n["AR"] * species_molar_mass("AR")
+    )
+    b = np.array(
+        [fuel.C, fuel.H, fuel.O + 2 * n["O2"], fuel.N + 2 * n["N2"], n["AR"]]
+    ) / m
+    return b, fuel.molar_mass_kg_per_mol / m
+
+
+def complete_products(b, k_wgs: float = K_WGS_COMPLETE) -> dict[str, np.ndarray]:
+    """Complete-combustion products of element amounts ``b`` [mol/kg] (order :data:`ELEMENTS`).
+
+    Lean or stoichiometric: CO2, H2O, N2, O2, AR.  Rich: the oxygen short of
+    complete combustion is taken from CO2 and H2O in the ratio set by the
+    water-gas-shift equilibrium ``[CO][H2O] = K [CO2][H2]`` at the fixed ``k_wgs``
+    (Heywood 1988, section 4.9.1, from memory).  Oxygen too scarce to turn all
+    carbon into CO (no such case below phi ~3) raises ValueError.
+
+    Returns
+    -------
+    dict
+        Species -> amount [mol/kg] (same shape as ``b[..., 0]``).
+    """
+    b = np.asarray(b, dtype=float)
+    C, H, O, N, Ar = (b[..., i] for i in range(5))
+    excess = O - 2 * C - H / 2  # O atoms beyond complete combustion
+    lean = excess >= 0
+    q = O - C  # O atoms for CO2 + H2O beyond CO: a + c = q
+    if np.any(~lean & (q < 0)):
+        raise ValueError("mixture too rich for gaseous products (not enough O for CO)")
+    # Rich: a = CO2, c = H2O with (K-1) a^2 + beta a - C q = 0 (stable root form).
+    beta = k_wgs * (H / 2 - q) + C + q
+    disc = np.sqrt(np.maximum(beta * beta + 4 * (k_wgs - 1) * C * q, 0.0))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a_rich = np.where(beta + disc > 0, 2 * C * q / (beta + disc), 0.0)
+    co2 = np.where(lean, C, a_rich)
+    h2o = np.where(lean, H / 2, q - a_rich)
+    return {
+        "CO2": co2,
+        "H2O": h2o,
+        "N2": N / 2,
+        "O2": np.where(lean, excess / 2, 0.0),
+        "CO": np.where(lean, 0.0, C - co2),
+        "H2": np.where(lean, 0.0, H / 2 - h2o),
+        "AR": Ar,
+    }
+
+
+def heating_value_CO_H2() -> tuple[float, float]:
+    """Lower heating values of CO and H2 [J/mol] from the species data at 298.15 K."""
+    h = {n: float(species_h_mole(n, T_REF)) for n in ("CO", "H2", "O2", "CO2", "H2O")}
+    lhv_co = h["CO"] + 0.5 * h["O2"] - h["CO2"]
+    lhv_h2 = h["H2"] + 0.5 * h["O2"] - h["H2O"]
+    return lhv_co, lhv_h2
+
+
+# ----------------------------------------------------------------------------
+# 3. Tables for the solver
+# ----------------------------------------------------------------------------
+MixProps = namedtuple(
+    "MixProps", "u u_T u_lnrho u_y R R_T R_lnrho R_y cv cp gamma"
+)
+MixProps.__doc__ = """Cylinder-gas properties at (T, rho, y), all arrays of the input shape.
+
+u [J/kg] absolute internal energy and its partial derivatives u_T [J/(kg K)]
+(constant rho and y), u_lnrho [J/kg] (constant T, y), u_y [J/kg] (= u_b - u_u);
+R [J/(kg K)] gas constant and R_T, R_lnrho, R_y likewise; cv = u_T (equilibrium
+value at constant density), cp = cv + R (frozen approximation) [J/(kg K)],
+gamma = cp/cv [-].
+"""
+
+T_GRID = (200.0, 4000.0, 20.0)
+"""Temperature nodes of the burned-gas tables: first, last, step [K]."""
+
+RHO_GRID = (0.005, 400.0, 40)
+"""Density nodes of the burned-gas tables: first, last [kg/m^3], count (uniform in ln rho)."""
+
+BURNED_MODELS = ("equilibrium", "complete")
+
+
+class _CaseTable:
+    """Everything that depends on one (fuel, phi, burned model): built once, shared."""
+
+    def __init__(self, fuel: "Fuel", phi: float, model: str) -> None:
+        from . import equilibrium as eq
+
+        self.phi = phi
+        n = fresh_charge(fuel, phi)
+        rec = {"FUEL": fuel.nasa7[:5] + ({"C": fuel.C},)}
+        low, high, _ = mixture_nasa7(n, rec)
+        b, y_fuel = fresh_charge_elements(fuel, phi)
+        n_tot = sum(n.values())
+        m_per_mol_fuel = fuel.molar_mass_kg_per_mol / y_fuel
+        M_u = m_per_mol_fuel / n_tot
+        self.R_u = R_U / M_u
+        self.y_fuel = y_fuel
+        self.b = b
+        # u(T) = R (a6 + (a1-1) T + a2 T^2/2 + a3 T^3/3 + a4 T^4/4 + a5 T^5/5)
+        def u_poly(a):
+            return self.R_u * np.array(
+                [a[5], a[0] - 1.0, a[1] / 2, a[2] / 3, a[3] / 4, a[4] / 5]
+            )
+
+        self.u_coef = np.stack([u_poly(low), u_poly(high)])  # (2, 6)
+        self.cv_coef = np.stack(  # derivative of the u polynomial, padded to 6
+            [np.append(c[1:] * np.arange(1, 6), 0.0) for c in self.u_coef]
+        )
+        self.h298_u = float(_poly_u(self.u_coef, self.cv_coef, np.array([T_REF]))[0][0]
+                            + self.R_u * T_REF)
+        prod = complete_products(b)
+        names = list(prod)
+        amounts = np.array([float(prod[k]) for k in names])
+        hs = np.array([float(species_h_mole(k, T_REF)) for k in names])
+        self.h298_b = float(amounts @ hs)
+        lhv_co, lhv_h2 = heating_value_CO_H2()
+        self.chem_b = float(prod["CO"]) * lhv_co + float(prod["H2"]) * lhv_h2
+        self.lhv = fuel.lhv_J_per_kg
+        self.afr_stoich = fuel.afr_stoich
+        self.complete = {k: float(v) for k, v in prod.items()}
+
+        # burned-gas node values: u, u_T, R, R_T on the (T, ln rho) grid
+        T0, T1, dT = T_GRID
+        nT = int(round((T1 - T0) / dT)) + 1
+        Tn = T0 + dT * np.arange(nT)
+        r0, r1, nR = RHO_GRID
+        lnr = np.linspace(np.log(r0), np.log(r1), nR)
+        TT, LR = np.meshgrid(Tn, lnr, indexing="ij")
+        if model == "equilibrium":
+            props = eq.equilibrium_properties(TT.ravel(), np.exp(LR.ravel()), b)
+            u, uT, R, RT = (props[k].reshape(nT, nR) for k in ("u", "u_T", "R", "R_T"))
+        else:
+            u, uT, R = _fixed_composition_u(self.complete, TT)
+            RT = np.zeros_like(u)
+        # cubic Hermite on each T interval, in the local variable t = (T - T_i)/dT:
+        # value = c0 + c1 t + c2 t^2 + c3 t^3 with c from values and slopes at both ends
+        coef = np.empty((nT - 1, nR, 2, 4))
+        for q, (f, fT) in enumerate(((u, uT), (R, RT))):
+            f0, f1 = f[:-1], f[1:]
+            m0, m1 = fT[:-1] * dT, fT[1:] * dT
+            coef[:, :, q, 0] = f0
+            coef[:, :, q, 1] = m0
+            coef[:, :, q, 2] = 3 * (f1 - f0) - 2 * m0 - m1
+            coef[:, :, q, 3] = 2 * (f0 - f1) + m0 + m1
+        # pair each density node j with j+1 so one gather fetches both corners
+        self.table = np.concatenate([coef[:, :-1], coef[:, 1:]], axis=2).reshape(
+            (nT - 1) * (nR - 1), 16
+        )
+        self.shape = (nT, nR)
+        self.grid = (T0, dT, float(lnr[0]), float(lnr[1] - lnr[0]))
+
+
+def _poly_u(u_coef, cv_coef, T):
+    """u [J/kg] and cv [J/(kg K)] of a fixed-composition mixture, T any shape."""
+    T = np.asarray(T, dtype=float)
+    hi = (T >= T_MID)[..., None]
+    cu = np.where(hi, u_coef[1], u_coef[0])
+    cc = np.where(hi, cv_coef[1], cv_coef[0])
+    u = cu[..., 5]
+    cv = cc[..., 4]
+    for i in (4, 3, 2, 1, 0):
+        u = u * T + cu[..., i]
+    for i in (3, 2, 1, 0):
+        cv = cv * T + cc[..., i]
+    return u, cv
+
+
+def _fixed_composition_u(amounts: Mapping[str, float], T):
+    """u [J/kg], u_T [J/(kg K)], R [J/(kg K)] of gas with fixed amounts [mol/kg]."""
+    names = [k for k, v in amounts.items() if v > 0]
+    n = np.array([amounts[k] for k in names])
+    cp, h, _ = species_thermo_dimless(names, T)
+    T = np.asarray(T, dtype=float)
+    u = R_U * T * ((h - 1.0) @ n)
+    cv = R_U * ((cp - 1.0) @ n)
+    R = np.full(T.shape, R_U * n.sum())
+    return u, cv, R
+
+
+@functools.lru_cache(maxsize=256)
+def _case_table(fuel: "Fuel", phi: float, model: str) -> _CaseTable:
+    return _CaseTable(fuel, phi, model)
+
+
+class GasTables:
+    """Fresh-charge and burned-gas properties of a batch of B cases.
+
+    Built by :func:`build_gas_tables`.  Per-case attributes are arrays (B,):
+
+    phi [-] equivalence ratio; y_fuel [-] fuel mass fraction of the fresh
+    charge; lhv [J/kg fuel] fuel lower heating value; lhv_mix [J/kg fresh
+    charge] = y_fuel * lhv; afr_stoich [-]; h298_u [J/kg] absolute enthalpy of
+    the fresh charge at 298.15 K; h298_b [J/kg] that of its complete-combustion
+    products (water-gas shift at :data:`K_WGS_COMPLETE` when rich); chem_b
+    [J/kg] chemical energy left in those products (CO and H2), zero for
+    phi <= 1; so h298_u - h298_b = lhv_mix - chem_b; R_unburned [J/(kg K)].
+
+    Notes
+    -----
+    Burned-gas properties come from per-case tables on a uniform temperature
+    grid (:data:`T_GRID`) times a uniform ln(rho) grid (:data:`RHO_GRID`),
+    holding u, du/dT, R, dR/dT at the nodes (the equilibrium derivatives
+    include the composition shift).  Evaluation is cubic Hermite in T and
+    linear in ln(rho); returned derivatives are the exact derivatives of that
+    interpolant, so u is C1 in T and u_T is consistent with u.  T and rho
+    are clipped to the table range.  Fresh-charge properties are evaluated
+    from the mixture polynomial directly.
+    """
+
+    def __init__(self, fuel: "Fuel", phi: np.ndarray, model: str, cases: list[_CaseTable]) -> None:
+        self.fuel = fuel
+        self.burned_model = model
+        self.B = len(cases)
+        self.phi = np.asarray(phi, dtype=float).copy()
+        uniq: dict[int, int] = {}
+        tabs: list[_CaseTable] = []
+        which = np.empty(self.B, dtype=np.intp)
+        for i, c in enumerate(cases):
+            if id(c) not in uniq:
+                uniq[id(c)] = len(tabs)
+                tabs.append(c)
+            which[i] = uniq[id(c)]
+        self._cases = cases
+        self.y_fuel = np.array([c.y_fuel for c in cases])
+        self.lhv = np.array([c.lhv for c in cases])
+        self.lhv_mix = self.y_fuel * self.lhv
+        self.h298_u = np.array([c.h298_u for c in cases])
+        self.h298_b = np.array([c.h298_b for c in cases])
+        self.chem_b = np.array([c.chem_b for c in cases])
+        self.afr_stoich = np.array([c.afr_stoich for c in cases])
+        self.R_unburned = np.array([c.R_u for c in cases])
+        # fresh charge: per case [low u coefs | low cv coefs] and high, rows b*2 + (T >= T_MID)
+        self._ucoef = np.stack([np.stack([np.concatenate([c.u_coef[r], c.cv_coef[r]])
+                                          for r in (0, 1)]) for c in cases]).reshape(2 * self.B, 12)
+        self._u_coef_case = np.stack([c.u_coef for c in cases])  # (B, 2, 6)
+        self._cv_coef_case = np.stack([c.cv_coef for c in cases])
+        self._row2 = 2 * np.arange(self.B)
+        # burned gas: one flat table of all distinct case tables
+        nT, nR = tabs[0].shape
+        self._nT, self._nR = nT, nR
+        self._T0, self._dT, self._lr0, self._dlr = tabs[0].grid
+        self._inv_dT = 1.0 / self._dT
+        self._inv_dlr = 1.0 / self._dlr
+        self._table = np.concatenate([t.table for t in tabs])
+        self._offset = which * ((nT - 1) * (nR - 1))
+        self._T_hi = self._T0 + (nT - 1) * self._dT
+        self._lr_hi = self._lr0 + (nR - 1) * self._dlr
+        self._lnrho_min = self._lr0
+        self.T_range = (self._T0, self._T_hi)
+        self.rho_range = (float(np.exp(self._lr0)), float(np.exp(self._lr_hi)))
+
+    # -- fresh charge ------------------------------------------------------
+    def unburned(self, T) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Fresh-charge (u [J/kg], cv [J/(kg K)], R [J/(kg K)]) at ``T`` [K] of shape (B,) or (B, n)."""
+        T = np.asarray(T, dtype=float)
+        if T.ndim == 1:
+            c = self._ucoef[self._row2 + (T >= T_MID)]
+            u = c[:, 5]
+            cv = c[:, 10]
+            for i in (4, 3, 2, 1, 0):
+                u = u * T + c[:, i]
+            for i in (9, 8, 7, 6):
+                cv = cv * T + c[:, i]
+            return u, cv, self.R_unburned.copy()
+        shape = T.shape
+        T2 = T.reshape(self.B, -1)
+        hi = (T2 >= T_MID)[..., None]
+        cu = np.where(hi, self._u_coef_case[:, None, 1], self._u_coef_case[:, None, 0])
+        cc = np.where(hi, self._cv_coef_case[:, None, 1], self._cv_coef_case[:, None, 0])
+        u = cu[..., 5]
+        cv = cc[..., 4]
+        for i in (4, 3, 2, 1, 0):
+            u = u * T2 + cu[..., i]
+        for i in (3, 2, 1, 0):
+            cv = cv * T2 + cc[..., i]
+        R = np.broadcast_to(self.R_unburned[:, None], T2.shape).copy()
+        return u.reshape(shape), cv.reshape(shape), R.reshape(shape)
+
+    def enthalpy_unburned(self, T) -> np.ndarray:
+        """Absolute enthalpy of the fresh charge [J/kg] at ``T`` [K], shape (B,) or (B, n)."""
+        u, _, R = self.unburned(T)
+        return u + R * np.asarray(T, dtype=float)
+
+    # -- burned gas --------------------------------------------------------
+    def _burned_core(self, T, rho):
+        x = (np.minimum(np.maximum(T, self._T0), self._T_hi) - self._T0) * self._inv_dT
+        i = np.minimum(x.astype(np.intp), self._nT - 2)
+        t = x - i
+        z = (np.minimum(np.maximum(np.log(rho), self._lr0), self._lr_hi) - self._lr0) * self._inv_dlr
+        j = np.minimum(z.astype(np.intp), self._nR - 2)
+        w = z - j
+        g = self._table[self._offset + i * (self._nR - 1) + j].reshape(-1, 4, 4)
+        tt = t * t
+        p = np.empty((t.shape[0], 4, 2))
+        p[:, 0, 0] = 1.0
+        p[:, 1, 0] = t
+        p[:, 2, 0] = tt
+        p[:, 3, 0] = tt * t
+        p[:, 0, 1] = 0.0
+        p[:, 1, 1] = 1.0
+        p[:, 2, 1] = 2.0 * t
+        p[:, 3, 1] = 3.0 * tt
+        v = np.matmul(g, p)  # (B, 4 = [u@j, R@j, u@j+1, R@j+1], 2 = [value, d/dt])
+        lo = v[:, 0:2]
+        d = v[:, 2:4] - lo
+        f = lo + w[:, None, None] * d  # (B, 2 quantities, 2)
+        return f, d
+
+    def burned(self, T, rho):
+        """Burned-gas properties at ``T`` [K] and ``rho`` [kg/m^3], arrays (B,).
+
+        Returns
+        -------
+        u : ndarray
+            Absolute internal energy [J/kg].
+        u_T, u_lnrho : ndarray
+            Its derivatives at constant rho [J/(kg K)] and at constant T [J/kg].
+        R, R_T, R_lnrho : ndarray
+            Gas constant [J/(kg K)] and its derivatives [J/(kg K^2)], [J/(kg K)].
+        """
+        f, d = self._burned_core(np.asarray(T, dtype=float), np.asarray(rho, dtype=float))
+        return (f[:, 0, 0], f[:, 0, 1] * self._inv_dT, d[:, 0, 0] * self._inv_dlr,
+                f[:, 1, 0], f[:, 1, 1] * self._inv_dT, d[:, 1, 0] * self._inv_dlr)
+
+    def enthalpy_burned(self, T, rho) -> np.ndarray:
+        """Absolute enthalpy of the burned gas [J/kg] at ``T`` [K], ``rho`` [kg/m^3]."""
+        u, _, _, R, _, _ = self.burned(T, rho)
+        return u + R * np.asarray(T, dtype=float)
+
+    def mixture(self, T, rho, y) -> MixProps:
+        """Cylinder-gas properties at ``T`` [K], ``rho`` [kg/m^3], burned mass fraction ``y`` [-] (B,)."""
+        T = np.asarray(T, dtype=float)
+        f, d = self._burned_core(T, np.asarray(rho, dtype=float))
+        c = self._ucoef[self._row2 + (T >= T_MID)]
+        uu = c[:, 5]
+        cvu = c[:, 10]
+        for i in (4, 3, 2, 1, 0):
+            uu = uu * T + c[:, i]
+        for i in (9, 8, 7, 6):
+            cvu = cvu * T + c[:, i]
+        Ru = self.R_unburned
+        ub = f[:, 0, 0]
+        Rb = f[:, 1, 0]
+        yu = 1.0 - y
+        u_y = ub - uu
+        R_y = Rb - Ru
+        u = uu + y * u_y
+        R = Ru + y * R_y
+        u_T = yu * cvu + y * (f[:, 0, 1] * self._inv_dT)
+        R_T = y * (f[:, 1, 1] * self._inv_dT)
+        u_lnrho = y * (d[:, 0, 0] * self._inv_dlr)
+        R_lnrho = y * (d[:, 1, 0] * self._inv_dlr)
+        cp = u_T + R
+        return MixProps(u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, u_T, cp, cp / u_T)
+
+    def pressure(self, T, rho, y) -> np.ndarray:
+        """Pressure [Pa] = rho R(T, rho, y) T."""
+        T = np.asarray(T, dtype=float)
+        f, _ = self._burned_core(T, np.asarray(rho, dtype=float))
+        R = self.R_unburned + y * (f[:, 1, 0] - self.R_unburned)
+        return rho * R * T
+
+    def burned_mole_fractions(self, T, rho) -> dict[str, np.ndarray]:
+        """Burned-gas mole fractions by species at ``T`` [K], ``rho`` [kg/m^3] (B,) or (B, n).
+
+        Solved directly (not from the tables): meant for reports and tests.
+        """
+        from . import equilibrium as eq
+
+        T = np.asarray(T, dtype=float)
+        rho = np.broadcast_to(np.asarray(rho, dtype=float), T.shape)
+        shape = T.shape
+        T2 = T.reshape(self.B, -1)
+        r2 = rho.reshape(self.B, -1)
+        if self.burned_model == "complete":
+            out = {}
+            tot = np.array([sum(c.complete.values()) for c in self._cases])
+            for k in eq.SPECIES:
+                v = np.array([c.complete.get(k, 0.0) for c in self._cases]) / tot
+                out[k] = np.broadcast_to(v[:, None], T2.shape).reshape(shape).copy()
+            return out
+        b = np.repeat(np.stack([c.b for c in self._cases]), T2.shape[1], axis=0)
+        res = eq.equilibrate_tv(T2.ravel(), r2.ravel(), b)
+        x = res.n / res.n.sum(axis=1, keepdims=True)
+        return {k: x[:, i].reshape(shape) for i, k in enumerate(eq.SPECIES)}
+
+
+def build_gas_tables(fuel: "Fuel", phi, burned_model: str = "equilibrium") -> GasTables:
+    """Property tables of a batch's fresh charge and burned gas.
+
+    Parameters
+    ----------
+    fuel : cyclesim.fuels.Fuel
+        The fuel (one per batch).
+    phi : array_like (B,)
+        Fuel-air equivalence ratio per case [-].
+    burned_model : {"equilibrium", "complete"}
+        ``"equilibrium"``: burned gas in chemical equilibrium (dissociation) at
+        the local T and density.  ``"complete"``: complete-combustion products
+        (water-gas shift at :data:`K_WGS_COMPLETE` when rich), composition
+        independent of T and rho.
+
+    Notes
+    -----
+    Tables are cached by (fuel, phi, model): cases with equal phi share one build.
+    """
+    if burned_model not in BURNED_MODELS:
+        raise ConfigError(
+            f"burned-gas model {burned_model!r}: expected one of {', '.join(BURNED_MODELS)}"
+            + suggestion(str(burned_model), BURNED_MODELS)
+        )
+    phi = np.atleast_1d(np.asarray(phi, dtype=float))
+    if phi.ndim != 1 or not np.all(np.isfinite(phi)) or np.any(phi <= 0):
+        raise ConfigError(f"equivalence ratio must be positive numbers, got {phi!r}")
+    cases = [_case_table(fuel, float(p), burned_model) for p in phi]
+    return GasTables(fuel, phi, burned_model, cases)

@@ -1,0 +1,257 @@
+"""Wall heat-transfer correlations: none, Woschni, Hohenberg, Annand.
+
+Each submodel returns a spatially averaged coefficient h [W/(m^2 K)]; the
+role base class turns it into a heat flow with the wall areas and wall
+temperatures of the current state.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from cyclesim.params import Param, StateVar
+from cyclesim.roles import GasState, WallHeatTransfer
+
+SIGMA_SB = 5.670374419e-8
+"""Stefan-Boltzmann constant [W/(m^2 K^4)] (CODATA 2018, exact in SI 2019)."""
+
+_MULTIPLIER = Param(
+    "multiplier", "-", 1.0, "factor on the heat-transfer coefficient (calibration)",
+    min=0.0, max=10.0,
+)
+
+
+class NoHeatTransfer(WallHeatTransfer):
+    """Adiabatic walls: no heat transfer."""
+
+    name = "none"
+    summary = "adiabatic walls (no heat transfer)"
+
+    def coefficient(self, s: GasState) -> np.ndarray:
+        return np.zeros(self.B)
+
+    def heat_flow(self, s: GasState) -> np.ndarray:
+        return np.zeros(self.B)
+
+
+class Woschni(WallHeatTransfer):
+    """Woschni (1967) correlation with phase-dependent gas velocity.
+
+    ``h = 129.8 B^-0.2 p^0.8 T^-0.53 w^0.8`` with B the bore [m], p the
+    cylinder pressure [bar], T the gas temperature [K], and the characteristic
+    gas velocity [m/s]
+
+    ``w = C1 Sp + C2 (Vd T_r) / (p_r V_r) (p - p_mot)``.
+
+    ========================== ============================ =================
+    phase                      C1 [-]                       C2 [m/(s K)]
+    ========================== ============================ =================
+    gas exchange (not closed)  6.18 + 0.417 v_s / Sp        0
+    compression (no burning)   2.28 + 0.308 v_s / Sp        0
+    combustion and expansion   2.28 + 0.308 v_s / Sp        3.24e-3
+    ========================== ============================ =================
+
+    Notes
+    -----
+    Form: the original paper's (Woschni 1967), coefficient 129.8 with p in
+    bar and temperature exponent -0.53, rather than Heywood's (1988, eq.
+    12.19) restatement 3.26 p[kPa]^0.8 T^-0.55; the two differ by the factor
+    T^-0.02, i.e. Heywood's gives 13-15 % lower values at 1000-2500 K.
+
+    Reference state ``p_r, V_r, T_r`` = the state at intake valve closing
+    (``s.p_ivc``, ``s.V_ivc``, ``s.T_ivc``).  The motored pressure is that of
+    the trapped charge compressed and expanded adiabatically from IVC,
+    ``p_mot = p_ivc (V_ivc / V) (T_mot / T_ivc)``, where ``T_mot`` is an
+    integrated state of this submodel (``heat_transfer.T_mot``):
+
+    ``dT_mot/dt = -(R / cv) T_mot (dV/dt) / V``
+
+    with R and cv of the unburned mixture at ``T_mot``
+    (``ctx.gas.unburned(T) -> (u, cv, R)``); its derivative is zero outside
+    the closed part of the cycle.  The state is declared with
+    ``initial="T_ivc"`` and ``reset_at_ivc=True``: the solver sets it to the
+    cylinder temperature at each intake valve closing.  A negative
+    ``p - p_mot`` (heavy heat loss late in the expansion) is clamped to 0
+    so ``w`` stays positive.
+
+    Swirl (optional): ``v_s = pi B R_s N / 60`` is the swirl (paddle-wheel)
+    velocity for a swirl ratio ``R_s``, so ``v_s / Sp = pi B R_s / (2 S)``;
+    swirl constants 0.417 and 0.308 are from memory (Woschni 1967).
+
+    Validity: fitted to motored and fired engines with bores of about
+    0.1-0.3 m; for small high-speed SI engines it is commonly calibrated
+    with ``multiplier`` (common practice).
+    """
+
+    name = "woschni"
+    summary = "Woschni 1967 (original form, T^-0.53), phase-dependent C1/C2, motored pressure integrated"
+    params = (
+        _MULTIPLIER,
+        Param("swirl_ratio", "-", 0.0, "swirl ratio (swirl speed / engine speed)", min=0.0, max=10.0),
+        Param(
+            "c2_m_per_sK", "m/(s K)", 3.24e-3,
+            "combustion-term constant C2 during combustion and expansion", min=0.0, max=0.05,
+        ),
+    )
+    references = (
+        "Woschni G. (1967) A universally applicable equation for the instantaneous heat "
+        "transfer coefficient in the internal combustion engine. SAE 670931. doi:10.4271/670931",
+        "Heywood J.B. (1988) Internal Combustion Engine Fundamentals, McGraw-Hill, sec. 12.4.",
+    )
+
+    STATE = "T_mot"
+
+    def __init__(self, values, ctx) -> None:
+        super().__init__(values, ctx)
+        g = ctx.geometry
+        self._bore_term = 129.8 * g.bore_m ** -0.2
+        self._Vd = g.Vd
+        vs_over_sp = np.pi * g.bore_m * self.p.swirl_ratio / (2.0 * g.stroke_m)
+        self._c1_open = 6.18 + 0.417 * vs_over_sp
+        self._c1_closed = 2.28 + 0.308 * vs_over_sp
+
+    def states(self):
+        return (StateVar(self.STATE, "K", initial="T_ivc", reset_at_ivc=True),)
+
+    def derivatives(self, s: GasState):
+        T_mot = s.sub[f"{self.role}.{self.STATE}"]
+        _, cv, R = self.ctx.gas.unburned(T_mot)
+        dVdt = s.dV * s.omega_deg
+        rate = -(R / cv) * T_mot * dVdt / s.V
+        return {self.STATE: np.where(s.closed, rate, 0.0)}
+
+    def motored_pressure(self, s: GasState) -> np.ndarray:
+        """Pressure of the same charge motored from IVC [Pa] (B,)."""
+        T_mot = s.sub[f"{self.role}.{self.STATE}"]
+        return s.p_ivc * (s.V_ivc / s.V) * (T_mot / s.T_ivc)
+
+    def coefficient(self, s: GasState) -> np.ndarray:
+        c1 = np.where(s.closed, self._c1_closed, self._c1_open)
+        firing = np.logical_and(s.closed, s.burning)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            dp = np.maximum(s.p - self.motored_pressure(s), 0.0)
+            comb = self.p.c2_m_per_sK * self._Vd * s.T_ivc / (s.p_ivc * s.V_ivc) * dp
+        w = c1 * s.Sp + np.where(firing, comb, 0.0)
+        return self.p.multiplier * self._bore_term * (s.p * 1e-5) ** 0.8 * s.T ** -0.53 * w**0.8
+
+
+class Hohenberg(WallHeatTransfer):
+    """Hohenberg (1979) correlation.
+
+    ``h = 130 V^-0.06 p^0.8 T^-0.4 (Sp + 1.4)^0.8``, V the cylinder volume
+    [m^3], p [bar], T [K], Sp the mean piston speed [m/s].
+
+    Notes
+    -----
+    Units of the constant 130 (V in m^3, p in bar) are from memory.  Derived
+    from direct-injection diesel measurements; widely used for SI engines
+    with a calibration ``multiplier`` (common practice).
+    """
+
+    name = "hohenberg"
+    summary = "Hohenberg 1979: 130 V^-0.06 p[bar]^0.8 T^-0.4 (Sp+1.4)^0.8"
+    params = (_MULTIPLIER,)
+    references = (
+        "Hohenberg G.F. (1979) Advanced approaches for heat transfer calculations. "
+        "SAE 790825. doi:10.4271/790825",
+    )
+
+    def coefficient(self, s: GasState) -> np.ndarray:
+        return (
+            self.p.multiplier * 130.0 * s.V ** -0.06 * (s.p * 1e-5) ** 0.8
+            * s.T ** -0.4 * (s.Sp + 1.4) ** 0.8
+        )
+
+
+def air_viscosity(T):
+    """Dynamic viscosity of air by Sutherland's law [Pa s].
+
+    Parameters
+    ----------
+    T : array_like
+        Temperature [K].
+
+    Notes
+    -----
+    ``mu = 1.458e-6 T^1.5 / (T + 110.4)`` (U.S. Standard Atmosphere 1976,
+    constants from memory).  Fitted to air near atmospheric temperatures;
+    used for the whole cycle, burned gas included, as an approximation, which
+    is the usual level of detail of Annand's correlation (common practice).
+    """
+    T = np.asarray(T, dtype=float)
+    return 1.458e-6 * T**1.5 / (T + 110.4)
+
+
+class Annand(WallHeatTransfer):
+    """Annand (1963) correlation with optional radiation.
+
+    ``h = a (k / B) Re^b + c (T^4 - T_w^4) / (T - T_w)``,
+    ``Re = rho Sp B / mu``.
+
+    Notes
+    -----
+    Gas properties: viscosity from Sutherland's law for air
+    (:func:`air_viscosity`), conductivity ``k = mu cp / Pr`` with the
+    mixture's cp and a constant Prandtl number (0.7 default, air-like gases,
+    common practice).
+
+    Defaults (from memory, Annand 1963): ``a`` 0.49 with 0.35 <= a <= 0.8
+    increasing with the intensity of charge motion; ``b`` 0.7; radiation
+    ``c = 0.075 sigma`` for SI engines (0.576 sigma for diesels), applied only
+    while the cylinder is closed and burning.  Radiation is evaluated per
+    surface with its own wall temperature in :meth:`heat_flow`;
+    :meth:`coefficient` reports the convective part plus the radiative part
+    at the area-weighted mean wall temperature.
+    """
+
+    name = "annand"
+    summary = "Annand 1963: a (k/B) Re^0.7 + radiation during combustion"
+    params = (
+        Param("a", "-", 0.49, "convective constant (0.35-0.8 in the original)", min=0.05, max=2.0),
+        Param("b", "-", 0.7, "Reynolds-number exponent", min=0.5, max=0.9),
+        Param(
+            "radiation_factor", "-", 0.075,
+            "radiation constant c as a fraction of the Stefan-Boltzmann constant", min=0.0, max=1.0,
+        ),
+        Param("prandtl_number", "-", 0.7, "gas Prandtl number for the conductivity", min=0.3, max=1.5),
+        _MULTIPLIER,
+    )
+    references = (
+        "Annand W.J.D. (1963) Heat transfer in the cylinders of reciprocating internal "
+        "combustion engines. Proc. IMechE 177(36), 973-996 (pages from memory).",
+        "U.S. Standard Atmosphere (1976), NOAA/NASA/USAF: Sutherland constants for air viscosity.",
+    )
+
+    def __init__(self, values, ctx) -> None:
+        super().__init__(values, ctx)
+        self._bore = ctx.geometry.bore_m
+
+    def convective(self, s: GasState) -> np.ndarray:
+        """Convective coefficient a (k/B) Re^b [W/(m^2 K)] (B,)."""
+        mu = air_viscosity(s.T)
+        k = mu * s.cp / self.p.prandtl_number
+        Re = s.rho * s.Sp * self._bore / mu
+        return self.p.multiplier * self.p.a * k / self._bore * Re**self.p.b
+
+    def _c_rad(self, s: GasState) -> np.ndarray:
+        on = np.logical_and(s.closed, s.burning)
+        return np.where(on, self.p.multiplier * self.p.radiation_factor * SIGMA_SB, 0.0)
+
+    def coefficient(self, s: GasState) -> np.ndarray:
+        A = s.A_head + s.A_piston + s.A_liner
+        Tw = (s.A_head * s.T_wall_head + s.A_piston * s.T_wall_piston + s.A_liner * s.T_wall_liner) / A
+        # (T^4 - Tw^4) / (T - Tw) written without the division
+        rad = self._c_rad(s) * (s.T + Tw) * (s.T**2 + Tw**2)
+        return self.convective(s) + rad
+
+    def heat_flow(self, s: GasState) -> np.ndarray:
+        hc = self.convective(s)
+        c = self._c_rad(s)
+        T4 = s.T**4
+        q = np.zeros(self.B)
+        for A, Tw in ((s.A_head, s.T_wall_head), (s.A_piston, s.T_wall_piston), (s.A_liner, s.T_wall_liner)):
+            q = q + A * (hc * (s.T - Tw) + c * (T4 - Tw**4))
+        return q
+
+
+SUBMODELS = [NoHeatTransfer, Woschni, Hohenberg, Annand]

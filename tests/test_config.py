@@ -1,0 +1,113 @@
+"""Config loading, inheritance, overrides and one-line errors (exit code 2)."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+import textwrap
+
+import pytest
+
+from cyclesim.config import load_config
+from cyclesim.errors import ConfigError, PluginError
+
+
+def write(tmp_path, text, name="c.yaml"):
+    p = tmp_path / name
+    p.write_text(textwrap.dedent(text))
+    return p
+
+
+def test_demo_loads_with_defaults_filled():
+    c = load_config("demo")
+    assert c.engine.bore_mm == 79.0
+    assert c.submodels["burn"].model == "wiebe"
+    assert c.submodels["burn"].params["a"] == 5.0
+    assert c.simulation.mode == "full"
+
+
+def test_extends_and_override(tmp_path):
+    p = write(tmp_path, """
+        extends: demo
+        operating: {speed_rpm: 2000}
+    """)
+    c = load_config(p, ["burn.spark_advance_deg=30", "engine.compression_ratio=11"])
+    assert c.operating.speed_rpm == 2000
+    assert c.engine.bore_mm == 79.0           # inherited
+    assert c.submodels["burn"].params["spark_advance_deg"] == 30
+    assert c.engine.compression_ratio == 11
+
+
+def test_changing_model_drops_old_params(tmp_path):
+    p = write(tmp_path, """
+        extends: demo
+        heat_transfer: {model: hohenberg}
+    """)
+    c = load_config(p)
+    assert c.submodels["heat_transfer"].model == "hohenberg"
+
+
+@pytest.mark.parametrize(
+    "text, expect",
+    [
+        ("engine: {bore_mm: -3}", "engine.bore_mm = -3: out of range"),
+        ("engine: {bore_mm: 'wide'}", "engine.bore_mm: expected a number"),
+        ("engine: {bore_m: 80}", "did you mean 'bore_mm'"),
+        ("engnie: {bore_mm: 80}", "did you mean 'engine'"),
+        ("operating: {speed_rpm: 0}", "operating.speed_rpm = 0: out of range"),
+        ("engine: {compression_ratio: 1.0}", "engine.compression_ratio = 1.0: out of range"),
+        ("engine: {conrod_mm: 30}", "engine.conrod_mm = 30: must be longer than the crank radius"),
+        ("operating: {lambda: 0}", "operating.lambda = 0: out of range"),
+        ("operating: {egr_fraction: 1.2}", "operating.egr_fraction = 1.2: out of range"),
+        ("walls: {liner_temperature_K: -10}", "walls.liner_temperature_K = -10: out of range"),
+        ("valves: {ivc_deg: -400}", "valves.ivc_deg = -400: out of range"),
+        ("valves: {evo_deg: 10, ivc_deg: -5, ivo_deg: -200, evc_deg: 190}", "open for"),
+        ("burn: {duration_deg: 0}", "burn.duration_deg = 0: out of range"),
+    ],
+)
+def test_bad_values_give_one_clear_line(tmp_path, text, expect):
+    p = write(tmp_path, "extends: demo\n" + text + "\n")
+    with pytest.raises(ConfigError) as e:
+        load_config(p)
+    msg = str(e.value)
+    assert expect in msg
+    assert "\n" not in msg
+
+
+def test_unknown_plugin_suggests(tmp_path):
+    p = write(tmp_path, "extends: demo\nheat_transfer: {model: woschnii}\n")
+    with pytest.raises(PluginError, match="did you mean 'woschni'"):
+        load_config(p)
+
+
+def test_malformed_yaml_and_duplicate_key(tmp_path):
+    p = write(tmp_path, "engine: {bore_mm: 80\n")
+    with pytest.raises(ConfigError, match="malformed YAML"):
+        load_config(p)
+    p = write(tmp_path, "engine:\n  bore_mm: 80\n  bore_mm: 81\n", "d.yaml")
+    with pytest.raises(ConfigError, match="duplicated key 'bore_mm'"):
+        load_config(p)
+
+
+def test_missing_required(tmp_path):
+    p = write(tmp_path, "engine: {bore_mm: 80}\n")
+    with pytest.raises(ConfigError, match="engine.stroke_mm: missing value"):
+        load_config(p)
+
+
+def test_yaml_never_constructs_objects(tmp_path):
+    p = write(tmp_path, "extends: demo\nname: !!python/object/apply:os.system ['echo hi']\n")
+    with pytest.raises(ConfigError):
+        load_config(p)
+
+
+def test_cli_error_is_one_line_exit_2(tmp_path):
+    p = write(tmp_path, "extends: demo\nengine: {bore_mm: -1}\n")
+    r = subprocess.run([sys.executable, "-m", "cyclesim", "run", str(p)], capture_output=True, text=True)
+    assert r.returncode == 2
+    assert "Traceback" not in r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1
+    assert "engine.bore_mm" in r.stderr
+    r = subprocess.run([sys.executable, "-m", "cyclesim", "run", "demo", "--set", "operating.speed_rpm=fast"],
+                       capture_output=True, text=True)
+    assert r.returncode == 2 and "operating.speed_rpm" in r.stderr
