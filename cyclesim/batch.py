@@ -120,7 +120,13 @@ def build_batch(cases: Sequence[Case], registry) -> Batch:
         spec = {"name": f.name, "C": f.C, "H": f.H, "O": f.O or 0.0, "lhv_MJ_per_kg": f.lhv_MJ_per_kg}
     fuel = get_fuel(spec, registry.fuels)
     phi = 1.0 / op.__dict__["lambda"]
-    gas = build_gas_tables(fuel, phi, cases[0].gas.burned_gas)
+    if cases[0].gas.properties == "constant_gamma":
+        from .ideal_gas import ConstantGammaGas
+
+        gas_sec = _section_arrays(cases, "gas")
+        gas = ConstantGammaGas(fuel, phi, gas_sec.gamma, gas_sec.R_J_per_kgK)
+    else:
+        gas = build_gas_tables(fuel, phi, cases[0].gas.burned_gas)
     events = SimpleNamespace(
         ivo=val.ivo_deg, ivc=val.ivc_deg, evo=val.evo_deg, evc=val.evc_deg,
         threshold_lift_m=val.threshold_lift_mm * 1e-3,

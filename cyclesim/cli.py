@@ -145,6 +145,12 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("cyclesim: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # output piped into head & co.
+        try:
+            sys.stdout = None  # type: ignore[assignment]
+        except Exception:  # noqa: BLE001
+            pass
+        return 0
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -74,8 +74,12 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
         P("lhv_MJ_per_kg", "MJ/kg", None, "custom fuel: lower heating value", 1, 150, kind="float"),
     ),
     "gas": (
-        P("burned_gas", "-", "equilibrium", "burned-gas composition model", kind="choice",
+        P("properties", "-", "real", "real: NASA-polynomial mixtures; constant_gamma: air-standard ideal gas",
+          kind="choice", choices=("real", "constant_gamma"), sweepable=False),
+        P("burned_gas", "-", "equilibrium", "real properties: burned-gas composition model", kind="choice",
           choices=("equilibrium", "complete"), sweepable=False),
+        P("gamma", "-", 1.4, "constant_gamma: ratio of specific heats", 1.0, 2.0, min_exclusive=True),
+        P("R_J_per_kgK", "J/(kg K)", 287.0, "constant_gamma: gas constant", 100, 1000),
     ),
     "walls": (
         P("head_temperature_K", "K", 480.0, "cylinder-head wall temperature", 0, 1500, min_exclusive=True),

@@ -50,6 +50,7 @@ _A = np.array(
 _LOW, _HIGH, _TMID = thermo.nasa7_arrays(_REACTIVE)
 _LOW_AR, _HIGH_AR, _TMID_AR = thermo.nasa7_arrays(["AR"])
 _CARRIER = _A > 0
+_CO2, _H2O, _CO, _H2 = (_REACTIVE.index(s) for s in ("CO2", "H2O", "CO", "H2"))
 _REDOX_DIR = np.array([-2.0, -0.5, 1.0, 0.0])  # (C, H, O, N) shift keeping CO2, H2O, N2
 _REDOX_SIGMA = _REDOX_DIR @ _A  # ln c_j change per unit shift (O2 +2, CO -1, ...)
 _STEP_MAX = 2.0
@@ -94,7 +95,9 @@ def _start(lnc0: np.ndarray, rho: np.ndarray, b: np.ndarray, ln_b: np.ndarray) -
     """Start potentials: fit to the complete-combustion majors, then fix the redox balance.
 
     1. Weighted least squares of ln c_j = lnc0_j + a_j.lambda on the
-       complete-combustion composition; species it lacks get negligible weight.
+       complete-combustion composition (rich: water-gas shift in equilibrium
+       at T); species it lacks get a negligible weight.  At low temperature
+       this is already the solution.
     2. Near stoichiometric the majors (CO2, H2O, N2) leave one direction free:
        shifting the oxygen potential by d with lambda_C - 2d and lambda_H - d/2
        keeps them fixed and scales the oxidising (O2, O, OH, NO) against the
@@ -102,12 +105,14 @@ def _start(lnc0: np.ndarray, rho: np.ndarray, b: np.ndarray, ln_b: np.ndarray) -
        combustion, E = b_O - 2 b_C - b_H/2, fixes d: a one-dimensional
        monotonic equation solved by Newton on its logarithmic form.
     """
-    prod = thermo.complete_products(b)
+    # water-gas shift at its equilibrium at T (Kc = Kp, no change in moles)
+    k_wgs = np.exp(-(lnc0[:, _CO2] + lnc0[:, _H2] - lnc0[:, _CO] - lnc0[:, _H2O]))
+    prod = thermo.complete_products(b, np.clip(k_wgs, 1e-30, 1e30))
     guess = np.stack([prod.get(s, np.zeros(len(rho))) for s in _REACTIVE], axis=1)
     total = guess.sum(axis=1, keepdims=True)
-    present = guess > 1e-6 * total
-    guess = np.maximum(guess, 1e-6 * total) * rho[:, None]
-    w = np.where(present, guess / guess.sum(axis=1, keepdims=True), 1e-12)
+    present = guess > 0
+    guess = np.where(present, guess, 1e-6 * total) * rho[:, None]
+    w = np.where(present, 1.0, 1e-8)
     rhs = np.log(guess) - lnc0
     Aw = _A[None, :, :] * w[:, None, :]  # (N, 4, 11)
     M = Aw @ _A.T
@@ -184,9 +189,9 @@ def equilibrate_tv(
     g, _, _ = _g_RT(T)
     lnc0 = np.log(thermo.P_REF / (thermo.R_U * T))[:, None] - g
     # elements absent from the mixture (e.g. carbon in hydrogen) get a trace amount
-    tiny = 1e-14 * b[:, :4].sum(axis=1, keepdims=True)
-    b4 = np.maximum(b[:, :4], tiny) * rho[:, None]
-    ln_b = np.log(b4)
+    b = b.copy()
+    b[:, :4] = np.maximum(b[:, :4], 1e-14 * b[:, :4].sum(axis=1, keepdims=True))
+    ln_b = np.log(b[:, :4] * rho[:, None])
     lam = _start(lnc0, rho, b, ln_b) if lam0 is None else np.array(lam0, dtype=float)
     for it in range(1, max_iter + 1):
         lnc = lnc0 + lam @ _A

@@ -410,5 +410,10 @@ def output_trace(batch, tr: CycleTrace, d: dict, step: float | None) -> dict[str
         Tivc = tr.ivc_state["T"] if batch.simulation.mode == "full" else Y[1, :, 0]
         Vivc = tr.ivc_state["V"] if batch.simulation.mode == "full" else d["V"][:, 0]
         pm = pivc[:, None] * (Vivc[:, None] / V) * (cols["heat_transfer.T_mot"] / Tivc[:, None])
+        if batch.simulation.mode == "full":
+            gth = cols["crank_deg"]
+            ivc = batch.valves.ivc_deg * np.ones(B)
+            evo = batch.valves.evo_deg * np.ones(B)
+            pm = np.where((gth >= ivc[:, None]) & (gth <= evo[:, None]), pm, np.nan)
         cols["motored_pressure_bar"] = pm / 1e5
     return cols

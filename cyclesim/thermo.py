@@ -136,7 +136,7 @@ def species_thermo_dimless(names: Sequence[str], T) -> tuple[np.ndarray, np.ndar
 def _dimless_many(low, high, t_mid, T):
     """As :func:`nasa7_dimless` for S species: result shape ``T.shape + (S,)``."""
     Tn = T[..., None]
-    a = np.where(Tn[..., None] < t_mid[:, None], low, high)  # (..., S, 7)
+    a = np.where(Tn[..., None] <= t_mid[:, None], low, high)  # (..., S, 7)
     a1, a2, a3, a4, a5, a6, a7 = (a[..., i] for i in range(7))
     cp = a1 + Tn * (a2 + Tn * (a3 + Tn * (a4 + Tn * a5)))
     h = a1 + Tn * (a2 / 2 + Tn * (a3 / 3 + Tn * (a4 / 4 + Tn * a5 / 5))) + a6 / Tn
@@ -271,7 +271,7 @@ def complete_products(b, k_wgs: float = K_WGS_COMPLETE) -> dict[str, np.ndarray]
     b = np.asarray(b, dtype=float)
     C, H, O, N, Ar = (b[..., i] for i in range(5))
     excess = O - 2 * C - H / 2  # O atoms beyond complete combustion
-    lean = excess >= 0
+    lean = excess >= -1e-12 * O  # stoichiometric to rounding counts as lean
     q = O - C  # O atoms for CO2 + H2O beyond CO: a + c = q
     if np.any(~lean & (q < 0)):
         raise ValueError("mixture too rich for gaseous products (not enough O for CO)")
@@ -286,7 +286,7 @@ def complete_products(b, k_wgs: float = K_WGS_COMPLETE) -> dict[str, np.ndarray]
         "CO2": co2,
         "H2O": h2o,
         "N2": N / 2,
-        "O2": np.where(lean, excess / 2, 0.0),
+        "O2": np.where(lean, np.maximum(excess, 0.0) / 2, 0.0),
         "CO": np.where(lean, 0.0, C - co2),
         "H2": np.where(lean, 0.0, H / 2 - h2o),
         "AR": Ar,
@@ -399,7 +399,7 @@ class _CaseTable:
 def _poly_u(u_coef, cv_coef, T):
     """u [J/kg] and cv [J/(kg K)] of a fixed-composition mixture, T any shape."""
     T = np.asarray(T, dtype=float)
-    hi = (T >= T_MID)[..., None]
+    hi = (T > T_MID)[..., None]
     cu = np.where(hi, u_coef[1], u_coef[0])
     cc = np.where(hi, cv_coef[1], cv_coef[0])
     u = cu[..., 5]
@@ -475,7 +475,7 @@ class GasTables:
         self.chem_b = np.array([c.chem_b for c in cases])
         self.afr_stoich = np.array([c.afr_stoich for c in cases])
         self.R_unburned = np.array([c.R_u for c in cases])
-        # fresh charge: per case [low u coefs | low cv coefs] and high, rows b*2 + (T >= T_MID)
+        # fresh charge: per case [low u coefs | low cv coefs] and high, rows b*2 + (T > T_MID)
         self._ucoef = np.stack([np.stack([np.concatenate([c.u_coef[r], c.cv_coef[r]])
                                           for r in (0, 1)]) for c in cases]).reshape(2 * self.B, 12)
         self._u_coef_case = np.stack([c.u_coef for c in cases])  # (B, 2, 6)
@@ -500,7 +500,7 @@ class GasTables:
         """Fresh-charge (u [J/kg], cv [J/(kg K)], R [J/(kg K)]) at ``T`` [K] of shape (B,) or (B, n)."""
         T = np.asarray(T, dtype=float)
         if T.ndim == 1:
-            c = self._ucoef[self._row2 + (T >= T_MID)]
+            c = self._ucoef[self._row2 + (T > T_MID)]
             u = c[:, 5]
             cv = c[:, 10]
             for i in (4, 3, 2, 1, 0):
@@ -510,7 +510,7 @@ class GasTables:
             return u, cv, self.R_unburned.copy()
         shape = T.shape
         T2 = T.reshape(self.B, -1)
-        hi = (T2 >= T_MID)[..., None]
+        hi = (T2 > T_MID)[..., None]
         cu = np.where(hi, self._u_coef_case[:, None, 1], self._u_coef_case[:, None, 0])
         cc = np.where(hi, self._cv_coef_case[:, None, 1], self._cv_coef_case[:, None, 0])
         u = cu[..., 5]
@@ -577,7 +577,7 @@ class GasTables:
         """Cylinder-gas properties at ``T`` [K], ``rho`` [kg/m^3], burned mass fraction ``y`` [-] (B,)."""
         T = np.asarray(T, dtype=float)
         f, d = self._burned_core(T, np.asarray(rho, dtype=float))
-        c = self._ucoef[self._row2 + (T >= T_MID)]
+        c = self._ucoef[self._row2 + (T > T_MID)]
         uu = c[:, 5]
         cvu = c[:, 10]
         for i in (4, 3, 2, 1, 0):

@@ -61,7 +61,8 @@ def test_changing_model_drops_old_params(tmp_path):
         ("operating: {egr_fraction: 1.2}", "operating.egr_fraction = 1.2: out of range"),
         ("walls: {liner_temperature_K: -10}", "walls.liner_temperature_K = -10: out of range"),
         ("valves: {ivc_deg: -400}", "valves.ivc_deg = -400: out of range"),
-        ("valves: {evo_deg: 10, ivc_deg: -5, ivo_deg: -200, evc_deg: 190}", "open for"),
+        ("valves: {ivo_deg: -530, ivc_deg: -160}", "open for 370"),
+        ("valves: {ivo_deg: -400, ivc_deg: -300, evc_deg: 430}", "events out of order"),
         ("burn: {duration_deg: 0}", "burn.duration_deg = 0: out of range"),
     ],
 )

@@ -6,7 +6,7 @@ Form (McBride, Gordon & Reno 1993, NASA TM-4513), per species and per range::
     h/RT  = a1 + a2 T/2 + a3 T^2/3 + a4 T^3/4 + a5 T^4/5 + a6/T
     s/R   = a1 ln T + a2 T + a3 T^2/2 + a4 T^3/3 + a5 T^4/4 + a7
 
-with the low-temperature coefficients used for T < T_mid and the high ones
+with the low-temperature coefficients used for T <= T_mid and the high ones
 above.  The enthalpy datum is the elements in their reference states at
 298.15 K, so h(298.15 K) is the standard enthalpy of formation.
 
