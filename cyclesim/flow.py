@@ -108,19 +108,19 @@ def orifice_mass_flow(cd_area, p1, T1, R1, gamma1, p2, T2, R2, gamma2, dp_lin=DP
     p1 = np.asarray(p1, dtype=float)
     p2 = np.asarray(p2, dtype=float)
     forward = p1 >= p2
-    p0 = np.where(forward, p1, p2)
-    pd = np.where(forward, p2, p1)
+    p0 = np.maximum(p1, p2)
+    pd = np.minimum(p1, p2)
     T0 = np.where(forward, T1, T2)
     R0 = np.where(forward, R1, R2)
     g0 = np.where(forward, gamma1, gamma2)
-
-    p0_safe = np.where(p0 > 0.0, p0, 1.0)
-    x = np.where(p0 > 0.0, (p0 - pd) / p0_safe, 0.0)  # relative pressure drop, 0..1
-    linear = x < dp_lin
-    psi = np.where(
-        linear,
-        flow_function(1.0 - dp_lin, g0) * x / dp_lin,
-        flow_function(1.0 - x, g0),
-    )
+    with np.errstate(divide="ignore", invalid="ignore"):
+        x = np.where(p0 > 0.0, 1.0 - pd / p0, 0.0)  # relative pressure drop, 0..1
+    # one evaluation of the isentropic flux at pr = 1 - max(x, dp_lin), choked below critical
+    gm1 = g0 - 1.0
+    crit = (2.0 / (g0 + 1.0)) ** (g0 / gm1)
+    pr = np.maximum(1.0 - np.maximum(x, dp_lin), crit)
+    prk = pr ** (gm1 / g0)
+    psi = prk ** (1.0 / gm1) * np.sqrt(np.maximum(2.0 * g0 / gm1 * (1.0 - prk), 0.0))
+    psi = psi * np.minimum(x / dp_lin, 1.0)
     mdot = np.asarray(cd_area, dtype=float) * p0 / np.sqrt(R0 * T0) * psi
     return np.where(forward, mdot, -mdot)

@@ -135,8 +135,10 @@ def plot_case(res, out: Path) -> list[Path]:
         colors = ["tab:green", "tab:olive", "tab:purple", "tab:red", "tab:brown", "tab:gray", "0.7", "0.85"]
         bars = ax.barh(labels[::-1], vals[::-1], color=colors[: len(vals)][::-1])
         for b, v in zip(bars, vals[::-1]):
-            ax.text(b.get_width() + 0.5 if v >= 0 else b.get_width() - 0.5, b.get_y() + b.get_height() / 2,
-                    f"{v:.1f} %", va="center", ha="left" if v >= 0 else "right", fontsize=8)
+            right = v > -0.5
+            ax.text(max(v, 0.0) + 0.5 if right else v - 0.5, b.get_y() + b.get_height() / 2,
+                    f"{v:.1f} %".replace("-0.0", "0.0"), va="center", ha="left" if right else "right", fontsize=8)
+        ax.set_xlim(min(0.0, min(vals) - 3), max(vals) * 1.12 + 1)
         ax.set_xlabel("share of fuel energy [%]")
         ax.set_title(f"Where the fuel energy goes ({base:.0f} J per cylinder and cycle)")
         ax.axvline(0, color="0.3", lw=0.6)

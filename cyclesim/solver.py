@@ -42,7 +42,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import PluginError, SolverError
+from .errors import CyclesimError, PluginError, SolverError
 from .roles import GasState
 
 CORE = ("m", "T", "m_b", "x_b", "W", "Q_w", "m_bb", "H_bb", "mu_bb",
@@ -112,50 +112,25 @@ class _RHS:
         self.T_ivc = np.full(self.B, np.nan)
         self.V_ivc = np.full(self.B, np.nan)
         self._plenum_cache: dict | None = None
-
-    # -- helpers ---------------------------------------------------------
-    def _check(self, x, role: str, what: str, theta: float):
-        """Shape and finiteness guard on a submodel output."""
-        x = np.asarray(x, dtype=float)
-        if x.shape != (self.B,):
-            if x.ndim == 0:
-                return np.full(self.B, float(x))
-            model = self.b.models[role]
-            raise PluginError(
-                f"{role} model {model.name!r}: {what} returned shape {x.shape}, expected ({self.B},)"
-            )
-        bad = ~np.isfinite(x)
-        if bad.any():
-            model = self.b.models[role]
-            for i in np.flatnonzero(bad & self.alive):
-                self.failed[i] = (
-                    f"{role} model {model.name!r} returned a non-finite {what} at crank angle"
-                    f" {theta:.2f} deg"
-                )
-            self.alive &= ~bad
-            x = np.where(bad, 0.0, x)
-        return x
-
-    def _call(self, role: str, what: str, fn, *args):
-        try:
-            return fn(*args)
-        except (PluginError, SolverError):
-            raise
-        except Exception as exc:  # noqa: BLE001
-            model = self.b.models[role]
-            theta = args[0].theta if args and isinstance(args[0], GasState) else float("nan")
-            raise PluginError(
-                f"{role} model {model.name!r} raised {type(exc).__name__} in {what} at crank angle"
-                f" {theta:.2f} deg: {exc}"
-            ) from exc
+        self.sub_names = self.names[len(CORE):]
+        self._shape_B = (self.B,)
+        self._zeros = np.zeros(self.B)
+        self._all_closed = np.ones(self.B, dtype=bool)
+        self._dh298 = np.asarray(self.gas.h298_u - self.gas.h298_b, float) * np.ones(self.B)
 
     def plenums(self, theta: float, sub):
         cache = self._plenum_cache
         if cache is not None and getattr(self.bnd, "constant", False):
             return cache
         g = self.gas
-        p_i, T_i, y_i = self._call("boundary", "intake", self.bnd.intake, theta, sub)
-        p_e, T_e = self._call("boundary", "exhaust", self.bnd.exhaust, theta, sub)
+        try:
+            p_i, T_i, y_i = self.bnd.intake(theta, sub)
+            p_e, T_e = self.bnd.exhaust(theta, sub)
+        except CyclesimError:
+            raise
+        except Exception as exc:  # noqa: BLE001
+            raise PluginError(f"boundary model {self.bnd.name!r} raised {type(exc).__name__} at crank"
+                              f" angle {theta:.2f} deg: {exc}") from exc
         ones = np.ones(self.B)
         p_i, T_i, y_i, p_e, T_e = (np.asarray(a, float) * ones for a in (p_i, T_i, y_i, p_e, T_e))
         # plenum gas properties: density from p = rho R T (two fixed-point passes)
@@ -171,6 +146,40 @@ class _RHS:
         return out
 
     # -- the right-hand side ----------------------------------------------
+    def _shape(self, x, role: str, what: str) -> np.ndarray:
+        if type(x) is np.ndarray and x.shape == self._shape_B:
+            return x
+        x = np.asarray(x, dtype=float)
+        if x.ndim == 0:
+            return np.full(self.B, float(x))
+        if x.shape != self._shape_B:
+            model = self.b.models[role]
+            raise PluginError(
+                f"{role} model {model.name!r}: {what} returned shape {x.shape}, expected ({self.B},)"
+            )
+        return x
+
+    def _nonfinite(self, theta: float, parts: list, out: np.ndarray) -> np.ndarray:
+        """Stop the cases whose derivatives are not finite, naming the submodel responsible."""
+        bad = ~np.isfinite(out).all(axis=0)
+        for i in np.flatnonzero(bad & self.alive):
+            culprit = None
+            for role, what, arr in parts:
+                if arr is not None and not np.isfinite(arr[i]):
+                    culprit = (role, what)
+                    break
+            if culprit:
+                model = self.b.models[culprit[0]]
+                msg = (f"{culprit[0]} model {model.name!r} returned a non-finite {culprit[1]} at crank angle"
+                       f" {theta:.2f} deg")
+            else:
+                msg = (f"solver: non-finite state derivative at crank angle {theta:.2f} deg"
+                       f" (gas properties out of range?)")
+            self.failed[i] = msg
+        self.alive &= ~bad
+        out[:, bad] = 0.0
+        return out
+
     def __call__(self, theta: float, y: np.ndarray, geo: tuple) -> np.ndarray:
         V, dV, Ah, Ap, Al = geo
         m = y[0]
@@ -186,8 +195,8 @@ class _RHS:
         p = rho * R * T
         u = mp.u
         h = u + R * T
-        sub = {nm: y[len(CORE) + i] for i, nm in enumerate(self.names[len(CORE):])}
-
+        ncore = len(CORE)
+        sub = {nm: y[ncore + i] for i, nm in enumerate(self.sub_names)}
         full = self.mode == "full"
         if full:
             pl = self.plenums(theta, sub)
@@ -197,7 +206,7 @@ class _RHS:
             closed = (th >= self.ivc) & (th < self.evo)
         else:
             p_i = T_i = y_i = R_i = g_i = h_i = p_e = T_e = R_e = g_e = h_e = None
-            closed = np.ones(B, dtype=bool)
+            closed = self._all_closed
         burning = (theta >= self.soc) & closed
         s = GasState(
             theta=theta, omega_deg=self.omega, V=V, dV=dV, A_head=Ah, A_piston=Ap, A_liner=Al,
@@ -210,70 +219,96 @@ class _RHS:
             mdot_int=None, mdot_exh=None, mdot_blowby=None, Qdot_wall=None,
             sub=sub, geometry=self.b.geometry,
         )
-        dxb = self._check(self._call("burn", "rate", self.burn.rate, s), "burn", "burn rate", theta)
-        Qw = self._check(self._call("heat_transfer", "heat_flow", self.ht.heat_flow, s),
-                         "heat_transfer", "heat flow", theta)
-        mbb = self._check(self._call("blowby", "mass_flow", self.bb.mass_flow, s),
-                          "blowby", "mass flow", theta)
-        mbb = np.maximum(mbb, 0.0)
-        if full:
-            mi, me = self._call("valve_flow", "mass_flows", self.vf.mass_flows, s)
-            mi = self._check(mi, "valve_flow", "intake mass flow", theta)
-            me = self._check(me, "valve_flow", "exhaust mass flow", theta)
-        else:
-            mi = me = np.zeros(B)
-        s.mdot_int, s.mdot_exh, s.mdot_blowby, s.Qdot_wall = mi, me, mbb, Qw
+        stage = ("burn", "rate")
+        try:
+            dxb = self._shape(self.burn.rate(s), "burn", "burn rate")
+            stage = ("heat_transfer", "heat_flow")
+            Qw = self._shape(self.ht.heat_flow(s), "heat_transfer", "heat flow")
+            stage = ("blowby", "mass_flow")
+            mbb = np.maximum(self._shape(self.bb.mass_flow(s), "blowby", "mass flow"), 0.0)
+            if full:
+                stage = ("valve_flow", "mass_flows")
+                mi, me = self.vf.mass_flows(s)
+                mi = self._shape(mi, "valve_flow", "intake mass flow")
+                me = self._shape(me, "valve_flow", "exhaust mass flow")
+            else:
+                mi = me = self._zeros
+            s.mdot_int, s.mdot_exh, s.mdot_blowby, s.Qdot_wall = mi, me, mbb, Qw
+            subd = []
+            for role, model, sv in self.sub_specs:
+                stage = (role, "derivatives")
+                d = model.derivatives(s)
+                val = d.get(sv.name) if hasattr(d, "get") else None
+                if val is None:
+                    raise PluginError(
+                        f"{role} model {model.name!r}: derivatives() gave no value for state {sv.name!r}")
+                subd.append(self._shape(val, role, f"derivative of {sv.name}"))
+        except (PluginError, SolverError):
+            raise
+        except Exception as exc:  # noqa: BLE001
+            model = self.b.models[stage[0]]
+            raise PluginError(
+                f"{stage[0]} model {model.name!r} raised {type(exc).__name__} in {stage[1]}() at crank"
+                f" angle {theta:.2f} deg: {exc}"
+            ) from exc
 
         dt = self.dt_dth
         # burn: fraction of the *remaining* fresh charge, so blowby cannot burn charge twice
         mu = m - mb
         eta = self.eta_c
-        denom = np.maximum(1.0 - eta * xb, 1e-6)
-        dm_burn = np.where(burning, eta * dxb / denom * np.maximum(mu, 0.0), 0.0)
-        # flows per degree, upstream composition and enthalpy by flow direction
-        fi = mi * dt
-        fe = me * dt
+        dxb = np.where(burning, dxb, 0.0)
+        dm_burn = eta * dxb / np.maximum(1.0 - eta * xb, 1e-6) * np.maximum(mu, 0.0)
         fbb = mbb * dt
-        yin_i = np.where(fi > 0, y_i, yb) if full else yb
-        hin_i = np.where(fi > 0, h_i, h) if full else h
-        yin_e = np.where(fe > 0, 1.0, yb) if full else yb
-        hin_e = np.where(fe > 0, h_e, h) if full else h
-        dm = fi + fe - fbb
-        dmb = dm_burn + fi * yin_i + fe * yin_e - fbb * yb
-        dHi = fi * hin_i
-        dHe = fe * hin_e
+        out = np.empty((self.n, B))
+        if full:
+            fi = mi * dt
+            fe = me * dt
+            inn = fi > 0
+            yin_i = np.where(inn, y_i, yb)
+            hin_i = np.where(inn, h_i, h)
+            ine = fe > 0
+            yin_e = np.where(ine, 1.0, yb)
+            hin_e = np.where(ine, h_e, h)
+            dm = fi + fe - fbb
+            dmb = dm_burn + fi * yin_i + fe * yin_e - fbb * yb
+            dHi = fi * hin_i
+            dHe = fe * hin_e
+            out[9] = fi
+            out[10] = dHi
+            out[11] = fi * (1.0 - yin_i)
+            out[12] = fe
+            out[13] = dHe
+            out[14] = fe * (1.0 - yin_e)
+            dHflow = dHi + dHe
+        else:
+            dm = -fbb
+            dmb = dm_burn - fbb * yb
+            out[9:15] = 0.0
+            dHflow = 0.0
         dHbb = fbb * h
         dQ = Qw * dt
-        dU = -p * dV - dQ + dHi + dHe - dHbb
+        pdV = p * dV
+        dU = dHflow - pdV - dQ - dHbb
         dlnrho = dm / m - dV / V
         dy = (dmb - yb * dm) / m
-        dT = ((dU - u * dm) / m - mp.u_lnrho * dlnrho - mp.u_y * dy) / mp.u_T
-
-        out = np.empty((self.n, B))
         out[0] = dm
-        out[1] = dT
+        out[1] = ((dU - u * dm) / m - mp.u_lnrho * dlnrho - mp.u_y * dy) / mp.u_T
         out[2] = dmb
-        out[3] = np.where(burning, dxb, 0.0)
-        out[4] = p * dV
+        out[3] = dxb
+        out[4] = pdV
         out[5] = dQ
         out[6] = fbb
         out[7] = dHbb
         out[8] = fbb * (1.0 - yb)
-        out[9] = fi
-        out[10] = dHi
-        out[11] = fi * (1.0 - yin_i)
-        out[12] = fe
-        out[13] = dHe
-        out[14] = fe * (1.0 - yin_e)
-        out[15] = dm_burn * (g.h298_u - g.h298_b)
-        k = len(CORE)
-        for role, model, sv in self.sub_specs:
-            d = self._call(role, "derivatives", model.derivatives, s)
-            val = d.get(sv.name) if hasattr(d, "get") else None
-            if val is None:
-                raise PluginError(f"{role} model {model.name!r}: derivatives() gave no value for state {sv.name!r}")
-            out[k] = self._check(val, role, f"derivative of {sv.name}", theta) * dt
-            k += 1
+        out[15] = dm_burn * self._dh298
+        for k, val in enumerate(subd):
+            out[ncore + k] = val * dt
+        if not np.isfinite(out).all():
+            parts = [("burn", "burn rate", dxb), ("heat_transfer", "heat flow", Qw),
+                     ("blowby", "mass flow", mbb), ("valve_flow", "intake mass flow", mi),
+                     ("valve_flow", "exhaust mass flow", me)]
+            parts += [(r, f"derivative of {sv.name}", v) for (r, _, sv), v in zip(self.sub_specs, subd)]
+            out = self._nonfinite(theta, parts, out)
         if not self.alive.all():
             out[:, ~self.alive] = 0.0
         return out
@@ -332,8 +367,22 @@ def grid_for(batch, mode: str) -> np.ndarray:
     return np.linspace(a, b, n + 1)
 
 
-def integrate(batch, progress=None) -> CycleTrace:
-    """Integrate a batch: one closed cycle, or full cycles to periodic steady state."""
+def integrate(batch, progress=None, initial: np.ndarray | None = None,
+              cycles: int | None = None) -> CycleTrace:
+    """Integrate a batch: one closed cycle, or full cycles to periodic steady state.
+
+    Parameters
+    ----------
+    batch : Batch
+    progress : callable, optional
+        Called with the cycle number after each cycle.
+    initial : ndarray (n_state, B), optional
+        Full mode: the state at -360 deg to start from (e.g. the end state of a
+        previous cycle, for cycles coupled through their residual gas).
+    cycles : int, optional
+        Full mode: run exactly this many cycles and report the last one, without
+        the convergence test.
+    """
     mode = batch.simulation.mode
     rhs = _RHS(batch, mode)
     theta = grid_for(batch, mode)
@@ -353,16 +402,22 @@ def integrate(batch, progress=None) -> CycleTrace:
         return (Gc[0][j], Gc[1][j], Gc[2][j], Gc[3][j], Gc[4][j])
 
     y = _initial_state(batch, rhs, theta[0], mode)
+    if initial is not None:
+        if initial.shape != y.shape:
+            raise SolverError(f"initial state has shape {initial.shape}, expected {y.shape}")
+        y = np.array(initial, dtype=float)
     n = rhs.n
     Y = np.empty((n, B, N + 1))
     F = np.empty((n, B, N + 1))
     Yfinal = np.empty_like(Y)
     Ffinal = np.empty_like(F)
-    cycles = np.zeros(B, dtype=int)
+    cycles_run = np.zeros(B, dtype=int)
     converged = np.zeros(B, dtype=bool)
     done = np.zeros(B, dtype=bool)
     history = []
     max_cycles = int(batch.simulation.max_cycles) if mode == "full" else 1
+    if cycles is not None and mode == "full":
+        max_cycles = int(cycles)
     tol = float(batch.simulation.tolerance)
     Vd = geo.Vd * np.ones(B)
     ivc = batch.valves.ivc_deg
@@ -414,32 +469,39 @@ def integrate(batch, progress=None) -> CycleTrace:
                 progress(cyc)
             if mode == "closed":
                 Yfinal, Ffinal = Y, F
-                cycles[:] = 1
+                cycles_run[:] = 1
                 converged[:] = True
                 break
             imep = Y[4, :, N] / Vd
             m_tr = _interp_at(theta, Y[0], F[0], ivc)
             history.append((imep.copy(), m_tr.copy()))
-            if prev is not None:
+            if cycles is not None:
+                newly = ~done if cyc == max_cycles else np.zeros(B, dtype=bool)
+            elif prev is not None:
                 d_imep = np.abs(imep - prev[0]) / np.maximum(np.abs(imep), 1e3)
                 d_m = np.abs(m_tr - prev[1]) / np.abs(m_tr)
                 newly = (~done) & (d_imep < tol) & (d_m < tol)
             else:
                 newly = np.zeros(B, dtype=bool)
-            newly |= (~done) & (~rhs.alive)
+            if cycles is None:
+                newly |= (~done) & (~rhs.alive)
             if cyc == max_cycles:
                 newly |= ~done
             if newly.any():
                 Yfinal[:, newly] = Y[:, newly]
                 Ffinal[:, newly] = F[:, newly]
-                cycles[newly] = cyc
-                converged[newly] = rhs.alive[newly] & (cyc < max_cycles or _settled(imep, m_tr, prev, tol))
+                cycles_run[newly] = cyc
+                if cycles is not None:
+                    converged[newly] = rhs.alive[newly]
+                else:
+                    converged[newly] = rhs.alive[newly] & (cyc < max_cycles or _settled(imep, m_tr, prev, tol))
                 done |= newly
             if done.all():
                 break
             prev = (imep, m_tr)
             # the next cycle starts from this one's end state (residual gas carried over)
-    trace = CycleTrace(theta, Yfinal, Ffinal, rhs.names, cycles, converged, history, rhs.failed)
+    trace = CycleTrace(theta, Yfinal, Ffinal, rhs.names, cycles_run, converged, history, rhs.failed)
+    trace.end_state = Yfinal[:, :, -1].copy()
     trace.ivc_state = {"p": rhs.p_ivc, "T": rhs.T_ivc, "V": rhs.V_ivc}
     return trace
 

@@ -324,6 +324,8 @@ RHO_GRID = (0.005, 400.0, 40)
 
 BURNED_MODELS = ("equilibrium", "complete")
 
+_POWERS = np.arange(4.0)
+
 
 class _CaseTable:
     """Everything that depends on one (fuel, phi, burned model): built once, shared."""
@@ -333,12 +335,9 @@ class _CaseTable:
 
         self.phi = phi
         n = fresh_charge(fuel, phi)
-        rec = {"FUEL": fuel.nasa7[:5] + ({"C": fuel.C},)}
-        low, high, _ = mixture_nasa7(n, rec)
+        rec = {"FUEL": fuel.nasa7[:5] + ({"C": fuel.C, "H": fuel.H, "O": fuel.O, "N": fuel.N},)}
+        low, high, M_u = mixture_nasa7(n, rec)
         b, y_fuel = fresh_charge_elements(fuel, phi)
-        n_tot = sum(n.values())
-        m_per_mol_fuel = fuel.molar_mass_kg_per_mol / y_fuel
-        M_u = m_per_mol_fuel / n_tot
         self.R_u = R_U / M_u
         self.y_fuel = y_fuel
         self.b = b
@@ -379,19 +378,23 @@ class _CaseTable:
             u, uT, R = _fixed_composition_u(self.complete, TT)
             RT = np.zeros_like(u)
         # cubic Hermite on each T interval, in the local variable t = (T - T_i)/dT:
-        # value = c0 + c1 t + c2 t^2 + c3 t^3 with c from values and slopes at both ends
-        coef = np.empty((nT - 1, nR, 2, 4))
+        # value = c0 + c1 t + c2 t^2 + c3 t^3 from values and slopes at both ends;
+        # d value/dT = (c1 + 2 c2 t + 3 c3 t^2)/dT
+        val = np.empty((nT - 1, nR, 4, 4))  # (interval, rho node, [u, R, u_T, R_T], power)
         for q, (f, fT) in enumerate(((u, uT), (R, RT))):
             f0, f1 = f[:-1], f[1:]
             m0, m1 = fT[:-1] * dT, fT[1:] * dT
-            coef[:, :, q, 0] = f0
-            coef[:, :, q, 1] = m0
-            coef[:, :, q, 2] = 3 * (f1 - f0) - 2 * m0 - m1
-            coef[:, :, q, 3] = 2 * (f0 - f1) + m0 + m1
-        # pair each density node j with j+1 so one gather fetches both corners
-        self.table = np.concatenate([coef[:, :-1], coef[:, 1:]], axis=2).reshape(
-            (nT - 1) * (nR - 1), 16
-        )
+            c2 = 3 * (f1 - f0) - 2 * m0 - m1
+            c3 = 2 * (f0 - f1) + m0 + m1
+            val[:, :, q] = np.stack([f0, m0, c2, c3], axis=-1)
+            val[:, :, q + 2] = np.stack([m0, 2 * c2, 3 * c3, np.zeros_like(c3)], axis=-1) / dT
+        dlr = float(lnr[1] - lnr[0])
+        # per (interval, density interval): the corner at node j and the slope
+        # in ln(rho) towards node j+1, so that one gather and one product give
+        # [u, R, u_T, R_T] = base + (ln rho - ln rho_j) * slope
+        self.table = np.concatenate(
+            [val[:, :-1], (val[:, 1:] - val[:, :-1]) / dlr], axis=2
+        ).reshape((nT - 1) * (nR - 1), 32)
         self.shape = (nT, nR)
         self.grid = (T0, dT, float(lnr[0]), float(lnr[1] - lnr[0]))
 
@@ -491,7 +494,8 @@ class GasTables:
         self._offset = which * ((nT - 1) * (nR - 1))
         self._T_hi = self._T0 + (nT - 1) * self._dT
         self._lr_hi = self._lr0 + (nR - 1) * self._dlr
-        self._lnrho_min = self._lr0
+        self._x_hi = (nT - 1) * (1.0 - 1e-12)  # top node reached as t -> 1 in the last interval
+        self._z_hi = (nR - 1) * self._dlr * (1.0 - 1e-12)
         self.T_range = (self._T0, self._T_hi)
         self.rho_range = (float(np.exp(self._lr0)), float(np.exp(self._lr_hi)))
 
@@ -528,32 +532,22 @@ class GasTables:
         return u + R * np.asarray(T, dtype=float)
 
     # -- burned gas --------------------------------------------------------
-    def _burned_core(self, T, rho):
-        x = (np.minimum(np.maximum(T, self._T0), self._T_hi) - self._T0) * self._inv_dT
-        i = np.minimum(x.astype(np.intp), self._nT - 2)
-        t = x - i
-        z = (np.minimum(np.maximum(np.log(rho), self._lr0), self._lr_hi) - self._lr0) * self._inv_dlr
-        j = np.minimum(z.astype(np.intp), self._nR - 2)
-        w = z - j
-        g = self._table[self._offset + i * (self._nR - 1) + j].reshape(-1, 4, 4)
-        tt = t * t
-        p = np.empty((t.shape[0], 4, 2))
-        p[:, 0, 0] = 1.0
-        p[:, 1, 0] = t
-        p[:, 2, 0] = tt
-        p[:, 3, 0] = tt * t
-        p[:, 0, 1] = 0.0
-        p[:, 1, 1] = 1.0
-        p[:, 2, 1] = 2.0 * t
-        p[:, 3, 1] = 3.0 * tt
-        v = np.matmul(g, p)  # (B, 4 = [u@j, R@j, u@j+1, R@j+1], 2 = [value, d/dt])
-        lo = v[:, 0:2]
-        d = v[:, 2:4] - lo
-        f = lo + w[:, None, None] * d  # (B, 2 quantities, 2)
-        return f, d
+    def _burned_core(self, T, rho, offset=None):
+        """[u, R, u_T, R_T] (N, 4) and [u_lnrho, R_lnrho] (N, 2) from the tables (T, rho (N,))."""
+        x = np.minimum(np.maximum((T - self._T0) * self._inv_dT, 0.0), self._x_hi)
+        i = x.astype(np.intp)
+        z = np.minimum(np.maximum(np.log(rho) - self._lr0, 0.0), self._z_hi)
+        j = (z * self._inv_dlr).astype(np.intp)
+        off = self._offset if offset is None else offset
+        g = self._table[off + i * (self._nR - 1) + j].reshape(-1, 8, 4)
+        pw = np.power((x - i)[:, None], _POWERS)[:, :, None]
+        v = np.matmul(g, pw)[:, :, 0]  # (B, 8): base [u, R, u_T, R_T], then slopes
+        s = v[:, 4:]
+        f = v[:, :4] + (z - j * self._dlr)[:, None] * s
+        return f, s
 
     def burned(self, T, rho):
-        """Burned-gas properties at ``T`` [K] and ``rho`` [kg/m^3], arrays (B,).
+        """Burned-gas properties at ``T`` [K] and ``rho`` [kg/m^3], arrays (B,) or (B, n).
 
         Returns
         -------
@@ -564,9 +558,16 @@ class GasTables:
         R, R_T, R_lnrho : ndarray
             Gas constant [J/(kg K)] and its derivatives [J/(kg K^2)], [J/(kg K)].
         """
-        f, d = self._burned_core(np.asarray(T, dtype=float), np.asarray(rho, dtype=float))
-        return (f[:, 0, 0], f[:, 0, 1] * self._inv_dT, d[:, 0, 0] * self._inv_dlr,
-                f[:, 1, 0], f[:, 1, 1] * self._inv_dT, d[:, 1, 0] * self._inv_dlr)
+        T = np.asarray(T, dtype=float)
+        rho = np.asarray(rho, dtype=float)
+        if T.ndim == 1:
+            f, s = self._burned_core(T, rho)
+            return f[:, 0], f[:, 2], s[:, 0], f[:, 1], f[:, 3], s[:, 1]
+        shape = T.shape  # (B, n): post-processing
+        n = T.size // self.B
+        f, s = self._burned_core(T.ravel(), np.broadcast_to(rho, shape).ravel(),
+                                 np.repeat(self._offset, n))
+        return tuple(a.reshape(shape) for a in (f[:, 0], f[:, 2], s[:, 0], f[:, 1], f[:, 3], s[:, 1]))
 
     def enthalpy_burned(self, T, rho) -> np.ndarray:
         """Absolute enthalpy of the burned gas [J/kg] at ``T`` [K], ``rho`` [kg/m^3]."""
@@ -576,7 +577,7 @@ class GasTables:
     def mixture(self, T, rho, y) -> MixProps:
         """Cylinder-gas properties at ``T`` [K], ``rho`` [kg/m^3], burned mass fraction ``y`` [-] (B,)."""
         T = np.asarray(T, dtype=float)
-        f, d = self._burned_core(T, np.asarray(rho, dtype=float))
+        f, s = self._burned_core(T, np.asarray(rho, dtype=float))
         c = self._ucoef[self._row2 + (T > T_MID)]
         uu = c[:, 5]
         cvu = c[:, 10]
@@ -585,25 +586,20 @@ class GasTables:
         for i in (9, 8, 7, 6):
             cvu = cvu * T + c[:, i]
         Ru = self.R_unburned
-        ub = f[:, 0, 0]
-        Rb = f[:, 1, 0]
-        yu = 1.0 - y
-        u_y = ub - uu
-        R_y = Rb - Ru
+        u_y = f[:, 0] - uu
+        R_y = f[:, 1] - Ru
         u = uu + y * u_y
         R = Ru + y * R_y
-        u_T = yu * cvu + y * (f[:, 0, 1] * self._inv_dT)
-        R_T = y * (f[:, 1, 1] * self._inv_dT)
-        u_lnrho = y * (d[:, 0, 0] * self._inv_dlr)
-        R_lnrho = y * (d[:, 1, 0] * self._inv_dlr)
+        u_T = cvu + y * (f[:, 2] - cvu)
         cp = u_T + R
-        return MixProps(u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, u_T, cp, cp / u_T)
+        return MixProps(u, u_T, y * s[:, 0], u_y, R, y * f[:, 3], y * s[:, 1], R_y,
+                        u_T, cp, cp / u_T)
 
     def pressure(self, T, rho, y) -> np.ndarray:
         """Pressure [Pa] = rho R(T, rho, y) T."""
         T = np.asarray(T, dtype=float)
         f, _ = self._burned_core(T, np.asarray(rho, dtype=float))
-        R = self.R_unburned + y * (f[:, 1, 0] - self.R_unburned)
+        R = self.R_unburned + y * (f[:, 1] - self.R_unburned)
         return rho * R * T
 
     def burned_mole_fractions(self, T, rho) -> dict[str, np.ndarray]:

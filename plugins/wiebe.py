@@ -123,7 +123,7 @@ P_M = Param("m", "-", 2.0, "Wiebe form factor (larger = later, steeper burning)"
             min=0.0, max=10.0)
 P_EFF = Param("combustion_efficiency", "-", 0.97,
               "fraction of the charge's fuel energy released",
-              min=0.0, max=1.0, min_exclusive=True)
+              min=0.0, max=1.0)
 P_SPARK = Param("spark_advance_deg", "deg", 25.0,
                 "spark timing in crank degrees before firing TDC (positive = before)",
                 min=-30.0, max=80.0)

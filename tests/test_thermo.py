@@ -122,7 +122,7 @@ def test_fresh_charge_matches_cantera_mixture(gri, nasa):
     assert g.y_fuel[0] == pytest.approx(1 / (1 + fuel.afr_stoich / phi), rel=1e-12)
 
 
-def test_unburned_accepts_case_by_point_arrays():
+def test_properties_accept_case_by_point_arrays():
     g = thermo.build_gas_tables(BUILTIN_FUELS["gasoline"], [0.9, 1.1])
     T = np.array([[300.0, 600.0, 1200.0], [350.0, 900.0, 2000.0]])
     u2, cv2, R2 = g.unburned(T)
@@ -133,6 +133,12 @@ def test_unburned_accepts_case_by_point_arrays():
         np.testing.assert_allclose(R2[:, k], R1, rtol=1e-14)
     h = g.enthalpy_unburned(T)
     np.testing.assert_allclose(h, u2 + R2 * T, rtol=1e-14)
+    rho = np.array([[1.0, 5.0, 20.0], [0.5, 10.0, 40.0]])
+    b2 = g.burned(T, rho)
+    for k in range(3):
+        b1 = g.burned(T[:, k], rho[:, k])
+        for a2, a1 in zip(b2, b1):
+            np.testing.assert_allclose(a2[:, k], a1, rtol=1e-14)
 
 
 # ---------------------------------------------------------------------------

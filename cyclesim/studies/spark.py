@@ -1,0 +1,697 @@
+"""Spark-advance study: MBT from a fit, the flat top of the torque curve, knock and pressure limits.
+
+>>> from cyclesim.studies.spark import spark_study
+>>> st = spark_study("demo", advances="10:40:2", out="spark")
+>>> print(st.text())
+
+The study sweeps ``burn.spark_advance_deg`` and reads the torque curve:
+
+* **MBT** (minimum advance for best torque, here the advance of maximum fitted
+  torque) from a least-squares polynomial through the points within a few
+  percent of the highest torque (cubic with five or more points, else
+  quadratic), so it falls between grid points.
+* the **least advance within** ``torque_fraction`` of best torque: the most
+  retarded advance whose torque (the fit inside its window, a monotone
+  piecewise-cubic through the points outside it) is at least
+  ``(1 - torque_fraction)`` times the best torque.
+* torque loss [%] at each advance relative to the best (fitted) torque, as a
+  column ``torque_loss_pct`` of the table.
+* CA50, angle and value of peak pressure and the largest pressure-rise rate at
+  MBT, interpolated between the advances (cubic spline).
+* the **knock-limited advance** when the knock model reports
+  ``knock_onset_deg``: the least advance at which knock onset occurs, found
+  where ``knock_integral_max`` crosses 1 between two advances (linear
+  interpolation).  With ``knock_share`` only knock with at least that share
+  of the charge still unburned at onset counts.
+* the **recommended advance**: the most retarded of MBT, knock-limited advance
+  minus ``knock_margin_deg``, and the advances at which peak pressure and the
+  pressure-rise rate reach ``p_max_limit_bar`` and ``dp_limit_bar_per_deg``.
+
+Burn models that fix the phasing by CA50 (``wiebe_ca50``) have no spark
+advance to sweep: the study refuses them with a message pointing to a sweep of
+``burn.ca50_deg`` instead.
+
+Torque is the brake torque ``torque_Nm``; where a case has none (closed-cycle
+mode) the study uses net, then closed-cycle IMEP.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Sequence
+
+import numpy as np
+
+from ..config import Case, load_config
+from ..errors import ConfigError, CyclesimError
+from ..output import CAUTION, atomic_write_text
+from .sweep import CSV_NAME, JSON_NAME, SweepResult, parse_values, sweep
+
+__all__ = ["spark_study", "SparkStudy", "fit_torque_peak", "crossing_up", "SPARK_CAUTION"]
+
+KEY = "burn.spark_advance_deg"
+SPARK_CAUTION = (
+    "MBT and knock-limited timings are model estimates: on a real engine approach them gradually"
+    " with knock detection, within the manufacturer's limits and the test cell's procedures"
+)
+TORQUE_KEYS = ("torque_Nm", "imep_net_bar", "imep_closed_bar")
+
+
+# --------------------------------------------------------------------------
+# Curve reading (pure functions on arrays)
+# --------------------------------------------------------------------------
+
+
+def fit_torque_peak(advance_deg: np.ndarray, torque: np.ndarray, window_fraction: float = 0.03) -> dict:
+    """Advance and value of the torque maximum from a local least-squares polynomial.
+
+    Parameters
+    ----------
+    advance_deg : array (n,)
+        Spark advances, ascending [deg before TDC].
+    torque : array (n,)
+        Torque (or IMEP) at each advance [N m or bar].
+    window_fraction : float
+        Points whose torque is within this fraction of the highest are fitted
+        (a contiguous run around the highest point; at least the highest point
+        and its two neighbours) [-].
+
+    Returns
+    -------
+    dict
+        ``bracketed`` (False when the highest point is at an end of the
+        sweep: then the maximum lies outside it and ``mbt_deg`` is None),
+        ``edge`` ("low"/"high" when not bracketed), ``mbt_deg``, ``best``,
+        ``degree``, ``window_deg`` (lo, hi), ``coef`` (power-series
+        coefficients in advance, lowest first), ``poly`` (callable).
+
+    Notes
+    -----
+    Near its maximum the torque-advance curve is flat and slightly skewed
+    (it falls faster with over-advance than with retard), so a cubic over a
+    few percent of torque follows it better than a parabola; with fewer than
+    five points in the window a quadratic is used.
+    """
+    a = np.asarray(advance_deg, float)
+    t = np.asarray(torque, float)
+    n = len(a)
+    if n < 3:
+        raise CyclesimError(f"spark study: {n} valid advance(s); at least 3 are needed to find MBT")
+    k = int(np.argmax(t))
+    if k == 0 or k == n - 1:
+        return {"bracketed": False, "edge": "low" if k == 0 else "high", "mbt_deg": None,
+                "best": float(t[k]), "degree": None, "window_deg": None, "coef": None, "poly": None}
+    level = t[k] * (1.0 - window_fraction) if t[k] >= 0 else t[k] * (1.0 + window_fraction)
+    lo = k
+    while lo > 0 and t[lo - 1] >= level:
+        lo -= 1
+    hi = k
+    while hi < n - 1 and t[hi + 1] >= level:
+        hi += 1
+    lo, hi = min(lo, k - 1), max(hi, k + 1)
+    npts = hi - lo + 1
+    deg = 3 if npts >= 5 else 2
+    P = np.polynomial.Polynomial.fit(a[lo: hi + 1], t[lo: hi + 1], deg)
+    cand = [a[lo], a[hi]]
+    for r in P.deriv().roots():
+        if abs(r.imag) < 1e-9 and a[lo] <= r.real <= a[hi]:
+            cand.append(float(r.real))
+    vals = [float(P(c)) for c in cand]
+    j = int(np.argmax(vals))
+    mbt, best = float(cand[j]), vals[j]
+    if best < t[k]:           # the fit never lies below the best point actually computed
+        mbt, best = float(a[k]), float(t[k])
+    conv = P.convert()
+    return {"bracketed": True, "edge": None, "mbt_deg": mbt, "best": best, "degree": deg,
+            "window_deg": (float(a[lo]), float(a[hi])), "coef": [float(c) for c in conv.coef],
+            "poly": P}
+
+
+def crossing_up(x: np.ndarray, y: np.ndarray, level: float) -> tuple[float | None, str]:
+    """Least ``x`` at which ``y`` reaches ``level``, rising with ``x``, linearly interpolated.
+
+    Returns ``(x_cross, status)`` with status ``"crossed"``, ``"always"``
+    (``y >= level`` already at the first point: x_cross None) or ``"never"``
+    (``y < level`` everywhere: x_cross None).  NaN entries count as below the
+    level.
+    """
+    x = np.asarray(x, float)
+    y = np.where(np.isfinite(np.asarray(y, float)), np.asarray(y, float), -np.inf)
+    above = y >= level
+    if not above.any():
+        return None, "never"
+    i = int(np.argmax(above))
+    if i == 0:
+        return None, "always"
+    y0 = y[i - 1]
+    if not np.isfinite(y0):
+        return float(x[i]), "crossed"
+    w = (level - y0) / (y[i] - y0)
+    return float(x[i - 1] + w * (x[i] - x[i - 1])), "crossed"
+
+
+def _interp_at(x: np.ndarray, y: np.ndarray, at: float) -> float | None:
+    ok = np.isfinite(y)
+    if ok.sum() < 2 or at is None:
+        return None
+    xs, ys = x[ok], y[ok]
+    if not xs[0] <= at <= xs[-1]:
+        return None
+    if len(xs) >= 4:
+        from scipy.interpolate import CubicSpline
+
+        return float(CubicSpline(xs, ys)(at))
+    return float(np.interp(at, xs, ys))
+
+
+# --------------------------------------------------------------------------
+# Result
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class SparkStudy:
+    """Figures of a spark-advance study (advances in deg before firing TDC).
+
+    Attributes
+    ----------
+    table : SweepResult
+        One row per advance, with ``torque_loss_pct`` added.
+    torque_key : str
+        Column used as torque (``torque_Nm`` unless the cases have none).
+    mbt_deg : float or None
+        Advance of maximum fitted torque; None if the maximum lies outside
+        the sweep.
+    best_torque : float
+        Fitted torque at MBT (or the highest computed if not bracketed).
+    lbt_deg : float or None
+        Least advance within ``torque_fraction`` of best torque.
+    torque_fraction : float
+    ca50_at_mbt_deg, theta_pmax_at_mbt_deg, p_max_at_mbt_bar, dp_max_at_mbt_bar_per_deg : float or None
+    knock_limited_deg : float or None
+        Least advance at which knock onset occurs (None: no knock model, or
+        no knock in the sweep, or knock everywhere; see ``notes``).
+    knock_status : str
+        ``"no model"``, ``"crossed"``, ``"never"`` or ``"always"``.
+    pmax_limited_deg, dp_limited_deg : float or None
+        Advances at which peak pressure / pressure-rise rate reach their limits.
+    recommended_deg : float or None
+        The most retarded of the candidates in ``candidates``.
+    recommended_by : str
+        Which candidate set it.
+    candidates : dict
+        Name -> advance of each limit taken into account.
+    fit : dict
+        Polynomial degree, window and coefficients of the torque fit.
+    notes : list of str
+    files : list of Path
+    """
+
+    table: SweepResult
+    torque_key: str
+    mbt_deg: float | None
+    best_torque: float
+    lbt_deg: float | None
+    torque_fraction: float
+    ca50_at_mbt_deg: float | None = None
+    theta_pmax_at_mbt_deg: float | None = None
+    p_max_at_mbt_bar: float | None = None
+    dp_max_at_mbt_bar_per_deg: float | None = None
+    knock_limited_deg: float | None = None
+    knock_status: str = "no model"
+    knock_margin_deg: float = 2.0
+    pmax_limited_deg: float | None = None
+    dp_limited_deg: float | None = None
+    recommended_deg: float | None = None
+    recommended_by: str = ""
+    candidates: dict = field(default_factory=dict)
+    fit: dict = field(default_factory=dict)
+    notes: list = field(default_factory=list)
+    files: list = field(default_factory=list)
+    base_config: str = ""
+    caution: str = SPARK_CAUTION
+
+    def torque_at(self, advance_deg) -> np.ndarray:
+        """Torque model used by the study: the fit inside its window, a monotone cubic outside."""
+        a = np.atleast_1d(np.asarray(advance_deg, float))
+        return _torque_model(self)(a)
+
+    def figures(self) -> dict:
+        """Every figure as JSON-ready data."""
+        tk = self.torque_key
+        adv = self.table.column(KEY)
+        fit = {k: v for k, v in self.fit.items() if k != "poly"}
+        return {
+            "caution": self.caution,
+            "general_caution": CAUTION,
+            "base_config": self.base_config,
+            "torque_key": tk,
+            "mbt_deg": self.mbt_deg,
+            f"best_{tk}": self.best_torque,
+            "torque_fraction": self.torque_fraction,
+            "lbt_deg": self.lbt_deg,
+            "ca50_at_mbt_deg": self.ca50_at_mbt_deg,
+            "theta_pmax_at_mbt_deg": self.theta_pmax_at_mbt_deg,
+            "p_max_at_mbt_bar": self.p_max_at_mbt_bar,
+            "dp_max_at_mbt_bar_per_deg": self.dp_max_at_mbt_bar_per_deg,
+            "knock_limited_deg": self.knock_limited_deg,
+            "knock_status": self.knock_status,
+            "knock_margin_deg": self.knock_margin_deg,
+            "pmax_limited_deg": self.pmax_limited_deg,
+            "dp_limited_deg": self.dp_limited_deg,
+            "recommended_deg": self.recommended_deg,
+            "recommended_by": self.recommended_by,
+            "candidates_deg": dict(self.candidates),
+            "fit": fit,
+            "notes": list(self.notes),
+            "advances_deg": [_f(v) for v in adv],
+            tk: [_f(v) for v in self.table.column(tk)],
+            "torque_loss_pct": [_f(v) for v in self.table.column("torque_loss_pct")],
+            "files": [Path(f).name for f in self.files],
+        }
+
+    def text(self) -> str:
+        """A short readable report (ends with the caution)."""
+        tk = self.torque_key
+        unit = {"torque_Nm": "N m"}.get(tk, "bar")
+        adv = self.table.column(KEY)
+        lines = [f"spark advance study: {self.base_config}, advances {np.nanmin(adv):g} to {np.nanmax(adv):g} deg BTDC"
+                 f" ({len(adv)} cases, {len(self.table.failed)} failed)"]
+
+        def row(label, v, u="deg BTDC", spec=".1f"):
+            lines.append(f"  {label:<40s}{'-' if v is None else format(v, spec):>9s}  {u}")
+
+        row("MBT (from the fitted torque curve)", self.mbt_deg)
+        row(f"best {tk.replace('_', ' ')}", self.best_torque, unit, ".2f")
+        row(f"least advance within {100 * self.torque_fraction:g} % of best", self.lbt_deg)
+        row("CA50 at MBT", self.ca50_at_mbt_deg, "deg ATDC")
+        row("angle of peak pressure at MBT", self.theta_pmax_at_mbt_deg, "deg ATDC")
+        row("peak pressure at MBT", self.p_max_at_mbt_bar, "bar")
+        if self.knock_status != "no model":
+            row("knock-limited advance", self.knock_limited_deg)
+        if self.pmax_limited_deg is not None:
+            row("peak-pressure limit reached at", self.pmax_limited_deg)
+        if self.dp_limited_deg is not None:
+            row("pressure-rise limit reached at", self.dp_limited_deg)
+        row("recommended advance", self.recommended_deg)
+        if self.recommended_by:
+            lines.append(f"  (set by: {self.recommended_by})")
+        for n in self.notes:
+            lines.append(f"note: {n}")
+        lines.append(f"CAUTION: {self.caution}.")
+        return "\n".join(lines)
+
+
+def _f(v) -> float | None:
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+def _torque_model(st: SparkStudy):
+    adv = st.table.column(KEY)
+    tq = st.table.column(st.torque_key)
+    ok = np.isfinite(adv) & np.isfinite(tq)
+    order = np.argsort(adv[ok])
+    xs, ys = adv[ok][order], tq[ok][order]
+    from scipy.interpolate import PchipInterpolator
+
+    pchip = PchipInterpolator(xs, ys, extrapolate=False)
+    poly = st.fit.get("poly")
+    win = st.fit.get("window_deg")
+
+    def model(a):
+        out = np.asarray(pchip(a), float)
+        if poly is not None and win is not None:
+            inside = (a >= win[0]) & (a <= win[1])
+            out = np.where(inside, poly(a), out)
+        return out
+
+    return model
+
+
+def _least_within(st: SparkStudy, a_min: float) -> tuple[float | None, str]:
+    """Most retarded advance (<= MBT) whose modelled torque is >= (1 - fraction) * best."""
+    from scipy.optimize import brentq
+
+    target = st.best_torque * (1.0 - st.torque_fraction)
+    model = _torque_model(st)
+    grid = np.linspace(a_min, st.mbt_deg, 4001)
+    t = model(grid)
+    below = np.flatnonzero(t < target)
+    if len(below) == 0:
+        return None, "always"
+    j = int(below[-1])
+    if j == len(grid) - 1:
+        return st.mbt_deg, "crossed"
+    f = lambda a: float(model(np.array([a]))[0]) - target  # noqa: E731
+    return float(brentq(f, grid[j], grid[j + 1], xtol=1e-6)), "crossed"
+
+
+# --------------------------------------------------------------------------
+# The study
+# --------------------------------------------------------------------------
+
+
+def _check_burn_model(case: Case) -> None:
+    from ..registry import get_registry
+
+    ch = case.submodels["burn"]
+    cls = get_registry(tuple(case.plugins)).submodel_class("burn", ch.model)
+    names = [p.name for p in cls.params]
+    if "spark_advance_deg" not in names:
+        hint = " sweep burn.ca50_deg instead (cyclesim sweep --vary burn.ca50_deg=0:20:1)" if "ca50_deg" in names else ""
+        raise ConfigError(
+            f"burn.model = {ch.model!r} sets the burn phasing without a spark advance, so spark advance"
+            f" cannot be swept; use burn.model=wiebe (or another spark-timed model), or{hint or ' vary its phasing key'}"
+        )
+
+
+def _knock(st: SparkStudy, table: SweepResult, adv: np.ndarray, ok: np.ndarray, knock_share) -> None:
+    if "knock_onset_deg" not in table.columns:
+        st.knock_status = "no model"
+        st.notes.append("no knock model active (knock.model = none): knock-limited advance not estimated")
+        return
+    onset = table.column("knock_onset_deg")[ok]
+    a = adv[ok]
+    if knock_share is not None:
+        share = _unburned_at_onset(table, ok, onset)
+        if share is None:
+            st.notes.append("knock_share ignored: the unburned share at knock onset is not available"
+                            " for every case (no knock_unburned_fraction_at_onset figure and no trace)")
+        else:
+            level = np.where(np.isfinite(onset), share, 0.0)
+            x, status = crossing_up(a, level, float(knock_share))
+            st.knock_limited_deg, st.knock_status = x, status
+            st.notes.append(f"knock counted when at least {100 * knock_share:g} % of the charge is unburned at onset")
+            _knock_notes(st, status, a)
+            return
+    if "knock_integral_max" in table.columns and np.isfinite(table.column("knock_integral_max")[ok]).any():
+        x, status = crossing_up(a, table.column("knock_integral_max")[ok], 1.0)
+    else:
+        knocks = np.isfinite(onset).astype(float)
+        x, status = crossing_up(a, knocks, 1.0)
+        if status == "crossed":
+            x = float(a[int(np.argmax(knocks >= 1.0))])
+            st.notes.append("knock-limited advance is the first advance swept with knock onset"
+                            " (no knock_integral_max figure to interpolate)")
+    st.knock_limited_deg, st.knock_status = x, status
+    _knock_notes(st, status, a)
+
+
+def _knock_notes(st: SparkStudy, status: str, a: np.ndarray) -> None:
+    if status == "never":
+        st.notes.append(f"no knock onset up to {a.max():g} deg BTDC: knock-limited advance is beyond the sweep")
+    elif status == "always":
+        st.notes.append(f"knock onset already at {a.min():g} deg BTDC, the least advance swept:"
+                        " the knock limit lies below the sweep")
+
+
+def _unburned_at_onset(table: SweepResult, ok: np.ndarray, onset: np.ndarray):
+    if "knock_unburned_fraction_at_onset" in table.columns:
+        return np.nan_to_num(table.column("knock_unburned_fraction_at_onset")[ok], nan=0.0)
+    out = []
+    results = [r for r, good in zip(table.results, ok) if good]
+    for res, th in zip(results, onset):
+        if not np.isfinite(th):
+            out.append(0.0)
+            continue
+        if res is None or "mfb" not in res.trace:
+            return None
+        out.append(1.0 - float(np.interp(th, res.trace["crank_deg"], res.trace["mfb"])))
+    return np.array(out)
+
+
+def _limit(st, label, col, limit, table, adv) -> tuple[float | None, str]:
+    """Advance at which a rising figure reaches its limit: (advance, status of crossing_up)."""
+    if limit is None:
+        return None, "none"
+    if col not in table.columns:
+        st.notes.append(f"{label} limit ignored: the cases report no {col}")
+        return None, "none"
+    x, status = crossing_up(adv, table.column(col), float(limit))
+    if status == "always":
+        st.notes.append(f"{label} already reaches {limit:g} at the least advance swept ({adv.min():g} deg BTDC)")
+    elif status == "never":
+        st.notes.append(f"{label} stays below {limit:g} over the whole sweep")
+    return x, status
+
+
+def spark_study(
+    base: Case | str | Path = "demo",
+    advances: Any = "0:40:1",
+    overrides: Sequence[str] = (),
+    out: str | Path | None = None,
+    torque_fraction: float = 0.01,
+    knock_margin_deg: float = 2.0,
+    p_max_limit_bar: float | None = None,
+    dp_limit_bar_per_deg: float | None = None,
+    knock_share: float | None = None,
+    *,
+    fit_window_fraction: float = 0.03,
+    resume: bool = False,
+    force: bool = False,
+    chunk_size: int = 64,
+    progress=None,
+    plots: bool = True,
+    traces: int = 8,
+) -> SparkStudy:
+    """Sweep spark advance and read MBT, the flat top, knock and pressure limits.
+
+    Parameters
+    ----------
+    base : Case, str or Path
+        Base case, or a config path / built-in name (with ``overrides``).
+    advances : str or list
+        Spark advances [deg before TDC]: ``"start:stop:step"``, ``"a,b,c"`` or a list.
+    overrides : list of str
+        ``key=value`` changes to the base config.
+    out : str or Path, optional
+        Folder for ``spark_study.json``, ``sweep.csv``, ``sweep.json`` and the plots.
+    torque_fraction : float
+        Torque fraction for the least advance within it of best torque [-].
+    knock_margin_deg : float
+        Retard kept from the knock-limited advance [deg].
+    p_max_limit_bar : float, optional
+        Peak-pressure limit [bar].
+    dp_limit_bar_per_deg : float, optional
+        Limit of the largest pressure-rise rate [bar/deg].
+    knock_share : float, optional
+        Count knock only when at least this share of the charge is unburned at onset [-].
+    fit_window_fraction : float
+        Points within this fraction of the highest torque enter the MBT fit [-].
+    resume, force, chunk_size, progress
+        As for :func:`cyclesim.studies.sweep.sweep`.
+    plots : bool
+        With ``out``: write the PNG plots.
+    traces : int
+        Number of pressure traces overlaid in the trace plot.
+
+    Returns
+    -------
+    SparkStudy
+    """
+    if not 0.0 < torque_fraction < 1.0:
+        raise ConfigError(f"--torque-fraction {torque_fraction!r}: expected a number between 0 and 1")
+    if knock_margin_deg < 0:
+        raise ConfigError(f"--knock-margin {knock_margin_deg!r}: expected >= 0 deg")
+    if knock_share is not None and not 0.0 <= knock_share < 1.0:
+        raise ConfigError(f"--knock-share {knock_share!r}: expected a number in [0, 1)")
+    for name, v in (("--pmax-limit", p_max_limit_bar), ("--dp-limit", dp_limit_bar_per_deg)):
+        if v is not None and not v > 0:
+            raise ConfigError(f"{name} {v!r}: expected a positive number")
+    label = str(base) if not isinstance(base, Case) else base.name
+    case = base if isinstance(base, Case) else load_config(base, list(overrides))
+    if isinstance(base, Case) and overrides:
+        from ..config import case_with, parse_override
+
+        case = case_with(case, {".".join(p): v for p, v in map(parse_override, overrides)})
+    _check_burn_model(case)
+    vals = parse_values(KEY, advances)
+    if len(vals) < 3:
+        raise ConfigError(f"--advance {advances!r}: at least 3 advances are needed to find MBT")
+    table = sweep(case, [(KEY, vals)], out=out, resume=resume, force=force, chunk_size=chunk_size,
+                  progress=progress, label=label)
+    table.metadata["overrides"] = list(overrides)
+
+    tk = next((k for k in TORQUE_KEYS if k in table.columns and np.isfinite(table.column(k)).any()), None)
+    if tk is None:
+        errs = [r["error"] for r in table.rows if r.get("error")]
+        raise CyclesimError("spark study: no case gave a torque" + (f"; first error: {errs[0]}" if errs else ""))
+    adv_all = table.column(KEY)
+    tq_all = table.column(tk)
+    ok = np.isfinite(adv_all) & np.isfinite(tq_all)
+    # the table keeps the case order; the curve is read in ascending advance
+    okidx = np.flatnonzero(ok)[np.argsort(adv_all[ok], kind="stable")]
+    adv_s, tq_s = adv_all[okidx], tq_all[okidx]
+    fit = fit_torque_peak(adv_s, tq_s, fit_window_fraction)
+    st = SparkStudy(table=table, torque_key=tk, mbt_deg=fit["mbt_deg"], best_torque=fit["best"],
+                    lbt_deg=None, torque_fraction=torque_fraction, knock_margin_deg=knock_margin_deg,
+                    fit=fit, base_config=label)
+    nfail = len(table.failed)
+    if nfail:
+        st.notes.append(f"{nfail} case(s) failed and are left out of the curve (see the error column)")
+    table.add_column("torque_loss_pct", [100.0 * (1.0 - t / st.best_torque) if np.isfinite(t) else None
+                                         for t in tq_all])
+
+    def sorted_col(name):
+        return table.column(name)[okidx] if name in table.columns else np.full(len(okidx), np.nan)
+
+    if fit["bracketed"]:
+        st.lbt_deg, status = _least_within(st, float(adv_s[0]))
+        if status == "always":
+            st.notes.append(f"torque stays within {100 * torque_fraction:g} % of best down to {adv_s[0]:g} deg BTDC,"
+                            " the least advance swept")
+        m = st.mbt_deg
+        st.ca50_at_mbt_deg = _interp_at(adv_s, sorted_col("ca50_deg"), m)
+        st.theta_pmax_at_mbt_deg = _interp_at(adv_s, sorted_col("theta_pmax_deg"), m)
+        st.p_max_at_mbt_bar = _interp_at(adv_s, sorted_col("p_max_bar"), m)
+        st.dp_max_at_mbt_bar_per_deg = _interp_at(adv_s, sorted_col("dp_dtheta_max_bar_per_deg"), m)
+    elif fit["edge"] == "high":
+        st.notes.append(f"torque still rises at {adv_s[-1]:g} deg BTDC, the largest advance swept:"
+                        " MBT lies beyond the sweep; widen --advance")
+    else:
+        st.notes.append(f"torque falls from {adv_s[0]:g} deg BTDC, the least advance swept, on:"
+                        " MBT lies below the sweep; widen --advance")
+
+    # limits ---------------------------------------------------------------
+    sub = SweepResult(rows=[table.rows[i] for i in okidx], columns=table.columns,
+                      results=[table.results[i] for i in okidx], keys=table.keys)
+    _knock(st, sub, adv_s, np.ones(len(okidx), bool), knock_share)
+    st.pmax_limited_deg, p_status = _limit(st, "peak pressure", "p_max_bar", p_max_limit_bar, sub, adv_s)
+    st.dp_limited_deg, dp_status = _limit(st, "pressure-rise rate", "dp_dtheta_max_bar_per_deg",
+                                          dp_limit_bar_per_deg, sub, adv_s)
+
+    blocked = []
+    cand: dict[str, float] = {}
+    if fit["bracketed"]:
+        cand["MBT"] = st.mbt_deg
+    elif fit["edge"] == "low":
+        blocked.append("MBT lies below the sweep")
+    if st.knock_status == "crossed":
+        cand[f"knock-limited advance - {knock_margin_deg:g} deg margin"] = st.knock_limited_deg - knock_margin_deg
+    elif st.knock_status == "always":
+        blocked.append("knock occurs at every advance swept")
+    for label_, v, status in (("peak-pressure limit", st.pmax_limited_deg, p_status),
+                              ("pressure-rise limit", st.dp_limited_deg, dp_status)):
+        if status == "always":
+            blocked.append(f"the {label_} is reached at every advance swept")
+        elif v is not None:
+            cand[label_] = v
+    st.candidates = cand
+    if blocked:
+        st.notes.append("no recommended advance: " + "; ".join(blocked))
+    elif cand:
+        by = min(cand, key=cand.get)
+        st.recommended_deg, st.recommended_by = float(cand[by]), by
+        if st.recommended_deg < adv_s[0]:
+            st.notes.append(f"recommended advance {st.recommended_deg:.1f} deg lies below the sweep")
+    else:
+        st.notes.append("no recommended advance: MBT lies beyond the sweep and no other limit was reached")
+
+    if out is not None:
+        out = Path(out)
+        table.to_csv(out / CSV_NAME)
+        table.to_json(out / JSON_NAME)
+        files = [out / CSV_NAME, out / JSON_NAME]
+        if plots:
+            files.extend(plot_spark_study(st, out, traces=traces))
+        files.append(out / "spark_study.json")
+        st.files = files
+        atomic_write_text(out / "spark_study.json", json.dumps(st.figures(), indent=2) + "\n")
+    return st
+
+
+# --------------------------------------------------------------------------
+# Plots
+# --------------------------------------------------------------------------
+
+
+def plot_spark_study(st: SparkStudy, out: Path, traces: int = 8) -> list[Path]:
+    """Torque with fit and markers, peak pressure and its angle, CA50, pressure traces."""
+    from ..plots import _plt, _save
+
+    plt = _plt()
+    out = Path(out)
+    t = st.table
+    adv = t.column(KEY)
+    ok = np.isfinite(adv) & np.isfinite(t.column(st.torque_key))
+    o = np.argsort(adv[ok])
+    a = adv[ok][o]
+
+    def col(name):
+        return t.column(name)[ok][o] if name in t.columns else np.full(len(a), np.nan)
+
+    files = []
+    unit = "N m" if st.torque_key == "torque_Nm" else "bar"
+    fig, ax = plt.subplots(figsize=(7, 4.2))
+    ax.plot(a, col(st.torque_key), "o", color="tab:blue", ms=4, label="simulated")
+    if st.fit.get("poly") is not None:
+        lo, hi = st.fit["window_deg"]
+        xx = np.linspace(lo, hi, 200)
+        ax.plot(xx, st.fit["poly"](xx), "-", color="tab:blue", lw=1.2,
+                label=f"fit (degree {st.fit['degree']})")
+    if st.mbt_deg is not None:
+        ax.axvline(st.mbt_deg, color="tab:green", ls="--", lw=1, label=f"MBT {st.mbt_deg:.1f}")
+        ax.plot([st.mbt_deg], [st.best_torque], "*", color="tab:green", ms=10)
+    if st.lbt_deg is not None:
+        ax.axvline(st.lbt_deg, color="tab:olive", ls=":", lw=1,
+                   label=f"within {100 * st.torque_fraction:g} % at {st.lbt_deg:.1f}")
+    if st.knock_limited_deg is not None:
+        ax.axvline(st.knock_limited_deg, color="tab:red", ls="-.", lw=1, label=f"knock limit {st.knock_limited_deg:.1f}")
+    if st.recommended_deg is not None:
+        ax.axvline(st.recommended_deg, color="tab:orange", lw=1.6, label=f"recommended {st.recommended_deg:.1f}")
+    ax.set_xlabel("spark advance [deg BTDC]")
+    ax.set_ylabel(f"{st.torque_key.replace('_', ' ')} [{unit}]")
+    ax.set_title(f"{st.base_config}: torque vs spark advance")
+    ax.legend(fontsize=8)
+    files.append(_save(fig, out / "spark_torque.png"))
+
+    fig, ax = plt.subplots(figsize=(7, 4.2))
+    ax.plot(a, col("p_max_bar"), "o-", color="tab:red", ms=3, label="peak pressure")
+    ax.set_xlabel("spark advance [deg BTDC]")
+    ax.set_ylabel("peak pressure [bar]", color="tab:red")
+    ax2 = ax.twinx()
+    ax2.plot(a, col("theta_pmax_deg"), "s-", color="tab:purple", ms=3, label="angle of peak pressure")
+    ax2.set_ylabel("angle of peak pressure [deg ATDC]", color="tab:purple")
+    ax2.grid(False)
+    if st.mbt_deg is not None:
+        ax.axvline(st.mbt_deg, color="tab:green", ls="--", lw=1)
+    ax.set_title("peak pressure and its angle")
+    files.append(_save(fig, out / "spark_peak_pressure.png"))
+
+    fig, ax = plt.subplots(figsize=(7, 4.2))
+    ax.plot(a, col("ca50_deg"), "o-", color="tab:blue", ms=3, label="CA50")
+    if st.mbt_deg is not None and st.ca50_at_mbt_deg is not None:
+        ax.plot([st.mbt_deg], [st.ca50_at_mbt_deg], "*", color="tab:green", ms=10,
+                label=f"at MBT: CA50 {st.ca50_at_mbt_deg:.1f} deg ATDC")
+    ax.axhline(0, color="0.6", lw=0.6, ls=":")
+    ax.set_xlabel("spark advance [deg BTDC]")
+    ax.set_ylabel("CA50 [deg ATDC]")
+    ax.set_title("50 % mass-burned angle vs spark advance")
+    ax.legend(fontsize=8)
+    files.append(_save(fig, out / "spark_ca50.png"))
+
+    idx = [int(i) for i in np.flatnonzero(ok)[o] if t.results[int(i)] is not None and t.results[int(i)].trace]
+    if idx:
+        pick = sorted(set(np.linspace(0, len(idx) - 1, min(traces, len(idx))).round().astype(int)))
+        chosen = [idx[k] for k in pick]
+        cmap = plt.get_cmap("viridis")
+        av = [adv[i] for i in chosen]
+        lo, hi = min(av), max(av)
+        fig, ax = plt.subplots(figsize=(7.5, 4.4))
+        for i in chosen:
+            tr = t.results[i].trace
+            th, p = tr["crank_deg"], tr["pressure_bar"]
+            w = (th >= -60) & (th <= 100)
+            c = cmap(0.0 if hi == lo else (adv[i] - lo) / (hi - lo))
+            ax.plot(th[w], p[w], color=c, lw=1.1, label=f"{adv[i]:g}")
+        ax.axvline(0, color="0.6", lw=0.6, ls=":")
+        ax.set_xlabel("crank angle [deg ATDC]")
+        ax.set_ylabel("cylinder pressure [bar]")
+        ax.set_title("cylinder pressure by spark advance")
+        ax.legend(title="advance [deg BTDC]", fontsize=7, ncol=2)
+        files.append(_save(fig, out / "spark_pressure_traces.png"))
+    return files

@@ -1,0 +1,724 @@
+"""Parameter sweeps: many operating points from one base config, one table of figures.
+
+>>> from cyclesim.studies.sweep import sweep
+>>> res = sweep("demo", [("burn.spark_advance_deg", "10:40:5")], out="spark_sweep")
+>>> res.column("torque_Nm")
+
+Each varied key takes a list of values or a text spec: a comma list
+``"10,15,20"`` or a range ``"start:stop:step"`` (stop included when it lands
+on the grid, within rounding).  Several keys give the full grid (the last key
+varies fastest), or one case per position with ``paired=True``.
+
+With ``out``, rows go to ``out/sweep.csv`` as each chunk of cases finishes
+(whole rows only, flushed), and ``out/sweep.json`` (rows plus metadata and the
+caution) is written at the end.  ``resume=True`` keeps the rows already in
+``sweep.csv`` and runs only the missing cases, so an interrupted sweep
+continues where it stopped.  A case that fails (invalid value, solver
+failure) is recorded with its error message; the others go on.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import itertools
+import json
+import math
+import os
+import re
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Iterable, Mapping, Sequence
+
+import numpy as np
+import yaml
+
+from ..config import CORE_SCHEMA, Case, case_with, load_config
+from ..errors import ConfigError, CyclesimError
+from ..output import CAUTION, atomic_write_text
+from ..params import suggestion
+from ..roles import ROLES
+
+__all__ = ["sweep", "SweepResult", "parse_values", "parse_vary_arg", "read_sweep_csv"]
+
+CSV_NAME = "sweep.csv"
+JSON_NAME = "sweep.json"
+FIXED_COLUMNS = ("case", "error", "warnings")
+_MAX_CASES = 1_000_000
+_INT_RE = re.compile(r"^[+-]?\d+$")
+
+
+# --------------------------------------------------------------------------
+# Value specs
+# --------------------------------------------------------------------------
+
+
+def _number(text: str, key: str, spec: str) -> int | float:
+    try:
+        v = yaml.safe_load(text)
+    except yaml.YAMLError:
+        v = None
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(float(v)):
+        raise ConfigError(f"{key}: range {spec!r}: {text.strip()!r} is not a number (expected start:stop:step)")
+    return v
+
+
+def _range_values(key: str, spec: str) -> list:
+    parts = spec.split(":")
+    if len(parts) != 3:
+        raise ConfigError(f"{key}: range {spec!r}: expected start:stop:step")
+    start, stop, step = (_number(p, key, spec) for p in parts)
+    if step == 0:
+        raise ConfigError(f"{key}: range {spec!r}: step must not be zero")
+    span = (stop - start) / step
+    if span < -1e-9:
+        raise ConfigError(f"{key}: range {spec!r}: the step goes away from stop (empty range)")
+    n = int(math.floor(span + 1e-9)) + 1
+    if n > _MAX_CASES:
+        raise ConfigError(f"{key}: range {spec!r} gives {n} values; at most {_MAX_CASES} are allowed")
+    all_int = all(isinstance(v, int) for v in (start, stop, step))
+    out: list = []
+    for i in range(n):
+        v = start + i * step
+        out.append(int(v) if all_int else _tidy(float(v)))
+    return out
+
+
+def _tidy(v: float) -> float:
+    """Remove the rounding noise of ``start + i*step`` (0.30000000000000004 -> 0.3)."""
+    if v == 0.0:
+        return 0.0
+    digits = 12 - int(math.floor(math.log10(abs(v))))
+    return float(round(v, max(digits, 0)))
+
+
+def parse_values(key: str, spec: Any) -> list:
+    """Values of one varied key from a list or a text spec.
+
+    Parameters
+    ----------
+    key : str
+        Dotted config key (for messages).
+    spec : list, tuple, ndarray, number or str
+        A sequence of values; or text: ``"10,15,20"`` (each item read as YAML,
+        so numbers become numbers and words stay words), ``"start:stop:step"``
+        (stop included when it lands on the grid, within rounding), ``"[1, 2]"``
+        (a YAML list) or a single value.
+
+    Returns
+    -------
+    list
+        Plain Python values (numpy scalars converted).
+    """
+    if isinstance(spec, np.ndarray):
+        spec = spec.tolist()
+    if isinstance(spec, (list, tuple)):
+        vals = [_py(v) for v in spec]
+    elif isinstance(spec, str):
+        text = spec.strip()
+        if not text:
+            raise ConfigError(f"{key}: empty list of values")
+        if text.startswith("["):
+            try:
+                vals = yaml.safe_load(text)
+            except yaml.YAMLError as exc:
+                raise ConfigError(f"{key}: cannot read {spec!r} as a list: {exc.problem}") from None
+            if not isinstance(vals, list):
+                raise ConfigError(f"{key}: cannot read {spec!r} as a list")
+        elif "," in text:
+            vals = []
+            for item in text.split(","):
+                if not item.strip():
+                    raise ConfigError(f"{key}: empty item in the list {spec!r}")
+                vals.append(_yaml_item(item))
+        elif ":" in text:
+            vals = _range_values(key, text)
+        else:
+            vals = [_yaml_item(text)]
+    else:
+        vals = [_py(spec)]
+    if not vals:
+        raise ConfigError(f"{key}: empty list of values")
+    return vals
+
+
+def _yaml_item(text: str) -> Any:
+    try:
+        return yaml.safe_load(text.strip())
+    except yaml.YAMLError:
+        return text.strip()
+
+
+def _py(v: Any) -> Any:
+    if isinstance(v, np.generic):
+        return v.item()
+    return v
+
+
+def parse_vary_arg(text: str) -> tuple[str, str]:
+    """Split a command-line ``KEY=SPEC`` into ``(key, spec)``."""
+    key, sep, spec = text.partition("=")
+    if not sep or not key.strip():
+        raise ConfigError(f"--vary {text!r}: expected KEY=VALUES, e.g. burn.spark_advance_deg=10:40:2")
+    if not spec.strip():
+        raise ConfigError(f"--vary {text!r}: no values after '='")
+    return key.strip(), spec.strip()
+
+
+# --------------------------------------------------------------------------
+# Keys
+# --------------------------------------------------------------------------
+
+
+def _check_key(base: Case, key: str, vary: Mapping[str, list]) -> None:
+    """Fail fast (one ConfigError line) for a key that no case could accept."""
+    parts = key.split(".")
+    if len(parts) != 2 or not all(parts):
+        raise ConfigError(f"--vary {key!r}: expected section.key, e.g. operating.speed_rpm")
+    sec, name = parts
+    if sec in CORE_SCHEMA:
+        known = [p.name for p in CORE_SCHEMA[sec]]
+    elif sec in ROLES:
+        if name == "model":
+            return
+        from ..registry import get_registry
+
+        reg = get_registry(tuple(base.plugins))
+        models = [base.submodels[sec].model]
+        for m in vary.get(f"{sec}.model", ()):
+            if isinstance(m, str) and m not in models:
+                models.append(m)
+        known = []
+        for m in models:
+            try:
+                cls = reg.submodel_class(sec, m)
+            except CyclesimError:
+                continue
+            known.extend(p.name for p in cls.params if p.name not in known)
+    else:
+        sections = tuple(CORE_SCHEMA) + ROLES
+        raise ConfigError(
+            f"--vary {key!r}: unknown section {sec!r}" + suggestion(sec, sections)
+            + f"; sections: {', '.join(sections)}"
+        )
+    if name not in known:
+        raise ConfigError(
+            f"--vary {key!r}: unknown key" + suggestion(name, known) + f"; allowed in {sec}: {', '.join(known)}"
+        )
+
+
+def _plan(vary: Mapping[str, list], paired: bool) -> list[dict]:
+    keys = list(vary)
+    if paired and len(keys) > 1:
+        lens = {k: len(v) for k, v in vary.items()}
+        if len(set(lens.values())) > 1:
+            detail = ", ".join(f"{k} has {n}" for k, n in lens.items())
+            raise ConfigError(f"paired sweep: every key needs the same number of values ({detail})")
+        combos: Iterable = zip(*vary.values())
+    else:
+        total = math.prod(len(v) for v in vary.values())
+        if total > _MAX_CASES:
+            raise ConfigError(f"sweep: the grid has {total} cases; at most {_MAX_CASES} are allowed")
+        combos = itertools.product(*vary.values())
+    return [dict(zip(keys, c)) for c in combos]
+
+
+# --------------------------------------------------------------------------
+# Rows, cells and the CSV file
+# --------------------------------------------------------------------------
+
+
+def _flatten(summary: Mapping[str, Any]) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    for k, v in summary.items():
+        if isinstance(v, Mapping):
+            for kk, vv in v.items():
+                if _is_scalar(vv):
+                    out[f"{k}.{kk}"] = _scalar(vv)
+        elif _is_scalar(v):
+            out[k] = _scalar(v)
+    return out
+
+
+def _is_scalar(v: Any) -> bool:
+    return isinstance(v, (int, float, bool, str, np.generic)) or v is None
+
+
+def _scalar(v: Any) -> Any:
+    v = _py(v)
+    if isinstance(v, float) and not math.isfinite(v):
+        return None
+    return v
+
+
+def _cell(v: Any) -> str:
+    """Text of one CSV cell; floats in shortest round-trip form, so CSV and JSON agree."""
+    if v is None:
+        return ""
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, float):
+        return repr(v) if math.isfinite(v) else ""
+    return str(v)
+
+
+def _uncell(text: str, column: str) -> Any:
+    """Value of one CSV cell (inverse of :func:`_cell`)."""
+    if column in ("error", "warnings"):
+        return text
+    if text == "":
+        return None
+    if text == "true":
+        return True
+    if text == "false":
+        return False
+    if _INT_RE.match(text):
+        return int(text)
+    try:
+        return float(text)
+    except ValueError:
+        return text
+
+
+def _same(a: Any, b: Any) -> bool:
+    if isinstance(a, bool) or isinstance(b, bool):
+        return a == b
+    if isinstance(a, (int, float)) and isinstance(b, (int, float)):
+        return math.isclose(a, b, rel_tol=1e-12, abs_tol=1e-12)
+    return a == b or _cell(a) == _cell(b)
+
+
+def _rows_text(rows: Iterable[Mapping], columns: Sequence[str], header: bool) -> str:
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    if header:
+        w.writerow(columns)
+    for r in rows:
+        w.writerow([_cell(r.get(c)) for c in columns])
+    return buf.getvalue()
+
+
+def read_sweep_csv(path: str | Path) -> tuple[list[str], list[dict]]:
+    """Read a ``sweep.csv``: (columns, rows) with numbers parsed.
+
+    A last line cut short (no newline, wrong number of cells) is ignored, so a
+    file left by an interrupted run reads as its complete rows.
+    """
+    text = Path(path).read_text(encoding="utf-8")
+    if not text.strip():
+        return [], []
+    if not text.endswith("\n"):
+        text = text[: text.rfind("\n") + 1]
+    reader = csv.reader(io.StringIO(text))
+    try:
+        columns = next(reader)
+    except StopIteration:
+        return [], []
+    rows = []
+    for cells in reader:
+        if len(cells) != len(columns):
+            continue
+        rows.append({c: _uncell(t, c) for c, t in zip(columns, cells)})
+    return columns, rows
+
+
+# --------------------------------------------------------------------------
+# Result
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class SweepResult:
+    """The table of a sweep.
+
+    Attributes
+    ----------
+    rows : list of dict
+        One per case, in case order: ``case``, the varied keys, ``error``
+        (empty if the case ran), ``warnings`` and every scalar summary figure
+        (``energy_balance.*`` flattened).  Missing figures are None.
+    columns : list of str
+    results : list of CaseResult or None
+        Per case; None for rows taken over from an earlier run (resume).
+    keys : list of str
+        The varied keys.
+    metadata : dict
+        Base config, vary spec, caution text.
+    """
+
+    rows: list[dict]
+    columns: list[str]
+    results: list
+    keys: list[str]
+    metadata: dict = field(default_factory=dict)
+
+    def __len__(self) -> int:
+        return len(self.rows)
+
+    @property
+    def failed(self) -> list[int]:
+        """Case indices that have an error."""
+        return [r["case"] for r in self.rows if r.get("error")]
+
+    def column(self, name: str) -> np.ndarray:
+        """One column as an array: float (None -> NaN) if every value is a number, else object."""
+        if name not in self.columns:
+            raise KeyError(f"no column {name!r}" + suggestion(name, self.columns))
+        vals = [r.get(name) for r in self.rows]
+        if all(v is None or (isinstance(v, (int, float)) and not isinstance(v, bool)) for v in vals):
+            return np.array([np.nan if v is None else float(v) for v in vals], dtype=float)
+        return np.array(vals, dtype=object)
+
+    def add_column(self, name: str, values: Sequence[Any]) -> None:
+        """Add (or replace) a column, one value per row."""
+        if len(values) != len(self.rows):
+            raise ValueError(f"column {name!r}: {len(values)} values for {len(self.rows)} rows")
+        for r, v in zip(self.rows, values):
+            r[name] = _scalar(v)
+        if name not in self.columns:
+            self.columns.append(name)
+
+    def to_csv(self, path: str | Path | None = None) -> str:
+        """The table as CSV text (header first); written atomically to ``path`` if given."""
+        text = _rows_text(self.rows, self.columns, header=True)
+        if path is not None:
+            atomic_write_text(Path(path), text)
+        return text
+
+    def to_json_data(self) -> dict:
+        return {
+            "metadata": {**self.metadata, "columns": list(self.columns)},
+            "rows": [{c: _scalar(r.get(c)) for c in self.columns} for r in self.rows],
+        }
+
+    def to_json(self, path: str | Path | None = None) -> str:
+        """Rows plus metadata as JSON text; written atomically to ``path`` if given."""
+        text = json.dumps(self.to_json_data(), indent=1) + "\n"
+        if path is not None:
+            atomic_write_text(Path(path), text)
+        return text
+
+
+# --------------------------------------------------------------------------
+# Progress
+# --------------------------------------------------------------------------
+
+
+class _Bar:
+    """``[#####.....] 12/41 cases  3.2 s`` on stderr, redrawn in place."""
+
+    width = 30
+
+    def __init__(self, total: int, stream=None):
+        self.total = max(total, 1)
+        self.stream = stream or sys.stderr
+
+    def __call__(self, done: int, total: int, elapsed: float) -> None:
+        n = int(round(self.width * done / max(total, 1)))
+        self.stream.write(f"\r[{'#' * n}{'.' * (self.width - n)}] {done}/{total} cases  {elapsed:.1f} s")
+        self.stream.flush()
+
+    def close(self) -> None:
+        self.stream.write("\n")
+        self.stream.flush()
+
+
+def _progress_fn(progress, total):
+    if callable(progress):
+        return progress, None
+    if progress is None:
+        progress = bool(getattr(sys.stderr, "isatty", lambda: False)())
+    if progress:
+        bar = _Bar(total)
+        return bar, bar
+    return None, None
+
+
+# --------------------------------------------------------------------------
+# Output folder
+# --------------------------------------------------------------------------
+
+
+class _CsvSink:
+    """Append whole rows to ``sweep.csv``; rewrite it atomically when columns grow."""
+
+    def __init__(self, path: Path):
+        self.path = path
+        self.columns: list[str] | None = None
+
+    def start(self, columns: list[str], rows: list[dict]) -> None:
+        self.columns = list(columns)
+        atomic_write_text(self.path, _rows_text(rows, self.columns, header=True))
+
+    def add(self, new_rows: list[dict], all_rows: list[dict], columns: list[str]) -> None:
+        if self.columns is None or columns != self.columns:
+            self.start(columns, all_rows)   # all_rows already holds new_rows
+            return
+        text = _rows_text(new_rows, self.columns, header=False)
+        with open(self.path, "a", encoding="utf-8", newline="") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+
+
+def _check_out(out: Path, resume: bool, force: bool) -> None:
+    if out.exists():
+        if not out.is_dir():
+            raise CyclesimError(f"--out {out}: exists and is not a folder")
+        if any(out.iterdir()) and not (resume or force):
+            raise CyclesimError(
+                f"--out {out}: folder exists and is not empty; use --resume to continue a sweep"
+                " there or --force to start it again"
+            )
+    out.mkdir(parents=True, exist_ok=True)
+
+
+def _resumed_rows(out: Path, plan: list[dict], keys: list[str]) -> tuple[list[str], dict[int, dict]]:
+    path = out / CSV_NAME
+    if not path.exists():
+        return [], {}
+    columns, rows = read_sweep_csv(path)
+    if not rows:
+        return columns, {}
+    missing = [k for k in ("case", *keys) if k not in columns]
+    if missing:
+        raise CyclesimError(
+            f"--resume: {path} has no column {missing[0]!r}: it was written by a different sweep;"
+            " use --force to start again"
+        )
+    kept: dict[int, dict] = {}
+    for r in rows:
+        i = r.get("case")
+        if not isinstance(i, int) or not 0 <= i < len(plan):
+            raise CyclesimError(
+                f"--resume: {path} has case {r.get('case')!r}, outside this sweep's {len(plan)} cases;"
+                " use --force to start again"
+            )
+        for k in keys:
+            if not _same(r.get(k), plan[i][k]):
+                raise CyclesimError(
+                    f"--resume: {path} case {i} has {k} = {r.get(k)!r}, this sweep has {plan[i][k]!r}:"
+                    " it was written by a different sweep; use --force to start again"
+                )
+        kept[i] = r   # a repeated case keeps its last complete row
+    return columns, kept
+
+
+# --------------------------------------------------------------------------
+# The sweep
+# --------------------------------------------------------------------------
+
+
+def _columns(keys: list[str], rows: Iterable[Mapping], start: Sequence[str] = ()) -> list[str]:
+    cols = list(start) if start else ["case", *keys, "error", "warnings"]
+    for c in ("case", *keys, "error", "warnings"):
+        if c not in cols:
+            cols.append(c)
+    for r in rows:
+        for c in r:
+            if c not in cols:
+                cols.append(c)
+    return cols
+
+
+def _simulate_chunk(cases: list[Case]) -> list:
+    from ..api import CaseResult, simulate
+    from ..config import flat_inputs
+
+    try:
+        return simulate(cases)
+    except CyclesimError:
+        if len(cases) == 1:
+            raise
+    out = []
+    for c in cases:   # a chunk that failed as a whole: case by case, so only the bad one is lost
+        try:
+            out.extend(simulate([c]))
+        except CyclesimError as exc:
+            out.append(CaseResult(name=c.name, inputs=flat_inputs(c), error=str(exc)))
+    return out
+
+
+def sweep(
+    base: Case | str | Path,
+    vary: Sequence[tuple[str, Any]] | Mapping[str, Any],
+    paired: bool = False,
+    out: str | Path | None = None,
+    resume: bool = False,
+    chunk_size: int = 64,
+    progress: bool | None | Callable[[int, int, float], None] = None,
+    force: bool = False,
+    overrides: Sequence[str] = (),
+    label: str | None = None,
+) -> SweepResult:
+    """Run a grid (or paired list) of cases built from one base config.
+
+    Parameters
+    ----------
+    base : Case, str or Path
+        A validated case, or a config path / built-in name (with ``overrides``).
+    vary : list of (key, values) or mapping
+        Dotted config keys and their values (a list, or a text spec, see
+        :func:`parse_values`).
+    paired : bool
+        One case per position (all value lists equally long) instead of the
+        full grid.
+    out : str or Path, optional
+        Folder for ``sweep.csv`` (rows appended as chunks finish) and
+        ``sweep.json`` (at the end).  Must be empty or absent unless
+        ``resume`` or ``force``.
+    resume : bool
+        Keep the rows already in ``out/sweep.csv`` (matched by case index and
+        varied values) and run only the missing cases.
+    chunk_size : int
+        Cases simulated (and batched) together before their rows are written.
+    progress : bool, None or callable
+        True: a progress bar on stderr; None: only when stderr is a terminal;
+        False: none; a callable gets ``(cases_done, cases_total, elapsed_s)``
+        after each chunk.
+    force : bool
+        Write into a non-empty ``out`` (starting the sweep again).
+    overrides : list of str
+        ``key=value`` changes applied to a base given by path or name.
+    label : str, optional
+        Name of the base config for the metadata (default: the path or name).
+
+    Returns
+    -------
+    SweepResult
+
+    Raises
+    ------
+    ConfigError
+        A key no case could accept (unknown section or key), bad value specs,
+        unequal lengths in a paired sweep.
+    CyclesimError
+        ``out`` not empty without ``resume``/``force``; a resume folder
+        written by a different sweep.
+    """
+    if isinstance(base, Case):
+        base_case = base
+        if overrides:
+            from ..config import parse_override
+
+            changes = {}
+            for text in overrides:
+                parts, value = parse_override(text)
+                changes[".".join(parts)] = value
+            base_case = case_with(base_case, changes)
+        base_label = label or base_case.name
+    else:
+        base_case = load_config(base, list(overrides))
+        base_label = label or str(base)
+    items = list(vary.items()) if isinstance(vary, Mapping) else list(vary)
+    if not items:
+        raise ConfigError("sweep: nothing to vary (give at least one KEY=VALUES)")
+    values: dict[str, list] = {}
+    specs: dict[str, Any] = {}
+    for item in items:
+        try:
+            key, spec = item
+        except (TypeError, ValueError):
+            raise ConfigError(f"sweep: expected (key, values) pairs, got {item!r}") from None
+        key = str(key).strip()
+        if key in values:
+            raise ConfigError(f"--vary {key!r}: given twice")
+        values[key] = parse_values(key, spec)
+        specs[key] = spec if isinstance(spec, str) else [_py(v) for v in spec] if isinstance(spec, (list, tuple, np.ndarray)) else _py(spec)
+    for key in values:
+        _check_key(base_case, key, values)
+    keys = list(values)
+    plan = _plan(values, paired)
+    if chunk_size < 1:
+        raise ConfigError(f"--chunk {chunk_size}: expected a whole number >= 1")
+
+    metadata = {
+        "base_config": base_label,
+        "base_name": base_case.name,
+        "overrides": list(overrides),
+        "vary": [{"key": k, "spec": specs[k], "values": values[k]} for k in keys],
+        "paired": bool(paired and len(keys) > 1),
+        "cases": len(plan),
+        "caution": CAUTION,
+    }
+    rows: dict[int, dict] = {}
+    results: list = [None] * len(plan)
+    columns: list[str] = []
+    sink = None
+    out_path = Path(out) if out is not None else None
+    if out_path is not None:
+        _check_out(out_path, resume, force)
+        sink = _CsvSink(out_path / CSV_NAME)
+        if resume:
+            old_cols, rows = _resumed_rows(out_path, plan, keys)
+            columns = _columns(keys, rows.values(), old_cols) if rows else []
+            if rows:
+                sink.start(columns, [rows[i] for i in sorted(rows)])   # clean copy, whole rows only
+        else:
+            for name in (CSV_NAME, JSON_NAME):
+                if (out_path / name).exists():
+                    (out_path / name).unlink()
+    todo = [i for i in range(len(plan)) if i not in rows]
+    report, bar = _progress_fn(progress, len(plan))
+    t0 = time.perf_counter()
+    done = len(plan) - len(todo)
+    try:
+        if report is not None:
+            report(done, len(plan), 0.0)
+        for c0 in range(0, len(todo), chunk_size):
+            idx = todo[c0: c0 + chunk_size]
+            new: dict[int, dict] = {}
+            cases: list[Case] = []
+            run_idx: list[int] = []
+            for i in idx:
+                row = {"case": i, **plan[i], "error": "", "warnings": ""}
+                try:
+                    cases.append(case_with(base_case, plan[i]))
+                    run_idx.append(i)
+                except CyclesimError as exc:
+                    row["error"] = str(exc)
+                new[i] = row
+            if cases:
+                for i, res in zip(run_idx, _simulate_chunk(cases)):
+                    results[i] = res
+                    row = new[i]
+                    if res.error:
+                        row["error"] = str(res.error)
+                    else:
+                        row.update(_flatten(res.summary))
+                    row["warnings"] = "; ".join(res.warnings)
+            rows.update(new)
+            columns = _columns(keys, new.values(), columns)
+            if sink is not None:
+                ordered = [rows[i] for i in sorted(rows)]
+                sink.add([new[i] for i in idx], ordered, columns)
+            done += len(idx)
+            if report is not None:
+                report(done, len(plan), time.perf_counter() - t0)
+    except KeyboardInterrupt:
+        if bar is not None:
+            bar.close()
+            bar = None
+        if out_path is not None:
+            print(
+                f"sweep interrupted after {len(rows)} of {len(plan)} cases; {out_path / CSV_NAME} holds"
+                " the finished rows; run again with --resume to continue",
+                file=sys.stderr,
+            )
+        raise
+    finally:
+        if bar is not None:
+            bar.close()
+    columns = _columns(keys, rows.values(), columns)
+    ordered = [rows[i] for i in range(len(plan))]
+    for r in ordered:
+        for c in columns:
+            r.setdefault(c, None)
+    metadata["failed"] = sum(1 for r in ordered if r.get("error"))
+    result = SweepResult(rows=ordered, columns=columns, results=results, keys=keys, metadata=metadata)
+    if out_path is not None:
+        result.to_csv(out_path / CSV_NAME)      # final copy in case order, same columns as the JSON
+        result.to_json(out_path / JSON_NAME)
+    return result

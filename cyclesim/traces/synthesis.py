@@ -1,0 +1,351 @@
+"""Synthetic cylinder-pressure cycles with cycle-to-cycle variation and exact ground truth.
+
+Each cycle's burn parameters are drawn from seeded distributions (normal
+spread of the ignition delay, relative spread of the burn duration and of the
+combustion efficiency), with occasional partial burns and misfires at given
+rates.  Cycles are either *independent* (each starts from the mean cycle's
+residual state at -360 deg and all run as one batch) or *coupled* (each starts
+from the end state of the cycle before it, so a slow or partial burn leaves a
+hotter, larger residual for the next one, as on a real engine).
+
+The true pressure is interpolated from the solver's states onto a fine crank
+grid; measurement artefacts (:mod:`cyclesim.traces.artefacts`) are applied
+there, and the result is low-pass filtered and decimated to the user's
+resolution, so high-frequency content (knock ringing, passage resonance) does
+not alias.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+from typing import Any, Sequence
+
+import numpy as np
+
+from ..config import Case, case_with
+from ..errors import ConfigError, CyclesimError
+
+# burn-parameter keys that carry the cycle-to-cycle variation, per burn model:
+# (start-type key varied by an absolute spread [deg], duration key varied by a relative spread)
+BURN_KEYS = {
+    "wiebe": ("ignition_delay_deg", "duration_deg"),
+    "wiebe_ca50": ("ca50_deg", "burn_10_90_deg"),
+    "wiebe_flame": ("ref_ignition_delay_deg", "ref_duration_deg"),
+}
+
+
+@dataclass
+class CycleVariation:
+    """Distributions of the per-cycle burn parameters (all seeded, reproducible).
+
+    Attributes
+    ----------
+    start_sd_deg : float
+        Standard deviation of the burn start (ignition delay, or CA50 for a
+        phasing-specified burn) [deg]; normal.
+    duration_cov : float
+        Coefficient of variation of the burn duration [-]; log-normal.
+    efficiency_sd : float
+        Standard deviation of the combustion efficiency [-]; normal, clipped.
+    partial_burn_rate : float
+        Probability that a cycle burns only partly [-].
+    partial_burn_range : tuple of float
+        Range of the combustion-efficiency multiplier of a partial burn [-].
+    misfire_rate : float
+        Probability that a cycle does not burn at all [-].
+    coupled : bool
+        Couple consecutive cycles through their residual gas.
+    seed : int
+        Seed of the random generator.
+    """
+
+    start_sd_deg: float = 1.5
+    duration_cov: float = 0.08
+    efficiency_sd: float = 0.004
+    partial_burn_rate: float = 0.0
+    partial_burn_range: tuple = (0.3, 0.8)
+    misfire_rate: float = 0.0
+    coupled: bool = False
+    seed: int = 1
+
+    def check(self) -> None:
+        for name in ("start_sd_deg", "duration_cov", "efficiency_sd"):
+            v = getattr(self, name)
+            if not (v >= 0 and math.isfinite(v)):
+                raise ConfigError(f"traces: {name} = {v!r}: expected a number >= 0")
+        for name in ("partial_burn_rate", "misfire_rate"):
+            v = getattr(self, name)
+            if not 0 <= v <= 1:
+                raise ConfigError(f"traces: {name} = {v!r}: expected a probability 0..1")
+        lo, hi = self.partial_burn_range
+        if not 0 <= lo <= hi <= 1:
+            raise ConfigError(f"traces: partial_burn_range = {self.partial_burn_range!r}: expected 0 <= lo <= hi <= 1")
+
+
+@dataclass
+class SyntheticSet:
+    """A set of synthetic cycles and the truth behind them.
+
+    Attributes
+    ----------
+    theta : ndarray (n,)
+        Output crank grid [deg] (or the crank angle of each time sample).
+    time_s : ndarray (n,) or None
+        Sample times [s] from the start of the cycle when sampled in time.
+    pressure_true_pa, pressure_pa, intake_pa : ndarray (n_cycles, n)
+        True and measured cylinder pressure, measured intake-manifold pressure [Pa].
+    truth : list of dict
+        Per-cycle ground truth (units in the keys).
+    stats : dict
+        Set-level figures (COV of net IMEP, means, knocking share).
+    meta : dict
+        Units, conventions, settings.
+    """
+
+    theta: np.ndarray
+    time_s: np.ndarray | None
+    pressure_true_pa: np.ndarray
+    pressure_pa: np.ndarray
+    intake_pa: np.ndarray | None
+    truth: list
+    stats: dict
+    meta: dict = field(default_factory=dict)
+
+
+def draw_parameters(case: Case, n: int, var: CycleVariation) -> tuple[list[dict], np.ndarray, np.ndarray]:
+    """Per-cycle parameter changes (dotted keys), misfire flags and partial-burn flags."""
+    var.check()
+    model = case.submodels["burn"].model
+    if model not in BURN_KEYS:
+        raise ConfigError(
+            f"burn.model = {model!r}: cycle-to-cycle variation is defined for {', '.join(BURN_KEYS)}"
+        )
+    k_start, k_dur = BURN_KEYS[model]
+    bp = case.submodels["burn"].params
+    rng = np.random.default_rng(var.seed)
+    z1 = rng.standard_normal(n)
+    z2 = rng.standard_normal(n)
+    z3 = rng.standard_normal(n)
+    u_mis = rng.random(n)
+    u_par = rng.random(n)
+    u_frac = rng.random(n)
+    start = bp[k_start] + var.start_sd_deg * z1
+    if k_start.endswith("delay_deg"):
+        start = np.maximum(start, 0.0)
+    s = math.sqrt(math.log1p(var.duration_cov**2))
+    dur = bp[k_dur] * np.exp(s * z2 - 0.5 * s * s)
+    eff0 = float(bp.get("combustion_efficiency", 1.0))
+    eff = np.clip(eff0 + var.efficiency_sd * z3, 0.0, 1.0)
+    misfire = u_mis < var.misfire_rate
+    partial = (~misfire) & (u_par < var.partial_burn_rate)
+    lo, hi = var.partial_burn_range
+    eff = np.where(partial, eff * (lo + (hi - lo) * u_frac), eff)
+    eff = np.where(misfire, 0.0, eff)
+    changes = [
+        {f"burn.{k_start}": float(start[i]), f"burn.{k_dur}": float(dur[i]),
+         "burn.combustion_efficiency": float(eff[i])}
+        for i in range(n)
+    ]
+    return changes, misfire, partial
+
+
+def _steady_state(case: Case, registry):
+    from ..batch import build_batch
+    from ..solver import integrate
+
+    batch = build_batch([case], registry)
+    tr = integrate(batch)
+    if tr.failed[0]:
+        raise CyclesimError(f"mean cycle failed: {tr.failed[0]}")
+    return tr
+
+
+def _run_cycles(cases: list[Case], registry, initial: np.ndarray):
+    """One full cycle for each case from the given initial state(s); returns per-case pieces."""
+    from ..batch import build_batch
+    from ..figures import compute_figures, derived_trace
+    from ..solver import integrate
+
+    batch = build_batch(cases, registry)
+    init = np.repeat(initial.reshape(initial.shape[0], 1), len(cases), axis=1) if initial.ndim == 1 else initial
+    tr = integrate(batch, initial=init, cycles=1)
+    d = derived_trace(batch, tr)
+    figs = compute_figures(batch, tr, d)
+    return batch, tr, d, figs
+
+
+def synthesize(
+    case: Case,
+    n_cycles: int = 100,
+    variation: CycleVariation | None = None,
+    resolution_deg: float | None = 0.5,
+    sample_rate_hz: float | None = None,
+    artefacts: Any = None,
+    fine_step_deg: float | None = None,
+    chunk: int = 150,
+) -> SyntheticSet:
+    """Simulate ``n_cycles`` consecutive cycles of one operating point with variation and artefacts.
+
+    Parameters
+    ----------
+    case : Case
+        The operating point (full-cycle mode).
+    n_cycles : int
+        Number of cycles.
+    variation : CycleVariation
+        Burn-parameter distributions, misfire/partial-burn rates, coupling, seed.
+    resolution_deg : float, optional
+        Output crank-angle resolution [deg] (e.g. 0.1, 0.5, 1).
+    sample_rate_hz : float, optional
+        Sample in time at this rate [Hz] instead of a crank grid.
+    artefacts : cyclesim.traces.artefacts.ArtefactSettings, optional
+        Measurement flaws to apply (default: the realistic default set).
+    fine_step_deg : float, optional
+        Synthesis grid [deg]; default a quarter of the output step, at most 0.05 deg.
+    """
+    from ..api import _registry_for
+    from ..figures import hermite_grid
+    from . import artefacts as art
+
+    if case.simulation.mode != "full":
+        raise ConfigError("traces: simulation.mode must be 'full' (cycles are simulated over 720 deg)")
+    if n_cycles < 1:
+        raise ConfigError(f"traces: cycles = {n_cycles}: expected at least 1")
+    var = variation or CycleVariation()
+    settings = artefacts if artefacts is not None else art.ArtefactSettings.default()
+    registry = _registry_for([case])
+    speed = float(case.operating.speed_rpm)
+    if sample_rate_hz:
+        out_step = 6.0 * speed / float(sample_rate_hz)
+    else:
+        out_step = float(resolution_deg or 0.5)
+    fine = fine_step_deg or min(out_step / 4.0, 0.05)
+    n_fine = int(round(720.0 / fine))
+    theta_f = np.linspace(-360.0, 360.0, n_fine + 1)
+
+    mean = _steady_state(case, registry)
+    start_state = mean.end_state[:, 0]
+    changes, misfire, partial = draw_parameters(case, n_cycles, var)
+    cases = [case_with(case, ch) for ch in changes]
+    for c, i in zip(cases, range(n_cycles)):
+        c.name = f"{case.name}#{i + 1}"
+
+    P = np.empty((n_cycles, n_fine + 1))
+    Tg = np.empty_like(P)
+    G = np.empty_like(P)
+    truth: list[dict] = []
+    knock_on = np.full(n_cycles, np.nan)
+    knock_int = np.zeros(n_cycles)
+
+    def collect(i0, batch, tr, d, figs):
+        Pb = hermite_grid(tr.theta, d["p"], d["dp"], theta_f)
+        Tb = hermite_grid(tr.theta, tr.Y[1], tr.F[1], theta_f)
+        gb = np.stack([np.interp(theta_f, tr.theta, d["gamma"][b]) for b in range(batch.B)])
+        I = {nm: k for k, nm in enumerate(tr.names)}
+        Qc = tr.Y[I["Q_burn"], :, -1]
+        Qw = tr.Y[I["Q_w"], :, -1]
+        for b in range(batch.B):
+            i = i0 + b
+            P[i], Tg[i], G[i] = Pb[b], Tb[b], gb[b]
+            row = {"cycle": i + 1}
+            mis = bool(misfire[i])
+            for key in ("imep_net_bar", "imep_gross_bar", "pmep_bar", "p_max_bar", "theta_pmax_deg",
+                        "ca10_deg", "ca50_deg", "ca90_deg", "trapped_mass_mg", "residual_fraction",
+                        "fuel_energy_J"):
+                v = float(np.asarray(figs[key])[b])
+                if mis and key.startswith("ca"):
+                    v = float("nan")
+                row[key] = v
+            row["heat_release_J"] = float(Qc[b])
+            row["wall_heat_J"] = float(Qw[b])
+            row["combustion_efficiency"] = float(changes[i]["burn.combustion_efficiency"])
+            for k, v in changes[i].items():
+                if k != "burn.combustion_efficiency":
+                    row[k] = v
+            row["misfire"] = mis
+            row["partial_burn"] = bool(partial[i])
+            if "knock_onset_deg" in figs:
+                knock_on[i] = float(np.asarray(figs["knock_onset_deg"])[b])
+                knock_int[i] = float(np.nan_to_num(np.asarray(figs.get("knock_intensity", np.zeros(batch.B)))[b]))
+            row["knock_onset_deg"] = knock_on[i]
+            row["knock_intensity"] = knock_int[i]
+            row["error"] = tr.failed[b] or ""
+            truth.append(row)
+
+    if var.coupled:
+        state = start_state
+        for i in range(n_cycles):
+            batch, tr, d, figs = _run_cycles([cases[i]], registry, state)
+            collect(i, batch, tr, d, figs)
+            state = tr.end_state[:, 0]
+    else:
+        for i0 in range(0, n_cycles, chunk):
+            part = cases[i0:i0 + chunk]
+            batch, tr, d, figs = _run_cycles(part, registry, start_state)
+            collect(i0, batch, tr, d, figs)
+
+    # measurement
+    rng = np.random.default_rng(var.seed + 7919)
+    from ..geometry import Geometry  # noqa: F401  (bore for the acoustic modes)
+
+    bore = float(case.engine.bore_mm) * 1e-3
+    Pm, Pint, art_truth = art.apply_artefacts(
+        P, theta_f, speed, settings, rng, T=Tg, gamma=G, bore_m=bore,
+        knock_onset_deg=knock_on, knock_intensity=knock_int,
+        intake_pressure_pa=float(case.operating.intake_pressure_bar) * 1e5,
+    )
+    theta_o, P_true_o = art.decimate_to(theta_f, P, out_step)
+    _, Pm_o = art.decimate_to(theta_f, Pm, out_step)
+    Pint_o = art.decimate_to(theta_f, Pint, out_step)[1] if Pint is not None else None
+    time_s = (theta_o - theta_o[0]) / (6.0 * speed) if sample_rate_hz else None
+    for i, row in enumerate(truth):
+        for k, v in art_truth.items():
+            arr = np.asarray(v)
+            if arr.ndim == 1 and arr.shape[0] == n_cycles:
+                row[f"artefact.{k}"] = float(arr[i])
+    stats = set_statistics(truth)
+    stats.update({f"artefact.{k}": (float(v) if np.ndim(v) == 0 else None) for k, v in art_truth.items()
+                  if np.ndim(v) == 0})
+    meta = {
+        "operating_point": case.name,
+        "speed_rpm": speed,
+        "n_cycles": n_cycles,
+        "resolution_deg": out_step,
+        "sample_rate_hz": sample_rate_hz,
+        "synthesis_step_deg": fine,
+        "crank_angle_convention": "degrees, 0 = firing TDC, negative before; one cycle -360..360",
+        "units": {"pressure": "Pa in arrays, bar in CSV columns", "crank_angle": "deg", "time": "s"},
+        "variation": asdict(var),
+        "artefacts": asdict(settings) if hasattr(settings, "__dataclass_fields__") else str(settings),
+        "bore_m": bore,
+        "stroke_m": float(case.engine.stroke_mm) * 1e-3,
+        "conrod_m": float(case.engine.conrod_mm) * 1e-3,
+        "compression_ratio": float(case.engine.compression_ratio),
+        "pin_offset_m": float(case.engine.pin_offset_mm) * 1e-3,
+        "intake_pressure_pa": float(case.operating.intake_pressure_bar) * 1e5,
+    }
+    return SyntheticSet(theta_o, time_s, P_true_o, Pm_o, Pint_o, truth, stats, meta)
+
+
+def set_statistics(truth: Sequence[dict]) -> dict:
+    """COV of net IMEP, means and the share of knocking cycles from per-cycle truth rows."""
+    imep = np.array([r["imep_net_bar"] for r in truth], dtype=float)
+    ok = np.isfinite(imep)
+    mean = float(np.mean(imep[ok])) if ok.any() else float("nan")
+    sd = float(np.std(imep[ok], ddof=1)) if ok.sum() > 1 else 0.0
+    out = {
+        "n_cycles": len(truth),
+        "imep_net_mean_bar": mean,
+        "imep_net_sd_bar": sd,
+        "cov_imep_net": sd / mean if mean else float("nan"),
+    }
+    for key in ("imep_gross_bar", "p_max_bar", "theta_pmax_deg", "ca10_deg", "ca50_deg", "ca90_deg"):
+        v = np.array([r[key] for r in truth], dtype=float)
+        out[f"{key.replace('_bar', '').replace('_deg', '')}_mean{key[key.rfind('_'):]}"] = (
+            float(np.nanmean(v)) if np.isfinite(v).any() else float("nan"))
+    kn = np.array([np.isfinite(r.get("knock_onset_deg", np.nan)) for r in truth])
+    out["knocking_share"] = float(kn.mean()) if len(kn) else 0.0
+    out["misfire_share"] = float(np.mean([r["misfire"] for r in truth]))
+    out["partial_burn_share"] = float(np.mean([r["partial_burn"] for r in truth]))
+    return out

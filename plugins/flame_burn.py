@@ -1,0 +1,402 @@
+"""A Wiebe burn whose timing responds to flame speed and turbulence.
+
+The shape of burning is a single Wiebe function (see :mod:`.wiebe`); its
+flame-development angle (spark to start of the Wiebe burn) and its duration
+scale with the laminar flame speed of the charge at spark (Metghalchi &
+Keck 1982) and with the mean piston speed, which sets the turbulence.
+
+The pure function :func:`laminar_flame_speed` gives the Metghalchi-Keck
+burning velocity of fuel-air mixtures diluted with burned gas.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Mapping
+
+import numpy as np
+
+from cyclesim.params import Param
+from cyclesim.roles import BurnRate, GasState, SetupContext
+
+from .wiebe import CYCLE_END_DEG, P_A, P_EFF, P_M, P_SPARK
+
+ATM_PA = 101325.0
+"""One standard atmosphere [Pa]."""
+T0_K = 298.0
+"""Reference temperature of the Metghalchi-Keck correlation [K]."""
+
+MK_FUELS: dict[str, tuple[float, float, float]] = {
+    # fuel: (phi_m [-], B_m [cm/s], B_phi [cm/s]); Metghalchi & Keck 1982,
+    # as tabulated by Heywood 1988, table 9.3 (from memory)
+    "gasoline": (1.13, 27.58, -78.34),     # indolene
+    "isooctane": (1.13, 26.32, -84.72),
+    "methanol": (1.11, 36.92, -140.51),
+    "propane": (1.08, 34.22, -138.65),
+}
+"""Coefficients of S_L0 = B_m + B_phi (phi - phi_m)^2 by fuel."""
+
+MK_DILUTION = 2.1
+"""Burned-gas dilution coefficient of the 1982 paper: factor (1 - 2.1 f) (from memory)."""
+
+MK_RANGE = {"p_atm": (0.4, 50.0), "T_K": (298.0, 700.0), "phi": (0.8, 1.5), "f": (0.0, 0.2)}
+"""Conditions Metghalchi & Keck measured (from memory)."""
+
+VISCOSITY_T_EXPONENT = 0.7
+"""Dynamic viscosity of the charge taken as ~ T^0.7 (common practice for air)."""
+
+
+def laminar_flame_speed(phi: Any, T_u: Any, p: Any, f_dil: Any = 0.0,
+                        fuel: str = "gasoline") -> np.ndarray:
+    """Laminar burning velocity by Metghalchi & Keck (1982).
+
+    Parameters
+    ----------
+    phi : numeric
+        Fuel-air equivalence ratio [-].
+    T_u : numeric
+        Unburned-mixture temperature [K].
+    p : numeric
+        Pressure [Pa].
+    f_dil : numeric, optional
+        Mass fraction of burned gas (residual plus EGR) in the unburned
+        mixture [-].
+    fuel : str
+        One of ``gasoline`` (indolene), ``isooctane``, ``methanol``,
+        ``propane``.
+
+    Returns
+    -------
+    ndarray
+        Laminar flame speed [m/s],
+        ``S_L0 (T_u/298 K)^alpha (p/1 atm)^beta (1 - 2.1 f)``, with
+        ``S_L0 = B_m + B_phi (phi - phi_m)^2``,
+        ``alpha = 2.18 - 0.8 (phi - 1)``, ``beta = -0.16 + 0.22 (phi - 1)``.
+        Negative values of ``S_L0`` or of the dilution factor (mixtures
+        far outside the fit) are returned as 0.
+
+    Notes
+    -----
+    Measured in a constant-volume bomb at about 0.4-50 atm, 298-700 K and
+    phi 0.8-1.5 (from memory).  The dilution factor (1 - 2.1 f) is the one
+    of the 1982 paper, not the later (1 - 2.06 f^0.77) of Rhodes & Keck
+    (1985).  Coefficients from memory, as in Heywood (1988), table 9.3.
+
+    References
+    ----------
+    Metghalchi, M., Keck, J. C. (1982). Burning velocities of mixtures of air
+    with methanol, isooctane, and indolene at high pressure and temperature.
+    Combustion and Flame 48, 191-210. doi:10.1016/0010-2180(82)90127-4
+    """
+    try:
+        phi_m, b_m, b_phi = MK_FUELS[fuel]
+    except KeyError:
+        raise ValueError(f"no flame-speed data for fuel {fuel!r}; known: {', '.join(MK_FUELS)}") from None
+    phi = np.asarray(phi, dtype=float)
+    s0 = np.maximum(b_m + b_phi * (phi - phi_m) ** 2, 0.0) * 1e-2
+    alpha = 2.18 - 0.8 * (phi - 1.0)
+    beta = -0.16 + 0.22 * (phi - 1.0)
+    dil = np.maximum(1.0 - MK_DILUTION * np.asarray(f_dil, dtype=float), 0.0)
+    return s0 * (np.asarray(T_u, dtype=float) / T0_K) ** alpha * (np.asarray(p, dtype=float) / ATM_PA) ** beta * dil
+
+
+def isentropic_compression(gas: Any, T0: Any, p0: Any, v_ratio: Any,
+                           iterations: int = 3) -> tuple[np.ndarray, np.ndarray]:
+    """Fresh-charge state after isentropic compression by a volume ratio.
+
+    Parameters
+    ----------
+    gas : cyclesim.thermo.GasTables
+        Property tables (``gas.unburned(T) -> (u, cv, R)``), arrays (B,).
+    T0, p0 : ndarray (B,)
+        Temperature [K] and pressure [Pa] at the start.
+    v_ratio : ndarray (B,)
+        Volume ratio V0 / V [-].
+    iterations : int
+        Fixed-point passes.
+
+    Returns
+    -------
+    (T, p) : tuple of ndarray (B,)
+        Temperature [K] and pressure [Pa] after compression.
+
+    Notes
+    -----
+    ``integral of cv dT/T = R ln(V0/V)`` with cv at the ln-T midpoint
+    ``sqrt(T0 T)``, solved by fixed-point iteration from ``cv/R = 2.5``;
+    ``p = p0 (V0/V)(T/T0)``.
+    """
+    T0 = np.asarray(T0, dtype=float)
+    lnv = np.log(np.asarray(v_ratio, dtype=float))
+    T = T0 * np.exp(lnv / 2.5)
+    for _ in range(iterations):
+        _, cv, R = gas.unburned(np.sqrt(T0 * T))
+        T = T0 * np.exp(R / cv * lnv)
+    return T, np.asarray(p0, dtype=float) * np.exp(lnv) * T / T0
+
+
+def _arr(value: Any, B: int) -> np.ndarray:
+    return np.broadcast_to(np.asarray(value, dtype=float), (B,)).copy()
+
+
+class WiebeFlame(BurnRate):
+    """Wiebe burn with development angle and duration scaled by flame speed and piston speed.
+
+    Parameters
+    ----------
+    values : mapping
+        See ``params``: spark advance, reference development angle and
+        duration, Wiebe ``a`` and ``m``, combustion efficiency, the reference
+        state (mean piston speed, pressure and unburned temperature at
+        spark, lambda, burned-gas fraction), the four exponents, the
+        viscosity switch and the fuel's flame-speed data.
+    ctx : SetupContext
+        Batch set-up context (uses ``gas``, ``geometry``, ``speed_rpm``,
+        ``events``).
+
+    Notes
+    -----
+    *Scaling law.*  With ``G = nu / S_L`` (a laminar flame length scale;
+    ``nu`` the kinematic viscosity, ~ T^1.7 / p from mu ~ T^0.7) evaluated at
+    the unburned charge at spark, and ``Sp`` the mean piston speed,
+
+        theta_d  = theta_d,ref  (G/G_ref)^k_d (Sp/Sp_ref)^s_d
+        dtheta_b = dtheta_b,ref (G/G_ref)^k_b (Sp/Sp_ref)^s_b
+
+    where ``theta_d`` is spark to start of the Wiebe burn and ``dtheta_b``
+    the Wiebe duration [deg].  Defaults k_d = 2/3, k_b = 1/3,
+    s_d = s_b = 1/3 follow the flame-development and rapid-burning angle
+    correlations of Hires, Tabaczynski & Novak (1978), as discussed by
+    Heywood (1988) section 9.3 (exponents from memory): a burn time
+    ~ 1/u' ~ 1/Sp alone would leave the crank-angle duration independent of
+    speed; the measured angles increase weakly with speed, here as Sp^(1/3).
+    With ``viscosity_scaling`` false, ``G = 1/S_L``.
+
+    *Spark state.*  The unburned charge at spark is estimated by isentropic
+    compression of the IVC state (``p_ivc``, ``T_ivc``, ``V_ivc``) to the
+    volume at spark with the fresh-charge properties (nothing has burned
+    yet).  This neglects heat loss and blowby during compression (a few
+    kelvin at the demo point) but needs no extra state and is a pure function
+    of the cycle's IVC state, so the burn law of each cycle is fixed at IVC
+    and is the same whether a case runs alone or in a batch.  The dilution
+    ``f`` (residual plus EGR) is recovered exactly from the single-zone
+    state, ``1 - y_b = (1 - f)(1 - eta x_b)`` in the closed cycle.
+
+    *Why frozen at spark.*  The Wiebe shape already contains the in-cycle
+    change of flame speed and flame area of the engine it was fitted to;
+    rescaling it along the burn by the local flame speed would count that
+    change twice and would no longer reproduce the fitted Wiebe burn at the
+    reference point.  So, as in Wiebe-duration correlations, the angles are
+    scaled once per cycle.  At the reference state the law is exactly the
+    plain ``wiebe`` law with ``ignition_delay_deg = ref_ignition_delay_deg``
+    and ``duration_deg = ref_duration_deg``.
+
+    *Defaults.*  The reference state is that of the built-in demo (3000 rpm,
+    stroke 81.5 mm: Sp = 8.15 m/s; lambda 1; residual about 4 %; isentropic
+    spark state at 24 deg BTDC about 13.1 bar, 664 K), with the demo's
+    burn (delay 9 deg, duration 48 deg, a = 5, m = 2).
+
+    Burning starts (for the solver's ``burning`` flag) at the spark; the rate
+    is zero until the development angle has passed.  The law has no closed
+    form on a crank grid (it depends on the IVC state), so
+    :meth:`fraction` returns None.
+    """
+
+    name = "wiebe_flame"
+    summary = ("Wiebe burn with development angle and duration scaled by the Metghalchi-Keck"
+               " flame speed at spark and the mean piston speed")
+    params = (
+        P_SPARK,
+        Param("ref_ignition_delay_deg", "deg", 9.0,
+              "spark to start of burning at the reference state", min=0.0, max=60.0),
+        Param("ref_duration_deg", "deg", 48.0, "Wiebe burn duration at the reference state",
+              min=0.0, max=360.0, min_exclusive=True),
+        P_A,
+        P_M,
+        P_EFF,
+        Param("ref_mean_piston_speed_m_per_s", "m/s", 8.15, "mean piston speed of the reference state",
+              min=0.0, max=40.0, min_exclusive=True),
+        Param("ref_pressure_bar", "bar", 13.1, "pressure of the unburned charge at spark, reference state",
+              min=0.0, max=300.0, min_exclusive=True),
+        Param("ref_unburned_temperature_K", "K", 664.0,
+              "temperature of the unburned charge at spark, reference state",
+              min=150.0, max=1500.0),
+        Param("ref_lambda", "-", 1.0, "air-fuel equivalence ratio of the reference state",
+              min=0.3, max=3.0),
+        Param("ref_burned_fraction", "-", 0.042,
+              "burned-gas (residual plus EGR) mass fraction of the reference state",
+              min=0.0, max=0.45),
+        Param("delay_flame_exponent", "-", 2.0 / 3.0,
+              "exponent k_d on the laminar length scale nu/S_L for the development angle",
+              min=-3.0, max=3.0),
+        Param("delay_speed_exponent", "-", 1.0 / 3.0,
+              "exponent s_d on the mean piston speed for the development angle", min=-3.0, max=3.0),
+        Param("duration_flame_exponent", "-", 1.0 / 3.0,
+              "exponent k_b on the laminar length scale nu/S_L for the burn duration",
+              min=-3.0, max=3.0),
+        Param("duration_speed_exponent", "-", 1.0 / 3.0,
+              "exponent s_b on the mean piston speed for the burn duration", min=-3.0, max=3.0),
+        Param("viscosity_scaling", "-", True,
+              "scale with nu/S_L (true) or with 1/S_L alone (false)", kind="bool", sweepable=False),
+        Param("fuel_flame_data", "-", "gasoline", "Metghalchi-Keck coefficients to use",
+              kind="choice", choices=tuple(MK_FUELS), sweepable=False),
+    )
+    references = (
+        "Metghalchi, M., Keck, J. C. (1982). Burning velocities of mixtures of air with "
+        "methanol, isooctane, and indolene at high pressure and temperature. Combustion and "
+        "Flame 48, 191-210 (coefficients from memory, as in Heywood 1988, table 9.3).",
+        "Hires, S. D., Tabaczynski, R. J., Novak, J. M. (1978). The prediction of ignition "
+        "delay and combustion intervals for a homogeneous charge, spark ignition engine. "
+        "SAE 780232 (exponents from memory).",
+        "Heywood, J. B. (1988). Internal Combustion Engine Fundamentals, McGraw-Hill, "
+        "ch. 9 (burn angles, Wiebe function).",
+        "Wiebe, I. I. (1970). Brennverlauf und Kreisprozess von Verbrennungsmotoren. VEB "
+        "Verlag Technik, Berlin (bibliographic details from memory).",
+    )
+
+    def __init__(self, values: Mapping[str, Any], ctx: SetupContext) -> None:
+        super().__init__(values, ctx)
+        B = self.B
+        p = self.p
+        self.fuel = str(p.fuel_flame_data)
+        self.spark = -_arr(p.spark_advance_deg, B)
+        self.delay_ref = _arr(p.ref_ignition_delay_deg, B)
+        self.dur_ref = _arr(p.ref_duration_deg, B)
+        self.a = _arr(p.a, B)
+        self.m = _arr(p.m, B)
+        self.eff = _arr(p.combustion_efficiency, B)
+        self.kd = _arr(p.delay_flame_exponent, B)
+        self.sd = _arr(p.delay_speed_exponent, B)
+        self.kb = _arr(p.duration_flame_exponent, B)
+        self.sb = _arr(p.duration_speed_exponent, B)
+        self.visc = bool(p.viscosity_scaling)
+        self.phi = _arr(ctx.gas.phi, B)
+        self.V_spark = ctx.geometry.volume_at(self.spark)
+        Sp = ctx.geometry.mean_piston_speed(ctx.speed_rpm) * np.ones(B)
+        self.speed_ratio = Sp / _arr(p.ref_mean_piston_speed_m_per_s, B)
+        p_ref = _arr(p.ref_pressure_bar, B) * 1e5
+        T_ref = _arr(p.ref_unburned_temperature_K, B)
+        s_ref = laminar_flame_speed(1.0 / _arr(p.ref_lambda, B), T_ref, p_ref,
+                                    _arr(p.ref_burned_fraction, B), self.fuel)
+        self.G_ref = self._length(s_ref, T_ref, p_ref)
+        self._key: tuple | None = None
+
+    # -- the law -----------------------------------------------------------
+    def _length(self, s_l: np.ndarray, T: np.ndarray, p: np.ndarray) -> np.ndarray:
+        """Laminar scale G: nu/S_L up to a constant factor, or 1/S_L [s/m]."""
+        s_l = np.maximum(s_l, 1e-4)
+        if self.visc:
+            return T ** (1.0 + VISCOSITY_T_EXPONENT) / p / s_l
+        return 1.0 / s_l
+
+    def spark_state(self, p_ivc, T_ivc, V_ivc) -> tuple[np.ndarray, np.ndarray]:
+        """Unburned charge at spark (T [K], p [Pa]) (B,), isentropic from the IVC state."""
+        return isentropic_compression(self.ctx.gas, T_ivc, p_ivc, V_ivc / self.V_spark)
+
+    def angles(self, T_s, p_s, f) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(S_L at spark [m/s], development angle [deg], Wiebe duration [deg]) (B,)."""
+        s_l = laminar_flame_speed(self.phi, T_s, p_s, f, self.fuel)
+        g = self._length(s_l, T_s, p_s) / self.G_ref
+        delay = self.delay_ref * g ** self.kd * self.speed_ratio ** self.sd
+        dur = self.dur_ref * g ** self.kb * self.speed_ratio ** self.sb
+        return s_l, delay, dur
+
+    def _spark_cached(self, s: GasState) -> tuple[np.ndarray, np.ndarray]:
+        key = (s.p_ivc, s.T_ivc, s.V_ivc)
+        k = self._key
+        if k is None or not all(a is b for a, b in zip(k[0], key)):
+            with np.errstate(all="ignore"):
+                T_s, p_s = self.spark_state(*key)
+            self._key = (key, T_s, p_s)
+            k = self._key
+        return k[1], k[2]
+
+    def dilution(self, s: GasState) -> np.ndarray:
+        """Burned-gas fraction of the unburned charge f [-] (B,), from y_b and x_b."""
+        f = 1.0 - (1.0 - s.y_b) / np.maximum(1.0 - self.eff * s.x_b, 1e-9)
+        return np.clip(f, 0.0, 1.0)
+
+    # -- role interface ------------------------------------------------------
+    def start_deg(self) -> np.ndarray:
+        """Start of combustion for the solver [deg] (B,): the spark (the rate is zero before the delay ends)."""
+        return self.spark.copy()
+
+    def spark_deg(self) -> np.ndarray:
+        """Spark timing as a crank angle [deg] (negative = before TDC) (B,)."""
+        return self.spark.copy()
+
+    def combustion_efficiency(self) -> np.ndarray:
+        """Fraction of the charge's fuel energy that is released (B,) [-]."""
+        return self.eff.copy()
+
+    def rate(self, s: GasState) -> np.ndarray:
+        """Burn rate dx_b/dtheta [1/deg] (B,); zero before the development angle and from 360 deg."""
+        th = s.theta
+        if th < float(np.min(self.spark)) or th >= CYCLE_END_DEG:
+            return np.zeros(self.B)
+        T_s, p_s = self._spark_cached(s)
+        with np.errstate(all="ignore"):
+            _, delay, dur = self.angles(T_s, p_s, self.dilution(s))
+            u = (th - self.spark - delay) / dur
+            on = u > 0.0
+            up = np.where(on, u, 0.0)
+            um = up ** self.m
+            r = self.a * (self.m + 1.0) / dur * um * np.exp(-self.a * um * up)
+        return np.where(on & np.isfinite(r), r, 0.0)
+
+    # -- end-of-run figures ----------------------------------------------------
+    def _from_trace(self, trace: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+        th = np.asarray(trace["crank_deg"], float)
+        p = np.asarray(trace["pressure_bar"], float) * 1e5
+        th = np.broadcast_to(th, p.shape)
+        T = np.asarray(trace["temperature_K"], float)
+        yb = np.asarray(trace["burned_gas_fraction"], float)
+        xb = np.asarray(trace["mfb"], float)
+        ivc = _arr(self.ctx.events.ivc, self.B)
+        evo = _arr(self.ctx.events.evo, self.B)
+        at = lambda a, x: np.array([np.interp(x[b], th[b], a[b]) for b in range(self.B)])  # noqa: E731
+        p_ivc, T_ivc, f = at(p, ivc), at(T, ivc), at(yb, ivc)
+        V_ivc = self.ctx.geometry.volume_at(ivc)
+        T_s, p_s = self.spark_state(p_ivc, T_ivc, V_ivc)
+        s_l, delay, dur = self.angles(T_s, p_s, f)
+        return {"T_s": T_s, "p_s": p_s, "f": f, "s_l": s_l, "delay": delay, "dur": dur,
+                "x_evo": at(xb, evo), "evo": evo}
+
+    def figures(self, trace: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+        """Flame speed and charge state at spark, development angle and Wiebe duration."""
+        d = self._from_trace(trace)
+        return {
+            "laminar_flame_speed_at_spark_m_per_s": d["s_l"],
+            "unburned_temperature_at_spark_K": d["T_s"],
+            "unburned_pressure_at_spark_bar": d["p_s"] / 1e5,
+            "flame_development_angle_deg": d["delay"],
+            "flame_burn_duration_deg": d["dur"],
+        }
+
+    def warnings(self, trace: Mapping[str, np.ndarray]) -> list[list[str]]:
+        """Flame-speed correlation outside its measured range; incomplete burn at EVO."""
+        out: list[list[str]] = [[] for _ in range(self.B)]
+        d = self._from_trace(trace)
+        r = MK_RANGE
+        checks = (
+            ("pressure at spark", d["p_s"] / ATM_PA, r["p_atm"], "atm"),
+            ("unburned temperature at spark", d["T_s"], r["T_K"], "K"),
+            ("equivalence ratio", self.phi, r["phi"], ""),
+            ("burned-gas fraction", d["f"], r["f"], ""),
+        )
+        for what, val, (lo, hi), unit in checks:
+            for b in np.flatnonzero((val < lo) | (val > hi)):
+                out[b].append(
+                    f"burn law: {what} {val[b]:.3g}{' ' + unit if unit else ''} is outside the"
+                    f" {lo:g}-{hi:g} measured by Metghalchi & Keck (range from memory)"
+                )
+        for b in np.flatnonzero(d["s_l"] <= 0.0):
+            out[b].append("burn law: the flame-speed correlation gives no positive speed for this mixture")
+        for b in np.flatnonzero(d["x_evo"] < 0.99):
+            out[b].append(
+                f"burn law: only {100 * d['x_evo'][b]:.1f} % burned at exhaust valve opening"
+                f" ({d['evo'][b]:g} deg); the rest of the charge leaves unburned"
+            )
+        return out
+
+
+SUBMODELS = [WiebeFlame]
