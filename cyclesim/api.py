@@ -159,8 +159,31 @@ def _run_batch(cases: list[Case], registry, progress=None) -> list[CaseResult]:
                 f" (raise simulation.max_cycles)"
             )
         res.warnings.extend(model_warn[i])
+        res.warnings.extend(_gas_exchange_warnings(summ))
         results.append(res)
     return results
+
+
+def _gas_exchange_warnings(s: dict) -> list[str]:
+    out = []
+    m = s.get("trapped_mass_mg")
+    if m and s.get("intake_backflow_mass_mg", 0.0) > 0.25 * m:
+        out.append(
+            f"intake backflow {s['intake_backflow_mass_mg']:.1f} mg ({100 * s['intake_backflow_mass_mg'] / m:.0f} % of"
+            f" trapped mass): it is held unmixed in the port and returns first; mixing with the port"
+            f" and runner is not modelled (approximate)"
+        )
+    if m and s.get("exhaust_backflow_mass_mg", 0.0) > 0.05 * m:
+        out.append(
+            f"exhaust backflow {s['exhaust_backflow_mass_mg']:.1f} mg into the cylinder: it enters at the exhaust"
+            f" plenum's temperature as burned gas (approximate)"
+        )
+    if s.get("exhaust_choked_deg", 0.0) > 90.0:
+        out.append(
+            f"exhaust flow choked for {s['exhaust_choked_deg']:.0f} deg: quasi-steady orifice flow is approximate"
+            f" in a strong unsteady blowdown"
+        )
+    return out
 
 
 def simulate(cases: Sequence[Case], progress: Callable[[int], None] | None = None,

@@ -295,6 +295,17 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     with np.errstate(divide="ignore", invalid="ignore"):
         out["bsfc_g_per_kWh"] = np.where(W_brake > 0, m_fuel * 1e3 / (W_brake / 3.6e6), np.inf)
     out["exhaust_temperature_K"] = _exhaust_temperature(batch, -m_e, -H_e, -mu_e)
+    # gas-exchange conditions the quasi-steady valve model handles approximately
+    h_deg = (th[-1] - th[0]) / (len(th) - 1)
+    fi = F[I["m_int"]]
+    fe = F[I["m_exh"]]
+    out["intake_backflow_mass_mg"] = np.trapezoid(np.minimum(fi, 0.0), dx=h_deg, axis=1) * -1e6
+    out["exhaust_backflow_mass_mg"] = np.trapezoid(np.maximum(fe, 0.0), dx=h_deg, axis=1) * 1e6
+    p_e = op.exhaust_pressure_bar * 1e5 * np.ones(B)
+    gam = d["gamma"]
+    crit = (2.0 / (gam + 1.0)) ** (gam / (gam - 1.0))
+    choked = (fe < 0) & (p_e[:, None] / p > 0) & (p_e[:, None] / p < crit)
+    out["exhaust_choked_deg"] = choked.sum(axis=1) * h_deg
     out["cycles_to_converge"] = tr.cycles.astype(float)
     out["converged"] = tr.converged.copy()
 
@@ -401,7 +412,9 @@ def output_trace(batch, tr: CycleTrace, d: dict, step: float | None) -> dict[str
         lifts = vf.lift(grid)
         cols["intake_lift_mm"] = np.broadcast_to(lifts["intake"], (B, len(grid))) * 1e3
         cols["exhaust_lift_mm"] = np.broadcast_to(lifts["exhaust"], (B, len(grid))) * 1e3
-    for k, name in enumerate(tr.names[16:], start=16):
+    from .solver import CORE
+
+    for k, name in enumerate(tr.names[len(CORE):], start=len(CORE)):
         cols[name] = at(Y[k], F[k])
     # Woschni-style motored pressure, when the heat-transfer model integrates it
     if "heat_transfer.T_mot" in I:

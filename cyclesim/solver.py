@@ -21,9 +21,16 @@ row    name       meaning
 13     H_exh      absolute enthalpy in through the exhaust valves [J]
 14     mu_exh     fresh-charge part of it [kg]
 15     Q_burn     chemical energy released by combustion [J]
+16     m_ibuf     gas pushed back into the intake port, re-inducted first [kg]
+17     mb_ibuf    its burned-gas part [kg]
+18     H_ibuf     its absolute enthalpy [J]
 =====  =========  ==================================================
 
-followed by the states the chosen submodels declare.  Energies are
+followed by the states the chosen submodels declare.  Gas that flows back
+from the cylinder into the intake port during valve overlap or before
+intake valve closing waits in the port (rows 16-18) and is the first to
+return, so backflow raises the residual fraction as on a real engine; only
+then does the intake draw from the plenum.  Energies are
 absolute (formation enthalpy included), so the first law needs no separate
 heat-release term: turning fresh charge into burned gas at constant
 temperature lowers the internal energy by the heat of reaction.
@@ -46,9 +53,10 @@ from .errors import CyclesimError, PluginError, SolverError
 from .roles import GasState
 
 CORE = ("m", "T", "m_b", "x_b", "W", "Q_w", "m_bb", "H_bb", "mu_bb",
-        "m_int", "H_int", "mu_int", "m_exh", "H_exh", "mu_exh", "Q_burn")
+        "m_int", "H_int", "mu_int", "m_exh", "H_exh", "mu_exh", "Q_burn",
+        "m_ibuf", "mb_ibuf", "H_ibuf")
 IDX = {n: i for i, n in enumerate(CORE)}
-_TOTALS = slice(4, len(CORE))  # running totals, reset at the start of a cycle
+_TOTALS = slice(4, 16)  # running totals, reset at the start of a cycle
 
 
 @dataclass
@@ -116,6 +124,9 @@ class _RHS:
         self._shape_B = (self.B,)
         self._zeros = np.zeros(self.B)
         self._all_closed = np.ones(self.B, dtype=bool)
+        # smoothing mass of the port buffer [kg]: large enough that the buffer's drain
+        # is not stiff at the step, small against the trapped mass
+        self._buf_scale = 2e-3 * batch.geometry.Vd * 1.1 * np.ones(self.B)
         self._dh298 = np.asarray(self.gas.h298_u - self.gas.h298_b, float) * np.ones(self.B)
 
     def plenums(self, theta: float, sub):
@@ -264,8 +275,20 @@ class _RHS:
             fi = mi * dt
             fe = me * dt
             inn = fi > 0
-            yin_i = np.where(inn, y_i, yb)
-            hin_i = np.where(inn, h_i, h)
+            # intake-port buffer of backflowed gas: returns first (smooth share w)
+            mq = np.maximum(y[16], 0.0)
+            w = mq / (mq + self._buf_scale)
+            mq_safe = np.where(mq > 0, mq, 1.0)
+            yq = np.where(mq > 0, np.clip(y[17] / mq_safe, 0.0, 1.0), y_i)
+            hq = np.where(mq > 0, y[18] / mq_safe, h_i)
+            y_src = w * yq + (1.0 - w) * y_i
+            h_src = w * hq + (1.0 - w) * h_i
+            yin_i = np.where(inn, y_src, yb)
+            hin_i = np.where(inn, h_src, h)
+            take = np.where(inn, w * fi, fi)          # >0: leaves the buffer; <0: enters it
+            out[16] = -take
+            out[17] = -np.where(inn, w * fi * yq, fi * yb)
+            out[18] = -np.where(inn, w * fi * hq, fi * h)
             ine = fe > 0
             yin_e = np.where(ine, 1.0, yb)
             hin_e = np.where(ine, h_e, h)
@@ -284,6 +307,7 @@ class _RHS:
             dm = -fbb
             dmb = dm_burn - fbb * yb
             out[9:15] = 0.0
+            out[16:19] = 0.0
             dHflow = 0.0
         dHbb = fbb * h
         dQ = Qw * dt

@@ -8,8 +8,8 @@ The study sweeps ``burn.spark_advance_deg`` and reads the torque curve:
 
 * **MBT** (minimum advance for best torque, here the advance of maximum fitted
   torque) from a least-squares polynomial through the points within a few
-  percent of the highest torque (cubic with five or more points, else
-  quadratic), so it falls between grid points.
+  percent of the highest torque (degree 2 to 4 with the number of points),
+  so it falls between grid points.
 * the **least advance within** ``torque_fraction`` of best torque: the most
   retarded advance whose torque (the fit inside its window, a monotone
   piecewise-cubic through the points outside it) is at least
@@ -90,10 +90,12 @@ def fit_torque_peak(advance_deg: np.ndarray, torque: np.ndarray, window_fraction
 
     Notes
     -----
-    Near its maximum the torque-advance curve is flat and slightly skewed
-    (it falls faster with over-advance than with retard), so a cubic over a
-    few percent of torque follows it better than a parabola; with fewer than
-    five points in the window a quadratic is used.
+    Near its maximum the torque-advance curve is flat and skewed (it falls
+    faster with over-advance than with retard), so a parabola through a few
+    percent of torque puts the maximum too early.  The degree rises with the
+    points in the window: quadratic for 3-4, cubic for 5-6, quartic from 7,
+    always leaving at least two degrees of freedom for the least squares
+    (except with 3 points, where the parabola interpolates).
     """
     a = np.asarray(advance_deg, float)
     t = np.asarray(torque, float)
@@ -113,7 +115,7 @@ def fit_torque_peak(advance_deg: np.ndarray, torque: np.ndarray, window_fraction
         hi += 1
     lo, hi = min(lo, k - 1), max(hi, k + 1)
     npts = hi - lo + 1
-    deg = 3 if npts >= 5 else 2
+    deg = 4 if npts >= 7 else 3 if npts >= 5 else 2
     P = np.polynomial.Polynomial.fit(a[lo: hi + 1], t[lo: hi + 1], deg)
     cand = [a[lo], a[hi]]
     for r in P.deriv().roots():
@@ -122,8 +124,6 @@ def fit_torque_peak(advance_deg: np.ndarray, torque: np.ndarray, window_fraction
     vals = [float(P(c)) for c in cand]
     j = int(np.argmax(vals))
     mbt, best = float(cand[j]), vals[j]
-    if best < t[k]:           # the fit never lies below the best point actually computed
-        mbt, best = float(a[k]), float(t[k])
     conv = P.convert()
     return {"bracketed": True, "edge": None, "mbt_deg": mbt, "best": best, "degree": deg,
             "window_deg": (float(a[lo]), float(a[hi])), "coef": [float(c) for c in conv.coef],
