@@ -47,6 +47,9 @@ def build_parser() -> argparse.ArgumentParser:
     sh = sub.add_parser("show", help="print the merged, validated config with every default filled in")
     sh.add_argument("config", nargs="?", default="demo")
     _common(sh)
+    from .cli_studies import add_parsers
+
+    add_parsers(sub)
     return ap
 
 
@@ -135,6 +138,9 @@ def main(argv: list[str] | None = None) -> int:
         ap.print_help()
         return 0
     handlers = {"run": cmd_run, "plugins": cmd_plugins, "configs": cmd_configs, "show": cmd_show}
+    from .cli_studies import HANDLERS
+
+    handlers.update(HANDLERS)
     try:
         return handlers[args.command](args)
     except CyclesimError as exc:

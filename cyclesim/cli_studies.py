@@ -55,7 +55,6 @@ def add_parsers(subparsers) -> None:
     s.add_argument("--paired", action="store_true",
                    help="one case per position of the value lists (equal lengths) instead of the grid")
     _common(s)
-    s.set_defaults(study_handler=cmd_sweep)
 
     k = subparsers.add_parser(
         "spark", help="spark-advance study: MBT, least advance within a torque fraction, limits",
@@ -68,14 +67,13 @@ def add_parsers(subparsers) -> None:
                    help="report the least advance within this fraction of best torque (default 0.01)")
     k.add_argument("--knock-margin", type=float, default=2.0, metavar="DEG",
                    help="retard kept from the knock-limited advance (default 2)")
-    k.add_argument("--knock-share", type=float, default=None, metavar="F",
+    k.add_argument("--knock-min-unburned", type=float, default=None, metavar="F",
                    help="count knock only with at least this share of the charge unburned at onset")
     k.add_argument("--pmax-limit", type=float, default=None, metavar="BAR", help="peak-pressure limit [bar]")
     k.add_argument("--dp-limit", type=float, default=None, metavar="BAR_PER_DEG",
                    help="limit of the largest pressure-rise rate [bar/deg]")
     k.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
     _common(k)
-    k.set_defaults(study_handler=cmd_spark)
 
 
 def _progress(args):
@@ -108,7 +106,7 @@ def cmd_spark(args) -> int:
     st = spark_study(args.config, args.advance, overrides=args.overrides, out=args.out,
                      torque_fraction=args.torque_fraction, knock_margin_deg=args.knock_margin,
                      p_max_limit_bar=args.pmax_limit, dp_limit_bar_per_deg=args.dp_limit,
-                     knock_share=args.knock_share, resume=args.resume, force=args.force,
+                     knock_min_unburned=args.knock_min_unburned, resume=args.resume, force=args.force,
                      chunk_size=args.chunk, progress=_progress(args), plots=not args.no_plots)
     print(st.text())
     print(f"simulated in {time.perf_counter() - t0:.1f} s")

@@ -18,6 +18,7 @@ import numpy as np
 from cyclesim.params import Param
 from cyclesim.roles import BurnRate, GasState, SetupContext
 
+from .knock import log_mean_temperature
 from .wiebe import CYCLE_END_DEG, P_A, P_EFF, P_M, P_SPARK
 
 ATM_PA = 101325.0
@@ -100,7 +101,7 @@ def laminar_flame_speed(phi: Any, T_u: Any, p: Any, f_dil: Any = 0.0,
 
 
 def isentropic_compression(gas: Any, T0: Any, p0: Any, v_ratio: Any,
-                           iterations: int = 3) -> tuple[np.ndarray, np.ndarray]:
+                           iterations: int = 4) -> tuple[np.ndarray, np.ndarray]:
     """Fresh-charge state after isentropic compression by a volume ratio.
 
     Parameters
@@ -121,15 +122,15 @@ def isentropic_compression(gas: Any, T0: Any, p0: Any, v_ratio: Any,
 
     Notes
     -----
-    ``integral of cv dT/T = R ln(V0/V)`` with cv at the ln-T midpoint
-    ``sqrt(T0 T)``, solved by fixed-point iteration from ``cv/R = 2.5``;
+    ``integral of cv dT/T = R ln(V0/V)`` with cv at the logarithmic mean
+    temperature ``(T - T0)/ln(T/T0)`` (exact for cv linear in T), solved by fixed-point iteration from ``cv/R = 2.5``;
     ``p = p0 (V0/V)(T/T0)``.
     """
     T0 = np.asarray(T0, dtype=float)
     lnv = np.log(np.asarray(v_ratio, dtype=float))
     T = T0 * np.exp(lnv / 2.5)
     for _ in range(iterations):
-        _, cv, R = gas.unburned(np.sqrt(T0 * T))
+        _, cv, R = gas.unburned(log_mean_temperature(T0, T))
         T = T0 * np.exp(R / cv * lnv)
     return T, np.asarray(p0, dtype=float) * np.exp(lnv) * T / T0
 
@@ -191,8 +192,8 @@ class WiebeFlame(BurnRate):
     and ``duration_deg = ref_duration_deg``.
 
     *Defaults.*  The reference state is that of the built-in demo (3000 rpm,
-    stroke 81.5 mm: Sp = 8.15 m/s; lambda 1; residual about 4 %; isentropic
-    spark state at 24 deg BTDC 11.7 bar, 644 K, within 0.1 bar and 1 K of the
+    stroke 81.5 mm: Sp = 8.15 m/s; lambda 1; residual 7.1 %; isentropic
+    spark state at 24 deg BTDC 11.6 bar, 668 K, within 0.1 bar and 1 K of the
     simulated cylinder state there), with the demo's
     burn (delay 9 deg, duration 48 deg, a = 5, m = 2).
 
@@ -216,14 +217,14 @@ class WiebeFlame(BurnRate):
         P_EFF,
         Param("ref_mean_piston_speed_m_per_s", "m/s", 8.15, "mean piston speed of the reference state",
               min=0.0, max=40.0, min_exclusive=True),
-        Param("ref_pressure_bar", "bar", 11.7, "pressure of the unburned charge at spark, reference state",
+        Param("ref_pressure_bar", "bar", 11.6, "pressure of the unburned charge at spark, reference state",
               min=0.0, max=300.0, min_exclusive=True),
-        Param("ref_unburned_temperature_K", "K", 644.0,
+        Param("ref_unburned_temperature_K", "K", 668.0,
               "temperature of the unburned charge at spark, reference state",
               min=150.0, max=1500.0),
         Param("ref_lambda", "-", 1.0, "air-fuel equivalence ratio of the reference state",
               min=0.3, max=3.0),
-        Param("ref_burned_fraction", "-", 0.042,
+        Param("ref_burned_fraction", "-", 0.071,
               "burned-gas (residual plus EGR) mass fraction of the reference state",
               min=0.0, max=0.45),
         Param("delay_flame_exponent", "-", 2.0 / 3.0,
@@ -388,7 +389,8 @@ class WiebeFlame(BurnRate):
             for b in np.flatnonzero((val < lo) | (val > hi)):
                 out[b].append(
                     f"burn law: {what} {val[b]:.3g}{' ' + unit if unit else ''} is outside the"
-                    f" {lo:g}-{hi:g} measured by Metghalchi & Keck (range from memory)"
+                    f" {lo:g}-{hi:g}{' ' + unit if unit else ''} measured by Metghalchi & Keck"
+                    " (range from memory)"
                 )
         for b in np.flatnonzero(d["s_l"] <= 0.0):
             out[b].append("burn law: the flame-speed correlation gives no positive speed for this mixture")

@@ -80,7 +80,7 @@ def douaud_eyzat_delay_ms(octane_number: Any, p_pa: Any, T_K: Any,
             * p_atm ** DE_PRESSURE_EXPONENT * np.exp(activation_K / T))
 
 
-def isentropic_temperature(gas: Any, T0: Any, p_ratio: Any, iterations: int = 3) -> np.ndarray:
+def isentropic_temperature(gas: Any, T0: Any, p_ratio: Any, iterations: int = 4) -> np.ndarray:
     """Temperature of the fresh charge after an isentropic change of pressure.
 
     Parameters
@@ -93,7 +93,8 @@ def isentropic_temperature(gas: Any, T0: Any, p_ratio: Any, iterations: int = 3)
     p_ratio : ndarray (B,)
         Pressure ratio p / p0 [-].
     iterations : int
-        Fixed-point passes (3 give about 1e-4 K at engine conditions).
+        Fixed-point passes; each cuts the error about ninefold, 4 leave about
+        0.01 K for a compression to 40 times the pressure.
 
     Returns
     -------
@@ -103,17 +104,33 @@ def isentropic_temperature(gas: Any, T0: Any, p_ratio: Any, iterations: int = 3)
     Notes
     -----
     For an ideal gas with temperature-dependent cp, an isentrope obeys
-    ``integral of cp dT/T = R ln(p/p0)``.  The integral over ln T is taken
-    by the midpoint rule, cp at ``T_m = sqrt(T0 T)``, and the implicit
-    relation solved by fixed-point iteration started from ``cp/R = 3.5``.
+    ``integral of cp dT/T = R ln(p/p0)``.  The mean of cp over ln T is taken
+    as cp at the logarithmic mean temperature ``(T - T0)/ln(T/T0)``, exact
+    for cp linear in T (the fresh charge's cp is nearly so between 300 and
+    1000 K), and the implicit relation solved by fixed-point iteration
+    started from ``cp/R = 3.5``.
     """
     T0 = np.asarray(T0, dtype=float)
     lnr = np.log(np.asarray(p_ratio, dtype=float))
     T = T0 * np.exp(lnr / 3.5)
     for _ in range(iterations):
-        _, cv, R = gas.unburned(np.sqrt(T0 * T))
+        _, cv, R = gas.unburned(log_mean_temperature(T0, T))
         T = T0 * np.exp(R / (cv + R) * lnr)
     return T
+
+
+def log_mean_temperature(T0: Any, T1: Any) -> np.ndarray:
+    """Logarithmic mean ``(T1 - T0) / ln(T1 / T0)`` [K] (the geometric mean where T1 ~ T0).
+
+    A specific heat linear in T, averaged over ln T between T0 and T1, equals
+    its value at this temperature; so it is the point at which to evaluate
+    cp (or cv) for an isentrope.
+    """
+    T0 = np.asarray(T0, dtype=float)
+    T1 = np.asarray(T1, dtype=float)
+    ln = np.log(T1 / T0)
+    small = np.abs(ln) < 1e-6
+    return np.where(small, np.sqrt(T0 * T1), (T1 - T0) / np.where(small, 1.0, ln))
 
 
 def _arr(value: Any, B: int) -> np.ndarray:
@@ -156,7 +173,7 @@ class LivengoodWu(Knock):
     integrating ``dT_u/dt = (R/cp) T_u (dp/dt)/p``, which needs dp/dt that
     the solver does not provide, the closed form of the same isentrope is
     used, ``T_u = T_ivc exp((R/cp_m) ln(p/p_ivc))`` with the fresh-charge
-    cp at the ln-T midpoint, solved in three fixed-point passes (see
+    cp at the logarithmic mean temperature, solved in four fixed-point passes (see
     :func:`isentropic_temperature`).  This needs no extra state and cannot
     drift.  It neglects heat loss from the end gas (so T_u is an upper
     estimate, common practice for a single-zone knock check) and uses the
@@ -258,11 +275,7 @@ class LivengoodWu(Knock):
         gas = self.ctx.gas
         # end-gas temperature on the trace, same closed form as in the integration
         ratio = np.where(win, p / p_ivc[:, None], 1.0)
-        lnr = np.log(ratio)
-        Tu = T_ivc[:, None] * np.exp(lnr / 3.5)
-        for _ in range(3):
-            _, cv, R = gas.unburned(np.sqrt(T_ivc[:, None] * Tu))
-            Tu = T_ivc[:, None] * np.exp(R / (cv + R) * lnr)
+        Tu = isentropic_temperature(gas, np.broadcast_to(T_ivc[:, None], ratio.shape), ratio)
         counting = win & (xb < self.x_max[:, None])
         Iw = np.where(win, I, -np.inf)
         out = {

@@ -21,7 +21,7 @@ The study sweeps ``burn.spark_advance_deg`` and reads the torque curve:
 * the **knock-limited advance** when the knock model reports
   ``knock_onset_deg``: the least advance at which knock onset occurs, found
   where ``knock_integral_max`` crosses 1 between two advances (linear
-  interpolation).  With ``knock_share`` only knock with at least that share
+  interpolation).  With ``knock_min_unburned`` only knock with at least that share
   of the charge still unburned at onset counts.
 * the **recommended advance**: the most retarded of MBT, knock-limited advance
   minus ``knock_margin_deg``, and the advances at which peak pressure and the
@@ -58,6 +58,7 @@ SPARK_CAUTION = (
     " with knock detection, within the manufacturer's limits and the test cell's procedures"
 )
 TORQUE_KEYS = ("torque_Nm", "imep_net_bar", "imep_closed_bar")
+_LABELS = {"torque_Nm": "brake torque", "imep_net_bar": "net IMEP", "imep_closed_bar": "closed-cycle IMEP"}
 
 
 # --------------------------------------------------------------------------
@@ -285,7 +286,7 @@ class SparkStudy:
             lines.append(f"  {label:<40s}{'-' if v is None else format(v, spec):>9s}  {u}")
 
         row("MBT (from the fitted torque curve)", self.mbt_deg)
-        row(f"best {tk.replace('_', ' ')}", self.best_torque, unit, ".2f")
+        row(f"best {_LABELS.get(tk, tk)}", self.best_torque, unit, ".2f")
         row(f"least advance within {100 * self.torque_fraction:g} % of best", self.lbt_deg)
         row("CA50 at MBT", self.ca50_at_mbt_deg, "deg ATDC")
         row("angle of peak pressure at MBT", self.theta_pmax_at_mbt_deg, "deg ATDC")
@@ -369,23 +370,23 @@ def _check_burn_model(case: Case) -> None:
         )
 
 
-def _knock(st: SparkStudy, table: SweepResult, adv: np.ndarray, ok: np.ndarray, knock_share) -> None:
+def _knock(st: SparkStudy, table: SweepResult, adv: np.ndarray, ok: np.ndarray, knock_min_unburned) -> None:
     if "knock_onset_deg" not in table.columns:
         st.knock_status = "no model"
         st.notes.append("no knock model active (knock.model = none): knock-limited advance not estimated")
         return
     onset = table.column("knock_onset_deg")[ok]
     a = adv[ok]
-    if knock_share is not None:
+    if knock_min_unburned is not None:
         share = _unburned_at_onset(table, ok, onset)
         if share is None:
-            st.notes.append("knock_share ignored: the unburned share at knock onset is not available"
+            st.notes.append("knock_min_unburned ignored: the unburned share at knock onset is not available"
                             " for every case (no knock_unburned_fraction_at_onset figure and no trace)")
         else:
             level = np.where(np.isfinite(onset), share, 0.0)
-            x, status = crossing_up(a, level, float(knock_share))
+            x, status = crossing_up(a, level, float(knock_min_unburned))
             st.knock_limited_deg, st.knock_status = x, status
-            st.notes.append(f"knock counted when at least {100 * knock_share:g} % of the charge is unburned at onset")
+            st.notes.append(f"knock counted when at least {100 * knock_min_unburned:g} % of the charge is unburned at onset")
             _knock_notes(st, status, a)
             return
     if "knock_integral_max" in table.columns and np.isfinite(table.column("knock_integral_max")[ok]).any():
@@ -448,7 +449,7 @@ def spark_study(
     knock_margin_deg: float = 2.0,
     p_max_limit_bar: float | None = None,
     dp_limit_bar_per_deg: float | None = None,
-    knock_share: float | None = None,
+    knock_min_unburned: float | None = None,
     *,
     fit_window_fraction: float = 0.03,
     resume: bool = False,
@@ -478,7 +479,7 @@ def spark_study(
         Peak-pressure limit [bar].
     dp_limit_bar_per_deg : float, optional
         Limit of the largest pressure-rise rate [bar/deg].
-    knock_share : float, optional
+    knock_min_unburned : float, optional
         Count knock only when at least this share of the charge is unburned at onset [-].
     fit_window_fraction : float
         Points within this fraction of the highest torque enter the MBT fit [-].
@@ -497,8 +498,8 @@ def spark_study(
         raise ConfigError(f"--torque-fraction {torque_fraction!r}: expected a number between 0 and 1")
     if knock_margin_deg < 0:
         raise ConfigError(f"--knock-margin {knock_margin_deg!r}: expected >= 0 deg")
-    if knock_share is not None and not 0.0 <= knock_share < 1.0:
-        raise ConfigError(f"--knock-share {knock_share!r}: expected a number in [0, 1)")
+    if knock_min_unburned is not None and not 0.0 <= knock_min_unburned < 1.0:
+        raise ConfigError(f"--knock-min-unburned {knock_min_unburned!r}: expected a number in [0, 1)")
     for name, v in (("--pmax-limit", p_max_limit_bar), ("--dp-limit", dp_limit_bar_per_deg)):
         if v is not None and not v > 0:
             raise ConfigError(f"{name} {v!r}: expected a positive number")
@@ -559,7 +560,7 @@ def spark_study(
     # limits ---------------------------------------------------------------
     sub = SweepResult(rows=[table.rows[i] for i in okidx], columns=table.columns,
                       results=[table.results[i] for i in okidx], keys=table.keys)
-    _knock(st, sub, adv_s, np.ones(len(okidx), bool), knock_share)
+    _knock(st, sub, adv_s, np.ones(len(okidx), bool), knock_min_unburned)
     st.pmax_limited_deg, p_status = _limit(st, "peak pressure", "p_max_bar", p_max_limit_bar, sub, adv_s)
     st.dp_limited_deg, dp_status = _limit(st, "pressure-rise rate", "dp_dtheta_max_bar_per_deg",
                                           dp_limit_bar_per_deg, sub, adv_s)
@@ -642,9 +643,10 @@ def plot_spark_study(st: SparkStudy, out: Path, traces: int = 8) -> list[Path]:
     if st.knock_limited_deg is not None:
         ax.axvline(st.knock_limited_deg, color="tab:red", ls="-.", lw=1, label=f"knock limit {st.knock_limited_deg:.1f}")
     if st.recommended_deg is not None:
-        ax.axvline(st.recommended_deg, color="tab:orange", lw=1.6, label=f"recommended {st.recommended_deg:.1f}")
+        ax.axvline(st.recommended_deg, color="tab:orange", lw=4, alpha=0.35, zorder=1,
+                   label=f"recommended {st.recommended_deg:.1f}")
     ax.set_xlabel("spark advance [deg BTDC]")
-    ax.set_ylabel(f"{st.torque_key.replace('_', ' ')} [{unit}]")
+    ax.set_ylabel(f"{_LABELS.get(st.torque_key, st.torque_key)} [{unit}]")
     ax.set_title(f"{st.base_config}: torque vs spark advance")
     ax.legend(fontsize=8)
     files.append(_save(fig, out / "spark_torque.png"))

@@ -1,0 +1,127 @@
+"""Speed and accuracy figures of cyclesim on the built-in demo, printed as JSON.
+
+    python benchmarks/run.py            # everything (several minutes on 2 cores)
+    python benchmarks/run.py --quick    # the cheap figures only
+
+Each timing is the median of ``--repeat`` runs, in-process unless named
+otherwise.  Targets (2-core machine) are printed beside the figures.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import statistics
+import subprocess
+import sys
+import time
+
+TARGETS = {
+    "one_point_s": 1.0,
+    "spark_sweep_41_s": 3.0,
+    "grid_1000_s": 15.0,
+    "batch100_per_case_ratio": 1 / 20,
+    "closed_cycle_per_case_41_ms": 0.5,
+    "traces_300_independent_s": 3.0,
+    "traces_300_coupled_s": 60.0,
+    "import_s": 0.5,
+    "cli_run_s": 3.0,
+}
+
+
+def timed(fn, repeat=1):
+    ts = []
+    out = None
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        out = fn()
+        ts.append(time.perf_counter() - t0)
+    return statistics.median(ts), out
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--quick", action="store_true", help="skip the 1000-case grid and the 300-cycle sets")
+    ap.add_argument("--repeat", type=int, default=3)
+    args = ap.parse_args(argv)
+    res: dict = {"machine": {"cpus": os.cpu_count(), "python": sys.version.split()[0]}}
+
+    t0 = time.perf_counter()
+    subprocess.run([sys.executable, "-c", "import cyclesim"], check=True)
+    code = "import time; t=time.perf_counter(); import cyclesim, cyclesim.api; print(time.perf_counter()-t)"
+    imp = [float(subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout)
+           for _ in range(args.repeat)]
+    res["import_s"] = statistics.median(imp)
+    mpl = subprocess.run([sys.executable, "-c", "import sys, cyclesim.api; print('matplotlib' in sys.modules)"],
+                         capture_output=True, text=True).stdout.strip()
+    res["import_loads_matplotlib"] = mpl == "True"
+
+    import numpy as np
+
+    import cyclesim
+    from cyclesim.config import load_config
+
+    base = load_config("demo")
+    cyclesim.simulate([base])  # warm caches (gas tables)
+    res["one_point_s"], one = timed(lambda: cyclesim.simulate([base])[0], args.repeat)
+    res["one_point_cycles"] = one.summary["cycles_to_converge"]
+
+    spark = [load_config("demo", [f"burn.spark_advance_deg={a}"]) for a in range(0, 41)]
+    res["spark_sweep_41_s"], _ = timed(lambda: cyclesim.simulate(spark), 1)
+
+    closed1 = load_config("demo_closed")
+    closed41 = [load_config("demo_closed", [f"burn.spark_advance_deg={a}"]) for a in range(0, 41)]
+    cyclesim.simulate([closed1])
+    t41, _ = timed(lambda: cyclesim.simulate(closed41), args.repeat)
+    res["closed_cycle_per_case_41_ms"] = 1e3 * t41 / 41
+
+    b100 = [load_config("demo", [f"burn.spark_advance_deg={10 + 0.2 * i}"]) for i in range(100)]
+    t100, _ = timed(lambda: cyclesim.simulate(b100), 1)
+    res["batch100_per_case_ratio"] = (t100 / 100) / res["one_point_s"]
+
+    # accuracy against a tenfold finer step
+    fine = cyclesim.simulate([load_config("demo", ["simulation.step_deg=0.05"])])[0].summary
+    coarse = one.summary
+    res["accuracy_vs_10x_finer"] = {
+        "imep_net_rel": abs(coarse["imep_net_bar"] / fine["imep_net_bar"] - 1),
+        "p_max_rel": abs(coarse["p_max_bar"] / fine["p_max_bar"] - 1),
+        "ca10_deg": abs(coarse["ca10_deg"] - fine["ca10_deg"]),
+        "ca50_deg": abs(coarse["ca50_deg"] - fine["ca50_deg"]),
+        "ca90_deg": abs(coarse["ca90_deg"] - fine["ca90_deg"]),
+        "theta_pmax_deg": abs(coarse["theta_pmax_deg"] - fine["theta_pmax_deg"]),
+        "pmep_bar": abs(coarse["pmep_bar"] - fine["pmep_bar"]),
+        "targets": {"imep_net_rel": 5e-4, "p_max_rel": 5e-4, "angles_deg": 0.05, "pmep_bar": 0.005},
+    }
+
+    if not args.quick:
+        grid = [load_config("demo", [f"operating.speed_rpm={n}", f"operating.intake_pressure_bar={p}",
+                                     f"burn.spark_advance_deg={a}"])
+                for n in np.linspace(1500, 6000, 10) for p in np.linspace(0.4, 1.0, 10)
+                for a in np.linspace(10, 40, 10)]
+        res["grid_1000_s"], _ = timed(lambda: cyclesim.simulate(grid), 1)
+        try:
+            from cyclesim.traces.synthesis import CycleVariation, synthesize
+
+            res["traces_300_independent_s"], _ = timed(
+                lambda: synthesize(base, 300, CycleVariation(), resolution_deg=0.1), 1)
+            res["traces_300_coupled_s"], _ = timed(
+                lambda: synthesize(base, 300, CycleVariation(coupled=True), resolution_deg=0.1), 1)
+        except ImportError as exc:
+            res["traces_error"] = str(exc)
+
+    t_cli = []
+    for _ in range(args.repeat):
+        t0 = time.perf_counter()
+        subprocess.run([sys.executable, "-m", "cyclesim", "run", "demo"], capture_output=True, check=True)
+        t_cli.append(time.perf_counter() - t0)
+    res["cli_run_s"] = statistics.median(t_cli)
+    res["peak_memory_MB"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    res["targets"] = TARGETS
+    res["meets"] = {k: (res[k] <= v) for k, v in TARGETS.items() if k in res}
+    print(json.dumps(res, indent=2))
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,1 @@
+"""Synthetic measured cylinder-pressure traces: measurement artefacts, files, reference analyser."""
