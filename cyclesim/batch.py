@@ -42,6 +42,9 @@ def batch_key(case: Case, registry) -> tuple:
                 parts.append((sec, p.name, _freeze(getattr(ns, p.name))))
     if case.simulation.mode == "closed":
         parts.append(("closed", case.valves.ivc_deg, case.valves.evo_deg))
+    from .config import effective_step_deg
+
+    parts.append(("step", effective_step_deg(case.simulation, case.operating.speed_rpm)))
     for role in ROLES:
         ch = case.submodels[role]
         cls = registry.submodel_class(role, ch.model)

@@ -48,8 +48,10 @@ def build_parser() -> argparse.ArgumentParser:
     sh.add_argument("config", nargs="?", default="demo")
     _common(sh)
     from .cli_studies import add_parsers
+    from .cli_traces import add_parsers as add_trace_parsers
 
     add_parsers(sub)
+    add_trace_parsers(sub)
     return ap
 
 
@@ -139,8 +141,10 @@ def main(argv: list[str] | None = None) -> int:
         return 0
     handlers = {"run": cmd_run, "plugins": cmd_plugins, "configs": cmd_configs, "show": cmd_show}
     from .cli_studies import HANDLERS
+    from .cli_traces import HANDLERS as TRACE_HANDLERS
 
     handlers.update(HANDLERS)
+    handlers.update(TRACE_HANDLERS)
     try:
         return handlers[args.command](args)
     except CyclesimError as exc:

@@ -126,7 +126,7 @@ class _RHS:
         self._all_closed = np.ones(self.B, dtype=bool)
         # smoothing mass of the port buffer [kg]: large enough that the buffer's drain
         # is not stiff at the step, small against the trapped mass
-        self._buf_scale = 2e-3 * batch.geometry.Vd * 1.1 * np.ones(self.B)
+        self._buf_scale = 1e-2 * batch.geometry.Vd * 1.1 * np.ones(self.B)
         self._dh298 = np.asarray(self.gas.h298_u - self.gas.h298_b, float) * np.ones(self.B)
 
     def plenums(self, theta: float, sub):
@@ -381,7 +381,9 @@ def _initial_state(batch, rhs: _RHS, theta0: float, mode: str) -> np.ndarray:
 
 def grid_for(batch, mode: str) -> np.ndarray:
     """Crank grid [deg] of one cycle: -360..360 (full) or IVC..EVO (closed)."""
-    h = float(batch.simulation.step_deg)
+    from .config import effective_step_deg
+
+    h = effective_step_deg(batch.simulation, float(batch.operating.speed_rpm[0]))
     if mode == "full":
         n = max(int(round(720.0 / h)), 8)
         return np.linspace(-360.0, 360.0, n + 1)

@@ -13,6 +13,7 @@ from cyclesim import hookimpl
 
 _MODULES = (
     "wiebe",
+    "flame_burn",
     "heat_transfer",
     "ring_leakage",
     "valve_flow",

@@ -276,6 +276,67 @@ def _first_order_highpass(x, dt, tau):
 
 
 # --------------------------------------------------------------------------- the chain
+def _time_and_angle_chain(sig, theta, closed, shape, dt, fs, s, rng, truth, T, wall_heat_rate):
+    """Steps 2-6 on the cycles joined end to end; fills ``truth``; returns rows (n_cycles, n)."""
+    nc = shape[0]
+    stream = _to_stream(sig, closed)
+
+    # 2. passage resonance -------------------------------------------------
+    if s.passage_frequency_hz:
+        stream = _second_order_lowpass(stream, fs, s.passage_frequency_hz, s.passage_damping)
+    truth["passage_frequency_hz"] = float(s.passage_frequency_hz)
+    truth["passage_damping"] = float(s.passage_damping) if s.passage_frequency_hz else 0.0
+
+    # 3. thermal drift -----------------------------------------------------
+    therm = np.zeros_like(stream)
+    if wall_heat_rate is not None and s.thermal_drift_bar_per_kW:
+        q = _to_stream(_as_2d(wall_heat_rate, shape, "wall_heat_rate"), closed)
+        therm = -s.thermal_drift_bar_per_kW * BAR * q / 1000.0
+    elif T is not None and s.thermal_drift_bar_per_K:
+        Tq = _to_stream(_as_2d(T, shape, "T"), closed)
+        therm = -s.thermal_drift_bar_per_K * BAR * (Tq - s.thermal_wall_temperature_K)
+    if np.any(therm) and s.thermal_time_constant_s:
+        therm = _first_order_lowpass(therm, dt, s.thermal_time_constant_s)
+    stream = stream + therm
+    th_rows = _from_stream(therm, shape, closed)
+    truth["thermal_error_min_bar"] = th_rows.min(axis=1) / BAR
+    truth["thermal_error_mean_bar"] = th_rows.mean(axis=1) / BAR
+
+    # 4. gain ----------------------------------------------------------------
+    stream = stream * (1.0 + s.gain_error)
+    truth["gain_error"] = float(s.gain_error)
+
+    # 5. charge-amplifier high-pass ---------------------------------------
+    hp_err = np.zeros_like(stream)
+    if s.highpass_tau_s:
+        y = _first_order_highpass(stream, dt, s.highpass_tau_s)
+        hp_err = y - stream
+        stream = y
+    hp_rows = _from_stream(hp_err, shape, closed)
+    truth["highpass_tau_s"] = float(s.highpass_tau_s)
+    truth["highpass_error_mean_bar"] = hp_rows.mean(axis=1) / BAR
+    truth["highpass_error_start_bar"] = hp_rows[:, 0] / BAR
+
+    # 6. angle labelling ---------------------------------------------------
+    jit_rms = np.zeros(nc)
+    if s.tdc_offset_deg or s.encoder_jitter_deg:
+        from scipy.interpolate import CubicSpline
+
+        alpha = _stream_angle(theta, nc, closed)
+        err = np.full(alpha.shape, -float(s.tdc_offset_deg))
+        if s.encoder_jitter_deg:
+            jit = s.encoder_jitter_deg * rng.standard_normal(alpha.size)
+            err = err + jit
+            jit_rows = _from_stream(jit, shape, closed)
+            jit_rms = np.sqrt(np.mean(jit_rows**2, axis=1))
+        stream = CubicSpline(alpha, stream)(alpha + err)
+    truth["tdc_offset_deg"] = float(s.tdc_offset_deg)
+    truth["encoder_jitter_rms_deg"] = jit_rms
+
+    meas = _from_stream(stream, shape, closed)
+    return meas
+
+
 def apply_artefacts(
     P_true,
     theta,
@@ -394,61 +455,24 @@ def apply_artefacts(
     truth["knock_mode_frequency_at_onset_hz"] = f_onset
     truth["knock_modes"] = [list(m) for m in KNOCK_MODES]
 
-    stream = _to_stream(sig, closed)
-
-    # 2. passage resonance -------------------------------------------------
-    if s.passage_frequency_hz:
-        stream = _second_order_lowpass(stream, fs, s.passage_frequency_hz, s.passage_damping)
+    thermal_on = bool((wall_heat_rate is not None and s.thermal_drift_bar_per_kW)
+                      or (T is not None and s.thermal_drift_bar_per_K))
+    timed = bool(s.passage_frequency_hz or thermal_on or s.highpass_tau_s
+                 or s.tdc_offset_deg or s.encoder_jitter_deg)
     truth["passage_frequency_hz"] = float(s.passage_frequency_hz)
     truth["passage_damping"] = float(s.passage_damping) if s.passage_frequency_hz else 0.0
-
-    # 3. thermal drift -----------------------------------------------------
-    therm = np.zeros_like(stream)
-    if wall_heat_rate is not None and s.thermal_drift_bar_per_kW:
-        q = _to_stream(_as_2d(wall_heat_rate, shape, "wall_heat_rate"), closed)
-        therm = -s.thermal_drift_bar_per_kW * BAR * q / 1000.0
-    elif T is not None and s.thermal_drift_bar_per_K:
-        Tq = _to_stream(_as_2d(T, shape, "T"), closed)
-        therm = -s.thermal_drift_bar_per_K * BAR * (Tq - s.thermal_wall_temperature_K)
-    if np.any(therm) and s.thermal_time_constant_s:
-        therm = _first_order_lowpass(therm, dt, s.thermal_time_constant_s)
-    stream = stream + therm
-    th_rows = _from_stream(therm, shape, closed)
-    truth["thermal_error_min_bar"] = th_rows.min(axis=1) / BAR
-    truth["thermal_error_mean_bar"] = th_rows.mean(axis=1) / BAR
-
-    # 4. gain ----------------------------------------------------------------
-    stream = stream * (1.0 + s.gain_error)
     truth["gain_error"] = float(s.gain_error)
-
-    # 5. charge-amplifier high-pass ---------------------------------------
-    hp_err = np.zeros_like(stream)
-    if s.highpass_tau_s:
-        y = _first_order_highpass(stream, dt, s.highpass_tau_s)
-        hp_err = y - stream
-        stream = y
-    hp_rows = _from_stream(hp_err, shape, closed)
     truth["highpass_tau_s"] = float(s.highpass_tau_s)
-    truth["highpass_error_mean_bar"] = hp_rows.mean(axis=1) / BAR
-    truth["highpass_error_start_bar"] = hp_rows[:, 0] / BAR
-
-    # 6. angle labelling ---------------------------------------------------
-    jit_rms = np.zeros(nc)
-    if s.tdc_offset_deg or s.encoder_jitter_deg:
-        from scipy.interpolate import CubicSpline
-
-        alpha = _stream_angle(theta, nc, closed)
-        err = np.full(alpha.shape, -float(s.tdc_offset_deg))
-        if s.encoder_jitter_deg:
-            jit = s.encoder_jitter_deg * rng.standard_normal(alpha.size)
-            err = err + jit
-            jit_rows = _from_stream(jit, shape, closed)
-            jit_rms = np.sqrt(np.mean(jit_rows**2, axis=1))
-        stream = CubicSpline(alpha, stream)(alpha + err)
     truth["tdc_offset_deg"] = float(s.tdc_offset_deg)
-    truth["encoder_jitter_rms_deg"] = jit_rms
-
-    meas = _from_stream(stream, shape, closed)
+    zero = np.zeros(nc)
+    truth.update(thermal_error_min_bar=zero.copy(), thermal_error_mean_bar=zero.copy(),
+                 highpass_error_mean_bar=zero.copy(), highpass_error_start_bar=zero.copy(),
+                 encoder_jitter_rms_deg=zero.copy())
+    if not timed:
+        # no time-domain or angle artefact: work row by row (no joining of cycles)
+        meas = sig * (1.0 + s.gain_error)
+    else:
+        meas = _time_and_angle_chain(sig, theta, closed, shape, dt, fs, s, rng, truth, T, wall_heat_rate)
 
     # 7. offset -----------------------------------------------------------
     off = s.offset_mean_bar + s.offset_sd_bar * rng.standard_normal(nc) if s.offset_sd_bar else \
@@ -485,7 +509,6 @@ def apply_artefacts(
         if s.intake_noise_bar:
             p_int = p_int + s.intake_noise_bar * BAR * rng.standard_normal(shape)
     truth["intake_noise_bar"] = float(s.intake_noise_bar)
-    truth["settings"] = s.as_dict()
     if single:
         meas = meas[0]
         p_int = None if p_int is None else p_int[0]
@@ -556,7 +579,7 @@ def decimate_to(theta_fine, P, step_deg: float | None = None, sample_rate_hz: fl
     h = signal.firwin(numtaps, 0.9 / qi, window=("kaiser", beta))
     s = _to_stream(X, closed)
     padlen = min(3 * numtaps, s.size - 1)
-    y = signal.filtfilt(h, [1.0], s, padtype="even", padlen=padlen)
+    y = signal.filtfilt(h, [1.0], s, padtype="odd", padlen=padlen)
     y = y[::qi]
     th_out = th[::qi]
     out = _from_stream(y, (X.shape[0], th_out.size), closed)

@@ -1,0 +1,194 @@
+"""Command line of the trace tools: ``cyclesim traces`` (synthesis) and ``cyclesim analyse``."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from .errors import CyclesimError
+
+__all__ = ["add_parsers", "cmd_analyse", "cmd_traces", "analysis_inputs", "HANDLERS"]
+
+
+def add_parsers(subparsers) -> None:
+    """Add the ``traces`` and ``analyse`` sub-commands to an ``argparse`` sub-parser set."""
+    t = subparsers.add_parser(
+        "traces", help="synthetic cylinder-pressure cycles with variation, measurement flaws and ground truth")
+    t.add_argument("config", nargs="?", default="demo", help="config file or built-in name (default: demo)")
+    t.add_argument("--cycles", type=int, default=100, help="number of consecutive cycles (default 100)")
+    t.add_argument("--out", type=Path, required=True, help="folder for the trace files and the truth")
+    g = t.add_mutually_exclusive_group()
+    g.add_argument("--resolution", type=float, default=0.5, metavar="DEG",
+                   help="crank-angle resolution of the output [deg] (default 0.5)")
+    g.add_argument("--sample-rate", type=float, metavar="HZ", help="sample in time at this rate instead")
+    t.add_argument("--start-sd", type=float, default=1.5, metavar="DEG",
+                   help="spread (sd) of the burn start / ignition delay [deg] (default 1.5)")
+    t.add_argument("--duration-cov", type=float, default=0.08, help="relative spread of the burn duration (0.08)")
+    t.add_argument("--efficiency-sd", type=float, default=0.004, help="spread of the combustion efficiency (0.004)")
+    t.add_argument("--partial-rate", type=float, default=0.0, help="share of partial burns (default 0)")
+    t.add_argument("--misfire-rate", type=float, default=0.0, help="share of misfires (default 0)")
+    t.add_argument("--coupled", action="store_true", help="couple cycles through their residual gas")
+    t.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
+    t.add_argument("--artefacts", choices=("default", "none"), default="default",
+                   help="measurement flaws: a realistic default set, or none (true pressure)")
+    t.add_argument("--formats", default="csv_long,csv_wide,npz,mf4",
+                   help="comma list of csv_long, csv_wide, npz, mf4 (default: all)")
+    t.add_argument("--force", action="store_true", help="write into a non-empty --out folder")
+    t.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
+                   help="override any config value (repeatable)")
+    t.add_argument("--debug", action="store_true", help="show tracebacks")
+
+    a = subparsers.add_parser(
+        "analyse", help="analyse a measured cylinder-pressure trace set (IMEP, pegging, heat release, burn points)"
+    )
+    a.add_argument("file", type=Path, help="trace file: .csv (long or wide), .npz or .mf4")
+    a.add_argument("--engine", required=True,
+                   help="config (path or built-in name) giving geometry, valve events, walls and speed")
+    a.add_argument("--out", type=Path, required=True, help="write the analysis files here")
+    a.add_argument("--peg", choices=("intake", "polytropic"), default="intake",
+                   help="pegging: to intake-manifold pressure near intake BDC (default) or two-point polytropic")
+    a.add_argument("--tdc-correct", action="store_true",
+                   help="estimate the TDC offset from motored cycles (in FILE or --motored) and correct it")
+    a.add_argument("--motored", type=Path, help="a motored trace set of the same recording, for --tdc-correct")
+    a.add_argument("--force", action="store_true", help="write into a non-empty --out folder")
+    a.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
+                   help="override a value of the engine config (repeatable)")
+    a.add_argument("--debug", action="store_true", help="show tracebacks")
+
+
+def analysis_inputs(case):
+    """Geometry and analyser settings from a config's engine, valves, walls and operating sections.
+
+    Returns
+    -------
+    (cyclesim.geometry.Geometry, cyclesim.traces.analysis.AnalysisSettings, speed_rpm [rpm])
+    """
+    from .geometry import Geometry
+    from .traces.analysis import AnalysisSettings
+
+    e, v, w, op = (case.section(n) for n in ("engine", "valves", "walls", "operating"))
+    g = Geometry(e.bore_mm / 1000.0, e.stroke_mm / 1000.0, e.conrod_mm / 1000.0, e.compression_ratio,
+                 pin_offset_m=e.pin_offset_mm / 1000.0, head_area_factor=e.head_area_factor,
+                 piston_area_factor=e.piston_area_factor)
+    hf, pf = e.head_area_factor, e.piston_area_factor
+    t_wall = (hf * w.head_temperature_K + pf * w.piston_temperature_K) / (hf + pf)
+    s = AnalysisSettings(ivc_deg=float(v.ivc_deg), evo_deg=float(v.evo_deg),
+                         T_ivc_K=float(op.ivc_temperature_K), tdc_wall_temperature_K=float(t_wall),
+                         bore_m=e.bore_mm / 1000.0)
+    return g, s, float(op.speed_rpm)
+
+
+def cmd_analyse(args) -> int:
+    """Handler of ``cyclesim analyse``: read, analyse, print the set figures, write files."""
+    import math
+
+    from .config import load_config
+    from .output import prepare_out_dir
+    from .traces.analysis import analyse, write_analysis
+    from .traces.export import read_trace
+
+    case = load_config(args.engine, list(getattr(args, "overrides", []) or []))
+    geom, settings, speed = analysis_inputs(case)
+    ts = read_trace(args.file)
+    if not math.isfinite(ts.speed_rpm):
+        ts.speed_rpm = speed
+    motored = None
+    if getattr(args, "motored", None):
+        motored = read_trace(args.motored)
+        if not math.isfinite(motored.speed_rpm):
+            motored.speed_rpm = speed
+    settings = settings.replace(peg=args.peg, tdc_correct=bool(args.tdc_correct))
+    prepare_out_dir(args.out, getattr(args, "force", False))
+    res = analyse(ts, geom, settings, motored=motored)
+    st = res.stats
+
+    def f(key, spec=".2f"):
+        v = st.get(key)
+        return "-" if v is None or not math.isfinite(v) else format(v, spec)
+
+    print(f"{args.file}: {st['n_cycles']} cycles ({st['n_fired']} fired), {ts.speed_rpm:g} rpm, peg {args.peg}")
+    if res.tdc["estimated"]:
+        print(f"  TDC offset found and corrected     {res.tdc['offset_deg']:+.2f} deg"
+              f" (loss angle {res.tdc['loss_angle_deg']:.2f} deg, {res.tdc['n_motored']} motored cycles)")
+    print(f"  net IMEP (mean, COV)               {f('imep_net_bar_mean')} bar, {100 * st['imep_net_cov']:.2f} %"
+          if math.isfinite(st["imep_net_cov"]) else f"  net IMEP (mean)                    {f('imep_net_bar_mean')} bar")
+    print(f"  gross IMEP                         {f('imep_gross_bar_mean')} bar")
+    print(f"  peg offset (mean)                  {f('peg_offset_bar_mean', '.3f')} bar")
+    print(f"  CA10 / CA50 / CA90                 {f('ca10_deg_mean', '.1f')} / {f('ca50_deg_mean', '.1f')}"
+          f" / {f('ca90_deg_mean', '.1f')} deg")
+    print(f"  peak pressure at angle             {f('p_max_bar_mean', '.1f')} bar at {f('theta_pmax_deg_mean', '.1f')} deg")
+    print(f"  polytropic n compression/expansion {f('n_compression_mean', '.3f')} / {f('n_expansion_mean', '.3f')}")
+    files = write_analysis(res, args.out)
+    print(f"wrote {len(files)} files to {args.out}/: " + ", ".join(p.name for p in files))
+    return 0
+
+
+def cmd_traces(args) -> int:
+    """Handler of ``cyclesim traces``: synthesise, write traces in each format and the truth."""
+    import time
+
+    from .config import load_config
+    from .output import CAUTION, prepare_out_dir
+    from .traces import artefacts as art
+    from .traces.export import TraceSet, write_trace_set, write_truth
+    from .traces.synthesis import CycleVariation, synthesize
+
+    t0 = time.perf_counter()
+    case = load_config(args.config, list(args.overrides))
+    formats = [f.strip() for f in args.formats.split(",") if f.strip()]
+    from .traces.export import FORMATS
+
+    for f in formats:
+        if f not in FORMATS:
+            from .params import suggestion
+
+            raise CyclesimError(f"--formats {f!r}: unknown" + suggestion(f, FORMATS) + f"; choose from {', '.join(FORMATS)}")
+    if "mf4" in formats:
+        try:
+            import asammdf  # noqa: F401
+        except ImportError as exc:
+            raise CyclesimError('--formats mf4 needs the optional MDF extra: pip install "cyclesim[mdf]"') from exc
+    prepare_out_dir(args.out, args.force)
+    var = CycleVariation(start_sd_deg=args.start_sd, duration_cov=args.duration_cov,
+                         efficiency_sd=args.efficiency_sd, partial_burn_rate=args.partial_rate,
+                         misfire_rate=args.misfire_rate, coupled=args.coupled, seed=args.seed)
+    settings = art.ArtefactSettings.default() if args.artefacts == "default" else art.ArtefactSettings.none()
+    ss = synthesize(case, args.cycles, var, resolution_deg=None if args.sample_rate else args.resolution,
+                    sample_rate_hz=args.sample_rate, artefacts=settings)
+    meta = dict(ss.meta, caution=CAUTION)
+    ts = TraceSet(ss.theta, ss.pressure_pa, ss.intake_pa, ss.meta["speed_rpm"], meta)
+    files = write_trace_set(ts, args.out, "trace", formats)
+    truth_ts = TraceSet(ss.theta, ss.pressure_true_pa, None, ss.meta["speed_rpm"], dict(meta, signal="true pressure"))
+    files += write_trace_set(truth_ts, args.out, "true_pressure", [f for f in formats if f == "npz"] or ["npz"])
+    files += write_truth(args.out, ss.truth, ss.stats)
+    st = ss.stats
+    print(f"{case.name}: {st['n_cycles']} cycles ({'coupled' if args.coupled else 'independent'}),"
+          f" {ss.meta['resolution_deg']:g} deg output, seed {args.seed}")
+    print(f"  net IMEP mean {st['imep_net_mean_bar']:.3f} bar, COV {100 * st['cov_imep_net']:.2f} %")
+    print(f"  CA50 mean {st.get('ca50_mean_deg', float('nan')):.2f} deg; knocking share {100 * st['knocking_share']:.1f} %,"
+          f" misfires {100 * st['misfire_share']:.1f} %, partial burns {100 * st['partial_burn_share']:.1f} %")
+    print(f"wrote {len(files)} files to {args.out}/ in {time.perf_counter() - t0:.1f} s: "
+          + ", ".join(p.name for p in files))
+    return 0
+
+
+HANDLERS = {"traces": cmd_traces, "analyse": cmd_analyse}
+
+
+def _standalone(argv=None) -> int:  # pragma: no cover - used until cli.py hooks this in
+    import sys
+
+    ap = argparse.ArgumentParser(prog="cyclesim")
+    add_parsers(ap.add_subparsers(dest="command", required=True))
+    args = ap.parse_args(argv)
+    try:
+        return cmd_analyse(args)
+    except CyclesimError as exc:
+        if args.debug:
+            raise
+        print(f"cyclesim: error: {exc}", file=sys.stderr)
+        return exc.exit_code
+
+
+if __name__ == "__main__":  # pragma: no cover
+    raise SystemExit(_standalone())
