@@ -42,6 +42,32 @@ def _common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--debug", action="store_true", help="show tracebacks")
 
 
+def _workers_arg(text: str):
+    from .errors import ConfigError
+    from .parallel import parse_workers
+
+    try:
+        return parse_workers(text)
+    except ConfigError:
+        raise argparse.ArgumentTypeError(f"expected a whole number >= 1 or 'auto', got {text!r}") from None
+
+
+def _parallel_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--workers", type=_workers_arg, default=None, metavar="N|auto",
+                   help="worker processes for the chunks; auto: one per CPU, at most one per chunk"
+                        " (default: 1 up to 64 cases, auto above)")
+    p.add_argument("--backend", choices=("process", "dask", "serial"), default=None,
+                   help="run the chunks in processes on this machine (default when more than one"
+                        " worker) or on a Dask cluster (needs the dask extra)")
+    p.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="Dask scheduler address for --backend dask (default: a local cluster of"
+                        " --workers processes)")
+
+
+def _where(args) -> dict:
+    return {"workers": args.workers, "backend": args.backend, "scheduler": args.scheduler}
+
+
 def add_parsers(subparsers) -> None:
     """Add the ``sweep`` and ``spark`` subcommands to an argparse subparsers object."""
     s = subparsers.add_parser(
@@ -55,6 +81,7 @@ def add_parsers(subparsers) -> None:
     s.add_argument("--paired", action="store_true",
                    help="one case per position of the value lists (equal lengths) instead of the grid")
     _common(s)
+    _parallel_options(s)
 
     k = subparsers.add_parser(
         "spark", help="spark-advance study: MBT, least advance within a torque fraction, limits",
@@ -74,6 +101,7 @@ def add_parsers(subparsers) -> None:
                    help="limit of the largest pressure-rise rate [bar/deg]")
     k.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
     _common(k)
+    _parallel_options(k)
 
 
 def _progress(args):
@@ -88,7 +116,7 @@ def cmd_sweep(args) -> int:
     t0 = time.perf_counter()
     res = sweep(args.config, vary, paired=args.paired, out=args.out, resume=args.resume,
                 chunk_size=args.chunk, progress=_progress(args), force=args.force,
-                overrides=args.overrides)
+                overrides=args.overrides, **_where(args))
     n, nf = len(res.rows), len(res.failed)
     print(f"{n} cases, {n - nf} ok, {nf} failed, in {time.perf_counter() - t0:.1f} s")
     for r in res.rows:
@@ -107,7 +135,7 @@ def cmd_spark(args) -> int:
                      torque_fraction=args.torque_fraction, knock_margin_deg=args.knock_margin,
                      p_max_limit_bar=args.pmax_limit, dp_limit_bar_per_deg=args.dp_limit,
                      knock_min_unburned=args.knock_min_unburned, resume=args.resume, force=args.force,
-                     chunk_size=args.chunk, progress=_progress(args), plots=not args.no_plots)
+                     chunk_size=args.chunk, progress=_progress(args), plots=not args.no_plots, **_where(args))
     print(st.text())
     print(f"simulated in {time.perf_counter() - t0:.1f} s")
     print(f"wrote {len(st.files)} files to {args.out}/: " + ", ".join(Path(f).name for f in st.files))

@@ -91,7 +91,7 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
           kind="choice", choices=("full", "closed"), sweepable=False),
         P("step_deg", "deg", 0.5, "integration step (fixed-step 4th-order Runge-Kutta)", 0.01, 5, sweepable=False),
         P("step_reference_rpm", "rpm", 3000.0,
-          "full mode: below this speed the step shrinks with the square of the speed (in powers of 2),"
+          "full mode: below this speed the step shrinks as speed^1.5 (in powers of 2),"
           " because valve flow near equal pressures is stiffer at low speed; 0 = fixed step",
           0, 30000, sweepable=False),
         P("output_step_deg", "deg", 0.0, "trace output spacing (0 = the integration step; finer is interpolated)",
@@ -344,17 +344,19 @@ def effective_step_deg(sim, speed_rpm: float) -> float:
     """Integration step [deg] of a full-cycle case.
 
     Below ``step_reference_rpm`` the step is ``step_deg / 2**k`` with the least
-    ``k`` such that ``2**k >= (ref / speed)**2``.  The fastest mode of the gas
+    ``k`` such that ``2**k >= (ref / speed)**1.5``.  The fastest mode of the gas
     exchange (cylinder and port pressures equalising across an open valve while
-    the piston moves slowly) has a rate per crank degree that grows roughly with
-    1/speed^2, so a fixed explicit step that is accurate at mid speed is not at
-    idle.  Powers of 2 keep the cases of a speed sweep in few batches.
+    the piston moves slowly) has a rate per crank degree that grows faster than
+    1/speed, so a fixed explicit step that is accurate at mid speed is not at
+    idle (measured on the demo: 0.5 deg gives 18 % error in net IMEP at 800 rpm;
+    this rule keeps it below 0.05 % at 800, 1200 and 3000 rpm).  Powers of 2
+    keep the cases of a speed sweep in few batches.
     """
     h = float(sim.step_deg)
     ref = float(getattr(sim, "step_reference_rpm", 0.0) or 0.0)
     if sim.mode != "full" or ref <= 0 or speed_rpm >= ref:
         return h
-    k = math.ceil(2.0 * math.log2(ref / float(speed_rpm)) - 1e-12)
+    k = math.ceil(1.5 * math.log2(ref / float(speed_rpm)) - 1e-12)
     return h / 2.0**k
 
 

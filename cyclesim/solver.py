@@ -191,7 +191,7 @@ class _RHS:
         out[:, bad] = 0.0
         return out
 
-    def __call__(self, theta: float, y: np.ndarray, geo: tuple) -> np.ndarray:
+    def __call__(self, theta: float, y: np.ndarray, geo: tuple, valves_open: bool = True) -> np.ndarray:
         V, dV, Ah, Ap, Al = geo
         m = y[0]
         T = y[1]
@@ -209,6 +209,7 @@ class _RHS:
         ncore = len(CORE)
         sub = {nm: y[ncore + i] for i, nm in enumerate(self.sub_names)}
         full = self.mode == "full"
+        flows = full and valves_open
         if full:
             pl = self.plenums(theta, sub)
             p_i, T_i, y_i, R_i, g_i, h_i = pl["int"]
@@ -237,7 +238,7 @@ class _RHS:
             Qw = self._shape(self.ht.heat_flow(s), "heat_transfer", "heat flow")
             stage = ("blowby", "mass_flow")
             mbb = np.maximum(self._shape(self.bb.mass_flow(s), "blowby", "mass flow"), 0.0)
-            if full:
+            if flows:
                 stage = ("valve_flow", "mass_flows")
                 mi, me = self.vf.mass_flows(s)
                 mi = self._shape(mi, "valve_flow", "intake mass flow")
@@ -271,7 +272,7 @@ class _RHS:
         dm_burn = eta * dxb / np.maximum(1.0 - eta * xb, 1e-6) * np.maximum(mu, 0.0)
         fbb = mbb * dt
         out = np.empty((self.n, B))
-        if full:
+        if flows:
             fi = mi * dt
             fe = me * dt
             inn = fi > 0
@@ -427,6 +428,15 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     def geo_at(j):
         return (Gc[0][j], Gc[1][j], Gc[2][j], Gc[3][j], Gc[4][j])
 
+    # where no valve of any case is open, the valve-flow terms are skipped
+    if mode == "full":
+        areas = batch.models["valve_flow"].flow_area(half)
+        op_ = (np.asarray(areas["intake"]) > 0).any(axis=0) | (np.asarray(areas["exhaust"]) > 0).any(axis=0)
+        op_ = op_ | np.roll(op_, 1) | np.roll(op_, -1)
+        open_at = [bool(v) for v in op_]
+    else:
+        open_at = [False] * (2 * N + 1)
+
     y = _initial_state(batch, rhs, theta[0], mode)
     if initial is not None:
         if initial.shape != y.shape:
@@ -456,12 +466,12 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
             ivc_row = np.full(B, -1)
             for i in range(N):
                 th = theta[i]
-                k1 = rhs(th, y, geo_at(2 * i))
+                k1 = rhs(th, y, geo_at(2 * i), open_at[2 * i])
                 Y[:, :, i] = y
                 F[:, :, i] = k1
-                k2 = rhs(th + 0.5 * h, y + (0.5 * h) * k1, geo_at(2 * i + 1))
-                k3 = rhs(th + 0.5 * h, y + (0.5 * h) * k2, geo_at(2 * i + 1))
-                k4 = rhs(th + h, y + h * k3, geo_at(2 * i + 2))
+                k2 = rhs(th + 0.5 * h, y + (0.5 * h) * k1, geo_at(2 * i + 1), open_at[2 * i + 1])
+                k3 = rhs(th + 0.5 * h, y + (0.5 * h) * k2, geo_at(2 * i + 1), open_at[2 * i + 1])
+                k4 = rhs(th + h, y + h * k3, geo_at(2 * i + 2), open_at[2 * i + 2])
                 y = y + (h / 6.0) * (k1 + 2.0 * (k2 + k3) + k4)
                 bad = ~(np.isfinite(y[0]) & np.isfinite(y[1]) & (y[0] > 0) & (y[1] > 50.0) & (y[1] < 8000.0))
                 bad &= rhs.alive
@@ -490,7 +500,7 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
                         _initial_sub(rhs, y, which=hit)
                         ivc_row = np.where(hit, i + 1, ivc_row)
             Y[:, :, N] = y
-            F[:, :, N] = rhs(theta[N], y, geo_at(2 * N))
+            F[:, :, N] = rhs(theta[N], y, geo_at(2 * N), open_at[2 * N])
             if progress is not None:
                 progress(cyc)
             if mode == "closed":

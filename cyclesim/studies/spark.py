@@ -458,6 +458,9 @@ def spark_study(
     progress=None,
     plots: bool = True,
     traces: int = 8,
+    workers: int | str | None = None,
+    backend: str | None = None,
+    scheduler: str | None = None,
 ) -> SparkStudy:
     """Sweep spark advance and read MBT, the flat top, knock and pressure limits.
 
@@ -489,6 +492,8 @@ def spark_study(
         With ``out``: write the PNG plots.
     traces : int
         Number of pressure traces overlaid in the trace plot.
+    workers, backend, scheduler
+        Where the cases run, as for :func:`cyclesim.studies.sweep.sweep`.
 
     Returns
     -------
@@ -514,7 +519,7 @@ def spark_study(
     if len(vals) < 3:
         raise ConfigError(f"--advance {advances!r}: at least 3 advances are needed to find MBT")
     table = sweep(case, [(KEY, vals)], out=out, resume=resume, force=force, chunk_size=chunk_size,
-                  progress=progress, label=label)
+                  progress=progress, label=label, workers=workers, backend=backend, scheduler=scheduler)
     table.metadata["overrides"] = list(overrides)
 
     tk = next((k for k in TORQUE_KEYS if k in table.columns and np.isfinite(table.column(k)).any()), None)

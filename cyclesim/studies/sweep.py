@@ -15,6 +15,14 @@ caution) is written at the end.  ``resume=True`` keeps the rows already in
 ``sweep.csv`` and runs only the missing cases, so an interrupted sweep
 continues where it stopped.  A case that fails (invalid value, solver
 failure) is recorded with its error message; the others go on.
+
+Chunks run on several cores (``workers=2``, ``workers="auto"``) or on a Dask
+cluster (``backend="dask"``, ``scheduler=ADDRESS``), see
+:mod:`cyclesim.parallel`.  By default a sweep of more than 64 cases to run
+uses one process per CPU (at most one per chunk), a smaller one runs in this
+process.  Rows are written as chunks finish, in whatever order they finish;
+the final ``sweep.csv`` and ``sweep.json`` are in case order and the same,
+bit for bit, as those of a serial run.
 """
 
 from __future__ import annotations
@@ -524,21 +532,10 @@ def _columns(keys: list[str], rows: Iterable[Mapping], start: Sequence[str] = ()
 
 
 def _simulate_chunk(cases: list[Case]) -> list:
-    from ..api import CaseResult, simulate
-    from ..config import flat_inputs
+    """One chunk in this process (kept for callers of the former helper)."""
+    from ..parallel import run_chunk
 
-    try:
-        return simulate(cases)
-    except CyclesimError:
-        if len(cases) == 1:
-            raise
-    out = []
-    for c in cases:   # a chunk that failed as a whole: case by case, so only the bad one is lost
-        try:
-            out.extend(simulate([c]))
-        except CyclesimError as exc:
-            out.append(CaseResult(name=c.name, inputs=flat_inputs(c), error=str(exc)))
-    return out
+    return run_chunk(cases)
 
 
 def sweep(
@@ -552,6 +549,9 @@ def sweep(
     force: bool = False,
     overrides: Sequence[str] = (),
     label: str | None = None,
+    workers: int | str | None = None,
+    backend: str | None = None,
+    scheduler: str | None = None,
 ) -> SweepResult:
     """Run a grid (or paired list) of cases built from one base config.
 
@@ -584,6 +584,19 @@ def sweep(
         ``key=value`` changes applied to a base given by path or name.
     label : str, optional
         Name of the base config for the metadata (default: the path or name).
+    workers : int, "auto" or None
+        Worker processes for the chunks (``"auto"``: one per CPU available,
+        at most one per chunk).  None: serial up to
+        :data:`cyclesim.parallel.AUTO_MIN_CASES` (64) cases to run, ``"auto"``
+        above.  ``1`` runs everything in this process.
+    backend : {"process", "dask", "serial"}, optional
+        Where the chunks run (see :mod:`cyclesim.parallel`); None: processes
+        on this machine when more than one worker results, Dask when a
+        ``scheduler`` is given.  The table is the same whichever runs it, bit
+        for bit: the chunks, hence the batches, do not change.
+    scheduler : str, optional
+        Address of a Dask scheduler (backend ``"dask"``); without it the dask
+        backend starts a local cluster of ``workers`` processes.
 
     Returns
     -------
@@ -633,6 +646,9 @@ def sweep(
     plan = _plan(values, paired)
     if chunk_size < 1:
         raise ConfigError(f"--chunk {chunk_size}: expected a whole number >= 1")
+    from ..parallel import plan_execution, run_chunks
+
+    plan_execution(len(plan), -(-len(plan) // chunk_size), workers, backend, scheduler)  # bad options fail here
 
     metadata = {
         "base_config": base_label,
@@ -660,14 +676,19 @@ def sweep(
             for name in (CSV_NAME, JSON_NAME):
                 if (out_path / name).exists():
                     (out_path / name).unlink()
+    start_columns = list(columns)
     todo = [i for i in range(len(plan)) if i not in rows]
+    n_chunks = -(-len(todo) // chunk_size)
+    how, n_workers = plan_execution(len(todo), n_chunks, workers, backend, scheduler)
     report, bar = _progress_fn(progress, len(plan))
     t0 = time.perf_counter()
     done = len(plan) - len(todo)
-    try:
-        if report is not None:
-            report(done, len(plan), 0.0)
-        for c0 in range(0, len(todo), chunk_size):
+    # chunk k -> (case indices, indices of the cases built, their rows); filled as chunks are drawn
+    pending: dict[int, tuple[list[int], list[int], dict[int, dict]]] = {}
+
+    def chunks():
+        """Cases of each chunk, built (and checked) only when a worker is ready for them."""
+        for k, c0 in enumerate(range(0, len(todo), chunk_size)):
             idx = todo[c0: c0 + chunk_size]
             new: dict[int, dict] = {}
             cases: list[Case] = []
@@ -680,23 +701,35 @@ def sweep(
                 except CyclesimError as exc:
                     row["error"] = str(exc)
                 new[i] = row
-            if cases:
-                for i, res in zip(run_idx, _simulate_chunk(cases)):
-                    results[i] = res
-                    row = new[i]
-                    if res.error:
-                        row["error"] = str(res.error)
-                    else:
-                        row.update(_flatten(res.summary))
-                    row["warnings"] = "; ".join(res.warnings)
-            rows.update(new)
-            columns = _columns(keys, new.values(), columns)
-            if sink is not None:
-                ordered = [rows[i] for i in sorted(rows)]
-                sink.add([new[i] for i in idx], ordered, columns)
-            done += len(idx)
-            if report is not None:
-                report(done, len(plan), time.perf_counter() - t0)
+            pending[k] = (idx, run_idx, new)
+            yield cases
+
+    def finished(k: int, chunk_results: list) -> None:
+        """Rows of one finished chunk: into the table, appended to sweep.csv, progress."""
+        nonlocal columns, done
+        idx, run_idx, new = pending.pop(k)
+        for i, res in zip(run_idx, chunk_results):
+            results[i] = res
+            row = new[i]
+            if res.error:
+                row["error"] = str(res.error)
+            else:
+                row.update(_flatten(res.summary))
+            row["warnings"] = "; ".join(res.warnings)
+        rows.update(new)
+        columns = _columns(keys, new.values(), columns)
+        if sink is not None:
+            ordered = [rows[i] for i in sorted(rows)]
+            sink.add([new[i] for i in idx], ordered, columns)
+        done += len(idx)
+        if report is not None:
+            report(done, len(plan), time.perf_counter() - t0)
+
+    try:
+        if report is not None:
+            report(done, len(plan), 0.0)
+        if todo:
+            run_chunks(chunks(), workers=n_workers, backend=how, on_result=finished, scheduler=scheduler)
     except KeyboardInterrupt:
         if bar is not None:
             bar.close()
@@ -711,8 +744,9 @@ def sweep(
     finally:
         if bar is not None:
             bar.close()
-    columns = _columns(keys, rows.values(), columns)
     ordered = [rows[i] for i in range(len(plan))]
+    # columns in case order (chunks may finish in any order when they run in parallel)
+    columns = _columns(keys, ordered, start_columns)
     for r in ordered:
         for c in columns:
             r.setdefault(c, None)

@@ -164,7 +164,8 @@ def _steady_state(case: Case, registry):
 def _run_cycles(cases: list[Case], registry, initial: np.ndarray):
     """One full cycle for each case from the given initial state(s); returns per-case pieces."""
     from ..batch import build_batch
-    from ..figures import compute_figures, derived_trace
+    from ..figures import compute_figures, derived_trace, output_trace
+    from ..roles import Submodel
     from ..solver import integrate
 
     batch = build_batch(cases, registry)
@@ -172,6 +173,10 @@ def _run_cycles(cases: list[Case], registry, initial: np.ndarray):
     tr = integrate(batch, initial=init, cycles=1)
     d = derived_trace(batch, tr)
     figs = compute_figures(batch, tr, d)
+    if any(m.__class__.figures is not Submodel.figures for m in batch.models.values()):
+        cols = output_trace(batch, tr, d, None)
+        for model in batch.models.values():
+            figs.update(model.figures(cols))
     return batch, tr, d, figs
 
 

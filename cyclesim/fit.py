@@ -1,0 +1,1389 @@
+"""Calibration: fit submodel parameters to measured cylinder-pressure traces.
+
+>>> from cyclesim.fit import fit
+>>> res = fit("demo", "trace.npz", ["burn.ignition_delay_deg", "burn.duration_deg",
+...                                 "operating.ivc_pressure_bar"])
+>>> print(res.text())
+>>> res.write("calibration")            # calibrated.yaml, calibration.json, plots
+
+The measured cycles are pegged and phased by the reference analyser
+(:mod:`cyclesim.traces.analysis`), averaged over the fired cycles
+(``ensemble="mean"``) or taken one by one (``ensemble="each"``), and the chosen
+parameters are fitted by bounded least squares to the residual
+
+    r_i = sqrt(w(theta_i)) (p_sim(theta_i) - p_meas(theta_i))       [bar]
+
+on the measurement's own crank grid (the simulated trace is written on a grid
+finer than the measurement's by Hermite interpolation and read at the
+measured angles by linear interpolation), and/or to the same difference of
+the *apparent* heat release, which the analyser computes from the simulated
+pressure exactly as from the measured one (same volume, same gamma(T), same
+IVC state), so that the analyser's simplifications cancel.  Heat-release
+residuals are divided by ``V_d x 1 bar`` so that they read in bar like the
+pressure residuals (J / (m^3 Pa) = bar-equivalent).
+
+Solver
+------
+A Levenberg-Marquardt iteration with Marquardt's diagonal scaling
+(Marquardt 1963, J. SIAM 11:431) and simple bounds, run in lockstep over
+independent problems (the cycles of ``ensemble="each"``, or one problem):
+
+* the Jacobian is a one-sided finite difference, and every case an iteration
+  needs (the trial point of each problem and its perturbed neighbours, one
+  per parameter) is simulated in **one** :func:`cyclesim.simulate` batch.
+  The trial point's Jacobian is thus ready when the step is accepted; a
+  rejected step only raises the damping.
+* bounds come from the submodels' (and core sections') declared ``Param``
+  ranges; a step is projected onto them, and a parameter at a bound whose
+  gradient points outward is held there for that step (active set).
+
+This was chosen over ``scipy.optimize.least_squares`` because the cycles of
+``ensemble="each"`` and the points of :func:`fit_points` then share one batch
+per iteration (a closed-cycle batch of a hundred cases costs about as much as
+one case), which scipy's one-problem-at-a-time interface cannot do.
+
+Confidence intervals
+--------------------
+At the solution, ``C = s^2 (J^T J)^-1`` with ``s^2 = SSR / (n - p)`` and
+t-distribution intervals with ``n - p`` degrees of freedom (e.g. Bates & Watts
+1988, *Nonlinear Regression Analysis and its Applications*, Wiley, sec. 2.3).
+This assumes independent residuals.  Residuals on a fine crank grid are
+rarely independent: a smooth misfit (sensor thermal drift, a model error)
+spans many samples.  ``covariance="hac"`` gives the heteroskedasticity and
+autocorrelation consistent (sandwich) estimate with Bartlett weights (Newey &
+West 1987, Econometrica 55:703), ``C = (J^T J)^-1 S (J^T J)^-1``, with the lag
+window L the first lag at which the residual autocorrelation falls to zero
+(common practice), and ``n_eff = n (1 + 2 sum rho_l)^-1`` degrees of freedom
+for the t quantile.  Both are always computed; ``covariance`` chooses which one
+the intervals and ``calibration.json`` carry.
+"""
+
+from __future__ import annotations
+
+import copy
+import datetime as _dt
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+
+from .config import CORE_SCHEMA, Case, case_with, load_config
+from .errors import ConfigError, CyclesimError
+
+__all__ = ["FitResult", "PointsFit", "fit", "fit_points", "param_bounds", "burn_table",
+           "write_burn_table", "measured_data", "MeasuredData", "write_calibration"]
+
+BAR = 1e5
+CORRELATION_LIMIT = 0.95
+"""|correlation| above which two fitted parameters count as not separable by the data."""
+
+TRAPPED_STATE_KEYS = ("operating.ivc_pressure_bar", "operating.ivc_temperature_K",
+                      "operating.residual_fraction")
+"""Closed-mode parameters: the state at intake valve closing."""
+
+SENSITIVITY_LIMIT = 1e-3
+"""A parameter whose 1 % change moves the weighted residual RMS by less than this
+share of the residual RMS itself counts as flat (the data do not see it)."""
+
+# --------------------------------------------------------------------------
+# Parameters and bounds
+# --------------------------------------------------------------------------
+
+
+def _declared_param(case: Case, key: str):
+    parts = key.split(".")
+    if len(parts) != 2:
+        raise ConfigError(f"fit parameter {key!r}: expected section.key, e.g. burn.duration_deg")
+    sec, name = parts
+    if sec in CORE_SCHEMA:
+        decl = {p.name: p for p in CORE_SCHEMA[sec]}
+    elif sec in case.submodels:
+        from .api import _registry_for
+
+        ch = case.submodels[sec]
+        cls = _registry_for([case]).submodel_class(sec, ch.model)
+        decl = {p.name: p for p in cls.params}
+    else:
+        raise ConfigError(f"fit parameter {key!r}: unknown section {sec!r}")
+    if name not in decl:
+        from .params import suggestion
+
+        raise ConfigError(
+            f"fit parameter {key!r}: the {sec} section"
+            + (f" (model {case.submodels[sec].model!r})" if sec in case.submodels else "")
+            + f" has no such key" + suggestion(name, list(decl))
+        )
+    p = decl[name]
+    if p.kind not in ("float", "int") or not p.sweepable:
+        raise ConfigError(f"fit parameter {key!r}: only numbers that may differ within a batch can be fitted")
+    return p
+
+
+def _current_value(case: Case, key: str) -> float:
+    sec, name = key.split(".")
+    if sec in CORE_SCHEMA:
+        v = getattr(case.section(sec), name)
+    else:
+        v = case.submodels[sec].params[name]
+    if v is None:
+        raise ConfigError(f"fit parameter {key!r} has no value in the config")
+    return float(v)
+
+
+def param_bounds(case: Case, key: str) -> tuple[float, float]:
+    """Bounds [lo, hi] of a fitted parameter from its declared ``Param`` range.
+
+    Open ends of the declaration become +-inf; an excluded bound is moved
+    inwards by 1e-6 of the range (or of the value) so that every trial value
+    validates.
+    """
+    p = _declared_param(case, key)
+    lo = -np.inf if p.min is None else float(p.min)
+    hi = np.inf if p.max is None else float(p.max)
+    span = (hi - lo) if np.isfinite(hi - lo) else max(abs(_current_value(case, key)), 1.0)
+    if p.min_exclusive and np.isfinite(lo):
+        lo += 1e-6 * span
+    if p.max_exclusive and np.isfinite(hi):
+        hi -= 1e-6 * span
+    return lo, hi
+
+
+# --------------------------------------------------------------------------
+# Measured data
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class MeasuredData:
+    """Pegged, phased measured pressure (ensemble mean or cycles) on its crank grid.
+
+    Attributes
+    ----------
+    theta : ndarray (n,)
+        Crank angle after TDC correction [deg].
+    pressure_bar : ndarray (k, n)
+        Absolute pressure [bar], one row per fitted record (1 for the mean).
+    heat_release_J : ndarray (k, n)
+        Apparent net heat release of each row [J] (NaN outside IVC..EVO).
+    volume_m3 : ndarray (n,)
+        Volume the analyser used at ``theta`` [m^3].
+    settings : AnalysisSettings
+    analysis : AnalysisResult
+    cycles : ndarray of int
+        Indices of the measured cycles behind each row.
+    changes : dict
+        Operating-point values taken from the trace metadata (dotted keys).
+    """
+
+    theta: np.ndarray
+    pressure_bar: np.ndarray
+    heat_release_J: np.ndarray
+    volume_m3: np.ndarray
+    settings: Any
+    analysis: Any
+    cycles: list
+    changes: dict = field(default_factory=dict)
+    Vd: float = 0.0
+
+
+_META_OPERATING = {
+    "intake_pressure_pa": ("operating.intake_pressure_bar", 1.0 / BAR),
+    "intake_pressure_bar": ("operating.intake_pressure_bar", 1.0),
+    "intake_temperature_K": ("operating.intake_temperature_K", 1.0),
+    "lambda": ("operating.lambda", 1.0),
+    "exhaust_pressure_bar": ("operating.exhaust_pressure_bar", 1.0),
+}
+
+
+def _load_traces(traces):
+    from .traces.export import TraceSet, read_trace
+
+    if isinstance(traces, TraceSet):
+        return traces
+    if isinstance(traces, (str, Path)):
+        return read_trace(traces)
+    sets = [_load_traces(t) for t in traces]
+    if not sets:
+        raise CyclesimError("fit: no trace given")
+    th = sets[0].theta
+    for s in sets[1:]:
+        if s.theta.shape != th.shape or not np.allclose(s.theta, th):
+            raise CyclesimError("fit: trace files on different crank grids cannot be joined")
+    P = np.concatenate([s.pressure_pa for s in sets])
+    Pi = None if any(s.intake_pa is None for s in sets) else np.concatenate([s.intake_pa for s in sets])
+    return TraceSet(th, P, Pi, sets[0].speed_rpm, dict(sets[0].meta))
+
+
+def operating_from_trace(ts, case: Case) -> dict:
+    """Operating-point values (dotted keys) that the trace's metadata states."""
+    out = {}
+    if math.isfinite(ts.speed_rpm) and ts.speed_rpm > 0:
+        out["operating.speed_rpm"] = float(ts.speed_rpm)
+    for mk, (key, f) in _META_OPERATING.items():
+        v = ts.meta.get(mk) if isinstance(ts.meta, dict) else None
+        if isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v):
+            out[key] = float(v) * f
+    cur = {k: _current_value(case, k) for k in out}
+    return {k: v for k, v in out.items() if abs(v - cur[k]) > 1e-9 * max(1.0, abs(cur[k]))}
+
+
+def measured_data(case: Case, traces, *, ensemble: str = "mean", peg: str | None = "intake",
+                  tdc_correct: bool = False, tdc_offset_deg: float | None = None, motored=None,
+                  use_trace_operating: bool = True) -> tuple[MeasuredData, Case]:
+    """Read, peg, phase and average the measured cycles; returns the data and the case.
+
+    The returned case carries the operating point stated by the trace metadata
+    (speed, intake pressure and temperature, lambda) when ``use_trace_operating``.
+    """
+    from .cli_traces import analysis_inputs
+    from .traces.analysis import analyse, apparent_heat_release
+
+    ts = _load_traces(traces)
+    changes = operating_from_trace(ts, case) if use_trace_operating else {}
+    if changes:
+        case = case_with(case, changes)
+    geom, s, speed = analysis_inputs(case)
+    if not math.isfinite(ts.speed_rpm):
+        ts.speed_rpm = speed
+    s = s.replace(peg=peg or "none", tdc_correct=bool(tdc_correct), tdc_offset_deg=tdc_offset_deg)
+    mot = _load_traces(motored) if motored is not None else None
+    if mot is not None and not math.isfinite(mot.speed_rpm):
+        mot.speed_rpm = speed
+    res = analyse(ts, geom, s, motored=mot)
+    fired = np.flatnonzero(~np.asarray(res.per_cycle["motored"], bool))
+    if fired.size == 0:
+        raise CyclesimError("fit: every measured cycle is motored (no combustion to fit)")
+    th = res.theta_deg
+    V = geom.volume(th)[0]
+    if ensemble == "mean":
+        P = np.mean(res.pressure_pa[fired], axis=0)[None, :]
+        rows = [list(map(int, fired))]
+    elif ensemble == "each":
+        P = res.pressure_pa[fired]
+        rows = [[int(k)] for k in fired]
+    else:
+        raise ConfigError(f"fit: ensemble = {ensemble!r}: choose mean or each")
+    HR = np.stack([apparent_heat_release(th, p, V, s)[0] for p in P])
+    return MeasuredData(th, P / BAR, HR, V, s, res, rows, changes, float(geom.Vd[0])), case
+
+
+# --------------------------------------------------------------------------
+# Problems: points, residuals
+# --------------------------------------------------------------------------
+
+
+def _weights(theta: np.ndarray, weights) -> np.ndarray:
+    w = np.ones_like(theta)
+    if not weights:
+        return w
+    items = weights.items() if isinstance(weights, Mapping) else weights
+    for (lo, hi), val in items:
+        if not (float(val) >= 0):
+            raise ConfigError(f"fit weights: weight {val!r} for {lo}..{hi} deg must be >= 0")
+        w = np.where((theta >= float(lo)) & (theta <= float(hi)), float(val), w)
+    return w
+
+
+@dataclass
+class _Point:
+    """One measured record and its simulated counterpart."""
+
+    case: Case                 # template case (mode, grid, fixed values)
+    keys: list                 # dotted keys of this point's parameters
+    idx: np.ndarray            # their positions in the problem's parameter vector
+    theta: np.ndarray          # measured crank grid inside the fit window (n,)
+    p_meas: np.ndarray         # [bar] (n,)
+    hr_meas: np.ndarray        # [J] (n,) (NaN outside IVC..EVO)
+    sw: np.ndarray             # sqrt of the weights (n,)
+    target: str
+    data: MeasuredData
+    row: int
+    hr_mask: np.ndarray = None
+
+    def residual(self, res) -> np.ndarray | None:
+        """Weighted residual vector of one simulated case (None if it failed)."""
+        if res is None or res.error:
+            return None
+        th_s = res.trace["crank_deg"]
+        p = np.interp(self.theta, th_s, res.trace["pressure_bar"])
+        parts = []
+        if self.target in ("pressure", "both"):
+            parts.append(self.sw * (p - self.p_meas))
+        if self.target in ("heat_release", "both"):
+            q = self._hr(p)
+            parts.append(self.sw[self.hr_mask] * (q - self.hr_meas[self.hr_mask]) / (self.data.Vd * BAR))
+        r = np.concatenate(parts)
+        return r if np.all(np.isfinite(r)) else None
+
+    def _hr(self, p_bar):
+        from .traces.analysis import apparent_heat_release
+
+        # the analyser on the full measured grid, the simulated pressure filled in the window
+        d = self.data
+        pf = d.pressure_bar[self.row].copy()
+        inside = np.isin(d.theta, self.theta)
+        pf[inside] = p_bar
+        Q, _ = apparent_heat_release(d.theta, pf * BAR, d.volume_m3, d.settings)
+        return Q[inside][self.hr_mask]
+
+    def simulated(self, res) -> dict:
+        th_s = res.trace["crank_deg"]
+        p = np.interp(self.theta, th_s, res.trace["pressure_bar"])
+        return {"pressure_bar": p, "heat_release_J": self._hr_full(p)}
+
+    def _hr_full(self, p_bar):
+        from .traces.analysis import apparent_heat_release
+
+        d = self.data
+        pf = d.pressure_bar[self.row].copy()
+        inside = np.isin(d.theta, self.theta)
+        pf[inside] = p_bar
+        Q, _ = apparent_heat_release(d.theta, pf * BAR, d.volume_m3, d.settings)
+        return Q[inside]
+
+
+def _make_point(case: Case, data: MeasuredData, row: int, keys, idx, *, mode, target, weights,
+                window) -> _Point:
+    th = data.theta
+    if mode == "closed":
+        lo, hi = float(case.valves.ivc_deg), float(case.valves.evo_deg)
+        # a sample must lie inside the simulated record (closed: IVC..EVO)
+        lo, hi = lo + 1e-9, hi - 1e-9
+    else:
+        lo, hi = -360.0, 360.0
+    if window is not None:
+        lo, hi = max(lo, float(window[0])), min(hi, float(window[1]))
+    m = (th >= lo) & (th <= hi)
+    if m.sum() < len(keys) + 3:
+        raise CyclesimError(f"fit: only {int(m.sum())} measured samples inside the fit window {lo:g}..{hi:g} deg")
+    w = _weights(th[m], weights)
+    hr = data.heat_release_J[row][m]
+    pt = _Point(case, list(keys), np.asarray(idx, int), th[m], data.pressure_bar[row][m], hr,
+                np.sqrt(w), target, data, row)
+    pt.hr_mask = np.isfinite(hr)
+    if target in ("heat_release", "both") and pt.hr_mask.sum() < len(keys) + 3:
+        raise CyclesimError("fit: too few samples with an apparent heat release (IVC..EVO) in the fit window")
+    return pt
+
+
+def _fit_case(case: Case, data: MeasuredData, keys: Sequence[str], mode: str, step_deg=None) -> tuple[Case, list]:
+    """The template case of a fit: mode, output grid, IVC state from the measurement."""
+    notes = []
+    changes: dict[str, Any] = {}
+    if mode not in ("closed", "full"):
+        raise ConfigError(f"fit: mode = {mode!r}: choose closed or full")
+    was_full = case.simulation.mode == "full"
+    if mode != case.simulation.mode:
+        changes["simulation.mode"] = mode
+    dth = np.diff(data.theta)
+    meas_step = float(np.median(dth)) if dth.size else 0.5
+    out_step = max(min(meas_step / 2.0, float(case.simulation.step_deg)), 0.05)
+    changes["simulation.output_step_deg"] = round(out_step, 6)
+    if step_deg is not None:
+        changes["simulation.step_deg"] = float(step_deg)
+    if mode == "closed":
+        p_ivc = float(np.interp(float(case.valves.ivc_deg), data.theta, data.pressure_bar[0]))
+        if "operating.ivc_pressure_bar" in keys or was_full:
+            changes["operating.ivc_pressure_bar"] = round(p_ivc, 6)
+            if "operating.ivc_pressure_bar" not in keys:
+                notes.append(f"closed-cycle start: IVC pressure {p_ivc:.4f} bar from the pegged measurement")
+        if was_full:
+            for k in ("operating.ivc_temperature_K", "operating.residual_fraction"):
+                if k not in keys:
+                    notes.append(f"closed-cycle start: {k} = {_current_value(case, k):g} from the config"
+                                 f" (not fitted)")
+    return case_with(case, changes), notes
+
+
+# --------------------------------------------------------------------------
+# Lockstep Levenberg-Marquardt
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class _Problem:
+    points: list
+    names: list
+    x: np.ndarray
+    lo: np.ndarray
+    hi: np.ndarray
+    typ: np.ndarray
+    r: np.ndarray = None
+    J: np.ndarray = None
+    cost: float = np.inf
+    lam: float = 1e-3
+    done: bool = False
+    iterations: int = 0
+    message: str = ""
+    converged: bool = False
+    history: list = field(default_factory=list)
+
+
+def _fd_steps(pb: _Problem, x: np.ndarray, rel: float) -> np.ndarray:
+    h = rel * np.maximum(np.abs(x), pb.typ)
+    # backward where a forward step would leave the bounds
+    return np.where(x + h > pb.hi, -h, h)
+
+
+def _cases_for(pb: _Problem, x: np.ndarray, h: np.ndarray):
+    """Cases for the point x and its finite-difference neighbours: list of (point, column, case)."""
+    out = []
+    for ip, pt in enumerate(pb.points):
+        base = {k: float(x[j]) for k, j in zip(pt.keys, pt.idx)}
+        out.append((ip, -1, base))
+        for k, j in zip(pt.keys, pt.idx):
+            ch = dict(base)
+            ch[k] = float(x[j] + h[j])
+            out.append((ip, int(j), ch))
+    return out
+
+
+def _evaluate(problems: Sequence[_Problem], xs: Sequence[np.ndarray], rel: float, counter: list):
+    """Residuals and Jacobians of every problem at its x, from one simulate batch."""
+    from .api import simulate
+
+    plans, cases = [], []
+    for pb, x in zip(problems, xs):
+        h = _fd_steps(pb, x, rel)
+        plan = _cases_for(pb, x, h)
+        plans.append((h, plan))
+        for ip, _, ch in plan:
+            try:
+                cases.append(case_with(pb.points[ip].case, ch))
+            except ConfigError:
+                cases.append(None)
+    run = [c for c in cases if c is not None]
+    counter[0] += len(run)
+    results = iter(simulate(run)) if run else iter(())
+    res_all = [next(results) if c is not None else None for c in cases]
+    out = []
+    pos = 0
+    for pb, (h, plan) in zip(problems, plans):
+        base_r: dict[int, np.ndarray] = {}
+        cols: dict[tuple, np.ndarray] = {}
+        ok = True
+        bases = {}
+        for ip, j, _ in plan:
+            res = res_all[pos]
+            pos += 1
+            r = pb.points[ip].residual(res)
+            if r is None:
+                ok = False
+            if j < 0:
+                base_r[ip] = r
+                bases[ip] = res
+            else:
+                cols[(ip, j)] = r
+        if not ok:
+            out.append(None)
+            continue
+        r_full = np.concatenate([base_r[ip] for ip in range(len(pb.points))])
+        J = np.zeros((r_full.size, len(pb.x)))
+        o = 0
+        for ip, pt in enumerate(pb.points):
+            n = base_r[ip].size
+            for j in pt.idx:
+                J[o:o + n, j] = (cols[(ip, int(j))] - base_r[ip]) / h[j]
+            o += n
+        out.append((r_full, J, bases))
+    return out
+
+
+def _lm_step(pb: _Problem) -> np.ndarray:
+    g = pb.J.T @ pb.r
+    A = pb.J.T @ pb.J
+    d = np.diag(A).copy()
+    d = np.where(d > 0, d, 1e-12 * max(d.max(), 1e-300))
+    p = len(pb.x)
+    free = np.ones(p, bool)
+    eps = 1e-12 * np.maximum(pb.hi - pb.lo, 1.0)
+    free &= ~((pb.x <= pb.lo + eps) & (g > 0))     # at lower bound and pushed down
+    free &= ~((pb.x >= pb.hi - eps) & (g < 0))     # at upper bound and pushed up
+    step = np.zeros(p)
+    if free.any():
+        Af = A[np.ix_(free, free)] + pb.lam * np.diag(d[free])
+        try:
+            step[free] = np.linalg.solve(Af, -g[free])
+        except np.linalg.LinAlgError:
+            step[free] = -np.linalg.lstsq(Af, g[free], rcond=None)[0]
+    return np.clip(pb.x + step, pb.lo, pb.hi)
+
+
+def _solve(problems: list[_Problem], *, max_iter: int = 40, ftol: float = 1e-9, xtol: float = 1e-7,
+           fd_rel: float = 1e-4, progress=None) -> int:
+    """Run the lockstep LM; returns the number of simulated cases."""
+    counter = [0]
+    first = _evaluate(problems, [pb.x for pb in problems], fd_rel, counter)
+    for pb, got in zip(problems, first):
+        if got is None:
+            raise CyclesimError(
+                "fit: the simulation at the start values failed or gave no finite pressure on the"
+                " measured grid; check the start values and the fit window")
+        pb.r, pb.J, pb.bases = got
+        pb.cost = 0.5 * float(pb.r @ pb.r)
+        pb.history.append(pb.cost)
+    for it in range(max_iter):
+        act = [pb for pb in problems if not pb.done]
+        if not act:
+            break
+        trials = [_lm_step(pb) for pb in act]
+        got = _evaluate(act, trials, fd_rel, counter)
+        for pb, xt, g in zip(act, trials, got):
+            pb.iterations += 1
+            cost_t = np.inf if g is None else 0.5 * float(g[0] @ g[0])
+            if cost_t < pb.cost:
+                dx = np.abs(xt - pb.x)
+                dcost = (pb.cost - cost_t) / max(pb.cost, 1e-300)
+                pb.x, (pb.r, pb.J, pb.bases), pb.cost = xt, g, cost_t
+                pb.lam = max(pb.lam / 3.0, 1e-9)
+                pb.history.append(cost_t)
+                if dcost < ftol or np.all(dx <= xtol * (np.abs(pb.x) + pb.typ)):
+                    pb.done, pb.converged = True, True
+                    pb.message = "converged (relative change of cost or step below tolerance)"
+            else:
+                pb.lam *= 4.0
+                if pb.lam > 1e8:
+                    pb.done, pb.converged = True, True
+                    pb.message = "converged (no step lowers the cost further)"
+        if progress:
+            progress(it + 1, sum(pb.done for pb in problems), len(problems))
+    for pb in problems:
+        if not pb.done:
+            pb.message = f"stopped after {max_iter} iterations without meeting the tolerance"
+    return counter[0]
+
+
+# --------------------------------------------------------------------------
+# Statistics
+# --------------------------------------------------------------------------
+
+
+def _hac(J: np.ndarray, r: np.ndarray, segments: Sequence[int]):
+    """Newey-West sandwich 'meat' and the effective sample size.
+
+    Lags are taken within each residual segment (one per record and target),
+    in crank-angle order.
+    """
+    p = J.shape[1]
+    S = np.zeros((p, p))
+    n_eff = 0.0
+    L_used = 0
+    o = 0
+    for n in segments:
+        rs, Js = r[o:o + n], J[o:o + n]
+        o += n
+        c0 = float(rs @ rs) / n
+        if c0 <= 0 or n < 4:
+            continue
+        L = n // 4
+        acf = np.array([float(rs[l:] @ rs[:-l]) / n / c0 for l in range(1, L + 1)])
+        neg = np.flatnonzero(acf <= 0)
+        L = int(neg[0]) + 1 if neg.size else L
+        L_used = max(L_used, L)
+        G = Js * rs[:, None]
+        Sseg = G.T @ G
+        for l in range(1, L + 1):
+            w = 1.0 - l / (L + 1.0)
+            Gl = G[l:].T @ G[:-l]
+            Sseg += w * (Gl + Gl.T)
+        S += Sseg
+        tau = 1.0 + 2.0 * float(np.sum((1.0 - np.arange(1, L + 1) / (L + 1.0)) * acf[:L]))
+        n_eff += n / max(tau, 1.0)
+    return S, n_eff, L_used
+
+
+def _statistics(J: np.ndarray, r: np.ndarray, x: np.ndarray, lo, hi, names, segments, level: float,
+                covariance: str) -> dict:
+    from scipy import stats
+
+    n, p = J.shape
+    warnings: list[str] = []
+    ssr = float(r @ r)
+    dof = max(n - p, 1)
+    s2 = ssr / dof
+    # column scaling for a meaningful condition number
+    cn = np.linalg.norm(J, axis=0)
+    scale = np.where(cn > 0, cn, 1.0)
+    Js = J / scale
+    sv = np.linalg.svd(Js, compute_uv=False)
+    cond = float(sv[0] / sv[-1]) if sv[-1] > 0 else np.inf
+    singular = not np.isfinite(cond) or cond > 1e8
+    A = Js.T @ Js
+    Ainv_s = np.linalg.pinv(A, rcond=1e-14) if singular else np.linalg.inv(A)
+    Ainv = Ainv_s / np.outer(scale, scale)
+    C_classic = s2 * Ainv
+    S, n_eff, L = _hac(J, r, segments)
+    C_hac = Ainv @ S @ Ainv * n / dof
+    if covariance == "classical":
+        C, dof_t = C_classic, dof
+    elif covariance == "hac":
+        C, dof_t = C_hac, max(n_eff - p, 1.0)
+    else:
+        raise ConfigError(f"fit: covariance = {covariance!r}: choose classical or hac")
+    sd = np.sqrt(np.maximum(np.diag(C), 0.0))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        corr = C / np.outer(sd, sd)
+    corr = np.where(np.isfinite(corr), corr, 0.0)
+    np.fill_diagonal(corr, 1.0)
+    tq = float(stats.t.ppf(0.5 + level / 2.0, dof_t))
+    # flat parameters: effect of a 1 % change on the weighted residual RMS
+    rms = math.sqrt(ssr / n) if n else 0.0
+    delta = 0.01 * np.maximum(np.abs(x), 0.01 * np.where(np.isfinite(hi - lo), hi - lo, 1.0))
+    sens = cn * delta / math.sqrt(max(n, 1))
+    ref = max(rms, 1e-12)
+    for j, nm in enumerate(names):
+        if sens[j] < SENSITIVITY_LIMIT * ref or cn[j] == 0:
+            warnings.append(
+                f"{nm}: flat: a 1 % change moves the fit by {sens[j]:.2e} (residual RMS {rms:.2e});"
+                f" the data cannot determine it")
+    if singular:
+        warnings.append(
+            f"J^T J is singular or nearly so (condition number of the scaled Jacobian {cond:.3g}):"
+            f" some combination of {', '.join(names)} is not determined by the data")
+    for i in range(p):
+        for j in range(i + 1, p):
+            if abs(corr[i, j]) > CORRELATION_LIMIT:
+                warnings.append(
+                    f"{names[i]} and {names[j]}: correlation {corr[i, j]:+.3f} (|r| > {CORRELATION_LIMIT}):"
+                    f" the data cannot tell them apart; fix one of them or add data that separates them")
+    eps = 1e-9 * np.maximum(np.where(np.isfinite(hi - lo), hi - lo, 1.0), 1.0)
+    for j, nm in enumerate(names):
+        if x[j] <= lo[j] + eps[j] or x[j] >= hi[j] - eps[j]:
+            warnings.append(f"{nm} = {x[j]:g} lies at its bound [{lo[j]:g}, {hi[j]:g}]: its interval is not reliable")
+    return {
+        "covariance": C, "covariance_classical": C_classic, "covariance_hac": C_hac,
+        "stderr": sd, "correlation": corr, "ci_low": x - tq * sd, "ci_high": x + tq * sd,
+        "t_quantile": tq, "dof": float(dof_t), "s2": s2, "rms": rms, "n": n, "n_eff": n_eff,
+        "hac_lag": L, "condition_number": cond, "sensitivity": sens, "warnings": warnings,
+    }
+
+
+# --------------------------------------------------------------------------
+# Results
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class FitResult:
+    """Outcome of a fit.
+
+    Attributes
+    ----------
+    params : list of str
+        Fitted dotted keys.
+    values, initial, stderr, ci_low, ci_high : ndarray (p,)
+        Fitted and start values, standard errors and the confidence interval
+        at ``level`` [units of each key].
+    lower, upper : ndarray (p,)
+        Bounds used [units of each key].
+    covariance, correlation : ndarray (p, p)
+        The chosen covariance (``covariance_kind``) and its correlation matrix.
+    covariance_classical, covariance_hac : ndarray (p, p)
+        Both estimates (see the module notes).
+    level : float
+        Confidence level of the intervals [-].
+    dof : float
+        Degrees of freedom of the t quantile [-].
+    rms : float
+        RMS of the weighted residual [bar or bar-equivalent].
+    theta : ndarray (n,)
+        Crank angles of the residuals [deg].
+    measured_pressure_bar, simulated_pressure_bar : ndarray (n,)
+    measured_heat_release_J, simulated_heat_release_J : ndarray (n,)
+    residual_bar : ndarray (n,)
+        Simulated minus measured pressure, unweighted [bar].
+    volume_m3 : ndarray (n,)
+    case : Case
+        The calibrated case (the fit's mode and grid, fitted values set).
+    base_case : Case
+        The case the fit started from (before mode and grid changes).
+    source : str or None
+        Config path or built-in name the base case came from.
+    warnings, notes : list of str
+    cycles : list of FitResult
+        Per-cycle fits (``ensemble="each"``); then ``values`` are their mean and
+        the covariance is the sample covariance of the per-cycle values over
+        the number of cycles.
+    """
+
+    params: list
+    values: np.ndarray
+    initial: np.ndarray
+    stderr: np.ndarray
+    ci_low: np.ndarray
+    ci_high: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    covariance: np.ndarray
+    correlation: np.ndarray
+    covariance_classical: np.ndarray
+    covariance_hac: np.ndarray
+    covariance_kind: str
+    level: float
+    dof: float
+    rms: float
+    n_residuals: int
+    theta: np.ndarray
+    measured_pressure_bar: np.ndarray
+    simulated_pressure_bar: np.ndarray
+    measured_heat_release_J: np.ndarray
+    simulated_heat_release_J: np.ndarray
+    residual_bar: np.ndarray
+    volume_m3: np.ndarray
+    case: Case
+    base_case: Case
+    mode: str
+    target: str
+    iterations: int
+    simulations: int
+    converged: bool
+    message: str
+    source: str | None = None
+    warnings: list = field(default_factory=list)
+    notes: list = field(default_factory=list)
+    cycles: list = field(default_factory=list)
+    stats: dict = field(default_factory=dict)
+    summary: dict = field(default_factory=dict)
+
+    def value(self, key: str) -> float:
+        return float(self.values[self.params.index(key)])
+
+    def interval(self, key: str) -> tuple[float, float]:
+        j = self.params.index(key)
+        return float(self.ci_low[j]), float(self.ci_high[j])
+
+    def text(self) -> str:
+        """The fit report as text (values, intervals, correlations, warnings)."""
+        lines = [f"fit ({self.mode} cycle, target {self.target}, {self.n_residuals} residuals,"
+                 f" {self.iterations} iterations, {self.simulations} simulated cases): {self.message}",
+                 f"  residual RMS {self.rms:.4g} bar; {100 * self.level:.0f} % intervals"
+                 f" ({self.covariance_kind} covariance, t with {self.dof:.0f} dof)"]
+        w = max(len(p) for p in self.params)
+        lines.append(f"  {'parameter':<{w}s} {'start':>11s} {'fitted':>11s} {'std err':>10s}"
+                     f" {'interval':>25s}")
+        for j, p in enumerate(self.params):
+            lines.append(f"  {p:<{w}s} {self.initial[j]:11.5g} {self.values[j]:11.5g} {self.stderr[j]:10.3g}"
+                         f"   [{self.ci_low[j]:10.5g}, {self.ci_high[j]:10.5g}]")
+        if len(self.params) > 1:
+            lines.append("  correlation matrix:")
+            for j, p in enumerate(self.params):
+                lines.append(f"    {p:<{w}s} " + " ".join(f"{c:+6.3f}" for c in self.correlation[j]))
+        for n in self.notes:
+            lines.append(f"  note: {n}")
+        for m in self.warnings:
+            lines.append(f"  WARNING: {m}")
+        return "\n".join(lines)
+
+    def calibration_dict(self) -> dict:
+        """Plain data for ``calibration.json``."""
+        def arr(a):
+            return [[_num(v) for v in row] for row in np.asarray(a)] if np.ndim(a) == 2 else [_num(v) for v in a]
+
+        return {
+            "parameters": list(self.params),
+            "values": arr(self.values),
+            "initial": arr(self.initial),
+            "stderr": arr(self.stderr),
+            "interval_low": arr(self.ci_low),
+            "interval_high": arr(self.ci_high),
+            "level": self.level,
+            "lower_bounds": arr(self.lower),
+            "upper_bounds": arr(self.upper),
+            "covariance": arr(self.covariance),
+            "covariance_kind": self.covariance_kind,
+            "covariance_classical": arr(self.covariance_classical),
+            "covariance_hac": arr(self.covariance_hac),
+            "correlation": arr(self.correlation),
+            "dof": self.dof,
+            "residual_rms": self.rms,
+            "n_residuals": self.n_residuals,
+            "mode": self.mode,
+            "target": self.target,
+            "converged": self.converged,
+            "message": self.message,
+            "warnings": list(self.warnings),
+            "notes": list(self.notes),
+            "source_config": self.source,
+            "units": "each value in the unit of its key's name; residuals in bar",
+            "created": _dt.datetime.now().isoformat(timespec="seconds"),
+        }
+
+    def write(self, out, plots: bool = True) -> list[Path]:
+        """Write ``calibrated.yaml``, ``calibration.json``, ``fit_residuals.csv`` and the plots."""
+        out = Path(out)
+        out.mkdir(parents=True, exist_ok=True)
+        files = write_calibration(self, out)
+        files.append(_write_residuals(self, out / "fit_residuals.csv"))
+        if plots:
+            files += plot_fit(self, out)
+        return files
+
+
+def _num(v):
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+def _write_residuals(res: FitResult, path: Path) -> Path:
+    from .output import write_rows_csv
+
+    rows = []
+    for k in range(res.theta.size):
+        q_m, q_s = res.measured_heat_release_J[k], res.simulated_heat_release_J[k]
+        rows.append({
+            "crank_deg": f"{res.theta[k]:.6g}",
+            "measured_pressure_bar": f"{res.measured_pressure_bar[k]:.8g}",
+            "simulated_pressure_bar": f"{res.simulated_pressure_bar[k]:.8g}",
+            "residual_bar": f"{res.residual_bar[k]:.6g}",
+            "measured_heat_release_J": "" if not np.isfinite(q_m) else f"{q_m:.8g}",
+            "simulated_heat_release_J": "" if not np.isfinite(q_s) else f"{q_s:.8g}",
+        })
+    write_rows_csv(path, rows, list(rows[0]))
+    return path
+
+
+# --------------------------------------------------------------------------
+# Calibrated config
+# --------------------------------------------------------------------------
+
+
+def _flat(d: Mapping, prefix: str = "") -> dict:
+    out = {}
+    for k, v in d.items():
+        key = f"{prefix}{k}"
+        if isinstance(v, Mapping):
+            out.update(_flat(v, key + "."))
+        else:
+            out[key] = v
+    return out
+
+
+def _same_value(a, b) -> bool:
+    if isinstance(a, (int, float)) and isinstance(b, (int, float)) and not isinstance(a, bool):
+        return math.isclose(float(a), float(b), rel_tol=1e-12, abs_tol=0.0)
+    return a == b
+
+
+def write_calibration(res: FitResult, out, extends: str | None = None) -> list[Path]:
+    """Write ``calibrated.yaml`` (extends the original config) and ``calibration.json``.
+
+    The YAML overrides only what differs from the original: the fitted values,
+    and what the fit had to change to reproduce the measurement (operating
+    point from the trace metadata; for a fit of the trapped state, the closed
+    mode and its IVC state).  Trapped-state values exist only in closed mode:
+    when none was fitted, the calibrated config keeps the original's mode.
+    The covariance goes to ``calibration.json`` (the config loader accepts no
+    extra top-level keys); a comment in the YAML points to it.
+    """
+    import yaml
+
+    from .config import load_raw
+    from .output import atomic_write_text
+
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    files = []
+    src = extends or res.source
+    if src is not None:
+        orig_raw, _ = load_raw(src)
+        p = Path(src)
+        if p.is_file():
+            ext = str(p.resolve())
+        else:
+            ext = str(src)
+    else:
+        orig_raw = copy.deepcopy(res.base_case.raw)
+        orig_raw.pop("extends", None)
+        base = out / "base_config.yaml"
+        atomic_write_text(base, "# the config the fit started from (merged)\n"
+                          + yaml.safe_dump(orig_raw, sort_keys=False))
+        files.append(base)
+        ext = base.name
+    new_raw = copy.deepcopy(res.case.raw)
+    keep_closed = any(k in TRAPPED_STATE_KEYS for k in res.params) or res.base_case.simulation.mode == "closed"
+    fo, fn = _flat(orig_raw), _flat(new_raw)
+    over: dict[str, Any] = {}
+    for k, v in fn.items():
+        if k in ("name", "description", "extends"):
+            continue
+        if k == "simulation.output_step_deg" and k not in fo:
+            continue
+        if not keep_closed and (k == "simulation.mode" or k in TRAPPED_STATE_KEYS):
+            continue
+        if k not in fo or not _same_value(fo[k], v):
+            over[k] = v
+    for k in res.params:
+        over[k] = float(res.values[res.params.index(k)])
+    doc: dict[str, Any] = {"extends": ext, "name": f"{res.base_case.name}-calibrated"}
+    for k, v in over.items():
+        node = doc
+        parts = k.split(".")
+        for part in parts[:-1]:
+            node = node.setdefault(part, {})
+        node[parts[-1]] = v
+    head = [
+        f"# Calibrated config written by 'cyclesim fit' on {_dt.date.today().isoformat()}.",
+        "# Overrides only the fitted values (and what the fit needed to reproduce the measurement).",
+        "# Covariance, intervals and correlations of the fitted values: calibration.json (this folder).",
+        f"# Fitted ({100 * res.level:.0f} % intervals): "
+        + "; ".join(f"{p} = {res.values[j]:.6g} [{res.ci_low[j]:.6g}, {res.ci_high[j]:.6g}]"
+                    for j, p in enumerate(res.params)),
+    ]
+    yml = out / "calibrated.yaml"
+    atomic_write_text(yml, "\n".join(head) + "\n" + yaml.safe_dump(doc, sort_keys=False))
+    js = out / "calibration.json"
+    cal = res.calibration_dict()
+    cal["calibrated_config"] = yml.name
+    atomic_write_text(js, json.dumps(cal, indent=2) + "\n")
+    return files + [yml, js]
+
+
+# --------------------------------------------------------------------------
+# Plots
+# --------------------------------------------------------------------------
+
+
+def plot_fit(res: FitResult, out) -> list[Path]:
+    """PNG plots: pressure, log p - log V, apparent heat release, residuals vs crank angle."""
+    from .plots import _plt, _save
+
+    plt = _plt()
+    out = Path(out)
+    th = res.theta
+    files = []
+    fig, ax = plt.subplots(figsize=(7.5, 4.2))
+    ax.plot(th, res.measured_pressure_bar, color="k", lw=1.2, label="measured (pegged, phased)")
+    ax.plot(th, res.simulated_pressure_bar, color="tab:red", lw=1.0, ls="--", label="simulated (fitted)")
+    ax.set_xlabel("crank angle [deg]  (0 = firing TDC)")
+    ax.set_ylabel("cylinder pressure [bar]")
+    ax.set_title("measured and simulated pressure")
+    ax.legend()
+    files.append(_save(fig, out / "fit_pressure.png"))
+
+    fig, ax = plt.subplots(figsize=(6, 4.5))
+    ok = (res.measured_pressure_bar > 0) & (res.simulated_pressure_bar > 0)
+    ax.loglog(res.volume_m3[ok] * 1e6, res.measured_pressure_bar[ok], color="k", lw=1.2, label="measured")
+    ax.loglog(res.volume_m3[ok] * 1e6, res.simulated_pressure_bar[ok], color="tab:red", lw=1.0, ls="--",
+              label="simulated")
+    ax.set_xlabel("volume [cm^3]")
+    ax.set_ylabel("pressure [bar]")
+    ax.set_title("log p - log V")
+    ax.legend()
+    files.append(_save(fig, out / "fit_logp_logv.png"))
+
+    fig, ax = plt.subplots(figsize=(7.5, 4.2))
+    ax.plot(th, res.measured_heat_release_J, color="k", lw=1.2, label="measured")
+    ax.plot(th, res.simulated_heat_release_J, color="tab:red", lw=1.0, ls="--", label="simulated")
+    ax.set_xlabel("crank angle [deg]")
+    ax.set_ylabel("apparent net heat release [J]")
+    ax.set_title("apparent heat release (same analyser for both)")
+    ax.legend()
+    files.append(_save(fig, out / "fit_heat_release.png"))
+
+    fig, ax = plt.subplots(figsize=(7.5, 3.4))
+    ax.plot(th, res.residual_bar, color="tab:blue", lw=0.8)
+    ax.axhline(0.0, color="0.5", lw=0.6)
+    ax.set_xlabel("crank angle [deg]")
+    ax.set_ylabel("simulated - measured [bar]")
+    ax.set_title(f"pressure residual (RMS {res.rms:.3g} bar weighted)")
+    files.append(_save(fig, out / "fit_residuals.png"))
+    return files
+
+
+# --------------------------------------------------------------------------
+# fit()
+# --------------------------------------------------------------------------
+
+
+def _resolve_case(case) -> tuple[Case, str | None]:
+    if isinstance(case, Case):
+        return case, None
+    return load_config(case), str(case)
+
+
+def _problem_result(pb: _Problem, stt: dict, base_case: Case, source, mode, target, level, covariance,
+                    simulations, notes, initial) -> FitResult:
+    pt = pb.points[0]
+    res = pb.bases[0]
+    sim = pt.simulated(res)
+    cal = case_with(pt.case, {k: float(pb.x[j]) for k, j in zip(pt.keys, pt.idx)})
+    return FitResult(
+        params=list(pb.names), values=pb.x.copy(), initial=initial.copy(), stderr=stt["stderr"],
+        ci_low=stt["ci_low"], ci_high=stt["ci_high"], lower=pb.lo.copy(), upper=pb.hi.copy(),
+        covariance=stt["covariance"], correlation=stt["correlation"],
+        covariance_classical=stt["covariance_classical"], covariance_hac=stt["covariance_hac"],
+        covariance_kind=covariance, level=level, dof=stt["dof"], rms=stt["rms"], n_residuals=stt["n"],
+        theta=pt.theta, measured_pressure_bar=pt.p_meas, simulated_pressure_bar=sim["pressure_bar"],
+        measured_heat_release_J=pt.hr_meas, simulated_heat_release_J=sim["heat_release_J"],
+        residual_bar=sim["pressure_bar"] - pt.p_meas, volume_m3=np.interp(pt.theta, pt.data.theta, pt.data.volume_m3),
+        case=cal, base_case=base_case, mode=mode, target=target, iterations=pb.iterations,
+        simulations=simulations, converged=pb.converged, message=pb.message, source=source,
+        warnings=list(stt["warnings"]), notes=list(notes),
+        stats={k: stt[k] for k in ("s2", "n_eff", "hac_lag", "condition_number", "t_quantile")},
+        summary=dict(res.summary),
+    )
+
+
+def _segments(pb: _Problem) -> list[int]:
+    seg = []
+    for pt in pb.points:
+        if pt.target in ("pressure", "both"):
+            seg.append(pt.theta.size)
+        if pt.target in ("heat_release", "both"):
+            seg.append(int(pt.hr_mask.sum()))
+    return seg
+
+
+def fit(case, traces, params: Sequence[str], *, mode: str = "closed", weights=None, target: str = "pressure",
+        ensemble: str = "mean", peg: str | None = "intake", tdc_correct: bool = False,
+        tdc_offset_deg: float | None = None, motored=None, window=None, bounds: Mapping | None = None,
+        start: Mapping | None = None, level: float = 0.95, covariance: str = "classical",
+        use_trace_operating: bool = True, step_deg: float | None = None, max_iter: int = 40,
+        fd_rel: float = 1e-4, progress=None) -> FitResult:
+    """Fit chosen parameters of a config to measured cylinder pressure.
+
+    Parameters
+    ----------
+    case : Case, str or Path
+        The engine and operating point (config path or built-in name, or a Case).
+    traces : TraceSet, path, or a list of them
+        Measured cycles (csv, npz or mf4 through :func:`read_trace`); several
+        files of one operating point are joined.
+    params : sequence of str
+        Dotted keys to fit, e.g. ``burn.ignition_delay_deg``, ``burn.duration_deg``,
+        ``burn.m``, ``burn.ca50_deg``, ``heat_transfer.multiplier``,
+        ``engine.compression_ratio``, ``blowby.effective_area_mm2`` and in
+        closed mode ``operating.ivc_pressure_bar``, ``operating.ivc_temperature_K``,
+        ``operating.residual_fraction``.
+    mode : {"closed", "full"}
+        Simulate IVC..EVO from a given IVC state (fast), or the full cycle.
+    weights : mapping of (lo, hi) -> weight, optional
+        Weights of the squared residual per crank-angle region [deg -> -]
+        (later entries win where regions overlap; default 1).
+    target : {"pressure", "heat_release", "both"}
+    ensemble : {"mean", "each"}
+        Fit the mean of the fired cycles, or every fired cycle on its own.
+    peg : {"intake", "polytropic", None}
+        Pegging of the analyser (None: the signal is absolute).
+    tdc_correct : bool
+        Estimate the TDC offset from motored cycles (in ``traces`` or ``motored``).
+    tdc_offset_deg : float, optional
+        A known TDC offset [deg] (instead of the estimate).
+    motored : TraceSet or path, optional
+        Motored cycles of the same recording for ``tdc_correct``.
+    window : (float, float), optional
+        Crank-angle window of the residuals [deg] (inside IVC..EVO in closed mode).
+    bounds : mapping of key -> (lo, hi), optional
+        Narrower bounds than the declared ranges.
+    start : mapping of key -> value, optional
+        Start values (default: the config's).
+    level : float
+        Confidence level of the intervals [-].
+    covariance : {"classical", "hac"}
+        Which covariance the intervals use (see the module notes).
+    use_trace_operating : bool
+        Take speed, intake pressure/temperature and lambda from the trace's metadata.
+    step_deg : float, optional
+        Integration step for the fit [deg] (default: the config's).
+
+    Returns
+    -------
+    FitResult
+    """
+    base_case, source = _resolve_case(case)
+    params = list(dict.fromkeys(params))
+    if not params:
+        raise ConfigError("fit: give at least one parameter to fit")
+    if target not in ("pressure", "heat_release", "both"):
+        raise ConfigError(f"fit: target = {target!r}: choose pressure, heat_release or both")
+    if mode == "full" and any(k in TRAPPED_STATE_KEYS for k in params):
+        raise ConfigError("fit: the IVC state (operating.ivc_*, residual_fraction) is a closed-mode parameter;"
+                          " in full mode the gas exchange sets it")
+    data, case0 = measured_data(base_case, traces, ensemble=ensemble, peg=peg, tdc_correct=tdc_correct,
+                                tdc_offset_deg=tdc_offset_deg, motored=motored,
+                                use_trace_operating=use_trace_operating)
+    notes = [f"operating point from the trace metadata: {k} = {v:g}" for k, v in data.changes.items()]
+    if data.analysis.tdc.get("offset_deg"):
+        notes.append(f"TDC offset {data.analysis.tdc['offset_deg']:+.3f} deg corrected ({data.analysis.tdc['method']})")
+    notes.append(f"{len(data.cycles[0]) if ensemble == 'mean' else len(data.cycles)} fired cycles"
+                 f" ({'mean' if ensemble == 'mean' else 'each fitted'})")
+    tmpl, n2 = _fit_case(case0, data, params, mode, step_deg)
+    notes += n2
+    lo = np.empty(len(params))
+    hi = np.empty(len(params))
+    for j, k in enumerate(params):
+        lo[j], hi[j] = param_bounds(tmpl, k)
+        if bounds and k in bounds:
+            lo[j], hi[j] = max(lo[j], float(bounds[k][0])), min(hi[j], float(bounds[k][1]))
+    x0 = np.array([float(start[k]) if start and k in start else _current_value(tmpl, k) for k in params])
+    x0 = np.clip(x0, lo, hi)
+    typ = np.maximum(np.abs(x0), 1e-2 * np.where(np.isfinite(hi - lo), hi - lo, 1.0))
+    typ = np.where(typ > 0, typ, 1.0)
+    problems = []
+    for row in range(data.pressure_bar.shape[0]):
+        pt = _make_point(tmpl, data, row, params, np.arange(len(params)), mode=mode, target=target,
+                         weights=weights, window=window)
+        problems.append(_Problem([pt], list(params), x0.copy(), lo, hi, typ))
+    nsim = _solve(problems, max_iter=max_iter, fd_rel=fd_rel, progress=progress)
+    results = []
+    for pb in problems:
+        stt = _statistics(pb.J, pb.r, pb.x, lo, hi, params, _segments(pb), level, covariance)
+        results.append(_problem_result(pb, stt, base_case, source, mode, target, level, covariance, nsim,
+                                       notes, x0))
+    if ensemble == "mean":
+        out = results[0]
+    else:
+        out = _combine_cycles(results, level)
+    for w in out.warnings:
+        print(f"cyclesim fit: WARNING: {w}")
+    return out
+
+
+def _combine_cycles(results: list[FitResult], level: float) -> FitResult:
+    """Per-cycle fits -> their mean, with the sample covariance of the mean."""
+    from scipy import stats
+
+    X = np.stack([r.values for r in results])
+    k = X.shape[0]
+    first = results[0]
+    mean = X.mean(axis=0)
+    if k > 1:
+        C = np.cov(X, rowvar=False, ddof=1).reshape(len(mean), len(mean)) / k
+        tq = float(stats.t.ppf(0.5 + level / 2.0, k - 1))
+    else:
+        C, tq = first.covariance, first.stats["t_quantile"]
+    sd = np.sqrt(np.maximum(np.diag(C), 0.0))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        corr = np.where(np.outer(sd, sd) > 0, C / np.outer(sd, sd), 0.0)
+    np.fill_diagonal(corr, 1.0)
+    warns = []
+    for r_i, r in enumerate(results):
+        for w in r.warnings:
+            tag = f"cycle fit: {w}"
+            if tag not in warns:
+                warns.append(tag)
+    cal = case_with(first.case, {p: float(mean[j]) for j, p in enumerate(first.params)})
+    out = copy.copy(first)
+    out.values, out.stderr, out.ci_low, out.ci_high = mean, sd, mean - tq * sd, mean + tq * sd
+    out.covariance, out.correlation, out.dof = C, corr, float(max(k - 1, 1))
+    out.covariance_kind = "spread of the per-cycle fits / number of cycles"
+    out.case, out.cycles, out.warnings = cal, results, warns
+    out.converged = all(r.converged for r in results)
+    out.message = f"{sum(r.converged for r in results)} of {k} cycle fits converged"
+    out.iterations = max(r.iterations for r in results)
+    return out
+
+
+# --------------------------------------------------------------------------
+# Several operating points
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class PointsFit:
+    """A joint fit of several operating points.
+
+    Attributes
+    ----------
+    names : list of str
+        Parameter labels: shared keys as they are, per-point keys as ``key@i``.
+    values, stderr, ci_low, ci_high : ndarray
+        Over ``names``.
+    covariance, correlation : ndarray
+        Joint (block-structured problem) estimates.
+    points : list of FitResult
+        One per operating point (its own values: shared plus its per-point ones,
+        with the joint covariance's block).
+    shared, per_point : list of str
+    warnings : list of str
+    """
+
+    names: list
+    values: np.ndarray
+    stderr: np.ndarray
+    ci_low: np.ndarray
+    ci_high: np.ndarray
+    covariance: np.ndarray
+    correlation: np.ndarray
+    points: list
+    shared: list
+    per_point: list
+    warnings: list = field(default_factory=list)
+    level: float = 0.95
+
+    def text(self) -> str:
+        lines = [f"joint fit of {len(self.points)} operating points: shared {', '.join(self.shared) or '-'};"
+                 f" per point {', '.join(self.per_point) or '-'}"]
+        w = max(len(n) for n in self.names)
+        for j, n in enumerate(self.names):
+            lines.append(f"  {n:<{w}s} {self.values[j]:11.5g} +- {self.stderr[j]:.3g}"
+                         f"  [{self.ci_low[j]:.5g}, {self.ci_high[j]:.5g}]")
+        for m in self.warnings:
+            lines.append(f"  WARNING: {m}")
+        return "\n".join(lines)
+
+
+def fit_points(cases: Sequence, traces_list: Sequence, shared: Sequence[str] = (),
+               per_point: Sequence[str] = (), *, mode: str = "closed", target: str = "pressure",
+               weights=None, peg: str | None = "intake", tdc_correct: bool = False,
+               tdc_offset_deg: float | None = None, level: float = 0.95, covariance: str = "classical",
+               use_trace_operating: bool = True, step_deg: float | None = None, window=None,
+               max_iter: int = 40, fd_rel: float = 1e-4) -> PointsFit:
+    """Fit shared and per-point parameters of several operating points jointly.
+
+    The parameter vector is ``[shared..., per_point of point 0..., per_point of
+    point 1..., ...]``; the Jacobian is block-structured (a per-point parameter
+    moves only its own point's residuals), so an iteration simulates each
+    point at its trial values, once per shared parameter and once per own
+    parameter: ``P (1 + n_shared + n_per_point)`` cases, all in one batch.
+
+    Parameters
+    ----------
+    cases : sequence of Case or config paths
+        One per operating point.
+    traces_list : sequence
+        Measured traces of each point (as for :func:`fit`; each point's fired
+        cycles are averaged).
+    shared, per_point : sequence of str
+        Dotted keys common to all points, and fitted separately per point.
+    Other parameters as in :func:`fit`.
+
+    Returns
+    -------
+    PointsFit
+    """
+    shared, per_point = list(shared), list(per_point)
+    if set(shared) & set(per_point):
+        raise ConfigError(f"fit_points: {sorted(set(shared) & set(per_point))} both shared and per point")
+    if not shared and not per_point:
+        raise ConfigError("fit_points: give shared and/or per-point parameters")
+    if len(cases) != len(traces_list):
+        raise ConfigError(f"fit_points: {len(cases)} cases but {len(traces_list)} trace sets")
+    keys = shared + per_point
+    ns, nq, P = len(shared), len(per_point), len(cases)
+    names = list(shared) + [f"{k}@{i}" for i in range(P) for k in per_point]
+    pts, x0, lo, hi, bases, srcs, notes_all = [], [], [], [], [], [], []
+    xs = np.zeros(ns + P * nq)
+    lo = np.zeros_like(xs)
+    hi = np.zeros_like(xs)
+    for i, (c, t) in enumerate(zip(cases, traces_list)):
+        bc, src = _resolve_case(c)
+        data, c0 = measured_data(bc, t, ensemble="mean", peg=peg, tdc_correct=tdc_correct,
+                                 tdc_offset_deg=tdc_offset_deg, use_trace_operating=use_trace_operating)
+        tmpl, notes = _fit_case(c0, data, keys, mode, step_deg)
+        idx = list(range(ns)) + [ns + i * nq + q for q in range(nq)]
+        for k, j in zip(keys, idx):
+            l, h = param_bounds(tmpl, k)
+            v = _current_value(tmpl, k)
+            if j < ns and i > 0:
+                lo[j], hi[j] = max(lo[j], l), min(hi[j], h)
+                continue
+            lo[j], hi[j], xs[j] = l, h, v
+        pts.append(_make_point(tmpl, data, 0, keys, idx, mode=mode, target=target, weights=weights,
+                               window=window))
+        bases.append(bc)
+        srcs.append(src)
+        notes_all.append(notes)
+    xs = np.clip(xs, lo, hi)
+    typ = np.maximum(np.abs(xs), 1e-2 * np.where(np.isfinite(hi - lo), hi - lo, 1.0))
+    typ = np.where(typ > 0, typ, 1.0)
+    pb = _Problem(pts, names, xs.copy(), lo, hi, typ)
+    nsim = _solve([pb], max_iter=max_iter, fd_rel=fd_rel)
+    stt = _statistics(pb.J, pb.r, pb.x, lo, hi, names, _segments(pb), level, covariance)
+    point_results = []
+    o = 0
+    for i, pt in enumerate(pts):
+        n = pt.theta.size * (1 if target != "both" else 1) + (0 if target == "pressure" else 0)
+        idx = pt.idx
+        sub = {k: stt[k][idx] for k in ("stderr", "ci_low", "ci_high")}
+        C = stt["covariance"][np.ix_(idx, idx)]
+        sd = np.sqrt(np.maximum(np.diag(C), 0))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            corr = np.where(np.outer(sd, sd) > 0, C / np.outer(sd, sd), 0.0)
+        np.fill_diagonal(corr, 1.0)
+        one = _Problem([pt], keys, pb.x[idx], lo[idx], hi[idx], typ[idx])
+        one.bases = {0: pb.bases[i]}
+        one.iterations, one.converged, one.message = pb.iterations, pb.converged, pb.message
+        one.points = [_Point(**{**pt.__dict__, "idx": np.arange(len(keys))})]
+        st1 = dict(stt)
+        st1.update(sub)
+        st1.update(covariance=C, correlation=corr,
+                   covariance_classical=stt["covariance_classical"][np.ix_(idx, idx)],
+                   covariance_hac=stt["covariance_hac"][np.ix_(idx, idx)],
+                   warnings=[w for w in stt["warnings"]])
+        point_results.append(_problem_result(one, st1, bases[i], srcs[i], mode, target, level, covariance,
+                                             nsim, notes_all[i], np.asarray(xs)[idx]))
+    for w in stt["warnings"]:
+        print(f"cyclesim fit: WARNING: {w}")
+    return PointsFit(names, pb.x.copy(), stt["stderr"], stt["ci_low"], stt["ci_high"], stt["covariance"],
+                     stt["correlation"], point_results, shared, per_point, list(stt["warnings"]), level)
+
+
+# --------------------------------------------------------------------------
+# Burn table
+# --------------------------------------------------------------------------
+
+_BURN_COLUMNS = ("spark_advance_deg", "ignition_delay_deg", "duration_deg", "m", "a", "ca50_deg",
+                 "burn_10_90_deg", "combustion_efficiency")
+
+
+def burn_table(fits: Sequence) -> list[dict]:
+    """Burn parameters of calibrated operating points against speed and load.
+
+    Parameters
+    ----------
+    fits : sequence of FitResult, or a PointsFit
+        One per operating point.
+
+    Returns
+    -------
+    list of dict
+        One row per point: ``speed_rpm``, ``intake_pressure_bar`` (the load
+        coordinate), ``imep_bar`` (simulated, from the fitted case; closed-cycle
+        IMEP in closed mode), the burn model, every burn parameter of that
+        model, and for fitted ones ``<name>_stderr``.
+    """
+    if isinstance(fits, PointsFit):
+        fits = fits.points
+    rows = []
+    for f in fits:
+        c = f.case
+        ch = c.submodels["burn"]
+        row = {"speed_rpm": float(c.operating.speed_rpm),
+               "intake_pressure_bar": float(c.operating.intake_pressure_bar),
+               "lambda": float(getattr(c.operating, "lambda")),
+               "imep_bar": f.summary.get("imep_net_bar", f.summary.get("imep_closed_bar", float("nan"))),
+               "burn_model": ch.model}
+        for k in _BURN_COLUMNS:
+            if k in ch.params and ch.params[k] is not None:
+                row[k] = float(ch.params[k])
+                key = f"burn.{k}"
+                if key in f.params:
+                    row[f"{k}_stderr"] = float(f.stderr[f.params.index(key)])
+        rows.append(row)
+    return rows
+
+
+def write_burn_table(rows: Sequence[dict], path) -> Path:
+    """Write a burn table (see :func:`burn_table`) as CSV with a units comment line."""
+    from .output import atomic_write_text
+
+    cols: list[str] = []
+    for r in rows:
+        for k in r:
+            if k not in cols:
+                cols.append(k)
+    lines = ["# burn parameters per operating point; units in the column names (deg, bar, rpm; m, a,"
+             " lambda, combustion_efficiency dimensionless); crank angle 0 = firing TDC",
+             ",".join(cols)]
+    for r in rows:
+        vals = []
+        for k in cols:
+            v = r.get(k, "")
+            vals.append(f"{v:.8g}" if isinstance(v, float) else str(v))
+        lines.append(",".join(vals))
+    atomic_write_text(Path(path), "\n".join(lines) + "\n")
+    return Path(path)
