@@ -135,13 +135,19 @@ def test_heat_transfer_and_combustion_efficiency_raise_the_identifiability_warni
     ts = _closed_trace(truth)
     rng = np.random.default_rng(3)
     ts.pressure_pa = ts.pressure_pa + rng.normal(0.0, 0.02 * BAR, ts.pressure_pa.shape)
-    res = fit(case, ts, ["heat_transfer.multiplier", "burn.combustion_efficiency"], peg=None)
-    # Both lower the pressure after the start of combustion in proportion to the heat
-    # released: a trace of pressure alone hardly separates less energy released from
-    # more lost to the walls (e.g. Heywood 1988 sec. 10.4 on apparent heat release).
+    keys = ["heat_transfer.multiplier", "burn.combustion_efficiency", "burn.ignition_delay_deg",
+            "burn.duration_deg"]
+    res = fit(case, ts, keys, peg=None)
+    # Both lower the pressure after the start of combustion roughly in proportion to the heat
+    # released: pressure alone hardly separates less energy released from more lost to the
+    # walls (e.g. Heywood 1988 sec. 10.4 on apparent heat release).  With the burn start and
+    # duration free as well (the usual calibration set) the two correlate at |r| ~ 0.96 here
+    # (measured; the pair alone, burn fixed, reaches only ~0.86: the compression heat loss
+    # then still tells them apart).
     r = res.correlation[0, 1]
     assert abs(r) > 0.95
-    assert any("cannot tell them apart" in w and "heat_transfer.multiplier" in w for w in res.warnings)
+    assert any("cannot tell them apart" in w and "heat_transfer.multiplier" in w
+               and "burn.combustion_efficiency" in w for w in res.warnings)
     # and a well-separated pair does not raise it (burn start and heat-transfer multiplier)
     res2 = fit(case, ts, ["burn.ignition_delay_deg", "heat_transfer.multiplier"], peg=None)
     assert not any("cannot tell them apart" in w for w in res2.warnings)

@@ -301,16 +301,22 @@ def dask_cluster():
             cluster.close(timeout=20)
 
 
-def test_dask_cluster_gives_the_in_process_results_exactly(dask_cluster, base, tmp_path, serial_chunks):
+def test_dask_cluster_gives_the_in_process_results_exactly(dask_cluster, base, tmp_path, serial_chunks,
+                                                          plugin_config):
     from distributed import Client
 
     chunks, serial = serial_chunks
     seen = []
+    plug = [[load_config(plugin_config, [*FAST, f"heat_transfer.h_W_per_m2K={h}"])] for h in (100, 1500)]
     with Client(dask_cluster, timeout="20s") as client:
         par = run_chunks(chunks, backend="dask", client=client, on_result=lambda k, r: seen.append(k))
+        plug_par = run_chunks(plug, backend="dask", client=client)
     assert sorted(seen) == [0, 1, 2]
     for a, b in zip(serial, par):
         assert_same_results(a, b)
+    for a, b in zip(run_chunks(plug, backend="serial"), plug_par):      # plug-in by path, loaded by the workers
+        assert_same_results(a, b)
+        assert b[0].ok and b[0].models["heat_transfer"] == "fixed_h"
 
     vary = [(SPARK, "10:30:5")]
     ser = sweep(base, vary, out=tmp_path / "s", chunk_size=2, workers=1)

@@ -1,0 +1,126 @@
+"""Command line of calibration: ``cyclesim fit`` and ``cyclesim predict``."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from .errors import ConfigError, CyclesimError
+
+__all__ = ["add_parsers", "cmd_fit", "cmd_predict", "HANDLERS"]
+
+
+def add_parsers(subparsers) -> None:
+    """Add the ``fit`` and ``predict`` sub-commands to an ``argparse`` sub-parser set."""
+    f = subparsers.add_parser(
+        "fit", help="fit submodel parameters to measured cylinder pressure; write a calibrated config")
+    f.add_argument("config", help="config (path or built-in name) of the engine and operating point")
+    f.add_argument("traces", nargs="+", type=Path, help="measured trace file(s): .csv, .npz or .mf4")
+    f.add_argument("--param", dest="params", action="append", required=True, metavar="KEY",
+                   help="dotted key to fit, e.g. burn.duration_deg (repeatable)")
+    f.add_argument("--out", type=Path, required=True, help="folder for calibrated.yaml, calibration.json, plots")
+    f.add_argument("--mode", choices=("closed", "full"), default="closed",
+                   help="simulate the closed cycle IVC..EVO (default, fast) or the full cycle")
+    f.add_argument("--target", choices=("pressure", "heat_release", "both"), default="pressure")
+    f.add_argument("--ensemble", choices=("mean", "each"), default="mean",
+                   help="fit the mean of the fired cycles (default) or each cycle")
+    f.add_argument("--peg", choices=("intake", "polytropic", "none"), default="intake")
+    f.add_argument("--tdc-correct", action="store_true", help="estimate the TDC offset from motored cycles")
+    f.add_argument("--tdc-offset", type=float, metavar="DEG", help="a known TDC offset to correct [deg]")
+    f.add_argument("--motored", type=Path, help="motored trace set of the same recording (for --tdc-correct)")
+    f.add_argument("--weight", dest="weights", action="append", default=[], metavar="LO:HI=W",
+                   help="weight of the squared residual between LO and HI deg (repeatable)")
+    f.add_argument("--window", metavar="LO:HI", help="crank-angle window of the residuals [deg]")
+    f.add_argument("--covariance", choices=("classical", "hac"), default="classical",
+                   help="s^2 (J^T J)^-1 (default) or the autocorrelation-robust sandwich estimate")
+    f.add_argument("--level", type=float, default=0.95, help="confidence level of the intervals (0.95)")
+    f.add_argument("--step", type=float, metavar="DEG", help="integration step of the fit [deg]")
+    f.add_argument("--no-plots", action="store_true")
+    f.add_argument("--force", action="store_true", help="write into a non-empty --out folder")
+    f.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
+                   help="override a value of the config (repeatable)")
+    f.add_argument("--debug", action="store_true", help="show tracebacks")
+
+    p = subparsers.add_parser(
+        "predict", help="sweep a calibrated config with parameter samples from its covariance (bands)")
+    p.add_argument("config", help="calibrated config (calibrated.yaml)")
+    p.add_argument("--calibration", type=Path, required=True, help="calibration.json written by 'cyclesim fit'")
+    p.add_argument("--vary", required=True, metavar="KEY=SPEC",
+                   help="swept key and values, e.g. burn.spark_advance_deg=10:40:2")
+    p.add_argument("--study", choices=("sweep", "spark"), default="sweep",
+                   help="plain sweep, or spark sweep with the MBT distribution")
+    p.add_argument("--samples", type=int, default=64, help="parameter samples (default 64)")
+    p.add_argument("--seed", type=int, default=1)
+    p.add_argument("--band", default="5:95", metavar="LO:HI", help="quantile band in percent (default 5:95)")
+    p.add_argument("--out", type=Path, required=True)
+    p.add_argument("--no-plots", action="store_true")
+    p.add_argument("--force", action="store_true")
+    p.add_argument("--debug", action="store_true")
+
+
+def _pair(text: str, what: str) -> tuple[float, float]:
+    try:
+        a, b = (float(x) for x in text.split(":"))
+    except ValueError:
+        raise ConfigError(f"{what} {text!r}: expected LO:HI, e.g. -30:60") from None
+    if not a < b:
+        raise ConfigError(f"{what} {text!r}: LO must be below HI")
+    return a, b
+
+
+def cmd_fit(args) -> int:
+    """Handler of ``cyclesim fit``."""
+    from .config import load_config
+    from .fit import fit
+    from .output import prepare_out_dir
+
+    case = load_config(args.config, list(args.overrides))
+    weights = {}
+    for w in args.weights:
+        rng, _, val = w.partition("=")
+        if not val:
+            raise ConfigError(f"--weight {w!r}: expected LO:HI=W, e.g. -20:40=4")
+        try:
+            weights[_pair(rng, "--weight")] = float(val)
+        except ValueError:
+            raise ConfigError(f"--weight {w!r}: weight {val!r} is not a number") from None
+    prepare_out_dir(args.out, args.force)
+    res = fit(case, [str(t) for t in args.traces], args.params, mode=args.mode, weights=weights or None,
+              target=args.target, ensemble=args.ensemble, peg=None if args.peg == "none" else args.peg,
+              tdc_correct=args.tdc_correct, tdc_offset_deg=args.tdc_offset, motored=args.motored,
+              window=_pair(args.window, "--window") if args.window else None, level=args.level,
+              covariance=args.covariance, step_deg=args.step)
+    if not args.overrides:
+        res.source = args.config
+    print(res.text())
+    files = res.write(args.out, plots=not args.no_plots)
+    print(f"wrote {len(files)} files to {args.out}/: " + ", ".join(p.name for p in files))
+    return 0
+
+
+def cmd_predict(args) -> int:
+    """Handler of ``cyclesim predict``."""
+    from .output import prepare_out_dir
+    from .studies.uncertainty import propagate
+
+    lo, hi = _pair(args.band, "--band")
+    if not (0 <= lo < hi <= 100):
+        raise ConfigError(f"--band {args.band!r}: expected percentages 0 <= LO < HI <= 100")
+    prepare_out_dir(args.out, args.force)
+    res = propagate(args.config, args.calibration, study=args.study, vary=args.vary, n_samples=args.samples,
+                    seed=args.seed, quantiles=(lo / 100, hi / 100))
+    files = res.write(args.out, plots=not args.no_plots)
+    main = next((f for f in ("torque_Nm", "imep_net_bar", "imep_closed_bar") if f in res.figures), None)
+    print(f"{res.key}: {len(res.values)} points x {len(res.samples)} samples"
+          f" ({res.n_failed} failed); {lo:g}-{hi:g} % bands")
+    if main:
+        d = res.figures[main]
+        for i, v in enumerate(res.values):
+            print(f"  {v:>10g}  {main} {d['nominal'][i]:9.3f}  [{d['lower'][i]:9.3f}, {d['upper'][i]:9.3f}]")
+    if res.mbt:
+        print(f"  MBT {res.mbt['nominal_deg']} deg (band {res.mbt['lower_deg']:.2f} .. {res.mbt['upper_deg']:.2f})")
+    print(f"wrote {len(files)} files to {args.out}/: " + ", ".join(p.name for p in files))
+    return 0
+
+
+HANDLERS = {"fit": cmd_fit, "predict": cmd_predict}
