@@ -5,9 +5,9 @@
 
 Each timing is the median of ``--repeat`` runs, in-process unless named
 otherwise.  Targets (2-core machine) are printed beside the figures.
-``grid_1000_workers2_*`` run the 1000-case grid on 2 worker processes; the
-speed-up is against ``grid_1000_s`` (one process) and depends on how busy the
-machine's cores are.
+``grid_1000_workers2_s`` runs the 1000-case grid on 2 worker processes
+(:func:`cyclesim.parallel.run_cases`); its speed-up is against
+``grid_1000_s`` (one process) and depends on how busy the cores are.
 """
 
 from __future__ import annotations
@@ -104,22 +104,12 @@ def main(argv=None):
                 for n in np.linspace(1500, 6000, 10) for p in np.linspace(0.4, 1.0, 10)
                 for a in np.linspace(10, 40, 10)]
         res["grid_1000_s"], _ = timed(lambda: cyclesim.simulate(grid), 1)
-        # The same grid on 2 worker processes.  Interleaved halves keep every batch of the
-        # serial run (each half groups into the same batches, half as wide) and give both
-        # workers the same mix of cheap and costly (low-speed, finer-step) cases.
-        from cyclesim.parallel import run_chunks
-        from cyclesim.studies.sweep import sweep
+        # The same grid on 2 worker processes, one chunk per solver batch (costliest first), so
+        # every case runs in the batch it has above and gives the same figures bit for bit.
+        from cyclesim.parallel import run_cases
 
-        halves = [grid[0::2], grid[1::2]]
-        res["grid_1000_workers2_s"], _ = timed(lambda: run_chunks(halves, workers=2, backend="process"), 1)
+        res["grid_1000_workers2_s"], _ = timed(lambda: run_cases(grid, workers=2, backend="process"), 1)
         res["grid_1000_workers2_speedup"] = res["grid_1000_s"] / res["grid_1000_workers2_s"]
-        # As a user runs it: a sweep of the grid, 8 chunks of 125 handed to 2 workers as they free up.
-        vary = [("operating.speed_rpm", np.linspace(1500, 6000, 10)),
-                ("operating.intake_pressure_bar", np.linspace(0.4, 1.0, 10)),
-                ("burn.spark_advance_deg", np.linspace(10, 40, 10))]
-        res["grid_1000_sweep_workers2_chunk125_s"], _ = timed(
-            lambda: sweep(base, vary, chunk_size=125, workers=2, progress=False), 1)
-        res["grid_1000_sweep_workers2_speedup"] = res["grid_1000_s"] / res["grid_1000_sweep_workers2_chunk125_s"]
         try:
             from cyclesim.traces.synthesis import CycleVariation, synthesize
 

@@ -160,6 +160,8 @@ def _run_batch(cases: list[Case], registry, progress=None) -> list[CaseResult]:
             )
         res.warnings.extend(model_warn[i])
         res.warnings.extend(_gas_exchange_warnings(summ))
+        if batch.simulation.mode == "full" and summ.get("inducted_mass_mg", 1.0) <= 0:
+            res.warnings.append("no net fresh charge enters through the intake valves at this point")
         results.append(res)
     return results
 
@@ -186,17 +188,23 @@ def _gas_exchange_warnings(s: dict) -> list[str]:
     return out
 
 
-def simulate(cases: Sequence[Case], progress: Callable[[int], None] | None = None,
-             isolate: bool = True) -> list[CaseResult]:
-    """Simulate cases, batched where they share submodels and grid; results in input order.
+def _closure(res: CaseResult) -> float:
+    eb = res.summary.get("energy_balance") if res.ok else None
+    if not eb:
+        return 0.0
+    cf = eb.get("closure_fraction", 0.0)
+    return float(cf) if np.isfinite(cf) else float("inf")
 
-    A batch that fails as a whole (a plug-in raising, say) is re-run case by
-    case when ``isolate`` is true, so one bad case does not spoil the others.
-    """
+
+REFINE_CLOSURE = 1e-3
+"""Energy-balance miss (fraction of fuel energy) above which a case is re-run at half the step."""
+REFINE_STEPS = 2
+"""How many times a case's step is halved before it is reported as failed."""
+
+
+def _simulate_once(cases, registry, progress, isolate):
     from .batch import group_cases
 
-    cases = list(cases)
-    registry = _registry_for(cases)
     out: list[CaseResult | None] = [None] * len(cases)
     for idx in group_cases(cases, registry):
         group = [cases[i] for i in idx]
@@ -217,6 +225,54 @@ def simulate(cases: Sequence[Case], progress: Callable[[int], None] | None = Non
                         res.append(CaseResult(name=c.name, inputs=flat_inputs(c), error=str(e1)))
         for i, r in zip(idx, res):
             out[i] = r
+    return out
+
+
+def simulate(cases: Sequence[Case], progress: Callable[[int], None] | None = None,
+             isolate: bool = True, refine: bool = True) -> list[CaseResult]:
+    """Simulate cases, batched where they share submodels and grid; results in input order.
+
+    A batch that fails as a whole (a plug-in raising, say) is re-run case by
+    case when ``isolate`` is true, so one bad case does not spoil the others.
+
+    A case whose energy balance misses by more than :data:`REFINE_CLOSURE` of
+    its fuel energy is numerically unreliable at its step: with ``refine`` it is
+    re-run at half the step, up to :data:`REFINE_STEPS` times (the decision
+    depends only on the case itself, so batch-mates are unaffected), and the
+    result says so; if it still misses, the case fails with that message
+    rather than returning a wrong number.
+    """
+    from .config import case_with
+
+    cases = list(cases)
+    registry = _registry_for(cases)
+    out = _simulate_once(cases, registry, progress, isolate)
+    if not refine:
+        return out  # type: ignore[return-value]
+    for _ in range(REFINE_STEPS):
+        bad = [i for i, r in enumerate(out) if abs(_closure(r)) > REFINE_CLOSURE]
+        if not bad:
+            break
+        finer = []
+        for i in bad:
+            c = cases[i]
+            h = float(c.simulation.step_deg) / 2.0
+            c2 = case_with(c, {"simulation.step_deg": h})
+            c2.name = c.name
+            cases[i] = c2
+            finer.append(c2)
+        redo = _simulate_once(finer, registry, progress, isolate)
+        for i, r in zip(bad, redo):
+            miss = 100 * _closure(out[i])
+            r.warnings.insert(0, f"re-run at simulation.step_deg = {cases[i].simulation.step_deg:g}: the energy"
+                                 f" balance at twice that step missed by {miss:.2g} % of the fuel energy")
+            out[i] = r
+    for i, r in enumerate(out):
+        if abs(_closure(r)) > REFINE_CLOSURE:
+            r.error = (f"solver: the energy balance misses by {100 * _closure(r):.2g} % of the fuel energy even at"
+                       f" simulation.step_deg = {cases[i].simulation.step_deg:g}: numerically unreliable at this"
+                       f" crank angle resolution; reduce simulation.step_deg")
+            r.summary, r.trace = {}, {}
     return out  # type: ignore[return-value]
 
 

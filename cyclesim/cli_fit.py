@@ -29,7 +29,7 @@ def add_parsers(subparsers) -> None:
     f.add_argument("--tdc-offset", type=float, metavar="DEG", help="a known TDC offset to correct [deg]")
     f.add_argument("--motored", type=Path, help="motored trace set of the same recording (for --tdc-correct)")
     f.add_argument("--weight", dest="weights", action="append", default=[], metavar="LO:HI=W",
-                   help="weight of the squared residual between LO and HI deg (repeatable)")
+                   help="weight of the squared residual between LO and HI deg, e.g. --weight=-20:40=4 (repeatable)")
     f.add_argument("--window", metavar="LO:HI", help="crank-angle window of the residuals [deg]")
     f.add_argument("--covariance", choices=("classical", "hac"), default="classical",
                    help="s^2 (J^T J)^-1 (default) or the autocorrelation-robust sandwich estimate")
@@ -100,6 +100,8 @@ def cmd_fit(args) -> int:
 
 def cmd_predict(args) -> int:
     """Handler of ``cyclesim predict``."""
+    import numpy as np
+
     from .output import prepare_out_dir
     from .studies.uncertainty import propagate
 
@@ -118,7 +120,10 @@ def cmd_predict(args) -> int:
         for i, v in enumerate(res.values):
             print(f"  {v:>10g}  {main} {d['nominal'][i]:9.3f}  [{d['lower'][i]:9.3f}, {d['upper'][i]:9.3f}]")
     if res.mbt:
-        print(f"  MBT {res.mbt['nominal_deg']} deg (band {res.mbt['lower_deg']:.2f} .. {res.mbt['upper_deg']:.2f})")
+        nom = res.mbt.get("nominal_deg")
+        nom = "not bracketed" if nom is None or not np.isfinite(nom) else f"{nom:.2f} deg"
+        print(f"  MBT {nom} (band {res.mbt['lower_deg']:.2f} .. {res.mbt['upper_deg']:.2f} deg,"
+              f" {100 * res.mbt['bracketed_share']:.0f} % of samples bracketed)")
     print(f"wrote {len(files)} files to {args.out}/: " + ", ".join(p.name for p in files))
     return 0
 

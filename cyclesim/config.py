@@ -384,6 +384,13 @@ def _check_cross(case: Case) -> None:
                 f"valves.{port}_max_lift_mm = {getattr(v, f'{port}_max_lift_mm'):g}: must exceed"
                 f" threshold_lift_mm ({v.threshold_lift_mm:g})"
             )
+    for port in ("intake", "exhaust"):
+        dv = getattr(v, f"{port}_diameter_mm")
+        if dv > 0.6 * e.bore_mm:
+            raise ConfigError(
+                f"valves.{port}_diameter_mm = {dv:g}: does not fit a {e.bore_mm:g} mm bore"
+                f" (expected at most 0.6 x bore = {0.6 * e.bore_mm:.1f} mm)"
+            )
     f = case.fuel
     custom = [k for k in _FUEL_CUSTOM if getattr(f, k) not in (None,) and k != "O"]
     if custom and len(custom) < 3:

@@ -241,7 +241,8 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
         closure = released - sum(terms.values())
         out["chemical_energy_released_J"] = released
         out["energy_balance"] = {"chemical_energy_released_J": released, **terms,
-                                 "closure_J": closure, "closure_fraction": closure / np.maximum(fuel_energy, 1e-300)}
+                                 "closure_J": closure,
+                                 "closure_fraction": np.where(fuel_energy > 0, closure / np.where(fuel_energy > 0, fuel_energy, 1.0), np.nan)}
         out["eta_closed_cycle"] = W_net / np.maximum(fuel_energy, 1e-300)
         return out
 
@@ -321,7 +322,7 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     }
     closure = chem_in - sum(terms.values())
     out["energy_balance"] = {"fuel_energy_J": chem_in, **terms, "closure_J": closure,
-                             "closure_fraction": closure / np.maximum(chem_in, 1e-300)}
+                             "closure_fraction": np.where(chem_in > 0, closure / np.where(chem_in > 0, chem_in, 1.0), np.nan)}
     return out
 
 

@@ -319,15 +319,7 @@ class _Point:
         return r if np.all(np.isfinite(r)) else None
 
     def _hr(self, p_bar):
-        from .traces.analysis import apparent_heat_release
-
-        # the analyser on the full measured grid, the simulated pressure filled in the window
-        d = self.data
-        pf = d.pressure_bar[self.row].copy()
-        inside = np.isin(d.theta, self.theta)
-        pf[inside] = p_bar
-        Q, _ = apparent_heat_release(d.theta, pf * BAR, d.volume_m3, d.settings)
-        return Q[inside][self.hr_mask]
+        return self._hr_full(p_bar)[self.hr_mask]
 
     def simulated(self, res) -> dict:
         th_s = res.trace["crank_deg"]
@@ -335,6 +327,7 @@ class _Point:
         return {"pressure_bar": p, "heat_release_J": self._hr_full(p)}
 
     def _hr_full(self, p_bar):
+        """The analyser on the full measured grid, the simulated pressure filled in the window."""
         from .traces.analysis import apparent_heat_release
 
         d = self.data
@@ -1265,7 +1258,7 @@ def fit_points(cases: Sequence, traces_list: Sequence, shared: Sequence[str] = (
     keys = shared + per_point
     ns, nq, P = len(shared), len(per_point), len(cases)
     names = list(shared) + [f"{k}@{i}" for i in range(P) for k in per_point]
-    pts, x0, lo, hi, bases, srcs, notes_all = [], [], [], [], [], [], []
+    pts, bases, srcs, notes_all = [], [], [], []
     xs = np.zeros(ns + P * nq)
     lo = np.zeros_like(xs)
     hi = np.zeros_like(xs)
@@ -1296,7 +1289,6 @@ def fit_points(cases: Sequence, traces_list: Sequence, shared: Sequence[str] = (
     point_results = []
     o = 0
     for i, pt in enumerate(pts):
-        n = pt.theta.size * (1 if target != "both" else 1) + (0 if target == "pressure" else 0)
         idx = pt.idx
         sub = {k: stt[k][idx] for k in ("stderr", "ci_low", "ci_high")}
         C = stt["covariance"][np.ix_(idx, idx)]

@@ -38,6 +38,10 @@ carries (module names and absolute ``.py`` paths); a plug-in found through a
 changed ``sys.path`` is found in process workers too, since they start with
 the caller's ``sys.path`` and working folder.
 
+For a plain list of cases, :func:`run_cases` makes one chunk per solver batch
+(see :func:`batch_chunks`) and returns the results in case order, the same
+as ``cyclesim.simulate(cases)`` bit for bit.
+
 Workers
 -------
 ``workers`` is a whole number >= 1 or ``"auto"``: as many as there are CPUs
@@ -56,7 +60,7 @@ from typing import Any, Callable, Iterable, Sequence
 from .errors import ConfigError, CyclesimError
 
 __all__ = [
-    "run_chunk", "run_chunks", "resolve_workers", "parse_workers", "plan_execution",
+    "run_chunk", "run_chunks", "run_cases", "batch_chunks", "resolve_workers", "parse_workers", "plan_execution",
     "available_cpus", "start_method", "BACKENDS", "AUTO_MIN_CASES",
 ]
 
@@ -205,6 +209,75 @@ def plan_execution(n_cases: int, n_chunks: int, workers: int | str | None = None
     if n <= 1:
         return "serial", 1
     return "process", n
+
+
+# --------------------------------------------------------------------------
+# Chunks that follow the batches
+# --------------------------------------------------------------------------
+
+# Per-step cost of a batch of B cases ~ (B + _STEP_OVERHEAD_CASES): the fixed Python cost of
+# one right-hand-side evaluation equals the vector work of about this many cases (measured on
+# the full-cycle demo; a rough figure, used only to hand out the costliest chunks first).
+_STEP_OVERHEAD_CASES = 1000.0
+
+
+def _batch_cost(cases: Sequence) -> float:
+    from .config import effective_step_deg
+
+    c = cases[0]
+    sim = c.simulation
+    if sim.mode == "closed":
+        span = (float(c.valves.evo_deg) - float(c.valves.ivc_deg)) % 720.0 or 720.0
+        cycles = 1.0
+    else:
+        span, cycles = 720.0, float(sim.max_cycles)
+    steps = cycles * span / effective_step_deg(sim, c.operating.speed_rpm)
+    return steps * (len(cases) + _STEP_OVERHEAD_CASES)
+
+
+def batch_chunks(cases: Sequence, max_size: int | None = None) -> list[list[int]]:
+    """Case indices in chunks that follow the solver's batches, costliest first.
+
+    Each chunk is one batch of :func:`cyclesim.batch.group_cases` (split into
+    pieces of at most ``max_size`` cases if given).  Splitting a batch across
+    workers repeats its fixed per-step cost in each of them, so whole batches
+    are what is worth sharing out; with ``max_size`` None every case runs in
+    exactly the batch it has in ``simulate(cases)``, and so gives the same
+    figures bit for bit.  Chunks are ordered by estimated cost, largest first,
+    so that the workers finish close together.
+    """
+    from .api import _registry_for
+    from .batch import group_cases
+
+    cases = list(cases)
+    if not cases:
+        return []
+    if max_size is not None and max_size < 1:
+        raise ConfigError(f"chunk size {max_size!r}: expected a whole number >= 1")
+    out: list[list[int]] = []
+    for idx in group_cases(cases, _registry_for(cases)):
+        step = len(idx) if max_size is None else int(max_size)
+        out.extend(idx[i: i + step] for i in range(0, len(idx), step))
+    return sorted(out, key=lambda ch: -_batch_cost([cases[i] for i in ch]))
+
+
+def run_cases(cases: Sequence, workers: int | str | None = "auto", backend: str = "process",
+              max_chunk: int | None = None, **kw) -> list:
+    """:func:`cyclesim.simulate` spread over workers: one chunk per batch; results in case order.
+
+    ``max_chunk`` splits large batches (more chunks to share out, at some cost
+    per case; figures then agree with ``simulate(cases)`` to within the batch
+    independence of the solver rather than bit for bit).  Other keywords go to
+    :func:`run_chunks`.
+    """
+    cases = list(cases)
+    chunks = batch_chunks(cases, max_chunk)
+    per_chunk = run_chunks([[cases[i] for i in ch] for ch in chunks], workers=workers, backend=backend, **kw)
+    out: list = [None] * len(cases)
+    for ch, res in zip(chunks, per_chunk):
+        for i, r in zip(ch, res):
+            out[i] = r
+    return out
 
 
 # --------------------------------------------------------------------------

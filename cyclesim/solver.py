@@ -198,8 +198,16 @@ class _RHS:
         mb = y[2]
         xb = y[3]
         B = self.B
+        if not (np.isfinite(T).all() and np.isfinite(m).all()):
+            bad = ~(np.isfinite(T) & np.isfinite(m))
+            for i in np.flatnonzero(bad & self.alive):
+                self.failed[i] = (f"solver: state became non-finite at crank angle {theta:.2f} deg;"
+                                  f" try a smaller simulation.step_deg")
+            self.alive &= ~bad
+            y = np.where(bad[None, :], 1.0, y)
+            m, T, mb, xb = y[0], np.where(bad, 1000.0, y[1]), y[2] * 0.5, y[3]
         rho = m / V
-        yb = np.clip(mb / m, 0.0, 1.0)
+        yb = np.minimum(np.maximum(mb / m, 0.0), 1.0)
         g = self.gas
         mp = g.mixture(T, rho, yb)
         R = mp.R
@@ -269,7 +277,9 @@ class _RHS:
         mu = m - mb
         eta = self.eta_c
         dxb = np.where(burning, dxb, 0.0)
-        dm_burn = eta * dxb / np.maximum(1.0 - eta * xb, 1e-6) * np.maximum(mu, 0.0)
+        # the floor of the denominator keeps the rate bounded when x_b reaches 1 between grid
+        # points (it only slows the last 0.1 % of a burn)
+        dm_burn = eta * dxb / np.maximum(1.0 - eta * xb, 1e-3) * np.maximum(mu, 0.0)
         fbb = mbb * dt
         out = np.empty((self.n, B))
         if flows:

@@ -109,13 +109,16 @@ def test_recovers_burn_parameters_of_an_independent_reference_model():
     # Tolerances: both models share the GRI-Mech 3.0 data, so the remaining differences are
     # cyclesim's fixed 1-deg RK4 step (0.5 deg vs 1 deg changes its pressure by ~3e-4 bar,
     # measured), its tabulated burned-gas properties and the Hermite output interpolation;
-    # each is < 1e-3 of the peak pressure.  A pressure error of that size moves the Wiebe
-    # start by < 0.05 deg and the duration by < 0.2 %; we allow 4x that.
-    assert abs(res.value("burn.ignition_delay_deg") - DELAY) < 0.2
-    assert abs(res.value("burn.duration_deg") - DURATION) < 0.008 * DURATION
-    assert abs(res.value("burn.m") - M_FORM) < 0.03
+    # together they leave a residual RMS of ~2e-3 bar (4e-5 of the peak pressure, measured).
+    # A smooth pressure error of that size moves the Wiebe start by ~1e-3 deg and the
+    # duration by ~1e-3 deg (measured errors: 3e-4 deg, 1.2e-3 deg, m 1e-4); the bounds
+    # below allow an error budget 50x larger, still far below the 0.5-deg resolution of
+    # the measured grid.
+    assert abs(res.value("burn.ignition_delay_deg") - DELAY) < 0.05
+    assert abs(res.value("burn.duration_deg") - DURATION) < 0.002 * DURATION
+    assert abs(res.value("burn.m") - M_FORM) < 0.01
     # the fit explains the reference to well under 0.1 % of its peak pressure
-    assert res.rms < 1e-3 * p.max() / BAR
+    assert res.rms < 2e-4 * p.max() / BAR
 
 
 def _closed_trace(case, step=0.5):

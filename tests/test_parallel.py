@@ -176,6 +176,18 @@ def test_process_workers_give_the_serial_results_bit_for_bit(serial_chunks):
         assert_same_results(a, b)
 
 
+def test_run_cases_shares_out_whole_batches_and_matches_simulate():
+    import cyclesim
+    from cyclesim.parallel import batch_chunks, run_cases
+
+    cs = [load_config("demo_closed", [f"simulation.step_deg={h}", f"{SPARK}={a}"])
+          for a in (14, 22, 30) for h in (1.0, 2.0)]                    # two crank grids, interleaved
+    chunks = batch_chunks(cs)
+    assert chunks == [[0, 2, 4], [1, 3, 5]]                              # one per batch, finer step first
+    assert batch_chunks(cs, max_size=2) == [[0, 2], [4], [1, 3], [5]]
+    assert_same_results(run_cases(cs, workers=2), cyclesim.simulate(cs))
+
+
 def test_forkserver_workers_load_plugins_listed_by_path(plugin_config):
     cs = [load_config(plugin_config, [*FAST, f"heat_transfer.h_W_per_m2K={h}"]) for h in (0, 300, 900, 2000)]
     chunks = [cs[:2], cs[2:]]

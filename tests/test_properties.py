@@ -144,13 +144,6 @@ def fast_full_cases(draw):
     return over + [f"operating.speed_rpm={draw(st.floats(3000.0, 7000.0))}"], ht
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "package: at a strongly throttled point (first example: 60 mm bore, CR 7, lambda 0.7, "
-    "0.3 bar intake, spark at TDC, 3000 rpm) the cycle's energy balance misses by 0.51 J of "
-    "9.2 J fuel energy (-12 %), the net inducted mass is negative (-0.8 mg: the engine "
-    "breathes out through the intake, intake backflow 165 % of the trapped mass) and with "
-    "a fuel energy <= 0 in the balance closure_fraction overflows to about -2e298 "
-    "(closure / max(fuel, 1e-300))"))
 @settings(max_examples=5, phases=[Phase.explicit, Phase.generate], **SETTINGS)
 @given(fast_full_cases())
 def test_full_cycle_is_finite_and_conserves_energy(drawn):

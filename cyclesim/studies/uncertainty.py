@@ -147,7 +147,7 @@ class UncertaintyResult:
         atomic_write_text(files[0], "\n".join(lines) + "\n")
         doc = {"key": self.key, "values": self.values, "study": self.study, "quantiles": list(self.quantiles),
                "parameters": self.params, "samples": self.samples.tolist(), "n_failed": self.n_failed,
-               "mbt": {k: (None if v is None or not math.isfinite(v) else v) for k, v in self.mbt.items()},
+               "mbt": {k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in self.mbt.items()},
                "rows": [{k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in r.items()}
                         for r in rows],
                "caution": CAUTION}
