@@ -52,6 +52,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_parsers(sub)
     add_trace_parsers(sub)
+    from .cli_fit import add_parsers as add_fit_parsers
+
+    add_fit_parsers(sub)
     return ap
 
 
@@ -145,6 +148,9 @@ def main(argv: list[str] | None = None) -> int:
 
     handlers.update(HANDLERS)
     handlers.update(TRACE_HANDLERS)
+    from .cli_fit import HANDLERS as FIT_HANDLERS
+
+    handlers.update(FIT_HANDLERS)
     try:
         return handlers[args.command](args)
     except CyclesimError as exc:

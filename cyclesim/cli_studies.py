@@ -1,4 +1,4 @@
-"""Command-line front ends of the studies: ``cyclesim sweep`` and ``cyclesim spark``.
+"""Command-line front ends of the studies: ``sweep``, ``spark``, ``losses``, ``boost``, ``dyno``, ``map``, ``report``.
 
 To hook them into :mod:`cyclesim.cli`, add these two lines:
 
@@ -15,6 +15,11 @@ Examples::
     cyclesim sweep demo --vary burn.spark_advance_deg=10:40:2 --vary operating.speed_rpm=2000,3000 --out sw
     cyclesim sweep demo --vary burn.spark_advance_deg=10:40:2 --out sw --resume     # after an interruption
     cyclesim spark demo --advance 0:40:1 --out spark --pmax-limit 80
+    cyclesim losses demo --out losses --second-order alt
+    cyclesim boost demo_turbo --boost-bar 1.6 --out boost
+    cyclesim dyno demo --out dyno --mode torque --noise 2 3 20
+    cyclesim map demo --out map --speeds 2000:4500:500 --loads 0.4,0.6,0.8,0.98
+    cyclesim report losses --out losses.html
 
 Errors are :class:`cyclesim.errors.CyclesimError` subclasses (one line, exit 2).
 """
@@ -69,7 +74,7 @@ def _where(args) -> dict:
 
 
 def add_parsers(subparsers) -> None:
-    """Add the ``sweep`` and ``spark`` subcommands to an argparse subparsers object."""
+    """Add the study subcommands (sweep, spark, losses, boost, dyno, map, report) to argparse subparsers."""
     s = subparsers.add_parser(
         "sweep", help="run a grid (or paired list) of cases and write one table of figures",
         description="Vary config keys over lists or ranges; rows go to OUT/sweep.csv as cases finish,"
@@ -101,6 +106,7 @@ def add_parsers(subparsers) -> None:
                    help="limit of the largest pressure-rise rate [bar/deg]")
     k.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
     _common(k)
+    _add_engineering_parsers(subparsers)
     _parallel_options(k)
 
 
@@ -142,7 +148,207 @@ def cmd_spark(args) -> int:
     return 0
 
 
-HANDLERS = {"sweep": cmd_sweep, "spark": cmd_spark}
+# --------------------------------------------------------------------------
+# losses, boost, dyno, map, report
+# --------------------------------------------------------------------------
+
+
+def _simple(p: argparse.ArgumentParser, out_required: bool = True) -> None:
+    p.add_argument("config", nargs="?", default="demo",
+                   help="config file, or a built-in config name (default: demo)")
+    p.add_argument("--out", type=Path, required=out_required, help="folder for the results")
+    p.add_argument("--force", action="store_true", help="write into a non-empty --out folder")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
+                   help="override any config value (repeatable)")
+    p.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
+    p.add_argument("--debug", action="store_true", help="show tracebacks")
+
+
+def _add_engineering_parsers(subparsers) -> None:
+    lo = subparsers.add_parser(
+        "losses", help="loss breakdown from the air-standard Otto cycle to brake efficiency",
+        description="Switch the real effects on one at a time and report the efficiency after each step"
+                    " and the points of fuel energy lost at each (CSV, JSON, waterfall PNG).")
+    lo.add_argument("--order", default=None, metavar="K1,K2,...",
+                    help="order of the closed-cycle steps (real_gas,dissociation,burn,heat_transfer,blowby,"
+                         "combustion,evo)")
+    lo.add_argument("--second-order", default=None, metavar="K1,K2,...|alt",
+                    help="also compute a second order ('alt': heat transfer before the burn)")
+    lo.add_argument("--closed-step", type=float, default=0.1, metavar="DEG",
+                    help="integration step of the closed-cycle steps (default 0.1)")
+    _simple(lo)
+
+    b = subparsers.add_parser(
+        "boost", help="match a turbocharger (compressor, intercooler, turbine, wastegate) at a boost pressure",
+        description="Iterate cylinder and turbocharger to a consistent exhaust back pressure; report"
+                    " pressures, temperatures, powers, wastegate share and the engine figures.")
+    b.add_argument("--boost-bar", type=float, default=1.6, help="target intake pressure, absolute [bar]")
+    b.add_argument("--eta-compressor", type=float, default=0.72)
+    b.add_argument("--eta-turbine", type=float, default=0.70)
+    b.add_argument("--eta-mechanical", type=float, default=0.95)
+    b.add_argument("--intercooler", type=float, default=0.8, metavar="EFFECTIVENESS")
+    b.add_argument("--turbine-area-cm2", type=float, default=3.0)
+    b.add_argument("--no-wastegate", action="store_true")
+    b.add_argument("--ambient-bar", type=float, default=1.0)
+    b.add_argument("--ambient-K", type=float, default=298.0)
+    b.add_argument("--tolerance-bar", type=float, default=0.002)
+    b.add_argument("--max-iterations", type=int, default=8)
+    _simple(b)
+    b.set_defaults(config="demo_turbo")
+    b.description += " Default config: demo_turbo."
+
+    d = subparsers.add_parser(
+        "dyno", help="virtual dynamometer: load-cell force, torque, power, corrected power, settling",
+        description="Read the engine as a test cell does (force x arm, 2 pi N T), with optional noise,"
+                    " a speed- or torque-controlled dyno and power corrected per SAE J1349 or ISO 1585.")
+    d.add_argument("--mode", choices=("speed", "torque"), default="speed")
+    d.add_argument("--arm-m", type=float, default=0.5, help="load-cell arm length [m]")
+    d.add_argument("--noise", nargs=3, type=float, default=None, metavar=("FORCE_SD_N", "SPEED_SD_RPM", "READINGS"),
+                   help="measurement noise: load-cell sd [N], speed sd [rpm], readings averaged")
+    d.add_argument("--seed", type=int, default=0)
+    d.add_argument("--standard", choices=("SAE J1349", "ISO 1585", "sae", "iso"), default="SAE J1349")
+    d.add_argument("--ambient-kPa", type=float, default=99.0)
+    d.add_argument("--ambient-K", type=float, default=298.0)
+    d.add_argument("--humidity", type=float, default=0.0, help="relative humidity 0..1")
+    d.add_argument("--load", choices=("constant", "quadratic"), default="quadratic")
+    d.add_argument("--load-torque", type=float, default=None, metavar="NM")
+    d.add_argument("--start-rpm", type=float, default=None)
+    d.add_argument("--inertia", type=float, default=0.3, metavar="KG_M2")
+    d.add_argument("--speeds", default=None, metavar="SPEC", help="torque mode: speed grid [rpm]")
+    d.add_argument("--duration", type=float, default=5.0, metavar="S")
+    _simple(d)
+
+    m = subparsers.add_parser(
+        "map", help="full-load curve and part-load map (BSFC, efficiency, BMEP, spark)",
+        description="Full-load torque and power against speed, and a speed x intake-pressure map with"
+                    " MBT spark per point (or the case's spark); tables and contour plots.")
+    m.add_argument("--speeds", default=None, metavar="SPEC", help="speeds [rpm], a,b,c or start:stop:step")
+    m.add_argument("--loads", default=None, metavar="SPEC", help="intake pressures [bar]")
+    m.add_argument("--spark", choices=("mbt", "fixed"), default="mbt")
+    m.add_argument("--advances", default=None, metavar="SPEC", help="spark advances tried per point")
+    m.add_argument("--full-load-only", action="store_true")
+    m.add_argument("--part-load-only", action="store_true")
+    _simple(m)
+
+    r = subparsers.add_parser(
+        "report", help="one self-contained HTML page of a run or study folder (or of a config, run now)",
+        description="Tables and plots of RUN_OR_STUDY_DIR (its JSON, CSV and PNG files), or of CONFIG"
+                    " simulated now, in one HTML file with everything embedded.")
+    r.add_argument("source", help="a run or study folder, or a config file / built-in name")
+    r.add_argument("--out", type=Path, default=Path("report.html"), help="HTML file (default report.html)")
+    r.add_argument("--title", default=None)
+    r.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE")
+    r.add_argument("--debug", action="store_true", help="show tracebacks")
+
+
+def _out(args) -> Path:
+    from .output import prepare_out_dir
+
+    return prepare_out_dir(args.out, args.force)
+
+
+def _order(text):
+    return None if text is None else tuple(x.strip() for x in text.split(",") if x.strip())
+
+
+def _wrote(files) -> None:
+    if files:
+        print(f"wrote {len(files)} files to {Path(files[0]).parent}/: " + ", ".join(Path(f).name for f in files))
+
+
+def cmd_losses(args) -> int:
+    """``cyclesim losses``: loss breakdown table and waterfall."""
+    from .studies.losses import ALT_ORDER, loss_breakdown
+
+    second = ALT_ORDER if args.second_order == "alt" else _order(args.second_order)
+    t0 = time.perf_counter()
+    lb = loss_breakdown(args.config, _order(args.order), overrides=args.overrides, second_order=second,
+                        closed_step_deg=args.closed_step, out=_out(args), plots=not args.no_plots)
+    print(lb.text())
+    print(f"simulated in {time.perf_counter() - t0:.1f} s")
+    _wrote(lb.files)
+    return 0
+
+
+def cmd_boost(args) -> int:
+    """``cyclesim boost``: turbocharger match."""
+    from .studies.boost import boost_match
+
+    t0 = time.perf_counter()
+    br = boost_match(args.config, args.boost_bar, args.eta_compressor, args.eta_turbine, args.eta_mechanical,
+                     args.intercooler, args.turbine_area_cm2, not args.no_wastegate, args.ambient_bar,
+                     args.ambient_K, overrides=args.overrides, tolerance_bar=args.tolerance_bar,
+                     max_iterations=args.max_iterations, out=_out(args), plots=not args.no_plots)
+    print(br.text())
+    print(f"simulated in {time.perf_counter() - t0:.1f} s")
+    _wrote(br.files)
+    return 0
+
+
+def cmd_dyno(args) -> int:
+    """``cyclesim dyno``: virtual dynamometer."""
+    from .studies.dyno import DynoNoise, dyno_test
+    from .studies.sweep import parse_values
+
+    noise = None
+    if args.noise is not None:
+        noise = DynoNoise(args.noise[0], args.noise[1], int(args.noise[2]), args.seed)
+    std = {"sae": "SAE J1349", "iso": "ISO 1585"}.get(args.standard, args.standard)
+    speeds = None if args.speeds is None else [float(v) for v in parse_values("--speeds", args.speeds)]
+    t0 = time.perf_counter()
+    d = dyno_test(args.config, args.arm_m, args.mode, noise, overrides=args.overrides,
+                  ambient_pressure_kPa=args.ambient_kPa, ambient_temperature_K=args.ambient_K,
+                  relative_humidity=args.humidity, standard=std, load=args.load, load_torque_Nm=args.load_torque,
+                  start_speed_rpm=args.start_rpm, inertia_kg_m2=args.inertia, speed_grid_rpm=speeds,
+                  duration_s=args.duration, out=_out(args), plots=not args.no_plots)
+    print(d.text())
+    print(f"simulated in {time.perf_counter() - t0:.1f} s")
+    _wrote(d.files)
+    return 0
+
+
+def cmd_map(args) -> int:
+    """``cyclesim map``: full-load curve and part-load map."""
+    from .studies.maps import full_load_curve, part_load_map
+
+    out = _out(args)
+    t0 = time.perf_counter()
+    files = []
+    if not args.part_load_only:
+        fl = full_load_curve(args.config, args.speeds, overrides=args.overrides, out=out, plots=not args.no_plots)
+        print(fl.text())
+        files += fl.files
+    if not args.full_load_only:
+        pm = part_load_map(args.config, args.speeds, args.loads, args.spark, args.advances,
+                           overrides=args.overrides, out=out, plots=not args.no_plots)
+        print(pm.text())
+        files += pm.files
+    print(f"simulated in {time.perf_counter() - t0:.1f} s")
+    _wrote(files)
+    return 0
+
+
+def cmd_report(args) -> int:
+    """``cyclesim report``: one HTML page of a folder, or of a config run now."""
+    from .report import report_for_run, report_for_study, write_report
+
+    src = Path(args.source)
+    if src.is_dir():
+        secs = report_for_study(src)
+        title = args.title or f"cyclesim report: {src.resolve().name}"
+    else:
+        from .api import run
+
+        res = run(args.source, args.overrides)
+        secs = report_for_run(res)
+        title = args.title or f"cyclesim run: {res.name}"
+    path = write_report(args.out, title, secs)
+    print(f"wrote {path} ({path.stat().st_size / 1024:.0f} kB, self-contained)")
+    return 0
+
+
+HANDLERS = {"sweep": cmd_sweep, "spark": cmd_spark, "losses": cmd_losses, "boost": cmd_boost,
+            "dyno": cmd_dyno, "map": cmd_map, "report": cmd_report}
 """Command name -> handler, for ``cyclesim.cli.main``."""
 
 

@@ -127,11 +127,3 @@ class WiebeTable(Wiebe):
 
 SUBMODELS = [WiebeTable]
 
-
-from cyclesim import hookimpl  # noqa: E402
-
-
-@hookimpl
-def cyclesim_register_submodels():
-    """Registration when this file is listed under a config's ``plugins:`` (until it is in _MODULES)."""
-    return SUBMODELS

@@ -1,0 +1,87 @@
+"""HTML report: self-contained, and rendered by a real headless browser."""
+
+import re
+import shutil
+import subprocess
+
+import pytest
+
+import cyclesim
+from cyclesim.output import CAUTION, write_case
+from cyclesim.report import render_report, report_for_run, report_for_study, write_report
+
+FAST = ["simulation.step_deg=1.0", "simulation.mode=closed"]
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+
+# marks every image with its decoded width and every table with its rendered height
+_PROBE = """<script>
+window.addEventListener('load', function () {
+  document.querySelectorAll('img').forEach(function (i) { i.setAttribute('data-natural-width', i.naturalWidth); });
+  document.querySelectorAll('table').forEach(function (t) { t.setAttribute('data-height', t.offsetHeight); });
+  document.body.setAttribute('data-probed', 'yes');
+});
+</script></body>"""
+
+
+@pytest.fixture(scope="module")
+def run_result():
+    return cyclesim.run("demo", FAST)
+
+
+def _render_in_chromium(html_path, tmp_path):
+    probe = tmp_path / "probe.html"
+    probe.write_text(html_path.read_text(encoding="utf-8").replace("</body>", _PROBE), encoding="utf-8")
+    cmd = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+           "--disable-background-networking", "--disable-component-update", "--disable-sync",
+           "--disable-dev-shm-usage", f"--user-data-dir={tmp_path / 'profile'}",
+           "--run-all-compositor-stages-before-draw", "--virtual-time-budget=5000", "--dump-dom",
+           probe.as_uri()]
+    out = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr[-2000:]
+    return out.stdout
+
+
+def _check_page(html_text, dom):
+    n_img = html_text.count("<img ")
+    n_tab = html_text.count("<table>")
+    assert 'data-probed="yes"' in dom
+    widths = [int(w) for w in re.findall(r'data-natural-width="(\d+)"', dom)]
+    heights = [int(h) for h in re.findall(r'data-height="(\d+)"', dom)]
+    assert len(widths) == n_img and all(w > 0 for w in widths)  # every PNG decoded
+    assert len(heights) == n_tab and all(h > 0 for h in heights)  # every table laid out
+
+
+def test_page_is_self_contained(run_result, tmp_path):
+    path = write_report(tmp_path / "run.html", "demo closed cycle", report_for_run(run_result))
+    text = path.read_text(encoding="utf-8")
+    assert text.startswith("<!DOCTYPE html>")
+    assert CAUTION in text.replace("&#x27;", "'")
+    # no external resources: every src is a data URI, no links, no scripts
+    assert all(s.startswith("data:image/png;base64,") for s in re.findall(r'src="([^"]*)"', text))
+    assert "<script" not in text and "<link" not in text and "http://" not in text and "https://" not in text
+    assert text.count("<img ") >= 3 and text.count("<table>") >= 2
+
+
+def test_text_is_escaped():
+    text = render_report("<b>x</b>", [{"heading": "a<b", "text": "1 < 2 & 3", "table": [{"k": "<i>"}]}])
+    assert "<b>x</b>" not in text and "&lt;i&gt;" in text and "1 &lt; 2 &amp; 3" in text
+
+
+@pytest.mark.skipif(CHROMIUM is None, reason="chromium not installed (CI installs it)")
+def test_run_report_renders_in_chromium(run_result, tmp_path):
+    path = write_report(tmp_path / "run.html", "demo", report_for_run(run_result))
+    _check_page(path.read_text(encoding="utf-8"), _render_in_chromium(path, tmp_path))
+
+
+@pytest.mark.skipif(CHROMIUM is None, reason="chromium not installed (CI installs it)")
+def test_study_folder_report_renders_in_chromium(run_result, tmp_path):
+    folder = tmp_path / "study"
+    write_case(run_result, folder)
+    (folder / "table.csv").write_text("speed_rpm,torque_Nm\n2000,100.5\n3000,110.25\n", encoding="utf-8")
+    (folder / "study.json").write_text('{"caution": "c", "mbt_deg": 24.5, "notes": ["a note"],'
+                                       ' "state": {"p3_bar": 1.5}}', encoding="utf-8")
+    secs = report_for_study(folder)
+    path = write_report(tmp_path / "study.html", "study", secs)
+    text = path.read_text(encoding="utf-8")
+    assert "110.25" in text and "mbt_deg" in text and "a note" in text and "p3_bar" in text
+    _check_page(text, _render_in_chromium(path, tmp_path))
