@@ -34,6 +34,8 @@ def add_parsers(subparsers) -> None:
     t.add_argument("--formats", default="csv_long,csv_wide,npz,mf4",
                    help="comma list of csv_long, csv_wide, npz, mf4 (default: all)")
     t.add_argument("--force", action="store_true", help="write into a non-empty --out folder")
+    t.add_argument("--resume", action="store_true",
+                   help="continue an interrupted set in --out from its finished chunks (same draws, same result)")
     t.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
                    help="override any config value (repeatable)")
     t.add_argument("--debug", action="store_true", help="show tracebacks")
@@ -148,19 +150,28 @@ def cmd_traces(args) -> int:
             import asammdf  # noqa: F401
         except ImportError as exc:
             raise CyclesimError('--formats mf4 needs the optional MDF extra: pip install "cyclesim[mdf]"') from exc
-    prepare_out_dir(args.out, args.force)
+    if args.resume:
+        args.out.mkdir(parents=True, exist_ok=True)
+    else:
+        prepare_out_dir(args.out, args.force)
+        import shutil
+
+        shutil.rmtree(args.out / ".chunks", ignore_errors=True)
     var = CycleVariation(start_sd_deg=args.start_sd, duration_cov=args.duration_cov,
                          efficiency_sd=args.efficiency_sd, partial_burn_rate=args.partial_rate,
                          misfire_rate=args.misfire_rate, coupled=args.coupled, seed=args.seed)
     settings = art.ArtefactSettings.default() if args.artefacts == "default" else art.ArtefactSettings.none()
     ss = synthesize(case, args.cycles, var, resolution_deg=None if args.sample_rate else args.resolution,
-                    sample_rate_hz=args.sample_rate, artefacts=settings)
+                    sample_rate_hz=args.sample_rate, artefacts=settings, checkpoint_dir=args.out / ".chunks")
     meta = dict(ss.meta, caution=CAUTION)
     ts = TraceSet(ss.theta, ss.pressure_pa, ss.intake_pa, ss.meta["speed_rpm"], meta)
     files = write_trace_set(ts, args.out, "trace", formats)
     truth_ts = TraceSet(ss.theta, ss.pressure_true_pa, None, ss.meta["speed_rpm"], dict(meta, signal="true pressure"))
     files += write_trace_set(truth_ts, args.out, "true_pressure", [f for f in formats if f == "npz"] or ["npz"])
     files += write_truth(args.out, ss.truth, ss.stats)
+    import shutil
+
+    shutil.rmtree(args.out / ".chunks", ignore_errors=True)
     st = ss.stats
     print(f"{case.name}: {st['n_cycles']} cycles ({'coupled' if args.coupled else 'independent'}),"
           f" {ss.meta['resolution_deg']:g} deg output, seed {args.seed}")

@@ -27,7 +27,7 @@ Backends
     process.
 ``"dask"``
     A Dask distributed cluster (``pip install "cyclesim[dask]"``): the
-    scheduler at ``scheduler`` (e.g. ``"tcp://10.0.0.5:8786"``), or a
+    scheduler at ``scheduler`` (e.g. ``"tcp://scheduler-host:8786"``), or a
     :class:`distributed.LocalCluster` of ``workers`` single-threaded worker
     processes on this machine, started for the run and closed after it.
     Every worker needs cyclesim (and any plug-in package used) installed, and
@@ -48,6 +48,14 @@ Workers
 this process may use, but no more than there are chunks.  Studies choose a
 default with :func:`plan_execution`: serial up to :data:`AUTO_MIN_CASES`
 cases, ``"auto"`` processes above.
+
+What is worth sharing out is whole batches: a batch's cost per crank step is
+a fixed Python part plus a vector part that grows with its width, and on the
+full-cycle demo the fixed part equals about a thousand cases' vector work.
+Halving a batch therefore saves little, and two workers each running half of
+it cost nearly twice the CPU of one running all of it.  A sweep's chunks are
+separate batches anyway (serial or not), so its speed-up from workers is
+close to the number of free cores once there are several chunks per worker.
 """
 
 from __future__ import annotations

@@ -21,6 +21,7 @@ import csv
 import html
 import json
 import math
+import re
 import tempfile
 from pathlib import Path
 from typing import Any, Iterable, Sequence
@@ -190,6 +191,8 @@ def _csv_table(path: Path) -> dict:
         return {"columns": [], "rows": []}
 
     def num(x):
+        if re.fullmatch(r"[+-]?\d+", x.strip()):
+            return int(x)
         try:
             return float(x) if x.strip() else None
         except ValueError:

@@ -85,3 +85,19 @@ def test_study_folder_report_renders_in_chromium(run_result, tmp_path):
     text = path.read_text(encoding="utf-8")
     assert "110.25" in text and "mbt_deg" in text and "a note" in text and "p3_bar" in text
     _check_page(text, _render_in_chromium(path, tmp_path))
+
+
+def test_cli_report_of_a_folder_and_of_a_config(run_result, tmp_path, capsys):
+    from cyclesim.cli import main
+
+    folder = tmp_path / "run"
+    write_case(run_result, folder)
+    assert main(["report", str(folder), "--out", str(tmp_path / "a.html")]) == 0
+    assert main(["report", "demo", "--set", "simulation.step_deg=1.0", "--set", "simulation.mode=closed",
+                 "--out", str(tmp_path / "b.html")]) == 0
+    for name in ("a.html", "b.html"):
+        text = (tmp_path / name).read_text(encoding="utf-8")
+        assert text.count("data:image/png;base64,") >= 3 and "Caution." in text
+    assert "self-contained" in capsys.readouterr().out
+    # a missing folder or config is a one-line error with exit status 2 (the CLI's convention)
+    assert main(["report", str(tmp_path / "nope.yaml"), "--out", str(tmp_path / "c.html")]) == 2

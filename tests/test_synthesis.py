@@ -96,3 +96,31 @@ def test_set_statistics_from_rows():
     st = set_statistics(rows)
     assert st["cov_imep_net"] == pytest.approx(1.0 / 10.0)
     assert st["knocking_share"] == pytest.approx(1 / 3)
+
+
+def test_interrupted_set_resumes_to_the_same_result(base, tmp_path, monkeypatch):
+    from cyclesim.traces import synthesis as syn
+
+    var = CycleVariation(seed=9)
+    whole = synthesize(base, 6, var, resolution_deg=1.0, artefacts=art.ArtefactSettings.default(), chunk=2)
+    ck = tmp_path / "chunks"
+    real = syn._run_cycles
+    calls = {"n": 0}
+
+    def stop_after_two(*a, **k):
+        calls["n"] += 1
+        if calls["n"] > 2:
+            raise KeyboardInterrupt
+        return real(*a, **k)
+
+    monkeypatch.setattr(syn, "_run_cycles", stop_after_two)
+    with pytest.raises(KeyboardInterrupt):
+        synthesize(base, 6, var, resolution_deg=1.0, artefacts=art.ArtefactSettings.default(), chunk=2,
+                   checkpoint_dir=ck)
+    assert len(list(ck.glob("cycles_*.npz"))) == 2           # two whole chunks kept, nothing half-written
+    monkeypatch.setattr(syn, "_run_cycles", real)
+    again = synthesize(base, 6, var, resolution_deg=1.0, artefacts=art.ArtefactSettings.default(), chunk=2,
+                       checkpoint_dir=ck)
+    assert np.array_equal(again.pressure_pa, whole.pressure_pa)
+    assert [r["cycle"] for r in again.truth] == [1, 2, 3, 4, 5, 6]
+    assert [r["imep_net_bar"] for r in again.truth] == [r["imep_net_bar"] for r in whole.truth]

@@ -17,8 +17,10 @@ not alias.
 
 from __future__ import annotations
 
+import json
 import math
 from dataclasses import asdict, dataclass, field
+from pathlib import Path
 from typing import Any, Sequence
 
 import numpy as np
@@ -189,6 +191,7 @@ def synthesize(
     artefacts: Any = None,
     fine_step_deg: float | None = None,
     chunk: int = 150,
+    checkpoint_dir=None,
 ) -> SyntheticSet:
     """Simulate ``n_cycles`` consecutive cycles of one operating point with variation and artefacts.
 
@@ -208,6 +211,11 @@ def synthesize(
         Measurement flaws to apply (default: the realistic default set).
     fine_step_deg : float, optional
         Synthesis grid [deg]; default a quarter of the output step, at most 0.05 deg.
+    chunk : int
+        Independent cycles simulated per batch.
+    checkpoint_dir : path, optional
+        Keep each finished chunk (coupled: each cycle) here, so an interrupted set
+        resumes where it stopped with the same draws and the same result.
     """
     from ..api import _registry_for
     from ..figures import hermite_grid
@@ -278,17 +286,53 @@ def synthesize(
             row["error"] = tr.failed[b] or ""
             truth.append(row)
 
+    ckpt = Path(checkpoint_dir) if checkpoint_dir is not None else None
+    if ckpt is not None:
+        ckpt.mkdir(parents=True, exist_ok=True)
+        _check_checkpoint(ckpt, case, n_cycles, var, fine)
+
+    def load_part(i0, n):
+        f = ckpt / f"cycles_{i0:06d}_{n:06d}.npz" if ckpt is not None else None
+        if f is None or not f.exists():
+            return None, f
+        z = np.load(f, allow_pickle=False)
+        P[i0:i0 + n], Tg[i0:i0 + n], G[i0:i0 + n] = z["P"], z["T"], z["G"]
+        knock_on[i0:i0 + n], knock_int[i0:i0 + n] = z["knock_on"], z["knock_int"]
+        rows = json.loads(str(z["truth"]))
+        truth.extend(rows)
+        return z["end_state"], f
+
+    def save_part(f, i0, n, end_state):
+        if f is None:
+            return
+        import io
+
+        from ..output import atomic_write_bytes
+
+        buf = io.BytesIO()
+        np.savez(buf, P=P[i0:i0 + n], T=Tg[i0:i0 + n], G=G[i0:i0 + n], knock_on=knock_on[i0:i0 + n],
+                 knock_int=knock_int[i0:i0 + n], truth=json.dumps(truth[i0:i0 + n], default=float),
+                 end_state=end_state)
+        atomic_write_bytes(f, buf.getvalue())
+
     if var.coupled:
         state = start_state
         for i in range(n_cycles):
-            batch, tr, d, figs = _run_cycles([cases[i]], registry, state)
-            collect(i, batch, tr, d, figs)
-            state = tr.end_state[:, 0]
+            end, f = load_part(i, 1)
+            if end is None:
+                batch, tr, d, figs = _run_cycles([cases[i]], registry, state)
+                collect(i, batch, tr, d, figs)
+                end = tr.end_state[:, 0]
+                save_part(f, i, 1, end)
+            state = end
     else:
         for i0 in range(0, n_cycles, chunk):
             part = cases[i0:i0 + chunk]
-            batch, tr, d, figs = _run_cycles(part, registry, start_state)
-            collect(i0, batch, tr, d, figs)
+            end, f = load_part(i0, len(part))
+            if end is None:
+                batch, tr, d, figs = _run_cycles(part, registry, start_state)
+                collect(i0, batch, tr, d, figs)
+                save_part(f, i0, len(part), tr.end_state)
 
     # measurement
     rng = np.random.default_rng(var.seed + 7919)
@@ -331,6 +375,20 @@ def synthesize(
         "intake_pressure_pa": float(case.operating.intake_pressure_bar) * 1e5,
     }
     return SyntheticSet(theta_o, time_s, P_true_o, Pm_o, Pint_o, truth, stats, meta)
+
+
+def _check_checkpoint(ckpt: Path, case: Case, n: int, var: CycleVariation, fine: float) -> None:
+    """Refuse to resume from checkpoints of a different set."""
+    from ..output import atomic_write_text
+
+    key = {"case": case.raw, "n_cycles": n, "variation": asdict(var), "fine_step_deg": fine}
+    text = json.dumps(key, sort_keys=True, default=str)
+    f = ckpt / "set.json"
+    if f.exists():
+        if f.read_text() != text:
+            raise CyclesimError(f"{ckpt}: holds the chunks of a different trace set; use another --out or --force")
+    else:
+        atomic_write_text(f, text)
 
 
 def set_statistics(truth: Sequence[dict]) -> dict:
