@@ -21,9 +21,9 @@ def add_parsers(subparsers) -> None:
     g.add_argument("--resolution", type=float, default=0.5, metavar="DEG",
                    help="crank-angle resolution of the output [deg] (default 0.5)")
     g.add_argument("--sample-rate", type=float, metavar="HZ", help="sample in time at this rate instead")
-    t.add_argument("--start-sd", type=float, default=1.5, metavar="DEG",
-                   help="spread (sd) of the burn start / ignition delay [deg] (default 1.5)")
-    t.add_argument("--duration-cov", type=float, default=0.08, help="relative spread of the burn duration (0.08)")
+    t.add_argument("--start-sd", type=float, default=3.0, metavar="DEG",
+                   help="spread (sd) of the burn start / ignition delay [deg] (default 3)")
+    t.add_argument("--duration-cov", type=float, default=0.12, help="relative spread of the burn duration (0.12)")
     t.add_argument("--efficiency-sd", type=float, default=0.004, help="spread of the combustion efficiency (0.004)")
     t.add_argument("--partial-rate", type=float, default=0.0, help="share of partial burns (default 0)")
     t.add_argument("--misfire-rate", type=float, default=0.0, help="share of misfires (default 0)")

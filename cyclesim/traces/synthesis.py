@@ -62,8 +62,8 @@ class CycleVariation:
         Seed of the random generator.
     """
 
-    start_sd_deg: float = 1.5
-    duration_cov: float = 0.08
+    start_sd_deg: float = 3.0
+    duration_cov: float = 0.12
     efficiency_sd: float = 0.004
     partial_burn_rate: float = 0.0
     partial_burn_range: tuple = (0.3, 0.8)
