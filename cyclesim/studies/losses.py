@@ -64,7 +64,7 @@ from typing import Sequence
 import numpy as np
 
 from ..config import Case, build_case, load_config, parse_override, set_dotted
-from ..errors import ConfigError, CyclesimError, SolverError
+from ..errors import ConfigError, SolverError
 from ..output import CAUTION, atomic_write_text, write_rows_csv
 
 __all__ = ["loss_breakdown", "LossBreakdown", "CLOSED_STEPS", "DEFAULT_ORDER", "STEP_LABELS",

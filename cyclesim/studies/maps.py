@@ -33,7 +33,7 @@ from typing import Sequence
 import numpy as np
 
 from ..config import Case, build_case, load_config, parse_override, set_dotted
-from ..errors import ConfigError, CyclesimError
+from ..errors import ConfigError
 from ..output import CAUTION, atomic_write_text, write_rows_csv
 from .spark import SPARK_CAUTION, fit_torque_peak
 from .sweep import parse_values
@@ -249,7 +249,7 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
                      " spark study's torque fit; each point then runs at its MBT")
     else:
         final = [_variant(case, {"operating.speed_rpm": n, "operating.intake_pressure_bar": p}) for n, p in points]
-        notes.append(f"the case's spark advance at every point")
+        notes.append("the case's spark advance at every point")
     res = simulate(final)
     rows = []
     for (n, p), r in zip(points, res):
