@@ -101,6 +101,10 @@ def add_parsers(subparsers) -> None:
                    help="retard kept from the knock-limited advance (default 2)")
     k.add_argument("--knock-min-unburned", type=float, default=None, metavar="F",
                    help="count knock only with at least this share of the charge unburned at onset")
+    k.add_argument("--knock-cycles", type=int, default=0, metavar="N",
+                   help="also simulate N cycles with cycle-to-cycle variation per advance: statistical knock limit")
+    k.add_argument("--knock-cycle-share", type=float, default=0.05, metavar="F",
+                   help="with --knock-cycles: the share of knocking cycles that sets the limit (default 0.05)")
     k.add_argument("--pmax-limit", type=float, default=None, metavar="BAR", help="peak-pressure limit [bar]")
     k.add_argument("--dp-limit", type=float, default=None, metavar="BAR_PER_DEG",
                    help="limit of the largest pressure-rise rate [bar/deg]")
@@ -141,6 +145,7 @@ def cmd_spark(args) -> int:
                      torque_fraction=args.torque_fraction, knock_margin_deg=args.knock_margin,
                      p_max_limit_bar=args.pmax_limit, dp_limit_bar_per_deg=args.dp_limit,
                      knock_min_unburned=args.knock_min_unburned, resume=args.resume, force=args.force,
+                     knock_cycles=args.knock_cycles, knock_cycle_share=args.knock_cycle_share,
                      chunk_size=args.chunk, progress=_progress(args), plots=not args.no_plots, **_where(args))
     print(st.text())
     print(f"simulated in {time.perf_counter() - t0:.1f} s")

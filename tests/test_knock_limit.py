@@ -33,3 +33,16 @@ def test_share_rises_with_advance_and_spread_brings_the_limit_forward():
 def test_needs_a_knock_model():
     with pytest.raises(ConfigError, match="knock.model"):
         statistical_knock_limit(load_config("demo"), [20, 30], n_cycles=2)
+
+
+def test_spark_study_uses_the_statistical_limit(tmp_path):
+    from cyclesim.studies.spark import spark_study
+
+    mean = spark_study("demo", "20,26,32", overrides=OV, plots=False, progress=False)
+    stat = spark_study("demo", "20,26,32", overrides=OV, plots=False, progress=False, knock_cycles=8,
+                       knock_cycle_share=0.1)
+    assert stat.statistical_knock is not None and len(stat.statistical_knock["knocking_share"]) == 3
+    # fast cycles of the spread knock before the mean cycle does (common practice)
+    assert stat.knock_limited_deg is not None and mean.knock_limited_deg is not None
+    assert stat.knock_limited_deg <= mean.knock_limited_deg + 1e-9
+    assert stat.recommended_deg <= mean.recommended_deg + 1e-9

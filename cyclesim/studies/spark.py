@@ -230,6 +230,7 @@ class SparkStudy:
     recommended_by: str = ""
     candidates: dict = field(default_factory=dict)
     fit: dict = field(default_factory=dict)
+    statistical_knock: dict | None = None
     notes: list = field(default_factory=list)
     files: list = field(default_factory=list)
     base_config: str = ""
@@ -265,6 +266,7 @@ class SparkStudy:
             "dp_limited_deg": self.dp_limited_deg,
             "recommended_deg": self.recommended_deg,
             "recommended_by": self.recommended_by,
+            "statistical_knock": self.statistical_knock,
             "candidates_deg": dict(self.candidates),
             "fit": fit,
             "notes": list(self.notes),
@@ -461,8 +463,15 @@ def spark_study(
     workers: int | str | None = None,
     backend: str | None = None,
     scheduler: str | None = None,
+    knock_cycles: int = 0,
+    knock_cycle_share: float = 0.05,
 ) -> SparkStudy:
     """Sweep spark advance and read MBT, the flat top, knock and pressure limits.
+
+    With ``knock_cycles`` > 0 (and a knock model), ``knock_cycles`` cycles with
+    cycle-to-cycle variation are also simulated at each advance of the sweep and
+    the statistical knock limit (the advance at which ``knock_cycle_share`` of the
+    cycles knock) replaces the mean cycle's limit in the recommendation.
 
     Parameters
     ----------
@@ -566,6 +575,19 @@ def spark_study(
     sub = SweepResult(rows=[table.rows[i] for i in okidx], columns=table.columns,
                       results=[table.results[i] for i in okidx], keys=table.keys)
     _knock(st, sub, adv_s, np.ones(len(okidx), bool), knock_min_unburned)
+    if knock_cycles and knock_cycles > 0 and st.knock_status != "no model":
+        from .knock_limit import statistical_knock_limit
+
+        kl = statistical_knock_limit(_base_case(base, overrides), adv_s,
+                                     n_cycles=int(knock_cycles), share=float(knock_cycle_share))
+        st.statistical_knock = kl.as_dict()
+        st.notes.extend(n for n in kl.notes if not n.startswith("model estimate"))
+        if kl.limit_deg is not None:
+            st.knock_limited_deg, st.knock_status = kl.limit_deg, "crossed"
+            st.notes.append(f"knock-limited advance from {knock_cycles} cycles per advance: the advance at which"
+                            f" {100 * knock_cycle_share:g} % of the cycles knock")
+        elif kl.knocking_share[0] >= knock_cycle_share:
+            st.knock_status = "always"
     st.pmax_limited_deg, p_status = _limit(st, "peak pressure", "p_max_bar", p_max_limit_bar, sub, adv_s)
     st.dp_limited_deg, dp_status = _limit(st, "pressure-rise rate", "dp_dtheta_max_bar_per_deg",
                                           dp_limit_bar_per_deg, sub, adv_s)
@@ -702,3 +724,11 @@ def plot_spark_study(st: SparkStudy, out: Path, traces: int = 8) -> list[Path]:
         ax.legend(title="advance [deg BTDC]", fontsize=7, ncol=2)
         files.append(_save(fig, out / "spark_pressure_traces.png"))
     return files
+
+
+def _base_case(base, overrides):
+    from ..config import load_config
+
+    if isinstance(base, Case):
+        return base
+    return load_config(base, list(overrides))
