@@ -135,7 +135,7 @@ def test_interval_coverage_on_synthetic_traces_with_default_artefacts():
     i = int(np.argmin(np.abs(th - full.valves.ivc_deg)))
     T_ivc, xr = float(ref.trace["temperature_K"][i]), float(ref.trace["burned_gas_fraction"][i])
     n = 33
-    ss = synthesize(full, n, CycleVariation(seed=21, misfire_rate=0.08), 0.5,
+    ss = synthesize(full, n, CycleVariation(start_sd_deg=1.5, duration_cov=0.08, seed=21, misfire_rate=0.08), 0.5,
                     artefacts=ArtefactSettings.default())
     ts = TraceSet(ss.theta, ss.pressure_pa, ss.intake_pa, 3000.0, {})
     case = load_config("demo_closed", ["simulation.step_deg=1.0", f"operating.ivc_temperature_K={T_ivc}",
