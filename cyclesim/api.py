@@ -16,6 +16,7 @@ import numpy as np
 
 from .config import Case, flat_inputs, load_config
 from .errors import CyclesimError, PluginError, SolverError
+from .output import plain as _plain
 
 __all__ = ["CaseResult", "simulate", "run", "load_config", "load_cases", "Case"]
 
@@ -69,19 +70,6 @@ class CaseResult:
         }
 
 
-def _plain(x: Any) -> Any:
-    if isinstance(x, dict):
-        return {k: _plain(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_plain(v) for v in x]
-    if isinstance(x, (np.bool_, bool)):
-        return bool(x)
-    if isinstance(x, (np.integer,)):
-        return int(x)
-    if isinstance(x, (np.floating, float)):
-        v = float(x)
-        return v if np.isfinite(v) else None
-    return x
 
 
 def load_cases(path, overrides: Sequence[str] = ()) -> list[Case]:

@@ -21,24 +21,26 @@ CAUTION = (
 )
 
 
-def atomic_write_text(path: Path, text: str) -> None:
-    """Write a file through a temporary file and a rename (never half-written)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
+def plain(x):
+    """Numbers, arrays and containers as JSON-ready Python values (non-finite floats -> None)."""
+    if isinstance(x, dict):
+        return {str(k): plain(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [plain(v) for v in x]
+    if isinstance(x, np.ndarray):
+        return plain(x.tolist())
+    if isinstance(x, (np.bool_, bool)):
+        return bool(x)
+    if isinstance(x, np.integer):
+        return int(x)
+    if isinstance(x, (float, np.floating)):
+        v = float(x)
+        return v if np.isfinite(v) else None
+    return x
 
 
 def atomic_write_bytes(path: Path, data: bytes) -> None:
+    """Write a file through a temporary file and a rename (never half-written)."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
@@ -52,6 +54,11 @@ def atomic_write_bytes(path: Path, data: bytes) -> None:
         except OSError:
             pass
         raise
+
+
+def atomic_write_text(path: Path, text: str) -> None:
+    """Write a UTF-8 text file atomically (see :func:`atomic_write_bytes`)."""
+    atomic_write_bytes(path, text.encode("utf-8"))
 
 
 def prepare_out_dir(out: Path, force: bool) -> Path:

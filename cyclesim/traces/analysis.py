@@ -52,6 +52,7 @@ import numpy as np
 from ..errors import CyclesimError
 from ..output import atomic_write_text, write_rows_csv
 from .export import CRANK_CONVENTION, TraceSet
+from ..output import plain as _plain
 
 __all__ = ["AnalysisSettings", "AnalysisResult", "VolumeFunction", "analyse", "estimate_tdc_offset",
            "apparent_heat_release", "write_analysis"]
@@ -580,19 +581,6 @@ def analyse(traceset: TraceSet, geometry_or_volume, settings: AnalysisSettings |
                           heat_release_J=HR, temperature_K=TT, settings=s, warnings=warnings)
 
 
-def _plain(x):
-    if isinstance(x, dict):
-        return {k: _plain(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_plain(v) for v in x]
-    if isinstance(x, (np.bool_, bool)):
-        return bool(x)
-    if isinstance(x, np.integer):
-        return int(x)
-    if isinstance(x, (float, np.floating)):
-        v = float(x)
-        return v if np.isfinite(v) else None
-    return x
 
 
 def write_analysis(result: AnalysisResult, out) -> list[Path]:

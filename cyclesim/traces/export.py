@@ -22,6 +22,7 @@ import numpy as np
 
 from ..errors import CyclesimError, InputFileError
 from ..output import atomic_write_bytes, atomic_write_text
+from ..output import plain as _plain
 
 __all__ = [
     "TraceSet", "CRANK_CONVENTION", "write_csv_long", "write_csv_wide", "write_npz", "write_mdf",
@@ -85,21 +86,6 @@ def _header(units: str, ts: TraceSet) -> str:
     return "\n".join(lines) + "\n"
 
 
-def _plain(x):
-    if isinstance(x, dict):
-        return {str(k): _plain(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_plain(v) for v in x]
-    if isinstance(x, np.ndarray):
-        return _plain(x.tolist())
-    if isinstance(x, (np.bool_, bool)):
-        return bool(x)
-    if isinstance(x, np.integer):
-        return int(x)
-    if isinstance(x, (float, np.floating)):
-        v = float(x)
-        return v if np.isfinite(v) else None
-    return x
 
 
 def _g(v) -> str:
