@@ -10,7 +10,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any, Callable, Sequence
+from typing import Callable, Sequence
 
 import numpy as np
 
@@ -87,6 +87,22 @@ def _registry_for(cases: Sequence[Case]):
     return get_registry(plugins)
 
 
+def model_figures(batch, cols: dict) -> tuple[dict, list[list[str]]]:
+    """The submodels' own figures and per-case warnings from a finished batch's trace columns."""
+    figs: dict = {}
+    warn: list[list[str]] = [[] for _ in range(batch.B)]
+    for role, model in batch.models.items():
+        try:
+            figs.update(model.figures(cols))
+            for i, w in enumerate(model.warnings(cols)):
+                warn[i].extend(w)
+        except CyclesimError:
+            raise
+        except Exception as exc:  # noqa: BLE001
+            raise PluginError(f"{role} model {model.name!r} raised {type(exc).__name__} in figures(): {exc}") from exc
+    return figs, warn
+
+
 def _run_batch(cases: list[Case], registry, progress=None) -> list[CaseResult]:
     from .batch import build_batch
     from .figures import compute_figures, derived_trace, output_trace
@@ -103,17 +119,7 @@ def _run_batch(cases: list[Case], registry, progress=None) -> list[CaseResult]:
     for got in registry.pm.hook.cyclesim_extra_figures(summary=figs, trace=cols, cases=cases):
         if got:
             extra.update(got)
-    model_figs = {}
-    model_warn = [[] for _ in cases]
-    for role, model in batch.models.items():
-        try:
-            model_figs.update(model.figures(cols))
-            for i, w in enumerate(model.warnings(cols)):
-                model_warn[i].extend(w)
-        except CyclesimError:
-            raise
-        except Exception as exc:  # noqa: BLE001
-            raise PluginError(f"{role} model {model.name!r} raised {type(exc).__name__} in figures(): {exc}") from exc
+    model_figs, model_warn = model_figures(batch, cols)
     refs: list[str] = []
     for model in batch.models.values():
         for r in getattr(model, "references", ()):

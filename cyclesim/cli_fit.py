@@ -2,10 +2,9 @@
 
 from __future__ import annotations
 
-import argparse
 from pathlib import Path
 
-from .errors import ConfigError, CyclesimError
+from .errors import ConfigError
 
 __all__ = ["add_parsers", "cmd_fit", "cmd_predict", "HANDLERS"]
 

@@ -1,14 +1,6 @@
 """Command-line front ends of the studies: ``sweep``, ``spark``, ``losses``, ``boost``, ``dyno``, ``map``, ``report``.
 
-To hook them into :mod:`cyclesim.cli`, add these two lines:
-
-* in ``build_parser()``, just before ``return ap``::
-
-      from .cli_studies import add_parsers; add_parsers(sub)
-
-* in ``main()``, just after the ``handlers = {...}`` line::
-
-      from .cli_studies import HANDLERS; handlers.update(HANDLERS)
+:mod:`cyclesim.cli` adds them through ``add_parsers`` and ``HANDLERS``.
 
 Examples::
 
@@ -27,7 +19,6 @@ Errors are :class:`cyclesim.errors.CyclesimError` subclasses (one line, exit 2).
 from __future__ import annotations
 
 import argparse
-import sys
 import time
 from pathlib import Path
 
@@ -356,26 +347,3 @@ HANDLERS = {"sweep": cmd_sweep, "spark": cmd_spark, "losses": cmd_losses, "boost
             "dyno": cmd_dyno, "map": cmd_map, "report": cmd_report}
 """Command name -> handler, for ``cyclesim.cli.main``."""
 
-
-def main(argv=None) -> int:  # pragma: no cover - used only until the commands are hooked into cyclesim.cli
-    """Stand-alone entry: ``python -m cyclesim.cli_studies sweep ...``."""
-    from .errors import CyclesimError
-
-    ap = argparse.ArgumentParser(prog="cyclesim")
-    sub = ap.add_subparsers(dest="command", required=True)
-    add_parsers(sub)
-    args = ap.parse_args(argv)
-    try:
-        return HANDLERS[args.command](args)
-    except CyclesimError as exc:
-        if args.debug:
-            raise
-        print(f"cyclesim: error: {exc}", file=sys.stderr)
-        return exc.exit_code
-    except KeyboardInterrupt:
-        print("cyclesim: interrupted", file=sys.stderr)
-        return 130
-
-
-if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import argparse
 from pathlib import Path
 
 from .errors import CyclesimError
@@ -185,21 +184,3 @@ def cmd_traces(args) -> int:
 
 HANDLERS = {"traces": cmd_traces, "analyse": cmd_analyse}
 
-
-def _standalone(argv=None) -> int:  # pragma: no cover - used until cli.py hooks this in
-    import sys
-
-    ap = argparse.ArgumentParser(prog="cyclesim")
-    add_parsers(ap.add_subparsers(dest="command", required=True))
-    args = ap.parse_args(argv)
-    try:
-        return cmd_analyse(args)
-    except CyclesimError as exc:
-        if args.debug:
-            raise
-        print(f"cyclesim: error: {exc}", file=sys.stderr)
-        return exc.exit_code
-
-
-if __name__ == "__main__":  # pragma: no cover
-    raise SystemExit(_standalone())

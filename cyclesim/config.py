@@ -20,7 +20,7 @@ import math
 from dataclasses import dataclass, field
 from pathlib import Path
 from types import SimpleNamespace
-from typing import Any, Mapping
+from typing import Any, Mapping, Sequence
 
 import yaml
 
@@ -473,6 +473,19 @@ def case_with(case: Case, changes: Mapping[str, Any]) -> Case:
         raw = set_dotted(raw, k, v)
     raw = dict(raw)
     return build_case(raw, case.base_dir)
+
+
+def resolve_case(base: "Case | str | Path", overrides: Sequence[str] = ()) -> tuple[Case, str]:
+    """A study's base case and its label: a Case (with ``overrides`` applied) or a config path/name."""
+    if isinstance(base, Case):
+        if overrides:
+            changes = {}
+            for text in overrides:
+                parts, value = parse_override(text)
+                changes[".".join(parts)] = value
+            return case_with(base, changes), base.name
+        return base, base.name
+    return load_config(base, list(overrides)), str(base)
 
 
 def flat_inputs(case: Case) -> dict[str, Any]:

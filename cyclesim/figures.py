@@ -10,8 +10,6 @@ interpolant of the solver's states and derivatives, not read off the grid.
 from __future__ import annotations
 
 import math
-from typing import Any
-
 import numpy as np
 
 from .roles import FrictionInputs

@@ -1287,7 +1287,6 @@ def fit_points(cases: Sequence, traces_list: Sequence, shared: Sequence[str] = (
     nsim = _solve([pb], max_iter=max_iter, fd_rel=fd_rel)
     stt = _statistics(pb.J, pb.r, pb.x, lo, hi, names, _segments(pb), level, covariance)
     point_results = []
-    o = 0
     for i, pt in enumerate(pts):
         idx = pt.idx
         sub = {k: stt[k][idx] for k in ("stderr", "ci_low", "ci_high")}

@@ -26,8 +26,6 @@ class ConstantGammaGas:
     """
 
     def __init__(self, fuel, phi, gamma, R):
-        from .fuels import Fuel  # noqa: F401  (type only)
-
         phi = np.asarray(phi, dtype=float)
         self.B = phi.shape[0]
         ones = np.ones(self.B)

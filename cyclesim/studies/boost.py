@@ -43,18 +43,17 @@ turbocharger's speed and inertia, and the air filter's pressure drop.
 
 from __future__ import annotations
 
-import copy
 import json
-import math
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Sequence
 
 import numpy as np
 
-from ..config import Case, build_case, load_config, parse_override, set_dotted
+from ..config import Case, case_with, resolve_case
 from ..errors import ConfigError, SolverError
 from ..output import CAUTION, atomic_write_text, write_rows_csv
+from ..output import plain as _plain
 
 __all__ = ["boost_match", "BoostResult", "compressor_outlet_temperature", "turbine_outlet_temperature",
            "intercooler_outlet_temperature", "exhaust_gas_properties"]
@@ -207,12 +206,6 @@ class BoostResult:
 # --------------------------------------------------------------------------
 
 
-def _variant(case: Case, changes: dict) -> Case:
-    raw = copy.deepcopy(case.raw)
-    for k, v in changes.items():
-        raw = set_dotted(raw, k, v)
-    return build_case(raw, case.base_dir)
-
 
 def _p3_for_flow(m_t, area, T3, R, g, p4):
     """Turbine inlet pressure [Pa] that passes ``m_t`` [kg/s] through ``area`` [m^2] to ``p4`` [Pa]."""
@@ -322,11 +315,7 @@ def boost_match(
         raise ConfigError(f"turbine_area_cm2 {turbine_area_cm2!r}: expected a positive number")
     if not boost_pressure_bar > 0:
         raise ConfigError(f"boost pressure {boost_pressure_bar!r} bar: expected a positive number")
-    label = str(case) if not isinstance(case, Case) else case.name
-    if not isinstance(case, Case):
-        case = load_config(case, list(overrides))
-    elif overrides:
-        case = _variant(case, {".".join(p): v for p, v in map(parse_override, overrides)})
+    case, label = resolve_case(case, overrides)
     if case.simulation.mode != "full":
         raise ConfigError("boost match needs simulation.mode: full (the gas exchange sets the flows)")
 
@@ -359,7 +348,7 @@ def boost_match(
     state: dict = {}
     reached, message = True, ""
     for it in range(1, max_iterations + 1):
-        c = _variant(case, {"operating.intake_pressure_bar": boost_pressure_bar,
+        c = case_with(case, {"operating.intake_pressure_bar": boost_pressure_bar,
                             "operating.intake_temperature_K": T_ic,
                             "operating.exhaust_pressure_bar": p3 / 1e5,
                             "operating.exhaust_temperature_K": min(max(T3_guess, 250.0), 2000.0)})
@@ -451,17 +440,6 @@ def boost_match(
         atomic_write_text(out / JSON_NAME, json.dumps(_plain(br.figures()), indent=2) + "\n")
     return br
 
-
-def _plain(x):
-    if isinstance(x, dict):
-        return {k: _plain(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_plain(v) for v in x]
-    if isinstance(x, (np.floating, float)):
-        return float(x) if math.isfinite(float(x)) else None
-    if isinstance(x, np.bool_):
-        return bool(x)
-    return x
 
 
 def plot_boost(br: BoostResult, path: Path) -> Path:

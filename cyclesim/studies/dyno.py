@@ -42,7 +42,6 @@ standards' own restrictions (fuel specification, test procedure).
 
 from __future__ import annotations
 
-import copy
 import json
 import math
 from dataclasses import dataclass, field
@@ -51,9 +50,10 @@ from typing import Sequence
 
 import numpy as np
 
-from ..config import Case, build_case, load_config, parse_override, set_dotted
+from ..config import Case, case_with, load_config, resolve_case
 from ..errors import ConfigError, SolverError
 from ..output import CAUTION, atomic_write_text, write_rows_csv
+from ..output import plain as _plain
 
 __all__ = ["dyno_test", "DynoResult", "DynoNoise", "saturation_pressure_kPa", "dry_air_pressure_kPa",
            "correction_factor", "STANDARDS"]
@@ -185,25 +185,6 @@ class DynoResult:
         return "\n".join(lines)
 
 
-def _plain(x):
-    if isinstance(x, dict):
-        return {k: _plain(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_plain(v) for v in x]
-    if isinstance(x, (np.floating, float)):
-        return float(x) if math.isfinite(float(x)) else None
-    if isinstance(x, (np.integer,)):
-        return int(x)
-    if isinstance(x, np.bool_):
-        return bool(x)
-    return x
-
-
-def _variant(case: Case, changes: dict) -> Case:
-    raw = copy.deepcopy(case.raw)
-    for k, v in changes.items():
-        raw = set_dotted(raw, k, v)
-    return build_case(raw, case.base_dir)
 
 
 def _correction(power_kW, torque_Nm, ambient_pressure_kPa, ambient_temperature_K, relative_humidity, standard):
@@ -286,11 +267,7 @@ def dyno_test(
         raise ConfigError(f"standard {standard!r}: expected one of {', '.join(STANDARDS)}")
     if not 0 <= relative_humidity <= 1:
         raise ConfigError(f"relative humidity {relative_humidity!r}: expected 0..1")
-    label = str(case) if not isinstance(case, Case) else case.name
-    if not isinstance(case, Case):
-        case = load_config(case, list(overrides))
-    elif overrides:
-        case = _variant(case, {".".join(p): v for p, v in map(parse_override, overrides)})
+    case, label = resolve_case(case, overrides)
     if case.simulation.mode != "full":
         raise ConfigError("the dyno needs simulation.mode: full (brake torque needs the whole cycle)")
     N0 = float(case.operating.speed_rpm)
@@ -311,7 +288,7 @@ def dyno_test(
                         else np.linspace(0.7, 1.2, 5) * N0, float)
         if len(grid) < 2:
             raise ConfigError("dyno torque mode: the speed grid needs at least 2 speeds")
-        results = simulate([_variant(case, {"operating.speed_rpm": float(n)}) for n in grid])
+        results = simulate([case_with(case, {"operating.speed_rpm": float(n)}) for n in grid])
         bad = [f"{n:g} rpm: {r.error}" for n, r in zip(grid, results) if r.error]
         if bad:
             raise SolverError("dyno: " + "; ".join(bad))
@@ -443,7 +420,7 @@ def model_correction_check(case: Case | str = "demo", pressures_kPa=(93.0, 99.0,
            if exhaust_offset_bar is None else exhaust_offset_bar)
     pts = [(P_REF_DRY_KPA, T_REF_K)] + [(p, T_REF_K) for p in pressures_kPa if p != P_REF_DRY_KPA] + \
           [(P_REF_DRY_KPA, T) for T in temperatures_K if T != T_REF_K]
-    cases = [_variant(base, {"operating.intake_pressure_bar": p / 100.0, "operating.intake_temperature_K": T,
+    cases = [case_with(base, {"operating.intake_pressure_bar": p / 100.0, "operating.intake_temperature_K": T,
                              "operating.exhaust_pressure_bar": p / 100.0 + off}) for p, T in pts]
     res = simulate(cases)
     for r in res:

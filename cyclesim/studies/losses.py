@@ -63,7 +63,7 @@ from typing import Sequence
 
 import numpy as np
 
-from ..config import Case, build_case, load_config, parse_override, set_dotted
+from ..config import Case, build_case, resolve_case, set_dotted
 from ..errors import ConfigError, SolverError
 from ..output import CAUTION, atomic_write_text, write_rows_csv
 
@@ -374,11 +374,7 @@ def loss_breakdown(
     """
     from ..api import simulate
 
-    label = str(case) if not isinstance(case, Case) else case.name
-    if not isinstance(case, Case):
-        case = load_config(case, list(overrides))
-    elif overrides:
-        case = _variant(case, {".".join(p): v for p, v in map(parse_override, overrides)})
+    case, label = resolve_case(case, overrides)
     if case.simulation.mode != "full":
         case = _variant(case, {"simulation.mode": "full"})
     if not 0.01 <= closed_step_deg <= 1.0:

@@ -23,7 +23,6 @@ and the user reads it with a spark study at the point (see the caution).
 
 from __future__ import annotations
 
-import copy
 import json
 import math
 from dataclasses import dataclass, field
@@ -32,9 +31,10 @@ from typing import Sequence
 
 import numpy as np
 
-from ..config import Case, build_case, load_config, parse_override, set_dotted
+from ..config import Case, case_with, resolve_case
 from ..errors import ConfigError
 from ..output import CAUTION, atomic_write_text, write_rows_csv
+from ..output import plain as _plain
 from .spark import SPARK_CAUTION, fit_torque_peak
 from .sweep import parse_values
 
@@ -98,31 +98,10 @@ def _f(r, k, spec, w, scale=1.0):
     return f"{format(v * scale, spec):>{w}s}"
 
 
-def _plain(x):
-    if isinstance(x, dict):
-        return {k: _plain(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_plain(v) for v in x]
-    if isinstance(x, (np.floating, float)):
-        return float(x) if math.isfinite(float(x)) else None
-    if isinstance(x, np.bool_):
-        return bool(x)
-    return x
-
-
-def _variant(case: Case, changes: dict) -> Case:
-    raw = copy.deepcopy(case.raw)
-    for k, v in changes.items():
-        raw = set_dotted(raw, k, v)
-    return build_case(raw, case.base_dir)
 
 
 def _base(case, overrides):
-    label = str(case) if not isinstance(case, Case) else case.name
-    if not isinstance(case, Case):
-        case = load_config(case, list(overrides))
-    elif overrides:
-        case = _variant(case, {".".join(p): v for p, v in map(parse_override, overrides)})
+    case, label = resolve_case(case, overrides)
     if case.simulation.mode != "full":
         raise ConfigError("maps need simulation.mode: full (brake figures need the whole cycle)")
     return case, label
@@ -166,7 +145,7 @@ def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides:
 
     case, label = _base(case, overrides)
     sp = _numbers("speeds", speeds, (1500.0, 2250.0, 3000.0, 3750.0, 4500.0, 5250.0, 6000.0))
-    res = simulate([_variant(case, {"operating.speed_rpm": n}) for n in sp])
+    res = simulate([case_with(case, {"operating.speed_rpm": n}) for n in sp])
     rows = [_row(r, {"speed_rpm": n, "intake_pressure_bar": case.operating.intake_pressure_bar}) for n, r in zip(sp, res)]
     cols = ["speed_rpm", "intake_pressure_bar", "spark_advance_deg", *FIGURES, "error", "warnings"]
     m = MapResult("full_load", rows, cols, base_config=label)
@@ -223,7 +202,7 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
         if len(adv) < 3:
             raise ConfigError("advances: at least 3 are needed to find MBT")
         adv = sorted(adv)
-        grid = [_variant(case, {"operating.speed_rpm": n, "operating.intake_pressure_bar": p,
+        grid = [case_with(case, {"operating.speed_rpm": n, "operating.intake_pressure_bar": p,
                                 "burn.spark_advance_deg": a}) for n, p in points for a in adv]
         res = simulate(grid)
         for k, (n, p) in enumerate(points):
@@ -243,12 +222,12 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
         final = []
         for n, p in points:
             a, _ = mbt[(n, p)]
-            final.append(_variant(case, {"operating.speed_rpm": n, "operating.intake_pressure_bar": p,
+            final.append(case_with(case, {"operating.speed_rpm": n, "operating.intake_pressure_bar": p,
                                          **({"burn.spark_advance_deg": a} if a is not None else {})}))
         notes.append(f"MBT per point from advances {', '.join(f'{a:g}' for a in adv)} deg BTDC, read by the"
                      " spark study's torque fit; each point then runs at its MBT")
     else:
-        final = [_variant(case, {"operating.speed_rpm": n, "operating.intake_pressure_bar": p}) for n, p in points]
+        final = [case_with(case, {"operating.speed_rpm": n, "operating.intake_pressure_bar": p}) for n, p in points]
         notes.append("the case's spark advance at every point")
     res = simulate(final)
     rows = []

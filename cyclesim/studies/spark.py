@@ -45,7 +45,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from ..config import Case, load_config
+from ..config import Case, resolve_case
 from ..errors import ConfigError, CyclesimError
 from ..output import CAUTION, atomic_write_text
 from .sweep import CSV_NAME, JSON_NAME, SweepResult, parse_values, sweep
@@ -517,12 +517,7 @@ def spark_study(
     for name, v in (("--pmax-limit", p_max_limit_bar), ("--dp-limit", dp_limit_bar_per_deg)):
         if v is not None and not v > 0:
             raise ConfigError(f"{name} {v!r}: expected a positive number")
-    label = str(base) if not isinstance(base, Case) else base.name
-    case = base if isinstance(base, Case) else load_config(base, list(overrides))
-    if isinstance(base, Case) and overrides:
-        from ..config import case_with, parse_override
-
-        case = case_with(case, {".".join(p): v for p, v in map(parse_override, overrides)})
+    case, label = resolve_case(base, overrides)
     _check_burn_model(case)
     vals = parse_values(KEY, advances)
     if len(vals) < 3:
@@ -578,7 +573,7 @@ def spark_study(
     if knock_cycles and knock_cycles > 0 and st.knock_status != "no model":
         from .knock_limit import statistical_knock_limit
 
-        kl = statistical_knock_limit(_base_case(base, overrides), adv_s,
+        kl = statistical_knock_limit(case, adv_s,
                                      n_cycles=int(knock_cycles), share=float(knock_cycle_share))
         st.statistical_knock = kl.as_dict()
         st.notes.extend(n for n in kl.notes if not n.startswith("model estimate"))
@@ -724,11 +719,3 @@ def plot_spark_study(st: SparkStudy, out: Path, traces: int = 8) -> list[Path]:
         ax.legend(title="advance [deg BTDC]", fontsize=7, ncol=2)
         files.append(_save(fig, out / "spark_pressure_traces.png"))
     return files
-
-
-def _base_case(base, overrides):
-    from ..config import load_config
-
-    if isinstance(base, Case):
-        return base
-    return load_config(base, list(overrides))

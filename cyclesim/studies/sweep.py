@@ -43,7 +43,7 @@ from typing import Any, Callable, Iterable, Mapping, Sequence
 import numpy as np
 import yaml
 
-from ..config import CORE_SCHEMA, Case, case_with, load_config
+from ..config import CORE_SCHEMA, Case, case_with, resolve_case
 from ..errors import ConfigError, CyclesimError
 from ..output import CAUTION, atomic_write_text
 from ..params import suggestion
@@ -611,20 +611,8 @@ def sweep(
         ``out`` not empty without ``resume``/``force``; a resume folder
         written by a different sweep.
     """
-    if isinstance(base, Case):
-        base_case = base
-        if overrides:
-            from ..config import parse_override
-
-            changes = {}
-            for text in overrides:
-                parts, value = parse_override(text)
-                changes[".".join(parts)] = value
-            base_case = case_with(base_case, changes)
-        base_label = label or base_case.name
-    else:
-        base_case = load_config(base, list(overrides))
-        base_label = label or str(base)
+    base_case, base_label = resolve_case(base, overrides)
+    base_label = label or base_label
     items = list(vary.items()) if isinstance(vary, Mapping) else list(vary)
     if not items:
         raise ConfigError("sweep: nothing to vary (give at least one KEY=VALUES)")

@@ -331,15 +331,7 @@ def _read_csv(path: Path) -> TraceSet:
     if "cycle" in header:
         if "pressure_bar" not in header:
             raise InputFileError(f"{path}: missing column 'pressure_bar' (long format)")
-        cyc = col["cycle"]
-        ids = list(dict.fromkeys(cyc.tolist()))
-        groups = [np.flatnonzero(cyc == c) for c in ids]
-        n = groups[0].size
-        for c, g in zip(ids, groups):
-            if g.size != n:
-                raise InputFileError(f"{path}: cycle {c:g} has {g.size} samples, cycle {ids[0]:g} has {n}")
-            if np.any(np.diff(g) != 1):
-                raise InputFileError(f"{path}: rows of cycle {c:g} are not contiguous")
+        ids, groups = _cycle_groups(path, col["cycle"], contiguous=True)
         theta = col["crank_deg"][groups[0]]
         for c, g in zip(ids, groups):
             if not np.allclose(col["crank_deg"][g], theta, rtol=0, atol=1e-9):
@@ -361,6 +353,19 @@ def _read_csv(path: Path) -> TraceSet:
             raise InputFileError(f"{path}: {len(pcols)} pressure columns but {len(icols)} intake columns")
         Pi = np.stack([col[h] for h in icols]) * BAR
     return _checked(path, theta, P, Pi, speed, meta)
+
+
+def _cycle_groups(path, cyc, contiguous: bool = False):
+    """Cycle numbers in order of appearance and the sample indices of each; equal counts required."""
+    ids = list(dict.fromkeys(cyc.tolist()))
+    groups = [np.flatnonzero(cyc == c) for c in ids]
+    n = groups[0].size
+    for c, g in zip(ids, groups):
+        if g.size != n:
+            raise InputFileError(f"{path}: cycle {c:g} has {g.size} samples, cycle {ids[0]:g} has {n}")
+        if contiguous and np.any(np.diff(g) != 1):
+            raise InputFileError(f"{path}: rows of cycle {c:g} are not contiguous")
+    return ids, groups
 
 
 def _checked(path, theta, P, Pi, speed, meta) -> TraceSet:
@@ -446,12 +451,7 @@ def _read_mdf(path: Path) -> TraceSet:
         meta = _mdf_comment_meta(getattr(mdf.header, "comment", ""))
     finally:
         mdf.close()
-    ids = list(dict.fromkeys(cyc.tolist()))
-    groups = [np.flatnonzero(cyc == c) for c in ids]
-    n = groups[0].size
-    for c, g in zip(ids, groups):
-        if g.size != n:
-            raise InputFileError(f"{path}: cycle {c:g} has {g.size} samples, cycle {ids[0]:g} has {n}")
+    _, groups = _cycle_groups(path, cyc)
     theta = crank[groups[0]]
     P = np.stack([p[g] for g in groups]) * BAR
     Pi = None if pi is None else np.stack([pi[g] for g in groups]) * BAR

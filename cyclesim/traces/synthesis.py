@@ -176,9 +176,9 @@ def _run_cycles(cases: list[Case], registry, initial: np.ndarray):
     d = derived_trace(batch, tr)
     figs = compute_figures(batch, tr, d)
     if any(m.__class__.figures is not Submodel.figures for m in batch.models.values()):
-        cols = output_trace(batch, tr, d, None)
-        for model in batch.models.values():
-            figs.update(model.figures(cols))
+        from ..api import model_figures
+
+        figs.update(model_figures(batch, output_trace(batch, tr, d, None))[0])
     return batch, tr, d, figs
 
 
@@ -336,8 +336,6 @@ def synthesize(
 
     # measurement
     rng = np.random.default_rng(var.seed + 7919)
-    from ..geometry import Geometry  # noqa: F401  (bore for the acoustic modes)
-
     bore = float(case.engine.bore_mm) * 1e-3
     Pm, Pint, art_truth = art.apply_artefacts(
         P, theta_f, speed, settings, rng, T=Tg, gamma=G, bore_m=bore,
