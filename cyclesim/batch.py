@@ -123,6 +123,9 @@ def build_batch(cases: Sequence[Case], registry) -> Batch:
         spec = {"name": f.name, "C": f.C, "H": f.H, "O": f.O or 0.0, "lhv_MJ_per_kg": f.lhv_MJ_per_kg}
     fuel = get_fuel(spec, registry.fuels)
     phi = 1.0 / op.__dict__["lambda"]
+    if getattr(op, "fuel_cut", False):
+        # fuel shut off: the charge is air; a trace of fuel (phi 1e-6) keeps the tables defined
+        phi = np.full(B, 1e-6)
     if cases[0].gas.properties == "constant_gamma":
         from .ideal_gas import ConstantGammaGas
 

@@ -62,6 +62,8 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
         P("exhaust_pressure_bar", "bar", 1.05, "exhaust plenum pressure (absolute)", 0, 10, min_exclusive=True),
         P("exhaust_temperature_K", "K", 900.0, "exhaust plenum temperature (for backflow)", 250, 2000),
         P("egr_fraction", "-", 0.0, "external EGR mass fraction of the intake charge", 0, 1, max_exclusive=True),
+        P("fuel_cut", "-", False, "fuel shut off (a cut cylinder): the fresh charge is air only", kind="bool",
+          sweepable=False),
         P("ivc_pressure_bar", "bar", 1.0, "closed-cycle mode: cylinder pressure at IVC", 0, 20, min_exclusive=True),
         P("ivc_temperature_K", "K", 340.0, "closed-cycle mode: cylinder temperature at IVC", 150, 1000),
         P("residual_fraction", "-", 0.05, "closed-cycle mode: burned-gas mass fraction at IVC", 0, 1, max_exclusive=True),

@@ -273,6 +273,9 @@ class Boundary(Submodel):
     role = "boundary"
     constant: ClassVar[bool] = False
     """True if the plenum states never change: the solver then evaluates them once."""
+    fixed_gas: ClassVar[bool] = False
+    """True if only the plenum pressures change (temperatures and compositions fixed):
+    the solver then evaluates the plenum gas properties once and re-reads the pressures."""
 
     def intake(self, theta: float, sub: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Intake plenum (pressure [Pa], temperature [K], burned-gas (EGR) mass fraction [-])."""

@@ -133,6 +133,18 @@ class _RHS:
         cache = self._plenum_cache
         if cache is not None and getattr(self.bnd, "constant", False):
             return cache
+        if cache is not None and getattr(self.bnd, "fixed_gas", False):
+            try:
+                p_i = self.bnd.intake(theta, sub)[0]
+                p_e = self.bnd.exhaust(theta, sub)[0]
+            except CyclesimError:
+                raise
+            except Exception as exc:  # noqa: BLE001
+                raise PluginError(f"boundary model {self.bnd.name!r} raised {type(exc).__name__} at crank"
+                                  f" angle {theta:.2f} deg: {exc}") from exc
+            ci, ce = cache["int"], cache["exh"]
+            return {"int": (np.asarray(p_i, float) * np.ones(self.B),) + ci[1:],
+                    "exh": (np.asarray(p_e, float) * np.ones(self.B),) + ce[1:]}
         g = self.gas
         try:
             p_i, T_i, y_i = self.bnd.intake(theta, sub)
