@@ -64,20 +64,37 @@ def test_volume_array_gives_the_same_figures_as_the_geometry(fired, engine):
     g, s, _ = engine
     a = analyse(_set(fired, intake_bar=0.98), g, s)
     b = analyse(_set(fired, intake_bar=0.98), fired.trace["volume_m3"], s)
-    for k in ("imep_net_bar", "imep_gross_bar", "ca50_deg", "p_max_bar"):
+    for k in ("imep_net_bar", "imep_gross_bar", "p_max_bar"):
         assert b.per_cycle[k][0] == pytest.approx(a.per_cycle[k][0], rel=1e-6, abs=1e-6)   # invariance
+    # the wall heat of a sampled volume assumes 2.1 bore areas for head and piston (the Geometry
+    # has 2.2): the burn points move by a little (0.02 deg: a tenth of the brief's CA50 limit)
+    assert b.per_cycle["ca50_deg"][0] == pytest.approx(a.per_cycle["ca50_deg"][0], abs=0.02)
 
 
-def test_ca50_from_apparent_heat_release_near_mass_burned_ca50(fired, engine):
-    # Apparent heat release = chemical release - wall heat - blowby enthalpy, seen through one gas
-    # with gamma(T); its normalised curve is not the mass fraction burned.  The wall loss is largest
-    # near the end of burning, so CA90 comes early; around CA50 burning dominates and the two agree
-    # to about a degree (common practice; the brief's limit is 1 deg).
+def test_burn_points_from_gross_heat_release_near_mass_burned(fired, engine):
+    # Burn points come from the gross release: the apparent release with fresh-charge / burned-gas
+    # properties mixed by the burned fraction (Klein & Eriksson 2004, SAE 2004-01-1464: a one-gas
+    # gamma(T) misplaces the release during burning, from memory) plus Woschni's wall heat (Woschni
+    # 1967, SAE 670931) scaled so that the release is level after burning (common practice).
+    # The gross release is the chemical release, so its burn points are those of the mass burned;
+    # limits: the brief's 0.2 deg for CA50, the same for CA10, 0.5 deg for CA90 (the tail is
+    # where the wall-heat estimate matters most; common practice).
     g, s, _ = engine
     r = analyse(_set(fired, intake_bar=0.98), g, s)
-    assert r.per_cycle["ca50_deg"][0] == pytest.approx(fired.summary["ca50_deg"], abs=1.0)
-    assert r.per_cycle["ca10_deg"][0] == pytest.approx(fired.summary["ca10_deg"], abs=2.0)
-    assert r.per_cycle["ca90_deg"][0] < fired.summary["ca90_deg"]
+    assert r.per_cycle["ca50_deg"][0] == pytest.approx(fired.summary["ca50_deg"], abs=0.2)
+    assert r.per_cycle["ca10_deg"][0] == pytest.approx(fired.summary["ca10_deg"], abs=0.2)
+    assert r.per_cycle["ca90_deg"][0] == pytest.approx(fired.summary["ca90_deg"], abs=0.5)
+
+
+def test_one_gas_gamma_and_no_wall_heat_cancel_by_chance(fired, engine):
+    # The measured cause of the old CA50 result: the apparent release of a one-gas linear gamma(T)
+    # puts CA50 late by the gamma error and the wall heat puts it early; with proper gas
+    # properties the apparent release alone is early by about the wall heat's share (0.5-0.75 deg
+    # on the demo, measured), and the wall-heat correction brings it back (see the test above)
+    g, s, _ = engine
+    ts = _set(fired, intake_bar=0.98)
+    net_only = analyse(ts, g, s.replace(wall_heat="none")).per_cycle["ca50_deg"][0]
+    assert net_only < fired.summary["ca50_deg"] - 0.3
 
 
 def test_apparent_heat_release_matches_chemical_minus_wall_heat_and_blowby(fired, engine):
@@ -87,7 +104,7 @@ def test_apparent_heat_release_matches_chemical_minus_wall_heat_and_blowby(fired
     # gas-exchange calculation: here the simulator's (the config's 340 K estimate is 17 K low and
     # moves the late apparent release by about 1.5 % of the fuel energy)
     s = s.replace(T_ivc_K=float(np.interp(s.ivc_deg, tr["crank_deg"], tr["temperature_K"])))
-    r = analyse(_set(fired, intake_bar=0.98), g, s)
+    r = analyse(_set(fired, intake_bar=0.98), g, s.replace(gas_model="linear"))
     th, Q = r.theta_deg, r.heat_release_J[0]
     fuel = fired.summary["fuel_energy_J"]
     # reference from the simulator's balance: chemical release - wall heat - enthalpy leaving with

@@ -99,6 +99,32 @@ class AnalysisSettings:
         Bore [m]; needed for the TDC estimate when the volume is an array.
     tdc_wall_temperature_K : float
         Mean wall temperature of head and piston for the loss angle [K].
+    gas_model : str
+        ``tables``: cylinder gas as a mixture of fresh charge and burned gas
+        (``fuel`` at ``fuel_air_lambda``; burned gas ``burned_gas``:
+        ``equilibrium`` or ``complete``), mixed by the burned mass fraction
+        ``residual_fraction + (1 - residual_fraction) x_b`` (x_b from the heat
+        release itself, ``burn_iterations`` passes).  ``linear``: one gas of
+        constant m R with gamma(T) = gamma0 + gamma1_per_K T.
+    fuel, fuel_air_lambda : str, float
+        Fuel name and air-fuel equivalence ratio lambda [-] of the ``tables`` gas.
+    residual_fraction : float
+        Burned-gas mass fraction of the charge at IVC (residual plus EGR) [-].
+    wall_heat : str
+        ``woschni``: burn points from the gross heat release, apparent release
+        plus wall heat of Woschni's correlation; ``none``: from the apparent release.
+    wall_temperature_K : float or None
+        Wall temperature of the wall-heat estimate [K]; default ``tdc_wall_temperature_K``.
+    woschni_multiplier : float
+        Scale of the Woschni coefficient [-].
+    woschni_form : str
+        ``original`` (Woschni 1967) or ``heywood`` (Heywood 1988 eq. 12.19), for
+        the wall heat and the TDC loss angle.
+    level_fit : bool
+        Scale the wall heat so that the gross release is level after burning.
+    level_start_deg, level_end_deg : float
+        That window: from this many degrees after the maximum of the apparent
+        release to this many before EVO [deg].
     """
 
     peg: str = "intake"
@@ -120,6 +146,19 @@ class AnalysisSettings:
     tdc_wall_temperature_K: float = 450.0
     motored_threshold: float = 1.0
     bore_m: float | None = None
+    gas_model: str = "tables"
+    fuel: str = "gasoline"
+    fuel_air_lambda: float = 1.0
+    residual_fraction: float = 0.07
+    burned_gas: str = "equilibrium"
+    wall_heat: str = "woschni"
+    wall_temperature_K: float | None = None
+    woschni_multiplier: float = 1.0
+    woschni_form: str = "original"
+    level_fit: bool = True
+    level_start_deg: float = 20.0
+    level_end_deg: float = 5.0
+    burn_iterations: int = 3
 
     def replace(self, **changes) -> "AnalysisSettings":
         return replace(self, **changes)
@@ -276,6 +315,212 @@ def apparent_heat_release(th, p, V, s: AnalysisSettings, mR=None):
     Q[idx] = q
     T[idx] = Tw
     return Q, T
+
+
+_TABLES: dict = {}
+
+
+def _gas_tables(s: AnalysisSettings):
+    """Fresh-charge and burned-gas property tables of the settings' fuel and lambda (cached)."""
+    key = (s.fuel, float(s.fuel_air_lambda), s.burned_gas)
+    if key not in _TABLES:
+        from ..fuels import get_fuel
+        from ..thermo import build_gas_tables
+
+        if not s.fuel_air_lambda > 0:
+            raise CyclesimError(f"analyse: fuel_air_lambda = {s.fuel_air_lambda!r}: expected > 0")
+        _TABLES[key] = build_gas_tables(get_fuel(s.fuel), [1.0 / float(s.fuel_air_lambda)], s.burned_gas)
+    return _TABLES[key]
+
+
+def _mixture_temperature(tab, p, V, m, y):
+    """Temperature [K] of the mixture from p V = m R(T, rho, y) T (fixed point)."""
+    rho = m / V
+    T = p * V / (m * float(tab.R_unburned[0]))
+    for _ in range(6):
+        R = tab.mixture(T, rho, y).R
+        T = p * V / (m * R)
+    return T
+
+
+def _tables_heat_release(th, p, V, s: AnalysisSettings, y, mass=None):
+    """Apparent net heat release [J] over the IVC..EVO samples ``th`` with the ``tables`` gas.
+
+    The sensible-energy first law of a closed single zone: per step,
+    ``dQ = m [u(T2, rho2, y_m) - u(T1, rho1, y_m)] + p_m dV`` with the mixture
+    internal energy u at the step's mean burned fraction y_m (the composition
+    change itself is the chemical release and is not counted), T from
+    ``p V = m R(T, rho, y) T``.  Returns (Q, T, m).
+    """
+    tab = _gas_tables(s)
+    if mass is None:
+        if s.trapped_mass_kg:
+            mass = float(s.trapped_mass_kg)
+        else:
+            p0, V0, y0 = _interp(th, p, s.ivc_deg), _interp(th, V, s.ivc_deg), float(y[0])
+            mass = p0 * V0 / (float(tab.R_unburned[0]) * s.T_ivc_K)
+            for _ in range(4):
+                R0 = float(tab.mixture(np.array([s.T_ivc_K]), np.array([mass / V0]), np.array([y0])).R[0])
+                mass = p0 * V0 / (R0 * s.T_ivc_K)
+    T = _mixture_temperature(tab, p, V, mass, y)
+    rho = mass / V
+    ym = 0.5 * (y[1:] + y[:-1])
+    u2 = tab.mixture(T[1:], rho[1:], ym).u
+    u1 = tab.mixture(T[:-1], rho[:-1], ym).u
+    dq = mass * (u2 - u1) + 0.5 * (p[1:] + p[:-1]) * np.diff(V)
+    q = np.concatenate([[0.0], np.cumsum(dq)])
+    return q, T, mass
+
+
+def _woschni_h(bore, p, T, w, s: AnalysisSettings):
+    """Woschni's coefficient [W/(m^2 K)] (bore [m], p [Pa], T [K], w [m/s]).
+
+    ``original``: Woschni 1967 (SAE 670931), h = 129.8 B^-0.2 p[bar]^0.8 T^-0.53 w^0.8;
+    ``heywood``: the restatement of Heywood 1988 eq. 12.19, 3.26 B^-0.2 p[kPa]^0.8
+    T^-0.55 w^0.8.  The two differ by T^-0.02 (0.87 at 800 K, 0.86 at 2000 K).
+    """
+    if s.woschni_form == "original":
+        return 129.8 * bore**-0.2 * (p / BAR) ** 0.8 * T**-0.53 * w**0.8
+    if s.woschni_form == "heywood":
+        return 3.26 * bore**-0.2 * (p / 1000.0) ** 0.8 * T**-0.55 * w**0.8
+    raise CyclesimError(f"woschni_form {s.woschni_form!r}: unknown; choose original or heywood")
+
+
+def _woschni_wall_heat(th, p, V, T, vol, s: AnalysisSettings, speed_rpm, n_comp, theta_soc):
+    """Cumulative wall heat [J] over the samples ``th`` by Woschni's correlation.
+
+    Woschni 1967 (SAE 670931) as restated by Heywood 1988 eq. 12.19:
+    ``h = 3.26 B^-0.2 p[kPa]^0.8 T^-0.55 w^0.8`` with
+    ``w = 2.28 Sp + C2 Vd T_r / (p_r V_r) (p - p_mot)``, C2 = 0 before the
+    start of combustion ``theta_soc`` and 3.24e-3 m/(s K) after it; the
+    reference state is IVC and the motored pressure ``p_mot = p_r (V_r / V)^n``
+    with the measured compression exponent n.  Areas: head and piston from the
+    Geometry (2.1 bore areas for a sampled volume) plus the liner 4 V / B.
+    """
+    bore = vol.bore_m or s.bore_m
+    if not bore:
+        raise CyclesimError("wall heat: needs the bore (settings.bore_m) when the volume is an array")
+    a_bore = np.pi * bore**2 / 4.0
+    sp = 2.0 * (vol.Vd / a_bore) * speed_rpm / 60.0
+    if vol.geometry is not None:
+        end_area = float(vol.geometry.head_area_factor[0] + vol.geometry.piston_area_factor[0]) * a_bore
+    else:
+        end_area = 2.1 * a_bore
+    A = end_area + 4.0 * V / bore
+    p_r, V_r, T_r = p[0], V[0], T[0]
+    n = n_comp if np.isfinite(n_comp) and 1.0 < n_comp < 1.6 else 1.32
+    p_mot = p_r * (V_r / V) ** n
+    c2 = np.where(th >= theta_soc, 3.24e-3, 0.0)
+    w = 2.28 * sp + c2 * vol.Vd * T_r / (p_r * V_r) * np.maximum(p - p_mot, 0.0)
+    h = s.woschni_multiplier * _woschni_h(bore, p, T, w, s)
+    Tw = s.wall_temperature_K if s.wall_temperature_K is not None else s.tdc_wall_temperature_K
+    rate = h * A * (T - Tw) / (6.0 * speed_rpm)          # [J/deg]
+    return np.concatenate([[0.0], np.cumsum(0.5 * (rate[1:] + rate[:-1]) * np.diff(th))])
+
+
+def _level_after_burn(th, q_net, q_wall, s: AnalysisSettings) -> float:
+    """Scale of the wall heat that makes the gross release level once burning has stopped.
+
+    Once burning has stopped the apparent release falls only by the wall heat,
+    so ``q_net + c q_wall`` must be level there (common practice: the heat
+    transfer of a heat-release analysis is tuned until the cumulative gross
+    release is flat after the end of combustion).  The window runs from
+    ``level_start_deg`` after the maximum of the apparent release (the
+    burning rate has fallen below the wall loss there) to ``level_end_deg``
+    before EVO; c is the least-squares ratio of the two slopes.  Without
+    ``level_fit`` (or with too short a window) the scale is
+    ``woschni_multiplier`` as given.
+    """
+    if not s.level_fit:
+        return 1.0
+    imax = int(np.argmax(q_net))
+    m = (th >= th[imax] + s.level_start_deg) & (th <= s.evo_deg - s.level_end_deg)
+    if m.sum() < 10:
+        return 1.0
+    t = th[m]
+    a = np.polyfit(t, q_net[m], 1)[0]
+    b = np.polyfit(t, q_wall[m], 1)[0]
+    if not b > 0:
+        return 1.0
+    return float(np.clip(-a / b, 0.2, 5.0))
+
+
+def _normalised(th, q):
+    """Burned fraction from a cumulative release: 0 at its minimum before its maximum, 1 at the maximum."""
+    imax = int(np.argmax(q))
+    imin = int(np.argmin(q[: imax + 1]))
+    x = np.zeros_like(q)
+    if q[imax] - q[imin] > 0:
+        x = np.clip((q - q[imin]) / (q[imax] - q[imin]), 0.0, 1.0)
+        x[:imin] = 0.0
+        x[imax:] = 1.0
+    return x, th[imin]
+
+
+def heat_release(th, p, vol, s: AnalysisSettings, speed_rpm: float, n_comp: float = np.nan):
+    """Apparent net and gross heat release [J] and temperature [K] from IVC to EVO.
+
+    Parameters
+    ----------
+    th : ndarray (n,)
+        Corrected crank angle [deg].
+    p : ndarray (n,)
+        Absolute pressure [Pa].
+    vol : VolumeFunction
+    s : AnalysisSettings
+    speed_rpm : float
+        Engine speed [rpm] (for the wall heat).
+    n_comp : float
+        Polytropic exponent of compression (Woschni's motored pressure) [-].
+
+    Returns
+    -------
+    Q_net, Q_gross, T : ndarray (n,)
+        NaN outside IVC..EVO; the releases are zero at IVC.  Q_gross equals
+        Q_net when ``wall_heat`` is ``none``.
+    """
+    V = vol(th)
+    if s.gas_model == "linear":
+        Q, T = apparent_heat_release(th, p, V, s)
+        w = np.isfinite(Q)
+        idx = np.flatnonzero(w)
+    elif s.gas_model == "tables":
+        w = (th >= s.ivc_deg) & (th <= s.evo_deg)
+        idx = np.flatnonzero(w)
+        Q = np.full(th.shape, np.nan)
+        T = np.full(th.shape, np.nan)
+        if idx.size < 3:
+            return Q, Q.copy(), T
+        tw, pw, Vw = th[idx], p[idx], V[idx]
+        r = float(s.residual_fraction)
+        x = np.zeros(idx.size)
+        mass = None
+        for it in range(max(1, int(s.burn_iterations)) + 1):
+            y = r + (1.0 - r) * x
+            q, Tw, mass = _tables_heat_release(tw, pw, Vw, s, y, mass)
+            qg = q
+            if s.wall_heat == "woschni":
+                soc = _normalised(tw, q)[1]
+                qw = _woschni_wall_heat(tw, pw, Vw, Tw, vol, s, speed_rpm, n_comp, soc)
+                qg = q + _level_after_burn(tw, q, qw, s) * qw
+            x, _ = _normalised(tw, qg)
+        Q[idx] = q - np.interp(s.ivc_deg, tw, q)
+        T[idx] = Tw
+        G = np.full(th.shape, np.nan)
+        G[idx] = qg - np.interp(s.ivc_deg, tw, qg)
+        return Q, G, T
+    else:
+        raise CyclesimError(f"gas_model {s.gas_model!r}: unknown; choose tables or linear")
+    if s.wall_heat == "none" or idx.size < 3:
+        return Q, Q.copy(), T
+    if s.wall_heat != "woschni":
+        raise CyclesimError(f"wall_heat {s.wall_heat!r}: unknown; choose woschni or none")
+    tw = th[idx]
+    soc = _normalised(tw, Q[idx])[1]
+    G = np.full(th.shape, np.nan)
+    qw = _woschni_wall_heat(tw, p[idx], V[idx], T[idx], vol, s, speed_rpm, n_comp, soc)
+    G[idx] = Q[idx] + _level_after_burn(tw, Q[idx], qw, s) * qw
+    return Q, G, T
 
 
 def _burn_points(th, Q, fractions=(0.1, 0.5, 0.9)):
@@ -442,7 +687,7 @@ def estimate_tdc_offset(theta, p_abs, vol: VolumeFunction, s: AnalysisSettings, 
     for _ in range(20):
         V_pk = float(vol(np.array([th_pk - d]))[0])
         T_pk = p_pk * V_pk / mR
-        h = 3.26 * bore**-0.2 * (p_pk / 1000.0) ** 0.8 * T_pk**-0.55 * (2.28 * sp) ** 0.8
+        h = _woschni_h(bore, p_pk, T_pk, 2.28 * sp, s)
         A = end_area + 4.0 * V_pk / bore
         q = -h * A * (T_pk - s.tdc_wall_temperature_K) / (6.0 * speed_rpm)   # [J/deg]
         g_pk = float(_gamma(T_pk, s))
@@ -456,19 +701,21 @@ def estimate_tdc_offset(theta, p_abs, vol: VolumeFunction, s: AnalysisSettings, 
             "heat_loss_rate_J_per_deg": float(q)}
 
 
-def _cycle_figures(th, p, vol, s, Vd):
+def _cycle_figures(th, p, vol, s, Vd, speed_rpm):
     V = vol(th)
     W = _pdv(th, p, V)
     tg, pg = _pdv(th, p, V, -180.0, 180.0)
     Vg = vol(tg)
     Wg = float(np.sum(0.5 * (pg[1:] + pg[:-1]) * np.diff(Vg)))
-    Q, T = apparent_heat_release(th, p, V, s)
-    (c10, c50, c90), qrange = _burn_points(th, Q)
+    n_c = _slope_loglog(th, p, V, *s.compression_window_deg)
+    Q, G, T = heat_release(th, p, vol, s, speed_rpm, n_c)
+    (c10, c50, c90), _ = _burn_points(th, G)
+    qrange = float(np.nanmax(Q) - np.nanmin(Q)) if np.isfinite(Q).any() else 0.0
     tpk, ppk = _peak(th, p)
     return {
         "imep_net_bar": W / Vd / BAR,
         "imep_gross_bar": Wg / Vd / BAR,
-        "n_compression": _slope_loglog(th, p, V, *s.compression_window_deg),
+        "n_compression": n_c,
         "n_expansion": _slope_loglog(th, p, V, *s.expansion_window_deg),
         "ca10_deg": c10, "ca50_deg": c50, "ca90_deg": c90,
         "p_max_bar": ppk / BAR, "theta_pmax_deg": tpk,
@@ -560,7 +807,7 @@ def analyse(traceset: TraceSet, geometry_or_volume, settings: AnalysisSettings |
     HR = np.full(P.shape, np.nan)
     TT = np.full(P.shape, np.nan)
     for k in range(traceset.n_cycles):
-        fig, Q, T = _cycle_figures(th_true, P[k], vol, s, Vd)
+        fig, Q, T = _cycle_figures(th_true, P[k], vol, s, Vd, traceset.speed_rpm)
         for n in names:
             per[n][k] = fig[n]
         HR[k], TT[k] = Q, T
