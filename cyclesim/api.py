@@ -105,12 +105,18 @@ def model_figures(batch, cols: dict) -> tuple[dict, list[list[str]]]:
 
 def _run_batch(cases: list[Case], registry, progress=None) -> list[CaseResult]:
     from .batch import build_batch
-    from .figures import compute_figures, derived_trace, output_trace
-
-    batch = build_batch(cases, registry)
     from .solver import integrate
 
+    batch = build_batch(cases, registry)
     tr = integrate(batch, progress=progress)
+    return results_from_trace(batch, tr, registry)
+
+
+def results_from_trace(batch, tr, registry) -> list[CaseResult]:
+    """Per-case results (figures, trace columns, warnings) of an integrated batch."""
+    from .figures import compute_figures, derived_trace, output_trace
+
+    cases = batch.cases
     d = derived_trace(batch, tr)
     figs = compute_figures(batch, tr, d)
     step = float(batch.simulation.output_step_deg) or None

@@ -55,6 +55,9 @@ def build_parser() -> argparse.ArgumentParser:
     from .cli_fit import add_parsers as add_fit_parsers
 
     add_fit_parsers(sub)
+    from .cli_engine import add_parsers as add_engine_parsers
+
+    add_engine_parsers(sub)
     return ap
 
 
@@ -151,6 +154,9 @@ def main(argv: list[str] | None = None) -> int:
     from .cli_fit import HANDLERS as FIT_HANDLERS
 
     handlers.update(FIT_HANDLERS)
+    from .cli_engine import HANDLERS as ENGINE_HANDLERS
+
+    handlers.update(ENGINE_HANDLERS)
     try:
         return handlers[args.command](args)
     except CyclesimError as exc:

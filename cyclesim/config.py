@@ -106,6 +106,47 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
 }
 """Core sections and their declared keys (the single source for validation and docs)."""
 
+MULTI_SCHEMA: tuple[Param, ...] = (
+    P("firing_order", "-", None, "cylinder numbers (1..N) in firing order; default 1, 2, ..., N", 1, 24,
+      kind="list", sweepable=False),
+    P("manifolds", "-", "coupled", "coupled: shared intake and exhaust manifolds (volumes, throttle, exhaust"
+      " restriction); constant: every cylinder sees the operating point's plenum pressures",
+      kind="choice", choices=("coupled", "constant"), sweepable=False),
+    P("ambient_pressure_bar", "bar", 1.0, "air pressure upstream of the throttle and after the exhaust system",
+      0, 10, min_exclusive=True),
+    P("intake_manifold_volume_L", "L", 2.0, "intake manifold (plenum and runners) volume", 0, 100,
+      min_exclusive=True),
+    P("throttle_diameter_mm", "mm", 48.0, "throttle bore", 0, 500, min_exclusive=True),
+    P("throttle_angle_deg", "deg", 90.0, "throttle plate angle from the bore axis normal (90 = wide open)",
+      0, 90),
+    P("throttle_closed_angle_deg", "deg", 8.0, "plate angle at which the plate seals the bore", 0, 30),
+    P("throttle_discharge_coefficient", "-", 0.8, "discharge coefficient of the throttle", 0, 1,
+      min_exclusive=True),
+    P("exhaust_manifold_volume_L", "L", 1.5, "exhaust manifold volume", 0, 100, min_exclusive=True),
+    P("exhaust_outlet_diameter_mm", "mm", 30.0, "effective diameter of the exhaust system's restriction",
+      0, 500, min_exclusive=True),
+    P("cylinder_modes", "-", None, "per cylinder (in number order): fire, cut (fuel and spark off, valves"
+      " working) or deactivated (valves held shut); default all fire", kind="list",
+      choices=("fire", "cut", "deactivated"), sweepable=False),
+    P("spread_trapped_mass", "-", None, "per cylinder: factor on the intake valve flow area (trapped-mass"
+      " spread), default 1", 0.5, 1.5, kind="list", sweepable=False),
+    P("spread_spark_deg", "deg", None, "per cylinder: added spark advance (burn spread), default 0", -20, 20,
+      kind="list", sweepable=False),
+    P("spread_compression_ratio", "-", None, "per cylinder: added compression ratio, default 0", -3, 3,
+      kind="list", sweepable=False),
+    P("spread_wall_temperature_K", "K", None, "per cylinder: added wall temperature, default 0", -200, 200,
+      kind="list", sweepable=False),
+    P("walls", "-", "fixed", "fixed: wall temperatures as configured; lumped: one thermal mass per cylinder"
+      " between gas and coolant", kind="choice", choices=("fixed", "lumped"), sweepable=False),
+    P("coolant_temperature_K", "K", 365.0, "lumped walls: coolant temperature", 250, 500),
+    P("wall_resistance_K_per_kW", "K/kW", 15.0, "lumped walls: mean wall temperature rise above coolant per"
+      " kW of wall heat", 0, 1000, min_exclusive=True),
+    P("wall_time_constant_s", "s", 40.0, "lumped walls: thermal time constant", 0, 10000, min_exclusive=True),
+    P("max_coupled_cycles", "-", 16, "coupled manifolds: most cycles to settle the manifolds", 1, 200,
+      kind="int", sweepable=False),
+)
+"""Keys of the optional ``multi_cylinder`` section (the engine as N coupled cylinders)."""
+
 # Keys of the fuel section that only a custom fuel uses (None = not given).
 _FUEL_CUSTOM = ("C", "H", "O", "lhv_MJ_per_kg")
 
@@ -119,7 +160,8 @@ DEFAULT_MODELS = {
     "knock": "none",
 }
 META_KEYS = ("name", "description", "extends", "plugins")
-TOP_KEYS = tuple(CORE_SCHEMA) + ROLES + META_KEYS
+OPTIONAL_SECTIONS = ("multi_cylinder",)
+TOP_KEYS = tuple(CORE_SCHEMA) + OPTIONAL_SECTIONS + ROLES + META_KEYS
 
 
 @dataclass
@@ -162,6 +204,7 @@ class Case:
     plugins: tuple[str, ...] = ()
     raw: dict = field(default_factory=dict)
     base_dir: Path = field(default_factory=Path.cwd)
+    multi_cylinder: SimpleNamespace | None = None
 
     def section(self, name: str) -> SimpleNamespace:
         return getattr(self, name)
@@ -439,12 +482,14 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None) -> Cas
         cls = registry.submodel_class(role, model, where=f"{role}.model")
         params = validate_section(sec, cls.params, f"{role}", ignore=("model",))
         subs[role] = SubmodelChoice(role, model, params)
+    multi = SimpleNamespace(**validate_section(raw.get("multi_cylinder"), MULTI_SCHEMA, "multi_cylinder"))
     case = Case(
         name=str(raw.get("name") or "case"),
         submodels=subs,
         plugins=plugins,
         raw=copy.deepcopy(dict(raw)),
         base_dir=bdir,
+        multi_cylinder=multi,
         **sections,
     )
     _check_cross(case)

@@ -42,7 +42,9 @@ class Param:
         Whether the bounds themselves are excluded.
     kind : str
         ``"float"``, ``"int"``, ``"bool"``, ``"str"``, ``"choice"``, ``"path"``
-        or ``"table"`` (a list of ``[x, y]`` rows, or a CSV path).
+        ``"table"`` (a list of ``[x, y]`` rows, or a CSV path) or ``"list"``
+        (a list of numbers, each checked against ``min``/``max``; with
+        ``choices`` a list of those words).
     choices : tuple of str
         Allowed values for ``kind="choice"``.
     sweepable : bool
@@ -76,6 +78,12 @@ class Param:
             return "text" if self.kind == "str" else "a file path"
         if self.kind == "table":
             return "list of [x, y] rows or a CSV file"
+        if self.kind == "list":
+            if self.choices:
+                return "a list of: " + ", ".join(self.choices)
+            inner = Param(self.name, self.unit, None, self.doc, self.min, self.max,
+                          self.min_exclusive, self.max_exclusive)
+            return f"a list of numbers, each {inner.range_text()}"
         lo, hi = self.min, self.max
         if lo is None and hi is None:
             return "any number"
@@ -136,6 +144,17 @@ class Param:
             return value
         if k == "table":
             return value  # checked by the submodel that reads it (needs the file)
+        if k == "list":
+            if value is None and not self.required:
+                return None
+            if not isinstance(value, (list, tuple)):
+                raise ConfigError(f"{where}: expected a list, got {value!r}")
+            if self.choices:
+                one = Param(self.name, self.unit, None, self.doc, kind="choice", choices=self.choices)
+            else:
+                one = Param(self.name, self.unit, None, self.doc, self.min, self.max,
+                            self.min_exclusive, self.max_exclusive)
+            return tuple(one.check(v, f"{where}[{i}]") for i, v in enumerate(value))
         raise AssertionError(f"unknown parameter kind {k!r}")
 
 

@@ -144,3 +144,61 @@ def plot_case(res, out: Path) -> list[Path]:
         ax.axvline(0, color="0.3", lw=0.6)
         files.append(_save(fig, out / "energy_balance.png"))
     return files
+
+
+def plot_cut_bias(res, path: Path) -> Path:
+    """Cylinder-cut test: friction estimate against truth after each step, and each step's share of the bias."""
+    plt = _plt()
+    steps = res.steps
+    names = [s["step"] for s in steps]
+    x = np.arange(len(steps))
+    fig, (a1, a2) = plt.subplots(1, 2, figsize=(10, 4))
+    a1.bar(x - 0.2, [s["friction_est_kW"] for s in steps], 0.4, color="tab:orange", label="cut-test estimate")
+    a1.bar(x + 0.2, [s["friction_true_kW"] for s in steps], 0.4, color="tab:blue", label="model truth")
+    a1.set_xticks(x, names, rotation=30, ha="right")
+    a1.set_ylabel("friction power [kW]")
+    a1.set_title("friction: estimate and truth after each step")
+    a1.legend(fontsize=8)
+    d = [s["friction_bias_step_kW"] for s in steps]
+    a2.bar(x, d, color=["tab:red" if v > 0 else "tab:green" for v in d])
+    a2.axhline(0, color="0.3", lw=0.8)
+    a2.set_xticks(x, names, rotation=30, ha="right")
+    a2.set_ylabel("change of friction bias [kW]")
+    a2.set_title("bias added by each step (order matters)")
+    fig.suptitle(f"cylinder-cut test: {res.label}, {res.speed_rpm:.0f} rpm", fontsize=11)
+    return _save(fig, path)
+
+
+def plot_engine(eng, out: Path) -> list[Path]:
+    """Multi-cylinder engine: crank-resolved engine torque, manifold pressures, per-cylinder IMEP."""
+    plt = _plt()
+    out = Path(out)
+    t = eng.traces
+    files = []
+    fig, ax = plt.subplots(figsize=(7.5, 4))
+    ax.plot(t["crank_deg"], t["engine_torque_Nm"], color="tab:blue", lw=1.2, label="engine torque")
+    ax.axhline(eng.engine["brake_torque_Nm"], color="tab:red", lw=1, ls="--",
+               label=f"mean (brake) {eng.engine['brake_torque_Nm']:.1f} N m")
+    ax.set_xlabel("crank angle, engine frame [deg] (0 = firing TDC of the first cylinder in the firing order)")
+    ax.set_ylabel("torque [N m]")
+    ax.set_title(f"{eng.label}: crank-angle resolved torque")
+    ax.legend(fontsize=8)
+    files.append(_save(fig, out / "engine_torque.png"))
+    if "intake_manifold_bar" in t:
+        fig, (a1, a2) = plt.subplots(2, 1, figsize=(7.5, 5), sharex=True)
+        a1.plot(t["crank_deg"], t["intake_manifold_bar"], color="tab:green", lw=1.2)
+        a1.set_ylabel("intake manifold [bar]")
+        a2.plot(t["crank_deg"], t["exhaust_manifold_bar"], color="tab:red", lw=1.2)
+        a2.set_ylabel("exhaust manifold [bar]")
+        a2.set_xlabel("crank angle, engine frame [deg]")
+        a1.set_title(f"{eng.label}: manifold pressures")
+        files.append(_save(fig, out / "engine_manifolds.png"))
+    fig, ax = plt.subplots(figsize=(6, 3.6))
+    c = eng.cylinders
+    ax.bar([str(x["cylinder"]) for x in c], [x["imep_net_bar"] for x in c],
+           color=["tab:blue" if x["mode"] == "fire" else "0.6" for x in c])
+    ax.set_xlabel("cylinder")
+    ax.set_ylabel("net IMEP [bar]")
+    ax.set_title("per-cylinder net IMEP (grey: cut or deactivated)")
+    files.append(_save(fig, out / "engine_cylinders.png"))
+    return files

@@ -87,4 +87,70 @@ class ConstantPlenums(Boundary):
         return self.p_exh, self.T_exh
 
 
-SUBMODELS = [ConstantPlenums]
+class ManifoldTraces(ConstantPlenums):
+    """Intake and exhaust pressures that follow a periodic crank-angle trace per case.
+
+    Parameters
+    ----------
+    values : mapping
+        No parameters.
+    ctx : SetupContext
+        As for ``constant``: the operating point's pressures are the traces
+        until :meth:`set_traces` replaces them; temperatures and the EGR share
+        stay at the operating point's values.
+
+    Notes
+    -----
+    The multi-cylinder engine (:mod:`cyclesim.engine`) sets each cylinder's
+    traces from its shared manifolds between cycles, already shifted into the
+    cylinder's own crank frame.  Pressures are interpolated linearly on the
+    trace grid, periodic over 720 deg.
+    """
+
+    name = "manifold_trace"
+    summary = "intake and exhaust pressures following a periodic crank-angle trace (set by the engine model)"
+    references = ("common practice: filling-and-emptying manifolds seen by each cylinder as a pressure trace",)
+    constant = False
+    fixed_gas = True  # only the pressures change
+
+    def __init__(self, values: Mapping[str, Any], ctx: SetupContext) -> None:
+        super().__init__(values, ctx)
+        self._grid = None
+
+    def set_traces(self, theta0: float, step: float, p_int: np.ndarray, p_exh: np.ndarray) -> None:
+        """Set the traces: pressures [Pa] of shape (B, n) at ``theta0 + step * j``, periodic over 720 deg."""
+        p_int = np.asarray(p_int, float)
+        p_exh = np.asarray(p_exh, float)
+        if p_int.shape != p_exh.shape or p_int.ndim != 2 or p_int.shape[0] != self.B:
+            raise ValueError(f"manifold traces: expected two arrays of shape ({self.B}, n), got "
+                             f"{p_int.shape} and {p_exh.shape}")
+        if not (np.isfinite(p_int).all() and np.isfinite(p_exh).all() and (p_int > 0).all() and (p_exh > 0).all()):
+            raise ValueError("manifold traces: pressures must be finite and > 0")
+        n = p_int.shape[1]
+        if abs(n * step - 720.0) > 1e-9 * 720:
+            raise ValueError(f"manifold traces: {n} points at {step} deg do not span 720 deg")
+        # one extra column closes the period; rows (n+1, B) for a cheap row lookup
+        self._grid = (float(theta0), float(step), n,
+                      np.ascontiguousarray(np.hstack([p_int, p_int[:, :1]]).T),
+                      np.ascontiguousarray(np.hstack([p_exh, p_exh[:, :1]]).T))
+
+    def _at(self, theta: float, which: int) -> np.ndarray:
+        theta0, step, n, pi, pe = self._grid
+        x = ((theta - theta0) % 720.0) / step
+        j = min(int(x), n - 1)
+        w = x - j
+        tab = pi if which == 0 else pe
+        return tab[j] + w * (tab[j + 1] - tab[j])
+
+    def intake(self, theta: float, sub: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        if self._grid is None:
+            return self.p_int, self.T_int, self.y_b_int
+        return self._at(theta, 0), self.T_int, self.y_b_int
+
+    def exhaust(self, theta: float, sub: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+        if self._grid is None:
+            return self.p_exh, self.T_exh
+        return self._at(theta, 1), self.T_exh
+
+
+SUBMODELS = [ConstantPlenums, ManifoldTraces]

@@ -383,6 +383,9 @@ class PoppetValves(ValveFlow):
         Param("exhaust_lift_table", "-", None,
               "CSV of exhaust lift (columns crank_deg, lift_mm) replacing the event profile",
               kind="path", sweepable=False),
+        Param("intake_area_factor", "-", 1.0,
+              "factor on the intake effective area (a runner restriction, or cylinder-to-cylinder"
+              " trapped-mass spread)", min=0.0, max=5.0, min_exclusive=True),
         Param("area_grid_step_deg", "deg", 0.25,
               "crank step of the tabulated effective-area curve used in the flow calculation",
               min=0.01, max=2.0, sweepable=False),
@@ -503,6 +506,7 @@ class PoppetValves(ValveFlow):
             L = lifts[valve]
             cd = self.discharge_coefficient(L / self.diameter[valve][:, None])
             out[valve] = cd * self.geometric_area(L, valve)
+        out["intake"] = out["intake"] * _arr(self.p.intake_area_factor, self.B)[:, None]
         return out
 
     # -- hot loop ----------------------------------------------------------------
