@@ -30,8 +30,16 @@ def add_parsers(subparsers) -> None:
     f.add_argument("--weight", dest="weights", action="append", default=[], metavar="LO:HI=W",
                    help="weight of the squared residual between LO and HI deg, e.g. --weight=-20:40=4 (repeatable)")
     f.add_argument("--window", metavar="LO:HI", help="crank-angle window of the residuals [deg]")
-    f.add_argument("--covariance", choices=("classical", "hac"), default="classical",
-                   help="s^2 (J^T J)^-1 (default) or the autocorrelation-robust sandwich estimate")
+    f.add_argument("--covariance", choices=("classical", "hac"), default="hac",
+                   help="the autocorrelation-robust sandwich estimate (default) or s^2 (J^T J)^-1")
+    f.add_argument("--nuisance", action="append", default=[], choices=("offset", "gain", "thermal"),
+                   help="estimate a measurement flaw with the parameters: pressure offset, gain, sensor"
+                        " thermal shock (repeatable; pressure target only)")
+    f.add_argument("--thermal-tau", type=float, default=None, metavar="S",
+                   help="time constant of the thermal-shock term [s] (default 0.002)")
+    f.add_argument("--tdc-sd", type=float, default=None, metavar="DEG",
+                   help="standard uncertainty of the TDC phasing [deg], added to the intervals"
+                        " (default: from the loss angle when --tdc-correct, else 0)")
     f.add_argument("--level", type=float, default=0.95, help="confidence level of the intervals (0.95)")
     f.add_argument("--step", type=float, metavar="DEG", help="integration step of the fit [deg]")
     f.add_argument("--no-plots", action="store_true")
@@ -88,7 +96,8 @@ def cmd_fit(args) -> int:
               target=args.target, ensemble=args.ensemble, peg=None if args.peg == "none" else args.peg,
               tdc_correct=args.tdc_correct, tdc_offset_deg=args.tdc_offset, motored=args.motored,
               window=_pair(args.window, "--window") if args.window else None, level=args.level,
-              covariance=args.covariance, step_deg=args.step)
+              covariance=args.covariance, step_deg=args.step, nuisance=tuple(args.nuisance),
+              tdc_sd_deg=args.tdc_sd, **({} if args.thermal_tau is None else {"thermal_tau_s": args.thermal_tau}))
     if not args.overrides:
         res.source = args.config
     print(res.text())

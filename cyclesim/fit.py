@@ -55,7 +55,26 @@ West 1987, Econometrica 55:703), ``C = (J^T J)^-1 S (J^T J)^-1``, with the lag
 window L the first lag at which the residual autocorrelation falls to zero
 (common practice), and ``n_eff = n (1 + 2 sum rho_l)^-1`` degrees of freedom
 for the t quantile.  Both are always computed; ``covariance`` chooses which one
-the intervals and ``calibration.json`` carry.
+the intervals and ``calibration.json`` carry (default ``hac``: on white residuals
+it agrees with the classical estimate, on smooth ones it is the honest one).
+
+Neither sees a *systematic* error that the model lacks: it biases the values
+the same way in every cycle.  Two remedies:
+
+* measurement terms (``nuisance``) estimated with the parameters, linear in
+  the pressure and profiled out by variable projection (Golub & Pereyra 1973):
+  a constant offset (pegging error), a gain, and the sensor's thermal shock as
+  a coefficient times the simulated gas temperature through a first-order lag.
+  Their estimation costs degrees of freedom and widens the intervals by the
+  correlation with the model parameters, which is the honest price.
+* a type-B term (JCGM 100:2008, GUM, sec. 4.3 and 5.1) for the TDC phasing,
+  which a fit of a fired cycle cannot separate from the burn start: a
+  labelling error of standard uncertainty u moves the parameters by ``g u``,
+  ``g`` from the residual's change under a shift of the measured record,
+  and ``u^2 g g^T`` joins the covariance; the t quantile takes the
+  Welch-Satterthwaite degrees of freedom (GUM sec. G.4).  The default u when
+  the analyser estimated the offset is a quarter of the loss angle
+  (:data:`TDC_LOSS_ANGLE_REL_SD`).
 """
 
 from __future__ import annotations
@@ -83,6 +102,27 @@ CORRELATION_LIMIT = 0.95
 TRAPPED_STATE_KEYS = ("operating.ivc_pressure_bar", "operating.ivc_temperature_K",
                       "operating.residual_fraction")
 """Closed-mode parameters: the state at intake valve closing."""
+
+NUISANCE_TERMS = ("offset", "gain", "thermal")
+"""Measurement-model terms the fit can estimate alongside the model parameters:
+``offset`` a constant pressure error [bar] (pegging error), ``gain`` a relative
+sensitivity error [-], ``thermal`` a thermal-shock error of the sensor proportional
+to the gas temperature seen through a first-order lag (``thermal_tau_s``)
+[bar per 1000 K]."""
+
+THERMAL_TAU_S = 0.002
+"""Default time constant of the sensor's thermal-shock response [s] (a few
+milliseconds is common practice for the short-term drift of a diaphragm sensor)."""
+
+TDC_LOSS_ANGLE_REL_SD = 0.25
+"""Relative standard uncertainty of the thermodynamic loss angle behind a TDC
+estimate [-]: the loss angle scales with the heat-transfer coefficient of
+Woschni's correlation (see :func:`cyclesim.traces.analysis.estimate_tdc_offset`),
+whose coefficient is uncertain by some 20-30 % for a particular engine (from
+memory)."""
+
+RESIDUAL_CORRELATION_LIMIT = 0.1
+"""An effective sample size below this share of the residual count raises a warning."""
 
 SENSITIVITY_LIMIT = 1e-3
 """A parameter whose 1 % change moves the weighted residual RMS by less than this
@@ -302,6 +342,39 @@ class _Point:
     data: MeasuredData
     row: int
     hr_mask: np.ndarray = None
+    nuisance: tuple = ()       # measurement-model terms profiled out (see NUISANCE_TERMS)
+    thermal_tau_s: float = THERMAL_TAU_S
+    speed_rpm: float = 3000.0
+
+    def nuisance_basis(self, res) -> np.ndarray:
+        """Columns (n, q) of the linear measurement-model terms for one simulated case [bar per unit]."""
+        cols = []
+        for term in self.nuisance:
+            if term == "offset":
+                cols.append(np.ones_like(self.theta))
+            elif term == "gain":
+                cols.append(np.interp(self.theta, res.trace["crank_deg"], res.trace["pressure_bar"]))
+            elif term == "thermal":
+                th_s = res.trace["crank_deg"]
+                T = thermal_lag(th_s, res.trace["temperature_K"], self.speed_rpm, self.thermal_tau_s)
+                # per 1000 K of lagged gas temperature: a coefficient of order 0.1 bar
+                cols.append(np.interp(self.theta, th_s, T) / 1000.0)
+        return np.stack(cols, axis=1) if cols else np.zeros((self.theta.size, 0))
+
+    def pressure_misfit(self, res, p) -> tuple[np.ndarray, np.ndarray]:
+        """Weighted pressure residual with the nuisance terms profiled out, and their values.
+
+        Variable projection (Golub & Pereyra 1973, SIAM J. Numer. Anal. 10:413): for
+        given model parameters the linear measurement terms c minimise
+        |sw (p_sim + B c - p_meas)|, so the residual is the part of
+        ``sw (p_sim - p_meas)`` orthogonal to the weighted columns of B.
+        """
+        r = self.sw * (p - self.p_meas)
+        if not self.nuisance:
+            return r, np.zeros(0)
+        Bw = self.sw[:, None] * self.nuisance_basis(res)
+        c = np.linalg.lstsq(Bw, -r, rcond=None)[0]
+        return r + Bw @ c, c
 
     def residual(self, res) -> np.ndarray | None:
         """Weighted residual vector of one simulated case (None if it failed)."""
@@ -311,7 +384,7 @@ class _Point:
         p = np.interp(self.theta, th_s, res.trace["pressure_bar"])
         parts = []
         if self.target in ("pressure", "both"):
-            parts.append(self.sw * (p - self.p_meas))
+            parts.append(self.pressure_misfit(res, p)[0])
         if self.target in ("heat_release", "both"):
             q = self._hr(p)
             parts.append(self.sw[self.hr_mask] * (q - self.hr_meas[self.hr_mask]) / (self.data.Vd * BAR))
@@ -338,8 +411,33 @@ class _Point:
         return Q[inside]
 
 
+def thermal_lag(theta_deg, T, speed_rpm: float, tau_s: float) -> np.ndarray:
+    """Gas temperature through a first-order lag of time constant ``tau_s`` [K].
+
+    Exact discretisation of dy/dt = (T - y) / tau for T linear between samples
+    is not needed at the output step; a zero-order hold is used,
+    y_k = y_{k-1} + (1 - exp(-dt/tau)) (T_k - y_{k-1}), started at y_0 = T_0.
+    """
+    T = np.asarray(T, float)
+    if not tau_s or tau_s <= 0:
+        return T.copy()
+    dt = np.diff(np.asarray(theta_deg, float)) / (6.0 * float(speed_rpm))
+    a = 1.0 - np.exp(-dt / float(tau_s))
+    if dt.size and np.ptp(dt) <= 1e-9 * dt[0]:
+        from scipy.signal import lfilter
+
+        a0 = float(a[0])
+        y, _ = lfilter([a0], [1.0, a0 - 1.0], T[1:], zi=[(1.0 - a0) * T[0]])
+        return np.concatenate([T[:1], y])
+    y = np.empty_like(T)
+    y[0] = T[0]
+    for k in range(1, T.size):
+        y[k] = y[k - 1] + a[k - 1] * (T[k] - y[k - 1])
+    return y
+
+
 def _make_point(case: Case, data: MeasuredData, row: int, keys, idx, *, mode, target, weights,
-                window) -> _Point:
+                window, nuisance=(), thermal_tau_s=THERMAL_TAU_S) -> _Point:
     th = data.theta
     if mode == "closed":
         lo, hi = float(case.valves.ivc_deg), float(case.valves.evo_deg)
@@ -357,6 +455,14 @@ def _make_point(case: Case, data: MeasuredData, row: int, keys, idx, *, mode, ta
     pt = _Point(case, list(keys), np.asarray(idx, int), th[m], data.pressure_bar[row][m], hr,
                 np.sqrt(w), target, data, row)
     pt.hr_mask = np.isfinite(hr)
+    nuisance = tuple(dict.fromkeys(nuisance or ()))
+    bad = [t for t in nuisance if t not in NUISANCE_TERMS]
+    if bad:
+        raise ConfigError(f"fit: nuisance term(s) {bad}: choose from {', '.join(NUISANCE_TERMS)}")
+    if nuisance and target != "pressure":
+        raise ConfigError("fit: nuisance terms are estimated on the pressure residual (target = pressure)")
+    pt.nuisance, pt.thermal_tau_s = nuisance, float(thermal_tau_s)
+    pt.speed_rpm = float(case.operating.speed_rpm)
     if target in ("heat_release", "both") and pt.hr_mask.sum() < len(keys) + 3:
         raise CyclesimError("fit: too few samples with an apparent heat release (IVC..EVO) in the fit window")
     return pt
@@ -589,13 +695,22 @@ def _hac(J: np.ndarray, r: np.ndarray, segments: Sequence[int]):
 
 
 def _statistics(J: np.ndarray, r: np.ndarray, x: np.ndarray, lo, hi, names, segments, level: float,
-                covariance: str) -> dict:
+                covariance: str, n_nuisance: int = 0, systematic=()) -> dict:
+    """Covariance, intervals and identifiability of a solution.
+
+    ``n_nuisance`` profiled-out measurement terms use up degrees of freedom.
+    ``systematic`` is a sequence of ``(sd, v)``: a systematic error of standard
+    uncertainty ``sd`` that moves the residual vector by ``v`` per unit; its
+    first-order effect on the parameters, ``g = -(J^T J)^-1 J^T v``, adds
+    ``sd^2 g g^T`` to the covariance (a type-B component combined with the
+    statistical one in quadrature, JCGM 100:2008 (GUM) sec. 5.1).
+    """
     from scipy import stats
 
     n, p = J.shape
     warnings: list[str] = []
     ssr = float(r @ r)
-    dof = max(n - p, 1)
+    dof = max(n - p - int(n_nuisance), 1)
     s2 = ssr / dof
     # column scaling for a meaningful condition number
     cn = np.linalg.norm(J, axis=0)
@@ -616,6 +731,19 @@ def _statistics(J: np.ndarray, r: np.ndarray, x: np.ndarray, lo, hi, names, segm
         C, dof_t = C_hac, max(n_eff - p, 1.0)
     else:
         raise ConfigError(f"fit: covariance = {covariance!r}: choose classical or hac")
+    C_sys = np.zeros((p, p))
+    for sd_k, v in systematic:
+        g = -Ainv @ (J.T @ v)
+        C_sys += float(sd_k) ** 2 * np.outer(g, g)
+    C_stat = C
+    C = C_stat + C_sys
+    if np.any(np.diag(C_sys) > 0):
+        # Welch-Satterthwaite effective dof of the combined variance (GUM sec. G.4), the
+        # type-B part taken as exactly known (infinite dof)
+        v_stat, v_all = np.diag(C_stat), np.diag(C)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            dof_j = np.where(v_stat > 0, dof_t * (v_all / v_stat) ** 2, np.inf)
+        dof_t = float(min(np.min(dof_j), 1e6))
     sd = np.sqrt(np.maximum(np.diag(C), 0.0))
     with np.errstate(invalid="ignore", divide="ignore"):
         corr = C / np.outer(sd, sd)
@@ -642,15 +770,23 @@ def _statistics(J: np.ndarray, r: np.ndarray, x: np.ndarray, lo, hi, names, segm
                 warnings.append(
                     f"{names[i]} and {names[j]}: correlation {corr[i, j]:+.3f} (|r| > {CORRELATION_LIMIT}):"
                     f" the data cannot tell them apart; fix one of them or add data that separates them")
+    if n_eff and n_eff < RESIDUAL_CORRELATION_LIMIT * n:
+        warnings.append(
+            f"the residuals are strongly serially correlated (effective sample size {n_eff:.0f} of {n}):"
+            f" a smooth misfit (model error or a measurement flaw) dominates the noise; the intervals"
+            f" then rest on few effective samples, and a flaw the model lacks biases the values"
+            f" (consider the nuisance terms {', '.join(NUISANCE_TERMS)})")
     eps = 1e-9 * np.maximum(np.where(np.isfinite(hi - lo), hi - lo, 1.0), 1.0)
     for j, nm in enumerate(names):
         if x[j] <= lo[j] + eps[j] or x[j] >= hi[j] - eps[j]:
             warnings.append(f"{nm} = {x[j]:g} lies at its bound [{lo[j]:g}, {hi[j]:g}]: its interval is not reliable")
     return {
         "covariance": C, "covariance_classical": C_classic, "covariance_hac": C_hac,
+        "covariance_systematic": C_sys,
         "stderr": sd, "correlation": corr, "ci_low": x - tq * sd, "ci_high": x + tq * sd,
         "t_quantile": tq, "dof": float(dof_t), "s2": s2, "rms": rms, "n": n, "n_eff": n_eff,
         "hac_lag": L, "condition_number": cond, "sensitivity": sens, "warnings": warnings,
+        "stderr_systematic": np.sqrt(np.maximum(np.diag(C_sys), 0.0)),
     }
 
 
@@ -764,6 +900,13 @@ class FitResult:
             lines.append("  correlation matrix:")
             for j, p in enumerate(self.params):
                 lines.append(f"    {p:<{w}s} " + " ".join(f"{c:+6.3f}" for c in self.correlation[j]))
+        sys_sd = self.stats.get("stderr_systematic")
+        if sys_sd is not None and np.any(np.asarray(sys_sd) > 0):
+            lines.append("  of which systematic (TDC phasing) std err: "
+                         + ", ".join(f"{p} {v:.3g}" for p, v in zip(self.params, sys_sd)))
+        if self.stats.get("nuisance"):
+            lines.append("  measurement terms estimated: "
+                         + ", ".join(f"{k} {v:+.4g}" for k, v in self.stats["nuisance"].items()))
         for n in self.notes:
             lines.append(f"  note: {n}")
         for m in self.warnings:
@@ -789,6 +932,8 @@ class FitResult:
             "covariance_kind": self.covariance_kind,
             "covariance_classical": arr(self.covariance_classical),
             "covariance_hac": arr(self.covariance_hac),
+            "stderr_systematic": arr(self.stats.get("stderr_systematic", np.zeros(len(self.params)))),
+            "measurement_terms": dict(self.stats.get("nuisance", {})),
             "correlation": arr(self.correlation),
             "dof": self.dof,
             "residual_rms": self.rms,
@@ -1002,6 +1147,13 @@ def _problem_result(pb: _Problem, stt: dict, base_case: Case, source, mode, targ
     pt = pb.points[0]
     res = pb.bases[0]
     sim = pt.simulated(res)
+    resid = sim["pressure_bar"] - pt.p_meas
+    nuis = {}
+    if pt.nuisance:
+        c = pt.pressure_misfit(res, sim["pressure_bar"])[1]
+        resid = resid + pt.nuisance_basis(res) @ c
+        units = {"offset": "bar", "gain": "-", "thermal": "bar per 1000 K"}
+        nuis = {f"{t} [{units[t]}]": float(v) for t, v in zip(pt.nuisance, c)}
     cal = case_with(pt.case, {k: float(pb.x[j]) for k, j in zip(pt.keys, pt.idx)})
     return FitResult(
         params=list(pb.names), values=pb.x.copy(), initial=initial.copy(), stderr=stt["stderr"],
@@ -1011,13 +1163,65 @@ def _problem_result(pb: _Problem, stt: dict, base_case: Case, source, mode, targ
         covariance_kind=covariance, level=level, dof=stt["dof"], rms=stt["rms"], n_residuals=stt["n"],
         theta=pt.theta, measured_pressure_bar=pt.p_meas, simulated_pressure_bar=sim["pressure_bar"],
         measured_heat_release_J=pt.hr_meas, simulated_heat_release_J=sim["heat_release_J"],
-        residual_bar=sim["pressure_bar"] - pt.p_meas, volume_m3=np.interp(pt.theta, pt.data.theta, pt.data.volume_m3),
+        residual_bar=resid, volume_m3=np.interp(pt.theta, pt.data.theta, pt.data.volume_m3),
         case=cal, base_case=base_case, mode=mode, target=target, iterations=pb.iterations,
         simulations=simulations, converged=pb.converged, message=pb.message, source=source,
         warnings=list(stt["warnings"]), notes=list(notes),
-        stats={k: stt[k] for k in ("s2", "n_eff", "hac_lag", "condition_number", "t_quantile")},
+        stats={**{k: stt[k] for k in ("s2", "n_eff", "hac_lag", "condition_number", "t_quantile",
+                                      "stderr_systematic")}, "nuisance": nuis},
         summary=dict(res.summary),
     )
+
+
+def _tdc_direction(pb: _Problem, delta: float) -> np.ndarray:
+    """Change of the residual vector per degree of crank-angle labelling error.
+
+    The measured record shifted by +-``delta`` [deg] along the crank angle (the
+    smooth simulated increment p_sim(theta + delta) - p_sim(theta) added to the
+    measured pressure, so that measurement noise is not differentiated), its
+    residual evaluated at the solution; central difference [residual unit / deg].
+    """
+    from .traces.analysis import apparent_heat_release
+
+    parts = []
+    for ip, pt in enumerate(pb.points):
+        res = pb.bases[ip]
+        d = pt.data
+        th_s, p_s = res.trace["crank_deg"], res.trace["pressure_bar"]
+        rs = []
+        for sgn in (1.0, -1.0):
+            inc = np.interp(d.theta + sgn * delta, th_s, p_s) - np.interp(d.theta, th_s, p_s)
+            row = d.pressure_bar[pt.row] + inc
+            sh = copy.copy(pt)
+            inside = np.isin(d.theta, pt.theta)
+            sh.p_meas = row[inside]
+            if pt.target in ("heat_release", "both"):
+                sh.hr_meas = apparent_heat_release(d.theta, row * BAR, d.volume_m3, d.settings)[0][inside]
+            rs.append(sh.residual(res))
+        parts.append((rs[0] - rs[1]) / (2.0 * delta))
+    return np.concatenate(parts)
+
+
+def _systematic_terms(pb: _Problem, tdc_sd_deg: float) -> list:
+    if not tdc_sd_deg or tdc_sd_deg <= 0:
+        return []
+    return [(float(tdc_sd_deg), _tdc_direction(pb, max(float(tdc_sd_deg), 0.05)))]
+
+
+def _tdc_sd(data: MeasuredData, tdc_sd_deg, notes: list) -> float:
+    """Standard uncertainty of the TDC phasing the analyser used [deg]."""
+    tdc = data.analysis.tdc
+    if tdc_sd_deg is not None:
+        sd = float(tdc_sd_deg)
+        if sd < 0 or not math.isfinite(sd):
+            raise ConfigError(f"fit: tdc_sd_deg = {tdc_sd_deg!r}: expected a number >= 0")
+    elif tdc.get("estimated") and tdc.get("loss_angle_deg") is not None:
+        sd = TDC_LOSS_ANGLE_REL_SD * abs(float(tdc["loss_angle_deg"]))
+    else:
+        sd = 0.0
+    if sd > 0:
+        notes.append(f"TDC phasing uncertainty {sd:.3f} deg (1 sd) included in the intervals")
+    return sd
 
 
 def _segments(pb: _Problem) -> list[int]:
@@ -1033,9 +1237,10 @@ def _segments(pb: _Problem) -> list[int]:
 def fit(case, traces, params: Sequence[str], *, mode: str = "closed", weights=None, target: str = "pressure",
         ensemble: str = "mean", peg: str | None = "intake", tdc_correct: bool = False,
         tdc_offset_deg: float | None = None, motored=None, window=None, bounds: Mapping | None = None,
-        start: Mapping | None = None, level: float = 0.95, covariance: str = "classical",
+        start: Mapping | None = None, level: float = 0.95, covariance: str = "hac",
         use_trace_operating: bool = True, step_deg: float | None = None, max_iter: int = 40,
-        fd_rel: float = 1e-4, progress=None) -> FitResult:
+        fd_rel: float = 1e-4, progress=None, nuisance: Sequence[str] = (),
+        thermal_tau_s: float = THERMAL_TAU_S, tdc_sd_deg: float | None = None) -> FitResult:
     """Fit chosen parameters of a config to measured cylinder pressure.
 
     Parameters
@@ -1081,6 +1286,16 @@ def fit(case, traces, params: Sequence[str], *, mode: str = "closed", weights=No
         Take speed, intake pressure/temperature and lambda from the trace's metadata.
     step_deg : float, optional
         Integration step for the fit [deg] (default: the config's).
+    nuisance : sequence of {"offset", "gain", "thermal"}
+        Measurement-model terms estimated with the parameters (see
+        :data:`NUISANCE_TERMS`; pressure target only).  ``gain`` is nearly
+        collinear with ``operating.ivc_pressure_bar``: fit one of the two.
+    thermal_tau_s : float
+        Time constant of the ``thermal`` term's first-order lag [s].
+    tdc_sd_deg : float, optional
+        Standard uncertainty of the TDC phasing [deg], added to the intervals as a
+        systematic term.  Default: when the TDC offset is estimated
+        (``tdc_correct``), ``TDC_LOSS_ANGLE_REL_SD`` times the loss angle; else 0.
 
     Returns
     -------
@@ -1105,6 +1320,7 @@ def fit(case, traces, params: Sequence[str], *, mode: str = "closed", weights=No
                  f" ({'mean' if ensemble == 'mean' else 'each fitted'})")
     tmpl, n2 = _fit_case(case0, data, params, mode, step_deg)
     notes += n2
+    sd_tdc = _tdc_sd(data, tdc_sd_deg, notes)
     lo = np.empty(len(params))
     hi = np.empty(len(params))
     for j, k in enumerate(params):
@@ -1118,12 +1334,13 @@ def fit(case, traces, params: Sequence[str], *, mode: str = "closed", weights=No
     problems = []
     for row in range(data.pressure_bar.shape[0]):
         pt = _make_point(tmpl, data, row, params, np.arange(len(params)), mode=mode, target=target,
-                         weights=weights, window=window)
+                         weights=weights, window=window, nuisance=nuisance, thermal_tau_s=thermal_tau_s)
         problems.append(_Problem([pt], list(params), x0.copy(), lo, hi, typ))
     nsim = _solve(problems, max_iter=max_iter, fd_rel=fd_rel, progress=progress)
     results = []
     for pb in problems:
-        stt = _statistics(pb.J, pb.r, pb.x, lo, hi, params, _segments(pb), level, covariance)
+        stt = _statistics(pb.J, pb.r, pb.x, lo, hi, params, _segments(pb), level, covariance,
+                          n_nuisance=len(pb.points[0].nuisance), systematic=_systematic_terms(pb, sd_tdc))
         results.append(_problem_result(pb, stt, base_case, source, mode, target, level, covariance, nsim,
                                        notes, x0))
     if ensemble == "mean":
@@ -1145,7 +1362,17 @@ def _combine_cycles(results: list[FitResult], level: float) -> FitResult:
     mean = X.mean(axis=0)
     if k > 1:
         C = np.cov(X, rowvar=False, ddof=1).reshape(len(mean), len(mean)) / k
-        tq = float(stats.t.ppf(0.5 + level / 2.0, k - 1))
+        # a systematic error (TDC phasing) is common to the cycles of one recording: averaging
+        # does not reduce it, and their spread does not show it
+        sd_sys = np.mean([np.asarray(r.stats.get("stderr_systematic", np.zeros(len(mean)))) for r in results],
+                         axis=0)
+        v_spread = np.diag(C).copy()
+        C = C + np.outer(sd_sys, sd_sys)
+        # Welch-Satterthwaite dof (GUM sec. G.4): the spread has k - 1, the systematic part infinitely many
+        with np.errstate(invalid="ignore", divide="ignore"):
+            dof_j = np.where(v_spread > 0, (k - 1) * (np.diag(C) / v_spread) ** 2, np.inf)
+        dof_c = float(min(np.min(dof_j), 1e6))
+        tq = float(stats.t.ppf(0.5 + level / 2.0, dof_c))
     else:
         C, tq = first.covariance, first.stats["t_quantile"]
     sd = np.sqrt(np.maximum(np.diag(C), 0.0))
@@ -1161,8 +1388,9 @@ def _combine_cycles(results: list[FitResult], level: float) -> FitResult:
     cal = case_with(first.case, {p: float(mean[j]) for j, p in enumerate(first.params)})
     out = copy.copy(first)
     out.values, out.stderr, out.ci_low, out.ci_high = mean, sd, mean - tq * sd, mean + tq * sd
-    out.covariance, out.correlation, out.dof = C, corr, float(max(k - 1, 1))
-    out.covariance_kind = "spread of the per-cycle fits / number of cycles"
+    out.covariance, out.correlation, out.dof = C, corr, (dof_c if k > 1 else first.dof)
+    out.covariance_kind = ("spread of the per-cycle fits / number of cycles"
+                           + (" + systematic (TDC phasing)" if k > 1 and np.any(sd_sys > 0) else ""))
     out.case, out.cycles, out.warnings = cal, results, warns
     out.converged = all(r.converged for r in results)
     out.message = f"{sum(r.converged for r in results)} of {k} cycle fits converged"
@@ -1222,9 +1450,10 @@ class PointsFit:
 def fit_points(cases: Sequence, traces_list: Sequence, shared: Sequence[str] = (),
                per_point: Sequence[str] = (), *, mode: str = "closed", target: str = "pressure",
                weights=None, peg: str | None = "intake", tdc_correct: bool = False,
-               tdc_offset_deg: float | None = None, level: float = 0.95, covariance: str = "classical",
+               tdc_offset_deg: float | None = None, level: float = 0.95, covariance: str = "hac",
                use_trace_operating: bool = True, step_deg: float | None = None, window=None,
-               max_iter: int = 40, fd_rel: float = 1e-4) -> PointsFit:
+               max_iter: int = 40, fd_rel: float = 1e-4, nuisance: Sequence[str] = (),
+               thermal_tau_s: float = THERMAL_TAU_S, tdc_sd_deg: float | None = None) -> PointsFit:
     """Fit shared and per-point parameters of several operating points jointly.
 
     The parameter vector is ``[shared..., per_point of point 0..., per_point of
@@ -1258,7 +1487,7 @@ def fit_points(cases: Sequence, traces_list: Sequence, shared: Sequence[str] = (
     keys = shared + per_point
     ns, nq, P = len(shared), len(per_point), len(cases)
     names = list(shared) + [f"{k}@{i}" for i in range(P) for k in per_point]
-    pts, bases, srcs, notes_all = [], [], [], []
+    pts, bases, srcs, notes_all, sds_tdc = [], [], [], [], []
     xs = np.zeros(ns + P * nq)
     lo = np.zeros_like(xs)
     hi = np.zeros_like(xs)
@@ -1275,8 +1504,10 @@ def fit_points(cases: Sequence, traces_list: Sequence, shared: Sequence[str] = (
                 lo[j], hi[j] = max(lo[j], l), min(hi[j], h)
                 continue
             lo[j], hi[j], xs[j] = l, h, v
+        sd_tdc = _tdc_sd(data, tdc_sd_deg, notes)
         pts.append(_make_point(tmpl, data, 0, keys, idx, mode=mode, target=target, weights=weights,
-                               window=window))
+                               window=window, nuisance=nuisance, thermal_tau_s=thermal_tau_s))
+        sds_tdc.append(sd_tdc)
         bases.append(bc)
         srcs.append(src)
         notes_all.append(notes)
@@ -1285,7 +1516,21 @@ def fit_points(cases: Sequence, traces_list: Sequence, shared: Sequence[str] = (
     typ = np.where(typ > 0, typ, 1.0)
     pb = _Problem(pts, names, xs.copy(), lo, hi, typ)
     nsim = _solve([pb], max_iter=max_iter, fd_rel=fd_rel)
-    stt = _statistics(pb.J, pb.r, pb.x, lo, hi, names, _segments(pb), level, covariance)
+    # each point's TDC phasing error is its own (independent recordings)
+    systematic = []
+    if any(sds_tdc):
+        v_all = _tdc_direction(pb, max(max(sds_tdc), 0.05))
+        o = 0
+        for pt, sd_i in zip(pts, sds_tdc):
+            m = pt.theta.size if pt.target == "pressure" else (
+                int(pt.hr_mask.sum()) if pt.target == "heat_release" else pt.theta.size + int(pt.hr_mask.sum()))
+            if sd_i > 0:
+                v = np.zeros_like(v_all)
+                v[o:o + m] = v_all[o:o + m]
+                systematic.append((sd_i, v))
+            o += m
+    stt = _statistics(pb.J, pb.r, pb.x, lo, hi, names, _segments(pb), level, covariance,
+                      n_nuisance=sum(len(pt.nuisance) for pt in pts), systematic=systematic)
     point_results = []
     for i, pt in enumerate(pts):
         idx = pt.idx

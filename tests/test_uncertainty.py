@@ -103,24 +103,37 @@ def test_fit_and_predict_commands(tmp_path, capsys):
     assert (pred / "prediction.csv").is_file()
 
 
+def _relabel(theta, rows, shift_deg):
+    """Rows re-sampled so that each carries an extra crank-angle labelling error [deg]:
+    the sample labelled theta is taken at theta - shift (cubic spline of each row)."""
+    from scipy.interpolate import CubicSpline
+
+    return np.stack([CubicSpline(theta, r)(theta - e) for r, e in zip(rows, shift_deg)])
+
+
 @pytest.mark.slow
 def test_interval_coverage_on_synthetic_traces_with_default_artefacts():
-    """Per-cycle fits of 30 synthetic cycles (independent draws of burn parameters and of the
-    measurement noise; default artefact chain: offset, gain, thermal drift, charge-amplifier
-    high-pass, TDC error, jitter, noise, quantisation), TDC offset estimated from the misfired
-    (motored) cycles of the same recording.
+    """Coverage of the 95 % and 68 % intervals of per-cycle fits on the tool's own synthetic
+    traces with the default artefact chain (offset per cycle, offset drift, gain, thermal
+    drift, charge-amplifier high-pass, TDC error, encoder jitter, noise, quantisation).
 
-    What is checked and why:
+    Trials: 4 recordings (seeds) of 10 cycles.  Drawn per recording: the cycle-to-cycle
+    variation of the burn, the noise, offsets and jitter, and the chain's systematic
+    settings (gain error, thermal-drift sensitivity, mean offset, TDC error).  Each
+    record's TDC reference is known to sd 0.1 deg (a TDC probe or a loss-angle estimate,
+    common practice): each cycle is relabelled by its own draw of that error, and the fit
+    is told the recording's TDC offset and the 0.1 deg standard uncertainty.
 
-    * The sensor's thermal drift (a smooth negative error during combustion) is a systematic
-      measurement error no residual-based interval can see; it biases every cycle the same
-      way (measured: burn duration about -0.3 deg, ignition delay about +0.09 deg).  The bias
-      is bounded below (1 deg, 0.3 deg) - an engineering limit, not a statistical one.
-    * The intervals must not be narrower than the random part of the error: the scatter of
-      the errors about their bias (leave-one-out mean) over the median standard error stays
-      below the chi-square 99.5 % point (n = 30: sd ratio < 1.38, scipy.stats.chi2 with
-      n - 2 dof), and the bias-corrected 95 % intervals cover at least 0.95 minus the
-      binomial sampling tolerance, 3 sd = 3 sqrt(0.95 0.05 / n) = 0.12.
+    The fit estimates the pressure offset and the sensor's thermal shock as measurement
+    terms (the gain is absorbed by the fitted IVC pressure) and carries the TDC
+    uncertainty as a systematic term.  True parameter: the burn parameter each cycle was
+    synthesised with.
+
+    Tolerance: the share of 40 trials inside the interval is binomial; 3 sd of it is
+    3 sqrt(q (1 - q) / 40) = 0.10 at q = 0.95 and 0.22 at q = 0.683.  Trials of one
+    recording share its chain settings, so they are not quite independent; the 3-sd band
+    leaves room for that.  The 68 % check bounds the coverage from above as well: an
+    interval inflated to safety fails it.
     """
     import cyclesim
     from scipy import stats
@@ -134,38 +147,46 @@ def test_interval_coverage_on_synthetic_traces_with_default_artefacts():
     th = ref.trace["crank_deg"]
     i = int(np.argmin(np.abs(th - full.valves.ivc_deg)))
     T_ivc, xr = float(ref.trace["temperature_K"][i]), float(ref.trace["burned_gas_fraction"][i])
-    n = 33
-    ss = synthesize(full, n, CycleVariation(start_sd_deg=1.5, duration_cov=0.08, seed=21, misfire_rate=0.08), 0.5,
-                    artefacts=ArtefactSettings.default())
-    ts = TraceSet(ss.theta, ss.pressure_pa, ss.intake_pa, 3000.0, {})
     case = load_config("demo_closed", ["simulation.step_deg=1.0", f"operating.ivc_temperature_K={T_ivc}",
                                        f"operating.residual_fraction={xr}"])
-    keys = ["burn.ignition_delay_deg", "burn.duration_deg", "burn.combustion_efficiency",
-            "operating.ivc_pressure_bar"]
-    res = fit(case, ts, keys, ensemble="each", tdc_correct=True)
-    fired = [r for r in ss.truth if not r["misfire"]]
-    assert len(res.cycles) == len(fired) >= 25
-    truth_key = {"burn.ignition_delay_deg": "burn.ignition_delay_deg", "burn.duration_deg": "burn.duration_deg"}
-    limits = {"burn.ignition_delay_deg": 0.3, "burn.duration_deg": 1.0}
-    m = len(fired)
-    lo_ratio = math.sqrt(stats.chi2.ppf(0.005, m - 2) / (m - 2))
-    hi_ratio = math.sqrt(stats.chi2.ppf(0.995, m - 2) / (m - 2))
-    tol = 3 * math.sqrt(0.95 * 0.05 / m)
-    for k, tk in truth_key.items():
-        j = keys.index(k)
-        err = np.array([c.values[j] for c in res.cycles]) - np.array([r[tk] for r in fired])
-        se = np.array([c.stderr[j] for c in res.cycles])
-        tq = np.array([c.stats["t_quantile"] for c in res.cycles])
-        bias = err.mean()
-        assert abs(bias) < limits[k], (k, bias)
-        loo = (err.sum() - err) / (m - 1)                 # leave-one-out bias
-        resid = err - loo
-        ratio = np.std(resid, ddof=1) * math.sqrt((m - 1) / m) / np.median(se)
-        # intervals must not be too narrow for the random error (they may be wider: the
-        # drift's misfit enters s^2 too, measured ratio ~0.5 for the delay, ~1 for the duration)
-        assert ratio < hi_ratio, (k, ratio)
-        cover = np.mean(np.abs(resid) * math.sqrt((m - 1) / m) <= tq * se)
-        raw = np.mean(np.abs(err) <= tq * se)
-        print(f"{k}: bias {bias:+.4f}, scatter/se {ratio:.2f} (chi2 99 %: {lo_ratio:.2f}..{hi_ratio:.2f}),"
-              f" bias-corrected coverage {cover:.3f}, coverage of the truth {raw:.3f}")
-        assert cover >= 0.95 - tol, (k, cover)
+    keys = ["burn.ignition_delay_deg", "burn.duration_deg", "operating.ivc_pressure_bar"]
+    sd_tdc = 0.1
+    err = {k: [] for k in keys[:2]}
+    se = {k: [] for k in keys[:2]}
+    dof = []
+    for seed in (31, 32, 33, 34):
+        rng = np.random.default_rng(seed)
+        d = ArtefactSettings.default()
+        # systematic settings of this recording, spread about the default chain (common practice
+        # magnitudes: gain within about 1 %, TDC within about half a degree)
+        chain = d.replace(gain_error=float(rng.normal(0.0, 0.005)),
+                          thermal_drift_bar_per_K=float(d.thermal_drift_bar_per_K * rng.uniform(0.5, 1.5)),
+                          offset_mean_bar=float(d.offset_mean_bar + rng.normal(0.0, 0.3)),
+                          tdc_offset_deg=float(rng.uniform(-0.5, 0.5)))
+        ss = synthesize(full, 10, CycleVariation(start_sd_deg=1.5, duration_cov=0.08, efficiency_sd=0.0,
+                                                 seed=seed), 0.5, artefacts=chain)
+        e_tdc = rng.normal(0.0, sd_tdc, len(ss.truth))
+        P = _relabel(ss.theta, ss.pressure_pa, e_tdc)
+        Pi = _relabel(ss.theta, ss.intake_pa, e_tdc)
+        ts = TraceSet(ss.theta, P, Pi, 3000.0, {})
+        res = fit(case, ts, keys, ensemble="each", tdc_offset_deg=chain.tdc_offset_deg, tdc_sd_deg=sd_tdc,
+                  nuisance=("offset", "thermal"))
+        assert len(res.cycles) == len(ss.truth)
+        for c, t in zip(res.cycles, ss.truth):
+            for k in err:
+                j = keys.index(k)
+                err[k].append(c.values[j] - t[k])
+                se[k].append(c.stderr[j])
+            dof.append(c.dof)
+    dof = np.array(dof)
+    m = dof.size
+    for k in err:
+        e, s = np.array(err[k]), np.array(se[k])
+        for level in (0.95, 0.683):
+            tq = stats.t.ppf(0.5 + level / 2.0, dof)
+            cover = float(np.mean(np.abs(e) <= tq * s))
+            tol = 3.0 * math.sqrt(level * (1.0 - level) / m)
+            print(f"{k}: {100 * level:.1f} % coverage {cover:.3f} of {m} (allowed {level - tol:.3f}.."
+                  f"{min(level + tol, 1.0):.3f}); median half-width {np.median(tq * s):.3f} deg;"
+                  f" error mean {e.mean():+.3f}, sd {e.std(ddof=1):.3f} deg")
+            assert level - tol <= cover <= level + tol, (k, level, cover)
