@@ -288,9 +288,10 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     out["torque_Nm"] = bmep * Vd * ncyl / (4 * math.pi)
     out["power_kW"] = 2 * math.pi * N_rps * out["torque_Nm"] / 1e3
     out["mechanical_efficiency"] = bmep / (W_gross / Vd)
-    out["eta_indicated_net"] = W_net / fuel_energy
-    out["eta_indicated_gross"] = W_gross / fuel_energy
-    out["eta_brake"] = W_brake / fuel_energy
+    with np.errstate(divide="ignore", invalid="ignore"):   # a cut cylinder has no fuel
+        out["eta_indicated_net"] = W_net / fuel_energy
+        out["eta_indicated_gross"] = W_gross / fuel_energy
+        out["eta_brake"] = W_brake / fuel_energy
     with np.errstate(divide="ignore", invalid="ignore"):
         out["bsfc_g_per_kWh"] = np.where(W_brake > 0, m_fuel * 1e3 / (W_brake / 3.6e6), np.inf)
     out["exhaust_temperature_K"] = _exhaust_temperature(batch, -m_e, -H_e, -mu_e)
@@ -342,9 +343,11 @@ def _exhaust_temperature(batch, m_out, H_out, mu_out) -> np.ndarray:
     g = batch.gas
     op = batch.operating
     B = batch.B
+    flowing = np.abs(m_out) > 0
     with np.errstate(divide="ignore", invalid="ignore"):
-        h_mean = H_out / m_out
-        y = np.clip((m_out - mu_out) / m_out, 0.0, 1.0)
+        h_mean = np.where(flowing, H_out / np.where(flowing, m_out, 1.0), np.nan)
+        y = np.where(flowing, np.clip((m_out - mu_out) / np.where(flowing, m_out, 1.0), 0.0, 1.0), 1.0)
+    ok = np.isfinite(h_mean)
     p = op.exhaust_pressure_bar * 1e5 * np.ones(B)
     T = np.full(B, 900.0)
     for _ in range(30):
@@ -354,8 +357,8 @@ def _exhaust_temperature(batch, m_out, H_out, mu_out) -> np.ndarray:
         mp = g.mixture(T, rho, y)
         hT = mp.u + mp.R * T
         cp = mp.u_T + mp.R + T * mp.R_T
-        T = np.clip(T - (hT - h_mean) / cp, 250.0, 4000.0)
-    return np.where(np.isfinite(h_mean), T, np.nan)
+        T = np.where(ok, np.clip(T - (hT - np.where(ok, h_mean, hT)) / cp, 250.0, 4000.0), 900.0)
+    return np.where(ok, T, np.nan)
 
 
 def output_trace(batch, tr: CycleTrace, d: dict, step: float | None) -> dict[str, np.ndarray]:
