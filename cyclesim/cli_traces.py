@@ -73,9 +73,25 @@ def analysis_inputs(case):
                  piston_area_factor=e.piston_area_factor)
     hf, pf = e.head_area_factor, e.piston_area_factor
     t_wall = (hf * w.head_temperature_K + pf * w.piston_temperature_K) / (hf + pf)
+    from .config import get_dotted
+
+    extra = {}
+    f = case.section("fuel")
+    if getattr(f, "C", None) is None:          # a built-in fuel by name (a custom one keeps the default)
+        extra["fuel"] = str(f.name)
+    extra["fuel_air_lambda"] = float(getattr(op, "lambda"))
+    # burned-gas share of the charge at IVC: the config's residual fraction when given (else the
+    # analyser's estimate), with external EGR mixed into the fresh part
+    xr = get_dotted(case.raw, "operating.residual_fraction")
+    xr = float(xr) if xr is not None else AnalysisSettings.residual_fraction
+    egr = float(op.egr_fraction)
+    extra["residual_fraction"] = xr + (1.0 - xr) * egr
+    gas = case.section("gas")
+    if getattr(gas, "burned_gas", None):
+        extra["burned_gas"] = str(gas.burned_gas)
     s = AnalysisSettings(ivc_deg=float(v.ivc_deg), evo_deg=float(v.evo_deg),
                          T_ivc_K=float(op.ivc_temperature_K), tdc_wall_temperature_K=float(t_wall),
-                         bore_m=e.bore_mm / 1000.0)
+                         bore_m=e.bore_mm / 1000.0, **extra)
     return g, s, float(op.speed_rpm)
 
 
@@ -85,7 +101,7 @@ def cmd_analyse(args) -> int:
 
     from .config import load_config
     from .output import prepare_out_dir
-    from .traces.analysis import analyse, write_analysis
+    from .traces.analysis import analyse, with_measured_masses, write_analysis
     from .traces.export import read_trace
 
     case = load_config(args.engine, list(getattr(args, "overrides", []) or []))
@@ -98,6 +114,7 @@ def cmd_analyse(args) -> int:
         motored = read_trace(args.motored)
         if not math.isfinite(motored.speed_rpm):
             motored.speed_rpm = speed
+    settings = with_measured_masses(settings, ts.meta)
     settings = settings.replace(peg=args.peg, tdc_correct=bool(args.tdc_correct))
     prepare_out_dir(args.out, getattr(args, "force", False))
     res = analyse(ts, geom, settings, motored=motored)
@@ -115,6 +132,7 @@ def cmd_analyse(args) -> int:
           if math.isfinite(st["imep_net_cov"]) else f"  net IMEP (mean)                    {f('imep_net_bar_mean')} bar")
     print(f"  gross IMEP                         {f('imep_gross_bar_mean')} bar")
     print(f"  peg offset (mean)                  {f('peg_offset_bar_mean', '.3f')} bar")
+    print(f"  trapped mass                       {f('trapped_mass_mg', '.1f')} mg ({st['trapped_mass_source']})")
     print(f"  CA10 / CA50 / CA90                 {f('ca10_deg_mean', '.1f')} / {f('ca50_deg_mean', '.1f')}"
           f" / {f('ca90_deg_mean', '.1f')} deg")
     print(f"  peak pressure at angle             {f('p_max_bar_mean', '.1f')} bar at {f('theta_pmax_deg_mean', '.1f')} deg")

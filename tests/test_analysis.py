@@ -17,7 +17,8 @@ from cyclesim.cli_traces import add_parsers, analysis_inputs, cmd_analyse
 from cyclesim.config import load_config
 from cyclesim.errors import CyclesimError
 from cyclesim.geometry import Geometry
-from cyclesim.traces.analysis import AnalysisSettings, analyse, apparent_heat_release, write_analysis
+from cyclesim.traces.analysis import (AnalysisSettings, analyse, apparent_heat_release, with_measured_masses,
+                                     write_analysis)
 from cyclesim.traces.artefacts import ArtefactSettings, apply_artefacts
 from cyclesim.traces.export import TraceSet, write_npz
 
@@ -282,8 +283,10 @@ def default_set():
 
 def _recovery_errors(ss, engine):
     g, s, _ = engine
-    ts = TraceSet(ss.theta, ss.pressure_pa, ss.intake_pa, ss.meta["speed_rpm"])
-    r = analyse(ts, g, s.replace(tdc_correct=True))
+    ts = TraceSet(ss.theta, ss.pressure_pa, ss.intake_pa, ss.meta["speed_rpm"], ss.meta)
+    # as `cyclesim analyse` does: the trapped mass from the set's measured air and fuel per cycle
+    r = analyse(ts, g, with_measured_masses(s, ts.meta).replace(tdc_correct=True))
+    assert r.stats["trapped_mass_source"] == "measured air and fuel"
     fired = ~np.array([t["misfire"] for t in ss.truth])
     truth = {k: np.array([t[k] for t in ss.truth]) for k in ("imep_net_bar", "ca50_deg", "artefact.offset_bar")}
     err = {
@@ -308,12 +311,98 @@ def test_default_artefacts_recovery_of_imep_pegging_and_tdc(default_set, engine)
 
 @pytest.mark.slow
 @pytest.mark.xfail(strict=True, reason=(
-    "CA50 up to 0.21 deg late (mean +0.17 deg) on the default artefacts.  Measured contributions (12 cycles, "
-    "0.1 deg): the assumed IVC temperature (340 K; the simulator's is about 373 K) moves CA50 by -0.13 deg "
-    "mean, up to 0.23 deg, even without artefacts (0.07 deg with the true trapped mass); the thermal-drift "
-    "artefact by +0.13 deg (a pressure error following the gas temperature, not removable from one trace); "
-    "the residual error of the loss-angle TDC estimate (-0.08 deg) by about +0.1 deg"))
+    "CA50 up to 0.28 deg late (mean +0.22 deg) on the default artefacts with the trapped mass from the "
+    "measured air and fuel (419 mg; simulator 423 mg).  Measured (12 cycles, 0.1 deg): without artefacts "
+    "this trapped mass puts CA50 within 0.035 deg (the assumed 340 K IVC temperature: 0.23 deg, mean -0.13 "
+    "deg, which had cancelled most of the next two); the thermal-drift artefact moves CA50 by about +0.13 "
+    "deg (measured before the trapped-mass change; a pressure error following the gas temperature, not "
+    "removable from one trace); the rest is expected from the residual error of the loss-angle TDC "
+    "estimate (-0.05 deg), not separated here"))
 def test_default_artefacts_recovery_of_ca50(default_set, engine):
     # the brief's limit: CA50 within 0.2 deg of the mass-burned truth on every fired cycle
     err, _, _ = _recovery_errors(default_set, engine)
     assert err["ca50_deg"] < 0.2
+
+
+# ---------------------------------------------------------------------- trapped mass from air and fuel flow
+def test_trapped_mass_from_measured_air_and_fuel(fired, engine):
+    # A test bed's air and fuel flow meters give the fresh charge per cycle; with the burned-gas share
+    # x_r at IVC the trapped mass is (air + fuel) / (1 - x_r) (mass balance of the charge, common practice)
+    g, s, _ = engine
+    fuel = fired.summary["fuel_mass_mg"]
+    assert load_config("demo").operating.egr_fraction == 0.0     # so all inducted mass is air and fuel
+    air = fired.summary["inducted_mass_mg"] - fuel
+    meta = {"air_mass_per_cycle_mg": air, "fuel_mass_per_cycle_mg": fuel}
+    sm = with_measured_masses(s, meta)
+    assert sm.trapped_mass() == pytest.approx((air + fuel) * 1e-6 / (1 - s.residual_fraction), rel=1e-12)
+    # the balance against the simulator's own trapped mass: x_r is an estimate (0.07 against the
+    # simulator's burned fraction) and the unburned part of the residual is not in the flow; 2 % (common practice)
+    assert sm.trapped_mass() * 1e6 == pytest.approx(fired.summary["trapped_mass_mg"], rel=0.02)
+    # a given trapped mass wins; without the metadata nothing changes
+    assert sm.replace(trapped_mass_kg=4e-4).trapped_mass() == 4e-4
+    assert with_measured_masses(s, {}).trapped_mass() is None
+    assert with_measured_masses(s, {"air_mass_per_cycle_mg": air}).trapped_mass() is None
+    with pytest.raises(CyclesimError, match="residual_fraction"):
+        sm.replace(residual_fraction=1.0).trapped_mass()
+    ts = _set(fired, intake_bar=0.98)
+    r = analyse(ts, g, sm)
+    assert r.stats["trapped_mass_source"] == "measured air and fuel"
+    assert r.stats["trapped_mass_mg"] == pytest.approx(sm.trapped_mass() * 1e6)
+    # on the noise-free trace the burn point with the balanced mass: 0.1 deg, half the brief's CA50
+    # limit (measured here about 0.03 deg on synthetic cycles without artefacts)
+    assert r.per_cycle["ca50_deg"][0] == pytest.approx(fired.summary["ca50_deg"], abs=0.1)
+    r0 = analyse(ts, g, s)
+    assert r0.stats["trapped_mass_source"] == "assumed IVC temperature"
+    print(f"CA50 error: measured air and fuel {r.per_cycle['ca50_deg'][0] - fired.summary['ca50_deg']:+.3f} deg,"
+          f" assumed IVC temperature {r0.per_cycle['ca50_deg'][0] - fired.summary['ca50_deg']:+.3f} deg")
+
+
+def test_analysis_inputs_take_fuel_lambda_and_residual_from_the_config():
+    _, s, _ = analysis_inputs(load_config("demo", ["operating.lambda=0.9", "fuel.name=ethanol"]))
+    assert s.fuel_air_lambda == 0.9 and s.fuel == "ethanol"
+    assert s.residual_fraction == AnalysisSettings().residual_fraction     # not given: the estimate
+    _, s, _ = analysis_inputs(load_config("demo", ["operating.residual_fraction=0.1",
+                                                   "operating.egr_fraction=0.2"]))
+    # burned-gas share at IVC: residual plus EGR in the fresh part (mass balance, common practice)
+    assert s.residual_fraction == pytest.approx(0.1 + 0.9 * 0.2, rel=1e-12)
+
+
+def test_trace_files_carry_the_measured_air_and_fuel(tmp_path, capsys):
+    import argparse
+
+    from cyclesim.traces.export import read_trace, write_trace_set
+    from cyclesim.traces.synthesis import CycleVariation, synthesize
+
+    ss = synthesize(load_config("demo"), 3, CycleVariation(seed=5), resolution_deg=1.0,
+                    artefacts=ArtefactSettings.none())
+    air, fuel = ss.meta["air_mass_per_cycle_mg"], ss.meta["fuel_mass_per_cycle_mg"]
+    assert air == pytest.approx(np.mean([t["air_mass_mg"] for t in ss.truth]), rel=1e-12)
+    assert fuel == pytest.approx(np.mean([t["fuel_mass_mg"] for t in ss.truth]), rel=1e-12)
+    # mass balance of the fresh charge against the truth: air + fuel is the unburned mass at IVC
+    # less the unburned part of the residual (combustion efficiency 0.97); 1.5 % (common practice)
+    fresh = np.mean([t["trapped_mass_mg"] * (1 - t["residual_fraction"]) for t in ss.truth])
+    assert air + fuel == pytest.approx(fresh, rel=0.015)
+    # air-fuel ratio at lambda 1: stoichiometric gasoline about 14.6 (Heywood 1988 App. D, from memory)
+    assert air / fuel == pytest.approx(14.6, abs=0.4)
+    formats = ["csv_long", "csv_wide", "npz"]
+    try:
+        import asammdf  # noqa: F401
+        formats.append("mf4")
+    except ImportError:
+        pass
+    ts = TraceSet(ss.theta, ss.pressure_pa, ss.intake_pa, ss.meta["speed_rpm"], ss.meta)
+    files = write_trace_set(ts, tmp_path, "trace", formats)
+    assert len(files) >= len(formats)
+    for f in files:
+        if f.suffix not in (".csv", ".npz", ".mf4"):
+            continue
+        meta = read_trace(f).meta
+        assert meta["air_mass_per_cycle_mg"] == pytest.approx(air, rel=1e-9), f.name
+        assert meta["fuel_mass_per_cycle_mg"] == pytest.approx(fuel, rel=1e-9), f.name
+    ap = argparse.ArgumentParser()
+    add_parsers(ap.add_subparsers(dest="command"))
+    npz = next(f for f in files if f.suffix == ".npz")
+    assert cmd_analyse(ap.parse_args(["analyse", str(npz), "--engine", "demo", "--out", str(tmp_path / "a")])) == 0
+    assert "measured air and fuel" in capsys.readouterr().out
+    doc = json.loads((tmp_path / "a" / "analysis_summary.json").read_text())
+    assert doc["statistics"]["trapped_mass_mg"] == pytest.approx((air + fuel) / (1 - 0.07), rel=1e-9)

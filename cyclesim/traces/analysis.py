@@ -24,7 +24,9 @@ Steps, per cycle unless said otherwise:
    common in heat-release analysis, from memory).  T = p V / (m R) with
    ``m R = p_ivc V_ivc / T_ivc`` (the trapped charge taken as an ideal gas of
    constant m R, from the pegged pressure at IVC and an assumed temperature
-   ``T_ivc_K``, or from a given trapped mass).  Discretised per step with
+   ``T_ivc_K``, or from a given trapped mass, or from the measured air and
+   fuel mass per cycle as ``(air + fuel) / (1 - residual_fraction)``, see
+   :func:`with_measured_masses`).  Discretised per step with
    midpoint values, so that for constant gamma the sum telescopes to the exact
    ``Delta(pV)/(gamma-1) + integral p dV``.
 6. **Burn points** CA10/50/90 from the gross heat release (``gas_model``
@@ -41,7 +43,10 @@ the wall heat loss and the enthalpy leaving with blowby.  Measured on the demo
 engine: with a one-gas gamma(T) the composition error puts CA50 about 0.7 deg
 late and the missing wall heat about 0.6 deg early, so the two nearly cancel by
 chance; the gross release with proper gas properties removes both.  The
-remaining error rests mostly on the assumed IVC temperature (or trapped mass).
+remaining error rests mostly on the assumed IVC temperature (or trapped mass):
+a trace file that carries the test bed's mean air and fuel mass per cycle
+(metadata ``air_mass_per_cycle_mg``, ``fuel_mass_per_cycle_mg``) gives the
+trapped mass from a mass balance instead.
 """
 
 from __future__ import annotations
@@ -58,7 +63,7 @@ from .export import CRANK_CONVENTION, TraceSet
 from ..output import plain as _plain
 
 __all__ = ["AnalysisSettings", "AnalysisResult", "VolumeFunction", "analyse", "estimate_tdc_offset",
-           "apparent_heat_release", "write_analysis"]
+           "apparent_heat_release", "write_analysis", "with_measured_masses", "AIR_MASS_KEY", "FUEL_MASS_KEY"]
 
 BAR = 1e5
 
@@ -89,6 +94,12 @@ class AnalysisSettings:
         Assumed gas temperature at IVC [K] (for T and gamma(T)).
     trapped_mass_kg : float or None
         Trapped mass [kg]; if given, used with ``R_J_per_kgK`` instead of ``T_ivc_K``.
+    air_mass_kg, fuel_mass_kg : float or None
+        Mean fresh air and fuel inducted per cycle [kg], as from a test bed's
+        air and fuel flow meters.  If both are given (and ``trapped_mass_kg``
+        is not), the trapped mass is ``(air + fuel) / (1 - residual_fraction)``
+        instead of the ``T_ivc_K`` assumption.  Fresh charge that passes
+        straight to the exhaust in the valve overlap is counted as trapped.
     R_J_per_kgK : float
         Specific gas constant of the charge [J/(kg K)].
     tdc_correct : bool
@@ -143,6 +154,8 @@ class AnalysisSettings:
     evo_deg: float = 134.0
     T_ivc_K: float = 340.0
     trapped_mass_kg: float | None = None
+    air_mass_kg: float | None = None
+    fuel_mass_kg: float | None = None
     R_J_per_kgK: float = 287.0
     tdc_correct: bool = False
     tdc_offset_deg: float | None = None
@@ -165,6 +178,49 @@ class AnalysisSettings:
 
     def replace(self, **changes) -> "AnalysisSettings":
         return replace(self, **changes)
+
+    def trapped_mass(self) -> float | None:
+        """Trapped mass at IVC [kg] from the settings, or None (then from ``T_ivc_K``).
+
+        ``trapped_mass_kg`` if given; else the measured air and fuel per cycle
+        with the burned-gas share: ``(air + fuel) / (1 - residual_fraction)``
+        (a mass balance of the charge, common practice); else None.
+        """
+        if self.trapped_mass_kg:
+            return float(self.trapped_mass_kg)
+        if self.air_mass_kg is not None and self.fuel_mass_kg is not None:
+            xr = float(self.residual_fraction)
+            if not 0.0 <= xr < 1.0:
+                raise CyclesimError(f"analyse: residual_fraction = {xr!r}: expected 0 <= x < 1")
+            fresh = float(self.air_mass_kg) + float(self.fuel_mass_kg)
+            if not fresh > 0.0:
+                raise CyclesimError(f"analyse: air + fuel mass per cycle = {fresh!r} kg: expected > 0")
+            return fresh / (1.0 - xr)
+        return None
+
+
+#: Metadata keys of a trace file with the mean air and fuel mass per cycle (test-bed flow meters).
+AIR_MASS_KEY = "air_mass_per_cycle_mg"
+FUEL_MASS_KEY = "fuel_mass_per_cycle_mg"
+
+
+def with_measured_masses(s: AnalysisSettings, meta: dict | None) -> AnalysisSettings:
+    """Settings with the air and fuel mass per cycle of a trace file's metadata, when it has both.
+
+    Values already in the settings are kept.  ``meta`` keys: ``air_mass_per_cycle_mg``
+    and ``fuel_mass_per_cycle_mg`` [mg].
+    """
+    meta = meta or {}
+    if s.air_mass_kg is not None or s.fuel_mass_kg is not None:
+        return s
+    a, f = meta.get(AIR_MASS_KEY), meta.get(FUEL_MASS_KEY)
+    try:
+        a, f = float(a), float(f)
+    except (TypeError, ValueError):
+        return s
+    if not (np.isfinite(a) and np.isfinite(f)):
+        return s
+    return s.replace(air_mass_kg=a * 1e-6, fuel_mass_kg=f * 1e-6)
 
 
 @dataclass
@@ -297,8 +353,9 @@ def apparent_heat_release(th, p, V, s: AnalysisSettings, mR=None):
         Gas temperature [K], NaN outside IVC..EVO.
     """
     if mR is None:
-        if s.trapped_mass_kg:
-            mR = s.trapped_mass_kg * s.R_J_per_kgK
+        m_tr = s.trapped_mass()
+        if m_tr:
+            mR = m_tr * s.R_J_per_kgK
         else:
             mR = _interp(th, p * V, s.ivc_deg) / s.T_ivc_K
     w = (th >= s.ivc_deg) & (th <= s.evo_deg)
@@ -357,8 +414,9 @@ def _tables_heat_release(th, p, V, s: AnalysisSettings, y, mass=None):
     """
     tab = _gas_tables(s)
     if mass is None:
-        if s.trapped_mass_kg:
-            mass = float(s.trapped_mass_kg)
+        m_tr = s.trapped_mass()
+        if m_tr:
+            mass = m_tr
         else:
             p0, V0, y0 = _interp(th, p, s.ivc_deg), _interp(th, V, s.ivc_deg), float(y[0])
             mass = p0 * V0 / (float(tab.R_unburned[0]) * s.T_ivc_K)
@@ -679,8 +737,9 @@ def estimate_tdc_offset(theta, p_abs, vol: VolumeFunction, s: AnalysisSettings, 
     else:
         end_area = 2.1 * a_bore
     V2 = vol.second_derivative_at_tdc()
-    if s.trapped_mass_kg:
-        mR = s.trapped_mass_kg * s.R_J_per_kgK
+    m_tr = s.trapped_mass()
+    if m_tr:
+        mR = m_tr * s.R_J_per_kgK
     else:
         p_ivc = float(np.interp(s.ivc_deg + th_pk, th, p))   # labelled angle of IVC ~ ivc + offset
         mR = p_ivc * float(vol(np.array([s.ivc_deg]))[0]) / s.T_ivc_K
@@ -820,6 +879,10 @@ def analyse(traceset: TraceSet, geometry_or_volume, settings: AnalysisSettings |
     per["motored"] = motored_mask
     fired = ~motored_mask
     stats: dict = {"n_cycles": int(traceset.n_cycles), "n_fired": int(fired.sum())}
+    m_tr = s.trapped_mass()
+    stats["trapped_mass_source"] = ("given" if s.trapped_mass_kg else "measured air and fuel" if m_tr
+                                    else "assumed IVC temperature")
+    stats["trapped_mass_mg"] = float(m_tr * 1e6) if m_tr else float("nan")
     for n in names + ["peg_offset_bar"]:
         v = per[n][fired] if fired.any() else per[n]
         v = v[np.isfinite(v)]

@@ -102,7 +102,9 @@ class SyntheticSet:
     stats : dict
         Set-level figures (COV of net IMEP, means, knocking share).
     meta : dict
-        Units, conventions, settings.
+        Units, conventions, settings, and the measured channels of the test bed:
+        ``air_mass_per_cycle_mg`` and ``fuel_mass_per_cycle_mg``, the mean fresh
+        air and fuel inducted per cycle over the set [mg].
     """
 
     theta: np.ndarray
@@ -258,6 +260,7 @@ def synthesize(
         I = {nm: k for k, nm in enumerate(tr.names)}
         Qc = tr.Y[I["Q_burn"], :, -1]
         Qw = tr.Y[I["Q_w"], :, -1]
+        Mu = tr.Y[I["mu_int"], :, -1]
         for b in range(batch.B):
             i = i0 + b
             P[i], Tg[i], G[i] = Pb[b], Tb[b], gb[b]
@@ -270,6 +273,9 @@ def synthesize(
                 if mis and key.startswith("ca"):
                     v = float("nan")
                 row[key] = v
+            # fresh charge inducted over the cycle: fuel and air (the rest of the inducted mass is EGR)
+            row["fuel_mass_mg"] = float(np.asarray(figs["fuel_mass_mg"])[b])
+            row["air_mass_mg"] = float(Mu[b]) * 1e6 - row["fuel_mass_mg"]
             row["heat_release_J"] = float(Qc[b])
             row["wall_heat_J"] = float(Qw[b])
             row["combustion_efficiency"] = float(changes[i]["burn.combustion_efficiency"])
@@ -371,6 +377,11 @@ def synthesize(
         "compression_ratio": float(case.engine.compression_ratio),
         "pin_offset_m": float(case.engine.pin_offset_mm) * 1e-3,
         "intake_pressure_pa": float(case.operating.intake_pressure_bar) * 1e5,
+        # measured channels of the test bed: mean over the set's cycles, as from the air and fuel flow meters
+        "air_mass_per_cycle_mg": float(np.mean([r.get("air_mass_mg", np.nan) for r in truth])),
+        "fuel_mass_per_cycle_mg": float(np.mean([r.get("fuel_mass_mg", np.nan) for r in truth])),
+        "air_fuel_mass_source": "mean over the set's cycles of the fresh air and fuel inducted, as from the test"
+                                " bed's air and fuel flow meters",
     }
     return SyntheticSet(theta_o, time_s, P_true_o, Pm_o, Pint_o, truth, stats, meta)
 
