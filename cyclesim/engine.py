@@ -126,6 +126,9 @@ class EngineSetup:
         (p_int, p_exh) engine-frame manifold traces [Pa] on :data:`MANIFOLD_STEP_DEG`
         to hold fixed (manifolds seen as in another state, no interaction).
     label : str
+    start : EngineResult, optional
+        Start each cylinder (and coupled manifolds) from this engine's settled state instead of
+        from the operating point (the readings of a test that follow one another).
     """
 
     case: Case
@@ -138,6 +141,7 @@ class EngineSetup:
     zero_cut_work: bool = False
     frozen_traces: tuple | None = None
     label: str = ""
+    start: "EngineResult | None" = None
 
 
 @dataclass
@@ -152,6 +156,7 @@ class EngineResult:
     cylinder_results: list = field(default_factory=list)
     manifold_traces: tuple | None = None
     wall_mean_K: np.ndarray | None = None
+    end_states: list = field(default_factory=list)
 
     def summary_json(self) -> dict:
         from .output import plain
@@ -444,6 +449,10 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
             st = info[e]["setup"]
             if st.frozen_traces is not None:
                 traces_eng[e] = (np.asarray(st.frozen_traces[0], float), np.asarray(st.frozen_traces[1], float))
+            elif st.start is not None and st.start.manifold_traces is not None \
+                    and len(st.start.manifold_traces[0]) == man.n + 1:
+                traces_eng[e] = (np.array(st.start.manifold_traces[0], float),
+                                 np.array(st.start.manifold_traces[1], float))
             else:
                 op = st.case.operating
                 traces_eng[e] = (np.full(man.n + 1, op.intake_pressure_bar * 1e5),
@@ -475,7 +484,8 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
     for bi, b in enumerate(batches):
         if progress:
             progress(f"batch {bi + 1}/{len(batches)}: start-up cycles")
-        trs.append(integrate(b))
+        y0 = _start_state(b, [cols[i] for i in groups[bi]], info)
+        trs.append(integrate(b) if y0 is None else integrate(b, initial=y0))
     tol = float(tol if tol is not None else min(b.simulation.tolerance for b in batches))
     n_coupled = {e: 0 for e in interacting}
     if interacting:
@@ -578,11 +588,38 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
     out = []
     for e, inf in enumerate(info):
         res = [results_per_batch[where[i][0]][where[i][1]] for i in inf["cols"]]
+        ends = []
+        for i in inf["cols"]:
+            bi, pos = where[i]
+            ends.append(dict(zip(trs[bi].names, trs[bi].end_state[:, pos].copy())))
         walls_T = np.array([lumped_T.get(i, float(cfg_walls[i].mean())) for i in inf["cols"]])
         tr_e = traces_eng.get(e)
         out.append(_engine_result(inf, res, tr_e, man.phi if man is not None else None, walls_T,
                                   n_coupled.get(e, 0), settled.get(e, True)))
+        out[-1].end_states = ends
     return out
+
+
+def _start_state(batch, columns, info):
+    """Initial state (n_state, B) from the ``start`` engines of all columns, or None if any has none.
+
+    States are matched by name; one the start engine does not have keeps its usual initial value.
+    """
+    from .solver import _RHS, _initial_state
+
+    starts = []
+    for e, k, _ in columns:
+        st = info[e]["setup"].start
+        if st is None or len(st.end_states) <= k:
+            return None
+        starts.append(st.end_states[k])
+    rhs = _RHS(batch, "full")
+    y = _initial_state(batch, rhs, -360.0, "full")
+    for pos, d in enumerate(starts):
+        for r, name in enumerate(rhs.names):
+            if name in d and np.isfinite(d[name]):
+                y[r, pos] = d[name]
+    return y
 
 
 def _engine_result(inf, res, man_tr, phi, walls_T, n_coupled, settled) -> EngineResult:

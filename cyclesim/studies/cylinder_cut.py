@@ -231,6 +231,9 @@ def cylinder_cut_test(config="demo", overrides: Sequence[str] = (), effects: Seq
                 base, cut(k), manifolds=man, walls=walls,
                 wall_start_K=a.wall_mean_K if walls == "lumped" else None,
                 wall_elapsed_s=reading_time_s if walls == "lumped" else math.inf,
+                # coupled readings follow from the all-firing state; uncoupled ones start as it did,
+                # so that their firing cylinders repeat it exactly
+                start=a if (man == "coupled" or walls == "lumped") else None,
                 label=f"cylinder {k + 1} cut ({man}, {walls}, {sp:.0f} rpm)")
     cuts = dict(zip(cut_setups, simulate_engines(list(cut_setups.values()), progress=progress)))
 
