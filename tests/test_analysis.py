@@ -310,18 +310,40 @@ def test_default_artefacts_recovery_of_imep_pegging_and_tdc(default_set, engine)
 
 
 @pytest.mark.slow
-@pytest.mark.xfail(strict=True, reason=(
-    "CA50 up to 0.28 deg late (mean +0.22 deg) on the default artefacts with the trapped mass from the "
-    "measured air and fuel (419 mg; simulator 423 mg).  Measured (12 cycles, 0.1 deg): without artefacts "
-    "this trapped mass puts CA50 within 0.035 deg (the assumed 340 K IVC temperature: 0.23 deg, mean -0.13 "
-    "deg, which had cancelled most of the next two); the thermal-drift artefact moves CA50 by about +0.13 "
-    "deg (measured before the trapped-mass change; a pressure error following the gas temperature, not "
-    "removable from one trace); the rest is expected from the residual error of the loss-angle TDC "
-    "estimate (-0.05 deg), not separated here"))
 def test_default_artefacts_recovery_of_ca50(default_set, engine):
     # the brief's limit: CA50 within 0.2 deg of the mass-burned truth on every fired cycle
+    # Measured (12 cycles, 0.1 deg, trapped mass from the measured air and fuel): 0.12 deg worst, mean
+    # +0.09 deg with the thermal-drift fit (0.28 / +0.22 deg without it); the mean +0.06 deg that is left
+    # comes with the residual error of the loss-angle TDC estimate (-0.05 deg).  The fit assumes the
+    # drift's lag time constant (2 ms): with 4 ms assumed the worst cycle is at 0.21 deg.
     err, _, _ = _recovery_errors(default_set, engine)
     assert err["ca50_deg"] < 0.2
+
+
+@pytest.mark.slow
+def test_thermal_drift_sensitivity_is_estimated_from_the_traces(default_set, engine):
+    # The sensor's short-term thermal error is a pressure error following the gas temperature through
+    # a first-order lag (thermal shock of the diaphragm, common practice); the analyser estimates its
+    # sensitivity from the level of the gross release after burning.  Against the artefact truth of the
+    # set: within 30 % (one sensitivity for the set: the median of 10 cycles whose own estimates scatter
+    # by about +-3e-5 bar/K, measured)
+    g, s, _ = engine
+    ss = default_set
+    ts = TraceSet(ss.theta, ss.pressure_pa, ss.intake_pa, ss.meta["speed_rpm"], ss.meta)
+    s = with_measured_masses(s, ts.meta).replace(tdc_correct=True)
+    r = analyse(ts, g, s)
+    fired = ~np.array([t["misfire"] for t in ss.truth])
+    c = r.per_cycle["thermal_drift_bar_per_K"][fired]
+    true_c = -ArtefactSettings.default().thermal_drift_bar_per_K
+    assert np.all(c == c[0]) and np.all(np.isnan(r.per_cycle["thermal_drift_bar_per_K"][~fired]))
+    assert c[0] == pytest.approx(true_c, rel=0.3)
+    # without the fit the drift moves CA50 late (the measured cause of the former 0.28 deg)
+    r0 = analyse(ts, g, s.replace(thermal_drift="none"))
+    truth = np.array([t["ca50_deg"] for t in ss.truth])[fired]
+    e0 = np.mean(r0.per_cycle["ca50_deg"][fired] - truth)
+    e1 = np.mean(r.per_cycle["ca50_deg"][fired] - truth)
+    print(f"CA50 mean error: thermal-drift fit {e1:+.3f} deg, none {e0:+.3f} deg; c = {c[0]:.3g} bar/K")
+    assert e0 > e1 + 0.05
 
 
 # ---------------------------------------------------------------------- trapped mass from air and fuel flow
