@@ -18,6 +18,9 @@ from .errors import ConfigError, PluginError
 from .roles import ROLES, SetupContext, Submodel
 
 _NUMERIC = ("float", "int")
+_AREA_SIZE = frozenset({"intake_diameter_mm", "exhaust_diameter_mm", "intake_count", "exhaust_count", "intake_area_factor",
+                        "port_area_ratio"})
+"""Valve numbers that scale the flow areas without changing where they are zero."""
 
 
 def _is_numeric_param(p) -> bool:
@@ -42,9 +45,24 @@ def batch_key(case: Case, registry) -> tuple:
                 parts.append((sec, p.name, _freeze(getattr(ns, p.name))))
     if case.simulation.mode == "closed":
         parts.append(("closed", case.valves.ivc_deg, case.valves.evo_deg))
+    else:
+        # the crank grid steps further where every valve is shut, so cases share a batch only
+        # where their valves are shut alike (the sizes of the openings do not matter)
+        parts.append(("valve_timing",) + tuple(
+            (p.name, _freeze(getattr(case.valves, p.name))) for p in CORE_SCHEMA["valves"]
+            if _is_numeric_param(p) and p.name not in _AREA_SIZE))
+        vf = case.submodels["valve_flow"]
+        vcls = registry.submodel_class("valve_flow", vf.model)
+        parts.append(("valve_flow_numbers",) + tuple(
+            (p.name, _freeze(vf.params[p.name])) for p in vcls.params
+            if _is_numeric_param(p) and p.name not in _AREA_SIZE))
     from .config import effective_step_deg
 
     parts.append(("step", effective_step_deg(case.simulation, case.operating.speed_rpm)))
+    from .solver import closed_step_factor
+
+    classes = {role: registry.submodel_class(role, case.submodels[role].model) for role in ROLES}
+    parts.append(("closed_step_factor", closed_step_factor(case, classes)))
     for role in ROLES:
         ch = case.submodels[role]
         cls = registry.submodel_class(role, ch.model)

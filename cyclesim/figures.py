@@ -13,7 +13,7 @@ import math
 import numpy as np
 
 from .roles import FrictionInputs
-from .solver import CycleTrace, hermite, hermite_grid
+from .solver import CycleTrace, hermite, hermite_grid, is_uniform
 
 
 def _columns(gas, T, rho, y):
@@ -55,7 +55,6 @@ def hermite_peak(theta, Yr, Fr, lo=None, hi=None):
     ``lo``/``hi`` restrict the search window [deg].
     """
     B, n1 = Yr.shape
-    h = (theta[-1] - theta[0]) / (n1 - 1)
     mask = np.ones(n1, dtype=bool)
     if lo is not None:
         mask &= theta >= lo
@@ -68,6 +67,7 @@ def hermite_peak(theta, Yr, Fr, lo=None, hi=None):
     r = np.arange(B)
     for j in (i - 1, i):
         jj = np.clip(j, 0, n1 - 2)
+        h = theta[jj + 1] - theta[jj]
         y0, y1 = Yr[r, jj], Yr[r, jj + 1]
         d0, d1 = Fr[r, jj] * h, Fr[r, jj + 1] * h
         # derivative of the cubic in t: a t^2 + b t + c
@@ -99,7 +99,6 @@ def hermite_peak(theta, Yr, Fr, lo=None, hi=None):
 def hermite_crossing(theta, Yr, Fr, level, start=None):
     """First angle where a non-decreasing row (B, N+1) reaches ``level`` (NaN if never)."""
     B, n1 = Yr.shape
-    h = (theta[-1] - theta[0]) / (n1 - 1)
     ok = Yr >= level
     if start is not None:
         ok &= theta[None, :] >= np.asarray(start).reshape(-1, 1)
@@ -107,6 +106,7 @@ def hermite_crossing(theta, Yr, Fr, level, start=None):
     k = np.argmax(ok, axis=1)
     j = np.clip(k - 1, 0, n1 - 2)
     r = np.arange(B)
+    h = theta[j + 1] - theta[j]
     y0, y1 = Yr[r, j], Yr[r, j + 1]
     d0, d1 = Fr[r, j] * h, Fr[r, j + 1] * h
     lo = np.zeros(B)
@@ -296,16 +296,17 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
         out["bsfc_g_per_kWh"] = np.where(W_brake > 0, m_fuel * 1e3 / (W_brake / 3.6e6), np.inf)
     out["exhaust_temperature_K"] = _exhaust_temperature(batch, -m_e, -H_e, -mu_e)
     # gas-exchange conditions the quasi-steady valve model handles approximately
-    h_deg = (th[-1] - th[0]) / (len(th) - 1)
+    dth = np.diff(th)
+    h_deg = np.append(dth, dth[-1])           # crank span of each grid point [deg]
     fi = F[I["m_int"]]
     fe = F[I["m_exh"]]
-    out["intake_backflow_mass_mg"] = np.trapezoid(np.minimum(fi, 0.0), dx=h_deg, axis=1) * -1e6
-    out["exhaust_backflow_mass_mg"] = np.trapezoid(np.maximum(fe, 0.0), dx=h_deg, axis=1) * 1e6
+    out["intake_backflow_mass_mg"] = np.trapezoid(np.minimum(fi, 0.0), x=th, axis=1) * -1e6
+    out["exhaust_backflow_mass_mg"] = np.trapezoid(np.maximum(fe, 0.0), x=th, axis=1) * 1e6
     p_e = op.exhaust_pressure_bar * 1e5 * np.ones(B)
     gam = d["gamma"]
     crit = (2.0 / (gam + 1.0)) ** (gam / (gam - 1.0))
     choked = (fe < 0) & (p_e[:, None] / p > 0) & (p_e[:, None] / p < crit)
-    out["exhaust_choked_deg"] = choked.sum(axis=1) * h_deg
+    out["exhaust_choked_deg"] = (choked * h_deg).sum(axis=1)
     out["cycles_to_converge"] = tr.cycles.astype(float)
     out["converged"] = tr.converged.copy()
 
@@ -362,14 +363,23 @@ def _exhaust_temperature(batch, m_out, H_out, mu_out) -> np.ndarray:
 
 
 def output_trace(batch, tr: CycleTrace, d: dict, step: float | None) -> dict[str, np.ndarray]:
-    """Trace columns for output, on the integration grid or a finer Hermite-interpolated one."""
+    """Trace columns for output, on the integration grid or a Hermite-interpolated one.
+
+    A full-cycle grid with longer steps where the valves are shut is put out at its finest
+    step (the gas-exchange step) unless ``step`` [deg] says otherwise; rates between the
+    solver's points are then the derivatives of the Hermite interpolant of the integrated
+    quantity.
+    """
     th = tr.theta
     I = {n: i for i, n in enumerate(tr.names)}
     Y, F = tr.Y, tr.F
     B = batch.B
     omega = 6.0 * batch.operating.speed_rpm * np.ones(B)
+    uniform = is_uniform(th)
     h = (th[-1] - th[0]) / (len(th) - 1)
-    if step and step > 0 and abs(step - h) > 1e-12:
+    if not uniform and not (step and step > 0):
+        step = float(np.min(np.diff(th)))
+    if step and step > 0 and (not uniform or abs(step - h) > 1e-12):
         n = int(round((th[-1] - th[0]) / step))
         grid = np.linspace(th[0], th[-1], n + 1)
 
@@ -400,6 +410,8 @@ def output_trace(batch, tr: CycleTrace, d: dict, step: float | None) -> dict[str
     def rate(row):
         if grid is th:
             return F[row]
+        if not uniform:
+            return hermite_grid(th, Y[row], F[row], grid, derivative=True)
         return np.stack([np.interp(grid, th, F[row][b]) for b in range(B)])
 
     cols["heat_release_rate_J_per_deg"] = rate(I["Q_burn"])

@@ -110,17 +110,43 @@ def orifice_mass_flow(cd_area, p1, T1, R1, gamma1, p2, T2, R2, gamma2, dp_lin=DP
     forward = p1 >= p2
     p0 = np.maximum(p1, p2)
     pd = np.minimum(p1, p2)
-    T0 = np.where(forward, T1, T2)
-    R0 = np.where(forward, R1, R2)
-    g0 = np.where(forward, gamma1, gamma2)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        x = np.where(p0 > 0.0, 1.0 - pd / p0, 0.0)  # relative pressure drop, 0..1
-    # one evaluation of the isentropic flux at pr = 1 - max(x, dp_lin), choked below critical
-    gm1 = g0 - 1.0
-    crit = (2.0 / (g0 + 1.0)) ** (g0 / gm1)
-    pr = np.maximum(1.0 - np.maximum(x, dp_lin), crit)
-    prk = pr ** (gm1 / g0)
-    psi = prk ** (1.0 / gm1) * np.sqrt(np.maximum(2.0 * g0 / gm1 * (1.0 - prk), 0.0))
-    psi = psi * np.minimum(x / dp_lin, 1.0)
-    mdot = np.asarray(cd_area, dtype=float) * p0 / np.sqrt(R0 * T0) * psi
+    mdot = _outflow(cd_area, p0, np.where(forward, T1, T2), np.where(forward, R1, R2),
+                    np.where(forward, gamma1, gamma2), pd, dp_lin)
     return np.where(forward, mdot, -mdot)
+
+
+def orifice_outflow(cd_area, p1, T1, R1, gamma1, p2, dp_lin=DP_LIN_DEFAULT):
+    """Mass flow from side 1 to side 2 [kg/s], zero when ``p2 >= p1`` (one-way restriction).
+
+    The same law as :func:`orifice_mass_flow` with side 1 upstream; equal to
+    ``max(orifice_mass_flow(...), 0)`` for any state of side 2.
+
+    Parameters
+    ----------
+    cd_area : array_like
+        Effective flow area [m^2].
+    p1, T1, R1, gamma1 : array_like
+        Upstream pressure [Pa], temperature [K], gas constant [J/(kg K)], ratio of specific heats [-].
+    p2 : array_like
+        Downstream pressure [Pa].
+    dp_lin : float, optional
+        Width of the linear band at small pressure differences [-] (see :func:`orifice_mass_flow`).
+    """
+    p1 = np.asarray(p1, dtype=float)
+    pd = np.minimum(p1, np.asarray(p2, dtype=float))
+    return _outflow(cd_area, p1, T1, R1, gamma1, pd, dp_lin)
+
+
+def _outflow(cd_area, p0, T0, R0, g0, pd, dp_lin):
+    """Isentropic orifice flow [kg/s] from stagnation ``p0, T0`` to ``pd <= p0`` (arrays)."""
+    # relative pressure drop 0..1 (p0 > 0 for every physical state; a zero p0 gives zero flow)
+    x = 1.0 - pd / np.maximum(p0, 1e-300)
+    # one evaluation of the isentropic flux at pr = 1 - max(x, dp_lin), choked below critical:
+    # psi = pr^(1/g) sqrt(2g/(g-1) (1 - pr^((g-1)/g))), critical ratio (2/(g+1))^(g/(g-1))
+    inv_g = 1.0 / g0
+    e = 1.0 - inv_g                                  # (g-1)/g
+    crit = (2.0 / (g0 + 1.0)) ** (1.0 / e)
+    pr = np.maximum(1.0 - np.maximum(x, dp_lin), crit)
+    psi = pr ** inv_g * np.sqrt(np.maximum((2.0 / e) * (1.0 - pr ** e), 0.0))
+    psi = psi * np.minimum(x * (1.0 / dp_lin), 1.0)
+    return np.asarray(cd_area, dtype=float) * p0 / np.sqrt(R0 * T0) * psi

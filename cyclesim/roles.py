@@ -155,6 +155,10 @@ class Submodel:
         Declared parameters (name with unit, default, range, meaning).
     references : tuple of str
         Published sources of the method and its default coefficients.
+    closed_step_limit : int or None
+        The solver steps ``CLOSED_STEP_FACTOR`` times further while every valve is shut;
+        a model whose derivatives jump there (an integral that stops at a threshold)
+        caps that multiple, since the jump costs accuracy in proportion to the step.
     """
 
     role: ClassVar[str] = ""
@@ -162,6 +166,15 @@ class Submodel:
     summary: ClassVar[str] = ""
     params: ClassVar[tuple[Param, ...]] = ()
     references: ClassVar[tuple[str, ...]] = ()
+    closed_step_limit: ClassVar[int | None] = None
+    """Largest multiple of the step this model tolerates while the valves are shut
+    (None: no limit); e.g. 1 for a model whose derivatives switch off abruptly there."""
+
+    @classmethod
+    def closed_step_limit_for(cls, params: Mapping[str, Any], step_deg: float) -> int | None:
+        """Cap of the closed-part step multiple for one case's parameters (default
+        :attr:`closed_step_limit`); ``step_deg`` is the case's gas-exchange step [deg]."""
+        return cls.closed_step_limit
 
     def __init__(self, values: Mapping[str, Any], ctx: SetupContext) -> None:
         self.p = SimpleNamespace(**values)

@@ -325,6 +325,7 @@ RHO_GRID = (0.005, 400.0, 40)
 BURNED_MODELS = ("equilibrium", "complete")
 
 _POWERS = np.arange(4.0)
+_POWERS6 = np.arange(6.0)
 
 
 class _CaseTable:
@@ -481,6 +482,14 @@ class GasTables:
         # fresh charge: per case [low u coefs | low cv coefs] and high, rows b*2 + (T > T_MID)
         self._ucoef = np.stack([np.stack([np.concatenate([c.u_coef[r], c.cv_coef[r]])
                                           for r in (0, 1)]) for c in cases]).reshape(2 * self.B, 12)
+        # the same as one (2B, 6, 4) matrix: powers T^0..T^5 times it give [u, R, cv, 0]
+        # of the fresh charge in one product (R as the constant term)
+        uc4 = np.zeros((self.B, 2, 6, 4))
+        for b, c in enumerate(cases):
+            uc4[b, :, :, 0] = c.u_coef
+            uc4[b, :, 0, 1] = c.R_u
+            uc4[b, :, :, 2] = c.cv_coef
+        self._uc4 = uc4.reshape(2 * self.B, 6, 4)
         self._u_coef_case = np.stack([c.u_coef for c in cases])  # (B, 2, 6)
         self._cv_coef_case = np.stack([c.cv_coef for c in cases])
         self._row2 = 2 * np.arange(self.B)
@@ -504,14 +513,8 @@ class GasTables:
         """Fresh-charge (u [J/kg], cv [J/(kg K)], R [J/(kg K)]) at ``T`` [K] of shape (B,) or (B, n)."""
         T = np.asarray(T, dtype=float)
         if T.ndim == 1:
-            c = self._ucoef[self._row2 + (T > T_MID)]
-            u = c[:, 5]
-            cv = c[:, 10]
-            for i in (4, 3, 2, 1, 0):
-                u = u * T + c[:, i]
-            for i in (9, 8, 7, 6):
-                cv = cv * T + c[:, i]
-            return u, cv, self.R_unburned.copy()
+            U4 = self._unburned4(T)
+            return U4[:, 0], U4[:, 2], self.R_unburned.copy()
         shape = T.shape
         T2 = T.reshape(self.B, -1)
         hi = (T2 > T_MID)[..., None]
@@ -525,6 +528,11 @@ class GasTables:
             cv = cv * T2 + cc[..., i]
         R = np.broadcast_to(self.R_unburned[:, None], T2.shape).copy()
         return u.reshape(shape), cv.reshape(shape), R.reshape(shape)
+
+    def _unburned4(self, T: np.ndarray) -> np.ndarray:
+        """[u, R, cv, 0] of the fresh charge at ``T`` [K] (B,) -> (B, 4), one matrix product."""
+        P = np.power(T[:, None], _POWERS6)
+        return np.matmul(P[:, None, :], self._uc4[self._row2 + (T > T_MID)])[:, 0]
 
     def enthalpy_unburned(self, T) -> np.ndarray:
         """Absolute enthalpy of the fresh charge [J/kg] at ``T`` [K], shape (B,) or (B, n)."""
@@ -578,21 +586,14 @@ class GasTables:
         """Cylinder-gas properties at ``T`` [K], ``rho`` [kg/m^3], burned mass fraction ``y`` [-] (B,)."""
         T = np.asarray(T, dtype=float)
         f, s = self._burned_core(T, np.asarray(rho, dtype=float))
-        c = self._ucoef[self._row2 + (T > T_MID)]
-        uu = c[:, 5]
-        cvu = c[:, 10]
-        for i in (4, 3, 2, 1, 0):
-            uu = uu * T + c[:, i]
-        for i in (9, 8, 7, 6):
-            cvu = cvu * T + c[:, i]
-        Ru = self.R_unburned
-        u_y = f[:, 0] - uu
-        R_y = f[:, 1] - Ru
-        u = uu + y * u_y
-        R = Ru + y * R_y
-        u_T = cvu + y * (f[:, 2] - cvu)
-        cp = u_T + R
-        return MixProps(u, u_T, y * s[:, 0], u_y, R, y * f[:, 3], y * s[:, 1], R_y,
+        U = self._unburned4(T)                  # fresh charge [u, R, cv, 0]
+        D = f - U                               # [u_y, R_y, du_T, R_T of the burned gas]
+        yc = np.asarray(y, dtype=float)[:, None]
+        M = U + yc * D                          # [u, R, u_T, R_T] of the mixture
+        S = yc * s[:, :2]                       # [u_lnrho, R_lnrho]
+        u_T = M[:, 2]
+        cp = u_T + M[:, 1]
+        return MixProps(M[:, 0], u_T, S[:, 0], D[:, 0], M[:, 1], M[:, 3], S[:, 1], D[:, 1],
                         u_T, cp, cp / u_T)
 
     def pressure(self, T, rho, y) -> np.ndarray:

@@ -97,6 +97,11 @@ class WiebeTable(Wiebe):
         Uses ``speed_rpm`` and ``operating.intake_pressure_bar`` (B,).
     """
 
+    @classmethod
+    def closed_step_limit_for(cls, params, step_deg):
+        """The table's durations are not known before set-up: keep the fine step."""
+        return 1
+
     name = "wiebe_table"
     summary = "Wiebe function with parameters interpolated in speed and intake pressure from a burn table"
     params = (

@@ -203,6 +203,14 @@ class WiebeFlame(BurnRate):
     :meth:`fraction` returns None.
     """
 
+    @classmethod
+    def closed_step_limit_for(cls, params, step_deg):
+        """A short burn keeps the fine step; the duration may shrink to half its reference."""
+        from .wiebe import burn_step_limit
+
+        ref = params.get("ref_duration_deg")
+        return burn_step_limit({"d": 0.5 * float(ref)} if ref is not None else {}, step_deg, ("d",))
+
     name = "wiebe_flame"
     summary = ("Wiebe burn with development angle and duration scaled by the Metghalchi-Keck"
                " flame speed at spark and the mean piston speed")

@@ -109,6 +109,7 @@ class Woschni(WallHeatTransfer):
         vs_over_sp = np.pi * g.bore_m * self.p.swirl_ratio / (2.0 * g.stroke_m)
         self._c1_open = 6.18 + 0.417 * vs_over_sp
         self._c1_closed = 2.28 + 0.308 * vs_over_sp
+        self._k = self.p.multiplier * self._bore_term * 1e-5 ** 0.8
 
     def states(self):
         return (StateVar(self.STATE, "K", initial="T_ivc", reset_at_ivc=True),)
@@ -126,13 +127,15 @@ class Woschni(WallHeatTransfer):
         return s.p_ivc * (s.V_ivc / s.V) * (T_mot / s.T_ivc)
 
     def coefficient(self, s: GasState) -> np.ndarray:
-        c1 = np.where(s.closed, self._c1_closed, self._c1_open)
+        w = np.where(s.closed, self._c1_closed, self._c1_open) * s.Sp
         firing = np.logical_and(s.closed, s.burning)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            dp = np.maximum(s.p - self.motored_pressure(s), 0.0)
-            comb = self.p.c2_m_per_sK * self._Vd * s.T_ivc / (s.p_ivc * s.V_ivc) * dp
-        w = c1 * s.Sp + np.where(firing, comb, 0.0)
-        return self.p.multiplier * self._bore_term * (s.p * 1e-5) ** 0.8 * s.T ** -0.53 * w**0.8
+        if firing.any():  # the combustion term only where a case burns
+            with np.errstate(invalid="ignore", divide="ignore"):
+                dp = np.maximum(s.p - self.motored_pressure(s), 0.0)
+                comb = self.p.c2_m_per_sK * self._Vd * s.T_ivc / (s.p_ivc * s.V_ivc) * dp
+            w = w + np.where(firing, comb, 0.0)
+        # p^0.8 w^0.8 = (p w)^0.8 with p in bar
+        return self._k * (s.p * w) ** 0.8 * s.T ** -0.53
 
 
 class Hohenberg(WallHeatTransfer):

@@ -204,6 +204,9 @@ class LivengoodWu(Knock):
 
     name = "livengood_wu"
     summary = "Livengood-Wu knock integral of the Douaud-Eyzat ignition delay, isentropic end gas"
+    # the integral stops where the unburned fraction reaches its minimum, a jump in its rate
+    # whose error grows with the step: keep the fine step through the closed part
+    closed_step_limit = 1
     params = (
         Param("octane_number", "-", 95.0, "fuel octane number in the Douaud-Eyzat delay",
               min=40.0, max=120.0),

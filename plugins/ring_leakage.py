@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from cyclesim.flow import orifice_mass_flow
+from cyclesim.flow import orifice_outflow
 from cyclesim.params import Param
 from cyclesim.roles import GasState, RingLeakage
 
@@ -67,10 +67,8 @@ class Orifice(RingLeakage):
         self._p_cc = np.asarray(self.p.crankcase_pressure_bar, dtype=float) * 1e5
 
     def mass_flow(self, s: GasState) -> np.ndarray:
-        mdot = orifice_mass_flow(
-            self._cda, s.p, s.T, s.R, s.gamma, self._p_cc, s.T, s.R, s.gamma,
-        )
-        return np.maximum(mdot, 0.0)
+        # outflow only: zero when the crankcase pressure is the higher
+        return orifice_outflow(self._cda, s.p, s.T, s.R, s.gamma, self._p_cc)
 
 
 SUBMODELS = [NoLeakage, Orifice]

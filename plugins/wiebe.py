@@ -131,11 +131,31 @@ P_DELAY = Param("ignition_delay_deg", "deg", 8.0,
                 "crank angle from spark to the start of burning", min=0.0, max=60.0)
 
 
+MIN_BURN_STEPS = 16
+"""Fewest solver steps across the shortest burn duration: the longer closed-part step
+(:data:`cyclesim.solver.CLOSED_STEP_FACTOR`) is taken only as far as this allows."""
+
+_DURATION_KEYS = ("duration_deg", "burn_10_90_deg", "first_duration_deg", "second_duration_deg")
+
+
+def burn_step_limit(params: Mapping[str, Any], step_deg: float, keys=_DURATION_KEYS) -> int:
+    """Step multiple [-] that keeps :data:`MIN_BURN_STEPS` steps across the shortest duration."""
+    durations = [float(params[k]) for k in keys if params.get(k) is not None]
+    if not durations:
+        return 1
+    return max(1, int(min(durations) / (MIN_BURN_STEPS * step_deg)))
+
+
 class _WiebeLaw(BurnRate):
     """Common behaviour: efficiency, cycle-end cut, burn-completion warning."""
 
     theta0: np.ndarray
     eff: np.ndarray
+
+    @classmethod
+    def closed_step_limit_for(cls, params: Mapping[str, Any], step_deg: float) -> int | None:
+        """A short burn keeps the fine step (see :data:`MIN_BURN_STEPS`)."""
+        return burn_step_limit(params, step_deg)
 
     def combustion_efficiency(self) -> np.ndarray:
         """Fraction of the charge's fuel energy that is released (B,) [-]."""

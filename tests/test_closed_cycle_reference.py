@@ -290,7 +290,7 @@ def test_motored_pressure_is_exact_for_an_adiabatic_leak_free_charge():
     tr = cyclesim.run(case).trace
     th, p, pm = tr["crank_deg"], tr["pressure_bar"], tr["motored_pressure_bar"]
     before = th <= _start_of_combustion(case)
-    assert before.sum() > 100
+    assert before.sum() > 50          # trace points of the solver (2 deg steps with the valves shut)
     assert np.max(np.abs(pm[before] / p[before] - 1.0)) < 1e-5
 
 
@@ -321,7 +321,7 @@ def test_motored_pressure_lies_below_fired_pressure_after_start_of_combustion(cl
     th, p, pm = tr["crank_deg"], tr["pressure_bar"], tr["motored_pressure_bar"]
     soc = _start_of_combustion(load_config("demo_closed"))
     after = th > soc
-    assert after.sum() > 100
+    assert after.sum() > 50           # trace points of the solver (2 deg steps with the valves shut)
     assert np.all(pm[after] < p[after])
 
 
