@@ -281,11 +281,21 @@ def default_set():
     return ss
 
 
-def _recovery_errors(ss, engine):
+def _analysed(ss, engine):
     g, s, _ = engine
     ts = TraceSet(ss.theta, ss.pressure_pa, ss.intake_pa, ss.meta["speed_rpm"], ss.meta)
     # as `cyclesim analyse` does: the trapped mass from the set's measured air and fuel per cycle
-    r = analyse(ts, g, with_measured_masses(s, ts.meta).replace(tdc_correct=True))
+    return analyse(ts, g, with_measured_masses(s, ts.meta).replace(tdc_correct=True))
+
+
+@pytest.fixture(scope="module")
+def default_result(default_set, engine):
+    """The analysis of ``default_set`` (the estimate of the drift's time constant makes it ~10 s)."""
+    return _analysed(default_set, engine)
+
+
+def _recovery_errors(ss, engine, r=None):
+    r = _analysed(ss, engine) if r is None else r
     assert r.stats["trapped_mass_source"] == "measured air and fuel"
     fired = ~np.array([t["misfire"] for t in ss.truth])
     truth = {k: np.array([t[k] for t in ss.truth]) for k in ("imep_net_bar", "ca50_deg", "artefact.offset_bar")}
@@ -300,9 +310,9 @@ def _recovery_errors(ss, engine):
 
 
 @pytest.mark.slow
-def test_default_artefacts_recovery_of_imep_pegging_and_tdc(default_set, engine):
+def test_default_artefacts_recovery_of_imep_pegging_and_tdc(default_set, engine, default_result):
     # the brief's limits: net IMEP 0.5 %, pegging offset 0.05 bar, TDC error 0.1 deg
-    err, r, fired = _recovery_errors(default_set, engine)
+    err, r, fired = _recovery_errors(default_set, engine, default_result)
     assert r.per_cycle["motored"].tolist() == (~fired).tolist()
     assert err["imep_net_pct"] < 0.5
     assert err["peg_bar"] < 0.05
@@ -310,18 +320,19 @@ def test_default_artefacts_recovery_of_imep_pegging_and_tdc(default_set, engine)
 
 
 @pytest.mark.slow
-def test_default_artefacts_recovery_of_ca50(default_set, engine):
+def test_default_artefacts_recovery_of_ca50(default_set, engine, default_result):
     # the brief's limit: CA50 within 0.2 deg of the mass-burned truth on every fired cycle
-    # Measured (12 cycles, 0.1 deg, trapped mass from the measured air and fuel): 0.12 deg worst, mean
-    # +0.09 deg with the thermal-drift fit (0.28 / +0.22 deg without it); the mean +0.06 deg that is left
-    # comes with the residual error of the loss-angle TDC estimate (-0.05 deg).  The fit assumes the
-    # drift's lag time constant (2 ms): with 4 ms assumed the worst cycle is at 0.21 deg.
-    err, _, _ = _recovery_errors(default_set, engine)
+    # Measured (12 cycles, 0.1 deg, trapped mass from the measured air and fuel): 0.145 deg worst, mean
+    # +0.12 deg with the thermal-drift fit and its lag time constant estimated from the set (1.4 ms
+    # found); 0.12 / +0.09 deg with 2 ms assumed, 0.21 deg worst with 4 ms assumed, 0.28 / +0.22 deg
+    # without the fit.  About +0.06 deg of the mean comes with the residual error of the loss-angle TDC
+    # estimate (-0.05 deg).
+    err, _, _ = _recovery_errors(default_set, engine, default_result)
     assert err["ca50_deg"] < 0.2
 
 
 @pytest.mark.slow
-def test_thermal_drift_sensitivity_is_estimated_from_the_traces(default_set, engine):
+def test_thermal_drift_sensitivity_is_estimated_from_the_traces(default_set, engine, default_result):
     # The sensor's short-term thermal error is a pressure error following the gas temperature through
     # a first-order lag (thermal shock of the diaphragm, common practice); the analyser estimates its
     # sensitivity from the level of the gross release after burning.  Against the artefact truth of the
@@ -331,7 +342,7 @@ def test_thermal_drift_sensitivity_is_estimated_from_the_traces(default_set, eng
     ss = default_set
     ts = TraceSet(ss.theta, ss.pressure_pa, ss.intake_pa, ss.meta["speed_rpm"], ss.meta)
     s = with_measured_masses(s, ts.meta).replace(tdc_correct=True)
-    r = analyse(ts, g, s)
+    r = default_result
     fired = ~np.array([t["misfire"] for t in ss.truth])
     c = r.per_cycle["thermal_drift_bar_per_K"][fired]
     true_c = -ArtefactSettings.default().thermal_drift_bar_per_K
@@ -344,6 +355,49 @@ def test_thermal_drift_sensitivity_is_estimated_from_the_traces(default_set, eng
     e1 = np.mean(r.per_cycle["ca50_deg"][fired] - truth)
     print(f"CA50 mean error: thermal-drift fit {e1:+.3f} deg, none {e0:+.3f} deg; c = {c[0]:.3g} bar/K")
     assert e0 > e1 + 0.05
+
+
+@pytest.mark.slow
+def test_thermal_drift_time_constant_is_estimated_from_the_traces(engine):
+    # The lag time constant of the drift is not assumed: the summed misfit of the level condition after
+    # burning (gross release flat once burning has stopped, common practice), with the drift's
+    # sensitivity, the wall-heat scale and the level fitted per cycle, is least at the time constant of
+    # the sensor.  A set whose sensor has 4 ms (twice the generator's default): the estimate within
+    # 25 % (measured on 12-cycle sets, true -> found: 1 -> 1.25, 2 -> 1.40, 4 -> 3.79, 5 -> 4.41,
+    # 8 -> 6.16 ms; 0.5 ms is not resolved, 2.0 found), and CA50 within the brief's 0.2 deg (measured
+    # 0.118 deg worst; 2 ms assumed on such a set puts CA50 later, the error this removes)
+    from cyclesim.traces.synthesis import CycleVariation, synthesize
+
+    tau_true = 0.004
+    ss = synthesize(load_config("demo"), 12, CycleVariation(misfire_rate=0.25, seed=3), resolution_deg=0.1,
+                    artefacts=ArtefactSettings.default().replace(thermal_time_constant_s=tau_true))
+    r = _analysed(ss, engine)
+    assert r.stats["thermal_tau_source"] == "estimated" and not r.warnings
+    assert r.stats["thermal_tau_s"] == pytest.approx(tau_true, rel=0.25)
+    rel = np.asarray(r.stats["thermal_tau_rss_rel"])
+    assert rel.min() == 1.0 and rel.max() > 1.05            # a minimum that the curve defines
+    err, _, _ = _recovery_errors(ss, engine, r)
+    print(f"thermal lag time constant: {1e3 * r.stats['thermal_tau_s']:.2f} ms found, {1e3 * tau_true:g} ms true")
+    assert err["ca50_deg"] < 0.2
+
+
+def test_given_thermal_time_constant_wins_and_a_flat_curve_falls_back(fired, engine):
+    # a user-given time constant is used as given (no estimate); without drift in the trace (noise-free
+    # simulator trace) the level misfit does not single out a time constant: the fit then uses the stated
+    # default and says so (measured: least at 8 ms, the grid's end)
+    g, s, _ = engine
+    fuel = fired.summary["fuel_mass_mg"]
+    meta = {"air_mass_per_cycle_mg": fired.summary["inducted_mass_mg"] - fuel, "fuel_mass_per_cycle_mg": fuel}
+    sm = with_measured_masses(s, meta).replace(thermal_tau_grid_s=(0.5e-3, 8e-3, 5))
+    ts = _set(fired, intake_bar=0.98)
+    r = analyse(ts, g, sm.replace(thermal_tau_s=0.003))
+    assert r.stats["thermal_tau_source"] == "given" and r.stats["thermal_tau_s"] == 0.003
+    r = analyse(ts, g, sm)
+    print(f"noise-free trace: level misfit over tau {np.round(r.stats['thermal_tau_rss_rel'], 4).tolist()}")
+    assert r.stats["thermal_tau_source"] != "estimated"           # measured: least at the grid's end
+    assert r.stats["thermal_tau_s"] == sm.thermal_tau_default_s
+    assert any("not well defined" in w for w in r.warnings)
+    assert r.per_cycle["ca50_deg"][0] == pytest.approx(fired.summary["ca50_deg"], abs=0.1)
 
 
 # ---------------------------------------------------------------------- trapped mass from air and fuel flow
