@@ -542,9 +542,11 @@ class GasTables:
     # -- burned gas --------------------------------------------------------
     def _burned_core(self, T, rho, offset=None):
         """[u, R, u_T, R_T] (N, 4) and [u_lnrho, R_lnrho] (N, 2) from the tables (T, rho (N,))."""
-        x = np.minimum(np.maximum((T - self._T0) * self._inv_dT, 0.0), self._x_hi)
+        # fmax/fmin map NaN (a state out of range) into the table, so the lookup stays valid and
+        # the caller sees the non-finite input in its own results
+        x = np.fmin(np.fmax((T - self._T0) * self._inv_dT, 0.0), self._x_hi)
         i = x.astype(np.intp)
-        z = np.minimum(np.maximum(np.log(rho) - self._lr0, 0.0), self._z_hi)
+        z = np.fmin(np.fmax(np.log(rho) - self._lr0, 0.0), self._z_hi)
         j = (z * self._inv_dlr).astype(np.intp)
         off = self._offset if offset is None else offset
         g = self._table[off + i * (self._nR - 1) + j].reshape(-1, 8, 4)
