@@ -96,7 +96,7 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
           "full mode: below this speed the step shrinks as speed^1.5 (in powers of 2),"
           " because valve flow near equal pressures is stiffer at low speed; 0 = fixed step",
           0, 30000, sweepable=False),
-        P("output_step_deg", "deg", 0.0, "trace output spacing (0 = the integration step; finer is interpolated)",
+        P("output_step_deg", "deg", 0.0, "trace output spacing (0 = step_deg in full mode, the solver's points in closed mode; other spacings interpolated)",
           0, 5, sweepable=False),
         P("max_cycles", "-", 30, "full mode: most cycles to reach periodic steady state", 1, 500, kind="int",
           sweepable=False),
