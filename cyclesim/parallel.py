@@ -429,19 +429,38 @@ def _worker_init() -> None:
 
 def _end_workers(ex) -> None:
     """Stop the pool's worker processes now (on interruption or failure of the caller)."""
+    import multiprocessing
+    import time
+
     procs = list((getattr(ex, "_processes", None) or {}).values())
     ex.shutdown(wait=False, cancel_futures=True)
-    for p in procs:
-        try:
-            if p.is_alive():
-                p.terminate()
-        except (OSError, ValueError, AttributeError):
-            pass
-    for p in procs:
-        try:
-            p.join(timeout=5)
-        except (OSError, ValueError, AttributeError, AssertionError):
-            pass
+    # the pool's manager thread may still start a worker after the shutdown: end every child
+    # process of the pool until none is left (bounded wait)
+    deadline = time.monotonic() + 10.0
+    while True:
+        later = list((getattr(ex, "_processes", None) or {}).values())
+        for p in later:
+            if p not in procs:
+                procs.append(p)
+        for p in procs:
+            try:
+                if p.is_alive():
+                    p.terminate()
+            except (OSError, ValueError, AttributeError):
+                pass
+        for p in procs:
+            try:
+                p.join(timeout=2)
+                if p.is_alive():
+                    p.kill()
+                    p.join(timeout=2)
+            except (OSError, ValueError, AttributeError, AssertionError):
+                pass
+        multiprocessing.active_children()          # reaps the ended ones
+        fresh = [p for p in (getattr(ex, "_processes", None) or {}).values() if p not in procs]
+        if (not fresh and not any(p.is_alive() for p in procs)) or time.monotonic() > deadline:
+            break
+        time.sleep(0.05)
 
 
 def _run_process(chunks: Iterable[Sequence], n: int, on_result: OnResult | None, max_pending: int,
