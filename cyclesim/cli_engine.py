@@ -18,16 +18,10 @@ __all__ = ["add_parsers", "cmd_engine", "cmd_cut_test", "HANDLERS"]
 
 
 def _simple(p: argparse.ArgumentParser) -> None:
-    p.add_argument("config", nargs="?", default="demo",
-                   help="config file, or a built-in config name (default: demo); its multi_cylinder"
-                        " section describes the engine")
-    p.add_argument("--out", type=Path, required=True, help="folder for the results")
-    p.add_argument("--force", action="store_true", help="write into a non-empty --out folder")
-    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
-                   help="override any config value (repeatable), e.g. multi_cylinder.throttle_angle_deg=30")
-    p.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
+    from .cli_studies import _simple as study_options
+
+    study_options(p)
     p.add_argument("--no-progress", action="store_true", help="no progress lines on stderr")
-    p.add_argument("--debug", action="store_true", help="show tracebacks")
 
 
 def add_parsers(subparsers) -> None:

@@ -65,7 +65,7 @@ import numpy as np
 from .config import Case, case_with, resolve_case
 from .errors import ConfigError, SolverError
 
-__all__ = ["EngineSetup", "EngineResult", "run_engine", "simulate_engines", "firing_offsets",
+__all__ = ["EngineSetup", "EngineResult", "run_engine", "simulate_engines", "firing_offsets", "cylinder_modes",
            "throttle_area", "cylinder_cases"]
 
 MODES = ("fire", "cut", "deactivated")
@@ -202,14 +202,22 @@ def _spread(ms, key: str, n: int, default: float) -> list[float]:
     return [float(v) for v in vals]
 
 
+def cylinder_modes(setup: EngineSetup) -> tuple:
+    """Per-cylinder modes of an engine: the setup's, else the config's, else all firing."""
+    ms = setup.case.multi_cylinder
+    n = int(setup.case.engine.cylinders)
+    modes = tuple(setup.modes) or (tuple(ms.cylinder_modes) if ms.cylinder_modes else ("fire",) * n)
+    if len(modes) != n or any(m not in MODES for m in modes):
+        raise ConfigError(f"cylinder modes {modes}: expected {n} of {', '.join(MODES)}")
+    return modes
+
+
 def cylinder_cases(setup: EngineSetup) -> list[Case]:
     """The per-cylinder cases of an engine (spread, modes and boundary model applied)."""
     case = setup.case
     ms = case.multi_cylinder
     n = int(case.engine.cylinders)
-    modes = tuple(setup.modes) or (tuple(ms.cylinder_modes) if ms.cylinder_modes else ("fire",) * n)
-    if len(modes) != n or any(m not in MODES for m in modes):
-        raise ConfigError(f"cylinder modes {modes}: expected {n} of {', '.join(MODES)}")
+    modes = cylinder_modes(setup)
     manifolds = setup.manifolds or ms.manifolds
     coupled = manifolds == "coupled" or setup.frozen_traces is not None
     f_m = _spread(ms, "spread_trapped_mass", n, 1.0)
@@ -276,17 +284,11 @@ class _Manifolds:
 
     def q_throttle(self, p):
         """Throttle flow into the intake manifold [kg/deg] (E,)."""
-        from .flow import orifice_mass_flow
-
-        return orifice_mass_flow(self.A_thr, self.p_amb, self.T_amb, R_AIR, GAMMA_AIR,
-                                 p, self.T_int, R_AIR, GAMMA_AIR) / self.omega
+        return self.q_throttle_rows(p, slice(None))
 
     def q_outlet(self, p):
         """Flow out of the exhaust manifold to ambient [kg/deg] (E,)."""
-        from .flow import orifice_mass_flow
-
-        return orifice_mass_flow(self.A_out, p, self.T_exh, self.R_exh, GAMMA_EXHAUST,
-                                 self.p_amb, self.T_amb, R_AIR, GAMMA_AIR) / self.omega
+        return self.q_outlet_rows(p, slice(None))
 
     def q_throttle_rows(self, p, rows):
         """Throttle flow [kg/deg] of some engines (``rows`` a slice) at pressure p."""
@@ -379,7 +381,7 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
         cases = cylinder_cases(st)
         ms = st.case.multi_cylinder
         n = len(cases)
-        modes = [c.name.rsplit("(", 1)[-1].rstrip(")") for c in cases]
+        modes = list(cylinder_modes(st))
         manifolds = "coupled" if st.frozen_traces is None and (st.manifolds or ms.manifolds) == "coupled" else (
             "frozen" if st.frozen_traces is not None else "constant")
         walls = st.walls or ms.walls
