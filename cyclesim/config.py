@@ -125,6 +125,10 @@ MULTI_SCHEMA: tuple[Param, ...] = (
     P("exhaust_manifold_volume_L", "L", 1.5, "exhaust manifold volume", 0, 100, min_exclusive=True),
     P("exhaust_outlet_diameter_mm", "mm", 30.0, "effective diameter of the exhaust system's restriction",
       0, 500, min_exclusive=True),
+    P("exhaust_branches", "-", None, "per cylinder (in number order): the exhaust branch it discharges into;"
+      " each branch is a volume of its own (its share of exhaust_manifold_volume_L by cylinder count) with"
+      " its share of the restriction, e.g. [1, 2, 2, 1] pairs cylinders 360 deg apart in a 1-3-4-2 engine;"
+      " default one common manifold", 1, 24, kind="list", sweepable=False),
     P("cylinder_modes", "-", None, "per cylinder (in number order): fire, cut (fuel and spark off, valves"
       " working) or deactivated (valves held shut); default all fire", kind="list",
       choices=("fire", "cut", "deactivated"), sweepable=False),

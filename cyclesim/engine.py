@@ -21,7 +21,10 @@ Manifolds (``multi_cylinder.manifolds``):
   isothermal, fed through a throttle from ambient air) and one exhaust
   manifold (volume ``V_e`` at the operating exhaust temperature, isothermal,
   emptied through an effective restriction to ambient), filling and emptying
-  [Heywood 1988, sec. 14.3, from memory]:
+  [Heywood 1988, sec. 14.3, from memory].  ``multi_cylinder.exhaust_branches``
+  divides the exhaust: each branch is a volume of its own, with its
+  cylinders' share of the volume and of the restriction's area, joining the
+  others only downstream of the restriction:
 
       dp_i/dt = R_i T_i / V_i (mdot_throttle(p_i) - sum_k mdot_k,in)
       dp_e/dt = R_e T_e / V_e (sum_k mdot_k,out - mdot_outlet(p_e))
@@ -91,6 +94,18 @@ def firing_offsets(firing_order: Sequence[int] | None, n: int) -> np.ndarray:
     for i, cyl in enumerate(order):
         off[cyl - 1] = 720.0 * i / n
     return off
+
+
+def exhaust_branches(ms, n: int) -> np.ndarray:
+    """Exhaust branch index (0-based) of each cylinder, in number order (all 0: one common manifold)."""
+    vals = getattr(ms, "exhaust_branches", None)
+    if not vals:
+        return np.zeros(n, dtype=int)
+    if len(vals) != n or any(float(v) != int(v) for v in vals):
+        raise ConfigError(f"multi_cylinder.exhaust_branches = {list(vals)}: expected {n} whole branch numbers"
+                          f" (one per cylinder)")
+    labels = sorted({int(v) for v in vals})
+    return np.array([labels.index(int(v)) for v in vals], dtype=int)
 
 
 def throttle_area(diameter_m: float, angle_deg: float, closed_deg: float) -> float:
@@ -181,6 +196,9 @@ class EngineResult:
                          f" exhaust manifold {e['exhaust_manifold_mean_bar']:.4f} bar mean"
                          f" ({e['exhaust_manifold_min_bar']:.3f}..{e['exhaust_manifold_max_bar']:.3f});"
                          f" settled after {e['coupled_cycles']} coupled cycles")
+        if e["manifolds"] == "coupled" and len(set(e.get("exhaust_branches", [1]))) > 1:
+            lines.append("  exhaust branches (cylinder: branch): "
+                         + ", ".join(f"{k + 1}: {b}" for k, b in enumerate(e["exhaust_branches"])))
         lines.append("  cyl  mode          net IMEP   p_max  CA50   trapped  wall T")
         lines.append("                        bar     bar   deg       mg      K")
         for c in self.cylinders:
@@ -275,19 +293,35 @@ class _Manifolds:
         self.R_int = np.array([e["R_int"] for e in e0])
         self.R_exh = np.array([e["R_exh"] for e in e0])
         self.V_i = np.array([e["ms"].intake_manifold_volume_L * 1e-3 for e in e0])
-        self.V_e = np.array([e["ms"].exhaust_manifold_volume_L * 1e-3 for e in e0])
         ms = [e["ms"] for e in e0]
         self.A_thr = np.array([m.throttle_discharge_coefficient * throttle_area(
             m.throttle_diameter_mm * 1e-3, m.throttle_angle_deg, m.throttle_closed_angle_deg) for m in ms])
-        self.A_out = np.array([0.25 * math.pi * (m.exhaust_outlet_diameter_mm * 1e-3) ** 2 for m in ms])
         self.omega = np.array([6.0 * e["speed_rpm"] for e in e0])   # deg/s
+        # exhaust: one row per branch of each engine; a branch has its cylinders' share of the
+        # manifold volume and of the restriction's area
+        rows, self.ex_rows = [], []
+        for j, e in enumerate(e0):
+            br = np.asarray(e.get("branches", (0,)), dtype=int)
+            self.ex_rows.append([])
+            for b in range(int(br.max()) + 1):
+                share = float(np.sum(br == b)) / len(br)
+                self.ex_rows[j].append(len(rows))
+                rows.append((j, share))
+        ej = np.array([r[0] for r in rows], dtype=int)
+        share = np.array([r[1] for r in rows])
+        self.V_e = np.array([e0[j]["ms"].exhaust_manifold_volume_L * 1e-3 for j in ej]) * share
+        self.A_out = np.array([0.25 * math.pi * (e0[j]["ms"].exhaust_outlet_diameter_mm * 1e-3) ** 2
+                               for j in ej]) * share
+        self.X = len(rows)
+        self.T_exh_x, self.R_exh_x = self.T_exh[ej], self.R_exh[ej]
+        self.p_amb_x, self.T_amb_x, self.omega_x = self.p_amb[ej], self.T_amb[ej], self.omega[ej]
 
     def q_throttle(self, p):
         """Throttle flow into the intake manifold [kg/deg] (E,)."""
         return self.q_throttle_rows(p, slice(None))
 
     def q_outlet(self, p):
-        """Flow out of the exhaust manifold to ambient [kg/deg] (E,)."""
+        """Flow out of each exhaust branch to ambient [kg/deg] (X,)."""
         return self.q_outlet_rows(p, slice(None))
 
     def q_throttle_rows(self, p, rows):
@@ -298,16 +332,16 @@ class _Manifolds:
                                  p, self.T_int[rows], R_AIR, GAMMA_AIR) / self.omega[rows]
 
     def q_outlet_rows(self, p, rows):
-        """Exhaust outlet flow [kg/deg] of some engines at pressure p."""
+        """Exhaust outlet flow [kg/deg] of some exhaust branches (``rows``) at pressure p."""
         from .flow import orifice_mass_flow
 
-        return orifice_mass_flow(self.A_out[rows], p, self.T_exh[rows], self.R_exh[rows], GAMMA_EXHAUST,
-                                 self.p_amb[rows], self.T_amb[rows], R_AIR, GAMMA_AIR) / self.omega[rows]
+        return orifice_mass_flow(self.A_out[rows], p, self.T_exh_x[rows], self.R_exh_x[rows], GAMMA_EXHAUST,
+                                 self.p_amb_x[rows], self.T_amb_x[rows], R_AIR, GAMMA_AIR) / self.omega_x[rows]
 
     def _lap(self, p0, f):
         """One implicit-Euler lap over 720 deg from p0; f(j, p) -> (rate, d rate/dp)."""
         p = p0.copy()
-        out = np.empty((self.E, self.n + 1))
+        out = np.empty((p.size, self.n + 1))
         out[:, 0] = p
         for j in range(self.n):
             x = p.copy()
@@ -340,9 +374,10 @@ class _Manifolds:
         return gb
 
     def solve(self, Qi, pref_i, Qe, p0_i, p0_e):
-        """Periodic manifold pressures [Pa] (E, n+1) for cylinder flows per interval [kg/deg] (E, n)."""
+        """Periodic manifold pressures [Pa]: intake (E, n+1) and exhaust branches (X, n+1), for the
+        cylinder flows per interval [kg/deg]: ``Qi`` (E, n), ``Qe`` (X, n)."""
         ki = self.R_int * self.T_int / self.V_i
-        ke = self.R_exh * self.T_exh / self.V_e
+        ke = self.R_exh_x * self.T_exh_x / self.V_e
         dp = 1.0
 
         def fi(j, p):
@@ -388,7 +423,8 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
         info.append({"setup": st, "ms": ms, "n": n, "modes": modes, "offsets": firing_offsets(ms.firing_order, n),
                      "manifolds": manifolds, "walls": walls, "speed_rpm": float(st.case.operating.speed_rpm),
                      "T_int": float(st.case.operating.intake_temperature_K),
-                     "T_exh": float(st.case.operating.exhaust_temperature_K), "cols": []})
+                     "T_exh": float(st.case.operating.exhaust_temperature_K), "cols": [],
+                     "branches": exhaust_branches(ms, n)})
         for k, c in enumerate(cases):
             info[e]["cols"].append(len(cols))
             cols.append((e, k, c))
@@ -449,16 +485,22 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
     if man is not None:
         for j, e in enumerate(coupled_e):
             st = info[e]["setup"]
+            nb = len(man.ex_rows[j])
             if st.frozen_traces is not None:
-                traces_eng[e] = (np.asarray(st.frozen_traces[0], float), np.asarray(st.frozen_traces[1], float))
+                pe = np.atleast_2d(np.asarray(st.frozen_traces[1], float))
+                traces_eng[e] = (np.asarray(st.frozen_traces[0], float), np.repeat(pe, nb, 0) if len(pe) == 1 else pe)
             elif st.start is not None and st.start.manifold_traces is not None \
-                    and len(st.start.manifold_traces[0]) == man.n + 1:
+                    and len(st.start.manifold_traces[0]) == man.n + 1 \
+                    and np.atleast_2d(st.start.manifold_traces[1]).shape[0] == nb:
                 traces_eng[e] = (np.array(st.start.manifold_traces[0], float),
-                                 np.array(st.start.manifold_traces[1], float))
+                                 np.atleast_2d(np.array(st.start.manifold_traces[1], float)))
             else:
                 op = st.case.operating
                 traces_eng[e] = (np.full(man.n + 1, op.intake_pressure_bar * 1e5),
-                                 np.full(man.n + 1, op.exhaust_pressure_bar * 1e5))
+                                 np.full((nb, man.n + 1), op.exhaust_pressure_bar * 1e5))
+            if traces_eng[e][1].shape != (nb, man.n + 1):
+                raise ConfigError(f"frozen exhaust traces: shape {traces_eng[e][1].shape}, expected"
+                                  f" ({nb}, {man.n + 1}) (branches, manifold grid)")
 
     def push_traces():
         """Give each coupled batch's boundary its columns' traces in their own frames."""
@@ -475,7 +517,7 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
                 off = info[e]["offsets"][k]
                 Pi, Pe = traces_eng[e]
                 pi[pos] = _periodic_interp(th + off, man.phi, Pi)
-                pe[pos] = _periodic_interp(th + off, man.phi, Pe)
+                pe[pos] = _periodic_interp(th + off, man.phi, Pe[info[e]["branches"][k]])
             bnd.set_traces(float(th[0]), man.h, pi, pe)
 
     set_walls()
@@ -502,7 +544,7 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
             if man is not None:
                 E = len(coupled_e)
                 Qi = np.zeros((E, man.n))
-                Qe = np.zeros((E, man.n))
+                Qe = np.zeros((man.X, man.n))
                 pref = np.zeros((E, man.n))
                 for j, e in enumerate(coupled_e):
                     Pi, _ = traces_eng[e]
@@ -514,26 +556,27 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
                         cum_i = tr.Y[I["m_int"], pos] + tr.Y[I["m_ibuf"], pos] - tr.Y[I["m_ibuf"], pos, 0]
                         cum_e = -tr.Y[I["m_exh"], pos]
                         off = info[e]["offsets"][k]
-                        for cum, Q in ((cum_i, Qi), (cum_e, Qe)):
+                        for cum, Q, row in ((cum_i, Qi, j), (cum_e, Qe, man.ex_rows[j][info[e]["branches"][k]])):
                             # cylinder mass per engine-frame interval, exactly conserved over the cycle
                             tot = cum[-1] - cum[0]
                             local = man.phi - off          # engine grid in the cylinder's frame
                             wrapped = ((local + 360.0) % 720.0) - 360.0
                             c = np.interp(wrapped, tr.theta, cum)
                             c = c + np.where(local - wrapped > 1.0, tot, 0.0) - np.where(wrapped - local > 1.0, tot, 0.0)
-                            Q[j] += np.diff(c) / man.h
+                            Q[row] += np.diff(c) / man.h
                 # cylinders of a frozen engine keep their traces
                 live = [j for j, e in enumerate(coupled_e) if info[e]["manifolds"] == "coupled"]
                 if live:
                     p0i = np.array([traces_eng[e][0][0] for e in coupled_e])
-                    p0e = np.array([traces_eng[e][1][0] for e in coupled_e])
+                    p0e = np.concatenate([traces_eng[e][1][:, 0] for e in coupled_e])
                     new_i, new_e = man.solve(Qi, pref, Qe, p0i, p0e)
                     for j in live:
                         e = coupled_e[j]
                         Pi, Pe = traces_eng[e]
-                        d = max(np.max(np.abs(new_i[j] - Pi) / Pi), np.max(np.abs(new_e[j] - Pe) / Pe))
+                        ne = new_e[man.ex_rows[j]]
+                        d = max(np.max(np.abs(new_i[j] - Pi) / Pi), np.max(np.abs(ne - Pe) / Pe))
                         change[e] = max(change[e], d)
-                        traces_eng[e] = (new_i[j].copy(), new_e[j].copy())
+                        traces_eng[e] = (new_i[j].copy(), ne.copy())
                 push_traces()
             # lumped walls from the last cycle's wall heat
             for i in lumped_T:
@@ -583,7 +626,8 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
             Pi, Pe = traces_eng[e]
             sl = slice(j, j + 1)
             q_t = float(np.sum(man.q_throttle_rows(Pi[1:], sl))) * man.h
-            q_o = float(np.sum(man.q_outlet_rows(Pe[1:], sl))) * man.h
+            q_o = sum(float(np.sum(man.q_outlet_rows(Pe[b, 1:], slice(x, x + 1)))) * man.h
+                      for b, x in enumerate(man.ex_rows[j]))
             info[e]["throttle_mg"] = q_t * 1e6
             info[e]["outlet_mg"] = q_o * 1e6
     results_per_batch = [results_from_trace(b, trs[bi], registry) for bi, b in enumerate(batches)]
@@ -681,6 +725,7 @@ def _engine_result(inf, res, man_tr, phi, walls_T, n_coupled, settled) -> Engine
     eng = {
         "cylinders": n, "firing_order": [int(x) for x in (inf["ms"].firing_order or range(1, n + 1))],
         "speed_rpm": speed, "manifolds": inf["manifolds"], "walls": inf["walls"],
+        "exhaust_branches": [int(b) + 1 for b in inf["branches"]],
         "modes": list(inf["modes"]),
         "indicated_power_kW": P_ind / 1e3, "indicated_power_gross_kW": W_gross.sum() * cps / 1e3,
         "pumping_power_kW": (W_gross - W_net).sum() * cps / 1e3,
@@ -716,9 +761,13 @@ def _engine_result(inf, res, man_tr, phi, walls_T, n_coupled, settled) -> Engine
     traces = {"crank_deg": grid, "engine_torque_Nm": torque}
     if man_tr is not None and phi is not None:
         traces["intake_manifold_bar"] = _periodic_interp(grid, phi, man_tr[0]) / 1e5
-        traces["exhaust_manifold_bar"] = _periodic_interp(grid, phi, man_tr[1]) / 1e5
-        for key, arr in (("intake", man_tr[0]), ("exhaust", man_tr[1])):
-            eng[f"{key}_manifold_mean_bar"] = float(np.mean(arr[:-1])) / 1e5
+        pe = np.atleast_2d(man_tr[1])
+        traces["exhaust_manifold_bar"] = _periodic_interp(grid, phi, pe[0]) / 1e5
+        if len(pe) > 1:
+            for b in range(len(pe)):
+                traces[f"exhaust_branch_{b + 1}_bar"] = _periodic_interp(grid, phi, pe[b]) / 1e5
+        for key, arr in (("intake", man_tr[0]), ("exhaust", pe)):
+            eng[f"{key}_manifold_mean_bar"] = float(np.mean(arr[..., :-1])) / 1e5
             eng[f"{key}_manifold_min_bar"] = float(arr.min()) / 1e5
             eng[f"{key}_manifold_max_bar"] = float(arr.max()) / 1e5
     return EngineResult(st.label or case.name, eng, cyl, traces, warnings, res, man_tr, walls_T)

@@ -188,7 +188,16 @@ def plot_engine(eng, out: Path) -> list[Path]:
         fig, (a1, a2) = plt.subplots(2, 1, figsize=(7.5, 5), sharex=True)
         a1.plot(t["crank_deg"], t["intake_manifold_bar"], color="tab:green", lw=1.2)
         a1.set_ylabel("intake manifold [bar]")
-        a2.plot(t["crank_deg"], t["exhaust_manifold_bar"], color="tab:red", lw=1.2)
+        branches = sorted(k for k in t if k.startswith("exhaust_branch_"))
+        if branches:
+            br = eng.engine.get("exhaust_branches", [])
+            for key, colour in zip(branches, ("tab:red", "tab:purple", "tab:orange", "tab:brown", "tab:pink")):
+                b = int(key.split("_")[2])
+                cyls = ", ".join(str(k + 1) for k, x in enumerate(br) if x == b)
+                a2.plot(t["crank_deg"], t[key], color=colour, lw=1.2, label=f"branch {b} (cylinders {cyls})")
+            a2.legend(fontsize=8)
+        else:
+            a2.plot(t["crank_deg"], t["exhaust_manifold_bar"], color="tab:red", lw=1.2)
         a2.set_ylabel("exhaust manifold [bar]")
         a2.set_xlabel("crank angle, engine frame [deg]")
         a1.set_title(f"{eng.label}: manifold pressures")

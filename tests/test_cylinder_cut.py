@@ -11,7 +11,8 @@ from cyclesim.cli import main
 from cyclesim.report import report_for_study
 from cyclesim.studies.cylinder_cut import cut_estimate, cylinder_cut_test
 
-TWO = ["engine.cylinders=2", "multi_cylinder.firing_order=[1, 2]", "simulation.step_deg=1.0",
+TWO = ["engine.cylinders=2", "multi_cylinder.firing_order=[1, 2]", "multi_cylinder.exhaust_branches=null",
+       "simulation.step_deg=1.0",
        "multi_cylinder.spread_trapped_mass=[1.0, 0.98]", "multi_cylinder.spread_spark_deg=[0.0, 1.0]",
        "multi_cylinder.spread_compression_ratio=null", "multi_cylinder.spread_wall_temperature_K=null"]
 
@@ -60,14 +61,24 @@ def test_pressure_dependent_friction_makes_it_read_low(early_steps):
 
 @pytest.mark.slow
 def test_every_effect_and_outputs(tmp_path):
+    # the four-cylinder demo (twin-branch exhaust) at a coarser step
     out = tmp_path / "cut"
-    rc = main(["cut-test", "demo", "--out", str(out), "--no-progress"] + sum((["--set", x] for x in TWO), []))
+    rc = main(["cut-test", "demo", "--out", str(out), "--no-progress", "--set", "simulation.step_deg=1.0"])
     assert rc == 0
     d = json.loads((out / "cylinder_cut.json").read_text())
     names = [s["step"] for s in d["steps"]]
     assert names == ["ideal", "pumping", "pressure_friction", "manifolds", "walls", "speed"]
     for s in d["steps"]:
         assert np.isfinite(s["friction_bias_kW"]) and np.isfinite(s["indicated_est_kW"])
+    # With every effect on, the test reads friction high, by some tens of percent: the cut cylinder's
+    # pumping loop and heat loss are counted as friction, and on a divided exhaust they outweigh the
+    # rest (common practice: the cylinder-cut test is known to over-estimate friction, of the order of
+    # the motored cylinder's losses, which are a fraction of the FMEP at wide-open throttle)
+    last = d["steps"][-1]
+    assert 0.05 < last["friction_bias_kW"] / last["friction_true_kW"] < 0.6
+    # with pulse-separated branches the manifold interaction is a small share of the bias
+    man = next(s for s in d["steps"] if s["step"] == "manifolds")
+    assert abs(man["friction_bias_step_kW"]) < 0.5 * last["friction_bias_kW"]
     # the re-set speed's error moves the cut readings: its step changes the bias
     assert d["steps"][-1]["friction_bias_step_kW"] != 0.0
     assert (out / "cylinder_cut_bias.png").stat().st_size > 1000

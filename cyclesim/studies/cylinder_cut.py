@@ -36,7 +36,13 @@ the change each step makes:
    friction, so the estimate reads low by that share;
 3. ``manifolds``: shared intake and exhaust manifolds (throttle, exhaust
    restriction): cutting one cylinder changes the pressures the firing ones
-   see;
+   see.  On one common exhaust volume a four-cylinder engine's blowdown
+   pulses reach the cylinder that fires before the pulsing one at the end of
+   its exhaust stroke; a cut cylinder sends none, that neighbour keeps less
+   residual gas and makes more power, and the test reads friction low.  A
+   divided exhaust (``multi_cylinder.exhaust_branches``, pairing cylinders
+   360 deg apart, as the demo does) keeps the pulses apart and this step
+   small;
 4. ``walls``: lumped wall temperatures: the cut cylinder's walls cool towards
    the motored state over the ``reading_time_s`` before the reading (wall
    time constant ``multi_cylinder.wall_time_constant_s``);
@@ -135,6 +141,15 @@ class CylinderCutResult:
         lines.append(f"  with every effect on, the test reads friction {last['friction_bias_kW']:+.3f} kW"
                      f" ({last['friction_bias_pct']:+.1f} %) off the model's mechanical friction; the split"
                      f" among the effects depends on their order.")
+        man = next((s for s in self.steps if s["step"] == "manifolds"), None)
+        if last["friction_bias_kW"] > 0:
+            lines.append("  it reads high, as the trade expects of the test: the cut cylinders' pumping and heat"
+                         " losses count as friction.")
+        elif man is not None and man["friction_bias_step_kW"] < -abs(self.steps[1]["friction_bias_step_kW"]):
+            lines.append("  it reads low: the cylinders' interaction through the manifolds outweighs the cut"
+                         " cylinders' pumping loss (on a common exhaust volume, say, a cut cylinder's missing"
+                         " blowdown pulse lowers the residual gas of the cylinder firing before it;"
+                         " multi_cylinder.exhaust_branches divides the exhaust).")
         lines.append("  per cylinder (last step): " + ", ".join(
             f"{c['cylinder']}: {c['estimate_kW']:.2f}/{c['truth_kW']:.2f} kW" for c in self.cylinders))
         lines.append("  " + CAUTION)
