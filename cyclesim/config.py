@@ -91,7 +91,7 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
     "simulation": (
         P("mode", "-", "full", "full 720 deg cycle to periodic steady state, or closed cycle IVC..EVO",
           kind="choice", choices=("full", "closed"), sweepable=False),
-        P("step_deg", "deg", 0.5, "integration step (fixed-step 4th-order Runge-Kutta)", 0.01, 5, sweepable=False),
+        P("step_deg", "deg", 0.5, "integration step (fixed-step 3rd-order Runge-Kutta, Kutta's scheme)", 0.01, 5, sweepable=False),
         P("step_reference_rpm", "rpm", 3000.0,
           "full mode: below this speed the step shrinks as speed^1.5 (in powers of 2),"
           " because valve flow near equal pressures is stiffer at low speed; 0 = fixed step",

@@ -35,7 +35,13 @@ absolute (formation enthalpy included), so the first law needs no separate
 heat-release term: turning fresh charge into burned gas at constant
 temperature lowers the internal energy by the heat of reaction.
 
-Integration is classical 4th-order Runge-Kutta on a fixed crank-angle grid.
+Integration is Kutta's third-order Runge-Kutta on a fixed crank-angle grid
+(three stages: the step's start, middle and end).  It replaced the classical
+fourth-order scheme: the trace's kinks (valve events, choking, flow
+reversal) keep both at about second order in the step, and on the demo and
+three other operating points the three-stage scheme is as accurate or more
+against a tenfold finer step, for three right-hand sides a step instead of
+four.
 The grid depends only on the case's own settings, never on its batch-mates,
 so one case gives the same figures alone and inside any batch.  Per-case
 switches (valve events, combustion phase) are masks.
@@ -633,6 +639,7 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     Yfinal = np.empty_like(Y)
     Ffinal = np.empty_like(F)
     cycles_run = np.zeros(B, dtype=int)
+    ivc_final = {"p": np.full(B, np.nan), "T": np.full(B, np.nan), "V": np.full(B, np.nan)}
     converged = np.zeros(B, dtype=bool)
     done = np.zeros(B, dtype=bool)
     history = []
@@ -661,11 +668,12 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
                 k1 = rhs(th, y, geo_pts[2 * i], open_at[2 * i])
                 Y[:, :, i] = y
                 F[:, :, i] = k1
+                # Kutta's third-order method (Butcher 2008, sec. 23, the classical three-stage
+                # scheme): stages at the step's start, middle and end, like the grid's points
                 k2 = rhs(tm, y + hh * k1, gm, om)
-                k3 = rhs(tm, y + hh * k2, gm, om)
                 tn = th_pts[2 * i + 2]
-                k4 = rhs(tn, y + h * k3, geo_pts[2 * i + 2], open_at[2 * i + 2])
-                y = y + (h / 6.0) * (k1 + 2.0 * (k2 + k3) + k4)
+                k3 = rhs(tn, y + h * (2.0 * k2 - k1), geo_pts[2 * i + 2], open_at[2 * i + 2])
+                y = y + (h / 6.0) * (k1 + 4.0 * k2 + k3)
                 y0, y1 = y[0], y[1]
                 ok = (y0 > 0.0) & (y0 < math.inf) & (y1 > 50.0) & (y1 < 8000.0)  # NaN fails all
                 if not ok.all():
@@ -720,6 +728,10 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
             if newly.any():
                 Yfinal[:, newly] = Y[:, newly]
                 Ffinal[:, newly] = F[:, newly]
+                # the IVC state of the reported cycle (a case done early keeps its own, not that
+                # of the cycles its batch-mates still run)
+                for key, arr in (("p", rhs.p_ivc), ("T", rhs.T_ivc), ("V", rhs.V_ivc)):
+                    ivc_final[key] = np.where(newly, arr, ivc_final[key])
                 cycles_run[newly] = cyc
                 if cycles is not None:
                     converged[newly] = rhs.alive[newly]
@@ -732,7 +744,7 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
             # the next cycle starts from this one's end state (residual gas carried over)
     trace = CycleTrace(theta, Yfinal, Ffinal, rhs.names, cycles_run, converged, history, rhs.failed)
     trace.end_state = Yfinal[:, :, -1].copy()
-    trace.ivc_state = {"p": rhs.p_ivc, "T": rhs.T_ivc, "V": rhs.V_ivc}
+    trace.ivc_state = ivc_final if mode == "full" else {"p": rhs.p_ivc, "T": rhs.T_ivc, "V": rhs.V_ivc}
     return trace
 
 

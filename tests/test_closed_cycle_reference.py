@@ -168,7 +168,7 @@ def test_short_burn_between_grid_points_cannot_release_more_than_the_fuel():
     s = res.summary
     assert s["heat_release_J"] <= s["fuel_energy_J"] * (1.0 + 1e-6)
     # the burn progress itself is a quadrature of the burn rate: over a 10-step burn its
-    # RK4 error is of order 1e-4, so it may pass 1 by that much without any charge burning twice
+    # the fixed-step error is of order 1e-4, so it may pass 1 by that much without any charge burning twice
     assert res.trace["mfb"].max() <= 1.0 + 2e-4
 
 

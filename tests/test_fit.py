@@ -50,7 +50,7 @@ def _reference_trace(theta):
     (Wiebe 1970; Heywood 1988 ch. 9): y_b = x_r + (1 - x_r) x_b(theta).  Burning then
     needs no heat-release term: the energy appears as the formation-enthalpy
     difference.  Integrated with scipy's DOP853 at rtol 1e-10 (a method and code path
-    independent of cyclesim's fixed-step RK4 and its tabulated properties).
+    independent of cyclesim's fixed-step Runge-Kutta and its tabulated properties).
     """
     from scipy.integrate import solve_ivp
 
@@ -107,7 +107,7 @@ def test_recovers_burn_parameters_of_an_independent_reference_model():
     res = fit(case, ts, ["burn.ignition_delay_deg", "burn.duration_deg", "burn.m"], peg=None)
     assert res.converged
     # Tolerances: both models share the GRI-Mech 3.0 data, so the remaining differences are
-    # cyclesim's fixed 1-deg RK4 step (0.5 deg vs 1 deg changes its pressure by ~3e-4 bar,
+    # cyclesim's fixed 1-deg Runge-Kutta step (0.5 deg vs 1 deg changes its pressure by ~3e-4 bar,
     # measured), its tabulated burned-gas properties and the Hermite output interpolation;
     # together they leave a residual RMS of ~2e-3 bar (4e-5 of the peak pressure, measured).
     # A smooth pressure error of that size moves the Wiebe start by ~1e-3 deg and the

@@ -204,7 +204,7 @@ def test_inducted_mass_equals_exhausted_plus_blowby(wot_and_part_load, which, na
 
 # Written every 0.1 deg, the intake-flow column between the solver's points is the derivative
 # of the Hermite interpolant of the integrated intake mass, so it integrates to inducted_mass_mg
-# (at the solver's own points alone it would miss the overlap flow the RK4 stages see).
+# (at the solver's own points alone it would miss the overlap flow the Runge-Kutta stages see).
 @pytest.mark.parametrize("which, name", [(0, "demo"), (1, "demo_part_load")])
 def test_intake_flow_column_integrates_to_inducted_mass(wot_and_part_load, which, name):
     res = wot_and_part_load[which]

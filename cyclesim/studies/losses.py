@@ -270,8 +270,10 @@ def _closed_case(case: Case, on: set, ivc_state: dict, step_deg: float) -> Case:
         if "combustion_efficiency" in burn:
             burn["combustion_efficiency"] = eta_c if "combustion" in on else 1.0
     else:
-        # burn within 1 deg centred on TDC: the instant burn of the Otto cycle
-        burn = {"model": "wiebe", "spark_advance_deg": 0.5, "ignition_delay_deg": 0.0, "duration_deg": 1.0,
+        # burn within 1 deg centred on TDC (at least ten steps, so the integration resolves it):
+        # the instant burn of the Otto cycle
+        d = max(1.0, 10.0 * float(step_deg))
+        burn = {"model": "wiebe", "spark_advance_deg": 0.5 * d, "ignition_delay_deg": 0.0, "duration_deg": d,
                 "a": 5.0, "m": 2.0, "combustion_efficiency": eta_c if "combustion" in on else 1.0}
     sections = {
         "burn": burn,
