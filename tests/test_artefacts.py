@@ -247,3 +247,128 @@ def test_bad_grid_and_shapes_raise():
     with pytest.raises(CyclesimError):
         apply_artefacts(P, TH, N, NONE.replace(knock_amplitude_bar_per_intensity=1.0),
                         knock_onset_deg=[1, 2, 3], knock_intensity=[1, 1, 1])      # no T, no bore
+
+
+# ---------------------------------------------------------------------- fast paths against the direct computation
+@pytest.fixture
+def small_blocks(monkeypatch):
+    """One cycle per block, so every block boundary of the stream is exercised."""
+    from cyclesim.traces import artefacts
+
+    monkeypatch.setattr(artefacts, "_BLOCK_SAMPLES", 1)
+
+
+def joined(P):
+    """Cycles end to end; a row's last sample (360 deg) is the next row's first."""
+    return np.concatenate([P[:, :-1].ravel(), P[-1, -1:]])
+
+
+def rows_of(stream, n):
+    m = n - 1
+    return stream[np.arange((stream.size - 1) // m)[:, None] * m + np.arange(n)[None, :]]
+
+
+@pytest.mark.parametrize("step_deg, closed", [(0.2, True), (0.5, True), (1.0, False), (0.4, True)])
+def test_decimation_equals_filtfilt(step_deg, closed, small_blocks):
+    # reference: scipy.signal.filtfilt of the Kaiser FIR over the joined cycles, odd padding of
+    # 3 filter lengths, then every q-th sample (the filter design stated in decimate_to)
+    from scipy import signal
+
+    rng = np.random.default_rng(21)
+    th = TH if closed else TH[:-1]
+    X = 1e5 * (30 + np.cumsum(rng.standard_normal((5, th.size)), axis=1) / 50)
+    th_out, y = decimate_to(th, X, step_deg=step_deg)
+    q = int(round(step_deg / 0.1))
+    numtaps, beta = signal.kaiserord(80.0, 0.2 / q)
+    h = signal.firwin(numtaps | 1, 0.9 / q, window=("kaiser", beta))
+    s = joined(X) if closed else X.ravel()
+    ref = signal.filtfilt(h, [1.0], s, padtype="odd", padlen=3 * h.size)[::q]
+    ref = rows_of(ref, th_out.size) if closed else ref.reshape(5, -1)
+    assert np.array_equal(th_out, th[::q])
+    assert np.max(np.abs(y - ref)) <= 1e-9 * np.max(np.abs(ref))     # rounding only
+
+
+def test_decimation_of_a_record_shorter_than_the_filter():
+    # 10 deg grid, factor 2: 73 samples against a 103-tap filter; reference scipy.signal.filtfilt
+    # with the padding cut to the record length
+    from scipy import signal
+
+    th = np.linspace(-360.0, 360.0, 73)
+    x = np.sin(np.deg2rad(th)) + 0.1 * np.random.default_rng(2).standard_normal(th.size)
+    _, y = decimate_to(th, x, step_deg=20.0)
+    numtaps, beta = signal.kaiserord(80.0, 0.1)
+    h = signal.firwin(numtaps | 1, 0.45, window=("kaiser", beta))
+    assert h.size > th.size
+    ref = signal.filtfilt(h, [1.0], x, padtype="odd", padlen=th.size - 1)[::2]
+    assert np.max(np.abs(y - ref)) <= 1e-9 * np.max(np.abs(ref))
+
+
+def test_stream_resampling_equals_the_not_a_knot_cubic_spline(small_blocks):
+    # reference: scipy.interpolate.CubicSpline (not-a-knot ends, extrapolating the end pieces)
+    # through the whole joined record, evaluated at the shifted positions.  The fast path uses
+    # two first-order recursions and local end splines: equal to rounding, on rough data too.
+    from scipy.interpolate import CubicSpline
+
+    from cyclesim.traces.artefacts import _resample_stream
+
+    rng = np.random.default_rng(5)
+    nc, m = 4, 300
+    for src in (np.cumsum(rng.standard_normal(nc * m + 1)), exact(np.linspace(-360, 360 * 7, nc * m + 1))):
+        shift = -6.3 + 0.7 * rng.standard_normal(src.size)
+        shift[-3:] = 4.2                                            # beyond the last sample
+        out = np.empty((nc, m + 1))
+        _resample_stream(src, lambda k0, k1, a, b: shift[a:b], out, m, True)
+        j = np.arange(src.size, dtype=float)
+        ref = CubicSpline(j, src)(j + shift)
+        assert np.max(np.abs(joined(out) - ref)) <= 1e-11 * np.max(np.abs(src))
+
+
+def test_chain_equals_a_direct_computation_over_the_joined_cycles(small_blocks):
+    """Steps 2-8 written straight from their definitions over the whole joined record.
+
+    The reference runs each filter once over the joined stream (scipy.signal sosfilt and
+    lfilter, bilinear transform pre-warped at fn), scipy.interpolate.CubicSpline through the
+    whole record for the angle labelling, and draws the random numbers in the documented
+    order (jitter, offsets, noise).  The block-wise chain must give the same signal and truth.
+    """
+    from scipy import signal
+    from scipy.interpolate import CubicSpline
+
+    nc = 4
+    P, _ = smooth_cycles(nc)
+    P = P * (1 + 0.02 * np.random.default_rng(3).standard_normal((nc, 1)))
+    q = np.where((TH > -20) & (TH < 90), 40e3, 2e3)[None, :] * np.linspace(1, 1.3, nc)[:, None]
+    s = ArtefactSettings.default().replace(passage_frequency_hz=25e3, adc_bits=0, clip_min_bar=None,
+                                           clip_max_bar=None, highpass_tau_s=0.02, encoder_jitter_deg=0.03)
+    meas, _, truth = apply_artefacts(P, TH, N, s, np.random.default_rng(17), wall_heat_rate=q)
+
+    rng = np.random.default_rng(17)
+    dt = 1 / FS
+    x = joined(P)
+    wn_w = 2 * FS * np.tan(np.pi * s.passage_frequency_hz / FS)
+    zeta = s.passage_damping
+    sos = signal.zpk2sos(*signal.bilinear_zpk([], np.roots([1, 2 * zeta * wn_w, wn_w**2]), wn_w**2, FS))
+    x = signal.sosfilt(sos, x, zi=signal.sosfilt_zi(sos) * x[0])[0]
+    therm = -s.thermal_drift_bar_per_kW * 1e5 * joined(q) / 1000.0
+    a = np.exp(-dt / s.thermal_time_constant_s)
+    therm = signal.lfilter([1 - a], [1, -a], therm, zi=[a * therm[0]])[0]
+    x = (x + therm) * (1 + s.gain_error)
+    a = s.highpass_tau_s / (s.highpass_tau_s + dt)
+    y = signal.lfilter([a], [1, -a], np.diff(x, prepend=x[0]), zi=[a * x[0]])[0]
+    hp_err, x = y - x, y
+    alpha = joined(TH[None, :] + 720.0 * np.arange(nc)[:, None])
+    jit = s.encoder_jitter_deg * rng.standard_normal(alpha.size)
+    x = CubicSpline(alpha, x)(alpha - s.tdc_offset_deg + jit)
+    off = s.offset_mean_bar + s.offset_sd_bar * rng.standard_normal(nc) + s.offset_drift_bar_per_cycle * np.arange(nc)
+    nz = s.noise_bar * 1e5 * rng.standard_normal((nc, TH.size))
+    ref = rows_of(x, TH.size) + off[:, None] * 1e5 + nz
+
+    assert np.max(np.abs(meas - ref)) <= 1e-9 * np.max(np.abs(ref))
+    th_rows, hp_rows, jit_rows = rows_of(therm, TH.size), rows_of(hp_err, TH.size), rows_of(jit, TH.size)
+    assert np.allclose(truth["thermal_error_min_bar"], th_rows.min(axis=1) / 1e5, rtol=1e-12, atol=0)
+    assert np.allclose(truth["thermal_error_mean_bar"], th_rows.mean(axis=1) / 1e5, rtol=1e-12, atol=0)
+    assert np.allclose(truth["highpass_error_mean_bar"], hp_rows.mean(axis=1) / 1e5, rtol=1e-12, atol=0)
+    assert np.allclose(truth["highpass_error_start_bar"], hp_rows[:, 0] / 1e5, rtol=1e-12, atol=0)
+    assert np.allclose(truth["encoder_jitter_rms_deg"], np.sqrt(np.mean(jit_rows**2, axis=1)), rtol=1e-12, atol=0)
+    assert np.allclose(truth["offset_bar"], off, rtol=1e-15, atol=0)
+    assert np.allclose(truth["noise_rms_bar"], np.sqrt(np.mean(nz**2, axis=1)) / 1e5, rtol=1e-12, atol=0)

@@ -203,7 +203,12 @@ def _to_stream(P: np.ndarray, closed: bool) -> np.ndarray:
     """Join cycles end to end; with both ends present a row's last sample is the next row's first."""
     if not closed:
         return P.reshape(-1).copy()
-    return np.concatenate([P[:, :-1].reshape(-1), P[-1:, -1]])
+    nc, n = P.shape
+    m = n - 1
+    s = np.empty(nc * m + 1)
+    s[:-1].reshape(nc, m)[...] = P[:, :-1]
+    s[-1] = P[-1, -1]
+    return s
 
 
 def _from_stream(s: np.ndarray, shape: tuple, closed: bool) -> np.ndarray:
@@ -211,8 +216,10 @@ def _from_stream(s: np.ndarray, shape: tuple, closed: bool) -> np.ndarray:
     if not closed:
         return s.reshape(n_cycles, n).copy()
     m = n - 1
-    idx = np.arange(n_cycles)[:, None] * m + np.arange(n)[None, :]
-    return s[idx]
+    out = np.empty(shape)
+    out[:, :m] = s[:n_cycles * m].reshape(n_cycles, m)
+    out[:, m] = s[m::m][:n_cycles]
+    return out
 
 
 def _stream_angle(theta, n_cycles, closed) -> np.ndarray:
@@ -222,18 +229,212 @@ def _stream_angle(theta, n_cycles, closed) -> np.ndarray:
 
 
 def _as_2d(x, shape, name) -> np.ndarray:
+    """``x`` as a read-only (n_cycles, n) float array (a broadcast view where possible)."""
     a = np.asarray(x, dtype=float)
     if a.ndim == 1 and a.shape[0] == shape[0] and shape[0] != shape[1]:
         a = a[:, None]
     try:
-        return np.broadcast_to(a, shape).astype(float)
+        return np.broadcast_to(a, shape)
     except ValueError:
         raise CyclesimError(f"{name}: shape {a.shape} does not fit the pressure array {shape}") from None
 
 
+# --------------------------------------------------------------------------- the joined stream in blocks
+# The time-domain steps run over the cycles joined end to end (the stream).  They are
+# evaluated in blocks of whole cycles, reading from and writing to the (n_cycles, n)
+# arrays directly, so no step needs a full-length copy of the record in between; the
+# recursive filters carry their state from block to block (the same arithmetic as one
+# pass over the whole stream).  For a grid with both ends, stream sample k m (m samples
+# per cycle) is row k's first sample and row k-1's last.
+
+#: Stream samples per block (rounded to whole cycles): the working arrays stay in cache.
+_BLOCK_SAMPLES = 1 << 16
+
+
+def _stream_length(shape, m) -> int:
+    return shape[0] * m + (shape[1] - m)
+
+
+def _cycle_blocks(nc: int, m: int, closed: bool, per_block: int):
+    """Blocks ``(k0, k1, a, b)``: cycles k0..k1-1, holding stream samples a..b-1 of period ``m``."""
+    g = max(1, per_block)
+    for k0 in range(0, nc, g):
+        k1 = min(nc, k0 + g)
+        yield k0, k1, k0 * m, k1 * m + (1 if closed and k1 == nc else 0)
+
+
+def _stream_read(X: np.ndarray, m: int, a: int, b: int) -> np.ndarray:
+    """Samples a..b-1 (0 <= a <= b <= length) of the stream of rows ``X`` with period ``m``."""
+    nc, n = X.shape
+    out = np.empty(b - a)
+    j = a
+    while j < b:
+        r = min(j // m, nc - 1)
+        c = j - r * m
+        take = min(b - j, (n if r == nc - 1 else m) - c)
+        out[j - a:j - a + take] = X[r, c:c + take]
+        j += take
+    return out
+
+
+def _stream_window(X: np.ndarray, m: int, a: int, b: int) -> np.ndarray:
+    """Stream samples a..b-1, continued beyond its ends by odd reflection about the end samples.
+
+    The continuation is the one of ``scipy.signal.filtfilt(padtype="odd")``:
+    s[-j] -> 2 s[0] - s[j] and s[L-1+j] -> 2 s[L-1] - s[L-1-j] (L = stream length, j <= L-1).
+    """
+    S = _stream_length(X.shape, m)
+    out = np.empty(b - a)
+    lo, hi = max(a, 0), min(b, S)
+    out[lo - a:hi - a] = _stream_read(X, m, lo, hi)
+    if a < 0:
+        out[:-a] = 2.0 * X[0, 0] - _stream_read(X, m, 1, 1 - a)[::-1]
+    if b > S:
+        out[S - a:] = 2.0 * X[-1, -1] - _stream_read(X, m, 2 * S - 1 - b, S - 1)[::-1]
+    return out
+
+
+def _stream_write(Y: np.ndarray, m: int, a: int, v: np.ndarray) -> None:
+    """Write stream samples a..a+len(v)-1 into rows ``Y`` with period ``m`` (both copies of a shared sample)."""
+    nc, n = Y.shape
+    b = a + v.size
+    j = a
+    while j < b:
+        r = min(j // m, nc - 1)
+        c = j - r * m
+        take = min(b - j, (n if r == nc - 1 else m) - c)
+        Y[r, c:c + take] = v[j - a:j - a + take]
+        j += take
+    if n > m:
+        # sample k m is also the last one of row k-1 (k = 1..nc-1)
+        k0, k1 = max(1, -(-a // m)), min(nc - 1, (b - 1) // m)
+        if k1 >= k0:
+            Y[k0 - 1:k1, m] = v[k0 * m - a:k1 * m - a + 1:m]
+
+
+class _RowStats:
+    """Per-cycle minimum, mean and first value of a stream quantity computed block by block.
+
+    A cycle's row holds stream samples k m .. k m + n - 1: with both grid ends that
+    includes the first sample of the next cycle, which arrives with the next block.
+    """
+
+    def __init__(self, nc: int, m: int, n: int):
+        self.m, self.n = m, n
+        self.lo = np.zeros(nc)
+        self.sum = np.zeros(nc)
+        self.first = np.zeros(nc + 1)
+
+    def add(self, k0: int, k1: int, v: np.ndarray, squares: bool = False) -> None:
+        m = self.m
+        rows = v[:(k1 - k0) * m].reshape(k1 - k0, m)
+        self.first[k0:k1] = rows[:, 0]
+        if v.size > (k1 - k0) * m:
+            self.first[k1] = v[-1]
+        if squares:
+            self.sum[k0:k1] = np.sum(rows * rows, axis=1)
+        else:
+            self.lo[k0:k1] = rows.min(axis=1)
+            self.sum[k0:k1] = rows.sum(axis=1)
+
+    def minimum(self) -> np.ndarray:
+        return np.minimum(self.lo, self.first[1:]) if self.n > self.m else self.lo
+
+    def mean(self, squares: bool = False) -> np.ndarray:
+        if self.n == self.m:
+            return self.sum / self.n
+        last = self.first[1:] * self.first[1:] if squares else self.first[1:]
+        return (self.sum + last) / self.n
+
+
+# --------------------------------------------------------------------------- cubic spline on a uniform grid
+#: Pole of the cubic-spline recursion, z^-1 + 4 + z = -(1 - p z^-1)(1 - p z) / p.
+_SPLINE_POLE = np.sqrt(3.0) - 2.0
+#: Samples within which an end condition is felt: |p|^48 = 3e-28 (far below rounding).
+_SPLINE_REACH = 48
+
+
+def _spline_slopes(y: np.ndarray) -> np.ndarray:
+    """Slopes [per sample] of the interpolating cubic spline through ``y`` on a uniform grid.
+
+    A C2 cubic spline through y_i at unit spacing has slopes s_i with
+    s_{i-1} + 4 s_i + s_{i+1} = 3 (y_{i+1} - y_{i-1}) at every inner sample.  The
+    tridiagonal operator factorises into a causal and an anticausal first-order
+    recursion with the pole p = sqrt(3) - 2 (the cubic B-spline prefilter, Unser,
+    Aldroubi & Eden 1991), so the slopes follow from two passes of a first-order
+    recursive filter.  The result satisfies the inner equations exactly; the end
+    conditions are not imposed, so slopes within ``_SPLINE_REACH`` samples of either
+    end are only valid where the caller replaces them (their error decays as |p|^k).
+    """
+    from scipy import signal
+
+    p = _SPLINE_POLE
+    r = np.empty(y.size)
+    np.subtract(y[2:], y[:-2], out=r[1:-1])
+    r[1:-1] *= 3.0
+    r[0], r[-1] = r[1], r[-2]
+    c = signal.lfilter([1.0], [1.0, -p], r)
+    return signal.lfilter([-p], [1.0, -p], c[::-1])[::-1]
+
+
+def _end_slopes(y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Slopes [per sample] of the not-a-knot spline through ``y`` at its first and last ``_SPLINE_REACH`` samples.
+
+    Each from ``scipy.interpolate.CubicSpline`` over the first (last) 2 ``_SPLINE_REACH``
+    samples: the other end of that short spline changes them by less than |p|^48.
+    """
+    from scipy.interpolate import CubicSpline
+
+    k = _SPLINE_REACH
+    x = np.arange(2.0 * k)
+    return CubicSpline(x, y[:2 * k])(x[:k], 1), CubicSpline(x, y[-2 * k:])(x[k:], 1)
+
+
+def _spline_at(y: np.ndarray, s: np.ndarray, i: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """Cubic on interval i (samples i, i+1; slopes per sample s) at local coordinate t."""
+    y0 = y[i]
+    s0 = s[i]
+    s1 = s[i + 1]
+    dy = y[i + 1] - y0
+    c2 = 3.0 * dy - 2.0 * s0 - s1
+    c3 = s0 + s1 - 2.0 * dy
+    return y0 + t * (s0 + t * (c2 + t * c3))
+
+
+def _resample_stream(src: np.ndarray, shift_at, dst: np.ndarray, m: int, closed: bool) -> None:
+    """Not-a-knot cubic spline through the stream ``src`` (uniform, unit spacing) at sample j + shift_j.
+
+    Equals ``CubicSpline(arange(L), src)(arange(L) + shift)`` to rounding (beyond the ends it
+    extrapolates the end intervals as that does), evaluated in blocks of whole cycles.
+    ``shift_at(k0, k1, a, b)`` returns the shifts [samples] of stream samples a..b-1 (cycles
+    k0..k1-1; called once per block, in order); the result is written into the rows ``dst``.
+    """
+    S = src.size
+    K = _SPLINE_REACH
+    head, tail = _end_slopes(src)
+    nc = dst.shape[0]
+    for k0, k1, a, b in _cycle_blocks(nc, m, closed, _BLOCK_SAMPLES // m):
+        d = shift_at(k0, k1, a, b)
+        fl = np.floor(d)
+        lo_k, hi_k = int(fl.min()), int(fl.max())
+        w0 = max(0, a + lo_k - K)
+        w1 = min(S, b + hi_k + 2 + K)
+        y = src[w0:w1]
+        s = _spline_slopes(y)
+        if w0 == 0:
+            s[:K] = head
+        if w1 == S:
+            s[-K:] = tail
+        j = np.arange(a, b)
+        i = j + fl.astype(np.intp)
+        np.clip(i, 0, S - 2, out=i)
+        t = d - (i - j)
+        _stream_write(dst, m, a, _spline_at(y, s, i - w0, t))
+
+
 # --------------------------------------------------------------------------- filters
-def _second_order_lowpass(x, fs, fn, zeta):
-    """H(s) = wn^2 / (s^2 + 2 zeta wn s + wn^2), bilinear transform pre-warped at fn."""
+def _passage_sos(fs, fn, zeta):
+    """H(s) = wn^2 / (s^2 + 2 zeta wn s + wn^2), bilinear transform pre-warped at fn (second-order sections)."""
     from scipy import signal
 
     if fn >= 0.5 * fs:
@@ -244,96 +445,134 @@ def _second_order_lowpass(x, fs, fn, zeta):
     # pre-warp wn so that the digital filter's natural frequency is exactly fn
     wn_w = 2 * fs * np.tan(wn / (2 * fs))
     z, p, k = signal.bilinear_zpk([], np.roots([1, 2 * zeta * wn_w, wn_w * wn_w]), wn_w * wn_w, fs)
-    sos = signal.zpk2sos(z, p, k)
-    zi = signal.sosfilt_zi(sos) * x[0]
-    y, _ = signal.sosfilt(sos, x, zi=zi)
-    return y
-
-
-def _first_order_lowpass(x, dt, tau):
-    from scipy import signal
-
-    a = np.exp(-dt / tau)
-    b = [1 - a]
-    den = [1, -a]
-    zi = signal.lfilter_zi(b, den) * x[0]
-    y, _ = signal.lfilter(b, den, x, zi=zi)
-    return y
-
-
-def _first_order_highpass(x, dt, tau):
-    """y' = x' - y / tau, discretised y[k] = a (y[k-1] + x[k] - x[k-1]); y[0] = x[0].
-
-    The amplifier is set to 'operate' at the first sample, so the output starts
-    equal to the input and then loses its mean with time constant ``tau``.
-    """
-    from scipy import signal
-
-    a = tau / (tau + dt)
-    dx = np.diff(x, prepend=x[0])
-    y, _ = signal.lfilter([a], [1, -a], dx, zi=np.array([a * x[0]]))
-    return y
+    return signal.zpk2sos(z, p, k)
 
 
 # --------------------------------------------------------------------------- the chain
 def _time_and_angle_chain(sig, theta, closed, shape, dt, fs, s, rng, truth, T, wall_heat_rate):
-    """Steps 2-6 on the cycles joined end to end; fills ``truth``; returns rows (n_cycles, n)."""
-    nc = shape[0]
-    stream = _to_stream(sig, closed)
+    """Steps 2-6 on the cycles joined end to end; fills ``truth``; returns rows (n_cycles, n).
 
-    # 2. passage resonance -------------------------------------------------
-    if s.passage_frequency_hz:
-        stream = _second_order_lowpass(stream, fs, s.passage_frequency_hz, s.passage_damping)
+    The steps, each over the whole stream:
+
+    * passage resonance: second-order low-pass (``_passage_sos``), initial state the
+      steady state of the first sample;
+    * thermal drift: first-order low-pass y[k] = a y[k-1] + (1 - a) x[k], a = exp(-dt / tau),
+      initial state the steady state of the first sample;
+    * charge amplifier: first-order high-pass y' = x' - y / tau, discretised
+      y[k] = a (y[k-1] + x[k] - x[k-1]), a = tau / (tau + dt), y[0] = x[0]: the amplifier is
+      set to 'operate' at the first sample, so the output starts equal to the input and then
+      loses its mean with time constant ``tau``;
+    * angle labelling: the not-a-knot cubic spline through the stream, evaluated at the true
+      angle of each labelled sample.
+    """
+    from scipy import signal
+
+    nc, n = shape
+    m = n - 1 if closed else n
+    S = _stream_length(shape, m)
+    per_block = _BLOCK_SAMPLES // m
+
+    sos = _passage_sos(fs, s.passage_frequency_hz, s.passage_damping) if s.passage_frequency_hz else None
     truth["passage_frequency_hz"] = float(s.passage_frequency_hz)
     truth["passage_damping"] = float(s.passage_damping) if s.passage_frequency_hz else 0.0
 
-    # 3. thermal drift -----------------------------------------------------
-    therm = np.zeros_like(stream)
+    therm_src, by_heat_rate = None, False
     if wall_heat_rate is not None and s.thermal_drift_bar_per_kW:
-        q = _to_stream(_as_2d(wall_heat_rate, shape, "wall_heat_rate"), closed)
-        therm = -s.thermal_drift_bar_per_kW * BAR * q / 1000.0
+        therm_src, by_heat_rate = _as_2d(wall_heat_rate, shape, "wall_heat_rate"), True
     elif T is not None and s.thermal_drift_bar_per_K:
-        Tq = _to_stream(_as_2d(T, shape, "T"), closed)
-        therm = -s.thermal_drift_bar_per_K * BAR * (Tq - s.thermal_wall_temperature_K)
-    if np.any(therm) and s.thermal_time_constant_s:
-        therm = _first_order_lowpass(therm, dt, s.thermal_time_constant_s)
-    stream = stream + therm
-    th_rows = _from_stream(therm, shape, closed)
-    truth["thermal_error_min_bar"] = th_rows.min(axis=1) / BAR
-    truth["thermal_error_mean_bar"] = th_rows.mean(axis=1) / BAR
+        therm_src = _as_2d(T, shape, "T")
+    a_th = np.exp(-dt / s.thermal_time_constant_s) if s.thermal_time_constant_s else None
+    gain = 1.0 + s.gain_error
+    a_hp = s.highpass_tau_s / (s.highpass_tau_s + dt) if s.highpass_tau_s else None
+    angle = bool(s.tdc_offset_deg or s.encoder_jitter_deg)
 
-    # 4. gain ----------------------------------------------------------------
-    stream = stream * (1.0 + s.gain_error)
+    meas = np.empty(shape)
+    stream = np.empty(S) if angle else None
+    th_stats = _RowStats(nc, m, n)
+    hp_stats = _RowStats(nc, m, n)
+    z_pass = z_th = z_hp = None
+    x_prev = 0.0
+    for k0, k1, a, b in _cycle_blocks(nc, m, closed, per_block):
+        x = _stream_read(sig, m, a, b)
+        # 2. passage resonance
+        if sos is not None:
+            if z_pass is None:
+                z_pass = signal.sosfilt_zi(sos) * x[0]
+            x, z_pass = signal.sosfilt(sos, x, zi=z_pass)
+        # 3. thermal drift
+        if therm_src is not None:
+            q = _stream_read(therm_src, m, a, b)
+            if by_heat_rate:
+                th = -s.thermal_drift_bar_per_kW * BAR * q / 1000.0
+            else:
+                th = -s.thermal_drift_bar_per_K * BAR * (q - s.thermal_wall_temperature_K)
+            if a_th is not None:
+                if z_th is None:
+                    z_th = signal.lfilter_zi([1 - a_th], [1, -a_th]) * th[0]
+                th, z_th = signal.lfilter([1 - a_th], [1, -a_th], th, zi=z_th)
+            x = x + th
+            th_stats.add(k0, k1, th)
+        # 4. gain
+        x = x * gain
+        # 5. charge-amplifier high-pass
+        if a_hp is not None:
+            dx = np.empty_like(x)
+            np.subtract(x[1:], x[:-1], out=dx[1:])
+            if z_hp is None:
+                dx[0] = 0.0
+                z_hp = np.array([a_hp * x[0]])
+            else:
+                dx[0] = x[0] - x_prev
+            x_prev = x[-1]
+            y, z_hp = signal.lfilter([a_hp], [1, -a_hp], dx, zi=z_hp)
+            hp_stats.add(k0, k1, y - x)
+            x = y
+        if angle:
+            stream[a:b] = x
+        else:
+            _stream_write(meas, m, a, x)
+    truth["thermal_error_min_bar"] = th_stats.minimum() / BAR
+    truth["thermal_error_mean_bar"] = th_stats.mean() / BAR
     truth["gain_error"] = float(s.gain_error)
-
-    # 5. charge-amplifier high-pass ---------------------------------------
-    hp_err = np.zeros_like(stream)
-    if s.highpass_tau_s:
-        y = _first_order_highpass(stream, dt, s.highpass_tau_s)
-        hp_err = y - stream
-        stream = y
-    hp_rows = _from_stream(hp_err, shape, closed)
     truth["highpass_tau_s"] = float(s.highpass_tau_s)
-    truth["highpass_error_mean_bar"] = hp_rows.mean(axis=1) / BAR
-    truth["highpass_error_start_bar"] = hp_rows[:, 0] / BAR
+    truth["highpass_error_mean_bar"] = hp_stats.mean() / BAR
+    truth["highpass_error_start_bar"] = hp_stats.first[:nc] / BAR
 
-    # 6. angle labelling ---------------------------------------------------
+    # 6. angle labelling: the sample labelled alpha was taken at alpha + err
     jit_rms = np.zeros(nc)
-    if s.tdc_offset_deg or s.encoder_jitter_deg:
-        from scipy.interpolate import CubicSpline
+    if angle:
+        jit_stats = _RowStats(nc, m, n)
+        h = 720.0 / m
+        th = np.asarray(theta, float)
+        uniform = np.max(np.abs(th - (th[0] + h * np.arange(n)))) <= 1e-8 * h
+        if uniform and S >= 4 * _SPLINE_REACH:
 
-        alpha = _stream_angle(theta, nc, closed)
-        err = np.full(alpha.shape, -float(s.tdc_offset_deg))
+            def shift_at(k0, k1, a, b):
+                err = np.full(b - a, -float(s.tdc_offset_deg))
+                if s.encoder_jitter_deg:
+                    # drawn block by block: the same numbers as one draw over the stream
+                    jit = s.encoder_jitter_deg * rng.standard_normal(b - a)
+                    err = err + jit
+                    jit_stats.add(k0, k1, jit, squares=True)
+                return err / h
+
+            _resample_stream(stream, shift_at, meas, m, closed)
+        else:
+            # irregular grid (within the tolerance of _grid) or a very short record
+            from scipy.interpolate import CubicSpline
+
+            alpha = _stream_angle(theta, nc, closed)
+            err = np.full(alpha.shape, -float(s.tdc_offset_deg))
+            if s.encoder_jitter_deg:
+                jit = s.encoder_jitter_deg * rng.standard_normal(alpha.size)
+                err = err + jit
+                for k0, k1, a, b in _cycle_blocks(nc, m, closed, nc):
+                    jit_stats.add(k0, k1, jit[a:b], squares=True)
+            meas[...] = _from_stream(CubicSpline(alpha, stream)(alpha + err), shape, closed)
         if s.encoder_jitter_deg:
-            jit = s.encoder_jitter_deg * rng.standard_normal(alpha.size)
-            err = err + jit
-            jit_rows = _from_stream(jit, shape, closed)
-            jit_rms = np.sqrt(np.mean(jit_rows**2, axis=1))
-        stream = CubicSpline(alpha, stream)(alpha + err)
+            jit_rms = np.sqrt(jit_stats.mean(squares=True))
     truth["tdc_offset_deg"] = float(s.tdc_offset_deg)
     truth["encoder_jitter_rms_deg"] = jit_rms
-
-    meas = _from_stream(stream, shape, closed)
     return meas
 
 
@@ -417,7 +656,7 @@ def apply_artefacts(
     fs = 1.0 / dt
     truth: dict = {"sample_rate_hz": fs, "crank_step_deg": step, "speed_rpm": N}
     t_row = (theta - theta[0]) / (6.0 * N)
-    sig = P.copy()
+    sig = P
 
     # 1. knock ringing ------------------------------------------------------
     onset = np.full(nc, np.nan) if knock_onset_deg is None else np.broadcast_to(
@@ -432,24 +671,25 @@ def apply_artefacts(
             raise CyclesimError("knock ringing needs the gas temperature T and bore_m")
         T2 = _as_2d(T, shape, "T")
         g2 = _as_2d(1.3 if gamma is None else gamma, shape, "gamma")
-        c = np.sqrt(g2 * s.knock_gas_constant_J_per_kgK * T2)
-        f = acoustic_mode_frequencies(c, bore_m)  # (nc, n, modes)
         w = np.asarray(s.knock_mode_weights, float)
         if w.size != len(KNOCK_MODES):
             raise CyclesimError(f"knock_mode_weights: need {len(KNOCK_MODES)} values, got {w.size}")
+        sig = P.copy()
         for k in np.flatnonzero(amp):
             on = theta >= onset[k]
             if not on.any():
                 continue
             i0 = int(np.argmax(on))
+            # mode frequencies from the onset on (n - i0, modes)
+            c = np.sqrt(g2[k, i0:] * s.knock_gas_constant_J_per_kgK * T2[k, i0:])
+            fk = acoustic_mode_frequencies(c, bore_m)
             # phase: trapezoidal integral of f dt from the onset sample
-            fk = f[k, i0:, :]
             ph = np.zeros_like(fk)
             ph[1:] = np.cumsum(0.5 * (fk[1:] + fk[:-1]) * dt, axis=0)
             tau = t_row[i0:] - t_row[i0]
             env = amp[k] * BAR * np.exp(-tau / s.knock_decay_s)
             sig[k, i0:] += env * (w[None, :] * np.sin(2 * np.pi * ph)).sum(axis=1)
-            f_onset[k] = f[k, i0, :]
+            f_onset[k] = fk[0]
     truth["knock_onset_deg"] = onset
     truth["knock_amplitude_bar"] = amp
     truth["knock_mode_frequency_at_onset_hz"] = f_onset
@@ -474,40 +714,51 @@ def apply_artefacts(
     else:
         meas = _time_and_angle_chain(sig, theta, closed, shape, dt, fs, s, rng, truth, T, wall_heat_rate)
 
+    # steps 7 and 8 run over blocks of whole rows, in place (``meas`` is a new array here);
+    # the noise is drawn block by block: the same numbers as one draw over all rows
+    rows = max(1, _BLOCK_SAMPLES // shape[1])
+
     # 7. offset -----------------------------------------------------------
     off = s.offset_mean_bar + s.offset_sd_bar * rng.standard_normal(nc) if s.offset_sd_bar else \
         np.full(nc, float(s.offset_mean_bar))
     off = off + s.offset_drift_bar_per_cycle * np.arange(nc)
-    meas = meas + off[:, None] * BAR
     truth["offset_bar"] = off
+    off_pa = off[:, None] * BAR
 
     # 8. noise, clipping, ADC ---------------------------------------------
     noise_rms = np.zeros(nc)
-    if s.noise_bar:
-        nz = s.noise_bar * BAR * rng.standard_normal(shape)
-        meas = meas + nz
-        noise_rms = np.sqrt(np.mean(nz**2, axis=1)) / BAR
-    truth["noise_rms_bar"] = noise_rms
+    clipped = np.zeros(nc, dtype=int)
     lo = -np.inf if s.clip_min_bar is None else s.clip_min_bar * BAR
     hi = np.inf if s.clip_max_bar is None else s.clip_max_bar * BAR
-    clipped = (meas < lo) | (meas > hi)
-    meas = np.clip(meas, lo, hi)
-    truth["clipped_samples"] = clipped.sum(axis=1)
     if s.adc_bits:
         a_lo, a_hi = s.adc_min_bar * BAR, s.adc_max_bar * BAR
         lsb = (a_hi - a_lo) / (2 ** int(s.adc_bits) - 1)
-        code = np.clip(np.round((meas - a_lo) / lsb), 0, 2 ** int(s.adc_bits) - 1)
-        meas = a_lo + code * lsb
-        truth["adc_lsb_bar"] = lsb / BAR
-    else:
-        truth["adc_lsb_bar"] = 0.0
+    for r0 in range(0, nc, rows):
+        r1 = min(nc, r0 + rows)
+        blk = meas[r0:r1]
+        blk += off_pa[r0:r1]
+        if s.noise_bar:
+            nz = s.noise_bar * BAR * rng.standard_normal((r1 - r0, shape[1]))
+            blk += nz
+            noise_rms[r0:r1] = np.sqrt(np.mean(nz**2, axis=1)) / BAR
+        clipped[r0:r1] = np.count_nonzero((blk < lo) | (blk > hi), axis=1)
+        np.clip(blk, lo, hi, out=blk)
+        if s.adc_bits:
+            code = np.clip(np.round((blk - a_lo) / lsb), 0, 2 ** int(s.adc_bits) - 1)
+            np.multiply(code, lsb, out=blk)
+            blk += a_lo
+    truth["noise_rms_bar"] = noise_rms
+    truth["clipped_samples"] = clipped
+    truth["adc_lsb_bar"] = lsb / BAR if s.adc_bits else 0.0
 
     # intake channel --------------------------------------------------------
     p_int = None
     if intake_pressure_pa is not None:
         p_int = _as_2d(intake_pressure_pa, shape, "intake_pressure_pa").copy()
         if s.intake_noise_bar:
-            p_int = p_int + s.intake_noise_bar * BAR * rng.standard_normal(shape)
+            for r0 in range(0, nc, rows):
+                r1 = min(nc, r0 + rows)
+                p_int[r0:r1] += s.intake_noise_bar * BAR * rng.standard_normal((r1 - r0, shape[1]))
     truth["intake_noise_bar"] = float(s.intake_noise_bar)
     if single:
         meas = meas[0]
@@ -516,6 +767,42 @@ def apply_artefacts(
 
 
 # --------------------------------------------------------------------------- decimation
+def _antialias_fir(qi: int) -> np.ndarray:
+    """Kaiser-window FIR for decimation by ``qi``: 80 dB, passband edge 0.8, stopband edge 1.0 of the output Nyquist."""
+    from scipy import signal
+
+    numtaps, beta = signal.kaiserord(80.0, 0.2 / qi)
+    numtaps |= 1
+    return signal.firwin(numtaps, 0.9 / qi, window=("kaiser", beta))
+
+
+def _zero_phase_decimate(X: np.ndarray, m: int, closed: bool, h: np.ndarray, qi: int, n_out: int) -> np.ndarray:
+    """Every ``qi``-th sample of the stream of rows ``X`` after ``h`` forwards and backwards.
+
+    Forwards then backwards is one convolution with g = h * reversed(h) centred on each
+    output sample; it is evaluated only at the kept samples, as ``qi`` polyphase
+    correlations (g[p::qi] with stream[p::qi]), block by block.  The stream is continued
+    beyond its ends by odd reflection, as ``scipy.signal.filtfilt(padtype="odd")`` does;
+    once that padding is at least len(h) - 1 samples, filtfilt's initial filter states no
+    longer reach the kept samples and both give the same values (to rounding).
+    """
+    nc = X.shape[0]
+    half = h.size - 1
+    g = np.convolve(h, h[::-1])
+    phases = [g[p::qi] for p in range(qi)]
+    m_out = m // qi
+    out = np.empty((nc, n_out))
+    per_block = max(1, _BLOCK_SAMPLES // m)
+    for _, _, a, b in _cycle_blocks(nc, m_out, closed, per_block):
+        M = b - a
+        e = _stream_window(X, m, a * qi - half, (b - 1) * qi + half + 1)
+        y = np.correlate(e[0::qi], phases[0], "valid")[:M]
+        for p in range(1, qi):
+            y += np.correlate(e[p::qi], phases[p], "valid")[:M]
+        _stream_write(out, m_out, a, y)
+    return out
+
+
 def decimate_to(theta_fine, P, step_deg: float | None = None, sample_rate_hz: float | None = None,
                 speed_rpm: float | None = None):
     """Low-pass and decimate traces from a fine crank grid to a coarser one.
@@ -544,10 +831,13 @@ def decimate_to(theta_fine, P, step_deg: float | None = None, sample_rate_hz: fl
     Anti-alias filter: a linear-phase Kaiser-window FIR designed with
     ``scipy.signal.kaiserord`` for 80 dB attenuation, passband edge at 0.8 and
     stopband edge at 1.0 of the output Nyquist frequency (cut-off 0.9), run
-    forwards and backwards (``filtfilt``: zero phase, attenuation squared) over
-    the cycles joined end to end.  Content above the output Nyquist frequency is
-    attenuated by at least 160 dB; content below 0.8 of it passes unchanged to
-    within the design ripple.
+    forwards and backwards (zero phase, attenuation squared) over the cycles
+    joined end to end, the record continued beyond its ends by odd reflection
+    (3 filter lengths, or the record length if shorter).  Content above the
+    output Nyquist frequency is attenuated by at least 160 dB; content below 0.8
+    of it passes unchanged to within the design ripple.  The two passes are
+    computed as one zero-phase convolution evaluated only at the kept samples;
+    for a record shorter than the filter ``scipy.signal.filtfilt`` runs them.
     """
     from scipy import signal
 
@@ -574,13 +864,13 @@ def decimate_to(theta_fine, P, step_deg: float | None = None, sample_rate_hz: fl
         raise CyclesimError(f"decimate_to: {m} samples per cycle are not divisible by the factor {qi}")
     if qi == 1:
         return th.copy(), (X[0].copy() if single else X.copy())
-    numtaps, beta = signal.kaiserord(80.0, 0.2 / qi)
-    numtaps |= 1
-    h = signal.firwin(numtaps, 0.9 / qi, window=("kaiser", beta))
-    s = _to_stream(X, closed)
-    padlen = min(3 * numtaps, s.size - 1)
-    y = signal.filtfilt(h, [1.0], s, padtype="odd", padlen=padlen)
-    y = y[::qi]
+    h = _antialias_fir(qi)
     th_out = th[::qi]
-    out = _from_stream(y, (X.shape[0], th_out.size), closed)
+    if _stream_length(X.shape, m) >= h.size:
+        out = _zero_phase_decimate(X, m, closed, h, qi, th_out.size)
+    else:
+        s = _to_stream(X, closed)
+        padlen = min(3 * h.size, s.size - 1)
+        y = signal.filtfilt(h, [1.0], s, padtype="odd", padlen=padlen)
+        out = _from_stream(y[::qi], (X.shape[0], th_out.size), closed)
     return th_out, (out[0] if single else out)

@@ -154,6 +154,43 @@ def draw_parameters(case: Case, n: int, var: CycleVariation) -> tuple[list[dict]
     return changes, misfire, partial
 
 
+class _FineGrid:
+    """Cubic Hermite interpolation from the solver's crank grid onto the fine synthesis grid.
+
+    The same interpolant as :func:`cyclesim.solver.hermite_grid` (interval, basis
+    functions and order of the sums alike, so the values are identical), with the basis
+    evaluated once per grid pair and each cycle's row written in place: the working
+    arrays are one row long instead of (cycles, fine samples).
+    """
+
+    def __init__(self, theta: np.ndarray, grid: np.ndarray):
+        from ..solver import interval_of
+
+        i, h, t = interval_of(theta, np.asarray(grid, float))
+        self.i, self.i1 = i, i + 1
+        self.h00 = 2 * t**3 - 3 * t**2 + 1
+        self.h10h = (t**3 - 2 * t**2 + t) * h
+        self.h01 = -2 * t**3 + 3 * t**2
+        self.h11h = (t**3 - t**2) * h
+        self._tmp = np.empty(t.size)
+
+    def hermite(self, y: np.ndarray, f: np.ndarray, out: np.ndarray) -> np.ndarray:
+        """Values on the fine grid into ``out`` from values ``y`` and slopes ``f`` [per deg] of one row."""
+        tmp = self._tmp
+        np.take(y, self.i, out=out)
+        out *= self.h00
+        np.take(f, self.i, out=tmp)
+        tmp *= self.h10h
+        out += tmp
+        np.take(y, self.i1, out=tmp)
+        tmp *= self.h01
+        out += tmp
+        np.take(f, self.i1, out=tmp)
+        tmp *= self.h11h
+        out += tmp
+        return out
+
+
 def _steady_state(case: Case, registry):
     from ..batch import build_batch
     from ..solver import integrate
@@ -220,7 +257,6 @@ def synthesize(
         resumes where it stopped with the same draws and the same result.
     """
     from ..api import _registry_for
-    from ..figures import hermite_grid
     from . import artefacts as art
 
     if case.simulation.mode != "full":
@@ -254,16 +290,19 @@ def synthesize(
     knock_int = np.zeros(n_cycles)
 
     def collect(i0, batch, tr, d, figs):
-        Pb = hermite_grid(tr.theta, d["p"], d["dp"], theta_f)
-        Tb = hermite_grid(tr.theta, tr.Y[1], tr.F[1], theta_f)
-        gb = np.stack([np.interp(theta_f, tr.theta, d["gamma"][b]) for b in range(batch.B)])
+        # pressure and temperature: cubic Hermite from the solver's values and slopes; gamma: linear
+        fine_grid = _FineGrid(tr.theta, theta_f)
+        p_sol, dp_sol, g_sol = d["p"], d["dp"], d["gamma"]
+        for b in range(batch.B):
+            fine_grid.hermite(p_sol[b], dp_sol[b], P[i0 + b])
+            fine_grid.hermite(tr.Y[1, b], tr.F[1, b], Tg[i0 + b])
+            G[i0 + b] = np.interp(theta_f, tr.theta, g_sol[b])
         I = {nm: k for k, nm in enumerate(tr.names)}
         Qc = tr.Y[I["Q_burn"], :, -1]
         Qw = tr.Y[I["Q_w"], :, -1]
         Mu = tr.Y[I["mu_int"], :, -1]
         for b in range(batch.B):
             i = i0 + b
-            P[i], Tg[i], G[i] = Pb[b], Tb[b], gb[b]
             row = {"cycle": i + 1}
             mis = bool(misfire[i])
             for key in ("imep_net_bar", "imep_gross_bar", "pmep_bar", "p_max_bar", "theta_pmax_deg",
