@@ -8,6 +8,16 @@ residual state at -360 deg and all run as one batch) or *coupled* (each starts
 from the end state of the cycle before it, so a slow or partial burn leaves a
 hotter, larger residual for the next one, as on a real engine).
 
+Coupled cycles are solved as a chain in batches (:func:`_run_chain`): every
+cycle of a chunk runs in one batch from a guessed start state, then each start
+is replaced by the end state of the cycle before it, and so on until no start
+moves by more than :data:`CHAIN_TOLERANCE` (relative).  This is a fixed-point
+(Jacobi) iteration whose fixed point is the cycle-by-cycle chain itself; a
+cycle's residual gas carries only a few percent of a disturbance into the
+next, so each sweep shrinks the error about tenfold and the figures agree
+with a cycle-by-cycle run to about 1e-12.  A case gives the same figures
+alone and inside a batch, so nothing else differs.
+
 The true pressure is interpolated from the solver's states onto a fine crank
 grid; measurement artefacts (:mod:`cyclesim.traces.artefacts`) are applied
 there, and the result is low-pass filtered and decimated to the user's
@@ -25,6 +35,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
+from ..batch import group_cases
 from ..config import Case, case_with
 from ..errors import ConfigError, CyclesimError
 
@@ -202,22 +213,76 @@ def _steady_state(case: Case, registry):
     return tr
 
 
-def _run_cycles(cases: list[Case], registry, initial: np.ndarray):
-    """One full cycle for each case from the given initial state(s); returns per-case pieces."""
-    from ..batch import build_batch
+CHAIN_TOLERANCE = 1e-10
+"""Coupled cycles: largest relative change of a start state at which a chain counts as solved."""
+CHAIN_MAX_SWEEPS = 60
+
+
+def _figures_of(batch, tr):
     from ..figures import compute_figures, derived_trace, output_trace
     from ..roles import Submodel
-    from ..solver import integrate
 
-    batch = build_batch(cases, registry)
-    init = np.repeat(initial.reshape(initial.shape[0], 1), len(cases), axis=1) if initial.ndim == 1 else initial
-    tr = integrate(batch, initial=init, cycles=1)
     d = derived_trace(batch, tr)
     figs = compute_figures(batch, tr, d)
     if any(m.__class__.figures is not Submodel.figures for m in batch.models.values()):
         from ..api import model_figures
 
         figs.update(model_figures(batch, output_trace(batch, tr, d, None))[0])
+    return d, figs
+
+
+def _run_chain(cases: list[Case], registry, start: np.ndarray, tol: float = CHAIN_TOLERANCE,
+               max_sweeps: int = CHAIN_MAX_SWEEPS):
+    """Consecutive cycles, each from the end state of the one before, solved in batches.
+
+    Sweep: all cycles from their current start states (one batch per group of cycles that
+    can share one); then start_i = end_{i-1} (start_0 = ``start``).  Repeats until no start
+    state changes by more than ``tol`` relative to its row's largest value.  Returns
+    ([(indices, batch, trace, derived, figures) per group], end states (n_state, n), sweeps).
+    """
+    from ..batch import build_batch
+    from ..solver import _TOTALS, integrate
+
+    n = len(cases)
+    groups = [(g, build_batch([cases[j] for j in g], registry)) for g in group_cases(cases, registry)]
+    inits = np.repeat(start.reshape(-1, 1), n, axis=1)
+    ends = np.empty_like(inits)
+    rows = np.ones(start.shape[0], dtype=bool)
+    rows[_TOTALS] = False          # running totals and the burned fraction restart every cycle
+    rows[3] = False
+    for sweep in range(1, max_sweeps + 1):
+        trs = []
+        for g, batch in groups:
+            tr = integrate(batch, initial=inits[:, g], cycles=1)
+            ends[:, g] = tr.end_state
+            trs.append(tr)
+        new = np.concatenate([start.reshape(-1, 1), ends[:, :-1]], axis=1)
+        a, b = new[rows], inits[rows]
+        scale = np.nanmax(np.abs(a), axis=1, keepdims=True)
+        diff = np.where(np.isnan(a) & np.isnan(b), 0.0, np.abs(a - b))
+        change = float(np.nanmax(np.where(np.isfinite(diff), diff, np.inf) / np.maximum(scale, 1e-300)))
+        if change <= tol:
+            break
+        inits = new
+    else:
+        raise CyclesimError(f"coupled cycles: the chain did not settle in {max_sweeps} sweeps"
+                            f" (last change {change:.2e}); a failing cycle? try independent cycles")
+    out = []
+    for (g, batch), tr in zip(groups, trs):
+        d, figs = _figures_of(batch, tr)
+        out.append((g, batch, tr, d, figs))
+    return out, ends.copy(), sweep
+
+
+def _run_cycles(cases: list[Case], registry, initial: np.ndarray):
+    """One full cycle for each case from the given initial state(s); returns per-case pieces."""
+    from ..batch import build_batch
+    from ..solver import integrate
+
+    batch = build_batch(cases, registry)
+    init = np.repeat(initial.reshape(initial.shape[0], 1), len(cases), axis=1) if initial.ndim == 1 else initial
+    tr = integrate(batch, initial=init, cycles=1)
+    d, figs = _figures_of(batch, tr)
     return batch, tr, d, figs
 
 
@@ -253,7 +318,7 @@ def synthesize(
     chunk : int
         Independent cycles simulated per batch.
     checkpoint_dir : path, optional
-        Keep each finished chunk (coupled: each cycle) here, so an interrupted set
+        Keep each finished chunk here, so an interrupted set
         resumes where it stopped with the same draws and the same result.
     """
     from ..api import _registry_for
@@ -285,24 +350,24 @@ def synthesize(
     P = np.empty((n_cycles, n_fine + 1))
     Tg = np.empty_like(P)
     G = np.empty_like(P)
-    truth: list[dict] = []
+    truth: list = [None] * n_cycles
     knock_on = np.full(n_cycles, np.nan)
     knock_int = np.zeros(n_cycles)
 
-    def collect(i0, batch, tr, d, figs):
+    def collect(idx, batch, tr, d, figs):
+        """Fill the rows of cycles ``idx`` (global indices, in the batch's column order)."""
         # pressure and temperature: cubic Hermite from the solver's values and slopes; gamma: linear
         fine_grid = _FineGrid(tr.theta, theta_f)
         p_sol, dp_sol, g_sol = d["p"], d["dp"], d["gamma"]
-        for b in range(batch.B):
-            fine_grid.hermite(p_sol[b], dp_sol[b], P[i0 + b])
-            fine_grid.hermite(tr.Y[1, b], tr.F[1, b], Tg[i0 + b])
-            G[i0 + b] = np.interp(theta_f, tr.theta, g_sol[b])
+        for b, i in enumerate(idx):
+            fine_grid.hermite(p_sol[b], dp_sol[b], P[i])
+            fine_grid.hermite(tr.Y[1, b], tr.F[1, b], Tg[i])
+            G[i] = np.interp(theta_f, tr.theta, g_sol[b])
         I = {nm: k for k, nm in enumerate(tr.names)}
         Qc = tr.Y[I["Q_burn"], :, -1]
         Qw = tr.Y[I["Q_w"], :, -1]
         Mu = tr.Y[I["mu_int"], :, -1]
-        for b in range(batch.B):
-            i = i0 + b
+        for b, i in enumerate(idx):
             row = {"cycle": i + 1}
             mis = bool(misfire[i])
             for key in ("imep_net_bar", "imep_gross_bar", "pmep_bar", "p_max_bar", "theta_pmax_deg",
@@ -329,7 +394,7 @@ def synthesize(
             row["knock_onset_deg"] = knock_on[i]
             row["knock_intensity"] = knock_int[i]
             row["error"] = tr.failed[b] or ""
-            truth.append(row)
+            truth[i] = row
 
     ckpt = Path(checkpoint_dir) if checkpoint_dir is not None else None
     if ckpt is not None:
@@ -343,8 +408,7 @@ def synthesize(
         z = np.load(f, allow_pickle=False)
         P[i0:i0 + n], Tg[i0:i0 + n], G[i0:i0 + n] = z["P"], z["T"], z["G"]
         knock_on[i0:i0 + n], knock_int[i0:i0 + n] = z["knock_on"], z["knock_int"]
-        rows = json.loads(str(z["truth"]))
-        truth.extend(rows)
+        truth[i0:i0 + n] = json.loads(str(z["truth"]))
         return z["end_state"], f
 
     def save_part(f, i0, n, end_state):
@@ -360,24 +424,28 @@ def synthesize(
                  end_state=end_state)
         atomic_write_bytes(f, buf.getvalue())
 
-    if var.coupled:
-        state = start_state
-        for i in range(n_cycles):
-            end, f = load_part(i, 1)
-            if end is None:
-                batch, tr, d, figs = _run_cycles([cases[i]], registry, state)
-                collect(i, batch, tr, d, figs)
-                end = tr.end_state[:, 0]
-                save_part(f, i, 1, end)
-            state = end
-    else:
-        for i0 in range(0, n_cycles, chunk):
-            part = cases[i0:i0 + chunk]
-            end, f = load_part(i0, len(part))
-            if end is None:
-                batch, tr, d, figs = _run_cycles(part, registry, start_state)
-                collect(i0, batch, tr, d, figs)
-                save_part(f, i0, len(part), tr.end_state)
+    sweeps: list[int] = []
+    state = start_state
+    for i0 in range(0, n_cycles, chunk):
+        part = cases[i0:i0 + chunk]
+        end, f = load_part(i0, len(part))
+        if end is None:
+            # cycles share a batch only where their settings allow (the crank grid depends on
+            # the burn duration), so every cycle gives the figures it gives alone
+            if var.coupled:
+                groups, end, k = _run_chain(part, registry, state)
+                sweeps.append(k)
+            else:
+                groups = []
+                end = np.empty((start_state.shape[0], len(part)))
+                for g in group_cases(part, registry):
+                    batch, tr, d, figs = _run_cycles([part[j] for j in g], registry, start_state)
+                    groups.append((g, batch, tr, d, figs))
+                    end[:, g] = tr.end_state
+            for g, batch, tr, d, figs in groups:
+                collect([i0 + j for j in g], batch, tr, d, figs)
+            save_part(f, i0, len(part), end)
+        state = np.asarray(end)[:, -1]
 
     # measurement
     rng = np.random.default_rng(var.seed + 7919)
@@ -406,6 +474,8 @@ def synthesize(
         "resolution_deg": out_step,
         "sample_rate_hz": sample_rate_hz,
         "synthesis_step_deg": fine,
+        "coupled_chain": ({"tolerance": CHAIN_TOLERANCE, "sweeps_per_chunk": sweeps, "chunk": chunk}
+                          if var.coupled else None),
         "crank_angle_convention": "degrees, 0 = firing TDC, negative before; one cycle -360..360",
         "units": {"pressure": "Pa in arrays, bar in CSV columns", "crank_angle": "deg", "time": "s"},
         "variation": asdict(var),
