@@ -238,6 +238,23 @@ def _construct_mapping(loader, node, deep=False):
 
 _StrictLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _construct_mapping)
 
+# YAML 1.1 reads 1e-7 (no dot) as text; YAML 1.2 and every engineer read it as a number
+import re as _re  # noqa: E402
+
+_StrictLoader.add_implicit_resolver(
+    "tag:yaml.org,2002:float",
+    _re.compile(r"^[-+]?(?:[0-9][0-9_]*)(?:\.[0-9_]*)?[eE][-+]?[0-9]+$"),
+    list("-+0123456789"))
+
+
+def yaml_value(text: str) -> Any:
+    """One YAML value (as in a config file: numbers such as 1e-7 included) from text."""
+    loader = _StrictLoader(text)
+    try:
+        return loader.get_single_data()
+    finally:
+        loader.dispose()
+
 
 def read_yaml(path: Path) -> dict:
     """Read one YAML file safely into a dict; malformed input raises ConfigError."""
@@ -339,7 +356,7 @@ def parse_override(text: str) -> tuple[list[str], Any]:
     if not parts:
         raise ConfigError(f"--set {text!r}: empty key")
     try:
-        val = yaml.safe_load(value) if value.strip() else None
+        val = yaml_value(value) if value.strip() else None
     except yaml.YAMLError:
         val = value
     return parts, val

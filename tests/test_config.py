@@ -112,3 +112,19 @@ def test_cli_error_is_one_line_exit_2(tmp_path):
     r = subprocess.run([sys.executable, "-m", "cyclesim", "run", "demo", "--set", "operating.speed_rpm=fast"],
                        capture_output=True, text=True)
     assert r.returncode == 2 and "operating.speed_rpm" in r.stderr
+
+
+def test_exponent_numbers_without_a_dot(tmp_path):
+    # YAML 1.2 (yaml.org, 2009, sec. 10.2.1.4 core schema) reads 1e-7 as a float; PyYAML follows
+    # YAML 1.1 and would give the text '1e-7', which an engineer would not expect
+    p = write(tmp_path, """
+        extends: demo
+        simulation: {tolerance: 1e-6}
+        operating: {speed_rpm: 2.5E3}
+    """)
+    c = load_config(p, ["simulation.step_deg=5e-1"])
+    assert c.simulation.tolerance == 1e-6
+    assert c.operating.speed_rpm == 2500.0
+    assert c.simulation.step_deg == 0.5
+    # words that merely start like numbers stay text
+    assert load_config("demo", ["name=1e5x"]).name == "1e5x"

@@ -43,7 +43,7 @@ from typing import Any, Callable, Iterable, Mapping, Sequence
 import numpy as np
 import yaml
 
-from ..config import CORE_SCHEMA, Case, case_with, resolve_case
+from ..config import CORE_SCHEMA, Case, case_with, resolve_case, yaml_value
 from ..errors import ConfigError, CyclesimError
 from ..output import CAUTION, atomic_write_text
 from ..params import suggestion
@@ -65,7 +65,7 @@ _INT_RE = re.compile(r"^[+-]?\d+$")
 
 def _number(text: str, key: str, spec: str) -> int | float:
     try:
-        v = yaml.safe_load(text)
+        v = yaml_value(text)
     except yaml.YAMLError:
         v = None
     if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(float(v)):
@@ -130,7 +130,7 @@ def parse_values(key: str, spec: Any) -> list:
             raise ConfigError(f"{key}: empty list of values")
         if text.startswith("["):
             try:
-                vals = yaml.safe_load(text)
+                vals = yaml_value(text)
             except yaml.YAMLError as exc:
                 raise ConfigError(f"{key}: cannot read {spec!r} as a list: {exc.problem}") from None
             if not isinstance(vals, list):
@@ -154,7 +154,7 @@ def parse_values(key: str, spec: Any) -> list:
 
 def _yaml_item(text: str) -> Any:
     try:
-        return yaml.safe_load(text.strip())
+        return yaml_value(text.strip())
     except yaml.YAMLError:
         return text.strip()
 
