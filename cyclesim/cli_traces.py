@@ -30,9 +30,11 @@ def add_parsers(subparsers) -> None:
     t.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
     t.add_argument("--artefacts", choices=("default", "none"), default="default",
                    help="measurement flaws: a realistic default set, or none (true pressure)")
-    t.add_argument("--formats", default="csv_long,csv_wide,npz,mf4",
-                   help="comma list of csv_long, csv_wide, npz, mf4 (default: all)")
+    t.add_argument("--formats", default=None,
+                   help="comma list of csv_long, csv_wide, npz, mf4 (default: all; mf4 when the optional"
+                        " MDF extra is installed)")
     t.add_argument("--force", action="store_true", help="write into a non-empty --out folder")
+    t.add_argument("--no-plots", action="store_true", help="skip the plot (traces.png)")
     t.add_argument("--resume", action="store_true",
                    help="continue an interrupted set in --out from its finished chunks (same draws, same result)")
     t.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
@@ -154,8 +156,19 @@ def cmd_traces(args) -> int:
 
     t0 = time.perf_counter()
     case = load_config(args.config, list(args.overrides))
-    formats = [f.strip() for f in args.formats.split(",") if f.strip()]
     from .traces.export import FORMATS
+
+    mdf_hint = 'install the optional MDF extra from the project folder: pip install -e ".[mdf]"'
+    skipped_mdf = False
+    if args.formats is None:
+        formats = list(FORMATS)
+        try:
+            import asammdf  # noqa: F401
+        except ImportError:
+            formats.remove("mf4")
+            skipped_mdf = True
+    else:
+        formats = [f.strip() for f in args.formats.split(",") if f.strip()]
 
     for f in formats:
         if f not in FORMATS:
@@ -166,7 +179,7 @@ def cmd_traces(args) -> int:
         try:
             import asammdf  # noqa: F401
         except ImportError as exc:
-            raise CyclesimError('--formats mf4 needs the optional MDF extra: pip install "cyclesim[mdf]"') from exc
+            raise CyclesimError(f"--formats mf4 (ASAM MDF 4): {mdf_hint}") from exc
     if args.resume:
         args.out.mkdir(parents=True, exist_ok=True)
     else:
@@ -186,6 +199,10 @@ def cmd_traces(args) -> int:
     truth_ts = TraceSet(ss.theta, ss.pressure_true_pa, None, ss.meta["speed_rpm"], dict(meta, signal="true pressure"))
     files += write_trace_set(truth_ts, args.out, "true_pressure", [f for f in formats if f == "npz"] or ["npz"])
     files += write_truth(args.out, ss.truth, ss.stats)
+    if not args.no_plots:
+        from .plots import plot_trace_set
+
+        files += plot_trace_set(ss, args.out)
     import shutil
 
     shutil.rmtree(args.out / ".chunks", ignore_errors=True)
@@ -195,6 +212,8 @@ def cmd_traces(args) -> int:
     print(f"  net IMEP mean {st['imep_net_mean_bar']:.3f} bar, COV {100 * st['cov_imep_net']:.2f} %")
     print(f"  CA50 mean {st.get('ca50_mean_deg', float('nan')):.2f} deg; knocking share {100 * st['knocking_share']:.1f} %,"
           f" misfires {100 * st['misfire_share']:.1f} %, partial burns {100 * st['partial_burn_share']:.1f} %")
+    if skipped_mdf:
+        print(f"  ASAM MDF 4 (.mf4) not written: {mdf_hint}")
     print(f"wrote {len(files)} files to {args.out}/ in {time.perf_counter() - t0:.1f} s: "
           + ", ".join(p.name for p in files))
     return 0

@@ -39,6 +39,15 @@ def plain(x):
     return x
 
 
+def _current_umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+_UMASK = _current_umask()
+
+
 def atomic_write_bytes(path: Path, data: bytes) -> None:
     """Write a file through a temporary file and a rename (never half-written)."""
     path = Path(path)
@@ -47,6 +56,8 @@ def atomic_write_bytes(path: Path, data: bytes) -> None:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
+        # mkstemp makes the file private (0600); give it the mode a plain open() would
+        os.chmod(tmp, 0o666 & ~_UMASK)
         os.replace(tmp, path)
     except BaseException:
         try:

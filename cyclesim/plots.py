@@ -211,3 +211,33 @@ def plot_engine(eng, out: Path) -> list[Path]:
     ax.set_title("per-cylinder net IMEP (grey: cut or deactivated)")
     files.append(_save(fig, out / "engine_cylinders.png"))
     return files
+
+
+def plot_trace_set(ss, out: Path) -> list[Path]:
+    """Synthetic set: the first cycles as measured against the truth, and net IMEP per cycle."""
+    plt = _plt()
+    out = Path(out)
+    th = np.asarray(ss.theta, float)
+    n = min(3, len(ss.truth))
+    fig, (a1, a2) = plt.subplots(2, 1, figsize=(7.5, 6), gridspec_kw={"height_ratios": [3, 2]})
+    colours = ("tab:blue", "tab:orange", "tab:green")
+    for k in range(n):
+        a1.plot(th, ss.pressure_pa[k] / 1e5, color=colours[k], lw=1.0, label=f"cycle {k + 1} measured")
+        a1.plot(th, ss.pressure_true_pa[k] / 1e5, color=colours[k], lw=0.8, ls="--",
+                label=f"cycle {k + 1} true")
+    a1.set_xlim(-180, 180)
+    a1.set_xlabel("crank angle [deg] (0 = firing TDC)")
+    a1.set_ylabel("cylinder pressure [bar]")
+    a1.set_title(f"{ss.meta.get('operating_point', '')}: synthetic cycles, measured (with flaws) and true")
+    a1.legend(fontsize=7, ncol=2)
+    imep = np.array([r["imep_net_bar"] for r in ss.truth], float)
+    cyc = np.arange(1, len(imep) + 1)
+    mis = np.array([bool(r.get("misfire")) for r in ss.truth])
+    a2.plot(cyc, imep, color="tab:blue", lw=0.8, marker=".", ms=3, label="net IMEP (true)")
+    if mis.any():
+        a2.plot(cyc[mis], imep[mis], "x", color="tab:red", label="misfire")
+    a2.set_xlabel("cycle")
+    a2.set_ylabel("net IMEP [bar]")
+    a2.legend(fontsize=7)
+    fig.tight_layout()
+    return [_save(fig, out / "traces.png")]
