@@ -162,9 +162,9 @@ def cmd_traces(args) -> int:
     skipped_mdf = False
     if args.formats is None:
         formats = list(FORMATS)
-        try:
-            import asammdf  # noqa: F401
-        except ImportError:
+        import importlib.util
+
+        if importlib.util.find_spec("asammdf") is None:
             formats.remove("mf4")
             skipped_mdf = True
     else:

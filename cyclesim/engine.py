@@ -616,7 +616,8 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
                     n_coupled[e] = cyc
                     settled[e] = change[e] < tol
             if progress:
-                progress(f"coupled cycle {cyc}: largest change {max(change.values()):.2e}")
+                progress(f"coupled cycle {cyc}: change {max(change.values()):.1e} (largest relative change of"
+                         f" manifold pressure, walls, IMEP, trapped mass; settled below {tol:.0e})")
             if all(settled.values()):
                 break
     else:

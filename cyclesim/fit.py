@@ -154,7 +154,7 @@ def _declared_param(case: Case, key: str):
         raise ConfigError(
             f"fit parameter {key!r}: the {sec} section"
             + (f" (model {case.submodels[sec].model!r})" if sec in case.submodels else "")
-            + f" has no such key" + suggestion(name, list(decl))
+            + " has no such key" + suggestion(name, list(decl))
         )
     p = decl[name]
     if p.kind not in ("float", "int") or not p.sweepable:

@@ -150,7 +150,7 @@ def summary_table(res) -> str:
         row("net indicated efficiency", "eta_indicated_net", "%", ".1f", 100)
         head("Losses")
         row("FMEP (friction + accessories)", "fmep_bar", "bar")
-        row("mechanical efficiency", "mechanical_efficiency", "%", ".1f", 100)
+        row("mechanical efficiency (BMEP/gross)", "mechanical_efficiency", "%", ".1f", 100)
         head("Brake")
         row("BMEP", "bmep_bar", "bar")
         row("torque (engine)", "torque_Nm", "N m", ".1f")
@@ -188,11 +188,14 @@ def summary_table(res) -> str:
         base_key = "fuel_energy_J" if "fuel_energy_J" in eb else "chemical_energy_released_J"
         base = eb[base_key]
         head(f"Energy balance (% of {'fuel energy' if base_key == 'fuel_energy_J' else 'chemical energy released'}, {base:.1f} J)")
+        labels = {"unreleased_chemical_energy_J": "unburned fuel (exhaust and blowby)"}
         for k, v in eb.items():
             if k in (base_key, "closure_fraction"):
                 continue
-            label = k.replace("_J", "").replace("_", " ")
-            lines.append(f"  {label:<34s}{100 * v / base:>10.2f}  %")
+            label = labels.get(k, k.replace("_J", "").replace("_", " "))
+            share = 100 * v / base
+            share = 0.0 if abs(share) < 0.005 else share      # no "-0.00"
+            lines.append(f"  {label:<34s}{share:>10.2f}  %")
     for w in res.warnings:
         lines.append(f"warning: {w}")
     lines.append(f"note: {CAUTION}")

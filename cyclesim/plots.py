@@ -206,6 +206,14 @@ def plot_engine(eng, out: Path) -> list[Path]:
     c = eng.cylinders
     ax.bar([str(x["cylinder"]) for x in c], [x["imep_net_bar"] for x in c],
            color=["tab:blue" if x["mode"] == "fire" else "0.6" for x in c])
+    vals = [x["imep_net_bar"] for x in c if x["mode"] == "fire"]
+    if vals and all(x["mode"] == "fire" for x in c):
+        # all firing: zoom on the spread (bars from zero would all look alike)
+        lo, hi = min(vals), max(vals)
+        pad = max(0.5 * (hi - lo), 0.01 * abs(hi), 1e-3)
+        ax.set_ylim(lo - pad, hi + pad)
+        for i, v in enumerate(vals):
+            ax.text(i, v, f"{v:.3f}", ha="center", va="bottom", fontsize=8)
     ax.set_xlabel("cylinder")
     ax.set_ylabel("net IMEP [bar]")
     ax.set_title("per-cylinder net IMEP (grey: cut or deactivated)")

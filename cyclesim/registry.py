@@ -7,7 +7,6 @@ class goes through :func:`submodel_class`.
 from __future__ import annotations
 
 import functools
-import importlib
 from typing import Iterable
 
 import pluggy

@@ -81,7 +81,7 @@ EFFECT_TEXT = {
     "pressure_friction": "+ friction with a cylinder-pressure term, per reading",
     "manifolds": "+ shared intake and exhaust manifolds",
     "walls": "+ cut cylinder's walls cooling before the reading",
-    "speed": "+ speed re-set after each cut only to within the stated error",
+    "speed": "+ speed re-set after each cut only to within --speed-error (cut readings that far off speed)",
 }
 CSV_NAME = "cylinder_cut.csv"
 CYL_CSV_NAME = "cylinder_cut_cylinders.csv"
@@ -136,7 +136,13 @@ class CylinderCutResult:
                          f"  {s['friction_bias_step_kW']:+8.3f}")
         lines.append("  steps in order (each keeps the ones before):")
         for s in self.steps:
-            lines.append(f"    {s['step']}: {EFFECT_TEXT[s['step']]}")
+            txt = EFFECT_TEXT[s["step"]]
+            if s["step"] == "speed" and "speed_error_rpm" in self.settings:
+                txt = (f"+ speed re-set after each cut only to within {self.settings['speed_error_rpm']:+g} rpm"
+                       f" (the cut readings are taken that far off speed)")
+            elif s["step"] == "walls" and "reading_time_s" in self.settings:
+                txt = f"+ cut cylinder's walls cooling for {self.settings['reading_time_s']:g} s before the reading"
+            lines.append(f"    {s['step']}: {txt}")
         last = self.steps[-1]
         lines.append(f"  with every effect on, the test reads friction {last['friction_bias_kW']:+.3f} kW"
                      f" ({last['friction_bias_pct']:+.1f} %) off the model's mechanical friction; the split"
@@ -150,7 +156,7 @@ class CylinderCutResult:
                          " cylinders' pumping loss (on a common exhaust volume, say, a cut cylinder's missing"
                          " blowdown pulse lowers the residual gas of the cylinder firing before it;"
                          " multi_cylinder.exhaust_branches divides the exhaust).")
-        lines.append("  per cylinder (last step): " + ", ".join(
+        lines.append("  indicated power per cylinder, estimate/truth (last step): " + ", ".join(
             f"{c['cylinder']}: {c['estimate_kW']:.2f}/{c['truth_kW']:.2f} kW" for c in self.cylinders))
         lines.append("  " + CAUTION)
         return "\n".join(lines)
@@ -236,7 +242,11 @@ def cylinder_cut_test(config="demo", overrides: Sequence[str] = (), effects: Seq
     for man, walls, _ in keys:
         if (man, walls) not in all_setups:
             all_setups[(man, walls)] = EngineSetup(case, fire, manifolds=man, walls=walls, label=f"all firing ({man}, {walls})")
-    firing = dict(zip(all_setups, simulate_engines(list(all_setups.values()), progress=progress)))
+    def phase(name):
+        return None if progress is None else (lambda msg: progress(f"{name}: {msg}"))
+
+    firing = dict(zip(all_setups, simulate_engines(list(all_setups.values()),
+                                                   progress=phase("readings with all cylinders firing"))))
     cut_setups = {}
     for man, walls, sp in keys:
         base = case if sp == speed else case_with(case, {"operating.speed_rpm": sp})
@@ -250,7 +260,8 @@ def cylinder_cut_test(config="demo", overrides: Sequence[str] = (), effects: Seq
                 # so that their firing cylinders repeat it exactly
                 start=a if (man == "coupled" or walls == "lumped") else None,
                 label=f"cylinder {k + 1} cut ({man}, {walls}, {sp:.0f} rpm)")
-    cuts = dict(zip(cut_setups, simulate_engines(list(cut_setups.values()), progress=progress)))
+    cuts = dict(zip(cut_setups, simulate_engines(list(cut_setups.values()),
+                                                 progress=phase("readings with one cylinder cut"))))
 
     steps = []
     cyl_rows = []

@@ -609,6 +609,10 @@ def spark_study(
     elif cand:
         by = min(cand, key=cand.get)
         st.recommended_deg, st.recommended_by = float(cand[by]), by
+        if st.knock_status == "no model":
+            st.notes.append("knock is not modelled (knock.model: none), so the recommended advance is not"
+                            " checked against a knock limit: choose a knock model, and on the engine approach"
+                            " it from the retarded side with knock detection")
         if st.recommended_deg < adv_s[0]:
             st.notes.append(f"recommended advance {st.recommended_deg:.1f} deg lies below the sweep")
     else:

@@ -6,7 +6,7 @@ negative before it, one cycle -360..360).  CSV files start with comment lines
 reader skips and keeps as metadata.  Pressures are written in bar, kept in Pa
 in memory.  All writes are atomic.
 
-ASAM MDF 4 needs the optional package ``asammdf`` (``pip install "cyclesim[mdf]"``).
+ASAM MDF 4 needs the optional package ``asammdf`` (``pip install -e ".[mdf]" (from the project folder)``).
 """
 
 from __future__ import annotations
@@ -155,7 +155,7 @@ def _asammdf():
         import asammdf  # noqa: F401
     except ImportError:
         raise CyclesimError(
-            'ASAM MDF 4 files need the optional package asammdf: pip install "cyclesim[mdf]"'
+            'ASAM MDF 4 files need the optional package asammdf: pip install -e ".[mdf]" (from the project folder)'
         ) from None
     return asammdf
 
