@@ -82,7 +82,7 @@ def test_mdf_without_asammdf_names_the_extra(tmp_path, ts, monkeypatch):
         return real(name, *a, **k)
 
     monkeypatch.setattr(builtins, "__import__", fake)
-    with pytest.raises(CyclesimError, match=r'pip install "cyclesim\[mdf\]"'):
+    with pytest.raises(CyclesimError, match=r'pip install -e "\.\[mdf\]"'):
         write_mdf(tmp_path / "t.mf4", ts)
 
 
