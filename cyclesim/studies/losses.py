@@ -186,8 +186,9 @@ class LossBreakdown:
         for s in self.steps:
             loss = "" if s["step"] == 0 else f"{s['loss_points']:9.2f}"
             lines.append(f"  {s['step']:>2d} {s['label']:<49s}{100 * s['efficiency']:11.2f}{loss}")
-        lines.append(f"  Otto formula 1 - r^(1-gamma) = {100 * self.otto_formula:.2f} %;"
-                     f" losses add up to {float(np.sum(self.losses)):.2f} points")
+        lines.append(f"  Otto formula 1 - r^(1-gamma) = {100 * self.otto_formula:.2f} % (step 0 simulates it: a"
+                     f" 1-deg burn about TDC at the integration step, {100 * abs(self.steps[0]['efficiency'] - self.otto_formula):.2f}"
+                     f" points off); losses add up to {float(np.sum(self.losses)):.2f} points")
         if self.second is not None:
             lines.append(f"second order: {' > '.join(self.second.order)}")
             for a in self.second.steps[1:]:
@@ -305,7 +306,7 @@ def _steps_from(order, closed_eta, full, comp_eff_note=None) -> list[dict]:
     for i, (k, eta) in enumerate(zip(keys, closed_eta)):
         steps.append({"step": i, "key": k, "label": STEP_LABELS[k], "efficiency": float(eta),
                       "loss_points": 0.0 if prev is None else 100.0 * (prev - float(eta)),
-                      "basis": "closed cycle, work IVC..EVO / trapped fuel energy"})
+                      "basis": "closed cycle, work BDC..EVO (BDC..BDC before the EVO step) / trapped fuel energy"})
         prev = float(eta)
     s = full.summary
     for k, eta, basis in (("gas_exchange", s["eta_indicated_gross"], "full cycle, gross work / inducted fuel energy"),
@@ -401,6 +402,12 @@ def loss_breakdown(
                        notes=notes)
     lb.notes.append("the split of the losses depends on the order in which the effects are switched on;"
                     " the total from Otto to brake does not")
+    ge = next((x for x in lb.steps if x["key"] == "gas_exchange"), None)
+    if ge is not None and ge["loss_points"] < 0:
+        lb.notes.append("the gas-exchange step gains: the closed cycle ends at EVO, so it counts none of the work"
+                        " the gas still does during blowdown (EVO to BDC), and it compresses the charge from BDC"
+                        " where the real one is compressed from IVC; the full cycle's gross work has both; from"
+                        " here the basis is the full cycle on the inducted fuel")
     lb.notes.append(f"closed-cycle steps start at BDC at {ivc_state['p_bar']:.3f} bar, {ivc_state['T_K']:.0f} K,"
                     f" burned-gas fraction {ivc_state['residual']:.3f} (the full cycle's trapped state)")
     if getattr(full, "warnings", None):
