@@ -468,6 +468,14 @@ def _initial_state(batch, rhs: _RHS, theta0: float, mode: str) -> np.ndarray:
     return y
 
 
+EVENT_FINE_DEG = 20.0
+"""With a valve open the step is ``simulation.step_deg`` within this many degrees of a valve
+opening or closing and while intake and exhaust are both open (overlap); elsewhere in the
+strokes with a valve open (the flow is smooth there) it is twice the step.  On the demo and
+four other operating points this moves net IMEP, peak pressure and PMEP by less than 5e-6
+(relative or bar) and cuts the cycle's cost by about a quarter; at 1500 rpm and 0.4 bar,
+where net IMEP is 0.1 bar, its error against a tenfold finer step grows from 1.7e-4 to
+3.4e-4 bar."""
 CLOSED_STEP_FACTOR = 4
 """While every valve of a batch is shut the step is this many times ``simulation.step_deg``.
 
@@ -500,7 +508,8 @@ def grid_for(batch, mode: str, step_scale: float = 1.0) -> np.ndarray:
     """Crank grid [deg] of one cycle: -360..360 (full) or IVC..EVO (closed).
 
     Full mode: the step ``h`` (``simulation.step_deg``, scaled for low speed and by
-    ``step_scale``) where any valve of any case of the batch is open, and
+    ``step_scale``) near valve events and in the overlap (:data:`EVENT_FINE_DEG`), ``2 h``
+    elsewhere while any valve of any case of the batch is open, and
     ``CLOSED_STEP_FACTOR * h`` on the stretches of that lattice where all are shut.
     Closed mode: uniform at ``CLOSED_STEP_FACTOR * h``.  A submodel's
     ``closed_step_limit`` caps the factor.
@@ -524,6 +533,22 @@ def grid_for(batch, mode: str, step_scale: float = 1.0) -> np.ndarray:
         shut = ~cuts
         j = np.arange(n + 1)
         inner = (j % k != 0) & shut[np.minimum(j // k, nc - 1)]
+        if EVENT_FINE_DEG > 0 and k % 2 == 0:
+            ai = np.asarray(areas["intake"]) > 0
+            ae = np.asarray(areas["exhaust"]) > 0
+            ai = ai.any(axis=0) if ai.ndim > 1 else ai
+            ae = ae.any(axis=0) if ae.ndim > 1 else ae
+            chg = np.zeros(half.size, dtype=bool)
+            for a in (ai, ae):
+                d = np.flatnonzero(a[1:] != a[:-1])
+                for i0 in d:
+                    chg[np.abs(half - half[i0]) <= EVENT_FINE_DEG] = True
+            ev = chg | (ai & ae)
+            # blocks of two fine intervals (half points 4c .. 4c+4) away from events: one double step
+            nb = n // 2
+            evb = ev[: 4 * nb].reshape(nb, 4).any(axis=1) | ev[4::4][:nb]
+            mid_inner = (j % 2 == 1) & ~evb[np.minimum(j // 2, nb - 1)]
+            inner = inner | mid_inner
         return fine[~inner]
     a = float(batch.valves.ivc_deg[0])
     b = float(batch.valves.evo_deg[0])
