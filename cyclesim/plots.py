@@ -34,10 +34,24 @@ def _save(fig, path: Path) -> Path:
     return path
 
 
-def _tdc_lines(ax, th):
+def _tdc_lines(ax, th, label: bool = True):
+    """Dotted lines at the dead centres, named at the top of the axes (TDC, BDC)."""
     for x in (-360, -180, 0, 180, 360):
         if th.min() <= x <= th.max():
             ax.axvline(x, color="0.6", lw=0.6, ls=":")
+            if label:
+                ax.text(x, 1.0, "BDC" if abs(x) == 180 else "TDC", transform=ax.get_xaxis_transform(),
+                        fontsize=7, color="0.45", ha="center", va="bottom")
+
+
+def _plain_log_ticks(ax):
+    """Log axes labelled with plain numbers at 1-2-5 steps (not only at the powers of ten)."""
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+    for axis in (ax.xaxis, ax.yaxis):
+        axis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
+        axis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+        axis.set_minor_formatter(NullFormatter())
 
 
 def plot_case(res, out: Path) -> list[Path]:
@@ -65,7 +79,7 @@ def plot_case(res, out: Path) -> list[Path]:
     _tdc_lines(ax, th)
     ax.set_xlabel("crank angle [deg]  (0 = firing TDC)")
     ax.set_ylabel("cylinder pressure [bar]")
-    ax.set_title(f"Cylinder pressure - {title}")
+    ax.set_title(f"Cylinder pressure - {title}", pad=14)
     ax.legend(frameon=False, fontsize=8)
     files.append(_save(fig, out / "pressure.png"))
 
@@ -82,6 +96,7 @@ def plot_case(res, out: Path) -> list[Path]:
     ax.set_ylabel("cylinder pressure [bar] (log)")
     ax.set_title("log p - log V" + (" (pumping loop at the bottom)" if "pmep_bar" in s else ""))
     ax.grid(True, which="both", alpha=0.25)
+    _plain_log_ticks(ax)
     files.append(_save(fig, out / "logp_logv.png"))
 
     fig, ax1 = plt.subplots(figsize=(7.5, 4.2))
@@ -114,15 +129,15 @@ def plot_case(res, out: Path) -> list[Path]:
         a1.plot(th, t["exhaust_lift_mm"], color="tab:red", label="exhaust")
         a1.set_ylabel("valve lift [mm]")
         a1.legend(frameon=False, fontsize=8)
-        a1.set_title("Valve lift and mass flow (positive into the cylinder)")
+        a1.set_title("Valve lift and mass flow (positive into the cylinder)", pad=14)
         a2.plot(th, t["intake_flow_g_per_s"], color="tab:blue", label="intake valves")
         a2.plot(th, t["exhaust_flow_g_per_s"], color="tab:red", label="exhaust valves")
         a2.axhline(0, color="0.4", lw=0.6)
         a2.set_ylabel("mass flow [g/s]")
         a2.set_xlabel("crank angle [deg]  (0 = firing TDC)")
         a2.legend(frameon=False, fontsize=8)
-        for a in (a1, a2):
-            _tdc_lines(a, th)
+        _tdc_lines(a1, th)
+        _tdc_lines(a2, th, label=False)
         files.append(_save(fig, out / "valves.png"))
 
     eb = s.get("energy_balance")

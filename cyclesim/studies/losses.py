@@ -467,6 +467,15 @@ def _waterfall(ax, lb: LossBreakdown, title: str) -> None:
     ax.set_ylim(0, eta0 * 1.12)
 
 
+_SHORT = {"real_gas": "real gas", "dissociation": "dissociation", "burn": "burn",
+          "heat_transfer": "walls", "blowby": "blowby", "combustion": "incomplete comb.",
+          "evo": "EVO", "gas_exchange": "gas exchange", "pumping": "pumping", "friction": "friction"}
+
+
+def _order_text(order) -> str:
+    return " > ".join(_SHORT.get(k, k) for k in order)
+
+
 def plot_waterfall(lb: LossBreakdown, path: Path) -> Path:
     """Waterfall chart of the efficiency steps (and of the second order, if any)."""
     from ..plots import _plt, _save
@@ -474,8 +483,9 @@ def plot_waterfall(lb: LossBreakdown, path: Path) -> Path:
     plt = _plt()
     n = 2 if lb.second is not None else 1
     fig, axes = plt.subplots(1, n, figsize=(8.5 * n, 5.2), squeeze=False)
-    _waterfall(axes[0, 0], lb, f"{lb.base_config}: losses, order {', '.join(lb.order[:4])}, ...")
+    _waterfall(axes[0, 0], lb, f"{lb.base_config}: from the Otto cycle to brake output\n"
+               f"order: {_order_text(lb.order)}")
     if lb.second is not None:
-        _waterfall(axes[0, 1], lb.second, f"second order {', '.join(lb.second.order[:4])}, ...")
+        _waterfall(axes[0, 1], lb.second, f"the same, second order\norder: {_order_text(lb.second.order)}")
     fig.text(0.01, 0.005, "The split depends on the order in which the effects are switched on.", fontsize=7.5)
     return _save(fig, Path(path))
