@@ -158,8 +158,9 @@ def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides:
         i, j = int(np.nanargmax(tq)), int(np.nanargmax(pw))
         m.notes.append(f"peak torque {tq[i]:.1f} N m at {sp[i]:g} rpm; peak power {pw[j]:.1f} kW at {sp[j]:g} rpm"
                        " (on the speeds simulated)")
-    m.notes.append("the spark advance, mixture and intake pressure are the case's at every speed"
-                   " (a real full-load curve is calibrated per speed)")
+    m.notes.append("the spark advance, mixture, intake and exhaust pressure are the case's at every speed"
+                   " (a real full-load curve is calibrated per speed, and its exhaust back pressure rises"
+                   " with the flow)")
     if out is not None:
         _write(m, Path(out), "full_load", plots, _plot_full_load)
     return m
@@ -246,10 +247,21 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
     bad = [r for r in rows if r["error"]]
     if bad:
         m.notes.append(f"{len(bad)} point(s) failed (see the error column)")
+    m.notes.append(f"the exhaust pressure is the case's {float(case.operating.exhaust_pressure_bar):g} bar at"
+                   " every point (a real exhaust system's back pressure falls with the flow at light load,"
+                   " which leaves less residual gas)")
+    if case.submodels["burn"].model in FIXED_DURATION_BURNS:
+        m.notes.append(f"burn model {case.submodels['burn'].model!r} keeps its delay and duration at every"
+                       " point, so MBT moves little with load; burn.model=wiebe_flame scales them with the"
+                       " flame speed (dilution, load, speed)")
     m.notes.append(f"recommended advances are MBT only, no knock limit: {SPARK_CAUTION}")
     if out is not None:
         _write(m, Path(out), "part_load_map", plots, _plot_part_load)
     return m
+
+
+FIXED_DURATION_BURNS = ("wiebe", "double_wiebe", "wiebe_ca50")
+"""Burn models whose delay and duration do not follow the operating point."""
 
 
 def _write(m: MapResult, out: Path, stem: str, plots: bool, plotter) -> None:
