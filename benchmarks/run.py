@@ -25,6 +25,8 @@ TARGETS = {
     "one_point_s": 1.0,
     "spark_sweep_41_s": 3.0,
     "grid_1000_s": 15.0,
+    # the same grid as `cyclesim sweep` runs it by default (above 64 cases: one worker per CPU)
+    "grid_1000_workers2_s": 15.0,
     "batch100_per_case_ratio": 1 / 20,
     "closed_cycle_per_case_41_ms": 0.5,
     "traces_300_independent_s": 3.0,
