@@ -233,6 +233,7 @@ def _add_engineering_parsers(subparsers) -> None:
     r.add_argument("source", help="a run or study folder, or a config file / built-in name")
     r.add_argument("--out", type=Path, default=Path("report.html"), help="HTML file (default report.html)")
     r.add_argument("--title", default=None)
+    r.add_argument("--force", action="store_true", help="replace an existing --out file")
     r.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE")
     r.add_argument("--debug", action="store_true", help="show tracebacks")
 
@@ -328,6 +329,10 @@ def cmd_report(args) -> int:
     """``cyclesim report``: one HTML page of a folder, or of a config run now."""
     from .report import report_for_run, report_for_study, write_report
 
+    from .errors import CyclesimError
+
+    if Path(args.out).exists() and not args.force:
+        raise CyclesimError(f"--out {args.out}: file exists; use --force to replace it")
     src = Path(args.source)
     if src.is_dir():
         secs = report_for_study(src)

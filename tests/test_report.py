@@ -101,3 +101,10 @@ def test_cli_report_of_a_folder_and_of_a_config(run_result, tmp_path, capsys):
     assert "self-contained" in capsys.readouterr().out
     # a missing folder or config is a one-line error with exit status 2 (the CLI's convention)
     assert main(["report", str(tmp_path / "nope.yaml"), "--out", str(tmp_path / "c.html")]) == 2
+    # an existing page is replaced only with --force, like the other commands' --out folders
+    before = (tmp_path / "a.html").read_bytes()
+    capsys.readouterr()
+    assert main(["report", str(folder), "--out", str(tmp_path / "a.html"), "--title", "again"]) == 2
+    assert "--force" in capsys.readouterr().err and (tmp_path / "a.html").read_bytes() == before
+    assert main(["report", str(folder), "--out", str(tmp_path / "a.html"), "--title", "again", "--force"]) == 0
+    assert "again" in (tmp_path / "a.html").read_text(encoding="utf-8")
