@@ -54,12 +54,39 @@ def add_parsers(subparsers) -> None:
     _simple(c)
 
 
-def _progress(args):
-    import sys
+class _Progress:
+    """Progress lines on stderr: on a terminal each replaces the one before (one live line, ended
+    by :meth:`close`); into a file or pipe every line is kept."""
 
-    if args.no_progress:
-        return None
-    return lambda msg: print(f"  {msg}", file=sys.stderr, flush=True)
+    def __init__(self, stream=None):
+        import sys
+
+        self.stream = stream or sys.stderr
+        self.live = bool(getattr(self.stream, "isatty", lambda: False)())
+        self.open = False
+
+    def __call__(self, msg: str) -> None:
+        if self.live:
+            import shutil
+
+            # a live line wider than the terminal would wrap, and the next one could not replace it
+            width = max(shutil.get_terminal_size((100, 24)).columns - 1, 20)
+            line = f"  {msg}"
+            self.stream.write("\r\033[K" + (line if len(line) <= width else line[: width - 3] + "..."))
+            self.open = True
+        else:
+            self.stream.write(f"  {msg}\n")
+        self.stream.flush()
+
+    def close(self) -> None:
+        if self.open:
+            self.stream.write("\r\033[K")
+            self.stream.flush()
+            self.open = False
+
+
+def _progress(args):
+    return None if args.no_progress else _Progress()
 
 
 def cmd_engine(args) -> int:
@@ -70,8 +97,13 @@ def cmd_engine(args) -> int:
     out = prepare_out_dir(args.out, args.force)
     modes = tuple(x.strip() for x in args.modes.split(",")) if args.modes else ()
     t0 = time.perf_counter()
-    eng = run_engine(args.config, args.overrides, modes=modes, manifolds=args.manifolds, walls=args.walls,
-                     progress=_progress(args))
+    prog = _progress(args)
+    try:
+        eng = run_engine(args.config, args.overrides, modes=modes, manifolds=args.manifolds, walls=args.walls,
+                         progress=prog)
+    finally:
+        if prog is not None:
+            prog.close()
     print(eng.text())
     print(f"simulated in {time.perf_counter() - t0:.1f} s")
     files = []
@@ -102,10 +134,15 @@ def cmd_cut_test(args) -> int:
     out = prepare_out_dir(args.out, args.force)
     effects = tuple(x.strip() for x in args.effects.split(",")) if args.effects else EFFECTS
     t0 = time.perf_counter()
-    ct = cylinder_cut_test(args.config, args.overrides, effects=effects,
-                           pressure_friction_model=args.pressure_friction_model,
-                           reading_time_s=args.reading_time, speed_error_rpm=args.speed_error, out=out,
-                           plots=not args.no_plots, progress=_progress(args))
+    prog = _progress(args)
+    try:
+        ct = cylinder_cut_test(args.config, args.overrides, effects=effects,
+                               pressure_friction_model=args.pressure_friction_model,
+                               reading_time_s=args.reading_time, speed_error_rpm=args.speed_error, out=out,
+                               plots=not args.no_plots, progress=prog)
+    finally:
+        if prog is not None:
+            prog.close()
     print(ct.text())
     print(f"simulated in {time.perf_counter() - t0:.1f} s")
     print(f"wrote {len(ct.files)} files to {out}/: " + ", ".join(Path(f).name for f in ct.files))

@@ -211,3 +211,26 @@ def test_blowdown_interference_and_divided_exhaust():
     assert e["throttle_mass_mg_per_cycle"] == pytest.approx(e["cylinder_draw_mg_per_cycle"], rel=1e-3)
     with pytest.raises(ConfigError, match="exhaust_branches"):
         run_engine("demo", four + ["multi_cylinder.exhaust_branches=[1, 2]"])
+
+
+def test_progress_lines_replace_each_other_only_on_a_terminal():
+    # on a terminal one live line (carriage return and erase-to-end-of-line, ECMA-48 EL), cleared at
+    # the end so the results start on a clean line; into a file or pipe every message is kept as a line
+    import io
+
+    from cyclesim.cli_engine import _Progress
+
+    class Tty(io.StringIO):
+        def isatty(self):
+            return True
+
+    for stream, live in ((Tty(), True), (io.StringIO(), False)):
+        p = _Progress(stream)
+        p("coupled cycle 1: change 1.0e+00")
+        p("coupled cycle 2: change 5.7e-02")
+        p.close()
+        text = stream.getvalue()
+        if live:
+            assert "\n" not in text and text.count("\r\033[K") == 3 and text.endswith("\r\033[K")
+        else:
+            assert text == "  coupled cycle 1: change 1.0e+00\n  coupled cycle 2: change 5.7e-02\n"
