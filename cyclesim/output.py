@@ -183,6 +183,16 @@ def summary_table(res) -> str:
     row("max pressure rise rate", "dp_dtheta_max_bar_per_deg", "bar/deg", ".2f")
     row("peak mean gas temperature", "T_max_K", "K", ".0f")
     row("combustion efficiency", "combustion_efficiency", "%", ".1f", 100)
+    if "knock_integral_max" in s:
+        head("Knock (end gas)")
+        row("knock integral max (1 = onset)", "knock_integral_max", "", ".3f")
+        onset = s.get("knock_onset_deg")
+        if onset is None or not np.isfinite(onset):
+            lines.append(f"  {'autoignition onset':<34s}{'none':>10s}")
+        else:
+            row("autoignition onset", "knock_onset_deg", "deg ATDC", ".1f")
+            row("unburned charge at onset", "knock_unburned_fraction_at_onset", "%", ".0f", 100)
+        row("end-gas peak temperature", "end_gas_temperature_max_K", "K", ".0f")
     eb = s.get("energy_balance")
     if isinstance(eb, dict):
         base_key = "fuel_energy_J" if "fuel_energy_J" in eb else "chemical_energy_released_J"

@@ -210,3 +210,23 @@ def test_figures_use_ivc_to_evo_of_the_trace():
     assert f["knock_margin"][0] == pytest.approx(1.0 - 270.0 / 200.0)
     w = m.warnings(trace)[0]
     assert any("octane number 75" in x for x in w) and any("autoignition predicted" in x for x in w)
+
+
+def test_printed_summary_has_the_knock_figures():
+    # the run table shows the end-gas check whenever a knock model is chosen: the integral's maximum
+    # (Livengood & Wu 1955: autoignition where it reaches 1), the onset or "none", the end-gas peak T
+    from cyclesim.output import summary_table
+
+    quiet = cyclesim.run("demo_turbo", ["simulation.step_deg=1.0"])
+    loud = cyclesim.run("demo_turbo", ["simulation.step_deg=1.0", "burn.spark_advance_deg=30"])
+    for res in (quiet, loud):
+        text = summary_table(res)
+        assert "Knock (end gas)" in text
+        line = next(ln for ln in text.splitlines() if ln.strip().startswith("knock integral max"))
+        assert float(line.split()[-1]) == pytest.approx(res.summary["knock_integral_max"], abs=6e-4)
+    assert quiet.summary["knock_integral_max"] < 1.0 < loud.summary["knock_integral_max"]
+    onset = next(ln for ln in summary_table(quiet).splitlines() if "autoignition onset" in ln)
+    assert onset.split()[-1] == "none"
+    onset = next(ln for ln in summary_table(loud).splitlines() if "autoignition onset" in ln)
+    assert float(onset.split()[-3]) == pytest.approx(loud.summary["knock_onset_deg"], abs=0.06)
+    assert "Knock" not in summary_table(cyclesim.run("demo", ["simulation.mode=closed", "simulation.step_deg=1.0"]))
