@@ -222,6 +222,9 @@ def _add_engineering_parsers(subparsers) -> None:
     m.add_argument("--loads", default=None, metavar="SPEC", help="intake pressures [bar]")
     m.add_argument("--spark", choices=("mbt", "fixed"), default="mbt")
     m.add_argument("--advances", default=None, metavar="SPEC", help="spark advances tried per point")
+    m.add_argument("--exhaust", choices=("flow", "fixed"), default="flow",
+                   help="exhaust back pressure: from each point's flow through a fixed restriction, the"
+                        " config's value at the config's own flow (default), or the config's value everywhere")
     m.add_argument("--full-load-only", action="store_true")
     m.add_argument("--part-load-only", action="store_true")
     _simple(m)
@@ -312,12 +315,13 @@ def cmd_map(args) -> int:
     t0 = time.perf_counter()
     files = []
     if not args.part_load_only:
-        fl = full_load_curve(args.config, args.speeds, overrides=args.overrides, out=out, plots=not args.no_plots)
+        fl = full_load_curve(args.config, args.speeds, overrides=args.overrides, out=out, plots=not args.no_plots,
+                             exhaust=args.exhaust)
         print(fl.text())
         files += fl.files
     if not args.full_load_only:
         pm = part_load_map(args.config, args.speeds, args.loads, args.spark, args.advances,
-                           overrides=args.overrides, out=out, plots=not args.no_plots)
+                           overrides=args.overrides, out=out, plots=not args.no_plots, exhaust=args.exhaust)
         print(pm.text())
         files += pm.files
     print(f"simulated in {time.perf_counter() - t0:.1f} s")

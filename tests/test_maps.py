@@ -79,3 +79,32 @@ def test_map_inputs_are_checked():
         part_load_map("demo", [3000], [0.6], spark="best")
     with pytest.raises(ConfigError):
         part_load_map("demo", [3000], [-0.6], spark="fixed")
+
+
+def test_exhaust_back_pressure_follows_the_flow():
+    # a fixed turbulent restriction to ambient: dp grows with the square of the mass flow (Bernoulli,
+    # dp = mdot^2 / (2 rho (Cd A)^2); common practice), anchored at the case's own point (3000 rpm, WOT,
+    # 1.08 bar); iterated with the cylinder until the pressure moves by less than 1e-3 bar
+    from cyclesim.studies.maps import EXHAUST_TOLERANCE_BAR
+
+    fl = full_load_curve("demo", [2000, 3000, 4500], overrides=FIXED)
+    rows = {r["speed_rpm"]: r for r in fl.rows}
+    ref = rows[3000]
+    assert ref["exhaust_pressure_bar"] == pytest.approx(1.08, abs=1e-9)
+    p_amb = load_config("demo").multi_cylinder.ambient_pressure_bar
+    for r in fl.rows:
+        law = p_amb + (1.08 - p_amb) * (r["exhaust_flow_g_per_s"] / ref["exhaust_flow_g_per_s"]) ** 2
+        assert r["exhaust_pressure_bar"] == pytest.approx(law, abs=EXHAUST_TOLERANCE_BAR)
+    assert rows[2000]["exhaust_pressure_bar"] < 1.08 < rows[4500]["exhaust_pressure_bar"]
+    # against the same curve at a fixed 1.08 bar: more pumping work at high speed, less at low speed
+    fx = {r["speed_rpm"]: r for r in full_load_curve("demo", [2000, 4500], overrides=FIXED, exhaust="fixed").rows}
+    assert rows[4500]["pmep_bar"] > fx[4500]["pmep_bar"] and rows[2000]["pmep_bar"] < fx[2000]["pmep_bar"]
+    # throttled: the back pressure falls towards ambient and less burned gas stays behind (Heywood 1988
+    # sec. 6.4, residual rises with the exhaust-to-intake pressure ratio; from memory)
+    pm = part_load_map("demo", [2000], [0.4], spark="fixed", overrides=FIXED)
+    pf = part_load_map("demo", [2000], [0.4], spark="fixed", overrides=FIXED, exhaust="fixed")
+    assert p_amb < pm.rows[0]["exhaust_pressure_bar"] < 1.02
+    assert pm.rows[0]["residual_fraction"] < pf.rows[0]["residual_fraction"]
+    assert pf.rows[0]["exhaust_pressure_bar"] == 1.08
+    with pytest.raises(ConfigError, match="must exceed the ambient"):
+        full_load_curve("demo", [3000], overrides=FIXED + ["operating.exhaust_pressure_bar=0.99"])

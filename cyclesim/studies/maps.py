@@ -13,9 +13,15 @@
   and every point is run once more at its MBT; ``spark="fixed"`` keeps the
   case's advance.  Contour plots of BSFC and brake efficiency over speed and
   BMEP, of BMEP over speed and intake pressure, and of the spark advance.
+* Both take the exhaust back pressure from each point's flow (``exhaust="flow"``,
+  the default): the config's ``operating.exhaust_pressure_bar`` holds at the
+  config's own operating point, and the drop across the exhaust system to
+  ambient grows with the square of the flow, iterated with the cylinder (so
+  light load keeps less residual gas and high speed pumps harder);
+  ``exhaust="fixed"`` keeps the config's value everywhere.
 
 Below ``simulation.step_reference_rpm`` (3000 rpm by default) the step
-shrinks with the square of the speed, so the low speeds cost most; override
+shrinks with the speed (see :func:`cyclesim.config.effective_step_deg`), so the low speeds cost most; override
 ``simulation.step_deg`` (e.g. 1.0) for a quick look.  The recommended advance
 is MBT only: the map knows no knock limit unless the case has a knock model
 and the user reads it with a spark study at the point (see the caution).
@@ -72,19 +78,21 @@ class MapResult:
         if self.kind == "full_load":
             lines = [f"full-load curve: {self.base_config}",
                      f"  {'speed rpm':>10s}{'torque N m':>12s}{'power kW':>10s}{'BMEP bar':>10s}{'BSFC g/kWh':>12s}"
-                     f"{'vol. eff. %':>12s}"]
+                     f"{'vol. eff. %':>12s}{'p_exh bar':>10s}"]
             for r in self.rows:
                 lines.append(f"  {r['speed_rpm']:10.0f}{_f(r, 'torque_Nm', '.1f', 12)}{_f(r, 'power_kW', '.1f', 10)}"
                              f"{_f(r, 'bmep_bar', '.2f', 10)}{_f(r, 'bsfc_g_per_kWh', '.0f', 12)}"
-                             f"{_f(r, 'volumetric_efficiency', '.1f', 12, 100)}")
+                             f"{_f(r, 'volumetric_efficiency', '.1f', 12, 100)}{_f(r, 'exhaust_pressure_bar', '.3f', 10)}")
         else:
             lines = [f"part-load map: {self.base_config}",
-                     f"  {'speed rpm':>10s}{'p_in bar':>9s}{'spark BTDC':>11s}{'BMEP bar':>10s}{'BSFC g/kWh':>12s}"
-                     f"{'eta_b %':>9s}"]
+                     f"  {'speed rpm':>10s}{'p_in bar':>9s}{'p_exh bar':>10s}{'spark BTDC':>11s}{'BMEP bar':>10s}"
+                     f"{'BSFC g/kWh':>12s}{'eta_b %':>9s}{'residual %':>11s}"]
             for r in self.rows:
                 lines.append(f"  {r['speed_rpm']:10.0f}{r['intake_pressure_bar']:9.2f}"
+                             f"{_f(r, 'exhaust_pressure_bar', '.3f', 10)}"
                              f"{_f(r, 'spark_advance_deg', '.1f', 11)}{_f(r, 'bmep_bar', '.2f', 10)}"
-                             f"{_f(r, 'bsfc_g_per_kWh', '.0f', 12)}{_f(r, 'eta_brake', '.1f', 9, 100)}")
+                             f"{_f(r, 'bsfc_g_per_kWh', '.0f', 12)}{_f(r, 'eta_brake', '.1f', 9, 100)}"
+                             f"{_f(r, 'residual_fraction', '.1f', 11, 100)}")
         for n in self.notes:
             lines.append(f"note: {n}")
         lines.append(f"CAUTION: {self.caution}")
@@ -128,8 +136,86 @@ def _row(res, extra: dict) -> dict:
     return row
 
 
+EXHAUST_MODES = ("flow", "fixed")
+EXHAUST_TOLERANCE_BAR = 1e-3
+"""Back pressure from the flow: largest change [bar] between passes at which it counts as settled."""
+EXHAUST_MAX_PASSES = 6
+
+
+def _exhaust_flow(res) -> float:
+    """Mass flow out through one cylinder's exhaust valves [kg/s]: inducted mass per cycle times
+    cycles per second (four-stroke: speed / 120)."""
+    return res.summary["inducted_mass_mg"] * 1e-6 * float(res.inputs["operating.speed_rpm"]) / 120.0
+
+
+class _BackPressure:
+    """Exhaust back pressure that follows the flow through a fixed restriction to ambient.
+
+    The case's ``operating.exhaust_pressure_bar`` is the back pressure at the case's own flow
+    ``mdot_ref``; downstream of the valves (manifold, catalyst, silencers) the pressure drop of a
+    fixed turbulent restriction grows with the square of the flow,
+    ``p = p_amb + (p_case - p_amb) (mdot / mdot_ref)^2`` (Bernoulli: ``dp = mdot^2 / (2 rho (Cd A)^2)``,
+    at the density of the reference; common practice).  ``p_amb`` is
+    ``multi_cylinder.ambient_pressure_bar``.
+    """
+
+    def __init__(self, case, mode: str):
+        if mode not in EXHAUST_MODES:
+            raise ConfigError(f"exhaust {mode!r}: expected one of {', '.join(EXHAUST_MODES)}")
+        self.mode = mode
+        self.p_case = float(case.operating.exhaust_pressure_bar)
+        self.p_amb = float(case.section("multi_cylinder").ambient_pressure_bar)
+        self.n_ref = float(case.operating.speed_rpm)
+        self.pin_ref = float(case.operating.intake_pressure_bar)
+        self.m_ref = None
+        if mode == "flow" and self.p_case <= self.p_amb:
+            raise ConfigError(f"exhaust 'flow': operating.exhaust_pressure_bar = {self.p_case:g} must exceed the"
+                              f" ambient {self.p_amb:g} bar (multi_cylinder.ambient_pressure_bar), or use exhaust 'fixed'")
+
+    def law(self, mdot) -> float:
+        return self.p_amb + (self.p_case - self.p_amb) * (float(mdot) / self.m_ref) ** 2
+
+    def settle(self, case, points, extra=lambda pt: {}):
+        """Back pressure per (speed, intake pressure) point, iterated with the cylinder until it
+        moves by less than :data:`EXHAUST_TOLERANCE_BAR`; returns ({point: bar}, {point: result of the
+        last pass}, passes).  Fixed mode: the case's pressure, no simulation."""
+        from ..api import simulate
+        from ..errors import CyclesimError
+
+        if self.mode == "fixed":
+            return {pt: self.p_case for pt in points}, None, 0
+        if self.m_ref is None:
+            ref = simulate([case])[0]
+            if ref.error:
+                raise CyclesimError(f"exhaust back pressure from the flow: the case itself failed: {ref.error}")
+            self.m_ref = _exhaust_flow(ref)
+        # first guess: the flow scaled from the case by intake pressure and speed
+        p = {pt: self.p_amb + (self.p_case - self.p_amb) * (pt[1] / self.pin_ref * pt[0] / self.n_ref) ** 2
+             for pt in points}
+        for k in range(1, EXHAUST_MAX_PASSES + 1):
+            res = simulate([case_with(case, {"operating.speed_rpm": pt[0], "operating.intake_pressure_bar": pt[1],
+                                             "operating.exhaust_pressure_bar": p[pt], **extra(pt)})
+                            for pt in points])
+            last = dict(zip(points, res))
+            new = {pt: (p[pt] if r.error else self.law(_exhaust_flow(r))) for pt, r in last.items()}
+            change = max(abs(new[pt] - p[pt]) for pt in points)
+            if change < EXHAUST_TOLERANCE_BAR:
+                return p, last, k
+            p = new
+        return p, last, EXHAUST_MAX_PASSES
+
+    def note(self, passes: int) -> str:
+        if self.mode == "fixed":
+            return (f"the exhaust pressure is the case's {self.p_case:g} bar at every point (exhaust 'fixed'; a real"
+                    " exhaust system's back pressure follows the flow)")
+        return (f"exhaust back pressure from each point's flow through a fixed restriction to"
+                f" {self.p_amb:g} bar: {self.p_case:g} bar at the case's own flow"
+                f" ({1e3 * self.m_ref:.1f} g/s per cylinder), growing with the square of the flow;"
+                f" settled in {passes} pass(es) to {EXHAUST_TOLERANCE_BAR:g} bar")
+
+
 def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides: Sequence[str] = (),
-                    out: str | Path | None = None, plots: bool = True) -> MapResult:
+                    out: str | Path | None = None, plots: bool = True, exhaust: str = "flow") -> MapResult:
     """Full-load torque and power against speed (the case's intake pressure and spark at every speed).
 
     Parameters
@@ -140,14 +226,27 @@ def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides:
         Engine speeds [rpm] (list, ``"a,b,c"`` or ``"start:stop:step"``; default 1500..6000 by 750).
     out : str or Path, optional
         Folder for ``full_load.csv``, ``full_load.json`` and ``full_load.png``.
+    exhaust : {"flow", "fixed"}
+        Exhaust back pressure from each speed's flow (see :class:`_BackPressure`), or the case's
+        ``operating.exhaust_pressure_bar`` at every speed.
     """
     from ..api import simulate
 
     case, label = _base(case, overrides)
     sp = _numbers("speeds", speeds, (1500.0, 2250.0, 3000.0, 3750.0, 4500.0, 5250.0, 6000.0))
-    res = simulate([case_with(case, {"operating.speed_rpm": n}) for n in sp])
-    rows = [_row(r, {"speed_rpm": n, "intake_pressure_bar": case.operating.intake_pressure_bar}) for n, r in zip(sp, res)]
-    cols = ["speed_rpm", "intake_pressure_bar", "spark_advance_deg", *FIGURES, "error", "warnings"]
+    bp = _BackPressure(case, exhaust)
+    pin = float(case.operating.intake_pressure_bar)
+    points = [(n, pin) for n in sp]
+    p_exh, last, passes = bp.settle(case, points)
+    if last is None:
+        res = simulate([case_with(case, {"operating.speed_rpm": n}) for n in sp])
+    else:
+        res = [last[pt] for pt in points]
+    rows = [_row(r, {"speed_rpm": n, "intake_pressure_bar": pin, "exhaust_pressure_bar": p_exh[(n, pin)],
+                     "exhaust_flow_g_per_s": None if r.error else 1e3 * _exhaust_flow(r)})
+            for n, r in zip(sp, res)]
+    cols = ["speed_rpm", "intake_pressure_bar", "exhaust_pressure_bar", "exhaust_flow_g_per_s", "spark_advance_deg",
+            *FIGURES, "error", "warnings"]
     m = MapResult("full_load", rows, cols, base_config=label)
     bad = [r for r in rows if r["error"]]
     if bad:
@@ -158,9 +257,9 @@ def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides:
         i, j = int(np.nanargmax(tq)), int(np.nanargmax(pw))
         m.notes.append(f"peak torque {tq[i]:.1f} N m at {sp[i]:g} rpm; peak power {pw[j]:.1f} kW at {sp[j]:g} rpm"
                        " (on the speeds simulated)")
-    m.notes.append("the spark advance, mixture, intake and exhaust pressure are the case's at every speed"
-                   " (a real full-load curve is calibrated per speed, and its exhaust back pressure rises"
-                   " with the flow)")
+    m.notes.append("the spark advance, mixture and intake pressure are the case's at every speed"
+                   " (a real full-load curve is calibrated per speed)")
+    m.notes.append(bp.note(passes))
     if out is not None:
         _write(m, Path(out), "full_load", plots, _plot_full_load)
     return m
@@ -168,7 +267,7 @@ def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides:
 
 def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spark: str = "mbt",
                   advances=None, *, overrides: Sequence[str] = (), out: str | Path | None = None,
-                  plots: bool = True) -> MapResult:
+                  plots: bool = True, exhaust: str = "flow") -> MapResult:
     """Part-load map over speed x intake pressure, with MBT spark per point or the case's spark.
 
     Parameters
@@ -203,8 +302,16 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
         if len(adv) < 3:
             raise ConfigError("advances: at least 3 are needed to find MBT")
         adv = sorted(adv)
-        grid = [case_with(case, {"operating.speed_rpm": n, "operating.intake_pressure_bar": p,
-                                "burn.spark_advance_deg": a}) for n, p in points for a in adv]
+    bp = _BackPressure(case, exhaust)
+    # the back pressure of each point from its flow at the case's spark (kept for the MBT runs)
+    p_exh, last, passes = bp.settle(case, points)
+
+    def at(n, p, **more):
+        return case_with(case, {"operating.speed_rpm": n, "operating.intake_pressure_bar": p,
+                                "operating.exhaust_pressure_bar": p_exh[(n, p)], **more})
+
+    if spark == "mbt":
+        grid = [at(n, p, **{"burn.spark_advance_deg": a}) for n, p in points for a in adv]
         res = simulate(grid)
         for k, (n, p) in enumerate(points):
             rr = res[k * len(adv):(k + 1) * len(adv)]
@@ -223,22 +330,25 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
         final = []
         for n, p in points:
             a, _ = mbt[(n, p)]
-            final.append(case_with(case, {"operating.speed_rpm": n, "operating.intake_pressure_bar": p,
-                                         **({"burn.spark_advance_deg": a} if a is not None else {})}))
+            final.append(at(n, p, **({"burn.spark_advance_deg": a} if a is not None else {})))
         notes.append(f"MBT per point from advances {', '.join(f'{a:g}' for a in adv)} deg BTDC, read by the"
                      " spark study's torque fit; each point then runs at its MBT")
+        res = simulate(final)
     else:
-        final = [case_with(case, {"operating.speed_rpm": n, "operating.intake_pressure_bar": p}) for n, p in points]
+        res = [last[pt] for pt in points] if last is not None else simulate([at(n, p) for n, p in points])
         notes.append("the case's spark advance at every point")
-    res = simulate(final)
+    notes.append(bp.note(passes) + (" (found at the case's spark, kept at MBT)" if spark == "mbt"
+                                    and bp.mode == "flow" else ""))
     rows = []
     for (n, p), r in zip(points, res):
-        extra = {"speed_rpm": n, "intake_pressure_bar": p}
+        extra = {"speed_rpm": n, "intake_pressure_bar": p, "exhaust_pressure_bar": p_exh[(n, p)],
+                 "exhaust_flow_g_per_s": None if r.error else 1e3 * _exhaust_flow(r)}
         if spark == "mbt":
             a, how = mbt[(n, p)]
             extra["spark_source"] = how
         rows.append(_row(r, extra))
-    cols = ["speed_rpm", "intake_pressure_bar", "spark_advance_deg", *( ["spark_source"] if spark == "mbt" else []),
+    cols = ["speed_rpm", "intake_pressure_bar", "exhaust_pressure_bar", "exhaust_flow_g_per_s", "spark_advance_deg",
+            *(["spark_source"] if spark == "mbt" else []),
             *FIGURES, "error", "warnings"]
     m = MapResult("part_load", rows, cols, notes=notes, base_config=label)
     edge = [r for r in rows if r.get("spark_source", "").startswith("best advance")]
@@ -247,10 +357,7 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
     bad = [r for r in rows if r["error"]]
     if bad:
         m.notes.append(f"{len(bad)} point(s) failed (see the error column)")
-    m.notes.append(f"the exhaust pressure is the case's {float(case.operating.exhaust_pressure_bar):g} bar at"
-                   " every point (a real exhaust system's back pressure falls with the flow at light load,"
-                   " which leaves less residual gas)")
-    if case.submodels["burn"].model in FIXED_DURATION_BURNS:
+    if spark == "mbt" and case.submodels["burn"].model in FIXED_DURATION_BURNS:
         m.notes.append(f"burn model {case.submodels['burn'].model!r} keeps its delay and duration at every"
                        " point, so MBT moves little with load; burn.model=wiebe_flame scales them with the"
                        " flame speed (dilution, load, speed)")
