@@ -120,6 +120,8 @@ def cmd_sweep(args) -> int:
                 overrides=args.overrides, **_where(args))
     n, nf = len(res.rows), len(res.failed)
     print(f"{n} cases, {n - nf} ok, {nf} failed, in {time.perf_counter() - t0:.1f} s")
+    if n:
+        print(res.text())
     for r in res.rows:
         if r.get("error"):
             print(f"  case {r['case']}: {r['error']}")

@@ -237,3 +237,18 @@ def test_cli_sweep_handler(tmp_path, capsys):
     assert _cli(argv + ["--resume"]) == 0
     with pytest.raises(ConfigError, match="KEY=VALUES"):
         _cli(["sweep", "--vary", "burn.spark_advance_deg", "--out", str(tmp_path / "x")])
+
+
+def test_printed_table_shows_the_varied_keys_and_figures(base):
+    # the closed-cycle demo has no brake figures: the table shows what the rows hold
+    res = sweep(base, [(SPARK, "10:40:1")])
+    text = res.text(max_rows=12)
+    lines = text.splitlines()
+    assert lines[0].split()[:3] == ["spark_advance_deg", "CA50", "deg"]
+    assert len(lines) == 1 + 12 + 1 and "... 19 more rows in sweep.csv ..." in text
+    first = lines[1].split()
+    assert float(first[0]) == 10 and float(first[1]) == pytest.approx(res.rows[0]["ca50_deg"], abs=0.05)
+    assert float(first[2]) == pytest.approx(res.rows[0]["p_max_bar"], abs=0.05)
+    assert float(lines[-1].split()[0]) == 40
+    bad = sweep(base, [("burn.duration_deg", "40,-5")])
+    assert bad.text().splitlines()[2].split() == ["-5", "failed"]

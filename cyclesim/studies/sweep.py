@@ -337,6 +337,13 @@ def read_sweep_csv(path: str | Path) -> tuple[list[str], list[dict]]:
 # --------------------------------------------------------------------------
 
 
+SWEEP_TABLE = (("imep_net_bar", "IMEP bar", ".2f", 1.0), ("bmep_bar", "BMEP bar", ".2f", 1.0),
+               ("torque_Nm", "torque N m", ".1f", 1.0), ("bsfc_g_per_kWh", "BSFC g/kWh", ".0f", 1.0),
+               ("ca50_deg", "CA50 deg", ".1f", 1.0), ("p_max_bar", "p_max bar", ".1f", 1.0),
+               ("residual_fraction", "residual %", ".1f", 100.0))
+"""Figures in the printed sweep table: (summary key, heading, format, scale)."""
+
+
 @dataclass
 class SweepResult:
     """The table of a sweep.
@@ -364,6 +371,34 @@ class SweepResult:
 
     def __len__(self) -> int:
         return len(self.rows)
+
+    def text(self, max_rows: int = 40) -> str:
+        """A short printed table: the varied keys and the main figures per case (all of them in
+        ``sweep.csv``); longer sweeps show their first and last rows."""
+        cols = [(k, k.rsplit(".", 1)[-1], None, 1.0) for k in self.keys]
+        cols += [(k, h, f, sc) for k, h, f, sc in SWEEP_TABLE if k in self.columns]
+        width = [max(len(h), 8) + 2 for _, h, _, _ in cols]
+        lines = ["  " + "".join(f"{h:>{w}s}" for (_, h, _, _), w in zip(cols, width))]
+
+        def cell(v, f, sc, w):
+            if v is None or (isinstance(v, float) and not math.isfinite(v)):
+                return f"{'-':>{w}s}"
+            if f is None:
+                return f"{v:>{w}g}" if isinstance(v, (int, float)) and not isinstance(v, bool) else f"{str(v):>{w}s}"
+            return f"{format(v * sc, f):>{w}s}"
+
+        rows = self.rows
+        show = rows if len(rows) <= max_rows else rows[: max_rows - 5] + [None] + rows[-5:]
+        for r in show:
+            if r is None:
+                lines.append(f"  ... {len(rows) - max_rows} more rows in sweep.csv ...")
+                continue
+            if r.get("error"):
+                lines.append("  " + "".join(cell(r.get(k), f, sc, w) for (k, _, f, sc), w in
+                                            zip(cols[: len(self.keys)], width)) + "  failed")
+                continue
+            lines.append("  " + "".join(cell(r.get(k), f, sc, w) for (k, _, f, sc), w in zip(cols, width)))
+        return "\n".join(lines)
 
     @property
     def failed(self) -> list[int]:
