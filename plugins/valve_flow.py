@@ -456,7 +456,11 @@ class PoppetValves(ValveFlow):
         self._n = n_grid
         self._step = CYCLE_DEG / n_grid
         self._inv_step = 1.0 / self._step
-        grid = np.arange(n_grid + 1) * self._step
+        self._tab_int = None          # the area tables are built on first use (a closed cycle never needs them)
+
+    def _build_tables(self) -> None:
+        """Effective-area tables on the uniform periodic grid, with their steps and open masks."""
+        grid = np.arange(self._n + 1) * self._step
         area = self.flow_area(grid)
         # rows = crank nodes, so one interpolation reads two contiguous rows
         self._tab = {k: np.ascontiguousarray(area[k].T) for k in _VALVES}
@@ -512,6 +516,8 @@ class PoppetValves(ValveFlow):
     # -- hot loop ----------------------------------------------------------------
     def _areas(self, theta: Any) -> tuple[np.ndarray | None, np.ndarray | None]:
         """Interpolated effective areas [m^2] (B,) at a crank angle, None if shut."""
+        if self._tab_int is None:
+            self._build_tables()
         if np.ndim(theta) == 0:
             x = (float(theta) % CYCLE_DEG) * self._inv_step
             i = int(x)
