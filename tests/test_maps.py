@@ -108,3 +108,19 @@ def test_exhaust_back_pressure_follows_the_flow():
     assert pf.rows[0]["exhaust_pressure_bar"] == 1.08
     with pytest.raises(ConfigError, match="must exceed the ambient"):
         full_load_curve("demo", [3000], overrides=FIXED + ["operating.exhaust_pressure_bar=0.99"])
+
+
+def test_map_command_line(tmp_path, capsys):
+    from cyclesim.cli import main
+
+    args = ["map", "demo", "--full-load-only", "--speeds", "2000,3000", "--no-plots",
+            "--set", "simulation.step_deg=1.0", "--set", "simulation.step_reference_rpm=0"]
+    assert main(args + ["--out", str(tmp_path / "a")]) == 0
+    flow = capsys.readouterr().out
+    assert main(args + ["--exhaust", "fixed", "--out", str(tmp_path / "b")]) == 0
+    fixed = capsys.readouterr().out
+    assert "p_exh bar" in flow and "from each point's flow" in flow and "exhaust 'fixed'" in fixed
+    rows = {f: json.loads((tmp_path / f / "full_load.json").read_text())["rows"] for f in ("a", "b")}
+    assert rows["b"][0]["exhaust_pressure_bar"] == 1.08 > rows["a"][0]["exhaust_pressure_bar"]
+    assert rows["a"][1]["exhaust_pressure_bar"] == pytest.approx(1.08, abs=1e-9)   # the config's own point
+    assert "CAUTION" in flow
