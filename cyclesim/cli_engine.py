@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import shutil
 import time
 from pathlib import Path
 
@@ -67,8 +68,6 @@ class _Progress:
 
     def __call__(self, msg: str) -> None:
         if self.live:
-            import shutil
-
             # a live line wider than the terminal would wrap, and the next one could not replace it
             width = max(shutil.get_terminal_size((100, 24)).columns - 1, 20)
             line = f"  {msg}"

@@ -38,7 +38,7 @@ from typing import Sequence
 import numpy as np
 
 from ..config import Case, case_with, resolve_case
-from ..errors import ConfigError
+from ..errors import ConfigError, CyclesimError
 from ..output import CAUTION, atomic_write_text, write_rows_csv
 from ..output import plain as _plain
 from .spark import SPARK_CAUTION, fit_torque_peak
@@ -175,12 +175,11 @@ class _BackPressure:
     def law(self, mdot) -> float:
         return self.p_amb + (self.p_case - self.p_amb) * (float(mdot) / self.m_ref) ** 2
 
-    def settle(self, case, points, extra=lambda pt: {}):
+    def settle(self, case, points):
         """Back pressure per (speed, intake pressure) point, iterated with the cylinder until it
         moves by less than :data:`EXHAUST_TOLERANCE_BAR`; returns ({point: bar}, {point: result of the
         last pass}, passes).  Fixed mode: the case's pressure, no simulation."""
         from ..api import simulate
-        from ..errors import CyclesimError
 
         if self.mode == "fixed":
             return {pt: self.p_case for pt in points}, None, 0
@@ -190,11 +189,10 @@ class _BackPressure:
                 raise CyclesimError(f"exhaust back pressure from the flow: the case itself failed: {ref.error}")
             self.m_ref = _exhaust_flow(ref)
         # first guess: the flow scaled from the case by intake pressure and speed
-        p = {pt: self.p_amb + (self.p_case - self.p_amb) * (pt[1] / self.pin_ref * pt[0] / self.n_ref) ** 2
-             for pt in points}
+        p = {pt: self.law(self.m_ref * pt[1] / self.pin_ref * pt[0] / self.n_ref) for pt in points}
         for k in range(1, EXHAUST_MAX_PASSES + 1):
             res = simulate([case_with(case, {"operating.speed_rpm": pt[0], "operating.intake_pressure_bar": pt[1],
-                                             "operating.exhaust_pressure_bar": p[pt], **extra(pt)})
+                                             "operating.exhaust_pressure_bar": p[pt]})
                             for pt in points])
             last = dict(zip(points, res))
             new = {pt: (p[pt] if r.error else self.law(_exhaust_flow(r))) for pt, r in last.items()}
