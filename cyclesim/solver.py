@@ -638,10 +638,15 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     else:
         closed_pts = np.ones((2 * N + 1, B), dtype=bool)
     burning_pts = (half[:, None] >= rhs.soc[None, :]) & closed_pts
-    any_burning = burning_pts.any(axis=1).tolist()
-    geo_pts = [(Gc[0][j], Gc[1][j], Gc[2][j], Gc[3][j], Gc[4][j], closed_pts[j], burning_pts[j],
-                any_burning[j]) for j in range(2 * N + 1)]
     th_pts = half.tolist()
+    geo_pts: list = []
+
+    def point_geometry():
+        if not geo_pts:
+            any_burning = burning_pts.any(axis=1).tolist()
+            geo_pts.extend((Gc[0][j], Gc[1][j], Gc[2][j], Gc[3][j], Gc[4][j], closed_pts[j],
+                            burning_pts[j], any_burning[j]) for j in range(2 * N + 1))
+        return geo_pts
 
     # where no valve of any case is open, the valve-flow terms are skipped
     if mode == "full":
@@ -652,36 +657,10 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     else:
         open_at = [False] * (2 * N + 1)
 
-    y = _initial_state(batch, rhs, theta[0], mode)
-    if initial is not None:
-        if initial.shape != y.shape:
-            raise SolverError(f"initial state has shape {initial.shape}, expected {y.shape}")
-        y = np.array(initial, dtype=float)
-    n = rhs.n
-    Y = np.empty((n, B, N + 1))
-    F = np.empty((n, B, N + 1))
-    Yfinal = np.empty_like(Y)
-    Ffinal = np.empty_like(F)
-    cycles_run = np.zeros(B, dtype=int)
-    ivc_final = {"p": np.full(B, np.nan), "T": np.full(B, np.nan), "V": np.full(B, np.nan)}
-    converged = np.zeros(B, dtype=bool)
-    done = np.zeros(B, dtype=bool)
-    history = []
-    max_cycles = int(batch.simulation.max_cycles) if mode == "full" else 1
-    if _max_cycles is not None and mode == "full":
-        max_cycles = _max_cycles
-    if cycles is not None and mode == "full":
-        max_cycles = int(cycles)
-    tol = float(batch.simulation.tolerance)
-    Vd = geo.Vd * np.ones(B)
-    ivc = batch.valves.ivc_deg
-    prev = None
-    with np.errstate(all="ignore"):
-        for cyc in range(1, max_cycles + 1):
-            if mode == "full":
-                y[_TOTALS] = 0.0
-                y[3] = 0.0
-            ivc_row = np.full(B, -1)
+    def _python_cycle(y):
+        """One cycle on the Python path from ``y``, into Y and F; returns the end state."""
+        geo_pts = point_geometry()
+        with np.errstate(all="ignore"):
             for i in range(N):
                 th = th_pts[2 * i]
                 tm = th_pts[2 * i + 1]
@@ -724,9 +703,47 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
                         rhs.T_ivc = np.where(hit, T_i, rhs.T_ivc)
                         rhs.V_ivc = np.where(hit, V_i, rhs.V_ivc)
                         _initial_sub(rhs, y, which=hit)
-                        ivc_row = np.where(hit, i + 1, ivc_row)
             Y[:, :, N] = y
             F[:, :, N] = rhs(th_pts[2 * N], y, geo_pts[2 * N], open_at[2 * N])
+            return y
+
+    # the compiled cycle where numba is installed and every submodel has a compiled form
+    from . import kernel
+
+    compiled = kernel.prepare(batch, rhs, half, Gc, closed_pts, burning_pts, open_at)
+    y = _initial_state(batch, rhs, theta[0], mode)
+    if initial is not None:
+        if initial.shape != y.shape:
+            raise SolverError(f"initial state has shape {initial.shape}, expected {y.shape}")
+        y = np.array(initial, dtype=float)
+    n = rhs.n
+    Y = np.empty((n, B, N + 1))
+    F = np.empty((n, B, N + 1))
+    Yfinal = np.empty_like(Y)
+    Ffinal = np.empty_like(F)
+    cycles_run = np.zeros(B, dtype=int)
+    ivc_final = {"p": np.full(B, np.nan), "T": np.full(B, np.nan), "V": np.full(B, np.nan)}
+    converged = np.zeros(B, dtype=bool)
+    done = np.zeros(B, dtype=bool)
+    history = []
+    max_cycles = int(batch.simulation.max_cycles) if mode == "full" else 1
+    if _max_cycles is not None and mode == "full":
+        max_cycles = _max_cycles
+    if cycles is not None and mode == "full":
+        max_cycles = int(cycles)
+    tol = float(batch.simulation.tolerance)
+    Vd = geo.Vd * np.ones(B)
+    ivc = batch.valves.ivc_deg
+    prev = None
+    with np.errstate(all="ignore"):
+        for cyc in range(1, max_cycles + 1):
+            if mode == "full":
+                y[_TOTALS] = 0.0
+                y[3] = 0.0
+            if compiled is not None and rhs.all_alive and compiled.cycle(y, Y, F):
+                y = Y[:, :, N].copy()
+            else:
+                y = _python_cycle(y)
             if progress is not None:
                 progress(cyc)
             if mode == "closed":

@@ -1,0 +1,372 @@
+"""Compiled cycle loop of the built-in submodels (imported only when numba is installed).
+
+The same arithmetic as :class:`cyclesim.solver._RHS` and the Runge-Kutta loop of
+:func:`cyclesim.solver.integrate`, written case by case in scalars for numba.  It
+covers the built-in submodels listed in :mod:`cyclesim.kernel`; each model here
+mirrors its Python class, whose docstring gives the equations and sources.  The
+Python path stays the reference: ``tests/test_kernel.py`` checks the two agree.
+
+Status per case on return: 0 finished; 1 the state or a derivative stopped being
+finite or physical (the caller then re-runs the cycle on the Python path, which
+names the cause).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+# model codes (see cyclesim.kernel)
+BURN_NONE, BURN_WIEBE, BURN_DOUBLE = 0, 1, 2
+HT_NONE, HT_WOSCHNI, HT_HOHENBERG, HT_ANNAND = 0, 1, 2, 3
+BB_NONE, BB_ORIFICE = 0, 1
+KN_NONE, KN_LW = 0, 1
+
+SIGMA_SB = 5.670374419e-8
+CYCLE_END_DEG = 360.0
+
+
+@njit(cache=True, inline="always")
+def _fresh(uc4, b, T, T_mid):
+    """Fresh charge (u, R, cv) at T from the per-case polynomial (rows 2b + (T > T_mid))."""
+    r = 2 * b + (1 if T > T_mid else 0)
+    u = 0.0
+    cv = 0.0
+    pw = 1.0
+    for k in range(6):
+        u += pw * uc4[r, k, 0]
+        cv += pw * uc4[r, k, 2]
+        pw *= T
+    return u, uc4[r, 0, 1], cv
+
+
+@njit(cache=True)
+def _mixture(gas_tab, off, gc, nRm1, uc4, b, T, rho, y, out):
+    """Mixture properties into out: [u, R, u_T, u_lnrho, u_y, cp, gamma]."""
+    T0, inv_dT, lr0, inv_dlr, dlr, x_hi, z_hi, T_mid = gc[0], gc[1], gc[2], gc[3], gc[4], gc[5], gc[6], gc[7]
+    x = min(max((T - T0) * inv_dT, 0.0), x_hi)
+    i = int(x)
+    z = min(max(math.log(rho) - lr0, 0.0), z_hi)
+    j = int(z * inv_dlr)
+    cell = off + i * nRm1 + j
+    t = x - i
+    t2 = t * t
+    t3 = t2 * t
+    dz = z - j * dlr
+    g = gas_tab[cell]
+    # rows of g: [u, R, u_T, R_T] then their ln(rho) slopes, 4 powers of t each
+    su = g[16] + g[17] * t + g[18] * t2 + g[19] * t3
+    sR = g[20] + g[21] * t + g[22] * t2 + g[23] * t3
+    sT = g[24] + g[25] * t + g[26] * t2 + g[27] * t3
+    f0 = g[0] + g[1] * t + g[2] * t2 + g[3] * t3 + dz * su
+    f1 = g[4] + g[5] * t + g[6] * t2 + g[7] * t3 + dz * sR
+    f2 = g[8] + g[9] * t + g[10] * t2 + g[11] * t3 + dz * sT
+    s0 = su
+    uu, Ru, cvu = _fresh(uc4, b, T, T_mid)
+    # f = [u, R, u_T, R_T] of the burned gas; fresh [u, R, cv, 0]
+    u = uu + y * (f0 - uu)
+    R = Ru + y * (f1 - Ru)
+    u_T = cvu + y * (f2 - cvu)
+    cp = u_T + R
+    out[0] = u
+    out[1] = R
+    out[2] = u_T
+    out[3] = y * s0
+    out[4] = f0 - uu
+    out[5] = cp
+    out[6] = cp / u_T
+
+
+@njit(cache=True, inline="always")
+def _outflow(cda, p0, T0, R0, g0, pd, dp_lin):
+    x = 1.0 - pd / max(p0, 1e-300)
+    inv_g = 1.0 / g0
+    e = 1.0 - inv_g
+    crit = (2.0 / (g0 + 1.0)) ** (1.0 / e)
+    pr = max(1.0 - max(x, dp_lin), crit)
+    psi = pr ** inv_g * math.sqrt(max((2.0 / e) * (1.0 - pr ** e), 0.0))
+    psi = psi * min(x * (1.0 / dp_lin), 1.0)
+    return cda * p0 / math.sqrt(R0 * T0) * psi
+
+
+@njit(cache=True, inline="always")
+def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
+    """Signed flow from side 1 to side 2 (cyclesim.flow.orifice_mass_flow)."""
+    if p1 >= p2:
+        return _outflow(cda, p1, T1, R1, g1, p2, dp_lin)
+    return -_outflow(cda, p2, T2, R2, g2, p1, dp_lin)
+
+
+@njit(cache=True, inline="always")
+def _wiebe_rate(th, theta0, duration, a, m):
+    u = (th - theta0) / duration
+    if u > 0.0:
+        um = u ** m
+        return a * (m + 1.0) / duration * um * math.exp(-a * um * u)
+    return 0.0
+
+
+@njit(cache=True)
+def _rhs(b, j, theta, yv, out, full, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae,
+         omega, Sp, Tw, eta, dh298, buf_scale, plen, codes, P, isub, gas_tab, gas_off, gc, nRm1, uc4,
+         p_ivc, T_ivc, V_ivc, mix):
+    """Derivatives of case b at point j into out; False where they are not finite."""
+    n = yv.shape[0]
+    m = yv[0]
+    T = yv[1]
+    mb = yv[2]
+    xb = yv[3]
+    if not (math.isfinite(m) and math.isfinite(T)):
+        return False
+    rho = m / V
+    yb = min(max(mb / m, 0.0), 1.0)
+    _mixture(gas_tab, gas_off[b], gc, nRm1, uc4, b, T, rho, yb, mix)
+    u = mix[0]
+    R = mix[1]
+    u_T = mix[2]
+    u_lnrho = mix[3]
+    u_y = mix[4]
+    cp = mix[5]
+    gamma = mix[6]
+    RT = R * T
+    p = rho * RT
+    h = u + RT
+    om = omega[b]
+    sp = Sp[b]
+    dt = 1.0 / om
+    for k in range(n):
+        out[k] = 0.0
+    # burn
+    dm_burn = 0.0
+    if burning:
+        bc = codes[0]
+        dxb = 0.0
+        if bc == BURN_WIEBE:
+            if theta < CYCLE_END_DEG:
+                uw = (theta - P[0, b]) * P[1, b]
+                if uw > 0.0:
+                    um = uw ** P[4, b]
+                    dxb = P[2, b] * um * math.exp(-P[3, b] * um * uw)
+        elif bc == BURN_DOUBLE:
+            if theta < CYCLE_END_DEG:
+                f1 = P[4, b]
+                dxb = (f1 * _wiebe_rate(theta, P[0, b], P[1, b], P[2, b], P[3, b])
+                       + (1.0 - f1) * _wiebe_rate(theta, P[5, b], P[6, b], P[2, b], P[7, b]))
+        e_c = eta[b]
+        dm_burn = e_c * dxb / max(1.0 - e_c * xb, 1e-3) * max(m - mb, 0.0)
+        out[3] = dxb
+        out[15] = dm_burn * dh298[b]
+    # wall heat
+    hc = codes[1]
+    Qw = 0.0
+    i_tmot = isub[0]
+    if hc == HT_WOSCHNI:
+        w = (P[9, b] if closed else P[10, b]) * sp
+        if closed and burning:
+            T_mot = yv[i_tmot]
+            pmot = p_ivc[b] * (V_ivc[b] / V) * (T_mot / T_ivc[b])
+            dp = max(p - pmot, 0.0)
+            w = w + P[11, b] * P[12, b] * T_ivc[b] / (p_ivc[b] * V_ivc[b]) * dp
+        hcoef = P[8, b] * (p * w) ** 0.8 * T ** -0.53
+        Qw = hcoef * (Ah * (T - Tw[0, b]) + Ap * (T - Tw[1, b]) + Al * (T - Tw[2, b]))
+    elif hc == HT_HOHENBERG:
+        hcoef = P[8, b] * 130.0 * V ** -0.06 * (p * 1e-5) ** 0.8 * T ** -0.4 * (sp + 1.4) ** 0.8
+        Qw = hcoef * (Ah * (T - Tw[0, b]) + Ap * (T - Tw[1, b]) + Al * (T - Tw[2, b]))
+    elif hc == HT_ANNAND:
+        mult = P[8, b]
+        bore = P[13, b]
+        mu = 1.458e-6 * T ** 1.5 / (T + 110.4)
+        kc = mu * cp / P[12, b]
+        Re = rho * sp * bore / mu
+        hconv = mult * P[9, b] * kc / bore * Re ** P[10, b]
+        c = mult * P[11, b] * SIGMA_SB if (closed and burning) else 0.0
+        T4 = T ** 4
+        Qw = 0.0
+        Qw = Qw + Ah * (hconv * (T - Tw[0, b]) + c * (T4 - Tw[0, b] ** 4))
+        Qw = Qw + Ap * (hconv * (T - Tw[1, b]) + c * (T4 - Tw[1, b] ** 4))
+        Qw = Qw + Al * (hconv * (T - Tw[2, b]) + c * (T4 - Tw[2, b] ** 4))
+    # blowby (outflow only)
+    mbb = 0.0
+    if codes[2] == BB_ORIFICE:
+        mbb = max(_outflow(P[14, b], p, T, R, gamma, min(p, P[15, b]), gc[8]), 0.0)
+    fbb = mbb * dt
+    out[6] = fbb
+    if flows:
+        mi = _orifice(Ai, plen[0, b], plen[1, b], plen[3, b], plen[4, b], p, T, R, gamma, gc[8])
+        me = _orifice(Ae, plen[6, b], plen[7, b], plen[8, b], plen[9, b], p, T, R, gamma, gc[8])
+        fi = mi * dt
+        fe = me * dt
+        out[9] = fi
+        out[12] = fe
+        mq = max(yv[16], 0.0)
+        wq = mq / (mq + buf_scale[b])
+        mq_safe = mq if mq > 0 else 1.0
+        yq = min(max(yv[17] / mq_safe, 0.0), 1.0)
+        hq = yv[18] / mq_safe
+        if fi > 0:
+            yin_i = wq * yq + (1.0 - wq) * plen[2, b]
+            hin_i = wq * hq + (1.0 - wq) * plen[5, b]
+            wfi = wq * fi
+            out[16] = -wfi
+            out[17] = -(wfi * yq)
+            out[18] = -(wfi * hq)
+        else:
+            yin_i = yb
+            hin_i = h
+            out[16] = -fi
+            out[17] = -(fi * yb)
+            out[18] = -(fi * h)
+        if fe > 0:
+            yin_e = 1.0
+            hin_e = plen[10, b]
+        else:
+            yin_e = yb
+            hin_e = h
+        dm = fi + fe - fbb
+        dmb = dm_burn + fi * yin_i + fe * yin_e - fbb * yb
+        dHi = fi * hin_i
+        dHe = fe * hin_e
+        out[10] = dHi
+        out[13] = dHe
+        out[11] = fi * (1.0 - yin_i)
+        out[14] = fe * (1.0 - yin_e)
+        dHflow = dHi + dHe
+    else:
+        dm = -fbb
+        dmb = dm_burn - fbb * yb
+        dHflow = 0.0
+    dHbb = fbb * h
+    out[7] = dHbb
+    dQ = Qw * dt
+    out[5] = dQ
+    pdV = p * dV
+    out[4] = pdV
+    dU = dHflow - pdV - dQ - dHbb
+    dlnrho = dm / m - dV / V
+    dy = (dmb - yb * dm) / m
+    out[0] = dm
+    out[1] = ((dU - u * dm) / m - u_lnrho * dlnrho - u_y * dy) / u_T
+    out[2] = dmb
+    out[8] = fbb * (1.0 - yb)
+    # submodel states
+    if i_tmot >= 0:
+        if closed:
+            T_mot = yv[i_tmot]
+            _, Rm, cvm = _fresh(uc4, b, T_mot, gc[7])
+            out[i_tmot] = (-(Rm / cvm) * T_mot * (dV * om) / V) * dt
+    i_kn = isub[1]
+    if i_kn >= 0 and codes[3] == KN_LW:
+        if closed and xb < P[18, b]:
+            T0 = T_ivc[b]
+            lnr = math.log(p / p_ivc[b])
+            Tu = T0 * math.exp(lnr / 3.5)
+            for _ in range(4):
+                ln = math.log(Tu / T0)
+                if abs(ln) < 1e-6:
+                    Tm = math.sqrt(T0 * Tu)
+                else:
+                    Tm = (Tu - T0) / ln
+                _, Rm, cvm = _fresh(uc4, b, Tm, gc[7])
+                Tu = T0 * math.exp(Rm / (cvm + Rm) * lnr)
+            tau = P[16, b] * (p / P[19, b]) ** P[20, b] * math.exp(P[17, b] / Tu)
+            rate = 1e3 / tau
+            if math.isfinite(rate):
+                out[i_kn] = rate * dt
+    for k in range(n):
+        if not math.isfinite(out[k]):
+            return False
+    return True
+
+
+@njit(cache=True)
+def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, open_at, Ai_pts, Ae_pts,
+              y, Y, F, omega, Sp, Tw, eta, dh298, buf_scale, plen, codes, P, isub, reset,
+              gas_tab, gas_off, gc, nRm1, uc4, ivc, V_at_ivc, p_ivc, T_ivc, V_ivc, status):
+    """One cycle of every case: Kutta's third-order scheme on the grid, as the Python loop."""
+    n, B = y.shape
+    N = steps.shape[0]
+    yv = np.empty(n)
+    k1 = np.empty(n)
+    k2 = np.empty(n)
+    k3 = np.empty(n)
+    yt = np.empty(n)
+    mix = np.empty(7)
+    for b in range(B):
+        status[b] = 0
+        for k in range(n):
+            yv[k] = y[k, b]
+        for i in range(N):
+            j0 = 2 * i
+            j1 = j0 + 1
+            j2 = j0 + 2
+            t0 = th[j0]
+            tm = th[j1]
+            tn = th[j2]
+            hs = steps[i]
+            hh = 0.5 * hs
+            fo0 = full and open_at[j0]
+            fo1 = full and open_at[j1]
+            fo2 = full and open_at[j2]
+            ok = _rhs(b, j0, t0, yv, k1, full, fo0, Vp[j0, b], dVp[j0, b], Ahp[j0, b],
+                      App[j0, b], Alp[j0, b], closed_pts[j0, b], burning_pts[j0, b], Ai_pts[j0, b],
+                      Ae_pts[j0, b], omega, Sp, Tw, eta, dh298, buf_scale, plen, codes, P, isub,
+                      gas_tab, gas_off, gc, nRm1, uc4, p_ivc, T_ivc, V_ivc, mix)
+            for k in range(n):
+                Y[k, b, i] = yv[k]
+                F[k, b, i] = k1[k]
+                yt[k] = yv[k] + hh * k1[k]
+            ok1 = _rhs(b, j1, tm, yt, k2, full, fo1, Vp[j1, b], dVp[j1, b],
+                             Ahp[j1, b], App[j1, b], Alp[j1, b], closed_pts[j1, b], burning_pts[j1, b],
+                             Ai_pts[j1, b], Ae_pts[j1, b], omega, Sp, Tw, eta, dh298, buf_scale, plen,
+                             codes, P, isub, gas_tab, gas_off, gc, nRm1, uc4, p_ivc, T_ivc, V_ivc, mix)
+            for k in range(n):
+                yt[k] = yv[k] + hs * (2.0 * k2[k] - k1[k])
+            ok2 = _rhs(b, j2, tn, yt, k3, full, fo2, Vp[j2, b], dVp[j2, b],
+                             Ahp[j2, b], App[j2, b], Alp[j2, b], closed_pts[j2, b], burning_pts[j2, b],
+                             Ai_pts[j2, b], Ae_pts[j2, b], omega, Sp, Tw, eta, dh298, buf_scale, plen,
+                             codes, P, isub, gas_tab, gas_off, gc, nRm1, uc4, p_ivc, T_ivc, V_ivc, mix)
+            if not (ok and ok1 and ok2):
+                status[b] = 1
+                break
+            c6 = hs / 6.0
+            for k in range(n):
+                yv[k] = yv[k] + c6 * (k1[k] + 4.0 * k2[k] + k3[k])
+            m_ = yv[0]
+            T_ = yv[1]
+            if not (m_ > 0.0 and m_ < math.inf and T_ > 50.0 and T_ < 8000.0):
+                status[b] = 1
+                break
+            if full:
+                iv = ivc[b]
+                if iv > t0 and iv <= tn:
+                    w = (iv - t0) / hs
+                    Vi = V_at_ivc[b]
+                    Ti = (1 - w) * Y[1, b, i] + w * yv[1]
+                    mi_ = (1 - w) * Y[0, b, i] + w * yv[0]
+                    ybi = min(max(((1 - w) * Y[2, b, i] + w * yv[2]) / mi_, 0.0), 1.0)
+                    rhoi = mi_ / Vi
+                    _mixture(gas_tab, gas_off[b], gc, nRm1, uc4, b, Ti, rhoi, ybi, mix)
+                    p_ivc[b] = rhoi * mix[1] * Ti
+                    T_ivc[b] = Ti
+                    V_ivc[b] = Vi
+                    for k in range(n):
+                        if reset[0, k] == 1.0:
+                            yv[k] = yv[1]
+                        elif reset[0, k] == 2.0:
+                            yv[k] = reset[1, k]
+        if status[b] != 0:
+            continue
+        for k in range(n):
+            Y[k, b, N] = yv[k]
+        foN = full and open_at[2 * N]
+        ok = _rhs(b, 2 * N, th[2 * N], yv, k1, full, foN, Vp[2 * N, b], dVp[2 * N, b],
+                  Ahp[2 * N, b], App[2 * N, b], Alp[2 * N, b], closed_pts[2 * N, b], burning_pts[2 * N, b],
+                  Ai_pts[2 * N, b], Ae_pts[2 * N, b], omega, Sp, Tw, eta, dh298, buf_scale, plen, codes, P,
+                  isub, gas_tab, gas_off, gc, nRm1, uc4, p_ivc, T_ivc, V_ivc, mix)
+        if not ok:
+            status[b] = 1
+            continue
+        for k in range(n):
+            F[k, b, N] = k1[k]

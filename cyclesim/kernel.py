@@ -1,0 +1,252 @@
+"""Choice of the cycle loop: compiled (numba, optional) or Python.
+
+The compiled loop (:mod:`cyclesim._compiled`) integrates one cycle of every case of
+a batch in machine code.  It covers the built-in submodels below; any other
+submodel (a third-party plug-in, or a built-in not listed) runs on the Python path,
+which is always there and is the reference.  Results agree to rounding
+(``tests/test_kernel.py``).
+
+================  ==========================================================
+role              built-ins with a compiled form
+================  ==========================================================
+burn              ``wiebe``, ``wiebe_ca50``, ``double_wiebe``, ``none``
+heat_transfer     ``woschni``, ``hohenberg``, ``annand``, ``none``
+blowby            ``orifice``, ``none``
+valve_flow        ``poppet``, ``none``
+boundary          ``constant`` (closed cycles: any)
+knock             ``livengood_wu``, ``none``
+================  ==========================================================
+
+Choice: the environment variable ``CYCLESIM_KERNEL`` = ``auto`` (default: compiled
+where numba is installed and the batch's submodels allow), ``python`` (always the
+Python path) or ``compiled`` (as auto, but a missing numba is an error).  Install
+numba with the ``fast`` extra: ``pip install -e ".[fast]"``.  The first use compiles
+the loop (some seconds) and caches it on disk; later processes load it.
+
+A case whose state or derivatives stop being finite or physical in the compiled
+loop is re-run on the Python path for that cycle, which stops it with the message
+naming the cause.
+"""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+
+from .errors import ConfigError
+
+ENV = "CYCLESIM_KERNEL"
+CHOICES = ("auto", "python", "compiled")
+
+_mod = None          # the compiled module, False where numba is missing
+_used = {"compiled": 0, "python": 0}
+"""Cycles run by each path in this process (for tests and the benchmark)."""
+
+
+def choice() -> str:
+    v = os.environ.get(ENV, "auto").strip().lower() or "auto"
+    if v not in CHOICES:
+        raise ConfigError(f"{ENV}={v!r}: expected one of {', '.join(CHOICES)}")
+    return v
+
+
+def compiled_module():
+    """The compiled module, or None where numba is not installed (or the Python path is chosen)."""
+    global _mod
+    c = choice()
+    if c == "python":
+        return None
+    if _mod is None:
+        try:
+            from . import _compiled
+            _mod = _compiled
+        except ImportError as exc:
+            if c == "compiled":
+                raise ConfigError(f"{ENV}=compiled needs numba: pip install -e \".[fast]\" ({exc})") from exc
+            _mod = False
+    return _mod or None
+
+
+def _b(x, B) -> np.ndarray:
+    return np.array(np.broadcast_to(np.asarray(x, dtype=float), (B,)), dtype=float)  # a writable copy
+
+
+def _cw(a, dtype=float) -> np.ndarray:
+    return np.require(a, dtype=dtype, requirements=["C", "W"])
+
+
+def why_not(batch, rhs) -> str | None:
+    """None if the batch's submodels all have a compiled form, else the reason they do not."""
+    from cyclesim_plugins import boundaries, heat_transfer, knock, ring_leakage, valve_flow, wiebe
+
+    from .thermo import GasTables
+
+    m = batch.models
+    allowed = {
+        "burn": (wiebe.Wiebe, wiebe.WiebeCA50, wiebe.DoubleWiebe, wiebe.NoBurn),
+        "heat_transfer": (heat_transfer.Woschni, heat_transfer.Hohenberg, heat_transfer.Annand,
+                          heat_transfer.NoHeatTransfer),
+        "blowby": (ring_leakage.Orifice, ring_leakage.NoLeakage),
+        "valve_flow": (valve_flow.PoppetValves, valve_flow.ShutValves),
+        "knock": (knock.LivengoodWu, knock.NoKnock),
+    }
+    if rhs.mode == "full":
+        allowed["boundary"] = (boundaries.ConstantPlenums,)
+    for role, classes in allowed.items():
+        if type(m[role]) not in classes:
+            return f"{role} model {m[role].name!r} has no compiled form"
+    if type(batch.gas) is not GasTables:
+        return "gas properties are not the built-in tables"
+    for role, model, sv in rhs.sub_specs:
+        if (role, sv.name) not in (("heat_transfer", heat_transfer.Woschni.STATE),
+                                   ("knock", knock.LivengoodWu.STATE)):
+            return f"state {role}.{sv.name} has no compiled form"
+    return None
+
+
+class Compiled:
+    """The packed inputs of one batch's compiled cycle (built once per integration)."""
+
+    def __init__(self, mod, batch, rhs, half, Gc, closed_pts, burning_pts, open_at):
+        from cyclesim_plugins import heat_transfer, knock, ring_leakage, valve_flow, wiebe
+
+        from . import flow
+
+        self.mod = mod
+        self.rhs = rhs
+        B = batch.B
+        self.full = rhs.mode == "full"
+        m = batch.models
+        self.th = _cw(half)
+        # one compiled signature for all: C-contiguous, writable arrays
+        self.Gc = [_cw(a) for a in Gc]
+        self.closed = _cw(closed_pts, np.bool_)
+        self.burning = _cw(burning_pts, np.bool_)
+        self.open_at = _cw(open_at, np.bool_)
+        npts = half.size
+        # effective valve areas at every point (zero where the valves are shut), as
+        # PoppetValves._areas gives them
+        vf = m["valve_flow"]
+        self.Ai = np.zeros((npts, B))
+        self.Ae = np.zeros((npts, B))
+        if self.full and type(vf) is valve_flow.PoppetValves and self.open_at.any():
+            if vf._tab_int is None:
+                vf._build_tables()
+            x = np.mod(half, valve_flow.CYCLE_DEG) * vf._inv_step
+            i = np.minimum(x.astype(np.intp), vf._n - 1)
+            f = (x - i)[:, None]
+            for out, tab, dtab, opn in ((self.Ai, vf._tab_int, vf._dtab_int, vf._open_int),
+                                        (self.Ae, vf._tab_exh, vf._dtab_exh, vf._open_exh)):
+                on = opn[i] | opn[i + 1]
+                out[:] = np.where(on[:, None], tab[i] + f * dtab[i], 0.0)
+        self.omega = _b(rhs.omega, B)
+        self.Sp = _b(rhs.Sp, B)
+        self.Tw = np.stack([_b(t, B) for t in rhs.Tw])
+        self.eta = _b(rhs.eta_c, B)
+        self.dh298 = _b(rhs._dh298, B)
+        self.buf = _b(rhs._buf_scale, B)
+        self.plen = np.zeros((11, B))
+        if self.full:
+            pl = rhs.plenums(float(half[0]), {})
+            self.plen[:] = np.stack([_b(a, B) for a in pl["int"] + pl["exh"][:2] + pl["exh"][3:]])
+        P = np.zeros((21, B))
+        codes = np.zeros(4, dtype=np.int64)
+        c = mod
+        bm = m["burn"]
+        if type(bm) in (wiebe.Wiebe, wiebe.WiebeCA50):
+            codes[0] = c.BURN_WIEBE
+            P[0], P[1], P[2], P[3], P[4] = (_b(v, B) for v in (bm.theta0, bm._inv_dur, bm._c, bm.a, bm.m))
+        elif type(bm) is wiebe.DoubleWiebe:
+            codes[0] = c.BURN_DOUBLE
+            P[0], P[1], P[2], P[3], P[4], P[5], P[6], P[7] = (
+                _b(v, B) for v in (bm.theta0, bm.d1, bm.a, bm.m1, bm.f1, bm.start2, bm.d2, bm.m2))
+        ht = m["heat_transfer"]
+        if type(ht) is heat_transfer.Woschni:
+            codes[1] = c.HT_WOSCHNI
+            P[8], P[9], P[10], P[11], P[12] = (_b(v, B) for v in (ht._k, ht._c1_closed, ht._c1_open,
+                                                                  ht.p.c2_m_per_sK, ht._Vd))
+        elif type(ht) is heat_transfer.Hohenberg:
+            codes[1] = c.HT_HOHENBERG
+            P[8] = _b(ht.p.multiplier, B)
+        elif type(ht) is heat_transfer.Annand:
+            codes[1] = c.HT_ANNAND
+            P[8], P[9], P[10], P[11], P[12], P[13] = (
+                _b(v, B) for v in (ht.p.multiplier, ht.p.a, ht.p.b, ht.p.radiation_factor,
+                                   ht.p.prandtl_number, ht._bore))
+        bb = m["blowby"]
+        if type(bb) is ring_leakage.Orifice:
+            codes[2] = c.BB_ORIFICE
+            P[14], P[15] = _b(bb._cda, B), _b(bb._p_cc, B)
+        kn = m["knock"]
+        if type(kn) is knock.LivengoodWu:
+            codes[3] = c.KN_LW
+            P[16], P[17], P[18] = _b(kn._pre_ms, B), _b(kn.act, B), _b(kn.x_max, B)
+            P[19], P[20] = knock.ATM_PA, knock.DE_PRESSURE_EXPONENT
+        self.P = P
+        self.codes = codes
+        from .solver import CORE
+
+        n = rhs.n
+        isub = np.full(2, -1, dtype=np.int64)
+        reset = np.zeros((2, n))
+        for k, (role, model, sv) in enumerate(rhs.sub_specs):
+            row = len(CORE) + k
+            isub[0 if role == "heat_transfer" else 1] = row
+            if sv.reset_at_ivc:
+                if isinstance(sv.initial, str):
+                    reset[0, row] = 1.0          # the cylinder temperature ("T_ivc")
+                else:
+                    reset[0, row] = 2.0
+                    reset[1, row] = float(sv.initial)
+        self.isub = isub
+        self.reset = reset
+        g = batch.gas
+        self.gas_tab = _cw(g._table)
+        self.gas_off = _cw(g._offset, np.int64)
+        self.gc = np.array([g._T0, g._inv_dT, g._lr0, g._inv_dlr, g._dlr, g._x_hi, g._z_hi,
+                            _thermo_T_mid(), flow.DP_LIN_DEFAULT])
+        self.nRm1 = int(g._nR - 1)
+        self.uc4 = _cw(g._uc4)
+        self.ivc = _b(batch.valves.ivc_deg, B)
+        self.V_at_ivc = _b(batch.geometry.volume_at(self.ivc), B) if self.full else np.zeros(B)
+        self.steps = _cw(np.diff(half[::2]))
+        self.status = np.zeros(B, dtype=np.int64)
+
+    def cycle(self, y: np.ndarray, Y: np.ndarray, F: np.ndarray) -> bool:
+        """One cycle from ``y`` into ``Y``, ``F``; False (nothing kept) if any case needs the Python path."""
+        rhs = self.rhs
+        saved = (rhs.p_ivc.copy(), rhs.T_ivc.copy(), rhs.V_ivc.copy())
+        for name in ("p_ivc", "T_ivc", "V_ivc"):
+            setattr(rhs, name, _cw(getattr(rhs, name)))
+        G = self.Gc
+        self.mod.run_cycle(self.full, self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.closed,
+                           self.burning, self.open_at, self.Ai, self.Ae, _cw(y), Y, F,
+                           self.omega, self.Sp, self.Tw, self.eta, self.dh298, self.buf, self.plen,
+                           self.codes, self.P, self.isub, self.reset, self.gas_tab, self.gas_off, self.gc,
+                           self.nRm1, self.uc4, self.ivc, self.V_at_ivc, rhs.p_ivc, rhs.T_ivc, rhs.V_ivc,
+                           self.status)
+        if self.status.any():
+            rhs.p_ivc, rhs.T_ivc, rhs.V_ivc = saved
+            return False
+        _used["compiled"] += 1
+        return True
+
+
+def _thermo_T_mid() -> float:
+    from .thermo import T_MID
+
+    return float(T_MID)
+
+
+def prepare(batch, rhs, half, Gc, closed_pts, burning_pts, open_at) -> Compiled | None:
+    """The compiled cycle of this batch, or None for the Python path."""
+    mod = compiled_module()
+    if mod is None:
+        return None
+    reason = why_not(batch, rhs)
+    if reason is not None:
+        if choice() == "compiled":
+            raise ConfigError(f"{ENV}=compiled: {reason}")
+        return None
+    return Compiled(mod, batch, rhs, half, Gc, closed_pts, burning_pts, open_at)
