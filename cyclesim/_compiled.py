@@ -25,6 +25,11 @@ BB_NONE, BB_ORIFICE = 0, 1
 KN_NONE, KN_LW = 0, 1
 
 SIGMA_SB = 5.670374419e-8
+
+# rows of the per-case constant array CB (see cyclesim.kernel.Compiled)
+R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC = \
+    0, 1, 2, 5, 6, 7, 8, 19, 40, 43, 44
+N_ROWS = 45
 CYCLE_END_DEG = 360.0
 
 
@@ -84,9 +89,13 @@ def _outflow(cda, p0, T0, R0, g0, pd, dp_lin):
     x = 1.0 - pd / max(p0, 1e-300)
     inv_g = 1.0 / g0
     e = 1.0 - inv_g
-    crit = (2.0 / (g0 + 1.0)) ** (1.0 / e)
-    pr = max(1.0 - max(x, dp_lin), crit)
-    psi = pr ** inv_g * math.sqrt(max((2.0 / e) * (1.0 - pr ** e), 0.0))
+    pr = 1.0 - max(x, dp_lin)
+    if pr < 0.6066:
+        # the critical ratio (2/(g+1))^(g/(g-1)) is below exp(-1/2) = 0.60653 for every g > 1,
+        # so above that the flow is subsonic without computing it
+        pr = max(pr, (2.0 / (g0 + 1.0)) ** (1.0 / e))
+    pg = pr ** inv_g
+    psi = pg * math.sqrt(max((2.0 / e) * (1.0 - pr / pg), 0.0))   # pr^e = pr / pr^(1/g)
     psi = psi * min(x * (1.0 / dp_lin), 1.0)
     return cda * p0 / math.sqrt(R0 * T0) * psi
 
@@ -94,6 +103,8 @@ def _outflow(cda, p0, T0, R0, g0, pd, dp_lin):
 @njit(cache=True, inline="always")
 def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
     """Signed flow from side 1 to side 2 (cyclesim.flow.orifice_mass_flow)."""
+    if cda == 0.0:
+        return 0.0   # a shut valve (the Python path skips it too)
     if p1 >= p2:
         return _outflow(cda, p1, T1, R1, g1, p2, dp_lin)
     return -_outflow(cda, p2, T2, R2, g2, p1, dp_lin)
@@ -109,10 +120,12 @@ def _wiebe_rate(th, theta0, duration, a, m):
 
 
 @njit(cache=True)
-def _rhs(b, j, theta, yv, out, full, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae,
-         omega, Sp, Tw, eta, dh298, buf_scale, plen, codes, P, isub, gas_tab, gas_off, gc, nRm1, uc4,
-         p_ivc, T_ivc, V_ivc, mix):
-    """Derivatives of case b at point j into out; False where they are not finite."""
+def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, CB, IC, gas_tab, gas_off,
+         gc, uc4, mix):
+    """Derivatives of case b into out; False where they are not finite.
+
+    CB (rows x B) holds the per-case constants (row numbers R_*), IC the model codes and
+    state rows."""
     n = yv.shape[0]
     m = yv[0]
     T = yv[1]
@@ -122,7 +135,7 @@ def _rhs(b, j, theta, yv, out, full, flows, V, dV, Ah, Ap, Al, closed, burning, 
         return False
     rho = m / V
     yb = min(max(mb / m, 0.0), 1.0)
-    _mixture(gas_tab, gas_off[b], gc, nRm1, uc4, b, T, rho, yb, mix)
+    _mixture(gas_tab, gas_off[b], gc, IC[6], uc4, b, T, rho, yb, mix)
     u = mix[0]
     R = mix[1]
     u_T = mix[2]
@@ -133,81 +146,81 @@ def _rhs(b, j, theta, yv, out, full, flows, V, dV, Ah, Ap, Al, closed, burning, 
     RT = R * T
     p = rho * RT
     h = u + RT
-    om = omega[b]
-    sp = Sp[b]
+    om = CB[R_OMEGA, b]
+    sp = CB[R_SP, b]
     dt = 1.0 / om
     for k in range(n):
         out[k] = 0.0
     # burn
     dm_burn = 0.0
     if burning:
-        bc = codes[0]
+        bc = IC[0]
         dxb = 0.0
         if bc == BURN_WIEBE:
             if theta < CYCLE_END_DEG:
-                uw = (theta - P[0, b]) * P[1, b]
+                uw = (theta - CB[R_P + 0, b]) * CB[R_P + 1, b]
                 if uw > 0.0:
-                    um = uw ** P[4, b]
-                    dxb = P[2, b] * um * math.exp(-P[3, b] * um * uw)
+                    um = uw ** CB[R_P + 4, b]
+                    dxb = CB[R_P + 2, b] * um * math.exp(-CB[R_P + 3, b] * um * uw)
         elif bc == BURN_DOUBLE:
             if theta < CYCLE_END_DEG:
-                f1 = P[4, b]
-                dxb = (f1 * _wiebe_rate(theta, P[0, b], P[1, b], P[2, b], P[3, b])
-                       + (1.0 - f1) * _wiebe_rate(theta, P[5, b], P[6, b], P[2, b], P[7, b]))
-        e_c = eta[b]
+                f1 = CB[R_P + 4, b]
+                dxb = (f1 * _wiebe_rate(theta, CB[R_P + 0, b], CB[R_P + 1, b], CB[R_P + 2, b], CB[R_P + 3, b])
+                       + (1.0 - f1) * _wiebe_rate(theta, CB[R_P + 5, b], CB[R_P + 6, b], CB[R_P + 2, b], CB[R_P + 7, b]))
+        e_c = CB[R_ETA, b]
         dm_burn = e_c * dxb / max(1.0 - e_c * xb, 1e-3) * max(m - mb, 0.0)
         out[3] = dxb
-        out[15] = dm_burn * dh298[b]
+        out[15] = dm_burn * CB[R_DH, b]
     # wall heat
-    hc = codes[1]
+    hc = IC[1]
     Qw = 0.0
-    i_tmot = isub[0]
+    i_tmot = IC[4]
     if hc == HT_WOSCHNI:
-        w = (P[9, b] if closed else P[10, b]) * sp
+        w = (CB[R_P + 9, b] if closed else CB[R_P + 10, b]) * sp
         if closed and burning:
             T_mot = yv[i_tmot]
-            pmot = p_ivc[b] * (V_ivc[b] / V) * (T_mot / T_ivc[b])
+            pmot = CB[R_IVC, b] * (CB[R_IVC + 2, b] / V) * (T_mot / CB[R_IVC + 1, b])
             dp = max(p - pmot, 0.0)
-            w = w + P[11, b] * P[12, b] * T_ivc[b] / (p_ivc[b] * V_ivc[b]) * dp
-        hcoef = P[8, b] * (p * w) ** 0.8 * T ** -0.53
-        Qw = hcoef * (Ah * (T - Tw[0, b]) + Ap * (T - Tw[1, b]) + Al * (T - Tw[2, b]))
+            w = w + CB[R_P + 11, b] * CB[R_P + 12, b] * CB[R_IVC + 1, b] / (CB[R_IVC, b] * CB[R_IVC + 2, b]) * dp
+        hcoef = CB[R_P + 8, b] * (p * w) ** 0.8 * T ** -0.53
+        Qw = hcoef * (Ah * (T - CB[R_TW + 0, b]) + Ap * (T - CB[R_TW + 1, b]) + Al * (T - CB[R_TW + 2, b]))
     elif hc == HT_HOHENBERG:
-        hcoef = P[8, b] * 130.0 * V ** -0.06 * (p * 1e-5) ** 0.8 * T ** -0.4 * (sp + 1.4) ** 0.8
-        Qw = hcoef * (Ah * (T - Tw[0, b]) + Ap * (T - Tw[1, b]) + Al * (T - Tw[2, b]))
+        hcoef = CB[R_P + 8, b] * 130.0 * V ** -0.06 * (p * 1e-5) ** 0.8 * T ** -0.4 * (sp + 1.4) ** 0.8
+        Qw = hcoef * (Ah * (T - CB[R_TW + 0, b]) + Ap * (T - CB[R_TW + 1, b]) + Al * (T - CB[R_TW + 2, b]))
     elif hc == HT_ANNAND:
-        mult = P[8, b]
-        bore = P[13, b]
+        mult = CB[R_P + 8, b]
+        bore = CB[R_P + 13, b]
         mu = 1.458e-6 * T ** 1.5 / (T + 110.4)
-        kc = mu * cp / P[12, b]
+        kc = mu * cp / CB[R_P + 12, b]
         Re = rho * sp * bore / mu
-        hconv = mult * P[9, b] * kc / bore * Re ** P[10, b]
-        c = mult * P[11, b] * SIGMA_SB if (closed and burning) else 0.0
+        hconv = mult * CB[R_P + 9, b] * kc / bore * Re ** CB[R_P + 10, b]
+        c = mult * CB[R_P + 11, b] * SIGMA_SB if (closed and burning) else 0.0
         T4 = T ** 4
         Qw = 0.0
-        Qw = Qw + Ah * (hconv * (T - Tw[0, b]) + c * (T4 - Tw[0, b] ** 4))
-        Qw = Qw + Ap * (hconv * (T - Tw[1, b]) + c * (T4 - Tw[1, b] ** 4))
-        Qw = Qw + Al * (hconv * (T - Tw[2, b]) + c * (T4 - Tw[2, b] ** 4))
+        Qw = Qw + Ah * (hconv * (T - CB[R_TW + 0, b]) + c * (T4 - CB[R_TW + 0, b] ** 4))
+        Qw = Qw + Ap * (hconv * (T - CB[R_TW + 1, b]) + c * (T4 - CB[R_TW + 1, b] ** 4))
+        Qw = Qw + Al * (hconv * (T - CB[R_TW + 2, b]) + c * (T4 - CB[R_TW + 2, b] ** 4))
     # blowby (outflow only)
     mbb = 0.0
-    if codes[2] == BB_ORIFICE:
-        mbb = max(_outflow(P[14, b], p, T, R, gamma, min(p, P[15, b]), gc[8]), 0.0)
+    if IC[2] == BB_ORIFICE:
+        mbb = max(_outflow(CB[R_P + 14, b], p, T, R, gamma, min(p, CB[R_P + 15, b]), gc[8]), 0.0)
     fbb = mbb * dt
     out[6] = fbb
     if flows:
-        mi = _orifice(Ai, plen[0, b], plen[1, b], plen[3, b], plen[4, b], p, T, R, gamma, gc[8])
-        me = _orifice(Ae, plen[6, b], plen[7, b], plen[8, b], plen[9, b], p, T, R, gamma, gc[8])
+        mi = _orifice(Ai, CB[R_PLEN + 0, b], CB[R_PLEN + 1, b], CB[R_PLEN + 3, b], CB[R_PLEN + 4, b], p, T, R, gamma, gc[8])
+        me = _orifice(Ae, CB[R_PLEN + 6, b], CB[R_PLEN + 7, b], CB[R_PLEN + 8, b], CB[R_PLEN + 9, b], p, T, R, gamma, gc[8])
         fi = mi * dt
         fe = me * dt
         out[9] = fi
         out[12] = fe
         mq = max(yv[16], 0.0)
-        wq = mq / (mq + buf_scale[b])
+        wq = mq / (mq + CB[R_BUF, b])
         mq_safe = mq if mq > 0 else 1.0
         yq = min(max(yv[17] / mq_safe, 0.0), 1.0)
         hq = yv[18] / mq_safe
         if fi > 0:
-            yin_i = wq * yq + (1.0 - wq) * plen[2, b]
-            hin_i = wq * hq + (1.0 - wq) * plen[5, b]
+            yin_i = wq * yq + (1.0 - wq) * CB[R_PLEN + 2, b]
+            hin_i = wq * hq + (1.0 - wq) * CB[R_PLEN + 5, b]
             wfi = wq * fi
             out[16] = -wfi
             out[17] = -(wfi * yq)
@@ -220,7 +233,7 @@ def _rhs(b, j, theta, yv, out, full, flows, V, dV, Ah, Ap, Al, closed, burning, 
             out[18] = -(fi * h)
         if fe > 0:
             yin_e = 1.0
-            hin_e = plen[10, b]
+            hin_e = CB[R_PLEN + 10, b]
         else:
             yin_e = yb
             hin_e = h
@@ -256,11 +269,11 @@ def _rhs(b, j, theta, yv, out, full, flows, V, dV, Ah, Ap, Al, closed, burning, 
             T_mot = yv[i_tmot]
             _, Rm, cvm = _fresh(uc4, b, T_mot, gc[7])
             out[i_tmot] = (-(Rm / cvm) * T_mot * (dV * om) / V) * dt
-    i_kn = isub[1]
-    if i_kn >= 0 and codes[3] == KN_LW:
-        if closed and xb < P[18, b]:
-            T0 = T_ivc[b]
-            lnr = math.log(p / p_ivc[b])
+    i_kn = IC[5]
+    if i_kn >= 0 and IC[3] == KN_LW:
+        if closed and xb < CB[R_P + 18, b]:
+            T0 = CB[R_IVC + 1, b]
+            lnr = math.log(p / CB[R_IVC, b])
             Tu = T0 * math.exp(lnr / 3.5)
             for _ in range(4):
                 ln = math.log(Tu / T0)
@@ -270,7 +283,7 @@ def _rhs(b, j, theta, yv, out, full, flows, V, dV, Ah, Ap, Al, closed, burning, 
                     Tm = (Tu - T0) / ln
                 _, Rm, cvm = _fresh(uc4, b, Tm, gc[7])
                 Tu = T0 * math.exp(Rm / (cvm + Rm) * lnr)
-            tau = P[16, b] * (p / P[19, b]) ** P[20, b] * math.exp(P[17, b] / Tu)
+            tau = CB[R_P + 16, b] * (p / CB[R_P + 19, b]) ** CB[R_P + 20, b] * math.exp(CB[R_P + 17, b] / Tu)
             rate = 1e3 / tau
             if math.isfinite(rate):
                 out[i_kn] = rate * dt
@@ -282,91 +295,68 @@ def _rhs(b, j, theta, yv, out, full, flows, V, dV, Ah, Ap, Al, closed, burning, 
 
 @njit(cache=True)
 def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, open_at, Ai_pts, Ae_pts,
-              y, Y, F, omega, Sp, Tw, eta, dh298, buf_scale, plen, codes, P, isub, reset,
-              gas_tab, gas_off, gc, nRm1, uc4, ivc, V_at_ivc, p_ivc, T_ivc, V_ivc, status):
+              y, Y, F, CB, IC, reset, gas_tab, gas_off, gc, uc4, status):
     """One cycle of every case: Kutta's third-order scheme on the grid, as the Python loop."""
     n, B = y.shape
     N = steps.shape[0]
     yv = np.empty(n)
-    k1 = np.empty(n)
-    k2 = np.empty(n)
-    k3 = np.empty(n)
     yt = np.empty(n)
+    K = np.empty((3, n))
     mix = np.empty(7)
     for b in range(B):
         status[b] = 0
         for k in range(n):
             yv[k] = y[k, b]
-        for i in range(N):
-            j0 = 2 * i
-            j1 = j0 + 1
-            j2 = j0 + 2
-            t0 = th[j0]
-            tm = th[j1]
-            tn = th[j2]
-            hs = steps[i]
-            hh = 0.5 * hs
-            fo0 = full and open_at[j0]
-            fo1 = full and open_at[j1]
-            fo2 = full and open_at[j2]
-            ok = _rhs(b, j0, t0, yv, k1, full, fo0, Vp[j0, b], dVp[j0, b], Ahp[j0, b],
-                      App[j0, b], Alp[j0, b], closed_pts[j0, b], burning_pts[j0, b], Ai_pts[j0, b],
-                      Ae_pts[j0, b], omega, Sp, Tw, eta, dh298, buf_scale, plen, codes, P, isub,
-                      gas_tab, gas_off, gc, nRm1, uc4, p_ivc, T_ivc, V_ivc, mix)
-            for k in range(n):
-                Y[k, b, i] = yv[k]
-                F[k, b, i] = k1[k]
-                yt[k] = yv[k] + hh * k1[k]
-            ok1 = _rhs(b, j1, tm, yt, k2, full, fo1, Vp[j1, b], dVp[j1, b],
-                             Ahp[j1, b], App[j1, b], Alp[j1, b], closed_pts[j1, b], burning_pts[j1, b],
-                             Ai_pts[j1, b], Ae_pts[j1, b], omega, Sp, Tw, eta, dh298, buf_scale, plen,
-                             codes, P, isub, gas_tab, gas_off, gc, nRm1, uc4, p_ivc, T_ivc, V_ivc, mix)
-            for k in range(n):
-                yt[k] = yv[k] + hs * (2.0 * k2[k] - k1[k])
-            ok2 = _rhs(b, j2, tn, yt, k3, full, fo2, Vp[j2, b], dVp[j2, b],
-                             Ahp[j2, b], App[j2, b], Alp[j2, b], closed_pts[j2, b], burning_pts[j2, b],
-                             Ai_pts[j2, b], Ae_pts[j2, b], omega, Sp, Tw, eta, dh298, buf_scale, plen,
-                             codes, P, isub, gas_tab, gas_off, gc, nRm1, uc4, p_ivc, T_ivc, V_ivc, mix)
-            if not (ok and ok1 and ok2):
-                status[b] = 1
+        for i in range(N + 1):
+            hs = steps[i] if i < N else 0.0
+            # the three stages: the step's start, middle and end (only the start at the last point)
+            for st in range(3 if i < N else 1):
+                j = 2 * i + st
+                if st == 0:
+                    for k in range(n):
+                        yt[k] = yv[k]
+                elif st == 1:
+                    for k in range(n):
+                        yt[k] = yv[k] + 0.5 * hs * K[0, k]
+                else:
+                    for k in range(n):
+                        yt[k] = yv[k] + hs * (2.0 * K[1, k] - K[0, k])
+                ok = _rhs(b, th[j], yt, K[st], full and open_at[j], Vp[j, b], dVp[j, b], Ahp[j, b],
+                          App[j, b], Alp[j, b], closed_pts[j, b], burning_pts[j, b], Ai_pts[j, b],
+                          Ae_pts[j, b], CB, IC, gas_tab, gas_off, gc, uc4, mix)
+                if not ok:
+                    status[b] = 1
+                    break
+                if st == 0:
+                    for k in range(n):
+                        Y[k, b, i] = yv[k]
+                        F[k, b, i] = K[0, k]
+            if status[b] != 0 or i == N:
                 break
             c6 = hs / 6.0
             for k in range(n):
-                yv[k] = yv[k] + c6 * (k1[k] + 4.0 * k2[k] + k3[k])
+                yv[k] = yv[k] + c6 * (K[0, k] + 4.0 * K[1, k] + K[2, k])
             m_ = yv[0]
             T_ = yv[1]
             if not (m_ > 0.0 and m_ < math.inf and T_ > 50.0 and T_ < 8000.0):
                 status[b] = 1
                 break
             if full:
-                iv = ivc[b]
-                if iv > t0 and iv <= tn:
+                t0 = th[2 * i]
+                iv = CB[R_IVC_DEG, b]
+                if iv > t0 and iv <= th[2 * i + 2]:
                     w = (iv - t0) / hs
-                    Vi = V_at_ivc[b]
+                    Vi = CB[R_V_AT_IVC, b]
                     Ti = (1 - w) * Y[1, b, i] + w * yv[1]
                     mi_ = (1 - w) * Y[0, b, i] + w * yv[0]
                     ybi = min(max(((1 - w) * Y[2, b, i] + w * yv[2]) / mi_, 0.0), 1.0)
                     rhoi = mi_ / Vi
-                    _mixture(gas_tab, gas_off[b], gc, nRm1, uc4, b, Ti, rhoi, ybi, mix)
-                    p_ivc[b] = rhoi * mix[1] * Ti
-                    T_ivc[b] = Ti
-                    V_ivc[b] = Vi
+                    _mixture(gas_tab, gas_off[b], gc, IC[6], uc4, b, Ti, rhoi, ybi, mix)
+                    CB[R_IVC, b] = rhoi * mix[1] * Ti
+                    CB[R_IVC + 1, b] = Ti
+                    CB[R_IVC + 2, b] = Vi
                     for k in range(n):
                         if reset[0, k] == 1.0:
                             yv[k] = yv[1]
                         elif reset[0, k] == 2.0:
                             yv[k] = reset[1, k]
-        if status[b] != 0:
-            continue
-        for k in range(n):
-            Y[k, b, N] = yv[k]
-        foN = full and open_at[2 * N]
-        ok = _rhs(b, 2 * N, th[2 * N], yv, k1, full, foN, Vp[2 * N, b], dVp[2 * N, b],
-                  Ahp[2 * N, b], App[2 * N, b], Alp[2 * N, b], closed_pts[2 * N, b], burning_pts[2 * N, b],
-                  Ai_pts[2 * N, b], Ae_pts[2 * N, b], omega, Sp, Tw, eta, dh298, buf_scale, plen, codes, P,
-                  isub, gas_tab, gas_off, gc, nRm1, uc4, p_ivc, T_ivc, V_ivc, mix)
-        if not ok:
-            status[b] = 1
-            continue
-        for k in range(n):
-            F[k, b, N] = k1[k]

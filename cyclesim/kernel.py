@@ -183,8 +183,6 @@ class Compiled:
             codes[3] = c.KN_LW
             P[16], P[17], P[18] = _b(kn._pre_ms, B), _b(kn.act, B), _b(kn.x_max, B)
             P[19], P[20] = knock.ATM_PA, knock.DE_PRESSURE_EXPONENT
-        self.P = P
-        self.codes = codes
         from .solver import CORE
 
         n = rhs.n
@@ -212,23 +210,35 @@ class Compiled:
         self.V_at_ivc = _b(batch.geometry.volume_at(self.ivc), B) if self.full else np.zeros(B)
         self.steps = _cw(np.diff(half[::2]))
         self.status = np.zeros(B, dtype=np.int64)
+        CB = np.zeros((mod.N_ROWS, B))
+        CB[mod.R_OMEGA] = self.omega
+        CB[mod.R_SP] = self.Sp
+        CB[mod.R_TW:mod.R_TW + 3] = self.Tw
+        CB[mod.R_ETA] = self.eta
+        CB[mod.R_DH] = self.dh298
+        CB[mod.R_BUF] = self.buf
+        CB[mod.R_PLEN:mod.R_PLEN + 11] = self.plen
+        CB[mod.R_P:mod.R_P + P.shape[0]] = P
+        CB[mod.R_IVC_DEG] = self.ivc
+        CB[mod.R_V_AT_IVC] = self.V_at_ivc
+        self.CB = CB
+        self.IC = np.array([codes[0], codes[1], codes[2], codes[3], isub[0], isub[1], self.nRm1],
+                           dtype=np.int64)
 
     def cycle(self, y: np.ndarray, Y: np.ndarray, F: np.ndarray) -> bool:
         """One cycle from ``y`` into ``Y``, ``F``; False (nothing kept) if any case needs the Python path."""
         rhs = self.rhs
-        saved = (rhs.p_ivc.copy(), rhs.T_ivc.copy(), rhs.V_ivc.copy())
-        for name in ("p_ivc", "T_ivc", "V_ivc"):
-            setattr(rhs, name, _cw(getattr(rhs, name)))
+        mod = self.mod
+        CB = self.CB
+        r = mod.R_IVC
+        CB[r], CB[r + 1], CB[r + 2] = rhs.p_ivc, rhs.T_ivc, rhs.V_ivc
         G = self.Gc
-        self.mod.run_cycle(self.full, self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.closed,
-                           self.burning, self.open_at, self.Ai, self.Ae, _cw(y), Y, F,
-                           self.omega, self.Sp, self.Tw, self.eta, self.dh298, self.buf, self.plen,
-                           self.codes, self.P, self.isub, self.reset, self.gas_tab, self.gas_off, self.gc,
-                           self.nRm1, self.uc4, self.ivc, self.V_at_ivc, rhs.p_ivc, rhs.T_ivc, rhs.V_ivc,
-                           self.status)
+        mod.run_cycle(self.full, self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.closed,
+                      self.burning, self.open_at, self.Ai, self.Ae, _cw(y), Y, F, CB, self.IC, self.reset,
+                      self.gas_tab, self.gas_off, self.gc, self.uc4, self.status)
         if self.status.any():
-            rhs.p_ivc, rhs.T_ivc, rhs.V_ivc = saved
             return False
+        rhs.p_ivc, rhs.T_ivc, rhs.V_ivc = CB[r].copy(), CB[r + 1].copy(), CB[r + 2].copy()
         _used["compiled"] += 1
         return True
 
