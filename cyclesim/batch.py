@@ -35,27 +35,56 @@ def _freeze(v: Any) -> Any:
     return v
 
 
+_KEY_NAMES: dict = {}
+
+
+def _key_names(sec: str) -> tuple:
+    """Names of the settings of a core section that must be equal within a batch (cached)."""
+    got = _KEY_NAMES.get(sec)
+    if got is None:
+        if sec == "valves:timing":
+            got = tuple(p.name for p in CORE_SCHEMA["valves"]
+                        if _is_numeric_param(p) and p.name not in _AREA_SIZE)
+        else:
+            got = tuple(p.name for p in CORE_SCHEMA[sec] if not _is_numeric_param(p) or sec == "fuel")
+        _KEY_NAMES[sec] = got
+    return got
+
+
+_CLASS_NAMES: dict = {}
+
+
+def _class_names(cls, numeric: bool) -> tuple:
+    """A submodel class's non-numeric (or, with ``numeric``, its numeric non-size) parameter names."""
+    key = (cls, numeric)
+    got = _CLASS_NAMES.get(key)
+    if got is None:
+        if numeric:
+            got = tuple(p.name for p in cls.params if _is_numeric_param(p) and p.name not in _AREA_SIZE)
+        else:
+            got = tuple(p.name for p in cls.params if not _is_numeric_param(p))
+        _CLASS_NAMES[key] = got
+    return got
+
+
 def batch_key(case: Case, registry) -> tuple:
     """Cases with equal keys can share one batch."""
     parts: list[Any] = [case.plugins, str(case.base_dir)]
-    for sec, params in CORE_SCHEMA.items():
+    for sec in CORE_SCHEMA:
         ns = case.section(sec)
-        for p in params:
-            if not _is_numeric_param(p) or sec == "fuel":
-                parts.append((sec, p.name, _freeze(getattr(ns, p.name))))
+        for name in _key_names(sec):
+            parts.append((sec, name, _freeze(getattr(ns, name))))
     if case.simulation.mode == "closed":
         parts.append(("closed", case.valves.ivc_deg, case.valves.evo_deg))
     else:
         # the crank grid steps further where every valve is shut, so cases share a batch only
         # where their valves are shut alike (the sizes of the openings do not matter)
         parts.append(("valve_timing",) + tuple(
-            (p.name, _freeze(getattr(case.valves, p.name))) for p in CORE_SCHEMA["valves"]
-            if _is_numeric_param(p) and p.name not in _AREA_SIZE))
+            (name, _freeze(getattr(case.valves, name))) for name in _key_names("valves:timing")))
         vf = case.submodels["valve_flow"]
         vcls = registry.submodel_class("valve_flow", vf.model)
         parts.append(("valve_flow_numbers",) + tuple(
-            (p.name, _freeze(vf.params[p.name])) for p in vcls.params
-            if _is_numeric_param(p) and p.name not in _AREA_SIZE))
+            (name, _freeze(vf.params[name])) for name in _class_names(vcls, True)))
     from .config import effective_step_deg
 
     parts.append(("step", effective_step_deg(case.simulation, case.operating.speed_rpm)))
@@ -65,11 +94,9 @@ def batch_key(case: Case, registry) -> tuple:
     parts.append(("closed_step_factor", closed_step_factor(case, classes)))
     for role in ROLES:
         ch = case.submodels[role]
-        cls = registry.submodel_class(role, ch.model)
         parts.append((role, ch.model))
-        for p in cls.params:
-            if not _is_numeric_param(p):
-                parts.append((role, p.name, _freeze(ch.params[p.name])))
+        for name in _class_names(classes[role], False):
+            parts.append((role, name, _freeze(ch.params[name])))
     return tuple(parts)
 
 

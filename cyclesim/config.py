@@ -362,14 +362,15 @@ def parse_override(text: str) -> tuple[list[str], Any]:
     return parts, val
 
 
-def apply_override(raw: dict, parts: list[str], value: Any) -> dict:
-    """Set one dotted key in a raw config dict (returns a new dict).
+def apply_override(raw: dict, parts: list[str], value: Any, in_place: bool = False) -> dict:
+    """Set one dotted key in a raw config dict (returns a new dict, or ``raw`` itself changed
+    with ``in_place``).
 
     Choosing another model for a role (``heat_transfer.model=hohenberg``)
     drops the old model's parameters, as a change of model in a derived
     config does.
     """
-    out = copy.deepcopy(raw)
+    out = raw if in_place else copy.deepcopy(raw)
     if len(parts) == 2 and parts[0] in ROLES and parts[1] == "model":
         sec = out.get(parts[0])
         if isinstance(sec, dict) and sec.get("model") != value:
@@ -464,10 +465,30 @@ def _check_cross(case: Case) -> None:
         raise ConfigError(f"fuel: a custom fuel needs C, H and lhv_MJ_per_kg; missing {', '.join(missing)}")
 
 
-def build_case(raw: Mapping, base_dir: Path | None = None, registry=None) -> Case:
-    """Validate a merged raw config into a :class:`Case` (raises ConfigError/PluginError)."""
+def _copy_value(v: Any) -> Any:
+    return copy.deepcopy(v) if isinstance(v, (list, dict)) else v
+
+
+def _copy_ns(ns: SimpleNamespace) -> SimpleNamespace:
+    return SimpleNamespace(**{k: _copy_value(v) for k, v in vars(ns).items()})
+
+
+def build_case(raw: Mapping, base_dir: Path | None = None, registry=None, _owned: bool = False,
+               _reuse: tuple | None = None) -> Case:
+    """Validate a merged raw config into a :class:`Case` (raises ConfigError/PluginError).
+
+    ``_owned``: ``raw`` is a private copy the case may keep (no copy is made).  ``_reuse``:
+    ``(case, touched)``, a case validated from the same raw config except in the top-level
+    sections named in ``touched``; its other sections are copied instead of validated."""
     if not isinstance(raw, Mapping):
         raise ConfigError(f"config: expected a mapping of sections, got {raw!r}")
+    prev, touched = _reuse if _reuse is not None else (None, None)
+    if prev is not None and (raw.get("plugins") != prev.raw.get("plugins") or "plugins" in touched):
+        prev = None
+
+    def kept(sec: str) -> bool:
+        return prev is not None and sec not in touched
+
     for key in raw:
         if key not in TOP_KEYS:
             raise ConfigError(
@@ -476,7 +497,10 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None) -> Cas
             )
     sections = {}
     for sec, params in CORE_SCHEMA.items():
-        sections[sec] = SimpleNamespace(**validate_section(raw.get(sec), params, sec))
+        if kept(sec):
+            sections[sec] = _copy_ns(prev.section(sec))
+        else:
+            sections[sec] = SimpleNamespace(**validate_section(raw.get(sec), params, sec))
     plugins = raw.get("plugins") or ()
     if isinstance(plugins, str):
         plugins = (plugins,)
@@ -492,6 +516,10 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None) -> Cas
         registry = get_registry(plugins)
     subs = {}
     for role in ROLES:
+        if kept(role):
+            ch = prev.submodels[role]
+            subs[role] = SubmodelChoice(role, ch.model, {k: _copy_value(v) for k, v in ch.params.items()})
+            continue
         sec = raw.get(role) or {}
         if isinstance(sec, str):
             sec = {"model": sec}
@@ -503,12 +531,15 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None) -> Cas
         cls = registry.submodel_class(role, model, where=f"{role}.model")
         params = validate_section(sec, cls.params, f"{role}", ignore=("model",))
         subs[role] = SubmodelChoice(role, model, params)
-    multi = SimpleNamespace(**validate_section(raw.get("multi_cylinder"), MULTI_SCHEMA, "multi_cylinder"))
+    if kept("multi_cylinder") and prev.multi_cylinder is not None:
+        multi = _copy_ns(prev.multi_cylinder)
+    else:
+        multi = SimpleNamespace(**validate_section(raw.get("multi_cylinder"), MULTI_SCHEMA, "multi_cylinder"))
     case = Case(
         name=str(raw.get("name") or "case"),
         submodels=subs,
         plugins=plugins,
-        raw=copy.deepcopy(dict(raw)),
+        raw=dict(raw) if _owned else copy.deepcopy(dict(raw)),
         base_dir=bdir,
         multi_cylinder=multi,
         **sections,
@@ -534,13 +565,20 @@ def load_config(path: str | Path = "demo", overrides: list[str] | tuple = (), re
     return build_case(raw, base_dir, registry)
 
 
-def case_with(case: Case, changes: Mapping[str, Any]) -> Case:
-    """A new validated case with dotted keys changed (used by sweeps)."""
-    raw = case.raw
+def case_with(case: Case, changes: Mapping[str, Any], registry=None) -> Case:
+    """A new validated case with dotted keys changed (used by sweeps).
+
+    Sections the changes do not touch keep the validated values of ``case`` (they were
+    validated from the same raw entries); the changed sections and the cross-checks are
+    validated afresh.
+    """
+    raw = copy.deepcopy(case.raw)           # one copy, changed in place, owned by the new case
+    touched = set()
     for k, v in changes.items():
-        raw = set_dotted(raw, k, v)
-    raw = dict(raw)
-    return build_case(raw, case.base_dir)
+        parts = [p for p in k.split(".") if p]
+        raw = apply_override(raw, parts, v, in_place=True)
+        touched.add(parts[0] if parts else "")
+    return build_case(raw, case.base_dir, registry, _owned=True, _reuse=(case, touched))
 
 
 def resolve_case(base: "Case | str | Path", overrides: Sequence[str] = ()) -> tuple[Case, str]:

@@ -17,14 +17,15 @@ from .solver import CycleTrace, hermite, hermite_grid, is_uniform
 
 
 def _columns(gas, T, rho, y):
-    """Mixture properties column by column for (B, n) arrays (tables are per case)."""
+    """Mixture properties for (B, n) arrays (tables are per case), as a dict of (B, n) arrays."""
+    if hasattr(gas, "mixture_grid"):
+        return gas.mixture_grid(T, rho, y)._asdict()
+    # a gas model with only the solver's (B,) interface: column by column
     B, n = T.shape
-    names = ("u", "u_T", "u_lnrho", "u_y", "R", "R_T", "R_lnrho", "R_y", "cv", "cp", "gamma")
-    out = {k: np.empty((B, n)) for k in names}
+    out: dict = {}
     for j in range(n):
-        mp = gas.mixture(T[:, j], rho[:, j], y[:, j])
-        for k in names:
-            out[k][:, j] = getattr(mp, k)
+        for k, v in gas.mixture(T[:, j], rho[:, j], y[:, j])._asdict().items():
+            out.setdefault(k, np.empty((B, n)))[:, j] = v
     return out
 
 
@@ -109,16 +110,28 @@ def hermite_crossing(theta, Yr, Fr, level, start=None):
     h = theta[j + 1] - theta[j]
     y0, y1 = Yr[r, j], Yr[r, j + 1]
     d0, d1 = Fr[r, j] * h, Fr[r, j + 1] * h
+    # the cubic v(t) = y0 + c1 t + c2 t^2 + c3 t^3 on the interval (t in 0..1)
+    c1 = d0
+    c2 = 3 * (y1 - y0) - 2 * d0 - d1
+    c3 = 2 * (y0 - y1) + d0 + d1
+    r0 = y0 - level
     lo = np.zeros(B)
     hi = np.ones(B)
-    for _ in range(50):
+    # bisection brackets the first crossing to 2^-12, then Newton steps kept inside the
+    # bracket converge quadratically (to rounding after two)
+    for _ in range(12):
         t = 0.5 * (lo + hi)
-        v = ((2 * t**3 - 3 * t**2 + 1) * y0 + (t**3 - 2 * t**2 + t) * d0
-             + (-2 * t**3 + 3 * t**2) * y1 + (t**3 - t**2) * d1)
-        below = v < level
+        below = r0 + t * (c1 + t * (c2 + t * c3)) < 0.0
         lo = np.where(below, t, lo)
         hi = np.where(below, hi, t)
-    ang = theta[j] + 0.5 * (lo + hi) * h
+    t = 0.5 * (lo + hi)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for _ in range(3):
+            f = r0 + t * (c1 + t * (c2 + t * c3))
+            df = c1 + t * (2 * c2 + 3 * t * c3)
+            tn = t - f / df
+            t = np.where(np.isfinite(tn) & (tn >= lo) & (tn <= hi), tn, t)
+    ang = theta[j] + t * h
     ang = np.where(k == 0, theta[0], ang)
     return np.where(has, ang, np.nan)
 

@@ -598,6 +598,25 @@ class GasTables:
         return MixProps(M[:, 0], u_T, S[:, 0], D[:, 0], M[:, 1], M[:, 3], S[:, 1], D[:, 1],
                         u_T, cp, cp / u_T)
 
+    def mixture_grid(self, T, rho, y) -> MixProps:
+        """As :meth:`mixture` for (B, n) arrays (a crank grid per case), in one pass."""
+        T = np.asarray(T, dtype=float)
+        B, n = T.shape
+        Tf = T.ravel()
+        f, s = self._burned_core(Tf, np.broadcast_to(np.asarray(rho, dtype=float), T.shape).ravel(),
+                                 np.repeat(self._offset, n))
+        P = np.power(Tf[:, None], _POWERS6)
+        rows = np.repeat(self._row2, n) + (Tf > T_MID)
+        U = np.matmul(P[:, None, :], self._uc4[rows])[:, 0]
+        D = f - U
+        yc = np.broadcast_to(np.asarray(y, dtype=float), T.shape).ravel()[:, None]
+        M = U + yc * D
+        S = yc * s[:, :2]
+        u_T = M[:, 2]
+        cp = u_T + M[:, 1]
+        out = (M[:, 0], u_T, S[:, 0], D[:, 0], M[:, 1], M[:, 3], S[:, 1], D[:, 1], u_T, cp, cp / u_T)
+        return MixProps(*(a.reshape(B, n) for a in out))
+
     def pressure(self, T, rho, y) -> np.ndarray:
         """Pressure [Pa] = rho R(T, rho, y) T."""
         T = np.asarray(T, dtype=float)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import copy
 import subprocess
 import sys
 import textwrap
@@ -128,3 +129,33 @@ def test_exponent_numbers_without_a_dot(tmp_path):
     assert c.simulation.step_deg == 0.5
     # words that merely start like numbers stay text
     assert load_config("demo", ["name=1e5x"]).name == "1e5x"
+
+
+@pytest.mark.parametrize("changes", [
+    {"burn.spark_advance_deg": 30.0},
+    {"operating.speed_rpm": 2000, "burn.duration_deg": 40},
+    {"heat_transfer.model": "hohenberg"},
+    {"multi_cylinder.firing_order": [1, 2, 4, 3]},
+])
+def test_case_with_equals_a_full_rebuild(changes):
+    # case_with copies the sections the changes leave alone; a full validation of the same
+    # raw config must give the same case (the project's own full path is the reference)
+    from cyclesim.config import build_case, case_with, flat_inputs
+
+    base = load_config("demo")
+    a = case_with(base, changes)
+    b = build_case(copy.deepcopy(a.raw), base.base_dir)
+    assert flat_inputs(a) == flat_inputs(b)
+    assert vars(a.multi_cylinder) == vars(b.multi_cylinder)
+    # the new case owns its raw config: changing it leaves the base case alone
+    a.raw["operating"]["speed_rpm"] = 1234
+    assert base.raw["operating"]["speed_rpm"] != 1234
+
+
+def test_case_with_still_validates_the_changed_section():
+    from cyclesim.config import case_with
+
+    with pytest.raises(ConfigError, match="spark_advance_deg"):
+        case_with(load_config("demo"), {"burn.spark_advance_deg": 300.0})
+    with pytest.raises(ConfigError, match="conrod"):
+        case_with(load_config("demo"), {"engine.conrod_mm": 30.0})

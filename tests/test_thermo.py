@@ -140,6 +140,14 @@ def test_properties_accept_case_by_point_arrays():
         for a2, a1 in zip(b2, b1):
             np.testing.assert_allclose(a2[:, k], a1, rtol=1e-14)
 
+    # the whole-grid mixture (post-processing) equals the column-by-column one of the solver
+    y = np.array([[0.0, 0.3, 1.0], [0.05, 0.7, 0.9]])
+    mg = g.mixture_grid(T, rho, y)
+    for k in range(3):
+        m1 = g.mixture(T[:, k], rho[:, k], y[:, k])
+        for a2, a1 in zip(mg, m1):
+            np.testing.assert_allclose(a2[:, k], a1, rtol=1e-14)
+
 
 # ---------------------------------------------------------------------------
 # energy bookkeeping

@@ -343,7 +343,7 @@ def synthesize(
     mean = _steady_state(case, registry)
     start_state = mean.end_state[:, 0]
     changes, misfire, partial = draw_parameters(case, n_cycles, var)
-    cases = [case_with(case, ch) for ch in changes]
+    cases = [case_with(case, ch, registry) for ch in changes]
     for c, i in zip(cases, range(n_cycles)):
         c.name = f"{case.name}#{i + 1}"
 
