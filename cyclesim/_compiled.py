@@ -295,7 +295,7 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, C
 
 @njit(cache=True)
 def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, open_at, Ai_pts, Ae_pts,
-              y, Y, F, CB, IC, reset, gas_tab, gas_off, gc, uc4, status):
+              y, Y, F, CB, IC, reset, geo_rows, gas_tab, gas_off, gc, uc4, status):
     """One cycle of every case: Kutta's third-order scheme on the grid, as the Python loop."""
     n, B = y.shape
     N = steps.shape[0]
@@ -305,6 +305,7 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
     mix = np.empty(7)
     for b in range(B):
         status[b] = 0
+        g = geo_rows[b]          # the case's column of the geometry arrays
         for k in range(n):
             yv[k] = y[k, b]
         for i in range(N + 1):
@@ -321,8 +322,8 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
                 else:
                     for k in range(n):
                         yt[k] = yv[k] + hs * (2.0 * K[1, k] - K[0, k])
-                ok = _rhs(b, th[j], yt, K[st], full and open_at[j], Vp[j, b], dVp[j, b], Ahp[j, b],
-                          App[j, b], Alp[j, b], closed_pts[j, b], burning_pts[j, b], Ai_pts[j, b],
+                ok = _rhs(b, th[j], yt, K[st], full and open_at[j], Vp[j, g], dVp[j, g], Ahp[j, g],
+                          App[j, g], Alp[j, g], closed_pts[j, b], burning_pts[j, b], Ai_pts[j, b],
                           Ae_pts[j, b], CB, IC, gas_tab, gas_off, gc, uc4, mix)
                 if not ok:
                     status[b] = 1

@@ -108,7 +108,7 @@ def why_not(batch, rhs) -> str | None:
 class Compiled:
     """The packed inputs of one batch's compiled cycle (built once per integration)."""
 
-    def __init__(self, mod, batch, rhs, half, Gc, closed_pts, burning_pts, open_at):
+    def __init__(self, mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at):
         from cyclesim_plugins import heat_transfer, knock, ring_leakage, valve_flow, wiebe
 
         from . import flow
@@ -120,7 +120,8 @@ class Compiled:
         m = batch.models
         self.th = _cw(half)
         # one compiled signature for all: C-contiguous, writable arrays
-        self.Gc = [_cw(a) for a in Gc]
+        self.Gc = [_cw(a) for a in Gu]          # (points, distinct geometries)
+        self.geo_rows = _cw(geo_rows, np.int64)
         self.closed = _cw(closed_pts, np.bool_)
         self.burning = _cw(burning_pts, np.bool_)
         self.open_at = _cw(open_at, np.bool_)
@@ -234,7 +235,7 @@ class Compiled:
         CB[r], CB[r + 1], CB[r + 2] = rhs.p_ivc, rhs.T_ivc, rhs.V_ivc
         G = self.Gc
         mod.run_cycle(self.full, self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.closed,
-                      self.burning, self.open_at, self.Ai, self.Ae, _cw(y), Y, F, CB, self.IC, self.reset,
+                      self.burning, self.open_at, self.Ai, self.Ae, _cw(y), Y, F, CB, self.IC, self.reset, self.geo_rows,
                       self.gas_tab, self.gas_off, self.gc, self.uc4, self.status)
         if self.status.any():
             return False
@@ -249,7 +250,7 @@ def _thermo_T_mid() -> float:
     return float(T_MID)
 
 
-def prepare(batch, rhs, half, Gc, closed_pts, burning_pts, open_at) -> Compiled | None:
+def prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at) -> Compiled | None:
     """The compiled cycle of this batch, or None for the Python path."""
     mod = compiled_module()
     if mod is None:
@@ -259,4 +260,4 @@ def prepare(batch, rhs, half, Gc, closed_pts, burning_pts, open_at) -> Compiled 
         if choice() == "compiled":
             raise ConfigError(f"{ENV}=compiled: {reason}")
         return None
-    return Compiled(mod, batch, rhs, half, Gc, closed_pts, burning_pts, open_at)
+    return Compiled(mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at)

@@ -626,12 +626,11 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     # geometry, valve and combustion masks at grid points and midpoints, computed once
     half = _points(theta)
     geo = batch.geometry
-    V = geo.volume(half)
-    dV = geo.dV_dtheta(half)
-    Ah, Ap, Al = geo.areas(half)
     B = batch.B
-    G = [np.broadcast_to(a, (B, 2 * N + 1)) for a in (V, dV, Ah, Ap, Al)]
-    Gc = [np.ascontiguousarray(a.T) for a in G]   # (2N+1, B): one row per point
+    # geometry of the distinct cases (one row where a batch shares its engine), columns per point
+    geo_u, geo_rows = geo.distinct()
+    Gu = [np.ascontiguousarray(np.broadcast_to(a, (geo_u.B, 2 * N + 1)).T)
+          for a in (geo_u.volume(half), geo_u.dV_dtheta(half), *geo_u.areas(half))]
     if mode == "full":
         thw = np.where(half < 360.0, half, half - 720.0)[:, None]
         closed_pts = (thw >= rhs.ivc[None, :]) & (thw < rhs.evo[None, :])
@@ -643,6 +642,7 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
 
     def point_geometry():
         if not geo_pts:
+            Gc = [np.ascontiguousarray(a[:, geo_rows]) for a in Gu]   # (2N+1, B): one row per point
             any_burning = burning_pts.any(axis=1).tolist()
             geo_pts.extend((Gc[0][j], Gc[1][j], Gc[2][j], Gc[3][j], Gc[4][j], closed_pts[j],
                             burning_pts[j], any_burning[j]) for j in range(2 * N + 1))
@@ -710,7 +710,7 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     # the compiled cycle where numba is installed and every submodel has a compiled form
     from . import kernel
 
-    compiled = kernel.prepare(batch, rhs, half, Gc, closed_pts, burning_pts, open_at)
+    compiled = kernel.prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at)
     y = _initial_state(batch, rhs, theta[0], mode)
     if initial is not None:
         if initial.shape != y.shape:
@@ -743,6 +743,7 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
             if compiled is not None and rhs.all_alive and compiled.cycle(y, Y, F):
                 y = Y[:, :, N].copy()
             else:
+                kernel._used["python"] += 1
                 y = _python_cycle(y)
             if progress is not None:
                 progress(cyc)
@@ -767,8 +768,11 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
             if cyc == max_cycles:
                 newly |= ~done
             if newly.any():
-                Yfinal[:, newly] = Y[:, newly]
-                Ffinal[:, newly] = F[:, newly]
+                if newly.all():
+                    Yfinal, Ffinal = Y, F           # every case ends with this cycle: no copy
+                else:
+                    Yfinal[:, newly] = Y[:, newly]
+                    Ffinal[:, newly] = F[:, newly]
                 # the IVC state of the reported cycle (a case done early keeps its own, not that
                 # of the cycles its batch-mates still run)
                 for key, arr in (("p", rhs.p_ivc), ("T", rhs.T_ivc), ("V", rhs.V_ivc)):

@@ -472,45 +472,74 @@ class PoppetValves(ValveFlow):
             self._tab["exhaust"], self._dtab["exhaust"], self._open["exhaust"])
 
     # -- geometry on grids -------------------------------------------------------
-    def lift(self, theta_deg: np.ndarray) -> dict[str, np.ndarray]:
+    def _distinct(self) -> tuple[np.ndarray, np.ndarray]:
+        """Rows of the cases with distinct valve settings, and each case's row among them."""
+        got = getattr(self, "_distinct_rows", None)
+        if got is None:
+            cols = [self.threshold, self.dwell_arr, self.port_ratio, _arr(self.p.intake_area_factor, self.B)]
+            for valve in _VALVES:
+                cols += [*self.events[valve], self.max_lift[valve], self.diameter[valve], self.count[valve]]
+            keys = np.stack(cols, axis=1)
+            if np.all(keys == keys[0]):
+                got = (np.zeros(1, dtype=np.intp), np.zeros(self.B, dtype=np.intp))
+            else:
+                _, first, inv = np.unique(keys, axis=0, return_index=True, return_inverse=True)
+                got = (first, inv.ravel())
+            self._distinct_rows = got
+        return got
+
+    def lift(self, theta_deg: np.ndarray, _rows=None) -> dict[str, np.ndarray]:
         """Valve lift [m] on a crank grid [deg] (n,) -> ``{"intake": (B,n), "exhaust": (B,n)}``."""
         th = np.asarray(theta_deg, dtype=float)
         th = th[None, :] if th.ndim == 1 else th
+        r = slice(None) if _rows is None else _rows
+        nb = self.B if _rows is None else len(_rows)
         out = {}
         for valve in _VALVES:
             tab = self.table[valve]
             if tab is not None:
-                out[valve] = np.broadcast_to(table_lift(th, *tab), (self.B, th.shape[-1])).copy()
+                out[valve] = np.broadcast_to(table_lift(th, *tab), (nb, th.shape[-1])).copy()
             else:
                 opening, closing = self.events[valve]
-                out[valve] = event_lift(th, opening[:, None], closing[:, None],
-                                        self.max_lift[valve][:, None], self.threshold[:, None],
-                                        self.dwell_arr[:, None])
+                out[valve] = event_lift(th, opening[r, None], closing[r, None],
+                                        self.max_lift[valve][r, None], self.threshold[r, None],
+                                        self.dwell_arr[r, None])
         return out
 
-    def geometric_area(self, lift_m: np.ndarray, valve: str) -> np.ndarray:
+    def geometric_area(self, lift_m: np.ndarray, valve: str, _rows=None) -> np.ndarray:
         """Geometric flow area [m^2] of all valves of one port at a lift [m] (B, n).
 
         ``min(pi D L, port_area_ratio pi D^2/4) x count``.
         """
-        d = self.diameter[valve][:, None]
+        r = slice(None) if _rows is None else _rows
+        d = self.diameter[valve][r, None]
         curtain = math.pi * d * lift_m
-        port = self.port_ratio[:, None] * 0.25 * math.pi * d * d
-        return np.minimum(curtain, port) * self.count[valve][:, None]
+        port = self.port_ratio[r, None] * 0.25 * math.pi * d * d
+        return np.minimum(curtain, port) * self.count[valve][r, None]
 
     def discharge_coefficient(self, l_over_d: np.ndarray) -> np.ndarray:
         """Discharge coefficient [-] at lift/diameter [-] (table, held at its ends)."""
         return np.interp(l_over_d, self.cd_x, self.cd_y)
 
     def flow_area(self, theta_deg: np.ndarray) -> dict[str, np.ndarray]:
-        """Effective flow area C_D x A [m^2] on a crank grid [deg], as :meth:`lift`."""
-        lifts = self.lift(theta_deg)
+        """Effective flow area C_D x A [m^2] on a crank grid [deg], as :meth:`lift`.
+
+        Evaluated once per distinct valve setting of the batch (one row in a sweep of
+        operating conditions) and copied to the cases that share it.
+        """
+        rows, inv = self._distinct()
+        single = rows.size == self.B
+        sel = None if single else rows
+        lifts = self.lift(theta_deg, sel)
+        r = slice(None) if single else rows
         out = {}
         for valve in _VALVES:
             L = lifts[valve]
-            cd = self.discharge_coefficient(L / self.diameter[valve][:, None])
-            out[valve] = cd * self.geometric_area(L, valve)
-        out["intake"] = out["intake"] * _arr(self.p.intake_area_factor, self.B)[:, None]
+            cd = self.discharge_coefficient(L / self.diameter[valve][r, None])
+            out[valve] = cd * self.geometric_area(L, valve, sel)
+        out["intake"] = out["intake"] * _arr(self.p.intake_area_factor, self.B)[r, None]
+        if not single:
+            out = {k: v[inv] for k, v in out.items()}
         return out
 
     # -- hot loop ----------------------------------------------------------------

@@ -137,3 +137,18 @@ def test_rod_too_short_raises():
         Geometry([0.086], [0.086], [0.043], [10.0])
     with pytest.raises(ValueError):
         Geometry([0.086], [0.086], [0.046], [10.0], pin_offset_m=[0.004])
+
+
+def test_distinct_geometry_reproduces_every_case():
+    # distinct() keeps one row per different engine; indexing it back must give each case's
+    # own volume and areas (reference: the per-case evaluation)
+    th = np.linspace(-360.0, 360.0, 721)
+    g = Geometry(0.08, 0.085, 0.14, np.array([10.0, 11.0, 10.0, 10.0]))
+    gu, rows = g.distinct()
+    assert gu.B == 2 and rows.tolist() == [0, 1, 0, 0]
+    np.testing.assert_array_equal(gu.volume(th)[rows], g.volume(th))
+    np.testing.assert_array_equal(gu.dV_dtheta(th)[rows], g.dV_dtheta(th))
+    for a, b in zip(gu.areas(th), g.areas(th)):
+        np.testing.assert_array_equal(a[rows], b)
+    same = Geometry(0.08, 0.085, 0.14, np.full(3, 10.0))
+    assert same.distinct()[0].B == 1

@@ -238,3 +238,20 @@ def test_shut_valves():
     assert np.all(m_in == 0.0) and np.all(m_ex == 0.0)
     assert v.lift(np.linspace(-360, 360, 7))["intake"].shape == (2, 7)
     assert np.all(v.flow_area(np.linspace(-360, 360, 7))["exhaust"] == 0.0)
+
+
+def test_flow_area_of_a_batch_with_shared_and_distinct_settings():
+    # flow_area evaluates each distinct valve setting once; every case must still get the
+    # area it has alone (reference: the single-case evaluation of the same class)
+    th = np.linspace(-360.0, 360.0, 1441)
+    ivc = np.array([-140.0, -120.0, -140.0, -140.0])
+    batch = make_valves(B=4, ctx_over=dict(ivc=ivc))
+    assert batch._distinct()[0].size == 2
+    got = batch.flow_area(th)
+    for b in range(4):
+        one = make_valves(ctx_over=dict(ivc=ivc[b])).flow_area(th)
+        for k in ("intake", "exhaust"):
+            np.testing.assert_array_equal(got[k][b], one[k][0])
+    same = make_valves(B=3).flow_area(th)
+    assert same["intake"].shape == (3, th.size) and same["intake"].flags.writeable
+    np.testing.assert_array_equal(same["intake"][2], make_valves().flow_area(th)["intake"][0])
