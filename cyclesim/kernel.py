@@ -61,11 +61,25 @@ def compiled_module():
         try:
             from . import _compiled
             _mod = _compiled
+            _compile_notice(_compiled)
         except ImportError as exc:
             if c == "compiled":
                 raise ConfigError(f"{ENV}=compiled needs numba: pip install -e \".[fast]\" ({exc})") from exc
             _mod = False
     return _mod or None
+
+
+def _compile_notice(mod) -> None:
+    """One line on stderr where the compiled loop is not cached yet (the first run compiles it)."""
+    try:
+        cached = bool(mod.run_cycle._cache._cache_file._load_index())
+    except Exception:  # noqa: BLE001 - numba internals: no notice rather than a failure
+        return
+    if not cached:
+        import sys
+
+        print("cyclesim: compiling the cycle loop for this machine (once after installing; about"
+              " 10-20 s)", file=sys.stderr, flush=True)
 
 
 def _b(x, B) -> np.ndarray:

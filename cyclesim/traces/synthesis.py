@@ -29,6 +29,8 @@ from __future__ import annotations
 
 import json
 import math
+import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any, Sequence
@@ -455,9 +457,14 @@ def synthesize(
         knock_onset_deg=knock_on, knock_intensity=knock_int,
         intake_pressure_pa=float(case.operating.intake_pressure_bar) * 1e5,
     )
-    theta_o, P_true_o = art.decimate_to(theta_f, P, out_step)
-    _, Pm_o = art.decimate_to(theta_f, Pm, out_step)
-    Pint_o = art.decimate_to(theta_f, Pint, out_step)[1] if Pint is not None else None
+    # the three decimations are independent and numpy's correlation releases the GIL: on two
+    # threads where the machine has two cores (the same values, computed side by side)
+    sigs = [P, Pm] + ([Pint] if Pint is not None else [])
+    with ThreadPoolExecutor(max_workers=max(1, min(2, os.cpu_count() or 1))) as pool:
+        dec = list(pool.map(lambda X: art.decimate_to(theta_f, X, out_step), sigs))
+    theta_o, P_true_o = dec[0]
+    Pm_o = dec[1][1]
+    Pint_o = dec[2][1] if Pint is not None else None
     time_s = (theta_o - theta_o[0]) / (6.0 * speed) if sample_rate_hz else None
     for i, row in enumerate(truth):
         for k, v in art_truth.items():
