@@ -69,23 +69,49 @@ def main(argv=None):
     import cyclesim
     from cyclesim.config import load_config
 
+    from cyclesim import kernel
+
+    mod = kernel.compiled_module()
+    if mod is not None:
+        import numba
+
+        res["cycle_loop"] = f"compiled (numba {numba.__version__})"
+    else:
+        res["cycle_loop"] = "numpy (numba not installed or CYCLESIM_KERNEL=python)"
     base = load_config("demo")
-    cyclesim.simulate([base])  # warm caches (gas tables)
+    cyclesim.simulate([base])  # warm caches (gas tables, the compiled loop)
     res["one_point_s"], one = timed(lambda: cyclesim.simulate([base])[0], args.repeat)
     res["one_point_cycles"] = one.summary["cycles_to_converge"]
 
     spark = [load_config("demo", [f"burn.spark_advance_deg={a}"]) for a in range(0, 41)]
-    res["spark_sweep_41_s"], _ = timed(lambda: cyclesim.simulate(spark), 1)
+    res["spark_sweep_41_s"], _ = timed(lambda: cyclesim.simulate(spark), args.repeat)
 
     closed1 = load_config("demo_closed")
     closed41 = [load_config("demo_closed", [f"burn.spark_advance_deg={a}"]) for a in range(0, 41)]
     cyclesim.simulate([closed1])
-    t41, _ = timed(lambda: cyclesim.simulate(closed41), args.repeat)
+    t41, _ = timed(lambda: cyclesim.simulate(closed41), max(5, args.repeat))
     res["closed_cycle_per_case_41_ms"] = 1e3 * t41 / 41
 
     b100 = [load_config("demo", [f"burn.spark_advance_deg={10 + 0.2 * i}"]) for i in range(100)]
-    t100, _ = timed(lambda: cyclesim.simulate(b100), 1)
+    t100, _ = timed(lambda: cyclesim.simulate(b100), args.repeat)
+    res["batch100_per_case_ms"] = 1e3 * t100 / 100
     res["batch100_per_case_ratio"] = (t100 / 100) / res["one_point_s"]
+    if mod is not None:
+        # the same ratio and the agreement of the two loops, on the numpy loop
+        os.environ[kernel.ENV] = "python"
+        try:
+            t1_np, one_np = timed(lambda: cyclesim.simulate([base])[0], 1)
+            t100_np, _ = timed(lambda: cyclesim.simulate(b100), 1)
+        finally:
+            del os.environ[kernel.ENV]
+        res["numpy_loop"] = {
+            "one_point_s": t1_np,
+            "batch100_per_case_ms": 1e3 * t100_np / 100,
+            "batch100_per_case_ratio": (t100_np / 100) / t1_np,
+            "compiled_vs_numpy_max_rel_diff": max(
+                abs(one.summary[k] / one_np.summary[k] - 1.0) for k in one.summary
+                if isinstance(one.summary[k], float) and one_np.summary[k] and np.isfinite(one_np.summary[k])),
+        }
 
     # accuracy against a tenfold finer step
     fine = cyclesim.simulate([load_config("demo", ["simulation.step_deg=0.05"])])[0].summary
@@ -121,7 +147,7 @@ def main(argv=None):
     from cyclesim.traces.synthesis import CycleVariation, synthesize
 
     res["traces_300_independent_s"], _ = timed(
-        lambda: synthesize(base, 300, CycleVariation(), resolution_deg=0.1), 1)
+        lambda: synthesize(base, 300, CycleVariation(), resolution_deg=0.1), args.repeat)
     res["traces_300_coupled_s"], _ = timed(
         lambda: synthesize(base, 300, CycleVariation(coupled=True), resolution_deg=0.1), 1)
 

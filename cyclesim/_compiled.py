@@ -51,9 +51,18 @@ def _fresh(uc4, b, T, T_mid):
 def _mixture(gas_tab, off, gc, nRm1, uc4, b, T, rho, y, out):
     """Mixture properties into out: [u, R, u_T, u_lnrho, u_y, cp, gamma]."""
     T0, inv_dT, lr0, inv_dlr, dlr, x_hi, z_hi, T_mid = gc[0], gc[1], gc[2], gc[3], gc[4], gc[5], gc[6], gc[7]
-    x = min(max((T - T0) * inv_dT, 0.0), x_hi)
+    # clamped into the table; NaN (a state out of range) maps to the first node, as numpy's fmax
+    x = (T - T0) * inv_dT
+    if not x > 0.0:
+        x = 0.0
+    elif x > x_hi:
+        x = x_hi
     i = int(x)
-    z = min(max(math.log(rho) - lr0, 0.0), z_hi)
+    z = math.log(rho) - lr0 if rho > 0.0 else 0.0
+    if not z > 0.0:
+        z = 0.0
+    elif z > z_hi:
+        z = z_hi
     j = int(z * inv_dlr)
     cell = off + i * nRm1 + j
     t = x - i

@@ -19,9 +19,10 @@ knock             ``livengood_wu``, ``none``
 
 Choice: the environment variable ``CYCLESIM_KERNEL`` = ``auto`` (default: compiled
 where numba is installed and the batch's submodels allow), ``python`` (always the
-Python path) or ``compiled`` (as auto, but a missing numba is an error).  Install
-numba with the ``fast`` extra: ``pip install -e ".[fast]"``.  The first use compiles
-the loop (some seconds) and caches it on disk; later processes load it.
+Python path) or ``compiled`` (as auto, but a missing numba, or a batch with a submodel that
+has no compiled form, is an error).  Install numba with the ``fast`` extra:
+``pip install -e ".[fast]"``.  The first use compiles the loop (some seconds) and caches it
+on disk; later processes load it.
 
 A case whose state or derivatives stop being finite or physical in the compiled
 loop is re-run on the Python path for that cycle, which stops it with the message

@@ -781,7 +781,9 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
                 if cycles is not None:
                     converged[newly] = rhs.alive[newly]
                 else:
-                    converged[newly] = rhs.alive[newly] & (cyc < max_cycles or _settled(imep, m_tr, prev, tol))
+                    settled = (np.ones(B, dtype=bool) if cyc < max_cycles
+                               else _settled(imep, m_tr, prev, tol))
+                    converged[newly] = rhs.alive[newly] & settled[newly]
                 done |= newly
             if done.all():
                 break

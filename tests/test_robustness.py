@@ -106,3 +106,16 @@ def test_unsettled_cycle_warns_in_summary():
     assert any("not settled" in w for w in res.warnings)
     assert res.summary["converged"] is False
     assert "not settled" in " ".join(res.summary_json()["warnings"])
+
+
+def test_batch_with_cases_settling_early_and_at_the_cycle_limit():
+    # one case settles before simulation.max_cycles, its batch-mate reaches the limit unsettled:
+    # each keeps its own verdict (this combination once raised a ValueError for the whole batch)
+    ov = ["simulation.tolerance=5e-5", "simulation.max_cycles=4"]
+    wot, throttled = cyclesim.simulate([load_config("demo", ov),
+                                        load_config("demo", ov + ["operating.intake_pressure_bar=0.35"])])
+    assert wot.summary["converged"] is True
+    assert throttled.summary["converged"] is False
+    assert throttled.summary["cycles_to_converge"] == 4
+    assert any("not settled" in w for w in throttled.warnings)
+    assert not any("not settled" in w for w in wot.warnings)
