@@ -1,12 +1,12 @@
 """Speed and accuracy figures of cyclesim on the built-in demo, printed as JSON.
 
-    python benchmarks/run.py            # everything (several minutes on 2 cores)
+    python benchmarks/run.py            # everything (about a minute on 2 cores)
     python benchmarks/run.py --quick    # without the 1000-case grid
 
 Each timing is the median of ``--repeat`` runs, in-process unless named
 otherwise.  Targets (2-core machine) are printed beside the figures.
-``grid_1000_workers2_s`` runs the 1000-case grid on 2 worker processes
-(:func:`cyclesim.parallel.run_cases`); its speed-up is against
+``grid_1000_workers2_s`` runs the 1000-case grid on 2 worker processes in
+chunks of 64 cases, as ``cyclesim sweep`` does; its speed-up is against
 ``grid_1000_s`` (one process) and depends on how busy the cores are.
 """
 
@@ -133,11 +133,12 @@ def main(argv=None):
                 for n in np.linspace(1500, 6000, 10) for p in np.linspace(0.4, 1.0, 10)
                 for a in np.linspace(10, 40, 10)]
         res["grid_1000_s"], _ = timed(lambda: cyclesim.simulate(grid), 1)
-        # The same grid on 2 worker processes, one chunk per solver batch (costliest first), so
-        # every case runs in the batch it has above and gives the same figures bit for bit.
-        from cyclesim.parallel import run_cases
+        # The same grid on 2 worker processes as `cyclesim sweep` runs it (above 64 cases): chunks
+        # of 64 consecutive cases, each chunk one simulate() call in a worker
+        from cyclesim.parallel import run_chunks
 
-        res["grid_1000_workers2_s"], _ = timed(lambda: run_cases(grid, workers=2, backend="process"), 1)
+        chunks = [grid[i:i + 64] for i in range(0, len(grid), 64)]
+        res["grid_1000_workers2_s"], _ = timed(lambda: run_chunks(chunks, workers=2, backend="process"), 1)
         res["grid_1000_workers2_speedup"] = res["grid_1000_s"] / res["grid_1000_workers2_s"]
 
     # synthetic cycles at 0.1 deg output (cyclesim.traces.synthesis.synthesize): independent

@@ -78,7 +78,8 @@ AUTO_MIN_CASES = 64
 
 # Modules the forkserver imports once, so that each worker forked from it starts warm.
 _PRELOAD = ("cyclesim.api", "cyclesim.batch", "cyclesim.solver", "cyclesim.figures", "cyclesim.thermo",
-            "cyclesim.equilibrium", "cyclesim.registry", "cyclesim.parallel", "cyclesim_plugins")
+            "cyclesim.equilibrium", "cyclesim.registry", "cyclesim.parallel", "cyclesim_plugins",
+            "cyclesim.kernel", "cyclesim._compiled")   # the last needs numba; skipped without it
 
 DASK_CONNECT_TIMEOUT = "30s"
 """How long to wait for a Dask scheduler given by address."""
