@@ -129,8 +129,8 @@ def _wiebe_rate(th, theta0, duration, a, m):
 
 
 @njit(cache=True)
-def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, CB, IC, gas_tab, gas_off,
-         gc, uc4, mix):
+def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, gas_tab,
+         gas_off, gc, uc4, mix):
     """Derivatives of case b into out; False where they are not finite.
 
     CB (rows x B) holds the per-case constants (row numbers R_*), IC the model codes and
@@ -216,8 +216,8 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, C
     fbb = mbb * dt
     out[6] = fbb
     if flows:
-        mi = _orifice(Ai, CB[R_PLEN + 0, b], CB[R_PLEN + 1, b], CB[R_PLEN + 3, b], CB[R_PLEN + 4, b], p, T, R, gamma, gc[8])
-        me = _orifice(Ae, CB[R_PLEN + 6, b], CB[R_PLEN + 7, b], CB[R_PLEN + 8, b], CB[R_PLEN + 9, b], p, T, R, gamma, gc[8])
+        mi = _orifice(Ai, p_i, CB[R_PLEN + 1, b], CB[R_PLEN + 3, b], CB[R_PLEN + 4, b], p, T, R, gamma, gc[8])
+        me = _orifice(Ae, p_e, CB[R_PLEN + 7, b], CB[R_PLEN + 8, b], CB[R_PLEN + 9, b], p, T, R, gamma, gc[8])
         fi = mi * dt
         fe = me * dt
         out[9] = fi
@@ -304,9 +304,13 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, C
 
 @njit(cache=True)
 def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, open_at, Ai_pts, Ae_pts,
-              y, Y, F, CB, IC, reset, geo_rows, gas_tab, gas_off, gc, uc4, status):
-    """One cycle of every case: Kutta's third-order scheme on the grid, as the Python loop."""
+              y, Y, F, CB, IC, reset, geo_rows, PI, PE, gas_tab, gas_off, gc, uc4, status):
+    """One cycle of every case: Kutta's third-order scheme on the grid, as the Python loop.
+
+    PI, PE: plenum pressures [Pa] per point and case (points x B), or one row (1 x B) where they
+    are constant."""
     n, B = y.shape
+    vary = PI.shape[0] > 1
     N = steps.shape[0]
     yv = np.empty(n)
     yt = np.empty(n)
@@ -331,9 +335,10 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
                 else:
                     for k in range(n):
                         yt[k] = yv[k] + hs * (2.0 * K[1, k] - K[0, k])
+                jp = j if vary else 0
                 ok = _rhs(b, th[j], yt, K[st], full and open_at[j], Vp[j, g], dVp[j, g], Ahp[j, g],
                           App[j, g], Alp[j, g], closed_pts[j, b], burning_pts[j, b], Ai_pts[j, b],
-                          Ae_pts[j, b], CB, IC, gas_tab, gas_off, gc, uc4, mix)
+                          Ae_pts[j, b], PI[jp, b], PE[jp, b], CB, IC, gas_tab, gas_off, gc, uc4, mix)
                 if not ok:
                     status[b] = 1
                     break

@@ -300,7 +300,8 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     W_fric = W_net - W_brake
     out["torque_Nm"] = bmep * Vd * ncyl / (4 * math.pi)
     out["power_kW"] = 2 * math.pi * N_rps * out["torque_Nm"] / 1e3
-    out["mechanical_efficiency"] = bmep / (W_gross / Vd)
+    with np.errstate(divide="ignore", invalid="ignore"):     # a failed case has no work
+        out["mechanical_efficiency"] = bmep / (W_gross / Vd)
     with np.errstate(divide="ignore", invalid="ignore"):   # a cut cylinder has no fuel
         out["eta_indicated_net"] = W_net / fuel_energy
         out["eta_indicated_gross"] = W_gross / fuel_energy

@@ -13,7 +13,7 @@ burn              ``wiebe``, ``wiebe_ca50``, ``double_wiebe``, ``none``
 heat_transfer     ``woschni``, ``hohenberg``, ``annand``, ``none``
 blowby            ``orifice``, ``none``
 valve_flow        ``poppet``, ``none``
-boundary          ``constant`` (closed cycles: any)
+boundary          ``constant``, ``manifold_trace`` (closed cycles: any)
 knock             ``livengood_wu``, ``none``
 ================  ==========================================================
 
@@ -107,7 +107,7 @@ def why_not(batch, rhs) -> str | None:
         "knock": (knock.LivengoodWu, knock.NoKnock),
     }
     if rhs.mode == "full":
-        allowed["boundary"] = (boundaries.ConstantPlenums,)
+        allowed["boundary"] = (boundaries.ConstantPlenums, boundaries.ManifoldTraces)
     for role, classes in allowed.items():
         if type(m[role]) not in classes:
             return f"{role} model {m[role].name!r} has no compiled form"
@@ -124,7 +124,7 @@ class Compiled:
     """The packed inputs of one batch's compiled cycle (built once per integration)."""
 
     def __init__(self, mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at):
-        from cyclesim_plugins import heat_transfer, knock, ring_leakage, valve_flow, wiebe
+        from cyclesim_plugins import boundaries, heat_transfer, knock, ring_leakage, valve_flow, wiebe
 
         from . import flow
 
@@ -163,9 +163,22 @@ class Compiled:
         self.dh298 = _b(rhs._dh298, B)
         self.buf = _b(rhs._buf_scale, B)
         self.plen = np.zeros((11, B))
+        self.PI = self.PE = np.zeros((1, B))
         if self.full:
+            # the plenum gas as the numpy loop sees it: properties fixed at its first call, at the
+            # cycle's first point; a pressure trace (manifold_trace) read at every point
             pl = rhs.plenums(float(half[0]), {})
             self.plen[:] = np.stack([_b(a, B) for a in pl["int"] + pl["exh"][:2] + pl["exh"][3:]])
+            self.PI = _cw(self.plen[0:1])
+            self.PE = _cw(self.plen[6:7])
+            bnd = m["boundary"]
+            if type(bnd) is boundaries.ManifoldTraces and bnd._grid is not None:
+                theta0, step, n_tr, pi, pe = bnd._grid
+                x = np.mod(half - theta0, 720.0) / step
+                j = np.minimum(x.astype(np.intp), n_tr - 1)
+                w = (x - j)[:, None]
+                self.PI = _cw(pi[j] + w * (pi[j + 1] - pi[j]))
+                self.PE = _cw(pe[j] + w * (pe[j + 1] - pe[j]))
         P = np.zeros((21, B))
         codes = np.zeros(4, dtype=np.int64)
         c = mod
@@ -251,6 +264,7 @@ class Compiled:
         G = self.Gc
         mod.run_cycle(self.full, self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.closed,
                       self.burning, self.open_at, self.Ai, self.Ae, _cw(y), Y, F, CB, self.IC, self.reset, self.geo_rows,
+                      self.PI, self.PE,
                       self.gas_tab, self.gas_off, self.gc, self.uc4, self.status)
         if self.status.any():
             return False

@@ -209,16 +209,43 @@ def _why_not(case):
     return kernel.why_not(batch, _RHS(batch, case.simulation.mode))
 
 
-def test_why_not_names_the_submodel_without_compiled_form():
+PLENUM_PLUGIN = """
+from cyclesim import hookimpl
+from cyclesim_plugins.boundaries import ConstantPlenums
+
+
+class CopiedPlenums(ConstantPlenums):
+    name = "copied_plenums"
+    summary = "the constant plenums, as a third-party plug-in"
+
+
+@hookimpl
+def cyclesim_register_submodels():
+    return [CopiedPlenums]
+"""
+
+
+@pytest.fixture
+def plenum_plugin(tmp_path):
+    """A config of the demo whose boundary is a third-party plug-in (the constant plenums' physics)."""
+    (tmp_path / "myplenums.py").write_text(PLENUM_PLUGIN)
+    cfg_file = tmp_path / "plug.yaml"
+    cfg_file.write_text("extends: demo\nplugins: [myplenums.py]\nboundary: {model: copied_plenums}\n")
+    return cfg_file
+
+
+def test_why_not_names_the_submodel_without_compiled_form(plenum_plugin):
     # the built-in demo is fully covered, in both modes (so the reasons below are not a default)
     assert _why_not(load_config("demo")) is None
     assert _why_not(load_config("demo_closed")) is None
+    assert _why_not(load_config("demo", ["boundary.model=manifold_trace"])) is None
     reason = _why_not(load_config("demo_closed", ["burn.model=wiebe_flame"]))
     assert reason and "burn" in reason and "wiebe_flame" in reason
-    reason = _why_not(load_config("demo", ["boundary.model=manifold_trace"]))
-    assert reason and "boundary" in reason and "manifold_trace" in reason
+    # a plug-in subclass of a built-in is not the built-in: it may change any method
+    reason = _why_not(load_config(str(plenum_plugin)))
+    assert reason and "boundary" in reason and "copied_plenums" in reason
     # a closed cycle never sees the plenums: any boundary has a compiled form there
-    assert _why_not(load_config("demo_closed", ["boundary.model=manifold_trace"])) is None
+    assert _why_not(load_config(str(plenum_plugin), ["simulation.mode=closed"])) is None
 
 
 @needs_numba
@@ -241,18 +268,39 @@ def test_submodel_without_compiled_form_falls_back_and_gives_results(monkeypatch
 
 
 @needs_numba
-def test_non_constant_boundary_falls_back_with_the_same_physics(monkeypatch):
-    # the manifold-trace boundary holds the operating point's pressures until the
-    # multi-cylinder engine sets traces, so alone it is the constant boundary on the Python path
+def test_plugin_boundary_falls_back_with_the_same_physics(monkeypatch, plenum_plugin):
+    # the plug-in boundary is the constant boundary's physics on the Python path
     common = ("simulation.step_deg=1.0", "simulation.max_cycles=2")
-    trace_bnd = cfg("demo", "boundary.model=manifold_trace", *common)
-    res, used, spy = run_path(monkeypatch, "auto", [trace_bnd])
+    plug = load_config(str(plenum_plugin), list(common))
+    res, used, spy = run_path(monkeypatch, "auto", [plug])
     assert spy.prepared == [False] and used == 0 and not spy.cycles and spy.python == 2
     const, used_c, _ = run_path(monkeypatch, "auto", [cfg("demo", *common)])
     assert used_c == 2
     # checked against: the constant boundary on the compiled path (itself checked against the
     # Python reference above)
-    assert_same_results(res[0], const[0], what="manifold_trace vs constant")
+    assert_same_results(res[0], const[0], what="plug-in boundary vs constant")
+
+
+@needs_numba
+def test_multi_cylinder_engine_agrees_with_python_path(monkeypatch):
+    # the engine drives each cylinder through the manifold_trace boundary with pressure traces
+    # set between cycles; checked against the same engine on the Python path (the reference)
+    from cyclesim.engine import run_engine
+
+    out = {}
+    for path in ("python", "auto"):
+        monkeypatch.setenv(kernel.ENV, path)
+        before = dict(kernel._used)
+        out[path] = run_engine("demo", ["multi_cylinder.max_coupled_cycles=4"])
+        used = kernel._used["compiled"] - before["compiled"]
+        assert (used > 0) == (path == "auto")
+    ref, got = out["python"], out["auto"]
+    assert len(ref.cylinder_results) == 4
+    for a, b in zip(ref.cylinder_results, got.cylinder_results):
+        assert_same_results(b, a, what="engine cylinder")
+    for k, v in ref.engine.items():
+        if isinstance(v, float) and math.isfinite(v) and v != 0:
+            assert got.engine[k] == pytest.approx(v, rel=RTOL), k
 
 
 # -- 3. the choice of path ------------------------------------------------------
