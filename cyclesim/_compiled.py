@@ -19,7 +19,7 @@ import numpy as np
 from numba import njit
 
 # model codes (see cyclesim.kernel)
-BURN_NONE, BURN_WIEBE, BURN_DOUBLE = 0, 1, 2
+BURN_NONE, BURN_WIEBE, BURN_DOUBLE, BURN_FLAME = 0, 1, 2, 3
 HT_NONE, HT_WOSCHNI, HT_HOHENBERG, HT_ANNAND = 0, 1, 2, 3
 BB_NONE, BB_ORIFICE = 0, 1
 KN_NONE, KN_LW = 0, 1
@@ -27,9 +27,10 @@ KN_NONE, KN_LW = 0, 1
 SIGMA_SB = 5.670374419e-8
 
 # rows of the per-case constant array CB (see cyclesim.kernel.Compiled)
-R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC = \
-    0, 1, 2, 5, 6, 7, 8, 19, 40, 43, 44
-N_ROWS = 45
+R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC, R_SPARK = \
+    0, 1, 2, 5, 6, 7, 8, 19, 62, 65, 66, 67
+N_P = 43            # submodel parameter rows R_P .. R_P + N_P - 1
+N_ROWS = 69         # R_SPARK, R_SPARK + 1: the flame-speed burn's charge state at spark (T, p)
 CYCLE_END_DEG = 360.0
 
 
@@ -129,6 +130,57 @@ def _wiebe_rate(th, theta0, duration, a, m):
 
 
 @njit(cache=True)
+def _log_mean(T0, T1):
+    ln = math.log(T1 / T0)
+    if abs(ln) < 1e-6:
+        return math.sqrt(T0 * T1)
+    return (T1 - T0) / ln
+
+
+@njit(cache=True)
+def _spark_state(b, CB, uc4, T_mid):
+    """Fresh charge at spark, isentropic from the IVC state (flame_burn.isentropic_compression)."""
+    T0 = CB[R_IVC + 1, b]
+    p0 = CB[R_IVC, b]
+    lnv = math.log(CB[R_IVC + 2, b] / CB[R_P + 33, b])
+    T = T0 * math.exp(lnv / 2.5)
+    for _ in range(4):
+        _, R, cv = _fresh(uc4, b, _log_mean(T0, T), T_mid)
+        T = T0 * math.exp(R / cv * lnv)
+    CB[R_SPARK, b] = T
+    CB[R_SPARK + 1, b] = p0 * math.exp(lnv) * T / T0
+
+
+@njit(cache=True)
+def _flame_rate(theta, b, yb, xb, CB):
+    """dx_b/dtheta of the flame-speed scaled Wiebe burn (flame_burn.WiebeFlame.rate)."""
+    q = R_P
+    T_s = CB[R_SPARK, b]
+    p_s = CB[R_SPARK + 1, b]
+    f = 1.0 - (1.0 - yb) / max(1.0 - CB[q + 26, b] * xb, 1e-9)
+    f = min(max(f, 0.0), 1.0)
+    phi = CB[q + 32, b]
+    s0 = max(CB[q + 37, b] + CB[q + 38, b] * (phi - CB[q + 36, b]) ** 2, 0.0) * 1e-2
+    alpha = 2.18 - 0.8 * (phi - 1.0)
+    beta = -0.16 + 0.22 * (phi - 1.0)
+    dil = max(1.0 - CB[q + 39, b] * f, 0.0)
+    s_l = s0 * (T_s / CB[q + 40, b]) ** alpha * (p_s / CB[q + 41, b]) ** beta * dil
+    s_l = max(s_l, 1e-4)
+    G = T_s ** CB[q + 42, b] / p_s / s_l if CB[q + 31, b] != 0.0 else 1.0 / s_l
+    g = G / CB[q + 35, b]
+    delay = CB[q + 22, b] * g ** CB[q + 27, b] * CB[q + 34, b] ** CB[q + 28, b]
+    dur = CB[q + 23, b] * g ** CB[q + 29, b] * CB[q + 34, b] ** CB[q + 30, b]
+    u = (theta - CB[q + 21, b] - delay) / dur
+    if not u > 0.0:
+        return 0.0
+    a = CB[q + 24, b]
+    m = CB[q + 25, b]
+    um = u ** m
+    r = a * (m + 1.0) / dur * um * math.exp(-a * um * u)
+    return r if math.isfinite(r) else 0.0
+
+
+@njit(cache=True)
 def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, gas_tab,
          gas_off, gc, uc4, mix):
     """Derivatives of case b into out; False where they are not finite.
@@ -176,6 +228,9 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
                 f1 = CB[R_P + 4, b]
                 dxb = (f1 * _wiebe_rate(theta, CB[R_P + 0, b], CB[R_P + 1, b], CB[R_P + 2, b], CB[R_P + 3, b])
                        + (1.0 - f1) * _wiebe_rate(theta, CB[R_P + 5, b], CB[R_P + 6, b], CB[R_P + 2, b], CB[R_P + 7, b]))
+        elif bc == BURN_FLAME:
+            if theta < CYCLE_END_DEG and theta >= CB[R_P + 21, b]:
+                dxb = _flame_rate(theta, b, yb, xb, CB)
         e_c = CB[R_ETA, b]
         dm_burn = e_c * dxb / max(1.0 - e_c * xb, 1e-3) * max(m - mb, 0.0)
         out[3] = dxb
@@ -321,6 +376,8 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
         g = geo_rows[b]          # the case's column of the geometry arrays
         for k in range(n):
             yv[k] = y[k, b]
+        if IC[0] == BURN_FLAME:
+            _spark_state(b, CB, uc4, gc[7])
         for i in range(N + 1):
             hs = steps[i] if i < N else 0.0
             # the three stages: the step's start, middle and end (only the start at the last point)
@@ -370,6 +427,8 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
                     CB[R_IVC, b] = rhoi * mix[1] * Ti
                     CB[R_IVC + 1, b] = Ti
                     CB[R_IVC + 2, b] = Vi
+                    if IC[0] == BURN_FLAME:
+                        _spark_state(b, CB, uc4, gc[7])
                     for k in range(n):
                         if reset[0, k] == 1.0:
                             yv[k] = yv[1]

@@ -9,7 +9,7 @@ which is always there and is the reference.  Results agree to rounding
 ================  ==========================================================
 role              built-ins with a compiled form
 ================  ==========================================================
-burn              ``wiebe``, ``wiebe_ca50``, ``double_wiebe``, ``none``
+burn              ``wiebe``, ``wiebe_ca50``, ``double_wiebe``, ``wiebe_flame``, ``none``
 heat_transfer     ``woschni``, ``hohenberg``, ``annand``, ``none``
 blowby            ``orifice``, ``none``
 valve_flow        ``poppet``, ``none``
@@ -93,13 +93,13 @@ def _cw(a, dtype=float) -> np.ndarray:
 
 def why_not(batch, rhs) -> str | None:
     """None if the batch's submodels all have a compiled form, else the reason they do not."""
-    from cyclesim_plugins import boundaries, heat_transfer, knock, ring_leakage, valve_flow, wiebe
+    from cyclesim_plugins import boundaries, flame_burn, heat_transfer, knock, ring_leakage, valve_flow, wiebe
 
     from .thermo import GasTables
 
     m = batch.models
     allowed = {
-        "burn": (wiebe.Wiebe, wiebe.WiebeCA50, wiebe.DoubleWiebe, wiebe.NoBurn),
+        "burn": (wiebe.Wiebe, wiebe.WiebeCA50, wiebe.DoubleWiebe, wiebe.NoBurn, flame_burn.WiebeFlame),
         "heat_transfer": (heat_transfer.Woschni, heat_transfer.Hohenberg, heat_transfer.Annand,
                           heat_transfer.NoHeatTransfer),
         "blowby": (ring_leakage.Orifice, ring_leakage.NoLeakage),
@@ -124,7 +124,7 @@ class Compiled:
     """The packed inputs of one batch's compiled cycle (built once per integration)."""
 
     def __init__(self, mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at):
-        from cyclesim_plugins import boundaries, heat_transfer, knock, ring_leakage, valve_flow, wiebe
+        from cyclesim_plugins import boundaries, flame_burn, heat_transfer, knock, ring_leakage, valve_flow, wiebe
 
         from . import flow
 
@@ -179,7 +179,7 @@ class Compiled:
                 w = (x - j)[:, None]
                 self.PI = _cw(pi[j] + w * (pi[j + 1] - pi[j]))
                 self.PE = _cw(pe[j] + w * (pe[j + 1] - pe[j]))
-        P = np.zeros((21, B))
+        P = np.zeros((mod.N_P, B))
         codes = np.zeros(4, dtype=np.int64)
         c = mod
         bm = m["burn"]
@@ -190,6 +190,15 @@ class Compiled:
             codes[0] = c.BURN_DOUBLE
             P[0], P[1], P[2], P[3], P[4], P[5], P[6], P[7] = (
                 _b(v, B) for v in (bm.theta0, bm.d1, bm.a, bm.m1, bm.f1, bm.start2, bm.d2, bm.m2))
+        elif type(bm) is flame_burn.WiebeFlame:
+            codes[0] = c.BURN_FLAME
+            mk = flame_burn.MK_FUELS[bm.fuel]
+            rows = (bm.spark, bm.delay_ref, bm.dur_ref, bm.a, bm.m, bm.eff, bm.kd, bm.sd, bm.kb, bm.sb,
+                    1.0 if bm.visc else 0.0, bm.phi, bm.V_spark, bm.speed_ratio, bm.G_ref, mk[0], mk[1],
+                    mk[2], flame_burn.MK_DILUTION, flame_burn.T0_K, flame_burn.ATM_PA,
+                    1.0 + flame_burn.VISCOSITY_T_EXPONENT)
+            for k, v in enumerate(rows):
+                P[21 + k] = _b(v, B)
         ht = m["heat_transfer"]
         if type(ht) is heat_transfer.Woschni:
             codes[1] = c.HT_WOSCHNI

@@ -152,6 +152,8 @@ CLOSED_VARIANTS = (
     ("burn.model=double_wiebe",),
     ("burn.model=wiebe_ca50",),
     ("burn.model=none",),
+    ("burn.model=wiebe_flame",),
+    ("burn.model=wiebe_flame", "burn.viscosity_scaling=false", "operating.residual_fraction=0.15"),
     ("blowby.model=none",),
     ("knock.model=livengood_wu",),
     ("operating.lambda=0.9",),
@@ -195,7 +197,7 @@ def test_full_cycle_submodels_agree_with_python_path(monkeypatch):
     common = ("simulation.step_deg=1.0", "simulation.max_cycles=2")
     variants = (("heat_transfer.model=hohenberg",), ("heat_transfer.model=annand",),
                 ("heat_transfer.model=none",), ("burn.model=double_wiebe",), ("burn.model=wiebe_ca50",),
-                ("burn.model=none",), ("blowby.model=none",))
+                ("burn.model=none",), ("blowby.model=none",), ("burn.model=wiebe_flame",))
     cases = [cfg("demo", *ov, *common) for ov in variants]
     assert n_batches(cases) == len(cases)
     check_agreement(monkeypatch, cases)
@@ -207,6 +209,38 @@ def test_full_cycle_submodels_agree_with_python_path(monkeypatch):
 def _why_not(case):
     batch = build_batch([case], _registry([case]))
     return kernel.why_not(batch, _RHS(batch, case.simulation.mode))
+
+
+HEAT_PLUGIN = """
+import numpy as np
+from cyclesim import hookimpl
+from cyclesim.params import Param
+from cyclesim.roles import WallHeatTransfer
+
+
+class ConstantCoefficient(WallHeatTransfer):
+    name = "constant_h"
+    summary = "constant heat-transfer coefficient"
+    params = (Param("h_W_per_m2K", "W/(m^2 K)", 400.0, "coefficient", 0, 1e5),)
+    references = ("test plug-in",)
+
+    def coefficient(self, s):
+        return self.p.h_W_per_m2K * np.ones_like(s.T)
+
+
+@hookimpl
+def cyclesim_register_submodels():
+    return [ConstantCoefficient]
+"""
+
+
+@pytest.fixture
+def heat_plugin(tmp_path):
+    """A closed-cycle config of the demo with a third-party heat-transfer plug-in."""
+    (tmp_path / "myheat.py").write_text(HEAT_PLUGIN)
+    cfg_file = tmp_path / "heat.yaml"
+    cfg_file.write_text("extends: demo_closed\nplugins: [myheat.py]\nheat_transfer: {model: constant_h}\n")
+    return cfg_file
 
 
 PLENUM_PLUGIN = """
@@ -234,13 +268,14 @@ def plenum_plugin(tmp_path):
     return cfg_file
 
 
-def test_why_not_names_the_submodel_without_compiled_form(plenum_plugin):
+def test_why_not_names_the_submodel_without_compiled_form(plenum_plugin, heat_plugin):
     # the built-in demo is fully covered, in both modes (so the reasons below are not a default)
     assert _why_not(load_config("demo")) is None
     assert _why_not(load_config("demo_closed")) is None
     assert _why_not(load_config("demo", ["boundary.model=manifold_trace"])) is None
-    reason = _why_not(load_config("demo_closed", ["burn.model=wiebe_flame"]))
-    assert reason and "burn" in reason and "wiebe_flame" in reason
+    assert _why_not(load_config("demo", ["burn.model=wiebe_flame"])) is None
+    reason = _why_not(load_config(str(heat_plugin)))
+    assert reason and "heat_transfer" in reason and "constant_h" in reason
     # a plug-in subclass of a built-in is not the built-in: it may change any method
     reason = _why_not(load_config(str(plenum_plugin)))
     assert reason and "boundary" in reason and "copied_plenums" in reason
@@ -249,11 +284,11 @@ def test_why_not_names_the_submodel_without_compiled_form(plenum_plugin):
 
 
 @needs_numba
-def test_submodel_without_compiled_form_falls_back_and_gives_results(monkeypatch):
+def test_submodel_without_compiled_form_falls_back_and_gives_results(monkeypatch, heat_plugin):
     plain = cfg("demo_closed")
-    flame = cfg("demo_closed", "burn.model=wiebe_flame")
-    res, used, spy = run_path(monkeypatch, "auto", [plain, flame])
-    # two batches: the plain one compiled (one closed cycle), the flame-speed burn on Python
+    plug = load_config(str(heat_plugin))
+    res, used, spy = run_path(monkeypatch, "auto", [plain, plug])
+    # two batches: the plain one compiled (one closed cycle), the plug-in's on Python
     assert spy.prepared.count(True) == 1 and spy.prepared.count(False) == 1
     assert used == 1 and spy.python == 1
     r = res[1]
@@ -263,8 +298,8 @@ def test_submodel_without_compiled_form_falls_back_and_gives_results(monkeypatch
     assert p.size > 100 and np.isfinite(p).all()
     assert r.trace["crank_deg"][0] == pytest.approx(res[0].trace["crank_deg"][0])      # IVC .. EVO
     assert r.trace["crank_deg"][-1] == pytest.approx(res[0].trace["crank_deg"][-1])
-    # it is the flame-speed burn that ran (its timing differs from the plain Wiebe's)
-    assert r.summary["ca50_deg"] != pytest.approx(res[0].summary["ca50_deg"], abs=1e-6)
+    # it is the plug-in's heat transfer that ran (a different wall heat from Woschni's)
+    assert r.summary["wall_heat_J"] != pytest.approx(res[0].summary["wall_heat_J"], rel=1e-6)
 
 
 @needs_numba
