@@ -9,7 +9,8 @@ which is always there and is the reference.  Results agree to rounding
 ================  ==========================================================
 role              built-ins with a compiled form
 ================  ==========================================================
-burn              ``wiebe``, ``wiebe_ca50``, ``double_wiebe``, ``wiebe_flame``, ``none``
+burn              ``wiebe``, ``wiebe_ca50``, ``wiebe_table``, ``double_wiebe``, ``wiebe_flame``,
+                  ``none``
 heat_transfer     ``woschni``, ``hohenberg``, ``annand``, ``none``
 blowby            ``orifice``, ``none``
 valve_flow        ``poppet``, ``none``
@@ -93,13 +94,15 @@ def _cw(a, dtype=float) -> np.ndarray:
 
 def why_not(batch, rhs) -> str | None:
     """None if the batch's submodels all have a compiled form, else the reason they do not."""
-    from cyclesim_plugins import boundaries, flame_burn, heat_transfer, knock, ring_leakage, valve_flow, wiebe
+    from cyclesim_plugins import (boundaries, burn_table, flame_burn, heat_transfer, knock, ring_leakage,
+                                  valve_flow, wiebe)
 
     from .thermo import GasTables
 
     m = batch.models
     allowed = {
-        "burn": (wiebe.Wiebe, wiebe.WiebeCA50, wiebe.DoubleWiebe, wiebe.NoBurn, flame_burn.WiebeFlame),
+        "burn": (wiebe.Wiebe, wiebe.WiebeCA50, burn_table.WiebeTable, wiebe.DoubleWiebe, wiebe.NoBurn,
+                 flame_burn.WiebeFlame),
         "heat_transfer": (heat_transfer.Woschni, heat_transfer.Hohenberg, heat_transfer.Annand,
                           heat_transfer.NoHeatTransfer),
         "blowby": (ring_leakage.Orifice, ring_leakage.NoLeakage),
@@ -124,7 +127,8 @@ class Compiled:
     """The packed inputs of one batch's compiled cycle (built once per integration)."""
 
     def __init__(self, mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at):
-        from cyclesim_plugins import boundaries, flame_burn, heat_transfer, knock, ring_leakage, valve_flow, wiebe
+        from cyclesim_plugins import (boundaries, burn_table, flame_burn, heat_transfer, knock, ring_leakage,
+                                      valve_flow, wiebe)
 
         from . import flow
 
@@ -183,7 +187,7 @@ class Compiled:
         codes = np.zeros(4, dtype=np.int64)
         c = mod
         bm = m["burn"]
-        if type(bm) in (wiebe.Wiebe, wiebe.WiebeCA50):
+        if type(bm) in (wiebe.Wiebe, wiebe.WiebeCA50, burn_table.WiebeTable):     # one rate law
             codes[0] = c.BURN_WIEBE
             P[0], P[1], P[2], P[3], P[4] = (_b(v, B) for v in (bm.theta0, bm._inv_dur, bm._c, bm.a, bm.m))
         elif type(bm) is wiebe.DoubleWiebe:
