@@ -434,3 +434,60 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
                             yv[k] = yv[1]
                         elif reset[0, k] == 2.0:
                             yv[k] = reset[1, k]
+
+
+# -- the multi-cylinder engine's manifolds (cyclesim.engine._Manifolds) ---------------
+
+
+@njit(cache=True)
+def manifold_lap_intake(p0, h, ki, A_thr, p_amb, T_amb, T_int, omega, Qi, pref, dp, R_air, g_air, dp_lin):
+    """One implicit-Euler lap of the intake manifolds (rows: engines), as _Manifolds._lap with fi."""
+    E = p0.shape[0]
+    n = Qi.shape[1]
+    out = np.empty((E, n + 1))
+    for e in range(E):
+        p = p0[e]
+        out[e, 0] = p
+        for j in range(n):
+            x = p
+            for _ in range(2):
+                q = _orifice(A_thr[e], p_amb[e], T_amb[e], R_air, g_air, x, T_int[e], R_air, g_air,
+                             dp_lin) / omega[e]
+                q2 = _orifice(A_thr[e], p_amb[e], T_amb[e], R_air, g_air, x + dp, T_int[e], R_air, g_air,
+                              dp_lin) / omega[e]
+                dq = (q2 - q) / dp
+                pr = pref[e, j]
+                r = ki[e] * (q - Qi[e, j] * x / pr)
+                dr = ki[e] * (dq - Qi[e, j] / pr)
+                gx = x - p - h * r
+                x = max(x - gx / (1.0 - h * dr), 1e3)
+            p = x
+            out[e, j + 1] = p
+    return out
+
+
+@njit(cache=True)
+def manifold_lap_exhaust(p0, h, ke, A_out, T_exh, R_exh, g_exh, p_amb, T_amb, omega, Qe, dp, R_air, g_air,
+                         dp_lin):
+    """One implicit-Euler lap of the exhaust branches (rows), as _Manifolds._lap with fe."""
+    X = p0.shape[0]
+    n = Qe.shape[1]
+    out = np.empty((X, n + 1))
+    for e in range(X):
+        p = p0[e]
+        out[e, 0] = p
+        for j in range(n):
+            x = p
+            for _ in range(2):
+                q = _orifice(A_out[e], x, T_exh[e], R_exh[e], g_exh, p_amb[e], T_amb[e], R_air, g_air,
+                             dp_lin) / omega[e]
+                q2 = _orifice(A_out[e], x + dp, T_exh[e], R_exh[e], g_exh, p_amb[e], T_amb[e], R_air, g_air,
+                              dp_lin) / omega[e]
+                dq = (q2 - q) / dp
+                r = ke[e] * (Qe[e, j] - q)
+                dr = -ke[e] * dq
+                gx = x - p - h * r
+                x = max(x - gx / (1.0 - h * dr), 1e3)
+            p = x
+            out[e, j + 1] = p
+    return out

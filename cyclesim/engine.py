@@ -354,12 +354,12 @@ class _Manifolds:
             out[:, j + 1] = p
         return out
 
-    def _periodic(self, p0, f, tol=1e-7, laps=4):
-        """Periodic solution p(phi) of dp/dphi = f by secant iteration on the start value."""
+    def _periodic(self, p0, lap, tol=1e-7, laps=4):
+        """Periodic solution p(phi) by secant iteration on the start value; ``lap(p0)`` -> one lap."""
         a = p0.copy()
-        ga = self._lap(a, f)
+        ga = lap(a)
         b = ga[:, -1].copy()
-        gb = self._lap(b, f)
+        gb = lap(b)
         for _ in range(laps):
             ra = ga[:, -1] - a
             rb = gb[:, -1] - b
@@ -370,7 +370,7 @@ class _Manifolds:
             c = np.clip(c, 0.5 * b, 2.0 * b)
             a, ga = b, gb
             b = c
-            gb = self._lap(b, f)
+            gb = lap(b)
         return gb
 
     def solve(self, Qi, pref_i, Qe, p0_i, p0_e):
@@ -379,6 +379,28 @@ class _Manifolds:
         ki = self.R_int * self.T_int / self.V_i
         ke = self.R_exh_x * self.T_exh_x / self.V_e
         dp = 1.0
+        from . import kernel
+
+        mod = kernel.compiled_module()
+        if mod is not None:
+            # the same laps in compiled form (cyclesim._compiled), one Python call per lap
+            from .flow import DP_LIN_DEFAULT
+
+            f64 = lambda a: np.ascontiguousarray(a, dtype=float)  # noqa: E731
+            Qi_, pr_, Qe_ = f64(Qi), f64(pref_i), f64(Qe)
+
+            def lap_i(p0):
+                return mod.manifold_lap_intake(f64(p0), self.h, f64(ki), f64(self.A_thr), f64(self.p_amb),
+                                               f64(self.T_amb), f64(self.T_int), f64(self.omega), Qi_, pr_,
+                                               dp, R_AIR, GAMMA_AIR, DP_LIN_DEFAULT)
+
+            def lap_e(p0):
+                return mod.manifold_lap_exhaust(f64(p0), self.h, f64(ke), f64(self.A_out), f64(self.T_exh_x),
+                                                f64(self.R_exh_x), GAMMA_EXHAUST, f64(self.p_amb_x),
+                                                f64(self.T_amb_x), f64(self.omega_x), Qe_, dp, R_AIR,
+                                                GAMMA_AIR, DP_LIN_DEFAULT)
+
+            return self._periodic(p0_i, lap_i), self._periodic(p0_e, lap_e)
 
         def fi(j, p):
             q = self.q_throttle(p)
@@ -391,7 +413,8 @@ class _Manifolds:
             dq = (self.q_outlet(p + dp) - q) / dp
             return ke * (Qe[:, j] - q), -ke * dq
 
-        return self._periodic(p0_i, fi), self._periodic(p0_e, fe)
+        return (self._periodic(p0_i, lambda p0: self._lap(p0, fi)),
+                self._periodic(p0_e, lambda p0: self._lap(p0, fe)))
 
 
 def _periodic_interp(x_new, x, y):
