@@ -311,8 +311,11 @@ def cmd_dyno(args) -> int:
 
 def cmd_map(args) -> int:
     """``cyclesim map``: full-load curve and part-load map."""
-    from .studies.maps import full_load_curve, part_load_map
+    from .studies.maps import check_map_inputs, full_load_curve, part_load_map
 
+    # refuse bad inputs before the output folder is made
+    check_map_inputs(args.config, args.speeds, args.loads, args.spark, args.advances,
+                     overrides=args.overrides, exhaust=args.exhaust)
     out = _out(args)
     t0 = time.perf_counter()
     files = []

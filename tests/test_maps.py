@@ -124,3 +124,8 @@ def test_map_command_line(tmp_path, capsys):
     assert rows["b"][0]["exhaust_pressure_bar"] == 1.08 > rows["a"][0]["exhaust_pressure_bar"]
     assert rows["a"][1]["exhaust_pressure_bar"] == pytest.approx(1.08, abs=1e-9)   # the config's own point
     assert "CAUTION" in flow
+    # a bad input is refused before the output folder is made (nothing left behind)
+    bad = tmp_path / "c"
+    assert main(args + ["--set", "operating.exhaust_pressure_bar=0.99", "--out", str(bad)]) == 2
+    assert "must exceed the ambient" in capsys.readouterr().err
+    assert not bad.exists()

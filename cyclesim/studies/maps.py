@@ -212,6 +212,20 @@ class _BackPressure:
                 f" settled in {passes} pass(es) to {EXHAUST_TOLERANCE_BAR:g} bar")
 
 
+def check_map_inputs(case: Case | str | Path = "demo", speeds=None, loads=None, spark: str = "mbt",
+                     advances=None, *, overrides: Sequence[str] = (), exhaust: str = "flow") -> None:
+    """Raise the ConfigError that :func:`full_load_curve` or :func:`part_load_map` would raise on
+    these inputs, before any simulation (so a command line can refuse them before it writes)."""
+    if spark not in ("mbt", "fixed"):
+        raise ConfigError(f"spark {spark!r}: expected 'mbt' or 'fixed'")
+    case, _ = _base(case, overrides)
+    _numbers("speeds", speeds, DEFAULT_SPEEDS)
+    _numbers("loads", loads, DEFAULT_LOADS)
+    if spark == "mbt":
+        _numbers("advances", advances, DEFAULT_ADVANCES)
+    _BackPressure(case, exhaust)
+
+
 def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides: Sequence[str] = (),
                     out: str | Path | None = None, plots: bool = True, exhaust: str = "flow") -> MapResult:
     """Full-load torque and power against speed (the case's intake pressure and spark at every speed).
