@@ -30,6 +30,26 @@ SIGMA_SB = 5.670374419e-8
 R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC, R_SPARK = \
     0, 1, 2, 5, 6, 7, 8, 19, 62, 65, 66, 67
 N_P = 43            # submodel parameter rows R_P .. R_P + N_P - 1
+
+# The submodel parameter rows, as offsets from R_P (cyclesim.kernel.Compiled fills them from the
+# Python objects; each names the attribute it holds).  One model per role, so roles share no row.
+# burn: wiebe, wiebe_ca50, wiebe_table
+W_THETA0, W_INV_DUR, W_C, W_A, W_M = 0, 1, 2, 3, 4                # theta0, _inv_dur, _c, a, m
+# burn: double_wiebe
+D_THETA0, D_D1, D_A, D_M1, D_F1, D_START2, D_D2, D_M2 = 0, 1, 2, 3, 4, 5, 6, 7
+# burn: wiebe_flame (spark, delay_ref, dur_ref, a, m, eff, kd, sd, kb, sb, visc, phi, V_spark,
+# speed_ratio, G_ref, the fuel's Metghalchi-Keck phi_m, B_m, B_phi, and the module constants)
+(F_SPARK, F_DELAY, F_DUR, F_A, F_M, F_EFF, F_KD, F_SD, F_KB, F_SB, F_VISC, F_PHI, F_V_SPARK,
+ F_SPEED_RATIO, F_G_REF, F_PHI_M, F_B_M, F_B_PHI, F_DILUTION, F_T0, F_ATM, F_VISC_EXP) = range(21, 43)
+# heat transfer: woschni (_k, _c1_closed, _c1_open, c2, _Vd); hohenberg (multiplier);
+# annand (multiplier, a, b, radiation_factor, prandtl_number, _bore)
+H_K, H_C1_CLOSED, H_C1_OPEN, H_C2, H_VD = 8, 9, 10, 11, 12
+H_MULT = 8
+H_ANNAND_A, H_ANNAND_B, H_RAD, H_PRANDTL, H_BORE = 9, 10, 11, 12, 13
+# blowby: orifice (_cda, _p_cc)
+B_CDA, B_P_CC = 14, 15
+# knock: livengood_wu (_pre_ms, act, x_max, and the module's ATM_PA, DE_PRESSURE_EXPONENT)
+K_PRE, K_ACT, K_X_MAX, K_ATM, K_P_EXP = 16, 17, 18, 19, 20
 N_ROWS = 69         # R_SPARK, R_SPARK + 1: the flame-speed burn's charge state at spark (T, p)
 CYCLE_END_DEG = 360.0
 
@@ -142,7 +162,7 @@ def _spark_state(b, CB, uc4, T_mid):
     """Fresh charge at spark, isentropic from the IVC state (flame_burn.isentropic_compression)."""
     T0 = CB[R_IVC + 1, b]
     p0 = CB[R_IVC, b]
-    lnv = math.log(CB[R_IVC + 2, b] / CB[R_P + 33, b])
+    lnv = math.log(CB[R_IVC + 2, b] / CB[R_P + F_V_SPARK, b])
     T = T0 * math.exp(lnv / 2.5)
     for _ in range(4):
         _, R, cv = _fresh(uc4, b, _log_mean(T0, T), T_mid)
@@ -157,24 +177,24 @@ def _flame_rate(theta, b, yb, xb, CB):
     q = R_P
     T_s = CB[R_SPARK, b]
     p_s = CB[R_SPARK + 1, b]
-    f = 1.0 - (1.0 - yb) / max(1.0 - CB[q + 26, b] * xb, 1e-9)
+    f = 1.0 - (1.0 - yb) / max(1.0 - CB[q + F_EFF, b] * xb, 1e-9)
     f = min(max(f, 0.0), 1.0)
-    phi = CB[q + 32, b]
-    s0 = max(CB[q + 37, b] + CB[q + 38, b] * (phi - CB[q + 36, b]) ** 2, 0.0) * 1e-2
+    phi = CB[q + F_PHI, b]
+    s0 = max(CB[q + F_B_M, b] + CB[q + F_B_PHI, b] * (phi - CB[q + F_PHI_M, b]) ** 2, 0.0) * 1e-2
     alpha = 2.18 - 0.8 * (phi - 1.0)
     beta = -0.16 + 0.22 * (phi - 1.0)
-    dil = max(1.0 - CB[q + 39, b] * f, 0.0)
-    s_l = s0 * (T_s / CB[q + 40, b]) ** alpha * (p_s / CB[q + 41, b]) ** beta * dil
+    dil = max(1.0 - CB[q + F_DILUTION, b] * f, 0.0)
+    s_l = s0 * (T_s / CB[q + F_T0, b]) ** alpha * (p_s / CB[q + F_ATM, b]) ** beta * dil
     s_l = max(s_l, 1e-4)
-    G = T_s ** CB[q + 42, b] / p_s / s_l if CB[q + 31, b] != 0.0 else 1.0 / s_l
-    g = G / CB[q + 35, b]
-    delay = CB[q + 22, b] * g ** CB[q + 27, b] * CB[q + 34, b] ** CB[q + 28, b]
-    dur = CB[q + 23, b] * g ** CB[q + 29, b] * CB[q + 34, b] ** CB[q + 30, b]
-    u = (theta - CB[q + 21, b] - delay) / dur
+    G = T_s ** CB[q + F_VISC_EXP, b] / p_s / s_l if CB[q + F_VISC, b] != 0.0 else 1.0 / s_l
+    g = G / CB[q + F_G_REF, b]
+    delay = CB[q + F_DELAY, b] * g ** CB[q + F_KD, b] * CB[q + F_SPEED_RATIO, b] ** CB[q + F_SD, b]
+    dur = CB[q + F_DUR, b] * g ** CB[q + F_KB, b] * CB[q + F_SPEED_RATIO, b] ** CB[q + F_SB, b]
+    u = (theta - CB[q + F_SPARK, b] - delay) / dur
     if not u > 0.0:
         return 0.0
-    a = CB[q + 24, b]
-    m = CB[q + 25, b]
+    a = CB[q + F_A, b]
+    m = CB[q + F_M, b]
     um = u ** m
     r = a * (m + 1.0) / dur * um * math.exp(-a * um * u)
     return r if math.isfinite(r) else 0.0
@@ -219,17 +239,19 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
         dxb = 0.0
         if bc == BURN_WIEBE:
             if theta < CYCLE_END_DEG:
-                uw = (theta - CB[R_P + 0, b]) * CB[R_P + 1, b]
+                uw = (theta - CB[R_P + W_THETA0, b]) * CB[R_P + W_INV_DUR, b]
                 if uw > 0.0:
-                    um = uw ** CB[R_P + 4, b]
-                    dxb = CB[R_P + 2, b] * um * math.exp(-CB[R_P + 3, b] * um * uw)
+                    um = uw ** CB[R_P + W_M, b]
+                    dxb = CB[R_P + W_C, b] * um * math.exp(-CB[R_P + W_A, b] * um * uw)
         elif bc == BURN_DOUBLE:
             if theta < CYCLE_END_DEG:
-                f1 = CB[R_P + 4, b]
-                dxb = (f1 * _wiebe_rate(theta, CB[R_P + 0, b], CB[R_P + 1, b], CB[R_P + 2, b], CB[R_P + 3, b])
-                       + (1.0 - f1) * _wiebe_rate(theta, CB[R_P + 5, b], CB[R_P + 6, b], CB[R_P + 2, b], CB[R_P + 7, b]))
+                f1 = CB[R_P + D_F1, b]
+                a_ = CB[R_P + D_A, b]
+                dxb = (f1 * _wiebe_rate(theta, CB[R_P + D_THETA0, b], CB[R_P + D_D1, b], a_, CB[R_P + D_M1, b])
+                       + (1.0 - f1) * _wiebe_rate(theta, CB[R_P + D_START2, b], CB[R_P + D_D2, b], a_,
+                                                  CB[R_P + D_M2, b]))
         elif bc == BURN_FLAME:
-            if theta < CYCLE_END_DEG and theta >= CB[R_P + 21, b]:
+            if theta < CYCLE_END_DEG and theta >= CB[R_P + F_SPARK, b]:
                 dxb = _flame_rate(theta, b, yb, xb, CB)
         e_c = CB[R_ETA, b]
         dm_burn = e_c * dxb / max(1.0 - e_c * xb, 1e-3) * max(m - mb, 0.0)
@@ -240,25 +262,25 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     Qw = 0.0
     i_tmot = IC[4]
     if hc == HT_WOSCHNI:
-        w = (CB[R_P + 9, b] if closed else CB[R_P + 10, b]) * sp
+        w = (CB[R_P + H_C1_CLOSED, b] if closed else CB[R_P + H_C1_OPEN, b]) * sp
         if closed and burning:
             T_mot = yv[i_tmot]
             pmot = CB[R_IVC, b] * (CB[R_IVC + 2, b] / V) * (T_mot / CB[R_IVC + 1, b])
             dp = max(p - pmot, 0.0)
-            w = w + CB[R_P + 11, b] * CB[R_P + 12, b] * CB[R_IVC + 1, b] / (CB[R_IVC, b] * CB[R_IVC + 2, b]) * dp
-        hcoef = CB[R_P + 8, b] * (p * w) ** 0.8 * T ** -0.53
+            w = w + CB[R_P + H_C2, b] * CB[R_P + H_VD, b] * CB[R_IVC + 1, b] / (CB[R_IVC, b] * CB[R_IVC + 2, b]) * dp
+        hcoef = CB[R_P + H_K, b] * (p * w) ** 0.8 * T ** -0.53
         Qw = hcoef * (Ah * (T - CB[R_TW + 0, b]) + Ap * (T - CB[R_TW + 1, b]) + Al * (T - CB[R_TW + 2, b]))
     elif hc == HT_HOHENBERG:
-        hcoef = CB[R_P + 8, b] * 130.0 * V ** -0.06 * (p * 1e-5) ** 0.8 * T ** -0.4 * (sp + 1.4) ** 0.8
+        hcoef = CB[R_P + H_MULT, b] * 130.0 * V ** -0.06 * (p * 1e-5) ** 0.8 * T ** -0.4 * (sp + 1.4) ** 0.8
         Qw = hcoef * (Ah * (T - CB[R_TW + 0, b]) + Ap * (T - CB[R_TW + 1, b]) + Al * (T - CB[R_TW + 2, b]))
     elif hc == HT_ANNAND:
-        mult = CB[R_P + 8, b]
-        bore = CB[R_P + 13, b]
+        mult = CB[R_P + H_MULT, b]
+        bore = CB[R_P + H_BORE, b]
         mu = 1.458e-6 * T ** 1.5 / (T + 110.4)
-        kc = mu * cp / CB[R_P + 12, b]
+        kc = mu * cp / CB[R_P + H_PRANDTL, b]
         Re = rho * sp * bore / mu
-        hconv = mult * CB[R_P + 9, b] * kc / bore * Re ** CB[R_P + 10, b]
-        c = mult * CB[R_P + 11, b] * SIGMA_SB if (closed and burning) else 0.0
+        hconv = mult * CB[R_P + H_ANNAND_A, b] * kc / bore * Re ** CB[R_P + H_ANNAND_B, b]
+        c = mult * CB[R_P + H_RAD, b] * SIGMA_SB if (closed and burning) else 0.0
         T4 = T ** 4
         Qw = 0.0
         Qw = Qw + Ah * (hconv * (T - CB[R_TW + 0, b]) + c * (T4 - CB[R_TW + 0, b] ** 4))
@@ -267,7 +289,7 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     # blowby (outflow only)
     mbb = 0.0
     if IC[2] == BB_ORIFICE:
-        mbb = max(_outflow(CB[R_P + 14, b], p, T, R, gamma, min(p, CB[R_P + 15, b]), gc[8]), 0.0)
+        mbb = max(_outflow(CB[R_P + B_CDA, b], p, T, R, gamma, min(p, CB[R_P + B_P_CC, b]), gc[8]), 0.0)
     fbb = mbb * dt
     out[6] = fbb
     if flows:
@@ -335,7 +357,7 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
             out[i_tmot] = (-(Rm / cvm) * T_mot * (dV * om) / V) * dt
     i_kn = IC[5]
     if i_kn >= 0 and IC[3] == KN_LW:
-        if closed and xb < CB[R_P + 18, b]:
+        if closed and xb < CB[R_P + K_X_MAX, b]:
             T0 = CB[R_IVC + 1, b]
             lnr = math.log(p / CB[R_IVC, b])
             Tu = T0 * math.exp(lnr / 3.5)
@@ -347,7 +369,8 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
                     Tm = (Tu - T0) / ln
                 _, Rm, cvm = _fresh(uc4, b, Tm, gc[7])
                 Tu = T0 * math.exp(Rm / (cvm + Rm) * lnr)
-            tau = CB[R_P + 16, b] * (p / CB[R_P + 19, b]) ** CB[R_P + 20, b] * math.exp(CB[R_P + 17, b] / Tu)
+            tau = (CB[R_P + K_PRE, b] * (p / CB[R_P + K_ATM, b]) ** CB[R_P + K_P_EXP, b]
+                   * math.exp(CB[R_P + K_ACT, b] / Tu))
             rate = 1e3 / tau
             if math.isfinite(rate):
                 out[i_kn] = rate * dt

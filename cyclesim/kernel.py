@@ -186,45 +186,52 @@ class Compiled:
         P = np.zeros((mod.N_P, B))
         codes = np.zeros(4, dtype=np.int64)
         c = mod
+
+        def put(pairs):
+            """Parameter rows (named offsets of cyclesim._compiled) from per-case values."""
+            for row, v in pairs:
+                P[row] = _b(v, B)
+
         bm = m["burn"]
         if type(bm) in (wiebe.Wiebe, wiebe.WiebeCA50, burn_table.WiebeTable):     # one rate law
             codes[0] = c.BURN_WIEBE
-            P[0], P[1], P[2], P[3], P[4] = (_b(v, B) for v in (bm.theta0, bm._inv_dur, bm._c, bm.a, bm.m))
+            put(((c.W_THETA0, bm.theta0), (c.W_INV_DUR, bm._inv_dur), (c.W_C, bm._c), (c.W_A, bm.a),
+                 (c.W_M, bm.m)))
         elif type(bm) is wiebe.DoubleWiebe:
             codes[0] = c.BURN_DOUBLE
-            P[0], P[1], P[2], P[3], P[4], P[5], P[6], P[7] = (
-                _b(v, B) for v in (bm.theta0, bm.d1, bm.a, bm.m1, bm.f1, bm.start2, bm.d2, bm.m2))
+            put(((c.D_THETA0, bm.theta0), (c.D_D1, bm.d1), (c.D_A, bm.a), (c.D_M1, bm.m1), (c.D_F1, bm.f1),
+                 (c.D_START2, bm.start2), (c.D_D2, bm.d2), (c.D_M2, bm.m2)))
         elif type(bm) is flame_burn.WiebeFlame:
             codes[0] = c.BURN_FLAME
-            mk = flame_burn.MK_FUELS[bm.fuel]
-            rows = (bm.spark, bm.delay_ref, bm.dur_ref, bm.a, bm.m, bm.eff, bm.kd, bm.sd, bm.kb, bm.sb,
-                    1.0 if bm.visc else 0.0, bm.phi, bm.V_spark, bm.speed_ratio, bm.G_ref, mk[0], mk[1],
-                    mk[2], flame_burn.MK_DILUTION, flame_burn.T0_K, flame_burn.ATM_PA,
-                    1.0 + flame_burn.VISCOSITY_T_EXPONENT)
-            for k, v in enumerate(rows):
-                P[21 + k] = _b(v, B)
+            phi_m, b_m, b_phi = flame_burn.MK_FUELS[bm.fuel]
+            put(((c.F_SPARK, bm.spark), (c.F_DELAY, bm.delay_ref), (c.F_DUR, bm.dur_ref), (c.F_A, bm.a),
+                 (c.F_M, bm.m), (c.F_EFF, bm.eff), (c.F_KD, bm.kd), (c.F_SD, bm.sd), (c.F_KB, bm.kb),
+                 (c.F_SB, bm.sb), (c.F_VISC, 1.0 if bm.visc else 0.0), (c.F_PHI, bm.phi),
+                 (c.F_V_SPARK, bm.V_spark), (c.F_SPEED_RATIO, bm.speed_ratio), (c.F_G_REF, bm.G_ref),
+                 (c.F_PHI_M, phi_m), (c.F_B_M, b_m), (c.F_B_PHI, b_phi),
+                 (c.F_DILUTION, flame_burn.MK_DILUTION), (c.F_T0, flame_burn.T0_K),
+                 (c.F_ATM, flame_burn.ATM_PA), (c.F_VISC_EXP, 1.0 + flame_burn.VISCOSITY_T_EXPONENT)))
         ht = m["heat_transfer"]
         if type(ht) is heat_transfer.Woschni:
             codes[1] = c.HT_WOSCHNI
-            P[8], P[9], P[10], P[11], P[12] = (_b(v, B) for v in (ht._k, ht._c1_closed, ht._c1_open,
-                                                                  ht.p.c2_m_per_sK, ht._Vd))
+            put(((c.H_K, ht._k), (c.H_C1_CLOSED, ht._c1_closed), (c.H_C1_OPEN, ht._c1_open),
+                 (c.H_C2, ht.p.c2_m_per_sK), (c.H_VD, ht._Vd)))
         elif type(ht) is heat_transfer.Hohenberg:
             codes[1] = c.HT_HOHENBERG
-            P[8] = _b(ht.p.multiplier, B)
+            put(((c.H_MULT, ht.p.multiplier),))
         elif type(ht) is heat_transfer.Annand:
             codes[1] = c.HT_ANNAND
-            P[8], P[9], P[10], P[11], P[12], P[13] = (
-                _b(v, B) for v in (ht.p.multiplier, ht.p.a, ht.p.b, ht.p.radiation_factor,
-                                   ht.p.prandtl_number, ht._bore))
+            put(((c.H_MULT, ht.p.multiplier), (c.H_ANNAND_A, ht.p.a), (c.H_ANNAND_B, ht.p.b),
+                 (c.H_RAD, ht.p.radiation_factor), (c.H_PRANDTL, ht.p.prandtl_number), (c.H_BORE, ht._bore)))
         bb = m["blowby"]
         if type(bb) is ring_leakage.Orifice:
             codes[2] = c.BB_ORIFICE
-            P[14], P[15] = _b(bb._cda, B), _b(bb._p_cc, B)
+            put(((c.B_CDA, bb._cda), (c.B_P_CC, bb._p_cc)))
         kn = m["knock"]
         if type(kn) is knock.LivengoodWu:
             codes[3] = c.KN_LW
-            P[16], P[17], P[18] = _b(kn._pre_ms, B), _b(kn.act, B), _b(kn.x_max, B)
-            P[19], P[20] = knock.ATM_PA, knock.DE_PRESSURE_EXPONENT
+            put(((c.K_PRE, kn._pre_ms), (c.K_ACT, kn.act), (c.K_X_MAX, kn.x_max), (c.K_ATM, knock.ATM_PA),
+                 (c.K_P_EXP, knock.DE_PRESSURE_EXPONENT)))
         from .solver import CORE
 
         n = rhs.n
