@@ -380,10 +380,13 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     return True
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, open_at, Ai_pts, Ae_pts,
-              y, Y, F, CB, IC, reset, geo_rows, PI, PE, gas_tab, gas_off, gc, uc4, status):
-    """One cycle of every case: Kutta's third-order scheme on the grid, as the Python loop.
+              y, Y, F, CB, IC, reset, geo_rows, PI, PE, gas_tab, gas_off, gc, uc4, status, b0, b1):
+    """One cycle of cases b0..b1-1: Kutta's third-order scheme on the grid, as the Python loop.
+
+    Cases touch only their own columns, so two threads may run disjoint ranges of one batch
+    (the GIL is released).
 
     PI, PE: plenum pressures [Pa] per point and case (points x B), or one row (1 x B) where they
     are constant."""
@@ -394,7 +397,7 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
     yt = np.empty(n)
     K = np.empty((3, n))
     mix = np.empty(7)
-    for b in range(B):
+    for b in range(b0, b1):
         status[b] = 0
         g = geo_rows[b]          # the case's column of the geometry arrays
         for k in range(n):

@@ -33,6 +33,7 @@ naming the cause.
 from __future__ import annotations
 
 import os
+import threading
 
 import numpy as np
 
@@ -41,9 +42,42 @@ from .errors import ConfigError
 ENV = "CYCLESIM_KERNEL"
 CHOICES = ("auto", "python", "compiled")
 
+THREADS_ENV = "CYCLESIM_THREADS"
+MIN_CASES_PER_THREAD = 8
+"""A batch is split over threads only where each gets at least this many cases."""
+_threads: int | None = None   # threads per compiled cycle; None: CYCLESIM_THREADS or the CPUs (at most 2)
+
 _mod = None          # the compiled module, False where numba is missing
 _used = {"compiled": 0, "python": 0}
 """Cycles run by each path in this process (for tests and the benchmark)."""
+
+
+def threads() -> int:
+    """Threads that share the cases of one compiled cycle.
+
+    ``CYCLESIM_THREADS`` if set, else the CPUs this process may use, at most 2; worker
+    processes of a parallel sweep use 1 (:func:`set_threads`), as they already fill the CPUs.
+    """
+    if _threads is not None:
+        return _threads
+    v = os.environ.get(THREADS_ENV, "").strip()
+    if v:
+        try:
+            n = int(v)
+        except ValueError:
+            raise ConfigError(f"{THREADS_ENV}={v!r}: expected a whole number >= 1") from None
+        if n < 1:
+            raise ConfigError(f"{THREADS_ENV}={v!r}: expected a whole number >= 1")
+        return n
+    from .parallel import available_cpus
+
+    return min(2, available_cpus())
+
+
+def set_threads(n: int | None) -> None:
+    """Threads per compiled cycle in this process (None: back to the default of :func:`threads`)."""
+    global _threads
+    _threads = None if n is None else max(1, int(n))
 
 
 def choice() -> str:
@@ -282,10 +316,33 @@ class Compiled:
         r = mod.R_IVC
         CB[r], CB[r + 1], CB[r + 2] = rhs.p_ivc, rhs.T_ivc, rhs.V_ivc
         G = self.Gc
-        mod.run_cycle(self.full, self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.closed,
-                      self.burning, self.open_at, self.Ai, self.Ae, _cw(y), Y, F, CB, self.IC, self.reset, self.geo_rows,
-                      self.PI, self.PE,
-                      self.gas_tab, self.gas_off, self.gc, self.uc4, self.status)
+        args = (self.full, self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.closed, self.burning,
+                self.open_at, self.Ai, self.Ae, _cw(y), Y, F, CB, self.IC, self.reset, self.geo_rows,
+                self.PI, self.PE, self.gas_tab, self.gas_off, self.gc, self.uc4, self.status)
+        B = self.status.size
+        n_thr = min(threads(), B // MIN_CASES_PER_THREAD)
+        if n_thr <= 1:
+            mod.run_cycle(*args, 0, B)
+        else:
+            # disjoint case ranges on threads of their own (started and joined here, so no thread
+            # outlives the call: worker processes may still be forked from this one)
+            cuts = [B * k // n_thr for k in range(n_thr + 1)]
+            errors: list = []
+
+            def part(k):
+                try:
+                    mod.run_cycle(*args, cuts[k], cuts[k + 1])
+                except BaseException as exc:  # noqa: BLE001 - re-raised in the caller
+                    errors.append(exc)
+
+            helpers = [threading.Thread(target=part, args=(k,), daemon=True) for k in range(1, n_thr)]
+            for t in helpers:
+                t.start()
+            part(0)
+            for t in helpers:
+                t.join()
+            if errors:
+                raise errors[0]
         if self.status.any():
             return False
         rhs.p_ivc, rhs.T_ivc, rhs.V_ivc = CB[r].copy(), CB[r + 1].copy(), CB[r + 2].copy()

@@ -134,6 +134,15 @@ def run_chunk(cases: Sequence) -> list:
 # --------------------------------------------------------------------------
 
 
+def run_chunk_in_worker(cases: Sequence) -> list:
+    """:func:`run_chunk` in a worker of a cluster: one thread per compiled cycle, as the
+    cluster's workers fill the CPUs already."""
+    from . import kernel
+
+    kernel.set_threads(1)
+    return run_chunk(cases)
+
+
 def available_cpus() -> int:
     """CPUs this process may run on (its affinity mask where the system has one)."""
     try:
@@ -426,6 +435,10 @@ def _worker_init() -> None:
     # workers, keeps the rows written), so the workers ignore it rather than each printing
     # a traceback.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    # the workers fill the CPUs already: one thread per compiled cycle each
+    from . import kernel
+
+    kernel.set_threads(1)
 
 
 def _end_workers(ex) -> None:
@@ -566,7 +579,7 @@ def _dask_stream(client, as_completed, chunks, on_result, max_pending) -> list[l
             if not chunk:   # nothing to simulate: report it without a round trip
                 results.put(k, [])
                 continue
-            fut = client.submit(run_chunk, chunk, pure=False)
+            fut = client.submit(run_chunk_in_worker, chunk, pure=False)
             pending[fut.key] = (fut, k)
             return fut
         return None

@@ -464,3 +464,40 @@ def test_burn_table_law_agrees_with_python_path(monkeypatch, tmp_path):
     (tmp_path / "tab.yaml").write_text("extends: demo_closed\nburn: {model: wiebe_table}\n")
     cases = [load_config(str(tmp_path / "tab.yaml"), [f"operating.speed_rpm={n}"]) for n in (2500, 4000)]
     check_agreement(monkeypatch, cases)
+
+
+@needs_numba
+def test_threads_share_a_batch_without_changing_a_digit(monkeypatch):
+    # the compiled cycle may split a batch's cases over two threads; each case only touches its
+    # own columns, so the results must be bit for bit those of one thread (reference: one thread)
+    monkeypatch.setenv(kernel.ENV, "auto")
+    cases = [cfg("demo", "simulation.step_deg=1.0", "simulation.max_cycles=3",
+                 f"burn.spark_advance_deg={a}") for a in range(10, 30)]
+    out = {}
+    try:
+        for n in (1, 2):
+            kernel.set_threads(n)
+            out[n] = cyclesim.simulate(cases)
+    finally:
+        kernel.set_threads(None)
+    for a, b in zip(out[1], out[2]):
+        for k, v in a.summary.items():
+            if isinstance(v, float) and not math.isnan(v):
+                assert b.summary[k] == v, k
+        np.testing.assert_array_equal(a.trace["pressure_bar"], b.trace["pressure_bar"])
+
+
+def test_thread_count_setting(monkeypatch):
+    monkeypatch.setenv(kernel.THREADS_ENV, "3")
+    assert kernel.threads() == 3
+    for bad in ("0", "two"):
+        monkeypatch.setenv(kernel.THREADS_ENV, bad)
+        with pytest.raises(ConfigError, match=kernel.THREADS_ENV):
+            kernel.threads()
+    monkeypatch.delenv(kernel.THREADS_ENV)
+    assert 1 <= kernel.threads() <= 2
+    kernel.set_threads(1)
+    try:
+        assert kernel.threads() == 1
+    finally:
+        kernel.set_threads(None)
