@@ -8,7 +8,8 @@ Python path stays the reference: ``tests/test_kernel.py`` checks the two agree.
 
 Status per case on return: 0 finished; 1 the state or a derivative stopped being
 finite or physical (the caller then re-runs the cycle on the Python path, which
-names the cause).
+names the cause).  Arithmetic follows numpy's rules (``error_model="numpy"``): a division
+by zero gives inf or NaN, as on the Python path, instead of raising.
 """
 
 from __future__ import annotations
@@ -54,7 +55,7 @@ N_ROWS = 69         # R_SPARK, R_SPARK + 1: the flame-speed burn's charge state 
 CYCLE_END_DEG = 360.0
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _fresh(uc4, b, T, T_mid):
     """Fresh charge (u, R, cv) at T from the per-case polynomial (rows 2b + (T > T_mid))."""
     r = 2 * b + (1 if T > T_mid else 0)
@@ -68,7 +69,7 @@ def _fresh(uc4, b, T, T_mid):
     return u, uc4[r, 0, 1], cv
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _mixture(gas_tab, off, gc, nRm1, uc4, b, T, rho, y, out):
     """Mixture properties into out: [u, R, u_T, u_lnrho, u_y, cp, gamma]."""
     T0, inv_dT, lr0, inv_dlr, dlr, x_hi, z_hi, T_mid = gc[0], gc[1], gc[2], gc[3], gc[4], gc[5], gc[6], gc[7]
@@ -114,7 +115,7 @@ def _mixture(gas_tab, off, gc, nRm1, uc4, b, T, rho, y, out):
     out[6] = cp / u_T
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _outflow(cda, p0, T0, R0, g0, pd, dp_lin):
     x = 1.0 - pd / max(p0, 1e-300)
     inv_g = 1.0 / g0
@@ -130,7 +131,7 @@ def _outflow(cda, p0, T0, R0, g0, pd, dp_lin):
     return cda * p0 / math.sqrt(R0 * T0) * psi
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
     """Signed flow from side 1 to side 2 (cyclesim.flow.orifice_mass_flow)."""
     if cda == 0.0:
@@ -140,7 +141,7 @@ def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
     return -_outflow(cda, p2, T2, R2, g2, p1, dp_lin)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _wiebe_rate(th, theta0, duration, a, m):
     u = (th - theta0) / duration
     if u > 0.0:
@@ -149,7 +150,7 @@ def _wiebe_rate(th, theta0, duration, a, m):
     return 0.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _log_mean(T0, T1):
     ln = math.log(T1 / T0)
     if abs(ln) < 1e-6:
@@ -157,7 +158,7 @@ def _log_mean(T0, T1):
     return (T1 - T0) / ln
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _spark_state(b, CB, uc4, T_mid):
     """Fresh charge at spark, isentropic from the IVC state (flame_burn.isentropic_compression)."""
     T0 = CB[R_IVC + 1, b]
@@ -171,7 +172,7 @@ def _spark_state(b, CB, uc4, T_mid):
     CB[R_SPARK + 1, b] = p0 * math.exp(lnv) * T / T0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _flame_rate(theta, b, yb, xb, CB):
     """dx_b/dtheta of the flame-speed scaled Wiebe burn (flame_burn.WiebeFlame.rate)."""
     q = R_P
@@ -200,7 +201,7 @@ def _flame_rate(theta, b, yb, xb, CB):
     return r if math.isfinite(r) else 0.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, gas_tab,
          gas_off, gc, uc4, mix):
     """Derivatives of case b into out; False where they are not finite.
@@ -266,8 +267,12 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
         if closed and burning:
             T_mot = yv[i_tmot]
             pmot = CB[R_IVC, b] * (CB[R_IVC + 2, b] / V) * (T_mot / CB[R_IVC + 1, b])
-            dp = max(p - pmot, 0.0)
-            w = w + CB[R_P + H_C2, b] * CB[R_P + H_VD, b] * CB[R_IVC + 1, b] / (CB[R_IVC, b] * CB[R_IVC + 2, b]) * dp
+            dp = p - pmot
+            if dp < 0.0:
+                dp = 0.0
+            comb = CB[R_P + H_C2, b] * CB[R_P + H_VD, b] * CB[R_IVC + 1, b] / (CB[R_IVC, b] * CB[R_IVC + 2, b]) * dp
+            if math.isfinite(comb):     # not yet known in the step that crosses intake closing
+                w = w + comb
         hcoef = CB[R_P + H_K, b] * (p * w) ** 0.8 * T ** -0.53
         Qw = hcoef * (Ah * (T - CB[R_TW + 0, b]) + Ap * (T - CB[R_TW + 1, b]) + Al * (T - CB[R_TW + 2, b]))
     elif hc == HT_HOHENBERG:
@@ -380,7 +385,7 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     return True
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, error_model="numpy")
 def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, open_at, Ai_pts, Ae_pts,
               y, Y, F, CB, IC, reset, geo_rows, PI, PE, gas_tab, gas_off, gc, uc4, status, b0, b1):
     """One cycle of cases b0..b1-1: Kutta's third-order scheme on the grid, as the Python loop.
@@ -465,7 +470,7 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
 # -- the multi-cylinder engine's manifolds (cyclesim.engine._Manifolds) ---------------
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def manifold_lap_intake(p0, h, ki, A_thr, p_amb, T_amb, T_int, omega, Qi, pref, dp, R_air, g_air, dp_lin):
     """One implicit-Euler lap of the intake manifolds (rows: engines), as _Manifolds._lap with fi."""
     E = p0.shape[0]
@@ -492,7 +497,7 @@ def manifold_lap_intake(p0, h, ki, A_thr, p_amb, T_amb, T_int, omega, Qi, pref, 
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def manifold_lap_exhaust(p0, h, ke, A_out, T_exh, R_exh, g_exh, p_amb, T_amb, omega, Qe, dp, R_air, g_air,
                          dp_lin):
     """One implicit-Euler lap of the exhaust branches (rows), as _Manifolds._lap with fe."""

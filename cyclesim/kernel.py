@@ -102,6 +102,8 @@ def compiled_module():
             if c == "compiled":
                 raise ConfigError(f"{ENV}=compiled needs numba: pip install -e \".[fast]\" ({exc})") from exc
             _mod = False
+    if _mod is False and c == "compiled":
+        raise ConfigError(f"{ENV}=compiled needs numba: pip install -e \".[fast]\"")
     return _mod or None
 
 

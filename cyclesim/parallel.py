@@ -76,7 +76,8 @@ BACKENDS = ("serial", "process", "dask")
 AUTO_MIN_CASES = 64
 """A study with more cases than this runs on ``"auto"`` worker processes unless told otherwise."""
 
-# Modules the forkserver imports once, so that each worker forked from it starts warm.
+# Modules the forkserver imports once, so that each worker forked from it starts warm (the
+# compiled loop's machine code is still loaded from its cache on each worker's first cycle).
 _PRELOAD = ("cyclesim.api", "cyclesim.batch", "cyclesim.solver", "cyclesim.figures", "cyclesim.thermo",
             "cyclesim.equilibrium", "cyclesim.registry", "cyclesim.parallel", "cyclesim_plugins",
             "cyclesim.kernel", "cyclesim._compiled")   # the last needs numba; skipped without it

@@ -133,7 +133,9 @@ class Woschni(WallHeatTransfer):
             with np.errstate(invalid="ignore", divide="ignore"):
                 dp = np.maximum(s.p - self.motored_pressure(s), 0.0)
                 comb = self.p.c2_m_per_sK * self._Vd * s.T_ivc / (s.p_ivc * s.V_ivc) * dp
-            w = w + np.where(firing, comb, 0.0)
+            # the IVC state is not yet known in the step that crosses intake closing (a burn
+            # that starts before it): no combustion term there
+            w = w + np.where(firing & np.isfinite(comb), comb, 0.0)
         # p^0.8 w^0.8 = (p w)^0.8 with p in bar
         return self._k * (s.p * w) ** 0.8 * s.T ** -0.53
 

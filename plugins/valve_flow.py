@@ -528,7 +528,8 @@ class PoppetValves(ValveFlow):
         operating conditions) and copied to the cases that share it.
         """
         rows, inv = self._distinct()
-        single = rows.size == self.B
+        # a grid per case (B, n) is evaluated case by case
+        single = rows.size == self.B or np.ndim(theta_deg) > 1
         sel = None if single else rows
         lifts = self.lift(theta_deg, sel)
         r = slice(None) if single else rows

@@ -501,3 +501,42 @@ def test_thread_count_setting(monkeypatch):
         assert kernel.threads() == 1
     finally:
         kernel.set_threads(None)
+
+
+@needs_numba
+def test_zero_mass_column_stops_that_case_alone_on_both_paths(monkeypatch):
+    # a degenerate start state (one case with no mass): the compiled loop must not raise but hand
+    # the cycle to the Python path, which stops that case with its message (reference: Python path)
+    from cyclesim.solver import integrate
+
+    cases = [cfg("demo", "simulation.step_deg=1.0"), cfg("demo", "simulation.step_deg=1.0",
+                                                          "burn.spark_advance_deg=20")]
+    out = {}
+    for path in ("python", "auto"):
+        monkeypatch.setenv(kernel.ENV, path)
+        batch = build_batch(cases, _registry(cases))
+        y0 = integrate(batch, cycles=1).end_state.copy()
+        y0[0, 1] = 0.0
+        out[path] = integrate(batch, initial=y0, cycles=1)
+    ref, got = out["python"], out["auto"]
+    assert ref.failed[0] is None and ref.failed[1] and "non-finite" in ref.failed[1]
+    assert got.failed == ref.failed
+    np.testing.assert_allclose(got.Y[:, 0], ref.Y[:, 0], rtol=1e-9, atol=0)
+
+
+@needs_numba
+def test_burn_starting_in_the_step_that_crosses_intake_closing(monkeypatch):
+    # late intake closing with a very early spark: burning begins before the cycle's IVC state is
+    # known; both paths leave Woschni's combustion term out there and agree (reference: Python path)
+    cases = [cfg("demo", "valves.ivc_deg=-70", "burn.model=wiebe_flame", "burn.spark_advance_deg=75",
+                 "simulation.step_deg=1.0", "simulation.max_cycles=3")]
+    check_agreement(monkeypatch, cases)
+
+
+def test_compiled_choice_without_numba_is_an_error(monkeypatch):
+    monkeypatch.setattr(kernel, "_mod", False)          # as after a failed import of numba
+    monkeypatch.setenv(kernel.ENV, "compiled")
+    with pytest.raises(ConfigError, match="needs numba"):
+        kernel.compiled_module()
+    monkeypatch.setenv(kernel.ENV, "auto")
+    assert kernel.compiled_module() is None

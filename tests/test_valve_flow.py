@@ -255,3 +255,14 @@ def test_flow_area_of_a_batch_with_shared_and_distinct_settings():
     same = make_valves(B=3).flow_area(th)
     assert same["intake"].shape == (3, th.size) and same["intake"].flags.writeable
     np.testing.assert_array_equal(same["intake"][2], make_valves().flow_area(th)["intake"][0])
+
+
+def test_flow_area_on_a_grid_per_case():
+    # a (B, n) grid gives each case the areas at its own angles, even where the cases share
+    # their valve settings (reference: each case alone on its own grid)
+    grids = np.array([[-300.0, -200.0], [100.0, 200.0]])
+    got = make_valves(B=2).flow_area(grids)
+    for b in range(2):
+        one = make_valves().flow_area(grids[b])
+        for k in ("intake", "exhaust"):
+            np.testing.assert_array_equal(got[k][b], one[k][0])
