@@ -490,6 +490,9 @@ class GasTables:
             uc4[b, :, 0, 1] = c.R_u
             uc4[b, :, :, 2] = c.cv_coef
         self._uc4 = uc4.reshape(2 * self.B, 6, 4)
+        self._uc_u = np.ascontiguousarray(self._uc4[:, :, 0])     # (2B, 6) u coefficients
+        self._uc_cv = np.ascontiguousarray(self._uc4[:, :, 2])    # (2B, 6) cv coefficients
+        self._uc_R = self._uc4[:, 0, 1].copy()                    # (2B,) gas constant
         self._u_coef_case = np.stack([c.u_coef for c in cases])  # (B, 2, 6)
         self._cv_coef_case = np.stack([c.cv_coef for c in cases])
         self._row2 = 2 * np.arange(self.B)
@@ -530,9 +533,21 @@ class GasTables:
         return u.reshape(shape), cv.reshape(shape), R.reshape(shape)
 
     def _unburned4(self, T: np.ndarray) -> np.ndarray:
-        """[u, R, cv, 0] of the fresh charge at ``T`` [K] (B,) -> (B, 4), one matrix product."""
-        P = np.power(T[:, None], _POWERS6)
-        return np.matmul(P[:, None, :], self._uc4[self._row2 + (T > T_MID)])[:, 0]
+        """[u, R, cv, 0] of the fresh charge at ``T`` [K] (B,) -> (B, 4), by Horner's rule."""
+        rows = self._row2 + (T > T_MID)
+        cu = self._uc_u[rows]
+        cc = self._uc_cv[rows]
+        u = cu[:, 5]
+        cv = cc[:, 5]
+        for k in (4, 3, 2, 1, 0):
+            u = u * T + cu[:, k]
+            cv = cv * T + cc[:, k]
+        out = np.empty((u.size, 4))
+        out[:, 0] = u
+        out[:, 1] = self._uc_R[rows]
+        out[:, 2] = cv
+        out[:, 3] = 0.0
+        return out
 
     def enthalpy_unburned(self, T) -> np.ndarray:
         """Absolute enthalpy of the fresh charge [J/kg] at ``T`` [K], shape (B,) or (B, n)."""
@@ -550,8 +565,9 @@ class GasTables:
         j = (z * self._inv_dlr).astype(np.intp)
         off = self._offset if offset is None else offset
         g = self._table[off + i * (self._nR - 1) + j].reshape(-1, 8, 4)
-        pw = np.power((x - i)[:, None], _POWERS)[:, :, None]
-        v = np.matmul(g, pw)[:, :, 0]  # (B, 8): base [u, R, u_T, R_T], then slopes
+        t = (x - i)[:, None]
+        # (N, 8): base [u, R, u_T, R_T], then slopes; the cubic in t by Horner's rule
+        v = g[:, :, 0] + t * (g[:, :, 1] + t * (g[:, :, 2] + t * g[:, :, 3]))
         s = v[:, 4:]
         f = v[:, :4] + (z - j * self._dlr)[:, None] * s
         return f, s
