@@ -324,8 +324,6 @@ RHO_GRID = (0.005, 400.0, 40)
 
 BURNED_MODELS = ("equilibrium", "complete")
 
-_POWERS = np.arange(4.0)
-_POWERS6 = np.arange(6.0)
 
 
 class _CaseTable:
@@ -534,7 +532,10 @@ class GasTables:
 
     def _unburned4(self, T: np.ndarray) -> np.ndarray:
         """[u, R, cv, 0] of the fresh charge at ``T`` [K] (B,) -> (B, 4), by Horner's rule."""
-        rows = self._row2 + (T > T_MID)
+        return self._unburned_rows(T, self._row2 + (T > T_MID))
+
+    def _unburned_rows(self, T: np.ndarray, rows: np.ndarray) -> np.ndarray:
+        """[u, R, cv, 0] (N, 4) at ``T`` (N,) with the coefficient rows ``rows`` (N,)."""
         cu = self._uc_u[rows]
         cc = self._uc_cv[rows]
         u = cu[:, 5]
@@ -621,9 +622,7 @@ class GasTables:
         Tf = T.ravel()
         f, s = self._burned_core(Tf, np.broadcast_to(np.asarray(rho, dtype=float), T.shape).ravel(),
                                  np.repeat(self._offset, n))
-        P = np.power(Tf[:, None], _POWERS6)
-        rows = np.repeat(self._row2, n) + (Tf > T_MID)
-        U = np.matmul(P[:, None, :], self._uc4[rows])[:, 0]
+        U = self._unburned_rows(Tf, np.repeat(self._row2, n) + (Tf > T_MID))
         D = f - U
         yc = np.broadcast_to(np.asarray(y, dtype=float), T.shape).ravel()[:, None]
         M = U + yc * D
