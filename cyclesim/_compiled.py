@@ -522,3 +522,59 @@ def manifold_lap_exhaust(p0, h, ke, A_out, T_exh, R_exh, g_exh, p_amb, T_amb, om
             p = x
             out[e, j + 1] = p
     return out
+
+
+# -- gas properties at many points (post-processing and the trace analyser) ------------
+
+
+@njit(cache=True, error_model="numpy")
+def mixture_points(gas_tab, gas_off, gc, nRm1, uc4, case, T, rho, y, out):
+    """cyclesim.thermo.GasTables.mixture at N points, case ``case[k]``'s tables for point k.
+
+    out (11, N): the MixProps fields u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cv, cp, gamma.
+    """
+    T0, inv_dT, lr0, inv_dlr, dlr, x_hi, z_hi, T_mid = gc[0], gc[1], gc[2], gc[3], gc[4], gc[5], gc[6], gc[7]
+    for k in range(T.shape[0]):
+        b = case[k]
+        Tk = T[k]
+        x = (Tk - T0) * inv_dT
+        if not x > 0.0:
+            x = 0.0
+        elif x > x_hi:
+            x = x_hi
+        i = int(x)
+        rk = rho[k]
+        z = math.log(rk) - lr0 if rk > 0.0 else 0.0
+        if not z > 0.0:
+            z = 0.0
+        elif z > z_hi:
+            z = z_hi
+        j = int(z * inv_dlr)
+        g = gas_tab[gas_off[b] + i * nRm1 + j]
+        t = x - i
+        dz = z - j * dlr
+        # [u, R, u_T, R_T] and their ln(rho) slopes: cubics in t, 4 coefficients each
+        su = g[16] + t * (g[17] + t * (g[18] + t * g[19]))
+        sR = g[20] + t * (g[21] + t * (g[22] + t * g[23]))
+        fu = g[0] + t * (g[1] + t * (g[2] + t * g[3])) + dz * su
+        fR = g[4] + t * (g[5] + t * (g[6] + t * g[7])) + dz * sR
+        fuT = g[8] + t * (g[9] + t * (g[10] + t * g[11])) + dz * (g[24] + t * (g[25] + t * (g[26] + t * g[27])))
+        fRT = g[12] + t * (g[13] + t * (g[14] + t * g[15])) + dz * (g[28] + t * (g[29] + t * (g[30] + t * g[31])))
+        uu, Ru, cvu = _fresh(uc4, b, Tk, T_mid)
+        yk = y[k]
+        u_y = fu - uu
+        R_y = fR - Ru
+        u_T = cvu + yk * (fuT - cvu)
+        R = Ru + yk * R_y
+        cp = u_T + R
+        out[0, k] = uu + yk * u_y
+        out[1, k] = u_T
+        out[2, k] = yk * su
+        out[3, k] = u_y
+        out[4, k] = R
+        out[5, k] = yk * fRT
+        out[6, k] = yk * sR
+        out[7, k] = R_y
+        out[8, k] = u_T
+        out[9, k] = cp
+        out[10, k] = cp / u_T

@@ -484,7 +484,7 @@ def _mixture_temperature(tab, p, V, m, y):
     rho = m / V
     T = p * V / (m * float(tab.R_unburned[0]))
     for _ in range(6):
-        R = tab.mixture(T, rho, y).R
+        R = tab.mixture_points(T, rho, y).R
         T = p * V / (m * R)
     return T
 
@@ -512,8 +512,8 @@ def _tables_heat_release(th, p, V, s: AnalysisSettings, y, mass=None):
     T = _mixture_temperature(tab, p, V, mass, y)
     rho = mass / V
     ym = 0.5 * (y[1:] + y[:-1])
-    u2 = tab.mixture(T[1:], rho[1:], ym).u
-    u1 = tab.mixture(T[:-1], rho[:-1], ym).u
+    u2 = tab.mixture_points(T[1:], rho[1:], ym).u
+    u1 = tab.mixture_points(T[:-1], rho[:-1], ym).u
     dq = mass * (u2 - u1) + 0.5 * (p[1:] + p[:-1]) * np.diff(V)
     q = np.concatenate([[0.0], np.cumsum(dq)])
     return q, T, mass
