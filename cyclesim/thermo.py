@@ -632,14 +632,16 @@ class GasTables:
         T = np.asarray(T, dtype=float)
         shape = T.shape
         Tf = T.ravel()
-        rf = np.broadcast_to(np.asarray(rho, dtype=float), shape).ravel()
-        yf = np.broadcast_to(np.asarray(y, dtype=float), shape).ravel()
-        cf = (np.zeros(Tf.size, dtype=np.intp) if case is None
-              else np.broadcast_to(np.asarray(case, dtype=np.intp), shape).ravel())
+        rf = np.asarray(rho, dtype=float)
+        rf = rf.ravel() if rf.shape == shape else np.broadcast_to(rf, shape).ravel()
+        yf = np.asarray(y, dtype=float)
+        yf = yf.ravel() if yf.shape == shape else np.broadcast_to(yf, shape).ravel()
         from . import kernel
 
         mod = kernel.compiled_module()
         if mod is None or Tf.size < 64:
+            cf = (np.zeros(Tf.size, dtype=np.intp) if case is None
+                  else np.broadcast_to(np.asarray(case, dtype=np.intp), shape).ravel())
             f, s = self._burned_core(Tf, rf, self._offset[cf])
             U = self._unburned_rows(Tf, 2 * cf + (Tf > T_MID))
             D = f - U
@@ -650,18 +652,28 @@ class GasTables:
             cp = u_T + M[:, 1]
             vals = (M[:, 0], u_T, S[:, 0], D[:, 0], M[:, 1], M[:, 3], S[:, 1], D[:, 1], u_T, cp, cp / u_T)
             return MixProps(*(a.reshape(shape) for a in vals))
+        consts = self._compiled_consts()
+        cf = (np.zeros(Tf.size, dtype=np.int64) if case is None
+              else np.ascontiguousarray(np.broadcast_to(np.asarray(case, dtype=np.int64), shape).ravel()))
         out = np.empty((11, Tf.size))
-        mod.mixture_points(self._table, self._offset.astype(np.int64), self._gc(), int(self._nR - 1),
-                           self._uc4, cf.astype(np.int64), np.ascontiguousarray(Tf), np.ascontiguousarray(rf),
-                           np.ascontiguousarray(yf), out)
+        mod.mixture_points(consts[0], consts[1], consts[2], consts[3], consts[4], cf, np.ascontiguousarray(Tf),
+                           np.ascontiguousarray(rf), np.ascontiguousarray(yf), out)
+        if len(shape) == 1:
+            return MixProps(*out)
         return MixProps(*(a.reshape(shape) for a in out))
 
-    def _gc(self) -> np.ndarray:
-        """The table grid constants as the compiled lookup takes them."""
-        from .flow import DP_LIN_DEFAULT
+    def _compiled_consts(self) -> tuple:
+        """The tables as the compiled lookup takes them (built once)."""
+        got = getattr(self, "_consts", None)
+        if got is None:
+            from .flow import DP_LIN_DEFAULT
 
-        return np.array([self._T0, self._inv_dT, self._lr0, self._inv_dlr, self._dlr, self._x_hi, self._z_hi,
-                         T_MID, DP_LIN_DEFAULT])
+            gc = np.array([self._T0, self._inv_dT, self._lr0, self._inv_dlr, self._dlr, self._x_hi,
+                           self._z_hi, T_MID, DP_LIN_DEFAULT])
+            got = (np.ascontiguousarray(self._table), self._offset.astype(np.int64), gc, int(self._nR - 1),
+                   np.ascontiguousarray(self._uc4))
+            self._consts = got
+        return got
 
     def pressure(self, T, rho, y) -> np.ndarray:
         """Pressure [Pa] = rho R(T, rho, y) T."""
