@@ -593,6 +593,13 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
         the convergence test.
     step_scale : float
         Multiplier of the step (the coarse start-up cycles use 4 and 2).
+
+    Notes
+    -----
+    Each cycle runs on the compiled loop where numba is installed and every submodel of the
+    batch has a compiled form (:mod:`cyclesim.kernel`), else on the numpy loop here
+    (``_python_cycle``), which is the reference; the bookkeeping between cycles (convergence,
+    the reported cycle, the IVC state) is the same for both.
     """
     mode = batch.simulation.mode
     coarse = None
