@@ -131,6 +131,14 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
         for r in getattr(model, "references", ()):
             if r not in refs:
                 refs.append(r)
+    # every figure as a Python list once, so each case's summary is a row of plain lookups
+    per_key = {}
+    for k, v in {**figs, **model_figs, **extra}.items():
+        if isinstance(v, dict):
+            per_key[k] = (True, {kk: np.asarray(vv, dtype=float).tolist() for kk, vv in v.items()})
+        else:
+            a = np.asarray(v)
+            per_key[k] = (False, a.tolist() if a.dtype == bool else a.astype(float).tolist())
     results = []
     for i, case in enumerate(cases):
         res = CaseResult(
@@ -143,13 +151,8 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
             res.error = tr.failed[i]
             results.append(res)
             continue
-        summ = {}
-        for k, v in {**figs, **model_figs, **extra}.items():
-            if isinstance(v, dict):
-                summ[k] = {kk: float(np.asarray(vv)[i]) for kk, vv in v.items()}
-            else:
-                val = np.asarray(v)[i]
-                summ[k] = bool(val) if val.dtype == bool else float(val)
+        summ = {k: ({kk: vv[i] for kk, vv in col.items()} if nested else col[i])
+                for k, (nested, col) in per_key.items()}
         res.summary = summ
         res.trace = {k: np.array(v[i]) for k, v in cols.items()}
         if batch.simulation.mode == "full" and not tr.converged[i]:

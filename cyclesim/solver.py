@@ -517,8 +517,11 @@ def grid_for(batch, mode: str, step_scale: float = 1.0) -> np.ndarray:
     from .config import effective_step_deg
 
     h = effective_step_deg(batch.simulation, float(batch.operating.speed_rpm[0])) * step_scale
-    classes = {role: type(model) for role, model in batch.models.items()}
-    k = min(closed_step_factor(c, classes) for c in batch.cases)
+    k = getattr(batch, "_closed_step_k", None)       # fixed by the cases' settings: once per batch
+    if k is None:
+        classes = {role: type(model) for role, model in batch.models.items()}
+        k = min(closed_step_factor(c, classes) for c in batch.cases)
+        batch._closed_step_k = k
     if mode == "full":
         n = max(int(round(720.0 / h)), 8)
         fine = np.linspace(-360.0, 360.0, n + 1)
