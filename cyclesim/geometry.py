@@ -163,18 +163,14 @@ class Geometry:
         for a fraction of the work where the cases share their geometry (a sweep of
         operating conditions).
         """
-        keys = np.stack([self.bore_m, self.stroke_m, self.conrod_m, self.compression_ratio,
-                         self.pin_offset_m, self.head_area_factor, self.piston_area_factor], axis=1)
-        if self.B == 1 or np.all(keys == keys[0]):
-            rows = np.zeros(self.B, dtype=np.intp)
-            first = np.zeros(1, dtype=np.intp)
-        else:
-            _, first, rows = np.unique(keys, axis=0, return_index=True, return_inverse=True)
-            rows = rows.ravel()
+        from .batch import distinct_rows
+
+        cols = (self.bore_m, self.stroke_m, self.conrod_m, self.compression_ratio, self.pin_offset_m,
+                self.head_area_factor, self.piston_area_factor)
+        first, rows = distinct_rows(cols)
         if first.size == self.B:
             return self, np.arange(self.B)
-        k = keys[first]
-        return Geometry(*(k[:, i] for i in (0, 1, 2, 3, 4, 5, 6))), rows
+        return Geometry(*(c[first] for c in cols)), rows
 
     # -- helpers -----------------------------------------------------------
     def _cast(self, theta_deg, *arrays):

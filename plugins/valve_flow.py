@@ -476,16 +476,12 @@ class PoppetValves(ValveFlow):
         """Rows of the cases with distinct valve settings, and each case's row among them."""
         got = getattr(self, "_distinct_rows", None)
         if got is None:
+            from cyclesim.batch import distinct_rows
+
             cols = [self.threshold, self.dwell_arr, self.port_ratio, _arr(self.p.intake_area_factor, self.B)]
             for valve in _VALVES:
                 cols += [*self.events[valve], self.max_lift[valve], self.diameter[valve], self.count[valve]]
-            keys = np.stack(cols, axis=1)
-            if np.all(keys == keys[0]):
-                got = (np.zeros(1, dtype=np.intp), np.zeros(self.B, dtype=np.intp))
-            else:
-                _, first, inv = np.unique(keys, axis=0, return_index=True, return_inverse=True)
-                got = (first, inv.ravel())
-            self._distinct_rows = got
+            got = self._distinct_rows = distinct_rows(cols)
         return got
 
     def lift(self, theta_deg: np.ndarray, _rows=None) -> dict[str, np.ndarray]:
@@ -567,6 +563,18 @@ class PoppetValves(ValveFlow):
         a_int = self._tab_int[i, cols] + f * self._dtab_int[i, cols]
         a_exh = self._tab_exh[i, cols] + f * self._dtab_exh[i, cols]
         return a_int, a_exh
+
+    def areas_at(self, theta_deg: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Effective areas [m^2] (n, B) of the intake and exhaust at crank angles (n,), as
+        :meth:`_areas` gives them one angle at a time (zero where the valves are shut)."""
+        if self._tab_int is None:
+            self._build_tables()
+        x = np.mod(np.asarray(theta_deg, dtype=float), CYCLE_DEG) * self._inv_step
+        i = np.minimum(x.astype(np.intp), self._n - 1)
+        f = (x - i)[:, None]
+        return tuple(np.where((opn[i] | opn[i + 1])[:, None], tab[i] + f * dtab[i], 0.0)
+                     for tab, dtab, opn in ((self._tab_int, self._dtab_int, self._open_int),
+                                            (self._tab_exh, self._dtab_exh, self._open_exh)))
 
     def mass_flows(self, s: GasState) -> tuple[np.ndarray, np.ndarray]:
         """(intake, exhaust) mass flows [kg/s] (B,), positive into the cylinder.
