@@ -471,10 +471,15 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
 
 
 @njit(cache=True, error_model="numpy")
-def manifold_lap_intake(p0, h, ki, A_thr, p_amb, T_amb, T_int, omega, Qi, pref, dp, R_air, g_air, dp_lin):
-    """One implicit-Euler lap of the intake manifolds (rows: engines), as _Manifolds._lap with fi."""
+def manifold_lap(p0, h, k, A, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, Q, pref, intake, dp, dp_lin):
+    """One implicit-Euler lap of manifold pressures (rows), as _Manifolds._lap.
+
+    ``intake``: the throttle fills the manifold from ambient and the cylinders draw ``Q x / pref``;
+    else the cylinders fill it with ``Q`` and the outlet empties it to ambient.  Two Newton passes
+    per step on ``x - p - h r(x)``, the slope of the orifice flow by a difference of ``dp``.
+    """
     E = p0.shape[0]
-    n = Qi.shape[1]
+    n = Q.shape[1]
     out = np.empty((E, n + 1))
     for e in range(E):
         p = p0[e]
@@ -482,41 +487,23 @@ def manifold_lap_intake(p0, h, ki, A_thr, p_amb, T_amb, T_int, omega, Qi, pref, 
         for j in range(n):
             x = p
             for _ in range(2):
-                q = _orifice(A_thr[e], p_amb[e], T_amb[e], R_air, g_air, x, T_int[e], R_air, g_air,
-                             dp_lin) / omega[e]
-                q2 = _orifice(A_thr[e], p_amb[e], T_amb[e], R_air, g_air, x + dp, T_int[e], R_air, g_air,
-                              dp_lin) / omega[e]
-                dq = (q2 - q) / dp
-                pr = pref[e, j]
-                r = ki[e] * (q - Qi[e, j] * x / pr)
-                dr = ki[e] * (dq - Qi[e, j] / pr)
-                gx = x - p - h * r
-                x = max(x - gx / (1.0 - h * dr), 1e3)
-            p = x
-            out[e, j + 1] = p
-    return out
-
-
-@njit(cache=True, error_model="numpy")
-def manifold_lap_exhaust(p0, h, ke, A_out, T_exh, R_exh, g_exh, p_amb, T_amb, omega, Qe, dp, R_air, g_air,
-                         dp_lin):
-    """One implicit-Euler lap of the exhaust branches (rows), as _Manifolds._lap with fe."""
-    X = p0.shape[0]
-    n = Qe.shape[1]
-    out = np.empty((X, n + 1))
-    for e in range(X):
-        p = p0[e]
-        out[e, 0] = p
-        for j in range(n):
-            x = p
-            for _ in range(2):
-                q = _orifice(A_out[e], x, T_exh[e], R_exh[e], g_exh, p_amb[e], T_amb[e], R_air, g_air,
-                             dp_lin) / omega[e]
-                q2 = _orifice(A_out[e], x + dp, T_exh[e], R_exh[e], g_exh, p_amb[e], T_amb[e], R_air, g_air,
-                              dp_lin) / omega[e]
-                dq = (q2 - q) / dp
-                r = ke[e] * (Qe[e, j] - q)
-                dr = -ke[e] * dq
+                if intake:
+                    q = _orifice(A[e], p_amb[e], T_amb[e], R_amb, g_amb, x, T_m[e], R_m[e], g_m,
+                                 dp_lin) / omega[e]
+                    q2 = _orifice(A[e], p_amb[e], T_amb[e], R_amb, g_amb, x + dp, T_m[e], R_m[e], g_m,
+                                  dp_lin) / omega[e]
+                    dq = (q2 - q) / dp
+                    pr = pref[e, j]
+                    r = k[e] * (q - Q[e, j] * x / pr)
+                    dr = k[e] * (dq - Q[e, j] / pr)
+                else:
+                    q = _orifice(A[e], x, T_m[e], R_m[e], g_m, p_amb[e], T_amb[e], R_amb, g_amb,
+                                 dp_lin) / omega[e]
+                    q2 = _orifice(A[e], x + dp, T_m[e], R_m[e], g_m, p_amb[e], T_amb[e], R_amb, g_amb,
+                                  dp_lin) / omega[e]
+                    dq = (q2 - q) / dp
+                    r = k[e] * (Q[e, j] - q)
+                    dr = -k[e] * dq
                 gx = x - p - h * r
                 x = max(x - gx / (1.0 - h * dr), 1e3)
             p = x

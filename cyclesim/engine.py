@@ -388,17 +388,17 @@ class _Manifolds:
 
             f64 = lambda a: np.ascontiguousarray(a, dtype=float)  # noqa: E731
             Qi_, pr_, Qe_ = f64(Qi), f64(pref_i), f64(Qe)
+            R_int = np.full(self.E, R_AIR)
 
-            def lap_i(p0):
-                return mod.manifold_lap_intake(f64(p0), self.h, f64(ki), f64(self.A_thr), f64(self.p_amb),
-                                               f64(self.T_amb), f64(self.T_int), f64(self.omega), Qi_, pr_,
-                                               dp, R_AIR, GAMMA_AIR, DP_LIN_DEFAULT)
+            def lap_i(p0):      # the throttle fills the manifold with air from ambient
+                return mod.manifold_lap(f64(p0), self.h, f64(ki), f64(self.A_thr), f64(self.T_int), R_int,
+                                        GAMMA_AIR, f64(self.p_amb), f64(self.T_amb), R_AIR, GAMMA_AIR,
+                                        f64(self.omega), Qi_, pr_, True, dp, DP_LIN_DEFAULT)
 
-            def lap_e(p0):
-                return mod.manifold_lap_exhaust(f64(p0), self.h, f64(ke), f64(self.A_out), f64(self.T_exh_x),
-                                                f64(self.R_exh_x), GAMMA_EXHAUST, f64(self.p_amb_x),
-                                                f64(self.T_amb_x), f64(self.omega_x), Qe_, dp, R_AIR,
-                                                GAMMA_AIR, DP_LIN_DEFAULT)
+            def lap_e(p0):      # the outlet empties the branch to ambient (no reference pressure)
+                return mod.manifold_lap(f64(p0), self.h, f64(ke), f64(self.A_out), f64(self.T_exh_x),
+                                        f64(self.R_exh_x), GAMMA_EXHAUST, f64(self.p_amb_x), f64(self.T_amb_x),
+                                        R_AIR, GAMMA_AIR, f64(self.omega_x), Qe_, Qe_, False, dp, DP_LIN_DEFAULT)
 
             return self._periodic(p0_i, lap_i), self._periodic(p0_e, lap_e)
 

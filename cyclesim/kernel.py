@@ -174,8 +174,6 @@ class Compiled:
         from cyclesim_plugins import (boundaries, burn_table, flame_burn, heat_transfer, knock, ring_leakage,
                                       valve_flow, wiebe)
 
-        from . import flow
-
         self.mod = mod
         self.rhs = rhs
         B = batch.B
@@ -188,45 +186,23 @@ class Compiled:
         self.closed = _cw(closed_pts, np.bool_)
         self.burning = _cw(burning_pts, np.bool_)
         self.open_at = _cw(open_at, np.bool_)
-        npts = half.size
-        # effective valve areas at every point (zero where the valves are shut), as
-        # PoppetValves._areas gives them
+        # effective valve areas at every point (zero where the valves are shut)
         vf = m["valve_flow"]
-        self.Ai = np.zeros((npts, B))
-        self.Ae = np.zeros((npts, B))
         if self.full and type(vf) is valve_flow.PoppetValves and self.open_at.any():
-            if vf._tab_int is None:
-                vf._build_tables()
-            x = np.mod(half, valve_flow.CYCLE_DEG) * vf._inv_step
-            i = np.minimum(x.astype(np.intp), vf._n - 1)
-            f = (x - i)[:, None]
-            for out, tab, dtab, opn in ((self.Ai, vf._tab_int, vf._dtab_int, vf._open_int),
-                                        (self.Ae, vf._tab_exh, vf._dtab_exh, vf._open_exh)):
-                on = opn[i] | opn[i + 1]
-                out[:] = np.where(on[:, None], tab[i] + f * dtab[i], 0.0)
-        self.omega = _b(rhs.omega, B)
-        self.Sp = _b(rhs.Sp, B)
-        self.Tw = np.stack([_b(t, B) for t in rhs.Tw])
-        self.eta = _b(rhs.eta_c, B)
-        self.dh298 = _b(rhs._dh298, B)
-        self.buf = _b(rhs._buf_scale, B)
-        self.plen = np.zeros((11, B))
+            self.Ai, self.Ae = (_cw(a) for a in vf.areas_at(half))
+        else:
+            self.Ai = self.Ae = np.zeros((half.size, B))
+        plen = np.zeros((11, B))
         self.PI = self.PE = np.zeros((1, B))
         if self.full:
             # the plenum gas as the numpy loop sees it: properties fixed at its first call, at the
             # cycle's first point; a pressure trace (manifold_trace) read at every point
             pl = rhs.plenums(float(half[0]), {})
-            self.plen[:] = np.stack([_b(a, B) for a in pl["int"] + pl["exh"][:2] + pl["exh"][3:]])
-            self.PI = _cw(self.plen[0:1])
-            self.PE = _cw(self.plen[6:7])
-            bnd = m["boundary"]
-            if type(bnd) is boundaries.ManifoldTraces and bnd._grid is not None:
-                theta0, step, n_tr, pi, pe = bnd._grid
-                x = np.mod(half - theta0, 720.0) / step
-                j = np.minimum(x.astype(np.intp), n_tr - 1)
-                w = (x - j)[:, None]
-                self.PI = _cw(pi[j] + w * (pi[j + 1] - pi[j]))
-                self.PE = _cw(pe[j] + w * (pe[j + 1] - pe[j]))
+            plen[:] = np.stack([_b(a, B) for a in pl["int"] + pl["exh"][:2] + pl["exh"][3:]])
+            self.PI = _cw(plen[0:1])
+            self.PE = _cw(plen[6:7])
+            if type(m["boundary"]) is boundaries.ManifoldTraces:
+                self.PI, self.PE = (_cw(a) for a in m["boundary"].pressures_at(half))
         P = np.zeros((mod.N_P, B))
         codes = np.zeros(4, dtype=np.int64)
         c = mod
@@ -278,45 +254,34 @@ class Compiled:
                  (c.K_P_EXP, knock.DE_PRESSURE_EXPONENT)))
         from .solver import CORE
 
-        n = rhs.n
         isub = np.full(2, -1, dtype=np.int64)
-        reset = np.zeros((2, n))
+        self.reset = np.zeros((2, rhs.n))
         for k, (role, model, sv) in enumerate(rhs.sub_specs):
             row = len(CORE) + k
             isub[0 if role == "heat_transfer" else 1] = row
             if sv.reset_at_ivc:
                 if isinstance(sv.initial, str):
-                    reset[0, row] = 1.0          # the cylinder temperature ("T_ivc")
+                    self.reset[0, row] = 1.0          # the cylinder temperature ("T_ivc")
                 else:
-                    reset[0, row] = 2.0
-                    reset[1, row] = float(sv.initial)
-        self.isub = isub
-        self.reset = reset
-        g = batch.gas
-        self.gas_tab = _cw(g._table)
-        self.gas_off = _cw(g._offset, np.int64)
-        self.gc = np.array([g._T0, g._inv_dT, g._lr0, g._inv_dlr, g._dlr, g._x_hi, g._z_hi,
-                            _thermo_T_mid(), flow.DP_LIN_DEFAULT])
-        self.nRm1 = int(g._nR - 1)
-        self.uc4 = _cw(g._uc4)
-        self.ivc = _b(batch.valves.ivc_deg, B)
-        self.V_at_ivc = _b(batch.geometry.volume_at(self.ivc), B) if self.full else np.zeros(B)
+                    self.reset[0, row] = 2.0
+                    self.reset[1, row] = float(sv.initial)
+        self.gas_tab, self.gas_off, self.gc, nRm1, self.uc4 = batch.gas._compiled_consts()
+        ivc = _b(batch.valves.ivc_deg, B)
         self.steps = _cw(np.diff(half[::2]))
         self.status = np.zeros(B, dtype=np.int64)
         CB = np.zeros((mod.N_ROWS, B))
-        CB[mod.R_OMEGA] = self.omega
-        CB[mod.R_SP] = self.Sp
-        CB[mod.R_TW:mod.R_TW + 3] = self.Tw
-        CB[mod.R_ETA] = self.eta
-        CB[mod.R_DH] = self.dh298
-        CB[mod.R_BUF] = self.buf
-        CB[mod.R_PLEN:mod.R_PLEN + 11] = self.plen
+        CB[mod.R_OMEGA] = _b(rhs.omega, B)
+        CB[mod.R_SP] = _b(rhs.Sp, B)
+        CB[mod.R_TW:mod.R_TW + 3] = np.stack([_b(t, B) for t in rhs.Tw])
+        CB[mod.R_ETA] = _b(rhs.eta_c, B)
+        CB[mod.R_DH] = _b(rhs._dh298, B)
+        CB[mod.R_BUF] = _b(rhs._buf_scale, B)
+        CB[mod.R_PLEN:mod.R_PLEN + 11] = plen
         CB[mod.R_P:mod.R_P + P.shape[0]] = P
-        CB[mod.R_IVC_DEG] = self.ivc
-        CB[mod.R_V_AT_IVC] = self.V_at_ivc
+        CB[mod.R_IVC_DEG] = ivc
+        CB[mod.R_V_AT_IVC] = _b(batch.geometry.volume_at(ivc), B) if self.full else 0.0
         self.CB = CB
-        self.IC = np.array([codes[0], codes[1], codes[2], codes[3], isub[0], isub[1], self.nRm1],
-                           dtype=np.int64)
+        self.IC = np.array([codes[0], codes[1], codes[2], codes[3], isub[0], isub[1], nRm1], dtype=np.int64)
 
     def cycle(self, y: np.ndarray, Y: np.ndarray, F: np.ndarray) -> bool:
         """One cycle from ``y`` into ``Y``, ``F``; False (nothing kept) if any case needs the Python path."""
@@ -358,12 +323,6 @@ class Compiled:
         rhs.p_ivc, rhs.T_ivc, rhs.V_ivc = CB[r].copy(), CB[r + 1].copy(), CB[r + 2].copy()
         _used["compiled"] += 1
         return True
-
-
-def _thermo_T_mid() -> float:
-    from .thermo import T_MID
-
-    return float(T_MID)
 
 
 def prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at) -> Compiled | None:

@@ -142,6 +142,19 @@ class ManifoldTraces(ConstantPlenums):
         tab = pi if which == 0 else pe
         return tab[j] + w * (tab[j + 1] - tab[j])
 
+    def pressures_at(self, theta_deg: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Intake and exhaust pressures [Pa] (n, B) at crank angles (n,), as :meth:`intake` and
+        :meth:`exhaust` give them one angle at a time."""
+        th = np.asarray(theta_deg, dtype=float)
+        if self._grid is None:
+            return (np.broadcast_to(self.p_int, (th.size, self.B)).copy(),
+                    np.broadcast_to(self.p_exh, (th.size, self.B)).copy())
+        theta0, step, n, pi, pe = self._grid
+        x = np.mod(th - theta0, 720.0) / step
+        j = np.minimum(x.astype(np.intp), n - 1)
+        w = (x - j)[:, None]
+        return pi[j] + w * (pi[j + 1] - pi[j]), pe[j] + w * (pe[j + 1] - pe[j])
+
     def intake(self, theta: float, sub: Mapping[str, np.ndarray]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         if self._grid is None:
             return self.p_int, self.T_int, self.y_b_int
