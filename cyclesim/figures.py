@@ -18,15 +18,7 @@ from .solver import CycleTrace, hermite, hermite_grid, is_uniform
 
 def _columns(gas, T, rho, y):
     """Mixture properties for (B, n) arrays (tables are per case), as a dict of (B, n) arrays."""
-    if hasattr(gas, "mixture_grid"):
-        return gas.mixture_grid(T, rho, y)._asdict()
-    # a gas model with only the solver's (B,) interface: column by column
-    B, n = T.shape
-    out: dict = {}
-    for j in range(n):
-        for k, v in gas.mixture(T[:, j], rho[:, j], y[:, j])._asdict().items():
-            out.setdefault(k, np.empty((B, n)))[:, j] = v
-    return out
+    return gas.mixture_grid(T, rho, y)._asdict()
 
 
 def derived_trace(batch, tr: CycleTrace) -> dict[str, np.ndarray]:

@@ -75,6 +75,16 @@ class ConstantGammaGas:
         return MixProps(u, cv, z, -self.lhv_mix * np.ones(T.shape), R, z, z, z, cv,
                         self.cp_value * np.ones(T.shape), self.gamma_value * np.ones(T.shape))
 
+    def mixture_grid(self, T, rho, y):
+        """As :meth:`mixture` for (B, n) arrays (a crank grid per case)."""
+        T = np.asarray(T, float)
+        col = lambda a: np.broadcast_to(a[:, None], T.shape).copy()  # noqa: E731 - per case, every point
+        u = self._ub(T) + (1.0 - np.asarray(y, float)) * self.lhv_mix[:, None]
+        z = np.zeros(T.shape)
+        cv = col(self.cv_value)
+        return MixProps(u, cv, z, -col(self.lhv_mix), col(self.Rc), z, z, z, cv, col(self.cp_value),
+                        col(self.gamma_value))
+
     def pressure(self, T, rho, y):
         return np.asarray(rho) * self.Rc * np.asarray(T)
 

@@ -325,7 +325,6 @@ RHO_GRID = (0.005, 400.0, 40)
 BURNED_MODELS = ("equilibrium", "complete")
 
 
-
 class _CaseTable:
     """Everything that depends on one (fuel, phi, burned model): built once, shared."""
 
@@ -605,15 +604,7 @@ class GasTables:
         """Cylinder-gas properties at ``T`` [K], ``rho`` [kg/m^3], burned mass fraction ``y`` [-] (B,)."""
         T = np.asarray(T, dtype=float)
         f, s = self._burned_core(T, np.asarray(rho, dtype=float))
-        U = self._unburned4(T)                  # fresh charge [u, R, cv, 0]
-        D = f - U                               # [u_y, R_y, du_T, R_T of the burned gas]
-        yc = np.asarray(y, dtype=float)[:, None]
-        M = U + yc * D                          # [u, R, u_T, R_T] of the mixture
-        S = yc * s[:, :2]                       # [u_lnrho, R_lnrho]
-        u_T = M[:, 2]
-        cp = u_T + M[:, 1]
-        return MixProps(M[:, 0], u_T, S[:, 0], D[:, 0], M[:, 1], M[:, 3], S[:, 1], D[:, 1],
-                        u_T, cp, cp / u_T)
+        return _mix(f, s, self._unburned4(T), np.asarray(y, dtype=float))
 
     def mixture_grid(self, T, rho, y) -> MixProps:
         """As :meth:`mixture` for (B, n) arrays (a crank grid per case), in one pass."""
@@ -625,8 +616,8 @@ class GasTables:
         """As :meth:`mixture` at N points of any shape; point k uses case ``case[k]``'s tables
         (default: case 0 for all, the single-case tables of the trace analyser).
 
-        Compiled where numba is installed (:func:`cyclesim._compiled.mixture_points`, about
-        three times faster per point), else the numpy evaluation; both give the same values to
+        Compiled where numba is installed (:func:`cyclesim._compiled.mixture_points`, three to
+        five times faster per point), else the numpy evaluation; both give the same values to
         rounding (``tests/test_kernel.py``).
         """
         T = np.asarray(T, dtype=float)
@@ -643,15 +634,8 @@ class GasTables:
             cf = (np.zeros(Tf.size, dtype=np.intp) if case is None
                   else np.broadcast_to(np.asarray(case, dtype=np.intp), shape).ravel())
             f, s = self._burned_core(Tf, rf, self._offset[cf])
-            U = self._unburned_rows(Tf, 2 * cf + (Tf > T_MID))
-            D = f - U
-            yc = yf[:, None]
-            M = U + yc * D
-            S = yc * s[:, :2]
-            u_T = M[:, 2]
-            cp = u_T + M[:, 1]
-            vals = (M[:, 0], u_T, S[:, 0], D[:, 0], M[:, 1], M[:, 3], S[:, 1], D[:, 1], u_T, cp, cp / u_T)
-            return MixProps(*(a.reshape(shape) for a in vals))
+            mp = _mix(f, s, self._unburned_rows(Tf, 2 * cf + (Tf > T_MID)), yf)
+            return MixProps(*(a.reshape(shape) for a in mp))
         consts = self._compiled_consts()
         cf = (np.zeros(Tf.size, dtype=np.int64) if case is None
               else np.ascontiguousarray(np.broadcast_to(np.asarray(case, dtype=np.int64), shape).ravel()))
@@ -705,6 +689,18 @@ class GasTables:
         res = eq.equilibrate_tv(T2.ravel(), r2.ravel(), b)
         x = res.n / res.n.sum(axis=1, keepdims=True)
         return {k: x[:, i].reshape(shape) for i, k in enumerate(eq.SPECIES)}
+
+
+def _mix(f: np.ndarray, s: np.ndarray, U: np.ndarray, y: np.ndarray) -> MixProps:
+    """Mixture properties (N,) from the burned gas ``f`` = [u, R, u_T, R_T], its ln(rho)
+    slopes ``s`` (N, 4), the fresh charge ``U`` = [u, R, cv, 0] (N, 4) and the burned fraction y."""
+    D = f - U                               # [u_y, R_y, du_T, R_T of the burned gas]
+    yc = y[:, None]
+    M = U + yc * D                          # [u, R, u_T, R_T] of the mixture
+    S = yc * s[:, :2]                       # [u_lnrho, R_lnrho]
+    u_T = M[:, 2]
+    cp = u_T + M[:, 1]
+    return MixProps(M[:, 0], u_T, S[:, 0], D[:, 0], M[:, 1], M[:, 3], S[:, 1], D[:, 1], u_T, cp, cp / u_T)
 
 
 def build_gas_tables(fuel: "Fuel", phi, burned_model: str = "equilibrium") -> GasTables:

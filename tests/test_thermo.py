@@ -344,3 +344,18 @@ def test_adiabatic_constant_volume_combustion_matches_cantera(phi):
     assert Tc[0] > T[0]
     if phi == 1.0:
         assert 100.0 < Tc[0] - T[0] < 250.0
+
+
+def test_constant_gamma_gas_grid_properties_equal_its_solver_properties():
+    # the air-standard gas serves the same two calls as the tables: the whole-trace evaluation
+    # of the figures must equal the solver's column-by-column one
+    from cyclesim.ideal_gas import ConstantGammaGas
+
+    g = ConstantGammaGas(BUILTIN_FUELS["gasoline"], np.array([1.0, 0.9]), np.array([1.4, 1.3]), 287.0)
+    T = np.array([[300.0, 900.0, 2000.0], [400.0, 800.0, 1500.0]])
+    y = np.array([[0.0, 0.5, 1.0], [0.1, 0.2, 0.3]])
+    rho = np.ones((2, 3))
+    grid = g.mixture_grid(T, rho, y)
+    for j in range(3):
+        for name, a, b in zip(grid._fields, grid, g.mixture(T[:, j], rho[:, j], y[:, j])):
+            np.testing.assert_array_equal(a[:, j], b, err_msg=name)
