@@ -27,6 +27,7 @@ from cyclesim.config import load_config
 from cyclesim.errors import ConfigError
 from cyclesim.registry import get_registry
 from cyclesim.solver import _RHS
+from plugin_sources import CONSTANT_H
 
 RTOL = 1e-9
 """Bound on the relative difference compiled vs Python (they differ only by rounding, ~1e-14)."""
@@ -211,36 +212,21 @@ def _why_not(case):
     return kernel.why_not(batch, _RHS(batch, case.simulation.mode))
 
 
-HEAT_PLUGIN = """
-import numpy as np
-from cyclesim import hookimpl
-from cyclesim.params import Param
-from cyclesim.roles import WallHeatTransfer
 
 
-class ConstantCoefficient(WallHeatTransfer):
-    name = "constant_h"
-    summary = "constant heat-transfer coefficient"
-    params = (Param("h_W_per_m2K", "W/(m^2 K)", 400.0, "coefficient", 0, 1e5),)
-    references = ("test plug-in",)
-
-    def coefficient(self, s):
-        return self.p.h_W_per_m2K * np.ones_like(s.T)
-
-
-@hookimpl
-def cyclesim_register_submodels():
-    return [ConstantCoefficient]
-"""
+def _plugin_config(tmp_path, module: str, source: str, text: str):
+    """A config file beside a plug-in file ``module``.py holding ``source``."""
+    (tmp_path / f"{module}.py").write_text(source)
+    cfg_file = tmp_path / f"{module}.yaml"
+    cfg_file.write_text(text)
+    return cfg_file
 
 
 @pytest.fixture
 def heat_plugin(tmp_path):
     """A closed-cycle config of the demo with a third-party heat-transfer plug-in."""
-    (tmp_path / "myheat.py").write_text(HEAT_PLUGIN)
-    cfg_file = tmp_path / "heat.yaml"
-    cfg_file.write_text("extends: demo_closed\nplugins: [myheat.py]\nheat_transfer: {model: constant_h}\n")
-    return cfg_file
+    return _plugin_config(tmp_path, "myheat", CONSTANT_H,
+                          "extends: demo_closed\nplugins: [myheat.py]\nheat_transfer: {model: constant_h}\n")
 
 
 PLENUM_PLUGIN = """
@@ -262,10 +248,8 @@ def cyclesim_register_submodels():
 @pytest.fixture
 def plenum_plugin(tmp_path):
     """A config of the demo whose boundary is a third-party plug-in (the constant plenums' physics)."""
-    (tmp_path / "myplenums.py").write_text(PLENUM_PLUGIN)
-    cfg_file = tmp_path / "plug.yaml"
-    cfg_file.write_text("extends: demo\nplugins: [myplenums.py]\nboundary: {model: copied_plenums}\n")
-    return cfg_file
+    return _plugin_config(tmp_path, "myplenums", PLENUM_PLUGIN,
+                          "extends: demo\nplugins: [myplenums.py]\nboundary: {model: copied_plenums}\n")
 
 
 def test_why_not_names_the_submodel_without_compiled_form(plenum_plugin, heat_plugin):

@@ -13,26 +13,7 @@ from cyclesim import registry as reg_mod
 from cyclesim.config import load_config
 from cyclesim.roles import ROLE_BASES, ROLES
 from cyclesim.registry import get_registry
-
-PLUGIN = '''
-import numpy as np
-from cyclesim import hookimpl
-from cyclesim.params import Param
-from cyclesim.roles import WallHeatTransfer
-
-class ConstantCoefficient(WallHeatTransfer):
-    """A constant heat-transfer coefficient (test plug-in)."""
-    name = "constant_h"
-    summary = "constant heat-transfer coefficient"
-    params = (Param("h_W_per_m2K", "W/(m^2 K)", 400.0, "coefficient", 0, 1e5),)
-    references = ("test plug-in",)
-    def coefficient(self, s):
-        return self.p.h_W_per_m2K * np.ones_like(s.T)
-
-@hookimpl
-def cyclesim_register_submodels():
-    return [ConstantCoefficient]
-'''
+from plugin_sources import CONSTANT_H
 
 
 @pytest.fixture
@@ -40,7 +21,7 @@ def third_party(tmp_path, monkeypatch):
     site = tmp_path / "site"
     pkg = site / "tinyheat"
     pkg.mkdir(parents=True)
-    (pkg / "__init__.py").write_text(PLUGIN)
+    (pkg / "__init__.py").write_text(CONSTANT_H)
     dist = site / "tinyheat-0.1.dist-info"
     dist.mkdir()
     (dist / "METADATA").write_text("Metadata-Version: 2.1\nName: tinyheat\nVersion: 0.1\n")
@@ -121,7 +102,7 @@ def test_duplicate_registration_is_an_error():
 
 def test_explicit_plugin_path_from_config(tmp_path):
     f = tmp_path / "myheat.py"
-    f.write_text(PLUGIN.replace("constant_h", "constant_h2"))
+    f.write_text(CONSTANT_H.replace("constant_h", "constant_h2"))
     cfg = tmp_path / "c.yaml"
     cfg.write_text("extends: demo_closed\nplugins: [myheat.py]\nheat_transfer: {model: constant_h2}\n")
     case = load_config(cfg)
