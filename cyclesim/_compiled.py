@@ -69,9 +69,9 @@ def _fresh(uc4, b, T, T_mid):
     return u, uc4[r, 0, 1], cv
 
 
-@njit(cache=True, error_model="numpy")
-def _mixture(gas_tab, off, gc, nRm1, uc4, b, T, rho, y, out):
-    """Mixture properties into out: [u, R, u_T, u_lnrho, u_y, cp, gamma]."""
+@njit(cache=True, inline="always", error_model="numpy")
+def _mix_at(gas_tab, off, gc, nRm1, uc4, b, T, rho, y):
+    """GasTables.mixture at one point of case b: (u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cp, gamma)."""
     T0, inv_dT, lr0, inv_dlr, dlr, x_hi, z_hi, T_mid = gc[0], gc[1], gc[2], gc[3], gc[4], gc[5], gc[6], gc[7]
     # clamped into the table; NaN (a state out of range) maps to the first node, as numpy's fmax
     x = (T - T0) * inv_dT
@@ -86,33 +86,36 @@ def _mixture(gas_tab, off, gc, nRm1, uc4, b, T, rho, y, out):
     elif z > z_hi:
         z = z_hi
     j = int(z * inv_dlr)
-    cell = off + i * nRm1 + j
+    g = gas_tab[off + i * nRm1 + j]
     t = x - i
-    t2 = t * t
-    t3 = t2 * t
     dz = z - j * dlr
-    g = gas_tab[cell]
-    # rows of g: [u, R, u_T, R_T] then their ln(rho) slopes, 4 powers of t each
-    su = g[16] + g[17] * t + g[18] * t2 + g[19] * t3
-    sR = g[20] + g[21] * t + g[22] * t2 + g[23] * t3
-    sT = g[24] + g[25] * t + g[26] * t2 + g[27] * t3
-    f0 = g[0] + g[1] * t + g[2] * t2 + g[3] * t3 + dz * su
-    f1 = g[4] + g[5] * t + g[6] * t2 + g[7] * t3 + dz * sR
-    f2 = g[8] + g[9] * t + g[10] * t2 + g[11] * t3 + dz * sT
-    s0 = su
-    uu, Ru, cvu = _fresh(uc4, b, T, T_mid)
-    # f = [u, R, u_T, R_T] of the burned gas; fresh [u, R, cv, 0]
-    u = uu + y * (f0 - uu)
-    R = Ru + y * (f1 - Ru)
-    u_T = cvu + y * (f2 - cvu)
+    # rows of g: [u, R, u_T, R_T] of the burned gas, then their ln(rho) slopes: cubics in t
+    su = g[16] + t * (g[17] + t * (g[18] + t * g[19]))
+    sR = g[20] + t * (g[21] + t * (g[22] + t * g[23]))
+    fu = g[0] + t * (g[1] + t * (g[2] + t * g[3])) + dz * su
+    fR = g[4] + t * (g[5] + t * (g[6] + t * g[7])) + dz * sR
+    fuT = g[8] + t * (g[9] + t * (g[10] + t * g[11])) + dz * (g[24] + t * (g[25] + t * (g[26] + t * g[27])))
+    fRT = g[12] + t * (g[13] + t * (g[14] + t * g[15])) + dz * (g[28] + t * (g[29] + t * (g[30] + t * g[31])))
+    uu, Ru, cvu = _fresh(uc4, b, T, T_mid)          # the fresh charge
+    u_y = fu - uu
+    R_y = fR - Ru
+    u_T = cvu + y * (fuT - cvu)
+    R = Ru + y * R_y
     cp = u_T + R
+    return uu + y * u_y, u_T, y * su, u_y, R, y * fRT, y * sR, R_y, cp, cp / u_T
+
+
+@njit(cache=True, error_model="numpy")
+def _mixture(gas_tab, off, gc, nRm1, uc4, b, T, rho, y, out):
+    """Mixture properties into out: [u, R, u_T, u_lnrho, u_y, cp, gamma]."""
+    u, u_T, u_lnrho, u_y, R, _, _, _, cp, gamma = _mix_at(gas_tab, off, gc, nRm1, uc4, b, T, rho, y)
     out[0] = u
     out[1] = R
     out[2] = u_T
-    out[3] = y * s0
-    out[4] = f0 - uu
+    out[3] = u_lnrho
+    out[4] = u_y
     out[5] = cp
-    out[6] = cp / u_T
+    out[6] = gamma
 
 
 @njit(cache=True, inline="always", error_model="numpy")
@@ -520,48 +523,18 @@ def mixture_points(gas_tab, gas_off, gc, nRm1, uc4, case, T, rho, y, out):
 
     out (11, N): the MixProps fields u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cv, cp, gamma.
     """
-    T0, inv_dT, lr0, inv_dlr, dlr, x_hi, z_hi, T_mid = gc[0], gc[1], gc[2], gc[3], gc[4], gc[5], gc[6], gc[7]
     for k in range(T.shape[0]):
         b = case[k]
-        Tk = T[k]
-        x = (Tk - T0) * inv_dT
-        if not x > 0.0:
-            x = 0.0
-        elif x > x_hi:
-            x = x_hi
-        i = int(x)
-        rk = rho[k]
-        z = math.log(rk) - lr0 if rk > 0.0 else 0.0
-        if not z > 0.0:
-            z = 0.0
-        elif z > z_hi:
-            z = z_hi
-        j = int(z * inv_dlr)
-        g = gas_tab[gas_off[b] + i * nRm1 + j]
-        t = x - i
-        dz = z - j * dlr
-        # [u, R, u_T, R_T] and their ln(rho) slopes: cubics in t, 4 coefficients each
-        su = g[16] + t * (g[17] + t * (g[18] + t * g[19]))
-        sR = g[20] + t * (g[21] + t * (g[22] + t * g[23]))
-        fu = g[0] + t * (g[1] + t * (g[2] + t * g[3])) + dz * su
-        fR = g[4] + t * (g[5] + t * (g[6] + t * g[7])) + dz * sR
-        fuT = g[8] + t * (g[9] + t * (g[10] + t * g[11])) + dz * (g[24] + t * (g[25] + t * (g[26] + t * g[27])))
-        fRT = g[12] + t * (g[13] + t * (g[14] + t * g[15])) + dz * (g[28] + t * (g[29] + t * (g[30] + t * g[31])))
-        uu, Ru, cvu = _fresh(uc4, b, Tk, T_mid)
-        yk = y[k]
-        u_y = fu - uu
-        R_y = fR - Ru
-        u_T = cvu + yk * (fuT - cvu)
-        R = Ru + yk * R_y
-        cp = u_T + R
-        out[0, k] = uu + yk * u_y
+        u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cp, gamma = _mix_at(
+            gas_tab, gas_off[b], gc, nRm1, uc4, b, T[k], rho[k], y[k])
+        out[0, k] = u
         out[1, k] = u_T
-        out[2, k] = yk * su
+        out[2, k] = u_lnrho
         out[3, k] = u_y
         out[4, k] = R
-        out[5, k] = yk * fRT
-        out[6, k] = yk * sR
+        out[5, k] = R_T
+        out[6, k] = R_lnrho
         out[7, k] = R_y
-        out[8, k] = u_T
+        out[8, k] = u_T          # cv
         out[9, k] = cp
-        out[10, k] = cp / u_T
+        out[10, k] = gamma
