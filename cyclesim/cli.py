@@ -158,6 +158,10 @@ def main(argv: list[str] | None = None) -> int:
 
     handlers.update(ENGINE_HANDLERS)
     try:
+        from . import kernel
+
+        kernel.choice()        # the environment's loop settings, checked before anything is written
+        kernel.threads()
         return handlers[args.command](args)
     except CyclesimError as exc:
         if getattr(args, "debug", False):

@@ -62,3 +62,18 @@ def test_unknown_set_key_and_unknown_config():
     assert r.returncode == 2 and "did you mean 'engine'" in r.stderr
     r = cli("run", "demoo")
     assert r.returncode == 2 and "did you mean 'demo'" in r.stderr and "Traceback" not in r.stderr
+
+
+@pytest.mark.parametrize("var, value", [("CYCLESIM_KERNEL", "bogus"), ("CYCLESIM_THREADS", "0")])
+def test_bad_loop_settings_in_the_environment(tmp_path, var, value):
+    # checked before the command makes its output folder
+    import os
+
+    env = {**os.environ, var: value}
+    out = tmp_path / "o"
+    r = subprocess.run([sys.executable, "-m", "cyclesim", "run", "demo", "--out", str(out)],
+                       capture_output=True, text=True, env=env)
+    assert r.returncode == 2
+    assert var in r.stderr and "Traceback" not in r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1
+    assert not out.exists()
