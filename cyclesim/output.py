@@ -21,6 +21,15 @@ CAUTION = (
 )
 
 
+ENERGY_LABELS = {"unreleased_chemical_energy_J": "unburned fuel (exhaust and blowby)"}
+"""Energy-balance terms whose key does not read well as a label (table and plot share them)."""
+
+
+def energy_label(key: str) -> str:
+    """Label of an energy-balance term: ``wall_heat_J`` -> ``wall heat``."""
+    return ENERGY_LABELS.get(key, key.replace("_J", "").replace("_", " "))
+
+
 def plain(x):
     """Numbers, arrays and containers as JSON-ready Python values (non-finite floats -> None)."""
     if isinstance(x, dict):
@@ -198,11 +207,10 @@ def summary_table(res) -> str:
         base_key = "fuel_energy_J" if "fuel_energy_J" in eb else "chemical_energy_released_J"
         base = eb[base_key]
         head(f"Energy balance (% of {'fuel energy' if base_key == 'fuel_energy_J' else 'chemical energy released'}, {base:.1f} J)")
-        labels = {"unreleased_chemical_energy_J": "unburned fuel (exhaust and blowby)"}
         for k, v in eb.items():
             if k in (base_key, "closure_fraction"):
                 continue
-            label = labels.get(k, k.replace("_J", "").replace("_", " "))
+            label = energy_label(k)
             share = 100 * v / base
             share = 0.0 if abs(share) < 0.005 else share      # no "-0.00"
             lines.append(f"  {label:<34s}{share:>10.2f}  %")

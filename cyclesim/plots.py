@@ -145,7 +145,9 @@ def plot_case(res, out: Path) -> list[Path]:
         base = eb["fuel_energy_J"]
         keys = [k for k in eb if k not in ("fuel_energy_J", "closure_fraction")]
         vals = [100 * eb[k] / base for k in keys]
-        labels = [k.replace("_J", "").replace("_", " ") for k in keys]
+        from .output import energy_label
+
+        labels = [energy_label(k) for k in keys]
         fig, ax = plt.subplots(figsize=(7.5, 4.2))
         colors = ["tab:green", "tab:olive", "tab:purple", "tab:red", "tab:brown", "tab:gray", "0.7", "0.85"]
         bars = ax.barh(labels[::-1], vals[::-1], color=colors[: len(vals)][::-1])
