@@ -42,6 +42,9 @@ class CaseResult:
         Submodel chosen per role.
     references : list of str
         Published sources of the submodels used.
+    cycle_loop : str
+        The loop that integrated the cycles: ``"compiled"``, or ``"numpy"`` (with the reason
+        where numba is installed but a submodel has no compiled form).
     """
 
     name: str
@@ -52,6 +55,7 @@ class CaseResult:
     error: str | None = None
     models: dict = field(default_factory=dict)
     references: list = field(default_factory=list)
+    cycle_loop: str = ""
 
     @property
     def ok(self) -> bool:
@@ -67,6 +71,7 @@ class CaseResult:
             "summary": _plain(self.summary),
             "inputs": _plain(self.inputs),
             "references": list(self.references),
+            "cycle_loop": self.cycle_loop,
         }
 
 
@@ -146,6 +151,7 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
             inputs=flat_inputs(case),
             models={r: ch.model for r, ch in case.submodels.items()},
             references=refs,
+            cycle_loop=tr.loop,
         )
         if tr.failed[i]:
             res.error = tr.failed[i]
@@ -163,6 +169,10 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
             )
         res.warnings.extend(model_warn[i])
         res.warnings.extend(_gas_exchange_warnings(summ))
+        if summ.get("fmep_bar", 0.0) < 0.0:
+            res.warnings.append(f"friction model {case.submodels['friction'].model!r} gives a negative FMEP"
+                                f" ({summ['fmep_bar']:.2f} bar): brake output above indicated (components are"
+                                f" in Pa, positive for a loss)")
         if batch.simulation.mode == "full" and summ.get("inducted_mass_mg", 1.0) <= 0:
             res.warnings.append("no net fresh charge enters through the intake valves at this point")
         results.append(res)

@@ -12,8 +12,9 @@ from __future__ import annotations
 import math
 import numpy as np
 
+from .errors import CyclesimError, PluginError
 from .roles import FrictionInputs
-from .solver import CycleTrace, hermite, hermite_grid, is_uniform
+from .solver import CycleTrace, hermite, hermite_grid, is_uniform, raised_at
 
 
 def _columns(gas, T, rho, y):
@@ -138,6 +139,38 @@ def _sens_u(gas, T, rho, m, mb):
 def _chem(gas, mu, mb):
     """Chemical energy [J] held by fresh charge ``mu`` and burned gas ``mb`` [kg]."""
     return mu * gas.lhv_mix + mb * gas.chem_b
+
+
+def friction_components(fr, finp: FrictionInputs, B: int) -> dict[str, np.ndarray]:
+    """The friction model's FMEP components [Pa] as finite arrays (B,), checked.
+
+    A plug-in that raises, returns something other than a dict of numbers, or a non-finite
+    value is named in a :class:`~cyclesim.errors.PluginError` (one line), as the in-cycle
+    submodels are.
+    """
+    where = f"friction model {getattr(fr, 'name', type(fr).__name__)!r}"
+    try:
+        comps = fr.fmep(finp)
+    except CyclesimError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - a plug-in's error, reported in one line
+        raise PluginError(f"{where} raised {type(exc).__name__} in fmep(){raised_at(exc, fr)}:"
+                          f" {exc or '(no message)'}") from exc
+    if not hasattr(comps, "items") or not comps:
+        raise PluginError(f"{where}: fmep() must return a dict of FMEP components [Pa], got"
+                          f" {type(comps).__name__}")
+    out = {}
+    for k, v in comps.items():
+        try:
+            a = np.asarray(v, dtype=float) * np.ones(B)
+        except (TypeError, ValueError) as exc:
+            raise PluginError(f"{where}: component {k!r} is not a number or an array of {B}: {exc}") from exc
+        if a.shape != (B,):
+            raise PluginError(f"{where}: component {k!r} has shape {a.shape}, expected ({B},)")
+        if not np.isfinite(a).all():
+            raise PluginError(f"{where}: component {k!r} is not finite ({a[~np.isfinite(a)][0]})")
+        out[str(k)] = a
+    return out
 
 
 def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
@@ -276,10 +309,8 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
         p_intake=op.intake_pressure_bar * 1e5 * np.ones(B), imep_gross=W_gross / Vd,
         theta_deg=th, p_trace=p, n_cylinders=ncyl,
     )
-    comps = fr.fmep(finp)
     fmep = np.zeros(B)
-    for k, v in comps.items():
-        v = np.asarray(v, float) * np.ones(B)
+    for k, v in friction_components(fr, finp, B).items():
         out[f"fmep_{k}_bar"] = v / 1e5
         fmep = fmep + v
     out["fmep_bar"] = fmep / 1e5

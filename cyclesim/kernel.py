@@ -50,6 +50,9 @@ _threads: int | None = None   # threads per compiled cycle; None: CYCLESIM_THREA
 _mod = None          # the compiled module, False where numba is missing
 _used = {"compiled": 0, "python": 0}
 """Cycles run by each path in this process (for tests and the benchmark)."""
+_told: set = set()   # notices already printed in this process (compiling, each fall-back reason)
+FALLBACK_SLOWDOWN = "15-60 times slower"
+"""How much slower the numpy loop is than the compiled one (benchmarks/run.py, numpy_loop)."""
 
 
 def threads() -> int:
@@ -97,7 +100,6 @@ def compiled_module():
         try:
             from . import _compiled
             _mod = _compiled
-            _compile_notice(_compiled)
         except ImportError as exc:
             if c == "compiled":
                 raise ConfigError(f"{ENV}=compiled needs numba: pip install -e \".[fast]\" ({exc})") from exc
@@ -115,17 +117,26 @@ def compiled_module():
     return _mod or None
 
 
+def _notice(key: str, text: str) -> None:
+    """One line on stderr, once per process and ``key``."""
+    if key not in _told:
+        _told.add(key)
+        import sys
+
+        print(f"cyclesim: {text}", file=sys.stderr, flush=True)
+
+
 def _compile_notice(mod) -> None:
     """One line on stderr where the compiled loop is not cached yet (the first run compiles it)."""
+    if "compiling" in _told:
+        return
     try:
         cached = bool(mod.run_cycle._cache._cache_file._load_index())
     except Exception:  # noqa: BLE001 - numba internals: no notice rather than a failure
         return
     if not cached:
-        import sys
-
-        print("cyclesim: compiling the cycle loop for this machine (once after installing; about"
-              " 10-20 s)", file=sys.stderr, flush=True)
+        _notice("compiling", "compiling the cycle loop for this machine (once after installing; about 10-20 s)")
+    _told.add("compiling")
 
 
 def _b(x, B) -> np.ndarray:
@@ -325,14 +336,31 @@ class Compiled:
         return True
 
 
-def prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at) -> Compiled | None:
-    """The compiled cycle of this batch, or None for the Python path."""
+def loop_for(batch, rhs) -> tuple[object, str]:
+    """The compiled module for this batch (or None) and the name of the loop it runs on.
+
+    The name is ``"compiled"``, or ``"numpy"`` with the reason in parentheses where numba is
+    installed but a submodel has no compiled form; that fall-back is also said once per
+    process and reason on stderr, since it costs time.
+    """
     mod = compiled_module()
     if mod is None:
-        return None
+        why = f"{ENV}=python" if choice() == "python" else "numba not installed: pip install -e \".[fast]\""
+        return None, f"numpy ({why})"
     reason = why_not(batch, rhs)
     if reason is not None:
         if choice() == "compiled":
             raise ConfigError(f"{ENV}=compiled: {reason}")
+        _notice(reason, f"{reason}: this batch runs on the numpy loop ({FALLBACK_SLOWDOWN} than the"
+                        " compiled loop of the built-in submodels)")
+        return None, f"numpy ({reason})"
+    _compile_notice(mod)
+    return mod, "compiled"
+
+
+def prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at) -> Compiled | None:
+    """The compiled cycle of this batch, or None for the Python path."""
+    mod, _ = loop_for(batch, rhs)
+    if mod is None:
         return None
     return Compiled(mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at)

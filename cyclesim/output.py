@@ -147,11 +147,16 @@ def summary_table(res) -> str:
     def head(t):
         lines.append(t)
 
+    def loop_line():
+        if getattr(res, "cycle_loop", "compiled") not in ("compiled", ""):
+            lines.append(f"cycle loop: {res.cycle_loop}")
+
     eng = f"{res.inputs.get('engine.cylinders', 1)} cyl"
     lines.append(f"{res.name}  ({eng}, {res.inputs['operating.speed_rpm']:g} rpm, lambda {res.inputs['operating.lambda']:g})")
     if mode == "full":
         conv = "settled" if s.get("converged") else "NOT settled"
         lines.append(f"full 720 deg cycle, {conv} after {int(s.get('cycles_to_converge', 0))} cycles")
+        loop_line()
         head("Indicated")
         row("net IMEP", "imep_net_bar", "bar")
         row("gross IMEP", "imep_gross_bar", "bar")
@@ -174,6 +179,7 @@ def summary_table(res) -> str:
         row("exhaust temperature (enthalpy avg)", "exhaust_temperature_K", "K", ".0f")
     else:
         lines.append("closed cycle, IVC to EVO")
+        loop_line()
         row("closed-cycle IMEP", "imep_closed_bar", "bar")
         row("closed-cycle efficiency", "eta_closed_cycle", "%", ".1f", 100)
         row("trapped mass", "trapped_mass_mg", "mg", ".1f")

@@ -28,11 +28,45 @@ def get_plugin_manager(extra_modules: Iterable[str] = ()) -> pluggy.PluginManage
     """
     pm = pluggy.PluginManager("cyclesim")
     pm.add_hookspecs(hookspecs)
-    pm.load_setuptools_entrypoints(ENTRY_POINT_GROUP)
+    _load_entry_points(pm)
     for mod in extra_modules:
-        pm.register(_import_module(mod))
+        module = _import_module(mod)
+        pm.register(module)
+        _check_hooks(pm, module, f"plugin {mod!r}")
     pm.check_pending()
     return pm
+
+
+def _load_entry_points(pm: pluggy.PluginManager) -> None:
+    """Register every installed ``cyclesim`` entry point; one that fails to import is named.
+
+    (pluggy's ``load_setuptools_entrypoints`` does the same, but its error names neither the
+    entry point nor its package.)
+    """
+    from importlib.metadata import entry_points
+
+    for ep in entry_points(group=ENTRY_POINT_GROUP):
+        if pm.get_plugin(ep.name) is not None or pm.is_blocked(ep.name):
+            continue
+        dist = getattr(getattr(ep, "dist", None), "name", None) or "its package"
+        try:
+            plugin = ep.load()
+        except Exception as exc:  # noqa: BLE001 - reported as one line
+            raise PluginError(
+                f"installed plug-in {ep.name!r} ({ep.value}, from {dist}) failed to import"
+                f" ({type(exc).__name__}: {exc}); fix it or `pip uninstall {dist}`"
+            ) from exc
+        pm.register(plugin, name=ep.name)
+        _check_hooks(pm, plugin, f"installed plug-in {ep.name!r} ({ep.value}, from {dist})")
+
+
+def _check_hooks(pm: pluggy.PluginManager, plugin, what: str) -> None:
+    """Say (stderr) when a plug-in module implements no hook: usually a missing ``@hookimpl``."""
+    if not pm.get_hookcallers(plugin):
+        import sys
+
+        print(f"cyclesim: {what} implements no cyclesim hook (is `@hookimpl` missing on"
+              f" cyclesim_register_submodels?)", file=sys.stderr)
 
 
 def _import_module(spec: str):
@@ -79,6 +113,13 @@ class Registry:
             )
         if not name:
             raise PluginError(f"plugin class {cls.__qualname__}: declares no name")
+        base = ROLE_BASES[role]
+        for alternatives in base.required_methods:
+            if all(getattr(cls, m) is getattr(base, m) for m in alternatives):
+                raise PluginError(
+                    f"{role} model {name!r} ({cls.__module__}.{cls.__qualname__}) defines no "
+                    + " or ".join(f"{m}()" for m in alternatives) + f", which a {base.__name__} must"
+                )
         if name in self.submodels[role]:
             other = self.submodels[role][name]
             raise PluginError(

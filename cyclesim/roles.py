@@ -142,6 +142,21 @@ class GasState:
             setattr(self, k, v)
 
 
+class ParamValues(SimpleNamespace):
+    """A submodel's parameter values by name (``self.p.h_W_per_m2K``); a name it does not
+    declare is an AttributeError that lists the declared ones."""
+
+    def __init__(self, owner: str = "submodel", values: Mapping[str, Any] | None = None) -> None:
+        super().__init__(**(values or {}))
+        object.__setattr__(self, "_owner", owner)
+
+    def __getattr__(self, name: str):
+        if name.startswith("__"):
+            raise AttributeError(name)
+        declared = ", ".join(k for k in vars(self) if k != "_owner") or "(none)"
+        raise AttributeError(f"{self._owner} has no parameter {name!r}; declared: {declared}")
+
+
 class Submodel:
     """Base of every submodel.  Subclass one of the role classes below.
 
@@ -176,8 +191,11 @@ class Submodel:
         :attr:`closed_step_limit`); ``step_deg`` is the case's gas-exchange step [deg]."""
         return cls.closed_step_limit
 
+    required_methods: ClassVar[tuple[tuple[str, ...], ...]] = ()
+    """Methods a subclass must define: in each tuple at least one (checked at registration)."""
+
     def __init__(self, values: Mapping[str, Any], ctx: SetupContext) -> None:
-        self.p = SimpleNamespace(**values)
+        self.p = ParamValues(f"{self.role} model {self.name!r}", values)
         self.ctx = ctx
         self.B = ctx.B
 
@@ -208,6 +226,7 @@ class BurnRate(Submodel):
     """Rate of burning of the charge (mass fraction burned per crank degree)."""
 
     role = "burn"
+    required_methods = (("start_deg",), ("rate",))
 
     def start_deg(self) -> np.ndarray:
         """Start of combustion [deg] per case (spark plus ignition delay)."""
@@ -234,6 +253,7 @@ class WallHeatTransfer(Submodel):
     """Convective (and optionally radiative) heat transfer from gas to walls."""
 
     role = "heat_transfer"
+    required_methods = (("coefficient", "heat_flow"),)
 
     def coefficient(self, s: GasState) -> np.ndarray:
         """Heat-transfer coefficient [W/(m^2 K)] (B,)."""
@@ -253,6 +273,7 @@ class RingLeakage(Submodel):
     """Leakage (blowby) past the ring pack to the crankcase."""
 
     role = "blowby"
+    required_methods = (("mass_flow",),)
 
     def mass_flow(self, s: GasState) -> np.ndarray:
         """Mass flow from cylinder to crankcase [kg/s] (B,), >= 0."""
@@ -263,6 +284,7 @@ class ValveFlow(Submodel):
     """Gas exchange through the intake and exhaust valves."""
 
     role = "valve_flow"
+    required_methods = (("mass_flows",), ("lift",), ("flow_area",))
 
     def mass_flows(self, s: GasState) -> tuple[np.ndarray, np.ndarray]:
         """(intake, exhaust) mass flows [kg/s] (B,), positive **into** the cylinder.
@@ -284,6 +306,7 @@ class Boundary(Submodel):
     """Intake and exhaust plenum states seen by the valves."""
 
     role = "boundary"
+    required_methods = (("intake",), ("exhaust",))
     constant: ClassVar[bool] = False
     """True if the plenum states never change: the solver then evaluates them once."""
     fixed_gas: ClassVar[bool] = False
@@ -341,6 +364,7 @@ class Friction(Submodel):
     """
 
     role = "friction"
+    required_methods = (("fmep",),)
     includes_pumping: ClassVar[bool] = False
 
     def fmep(self, f: FrictionInputs) -> dict[str, np.ndarray]:

@@ -82,9 +82,30 @@ class CycleTrace:
     history: list               # per cycle: (imep_net (B,), m_trapped (B,))
     failed: list                # per case: None or message
     ivc_state: dict = field(default_factory=dict)
+    loop: str = ""              # the cycle loop that ran: "compiled", or "numpy (why)"
 
     def row(self, name: str) -> int:
         return self.names.index(name)
+
+
+def raised_at(exc: BaseException, model=None) -> str:
+    """Where an exception was raised, as `` (in name, file.py:line)``: the innermost frame in the
+    file of ``model``'s class where there is one, else the innermost frame."""
+    import os
+    import traceback
+
+    frames = traceback.extract_tb(exc.__traceback__)
+    if not frames:
+        return ""
+    # the files that define the model's class (its methods' code), also for a plug-in file
+    # loaded by path, which is not in sys.modules
+    classes = [c for c in type(model).__mro__ if c.__module__ not in ("cyclesim.roles", "builtins")] \
+        if model is not None else []
+    src = {os.path.realpath(v.__code__.co_filename) for c in classes for v in vars(c).values()
+           if hasattr(v, "__code__")}
+    own = [f for f in frames if os.path.realpath(f.filename) in src]
+    f = (own or frames)[-1]
+    return f" (in {f.name}, {os.path.basename(f.filename)}:{f.lineno})"
 
 
 class _RHS:
@@ -335,7 +356,7 @@ class _RHS:
             model = self.b.models[stage[0]]
             raise PluginError(
                 f"{stage[0]} model {model.name!r} raised {type(exc).__name__} in {stage[1]}() at crank"
-                f" angle {theta:.2f} deg: {exc}"
+                f" angle {theta:.2f} deg{raised_at(exc, model)}: {exc or '(no message)'}"
             ) from exc
 
         dt = self.dt_dth
@@ -628,6 +649,8 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
                        _max_cycles=int(batch.simulation.max_cycles) - COARSE_CYCLES)
         tr.cycles = tr.cycles + COARSE_CYCLES
         tr.history = history + tr.history
+        if coarse.loop != tr.loop and "re-run" in coarse.loop:
+            tr.loop = coarse.loop
         return tr
     rhs = _RHS(batch, mode)
     theta = grid_for(batch, mode, step_scale)
@@ -721,6 +744,7 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     from . import kernel
 
     compiled = kernel.prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at)
+    loop = "compiled" if compiled is not None else kernel.loop_for(batch, rhs)[1]
     y = _initial_state(batch, rhs, theta[0], mode)
     if initial is not None:
         if initial.shape != y.shape:
@@ -754,6 +778,8 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
                 y = Y[:, :, N].copy()
             else:
                 kernel._used["python"] += 1
+                if compiled is not None:
+                    loop = "compiled (a cycle re-run on the numpy loop to stop a failing case)"
                 y = _python_cycle(y)
             if progress is not None:
                 progress(cyc)
@@ -799,7 +825,7 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
                 break
             prev = (imep, m_tr)
             # the next cycle starts from this one's end state (residual gas carried over)
-    trace = CycleTrace(theta, Yfinal, Ffinal, rhs.names, cycles_run, converged, history, rhs.failed)
+    trace = CycleTrace(theta, Yfinal, Ffinal, rhs.names, cycles_run, converged, history, rhs.failed, loop=loop)
     trace.end_state = Yfinal[:, :, -1].copy()
     trace.ivc_state = ivc_final if mode == "full" else {"p": rhs.p_ivc, "T": rhs.T_ivc, "V": rhs.V_ivc}
     return trace

@@ -8,7 +8,7 @@ from cyclesim.roles import WallHeatTransfer
 
 class ConstantCoefficient(WallHeatTransfer):
     """A constant heat-transfer coefficient (test plug-in)."""
-    name = "constant_h"
+    name = "tests_constant_h"
     summary = "constant heat-transfer coefficient"
     params = (Param("h_W_per_m2K", "W/(m^2 K)", 400.0, "coefficient", 0, 1e5),)
     references = ("test plug-in",)
@@ -19,4 +19,4 @@ class ConstantCoefficient(WallHeatTransfer):
 def cyclesim_register_submodels():
     return [ConstantCoefficient]
 '''
-"""A heat-transfer plug-in ``constant_h``: a constant coefficient ``h_W_per_m2K``."""
+"""A heat-transfer plug-in ``tests_constant_h``: a constant coefficient ``h_W_per_m2K``."""

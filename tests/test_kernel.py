@@ -226,7 +226,7 @@ def _plugin_config(tmp_path, module: str, source: str, text: str):
 def heat_plugin(tmp_path):
     """A closed-cycle config of the demo with a third-party heat-transfer plug-in."""
     return _plugin_config(tmp_path, "myheat", CONSTANT_H,
-                          "extends: demo_closed\nplugins: [myheat.py]\nheat_transfer: {model: constant_h}\n")
+                          "extends: demo_closed\nplugins: [myheat.py]\nheat_transfer: {model: tests_constant_h}\n")
 
 
 PLENUM_PLUGIN = """
@@ -259,7 +259,7 @@ def test_why_not_names_the_submodel_without_compiled_form(plenum_plugin, heat_pl
     assert _why_not(load_config("demo", ["boundary.model=manifold_trace"])) is None
     assert _why_not(load_config("demo", ["burn.model=wiebe_flame"])) is None
     reason = _why_not(load_config(str(heat_plugin)))
-    assert reason and "heat_transfer" in reason and "constant_h" in reason
+    assert reason and "heat_transfer" in reason and "tests_constant_h" in reason
     # a plug-in subclass of a built-in is not the built-in: it may change any method
     reason = _why_not(load_config(str(plenum_plugin)))
     assert reason and "boundary" in reason and "copied_plenums" in reason

@@ -35,11 +35,11 @@ def third_party(tmp_path, monkeypatch):
 
 def test_third_party_plugin_is_discovered_and_selected(third_party, tmp_path):
     reg = get_registry()
-    assert "constant_h" in reg.submodels["heat_transfer"]
+    assert "tests_constant_h" in reg.submodels["heat_transfer"]
     cfg = tmp_path / "c.yaml"
     cfg.write_text(textwrap.dedent("""
         extends: demo_closed
-        heat_transfer: {model: constant_h, h_W_per_m2K: 800}
+        heat_transfer: {model: tests_constant_h, h_W_per_m2K: 800}
     """))
     import cyclesim
 
@@ -54,7 +54,7 @@ def test_third_party_plugin_is_discovered_and_selected(third_party, tmp_path):
     env = dict(os.environ, PYTHONPATH=str(third_party) + os.pathsep + os.environ.get("PYTHONPATH", ""))
     r = subprocess.run([sys.executable, "-m", "cyclesim", "plugins", "heat_transfer"],
                        capture_output=True, text=True, env=env)
-    assert r.returncode == 0 and "constant_h" in r.stdout
+    assert r.returncode == 0 and "tests_constant_h" in r.stdout
 
 
 def test_builtins_register_through_entry_point():
@@ -89,6 +89,9 @@ def test_duplicate_registration_is_an_error():
         name = "none"
         summary = "dup"
 
+        def fmep(self, f):
+            return {}
+
     class P:
         @hookimpl
         def cyclesim_register_submodels(self):
@@ -102,8 +105,8 @@ def test_duplicate_registration_is_an_error():
 
 def test_explicit_plugin_path_from_config(tmp_path):
     f = tmp_path / "myheat.py"
-    f.write_text(CONSTANT_H.replace("constant_h", "constant_h2"))
+    f.write_text(CONSTANT_H.replace("tests_constant_h", "tests_constant_h2"))
     cfg = tmp_path / "c.yaml"
-    cfg.write_text("extends: demo_closed\nplugins: [myheat.py]\nheat_transfer: {model: constant_h2}\n")
+    cfg.write_text("extends: demo_closed\nplugins: [myheat.py]\nheat_transfer: {model: tests_constant_h2}\n")
     case = load_config(cfg)
-    assert case.submodels["heat_transfer"].model == "constant_h2"
+    assert case.submodels["heat_transfer"].model == "tests_constant_h2"

@@ -69,6 +69,7 @@ import numpy as np
 from ..config import Case, case_with, resolve_case
 from ..engine import EngineResult, EngineSetup, simulate_engines
 from ..errors import ConfigError
+from ..figures import friction_components
 from ..output import CAUTION, atomic_write_text, write_rows_csv
 from ..output import plain as _plain
 
@@ -189,7 +190,7 @@ def _friction_fmep_bar(res: EngineResult, model: str, case: Case) -> float:
             imep_gross=np.array([s["imep_gross_bar"] * 1e5]),
             theta_deg=r.trace["crank_deg"], p_trace=r.trace["pressure_bar"][None, :] * 1e5,
             n_cylinders=np.array([float(n)]))
-        out.append(sum(float(np.asarray(v).ravel()[0]) for v in fr.fmep(f).values()) / 1e5)
+        out.append(sum(float(v[0]) for v in friction_components(fr, f, 1).values()) / 1e5)
     return float(np.mean(out))
 
 
