@@ -191,6 +191,12 @@ def _add_engineering_parsers(subparsers) -> None:
     b.add_argument("--ambient-K", type=float, default=298.0)
     b.add_argument("--tolerance-bar", type=float, default=0.002)
     b.add_argument("--max-iterations", type=int, default=8)
+    b.add_argument("--p-max-limit-bar", type=float, default=120.0,
+                   help="peak cylinder pressure above which the match warns [bar] (default 120, an order of"
+                        " magnitude: give the engine maker's limit)")
+    b.add_argument("--t3-limit-K", type=float, default=1273.0,
+                   help="turbine inlet temperature above which the match warns [K] (default 1273: give the"
+                        " turbocharger maker's limit)")
     _simple(b)
     b.set_defaults(config="demo_turbo")
     b.description += " Default config: demo_turbo."
@@ -208,6 +214,10 @@ def _add_engineering_parsers(subparsers) -> None:
     d.add_argument("--ambient-kPa", type=float, default=99.0)
     d.add_argument("--ambient-K", type=float, default=298.0)
     d.add_argument("--humidity", type=float, default=0.0, help="relative humidity 0..1")
+    d.add_argument("--cell-air", choices=("intake", "none"), default="intake",
+                   help="intake (default): the engine breathes the cell air (the config's intake is taken at"
+                        " 99 kPa dry, 298 K and moves with the cell's); none: the engine's intake stays as"
+                        " configured (a boost-controlled intake) and only the power correction uses the cell air")
     d.add_argument("--load", choices=("constant", "quadratic"), default="quadratic")
     d.add_argument("--load-torque", type=float, default=None, metavar="NM")
     d.add_argument("--start-rpm", type=float, default=None)
@@ -280,7 +290,8 @@ def cmd_boost(args) -> int:
     br = boost_match(args.config, args.boost_bar, args.eta_compressor, args.eta_turbine, args.eta_mechanical,
                      args.intercooler, args.turbine_area_cm2, not args.no_wastegate, args.ambient_bar,
                      args.ambient_K, overrides=args.overrides, tolerance_bar=args.tolerance_bar,
-                     max_iterations=args.max_iterations, out=_out(args), plots=not args.no_plots)
+                     max_iterations=args.max_iterations, out=_out(args), plots=not args.no_plots,
+                     p_max_limit_bar=args.p_max_limit_bar, t3_limit_K=args.t3_limit_K)
     print(br.text())
     print(f"simulated in {time.perf_counter() - t0:.1f} s")
     _wrote(br.files)
@@ -302,7 +313,7 @@ def cmd_dyno(args) -> int:
                   ambient_pressure_kPa=args.ambient_kPa, ambient_temperature_K=args.ambient_K,
                   relative_humidity=args.humidity, standard=std, load=args.load, load_torque_Nm=args.load_torque,
                   start_speed_rpm=args.start_rpm, inertia_kg_m2=args.inertia, speed_grid_rpm=speeds,
-                  duration_s=args.duration, out=_out(args), plots=not args.no_plots)
+                  duration_s=args.duration, out=_out(args), plots=not args.no_plots, cell_air=args.cell_air)
     print(d.text())
     print(f"simulated in {time.perf_counter() - t0:.1f} s")
     _wrote(d.files)

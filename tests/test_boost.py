@@ -100,3 +100,26 @@ def test_unreachable_target_is_reported():
     assert "not reached" in b.message and "wastegate closed" in b.message
     assert b.state["wastegate_share"] == 0.0
     assert b.state["turbine_shaft_power_kW"] < b.state["compressor_power_kW"]
+
+
+def test_limits_and_knock_are_warned(matched):
+    b, out = matched
+    e = b.engine
+    # demo_turbo has a knock model: its verdict is in the table and the JSON, and nothing is
+    # said about a missing one
+    assert b.limits["knock"] in ("none predicted",) or b.limits["knock"].startswith("at ")
+    assert not any("knock is not checked" in w for w in b.warnings)
+    # a limit below the matched point's peak pressure and T3 is reported with both values
+    low = boost_match("demo_turbo", 1.6, overrides=FAST, tolerance_bar=0.005, max_iterations=6,
+                      p_max_limit_bar=0.9 * e["p_max_bar"], t3_limit_K=b.state["T3_K"] - 50.0)
+    assert any(w.startswith(f"peak cylinder pressure {e['p_max_bar']:.0f} bar is above") for w in low.warnings)
+    assert any(w.startswith("turbine inlet temperature") for w in low.warnings)
+    assert "reached, with the warnings below" in low.text()
+    assert json.loads((out / "boost.json").read_text())["limits"]["p_max_limit_bar"] == 120.0
+
+
+def test_no_knock_model_is_warned():
+    b = boost_match("demo", 1.4, overrides=FAST, tolerance_bar=0.01, max_iterations=4)
+    assert b.limits["knock"] == "not modelled"
+    assert any("knock is not checked (knock.model: none)" in w for w in b.warnings)
+    assert "warning: knock is not checked" in b.text()

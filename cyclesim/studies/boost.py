@@ -60,6 +60,12 @@ __all__ = ["boost_match", "BoostResult", "compressor_outlet_temperature", "turbi
 
 GAMMA_AIR = 1.4
 R_AIR = 287.0
+P_MAX_LIMIT_BAR = 120.0
+"""Default peak cylinder pressure above which the match warns [bar]: the order of the design
+limit of production spark-ignition engines (common practice); use the engine maker's figure."""
+T3_LIMIT_K = 1273.0
+"""Default turbine inlet temperature above which the match warns [K] (1000 C, the order of the
+limit of production gasoline turbine housings and wheels; common practice); use the maker's figure."""
 JSON_NAME = "boost.json"
 CSV_NAME = "boost_iterations.csv"
 PNG_NAME = "boost_match.png"
@@ -144,6 +150,9 @@ class BoostResult:
     files: list = field(default_factory=list)
     base_config: str = ""
     caution: str = CAUTION
+    warnings: list = field(default_factory=list)
+    """Limits the matched point exceeds, knock, and the engine's own warnings."""
+    limits: dict = field(default_factory=dict)
 
     def figures(self) -> dict:
         return {
@@ -158,14 +167,19 @@ class BoostResult:
             "turbocharger": dict(self.state),
             "engine": dict(self.engine),
             "iteration_history": [dict(r) for r in self.iterations],
+            "warnings": list(self.warnings),
+            "limits": dict(self.limits),
             "notes": list(self.notes),
             "files": [Path(f).name for f in self.files],
         }
 
     def text(self) -> str:
         s, e = self.state, self.engine
+        reached = "reached" if self.reached else "NOT reached"
+        if self.reached and self.warnings:
+            reached += ", with the warnings below"
         lines = [f"boost match: {self.base_config}, target {self.boost_pressure_bar:g} bar intake"
-                 f" ({'reached' if self.reached else 'NOT reached'};"
+                 f" ({reached};"
                  f" {'converged' if self.converged else 'NOT converged'} in {len(self.iterations)} iterations,"
                  f" tolerance {self.tolerance_bar:g} bar)"]
 
@@ -185,16 +199,24 @@ class BoostResult:
         row("air / exhaust mass flow", s["air_flow_g_per_s"], "g/s", ".1f")
         lines[-1] += f"  {s['exhaust_flow_g_per_s']:.1f} g/s"
         row("compressor power", s["compressor_power_kW"], "kW", ".2f")
-        row("turbine power (x eta_mech)", s["turbine_power_kW"], "kW", ".2f")
-        lines[-1] += f"  ({s['turbine_shaft_power_kW']:.2f})"
+        row("turbine power / at the shaft (x eta_mech)", s["turbine_power_kW"], "kW", ".2f")
+        lines[-1] += f"  {s['turbine_shaft_power_kW']:.2f} kW"
         row("wastegate share of exhaust flow", 100 * s["wastegate_share"], "%", ".1f")
         row("BMEP", e.get("bmep_bar"), "bar", ".2f")
         row("torque / power", e.get("torque_Nm"), "N m", ".1f")
         lines[-1] += f"  {e.get('power_kW', float('nan')):.1f} kW"
         row("BSFC", e.get("bsfc_g_per_kWh"), "g/kWh", ".0f")
         row("PMEP", e.get("pmep_bar"), "bar", ".2f")
+        row("peak cylinder pressure", e.get("p_max_bar"), "bar", ".1f")
+        lim = self.limits
+        if lim:
+            lines[-1] += f"  (limit {lim['p_max_limit_bar']:g})"
+            row("turbine inlet temperature limit", lim["t3_limit_K"], "K", ".0f")
+            lines.append(f"  {'knock (end gas)':<44s}{lim['knock']:>10s}")
         if not self.reached or not self.converged:
             lines.append(f"note: {self.message}")
+        for w in self.warnings:
+            lines.append(f"warning: {w}")
         for n in self.notes:
             lines.append(f"note: {n}")
         lines.append(f"CAUTION: {self.caution}")
@@ -265,6 +287,8 @@ def boost_match(
     max_iterations: int = 8,
     out: str | Path | None = None,
     plots: bool = True,
+    p_max_limit_bar: float = P_MAX_LIMIT_BAR,
+    t3_limit_K: float = T3_LIMIT_K,
 ) -> BoostResult:
     """Match a turbocharger to the case at a target intake (boost) pressure.
 
@@ -298,6 +322,11 @@ def boost_match(
         Most cylinder <-> turbocharger iterations.
     out : str or Path, optional
         Folder for ``boost.json``, ``boost_iterations.csv`` and ``boost_match.png``.
+    p_max_limit_bar, t3_limit_K : float
+        Peak cylinder pressure [bar] and turbine inlet temperature [K] above which the result
+        warns (defaults :data:`P_MAX_LIMIT_BAR`, :data:`T3_LIMIT_K`: orders of magnitude, not
+        any engine's rating; give the engine maker's limits).  The result also warns where the
+        knock model predicts autoignition, or where no knock model is chosen.
 
     Returns
     -------
@@ -315,6 +344,8 @@ def boost_match(
         raise ConfigError(f"turbine_area_cm2 {turbine_area_cm2!r}: expected a positive number")
     if not boost_pressure_bar > 0:
         raise ConfigError(f"boost pressure {boost_pressure_bar!r} bar: expected a positive number")
+    if not (p_max_limit_bar > 0 and t3_limit_K > 0):
+        raise ConfigError(f"limits {p_max_limit_bar!r} bar, {t3_limit_K!r} K: expected positive numbers")
     case, label = resolve_case(case, overrides)
     if case.simulation.mode != "full":
         raise ConfigError("boost match needs simulation.mode: full (the gas exchange sets the flows)")
@@ -422,12 +453,14 @@ def boost_match(
                      f" iterations (last change {history[-1]['change_bar']:+.4f} bar)")
         if not message:
             message = notes[-1]
-    notes.extend(f"engine: {w}" for w in res.warnings)
+    warnings, limits = _limit_warnings(res, state, p_max_limit_bar, t3_limit_K)
+    warnings.extend(f"engine: {w}" for w in res.warnings)
     notes.append("steady-flow turbocharger: blowdown pulse energy, manifold heat loss and component maps are"
                  " not modelled")
     br = BoostResult(boost_pressure_bar=boost_pressure_bar, reached=reached, message=message,
                      converged=converged, iterations=history, tolerance_bar=tolerance_bar, state=state,
-                     engine=engine, result=res, notes=notes, base_config=label)
+                     engine=engine, result=res, notes=notes, base_config=label, warnings=warnings,
+                     limits=limits)
     if out is not None:
         out = Path(out)
         out.mkdir(parents=True, exist_ok=True)
@@ -440,6 +473,36 @@ def boost_match(
         atomic_write_text(out / JSON_NAME, json.dumps(_plain(br.figures()), indent=2) + "\n")
     return br
 
+
+
+def _limit_warnings(res, state: dict, p_max_limit_bar: float, t3_limit_K: float) -> tuple[list, dict]:
+    """Warnings where the matched point exceeds the pressure or temperature limit or knocks, and
+    the limits with the knock verdict (for the table and the JSON)."""
+    s = res.summary
+    out = []
+    p_max = s.get("p_max_bar")
+    if p_max is not None and p_max > p_max_limit_bar:
+        out.append(f"peak cylinder pressure {p_max:.0f} bar is above the limit of {p_max_limit_bar:g} bar"
+                   f" (--p-max-limit-bar; use the engine maker's figure)")
+    T3 = state.get("T3_K")
+    if T3 is not None and T3 > t3_limit_K:
+        out.append(f"turbine inlet temperature {T3:.0f} K ({T3 - 273.15:.0f} C) is above the limit of"
+                   f" {t3_limit_K:g} K (--t3-limit-K); T3 here is the exhaust-valve enthalpy average, with"
+                   f" no heat lost in the manifold, so the real T3 is somewhat lower")
+    knock_model = res.models.get("knock", "none")
+    if knock_model == "none":
+        verdict = "not modelled"
+        out.append("knock is not checked (knock.model: none): a boosted point can knock at this spark"
+                   " advance; choose a knock model, e.g. --set knock.model=livengood_wu")
+    else:
+        onset = s.get("knock_onset_deg")
+        if onset is not None and np.isfinite(onset):
+            verdict = f"at {onset:.1f} deg"
+            out.append(f"the knock model ({knock_model}) predicts end-gas autoignition at {onset:.1f} deg"
+                       f" ATDC: retard the spark or lower the boost")
+        else:
+            verdict = "none predicted"
+    return out, {"p_max_limit_bar": p_max_limit_bar, "t3_limit_K": t3_limit_K, "knock": verdict}
 
 
 def plot_boost(br: BoostResult, path: Path) -> Path:
@@ -464,5 +527,7 @@ def plot_boost(br: BoostResult, path: Path) -> Path:
     a2.set_ylabel("power [kW]")
     a2.set_title(f"power balance; wastegate {100 * s['wastegate_share']:.0f} % of exhaust flow")
     fig.suptitle(f"{br.base_config}: boost {br.boost_pressure_bar:g} bar"
-                 f" ({'reached' if br.reached else 'not reached'})", fontsize=10)
+                 f" ({'reached' if br.reached else 'not reached'}"
+                 f"{'; see the warnings' if br.warnings else ''})", fontsize=10)
+    a1.xaxis.get_major_locator().set_params(integer=True)
     return _save(fig, Path(path))

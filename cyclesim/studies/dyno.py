@@ -220,6 +220,7 @@ def dyno_test(
     duration_s: float = 5.0,
     out: str | Path | None = None,
     plots: bool = True,
+    cell_air: str = "intake",
 ) -> DynoResult:
     """Run the case on a virtual dynamometer.
 
@@ -234,8 +235,15 @@ def dyno_test(
     noise : DynoNoise, optional
         Measurement noise (none: exact readings).
     ambient_pressure_kPa, ambient_temperature_K, relative_humidity : float
-        Test-cell air for the power correction [kPa, K, 0..1].  The engine's
-        intake is as in the case (set ``operating.intake_*`` to model the cell).
+        Test-cell air [kPa, K, 0..1]: the power correction's conditions and, with
+        ``cell_air="intake"``, the air the engine breathes.
+    cell_air : {"intake", "none"}
+        ``"intake"`` (default): the config describes the engine at the reference air
+        (99 kPa dry, 298 K) and breathes the cell's: the intake pressure scales with the
+        dry-air pressure (intake depression in proportion), the intake temperature moves with
+        the ambient temperature, the exhaust back pressure keeps its offset from the intake;
+        at the reference air nothing changes.  ``"none"``: the engine's intake stays as
+        configured (e.g. a boost-controlled intake); only the correction sees the cell air.
     standard : {"SAE J1349", "ISO 1585"}
         Correction standard (factors from memory).
     load : {"constant", "quadratic"}
@@ -267,11 +275,31 @@ def dyno_test(
         raise ConfigError(f"standard {standard!r}: expected one of {', '.join(STANDARDS)}")
     if not 0 <= relative_humidity <= 1:
         raise ConfigError(f"relative humidity {relative_humidity!r}: expected 0..1")
+    if cell_air not in ("intake", "none"):
+        raise ConfigError(f"cell air {cell_air!r}: expected 'intake' or 'none'")
     case, label = resolve_case(case, overrides)
     if case.simulation.mode != "full":
         raise ConfigError("the dyno needs simulation.mode: full (brake torque needs the whole cycle)")
-    N0 = float(case.operating.speed_rpm)
     res_notes: list = []
+    op = case.operating
+    p_d = float(dry_air_pressure_kPa(ambient_pressure_kPa, ambient_temperature_K, relative_humidity))
+    if cell_air == "intake":
+        p_in = op.intake_pressure_bar * p_d / P_REF_DRY_KPA
+        T_in = op.intake_temperature_K + (ambient_temperature_K - T_REF_K)
+        changes = {"operating.intake_pressure_bar": p_in, "operating.intake_temperature_K": T_in,
+                   "operating.exhaust_pressure_bar": op.exhaust_pressure_bar + (p_in - op.intake_pressure_bar)}
+        if any(abs(v / case_params(case, k) - 1) > 1e-12 for k, v in changes.items()):
+            case = case_with(case, changes)
+            res_notes.append(f"the engine breathes the cell air: intake {p_in:.4f} bar, {T_in:.1f} K (the config's"
+                             f" {op.intake_pressure_bar:g} bar, {op.intake_temperature_K:g} K at 99 kPa dry, 298 K);"
+                             f" --cell-air none keeps the config's intake")
+        if op.intake_pressure_bar > 1.2:
+            res_notes.append("the config's intake is boosted: a boost controller would hold it whatever the cell"
+                             " air; --cell-air none keeps it as configured")
+    else:
+        res_notes.append("the engine's intake is as configured (--cell-air none): only the correction uses the"
+                         " cell air")
+    N0 = float(case.operating.speed_rpm)
     settling: list = []
     curve: list = []
     settled: dict = {}
@@ -431,6 +459,11 @@ def model_correction_check(case: Case | str = "demo", pressures_kPa=(93.0, 99.0,
              "model_factor": P0 / r.summary["power_kW"],
              "sae_j1349_factor": float(correction_factor(p, T, "SAE J1349")),
              "iso_1585_factor": float(correction_factor(p, T, "ISO 1585"))} for (p, T), r in zip(pts, res)]
+
+
+def case_params(case: Case, key: str) -> float:
+    """A case's operating value by its ``operating.name`` key."""
+    return float(getattr(case.operating, key.split(".", 1)[1]))
 
 
 def plot_settling(d: DynoResult, path: Path) -> Path:
