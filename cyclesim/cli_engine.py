@@ -104,6 +104,7 @@ def cmd_engine(args) -> int:
         if prog is not None:
             prog.close()
     print(eng.text())
+    print(f"note: {CAUTION}")
     print(f"simulated in {time.perf_counter() - t0:.1f} s")
     files = []
     rows = [{"quantity": k, "value": v} for k, v in eng.engine.items() if isinstance(v, (int, float))]

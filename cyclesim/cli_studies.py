@@ -125,6 +125,9 @@ def cmd_sweep(args) -> int:
     for r in res.rows:
         if r.get("error"):
             print(f"  case {r['case']}: {r['error']}")
+    from .output import CAUTION
+
+    print(f"note: {CAUTION}")
     print(f"wrote {args.out / 'sweep.csv'} and {args.out / 'sweep.json'}")
     return 0
 

@@ -117,6 +117,11 @@ def throttle_area(diameter_m: float, angle_deg: float, closed_deg: float) -> flo
     return 0.25 * math.pi * diameter_m ** 2 * (1.0 - math.cos(psi) / math.cos(psi0))
 
 
+def _or_dash(v, width: int, spec: str) -> str:
+    """A figure for a table column, or a dash where it has no value (a cut cylinder's CA50)."""
+    return f"{v:{width}{spec}}" if v is not None and np.isfinite(v) else f"{'-':>{width}s}"
+
+
 @dataclass
 class EngineSetup:
     """One engine to simulate.
@@ -203,7 +208,7 @@ class EngineResult:
         lines.append("                        bar     bar   deg       mg      K")
         for c in self.cylinders:
             lines.append(f"  {c['cylinder']:3d}  {c['mode']:<12s} {c['imep_net_bar']:8.3f} {c['p_max_bar']:7.2f}"
-                         f" {c['ca50_deg']:5.1f} {c['trapped_mass_mg']:8.1f} {c['wall_mean_K']:7.1f}")
+                         f" {_or_dash(c['ca50_deg'], 5, '.1f')} {c['trapped_mass_mg']:8.1f} {c['wall_mean_K']:7.1f}")
         lines.append(f"  spread (max-min) of net IMEP over firing cylinders: {e['imep_net_spread_bar']:.3f} bar,"
                      f" COV {100 * e['imep_net_cov_cylinders']:.2f} %")
         for w in self.warnings:

@@ -258,7 +258,7 @@ def test_spark_study_passes_workers_through(tmp_path):
     ser = spark_study("demo_closed", "10:40:5", workers=1, **kw)
     par = spark_study("demo_closed", "10:40:5", workers=2, backend="process", **kw)
     assert ser.mbt_deg is not None and repr(par.mbt_deg) == repr(ser.mbt_deg)
-    assert repr(par.lbt_deg) == repr(ser.lbt_deg)
+    assert repr(par.retard_limit_deg) == repr(ser.retard_limit_deg)
     assert_same_results(ser.table.results, par.table.results)
 
 

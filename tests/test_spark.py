@@ -57,8 +57,9 @@ def test_closed_cycle_study_files_and_table(tmp_path):
     out = tmp_path / "s"
     st = spark_study("demo_closed", "10:40:5", overrides=FAST_CLOSED, out=out, traces=4)
     assert st.torque_key == "imep_closed_bar"                         # closed mode has no brake torque
-    assert 10 < st.mbt_deg < 40 and st.lbt_deg < st.mbt_deg
-    assert st.recommended_deg == st.mbt_deg and st.recommended_by == "MBT"
+    assert 10 < st.mbt_deg < 40 and st.retard_limit_deg < st.mbt_deg
+    assert st.recommended_deg == st.mbt_deg
+    assert st.recommended_by == "MBT; NOT checked against knock (no knock model)"    # demo: knock.model none
     loss = st.table.column("torque_loss_pct")
     assert loss.min() >= -1e-6                                        # the fitted best is the top of the curve
     names = {p.name for p in out.iterdir()}
@@ -84,7 +85,8 @@ def test_pressure_limit_sets_the_recommendation():
     assert any("every advance" in n for n in st.notes)
     st = spark_study("demo_closed", "10:40:5", overrides=FAST_CLOSED, p_max_limit_bar=lim)
     assert st.pmax_limited_deg == pytest.approx(st.mbt_deg - 6.0, abs=1e-9)
-    assert st.recommended_deg == st.pmax_limited_deg and st.recommended_by == "peak-pressure limit"
+    assert st.recommended_deg == st.pmax_limited_deg
+    assert st.recommended_by.startswith("peak-pressure limit; NOT checked against knock")
 
 
 KNOCK_PLUGIN = '''
@@ -162,7 +164,7 @@ def test_torque_is_flat_near_mbt_and_falls_with_far_retard(study):
     # common practice: 4-5 deg of retard from MBT costs about 1 % of torque; 20 deg much more
     assert 0.2 <= loss(4.5) <= 3.0
     assert loss(20.0) > 5.0
-    assert m - 7.0 <= study.lbt_deg <= m - 3.0                        # the 1 % point: a few deg of retard
+    assert m - 7.0 <= study.retard_limit_deg <= m - 3.0                        # the 1 % point: a few deg of retard
     tl = study.table.column("torque_loss_pct")
     a = study.table.column(KEY)
     assert tl.min() >= -0.01                                          # fit reaches the top of the points

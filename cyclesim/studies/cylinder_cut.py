@@ -159,7 +159,9 @@ class CylinderCutResult:
                          " multi_cylinder.exhaust_branches divides the exhaust).")
         lines.append("  indicated power per cylinder, estimate/truth (last step): " + ", ".join(
             f"{c['cylinder']}: {c['estimate_kW']:.2f}/{c['truth_kW']:.2f} kW" for c in self.cylinders))
-        lines.append("  " + CAUTION)
+        lines.append("  IP: indicated power, FP: friction power, B: brake power; est. from the cut readings,"
+                     " true from the model")
+        lines.append("CAUTION: " + CAUTION)
         return "\n".join(lines)
 
 

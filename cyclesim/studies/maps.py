@@ -447,6 +447,6 @@ def _plot_part_load(m: MapResult, out: Path) -> list[Path]:
     contour(n, bmep, 100 * m.column("eta_brake"), "brake efficiency [%]", "brake efficiency [%]", "BMEP [bar]",
             "map_eta_brake.png", "%.1f")
     contour(n, p, bmep, "BMEP [bar]", "BMEP [bar]", "intake pressure [bar]", "map_bmep.png", "%.1f")
-    contour(n, p, m.column("spark_advance_deg"), "spark advance [deg BTDC]", "spark advance [deg BTDC]",
-            "intake pressure [bar]", "map_spark.png")
+    contour(n, p, m.column("spark_advance_deg"), "MBT spark advance [deg BTDC]", "spark advance [deg BTDC]",
+            "intake pressure [bar]", "map_spark.png", "%.1f")
     return files

@@ -188,7 +188,7 @@ class SparkStudy:
         the sweep.
     best_torque : float
         Fitted torque at MBT (or the highest computed if not bracketed).
-    lbt_deg : float or None
+    retard_limit_deg : float or None
         Least advance within ``torque_fraction`` of best torque.
     torque_fraction : float
     ca50_at_mbt_deg, theta_pmax_at_mbt_deg, p_max_at_mbt_bar, dp_max_at_mbt_bar_per_deg : float or None
@@ -215,7 +215,7 @@ class SparkStudy:
     torque_key: str
     mbt_deg: float | None
     best_torque: float
-    lbt_deg: float | None
+    retard_limit_deg: float | None
     torque_fraction: float
     ca50_at_mbt_deg: float | None = None
     theta_pmax_at_mbt_deg: float | None = None
@@ -254,7 +254,7 @@ class SparkStudy:
             "mbt_deg": self.mbt_deg,
             f"best_{tk}": self.best_torque,
             "torque_fraction": self.torque_fraction,
-            "lbt_deg": self.lbt_deg,
+            "retard_limit_deg": self.retard_limit_deg,
             "ca50_at_mbt_deg": self.ca50_at_mbt_deg,
             "theta_pmax_at_mbt_deg": self.theta_pmax_at_mbt_deg,
             "p_max_at_mbt_bar": self.p_max_at_mbt_bar,
@@ -289,7 +289,7 @@ class SparkStudy:
 
         row("MBT (from the fitted torque curve)", self.mbt_deg)
         row(f"best {_LABELS.get(tk, tk)}", self.best_torque, unit, ".2f")
-        row(f"least advance within {100 * self.torque_fraction:g} % of best", self.lbt_deg)
+        row(f"least advance within {100 * self.torque_fraction:g} % of best", self.retard_limit_deg)
         row("CA50 at MBT", self.ca50_at_mbt_deg, "deg ATDC")
         row("angle of peak pressure at MBT", self.theta_pmax_at_mbt_deg, "deg ATDC")
         row("peak pressure at MBT", self.p_max_at_mbt_bar, "bar")
@@ -538,7 +538,7 @@ def spark_study(
     adv_s, tq_s = adv_all[okidx], tq_all[okidx]
     fit = fit_torque_peak(adv_s, tq_s, fit_window_fraction)
     st = SparkStudy(table=table, torque_key=tk, mbt_deg=fit["mbt_deg"], best_torque=fit["best"],
-                    lbt_deg=None, torque_fraction=torque_fraction, knock_margin_deg=knock_margin_deg,
+                    retard_limit_deg=None, torque_fraction=torque_fraction, knock_margin_deg=knock_margin_deg,
                     fit=fit, base_config=label)
     nfail = len(table.failed)
     if nfail:
@@ -550,7 +550,7 @@ def spark_study(
         return table.column(name)[okidx] if name in table.columns else np.full(len(okidx), np.nan)
 
     if fit["bracketed"]:
-        st.lbt_deg, status = _least_within(st, float(adv_s[0]))
+        st.retard_limit_deg, status = _least_within(st, float(adv_s[0]))
         if status == "always":
             st.notes.append(f"torque stays within {100 * torque_fraction:g} % of best down to {adv_s[0]:g} deg BTDC,"
                             " the least advance swept")
@@ -610,6 +610,7 @@ def spark_study(
         by = min(cand, key=cand.get)
         st.recommended_deg, st.recommended_by = float(cand[by]), by
         if st.knock_status == "no model":
+            st.recommended_by += "; NOT checked against knock (no knock model)"
             st.notes.append("knock is not modelled (knock.model: none), so the recommended advance is not"
                             " checked against a knock limit: choose a knock model, and on the engine approach"
                             " it from the retarded side with knock detection")
@@ -663,9 +664,9 @@ def plot_spark_study(st: SparkStudy, out: Path, traces: int = 8) -> list[Path]:
     if st.mbt_deg is not None:
         ax.axvline(st.mbt_deg, color="tab:green", ls="--", lw=1, label=f"MBT {st.mbt_deg:.1f}")
         ax.plot([st.mbt_deg], [st.best_torque], "*", color="tab:green", ms=10)
-    if st.lbt_deg is not None:
-        ax.axvline(st.lbt_deg, color="tab:olive", ls=":", lw=1,
-                   label=f"within {100 * st.torque_fraction:g} % at {st.lbt_deg:.1f}")
+    if st.retard_limit_deg is not None:
+        ax.axvline(st.retard_limit_deg, color="tab:olive", ls=":", lw=1,
+                   label=f"within {100 * st.torque_fraction:g} % at {st.retard_limit_deg:.1f}")
     if st.knock_limited_deg is not None:
         ax.axvline(st.knock_limited_deg, color="tab:red", ls="-.", lw=1, label=f"knock limit {st.knock_limited_deg:.1f}")
     if st.recommended_deg is not None:

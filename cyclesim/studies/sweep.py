@@ -337,7 +337,7 @@ def read_sweep_csv(path: str | Path) -> tuple[list[str], list[dict]]:
 # --------------------------------------------------------------------------
 
 
-SWEEP_TABLE = (("imep_net_bar", "IMEP bar", ".2f", 1.0), ("bmep_bar", "BMEP bar", ".2f", 1.0),
+SWEEP_TABLE = (("imep_net_bar", "net IMEP bar", ".2f", 1.0), ("bmep_bar", "BMEP bar", ".2f", 1.0),
                ("torque_Nm", "torque N m", ".1f", 1.0), ("bsfc_g_per_kWh", "BSFC g/kWh", ".0f", 1.0),
                ("ca50_deg", "CA50 deg", ".1f", 1.0), ("p_max_bar", "p_max bar", ".1f", 1.0),
                ("residual_fraction", "residual %", ".1f", 100.0))
