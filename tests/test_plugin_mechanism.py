@@ -110,3 +110,49 @@ def test_explicit_plugin_path_from_config(tmp_path):
     cfg.write_text("extends: demo_closed\nplugins: [myheat.py]\nheat_transfer: {model: tests_constant_h2}\n")
     case = load_config(cfg)
     assert case.submodels["heat_transfer"].model == "tests_constant_h2"
+
+
+def _guide_blocks(lang: str) -> list[str]:
+    """The ``lang`` code blocks of DEVELOPERS.md, in order."""
+    import pathlib
+    import re
+
+    text = (pathlib.Path(__file__).resolve().parents[1] / "DEVELOPERS.md").read_text()
+    return re.findall(rf"```{lang}\n(.*?)```", text, flags=re.S)
+
+
+def test_the_guides_example_package_works_as_written(tmp_path, monkeypatch):
+    """The plug-in package of DEVELOPERS.md, installed as its pyproject says (an entry point to
+    the module), chosen by its YAML example and run: the guide cannot drift from the code."""
+    import tomllib
+
+    py = next(b for b in _guide_blocks("python") if "# mypkg/models.py" in b)
+    toml = tomllib.loads(next(b for b in _guide_blocks("toml") if "[project.entry-points.cyclesim]" in b))
+    yml = next(b for b in _guide_blocks("yaml") if "# my.yaml" in b)
+    (ep_name, target), = toml["project"]["entry-points"]["cyclesim"].items()
+    site = tmp_path / "site"
+    pkg_dir = site / target.split(".")[0]
+    pkg_dir.mkdir(parents=True)
+    (pkg_dir / "__init__.py").write_text("")
+    (pkg_dir / f"{target.split('.')[1]}.py").write_text(py)
+    dist = site / f"{toml['project']['name']}-{toml['project']['version']}.dist-info"
+    dist.mkdir()
+    (dist / "METADATA").write_text(f"Metadata-Version: 2.1\nName: {toml['project']['name']}\n"
+                                   f"Version: {toml['project']['version']}\n")
+    (dist / "entry_points.txt").write_text(f"[cyclesim]\n{ep_name} = {target}\n")
+    monkeypatch.syspath_prepend(str(site))
+    get_registry.cache_clear()
+    try:
+        cfg = tmp_path / "my.yaml"
+        cfg.write_text(yml)
+        import cyclesim
+
+        res = cyclesim.run(load_config(cfg))
+        assert res.models["heat_transfer"] == "mypkg_constant_h" and res.models["friction"] == "mypkg_quadratic"
+        # FMEP = a + b N + c N^2 at 3 krpm with the YAML's a = 0.9 and the defaults b 0.1, c 0.05
+        assert res.summary["fmep_bar"] == pytest.approx(0.9 + 0.1 * 3 + 0.05 * 9, rel=1e-12)
+        assert res.inputs["heat_transfer.h_W_per_m2K"] == 500
+    finally:
+        get_registry.cache_clear()
+        sys.modules.pop(target.split(".")[0], None)
+        sys.modules.pop(target, None)
