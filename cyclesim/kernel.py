@@ -351,8 +351,10 @@ def loop_for(batch, rhs) -> tuple[object, str]:
     if reason is not None:
         if choice() == "compiled":
             raise ConfigError(f"{ENV}=compiled: {reason}")
-        _notice(reason, f"{reason}: this batch runs on the numpy loop ({FALLBACK_SLOWDOWN} than the"
-                        " compiled loop of the built-in submodels)")
+        if any(type(m).__module__.split(".")[0] != "cyclesim_plugins" for m in batch.models.values()):
+            # a plug-in of the user's: worth a word (a study's own built-in variants are not)
+            _notice(reason, f"{reason}: this batch runs on the numpy loop ({FALLBACK_SLOWDOWN} than the"
+                            " compiled loop of the built-in submodels)")
         return None, f"numpy ({reason})"
     _compile_notice(mod)
     return mod, "compiled"
