@@ -15,48 +15,85 @@ def add_parsers(subparsers) -> None:
         "traces", help="synthetic cylinder-pressure cycles with variation, measurement flaws and ground truth")
     t.add_argument("config", nargs="?", default="demo", help="config file or built-in name (default: demo)")
     t.add_argument("--cycles", type=int, default=100, help="number of consecutive cycles (default 100)")
-    t.add_argument("--out", type=Path, required=True, help="folder for the trace files and the truth")
+    t.add_argument("--out", type=Path, required=True, help="folder for the trace files and the truth (required)")
     g = t.add_mutually_exclusive_group()
     g.add_argument("--resolution", type=float, default=0.5, metavar="DEG",
-                   help="crank-angle resolution of the output [deg] (default 0.5)")
-    g.add_argument("--sample-rate", type=float, metavar="HZ", help="sample in time at this rate instead")
+                   help="crank-angle resolution of the output [deg], > 0 and at most 6, dividing 720 into"
+                        " a whole number of steps of the synthesis grid (default 0.5)")
+    g.add_argument("--sample-rate", type=float, metavar="HZ",
+                   help="sample in time at this rate instead [Hz], > 0 (default: off, crank-angle samples)")
     t.add_argument("--start-sd", type=float, default=3.0, metavar="DEG",
                    help="spread (sd) of the burn start / ignition delay [deg] (default 3)")
-    t.add_argument("--duration-cov", type=float, default=0.12, help="relative spread of the burn duration (0.12)")
-    t.add_argument("--efficiency-sd", type=float, default=0.004, help="spread of the combustion efficiency (0.004)")
-    t.add_argument("--partial-rate", type=float, default=0.0, help="share of partial burns (default 0)")
-    t.add_argument("--misfire-rate", type=float, default=0.0, help="share of misfires (default 0)")
-    t.add_argument("--coupled", action="store_true", help="couple cycles through their residual gas")
+    t.add_argument("--duration-cov", type=float, default=0.12, metavar="FRACTION",
+                   help="spread of the burn duration, coefficient of variation [-] (default 0.12)")
+    t.add_argument("--efficiency-sd", type=float, default=0.004, metavar="FRACTION",
+                   help="spread (sd) of the combustion efficiency [-] (default 0.004)")
+    t.add_argument("--partial-rate", type=float, default=0.0, metavar="SHARE",
+                   help="share of partial burns, 0..1 [-] (default 0)")
+    t.add_argument("--misfire-rate", type=float, default=0.0, metavar="SHARE",
+                   help="share of misfires, 0..1 [-] (default 0)")
+    t.add_argument("--coupled", action="store_true",
+                   help="couple consecutive cycles through their residual gas (default: independent cycles);"
+                        " with a fixed-duration Wiebe burn (the demo's) the coupling moves the trapped mass"
+                        " and residual fraction, not the burn phasing")
     t.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
     t.add_argument("--artefacts", choices=("default", "none"), default="default",
-                   help="measurement flaws: a realistic default set, or none (true pressure)")
+                   help="measurement flaws: a realistic default set, or none (true pressure) (default: default)")
     t.add_argument("--formats", default=None,
                    help="comma list of csv_long, csv_wide, npz, mf4 (default: all; mf4 when the optional"
                         " MDF extra is installed)")
-    t.add_argument("--force", action="store_true", help="write into a non-empty --out folder")
-    t.add_argument("--no-plots", action="store_true", help="skip the plot (traces.png)")
+    t.add_argument("--force", action="store_true",
+                   help="write into a non-empty --out folder (default: refuse); trace files of an earlier run"
+                        " that this run does not write are removed")
+    t.add_argument("--no-plots", action="store_true", help="skip the plot traces.png (default: drawn)")
     t.add_argument("--resume", action="store_true",
-                   help="continue an interrupted set in --out from its finished chunks (same draws, same result)")
+                   help="continue an interrupted set in --out from its finished chunks (same draws, same result)"
+                        " (default: start afresh)")
     t.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
-                   help="override any config value (repeatable)")
-    t.add_argument("--debug", action="store_true", help="show tracebacks")
+                   help="override any config value (repeatable; default: none)")
+    t.add_argument("--debug", action="store_true", help="show tracebacks (default: one-line errors)")
 
     a = subparsers.add_parser(
         "analyse", help="analyse a measured cylinder-pressure trace set (IMEP, pegging, heat release, burn points)"
     )
     a.add_argument("file", type=Path, help="trace file: .csv (long or wide), .npz or .mf4")
     a.add_argument("--engine", required=True,
-                   help="config (path or built-in name) giving geometry, valve events, walls and speed")
-    a.add_argument("--out", type=Path, required=True, help="write the analysis files here")
+                   help="config (path or built-in name) giving geometry, valve events, walls and speed (required)")
+    a.add_argument("--out", type=Path, required=True, help="write the analysis files here (required)")
     a.add_argument("--peg", choices=("intake", "polytropic"), default="intake",
-                   help="pegging: to intake-manifold pressure near intake BDC (default) or two-point polytropic")
+                   help="pegging: to intake-manifold pressure near intake BDC, or two-point polytropic"
+                        " (default: intake)")
     a.add_argument("--tdc-correct", action="store_true",
-                   help="estimate the TDC offset from motored cycles (in FILE or --motored) and correct it")
-    a.add_argument("--motored", type=Path, help="a motored trace set of the same recording, for --tdc-correct")
-    a.add_argument("--force", action="store_true", help="write into a non-empty --out folder")
+                   help="estimate the TDC offset from motored cycles (in FILE or --motored) and correct it"
+                        " (default: no correction)")
+    a.add_argument("--motored", type=Path,
+                   help="a motored trace set of the same recording, for --tdc-correct (default: none)")
+    a.add_argument("--thermal-tau", type=float, metavar="SECONDS",
+                   help="time constant of the sensor's thermal-drift lag [s], > 0 (default: estimated from the"
+                        " set, 0.002 where the estimate is not well defined)")
+    a.add_argument("--force", action="store_true", help="write into a non-empty --out folder (default: refuse)")
     a.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
-                   help="override a value of the engine config (repeatable)")
-    a.add_argument("--debug", action="store_true", help="show tracebacks")
+                   help="override a value of the engine config (repeatable; default: none)")
+    a.add_argument("--debug", action="store_true", help="show tracebacks (default: one-line errors)")
+
+
+def _check_out(out: Path, force: bool) -> None:
+    """Refuse an --out that cannot be written (a file, or a non-empty folder without --force); creates nothing."""
+    out = Path(out)
+    if out.exists():
+        if not out.is_dir():
+            raise CyclesimError(f"--out {out}: exists and is not a folder")
+        if any(out.iterdir()) and not force:
+            raise CyclesimError(f"--out {out}: folder exists and is not empty; use --force to overwrite")
+
+
+def _positive(name: str, value, unit: str) -> None:
+    import math
+
+    if value is None:
+        return
+    if not (math.isfinite(value) and value > 0):
+        raise CyclesimError(f"{name} {value:g}: expected a number > 0 [{unit}]")
 
 
 def analysis_inputs(case):
@@ -101,13 +138,16 @@ def cmd_analyse(args) -> int:
     """Handler of ``cyclesim analyse``: read, analyse, print the set figures, write files."""
     import math
 
-    from .config import load_config
+    from .config import get_dotted, load_config
     from .output import prepare_out_dir
     from .traces.analysis import analyse, with_measured_masses, write_analysis
     from .traces.export import read_trace
 
+    tau = getattr(args, "thermal_tau", None)
+    _positive("--thermal-tau", tau, "s")
     case = load_config(args.engine, list(getattr(args, "overrides", []) or []))
     geom, settings, speed = analysis_inputs(case)
+    _check_out(args.out, getattr(args, "force", False))
     ts = read_trace(args.file)
     if not math.isfinite(ts.speed_rpm):
         ts.speed_rpm = speed
@@ -118,45 +158,67 @@ def cmd_analyse(args) -> int:
             motored.speed_rpm = speed
     settings = with_measured_masses(settings, ts.meta)
     settings = settings.replace(peg=args.peg, tdc_correct=bool(args.tdc_correct))
+    if tau is not None:
+        settings = settings.replace(thermal_time_constant_s=float(tau))
+    res = analyse(ts, geom, settings, motored=motored)      # errors here leave no --out folder behind
     prepare_out_dir(args.out, getattr(args, "force", False))
-    res = analyse(ts, geom, settings, motored=motored)
     st = res.stats
 
     def f(key, spec=".2f"):
         v = st.get(key)
         return "-" if v is None or not math.isfinite(v) else format(v, spec)
 
-    print(f"{args.file}: {st['n_cycles']} cycles ({st['n_fired']} fired), {ts.speed_rpm:g} rpm, peg {args.peg}")
+    n_fired = st["n_fired"]
+    over = f"{n_fired} fired cycles" if n_fired else f"all {st['n_cycles']} cycles, none fired"
+    print(f"{args.file}: {st['n_cycles']} cycles ({n_fired} fired), {ts.speed_rpm:g} rpm, peg {args.peg}")
     if res.tdc["estimated"]:
         print(f"  TDC offset found and corrected     {res.tdc['offset_deg']:+.2f} deg"
               f" (loss angle {res.tdc['loss_angle_deg']:.2f} deg, {res.tdc['n_motored']} motored cycles)")
-    print(f"  net IMEP (mean, COV)               {f('imep_net_bar_mean')} bar, {100 * st['imep_net_cov']:.2f} %"
-          if math.isfinite(st["imep_net_cov"]) else f"  net IMEP (mean)                    {f('imep_net_bar_mean')} bar")
+    print(f"  net IMEP (mean, COV)               {f('imep_net_bar_mean')} bar, {100 * st['imep_net_cov']:.2f} % ({over})"
+          if math.isfinite(st["imep_net_cov"])
+          else f"  net IMEP (mean)                    {f('imep_net_bar_mean')} bar ({over})")
     print(f"  gross IMEP                         {f('imep_gross_bar_mean')} bar")
     print(f"  peg offset (mean)                  {f('peg_offset_bar_mean', '.3f')} bar")
-    print(f"  trapped mass                       {f('trapped_mass_mg', '.1f')} mg ({st['trapped_mass_source']})")
+    src = st["trapped_mass_source"]
+    if src == "measured air and fuel":
+        xr = settings.residual_fraction
+        given = get_dotted(case.raw, "operating.residual_fraction") is not None
+        src += (f", burned-gas (residual) fraction at IVC {xr:.3f} "
+                f"{'from the engine config' if given else 'assumed (analyser default)'}")
+    print(f"  trapped mass                       {f('trapped_mass_mg', '.1f')} mg ({src})")
     print(f"  CA10 / CA50 / CA90                 {f('ca10_deg_mean', '.1f')} / {f('ca50_deg_mean', '.1f')}"
           f" / {f('ca90_deg_mean', '.1f')} deg")
     print(f"  peak pressure at angle             {f('p_max_bar_mean', '.1f')} bar at {f('theta_pmax_deg_mean', '.1f')} deg")
     print(f"  polytropic n compression/expansion {f('n_compression_mean', '.3f')} / {f('n_expansion_mean', '.3f')}")
+    if math.isfinite(st.get("thermal_drift_bar_per_K_mean", float("nan"))):
+        print(f"  thermal drift, lag time constant   {1e5 * st['thermal_drift_bar_per_K_mean']:.2f}e-5 bar/K,"
+              f" {1e3 * st['thermal_time_constant_s']:.2f} ms ({st['thermal_time_constant_source']})")
+    for w in res.warnings:
+        print(f"warning: {w}")
     files = write_analysis(res, args.out)
     print(f"wrote {len(files)} files to {args.out}/: " + ", ".join(p.name for p in files))
     return 0
 
 
+#: Files ``cyclesim traces`` may write into --out (the other formats of a run, the plot).
+_TRACE_OUTPUTS = tuple(f"{stem}.{ext}" for stem in ("trace", "true_pressure")
+                       for ext in ("long.csv", "wide.csv", "npz", "mf4")) + ("truth.csv", "truth.json", "traces.png")
+
+
 def cmd_traces(args) -> int:
     """Handler of ``cyclesim traces``: synthesise, write traces in each format and the truth."""
+    import shutil
     import time
 
     from .config import load_config
+    from .errors import ConfigError
     from .output import CAUTION, prepare_out_dir
     from .traces import artefacts as art
-    from .traces.export import TraceSet, write_trace_set, write_truth
-    from .traces.synthesis import CycleVariation, synthesize
+    from .traces.export import FORMATS, TraceSet, write_trace_set, write_truth
+    from .traces.synthesis import CycleVariation, check_request, synthesize
 
     t0 = time.perf_counter()
     case = load_config(args.config, list(args.overrides))
-    from .traces.export import FORMATS
 
     mdf_hint = 'install the optional MDF extra from the project folder: pip install -e ".[mdf]"'
     skipped_mdf = False
@@ -180,19 +242,38 @@ def cmd_traces(args) -> int:
             import asammdf  # noqa: F401
         except ImportError as exc:
             raise CyclesimError(f"--formats mf4 (ASAM MDF 4): {mdf_hint}") from exc
-    if args.resume:
-        args.out.mkdir(parents=True, exist_ok=True)
-    else:
-        prepare_out_dir(args.out, args.force)
-        import shutil
-
-        shutil.rmtree(args.out / ".chunks", ignore_errors=True)
     var = CycleVariation(start_sd_deg=args.start_sd, duration_cov=args.duration_cov,
                          efficiency_sd=args.efficiency_sd, partial_burn_rate=args.partial_rate,
                          misfire_rate=args.misfire_rate, coupled=args.coupled, seed=args.seed)
-    settings = art.ArtefactSettings.default() if args.artefacts == "default" else art.ArtefactSettings.none()
-    ss = synthesize(case, args.cycles, var, resolution_deg=None if args.sample_rate else args.resolution,
-                    sample_rate_hz=args.sample_rate, artefacts=settings, checkpoint_dir=args.out / ".chunks")
+    resolution = None if args.sample_rate is not None else args.resolution
+    try:
+        check_request(case, args.cycles, var, resolution, args.sample_rate,
+                      names=("--resolution", "--sample-rate"))
+    except ConfigError as exc:
+        msg = str(exc)
+        for lib, opt in (("cycles", "--cycles"), ("start_sd_deg", "--start-sd"),
+                         ("duration_cov", "--duration-cov"), ("efficiency_sd", "--efficiency-sd"),
+                         ("partial_burn_rate", "--partial-rate"), ("misfire_rate", "--misfire-rate")):
+            msg = msg.replace(f"traces: {lib} =", f"{opt}")        # the option the user typed
+        raise ConfigError(msg) from None
+    created = not args.out.exists()
+    try:
+        if args.resume:
+            args.out.mkdir(parents=True, exist_ok=True)
+        else:
+            prepare_out_dir(args.out, args.force)
+            shutil.rmtree(args.out / ".chunks", ignore_errors=True)
+        settings = art.ArtefactSettings.default() if args.artefacts == "default" else art.ArtefactSettings.none()
+        ss = synthesize(case, args.cycles, var, resolution_deg=resolution,
+                        sample_rate_hz=args.sample_rate, artefacts=settings, checkpoint_dir=args.out / ".chunks")
+    except CyclesimError:
+        # a folder this run made that holds no finished chunk is not left behind
+        chunks = args.out / ".chunks"
+        if created and args.out.is_dir() and not any(chunks.glob("cycles_*.npz")):
+            shutil.rmtree(chunks, ignore_errors=True)
+            if not any(args.out.iterdir()):
+                args.out.rmdir()
+        raise
     meta = dict(ss.meta, caution=CAUTION)
     ts = TraceSet(ss.theta, ss.pressure_pa, ss.intake_pa, ss.meta["speed_rpm"], meta)
     files = write_trace_set(ts, args.out, "trace", formats)
@@ -203,17 +284,33 @@ def cmd_traces(args) -> int:
         from .plots import plot_trace_set
 
         files += plot_trace_set(ss, args.out)
-    import shutil
-
     shutil.rmtree(args.out / ".chunks", ignore_errors=True)
+    # files of an earlier run in the folder that this run did not write (other formats, the plot
+    # under --no-plots) would pass for results of this set: removed
+    written = {p.name for p in files}
+    stale = [args.out / n for n in _TRACE_OUTPUTS if n not in written and (args.out / n).is_file()]
+    for p in stale:
+        p.unlink()
     st = ss.stats
-    print(f"{case.name}: {st['n_cycles']} cycles ({'coupled' if args.coupled else 'independent'}),"
+    n = st["n_cycles"]
+    print(f"{case.name}: {n} cycles ({'coupled' if args.coupled else 'independent'}),"
           f" {ss.meta['resolution_deg']:g} deg output, seed {args.seed}")
-    print(f"  net IMEP mean {st['imep_net_mean_bar']:.3f} bar, COV {100 * st['cov_imep_net']:.2f} %")
+    print(f"  net IMEP mean {st['imep_net_mean_bar']:.3f} bar, COV {100 * st['cov_imep_net']:.2f} %"
+          f" (all {n} cycles, misfires included)")
     print(f"  CA50 mean {st.get('ca50_mean_deg', float('nan')):.2f} deg; knocking share {100 * st['knocking_share']:.1f} %,"
           f" misfires {100 * st['misfire_share']:.1f} %, partial burns {100 * st['partial_burn_share']:.1f} %")
+    if args.coupled:
+        import numpy as np
+
+        xr = np.array([r["residual_fraction"] for r in ss.truth], float)
+        xr = xr[np.isfinite(xr)]
+        sd = float(np.std(xr, ddof=1)) if xr.size > 1 else float("nan")
+        print(f"  residual fraction per cycle        mean {100 * np.mean(xr):.2f} %, sd {100 * sd:.3f} %"
+              f" (coupled: moves trapped mass and residual; a fixed-duration Wiebe burn keeps its phasing)")
     if skipped_mdf:
         print(f"  ASAM MDF 4 (.mf4) not written: {mdf_hint}")
+    if stale:
+        print(f"  removed from an earlier run (not written by this one): {', '.join(p.name for p in stale)}")
     print(f"wrote {len(files)} files to {args.out}/ in {time.perf_counter() - t0:.1f} s: "
           + ", ".join(p.name for p in files))
     return 0

@@ -288,6 +288,103 @@ def _run_cycles(cases: list[Case], registry, initial: np.ndarray):
     return batch, tr, d, figs
 
 
+MAX_RESOLUTION_DEG = 6.0
+"""Coarsest output step [deg]: 120 samples per cycle; coarser cannot place the pressure peak or the burn."""
+
+
+def _valid_steps_near(step: float) -> list[float]:
+    """The two output steps [deg] nearest ``step`` that :func:`output_grid` accepts (for the error message)."""
+    fine = [k / 1000.0 for k in range(5, 200) if 720000 % k == 0]           # below 0.2 deg: divide 720
+    coarse = [0.05 * k for k in range(4, int(round(MAX_RESOLUTION_DEG / 0.05)) + 1) if 14400 % k == 0]
+    steps = sorted(fine + coarse, key=lambda s: abs(s - step))
+    return sorted(round(s, 10) for s in steps[:2])
+
+
+def output_grid(resolution_deg: float | None = 0.5, sample_rate_hz: float | None = None,
+                speed_rpm: float = 3000.0, fine_step_deg: float | None = None,
+                names: tuple = ("traces: resolution", "traces: sample rate")) -> tuple[float, float]:
+    """Output step and synthesis step [deg] of a trace set; one clear error for a step that cannot be made.
+
+    The output is decimated from a fine synthesis grid of ``min(step / 4, 0.05)`` deg, so the
+    output step must be a whole multiple of it and divide the 720 deg cycle: steps below
+    0.2 deg must divide 720 deg, steps from 0.2 deg be a multiple of 0.05 deg that divides
+    720 deg, at most :data:`MAX_RESOLUTION_DEG`.  With ``sample_rate_hz`` the step is
+    ``6 N / rate`` [deg] at ``speed_rpm`` N and the same rules apply.
+
+    Parameters
+    ----------
+    resolution_deg : float or None
+        Output crank-angle step [deg] (used when ``sample_rate_hz`` is None).
+    sample_rate_hz : float or None
+        Output sample rate [Hz].
+    speed_rpm : float
+        Engine speed [rpm].
+    fine_step_deg : float or None
+        A given synthesis step [deg] (not checked against the output step here).
+    names : (str, str)
+        How the error message names the resolution and the sample rate (the command line
+        gives its option names).
+
+    Returns
+    -------
+    (output step [deg], synthesis step [deg])
+    """
+    if sample_rate_hz is not None:
+        r = float(sample_rate_hz)
+        if not (math.isfinite(r) and r > 0):
+            raise ConfigError(f"{names[1]} {sample_rate_hz!r} Hz: expected a number > 0")
+        step = 6.0 * float(speed_rpm) / r
+        what = f"{names[1]} {r:g} Hz ({step:.6g} deg per sample at {float(speed_rpm):g} rpm)"
+    else:
+        if resolution_deg is None:
+            resolution_deg = 0.5
+        step = float(resolution_deg)
+        if not (math.isfinite(step) and step > 0):
+            raise ConfigError(f"{names[0]} {resolution_deg!r} deg: expected a number > 0")
+        what = f"{names[0]} {step:g} deg"
+    if fine_step_deg:
+        return step, float(fine_step_deg)
+    fine = min(step / 4.0, 0.05)
+    ok = step <= MAX_RESOLUTION_DEG + 1e-12
+    if ok:
+        n_out = 720.0 / step
+        ok = abs(n_out - round(n_out)) < 1e-6 * n_out
+        if ok and step >= 0.2:
+            q = step / 0.05
+            ok = abs(q - round(q)) < 1e-6 * q
+    if not ok:
+        near = _valid_steps_near(min(step, MAX_RESOLUTION_DEG))
+        hint = " or ".join(f"{s:g} deg" for s in near)
+        if sample_rate_hz is not None:
+            hint = " or ".join(f"{6.0 * float(speed_rpm) / s:.6g} Hz" for s in near) + f" ({hint})"
+        raise ConfigError(
+            f"{what}: the output step must divide the 720 deg cycle (a multiple of 0.05 deg from"
+            f" 0.2 deg on, at most {MAX_RESOLUTION_DEG:g} deg); nearest that work: {hint}")
+    return step, fine
+
+
+def check_request(case: Case, n_cycles: int, variation: CycleVariation, resolution_deg: float | None = 0.5,
+                  sample_rate_hz: float | None = None, fine_step_deg: float | None = None,
+                  names: tuple = ("traces: resolution", "traces: sample rate")) -> tuple[float, float]:
+    """Check a synthesis request before anything runs or is written; returns (output, synthesis) step [deg].
+
+    Raises ConfigError (one line) for a config that is not a full cycle, fewer than one cycle,
+    a burn model without cycle-to-cycle variation, bad spreads or rates, or an output step
+    that cannot be made (:func:`output_grid`).
+    """
+    if case.simulation.mode != "full":
+        raise ConfigError("traces: simulation.mode must be 'full' (cycles are simulated over 720 deg)")
+    if n_cycles < 1:
+        raise ConfigError(f"traces: cycles = {n_cycles}: expected at least 1")
+    variation.check()
+    model = case.submodels["burn"].model
+    if model not in BURN_KEYS:
+        raise ConfigError(
+            f"burn.model = {model!r}: cycle-to-cycle variation is defined for {', '.join(BURN_KEYS)}"
+        )
+    return output_grid(resolution_deg, sample_rate_hz, float(case.operating.speed_rpm), fine_step_deg, names)
+
+
 def synthesize(
     case: Case,
     n_cycles: int = 100,
@@ -326,19 +423,11 @@ def synthesize(
     from ..api import _registry_for
     from . import artefacts as art
 
-    if case.simulation.mode != "full":
-        raise ConfigError("traces: simulation.mode must be 'full' (cycles are simulated over 720 deg)")
-    if n_cycles < 1:
-        raise ConfigError(f"traces: cycles = {n_cycles}: expected at least 1")
     var = variation or CycleVariation()
+    out_step, fine = check_request(case, n_cycles, var, resolution_deg, sample_rate_hz, fine_step_deg)
     settings = artefacts if artefacts is not None else art.ArtefactSettings.default()
     registry = _registry_for([case])
     speed = float(case.operating.speed_rpm)
-    if sample_rate_hz:
-        out_step = 6.0 * speed / float(sample_rate_hz)
-    else:
-        out_step = float(resolution_deg or 0.5)
-    fine = fine_step_deg or min(out_step / 4.0, 0.05)
     n_fine = int(round(720.0 / fine))
     theta_f = np.linspace(-360.0, 360.0, n_fine + 1)
 
