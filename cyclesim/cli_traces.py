@@ -79,12 +79,9 @@ def add_parsers(subparsers) -> None:
 
 def _check_out(out: Path, force: bool) -> None:
     """Refuse an --out that cannot be written (a file, or a non-empty folder without --force); creates nothing."""
-    out = Path(out)
-    if out.exists():
-        if not out.is_dir():
-            raise CyclesimError(f"--out {out}: exists and is not a folder")
-        if any(out.iterdir()) and not force:
-            raise CyclesimError(f"--out {out}: folder exists and is not empty; use --force to overwrite")
+    from .output import prepare_out_dir
+
+    prepare_out_dir(out, force, create=False)
 
 
 def _positive(name: str, value, unit: str) -> None:

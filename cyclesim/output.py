@@ -81,15 +81,20 @@ def atomic_write_text(path: Path, text: str) -> None:
     atomic_write_bytes(path, text.encode("utf-8"))
 
 
-def prepare_out_dir(out: Path, force: bool) -> Path:
-    """Create the output folder; refuse to write into a non-empty one without ``force``."""
+def prepare_out_dir(out: Path, force: bool, create: bool = True) -> Path:
+    """Create the output folder; refuse to write into a non-empty one without ``force``.
+
+    With ``create`` false only the checks run (nothing is made), for a command that creates the
+    folder once its work has succeeded.
+    """
     out = Path(out)
     if out.exists():
         if not out.is_dir():
             raise CyclesimError(f"--out {out}: exists and is not a folder")
         if any(out.iterdir()) and not force:
             raise CyclesimError(f"--out {out}: folder exists and is not empty; use --force to overwrite")
-    out.mkdir(parents=True, exist_ok=True)
+    if create:
+        out.mkdir(parents=True, exist_ok=True)
     return out
 
 

@@ -20,3 +20,19 @@ def cyclesim_register_submodels():
     return [ConstantCoefficient]
 '''
 """A heat-transfer plug-in ``tests_constant_h``: a constant coefficient ``h_W_per_m2K``."""
+
+
+def fake_install(site, dist_name: str, files: dict, entry_points: dict, version: str = "0.1"):
+    """Lay out an installed distribution in the folder ``site`` (to put on sys.path): its
+    ``files`` (relative path -> source) and a dist-info whose ``entry_points`` (name -> target)
+    are in the ``cyclesim`` group, as pip would leave them."""
+    for rel, text in files.items():
+        path = site / rel
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(text)
+    dist = site / f"{dist_name}-{version}.dist-info"
+    dist.mkdir(parents=True)
+    (dist / "METADATA").write_text(f"Metadata-Version: 2.1\nName: {dist_name}\nVersion: {version}\n")
+    (dist / "entry_points.txt").write_text(
+        "[cyclesim]\n" + "".join(f"{k} = {v}\n" for k, v in entry_points.items()))
+    return site

@@ -13,7 +13,7 @@ from cyclesim import kernel
 from cyclesim.config import load_config
 from cyclesim.errors import PluginError
 from cyclesim.registry import Registry, get_plugin_manager, get_registry
-from plugin_sources import CONSTANT_H
+from plugin_sources import CONSTANT_H, fake_install
 
 FRICTION = '''
 import numpy as np
@@ -118,13 +118,8 @@ def test_an_undeclared_parameter_name_lists_the_declared_ones(tmp_path):
 
 @pytest.fixture
 def broken_entry_point(tmp_path, monkeypatch):
-    site = tmp_path / "site"
-    (site / "brokenheat").mkdir(parents=True)
-    (site / "brokenheat" / "__init__.py").write_text("import not_a_module_anywhere\n")
-    dist = site / "brokenheat-0.1.dist-info"
-    dist.mkdir()
-    (dist / "METADATA").write_text("Metadata-Version: 2.1\nName: brokenheat\nVersion: 0.1\n")
-    (dist / "entry_points.txt").write_text("[cyclesim]\nbrokenheat = brokenheat\n")
+    site = fake_install(tmp_path / "site", "brokenheat",
+                        {"brokenheat/__init__.py": "import not_a_module_anywhere\n"}, {"brokenheat": "brokenheat"})
     monkeypatch.syspath_prepend(str(site))
     get_registry.cache_clear()
     yield site

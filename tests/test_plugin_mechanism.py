@@ -13,19 +13,13 @@ from cyclesim import registry as reg_mod
 from cyclesim.config import load_config
 from cyclesim.roles import ROLE_BASES, ROLES
 from cyclesim.registry import get_registry
-from plugin_sources import CONSTANT_H
+from plugin_sources import CONSTANT_H, fake_install
 
 
 @pytest.fixture
 def third_party(tmp_path, monkeypatch):
-    site = tmp_path / "site"
-    pkg = site / "tinyheat"
-    pkg.mkdir(parents=True)
-    (pkg / "__init__.py").write_text(CONSTANT_H)
-    dist = site / "tinyheat-0.1.dist-info"
-    dist.mkdir()
-    (dist / "METADATA").write_text("Metadata-Version: 2.1\nName: tinyheat\nVersion: 0.1\n")
-    (dist / "entry_points.txt").write_text("[cyclesim]\ntinyheat = tinyheat\n")
+    site = fake_install(tmp_path / "site", "tinyheat", {"tinyheat/__init__.py": CONSTANT_H},
+                        {"tinyheat": "tinyheat"})
     monkeypatch.syspath_prepend(str(site))
     get_registry.cache_clear()
     yield site
@@ -130,16 +124,10 @@ def test_the_guides_example_package_works_as_written(tmp_path, monkeypatch):
     toml = tomllib.loads(next(b for b in _guide_blocks("toml") if "[project.entry-points.cyclesim]" in b))
     yml = next(b for b in _guide_blocks("yaml") if "# my.yaml" in b)
     (ep_name, target), = toml["project"]["entry-points"]["cyclesim"].items()
-    site = tmp_path / "site"
-    pkg_dir = site / target.split(".")[0]
-    pkg_dir.mkdir(parents=True)
-    (pkg_dir / "__init__.py").write_text("")
-    (pkg_dir / f"{target.split('.')[1]}.py").write_text(py)
-    dist = site / f"{toml['project']['name']}-{toml['project']['version']}.dist-info"
-    dist.mkdir()
-    (dist / "METADATA").write_text(f"Metadata-Version: 2.1\nName: {toml['project']['name']}\n"
-                                   f"Version: {toml['project']['version']}\n")
-    (dist / "entry_points.txt").write_text(f"[cyclesim]\n{ep_name} = {target}\n")
+    pkg, mod = target.split(".")
+    site = fake_install(tmp_path / "site", toml["project"]["name"],
+                        {f"{pkg}/__init__.py": "", f"{pkg}/{mod}.py": py}, {ep_name: target},
+                        toml["project"]["version"])
     monkeypatch.syspath_prepend(str(site))
     get_registry.cache_clear()
     try:
