@@ -11,19 +11,28 @@ __all__ = ["add_parsers", "cmd_fit", "cmd_predict", "HANDLERS"]
 
 def add_parsers(subparsers) -> None:
     """Add the ``fit`` and ``predict`` sub-commands to an ``argparse`` sub-parser set."""
+    from .fit import CALIBRATION_RULE
+
     f = subparsers.add_parser(
-        "fit", help="fit submodel parameters to measured cylinder pressure; write a calibrated config")
+        "fit", help="fit submodel parameters to measured cylinder pressure; write a calibrated config",
+        description="Fit model parameters to measured cylinder pressure by bounded least squares and write"
+                    " a calibrated config. Parameters: " + CALIBRATION_RULE + ".")
     f.add_argument("config", help="config (path or built-in name) of the engine and operating point")
     f.add_argument("traces", nargs="+", type=Path, help="measured trace file(s): .csv, .npz or .mf4")
     f.add_argument("--param", dest="params", action="append", required=True, metavar="KEY",
-                   help="dotted key to fit, e.g. burn.duration_deg (repeatable)")
+                   help="dotted key of a model parameter to fit, e.g. burn.duration_deg (repeatable);"
+                        " operating conditions such as operating.speed_rpm are refused (see above)")
     f.add_argument("--out", type=Path, required=True, help="folder for calibrated.yaml, calibration.json, plots")
     f.add_argument("--mode", choices=("closed", "full"), default="closed",
                    help="simulate the closed cycle IVC..EVO (default, fast) or the full cycle")
-    f.add_argument("--target", choices=("pressure", "heat_release", "both"), default="pressure")
+    f.add_argument("--target", choices=("pressure", "heat_release", "both"), default="pressure",
+                   help="residual to fit: cylinder pressure [bar] (default), apparent net heat release"
+                        " (divided by displacement x 1 bar, so it reads in bar), or both")
     f.add_argument("--ensemble", choices=("mean", "each"), default="mean",
                    help="fit the mean of the fired cycles (default) or each cycle")
-    f.add_argument("--peg", choices=("intake", "polytropic", "none"), default="intake")
+    f.add_argument("--peg", choices=("intake", "polytropic", "none"), default="intake",
+                   help="pegging of the measured pressure: to the intake pressure near BDC (default), by a"
+                        " polytropic compression, or none (the signal is already absolute)")
     f.add_argument("--tdc-correct", action="store_true", help="estimate the TDC offset from motored cycles")
     f.add_argument("--tdc-offset", type=float, metavar="DEG", help="a known TDC offset to correct [deg]")
     f.add_argument("--motored", type=Path, help="motored trace set of the same recording (for --tdc-correct)")
@@ -34,7 +43,8 @@ def add_parsers(subparsers) -> None:
                    help="the autocorrelation-robust sandwich estimate (default) or s^2 (J^T J)^-1")
     f.add_argument("--nuisance", action="append", default=[], choices=("offset", "gain", "thermal"),
                    help="estimate a measurement flaw with the parameters: pressure offset, gain, sensor"
-                        " thermal shock (repeatable; pressure target only)")
+                        " thermal shock (repeatable; pressure target only). With offset or thermal the closed"
+                        " cycle starts from the config's IVC pressure unless operating.ivc_pressure_bar is fitted")
     f.add_argument("--thermal-tau", type=float, default=None, metavar="S",
                    help="time constant of the thermal-shock term [s] (default 0.002)")
     f.add_argument("--tdc-sd", type=float, default=None, metavar="DEG",
@@ -42,7 +52,8 @@ def add_parsers(subparsers) -> None:
                         " (default: from the loss angle when --tdc-correct, else 0)")
     f.add_argument("--level", type=float, default=0.95, help="confidence level of the intervals (0.95)")
     f.add_argument("--step", type=float, metavar="DEG", help="integration step of the fit [deg]")
-    f.add_argument("--no-plots", action="store_true")
+    f.add_argument("--no-plots", action="store_true",
+                   help="skip the PNG plots (pressure, log p - log V, heat release, residuals); default: write them")
     f.add_argument("--force", action="store_true", help="write into a non-empty --out folder")
     f.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
                    help="override a value of the config (repeatable)")
@@ -57,12 +68,14 @@ def add_parsers(subparsers) -> None:
     p.add_argument("--study", choices=("sweep", "spark"), default="sweep",
                    help="plain sweep, or spark sweep with the MBT distribution")
     p.add_argument("--samples", type=int, default=64, help="parameter samples (default 64)")
-    p.add_argument("--seed", type=int, default=1)
+    p.add_argument("--seed", type=int, default=1,
+                   help="seed of the parameter sampling (default 1; the same seed gives the same samples)")
     p.add_argument("--band", default="5:95", metavar="LO:HI", help="quantile band in percent (default 5:95)")
-    p.add_argument("--out", type=Path, required=True)
-    p.add_argument("--no-plots", action="store_true")
-    p.add_argument("--force", action="store_true")
-    p.add_argument("--debug", action="store_true")
+    p.add_argument("--out", type=Path, required=True,
+                   help="folder for prediction.csv, prediction.json and the band plots")
+    p.add_argument("--no-plots", action="store_true", help="skip the band plots (PNG); default: write them")
+    p.add_argument("--force", action="store_true", help="write into a non-empty --out folder")
+    p.add_argument("--debug", action="store_true", help="show tracebacks")
 
 
 def _pair(text: str, what: str) -> tuple[float, float]:
@@ -78,10 +91,12 @@ def _pair(text: str, what: str) -> tuple[float, float]:
 def cmd_fit(args) -> int:
     """Handler of ``cyclesim fit``."""
     from .config import load_config
-    from .fit import fit
+    from .fit import check_calibratable, fit
     from .output import prepare_out_dir
 
     case = load_config(args.config, list(args.overrides))
+    for k in dict.fromkeys(args.params):       # refuse before anything is written
+        check_calibratable(case, k, args.mode)
     weights = {}
     for w in args.weights:
         rng, _, val = w.partition("=")
@@ -125,8 +140,14 @@ def cmd_predict(args) -> int:
           f" ({res.n_failed} failed); {lo:g}-{hi:g} % bands")
     if main:
         d = res.figures[main]
+        w = max(len(res.key), 10)
+        print(f"  {res.key:>{w}s}  {main + ' nominal':>{max(len(main) + 8, 9)}s}"
+              f"  {'p%g' % lo:>9s}  {'p%g' % hi:>9s}  {'mean':>9s}")
         for i, v in enumerate(res.values):
-            print(f"  {v:>10g}  {main} {d['nominal'][i]:9.3f}  [{d['lower'][i]:9.3f}, {d['upper'][i]:9.3f}]")
+            print(f"  {v:>{w}g}  {d['nominal'][i]:>{max(len(main) + 8, 9)}.3f}  {d['lower'][i]:9.3f}"
+                  f"  {d['upper'][i]:9.3f}  {d['mean'][i]:9.3f}")
+    for n in res.notes:
+        print(f"  note: {n}")
     if res.mbt:
         nom = res.mbt.get("nominal_deg")
         nom = "not bracketed" if nom is None or not np.isfinite(nom) else f"{nom:.2f} deg"

@@ -250,9 +250,11 @@ def _add_engineering_parsers(subparsers) -> None:
                     " simulated now, in one HTML file with everything embedded.")
     r.add_argument("source", help="a run or study folder, or a config file / built-in name")
     r.add_argument("--out", type=Path, default=Path("report.html"), help="HTML file (default report.html)")
-    r.add_argument("--title", default=None)
+    r.add_argument("--title", default=None,
+                   help="page title (default: 'cyclesim report: <folder name>', or the case name for a config)")
     r.add_argument("--force", action="store_true", help="replace an existing --out file")
-    r.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE")
+    r.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
+                   help="override a config value when the report runs a config (repeatable; default: none)")
     r.add_argument("--debug", action="store_true", help="show tracebacks")
 
 

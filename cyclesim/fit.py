@@ -121,6 +121,10 @@ Woschni's correlation (see :func:`cyclesim.traces.analysis.estimate_tdc_offset`)
 whose coefficient is uncertain by some 20-30 % for a particular engine (from
 memory)."""
 
+IVC_PRESSURE_NOTE_REL = 0.03
+"""A configured IVC pressure that differs from the measured one by more than this share is
+named in the fit's notes (the closed-cycle fit always starts from the measured one)."""
+
 RESIDUAL_CORRELATION_LIMIT = 0.1
 """An effective sample size below this share of the residual count raises a warning."""
 
@@ -158,8 +162,64 @@ def _declared_param(case: Case, key: str):
         )
     p = decl[name]
     if p.kind not in ("float", "int") or not p.sweepable:
-        raise ConfigError(f"fit parameter {key!r}: only numbers that may differ within a batch can be fitted")
+        raise ConfigError(f"fit parameter {key!r} cannot be fitted: only numbers that may differ within a batch"
+                          f" can be fitted")
     return p
+
+
+CALIBRATABLE_CORE = {
+    "engine": ("compression_ratio", "head_area_factor", "piston_area_factor"),
+    "walls": ("head_temperature_K", "piston_temperature_K", "liner_temperature_K"),
+}
+"""Core-section numbers a fit may estimate (besides the closed-mode IVC state)."""
+
+NOT_CALIBRATABLE = {
+    "burn.spark_advance_deg": "the spark timing is a setting of the test, known from the engine control",
+    "blowby.crankcase_pressure_bar": "the crankcase pressure is an operating condition",
+    "knock.octane_number": "the octane number is a property of the fuel",
+    "valve_flow.area_grid_step_deg": "it is a numerical setting",
+}
+"""Submodel numbers that are not model parameters, with the reason."""
+
+CALIBRATION_RULE = (
+    "only model parameters can be fitted: numbers of the submodel sections (burn, heat_transfer, blowby,"
+    " valve_flow, friction, knock) except burn.spark_advance_deg, blowby.crankcase_pressure_bar,"
+    " knock.octane_number and valve_flow.area_grid_step_deg; engine.compression_ratio, the engine's"
+    " head and piston area factors and the walls temperatures; in closed mode the IVC state"
+    " (operating.ivc_pressure_bar, operating.ivc_temperature_K, operating.residual_fraction)."
+    " Operating conditions (speed, intake and exhaust state, lambda, EGR, spark timing), measured"
+    " geometry and valve data, fuel, gas and simulation settings, and whole numbers are refused")
+"""The rule of :func:`check_calibratable`, as stated in the command-line help."""
+
+
+def check_calibratable(case: Case, key: str, mode: str = "closed") -> None:
+    """Raise ``ConfigError`` unless ``key`` is a model parameter a fit may estimate.
+
+    See :data:`CALIBRATION_RULE`.  Operating conditions are set and measured by the
+    test (the trace metadata supplies speed, intake state and lambda); fitting one
+    would let the fit move the operating point to absorb a model error.
+    """
+    p = _declared_param(case, key)
+    sec, name = key.split(".")
+    why = None
+    if p.kind != "float":
+        why = "it is a whole number"
+    elif key in NOT_CALIBRATABLE:
+        why = NOT_CALIBRATABLE[key]
+    elif sec == "operating":
+        if key not in TRAPPED_STATE_KEYS:
+            why = "it is an operating condition of the test (set and measured, not calibrated)"
+        elif mode == "full":
+            why = "the IVC state is a closed-mode parameter; in full mode the gas exchange sets it"
+    elif sec in CORE_SCHEMA:
+        if name not in CALIBRATABLE_CORE.get(sec, ()):
+            why = {"engine": "it is measured geometry", "valves": "valve timing and geometry are measured data",
+                   "fuel": "it is a property of the fuel", "gas": "it is a setting of the gas model",
+                   "simulation": "it is a numerical setting"}.get(sec, "it is not a model parameter")
+    elif sec == "boundary":
+        why = "the plenum boundary describes operating conditions"
+    if why:
+        raise ConfigError(f"fit parameter {key!r} cannot be fitted: {why}")
 
 
 def _current_value(case: Case, key: str) -> float:
@@ -216,6 +276,10 @@ class MeasuredData:
         Indices of the measured cycles behind each row.
     changes : dict
         Operating-point values taken from the trace metadata (dotted keys).
+    Vd : float
+        Displacement [m^3].
+    meta : dict
+        The trace file's metadata (e.g. air and fuel mass per cycle).
     """
 
     theta: np.ndarray
@@ -227,6 +291,7 @@ class MeasuredData:
     cycles: list
     changes: dict = field(default_factory=dict)
     Vd: float = 0.0
+    meta: dict = field(default_factory=dict)
 
 
 _META_OPERATING = {
@@ -307,7 +372,8 @@ def measured_data(case: Case, traces, *, ensemble: str = "mean", peg: str | None
     else:
         raise ConfigError(f"fit: ensemble = {ensemble!r}: choose mean or each")
     HR = np.stack([apparent_heat_release(th, p, V, s)[0] for p in P])
-    return MeasuredData(th, P / BAR, HR, V, s, res, rows, changes, float(geom.Vd[0])), case
+    meta = dict(ts.meta) if isinstance(ts.meta, dict) else {}
+    return MeasuredData(th, P / BAR, HR, V, s, res, rows, changes, float(geom.Vd[0]), meta), case
 
 
 # --------------------------------------------------------------------------
@@ -468,9 +534,111 @@ def _make_point(case: Case, data: MeasuredData, row: int, keys, idx, *, mode, ta
     return pt
 
 
-def _fit_case(case: Case, data: MeasuredData, keys: Sequence[str], mode: str, step_deg=None) -> tuple[Case, list]:
-    """The template case of a fit: mode, output grid, IVC state from the measurement."""
-    notes = []
+LEVEL_TERMS = ("offset", "thermal")
+"""Measurement terms that declare the measured pressure level uncertain: with one of them
+the closed cycle does not start from the measured IVC pressure (see :func:`_ivc_state`)."""
+
+
+IVC_WINDOW_DEG = 30.0
+"""Crank-angle window after IVC over which the measured IVC pressure is estimated [deg]."""
+
+
+def measured_ivc_pressure(data: MeasuredData, row: int, ivc_deg: float) -> tuple[float, float]:
+    """Measured pressure at IVC and its standard uncertainty [bar], from the early compression.
+
+    ``ln p`` as a quadratic in ``ln V`` by least squares over IVC..IVC +
+    :data:`IVC_WINDOW_DEG` (valves shut, no combustion yet: nearly a polytrope,
+    ``ln p = a - n ln V``, e.g. Heywood 1988 sec. 9.2.1; the quadratic term takes
+    the drift of the exponent with wall heat and gamma(T)), evaluated at IVC.  One
+    sample carries the full measurement noise; the fit over some tens of samples
+    averages it out (on the demo closed cycle at 0.5 deg: bias 6e-5 bar, noise
+    0.02 bar -> 0.006 bar; measured).  Falls back to the sample value when the
+    window holds fewer than 6 positive samples (then the uncertainty is 0: unknown).
+    The uncertainty is the regression's standard error of the intercept, widened by
+    ``sqrt(n / n_eff)`` for serially correlated residuals (``n_eff`` as in the fit's
+    own statistics).
+    """
+    th, p, V = data.theta, data.pressure_bar[row], data.volume_m3
+    m = (th >= ivc_deg) & (th <= ivc_deg + IVC_WINDOW_DEG) & (p > 0)
+    p_ivc = float(np.interp(ivc_deg, th, p))
+    n = int(m.sum())
+    if n < 6:
+        return p_ivc, 0.0
+    x = np.log(V[m]) - math.log(float(np.interp(ivc_deg, th, V)))
+    A = np.stack([np.ones_like(x), x, x * x], axis=1)
+    y = np.log(p[m])
+    coef = np.linalg.lstsq(A, y, rcond=None)[0]
+    est = float(np.exp(coef[0]))
+    if not (math.isfinite(est) and est > 0):
+        return p_ivc, 0.0
+    r = y - A @ coef
+    s2 = float(r @ r) / (n - 3)
+    c0 = float(r @ r) / n
+    tau = 1.0
+    if c0 > 0:
+        for lag in range(1, n // 4 + 1):
+            rho = float(r[lag:] @ r[:-lag]) / n / c0
+            if rho <= 0:
+                break
+            tau += 2.0 * (1.0 - lag / (n // 4 + 1.0)) * rho
+    try:
+        v0 = float(np.linalg.inv(A.T @ A)[0, 0])
+    except np.linalg.LinAlgError:
+        return est, 0.0
+    return est, est * math.sqrt(max(s2 * v0 * tau, 0.0))
+
+
+def _keeps_config_pressure(keys: Sequence[str], nuisance: Sequence[str], config_closed: bool) -> bool:
+    """Whether the closed cycle starts from the config's IVC pressure instead of the measured one."""
+    return (config_closed and "operating.ivc_pressure_bar" not in keys
+            and any(t in LEVEL_TERMS for t in nuisance or ()))
+
+
+def _ivc_state(case: Case, data: MeasuredData, row: int, keys: Sequence[str],
+               keep_config_pressure: bool = False) -> tuple[dict, dict]:
+    """The closed cycle's state at IVC for one measured record.
+
+    Pressure: the measured (pegged) pressure at IVC (:func:`measured_ivc_pressure`); but when a measurement term
+    of :data:`LEVEL_TERMS` is estimated (the measured level is declared uncertain
+    by an unknown offset; ``keep_config_pressure``), the config's IVC pressure.
+    Temperature: when the trace's metadata holds the mean air and fuel mass per cycle (test-bed flow meters), the
+    trapped mass is ``(air + fuel) / (1 - x_r)`` with the config's residual fraction
+    x_r (the analyser's mass balance, :meth:`AnalysisSettings.trapped_mass`) and the
+    temperature follows from ``p V = m R(T) T`` of the charge; else the config's IVC
+    temperature is kept (the analyser's assumption), and the trapped mass follows the
+    pressure.  Returns the changes (dotted keys) and facts for the notes.
+    """
+    from .traces.analysis import _gas_tables, _mixture_temperature, with_measured_masses
+
+    p_meas, p_sd = measured_ivc_pressure(data, row, float(case.valves.ivc_deg))
+    changes: dict = {}
+    if keep_config_pressure:
+        p_ivc, p_source = _current_value(case, "operating.ivc_pressure_bar"), "config"
+    else:
+        p_ivc, p_source = p_meas, "measured"
+        changes["operating.ivc_pressure_bar"] = round(p_ivc, 6)
+    info = {"p_ivc": p_ivc, "p_meas": p_meas, "p_source": p_source, "T_source": "config",
+            "p_sd": p_sd if p_source == "measured" and "operating.ivc_pressure_bar" not in keys else 0.0}
+    s = with_measured_masses(data.settings, data.meta)
+    m_tr = s.trapped_mass() if s.air_mass_kg is not None else None
+    if m_tr and "operating.ivc_temperature_K" not in keys:
+        V0 = float(np.interp(float(case.valves.ivc_deg), data.theta, data.volume_m3))
+        T = float(_mixture_temperature(_gas_tables(s), np.array([p_ivc * BAR]), np.array([V0]), m_tr,
+                                       np.array([float(s.residual_fraction)]))[0])
+        if math.isfinite(T) and T > 0:
+            changes["operating.ivc_temperature_K"] = round(T, 3)
+            info.update(T_source="masses", T=T, m_mg=m_tr * 1e6, xr=float(s.residual_fraction))
+    return changes, info
+
+
+def _fit_case(case: Case, data: MeasuredData, keys: Sequence[str], mode: str,
+              step_deg=None, nuisance: Sequence[str] = ()) -> tuple[Case, list, list]:
+    """The template case of a fit: mode, output grid, IVC state from the measurement.
+
+    Returns the case, notes and warnings.
+    """
+    notes: list[str] = []
+    warns: list[str] = []
     changes: dict[str, Any] = {}
     if mode not in ("closed", "full"):
         raise ConfigError(f"fit: mode = {mode!r}: choose closed or full")
@@ -484,17 +652,54 @@ def _fit_case(case: Case, data: MeasuredData, keys: Sequence[str], mode: str, st
     if step_deg is not None:
         changes["simulation.step_deg"] = float(step_deg)
     if mode == "closed":
-        p_ivc = float(np.interp(float(case.valves.ivc_deg), data.theta, data.pressure_bar[0]))
-        if "operating.ivc_pressure_bar" in keys or was_full:
-            changes["operating.ivc_pressure_bar"] = round(p_ivc, 6)
-            if "operating.ivc_pressure_bar" not in keys:
-                notes.append(f"closed-cycle start: IVC pressure {p_ivc:.4f} bar from the pegged measurement")
-        if was_full:
-            for k in ("operating.ivc_temperature_K", "operating.residual_fraction"):
-                if k not in keys:
-                    notes.append(f"closed-cycle start: {k} = {_current_value(case, k):g} from the config"
-                                 f" (not fitted)")
-    return case_with(case, changes), notes
+        # The closed cycle starts from the measured (pegged) pressure at IVC, whatever the config
+        # states: a configured IVC pressure that differs from the measured one offsets the whole
+        # compression and combustion pressure, and the fit would bend the model parameters to
+        # absorb it (see _ivc_state for the temperature).
+        ch, info = _ivc_state(case, data, 0, keys, _keeps_config_pressure(keys, nuisance, not was_full))
+        changes.update(ch)
+        p_ivc = info["p_ivc"]
+        p_cfg = None if was_full else _current_value(case, "operating.ivc_pressure_bar")
+        T_cfg = _current_value(case, "operating.ivc_temperature_K")
+        xr = _current_value(case, "operating.residual_fraction")
+        rows = " (row 0; each record starts from its own)" if data.pressure_bar.shape[0] > 1 else ""
+        if "operating.ivc_pressure_bar" not in keys and info["p_source"] == "config":
+            p_m = info["p_meas"]
+            notes.append(f"closed-cycle start: IVC pressure {p_ivc:.4g} bar from the config, not the measured"
+                         f" {p_m:.4f} bar: the measurement terms"
+                         f" {', '.join(t for t in nuisance if t in LEVEL_TERMS)} declare the measured"
+                         f" pressure level uncertain")
+            if abs(p_m - p_ivc) > IVC_PRESSURE_NOTE_REL * p_ivc:
+                warns.append(
+                    f"the config's IVC pressure {p_ivc:.4g} bar differs from the measured {p_m:.4g} bar by"
+                    f" {100 * (p_m / p_ivc - 1):+.1f} %, more than a pressure offset explains: fit"
+                    f" operating.ivc_pressure_bar with the measurement terms")
+        elif "operating.ivc_pressure_bar" not in keys:
+            msg = f"closed-cycle start: IVC pressure {p_ivc:.4f} bar from the pegged measurement{rows}"
+            if p_cfg is not None and abs(p_ivc - p_cfg) > IVC_PRESSURE_NOTE_REL * p_cfg:
+                msg += f" (the config states {p_cfg:.4g} bar, {100 * (p_ivc / p_cfg - 1):+.1f} %)"
+            notes.append(msg)
+        if info["T_source"] == "masses":
+            notes.append(f"closed-cycle start: IVC temperature {info['T']:.1f} K from the IVC pressure and"
+                         f" the trapped mass {info['m_mg']:.1f} mg (air + fuel per cycle from the trace"
+                         f" metadata, residual fraction {info['xr']:g} from the config; config's"
+                         f" temperature {T_cfg:g} K not used)")
+        elif "operating.ivc_temperature_K" not in keys:
+            notes.append(f"closed-cycle start: IVC temperature {T_cfg:g} K and residual fraction {xr:g} from"
+                         f" the config (assumed; no air and fuel mass in the trace metadata), the trapped"
+                         f" mass follows the measured pressure")
+            if info["p_source"] == "measured" and p_cfg is not None \
+                    and abs(p_ivc - p_cfg) > IVC_PRESSURE_NOTE_REL * p_cfg:
+                warns.append(
+                    f"the config's IVC pressure {p_cfg:.4g} bar differs from the measured {p_ivc:.4g} bar by"
+                    f" {100 * (p_ivc / p_cfg - 1):+.1f} %: its IVC temperature {T_cfg:g} K may be off as"
+                    f" well, and an IVC temperature error biases the heat-transfer and burn values; give"
+                    f" the air and fuel mass per cycle in the trace metadata, or fit"
+                    f" operating.ivc_temperature_K")
+        if was_full and "operating.residual_fraction" not in keys:
+            notes.append(f"closed-cycle start: operating.residual_fraction = {xr:g} from the config"
+                         f" (not fitted)")
+    return case_with(case, changes), notes, warns
 
 
 # --------------------------------------------------------------------------
@@ -694,6 +899,19 @@ def _hac(J: np.ndarray, r: np.ndarray, segments: Sequence[int]):
     return S, n_eff, L_used
 
 
+def _clip_interval(low, high, lo, hi):
+    """Confidence limits clipped to the allowed range [lo, hi]; and which were clipped.
+
+    A symmetric interval that crosses a bound (a multiplier below 0) states values the
+    parameter cannot take; it is cut at the bound (the interval then no longer has its
+    nominal coverage, which the bound warning says).
+    """
+    low, high = np.asarray(low, float), np.asarray(high, float)
+    lo, hi = np.asarray(lo, float), np.asarray(hi, float)
+    clipped = (low < lo) | (high > hi)
+    return np.maximum(low, lo), np.minimum(high, hi), clipped
+
+
 def _statistics(J: np.ndarray, r: np.ndarray, x: np.ndarray, lo, hi, names, segments, level: float,
                 covariance: str, n_nuisance: int = 0, systematic=()) -> dict:
     """Covariance, intervals and identifiability of a solution.
@@ -764,11 +982,17 @@ def _statistics(J: np.ndarray, r: np.ndarray, x: np.ndarray, lo, hi, names, segm
         warnings.append(
             f"J^T J is singular or nearly so (condition number of the scaled Jacobian {cond:.3g}):"
             f" some combination of {', '.join(names)} is not determined by the data")
+    # identifiability is a property of the data (the statistical part): a systematic term common to
+    # all parameters (TDC phasing, IVC pressure) correlates their errors without making them inseparable
+    sd_st = np.sqrt(np.maximum(np.diag(C_stat), 0.0))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        corr_st = C_stat / np.outer(sd_st, sd_st)
+    corr_st = np.where(np.isfinite(corr_st), corr_st, 0.0)
     for i in range(p):
         for j in range(i + 1, p):
-            if abs(corr[i, j]) > CORRELATION_LIMIT:
+            if abs(corr_st[i, j]) > CORRELATION_LIMIT:
                 warnings.append(
-                    f"{names[i]} and {names[j]}: correlation {corr[i, j]:+.3f} (|r| > {CORRELATION_LIMIT}):"
+                    f"{names[i]} and {names[j]}: correlation {corr_st[i, j]:+.3f} (|r| > {CORRELATION_LIMIT}):"
                     f" the data cannot tell them apart; fix one of them or add data that separates them")
     if n_eff and n_eff < RESIDUAL_CORRELATION_LIMIT * n:
         warnings.append(
@@ -780,10 +1004,11 @@ def _statistics(J: np.ndarray, r: np.ndarray, x: np.ndarray, lo, hi, names, segm
     for j, nm in enumerate(names):
         if x[j] <= lo[j] + eps[j] or x[j] >= hi[j] - eps[j]:
             warnings.append(f"{nm} = {x[j]:g} lies at its bound [{lo[j]:g}, {hi[j]:g}]: its interval is not reliable")
+    ci_low, ci_high, clipped = _clip_interval(x - tq * sd, x + tq * sd, lo, hi)
     return {
         "covariance": C, "covariance_classical": C_classic, "covariance_hac": C_hac,
         "covariance_systematic": C_sys,
-        "stderr": sd, "correlation": corr, "ci_low": x - tq * sd, "ci_high": x + tq * sd,
+        "stderr": sd, "correlation": corr, "ci_low": ci_low, "ci_high": ci_high, "ci_clipped": clipped,
         "t_quantile": tq, "dof": float(dof_t), "s2": s2, "rms": rms, "n": n, "n_eff": n_eff,
         "hac_lag": L, "condition_number": cond, "sensitivity": sens, "warnings": warnings,
         "stderr_systematic": np.sqrt(np.maximum(np.diag(C_sys), 0.0)),
@@ -876,6 +1101,13 @@ class FitResult:
     cycles: list = field(default_factory=list)
     stats: dict = field(default_factory=dict)
     summary: dict = field(default_factory=dict)
+    ci_clipped: np.ndarray = None
+
+    def clipped(self) -> np.ndarray:
+        """Which intervals were cut at a bound of their parameter (bool array (p,))."""
+        if self.ci_clipped is None:
+            return np.zeros(len(self.params), bool)
+        return np.asarray(self.ci_clipped, bool)
 
     def value(self, key: str) -> float:
         return float(self.values[self.params.index(key)])
@@ -893,16 +1125,19 @@ class FitResult:
         w = max(len(p) for p in self.params)
         lines.append(f"  {'parameter':<{w}s} {'start':>11s} {'fitted':>11s} {'std err':>10s}"
                      f" {'interval':>25s}")
+        cl = self.clipped()
         for j, p in enumerate(self.params):
             lines.append(f"  {p:<{w}s} {self.initial[j]:11.5g} {self.values[j]:11.5g} {self.stderr[j]:10.3g}"
-                         f"   [{self.ci_low[j]:10.5g}, {self.ci_high[j]:10.5g}]")
+                         f"   [{self.ci_low[j]:10.5g}, {self.ci_high[j]:10.5g}]" + (" *" if cl[j] else ""))
+        if cl.any():
+            lines.append("  * interval clipped to the parameter's allowed range [lower, upper bound]")
         if len(self.params) > 1:
             lines.append("  correlation matrix:")
             for j, p in enumerate(self.params):
                 lines.append(f"    {p:<{w}s} " + " ".join(f"{c:+6.3f}" for c in self.correlation[j]))
         sys_sd = self.stats.get("stderr_systematic")
         if sys_sd is not None and np.any(np.asarray(sys_sd) > 0):
-            lines.append("  of which systematic (TDC phasing) std err: "
+            lines.append("  of which systematic (TDC phasing, IVC pressure estimate) std err: "
                          + ", ".join(f"{p} {v:.3g}" for p, v in zip(self.params, sys_sd)))
         if self.stats.get("nuisance"):
             lines.append("  measurement terms estimated: "
@@ -925,6 +1160,9 @@ class FitResult:
             "stderr": arr(self.stderr),
             "interval_low": arr(self.ci_low),
             "interval_high": arr(self.ci_high),
+            "interval_clipped": [bool(c) for c in self.clipped()],
+            "interval_note": "intervals are cut at the parameters' bounds where they cross one"
+                             " (interval_clipped true)",
             "level": self.level,
             "lower_bounds": arr(self.lower),
             "upper_bounds": arr(self.upper),
@@ -1068,6 +1306,7 @@ def write_calibration(res: FitResult, out, extends: str | None = None) -> list[P
         "# Covariance, intervals and correlations of the fitted values: calibration.json (this folder).",
         f"# Fitted ({100 * res.level:.0f} % intervals): "
         + "; ".join(f"{p} = {res.values[j]:.6g} [{res.ci_low[j]:.6g}, {res.ci_high[j]:.6g}]"
+                    + (" (clipped at a bound)" if res.clipped()[j] else "")
                     for j, p in enumerate(res.params)),
     ]
     yml = out / "calibrated.yaml"
@@ -1169,7 +1408,7 @@ def _problem_result(pb: _Problem, stt: dict, base_case: Case, source, mode, targ
         warnings=list(stt["warnings"]), notes=list(notes),
         stats={**{k: stt[k] for k in ("s2", "n_eff", "hac_lag", "condition_number", "t_quantile",
                                       "stderr_systematic")}, "nuisance": nuis},
-        summary=dict(res.summary),
+        summary=dict(res.summary), ci_clipped=np.asarray(stt["ci_clipped"], bool),
     )
 
 
@@ -1206,6 +1445,39 @@ def _systematic_terms(pb: _Problem, tdc_sd_deg: float) -> list:
     if not tdc_sd_deg or tdc_sd_deg <= 0:
         return []
     return [(float(tdc_sd_deg), _tdc_direction(pb, max(float(tdc_sd_deg), 0.05)))]
+
+
+def _ivc_directions(problems: Sequence[_Problem], sds: Sequence) -> list:
+    """Change of each point's residual per bar of IVC pressure at the solution.
+
+    One case per point with a nonzero ``sd`` (its IVC pressure raised by
+    ``max(sd, 1e-3)`` bar), all in one batch; returns, per problem, a list of
+    vectors (None where no sd was given or the case failed).  The IVC pressure
+    estimated from the measurement is uncertain by ``sd`` [bar]; its effect on the
+    parameters joins the covariance as a type-B term (see :func:`_statistics`).
+    """
+    from .api import simulate
+
+    out = [[None] * len(pb.points) for pb in problems]
+    plan, cases = [], []
+    for i, (pb, sd) in enumerate(zip(problems, sds)):
+        sd_list = sd if isinstance(sd, (list, tuple)) else [sd] * len(pb.points)
+        for ip, (pt, s_i) in enumerate(zip(pb.points, sd_list)):
+            if not s_i or s_i <= 0:
+                continue
+            h = max(float(s_i), 1e-3)
+            ch = {k: float(pb.x[j]) for k, j in zip(pt.keys, pt.idx)}
+            ch["operating.ivc_pressure_bar"] = float(pt.case.operating.ivc_pressure_bar) + h
+            plan.append((i, ip, h))
+            cases.append(case_with(pt.case, ch))
+    if not cases:
+        return out
+    for (i, ip, h), res in zip(plan, simulate(cases)):
+        pt = problems[i].points[ip]
+        r1, r0 = pt.residual(res), pt.residual(problems[i].bases[ip])
+        if r1 is not None and r0 is not None:
+            out[i][ip] = (r1 - r0) / h
+    return out
 
 
 def _tdc_sd(data: MeasuredData, tdc_sd_deg, notes: list) -> float:
@@ -1251,13 +1523,22 @@ def fit(case, traces, params: Sequence[str], *, mode: str = "closed", weights=No
         Measured cycles (csv, npz or mf4 through :func:`read_trace`); several
         files of one operating point are joined.
     params : sequence of str
-        Dotted keys to fit, e.g. ``burn.ignition_delay_deg``, ``burn.duration_deg``,
+        Dotted keys of model parameters (:data:`CALIBRATION_RULE`; operating
+        conditions are refused), e.g. ``burn.ignition_delay_deg``, ``burn.duration_deg``,
         ``burn.m``, ``burn.ca50_deg``, ``heat_transfer.multiplier``,
         ``engine.compression_ratio``, ``blowby.effective_area_mm2`` and in
         closed mode ``operating.ivc_pressure_bar``, ``operating.ivc_temperature_K``,
         ``operating.residual_fraction``.
     mode : {"closed", "full"}
         Simulate IVC..EVO from a given IVC state (fast), or the full cycle.
+        The closed cycle starts from the measured IVC pressure (a fit of the
+        early compression; its uncertainty joins the intervals) and, when the
+        trace metadata holds the air and fuel mass per cycle, the IVC
+        temperature of that trapped mass; else the config's IVC temperature
+        (said in the notes; a warning when the config's IVC pressure is more
+        than 3 % off the measured one).  With the ``offset`` or ``thermal``
+        measurement term the measured level is uncertain: then the config's
+        IVC pressure is kept unless ``operating.ivc_pressure_bar`` is fitted.
     weights : mapping of (lo, hi) -> weight, optional
         Weights of the squared residual per crank-angle region [deg -> -]
         (later entries win where regions overlap; default 1).
@@ -1307,9 +1588,8 @@ def fit(case, traces, params: Sequence[str], *, mode: str = "closed", weights=No
         raise ConfigError("fit: give at least one parameter to fit")
     if target not in ("pressure", "heat_release", "both"):
         raise ConfigError(f"fit: target = {target!r}: choose pressure, heat_release or both")
-    if mode == "full" and any(k in TRAPPED_STATE_KEYS for k in params):
-        raise ConfigError("fit: the IVC state (operating.ivc_*, residual_fraction) is a closed-mode parameter;"
-                          " in full mode the gas exchange sets it")
+    for k in params:
+        check_calibratable(base_case, k, mode)
     data, case0 = measured_data(base_case, traces, ensemble=ensemble, peg=peg, tdc_correct=tdc_correct,
                                 tdc_offset_deg=tdc_offset_deg, motored=motored,
                                 use_trace_operating=use_trace_operating)
@@ -1318,7 +1598,7 @@ def fit(case, traces, params: Sequence[str], *, mode: str = "closed", weights=No
         notes.append(f"TDC offset {data.analysis.tdc['offset_deg']:+.3f} deg corrected ({data.analysis.tdc['method']})")
     notes.append(f"{len(data.cycles[0]) if ensemble == 'mean' else len(data.cycles)} fired cycles"
                  f" ({'mean' if ensemble == 'mean' else 'each fitted'})")
-    tmpl, n2 = _fit_case(case0, data, params, mode, step_deg)
+    tmpl, n2, case_warnings = _fit_case(case0, data, params, mode, step_deg, nuisance)
     notes += n2
     sd_tdc = _tdc_sd(data, tdc_sd_deg, notes)
     lo = np.empty(len(params))
@@ -1331,24 +1611,45 @@ def fit(case, traces, params: Sequence[str], *, mode: str = "closed", weights=No
     x0 = np.clip(x0, lo, hi)
     typ = np.maximum(np.abs(x0), 1e-2 * np.where(np.isfinite(hi - lo), hi - lo, 1.0))
     typ = np.where(typ > 0, typ, 1.0)
-    problems = []
+    problems, ivc_sds = [], []
     for row in range(data.pressure_bar.shape[0]):
-        pt = _make_point(tmpl, data, row, params, np.arange(len(params)), mode=mode, target=target,
+        rc, xr0 = tmpl, x0.copy()
+        if mode == "closed":
+            # each record starts from its own measured IVC state
+            ch, info = _ivc_state(tmpl, data, row, params,
+                                  _keeps_config_pressure(params, nuisance, case0.simulation.mode == "closed"))
+            ivc_sds.append(info["p_sd"])
+            if row > 0:
+                rc = case_with(tmpl, ch)
+        else:
+            ivc_sds.append(0.0)
+        if row > 0 and mode == "closed":
+            for j, k in enumerate(params):
+                if k in ch and not (start and k in start):
+                    xr0[j] = float(np.clip(ch[k], lo[j], hi[j]))
+        pt = _make_point(rc, data, row, params, np.arange(len(params)), mode=mode, target=target,
                          weights=weights, window=window, nuisance=nuisance, thermal_tau_s=thermal_tau_s)
-        problems.append(_Problem([pt], list(params), x0.copy(), lo, hi, typ))
+        problems.append(_Problem([pt], list(params), xr0, lo, hi, typ))
     nsim = _solve(problems, max_iter=max_iter, fd_rel=fd_rel, progress=progress)
+    if any(ivc_sds):
+        row0 = ", row 0" if len(ivc_sds) > 1 else ""
+        notes.append(f"IVC pressure estimate's uncertainty {ivc_sds[0]:.2g} bar (1 sd{row0})"
+                     f" included in the intervals")
+    v_ivc = _ivc_directions(problems, ivc_sds)
     results = []
-    for pb in problems:
+    for pb, sd_p, v_p in zip(problems, ivc_sds, v_ivc):
+        sys_terms = _systematic_terms(pb, sd_tdc) + ([(sd_p, v_p[0])] if sd_p > 0 and v_p[0] is not None else [])
         stt = _statistics(pb.J, pb.r, pb.x, lo, hi, params, _segments(pb), level, covariance,
-                          n_nuisance=len(pb.points[0].nuisance), systematic=_systematic_terms(pb, sd_tdc))
+                          n_nuisance=len(pb.points[0].nuisance), systematic=sys_terms)
         results.append(_problem_result(pb, stt, base_case, source, mode, target, level, covariance, nsim,
                                        notes, x0))
     if ensemble == "mean":
         out = results[0]
     else:
         out = _combine_cycles(results, level)
-    for w in out.warnings:
-        print(f"cyclesim fit: WARNING: {w}")
+    # the warnings are in out.warnings and out.text(); they are not printed here (the command line
+    # prints the text once)
+    out.warnings = list(case_warnings) + [w for w in out.warnings if w not in case_warnings]
     return out
 
 
@@ -1387,7 +1688,8 @@ def _combine_cycles(results: list[FitResult], level: float) -> FitResult:
                 warns.append(tag)
     cal = case_with(first.case, {p: float(mean[j]) for j, p in enumerate(first.params)})
     out = copy.copy(first)
-    out.values, out.stderr, out.ci_low, out.ci_high = mean, sd, mean - tq * sd, mean + tq * sd
+    c_lo, c_hi, c_cl = _clip_interval(mean - tq * sd, mean + tq * sd, first.lower, first.upper)
+    out.values, out.stderr, out.ci_low, out.ci_high, out.ci_clipped = mean, sd, c_lo, c_hi, c_cl
     out.covariance, out.correlation, out.dof = C, corr, (dof_c if k > 1 else first.dof)
     out.covariance_kind = ("spread of the per-cycle fits / number of cycles"
                            + (" + systematic (TDC phasing)" if k > 1 and np.any(sd_sys > 0) else ""))
@@ -1434,14 +1736,18 @@ class PointsFit:
     per_point: list
     warnings: list = field(default_factory=list)
     level: float = 0.95
+    ci_clipped: np.ndarray = None
 
     def text(self) -> str:
         lines = [f"joint fit of {len(self.points)} operating points: shared {', '.join(self.shared) or '-'};"
                  f" per point {', '.join(self.per_point) or '-'}"]
         w = max(len(n) for n in self.names)
+        cl = np.zeros(len(self.names), bool) if self.ci_clipped is None else np.asarray(self.ci_clipped, bool)
         for j, n in enumerate(self.names):
             lines.append(f"  {n:<{w}s} {self.values[j]:11.5g} +- {self.stderr[j]:.3g}"
-                         f"  [{self.ci_low[j]:.5g}, {self.ci_high[j]:.5g}]")
+                         f"  [{self.ci_low[j]:.5g}, {self.ci_high[j]:.5g}]" + (" *" if cl[j] else ""))
+        if cl.any():
+            lines.append("  * interval clipped to the parameter's allowed range")
         for m in self.warnings:
             lines.append(f"  WARNING: {m}")
         return "\n".join(lines)
@@ -1487,7 +1793,11 @@ def fit_points(cases: Sequence, traces_list: Sequence, shared: Sequence[str] = (
     keys = shared + per_point
     ns, nq, P = len(shared), len(per_point), len(cases)
     names = list(shared) + [f"{k}@{i}" for i in range(P) for k in per_point]
-    pts, bases, srcs, notes_all, sds_tdc = [], [], [], [], []
+    for c in cases:
+        bc0 = _resolve_case(c)[0]
+        for k in keys:
+            check_calibratable(bc0, k, mode)
+    pts, bases, srcs, notes_all, sds_tdc, case_warnings, ivc_sds_pts = [], [], [], [], [], [], []
     xs = np.zeros(ns + P * nq)
     lo = np.zeros_like(xs)
     hi = np.zeros_like(xs)
@@ -1495,7 +1805,10 @@ def fit_points(cases: Sequence, traces_list: Sequence, shared: Sequence[str] = (
         bc, src = _resolve_case(c)
         data, c0 = measured_data(bc, t, ensemble="mean", peg=peg, tdc_correct=tdc_correct,
                                  tdc_offset_deg=tdc_offset_deg, use_trace_operating=use_trace_operating)
-        tmpl, notes = _fit_case(c0, data, keys, mode, step_deg)
+        tmpl, notes, w_case = _fit_case(c0, data, keys, mode, step_deg, nuisance)
+        ivc_sds_pts.append(_ivc_state(tmpl, data, 0, keys, _keeps_config_pressure(
+            keys, nuisance, c0.simulation.mode == "closed"))[1]["p_sd"] if mode == "closed" else 0.0)
+        case_warnings += [f"point {i}: {w}" for w in w_case]
         idx = list(range(ns)) + [ns + i * nq + q for q in range(nq)]
         for k, j in zip(keys, idx):
             l, h = param_bounds(tmpl, k)
@@ -1529,12 +1842,24 @@ def fit_points(cases: Sequence, traces_list: Sequence, shared: Sequence[str] = (
                 v[o:o + m] = v_all[o:o + m]
                 systematic.append((sd_i, v))
             o += m
+    if any(ivc_sds_pts):
+        segs, o = [], 0
+        for pt in pts:
+            m = pt.theta.size if pt.target == "pressure" else (
+                int(pt.hr_mask.sum()) if pt.target == "heat_release" else pt.theta.size + int(pt.hr_mask.sum()))
+            segs.append((o, m))
+            o += m
+        for (o, m), sd_i, v_i in zip(segs, ivc_sds_pts, _ivc_directions([pb], [list(ivc_sds_pts)])[0]):
+            if sd_i > 0 and v_i is not None:
+                v = np.zeros(sum(mm for _, mm in segs))
+                v[o:o + m] = v_i
+                systematic.append((sd_i, v))
     stt = _statistics(pb.J, pb.r, pb.x, lo, hi, names, _segments(pb), level, covariance,
                       n_nuisance=sum(len(pt.nuisance) for pt in pts), systematic=systematic)
     point_results = []
     for i, pt in enumerate(pts):
         idx = pt.idx
-        sub = {k: stt[k][idx] for k in ("stderr", "ci_low", "ci_high")}
+        sub = {k: stt[k][idx] for k in ("stderr", "ci_low", "ci_high", "ci_clipped")}
         C = stt["covariance"][np.ix_(idx, idx)]
         sd = np.sqrt(np.maximum(np.diag(C), 0))
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -1552,10 +1877,9 @@ def fit_points(cases: Sequence, traces_list: Sequence, shared: Sequence[str] = (
                    warnings=[w for w in stt["warnings"]])
         point_results.append(_problem_result(one, st1, bases[i], srcs[i], mode, target, level, covariance,
                                              nsim, notes_all[i], np.asarray(xs)[idx]))
-    for w in stt["warnings"]:
-        print(f"cyclesim fit: WARNING: {w}")
     return PointsFit(names, pb.x.copy(), stt["stderr"], stt["ci_low"], stt["ci_high"], stt["covariance"],
-                     stt["correlation"], point_results, shared, per_point, list(stt["warnings"]), level)
+                     stt["correlation"], point_results, shared, per_point,
+                     case_warnings + list(stt["warnings"]), level, stt["ci_clipped"])
 
 
 # --------------------------------------------------------------------------

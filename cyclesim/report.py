@@ -184,27 +184,171 @@ def report_for_run(result, plots: bool = True) -> list[dict]:
 # --------------------------------------------------------------------------
 
 
-def _csv_table(path: Path) -> dict:
+def _csv_comments_and_rows(path: Path) -> tuple[list[str], list[list[str]]]:
+    """Comment lines (``#`` at the start, text after it) and the CSV rows of the rest."""
+    comments, body = [], []
     with open(path, newline="", encoding="utf-8") as fh:
-        rows = list(csv.reader(fh))
+        for line in fh:
+            if line.lstrip().startswith("#"):
+                c = line.strip().lstrip("#").strip()
+                comments.append(c if len(c) <= 400 else c[:400] + " ...")
+            else:
+                body.append(line)
+    return comments, [r for r in csv.reader(body) if r]
+
+
+def _num(x: str):
+    if re.fullmatch(r"[+-]?\d+", x.strip()):
+        return int(x)
+    try:
+        return float(x) if x.strip() else None
+    except ValueError:
+        return x
+
+
+def _csv_table(path: Path) -> dict:
+    """A CSV file as a table; ``#`` comment lines are skipped (see :func:`_csv_section`)."""
+    _, rows = _csv_comments_and_rows(path)
     if not rows:
         return {"columns": [], "rows": []}
+    return {"columns": rows[0], "rows": [[_num(c) for c in r] for r in rows[1:]]}
 
-    def num(x):
-        if re.fullmatch(r"[+-]?\d+", x.strip()):
-            return int(x)
-        try:
-            return float(x) if x.strip() else None
-        except ValueError:
-            return x
 
-    return {"columns": rows[0], "rows": [[num(c) for c in r] for r in rows[1:]]}
+def _csv_section(path: Path) -> dict:
+    """A CSV file as a section: its comment lines as text, and the table.
+
+    A crank-angle resolved file (``crank_deg`` among its first two columns) longer
+    than :data:`MAX_TABLE_ROWS` is only described: its plots show it.
+    """
+    comments, rows = _csv_comments_and_rows(path)
+    sec: dict = {"heading": path.name}
+    if comments:
+        sec["text"] = comments
+    if not rows:
+        sec.setdefault("text", []).append("empty file")
+        return sec
+    head = rows[0]
+    if "crank_deg" in head[:2] and len(rows) - 1 > MAX_TABLE_ROWS:
+        sec["text"] = list(comments) + [
+            f"crank-angle resolved data, {len(rows) - 1} rows x {len(head)} columns ({', '.join(head[:6])}"
+            + (", ..." if len(head) > 6 else "") + "): see the file (and the plots below)"]
+        return sec
+    sec["table"] = {"columns": head, "rows": [[_num(c) for c in r] for r in rows[1:]]}
+    return sec
+
+
+_SKIP_KEYS = ("caution", "general_caution", "files")
+_TEXT_KEYS = ("notes", "warnings", "messages")
+_INLINE_HINTS = ("window", "quantile", "validity", "range", "band", "angles", "order", "coef")
+"""Lists whose name holds one of these are shown in one cell (a range or a sequence, not columns)."""
+_INLINE_MAX = 12
+
+
+def _scalar(v) -> bool:
+    return v is None or isinstance(v, (str, int, float, bool))
+
+
+def _cell(v):
+    if _scalar(v):
+        return v
+    return json.dumps(v, separators=(", ", ": "))[:200]
+
+
+def _inline(v: list) -> str:
+    shown = ", ".join(_fmt(x) for x in v[:_INLINE_MAX])
+    return f"[{shown}" + (f", ... ({len(v)} values)]" if len(v) > _INLINE_MAX else "]")
+
+
+def _dict_sections(d: dict, title: str, depth: int = 0) -> list[dict]:
+    """Sections of one JSON object: scalars, parallel lists and matrices, list of rows, nested objects.
+
+    * scalars (and short or range-like lists) form an item/value table;
+    * lists of numbers or strings of equal length (two or more) form one table, one row
+      per element, a list of strings (e.g. ``parameters``) as the first column;
+    * a list of equal-length lists is a matrix, labelled by a list of strings of its size;
+    * a list of objects is a table of rows;
+    * nested objects follow under their own heading; ``notes``/``warnings`` as text.
+    """
+    items = {k: v for k, v in d.items() if k not in _SKIP_KEYS}
+    scal, text, groups, mats, row_lists, nested = [], [], {}, [], [], []
+    for k, v in items.items():
+        if _scalar(v):
+            scal.append([k, v])
+        elif isinstance(v, dict):
+            if v:
+                nested.append((k, v))
+        elif isinstance(v, list):
+            if not v:
+                continue
+            if k in _TEXT_KEYS and all(_scalar(x) for x in v):
+                text.append((k, v))
+            elif all(_scalar(x) for x in v):
+                if any(h in k for h in _INLINE_HINTS):
+                    scal.append([k, _inline(v)])
+                else:
+                    groups.setdefault(len(v), []).append(k)
+            elif all(isinstance(x, dict) for x in v):
+                row_lists.append((k, v))
+            elif all(isinstance(x, list) and all(_scalar(y) for y in x) for x in v):
+                mats.append(k)
+            else:
+                scal.append([k, _cell(v)])
+    labels = {}          # length -> key of a list of strings of that length
+    for n, keys in groups.items():
+        strs = [k for k in keys if all(isinstance(x, str) for x in items[k])]
+        if strs:
+            labels[n] = "parameters" if "parameters" in strs else strs[0]
+    tables = []
+    for n, keys in groups.items():
+        if len(keys) < 2:
+            k = keys[0]
+            if n in labels and labels[n] == k and any(len(items[m]) == n for m in mats):
+                continue          # the labels of a matrix
+            scal.append([k, _inline(items[k])])
+            continue
+        lab = labels.get(n)
+        cols = ([lab] if lab else []) + [k for k in keys if k != lab]
+        tables.append({"heading": f"{title}: " + ", ".join(cols[:4]) + (", ..." if len(cols) > 4 else ""),
+                       "table": {"columns": cols, "rows": [[items[c][i] for c in cols] for i in range(n)]}})
+    for k, v in row_lists:
+        cols: list = []
+        for r in v:
+            for c in r:
+                if c not in cols:
+                    cols.append(c)
+        tables.append({"heading": f"{title}: {k}",
+                       "table": {"columns": cols, "rows": [[_cell(r.get(c)) for c in cols] for r in v]}})
+    for k in mats:
+        m = items[k]
+        widths = {len(r) for r in m}
+        lab = labels.get(len(m))
+        w = widths.pop() if len(widths) == 1 else None
+        if lab and w == len(m):            # a labelled square matrix (correlation, covariance)
+            cols = [""] + list(items[lab])
+            rows = [[items[lab][i]] + list(r) for i, r in enumerate(m)]
+        elif w is not None and labels.get(w):     # rows of values of the labelled items (samples)
+            cols, rows = list(items[labels[w]]), [list(r) for r in m]
+        else:
+            cols = [str(j + 1) for j in range(max(len(r) for r in m))]
+            rows = [list(r) for r in m]
+        tables.append({"heading": f"{title}: {k}", "table": {"columns": cols, "rows": rows}})
+    secs = []
+    if scal:
+        secs.append({"heading": title, "table": {"columns": ["item", "value"], "rows": scal}})
+    secs += tables
+    for k, v in nested:
+        secs += _dict_sections(v, f"{title}: {k}", depth + 1)
+    for k, v in text:
+        secs.append({"heading": f"{title}: {k}", "text": [str(x) for x in v]})
+    return secs
 
 
 def _json_sections(path: Path) -> list[dict]:
     data = json.loads(path.read_text(encoding="utf-8"))
     secs = []
     if not isinstance(data, dict):
+        if isinstance(data, list) and data and all(isinstance(x, dict) for x in data):
+            return _dict_sections({"rows": data}, path.name)
         return secs
     if "summary" in data and isinstance(data["summary"], dict):  # a run's summary.json
         s = data["summary"]
@@ -216,17 +360,7 @@ def _json_sections(path: Path) -> list[dict]:
         if data.get("warnings"):
             secs.append({"heading": "Warnings", "text": data["warnings"]})
         return secs
-    scal = _scalar_rows(data, ("caution", "general_caution"))
-    if scal:
-        secs.append({"heading": f"{path.name}", "table": {"columns": ["item", "value"], "rows": scal}})
-    for k, v in data.items():
-        if isinstance(v, dict) and v and all(not isinstance(x, (dict, list)) for x in v.values()):
-            secs.append({"heading": f"{path.name}: {k}", "table": {"columns": ["item", "value"],
-                                                                  "rows": [[kk, vv] for kk, vv in v.items()]}})
-    for key in ("notes", "warnings"):
-        if isinstance(data.get(key), list) and data[key]:
-            secs.append({"heading": f"{path.name}: {key}", "text": [str(x) for x in data[key]]})
-    return secs
+    return _dict_sections(data, path.name)
 
 
 def report_for_study(folder) -> list[dict]:
@@ -246,7 +380,10 @@ def report_for_study(folder) -> list[dict]:
         if f.name == "trace.csv":
             secs.append({"heading": f.name, "text": "crank-angle trace: see the file (plotted below)"})
             continue
-        secs.append({"heading": f.name, "table": _csv_table(f)})
+        try:
+            secs.append(_csv_section(f))
+        except (ValueError, OSError, csv.Error) as exc:
+            secs.append({"heading": f.name, "text": f"could not read: {exc}"})
     pngs = sorted(folder.glob("*.png"))
     if pngs:
         secs.append({"heading": "Plots", "images": [(p.stem.replace("_", " "), p) for p in pngs]})

@@ -108,3 +108,52 @@ def test_cli_report_of_a_folder_and_of_a_config(run_result, tmp_path, capsys):
     assert "--force" in capsys.readouterr().err and (tmp_path / "a.html").read_bytes() == before
     assert main(["report", str(folder), "--out", str(tmp_path / "a.html"), "--title", "again", "--force"]) == 0
     assert "again" in (tmp_path / "a.html").read_text(encoding="utf-8")
+
+
+def test_fit_prediction_and_analysis_folders_show_their_results(tmp_path):
+    """The report of a calibration shows the fitted values, intervals and correlations; of an
+    analysis its statistics (a dict holding lists); of a prediction its rows; and a CSV's comment
+    lines are not taken for its header."""
+    import json
+
+    import numpy as np
+
+    from cyclesim.fit import fit
+    from cyclesim.studies.uncertainty import propagate
+    from cyclesim.traces.export import TraceSet
+
+    case = cyclesim.load_config("demo_closed", ["simulation.step_deg=1.0"])
+    r = cyclesim.simulate([cyclesim.config.case_with(case, {"burn.duration_deg": 45.0,
+                                                            "simulation.output_step_deg": 0.5})])[0]
+    p = r.trace["pressure_bar"] * 1e5 + np.random.default_rng(1).normal(0, 2e3, r.trace["pressure_bar"].size)
+    res = fit(case, TraceSet(r.trace["crank_deg"], p[None], None, 3000.0, {}),
+              ["burn.duration_deg", "heat_transfer.multiplier"], peg=None)
+    fdir = tmp_path / "f"
+    res.write(fdir, plots=False)
+    text = render_report("fit", report_for_study(fdir))
+    cal = json.loads((fdir / "calibration.json").read_text())
+    for v in (cal["values"][0], cal["interval_low"][0], cal["interval_high"][1], cal["correlation"][0][1]):
+        cell = f"{v:.2f}" if abs(v) >= 10 else f"{v:.4f}".rstrip("0").rstrip(".")
+        assert f">{cell}<" in text, cell
+    assert "interval_low" in text and "correlation" in text and "heat_transfer.multiplier" in text
+
+    pdir = tmp_path / "p"
+    propagate(case, str(fdir / "calibration.json"), vary="burn.spark_advance_deg=20,30", n_samples=4, seed=1,
+              out=pdir, plots=False)
+    secs = report_for_study(pdir)
+    tab = next(s["table"] for s in secs if s["heading"] == "prediction.csv")
+    assert tab["columns"][:2] == ["burn.spark_advance_deg", "imep_closed_bar"]      # not the comment
+    assert [row[0] for row in tab["rows"]] == [20, 30]
+    assert any(s["heading"] == "prediction.json: rows" for s in secs)
+    csv_sec = next(s for s in secs if s["heading"] == "prediction.csv")
+    assert any("prediction with uncertainty" in t for t in csv_sec["text"])
+
+    adir = tmp_path / "a"
+    adir.mkdir()
+    (adir / "analysis_summary.json").write_text(json.dumps({
+        "statistics": {"n_cycles": 3, "imep_net_bar_mean": 11.1749, "grid_s": [0.001, 0.002, 0.004],
+                       "rss_rel": [1.5, 1.0, 1.25], "cycles": [1, 2, 3]},
+        "settings": {"peg_window_deg": [-190.0, -170.0], "T_ivc_K": 340.0}}), encoding="utf-8")
+    text = render_report("analysis", report_for_study(adir))
+    assert "imep_net_bar_mean" in text and "11.17" in text and "rss_rel" in text and "1.25" in text
+    assert "T_ivc_K" in text and "[-190.00, -170.00]" in text

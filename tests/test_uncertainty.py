@@ -22,20 +22,70 @@ def _calibration(keys, values, sd, lower, upper):
 
 
 def test_sampling_follows_the_covariance_and_the_bounds():
+    from scipy import stats
+
     from cyclesim.studies.uncertainty import sample_parameters
 
     C = [[4.0, 1.2], [1.2, 1.0]]
     cal = {"parameters": ["a", "b"], "values": [10.0, 0.0], "covariance": C,
            "lower_bounds": [None, -1.0], "upper_bounds": [None, None]}
-    keys, X = sample_parameters(cal, 4000, seed=2)
-    assert keys == ["a", "b"]
-    assert X[:, 1].min() >= -1.0                      # clipped to the bound
-    # the unclipped column keeps mean and variance; sampling sd of the variance of n normal
-    # draws is sigma^2 sqrt(2/(n-1)) (chi-square), i.e. 2.2 % here: allow 4 sd
+    n = 4000
+    keys, X = sample_parameters(cal, n, seed=2)
+    assert keys == ["a", "b"] and X.shape == (n, 2)
+    assert X[:, 1].min() >= -1.0                      # the bound is respected
+    # no probability piled up on the bound: clipping would put Phi(-1) = 16 % of the draws there
+    assert np.mean(X[:, 1] == -1.0) == 0.0
+    # the draws follow the normal truncated to b >= -1 (rejection): its moments from scipy's
+    # truncated normal (Johnson, Kotz & Balakrishnan 1994, vol. 1, sec. 13.10, from memory);
+    # clipping instead gives E[max(b, -1)] = 0.083, far outside the tolerance.  Sampling sd of
+    # a mean of n draws: sd / sqrt(n); allow 4 of those
+    tn = stats.truncnorm(-1.0, np.inf)
+    assert np.mean(X[:, 1]) == pytest.approx(tn.mean(), abs=4 * tn.std() / math.sqrt(n))
+    assert np.var(X[:, 1], ddof=1) == pytest.approx(tn.var(), rel=4 * math.sqrt(2 / (n - 1)) * 1.5)
+    # a is correlated with b: E[a | b > -1] = 10 + (C_ab / C_bb) E[b | b > -1] (linear regression of a
+    # bivariate normal, common practice); its conditional sd sqrt(4 - 1.2^2) = 1.6
+    assert np.mean(X[:, 0]) == pytest.approx(10.0 + 1.2 * tn.mean(), abs=4 * 2.0 / math.sqrt(n))
+    # the same seed gives the same samples
+    assert np.array_equal(sample_parameters(cal, n, seed=2)[1], X)
+
+
+def test_sampling_without_active_bounds_keeps_mean_and_variance():
+    from cyclesim.studies.uncertainty import sample_parameters
+
+    cal = {"parameters": ["a"], "values": [10.0], "covariance": [[4.0]],
+           "lower_bounds": [-100.0], "upper_bounds": [None]}
+    info = {}
+    _, X = sample_parameters(cal, 4000, seed=3, info=info)
+    # the bound lies 55 sd away: nothing is rejected, and the normal's moments are kept
+    # (sampling sd of the variance of n normal draws sigma^2 sqrt(2/(n-1)), chi-square; allow 4)
+    assert info["acceptance"] == 1.0 and info["reflected"] == 0
     assert np.mean(X[:, 0]) == pytest.approx(10.0, abs=4 * 2.0 / math.sqrt(4000))
     assert np.var(X[:, 0], ddof=1) == pytest.approx(4.0, rel=4 * math.sqrt(2 / 3999))
-    # the same seed gives the same samples
-    assert np.array_equal(sample_parameters(cal, 4000, seed=2)[1], X)
+
+
+def test_a_parameter_at_its_bound_is_stated_and_a_free_one_keeps_the_nominal_in_its_band():
+    from cyclesim.studies.uncertainty import propagate
+
+    case = load_config("demo_closed", ["simulation.step_deg=1.0"])
+    # the heat-transfer multiplier fitted at its lower bound 0 with a standard error of 0.4 (the
+    # situation of a calibration that stopped at the bound): every sample lies above it, and
+    # more wall heat lowers IMEP (common practice), so the nominal lies at or above the top of
+    # the band; the result must say why
+    at_bound = _calibration(["heat_transfer.multiplier"], [0.0], [0.4], [0.0], [10.0])
+    res = propagate(case, at_bound, vary="burn.spark_advance_deg=20,30", n_samples=16, seed=1)
+    assert np.all(res.samples[:, 0] > 0.0)
+    assert any("lies at its lower bound" in n for n in res.notes)
+    d = res.figures["imep_closed_bar"]
+    assert np.all(d["nominal"] > d["upper"])
+    assert any(n.startswith("imep_closed_bar: the nominal value lies outside its band")
+               and "heat_transfer.multiplier lies at a bound" in n for n in res.notes)
+    # away from the bounds the nominal lies inside its 5-95 % band (a monotonic figure of a
+    # symmetric parameter distribution has its median at the nominal; common practice)
+    free = _calibration(["heat_transfer.multiplier"], [1.0], [0.1], [0.0], [10.0])
+    res = propagate(case, free, vary="burn.spark_advance_deg=20,30", n_samples=16, seed=1)
+    d = res.figures["imep_closed_bar"]
+    assert np.all((d["lower"] <= d["nominal"]) & (d["nominal"] <= d["upper"]))
+    assert not any("outside its band" in n for n in res.notes)
 
 
 def test_band_width_matches_linear_propagation(tmp_path):
@@ -99,8 +149,46 @@ def test_fit_and_predict_commands(tmp_path, capsys):
     args = _parser().parse_args(["predict", str(out / "calibrated.yaml"), "--calibration",
                                  str(out / "calibration.json"), "--vary", "burn.spark_advance_deg=15:35:10",
                                  "--samples", "8", "--out", str(pred)])
+    capsys.readouterr()
     assert HANDLERS[args.command](args) == 0
     assert (pred / "prediction.csv").is_file()
+    # the printed table has column headings: the swept key, the nominal value and the band
+    lines = capsys.readouterr().out.splitlines()
+    head = next(i for i, ln in enumerate(lines) if "burn.spark_advance_deg" in ln and "nominal" in ln)
+    assert lines[head].split()[-3:] == ["p5", "p95", "mean"]
+    assert lines[head + 1].split()[0] == "15"
+
+
+def test_cli_help_states_units_and_defaults():
+    ap = _parser()
+    sub = next(a for a in ap._actions if a.dest == "command").choices
+    fit_help = " ".join(sub["fit"].format_help().split())
+    pred_help = " ".join(sub["predict"].format_help().split())
+    # every option of fit and predict carries a help text
+    for name in ("fit", "predict"):
+        for a in sub[name]._actions:
+            if a.option_strings and a.dest != "help":
+                assert a.help, (name, a.option_strings)
+    assert "pressure [bar] (default)" in fit_help and "intake pressure near BDC (default)" in fit_help
+    assert "operating conditions" in fit_help
+    assert "default 1" in pred_help and "prediction.csv" in pred_help
+
+
+def test_fit_refuses_operating_conditions_with_one_line_and_status_2(tmp_path, capsys):
+    from cyclesim.cli import main
+
+    trace = tmp_path / "never_read.npz"
+    for key in ("operating.speed_rpm", "operating.intake_pressure_bar", "burn.spark_advance_deg",
+                "engine.bore_mm", "simulation.tolerance"):
+        out = tmp_path / "out"
+        assert main(["fit", "demo_closed", str(trace), "--param", key, "--out", str(out)]) == 2, key
+        err = capsys.readouterr().err.strip().splitlines()
+        assert len(err) == 1 and "cannot be fitted" in err[0] and key in err[0]
+        assert not out.exists()          # refused before anything is written
+    # the IVC state is a model parameter in closed mode, and refused in full mode
+    assert main(["fit", "demo_closed", str(trace), "--param", "operating.ivc_temperature_K", "--mode", "full",
+                 "--out", str(tmp_path / "o2")]) == 2
+    assert "closed-mode parameter" in capsys.readouterr().err
 
 
 def _relabel(theta, rows, shift_deg):

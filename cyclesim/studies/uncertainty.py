@@ -7,7 +7,12 @@
 
 The fitted parameters are drawn from the multivariate normal distribution of
 the calibration (mean = fitted values, covariance from ``calibration.json``),
-clipped to their bounds; every sample is run at every sweep point, all as one
+truncated to their bounds: a draw outside the allowed range is rejected and
+drawn again (the normal restricted to the allowed range, the posterior of a flat
+prior on it), so no probability piles up on a bound.  A parameter whose fitted
+value lies at a bound then has all its samples on one side of it, and a figure
+that moves monotonically with it has its nominal value at the edge of its band:
+the result's ``notes`` say so.  Every sample is run at every sweep point, all as one
 :func:`cyclesim.simulate` call (the cases share submodels, so they form few
 batches).  For each sweep point and figure the result holds the mean over the
 samples, the value of the calibrated (nominal) case, and the empirical
@@ -57,13 +62,29 @@ def _load_calibration(cal) -> dict:
         raise CyclesimError(f"{p}: not JSON ({exc.msg}, line {exc.lineno})") from exc
 
 
-def sample_parameters(cal: Mapping, n_samples: int, seed: int = 1) -> tuple[list[str], np.ndarray]:
-    """Draw parameter sets from the calibration's multivariate normal, clipped to bounds.
+MAX_DRAW_ROUNDS = 200
+"""Rounds of rejection sampling before the remaining draws are reflected into the range."""
+
+
+def _bounds(cal: Mapping, p: int) -> tuple[np.ndarray, np.ndarray]:
+    lo = np.array([-np.inf if v is None else v for v in cal.get("lower_bounds") or [None] * p], float)
+    hi = np.array([np.inf if v is None else v for v in cal.get("upper_bounds") or [None] * p], float)
+    return lo, hi
+
+
+def sample_parameters(cal: Mapping, n_samples: int, seed: int = 1,
+                      info: dict | None = None) -> tuple[list[str], np.ndarray]:
+    """Draw parameter sets from the calibration's multivariate normal, truncated to the bounds.
 
     Returns the keys and an array (n_samples, p).  The covariance is factored
     by its eigen-decomposition (negative eigenvalues from rounding set to 0),
     so a singular covariance (a combination the data did not determine) is
-    sampled along its determined directions only.
+    sampled along its determined directions only.  Draws with a parameter
+    outside its bounds are rejected and drawn again (a truncated multivariate
+    normal); if after :data:`MAX_DRAW_ROUNDS` rounds too few were accepted
+    (the range holds a tiny share of the distribution), the rest are reflected
+    at the bounds.  ``info``, if given, receives ``acceptance`` (share of
+    draws inside the bounds [-]) and ``reflected`` (number of reflected draws).
     """
     keys = list(cal["parameters"])
     mean = np.asarray(cal["values"], float)
@@ -76,10 +97,32 @@ def sample_parameters(cal: Mapping, n_samples: int, seed: int = 1) -> tuple[list
     w, V = np.linalg.eigh(C)
     L = V * np.sqrt(np.clip(w, 0.0, None))
     rng = np.random.default_rng(seed)
-    X = mean + rng.standard_normal((n_samples, len(keys))) @ L.T
-    lo = np.array([-np.inf if v is None else v for v in cal.get("lower_bounds", [None] * len(keys))], float)
-    hi = np.array([np.inf if v is None else v for v in cal.get("upper_bounds", [None] * len(keys))], float)
-    return keys, np.clip(X, lo, hi)
+    lo, hi = _bounds(cal, len(keys))
+    if np.any(lo > hi):
+        raise CyclesimError("calibration: a lower bound lies above its upper bound")
+    got, drawn = [], 0
+    need = n_samples
+    for _ in range(MAX_DRAW_ROUNDS):
+        Z = mean + rng.standard_normal((max(need, 16), len(keys))) @ L.T
+        drawn += Z.shape[0]
+        ok = np.all((Z >= lo) & (Z <= hi), axis=1)
+        got.append(Z[ok][:need])
+        need -= int(min(ok.sum(), need))
+        if need == 0:
+            break
+    n_ok = n_samples - need
+    X = np.concatenate(got) if got else np.zeros((0, len(keys)))
+    if need:
+        # the range holds a tiny share of the distribution: reflect the remaining draws into it
+        Z = mean + rng.standard_normal((need, len(keys))) @ L.T
+        for _ in range(8):
+            Z = np.where(Z < lo, 2 * lo - Z, Z)
+            Z = np.where(Z > hi, 2 * hi - Z, Z)
+        X = np.concatenate([X, np.clip(Z, lo, hi)])
+    if info is not None:
+        info["acceptance"] = n_ok / max(drawn, 1) if n_ok else 0.0
+        info["reflected"] = int(need)
+    return keys, X
 
 
 @dataclass
@@ -104,6 +147,10 @@ class UncertaintyResult:
     mbt : dict
         ``study="spark"``: MBT of the nominal case and ``mean``, ``lower``,
         ``upper`` over the samples [deg before TDC].
+    study : str
+    notes : list of str
+        How the samples were drawn where bounds mattered, and sweep points whose
+        nominal value lies outside its band (with the reason).
     """
 
     key: str
@@ -115,6 +162,7 @@ class UncertaintyResult:
     n_failed: int = 0
     mbt: dict = field(default_factory=dict)
     study: str = "sweep"
+    notes: list = field(default_factory=list)
 
     def table(self) -> list[dict]:
         """One row per sweep point with ``<fig>``, ``<fig>_mean``, ``<fig>_p05``, ``<fig>_p95`` columns."""
@@ -147,6 +195,7 @@ class UncertaintyResult:
         atomic_write_text(files[0], "\n".join(lines) + "\n")
         doc = {"key": self.key, "values": self.values, "study": self.study, "quantiles": list(self.quantiles),
                "parameters": self.params, "samples": self.samples.tolist(), "n_failed": self.n_failed,
+               "notes": list(self.notes),
                "mbt": {k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in self.mbt.items()},
                "rows": [{k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in r.items()}
                         for r in rows],
@@ -197,7 +246,9 @@ def propagate(calibrated, calibration, study: str = "sweep", vary: Any = None, n
     cal = _load_calibration(calibration)
     key, spec = _parse_vary(vary, study)
     values = parse_values(key, spec)
-    params, X = sample_parameters(cal, n_samples, seed)
+    info: dict = {}
+    params, X = sample_parameters(cal, n_samples, seed, info)
+    notes = _sampling_notes(cal, params, info)
     nominal = {k: float(v) for k, v in zip(params, cal["values"])}
     sets = [nominal] + [{k: float(v) for k, v in zip(params, row)} for row in X]
     cases = []
@@ -244,10 +295,64 @@ def propagate(calibrated, calibration, study: str = "sweep", vary: Any = None, n
                    "lower_deg": float(np.quantile(v[ok], q_lo)) if ok.any() else float("nan"),
                    "upper_deg": float(np.quantile(v[ok], q_hi)) if ok.any() else float("nan"),
                    "bracketed_share": float(ok.mean())}
-    res = UncertaintyResult(key, values, figs, X, params, tuple(quantiles), n_failed, mbt, study)
+    notes += _outside_notes(figs, values, key, cal, params)
+    res = UncertaintyResult(key, values, figs, X, params, tuple(quantiles), n_failed, mbt, study, notes)
     if out is not None:
         res.write(out, plots=plots)
     return res
+
+
+def _at_bound(cal: Mapping, params: list) -> list[tuple[str, float, str]]:
+    """Parameters whose calibrated value lies at a bound: (key, value, 'lower'/'upper')."""
+    mean = np.asarray(cal["values"], float)
+    lo, hi = _bounds(cal, len(params))
+    sd = np.sqrt(np.maximum(np.diag(np.asarray(cal["covariance"], float)), 0.0))
+    out = []
+    for j, k in enumerate(params):
+        tol = 1e-6 * max(abs(mean[j]), sd[j], 1e-12)
+        if np.isfinite(lo[j]) and mean[j] <= lo[j] + tol:
+            out.append((k, float(mean[j]), "lower"))
+        elif np.isfinite(hi[j]) and mean[j] >= hi[j] - tol:
+            out.append((k, float(mean[j]), "upper"))
+    return out
+
+
+def _sampling_notes(cal: Mapping, params: list, info: dict) -> list[str]:
+    notes = []
+    mean = np.asarray(cal["values"], float)
+    lo, hi = _bounds(cal, len(params))
+    sd = np.sqrt(np.maximum(np.diag(np.asarray(cal["covariance"], float)), 0.0))
+    near = [k for j, k in enumerate(params)
+            if sd[j] > 0 and (mean[j] - lo[j] < 3 * sd[j] or hi[j] - mean[j] < 3 * sd[j])]
+    if near:
+        notes.append(f"{', '.join(near)}: within 3 standard errors of a bound; samples drawn from the normal"
+                     f" distribution truncated to the allowed range (draws outside rejected; acceptance"
+                     f" {100 * info.get('acceptance', 1.0):.0f} %)")
+    if info.get("reflected"):
+        notes.append(f"{info['reflected']} samples reflected at the bounds (the allowed range holds too small"
+                     f" a share of the distribution for rejection)")
+    for k, v, side in _at_bound(cal, params):
+        notes.append(f"{k} = {v:g} lies at its {side} bound: all its samples lie on one side of it, so a"
+                     f" figure that moves monotonically with it has its nominal value at the edge of its band")
+    return notes
+
+
+def _outside_notes(figs: dict, values: list, key: str, cal: Mapping, params: list) -> list[str]:
+    """Sweep points whose nominal value lies outside the band, per figure."""
+    notes = []
+    at = _at_bound(cal, params)
+    for f, d in figs.items():
+        nom, lo_, hi_ = (np.asarray(d[c], float) for c in ("nominal", "lower", "upper"))
+        with np.errstate(invalid="ignore"):
+            tol = 1e-9 * np.maximum(np.abs(nom), 1.0)
+            out = np.isfinite(nom) & np.isfinite(lo_) & ((nom < lo_ - tol) | (nom > hi_ + tol))
+        if out.any():
+            pts = ", ".join(f"{values[i]:g}" if isinstance(values[i], (int, float)) else str(values[i])
+                            for i in np.flatnonzero(out))
+            why = (f"because {', '.join(k for k, _, _ in at)} lies at a bound" if at else
+                   "the figure depends non-linearly on the parameters (the sample distribution is skewed)")
+            notes.append(f"{f}: the nominal value lies outside its band at {key} = {pts}: {why}")
+    return notes
 
 
 def _parse_vary(vary, study: str) -> tuple[str, Any]:
