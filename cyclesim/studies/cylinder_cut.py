@@ -32,7 +32,9 @@ the change each step makes:
    against the brake power, so the estimate reads high;
 2. ``pressure_friction``: friction from a correlation with a cylinder-pressure
    term (Chen & Flynn 1965, ``p_max`` term), evaluated on each cylinder's own
-   trace in each reading; the cut cylinder's lower peak pressure lowers
+   trace in each reading and scaled to the engine's own FMEP with all cylinders
+   firing (so the friction being measured stays that of the step before; only its
+   response to a cut changes); the cut cylinder's lower peak pressure lowers
    friction, so the estimate reads low by that share;
 3. ``manifolds``: shared intake and exhaust manifolds (throttle, exhaust
    restriction): cutting one cylinder changes the pressures the firing ones
@@ -282,15 +284,15 @@ def cylinder_cut_test(config="demo", overrides: Sequence[str] = (), effects: Seq
         man, walls, sp = sim_key(i)
         a = firing[(man, walls)]
         zero = "pumping" not in on
-        if "pressure_friction" in on:
-            f_all = fmep_of(a, pressure_friction_model)
-        else:
-            f_all = float(a.engine["fmep_bar"])
+        f_all = float(a.engine["fmep_bar"])
+        # the pressure-dependent correlation, scaled to the engine's own FMEP with all cylinders
+        # firing: the step changes how friction responds to a cut, not the friction being measured
+        scale = f_all / fmep_of(a, pressure_friction_model) if "pressure_friction" in on else 1.0
         b_all, fp_true, ip_true = _powers(a, False, f_all, vd)
         b_cut = []
         for k in range(n):
             c = cuts[(man, walls, sp, k)]
-            f_cut = fmep_of(c, pressure_friction_model) if "pressure_friction" in on else f_all
+            f_cut = scale * fmep_of(c, pressure_friction_model) if "pressure_friction" in on else f_all
             b_cut.append(_powers(c, zero, f_cut, vd)[0])
         est = cut_estimate(b_all, b_cut)
         ip_t = float(ip_true.sum())
@@ -303,7 +305,7 @@ def cylinder_cut_test(config="demo", overrides: Sequence[str] = (), effects: Seq
             "friction_est_kW": est["friction_kW"], "friction_true_kW": fp_true, "friction_bias_kW": fb,
             "friction_bias_pct": 100 * fb / fp_true,
             "friction_bias_step_kW": fb - (prev_bias if prev_bias is not None else 0.0),
-            "fmep_true_bar": f_all, "fmep_est_bar": est["friction_kW"] * 1e3 / (vd * n * speed / 120.0) / 1e5,
+            "pressure_friction_scale": scale, "fmep_true_bar": f_all, "fmep_est_bar": est["friction_kW"] * 1e3 / (vd * n * speed / 120.0) / 1e5,
             "cylinder_estimates_kW": list(est["indicated_kW"]), "cylinder_truth_kW": list(ip_true),
         }
         prev_bias = fb
