@@ -154,7 +154,10 @@ def test_instant_burn_matches_cantera_constant_volume_products(burned_gas):
         gas.TPX = 2500.0, 50e5, methane_complete_products()
         gas.UV = u1, v1
     assert rel(p[i1], gas.P / 1e5) < 5e-3      # brief: 0.5 % in pressure
-    assert abs(T[i1] - gas.T) < 10.0           # brief: 10 K in temperature
+    # brief: 10 K in temperature; with complete-combustion products Cantera holds the same species
+    # data (NASA-7 of GRI-Mech 3.0), so only the integration (the trapezoid work above, the burn
+    # over one step) and the property tables' interpolation remain: 2 K at about 3100 K (0.06 %)
+    assert abs(T[i1] - gas.T) < (10.0 if burned_gas == "equilibrium" else 2.0)
 
 
 def test_short_burn_between_grid_points_cannot_release_more_than_the_fuel():
@@ -181,13 +184,6 @@ def _crank_radius(S, l, e):
 
     return brentq(lambda a: math.sqrt((l + a) ** 2 - e ** 2) - math.sqrt((l - a) ** 2 - e ** 2) - S,
                   0.3 * S, 0.7 * S, xtol=1e-15)
-
-
-def test_otto_formula_anchor_values():
-    # Heywood (1988) eq. 5.31 recomputed: 0.6019 at r = 10, gamma 1.4; 0.4988 at gamma 1.3
-    # (values as listed in the design references, 4 digits).
-    assert 1 - 10 ** (1 - 1.4) == pytest.approx(0.6019, abs=5e-5)
-    assert 1 - 10 ** (1 - 1.3) == pytest.approx(0.4988, abs=5e-5)
 
 
 @pytest.mark.parametrize("gamma, pin_offset_mm", [
@@ -264,16 +260,14 @@ def closed_demo():
 
 def test_closed_demo_energy_balance_closes(closed_demo):
     eb = closed_demo.summary["energy_balance"]
+    # first law of the closed system with leakage: the released chemical energy against work, wall
+    # heat, blowby enthalpy and the change of the internal energy of the state (the integrated terms
+    # and the state are computed independently, so the closure measures the integration)
     assert abs(eb["closure_fraction"]) < 1e-4
-    # the balance is the sum of its terms (first law of the closed system with leakage)
-    terms = eb["piston_work_J"] + eb["wall_heat_J"] + eb["internal_energy_change_J"] + eb["blowby_enthalpy_J"]
-    assert abs(eb["chemical_energy_released_J"] - terms - eb["closure_J"]) < 1e-9 * eb["chemical_energy_released_J"]
-    # piston work and wall heat agree with independent integrals of the trace columns
+    # piston work agrees with an independent integral of the pressure and volume columns
     tr = closed_demo.trace
     W = float(np.trapezoid(tr["pressure_bar"] * 1e5, tr["volume_m3"]))
     assert rel(eb["piston_work_J"], W) < 2e-3      # trapezoid on the 0.5 deg grid
-    Qw = tr["cumulative_wall_heat_J"][-1] - tr["cumulative_wall_heat_J"][0]
-    assert rel(eb["wall_heat_J"], Qw) < 1e-9
 
 
 def _start_of_combustion(case):
