@@ -248,7 +248,12 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     Q_burn = Y[I["Q_burn"], :, -1]
     out["heat_release_J"] = Q_burn
     out["wall_heat_J"] = Y[I["Q_w"], :, -1]
-    out["combustion_efficiency"] = np.asarray(burn.combustion_efficiency(), float) * np.ones(B)
+    # the trade's combustion efficiency: the share of the fuel's energy released (Heywood 1988 sec. 4.9.4):
+    # the burn model's own share of the charge that burns, less the chemical energy the products keep
+    # as CO and H2 where there is too little oxygen (rich) or they dissociate
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out["combustion_efficiency"] = np.where(fuel_energy > 0, Q_burn / np.where(fuel_energy > 0, fuel_energy, 1.0),
+                                                np.nan)
     m_bb = Y[I["m_bb"], :, -1]
     out["blowby_mass_mg"] = m_bb * 1e6
     out["blowby_fraction"] = m_bb / m_tr
