@@ -29,8 +29,8 @@ SIGMA_SB = 5.670374419e-8
 
 # rows of the per-case constant array CB (see cyclesim.kernel.Compiled)
 R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC, R_SPARK = \
-    0, 1, 2, 5, 6, 7, 8, 19, 62, 65, 66, 67
-N_P = 43            # submodel parameter rows R_P .. R_P + N_P - 1
+    0, 1, 2, 5, 6, 7, 8, 19, 64, 67, 68, 69
+N_P = 45            # submodel parameter rows R_P .. R_P + N_P - 1
 
 # The submodel parameter rows, as offsets from R_P (cyclesim.kernel.Compiled fills them from the
 # Python objects; each names the attribute it holds).  One model per role, so roles share no row.
@@ -39,9 +39,10 @@ W_THETA0, W_INV_DUR, W_C, W_A, W_M = 0, 1, 2, 3, 4                # theta0, _inv
 # burn: double_wiebe
 D_THETA0, D_D1, D_A, D_M1, D_F1, D_START2, D_D2, D_M2 = 0, 1, 2, 3, 4, 5, 6, 7
 # burn: wiebe_flame (spark, delay_ref, dur_ref, a, m, eff, kd, sd, kb, sb, visc, phi, V_spark,
-# speed_ratio, G_ref, the fuel's Metghalchi-Keck phi_m, B_m, B_phi, and the module constants)
+# speed_ratio, G_ref, the fuel's Metghalchi-Keck phi_m, B_m, B_phi, the module constants, V_tdc, G_ref_dur)
 (F_SPARK, F_DELAY, F_DUR, F_A, F_M, F_EFF, F_KD, F_SD, F_KB, F_SB, F_VISC, F_PHI, F_V_SPARK,
- F_SPEED_RATIO, F_G_REF, F_PHI_M, F_B_M, F_B_PHI, F_DILUTION, F_T0, F_ATM, F_VISC_EXP) = range(21, 43)
+ F_SPEED_RATIO, F_G_REF, F_PHI_M, F_B_M, F_B_PHI, F_DILUTION, F_T0, F_ATM, F_VISC_EXP, F_V_TDC,
+ F_G_REF_DUR) = range(21, 45)
 # heat transfer: woschni (_k, _c1_closed, _c1_open, c2, _Vd); hohenberg (multiplier);
 # annand (multiplier, a, b, radiation_factor, prandtl_number, _bore)
 H_K, H_C1_CLOSED, H_C1_OPEN, H_C2, H_VD = 8, 9, 10, 11, 12
@@ -51,7 +52,7 @@ H_ANNAND_A, H_ANNAND_B, H_RAD, H_PRANDTL, H_BORE = 9, 10, 11, 12, 13
 B_CDA, B_P_CC = 14, 15
 # knock: livengood_wu (_pre_ms, act, x_max, and the module's ATM_PA, DE_PRESSURE_EXPONENT)
 K_PRE, K_ACT, K_X_MAX, K_ATM, K_P_EXP = 16, 17, 18, 19, 20
-N_ROWS = 69         # R_SPARK, R_SPARK + 1: the flame-speed burn's charge state at spark (T, p)
+N_ROWS = 73         # R_SPARK .. R_SPARK + 3: the flame-speed burn's charge at spark and at TDC (T, p, T, p)
 CYCLE_END_DEG = 360.0
 
 
@@ -163,16 +164,24 @@ def _log_mean(T0, T1):
 
 @njit(cache=True, error_model="numpy")
 def _spark_state(b, CB, uc4, T_mid):
-    """Fresh charge at spark, isentropic from the IVC state (flame_burn.isentropic_compression)."""
+    """Fresh charge at spark and at TDC, isentropic from the IVC state (flame_burn.WiebeFlame.spark_state)."""
     T0 = CB[R_IVC + 1, b]
     p0 = CB[R_IVC, b]
-    lnv = math.log(CB[R_IVC + 2, b] / CB[R_P + F_V_SPARK, b])
-    T = T0 * math.exp(lnv / 2.5)
-    for _ in range(4):
-        _, R, cv = _fresh(uc4, b, _log_mean(T0, T), T_mid)
-        T = T0 * math.exp(R / cv * lnv)
-    CB[R_SPARK, b] = T
-    CB[R_SPARK + 1, b] = p0 * math.exp(lnv) * T / T0
+    for k, row in ((0, F_V_SPARK), (2, F_V_TDC)):
+        lnv = math.log(CB[R_IVC + 2, b] / CB[R_P + row, b])
+        T = T0 * math.exp(lnv / 2.5)
+        for _ in range(4):
+            _, R, cv = _fresh(uc4, b, _log_mean(T0, T), T_mid)
+            T = T0 * math.exp(R / cv * lnv)
+        CB[R_SPARK + k, b] = T
+        CB[R_SPARK + k + 1, b] = p0 * math.exp(lnv) * T / T0
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def _flame_length(T, p, s0, alpha, beta, dil, visc, q, b, CB):
+    """Laminar scale G of the charge at (T, p): nu/S_L up to a constant, or 1/S_L (WiebeFlame._length)."""
+    s_l = max(s0 * (T / CB[q + F_T0, b]) ** alpha * (p / CB[q + F_ATM, b]) ** beta * dil, 1e-4)
+    return T ** CB[q + F_VISC_EXP, b] / p / s_l if visc else 1.0 / s_l
 
 
 @njit(cache=True, error_model="numpy")
@@ -188,12 +197,12 @@ def _flame_rate(theta, b, yb, xb, CB):
     alpha = 2.18 - 0.8 * (phi - 1.0)
     beta = -0.16 + 0.22 * (phi - 1.0)
     dil = max(1.0 - CB[q + F_DILUTION, b] * f, 0.0)
-    s_l = s0 * (T_s / CB[q + F_T0, b]) ** alpha * (p_s / CB[q + F_ATM, b]) ** beta * dil
-    s_l = max(s_l, 1e-4)
-    G = T_s ** CB[q + F_VISC_EXP, b] / p_s / s_l if CB[q + F_VISC, b] != 0.0 else 1.0 / s_l
-    g = G / CB[q + F_G_REF, b]
+    visc = CB[q + F_VISC, b] != 0.0
+    g = _flame_length(T_s, p_s, s0, alpha, beta, dil, visc, q, b, CB) / CB[q + F_G_REF, b]
+    g_c = _flame_length(CB[R_SPARK + 2, b], CB[R_SPARK + 3, b], s0, alpha, beta, dil, visc, q, b, CB) \
+        / CB[q + F_G_REF_DUR, b]
     delay = CB[q + F_DELAY, b] * g ** CB[q + F_KD, b] * CB[q + F_SPEED_RATIO, b] ** CB[q + F_SD, b]
-    dur = CB[q + F_DUR, b] * g ** CB[q + F_KB, b] * CB[q + F_SPEED_RATIO, b] ** CB[q + F_SB, b]
+    dur = CB[q + F_DUR, b] * g_c ** CB[q + F_KB, b] * CB[q + F_SPEED_RATIO, b] ** CB[q + F_SB, b]
     u = (theta - CB[q + F_SPARK, b] - delay) / dur
     if not u > 0.0:
         return 0.0

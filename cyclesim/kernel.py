@@ -241,7 +241,8 @@ class Compiled:
                  (c.F_V_SPARK, bm.V_spark), (c.F_SPEED_RATIO, bm.speed_ratio), (c.F_G_REF, bm.G_ref),
                  (c.F_PHI_M, phi_m), (c.F_B_M, b_m), (c.F_B_PHI, b_phi),
                  (c.F_DILUTION, flame_burn.MK_DILUTION), (c.F_T0, flame_burn.T0_K),
-                 (c.F_ATM, flame_burn.ATM_PA), (c.F_VISC_EXP, 1.0 + flame_burn.VISCOSITY_T_EXPONENT)))
+                 (c.F_ATM, flame_burn.ATM_PA), (c.F_VISC_EXP, 1.0 + flame_burn.VISCOSITY_T_EXPONENT),
+                 (c.F_V_TDC, bm.V_tdc), (c.F_G_REF_DUR, bm.G_ref_dur)))
         ht = m["heat_transfer"]
         if type(ht) is heat_transfer.Woschni:
             codes[1] = c.HT_WOSCHNI

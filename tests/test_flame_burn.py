@@ -96,13 +96,18 @@ def plain_wiebe():
 
 
 def reference_from(run):
-    """Reference state = the cylinder state at spark in the plain Wiebe run (nothing burned there)."""
+    """Reference state = the cylinder state at spark in the plain Wiebe run (nothing burned there), and
+    the unburned charge compressed to TDC as the law reports it (closed cycles from the same IVC
+    state: it does not depend on the burn)."""
     th, tr = run.trace["crank_deg"], run.trace
     p = np.interp(-SPARK, th, tr["pressure_bar"])
     T = np.interp(-SPARK, th, tr["temperature_K"])
     f = tr["burned_gas_fraction"][0]
+    (probe,) = runs(flame())
     return [f"burn.ref_pressure_bar={p}", f"burn.ref_unburned_temperature_K={T}",
             f"burn.ref_burned_fraction={f}", "burn.ref_lambda=1.0",
+            f"burn.ref_tdc_pressure_bar={probe.summary['unburned_pressure_at_tdc_bar']}",
+            f"burn.ref_tdc_unburned_temperature_K={probe.summary['unburned_temperature_at_tdc_K']}",
             "burn.ref_mean_piston_speed_m_per_s=8.15"]   # demo: 2 x 81.5 mm x 3000 rpm / 60
 
 
@@ -155,3 +160,24 @@ def test_warns_outside_measured_range():
     # Metghalchi & Keck measured phi 0.8-1.5 (from memory): lambda 1.6 is phi 0.625
     (r,) = runs(flame("operating.lambda=1.6"))
     assert any("equivalence ratio" in w for w in r.warnings)
+
+
+@pytest.mark.parametrize("intake_bar", [1.0, 0.5])
+def test_mbt_burns_half_the_charge_near_8_deg_atdc_at_any_load(intake_bar):
+    # MBT puts CA50 about 8-10 deg after TDC whatever the load and speed (Heywood 1988 sec. 9.2.2;
+    # common practice); the law scales the rapid burn with the charge at TDC, so an earlier spark
+    # moves the whole burn earlier (scaled at the spark state, the burn lengthened with the advance
+    # and part-load MBT sat near CA50 24 deg ATDC)
+    from cyclesim.studies.spark import spark_study
+
+    st = spark_study("demo", "10:80:5", overrides=["burn={model: wiebe_flame}",
+                                                   f"operating.intake_pressure_bar={intake_bar}",
+                                                   "simulation.step_deg=1.0"])
+    assert st.mbt_deg is not None
+    assert 6.0 < st.ca50_at_mbt_deg < 11.0
+    # and CA50 follows the spark: at least half a degree per degree of advance around MBT
+    adv = st.table.column("burn.spark_advance_deg")
+    ca50 = st.table.column("ca50_deg")
+    near = np.abs(adv - st.mbt_deg) <= 10.0
+    slope = np.polyfit(adv[near], ca50[near], 1)[0]
+    assert slope < -0.5
