@@ -26,12 +26,12 @@ def test_compressor_relation_pure():
     # isentropic compression of air, T2s = T1 PR^((g-1)/g) (any thermodynamics text):
     # 298 K, PR 2, g 1.4 -> 363.27 K (computed by hand: 2^(0.4/1.4) = 1.21901)
     assert compressor_outlet_temperature(298.0, 2.0, 1.0) == pytest.approx(298.0 * 1.21901, rel=1e-5)
-    # eta_c = (T2s - T1)/(T2 - T1) (design notes, "Turbomachinery"): with eta 0.5 the rise doubles
+    # eta_c = (T2s - T1)/(T2 - T1) (isentropic efficiency, Heywood 1988 sec. 6.8, from memory; any thermodynamics text): with eta 0.5 the rise doubles
     assert compressor_outlet_temperature(298.0, 2.0, 0.5) - 298.0 == pytest.approx(2 * 298.0 * 0.21901, rel=1e-4)
 
 
 def test_turbine_and_intercooler_relations_pure():
-    # eta_t = (T3 - T4)/(T3 - T4s), T4s = T3 (p4/p3)^((g-1)/g) (design notes, "Turbomachinery")
+    # eta_t = (T3 - T4)/(T3 - T4s), T4s = T3 (p4/p3)^((g-1)/g) (isentropic efficiency, Heywood 1988 sec. 6.8, from memory; any thermodynamics text)
     T4, T4s = turbine_outlet_temperature(1200.0, 2.0, 0.7, 1.33)
     assert T4s == pytest.approx(1200.0 * 0.5 ** (0.33 / 1.33), rel=1e-12)
     assert (1200.0 - T4) / (1200.0 - T4s) == pytest.approx(0.7, rel=1e-12)
@@ -42,7 +42,7 @@ def test_turbine_and_intercooler_relations_pure():
 def test_match_follows_the_compressor_formula(matched):
     b, _ = matched
     s = b.state
-    # design notes, "Turbomachinery": T2 = T1 (1 + (PR^((g-1)/g) - 1)/eta_c), air g = 1.4
+    # isentropic efficiency (Heywood 1988 sec. 6.8, from memory; any thermodynamics text): T2 = T1 (1 + (PR^((g-1)/g) - 1)/eta_c), air g = 1.4
     T2 = s["T1_K"] * (1 + (s["compressor_pressure_ratio"] ** (0.4 / 1.4) - 1) / s["eta_compressor"])
     assert s["T2_K"] == pytest.approx(T2, rel=1e-12)
     assert s["T_intake_K"] == pytest.approx(
@@ -59,7 +59,7 @@ def test_match_follows_the_turbine_relation(matched):
     b, _ = matched
     s = b.state
     g = s["exhaust_gamma"]
-    # design notes, "Turbomachinery": eta_t = (T3 - T4)/(T3 - T4s), T4s = T3 (p4/p3)^((g-1)/g)
+    # isentropic efficiency (Heywood 1988 sec. 6.8, from memory; any thermodynamics text): eta_t = (T3 - T4)/(T3 - T4s), T4s = T3 (p4/p3)^((g-1)/g)
     T4s = s["T3_K"] * (s["p4_bar"] / s["p3_bar"]) ** ((g - 1) / g)
     assert s["T4s_K"] == pytest.approx(T4s, rel=1e-9)
     assert (s["T3_K"] - s["T4_K"]) / (s["T3_K"] - s["T4s_K"]) == pytest.approx(s["eta_turbine"], rel=1e-9)

@@ -213,6 +213,23 @@ def test_sutherland_air_viscosity_at_300K():
     assert ht.air_viscosity(300.0) == pytest.approx(184.6e-7, rel=5e-3)
 
 
+@pytest.mark.parametrize("T, band", [(300.0, 0.015), (600.0, 0.015), (1000.0, 0.04), (1500.0, 0.07),
+                                     (2000.0, 0.09), (2800.0, 0.12)])
+def test_sutherland_air_viscosity_against_cantera_transport(T, band):
+    # Cantera's mixture-averaged transport of air (O2 0.21, N2 0.79; GRI-Mech 3.0 transport data) is
+    # the reference over the cycle's range.  Sutherland's law is fitted near atmospheric temperatures
+    # and reads low at flame temperatures (10 % at 2500 K, 12 % at 2800 K, measured here): in
+    # Annand's h ~ mu^(1-b) = mu^0.3 that is 3-4 % on the heat-transfer coefficient, within the
+    # scatter of the correlation's constant a (0.35-0.8 in the original, from memory)
+    ct = pytest.importorskip("cantera")
+    g = ct.Solution("gri30.yaml")
+    g.transport_model = "mixture-averaged"
+    g.TPX = T, ct.one_atm, "O2:0.21, N2:0.79"
+    got = float(ht.air_viscosity(T))
+    assert got == pytest.approx(g.viscosity, rel=band)
+    assert got <= g.viscosity * 1.01          # the law does not read high anywhere in the range
+
+
 def test_annand_published_form_with_radiation():
     # Annand 1963: h = a (k/B) Re^b + c (T^4 - Tw^4)/(T - Tw), Re = rho Sp B / mu;
     # c = 0.075 sigma for SI engines (from memory).

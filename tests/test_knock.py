@@ -65,7 +65,7 @@ def state(**kw):
 # -- the ignition-delay correlation -------------------------------------------
 
 @pytest.mark.parametrize("on, p_atm, T, anchor_ms", [
-    (95.0, 40.0, 900.0, 1.914),   # design notes: computed anchor, 4 digits
+    (95.0, 40.0, 900.0, 1.914),   # the formula below worked by hand, 4 digits
     (90.0, 30.0, 800.0, 4.402),
 ])
 def test_douaud_eyzat_delay_matches_published_form(on, p_atm, T, anchor_ms):

@@ -47,7 +47,7 @@ def test_map_mbt_points_burn_at_the_usual_phasing(small_map):
         assert not r["error"]
         assert r["spark_source"] == "MBT (fit)"
         # at MBT, 50 % mass burned about 8-10 deg ATDC (Heywood 1988 ch. 9, from memory);
-        # the design notes' test band 6-12 deg, widened by 2 deg for the coarse 10-deg grid
+        # band 6-12 deg (common practice), widened by 2 deg for the coarse 10-deg grid
         assert 4.0 <= r["ca50_deg"] <= 14.0
 
 

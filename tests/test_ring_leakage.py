@@ -57,6 +57,15 @@ def test_no_reverse_flow():
     assert q[0] == 0.0 and q[1] == 0.0 and q[2] > 0.0
 
 
+def test_demo_blowby_fraction_at_full_load_is_common():
+    # the program's own figure at wide-open throttle, 3000 rpm: 0.5-1 % of the trapped mass for a
+    # healthy SI engine (common practice); band 0.4-1.5 % as below
+    import cyclesim
+
+    s = cyclesim.run("demo", ["simulation.step_deg=1.0"]).summary
+    assert 0.004 < s["blowby_fraction"] < 0.015, s["blowby_fraction"]
+
+
 def test_default_area_gives_common_blowby_fraction():
     # Blowby about 0.5-1 % of the trapped mass at full load is common practice for a healthy SI
     # engine; accept 0.4-1.5 % at 2000 rpm for a 0.5-l cylinder, closed part IVC -140 .. EVO 130 deg,
