@@ -122,7 +122,8 @@ P_A = Param("a", "-", 5.0, "Wiebe efficiency parameter: x_b(duration) = 1 - exp(
 P_M = Param("m", "-", 2.0, "Wiebe form factor (larger = later, steeper burning)",
             min=0.0, max=10.0)
 P_EFF = Param("combustion_efficiency", "-", 0.97,
-              "fraction of the charge's fuel energy released",
+              "share of the charge that burns (unburned hydrocarbons leave the rest); a rich charge"
+              " releases less still, its CO and H2: the summary's combustion_efficiency is the total",
               min=0.0, max=1.0)
 P_SPARK = Param("spark_advance_deg", "deg", 25.0,
                 "spark timing in crank degrees before firing TDC (positive = before)",
