@@ -181,7 +181,7 @@ def summary_table(res) -> str:
         row("trapped mass", "trapped_mass_mg", "mg", ".1f")
         row("residual gas fraction", "residual_fraction", "%", ".1f", 100)
         row("blowby (of trapped mass)", "blowby_fraction", "%", ".2f", 100)
-        row("exhaust gas at the valve (enthalpy avg)", "exhaust_temperature_K", "K", ".0f")
+        row("exhaust at valve, enthalpy avg", "exhaust_temperature_K", "K", ".0f")
     else:
         lines.append("closed cycle, IVC to EVO")
         loop_line()
