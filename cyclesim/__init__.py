@@ -14,7 +14,8 @@ __version__ = "0.1.0"
 hookimpl = pluggy.HookimplMarker("cyclesim")
 """Marker for hook implementations in plug-in packages."""
 
-_API = {"load_config", "simulate", "run", "Case", "load_cases"}
+_API = {"load_config", "simulate", "run", "Case", "CaseResult", "case_with", "load_cases"}
+__all__ = sorted(_API | {"hookimpl", "__version__"})
 
 
 def __getattr__(name):  # lazy re-export of the API
@@ -23,3 +24,7 @@ def __getattr__(name):  # lazy re-export of the API
 
         return getattr(api, name)
     raise AttributeError(f"module 'cyclesim' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | _API)

@@ -10,15 +10,15 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Callable, Sequence
+from typing import Callable, Mapping, Sequence
 
 import numpy as np
 
-from .config import Case, flat_inputs, load_config
+from .config import Case, case_with, flat_inputs, load_config, resolve_case
 from .errors import CyclesimError, PluginError, SolverError
 from .output import plain as _plain
 
-__all__ = ["CaseResult", "simulate", "run", "load_config", "load_cases", "Case"]
+__all__ = ["CaseResult", "simulate", "run", "load_config", "load_cases", "Case", "case_with"]
 
 
 @dataclass
@@ -78,7 +78,20 @@ class CaseResult:
 
 
 def load_cases(path, overrides: Sequence[str] = ()) -> list[Case]:
-    return [load_config(path, overrides)]
+    """The cases of a config file or built-in name as a list (one case per config), for
+    :func:`simulate`; ``overrides`` are ``key=value`` texts as for :func:`load_config`."""
+    return [load_config(path, _override_list(overrides))]
+
+
+def _override_list(overrides) -> list[str]:
+    """``key=value`` texts from one text, a sequence of texts, or a mapping of dotted keys to values."""
+    if overrides is None:
+        return []
+    if isinstance(overrides, str):
+        return [overrides]
+    if isinstance(overrides, Mapping):
+        return [f"{k}={v}" for k, v in overrides.items()]
+    return list(overrides)
 
 
 def _registry_for(cases: Sequence[Case]):
@@ -150,9 +163,9 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
             name=case.name,
             inputs=flat_inputs(case),
             models={r: ch.model for r, ch in case.submodels.items()},
-            references=refs,
             cycle_loop=tr.loop,
         )
+        res.references = list(refs)           # each result owns its lists
         if tr.failed[i]:
             res.error = tr.failed[i]
             results.append(res)
@@ -241,9 +254,24 @@ def _simulate_once(cases, registry, progress, isolate):
     return out
 
 
-def simulate(cases: Sequence[Case], progress: Callable[[int], None] | None = None,
+def simulate(cases, progress: Callable[[int], None] | None = None,
              isolate: bool = True, refine: bool = True) -> list[CaseResult]:
     """Simulate cases, batched where they share submodels and grid; results in input order.
+
+    Parameters
+    ----------
+    cases : sequence of Case (or config names / paths), or one of them
+        Build variants with :func:`load_config` overrides or :func:`case_with`; a Case is
+        validated when it is made, so change one only through these.
+    progress : callable, optional
+        Called with the number of each cycle as a batch finishes it.
+    isolate, refine : bool
+        See below.
+
+    Returns
+    -------
+    list of CaseResult
+        One per case, in order; a failed case has ``error`` set and empty figures.
 
     A batch that fails as a whole (a plug-in raising, say) is re-run case by
     case when ``isolate`` is true, so one bad case does not spoil the others.
@@ -255,9 +283,11 @@ def simulate(cases: Sequence[Case], progress: Callable[[int], None] | None = Non
     result says so; if it still misses, the case fails with that message
     rather than returning a wrong number.
     """
-    from .config import case_with
+    from pathlib import Path
 
-    cases = list(cases)
+    if isinstance(cases, (Case, str, Path)):
+        cases = [cases]
+    cases = [c if isinstance(c, Case) else load_config(c) for c in cases]
     registry = _registry_for(cases)
     out = _simulate_once(cases, registry, progress, isolate)
     if not refine:
@@ -289,12 +319,22 @@ def simulate(cases: Sequence[Case], progress: Callable[[int], None] | None = Non
     return out  # type: ignore[return-value]
 
 
-def run(config="demo", overrides: Sequence[str] = ()) -> CaseResult:
-    """Load one config (path or built-in name), apply ``overrides``, simulate it.
+def run(config="demo", overrides: Sequence[str] | Mapping | str = ()) -> CaseResult:
+    """Simulate one case: a config (path or built-in name) or a :class:`Case`, with ``overrides``.
 
-    Raises :class:`cyclesim.errors.CyclesimError` if the case fails.
+    Parameters
+    ----------
+    config : str, Path or Case
+    overrides : str, sequence of str, or mapping
+        ``"section.key=value"`` texts (one, or several), or ``{"section.key": value}``.
+
+    Returns
+    -------
+    CaseResult
+
+    Raises :class:`cyclesim.errors.CyclesimError` if an input is invalid or the case fails.
     """
-    case = config if isinstance(config, Case) else load_config(config, list(overrides))
+    case, _ = resolve_case(config, _override_list(overrides))
     res = simulate([case], isolate=False)[0]
     if res.error:
         raise SolverError(res.error)

@@ -194,6 +194,11 @@ class Case:
         The merged config (after inheritance and overrides), for records.
     base_dir : Path
         Folder of the config file (relative paths resolve here).
+
+    A case is validated when it is built: treat it as read-only and make variants with
+    :func:`case_with` (``cyclesim.case_with(case, {"operating.speed_rpm": 4000})``) or overrides
+    to :func:`load_config`, which validate the changed values; a value set on the namespaces
+    directly is not checked.
     """
 
     name: str

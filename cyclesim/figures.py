@@ -43,6 +43,37 @@ def derived_trace(batch, tr: CycleTrace) -> dict[str, np.ndarray]:
     return {"V": np.asarray(V), "dV": np.asarray(dV), "p": p, "dp": dp, "rho": rho, "y_b": y, **pr}
 
 
+def parabola_peak(theta, Yr, lo=None, hi=None):
+    """Maximum of a row (B, N+1) known only at the grid points: (angle (B,), value (B,)).
+
+    The vertex of the parabola through the largest point and its two neighbours (the grid may
+    be non-uniform); at the window's edge, or where the three points do not bend down, the
+    largest point itself.  ``lo``/``hi`` restrict the search window [deg].
+    """
+    B, n1 = Yr.shape
+    mask = np.ones(n1, dtype=bool)
+    if lo is not None:
+        mask &= theta >= lo
+    if hi is not None:
+        mask &= theta <= hi
+    i = np.argmax(np.where(mask[None, :], Yr, -np.inf), axis=1)
+    r = np.arange(B)
+    t_best, y_best = theta[i].astype(float), Yr[r, i].astype(float)
+    inner = (i > 0) & (i < n1 - 1)
+    im, ip = np.clip(i - 1, 0, n1 - 1), np.clip(i + 1, 0, n1 - 1)
+    inner &= mask[im] & mask[ip]
+    x0, x1, x2 = theta[im], theta[i], theta[ip]
+    y0, y1, y2 = Yr[r, im], Yr[r, i], Yr[r, ip]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        # Newton form: y = y1 + s1 (x - x1) + c (x - x1)(x - x0); c < 0 bends down
+        s1 = (y1 - y0) / (x1 - x0)
+        c = ((y2 - y1) / (x2 - x1) - s1) / (x2 - x0)
+        xv = 0.5 * (x0 + x1) - s1 / (2.0 * c)
+        yv = y1 + s1 * (xv - x1) + c * (xv - x1) * (xv - x0)
+    ok = inner & (c < 0) & np.isfinite(xv) & (xv >= x0) & (xv <= x2)
+    return np.where(ok, xv, t_best), np.where(ok, yv, y_best)
+
+
 def hermite_peak(theta, Yr, Fr, lo=None, hi=None):
     """Maximum of the Hermite interpolant of a row (B, N+1): (angle (B,), value (B,)).
 
@@ -208,13 +239,10 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     t_pmax, p_max = hermite_peak(th, p, dp, lo_win, hi_win)
     out["p_max_bar"] = p_max / 1e5
     out["theta_pmax_deg"] = t_pmax
-    win = (th >= lo_win) & (th <= hi_win)
-    dpw = np.where(win[None, :], dp, -np.inf)
-    jmax = np.argmax(dpw, axis=1)
-    out["dp_dtheta_max_bar_per_deg"] = dp[np.arange(B), jmax] / 1e5
-    out["theta_dp_max_deg"] = th[jmax]
-    Tw = np.where(win[None, :], Y[1], -np.inf)
-    out["T_max_K"] = Tw.max(axis=1)
+    t_dp, dp_max = parabola_peak(th, dp, lo_win, hi_win)
+    out["dp_dtheta_max_bar_per_deg"] = dp_max / 1e5
+    out["theta_dp_max_deg"] = t_dp
+    out["T_max_K"] = hermite_peak(th, Y[1], F[1], lo_win, hi_win)[1]
 
     # -- work ----------------------------------------------------------------
     W = Y[I["W"]]

@@ -352,6 +352,7 @@ def _json_sections(path: Path) -> list[dict]:
         return secs
     if "summary" in data and isinstance(data["summary"], dict):  # a run's summary.json
         s = data["summary"]
+        secs.extend(_run_table_sections(data))
         secs.append({"heading": f"{path.name}: figures",
                      "table": {"columns": ["figure", "value"], "rows": _scalar_rows(s, ("energy_balance",))}})
         if isinstance(s.get("energy_balance"), dict):
@@ -359,8 +360,27 @@ def _json_sections(path: Path) -> list[dict]:
                          "table": {"columns": ["term", "J"], "rows": _scalar_rows(s["energy_balance"])}})
         if data.get("warnings"):
             secs.append({"heading": "Warnings", "text": data["warnings"]})
+        if isinstance(data.get("inputs"), dict):
+            secs.append({"heading": "Inputs", "table": {"columns": ["key", "value"],
+                                                        "rows": [[k, v] for k, v in data["inputs"].items()]}})
+        if data.get("references"):
+            secs.append({"heading": "References", "text": list(data["references"])})
         return secs
     return _dict_sections(data, path.name)
+
+
+def _run_table_sections(data: dict) -> list[dict]:
+    """The printed summary table of a run, rebuilt from its summary.json (none if it cannot be)."""
+    from .api import CaseResult
+    from .output import summary_table
+
+    try:
+        res = CaseResult(name=str(data.get("name", "")), inputs=dict(data["inputs"]), summary=dict(data["summary"]),
+                         warnings=list(data.get("warnings", [])), models=dict(data.get("models", {})),
+                         references=list(data.get("references", [])), cycle_loop=str(data.get("cycle_loop", "")))
+        return [{"heading": "Summary", "pre": summary_table(res)}]
+    except (KeyError, TypeError, ValueError):
+        return []
 
 
 def report_for_study(folder) -> list[dict]:
@@ -388,5 +408,7 @@ def report_for_study(folder) -> list[dict]:
     if pngs:
         secs.append({"heading": "Plots", "images": [(p.stem.replace("_", " "), p) for p in pngs]})
     if not secs:
-        secs.append({"heading": "Empty", "text": f"no JSON, CSV or PNG files in {folder}"})
+        from .errors import CyclesimError
+
+        raise CyclesimError(f"report: no results in {folder} (no JSON, CSV or PNG files)")
     return secs

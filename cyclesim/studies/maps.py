@@ -42,7 +42,7 @@ from ..errors import ConfigError, CyclesimError
 from ..output import CAUTION, atomic_write_text, write_rows_csv
 from ..output import plain as _plain
 from .spark import SPARK_CAUTION, fit_torque_peak
-from .sweep import parse_values
+from .sweep import WARNING_SEPARATOR, parse_values
 
 __all__ = ["full_load_curve", "part_load_map", "MapResult", "DEFAULT_SPEEDS", "DEFAULT_LOADS", "DEFAULT_ADVANCES"]
 
@@ -132,7 +132,7 @@ def _row(res, extra: dict) -> dict:
     for k in FIGURES:
         row[k] = None if res.error else res.summary.get(k)
     row["spark_advance_deg"] = row.get("spark_advance_deg", None if res.error else res.summary.get("spark_advance_deg"))
-    row["warnings"] = "; ".join(res.warnings)
+    row["warnings"] = WARNING_SEPARATOR.join(res.warnings)
     return row
 
 

@@ -54,6 +54,9 @@ __all__ = ["sweep", "SweepResult", "parse_values", "parse_vary_arg", "read_sweep
 CSV_NAME = "sweep.csv"
 JSON_NAME = "sweep.json"
 FIXED_COLUMNS = ("case", "error", "warnings")
+WARNING_SEPARATOR = " | "
+"""Between a case's warnings in the one ``warnings`` cell (messages use ';' themselves):
+``row["warnings"].split(WARNING_SEPARATOR)`` gives them back."""
 _MAX_CASES = 1_000_000
 _INT_RE = re.compile(r"^[+-]?\d+$")
 
@@ -352,7 +355,8 @@ class SweepResult:
     ----------
     rows : list of dict
         One per case, in case order: ``case``, the varied keys, ``error``
-        (empty if the case ran), ``warnings`` and every scalar summary figure
+        (empty if the case ran), ``warnings`` (the case's messages joined by
+        :data:`WARNING_SEPARATOR`) and every scalar summary figure
         (``energy_balance.*`` flattened).  Missing figures are None.
     columns : list of str
     results : list of CaseResult or None
@@ -738,7 +742,7 @@ def sweep(
                 row["error"] = str(res.error)
             else:
                 row.update(_flatten(res.summary))
-            row["warnings"] = "; ".join(res.warnings)
+            row["warnings"] = WARNING_SEPARATOR.join(res.warnings)
         rows.update(new)
         columns = _columns(keys, new.values(), columns)
         if sink is not None:
