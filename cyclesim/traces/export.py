@@ -228,6 +228,15 @@ def write_trace_set(ts: TraceSet, out_dir, stem: str = "trace",
     return out
 
 
+def _truth_cell(v):
+    """A truth CSV cell: empty for None, true/false as in the JSON file, else the value."""
+    if v is None:
+        return ""
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    return v
+
+
 def write_truth(out_dir, rows: Iterable[dict], stats: dict | None = None, stem: str = "truth") -> list[Path]:
     """Ground truth: one CSV row per cycle, plus a JSON file with the rows and set statistics.
 
@@ -244,7 +253,7 @@ def write_truth(out_dir, rows: Iterable[dict], stats: dict | None = None, stem: 
     w = csv.DictWriter(buf, fieldnames=cols, lineterminator="\n", extrasaction="ignore")
     w.writeheader()
     for r in rows:
-        w.writerow({k: ("" if r.get(k) is None else r.get(k)) for k in cols})
+        w.writerow({k: _truth_cell(r.get(k)) for k in cols})
     p_csv = Path(out_dir) / f"{stem}.csv"
     p_json = Path(out_dir) / f"{stem}.json"
     atomic_write_text(p_csv, buf.getvalue())

@@ -400,8 +400,8 @@ def synthesize(
 
     Parameters
     ----------
-    case : Case
-        The operating point (full-cycle mode).
+    case : Case, str or Path
+        The operating point (full-cycle mode): a case, or a config name or path.
     n_cycles : int
         Number of cycles.
     variation : CycleVariation
@@ -423,6 +423,10 @@ def synthesize(
     from ..api import _registry_for
     from . import artefacts as art
 
+    if not isinstance(case, Case):
+        from ..config import load_config
+
+        case = load_config(case)
     var = variation or CycleVariation()
     out_step, fine = check_request(case, n_cycles, var, resolution_deg, sample_rate_hz, fine_step_deg)
     settings = artefacts if artefacts is not None else art.ArtefactSettings.default()
