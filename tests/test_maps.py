@@ -129,3 +129,19 @@ def test_map_command_line(tmp_path, capsys):
     assert main(args + ["--set", "operating.exhaust_pressure_bar=0.99", "--out", str(bad)]) == 2
     assert "must exceed the ambient" in capsys.readouterr().err
     assert not bad.exists()
+
+
+def test_map_continues_the_default_grid_where_mbt_lies_past_it():
+    # a slow part-load burn (flame-speed law at 0.4 bar) puts MBT beyond the default grid's 45 deg:
+    # the grid is continued for that point and MBT found with CA50 in the usual band (8-10 deg
+    # ATDC at MBT, Heywood 1988 ch. 9, from memory; band widened to 6-12 for the coarse grid)
+    m = part_load_map("demo", [3000], [0.4], overrides=["burn={model: wiebe_flame}", "simulation.step_deg=1.0"],
+                      plots=False)
+    (r,) = m.rows
+    assert r["spark_source"] == "MBT (fit)" and r["spark_advance_deg"] > 45.0
+    assert 6.0 <= r["ca50_deg"] <= 12.0
+    assert any("grid was continued" in n for n in m.notes)
+    # a grid the user gives is kept as given
+    m2 = part_load_map("demo", [3000], [0.4], advances=[10, 20, 30, 40],
+                       overrides=["burn={model: wiebe_flame}", "simulation.step_deg=1.0"], plots=False)
+    assert m2.rows[0]["spark_source"].startswith("best advance at the upper end")

@@ -49,6 +49,10 @@ __all__ = ["full_load_curve", "part_load_map", "MapResult", "DEFAULT_SPEEDS", "D
 DEFAULT_SPEEDS = (2000.0, 2500.0, 3000.0, 3500.0, 4000.0, 4500.0)
 DEFAULT_LOADS = (0.4, 0.55, 0.7, 0.85, 0.98)
 DEFAULT_ADVANCES = (10.0, 17.0, 24.0, 31.0, 38.0, 45.0)
+MBT_EXTEND_ROUNDS = 4
+"""With the default advances: rounds of two more advances past the end where a point's best torque lies."""
+MBT_SEARCH_RANGE_DEG = (-10.0, 80.0)
+"""Spark advances [deg BTDC] the continued grid stays within (80: the spark parameter's upper bound)."""
 FIGURES = ("imep_net_bar", "imep_gross_bar", "pmep_bar", "fmep_bar", "bmep_bar", "torque_Nm", "power_kW",
            "bsfc_g_per_kWh", "eta_brake", "volumetric_efficiency", "exhaust_temperature_K", "p_max_bar",
            "ca50_deg", "residual_fraction")
@@ -323,28 +327,56 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
                                 "operating.exhaust_pressure_bar": p_exh[(n, p)], **more})
 
     if spark == "mbt":
-        grid = [at(n, p, **{"burn.spark_advance_deg": a}) for n, p in points for a in adv]
-        res = simulate(grid)
-        for k, (n, p) in enumerate(points):
-            rr = res[k * len(adv):(k + 1) * len(adv)]
-            t = np.array([np.nan if r.error else r.summary["torque_Nm"] for r in rr])
-            ok = np.isfinite(t)
-            if ok.sum() < 3:
-                mbt[(n, p)] = (None, "fewer than 3 advances ran")
-                continue
-            fit = fit_torque_peak(np.array(adv)[ok], t[ok])
-            if fit["bracketed"]:
-                mbt[(n, p)] = (fit["mbt_deg"], "MBT (fit)")
+        tried = {pt: {} for pt in points}           # per point: advance -> torque (nan: failed)
+
+        def run_grid(todo):
+            todo = [(pt, a) for pt, a in todo if a not in tried[pt]]
+            for (pt, a), r in zip(todo, simulate([at(*pt, **{"burn.spark_advance_deg": a}) for pt, a in todo])):
+                tried[pt][a] = np.nan if r.error else r.summary["torque_Nm"]
+
+        run_grid([(pt, a) for pt in points for a in adv])
+        # with the default grid, a point whose best torque lies at an end of it gets the grid
+        # continued past that end (a slow part-load burn puts MBT beyond 45 deg), within the
+        # spark parameter's range
+        step = float(np.median(np.diff(adv)))
+        lo_lim, hi_lim = MBT_SEARCH_RANGE_DEG
+        fits = {}
+        for round_ in range(MBT_EXTEND_ROUNDS + 1):
+            more = []
+            for pt in points:
+                a_s = np.array(sorted(tried[pt]))
+                t = np.array([tried[pt][a] for a in a_s])
+                ok = np.isfinite(t)
+                fits[pt] = fit_torque_peak(a_s[ok], t[ok]) if ok.sum() >= 3 else None
+                f = fits[pt]
+                if advances is None and f is not None and not f["bracketed"] and round_ < MBT_EXTEND_ROUNDS:
+                    edge = a_s[ok][-1] if f["edge"] != "low" else a_s[ok][0]
+                    nxt = [edge + k * step for k in (1, 2)] if f["edge"] != "low" else [edge - k * step for k in (1, 2)]
+                    more += [(pt, float(a)) for a in nxt if lo_lim <= a <= hi_lim]
+            if not more:
+                break
+            run_grid(more)
+        for pt in points:
+            f = fits[pt]
+            if f is None:
+                mbt[pt] = (None, "fewer than 3 advances ran")
+            elif f["bracketed"]:
+                mbt[pt] = (f["mbt_deg"], "MBT (fit)")
             else:
-                a_edge = float(np.array(adv)[ok][0 if fit["edge"] == "low" else -1])
-                mbt[(n, p)] = (a_edge, f"best advance at the {'lower' if fit['edge'] == 'low' else 'upper'} end"
-                                       " of the grid (MBT lies outside it)")
+                a_s = sorted(a for a, v in tried[pt].items() if np.isfinite(v))
+                a_edge = float(a_s[0] if f["edge"] == "low" else a_s[-1])
+                mbt[pt] = (a_edge, f"best advance at the {'lower' if f['edge'] == 'low' else 'upper'} end"
+                                   " of the grid (MBT lies outside it)")
+        extended = sorted({a for pt in points for a in tried[pt]} - set(adv))
         final = []
         for n, p in points:
             a, _ = mbt[(n, p)]
             final.append(at(n, p, **({"burn.spark_advance_deg": a} if a is not None else {})))
         notes.append(f"MBT per point from advances {', '.join(f'{a:g}' for a in adv)} deg BTDC, read by the"
                      " spark study's torque fit; each point then runs at its MBT")
+        if extended:
+            notes.append(f"where MBT lay past the grid's end the grid was continued for that point"
+                         f" ({', '.join(f'{a:g}' for a in extended)} deg BTDC)")
         res = simulate(final)
     else:
         res = [last[pt] for pt in points] if last is not None else simulate([at(n, p) for n, p in points])
