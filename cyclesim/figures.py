@@ -43,6 +43,16 @@ def derived_trace(batch, tr: CycleTrace) -> dict[str, np.ndarray]:
     return {"V": np.asarray(V), "dV": np.asarray(dV), "p": p, "dp": dp, "rho": rho, "y_b": y, **pr}
 
 
+def _grid_max(theta, Yr, lo, hi):
+    """The window mask (N+1,) of ``lo <= theta <= hi`` and each row's largest point in it (B,)."""
+    mask = np.ones(theta.size, dtype=bool)
+    if lo is not None:
+        mask &= theta >= lo
+    if hi is not None:
+        mask &= theta <= hi
+    return mask, np.argmax(np.where(mask[None, :], Yr, -np.inf), axis=1)
+
+
 def parabola_peak(theta, Yr, lo=None, hi=None):
     """Maximum of a row (B, N+1) known only at the grid points: (angle (B,), value (B,)).
 
@@ -51,12 +61,7 @@ def parabola_peak(theta, Yr, lo=None, hi=None):
     largest point itself.  ``lo``/``hi`` restrict the search window [deg].
     """
     B, n1 = Yr.shape
-    mask = np.ones(n1, dtype=bool)
-    if lo is not None:
-        mask &= theta >= lo
-    if hi is not None:
-        mask &= theta <= hi
-    i = np.argmax(np.where(mask[None, :], Yr, -np.inf), axis=1)
+    mask, i = _grid_max(theta, Yr, lo, hi)
     r = np.arange(B)
     t_best, y_best = theta[i].astype(float), Yr[r, i].astype(float)
     inner = (i > 0) & (i < n1 - 1)
@@ -80,13 +85,7 @@ def hermite_peak(theta, Yr, Fr, lo=None, hi=None):
     ``lo``/``hi`` restrict the search window [deg].
     """
     B, n1 = Yr.shape
-    mask = np.ones(n1, dtype=bool)
-    if lo is not None:
-        mask &= theta >= lo
-    if hi is not None:
-        mask &= theta <= hi
-    Ym = np.where(mask[None, :], Yr, -np.inf)
-    i = np.argmax(Ym, axis=1)
+    _, i = _grid_max(theta, Yr, lo, hi)
     best_t = theta[i].astype(float)
     best_v = Yr[np.arange(B), i].astype(float)
     r = np.arange(B)
