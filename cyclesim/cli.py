@@ -41,6 +41,12 @@ def build_parser() -> argparse.ArgumentParser:
     pl.add_argument("role", nargs="?", help="only this role (burn, heat_transfer, ...)")
     pl.add_argument("--debug", action="store_true")
 
+    k = sub.add_parser("keys", help="list the core config keys (engine, valves, operating, ...) with unit,"
+                                    " default, allowed range and meaning")
+    k.add_argument("section", nargs="?", help="only this section (engine, valves, operating, fuel, gas, walls,"
+                                              " simulation, multi_cylinder)")
+    k.add_argument("--debug", action="store_true")
+
     c = sub.add_parser("configs", help="list the built-in configs")
     c.add_argument("--debug", action="store_true")
 
@@ -99,12 +105,34 @@ def cmd_plugins(args) -> int:
         print(f"[{role}]")
         for name, cls in sorted(reg.submodels[role].items()):
             print(f"  {name}: {cls.summary}  ({cls.__module__})")
-            for p in cls.params:
-                default = "required" if p.required else repr(p.default)
-                print(f"      {p.name:<28s} [{p.unit}] default {default}; {p.range_text()}. {p.doc}")
+            _print_params(cls.params, "      ")
             for ref in cls.references:
                 print(f"      ref: {ref}")
         print()
+    return 0
+
+
+def _print_params(params, indent: str) -> None:
+    """One line per declared parameter: name, unit, default, allowed range, meaning."""
+    for p in params:
+        default = "required" if p.required else repr(p.default)
+        print(f"{indent}{p.name:<28s} [{p.unit}] default {default}; {p.range_text()}. {p.doc}")
+
+
+def cmd_keys(args) -> int:
+    """``cyclesim keys [SECTION]``: the core config sections' keys with unit, default, range, meaning."""
+    from .config import CORE_SCHEMA, MULTI_SCHEMA
+    from .params import suggestion
+
+    sections = {**CORE_SCHEMA, "multi_cylinder": MULTI_SCHEMA}
+    if args.section and args.section not in sections:
+        raise CyclesimError(f"keys {args.section!r}: unknown section" + suggestion(args.section, sections)
+                            + f"; sections: {', '.join(sections)} (submodel sections: cyclesim plugins ROLE)")
+    for sec in [args.section] if args.section else sections:
+        print(f"[{sec}]")
+        _print_params(sections[sec], "  ")
+        print()
+    print("submodel sections (burn, heat_transfer, ...): cyclesim plugins [ROLE]")
     return 0
 
 
@@ -130,6 +158,8 @@ def cmd_show(args) -> int:
         out[sec] = dict(vars(case.section(sec)))
     for role, ch in case.submodels.items():
         out[role] = {"model": ch.model, **ch.params}
+    if case.multi_cylinder is not None:
+        out["multi_cylinder"] = dict(vars(case.multi_cylinder))
     print(yaml.safe_dump(out, sort_keys=False))
     return 0
 
@@ -145,7 +175,7 @@ def main(argv: list[str] | None = None) -> int:
     if not args.command:
         ap.print_help()
         return 0
-    handlers = {"run": cmd_run, "plugins": cmd_plugins, "configs": cmd_configs, "show": cmd_show}
+    handlers = {"run": cmd_run, "plugins": cmd_plugins, "configs": cmd_configs, "show": cmd_show, "keys": cmd_keys}
     from .cli_studies import HANDLERS
     from .cli_traces import HANDLERS as TRACE_HANDLERS
 

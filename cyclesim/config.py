@@ -112,8 +112,10 @@ MULTI_SCHEMA: tuple[Param, ...] = (
     P("manifolds", "-", "coupled", "coupled: shared intake and exhaust manifolds (volumes, throttle, exhaust"
       " restriction); constant: every cylinder sees the operating point's plenum pressures",
       kind="choice", choices=("coupled", "constant"), sweepable=False),
-    P("ambient_pressure_bar", "bar", 1.0, "air pressure upstream of the throttle and after the exhaust system",
-      0, 10, min_exclusive=True),
+    P("ambient_pressure_bar", "bar", 1.0, "ambient air pressure: after the exhaust system's restriction, and"
+      " ahead of the throttle unless intake_supply_pressure_bar is given", 0, 10, min_exclusive=True),
+    P("intake_supply_pressure_bar", "bar", None, "air pressure ahead of the throttle, for a boosted engine the"
+      " charge-air pressure (default: ambient_pressure_bar)", 0, 10, min_exclusive=True),
     P("intake_manifold_volume_L", "L", 2.0, "intake manifold (plenum and runners) volume", 0, 100,
       min_exclusive=True),
     P("throttle_diameter_mm", "mm", 48.0, "throttle bore", 0, 500, min_exclusive=True),

@@ -282,6 +282,12 @@ def cylinder_cases(setup: EngineSetup) -> list[Case]:
 # -- manifolds ----------------------------------------------------------------------
 
 
+def supply_pressure_bar(ms) -> float:
+    """Air pressure ahead of the throttle [bar]: ``intake_supply_pressure_bar``, else ambient."""
+    v = getattr(ms, "intake_supply_pressure_bar", None)
+    return float(ms.ambient_pressure_bar if v is None else v)
+
+
 class _Manifolds:
     """Periodic filling-and-emptying of the coupled engines' manifolds, vectorised over engines."""
 
@@ -292,6 +298,8 @@ class _Manifolds:
         self.phi = -360.0 + step * np.arange(self.n + 1)
         e0 = engines
         self.p_amb = np.array([e["ms"].ambient_pressure_bar * 1e5 for e in e0])
+        # the air ahead of the throttle: ambient, or the charge air of a boosted engine
+        self.p_sup = np.array([supply_pressure_bar(e["ms"]) * 1e5 for e in e0])
         self.T_amb = np.array([e["T_int"] for e in e0])
         self.T_int = self.T_amb.copy()
         self.T_exh = np.array([e["T_exh"] for e in e0])
@@ -333,7 +341,7 @@ class _Manifolds:
         """Throttle flow [kg/deg] of some engines (``rows`` a slice) at pressure p."""
         from .flow import orifice_mass_flow
 
-        return orifice_mass_flow(self.A_thr[rows], self.p_amb[rows], self.T_amb[rows], R_AIR, GAMMA_AIR,
+        return orifice_mass_flow(self.A_thr[rows], self.p_sup[rows], self.T_amb[rows], R_AIR, GAMMA_AIR,
                                  p, self.T_int[rows], R_AIR, GAMMA_AIR) / self.omega[rows]
 
     def q_outlet_rows(self, p, rows):
@@ -397,7 +405,7 @@ class _Manifolds:
 
             def lap_i(p0):      # the throttle fills the manifold with air from ambient
                 return mod.manifold_lap(f64(p0), self.h, f64(ki), f64(self.A_thr), f64(self.T_int), R_int,
-                                        GAMMA_AIR, f64(self.p_amb), f64(self.T_amb), R_AIR, GAMMA_AIR,
+                                        GAMMA_AIR, f64(self.p_sup), f64(self.T_amb), R_AIR, GAMMA_AIR,
                                         f64(self.omega), Qi_, pr_, True, dp, DP_LIN_DEFAULT)
 
             def lap_e(p0):      # the outlet empties the branch to ambient (no reference pressure)
@@ -712,6 +720,14 @@ def _engine_result(inf, res, man_tr, phi, walls_T, n_coupled, settled) -> Engine
     if not settled:
         warnings.append(f"manifolds or walls not settled after {n_coupled} coupled cycles"
                         f" (raise multi_cylinder.max_coupled_cycles)")
+    if inf["manifolds"] == "coupled":
+        sup = supply_pressure_bar(inf["ms"])
+        p_in = float(case.operating.intake_pressure_bar)
+        if p_in > 1.05 * sup:
+            warnings.append(
+                f"the coupled intake manifold fills from {sup:g} bar ahead of the throttle"
+                f" (multi_cylinder.intake_supply_pressure_bar, else ambient_pressure_bar), below the config's"
+                f" intake pressure {p_in:g} bar: a boosted engine needs its charge-air pressure there")
     speed = inf["speed_rpm"]
     cps = speed / 120.0                        # cycles per second per cylinder
     Vd = float(case.engine.bore_mm * 1e-3) ** 2 * math.pi / 4 * case.engine.stroke_mm * 1e-3

@@ -159,3 +159,21 @@ def test_case_with_still_validates_the_changed_section():
         case_with(load_config("demo"), {"burn.spark_advance_deg": 300.0})
     with pytest.raises(ConfigError, match="conrod"):
         case_with(load_config("demo"), {"engine.conrod_mm": 30.0})
+
+
+def test_keys_lists_every_core_key_with_unit_and_meaning():
+    import subprocess
+    import sys
+
+    from cyclesim.config import CORE_SCHEMA, MULTI_SCHEMA
+
+    r = subprocess.run([sys.executable, "-m", "cyclesim", "keys"], capture_output=True, text=True)
+    assert r.returncode == 0
+    for params in (*CORE_SCHEMA.values(), MULTI_SCHEMA):
+        for p in params:
+            line = next(ln for ln in r.stdout.splitlines() if ln.split() and ln.split()[0] == p.name)
+            assert f"[{p.unit}]" in line and p.doc in line
+    bad = subprocess.run([sys.executable, "-m", "cyclesim", "keys", "operatin"], capture_output=True, text=True)
+    assert bad.returncode == 2 and "did you mean 'operating'" in bad.stderr
+    shown = subprocess.run([sys.executable, "-m", "cyclesim", "show", "demo"], capture_output=True, text=True)
+    assert "multi_cylinder:" in shown.stdout and "firing_order" in shown.stdout

@@ -234,3 +234,34 @@ def test_progress_lines_replace_each_other_only_on_a_terminal():
             assert "\n" not in text and text.count("\r\033[K") == 3 and text.endswith("\r\033[K")
         else:
             assert text == "  coupled cycle 1: change 1.0e+00\n  coupled cycle 2: change 5.7e-02\n"
+
+
+def test_boosted_supply_feeds_the_throttle_and_the_exhaust_empties_to_ambient():
+    """A boosted engine: the throttle draws from the charge air (intake_supply_pressure_bar) while the
+    exhaust restriction still empties to ambient.  Reference as above: the isentropic restriction
+    equation (Heywood 1988, App. C), solved independently for each side."""
+    case = cyclesim.load_config("demo", ["multi_cylinder.intake_supply_pressure_bar=1.6",
+                                         "multi_cylinder.throttle_angle_deg=30"])
+    ms = case.multi_cylinder
+    info = {"ms": ms, "T_int": 320.0, "T_exh": 950.0, "R_int": 287.0, "R_exh": 287.0, "speed_rpm": 3000.0}
+    man = _Manifolds([info], 1.0)
+    mdot = 0.050
+    Q = np.full((1, man.n), mdot / man.omega[0])
+    p_ref = 1.4e5
+    pi, pe = man.solve(Q, np.full((1, man.n), p_ref), Q.copy(), np.array([1.4e5]), np.array([1.2e5]))
+    cda = ms.throttle_discharge_coefficient * throttle_area(ms.throttle_diameter_mm * 1e-3, 30.0,
+                                                            ms.throttle_closed_angle_deg)
+    p_i = brentq(lambda p: _orifice_ref(cda, 1.6e5, 320.0, p) - mdot * p / p_ref, 1e3, 1.6e5 - 1e-3)
+    assert pi[0, -1] == pytest.approx(p_i, rel=2e-5) and pi[0, -1] > 1.05e5     # above ambient: boosted
+    a_out = math.pi / 4 * (ms.exhaust_outlet_diameter_mm * 1e-3) ** 2
+    p_amb = ms.ambient_pressure_bar * 1e5
+    p_e = brentq(lambda p: _orifice_ref(a_out, p, 950.0, p_amb, 287.0, 1.33) - mdot, p_amb + 1e-3, 5 * p_amb)
+    assert pe[0, -1] == pytest.approx(p_e, rel=2e-5)
+
+
+def test_a_boosted_config_without_its_supply_pressure_is_warned():
+    eng = run_engine("demo_turbo", TWO + ["multi_cylinder.intake_supply_pressure_bar=1.0"])
+    assert any("a boosted engine needs its charge-air pressure there" in w for w in eng.warnings)
+    ok = run_engine("demo_turbo", TWO)
+    assert not any("charge-air pressure" in w for w in ok.warnings)
+    assert ok.engine["intake_manifold_mean_bar"] > 1.5
