@@ -9,6 +9,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Callable, Mapping, Sequence
 
@@ -182,6 +183,14 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
             )
         res.warnings.extend(model_warn[i])
         res.warnings.extend(_gas_exchange_warnings(summ))
+        if batch.simulation.mode == "full" and summ.get("burned_fraction_ivc", 0.0) > BURNED_FRACTION_LIMIT:
+            res.warnings.append(
+                f"burned-gas fraction at IVC {100 * summ['burned_fraction_ivc']:.0f} %: beyond about"
+                f" {100 * BURNED_FRACTION_LIMIT:.0f} % a spark-ignited charge no longer burns steadily (misfires and"
+                f" partial burns; common practice), but the burn model burns it as given")
+        if batch.simulation.mode == "full" and not np.isfinite(summ.get("exhaust_temperature_K", 0.0)):
+            res.warnings.append("exhaust temperature not defined: the net flow out through the exhaust valves is"
+                                " too small against its backflow")
         if summ.get("fmep_bar", 0.0) < 0.0:
             res.warnings.append(f"friction model {case.submodels['friction'].model!r} gives a negative FMEP"
                                 f" ({summ['fmep_bar']:.2f} bar): brake output above indicated (components are"
@@ -221,6 +230,10 @@ def _closure(res: CaseResult) -> float:
     cf = eb.get("closure_fraction", 0.0)
     return float(cf) if np.isfinite(cf) else float("inf")
 
+
+BURNED_FRACTION_LIMIT = 0.3
+"""Burned-gas (residual plus EGR) mass fraction at IVC above which a case is warned as beyond
+stable spark ignition (common practice: about 25-30 % for a homogeneous charge)."""
 
 REFINE_CLOSURE = 1e-3
 """Energy-balance miss (fraction of fuel energy) above which a case is re-run at half the step."""
@@ -311,8 +324,18 @@ def simulate(cases, progress: Callable[[int], None] | None = None,
                                  f" balance at twice that step missed by {miss:.2g} % of the fuel energy")
             out[i] = r
     for i, r in enumerate(out):
-        if abs(_closure(r)) > REFINE_CLOSURE:
-            r.error = (f"solver: the energy balance misses by {100 * _closure(r):.2g} % of the fuel energy even at"
+        miss = _closure(r)
+        if abs(miss) > REFINE_CLOSURE and not math.isfinite(miss):
+            s = r.summary
+            r.error = ("solver: the energy balance cannot be formed (a non-finite term"
+                       + (f"; burned-gas fraction at IVC {100 * s['burned_fraction_ivc']:.0f} %, net fresh charge"
+                          f" {s.get('inducted_mass_mg', float('nan')):.3g} mg"
+                          if "burned_fraction_ivc" in s else "")
+                       + "): the gas exchange hardly renews the charge at these plenum pressures and valve"
+                         " events; check operating.exhaust_pressure_bar against intake_pressure_bar and the overlap")
+            r.summary, r.trace = {}, {}
+        elif abs(miss) > REFINE_CLOSURE:
+            r.error = (f"solver: the energy balance misses by {100 * miss:.2g} % of the fuel energy even at"
                        f" simulation.step_deg = {cases[i].simulation.step_deg:g}: numerically unreliable at this"
                        f" crank angle resolution; reduce simulation.step_deg")
             r.summary, r.trace = {}, {}

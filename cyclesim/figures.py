@@ -428,7 +428,9 @@ def _exhaust_temperature(batch, m_out, H_out, mu_out) -> np.ndarray:
         hT = mp.u + mp.R * T
         cp = mp.u_T + mp.R + T * mp.R_T
         T = np.where(ok, np.clip(T - (hT - np.where(ok, h_mean, hT)) / cp, 250.0, 4000.0), 900.0)
-    return np.where(ok, T, np.nan)
+    # a temperature pinned at a bound is no solution: the net outflow's enthalpy is not that of a gas
+    # (most of the flow went out and came back)
+    return np.where(ok & (T > 250.0) & (T < 4000.0), T, np.nan)
 
 
 def output_trace(batch, tr: CycleTrace, d: dict, step: float | None) -> dict[str, np.ndarray]:

@@ -122,3 +122,20 @@ def test_batch_with_cases_settling_early_and_at_the_cycle_limit():
     assert throttled.summary["cycles_to_converge"] == 4
     assert any("not settled" in w for w in throttled.warnings)
     assert not any("not settled" in w for w in wot.warnings)
+
+
+def test_a_charge_the_gas_exchange_hardly_renews_is_warned_not_reported_as_normal():
+    # 90 deg of overlap against an exhaust plenum 0.22 bar above the intake: most of the charge is
+    # burned gas pushed back; beyond about 25-30 % burned gas a spark-ignited charge misfires (common
+    # practice), and an exhaust temperature of the net outflow is not defined when backflow dominates
+    over = ["valves.ivo_deg=-405", "valves.evc_deg=405", "operating.speed_rpm=2000",
+            "operating.exhaust_pressure_bar=1.2"]
+    r = cyclesim.simulate([load_config("demo", over)])[0]
+    assert r.ok
+    assert r.summary["burned_fraction_ivc"] > 0.3
+    assert any(w.startswith("burned-gas fraction at IVC") for w in r.warnings)
+    T = r.summary["exhaust_temperature_K"]
+    assert (np.isnan(T) and any(w.startswith("exhaust temperature not defined") for w in r.warnings)) \
+        or 400.0 < T < 2500.0                      # never a bound of the iteration reported as a value
+    # the demo itself is far from it
+    assert not any("burned-gas fraction" in w for w in cyclesim.run("demo_closed").warnings)

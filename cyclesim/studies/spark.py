@@ -427,6 +427,9 @@ def _unburned_at_onset(table: SweepResult, ok: np.ndarray, onset: np.ndarray):
     return np.array(out)
 
 
+_LIMIT_UNITS = {"p_max_bar": "bar", "dp_dtheta_max_bar_per_deg": "bar/deg"}
+
+
 def _limit(st, label, col, limit, table, adv) -> tuple[float | None, str]:
     """Advance at which a rising figure reaches its limit: (advance, status of crossing_up)."""
     if limit is None:
@@ -436,9 +439,10 @@ def _limit(st, label, col, limit, table, adv) -> tuple[float | None, str]:
         return None, "none"
     x, status = crossing_up(adv, table.column(col), float(limit))
     if status == "always":
-        st.notes.append(f"{label} already reaches {limit:g} at the least advance swept ({adv.min():g} deg BTDC)")
+        st.notes.append(f"{label} already reaches {limit:g} {_LIMIT_UNITS.get(col, '')} at the least advance"
+                        f" swept ({adv.min():g} deg BTDC)")
     elif status == "never":
-        st.notes.append(f"{label} stays below {limit:g} over the whole sweep")
+        st.notes.append(f"{label} stays below {limit:g} {_LIMIT_UNITS.get(col, '')} over the whole sweep")
     return x, status
 
 
