@@ -232,5 +232,17 @@ class Components(Friction):
         terms = self.breakdown(f)
         return {grp: sum(terms[k] for k in keys) for grp, keys in self.GROUPS.items()}
 
+    FITTED_PISTON_SPEED_M_PER_S = 20.0
+    """Mean piston speed beyond that of the production engines the terms were fitted to (about
+    20 m/s; from memory): the speed terms grow with its square there and are extrapolated."""
+
+    def warnings(self, trace) -> list[list[str]]:
+        """Mean piston speed beyond the correlation's fitted range."""
+        Sp = np.asarray(self.ctx.geometry.mean_piston_speed(self.ctx.speed_rpm), float) * np.ones(self.B)
+        lim = self.FITTED_PISTON_SPEED_M_PER_S
+        return [[f"friction model 'components': mean piston speed {s:.1f} m/s is beyond the about {lim:g} m/s"
+                 f" of the engines its terms were fitted to (from memory); FMEP is extrapolated"] if s > lim else []
+                for s in Sp]
+
 
 SUBMODELS = [NoFriction, ChenFlynn, BarnesMoss, Components]

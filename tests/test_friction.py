@@ -146,3 +146,14 @@ def test_components_accessory_load_adds_constant():
     acc = build(fr.Components, 2, accessory_load_bar=0.25)
     f = inputs([2500.0, 5000.0])
     np.testing.assert_allclose(total(acc.fmep(f)) - total(base.fmep(f)), 0.25e5, rtol=1e-12)
+
+
+def test_components_warn_beyond_their_fitted_piston_speed():
+    # the component terms were fitted to production engines up to about 20 m/s mean piston speed
+    # (from memory); 8000 rpm on the demo's 81.5 mm stroke is 21.7 m/s (Sp = 2 S N / 60)
+    import cyclesim
+
+    fast = cyclesim.run("demo", ["friction.model=components", "operating.speed_rpm=8000", "simulation.step_deg=1.0"])
+    assert any("mean piston speed 21.7 m/s" in w for w in fast.warnings)
+    mid = cyclesim.run("demo", ["friction.model=components", "simulation.step_deg=1.0"])
+    assert not any("piston speed" in w for w in mid.warnings)
