@@ -232,11 +232,18 @@ class _RHS:
         return out
 
     def _bad_state(self, theta: float, y: np.ndarray) -> np.ndarray:
-        """Stop the cases whose mass or temperature is not finite; a harmless stand-in state."""
-        bad = ~(np.isfinite(y[1]) & np.isfinite(y[0]))
+        """Stop the cases whose mass is not positive or whose mass or temperature is not finite
+        (within a step's stages too); a harmless stand-in state."""
+        bad = ~(np.isfinite(y[1]) & np.isfinite(y[0]) & (y[0] > 0.0))
         for i in np.flatnonzero(bad & self.alive):
-            self.failed[i] = (f"solver: state became non-finite at crank angle {theta:.2f} deg;"
-                              f" try a smaller simulation.step_deg")
+            if np.isfinite(y[0, i]) and y[0, i] <= 0.0:
+                self.failed[i] = (f"solver: the cylinder emptied within a step at crank angle {theta:.2f} deg"
+                                  f" (mass {y[0, i]:.3g} kg): the flow through the valves changes the cylinder"
+                                  f" faster than the step resolves; reduce simulation.step_deg, or check the"
+                                  f" valve areas and plenum pressures")
+            else:
+                self.failed[i] = (f"solver: state became non-finite at crank angle {theta:.2f} deg;"
+                                  f" try a smaller simulation.step_deg")
         self.kill(bad)
         y = np.where(bad[None, :], 1.0, y)
         y[1] = np.where(bad, 1000.0, y[1])
@@ -255,8 +262,8 @@ class _RHS:
             any_burn = True
         else:
             V, dV, Ah, Ap, Al, closed, burning, any_burn = geo
-        # one product catches a non-finite mass or temperature of any case
-        if not math.isfinite(float(np.dot(y[0], y[1]))):
+        # one product catches a non-finite mass or temperature of any case, the least mass an emptied one
+        if not math.isfinite(float(np.dot(y[0], y[1]))) or not float(y[0].min()) > 0.0:
             y = self._bad_state(theta, y)
         m = y[0]
         T = y[1]
