@@ -385,7 +385,9 @@ def test_unphysical_case_is_rerun_on_python_with_the_same_error(monkeypatch):
         # checked against: the message of a pure Python run (the reference names the cause)
         assert a.error is not None and a.error == b.error
     assert "left the physical range" in fast[1].error and "crank angle" in fast[1].error
-    assert "heat_transfer model 'woschni'" in fast[2].error and "non-finite" in fast[2].error
+    # at 100 rpm with a 5 deg step the valve flow empties the cylinder within a step's stages: the
+    # message names that cause (it used to surface as Woschni's non-finite heat flow)
+    assert "the cylinder emptied within a step" in fast[2].error and "crank angle" in fast[2].error
     # the healthy batch-mate is not spoiled by the hand-over
     assert_same_results(fast[0], ref[0], what="healthy batch-mate")
 
@@ -503,7 +505,7 @@ def test_zero_mass_column_stops_that_case_alone_on_both_paths(monkeypatch):
         y0[0, 1] = 0.0
         out[path] = integrate(batch, initial=y0, cycles=1)
     ref, got = out["python"], out["auto"]
-    assert ref.failed[0] is None and ref.failed[1] and "non-finite" in ref.failed[1]
+    assert ref.failed[0] is None and ref.failed[1] and "the cylinder emptied" in ref.failed[1]
     assert got.failed == ref.failed
     np.testing.assert_allclose(got.Y[:, 0], ref.Y[:, 0], rtol=1e-9, atol=0)
 
