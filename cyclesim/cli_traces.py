@@ -39,6 +39,11 @@ def add_parsers(subparsers) -> None:
     t.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
     t.add_argument("--artefacts", choices=("default", "none"), default="default",
                    help="measurement flaws: a realistic default set, or none (true pressure) (default: default)")
+    t.add_argument("--artefact", dest="artefact_changes", action="append", default=[], metavar="KEY=VALUE",
+                   help="set one measurement flaw on top of --artefacts (repeatable; KEY a field of"
+                        " cyclesim.traces.artefacts.ArtefactSettings, e.g. --artefact tdc_offset_deg=0.5"
+                        " --artefact noise_bar=0.05 --artefact clip_max_bar=none"
+                        " --artefact knock_mode_weights=1,0.5,0.35,0.25,0.15; default: none)")
     t.add_argument("--formats", default=None,
                    help="comma list of csv_long, csv_wide, npz, mf4 (default: all; mf4 when the optional"
                         " MDF extra is installed)")
@@ -216,6 +221,9 @@ def cmd_traces(args) -> int:
 
     t0 = time.perf_counter()
     case = load_config(args.config, list(args.overrides))
+    settings = art.ArtefactSettings.default() if args.artefacts == "default" else art.ArtefactSettings.none()
+    for change in getattr(args, "artefact_changes", None) or []:
+        settings = settings.with_text(change, "--artefact")     # checked before any folder is made
 
     mdf_hint = 'install the optional MDF extra from the project folder: pip install -e ".[mdf]"'
     skipped_mdf = False
@@ -260,7 +268,6 @@ def cmd_traces(args) -> int:
         else:
             prepare_out_dir(args.out, args.force)
             shutil.rmtree(args.out / ".chunks", ignore_errors=True)
-        settings = art.ArtefactSettings.default() if args.artefacts == "default" else art.ArtefactSettings.none()
         ss = synthesize(case, args.cycles, var, resolution_deg=resolution,
                         sample_rate_hz=args.sample_rate, artefacts=settings, checkpoint_dir=args.out / ".chunks")
     except CyclesimError:
@@ -276,7 +283,7 @@ def cmd_traces(args) -> int:
     files = write_trace_set(ts, args.out, "trace", formats)
     truth_ts = TraceSet(ss.theta, ss.pressure_true_pa, None, ss.meta["speed_rpm"], dict(meta, signal="true pressure"))
     files += write_trace_set(truth_ts, args.out, "true_pressure", [f for f in formats if f == "npz"] or ["npz"])
-    files += write_truth(args.out, ss.truth, ss.stats)
+    files += write_truth(args.out, ss.truth, ss.stats, settings=ss.settings)
     if not args.no_plots:
         from .plots import plot_trace_set
 

@@ -61,10 +61,10 @@ def test_knock_ringing_rings_at_the_first_mode_with_the_given_amplitude():
     P, _ = smooth_cycles(1)
     T = np.full(P.shape, 2500.0)
     gamma, R, bore = 1.25, 290.0, 0.079
-    s = NONE.replace(knock_amplitude_bar_per_intensity=2.0, knock_decay_s=1.0e-3,
+    s = NONE.replace(knock_amplitude_bar_per_unburned=2.0, knock_amplitude_log_sd=0.0, knock_decay_s=1.0e-3,
                      knock_mode_weights=(1.0, 0.0, 0.0, 0.0, 0.0), knock_gas_constant_J_per_kgK=R)
     meas, _, truth = apply_artefacts(P, TH, N, s, np.random.default_rng(0), T=T, gamma=gamma, bore_m=bore,
-                                     knock_onset_deg=[10.0], knock_intensity=[1.5])
+                                     knock_onset_deg=[10.0], knock_unburned_fraction=[1.5])
     ring = (meas - P)[0] / 1e5
     f10 = np.sqrt(gamma * R * T[0, 0]) * jnp_zeros(1, 1)[0] / (np.pi * bore)   # Draper 1938
     assert truth["knock_mode_frequency_at_onset_hz"][0, 0] == pytest.approx(f10, rel=1e-9)
@@ -83,10 +83,10 @@ def test_knock_ringing_rings_at_the_first_mode_with_the_given_amplitude():
 def test_knock_ringing_frequency_follows_gas_temperature():
     P, _ = smooth_cycles(1)
     T = np.where(TH < 0, 2600.0, 2600.0 - 6.0 * TH)[None, :]     # cooling through the expansion
-    s = NONE.replace(knock_amplitude_bar_per_intensity=1.0, knock_decay_s=1.0,
+    s = NONE.replace(knock_amplitude_bar_per_unburned=1.0, knock_decay_s=1.0,
                      knock_mode_weights=(1.0, 0.0, 0.0, 0.0, 0.0))
     meas, _, _ = apply_artefacts(P, TH, N, s, np.random.default_rng(0), T=T, gamma=1.3, bore_m=0.08,
-                                 knock_onset_deg=[5.0], knock_intensity=[1.0])
+                                 knock_onset_deg=[5.0], knock_unburned_fraction=[1.0])
     ring = (meas - P)[0]
     t = (TH - TH[0]) / (6 * N)
 
@@ -233,7 +233,7 @@ def test_intake_channel_noise_and_default_set_runs():
     T = np.full(P.shape, 1500.0)
     meas, pint, truth = apply_artefacts(P, TH, N, ArtefactSettings.default(), np.random.default_rng(10),
                                         T=T, bore_m=0.08, knock_onset_deg=[np.nan, 12, np.nan, 15],
-                                        knock_intensity=[0, 1, 0, 2], intake_pressure_pa=[0.98e5] * 4)
+                                        knock_unburned_fraction=[0, 0.3, 0, 0.4], intake_pressure_pa=[0.98e5] * 4)
     assert meas.shape == P.shape and pint.shape == P.shape
     assert np.std(pint - 0.98e5) / 1e5 == pytest.approx(0.003, rel=0.05)
     assert np.isnan(truth["knock_mode_frequency_at_onset_hz"][0]).all()
@@ -245,8 +245,8 @@ def test_bad_grid_and_shapes_raise():
     with pytest.raises(CyclesimError):
         apply_artefacts(P[:, :-10], TH[:-10], N, NONE)
     with pytest.raises(CyclesimError):
-        apply_artefacts(P, TH, N, NONE.replace(knock_amplitude_bar_per_intensity=1.0),
-                        knock_onset_deg=[1, 2, 3], knock_intensity=[1, 1, 1])      # no T, no bore
+        apply_artefacts(P, TH, N, NONE.replace(knock_amplitude_bar_per_unburned=1.0),
+                        knock_onset_deg=[1, 2, 3], knock_unburned_fraction=[1, 1, 1])      # no T, no bore
 
 
 # ---------------------------------------------------------------------- fast paths against the direct computation

@@ -180,7 +180,7 @@ def test_coupled_chain_equals_cycle_by_cycle_run(base):
     var = CycleVariation(misfire_rate=0.3, partial_burn_rate=0.2, seed=11, coupled=True)
     n = 7
     s = synthesize(base, n, var, resolution_deg=1.0, artefacts=art.ArtefactSettings.none(), chunk=3)
-    assert s.meta["coupled_chain"]["sweeps_per_chunk"] and len(s.meta["coupled_chain"]["sweeps_per_chunk"]) == 3
+    assert s.settings["coupled_chain"]["sweeps_per_chunk"] and len(s.settings["coupled_chain"]["sweeps_per_chunk"]) == 3
     # the definition: each cycle alone, from the end state of the one before
     reg = _registry_for([base])
     state = syn._steady_state(base, reg).end_state[:, 0]

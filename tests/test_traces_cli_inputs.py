@@ -132,3 +132,45 @@ def test_analyse_errors_leave_no_folder(small_set, tmp_path, capsys, extra, says
     assert main(["analyse", str(small_set), "--engine", "demo", "--out", str(out), *extra]) == 2
     assert says in capsys.readouterr().err
     assert not out.exists()
+
+
+# ---------------------------------------------------------------------- --artefact KEY=VALUE
+@pytest.mark.parametrize("bad, says", [
+    (["--artefact", "tdc_ofset_deg=0.5"], "did you mean 'tdc_offset_deg'"),
+    (["--artefact", "nonsense=1"], "known keys: offset_mean_bar"),
+    (["--artefact", "noise_bar=loud"], "expected a number"),
+    (["--artefact", "noise_bar=-0.1"], ">= 0"),
+    (["--artefact", "adc_bits=12.5"], "whole number"),
+    (["--artefact", "knock_mode_weights=1,2"], "5 numbers"),
+    (["--artefact", "noise_bar"], "KEY=VALUE"),
+])
+def test_bad_artefact_setting_exits_2_in_one_line_and_makes_no_folder(tmp_path, capsys, bad, says):
+    out = tmp_path / "t"
+    assert main(["traces", "demo", "--cycles", "2", *bad, "--out", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert says in err and len(err.strip().splitlines()) == 1 and "Traceback" not in err
+    assert not out.exists()
+
+
+def test_artefact_options_set_single_flaws_on_top_of_the_chosen_set(tmp_path, capsys):
+    out = tmp_path / "t"
+    assert main(["traces", "demo", "--cycles", "2", "--resolution", "1", "--formats", "npz", "--no-plots",
+                 "--artefacts", "none", "--artefact", "tdc_offset_deg=0.5", "--artefact", "clip_max_bar=none",
+                 "--artefact", "adc_bits=12", "--out", str(out), *FAST]) == 0
+    doc = json.loads((out / "truth.json").read_text())
+    a = doc["settings"]["artefacts"]
+    assert a["tdc_offset_deg"] == 0.5 and a["adc_bits"] == 12 and a["clip_max_bar"] is None
+    assert a["noise_bar"] == 0.0 and a["gain_error"] == 0.0              # the rest from --artefacts none
+    assert doc["statistics"]["artefact.tdc_offset_deg"] == 0.5
+    # the ADC grid of 12 bits over the default range is visible in the file (uniform quantiser)
+    from cyclesim.traces.export import read_trace
+
+    ts = read_trace(out / "trace.npz")
+    lsb = (a["adc_max_bar"] - a["adc_min_bar"]) / (2**12 - 1)
+    codes = (ts.pressure_pa / 1e5 - a["adc_min_bar"]) / lsb
+    assert np.max(np.abs(codes - np.round(codes))) < 1e-6
+
+
+def test_artefact_option_help_gives_an_example():
+    h = next(act.help for name, act in _all_options() if "--artefact" in act.option_strings)
+    assert "--artefact tdc_offset_deg=0.5" in h and "repeatable" in h

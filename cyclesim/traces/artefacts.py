@@ -12,13 +12,30 @@ The chain, in the order a real signal passes it:
 
 1. knock ringing (real pressure oscillation of the charge, added to P_true),
 2. passage (pipe) resonance of a recessed sensor (second-order low-pass),
-3. short-term thermal drift of the sensor (first-order response to heat flux),
+3. short-term thermal drift of the sensor (first-order response to the wall
+   heat flow, or to the gas temperature where no heat flow is given),
 4. gain error of sensor and amplifier,
 5. charge-amplifier time constant (first-order high-pass),
 6. angle labelling: constant TDC phasing error and per-sample encoder jitter,
+
+   -- the analogue signal (:func:`apply_signal_chain`); then, at the rate the
+   ADC samples it (:func:`apply_sampling`) --
+
 7. absolute offset per cycle plus slow drift (a charge-type sensor measures
    pressure changes only: the level is unknown until pegged),
-8. white noise, clipping at the measuring range, ADC quantisation.
+8. white noise, clipping at the measuring range, ADC quantisation; the
+   intake-manifold channel's own noise.
+
+A real ADC samples after the amplifier's anti-alias filter at the output rate,
+so a caller that synthesises on a fine grid and decimates (as
+:func:`cyclesim.traces.synthesis.synthesize` does) runs steps 1-6 on the fine
+grid, decimates, and runs 7-8 on the output grid: the delivered noise then has
+the set RMS and the levels sit on the ADC grid.  :func:`apply_artefacts` runs
+all of them on one grid.
+
+Random draws, in this order from one generator: the per-cycle knock
+amplitude factors (only when a cycle rings and ``knock_amplitude_log_sd`` > 0),
+the encoder jitter, the offsets, the noise, the intake-channel noise.
 
 Every artefact is switched off by a zero (or ``None``) setting and records its
 true value per cycle in the returned ``truth`` dict.
@@ -38,6 +55,8 @@ __all__ = [
     "bessel_derivative_root",
     "acoustic_mode_frequencies",
     "apply_artefacts",
+    "apply_signal_chain",
+    "apply_sampling",
     "decimate_to",
 ]
 
@@ -64,11 +83,14 @@ class ArtefactSettings:
     highpass_tau_s : float
         Charge-amplifier time constant [s] (first-order high-pass); 0 = DC-coupled.
     thermal_drift_bar_per_kW : float
-        Thermal-drift sensitivity to the wall heat-flow proxy [bar/kW] (used
-        when ``wall_heat_rate`` is given); the error is negative.
+        Thermal-drift sensitivity to the heat flow from gas to walls [bar/kW]
+        (used when ``wall_heat_rate`` is given, as the synthesis does): the
+        diaphragm's thermal shock grows with the heat flux, so the error grows
+        with load; it is negative.  0 selects the temperature form below.
     thermal_drift_bar_per_K : float
         Thermal-drift sensitivity to ``T - thermal_wall_temperature_K`` [bar/K]
-        (used when only ``T`` is given); the error is negative.
+        (used when ``thermal_drift_bar_per_kW`` is 0 or no heat flow is given);
+        the error is negative.
     thermal_wall_temperature_K : float
         Wall temperature of the fallback proxy [K].
     thermal_time_constant_s : float
@@ -89,8 +111,15 @@ class ArtefactSettings:
         ADC resolution [bits] over ``adc_min_bar..adc_max_bar``; 0 = none.
     adc_min_bar, adc_max_bar : float
         ADC input range [bar].
-    knock_amplitude_bar_per_intensity : float
-        Initial envelope amplitude of the first mode per unit knock intensity [bar].
+    knock_amplitude_bar_per_unburned : float
+        Initial envelope amplitude of the first mode per unit unburned mass
+        fraction at knock onset [bar] (10: 2.5-4 bar for 25-40 % unburned; about
+        0.5-1 bar is a light-knock threshold for an ~80 mm bore and heavy knock
+        rings at several to tens of bar, common practice).
+    knock_amplitude_log_sd : float
+        Standard deviation of ln of a per-cycle log-normal factor (median 1) on
+        the amplitude [-]: knock intensity is heavy-tailed, near log-normal from
+        cycle to cycle (common practice).  0 = no spread.
     knock_decay_s : float
         Exponential decay time constant of the ringing [s].
     knock_mode_weights : tuple of float
@@ -120,7 +149,8 @@ class ArtefactSettings:
     adc_bits: int = 16
     adc_min_bar: float = -10.0
     adc_max_bar: float = 250.0
-    knock_amplitude_bar_per_intensity: float = 1.0
+    knock_amplitude_bar_per_unburned: float = 10.0
+    knock_amplitude_log_sd: float = 0.5
     knock_decay_s: float = 0.8e-3
     knock_mode_weights: tuple = (1.0, 0.5, 0.35, 0.25, 0.15)
     knock_gas_constant_J_per_kgK: float = 290.0
@@ -138,7 +168,7 @@ class ArtefactSettings:
             offset_mean_bar=0.0, offset_sd_bar=0.0, offset_drift_bar_per_cycle=0.0, gain_error=0.0,
             highpass_tau_s=0.0, thermal_drift_bar_per_kW=0.0, thermal_drift_bar_per_K=0.0,
             passage_frequency_hz=0.0, tdc_offset_deg=0.0, encoder_jitter_deg=0.0, noise_bar=0.0,
-            clip_min_bar=None, clip_max_bar=None, adc_bits=0, knock_amplitude_bar_per_intensity=0.0,
+            clip_min_bar=None, clip_max_bar=None, adc_bits=0, knock_amplitude_bar_per_unburned=0.0,
             intake_noise_bar=0.0,
         )
 
@@ -151,6 +181,53 @@ class ArtefactSettings:
     @classmethod
     def field_names(cls) -> list[str]:
         return [f.name for f in fields(cls)]
+
+    def with_text(self, assignment: str, what: str = "--artefact") -> "ArtefactSettings":
+        """A copy with one field set from ``KEY=VALUE`` text (the command line's ``--artefact``).
+
+        Numbers as floats (``adc_bits`` an integer >= 0), ``none`` for an optional
+        range limit, a comma list for ``knock_mode_weights``.  Raises CyclesimError
+        (one line; an unknown key lists the known ones).
+        """
+        import math
+
+        key, eq, text = str(assignment).partition("=")
+        key, text = key.strip(), text.strip()
+        names = self.field_names()
+        if not eq or not key:
+            raise CyclesimError(f"{what} {assignment!r}: expected KEY=VALUE, KEY one of {', '.join(names)}")
+        if key not in names:
+            from ..params import suggestion
+
+            raise CyclesimError(f"{what} {key}: unknown" + suggestion(key, names)
+                                + f"; known keys: {', '.join(names)}")
+        bad = f"{what} {key}={text!r}:"
+        if key == "knock_mode_weights":
+            try:
+                w = tuple(float(v) for v in text.split(","))
+            except ValueError:
+                raise CyclesimError(f"{bad} expected {len(KNOCK_MODES)} numbers separated by commas") from None
+            if len(w) != len(KNOCK_MODES) or not all(math.isfinite(v) and v >= 0 for v in w):
+                raise CyclesimError(f"{bad} expected {len(KNOCK_MODES)} numbers >= 0 separated by commas")
+            return self.replace(knock_mode_weights=w)
+        if key in ("clip_min_bar", "clip_max_bar") and text.lower() in ("none", "off", ""):
+            return self.replace(**{key: None})
+        try:
+            v = float(text)
+        except ValueError:
+            raise CyclesimError(f"{bad} expected a number") from None
+        if not math.isfinite(v):
+            raise CyclesimError(f"{bad} expected a finite number")
+        if key == "adc_bits":
+            if v != int(v) or not 0 <= v <= 32:
+                raise CyclesimError(f"{bad} expected a whole number of bits 0..32")
+            return self.replace(adc_bits=int(v))
+        nonneg = ("_sd_bar", "_s", "_hz", "damping", "jitter_deg", "noise_bar", "log_sd", "_J_per_kgK")
+        if key.endswith(nonneg) and v < 0:
+            raise CyclesimError(f"{bad} expected a number >= 0")
+        if key in ("knock_decay_s", "knock_gas_constant_J_per_kgK") and not v > 0:
+            raise CyclesimError(f"{bad} expected a number > 0")
+        return self.replace(**{key: v})
 
 
 # --------------------------------------------------------------------------- acoustics
@@ -576,7 +653,7 @@ def _time_and_angle_chain(sig, theta, closed, shape, dt, fs, s, rng, truth, T, w
     return meas
 
 
-def apply_artefacts(
+def apply_signal_chain(
     P_true,
     theta,
     speed_rpm: float,
@@ -587,62 +664,17 @@ def apply_artefacts(
     gamma=None,
     bore_m: float | None = None,
     knock_onset_deg=None,
-    knock_intensity=None,
-    intake_pressure_pa=None,
+    knock_unburned_fraction=None,
     wall_heat_rate=None,
 ):
-    """Turn true cylinder pressure into a measured signal.
+    """Steps 1-6 of the chain (the analogue signal, before the ADC): returns (signal [Pa], truth).
 
-    Parameters
-    ----------
-    P_true : array_like (n_cycles, n) or (n,)
-        True cylinder pressure [Pa].
-    theta : array_like (n,)
-        Crank angle [deg], uniform, one cycle (-360..360, with or without the last point).
-    speed_rpm : float
-        Engine speed [rpm].
-    settings : ArtefactSettings
-        Default: :meth:`ArtefactSettings.default`.
-    rng : numpy.random.Generator
-        Source of all random draws (default: ``np.random.default_rng()``).
-    T : array_like (n_cycles, n), optional
-        Mean gas temperature [K]: sound speed of knock ringing; thermal-drift
-        proxy when ``wall_heat_rate`` is not given.
-    gamma : float or array_like, optional
-        Ratio of specific heats for the sound speed [-] (default 1.3).
-    bore_m : float, optional
-        Bore [m]; needed for knock ringing.
-    knock_onset_deg, knock_intensity : array_like (n_cycles,), optional
-        Knock onset angle [deg] (NaN = no knock) and intensity [-] per cycle.
-    intake_pressure_pa : float or array_like (n_cycles,) or (n_cycles, n), optional
-        True intake-plenum pressure [Pa]; returned with its own noise.
-    wall_heat_rate : array_like (n_cycles, n), optional
-        Heat flow from gas to walls [W]: the thermal-drift proxy.
-
-    Returns
-    -------
-    P_meas : ndarray (n_cycles, n)
-        Measured signal [Pa] (true pressure + offset + errors).
-    P_intake_meas : ndarray (n_cycles, n) or None
-        Measured intake pressure [Pa].
-    truth : dict
-        True value of every artefact: per-cycle arrays (n_cycles,) and scalars.
-
-    Notes
-    -----
-    Knock ringing: each mode (m, n) rings at f_mn(t) = c(t) rho_mn / (pi B)
-    (Draper 1938) with c = sqrt(gamma R T) following the gas temperature,
-    phase = 2 pi * integral of f dt (it starts at zero phase at onset, so the
-    signal is continuous), envelope ``A exp(-(t - t_onset) / knock_decay_s)``
-    with A = ``knock_amplitude_bar_per_intensity * intensity`` times the mode's
-    weight.
+    Parameters as :func:`apply_artefacts`; the signal has no offset, noise,
+    clipping or quantisation yet (:func:`apply_sampling` adds them).
     """
     s = settings or ArtefactSettings.default()
     rng = rng or np.random.default_rng()
-    P = np.asarray(P_true, dtype=float)
-    single = P.ndim == 1
-    if single:
-        P = P[None, :]
+    P = np.atleast_2d(np.asarray(P_true, dtype=float))
     theta = np.asarray(theta, dtype=float)
     if P.shape[1] != theta.size:
         raise CyclesimError(f"pressure has {P.shape[1]} samples per cycle, crank grid {theta.size}")
@@ -661,12 +693,18 @@ def apply_artefacts(
     # 1. knock ringing ------------------------------------------------------
     onset = np.full(nc, np.nan) if knock_onset_deg is None else np.broadcast_to(
         np.asarray(knock_onset_deg, float), (nc,)).copy()
-    inten = np.zeros(nc) if knock_intensity is None else np.broadcast_to(
-        np.asarray(knock_intensity, float), (nc,)).copy()
-    amp = s.knock_amplitude_bar_per_intensity * inten
+    unb = np.zeros(nc) if knock_unburned_fraction is None else np.broadcast_to(
+        np.asarray(knock_unburned_fraction, float), (nc,)).copy()
+    unb = np.nan_to_num(unb)
+    amp = s.knock_amplitude_bar_per_unburned * unb
     amp[~np.isfinite(onset)] = 0.0
+    factor = np.ones(nc)
+    if s.knock_amplitude_log_sd and np.any(amp != 0):
+        # one draw per cycle (the same numbers whichever cycles knock)
+        factor = np.exp(float(s.knock_amplitude_log_sd) * rng.standard_normal(nc))
+        amp = amp * factor
     f_onset = np.full((nc, len(KNOCK_MODES)), np.nan)
-    if s.knock_amplitude_bar_per_intensity and np.any(amp != 0):
+    if s.knock_amplitude_bar_per_unburned and np.any(amp != 0):
         if T is None or bore_m is None:
             raise CyclesimError("knock ringing needs the gas temperature T and bore_m")
         T2 = _as_2d(T, shape, "T")
@@ -691,13 +729,16 @@ def apply_artefacts(
             sig[k, i0:] += env * (w[None, :] * np.sin(2 * np.pi * ph)).sum(axis=1)
             f_onset[k] = fk[0]
     truth["knock_onset_deg"] = onset
+    truth["knock_unburned_fraction_at_onset"] = np.where(np.isfinite(onset), unb, np.nan)
+    truth["knock_amplitude_factor"] = np.where(amp != 0, factor, np.nan)
     truth["knock_amplitude_bar"] = amp
     truth["knock_mode_frequency_at_onset_hz"] = f_onset
     truth["knock_modes"] = [list(m) for m in KNOCK_MODES]
 
-    thermal_on = bool((wall_heat_rate is not None and s.thermal_drift_bar_per_kW)
-                      or (T is not None and s.thermal_drift_bar_per_K))
-    timed = bool(s.passage_frequency_hz or thermal_on or s.highpass_tau_s
+    by_heat = wall_heat_rate is not None and bool(s.thermal_drift_bar_per_kW)
+    by_T = not by_heat and T is not None and bool(s.thermal_drift_bar_per_K)
+    truth["thermal_drift_proxy"] = "wall heat flow" if by_heat else ("gas temperature" if by_T else "none")
+    timed = bool(s.passage_frequency_hz or by_heat or by_T or s.highpass_tau_s
                  or s.tdc_offset_deg or s.encoder_jitter_deg)
     truth["passage_frequency_hz"] = float(s.passage_frequency_hz)
     truth["passage_damping"] = float(s.passage_damping) if s.passage_frequency_hz else 0.0
@@ -712,10 +753,38 @@ def apply_artefacts(
         # no time-domain or angle artefact: work row by row (no joining of cycles)
         meas = sig * (1.0 + s.gain_error)
     else:
-        meas = _time_and_angle_chain(sig, theta, closed, shape, dt, fs, s, rng, truth, T, wall_heat_rate)
+        meas = _time_and_angle_chain(sig, theta, closed, shape, dt, fs, s, rng, truth,
+                                     T if by_T else None, wall_heat_rate if by_heat else None)
+    return meas, truth
 
-    # steps 7 and 8 run over blocks of whole rows, in place (``meas`` is a new array here);
-    # the noise is drawn block by block: the same numbers as one draw over all rows
+
+def apply_sampling(meas, settings: ArtefactSettings | None = None, rng: np.random.Generator | None = None,
+                   truth: dict | None = None, *, intake_pressure_pa=None):
+    """Steps 7-8 at the ADC's sample rate: offset, noise, clipping, quantisation; the intake channel.
+
+    Parameters
+    ----------
+    meas : ndarray (n_cycles, n)
+        The analogue signal [Pa] on the output grid; changed in place (a float array).
+    settings, rng :
+        As :func:`apply_artefacts`.
+    truth : dict, optional
+        Filled with ``offset_bar``, ``noise_rms_bar``, ``clipped_samples``,
+        ``adc_lsb_bar``, ``intake_noise_bar`` (a new dict if None).
+    intake_pressure_pa : float or array_like (n_cycles,) or (n_cycles, n), optional
+        True intake-plenum pressure [Pa] on the same grid; returned with its own noise.
+
+    Returns
+    -------
+    (meas, P_intake_meas or None, truth)
+    """
+    s = settings or ArtefactSettings.default()
+    rng = rng or np.random.default_rng()
+    truth = {} if truth is None else truth
+    shape = meas.shape
+    nc = shape[0]
+    # run over blocks of whole rows, in place; the noise is drawn block by block: the same
+    # numbers as one draw over all rows
     rows = max(1, _BLOCK_SAMPLES // shape[1])
 
     # 7. offset -----------------------------------------------------------
@@ -760,6 +829,84 @@ def apply_artefacts(
                 r1 = min(nc, r0 + rows)
                 p_int[r0:r1] += s.intake_noise_bar * BAR * rng.standard_normal((r1 - r0, shape[1]))
     truth["intake_noise_bar"] = float(s.intake_noise_bar)
+    return meas, p_int, truth
+
+
+def apply_artefacts(
+    P_true,
+    theta,
+    speed_rpm: float,
+    settings: ArtefactSettings | None = None,
+    rng: np.random.Generator | None = None,
+    *,
+    T=None,
+    gamma=None,
+    bore_m: float | None = None,
+    knock_onset_deg=None,
+    knock_unburned_fraction=None,
+    intake_pressure_pa=None,
+    wall_heat_rate=None,
+):
+    """Turn true cylinder pressure into a measured signal, every step on the grid given.
+
+    :func:`apply_signal_chain` then :func:`apply_sampling` on the same grid.  To
+    synthesise on a fine grid, run the first, decimate (:func:`decimate_to`) and
+    run the second on the output grid: the ADC samples at the output rate.
+
+    Parameters
+    ----------
+    P_true : array_like (n_cycles, n) or (n,)
+        True cylinder pressure [Pa].
+    theta : array_like (n,)
+        Crank angle [deg], uniform, one cycle (-360..360, with or without the last point).
+    speed_rpm : float
+        Engine speed [rpm].
+    settings : ArtefactSettings
+        Default: :meth:`ArtefactSettings.default`.
+    rng : numpy.random.Generator
+        Source of all random draws (default: ``np.random.default_rng()``).
+    T : array_like (n_cycles, n), optional
+        Mean gas temperature [K]: sound speed of knock ringing; thermal-drift
+        proxy when ``wall_heat_rate`` is not given (or ``thermal_drift_bar_per_kW`` is 0).
+    gamma : float or array_like, optional
+        Ratio of specific heats for the sound speed [-] (default 1.3).
+    bore_m : float, optional
+        Bore [m]; needed for knock ringing.
+    knock_onset_deg, knock_unburned_fraction : array_like (n_cycles,), optional
+        Knock onset angle [deg] (NaN = no knock) and the unburned mass fraction at
+        onset [-] per cycle.
+    intake_pressure_pa : float or array_like (n_cycles,) or (n_cycles, n), optional
+        True intake-plenum pressure [Pa]; returned with its own noise.
+    wall_heat_rate : array_like (n_cycles, n), optional
+        Heat flow from gas to walls [W]: the thermal-drift proxy.
+
+    Returns
+    -------
+    P_meas : ndarray (n_cycles, n)
+        Measured signal [Pa] (true pressure + offset + errors).
+    P_intake_meas : ndarray (n_cycles, n) or None
+        Measured intake pressure [Pa].
+    truth : dict
+        True value of every artefact: per-cycle arrays (n_cycles,) and scalars.
+
+    Notes
+    -----
+    Knock ringing: each mode (m, n) rings at f_mn(t) = c(t) rho_mn / (pi B)
+    (Draper 1938) with c = sqrt(gamma R T) following the gas temperature,
+    phase = 2 pi * integral of f dt (it starts at zero phase at onset, so the
+    signal is continuous), envelope ``A exp(-(t - t_onset) / knock_decay_s)``
+    with A = ``knock_amplitude_bar_per_unburned`` x unburned fraction at onset x
+    a per-cycle log-normal factor (``knock_amplitude_log_sd``, median 1), times
+    the mode's weight.  ``truth["knock_amplitude_bar"]`` is A of each cycle.
+    """
+    single = np.ndim(P_true) == 1
+    s = settings or ArtefactSettings.default()
+    rng = rng or np.random.default_rng()
+    meas, truth = apply_signal_chain(P_true, theta, speed_rpm, s, rng, T=T, gamma=gamma, bore_m=bore_m,
+                                     knock_onset_deg=knock_onset_deg,
+                                     knock_unburned_fraction=knock_unburned_fraction,
+                                     wall_heat_rate=wall_heat_rate)
+    meas, p_int, truth = apply_sampling(meas, s, rng, truth, intake_pressure_pa=intake_pressure_pa)
     if single:
         meas = meas[0]
         p_int = None if p_int is None else p_int[0]

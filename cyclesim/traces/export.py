@@ -237,10 +237,13 @@ def _truth_cell(v):
     return v
 
 
-def write_truth(out_dir, rows: Iterable[dict], stats: dict | None = None, stem: str = "truth") -> list[Path]:
+def write_truth(out_dir, rows: Iterable[dict], stats: dict | None = None, stem: str = "truth",
+                settings: dict | None = None) -> list[Path]:
     """Ground truth: one CSV row per cycle, plus a JSON file with the rows and set statistics.
 
-    ``rows`` are dicts of scalars (keys carry their units); ``stats`` set-level figures.
+    ``rows`` are dicts of scalars (keys carry their units); ``stats`` set-level figures;
+    ``settings`` the generator's settings (variation, seed, artefact settings), written to the
+    JSON file only: they belong to the truth, never to the measured files.
     """
     rows = [_plain(dict(r)) for r in rows]
     cols: list[str] = []
@@ -259,6 +262,8 @@ def write_truth(out_dir, rows: Iterable[dict], stats: dict | None = None, stem: 
     atomic_write_text(p_csv, buf.getvalue())
     doc = {"crank_angle": CRANK_CONVENTION, "units": "in each key's name", "cycles": rows,
            "statistics": _plain(stats or {})}
+    if settings:
+        doc["settings"] = _plain(settings)
     atomic_write_text(p_json, json.dumps(doc, indent=2) + "\n")
     return [p_csv, p_json]
 

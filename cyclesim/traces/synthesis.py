@@ -19,10 +19,20 @@ with a cycle-by-cycle run to about 1e-12.  A case gives the same figures
 alone and inside a batch, so nothing else differs.
 
 The true pressure is interpolated from the solver's states onto a fine crank
-grid; measurement artefacts (:mod:`cyclesim.traces.artefacts`) are applied
-there, and the result is low-pass filtered and decimated to the user's
-resolution, so high-frequency content (knock ringing, passage resonance) does
-not alias.
+grid; the analogue part of the measuring chain (:mod:`cyclesim.traces.artefacts`:
+knock ringing, passage resonance, thermal drift driven by the wall heat flow,
+gain, charge-amplifier high-pass, angle labelling) is applied there, and the
+result is low-pass filtered and decimated to the user's resolution, so
+high-frequency content (knock ringing, passage resonance) does not alias.  The
+ADC's part (offset, noise, clipping, quantisation, the intake channel's noise)
+is applied after decimation, at the output rate, as a real ADC samples after the
+amplifier's anti-alias filter.
+
+What a real recording carries (engine and operating-point identity, speed,
+crank convention, units, sample grid, the intake channel, the test bed's air
+and fuel per cycle) is in ``meta``; the generator's settings (variation, seed,
+artefact settings, synthesis grid) are in ``settings`` and go to the truth files
+only, so a measured file can be analysed blind.
 """
 
 from __future__ import annotations
@@ -115,9 +125,15 @@ class SyntheticSet:
     stats : dict
         Set-level figures (COV of net IMEP, means, knocking share).
     meta : dict
-        Units, conventions, settings, and the measured channels of the test bed:
-        ``air_mass_per_cycle_mg`` and ``fuel_mass_per_cycle_mg``, the mean fresh
-        air and fuel inducted per cycle over the set [mg].
+        What a real recording carries: engine and operating point, speed, units,
+        crank convention, sample grid, the intake channel, and the measured
+        channels of the test bed: ``air_mass_per_cycle_mg`` and
+        ``fuel_mass_per_cycle_mg``, the mean fresh air and fuel inducted per cycle
+        over the set [mg].  No artefact setting and no seed.
+    settings : dict
+        Ground truth of the generator (for the truth files only): variation and
+        seed, artefact settings, synthesis step, the coupled chain's sweeps, the
+        crank angles at which the signal offset is recorded.
     """
 
     theta: np.ndarray
@@ -128,6 +144,7 @@ class SyntheticSet:
     truth: list
     stats: dict
     meta: dict = field(default_factory=dict)
+    settings: dict = field(default_factory=dict)
 
 
 def draw_parameters(case: Case, n: int, var: CycleVariation) -> tuple[list[dict], np.ndarray, np.ndarray]:
@@ -445,6 +462,8 @@ def synthesize(
     P = np.empty((n_cycles, n_fine + 1))
     Tg = np.empty_like(P)
     G = np.empty_like(P)
+    W = np.empty_like(P)          # heat flow from gas to walls [W]
+    knock_unb = np.full(n_cycles, np.nan)
     truth: list = [None] * n_cycles
     knock_on = np.full(n_cycles, np.nan)
     knock_int = np.zeros(n_cycles)
@@ -454,11 +473,15 @@ def synthesize(
         # pressure and temperature: cubic Hermite from the solver's values and slopes; gamma: linear
         fine_grid = _FineGrid(tr.theta, theta_f)
         p_sol, dp_sol, g_sol = d["p"], d["dp"], d["gamma"]
+        I = {nm: k for k, nm in enumerate(tr.names)}
+        w_per_deg = 6.0 * speed          # crank degrees per second
         for b, i in enumerate(idx):
             fine_grid.hermite(p_sol[b], dp_sol[b], P[i])
             fine_grid.hermite(tr.Y[1, b], tr.F[1, b], Tg[i])
             G[i] = np.interp(theta_f, tr.theta, g_sol[b])
-        I = {nm: k for k, nm in enumerate(tr.names)}
+            # wall heat rate: the solver's dQ_w/dtheta [J/deg] (linear between its nodes), in W
+            W[i] = np.interp(theta_f, tr.theta, tr.F[I["Q_w"], b])
+            W[i] *= w_per_deg
         Qc = tr.Y[I["Q_burn"], :, -1]
         Qw = tr.Y[I["Q_w"], :, -1]
         Mu = tr.Y[I["mu_int"], :, -1]
@@ -486,6 +509,8 @@ def synthesize(
             if "knock_onset_deg" in figs:
                 knock_on[i] = float(np.asarray(figs["knock_onset_deg"])[b])
                 knock_int[i] = float(np.nan_to_num(np.asarray(figs.get("knock_intensity", np.zeros(batch.B)))[b]))
+                unb = figs.get("knock_unburned_fraction_at_onset")
+                knock_unb[i] = float(np.asarray(unb)[b]) if unb is not None else knock_int[i]
             row["knock_onset_deg"] = knock_on[i]
             row["knock_intensity"] = knock_int[i]
             row["error"] = tr.failed[b] or ""
@@ -501,8 +526,11 @@ def synthesize(
         if f is None or not f.exists():
             return None, f
         z = np.load(f, allow_pickle=False)
-        P[i0:i0 + n], Tg[i0:i0 + n], G[i0:i0 + n] = z["P"], z["T"], z["G"]
+        if "W" not in z.files or "knock_unb" not in z.files:
+            return None, f                 # a chunk of an older version: simulated again
+        P[i0:i0 + n], Tg[i0:i0 + n], G[i0:i0 + n], W[i0:i0 + n] = z["P"], z["T"], z["G"], z["W"]
         knock_on[i0:i0 + n], knock_int[i0:i0 + n] = z["knock_on"], z["knock_int"]
+        knock_unb[i0:i0 + n] = z["knock_unb"]
         truth[i0:i0 + n] = json.loads(str(z["truth"]))
         return z["end_state"], f
 
@@ -514,8 +542,8 @@ def synthesize(
         from ..output import atomic_write_bytes
 
         buf = io.BytesIO()
-        np.savez(buf, P=P[i0:i0 + n], T=Tg[i0:i0 + n], G=G[i0:i0 + n], knock_on=knock_on[i0:i0 + n],
-                 knock_int=knock_int[i0:i0 + n], truth=json.dumps(truth[i0:i0 + n], default=float),
+        np.savez(buf, P=P[i0:i0 + n], T=Tg[i0:i0 + n], G=G[i0:i0 + n], W=W[i0:i0 + n],
+                 knock_on=knock_on[i0:i0 + n], knock_int=knock_int[i0:i0 + n], knock_unb=knock_unb[i0:i0 + n], truth=json.dumps(truth[i0:i0 + n], default=float),
                  end_state=end_state)
         atomic_write_bytes(f, buf.getvalue())
 
@@ -542,22 +570,32 @@ def synthesize(
             save_part(f, i0, len(part), end)
         state = np.asarray(end)[:, -1]
 
-    # measurement
+    # measurement: the analogue chain on the fine grid (thermal drift driven by the wall heat flow)
     rng = np.random.default_rng(var.seed + 7919)
     bore = float(case.engine.bore_mm) * 1e-3
-    Pm, Pint, art_truth = art.apply_artefacts(
+    Pm, art_truth = art.apply_signal_chain(
         P, theta_f, speed, settings, rng, T=Tg, gamma=G, bore_m=bore,
-        knock_onset_deg=knock_on, knock_intensity=knock_int,
-        intake_pressure_pa=float(case.operating.intake_pressure_bar) * 1e5,
+        knock_onset_deg=knock_on, knock_unburned_fraction=knock_unb, wall_heat_rate=W,
     )
-    # the three decimations are independent and numpy's correlation releases the GIL: on two
+    W = Tg = G = None             # freed before decimation
+    # the two decimations are independent and numpy's correlation releases the GIL: on two
     # threads where the machine has two cores (the same values, computed side by side)
-    sigs = [P, Pm] + ([Pint] if Pint is not None else [])
     with ThreadPoolExecutor(max_workers=max(1, min(2, os.cpu_count() or 1))) as pool:
-        dec = list(pool.map(lambda X: art.decimate_to(theta_f, X, out_step), sigs))
+        dec = list(pool.map(lambda X: art.decimate_to(theta_f, X, out_step), [P, Pm]))
+    del Pm
     theta_o, P_true_o = dec[0]
     Pm_o = dec[1][1]
-    Pint_o = dec[2][1] if Pint is not None else None
+    # total deterministic error of the signal (before noise and quantisation) at the pegging
+    # angles: the analogue chain's error here, the offset added below
+    ivc = float(case.valves.ivc_deg)
+    at = {"bdc": -180.0, "ivc": ivc}
+    err_at = {k: _row_values_at(theta_o, Pm_o, a) - _row_values_at(theta_o, P_true_o, a)
+              for k, a in at.items()}
+    # the ADC's part at the output rate: offset, noise, clipping, quantisation; the intake channel
+    intake_pa = float(case.operating.intake_pressure_bar) * 1e5
+    Pm_o, Pint_o, art_truth = art.apply_sampling(Pm_o, settings, rng, art_truth, intake_pressure_pa=intake_pa)
+    for k in at:
+        art_truth[f"true_signal_offset_at_{k}_bar"] = (err_at[k] / 1e5 + art_truth["offset_bar"])
     time_s = (theta_o - theta_o[0]) / (6.0 * speed) if sample_rate_hz else None
     for i, row in enumerate(truth):
         for k, v in art_truth.items():
@@ -565,34 +603,55 @@ def synthesize(
             if arr.ndim == 1 and arr.shape[0] == n_cycles:
                 row[f"artefact.{k}"] = float(arr[i])
     stats = set_statistics(truth)
-    stats.update({f"artefact.{k}": (float(v) if np.ndim(v) == 0 else None) for k, v in art_truth.items()
-                  if np.ndim(v) == 0})
+    stats.update({f"artefact.{k}": (v if isinstance(v, str) else float(v) if np.ndim(v) == 0 else None)
+                  for k, v in art_truth.items() if np.ndim(v) == 0})
+    geometry = {
+        "bore_m": bore,
+        "stroke_m": float(case.engine.stroke_mm) * 1e-3,
+        "conrod_m": float(case.engine.conrod_mm) * 1e-3,
+        "compression_ratio": float(case.engine.compression_ratio),
+        "pin_offset_m": float(case.engine.pin_offset_mm) * 1e-3,
+    }
+    # what a real recording carries: no artefact setting, no seed
     meta = {
         "operating_point": case.name,
         "speed_rpm": speed,
         "n_cycles": n_cycles,
         "resolution_deg": out_step,
         "sample_rate_hz": sample_rate_hz,
-        "synthesis_step_deg": fine,
-        "coupled_chain": ({"tolerance": CHAIN_TOLERANCE, "sweeps_per_chunk": sweeps, "chunk": chunk}
-                          if var.coupled else None),
         "crank_angle_convention": "degrees, 0 = firing TDC, negative before; one cycle -360..360",
         "units": {"pressure": "Pa in arrays, bar in CSV columns", "crank_angle": "deg", "time": "s"},
-        "variation": asdict(var),
-        "artefacts": asdict(settings) if hasattr(settings, "__dataclass_fields__") else str(settings),
-        "bore_m": bore,
-        "stroke_m": float(case.engine.stroke_mm) * 1e-3,
-        "conrod_m": float(case.engine.conrod_mm) * 1e-3,
-        "compression_ratio": float(case.engine.compression_ratio),
-        "pin_offset_m": float(case.engine.pin_offset_mm) * 1e-3,
-        "intake_pressure_pa": float(case.operating.intake_pressure_bar) * 1e5,
+        **geometry,
+        "intake_channel": "intake-manifold absolute pressure, sampled with the cylinder pressure"
+                          " (Pa in arrays, bar in CSV columns)",
+        # the test bed's operating-point log: intake-manifold pressure set point
+        "intake_pressure_pa": intake_pa,
         # measured channels of the test bed: mean over the set's cycles, as from the air and fuel flow meters
         "air_mass_per_cycle_mg": float(np.mean([r.get("air_mass_mg", np.nan) for r in truth])),
         "fuel_mass_per_cycle_mg": float(np.mean([r.get("fuel_mass_mg", np.nan) for r in truth])),
         "air_fuel_mass_source": "mean over the set's cycles of the fresh air and fuel inducted, as from the test"
                                 " bed's air and fuel flow meters",
     }
-    return SyntheticSet(theta_o, time_s, P_true_o, Pm_o, Pint_o, truth, stats, meta)
+    gen = {
+        "variation": asdict(var),
+        "seed": var.seed,
+        "artefacts": asdict(settings) if hasattr(settings, "__dataclass_fields__") else str(settings),
+        "synthesis_step_deg": fine,
+        "coupled_chain": ({"tolerance": CHAIN_TOLERANCE, "sweeps_per_chunk": sweeps, "chunk": chunk}
+                          if var.coupled else None),
+        "signal_offset_angles_deg": at,
+        "signal_offset_definition": "artefact.true_signal_offset_at_<bdc|ivc>_bar: measured signal before"
+                                    " noise and quantisation minus true pressure at that crank angle"
+                                    " (linear between output samples), per cycle [bar]",
+    }
+    return SyntheticSet(theta_o, time_s, P_true_o, Pm_o, Pint_o, truth, stats, meta, gen)
+
+
+def _row_values_at(theta: np.ndarray, X: np.ndarray, angle: float) -> np.ndarray:
+    """Each row of ``X`` (n_cycles, n) at crank angle ``angle`` [deg], linear between samples."""
+    j = int(np.clip(np.searchsorted(theta, angle) - 1, 0, theta.size - 2))
+    w = (angle - theta[j]) / (theta[j + 1] - theta[j])
+    return (1.0 - w) * X[:, j] + w * X[:, j + 1]
 
 
 def _check_checkpoint(ckpt: Path, case: Case, n: int, var: CycleVariation, fine: float) -> None:
