@@ -17,6 +17,7 @@ import numpy as np
 
 from .config import Case, case_with, flat_inputs, load_config, resolve_case
 from .errors import CyclesimError, PluginError, SolverError
+from .output import CAUTION, CONVENTIONS
 from .output import plain as _plain
 
 __all__ = ["CaseResult", "simulate", "run", "load_config", "load_cases", "Case", "case_with"]
@@ -73,6 +74,8 @@ class CaseResult:
             "inputs": _plain(self.inputs),
             "references": list(self.references),
             "cycle_loop": self.cycle_loop,
+            "caution": CAUTION,
+            "conventions": dict(CONVENTIONS),
         }
 
 

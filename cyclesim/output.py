@@ -30,6 +30,13 @@ def energy_label(key: str) -> str:
     return ENERGY_LABELS.get(key, key.replace("_J", "").replace("_", " "))
 
 
+CONVENTIONS = {
+    "crank_angle": "degrees, 0 = firing TDC, negative before it; -360/360 = gas-exchange TDC",
+    "units": "in every key's name",
+}
+"""How a result's numbers are to be read (in every summary.json)."""
+
+
 def plain(x):
     """Numbers, arrays and containers as JSON-ready Python values (non-finite floats -> None)."""
     if isinstance(x, dict):
@@ -114,11 +121,6 @@ def write_case(res, out: Path, plots: bool = True) -> list[Path]:
     out = Path(out)
     written = []
     data = res.summary_json()
-    data["caution"] = CAUTION
-    data["conventions"] = {
-        "crank_angle": "degrees, 0 = firing TDC, negative before it; -360/360 = gas-exchange TDC",
-        "units": "in every key's name",
-    }
     atomic_write_text(out / "summary.json", json.dumps(data, indent=2) + "\n")
     written.append(out / "summary.json")
     if res.trace:

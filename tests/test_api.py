@@ -61,3 +61,15 @@ def test_report_of_a_run_folder_has_the_table_inputs_and_references(tmp_path):
     (tmp_path / "empty").mkdir()
     with pytest.raises(CyclesimError, match="no results"):
         report_for_study(tmp_path / "empty")
+
+
+def test_summary_json_in_memory_equals_the_file(tmp_path):
+    import json
+
+    from cyclesim.output import write_case
+
+    res = cyclesim.run("demo_closed")
+    write_case(res, tmp_path, plots=False)
+    on_disk = json.loads((tmp_path / "summary.json").read_text())
+    assert on_disk == json.loads(json.dumps(res.summary_json()))
+    assert on_disk["caution"].startswith("Results are model estimates")
