@@ -187,7 +187,7 @@ class LivengoodWu(Knock):
 
     *Figures.*  ``knock_onset_deg`` (first crank angle where I = 1, linear
     interpolation on the trace; NaN if none), ``knock_integral_max``,
-    ``knock_margin = 1 - max I``, ``knock_unburned_fraction_at_onset``
+    ``knock_integral_margin = 1 - max I``, ``knock_unburned_fraction_at_onset``
     (``1 - x_b`` there; NaN if none), ``knock_intensity`` =
     ``intensity_factor x (1 - x_b at onset)``, i.e. with the default factor 1
     the share of the charge's releasable fuel energy still in the end gas
@@ -312,7 +312,7 @@ class LivengoodWu(Knock):
         return {
             "knock_onset_deg": a["onset"],
             "knock_integral_max": a["Imax"],
-            "knock_margin": 1.0 - a["Imax"],
+            "knock_integral_margin": 1.0 - a["Imax"],
             "knock_unburned_fraction_at_onset": a["unb"],
             "knock_intensity": np.where(knocked, self.factor * np.nan_to_num(a["unb"]), 0.0),
             "end_gas_temperature_max_K": a["Tu_max"],

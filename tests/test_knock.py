@@ -170,7 +170,7 @@ def test_lower_octane_knocks_more_and_can_reach_onset():
     assert grows(hi_on, lo_on) and grows(lo_on, very_lo)
     assert math.isfinite(very_lo["knock_onset_deg"])       # the check can find knock ...
     assert very_lo["knock_intensity"] == pytest.approx(very_lo["knock_unburned_fraction_at_onset"])
-    assert very_lo["knock_margin"] < 0.0
+    assert very_lo["knock_integral_margin"] < 0.0
     assert very_lo["knock_unburned_fraction_at_onset"] >= 0.1 - 1e-9
 
 
@@ -178,7 +178,7 @@ def test_huge_delay_multiplier_gives_no_knock():
     (s,) = closed_runs(["knock.octane_number=70", "knock.delay_multiplier=100000"])
     assert math.isnan(s["knock_onset_deg"])
     assert s["knock_intensity"] == 0.0
-    assert 0.0 < s["knock_integral_max"] < 1e-3 and s["knock_margin"] > 0.999
+    assert 0.0 < s["knock_integral_max"] < 1e-3 and s["knock_integral_margin"] > 0.999
 
 
 def test_no_onset_once_almost_all_charge_is_burned():
@@ -207,7 +207,7 @@ def test_figures_use_ivc_to_evo_of_the_trace():
     assert f["knock_unburned_fraction_at_onset"][0] == pytest.approx(0.5, abs=1e-9)
     assert f["knock_intensity"][0] == pytest.approx(0.5, abs=1e-9)
     assert f["knock_integral_max"][0] == pytest.approx(270.0 / 200.0)     # at EVO, 134 deg
-    assert f["knock_margin"][0] == pytest.approx(1.0 - 270.0 / 200.0)
+    assert f["knock_integral_margin"][0] == pytest.approx(1.0 - 270.0 / 200.0)
     w = m.warnings(trace)[0]
     assert any("octane number 75" in x for x in w) and any("autoignition predicted" in x for x in w)
 

@@ -46,3 +46,14 @@ def test_spark_study_uses_the_statistical_limit(tmp_path):
     assert stat.knock_limited_deg is not None and mean.knock_limited_deg is not None
     assert stat.knock_limited_deg <= mean.knock_limited_deg + 1e-9
     assert stat.recommended_deg <= mean.recommended_deg + 1e-9
+
+
+def test_inputs_that_cannot_give_a_limit_are_refused_or_said():
+    case = load_config("demo", OV)
+    with pytest.raises(ConfigError, match="n_cycles"):
+        statistical_knock_limit(case, [10.0, 20.0], n_cycles=0)
+    with pytest.raises(ConfigError, match="at least 2"):
+        statistical_knock_limit(case, [], n_cycles=5)
+    # 5 % of 10 cycles is half a knocking cycle per advance: the result says it is too thin
+    kl = statistical_knock_limit(case, [20.0, 30.0], n_cycles=10, share=0.05)
+    assert any("too few to place the limit" in n for n in kl.notes)

@@ -182,3 +182,22 @@ def test_mbt_from_a_coarser_grid_falls_between_its_points(study):
     # on the coarse grid that straddles MBT the fitted MBT is not a grid point
     grid, mbt = gap[max(gap)]
     assert np.min(np.abs(grid - mbt)) > 0.5
+
+
+def test_knock_criterion_messages_say_what_was_counted():
+    # the knock model stops its integral below knock.min_unburned_fraction (0.1 by default), so a
+    # criterion at or below it changes nothing and is said; a high one names itself in the note
+    over = ["simulation.step_deg=1.0"]
+    st = spark_study("demo_turbo", "5:40:5", overrides=over, knock_min_unburned=0.05)
+    assert any("at or below the knock model's own cut-off" in n for n in st.notes)
+    hi = spark_study("demo_turbo", "5:40:5", overrides=over, knock_min_unburned=0.6)
+    # onset comes with at most about a third of the charge unburned on demo_turbo: never 60 %
+    assert hi.knock_status == "never"
+    assert any(n.startswith("no knock onset with at least 60 % of the charge unburned") for n in hi.notes)
+
+
+def test_the_cases_own_warnings_reach_the_study_once_each():
+    st = spark_study("demo_turbo", "5:40:5", overrides=["simulation.step_deg=1.0", "knock.octane_number=102"])
+    octane = [n for n in st.notes if "octane number 102" in n]
+    assert len(octane) == 1 and "(in 8 of 8 cases)" in octane[0]
+    assert not any(n.startswith("knock model: end-gas autoignition predicted") for n in st.notes)

@@ -71,7 +71,11 @@ def statistical_knock_limit(case: Case, advances, n_cycles: int = 50, share: flo
         raise ConfigError(f"knock limit: burn model {case.submodels['burn'].model!r} has no spark_advance_deg")
     if not 0 < share < 1:
         raise ConfigError(f"knock limit: share = {share!r}: expected a number between 0 and 1")
+    if int(n_cycles) < 1:
+        raise ConfigError(f"knock limit: n_cycles = {n_cycles!r}: expected at least 1")
     adv = np.asarray(sorted(float(a) for a in advances))
+    if adv.size < 2:
+        raise ConfigError(f"knock limit: {adv.size} advance(s) given: at least 2 are needed to bracket the limit")
     var = variation or CycleVariation()
     registry = _registry_for([case])
     from ..batch import build_batch
@@ -101,5 +105,9 @@ def statistical_knock_limit(case: Case, advances, n_cycles: int = 50, share: flo
         j = above[0]
         a0, a1, s0, s1 = adv[j - 1], adv[j], shares[j - 1], shares[j]
         limit = float(a0 + (share - s0) * (a1 - a0) / (s1 - s0)) if s1 > s0 else float(a1)
+    if share * n_cycles < 3:
+        notes.append(f"{100 * share:g} % of {n_cycles} cycles is {share * n_cycles:.2g} knocking cycle(s) per"
+                     f" advance: too few to place the limit reliably; simulate at least {int(np.ceil(3 / share))}"
+                     " cycles per advance")
     notes.append("model estimate: approach knock limits gradually on a real engine, with knock detection")
     return KnockLimit(adv, shares, share, limit, n_cycles, notes)

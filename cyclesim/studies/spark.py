@@ -388,8 +388,14 @@ def _knock(st: SparkStudy, table: SweepResult, adv: np.ndarray, ok: np.ndarray, 
             level = np.where(np.isfinite(onset), share, 0.0)
             x, status = crossing_up(a, level, float(knock_min_unburned))
             st.knock_limited_deg, st.knock_status = x, status
-            st.notes.append(f"knock counted when at least {100 * knock_min_unburned:g} % of the charge is unburned at onset")
-            _knock_notes(st, status, a)
+            crit = f"at least {100 * knock_min_unburned:g} % of the charge unburned at onset"
+            st.notes.append(f"knock counted with {crit}")
+            cut = _model_cutoff(table)
+            if cut is not None and knock_min_unburned <= cut:
+                st.notes.append(f"--knock-min-unburned {knock_min_unburned:g} is at or below the knock model's own"
+                                f" cut-off (knock.min_unburned_fraction = {cut:g}: the integral stops there), so"
+                                f" it changes nothing; raise it above {cut:g} to count only heavier knock")
+            _knock_notes(st, status, a, crit)
             return
     if "knock_integral_max" in table.columns and np.isfinite(table.column("knock_integral_max")[ok]).any():
         x, status = crossing_up(a, table.column("knock_integral_max")[ok], 1.0)
@@ -404,12 +410,36 @@ def _knock(st: SparkStudy, table: SweepResult, adv: np.ndarray, ok: np.ndarray, 
     _knock_notes(st, status, a)
 
 
-def _knock_notes(st: SparkStudy, status: str, a: np.ndarray) -> None:
+def _knock_notes(st: SparkStudy, status: str, a: np.ndarray, criterion: str = "") -> None:
+    what = f"no knock onset with {criterion}" if criterion else "no knock onset"
     if status == "never":
-        st.notes.append(f"no knock onset up to {a.max():g} deg BTDC: knock-limited advance is beyond the sweep")
+        st.notes.append(f"{what} up to {a.max():g} deg BTDC: knock-limited advance is beyond the sweep")
     elif status == "always":
-        st.notes.append(f"knock onset already at {a.min():g} deg BTDC, the least advance swept:"
-                        " the knock limit lies below the sweep")
+        st.notes.append(f"knock onset{' with ' + criterion if criterion else ''} already at {a.min():g} deg BTDC,"
+                        " the least advance swept: the knock limit lies below the sweep")
+
+
+def case_warnings(results) -> list[str]:
+    """The cases' own warnings, each kind once with the number of cases that gave it (the knock
+    model's per-case onset lines left out: the study reports knock itself)."""
+    import re
+
+    seen: dict[str, list] = {}
+    results = [r for r in results if r is not None]
+    for r in results:
+        for w in r.warnings:
+            if w.startswith("knock model: end-gas autoignition predicted"):
+                continue
+            key = re.sub(r"[-+]?\d+(\.\d+)?(e[-+]?\d+)?", "#", w)
+            seen.setdefault(key, [w, 0])[1] += 1
+    return [f"{w} (in {n} of {len(results)} cases)" if n > 1 else w for w, n in seen.values()]
+
+
+def _model_cutoff(table: SweepResult) -> float | None:
+    """The knock model's unburned-fraction cut-off of the sweep's cases (None if it has none)."""
+    vals = {r.inputs.get("knock.min_unburned_fraction") for r in table.results if r is not None}
+    vals.discard(None)
+    return float(min(vals)) if vals else None
 
 
 def _unburned_at_onset(table: SweepResult, ok: np.ndarray, onset: np.ndarray):
@@ -587,6 +617,7 @@ def spark_study(
                             f" {100 * knock_cycle_share:g} % of the cycles knock")
         elif kl.knocking_share[0] >= knock_cycle_share:
             st.knock_status = "always"
+    st.notes.extend(case_warnings(sub.results))
     st.pmax_limited_deg, p_status = _limit(st, "peak pressure", "p_max_bar", p_max_limit_bar, sub, adv_s)
     st.dp_limited_deg, dp_status = _limit(st, "pressure-rise rate", "dp_dtheta_max_bar_per_deg",
                                           dp_limit_bar_per_deg, sub, adv_s)
