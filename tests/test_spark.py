@@ -201,3 +201,18 @@ def test_the_cases_own_warnings_reach_the_study_once_each():
     octane = [n for n in st.notes if "octane number 102" in n]
     assert len(octane) == 1 and "(in 8 of 8 cases)" in octane[0]
     assert not any(n.startswith("knock model: end-gas autoignition predicted") for n in st.notes)
+
+
+def test_the_table_gives_onset_margin_and_torque_cost_at_the_limit():
+    st = spark_study("demo_turbo", "0:40:2", overrides=["simulation.step_deg=1.0"])
+    at = st.knock_at_limit()
+    # the first knocking advance lies at or just above the interpolated limit, with onset after TDC
+    assert st.knock_limited_deg <= at["advance_deg"] < st.knock_limited_deg + 2.0 + 1e-9
+    assert at["onset_deg"] > 0.0 and 0.0 < at["unburned"] < 0.5
+    text = st.text()
+    margin = st.knock_limited_deg - 12.0                   # demo_turbo's own spark: 12 deg BTDC
+    assert f"{margin:+.1f}" in text and "margin of the config's spark" in text
+    # the torque lost at the recommended advance: the study's own torque model there
+    loss = 100 * (1 - st.torque_at(st.recommended_deg)[0] / st.best_torque)
+    assert loss > 0 and f"{loss:.1f}" in text
+    assert st.figures()["config_advance_deg"] == 12.0

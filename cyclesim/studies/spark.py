@@ -235,6 +235,24 @@ class SparkStudy:
     files: list = field(default_factory=list)
     base_config: str = ""
     caution: str = SPARK_CAUTION
+    config_advance_deg: float | None = None
+    """The spark advance of the config the study started from [deg BTDC]."""
+
+    def knock_at_limit(self) -> dict:
+        """Knock onset [deg ATDC] and unburned share [-] at the least swept advance with onset
+        (empty where no case knocks or the cases report no onset)."""
+        if "knock_onset_deg" not in self.table.columns:
+            return {}
+        adv = self.table.column(KEY)
+        onset = self.table.column("knock_onset_deg")
+        ok = np.isfinite(adv) & np.isfinite(onset)
+        if not ok.any():
+            return {}
+        j = np.flatnonzero(ok)[np.argmin(adv[ok])]
+        out = {"advance_deg": float(adv[j]), "onset_deg": float(onset[j])}
+        if "knock_unburned_fraction_at_onset" in self.table.columns:
+            out["unburned"] = _f(self.table.column("knock_unburned_fraction_at_onset")[j])
+        return out
 
     def torque_at(self, advance_deg) -> np.ndarray:
         """Torque model used by the study: the fit inside its window, a monotone cubic outside."""
@@ -261,6 +279,8 @@ class SparkStudy:
             "dp_max_at_mbt_bar_per_deg": self.dp_max_at_mbt_bar_per_deg,
             "knock_limited_deg": self.knock_limited_deg,
             "knock_status": self.knock_status,
+            "knock_at_limit": self.knock_at_limit(),
+            "config_advance_deg": self.config_advance_deg,
             "knock_margin_deg": self.knock_margin_deg,
             "pmax_limited_deg": self.pmax_limited_deg,
             "dp_limited_deg": self.dp_limited_deg,
@@ -295,11 +315,22 @@ class SparkStudy:
         row("peak pressure at MBT", self.p_max_at_mbt_bar, "bar")
         if self.knock_status != "no model":
             row("knock-limited advance", self.knock_limited_deg)
+            at = self.knock_at_limit()
+            if at:
+                row("  onset at the first knocking advance", at["onset_deg"], "deg ATDC")
+                if at.get("unburned") is not None:
+                    row("  charge unburned at that onset", 100 * at["unburned"], "%", ".0f")
+            if self.knock_limited_deg is not None and self.config_advance_deg is not None:
+                row("  margin of the config's spark", self.knock_limited_deg - self.config_advance_deg,
+                    "deg (positive: retarded of the limit)", "+.1f")
         if self.pmax_limited_deg is not None:
             row("peak-pressure limit reached at", self.pmax_limited_deg)
         if self.dp_limited_deg is not None:
             row("pressure-rise limit reached at", self.dp_limited_deg)
         row("recommended advance", self.recommended_deg)
+        if self.recommended_deg is not None and self.mbt_deg is not None:
+            loss = 100.0 * (1.0 - float(self.torque_at(self.recommended_deg)[0]) / self.best_torque)
+            row(f"  {_LABELS.get(tk, tk)} lost there", loss, "% of best", ".1f")
         if self.recommended_by:
             lines.append(f"  (set by: {self.recommended_by})")
         for n in self.notes:
@@ -573,7 +604,8 @@ def spark_study(
     fit = fit_torque_peak(adv_s, tq_s, fit_window_fraction)
     st = SparkStudy(table=table, torque_key=tk, mbt_deg=fit["mbt_deg"], best_torque=fit["best"],
                     retard_limit_deg=None, torque_fraction=torque_fraction, knock_margin_deg=knock_margin_deg,
-                    fit=fit, base_config=label)
+                    fit=fit, base_config=label,
+                    config_advance_deg=float(case.submodels["burn"].params["spark_advance_deg"]))
     nfail = len(table.failed)
     if nfail:
         st.notes.append(f"{nfail} case(s) failed and are left out of the curve (see the error column)")
