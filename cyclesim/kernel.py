@@ -361,9 +361,9 @@ def loop_for(batch, rhs) -> tuple[object, str]:
     return mod, "compiled"
 
 
-def prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at) -> Compiled | None:
-    """The compiled cycle of this batch, or None for the Python path."""
-    mod, _ = loop_for(batch, rhs)
+def prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at) -> tuple[Compiled | None, str]:
+    """The compiled cycle of this batch (None for the Python path) and the loop's name (:func:`loop_for`)."""
+    mod, loop = loop_for(batch, rhs)
     if mod is None:
-        return None
-    return Compiled(mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at)
+        return None, loop
+    return Compiled(mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at), loop

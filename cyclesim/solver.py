@@ -603,6 +603,8 @@ few per cent, one at twice the step close to the periodic state, and the fine cy
 two or three.  The schedule depends only on the case's own settings, so batch-mates do not
 affect a result."""
 COARSE_CYCLES = sum(n for _, n in COARSE_SCHEDULE)
+LOOP_RERUN = "compiled (a cycle re-run on the numpy loop to stop a failing case)"
+"""CycleTrace.loop of an integration whose compiled loop handed a cycle to the numpy loop."""
 COARSE_STEP_MAX_DEG = 2.0
 """Largest start-up step [deg] (the demo's 0.5 deg step gives 2 deg, then 1 deg)."""
 
@@ -639,6 +641,7 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
         fresh = _initial_state(batch, _RHS(batch, mode), -360.0, mode)
         start = None
         history: list = []
+        reran = False
         from .config import effective_step_deg
 
         h0 = effective_step_deg(batch.simulation, float(batch.operating.speed_rpm[0])) * step_scale
@@ -652,12 +655,13 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
             start[:, bad] = fresh[:, bad]         # a case that failed a coarse cycle starts afresh
             start[_TOTALS] = 0.0
             history += coarse.history
+            reran = reran or coarse.loop == LOOP_RERUN
         tr = integrate(batch, progress=progress, initial=start, cycles=None, step_scale=step_scale,
                        _max_cycles=int(batch.simulation.max_cycles) - COARSE_CYCLES)
         tr.cycles = tr.cycles + COARSE_CYCLES
         tr.history = history + tr.history
-        if coarse.loop != tr.loop and "re-run" in coarse.loop:
-            tr.loop = coarse.loop
+        if reran:
+            tr.loop = LOOP_RERUN
         return tr
     rhs = _RHS(batch, mode)
     theta = grid_for(batch, mode, step_scale)
@@ -750,8 +754,7 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     # the compiled cycle where numba is installed and every submodel has a compiled form
     from . import kernel
 
-    compiled = kernel.prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at)
-    loop = "compiled" if compiled is not None else kernel.loop_for(batch, rhs)[1]
+    compiled, loop = kernel.prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at)
     y = _initial_state(batch, rhs, theta[0], mode)
     if initial is not None:
         if initial.shape != y.shape:
@@ -786,7 +789,7 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
             else:
                 kernel._used["python"] += 1
                 if compiled is not None:
-                    loop = "compiled (a cycle re-run on the numpy loop to stop a failing case)"
+                    loop = LOOP_RERUN
                 y = _python_cycle(y)
             if progress is not None:
                 progress(cyc)

@@ -63,7 +63,7 @@ class PathSpy:
 
         def spy_prepare(*args, **kw):
             got = prepare(*args, **kw)
-            self.prepared.append(got is not None)
+            self.prepared.append(got[0] is not None)
             return got
 
         def spy_cycle(obj, *args, **kw):
