@@ -186,14 +186,6 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
             )
         res.warnings.extend(model_warn[i])
         res.warnings.extend(_gas_exchange_warnings(summ))
-        if batch.simulation.mode == "full" and summ.get("burned_fraction_ivc", 0.0) > BURNED_FRACTION_LIMIT:
-            res.warnings.append(
-                f"burned-gas fraction at IVC {100 * summ['burned_fraction_ivc']:.0f} %: beyond about"
-                f" {100 * BURNED_FRACTION_LIMIT:.0f} % a spark-ignited charge no longer burns steadily (misfires and"
-                f" partial burns; common practice), but the burn model burns it as given")
-        if batch.simulation.mode == "full" and not np.isfinite(summ.get("exhaust_temperature_K", 0.0)):
-            res.warnings.append("exhaust temperature not defined: the net flow out through the exhaust valves is"
-                                " too small against its backflow")
         if summ.get("fmep_bar", 0.0) < 0.0:
             res.warnings.append(f"friction model {case.submodels['friction'].model!r} gives a negative FMEP"
                                 f" ({summ['fmep_bar']:.2f} bar): brake output above indicated (components are"
@@ -223,6 +215,13 @@ def _gas_exchange_warnings(s: dict) -> list[str]:
             f"exhaust flow choked for {s['exhaust_choked_deg']:.0f} deg: quasi-steady orifice flow is approximate"
             f" in a strong unsteady blowdown"
         )
+    if s.get("burned_fraction_ivc", 0.0) > BURNED_FRACTION_LIMIT:
+        out.append(f"burned-gas fraction at IVC {100 * s['burned_fraction_ivc']:.0f} %: beyond about"
+                   f" {100 * BURNED_FRACTION_LIMIT:.0f} % a spark-ignited charge no longer burns steadily (misfires"
+                   f" and partial burns; common practice), but the burn model burns it as given")
+    if not np.isfinite(s.get("exhaust_temperature_K", 0.0)):
+        out.append("exhaust temperature not defined: the net flow out through the exhaust valves is too small"
+                   " against its backflow")
     return out
 
 
