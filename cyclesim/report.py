@@ -206,14 +206,6 @@ def _num(x: str):
         return x
 
 
-def _csv_table(path: Path) -> dict:
-    """A CSV file as a table; ``#`` comment lines are skipped (see :func:`_csv_section`)."""
-    _, rows = _csv_comments_and_rows(path)
-    if not rows:
-        return {"columns": [], "rows": []}
-    return {"columns": rows[0], "rows": [[_num(c) for c in r] for r in rows[1:]]}
-
-
 def _csv_section(path: Path) -> dict:
     """A CSV file as a section: its comment lines as text, and the table.
 
