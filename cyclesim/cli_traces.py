@@ -82,13 +82,6 @@ def add_parsers(subparsers) -> None:
     a.add_argument("--debug", action="store_true", help="show tracebacks (default: one-line errors)")
 
 
-def _check_out(out: Path, force: bool) -> None:
-    """Refuse an --out that cannot be written (a file, or a non-empty folder without --force); creates nothing."""
-    from .output import prepare_out_dir
-
-    prepare_out_dir(out, force, create=False)
-
-
 def _positive(name: str, value, unit: str) -> None:
     import math
 
@@ -149,7 +142,7 @@ def cmd_analyse(args) -> int:
     _positive("--thermal-tau", tau, "s")
     case = load_config(args.engine, list(getattr(args, "overrides", []) or []))
     geom, settings, speed = analysis_inputs(case)
-    _check_out(args.out, getattr(args, "force", False))
+    prepare_out_dir(args.out, getattr(args, "force", False), create=False)     # checked now, made once it ran
     ts = read_trace(args.file)
     if not math.isfinite(ts.speed_rpm):
         ts.speed_rpm = speed
