@@ -284,7 +284,7 @@ def cylinder_cases(setup: EngineSetup) -> list[Case]:
 
 def supply_pressure_bar(ms) -> float:
     """Air pressure ahead of the throttle [bar]: ``intake_supply_pressure_bar``, else ambient."""
-    v = getattr(ms, "intake_supply_pressure_bar", None)
+    v = ms.intake_supply_pressure_bar
     return float(ms.ambient_pressure_bar if v is None else v)
 
 
