@@ -350,9 +350,10 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
                 fits[pt] = fit_torque_peak(a_s[ok], t[ok]) if ok.sum() >= 3 else None
                 f = fits[pt]
                 if advances is None and f is not None and not f["bracketed"] and round_ < MBT_EXTEND_ROUNDS:
-                    edge = a_s[ok][-1] if f["edge"] != "low" else a_s[ok][0]
-                    nxt = [edge + k * step for k in (1, 2)] if f["edge"] != "low" else [edge - k * step for k in (1, 2)]
-                    more += [(pt, float(a)) for a in nxt if lo_lim <= a <= hi_lim]
+                    low = f["edge"] == "low"
+                    edge, sign = (a_s[ok][0], -1.0) if low else (a_s[ok][-1], 1.0)
+                    more += [(pt, float(a)) for a in (edge + sign * step, edge + 2 * sign * step)
+                             if lo_lim <= a <= hi_lim]
             if not more:
                 break
             run_grid(more)
