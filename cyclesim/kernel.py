@@ -107,10 +107,7 @@ def compiled_module():
         except Exception as exc:  # noqa: BLE001 - a broken numba install: say so, use the numpy loop
             if c == "compiled":
                 raise ConfigError(f"{ENV}=compiled: numba failed to load ({type(exc).__name__}: {exc})") from exc
-            import sys
-
-            print(f"cyclesim: numba failed to load ({type(exc).__name__}: {exc}); using the numpy loop",
-                  file=sys.stderr)
+            _notice("numba", f"numba failed to load ({type(exc).__name__}: {exc}); using the numpy loop")
             _mod = False
     if _mod is False and c == "compiled":
         raise ConfigError(f"{ENV}=compiled needs numba: pip install -e \".[fast]\"")
