@@ -71,6 +71,16 @@ def add_parsers(subparsers) -> None:
     a.add_argument("--tdc-correct", action="store_true",
                    help="estimate the TDC offset from motored cycles (in FILE or --motored) and correct it"
                         " (default: no correction)")
+    a.add_argument("--tdc-from-fired", action="store_true",
+                   help="for a set without motored cycles: fit the TDC offset with the pegging constant and the"
+                        " compression exponent to the fired cycles' compression, state its 95 %% interval and"
+                        " correct it (refused, with the reason, where the interval is wider than 0.3 deg)"
+                        " (default: off)")
+    a.add_argument("--partial-burn-share", type=float, default=0.85, metavar="SHARE",
+                   help="a cycle releasing less than this share of the fired cycles' median heat is a partial"
+                        " burn (below 0.1, with no gross work or a flat pressure ratio, a misfire), 0.1..1"
+                        " (default 0.85)")
+    a.add_argument("--no-plots", action="store_true", help="skip the analysis plots (default: drawn)")
     a.add_argument("--motored", type=Path,
                    help="a motored trace set of the same recording, for --tdc-correct (default: none)")
     a.add_argument("--thermal-tau", type=float, metavar="SECONDS",
@@ -135,15 +145,26 @@ def cmd_analyse(args) -> int:
 
     from .config import get_dotted, load_config
     from .output import prepare_out_dir
-    from .traces.analysis import analyse, with_measured_masses, write_analysis
+    from .traces.analysis import analyse, with_measured_masses
+    from .traces.analysis_files import write_analysis
     from .traces.export import read_trace
 
     tau = getattr(args, "thermal_tau", None)
     _positive("--thermal-tau", tau, "s")
+    share = float(getattr(args, "partial_burn_share", 0.85))
+    if not (math.isfinite(share) and 0.1 <= share <= 1.0):
+        raise CyclesimError(f"--partial-burn-share {share:g}: expected a share from 0.1 to 1 [-]")
+    from_fired = bool(getattr(args, "tdc_from_fired", False))
+    if from_fired and args.tdc_correct:
+        raise CyclesimError("--tdc-from-fired and --tdc-correct: choose one way of finding the TDC offset")
     case = load_config(args.engine, list(getattr(args, "overrides", []) or []))
     geom, settings, speed = analysis_inputs(case)
     prepare_out_dir(args.out, getattr(args, "force", False), create=False)     # checked now, made once it ran
     ts = read_trace(args.file)
+    from .traces.engine_check import engine_mismatches, mismatch_warning
+
+    mismatch = mismatch_warning(engine_mismatches(dict(ts.meta or {}, speed_rpm=ts.speed_rpm), case),
+                                Path(args.file).name, str(args.engine))
     if not math.isfinite(ts.speed_rpm):
         ts.speed_rpm = speed
     motored = None
@@ -152,10 +173,13 @@ def cmd_analyse(args) -> int:
         if not math.isfinite(motored.speed_rpm):
             motored.speed_rpm = speed
     settings = with_measured_masses(settings, ts.meta)
-    settings = settings.replace(peg=args.peg, tdc_correct=bool(args.tdc_correct))
+    settings = settings.replace(peg=args.peg, tdc_correct=bool(args.tdc_correct), tdc_from_fired=from_fired,
+                                partial_burn_share=share)
     if tau is not None:
         settings = settings.replace(thermal_time_constant_s=float(tau))
     res = analyse(ts, geom, settings, motored=motored)      # errors here leave no --out folder behind
+    if mismatch:
+        res.warnings.insert(0, mismatch)
     prepare_out_dir(args.out, getattr(args, "force", False))
     st = res.stats
 
@@ -166,9 +190,15 @@ def cmd_analyse(args) -> int:
     n_fired = st["n_fired"]
     over = f"{n_fired} fired cycles" if n_fired else f"all {st['n_cycles']} cycles, none fired"
     print(f"{args.file}: {st['n_cycles']} cycles ({n_fired} fired), {ts.speed_rpm:g} rpm, peg {args.peg}")
-    if res.tdc["estimated"]:
+    print(f"  cycles fired / partial burn / misfire {n_fired} / {st['n_partial_burn']} / {st['n_misfire']}"
+          f" (figures below over the fired cycles only; misfires and partial burns excluded)")
+    if res.tdc["estimated"] and res.tdc.get("interval_deg"):
+        lo, hi = res.tdc["interval_deg"]
+        print(f"  TDC offset found and corrected     {res.tdc['offset_deg']:+.2f} deg (95 % {lo:+.2f}..{hi:+.2f};"
+              f" fired-cycle compression, n {res.tdc['n_compression']:.3f}, {res.tdc['n_cycles_fit']} cycles)")
+    elif res.tdc["estimated"]:
         print(f"  TDC offset found and corrected     {res.tdc['offset_deg']:+.2f} deg"
-              f" (loss angle {res.tdc['loss_angle_deg']:.2f} deg, {res.tdc['n_motored']} motored cycles)")
+              f" (loss angle {res.tdc['loss_angle_deg']:.2f} deg before TDC, {res.tdc['n_motored']} motored cycles)")
     print(f"  net IMEP (mean, COV)               {f('imep_net_bar_mean')} bar, {100 * st['imep_net_cov']:.2f} % ({over})"
           if math.isfinite(st["imep_net_cov"])
           else f"  net IMEP (mean)                    {f('imep_net_bar_mean')} bar ({over})")
@@ -191,6 +221,10 @@ def cmd_analyse(args) -> int:
     for w in res.warnings:
         print(f"warning: {w}")
     files = write_analysis(res, args.out)
+    if not getattr(args, "no_plots", False):
+        from .traces.analysis_plots import plot_analysis
+
+        files += plot_analysis(res, args.out, title=f"{case.name}: {Path(args.file).name}")
     print(f"wrote {len(files)} files to {args.out}/: " + ", ".join(p.name for p in files))
     return 0
 

@@ -17,8 +17,8 @@ from cyclesim.cli_traces import add_parsers, analysis_inputs, cmd_analyse
 from cyclesim.config import load_config
 from cyclesim.errors import CyclesimError
 from cyclesim.geometry import Geometry
-from cyclesim.traces.analysis import (AnalysisSettings, analyse, apparent_heat_release, with_measured_masses,
-                                     write_analysis)
+from cyclesim.traces.analysis import AnalysisSettings, analyse, apparent_heat_release, with_measured_masses
+from cyclesim.traces.analysis_files import write_analysis
 from cyclesim.traces.artefacts import ArtefactSettings, apply_artefacts
 from cyclesim.traces.export import TraceSet, write_npz
 

@@ -127,19 +127,17 @@ lag given as 2 ms c = 6.2e-5 bar/K, CA50 0.087 / +0.053 deg.
 
 from __future__ import annotations
 
-import json
-from dataclasses import asdict, dataclass, field, replace
-from pathlib import Path
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from ..errors import CyclesimError
-from ..output import atomic_write_text, write_rows_csv
-from .export import CRANK_CONVENTION, TraceSet
-from ..output import plain as _plain
+from .classify import CLASSES, ClassifySettings, classify_cycles, cycle_evidence
+from .export import TraceSet
+from .tdc_fired import fit_tdc_fired
 
 __all__ = ["AnalysisSettings", "AnalysisResult", "VolumeFunction", "analyse", "estimate_tdc_offset",
-           "apparent_heat_release", "write_analysis", "with_measured_masses", "AIR_MASS_KEY", "FUEL_MASS_KEY"]
+           "apparent_heat_release", "with_measured_masses", "AIR_MASS_KEY", "FUEL_MASS_KEY"]
 
 BAR = 1e5
 
@@ -180,11 +178,15 @@ class AnalysisSettings:
         Specific gas constant of the charge [J/(kg K)].
     tdc_correct : bool
         Estimate and correct the TDC offset (needs motored cycles).
+    tdc_from_fired : bool
+        Estimate the TDC offset from the fired cycles' compression instead and correct it
+        where its 95 % interval is narrow enough (:mod:`cyclesim.traces.tdc_fired`).
     tdc_offset_deg : float or None
         A known TDC offset to correct [deg] (skips the estimate).
-    motored_threshold : float
-        A cycle whose apparent heat-release range is below this multiple of
-        p V at IVC counts as motored [-].
+    misfire_release_share, partial_burn_share : float
+        Thresholds of the cycle classification (:mod:`cyclesim.traces.classify`): a cycle
+        whose net released heat is below these shares of the fired cycles' median is a
+        misfire (with no gross work or a flat pressure ratio) or a partial burn [-].
     bore_m : float or None
         Bore [m]; needed for the TDC estimate when the volume is an array.
     tdc_wall_temperature_K : float
@@ -261,9 +263,11 @@ class AnalysisSettings:
     fuel_mass_kg: float | None = None
     R_J_per_kgK: float = 287.0
     tdc_correct: bool = False
+    tdc_from_fired: bool = False
     tdc_offset_deg: float | None = None
     tdc_wall_temperature_K: float = 450.0
-    motored_threshold: float = 1.0
+    misfire_release_share: float = 0.1
+    partial_burn_share: float = 0.85
     bore_m: float | None = None
     gas_model: str = "tables"
     fuel: str = "gasoline"
@@ -347,9 +351,14 @@ class AnalysisResult:
         ``ca10_deg``, ``ca50_deg``, ``ca90_deg``, ``p_max_bar``,
         ``theta_pmax_deg``, ``q_apparent_J`` (max minus min),
         ``thermal_drift_bar_per_K`` (drift sensitivity used, NaN for motored
-        cycles or without the fit), ``motored``.
+        cycles or without the fit), ``wall_heat_scale`` (level-after-burn scale of
+        Woschni's coefficient, see :func:`wall_heat_scale_flag`), ``release_share``
+        (net released heat over the fired median), ``cycle_class`` (``fired``,
+        ``partial burn`` or ``misfire``), ``motored`` (misfire: no combustion).
     stats : dict
-        ``<name>_mean``, ``<name>_sd`` and ``imep_net_cov`` (sd / mean, fired cycles).
+        ``<name>_mean``, ``<name>_sd`` and ``imep_net_cov`` (sd / mean) over the fired
+        cycles only (misfires and partial burns excluded); ``n_fired``,
+        ``n_partial_burn``, ``n_misfire``.
     tdc : dict
         ``offset_deg`` (applied correction), ``estimated`` (bool), ``method``,
         ``loss_angle_deg``, ``theta_pmax_motored_deg``, ``n_motored``.
@@ -362,6 +371,9 @@ class AnalysisResult:
     temperature_K : ndarray (n_cycles, n)
         Mean gas temperature from the ideal-gas law [K] (NaN outside IVC..EVO).
     settings : AnalysisSettings
+    warnings : list of str
+    volume_m3 : ndarray (n,)
+        Cylinder volume at ``theta_deg`` [m^3].
     """
 
     per_cycle: dict
@@ -373,6 +385,7 @@ class AnalysisResult:
     temperature_K: np.ndarray
     settings: AnalysisSettings
     warnings: list = field(default_factory=list)
+    volume_m3: np.ndarray | None = None
 
 
 class VolumeFunction:
@@ -602,14 +615,22 @@ def _level_after_burn(th, q_net, q_wall, s: AnalysisSettings) -> float:
     release is flat after the end of combustion).  The window runs from
     ``level_start_deg`` after the maximum of the apparent release (the
     burning rate has fallen below the wall loss there) to ``level_end_deg``
-    before EVO; c is the least-squares ratio of the two slopes.  Without
-    ``level_fit`` (or with too short a window) the scale is
-    ``woschni_multiplier`` as given.
+    before EVO; c is the least-squares ratio of the two slopes, bounded to
+    ``WALL_HEAT_SCALE_BOUNDS``: zero and slightly negative values are allowed (a trace with no
+    wall heat, an adiabatic model or a well-insulated engine, levels itself; noise and the drift
+    scatter the fit about zero), see :func:`wall_heat_scale_flag`.  Without ``level_fit`` (or
+    with too short a window) the scale is ``woschni_multiplier`` as given.
     """
     if not s.level_fit:
         return 1.0
     imax = int(np.argmax(q_net))
     m = (th >= th[imax] + s.level_start_deg) & (th <= s.evo_deg - s.level_end_deg)
+    if m.sum() < 10:
+        # the release still rises at EVO (no wall heat to bring it down): the window from where the
+        # release first reaches 98 % of its rise instead
+        lo = float(np.min(q_net[: imax + 1]))
+        j = int(np.argmax(q_net >= lo + 0.98 * (q_net[imax] - lo)))
+        m = (th >= th[j] + s.level_start_deg) & (th <= s.evo_deg - s.level_end_deg)
     if m.sum() < 10:
         return 1.0
     t = th[m]
@@ -617,7 +638,30 @@ def _level_after_burn(th, q_net, q_wall, s: AnalysisSettings) -> float:
     b = np.polyfit(t, q_wall[m], 1)[0]
     if not b > 0:
         return 1.0
-    return float(np.clip(-a / b, 0.2, 5.0))
+    return float(np.clip(-a / b, *WALL_HEAT_SCALE_BOUNDS))
+
+
+#: Bounds of the level-after-burn wall-heat scale [-] (of Woschni's coefficient x woschni_multiplier).
+WALL_HEAT_SCALE_BOUNDS = (-0.3, 5.0)
+#: A scale below this in magnitude is flagged as near zero [-].
+WALL_HEAT_SCALE_NEAR_ZERO = 0.2
+
+
+def wall_heat_scale_flag(scale: float) -> str:
+    """``near zero``, ``at a bound`` or ``""`` for a level-after-burn wall-heat scale [-].
+
+    Near zero: the traces show (almost) no wall heat after burning, as from an adiabatic
+    model, a well-insulated engine, or a sensor drift that mimics heat gain; at a bound: the
+    level condition was not met within the range, so the late burn points are doubtful.
+    """
+    lo, hi = WALL_HEAT_SCALE_BOUNDS
+    if not np.isfinite(scale):
+        return ""
+    if scale <= lo + 1e-9 or scale >= hi - 1e-9:
+        return "at a bound"
+    if abs(scale) < WALL_HEAT_SCALE_NEAR_ZERO:
+        return "near zero"
+    return ""
 
 
 def _thermal_lag(th, T, speed_rpm, tau_s):
@@ -798,6 +842,7 @@ def heat_release(th, p, vol, s: AnalysisSettings, speed_rpm: float, n_comp: floa
         tw, pm_w, Vw = th[idx], p[idx], V[idx]
         r = float(s.residual_fraction)
         x = np.zeros(idx.size)
+        k_wall = float("nan")
         mass = None
         if s.thermal_drift not in ("fit", "none"):
             raise CyclesimError(f"thermal_drift {s.thermal_drift!r}: unknown; choose fit or none")
@@ -823,7 +868,8 @@ def heat_release(th, p, vol, s: AnalysisSettings, speed_rpm: float, n_comp: floa
                 if s.wall_heat == "woschni":
                     soc = _normalised(tw, q)[1]
                     qw = _woschni_wall_heat(tw, pw, Vw, Tw, vol, s, speed_rpm, n_comp, soc)
-                    qg = q + _level_after_burn(tw, q, qw, s) * qw
+                    k_wall = _level_after_burn(tw, q, qw, s)
+                    qg = q + k_wall * qw
                 x, _ = _normalised(tw, qg)
             if not fit_drift or outer == int(s.thermal_passes):
                 break
@@ -831,6 +877,7 @@ def heat_release(th, p, vol, s: AnalysisSettings, speed_rpm: float, n_comp: floa
             dc_th, rss = _thermal_drift_step(tw, pw, Vw, s, y, mass, lag, q, qw)
             c_th += dc_th
         if info is not None:
+            info["wall_heat_scale"] = k_wall if s.wall_heat == "woschni" and s.level_fit else float("nan")
             info["thermal_drift_bar_per_K"] = -c_th / BAR
             info["thermal_level_rss_J2"] = rss if fit_drift else float("nan")
         Q[idx] = q - np.interp(s.ivc_deg, tw, q)
@@ -848,7 +895,10 @@ def heat_release(th, p, vol, s: AnalysisSettings, speed_rpm: float, n_comp: floa
     soc = _normalised(tw, Q[idx])[1]
     G = np.full(th.shape, np.nan)
     qw = _woschni_wall_heat(tw, p[idx], V[idx], T[idx], vol, s, speed_rpm, n_comp, soc)
-    G[idx] = Q[idx] + _level_after_burn(tw, Q[idx], qw, s) * qw
+    k_wall = _level_after_burn(tw, Q[idx], qw, s)
+    if info is not None:
+        info["wall_heat_scale"] = k_wall if s.level_fit else float("nan")
+    G[idx] = Q[idx] + k_wall * qw
     return Q, G, T
 
 
@@ -949,16 +999,18 @@ def estimate_tdc_offset(theta, p_abs, vol: VolumeFunction, s: AnalysisSettings, 
     Returns
     -------
     dict
-        ``offset_deg`` (true TDC lies at this labelled angle), ``loss_angle_deg``
-        (peak pressure minus TDC, negative: before TDC), ``theta_pmax_deg``
+        ``offset_deg`` (true TDC lies at this labelled angle; true = labelled - offset),
+        ``loss_angle_deg`` (how far the motored pressure peak lies before TDC, positive
+        when it precedes TDC), ``theta_pmax_deg``
         (labelled angle of the motored pressure peak), ``heat_loss_rate_J_per_deg``.
 
     Notes
     -----
     In a motored cycle the heat loss makes the pressure peak before TDC by
     the thermodynamic loss angle.  At the peak dp = 0, so the first law gives
-    ``dQ/dtheta = gamma/(gamma-1) p dV/dtheta``; near TDC ``dV/dtheta = V''(0) x``,
-    so the loss angle is ``x = (gamma-1)/gamma (dQ/dtheta) / (p V''(0))``.
+    ``dQ/dtheta = gamma/(gamma-1) p dV/dtheta``; near TDC ``dV/dtheta = V''(0) x``
+    at the peak's true angle x, so the loss angle is
+    ``-x = -(gamma-1)/gamma (dQ/dtheta) / (p V''(0))`` (dQ < 0: a loss).
     The heat-loss rate at the peak, ``-h A (T - T_w) / (6 N)``, comes from
     Woschni's correlation for the compression phase (Woschni 1967, SAE 670931;
     Heywood 1988 eq. 12.19: h = 3.26 B^-0.2 p[kPa]^0.8 T^-0.55 w^0.8,
@@ -1021,8 +1073,8 @@ def estimate_tdc_offset(theta, p_abs, vol: VolumeFunction, s: AnalysisSettings, 
         A = end_area + 4.0 * V_pk / bore
         q = -h * A * (T_pk - s.tdc_wall_temperature_K) / (6.0 * speed_rpm)   # [J/deg]
         g_pk = float(_gamma(T_pk, s))
-        x = (g_pk - 1.0) / g_pk * q / (p_pk * V2)
-        d_new = th_pk - x
+        x = -(g_pk - 1.0) / g_pk * q / (p_pk * V2)          # loss angle, > 0: peak before TDC
+        d_new = th_pk + x
         if abs(d_new - d) < 1e-7:
             d = d_new
             break
@@ -1038,7 +1090,7 @@ def _cycle_figures(th, p, vol, s, Vd, speed_rpm):
     Vg = vol(tg)
     Wg = float(np.sum(0.5 * (pg[1:] + pg[:-1]) * np.diff(Vg)))
     n_c = _slope_loglog(th, p, V, *s.compression_window_deg)
-    info = {"thermal_drift_bar_per_K": np.nan}
+    info = {"thermal_drift_bar_per_K": np.nan, "wall_heat_scale": np.nan}
     Q, G, T = heat_release(th, p, vol, s, speed_rpm, n_c, info)
     (c10, c50, c90), _ = _burn_points(th, G)
     qrange = float(np.nanmax(Q) - np.nanmin(Q)) if np.isfinite(Q).any() else 0.0
@@ -1052,7 +1104,39 @@ def _cycle_figures(th, p, vol, s, Vd, speed_rpm):
         "p_max_bar": ppk / BAR, "theta_pmax_deg": tpk,
         "q_apparent_J": qrange,
         "thermal_drift_bar_per_K": info["thermal_drift_bar_per_K"],
+        "wall_heat_scale": info["wall_heat_scale"],
     }, Q, T
+
+
+def _classify(th, P, vol, s: AnalysisSettings):
+    """Class codes of the cycles (0 fired, 1 partial burn, 2 misfire) on the angle ``th``, and the info."""
+    cs = ClassifySettings(misfire_release_share=s.misfire_release_share, partial_burn_share=s.partial_burn_share)
+    return classify_cycles(cycle_evidence(th, P, vol(th), s.ivc_deg, s.evo_deg, vol.Vd, cs), cs)
+
+
+def _tdc_from_motored(traceset, motored, P, mask, vol, s: AnalysisSettings, tdc: dict) -> float:
+    """TDC offset [deg] by the loss angle of the motored set given or of the set's cycles in ``mask``;
+    ``tdc`` is updated with the estimate."""
+    if motored is None and not mask.any():
+        raise CyclesimError("TDC correction needs motored cycles: none in the trace set (give a motored trace set)")
+    ts = motored if motored is not None else traceset
+
+    def mean_motored(d):
+        if motored is None and not d:
+            return np.mean(P[mask], axis=0)
+        pm = ts.pressure_pa - _peg_offsets(ts, ts.theta - d, vol, s)[:, None]
+        return np.mean(pm if motored is not None else pm[mask], axis=0)
+
+    est = estimate_tdc_offset(ts.theta, mean_motored(0.0), vol, s, ts.speed_rpm)
+    if s.peg == "polytropic":
+        # the polytropic peg depends on the angle: re-peg on the corrected angle and estimate again
+        est = estimate_tdc_offset(ts.theta, mean_motored(est["offset_deg"]), vol, s, ts.speed_rpm)
+    tdc.update(offset_deg=est["offset_deg"], estimated=True,
+               method="thermodynamic loss angle, Woschni heat loss (motored cycles)",
+               loss_angle_deg=est["loss_angle_deg"], theta_pmax_motored_deg=est["theta_pmax_deg"],
+               heat_loss_rate_J_per_deg=est["heat_loss_rate_J_per_deg"],
+               n_motored=int(motored.n_cycles if motored is not None else mask.sum()))
+    return float(est["offset_deg"])
 
 
 def analyse(traceset: TraceSet, geometry_or_volume, settings: AnalysisSettings | None = None,
@@ -1079,56 +1163,38 @@ def analyse(traceset: TraceSet, geometry_or_volume, settings: AnalysisSettings |
     Vd = vol.Vd
     warnings: list[str] = []
 
-    # pass 1: peg on the labelled angle, classify motored cycles
+    # pass 1: peg on the labelled angle, classify on evidence a phasing error barely changes
     offs = _peg_offsets(traceset, th, vol, s)
     P = traceset.pressure_pa - offs[:, None]
-    V0 = vol(th)
-    qr = np.empty(traceset.n_cycles)
-    mR = []
-    for k in range(traceset.n_cycles):
-        Q, _ = apparent_heat_release(th, P[k], V0, s)
-        ok = np.isfinite(Q)
-        qr[k] = np.ptp(Q[ok]) if ok.any() else 0.0
-        mR.append(_interp(th, P[k] * V0, s.ivc_deg))
-    motored_mask = qr < s.motored_threshold * np.asarray(mR)
-
-    n_mot = int(motored_mask.sum())
+    codes, _ = _classify(th, P, vol, s)
+    motored_mask = codes == 2
     tdc = {"offset_deg": 0.0, "estimated": False, "method": "none", "loss_angle_deg": None,
-           "theta_pmax_motored_deg": None, "n_motored": n_mot}
+           "theta_pmax_motored_deg": None, "n_motored": int(motored_mask.sum())}
     d = 0.0
     if s.tdc_offset_deg is not None:
         d = float(s.tdc_offset_deg)
         tdc.update(offset_deg=d, method="given")
     elif s.tdc_correct:
-        if motored is not None:
-            m_off = _peg_offsets(motored, motored.theta, vol, s)
-            pm = np.mean(motored.pressure_pa - m_off[:, None], axis=0)
-            th_m = motored.theta
-            n_m = motored.n_cycles
-        elif motored_mask.any():
-            pm = np.mean(P[motored_mask], axis=0)
-            th_m = th
-            n_m = int(motored_mask.sum())
-        else:
-            raise CyclesimError(
-                "TDC correction needs motored cycles: none in the trace set (give a motored trace set)"
-            )
-        speed = motored.speed_rpm if motored is not None else traceset.speed_rpm
-        est = estimate_tdc_offset(th_m, pm, vol, s, speed)
-        if s.peg == "polytropic":
-            # the polytropic peg depends on the angle: re-peg on the corrected angle and estimate again
-            if motored is not None:
-                m_off = _peg_offsets(motored, motored.theta - est["offset_deg"], vol, s)
-                pm = np.mean(motored.pressure_pa - m_off[:, None], axis=0)
-            else:
-                o2 = _peg_offsets(traceset, th - est["offset_deg"], vol, s)
-                pm = np.mean((traceset.pressure_pa - o2[:, None])[motored_mask], axis=0)
-            est = estimate_tdc_offset(th_m, pm, vol, s, speed)
+        d = _tdc_from_motored(traceset, motored, P, motored_mask, vol, s, tdc)
+    elif s.tdc_from_fired:
+        if not (codes == 0).any():
+            raise CyclesimError("TDC from fired cycles: the set has no fired cycle")
+        est = fit_tdc_fired(th, np.mean(P[codes == 0], axis=0), vol, n_cycles=int(np.sum(codes == 0)))
         d = est["offset_deg"]
-        tdc.update(offset_deg=d, estimated=True, method="thermodynamic loss angle, Woschni heat loss (motored cycles)",
-                   loss_angle_deg=est["loss_angle_deg"], theta_pmax_motored_deg=est["theta_pmax_deg"],
-                   heat_loss_rate_J_per_deg=est["heat_loss_rate_J_per_deg"],
-                   n_motored=n_m)
+        tdc.update(est, estimated=True, method="compression polytrope of the fired cycles (offset, exponent and"
+                   " pegging constant fitted together)")
+    th_true = th - d
+    if s.peg == "polytropic" and d:
+        offs = _peg_offsets(traceset, th_true, vol, s)
+        P = traceset.pressure_pa - offs[:, None]
+    # pass 2: classify again on the corrected angle (and phase again if the misfires changed)
+    codes, cls_info = _classify(th_true, P, vol, s)
+    if tdc["estimated"] and motored is None and (codes == 2).any() and not np.array_equal(codes == 2, motored_mask):
+        d = _tdc_from_motored(traceset, motored, P, codes == 2, vol, s, tdc)
+        th_true = th - d
+        codes, cls_info = _classify(th_true, P, vol, s)
+    motored_mask = codes == 2
+    fired = codes == 0
     if tdc["method"] == "none":
         if motored is None and not motored_mask.any():
             warnings.append("TDC phasing unverified: the set has no motored cycles (and no motored set was"
@@ -1136,18 +1202,15 @@ def analyse(traceset: TraceSet, geometry_or_volume, settings: AnalysisSettings |
                             " angles and the angle of peak pressure carry the recording's TDC error"
                             " (net IMEP about 3.6 % per degree on the demo at full load)")
         else:
-            warnings.append(f"TDC phasing not corrected: {motored.n_cycles if motored is not None else n_mot}"
-                            f" motored cycles would give the offset (tdc_correct, --tdc-correct)")
-    th_true = th - d
-    if s.peg == "polytropic" and d:
-        offs = _peg_offsets(traceset, th_true, vol, s)
-        P = traceset.pressure_pa - offs[:, None]
+            n_m = motored.n_cycles if motored is not None else int(motored_mask.sum())
+            warnings.append(f"TDC phasing not corrected: {n_m} motored cycles would give the offset"
+                            f" (tdc_correct, --tdc-correct)")
 
     thermal_tau = {"tau_s": _tau(s), "source": "given" if s.thermal_time_constant_s is not None else "default"}
     if (s.thermal_drift == "fit" and s.thermal_drift_bar_per_K is None and not s.thermal_per_cycle
             and s.gas_model == "tables" and s.wall_heat == "woschni" and s.level_fit
             and s.trapped_mass() is not None):
-        cycles = np.flatnonzero(~motored_mask)
+        cycles = np.flatnonzero(fired)
         if s.thermal_time_constant_s is None:
             tau_est = _estimate_thermal_tau(th_true, P, cycles, vol, s, traceset.speed_rpm)
             thermal_tau.update(tau_est)
@@ -1162,10 +1225,19 @@ def analyse(traceset: TraceSet, geometry_or_volume, settings: AnalysisSettings |
         # one drift sensitivity for the set (a property of the sensor): the median of the per-cycle
         # estimates of the fired cycles, then every cycle analysed again with it
         c_set, _ = _set_thermal_drift(th_true, P, cycles, vol, s, traceset.speed_rpm)
+        if np.isfinite(c_set) and c_set < 0.0:
+            # thermal shock makes a sensor read low when the gas is hot (common practice): a negative
+            # sensitivity is the fit absorbing something else (noise, gain, a drift of another form);
+            # said where it exceeds a third of one cycle's scatter (about 3e-5 bar/K, measured)
+            if c_set < -1e-5:
+                warnings.append(f"thermal drift: the fit gives {c_set:.2e} bar/K (a sensor reading high when the"
+                                " gas is hot, not a thermal shock); no drift correction is applied")
+            c_set = 0.0
         if np.isfinite(c_set):
             s = s.replace(thermal_drift_bar_per_K=c_set)
     names = ["imep_net_bar", "imep_gross_bar", "n_compression", "n_expansion", "ca10_deg", "ca50_deg",
-             "ca90_deg", "p_max_bar", "theta_pmax_deg", "q_apparent_J", "thermal_drift_bar_per_K"]
+             "ca90_deg", "p_max_bar", "theta_pmax_deg", "q_apparent_J", "thermal_drift_bar_per_K",
+             "wall_heat_scale"]
     per = {n: np.empty(traceset.n_cycles) for n in names}
     HR = np.full(P.shape, np.nan)
     TT = np.full(P.shape, np.nan)
@@ -1174,12 +1246,25 @@ def analyse(traceset: TraceSet, geometry_or_volume, settings: AnalysisSettings |
         for n in names:
             per[n][k] = fig[n]
         HR[k], TT[k] = Q, T
-    for n in ("ca10_deg", "ca50_deg", "ca90_deg", "thermal_drift_bar_per_K"):
+    for n in ("ca10_deg", "ca50_deg", "ca90_deg", "thermal_drift_bar_per_K", "wall_heat_scale"):
         per[n][motored_mask] = np.nan
+    flags = [wall_heat_scale_flag(k) for k in per["wall_heat_scale"][fired]]
+    for f in ("near zero", "at a bound"):
+        if f in flags:
+            warnings.append(f"wall heat: the level-after-burn scale of Woschni's coefficient is {f} in"
+                            f" {flags.count(f)} of {fired.sum()} fired cycles (per cycle: wall_heat_scale;"
+                            + (" little or no wall heat seen after burning: an adiabatic trace, a"
+                               " well-insulated engine or a sensor drift)" if f == "near zero" else
+                               f" bounds {WALL_HEAT_SCALE_BOUNDS[0]:g}..{WALL_HEAT_SCALE_BOUNDS[1]:g}: the"
+                               " release does not level, late burn points doubtful)"))
     per["peg_offset_bar"] = offs / BAR
+    per["release_share"] = cls_info["release_share"]
     per["motored"] = motored_mask
-    fired = ~motored_mask
-    stats: dict = {"n_cycles": int(traceset.n_cycles), "n_fired": int(fired.sum())}
+    per["cycle_class"] = np.array([CLASSES[c] for c in codes], dtype=object)
+    stats: dict = {"n_cycles": int(traceset.n_cycles), "n_fired": int(fired.sum()),
+                   "n_partial_burn": int(np.sum(codes == 1)), "n_misfire": int(motored_mask.sum()),
+                   "statistics_over": "fired cycles only (misfires and partial burns excluded)",
+                   "reference_release_J": cls_info["reference_release_J"]}
     m_tr = s.trapped_mass()
     stats["trapped_mass_source"] = ("given" if s.trapped_mass_kg else "measured air and fuel" if m_tr
                                     else "assumed IVC temperature")
@@ -1198,45 +1283,5 @@ def analyse(traceset: TraceSet, geometry_or_volume, settings: AnalysisSettings |
     m = stats["imep_net_bar_mean"]
     stats["imep_net_cov"] = stats["imep_net_bar_sd"] / m if m and np.isfinite(stats["imep_net_bar_sd"]) else float("nan")
     return AnalysisResult(per_cycle=per, stats=stats, tdc=tdc, theta_deg=th_true, pressure_pa=P,
-                          heat_release_J=HR, temperature_K=TT, settings=s, warnings=warnings)
-
-
-
-
-def write_analysis(result: AnalysisResult, out) -> list[Path]:
-    """Write ``analysis_cycles.csv``, ``analysis_summary.json`` and ``analysis_mean_cycle.csv`` into ``out``."""
-    out = Path(out)
-    per = result.per_cycle
-    n = len(per["imep_net_bar"])
-    cols = ["cycle"] + list(per)
-    rows = []
-    for k in range(n):
-        r = {"cycle": k + 1}
-        for c in per:
-            v = per[c][k]
-            r[c] = bool(v) if isinstance(v, (bool, np.bool_)) else ("" if not np.isfinite(v) else f"{float(v):.8g}")
-        rows.append(r)
-    files = [out / "analysis_cycles.csv", out / "analysis_summary.json", out / "analysis_mean_cycle.csv"]
-    write_rows_csv(files[0], rows, cols)
-    doc = {
-        "crank_angle": CRANK_CONVENTION + " (corrected by tdc.offset_deg)",
-        "units": "in each key's name; n_* and *_cov dimensionless",
-        "statistics": _plain(result.stats),
-        "tdc": _plain(result.tdc),
-        "settings": _plain(asdict(result.settings)),
-        "warnings": list(result.warnings),
-    }
-    atomic_write_text(files[1], json.dumps(doc, indent=2) + "\n")
-    fired = ~np.asarray(per["motored"], bool)
-    sel = fired if fired.any() else np.ones(n, bool)
-    import warnings
-
-    pm = np.mean(result.pressure_pa[sel], axis=0) / BAR
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)      # all-NaN columns outside IVC..EVO
-        qm = np.nanmean(result.heat_release_J[sel], axis=0)
-    mrows = [{"crank_deg": f"{t:.6g}", "pressure_bar": f"{p:.8g}",
-              "apparent_heat_release_J": "" if not np.isfinite(q) else f"{q:.8g}"}
-             for t, p, q in zip(result.theta_deg, pm, qm)]
-    write_rows_csv(files[2], mrows, ["crank_deg", "pressure_bar", "apparent_heat_release_J"])
-    return files
+                          heat_release_J=HR, temperature_K=TT, settings=s, warnings=warnings,
+                          volume_m3=vol(th_true))
