@@ -78,7 +78,7 @@ def add_parsers(subparsers) -> None:
                         " (default: off)")
     a.add_argument("--partial-burn-share", type=float, default=0.85, metavar="SHARE",
                    help="a cycle releasing less than this share of the fired cycles' median heat is a partial"
-                        " burn (below 0.1, with no gross work or a flat pressure ratio, a misfire), 0.1..1"
+                        " burn (below 0.1, with no gross work or a flat pressure ratio, a misfire), 0.1..1 [-]"
                         " (default 0.85)")
     a.add_argument("--no-plots", action="store_true", help="skip the analysis plots (default: drawn)")
     a.add_argument("--motored", type=Path,

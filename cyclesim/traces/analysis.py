@@ -10,8 +10,12 @@ Steps, per cycle unless said otherwise:
    -100 and -65 deg) and an exponent n (default 1.32) with
    ``(p2 + c) / (p1 + c) = (V1 / V2)^n`` give the correction c (p averaged over
    +-``poly_average_deg``).  ``none``: the signal is taken as absolute.
-2. **TDC offset** (optional): the thermodynamic loss-angle method on motored
-   cycles, see :func:`estimate_tdc_offset`.  The offset found, d, means the
+2. **Classes and TDC offset**: each cycle is classed misfire, partial burn or
+   fired (:mod:`cyclesim.traces.classify`) on the labelled angle; optionally
+   the thermodynamic loss-angle method on the misfires (or a motored set), see
+   :func:`estimate_tdc_offset`, or the compression fit of the fired cycles
+   (:mod:`cyclesim.traces.tdc_fired`); then classed again on the corrected angle.
+   Set statistics are over the fired cycles only.  The offset found, d, means the
    sample labelled theta was taken at true angle ``theta - d``; all figures
    are then given on the corrected angle.
 3. **IMEP**: net over the whole cycle (-360..360), gross over -180..180, from
