@@ -188,6 +188,29 @@ def test_tdc_from_fired_cycles_refuses_a_wide_interval(mixed_set):
         _analyse(mixed_set, "demo_part_load", tdc_from_fired=True)
 
 
+@pytest.mark.parametrize("offset_deg", [0.2, 0.5, 1.0])
+def test_tdc_from_fired_cycles_on_ten_seeded_sets(offset_deg):
+    # 10 seeded sets of 10 fired cycles (the demo at full load, spark 24 deg BTDC) per offset, with the
+    # default flaws plus 0.04 bar noise, -2 % gain and a 12 kHz passage resonance: the compression
+    # before the spark does not fix the phase within 0.3 deg (measured widths 8-22 deg), so every set
+    # is refused with the reason; the interval itself is honest: lifted, it holds the truth in at
+    # least 9 of 10 sets (95 % intervals; measured 9/10 at each offset)
+    case = load_config("demo")
+    g, s, _ = analysis_inputs(case)
+    a = ArtefactSettings.default().replace(tdc_offset_deg=offset_deg, noise_bar=0.04, gain_error=-0.02,
+                                           passage_frequency_hz=12000.0)
+    covered = 0
+    for seed in range(10):
+        ss = synthesize(case, 10, CycleVariation(seed=100 + seed), resolution_deg=0.2, artefacts=a)
+        with pytest.raises(CyclesimError, match=r"refused: the 95 % interval of the offset is \d+\.\d+ deg wide"):
+            analyse(_ts(ss), g, s.replace(tdc_from_fired=True))
+        P = ss.pressure_pa - np.mean(ss.pressure_pa[:, (ss.theta >= -190) & (ss.theta <= -170)], axis=1)[:, None]
+        r = fit_tdc_fired(ss.theta, P.mean(axis=0), lambda t: g.volume(t)[0], n_cycles=10, max_width_deg=1e3)
+        lo, hi = r["interval_deg"]
+        covered += lo <= offset_deg <= hi
+    assert covered >= 9
+
+
 # ---------------------------------------------------------------------- command line
 def _parser():
     import argparse
