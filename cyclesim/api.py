@@ -137,6 +137,7 @@ def _run_batch(cases: list[Case], registry, progress=None) -> list[CaseResult]:
 def results_from_trace(batch, tr, registry) -> list[CaseResult]:
     """Per-case results (figures, trace columns, warnings) of an integrated batch."""
     from .figures import compute_figures, derived_trace, output_trace
+    from .plausibility import input_warnings
 
     cases = batch.cases
     d = derived_trace(batch, tr)
@@ -170,6 +171,7 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
             cycle_loop=tr.loop,
         )
         res.references = list(refs)           # each result owns its lists
+        res.warnings.extend(input_warnings(case))
         if tr.failed[i]:
             res.error = tr.failed[i]
             results.append(res)
