@@ -245,27 +245,43 @@ REFINE_STEPS = 2
 """How many times a case's step is halved before it is reported as failed."""
 
 
+def failed_result(case: Case, exc: BaseException) -> CaseResult:
+    """A case's result recording that it raised: the tool's own message, or for any other
+    exception its kind and message on one line."""
+    if isinstance(exc, CyclesimError):
+        msg = str(exc)
+    else:
+        text = " ".join(str(exc).split()) or "(no message)"
+        msg = f"{type(exc).__name__} while simulating this case: {text}"
+    return CaseResult(name=case.name, inputs=flat_inputs(case), error=msg)
+
+
 def _simulate_once(cases, registry, progress, isolate):
     from .batch import group_cases
 
     out: list[CaseResult | None] = [None] * len(cases)
-    for idx in group_cases(cases, registry):
+    try:
+        groups = group_cases(cases, registry)
+    except Exception:  # noqa: BLE001  (a plug-in's step hint raised: each case on its own)
+        if not isolate:
+            raise
+        groups = [[i] for i in range(len(cases))]
+    for idx in groups:
         group = [cases[i] for i in idx]
         try:
             res = _run_batch(group, registry, progress)
-        except (PluginError, SolverError) as exc:
-            if not isolate or len(group) == 1:
-                if len(group) == 1 and isolate:
-                    res = [CaseResult(name=group[0].name, inputs=flat_inputs(group[0]), error=str(exc))]
-                else:
-                    raise
+        except Exception as exc:  # noqa: BLE001  (isolate: whatever a case raises fails that case only)
+            if not isolate:
+                raise
+            if len(group) == 1:
+                res = [failed_result(group[0], exc)]
             else:
                 res = []
                 for c in group:
                     try:
                         res.extend(_run_batch([c], registry, progress))
-                    except (PluginError, SolverError) as e1:
-                        res.append(CaseResult(name=c.name, inputs=flat_inputs(c), error=str(e1)))
+                    except Exception as e1:  # noqa: BLE001
+                        res.append(failed_result(c, e1))
         for i, r in zip(idx, res):
             out[i] = r
     return out
@@ -314,15 +330,20 @@ def simulate(cases, progress: Callable[[int], None] | None = None,
         if not bad:
             break
         finer = []
+        redo_idx = []
         for i in bad:
             c = cases[i]
             h = float(c.simulation.step_deg) / 2.0
-            c2 = case_with(c, {"simulation.step_deg": h})
+            try:
+                c2 = case_with(c, {"simulation.step_deg": h})
+            except CyclesimError:
+                continue        # at the finest step allowed: reported as failed below
             c2.name = c.name
             cases[i] = c2
             finer.append(c2)
+            redo_idx.append(i)
         redo = _simulate_once(finer, registry, progress, isolate)
-        for i, r in zip(bad, redo):
+        for i, r in zip(redo_idx, redo):
             miss = 100 * _closure(out[i])
             r.warnings.insert(0, f"re-run at simulation.step_deg = {cases[i].simulation.step_deg:g}: the energy"
                                  f" balance at twice that step missed by {miss:.2g} % of the fuel energy")

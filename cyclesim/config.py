@@ -57,7 +57,8 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
     ),
     "operating": (
         P("speed_rpm", "rpm", REQUIRED, "engine speed", 0, 30000, min_exclusive=True),
-        P("lambda", "-", 1.0, "air-fuel equivalence ratio lambda (1 = stoichiometric)", 0.3, 3.0),
+        P("lambda", "-", 1.0, "air-fuel equivalence ratio lambda (1 = stoichiometric); with real gas properties"
+          " also at least the fuel's gaseous-products limit (gasoline 0.335, isooctane 0.32)", 0.3, 3.0),
         P("intake_pressure_bar", "bar", 1.0, "intake plenum pressure (absolute)", 0, 10, min_exclusive=True),
         P("intake_temperature_K", "K", 300.0, "intake plenum temperature", 150, 600),
         P("exhaust_pressure_bar", "bar", 1.05, "exhaust plenum pressure (absolute)", 0, 10, min_exclusive=True),
@@ -615,7 +616,29 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None, _owned
         **sections,
     )
     _check_cross(case)
+    _check_rich_limit(case, registry)
     return case
+
+
+def _check_rich_limit(case: Case, registry) -> None:
+    """Refuse a lambda richer than the fuel's gaseous-products limit (real gas properties)."""
+    op, f = case.operating, case.fuel
+    if case.gas.properties != "real" or op.fuel_cut:
+        return
+    from .fuels import get_fuel, richest_lambda
+
+    if f.C is not None:
+        C, H, O = f.C, f.H, f.O or 0.0
+    else:
+        fuel = get_fuel(f.name, getattr(registry, "fuels", None))
+        C, H, O = fuel.C, fuel.H, fuel.O
+    lim = richest_lambda(C, H, O)
+    lam = vars(op)["lambda"]
+    if lam < lim:
+        raise ConfigError(
+            f"operating.lambda = {lam:g}: too rich for fuel {f.name!r}; it needs lambda >="
+            f" {math.ceil(lim * 1000) / 1000:.3f}, below which its oxygen cannot turn all its carbon into CO"
+            f" and the gas model (gaseous products only, no solid carbon) has no products for it")
 
 
 def load_config(path: str | Path = "demo", overrides: list[str] | tuple = (), registry=None) -> Case:

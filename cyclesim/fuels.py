@@ -90,6 +90,20 @@ def afr_stoich(C: float, H: float, O: float, M: float) -> float:
     return n_air * thermo.air_molar_mass() / M
 
 
+def richest_lambda(C: float, H: float, O: float) -> float:
+    """Smallest lambda whose products the real-gas model holds as gases only [-].
+
+    The products are gases (CO2, H2O, CO, H2, O2, N2, Ar and, with equilibrium, their
+    dissociation products); solid carbon (soot) is not part of the model.  A gaseous product
+    set exists while the charge has at least one O atom per C atom (all carbon as CO, all
+    hydrogen as H2): O_fuel + 2 n_O2 >= C with n_O2 = (C + H/4 - O/2) lambda per mole of fuel,
+    so lambda >= (C - O) / (2 (C + H/4 - O/2)) (an element balance; Heywood 1988, section
+    3.4 writes the same balances for rich products, from memory).  0 where the fuel itself
+    holds enough oxygen."""
+    st = thermo.stoich_o2_per_fuel(C, H, O)
+    return max(0.0, (C - O) / (2.0 * st)) if st > 0 else 0.0
+
+
 def _make(name: str, C: float, H: float, O: float, N: float, nasa7: tuple, source: str,
           h_vap: float = 0.0) -> Fuel:
     M = thermo.molar_mass({"C": C, "H": H, "O": O, "N": N})
