@@ -256,6 +256,25 @@ def failed_result(case: Case, exc: BaseException) -> CaseResult:
     return CaseResult(name=case.name, inputs=flat_inputs(case), error=msg)
 
 
+def _within_budget(cases, groups, isolate):
+    """Each batch as (indices, cases, None), split where the whole would be over the memory budget;
+    a case that alone is over it is (indices, cases, [its failed result]) with ``isolate``."""
+    from .budget import WorkBudgetError, cases_per_batch
+
+    for idx in groups:
+        group = [cases[i] for i in idx]
+        try:
+            k = cases_per_batch(group)
+        except WorkBudgetError as exc:
+            if not isolate:
+                raise
+            for i in idx:
+                yield [i], [cases[i]], [failed_result(cases[i], exc)]
+            continue
+        for j in range(0, len(idx), k):
+            yield idx[j:j + k], group[j:j + k], None
+
+
 def _simulate_once(cases, registry, progress, isolate):
     from .batch import group_cases
 
@@ -266,10 +285,9 @@ def _simulate_once(cases, registry, progress, isolate):
         if not isolate:
             raise
         groups = [[i] for i in range(len(cases))]
-    for idx in groups:
-        group = [cases[i] for i in idx]
+    for idx, group, res in _within_budget(cases, groups, isolate):
         try:
-            res = _run_batch(group, registry, progress)
+            res = res or _run_batch(group, registry, progress)
         except Exception as exc:  # noqa: BLE001  (isolate: whatever a case raises fails that case only)
             if not isolate:
                 raise

@@ -21,6 +21,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from cyclesim.config import CORE_SCHEMA
 from cyclesim.params import Param
 from cyclesim.tables import read_table
 
@@ -37,9 +38,9 @@ def read_burn_table(path: Path) -> dict[str, np.ndarray]:
     ``wiebe_table`` parameter of the same name declares, each (speed, intake pressure) point
     once; the message names the file and the line."""
     ranges = {p.name: p for p in WiebeTable.params if p.name in TABLE_COLUMNS}
-    ranges["speed_rpm"] = Param("speed_rpm", "rpm", None, "engine speed", 0, 30000, min_exclusive=True)
-    ranges["intake_pressure_bar"] = Param("intake_pressure_bar", "bar", None, "intake pressure", 0, 10,
-                                          min_exclusive=True)
+    op = {p.name: p for p in CORE_SCHEMA["operating"]}
+    ranges["speed_rpm"] = op["speed_rpm"]
+    ranges["intake_pressure_bar"] = op["intake_pressure_bar"]
     tab = read_table(path, "burn.table", ("speed_rpm", "intake_pressure_bar"), TABLE_COLUMNS,
                      unique=("speed_rpm", "intake_pressure_bar"), ranges=ranges)
     return tab.columns
