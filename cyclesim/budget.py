@@ -41,6 +41,8 @@ SIM_BYTES_PER_CASE_STEP = 600.0
 # 325 MB for 50 cycles and 696 MB for 500 at --resolution 2, 343 MB and 694 MB at 0.2, i.e.
 # about 57 bytes per synthesis point and cycle whatever the output step; the constants carry a
 # quarter more for margin.
+TRACE_BASE_BYTES = 3.5e8
+"""The trace command's process, its steady-state run, writers and plot (325 MB measured at 50 cycles)."""
 TRACE_BYTES_PER_FINE_SAMPLE = 72.0
 TRACE_BYTES_PER_OUTPUT_SAMPLE = 24.0
 TRACE_BYTES_PER_CYCLE = 20e3
@@ -124,14 +126,24 @@ def check_batch(cases: Sequence) -> None:
                        f"simulate at most {k} of them together, raise simulation.step_deg or raise the budget")
 
 
+def trace_bytes(n_cycles: int, n_fine: float, n_out: float) -> float:
+    """Estimated peak memory [bytes] of a synthetic trace set: ``n_cycles`` cycles of ``n_fine``
+    synthesis and ``n_out`` output samples each."""
+    return TRACE_BASE_BYTES + n_cycles * _trace_cycle_bytes(n_fine, n_out)
+
+
+def _trace_cycle_bytes(n_fine: float, n_out: float) -> float:
+    return n_fine * TRACE_BYTES_PER_FINE_SAMPLE + n_out * TRACE_BYTES_PER_OUTPUT_SAMPLE + TRACE_BYTES_PER_CYCLE
+
+
 def check_traces(n_cycles: int, n_fine: float, n_out: float) -> None:
     """Refuse a synthetic trace set over the budget: ``n_cycles`` cycles of ``n_fine`` synthesis and
     ``n_out`` output samples each."""
-    per_cycle = n_fine * TRACE_BYTES_PER_FINE_SAMPLE + n_out * TRACE_BYTES_PER_OUTPUT_SAMPLE + TRACE_BYTES_PER_CYCLE
-    need = SIM_BASE_BYTES + n_cycles * per_cycle
+    per_cycle = _trace_cycle_bytes(n_fine, n_out)
+    need = trace_bytes(n_cycles, n_fine, n_out)
     budget = budget_bytes()
     if need > budget:
-        most = max(int((budget - SIM_BASE_BYTES) // per_cycle), 0)
+        most = max(int((budget - TRACE_BASE_BYTES) // per_cycle), 0)
         raise _refusal(f"traces: {n_cycles:,} cycles of {n_out:,.0f} samples ({n_fine:,.0f} synthesis"
                        f" points each)", need, budget,
                        (f"use fewer cycles (at most about {most:,} at this resolution) or a coarser"
