@@ -149,3 +149,16 @@ def check_traces(n_cycles: int, n_fine: float, n_out: float) -> None:
                        (f"use fewer cycles (at most about {most:,} at this resolution) or a coarser"
                         f" --resolution / lower --sample-rate, or raise the budget" if most >= 1 else
                         "even one cycle is over it: use a coarser --resolution or a lower --sample-rate"))
+
+
+def trace_chunk(case, n_cycles: int, n_fine: float, n_out: float, chunk: int) -> int:
+    """Cycles of a trace set simulated per batch: at most ``chunk``, and as many as fit in what the
+    set's own arrays leave of the budget.  Raises WorkBudgetError when not even one does."""
+    n = steps_per_cycle(case)
+    room = budget_bytes() - trace_bytes(n_cycles, n_fine, n_out) + SIM_BASE_BYTES   # one process base
+    k = cases_that_fit(n, room)
+    if k < 1:
+        raise _refusal(f"traces: {n_cycles:,} cycles at {float(case.operating.speed_rpm):g} rpm ({n:,} crank steps"
+                       f" per cycle)", trace_bytes(n_cycles, n_fine, n_out) + batch_bytes(n, 1) - SIM_BASE_BYTES,
+                       budget_bytes(), "use fewer cycles or raise simulation.step_deg, or raise the budget")
+    return max(1, min(int(chunk), k))

@@ -110,3 +110,16 @@ def test_cases_that_fit_is_the_most_that_fit(n, budget_gib):
     assert k >= 0 and batch_bytes(n, k + 1) > b
     if k >= 1:
         assert batch_bytes(n, k) <= b
+
+
+def test_trace_cycles_per_batch_follow_the_budget(monkeypatch):
+    fast = load_config("demo")
+    slow = load_config("demo", ["operating.speed_rpm=100"])
+    assert budget.trace_chunk(fast, 100, 14401, 1441, 150) == 150
+    k = budget.trace_chunk(slow, 100, 14401, 1441, 150)
+    n = steps_per_cycle(slow)
+    left = budget.budget_bytes() - budget.trace_bytes(100, 14401, 1441)
+    assert 1 <= k < 150 and batch_bytes(n, k) <= left + budget.SIM_BASE_BYTES
+    monkeypatch.setenv(BUDGET_ENV, "0.5")
+    with pytest.raises(WorkBudgetError, match="traces: 100 cycles at 100 rpm"):
+        budget.trace_chunk(slow, 100, 14401, 1441, 150)

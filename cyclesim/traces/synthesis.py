@@ -455,6 +455,9 @@ def synthesize(
     registry = _registry_for([case])
     speed = float(case.operating.speed_rpm)
     n_fine = int(round(720.0 / fine))
+    from ..budget import trace_chunk
+
+    chunk = trace_chunk(case, n_cycles, n_fine + 1, 720.0 / out_step + 1, chunk)   # cycles per batch
     theta_f = np.linspace(-360.0, 360.0, n_fine + 1)
 
     mean = _steady_state(case, registry)
