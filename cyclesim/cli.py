@@ -165,7 +165,7 @@ def cmd_show(args) -> int:
 
 
 def main(argv: list[str] | None = None) -> int:
-    from .config import shell_split_hint
+    from .shell_hints import shell_split_hint
 
     hint = shell_split_hint(sys.argv[1:] if argv is None else argv)
     if hint:

@@ -400,44 +400,11 @@ def parse_override(text: str) -> tuple[list[str], Any]:
         val = yaml_value(value) if value.strip() else None
     except yaml.YAMLError:
         if value.lstrip()[:1] in ("{", "["):
-            raise ConfigError(f"--set {text!r}: the value is not valid YAML: {_split_hint(value)}") from None
+            from .shell_hints import split_hint
+
+            raise ConfigError(f"--set {text!r}: the value is not valid YAML: {split_hint(value)}") from None
         val = value
     return parts, val
-
-
-def _unclosed(text: str) -> bool:
-    return text.count("{") + text.count("[") > text.count("}") + text.count("]")
-
-
-def _split_hint(value: str) -> str:
-    return ("its braces or brackets do not close; if the value holds a space, the shell split it there:"
-            " quote the whole value, e.g. --set 'burn={model: wiebe_flame}'" if _unclosed(value)
-            else "write a mapping as {key: value, ...} or a list as [a, b]")
-
-
-def shell_split_hint(argv: Sequence[str]) -> str | None:
-    """One line for a ``--set`` value that the shell split at a space (``--set burn={model: x}``
-    unquoted arrives as ``burn={model:`` and ``x}``), or None."""
-    for i, tok in enumerate(argv):
-        if tok == "--set" and i + 1 < len(argv):
-            value = argv[i + 1]
-        elif tok.startswith("--set="):
-            value = tok[len("--set="):]
-        else:
-            continue
-        if not _unclosed(value):
-            continue
-        rest = [value]
-        for nxt in argv[i + 2:]:
-            if nxt.startswith("--"):
-                break
-            rest.append(nxt)
-            if not _unclosed(" ".join(rest)):
-                break
-        whole = " ".join(rest)
-        return (f"--set {value!r}: the shell split the value at a space (its braces or brackets do not"
-                f" close): quote it whole, e.g. --set '{whole}'")
-    return None
 
 
 def apply_override(raw: dict, parts: list[str], value: Any, in_place: bool = False) -> dict:
@@ -623,29 +590,10 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None, _owned
         **sections,
     )
     _check_cross(case)
-    _check_rich_limit(case, registry)
+    from .fuels import check_rich_limit
+
+    check_rich_limit(case, getattr(registry, "fuels", None))
     return case
-
-
-def _check_rich_limit(case: Case, registry) -> None:
-    """Refuse a lambda richer than the fuel's gaseous-products limit (real gas properties)."""
-    op, f = case.operating, case.fuel
-    if case.gas.properties != "real" or op.fuel_cut:
-        return
-    from .fuels import get_fuel, richest_lambda
-
-    if f.C is not None:
-        C, H, O = f.C, f.H, f.O or 0.0
-    else:
-        fuel = get_fuel(f.name, getattr(registry, "fuels", None))
-        C, H, O = fuel.C, fuel.H, fuel.O
-    lim = richest_lambda(C, H, O)
-    lam = vars(op)["lambda"]
-    if lam < lim:
-        raise ConfigError(
-            f"operating.lambda = {lam:g}: too rich for fuel {f.name!r}; it needs lambda >="
-            f" {math.ceil(lim * 1000) / 1000:.3f}, below which its oxygen cannot turn all its carbon into CO"
-            f" and the gas model (gaseous products only, no solid carbon) has no products for it")
 
 
 def load_config(path: str | Path = "demo", overrides: list[str] | tuple = (), registry=None) -> Case:

@@ -11,6 +11,7 @@ vaporisation (``heat_of_vaporisation_J_per_kg``).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any, Mapping
 
@@ -102,6 +103,26 @@ def richest_lambda(C: float, H: float, O: float) -> float:
     holds enough oxygen."""
     st = thermo.stoich_o2_per_fuel(C, H, O)
     return max(0.0, (C - O) / (2.0 * st)) if st > 0 else 0.0
+
+
+def check_rich_limit(case, extra: Mapping[str, Any] | None = None) -> None:
+    """Refuse (ConfigError) a case's lambda richer than its fuel's :func:`richest_lambda`, where
+    the real-gas model is used and fuel is burned; ``extra``: the plug-ins' fuels."""
+    op, f = case.operating, case.fuel
+    if case.gas.properties != "real" or op.fuel_cut:
+        return
+    if f.C is not None:
+        C, H, O = f.C, f.H, f.O or 0.0
+    else:
+        fuel = get_fuel(f.name, extra)
+        C, H, O = fuel.C, fuel.H, fuel.O
+    lim = richest_lambda(C, H, O)
+    lam = vars(op)["lambda"]
+    if lam < lim:
+        raise ConfigError(
+            f"operating.lambda = {lam:g}: too rich for fuel {f.name!r}; it needs lambda >="
+            f" {math.ceil(lim * 1000) / 1000:.3f}, below which its oxygen cannot turn all its carbon into CO"
+            f" and the gas model (gaseous products only, no solid carbon) has no products for it")
 
 
 def _make(name: str, C: float, H: float, O: float, N: float, nasa7: tuple, source: str,
