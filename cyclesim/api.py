@@ -256,6 +256,18 @@ def failed_result(case: Case, exc: BaseException) -> CaseResult:
     return CaseResult(name=case.name, inputs=flat_inputs(case), error=msg)
 
 
+def _check_environment() -> None:
+    """The environment's settings (loop, threads, memory budget), wrong for every case alike: raised
+    here once rather than recorded as each case's failure."""
+    from . import kernel
+    from .budget import budget_bytes
+
+    kernel.choice()
+    kernel.threads()
+    kernel.compiled_module()
+    budget_bytes()
+
+
 def _within_budget(cases, groups, isolate):
     """Each batch as (indices, cases, None), split where the whole would be over the memory budget;
     a case that alone is over it is (indices, cases, [its failed result]) with ``isolate``."""
@@ -340,6 +352,7 @@ def simulate(cases, progress: Callable[[int], None] | None = None,
         cases = [cases]
     cases = [c if isinstance(c, Case) else load_config(c) for c in cases]
     registry = _registry_for(cases)
+    _check_environment()
     out = _simulate_once(cases, registry, progress, isolate)
     if not refine:
         return out  # type: ignore[return-value]

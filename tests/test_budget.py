@@ -123,3 +123,9 @@ def test_trace_cycles_per_batch_follow_the_budget(monkeypatch):
     monkeypatch.setenv(BUDGET_ENV, "0.5")
     with pytest.raises(WorkBudgetError, match="traces: 100 cycles at 100 rpm"):
         budget.trace_chunk(slow, 100, 14401, 1441, 150)
+
+
+def test_a_bad_budget_setting_is_raised_once_not_recorded_per_case(monkeypatch):
+    monkeypatch.setenv(BUDGET_ENV, "-1")
+    with pytest.raises(ConfigError, match=rf"{BUDGET_ENV}='-1': expected a number of GiB > 0"):
+        cyclesim.simulate([load_config("demo_closed")], isolate=True)
