@@ -24,7 +24,7 @@ config file or ``--set`` value once aliases are expanded.  The built-in configs 
 MAX_EXPANDED_TEXT = 1_000_000
 """Most characters of text (keys and string values, aliases expanded) in one config file."""
 
-MAX_EXTENDS_DEPTH = 32
+MAX_EXTENDS_DEPTH = 64
 """Longest chain of ``extends`` (a config that extends one that extends another ...)."""
 
 
