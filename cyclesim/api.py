@@ -137,6 +137,7 @@ def _run_batch(cases: list[Case], registry, progress=None) -> list[CaseResult]:
 def results_from_trace(batch, tr, registry) -> list[CaseResult]:
     """Per-case results (figures, trace columns, warnings) of an integrated batch."""
     from .figures import compute_figures, derived_trace, output_trace
+    from .plausibility import input_warnings
 
     cases = batch.cases
     d = derived_trace(batch, tr)
@@ -170,6 +171,7 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
             cycle_loop=tr.loop,
         )
         res.references = list(refs)           # each result owns its lists
+        res.warnings.extend(input_warnings(case))
         if tr.failed[i]:
             res.error = tr.failed[i]
             results.append(res)
@@ -243,27 +245,73 @@ REFINE_STEPS = 2
 """How many times a case's step is halved before it is reported as failed."""
 
 
+def failed_result(case: Case, exc: BaseException) -> CaseResult:
+    """A case's result recording that it raised: the tool's own message, or for any other
+    exception its kind and message on one line."""
+    if isinstance(exc, CyclesimError):
+        msg = str(exc)
+    else:
+        text = " ".join(str(exc).split()) or "(no message)"
+        msg = f"{type(exc).__name__} while simulating this case: {text}"
+    return CaseResult(name=case.name, inputs=flat_inputs(case), error=msg)
+
+
+def _check_environment() -> None:
+    """The environment's settings (loop, threads, memory budget), wrong for every case alike: raised
+    here once rather than recorded as each case's failure."""
+    from . import kernel
+    from .budget import budget_bytes
+
+    kernel.choice()
+    kernel.threads()
+    kernel.compiled_module()
+    budget_bytes()
+
+
+def _within_budget(cases, groups, isolate):
+    """Each batch as (indices, cases, None), split where the whole would be over the memory budget;
+    a case that alone is over it is (indices, cases, [its failed result]) with ``isolate``."""
+    from .budget import WorkBudgetError, cases_per_batch
+
+    for idx in groups:
+        group = [cases[i] for i in idx]
+        try:
+            k = cases_per_batch(group)
+        except WorkBudgetError as exc:
+            if not isolate:
+                raise
+            for i in idx:
+                yield [i], [cases[i]], [failed_result(cases[i], exc)]
+            continue
+        for j in range(0, len(idx), k):
+            yield idx[j:j + k], group[j:j + k], None
+
+
 def _simulate_once(cases, registry, progress, isolate):
     from .batch import group_cases
 
     out: list[CaseResult | None] = [None] * len(cases)
-    for idx in group_cases(cases, registry):
-        group = [cases[i] for i in idx]
+    try:
+        groups = group_cases(cases, registry)
+    except Exception:  # noqa: BLE001  (a plug-in's step hint raised: each case on its own)
+        if not isolate:
+            raise
+        groups = [[i] for i in range(len(cases))]
+    for idx, group, res in _within_budget(cases, groups, isolate):
         try:
-            res = _run_batch(group, registry, progress)
-        except (PluginError, SolverError) as exc:
-            if not isolate or len(group) == 1:
-                if len(group) == 1 and isolate:
-                    res = [CaseResult(name=group[0].name, inputs=flat_inputs(group[0]), error=str(exc))]
-                else:
-                    raise
+            res = res or _run_batch(group, registry, progress)
+        except Exception as exc:  # noqa: BLE001  (isolate: whatever a case raises fails that case only)
+            if not isolate:
+                raise
+            if len(group) == 1:
+                res = [failed_result(group[0], exc)]
             else:
                 res = []
                 for c in group:
                     try:
                         res.extend(_run_batch([c], registry, progress))
-                    except (PluginError, SolverError) as e1:
-                        res.append(CaseResult(name=c.name, inputs=flat_inputs(c), error=str(e1)))
+                    except Exception as e1:  # noqa: BLE001
+                        res.append(failed_result(c, e1))
         for i, r in zip(idx, res):
             out[i] = r
     return out
@@ -304,6 +352,7 @@ def simulate(cases, progress: Callable[[int], None] | None = None,
         cases = [cases]
     cases = [c if isinstance(c, Case) else load_config(c) for c in cases]
     registry = _registry_for(cases)
+    _check_environment()
     out = _simulate_once(cases, registry, progress, isolate)
     if not refine:
         return out  # type: ignore[return-value]
@@ -312,15 +361,20 @@ def simulate(cases, progress: Callable[[int], None] | None = None,
         if not bad:
             break
         finer = []
+        redo_idx = []
         for i in bad:
             c = cases[i]
             h = float(c.simulation.step_deg) / 2.0
-            c2 = case_with(c, {"simulation.step_deg": h})
+            try:
+                c2 = case_with(c, {"simulation.step_deg": h})
+            except CyclesimError:
+                continue        # at the finest step allowed: reported as failed below
             c2.name = c.name
             cases[i] = c2
             finer.append(c2)
+            redo_idx.append(i)
         redo = _simulate_once(finer, registry, progress, isolate)
-        for i, r in zip(bad, redo):
+        for i, r in zip(redo_idx, redo):
             miss = 100 * _closure(out[i])
             r.warnings.insert(0, f"re-run at simulation.step_deg = {cases[i].simulation.step_deg:g}: the energy"
                                  f" balance at twice that step missed by {miss:.2g} % of the fuel energy")

@@ -153,11 +153,13 @@ class Batch:
 
 def build_batch(cases: Sequence[Case], registry) -> Batch:
     """Arrays, geometry, gas tables and submodel objects for cases of one batch."""
+    from .budget import check_batch
     from .fuels import get_fuel
     from .geometry import Geometry
     from .thermo import build_gas_tables
 
     cases = list(cases)
+    check_batch(cases)                      # refused before anything is allocated
     B = len(cases)
     eng = _section_arrays(cases, "engine")
     val = _section_arrays(cases, "valves")

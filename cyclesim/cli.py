@@ -165,6 +165,12 @@ def cmd_show(args) -> int:
 
 
 def main(argv: list[str] | None = None) -> int:
+    from .shell_hints import shell_split_hint
+
+    hint = shell_split_hint(sys.argv[1:] if argv is None else argv)
+    if hint:
+        print(f"cyclesim: error: {hint}", file=sys.stderr)
+        return 2
     ap = build_parser()
     args = ap.parse_args(argv)
     if args.version:

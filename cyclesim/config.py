@@ -24,11 +24,18 @@ from typing import Any, Mapping, Sequence
 
 import yaml
 
+from .config_limits import check_expanded_size, check_extends_depth, count_alias
 from .errors import ConfigError, CyclesimError
 from .params import REQUIRED, Param, suggestion, validate_section
 from .roles import ROLES
 
 P = Param
+
+MIN_SPEED_RPM = 100.0
+"""Lowest engine speed [rpm].  Engines crank at about 150-300 rpm (common practice), so 100 rpm
+covers cranking; the integration step shrinks as speed^1.5 below simulation.step_reference_rpm,
+so one cycle at 100 rpm already takes 368,640 steps (about 0.4 GB and 10 s on the demo) and at
+10 rpm 11.8 million (6.2 GB, 73 s)."""
 
 CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
     "engine": (
@@ -55,8 +62,10 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
         P("exhaust_count", "-", 2, "exhaust valves per cylinder", 1, 6, kind="int"),
     ),
     "operating": (
-        P("speed_rpm", "rpm", REQUIRED, "engine speed", 0, 30000, min_exclusive=True),
-        P("lambda", "-", 1.0, "air-fuel equivalence ratio lambda (1 = stoichiometric)", 0.3, 3.0),
+        P("speed_rpm", "rpm", REQUIRED, "engine speed (from 100 rpm, below cranking speed: slower cycles need"
+          " ever finer steps)", MIN_SPEED_RPM, 30000),
+        P("lambda", "-", 1.0, "air-fuel equivalence ratio lambda (1 = stoichiometric); with real gas properties"
+          " also at least the fuel's gaseous-products limit (gasoline 0.335, isooctane 0.32)", 0.3, 3.0),
         P("intake_pressure_bar", "bar", 1.0, "intake plenum pressure (absolute)", 0, 10, min_exclusive=True),
         P("intake_temperature_K", "K", 300.0, "intake plenum temperature", 150, 600),
         P("exhaust_pressure_bar", "bar", 1.05, "exhaust plenum pressure (absolute)", 0, 10, min_exclusive=True),
@@ -227,7 +236,14 @@ class Case:
 
 
 class _StrictLoader(yaml.SafeLoader):
-    """Safe loader that rejects duplicated keys (no object construction)."""
+    """Safe loader that rejects duplicated keys (no object construction) and counts aliases."""
+
+    _aliases = 0
+
+    def compose_node(self, parent, index):
+        if self.check_event(yaml.AliasEvent):
+            self._aliases = count_alias(getattr(self, "name", "<config>"), self._aliases)
+        return super().compose_node(parent, index)
 
 
 def _construct_mapping(loader, node, deep=False):
@@ -257,10 +273,13 @@ _StrictLoader.add_implicit_resolver(
 def yaml_value(text: str) -> Any:
     """One YAML value (as in a config file: numbers such as 1e-7 included) from text."""
     loader = _StrictLoader(text)
+    loader.name = f"value {text[:20]!r}"
     try:
-        return loader.get_single_data()
+        data = loader.get_single_data()
     finally:
         loader.dispose()
+    check_expanded_size(data, loader.name)
+    return data
 
 
 def read_yaml(path: Path) -> dict:
@@ -284,6 +303,7 @@ def read_yaml(path: Path) -> dict:
         loader.dispose()
     if data is None:
         data = {}
+    check_expanded_size(data, str(path))
     if not isinstance(data, dict):
         raise ConfigError(f"{path}: expected a mapping of sections at the top level, got {type(data).__name__}")
     return data
@@ -334,24 +354,38 @@ def deep_merge(base: dict, over: Mapping) -> dict:
     return out
 
 
-def load_raw(path: str | Path, _seen: tuple = ()) -> tuple[dict, Path]:
-    """Read a config and everything it extends; return the merged dict and its folder."""
+def load_raw(path: str | Path, _seen: tuple = (), _done: dict | None = None) -> tuple[dict, Path]:
+    """Read a config and everything it extends; return the merged dict and its folder.
+
+    Each file is read and resolved once per call, however often the inheritance reaches it
+    (a diamond of bases costs one read per file); chains deeper than
+    :data:`cyclesim.config_limits.MAX_EXTENDS_DEPTH` are refused."""
     path = resolve_config_path(path)
     if path in _seen:
         raise ConfigError(f"{path}: 'extends' forms a loop ({' -> '.join(str(s) for s in _seen + (path,))})")
+    done = {} if _done is None else _done
+    if path in done:
+        return copy.deepcopy(done[path]), path.parent
+    check_extends_depth(_seen, str(path))
     data = read_yaml(path)
     ext = data.pop("extends", None)
     if ext is None:
-        return data, path.parent
+        done[path] = data
+        return copy.deepcopy(data), path.parent
     bases = [ext] if isinstance(ext, str) else ext
     if not isinstance(bases, list) or not all(isinstance(b, str) for b in bases):
         raise ConfigError(f"{path}: extends: expected a file name or a list of them, got {ext!r}")
     merged: dict = {}
     for b in bases:
-        bpath = resolve_config_path(b, relative_to=path.parent)
-        base, _ = load_raw(bpath, _seen + (path,))
+        try:
+            bpath = resolve_config_path(b, relative_to=path.parent)
+        except ConfigError as exc:
+            raise ConfigError(f"{path}: extends: {exc}") from None
+        base, _ = load_raw(bpath, _seen + (path,), done)
         merged = deep_merge(merged, base)
-    return deep_merge(merged, data), path.parent
+    merged = deep_merge(merged, data)
+    done[path] = merged
+    return copy.deepcopy(merged), path.parent
 
 
 def parse_override(text: str) -> tuple[list[str], Any]:
@@ -365,6 +399,10 @@ def parse_override(text: str) -> tuple[list[str], Any]:
     try:
         val = yaml_value(value) if value.strip() else None
     except yaml.YAMLError:
+        if value.lstrip()[:1] in ("{", "["):
+            from .shell_hints import split_hint
+
+            raise ConfigError(f"--set {text!r}: the value is not valid YAML: {split_hint(value)}") from None
         val = value
     return parts, val
 
@@ -552,6 +590,9 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None, _owned
         **sections,
     )
     _check_cross(case)
+    from .fuels import check_rich_limit
+
+    check_rich_limit(case, getattr(registry, "fuels", None))
     return case
 
 
@@ -589,7 +630,10 @@ def case_with(case: Case, changes: Mapping[str, Any], registry=None) -> Case:
 
 
 def resolve_case(base: "Case | str | Path", overrides: Sequence[str] = ()) -> tuple[Case, str]:
-    """A study's base case and its label: a Case (with ``overrides`` applied) or a config path/name."""
+    """A study's base case and its label: a Case (with ``overrides`` applied) or a config path/name.
+
+    The label (in study titles, tables and plot titles) is the config's ``name`` where it has one,
+    else the path or built-in name given."""
     if isinstance(base, Case):
         if overrides:
             changes = {}
@@ -598,7 +642,8 @@ def resolve_case(base: "Case | str | Path", overrides: Sequence[str] = ()) -> tu
                 changes[".".join(parts)] = value
             return case_with(base, changes), base.name
         return base, base.name
-    return load_config(base, list(overrides)), str(base)
+    case = load_config(base, list(overrides))
+    return case, (case.name if case.raw.get("name") else str(base))
 
 
 def flat_inputs(case: Case) -> dict[str, Any]:

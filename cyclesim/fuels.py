@@ -11,6 +11,7 @@ vaporisation (``heat_of_vaporisation_J_per_kg``).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any, Mapping
 
@@ -88,6 +89,40 @@ def afr_stoich(C: float, H: float, O: float, M: float) -> float:
     """Stoichiometric air-fuel mass ratio [-] with the dry air of :mod:`cyclesim.thermo`."""
     n_air = thermo.stoich_o2_per_fuel(C, H, O) / thermo.AIR_MOLE_FRACTIONS["O2"]
     return n_air * thermo.air_molar_mass() / M
+
+
+def richest_lambda(C: float, H: float, O: float) -> float:
+    """Smallest lambda whose products the real-gas model holds as gases only [-].
+
+    The products are gases (CO2, H2O, CO, H2, O2, N2, Ar and, with equilibrium, their
+    dissociation products); solid carbon (soot) is not part of the model.  A gaseous product
+    set exists while the charge has at least one O atom per C atom (all carbon as CO, all
+    hydrogen as H2): O_fuel + 2 n_O2 >= C with n_O2 = (C + H/4 - O/2) lambda per mole of fuel,
+    so lambda >= (C - O) / (2 (C + H/4 - O/2)) (an element balance; Heywood 1988, section
+    3.4 writes the same balances for rich products, from memory).  0 where the fuel itself
+    holds enough oxygen."""
+    st = thermo.stoich_o2_per_fuel(C, H, O)
+    return max(0.0, (C - O) / (2.0 * st)) if st > 0 else 0.0
+
+
+def check_rich_limit(case, extra: Mapping[str, Any] | None = None) -> None:
+    """Refuse (ConfigError) a case's lambda richer than its fuel's :func:`richest_lambda`, where
+    the real-gas model is used and fuel is burned; ``extra``: the plug-ins' fuels."""
+    op, f = case.operating, case.fuel
+    if case.gas.properties != "real" or op.fuel_cut:
+        return
+    if f.C is not None:
+        C, H, O = f.C, f.H, f.O or 0.0
+    else:
+        fuel = get_fuel(f.name, extra)
+        C, H, O = fuel.C, fuel.H, fuel.O
+    lim = richest_lambda(C, H, O)
+    lam = vars(op)["lambda"]
+    if lam < lim:
+        raise ConfigError(
+            f"operating.lambda = {lam:g}: too rich for fuel {f.name!r}; it needs lambda >="
+            f" {math.ceil(lim * 1000) / 1000:.3f}, below which its oxygen cannot turn all its carbon into CO"
+            f" and the gas model (gaseous products only, no solid carbon) has no products for it")
 
 
 def _make(name: str, C: float, H: float, O: float, N: float, nasa7: tuple, source: str,

@@ -21,8 +21,9 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from cyclesim.errors import ConfigError
+from cyclesim.config import CORE_SCHEMA
 from cyclesim.params import Param
+from cyclesim.tables import read_table
 
 from cyclesim_plugins.wiebe import P_A, P_DELAY, P_EFF, P_M, P_SPARK, Wiebe
 
@@ -31,33 +32,18 @@ SPEED_SCALE_RPM_PER_BAR = 1000.0
 
 
 def read_burn_table(path: Path) -> dict[str, np.ndarray]:
-    """Columns of a burn-table CSV (lines starting with # skipped) as float arrays."""
-    try:
-        lines = [ln for ln in Path(path).read_text(encoding="utf-8").splitlines()
-                 if ln.strip() and not ln.startswith("#")]
-    except OSError as exc:
-        raise ConfigError(f"burn.table {path}: cannot read ({exc.strerror or exc})") from exc
-    if len(lines) < 2:
-        raise ConfigError(f"burn.table {path}: needs a header line and at least one row")
-    head = [h.strip() for h in lines[0].split(",")]
-    for need in ("speed_rpm", "intake_pressure_bar"):
-        if need not in head:
-            raise ConfigError(f"burn.table {path}: no column {need!r} (columns: {', '.join(head)})")
-    cols: dict[str, list] = {h: [] for h in head}
-    for n, ln in enumerate(lines[1:], start=2):
-        cells = ln.split(",")
-        if len(cells) != len(head):
-            raise ConfigError(f"burn.table {path} row {n}: {len(cells)} cells for {len(head)} columns")
-        for h, c in zip(head, cells):
-            cols[h].append(c.strip())
-    out = {}
-    for h in ("speed_rpm", "intake_pressure_bar") + TABLE_COLUMNS:
-        if h in cols:
-            try:
-                out[h] = np.array([float(c) for c in cols[h]])
-            except ValueError:
-                raise ConfigError(f"burn.table {path}: column {h!r} holds a non-number") from None
-    return out
+    """Columns of a burn-table CSV (lines starting with # skipped) as float arrays.
+
+    Read by :func:`cyclesim.tables.read_table`: every value finite and within the range the
+    ``wiebe_table`` parameter of the same name declares, each (speed, intake pressure) point
+    once; the message names the file and the line."""
+    ranges = {p.name: p for p in WiebeTable.params if p.name in TABLE_COLUMNS}
+    op = {p.name: p for p in CORE_SCHEMA["operating"]}
+    ranges["speed_rpm"] = op["speed_rpm"]
+    ranges["intake_pressure_bar"] = op["intake_pressure_bar"]
+    tab = read_table(path, "burn.table", ("speed_rpm", "intake_pressure_bar"), TABLE_COLUMNS,
+                     unique=("speed_rpm", "intake_pressure_bar"), ranges=ranges)
+    return tab.columns
 
 
 def interpolate(table: Mapping[str, np.ndarray], speed_rpm, intake_bar, column: str) -> np.ndarray:

@@ -22,7 +22,6 @@ them with index arithmetic and skips closed valves.
 
 from __future__ import annotations
 
-import csv
 import math
 import pathlib
 from typing import Any, Mapping, Sequence
@@ -30,6 +29,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from cyclesim.errors import ConfigError, InputFileError
+from cyclesim.tables import read_table
 from cyclesim.flow import orifice_mass_flow
 from cyclesim.params import Param
 from cyclesim.roles import GasState, SetupContext, ValveFlow
@@ -158,16 +158,8 @@ def table_lift(theta_deg: np.ndarray, crank_deg: np.ndarray, lift_m: np.ndarray)
 
 # -- table input ----------------------------------------------------------------
 
-def _is_number(text: str) -> bool:
-    try:
-        float(text)
-    except ValueError:
-        return False
-    return True
-
-
 def read_two_column_csv(path: pathlib.Path, columns: Sequence[str]) -> tuple[np.ndarray, list[int]]:
-    """Read two numeric columns from a CSV file.
+    """Read two numeric columns from a CSV file (checked by :func:`cyclesim.tables.read_table`).
 
     Parameters
     ----------
@@ -192,55 +184,9 @@ def read_two_column_csv(path: pathlib.Path, columns: Sequence[str]) -> tuple[np.
         first column that does not increase; the message names the file and
         the line.
     """
-    if not path.is_file():
-        raise InputFileError(f"{path}: table file not found")
-    rows: list[tuple[float, float]] = []
-    lines: list[int] = []
-    idx: tuple[int, int] | None = None
-    with path.open(newline="") as fh:
-        for lineno, row in enumerate(csv.reader(fh), start=1):
-            cells = [c.strip() for c in row]
-            if not any(cells) or cells[0].startswith("#"):
-                continue
-            if idx is None:
-                idx = (0, 1)
-                if not _is_number(cells[0]):  # header row
-                    names = [c.lower() for c in cells]
-                    missing = [c for c in columns if c not in names]
-                    if missing:
-                        raise InputFileError(
-                            f"{path}: line {lineno}: header lacks column(s) {', '.join(missing)}"
-                            f" (expected {', '.join(columns)})"
-                        )
-                    idx = (names.index(columns[0]), names.index(columns[1]))
-                    continue
-            if len(cells) <= max(idx):
-                raise InputFileError(
-                    f"{path}: line {lineno}: expected columns {', '.join(columns)},"
-                    f" got {len(cells)} value(s)"
-                )
-            try:
-                vals = (float(cells[idx[0]]), float(cells[idx[1]]))
-            except ValueError:
-                raise InputFileError(
-                    f"{path}: line {lineno}: non-numeric value in {', '.join(cells)}"
-                ) from None
-            if not all(math.isfinite(v) for v in vals):
-                raise InputFileError(
-                    f"{path}: line {lineno}: non-finite value in {', '.join(cells)}")
-            rows.append(vals)
-            lines.append(lineno)
-    if not rows:
-        raise InputFileError(f"{path}: no data rows (expected columns {', '.join(columns)})")
-    data = np.array(rows)
-    bad = np.flatnonzero(np.diff(data[:, 0]) <= 0.0)
-    if bad.size:
-        k = int(bad[0]) + 1
-        raise InputFileError(
-            f"{path}: line {lines[k]}: {columns[0]} = {data[k, 0]:g} does not increase"
-            f" (previous {data[k - 1, 0]:g})"
-        )
-    return data, lines
+    tab = read_table(path, f"{columns[0]}, {columns[1]} table", tuple(columns), header_optional=True,
+                     lowercase=True, increasing=(columns[0],))
+    return np.column_stack([tab.columns[c] for c in columns]), tab.lines.tolist()
 
 
 def load_lift_table(spec: str, base_dir: Any, key: str) -> tuple[np.ndarray, np.ndarray]:

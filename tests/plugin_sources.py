@@ -36,3 +36,17 @@ def fake_install(site, dist_name: str, files: dict, entry_points: dict, version:
     (dist / "entry_points.txt").write_text(
         "[cyclesim]\n" + "".join(f"{k} = {v}\n" for k, v in entry_points.items()))
     return site
+
+
+RAISES_FOR_ONE_CASE = '''
+from cyclesim import hookimpl
+
+@hookimpl
+def cyclesim_extra_figures(summary, trace, cases):
+    for c in cases:
+        if c.submodels["burn"].params["spark_advance_deg"] == 20:
+            raise LookupError("the test plug-in refuses spark 20")
+    return {}
+'''
+"""A plug-in of extra figures that raises a plain LookupError for any batch holding a case with
+``burn.spark_advance_deg`` 20 (an exception of no kind the tool knows, for batch isolation)."""

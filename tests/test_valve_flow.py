@@ -216,8 +216,8 @@ def test_lift_table_event_mismatch_warned(tmp_path):
 @pytest.mark.parametrize("text, line, what", [
     ("crank_deg,lift_mm\n-380,0\n-300,5\n-300,6\n", 4, "does not increase"),
     ("crank_deg,lift_mm\n-380,0\n-300,-1\n-200,0\n", 3, "negative"),
-    ("crank_deg,lift_mm\n-380,0\n-300,abc\n", 3, "non-numeric"),
-    ("angle,lift\n-380,0\n", 1, "header lacks"),
+    ("crank_deg,lift_mm\n-380,0\n-300,abc\n", 3, "not a number"),
+    ("angle,lift\n-380,0\n", 1, "missing column"),
 ])
 def test_bad_lift_tables_rejected(tmp_path, text, line, what):
     name = write(tmp_path / "bad.csv", text)

@@ -309,42 +309,12 @@ def _parse_comments(lines: list[str]) -> tuple[dict, float]:
 
 
 def _read_csv(path: Path) -> TraceSet:
-    try:
-        text = path.read_text(encoding="utf-8")
-    except UnicodeDecodeError as exc:
-        raise InputFileError(f"{path}: not a UTF-8 text file ({exc.reason})") from None
-    lines = text.splitlines()
-    comments, body, first = [], [], None
-    for i, ln in enumerate(lines, start=1):
-        if ln.startswith("#"):
-            comments.append(ln)
-        elif ln.strip():
-            if first is None:
-                first = i
-            body.append((i, ln))
-    if not body:
-        raise InputFileError(f"{path}: no header row")
-    meta, speed = _parse_comments(comments)
-    rows = list(csv.reader([b for _, b in body]))
-    header = [h.strip() for h in rows[0]]
-    data = rows[1:]
-    linenos = [i for i, _ in body[1:]]
-    if not data:
-        raise InputFileError(f"{path}: header but no data rows")
-    if "crank_deg" not in header:
-        raise InputFileError(f"{path}: missing column 'crank_deg' (header: {', '.join(header)})")
-    arr = np.empty((len(data), len(header)))
-    for r, (row, ln) in enumerate(zip(data, linenos)):
-        if len(row) != len(header):
-            raise InputFileError(f"{path}: line {ln} has {len(row)} fields, the header has {len(header)}")
-        for c, v in enumerate(row):
-            try:
-                arr[r, c] = float(v)
-            except ValueError:
-                raise InputFileError(
-                    f"{path}: line {ln}, column '{header[c]}': {v!r} is not a number"
-                ) from None
-    col = {h: arr[:, i] for i, h in enumerate(header)}
+    from ..tables import read_table
+
+    tab = read_table(path, "pressure traces", ("crank_deg",), all_columns=True)
+    meta, speed = _parse_comments(tab.comments)
+    header = list(tab.header)
+    col = tab.columns
     if "cycle" in header:
         if "pressure_bar" not in header:
             raise InputFileError(f"{path}: missing column 'pressure_bar' (long format)")
@@ -388,6 +358,8 @@ def _cycle_groups(path, cyc, contiguous: bool = False):
 def _checked(path, theta, P, Pi, speed, meta) -> TraceSet:
     if theta.ndim != 1 or theta.size < 2:
         raise InputFileError(f"{path}: crank_deg must be a 1-D column of at least 2 angles")
+    if not np.all(np.isfinite(theta)):
+        raise InputFileError(f"{path}: crank_deg is not finite at sample {int(np.argmin(np.isfinite(theta))) + 1}")
     if np.any(np.diff(theta) <= 0):
         i = int(np.argmax(np.diff(theta) <= 0))
         raise InputFileError(f"{path}: crank_deg is not increasing at sample {i + 2} ({theta[i + 1]:g} deg)")

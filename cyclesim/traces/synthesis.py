@@ -399,7 +399,12 @@ def check_request(case: Case, n_cycles: int, variation: CycleVariation, resoluti
         raise ConfigError(
             f"burn.model = {model!r}: cycle-to-cycle variation is defined for {', '.join(BURN_KEYS)}"
         )
-    return output_grid(resolution_deg, sample_rate_hz, float(case.operating.speed_rpm), fine_step_deg, names)
+    out_step, fine = output_grid(resolution_deg, sample_rate_hz, float(case.operating.speed_rpm), fine_step_deg,
+                                 names)
+    from ..budget import check_traces
+
+    check_traces(int(n_cycles), 720.0 / fine + 1, 720.0 / out_step + 1)       # before any array exists
+    return out_step, fine
 
 
 def synthesize(
@@ -450,6 +455,9 @@ def synthesize(
     registry = _registry_for([case])
     speed = float(case.operating.speed_rpm)
     n_fine = int(round(720.0 / fine))
+    from ..budget import trace_chunk
+
+    chunk = trace_chunk(case, n_cycles, n_fine + 1, 720.0 / out_step + 1, chunk)   # cycles per batch
     theta_f = np.linspace(-360.0, 360.0, n_fine + 1)
 
     mean = _steady_state(case, registry)
