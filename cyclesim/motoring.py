@@ -29,8 +29,7 @@ MODE_MOTORED = "motored"
 
 LOSS_ANGLE_CONVENTION = ("loss_angle_deg: how far the motored pressure peak lies before TDC,"
                          " positive when it precedes TDC (0 - theta_pmax)")
-TDC_OFFSET_CONVENTION = ("tdc_offset_deg: the labelled crank angle at which true TDC lies in a recorded"
-                         " trace (positive: the record's angles are late; true angle = labelled - offset)")
+"""The sign of the loss angle, as the README's conventions and every summary.json state it."""
 
 POLYTROPIC_WINDOWS_DEG = {"compression": (-90.0, -40.0), "expansion": (50.0, 110.0)}
 """Crank-angle windows [deg] of the polytropic-exponent fits (the analyser's defaults; windows

@@ -33,6 +33,11 @@ def energy_label(key: str) -> str:
 CONVENTIONS = {
     "crank_angle": "degrees, 0 = firing TDC, negative before it; -360/360 = gas-exchange TDC",
     "units": "in every key's name",
+    "loss_angle_deg": "how far the motored pressure peak lies before TDC: positive when it precedes TDC"
+                      " (0 - theta_pmax)",
+    "tdc_offset_deg": "the labelled crank angle at which true TDC lies in a recorded trace (positive: the"
+                      " record's angles are late; true angle = labelled - offset)",
+    "mode": "fired, or motored (no fuel burns: figures with no meaning without combustion are null)",
 }
 """How a result's numbers are to be read (in every summary.json)."""
 

@@ -210,6 +210,8 @@ def test_motored_energy_balance_on_compression_work(fuel_cut):
 
 def test_combustion_keys_null_in_json_and_absent_from_table(fuel_cut, tmp_path):
     doc = fuel_cut.summary_json()
+    assert "before TDC" in doc["conventions"]["loss_angle_deg"]
+    assert "true angle = labelled - offset" in doc["conventions"]["tdc_offset_deg"]
     summ = json.loads(json.dumps(doc))["summary"]
     for k in COMBUSTION_ONLY_KEYS:
         if k != "eta_closed_cycle":             # a closed-cycle key
