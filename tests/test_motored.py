@@ -310,3 +310,40 @@ def test_motored_layout_keeps_the_closure(vals, basis):
     resid = out["chemical_energy_released_J"] - sum(out[k] for k in terms)
     assert resid[0] == pytest.approx(eb["closure_J"][0], abs=1e-9 * (1 + np.abs(vals).sum()))
     assert out["closure_fraction"][0] == pytest.approx(eb["closure_J"][0] / basis)
+
+
+# ---------------------------------------------------------------------------
+# The dyno and the friction test on a motored engine
+# ---------------------------------------------------------------------------
+def test_dyno_drives_a_motored_engine_and_reads_the_power_absorbed(fuel_cut):
+    from cyclesim.studies.dyno import dyno_test
+
+    d = dyno_test("demo", arm_length_m=0.5, overrides=["operating.fuel_cut=true"])
+    r = d.reading
+    assert d.motored and d.figures()["operation"] == "motored"
+    assert r["force_N"] < 0                                         # the dyno drives the engine
+    assert r["motoring_torque_Nm"] == pytest.approx(fuel_cut.summary["motoring_torque_Nm"], rel=1e-9)
+    assert r["motoring_power_kW"] == pytest.approx(fuel_cut.summary["motoring_power_kW"], rel=1e-6)
+    assert d.correction["applied"] is False and r["bsfc_g_per_kWh"] is None
+    text = d.text()
+    assert "MOTORED" in text and "motoring power absorbed" in text and "corrected power" not in text
+
+
+def test_dyno_refuses_torque_control_of_a_motored_engine():
+    from cyclesim.errors import ConfigError
+    from cyclesim.studies.dyno import dyno_test
+
+    with pytest.raises(ConfigError, match="speed-controlled"):
+        dyno_test("demo", mode="torque", overrides=["operating.fuel_cut=true"], speed_grid_rpm=[2800, 3200])
+
+
+def test_cut_test_of_a_motored_engine_is_the_motoring_test():
+    from cyclesim.studies.cylinder_cut import cylinder_cut_test
+
+    ct_ = cylinder_cut_test("demo", overrides=["burn.model=none"], effects=("pumping",))
+    assert ct_.settings["operation"] == "motored" and [s["step"] for s in ct_.steps] == ["motoring"]
+    s = ct_.steps[0]
+    # absorbed power = friction + pumping - gross indicated power (Heywood 1988 sec. 2.7)
+    assert s["friction_est_kW"] == pytest.approx(s["friction_true_kW"] + s["pumping_kW"] - s["indicated_gross_kW"],
+                                                 rel=1e-9)
+    assert s["friction_bias_kW"] > 0 and "motoring friction test" in ct_.text()
