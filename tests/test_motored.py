@@ -347,3 +347,18 @@ def test_cut_test_of_a_motored_engine_is_the_motoring_test():
     assert s["friction_est_kW"] == pytest.approx(s["friction_true_kW"] + s["pumping_kW"] - s["indicated_gross_kW"],
                                                  rel=1e-9)
     assert s["friction_bias_kW"] > 0 and "motoring friction test" in ct_.text()
+
+
+def test_loss_breakdown_splits_the_unreleased_energy_and_refuses_a_motored_case():
+    from cyclesim.errors import ConfigError
+    from cyclesim.studies.losses import loss_breakdown
+
+    full = cyclesim.run("demo", ["operating.lambda=0.9"])
+    lb = loss_breakdown("demo", overrides=["operating.lambda=0.9"], full_result=full, closed_step_deg=0.5)
+    u = lb.figures()["unreleased_chemical_energy_points"]
+    fuel = full.summary["energy_balance"]["fuel_energy_J"]
+    assert u["CO"] == pytest.approx(100 * full.summary["unreleased_energy"]["CO_J"] / fuel, rel=1e-12)
+    assert u["CO"] + u["H2"] + u["unburned_fuel"] == pytest.approx(u["total"], rel=1e-9)
+    assert "CO" in lb.text() and "unburned fuel" in lb.text()
+    with pytest.raises(ConfigError, match="motored"):
+        loss_breakdown("demo", overrides=["operating.fuel_cut=true"])
