@@ -72,15 +72,17 @@ def plot_case(res, out: Path) -> list[Path]:
         closed = np.isfinite(t["motored_pressure_bar"])
         ax.plot(th[closed], t["motored_pressure_bar"][closed], color="0.5", lw=1, ls="--", label="motored (Woschni reference)")
     if "theta_pmax_deg" in s:
+        motored = s.get("mode") == "motored"
         ax.plot([s["theta_pmax_deg"]], [s["p_max_bar"]], "o", color="tab:red", ms=4,
-                label=f"peak {s['p_max_bar']:.1f} bar at {s['theta_pmax_deg']:.1f} deg")
+                label=(f"motored peak {s['p_max_bar']:.2f} bar, {s['loss_angle_deg']:.2f} deg before TDC (loss angle)"
+                       if motored else f"peak {s['p_max_bar']:.1f} bar at {s['theta_pmax_deg']:.1f} deg"))
     if np.isfinite(s.get("spark_deg", np.nan)) and th.min() <= s["spark_deg"] <= th.max():
         ax.axvline(s["spark_deg"], color="tab:orange", lw=0.9, ls="--", label=f"spark {s['spark_advance_deg']:.1f} deg BTDC")
     _tdc_lines(ax, th)
     ax.set_xlabel("crank angle [deg]  (0 = firing TDC)")
     ax.set_ylabel("cylinder pressure [bar]")
     ax.set_title(f"Cylinder pressure - {title}", pad=14)
-    ax.legend(frameon=False, fontsize=8)
+    ax.legend(frameon=False, fontsize=8, loc="upper right" if s.get("mode") == "motored" else "best")
     files.append(_save(fig, out / "pressure.png"))
 
     fig, ax = plt.subplots(figsize=(6, 4.5))
@@ -108,7 +110,8 @@ def plot_case(res, out: Path) -> list[Path]:
     ax1.set_xlabel("crank angle [deg]  (0 = firing TDC)")
     ax1.set_ylabel("rate [J/deg]")
     ax2 = ax1.twinx()
-    ax2.plot(th[win], t["mfb"][win], color="tab:green", lw=1.2, label="mass fraction burned")
+    if s.get("mode") != "motored":            # motored: nothing burns (a fuel cut's trace burn is not shown)
+        ax2.plot(th[win], t["mfb"][win], color="tab:green", lw=1.2, label="mass fraction burned")
     ax2.set_ylabel("mass fraction burned [-]")
     ax2.set_ylim(0, 1.05)
     ax2.grid(False)
@@ -120,7 +123,8 @@ def plot_case(res, out: Path) -> list[Path]:
     h1, l1 = ax1.get_legend_handles_labels()
     h2, l2 = ax2.get_legend_handles_labels()
     ax1.legend(h1 + h2, l1 + l2, frameon=False, fontsize=8, loc="center right")
-    ax1.set_title("Heat release and mass fraction burned")
+    ax1.set_title("Heat release and mass fraction burned" if s.get("mode") != "motored"
+                  else "Motored: no heat release; wall heat rate")
     files.append(_save(fig, out / "heat_release.png"))
 
     if "intake_lift_mm" in t:
