@@ -362,3 +362,17 @@ def test_loss_breakdown_splits_the_unreleased_energy_and_refuses_a_motored_case(
     assert "CO" in lb.text() and "unburned fuel" in lb.text()
     with pytest.raises(ConfigError, match="motored"):
         loss_breakdown("demo", overrides=["operating.fuel_cut=true"])
+
+
+def test_sweep_and_report_of_motored_cases(fuel_cut):
+    from cyclesim.report import report_for_run
+    from cyclesim.studies.sweep import sweep
+
+    sw = sweep("demo", {"operating.speed_rpm": [2000, 4000]}, overrides=["operating.fuel_cut=true"])
+    assert [r["mode"] for r in sw.rows] == ["motored", "motored"]
+    assert all(r["eta_brake"] is None and r["loss_angle_deg"] > 0 and r["motoring_mep_bar"] > 0 for r in sw.rows)
+    assert "energy_balance.compression_work_J" in sw.rows[0]
+    secs = report_for_run(fuel_cut, plots=False)
+    eb = next(s for s in secs if s["heading"] == "Energy balance")
+    assert eb["table"]["columns"][2] == "% of compression work, IVC to TDC"
+    assert any(s["heading"] == "Notes" for s in secs)
