@@ -103,6 +103,7 @@ def test_closed_motored_gasoline_surrogate_follows_isentrope_of_its_nasa7_record
     gri = {s.name: s for s in ct.Species.list_from_file("gri30.yaml")}
     gas = ct.Solution(thermo="ideal-gas", species=[sp, gri["O2"], gri["N2"], gri["AR"]])
     res = cyclesim.run(config("demo_closed", LOSSLESS + ["operating.lambda=1.0"], NO_BURN))
+    assert res.summary["mode"] == "motored"
     X = {"FUEL": 1.0, **fuel_air(fuel.C, fuel.H, fuel.O)}
     assert isentrope_error(res, gas, X) < 1e-4
 
