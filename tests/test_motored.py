@@ -377,3 +377,10 @@ def test_sweep_and_report_of_motored_cases(fuel_cut):
     eb = next(s for s in secs if s["heading"] == "Energy balance")
     assert eb["table"]["columns"][2] == "% of compression work, IVC to TDC"
     assert any(s["heading"] == "Notes" for s in secs)
+
+
+def test_spark_study_of_a_motored_engine_is_refused_in_one_line(tmp_path, capsys):
+    assert main(["spark", "demo", "--set", "operating.fuel_cut=true", "--advance", "10:30:10",
+                 "--out", str(tmp_path / "s")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "motored" in err[0]
