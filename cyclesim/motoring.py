@@ -66,6 +66,13 @@ def motored_cases(batch, start_deg) -> np.ndarray:
     return cut | no_burn
 
 
+def is_motored_config(case) -> bool:
+    """Whether a validated case burns no fuel, from its config alone: its fuel is cut or its burn
+    model is the role's ``none`` (for the studies that refuse or redirect motored cases before
+    simulating)."""
+    return bool(case.operating.fuel_cut) or case.submodels["burn"].model == "none"
+
+
 def compression_work(batch, th, Y, F, i_w: int) -> np.ndarray:
     """Work done on the gas from IVC to TDC, -integral of p dV [J] (B,), positive."""
     B = batch.B

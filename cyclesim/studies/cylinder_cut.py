@@ -79,10 +79,11 @@ from ..config import Case, case_with, resolve_case
 from ..engine import EngineResult, EngineSetup, simulate_engines
 from ..errors import ConfigError
 from ..figures import friction_components
+from ..motoring import is_motored_config
 from ..output import CAUTION, atomic_write_text, write_rows_csv
 from ..output import plain as _plain
 
-__all__ = ["cylinder_cut_test", "CylinderCutResult", "EFFECTS", "cut_estimate", "motoring_test", "is_motored"]
+__all__ = ["cylinder_cut_test", "CylinderCutResult", "EFFECTS", "cut_estimate", "motoring_test"]
 
 EFFECTS = ("pumping", "pressure_friction", "manifolds", "walls", "speed")
 EFFECT_TEXT = {
@@ -204,11 +205,6 @@ MOTORING_TEXT = {
 }
 
 
-def is_motored(case: Case) -> bool:
-    """Whether a case burns no fuel: its fuel is cut or its burn model is the role's ``none``."""
-    return bool(case.operating.fuel_cut) or case.submodels["burn"].model == "none"
-
-
 def motoring_test(case: Case, label: str, effects: Sequence[str] = EFFECTS, progress=None) -> CylinderCutResult:
     """The motoring friction test of a motored engine: absorbed power against the model's friction.
 
@@ -304,7 +300,7 @@ def cylinder_cut_test(config="demo", overrides: Sequence[str] = (), effects: Seq
         raise ConfigError("the cylinder-cut test needs engine.cylinders >= 2")
     if case.simulation.mode != "full":
         raise ConfigError("the cylinder-cut test needs simulation.mode: full")
-    if is_motored(case):
+    if is_motored_config(case):
         res = motoring_test(case, label, effects, progress)
         if out is not None:
             _write(res, Path(out), plots)

@@ -404,7 +404,9 @@ def loss_breakdown(
         raise ConfigError(f"closed_step_deg {closed_step_deg!r}: expected 0.01 to 1 deg")
     order = _validate_order(order if order is not None else DEFAULT_ORDER)
     notes = []
-    if case.submodels["burn"].model == "none" or case.operating.fuel_cut:
+    from ..motoring import is_motored_config
+
+    if is_motored_config(case):
         raise ConfigError("loss breakdown: the case is motored (burn.model 'none' or operating.fuel_cut): there is"
                           " no fuel energy to account for; `cyclesim run` gives a motored point's figures")
     if "combustion_efficiency" not in case.submodels["burn"].params:
