@@ -318,7 +318,7 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
                                  "closure_fraction": np.where(fuel_energy > 0, closure / np.where(fuel_energy > 0, fuel_energy, 1.0), np.nan)}
         out["eta_closed_cycle"] = W_net / np.maximum(fuel_energy, 1e-300)
         out["unreleased_energy"] = _unreleased_split(g, m1 - mb1 + mu_bb, mb1 + m_bb - mu_bb)
-        apply_motored(out, motored, W_comp, E1 - E0, mode)
+        apply_motored(out, motored, W_comp, E1 - E0, mode, chem_blowby_J=Ech_bb)
         return out
 
     # full cycle: flows through the valves

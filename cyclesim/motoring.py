@@ -112,11 +112,14 @@ def polytropic_exponents(batch, th, p, dp) -> dict[str, np.ndarray]:
     return out
 
 
-def motored_energy_balance(eb: dict, basis_J: np.ndarray, chem_change_J: np.ndarray) -> dict:
+def motored_energy_balance(eb: dict, basis_J: np.ndarray, chem_change_J: np.ndarray,
+                           chem_blowby_J: np.ndarray | None = None) -> dict:
     """A fired-layout energy balance rewritten on the compression work ``basis_J`` (B,) [J].
 
     ``chem_change_J`` is the change of the chemical energy held in the cylinder over the
-    cycle [J] (part of the fired layout's ``stored_energy_change_J``).
+    cycle [J] (part of the fired layout's ``stored_energy_change_J``); ``chem_blowby_J`` the
+    chemical energy that leaked past the rings [J], which the closed layout counts in its
+    blowby enthalpy and in the chemical energy that left the charge (here taken out of both).
 
     The chemical terms (fuel energy in, unreleased chemical energy out, the change of the
     chemical energy held in the cylinder) are netted into ``chemical_energy_released_J``, which
@@ -135,6 +138,9 @@ def motored_energy_balance(eb: dict, basis_J: np.ndarray, chem_change_J: np.ndar
         out["internal_energy_change_J"] = eb["stored_energy_change_J"] - chem_change_J
     else:
         out.update({k: v for k, v in eb.items() if k not in ("closure_J", "closure_fraction")})
+        if chem_blowby_J is not None:
+            out["chemical_energy_released_J"] = eb["chemical_energy_released_J"] - chem_blowby_J
+            out["blowby_enthalpy_J"] = eb["blowby_enthalpy_J"] - chem_blowby_J
     out["closure_J"] = eb["closure_J"]
     with np.errstate(divide="ignore", invalid="ignore"):
         out["closure_fraction"] = np.where(basis_J > 0, eb["closure_J"] / np.where(basis_J > 0, basis_J, 1.0),
@@ -153,7 +159,7 @@ def energy_basis(eb: dict) -> tuple[str, str]:
 
 
 def apply_motored(out: dict, motored: np.ndarray, basis_J: np.ndarray, chem_change_J: np.ndarray,
-                  mode: str) -> None:
+                  mode: str, chem_blowby_J: np.ndarray | None = None) -> None:
     """Set the motored figures and the null keys in a batch's figures ``out`` (in place)."""
     nan = np.nan
     out["mode"] = np.where(motored, MODE_MOTORED, MODE_FIRED)
@@ -168,7 +174,7 @@ def apply_motored(out: dict, motored: np.ndarray, basis_J: np.ndarray, chem_chan
         out["motoring_power_kW"] = np.where(motored, -out["power_kW"], nan)
     eb = out["energy_balance"]
     if motored.all():
-        out["energy_balance"] = motored_energy_balance(eb, basis_J, chem_change_J)
+        out["energy_balance"] = motored_energy_balance(eb, basis_J, chem_change_J, chem_blowby_J)
     elif motored.any():
         with np.errstate(divide="ignore", invalid="ignore"):
             eb["closure_fraction"] = np.where(motored, eb["closure_J"] / basis_J, eb["closure_fraction"])

@@ -384,3 +384,14 @@ def test_spark_study_of_a_motored_engine_is_refused_in_one_line(tmp_path, capsys
                  "--out", str(tmp_path / "s")]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "motored" in err[0]
+
+
+@pytest.mark.parametrize("mode", ["closed", "full"])
+def test_motored_balance_releases_no_chemical_energy_with_fuel_in_the_leaking_charge(mode):
+    # burn none with a stoichiometric charge: fuel leaks past the rings (and, full cycle, leaves
+    # through the exhaust) unburned, so the balance's released chemical energy is zero
+    res = cyclesim.run(config("demo_closed" if mode == "closed" else "demo", [], NO_BURN))
+    eb = res.summary["energy_balance"]
+    assert res.summary["blowby_mass_mg"] > 0
+    assert abs(eb["chemical_energy_released_J"]) < 1e-6 * eb["compression_work_J"]
+    assert abs(eb["closure_fraction"]) < cyclesim.api.REFINE_CLOSURE
