@@ -47,6 +47,12 @@ class CaseResult:
     cycle_loop : str
         The loop that integrated the cycles: ``"compiled"``, or ``"numpy"`` (with the reason
         where numba is installed but a submodel has no compiled form).
+    notes : list of str
+        What the figures rest on where it is not the usual (a motored case: the friction's
+        conditions, the energy balance's basis, the fitting windows).
+
+    ``summary["mode"]`` is ``"fired"`` or ``"motored"`` (no fuel burns, see
+    :mod:`cyclesim.motoring`); figures with no meaning in that mode are NaN (``null`` in JSON).
     """
 
     name: str
@@ -58,6 +64,7 @@ class CaseResult:
     models: dict = field(default_factory=dict)
     references: list = field(default_factory=list)
     cycle_loop: str = ""
+    notes: list = field(default_factory=list)
 
     @property
     def ok(self) -> bool:
@@ -74,6 +81,7 @@ class CaseResult:
             "inputs": _plain(self.inputs),
             "references": list(self.references),
             "cycle_loop": self.cycle_loop,
+            "notes": list(self.notes),
             "caution": CAUTION,
             "conventions": dict(CONVENTIONS),
         }
@@ -137,11 +145,13 @@ def _run_batch(cases: list[Case], registry, progress=None) -> list[CaseResult]:
 def results_from_trace(batch, tr, registry) -> list[CaseResult]:
     """Per-case results (figures, trace columns, warnings) of an integrated batch."""
     from .figures import compute_figures, derived_trace, output_trace
+    from .motoring import MODE_MOTORED, motored_notes
     from .plausibility import input_warnings
 
     cases = batch.cases
     d = derived_trace(batch, tr)
     figs = compute_figures(batch, tr, d)
+    modes = [str(m) for m in figs.pop("mode")]
     step = float(batch.simulation.output_step_deg) or None
     cols = output_trace(batch, tr, d, step)
     extra = {}
@@ -178,7 +188,10 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
             continue
         summ = {k: ({kk: vv[i] for kk, vv in col.items()} if nested else col[i])
                 for k, (nested, col) in per_key.items()}
+        summ["mode"] = modes[i]
         res.summary = summ
+        if modes[i] == MODE_MOTORED:
+            res.notes = motored_notes(summ, res.inputs, case.submodels["friction"].model)
         res.trace = {k: np.array(v[i]) for k, v in cols.items()}
         if batch.simulation.mode == "full" and not tr.converged[i]:
             res.warnings.append(
@@ -227,6 +240,13 @@ def _gas_exchange_warnings(s: dict) -> list[str]:
     return out
 
 
+def _closure_basis(res: CaseResult) -> str:
+    from .motoring import energy_basis
+
+    eb = res.summary.get("energy_balance") if res.ok else None
+    return energy_basis(eb)[1] if eb else "fuel energy"
+
+
 def _closure(res: CaseResult) -> float:
     eb = res.summary.get("energy_balance") if res.ok else None
     if not eb:
@@ -240,7 +260,8 @@ BURNED_FRACTION_LIMIT = 0.3
 stable spark ignition (common practice: about 25-30 % for a homogeneous charge)."""
 
 REFINE_CLOSURE = 1e-3
-"""Energy-balance miss (fraction of fuel energy) above which a case is re-run at half the step."""
+"""Energy-balance miss above which a case is re-run at half the step: a fraction of the fuel energy
+(fired) or of the compression work (motored, see :mod:`cyclesim.motoring`)."""
 REFINE_STEPS = 2
 """How many times a case's step is halved before it is reported as failed."""
 
@@ -377,7 +398,8 @@ def simulate(cases, progress: Callable[[int], None] | None = None,
         for i, r in zip(redo_idx, redo):
             miss = 100 * _closure(out[i])
             r.warnings.insert(0, f"re-run at simulation.step_deg = {cases[i].simulation.step_deg:g}: the energy"
-                                 f" balance at twice that step missed by {miss:.2g} % of the fuel energy")
+                                 f" balance at twice that step missed by {miss:.2g} % of the"
+                                 f" {_closure_basis(out[i])}")
             out[i] = r
     for i, r in enumerate(out):
         miss = _closure(r)
@@ -391,7 +413,7 @@ def simulate(cases, progress: Callable[[int], None] | None = None,
                          " events; check operating.exhaust_pressure_bar against intake_pressure_bar and the overlap")
             r.summary, r.trace = {}, {}
         elif abs(miss) > REFINE_CLOSURE:
-            r.error = (f"solver: the energy balance misses by {100 * miss:.2g} % of the fuel energy even at"
+            r.error = (f"solver: the energy balance misses by {100 * miss:.2g} % of the {_closure_basis(r)} even at"
                        f" simulation.step_deg = {cases[i].simulation.step_deg:g}: numerically unreliable at this"
                        f" crank angle resolution; reduce simulation.step_deg")
             r.summary, r.trace = {}, {}

@@ -13,6 +13,7 @@ import math
 import numpy as np
 
 from .errors import CyclesimError, PluginError
+from .motoring import apply_motored, compression_work, motored_cases, polytropic_exponents
 from .roles import FrictionInputs
 from .solver import CycleTrace, hermite, hermite_grid, is_uniform, raised_at
 
@@ -222,7 +223,8 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     burn = batch.models["burn"]
     soc = np.asarray(burn.start_deg(), float) * np.ones(B)
     xb, dxb = Y[I["x_b"]], F[I["x_b"]]
-    fired = np.isfinite(soc) & (soc < 1e8) & (xb[:, -1] > 0.5)
+    motored = motored_cases(batch, soc)
+    fired = ~motored & (xb[:, -1] > 0.5)
     ca = {}
     for lvl in (0.05, 0.10, 0.50, 0.90):
         ca[lvl] = np.where(fired, hermite_crossing(th, xb, dxb, lvl), np.nan)
@@ -242,6 +244,9 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     out["dp_dtheta_max_bar_per_deg"] = dp_max / 1e5
     out["theta_dp_max_deg"] = t_dp
     out["T_max_K"] = hermite_peak(th, Y[1], F[1], lo_win, hi_win)[1]
+    for k, v in polytropic_exponents(batch, th, p, dp).items():
+        out[f"polytropic_exponent_{k}"] = v
+    W_comp = compression_work(batch, th, Y, F, I["W"])
 
     # -- work ----------------------------------------------------------------
     W = Y[I["W"]]
@@ -312,6 +317,8 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
                                  "closure_J": closure,
                                  "closure_fraction": np.where(fuel_energy > 0, closure / np.where(fuel_energy > 0, fuel_energy, 1.0), np.nan)}
         out["eta_closed_cycle"] = W_net / np.maximum(fuel_energy, 1e-300)
+        out["unreleased_energy"] = _unreleased_split(g, m1 - mb1 + mu_bb, mb1 + m_bb - mu_bb)
+        apply_motored(out, motored, W_comp, E1 - E0, mode, chem_blowby_J=Ech_bb)
         return out
 
     # full cycle: flows through the valves
@@ -392,7 +399,23 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     closure = chem_in - sum(terms.values())
     out["energy_balance"] = {"fuel_energy_J": chem_in, **terms, "closure_J": closure,
                              "closure_fraction": np.where(chem_in > 0, closure / np.where(chem_in > 0, chem_in, 1.0), np.nan)}
+    # unreleased chemical energy leaving through the exhaust valves and past the rings, by carrier
+    out["unreleased_energy"] = _unreleased_split(g, -mu_e + mu_bb, -(m_e - mu_e) + (m_bb - mu_bb))
+    apply_motored(out, motored, W_comp, E1 - E0, mode)
     return out
+
+
+def _unreleased_split(g, m_fresh, m_burned) -> dict[str, np.ndarray]:
+    """Chemical energy [J] held by fresh charge ``m_fresh`` and burned gas ``m_burned`` [kg], by carrier.
+
+    The basis is the one of the energy balance and the combustion efficiency: the burned gas
+    holds the CO and H2 of its complete-combustion products with the water-gas shift frozen at
+    :data:`cyclesim.thermo.K_WGS_COMPLETE` (none at or lean of stoichiometric), the fresh charge
+    its fuel's lower heating value; dissociation at the gas's own temperature is counted as
+    sensible (absolute) energy of the gas, not here.
+    """
+    return {"CO_J": m_burned * g.chem_b_co, "H2_J": m_burned * g.chem_b_h2,
+            "unburned_fuel_J": m_fresh * g.lhv_mix}
 
 
 def _plenum_density(batch) -> np.ndarray:

@@ -42,6 +42,8 @@ class ConstantGammaGas:
         self.h298_b = np.zeros(self.B)
         self.h298_u = self.lhv_mix.copy()
         self.chem_b = np.zeros(self.B)
+        self.chem_b_co = np.zeros(self.B)
+        self.chem_b_h2 = np.zeros(self.B)
         self.burned_model = "constant_gamma"
 
     def _ub(self, T):

@@ -21,7 +21,7 @@ CAUTION = (
 )
 
 
-ENERGY_LABELS = {"unreleased_chemical_energy_J": "unburned fuel (exhaust and blowby)"}
+ENERGY_LABELS = {"unreleased_chemical_energy_J": "unreleased chemical energy"}
 """Energy-balance terms whose key does not read well as a label (table and plot share them)."""
 
 
@@ -33,6 +33,11 @@ def energy_label(key: str) -> str:
 CONVENTIONS = {
     "crank_angle": "degrees, 0 = firing TDC, negative before it; -360/360 = gas-exchange TDC",
     "units": "in every key's name",
+    "loss_angle_deg": "how far the motored pressure peak lies before TDC: positive when it precedes TDC"
+                      " (0 - theta_pmax)",
+    "tdc_offset_deg": "the labelled crank angle at which true TDC lies in a recorded trace (positive: the"
+                      " record's angles are late; true angle = labelled - offset)",
+    "mode": "fired, or motored (no fuel burns: figures with no meaning without combustion are null)",
 }
 """How a result's numbers are to be read (in every summary.json)."""
 
@@ -136,7 +141,10 @@ def write_case(res, out: Path, plots: bool = True) -> list[Path]:
 def _fmt(v, spec=".2f"):
     if v is None or (isinstance(v, float) and not np.isfinite(v)):
         return "-"
-    return format(v, spec)
+    text = format(v, spec)
+    if text.startswith("-") and not text.strip("-0.") and "e" not in text:
+        return text[1:]                       # no "-0.000"
+    return text
 
 
 def summary_table(res) -> str:
@@ -160,6 +168,32 @@ def summary_table(res) -> str:
 
     eng = f"{res.inputs.get('engine.cylinders', 1)} cyl"
     lines.append(f"{res.name}  ({eng}, {res.inputs['operating.speed_rpm']:g} rpm, lambda {res.inputs['operating.lambda']:g})")
+    if s.get("mode") == "motored":
+        _motored_rows(s, mode, lines, row, head, loop_line)
+    else:
+        _fired_rows(s, mode, lines, row, head, loop_line)
+    if "knock_integral_max" in s:
+        head("Knock (end gas)")
+        row("knock integral max (1 = onset)", "knock_integral_max", "", ".3f")
+        onset = s.get("knock_onset_deg")
+        if onset is None or not np.isfinite(onset):
+            lines.append(f"  {'autoignition onset':<34s}{'none':>10s}")
+        else:
+            row("autoignition onset", "knock_onset_deg", "deg ATDC", ".1f")
+            row("unburned charge at onset", "knock_unburned_fraction_at_onset", "%", ".0f", 100)
+        row("end-gas peak temperature", "end_gas_temperature_max_K", "K", ".0f")
+    eb = s.get("energy_balance")
+    if isinstance(eb, dict):
+        lines.extend(energy_balance_lines(eb, s.get("unreleased_energy")))
+    for n in getattr(res, "notes", ()):
+        lines.append(f"note: {n}")
+    for w in res.warnings:
+        lines.append(f"warning: {w}")
+    lines.append(f"note: {CAUTION}")
+    return "\n".join(lines)
+
+
+def _fired_rows(s, mode, lines, row, head, loop_line) -> None:
     if mode == "full":
         conv = "settled" if s.get("converged") else "NOT settled"
         lines.append(f"full 720 deg cycle, {conv} after {int(s.get('cycles_to_converge', 0))} cycles")
@@ -178,12 +212,7 @@ def summary_table(res) -> str:
         row("power (engine)", "power_kW", "kW", ".1f")
         row("BSFC", "bsfc_g_per_kWh", "g/kWh", ".0f")
         row("brake efficiency", "eta_brake", "%", ".1f", 100)
-        head("Gas exchange")
-        row("volumetric efficiency", "volumetric_efficiency", "%", ".1f", 100)
-        row("trapped mass", "trapped_mass_mg", "mg", ".1f")
-        row("residual gas fraction", "residual_fraction", "%", ".1f", 100)
-        row("blowby (of trapped mass)", "blowby_fraction", "%", ".2f", 100)
-        row("exhaust at valve, enthalpy avg", "exhaust_temperature_K", "K", ".0f")
+        _gas_exchange_rows(row, head)
     else:
         lines.append("closed cycle, IVC to EVO")
         loop_line()
@@ -193,9 +222,8 @@ def summary_table(res) -> str:
         row("blowby (of trapped mass)", "blowby_fraction", "%", ".2f", 100)
     head("Combustion")
     row("spark advance", "spark_advance_deg", "deg BTDC", ".1f")
-    row("CA10 / CA50 / CA90", "ca10_deg", "", ".1f")
     if "ca10_deg" in s:
-        lines[-1] = (
+        lines.append(
             f"  {'CA10 / CA50 / CA90':<34s}{_fmt(s['ca10_deg'], '.1f'):>6s} /{_fmt(s['ca50_deg'], '.1f'):>6s}"
             f" /{_fmt(s['ca90_deg'], '.1f'):>6s}  deg"
         )
@@ -205,32 +233,76 @@ def summary_table(res) -> str:
     row("max pressure rise rate", "dp_dtheta_max_bar_per_deg", "bar/deg", ".2f")
     row("peak mean gas temperature", "T_max_K", "K", ".0f")
     row("combustion efficiency", "combustion_efficiency", "%", ".1f", 100)
-    if "knock_integral_max" in s:
-        head("Knock (end gas)")
-        row("knock integral max (1 = onset)", "knock_integral_max", "", ".3f")
-        onset = s.get("knock_onset_deg")
-        if onset is None or not np.isfinite(onset):
-            lines.append(f"  {'autoignition onset':<34s}{'none':>10s}")
-        else:
-            row("autoignition onset", "knock_onset_deg", "deg ATDC", ".1f")
-            row("unburned charge at onset", "knock_unburned_fraction_at_onset", "%", ".0f", 100)
-        row("end-gas peak temperature", "end_gas_temperature_max_K", "K", ".0f")
-    eb = s.get("energy_balance")
-    if isinstance(eb, dict):
-        base_key = "fuel_energy_J" if "fuel_energy_J" in eb else "chemical_energy_released_J"
-        base = eb[base_key]
-        head(f"Energy balance (% of {'fuel energy' if base_key == 'fuel_energy_J' else 'chemical energy released'}, {base:.1f} J)")
-        for k, v in eb.items():
-            if k in (base_key, "closure_fraction"):
-                continue
-            label = energy_label(k)
-            share = 100 * v / base
-            share = 0.0 if abs(share) < 0.005 else share      # no "-0.00"
-            lines.append(f"  {label:<34s}{share:>10.2f}  %")
-    for w in res.warnings:
-        lines.append(f"warning: {w}")
-    lines.append(f"note: {CAUTION}")
-    return "\n".join(lines)
+
+
+def _gas_exchange_rows(row, head) -> None:
+    head("Gas exchange")
+    row("volumetric efficiency", "volumetric_efficiency", "%", ".1f", 100)
+    row("trapped mass", "trapped_mass_mg", "mg", ".1f")
+    row("residual gas fraction", "residual_fraction", "%", ".1f", 100)
+    row("blowby (of trapped mass)", "blowby_fraction", "%", ".2f", 100)
+    row("exhaust at valve, enthalpy avg", "exhaust_temperature_K", "K", ".0f")
+
+
+def _motored_rows(s, mode, lines, row, head, loop_line) -> None:
+    """A motored case: what the dynamometer absorbs and what the motored trace shows."""
+    if mode == "full":
+        conv = "settled" if s.get("converged") else "NOT settled"
+        lines.append(f"full 720 deg cycle, MOTORED (no fuel burns), {conv} after"
+                     f" {int(s.get('cycles_to_converge', 0))} cycles")
+        loop_line()
+        head("Motoring (absorbed by the dynamometer)")
+        row("motoring MEP (= -BMEP)", "motoring_mep_bar", "bar", ".3f")
+        row("  FMEP (friction model)", "fmep_bar", "bar", ".3f")
+        row("  PMEP (pumping loss)", "pmep_bar", "bar", ".3f")
+        row("  gross IMEP", "imep_gross_bar", "bar", ".3f")
+        row("net IMEP", "imep_net_bar", "bar", ".3f")
+        row("motoring torque (engine)", "motoring_torque_Nm", "N m", ".2f")
+        row("motoring power (engine)", "motoring_power_kW", "kW", ".2f")
+    else:
+        lines.append("closed cycle, IVC to EVO, MOTORED (no fuel burns)")
+        loop_line()
+        row("closed-cycle IMEP", "imep_closed_bar", "bar", ".3f")
+    head("Motored pressure")
+    row("peak motored pressure", "p_max_bar", "bar", ".2f")
+    row("angle of peak pressure", "theta_pmax_deg", "deg ATDC", ".3f")
+    row("loss angle (peak before TDC)", "loss_angle_deg", "deg", ".3f")
+    row("polytropic exponent, compression", "polytropic_exponent_compression", "", ".4f")
+    row("polytropic exponent, expansion", "polytropic_exponent_expansion", "", ".4f")
+    row("peak mean gas temperature", "T_max_K", "K", ".0f")
+    row("compression work (IVC to TDC)", "compression_work_J", "J", ".1f")
+    row("wall heat (gas to walls)", "wall_heat_J", "J", ".2f")
+    if mode == "full":
+        _gas_exchange_rows(row, head)
+    else:
+        row("trapped mass", "trapped_mass_mg", "mg", ".1f")
+        row("blowby (of trapped mass)", "blowby_fraction", "%", ".2f", 100)
+
+
+UNRELEASED_LABELS = (("CO_J", "CO"), ("H2_J", "H2"), ("unburned_fuel_J", "unburned fuel"))
+"""Carriers of the unreleased chemical energy, in the order the outputs list them."""
+
+
+def energy_balance_lines(eb: dict, unreleased: dict | None = None) -> list[str]:
+    """The energy balance as table lines, each term in % of the balance's basis."""
+    from .motoring import energy_basis
+
+    base_key, base_label = energy_basis(eb)
+    base = eb[base_key]
+    lines = [f"Energy balance (% of {base_label}, {base:.1f} J)"]
+
+    def pct(v):
+        share = 100 * v / base if base else float("nan")
+        return 0.0 if abs(share) < 0.005 else share      # no "-0.00"
+
+    for k, v in eb.items():
+        if k in (base_key, "closure_fraction"):
+            continue
+        lines.append(f"  {energy_label(k):<34s}{pct(v):>10.2f}  %")
+        if k == "unreleased_chemical_energy_J" and unreleased:
+            for kk, lab in UNRELEASED_LABELS:
+                lines.append(f"    {'of which ' + lab:<32s}{pct(unreleased[kk]):>10.2f}  %")
+    return lines
 
 
 def write_rows_csv(path: Path, rows: Iterable[dict], columns: list[str]) -> None:

@@ -72,15 +72,17 @@ def plot_case(res, out: Path) -> list[Path]:
         closed = np.isfinite(t["motored_pressure_bar"])
         ax.plot(th[closed], t["motored_pressure_bar"][closed], color="0.5", lw=1, ls="--", label="motored (Woschni reference)")
     if "theta_pmax_deg" in s:
+        motored = s.get("mode") == "motored"
         ax.plot([s["theta_pmax_deg"]], [s["p_max_bar"]], "o", color="tab:red", ms=4,
-                label=f"peak {s['p_max_bar']:.1f} bar at {s['theta_pmax_deg']:.1f} deg")
+                label=(f"motored peak {s['p_max_bar']:.2f} bar, {s['loss_angle_deg']:.2f} deg before TDC (loss angle)"
+                       if motored else f"peak {s['p_max_bar']:.1f} bar at {s['theta_pmax_deg']:.1f} deg"))
     if np.isfinite(s.get("spark_deg", np.nan)) and th.min() <= s["spark_deg"] <= th.max():
         ax.axvline(s["spark_deg"], color="tab:orange", lw=0.9, ls="--", label=f"spark {s['spark_advance_deg']:.1f} deg BTDC")
     _tdc_lines(ax, th)
     ax.set_xlabel("crank angle [deg]  (0 = firing TDC)")
     ax.set_ylabel("cylinder pressure [bar]")
     ax.set_title(f"Cylinder pressure - {title}", pad=14)
-    ax.legend(frameon=False, fontsize=8)
+    ax.legend(frameon=False, fontsize=8, loc="upper right" if s.get("mode") == "motored" else "best")
     files.append(_save(fig, out / "pressure.png"))
 
     fig, ax = plt.subplots(figsize=(6, 4.5))
@@ -108,7 +110,8 @@ def plot_case(res, out: Path) -> list[Path]:
     ax1.set_xlabel("crank angle [deg]  (0 = firing TDC)")
     ax1.set_ylabel("rate [J/deg]")
     ax2 = ax1.twinx()
-    ax2.plot(th[win], t["mfb"][win], color="tab:green", lw=1.2, label="mass fraction burned")
+    if s.get("mode") != "motored":            # motored: nothing burns (a fuel cut's trace burn is not shown)
+        ax2.plot(th[win], t["mfb"][win], color="tab:green", lw=1.2, label="mass fraction burned")
     ax2.set_ylabel("mass fraction burned [-]")
     ax2.set_ylim(0, 1.05)
     ax2.grid(False)
@@ -120,7 +123,8 @@ def plot_case(res, out: Path) -> list[Path]:
     h1, l1 = ax1.get_legend_handles_labels()
     h2, l2 = ax2.get_legend_handles_labels()
     ax1.legend(h1 + h2, l1 + l2, frameon=False, fontsize=8, loc="center right")
-    ax1.set_title("Heat release and mass fraction burned")
+    ax1.set_title("Heat release and mass fraction burned" if s.get("mode") != "motored"
+                  else "Motored: no heat release; wall heat rate")
     files.append(_save(fig, out / "heat_release.png"))
 
     if "intake_lift_mm" in t:
@@ -141,26 +145,57 @@ def plot_case(res, out: Path) -> list[Path]:
         files.append(_save(fig, out / "valves.png"))
 
     eb = s.get("energy_balance")
-    if isinstance(eb, dict) and "fuel_energy_J" in eb:
-        base = eb["fuel_energy_J"]
-        keys = [k for k in eb if k not in ("fuel_energy_J", "closure_fraction")]
-        vals = [100 * eb[k] / base for k in keys]
-        from .output import energy_label
-
-        labels = [energy_label(k) for k in keys]
-        fig, ax = plt.subplots(figsize=(7.5, 4.2))
-        colors = ["tab:green", "tab:olive", "tab:purple", "tab:red", "tab:brown", "tab:gray", "0.7", "0.85"]
-        bars = ax.barh(labels[::-1], vals[::-1], color=colors[: len(vals)][::-1])
-        for b, v in zip(bars, vals[::-1]):
-            right = v > -0.5
-            ax.text(max(v, 0.0) + 0.5 if right else v - 0.5, b.get_y() + b.get_height() / 2,
-                    f"{v:.1f} %".replace("-0.0", "0.0"), va="center", ha="left" if right else "right", fontsize=8)
-        ax.set_xlim(min(0.0, min(vals) - 3), max(vals) * 1.12 + 1)
-        ax.set_xlabel("share of fuel energy [%]")
-        ax.set_title(f"Where the fuel energy goes ({base:.0f} J per cylinder and cycle)")
-        ax.axvline(0, color="0.3", lw=0.6)
-        files.append(_save(fig, out / "energy_balance.png"))
+    if isinstance(eb, dict) and _basis_positive(eb):
+        files.append(plot_energy_balance(eb, s.get("unreleased_energy"), out / "energy_balance.png"))
     return files
+
+
+def _basis_positive(eb: dict) -> bool:
+    from .motoring import energy_basis
+
+    v = eb[energy_basis(eb)[0]]
+    return bool(np.isfinite(v) and v > 0)
+
+
+def plot_energy_balance(eb: dict, unreleased: dict | None, path: Path) -> Path:
+    """Bars of the energy-balance terms in % of its basis (fuel energy, chemical energy released
+    or, motored, the compression work); the unreleased chemical energy split by carrier."""
+    from .motoring import energy_basis
+    from .output import UNRELEASED_LABELS, energy_label
+
+    plt = _plt()
+    base_key, base_label = energy_basis(eb)
+    base = eb[base_key]
+    keys = [k for k in eb if k not in (base_key, "closure_fraction")]
+    vals = [100 * eb[k] / base for k in keys]
+    labels = [energy_label(k) for k in keys]
+    fig, ax = plt.subplots(figsize=(7.5, 4.2))
+    colors = ["tab:green", "tab:olive", "tab:purple", "tab:red", "tab:brown", "tab:gray", "0.7", "0.85", "0.6"]
+    ypos = np.arange(len(keys))[::-1]
+    for y, k, v, c in zip(ypos, keys, vals, colors):
+        if k == "unreleased_chemical_energy_J" and unreleased:
+            left = 0.0
+            for (kk, lab), cc in zip(UNRELEASED_LABELS, ("tab:gray", "0.55", "0.8")):
+                w = 100 * unreleased[kk] / base
+                ax.barh(y, w, left=left, color=cc, label=f"{lab} {w:.1f} %")
+                left += w
+        else:
+            ax.barh(y, v, color=c)
+        right = v > -0.5
+        ax.text(max(v, 0.0) + 0.5 if right else v - 0.5, y, f"{v:.1f} %".replace("-0.0 ", "0.0 "),
+                va="center", ha="left" if right else "right", fontsize=8)
+    ax.set_yticks(ypos, labels)
+    if unreleased and "unreleased_chemical_energy_J" in keys:
+        ax.legend(frameon=False, fontsize=7, loc="lower right", title="unreleased chemical energy", title_fontsize=7)
+    lo = min(vals)
+    ax.set_xlim(lo * 1.3 - 3 if lo < -0.5 else min(0.0, lo - 3), max(max(vals), 0.0) * 1.12 + 1)
+    ax.set_xlabel(f"share of the {base_label} [%]")
+    if base_key == "compression_work_J":
+        ax.set_title(f"Motored cycle: energy balance on {base:.0f} J of compression work")
+    else:
+        ax.set_title(f"Where the {base_label} goes ({base:.0f} J per cylinder and cycle)")
+    ax.axvline(0, color="0.3", lw=0.6)
+    return _save(fig, path)
 
 
 def plot_cut_bias(res, path: Path) -> Path:

@@ -159,12 +159,17 @@ def report_for_run(result, plots: bool = True) -> list[dict]:
                                                      "rows": _scalar_rows(s, ("energy_balance",))}})
     eb = s.get("energy_balance")
     if isinstance(eb, dict):
-        base = eb.get("fuel_energy_J") or eb.get("chemical_energy_released_J") or 1.0
+        from .motoring import energy_basis
+
+        base_key, base_label = energy_basis(eb)
+        base = eb[base_key]
         secs.append({"heading": "Energy balance", "table": {
-            "columns": ["term", "J", "% of fuel energy"],
-            "rows": [[k, v, 100 * v / base] for k, v in eb.items() if k != "closure_fraction"]}})
+            "columns": ["term", "J", f"% of {base_label}"],
+            "rows": [[k, v, 100 * v / base if base else None] for k, v in eb.items() if k != "closure_fraction"]}})
     if result.warnings:
         secs.append({"heading": "Warnings", "text": list(result.warnings)})
+    if getattr(result, "notes", None):
+        secs.append({"heading": "Notes", "text": list(result.notes)})
     if plots and result.trace:
         from .plots import plot_case
 

@@ -357,7 +357,9 @@ class _CaseTable:
         hs = np.array([float(species_h_mole(k, T_REF)) for k in names])
         self.h298_b = float(amounts @ hs)
         lhv_co, lhv_h2 = heating_value_CO_H2()
-        self.chem_b = float(prod["CO"]) * lhv_co + float(prod["H2"]) * lhv_h2
+        self.chem_b_co = float(prod["CO"]) * lhv_co
+        self.chem_b_h2 = float(prod["H2"]) * lhv_h2
+        self.chem_b = self.chem_b_co + self.chem_b_h2
         self.lhv = fuel.lhv_J_per_kg
         self.afr_stoich = fuel.afr_stoich
         self.complete = {k: float(v) for k, v in prod.items()}
@@ -440,7 +442,7 @@ class GasTables:
     the fresh charge at 298.15 K; h298_b [J/kg] that of its complete-combustion
     products (water-gas shift at :data:`K_WGS_COMPLETE` when rich); chem_b
     [J/kg] chemical energy left in those products (CO and H2), zero for
-    phi <= 1; so h298_u - h298_b = lhv_mix - chem_b; R_unburned [J/(kg K)].
+    phi <= 1, and its parts chem_b_co, chem_b_h2 [J/kg]; so h298_u - h298_b = lhv_mix - chem_b; R_unburned [J/(kg K)].
 
     Notes
     -----
@@ -474,6 +476,8 @@ class GasTables:
         self.h298_u = np.array([c.h298_u for c in cases])
         self.h298_b = np.array([c.h298_b for c in cases])
         self.chem_b = np.array([c.chem_b for c in cases])
+        self.chem_b_co = np.array([c.chem_b_co for c in cases])
+        self.chem_b_h2 = np.array([c.chem_b_h2 for c in cases])
         self.afr_stoich = np.array([c.afr_stoich for c in cases])
         self.R_unburned = np.array([c.R_u for c in cases])
         # fresh charge: per case [low u coefs | low cv coefs] and high, rows b*2 + (T > T_MID)

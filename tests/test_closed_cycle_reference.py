@@ -378,7 +378,7 @@ def _assert_same_figures(alone, inside, rtol=1e-9):
                 # closure terms are differences of large numbers: compare on the fuel-energy scale
                 scale = max(abs(vv), 1e-6 * abs(alone.summary["fuel_energy_J"]))
                 assert abs(w[kk] - vv) <= rtol * scale, f"{key}.{kk}"
-        elif isinstance(v, bool):
+        elif isinstance(v, (bool, str)):
             assert v == w, key
         else:
             assert np.isclose(w, v, rtol=rtol, atol=0.0, equal_nan=True), key

@@ -99,7 +99,7 @@ def assert_same_results(got, ref, rtol=RTOL, what=""):
         b = got.summary[key]
         if isinstance(a, dict):
             continue
-        if isinstance(a, bool):
+        if isinstance(a, (bool, str)):
             assert a == b, (what, key, a, b)
             continue
         if not (math.isfinite(a) and math.isfinite(b)):

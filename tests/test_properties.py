@@ -88,8 +88,16 @@ def _check_failure_message(res):
 
 
 def _check_finite(res, motored_window=None):
+    from cyclesim.motoring import COMBUSTION_ONLY_KEYS, MOTORED_ONLY_KEYS
+
+    # figures with no meaning in the case's mode (fired or motored) are NaN, every other one finite
+    null = MOTORED_ONLY_KEYS if res.summary["mode"] == "fired" else COMBUSTION_ONLY_KEYS
     for key, v in res.summary.items():
-        if isinstance(v, dict):
+        if key == "mode":
+            assert v in ("fired", "motored")
+        elif key in null:
+            assert np.isnan(v), f"{key} = {v} (no meaning in a {res.summary['mode']} case)"
+        elif isinstance(v, dict):
             for kk, vv in v.items():
                 assert np.isfinite(vv), f"{key}.{kk} = {vv}"
         elif key == "bsfc_g_per_kWh" and res.summary.get("bmep_bar", 1.0) <= 0.0:

@@ -51,6 +51,13 @@ the change each step makes:
 5. ``speed``: after each cut the operator re-sets the speed, to within
    ``speed_error_rpm``: the cut readings are taken that far off speed.
 
+A motored base (no fuel burns: ``operating.fuel_cut`` or ``burn.model: none``) has nothing to cut:
+the study then runs the motoring test instead (:func:`motoring_test`): the dynamometer drives the
+whole engine, the power it absorbs is read as friction, against the friction model's truth; the
+bias is the engine's pumping work less its gross indicated work (the compression and expansion
+losses), with the manifold coupling and the walls' motored temperatures switched on in turn when
+``manifolds`` and ``walls`` are among the effects.
+
 The split of the total bias among the effects depends on that order (the
 effects interact: wall cooling matters only once the cut cylinder's work is
 counted, say).  Left out: friction's dependence on oil and coolant
@@ -72,10 +79,11 @@ from ..config import Case, case_with, resolve_case
 from ..engine import EngineResult, EngineSetup, simulate_engines
 from ..errors import ConfigError
 from ..figures import friction_components
+from ..motoring import is_motored_config
 from ..output import CAUTION, atomic_write_text, write_rows_csv
 from ..output import plain as _plain
 
-__all__ = ["cylinder_cut_test", "CylinderCutResult", "EFFECTS", "cut_estimate"]
+__all__ = ["cylinder_cut_test", "CylinderCutResult", "EFFECTS", "cut_estimate", "motoring_test"]
 
 EFFECTS = ("pumping", "pressure_friction", "manifolds", "walls", "speed")
 EFFECT_TEXT = {
@@ -127,6 +135,8 @@ class CylinderCutResult:
                           "Estimates: IP_k = B_all - B_cut_k; IP = sum IP_k; FP = IP - B_all."]}
 
     def text(self) -> str:
+        if self.settings.get("operation") == "motored":
+            return self._motoring_text()
         lines = [f"cylinder-cut friction test: {self.label}, {self.speed_rpm:.0f} rpm",
                  "  step               brake all  est. IP  true IP  IP bias   est. FP  true FP  FP bias"
                  "   step's FP bias",
@@ -165,6 +175,72 @@ class CylinderCutResult:
                      " true from the model")
         lines.append("CAUTION: " + CAUTION)
         return "\n".join(lines)
+
+
+    def _motoring_text(self) -> str:
+        lines = [f"motoring friction test: {self.label}, {self.speed_rpm:.0f} rpm (the base burns no fuel: nothing"
+                 f" to cut; the dyno drives the whole engine)",
+                 "  step               absorbed  true FP  FP bias  FP bias  pumping  gross IP   step's FP bias",
+                 "                           kW       kW       kW        %       kW        kW       kW"]
+        for s in self.steps:
+            lines.append(f"  {s['step']:<18s} {s['friction_est_kW']:9.3f} {s['friction_true_kW']:8.3f}"
+                         f" {s['friction_bias_kW']:+8.3f} {s['friction_bias_pct']:+8.2f} {s['pumping_kW']:8.3f}"
+                         f" {s['indicated_gross_kW']:+9.3f}  {s['friction_bias_step_kW']:+8.3f}")
+        for s in self.steps:
+            lines.append(f"    {s['step']}: {MOTORING_TEXT[s['step']]}")
+        last = self.steps[-1]
+        lines.append(f"  the absorbed power reads friction {last['friction_bias_kW']:+.3f} kW"
+                     f" ({last['friction_bias_pct']:+.1f} %) off the model's mechanical friction: the pumping"
+                     f" loop and the heat lost in compression and expansion are read as friction.")
+        lines.append("  FP: friction power (estimate: the power the dyno absorbs), IP: indicated power; friction"
+                     " from the friction model on the motored traces")
+        lines.append("CAUTION: " + CAUTION)
+        return "\n".join(lines)
+
+
+MOTORING_TEXT = {
+    "motoring": "every cylinder motored, manifolds at the operating point's plenum pressures, walls as configured",
+    "manifolds": "+ shared intake and exhaust manifolds",
+    "walls": "+ lumped walls settled at their motored temperatures",
+}
+
+
+def motoring_test(case: Case, label: str, effects: Sequence[str] = EFFECTS, progress=None) -> CylinderCutResult:
+    """The motoring friction test of a motored engine: absorbed power against the model's friction.
+
+    Steps: ``motoring`` (manifolds constant, walls as configured), then ``manifolds`` (coupled)
+    and ``walls`` (lumped, settled at the motored state) where they are among ``effects``, each
+    keeping the ones before.
+    """
+    keys = ["motoring"] + [e for e in ("manifolds", "walls") if e in effects]
+    n = int(case.engine.cylinders)
+    setups = []
+    for i in range(len(keys)):
+        on = set(keys[: i + 1])
+        # every cylinder "cut" (fuel and spark off, valves working): motored, whatever the burn model
+        setups.append(EngineSetup(case, ("cut",) * n, manifolds="coupled" if "manifolds" in on else "constant",
+                                  walls="lumped" if "walls" in on else "fixed", label=f"motored ({keys[i]})"))
+    res = simulate_engines(setups, progress=None if progress is None else (lambda m: progress(f"motoring: {m}")))
+    steps = []
+    prev = 0.0
+    for key, r in zip(keys, res):
+        e = r.engine
+        est = -float(e["brake_power_kW"])
+        true = float(e["friction_power_kW"])
+        fb = est - true
+        steps.append({"step": key, "brake_all_kW": float(e["brake_power_kW"]), "friction_est_kW": est,
+                      "friction_true_kW": true, "friction_bias_kW": fb, "friction_bias_pct": 100 * fb / true,
+                      "friction_bias_step_kW": fb - prev, "pumping_kW": float(e["pumping_power_kW"]),
+                      "indicated_gross_kW": float(e["indicated_power_gross_kW"]),
+                      "indicated_est_kW": 0.0, "indicated_true_kW": float(e["indicated_power_kW"]),
+                      "fmep_true_bar": float(e["fmep_bar"])})
+        prev = fb
+    cyl = [{"cylinder": c["cylinder"], "estimate_kW": 0.0,
+            "truth_kW": c["imep_net_bar"] * 1e5 * math.pi / 4 * (case.engine.bore_mm * 1e-3) ** 2
+            * case.engine.stroke_mm * 1e-3 * float(case.operating.speed_rpm) / 120.0 / 1e3, "bias_pct": float("nan")}
+           for c in res[-1].cylinders]
+    settings = {"operation": "motored", "effects": keys[1:], "friction_model": case.submodels["friction"].model}
+    return CylinderCutResult(label, float(case.operating.speed_rpm), steps, cyl, settings)
 
 
 def _friction_fmep_bar(res: EngineResult, model: str, case: Case) -> float:
@@ -224,6 +300,11 @@ def cylinder_cut_test(config="demo", overrides: Sequence[str] = (), effects: Seq
         raise ConfigError("the cylinder-cut test needs engine.cylinders >= 2")
     if case.simulation.mode != "full":
         raise ConfigError("the cylinder-cut test needs simulation.mode: full")
+    if is_motored_config(case):
+        res = motoring_test(case, label, effects, progress)
+        if out is not None:
+            _write(res, Path(out), plots)
+        return res
     speed = float(case.operating.speed_rpm)
     vd = math.pi / 4 * (case.engine.bore_mm * 1e-3) ** 2 * case.engine.stroke_mm * 1e-3
     fire = ("fire",) * n
@@ -327,6 +408,9 @@ def _write(res: CylinderCutResult, out: Path, plots: bool) -> None:
     cols = ["step", "brake_all_kW", "indicated_est_kW", "indicated_true_kW", "indicated_bias_pct",
             "friction_est_kW", "friction_true_kW", "friction_bias_kW", "friction_bias_pct", "friction_bias_step_kW",
             "fmep_est_bar", "fmep_true_bar"]
+    if res.settings.get("operation") == "motored":
+        cols = ["step", "brake_all_kW", "friction_est_kW", "friction_true_kW", "friction_bias_kW", "friction_bias_pct",
+                "friction_bias_step_kW", "pumping_kW", "indicated_gross_kW", "fmep_true_bar"]
     write_rows_csv(out / CSV_NAME, res.steps, cols)
     write_rows_csv(out / CYL_CSV_NAME, res.cylinders, ["cylinder", "estimate_kW", "truth_kW", "bias_pct"])
     files = [out / CSV_NAME, out / CYL_CSV_NAME]

@@ -20,6 +20,13 @@ the end of an arm of length ``L``: brake torque ``T = F L``, brake power
   monotone cubic; the ODE is integrated cycle by cycle (one step per engine
   cycle, 2 revolutions, the torque being a cycle mean).
 
+A motored engine (no fuel burns: ``operating.fuel_cut`` or ``burn.model: none``) runs only
+speed-controlled: the dyno drives it at the set speed, the load cell reads the torque it applies
+(negative force on the arm), reported as the motoring torque and power absorbed, friction plus
+pumping minus the gross indicated work (Heywood 1988, sec. 2.7); no correction to reference
+conditions is applied (the standards rate power produced).  Torque-controlled operation is
+refused: a motored engine has no torque to settle against a load.
+
 Power correction to standard reference conditions (99 kPa dry-air pressure,
 298 K), factors from memory (consult the standards for the exact texts):
 
@@ -141,10 +148,12 @@ class DynoResult:
     files: list = field(default_factory=list)
     base_config: str = ""
     caution: str = CAUTION
+    motored: bool = False
 
     def figures(self) -> dict:
         return _plain({
             "caution": self.caution, "base_config": self.base_config, "mode": self.mode,
+            "operation": "motored" if self.motored else "fired",
             "reading": self.reading, "correction": self.correction, "settled": self.settled,
             "engine_torque_curve": self.engine_curve, "warnings": self.warnings, "notes": self.notes,
             "readings": self.readings, "files": [Path(f).name for f in self.files],
@@ -152,10 +161,28 @@ class DynoResult:
 
     def text(self) -> str:
         r, c = self.reading, self.correction
-        lines = [f"virtual dyno: {self.base_config}, {self.mode}-controlled"]
+        lines = [f"virtual dyno: {self.base_config}, {self.mode}-controlled"
+                 + (", MOTORED (the dyno drives the engine)" if self.motored else "")]
 
         def row(label, v, unit, spec=".2f"):
             lines.append(f"  {label:<40s}{'-' if v is None else format(v, spec):>10s}  {unit}")
+
+        if self.motored:
+            row("speed", r["speed_rpm"], "rpm", ".1f")
+            row("load-cell force", r["force_N"], "N", ".2f")
+            row("arm length", r["arm_m"], "m", ".3f")
+            row("motoring torque absorbed (-force x arm)", r["motoring_torque_Nm"], "N m", ".2f")
+            row("motoring power absorbed (2 pi N T)", r["motoring_power_kW"], "kW", ".2f")
+            if r.get("readings", 1) > 1:
+                row("readings averaged", r["readings"], "", "d")
+                row("standard error of torque", r.get("torque_se_Nm"), "N m", ".2f")
+            row("motoring MEP of the model (= -BMEP)", r.get("motoring_mep_bar"), "bar", ".3f")
+            for w in self.warnings:
+                lines.append(f"warning: {w}")
+            for n in self.notes:
+                lines.append(f"note: {n}")
+            lines.append(f"CAUTION: {self.caution}")
+            return "\n".join(lines)
 
         row("speed", r["speed_rpm"], "rpm", ".1f")
         row("load-cell force", r["force_N"], "N", ".2f")
@@ -304,6 +331,7 @@ def dyno_test(
     curve: list = []
     settled: dict = {}
 
+    motored = False
     if mode == "speed":
         res = simulate([case])[0]
         if res.error:
@@ -311,6 +339,7 @@ def dyno_test(
         N_true, T_true = N0, float(res.summary["torque_Nm"])
         fuel_mg = float(res.summary["fuel_mass_mg"])
         warn = list(res.warnings)
+        motored = res.summary.get("mode") == "motored"
     else:
         grid = np.array(sorted(speed_grid_rpm) if speed_grid_rpm is not None
                         else np.linspace(0.7, 1.2, 5) * N0, float)
@@ -320,6 +349,10 @@ def dyno_test(
         bad = [f"{n:g} rpm: {r.error}" for n, r in zip(grid, results) if r.error]
         if bad:
             raise SolverError("dyno: " + "; ".join(bad))
+        if any(r.summary.get("mode") == "motored" for r in results):
+            raise ConfigError("dyno: a motored engine (no fuel burns) makes no torque to settle against a load;"
+                              " run it speed-controlled (--mode speed): the dyno then drives it and reads the"
+                              " power it absorbs")
         Te = np.array([r.summary["torque_Nm"] for r in results])
         fuel = np.array([r.summary["fuel_mass_mg"] for r in results])
         curve = [{"speed_rpm": float(n), "torque_Nm": float(t)} for n, t in zip(grid, Te)]
@@ -406,14 +439,28 @@ def dyno_test(
         reading["speed_se_rpm"] = float(np.std(Ns, ddof=1) / math.sqrt(n_read))
     corr = _correction(P, T, ambient_pressure_kPa, ambient_temperature_K, relative_humidity, standard)
     warnings = list(dict.fromkeys(warn))
-    if not corr["within_validity"]:
+    if motored:
+        reading.update(motoring_torque_Nm=-T, motoring_power_kW=-P, true_motoring_torque_Nm=-T_true,
+                       motoring_mep_bar=float(res.summary["motoring_mep_bar"]), fuel_flow_kg_per_h=None,
+                       bsfc_g_per_kWh=None)
+        corr = {"standard": None, "applied": False,
+                "reason": "the reference-condition corrections rate power produced, not power absorbed"}
+        res_notes.append("motored: no fuel burns; the dyno drives the engine at the set speed and its load cell"
+                         " reads the torque it applies, the motoring torque = friction + pumping - gross"
+                         " indicated work (Heywood 1988, sec. 2.7)")
+        res_notes.extend(n for n in res.notes if n.startswith("friction from"))
+        res_notes.append("no correction to reference conditions: SAE J1349 and ISO 1585 correct the power an"
+                         " engine produces, not the power it absorbs")
+    elif not corr["within_validity"]:
         lo, hi = corr["validity"]
         warnings.append(f"{standard} correction factor {corr['factor']:.3f} is outside its validity range"
                         f" {lo:g}..{hi:g}: the corrected power is not a valid rating")
-    res_notes.append("correction factors are quoted from memory; consult the standard before rating an engine")
-    res_notes.append("humidity enters only through the dry-air pressure: its effect on the burn is not modelled")
+    if not motored:
+        res_notes.append("correction factors are quoted from memory; consult the standard before rating an engine")
+        res_notes.append("humidity enters only through the dry-air pressure: its effect on the burn is not modelled")
     d = DynoResult(mode=mode, reading=reading, readings=readings, correction=corr, settling=settling,
-                   engine_curve=curve, settled=settled, warnings=warnings, notes=res_notes, base_config=label)
+                   engine_curve=curve, settled=settled, warnings=warnings, notes=res_notes, base_config=label,
+                   motored=motored)
     if out is not None:
         out = Path(out)
         out.mkdir(parents=True, exist_ok=True)

@@ -139,6 +139,7 @@ class LossBreakdown:
     compression_ratio: float
     base_config: str = ""
     second: "LossBreakdown | None" = None
+    unreleased: dict = field(default_factory=dict)
     notes: list = field(default_factory=list)
     files: list = field(default_factory=list)
     caution: str = CAUTION
@@ -172,6 +173,7 @@ class LossBreakdown:
             "steps": self.rows(),
             "brake_efficiency": self.steps[-1]["efficiency"],
             "sum_of_losses_points": float(np.sum(self.losses)),
+            "unreleased_chemical_energy_points": dict(self.unreleased),
             "notes": list(self.notes),
             "files": [Path(f).name for f in self.files],
         }
@@ -189,6 +191,11 @@ class LossBreakdown:
         lines.append(f"  Otto formula 1 - r^(1-gamma) = {100 * self.otto_formula:.2f} % (step 0 simulates it: a"
                      f" 1-deg burn about TDC at the integration step, {100 * abs(self.steps[0]['efficiency'] - self.otto_formula):.2f}"
                      f" points off); losses add up to {float(np.sum(self.losses)):.2f} points")
+        if self.unreleased:
+            u = self.unreleased
+            lines.append(f"  unreleased chemical energy of the full cycle (exhaust, blowby): {u['total']:.2f} % of the fuel"
+                         f" energy = CO {u['CO']:.2f} + H2 {u['H2']:.2f} + unburned fuel {u['unburned_fuel']:.2f}"
+                         f" (energy, not efficiency points: an unreleased joule costs only its share of work)")
         if self.second is not None:
             lines.append(f"second order: {' > '.join(self.second.order)}")
             for a in self.second.steps[1:]:
@@ -318,6 +325,19 @@ def _steps_from(order, closed_eta, full, comp_eff_note=None) -> list[dict]:
     return steps
 
 
+def _unreleased_points(full) -> dict:
+    """The full cycle's unreleased chemical energy (exhaust and blowby) by carrier, in points of the
+    inducted fuel energy (the basis of the energy balance's split, see :mod:`cyclesim.figures`)."""
+    s = full.summary
+    un, eb = s.get("unreleased_energy"), s.get("energy_balance", {})
+    fuel = eb.get("fuel_energy_J")
+    if not un or not fuel:
+        return {}
+    out = {k: 100.0 * un[f"{k}_J"] / fuel for k in ("CO", "H2", "unburned_fuel")}
+    out["total"] = 100.0 * eb["unreleased_chemical_energy_J"] / fuel
+    return out
+
+
 def _closed_etas(case: Case, order: tuple, ivc_state: dict, step_deg: float) -> list[float]:
     from ..api import simulate
 
@@ -384,8 +404,11 @@ def loss_breakdown(
         raise ConfigError(f"closed_step_deg {closed_step_deg!r}: expected 0.01 to 1 deg")
     order = _validate_order(order if order is not None else DEFAULT_ORDER)
     notes = []
-    if case.submodels["burn"].model == "none":
-        raise ConfigError("loss breakdown: burn.model is 'none' (motored): there is no fuel energy to account for")
+    from ..motoring import is_motored_config
+
+    if is_motored_config(case):
+        raise ConfigError("loss breakdown: the case is motored (burn.model 'none' or operating.fuel_cut): there is"
+                          " no fuel energy to account for; `cyclesim run` gives a motored point's figures")
     if "combustion_efficiency" not in case.submodels["burn"].params:
         notes.append("the burn model has no combustion_efficiency: the incomplete-combustion step is zero")
 
@@ -402,6 +425,11 @@ def loss_breakdown(
                        notes=notes)
     lb.notes.append("the split of the losses depends on the order in which the effects are switched on;"
                     " the total from Otto to brake does not")
+    lb.unreleased = _unreleased_points(full)
+    if lb.unreleased.get("CO", 0.0) + lb.unreleased.get("H2", 0.0) > 0.05:
+        lb.notes.append("the CO and H2 a rich mixture's products keep are lost within the real-gas step (its"
+                        " complete-combustion products with the water-gas shift frozen at K = 3.5, Heywood 1988"
+                        " sec. 4.9.1, from memory); the incomplete-combustion step is the burn model's unburned fuel")
     ge = next((x for x in lb.steps if x["key"] == "gas_exchange"), None)
     if ge is not None and ge["loss_points"] < 0:
         lb.notes.append("the gas-exchange step gains: the closed cycle ends at EVO, so it counts none of the work"
@@ -487,5 +515,10 @@ def plot_waterfall(lb: LossBreakdown, path: Path) -> Path:
                f"order: {_order_text(lb.order)}")
     if lb.second is not None:
         _waterfall(axes[0, 1], lb.second, f"the same, second order\norder: {_order_text(lb.second.order)}")
+    u = lb.unreleased
+    if u:
+        axes[0, 0].text(0.99, 0.97, f"unreleased chemical energy (full cycle):\n{u['total']:.1f} % of the fuel energy ="
+                        f" CO {u['CO']:.1f} + H2 {u['H2']:.1f}\n+ unburned fuel {u['unburned_fuel']:.1f}",
+                        transform=axes[0, 0].transAxes, ha="right", va="top", fontsize=7.5)
     fig.text(0.01, 0.005, "The split depends on the order in which the effects are switched on.", fontsize=7.5)
     return _save(fig, Path(path))

@@ -392,6 +392,11 @@ def _least_within(st: SparkStudy, a_min: float) -> tuple[float | None, str]:
 def _check_burn_model(case: Case) -> None:
     from ..registry import get_registry
 
+    from ..motoring import is_motored_config
+
+    if is_motored_config(case):
+        raise ConfigError("the case is motored (operating.fuel_cut, or burn.model 'none'): no fuel burns and spark"
+                          " timing changes nothing; `cyclesim run` gives the motored figures")
     ch = case.submodels["burn"]
     cls = get_registry(tuple(case.plugins)).submodel_class("burn", ch.model)
     names = [p.name for p in cls.params]
