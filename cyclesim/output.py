@@ -13,6 +13,7 @@ from typing import Iterable
 import numpy as np
 
 from .errors import CyclesimError
+from .outdir import folder_entries
 
 CAUTION = (
     "Results are model estimates. On a real engine approach spark advance, boost and knock"
@@ -92,13 +93,14 @@ def prepare_out_dir(out: Path, force: bool, create: bool = True) -> Path:
     """Create the output folder; refuse to write into a non-empty one without ``force``.
 
     With ``create`` false only the checks run (nothing is made), for a command that creates the
-    folder once its work has succeeded.
+    folder once its work has succeeded.  The lock file of a run holding the folder
+    (:func:`cyclesim.outdir.folder_lock`) does not count as content.
     """
     out = Path(out)
     if out.exists():
         if not out.is_dir():
             raise CyclesimError(f"--out {out}: exists and is not a folder")
-        if any(out.iterdir()) and not force:
+        if folder_entries(out) and not force:
             raise CyclesimError(f"--out {out}: folder exists and is not empty; use --force to overwrite")
     if create:
         out.mkdir(parents=True, exist_ok=True)

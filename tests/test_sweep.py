@@ -208,7 +208,7 @@ def test_resume_refuses_a_different_sweep(base, tmp_path):
     sweep(base, [(SPARK, "10,20")], out=out)
     with pytest.raises(CyclesimError, match="different sweep"):
         sweep(base, [(SPARK, "10,30")], out=out, resume=True)
-    with pytest.raises(CyclesimError, match="different sweep"):
+    with pytest.raises(CyclesimError, match="different study.*varied keys"):
         sweep(base, [("operating.ivc_pressure_bar", "1,2")], out=out, resume=True)
 
 
