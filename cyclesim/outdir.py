@@ -39,7 +39,7 @@ try:
 except ImportError:  # pragma: no cover - not on POSIX
     fcntl = None  # type: ignore[assignment]
 
-__all__ = ["LOCK_NAME", "folder_lock", "folder_entries", "made_by_lock", "check_writable", "holder_text"]
+__all__ = ["LOCK_NAME", "folder_lock", "optional_lock", "folder_entries", "made_by_lock", "check_writable", "holder_text"]
 
 LOCK_NAME = ".cyclesim.lock"
 """Name of the lock file inside a locked output folder."""
@@ -247,6 +247,11 @@ def folder_lock(out: str | Path) -> Iterator[Path]:
         if h.count <= 0 and _held.get(key) is h:
             del _held[key]
             _release(h)
+
+
+def optional_lock(out: str | Path | None):
+    """:func:`folder_lock` of ``out``, or nothing when there is no output folder."""
+    return folder_lock(out) if out is not None else contextlib.nullcontext()
 
 
 def _release(h: _Held) -> None:

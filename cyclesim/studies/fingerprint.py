@@ -168,15 +168,18 @@ def _leaves(record: Mapping) -> dict[str, Any]:
     out: dict[str, Any] = {}
     out["tool version"] = record.get("tool")
     out["study"] = record.get("study")
+    out["base name"] = (record.get("base") or {}).get("name")
     for k, v in (record.get("options") or {}).items():
         out[f"option {k}"] = v
     vary = record.get("vary") or []
     out["varied keys"] = [item.get("key") for item in vary]
     for item in vary:
-        out[f"values of {item.get('key')}"] = item.get("values")
+        if "values" in item:
+            out[f"values of {item.get('key')}"] = item.get("values")
     out["paired"] = record.get("paired")
     for k, v in (record.get("base") or {}).items():
-        out[f"base {k}"] = v
+        if k != "name":
+            out[f"base {k}"] = v
     for k, v in (record.get("files") or {}).items():
         out[f"file of {k}"] = v
     return out

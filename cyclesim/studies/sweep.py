@@ -50,8 +50,8 @@ from ..params import suggestion
 from ..roles import ROLES
 from ..outdir import folder_lock
 from .fingerprint import check_fingerprint, digest, study_record, write_fingerprint
-from .sweep_files import (CSV_NAME, JSON_NAME, CsvSink, check_out, read_sweep_csv, resumed_rows, rows_on_disk,
-                          rows_text)
+from .sweep_files import (CSV_NAME, JSON_NAME, CsvSink, check_out, read_sweep_csv, resumed_rows, rows_text,
+                          write_failed)
 
 __all__ = ["sweep", "SweepResult", "parse_values", "parse_vary_arg", "read_sweep_csv"]
 
@@ -463,17 +463,6 @@ def _simulate_chunk(cases: list[Case]) -> list:
     return run_chunk(cases)
 
 
-def _write_failed(out: Path, exc: OSError, done: int, total: int) -> CyclesimError:
-    """One line for a write into ``out`` that failed mid-run: what is kept, how to go on."""
-    name = Path(exc.filename).name if getattr(exc, "filename", None) else "a result file"
-    kept = rows_on_disk(out / CSV_NAME)
-    return CyclesimError(
-        f"--out {out}: writing {name} failed ({exc.strerror or type(exc).__name__}) after {done} of {total}"
-        f" cases; {kept} finished rows are kept in {out / CSV_NAME}: make the folder writable (or free"
-        " space) and run the same command with --resume to continue"
-    )
-
-
 class _Run:
     """The run of one sweep's plan: rows kept from an earlier run, chunks, files."""
 
@@ -505,7 +494,7 @@ class _Run:
             if rows:
                 sink.start(columns, [rows[i] for i in sorted(rows)])   # clean copy, whole rows only
         except OSError as exc:
-            raise _write_failed(out_path, exc, len(rows), len(plan)) from None
+            raise write_failed(out_path, exc, len(rows), len(plan)) from None
         return rows, columns, sink
 
     def execute(self, resume: bool, force: bool, record: dict) -> SweepResult:
@@ -563,7 +552,7 @@ class _Run:
                 try:
                     sink.add([new[i] for i in idx], ordered, columns)
                 except OSError as exc:
-                    raise _write_failed(out_path, exc, len(rows), len(plan)) from None
+                    raise write_failed(out_path, exc, len(rows), len(plan)) from None
             done += len(idx)
             if report is not None:
                 report(done, len(plan), time.perf_counter() - t0)
@@ -600,7 +589,7 @@ class _Run:
                 result.to_csv(out_path / CSV_NAME)      # final copy in case order, same columns as the JSON
                 result.to_json(out_path / JSON_NAME)
             except OSError as exc:
-                raise _write_failed(out_path, exc, len(plan), len(plan)) from None
+                raise write_failed(out_path, exc, len(plan), len(plan)) from None
         return result
 
 

@@ -23,7 +23,7 @@ JSON_NAME = "sweep.json"
 _INT_RE = re.compile(r"^[+-]?\d+$")
 
 __all__ = ["CSV_NAME", "JSON_NAME", "cell", "rows_text", "read_sweep_csv", "same_value", "CsvSink",
-           "check_out", "resumed_rows", "rows_on_disk"]
+           "check_out", "resumed_rows", "rows_on_disk", "write_failed"]
 
 
 def cell(v: Any) -> str:
@@ -173,3 +173,14 @@ def rows_on_disk(path: Path) -> int:
         return len(read_sweep_csv(path)[1]) if Path(path).exists() else 0
     except (OSError, CyclesimError):
         return 0
+
+
+def write_failed(out: Path, exc: OSError, done: int, total: int) -> CyclesimError:
+    """One line for a write into ``out`` that failed mid-run: what is kept, how to go on."""
+    name = Path(exc.filename).name if getattr(exc, "filename", None) else "a result file"
+    kept = rows_on_disk(out / CSV_NAME)
+    return CyclesimError(
+        f"--out {out}: writing {name} failed ({exc.strerror or type(exc).__name__}) after {done} of {total}"
+        f" cases; {kept} finished rows are kept in {out / CSV_NAME}: make the folder writable (or free"
+        " space) and run the same command with --resume to continue"
+    )
