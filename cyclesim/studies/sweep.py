@@ -15,7 +15,7 @@ caution) is written at the end.  ``resume=True`` keeps the rows already in
 ``sweep.csv`` and runs only the missing cases, so an interrupted sweep
 continues where it stopped, provided the folder's ``study.fingerprint`` shows
 the same study (base case fully resolved, varied values, submodels, options,
-tool version; :mod:`cyclesim.studies.fingerprint`): otherwise the resume is
+tool version; :mod:`cyclesim.fingerprint`): otherwise the resume is
 refused, naming what differs.  The folder is locked for the whole run
 (:func:`cyclesim.outdir.folder_lock`): a second sweep into it is refused.  A case that fails (invalid value, solver
 failure) is recorded with its error message; the others go on.
@@ -49,7 +49,7 @@ from ..output import CAUTION, atomic_write_text
 from ..params import suggestion
 from ..roles import ROLES
 from ..outdir import folder_lock
-from .fingerprint import check_fingerprint, digest, study_record, write_fingerprint
+from ..fingerprint import check_fingerprint, digest, study_record, write_fingerprint
 from .sweep_files import (CSV_NAME, JSON_NAME, CsvSink, check_out, read_sweep_csv, resumed_rows, rows_text,
                           write_failed)
 
@@ -670,7 +670,7 @@ def sweep(
         unequal lengths in a paired sweep.
     CyclesimError
         ``out`` not empty without ``resume``/``force``; a resume folder
-        written by a different study (see :mod:`cyclesim.studies.fingerprint`);
+        written by a different study (see :mod:`cyclesim.fingerprint`);
         ``out`` in use by another run, or not writable (before anything runs);
         a write that fails mid-run (the rows on disk stay; the message says how
         to resume).

@@ -1,7 +1,7 @@
 """The files of a sweep: CSV cells, reading ``sweep.csv``, appending rows, the output folder.
 
 Used by :mod:`cyclesim.studies.sweep`; what makes a resumed study the same
-study is in :mod:`cyclesim.studies.fingerprint`.
+study is in :mod:`cyclesim.fingerprint`.
 """
 
 from __future__ import annotations

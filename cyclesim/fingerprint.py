@@ -32,9 +32,9 @@ import math
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
-from ..config import CORE_SCHEMA, MULTI_SCHEMA, Case, flat_inputs
-from ..errors import CyclesimError
-from ..output import atomic_write_text
+from .config import CORE_SCHEMA, MULTI_SCHEMA, Case, flat_inputs
+from .errors import CyclesimError
+from .output import atomic_write_text
 
 __all__ = ["FINGERPRINT_NAME", "study_record", "digest", "differences", "write_fingerprint",
            "check_fingerprint", "refuse_if_different"]
@@ -85,7 +85,7 @@ def _find(spec: str, base_dir: Path) -> Path | None:
 
 def _files(case: Case, skip: set[str]) -> dict[str, str]:
     """Digest of each file the case reads: tables and paths of its parameters, plug-in files."""
-    from ..registry import get_registry
+    from .registry import get_registry
 
     out: dict[str, str] = {}
     declared: list[tuple[str, Any]] = []
@@ -129,7 +129,7 @@ def study_record(study: str, base: Case, values: Mapping[str, Sequence], paired:
     options : mapping, optional
         The study's own options that change its figures.
     """
-    from .. import __version__
+    from . import __version__
 
     skip = set(values)
     inputs = {k: v for k, v in flat_inputs(base).items() if k not in skip}
