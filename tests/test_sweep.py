@@ -260,7 +260,7 @@ def test_a_value_of_the_wrong_kind_is_refused_before_anything_runs(base, tmp_pat
     for key, spec, words in (("operating.speed_rpm", "1000,abc", "'abc' is not a value of this key (expected a number"),
                              ("simulation.max_cycles", "3,4.5", "4.5 is not a value of this key (expected a whole"),
                              ("burn.model", "wiebe,nosuch", "unknown burn model")):
-        with pytest.raises(ConfigError, match=re.escape(words)) as exc:
+        with pytest.raises(CyclesimError, match=re.escape(words)) as exc:
             sweep(base, [(key, spec)], out=out)
         assert "\n" not in str(exc.value)
         assert not out.exists()                                        # nothing simulated, nothing written
