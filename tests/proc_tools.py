@@ -85,4 +85,16 @@ def end(proc: subprocess.Popen) -> None:
     """Make sure a started run is over (for the tests' cleanup)."""
     if proc.poll() is None:
         proc.send_signal(signal.SIGKILL)
-    proc.communicate()
+    try:
+        proc.communicate(timeout=10)
+    except subprocess.TimeoutExpired:      # its pipes held open by processes it left
+        pass
+
+
+def kill_all(procs: dict[int, str]) -> None:
+    """End those of ``procs`` (from :func:`children`) that still run, each by its id."""
+    for pid in alive(procs):
+        try:
+            os.kill(pid, signal.SIGKILL)
+        except OSError:
+            pass
