@@ -24,7 +24,9 @@ Backends
     thread (they start at once, plug-ins and gas tables loaded), else from a
     *forkserver* that has imported cyclesim once; elsewhere they are spawned
     (see :func:`start_method`).  With one worker the chunks run in this
-    process.
+    process.  A worker ends when the calling process does, however it ends
+    (:func:`cyclesim.stopping.end_with_parent`); an interrupted caller ends
+    its workers itself.
 ``"dask"``
     A Dask distributed cluster (``pip install "cyclesim[dask]"``): the
     scheduler at ``scheduler`` (e.g. ``"tcp://scheduler-host:8786"``), or a
