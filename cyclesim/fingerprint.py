@@ -20,8 +20,9 @@ the first row, with its digest; a resume compares the record it would write
 with the stored one and, where they differ, is refused with one line naming
 the differences.  A sweep's varied values may change on resume (to extend
 it): each kept row must then hold, at its case index, the values of the new
-plan, or the resume is refused (:func:`cyclesim.studies.sweep_files.resumed_rows`).  The keys varied by the study are left out of the base case
-(every case sets them).
+plan, or the resume is refused (:func:`cyclesim.studies.sweep_files.resumed_rows`).
+The keys varied by the study are left out of the base case (every case sets
+them).  The tool's version is the package's version string.
 """
 
 from __future__ import annotations

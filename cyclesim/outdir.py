@@ -39,7 +39,8 @@ try:
 except ImportError:  # pragma: no cover - not on POSIX
     fcntl = None  # type: ignore[assignment]
 
-__all__ = ["LOCK_NAME", "folder_lock", "optional_lock", "folder_entries", "made_by_lock", "check_writable", "holder_text"]
+__all__ = ["LOCK_NAME", "folder_lock", "optional_lock", "folder_entries", "made_by_lock", "check_writable",
+           "holder_text"]
 
 LOCK_NAME = ".cyclesim.lock"
 """Name of the lock file inside a locked output folder."""
@@ -101,9 +102,11 @@ def check_writable(out: Path) -> None:
 def holder_text(text: str) -> str:
     """'process 123 on host, since 2026-01-01 10:00:00 UTC' from a lock file's text."""
     fields = dict(line.split("=", 1) for line in text.splitlines() if "=" in line)
-    pid = fields.get("pid", "?").strip()
-    host = fields.get("host", "").strip()
-    since = fields.get("since", "").strip()
+
+    def field(name: str, default: str = "") -> str:       # printable characters only: the file may be anyone's
+        return "".join(ch for ch in fields.get(name, default) if ch.isprintable()).strip()
+
+    pid, host, since = field("pid", "?"), field("host"), field("since")
     where = f" on {host}" if host and host != socket.gethostname() else ""
     return f"process {pid[:12]}{where}" + (f", since {since[:32]}" if since else "")
 
