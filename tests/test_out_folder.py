@@ -225,3 +225,30 @@ def test_a_final_write_that_fails_keeps_every_row(base, tmp_path, monkeypatch):
     ran = []
     sweep(base, [(SPARK, "10,20,30")], out=out, resume=True, progress=lambda d, t, e: ran.append(d))
     assert ran == [3] and (out / "sweep.json").exists()                 # nothing simulated again
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
+def test_a_folder_made_immutable_mid_sweep_keeps_the_rows_and_resumes(tmp_path):
+    probe = tmp_path / "probe"
+    probe.mkdir()
+    if not _immutable(probe):
+        pytest.skip("no chattr +i on this file system")
+    subprocess.run(["chattr", "-i", str(probe)], check=True)
+    argv = ["sweep", "demo", "--vary", f"{SPARK}=0:30:2", "--chunk", "2", "--out", "imm", "--no-progress"]
+    out = tmp_path / "imm"
+    run = pt.start(argv, tmp_path)
+    try:
+        pt.wait_for(lambda: pt.csv_rows(out / "sweep.csv") >= 2, proc=run, what="the first rows")
+        assert _immutable(out)          # no new file from now on (appends to sweep.csv still go through)
+        stdout, err = run.communicate(timeout=120)
+    finally:
+        pt.end(run)
+        subprocess.run(["chattr", "-i", str(out)], check=True)
+    assert run.returncode == 2
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and "Traceback" not in err
+    assert "Operation not permitted" in lines[0] and "16 finished rows are kept" in lines[0]
+    assert "--resume" in lines[0]
+    again = pt.run([*argv, "--resume"], tmp_path)
+    assert again.returncode == 0, again.stderr
+    assert len(read_sweep_csv(out / "sweep.csv")[1]) == 16 and (out / "sweep.json").exists()
