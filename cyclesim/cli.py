@@ -7,6 +7,7 @@ Every error a user can cause prints one line and exits with status 2;
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
 import time
 from pathlib import Path
@@ -164,6 +165,10 @@ def cmd_show(args) -> int:
     return 0
 
 
+_FILE_OUT = ("report",)
+"""Commands whose ``--out`` is a file; every other command's ``--out`` folder is locked for its run."""
+
+
 def main(argv: list[str] | None = None) -> int:
     from .shell_hints import shell_split_hint
 
@@ -193,26 +198,39 @@ def main(argv: list[str] | None = None) -> int:
     from .cli_engine import HANDLERS as ENGINE_HANDLERS
 
     handlers.update(ENGINE_HANDLERS)
+    from .outdir import optional_lock
+    from .stopping import terminate_as_interrupt
+
+    out_folder = None if args.command in _FILE_OUT else getattr(args, "out", None)
+
     try:
         from . import kernel
 
         kernel.choice()        # the environment's loop settings, checked before anything is written
         kernel.threads()
-        return handlers[args.command](args)
+        with terminate_as_interrupt(), optional_lock(out_folder):   # SIGTERM like Ctrl-C; one writer per --out
+            return handlers[args.command](args)
     except CyclesimError as exc:
         if getattr(args, "debug", False):
             raise
         print(f"cyclesim: error: {exc}", file=sys.stderr)
         return exc.exit_code
-    except KeyboardInterrupt:
-        print("cyclesim: interrupted", file=sys.stderr)
-        return 130
+    except KeyboardInterrupt as exc:
+        signum = getattr(exc, "signum", signal.SIGINT)
+        print(f"cyclesim: {'terminated' if signum == signal.SIGTERM else 'interrupted'}", file=sys.stderr)
+        return 128 + int(signum)
     except BrokenPipeError:  # output piped into head & co.
         try:
             sys.stdout = None  # type: ignore[assignment]
         except Exception:  # noqa: BLE001
             pass
         return 0
+    except OSError as exc:     # a file the command writes or reads failed outside the checks above
+        if getattr(args, "debug", False):
+            raise
+        where = f": {exc.filename}" if getattr(exc, "filename", None) else ""
+        print(f"cyclesim: error: {exc.strerror or type(exc).__name__}{where}", file=sys.stderr)
+        return 2
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -28,7 +28,8 @@ def _common(p: argparse.ArgumentParser) -> None:
                    help="config file, or a built-in config name (default: demo)")
     p.add_argument("--out", type=Path, required=True, help="folder for the results")
     p.add_argument("--resume", action="store_true",
-                   help="keep the rows already in OUT/sweep.csv and run only the missing cases")
+                   help="keep the rows already in OUT/sweep.csv and run only the missing cases (refused,"
+                        " naming what differs, unless OUT/study.fingerprint shows the same study)")
     p.add_argument("--force", action="store_true", help="start again in a non-empty --out folder")
     p.add_argument("--chunk", type=int, default=64, metavar="N",
                    help="cases simulated together before their rows are written (default 64)")

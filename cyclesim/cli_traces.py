@@ -288,7 +288,9 @@ def cmd_traces(args) -> int:
                          ("partial_burn_rate", "--partial-rate"), ("misfire_rate", "--misfire-rate")):
             msg = msg.replace(f"traces: {lib} =", f"{opt}")        # the option the user typed
         raise ConfigError(msg) from None
-    created = not args.out.exists()
+    from .outdir import made_by_lock
+
+    created = not args.out.exists() or made_by_lock(args.out)     # (the folder's lock makes it)
     try:
         if args.resume:
             args.out.mkdir(parents=True, exist_ok=True)

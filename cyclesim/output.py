@@ -13,6 +13,7 @@ from typing import Iterable
 import numpy as np
 
 from .errors import CyclesimError
+from .outdir import folder_entries
 
 CAUTION = (
     "Results are model estimates. On a real engine approach spark advance, boost and knock"
@@ -73,18 +74,23 @@ def atomic_write_bytes(path: Path, data: bytes) -> None:
     """Write a file through a temporary file and a rename (never half-written)."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    except OSError as exc:    # named after the file meant, not the temporary one
+        raise type(exc)(exc.errno, exc.strerror, str(path)) from None
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
         # mkstemp makes the file private (0600); give it the mode a plain open() would
         os.chmod(tmp, 0o666 & ~_UMASK)
         os.replace(tmp, path)
-    except BaseException:
+    except BaseException as exc:
         try:
             os.unlink(tmp)
         except OSError:
             pass
+        if isinstance(exc, OSError) and exc.errno is not None:
+            raise type(exc)(exc.errno, exc.strerror, str(path)) from None
         raise
 
 
@@ -97,13 +103,14 @@ def prepare_out_dir(out: Path, force: bool, create: bool = True) -> Path:
     """Create the output folder; refuse to write into a non-empty one without ``force``.
 
     With ``create`` false only the checks run (nothing is made), for a command that creates the
-    folder once its work has succeeded.
+    folder once its work has succeeded.  The lock file of a run holding the folder
+    (:func:`cyclesim.outdir.folder_lock`) does not count as content.
     """
     out = Path(out)
     if out.exists():
         if not out.is_dir():
             raise CyclesimError(f"--out {out}: exists and is not a folder")
-        if any(out.iterdir()) and not force:
+        if folder_entries(out) and not force:
             raise CyclesimError(f"--out {out}: folder exists and is not empty; use --force to overwrite")
     if create:
         out.mkdir(parents=True, exist_ok=True)

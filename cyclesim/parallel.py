@@ -24,7 +24,9 @@ Backends
     thread (they start at once, plug-ins and gas tables loaded), else from a
     *forkserver* that has imported cyclesim once; elsewhere they are spawned
     (see :func:`start_method`).  With one worker the chunks run in this
-    process.
+    process.  A worker ends when the calling process does, however it ends
+    (:func:`cyclesim.stopping.end_with_parent`); an interrupted caller ends
+    its workers itself.
 ``"dask"``
     A Dask distributed cluster (``pip install "cyclesim[dask]"``): the
     scheduler at ``scheduler`` (e.g. ``"tcp://scheduler-host:8786"``), or a
@@ -431,11 +433,15 @@ def _mp_context(method: str):
     return ctx
 
 
-def _worker_init() -> None:
+def _worker_init(parent: int | None = None) -> None:
     # Ctrl-C goes to the whole process group: the caller handles it (cancels, ends its
     # workers, keeps the rows written), so the workers ignore it rather than each printing
     # a traceback.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    # a caller that dies (SIGKILL, a crash) takes its workers with it; SIGTERM ends a worker
+    from .stopping import end_with_parent
+
+    end_with_parent(parent)
     # the workers fill the CPUs already: one thread per compiled cycle each
     from . import kernel
 
@@ -448,6 +454,12 @@ def _end_workers(ex) -> None:
     import time
 
     procs = list((getattr(ex, "_processes", None) or {}).values())
+    # the pool forgets these on shutdown; they are needed below
+    result_queue = getattr(ex, "_result_queue", None)
+    call_queue = getattr(ex, "_call_queue", None)
+    thread = getattr(ex, "_executor_manager_thread", None)
+    if call_queue is not None and hasattr(call_queue, "cancel_join_thread"):
+        call_queue.cancel_join_thread()     # its feeder may be stuck writing to workers that are gone
     ex.shutdown(wait=False, cancel_futures=True)
     # the pool's manager thread may still start a worker after the shutdown: end every child
     # process of the pool until none is left (bounded wait)
@@ -476,6 +488,19 @@ def _end_workers(ex) -> None:
         if (not fresh and not any(p.is_alive() for p in procs)) or time.monotonic() > deadline:
             break
         time.sleep(0.05)
+    # A worker ended while it was sending a result leaves the pool's reading thread waiting for the
+    # rest of the message, and the process would hang at exit joining it.  This process holds the
+    # last writing end of that pipe once the workers are gone: closing it ends the wait (end of file).
+    writer = getattr(result_queue, "_writer", None)
+    if writer is not None and not any(p.is_alive() for p in procs):
+        try:
+            writer.close()
+        except OSError:
+            pass
+    # let that thread finish now, not while the interpreter shuts down (where its last steps race
+    # with the pool's exit hook and print an ignored exception)
+    if thread is not None and thread.is_alive():
+        thread.join(timeout=5.0)
 
 
 def _run_process(chunks: Iterable[Sequence], n: int, on_result: OnResult | None, max_pending: int,
@@ -486,7 +511,8 @@ def _run_process(chunks: Iterable[Sequence], n: int, on_result: OnResult | None,
     results = _Results(on_result)
     it = enumerate(chunks)
     method = start_method(method)
-    ex = ProcessPoolExecutor(max_workers=n, mp_context=_mp_context(method), initializer=_worker_init)
+    ex = ProcessPoolExecutor(max_workers=n, mp_context=_mp_context(method), initializer=_worker_init,
+                             initargs=(os.getpid() if method == "fork" else None,))
     pending: dict = {}
     ok = False
     try:

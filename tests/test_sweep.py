@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import re
 
 import numpy as np
 import pytest
@@ -208,7 +209,7 @@ def test_resume_refuses_a_different_sweep(base, tmp_path):
     sweep(base, [(SPARK, "10,20")], out=out)
     with pytest.raises(CyclesimError, match="different sweep"):
         sweep(base, [(SPARK, "10,30")], out=out, resume=True)
-    with pytest.raises(CyclesimError, match="different sweep"):
+    with pytest.raises(CyclesimError, match="different study.*varied keys"):
         sweep(base, [("operating.ivc_pressure_bar", "1,2")], out=out, resume=True)
 
 
@@ -252,3 +253,22 @@ def test_printed_table_shows_the_varied_keys_and_figures(base):
     assert float(lines[-1].split()[0]) == 40
     bad = sweep(base, [("burn.duration_deg", "40,-5")])
     assert bad.text().splitlines()[2].split() == ["-5", "failed"]
+
+
+def test_a_value_of_the_wrong_kind_is_refused_before_anything_runs(base, tmp_path, capsys):
+    out = tmp_path / "w"
+    for key, spec, words in (("operating.speed_rpm", "1000,abc", "'abc' is not a value of this key (expected a number"),
+                             ("simulation.max_cycles", "3,4.5", "4.5 is not a value of this key (expected a whole"),
+                             ("burn.model", "wiebe,nosuch", "unknown burn model")):
+        with pytest.raises(CyclesimError, match=re.escape(words)) as exc:
+            sweep(base, [(key, spec)], out=out)
+        assert "\n" not in str(exc.value)
+        assert not out.exists()                                        # nothing simulated, nothing written
+    from cyclesim.cli import main
+
+    assert main(["sweep", "demo", "--vary", "operating.speed_rpm=1000,abc", "--out", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "'abc'" in err[0] and "nothing was run" in err[0]
+    # a value of the right kind outside the range stays a failed case of its own (the contract above)
+    res = sweep(base, [("burn.duration_deg", "40,-5")])
+    assert res.failed == [1]

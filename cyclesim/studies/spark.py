@@ -37,6 +37,7 @@ mode) the study uses net, then closed-cycle IMEP.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 from dataclasses import dataclass, field
@@ -48,7 +49,9 @@ import numpy as np
 from ..config import Case, resolve_case
 from ..errors import ConfigError, CyclesimError
 from ..output import CAUTION, atomic_write_text
+from ..outdir import folder_lock
 from .sweep import CSV_NAME, JSON_NAME, SweepResult, parse_values, sweep
+from .sweep_files import write_failed
 
 __all__ = ["spark_study", "SparkStudy", "fit_torque_peak", "crossing_up", "SPARK_CAUTION"]
 
@@ -592,8 +595,27 @@ def spark_study(
     vals = parse_values(KEY, advances)
     if len(vals) < 3:
         raise ConfigError(f"--advance {advances!r}: at least 3 advances are needed to find MBT")
+    options = {"torque_fraction": torque_fraction, "knock_margin_deg": knock_margin_deg,
+               "p_max_limit_bar": p_max_limit_bar, "dp_limit_bar_per_deg": dp_limit_bar_per_deg,
+               "knock_min_unburned": knock_min_unburned, "fit_window_fraction": fit_window_fraction,
+               "knock_cycles": int(knock_cycles or 0), "knock_cycle_share": knock_cycle_share}
+    # the sweep and the study's own files: one writer in the folder for the whole study
+    with folder_lock(out) if out is not None else contextlib.nullcontext():
+        return _spark_study(case, label, vals, options, overrides, None if out is None else Path(out), resume,
+                            force, chunk_size, progress, plots, traces, (workers, backend, scheduler))
+
+
+def _spark_study(case: Case, label: str, vals: list, options: dict, overrides: Sequence[str], out: Path | None,
+                 resume: bool, force: bool, chunk_size: int, progress, plots: bool, traces: int,
+                 where: tuple) -> SparkStudy:
+    torque_fraction, knock_margin_deg = options["torque_fraction"], options["knock_margin_deg"]
+    p_max_limit_bar, dp_limit_bar_per_deg = options["p_max_limit_bar"], options["dp_limit_bar_per_deg"]
+    knock_min_unburned, fit_window_fraction = options["knock_min_unburned"], options["fit_window_fraction"]
+    knock_cycles, knock_cycle_share = options["knock_cycles"], options["knock_cycle_share"]
+    workers, backend, scheduler = where
     table = sweep(case, [(KEY, vals)], out=out, resume=resume, force=force, chunk_size=chunk_size,
-                  progress=progress, label=label, workers=workers, backend=backend, scheduler=scheduler)
+                  progress=progress, label=label, workers=workers, backend=backend, scheduler=scheduler,
+                  study="spark", study_options=options)
     table.metadata["overrides"] = list(overrides)
 
     tk = next((k for k in TORQUE_KEYS if k in table.columns and np.isfinite(table.column(k)).any()), None)
@@ -692,15 +714,17 @@ def spark_study(
         st.notes.append("no recommended advance: MBT lies beyond the sweep and no other limit was reached")
 
     if out is not None:
-        out = Path(out)
-        table.to_csv(out / CSV_NAME)
-        table.to_json(out / JSON_NAME)
-        files = [out / CSV_NAME, out / JSON_NAME]
-        if plots:
-            files.extend(plot_spark_study(st, out, traces=traces))
-        files.append(out / "spark_study.json")
-        st.files = files
-        atomic_write_text(out / "spark_study.json", json.dumps(st.figures(), indent=2) + "\n")
+        try:
+            table.to_csv(out / CSV_NAME)
+            table.to_json(out / JSON_NAME)
+            files = [out / CSV_NAME, out / JSON_NAME]
+            if plots:
+                files.extend(plot_spark_study(st, out, traces=traces))
+            files.append(out / "spark_study.json")
+            st.files = files
+            atomic_write_text(out / "spark_study.json", json.dumps(st.figures(), indent=2) + "\n")
+        except OSError as exc:
+            raise write_failed(out, exc, len(table.rows), len(table.rows)) from None
     return st
 
 

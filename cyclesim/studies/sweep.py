@@ -13,7 +13,11 @@ With ``out``, rows go to ``out/sweep.csv`` as each chunk of cases finishes
 (whole rows only, flushed), and ``out/sweep.json`` (rows plus metadata and the
 caution) is written at the end.  ``resume=True`` keeps the rows already in
 ``sweep.csv`` and runs only the missing cases, so an interrupted sweep
-continues where it stopped.  A case that fails (invalid value, solver
+continues where it stopped, provided the folder's ``study.fingerprint`` shows
+the same study (base case fully resolved, varied values, submodels, options,
+tool version; :mod:`cyclesim.fingerprint`): otherwise the resume is
+refused, naming what differs.  The folder is locked for the whole run
+(:func:`cyclesim.outdir.folder_lock`): a second sweep into it is refused.  A case that fails (invalid value, solver
 failure) is recorded with its error message; the others go on.
 
 Chunks run on several cores (``workers=2``, ``workers="auto"``) or on a Dask
@@ -27,16 +31,12 @@ bit for bit, as those of a serial run.
 
 from __future__ import annotations
 
-import csv
-import io
 import itertools
 import json
 import math
-import os
-import re
 import sys
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Callable, Iterable, Mapping, Sequence
 
@@ -48,17 +48,18 @@ from ..errors import ConfigError, CyclesimError
 from ..output import CAUTION, atomic_write_text
 from ..params import suggestion
 from ..roles import ROLES
+from ..outdir import folder_lock
+from ..fingerprint import check_fingerprint, digest, study_record, write_fingerprint
+from .sweep_files import (CSV_NAME, JSON_NAME, CsvSink, check_out, read_sweep_csv, resumed_rows, rows_text,
+                          write_failed)
 
 __all__ = ["sweep", "SweepResult", "parse_values", "parse_vary_arg", "read_sweep_csv"]
 
-CSV_NAME = "sweep.csv"
-JSON_NAME = "sweep.json"
 FIXED_COLUMNS = ("case", "error", "warnings")
 WARNING_SEPARATOR = " | "
 """Between a case's warnings in the one ``warnings`` cell (messages use ';' themselves):
 ``row["warnings"].split(WARNING_SEPARATOR)`` gives them back."""
 _MAX_CASES = 1_000_000
-_INT_RE = re.compile(r"^[+-]?\d+$")
 
 
 # --------------------------------------------------------------------------
@@ -184,40 +185,64 @@ def parse_vary_arg(text: str) -> tuple[str, str]:
 
 
 def _check_key(base: Case, key: str, vary: Mapping[str, list]) -> None:
-    """Fail fast (one ConfigError line) for a key that no case could accept."""
+    """Fail fast (one ConfigError line) for a key, or a value of it, that no case could accept.
+
+    A value of the wrong kind for its key (a word where a number belongs, a
+    fraction for a whole number, an unknown choice or model name) is refused
+    before anything runs.  A value of the right kind outside the key's range
+    fails as its own case, recorded with its message (it may depend on the
+    other values of the case).
+    """
     parts = key.split(".")
     if len(parts) != 2 or not all(parts):
         raise ConfigError(f"--vary {key!r}: expected section.key, e.g. operating.speed_rpm")
     sec, name = parts
     if sec in CORE_SCHEMA:
-        known = [p.name for p in CORE_SCHEMA[sec]]
+        declared = list(CORE_SCHEMA[sec])
     elif sec in ROLES:
-        if name == "model":
-            return
         from ..registry import get_registry
 
         reg = get_registry(tuple(base.plugins))
+        if name == "model":
+            for m in vary[key]:
+                if not isinstance(m, str):
+                    raise ConfigError(f"--vary {key}: {m!r} is not a model name; nothing was run")
+                reg.submodel_class(sec, m, where=f"--vary {key}")
+            return
         models = [base.submodels[sec].model]
         for m in vary.get(f"{sec}.model", ()):
             if isinstance(m, str) and m not in models:
                 models.append(m)
-        known = []
+        declared = []
         for m in models:
             try:
                 cls = reg.submodel_class(sec, m)
             except CyclesimError:
                 continue
-            known.extend(p.name for p in cls.params if p.name not in known)
+            declared.extend(cls.params)
     else:
         sections = tuple(CORE_SCHEMA) + ROLES
         raise ConfigError(
             f"--vary {key!r}: unknown section {sec!r}" + suggestion(sec, sections)
             + f"; sections: {', '.join(sections)}"
         )
+    known = list(dict.fromkeys(p.name for p in declared))
     if name not in known:
         raise ConfigError(
             f"--vary {key!r}: unknown key" + suggestion(name, known) + f"; allowed in {sec}: {', '.join(known)}"
         )
+    kinds = [replace(p, min=None, max=None) for p in declared if p.name == name]   # kind, not range
+    for v in vary[key]:
+        problems = []
+        for p in kinds:
+            try:
+                p.check(v, key)
+                break
+            except ConfigError as exc:
+                problems.append(str(exc).removeprefix(f"{key}: "))
+        else:
+            raise ConfigError(f"--vary {key}: {_py(v)!r} is not a value of this key ({problems[0]});"
+                              " nothing was run")
 
 
 def _plan(vary: Mapping[str, list], paired: bool) -> list[dict]:
@@ -263,76 +288,6 @@ def _scalar(v: Any) -> Any:
         return None
     return v
 
-
-def _cell(v: Any) -> str:
-    """Text of one CSV cell; floats in shortest round-trip form, so CSV and JSON agree."""
-    if v is None:
-        return ""
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, float):
-        return repr(v) if math.isfinite(v) else ""
-    return str(v)
-
-
-def _uncell(text: str, column: str) -> Any:
-    """Value of one CSV cell (inverse of :func:`_cell`)."""
-    if column in ("error", "warnings"):
-        return text
-    if text == "":
-        return None
-    if text == "true":
-        return True
-    if text == "false":
-        return False
-    if _INT_RE.match(text):
-        return int(text)
-    try:
-        return float(text)
-    except ValueError:
-        return text
-
-
-def _same(a: Any, b: Any) -> bool:
-    if isinstance(a, bool) or isinstance(b, bool):
-        return a == b
-    if isinstance(a, (int, float)) and isinstance(b, (int, float)):
-        return math.isclose(a, b, rel_tol=1e-12, abs_tol=1e-12)
-    return a == b or _cell(a) == _cell(b)
-
-
-def _rows_text(rows: Iterable[Mapping], columns: Sequence[str], header: bool) -> str:
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    if header:
-        w.writerow(columns)
-    for r in rows:
-        w.writerow([_cell(r.get(c)) for c in columns])
-    return buf.getvalue()
-
-
-def read_sweep_csv(path: str | Path) -> tuple[list[str], list[dict]]:
-    """Read a ``sweep.csv``: (columns, rows) with numbers parsed.
-
-    A last line cut short (no newline, wrong number of cells) is ignored, so a
-    file left by an interrupted run reads as its complete rows.
-    """
-    text = Path(path).read_text(encoding="utf-8")
-    if not text.strip():
-        return [], []
-    if not text.endswith("\n"):
-        text = text[: text.rfind("\n") + 1]
-    reader = csv.reader(io.StringIO(text))
-    try:
-        columns = next(reader)
-    except StopIteration:
-        return [], []
-    rows = []
-    for cells in reader:
-        if len(cells) != len(columns):
-            continue
-        rows.append({c: _uncell(t, c) for c, t in zip(columns, cells)})
-    return columns, rows
 
 
 # --------------------------------------------------------------------------
@@ -429,7 +384,7 @@ class SweepResult:
 
     def to_csv(self, path: str | Path | None = None) -> str:
         """The table as CSV text (header first); written atomically to ``path`` if given."""
-        text = _rows_text(self.rows, self.columns, header=True)
+        text = rows_text(self.rows, self.columns, header=True)
         if path is not None:
             atomic_write_text(Path(path), text)
         return text
@@ -483,75 +438,6 @@ def _progress_fn(progress, total):
     return None, None
 
 
-# --------------------------------------------------------------------------
-# Output folder
-# --------------------------------------------------------------------------
-
-
-class _CsvSink:
-    """Append whole rows to ``sweep.csv``; rewrite it atomically when columns grow."""
-
-    def __init__(self, path: Path):
-        self.path = path
-        self.columns: list[str] | None = None
-
-    def start(self, columns: list[str], rows: list[dict]) -> None:
-        self.columns = list(columns)
-        atomic_write_text(self.path, _rows_text(rows, self.columns, header=True))
-
-    def add(self, new_rows: list[dict], all_rows: list[dict], columns: list[str]) -> None:
-        if self.columns is None or columns != self.columns:
-            self.start(columns, all_rows)   # all_rows already holds new_rows
-            return
-        text = _rows_text(new_rows, self.columns, header=False)
-        with open(self.path, "a", encoding="utf-8", newline="") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-
-
-def _check_out(out: Path, resume: bool, force: bool) -> None:
-    if out.exists():
-        if not out.is_dir():
-            raise CyclesimError(f"--out {out}: exists and is not a folder")
-        if any(out.iterdir()) and not (resume or force):
-            raise CyclesimError(
-                f"--out {out}: folder exists and is not empty; use --resume to continue a sweep"
-                " there or --force to start it again"
-            )
-    out.mkdir(parents=True, exist_ok=True)
-
-
-def _resumed_rows(out: Path, plan: list[dict], keys: list[str]) -> tuple[list[str], dict[int, dict]]:
-    path = out / CSV_NAME
-    if not path.exists():
-        return [], {}
-    columns, rows = read_sweep_csv(path)
-    if not rows:
-        return columns, {}
-    missing = [k for k in ("case", *keys) if k not in columns]
-    if missing:
-        raise CyclesimError(
-            f"--resume: {path} has no column {missing[0]!r}: it was written by a different sweep;"
-            " use --force to start again"
-        )
-    kept: dict[int, dict] = {}
-    for r in rows:
-        i = r.get("case")
-        if not isinstance(i, int) or not 0 <= i < len(plan):
-            raise CyclesimError(
-                f"--resume: {path} has case {r.get('case')!r}, outside this sweep's {len(plan)} cases;"
-                " use --force to start again"
-            )
-        for k in keys:
-            if not _same(r.get(k), plan[i][k]):
-                raise CyclesimError(
-                    f"--resume: {path} case {i} has {k} = {r.get(k)!r}, this sweep has {plan[i][k]!r}:"
-                    " it was written by a different sweep; use --force to start again"
-                )
-        kept[i] = r   # a repeated case keeps its last complete row
-    return columns, kept
-
 
 # --------------------------------------------------------------------------
 # The sweep
@@ -577,6 +463,136 @@ def _simulate_chunk(cases: list[Case]) -> list:
     return run_chunk(cases)
 
 
+class _Run:
+    """The run of one sweep's plan: rows kept from an earlier run, chunks, files."""
+
+    def __init__(self, base_case: Case, plan: list[dict], keys: list[str], metadata: dict,
+                 out_path: Path | None, chunk_size: int, progress, where: tuple):
+        self.base_case, self.plan, self.keys, self.metadata = base_case, plan, keys, metadata
+        self.out_path, self.chunk_size, self.progress, self.where = out_path, chunk_size, progress, where
+
+    def _prepare(self, resume: bool, force: bool, record: dict) -> tuple[dict[int, dict], list[str], Any]:
+        """Check the folder, keep the rows of the same study on resume, store the fingerprint."""
+        out_path, plan, keys = self.out_path, self.plan, self.keys
+        rows: dict[int, dict] = {}
+        columns: list[str] = []
+        if out_path is None:
+            return rows, columns, None
+        check_out(out_path, resume, force)
+        sink = CsvSink(out_path / CSV_NAME)
+        try:
+            if resume:
+                csv_path = out_path / CSV_NAME
+                check_fingerprint(out_path, record, csv_path.exists() and bool(read_sweep_csv(csv_path)[1]))
+                old_cols, rows = resumed_rows(out_path, plan, keys)
+                columns = _columns(keys, rows.values(), old_cols) if rows else []
+            else:
+                for name in (CSV_NAME, JSON_NAME):
+                    if (out_path / name).exists():
+                        (out_path / name).unlink()
+            write_fingerprint(out_path, record)               # before the first row
+            if rows:
+                sink.start(columns, [rows[i] for i in sorted(rows)])   # clean copy, whole rows only
+        except OSError as exc:
+            raise write_failed(out_path, exc, len(rows), len(plan)) from None
+        return rows, columns, sink
+
+    def execute(self, resume: bool, force: bool, record: dict) -> SweepResult:
+        from ..parallel import plan_execution, run_chunks
+
+        base_case, plan, keys, metadata, out_path = self.base_case, self.plan, self.keys, self.metadata, self.out_path
+        chunk_size = self.chunk_size
+        workers, backend, scheduler = self.where
+        rows, columns, sink = self._prepare(resume, force, record)
+        results: list = [None] * len(plan)
+        start_columns = list(columns)
+        todo = [i for i in range(len(plan)) if i not in rows]
+        n_chunks = -(-len(todo) // chunk_size)
+        how, n_workers = plan_execution(len(todo), n_chunks, workers, backend, scheduler)
+        report, bar = _progress_fn(self.progress, len(plan))
+        t0 = time.perf_counter()
+        done = len(plan) - len(todo)
+        # chunk k -> (case indices, indices of the cases built, their rows); filled as chunks are drawn
+        pending: dict[int, tuple[list[int], list[int], dict[int, dict]]] = {}
+
+        def chunks():
+            """Cases of each chunk, built (and checked) only when a worker is ready for them."""
+            for k, c0 in enumerate(range(0, len(todo), chunk_size)):
+                idx = todo[c0: c0 + chunk_size]
+                new: dict[int, dict] = {}
+                cases: list[Case] = []
+                run_idx: list[int] = []
+                for i in idx:
+                    row = {"case": i, **plan[i], "error": "", "warnings": ""}
+                    try:
+                        cases.append(case_with(base_case, plan[i]))
+                        run_idx.append(i)
+                    except CyclesimError as exc:
+                        row["error"] = str(exc)
+                    new[i] = row
+                pending[k] = (idx, run_idx, new)
+                yield cases
+
+        def finished(k: int, chunk_results: list) -> None:
+            """Rows of one finished chunk: into the table, appended to sweep.csv, progress."""
+            nonlocal columns, done
+            idx, run_idx, new = pending.pop(k)
+            for i, res in zip(run_idx, chunk_results):
+                results[i] = res
+                row = new[i]
+                if res.error:
+                    row["error"] = str(res.error)
+                else:
+                    row.update(_flatten(res.summary))
+                row["warnings"] = WARNING_SEPARATOR.join(res.warnings)
+            rows.update(new)
+            columns = _columns(keys, new.values(), columns)
+            if sink is not None:
+                ordered = [rows[i] for i in sorted(rows)]
+                try:
+                    sink.add([new[i] for i in idx], ordered, columns)
+                except OSError as exc:
+                    raise write_failed(out_path, exc, len(rows), len(plan)) from None
+            done += len(idx)
+            if report is not None:
+                report(done, len(plan), time.perf_counter() - t0)
+
+        try:
+            if report is not None:
+                report(done, len(plan), 0.0)
+            if todo:
+                run_chunks(chunks(), workers=n_workers, backend=how, on_result=finished, scheduler=scheduler)
+        except KeyboardInterrupt:       # Ctrl-C, or SIGTERM on the command line
+            if bar is not None:
+                bar.close()
+                bar = None
+            if out_path is not None:
+                print(
+                    f"sweep interrupted after {len(rows)} of {len(plan)} cases; {out_path / CSV_NAME} holds"
+                    " the finished rows; run again with --resume to continue",
+                    file=sys.stderr,
+                )
+            raise
+        finally:
+            if bar is not None:
+                bar.close()
+        ordered = [rows[i] for i in range(len(plan))]
+        # columns in case order (chunks may finish in any order when they run in parallel)
+        columns = _columns(keys, ordered, start_columns)
+        for r in ordered:
+            for c in columns:
+                r.setdefault(c, None)
+        metadata["failed"] = sum(1 for r in ordered if r.get("error"))
+        result = SweepResult(rows=ordered, columns=columns, results=results, keys=keys, metadata=metadata)
+        if out_path is not None:
+            try:
+                result.to_csv(out_path / CSV_NAME)      # final copy in case order, same columns as the JSON
+                result.to_json(out_path / JSON_NAME)
+            except OSError as exc:
+                raise write_failed(out_path, exc, len(plan), len(plan)) from None
+        return result
+
+
 def sweep(
     base: Case | str | Path,
     vary: Sequence[tuple[str, Any]] | Mapping[str, Any],
@@ -591,6 +607,8 @@ def sweep(
     workers: int | str | None = None,
     backend: str | None = None,
     scheduler: str | None = None,
+    study: str = "sweep",
+    study_options: Mapping[str, Any] | None = None,
 ) -> SweepResult:
     """Run a grid (or paired list) of cases built from one base config.
 
@@ -636,6 +654,10 @@ def sweep(
     scheduler : str, optional
         Address of a Dask scheduler (backend ``"dask"``); without it the dask
         backend starts a local cluster of ``workers`` processes.
+    study, study_options : str, mapping
+        Name and figure-changing options of the study this sweep serves (the
+        spark study passes its own), recorded in the fingerprint: a resume
+        with other options is refused.
 
     Returns
     -------
@@ -648,7 +670,10 @@ def sweep(
         unequal lengths in a paired sweep.
     CyclesimError
         ``out`` not empty without ``resume``/``force``; a resume folder
-        written by a different sweep.
+        written by a different study (see :mod:`cyclesim.fingerprint`);
+        ``out`` in use by another run, or not writable (before anything runs);
+        a write that fails mid-run (the rows on disk stay; the message says how
+        to resume).
     """
     base_case, base_label = resolve_case(base, overrides)
     base_label = label or base_label
@@ -673,7 +698,7 @@ def sweep(
     plan = _plan(values, paired)
     if chunk_size < 1:
         raise ConfigError(f"--chunk {chunk_size}: expected a whole number >= 1")
-    from ..parallel import plan_execution, run_chunks
+    from ..parallel import plan_execution
 
     plan_execution(len(plan), -(-len(plan) // chunk_size), workers, backend, scheduler)  # bad options fail here
 
@@ -686,100 +711,13 @@ def sweep(
         "cases": len(plan),
         "caution": CAUTION,
     }
-    rows: dict[int, dict] = {}
-    results: list = [None] * len(plan)
-    columns: list[str] = []
-    sink = None
     out_path = Path(out) if out is not None else None
-    if out_path is not None:
-        _check_out(out_path, resume, force)
-        sink = _CsvSink(out_path / CSV_NAME)
-        if resume:
-            old_cols, rows = _resumed_rows(out_path, plan, keys)
-            columns = _columns(keys, rows.values(), old_cols) if rows else []
-            if rows:
-                sink.start(columns, [rows[i] for i in sorted(rows)])   # clean copy, whole rows only
-        else:
-            for name in (CSV_NAME, JSON_NAME):
-                if (out_path / name).exists():
-                    (out_path / name).unlink()
-    start_columns = list(columns)
-    todo = [i for i in range(len(plan)) if i not in rows]
-    n_chunks = -(-len(todo) // chunk_size)
-    how, n_workers = plan_execution(len(todo), n_chunks, workers, backend, scheduler)
-    report, bar = _progress_fn(progress, len(plan))
-    t0 = time.perf_counter()
-    done = len(plan) - len(todo)
-    # chunk k -> (case indices, indices of the cases built, their rows); filled as chunks are drawn
-    pending: dict[int, tuple[list[int], list[int], dict[int, dict]]] = {}
-
-    def chunks():
-        """Cases of each chunk, built (and checked) only when a worker is ready for them."""
-        for k, c0 in enumerate(range(0, len(todo), chunk_size)):
-            idx = todo[c0: c0 + chunk_size]
-            new: dict[int, dict] = {}
-            cases: list[Case] = []
-            run_idx: list[int] = []
-            for i in idx:
-                row = {"case": i, **plan[i], "error": "", "warnings": ""}
-                try:
-                    cases.append(case_with(base_case, plan[i]))
-                    run_idx.append(i)
-                except CyclesimError as exc:
-                    row["error"] = str(exc)
-                new[i] = row
-            pending[k] = (idx, run_idx, new)
-            yield cases
-
-    def finished(k: int, chunk_results: list) -> None:
-        """Rows of one finished chunk: into the table, appended to sweep.csv, progress."""
-        nonlocal columns, done
-        idx, run_idx, new = pending.pop(k)
-        for i, res in zip(run_idx, chunk_results):
-            results[i] = res
-            row = new[i]
-            if res.error:
-                row["error"] = str(res.error)
-            else:
-                row.update(_flatten(res.summary))
-            row["warnings"] = WARNING_SEPARATOR.join(res.warnings)
-        rows.update(new)
-        columns = _columns(keys, new.values(), columns)
-        if sink is not None:
-            ordered = [rows[i] for i in sorted(rows)]
-            sink.add([new[i] for i in idx], ordered, columns)
-        done += len(idx)
-        if report is not None:
-            report(done, len(plan), time.perf_counter() - t0)
-
-    try:
-        if report is not None:
-            report(done, len(plan), 0.0)
-        if todo:
-            run_chunks(chunks(), workers=n_workers, backend=how, on_result=finished, scheduler=scheduler)
-    except KeyboardInterrupt:
-        if bar is not None:
-            bar.close()
-            bar = None
-        if out_path is not None:
-            print(
-                f"sweep interrupted after {len(rows)} of {len(plan)} cases; {out_path / CSV_NAME} holds"
-                " the finished rows; run again with --resume to continue",
-                file=sys.stderr,
-            )
-        raise
-    finally:
-        if bar is not None:
-            bar.close()
-    ordered = [rows[i] for i in range(len(plan))]
-    # columns in case order (chunks may finish in any order when they run in parallel)
-    columns = _columns(keys, ordered, start_columns)
-    for r in ordered:
-        for c in columns:
-            r.setdefault(c, None)
-    metadata["failed"] = sum(1 for r in ordered if r.get("error"))
-    result = SweepResult(rows=ordered, columns=columns, results=results, keys=keys, metadata=metadata)
-    if out_path is not None:
-        result.to_csv(out_path / CSV_NAME)      # final copy in case order, same columns as the JSON
-        result.to_json(out_path / JSON_NAME)
-    return result
+    record = study_record(study, base_case, values, metadata["paired"], study_options)
+    metadata["fingerprint"] = digest(record)
+    if study_options:
+        metadata["study_options"] = dict(study_options)
+    run = _Run(base_case, plan, keys, metadata, out_path, chunk_size, progress, (workers, backend, scheduler))
+    if out_path is None:
+        return run.execute(resume, force, record)
+    with folder_lock(out_path):          # one writer per folder for the whole sweep
+        return run.execute(resume, force, record)

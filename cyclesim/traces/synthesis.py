@@ -663,17 +663,24 @@ def _row_values_at(theta: np.ndarray, X: np.ndarray, angle: float) -> np.ndarray
 
 
 def _check_checkpoint(ckpt: Path, case: Case, n: int, var: CycleVariation, fine: float) -> None:
-    """Refuse to resume from checkpoints of a different set."""
+    """Refuse to resume from checkpoints of a different set (see :mod:`cyclesim.fingerprint`)."""
+    from ..fingerprint import digest, refuse_if_different, study_record
     from ..output import atomic_write_text
 
-    key = {"case": case.raw, "n_cycles": n, "variation": asdict(var), "fine_step_deg": fine}
-    text = json.dumps(key, sort_keys=True, default=str)
+    record = study_record("traces", case, {}, False,
+                          {"n_cycles": n, "variation": asdict(var), "fine_step_deg": fine})
     f = ckpt / "set.json"
     if f.exists():
-        if f.read_text() != text:
-            raise CyclesimError(f"{ckpt}: holds the chunks of a different trace set; use another --out or --force")
+        try:
+            old = json.loads(f.read_text(encoding="utf-8"))["record"]
+            if not isinstance(old, dict):
+                raise TypeError(type(old).__name__)
+        except (OSError, UnicodeDecodeError, ValueError, KeyError, TypeError):
+            raise CyclesimError(f"--resume: {ckpt} holds chunks of a trace set without a readable record"
+                                " (written by an older cyclesim?); use another --out or --force") from None
+        refuse_if_different(str(ckpt), old, record, what="trace set")
     else:
-        atomic_write_text(f, text)
+        atomic_write_text(f, json.dumps({"digest": digest(record), "record": record}, sort_keys=True))
 
 
 def set_statistics(truth: Sequence[dict]) -> dict:
