@@ -187,6 +187,11 @@ def main(argv: list[str] | None = None) -> int:
     from .cli_engine import HANDLERS as ENGINE_HANDLERS
 
     handlers.update(ENGINE_HANDLERS)
+    from .textsafe import PrintableStream, printable
+
+    streams = sys.stdout, sys.stderr
+    sys.stdout, sys.stderr = PrintableStream(sys.stdout), PrintableStream(sys.stderr)
+    sigint = _watch_sigint()
     try:
         from . import kernel
 
@@ -196,17 +201,56 @@ def main(argv: list[str] | None = None) -> int:
     except CyclesimError as exc:
         if getattr(args, "debug", False):
             raise
-        print(f"cyclesim: error: {exc}", file=sys.stderr)
+        print(f"cyclesim: error: {printable(exc, one_line=True)}", file=sys.stderr)
         return exc.exit_code
-    except KeyboardInterrupt:
-        print("cyclesim: interrupted", file=sys.stderr)
-        return 130
     except BrokenPipeError:  # output piped into head & co.
         try:
             sys.stdout = None  # type: ignore[assignment]
         except Exception:  # noqa: BLE001
             pass
         return 0
+    except BaseException as exc:  # noqa: BLE001 - a plug-in's failure of any kind; else as it was
+        from .registry import plugin_failure
+
+        who = None if isinstance(exc, KeyboardInterrupt) and sigint.seen else plugin_failure(exc)
+        if who is None or getattr(args, "debug", False):
+            if isinstance(exc, KeyboardInterrupt):
+                print("cyclesim: interrupted", file=sys.stderr)
+                return 130
+            raise
+        print(f"cyclesim: error: {printable(who, one_line=True)}", file=sys.stderr)
+        return 2
+    finally:
+        sigint.restore()
+        if sys.stdout is not None:
+            sys.stdout.flush()
+        sys.stdout, sys.stderr = streams
+
+
+class _watch_sigint:
+    """Tell an interrupt the user made (SIGINT, Ctrl-C) from a ``KeyboardInterrupt`` that code raised."""
+
+    def __init__(self):
+        import signal
+
+        self.seen = False
+        self.previous = None
+        try:
+            if signal.getsignal(signal.SIGINT) is signal.default_int_handler:
+                self.previous = signal.signal(signal.SIGINT, self._handler)
+        except ValueError:  # not the main thread: leave the handler alone
+            pass
+
+    def _handler(self, signum, frame):
+        self.seen = True
+        raise KeyboardInterrupt
+
+    def restore(self) -> None:
+        import signal
+
+        if self.previous is not None:
+            signal.signal(signal.SIGINT, self.previous)
+            self.previous = None
 
 
 if __name__ == "__main__":  # pragma: no cover

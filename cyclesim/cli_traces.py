@@ -205,6 +205,10 @@ def cmd_traces(args) -> int:
     import shutil
     import time
 
+    from .cli_checks import seed
+
+    seed(args.seed)
+
     from .config import load_config
     from .errors import ConfigError
     from .output import CAUTION, prepare_out_dir

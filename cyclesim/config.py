@@ -234,6 +234,11 @@ def _construct_mapping(loader, node, deep=False):
     seen: dict[Any, Any] = {}
     for key_node, _ in node.value:
         key = loader.construct_object(key_node, deep=deep)
+        if not isinstance(key, (str, int, float, bool)) and key is not None:
+            raise ConfigError(
+                f"{getattr(loader, 'name', '<config>')} line {key_node.start_mark.line + 1}:"
+                f" a key must be a plain word or number, got a {type(key).__name__}"
+            )
         if key in seen:
             raise ConfigError(
                 f"{getattr(loader, 'name', '<config>')} line {key_node.start_mark.line + 1}:"
@@ -265,13 +270,16 @@ def yaml_value(text: str) -> Any:
 
 def read_yaml(path: Path) -> dict:
     """Read one YAML file safely into a dict; malformed input raises ConfigError."""
+    from .config_text import decode_config
+
     try:
-        text = Path(path).read_text(encoding="utf-8")
+        text = decode_config(Path(path).read_bytes(), path)
     except OSError as exc:
         raise ConfigError(f"{path}: cannot read config ({exc.strerror or exc})") from exc
-    loader = _StrictLoader(text)
-    loader.name = str(path)
+    loader = None
     try:
+        loader = _StrictLoader(text)
+        loader.name = str(path)
         data = loader.get_single_data()
     except ConfigError:
         raise
@@ -281,7 +289,8 @@ def read_yaml(path: Path) -> dict:
         problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
         raise ConfigError(f"{path}{where}: malformed YAML ({problem})") from exc
     finally:
-        loader.dispose()
+        if loader is not None:
+            loader.dispose()
     if data is None:
         data = {}
     if not isinstance(data, dict):

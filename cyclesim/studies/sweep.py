@@ -459,8 +459,10 @@ class _Bar:
     width = 30
 
     def __init__(self, total: int, stream=None):
+        from ..textsafe import terminal
+
         self.total = max(total, 1)
-        self.stream = stream or sys.stderr
+        self.stream = stream or terminal(sys.stderr)  # redraws itself with a carriage return
 
     def __call__(self, done: int, total: int, elapsed: float) -> None:
         n = int(round(self.width * done / max(total, 1)))
