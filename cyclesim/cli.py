@@ -69,7 +69,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def cmd_run(args) -> int:
     from . import api
-    from .output import prepare_out_dir, summary_table, write_case
+    from .output import clear_case_files, prepare_out_dir, summary_table, write_case
     import json
 
     t0 = time.perf_counter()
@@ -86,6 +86,8 @@ def cmd_run(args) -> int:
         print(summary_table(res))
         print(f"simulated in {elapsed:.2f} s")
     if args.out:
+        if args.force:
+            clear_case_files(args.out)
         files = write_case(res, args.out, plots=not args.no_plots)
         print(f"wrote {len(files)} files to {args.out}/: " + ", ".join(f.name for f in files))
     return 0
@@ -153,6 +155,8 @@ def cmd_show(args) -> int:
     from .config import CORE_SCHEMA, load_config
 
     case = load_config(args.config, args.overrides)
+    if case.multi_cylinder is not None:
+        _check_multi_cylinder(case)
     out = {"name": case.name}
     for sec in CORE_SCHEMA:
         out[sec] = dict(vars(case.section(sec)))
@@ -162,6 +166,23 @@ def cmd_show(args) -> int:
         out["multi_cylinder"] = dict(vars(case.multi_cylinder))
     print(yaml.safe_dump(out, sort_keys=False))
     return 0
+
+
+def _check_multi_cylinder(case) -> None:
+    """The per-cylinder entries of ``multi_cylinder`` against ``engine.cylinders``, as the engine
+    commands check them (a shown config is one they can run)."""
+    from .engine import _spread, exhaust_branches, firing_offsets
+    from .errors import ConfigError
+
+    ms, n = case.multi_cylinder, int(case.engine.cylinders)
+    firing_offsets(ms.firing_order, n)
+    exhaust_branches(ms, n)
+    for key in ("cylinder_modes", "spread_trapped_mass", "spread_spark_deg", "spread_compression_ratio",
+                "spread_wall_temperature_K"):
+        if getattr(ms, key) is not None and len(getattr(ms, key)) != n:
+            _spread(ms, key, n, 0.0)      # raises the engine's one-line message
+    if ms.firing_order is not None and any(float(v) != int(v) for v in ms.firing_order):
+        raise ConfigError(f"multi_cylinder.firing_order = {list(ms.firing_order)}: expected whole cylinder numbers")
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -142,6 +142,10 @@ def cmd_predict(args) -> int:
     lo, hi = _pair(args.band, "--band")
     if not (0 <= lo < hi <= 100):
         raise ConfigError(f"--band {args.band!r}: expected percentages 0 <= LO < HI <= 100")
+    from .config import load_config
+    from .studies.uncertainty import read_calibration
+
+    read_calibration(args.calibration, load_config(args.config))   # refused before anything is written
     prepare_out_dir(args.out, args.force)
     res = propagate(args.config, args.calibration, study=args.study, vary=args.vary, n_samples=args.samples,
                     seed=args.seed, quantiles=(lo / 100, hi / 100))

@@ -362,6 +362,9 @@ def cmd_report(args) -> int:
 
     from .errors import CyclesimError
 
+    if Path(args.out).is_dir():
+        raise CyclesimError(f"--out {args.out}: is a folder; give the HTML file's name, e.g."
+                            f" {Path(args.out) / 'report.html'}")
     if Path(args.out).exists() and not args.force:
         raise CyclesimError(f"--out {args.out}: file exists; use --force to replace it")
     src = Path(args.source)

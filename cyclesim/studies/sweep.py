@@ -44,7 +44,7 @@ import numpy as np
 import yaml
 
 from ..config import CORE_SCHEMA, Case, case_with, resolve_case, yaml_value
-from ..errors import ConfigError, CyclesimError
+from ..errors import ConfigError, CyclesimError, InputFileError
 from ..output import CAUTION, atomic_write_text
 from ..params import suggestion
 from ..roles import ROLES
@@ -317,7 +317,13 @@ def read_sweep_csv(path: str | Path) -> tuple[list[str], list[dict]]:
     A last line cut short (no newline, wrong number of cells) is ignored, so a
     file left by an interrupted run reads as its complete rows.
     """
-    text = Path(path).read_text(encoding="utf-8")
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except UnicodeDecodeError as exc:
+        raise InputFileError(f"{path}: not a sweep table (not UTF-8 text at byte {exc.start}); start again"
+                             " with --force instead of --resume") from None
+    if "\x00" in text:
+        raise InputFileError(f"{path}: not a sweep table (binary); start again with --force instead of --resume")
     if not text.strip():
         return [], []
     if not text.endswith("\n"):
