@@ -371,6 +371,9 @@ def parse_override(text: str) -> tuple[list[str], Any]:
     parts = [k for k in key.strip().split(".") if k]
     if not parts:
         raise ConfigError(f"--set {text!r}: empty key")
+    if parts[0] == "extends":
+        raise ConfigError(f"--set {text!r}: 'extends' is resolved when a config file is read; write a file"
+                          " with 'extends: BASE' and the changes instead")
     try:
         val = yaml_value(value) if value.strip() else None
     except yaml.YAMLError:
@@ -507,8 +510,12 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None, _owned
 
     for key in raw:
         if key not in TOP_KEYS:
+            from .textsafe import excerpt
+
+            word = isinstance(key, str) and key.isidentifier() and len(key) <= 40
             raise ConfigError(
-                f"{key}: unknown section" + suggestion(str(key), TOP_KEYS)
+                (f"{key}: unknown section" if word else f"{excerpt(key)}: unknown section (not a section name:"
+                 " is this a cyclesim config?)") + suggestion(str(key), TOP_KEYS)
                 + f"; sections: {', '.join(TOP_KEYS[:-2])}"
             )
     sections = {}

@@ -22,6 +22,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from cyclesim.errors import ConfigError
+from cyclesim.textsafe import excerpt
 from cyclesim.params import Param
 
 from cyclesim_plugins.wiebe import P_A, P_DELAY, P_EFF, P_M, P_SPARK, Wiebe
@@ -42,7 +43,7 @@ def read_burn_table(path: Path) -> dict[str, np.ndarray]:
     head = [h.strip() for h in lines[0].split(",")]
     for need in ("speed_rpm", "intake_pressure_bar"):
         if need not in head:
-            raise ConfigError(f"burn.table {path}: no column {need!r} (columns: {', '.join(head)})")
+            raise ConfigError(f"burn.table {path}: no column {need!r} (columns: {', '.join(excerpt(h) for h in head)})")
     cols: dict[str, list] = {h: [] for h in head}
     for n, ln in enumerate(lines[1:], start=2):
         cells = ln.split(",")
