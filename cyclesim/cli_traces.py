@@ -143,12 +143,16 @@ def cmd_analyse(args) -> int:
     case = load_config(args.engine, list(getattr(args, "overrides", []) or []))
     geom, settings, speed = analysis_inputs(case)
     prepare_out_dir(args.out, getattr(args, "force", False), create=False)     # checked now, made once it ran
+    from .traces.trace_checks import check_measured
+
     ts = read_trace(args.file)
+    check_measured(ts, args.file)
     if not math.isfinite(ts.speed_rpm):
         ts.speed_rpm = speed
     motored = None
     if getattr(args, "motored", None):
         motored = read_trace(args.motored)
+        check_measured(motored, args.motored)
         if not math.isfinite(motored.speed_rpm):
             motored.speed_rpm = speed
     settings = with_measured_masses(settings, ts.meta)

@@ -89,6 +89,14 @@ CATALOGUE = [
      "a full cycle needs a valve-flow model"),
     ("show two-entry firing order", {}, ["show", "demo", "--set", "multi_cylinder.firing_order=[1,2]"],
      "expected each of 1..4 exactly once"),
+    ("analyse a negated trace", {"n.csv": "NEGATED"}, ["analyse", "{d}/n.csv", "--engine", "demo", "--out", "{d}/o"],
+     "peaks downward"),
+    ("analyse at speed 0", {"z.csv": "ZERO"}, ["analyse", "{d}/z.csv", "--engine", "demo", "--out", "{d}/o"],
+     "speed_rpm = 0: expected the engine speed, > 0 rpm"),
+    ("fit a negated trace", {"n.csv": "NEGATED"}, ["fit", "demo_closed", "{d}/n.csv", "--param", "burn.duration_deg",
+                                                    "--out", "{d}/o"], "peaks downward"),
+    ("fit at speed 0", {"z.csv": "ZERO"}, ["fit", "demo_closed", "{d}/z.csv", "--param", "burn.duration_deg",
+                                            "--out", "{d}/o"], "speed_rpm = 0"),
     # item 11: no echo of other files
     ("extends a system file", {"c.yaml": "extends: {d}/secret\n", "secret": "root:$6$saltsalt$hashhash:1:2:3:::\n"},
      ["run", "{d}/c.yaml"], "is this a cyclesim config?"),
@@ -111,10 +119,22 @@ CATALOGUE[2] = ("UTF-16 config with a bad value", {"c.yaml": "extends: demo\neng
 TRACE = "cycle,crank_deg,pressure_bar\n" + "".join(f"1,{a},{1 + (a + 360) / 720}\n" for a in range(-360, 360, 2))
 
 
+def _cycle(sign: float, speed: float) -> str:
+    """One compression-like cycle: 1 bar plus a 40 bar peak at TDC (a Gaussian of 25 deg), times ``sign``."""
+    import math
+
+    rows = "".join(f"1,{a},{sign * (1.0 + 40.0 * math.exp(-(a / 25.0) ** 2)):.6f}\n" for a in range(-360, 360))
+    return f"# speed_rpm: {speed:g}\ncycle,crank_deg,pressure_bar\n" + rows
+
+
+GENERATED = {"NEGATED": _cycle(-1.0, 3000.0), "ZERO": _cycle(1.0, 0.0)}
+
+
 def _write(d, files):
     for name, content in (files or {}).items():
         f = d / name
         f.parent.mkdir(parents=True, exist_ok=True)
+        content = GENERATED.get(content, content) if isinstance(content, str) else content
         content = content.replace("{d}", str(d)) if isinstance(content, str) else content
         f.write_bytes(content if isinstance(content, bytes) else content.encode())
     (d / "t.csv").write_text(TRACE)
@@ -129,6 +149,16 @@ def test_hostile_input_gets_one_line_and_exit_2(tmp_path, capsys, kind, files, a
     assert rc == 2, err
     assert len(lines) == 1 and lines[0].startswith("cyclesim: error: ") and expect in lines[0], err
     assert "\x1b" not in err and "hashhash" not in err and "saltsalt" not in err
+
+
+def test_an_upright_cycle_passes_the_trace_checks(tmp_path):
+    # the same cycle the right way up and at a stated speed is accepted (the check is no blanket refusal)
+    from cyclesim.traces.export import read_trace
+    from cyclesim.traces.trace_checks import check_measured
+
+    f = tmp_path / "u.csv"
+    f.write_text(_cycle(1.0, 3000.0))
+    check_measured(read_trace(f), f)
 
 
 def test_no_output_folder_is_left_by_a_refused_option(tmp_path, capsys):
