@@ -586,10 +586,36 @@ def load_config(path: str | Path = "demo", overrides: list[str] | tuple = (), re
         ``dotted.key=value`` strings applied after inheritance.
     """
     raw, base_dir = load_raw(path)
+    given = []
     for text in overrides:
         parts, value = parse_override(text)
         raw = apply_override(raw, parts, value)
-    return build_case(raw, base_dir, registry)
+        given.append((parts, value))
+    case = build_case(raw, base_dir, registry)
+    # a file named on the command line is where the user is, not beside the config
+    moved = [(parts, str(Path(v).resolve())) for parts, v in given
+             if isinstance(v, str) and not Path(v).is_absolute() and _declared_kind(case, parts, registry) in ("path", "table")]
+    for parts, v in moved:
+        raw = apply_override(raw, parts, v)
+    return build_case(raw, base_dir, registry) if moved else case
+
+
+def _declared_kind(case: Case, parts: list[str], registry=None) -> str | None:
+    """The declared kind (``path``, ``table``, ...) of the dotted key ``parts`` in ``case``, if any."""
+    if len(parts) != 2:
+        return None
+    sec, name = parts
+    if sec in CORE_SCHEMA:
+        params = CORE_SCHEMA[sec]
+    elif sec in case.submodels:
+        if registry is None:
+            from .registry import get_registry
+
+            registry = get_registry(case.plugins)
+        params = registry.submodel_class(sec, case.submodels[sec].model).params
+    else:
+        return None
+    return next((p.kind for p in params if p.name == name), None)
 
 
 def case_with(case: Case, changes: Mapping[str, Any], registry=None) -> Case:

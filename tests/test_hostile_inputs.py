@@ -214,3 +214,13 @@ def test_case_files_name_every_plot_a_run_writes(tmp_path):
 
     res = cyclesim.run("demo", ["simulation.max_cycles=1", "simulation.step_deg=2"])
     assert {p.name for p in write_case(res, tmp_path)} <= set(CASE_FILES)
+
+
+def test_a_relative_table_path_in_set_is_read_from_the_working_directory(tmp_path, capsys, monkeypatch):
+    # `--set valve_flow.intake_lift_table=lift.csv` with a built-in config: the file beside the user
+    # (the working directory), not in the installed configs folder
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "lift.csv").write_text("crank_deg,lift_mm\n-370,0\n-380,1\n")     # refused: not increasing
+    assert main(["run", "demo", "--set", "valve_flow.intake_lift_table=lift.csv"]) == 2
+    err = capsys.readouterr().err
+    assert str(tmp_path / "lift.csv") in err and "does not increase" in err
