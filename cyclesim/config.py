@@ -554,10 +554,6 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None, _owned
         cls = registry.submodel_class(role, model, where=f"{role}.model")
         params = validate_section(sec, cls.params, f"{role}", ignore=("model",))
         subs[role] = SubmodelChoice(role, model, params)
-    if sections["simulation"].mode == "full" and not getattr(
-            registry.submodel_class("valve_flow", subs["valve_flow"].model), "exchanges_gas", True):
-        raise ConfigError(f"valve_flow.model = {subs['valve_flow'].model!r}: a full cycle needs a valve-flow model"
-                          " (the gas exchange), e.g. poppet; or simulation.mode=closed for IVC to EVO alone")
     if kept("multi_cylinder") and prev.multi_cylinder is not None:
         multi = _copy_ns(prev.multi_cylinder)
     else:

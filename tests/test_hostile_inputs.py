@@ -86,7 +86,7 @@ CATALOGUE = [
      "--knock-cycles -3: expected a whole number >= 0"),
     ("spark advance x", {}, ["spark", "demo", "--advance", "x", "--out", "{d}/o"], "'x' is not a spark advance"),
     ("full cycle without valve flow", {}, ["run", "demo", "--set", "valve_flow.model=none"],
-     "a full cycle needs a valve-flow model"),
+     "keeps the valves shut: a full cycle needs a valve-flow model"),
     ("show two-entry firing order", {}, ["show", "demo", "--set", "multi_cylinder.firing_order=[1,2]"],
      "expected each of 1..4 exactly once"),
     ("analyse a negated trace", {"n.csv": "NEGATED"}, ["analyse", "{d}/n.csv", "--engine", "demo", "--out", "{d}/o"],
