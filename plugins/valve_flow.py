@@ -30,6 +30,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from cyclesim.errors import ConfigError, InputFileError
+from cyclesim.textsafe import excerpt
 from cyclesim.flow import orifice_mass_flow
 from cyclesim.params import Param
 from cyclesim.roles import GasState, SetupContext, ValveFlow
@@ -223,11 +224,11 @@ def read_two_column_csv(path: pathlib.Path, columns: Sequence[str]) -> tuple[np.
                 vals = (float(cells[idx[0]]), float(cells[idx[1]]))
             except ValueError:
                 raise InputFileError(
-                    f"{path}: line {lineno}: non-numeric value in {', '.join(cells)}"
+                    f"{path}: line {lineno}: non-numeric value in {', '.join(excerpt(cells[i]) for i in idx)}"
                 ) from None
             if not all(math.isfinite(v) for v in vals):
                 raise InputFileError(
-                    f"{path}: line {lineno}: non-finite value in {', '.join(cells)}")
+                    f"{path}: line {lineno}: non-finite value in {', '.join(excerpt(cells[i]) for i in idx)}")
             rows.append(vals)
             lines.append(lineno)
     if not rows:

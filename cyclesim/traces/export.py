@@ -21,6 +21,7 @@ from typing import Iterable, Sequence
 import numpy as np
 
 from ..errors import CyclesimError, InputFileError
+from ..textsafe import excerpt
 from ..output import atomic_write_bytes, atomic_write_text
 from ..output import plain as _plain
 
@@ -332,7 +333,7 @@ def _read_csv(path: Path) -> TraceSet:
     if not data:
         raise InputFileError(f"{path}: header but no data rows")
     if "crank_deg" not in header:
-        raise InputFileError(f"{path}: missing column 'crank_deg' (header: {', '.join(header)})")
+        raise InputFileError(f"{path}: missing column 'crank_deg' (header: {', '.join(excerpt(h) for h in header)})")
     arr = np.empty((len(data), len(header)))
     for r, (row, ln) in enumerate(zip(data, linenos)):
         if len(row) != len(header):
@@ -342,7 +343,7 @@ def _read_csv(path: Path) -> TraceSet:
                 arr[r, c] = float(v)
             except ValueError:
                 raise InputFileError(
-                    f"{path}: line {ln}, column '{header[c]}': {v!r} is not a number"
+                    f"{path}: line {ln}, column {excerpt(header[c], 24)}: {excerpt(v)} is not a number"
                 ) from None
     col = {h: arr[:, i] for i, h in enumerate(header)}
     if "cycle" in header:
