@@ -46,7 +46,7 @@ tracked with the memory estimate of the run itself)."""
 
 OPEN_ELSEWHERE = {
     "rich": "operating.lambda below 0.34 (products with solid carbon): tracked with the gas model",
-    "budget": f"more than {STEP_BUDGET} steps per cycle (very low speed or very small step):"
+    "budget": f"more than {STEP_BUDGET} steps or output points per cycle (very low speed, very small step):"
               " tracked with the run's memory and step estimate",
     "motored": "no fuel burns (fuel_cut, combustion_efficiency 0, burn model none):"
                " tracked with the motored figures",
@@ -153,6 +153,8 @@ def _corner(case) -> str | None:
         return "budget"
     if sim.mode == "closed" and 720.0 / sim.step_deg > STEP_BUDGET:
         return "budget"
+    if sim.output_step_deg > 0 and 720.0 / sim.output_step_deg > STEP_BUDGET:
+        return "budget"                   # the output grid alone
     burn = case.submodels["burn"]
     if op.fuel_cut or burn.model == "none" or burn.params.get("combustion_efficiency", 1.0) == 0.0:
         return "motored"
