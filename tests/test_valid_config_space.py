@@ -26,7 +26,6 @@ import re
 import sys
 from collections import Counter
 
-import pytest
 from hypothesis import HealthCheck, Phase, given, settings
 from hypothesis import strategies as st
 
