@@ -243,9 +243,13 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     finally:
         sigint.restore()
-        if sys.stdout is not None:
-            sys.stdout.flush()
-        sys.stdout, sys.stderr = streams
+        broken = sys.stdout is None            # set so on a broken pipe, as before
+        if not broken:
+            try:
+                sys.stdout.flush()
+            except BrokenPipeError:
+                broken = True
+        sys.stdout, sys.stderr = (None if broken else streams[0]), streams[1]  # type: ignore[assignment]
 
 
 class _watch_sigint:

@@ -228,3 +228,27 @@ def test_a_relative_table_path_in_set_is_read_from_the_working_directory(tmp_pat
     assert main(["run", "demo", "--set", "valve_flow.intake_lift_table=lift.csv"]) == 2
     err = capsys.readouterr().err
     assert str(tmp_path / "lift.csv") in err and "does not increase" in err
+
+
+def test_an_interrupt_by_the_user_is_told_from_one_a_plug_in_raised():
+    # Ctrl-C (SIGINT) marks the interrupt as the user's: it stays "interrupted" (exit 130) even when
+    # it lands inside a plug-in's code; a KeyboardInterrupt raised by code leaves no such mark
+    import signal
+
+    from cyclesim.cli import _watch_sigint
+
+    w = _watch_sigint()
+    try:
+        with pytest.raises(KeyboardInterrupt):
+            signal.raise_signal(signal.SIGINT)
+        assert w.seen
+    finally:
+        w.restore()
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
+    w = _watch_sigint()
+    try:
+        with pytest.raises(KeyboardInterrupt):
+            raise KeyboardInterrupt
+        assert not w.seen
+    finally:
+        w.restore()
