@@ -157,7 +157,10 @@ def _corner(case) -> str | None:
     sim, op = case.simulation, case.operating
     if op.__dict__["lambda"] < 0.34:
         return "rich"
-    if sim.mode == "full" and 720.0 / effective_step_deg(sim, op.speed_rpm) > STEP_BUDGET:
+    try:
+        if sim.mode == "full" and 720.0 / effective_step_deg(sim, op.speed_rpm) > STEP_BUDGET:
+            return "budget"
+    except OverflowError:                 # a speed so small the step refinement overflows
         return "budget"
     if sim.mode == "closed" and 720.0 / sim.step_deg > STEP_BUDGET:
         return "budget"
