@@ -70,7 +70,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def cmd_run(args) -> int:
     from . import api
-    from .output import prepare_out_dir, summary_table, write_case
+    from .output import clear_case_files, prepare_out_dir, summary_table, write_case
     import json
 
     t0 = time.perf_counter()
@@ -87,6 +87,8 @@ def cmd_run(args) -> int:
         print(summary_table(res))
         print(f"simulated in {elapsed:.2f} s")
     if args.out:
+        if args.force:
+            clear_case_files(args.out)
         files = write_case(res, args.out, plots=not args.no_plots)
         print(f"wrote {len(files)} files to {args.out}/: " + ", ".join(f.name for f in files))
     return 0
@@ -154,6 +156,8 @@ def cmd_show(args) -> int:
     from .config import CORE_SCHEMA, load_config
 
     case = load_config(args.config, args.overrides)
+    if case.multi_cylinder is not None:
+        _check_multi_cylinder(case)
     out = {"name": case.name}
     for sec in CORE_SCHEMA:
         out[sec] = dict(vars(case.section(sec)))
@@ -167,6 +171,23 @@ def cmd_show(args) -> int:
 
 _FILE_OUT = ("report",)
 """Commands whose ``--out`` is a file; every other command's ``--out`` folder is locked for its run."""
+
+
+def _check_multi_cylinder(case) -> None:
+    """The per-cylinder entries of ``multi_cylinder`` against ``engine.cylinders``, as the engine
+    commands check them (a shown config is one they can run)."""
+    from .engine import _spread, exhaust_branches, firing_offsets
+    from .errors import ConfigError
+
+    ms, n = case.multi_cylinder, int(case.engine.cylinders)
+    firing_offsets(ms.firing_order, n)
+    exhaust_branches(ms, n)
+    for key in ("cylinder_modes", "spread_trapped_mass", "spread_spark_deg", "spread_compression_ratio",
+                "spread_wall_temperature_K"):
+        if getattr(ms, key) is not None and len(getattr(ms, key)) != n:
+            _spread(ms, key, n, 0.0)      # raises the engine's one-line message
+    if ms.firing_order is not None and any(float(v) != int(v) for v in ms.firing_order):
+        raise ConfigError(f"multi_cylinder.firing_order = {list(ms.firing_order)}: expected whole cylinder numbers")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -203,6 +224,11 @@ def main(argv: list[str] | None = None) -> int:
 
     out_folder = None if args.command in _FILE_OUT else getattr(args, "out", None)
 
+    from .textsafe import PrintableStream, printable
+
+    streams = sys.stdout, sys.stderr
+    sys.stdout, sys.stderr = PrintableStream(sys.stdout), PrintableStream(sys.stderr)
+    sigint = _watch_sigint()
     try:
         from . import kernel
 
@@ -213,12 +239,21 @@ def main(argv: list[str] | None = None) -> int:
     except CyclesimError as exc:
         if getattr(args, "debug", False):
             raise
-        print(f"cyclesim: error: {exc}", file=sys.stderr)
+        print(f"cyclesim: error: {printable(exc, one_line=True)}", file=sys.stderr)
         return exc.exit_code
     except KeyboardInterrupt as exc:
-        signum = getattr(exc, "signum", signal.SIGINT)
-        print(f"cyclesim: {'terminated' if signum == signal.SIGTERM else 'interrupted'}", file=sys.stderr)
-        return 128 + int(signum)
+        from .registry import plugin_failure
+
+        signum = getattr(exc, "signum", None)      # SIGTERM, raised by stopping.terminate_as_interrupt
+        who = None if (signum is not None or sigint.seen) else plugin_failure(exc)
+        if who is None:
+            signum = signal.SIGINT if signum is None else signum
+            print(f"cyclesim: {'terminated' if signum == signal.SIGTERM else 'interrupted'}", file=sys.stderr)
+            return 128 + int(signum)
+        if getattr(args, "debug", False):
+            raise
+        print(f"cyclesim: error: {printable(who, one_line=True)}", file=sys.stderr)
+        return 2
     except BrokenPipeError:  # output piped into head & co.
         try:
             sys.stdout = None  # type: ignore[assignment]
@@ -226,11 +261,60 @@ def main(argv: list[str] | None = None) -> int:
             pass
         return 0
     except OSError as exc:     # a file the command writes or reads failed outside the checks above
+        from .registry import plugin_failure
+
+        who = plugin_failure(exc)
         if getattr(args, "debug", False):
             raise
+        if who is not None:
+            print(f"cyclesim: error: {printable(who, one_line=True)}", file=sys.stderr)
+            return 2
         where = f": {exc.filename}" if getattr(exc, "filename", None) else ""
         print(f"cyclesim: error: {exc.strerror or type(exc).__name__}{where}", file=sys.stderr)
         return 2
+    except BaseException as exc:  # noqa: BLE001 - a plug-in's failure of any kind; else as it was
+        from .registry import plugin_failure
+
+        who = plugin_failure(exc)
+        if who is None or getattr(args, "debug", False):
+            raise
+        print(f"cyclesim: error: {printable(who, one_line=True)}", file=sys.stderr)
+        return 2
+    finally:
+        sigint.restore()
+        broken = sys.stdout is None            # set so on a broken pipe, as before
+        if not broken:
+            try:
+                sys.stdout.flush()
+            except BrokenPipeError:
+                broken = True
+        sys.stdout, sys.stderr = (None if broken else streams[0]), streams[1]  # type: ignore[assignment]
+
+
+class _watch_sigint:
+    """Tell an interrupt the user made (SIGINT, Ctrl-C) from a ``KeyboardInterrupt`` that code raised."""
+
+    def __init__(self):
+        import signal
+
+        self.seen = False
+        self.previous = None
+        try:
+            if signal.getsignal(signal.SIGINT) is signal.default_int_handler:
+                self.previous = signal.signal(signal.SIGINT, self._handler)
+        except ValueError:  # not the main thread: leave the handler alone
+            pass
+
+    def _handler(self, signum, frame):
+        self.seen = True
+        raise KeyboardInterrupt
+
+    def restore(self) -> None:
+        import signal
+
+        if self.previous is not None:
+            signal.signal(signal.SIGINT, self.previous)
+            self.previous = None
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -62,11 +62,16 @@ class _Progress:
     def __init__(self, stream=None):
         import sys
 
-        self.stream = stream or sys.stderr
+        from .textsafe import terminal
+
+        self.stream = stream or terminal(sys.stderr)  # redraws itself with a carriage return
         self.live = bool(getattr(self.stream, "isatty", lambda: False)())
         self.open = False
 
     def __call__(self, msg: str) -> None:
+        from .textsafe import printable
+
+        msg = printable(msg, one_line=True)
         if self.live:
             # a live line wider than the terminal would wrap, and the next one could not replace it
             width = max(shutil.get_terminal_size((100, 24)).columns - 1, 20)

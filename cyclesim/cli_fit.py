@@ -94,6 +94,13 @@ def cmd_fit(args) -> int:
     from .fit import check_calibratable, fit
     from .output import prepare_out_dir
 
+    from .cli_checks import finite
+
+    finite(args.level, "--level", 0.0, 1.0, lo_open=True, hi_open=True)
+    finite(args.tdc_offset, "--tdc-offset")
+    finite(args.tdc_sd, "--tdc-sd", 0.0, None, lo_open=True)
+    finite(args.thermal_tau, "--thermal-tau", 0.0, None, lo_open=True)
+    finite(args.step, "--step", 0.0, None, lo_open=True)
     case = load_config(args.config, list(args.overrides))
     for k in dict.fromkeys(args.params):       # refuse before anything is written
         check_calibratable(case, k, args.mode)
@@ -128,9 +135,17 @@ def cmd_predict(args) -> int:
     from .output import prepare_out_dir
     from .studies.uncertainty import propagate
 
+    from .cli_checks import seed, whole
+
+    seed(args.seed)
+    whole(args.samples, "--samples", 2)
     lo, hi = _pair(args.band, "--band")
     if not (0 <= lo < hi <= 100):
         raise ConfigError(f"--band {args.band!r}: expected percentages 0 <= LO < HI <= 100")
+    from .config import load_config
+    from .studies.uncertainty import read_calibration
+
+    read_calibration(args.calibration, load_config(args.config))   # refused before anything is written
     prepare_out_dir(args.out, args.force)
     res = propagate(args.config, args.calibration, study=args.study, vary=args.vary, n_samples=args.samples,
                     seed=args.seed, quantiles=(lo / 100, hi / 100))

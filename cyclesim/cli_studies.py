@@ -309,9 +309,12 @@ def cmd_dyno(args) -> int:
     from .studies.dyno import DynoNoise, dyno_test
     from .studies.sweep import parse_values
 
+    from .cli_checks import seed
+
+    seed(args.seed)
     noise = None
     if args.noise is not None:
-        noise = DynoNoise(args.noise[0], args.noise[1], int(args.noise[2]), args.seed)
+        noise = DynoNoise(args.noise[0], args.noise[1], args.noise[2], args.seed)
     std = {"sae": "SAE J1349", "iso": "ISO 1585"}.get(args.standard, args.standard)
     speeds = None if args.speeds is None else [float(v) for v in parse_values("--speeds", args.speeds)]
     t0 = time.perf_counter()
@@ -330,7 +333,10 @@ def cmd_map(args) -> int:
     """``cyclesim map``: full-load curve and part-load map."""
     from .studies.maps import check_map_inputs, full_load_curve, part_load_map
 
+    from .cli_checks import exclusive
+
     # refuse bad inputs before the output folder is made
+    exclusive(args, "--full-load-only", "--part-load-only")
     check_map_inputs(args.config, args.speeds, args.loads, args.spark, args.advances,
                      overrides=args.overrides, exhaust=args.exhaust)
     out = _out(args)
@@ -357,6 +363,9 @@ def cmd_report(args) -> int:
 
     from .errors import CyclesimError
 
+    if Path(args.out).is_dir():
+        raise CyclesimError(f"--out {args.out}: is a folder; give the HTML file's name, e.g."
+                            f" {Path(args.out) / 'report.html'}")
     if Path(args.out).exists() and not args.force:
         raise CyclesimError(f"--out {args.out}: file exists; use --force to replace it")
     src = Path(args.source)

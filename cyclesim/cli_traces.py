@@ -160,7 +160,10 @@ def cmd_analyse(args) -> int:
     case = load_config(args.engine, list(getattr(args, "overrides", []) or []))
     geom, settings, speed = analysis_inputs(case)
     prepare_out_dir(args.out, getattr(args, "force", False), create=False)     # checked now, made once it ran
+    from .traces.trace_checks import check_measured
+
     ts = read_trace(args.file)
+    check_measured(ts, args.file)
     from .traces.engine_check import engine_mismatches, mismatch_warning
 
     mismatch = mismatch_warning(engine_mismatches(dict(ts.meta or {}, speed_rpm=ts.speed_rpm), case),
@@ -170,6 +173,7 @@ def cmd_analyse(args) -> int:
     motored = None
     if getattr(args, "motored", None):
         motored = read_trace(args.motored)
+        check_measured(motored, args.motored)
         if not math.isfinite(motored.speed_rpm):
             motored.speed_rpm = speed
     settings = with_measured_masses(settings, ts.meta)
@@ -238,6 +242,10 @@ def cmd_traces(args) -> int:
     """Handler of ``cyclesim traces``: synthesise, write traces in each format and the truth."""
     import shutil
     import time
+
+    from .cli_checks import seed
+
+    seed(args.seed)
 
     from .config import load_config
     from .errors import ConfigError

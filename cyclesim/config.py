@@ -250,6 +250,11 @@ def _construct_mapping(loader, node, deep=False):
     seen: dict[Any, Any] = {}
     for key_node, _ in node.value:
         key = loader.construct_object(key_node, deep=deep)
+        if not isinstance(key, (str, int, float, bool)) and key is not None:
+            raise ConfigError(
+                f"{getattr(loader, 'name', '<config>')} line {key_node.start_mark.line + 1}:"
+                f" a key must be a plain word or number, got a {type(key).__name__}"
+            )
         if key in seen:
             raise ConfigError(
                 f"{getattr(loader, 'name', '<config>')} line {key_node.start_mark.line + 1}:"
@@ -284,13 +289,16 @@ def yaml_value(text: str) -> Any:
 
 def read_yaml(path: Path) -> dict:
     """Read one YAML file safely into a dict; malformed input raises ConfigError."""
+    from .config_text import decode_config
+
     try:
-        text = Path(path).read_text(encoding="utf-8")
+        text = decode_config(Path(path).read_bytes(), path)
     except OSError as exc:
         raise ConfigError(f"{path}: cannot read config ({exc.strerror or exc})") from exc
-    loader = _StrictLoader(text)
-    loader.name = str(path)
+    loader = None
     try:
+        loader = _StrictLoader(text)
+        loader.name = str(path)
         data = loader.get_single_data()
     except ConfigError:
         raise
@@ -300,7 +308,8 @@ def read_yaml(path: Path) -> dict:
         problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
         raise ConfigError(f"{path}{where}: malformed YAML ({problem})") from exc
     finally:
-        loader.dispose()
+        if loader is not None:
+            loader.dispose()
     if data is None:
         data = {}
     check_expanded_size(data, str(path))
@@ -396,6 +405,9 @@ def parse_override(text: str) -> tuple[list[str], Any]:
     parts = [k for k in key.strip().split(".") if k]
     if not parts:
         raise ConfigError(f"--set {text!r}: empty key")
+    if parts[0] == "extends":
+        raise ConfigError(f"--set {text!r}: 'extends' is resolved when a config file is read; write a file"
+                          " with 'extends: BASE' and the changes instead")
     try:
         val = yaml_value(value) if value.strip() else None
     except yaml.YAMLError:
@@ -536,8 +548,12 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None, _owned
 
     for key in raw:
         if key not in TOP_KEYS:
+            from .textsafe import excerpt
+
+            word = isinstance(key, str) and key.isidentifier() and len(key) <= 40
             raise ConfigError(
-                f"{key}: unknown section" + suggestion(str(key), TOP_KEYS)
+                (f"{key}: unknown section" if word else f"{excerpt(key)}: unknown section (not a section name:"
+                 " is this a cyclesim config?)") + suggestion(str(key), TOP_KEYS)
                 + f"; sections: {', '.join(TOP_KEYS[:-2])}"
             )
     sections = {}
@@ -607,10 +623,36 @@ def load_config(path: str | Path = "demo", overrides: list[str] | tuple = (), re
         ``dotted.key=value`` strings applied after inheritance.
     """
     raw, base_dir = load_raw(path)
+    given = []
     for text in overrides:
         parts, value = parse_override(text)
         raw = apply_override(raw, parts, value)
-    return build_case(raw, base_dir, registry)
+        given.append((parts, value))
+    case = build_case(raw, base_dir, registry)
+    # a file named on the command line is where the user is, not beside the config
+    moved = [(parts, str(Path(v).resolve())) for parts, v in given
+             if isinstance(v, str) and not Path(v).is_absolute() and _declared_kind(case, parts, registry) in ("path", "table")]
+    for parts, v in moved:
+        raw = apply_override(raw, parts, v)
+    return build_case(raw, base_dir, registry) if moved else case
+
+
+def _declared_kind(case: Case, parts: list[str], registry=None) -> str | None:
+    """The declared kind (``path``, ``table``, ...) of the dotted key ``parts`` in ``case``, if any."""
+    if len(parts) != 2:
+        return None
+    sec, name = parts
+    if sec in CORE_SCHEMA:
+        params = CORE_SCHEMA[sec]
+    elif sec in case.submodels:
+        if registry is None:
+            from .registry import get_registry
+
+            registry = get_registry(case.plugins)
+        params = registry.submodel_class(sec, case.submodels[sec].model).params
+    else:
+        return None
+    return next((p.kind for p in params if p.name == name), None)
 
 
 def case_with(case: Case, changes: Mapping[str, Any], registry=None) -> Case:

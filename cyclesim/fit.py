@@ -309,7 +309,11 @@ def _load_traces(traces):
     if isinstance(traces, TraceSet):
         return traces
     if isinstance(traces, (str, Path)):
-        return read_trace(traces)
+        from .traces.trace_checks import check_measured
+
+        ts = read_trace(traces)
+        check_measured(ts, traces)
+        return ts
     sets = [_load_traces(t) for t in traces]
     if not sets:
         raise CyclesimError("fit: no trace given")

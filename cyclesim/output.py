@@ -128,6 +128,23 @@ def trace_csv(trace: dict) -> str:
     return buf.getvalue()
 
 
+CASE_FILES = ("summary.json", "trace.csv", "pressure.png", "pv.png", "logp_logv.png", "heat_release.png",
+              "valves.png", "energy_balance.png")
+"""Every file :func:`write_case` may write (the plots of :func:`cyclesim.plots.plot_case` included)."""
+
+
+def clear_case_files(out: Path) -> list[Path]:
+    """Remove the files a previous :func:`write_case` left in ``out`` (``run --force``), so none of
+    them (a plot the new run does not make, say) is taken for the new run's; other files stay."""
+    gone = []
+    for name in CASE_FILES:
+        f = Path(out) / name
+        if f.is_file() or f.is_symlink():
+            f.unlink()
+            gone.append(f)
+    return gone
+
+
 def write_case(res, out: Path, plots: bool = True) -> list[Path]:
     """Write ``summary.json``, ``trace.csv`` and the plots of one case into ``out``."""
     out = Path(out)

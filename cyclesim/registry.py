@@ -7,6 +7,10 @@ class goes through :func:`submodel_class`.
 from __future__ import annotations
 
 import functools
+import importlib
+import importlib.util
+import os
+import pathlib
 from typing import Iterable
 
 import pluggy
@@ -49,6 +53,7 @@ def _load_entry_points(pm: pluggy.PluginManager) -> None:
         if pm.get_plugin(ep.name) is not None or pm.is_blocked(ep.name):
             continue
         dist = getattr(getattr(ep, "dist", None), "name", None) or "its package"
+        _note_module(ep.module, f"installed plug-in {ep.name!r} ({ep.value}, from {dist})")
         try:
             plugin = ep.load()
         except Exception as exc:  # noqa: BLE001 - reported as one line
@@ -72,19 +77,78 @@ def _check_hooks(pm: pluggy.PluginManager, plugin, what: str) -> None:
 def _import_module(spec: str):
     try:
         if spec.endswith(".py"):
-            import importlib.util
-            import pathlib
-
             path = pathlib.Path(spec).expanduser().resolve()
             mspec = importlib.util.spec_from_file_location(f"cyclesim_user_{path.stem}", path)
             if mspec is None or not path.exists():
                 raise FileNotFoundError(spec)
+            _note_source(str(path), f"plugin {spec!r}")
             module = importlib.util.module_from_spec(mspec)
             mspec.loader.exec_module(module)  # type: ignore[union-attr]
             return module
+        _note_module(spec, f"plugin {spec!r}")
         return importlib.import_module(spec)
     except Exception as exc:  # noqa: BLE001 - reported as one line
         raise PluginError(f"plugin {spec!r}: could not be loaded ({type(exc).__name__}: {exc})") from exc
+
+
+# --------------------------------------------------------------------------
+# Where plug-in code lives: a failure raised from it is that plug-in's
+# --------------------------------------------------------------------------
+
+_SOURCES: dict[str, str] = {}
+"""Real path of a plug-in's file, or of its package folder (ending in the separator), -> label."""
+
+
+def _note_source(path: str, label: str) -> None:
+    _SOURCES.setdefault(os.path.realpath(path), label)
+
+
+def _note_module(name: str, label: str) -> None:
+    """Note the file of an importable module (its folder for a package) before it is imported."""
+    try:
+        mspec = importlib.util.find_spec(name)
+    except (ImportError, ValueError):
+        return
+    origin = getattr(mspec, "origin", None)
+    if not origin or not os.path.isfile(origin):
+        return
+    if mspec.submodule_search_locations:        # a package: every file in its folder
+        _note_source(os.path.dirname(origin) + os.sep, label)
+    else:
+        _note_source(origin, label)
+
+
+def _plugin_of(filename: str) -> str | None:
+    f = os.path.realpath(filename)
+    if f in _SOURCES:
+        return _SOURCES[f]
+    for src, label in _SOURCES.items():
+        if src.endswith(os.sep) and f.startswith(src):
+            return label
+    return None
+
+
+def plugin_failure(exc: BaseException) -> str | None:
+    """One line naming the plug-in whose code raised ``exc``, its file and line, or None.
+
+    Any exception counts, ``SystemExit`` and ``KeyboardInterrupt`` included: a plug-in that
+    raises either is reported as that plug-in's failure rather than ending the run as if it had
+    finished or been interrupted.  The innermost frame in a plug-in's file is named.
+    """
+    import traceback
+
+    frames = traceback.extract_tb(exc.__traceback__)
+    hit = None
+    for fr in frames:
+        label = _plugin_of(fr.filename)
+        if label is not None:
+            hit = (label, fr)
+    if hit is None:
+        return None
+    label, fr = hit
+    what = f"{type(exc).__name__}({', '.join(repr(a) for a in exc.args)})" if exc.args else type(exc).__name__
+    return (f"{label} failed: raised {what} in {fr.name} ({os.path.basename(fr.filename)}:{fr.lineno});"
+            " a plug-in's exception of any kind is its failure")
 
 
 class Registry:
@@ -126,6 +190,10 @@ class Registry:
                 f"submodel {role}.{name} is registered twice ({other.__module__} and {cls.__module__})"
             )
         self.submodels[role][name] = cls
+        for v in vars(cls).values():           # its methods' files, wherever the class came from
+            code = getattr(v, "__code__", None)
+            if code is not None and os.path.isfile(code.co_filename) and _plugin_of(code.co_filename) is None:
+                _note_source(code.co_filename, f"plug-in module {cls.__module__!r}")
 
     def submodel_class(self, role: str, name: str, where: str | None = None) -> type[Submodel]:
         """Look up a submodel class; unknown names get a close-spelling suggestion."""

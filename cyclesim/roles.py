@@ -285,6 +285,8 @@ class ValveFlow(Submodel):
 
     role = "valve_flow"
     required_methods = (("mass_flows",), ("lift",), ("flow_area",))
+    exchanges_gas: ClassVar[bool] = True
+    """False for a model that keeps the valves shut: a full 720 deg cycle then cannot run."""
 
     def mass_flows(self, s: GasState) -> tuple[np.ndarray, np.ndarray]:
         """(intake, exhaust) mass flows [kg/s] (B,), positive **into** the cylinder.

@@ -597,6 +597,7 @@ class ShutValves(ValveFlow):
 
     name = "none"
     summary = "valves shut: no gas exchange (closed cycle)"
+    exchanges_gas = False
     params = ()
     references = ()
 

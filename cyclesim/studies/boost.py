@@ -43,6 +43,8 @@ turbocharger's speed and inertia, and the air filter's pressure drop.
 
 from __future__ import annotations
 
+import math
+
 import json
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -346,6 +348,14 @@ def boost_match(
         raise ConfigError(f"boost pressure {boost_pressure_bar!r} bar: expected a positive number")
     if not (p_max_limit_bar > 0 and t3_limit_K > 0):
         raise ConfigError(f"limits {p_max_limit_bar!r} bar, {t3_limit_K!r} K: expected positive numbers")
+    for name, v in (("boost pressure", boost_pressure_bar), ("tolerance_bar", tolerance_bar),
+                    ("ambient_pressure_bar", ambient_pressure_bar), ("ambient_temperature_K", ambient_temperature_K),
+                    ("turbine_area_cm2", turbine_area_cm2)):
+        if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
+            raise ConfigError(f"{name} {v!r}: expected a finite positive number")
+    if isinstance(max_iterations, bool) or not isinstance(max_iterations, int) or max_iterations < 1:
+        raise ConfigError(f"max_iterations {max_iterations!r}: expected a whole number >= 1"
+                          " (each iteration simulates the engine once)")
     case, label = resolve_case(case, overrides)
     if case.simulation.mode != "full":
         raise ConfigError("boost match needs simulation.mode: full (the gas exchange sets the flows)")

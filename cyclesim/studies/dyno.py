@@ -131,6 +131,18 @@ class DynoNoise:
     readings: int = 20
     seed: int = 0
 
+    def __post_init__(self):
+        for name in ("force_sd_N", "speed_sd_rpm"):
+            v = getattr(self, name)
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not (math.isfinite(v) and v >= 0):
+                raise ConfigError(f"dyno noise {name} = {v!r}: expected a finite number >= 0 (a standard deviation)")
+        for name, lo in (("readings", 1), ("seed", 0)):
+            v = getattr(self, name)
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not (math.isfinite(v) and v == int(v)
+                                                                                and v >= lo):
+                raise ConfigError(f"dyno noise {name} = {v!r}: expected a whole number >= {lo}")
+            setattr(self, name, int(v))
+
 
 @dataclass
 class DynoResult:
@@ -304,6 +316,14 @@ def dyno_test(
         raise ConfigError(f"relative humidity {relative_humidity!r}: expected 0..1")
     if cell_air not in ("intake", "none"):
         raise ConfigError(f"cell air {cell_air!r}: expected 'intake' or 'none'")
+    for name, v, positive in (("inertia_kg_m2", inertia_kg_m2, True), ("duration_s", duration_s, True),
+                              ("ambient_pressure_kPa", ambient_pressure_kPa, True),
+                              ("ambient_temperature_K", ambient_temperature_K, True),
+                              ("start_speed_rpm", start_speed_rpm, True), ("load_torque_Nm", load_torque_Nm, False)):
+        if v is None:
+            continue
+        if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v) or (positive and v <= 0):
+            raise ConfigError(f"dyno {name} {v!r}: expected a finite {'positive ' if positive else ''}number")
     case, label = resolve_case(case, overrides)
     if case.simulation.mode != "full":
         raise ConfigError("the dyno needs simulation.mode: full (brake torque needs the whole cycle)")

@@ -590,9 +590,17 @@ def spark_study(
     for name, v in (("--pmax-limit", p_max_limit_bar), ("--dp-limit", dp_limit_bar_per_deg)):
         if v is not None and not v > 0:
             raise ConfigError(f"{name} {v!r}: expected a positive number")
+    if isinstance(knock_cycles, bool) or not isinstance(knock_cycles, int) or knock_cycles < 0:
+        raise ConfigError(f"--knock-cycles {knock_cycles!r}: expected a whole number >= 0")
+    if not 0.0 < knock_cycle_share <= 1.0:
+        raise ConfigError(f"--knock-cycle-share {knock_cycle_share!r}: expected a number in (0, 1]")
     case, label = resolve_case(base, overrides)
     _check_burn_model(case)
     vals = parse_values(KEY, advances)
+    for v in vals:
+        if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+            raise ConfigError(f"--advance {advances!r}: {v!r} is not a spark advance (expected degrees before"
+                              " TDC as start:stop:step or a,b,c)")
     if len(vals) < 3:
         raise ConfigError(f"--advance {advances!r}: at least 3 advances are needed to find MBT")
     options = {"torque_fraction": torque_fraction, "knock_margin_deg": knock_margin_deg,

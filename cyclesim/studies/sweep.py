@@ -44,7 +44,7 @@ import numpy as np
 import yaml
 
 from ..config import CORE_SCHEMA, Case, case_with, resolve_case, yaml_value
-from ..errors import ConfigError, CyclesimError
+from ..errors import ConfigError, CyclesimError, InputFileError
 from ..output import CAUTION, atomic_write_text
 from ..params import suggestion
 from ..roles import ROLES
@@ -414,8 +414,10 @@ class _Bar:
     width = 30
 
     def __init__(self, total: int, stream=None):
+        from ..textsafe import terminal
+
         self.total = max(total, 1)
-        self.stream = stream or sys.stderr
+        self.stream = stream or terminal(sys.stderr)  # redraws itself with a carriage return
 
     def __call__(self, done: int, total: int, elapsed: float) -> None:
         n = int(round(self.width * done / max(total, 1)))

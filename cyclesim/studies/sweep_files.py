@@ -83,6 +83,8 @@ def read_sweep_csv(path: str | Path) -> tuple[list[str], list[dict]]:
         text = Path(path).read_text(encoding="utf-8")
     except UnicodeDecodeError:
         raise InputFileError(f"{path}: not a sweep table (not UTF-8 text); use --force to start again") from None
+    if "\x00" in text:
+        raise InputFileError(f"{path}: not a sweep table (binary); use --force to start again")
     if not text.strip():
         return [], []
     if not text.endswith("\n"):

@@ -60,6 +60,61 @@ def _load_calibration(cal) -> dict:
         raise CyclesimError(f"{p}: cannot read the calibration ({exc.strerror or exc})") from exc
     except json.JSONDecodeError as exc:
         raise CyclesimError(f"{p}: not JSON ({exc.msg}, line {exc.lineno})") from exc
+    except UnicodeDecodeError:
+        raise CyclesimError(f"{p}: not a calibration (not UTF-8 text)") from None
+
+
+def read_calibration(cal, case: Case | None = None) -> dict:
+    """A calibration (``calibration.json`` path or its content), checked by :func:`check_calibration`."""
+    out = _load_calibration(cal)
+    check_calibration(out, case, "calibration" if isinstance(cal, Mapping) else str(cal))
+    return out
+
+
+def check_calibration(cal: Mapping, case: Case | None = None, where: str = "calibration") -> None:
+    """Refuse a calibration that ``cyclesim fit`` could not have written, in one line.
+
+    It must name its ``parameters`` (each a model parameter a fit may estimate, see
+    :func:`cyclesim.fit.check_calibratable`, when ``case`` is given), their fitted ``values``
+    (finite) and a ``covariance``: square, finite, symmetric and positive semi-definite, as any
+    covariance matrix is (e.g. Seber & Lee 2003, *Linear Regression Analysis*, sec. 1.3); the
+    eigenvalues may fall below zero only by rounding (1e-9 of the largest).
+    """
+    if not isinstance(cal, Mapping):
+        raise CyclesimError(f"{where}: expected a JSON object written by 'cyclesim fit', got {type(cal).__name__}")
+    missing = [k for k in ("parameters", "values", "covariance") if k not in cal]
+    if missing:
+        raise CyclesimError(f"{where}: lacks {', '.join(missing)} (expected the calibration.json written by"
+                            " 'cyclesim fit')")
+    keys = cal["parameters"]
+    if not isinstance(keys, list) or not keys or not all(isinstance(k, str) for k in keys):
+        raise CyclesimError(f"{where}: parameters: expected a list of config keys")
+    try:
+        vals = np.asarray(cal["values"], float)
+        C = np.asarray(cal["covariance"], float)
+    except (TypeError, ValueError):
+        raise CyclesimError(f"{where}: values and covariance must be numbers") from None
+    if vals.shape != (len(keys),) or not np.all(np.isfinite(vals)):
+        raise CyclesimError(f"{where}: values: expected {len(keys)} finite numbers, one per parameter")
+    if C.shape != (len(keys), len(keys)) or not np.all(np.isfinite(C)):
+        raise CyclesimError(f"{where}: covariance: expected a finite {len(keys)} x {len(keys)} matrix")
+    scale = max(float(np.max(np.abs(C))), 1e-300)
+    if not np.allclose(C, C.T, rtol=1e-6, atol=1e-12 * scale):
+        raise CyclesimError(f"{where}: covariance is not symmetric")
+    if np.any(np.diag(C) < 0) or float(np.linalg.eigvalsh(0.5 * (C + C.T)).min()) < -1e-9 * scale:
+        raise CyclesimError(f"{where}: covariance is not positive semi-definite (a negative variance):"
+                            " not a covariance matrix")
+    for b in ("lower_bounds", "upper_bounds"):
+        if cal.get(b) is not None and (not isinstance(cal[b], list) or len(cal[b]) != len(keys)):
+            raise CyclesimError(f"{where}: {b}: expected {len(keys)} entries (null for none)")
+    if case is not None:
+        from ..fit import check_calibratable
+
+        for k in keys:
+            try:
+                check_calibratable(case, k, case.simulation.mode)
+            except CyclesimError as exc:
+                raise CyclesimError(f"{where}: {exc}") from None
 
 
 MAX_DRAW_ROUNDS = 200
@@ -243,7 +298,7 @@ def propagate(calibrated, calibration, study: str = "sweep", vary: Any = None, n
     from ..api import simulate
 
     base = _resolve(calibrated)
-    cal = _load_calibration(calibration)
+    cal = read_calibration(calibration, base)
     key, spec = _parse_vary(vary, study)
     values = parse_values(key, spec)
     info: dict = {}

@@ -21,6 +21,7 @@ from typing import Iterable, Sequence
 import numpy as np
 
 from ..errors import CyclesimError, InputFileError
+from ..textsafe import excerpt
 from ..output import atomic_write_bytes, atomic_write_text
 from ..output import plain as _plain
 
