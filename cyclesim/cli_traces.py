@@ -73,9 +73,15 @@ def add_parsers(subparsers) -> None:
                         " (default: no correction)")
     a.add_argument("--tdc-from-fired", action="store_true",
                    help="for a set without motored cycles: fit the TDC offset with the pegging constant and the"
-                        " compression exponent to the fired cycles' compression, state its 95 %% interval and"
-                        " correct it (refused, with the reason, where the interval is wider than 0.3 deg)"
-                        " (default: off)")
+                        " wall heat to the first law of the fired cycles' compression before the spark, state its"
+                        " 95 %% interval and correct it (refused, with the reason, where the interval is wider"
+                        " than 0.3 deg) (default: off)")
+    a.add_argument("--spark-advance", type=float, metavar="DEG",
+                   help="spark advance of the recorded set [deg BTDC]: ends the --tdc-from-fired window 2 deg"
+                        " before it (default: the engine config's burn.spark_advance_deg; none: window to -40 deg)")
+    a.add_argument("--sensor-delay-us", type=float, metavar="MICROSECONDS",
+                   help="known delay of the pressure signal behind the chamber (a recessed mount's passage:"
+                        " 2 zeta / (2 pi f_n)) [us], taken off the phase --tdc-from-fired finds (default 0)")
     a.add_argument("--partial-burn-share", type=float, default=0.85, metavar="SHARE",
                    help="a cycle releasing less than this share of the fired cycles' median heat is a partial"
                         " burn (below 0.1, with no gross work or a flat pressure ratio, a misfire), 0.1..1 [-]"
@@ -133,6 +139,9 @@ def analysis_inputs(case):
     gas = case.section("gas")
     if getattr(gas, "burned_gas", None):
         extra["burned_gas"] = str(gas.burned_gas)
+    spark = get_dotted(case.raw, "burn.spark_advance_deg")
+    if spark is not None and str(get_dotted(case.raw, "burn.model") or "") != "none":
+        extra["spark_advance_deg"] = float(spark)
     s = AnalysisSettings(ivc_deg=float(v.ivc_deg), evo_deg=float(v.evo_deg),
                          T_ivc_K=float(op.ivc_temperature_K), tdc_wall_temperature_K=float(t_wall),
                          bore_m=e.bore_mm / 1000.0, **extra)
@@ -179,6 +188,16 @@ def cmd_analyse(args) -> int:
     settings = with_measured_masses(settings, ts.meta)
     settings = settings.replace(peg=args.peg, tdc_correct=bool(args.tdc_correct), tdc_from_fired=from_fired,
                                 partial_burn_share=share)
+    spark = getattr(args, "spark_advance", None)
+    if spark is not None:
+        if not (math.isfinite(spark) and -20.0 <= spark <= 90.0):
+            raise CyclesimError(f"--spark-advance {spark:g}: expected degrees before TDC, -20..90")
+        settings = settings.replace(spark_advance_deg=float(spark))
+    delay = getattr(args, "sensor_delay_us", None)
+    if delay is not None:
+        if not (math.isfinite(delay) and 0.0 <= delay <= 1000.0):
+            raise CyclesimError(f"--sensor-delay-us {delay:g}: expected microseconds, 0..1000")
+        settings = settings.replace(sensor_delay_s=float(delay) * 1e-6)
     if tau is not None:
         settings = settings.replace(thermal_time_constant_s=float(tau))
     res = analyse(ts, geom, settings, motored=motored)      # errors here leave no --out folder behind
@@ -198,8 +217,9 @@ def cmd_analyse(args) -> int:
           f" (figures below over the fired cycles only; misfires and partial burns excluded)")
     if res.tdc["estimated"] and res.tdc.get("interval_deg"):
         lo, hi = res.tdc["interval_deg"]
+        lo_w, hi_w = res.tdc["window_deg"]
         print(f"  TDC offset found and corrected     {res.tdc['offset_deg']:+.2f} deg (95 % {lo:+.2f}..{hi:+.2f};"
-              f" fired-cycle compression, n {res.tdc['n_compression']:.3f}, {res.tdc['n_cycles_fit']} cycles)")
+              f" fired-cycle compression {lo_w:g}..{hi_w:g} deg, {res.tdc['n_cycles_fit']} cycles)")
     elif res.tdc["estimated"]:
         print(f"  TDC offset found and corrected     {res.tdc['offset_deg']:+.2f} deg"
               f" (loss angle {res.tdc['loss_angle_deg']:.2f} deg before TDC, {res.tdc['n_motored']} motored cycles)")

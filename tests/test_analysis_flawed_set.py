@@ -17,13 +17,13 @@ from hypothesis import given, settings, strategies as st
 from cyclesim.cli_traces import add_parsers, analysis_inputs, cmd_analyse
 from cyclesim.config import load_config
 from cyclesim.errors import CyclesimError
-from cyclesim.traces.analysis import AnalysisSettings, analyse, wall_heat_scale_flag, with_measured_masses
+from cyclesim.traces.analysis import (AnalysisSettings, VolumeFunction, analyse, wall_heat_scale_flag,
+                                      with_measured_masses)
 from cyclesim.traces.artefacts import ArtefactSettings
 from cyclesim.traces.classify import classify_cycles, cycle_evidence
 from cyclesim.traces.engine_check import engine_mismatches
 from cyclesim.traces.export import TraceSet, write_npz
 from cyclesim.traces.synthesis import CycleVariation, synthesize
-from cyclesim.traces.tdc_fired import fit_tdc_fired
 
 
 def _ts(ss):
@@ -165,50 +165,128 @@ def test_wall_heat_scale_flags():
 
 
 # ---------------------------------------------------------------------- TDC from fired cycles
-def test_tdc_from_fired_compression_recovers_an_exact_polytrope():
-    # an exact polytrope p V(true)^1.32 = const with a pegging offset and 0.005 bar noise: the joint fit
-    # returns the offset within its interval (exact model, so the interval is the statistical one)
+def test_compression_release_is_zero_along_a_cantera_isentrope():
+    # the first law of the fired-cycle TDC fit: along an isentrope of a methane-air charge the release
+    # m [u(T) - u(T0)] + integral p dV vanishes.  Reference: Cantera 3.x with GRI-Mech 3.0 (gri30.yaml),
+    # the fresh charge compressed at constant entropy over the demo's -126..-26 deg.  Limit: 0.2 % of the
+    # compression work (the tables' NASA-7 data are GRI-Mech 3.0's; the rest is the trapezoid rule)
+    import cantera as ct
+
+    from cyclesim.traces.analysis import _gas_tables
+    from cyclesim.traces.tdc_fired import _gas_lookup, compression_release
+
     g, _, _ = analysis_inputs(load_config("demo"))
-    th = np.arange(-360.0, 360.0, 0.2)
-    d = 0.5
-    rng = np.random.default_rng(4)
-    p = 1.0e5 * (g.volume(np.array([-180.0]))[0][0] / g.volume(th - d)[0]) ** 1.32 - 0.3e5
-    p = p + rng.normal(0.0, 500.0, th.size)
-    r = fit_tdc_fired(th, p, lambda t: g.volume(t)[0], window_deg=(-120.0, -10.0), max_width_deg=1.0)
-    lo, hi = r["interval_deg"]
-    assert lo <= d <= hi and r["width_deg"] < 0.3
-    assert r["n_compression"] == pytest.approx(1.32, abs=0.01)
-    assert r["peg_constant_bar"] == pytest.approx(0.3, abs=0.02)
+    V = g.volume(np.arange(-126.0, -26.0, 0.2))[0]
+    gas = ct.Solution("gri30.yaml")
+    gas.set_equivalence_ratio(1.0, "CH4", "O2:0.2095, N2:0.7812, AR:0.0093")
+    gas.TP = 350.0, 1.0e5
+    mass = gas.density * V[0]
+    s0 = gas.s
+    p = np.empty(V.size)
+    for k, v in enumerate(V):
+        gas.SV = s0, v / mass
+        p[k] = gas.P
+    tab = _gas_tables(AnalysisSettings(fuel="methane", fuel_air_lambda=1.0))
+    q, T = compression_release(p, V, mass, _gas_lookup(tab, mass / float(np.mean(V)), 0.0))
+    work = -np.trapezoid(p, V)
+    assert T[-1] == pytest.approx(gas.T, rel=1e-3)
+    assert np.max(np.abs(q)) < 2e-3 * work
+
+
+@pytest.fixture(scope="module")
+def clean_full_load():
+    """4 noise-free cycles of the demo at full load (spark 24 deg BTDC), TDC offset 0.5 deg, no other flaw."""
+    return synthesize(load_config("demo"), 4, CycleVariation(seed=3), resolution_deg=0.2,
+                      artefacts=ArtefactSettings.none().replace(tdc_offset_deg=0.5))
+
+
+def _fired_fit(ss, theta=None, sensor_delay_s=0.0):
+    from cyclesim.traces.analysis import _peg_offsets, tdc_from_fired
+
+    g, s, _ = analysis_inputs(load_config("demo"))
+    s = with_measured_masses(s, ss.meta).replace(sensor_delay_s=sensor_delay_s)
+    th = ss.theta if theta is None else theta
+    ts = TraceSet(th, ss.pressure_pa, ss.intake_pa, ss.meta["speed_rpm"], ss.meta)
+    vol = VolumeFunction(g, th, s.bore_m)
+    P = ss.pressure_pa - _peg_offsets(ts, th, vol, s)[:, None]
+    return tdc_from_fired(th, P, vol, s, ss.meta["speed_rpm"])
+
+
+def test_tdc_from_fired_on_the_simulated_compression(clean_full_load):
+    # the simulator's compression (its own Woschni with three wall temperatures, blowby, a residual share
+    # of about 0.05 where the analyser assumes 0.07) against the analyser's first law with the wall heat
+    # fitted: the offset within 0.05 deg (measured +0.013 deg of model error); the fitted wall heat
+    # plausible (multiplier near 1, wall temperature between the demo's liner 420 K and piston 540 K)
+    r = _fired_fit(clean_full_load)
+    assert r["offset_deg"] == pytest.approx(0.5, abs=0.05)
+    assert 0.5 < r["woschni_multiplier_fit"] < 2.0
+    assert 400.0 < r["wall_temperature_fit_K"] < 540.0
+    assert r["window_deg"] == (-126.0, -26.0)
+
+
+@settings(max_examples=4, deadline=None)
+@given(shift=st.floats(-1.0, 1.0))
+def test_tdc_from_fired_follows_a_relabelled_angle(clean_full_load, shift):
+    # labelling every sample `shift` deg later moves the offset found by the same amount (the window is
+    # in labelled angles, so a few samples change at its ends: 0.02 deg allowed)
+    base = _fired_fit(clean_full_load)["offset_deg"]
+    moved = _fired_fit(clean_full_load, clean_full_load.theta + shift)["offset_deg"]
+    assert moved - base == pytest.approx(shift, abs=0.02)
 
 
 def test_tdc_from_fired_cycles_refuses_a_wide_interval(mixed_set):
-    # on the compression before the spark (default window) the offset, the exponent and the pegging
-    # constant are too alike to fix the phase within 0.3 deg: refused, with the reason
-    with pytest.raises(CyclesimError, match=r"refused: the 95 % interval .* wide"):
+    # 16 part-load cycles at 0.5 deg, 5 of them fired: too few samples of too few cycles to fix the phase
+    # within 0.3 deg: refused, with the reason
+    with pytest.raises(CyclesimError, match=r"refused: the 95 % interval .* wide .* 5 cycles"):
         _analyse(mixed_set, "demo_part_load", tdc_from_fired=True)
 
 
-@pytest.mark.parametrize("offset_deg", [0.2, 0.5, 1.0])
-def test_tdc_from_fired_cycles_on_ten_seeded_sets(offset_deg):
-    # 10 seeded sets of 10 fired cycles (the demo at full load, spark 24 deg BTDC) per offset, with the
-    # default flaws plus 0.04 bar noise, -2 % gain and a 12 kHz passage resonance: the compression
-    # before the spark does not fix the phase within 0.3 deg (measured widths 8-22 deg), so every set
-    # is refused with the reason; the interval itself is honest: lifted, it holds the truth in at
-    # least 9 of 10 sets (95 % intervals; measured 9/10 at each offset)
+#: The 12 kHz passage of the study, damping 0.1, and its signal delay 2 zeta / omega_n [s] (a
+#: second-order low-pass lags by -2 zeta omega / omega_n in phase well below omega_n; common practice)
+PASSAGE_HZ, PASSAGE_DAMPING = 12000.0, 0.1
+PASSAGE_DELAY_S = 2.0 * PASSAGE_DAMPING / (2.0 * np.pi * PASSAGE_HZ)
+
+
+@pytest.mark.slow
+def test_tdc_from_fired_cycles_on_ten_seeded_sets(tmp_path, capsys):
+    # the issue's pass criterion: 10 seeded sets per offset (0.2, 0.5, 1.0 deg) of 300 fired cycles (the
+    # demo at full load, spark 24 deg BTDC, 0.2 deg) with the default flaws plus 0.04 bar noise, -2 % gain
+    # and a 12 kHz passage resonance whose delay (2.65 us) the engineer states: the 95 % interval holds the
+    # truth in at least 9 of 10 sets and is under 0.3 deg wide (`python benchmarks/tdc_fired_coverage.py`
+    # prints the figures).  The three offsets of one seed share its simulated cycles (checkpoint folder)
     case = load_config("demo")
-    g, s, _ = analysis_inputs(case)
-    a = ArtefactSettings.default().replace(tdc_offset_deg=offset_deg, noise_bar=0.04, gain_error=-0.02,
-                                           passage_frequency_hz=12000.0)
-    covered = 0
-    for seed in range(10):
-        ss = synthesize(case, 10, CycleVariation(seed=100 + seed), resolution_deg=0.2, artefacts=a)
-        with pytest.raises(CyclesimError, match=r"refused: the 95 % interval of the offset is \d+\.\d+ deg wide"):
-            analyse(_ts(ss), g, s.replace(tdc_from_fired=True))
-        P = ss.pressure_pa - np.mean(ss.pressure_pa[:, (ss.theta >= -190) & (ss.theta <= -170)], axis=1)[:, None]
-        r = fit_tdc_fired(ss.theta, P.mean(axis=0), lambda t: g.volume(t)[0], n_cycles=10, max_width_deg=1e3)
-        lo, hi = r["interval_deg"]
-        covered += lo <= offset_deg <= hi
-    assert covered >= 9
+    covered = {d: 0 for d in (0.2, 0.5, 1.0)}
+    for seed in range(100, 110):
+        for d in covered:
+            a = ArtefactSettings.default().replace(tdc_offset_deg=d, noise_bar=0.04, gain_error=-0.02,
+                                                   passage_frequency_hz=PASSAGE_HZ, passage_damping=PASSAGE_DAMPING)
+            ss = synthesize(case, 300, CycleVariation(seed=seed), resolution_deg=0.2, artefacts=a,
+                            checkpoint_dir=tmp_path / str(seed))
+            r = _fired_fit(ss, sensor_delay_s=PASSAGE_DELAY_S)
+            lo, hi = r["interval_deg"]
+            assert r["width_deg"] < 0.3
+            covered[d] += lo <= d <= hi
+    print(f"intervals holding the truth per offset: {covered}")
+    assert all(c >= 9 for c in covered.values())
+    # the same through the command line on the last set: found, stated and corrected
+    f = write_npz(tmp_path / "set.npz", _ts(ss))
+    args = _parser().parse_args(["analyse", str(f), "--engine", "demo", "--out", str(tmp_path / "o"),
+                                 "--tdc-from-fired", "--sensor-delay-us", f"{PASSAGE_DELAY_S * 1e6:.6f}",
+                                 "--no-plots", "--thermal-tau", "0.002"])
+    assert cmd_analyse(args) == 0
+    line = next(ln for ln in capsys.readouterr().out.splitlines() if "TDC offset found" in ln)
+    assert "fired-cycle compression -126..-26 deg, 300 cycles" in line
+    doc = json.loads((tmp_path / "o" / "analysis_summary.json").read_text())
+    assert doc["tdc"]["offset_deg"] == pytest.approx(r["offset_deg"], abs=1e-6)
+    assert doc["tdc"]["sensor_delay_deg"] == pytest.approx(6.0 * 3000.0 * PASSAGE_DELAY_S, rel=1e-5)
+
+
+def test_tdc_from_fired_takes_a_stated_sensor_delay_off_the_phase(clean_full_load):
+    # the fitted phase is the offset plus the sensor's delay: a stated delay moves the offset, not the phase
+    r0 = _fired_fit(clean_full_load)
+    r1 = _fired_fit(clean_full_load, sensor_delay_s=5e-6)
+    assert r1["phase_deg"] == pytest.approx(r0["phase_deg"], abs=1e-9)
+    assert r0["offset_deg"] - r1["offset_deg"] == pytest.approx(6.0 * 3000.0 * 5e-6, rel=1e-9)
 
 
 # ---------------------------------------------------------------------- command line
@@ -266,6 +344,8 @@ def test_a_mismatched_engine_is_named(mixed_set, tmp_path, capsys):
 @pytest.mark.parametrize("argv, match", [
     (["--partial-burn-share", "1.5"], "--partial-burn-share 1.5"),
     (["--tdc-from-fired", "--tdc-correct"], "choose one"),
+    (["--tdc-from-fired", "--sensor-delay-us", "-3"], "--sensor-delay-us -3: expected microseconds"),
+    (["--tdc-from-fired", "--spark-advance", "200"], "--spark-advance 200: expected degrees before TDC"),
 ])
 def test_analyse_option_slips(mixed_set, tmp_path, argv, match):
     f = write_npz(tmp_path / "set.npz", _ts(mixed_set))

@@ -139,7 +139,7 @@ from ..errors import CyclesimError
 from .cycle_math import VolumeFunction, _interp, _pdv, _peak, _slope_loglog, _window_mean
 from .classify import CLASSES, ClassifySettings, classify_cycles, cycle_evidence
 from .export import TraceSet
-from .tdc_fired import fit_tdc_fired
+from .tdc_fired import fired_window, fit_tdc_fired
 
 __all__ = ["AnalysisSettings", "AnalysisResult", "VolumeFunction", "analyse", "estimate_tdc_offset",
            "apparent_heat_release", "with_measured_masses", "AIR_MASS_KEY", "FUEL_MASS_KEY"]
@@ -188,6 +188,11 @@ class AnalysisSettings:
         where its 95 % interval is narrow enough (:mod:`cyclesim.traces.tdc_fired`).
     tdc_offset_deg : float or None
         A known TDC offset to correct [deg] (skips the estimate).
+    spark_advance_deg : float or None
+        Spark advance of the set [deg BTDC], if known: ends the window of ``tdc_from_fired``.
+    sensor_delay_s : float
+        Known delay of the pressure signal behind the chamber [s] (a recessed mount), taken off
+        the phase ``tdc_from_fired`` finds.
     misfire_release_share, partial_burn_share : float
         Thresholds of the cycle classification (:mod:`cyclesim.traces.classify`): a cycle
         whose net released heat is below these shares of the fired cycles' median is a
@@ -270,6 +275,8 @@ class AnalysisSettings:
     tdc_correct: bool = False
     tdc_from_fired: bool = False
     tdc_offset_deg: float | None = None
+    spark_advance_deg: float | None = None
+    sensor_delay_s: float = 0.0
     tdc_wall_temperature_K: float = 450.0
     misfire_release_share: float = 0.1
     partial_burn_share: float = 0.85
@@ -1049,6 +1056,18 @@ def _tdc_from_motored(traceset, motored, P, mask, vol, s: AnalysisSettings, tdc:
     return float(est["offset_deg"])
 
 
+def tdc_from_fired(th, P_fired, vol: VolumeFunction, s: AnalysisSettings, speed_rpm: float) -> dict:
+    """The TDC offset from the fired cycles' compression (:func:`cyclesim.traces.tdc_fired.fit_tdc_fired`)
+    with the analyser's gas tables, trapped mass and Woschni correlation (compression form)."""
+    def wall_heat(t, p, V, T, T_wall):
+        sw = s.replace(wall_temperature_K=T_wall, woschni_multiplier=1.0)
+        return _woschni_wall_heat(t, p, V, T, vol, sw, speed_rpm, np.nan, np.inf)
+
+    return fit_tdc_fired(th, P_fired, vol, _gas_tables(s), s.trapped_mass(), s.residual_fraction, wall_heat,
+                         fired_window(s.ivc_deg, s.spark_advance_deg), T_start_K=s.T_ivc_K,
+                         sensor_delay_deg=6.0 * speed_rpm * s.sensor_delay_s)
+
+
 def analyse(traceset: TraceSet, geometry_or_volume, settings: AnalysisSettings | None = None,
             motored: TraceSet | None = None) -> AnalysisResult:
     """Analyse a measured trace set.
@@ -1089,10 +1108,10 @@ def analyse(traceset: TraceSet, geometry_or_volume, settings: AnalysisSettings |
     elif s.tdc_from_fired:
         if not (codes == 0).any():
             raise CyclesimError("TDC from fired cycles: the set has no fired cycle")
-        est = fit_tdc_fired(th, np.mean(P[codes == 0], axis=0), vol, n_cycles=int(np.sum(codes == 0)))
+        est = tdc_from_fired(th, P[codes == 0], vol, s, traceset.speed_rpm)
         d = est["offset_deg"]
-        tdc.update(est, estimated=True, method="compression polytrope of the fired cycles (offset, exponent and"
-                   " pegging constant fitted together)")
+        tdc.update(est, estimated=True, method="first law of the fired cycles' compression before the spark"
+                   " (offset, pegging constant and Woschni wall heat fitted together)")
     th_true = th - d
     if s.peg == "polytropic" and d:
         offs = _peg_offsets(traceset, th_true, vol, s)
