@@ -231,12 +231,23 @@ def _add_engineering_parsers(subparsers) -> None:
 
     m = subparsers.add_parser(
         "map", help="full-load curve and part-load map (BSFC, efficiency, BMEP, spark)",
-        description="Full-load torque and power against speed, and a speed x intake-pressure map with"
-                    " MBT spark per point (or the case's spark); tables and contour plots.")
+        description="Full-load torque and power against speed, and a speed x intake-pressure map, with the"
+                    " spark per point (knock-limited where the config has a knock model, else MBT, or the"
+                    " case's) and optional enrichment to an exhaust-temperature limit; tables and plots.")
     m.add_argument("--speeds", default=None, metavar="SPEC", help="speeds [rpm], a,b,c or start:stop:step")
     m.add_argument("--loads", default=None, metavar="SPEC", help="intake pressures [bar]")
-    m.add_argument("--spark", choices=("mbt", "fixed"), default="mbt")
-    m.add_argument("--advances", default=None, metavar="SPEC", help="spark advances tried per point")
+    m.add_argument("--spark", choices=("mbt", "knock_limited", "fixed"), default=None,
+                   help="spark per point: knock_limited (default with a knock model: the more retarded of MBT"
+                        " and the knock limit less --knock-margin), mbt (default without one), or fixed")
+    m.add_argument("--advances", default=None, metavar="SPEC", help="spark advances tried first per point")
+    m.add_argument("--knock-margin", type=float, default=2.0, metavar="DEG",
+                   help="retard kept from the knock-limited advance [deg] (default 2)")
+    m.add_argument("--pmax-limit", type=float, default=None, metavar="BAR", help="peak-pressure limit of the spark [bar]")
+    m.add_argument("--exhaust-limit-K", type=float, default=None, metavar="K",
+                   help="enrich to hold this exhaust temperature (enthalpy average at the valve) [K]")
+    m.add_argument("--lambda-floor", type=float, default=0.75, metavar="LAMBDA",
+                   help="richest lambda of the enrichment (default 0.75)")
+    m.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
     m.add_argument("--exhaust", choices=("flow", "fixed"), default="flow",
                    help="exhaust back pressure: from each point's flow through a fixed restriction, the"
                         " config's value at the config's own flow (default), or the config's value everywhere")
@@ -327,22 +338,30 @@ def cmd_dyno(args) -> int:
 
 def cmd_map(args) -> int:
     """``cyclesim map``: full-load curve and part-load map."""
+    from .errors import ConfigError
     from .studies.maps import check_map_inputs, full_load_curve, part_load_map
 
     # refuse bad inputs before the output folder is made
     check_map_inputs(args.config, args.speeds, args.loads, args.spark, args.advances,
-                     overrides=args.overrides, exhaust=args.exhaust)
+                     overrides=args.overrides, exhaust=args.exhaust, exhaust_limit_K=args.exhaust_limit_K,
+                     lambda_floor=args.lambda_floor)
+    if args.knock_margin < 0 or (args.pmax_limit is not None and not args.pmax_limit > 0):
+        raise ConfigError(f"--knock-margin {args.knock_margin:g} / --pmax-limit {args.pmax_limit}: expected a"
+                          " margin >= 0 deg and a positive limit")
     out = _out(args)
     t0 = time.perf_counter()
     files = []
+    opts = dict(overrides=args.overrides, out=out, plots=not args.no_plots, exhaust=args.exhaust,
+                knock_margin_deg=args.knock_margin, exhaust_limit_K=args.exhaust_limit_K,
+                lambda_floor=args.lambda_floor, p_max_limit_bar=args.pmax_limit,
+                progress=False if args.no_progress else None)
+    fl = None
     if not args.part_load_only:
-        fl = full_load_curve(args.config, args.speeds, overrides=args.overrides, out=out, plots=not args.no_plots,
-                             exhaust=args.exhaust)
+        fl = full_load_curve(args.config, args.speeds, spark=args.spark, advances=args.advances, **opts)
         print(fl.text())
         files += fl.files
     if not args.full_load_only:
-        pm = part_load_map(args.config, args.speeds, args.loads, args.spark, args.advances,
-                           overrides=args.overrides, out=out, plots=not args.no_plots, exhaust=args.exhaust)
+        pm = part_load_map(args.config, args.speeds, args.loads, args.spark, args.advances, full_load=fl, **opts)
         print(pm.text())
         files += pm.files
     print(f"simulated in {time.perf_counter() - t0:.1f} s")

@@ -314,8 +314,9 @@ def choose_spark(points, make_case, mode: str, *, advances=None, knock_margin_de
             a, by = hi_lim, LIMIT_CLAMP
         if by == LIMIT_KNOCK and last_clear[pt] is None:
             a, by = lo_lim, LIMIT_CLAMP     # knock at the least advance allowed
+        a = math.floor(a * 1000.0) / 1000.0     # to 0.001 deg, rounded towards retard
         margin = None if kl[pt] is None else kl[pt] - a
-        picks[pt] = SparkPick(round(a, 3), by, mbt_deg=mbt[pt], knock_limit_deg=kl[pt], knock_margin_deg=margin,
+        picks[pt] = SparkPick(a, by, mbt_deg=mbt[pt], knock_limit_deg=kl[pt], knock_margin_deg=margin,
                               in_contours=by not in (LIMIT_NO_MBT, LIMIT_FAILED), tried=t)
     return picks
 
