@@ -33,6 +33,20 @@ LIMIT_STYLE = {
 """Marker and colour of each limiting reason (spelt out in the legend)."""
 
 
+KNOCK_MARGIN_LEVELS = (1, 2, 3, 4, 6, 8)
+KNOCK_MARGIN_CAP_DEG = 10.0
+"""Knock margins drawn capped here [deg]: beyond it knock does not bear on the spark."""
+
+
+def knock_margin_for_map(m):
+    """Knock margin [deg] per point, capped at :data:`KNOCK_MARGIN_CAP_DEG`; where no advance run
+    knocked, its lower bound (largest advance run without knock less the chosen advance)."""
+    km = _col(m, "knock_margin_deg")
+    low = _col(m, "knock_free_to_deg") - _col(m, "spark_advance_deg")
+    km = np.where(np.isfinite(km), km, low)
+    return np.minimum(km, KNOCK_MARGIN_CAP_DEG)
+
+
 def _col(m, name):
     return m.column(name) if name in m.columns else np.full(len(m.rows), np.nan)
 
@@ -147,12 +161,16 @@ def plot_part_load(m, out: Path) -> list[Path]:
                     cs = ax.tricontourf(tri, zz, levels=10, cmap=cmap)
                     cl = ax.tricontour(tri, zz, levels=cs.levels, colors="k", linewidths=0.5)
                 else:
-                    fill = [min(min(levels) - 20, float(np.nanmin(zz)) - 1), *levels,
-                            max(max(levels) + 100, float(np.nanmax(zz)) + 1)]
+                    span = levels[-1] - levels[0]
+                    fill = [min(levels[0] - 0.1 * span, float(np.nanmin(zz)) - 1e-6), *levels,
+                            max(levels[-1] + 0.25 * span, float(np.nanmax(zz)) + 1e-6)]
                     cs = ax.tricontourf(tri, zz, levels=fill, cmap=cmap)
                     cl = ax.tricontour(tri, zz, levels=list(levels), colors="k", linewidths=0.8)
                 ax.clabel(cl, fontsize=8, fmt=fmt, inline=True)
-                fig.colorbar(cs, ax=ax, label=zlabel)
+                cb = fig.colorbar(cs, ax=ax, label=zlabel, ticks=None if levels is None else list(levels),
+                                  spacing="uniform")
+                if levels is not None:
+                    cb.ax.set_yticklabels([fmt % v for v in levels])
                 drawn = True
             except (ValueError, RuntimeError):
                 drawn = False
@@ -169,6 +187,10 @@ def plot_part_load(m, out: Path) -> list[Path]:
         if len(line[0]):
             ax.plot(line[0], line[1], "-", color="k", lw=2, label="full-load line")
         ax.axhline(BMEP_FLOOR_BAR, color="0.5", lw=0.8, ls=":")
+        if np.isfinite(n).any():
+            lo, hi = np.nanmin(n), np.nanmax(n)
+            pad = 0.03 * (hi - lo if hi > lo else max(hi, 1.0))
+            ax.set_xlim(lo - pad, hi + pad)
         ax.set_xlabel("engine speed [rpm]")
         ax.set_ylabel("BMEP [bar]")
         ax.set_title(f"{m.base_config}: {title}")
@@ -181,9 +203,11 @@ def plot_part_load(m, out: Path) -> list[Path]:
           fmt="%.1f")
     frame("spark advance [deg BTDC] and what set it", _col(m, "spark_advance_deg"), "spark advance [deg BTDC]",
           "map_spark.png", fmt="%.0f", limits=True)
-    if np.isfinite(_col(m, "knock_margin_deg")).any():
-        frame("knock margin: retard from the knock-limited advance [deg]", _col(m, "knock_margin_deg"),
-              "knock margin [deg]", "map_knock_margin.png", fmt="%.1f", cmap="RdYlGn")
+    km = knock_margin_for_map(m)
+    if np.isfinite(km).any():
+        frame(f"knock margin: retard from the knock limit [deg] ({KNOCK_MARGIN_CAP_DEG:g}: that or more)", km,
+              "knock margin [deg]", "map_knock_margin.png", levels=KNOCK_MARGIN_LEVELS, fmt="%.0f",
+              cmap="RdYlGn")
     frame("exhaust temperature at the valve [K]", _col(m, "exhaust_temperature_K"), "exhaust temperature [K]",
           "map_exhaust_temperature.png", cmap="inferno")
     # intake pressure - BMEP relation (the load axis the map was run on)

@@ -229,7 +229,7 @@ def _point_row(pt, p_exh, s) -> dict:
     return row
 
 
-SPARK_COLUMNS = ("spark_advance_deg", "spark_limit", "mbt_deg", "knock_limit_deg", "knock_margin_deg",
+SPARK_COLUMNS = ("spark_advance_deg", "spark_limit", "mbt_deg", "knock_limit_deg", "knock_margin_deg", "knock_free_to_deg",
                  "knock_integral_margin", "knock_onset_deg", "knock_unburned_fraction_at_onset", "lambda",
                  "enriched", "exhaust_limit_held", "enrichment_bsfc_cost_g_per_kWh", "in_contours")
 

@@ -92,12 +92,16 @@ class SparkPick:
     knock_margin_deg: float | None = None
     """Retard of the chosen advance from the knock-limited advance [deg]."""
     in_contours: bool = True
+    knock_free_to_deg: float | None = None
+    """Largest advance run without knock where none knocked [deg BTDC] (the knock margin is at least
+    this less the chosen advance)."""
     tried: dict = field(default_factory=dict)
     """advance -> (torque [N m], knock integral max [-], knocks [bool], peak pressure [bar])."""
 
     def columns(self) -> dict:
         return {"spark_advance_deg": self.advance_deg, "spark_limit": self.limit, "mbt_deg": self.mbt_deg,
-                "knock_limit_deg": self.knock_limit_deg, "knock_margin_deg": self.knock_margin_deg}
+                "knock_limit_deg": self.knock_limit_deg, "knock_margin_deg": self.knock_margin_deg,
+                "knock_free_to_deg": self.knock_free_to_deg}
 
 
 class CaseRunner:
@@ -316,8 +320,11 @@ def choose_spark(points, make_case, mode: str, *, advances=None, knock_margin_de
             a, by = lo_lim, LIMIT_CLAMP     # knock at the least advance allowed
         a = math.floor(a * 1000.0) / 1000.0     # to 0.001 deg, rounded towards retard
         margin = None if kl[pt] is None else kl[pt] - a
+        free = None
+        if mode == "knock_limited" and kl[pt] is None and last_clear[pt] is not None:
+            free = float(last_clear[pt])
         picks[pt] = SparkPick(a, by, mbt_deg=mbt[pt], knock_limit_deg=kl[pt], knock_margin_deg=margin,
-                              in_contours=by not in (LIMIT_NO_MBT, LIMIT_FAILED), tried=t)
+                              in_contours=by not in (LIMIT_NO_MBT, LIMIT_FAILED), knock_free_to_deg=free, tried=t)
     return picks
 
 
