@@ -194,6 +194,9 @@ def _add_engineering_parsers(subparsers) -> None:
     b.add_argument("--ambient-K", type=float, default=298.0)
     b.add_argument("--tolerance-bar", type=float, default=0.002)
     b.add_argument("--max-iterations", type=int, default=8)
+    b.add_argument("--compressor-map", default=None, metavar="CSV",
+                   help="compressor map (CSV layout in the README; e.g. demo_compressor_map): efficiency from"
+                        " it, surge and choke margins reported (default: the fixed --eta-compressor)")
     b.add_argument("--p-max-limit-bar", type=float, default=120.0,
                    help="peak cylinder pressure above which the match warns [bar] (default 120, an order of"
                         " magnitude: give the engine maker's limit)")
@@ -301,13 +304,15 @@ def cmd_losses(args) -> int:
 def cmd_boost(args) -> int:
     """``cyclesim boost``: turbocharger match."""
     from .studies.boost import boost_match
+    from .studies.compressor_map import load_compressor_map
 
+    cmap = None if args.compressor_map is None else load_compressor_map(args.compressor_map)
     t0 = time.perf_counter()
     br = boost_match(args.config, args.boost_bar, args.eta_compressor, args.eta_turbine, args.eta_mechanical,
                      args.intercooler, args.turbine_area_cm2, not args.no_wastegate, args.ambient_bar,
                      args.ambient_K, overrides=args.overrides, tolerance_bar=args.tolerance_bar,
                      max_iterations=args.max_iterations, out=_out(args), plots=not args.no_plots,
-                     p_max_limit_bar=args.p_max_limit_bar, t3_limit_K=args.t3_limit_K)
+                     p_max_limit_bar=args.p_max_limit_bar, t3_limit_K=args.t3_limit_K, compressor_map=cmap)
     print(br.text())
     print(f"simulated in {time.perf_counter() - t0:.1f} s")
     _wrote(br.files)
