@@ -250,6 +250,11 @@ def _add_engineering_parsers(subparsers) -> None:
                    help="enrich to hold this exhaust temperature (enthalpy average at the valve) [K]")
     m.add_argument("--lambda-floor", type=float, default=0.75, metavar="LAMBDA",
                    help="richest lambda of the enrichment (default 0.75)")
+    m.add_argument("--boost-bar", type=float, default=None, metavar="BAR",
+                   help="full load: match a turbocharger to this intake pressure at every speed, at the"
+                        " point's spark and mixture (options as for 'cyclesim boost' at their defaults)")
+    m.add_argument("--compressor-map", default=None, metavar="CSV",
+                   help="with --boost-bar: compressor map for the efficiency, surge and choke margins")
     m.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
     m.add_argument("--exhaust", choices=("flow", "fixed"), default="flow",
                    help="exhaust back pressure: from each point's flow through a fixed restriction, the"
@@ -353,6 +358,15 @@ def cmd_map(args) -> int:
     if args.knock_margin < 0 or (args.pmax_limit is not None and not args.pmax_limit > 0):
         raise ConfigError(f"--knock-margin {args.knock_margin:g} / --pmax-limit {args.pmax_limit}: expected a"
                           " margin >= 0 deg and a positive limit")
+    if args.boost_bar is not None and not args.boost_bar > 0:
+        raise ConfigError(f"--boost-bar {args.boost_bar!r}: expected a positive number")
+    if args.compressor_map is not None and args.boost_bar is None:
+        raise ConfigError("--compressor-map needs --boost-bar (the map is read at the matched compressor)")
+    cmap = None
+    if args.compressor_map is not None:
+        from .studies.compressor_map import load_compressor_map
+
+        cmap = load_compressor_map(args.compressor_map)
     out = _out(args)
     t0 = time.perf_counter()
     files = []
@@ -362,7 +376,8 @@ def cmd_map(args) -> int:
                 progress=False if args.no_progress else None)
     fl = None
     if not args.part_load_only:
-        fl = full_load_curve(args.config, args.speeds, spark=args.spark, advances=args.advances, **opts)
+        fl = full_load_curve(args.config, args.speeds, spark=args.spark, advances=args.advances,
+                             boost_bar=args.boost_bar, boost_options={"compressor_map": cmap}, **opts)
         print(fl.text())
         files += fl.files
     if not args.full_load_only:

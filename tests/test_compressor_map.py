@@ -70,3 +70,29 @@ def test_boost_command_line_refuses_a_missing_map(tmp_path, capsys):
     assert main(["boost", "demo_turbo", "--compressor-map", str(tmp_path / "x.csv"), "--out", str(tmp_path / "o")]) == 2
     assert "no such file" in capsys.readouterr().err
     assert not (tmp_path / "o").exists()
+
+
+def test_full_load_curve_with_boost_matched_at_the_chosen_spark(tmp_path):
+    from cyclesim.studies.maps import full_load_curve
+
+    fl = full_load_curve("demo_turbo", [1500, 4500], overrides=FIXED, boost_bar=1.6,
+                         boost_options={"compressor_map": "demo_compressor_map"}, out=tmp_path)
+    rows = {r["speed_rpm"]: r for r in fl.rows}
+    lo, hi = rows[1500.0], rows[4500.0]
+    # at low speed the little air flow at the target pressure ratio lies left of the demo map's
+    # surge line (off the map): what binds is said; at 4500 rpm the target holds on the map
+    assert lo["boost_limit"] != "target reached"
+    assert "off the compressor map" in lo["boost_limit"] or "surge" in lo["boost_limit"]
+    assert lo["surge_margin"] is None or lo["surge_margin"] < 0
+    assert hi["boost_limit"] == "target reached" and hi["intake_pressure_bar"] == 1.6
+    assert hi["spark_limit"] == "knock"
+    # the matched point is the turbocharger at that spark: a boost match at the row's spark and
+    # lambda gives the row's intake temperature and back pressure (within the alternation's settling)
+    b = boost_match("demo_turbo", 1.6, overrides=FIXED + ["operating.speed_rpm=4500",
+                                                         f"burn.spark_advance_deg={hi['spark_advance_deg']!r}",
+                                                         f"operating.lambda={hi['lambda']!r}"],
+                    compressor_map="demo_compressor_map")
+    assert b.state["T_intake_K"] == pytest.approx(hi["intake_temperature_K"], abs=1.0)
+    assert b.state["p3_bar"] == pytest.approx(hi["exhaust_pressure_bar"], abs=0.02)
+    assert "turbocharger at each speed" in fl.text() and "boost: what binds" in fl.text()
+    assert (tmp_path / "compressor_map.png").stat().st_size > 0

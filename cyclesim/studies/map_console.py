@@ -25,6 +25,20 @@ _PART = (("speed rpm", "speed_rpm", ".0f", 1, 9), ("p_in bar", "intake_pressure_
          ("eta_b %", "eta_brake", ".1f", 100, 8), ("residual %", "residual_fraction", ".1f", 100, 11))
 
 
+_BOOST = (("speed rpm", "speed_rpm", ".0f", 1, 9), ("boost bar", "intake_pressure_bar", ".3f", 1, 10),
+          ("boost: what binds", "boost_limit", "s", 1, 30), ("T_in K", "intake_temperature_K", ".0f", 1, 7),
+          ("wastegate %", "wastegate_share", ".0f", 100, 12), ("eta_c", "eta_compressor", ".3f", 1, 7),
+          ("surge mgn %", "surge_margin", ".0f", 100, 12), ("choke mgn %", "choke_margin", ".0f", 100, 12),
+          ("turbo rpm", "turbocharger_speed_rpm", ".0f", 1, 10))
+
+
+def _table(rows, cols) -> list[str]:
+    out = ["  " + "".join(f"{h:>{w}s}" if s != "s" else f"  {h:<{w - 2}s}" for h, _, s, _, w in cols)]
+    for r in rows:
+        out.append("  " + "".join(_cell(r, k, s, sc, w) for _, k, s, sc, w in cols))
+    return out
+
+
 def _cell(row, key, spec, scale, width):
     v = row.get(key)
     if spec == "s":
@@ -76,10 +90,10 @@ def map_text(m) -> str:
     """The console report of a :class:`cyclesim.studies.maps.MapResult`."""
     cols = _FULL if m.kind == "full_load" else _PART
     what = "full-load curve" if m.kind == "full_load" else "part-load map"
-    lines = [f"{what}: {m.base_config} ({len(m.rows)} points, {m.cases_run} cases run)",
-             "  " + "".join(f"{h:>{w}s}" if s != "s" else f"  {h:<{w - 2}s}" for h, _, s, _, w in cols)]
-    for r in m.rows:
-        lines.append("  " + "".join(_cell(r, k, s, sc, w) for _, k, s, sc, w in cols))
+    lines = [f"{what}: {m.base_config} ({len(m.rows)} points, {m.cases_run} cases run)", *_table(m.rows, cols)]
+    if "boost_limit" in m.columns:
+        lines.append("turbocharger at each speed:")
+        lines.extend(_table(m.rows, _BOOST))
     lines.extend(warning_lines(group_warnings(m), len(m.rows)))
     for n in m.notes:
         lines.append(f"note: {n}")

@@ -66,6 +66,7 @@ class MapResult:
     files: list = field(default_factory=list)
     base_config: str = ""
     caution: str = CAUTION
+    exhaust_limit_K: float | None = None
     full_load: object = None
     """A full-load curve drawn on (and bounding) a part-load map."""
     cases_run: int = 0
@@ -77,7 +78,7 @@ class MapResult:
         return _plain({"caution": self.caution, "spark_caution": SPARK_CAUTION,
                        "base_config": self.base_config, "kind": self.kind, "columns": self.columns,
                        "rows": self.rows, "notes": self.notes, "warnings_grouped": group_warnings(self),
-                       "cases_run": self.cases_run, "files": [Path(f).name for f in self.files]})
+                       "cases_run": self.cases_run, "exhaust_limit_K": self.exhaust_limit_K, "files": [Path(f).name for f in self.files]})
 
     def text(self) -> str:
         """The console table, the warnings grouped by kind, the notes and the caution."""
@@ -240,6 +241,7 @@ def _columns(first):
 
 
 def _spark_notes(m: "MapResult", mode, knock_margin_deg, exhaust_limit_K, lambda_floor, case) -> None:
+    m.exhaust_limit_K = exhaust_limit_K
     if mode == "knock_limited":
         m.notes.append(f"spark per point: the more retarded of MBT and the knock-limited advance less"
                        f" {knock_margin_deg:g} deg (the spark study's rule); knock is the knock model's onset"
@@ -261,8 +263,10 @@ def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides:
                     out: str | Path | None = None, plots: bool = True, exhaust: str = "flow",
                     spark: str | None = None, advances=None, knock_margin_deg: float = 2.0,
                     exhaust_limit_K: float | None = None, lambda_floor: float = 0.75,
-                    p_max_limit_bar: float | None = None, progress: bool | None = False) -> MapResult:
-    """Full-load torque and power against speed at the case's intake pressure, with the spark per speed.
+                    p_max_limit_bar: float | None = None, progress: bool | None = False,
+                    boost_bar: float | None = None, boost_options: dict | None = None) -> MapResult:
+    """Full-load torque and power against speed at the case's intake pressure (or a matched
+    turbocharger's boost), with the spark (and mixture) per speed.
 
     Parameters
     ----------
@@ -289,8 +293,21 @@ def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides:
         Peak-pressure limit of the spark [bar].
     progress : bool or None
         A tqdm bar on stderr (None: where stderr is a terminal).
+    boost_bar : float, optional
+        Target intake pressure [bar] of a turbocharger matched at every speed at the point's spark
+        and mixture (:mod:`cyclesim.studies.full_load_boost`); the exhaust back pressure is then the
+        turbine's and ``exhaust`` is not used.
+    boost_options : dict, optional
+        Keyword arguments of :func:`cyclesim.studies.boost.boost_match` (efficiencies, turbine
+        area, ``compressor_map``, ...).
     """
     case, label = _base(case, overrides)
+    if boost_bar is not None:
+        return _boosted_full_load(case, label, speeds, mode=check_spark_mode(spark, case), out=out, plots=plots,
+                                  advances=advances, knock_margin_deg=knock_margin_deg,
+                                  exhaust_limit_K=exhaust_limit_K, lambda_floor=lambda_floor,
+                                  p_max_limit_bar=p_max_limit_bar, progress=progress, boost_bar=boost_bar,
+                                  boost_options=dict(boost_options or {}))
     mode = check_spark_mode(spark, case)
     sp = _numbers("speeds", speeds, (1500.0, 2250.0, 3000.0, 3750.0, 4500.0, 5250.0, 6000.0))
     bp = _BackPressure(case, exhaust)
@@ -395,6 +412,82 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
         from ..map_plots import plot_part_load
 
         _write(m, Path(out), "part_load_map", plots, plot_part_load)
+    return m
+
+
+BOOST_COLUMNS = ("boost_limit", "boost_target_bar", "intake_temperature_K", "wastegate_share", "eta_compressor",
+                 "compressor_pressure_ratio", "compressor_corrected_flow_kg_per_s", "surge_margin", "choke_margin",
+                 "turbocharger_speed_rpm", "boost_passes")
+
+
+def _boosted_full_load(case, label, speeds, *, mode, out, plots, advances, knock_margin_deg, exhaust_limit_K,
+                       lambda_floor, p_max_limit_bar, progress, boost_bar, boost_options):
+    from .full_load_boost import MAX_PASSES, boosted_points
+
+    if not boost_bar > 0:
+        raise ConfigError(f"boost {boost_bar!r} bar: expected a positive number")
+    if "compressor_map" in boost_options and boost_options["compressor_map"] is not None:
+        from .boost import _compressor_map
+
+        boost_options["compressor_map"] = _compressor_map(boost_options["compressor_map"])
+    sp = _numbers("speeds", speeds, (1500.0, 2250.0, 3000.0, 3750.0, 4500.0, 5250.0, 6000.0))
+    points = [(n, float(boost_bar)) for n in sp]
+    adv = None if advances is None else sorted(_numbers("advances", advances, DEFAULT_ADVANCES))
+    run = CaseRunner("full-load curve with boost", progress)
+    try:
+        sol, boost = boosted_points(case, points, mode, float(boost_bar), boost_options, run=run,
+                                    spark_options={"advances": adv, "knock_margin_deg": knock_margin_deg,
+                                                   "p_max_limit_bar": p_max_limit_bar},
+                                    exhaust_limit_K=exhaust_limit_K, lambda_floor=lambda_floor)
+    finally:
+        run.close()
+    rows = []
+    for pt in points:
+        b = boost[pt]
+        r = _point_row(pt, {pt: b["p_exh_bar"]}, sol[pt])
+        r["intake_pressure_bar"] = b["boost_bar"]
+        r.update({"boost_limit": b["boost_limit"], "boost_target_bar": float(boost_bar),
+                  "intake_temperature_K": b["T_intake_K"], "wastegate_share": b["wastegate_share"],
+                  "eta_compressor": b["eta_compressor"], "compressor_pressure_ratio": b["compressor_pressure_ratio"],
+                  "compressor_corrected_flow_kg_per_s": b["compressor_corrected_flow_kg_per_s"],
+                  "surge_margin": b["surge_margin"], "choke_margin": b["choke_margin"],
+                  "turbocharger_speed_rpm": b["turbocharger_speed_rpm"], "boost_passes": b["passes"]})
+        rows.append(r)
+    m = MapResult("full_load", rows, _columns([]) + list(BOOST_COLUMNS), base_config=label)
+    _spark_notes(m, mode, knock_margin_deg, exhaust_limit_K, lambda_floor, case)
+    cm = boost_options.get("compressor_map")
+    m.notes.append(f"boost: a turbocharger matched at every speed to {boost_bar:g} bar at the point's spark and"
+                   f" mixture, alternated with them up to {MAX_PASSES} passes; compressor efficiency "
+                   + (f"from the map {cm.name}" if cm is not None else
+                      f"fixed at {boost_options.get('eta_compressor', 0.72):g} (no compressor map: surge and"
+                      " choke not checked)"))
+    short = [r for r in rows if r["boost_limit"].startswith("boost not reached")]
+    if short:
+        m.notes.append("boost not reached at " + ", ".join(f"{r['speed_rpm']:g} rpm ({r['intake_pressure_bar']:.2f}"
+                                                            " bar)" for r in short)
+                       + ": the turbine cannot drive the compressor there with the wastegate closed")
+    unsettled = [r for r in rows if r["boost_passes"] == MAX_PASSES]
+    if unsettled:
+        m.notes.append(f"spark and turbocharger still moving after {MAX_PASSES} passes at "
+                       + ", ".join(f"{r['speed_rpm']:g} rpm" for r in unsettled))
+    m.cases_run = run.cases
+    m.notes.append(SPARK_CAUTION)
+    if out is not None:
+        from ..map_plots import plot_full_load
+
+        def plotter(m_, out_):
+            files = plot_full_load(m_, out_)
+            if cm is not None:
+                from .compressor_map import plot_compressor_map
+
+                op = [{"corrected_flow_kg_per_s": r["compressor_corrected_flow_kg_per_s"],
+                       "pressure_ratio": r["compressor_pressure_ratio"], "label": f"{r['speed_rpm']:g}"}
+                      for r in m_.rows if r["compressor_corrected_flow_kg_per_s"] is not None]
+                files.append(plot_compressor_map(cm, out_ / "compressor_map.png", op,
+                                                 title=f"{label}: full-load operating line on {cm.name}"))
+            return files
+
+        _write(m, Path(out), "full_load", plots, plotter)
     return m
 
 
