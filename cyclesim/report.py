@@ -50,7 +50,7 @@ table.main tbody tr:nth-child(even){background:#f7f7f7}
 figure{margin:1em 0}
 figure img{max-width:100%;height:auto;border:1px solid #ddd}
 figcaption{font-size:.85em;color:#555}
-pre{background:#f6f6f6;padding:.6em;overflow-x:auto;font-size:.85em}
+pre{background:#f6f6f6;padding:.6em;overflow-x:auto;font-size:.85em;white-space:pre-wrap;overflow-wrap:anywhere}
 .caution{border:2px solid #b00;background:#fff4f4;padding:.6em 1em;margin:1.5em 0;overflow-wrap:anywhere;
 height:auto}
 .note{color:#555;font-size:.9em}
@@ -70,6 +70,8 @@ body{max-width:none;margin:0;padding:0 .5em}
 .wrap,pre{overflow:visible}
 pre{white-space:pre-wrap;overflow-wrap:anywhere}
 table,table.main{font-size:.7em}
+details.appendix table{table-layout:fixed;width:100%}
+th,td{overflow-wrap:anywhere;word-break:break-word}
 table.main td{white-space:normal}
 figure{break-inside:avoid}
 figure img{max-width:100%}
@@ -250,9 +252,13 @@ def report_for_run(result, plots: bool = True) -> list[dict]:
     eb = s.get("energy_balance")
     if isinstance(eb, dict):
         base = eb.get("fuel_energy_J") or eb.get("chemical_energy_released_J") or 1.0
+        terms = [(k, v) for k, v in eb.items() if k != "closure_fraction" and isinstance(v, (int, float))]
         secs.append({"heading": "Energy balance", "table": {
-            "columns": ["term", "J", "% of fuel energy"],
-            "rows": [[k, v, 100 * v / base] for k, v in eb.items() if k != "closure_fraction"]}})
+            "main": True, "align": ["t", "n", "n"],
+            "columns": ["term", "energy [J]", "share of the fuel energy [%]"],
+            "rows": [[k.replace("_J", "").replace("_", " "), f"{v:.2f}", f"{100 * v / base:.1f}"] for k, v in terms],
+            "notes": ([f"closure: {100 * eb['closure_fraction']:.3f} % of the fuel energy unaccounted for"]
+                      if isinstance(eb.get("closure_fraction"), (int, float)) else [])}})
     if result.warnings:
         secs.append({"heading": "Warnings", "text": list(result.warnings)})
     secs.append({"heading": "All figures", "appendix": True,
