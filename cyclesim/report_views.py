@@ -28,8 +28,13 @@ def _num(v, spec, scale=1.0):
 
 def table_spec(rows, spec, notes=()) -> dict:
     """A formatted main table: ``spec`` is a list of (key, header with unit, format, scale)."""
+    from .studies.map_console import knock_margin_text
+
+    def cell(r, k, f, sc):
+        return (knock_margin_text(r) or "") if k == "knock_margin_deg" else _num(r.get(k), f, sc)
+
     return {"columns": [h for _, h, _, _ in spec],
-            "rows": [[_num(r.get(k), f, sc) for k, _, f, sc in spec] for r in rows],
+            "rows": [[cell(r, k, f, sc) for k, _, f, sc in spec] for r in rows],
             "align": ["t" if f == "s" else "n" for _, _, f, _ in spec],
             "notes": list(notes), "main": True}
 
@@ -90,7 +95,7 @@ def _map_summary(fl, pm) -> list:
             if rich:
                 lo = min(rich, key=lambda r: r["lambda"])
                 items.append(("enrichment", f"at {len(rich)} of {len(rows)} speeds, richest lambda {lo['lambda']:.3f}"
-                              f" at {lo['speed_rpm']:.0f} rpm (exhaust limit {fl.get('exhaust_limit_K')} K)"))
+                              f" at {lo['speed_rpm']:.0f} rpm (exhaust limit {fl.get('exhaust_limit_K'):g} K)"))
             if any("boost_limit" in r for r in rows):
                 short = [r for r in rows if r.get("boost_limit") != "target reached"]
                 items.append(("boost", "target reached at every speed" if not short else

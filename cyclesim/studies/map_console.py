@@ -6,7 +6,7 @@ from __future__ import annotations
 import math
 import re
 
-__all__ = ["map_text", "group_warnings", "warning_lines"]
+__all__ = ["map_text", "group_warnings", "warning_lines", "knock_margin_text"]
 
 _SHORT_LIMITS = {"exhaust temperature (lambda at floor)": "T_exh, lambda floor", "fixed (config)": "fixed"}
 
@@ -39,7 +39,22 @@ def _table(rows, cols) -> list[str]:
     return out
 
 
+def knock_margin_text(row) -> str | None:
+    """The knock margin [deg] as text: its value, or "> x" where no advance run up to the chosen one
+    plus x knocked (None where neither is known)."""
+    v = row.get("knock_margin_deg")
+    if v is not None and math.isfinite(v):
+        return f"{v:.1f}"
+    free, a = row.get("knock_free_to_deg"), row.get("spark_advance_deg")
+    if free is not None and a is not None:
+        return f"> {free - a:.0f}"
+    return None
+
+
 def _cell(row, key, spec, scale, width):
+    if key == "knock_margin_deg":
+        t = knock_margin_text(row)
+        return f"{t or '-':>{width}s}"
     v = row.get(key)
     if spec == "s":
         text = _SHORT_LIMITS.get(v, v) if v else "-"
