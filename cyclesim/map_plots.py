@@ -172,7 +172,8 @@ def plot_part_load(m, out: Path) -> list[Path]:
                 zz = z[good]
                 if levels is None:
                     cs = ax.tricontourf(tri, zz, levels=10, cmap=cmap)
-                    cl = ax.tricontour(tri, zz, levels=cs.levels, colors="k", linewidths=0.5)
+                    # every other level drawn and labelled: labels stay readable where the field is steep
+                    cl = ax.tricontour(tri, zz, levels=cs.levels[1:-1:2], colors="k", linewidths=0.5)
                 else:
                     span = levels[-1] - levels[0]
                     fill = [min(levels[0] - 0.1 * span, float(np.nanmin(zz)) - 1e-6), *levels,
