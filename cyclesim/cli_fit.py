@@ -92,7 +92,7 @@ def _pair(text: str, what: str) -> tuple[float, float]:
 def cmd_fit(args) -> int:
     """Handler of ``cyclesim fit``."""
     from .config import load_config
-    from .fit import check_calibratable, fit
+    from .fit import check_calibratable
     from .output import prepare_out_dir
 
     case = load_config(args.config, list(args.overrides))
@@ -126,6 +126,8 @@ def cmd_fit(args) -> int:
 
 def _fit_with(args, case, weights, status):
     """The fit of ``cyclesim fit``, with its iterations on a status line where one is given."""
+    from .fit import fit
+
     def progress(it, done, total):
         status(f"fit iteration {it}: {done} of {total} problem(s) converged")
 
