@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import shutil
 import time
 from pathlib import Path
 
@@ -55,38 +54,11 @@ def add_parsers(subparsers) -> None:
     _simple(c)
 
 
-class _Progress:
-    """Progress lines on stderr: on a terminal each replaces the one before (one live line, ended
-    by :meth:`close`); into a file or pipe every line is kept."""
+def _Progress(stream=None):
+    """Phase messages of the engine and the cut test (a tqdm status line on a terminal)."""
+    from .progress import StatusLine
 
-    def __init__(self, stream=None):
-        import sys
-
-        from .textsafe import terminal
-
-        self.stream = stream or terminal(sys.stderr)  # redraws itself with a carriage return
-        self.live = bool(getattr(self.stream, "isatty", lambda: False)())
-        self.open = False
-
-    def __call__(self, msg: str) -> None:
-        from .textsafe import printable
-
-        msg = printable(msg, one_line=True)
-        if self.live:
-            # a live line wider than the terminal would wrap, and the next one could not replace it
-            width = max(shutil.get_terminal_size((100, 24)).columns - 1, 20)
-            line = f"  {msg}"
-            self.stream.write("\r\033[K" + (line if len(line) <= width else line[: width - 3] + "..."))
-            self.open = True
-        else:
-            self.stream.write(f"  {msg}\n")
-        self.stream.flush()
-
-    def close(self) -> None:
-        if self.open:
-            self.stream.write("\r\033[K")
-            self.stream.flush()
-            self.open = False
+    return StatusLine(stream)
 
 
 def _progress(args):

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 
 from .errors import ConfigError
@@ -91,7 +92,7 @@ def _pair(text: str, what: str) -> tuple[float, float]:
 def cmd_fit(args) -> int:
     """Handler of ``cyclesim fit``."""
     from .config import load_config
-    from .fit import check_calibratable, fit
+    from .fit import check_calibratable
     from .output import prepare_out_dir
 
     from .cli_checks import finite
@@ -114,18 +115,36 @@ def cmd_fit(args) -> int:
         except ValueError:
             raise ConfigError(f"--weight {w!r}: weight {val!r} is not a number") from None
     prepare_out_dir(args.out, args.force)
-    res = fit(case, [str(t) for t in args.traces], args.params, mode=args.mode, weights=weights or None,
-              target=args.target, ensemble=args.ensemble, peg=None if args.peg == "none" else args.peg,
-              tdc_correct=args.tdc_correct, tdc_offset_deg=args.tdc_offset, motored=args.motored,
-              window=_pair(args.window, "--window") if args.window else None, level=args.level,
-              covariance=args.covariance, step_deg=args.step, nuisance=tuple(args.nuisance),
-              tdc_sd_deg=args.tdc_sd, **({} if args.thermal_tau is None else {"thermal_tau_s": args.thermal_tau}))
+    from .progress import StatusLine
+
+    status = StatusLine() if getattr(sys.stderr, "isatty", lambda: False)() else None
+    try:
+        res = _fit_with(args, case, weights, status)
+    finally:
+        if status is not None:
+            status.close()
     if not args.overrides:
         res.source = args.config
     print(res.text())
     files = res.write(args.out, plots=not args.no_plots)
     print(f"wrote {len(files)} files to {args.out}/: " + ", ".join(p.name for p in files))
     return 0
+
+
+def _fit_with(args, case, weights, status):
+    """The fit of ``cyclesim fit``, with its iterations on a status line where one is given."""
+    from .fit import fit
+
+    def progress(it, done, total):
+        status(f"fit iteration {it}: {done} of {total} problem(s) converged")
+
+    return fit(case, [str(t) for t in args.traces], args.params, mode=args.mode, weights=weights or None,
+              target=args.target, ensemble=args.ensemble, peg=None if args.peg == "none" else args.peg,
+              tdc_correct=args.tdc_correct, tdc_offset_deg=args.tdc_offset, motored=args.motored,
+              window=_pair(args.window, "--window") if args.window else None, level=args.level,
+              covariance=args.covariance, step_deg=args.step, nuisance=tuple(args.nuisance),
+              tdc_sd_deg=args.tdc_sd, progress=None if status is None else progress,
+              **({} if args.thermal_tau is None else {"thermal_tau_s": args.thermal_tau}))
 
 
 def cmd_predict(args) -> int:

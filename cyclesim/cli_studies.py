@@ -195,6 +195,9 @@ def _add_engineering_parsers(subparsers) -> None:
     b.add_argument("--ambient-K", type=float, default=298.0)
     b.add_argument("--tolerance-bar", type=float, default=0.002)
     b.add_argument("--max-iterations", type=int, default=8)
+    b.add_argument("--compressor-map", default=None, metavar="CSV",
+                   help="compressor map (CSV layout in the README; e.g. demo_compressor_map): efficiency from"
+                        " it, surge and choke margins reported (default: the fixed --eta-compressor)")
     b.add_argument("--p-max-limit-bar", type=float, default=120.0,
                    help="peak cylinder pressure above which the match warns [bar] (default 120, an order of"
                         " magnitude: give the engine maker's limit)")
@@ -232,12 +235,28 @@ def _add_engineering_parsers(subparsers) -> None:
 
     m = subparsers.add_parser(
         "map", help="full-load curve and part-load map (BSFC, efficiency, BMEP, spark)",
-        description="Full-load torque and power against speed, and a speed x intake-pressure map with"
-                    " MBT spark per point (or the case's spark); tables and contour plots.")
+        description="Full-load torque and power against speed, and a speed x intake-pressure map, with the"
+                    " spark per point (knock-limited where the config has a knock model, else MBT, or the"
+                    " case's) and optional enrichment to an exhaust-temperature limit; tables and plots.")
     m.add_argument("--speeds", default=None, metavar="SPEC", help="speeds [rpm], a,b,c or start:stop:step")
     m.add_argument("--loads", default=None, metavar="SPEC", help="intake pressures [bar]")
-    m.add_argument("--spark", choices=("mbt", "fixed"), default="mbt")
-    m.add_argument("--advances", default=None, metavar="SPEC", help="spark advances tried per point")
+    m.add_argument("--spark", choices=("mbt", "knock_limited", "fixed"), default=None,
+                   help="spark per point: knock_limited (default with a knock model: the more retarded of MBT"
+                        " and the knock limit less --knock-margin), mbt (default without one), or fixed")
+    m.add_argument("--advances", default=None, metavar="SPEC", help="spark advances tried first per point")
+    m.add_argument("--knock-margin", type=float, default=2.0, metavar="DEG",
+                   help="retard kept from the knock-limited advance [deg] (default 2)")
+    m.add_argument("--pmax-limit", type=float, default=None, metavar="BAR", help="peak-pressure limit of the spark [bar]")
+    m.add_argument("--exhaust-limit-K", type=float, default=None, metavar="K",
+                   help="enrich to hold this exhaust temperature (enthalpy average at the valve) [K]")
+    m.add_argument("--lambda-floor", type=float, default=0.75, metavar="LAMBDA",
+                   help="richest lambda of the enrichment (default 0.75)")
+    m.add_argument("--boost-bar", type=float, default=None, metavar="BAR",
+                   help="full load: match a turbocharger to this intake pressure at every speed, at the"
+                        " point's spark and mixture (options as for 'cyclesim boost' at their defaults)")
+    m.add_argument("--compressor-map", default=None, metavar="CSV",
+                   help="with --boost-bar: compressor map for the efficiency, surge and choke margins")
+    m.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
     m.add_argument("--exhaust", choices=("flow", "fixed"), default="flow",
                    help="exhaust back pressure: from each point's flow through a fixed restriction, the"
                         " config's value at the config's own flow (default), or the config's value everywhere")
@@ -291,13 +310,15 @@ def cmd_losses(args) -> int:
 def cmd_boost(args) -> int:
     """``cyclesim boost``: turbocharger match."""
     from .studies.boost import boost_match
+    from .studies.compressor_map import load_compressor_map
 
+    cmap = None if args.compressor_map is None else load_compressor_map(args.compressor_map)
     t0 = time.perf_counter()
     br = boost_match(args.config, args.boost_bar, args.eta_compressor, args.eta_turbine, args.eta_mechanical,
                      args.intercooler, args.turbine_area_cm2, not args.no_wastegate, args.ambient_bar,
                      args.ambient_K, overrides=args.overrides, tolerance_bar=args.tolerance_bar,
                      max_iterations=args.max_iterations, out=_out(args), plots=not args.no_plots,
-                     p_max_limit_bar=args.p_max_limit_bar, t3_limit_K=args.t3_limit_K)
+                     p_max_limit_bar=args.p_max_limit_bar, t3_limit_K=args.t3_limit_K, compressor_map=cmap)
     print(br.text())
     print(f"simulated in {time.perf_counter() - t0:.1f} s")
     _wrote(br.files)
@@ -331,6 +352,7 @@ def cmd_dyno(args) -> int:
 
 def cmd_map(args) -> int:
     """``cyclesim map``: full-load curve and part-load map."""
+    from .errors import ConfigError
     from .studies.maps import check_map_inputs, full_load_curve, part_load_map
 
     from .cli_checks import exclusive
@@ -338,18 +360,35 @@ def cmd_map(args) -> int:
     # refuse bad inputs before the output folder is made
     exclusive(args, "--full-load-only", "--part-load-only")
     check_map_inputs(args.config, args.speeds, args.loads, args.spark, args.advances,
-                     overrides=args.overrides, exhaust=args.exhaust)
+                     overrides=args.overrides, exhaust=args.exhaust, exhaust_limit_K=args.exhaust_limit_K,
+                     lambda_floor=args.lambda_floor)
+    if args.knock_margin < 0 or (args.pmax_limit is not None and not args.pmax_limit > 0):
+        raise ConfigError(f"--knock-margin {args.knock_margin:g} / --pmax-limit {args.pmax_limit}: expected a"
+                          " margin >= 0 deg and a positive limit")
+    if args.boost_bar is not None and not args.boost_bar > 0:
+        raise ConfigError(f"--boost-bar {args.boost_bar!r}: expected a positive number")
+    if args.compressor_map is not None and args.boost_bar is None:
+        raise ConfigError("--compressor-map needs --boost-bar (the map is read at the matched compressor)")
+    cmap = None
+    if args.compressor_map is not None:
+        from .studies.compressor_map import load_compressor_map
+
+        cmap = load_compressor_map(args.compressor_map)
     out = _out(args)
     t0 = time.perf_counter()
     files = []
+    opts = dict(overrides=args.overrides, out=out, plots=not args.no_plots, exhaust=args.exhaust,
+                knock_margin_deg=args.knock_margin, exhaust_limit_K=args.exhaust_limit_K,
+                lambda_floor=args.lambda_floor, p_max_limit_bar=args.pmax_limit,
+                progress=False if args.no_progress else None)
+    fl = None
     if not args.part_load_only:
-        fl = full_load_curve(args.config, args.speeds, overrides=args.overrides, out=out, plots=not args.no_plots,
-                             exhaust=args.exhaust)
+        fl = full_load_curve(args.config, args.speeds, spark=args.spark, advances=args.advances,
+                             boost_bar=args.boost_bar, boost_options={"compressor_map": cmap}, **opts)
         print(fl.text())
         files += fl.files
     if not args.full_load_only:
-        pm = part_load_map(args.config, args.speeds, args.loads, args.spark, args.advances,
-                           overrides=args.overrides, out=out, plots=not args.no_plots, exhaust=args.exhaust)
+        pm = part_load_map(args.config, args.speeds, args.loads, args.spark, args.advances, full_load=fl, **opts)
         print(pm.text())
         files += pm.files
     print(f"simulated in {time.perf_counter() - t0:.1f} s")

@@ -325,8 +325,16 @@ def cmd_traces(args) -> int:
         else:
             prepare_out_dir(args.out, args.force)
             shutil.rmtree(args.out / ".chunks", ignore_errors=True)
-        ss = synthesize(case, args.cycles, var, resolution_deg=resolution,
-                        sample_rate_hz=args.sample_rate, artefacts=settings, checkpoint_dir=args.out / ".chunks")
+        from .progress import count_bar
+
+        bar = count_bar(args.cycles, "cycles", "cycle")
+        try:
+            ss = synthesize(case, args.cycles, var, resolution_deg=resolution, sample_rate_hz=args.sample_rate,
+                            artefacts=settings, checkpoint_dir=args.out / ".chunks",
+                            progress=None if bar is None else (lambda done, total: bar.update(done - bar.n)))
+        finally:
+            if bar is not None:
+                bar.close()
     except CyclesimError:
         # a folder this run made that holds no finished chunk is not left behind
         chunks = args.out / ".chunks"

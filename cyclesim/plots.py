@@ -55,7 +55,8 @@ def _plain_log_ticks(ax):
 
 
 def plot_case(res, out: Path) -> list[Path]:
-    """Pressure vs crank angle, p-V, log p - log V, heat release and mfb, valves, energy balance."""
+    """Pressure and gas temperature vs crank angle, p-V, log p - log V, heat release and mfb, valves,
+    energy balance."""
     plt = _plt()
     out = Path(out)
     t = res.trace
@@ -84,6 +85,19 @@ def plot_case(res, out: Path) -> list[Path]:
     ax.set_title(f"Cylinder pressure - {title}", pad=14)
     ax.legend(frameon=False, fontsize=8, loc="upper right" if s.get("mode") == "motored" else "best")
     files.append(_save(fig, out / "pressure.png"))
+
+    if "temperature_K" in t:
+        fig, ax = plt.subplots(figsize=(7.5, 4.2))
+        ax.plot(th, t["temperature_K"], color="tab:red", lw=1.4, label="mean gas temperature (one zone)")
+        if np.isfinite(s.get("exhaust_temperature_K", np.nan)):
+            ax.axhline(s["exhaust_temperature_K"], color="tab:brown", lw=0.9, ls="--",
+                       label=f"exhaust, enthalpy average at the valve {s['exhaust_temperature_K']:.0f} K")
+        _tdc_lines(ax, th)
+        ax.set_xlabel("crank angle [deg]  (0 = firing TDC)")
+        ax.set_ylabel("gas temperature [K]")
+        ax.set_title(f"Gas temperature - {title}", pad=14)
+        ax.legend(frameon=False, fontsize=8)
+        files.append(_save(fig, out / "temperature.png"))
 
     fig, ax = plt.subplots(figsize=(6, 4.5))
     ax.plot(V, p, color="tab:blue", lw=1.3)

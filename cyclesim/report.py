@@ -42,13 +42,43 @@ table{border-collapse:collapse;margin:.6em 0;font-size:.85em}
 th,td{border:1px solid #ccc;padding:.25em .5em;text-align:right}
 th{background:#eee;text-align:center}
 td.t{text-align:left}
+table.main{font-size:.82em;max-width:100%}
+table.main th{font-weight:600;vertical-align:bottom}
+table.main td{white-space:nowrap}
+table.main td.t{white-space:normal}
+table.main tbody tr:nth-child(even){background:#f7f7f7}
 figure{margin:1em 0}
 figure img{max-width:100%;height:auto;border:1px solid #ddd}
 figcaption{font-size:.85em;color:#555}
-pre{background:#f6f6f6;padding:.6em;overflow-x:auto;font-size:.85em}
-.caution{border:2px solid #b00;background:#fff4f4;padding:.6em 1em;margin:1.5em 0}
+pre{background:#f6f6f6;padding:.6em;overflow-x:auto;font-size:.85em;white-space:pre-wrap;overflow-wrap:anywhere}
+.caution{border:2px solid #b00;background:#fff4f4;padding:.6em 1em;margin:1.5em 0;overflow-wrap:anywhere;
+height:auto}
 .note{color:#555;font-size:.9em}
+.notes{color:#444;font-size:.85em;margin:.2em 0 1em 1.2em;padding:0}
 .wrap{overflow-x:auto}
+.summary{display:grid;grid-template-columns:minmax(12em,max-content) 1fr;gap:.2em 1.2em;background:#f3f6fa;
+border:1px solid #c9d6e3;padding:.7em 1em;margin:.6em 0}
+.summary dt{font-weight:600;color:#234}
+.summary dd{margin:0;overflow-wrap:anywhere}
+.warnings{padding-left:1.2em}
+.warnings li{margin:.3em 0}
+.warnings .pts{color:#555;font-size:.85em}
+details.appendix{margin-top:2em;border-top:2px solid #888;padding-top:.5em}
+details.appendix>summary{font-size:1.2em;font-weight:600;cursor:pointer}
+@media print{
+body{max-width:none;margin:0;padding:0 .5em}
+.wrap,pre{overflow:visible}
+pre{white-space:pre-wrap;overflow-wrap:anywhere}
+table,table.main{font-size:.7em}
+details.appendix table{table-layout:fixed;width:100%}
+th,td{overflow-wrap:anywhere;word-break:break-word}
+table.main td{white-space:normal}
+figure{break-inside:avoid}
+figure img{max-width:100%}
+details.appendix::details-content{content-visibility:visible;display:block}
+details.appendix>*{display:block}
+.caution{break-inside:avoid}
+}
 """
 
 
@@ -68,6 +98,8 @@ def _fmt(v: Any) -> str:
 
 
 def _table_html(table) -> str:
+    if isinstance(table, dict) and table.get("main"):
+        return _main_table_html(table)
     if isinstance(table, dict):
         cols, rows = list(table["columns"]), [list(r) for r in table["rows"]]
     else:
@@ -92,6 +124,39 @@ def _table_html(table) -> str:
     return "\n".join(out)
 
 
+_TEXT_CELL = ' class="t"'
+
+
+def _main_table_html(table: dict) -> str:
+    """A formatted table (cells already formatted text): no scroll box, notes below it."""
+    align = table.get("align") or ["n"] * len(table["columns"])
+    out = ['<table class="main">', "<thead><tr>" + "".join(f"<th>{html.escape(str(c))}</th>"
+                                                            for c in table["columns"]) + "</tr></thead><tbody>"]
+    for r in table["rows"][:MAX_TABLE_ROWS]:
+        out.append("<tr>" + "".join(f"<td{_TEXT_CELL if a == 't' else ''}>{html.escape(str(v))}</td>"
+                                    for v, a in zip(r, align)) + "</tr>")
+    out.append("</tbody></table>")
+    if table.get("notes"):
+        out.append('<ul class="notes">' + "".join(f"<li>{html.escape(str(n))}</li>" for n in table["notes"]) + "</ul>")
+    return "\n".join(out)
+
+
+def _summary_html(items) -> str:
+    return ('<dl class="summary">' + "".join(f"<dt>{html.escape(str(k))}</dt><dd>{html.escape(str(v))}</dd>"
+                                             for k, v in items) + "</dl>")
+
+
+def _warnings_html(groups) -> str:
+    out = ['<ul class="warnings">']
+    for g in groups:
+        pts = g.get("points") or []
+        shown = ", ".join(pts[:12]) + (f", ... ({len(pts) - 12} more)" if len(pts) > 12 else "")
+        out.append(f"<li><strong>{g['count']} of {g['total']} points:</strong> {html.escape(g['text'])}"
+                   + (f'<br><span class="pts">{html.escape(shown)}</span>' if shown else "") + "</li>")
+    out.append("</ul>")
+    return "".join(out)
+
+
 def _image_html(item) -> str:
     if isinstance(item, (tuple, list)):
         caption, src = item
@@ -109,23 +174,40 @@ def render_report(title: str, sections: Sequence[dict], caution: str = CAUTION) 
              f"<title>{html.escape(title)}</title>", f"<style>{_CSS}</style></head><body>",
              f"<h1>{html.escape(title)}</h1>",
              f'<div class="caution"><strong>Caution.</strong> {html.escape(caution)}</div>']
-    for sec in sections:
-        if sec.get("heading"):
-            parts.append(f"<h2>{html.escape(sec['heading'])}</h2>")
-        text = sec.get("text")
-        if text:
-            for para in [text] if isinstance(text, str) else text:
-                parts.append(f"<p>{html.escape(str(para))}</p>")
-        if sec.get("pre"):
-            parts.append(f"<pre>{html.escape(sec['pre'])}</pre>")
-        if sec.get("table") is not None:
-            parts.append(_table_html(sec["table"]))
-        for img in sec.get("images", ()):
-            parts.append(_image_html(img))
+    main = [s_ for s_ in sections if not s_.get("appendix")]
+    appendix = [s_ for s_ in sections if s_.get("appendix")]
+    for sec in main:
+        parts.extend(_section_html(sec))
+    if appendix:
+        parts.append('<details class="appendix"><summary>Appendix: inputs and all data</summary>')
+        for sec in appendix:
+            parts.extend(_section_html(sec))
+        parts.append("</details>")
     parts.append(f'<div class="caution"><strong>Caution.</strong> {html.escape(caution)}</div>')
     parts.append('<p class="note">Generated by cyclesim. Figures are model estimates.</p>')
     parts.append("</body></html>")
     return "\n".join(parts) + "\n"
+
+
+def _section_html(sec: dict) -> list[str]:
+    parts = []
+    if sec.get("heading"):
+        parts.append(f"<h2>{html.escape(sec['heading'])}</h2>")
+    if sec.get("summary"):
+        parts.append(_summary_html(sec["summary"]))
+    text = sec.get("text")
+    if text:
+        for para in [text] if isinstance(text, str) else text:
+            parts.append(f"<p>{html.escape(str(para))}</p>")
+    if sec.get("pre"):
+        parts.append(f"<pre>{html.escape(sec['pre'])}</pre>")
+    if sec.get("table") is not None:
+        parts.append(_table_html(sec["table"]))
+    if sec.get("warnings"):
+        parts.append(_warnings_html(sec["warnings"]))
+    for img in sec.get("images", ()):
+        parts.append(_image_html(img))
+    return parts
 
 
 def write_report(path, title: str, sections: Sequence[dict], caution: str = CAUTION) -> Path:
@@ -152,35 +234,44 @@ def _scalar_rows(d: dict, skip: Iterable[str] = ()) -> list[list]:
 def report_for_run(result, plots: bool = True) -> list[dict]:
     """Sections for one simulated case (a :class:`cyclesim.api.CaseResult`)."""
     from .output import summary_table
+    from .report_views import run_view
 
-    secs: list[dict] = [{"heading": "Summary", "pre": summary_table(result)}]
+    secs: list[dict] = [{"heading": f"Summary: {result.name}", "summary": run_view(result)}]
     s = result.summary
-    secs.append({"heading": "All figures", "table": {"columns": ["figure", "value"],
-                                                     "rows": _scalar_rows(s, ("energy_balance",))}})
-    eb = s.get("energy_balance")
-    if isinstance(eb, dict):
-        from .motoring import energy_basis
-
-        base_key, base_label = energy_basis(eb)
-        base = eb[base_key]
-        secs.append({"heading": "Energy balance", "table": {
-            "columns": ["term", "J", f"% of {base_label}"],
-            "rows": [[k, v, 100 * v / base if base else None] for k, v in eb.items() if k != "closure_fraction"]}})
-    if result.warnings:
-        secs.append({"heading": "Warnings", "text": list(result.warnings)})
-    if getattr(result, "notes", None):
-        secs.append({"heading": "Notes", "text": list(result.notes)})
+    plot_sec = None
     if plots and result.trace:
         from .plots import plot_case
 
         with tempfile.TemporaryDirectory() as tmp:
             files = plot_case(result, Path(tmp))
-            secs.append({"heading": "Plots", "images": [(Path(f).stem.replace("_", " "), Path(f).read_bytes())
-                                                        for f in files if str(f).endswith(".png")]})
-    secs.append({"heading": "Inputs", "table": {"columns": ["key", "value"],
-                                                "rows": [[k, v] for k, v in result.inputs.items()]}})
+            plot_sec = {"heading": "Plots", "images": [(Path(f).stem.replace("_", " "), Path(f).read_bytes())
+                                                       for f in files if str(f).endswith(".png")]}
+    if plot_sec:
+        secs.append(plot_sec)
+    secs.append({"heading": "Figures by group", "pre": summary_table(result)})
+    eb = s.get("energy_balance")
+    if isinstance(eb, dict):
+        from .motoring import energy_basis
+
+        base_key, base_label = energy_basis(eb)
+        base = eb[base_key] or 1.0
+        terms = [(k, v) for k, v in eb.items() if k != "closure_fraction" and isinstance(v, (int, float))]
+        secs.append({"heading": "Energy balance", "table": {
+            "main": True, "align": ["t", "n", "n"],
+            "columns": ["term", "energy [J]", f"share of the {base_label} [%]"],
+            "rows": [[k.replace("_J", "").replace("_", " "), f"{v:.2f}", f"{100 * v / base:.1f}"] for k, v in terms],
+            "notes": ([f"closure: {100 * eb['closure_fraction']:.3f} % of the {base_label} unaccounted for"]
+                      if isinstance(eb.get("closure_fraction"), (int, float)) else [])}})
+    if result.warnings:
+        secs.append({"heading": "Warnings", "text": list(result.warnings)})
+    if getattr(result, "notes", None):
+        secs.append({"heading": "Notes", "text": list(result.notes)})
+    secs.append({"heading": "All figures", "appendix": True,
+                 "table": {"columns": ["figure", "value"], "rows": _scalar_rows(s, ("energy_balance",))}})
+    secs.append({"heading": "Inputs", "appendix": True, "table": {"columns": ["key", "value"],
+                                                                  "rows": [[k, v] for k, v in result.inputs.items()]}})
     if result.references:
-        secs.append({"heading": "References of the submodels", "text": list(result.references)})
+        secs.append({"heading": "References of the submodels", "appendix": True, "text": list(result.references)})
     return secs
 
 
@@ -387,6 +478,9 @@ def report_for_study(folder) -> list[dict]:
         from .errors import CyclesimError
 
         raise CyclesimError(f"report: {folder} is not a folder")
+    from .report_views import view_for_folder
+
+    view = view_for_folder(folder)
     secs: list[dict] = []
     for f in sorted(folder.glob("*.json")):
         try:
@@ -402,6 +496,12 @@ def report_for_study(folder) -> list[dict]:
         except (ValueError, OSError, csv.Error) as exc:
             secs.append({"heading": f.name, "text": f"could not read: {exc}"})
     pngs = sorted(folder.glob("*.png"))
+    if view is not None:
+        shown = {Path(p).name for s_ in view for _, p in s_.get("images", ())}
+        rest = [p for p in pngs if p.name not in shown]
+        if rest:
+            view.append({"heading": "Other plots", "images": [(p.stem.replace("_", " "), p) for p in rest]})
+        return view + [dict(s_, appendix=True) for s_ in secs]
     if pngs:
         secs.append({"heading": "Plots", "images": [(p.stem.replace("_", " "), p) for p in pngs]})
     if not secs:

@@ -43,7 +43,7 @@ def _render_in_chromium(html_path, tmp_path):
 
 def _check_page(html_text, dom):
     n_img = html_text.count("<img ")
-    n_tab = html_text.count("<table>")
+    n_tab = len(re.findall(r"<table[ >]", html_text))     # plain and formatted (class="main") tables
     assert 'data-probed="yes"' in dom
     widths = [int(w) for w in re.findall(r'data-natural-width="(\d+)"', dom)]
     heights = [int(h) for h in re.findall(r'data-height="(\d+)"', dom)]

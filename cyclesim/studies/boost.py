@@ -37,8 +37,12 @@ a fixed point on the exhaust back pressure:
 
 Left out: pulse energy of the blowdown (a constant-pressure turbine inlet),
 heat lost in the exhaust manifold before the turbine (T3 is the exhaust-valve
-enthalpy average), compressor and turbine maps (fixed efficiencies), the
-turbocharger's speed and inertia, and the air filter's pressure drop.
+enthalpy average), a turbine map (fixed efficiency), the turbocharger's inertia,
+and the air filter's pressure drop.  With a compressor map
+(:mod:`cyclesim.studies.compressor_map`) the compressor efficiency is read at
+each iteration's corrected flow and pressure ratio, and the surge and choke
+margins and the turbocharger speed are reported; without one the efficiency is
+fixed and those limits are not checked (the result says so).
 """
 
 from __future__ import annotations
@@ -191,6 +195,14 @@ class BoostResult:
         row("ambient pressure / temperature", s["p1_bar"], "bar")
         lines[-1] += f"  {s['T1_K']:.1f} K"
         row("compressor pressure ratio", s["compressor_pressure_ratio"], "-")
+        row("compressor efficiency", s["eta_compressor"], "-")
+        if "compressor_map" in s:
+            lines[-1] += f"  (from the map {s['compressor_map']})"
+            row("corrected flow on the map", s["map_corrected_flow_kg_per_s"], "kg/s", ".4f")
+            for label, k in (("surge margin (flow above the surge line)", "map_surge_margin"),
+                             ("choke margin (flow below the choke end)", "map_choke_margin")):
+                row(label, None if s.get(k) is None else 100 * s[k], "%", ".1f")
+            row("turbocharger speed", s.get("turbocharger_speed_rpm"), "rpm", ".0f")
         row("compressor outlet temperature T2", s["T2_K"], "K", ".1f")
         row("intake plenum (after intercooler)", s["p_intake_bar"], "bar")
         lines[-1] += f"  {s['T_intake_K']:.1f} K"
@@ -291,6 +303,7 @@ def boost_match(
     plots: bool = True,
     p_max_limit_bar: float = P_MAX_LIMIT_BAR,
     t3_limit_K: float = T3_LIMIT_K,
+    compressor_map=None,
 ) -> BoostResult:
     """Match a turbocharger to the case at a target intake (boost) pressure.
 
@@ -329,6 +342,10 @@ def boost_match(
         warns (defaults :data:`P_MAX_LIMIT_BAR`, :data:`T3_LIMIT_K`: orders of magnitude, not
         any engine's rating; give the engine maker's limits).  The result also warns where the
         knock model predicts autoignition, or where no knock model is chosen.
+    compressor_map : str, Path or CompressorMap, optional
+        A compressor map (:mod:`cyclesim.studies.compressor_map`): the compressor efficiency is
+        read from it at each iteration's operating point (``eta_compressor`` is only the first
+        guess), and the surge and choke margins and the turbocharger speed are reported.
 
     Returns
     -------
@@ -370,8 +387,11 @@ def boost_match(
     if PR < 1:
         notes.append(f"target boost {boost_pressure_bar:g} bar is below ambient: the compressor does no work"
                      " (a throttled engine needs no turbocharger)")
-    T2 = float(compressor_outlet_temperature(T1, max(PR, 1.0), eta_compressor))
+    cmap = _compressor_map(compressor_map)
+    eta_c = float(eta_compressor)
+    T2 = float(compressor_outlet_temperature(T1, max(PR, 1.0), eta_c))
     T_ic = float(intercooler_outlet_temperature(T2, T_cool, intercooler_effectiveness))
+    map_point = None
     cp_air = GAMMA_AIR * R_AIR / (GAMMA_AIR - 1)
     area = turbine_area_cm2 * 1e-4
     ncyl = case.engine.cylinders
@@ -400,6 +420,11 @@ def boost_match(
         m_exh = (s["inducted_mass_mg"] - s.get("blowby_mass_mg", 0.0)) * 1e-6 * ncyl * N / 120.0
         m_air = s["inducted_mass_mg"] * 1e-6 * air_share * ncyl * N / 120.0
         T3 = float(s["exhaust_temperature_K"])
+        eta_used = eta_c
+        if cmap is not None:
+            map_point = cmap.at(cmap.corrected_flow(m_air, T1, p1 / 1e5), max(PR, 1.0))
+            if map_point.efficiency is not None:
+                eta_c = map_point.efficiency
         P_c = m_air * cp_air * (T2 - T1)
         # turbine with all the flow (wastegate closed)
         p3_full, T4, T4s, P_t, g_e, cp_e, R_e = _turbine(gas, m_exh, T3, p4, area, eta_turbine)
@@ -441,16 +466,19 @@ def boost_match(
             "compressor_power_kW": P_c / 1e3, "turbine_power_kW": P_t / 1e3,
             "turbine_shaft_power_kW": eta_mechanical * P_t / 1e3,
             "power_balance_residual_kW": (eta_mechanical * P_t - P_c) / 1e3,
-            "eta_compressor": eta_compressor, "eta_turbine": eta_turbine, "eta_mechanical": eta_mechanical,
+            "eta_compressor": eta_used, "eta_turbine": eta_turbine, "eta_mechanical": eta_mechanical,
             "intercooler_effectiveness": intercooler_effectiveness, "turbine_area_cm2": turbine_area_cm2,
             "exhaust_gamma": g_e, "exhaust_cp_J_per_kgK": cp_e, "exhaust_R_J_per_kgK": R_e,
             "air_cp_J_per_kgK": cp_air, "wastegate": bool(wastegate),
         }
         T3_guess = T3
-        if abs(dp) < tolerance_bar * 1e5:
+        if abs(dp) < tolerance_bar * 1e5 and abs(eta_c - eta_used) < ETA_TOLERANCE:
             converged = True
             break
         p3 = p3_new
+        if cmap is not None:        # the next iteration's compressor at the map's efficiency
+            T2 = float(compressor_outlet_temperature(T1, max(PR, 1.0), eta_c))
+            T_ic = float(intercooler_outlet_temperature(T2, T_cool, intercooler_effectiveness))
     # the engine figures belong to the last simulated state (p3 used); the turbine state to p3_new
     state["p3_bar"] = history[-1]["p3_new_bar"]
     engine = {k: res.summary.get(k) for k in (
@@ -465,8 +493,14 @@ def boost_match(
             message = notes[-1]
     warnings, limits = _limit_warnings(res, state, p_max_limit_bar, t3_limit_K)
     warnings.extend(f"engine: {w}" for w in res.warnings)
-    notes.append("steady-flow turbocharger: blowdown pulse energy, manifold heat loss and component maps are"
-                 " not modelled")
+    if cmap is None:
+        notes.append(f"fixed compressor efficiency {eta_compressor:g} (no compressor map given): surge, choke"
+                     " and turbocharger-speed limits are not checked")
+    else:
+        _map_state(state, warnings, cmap, map_point, T1)
+        notes.append(f"compressor efficiency from the map {cmap.name} at the operating point")
+    notes.append("steady-flow turbocharger: blowdown pulse energy, manifold heat loss and the turbine map are"
+                 " not modelled (fixed turbine efficiency)")
     br = BoostResult(boost_pressure_bar=boost_pressure_bar, reached=reached, message=message,
                      converged=converged, iterations=history, tolerance_bar=tolerance_bar, state=state,
                      engine=engine, result=res, notes=notes, base_config=label, warnings=warnings,
@@ -478,11 +512,47 @@ def boost_match(
         files = [out / CSV_NAME]
         if plots:
             files.append(plot_boost(br, out / PNG_NAME))
+            if cmap is not None:
+                from .compressor_map import plot_compressor_map
+
+                op = [{"corrected_flow_kg_per_s": state["map_corrected_flow_kg_per_s"],
+                       "pressure_ratio": state["map_pressure_ratio"], "label": "matched point"}]
+                files.append(plot_compressor_map(cmap, out / "compressor_map.png", op,
+                                                 title=f"{label}: compressor map {cmap.name}, matched point"))
         files.append(out / JSON_NAME)
         br.files = files
         atomic_write_text(out / JSON_NAME, json.dumps(_plain(br.figures()), indent=2) + "\n")
     return br
 
+
+
+ETA_TOLERANCE = 1e-3
+"""With a compressor map: largest change of the efficiency between iterations that counts as settled."""
+
+
+def _compressor_map(cmap):
+    if cmap is None:
+        return None
+    from .compressor_map import CompressorMap, load_compressor_map
+
+    return cmap if isinstance(cmap, CompressorMap) else load_compressor_map(cmap)
+
+
+def _map_state(state: dict, warnings: list, cmap, mp, T1: float) -> None:
+    """The map's reading at the matched point into the state, and its warnings."""
+    state["compressor_map"] = cmap.name
+    state.update({f"map_{k}": v for k, v in mp.as_dict().items()})
+    state["turbocharger_speed_rpm"] = (None if mp.corrected_speed_rpm is None
+                                       else mp.corrected_speed_rpm * (T1 / cmap.t_ref_K) ** 0.5)
+    if not mp.on_map:
+        warnings.append(f"the compressor operating point (corrected flow {mp.corrected_flow_kg_per_s:.3f} kg/s,"
+                        f" pressure ratio {mp.pressure_ratio:.2f}) lies off the map {cmap.name}: the efficiency"
+                        f" used is the last one read on it or the first guess")
+    if mp.surge_margin is not None and mp.surge_margin < 0:
+        warnings.append(f"the compressor is in surge (flow {-100 * mp.surge_margin:.0f} % below the surge line"
+                        f" at pressure ratio {mp.pressure_ratio:.2f})")
+    if mp.choke_margin is not None and mp.choke_margin < 0:
+        warnings.append(f"the compressor is beyond its choke end (flow {-100 * mp.choke_margin:.0f} % above it)")
 
 
 def _limit_warnings(res, state: dict, p_max_limit_bar: float, t3_limit_K: float) -> tuple[list, dict]:

@@ -1,30 +1,29 @@
-"""Engine maps: full-load torque and power against speed, part-load maps with the spark per point.
+"""Engine maps: full-load torque and power against speed, part-load maps, with the spark per point.
 
 >>> from cyclesim.studies.maps import full_load_curve, part_load_map
->>> fl = full_load_curve("demo", [2000, 3000, 4000, 5000], out="fullload")
+>>> fl = full_load_curve("demo_turbo", out="fullload", exhaust_limit_K=1223)
 >>> pm = part_load_map("demo", [2000, 3000, 4000], [0.4, 0.7, 0.98], spark="mbt", out="map")
 
 * :func:`full_load_curve`: the case at each speed at its own (wide-open)
-  intake pressure and spark, in as few batches as the integration step allows.
-* :func:`part_load_map`: a grid of speed x intake pressure (the load).  With
-  ``spark="mbt"`` every point is simulated at a coarse grid of spark advances
-  (all points and advances together, batched), MBT is read from the torque
-  curve by the spark study's fit (:func:`cyclesim.studies.spark.fit_torque_peak`)
-  and every point is run once more at its MBT; ``spark="fixed"`` keeps the
-  case's advance.  Contour plots of BSFC and brake efficiency over speed and
-  BMEP, of BMEP over speed and intake pressure, and of the spark advance.
+  intake pressure, with the spark per speed and, with ``exhaust_limit_K``,
+  enrichment to hold the exhaust temperature.
+* :func:`part_load_map`: a grid of speed x intake pressure (the load).
+* Spark (both): ``"knock_limited"`` (the default where the case has a knock
+  model), ``"mbt"`` (the default without one) or ``"fixed"`` (the case's
+  advance), by the spark study's rule (:mod:`cyclesim.studies.point_spark`);
+  every point records its spark, what limited it, its knock margin in degrees
+  and the knock model's own margin.  Mixture: :mod:`cyclesim.studies.enrichment`.
 * Both take the exhaust back pressure from each point's flow (``exhaust="flow"``,
   the default): the config's ``operating.exhaust_pressure_bar`` holds at the
   config's own operating point, and the drop across the exhaust system to
-  ambient grows with the square of the flow, iterated with the cylinder (so
-  light load keeps less residual gas and high speed pumps harder);
-  ``exhaust="fixed"`` keeps the config's value everywhere.
+  ambient grows with the square of the flow, iterated with the cylinder at the
+  case's spark (so light load keeps less residual gas and high speed pumps
+  harder); ``exhaust="fixed"`` keeps the config's value everywhere.
 
 Below ``simulation.step_reference_rpm`` (3000 rpm by default) the step
 shrinks with the speed (see :func:`cyclesim.config.effective_step_deg`), so the low speeds cost most; override
-``simulation.step_deg`` (e.g. 1.0) for a quick look.  The recommended advance
-is MBT only: the map knows no knock limit unless the case has a knock model
-and the user reads it with a spark study at the point (see the caution).
+``simulation.step_deg`` (e.g. 1.0) for a quick look.  Knock-limited advances
+are model estimates (see the caution).
 """
 
 from __future__ import annotations
@@ -41,18 +40,16 @@ from ..config import Case, case_with, resolve_case
 from ..errors import ConfigError, CyclesimError
 from ..output import CAUTION, atomic_write_text, write_rows_csv
 from ..output import plain as _plain
-from .spark import SPARK_CAUTION, fit_torque_peak
+from .enrichment import settle_points, with_overrides
+from .map_console import group_warnings, map_text
+from .point_spark import DEFAULT_ADVANCES, LIMIT_NO_MBT, CaseRunner, check_spark_mode
+from .spark import SPARK_CAUTION
 from .sweep import WARNING_SEPARATOR, parse_values
 
 __all__ = ["full_load_curve", "part_load_map", "MapResult", "DEFAULT_SPEEDS", "DEFAULT_LOADS", "DEFAULT_ADVANCES"]
 
 DEFAULT_SPEEDS = (2000.0, 2500.0, 3000.0, 3500.0, 4000.0, 4500.0)
 DEFAULT_LOADS = (0.4, 0.55, 0.7, 0.85, 0.98)
-DEFAULT_ADVANCES = (10.0, 17.0, 24.0, 31.0, 38.0, 45.0)
-MBT_EXTEND_ROUNDS = 4
-"""With the default advances: rounds of two more advances past the end where a point's best torque lies."""
-MBT_SEARCH_RANGE_DEG = (-10.0, 80.0)
-"""Spark advances [deg BTDC] the continued grid stays within (80: the spark parameter's upper bound)."""
 FIGURES = ("imep_net_bar", "imep_gross_bar", "pmep_bar", "fmep_bar", "bmep_bar", "torque_Nm", "power_kW",
            "bsfc_g_per_kWh", "eta_brake", "volumetric_efficiency", "exhaust_temperature_K", "p_max_bar",
            "ca50_deg", "residual_fraction")
@@ -69,47 +66,23 @@ class MapResult:
     files: list = field(default_factory=list)
     base_config: str = ""
     caution: str = CAUTION
+    exhaust_limit_K: float | None = None
+    full_load: object = None
+    """A full-load curve drawn on (and bounding) a part-load map."""
+    cases_run: int = 0
 
     def column(self, name: str) -> np.ndarray:
         return np.array([np.nan if r.get(name) is None else float(r[name]) for r in self.rows])
 
     def figures(self) -> dict:
-        return _plain({"caution": self.caution, "spark_caution": SPARK_CAUTION if self.kind == "part_load" else None,
+        return _plain({"caution": self.caution, "spark_caution": SPARK_CAUTION,
                        "base_config": self.base_config, "kind": self.kind, "columns": self.columns,
-                       "rows": self.rows, "notes": self.notes, "files": [Path(f).name for f in self.files]})
+                       "rows": self.rows, "notes": self.notes, "warnings_grouped": group_warnings(self),
+                       "cases_run": self.cases_run, "exhaust_limit_K": self.exhaust_limit_K, "files": [Path(f).name for f in self.files]})
 
     def text(self) -> str:
-        if self.kind == "full_load":
-            lines = [f"full-load curve: {self.base_config}",
-                     f"  {'speed rpm':>10s}{'torque N m':>12s}{'power kW':>10s}{'BMEP bar':>10s}{'BSFC g/kWh':>12s}"
-                     f"{'vol. eff. %':>12s}{'p_exh bar':>10s}"]
-            for r in self.rows:
-                lines.append(f"  {r['speed_rpm']:10.0f}{_f(r, 'torque_Nm', '.1f', 12)}{_f(r, 'power_kW', '.1f', 10)}"
-                             f"{_f(r, 'bmep_bar', '.2f', 10)}{_f(r, 'bsfc_g_per_kWh', '.0f', 12)}"
-                             f"{_f(r, 'volumetric_efficiency', '.1f', 12, 100)}{_f(r, 'exhaust_pressure_bar', '.3f', 10)}")
-        else:
-            lines = [f"part-load map: {self.base_config}",
-                     f"  {'speed rpm':>10s}{'p_in bar':>9s}{'p_exh bar':>10s}{'spark BTDC':>11s}{'BMEP bar':>10s}"
-                     f"{'BSFC g/kWh':>12s}{'eta_b %':>9s}{'residual %':>11s}"]
-            for r in self.rows:
-                lines.append(f"  {r['speed_rpm']:10.0f}{r['intake_pressure_bar']:9.2f}"
-                             f"{_f(r, 'exhaust_pressure_bar', '.3f', 10)}"
-                             f"{_f(r, 'spark_advance_deg', '.1f', 11)}{_f(r, 'bmep_bar', '.2f', 10)}"
-                             f"{_f(r, 'bsfc_g_per_kWh', '.0f', 12)}{_f(r, 'eta_brake', '.1f', 9, 100)}"
-                             f"{_f(r, 'residual_fraction', '.1f', 11, 100)}")
-        for n in self.notes:
-            lines.append(f"note: {n}")
-        lines.append(f"CAUTION: {self.caution}")
-        return "\n".join(lines)
-
-
-def _f(r, k, spec, w, scale=1.0):
-    v = r.get(k)
-    if v is None or not math.isfinite(v):
-        return f"{'-':>{w}s}"
-    return f"{format(v * scale, spec):>{w}s}"
-
-
+        """The console table, the warnings grouped by kind, the notes and the caution."""
+        return map_text(self)
 
 
 def _base(case, overrides):
@@ -216,23 +189,84 @@ class _BackPressure:
                 f" settled in {passes} pass(es) to {EXHAUST_TOLERANCE_BAR:g} bar")
 
 
-def check_map_inputs(case: Case | str | Path = "demo", speeds=None, loads=None, spark: str = "mbt",
-                     advances=None, *, overrides: Sequence[str] = (), exhaust: str = "flow") -> None:
+def check_map_inputs(case: Case | str | Path = "demo", speeds=None, loads=None, spark: str | None = None,
+                     advances=None, *, overrides: Sequence[str] = (), exhaust: str = "flow",
+                     exhaust_limit_K: float | None = None, lambda_floor: float = 0.75) -> None:
     """Raise the ConfigError that :func:`full_load_curve` or :func:`part_load_map` would raise on
     these inputs, before any simulation (so a command line can refuse them before it writes)."""
-    if spark not in ("mbt", "fixed"):
-        raise ConfigError(f"spark {spark!r}: expected 'mbt' or 'fixed'")
     case, _ = _base(case, overrides)
+    mode = check_spark_mode(spark, case)
     _numbers("speeds", speeds, DEFAULT_SPEEDS)
     _numbers("loads", loads, DEFAULT_LOADS)
-    if spark == "mbt":
+    if mode != "fixed":
         _numbers("advances", advances, DEFAULT_ADVANCES)
+    if exhaust_limit_K is not None and not exhaust_limit_K > 0:
+        raise ConfigError(f"exhaust temperature limit {exhaust_limit_K!r} K: expected a positive number")
+    if not 0.3 <= lambda_floor <= 1.5:
+        raise ConfigError(f"lambda floor {lambda_floor!r}: expected a number in 0.3..1.5")
     _BackPressure(case, exhaust)
 
 
+def _solve_points(case, points, p_exh, mode, advances, knock_margin_deg, exhaust_limit_K, lambda_floor,
+                  p_max_limit_bar, run):
+    """Spark (and mixture) of every (speed, intake pressure) point, then each point's row data."""
+    base = {pt: {"operating.speed_rpm": pt[0], "operating.intake_pressure_bar": pt[1],
+                 "operating.exhaust_pressure_bar": p_exh[pt]} for pt in points}
+    adv = None if advances is None else sorted(_numbers("advances", advances, DEFAULT_ADVANCES))
+    return settle_points(points, with_overrides(case, base), mode, exhaust_limit_K=exhaust_limit_K,
+                         lambda_floor=lambda_floor, run=run, advances=adv, knock_margin_deg=knock_margin_deg,
+                         p_max_limit_bar=p_max_limit_bar)
+
+
+def _point_row(pt, p_exh, s) -> dict:
+    r = s.result
+    extra = {"speed_rpm": pt[0], "intake_pressure_bar": pt[1], "exhaust_pressure_bar": p_exh[pt],
+             "exhaust_flow_g_per_s": None if r.error else 1e3 * _exhaust_flow(r), **s.columns()}
+    row = _row(r, extra)
+    for k in ("knock_integral_margin", "knock_onset_deg", "knock_unburned_fraction_at_onset", "fuel_mass_mg"):
+        row[k] = None if r.error else r.summary.get(k)
+    row["spark_advance_deg"] = extra["spark_advance_deg"]
+    row["spark_note"] = "; ".join(s.notes)
+    return row
+
+
+SPARK_COLUMNS = ("spark_advance_deg", "spark_limit", "mbt_deg", "knock_limit_deg", "knock_margin_deg", "knock_free_to_deg",
+                 "knock_integral_margin", "knock_onset_deg", "knock_unburned_fraction_at_onset", "lambda",
+                 "enriched", "exhaust_limit_held", "enrichment_bsfc_cost_g_per_kWh", "in_contours")
+
+
+def _columns(first):
+    return ["speed_rpm", "intake_pressure_bar", *first, "exhaust_pressure_bar", "exhaust_flow_g_per_s",
+            *SPARK_COLUMNS, *FIGURES, "fuel_mass_mg", "error", "spark_note", "warnings"]
+
+
+def _spark_notes(m: "MapResult", mode, knock_margin_deg, exhaust_limit_K, lambda_floor, case) -> None:
+    m.exhaust_limit_K = exhaust_limit_K
+    if mode == "knock_limited":
+        m.notes.append(f"spark per point: the more retarded of MBT and the knock-limited advance less"
+                       f" {knock_margin_deg:g} deg (the spark study's rule); knock is the knock model's onset"
+                       f" ({case.submodels['knock'].model}, with its own unburned-share cut-off)")
+    elif mode == "mbt":
+        m.notes.append("spark per point: MBT from the spark study's torque fit, refined on a 2-deg grid round it"
+                       + ("" if case.submodels["knock"].model != "none" else
+                          "; NOT checked against knock (knock.model: none)"))
+    else:
+        m.notes.append("the case's spark advance at every point")
+    if exhaust_limit_K is not None:
+        m.notes.append(f"mixture: enriched where needed to hold the exhaust temperature (enthalpy average at the"
+                       f" exhaust valve) at {exhaust_limit_K:g} K, lambda floor {lambda_floor:g}")
+    else:
+        m.notes.append("mixture: the case's lambda at every point (no exhaust-temperature limit given)")
+
+
 def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides: Sequence[str] = (),
-                    out: str | Path | None = None, plots: bool = True, exhaust: str = "flow") -> MapResult:
-    """Full-load torque and power against speed (the case's intake pressure and spark at every speed).
+                    out: str | Path | None = None, plots: bool = True, exhaust: str = "flow",
+                    spark: str | None = None, advances=None, knock_margin_deg: float = 2.0,
+                    exhaust_limit_K: float | None = None, lambda_floor: float = 0.75,
+                    p_max_limit_bar: float | None = None, progress: bool | None = False,
+                    boost_bar: float | None = None, boost_options: dict | None = None) -> MapResult:
+    """Full-load torque and power against speed at the case's intake pressure (or a matched
+    turbocharger's boost), with the spark (and mixture) per speed.
 
     Parameters
     ----------
@@ -241,29 +275,53 @@ def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides:
     speeds : sequence of float or str, optional
         Engine speeds [rpm] (list, ``"a,b,c"`` or ``"start:stop:step"``; default 1500..6000 by 750).
     out : str or Path, optional
-        Folder for ``full_load.csv``, ``full_load.json`` and ``full_load.png``.
+        Folder for ``full_load.csv``, ``full_load.json`` and the plots.
     exhaust : {"flow", "fixed"}
         Exhaust back pressure from each speed's flow (see :class:`_BackPressure`), or the case's
         ``operating.exhaust_pressure_bar`` at every speed.
+    spark : {"mbt", "knock_limited", "fixed"}, optional
+        Spark per speed (see :mod:`cyclesim.studies.point_spark`); default knock-limited where the
+        case has a knock model, else MBT.
+    advances : sequence of float or str, optional
+        Starting advance grid [deg BTDC].
+    knock_margin_deg : float
+        Retard kept from the knock-limited advance [deg].
+    exhaust_limit_K, lambda_floor : float, optional
+        Enrichment to hold the exhaust temperature [K], down to lambda ``lambda_floor``
+        (see :mod:`cyclesim.studies.enrichment`).
+    p_max_limit_bar : float, optional
+        Peak-pressure limit of the spark [bar].
+    progress : bool or None
+        A tqdm bar on stderr (None: where stderr is a terminal).
+    boost_bar : float, optional
+        Target intake pressure [bar] of a turbocharger matched at every speed at the point's spark
+        and mixture (:mod:`cyclesim.studies.full_load_boost`); the exhaust back pressure is then the
+        turbine's and ``exhaust`` is not used.
+    boost_options : dict, optional
+        Keyword arguments of :func:`cyclesim.studies.boost.boost_match` (efficiencies, turbine
+        area, ``compressor_map``, ...).
     """
-    from ..api import simulate
-
     case, label = _base(case, overrides)
+    if boost_bar is not None:
+        return _boosted_full_load(case, label, speeds, mode=check_spark_mode(spark, case), out=out, plots=plots,
+                                  advances=advances, knock_margin_deg=knock_margin_deg,
+                                  exhaust_limit_K=exhaust_limit_K, lambda_floor=lambda_floor,
+                                  p_max_limit_bar=p_max_limit_bar, progress=progress, boost_bar=boost_bar,
+                                  boost_options=dict(boost_options or {}))
+    mode = check_spark_mode(spark, case)
     sp = _numbers("speeds", speeds, (1500.0, 2250.0, 3000.0, 3750.0, 4500.0, 5250.0, 6000.0))
     bp = _BackPressure(case, exhaust)
     pin = float(case.operating.intake_pressure_bar)
     points = [(n, pin) for n in sp]
-    p_exh, last, passes = bp.settle(case, points)
-    if last is None:
-        res = simulate([case_with(case, {"operating.speed_rpm": n}) for n in sp])
-    else:
-        res = [last[pt] for pt in points]
-    rows = [_row(r, {"speed_rpm": n, "intake_pressure_bar": pin, "exhaust_pressure_bar": p_exh[(n, pin)],
-                     "exhaust_flow_g_per_s": None if r.error else 1e3 * _exhaust_flow(r)})
-            for n, r in zip(sp, res)]
-    cols = ["speed_rpm", "intake_pressure_bar", "exhaust_pressure_bar", "exhaust_flow_g_per_s", "spark_advance_deg",
-            *FIGURES, "error", "warnings"]
-    m = MapResult("full_load", rows, cols, base_config=label)
+    run = CaseRunner("full-load curve", progress)
+    try:
+        p_exh, _, passes = bp.settle(case, points)
+        sol = _solve_points(case, points, p_exh, mode, advances, knock_margin_deg, exhaust_limit_K, lambda_floor,
+                            p_max_limit_bar, run)
+    finally:
+        run.close()
+    rows = [_point_row(pt, p_exh, sol[pt]) for pt in points]
+    m = MapResult("full_load", rows, _columns([]), base_config=label)
     bad = [r for r in rows if r["error"]]
     if bad:
         m.notes.append(f"{len(bad)} point(s) failed: " + "; ".join(f"{r['speed_rpm']:g} rpm: {r['error']}" for r in bad))
@@ -273,18 +331,26 @@ def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides:
         i, j = int(np.nanargmax(tq)), int(np.nanargmax(pw))
         m.notes.append(f"peak torque {tq[i]:.1f} N m at {sp[i]:g} rpm; peak power {pw[j]:.1f} kW at {sp[j]:g} rpm"
                        " (on the speeds simulated)")
-    m.notes.append("the spark advance, mixture and intake pressure are the case's at every speed"
-                   " (a real full-load curve is calibrated per speed)")
-    m.notes.append(bp.note(passes))
+    _spark_notes(m, mode, knock_margin_deg, exhaust_limit_K, lambda_floor, case)
+    m.notes.append(f"the intake pressure is the case's {pin:g} bar at every speed (no boost control)")
+    m.notes.append(bp.note(passes) + (" (found at the case's spark and lambda)" if bp.mode == "flow" else ""))
+    m.cases_run = run.cases
+    if mode != "fixed":
+        m.notes.append(f"{SPARK_CAUTION}")
     if out is not None:
-        _write(m, Path(out), "full_load", plots, _plot_full_load)
+        from ..map_plots import plot_full_load
+
+        _write(m, Path(out), "full_load", plots, plot_full_load)
     return m
 
 
-def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spark: str = "mbt",
+def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spark: str | None = None,
                   advances=None, *, overrides: Sequence[str] = (), out: str | Path | None = None,
-                  plots: bool = True, exhaust: str = "flow") -> MapResult:
-    """Part-load map over speed x intake pressure, with MBT spark per point or the case's spark.
+                  plots: bool = True, exhaust: str = "flow", knock_margin_deg: float = 2.0,
+                  exhaust_limit_K: float | None = None, lambda_floor: float = 0.75,
+                  p_max_limit_bar: float | None = None, full_load: "MapResult | None" = None,
+                  progress: bool | None = False) -> MapResult:
+    """Part-load map over speed x intake pressure, with the spark per point.
 
     Parameters
     ----------
@@ -294,121 +360,134 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
         Engine speeds [rpm] (default :data:`DEFAULT_SPEEDS`).
     loads : sequence of float or str, optional
         Intake plenum pressures [bar] (default :data:`DEFAULT_LOADS`).
-    spark : {"mbt", "fixed"}
-        MBT per point from a coarse advance grid, or the case's advance everywhere.
+    spark : {"mbt", "knock_limited", "fixed"}, optional
+        Spark per point (default knock-limited where the case has a knock model, else MBT).
     advances : sequence of float or str, optional
-        Spark advances tried per point with ``spark="mbt"`` [deg BTDC] (default :data:`DEFAULT_ADVANCES`).
+        Starting advance grid per point [deg BTDC] (default :data:`DEFAULT_ADVANCES`, continued
+        where MBT lies beyond it; a grid given is kept as given).
     out : str or Path, optional
         Folder for ``part_load_map.csv``/``.json`` and the contour plots.
+    knock_margin_deg, exhaust_limit_K, lambda_floor, p_max_limit_bar, progress
+        As for :func:`full_load_curve`.
+    full_load : MapResult, optional
+        A full-load curve of the same engine: its BMEP line is drawn on the BSFC map and bounds it.
     """
-    from ..api import simulate
-
-    if spark not in ("mbt", "fixed"):
-        raise ConfigError(f"spark {spark!r}: expected 'mbt' or 'fixed'")
     case, label = _base(case, overrides)
+    mode = check_spark_mode(spark, case)
     sp = _numbers("speeds", speeds, DEFAULT_SPEEDS)
     ld = _numbers("loads", loads, DEFAULT_LOADS)
     points = [(n, p) for n in sp for p in ld]
-    notes = []
-    mbt = {}
-    if spark == "mbt":
-        if "spark_advance_deg" not in case.submodels["burn"].params:
-            raise ConfigError(f"burn model {case.submodels['burn'].model!r} has no spark advance: use spark='fixed'")
-        adv = _numbers("advances", advances, DEFAULT_ADVANCES)
-        if len(adv) < 3:
-            raise ConfigError("advances: at least 3 are needed to find MBT")
-        adv = sorted(adv)
     bp = _BackPressure(case, exhaust)
-    # the back pressure of each point from its flow at the case's spark (kept for the MBT runs)
-    p_exh, last, passes = bp.settle(case, points)
-
-    def at(n, p, **more):
-        return case_with(case, {"operating.speed_rpm": n, "operating.intake_pressure_bar": p,
-                                "operating.exhaust_pressure_bar": p_exh[(n, p)], **more})
-
-    if spark == "mbt":
-        tried = {pt: {} for pt in points}           # per point: advance -> torque (nan: failed)
-
-        def run_grid(todo):
-            todo = [(pt, a) for pt, a in todo if a not in tried[pt]]
-            for (pt, a), r in zip(todo, simulate([at(*pt, **{"burn.spark_advance_deg": a}) for pt, a in todo])):
-                tried[pt][a] = np.nan if r.error else r.summary["torque_Nm"]
-
-        run_grid([(pt, a) for pt in points for a in adv])
-        # with the default grid, a point whose best torque lies at an end of it gets the grid
-        # continued past that end (a slow part-load burn puts MBT beyond 45 deg), within the
-        # spark parameter's range
-        step = float(np.median(np.diff(adv)))
-        lo_lim, hi_lim = MBT_SEARCH_RANGE_DEG
-        fits = {}
-        for round_ in range(MBT_EXTEND_ROUNDS + 1):
-            more = []
-            for pt in points:
-                a_s = np.array(sorted(tried[pt]))
-                t = np.array([tried[pt][a] for a in a_s])
-                ok = np.isfinite(t)
-                fits[pt] = fit_torque_peak(a_s[ok], t[ok]) if ok.sum() >= 3 else None
-                f = fits[pt]
-                if advances is None and f is not None and not f["bracketed"] and round_ < MBT_EXTEND_ROUNDS:
-                    low = f["edge"] == "low"
-                    edge, sign = (a_s[ok][0], -1.0) if low else (a_s[ok][-1], 1.0)
-                    more += [(pt, float(a)) for a in (edge + sign * step, edge + 2 * sign * step)
-                             if lo_lim <= a <= hi_lim]
-            if not more:
-                break
-            run_grid(more)
-        for pt in points:
-            f = fits[pt]
-            if f is None:
-                mbt[pt] = (None, "fewer than 3 advances ran")
-            elif f["bracketed"]:
-                mbt[pt] = (f["mbt_deg"], "MBT (fit)")
-            else:
-                a_s = sorted(a for a, v in tried[pt].items() if np.isfinite(v))
-                a_edge = float(a_s[0] if f["edge"] == "low" else a_s[-1])
-                mbt[pt] = (a_edge, f"best advance at the {'lower' if f['edge'] == 'low' else 'upper'} end"
-                                   " of the grid (MBT lies outside it)")
-        extended = sorted({a for pt in points for a in tried[pt]} - set(adv))
-        final = []
-        for n, p in points:
-            a, _ = mbt[(n, p)]
-            final.append(at(n, p, **({"burn.spark_advance_deg": a} if a is not None else {})))
-        notes.append(f"MBT per point from advances {', '.join(f'{a:g}' for a in adv)} deg BTDC, read by the"
-                     " spark study's torque fit; each point then runs at its MBT")
-        if extended:
-            notes.append(f"where MBT lay past the grid's end the grid was continued for that point"
-                         f" ({', '.join(f'{a:g}' for a in extended)} deg BTDC)")
-        res = simulate(final)
-    else:
-        res = [last[pt] for pt in points] if last is not None else simulate([at(n, p) for n, p in points])
-        notes.append("the case's spark advance at every point")
-    notes.append(bp.note(passes) + (" (found at the case's spark, kept at MBT)" if spark == "mbt"
-                                    and bp.mode == "flow" else ""))
-    rows = []
-    for (n, p), r in zip(points, res):
-        extra = {"speed_rpm": n, "intake_pressure_bar": p, "exhaust_pressure_bar": p_exh[(n, p)],
-                 "exhaust_flow_g_per_s": None if r.error else 1e3 * _exhaust_flow(r)}
-        if spark == "mbt":
-            a, how = mbt[(n, p)]
-            extra["spark_source"] = how
-        rows.append(_row(r, extra))
-    cols = ["speed_rpm", "intake_pressure_bar", "exhaust_pressure_bar", "exhaust_flow_g_per_s", "spark_advance_deg",
-            *(["spark_source"] if spark == "mbt" else []),
-            *FIGURES, "error", "warnings"]
-    m = MapResult("part_load", rows, cols, notes=notes, base_config=label)
-    edge = [r for r in rows if r.get("spark_source", "").startswith("best advance")]
-    if edge:
-        m.notes.append(f"{len(edge)} point(s) have MBT outside the advance grid: widen advances")
+    run = CaseRunner("part-load map", progress)
+    try:
+        p_exh, _, passes = bp.settle(case, points)
+        sol = _solve_points(case, points, p_exh, mode, advances, knock_margin_deg, exhaust_limit_K, lambda_floor,
+                            p_max_limit_bar, run)
+    finally:
+        run.close()
+    rows = [_point_row(pt, p_exh, sol[pt]) for pt in points]
+    m = MapResult("part_load", rows, _columns([]), base_config=label)
+    m.full_load = full_load
+    _spark_notes(m, mode, knock_margin_deg, exhaust_limit_K, lambda_floor, case)
+    ext = sorted({a for s in sol.values() for a in s.pick.tried} - set(DEFAULT_ADVANCES))
+    if mode != "fixed" and advances is None and any(a > max(DEFAULT_ADVANCES) or a < min(DEFAULT_ADVANCES)
+                                                    for a in ext):
+        m.notes.append("where MBT lay past the grid's end the grid was continued for that point")
+    m.notes.append(bp.note(passes) + (" (found at the case's spark, kept at the chosen spark)"
+                                      if mode != "fixed" and bp.mode == "flow" else ""))
+    noclamp = [r for r in rows if r["spark_limit"] == LIMIT_NO_MBT]
+    if noclamp:
+        m.notes.append(f"{len(noclamp)} point(s): MBT not found within the advances run (clamp); left out of"
+                       " the contours: widen the advances")
     bad = [r for r in rows if r["error"]]
     if bad:
         m.notes.append(f"{len(bad)} point(s) failed (see the error column)")
-    if spark == "mbt" and case.submodels["burn"].model in FIXED_DURATION_BURNS:
+    if mode != "fixed" and case.submodels["burn"].model in FIXED_DURATION_BURNS:
         m.notes.append(f"burn model {case.submodels['burn'].model!r} keeps its delay and duration at every"
                        " point, so MBT moves little with load; burn.model=wiebe_flame scales them with the"
                        " flame speed (dilution, load, speed)")
-    m.notes.append(f"recommended advances are MBT only, no knock limit: {SPARK_CAUTION}")
+    m.cases_run = run.cases
+    m.notes.append(SPARK_CAUTION)
     if out is not None:
-        _write(m, Path(out), "part_load_map", plots, _plot_part_load)
+        from ..map_plots import plot_part_load
+
+        _write(m, Path(out), "part_load_map", plots, plot_part_load)
+    return m
+
+
+BOOST_COLUMNS = ("boost_limit", "boost_target_bar", "intake_temperature_K", "wastegate_share", "eta_compressor",
+                 "compressor_pressure_ratio", "compressor_corrected_flow_kg_per_s", "surge_margin", "choke_margin",
+                 "turbocharger_speed_rpm", "boost_passes")
+
+
+def _boosted_full_load(case, label, speeds, *, mode, out, plots, advances, knock_margin_deg, exhaust_limit_K,
+                       lambda_floor, p_max_limit_bar, progress, boost_bar, boost_options):
+    from .full_load_boost import MAX_PASSES, boosted_points
+
+    if not boost_bar > 0:
+        raise ConfigError(f"boost {boost_bar!r} bar: expected a positive number")
+    if "compressor_map" in boost_options and boost_options["compressor_map"] is not None:
+        from .boost import _compressor_map
+
+        boost_options["compressor_map"] = _compressor_map(boost_options["compressor_map"])
+    sp = _numbers("speeds", speeds, (1500.0, 2250.0, 3000.0, 3750.0, 4500.0, 5250.0, 6000.0))
+    points = [(n, float(boost_bar)) for n in sp]
+    adv = None if advances is None else sorted(_numbers("advances", advances, DEFAULT_ADVANCES))
+    run = CaseRunner("full-load curve with boost", progress)
+    try:
+        sol, boost = boosted_points(case, points, mode, float(boost_bar), boost_options, run=run,
+                                    spark_options={"advances": adv, "knock_margin_deg": knock_margin_deg,
+                                                   "p_max_limit_bar": p_max_limit_bar},
+                                    exhaust_limit_K=exhaust_limit_K, lambda_floor=lambda_floor)
+    finally:
+        run.close()
+    rows = []
+    for pt in points:
+        b = boost[pt]
+        r = _point_row(pt, {pt: b["p_exh_bar"]}, sol[pt])
+        r["intake_pressure_bar"] = b["boost_bar"]
+        r.update({"boost_limit": b["boost_limit"], "boost_target_bar": float(boost_bar),
+                  "intake_temperature_K": b["T_intake_K"], "wastegate_share": b["wastegate_share"],
+                  "eta_compressor": b["eta_compressor"], "compressor_pressure_ratio": b["compressor_pressure_ratio"],
+                  "compressor_corrected_flow_kg_per_s": b["compressor_corrected_flow_kg_per_s"],
+                  "surge_margin": b["surge_margin"], "choke_margin": b["choke_margin"],
+                  "turbocharger_speed_rpm": b["turbocharger_speed_rpm"], "boost_passes": b["passes"]})
+        rows.append(r)
+    m = MapResult("full_load", rows, _columns([]) + list(BOOST_COLUMNS), base_config=label)
+    _spark_notes(m, mode, knock_margin_deg, exhaust_limit_K, lambda_floor, case)
+    cm = boost_options.get("compressor_map")
+    m.notes.append(f"boost: a turbocharger matched at every speed to {boost_bar:g} bar at the point's spark and"
+                   f" mixture, alternated with them up to {MAX_PASSES} passes; compressor efficiency "
+                   + (f"from the map {cm.name}" if cm is not None else
+                      f"fixed at {boost_options.get('eta_compressor', 0.72):g} (no compressor map: surge and"
+                      " choke not checked)"))
+    short = [r for r in rows if r["boost_limit"].startswith("boost not reached")]
+    if short:
+        m.notes.append("boost not reached at " + ", ".join(f"{r['speed_rpm']:g} rpm ({r['intake_pressure_bar']:.2f}"
+                                                            " bar)" for r in short)
+                       + ": the turbine cannot drive the compressor there with the wastegate closed")
+    unsettled = [r for r in rows if r["boost_passes"] == MAX_PASSES]
+    if unsettled:
+        m.notes.append(f"spark and turbocharger still moving after {MAX_PASSES} passes at "
+                       + ", ".join(f"{r['speed_rpm']:g} rpm" for r in unsettled))
+    m.cases_run = run.cases
+    m.notes.append(SPARK_CAUTION)
+    if out is not None:
+        from ..map_plots import plot_full_load
+
+        def plotter(m_, out_):
+            files = plot_full_load(m_, out_)
+            if cm is not None:
+                from .compressor_map import plot_compressor_map
+
+                op = [{"corrected_flow_kg_per_s": r["compressor_corrected_flow_kg_per_s"],
+                       "pressure_ratio": r["compressor_pressure_ratio"], "label": f"{r['speed_rpm']:g}"}
+                      for r in m_.rows if r["compressor_corrected_flow_kg_per_s"] is not None]
+                files.append(plot_compressor_map(cm, out_ / "compressor_map.png", op,
+                                                 title=f"{label}: full-load operating line on {cm.name}"))
+            return files
+
+        _write(m, Path(out), "full_load", plots, plotter)
     return m
 
 
@@ -425,61 +504,3 @@ def _write(m: MapResult, out: Path, stem: str, plots: bool, plotter) -> None:
     files.append(out / f"{stem}.json")
     m.files = files
     atomic_write_text(out / f"{stem}.json", json.dumps(m.figures(), indent=2) + "\n")
-
-
-def _plot_full_load(m: MapResult, out: Path) -> list[Path]:
-    from ..plots import _plt, _save
-
-    plt = _plt()
-    n = m.column("speed_rpm")
-    fig, ax = plt.subplots(figsize=(7, 4.2))
-    ax.plot(n, m.column("torque_Nm"), "o-", color="tab:blue", label="torque")
-    ax.set_xlabel("engine speed [rpm]")
-    ax.set_ylabel("brake torque [N m]", color="tab:blue")
-    ax2 = ax.twinx()
-    ax2.plot(n, m.column("power_kW"), "s-", color="tab:red", label="power")
-    ax2.set_ylabel("brake power [kW]", color="tab:red")
-    ax2.grid(False)
-    ax.set_title(f"{m.base_config}: full-load torque and power")
-    return [_save(fig, out / "full_load.png")]
-
-
-def _plot_part_load(m: MapResult, out: Path) -> list[Path]:
-    from ..plots import _plt, _save
-
-    plt = _plt()
-    n = m.column("speed_rpm")
-    p = m.column("intake_pressure_bar")
-    bmep = m.column("bmep_bar")
-    files = []
-    ok = np.isfinite(bmep)
-
-    def contour(x, y, z, title, zlabel, ylabel, name, fmt="%.0f"):
-        good = ok & np.isfinite(z) & np.isfinite(y)
-        fig, ax = plt.subplots(figsize=(7, 4.6))
-        if good.sum() >= 3 and len(set(x[good])) > 1 and len(set(np.round(y[good], 9))) > 1:
-            try:
-                cs = ax.tricontourf(x[good], y[good], z[good], levels=12, cmap="viridis")
-                fig.colorbar(cs, ax=ax, label=zlabel)
-                cl = ax.tricontour(x[good], y[good], z[good], levels=8, colors="k", linewidths=0.5)
-                ax.clabel(cl, fontsize=7, fmt=fmt)
-            except (ValueError, RuntimeError):
-                sc = ax.scatter(x[good], y[good], c=z[good], cmap="viridis")
-                fig.colorbar(sc, ax=ax, label=zlabel)
-        else:
-            sc = ax.scatter(x[good], y[good], c=z[good], cmap="viridis")
-            fig.colorbar(sc, ax=ax, label=zlabel)
-        ax.plot(x[good], y[good], "k.", ms=3)
-        ax.set_xlabel("engine speed [rpm]")
-        ax.set_ylabel(ylabel)
-        ax.set_title(title)
-        files.append(_save(fig, out / name))
-
-    contour(n, bmep, m.column("bsfc_g_per_kWh"), f"{m.base_config}: BSFC [g/kWh]", "BSFC [g/kWh]", "BMEP [bar]",
-            "map_bsfc.png")
-    contour(n, bmep, 100 * m.column("eta_brake"), "brake efficiency [%]", "brake efficiency [%]", "BMEP [bar]",
-            "map_eta_brake.png", "%.1f")
-    contour(n, p, bmep, "BMEP [bar]", "BMEP [bar]", "intake pressure [bar]", "map_bmep.png", "%.1f")
-    contour(n, p, m.column("spark_advance_deg"), "MBT spark advance [deg BTDC]", "spark advance [deg BTDC]",
-            "intake pressure [bar]", "map_spark.png", "%.1f")
-    return files

@@ -409,24 +409,21 @@ class SweepResult:
 
 
 class _Bar:
-    """``[#####.....] 12/41 cases  3.2 s`` on stderr, redrawn in place."""
-
-    width = 30
+    """A tqdm bar of cases on stderr, driven by the sweep's ``(done, total, elapsed)`` callback."""
 
     def __init__(self, total: int, stream=None):
+        from tqdm import tqdm
+
         from ..textsafe import terminal
 
-        self.total = max(total, 1)
-        self.stream = stream or terminal(sys.stderr)  # redraws itself with a carriage return
+        self.bar = tqdm(total=max(total, 1), unit="case", file=stream or terminal(sys.stderr), dynamic_ncols=True)
 
     def __call__(self, done: int, total: int, elapsed: float) -> None:
-        n = int(round(self.width * done / max(total, 1)))
-        self.stream.write(f"\r[{'#' * n}{'.' * (self.width - n)}] {done}/{total} cases  {elapsed:.1f} s")
-        self.stream.flush()
+        self.bar.total = max(total, 1)
+        self.bar.update(done - self.bar.n)
 
     def close(self) -> None:
-        self.stream.write("\n")
-        self.stream.flush()
+        self.bar.close()
 
 
 def _progress_fn(progress, total):

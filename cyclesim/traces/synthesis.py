@@ -417,6 +417,7 @@ def synthesize(
     fine_step_deg: float | None = None,
     chunk: int = 150,
     checkpoint_dir=None,
+    progress=None,
 ) -> SyntheticSet:
     """Simulate ``n_cycles`` consecutive cycles of one operating point with variation and artefacts.
 
@@ -441,6 +442,8 @@ def synthesize(
     checkpoint_dir : path, optional
         Keep each finished chunk here, so an interrupted set
         resumes where it stopped with the same draws and the same result.
+    progress : callable, optional
+        Called as ``progress(cycles_done, n_cycles)`` after each chunk.
     """
     from ..api import _registry_for
     from . import artefacts as art
@@ -577,6 +580,8 @@ def synthesize(
                 collect([i0 + j for j in g], batch, tr, d, figs)
             save_part(f, i0, len(part), end)
         state = np.asarray(end)[:, -1]
+        if progress is not None:
+            progress(i0 + len(part), n_cycles)
 
     # measurement: the analogue chain on the fine grid (thermal drift driven by the wall heat flow)
     rng = np.random.default_rng(var.seed + 7919)
