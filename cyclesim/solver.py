@@ -56,13 +56,10 @@ from typing import Any
 import numpy as np
 
 from .errors import CyclesimError, PluginError, SolverError
+from .layout import CORE  # the state's names, declared once  # noqa: F401
+from .layout import CORE_ROWS as IDX  # noqa: F401
+from .layout import TOTALS as _TOTALS  # running totals, reset at the start of a cycle
 from .roles import GasState
-
-CORE = ("m", "T", "m_b", "x_b", "W", "Q_w", "m_bb", "H_bb", "mu_bb",
-        "m_int", "H_int", "mu_int", "m_exh", "H_exh", "mu_exh", "Q_burn",
-        "m_ibuf", "mb_ibuf", "H_ibuf")
-IDX = {n: i for i, n in enumerate(CORE)}
-_TOTALS = slice(4, 16)  # running totals, reset at the start of a cycle
 
 
 @dataclass

@@ -219,6 +219,7 @@ class WiebeFlame(BurnRate):
         return burn_step_limit({"d": 0.5 * float(ref)} if ref is not None else {}, step_deg, ("d",))
 
     name = "wiebe_flame"
+    compiled_form = "wiebe_flame"
     summary = ("Wiebe burn with development angle and duration scaled by the Metghalchi-Keck"
                " flame speed at spark and the mean piston speed")
     params = (
@@ -355,6 +356,16 @@ class WiebeFlame(BurnRate):
     def spark_deg(self) -> np.ndarray:
         """Spark timing as a crank angle [deg] (negative = before TDC) (B,)."""
         return self.spark.copy()
+
+    def pack(self) -> dict:
+        """Parameters of the compiled form ``wiebe_flame`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        phi_m, b_m, b_phi = MK_FUELS[self.fuel]
+        return {"spark": self.spark, "delay_ref": self.delay_ref, "dur_ref": self.dur_ref, "a": self.a,
+                "m": self.m, "eff": self.eff, "kd": self.kd, "sd": self.sd, "kb": self.kb, "sb": self.sb,
+                "visc": 1.0 if self.visc else 0.0, "phi": self.phi, "V_spark": self.V_spark,
+                "speed_ratio": self.speed_ratio, "G_ref": self.G_ref, "phi_m": phi_m, "b_m": b_m,
+                "b_phi": b_phi, "dilution": MK_DILUTION, "T0": T0_K, "atm": ATM_PA,
+                "visc_exp": 1.0 + VISCOSITY_T_EXPONENT, "V_tdc": self.V_tdc, "G_ref_dur": self.G_ref_dur}
 
     def combustion_efficiency(self) -> np.ndarray:
         """Fraction of the charge's fuel energy that is released (B,) [-]."""

@@ -26,6 +26,7 @@ class NoHeatTransfer(WallHeatTransfer):
 
     name = "none"
     summary = "adiabatic walls (no heat transfer)"
+    compiled_form = "none"
 
     def coefficient(self, s: GasState) -> np.ndarray:
         return np.zeros(self.B)
@@ -85,6 +86,7 @@ class Woschni(WallHeatTransfer):
 
     name = "woschni"
     summary = "Woschni 1967 (original form, T^-0.53), phase-dependent C1/C2, motored pressure integrated"
+    compiled_form = "woschni"
     params = (
         _MULTIPLIER,
         Param("swirl_ratio", "-", 0.0, "swirl ratio (swirl speed / engine speed)", min=0.0, max=10.0),
@@ -110,6 +112,11 @@ class Woschni(WallHeatTransfer):
         self._c1_open = 6.18 + 0.417 * vs_over_sp
         self._c1_closed = 2.28 + 0.308 * vs_over_sp
         self._k = self.p.multiplier * self._bore_term * 1e-5 ** 0.8
+
+    def pack(self) -> dict:
+        """Parameters of the compiled form ``woschni`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        return {"k": self._k, "c1_closed": self._c1_closed, "c1_open": self._c1_open,
+                "c2": self.p.c2_m_per_sK, "Vd": self._Vd}
 
     def states(self):
         return (StateVar(self.STATE, "K", initial="T_ivc", reset_at_ivc=True),)
@@ -155,11 +162,16 @@ class Hohenberg(WallHeatTransfer):
 
     name = "hohenberg"
     summary = "Hohenberg 1979: 130 V^-0.06 p[bar]^0.8 T^-0.4 (Sp+1.4)^0.8"
+    compiled_form = "hohenberg"
     params = (_MULTIPLIER,)
     references = (
         "Hohenberg G.F. (1979) Advanced approaches for heat transfer calculations. "
         "SAE 790825. doi:10.4271/790825",
     )
+
+    def pack(self) -> dict:
+        """Parameters of the compiled form ``hohenberg`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        return {"multiplier": self.p.multiplier}
 
     def coefficient(self, s: GasState) -> np.ndarray:
         return (
@@ -211,6 +223,7 @@ class Annand(WallHeatTransfer):
 
     name = "annand"
     summary = "Annand 1963: a (k/B) Re^0.7 + radiation during combustion"
+    compiled_form = "annand"
     params = (
         Param("a", "-", 0.49, "convective constant (0.35-0.8 in the original)", min=0.05, max=2.0),
         Param("b", "-", 0.7, "Reynolds-number exponent", min=0.5, max=0.9),
@@ -230,6 +243,12 @@ class Annand(WallHeatTransfer):
     def __init__(self, values, ctx) -> None:
         super().__init__(values, ctx)
         self._bore = ctx.geometry.bore_m
+
+    def pack(self) -> dict:
+        """Parameters of the compiled form ``annand`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        p = self.p
+        return {"multiplier": p.multiplier, "a": p.a, "b": p.b, "radiation_factor": p.radiation_factor,
+                "prandtl_number": p.prandtl_number, "bore": self._bore}
 
     def convective(self, s: GasState) -> np.ndarray:
         """Convective coefficient a (k/B) Re^b [W/(m^2 K)] (B,)."""

@@ -205,6 +205,7 @@ class Wiebe(_WiebeLaw):
 
     name = "wiebe"
     summary = "single Wiebe function from spark advance, ignition delay and burn duration"
+    compiled_form = "wiebe"
     params = (
         P_SPARK,
         P_DELAY,
@@ -230,6 +231,10 @@ class Wiebe(_WiebeLaw):
     def _setup_rate(self) -> None:
         self._inv_dur = 1.0 / self.duration
         self._c = self.a * (self.m + 1.0) * self._inv_dur
+
+    def pack(self) -> dict:
+        """Parameters of the compiled form ``wiebe`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        return {"theta0": self.theta0, "inv_dur": self._inv_dur, "c": self._c, "a": self.a, "m": self.m}
 
     def spark_deg(self) -> np.ndarray:
         """Spark timing as a crank angle [deg] (negative = before TDC) (B,)."""
@@ -324,6 +329,7 @@ class DoubleWiebe(_WiebeLaw):
 
     name = "double_wiebe"
     summary = "two Wiebe functions with a split fraction (main burn plus slow tail)"
+    compiled_form = "double_wiebe"
     params = (
         P_SPARK,
         P_DELAY,
@@ -362,6 +368,11 @@ class DoubleWiebe(_WiebeLaw):
         self.d2 = _arr(p.second_duration_deg, B)
         self.m2 = _arr(p.second_m, B)
 
+    def pack(self) -> dict:
+        """Parameters of the compiled form ``double_wiebe`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        return {"theta0": self.theta0, "d1": self.d1, "a": self.a, "m1": self.m1, "f1": self.f1,
+                "start2": self.start2, "d2": self.d2, "m2": self.m2}
+
     def spark_deg(self) -> np.ndarray:
         """Spark timing as a crank angle [deg] (negative = before TDC) (B,)."""
         return self.spark.copy()
@@ -397,6 +408,7 @@ class NoBurn(BurnRate):
 
     name = "none"
     summary = "motored engine: no combustion"
+    compiled_form = "none"
     params = ()
     references = ()
 
