@@ -39,7 +39,7 @@ FORMS = {
     },
     "heat_transfer": {
         "none": (),
-        "woschni": ("k", "c1_closed", "c1_open", "c2", "Vd"),
+        "woschni": ("k", "c1_closed", "c1_open", "c2", "Vd", "t_exp"),
         "hohenberg": ("multiplier",),
         "annand": ("multiplier", "a", "b", "radiation_factor", "prandtl_number", "bore"),
     },
@@ -75,7 +75,7 @@ D_THETA0, D_D1, D_A, D_M1, D_F1, D_START2, D_D2, D_M2 = PARAM_ROWS["burn", "doub
 (F_SPARK, F_DELAY, F_DUR, F_A, F_M, F_EFF, F_KD, F_SD, F_KB, F_SB, F_VISC, F_PHI, F_V_SPARK,
  F_SPEED_RATIO, F_G_REF, F_PHI_M, F_B_M, F_B_PHI, F_DILUTION, F_T0, F_ATM, F_VISC_EXP, F_V_TDC,
  F_G_REF_DUR) = PARAM_ROWS["burn", "wiebe_flame"].values()
-H_K, H_C1_CLOSED, H_C1_OPEN, H_C2, H_VD = PARAM_ROWS["heat_transfer", "woschni"].values()
+H_K, H_C1_CLOSED, H_C1_OPEN, H_C2, H_VD, H_T_EXP = PARAM_ROWS["heat_transfer", "woschni"].values()
 (H_MULT,) = PARAM_ROWS["heat_transfer", "hohenberg"].values()
 _, H_ANNAND_A, H_ANNAND_B, H_RAD, H_PRANDTL, H_BORE = PARAM_ROWS["heat_transfer", "annand"].values()
 B_CDA, B_P_CC = PARAM_ROWS["blowby", "orifice"].values()
@@ -323,7 +323,8 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
             comb = CB[R_P + H_C2, b] * CB[R_P + H_VD, b] * CB[R_IVC_T, b] / (CB[R_IVC_P, b] * CB[R_IVC_V, b]) * dp
             if math.isfinite(comb):     # not yet known in the step that crosses intake closing
                 w = w + comb
-        hcoef = CB[R_P + H_K, b] * (p * w) ** 0.8 * T ** -0.53
+        # heat_transfer.woschni_coefficient (its form's temperature exponent packed)
+        hcoef = CB[R_P + H_K, b] * (p * w) ** 0.8 * T ** CB[R_P + H_T_EXP, b]
         Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
     elif hc == HT_HOHENBERG:
         hcoef = CB[R_P + H_MULT, b] * 130.0 * V ** -0.06 * (p * 1e-5) ** 0.8 * T ** -0.4 * (sp + 1.4) ** 0.8
@@ -435,10 +436,27 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     return True
 
 
+@njit(cache=True, inline="always", error_model="numpy")
+def _weighted(coef, K, s, k):
+    """sum_j coef[j] K[j, k] over the first s stages, in order (as cyclesim.stepper.combine)."""
+    acc = 0.0
+    first = True
+    for q in range(s):
+        c = coef[q]
+        if c == 0.0:
+            continue
+        t = K[q, k] if c == 1.0 else c * K[q, k]
+        acc = t if first else acc + t
+        first = False
+    return acc
+
+
 @njit(cache=True, nogil=True, error_model="numpy")
 def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, open_at, Ai_pts, Ae_pts,
-              y, Y, F, CB, IC, reset, geo_rows, PI, PE, gas_tab, gas_off, gc, uc4, status, b0, b1):
-    """One cycle of cases b0..b1-1: Kutta's third-order scheme on the grid, as the Python loop.
+              y, Y, F, CB, IC, reset, geo_rows, PI, PE, gas_tab, gas_off, gc, uc4, status, tA, ta_den, tb, tb_den,
+              tnode, b0, b1):
+    """One cycle of cases b0..b1-1 by the Runge-Kutta tableau (tA, ta_den, tb, tb_den, tnode:
+    cyclesim.stepper.Tableau.arrays) on the grid, as the Python loop.
 
     Cases touch only their own columns, so two threads may run disjoint ranges of one batch
     (the GIL is released).
@@ -450,7 +468,8 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
     N = steps.shape[0]
     yv = np.empty(n)
     yt = np.empty(n)
-    K = np.empty((3, n))
+    S = tA.shape[0]
+    K = np.empty((S, n))
     mix = np.empty(7)
     for b in range(b0, b1):
         status[b] = 0
@@ -461,18 +480,16 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
             _spark_state(b, CB, uc4, gc[7])
         for i in range(N + 1):
             hs = steps[i] if i < N else 0.0
-            # the three stages: the step's start, middle and end (only the start at the last point)
-            for st in range(3 if i < N else 1):
-                j = 2 * i + st
+            # the stages at the grid's points (only the start at the last point)
+            for st in range(S if i < N else 1):
+                j = 2 * i + tnode[st]
                 if st == 0:
                     for k in range(n):
                         yt[k] = yv[k]
-                elif st == 1:
-                    for k in range(n):
-                        yt[k] = yv[k] + 0.5 * hs * K[0, k]
                 else:
+                    f = hs / ta_den[st]
                     for k in range(n):
-                        yt[k] = yv[k] + hs * (2.0 * K[1, k] - K[0, k])
+                        yt[k] = yv[k] + f * _weighted(tA[st], K, st, k)
                 jp = j if vary else 0
                 ok = _rhs(b, th[j], yt, K[st], full and open_at[j], Vp[j, g], dVp[j, g], Ahp[j, g],
                           App[j, g], Alp[j, g], closed_pts[j, b], burning_pts[j, b], Ai_pts[j, b],
@@ -486,9 +503,9 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
                         F[k, b, i] = K[0, k]
             if status[b] != 0 or i == N:
                 break
-            c6 = hs / 6.0
+            fb = hs / tb_den
             for k in range(n):
-                yv[k] = yv[k] + c6 * (K[0, k] + 4.0 * K[1, k] + K[2, k])
+                yv[k] = yv[k] + fb * _weighted(tb, K, S, k)
             m_ = yv[S_M]
             T_ = yv[S_T]
             if not (m_ > 0.0 and m_ < math.inf and T_ > 50.0 and T_ < 8000.0):

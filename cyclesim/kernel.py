@@ -276,6 +276,10 @@ class Compiled:
         CB[mod.R_V_AT_IVC] = _b(batch.geometry.volume_at(ivc), B) if self.full else 0.0
         self.CB = CB
         self.IC = IC
+        from .solver import TABLEAU
+
+        A, a_den, b, b_den, node = TABLEAU.arrays()
+        self.tableau = (_cw(A), _cw(a_den), _cw(b), b_den, _cw(node, np.int64))
 
     def cycle(self, y: np.ndarray, Y: np.ndarray, F: np.ndarray) -> bool:
         """One cycle from ``y`` into ``Y``, ``F``; False (nothing kept) if any case needs the Python path."""
@@ -286,7 +290,7 @@ class Compiled:
         G = self.Gc
         args = (self.full, self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.closed, self.burning,
                 self.open_at, self.Ai, self.Ae, _cw(y), Y, F, CB, self.IC, self.reset, self.geo_rows,
-                self.PI, self.PE, self.gas_tab, self.gas_off, self.gc, self.uc4, self.status)
+                self.PI, self.PE, self.gas_tab, self.gas_off, self.gc, self.uc4, self.status) + self.tableau
         B = self.status.size
         n_thr = min(threads(), B // MIN_CASES_PER_THREAD)
         if n_thr <= 1:

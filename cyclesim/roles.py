@@ -174,6 +174,18 @@ class Submodel:
         The solver steps ``CLOSED_STEP_FACTOR`` times further while every valve is shut;
         a model whose derivatives jump there (an integral that stops at a threshold)
         caps that multiple, since the jump costs accuracy in proportion to the step.
+    compiled_form : str or None
+        The compiled loop's form of this model's physics (a name in
+        ``cyclesim._compiled.FORMS[role]``), with :meth:`pack` giving its parameters; None
+        (the default) runs the batch on the Python path.  A subclass keeps its parent's form
+        unless it overrides one of the role's physics methods (``cyclesim.kernel.PHYSICS``).
+
+    Step-control contract
+    ---------------------
+    :meth:`shortest_feature_deg_for` gives, per case and at set-up, the shortest crank-angle
+    feature of the model's output [deg] (a burn's duration, say); the solver keeps at least
+    ``cyclesim.solver.MIN_FEATURE_STEPS`` steps across it.  It is read from the case's
+    parameters, never from a parameter's name.
     """
 
     role: ClassVar[str] = ""
@@ -190,6 +202,20 @@ class Submodel:
         """Cap of the closed-part step multiple for one case's parameters (default
         :attr:`closed_step_limit`); ``step_deg`` is the case's gas-exchange step [deg]."""
         return cls.closed_step_limit
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params: Mapping[str, Any]) -> float | None:
+        """Shortest crank-angle feature [deg] of this model's output for one case's parameters,
+        which the step must resolve; None: nothing the step needs to resolve (the default for
+        every role but the burn, see :meth:`BurnRate.shortest_feature_deg_for`)."""
+        return None
+
+    compiled_form: ClassVar[str | None] = None
+    """Name of the compiled loop's form of this model (None: the Python path)."""
+
+    def pack(self) -> Mapping[str, Any]:
+        """Parameters of :attr:`compiled_form` by name, numbers or arrays (B,) [SI units]."""
+        return {}
 
     required_methods: ClassVar[tuple[tuple[str, ...], ...]] = ()
     """Methods a subclass must define: in each tuple at least one (checked at registration)."""
@@ -223,10 +249,27 @@ class Submodel:
 
 
 class BurnRate(Submodel):
-    """Rate of burning of the charge (mass fraction burned per crank degree)."""
+    """Rate of burning of the charge (mass fraction burned per crank degree).
+
+    Spark contract: :meth:`spark_deg` gives the spark timing per case; :attr:`spark_param`
+    names the parameter that sets it (crank degrees before firing TDC, positive = advance),
+    which the spark study, the knock limit, the maps and the engine's spark spread vary.
+    """
 
     role = "burn"
     required_methods = (("start_deg",), ("rate",))
+    spark_param: ClassVar[str | None] = None
+    """The parameter that sets the spark timing [deg before firing TDC, positive = advance];
+    None for a law not timed by a spark (the spark studies then refuse it with a clear error)."""
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params: Mapping[str, Any]) -> float | None:
+        """Shortest burn feature [deg] for one case's parameters (e.g. the burn duration).
+
+        The default, 0, means "not known before the run": the closed part of the cycle keeps
+        the fine step, so an undeclared short burn loses no accuracy (at some cost in time).
+        """
+        return 0.0
 
     def start_deg(self) -> np.ndarray:
         """Start of combustion [deg] per case (spark plus ignition delay)."""

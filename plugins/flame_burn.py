@@ -211,15 +211,13 @@ class WiebeFlame(BurnRate):
     """
 
     @classmethod
-    def closed_step_limit_for(cls, params, step_deg):
-        """A short burn keeps the fine step; the duration may shrink to half its reference."""
-        from .wiebe import burn_step_limit
-
-        ref = params.get("ref_duration_deg")
-        return burn_step_limit({"d": 0.5 * float(ref)} if ref is not None else {}, step_deg, ("d",))
+    def shortest_feature_deg_for(cls, params):
+        """Half the reference duration [deg]: the scaled duration may shrink that far."""
+        return 0.5 * float(params["ref_duration_deg"])
 
     name = "wiebe_flame"
     compiled_form = "wiebe_flame"
+    spark_param = "spark_advance_deg"
     summary = ("Wiebe burn with development angle and duration scaled by the Metghalchi-Keck"
                " flame speed at spark and the mean piston speed")
     params = (

@@ -132,31 +132,11 @@ P_DELAY = Param("ignition_delay_deg", "deg", 8.0,
                 "crank angle from spark to the start of burning", min=0.0, max=60.0)
 
 
-MIN_BURN_STEPS = 16
-"""Fewest solver steps across the shortest burn duration: the longer closed-part step
-(:data:`cyclesim.solver.CLOSED_STEP_FACTOR`) is taken only as far as this allows."""
-
-_DURATION_KEYS = ("duration_deg", "burn_10_90_deg", "first_duration_deg", "second_duration_deg")
-
-
-def burn_step_limit(params: Mapping[str, Any], step_deg: float, keys=_DURATION_KEYS) -> int:
-    """Step multiple [-] that keeps :data:`MIN_BURN_STEPS` steps across the shortest duration."""
-    durations = [float(params[k]) for k in keys if params.get(k) is not None]
-    if not durations:
-        return 1
-    return max(1, int(min(durations) / (MIN_BURN_STEPS * step_deg)))
-
-
 class _WiebeLaw(BurnRate):
     """Common behaviour: efficiency, cycle-end cut, burn-completion warning."""
 
     theta0: np.ndarray
     eff: np.ndarray
-
-    @classmethod
-    def closed_step_limit_for(cls, params: Mapping[str, Any], step_deg: float) -> int | None:
-        """A short burn keeps the fine step (see :data:`MIN_BURN_STEPS`)."""
-        return burn_step_limit(params, step_deg)
 
     def combustion_efficiency(self) -> np.ndarray:
         """Fraction of the charge's fuel energy that is released (B,) [-]."""
@@ -206,6 +186,12 @@ class Wiebe(_WiebeLaw):
     name = "wiebe"
     summary = "single Wiebe function from spark advance, ignition delay and burn duration"
     compiled_form = "wiebe"
+    spark_param = "spark_advance_deg"
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params: Mapping[str, Any]) -> float | None:
+        """The burn duration [deg]."""
+        return float(params["duration_deg"])
     params = (
         P_SPARK,
         P_DELAY,
@@ -277,6 +263,12 @@ class WiebeCA50(Wiebe):
 
     name = "wiebe_ca50"
     summary = "single Wiebe function from 50 % burned angle and 10-90 % burn duration"
+    spark_param = None          # timed by its CA50, not by a spark parameter
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params: Mapping[str, Any]) -> float | None:
+        """The 10-90 % burn duration [deg]."""
+        return float(params["burn_10_90_deg"])
     params = (
         Param("ca50_deg", "deg", 8.0, "crank angle of 50 % mass burned (positive = after TDC)",
               min=-40.0, max=90.0),
@@ -330,6 +322,12 @@ class DoubleWiebe(_WiebeLaw):
     name = "double_wiebe"
     summary = "two Wiebe functions with a split fraction (main burn plus slow tail)"
     compiled_form = "double_wiebe"
+    spark_param = "spark_advance_deg"
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params: Mapping[str, Any]) -> float | None:
+        """The shorter of the two durations [deg]."""
+        return min(float(params["first_duration_deg"]), float(params["second_duration_deg"]))
     params = (
         P_SPARK,
         P_DELAY,
@@ -409,6 +407,11 @@ class NoBurn(BurnRate):
     name = "none"
     summary = "motored engine: no combustion"
     compiled_form = "none"
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params: Mapping[str, Any]) -> float | None:
+        """Nothing burns: no feature."""
+        return None
     params = ()
     references = ()
 

@@ -312,8 +312,11 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
     notes = []
     mbt = {}
     if spark == "mbt":
-        if "spark_advance_deg" not in case.submodels["burn"].params:
+        from ..registry import get_registry, spark_param
+
+        if not get_registry(tuple(case.plugins)).submodel_class("burn", case.submodels["burn"].model).spark_param:
             raise ConfigError(f"burn model {case.submodels['burn'].model!r} has no spark advance: use spark='fixed'")
+        spark_key = "burn." + spark_param(case, "maps")
         adv = _numbers("advances", advances, DEFAULT_ADVANCES)
         if len(adv) < 3:
             raise ConfigError("advances: at least 3 are needed to find MBT")
@@ -331,7 +334,7 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
 
         def run_grid(todo):
             todo = [(pt, a) for pt, a in todo if a not in tried[pt]]
-            for (pt, a), r in zip(todo, simulate([at(*pt, **{"burn.spark_advance_deg": a}) for pt, a in todo])):
+            for (pt, a), r in zip(todo, simulate([at(*pt, **{spark_key: a}) for pt, a in todo])):
                 tried[pt][a] = np.nan if r.error else r.summary["torque_Nm"]
 
         run_grid([(pt, a) for pt in points for a in adv])
@@ -372,7 +375,7 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
         final = []
         for n, p in points:
             a, _ = mbt[(n, p)]
-            final.append(at(n, p, **({"burn.spark_advance_deg": a} if a is not None else {})))
+            final.append(at(n, p, **({spark_key: a} if a is not None else {})))
         notes.append(f"MBT per point from advances {', '.join(f'{a:g}' for a in adv)} deg BTDC, read by the"
                      " spark study's torque fit; each point then runs at its MBT")
         if extended:
