@@ -28,8 +28,11 @@ SIGMA_SB = 5.670374419e-8
 # A built-in declares ``compiled_form`` (a name below) and ``pack()``, which returns its parameter
 # arrays by the names listed here; cyclesim.kernel fills the rows from those names.  The row
 # numbers are resolved here once, at import (numba reads them as constants).
+KERNEL_PARAMS = 16
+"""Most packed parameters of a plug-in's kernel (form ``kernel``, see cyclesim.loopgen)."""
 FORMS = {
     "burn": {
+        "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
         "none": (),
         "wiebe": ("theta0", "inv_dur", "c", "a", "m"),
         "double_wiebe": ("theta0", "d1", "a", "m1", "f1", "start2", "d2", "m2"),
@@ -38,6 +41,7 @@ FORMS = {
                         "visc_exp", "V_tdc", "G_ref_dur"),
     },
     "heat_transfer": {
+        "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
         "none": (),
         "woschni": ("k", "c1_closed", "c1_open", "c2", "Vd", "t_exp"),
         "hohenberg": ("multiplier",),
@@ -54,10 +58,12 @@ STATES = (("heat_transfer", "T_mot"), ("knock", "I"))
 """Submodel state components the loop integrates, by (role, name): the motored temperature of
 the Woschni form and the Livengood-Wu integral."""
 
-BURN_NONE, BURN_WIEBE, BURN_DOUBLE, BURN_FLAME = (CODES["burn"][k] for k in FORMS["burn"])
-HT_NONE, HT_WOSCHNI, HT_HOHENBERG, HT_ANNAND = (CODES["heat_transfer"][k] for k in FORMS["heat_transfer"])
-BB_NONE, BB_ORIFICE = (CODES["blowby"][k] for k in FORMS["blowby"])
-KN_NONE, KN_LW = (CODES["knock"][k] for k in FORMS["knock"])
+BURN_NONE, BURN_WIEBE, BURN_DOUBLE, BURN_FLAME, BURN_KERNEL = (
+    CODES["burn"][k] for k in ("none", "wiebe", "double_wiebe", "wiebe_flame", "kernel"))
+HT_NONE, HT_WOSCHNI, HT_HOHENBERG, HT_ANNAND, HT_KERNEL = (
+    CODES["heat_transfer"][k] for k in ("none", "woschni", "hohenberg", "annand", "kernel"))
+BB_NONE, BB_ORIFICE = (CODES["blowby"][k] for k in ("none", "orifice"))
+KN_NONE, KN_LW = (CODES["knock"][k] for k in ("none", "livengood_wu"))
 
 # rows of the per-case constant array CB (see cyclesim.kernel.Compiled): named blocks, in order
 N_P = sum(max(len(v) for v in FORMS[r].values()) for r in ("burn", "heat_transfer", "blowby", "knock"))
@@ -252,6 +258,19 @@ def _flame_rate(theta, b, yb, xb, CB):
 
 
 @njit(cache=True, error_model="numpy")
+def burn_kernel(theta):
+    """Stand-in for a plug-in's burn kernel: a generated loop (cyclesim.loopgen) calls the
+    plug-in's own function here; in this module the branch is never taken."""
+    return 0.0
+
+
+@njit(cache=True, error_model="numpy")
+def heat_transfer_kernel(T):
+    """Stand-in for a plug-in's heat-transfer kernel (as :func:`burn_kernel`)."""
+    return 0.0
+
+
+@njit(cache=True, error_model="numpy")
 def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, gas_tab,
          gas_off, gc, uc4, mix):
     """Derivatives of case b into out; False where they are not finite.
@@ -304,6 +323,8 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
         elif bc == BURN_FLAME:
             if theta < CYCLE_END_DEG and theta >= CB[R_P + F_SPARK, b]:
                 dxb = _flame_rate(theta, b, yb, xb, CB)
+        elif bc == BURN_KERNEL:
+            dxb = burn_kernel(theta)  # KERNEL CALL burn
         e_c = CB[R_ETA, b]
         dm_burn = e_c * dxb / max(1.0 - e_c * xb, 1e-3) * max(m - mb, 0.0)
         out[S_XB] = dxb
@@ -325,6 +346,9 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
                 w = w + comb
         # heat_transfer.woschni_coefficient (its form's temperature exponent packed)
         hcoef = CB[R_P + H_K, b] * (p * w) ** 0.8 * T ** CB[R_P + H_T_EXP, b]
+        Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
+    elif hc == HT_KERNEL:
+        hcoef = heat_transfer_kernel(T)  # KERNEL CALL heat_transfer
         Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
     elif hc == HT_HOHENBERG:
         hcoef = CB[R_P + H_MULT, b] * 130.0 * V ** -0.06 * (p * 1e-5) ** 0.8 * T ** -0.4 * (sp + 1.4) ** 0.8

@@ -155,22 +155,56 @@ PHYSICS = {
 """The methods whose arithmetic a compiled form stands for, per role."""
 
 
+KERNEL_METHODS = {"burn": ("rate",), "heat_transfer": ("coefficient", "heat_flow")}
+"""The role methods a kernel stands for (a model that overrides them is not its kernel)."""
+
+
 def compiled_form(model) -> str | None:
     """The compiled form a submodel declares (``compiled_form``), or None.
 
     A capability, not a type: a subclass keeps its parent's compiled form unless it overrides one
     of the role's physics methods (:data:`PHYSICS`), since the form then no longer computes what
-    the class does.  Its parameters reach the loop through its ``pack()``.
+    the class does.  Its parameters reach the loop through its ``pack()``.  A model that gives a
+    ``kernel`` (and leaves the role's methods to it) has the form ``kernel``: a loop generated
+    for it (:mod:`cyclesim.loopgen`).
     """
-    cls = type(model)
+    return form_of_class(type(model))
+
+
+def form_of_class(cls) -> str | None:
+    """:func:`compiled_form` of a submodel class."""
+    from .loopgen import kernel_of
+    from .roles import ROLE_BASES
+
+    role = cls.role
+    if role in KERNEL_METHODS and kernel_of(cls) is not None:
+        base = ROLE_BASES[role]
+        if all(getattr(cls, n) is getattr(base, n) for n in KERNEL_METHODS[role]):
+            return "kernel"
+        return None
     form = getattr(cls, "compiled_form", None)
-    if form is None or model.role not in PHYSICS:
+    if form is None or role not in PHYSICS:
         return None
     owner = next(c for c in cls.__mro__ if "compiled_form" in vars(c))
-    for name in PHYSICS[model.role]:
+    for name in PHYSICS[role]:
         if getattr(cls, name, None) is not getattr(owner, name, None):
             return None
     return form
+
+
+def loop_status(cls) -> str:
+    """How a submodel class runs, for ``cyclesim plugins``: compiled (and by which form), or on
+    the numpy loop, or outside the cycle loop."""
+    if cls.role not in PHYSICS:
+        return "outside the cycle loop (evaluated once per case after it)"
+    form = form_of_class(cls)
+    if form == "kernel":
+        from .loopgen import kernel_of
+
+        return f"compiled: a loop generated from its kernel {kernel_of(cls).__name__}()"
+    if form is not None:
+        return f"compiled (form {form!r})"
+    return "numpy loop (no compiled form: give a kernel, see DEVELOPERS.md)"
 
 
 def why_not(batch, rhs) -> str | None:
@@ -241,7 +275,12 @@ class Compiled:
         for role in ("burn", "heat_transfer", "blowby", "knock"):
             form = compiled_form(m[role])
             IC[mod.IC_ROWS[role]] = mod.CODES[role][form]
-            rows = mod.PARAM_ROWS[role, form]
+            if form == "kernel":
+                from .loopgen import kernel_of, param_rows_for
+
+                rows = param_rows_for(role, kernel_of(type(m[role])), tuple(m[role].pack()), mod.PARAM_ROWS)
+            else:
+                rows = mod.PARAM_ROWS[role, form]
             for name, v in _packed(m[role], tuple(rows), B).items():
                 P[rows[name]] = v
         from .layout import CORE
@@ -276,6 +315,8 @@ class Compiled:
         CB[mod.R_V_AT_IVC] = _b(batch.geometry.volume_at(ivc), B) if self.full else 0.0
         self.CB = CB
         self.IC = IC
+        self.broken = False
+        self.ready = False
         from .solver import TABLEAU
 
         A, a_den, b, b_den, node = TABLEAU.arrays()
@@ -293,6 +334,22 @@ class Compiled:
                 self.PI, self.PE, self.gas_tab, self.gas_off, self.gc, self.uc4, self.status) + self.tableau
         B = self.status.size
         n_thr = min(threads(), B // MIN_CASES_PER_THREAD)
+        if self.broken:
+            return False
+        if mod is not _mod and not self.ready:
+            # a generated loop compiles on its first call: on one range, so that a kernel numba
+            # cannot compile sends the batch to the Python path instead of failing it
+            try:
+                mod.run_cycle(*args, 0, 0)
+            except Exception as exc:  # noqa: BLE001 - numba's typing and lowering errors
+                if type(exc).__module__.split(".")[0] != "numba":
+                    raise
+                self.broken = True
+                first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+                _notice(f"kernel:{mod.__name__}", f"a plug-in's kernel does not compile ({first}); this batch"
+                                                 f" runs on the numpy loop ({FALLBACK_SLOWDOWN})")
+                return False
+            self.ready = True
         if n_thr <= 1:
             mod.run_cycle(*args, 0, B)
         else:
@@ -334,6 +391,8 @@ def loop_for(batch, rhs) -> tuple[object, str]:
         why = f"{ENV}=python" if choice() == "python" else "numba not installed: pip install -e \".[fast]\""
         return None, f"numpy ({why})"
     reason = why_not(batch, rhs)
+    if reason is None:
+        mod, reason = _generated(batch, mod)
     if reason is not None:
         if choice() == "compiled":
             raise ConfigError(f"{ENV}=compiled: {reason}")
@@ -342,8 +401,36 @@ def loop_for(batch, rhs) -> tuple[object, str]:
             _notice(reason, f"{reason}: this batch runs on the numpy loop ({FALLBACK_SLOWDOWN} than the"
                             " compiled loop of the built-in submodels)")
         return None, f"numpy ({reason})"
-    _compile_notice(mod)
+    if mod is _mod:
+        _compile_notice(mod)
     return mod, "compiled"
+
+
+def _generated(batch, mod):
+    """The loop module for the batch: the built-in one, or one generated for its kernels
+    (:mod:`cyclesim.loopgen`); and the reason where a kernel cannot go into one."""
+    from .loopgen import LoopGenError, kernel_of, module_for
+
+    kernels = {role: (kernel_of(type(model)), tuple(model.pack())) for role, model in batch.models.items()
+               if compiled_form(model) == "kernel"}
+    if not kernels:
+        return mod, None
+    try:
+        gen, fresh = module_for(kernels)
+    except LoopGenError as exc:
+        return None, f"{exc}"
+    if fresh or not _cached(gen):
+        names = ", ".join(f"{r} model {batch.models[r].name!r}" for r in kernels)
+        _notice(f"compiling:{gen.__name__}", f"compiling the cycle loop for {names} (once per combination of"
+                                            " models and kernel source; about 10-30 s)")
+    return gen, None
+
+
+def _cached(mod) -> bool:
+    try:
+        return bool(mod.run_cycle._cache._cache_file._load_index())
+    except Exception:  # noqa: BLE001 - numba internals: treat as not cached
+        return False
 
 
 def prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at) -> tuple[Compiled | None, str]:

@@ -157,6 +157,19 @@ class ParamValues(SimpleNamespace):
         raise AttributeError(f"{self._owner} has no parameter {name!r}; declared: {declared}")
 
 
+def _kernel_call(model, s: GasState):
+    """A model's kernel on the Python path (arrays (B,)), its parameters from ``pack()`` (once)."""
+    from .loopgen import call_on, kernel_of
+
+    fn = kernel_of(type(model))
+    if fn is None:
+        raise NotImplementedError(f"{model.role} model {model.name!r} defines neither the method nor a kernel")
+    packed = model.__dict__.get("_packed_kernel")
+    if packed is None:
+        packed = model.__dict__["_packed_kernel"] = dict(model.pack())
+    return call_on(fn, s, packed)
+
+
 class Submodel:
     """Base of every submodel.  Subclass one of the role classes below.
 
@@ -257,7 +270,7 @@ class BurnRate(Submodel):
     """
 
     role = "burn"
-    required_methods = (("start_deg",), ("rate",))
+    required_methods = (("start_deg",), ("rate", "kernel"))
     spark_param: ClassVar[str | None] = None
     """The parameter that sets the spark timing [deg before firing TDC, positive = advance];
     None for a law not timed by a spark (the spark studies then refuse it with a clear error)."""
@@ -283,9 +296,18 @@ class BurnRate(Submodel):
         """Fraction of the charge's fuel energy that is released (B,) [-]."""
         return np.ones(self.B)
 
+    kernel: ClassVar[Any] = None
+    """The burn rate as a plain function (one source for both loops), or None.
+
+    Its arguments are named: a GasState field (``theta``, ``p``, ``T``, ``x_b``, ... see
+    ``cyclesim.loopgen.STATE_ARGS``) or a parameter that :meth:`pack` gives by that name.  It
+    returns dx_b/dtheta [1/deg]; it is called with arrays (B,) on the Python path and with
+    floats in the compiled loop, so per-case choices go through ``cyclesim.kernel_ops.where``.
+    A model with a kernel need not define :meth:`rate`."""
+
     def rate(self, s: GasState) -> np.ndarray:
-        """dx_b/dtheta [1/deg] of the burn progress, zero before the start."""
-        raise NotImplementedError
+        """dx_b/dtheta [1/deg] of the burn progress, zero before the start (default: the kernel)."""
+        return _kernel_call(self, s)
 
     def fraction(self, theta_deg: np.ndarray) -> np.ndarray | None:
         """Closed-form burn progress x_b on a crank grid (B, n), if the law has one."""
@@ -296,11 +318,15 @@ class WallHeatTransfer(Submodel):
     """Convective (and optionally radiative) heat transfer from gas to walls."""
 
     role = "heat_transfer"
-    required_methods = (("coefficient", "heat_flow"),)
+    required_methods = (("coefficient", "heat_flow", "kernel"),)
+
+    kernel: ClassVar[Any] = None
+    """The heat-transfer coefficient [W/(m^2 K)] as a plain function of named arguments (as
+    :attr:`BurnRate.kernel`), or None; a model with a kernel need not define :meth:`coefficient`."""
 
     def coefficient(self, s: GasState) -> np.ndarray:
-        """Heat-transfer coefficient [W/(m^2 K)] (B,)."""
-        raise NotImplementedError
+        """Heat-transfer coefficient [W/(m^2 K)] (B,) (default: the kernel)."""
+        return _kernel_call(self, s)
 
     def heat_flow(self, s: GasState) -> np.ndarray:
         """Heat flow from gas to walls [W] (B,), positive = gas loses heat."""
