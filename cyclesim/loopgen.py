@@ -100,6 +100,22 @@ def _source(fn) -> str:
     return "\n".join(lines) + "\n"
 
 
+def _globals_read(fn) -> dict:
+    """The module globals the function's code loads (LOAD_GLOBAL, nested code included), by name;
+    builtins (abs, min, ...) are left to numba."""
+    import dis
+
+    names: set = set()
+    codes = [fn.__code__]
+    while codes:
+        code = codes.pop()
+        for ins in dis.get_instructions(code):
+            if ins.opname == "LOAD_GLOBAL":
+                names.add(ins.argval)
+        codes += [c for c in code.co_consts if isinstance(c, types.CodeType)]
+    return {n: fn.__globals__[n] for n in names if n in fn.__globals__}
+
+
 def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
     """The function's source, the functions it calls and the globals it reads, recursively."""
     from . import kernel_ops
@@ -112,8 +128,7 @@ def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
         raise LoopGenError(f"kernel {fn.__name__}: reads variables of an enclosing function "
                            f"({', '.join(fn.__code__.co_freevars)}); use module-level names")
     funcs[fn.__name__] = (fn, _source(fn))
-    cv = inspect.getclosurevars(fn)
-    for name, val in sorted(cv.globals.items()):
+    for name, val in sorted(_globals_read(fn).items()):
         if isinstance(val, types.ModuleType):
             if val.__name__ not in ("numpy", "math"):
                 raise LoopGenError(f"kernel {fn.__name__}: reads module {val.__name__!r}; only numpy and math compile")
@@ -152,8 +167,41 @@ def cache_dir() -> Path:
     return Path(d) if d else Path.home() / ".cache" / "cyclesim" / "loops"
 
 
+def _fingerprint(fn, seen=None) -> tuple:
+    """What the generated text depends on, cheaply: the code objects (equal for equal source)
+    and the values of the globals read, of the kernel and of the helpers it calls."""
+    seen = set() if seen is None else seen
+    if fn in seen:
+        return ()
+    seen.add(fn)
+    out: list = [fn.__code__]
+    for name, val in sorted(_globals_read(fn).items()):
+        if isinstance(val, types.FunctionType):
+            out.append((name, _fingerprint(val, seen)))
+        elif isinstance(val, types.ModuleType):
+            out.append((name, val.__name__))
+        else:
+            out.append((name, type(val).__name__, repr(val)))
+    return tuple(out)
+
+
+_generated: dict = {}
+
+
 def generate(kernels: dict) -> tuple[str, str]:
-    """(key, module source) of the loop for ``kernels`` (role -> (function, pack() names))."""
+    """(key, module source) of the loop for ``kernels`` (role -> (function, pack() names)).
+
+    Remembered in the process by a fingerprint of the kernels (code objects and the values of
+    the globals they read), so a repeated batch does not read sources again.
+    """
+    memo = tuple((role, kernels[role][1], _fingerprint(kernels[role][0])) for role in ROLES if role in kernels)
+    got = _generated.get(memo)
+    if got is None:
+        got = _generated[memo] = _generate(kernels)
+    return got
+
+
+def _generate(kernels: dict) -> tuple[str, str]:
     from . import _compiled as base
 
     funcs: dict = {}
