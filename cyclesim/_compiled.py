@@ -34,7 +34,6 @@ FORMS = {
     "burn": {
         "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
         "none": (),
-        "wiebe": ("theta0", "inv_dur", "c", "a", "m"),
         "double_wiebe": ("theta0", "d1", "a", "m1", "f1", "start2", "d2", "m2"),
         "wiebe_flame": ("spark", "delay_ref", "dur_ref", "a", "m", "eff", "kd", "sd", "kb", "sb", "visc", "phi",
                         "V_spark", "speed_ratio", "G_ref", "phi_m", "b_m", "b_phi", "dilution", "T0", "atm",
@@ -44,7 +43,6 @@ FORMS = {
         "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
         "none": (),
         "woschni": ("k", "c1_closed", "c1_open", "c2", "Vd", "t_exp"),
-        "hohenberg": ("multiplier",),
         "annand": ("multiplier", "a", "b", "radiation_factor", "prandtl_number", "bore"),
     },
     "blowby": {"none": (), "orifice": ("cda", "p_cc")},
@@ -58,10 +56,9 @@ STATES = (("heat_transfer", "T_mot"), ("knock", "I"))
 """Submodel state components the loop integrates, by (role, name): the motored temperature of
 the Woschni form and the Livengood-Wu integral."""
 
-BURN_NONE, BURN_WIEBE, BURN_DOUBLE, BURN_FLAME, BURN_KERNEL = (
-    CODES["burn"][k] for k in ("none", "wiebe", "double_wiebe", "wiebe_flame", "kernel"))
-HT_NONE, HT_WOSCHNI, HT_HOHENBERG, HT_ANNAND, HT_KERNEL = (
-    CODES["heat_transfer"][k] for k in ("none", "woschni", "hohenberg", "annand", "kernel"))
+BURN_NONE, BURN_DOUBLE, BURN_FLAME, BURN_KERNEL = (
+    CODES["burn"][k] for k in ("none", "double_wiebe", "wiebe_flame", "kernel"))
+HT_NONE, HT_WOSCHNI, HT_ANNAND, HT_KERNEL = (CODES["heat_transfer"][k] for k in ("none", "woschni", "annand", "kernel"))
 BB_NONE, BB_ORIFICE = (CODES["blowby"][k] for k in ("none", "orifice"))
 KN_NONE, KN_LW = (CODES["knock"][k] for k in ("none", "livengood_wu"))
 
@@ -76,14 +73,12 @@ ROWS, N_ROWS = block_rows((
 R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC, R_SPARK = ROWS.values()
 PARAM_ROWS = param_rows(FORMS, ("burn", "heat_transfer", "blowby", "knock"))
 """(role, form) -> {parameter name: row offset from R_P}."""
-W_THETA0, W_INV_DUR, W_C, W_A, W_M = PARAM_ROWS["burn", "wiebe"].values()
 D_THETA0, D_D1, D_A, D_M1, D_F1, D_START2, D_D2, D_M2 = PARAM_ROWS["burn", "double_wiebe"].values()
 (F_SPARK, F_DELAY, F_DUR, F_A, F_M, F_EFF, F_KD, F_SD, F_KB, F_SB, F_VISC, F_PHI, F_V_SPARK,
  F_SPEED_RATIO, F_G_REF, F_PHI_M, F_B_M, F_B_PHI, F_DILUTION, F_T0, F_ATM, F_VISC_EXP, F_V_TDC,
  F_G_REF_DUR) = PARAM_ROWS["burn", "wiebe_flame"].values()
 H_K, H_C1_CLOSED, H_C1_OPEN, H_C2, H_VD, H_T_EXP = PARAM_ROWS["heat_transfer", "woschni"].values()
-(H_MULT,) = PARAM_ROWS["heat_transfer", "hohenberg"].values()
-_, H_ANNAND_A, H_ANNAND_B, H_RAD, H_PRANDTL, H_BORE = PARAM_ROWS["heat_transfer", "annand"].values()
+H_MULT, H_ANNAND_A, H_ANNAND_B, H_RAD, H_PRANDTL, H_BORE = PARAM_ROWS["heat_transfer", "annand"].values()
 B_CDA, B_P_CC = PARAM_ROWS["blowby", "orifice"].values()
 K_PRE, K_ACT, K_X_MAX, K_ATM, K_P_EXP = PARAM_ROWS["knock", "livengood_wu"].values()
 # the plenum block: intake (p, T, y_b, R, gamma, h), exhaust (p, T, R, gamma, h)
@@ -307,13 +302,7 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     if burning:
         bc = IC[IC_BURN]
         dxb = 0.0
-        if bc == BURN_WIEBE:
-            if theta < CYCLE_END_DEG:
-                uw = (theta - CB[R_P + W_THETA0, b]) * CB[R_P + W_INV_DUR, b]
-                if uw > 0.0:
-                    um = uw ** CB[R_P + W_M, b]
-                    dxb = CB[R_P + W_C, b] * um * math.exp(-CB[R_P + W_A, b] * um * uw)
-        elif bc == BURN_DOUBLE:
+        if bc == BURN_DOUBLE:
             if theta < CYCLE_END_DEG:
                 f1 = CB[R_P + D_F1, b]
                 a_ = CB[R_P + D_A, b]
@@ -349,9 +338,6 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
         Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
     elif hc == HT_KERNEL:
         hcoef = heat_transfer_kernel(T)  # KERNEL CALL heat_transfer
-        Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
-    elif hc == HT_HOHENBERG:
-        hcoef = CB[R_P + H_MULT, b] * 130.0 * V ** -0.06 * (p * 1e-5) ** 0.8 * T ** -0.4 * (sp + 1.4) ** 0.8
         Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
     elif hc == HT_ANNAND:
         mult = CB[R_P + H_MULT, b]

@@ -391,12 +391,14 @@ def loop_for(batch, rhs) -> tuple[object, str]:
         why = f"{ENV}=python" if choice() == "python" else "numba not installed: pip install -e \".[fast]\""
         return None, f"numpy ({why})"
     reason = why_not(batch, rhs)
+    generated = False
     if reason is None:
         mod, reason = _generated(batch, mod)
+        generated = reason is not None
     if reason is not None:
         if choice() == "compiled":
             raise ConfigError(f"{ENV}=compiled: {reason}")
-        if any(type(m).__module__.split(".")[0] != "cyclesim_plugins" for m in batch.models.values()):
+        if generated or any(type(m).__module__.split(".")[0] != "cyclesim_plugins" for m in batch.models.values()):
             # a plug-in of the user's: worth a word (a study's own built-in variants are not)
             _notice(reason, f"{reason}: this batch runs on the numpy loop ({FALLBACK_SLOWDOWN} than the"
                             " compiled loop of the built-in submodels)")
@@ -419,7 +421,9 @@ def _generated(batch, mod):
         gen, fresh = module_for(kernels)
     except LoopGenError as exc:
         return None, f"{exc}"
-    if fresh or not _cached(gen):
+    import numba
+
+    if (fresh or not _cached(gen)) and not numba.config.DISABLE_JIT:
         names = ", ".join(f"{r} model {batch.models[r].name!r}" for r in kernels)
         _notice(f"compiling:{gen.__name__}", f"compiling the cycle loop for {names} (once per combination of"
                                             " models and kernel source; about 10-30 s)")

@@ -16,16 +16,24 @@ def where(condition, x, y):
     return np.where(condition, x, y)
 
 
-try:  # the compiled form of where(), registered with numba where it is installed
-    from numba.core import types as _types
-    from numba.extending import overload as _overload
+_registered = False
 
-    @_overload(where)
+
+def register_compiled() -> None:
+    """Teach numba the compiled form of :func:`where` (a select on floats); called by the generated
+    loops before they compile, so that importing this module does not import numba."""
+    global _registered
+    if _registered:
+        return
+    from numba.core import types
+    from numba.extending import overload
+
+    @overload(where)
     def _where_scalar(condition, x, y):
-        if isinstance(condition, _types.Boolean) and isinstance(x, _types.Number) and isinstance(y, _types.Number):
+        if isinstance(condition, types.Boolean) and isinstance(x, types.Number) and isinstance(y, types.Number):
             def impl(condition, x, y):
                 return x if condition else y
             return impl
         return None
-except ImportError:  # pragma: no cover - numba is optional
-    pass
+
+    _registered = True

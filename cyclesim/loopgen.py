@@ -59,8 +59,18 @@ def kernel_of(cls):
     return k if isinstance(k, types.FunctionType) else None
 
 
+_ARGS: dict = {}
+
+
 def kernel_args(fn) -> tuple[str, ...]:
     """The kernel's argument names, in order (positional arguments without defaults only)."""
+    got = _ARGS.get(fn.__code__)
+    if got is None:
+        got = _ARGS[fn.__code__] = _kernel_args(fn)
+    return got
+
+
+def _kernel_args(fn) -> tuple[str, ...]:
     sig = inspect.signature(fn)
     out = []
     for p in sig.parameters.values():
@@ -216,6 +226,9 @@ def _generate(kernels: dict) -> tuple[str, str]:
         rows = param_rows_for(role, fn, packed, base.PARAM_ROWS)
         calls[role] = _call(role, fn, rows, fn.__name__)
     own = vars(base)
+    # a constant the loop's module defines alike (CYCLE_END_DEG) is the loop's own: not written again
+    consts = {n: v for n, v in consts.items()
+              if not (n in own and isinstance(own[n], (int, float, tuple)) and repr(own[n]) == v)}
     clash = {n for n in set(funcs) | set(consts) if n in own}
     clash |= {n for n, target in imports.items() if n in own and getattr(own[n], "__name__", None) != target}
     if clash:
@@ -235,6 +248,8 @@ def _generate(kernels: dict) -> tuple[str, str]:
         "import math",
         "import numpy as np",
         "from numba import njit",
+        "import cyclesim.kernel_ops",
+        "cyclesim.kernel_ops.register_compiled()",
         "from cyclesim._compiled import *  # noqa: F401,F403 - the layout constants and helpers",
         f"from cyclesim._compiled import {', '.join(private)}  # noqa: F401",
     ]
@@ -260,13 +275,48 @@ def _generate(kernels: dict) -> tuple[str, str]:
 _loaded: dict = {}
 
 
+def _quick_key(kernels: dict) -> str:
+    """A cheap hash of what the loop depends on (the kernels' compiled code objects, the values of
+    the globals they read, this module's and the compiled loop's files), naming an index entry
+    that points at the loop's file: a new process finds its loop without reading any source."""
+    import marshal
+
+    from . import _compiled as base
+
+    h = hashlib.sha256(VERSION.encode())
+    for path in (base.__file__, __file__):
+        h.update(Path(path).read_bytes())
+
+    def feed(x):
+        if isinstance(x, types.CodeType):
+            h.update(marshal.dumps(x))
+        elif isinstance(x, tuple):
+            h.update(b"(")
+            for v in x:
+                feed(v)
+            h.update(b")")
+        else:
+            h.update(repr(x).encode())
+
+    for role in ROLES:
+        if role in kernels:
+            fn, names = kernels[role]
+            feed((role, names, _fingerprint(fn)))
+    return h.hexdigest()[:24]
+
+
 def module_for(kernels: dict):
     """The generated loop module for ``kernels`` (role -> (function, pack() names)): written on first use, then
     loaded from the cache folder; ``(module, freshly_written)``."""
-    key, text = generate(kernels)
-    if key in _loaded:
-        return _loaded[key], False
     d = cache_dir()
+    index = d / "index" / _quick_key(kernels)
+    key = index.read_text().strip() if index.is_file() else ""
+    if key and key in _loaded:
+        return _loaded[key], False
+    if not key or not (d / f"loop_{key}.py").is_file():
+        key, text = generate(kernels)
+        if key in _loaded:
+            return _loaded[key], False
     d.mkdir(parents=True, exist_ok=True)
     path = d / f"loop_{key}.py"
     fresh = not path.exists()
@@ -274,6 +324,11 @@ def module_for(kernels: dict):
         tmp = path.with_suffix(f".{os.getpid()}.tmp")
         tmp.write_text(text)
         os.replace(tmp, path)          # atomic: a sweep worker never reads half a file
+    if not index.is_file():
+        index.parent.mkdir(parents=True, exist_ok=True)
+        tmp = index.with_suffix(f".{os.getpid()}.tmp")
+        tmp.write_text(key)
+        os.replace(tmp, index)
     name = f"cyclesim_loop_{key}"
     spec = importlib.util.spec_from_file_location(name, path)
     mod = importlib.util.module_from_spec(spec)

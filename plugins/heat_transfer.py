@@ -58,6 +58,12 @@ def woschni_coefficient(k, p, w, T, form: str = "original"):
     return k * (p * w) ** 0.8 * T ** WOSCHNI_FORMS[form][2]
 
 
+def hohenberg_kernel(V, p, T, Sp, multiplier):
+    """Hohenberg's coefficient ``130 V^-0.06 p[bar]^0.8 T^-0.4 (Sp + 1.4)^0.8`` [W/(m^2 K)] times
+    ``multiplier``: the kernel of :class:`Hohenberg` (V [m^3], p [Pa], T [K], Sp [m/s])."""
+    return multiplier * 130.0 * V ** -0.06 * (p * 1e-5) ** 0.8 * T ** -0.4 * (Sp + 1.4) ** 0.8
+
+
 _MULTIPLIER = Param(
     "multiplier", "-", 1.0, "factor on the heat-transfer coefficient (calibration)",
     min=0.0, max=10.0,
@@ -212,7 +218,7 @@ class Hohenberg(WallHeatTransfer):
 
     name = "hohenberg"
     summary = "Hohenberg 1979: 130 V^-0.06 p[bar]^0.8 T^-0.4 (Sp+1.4)^0.8"
-    compiled_form = "hohenberg"
+    kernel = hohenberg_kernel
     params = (_MULTIPLIER,)
     references = (
         "Hohenberg G.F. (1979) Advanced approaches for heat transfer calculations. "
@@ -220,14 +226,8 @@ class Hohenberg(WallHeatTransfer):
     )
 
     def pack(self) -> dict:
-        """Parameters of the compiled form ``hohenberg`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        """The kernel's parameter (:func:`hohenberg_kernel`) by name."""
         return {"multiplier": self.p.multiplier}
-
-    def coefficient(self, s: GasState) -> np.ndarray:
-        return (
-            self.p.multiplier * 130.0 * s.V ** -0.06 * (s.p * 1e-5) ** 0.8
-            * s.T ** -0.4 * (s.Sp + 1.4) ** 0.8
-        )
 
 
 def air_viscosity(T):

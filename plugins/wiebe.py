@@ -22,6 +22,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from cyclesim.kernel_ops import where
 from cyclesim.params import Param
 from cyclesim.roles import BurnRate, GasState, SetupContext
 
@@ -109,6 +110,30 @@ def wiebe_rate(theta_deg: Any, theta0: Any, duration: Any, a: Any, m: Any) -> np
     return np.where(on, a * (m + 1.0) / duration * um * np.exp(-a * um * up), 0.0)
 
 
+def wiebe_kernel(theta, theta0, inv_dur, c, a, m):
+    """Single-Wiebe burn rate dx_b/dtheta [1/deg], zero before ``theta0`` and from 360 deg: the
+    kernel of :class:`Wiebe` (arrays on the Python path, floats in the compiled loop).
+
+    Parameters
+    ----------
+    theta : float or ndarray
+        Crank angle [deg].
+    theta0 : ndarray
+        Start of burning [deg].
+    inv_dur : ndarray
+        Reciprocal of the burn duration [1/deg].
+    c : ndarray
+        ``a (m + 1) / duration`` [1/deg].
+    a, m : ndarray
+        Wiebe efficiency and form parameters [-].
+    """
+    u = (theta - theta0) * inv_dur
+    on = (u > 0.0) & (theta < CYCLE_END_DEG)
+    up = where(on, u, 0.0)
+    um = up ** m
+    return where(on, c * um * np.exp(-a * um * up), 0.0)
+
+
 def _grid(theta_deg: Any) -> np.ndarray:
     """A crank grid as (1, n) (from (n,)) or unchanged (B, n)."""
     th = np.asarray(theta_deg, dtype=float)
@@ -185,7 +210,7 @@ class Wiebe(_WiebeLaw):
 
     name = "wiebe"
     summary = "single Wiebe function from spark advance, ignition delay and burn duration"
-    compiled_form = "wiebe"
+    kernel = wiebe_kernel
     spark_param = "spark_advance_deg"
 
     @classmethod
@@ -219,21 +244,12 @@ class Wiebe(_WiebeLaw):
         self._c = self.a * (self.m + 1.0) * self._inv_dur
 
     def pack(self) -> dict:
-        """Parameters of the compiled form ``wiebe`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        """The kernel's parameters as arrays (B,) by name (:func:`wiebe_kernel`)."""
         return {"theta0": self.theta0, "inv_dur": self._inv_dur, "c": self._c, "a": self.a, "m": self.m}
 
     def spark_deg(self) -> np.ndarray:
         """Spark timing as a crank angle [deg] (negative = before TDC) (B,)."""
         return self.spark.copy()
-
-    def rate(self, s: GasState) -> np.ndarray:
-        """Burn rate dx_b/dtheta [1/deg] (B,) at ``s.theta``; zero before start and from 360 deg."""
-        th = s.theta
-        u = (th - self.theta0) * self._inv_dur
-        on = (u > 0.0) & (np.asarray(th) < CYCLE_END_DEG)
-        up = np.where(on, u, 0.0)
-        um = up ** self.m
-        return np.where(on, self._c * um * np.exp(-self.a * um * up), 0.0)
 
     def fraction(self, theta_deg: np.ndarray) -> np.ndarray:
         """Burned fraction x_b [-] on a crank grid [deg], (n,) or (B, n) -> (B, n)."""
