@@ -173,8 +173,21 @@ def param_rows_for(role: str, fn, packed, forms_rows: dict) -> dict[str, int]:
 
 
 def cache_dir() -> Path:
+    """The loop cache: ``CYCLESIM_CACHE_DIR``, else ``~/.cache/cyclesim/loops``; where that cannot
+    be written, a folder in the system's temporary directory."""
     d = os.environ.get(CACHE_ENV, "").strip()
-    return Path(d) if d else Path.home() / ".cache" / "cyclesim" / "loops"
+    try:
+        path = Path(d) if d else Path.home() / ".cache" / "cyclesim" / "loops"
+        path.mkdir(parents=True, exist_ok=True)
+        if os.access(path, os.W_OK):
+            return path
+    except (OSError, RuntimeError):
+        pass
+    import tempfile
+
+    path = Path(tempfile.gettempdir()) / f"cyclesim-loops-{os.getuid() if hasattr(os, 'getuid') else 0}"
+    path.mkdir(parents=True, exist_ok=True)
+    return path
 
 
 def _fingerprint(fn, seen=None) -> tuple:

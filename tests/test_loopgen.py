@@ -164,3 +164,18 @@ def test_a_kernel_that_does_not_compile_runs_on_the_python_path_with_a_notice(
     assert res.error is None and math.isfinite(res.summary["imep_closed_bar"])
     assert res.cycle_loop != "compiled"
     assert notice in capsys.readouterr().err
+
+
+def test_an_unwritable_cache_folder_falls_back_to_the_temporary_directory(tmp_path, monkeypatch):
+    import os
+    import tempfile
+
+    from cyclesim.loopgen import cache_dir
+
+    blocked = tmp_path / "file"
+    blocked.write_text("not a folder")
+    monkeypatch.setenv("CYCLESIM_CACHE_DIR", str(blocked / "loops"))    # cannot be made
+    got = cache_dir()
+    assert got.parent == __import__("pathlib").Path(tempfile.gettempdir()) and os.access(got, os.W_OK)
+    monkeypatch.setenv("CYCLESIM_CACHE_DIR", str(tmp_path / "mine"))
+    assert cache_dir() == tmp_path / "mine"
