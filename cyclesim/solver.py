@@ -445,6 +445,16 @@ class _RHS:
             out[:, ~self.alive] = 0.0
         return out
 
+    def fun(self, theta: float, y: np.ndarray) -> np.ndarray:
+        """dy/dtheta (n_state, B) at crank angle ``theta`` [deg], in the shape of scipy.integrate's
+        ``fun(t, y)``: the geometry at ``theta``, the valve, burn and closed-part masks derived there
+        (the cycle loop precomputes the same at its grid points)."""
+        g = self.b.geometry
+        ones = np.ones(self.B)
+        geo = (g.volume(theta) * ones, g.dV_dtheta(theta) * ones, *(np.asarray(a) * ones for a in g.areas(theta)))
+        with np.errstate(all="ignore"):
+            return self(theta, y, geo)
+
     def kill(self, bad: np.ndarray) -> None:
         """Mark cases (bool mask (B,)) as stopped: their derivatives are zero from now on."""
         self.alive &= ~bad

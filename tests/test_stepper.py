@@ -66,3 +66,26 @@ def test_a_malformed_tableau_is_refused():
     # ... but its nodes are not on the cycle grid's points
     with pytest.raises(ValueError, match="not at 0, 1/2 or 1"):
         heun_third.arrays()
+
+
+def test_the_cylinder_system_with_the_stepper_reproduces_the_closed_cycle(monkeypatch):
+    # the solver's closed cycle (numpy loop) against the cylinder system's fun(theta, y) stepped
+    # by cyclesim.stepper.step on the same grid from the same start: the same equations and
+    # scheme, so the end state agrees to rounding
+    from cyclesim import kernel
+    from cyclesim.api import _registry_for
+    from cyclesim.batch import build_batch
+    from cyclesim.config import load_config
+    from cyclesim.solver import TABLEAU, _initial_state, _RHS, integrate
+
+    monkeypatch.setenv(kernel.ENV, "python")
+    cases = [load_config("demo_closed", [f"burn.spark_advance_deg={a}"]) for a in (15, 30)]
+    batch = build_batch(cases, _registry_for(cases))
+    tr = integrate(batch)
+    rhs = _RHS(batch, "closed")
+    y = _initial_state(batch, rhs, float(tr.theta[0]), "closed")
+    for t0, t1 in zip(tr.theta[:-1], tr.theta[1:]):
+        y, _ = step(rhs.fun, float(t0), y, float(t1 - t0), TABLEAU)
+    end = tr.Y[:, :, -1]
+    assert np.allclose(y, end, rtol=1e-11, atol=1e-14 * np.abs(end).max(axis=1, keepdims=True))
+    assert not np.allclose(end[rhs.names.index("T")], tr.Y[rhs.names.index("T"), :, 0])  # it did burn
