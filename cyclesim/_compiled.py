@@ -34,7 +34,6 @@ FORMS = {
     "burn": {
         "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
         "none": (),
-        "double_wiebe": ("theta0", "d1", "a", "m1", "f1", "start2", "d2", "m2"),
         "wiebe_flame": ("spark", "delay_ref", "dur_ref", "a", "m", "eff", "kd", "sd", "kb", "sb", "visc", "phi",
                         "V_spark", "speed_ratio", "G_ref", "phi_m", "b_m", "b_phi", "dilution", "T0", "atm",
                         "visc_exp", "V_tdc", "G_ref_dur"),
@@ -56,8 +55,7 @@ STATES = (("heat_transfer", "T_mot"), ("knock", "I"))
 """Submodel state components the loop integrates, by (role, name): the motored temperature of
 the Woschni form and the Livengood-Wu integral."""
 
-BURN_NONE, BURN_DOUBLE, BURN_FLAME, BURN_KERNEL = (
-    CODES["burn"][k] for k in ("none", "double_wiebe", "wiebe_flame", "kernel"))
+BURN_NONE, BURN_FLAME, BURN_KERNEL = (CODES["burn"][k] for k in ("none", "wiebe_flame", "kernel"))
 HT_NONE, HT_WOSCHNI, HT_ANNAND, HT_KERNEL = (CODES["heat_transfer"][k] for k in ("none", "woschni", "annand", "kernel"))
 BB_NONE, BB_ORIFICE = (CODES["blowby"][k] for k in ("none", "orifice"))
 KN_NONE, KN_LW = (CODES["knock"][k] for k in ("none", "livengood_wu"))
@@ -73,7 +71,6 @@ ROWS, N_ROWS = block_rows((
 R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC, R_SPARK = ROWS.values()
 PARAM_ROWS = param_rows(FORMS, ("burn", "heat_transfer", "blowby", "knock"))
 """(role, form) -> {parameter name: row offset from R_P}."""
-D_THETA0, D_D1, D_A, D_M1, D_F1, D_START2, D_D2, D_M2 = PARAM_ROWS["burn", "double_wiebe"].values()
 (F_SPARK, F_DELAY, F_DUR, F_A, F_M, F_EFF, F_KD, F_SD, F_KB, F_SB, F_VISC, F_PHI, F_V_SPARK,
  F_SPEED_RATIO, F_G_REF, F_PHI_M, F_B_M, F_B_PHI, F_DILUTION, F_T0, F_ATM, F_VISC_EXP, F_V_TDC,
  F_G_REF_DUR) = PARAM_ROWS["burn", "wiebe_flame"].values()
@@ -182,15 +179,6 @@ def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
     if p1 >= p2:
         return _outflow(cda, p1, T1, R1, g1, p2, dp_lin)
     return -_outflow(cda, p2, T2, R2, g2, p1, dp_lin)
-
-
-@njit(cache=True, inline="always", error_model="numpy")
-def _wiebe_rate(th, theta0, duration, a, m):
-    u = (th - theta0) / duration
-    if u > 0.0:
-        um = u ** m
-        return a * (m + 1.0) / duration * um * math.exp(-a * um * u)
-    return 0.0
 
 
 @njit(cache=True, error_model="numpy")
@@ -302,14 +290,7 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     if burning:
         bc = IC[IC_BURN]
         dxb = 0.0
-        if bc == BURN_DOUBLE:
-            if theta < CYCLE_END_DEG:
-                f1 = CB[R_P + D_F1, b]
-                a_ = CB[R_P + D_A, b]
-                dxb = (f1 * _wiebe_rate(theta, CB[R_P + D_THETA0, b], CB[R_P + D_D1, b], a_, CB[R_P + D_M1, b])
-                       + (1.0 - f1) * _wiebe_rate(theta, CB[R_P + D_START2, b], CB[R_P + D_D2, b], a_,
-                                                  CB[R_P + D_M2, b]))
-        elif bc == BURN_FLAME:
+        if bc == BURN_FLAME:
             if theta < CYCLE_END_DEG and theta >= CB[R_P + F_SPARK, b]:
                 dxb = _flame_rate(theta, b, yb, xb, CB)
         elif bc == BURN_KERNEL:

@@ -103,11 +103,23 @@ def wiebe_rate(theta_deg: Any, theta0: Any, duration: Any, a: Any, m: Any) -> np
     ndarray
         dx_b/dtheta [1/deg], zero before ``theta0``.
     """
-    u = (np.asarray(theta_deg, dtype=float) - theta0) / duration
+    return wiebe_term(np.asarray(theta_deg, dtype=float), theta0, duration, a, m)
+
+
+def wiebe_term(theta, theta0, duration, a, m):
+    """:func:`wiebe_rate` as a kernel helper (floats or arrays, no conversion) [1/deg]."""
+    u = (theta - theta0) / duration
     on = u > 0.0
-    up = np.where(on, u, 0.0)
+    up = where(on, u, 0.0)
     um = up ** m
-    return np.where(on, a * (m + 1.0) / duration * um * np.exp(-a * um * up), 0.0)
+    return where(on, a * (m + 1.0) / duration * um * np.exp(-a * um * up), 0.0)
+
+
+def double_wiebe_kernel(theta, theta0, d1, a, m1, f1, start2, d2, m2):
+    """Two-Wiebe burn rate dx_b/dtheta [1/deg], zero from 360 deg: the kernel of :class:`DoubleWiebe`
+    (``f1`` [-] the first function's share, ``start2`` [deg] the second's start, durations [deg])."""
+    r = f1 * wiebe_term(theta, theta0, d1, a, m1) + (1.0 - f1) * wiebe_term(theta, start2, d2, a, m2)
+    return where(theta < CYCLE_END_DEG, r, 0.0)
 
 
 def wiebe_kernel(theta, theta0, inv_dur, c, a, m):
@@ -337,7 +349,7 @@ class DoubleWiebe(_WiebeLaw):
 
     name = "double_wiebe"
     summary = "two Wiebe functions with a split fraction (main burn plus slow tail)"
-    compiled_form = "double_wiebe"
+    kernel = double_wiebe_kernel
     spark_param = "spark_advance_deg"
 
     @classmethod
@@ -383,22 +395,13 @@ class DoubleWiebe(_WiebeLaw):
         self.m2 = _arr(p.second_m, B)
 
     def pack(self) -> dict:
-        """Parameters of the compiled form ``double_wiebe`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        """The kernel's parameters as arrays (B,) by name (:func:`double_wiebe_kernel`)."""
         return {"theta0": self.theta0, "d1": self.d1, "a": self.a, "m1": self.m1, "f1": self.f1,
                 "start2": self.start2, "d2": self.d2, "m2": self.m2}
 
     def spark_deg(self) -> np.ndarray:
         """Spark timing as a crank angle [deg] (negative = before TDC) (B,)."""
         return self.spark.copy()
-
-    def rate(self, s: GasState) -> np.ndarray:
-        """Burn rate dx_b/dtheta [1/deg] (B,) at ``s.theta``; zero before start and from 360 deg."""
-        th = s.theta
-        if np.all(np.asarray(th) >= CYCLE_END_DEG):
-            return np.zeros(self.B)
-        r = (self.f1 * wiebe_rate(th, self.theta0, self.d1, self.a, self.m1)
-             + (1.0 - self.f1) * wiebe_rate(th, self.start2, self.d2, self.a, self.m2))
-        return np.where(np.asarray(th) < CYCLE_END_DEG, r, 0.0)
 
     def fraction(self, theta_deg: np.ndarray) -> np.ndarray:
         """Burned fraction x_b [-] on a crank grid [deg], (n,) or (B, n) -> (B, n)."""
