@@ -33,6 +33,10 @@ TARGETS = {
     "traces_300_coupled_s": 60.0,
     "import_s": 0.5,
     "cli_run_s": 3.0,
+    # a third-party burn written as a kernel (DEVELOPERS.md) against the built-in wiebe, one point
+    "plugin_kernel_vs_builtin_ratio": 1.5,
+    # step self-check (cyclesim.stepcheck): IMEP change of the demo when the step is halved
+    "step_check_imep_rel": 2e-3,
 }
 
 
@@ -82,6 +86,29 @@ def main(argv=None):
     cyclesim.simulate([base])  # warm caches (gas tables, the compiled loop)
     res["one_point_s"], one = timed(lambda: cyclesim.simulate([base])[0], args.repeat)
     res["one_point_cycles"] = one.summary["cycles_to_converge"]
+
+    # the built-in single Wiebe law as a third-party plug-in's kernel (tests/plugin_sources.py):
+    # it runs in a generated compiled loop (compiled once into the loop cache, then loaded)
+    import tempfile
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
+    from plugin_sources import KERNEL_WIEBE
+
+    from cyclesim.stepcheck import step_check
+
+    with tempfile.TemporaryDirectory() as tmp:
+        (Path(tmp) / "kwiebe_bench.py").write_text(KERNEL_WIEBE)
+        (Path(tmp) / "k.yaml").write_text("extends: demo\nplugins: [kwiebe_bench.py]\n"
+                                          "burn: {model: tests_kernel_wiebe}\n")
+        plug = load_config(str(Path(tmp) / "k.yaml"))
+        first = cyclesim.simulate([plug])[0]
+        res["plugin_kernel_loop"] = first.cycle_loop
+        t_plug, _ = timed(lambda: cyclesim.simulate([plug]), max(5, args.repeat))
+        t_base, _ = timed(lambda: cyclesim.simulate([base]), max(5, args.repeat))
+    res["plugin_kernel_one_point_s"] = t_plug
+    res["plugin_kernel_vs_builtin_ratio"] = t_plug / t_base
+    res["step_check_imep_rel"] = step_check([base])[0]
 
     spark = [load_config("demo", [f"burn.spark_advance_deg={a}"]) for a in range(0, 41)]
     res["spark_sweep_41_s"], _ = timed(lambda: cyclesim.simulate(spark), args.repeat)

@@ -19,40 +19,76 @@ import math
 import numpy as np
 from numba import njit
 
-# model codes (see cyclesim.kernel)
-BURN_NONE, BURN_WIEBE, BURN_DOUBLE, BURN_FLAME = 0, 1, 2, 3
-HT_NONE, HT_WOSCHNI, HT_HOHENBERG, HT_ANNAND = 0, 1, 2, 3
-BB_NONE, BB_ORIFICE = 0, 1
-KN_NONE, KN_LW = 0, 1
+from .layout import CORE_ROWS as _S
+from .layout import block_rows, param_rows
 
 SIGMA_SB = 5.670374419e-8
 
-# rows of the per-case constant array CB (see cyclesim.kernel.Compiled)
-R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC, R_SPARK = \
-    0, 1, 2, 5, 6, 7, 8, 19, 64, 67, 68, 69
-N_P = 45            # submodel parameter rows R_P .. R_P + N_P - 1
+# -- what the loop covers: the compiled forms, by role, and the packed-parameter rows of each --
+# A built-in declares ``compiled_form`` (a name below) and ``pack()``, which returns its parameter
+# arrays by the names listed here; cyclesim.kernel fills the rows from those names.  The row
+# numbers are resolved here once, at import (numba reads them as constants).
+KERNEL_PARAMS = 16
+"""Most packed parameters of a plug-in's kernel (form ``kernel``, see cyclesim.loopgen)."""
+FORMS = {
+    "burn": {
+        "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
+        "none": (),
+        "wiebe_flame": ("spark", "delay_ref", "dur_ref", "a", "m", "eff", "kd", "sd", "kb", "sb", "visc", "phi",
+                        "V_spark", "speed_ratio", "G_ref", "phi_m", "b_m", "b_phi", "dilution", "T0", "atm",
+                        "visc_exp", "V_tdc", "G_ref_dur"),
+    },
+    "heat_transfer": {
+        "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
+        "none": (),
+        "woschni": ("k", "c1_closed", "c1_open", "c2", "Vd", "t_exp"),
+        "annand": ("multiplier", "a", "b", "radiation_factor", "prandtl_number", "bore"),
+    },
+    "blowby": {"none": (), "orifice": ("cda", "p_cc")},
+    "knock": {"none": (), "livengood_wu": ("pre_ms", "act", "x_max", "atm", "p_exp")},
+    "valve_flow": {"none": (), "poppet": ()},
+    "boundary": {"constant": (), "pressure_trace": ()},
+}
+CODES = {role: {name: k for k, name in enumerate(forms)} for role, forms in FORMS.items()}
+"""Integer code of each compiled form within its role (the loop branches on it)."""
+STATES = (("heat_transfer", "T_mot"), ("knock", "I"))
+"""Submodel state components the loop integrates, by (role, name): the motored temperature of
+the Woschni form and the Livengood-Wu integral."""
 
-# The submodel parameter rows, as offsets from R_P (cyclesim.kernel.Compiled fills them from the
-# Python objects; each names the attribute it holds).  One model per role, so roles share no row.
-# burn: wiebe, wiebe_ca50, wiebe_table
-W_THETA0, W_INV_DUR, W_C, W_A, W_M = 0, 1, 2, 3, 4                # theta0, _inv_dur, _c, a, m
-# burn: double_wiebe
-D_THETA0, D_D1, D_A, D_M1, D_F1, D_START2, D_D2, D_M2 = 0, 1, 2, 3, 4, 5, 6, 7
-# burn: wiebe_flame (spark, delay_ref, dur_ref, a, m, eff, kd, sd, kb, sb, visc, phi, V_spark,
-# speed_ratio, G_ref, the fuel's Metghalchi-Keck phi_m, B_m, B_phi, the module constants, V_tdc, G_ref_dur)
+BURN_NONE, BURN_FLAME, BURN_KERNEL = (CODES["burn"][k] for k in ("none", "wiebe_flame", "kernel"))
+HT_NONE, HT_WOSCHNI, HT_ANNAND, HT_KERNEL = (CODES["heat_transfer"][k] for k in ("none", "woschni", "annand", "kernel"))
+BB_NONE, BB_ORIFICE = (CODES["blowby"][k] for k in ("none", "orifice"))
+KN_NONE, KN_LW = (CODES["knock"][k] for k in ("none", "livengood_wu"))
+
+# rows of the per-case constant array CB (see cyclesim.kernel.Compiled): named blocks, in order
+N_P = sum(max(len(v) for v in FORMS[r].values()) for r in ("burn", "heat_transfer", "blowby", "knock"))
+"""Submodel parameter rows: each role's block as long as its longest form (one form per role)."""
+ROWS, N_ROWS = block_rows((
+    ("omega", 1), ("Sp", 1), ("T_wall", 3), ("eta", 1), ("dh298", 1), ("buf_scale", 1), ("plenum", 11),
+    ("params", N_P), ("ivc", 3), ("ivc_deg", 1), ("V_at_ivc", 1),
+    ("spark", 4),        # the flame-speed burn's charge at spark and at TDC (T, p, T, p)
+))
+R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC, R_SPARK = ROWS.values()
+PARAM_ROWS = param_rows(FORMS, ("burn", "heat_transfer", "blowby", "knock"))
+"""(role, form) -> {parameter name: row offset from R_P}."""
 (F_SPARK, F_DELAY, F_DUR, F_A, F_M, F_EFF, F_KD, F_SD, F_KB, F_SB, F_VISC, F_PHI, F_V_SPARK,
  F_SPEED_RATIO, F_G_REF, F_PHI_M, F_B_M, F_B_PHI, F_DILUTION, F_T0, F_ATM, F_VISC_EXP, F_V_TDC,
- F_G_REF_DUR) = range(21, 45)
-# heat transfer: woschni (_k, _c1_closed, _c1_open, c2, _Vd); hohenberg (multiplier);
-# annand (multiplier, a, b, radiation_factor, prandtl_number, _bore)
-H_K, H_C1_CLOSED, H_C1_OPEN, H_C2, H_VD = 8, 9, 10, 11, 12
-H_MULT = 8
-H_ANNAND_A, H_ANNAND_B, H_RAD, H_PRANDTL, H_BORE = 9, 10, 11, 12, 13
-# blowby: orifice (_cda, _p_cc)
-B_CDA, B_P_CC = 14, 15
-# knock: livengood_wu (_pre_ms, act, x_max, and the module's ATM_PA, DE_PRESSURE_EXPONENT)
-K_PRE, K_ACT, K_X_MAX, K_ATM, K_P_EXP = 16, 17, 18, 19, 20
-N_ROWS = 73         # R_SPARK .. R_SPARK + 3: the flame-speed burn's charge at spark and at TDC (T, p, T, p)
+ F_G_REF_DUR) = PARAM_ROWS["burn", "wiebe_flame"].values()
+H_K, H_C1_CLOSED, H_C1_OPEN, H_C2, H_VD, H_T_EXP = PARAM_ROWS["heat_transfer", "woschni"].values()
+H_MULT, H_ANNAND_A, H_ANNAND_B, H_RAD, H_PRANDTL, H_BORE = PARAM_ROWS["heat_transfer", "annand"].values()
+B_CDA, B_P_CC = PARAM_ROWS["blowby", "orifice"].values()
+K_PRE, K_ACT, K_X_MAX, K_ATM, K_P_EXP = PARAM_ROWS["knock", "livengood_wu"].values()
+# the plenum block: intake (p, T, y_b, R, gamma, h), exhaust (p, T, R, gamma, h)
+PL_PI, PL_TI, PL_YI, PL_RI, PL_GI, PL_HI, PL_PE, PL_TE, PL_RE, PL_GE, PL_HE = range(R_PLEN, R_PLEN + 11)
+R_IVC_P, R_IVC_T, R_IVC_V = R_IVC, R_IVC + 1, R_IVC + 2          # the IVC state: p [Pa], T [K], V [m^3]
+R_TW_HEAD, R_TW_PISTON, R_TW_LINER = R_TW, R_TW + 1, R_TW + 2     # wall temperatures [K]
+# the integer array IC: the form code of each role, the submodel state rows (-1: absent), the gas table width
+IC_ROWS, N_IC = block_rows((("burn", 1), ("heat_transfer", 1), ("blowby", 1), ("knock", 1),
+                            ("heat_transfer.T_mot", 1), ("knock.I", 1), ("gas_nRm1", 1)))
+IC_BURN, IC_HT, IC_BB, IC_KN, IC_TMOT, IC_KNOCK, IC_NRM1 = IC_ROWS.values()
+# core state rows by name (cyclesim.layout.CORE)
+(S_M, S_T, S_MB, S_XB, S_W, S_QW, S_MBB, S_HBB, S_MUBB, S_MINT, S_HINT, S_MUINT, S_MEXH, S_HEXH, S_MUEXH,
+ S_QBURN, S_MQ, S_MBQ, S_HQ) = _S.values()
 CYCLE_END_DEG = 360.0
 
 
@@ -145,15 +181,6 @@ def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
     return -_outflow(cda, p2, T2, R2, g2, p1, dp_lin)
 
 
-@njit(cache=True, inline="always", error_model="numpy")
-def _wiebe_rate(th, theta0, duration, a, m):
-    u = (th - theta0) / duration
-    if u > 0.0:
-        um = u ** m
-        return a * (m + 1.0) / duration * um * math.exp(-a * um * u)
-    return 0.0
-
-
 @njit(cache=True, error_model="numpy")
 def _log_mean(T0, T1):
     ln = math.log(T1 / T0)
@@ -165,10 +192,10 @@ def _log_mean(T0, T1):
 @njit(cache=True, error_model="numpy")
 def _spark_state(b, CB, uc4, T_mid):
     """Fresh charge at spark and at TDC, isentropic from the IVC state (flame_burn.WiebeFlame.spark_state)."""
-    T0 = CB[R_IVC + 1, b]
-    p0 = CB[R_IVC, b]
+    T0 = CB[R_IVC_T, b]
+    p0 = CB[R_IVC_P, b]
     for k, row in ((0, F_V_SPARK), (2, F_V_TDC)):
-        lnv = math.log(CB[R_IVC + 2, b] / CB[R_P + row, b])
+        lnv = math.log(CB[R_IVC_V, b] / CB[R_P + row, b])
         T = T0 * math.exp(lnv / 2.5)
         for _ in range(4):
             _, R, cv = _fresh(uc4, b, _log_mean(T0, T), T_mid)
@@ -214,6 +241,19 @@ def _flame_rate(theta, b, yb, xb, CB):
 
 
 @njit(cache=True, error_model="numpy")
+def burn_kernel(theta):
+    """Stand-in for a plug-in's burn kernel: a generated loop (cyclesim.loopgen) calls the
+    plug-in's own function here; in this module the branch is never taken."""
+    return 0.0
+
+
+@njit(cache=True, error_model="numpy")
+def heat_transfer_kernel(T):
+    """Stand-in for a plug-in's heat-transfer kernel (as :func:`burn_kernel`)."""
+    return 0.0
+
+
+@njit(cache=True, error_model="numpy")
 def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, gas_tab,
          gas_off, gc, uc4, mix):
     """Derivatives of case b into out; False where they are not finite.
@@ -221,15 +261,15 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     CB (rows x B) holds the per-case constants (row numbers R_*), IC the model codes and
     state rows."""
     n = yv.shape[0]
-    m = yv[0]
-    T = yv[1]
-    mb = yv[2]
-    xb = yv[3]
+    m = yv[S_M]
+    T = yv[S_T]
+    mb = yv[S_MB]
+    xb = yv[S_XB]
     if not (math.isfinite(m) and math.isfinite(T)):
         return False
     rho = m / V
     yb = min(max(mb / m, 0.0), 1.0)
-    _mixture(gas_tab, gas_off[b], gc, IC[6], uc4, b, T, rho, yb, mix)
+    _mixture(gas_tab, gas_off[b], gc, IC[IC_NRM1], uc4, b, T, rho, yb, mix)
     u = mix[0]
     R = mix[1]
     u_T = mix[2]
@@ -248,48 +288,38 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     # burn
     dm_burn = 0.0
     if burning:
-        bc = IC[0]
+        bc = IC[IC_BURN]
         dxb = 0.0
-        if bc == BURN_WIEBE:
-            if theta < CYCLE_END_DEG:
-                uw = (theta - CB[R_P + W_THETA0, b]) * CB[R_P + W_INV_DUR, b]
-                if uw > 0.0:
-                    um = uw ** CB[R_P + W_M, b]
-                    dxb = CB[R_P + W_C, b] * um * math.exp(-CB[R_P + W_A, b] * um * uw)
-        elif bc == BURN_DOUBLE:
-            if theta < CYCLE_END_DEG:
-                f1 = CB[R_P + D_F1, b]
-                a_ = CB[R_P + D_A, b]
-                dxb = (f1 * _wiebe_rate(theta, CB[R_P + D_THETA0, b], CB[R_P + D_D1, b], a_, CB[R_P + D_M1, b])
-                       + (1.0 - f1) * _wiebe_rate(theta, CB[R_P + D_START2, b], CB[R_P + D_D2, b], a_,
-                                                  CB[R_P + D_M2, b]))
-        elif bc == BURN_FLAME:
+        if bc == BURN_FLAME:
             if theta < CYCLE_END_DEG and theta >= CB[R_P + F_SPARK, b]:
                 dxb = _flame_rate(theta, b, yb, xb, CB)
+        elif bc == BURN_KERNEL:
+            dxb = burn_kernel(theta)  # KERNEL CALL burn
         e_c = CB[R_ETA, b]
         dm_burn = e_c * dxb / max(1.0 - e_c * xb, 1e-3) * max(m - mb, 0.0)
-        out[3] = dxb
-        out[15] = dm_burn * CB[R_DH, b]
+        out[S_XB] = dxb
+        out[S_QBURN] = dm_burn * CB[R_DH, b]
     # wall heat
-    hc = IC[1]
+    hc = IC[IC_HT]
     Qw = 0.0
-    i_tmot = IC[4]
+    i_tmot = IC[IC_TMOT]
     if hc == HT_WOSCHNI:
         w = (CB[R_P + H_C1_CLOSED, b] if closed else CB[R_P + H_C1_OPEN, b]) * sp
         if closed and burning:
             T_mot = yv[i_tmot]
-            pmot = CB[R_IVC, b] * (CB[R_IVC + 2, b] / V) * (T_mot / CB[R_IVC + 1, b])
+            pmot = CB[R_IVC_P, b] * (CB[R_IVC_V, b] / V) * (T_mot / CB[R_IVC_T, b])
             dp = p - pmot
             if dp < 0.0:
                 dp = 0.0
-            comb = CB[R_P + H_C2, b] * CB[R_P + H_VD, b] * CB[R_IVC + 1, b] / (CB[R_IVC, b] * CB[R_IVC + 2, b]) * dp
+            comb = CB[R_P + H_C2, b] * CB[R_P + H_VD, b] * CB[R_IVC_T, b] / (CB[R_IVC_P, b] * CB[R_IVC_V, b]) * dp
             if math.isfinite(comb):     # not yet known in the step that crosses intake closing
                 w = w + comb
-        hcoef = CB[R_P + H_K, b] * (p * w) ** 0.8 * T ** -0.53
-        Qw = hcoef * (Ah * (T - CB[R_TW + 0, b]) + Ap * (T - CB[R_TW + 1, b]) + Al * (T - CB[R_TW + 2, b]))
-    elif hc == HT_HOHENBERG:
-        hcoef = CB[R_P + H_MULT, b] * 130.0 * V ** -0.06 * (p * 1e-5) ** 0.8 * T ** -0.4 * (sp + 1.4) ** 0.8
-        Qw = hcoef * (Ah * (T - CB[R_TW + 0, b]) + Ap * (T - CB[R_TW + 1, b]) + Al * (T - CB[R_TW + 2, b]))
+        # heat_transfer.woschni_coefficient (its form's temperature exponent packed)
+        hcoef = CB[R_P + H_K, b] * (p * w) ** 0.8 * T ** CB[R_P + H_T_EXP, b]
+        Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
+    elif hc == HT_KERNEL:
+        hcoef = heat_transfer_kernel(T)  # KERNEL CALL heat_transfer
+        Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
     elif hc == HT_ANNAND:
         mult = CB[R_P + H_MULT, b]
         bore = CB[R_P + H_BORE, b]
@@ -300,43 +330,43 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
         c = mult * CB[R_P + H_RAD, b] * SIGMA_SB if (closed and burning) else 0.0
         T4 = T ** 4
         Qw = 0.0
-        Qw = Qw + Ah * (hconv * (T - CB[R_TW + 0, b]) + c * (T4 - CB[R_TW + 0, b] ** 4))
-        Qw = Qw + Ap * (hconv * (T - CB[R_TW + 1, b]) + c * (T4 - CB[R_TW + 1, b] ** 4))
-        Qw = Qw + Al * (hconv * (T - CB[R_TW + 2, b]) + c * (T4 - CB[R_TW + 2, b] ** 4))
+        Qw = Qw + Ah * (hconv * (T - CB[R_TW_HEAD, b]) + c * (T4 - CB[R_TW_HEAD, b] ** 4))
+        Qw = Qw + Ap * (hconv * (T - CB[R_TW_PISTON, b]) + c * (T4 - CB[R_TW_PISTON, b] ** 4))
+        Qw = Qw + Al * (hconv * (T - CB[R_TW_LINER, b]) + c * (T4 - CB[R_TW_LINER, b] ** 4))
     # blowby (outflow only)
     mbb = 0.0
-    if IC[2] == BB_ORIFICE:
+    if IC[IC_BB] == BB_ORIFICE:
         mbb = max(_outflow(CB[R_P + B_CDA, b], p, T, R, gamma, min(p, CB[R_P + B_P_CC, b]), gc[8]), 0.0)
     fbb = mbb * dt
-    out[6] = fbb
+    out[S_MBB] = fbb
     if flows:
-        mi = _orifice(Ai, p_i, CB[R_PLEN + 1, b], CB[R_PLEN + 3, b], CB[R_PLEN + 4, b], p, T, R, gamma, gc[8])
-        me = _orifice(Ae, p_e, CB[R_PLEN + 7, b], CB[R_PLEN + 8, b], CB[R_PLEN + 9, b], p, T, R, gamma, gc[8])
+        mi = _orifice(Ai, p_i, CB[PL_TI, b], CB[PL_RI, b], CB[PL_GI, b], p, T, R, gamma, gc[8])
+        me = _orifice(Ae, p_e, CB[PL_TE, b], CB[PL_RE, b], CB[PL_GE, b], p, T, R, gamma, gc[8])
         fi = mi * dt
         fe = me * dt
-        out[9] = fi
-        out[12] = fe
-        mq = max(yv[16], 0.0)
+        out[S_MINT] = fi
+        out[S_MEXH] = fe
+        mq = max(yv[S_MQ], 0.0)
         wq = mq / (mq + CB[R_BUF, b])
         mq_safe = mq if mq > 0 else 1.0
-        yq = min(max(yv[17] / mq_safe, 0.0), 1.0)
-        hq = yv[18] / mq_safe
+        yq = min(max(yv[S_MBQ] / mq_safe, 0.0), 1.0)
+        hq = yv[S_HQ] / mq_safe
         if fi > 0:
-            yin_i = wq * yq + (1.0 - wq) * CB[R_PLEN + 2, b]
-            hin_i = wq * hq + (1.0 - wq) * CB[R_PLEN + 5, b]
+            yin_i = wq * yq + (1.0 - wq) * CB[PL_YI, b]
+            hin_i = wq * hq + (1.0 - wq) * CB[PL_HI, b]
             wfi = wq * fi
-            out[16] = -wfi
-            out[17] = -(wfi * yq)
-            out[18] = -(wfi * hq)
+            out[S_MQ] = -wfi
+            out[S_MBQ] = -(wfi * yq)
+            out[S_HQ] = -(wfi * hq)
         else:
             yin_i = yb
             hin_i = h
-            out[16] = -fi
-            out[17] = -(fi * yb)
-            out[18] = -(fi * h)
+            out[S_MQ] = -fi
+            out[S_MBQ] = -(fi * yb)
+            out[S_HQ] = -(fi * h)
         if fe > 0:
             yin_e = 1.0
-            hin_e = CB[R_PLEN + 10, b]
+            hin_e = CB[PL_HE, b]
         else:
             yin_e = yb
             hin_e = h
@@ -344,39 +374,39 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
         dmb = dm_burn + fi * yin_i + fe * yin_e - fbb * yb
         dHi = fi * hin_i
         dHe = fe * hin_e
-        out[10] = dHi
-        out[13] = dHe
-        out[11] = fi * (1.0 - yin_i)
-        out[14] = fe * (1.0 - yin_e)
+        out[S_HINT] = dHi
+        out[S_HEXH] = dHe
+        out[S_MUINT] = fi * (1.0 - yin_i)
+        out[S_MUEXH] = fe * (1.0 - yin_e)
         dHflow = dHi + dHe
     else:
         dm = -fbb
         dmb = dm_burn - fbb * yb
         dHflow = 0.0
     dHbb = fbb * h
-    out[7] = dHbb
+    out[S_HBB] = dHbb
     dQ = Qw * dt
-    out[5] = dQ
+    out[S_QW] = dQ
     pdV = p * dV
-    out[4] = pdV
+    out[S_W] = pdV
     dU = dHflow - pdV - dQ - dHbb
     dlnrho = dm / m - dV / V
     dy = (dmb - yb * dm) / m
-    out[0] = dm
-    out[1] = ((dU - u * dm) / m - u_lnrho * dlnrho - u_y * dy) / u_T
-    out[2] = dmb
-    out[8] = fbb * (1.0 - yb)
+    out[S_M] = dm
+    out[S_T] = ((dU - u * dm) / m - u_lnrho * dlnrho - u_y * dy) / u_T
+    out[S_MB] = dmb
+    out[S_MUBB] = fbb * (1.0 - yb)
     # submodel states
     if i_tmot >= 0:
         if closed:
             T_mot = yv[i_tmot]
             _, Rm, cvm = _fresh(uc4, b, T_mot, gc[7])
             out[i_tmot] = (-(Rm / cvm) * T_mot * (dV * om) / V) * dt
-    i_kn = IC[5]
-    if i_kn >= 0 and IC[3] == KN_LW:
+    i_kn = IC[IC_KNOCK]
+    if i_kn >= 0 and IC[IC_KN] == KN_LW:
         if closed and xb < CB[R_P + K_X_MAX, b]:
-            T0 = CB[R_IVC + 1, b]
-            lnr = math.log(p / CB[R_IVC, b])
+            T0 = CB[R_IVC_T, b]
+            lnr = math.log(p / CB[R_IVC_P, b])
             Tu = T0 * math.exp(lnr / 3.5)
             for _ in range(4):
                 ln = math.log(Tu / T0)
@@ -397,10 +427,27 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     return True
 
 
+@njit(cache=True, inline="always", error_model="numpy")
+def _weighted(coef, K, s, k):
+    """sum_j coef[j] K[j, k] over the first s stages, in order (as cyclesim.stepper.combine)."""
+    acc = 0.0
+    first = True
+    for q in range(s):
+        c = coef[q]
+        if c == 0.0:
+            continue
+        t = K[q, k] if c == 1.0 else c * K[q, k]
+        acc = t if first else acc + t
+        first = False
+    return acc
+
+
 @njit(cache=True, nogil=True, error_model="numpy")
 def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, open_at, Ai_pts, Ae_pts,
-              y, Y, F, CB, IC, reset, geo_rows, PI, PE, gas_tab, gas_off, gc, uc4, status, b0, b1):
-    """One cycle of cases b0..b1-1: Kutta's third-order scheme on the grid, as the Python loop.
+              y, Y, F, CB, IC, reset, geo_rows, PI, PE, gas_tab, gas_off, gc, uc4, status, tA, ta_den, tb, tb_den,
+              tnode, b0, b1):
+    """One cycle of cases b0..b1-1 by the Runge-Kutta tableau (tA, ta_den, tb, tb_den, tnode:
+    cyclesim.stepper.Tableau.arrays) on the grid, as the Python loop.
 
     Cases touch only their own columns, so two threads may run disjoint ranges of one batch
     (the GIL is released).
@@ -412,29 +459,28 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
     N = steps.shape[0]
     yv = np.empty(n)
     yt = np.empty(n)
-    K = np.empty((3, n))
+    S = tA.shape[0]
+    K = np.empty((S, n))
     mix = np.empty(7)
     for b in range(b0, b1):
         status[b] = 0
         g = geo_rows[b]          # the case's column of the geometry arrays
         for k in range(n):
             yv[k] = y[k, b]
-        if IC[0] == BURN_FLAME:
+        if IC[IC_BURN] == BURN_FLAME:
             _spark_state(b, CB, uc4, gc[7])
         for i in range(N + 1):
             hs = steps[i] if i < N else 0.0
-            # the three stages: the step's start, middle and end (only the start at the last point)
-            for st in range(3 if i < N else 1):
-                j = 2 * i + st
+            # the stages at the grid's points (only the start at the last point)
+            for st in range(S if i < N else 1):
+                j = 2 * i + tnode[st]
                 if st == 0:
                     for k in range(n):
                         yt[k] = yv[k]
-                elif st == 1:
-                    for k in range(n):
-                        yt[k] = yv[k] + 0.5 * hs * K[0, k]
                 else:
+                    f = hs / ta_den[st]
                     for k in range(n):
-                        yt[k] = yv[k] + hs * (2.0 * K[1, k] - K[0, k])
+                        yt[k] = yv[k] + f * _weighted(tA[st], K, st, k)
                 jp = j if vary else 0
                 ok = _rhs(b, th[j], yt, K[st], full and open_at[j], Vp[j, g], dVp[j, g], Ahp[j, g],
                           App[j, g], Alp[j, g], closed_pts[j, b], burning_pts[j, b], Ai_pts[j, b],
@@ -448,11 +494,11 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
                         F[k, b, i] = K[0, k]
             if status[b] != 0 or i == N:
                 break
-            c6 = hs / 6.0
+            fb = hs / tb_den
             for k in range(n):
-                yv[k] = yv[k] + c6 * (K[0, k] + 4.0 * K[1, k] + K[2, k])
-            m_ = yv[0]
-            T_ = yv[1]
+                yv[k] = yv[k] + fb * _weighted(tb, K, S, k)
+            m_ = yv[S_M]
+            T_ = yv[S_T]
             if not (m_ > 0.0 and m_ < math.inf and T_ > 50.0 and T_ < 8000.0):
                 status[b] = 1
                 break
@@ -462,19 +508,19 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
                 if iv > t0 and iv <= th[2 * i + 2]:
                     w = (iv - t0) / hs
                     Vi = CB[R_V_AT_IVC, b]
-                    Ti = (1 - w) * Y[1, b, i] + w * yv[1]
-                    mi_ = (1 - w) * Y[0, b, i] + w * yv[0]
-                    ybi = min(max(((1 - w) * Y[2, b, i] + w * yv[2]) / mi_, 0.0), 1.0)
+                    Ti = (1 - w) * Y[S_T, b, i] + w * yv[S_T]
+                    mi_ = (1 - w) * Y[S_M, b, i] + w * yv[S_M]
+                    ybi = min(max(((1 - w) * Y[S_MB, b, i] + w * yv[S_MB]) / mi_, 0.0), 1.0)
                     rhoi = mi_ / Vi
-                    _mixture(gas_tab, gas_off[b], gc, IC[6], uc4, b, Ti, rhoi, ybi, mix)
-                    CB[R_IVC, b] = rhoi * mix[1] * Ti
-                    CB[R_IVC + 1, b] = Ti
-                    CB[R_IVC + 2, b] = Vi
-                    if IC[0] == BURN_FLAME:
+                    _mixture(gas_tab, gas_off[b], gc, IC[IC_NRM1], uc4, b, Ti, rhoi, ybi, mix)
+                    CB[R_IVC_P, b] = rhoi * mix[1] * Ti
+                    CB[R_IVC_T, b] = Ti
+                    CB[R_IVC_V, b] = Vi
+                    if IC[IC_BURN] == BURN_FLAME:
                         _spark_state(b, CB, uc4, gc[7])
                     for k in range(n):
                         if reset[0, k] == 1.0:
-                            yv[k] = yv[1]
+                            yv[k] = yv[S_T]
                         elif reset[0, k] == 2.0:
                             yv[k] = reset[1, k]
 

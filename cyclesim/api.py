@@ -422,6 +422,10 @@ def simulate(cases, progress: Callable[[int], None] | None = None,
                        f" simulation.step_deg = {cases[i].simulation.step_deg:g}: numerically unreliable at this"
                        f" crank angle resolution; reduce simulation.step_deg")
             r.summary, r.trace = {}, {}
+    from .stepcheck import requested, step_check
+
+    if requested():           # CYCLESIM_STEP_CHECK=1: every case again at half its step
+        step_check(cases, out)
     return out  # type: ignore[return-value]
 
 

@@ -95,6 +95,7 @@ def cmd_run(args) -> int:
 
 
 def cmd_plugins(args) -> int:
+    from .kernel import loop_status
     from .registry import get_registry
     from .roles import ROLES
 
@@ -108,6 +109,7 @@ def cmd_plugins(args) -> int:
         print(f"[{role}]")
         for name, cls in sorted(reg.submodels[role].items()):
             print(f"  {name}: {cls.summary}  ({cls.__module__})")
+            print(f"      runs: {loop_status(cls)}")
             _print_params(cls.params, "      ")
             for ref in cls.references:
                 print(f"      ref: {ref}")

@@ -257,10 +257,10 @@ def cylinder_cases(setup: EngineSetup) -> list[Case]:
                 raise ConfigError("multi_cylinder.spread_trapped_mass needs valve_flow.model: poppet")
             ch["valve_flow.intake_area_factor"] = case.submodels["valve_flow"].params["intake_area_factor"] * f_m[k]
         if d_sp[k] != 0.0 and modes[k] == "fire":
-            if "spark_advance_deg" not in case.submodels["burn"].params:
-                raise ConfigError(f"multi_cylinder.spread_spark_deg needs a burn model with spark_advance_deg"
-                                  f" (burn.model is {case.submodels['burn'].model!r})")
-            ch["burn.spark_advance_deg"] = case.submodels["burn"].params["spark_advance_deg"] + d_sp[k]
+            from .registry import spark_param
+
+            sp = spark_param(case, "multi_cylinder.spread_spark_deg")
+            ch[f"burn.{sp}"] = case.submodels["burn"].params[sp] + d_sp[k]
         if d_cr[k] != 0.0:
             ch["engine.compression_ratio"] = case.engine.compression_ratio + d_cr[k]
         if d_tw[k] != 0.0:

@@ -144,44 +144,103 @@ def _cw(a, dtype=float) -> np.ndarray:
     return np.require(a, dtype=dtype, requirements=["C", "W"])
 
 
+PHYSICS = {
+    "burn": ("rate", "start_deg", "combustion_efficiency", "states", "derivatives"),
+    "heat_transfer": ("coefficient", "heat_flow", "states", "derivatives"),
+    "blowby": ("mass_flow", "states", "derivatives"),
+    "valve_flow": ("mass_flows", "flow_area", "states", "derivatives"),
+    "boundary": ("intake", "exhaust", "states", "derivatives"),
+    "knock": ("states", "derivatives"),
+}
+"""The methods whose arithmetic a compiled form stands for, per role."""
+
+
+KERNEL_METHODS = {"burn": ("rate",), "heat_transfer": ("coefficient", "heat_flow")}
+"""The role methods a kernel stands for (a model that overrides them is not its kernel)."""
+
+
+def compiled_form(model) -> str | None:
+    """The compiled form a submodel declares (``compiled_form``), or None.
+
+    A capability, not a type: a subclass keeps its parent's compiled form unless it overrides one
+    of the role's physics methods (:data:`PHYSICS`), since the form then no longer computes what
+    the class does.  Its parameters reach the loop through its ``pack()``.  A model that gives a
+    ``kernel`` (and leaves the role's methods to it) has the form ``kernel``: a loop generated
+    for it (:mod:`cyclesim.loopgen`).
+    """
+    return form_of_class(type(model))
+
+
+def form_of_class(cls) -> str | None:
+    """:func:`compiled_form` of a submodel class."""
+    from .loopgen import kernel_of
+    from .roles import ROLE_BASES
+
+    role = cls.role
+    if role in KERNEL_METHODS and kernel_of(cls) is not None:
+        base = ROLE_BASES[role]
+        if all(getattr(cls, n) is getattr(base, n) for n in KERNEL_METHODS[role]):
+            return "kernel"
+        return None
+    form = getattr(cls, "compiled_form", None)
+    if form is None or role not in PHYSICS:
+        return None
+    owner = next(c for c in cls.__mro__ if "compiled_form" in vars(c))
+    for name in PHYSICS[role]:
+        if getattr(cls, name, None) is not getattr(owner, name, None):
+            return None
+    return form
+
+
+def loop_status(cls) -> str:
+    """How a submodel class runs, for ``cyclesim plugins``: compiled (and by which form), or on
+    the numpy loop, or outside the cycle loop."""
+    if cls.role not in PHYSICS:
+        return "outside the cycle loop (evaluated once per case after it)"
+    form = form_of_class(cls)
+    if form == "kernel":
+        from .loopgen import kernel_of
+
+        return f"compiled: a loop generated from its kernel {kernel_of(cls).__name__}()"
+    if form is not None:
+        return f"compiled (form {form!r})"
+    return "numpy loop (no compiled form: give a kernel, see DEVELOPERS.md)"
+
+
 def why_not(batch, rhs) -> str | None:
-    """None if the batch's submodels all have a compiled form, else the reason they do not."""
-    from cyclesim_plugins import (boundaries, burn_table, flame_burn, heat_transfer, knock, ring_leakage,
-                                  valve_flow, wiebe)
-
-    from .thermo import GasTables
-
+    """None if the batch's submodels all have a compiled form, else every reason they do not."""
+    mod = _mod or None
+    forms = mod.FORMS if mod is not None else {}
     m = batch.models
-    allowed = {
-        "burn": (wiebe.Wiebe, wiebe.WiebeCA50, burn_table.WiebeTable, wiebe.DoubleWiebe, wiebe.NoBurn,
-                 flame_burn.WiebeFlame),
-        "heat_transfer": (heat_transfer.Woschni, heat_transfer.Hohenberg, heat_transfer.Annand,
-                          heat_transfer.NoHeatTransfer),
-        "blowby": (ring_leakage.Orifice, ring_leakage.NoLeakage),
-        "valve_flow": (valve_flow.PoppetValves, valve_flow.ShutValves),
-        "knock": (knock.LivengoodWu, knock.NoKnock),
-    }
-    if rhs.mode == "full":
-        allowed["boundary"] = (boundaries.ConstantPlenums, boundaries.ManifoldTraces)
-    for role, classes in allowed.items():
-        if type(m[role]) not in classes:
-            return f"{role} model {m[role].name!r} has no compiled form"
-    if type(batch.gas) is not GasTables:
-        return "gas properties are not the built-in tables"
+    reasons = []
+    roles = ["burn", "heat_transfer", "blowby", "knock"] + (["valve_flow", "boundary"] if rhs.mode == "full" else [])
+    for role in roles:
+        form = compiled_form(m[role])
+        if form is None or form not in forms.get(role, {}):
+            reasons.append(f"{role} model {m[role].name!r} has no compiled form")
+    if getattr(batch.gas, "_compiled_consts", None) is None:
+        reasons.append("gas properties are not the built-in tables")
     for role, model, sv in rhs.sub_specs:
-        if (role, sv.name) not in (("heat_transfer", heat_transfer.Woschni.STATE),
-                                   ("knock", knock.LivengoodWu.STATE)):
-            return f"state {role}.{sv.name} has no compiled form"
-    return None
+        if mod is not None and (role, sv.name) not in mod.STATES and not any(role in r for r in reasons):
+            reasons.append(f"state {role}.{sv.name} has no compiled form")
+    return "; ".join(reasons) or None
+
+
+def _packed(model, names: tuple[str, ...], B: int) -> dict[str, np.ndarray]:
+    """A model's ``pack()``, checked against the parameter names its compiled form declares."""
+    got = dict(model.pack()) if names else {}
+    if set(got) != set(names):
+        from .errors import PluginError
+
+        raise PluginError(f"{model.role} model {model.name!r}: pack() gave {sorted(got)}, its compiled form"
+                          f" {compiled_form(model)!r} needs {sorted(names)}")
+    return {k: _b(v, B) for k, v in got.items()}
 
 
 class Compiled:
     """The packed inputs of one batch's compiled cycle (built once per integration)."""
 
     def __init__(self, mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at):
-        from cyclesim_plugins import (boundaries, burn_table, flame_burn, heat_transfer, knock, ring_leakage,
-                                      valve_flow, wiebe)
-
         self.mod = mod
         self.rhs = rhs
         B = batch.B
@@ -196,7 +255,7 @@ class Compiled:
         self.open_at = _cw(open_at, np.bool_)
         # effective valve areas at every point (zero where the valves are shut)
         vf = m["valve_flow"]
-        if self.full and type(vf) is valve_flow.PoppetValves and self.open_at.any():
+        if self.full and compiled_form(vf) == "poppet" and self.open_at.any():
             self.Ai, self.Ae = (_cw(a) for a in vf.areas_at(half))
         else:
             self.Ai = self.Ae = np.zeros((half.size, B))
@@ -209,65 +268,29 @@ class Compiled:
             plen[:] = np.stack([_b(a, B) for a in pl["int"] + pl["exh"][:2] + pl["exh"][3:]])
             self.PI = _cw(plen[0:1])
             self.PE = _cw(plen[6:7])
-            if type(m["boundary"]) is boundaries.ManifoldTraces:
+            if compiled_form(m["boundary"]) == "pressure_trace":
                 self.PI, self.PE = (_cw(a) for a in m["boundary"].pressures_at(half))
         P = np.zeros((mod.N_P, B))
-        codes = np.zeros(4, dtype=np.int64)
-        c = mod
+        IC = np.zeros(mod.N_IC, dtype=np.int64)
+        for role in ("burn", "heat_transfer", "blowby", "knock"):
+            form = compiled_form(m[role])
+            IC[mod.IC_ROWS[role]] = mod.CODES[role][form]
+            if form == "kernel":
+                from .loopgen import kernel_of, param_rows_for
 
-        def put(pairs):
-            """Parameter rows (named offsets of cyclesim._compiled) from per-case values."""
-            for row, v in pairs:
-                P[row] = _b(v, B)
+                rows = param_rows_for(role, kernel_of(type(m[role])), tuple(m[role].pack()), mod.PARAM_ROWS)
+            else:
+                rows = mod.PARAM_ROWS[role, form]
+            for name, v in _packed(m[role], tuple(rows), B).items():
+                P[rows[name]] = v
+        from .layout import CORE
 
-        bm = m["burn"]
-        if type(bm) in (wiebe.Wiebe, wiebe.WiebeCA50, burn_table.WiebeTable):     # one rate law
-            codes[0] = c.BURN_WIEBE
-            put(((c.W_THETA0, bm.theta0), (c.W_INV_DUR, bm._inv_dur), (c.W_C, bm._c), (c.W_A, bm.a),
-                 (c.W_M, bm.m)))
-        elif type(bm) is wiebe.DoubleWiebe:
-            codes[0] = c.BURN_DOUBLE
-            put(((c.D_THETA0, bm.theta0), (c.D_D1, bm.d1), (c.D_A, bm.a), (c.D_M1, bm.m1), (c.D_F1, bm.f1),
-                 (c.D_START2, bm.start2), (c.D_D2, bm.d2), (c.D_M2, bm.m2)))
-        elif type(bm) is flame_burn.WiebeFlame:
-            codes[0] = c.BURN_FLAME
-            phi_m, b_m, b_phi = flame_burn.MK_FUELS[bm.fuel]
-            put(((c.F_SPARK, bm.spark), (c.F_DELAY, bm.delay_ref), (c.F_DUR, bm.dur_ref), (c.F_A, bm.a),
-                 (c.F_M, bm.m), (c.F_EFF, bm.eff), (c.F_KD, bm.kd), (c.F_SD, bm.sd), (c.F_KB, bm.kb),
-                 (c.F_SB, bm.sb), (c.F_VISC, 1.0 if bm.visc else 0.0), (c.F_PHI, bm.phi),
-                 (c.F_V_SPARK, bm.V_spark), (c.F_SPEED_RATIO, bm.speed_ratio), (c.F_G_REF, bm.G_ref),
-                 (c.F_PHI_M, phi_m), (c.F_B_M, b_m), (c.F_B_PHI, b_phi),
-                 (c.F_DILUTION, flame_burn.MK_DILUTION), (c.F_T0, flame_burn.T0_K),
-                 (c.F_ATM, flame_burn.ATM_PA), (c.F_VISC_EXP, 1.0 + flame_burn.VISCOSITY_T_EXPONENT),
-                 (c.F_V_TDC, bm.V_tdc), (c.F_G_REF_DUR, bm.G_ref_dur)))
-        ht = m["heat_transfer"]
-        if type(ht) is heat_transfer.Woschni:
-            codes[1] = c.HT_WOSCHNI
-            put(((c.H_K, ht._k), (c.H_C1_CLOSED, ht._c1_closed), (c.H_C1_OPEN, ht._c1_open),
-                 (c.H_C2, ht.p.c2_m_per_sK), (c.H_VD, ht._Vd)))
-        elif type(ht) is heat_transfer.Hohenberg:
-            codes[1] = c.HT_HOHENBERG
-            put(((c.H_MULT, ht.p.multiplier),))
-        elif type(ht) is heat_transfer.Annand:
-            codes[1] = c.HT_ANNAND
-            put(((c.H_MULT, ht.p.multiplier), (c.H_ANNAND_A, ht.p.a), (c.H_ANNAND_B, ht.p.b),
-                 (c.H_RAD, ht.p.radiation_factor), (c.H_PRANDTL, ht.p.prandtl_number), (c.H_BORE, ht._bore)))
-        bb = m["blowby"]
-        if type(bb) is ring_leakage.Orifice:
-            codes[2] = c.BB_ORIFICE
-            put(((c.B_CDA, bb._cda), (c.B_P_CC, bb._p_cc)))
-        kn = m["knock"]
-        if type(kn) is knock.LivengoodWu:
-            codes[3] = c.KN_LW
-            put(((c.K_PRE, kn._pre_ms), (c.K_ACT, kn.act), (c.K_X_MAX, kn.x_max), (c.K_ATM, knock.ATM_PA),
-                 (c.K_P_EXP, knock.DE_PRESSURE_EXPONENT)))
-        from .solver import CORE
-
-        isub = np.full(2, -1, dtype=np.int64)
         self.reset = np.zeros((2, rhs.n))
+        for state in mod.STATES:
+            IC[mod.IC_ROWS[".".join(state)]] = -1
         for k, (role, model, sv) in enumerate(rhs.sub_specs):
             row = len(CORE) + k
-            isub[0 if role == "heat_transfer" else 1] = row
+            IC[mod.IC_ROWS[f"{role}.{sv.name}"]] = row
             if sv.reset_at_ivc:
                 if isinstance(sv.initial, str):
                     self.reset[0, row] = 1.0          # the cylinder temperature ("T_ivc")
@@ -275,6 +298,7 @@ class Compiled:
                     self.reset[0, row] = 2.0
                     self.reset[1, row] = float(sv.initial)
         self.gas_tab, self.gas_off, self.gc, nRm1, self.uc4 = batch.gas._compiled_consts()
+        IC[mod.IC_NRM1] = nRm1
         ivc = _b(batch.valves.ivc_deg, B)
         self.steps = _cw(np.diff(half[::2]))
         self.status = np.zeros(B, dtype=np.int64)
@@ -290,21 +314,42 @@ class Compiled:
         CB[mod.R_IVC_DEG] = ivc
         CB[mod.R_V_AT_IVC] = _b(batch.geometry.volume_at(ivc), B) if self.full else 0.0
         self.CB = CB
-        self.IC = np.array([codes[0], codes[1], codes[2], codes[3], isub[0], isub[1], nRm1], dtype=np.int64)
+        self.IC = IC
+        self.broken = False
+        self.ready = False
+        from .solver import TABLEAU
+
+        A, a_den, b, b_den, node = TABLEAU.arrays()
+        self.tableau = (_cw(A), _cw(a_den), _cw(b), b_den, _cw(node, np.int64))
 
     def cycle(self, y: np.ndarray, Y: np.ndarray, F: np.ndarray) -> bool:
         """One cycle from ``y`` into ``Y``, ``F``; False (nothing kept) if any case needs the Python path."""
         rhs = self.rhs
         mod = self.mod
         CB = self.CB
-        r = mod.R_IVC
-        CB[r], CB[r + 1], CB[r + 2] = rhs.p_ivc, rhs.T_ivc, rhs.V_ivc
+        CB[mod.R_IVC_P], CB[mod.R_IVC_T], CB[mod.R_IVC_V] = rhs.p_ivc, rhs.T_ivc, rhs.V_ivc
         G = self.Gc
         args = (self.full, self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.closed, self.burning,
                 self.open_at, self.Ai, self.Ae, _cw(y), Y, F, CB, self.IC, self.reset, self.geo_rows,
-                self.PI, self.PE, self.gas_tab, self.gas_off, self.gc, self.uc4, self.status)
+                self.PI, self.PE, self.gas_tab, self.gas_off, self.gc, self.uc4, self.status) + self.tableau
         B = self.status.size
         n_thr = min(threads(), B // MIN_CASES_PER_THREAD)
+        if self.broken:
+            return False
+        if mod is not _mod and not self.ready:
+            # a generated loop compiles on its first call: on one range, so that a kernel numba
+            # cannot compile sends the batch to the Python path instead of failing it
+            try:
+                mod.run_cycle(*args, 0, 0)
+            except Exception as exc:  # noqa: BLE001 - numba's typing and lowering errors
+                if type(exc).__module__.split(".")[0] != "numba":
+                    raise
+                self.broken = True
+                first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+                _notice(f"kernel:{mod.__name__}", f"a plug-in's kernel does not compile ({first}); this batch"
+                                                 f" runs on the numpy loop ({FALLBACK_SLOWDOWN})")
+                return False
+            self.ready = True
         if n_thr <= 1:
             mod.run_cycle(*args, 0, B)
         else:
@@ -329,7 +374,7 @@ class Compiled:
                 raise errors[0]
         if self.status.any():
             return False
-        rhs.p_ivc, rhs.T_ivc, rhs.V_ivc = CB[r].copy(), CB[r + 1].copy(), CB[r + 2].copy()
+        rhs.p_ivc, rhs.T_ivc, rhs.V_ivc = CB[mod.R_IVC_P].copy(), CB[mod.R_IVC_T].copy(), CB[mod.R_IVC_V].copy()
         _used["compiled"] += 1
         return True
 
@@ -346,16 +391,50 @@ def loop_for(batch, rhs) -> tuple[object, str]:
         why = f"{ENV}=python" if choice() == "python" else "numba not installed: pip install -e \".[fast]\""
         return None, f"numpy ({why})"
     reason = why_not(batch, rhs)
+    generated = False
+    if reason is None:
+        mod, reason = _generated(batch, mod)
+        generated = reason is not None
     if reason is not None:
         if choice() == "compiled":
             raise ConfigError(f"{ENV}=compiled: {reason}")
-        if any(type(m).__module__.split(".")[0] != "cyclesim_plugins" for m in batch.models.values()):
+        if generated or any(type(m).__module__.split(".")[0] != "cyclesim_plugins" for m in batch.models.values()):
             # a plug-in of the user's: worth a word (a study's own built-in variants are not)
             _notice(reason, f"{reason}: this batch runs on the numpy loop ({FALLBACK_SLOWDOWN} than the"
                             " compiled loop of the built-in submodels)")
         return None, f"numpy ({reason})"
-    _compile_notice(mod)
+    if mod is _mod:
+        _compile_notice(mod)
     return mod, "compiled"
+
+
+def _generated(batch, mod):
+    """The loop module for the batch: the built-in one, or one generated for its kernels
+    (:mod:`cyclesim.loopgen`); and the reason where a kernel cannot go into one."""
+    from .loopgen import LoopGenError, kernel_of, module_for
+
+    kernels = {role: (kernel_of(type(model)), tuple(model.pack())) for role, model in batch.models.items()
+               if compiled_form(model) == "kernel"}
+    if not kernels:
+        return mod, None
+    try:
+        gen, fresh = module_for(kernels)
+    except LoopGenError as exc:
+        return None, f"{exc}"
+    import numba
+
+    if (fresh or not _cached(gen)) and not numba.config.DISABLE_JIT:
+        names = ", ".join(f"{r} model {batch.models[r].name!r}" for r in kernels)
+        _notice(f"compiling:{gen.__name__}", f"compiling the cycle loop for {names} (once per combination of"
+                                            " models and kernel source; about 10-30 s)")
+    return gen, None
+
+
+def _cached(mod) -> bool:
+    try:
+        return bool(mod.run_cycle._cache._cache_file._load_index())
+    except Exception:  # noqa: BLE001 - numba internals: treat as not cached
+        return False
 
 
 def prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at) -> tuple[Compiled | None, str]:

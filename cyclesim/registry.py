@@ -207,6 +207,20 @@ class Registry:
         return table[name]
 
 
+def spark_param(case, what: str) -> str:
+    """The parameter that sets the spark timing of ``case``'s burn model (its role contract,
+    ``BurnRate.spark_param``) [deg before firing TDC]; a ConfigError naming ``what`` where the
+    model declares none."""
+    from .errors import ConfigError
+
+    ch = case.submodels["burn"]
+    name = get_registry(tuple(case.plugins)).submodel_class("burn", ch.model).spark_param
+    if not name:
+        raise ConfigError(f"{what}: burn.model = {ch.model!r} is not timed by a spark parameter"
+                          " (its spark_param is not set)")
+    return name
+
+
 @functools.lru_cache(maxsize=8)
 def get_registry(extra_modules: tuple[str, ...] = ()) -> Registry:
     """The registry for the installed plug-ins plus ``extra_modules`` (cached)."""

@@ -157,6 +157,19 @@ class ParamValues(SimpleNamespace):
         raise AttributeError(f"{self._owner} has no parameter {name!r}; declared: {declared}")
 
 
+def _kernel_call(model, s: GasState):
+    """A model's kernel on the Python path (arrays (B,)), its parameters from ``pack()`` (once)."""
+    from .loopgen import call_on, kernel_of
+
+    fn = kernel_of(type(model))
+    if fn is None:
+        raise NotImplementedError(f"{model.role} model {model.name!r} defines neither the method nor a kernel")
+    packed = model.__dict__.get("_packed_kernel")
+    if packed is None:
+        packed = model.__dict__["_packed_kernel"] = dict(model.pack())
+    return call_on(fn, s, packed)
+
+
 class Submodel:
     """Base of every submodel.  Subclass one of the role classes below.
 
@@ -174,6 +187,18 @@ class Submodel:
         The solver steps ``CLOSED_STEP_FACTOR`` times further while every valve is shut;
         a model whose derivatives jump there (an integral that stops at a threshold)
         caps that multiple, since the jump costs accuracy in proportion to the step.
+    compiled_form : str or None
+        The compiled loop's form of this model's physics (a name in
+        ``cyclesim._compiled.FORMS[role]``), with :meth:`pack` giving its parameters; None
+        (the default) runs the batch on the Python path.  A subclass keeps its parent's form
+        unless it overrides one of the role's physics methods (``cyclesim.kernel.PHYSICS``).
+
+    Step-control contract
+    ---------------------
+    :meth:`shortest_feature_deg_for` gives, per case and at set-up, the shortest crank-angle
+    feature of the model's output [deg] (a burn's duration, say); the solver keeps at least
+    ``cyclesim.solver.MIN_FEATURE_STEPS`` steps across it.  It is read from the case's
+    parameters, never from a parameter's name.
     """
 
     role: ClassVar[str] = ""
@@ -190,6 +215,20 @@ class Submodel:
         """Cap of the closed-part step multiple for one case's parameters (default
         :attr:`closed_step_limit`); ``step_deg`` is the case's gas-exchange step [deg]."""
         return cls.closed_step_limit
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params: Mapping[str, Any]) -> float | None:
+        """Shortest crank-angle feature [deg] of this model's output for one case's parameters,
+        which the step must resolve; None: nothing the step needs to resolve (the default for
+        every role but the burn, see :meth:`BurnRate.shortest_feature_deg_for`)."""
+        return None
+
+    compiled_form: ClassVar[str | None] = None
+    """Name of the compiled loop's form of this model (None: the Python path)."""
+
+    def pack(self) -> Mapping[str, Any]:
+        """Parameters of :attr:`compiled_form` by name, numbers or arrays (B,) [SI units]."""
+        return {}
 
     required_methods: ClassVar[tuple[tuple[str, ...], ...]] = ()
     """Methods a subclass must define: in each tuple at least one (checked at registration)."""
@@ -223,10 +262,27 @@ class Submodel:
 
 
 class BurnRate(Submodel):
-    """Rate of burning of the charge (mass fraction burned per crank degree)."""
+    """Rate of burning of the charge (mass fraction burned per crank degree).
+
+    Spark contract: :meth:`spark_deg` gives the spark timing per case; :attr:`spark_param`
+    names the parameter that sets it (crank degrees before firing TDC, positive = advance),
+    which the spark study, the knock limit, the maps and the engine's spark spread vary.
+    """
 
     role = "burn"
-    required_methods = (("start_deg",), ("rate",))
+    required_methods = (("start_deg",), ("rate", "kernel"))
+    spark_param: ClassVar[str | None] = None
+    """The parameter that sets the spark timing [deg before firing TDC, positive = advance];
+    None for a law not timed by a spark (the spark studies then refuse it with a clear error)."""
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params: Mapping[str, Any]) -> float | None:
+        """Shortest burn feature [deg] for one case's parameters (e.g. the burn duration).
+
+        The default, 0, means "not known before the run": the closed part of the cycle keeps
+        the fine step, so an undeclared short burn loses no accuracy (at some cost in time).
+        """
+        return 0.0
 
     def start_deg(self) -> np.ndarray:
         """Start of combustion [deg] per case (spark plus ignition delay)."""
@@ -240,9 +296,18 @@ class BurnRate(Submodel):
         """Fraction of the charge's fuel energy that is released (B,) [-]."""
         return np.ones(self.B)
 
+    kernel: ClassVar[Any] = None
+    """The burn rate as a plain function (one source for both loops), or None.
+
+    Its arguments are named: a GasState field (``theta``, ``p``, ``T``, ``x_b``, ... see
+    ``cyclesim.loopgen.STATE_ARGS``) or a parameter that :meth:`pack` gives by that name.  It
+    returns dx_b/dtheta [1/deg]; it is called with arrays (B,) on the Python path and with
+    floats in the compiled loop, so per-case choices go through ``cyclesim.kernel_ops.where``.
+    A model with a kernel need not define :meth:`rate`."""
+
     def rate(self, s: GasState) -> np.ndarray:
-        """dx_b/dtheta [1/deg] of the burn progress, zero before the start."""
-        raise NotImplementedError
+        """dx_b/dtheta [1/deg] of the burn progress, zero before the start (default: the kernel)."""
+        return _kernel_call(self, s)
 
     def fraction(self, theta_deg: np.ndarray) -> np.ndarray | None:
         """Closed-form burn progress x_b on a crank grid (B, n), if the law has one."""
@@ -253,11 +318,15 @@ class WallHeatTransfer(Submodel):
     """Convective (and optionally radiative) heat transfer from gas to walls."""
 
     role = "heat_transfer"
-    required_methods = (("coefficient", "heat_flow"),)
+    required_methods = (("coefficient", "heat_flow", "kernel"),)
+
+    kernel: ClassVar[Any] = None
+    """The heat-transfer coefficient [W/(m^2 K)] as a plain function of named arguments (as
+    :attr:`BurnRate.kernel`), or None; a model with a kernel need not define :meth:`coefficient`."""
 
     def coefficient(self, s: GasState) -> np.ndarray:
-        """Heat-transfer coefficient [W/(m^2 K)] (B,)."""
-        raise NotImplementedError
+        """Heat-transfer coefficient [W/(m^2 K)] (B,) (default: the kernel)."""
+        return _kernel_call(self, s)
 
     def heat_flow(self, s: GasState) -> np.ndarray:
         """Heat flow from gas to walls [W] (B,), positive = gas loses heat."""

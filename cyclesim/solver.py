@@ -56,13 +56,14 @@ from typing import Any
 import numpy as np
 
 from .errors import CyclesimError, PluginError, SolverError
+from .layout import CORE  # the state's names, declared once  # noqa: F401
+from .layout import CORE_ROWS as IDX  # noqa: F401
+from .layout import TOTALS as _TOTALS  # running totals, reset at the start of a cycle
 from .roles import GasState
+from .stepper import KUTTA3, combine
 
-CORE = ("m", "T", "m_b", "x_b", "W", "Q_w", "m_bb", "H_bb", "mu_bb",
-        "m_int", "H_int", "mu_int", "m_exh", "H_exh", "mu_exh", "Q_burn",
-        "m_ibuf", "mb_ibuf", "H_ibuf")
-IDX = {n: i for i, n in enumerate(CORE)}
-_TOTALS = slice(4, 16)  # running totals, reset at the start of a cycle
+TABLEAU = KUTTA3
+"""The cycle loops' Runge-Kutta scheme (:mod:`cyclesim.stepper`)."""
 
 
 @dataclass
@@ -444,6 +445,16 @@ class _RHS:
             out[:, ~self.alive] = 0.0
         return out
 
+    def fun(self, theta: float, y: np.ndarray) -> np.ndarray:
+        """dy/dtheta (n_state, B) at crank angle ``theta`` [deg], in the shape of scipy.integrate's
+        ``fun(t, y)``: the geometry at ``theta``, the valve, burn and closed-part masks derived there
+        (the cycle loop precomputes the same at its grid points)."""
+        g = self.b.geometry
+        ones = np.ones(self.B)
+        geo = (g.volume(theta) * ones, g.dV_dtheta(theta) * ones, *(np.asarray(a) * ones for a in g.areas(theta)))
+        with np.errstate(all="ignore"):
+            return self(theta, y, geo)
+
     def kill(self, bad: np.ndarray) -> None:
         """Mark cases (bool mask (B,)) as stopped: their derivatives are zero from now on."""
         self.alive &= ~bad
@@ -514,11 +525,17 @@ degrees) against a tenfold finer step.  The coarse steps lie on the fine lattice
 ``step_deg`` refines every part of the cycle alike."""
 
 
+MIN_FEATURE_STEPS = 16
+"""Fewest steps across a model's shortest feature (``shortest_feature_deg_for``): the longer
+closed-part step is taken only as far as this allows."""
+
+
 def closed_step_factor(case, classes: dict) -> int:
     """Multiple of the step used where all valves are shut, for one case.
 
     :data:`CLOSED_STEP_FACTOR`, capped by every chosen submodel's
-    ``closed_step_limit_for(params, step)``; ``classes`` maps role -> submodel class.
+    ``closed_step_limit_for(params, step)`` and so that :data:`MIN_FEATURE_STEPS` steps span
+    its ``shortest_feature_deg_for(params)``; ``classes`` maps role -> submodel class.
     Depends only on the case's own settings (cases share a batch only if it is equal).
     """
     from .config import effective_step_deg
@@ -526,9 +543,13 @@ def closed_step_factor(case, classes: dict) -> int:
     step = effective_step_deg(case.simulation, float(case.operating.speed_rpm))
     k = CLOSED_STEP_FACTOR
     for role, cls in classes.items():
-        lim = cls.closed_step_limit_for(case.submodels[role].params, step)
+        params = case.submodels[role].params
+        lim = cls.closed_step_limit_for(params, step)
         if lim is not None:
             k = max(1, min(k, int(lim)))
+        feature = cls.shortest_feature_deg_for(params)
+        if feature is not None:
+            k = max(1, min(k, int(float(feature) / (MIN_FEATURE_STEPS * step))))
     return k
 
 
@@ -701,26 +722,27 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     else:
         open_at = [False] * (2 * N + 1)
 
+    tab = TABLEAU
+    nodes = [int(v) for v in tab.arrays()[4]]
+
     def _python_cycle(y):
         """One cycle on the Python path from ``y``, into Y and F; returns the end state."""
         geo_pts = point_geometry()
         with np.errstate(all="ignore"):
             for i in range(N):
                 th = th_pts[2 * i]
-                tm = th_pts[2 * i + 1]
-                h = float(steps[i])
-                hh = 0.5 * h
-                gm = geo_pts[2 * i + 1]
-                om = open_at[2 * i + 1]
-                k1 = rhs(th, y, geo_pts[2 * i], open_at[2 * i])
-                Y[:, :, i] = y
-                F[:, :, i] = k1
-                # Kutta's third-order method (Butcher 2008, sec. 23, the classical three-stage
-                # scheme): stages at the step's start, middle and end, like the grid's points
-                k2 = rhs(tm, y + hh * k1, gm, om)
                 tn = th_pts[2 * i + 2]
-                k3 = rhs(tn, y + h * (2.0 * k2 - k1), geo_pts[2 * i + 2], open_at[2 * i + 2])
-                y = y + (h / 6.0) * (k1 + 4.0 * k2 + k3)
+                h = float(steps[i])
+                # the scheme is data (cyclesim.stepper.TABLEAU): stages at the grid's points
+                ks: list = []
+                for st in range(tab.stages):
+                    j = 2 * i + nodes[st]
+                    ys = y if st == 0 else combine(y, h, tab.a[st], tab.a_den[st], ks)
+                    ks.append(rhs(th_pts[j], ys, geo_pts[j], open_at[j]))
+                    if st == 0:
+                        Y[:, :, i] = y
+                        F[:, :, i] = ks[0]
+                y = combine(y, h, tab.b, tab.b_den, ks)
                 y0, y1 = y[0], y[1]
                 ok = (y0 > 0.0) & (y0 < math.inf) & (y1 > 50.0) & (y1 < 8000.0)  # NaN fails all
                 if not ok.all():

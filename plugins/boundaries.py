@@ -58,6 +58,7 @@ class ConstantPlenums(Boundary):
     params = ()
     references = ("common practice: plenums large enough that their state does not change within a cycle",)
     constant = True  # the solver may evaluate the plenum gas properties once
+    compiled_form = "constant"
 
     def __init__(self, values: Mapping[str, Any], ctx: SetupContext) -> None:
         super().__init__(values, ctx)
@@ -112,6 +113,7 @@ class ManifoldTraces(ConstantPlenums):
     references = ("common practice: filling-and-emptying manifolds seen by each cylinder as a pressure trace",)
     constant = False
     fixed_gas = True  # only the pressures change
+    compiled_form = "pressure_trace"       # the loop reads pressures_at() on its grid
 
     def __init__(self, values: Mapping[str, Any], ctx: SetupContext) -> None:
         super().__init__(values, ctx)

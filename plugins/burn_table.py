@@ -84,9 +84,9 @@ class WiebeTable(Wiebe):
     """
 
     @classmethod
-    def closed_step_limit_for(cls, params, step_deg):
-        """The table's durations are not known before set-up: keep the fine step."""
-        return 1
+    def shortest_feature_deg_for(cls, params):
+        """The table's durations are not known before set-up: 0 keeps the fine step."""
+        return 0.0
 
     name = "wiebe_table"
     summary = "Wiebe function with parameters interpolated in speed and intake pressure from a burn table"

@@ -211,14 +211,13 @@ class WiebeFlame(BurnRate):
     """
 
     @classmethod
-    def closed_step_limit_for(cls, params, step_deg):
-        """A short burn keeps the fine step; the duration may shrink to half its reference."""
-        from .wiebe import burn_step_limit
-
-        ref = params.get("ref_duration_deg")
-        return burn_step_limit({"d": 0.5 * float(ref)} if ref is not None else {}, step_deg, ("d",))
+    def shortest_feature_deg_for(cls, params):
+        """Half the reference duration [deg]: the scaled duration may shrink that far."""
+        return 0.5 * float(params["ref_duration_deg"])
 
     name = "wiebe_flame"
+    compiled_form = "wiebe_flame"
+    spark_param = "spark_advance_deg"
     summary = ("Wiebe burn with development angle and duration scaled by the Metghalchi-Keck"
                " flame speed at spark and the mean piston speed")
     params = (
@@ -355,6 +354,16 @@ class WiebeFlame(BurnRate):
     def spark_deg(self) -> np.ndarray:
         """Spark timing as a crank angle [deg] (negative = before TDC) (B,)."""
         return self.spark.copy()
+
+    def pack(self) -> dict:
+        """Parameters of the compiled form ``wiebe_flame`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        phi_m, b_m, b_phi = MK_FUELS[self.fuel]
+        return {"spark": self.spark, "delay_ref": self.delay_ref, "dur_ref": self.dur_ref, "a": self.a,
+                "m": self.m, "eff": self.eff, "kd": self.kd, "sd": self.sd, "kb": self.kb, "sb": self.sb,
+                "visc": 1.0 if self.visc else 0.0, "phi": self.phi, "V_spark": self.V_spark,
+                "speed_ratio": self.speed_ratio, "G_ref": self.G_ref, "phi_m": phi_m, "b_m": b_m,
+                "b_phi": b_phi, "dilution": MK_DILUTION, "T0": T0_K, "atm": ATM_PA,
+                "visc_exp": 1.0 + VISCOSITY_T_EXPONENT, "V_tdc": self.V_tdc, "G_ref_dur": self.G_ref_dur}
 
     def combustion_efficiency(self) -> np.ndarray:
         """Fraction of the charge's fuel energy that is released (B,) [-]."""

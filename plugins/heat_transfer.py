@@ -15,6 +15,55 @@ from cyclesim.roles import GasState, WallHeatTransfer
 SIGMA_SB = 5.670374419e-8
 """Stefan-Boltzmann constant [W/(m^2 K^4)] (CODATA 2018, exact in SI 2019)."""
 
+WOSCHNI_FORMS = {
+    "original": (129.8, 1e-5, -0.53),    # Woschni 1967 (SAE 670931): p in bar
+    "heywood": (3.26, 1e-3, -0.55),      # Heywood 1988, eq. 12.19: p in kPa
+}
+"""Published forms of Woschni's coefficient: (constant, bar or kPa per Pa, temperature exponent)
+of ``h = C B^-0.2 p^0.8 T^e w^0.8`` [W/(m^2 K)] with B [m], T [K], w [m/s]."""
+
+
+def woschni_prefactor(bore_m, multiplier=1.0, form: str = "original"):
+    """The factor ``multiplier C B^-0.2 (p unit / Pa)^0.8`` of Woschni's coefficient [SI].
+
+    Parameters
+    ----------
+    bore_m : float or ndarray
+        Bore [m].
+    multiplier : float or ndarray
+        Calibration factor [-].
+    form : str
+        ``original`` or ``heywood`` (:data:`WOSCHNI_FORMS`).
+    """
+    c, unit, _ = WOSCHNI_FORMS[form]
+    return multiplier * (c * bore_m ** -0.2) * unit ** 0.8
+
+
+def woschni_coefficient(k, p, w, T, form: str = "original"):
+    """Woschni's coefficient ``k (p w)^0.8 T^e`` [W/(m^2 K)], the one implementation.
+
+    Parameters
+    ----------
+    k : float or ndarray
+        :func:`woschni_prefactor` [SI].
+    p : float or ndarray
+        Gas pressure [Pa].
+    w : float or ndarray
+        Characteristic gas velocity [m/s].
+    T : float or ndarray
+        Gas temperature [K].
+    form : str
+        ``original`` (T^-0.53) or ``heywood`` (T^-0.55).
+    """
+    return k * (p * w) ** 0.8 * T ** WOSCHNI_FORMS[form][2]
+
+
+def hohenberg_kernel(V, p, T, Sp, multiplier):
+    """Hohenberg's coefficient ``130 V^-0.06 p[bar]^0.8 T^-0.4 (Sp + 1.4)^0.8`` [W/(m^2 K)] times
+    ``multiplier``: the kernel of :class:`Hohenberg` (V [m^3], p [Pa], T [K], Sp [m/s])."""
+    return multiplier * 130.0 * V ** -0.06 * (p * 1e-5) ** 0.8 * T ** -0.4 * (Sp + 1.4) ** 0.8
+
+
 _MULTIPLIER = Param(
     "multiplier", "-", 1.0, "factor on the heat-transfer coefficient (calibration)",
     min=0.0, max=10.0,
@@ -26,6 +75,7 @@ class NoHeatTransfer(WallHeatTransfer):
 
     name = "none"
     summary = "adiabatic walls (no heat transfer)"
+    compiled_form = "none"
 
     def coefficient(self, s: GasState) -> np.ndarray:
         return np.zeros(self.B)
@@ -85,6 +135,7 @@ class Woschni(WallHeatTransfer):
 
     name = "woschni"
     summary = "Woschni 1967 (original form, T^-0.53), phase-dependent C1/C2, motored pressure integrated"
+    compiled_form = "woschni"
     params = (
         _MULTIPLIER,
         Param("swirl_ratio", "-", 0.0, "swirl ratio (swirl speed / engine speed)", min=0.0, max=10.0),
@@ -104,12 +155,24 @@ class Woschni(WallHeatTransfer):
     def __init__(self, values, ctx) -> None:
         super().__init__(values, ctx)
         g = ctx.geometry
-        self._bore_term = 129.8 * g.bore_m ** -0.2
         self._Vd = g.Vd
         vs_over_sp = np.pi * g.bore_m * self.p.swirl_ratio / (2.0 * g.stroke_m)
         self._c1_open = 6.18 + 0.417 * vs_over_sp
         self._c1_closed = 2.28 + 0.308 * vs_over_sp
-        self._k = self.p.multiplier * self._bore_term * 1e-5 ** 0.8
+        self._k = woschni_prefactor(g.bore_m, self.p.multiplier)
+
+    def pack(self) -> dict:
+        """Parameters of the compiled form ``woschni`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        return {"k": self._k, "c1_closed": self._c1_closed, "c1_open": self._c1_open,
+                "c2": self.p.c2_m_per_sK, "Vd": self._Vd, "t_exp": WOSCHNI_FORMS["original"][2]}
+
+    @staticmethod
+    def correlation(bore_m, p, T, w, multiplier=1.0, form: str = "original"):
+        """Woschni's coefficient [W/(m^2 K)] from bore [m], pressure [Pa], temperature [K] and gas
+        velocity [m/s] (:func:`woschni_coefficient`), for users outside the cycle (the trace analyser)."""
+        if form not in WOSCHNI_FORMS:
+            raise ValueError(f"woschni form {form!r}: unknown; choose {' or '.join(WOSCHNI_FORMS)}")
+        return woschni_coefficient(woschni_prefactor(bore_m, multiplier, form), p, w, T, form)
 
     def states(self):
         return (StateVar(self.STATE, "K", initial="T_ivc", reset_at_ivc=True),)
@@ -137,7 +200,7 @@ class Woschni(WallHeatTransfer):
             # that starts before it): no combustion term there
             w = w + np.where(firing & np.isfinite(comb), comb, 0.0)
         # p^0.8 w^0.8 = (p w)^0.8 with p in bar
-        return self._k * (s.p * w) ** 0.8 * s.T ** -0.53
+        return woschni_coefficient(self._k, s.p, w, s.T)
 
 
 class Hohenberg(WallHeatTransfer):
@@ -155,17 +218,16 @@ class Hohenberg(WallHeatTransfer):
 
     name = "hohenberg"
     summary = "Hohenberg 1979: 130 V^-0.06 p[bar]^0.8 T^-0.4 (Sp+1.4)^0.8"
+    kernel = hohenberg_kernel
     params = (_MULTIPLIER,)
     references = (
         "Hohenberg G.F. (1979) Advanced approaches for heat transfer calculations. "
         "SAE 790825. doi:10.4271/790825",
     )
 
-    def coefficient(self, s: GasState) -> np.ndarray:
-        return (
-            self.p.multiplier * 130.0 * s.V ** -0.06 * (s.p * 1e-5) ** 0.8
-            * s.T ** -0.4 * (s.Sp + 1.4) ** 0.8
-        )
+    def pack(self) -> dict:
+        """The kernel's parameter (:func:`hohenberg_kernel`) by name."""
+        return {"multiplier": self.p.multiplier}
 
 
 def air_viscosity(T):
@@ -211,6 +273,7 @@ class Annand(WallHeatTransfer):
 
     name = "annand"
     summary = "Annand 1963: a (k/B) Re^0.7 + radiation during combustion"
+    compiled_form = "annand"
     params = (
         Param("a", "-", 0.49, "convective constant (0.35-0.8 in the original)", min=0.05, max=2.0),
         Param("b", "-", 0.7, "Reynolds-number exponent", min=0.5, max=0.9),
@@ -230,6 +293,12 @@ class Annand(WallHeatTransfer):
     def __init__(self, values, ctx) -> None:
         super().__init__(values, ctx)
         self._bore = ctx.geometry.bore_m
+
+    def pack(self) -> dict:
+        """Parameters of the compiled form ``annand`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        p = self.p
+        return {"multiplier": p.multiplier, "a": p.a, "b": p.b, "radiation_factor": p.radiation_factor,
+                "prandtl_number": p.prandtl_number, "bore": self._bore}
 
     def convective(self, s: GasState) -> np.ndarray:
         """Convective coefficient a (k/B) Re^b [W/(m^2 K)] (B,)."""

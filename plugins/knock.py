@@ -142,6 +142,7 @@ class NoKnock(Knock):
 
     name = "none"
     summary = "no end-gas autoignition model"
+    compiled_form = "none"
 
 
 class LivengoodWu(Knock):
@@ -204,6 +205,7 @@ class LivengoodWu(Knock):
 
     name = "livengood_wu"
     summary = "Livengood-Wu knock integral of the Douaud-Eyzat ignition delay, isentropic end gas"
+    compiled_form = "livengood_wu"
     # the integral stops where the unburned fraction reaches its minimum, a jump in its rate
     # whose error grows with the step: keep the fine step through the closed part
     closed_step_limit = 1
@@ -245,6 +247,11 @@ class LivengoodWu(Knock):
     # -- integrated state ----------------------------------------------
     def states(self):
         return (StateVar(self.STATE, "-", initial=0.0, reset_at_ivc=True),)
+
+    def pack(self) -> dict:
+        """Parameters of the compiled form ``livengood_wu`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        return {"pre_ms": self._pre_ms, "act": self.act, "x_max": self.x_max, "atm": ATM_PA,
+                "p_exp": DE_PRESSURE_EXPONENT}
 
     def end_gas_temperature(self, s: GasState) -> np.ndarray:
         """End-gas temperature [K] (B,): fresh charge isentropic from the IVC state."""

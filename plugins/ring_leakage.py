@@ -14,6 +14,7 @@ class NoLeakage(RingLeakage):
 
     name = "none"
     summary = "no ring-pack leakage"
+    compiled_form = "none"
 
     def mass_flow(self, s: GasState) -> np.ndarray:
         return np.zeros(self.B)
@@ -45,6 +46,7 @@ class Orifice(RingLeakage):
 
     name = "orifice"
     summary = "ring-pack leakage through one equivalent orifice to the crankcase (outflow only)"
+    compiled_form = "orifice"
     params = (
         Param(
             "effective_area_mm2", "mm^2", 0.15,
@@ -65,6 +67,10 @@ class Orifice(RingLeakage):
         super().__init__(values, ctx)
         self._cda = np.asarray(self.p.effective_area_mm2, dtype=float) * 1e-6
         self._p_cc = np.asarray(self.p.crankcase_pressure_bar, dtype=float) * 1e5
+
+    def pack(self) -> dict:
+        """Parameters of the compiled form ``orifice`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        return {"cda": self._cda, "p_cc": self._p_cc}
 
     def mass_flow(self, s: GasState) -> np.ndarray:
         # outflow only: zero when the crankcase pressure is the higher

@@ -313,6 +313,7 @@ class PoppetValves(ValveFlow):
 
     name = "poppet"
     summary = "poppet valves: event or table lift, curtain/port area, C_D(L/D), compressible flow"
+    compiled_form = "poppet"        # the loop reads areas_at() on its grid
     params = (
         Param("lift_dwell_fraction", "-", 0.15,
               "share of each valve's lift duration held at maximum lift (0 = raised cosine)",
@@ -598,6 +599,7 @@ class ShutValves(ValveFlow):
     name = "none"
     summary = "valves shut: no gas exchange (closed cycle)"
     exchanges_gas = False
+    compiled_form = "none"
     params = ()
     references = ()
 

@@ -22,6 +22,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from cyclesim.kernel_ops import where
 from cyclesim.params import Param
 from cyclesim.roles import BurnRate, GasState, SetupContext
 
@@ -102,11 +103,47 @@ def wiebe_rate(theta_deg: Any, theta0: Any, duration: Any, a: Any, m: Any) -> np
     ndarray
         dx_b/dtheta [1/deg], zero before ``theta0``.
     """
-    u = (np.asarray(theta_deg, dtype=float) - theta0) / duration
+    return wiebe_term(np.asarray(theta_deg, dtype=float), theta0, duration, a, m)
+
+
+def wiebe_term(theta, theta0, duration, a, m):
+    """:func:`wiebe_rate` as a kernel helper (floats or arrays, no conversion) [1/deg]."""
+    u = (theta - theta0) / duration
     on = u > 0.0
-    up = np.where(on, u, 0.0)
+    up = where(on, u, 0.0)
     um = up ** m
-    return np.where(on, a * (m + 1.0) / duration * um * np.exp(-a * um * up), 0.0)
+    return where(on, a * (m + 1.0) / duration * um * np.exp(-a * um * up), 0.0)
+
+
+def double_wiebe_kernel(theta, theta0, d1, a, m1, f1, start2, d2, m2):
+    """Two-Wiebe burn rate dx_b/dtheta [1/deg], zero from 360 deg: the kernel of :class:`DoubleWiebe`
+    (``f1`` [-] the first function's share, ``start2`` [deg] the second's start, durations [deg])."""
+    r = f1 * wiebe_term(theta, theta0, d1, a, m1) + (1.0 - f1) * wiebe_term(theta, start2, d2, a, m2)
+    return where(theta < CYCLE_END_DEG, r, 0.0)
+
+
+def wiebe_kernel(theta, theta0, inv_dur, c, a, m):
+    """Single-Wiebe burn rate dx_b/dtheta [1/deg], zero before ``theta0`` and from 360 deg: the
+    kernel of :class:`Wiebe` (arrays on the Python path, floats in the compiled loop).
+
+    Parameters
+    ----------
+    theta : float or ndarray
+        Crank angle [deg].
+    theta0 : ndarray
+        Start of burning [deg].
+    inv_dur : ndarray
+        Reciprocal of the burn duration [1/deg].
+    c : ndarray
+        ``a (m + 1) / duration`` [1/deg].
+    a, m : ndarray
+        Wiebe efficiency and form parameters [-].
+    """
+    u = (theta - theta0) * inv_dur
+    on = (u > 0.0) & (theta < CYCLE_END_DEG)
+    up = where(on, u, 0.0)
+    um = up ** m
+    return where(on, c * um * np.exp(-a * um * up), 0.0)
 
 
 def _grid(theta_deg: Any) -> np.ndarray:
@@ -132,31 +169,11 @@ P_DELAY = Param("ignition_delay_deg", "deg", 8.0,
                 "crank angle from spark to the start of burning", min=0.0, max=60.0)
 
 
-MIN_BURN_STEPS = 16
-"""Fewest solver steps across the shortest burn duration: the longer closed-part step
-(:data:`cyclesim.solver.CLOSED_STEP_FACTOR`) is taken only as far as this allows."""
-
-_DURATION_KEYS = ("duration_deg", "burn_10_90_deg", "first_duration_deg", "second_duration_deg")
-
-
-def burn_step_limit(params: Mapping[str, Any], step_deg: float, keys=_DURATION_KEYS) -> int:
-    """Step multiple [-] that keeps :data:`MIN_BURN_STEPS` steps across the shortest duration."""
-    durations = [float(params[k]) for k in keys if params.get(k) is not None]
-    if not durations:
-        return 1
-    return max(1, int(min(durations) / (MIN_BURN_STEPS * step_deg)))
-
-
 class _WiebeLaw(BurnRate):
     """Common behaviour: efficiency, cycle-end cut, burn-completion warning."""
 
     theta0: np.ndarray
     eff: np.ndarray
-
-    @classmethod
-    def closed_step_limit_for(cls, params: Mapping[str, Any], step_deg: float) -> int | None:
-        """A short burn keeps the fine step (see :data:`MIN_BURN_STEPS`)."""
-        return burn_step_limit(params, step_deg)
 
     def combustion_efficiency(self) -> np.ndarray:
         """Fraction of the charge's fuel energy that is released (B,) [-]."""
@@ -205,6 +222,13 @@ class Wiebe(_WiebeLaw):
 
     name = "wiebe"
     summary = "single Wiebe function from spark advance, ignition delay and burn duration"
+    kernel = wiebe_kernel
+    spark_param = "spark_advance_deg"
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params: Mapping[str, Any]) -> float | None:
+        """The burn duration [deg]."""
+        return float(params["duration_deg"])
     params = (
         P_SPARK,
         P_DELAY,
@@ -231,18 +255,13 @@ class Wiebe(_WiebeLaw):
         self._inv_dur = 1.0 / self.duration
         self._c = self.a * (self.m + 1.0) * self._inv_dur
 
+    def pack(self) -> dict:
+        """The kernel's parameters as arrays (B,) by name (:func:`wiebe_kernel`)."""
+        return {"theta0": self.theta0, "inv_dur": self._inv_dur, "c": self._c, "a": self.a, "m": self.m}
+
     def spark_deg(self) -> np.ndarray:
         """Spark timing as a crank angle [deg] (negative = before TDC) (B,)."""
         return self.spark.copy()
-
-    def rate(self, s: GasState) -> np.ndarray:
-        """Burn rate dx_b/dtheta [1/deg] (B,) at ``s.theta``; zero before start and from 360 deg."""
-        th = s.theta
-        u = (th - self.theta0) * self._inv_dur
-        on = (u > 0.0) & (np.asarray(th) < CYCLE_END_DEG)
-        up = np.where(on, u, 0.0)
-        um = up ** self.m
-        return np.where(on, self._c * um * np.exp(-self.a * um * up), 0.0)
 
     def fraction(self, theta_deg: np.ndarray) -> np.ndarray:
         """Burned fraction x_b [-] on a crank grid [deg], (n,) or (B, n) -> (B, n)."""
@@ -272,6 +291,12 @@ class WiebeCA50(Wiebe):
 
     name = "wiebe_ca50"
     summary = "single Wiebe function from 50 % burned angle and 10-90 % burn duration"
+    spark_param = None          # timed by its CA50, not by a spark parameter
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params: Mapping[str, Any]) -> float | None:
+        """The 10-90 % burn duration [deg]."""
+        return float(params["burn_10_90_deg"])
     params = (
         Param("ca50_deg", "deg", 8.0, "crank angle of 50 % mass burned (positive = after TDC)",
               min=-40.0, max=90.0),
@@ -324,6 +349,13 @@ class DoubleWiebe(_WiebeLaw):
 
     name = "double_wiebe"
     summary = "two Wiebe functions with a split fraction (main burn plus slow tail)"
+    kernel = double_wiebe_kernel
+    spark_param = "spark_advance_deg"
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params: Mapping[str, Any]) -> float | None:
+        """The shorter of the two durations [deg]."""
+        return min(float(params["first_duration_deg"]), float(params["second_duration_deg"]))
     params = (
         P_SPARK,
         P_DELAY,
@@ -362,18 +394,14 @@ class DoubleWiebe(_WiebeLaw):
         self.d2 = _arr(p.second_duration_deg, B)
         self.m2 = _arr(p.second_m, B)
 
+    def pack(self) -> dict:
+        """The kernel's parameters as arrays (B,) by name (:func:`double_wiebe_kernel`)."""
+        return {"theta0": self.theta0, "d1": self.d1, "a": self.a, "m1": self.m1, "f1": self.f1,
+                "start2": self.start2, "d2": self.d2, "m2": self.m2}
+
     def spark_deg(self) -> np.ndarray:
         """Spark timing as a crank angle [deg] (negative = before TDC) (B,)."""
         return self.spark.copy()
-
-    def rate(self, s: GasState) -> np.ndarray:
-        """Burn rate dx_b/dtheta [1/deg] (B,) at ``s.theta``; zero before start and from 360 deg."""
-        th = s.theta
-        if np.all(np.asarray(th) >= CYCLE_END_DEG):
-            return np.zeros(self.B)
-        r = (self.f1 * wiebe_rate(th, self.theta0, self.d1, self.a, self.m1)
-             + (1.0 - self.f1) * wiebe_rate(th, self.start2, self.d2, self.a, self.m2))
-        return np.where(np.asarray(th) < CYCLE_END_DEG, r, 0.0)
 
     def fraction(self, theta_deg: np.ndarray) -> np.ndarray:
         """Burned fraction x_b [-] on a crank grid [deg], (n,) or (B, n) -> (B, n)."""
@@ -397,6 +425,12 @@ class NoBurn(BurnRate):
 
     name = "none"
     summary = "motored engine: no combustion"
+    compiled_form = "none"
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params: Mapping[str, Any]) -> float | None:
+        """Nothing burns: no feature."""
+        return None
     params = ()
     references = ()
 

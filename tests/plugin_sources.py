@@ -50,3 +50,68 @@ def cyclesim_extra_figures(summary, trace, cases):
 '''
 """A plug-in of extra figures that raises a plain LookupError for any batch holding a case with
 ``burn.spark_advance_deg`` 20 (an exception of no kind the tool knows, for batch isolation)."""
+KERNEL_WIEBE = '''
+import numpy as np
+from cyclesim import hookimpl
+from cyclesim.kernel_ops import where
+from cyclesim.params import Param
+from cyclesim.roles import BurnRate
+
+END_DEG = 360.0
+
+
+def kwiebe_rate(theta, theta0, inv_dur, c, a, m):
+    """Wiebe burn rate dx_b/dtheta [1/deg] (m is the form factor: pack() names come first)."""
+    u = (theta - theta0) * inv_dur
+    on = (u > 0.0) & (theta < END_DEG)
+    up = where(on, u, 0.0)
+    um = up ** m
+    return where(on, c * um * np.exp(-a * um * up), 0.0)
+
+
+class KernelWiebe(BurnRate):
+    """The single Wiebe law written as a kernel, as a third-party package would."""
+    name = "tests_kernel_wiebe"
+    summary = "Wiebe burn given as a kernel"
+    params = (Param("spark_advance_deg", "deg", 24.0, "spark timing before TDC", -30, 80),
+              Param("ignition_delay_deg", "deg", 9.0, "spark to start of burning", 0, 60),
+              Param("duration_deg", "deg", 48.0, "burn duration", 0, 360, min_exclusive=True),
+              Param("a", "-", 5.0, "efficiency parameter", 0, 20, min_exclusive=True),
+              Param("m", "-", 2.0, "form factor", 0, 10),
+              Param("combustion_efficiency", "-", 0.97, "share that burns", 0, 1))
+    references = ("test plug-in",)
+    spark_param = "spark_advance_deg"
+    kernel = kwiebe_rate
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params):
+        return float(params["duration_deg"])
+
+    def __init__(self, values, ctx):
+        super().__init__(values, ctx)
+        b = lambda v: np.broadcast_to(np.asarray(v, float), (self.B,)).copy()  # noqa: E731
+        self.spark = -b(self.p.spark_advance_deg)
+        self.theta0 = self.spark + b(self.p.ignition_delay_deg)
+        self.inv_dur = 1.0 / b(self.p.duration_deg)
+        self.a, self.m = b(self.p.a), b(self.p.m)
+        self.eff = b(self.p.combustion_efficiency)
+
+    def start_deg(self):
+        return self.theta0.copy()
+
+    def spark_deg(self):
+        return self.spark.copy()
+
+    def combustion_efficiency(self):
+        return self.eff.copy()
+
+    def pack(self):
+        return {"theta0": self.theta0, "inv_dur": self.inv_dur, "c": self.a * (self.m + 1.0) * self.inv_dur,
+                "a": self.a, "m": self.m}
+
+
+@hookimpl
+def cyclesim_register_submodels():
+    return [KernelWiebe]
+'''
+"""A burn plug-in ``tests_kernel_wiebe``: the built-in single Wiebe law, given as a kernel."""

@@ -238,10 +238,18 @@ class CopiedPlenums(ConstantPlenums):
     name = "copied_plenums"
     summary = "the constant plenums, as a third-party plug-in"
 
+    def intake(self, theta, sub):          # the same physics, but a method of its own
+        return super().intake(theta, sub)
+
+
+class RenamedPlenums(ConstantPlenums):
+    name = "renamed_plenums"
+    summary = "the constant plenums under another name (no physics method of its own)"
+
 
 @hookimpl
 def cyclesim_register_submodels():
-    return [CopiedPlenums]
+    return [CopiedPlenums, RenamedPlenums]
 """
 
 
@@ -260,9 +268,11 @@ def test_why_not_names_the_submodel_without_compiled_form(plenum_plugin, heat_pl
     assert _why_not(load_config("demo", ["burn.model=wiebe_flame"])) is None
     reason = _why_not(load_config(str(heat_plugin)))
     assert reason and "heat_transfer" in reason and "tests_constant_h" in reason
-    # a plug-in subclass of a built-in is not the built-in: it may change any method
+    # a subclass of a built-in that overrides a physics method is not the built-in's compiled form
     reason = _why_not(load_config(str(plenum_plugin)))
     assert reason and "boundary" in reason and "copied_plenums" in reason
+    # one that only renames it keeps the compiled form (a capability, not a type check)
+    assert _why_not(load_config(str(plenum_plugin), ["boundary.model=renamed_plenums"])) is None
     # a closed cycle never sees the plenums: any boundary has a compiled form there
     assert _why_not(load_config(str(plenum_plugin), ["simulation.mode=closed"])) is None
 
@@ -298,6 +308,11 @@ def test_plugin_boundary_falls_back_with_the_same_physics(monkeypatch, plenum_pl
     # checked against: the constant boundary on the compiled path (itself checked against the
     # Python reference above)
     assert_same_results(res[0], const[0], what="plug-in boundary vs constant")
+    # the subclass without physics of its own runs compiled, with the same figures
+    ren, used_r, spy_r = run_path(monkeypatch, "auto", [load_config(str(plenum_plugin),
+                                                                     list(common) + ["boundary.model=renamed_plenums"])])
+    assert spy_r.prepared == [True] and used_r == 2
+    assert_same_results(ren[0], const[0], what="renamed plug-in boundary vs constant")
 
 
 @needs_numba

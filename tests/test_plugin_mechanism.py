@@ -135,8 +135,14 @@ def test_the_guides_example_package_works_as_written(tmp_path, monkeypatch):
         cfg.write_text(yml)
         import cyclesim
 
+        from cyclesim import kernel
+
+        before = kernel._used["compiled"]
         res = cyclesim.run(load_config(cfg))
         assert res.models["heat_transfer"] == "mypkg_constant_h" and res.models["friction"] == "mypkg_quadratic"
+        if kernel.compiled_module() is not None:
+            # the guide's heat transfer is a kernel: the batch ran compiled
+            assert res.cycle_loop == "compiled" and kernel._used["compiled"] > before
         # FMEP = a + b N + c N^2 at 3 krpm with the YAML's a = 0.9 and the defaults b 0.1, c 0.05
         assert res.summary["fmep_bar"] == pytest.approx(0.9 + 0.1 * 3 + 0.05 * 9, rel=1e-12)
         assert res.inputs["heat_transfer.h_W_per_m2K"] == 500

@@ -67,8 +67,9 @@ def statistical_knock_limit(case: Case, advances, n_cycles: int = 50, share: flo
 
     if case.submodels["knock"].model == "none":
         raise ConfigError("knock limit: knock.model is 'none'; choose a knock model, e.g. livengood_wu")
-    if "spark_advance_deg" not in case.submodels["burn"].params:
-        raise ConfigError(f"knock limit: burn model {case.submodels['burn'].model!r} has no spark_advance_deg")
+    from ..registry import spark_param
+
+    spark = "burn." + spark_param(case, "knock limit")
     if not 0 < share < 1:
         raise ConfigError(f"knock limit: share = {share!r}: expected a number between 0 and 1")
     if int(n_cycles) < 1:
@@ -81,7 +82,7 @@ def statistical_knock_limit(case: Case, advances, n_cycles: int = 50, share: flo
     from ..batch import build_batch
     from ..solver import integrate
 
-    bases = [case_with(case, {"burn.spark_advance_deg": float(a)}) for a in adv]
+    bases = [case_with(case, {spark: float(a)}) for a in adv]
     mean = integrate(build_batch(bases, registry))          # all mean cycles in one batch
     for k, msg in enumerate(mean.failed):
         if msg:

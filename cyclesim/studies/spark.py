@@ -239,6 +239,8 @@ class SparkStudy:
     base_config: str = ""
     caution: str = SPARK_CAUTION
     config_advance_deg: float | None = None
+    spark_key: str = KEY
+    """The swept key: ``burn.`` + the burn model's ``spark_param`` (its spark contract)."""
     """The spark advance of the config the study started from [deg BTDC]."""
 
     def knock_at_limit(self) -> dict:
@@ -246,7 +248,7 @@ class SparkStudy:
         (empty where no case knocks or the cases report no onset)."""
         if "knock_onset_deg" not in self.table.columns:
             return {}
-        adv = self.table.column(KEY)
+        adv = self.table.column(self.spark_key)
         onset = self.table.column("knock_onset_deg")
         ok = np.isfinite(adv) & np.isfinite(onset)
         if not ok.any():
@@ -265,7 +267,7 @@ class SparkStudy:
     def figures(self) -> dict:
         """Every figure as JSON-ready data."""
         tk = self.torque_key
-        adv = self.table.column(KEY)
+        adv = self.table.column(self.spark_key)
         fit = {k: v for k, v in self.fit.items() if k != "poly"}
         return {
             "caution": self.caution,
@@ -303,7 +305,7 @@ class SparkStudy:
         """A short readable report (ends with the caution)."""
         tk = self.torque_key
         unit = {"torque_Nm": "N m"}.get(tk, "bar")
-        adv = self.table.column(KEY)
+        adv = self.table.column(self.spark_key)
         lines = [f"spark advance study: {self.base_config}, advances {np.nanmin(adv):g} to {np.nanmax(adv):g} deg BTDC"
                  f" ({len(adv)} cases, {len(self.table.failed)} failed)"]
 
@@ -348,7 +350,7 @@ def _f(v) -> float | None:
 
 
 def _torque_model(st: SparkStudy):
-    adv = st.table.column(KEY)
+    adv = st.table.column(st.spark_key)
     tq = st.table.column(st.torque_key)
     ok = np.isfinite(adv) & np.isfinite(tq)
     order = np.argsort(adv[ok])
@@ -392,8 +394,9 @@ def _least_within(st: SparkStudy, a_min: float) -> tuple[float | None, str]:
 # --------------------------------------------------------------------------
 
 
-def _check_burn_model(case: Case) -> None:
-    from ..registry import get_registry
+def _check_burn_model(case: Case) -> str:
+    """The swept key of the spark timing (``burn.`` + the burn model's ``spark_param``)."""
+    from ..registry import get_registry, spark_param
 
     from ..motoring import is_motored_config
 
@@ -403,12 +406,13 @@ def _check_burn_model(case: Case) -> None:
     ch = case.submodels["burn"]
     cls = get_registry(tuple(case.plugins)).submodel_class("burn", ch.model)
     names = [p.name for p in cls.params]
-    if "spark_advance_deg" not in names:
+    if not cls.spark_param:
         hint = " sweep burn.ca50_deg instead (cyclesim sweep --vary burn.ca50_deg=0:20:1)" if "ca50_deg" in names else ""
         raise ConfigError(
             f"burn.model = {ch.model!r} sets the burn phasing without a spark advance, so spark advance"
             f" cannot be swept; use burn.model=wiebe (or another spark-timed model), or{hint or ' vary its phasing key'}"
         )
+    return "burn." + spark_param(case, "spark study")
 
 
 def _knock(st: SparkStudy, table: SweepResult, adv: np.ndarray, ok: np.ndarray, knock_min_unburned) -> None:
@@ -595,8 +599,8 @@ def spark_study(
     if not 0.0 < knock_cycle_share <= 1.0:
         raise ConfigError(f"--knock-cycle-share {knock_cycle_share!r}: expected a number in (0, 1]")
     case, label = resolve_case(base, overrides)
-    _check_burn_model(case)
-    vals = parse_values(KEY, advances)
+    key = _check_burn_model(case)
+    vals = parse_values(key, advances)
     for v in vals:
         if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
             raise ConfigError(f"--advance {advances!r}: {v!r} is not a spark advance (expected degrees before"
@@ -609,11 +613,11 @@ def spark_study(
                "knock_cycles": int(knock_cycles or 0), "knock_cycle_share": knock_cycle_share}
     # the sweep and the study's own files: one writer in the folder for the whole study
     with folder_lock(out) if out is not None else contextlib.nullcontext():
-        return _spark_study(case, label, vals, options, overrides, None if out is None else Path(out), resume,
+        return _spark_study(case, label, key, vals, options, overrides, None if out is None else Path(out), resume,
                             force, chunk_size, progress, plots, traces, (workers, backend, scheduler))
 
 
-def _spark_study(case: Case, label: str, vals: list, options: dict, overrides: Sequence[str], out: Path | None,
+def _spark_study(case: Case, label: str, key: str, vals: list, options: dict, overrides: Sequence[str], out: Path | None,
                  resume: bool, force: bool, chunk_size: int, progress, plots: bool, traces: int,
                  where: tuple) -> SparkStudy:
     torque_fraction, knock_margin_deg = options["torque_fraction"], options["knock_margin_deg"]
@@ -621,7 +625,7 @@ def _spark_study(case: Case, label: str, vals: list, options: dict, overrides: S
     knock_min_unburned, fit_window_fraction = options["knock_min_unburned"], options["fit_window_fraction"]
     knock_cycles, knock_cycle_share = options["knock_cycles"], options["knock_cycle_share"]
     workers, backend, scheduler = where
-    table = sweep(case, [(KEY, vals)], out=out, resume=resume, force=force, chunk_size=chunk_size,
+    table = sweep(case, [(key, vals)], out=out, resume=resume, force=force, chunk_size=chunk_size,
                   progress=progress, label=label, workers=workers, backend=backend, scheduler=scheduler,
                   study="spark", study_options=options)
     table.metadata["overrides"] = list(overrides)
@@ -630,7 +634,7 @@ def _spark_study(case: Case, label: str, vals: list, options: dict, overrides: S
     if tk is None:
         errs = [r["error"] for r in table.rows if r.get("error")]
         raise CyclesimError("spark study: no case gave a torque" + (f"; first error: {errs[0]}" if errs else ""))
-    adv_all = table.column(KEY)
+    adv_all = table.column(key)
     tq_all = table.column(tk)
     ok = np.isfinite(adv_all) & np.isfinite(tq_all)
     # the table keeps the case order; the curve is read in ascending advance
@@ -640,7 +644,7 @@ def _spark_study(case: Case, label: str, vals: list, options: dict, overrides: S
     st = SparkStudy(table=table, torque_key=tk, mbt_deg=fit["mbt_deg"], best_torque=fit["best"],
                     retard_limit_deg=None, torque_fraction=torque_fraction, knock_margin_deg=knock_margin_deg,
                     fit=fit, base_config=label,
-                    config_advance_deg=float(case.submodels["burn"].params["spark_advance_deg"]))
+                    config_advance_deg=float(case.submodels["burn"].params[key[len("burn."):]]), spark_key=key)
     nfail = len(table.failed)
     if nfail:
         st.notes.append(f"{nfail} case(s) failed and are left out of the curve (see the error column)")
@@ -748,7 +752,7 @@ def plot_spark_study(st: SparkStudy, out: Path, traces: int = 8) -> list[Path]:
     plt = _plt()
     out = Path(out)
     t = st.table
-    adv = t.column(KEY)
+    adv = t.column(st.spark_key)
     ok = np.isfinite(adv) & np.isfinite(t.column(st.torque_key))
     o = np.argsort(adv[ok])
     a = adv[ok][o]

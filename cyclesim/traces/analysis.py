@@ -514,11 +514,12 @@ def _woschni_h(bore, p, T, w, s: AnalysisSettings):
     ``heywood``: the restatement of Heywood 1988 eq. 12.19, 3.26 B^-0.2 p[kPa]^0.8
     T^-0.55 w^0.8.  The two differ by T^-0.02 (0.87 at 800 K, 0.86 at 2000 K).
     """
-    if s.woschni_form == "original":
-        return 129.8 * bore**-0.2 * (p / BAR) ** 0.8 * T**-0.53 * w**0.8
-    if s.woschni_form == "heywood":
-        return 3.26 * bore**-0.2 * (p / 1000.0) ** 0.8 * T**-0.55 * w**0.8
-    raise CyclesimError(f"woschni_form {s.woschni_form!r}: unknown; choose original or heywood")
+    from ..registry import get_registry
+
+    if s.woschni_form not in ("original", "heywood"):
+        raise CyclesimError(f"woschni_form {s.woschni_form!r}: unknown; choose original or heywood")
+    # the simulator's own Woschni (one implementation), found through the registry
+    return get_registry().submodel_class("heat_transfer", "woschni").correlation(bore, p, T, w, form=s.woschni_form)
 
 
 def _woschni_wall_heat(th, p, V, T, vol, s: AnalysisSettings, speed_rpm, n_comp, theta_soc):

@@ -1,0 +1,39 @@
+"""Helpers for submodel kernels: one function body for numpy arrays and for compiled scalars.
+
+A kernel (a submodel's physics as a plain function, see ``Submodel.kernel``) is called with
+arrays (B,) on the Python path and with floats in the compiled loop.  ``numpy``'s ufuncs
+(``np.exp``, ``np.maximum``, ...) serve both; a per-case choice goes through :func:`where`,
+which numba compiles to a plain select on floats (``np.where`` would make a 0-d array there).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def where(condition, x, y):
+    """``x`` where ``condition`` holds, else ``y`` (``np.where`` on arrays; a select on floats)."""
+    return np.where(condition, x, y)
+
+
+_registered = False
+
+
+def register_compiled() -> None:
+    """Teach numba the compiled form of :func:`where` (a select on floats); called by the generated
+    loops before they compile, so that importing this module does not import numba."""
+    global _registered
+    if _registered:
+        return
+    from numba.core import types
+    from numba.extending import overload
+
+    @overload(where)
+    def _where_scalar(condition, x, y):
+        if isinstance(condition, types.Boolean) and isinstance(x, types.Number) and isinstance(y, types.Number):
+            def impl(condition, x, y):
+                return x if condition else y
+            return impl
+        return None
+
+    _registered = True
