@@ -129,7 +129,7 @@ def trace_csv(trace: dict) -> str:
 
 
 CASE_FILES = ("summary.json", "trace.csv", "pressure.png", "pv.png", "logp_logv.png", "heat_release.png",
-              "valves.png", "energy_balance.png")
+              "valves.png", "energy_balance.png", "temperature.png")
 """Every file :func:`write_case` may write (the plots of :func:`cyclesim.plots.plot_case` included)."""
 
 

@@ -30,7 +30,7 @@ MAX_TABLE_BYTES = 512 * 2**20
 """Largest table file read [bytes] (512 MiB: a pressure-trace set of a few thousand cycles at
 0.1 deg is about 100 MiB as CSV)."""
 
-_SHOWN = 20
+_SHOWN = 8
 """Most characters of a cell echoed in a message (the file's contents are not repeated)."""
 
 
@@ -71,7 +71,9 @@ def _is_number(text: str) -> bool:
 
 
 def _shown(text: str) -> str:
-    return repr(text if len(text) <= _SHOWN else text[:_SHOWN] + "...")
+    from .textsafe import excerpt
+
+    return excerpt(text, _SHOWN)
 
 
 def read_table(

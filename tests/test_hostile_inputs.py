@@ -101,11 +101,11 @@ CATALOGUE = [
     ("extends a system file", {"c.yaml": "extends: {d}/secret\n", "secret": "root:$6$saltsalt$hashhash:1:2:3:::\n"},
      ["run", "{d}/c.yaml"], "is this a cyclesim config?"),
     ("burn table is a system file", {"secret": "root:$6$saltsalt$hashhash:1:2:3\nx\n"},
-     ["run", "demo", "--set", "burn.model=wiebe_table", "--set", "burn.table={d}/secret"], "no column 'speed_rpm'"),
+     ["run", "demo", "--set", "burn.model=wiebe_table", "--set", "burn.table={d}/secret"], "missing column 'speed_rpm'"),
     ("trace with a foreign cell", {"s.csv": "cycle,crank_deg,pressure_bar\n1,-360,root:$6$saltsalt$hashhash\n"},
      ["analyse", "{d}/s.csv", "--engine", "demo", "--out", "{d}/o"], "is not a number"),
     ("lift table with a foreign cell", {"l.csv": "crank_deg,lift_mm\n-370,$6$saltsalt$hashhash\n"},
-     ["run", "demo", "--set", "valve_flow.intake_lift_table={d}/l.csv"], "non-numeric value in"),
+     ["run", "demo", "--set", "valve_flow.intake_lift_table={d}/l.csv"], "is not a number"),
     # item 12: control characters
     ("ANSI escapes in a key", {"c.yaml": 'extends: demo\nengine: {"bore\\e[31m_mm": 80}\n'}, ["run", "{d}/c.yaml"],
      "unknown key"),
