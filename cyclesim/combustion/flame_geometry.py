@@ -343,6 +343,7 @@ def front_area(q, h, r, n_theta: int = 2000):
     if rb > 0.0:
         b0, b1 = _disc_arc(rho, xp, yp, rb)
         arc = np.where((z < -h) & (z >= -h - db), b1 - b0, arc)
+    arc = np.maximum(arc, 0.0)  # rounding of the arc ends
     return (r[:, 0] ** 2) * (arc * np.sin(th)).sum(axis=1) * (math.pi / n_theta)
 
 
@@ -364,10 +365,11 @@ def _overlap(a0, a1, b0, b1):
     return np.maximum(np.minimum(a1, b1) - np.maximum(a0, b0), 0.0)
 
 
-def plane_area_in_ball(r, z0, slope, disc_radius, phi_a, phi_b, xp, yp, zp, n: int = 1200):
-    """Area [m^2] of the face z = z0 + slope x over the disc x^2 + y^2 <= disc_radius^2,
-    for x = -disc_radius cos(phi) with phi in [phi_a, phi_b], inside balls of radii ``r`` about
-    (xp, yp, zp); ``r`` an array (R,), result (R,)."""
+def plane_area_in_ball(r, z0, slope, disc_radius, phi_a, phi_b, xp, yp, zp, n: int = 1200,
+                       inner_radius: float = 0.0):
+    """Area [m^2] of the face z = z0 + slope x over the disc x^2 + y^2 <= disc_radius^2 (less
+    the disc of ``inner_radius``), for x = -disc_radius cos(phi) with phi in [phi_a, phi_b],
+    inside balls of radii ``r`` about (xp, yp, zp); ``r`` an array (R,), result (R,)."""
     phi = phi_a + (np.arange(n) + 0.5) * ((phi_b - phi_a) / n)
     x = -disc_radius * np.cos(phi)
     dx = disc_radius * np.sin(phi) * ((phi_b - phi_a) / n)
@@ -375,6 +377,9 @@ def plane_area_in_ball(r, z0, slope, disc_radius, phi_a, phi_b, xp, yp, zp, n: i
     q = np.asarray(r, dtype=float)[:, None] ** 2 - (x - xp) ** 2 - (z0 + slope * x - zp) ** 2
     sq = np.sqrt(np.maximum(q, 0.0))
     chord = np.where(q > 0.0, _overlap(-half, half, yp - sq, yp + sq), 0.0)
+    if inner_radius > 0.0:
+        hi = np.sqrt(np.maximum(inner_radius ** 2 - x * x, 0.0))
+        chord = chord - np.where(q > 0.0, _overlap(-hi, hi, yp - sq, yp + sq), 0.0)
     return math.sqrt(1.0 + slope * slope) * (chord * dx).sum(axis=1)
 
 
@@ -400,10 +405,9 @@ def wetted_areas(q, h, r, n: int = 1200):
                 + wall_area_in_ball(r, R, 0.0, t * R * (1.0 - np.abs(np.cos(psi))), psi, xp, yp, zp))
     else:
         head = plane_area_in_ball(r, 0.0, 0.0, R, 0.0, math.pi, xp, yp, zp, n)
-    piston = plane_area_in_ball(r, -h, 0.0, R, 0.0, math.pi, xp, yp, zp, n)
+    piston = plane_area_in_ball(r, -h, 0.0, R, 0.0, math.pi, xp, yp, zp, n, inner_radius=rb)
     if rb > 0.0:
-        piston = (piston - plane_area_in_ball(r, -h, 0.0, rb, 0.0, math.pi, xp, yp, zp, n)
-                  + plane_area_in_ball(r, -h - db, 0.0, rb, 0.0, math.pi, xp, yp, zp, n)
+        piston = (piston + plane_area_in_ball(r, -h - db, 0.0, rb, 0.0, math.pi, xp, yp, zp, n)
                   + wall_area_in_ball(r, rb, -h - db, -h, psi, xp, yp, zp))
     liner = wall_area_in_ball(r, R, -h, 0.0, psi, xp, yp, zp)
     return head, piston, liner
