@@ -6,11 +6,15 @@ import types
 
 
 def njit_with_callees(fn, module, callees=()):
-    """``numba.njit(fn)`` where the named module-level ``callees`` are compiled first."""
+    """``numba.njit(fn)`` with the named module-level ``callees`` compiled first (leaves first),
+    each seeing the compiled versions of those before it."""
     import numba
 
     env = dict(vars(module))
+
+    def rebind(f):
+        return numba.njit(types.FunctionType(f.__code__, env, f.__name__, f.__defaults__))
+
     for name in callees:
-        env[name] = numba.njit(env[name])
-    f = types.FunctionType(fn.__code__, env, fn.__name__, fn.__defaults__)
-    return numba.njit(f)
+        env[name] = rebind(env[name])
+    return rebind(fn)
