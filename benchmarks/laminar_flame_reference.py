@@ -1,6 +1,6 @@
 """Reference laminar burning velocities from Cantera's freely propagating flame.
 
-    python benchmarks/laminar_flame_reference.py             # all points (about an hour on one core)
+    python benchmarks/laminar_flame_reference.py             # all points (30-60 min on one core)
     python benchmarks/laminar_flame_reference.py --only 0    # one point, printed, not stored
 
 Computes the one-dimensional, adiabatic, freely propagating premixed flame
@@ -26,7 +26,10 @@ mixture, mixed in at the unburned temperature.
 Points, in the order solved: phi 0.8-1.2 at 1 bar, 300 and 450 K; f = 0.1
 and 0.2 at phi 0.9 and 1.0, 1 bar, 300 K; phi 0.8-1.2 at 5 bar, 300 and 450 K;
 engine-like states at phi 1, 700 K and 20 bar, 800 K and 40 bar (beyond
-GRI-Mech 3.0's validation: reported, not gated).
+GRI-Mech 3.0's validation: reported, not gated); f = 0.1 and 0.2 at phi 0.9
+and 1.0, 5 bar, 450 K; the engine-like states at phi 0.9; propane-air at
+1 bar, 300 K, phi 0.8, 1.0, 1.2 (GRI-Mech 3.0 has a propane sub-mechanism but
+is not validated for propane flames: reported, not gated).
 
 The run is resumable: points already in the output file with the same
 settings are skipped.
@@ -64,6 +67,14 @@ def points() -> list[dict]:
             pts.append(dict(fuel="CH4", phi=phi, T_u_K=T, p_bar=5.0, dilution=0.0, band="gated"))
     for p, T in ((20.0, 700.0), (40.0, 800.0)):
         pts.append(dict(fuel="CH4", phi=1.0, T_u_K=T, p_bar=p, dilution=0.0, band="reported"))
+    for phi in (0.9, 1.0):
+        for f in (0.1, 0.2):
+            pts.append(dict(fuel="CH4", phi=phi, T_u_K=450.0, p_bar=5.0, dilution=f, band="gated"))
+    for p, T in ((20.0, 700.0), (40.0, 800.0)):
+        pts.append(dict(fuel="CH4", phi=0.9, T_u_K=T, p_bar=p, dilution=0.0, band="reported"))
+    for phi in (0.8, 1.0, 1.2):
+        pts.append(dict(fuel="C3H8", phi=phi, T_u_K=300.0, p_bar=1.0, dilution=0.0,
+                        band="reported"))
     return pts
 
 

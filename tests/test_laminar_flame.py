@@ -1,7 +1,7 @@
 """Laminar burning velocity correlations (cyclesim.combustion.laminar_flame).
 
 Reference: Cantera's freely propagating flame, GRI-Mech 3.0, mixture-averaged transport,
-methane-air, stored in tests/data/laminar_flame_gri30.json by
+methane-air (propane-air reported only), stored in tests/data/laminar_flame_gri30.json by
 benchmarks/laminar_flame_reference.py (Cantera version and settings in the file).  No flame is
 solved here.  Gasoline is not checkable with GRI-Mech 3.0 (no such fuel in the mechanism).
 """
@@ -21,15 +21,21 @@ from cyclesim.combustion import laminar_flame as lf
 from cyclesim.errors import ConfigError
 
 DATA = json.loads((Path(__file__).parent / "data" / "laminar_flame_gri30.json").read_text())
-CODE = {"CH4": lf.FUEL_CODES["methane"]}
+CODE = {"CH4": lf.FUEL_CODES["methane"], "C3H8": lf.FUEL_CODES["propane"]}
 BAND = 0.15
 
 # Gated points (fuel, phi, T_u [K], p [bar], dilution) where the correlation misses the 15 % band
-# against GRI-Mech 3.0, found when the reference was made: Gülder's (1984) methane fit, from
-# memory, peaks at phi 1.075 with a symmetric fall, while GRI-Mech 3.0 falls faster on the rich
-# side, and its temperature exponent 2.0 exceeds GRI's at 450 K.  Listed so that a change of the
+# against GRI-Mech 3.0, found when the reference was made: Gülder's (1984) methane fit (constants
+# from memory) peaks at phi 1.075 and falls symmetrically, while GRI-Mech 3.0 falls faster on the
+# rich side (phi 1.2: 20-33 % high); its temperature exponent 2.0 exceeds GRI's at 1 bar (GRI's
+# 300 -> 450 K rise at phi 1 gives 1.68), so at 450 K, 1 bar it reads 16-33 % high; at 5 bar, 450 K
+# the dilution factor's 13 % excess at f = 0.2 adds to a +3 % base.  Listed so that a change of the
 # correlation or of the data that moves a point across the band edge is noticed.
-KNOWN_MISSES: set[tuple] = set()
+KNOWN_MISSES = {
+    ("CH4", 1.2, 300.0, 1.0, 0.0), ("CH4", 0.9, 450.0, 1.0, 0.0), ("CH4", 1.0, 450.0, 1.0, 0.0),
+    ("CH4", 1.1, 450.0, 1.0, 0.0), ("CH4", 1.2, 450.0, 1.0, 0.0), ("CH4", 1.2, 300.0, 5.0, 0.0),
+    ("CH4", 1.2, 450.0, 5.0, 0.0), ("CH4", 1.0, 450.0, 5.0, 0.2),
+}
 
 
 def _key(p):
@@ -46,12 +52,12 @@ def test_reference_file_states_its_settings_and_is_grid_converged():
     s = DATA["settings"]
     assert s["cantera_version"] and "gri30" in s["mechanism"] and s["transport"] == "mixture-averaged"
     gated = [p for p in DATA["points"] if p["band"] == "gated"]
-    assert len(gated) >= 20
+    assert len(gated) == 28
     for p in DATA["points"]:
-        # fine grid against the coarse one (half the slope and curvature limits): below 1.5 %,
-        # so the fine grid's own error is well under 1 % (a second-order scheme's error falls
-        # about fourfold when the spacing halves)
-        assert p["grid_change"] < 0.015, _key(p)
+        # fine grid against the coarse one (half the slope and curvature limits): below 2 %
+        # (measured at most 1.5 %), so the fine grid's own error is under about 0.7 % (a
+        # second-order scheme's error falls about fourfold when the spacing halves: change / 3)
+        assert p["grid_change"] < 0.02, _key(p)
         assert 0.05 < p["S_L_m_per_s"] < 5.0 and 1500.0 < p["T_ad_K"] < 3000.0
 
 
@@ -61,7 +67,9 @@ def test_methane_within_band_of_gri30():
     misses = {k for k, d in dev.items() if abs(d) > BAND}
     assert misses == KNOWN_MISSES
     inside = [abs(d) for k, d in dev.items() if k not in KNOWN_MISSES]
-    assert len(inside) >= 0.6 * len(dev)
+    assert len(inside) >= 0.7 * len(dev)  # 20 of 28 when the reference was made
+    # the misses stay within 35 % (largest: +33 % at phi 1.2, 450 K, 1 bar)
+    assert max(abs(dev[k]) for k in KNOWN_MISSES) < 0.35
 
 
 def test_report_table():
@@ -93,8 +101,9 @@ def test_metghalchi_keck_form():
     base = lf.laminar_burning_velocity(1.0, 298.0, 101325.0, 0.0, code)
     assert lf.laminar_burning_velocity(1.0, 596.0, 101325.0, 0.0, code) / base == pytest.approx(2 ** 2.18)
     assert lf.laminar_burning_velocity(1.0, 298.0, 1013250.0, 0.0, code) / base == pytest.approx(10 ** -0.16)
-    # dilution: (1 - 2.1 f), Metghalchi & Keck (1982)
-    assert lf.laminar_burning_velocity(1.0, 298.0, 101325.0, 0.2, code) / base == pytest.approx(0.58)
+    # dilution: (1 - 2.06 f^0.77), Rhodes & Keck (1985, from memory)
+    assert lf.laminar_burning_velocity(1.0, 298.0, 101325.0, 0.2, code) / base == pytest.approx(
+        1 - 2.06 * 0.2 ** 0.77, rel=1e-12)
 
 
 def test_gulder_form():
@@ -103,7 +112,7 @@ def test_gulder_form():
     assert lf.laminar_burning_velocity(1.075, 300.0, 101325.0, 0.0, code) == pytest.approx(
         0.422 * 1.075 ** 0.15, rel=1e-12)
     assert lf.laminar_burning_velocity(1.075, 600.0, 4 * 101325.0, 0.1, code) == pytest.approx(
-        0.422 * 1.075 ** 0.15 * 4.0 * 0.5 * 0.79, rel=1e-12)
+        0.422 * 1.075 ** 0.15 * 4.0 * 0.5 * (1 - 2.06 * 0.1 ** 0.77), rel=1e-12)
     e = lf.FUEL_CODES["ethanol"]
     assert lf.laminar_burning_velocity(1.0, 300.0, 101325.0, 0.0, e) == pytest.approx(
         0.465 * math.exp(-6.34 * 0.075 ** 2), rel=1e-12)
