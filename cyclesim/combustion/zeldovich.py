@@ -24,6 +24,11 @@ Gardiner (ed.), *Combustion Chemistry*; **from memory**), cm^3/(mol s):
     k2+ = 6.4e9 T exp(-3150/T)       k2- = 1.5e9 T exp(-19500/T)
     k3+ = 4.1e13                     k3- = 2.0e14 exp(-23650/T)
 
+Only the thermal route is modelled.  In a GRI-Mech 3.0 reactor started from
+NO-free equilibrium products (2400-2800 K, 20-60 bar, phi 1) the routes
+through N2O, NNH and HNO add 20-40 % to it (the N2O route alone 5-9 %), and
+GRI's k1+ is about 1.5 times Heywood's (tests/test_zeldovich.py).
+
 Equilibrium inputs come from :func:`cyclesim.equilibrium.equilibrate_tv`
 (its species include NO and N); :func:`equilibrium_tp` finds the density
 for a given pressure.  For burned-mass elements, :func:`no_table` tabulates
