@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import importlib.util
 import os
+import sys
 
 
 def _want_compiled() -> bool:
@@ -30,6 +31,14 @@ def _want_compiled() -> bool:
 COMPILED = _want_compiled()
 """True where the kernels are compiled by numba in this process."""
 
+if COMPILED:
+    from numba import njit as _njit
+
+    @_njit(cache=True)
+    def _where(cond, a, b):
+        """``a`` if ``cond`` else ``b`` for scalars (the compiled form of ``np.where``)."""
+        return a if cond else b
+
 _compiled = None
 
 
@@ -43,14 +52,11 @@ def compiled_kernels():
 
         from . import kernels
 
-        @njit(cache=True)
-        def where(cond, a, b):
-            return a if cond else b
-
         spec = importlib.util.spec_from_file_location("cyclesim.pipes._kernels_compiled", kernels.__file__)
         mod = importlib.util.module_from_spec(spec)
         mod.jit = njit(cache=True)
-        mod.where = where
+        mod.where = _where
+        sys.modules[spec.name] = mod            # importable by name: numba's disk cache reloads through it
         spec.loader.exec_module(mod)
         _compiled = mod
     return _compiled

@@ -121,7 +121,7 @@ def fanning_factor(reynolds, rel_roughness):
 
 
 @jit
-def wall_sources(rho, u, T, cp, diameter, rel_roughness, friction_scale, loss_per_length,
+def wall_sources(rho, u, T, cp, diameter, rel_roughness, friction_scale, fixed_fanning, loss_per_length,
                  wall_T, prandtl, heat_scale):
     """Wall force and wall heat per unit volume: momentum [N/m^3] and energy [W/m^3] sources.
 
@@ -130,11 +130,13 @@ def wall_sources(rho, u, T, cp, diameter, rel_roughness, friction_scale, loss_pe
     ``loss_per_length`` = K / L [1/m] adds ``-K/(2L) rho u |u|``.  Heat by the
     Reynolds-Colburn analogy, ``St Pr^(2/3) = f/2`` (Colburn 1933; Incropera et al.
     2007, eq. 8.66), ``q = St rho |u| cp (4/D) (T_wall - T)``.  ``friction_scale``
-    multiplies f (0: inviscid), ``heat_scale`` multiplies the heat (0: adiabatic).
+    multiplies f (0: inviscid), ``heat_scale`` multiplies the heat (0: adiabatic);
+    ``fixed_fanning`` > 0 replaces f(Re) by that constant (the Fanno reference case).
     """
     au = np.abs(u)
     mu = sutherland_viscosity(T)
-    f = friction_scale * fanning_factor(rho * au * diameter / mu, rel_roughness)
+    f_re = fanning_factor(rho * au * diameter / mu, rel_roughness)
+    f = friction_scale * where(fixed_fanning > 0.0, fixed_fanning + 0.0 * f_re, f_re)
     s_mom = -(2.0 * f / diameter + 0.5 * loss_per_length) * rho * u * au
     # f rho |u| stays finite as u -> 0 (laminar: 16 mu / D)
     st_flux = 0.5 * np.maximum(f * rho * au, friction_scale * 16.0 * mu / diameter) * prandtl ** (-2.0 / 3.0)
@@ -295,13 +297,13 @@ def predict(rho, u, p, Y, g, dr, du, dp, dY, ax, s_u, s_p, half_dt, dx):
 
 @jit
 def cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, diameter, rel_roughness, friction_scale,
-                 loss_per_length, wall_T, prandtl, heat_scale):
+                 fixed_fanning, loss_per_length, wall_T, prandtl, heat_scale):
     """Wall sources of a primitive state: momentum [N/m^3], energy [W/m^3], velocity [m/s^2], pressure [Pa/s]."""
     R = mixture_R(Y, Rf, Rb)
     T = p / (rho * R)
     _, cv = energy(T, Y, cf, cb, t_mid)
     s_mom, s_E = wall_sources(rho, u, T, cv + R, diameter, rel_roughness, friction_scale,
-                             loss_per_length, wall_T, prandtl, heat_scale)
+                             fixed_fanning, loss_per_length, wall_T, prandtl, heat_scale)
     # friction turns kinetic into internal energy: dp/dt = (gamma-1) (q - u f)
     return s_mom, s_E, s_mom / rho, R / cv * (s_E - u * s_mom)
 

@@ -9,8 +9,8 @@ own CFL condition, so a case gives the same result alone and in any batch.
 Scheme (Toro 2009, ch. 14 and 16): piecewise-linear reconstruction of the
 primitive variables (rho, u, p, Y) with the monotonised-central limiter, Hancock
 half step with area change and wall sources, HLLC fluxes, explicit update of
-cell totals; second order in smooth flow, first order at shocks and at the end
-cells (zero slope there).  Area change is well balanced: the pressure force of
+cell totals; second order in smooth flow, first order at shocks; an end cell's slope is
+limited from its two inward differences.  Area change is well balanced: the pressure force of
 the walls, ``p_bar (A_right - A_left)``, uses the mean of the same half-step
 face pressures that enter the fluxes, so a pipe at rest with uniform pressure
 stays at rest to rounding.
@@ -30,9 +30,9 @@ NQ = 4
 G_VOLUME, G_AREA_SLOPE, G_DIAMETER, G_REL_ROUGHNESS = 0, 1, 2, 3
 NG = 4
 # columns of the per-case parameters P (B, NP)
-(P_DX, P_FRICTION, P_LOSS_PER_LENGTH, P_WALL_T, P_PRANDTL, P_HEAT, P_CFL,
- P_R_FRESH, P_R_BURNED) = range(9)
-NP = 9
+(P_DX, P_FRICTION, P_FIXED_FANNING, P_LOSS_PER_LENGTH, P_WALL_T, P_PRANDTL, P_HEAT, P_CFL,
+ P_R_FRESH, P_R_BURNED) = range(10)
+NP = 10
 # columns of the end conditions E (B, 2, NE); end 0 at x = 0, end 1 at x = L
 E_CDA, E_P, E_T, E_Y, E_K = range(5)
 NE = 5
@@ -54,7 +54,7 @@ def _advance_numpy(Q, G, Af, P, E, C, t_mid, n_newton, n_iter, duration, max_ste
     V, ax, D, rough = G[:, G_VOLUME], G[:, G_AREA_SLOPE], G[:, G_DIAMETER], G[:, G_REL_ROUGHNESS]
     dx = col(P[:, P_DX])
     Rf, Rb = col(P[:, P_R_FRESH]), col(P[:, P_R_BURNED])
-    wall = (col(P[:, P_FRICTION]), col(P[:, P_LOSS_PER_LENGTH]), col(P[:, P_WALL_T]),
+    wall = (col(P[:, P_FRICTION]), col(P[:, P_FIXED_FANNING]), col(P[:, P_LOSS_PER_LENGTH]), col(P[:, P_WALL_T]),
             col(P[:, P_PRANDTL]), col(P[:, P_HEAT]))
     dA = Af[:, 1:] - Af[:, :-1]
     while True:
@@ -76,6 +76,8 @@ def _advance_numpy(Q, G, Af, P, E, C, t_mid, n_newton, n_iter, duration, max_ste
             d = np.diff(w, axis=1)
             s = np.zeros_like(w)
             s[:, 1:-1] = k.limited_slope(d[:, :-1], d[:, 1:])
+            s[:, 0] = k.limited_slope(d[:, 0], d[:, 1])              # end cells: the stencil shifted inwards
+            s[:, -1] = k.limited_slope(d[:, -1], d[:, -2])
             slopes.append(s)
         _, _, s_u, s_p = k.cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, D, rough, *wall)
         hdt = col(0.5 * dt)
@@ -141,8 +143,8 @@ if COMPILED:
             dx = P[b, P_DX]
             Rf = P[b, P_R_FRESH]
             Rb = P[b, P_R_BURNED]
-            fr, kl, tw, prn, hs = (P[b, P_FRICTION], P[b, P_LOSS_PER_LENGTH], P[b, P_WALL_T],
-                                   P[b, P_PRANDTL], P[b, P_HEAT])
+            fr, ff, kl, tw, prn, hs = (P[b, P_FRICTION], P[b, P_FIXED_FANNING], P[b, P_LOSS_PER_LENGTH],
+                                       P[b, P_WALL_T], P[b, P_PRANDTL], P[b, P_HEAT])
             t = 0.0
             T_end = duration[b]
             while t < T_end:
@@ -171,8 +173,8 @@ if COMPILED:
                     t = t + dt
                 steps[b] += 1
                 for q in range(4):
-                    S[q, 0] = 0.0
-                    S[q, N - 1] = 0.0
+                    S[q, 0] = kc.limited_slope(W[q, 1] - W[q, 0], W[q, 2] - W[q, 1])
+                    S[q, N - 1] = kc.limited_slope(W[q, N - 1] - W[q, N - 2], W[q, N - 2] - W[q, N - 3])
                     for i in range(1, N - 1):
                         S[q, i] = kc.limited_slope(W[q, i] - W[q, i - 1], W[q, i + 1] - W[q, i])
                 hdt = 0.5 * dt
@@ -180,7 +182,7 @@ if COMPILED:
                     D = G[b, G_DIAMETER, i]
                     rg = G[b, G_REL_ROUGHNESS, i]
                     _, _, s_u, s_p = kc.cell_sources(W[0, i], W[1, i], W[2, i], W[3, i], cf, cb, Rf, Rb,
-                                                    t_mid, D, rg, fr, kl, tw, prn, hs)
+                                                    t_mid, D, rg, fr, ff, kl, tw, prn, hs)
                     rl, ul, pl, yl, rr, ur, pr, yr = kc.predict(
                         W[0, i], W[1, i], W[2, i], W[3, i], W[5, i], S[0, i], S[1, i], S[2, i], S[3, i],
                         G[b, G_AREA_SLOPE, i], s_u, s_p, hdt, dx)
@@ -228,7 +230,7 @@ if COMPILED:
                     yh = 0.5 * (L[3, i] + R[3, i])
                     s_mom, s_E, _, _ = kc.cell_sources(rh, uh, ph, yh, cf, cb, Rf, Rb, t_mid,
                                                       G[b, G_DIAMETER, i], G[b, G_REL_ROUGHNESS, i],
-                                                      fr, kl, tw, prn, hs)
+                                                      fr, ff, kl, tw, prn, hs)
                     Vi = G[b, G_VOLUME, i]
                     Q[b, MASS, i] -= dt * (F[0, i + 1] - F[0, i])
                     Q[b, MOMENTUM, i] -= dt * (F[1, i + 1] - F[1, i] - ph * (Af[b, i + 1] - Af[b, i])
