@@ -190,3 +190,46 @@ def test_bad_inputs_raise_one_line_errors():
         p.set_state(-1.0, 300.0)
     with pytest.raises(ConfigError, match="burned_fraction"):
         pipes.set_end(pipes.closed_ends(1), 0, 1e-4, 1e5, 300.0, burned_fraction=2.0)
+
+
+def test_junction_transmits_a_linear_wave_with_the_acoustic_coefficient():
+    # a constant-pressure junction in the acoustic limit: pressure transmission 2 A1 / (A1 + A2 + A3)
+    # (Kinsler et al. 2000, Fundamentals of Acoustics, sec. 10.x on branched pipes; from memory)
+    from cyclesim.pipes.junction import junction_fluxes
+
+    gas = pipes.constant_gamma(GAMMA, R_AIR)
+    p0, T0, d = 1e5, 300.0, 1e-5
+    rho0 = p0 / (R_AIR * T0)
+    c0 = np.sqrt(GAMMA * p0 / rho0)
+    area = np.array([[1.0e-3, 0.5e-3, 2.0e-3]])
+    p = np.array([[p0 * (1 + d), p0, p0]])
+    rho = rho0 * (p / p0) ** (1 / GAMMA)
+    v = np.array([[d * p0 / (rho0 * c0), 0.0, 0.0]])            # a simple wave running into the junction
+    # the incident wave alone would meet a closed end at p0 (1 + 2d); the junction passes a share
+    out = junction_fluxes(rho, v, p, np.zeros((1, 3)), area, gas.coef, gas.R, gas.t_mid_K)
+    rise = (out["pressure_pa"][0] - p0) / (p0 * d)
+    assert rise == pytest.approx(2 * area[0, 0] / area.sum(), rel=1e-3)
+    for key in ("mass_kg_s", "energy_W", "burned_kg_s"):
+        tot = out[key].sum()
+        assert abs(tot) <= 1e-12 * np.abs(out[key]).sum()
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.integers(0, 10_000))
+def test_junction_balances_mass_energy_and_burned_gas(seed):
+    from cyclesim.pipes.junction import junction_fluxes
+
+    rng = np.random.default_rng(seed)
+    B, K = 4, int(rng.integers(2, 5))
+    gas = pipes.fuel_mixture(__import__("cyclesim.fuels", fromlist=["x"]).get_fuel("isooctane"),
+                             rng.uniform(0.8, 1.2, B))
+    p = rng.uniform(0.8e5, 2.5e5, (B, K))
+    T = rng.uniform(300, 1100, (B, K))
+    Y = rng.uniform(0, 1, (B, K))
+    R = (1 - Y) * gas.R[:, :1] + Y * gas.R[:, 1:]
+    out = junction_fluxes(p / (R * T), rng.uniform(-150, 150, (B, K)), p, Y, rng.uniform(2e-4, 2e-3, (B, K)),
+                          gas.coef, gas.R, gas.t_mid_K)
+    assert np.all(np.isfinite(out["pressure_pa"])) and np.all(out["pressure_pa"] > 0)
+    for key in ("mass_kg_s", "energy_W", "burned_kg_s"):
+        assert np.all(np.abs(out[key].sum(1)) <= 1e-12 * np.abs(out[key]).sum(1) + 1e-300), key
+    assert np.all(np.abs(out["velocity_m_s"]) < 1500)
