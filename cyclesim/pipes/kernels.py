@@ -234,18 +234,17 @@ def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_
     p_v0 = p_i * (c_zero / c_i) ** inv_k
     lo = np.log(p_lo)
     hi = np.log(np.maximum(np.maximum(p_v0, p_r), 1.000001 * p_lo))
+    args = (rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
     for _ in range(n_iter):
         mid = 0.5 * (lo + hi)
-        resid, _, _ = _end_branch(np.exp(mid), rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area,
-                                  p_r, T_r, R_r, g_r, cp_r, k_entry)
+        resid, _, _ = _end_branch(np.exp(mid), *args)
         pos = resid > 0.0                          # residual falls with pressure
         lo = where(pos, mid, lo)
         hi = where(pos, hi, mid)
     p_b = np.exp(0.5 * (lo + hi))
     closed = cda <= 0.0
     p_b = where(closed, p_v0, p_b)
-    _, rho_b, v_b = _end_branch(p_b, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area,
-                                p_r, T_r, R_r, g_r, cp_r, k_entry)
+    _, rho_b, v_b = _end_branch(p_b, *args)
     rho_b = where(closed, rho_i * (p_b / p_i) ** (1.0 / gm), rho_b)
     v_b = where(closed, 0.0 * v_b, v_b)
     return rho_b, v_b, p_b

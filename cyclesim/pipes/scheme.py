@@ -212,9 +212,11 @@ if COMPILED:
                     else:
                         side, j, face = 1.0, N - 1, N
                         rj, uj, pj, yj, cj = R[0, j], R[1, j], R[2, j], R[3, j], cr[j]
+                    # a closed end needs no pressure iteration (its state is exact without)
+                    n_it = n_iter if E[b, end, E_CDA] > 0.0 else 0
                     f0, f1, f2, f3 = kc.end_flux(rj, uj, pj, yj, cj * cj * rj / pj, side, Af[b, face],
                                                 E[b, end, E_CDA], E[b, end, E_P], E[b, end, E_T],
-                                                E[b, end, E_Y], E[b, end, E_K], cf, cb, Rf, Rb, t_mid, n_iter)
+                                                E[b, end, E_Y], E[b, end, E_K], cf, cb, Rf, Rb, t_mid, n_it)
                     F[0, face] = f0
                     F[1, face] = f1
                     F[2, face] = f2
