@@ -121,15 +121,17 @@ def fanning_factor(reynolds, rel_roughness):
 
 
 @jit
-def wall_sources(rho, u, T, cp, diameter, rel_roughness, friction_scale, fixed_fanning, loss_per_length,
-                 wall_T, prandtl, heat_scale):
-    """Wall force and wall heat per unit volume: momentum [N/m^3] and energy [W/m^3] sources.
+def wall_coefficients(rho, u, T, cp, diameter, rel_roughness, friction_scale, fixed_fanning, loss_per_length,
+                      prandtl, heat_scale):
+    """Coefficients of the wall force and wall heat per unit volume at a state.
 
+    Returns ``k_f`` [1/m] and ``h_v`` [W/(m^3 K)]: the momentum source is
+    ``-k_f rho u |u|`` [N/m^3] and the energy source ``h_v (T_wall - T)`` [W/m^3].
     Wall shear ``tau = f rho u |u| / 2`` on the perimeter ``pi D`` of the section
-    ``pi D^2/4`` gives ``-2 f rho u |u| / D``; a distributed loss (bends) of
-    ``loss_per_length`` = K / L [1/m] adds ``-K/(2L) rho u |u|``.  Heat by the
+    ``pi D^2/4`` gives ``k_f = 2 f / D``; a distributed loss (bends) of
+    ``loss_per_length`` = K / L [1/m] adds ``K/(2L)``.  Heat by the
     Reynolds-Colburn analogy, ``St Pr^(2/3) = f/2`` (Colburn 1933; Incropera et al.
-    2007, eq. 8.66), ``q = St rho |u| cp (4/D) (T_wall - T)``.  ``friction_scale``
+    2007, eq. 8.66), ``h_v = St rho |u| cp (4/D)``.  ``friction_scale``
     multiplies f (0: inviscid), ``heat_scale`` multiplies the heat (0: adiabatic);
     ``fixed_fanning`` > 0 replaces f(Re) by that constant (the Fanno reference case).
     """
@@ -137,11 +139,10 @@ def wall_sources(rho, u, T, cp, diameter, rel_roughness, friction_scale, fixed_f
     mu = sutherland_viscosity(T)
     f_re = fanning_factor(rho * au * diameter / mu, rel_roughness)
     f = friction_scale * where(fixed_fanning > 0.0, fixed_fanning + 0.0 * f_re, f_re)
-    s_mom = -(2.0 * f / diameter + 0.5 * loss_per_length) * rho * u * au
+    k_f = 2.0 * f / diameter + 0.5 * loss_per_length
     # f rho |u| stays finite as u -> 0 (laminar: 16 mu / D)
     st_flux = 0.5 * np.maximum(f * rho * au, friction_scale * 16.0 * mu / diameter) * prandtl ** (-2.0 / 3.0)
-    s_E = heat_scale * st_flux * cp * (4.0 / diameter) * (wall_T - T)
-    return s_mom, s_E
+    return k_f, heat_scale * st_flux * cp * (4.0 / diameter)
 
 
 @jit
@@ -220,7 +221,8 @@ def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_
     or not.  The boundary pressure solves the mass balance by ``n_iter``
     bisections in ln p between the pipe end's sonic state and the larger of the
     reservoir and the stagnation pressures; a pipe end that cannot pass what the
-    nozzle takes stays at its sonic state.  ``cda = 0`` is a closed end (zero
+    nozzle takes stays at its sonic state, and inflow is at most sonic at the
+    pipe end (``v >= -sqrt(2 g R T_r / (g + 1))``).  ``cda = 0`` is a closed end (zero
     velocity exactly).  An open end is ``cda`` equal to the pipe's area.
     """
     gm = g_i
@@ -232,8 +234,11 @@ def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_
     c_zero = np.maximum(0.5 * lam * (gm - 1.0), 1e-3 * c_i)
     p_lo = p_i * (c_star / c_i) ** inv_k
     p_v0 = p_i * (c_zero / c_i) ** inv_k
+    # inflow is at most sonic at the pipe end: v >= -c*, c* = sqrt(2 g R T_r / (g + 1))
+    c_in = np.sqrt(2.0 * g_r * R_r * T_r / (g_r + 1.0))
+    p_cap = p_i * (np.maximum(0.5 * (lam + c_in) * (gm - 1.0), 1e-3 * c_i) / c_i) ** inv_k
     lo = np.log(p_lo)
-    hi = np.log(np.maximum(np.maximum(p_v0, p_r), 1.000001 * p_lo))
+    hi = np.log(np.maximum(np.minimum(np.maximum(p_v0, p_r), np.maximum(p_cap, p_v0)), 1.000001 * p_lo))
     args = (rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
     for _ in range(n_iter):
         mid = 0.5 * (lo + hi)
@@ -297,14 +302,22 @@ def predict(rho, u, p, Y, g, dr, du, dp, dY, ax, s_u, s_p, half_dt, dx):
 @jit
 def cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, diameter, rel_roughness, friction_scale,
                  fixed_fanning, loss_per_length, wall_T, prandtl, heat_scale):
-    """Wall sources of a primitive state: momentum [N/m^3], energy [W/m^3], velocity [m/s^2], pressure [Pa/s]."""
+    """Wall coefficients of a state (see :func:`wall_coefficients`) and its sources of velocity [m/s^2]
+    and pressure [Pa/s] for the half step."""
     R = mixture_R(Y, Rf, Rb)
     T = p / (rho * R)
     _, cv = energy(T, Y, cf, cb, t_mid)
-    s_mom, s_E = wall_sources(rho, u, T, cv + R, diameter, rel_roughness, friction_scale,
-                             fixed_fanning, loss_per_length, wall_T, prandtl, heat_scale)
+    k_f, h_v = wall_coefficients(rho, u, T, cv + R, diameter, rel_roughness, friction_scale,
+                                 fixed_fanning, loss_per_length, prandtl, heat_scale)
+    s_mom, s_E = wall_sources(k_f, h_v, rho, u, p, Y, Rf, Rb, wall_T)
     # friction turns kinetic into internal energy: dp/dt = (gamma-1) (q - u f)
-    return s_mom, s_E, s_mom / rho, R / cv * (s_E - u * s_mom)
+    return k_f, h_v, s_mom / rho, R / cv * (s_E - u * s_mom)
+
+
+@jit
+def wall_sources(k_f, h_v, rho, u, p, Y, Rf, Rb, wall_T):
+    """Momentum [N/m^3] and energy [W/m^3] sources of a state with given wall coefficients."""
+    return -k_f * rho * u * np.abs(u), h_v * (wall_T - p / (rho * mixture_R(Y, Rf, Rb)))
 
 
 @jit
