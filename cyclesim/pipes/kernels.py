@@ -121,17 +121,15 @@ def fanning_factor(reynolds, rel_roughness):
 
 
 @jit
-def wall_coefficients(rho, u, T, cp, diameter, rel_roughness, friction_scale, fixed_fanning, loss_per_length,
-                      prandtl, heat_scale):
-    """Coefficients of the wall force and wall heat per unit volume at a state.
+def wall_sources(rho, u, T, cp, diameter, rel_roughness, friction_scale, fixed_fanning, loss_per_length,
+                 wall_T, prandtl, heat_scale):
+    """Wall force and wall heat per unit volume: momentum [N/m^3] and energy [W/m^3] sources.
 
-    Returns ``k_f`` [1/m] and ``h_v`` [W/(m^3 K)]: the momentum source is
-    ``-k_f rho u |u|`` [N/m^3] and the energy source ``h_v (T_wall - T)`` [W/m^3].
     Wall shear ``tau = f rho u |u| / 2`` on the perimeter ``pi D`` of the section
-    ``pi D^2/4`` gives ``k_f = 2 f / D``; a distributed loss (bends) of
-    ``loss_per_length`` = K / L [1/m] adds ``K/(2L)``.  Heat by the
+    ``pi D^2/4`` gives ``-2 f rho u |u| / D``; a distributed loss (bends) of
+    ``loss_per_length`` = K / L [1/m] adds ``-K/(2L) rho u |u|``.  Heat by the
     Reynolds-Colburn analogy, ``St Pr^(2/3) = f/2`` (Colburn 1933; Incropera et al.
-    2007, eq. 8.66), ``h_v = St rho |u| cp (4/D)``.  ``friction_scale``
+    2007, eq. 8.66), ``q = St rho |u| cp (4/D) (T_wall - T)``.  ``friction_scale``
     multiplies f (0: inviscid), ``heat_scale`` multiplies the heat (0: adiabatic);
     ``fixed_fanning`` > 0 replaces f(Re) by that constant (the Fanno reference case).
     """
@@ -139,10 +137,11 @@ def wall_coefficients(rho, u, T, cp, diameter, rel_roughness, friction_scale, fi
     mu = sutherland_viscosity(T)
     f_re = fanning_factor(rho * au * diameter / mu, rel_roughness)
     f = friction_scale * where(fixed_fanning > 0.0, fixed_fanning + 0.0 * f_re, f_re)
-    k_f = 2.0 * f / diameter + 0.5 * loss_per_length
+    s_mom = -(2.0 * f / diameter + 0.5 * loss_per_length) * rho * u * au
     # f rho |u| stays finite as u -> 0 (laminar: 16 mu / D)
     st_flux = 0.5 * np.maximum(f * rho * au, friction_scale * 16.0 * mu / diameter) * prandtl ** (-2.0 / 3.0)
-    return k_f, heat_scale * st_flux * cp * (4.0 / diameter)
+    s_E = heat_scale * st_flux * cp * (4.0 / diameter) * (wall_T - T)
+    return s_mom, s_E
 
 
 @jit
@@ -302,22 +301,14 @@ def predict(rho, u, p, Y, g, dr, du, dp, dY, ax, s_u, s_p, half_dt, dx):
 @jit
 def cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, diameter, rel_roughness, friction_scale,
                  fixed_fanning, loss_per_length, wall_T, prandtl, heat_scale):
-    """Wall coefficients of a state (see :func:`wall_coefficients`) and its sources of velocity [m/s^2]
-    and pressure [Pa/s] for the half step."""
+    """Wall sources of a primitive state: momentum [N/m^3], energy [W/m^3], velocity [m/s^2], pressure [Pa/s]."""
     R = mixture_R(Y, Rf, Rb)
     T = p / (rho * R)
     _, cv = energy(T, Y, cf, cb, t_mid)
-    k_f, h_v = wall_coefficients(rho, u, T, cv + R, diameter, rel_roughness, friction_scale,
-                                 fixed_fanning, loss_per_length, prandtl, heat_scale)
-    s_mom, s_E = wall_sources(k_f, h_v, rho, u, p, Y, Rf, Rb, wall_T)
+    s_mom, s_E = wall_sources(rho, u, T, cv + R, diameter, rel_roughness, friction_scale,
+                             fixed_fanning, loss_per_length, wall_T, prandtl, heat_scale)
     # friction turns kinetic into internal energy: dp/dt = (gamma-1) (q - u f)
-    return k_f, h_v, s_mom / rho, R / cv * (s_E - u * s_mom)
-
-
-@jit
-def wall_sources(k_f, h_v, rho, u, p, Y, Rf, Rb, wall_T):
-    """Momentum [N/m^3] and energy [W/m^3] sources of a state with given wall coefficients."""
-    return -k_f * rho * u * np.abs(u), h_v * (wall_T - p / (rho * mixture_R(Y, Rf, Rb)))
+    return s_mom, s_E, s_mom / rho, R / cv * (s_E - u * s_mom)
 
 
 @jit

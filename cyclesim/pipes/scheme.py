@@ -79,7 +79,7 @@ def _advance_numpy(Q, G, Af, P, E, C, t_mid, n_newton, n_iter, duration, max_ste
             s[:, 0] = k.limited_slope(d[:, 0], d[:, 1])              # end cells: the stencil shifted inwards
             s[:, -1] = k.limited_slope(d[:, -1], d[:, -2])
             slopes.append(s)
-        k_f, h_v, s_u, s_p = k.cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, D, rough, *wall)
+        _, _, s_u, s_p = k.cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, D, rough, *wall)
         hdt = col(0.5 * dt)
         rl, ul, pl, yl, rr, ur, pr, yr = k.predict(rho, u, p, Y, g, *slopes, ax, s_u, s_p, hdt, dx)
         El, cl = k.total_energy(rl, ul, pl, yl, cf, cb, Rf, Rb, t_mid)
@@ -104,7 +104,7 @@ def _advance_numpy(Q, G, Af, P, E, C, t_mid, n_newton, n_iter, duration, max_ste
             acc[:, end, F_ENERGY] += sgn * dt * ef[2]
             acc[:, end, F_BURNED] += sgn * dt * ef[3]
         rh, uh, ph, yh = 0.5 * (rl + rr), 0.5 * (ul + ur), 0.5 * (pl + pr), 0.5 * (yl + yr)
-        s_mom, s_E = k.wall_sources(k_f, h_v, rh, uh, ph, yh, Rf, Rb, wall[3])   # coefficients of time n
+        s_mom, s_E, _, _ = k.cell_sources(rh, uh, ph, yh, cf, cb, Rf, Rb, t_mid, D, rough, *wall)
         dtc = col(dt)
         Q[:, MASS] -= dtc * (F[0, :, 1:] - F[0, :, :-1])
         Q[:, MOMENTUM] -= dtc * (F[1, :, 1:] - F[1, :, :-1] - ph * dA - V * s_mom)
@@ -136,8 +136,6 @@ if COMPILED:
         R = np.empty((5, N))
         cl = np.empty(N)
         cr = np.empty(N)
-        KF = np.empty(N)                # wall coefficients of time n, reused at the half step
-        HV = np.empty(N)
         F = np.empty((4, N + 1))
         for b in range(B):
             cf = C[b, 0]
@@ -154,11 +152,17 @@ if COMPILED:
                     return acc, steps, b
                 vmax = 0.0
                 for i in range(N):
-                    prim = kc.primitives(Q[b, MASS, i], Q[b, MOMENTUM, i], Q[b, ENERGY, i], Q[b, BURNED, i],
-                                         G[b, G_VOLUME, i], cf, cb, Rf, Rb, t_mid, n_newton)
-                    for q in range(7):
-                        W[q, i] = prim[q]
-                    vmax = max(vmax, abs(prim[1]) + prim[6])
+                    r_, u_, p_, y_, T_, g_, c_ = kc.primitives(
+                        Q[b, MASS, i], Q[b, MOMENTUM, i], Q[b, ENERGY, i], Q[b, BURNED, i],
+                        G[b, G_VOLUME, i], cf, cb, Rf, Rb, t_mid, n_newton)
+                    W[0, i] = r_
+                    W[1, i] = u_
+                    W[2, i] = p_
+                    W[3, i] = y_
+                    W[4, i] = T_
+                    W[5, i] = g_
+                    W[6, i] = c_
+                    vmax = max(vmax, abs(u_) + c_)
                 dt_cfl = P[b, P_CFL] * dx / vmax
                 rest = T_end - t
                 if dt_cfl >= rest:
@@ -177,17 +181,21 @@ if COMPILED:
                 for i in range(N):
                     D = G[b, G_DIAMETER, i]
                     rg = G[b, G_REL_ROUGHNESS, i]
-                    kf, hv, s_u, s_p = kc.cell_sources(W[0, i], W[1, i], W[2, i], W[3, i], cf, cb,
-                                                       Rf, Rb, t_mid, D, rg, fr, ff, kl, tw, prn, hs)
-                    KF[i] = kf
-                    HV[i] = hv
-                    face = kc.predict(W[0, i], W[1, i], W[2, i], W[3, i], W[5, i], S[0, i], S[1, i], S[2, i],
-                                      S[3, i], G[b, G_AREA_SLOPE, i], s_u, s_p, hdt, dx)
-                    for q in range(4):
-                        L[q, i] = face[q]
-                        R[q, i] = face[q + 4]
-                    L[4, i], cl[i] = kc.total_energy(L[0, i], L[1, i], L[2, i], L[3, i], cf, cb, Rf, Rb, t_mid)
-                    R[4, i], cr[i] = kc.total_energy(R[0, i], R[1, i], R[2, i], R[3, i], cf, cb, Rf, Rb, t_mid)
+                    _, _, s_u, s_p = kc.cell_sources(W[0, i], W[1, i], W[2, i], W[3, i], cf, cb, Rf, Rb,
+                                                    t_mid, D, rg, fr, ff, kl, tw, prn, hs)
+                    rl, ul, pl, yl, rr, ur, pr, yr = kc.predict(
+                        W[0, i], W[1, i], W[2, i], W[3, i], W[5, i], S[0, i], S[1, i], S[2, i], S[3, i],
+                        G[b, G_AREA_SLOPE, i], s_u, s_p, hdt, dx)
+                    L[0, i] = rl
+                    L[1, i] = ul
+                    L[2, i] = pl
+                    L[3, i] = yl
+                    R[0, i] = rr
+                    R[1, i] = ur
+                    R[2, i] = pr
+                    R[3, i] = yr
+                    L[4, i], cl[i] = kc.total_energy(rl, ul, pl, yl, cf, cb, Rf, Rb, t_mid)
+                    R[4, i], cr[i] = kc.total_energy(rr, ur, pr, yr, cf, cb, Rf, Rb, t_mid)
                 for i in range(1, N):
                     f0, f1, f2, f3 = kc.hllc_flux(R[0, i - 1], R[1, i - 1], R[2, i - 1], R[4, i - 1],
                                                  R[3, i - 1], cr[i - 1],
@@ -222,7 +230,9 @@ if COMPILED:
                     uh = 0.5 * (L[1, i] + R[1, i])
                     ph = 0.5 * (L[2, i] + R[2, i])
                     yh = 0.5 * (L[3, i] + R[3, i])
-                    s_mom, s_E = kc.wall_sources(KF[i], HV[i], rh, uh, ph, yh, Rf, Rb, tw)
+                    s_mom, s_E, _, _ = kc.cell_sources(rh, uh, ph, yh, cf, cb, Rf, Rb, t_mid,
+                                                      G[b, G_DIAMETER, i], G[b, G_REL_ROUGHNESS, i],
+                                                      fr, ff, kl, tw, prn, hs)
                     Vi = G[b, G_VOLUME, i]
                     Q[b, MASS, i] -= dt * (F[0, i + 1] - F[0, i])
                     Q[b, MOMENTUM, i] -= dt * (F[1, i + 1] - F[1, i] - ph * (Af[b, i + 1] - Af[b, i])
