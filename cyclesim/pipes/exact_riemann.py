@@ -74,8 +74,6 @@ def sample(left, right, speeds, gamma=1.4):
                 out[:, n] = rho * (ps / p) ** (1.0 / g), us, ps
             else:
                 f = 2.0 / (g + 1.0) + (g - 1.0) / ((g + 1.0) * c) * (uu - s)
-                cf = c * f
                 out[:, n] = rho * f ** (2.0 / (g - 1.0)), sgn * (2.0 / (g + 1.0) * (c + 0.5 * (g - 1.0) * uu + s)), \
                     p * f ** (2.0 * g / (g - 1.0))
-                del cf
     return out
