@@ -51,12 +51,19 @@ def flow_function(pressure_ratio, gamma):
         ``pr^(1/g) sqrt(2g/(g-1) (1 - pr^((g-1)/g)))``, choked
         ``sqrt(g) (2/(g+1))^((g+1)/(2(g-1)))`` (Heywood 1988, App. C).
     """
-    g = np.asarray(gamma, dtype=float)
-    pr = np.clip(np.asarray(pressure_ratio, dtype=float), 0.0, 1.0)
-    pr = np.maximum(pr, critical_pressure_ratio(g))
-    return pr ** (1.0 / g) * np.sqrt(
-        np.maximum(2.0 * g / (g - 1.0) * (1.0 - pr ** ((g - 1.0) / g)), 0.0)
-    )
+    return isentropic_flux(np.asarray(pressure_ratio, dtype=float), np.asarray(gamma, dtype=float))
+
+
+def isentropic_flux(pressure_ratio, gamma):
+    """:func:`flow_function` in plain elementwise arithmetic (scalars or arrays, compiles with numba).
+
+    ``pressure_ratio`` above 1 counts as 1, below the critical ratio as critical (choked).
+    """
+    inv_g = 1.0 / gamma
+    e = 1.0 - inv_g                                  # (g-1)/g
+    crit = (2.0 / (gamma + 1.0)) ** (1.0 / e)
+    pr = np.maximum(np.minimum(pressure_ratio, 1.0), crit)
+    return pr ** inv_g * np.sqrt(np.maximum((2.0 / e) * (1.0 - pr ** e), 0.0))
 
 
 def orifice_mass_flow(cd_area, p1, T1, R1, gamma1, p2, T2, R2, gamma2, dp_lin=DP_LIN_DEFAULT):
@@ -141,12 +148,7 @@ def _outflow(cd_area, p0, T0, R0, g0, pd, dp_lin):
     """Isentropic orifice flow [kg/s] from stagnation ``p0, T0`` to ``pd <= p0`` (arrays)."""
     # relative pressure drop 0..1 (p0 > 0 for every physical state; a zero p0 gives zero flow)
     x = 1.0 - pd / np.maximum(p0, 1e-300)
-    # one evaluation of the isentropic flux at pr = 1 - max(x, dp_lin), choked below critical:
-    # psi = pr^(1/g) sqrt(2g/(g-1) (1 - pr^((g-1)/g))), critical ratio (2/(g+1))^(g/(g-1))
-    inv_g = 1.0 / g0
-    e = 1.0 - inv_g                                  # (g-1)/g
-    crit = (2.0 / (g0 + 1.0)) ** (1.0 / e)
-    pr = np.maximum(1.0 - np.maximum(x, dp_lin), crit)
-    psi = pr ** inv_g * np.sqrt(np.maximum((2.0 / e) * (1.0 - pr ** e), 0.0))
+    # one evaluation of the isentropic flux at pr = 1 - max(x, dp_lin), choked below critical
+    psi = isentropic_flux(1.0 - np.maximum(x, dp_lin), np.asarray(g0, dtype=float))
     psi = psi * np.minimum(x * (1.0 / dp_lin), 1.0)
     return np.asarray(cd_area, dtype=float) * p0 / np.sqrt(R0 * T0) * psi

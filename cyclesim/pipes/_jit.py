@@ -1,0 +1,62 @@
+"""Compilation switch of the pipe kernels: numba where installed, plain numpy otherwise.
+
+Every physics function of :mod:`cyclesim.pipes.kernels` is written once, in
+elementwise arithmetic.  Imported as usual it is the numpy form, called on whole
+(case, cell) arrays; :func:`compiled_kernels` executes the same file a second
+time as a separate module whose functions numba compiles for scalars, called
+cell by cell from the compiled driver.  Without numba, or with
+``CYCLESIM_KERNEL=python`` or ``NUMBA_DISABLE_JIT=1`` set before the import,
+there is no compiled form and the numpy driver runs.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import os
+import sys
+
+
+def _want_compiled() -> bool:
+    if os.environ.get("CYCLESIM_KERNEL", "auto").strip().lower() == "python":
+        return False
+    if os.environ.get("NUMBA_DISABLE_JIT", "0").strip() not in ("", "0"):
+        return False
+    try:
+        import numba  # noqa: F401
+    except Exception:  # noqa: BLE001 - a missing or broken numba: the numpy path
+        return False
+    return True
+
+
+COMPILED = _want_compiled()
+"""True where the kernels are compiled by numba in this process."""
+
+if COMPILED:
+    from numba import njit as _njit
+
+    @_njit(cache=True)
+    def _where(cond, a, b):
+        """``a`` if ``cond`` else ``b`` for scalars (the compiled form of ``np.where``)."""
+        return a if cond else b
+
+_compiled = None
+
+
+def compiled_kernels():
+    """The kernels module compiled by numba (loaded once), or None without numba."""
+    global _compiled
+    if not COMPILED:
+        return None
+    if _compiled is None:
+        from numba import njit
+
+        from . import kernels
+
+        spec = importlib.util.spec_from_file_location("cyclesim.pipes._kernels_compiled", kernels.__file__)
+        mod = importlib.util.module_from_spec(spec)
+        mod.jit = njit(cache=True)
+        mod.where = _where
+        sys.modules[spec.name] = mod            # importable by name: numba's disk cache reloads through it
+        spec.loader.exec_module(mod)
+        _compiled = mod
+    return _compiled
