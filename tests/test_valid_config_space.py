@@ -32,6 +32,7 @@ from hypothesis import strategies as st
 import cyclesim
 from cyclesim.config import CORE_SCHEMA, MULTI_SCHEMA, builtin_configs, effective_step_deg, load_config
 from cyclesim.errors import CyclesimError
+from cyclesim.motoring import COMBUSTION_ONLY_KEYS, MODE_MOTORED, MOTORED_ONLY_KEYS
 from cyclesim.params import Param
 from cyclesim.registry import get_registry
 
@@ -44,11 +45,8 @@ effective step); beyond it a case needs minutes and gigabytes (the bound on such
 tracked with the memory estimate of the run itself)."""
 
 OPEN_ELSEWHERE = {
-    "rich": "operating.lambda below 0.34 (products with solid carbon): tracked with the gas model",
     "budget": f"more than {STEP_BUDGET} steps or output points per cycle (very low speed, very small step):"
               " tracked with the run's memory and step estimate",
-    "motored": "no fuel burns (fuel_cut, combustion_efficiency 0, burn model none):"
-               " tracked with the motored figures",
     "exhaust_T": "exhaust_temperature_K is NaN where the net exhaust outflow's mean enthalpy is no gas state"
                  " within 250-4000 K (heavy exhaust backflow; cyclesim.figures): tracked with the figures",
 }
@@ -155,8 +153,6 @@ def drawn_config(draw):
 def _corner(case) -> str | None:
     """Which of :data:`OPEN_ELSEWHERE` the case falls in, if any."""
     sim, op = case.simulation, case.operating
-    if op.__dict__["lambda"] < 0.34:
-        return "rich"
     try:
         if sim.mode == "full" and 720.0 / effective_step_deg(sim, op.speed_rpm) > STEP_BUDGET:
             return "budget"
@@ -166,14 +162,15 @@ def _corner(case) -> str | None:
         return "budget"
     if sim.output_step_deg > 0 and 720.0 / sim.output_step_deg > STEP_BUDGET:
         return "budget"                   # the output grid alone
-    burn = case.submodels["burn"]
-    if op.fuel_cut or burn.model == "none" or burn.params.get("combustion_efficiency", 1.0) == 0.0:
-        return "motored"
     return None
 
 
 def _exists(key: str, summary: dict, burn_share: float = 1.0) -> bool:
     """Whether a figure describes something that happened in this case.
+
+    A motored case (``mode`` "motored": no fuel burns) declares the combustion figures null
+    (:data:`cyclesim.motoring.COMBUSTION_ONLY_KEYS`), a fired one the motored figures
+    (:data:`cyclesim.motoring.MOTORED_ONLY_KEYS`); exactly those keys may be NaN.
 
     The figures at knock onset (``*onset*``) are NaN by definition when the knock integral stayed
     below 1 (no onset: Livengood & Wu 1955, onset where the integral reaches 1).  A burn angle
@@ -181,6 +178,9 @@ def _exists(key: str, summary: dict, burn_share: float = 1.0) -> bool:
     half of it) burned before the exhaust valve opened; ``burn_share`` is the share that burned (the summary's combustion
     efficiency over the burn model's, an upper bound of it: a rich charge releases less still).
     """
+    motored = summary.get("mode") == MODE_MOTORED
+    if key in (COMBUSTION_ONLY_KEYS if motored else MOTORED_ONLY_KEYS):
+        return False
     if "onset" in key:
         return summary.get("knock_integral_max", 0.0) >= 1.0
     m = re.fullmatch(r"ca(\d\d)_deg", key)
@@ -254,11 +254,8 @@ def check_one(base: str, changes: dict) -> str | None:
         _record("case failed with one line")
         return None
     eb = res.summary.get("energy_balance", {})
-    if corner is None and eb.get("fuel_energy_J", 1.0) < 1.0:
-        corner = "motored"                # a charge that carries practically no fuel (< 1 J)
-        if not ALL_CORNERS:
-            _record("not judged here: motored (no fuel trapped)")
-            return None
+    if res.summary.get("mode") == MODE_MOTORED:
+        corner = "motored"                # judged on the motored figures and energy balance
     share = res.summary.get("combustion_efficiency", 1.0) / (case.submodels["burn"].params.get(
         "combustion_efficiency") or 1.0)
     bad = _figures_finite(res.summary, share)
@@ -326,6 +323,17 @@ def test_search_reports_a_nan_it_is_given(monkeypatch):
     assert check_one("demo", {}) == "NaN in ['imep_net_bar']"
     R.summary = {"imep_net_bar": 1.0, "energy_balance": {"closure_fraction": 2e-3, "fuel_energy_J": 1000.0}}
     assert "energy balance misses" in check_one("demo", {})
+    # a motored case may leave null exactly the keys it declares null, a fired one the motored keys
+    nan = float("nan")
+    ok = {"energy_balance": {"closure_fraction": 0.0}, "imep_net_bar": -1.0}
+    R.summary = {**ok, "mode": "motored", **dict.fromkeys(COMBUSTION_ONLY_KEYS, nan)}
+    assert check_one("demo", {}) is None
+    R.summary = {**ok, "mode": "motored", "loss_angle_deg": nan}
+    assert check_one("demo", {}) == "NaN in ['loss_angle_deg']"
+    R.summary = {**ok, "mode": "fired", **dict.fromkeys(MOTORED_ONLY_KEYS, nan)}
+    assert check_one("demo", {}) is None
+    R.summary = {**ok, "mode": "fired", "eta_brake": nan}
+    assert check_one("demo", {}) == "NaN in ['eta_brake']"
     OUTCOMES.clear(), FAILURES.clear()
     OUTCOMES.update(saved[0]), FAILURES.update(saved[1])
 
