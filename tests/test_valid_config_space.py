@@ -268,6 +268,11 @@ def check_one(base: str, changes: dict) -> str | None:
     if bad:
         _record("NaN", f"{bad} [{corner or ''}] {what}")
         return f"NaN in {bad}"
+    eta_c = res.summary.get("combustion_efficiency", float("nan"))
+    if not (eta_c != eta_c or -1e-9 <= eta_c <= 1.0 + 1e-9):
+        # the share of the fuel energy released: within [0, 1] by definition (common practice)
+        _record("combustion efficiency", f"{eta_c:.4g} [{corner or ''}] {what}")
+        return f"combustion efficiency {eta_c:.4g} outside [0, 1]"
     if not closure <= 1e-3:
         _record("energy", f"closure {closure:.2e} [{corner or ''}] {what}")
         return f"energy balance misses by {closure:.3g} of the fuel energy"
@@ -337,6 +342,8 @@ def test_search_reports_a_nan_it_is_given(monkeypatch):
     assert check_one("demo", {}) is None
     R.summary = {**ok, "mode": "fired", "eta_brake": nan}
     assert check_one("demo", {}) == "NaN in ['eta_brake']"
+    R.summary = {**ok, "mode": "fired", "combustion_efficiency": 1.14}
+    assert check_one("demo", {}) == "combustion efficiency 1.14 outside [0, 1]"
     # the exhaust temperature may be null only with the warning that declares it so
     R.summary = {**ok, "mode": "fired", "exhaust_temperature_K": nan}
     assert check_one("demo", {}) == "NaN in ['exhaust_temperature_K']"
