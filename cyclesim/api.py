@@ -213,6 +213,12 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
 
 def _gas_exchange_warnings(s: dict) -> list[str]:
     out = []
+    from .motoring import POLYTROPIC_NULL_WARNING, POLYTROPIC_WINDOWS_DEG
+
+    for w, (a, b) in POLYTROPIC_WINDOWS_DEG.items():
+        if not np.isfinite(s.get(f"polytropic_exponent_{w}", 0.0)):
+            out.append(f"{POLYTROPIC_NULL_WARNING} for {w}: the volume hardly changes over its window"
+                       f" ({a:g}..{b:g} deg, clipped to IVC..EVO), or the window holds less than 5 deg")
     m = s.get("trapped_mass_mg")
     if m and s.get("intake_backflow_mass_mg", 0.0) > 0.25 * m:
         out.append(

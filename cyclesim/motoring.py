@@ -37,6 +37,12 @@ clear of the valve events and of TDC, where wall heat and blowby bend log p - lo
 practice).  A window is clipped to IVC..EVO."""
 
 POLYTROPIC_POINTS_PER_DEG = 4
+
+POLYTROPIC_MIN_LN_V_SPAN = 1e-6
+"""Smallest span of ln V over a window [-] that an exponent is fitted to; below it the
+exponent is NaN with the warning :data:`POLYTROPIC_NULL_WARNING`."""
+
+POLYTROPIC_NULL_WARNING = "polytropic exponent not defined"
 """Points per degree of the interpolated pressure the exponents are fitted to."""
 
 COMBUSTION_ONLY_KEYS = (
@@ -91,7 +97,8 @@ def polytropic_exponents(batch, th, p, dp) -> dict[str, np.ndarray]:
     The least-squares slope of ln p against ln V, -d ln p / d ln V, over the windows of
     :data:`POLYTROPIC_WINDOWS_DEG` (clipped to IVC..EVO), on the Hermite interpolant of the
     pressure at :data:`POLYTROPIC_POINTS_PER_DEG` points per degree.  NaN where a window
-    holds less than 5 degrees of the closed part.
+    holds less than 5 degrees of the closed part, or where ln V spans less than
+    :data:`POLYTROPIC_MIN_LN_V_SPAN` over it (a compression ratio next to 1: no slope to fit).
     """
     B = batch.B
     geo = batch.geometry
@@ -108,7 +115,10 @@ def polytropic_exponents(batch, th, p, dp) -> dict[str, np.ndarray]:
         y = np.log(np.maximum(hermite_grid(th, p, dp, g), 1e-300))
         xc = x - x.mean(axis=1, keepdims=True)
         yc = y - y.mean(axis=1, keepdims=True)
-        out[name] = -(xc * yc).sum(axis=1) / (xc * xc).sum(axis=1)
+        span = x.max(axis=1) - x.min(axis=1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            n = -(xc * yc).sum(axis=1) / (xc * xc).sum(axis=1)
+        out[name] = np.where(span >= POLYTROPIC_MIN_LN_V_SPAN, n, np.nan)
     return out
 
 

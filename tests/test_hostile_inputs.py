@@ -237,14 +237,20 @@ def test_an_interrupt_by_the_user_is_told_from_one_a_plug_in_raised():
 
     from cyclesim.cli import _watch_sigint
 
-    w = _watch_sigint()
+    # a test runner started in the background of a shell without job control inherits SIGINT
+    # ignored; the interactive default (Python's handler) is what the command line meets
+    inherited = signal.signal(signal.SIGINT, signal.default_int_handler)
     try:
-        with pytest.raises(KeyboardInterrupt):
-            signal.raise_signal(signal.SIGINT)
-        assert w.seen
+        w = _watch_sigint()
+        try:
+            with pytest.raises(KeyboardInterrupt):
+                signal.raise_signal(signal.SIGINT)
+            assert w.seen
+        finally:
+            w.restore()
+        assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
     finally:
-        w.restore()
-    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
+        signal.signal(signal.SIGINT, inherited)
     w = _watch_sigint()
     try:
         with pytest.raises(KeyboardInterrupt):
