@@ -23,6 +23,32 @@ WOSCHNI_FORMS = {
 of ``h = C B^-0.2 p^0.8 T^e w^0.8`` [W/(m^2 K)] with B [m], T [K], w [m/s]."""
 
 
+WOSCHNI_C1 = {"open": (6.18, 0.417), "closed": (2.28, 0.308)}
+"""Woschni's (1967) C1 = c + c_s v_s / Sp by phase: gas exchange (``open``) and the closed part
+of the cycle (``closed``); (c, c_s) [-], the swirl terms c_s from memory."""
+
+WOSCHNI_C2 = 3.24e-3
+"""Woschni's (1967) combustion-term constant C2 during combustion and expansion [m/(s K)]."""
+
+
+def woschni_combustion_velocity(c2, Vd, T_r, p_r, V_r, dp):
+    """The combustion term ``C2 Vd T_r / (p_r V_r) dp`` of Woschni's gas velocity [m/s], which is
+    ``w = C1 Sp`` plus this term (Woschni 1967; Heywood 1988, eq. 12.19).
+
+    Parameters
+    ----------
+    c2 : float or ndarray
+        C2 (:data:`WOSCHNI_C2` while burning) [m/(s K)].
+    Vd : float or ndarray
+        Displaced volume [m^3].
+    T_r, p_r, V_r : float or ndarray
+        Reference state (intake valve closing) [K], [Pa], [m^3].
+    dp : float or ndarray
+        Pressure rise over the motored pressure, clamped at 0 by the caller [Pa].
+    """
+    return c2 * Vd * T_r / (p_r * V_r) * dp
+
+
 def woschni_prefactor(bore_m, multiplier=1.0, form: str = "original"):
     """The factor ``multiplier C B^-0.2 (p unit / Pa)^0.8`` of Woschni's coefficient [SI].
 
@@ -140,7 +166,7 @@ class Woschni(WallHeatTransfer):
         _MULTIPLIER,
         Param("swirl_ratio", "-", 0.0, "swirl ratio (swirl speed / engine speed)", min=0.0, max=10.0),
         Param(
-            "c2_m_per_sK", "m/(s K)", 3.24e-3,
+            "c2_m_per_sK", "m/(s K)", WOSCHNI_C2,
             "combustion-term constant C2 during combustion and expansion", min=0.0, max=0.05,
         ),
     )
@@ -157,14 +183,19 @@ class Woschni(WallHeatTransfer):
         g = ctx.geometry
         self._Vd = g.Vd
         vs_over_sp = np.pi * g.bore_m * self.p.swirl_ratio / (2.0 * g.stroke_m)
-        self._c1_open = 6.18 + 0.417 * vs_over_sp
-        self._c1_closed = 2.28 + 0.308 * vs_over_sp
+        (o, o_s), (c, c_s) = WOSCHNI_C1["open"], WOSCHNI_C1["closed"]
+        self._c1_open = o + o_s * vs_over_sp
+        self._c1_closed = c + c_s * vs_over_sp
         self._k = woschni_prefactor(g.bore_m, self.p.multiplier)
 
     def pack(self) -> dict:
         """Parameters of the compiled form ``woschni`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
         return {"k": self._k, "c1_closed": self._c1_closed, "c1_open": self._c1_open,
                 "c2": self.p.c2_m_per_sK, "Vd": self._Vd, "t_exp": WOSCHNI_FORMS["original"][2]}
+
+    C1 = WOSCHNI_C1
+    C2 = WOSCHNI_C2
+    combustion_velocity = staticmethod(woschni_combustion_velocity)
 
     @staticmethod
     def correlation(bore_m, p, T, w, multiplier=1.0, form: str = "original"):
@@ -195,7 +226,7 @@ class Woschni(WallHeatTransfer):
         if firing.any():  # the combustion term only where a case burns
             with np.errstate(invalid="ignore", divide="ignore"):
                 dp = np.maximum(s.p - self.motored_pressure(s), 0.0)
-                comb = self.p.c2_m_per_sK * self._Vd * s.T_ivc / (s.p_ivc * s.V_ivc) * dp
+                comb = woschni_combustion_velocity(self.p.c2_m_per_sK, self._Vd, s.T_ivc, s.p_ivc, s.V_ivc, dp)
             # the IVC state is not yet known in the step that crosses intake closing (a burn
             # that starts before it): no combustion term there
             w = w + np.where(firing & np.isfinite(comb), comb, 0.0)
