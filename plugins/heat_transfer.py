@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from cyclesim.kernel_ops import where
 from cyclesim.params import Param, StateVar
 from cyclesim.roles import GasState, WallHeatTransfer
 
@@ -81,7 +82,30 @@ def woschni_coefficient(k, p, w, T, form: str = "original"):
     form : str
         ``original`` (T^-0.53) or ``heywood`` (T^-0.55).
     """
-    return k * (p * w) ** 0.8 * T ** WOSCHNI_FORMS[form][2]
+    return woschni_h(k, p, w, T, WOSCHNI_FORMS[form][2])
+
+
+def woschni_h(k, p, w, T, t_exp):
+    """:func:`woschni_coefficient` with the form's temperature exponent ``t_exp`` given (a kernel helper)."""
+    return k * (p * w) ** 0.8 * T ** t_exp
+
+
+def woschni_motored_pressure(p_ivc, V_ivc, V, T_mot, T_ivc):
+    """Pressure of the charge motored from IVC, ``p_ivc (V_ivc / V) (T_mot / T_ivc)`` [Pa]."""
+    return p_ivc * (V_ivc / V) * (T_mot / T_ivc)
+
+
+def woschni_kernel(p, T, V, Sp, closed, burning, p_ivc, T_ivc, V_ivc, T_mot, k, c1_closed, c1_open, c2, Vd,
+                   t_exp):
+    """Woschni's coefficient [W/(m^2 K)] in the cycle: the kernel of :class:`Woschni` (arrays on the
+    Python path, floats in the compiled loop).  ``T_mot`` is the model's integrated motored
+    temperature [K]; the combustion term counts only while the cylinder is closed and burning,
+    and not where the IVC state is not yet known (the step that crosses intake closing)."""
+    w = where(closed, c1_closed, c1_open) * Sp
+    dp = np.maximum(p - woschni_motored_pressure(p_ivc, V_ivc, V, T_mot, T_ivc), 0.0)
+    comb = woschni_combustion_velocity(c2, Vd, T_ivc, p_ivc, V_ivc, dp)
+    w = w + where(closed & burning & np.isfinite(comb), comb, 0.0)
+    return woschni_h(k, p, w, T, t_exp)
 
 
 def hohenberg_kernel(V, p, T, Sp, multiplier):
@@ -161,7 +185,7 @@ class Woschni(WallHeatTransfer):
 
     name = "woschni"
     summary = "Woschni 1967 (original form, T^-0.53), phase-dependent C1/C2, motored pressure integrated"
-    compiled_form = "woschni"
+    kernel = woschni_kernel
     params = (
         _MULTIPLIER,
         Param("swirl_ratio", "-", 0.0, "swirl ratio (swirl speed / engine speed)", min=0.0, max=10.0),
@@ -189,7 +213,7 @@ class Woschni(WallHeatTransfer):
         self._k = woschni_prefactor(g.bore_m, self.p.multiplier)
 
     def pack(self) -> dict:
-        """Parameters of the compiled form ``woschni`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        """The kernel's parameters (:func:`woschni_kernel`) by name."""
         return {"k": self._k, "c1_closed": self._c1_closed, "c1_open": self._c1_open,
                 "c2": self.p.c2_m_per_sK, "Vd": self._Vd, "t_exp": WOSCHNI_FORMS["original"][2]}
 
@@ -218,20 +242,7 @@ class Woschni(WallHeatTransfer):
     def motored_pressure(self, s: GasState) -> np.ndarray:
         """Pressure of the same charge motored from IVC [Pa] (B,)."""
         T_mot = s.sub[f"{self.role}.{self.STATE}"]
-        return s.p_ivc * (s.V_ivc / s.V) * (T_mot / s.T_ivc)
-
-    def coefficient(self, s: GasState) -> np.ndarray:
-        w = np.where(s.closed, self._c1_closed, self._c1_open) * s.Sp
-        firing = np.logical_and(s.closed, s.burning)
-        if firing.any():  # the combustion term only where a case burns
-            with np.errstate(invalid="ignore", divide="ignore"):
-                dp = np.maximum(s.p - self.motored_pressure(s), 0.0)
-                comb = woschni_combustion_velocity(self.p.c2_m_per_sK, self._Vd, s.T_ivc, s.p_ivc, s.V_ivc, dp)
-            # the IVC state is not yet known in the step that crosses intake closing (a burn
-            # that starts before it): no combustion term there
-            w = w + np.where(firing & np.isfinite(comb), comb, 0.0)
-        # p^0.8 w^0.8 = (p w)^0.8 with p in bar
-        return woschni_coefficient(self._k, s.p, w, s.T)
+        return woschni_motored_pressure(s.p_ivc, s.V_ivc, s.V, T_mot, s.T_ivc)
 
 
 class Hohenberg(WallHeatTransfer):
