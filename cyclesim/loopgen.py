@@ -104,7 +104,8 @@ def kernel_params(fn, packed, role: str = "") -> tuple[str, ...]:
 def call_on(fn, state, packed, role: str = ""):
     """The kernel on the Python path: parameters from ``packed`` (the model's ``pack()``),
     the role's own states from ``state.sub``, the other arguments from ``state`` (a GasState)."""
-    return fn(*[packed[a] if a in packed else state.sub[f"{role}.{a}"] if f"{role}.{a}" in state.sub
+    sub = getattr(state, "sub", None) or {}
+    return fn(*[packed[a] if a in packed else sub[f"{role}.{a}"] if f"{role}.{a}" in sub
                 else getattr(state, a) for a in kernel_args(fn)])
 
 
