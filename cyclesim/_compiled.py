@@ -41,7 +41,6 @@ FORMS = {
     "heat_transfer": {
         "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
         "none": (),
-        "woschni": ("k", "c1_closed", "c1_open", "c2", "Vd", "t_exp"),
         "annand": ("multiplier", "a", "b", "radiation_factor", "prandtl_number", "bore"),
     },
     "blowby": {"none": (), "orifice": ("cda", "p_cc")},
@@ -53,10 +52,10 @@ CODES = {role: {name: k for k, name in enumerate(forms)} for role, forms in FORM
 """Integer code of each compiled form within its role (the loop branches on it)."""
 STATES = (("heat_transfer", "T_mot"), ("knock", "I"))
 """Submodel state components the loop integrates, by (role, name): the motored temperature of
-the Woschni form and the Livengood-Wu integral."""
+a heat-transfer model (Woschni's kernel takes it by name) and the Livengood-Wu integral."""
 
 BURN_NONE, BURN_FLAME, BURN_KERNEL = (CODES["burn"][k] for k in ("none", "wiebe_flame", "kernel"))
-HT_NONE, HT_WOSCHNI, HT_ANNAND, HT_KERNEL = (CODES["heat_transfer"][k] for k in ("none", "woschni", "annand", "kernel"))
+HT_NONE, HT_ANNAND, HT_KERNEL = (CODES["heat_transfer"][k] for k in ("none", "annand", "kernel"))
 BB_NONE, BB_ORIFICE = (CODES["blowby"][k] for k in ("none", "orifice"))
 KN_NONE, KN_LW = (CODES["knock"][k] for k in ("none", "livengood_wu"))
 
@@ -74,7 +73,6 @@ PARAM_ROWS = param_rows(FORMS, ("burn", "heat_transfer", "blowby", "knock"))
 (F_SPARK, F_DELAY, F_DUR, F_A, F_M, F_EFF, F_KD, F_SD, F_KB, F_SB, F_VISC, F_PHI, F_V_SPARK,
  F_SPEED_RATIO, F_G_REF, F_PHI_M, F_B_M, F_B_PHI, F_DILUTION, F_T0, F_ATM, F_VISC_EXP, F_V_TDC,
  F_G_REF_DUR) = PARAM_ROWS["burn", "wiebe_flame"].values()
-H_K, H_C1_CLOSED, H_C1_OPEN, H_C2, H_VD, H_T_EXP = PARAM_ROWS["heat_transfer", "woschni"].values()
 H_MULT, H_ANNAND_A, H_ANNAND_B, H_RAD, H_PRANDTL, H_BORE = PARAM_ROWS["heat_transfer", "annand"].values()
 B_CDA, B_P_CC = PARAM_ROWS["blowby", "orifice"].values()
 K_PRE, K_ACT, K_X_MAX, K_ATM, K_P_EXP = PARAM_ROWS["knock", "livengood_wu"].values()
@@ -303,21 +301,7 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     hc = IC[IC_HT]
     Qw = 0.0
     i_tmot = IC[IC_TMOT]
-    if hc == HT_WOSCHNI:
-        w = (CB[R_P + H_C1_CLOSED, b] if closed else CB[R_P + H_C1_OPEN, b]) * sp
-        if closed and burning:
-            T_mot = yv[i_tmot]
-            pmot = CB[R_IVC_P, b] * (CB[R_IVC_V, b] / V) * (T_mot / CB[R_IVC_T, b])
-            dp = p - pmot
-            if dp < 0.0:
-                dp = 0.0
-            comb = CB[R_P + H_C2, b] * CB[R_P + H_VD, b] * CB[R_IVC_T, b] / (CB[R_IVC_P, b] * CB[R_IVC_V, b]) * dp
-            if math.isfinite(comb):     # not yet known in the step that crosses intake closing
-                w = w + comb
-        # heat_transfer.woschni_coefficient (its form's temperature exponent packed)
-        hcoef = CB[R_P + H_K, b] * (p * w) ** 0.8 * T ** CB[R_P + H_T_EXP, b]
-        Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
-    elif hc == HT_KERNEL:
+    if hc == HT_KERNEL:
         hcoef = heat_transfer_kernel(T)  # KERNEL CALL heat_transfer
         Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
     elif hc == HT_ANNAND:

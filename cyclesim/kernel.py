@@ -11,7 +11,7 @@ role              built-ins with a compiled form
 ================  ==========================================================
 burn              ``wiebe``, ``wiebe_ca50``, ``wiebe_table``, ``double_wiebe``, ``wiebe_flame``,
                   ``none``
-heat_transfer     ``woschni``, ``hohenberg``, ``annand``, ``none``
+heat_transfer     ``woschni``, ``hohenberg`` (kernels), ``annand``, ``none``
 blowby            ``orifice``, ``none``
 valve_flow        ``poppet``, ``none``
 boundary          ``constant``, ``manifold_trace`` (closed cycles: any)

@@ -80,21 +80,33 @@ def _kernel_args(fn) -> tuple[str, ...]:
     return tuple(out)
 
 
-def kernel_params(fn, packed) -> tuple[str, ...]:
+def own_states(role: str) -> tuple[str, ...]:
+    """Submodel state components of ``role`` that the compiled loop integrates
+    (:data:`cyclesim._compiled.STATES`): a kernel of that role may take them by name."""
+    from ._compiled import STATES
+
+    return tuple(name for r, name in STATES if r == role)
+
+
+def kernel_params(fn, packed, role: str = "") -> tuple[str, ...]:
     """The kernel's arguments that are packed parameters (named in ``packed``, the model's
-    ``pack()``); every other argument must be a cylinder-state name (:data:`STATE_ARGS`)."""
+    ``pack()``); every other argument must be a cylinder-state name (:data:`STATE_ARGS`) or
+    one of its role's integrated states (:func:`own_states`)."""
     args = kernel_args(fn)
-    unknown = [a for a in args if a not in packed and a not in STATE_ARGS]
+    known = set(STATE_ARGS) | set(own_states(role) if role else ())
+    unknown = [a for a in args if a not in packed and a not in known]
     if unknown:
         raise LoopGenError(f"kernel {fn.__name__}: argument(s) {', '.join(unknown)} are neither given by pack()"
                            f" nor a state field ({', '.join(STATE_ARGS)})")
     return tuple(a for a in args if a in packed)
 
 
-def call_on(fn, state, packed):
+def call_on(fn, state, packed, role: str = ""):
     """The kernel on the Python path: parameters from ``packed`` (the model's ``pack()``),
-    the other arguments from ``state`` (a GasState)."""
-    return fn(*[packed[a] if a in packed else getattr(state, a) for a in kernel_args(fn)])
+    the role's own states from ``state.sub``, the other arguments from ``state`` (a GasState)."""
+    sub = getattr(state, "sub", None) or {}
+    return fn(*[packed[a] if a in packed else sub[f"{role}.{a}"] if f"{role}.{a}" in sub
+                else getattr(state, a) for a in kernel_args(fn)])
 
 
 def _source(fn) -> str:
@@ -157,16 +169,23 @@ def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
 
 
 def _call(role: str, fn, rows: dict[str, int], target: str) -> str:
+    from ._compiled import IC_ROWS
+
     args = []
     for a in kernel_args(fn):
-        args.append(f"CB[R_P + {rows[a]}, b]" if a in rows else STATE_ARGS[a])
+        if a in rows:
+            args.append(f"CB[R_P + {rows[a]}, b]")
+        elif a in own_states(role):
+            args.append(f"yv[IC[{IC_ROWS[f'{role}.{a}']}]]")     # the state's row, set per batch
+        else:
+            args.append(STATE_ARGS[a])
     return f"{target}({', '.join(args)})"
 
 
 def param_rows_for(role: str, fn, packed, forms_rows: dict) -> dict[str, int]:
     """Row offsets (from R_P) of the kernel's packed parameters: the role's kernel slots in order."""
     slots = list(forms_rows[role, "kernel"].values())
-    names = kernel_params(fn, packed)
+    names = kernel_params(fn, packed, role)
     if len(names) > len(slots):
         raise LoopGenError(f"kernel {fn.__name__}: {len(names)} parameters, at most {len(slots)} compile")
     return {n: slots[k] for k, n in enumerate(names)}

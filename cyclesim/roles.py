@@ -167,7 +167,8 @@ def _kernel_call(model, s: GasState):
     packed = model.__dict__.get("_packed_kernel")
     if packed is None:
         packed = model.__dict__["_packed_kernel"] = dict(model.pack())
-    return call_on(fn, s, packed)
+    with np.errstate(invalid="ignore", divide="ignore"):   # a kernel is branch-free: masked values may be NaN
+        return call_on(fn, s, packed, model.role)
 
 
 class Submodel:

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from cyclesim.kernel_ops import where
 from cyclesim.params import Param, StateVar
 from cyclesim.roles import GasState, WallHeatTransfer
 
@@ -21,6 +22,32 @@ WOSCHNI_FORMS = {
 }
 """Published forms of Woschni's coefficient: (constant, bar or kPa per Pa, temperature exponent)
 of ``h = C B^-0.2 p^0.8 T^e w^0.8`` [W/(m^2 K)] with B [m], T [K], w [m/s]."""
+
+
+WOSCHNI_C1 = {"open": (6.18, 0.417), "closed": (2.28, 0.308)}
+"""Woschni's (1967) C1 = c + c_s v_s / Sp by phase: gas exchange (``open``) and the closed part
+of the cycle (``closed``); (c, c_s) [-], the swirl terms c_s from memory."""
+
+WOSCHNI_C2 = 3.24e-3
+"""Woschni's (1967) combustion-term constant C2 during combustion and expansion [m/(s K)]."""
+
+
+def woschni_combustion_velocity(c2, Vd, T_r, p_r, V_r, dp):
+    """The combustion term ``C2 Vd T_r / (p_r V_r) dp`` of Woschni's gas velocity [m/s], which is
+    ``w = C1 Sp`` plus this term (Woschni 1967; Heywood 1988, eq. 12.19).
+
+    Parameters
+    ----------
+    c2 : float or ndarray
+        C2 (:data:`WOSCHNI_C2` while burning) [m/(s K)].
+    Vd : float or ndarray
+        Displaced volume [m^3].
+    T_r, p_r, V_r : float or ndarray
+        Reference state (intake valve closing) [K], [Pa], [m^3].
+    dp : float or ndarray
+        Pressure rise over the motored pressure, clamped at 0 by the caller [Pa].
+    """
+    return c2 * Vd * T_r / (p_r * V_r) * dp
 
 
 def woschni_prefactor(bore_m, multiplier=1.0, form: str = "original"):
@@ -55,7 +82,30 @@ def woschni_coefficient(k, p, w, T, form: str = "original"):
     form : str
         ``original`` (T^-0.53) or ``heywood`` (T^-0.55).
     """
-    return k * (p * w) ** 0.8 * T ** WOSCHNI_FORMS[form][2]
+    return woschni_h(k, p, w, T, WOSCHNI_FORMS[form][2])
+
+
+def woschni_h(k, p, w, T, t_exp):
+    """:func:`woschni_coefficient` with the form's temperature exponent ``t_exp`` given (a kernel helper)."""
+    return k * (p * w) ** 0.8 * T ** t_exp
+
+
+def woschni_motored_pressure(p_ivc, V_ivc, V, T_mot, T_ivc):
+    """Pressure of the charge motored from IVC, ``p_ivc (V_ivc / V) (T_mot / T_ivc)`` [Pa]."""
+    return p_ivc * (V_ivc / V) * (T_mot / T_ivc)
+
+
+def woschni_kernel(p, T, V, Sp, closed, burning, p_ivc, T_ivc, V_ivc, T_mot, k, c1_closed, c1_open, c2, Vd,
+                   t_exp):
+    """Woschni's coefficient [W/(m^2 K)] in the cycle: the kernel of :class:`Woschni` (arrays on the
+    Python path, floats in the compiled loop).  ``T_mot`` is the model's integrated motored
+    temperature [K]; the combustion term counts only while the cylinder is closed and burning,
+    and not where the IVC state is not yet known (the step that crosses intake closing)."""
+    w = where(closed, c1_closed, c1_open) * Sp
+    dp = np.maximum(p - woschni_motored_pressure(p_ivc, V_ivc, V, T_mot, T_ivc), 0.0)
+    comb = woschni_combustion_velocity(c2, Vd, T_ivc, p_ivc, V_ivc, dp)
+    w = w + where(closed & burning & np.isfinite(comb), comb, 0.0)
+    return woschni_h(k, p, w, T, t_exp)
 
 
 def hohenberg_kernel(V, p, T, Sp, multiplier):
@@ -135,12 +185,12 @@ class Woschni(WallHeatTransfer):
 
     name = "woschni"
     summary = "Woschni 1967 (original form, T^-0.53), phase-dependent C1/C2, motored pressure integrated"
-    compiled_form = "woschni"
+    kernel = woschni_kernel
     params = (
         _MULTIPLIER,
         Param("swirl_ratio", "-", 0.0, "swirl ratio (swirl speed / engine speed)", min=0.0, max=10.0),
         Param(
-            "c2_m_per_sK", "m/(s K)", 3.24e-3,
+            "c2_m_per_sK", "m/(s K)", WOSCHNI_C2,
             "combustion-term constant C2 during combustion and expansion", min=0.0, max=0.05,
         ),
     )
@@ -157,14 +207,19 @@ class Woschni(WallHeatTransfer):
         g = ctx.geometry
         self._Vd = g.Vd
         vs_over_sp = np.pi * g.bore_m * self.p.swirl_ratio / (2.0 * g.stroke_m)
-        self._c1_open = 6.18 + 0.417 * vs_over_sp
-        self._c1_closed = 2.28 + 0.308 * vs_over_sp
+        (o, o_s), (c, c_s) = WOSCHNI_C1["open"], WOSCHNI_C1["closed"]
+        self._c1_open = o + o_s * vs_over_sp
+        self._c1_closed = c + c_s * vs_over_sp
         self._k = woschni_prefactor(g.bore_m, self.p.multiplier)
 
     def pack(self) -> dict:
-        """Parameters of the compiled form ``woschni`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        """The kernel's parameters (:func:`woschni_kernel`) by name."""
         return {"k": self._k, "c1_closed": self._c1_closed, "c1_open": self._c1_open,
                 "c2": self.p.c2_m_per_sK, "Vd": self._Vd, "t_exp": WOSCHNI_FORMS["original"][2]}
+
+    C1 = WOSCHNI_C1
+    C2 = WOSCHNI_C2
+    combustion_velocity = staticmethod(woschni_combustion_velocity)
 
     @staticmethod
     def correlation(bore_m, p, T, w, multiplier=1.0, form: str = "original"):
@@ -187,20 +242,7 @@ class Woschni(WallHeatTransfer):
     def motored_pressure(self, s: GasState) -> np.ndarray:
         """Pressure of the same charge motored from IVC [Pa] (B,)."""
         T_mot = s.sub[f"{self.role}.{self.STATE}"]
-        return s.p_ivc * (s.V_ivc / s.V) * (T_mot / s.T_ivc)
-
-    def coefficient(self, s: GasState) -> np.ndarray:
-        w = np.where(s.closed, self._c1_closed, self._c1_open) * s.Sp
-        firing = np.logical_and(s.closed, s.burning)
-        if firing.any():  # the combustion term only where a case burns
-            with np.errstate(invalid="ignore", divide="ignore"):
-                dp = np.maximum(s.p - self.motored_pressure(s), 0.0)
-                comb = self.p.c2_m_per_sK * self._Vd * s.T_ivc / (s.p_ivc * s.V_ivc) * dp
-            # the IVC state is not yet known in the step that crosses intake closing (a burn
-            # that starts before it): no combustion term there
-            w = w + np.where(firing & np.isfinite(comb), comb, 0.0)
-        # p^0.8 w^0.8 = (p w)^0.8 with p in bar
-        return woschni_coefficient(self._k, s.p, w, s.T)
+        return woschni_motored_pressure(s.p_ivc, s.V_ivc, s.V, T_mot, s.T_ivc)
 
 
 class Hohenberg(WallHeatTransfer):

@@ -515,3 +515,27 @@ def test_trace_files_carry_the_measured_air_and_fuel(tmp_path, capsys):
     assert "measured air and fuel" in capsys.readouterr().out
     doc = json.loads((tmp_path / "a" / "analysis_summary.json").read_text())
     assert doc["statistics"]["trapped_mass_mg"] == pytest.approx((air + fuel) / (1 - 0.07), rel=1e-9)
+
+
+def test_analyser_wall_heat_uses_the_models_woschni_constants(monkeypatch):
+    # one Woschni in the code: the analyser's wall heat takes C1 and C2 from the heat-transfer model,
+    # so with no combustion term (start of combustion after the window) doubling the model's C1
+    # scales h, and so the wall heat, by 2^0.8 (h ~ w^0.8, Woschni 1967, SAE 670931)
+    from cyclesim.registry import get_registry
+    from cyclesim.traces import analysis as an
+    from cyclesim.traces.cycle_math import VolumeFunction
+
+    g = Geometry(np.array([0.086]), np.array([0.086]), np.array([0.143]), np.array([10.5]))
+    vol = VolumeFunction(g)
+    th = np.linspace(-120.0, -10.0, 111)
+    V = vol(th)
+    p = 1e5 * (V[0] / V) ** 1.35
+    T = 330.0 * (V[0] / V) ** 0.35
+    s = AnalysisSettings()
+    base = an._woschni_wall_heat(th, p, V, T, vol, s, 2000.0, 1.35, 1e9)[-1]
+    wo = get_registry().submodel_class("heat_transfer", "woschni")
+    (c, cs), closed_open = wo.C1["closed"], wo.C1["open"]
+    monkeypatch.setattr(wo, "C1", {"closed": (2.0 * c, cs), "open": closed_open})
+    doubled = an._woschni_wall_heat(th, p, V, T, vol, s, 2000.0, 1.35, 1e9)[-1]
+    assert base != 0.0
+    assert doubled / base == pytest.approx(2.0 ** 0.8, rel=1e-12)

@@ -569,3 +569,20 @@ def test_gas_properties_at_many_points_agree_with_numpy(monkeypatch):
                 assert a[k] == pytest.approx(b[case[k]], rel=1e-12, abs=1e-9)
     for a, b in zip(got, ref):
         np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-9)
+
+
+def test_woschni_is_a_kernel_reading_its_own_motored_temperature_state():
+    # one source: the Woschni model gives its kernel, the built-in loop has no Woschni branch, and the
+    # generated loop passes the kernel the model's integrated T_mot from that state's row
+    from cyclesim import _compiled, loopgen
+
+    wo = get_registry().submodel_class("heat_transfer", "woschni")
+    assert kernel.form_of_class(wo) == "kernel"
+    assert "woschni" not in _compiled.FORMS["heat_transfer"]
+    fn = loopgen.kernel_of(wo)
+    packed = ("k", "c1_closed", "c1_open", "c2", "Vd", "t_exp")
+    _, text = loopgen.generate({"heat_transfer": (fn, packed)})
+    row = _compiled.IC_ROWS["heat_transfer.T_mot"]
+    assert f"woschni_kernel(p, T, V, sp, closed, burning, CB[R_IVC_P, b], CB[R_IVC_T, b], CB[R_IVC_V, b], yv[IC[{row}]]" in text
+    with pytest.raises(loopgen.LoopGenError, match="T_mot"):
+        loopgen.kernel_params(fn, packed)          # not a state of a role given: refused

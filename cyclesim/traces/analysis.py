@@ -510,25 +510,32 @@ def _tables_heat_release(th, p, V, s: AnalysisSettings, y, mass=None):
 def _woschni_h(bore, p, T, w, s: AnalysisSettings):
     """Woschni's coefficient [W/(m^2 K)] (bore [m], p [Pa], T [K], w [m/s]).
 
-    ``original``: Woschni 1967 (SAE 670931), h = 129.8 B^-0.2 p[bar]^0.8 T^-0.53 w^0.8;
-    ``heywood``: the restatement of Heywood 1988 eq. 12.19, 3.26 B^-0.2 p[kPa]^0.8
-    T^-0.55 w^0.8.  The two differ by T^-0.02 (0.87 at 800 K, 0.86 at 2000 K).
+    ``original``: Woschni 1967 (SAE 670931), p in bar, T^-0.53; ``heywood``: the
+    restatement of Heywood 1988 eq. 12.19, p in kPa, T^-0.55 (the constants are the
+    ``woschni`` heat-transfer model's WOSCHNI_FORMS).  The two differ by T^-0.02 with
+    the constants' ratio (0.87 at 800 K, 0.86 at 2000 K).
     """
-    from ..registry import get_registry
-
     if s.woschni_form not in ("original", "heywood"):
         raise CyclesimError(f"woschni_form {s.woschni_form!r}: unknown; choose original or heywood")
-    # the simulator's own Woschni (one implementation), found through the registry
-    return get_registry().submodel_class("heat_transfer", "woschni").correlation(bore, p, T, w, form=s.woschni_form)
+    return _woschni_model().correlation(bore, p, T, w, form=s.woschni_form)
+
+
+def _woschni_model():
+    """The simulator's own Woschni model class (one implementation of its correlation and constants),
+    found through the registry."""
+    from ..registry import get_registry
+
+    return get_registry().submodel_class("heat_transfer", "woschni")
 
 
 def _woschni_wall_heat(th, p, V, T, vol, s: AnalysisSettings, speed_rpm, n_comp, theta_soc):
     """Cumulative wall heat [J] over the samples ``th`` by Woschni's correlation.
 
     Woschni 1967 (SAE 670931) as restated by Heywood 1988 eq. 12.19:
-    ``h = 3.26 B^-0.2 p[kPa]^0.8 T^-0.55 w^0.8`` with
-    ``w = 2.28 Sp + C2 Vd T_r / (p_r V_r) (p - p_mot)``, C2 = 0 before the
-    start of combustion ``theta_soc`` and 3.24e-3 m/(s K) after it; the
+    ``h = C B^-0.2 p^0.8 T^e w^0.8`` (the form of ``settings.woschni_form``) with
+    ``w = C1 Sp + C2 Vd T_r / (p_r V_r) (p - p_mot)``, C1 of the closed cycle without
+    swirl, C2 = 0 before the start of combustion ``theta_soc`` and Woschni's constant
+    after it (the constants of the ``woschni`` heat-transfer model); the
     reference state is IVC and the motored pressure ``p_mot = p_r (V_r / V)^n``
     with the measured compression exponent n.  Areas: head and piston from the
     Geometry (2.1 bore areas for a sampled volume) plus the liner 4 V / B.
@@ -546,8 +553,9 @@ def _woschni_wall_heat(th, p, V, T, vol, s: AnalysisSettings, speed_rpm, n_comp,
     p_r, V_r, T_r = p[0], V[0], T[0]
     n = n_comp if np.isfinite(n_comp) and 1.0 < n_comp < 1.6 else 1.32
     p_mot = p_r * (V_r / V) ** n
-    c2 = np.where(th >= theta_soc, 3.24e-3, 0.0)
-    w = 2.28 * sp + c2 * vol.Vd * T_r / (p_r * V_r) * np.maximum(p - p_mot, 0.0)
+    wo = _woschni_model()
+    c2 = np.where(th >= theta_soc, wo.C2, 0.0)
+    w = wo.C1["closed"][0] * sp + wo.combustion_velocity(c2, vol.Vd, T_r, p_r, V_r, np.maximum(p - p_mot, 0.0))
     h = s.woschni_multiplier * _woschni_h(bore, p, T, w, s)
     Tw = s.wall_temperature_K if s.wall_temperature_K is not None else s.tdc_wall_temperature_K
     rate = h * A * (T - Tw) / (6.0 * speed_rpm)          # [J/deg]
@@ -931,8 +939,8 @@ def estimate_tdc_offset(theta, p_abs, vol: VolumeFunction, s: AnalysisSettings, 
     ``-x = -(gamma-1)/gamma (dQ/dtheta) / (p V''(0))`` (dQ < 0: a loss).
     The heat-loss rate at the peak, ``-h A (T - T_w) / (6 N)``, comes from
     Woschni's correlation for the compression phase (Woschni 1967, SAE 670931;
-    Heywood 1988 eq. 12.19: h = 3.26 B^-0.2 p[kPa]^0.8 T^-0.55 w^0.8,
-    w = 2.28 x mean piston speed), the area of head and piston plus the liner
+    Heywood 1988 eq. 12.19; the ``woschni`` heat-transfer model's form and constants,
+    w = C1 x mean piston speed, C1 of the closed cycle without swirl), the area of head and piston plus the liner
     (2.1 bore areas + 4 V / B by default, the Geometry's area factors if given)
     and the gas temperature of the ideal-gas law (see ``T_ivc_K``).  A
     fitted heat-loss scale is not used: on a motored cycle a phasing error and
@@ -975,6 +983,7 @@ def estimate_tdc_offset(theta, p_abs, vol: VolumeFunction, s: AnalysisSettings, 
     else:
         end_area = 2.1 * a_bore
     V2 = vol.second_derivative_at_tdc()
+    c1 = _woschni_model().C1["closed"][0]
     m_tr = s.trapped_mass()
     if m_tr:
         mR = m_tr * s.R_J_per_kgK
@@ -987,7 +996,7 @@ def estimate_tdc_offset(theta, p_abs, vol: VolumeFunction, s: AnalysisSettings, 
     for _ in range(20):
         V_pk = float(vol(np.array([th_pk - d]))[0])
         T_pk = p_pk * V_pk / mR
-        h = _woschni_h(bore, p_pk, T_pk, 2.28 * sp, s)
+        h = _woschni_h(bore, p_pk, T_pk, c1 * sp, s)
         A = end_area + 4.0 * V_pk / bore
         q = -h * A * (T_pk - s.tdc_wall_temperature_K) / (6.0 * speed_rpm)   # [J/deg]
         g_pk = float(_gamma(T_pk, s))
