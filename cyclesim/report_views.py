@@ -154,7 +154,8 @@ def _spark_view(folder: Path) -> list[dict]:
     secs = [{"heading": f"Summary: spark study of {st.get('base_config', '')}", "summary": items}]
     secs.append({"heading": "Plots", "images": _images(folder, [
         ("spark_torque.png", "torque against spark advance"), ("spark_peak_pressure.png", "peak pressure and its angle"),
-        ("spark_ca50.png", "CA50 against spark advance"), ("spark_pressure_traces.png", "pressure traces")])})
+        ("spark_ca50.png", "CA50 against spark advance"), ("spark_pressure_traces.png", "pressure traces"),
+        ("spark_knock_onset.png", "knock onset and unburned charge at onset")])})
     sweep_json = folder / "sweep.json"
     if sweep_json.is_file():
         rows = json.loads(sweep_json.read_text()).get("rows", [])

@@ -746,7 +746,8 @@ def _spark_study(case: Case, label: str, key: str, vals: list, options: dict, ov
 
 
 def plot_spark_study(st: SparkStudy, out: Path, traces: int = 8) -> list[Path]:
-    """Torque with fit and markers, peak pressure and its angle, CA50, pressure traces."""
+    """Torque with fit and markers, peak pressure and its angle, CA50, pressure traces, and knock
+    onset with the unburned share at onset where a knock model ran."""
     from ..plots import _plt, _save
 
     plt = _plt()
@@ -831,4 +832,9 @@ def plot_spark_study(st: SparkStudy, out: Path, traces: int = 8) -> list[Path]:
         ax.set_title("cylinder pressure by spark advance")
         ax.legend(title="advance [deg BTDC]", fontsize=7, ncol=2)
         files.append(_save(fig, out / "spark_pressure_traces.png"))
+    from .spark_knock_plot import plot_knock_onset
+
+    kp = plot_knock_onset(st, out)
+    if kp is not None:
+        files.append(kp)
     return files
