@@ -164,6 +164,9 @@ def _spark_view(folder: Path) -> list[dict]:
         for r in rows:
             r.setdefault("torque_loss_pct", loss.get(r.get("burn.spark_advance_deg")))
         secs.append({"heading": "Spark sweep", "table": table_spec(rows, spec, st.get("notes", ()))})
+    if st.get("warnings_grouped"):
+        secs.append({"heading": "Spark sweep: warnings",
+                     "warnings": _warning_groups(st["warnings_grouped"], len(st.get("advances_deg", [])))})
     return secs
 
 
