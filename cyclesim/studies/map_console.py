@@ -6,7 +6,8 @@ from __future__ import annotations
 import math
 import re
 
-__all__ = ["map_text", "group_labelled", "group_warnings", "warning_lines", "knock_margin_text"]
+__all__ = ["map_text", "group_labelled", "group_warnings", "warning_lines", "cylinder_warning_lines",
+           "knock_margin_text"]
 
 _SHORT_LIMITS = {"exhaust temperature (lambda at floor)": "T_exh, lambda floor", "fixed (config)": "fixed"}
 
@@ -109,6 +110,20 @@ def warning_lines(groups, total: int, noun: str = "points") -> list[str]:
         pts = ", ".join(g["points"][:6]) + (f", ... ({len(g['points']) - 6} more)" if len(g["points"]) > 6 else "")
         lines.append(f"warning ({g['count']} of {total} {noun}): {g['example']}  [{pts}]")
     return lines
+
+
+def cylinder_warning_lines(warnings, n_cylinders: int) -> list[str]:
+    """An engine's warnings: the cylinders' own ("cylinder N: ...") grouped by kind with their count
+    and the cylinders that gave them, then the engine's own, each indented."""
+    per, rest = [], []
+    for w in warnings:
+        m = re.match(r"cylinder (\d+): (.*)", w, re.S)
+        if m:
+            per.append((f"cyl {m.group(1)}", [m.group(2)]))
+        else:
+            rest.append(w)
+    out = ["  " + x for x in warning_lines(group_labelled(per), n_cylinders, "cylinders")]
+    return out + [f"  warning: {w}" for w in rest]
 
 
 def map_text(m) -> str:
