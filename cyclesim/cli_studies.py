@@ -123,10 +123,11 @@ def cmd_sweep(args) -> int:
     print(f"{n} cases, {n - nf} ok, {nf} failed, in {time.perf_counter() - t0:.1f} s")
     if n:
         print(res.text())
-    for r in res.rows:
-        if r.get("error"):
-            print(f"  case {r['case']}: {r['error']}")
     from .output import CAUTION
+    from .studies.map_console import warning_lines
+
+    for line in warning_lines(res.warning_groups(), n, "cases"):
+        print(line)
 
     print(f"note: {CAUTION}")
     print(f"wrote {args.out / 'sweep.csv'} and {args.out / 'sweep.json'}")

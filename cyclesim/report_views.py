@@ -154,7 +154,8 @@ def _spark_view(folder: Path) -> list[dict]:
     secs = [{"heading": f"Summary: spark study of {st.get('base_config', '')}", "summary": items}]
     secs.append({"heading": "Plots", "images": _images(folder, [
         ("spark_torque.png", "torque against spark advance"), ("spark_peak_pressure.png", "peak pressure and its angle"),
-        ("spark_ca50.png", "CA50 against spark advance"), ("spark_pressure_traces.png", "pressure traces")])})
+        ("spark_ca50.png", "CA50 against spark advance"), ("spark_pressure_traces.png", "pressure traces"),
+        ("spark_knock_onset.png", "knock onset and unburned charge at onset")])})
     sweep_json = folder / "sweep.json"
     if sweep_json.is_file():
         rows = json.loads(sweep_json.read_text()).get("rows", [])
@@ -163,6 +164,9 @@ def _spark_view(folder: Path) -> list[dict]:
         for r in rows:
             r.setdefault("torque_loss_pct", loss.get(r.get("burn.spark_advance_deg")))
         secs.append({"heading": "Spark sweep", "table": table_spec(rows, spec, st.get("notes", ()))})
+    if st.get("warnings_grouped"):
+        secs.append({"heading": "Spark sweep: warnings",
+                     "warnings": _warning_groups(st["warnings_grouped"], len(st.get("advances_deg", [])))})
     return secs
 
 
@@ -173,7 +177,39 @@ def view_for_folder(folder: Path):
         return _map_view(folder)
     if (folder / "spark_study.json").is_file():
         return _spark_view(folder)
+    if (folder / "summary.json").is_file():
+        return _run_folder_view(folder)
     return None
+
+
+def _run_folder_view(folder: Path):
+    """A run folder (``cyclesim run --out``): the run's summary block and its plots (None where
+    summary.json is not a run's)."""
+    from types import SimpleNamespace
+
+    try:
+        data = json.loads((folder / "summary.json").read_text())
+        run = SimpleNamespace(summary=dict(data["summary"]), inputs=dict(data["inputs"]))
+    except (ValueError, OSError, KeyError, TypeError):
+        return None
+    secs = [{"heading": f"Summary: {data.get('name', folder.name)}", "summary": run_view(run)}]
+    imgs = _images(folder, [("pressure.png", "cylinder pressure"), ("temperature.png", "gas temperature"),
+                            ("pv.png", "p-V diagram"), ("logp_logv.png", "log p - log V"),
+                            ("heat_release.png", "heat release"), ("energy_balance.png", "energy balance"),
+                            ("valves.png", "valve lifts")])
+    if imgs:
+        secs.append({"heading": "Plots", "images": imgs})
+    from .report import energy_balance_section
+
+    eb = energy_balance_section(run.summary.get("energy_balance"))
+    if eb:
+        secs.append(eb)
+    notes = [n for n in data.get("notes", []) if n]
+    if data.get("warnings"):
+        secs.append({"heading": "Warnings", "text": list(data["warnings"])})
+    if notes:
+        secs.append({"heading": "Notes", "text": notes})
+    return secs
 
 
 RUN_SUMMARY = [("imep_net_bar", "net IMEP", "bar", ".2f", 1), ("bmep_bar", "BMEP", "bar", ".2f", 1),
@@ -186,17 +222,31 @@ RUN_SUMMARY = [("imep_net_bar", "net IMEP", "bar", ".2f", 1), ("bmep_bar", "BMEP
                ("volumetric_efficiency", "volumetric efficiency", "%", ".1f", 100)]
 
 
+MOTORED_SUMMARY = [("motoring_mep_bar", "motoring MEP (absorbed)", "bar", ".2f", 1),
+                   ("fmep_bar", "FMEP (friction model)", "bar", ".2f", 1), ("pmep_bar", "PMEP (pumping loss)", "bar", ".2f", 1),
+                   ("motoring_torque_Nm", "motoring torque", "N m", ".1f", 1),
+                   ("motoring_power_kW", "motoring power", "kW", ".1f", 1),
+                   ("p_max_bar", "peak motored pressure", "bar", ".1f", 1),
+                   ("loss_angle_deg", "loss angle (peak before TDC)", "deg", ".2f", 1),
+                   ("volumetric_efficiency", "volumetric efficiency", "%", ".1f", 100)]
+
+
 def run_view(result) -> list:
-    """Summary items of one run: (label, value with unit)."""
+    """Summary items of one run: (label, value with unit); a motored run (no fuel burns) gives what
+    the dynamometer absorbs instead of brake figures."""
     s = result.summary
+    motored = s.get("mode") == "motored"
     items = [("operating point", f"{result.inputs.get('operating.speed_rpm', 0):g} rpm, intake"
               f" {result.inputs.get('operating.intake_pressure_bar', 0):g} bar, lambda"
               f" {result.inputs.get('operating.lambda', 1):g}, {result.inputs.get('simulation.mode', 'full')} cycle")]
-    for k, label, unit, spec, sc in RUN_SUMMARY:
+    if motored:
+        items.append(("motored", "no fuel burns (fuel cut or a burn that never starts); the dynamometer"
+                                 " drives the engine, combustion figures are null"))
+    for k, label, unit, spec, sc in (MOTORED_SUMMARY if motored else RUN_SUMMARY):
         v = s.get(k)
         if isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v):
             items.append((label, f"{format(v * sc, spec)} {unit}"))
-    if "knock_onset_deg" in s:
+    if "knock_onset_deg" in s and not motored:
         on = s["knock_onset_deg"]
         items.append(("knock (end gas)", "none predicted" if on is None or not math.isfinite(on)
                       else f"onset at {on:.1f} deg ATDC"))

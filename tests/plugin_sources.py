@@ -115,3 +115,9 @@ def cyclesim_register_submodels():
     return [KernelWiebe]
 '''
 """A burn plug-in ``tests_kernel_wiebe``: the built-in single Wiebe law, given as a kernel."""
+
+
+RENAMED_SPARK_WIEBE = (KERNEL_WIEBE.replace("spark_advance_deg", "ignition_btdc_deg")
+                       .replace("tests_kernel_wiebe", "tests_renamed_spark_wiebe"))
+"""A burn plug-in ``tests_renamed_spark_wiebe``: the Wiebe law above whose spark parameter (its
+``spark_param``) is called ``ignition_btdc_deg``."""

@@ -89,3 +89,20 @@ def test_every_effect_and_outputs(tmp_path):
     secs = report_for_study(out)
     assert any(sec.get("images") for sec in secs)
     assert any(sec.get("heading") == "cylinder_cut.csv" and sec.get("table") for sec in secs)
+
+
+def test_the_readings_warnings_are_grouped_with_the_readings_that_gave_them():
+    # an octane number outside the reference fuels' range warns in every firing cylinder of every
+    # reading: the console says so once, with the count and the readings (not lost with the runs)
+    r = cylinder_cut_test("demo", TWO + ["knock.model=livengood_wu", "knock.octane_number=102"], effects=("pumping",))
+    assert r.readings == 3                                  # all firing, cylinder 1 cut, cylinder 2 cut
+    octane = [g for g in r.warning_groups if "octane number 102" in g["example"]]
+    assert len(octane) == 1 and octane[0]["count"] == 3
+    assert any(p.startswith("all firing") for p in octane[0]["points"])
+    assert any(p.startswith("cylinder 2 cut") for p in octane[0]["points"])
+    line = next(x for x in r.text().splitlines() if "octane number 102" in x)
+    assert line.startswith("warning (3 of 3 readings)")
+    assert r.figures()["warnings_grouped"] == r.warning_groups
+    # an idealised run with nothing to warn about prints no warning line
+    assert r.warning_groups == [] or not any(x.startswith("warning") for x in
+                                             cylinder_cut_test("demo", TWO, effects=()).text().splitlines())

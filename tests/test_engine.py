@@ -266,3 +266,13 @@ def test_a_boosted_config_without_its_supply_pressure_is_warned():
     ok = run_engine("demo_turbo", TWO)
     assert not any("charge-air pressure" in w for w in ok.warnings)
     assert ok.engine["intake_manifold_mean_bar"] > 1.5
+
+
+def test_engine_warnings_group_by_kind_with_the_cylinders():
+    from cyclesim.studies.map_console import cylinder_warning_lines
+
+    lines = cylinder_warning_lines(["cylinder 1: exhaust choked for 12 deg", "cylinder 3: exhaust choked for 14.5 deg",
+                                    "cylinder 3: trapped mass low", "manifolds not settled after 8 coupled cycles"], 4)
+    assert lines == ["  warning (2 of 4 cylinders): exhaust choked for 12 deg  [cyl 1, cyl 3]",
+                     "  warning (1 of 4 cylinders): trapped mass low  [cyl 3]",
+                     "  warning: manifolds not settled after 8 coupled cycles"]

@@ -375,6 +375,7 @@ def test_sweep_and_report_of_motored_cases(fuel_cut):
     assert "energy_balance.compression_work_J" in sw.rows[0]
     secs = report_for_run(fuel_cut, plots=False)
     eb = next(s for s in secs if s["heading"] == "Energy balance")
+    # units in the header, the basis in words (the report table convention)
     assert eb["table"]["columns"][2] == "share of the compression work, IVC to TDC [%]"
     assert any(s["heading"] == "Notes" for s in secs)
 

@@ -99,3 +99,21 @@ def test_map_report_reads_at_1280_px(tmp_path):
     assert text.index("peak torque") < text.index("<img ") < text.index("BSFC [g/kWh]</th>")
     assert "snake_case" not in text and "<th>bsfc_g_per_kWh</th>" not in text.split('class="appendix"')[0]
     _check(path, tmp_path)
+
+
+def test_motored_run_folder_report_reads_at_1280_px(tmp_path):
+    # `cyclesim run demo --set operating.fuel_cut=true --out run`, then `cyclesim report run`: the summary
+    # says the run is motored and gives what the dynamometer absorbs, not brake figures of a fired run
+    from cyclesim.cli import main
+
+    run = tmp_path / "run"
+    assert main(["run", "demo", "--set", "operating.fuel_cut=true", "--set", FIXED[0], "--set", FIXED[1],
+                 "--out", str(run)]) in (0, None)
+    path = write_report(tmp_path / "motored.html", "cyclesim report: run", report_for_study(run))
+    text = path.read_text(encoding="utf-8")
+    head = text.split('class="appendix"')[0]
+    assert text.index('class="summary"') < text.index("<img ") < text.index('class="appendix"')
+    assert "no fuel burns" in head and "motoring MEP (absorbed)" in head
+    assert "brake torque" not in head and "<td>spark_deg</td>" not in head
+    assert "energy [J]</th>" in head
+    _check(path, tmp_path)

@@ -198,9 +198,13 @@ def test_knock_criterion_messages_say_what_was_counted():
 
 def test_the_cases_own_warnings_reach_the_study_once_each():
     st = spark_study("demo_turbo", "5:40:5", overrides=["simulation.step_deg=1.0", "knock.octane_number=102"])
-    octane = [n for n in st.notes if "octane number 102" in n]
-    assert len(octane) == 1 and "(in 8 of 8 cases)" in octane[0]
-    assert not any(n.startswith("knock model: end-gas autoignition predicted") for n in st.notes)
+    # grouped by kind with the advances that gave it, in the JSON and on the console
+    octane = [g for g in st.warning_groups if "octane number 102" in g["example"]]
+    assert len(octane) == 1 and octane[0]["count"] == 8
+    assert octane[0]["points"] == [f"{a:g} deg" for a in range(5, 41, 5)]
+    assert not any(g["kind"].startswith("knock model: end-gas autoignition predicted") for g in st.warning_groups)
+    line = next(x for x in st.text().splitlines() if "octane number 102" in x)
+    assert line.startswith("warning (8 of 8 advances)") and "[5 deg, 10 deg," in line
 
 
 def test_the_table_gives_onset_margin_and_torque_cost_at_the_limit():

@@ -272,3 +272,18 @@ def test_a_value_of_the_wrong_kind_is_refused_before_anything_runs(base, tmp_pat
     # a value of the right kind outside the range stays a failed case of its own (the contract above)
     res = sweep(base, [("burn.duration_deg", "40,-5")])
     assert res.failed == [1]
+
+
+def test_the_sweep_console_groups_the_cases_warnings_with_the_cases_that_gave_them(tmp_path, capsys):
+    # an octane number outside the reference fuels' range warns in every case that has it; the
+    # console says so once, with the count and the cases' varied values (not only in the CSV column)
+    from cyclesim.cli import main
+
+    argv = ["sweep", "demo_turbo", "--vary", "burn.spark_advance_deg=10,20", "--vary", "knock.octane_number=95,102",
+            "--set", "simulation.step_deg=1.0", "--set", "simulation.step_reference_rpm=0",
+            "--out", str(tmp_path / "w"), "--no-progress"]
+    assert main(argv) in (0, None)
+    out = capsys.readouterr().out.splitlines()
+    octane = [line for line in out if "octane number 102" in line]
+    assert len(octane) == 1 and octane[0].startswith("warning (2 of 4 cases)")
+    assert "[spark_advance_deg=10 / octane_number=102, spark_advance_deg=20 / octane_number=102]" in octane[0]

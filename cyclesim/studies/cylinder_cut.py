@@ -120,6 +120,9 @@ class CylinderCutResult:
     cylinders: list
     settings: dict
     files: list = field(default_factory=list)
+    warning_groups: list = field(default_factory=list)
+    """The engine runs' warnings by kind with the readings that gave them (map_console.group_labelled)."""
+    readings: int = 0
 
     def step(self, key: str) -> dict:
         for s in self.steps:
@@ -130,7 +133,7 @@ class CylinderCutResult:
     def figures(self) -> dict:
         return {"label": self.label, "speed_rpm": self.speed_rpm, "settings": self.settings,
                 "steps": self.steps, "cylinders": self.cylinders, "caution": CAUTION,
-                "files": [Path(f).name for f in self.files],
+                "files": [Path(f).name for f in self.files], "warnings_grouped": list(self.warning_groups),
                 "notes": ["The split of the bias among the effects depends on the order they are switched on in.",
                           "Estimates: IP_k = B_all - B_cut_k; IP = sum IP_k; FP = IP - B_all."]}
 
@@ -173,6 +176,9 @@ class CylinderCutResult:
             f"{c['cylinder']}: {c['estimate_kW']:.2f}/{c['truth_kW']:.2f} kW" for c in self.cylinders))
         lines.append("  IP: indicated power, FP: friction power, B: brake power; est. from the cut readings,"
                      " true from the model")
+        from .map_console import warning_lines
+
+        lines.extend(warning_lines(self.warning_groups, self.readings, "readings"))
         lines.append("CAUTION: " + CAUTION)
         return "\n".join(lines)
 
@@ -194,6 +200,9 @@ class CylinderCutResult:
                      f" loop and the heat lost in compression and expansion are read as friction.")
         lines.append("  FP: friction power (estimate: the power the dyno absorbs), IP: indicated power; friction"
                      " from the friction model on the motored traces")
+        from .map_console import warning_lines
+
+        lines.extend(warning_lines(self.warning_groups, self.readings, "readings"))
         lines.append("CAUTION: " + CAUTION)
         return "\n".join(lines)
 
@@ -398,6 +407,14 @@ def cylinder_cut_test(config="demo", overrides: Sequence[str] = (), effects: Seq
                 "reading_time_s": reading_time_s, "speed_error_rpm": speed_error_rpm,
                 "friction_model": case.submodels["friction"].model}
     res = CylinderCutResult(label, speed, steps, cyl_rows, settings)
+    from .map_console import group_labelled
+
+    runs = [(all_setups[k].label, firing[k]) for k in all_setups] + [(cut_setups[k].label, cuts[k]) for k in cut_setups]
+    import re
+
+    # each reading's warnings once, whichever of its cylinders gave them
+    res.warning_groups = group_labelled((lb, [re.sub(r"^cylinder \d+: ", "", w) for w in r.warnings]) for lb, r in runs)
+    res.readings = len(runs)
     if out is not None:
         _write(res, Path(out), plots)
     return res

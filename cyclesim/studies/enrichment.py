@@ -31,6 +31,7 @@ from dataclasses import dataclass, field
 
 from ..config import case_with
 from ..errors import ConfigError
+from ..registry import spark_param
 from .point_spark import SparkPick, choose_spark, CaseRunner
 
 __all__ = ["settle_points", "PointSolution", "LIMIT_EXHAUST", "TIGHT_SETTLE_TOLERANCE"]
@@ -81,7 +82,7 @@ def settle_points(points, make_case, spark_mode: str, *, exhaust_limit_K: float 
     ----------
     points : sequence of hashable
     make_case : callable (point, overrides: dict) -> Case
-        The point's case with ``overrides`` (``burn.spark_advance_deg``, ``operating.lambda``,
+        The point's case with ``overrides`` (the burn model's spark parameter, ``operating.lambda``,
         ``simulation.tolerance``) applied.
     spark_mode : {"mbt", "knock_limited", "fixed"}
     exhaust_limit_K : float, optional
@@ -114,9 +115,10 @@ def settle_points(points, make_case, spark_mode: str, *, exhaust_limit_K: float 
 
         def mk(pt, a):
             ov = {"operating.lambda": lam[pt], **extra}
-            if a is not None:
-                ov["burn.spark_advance_deg"] = a
-            return make_case(pt, ov)
+            c = make_case(pt, ov)
+            if a is None:
+                return c
+            return make_case(pt, {**ov, "burn." + spark_param(c, "spark"): a})
 
         picks = choose_spark(pts, mk, spark_mode, run=run, **spark_options)
         final = run([mk(pt, picks[pt].advance_deg) for pt in pts])

@@ -21,6 +21,7 @@ import math
 
 from ..config import case_with
 from ..errors import SolverError
+from ..registry import spark_param
 from .enrichment import settle_points, with_overrides
 
 __all__ = ["boosted_points", "SPARK_SETTLED_DEG", "LAMBDA_SETTLED", "MAX_PASSES"]
@@ -75,13 +76,14 @@ def boosted_points(case, points, spark_mode, boost_bar, boost_options, *, run, s
     and point -> dict of the turbocharger state (``boost_bar``, ``boost_limit``, ``T_intake_K``,
     ``p3_bar``, the compressor map's margins where a map is given, ``passes``).
     """
-    spark = {pt: float(case.submodels["burn"].params["spark_advance_deg"]) for pt in points}
+    spark_key = spark_param(case, "full-load boost match")
+    spark = {pt: float(case.submodels["burn"].params[spark_key]) for pt in points}
     lam = {pt: float(case.operating.__dict__["lambda"]) for pt in points}
     boost, sol = {}, None
     for k in range(1, MAX_PASSES + 1):
         base = {}
         for pt in points:
-            c = case_with(case, {"operating.speed_rpm": pt[0], "burn.spark_advance_deg": spark[pt],
+            c = case_with(case, {"operating.speed_rpm": pt[0], "burn." + spark_key: spark[pt],
                                  "operating.lambda": lam[pt]})
             try:
                 br, how = _reached_boost(c, boost_bar, boost_options)

@@ -6,7 +6,8 @@ from __future__ import annotations
 import math
 import re
 
-__all__ = ["map_text", "group_warnings", "warning_lines", "knock_margin_text"]
+__all__ = ["map_text", "group_labelled", "group_warnings", "warning_lines", "cylinder_warning_lines",
+           "knock_margin_text"]
 
 _SHORT_LIMITS = {"exhaust temperature (lambda at floor)": "T_exh, lambda floor", "fixed (config)": "fixed"}
 
@@ -64,26 +65,14 @@ def _cell(row, key, spec, scale, width):
     return f"{format(float(v) * scale, spec):>{width}s}"
 
 
-def group_warnings(m) -> list[dict]:
-    """The points' warnings and errors, one entry per kind (numbers replaced by '#').
+def group_labelled(items) -> list[dict]:
+    """Messages grouped by kind (numbers replaced by '#'), each with its count and the labels of the
+    points that gave it; ``items`` is an iterable of ``(label, messages)``.
 
     Returns a list of ``{"kind", "example", "count", "points"}``.
     """
-    from .sweep import WARNING_SEPARATOR
-
     groups: dict[str, dict] = {}
-    for r in m.rows:
-        label = (f"{r['speed_rpm']:g} rpm / {r['intake_pressure_bar']:.2f} bar" if m.kind == "part_load"
-                 else f"{r['speed_rpm']:g} rpm")
-        msgs = [w for w in (r.get("warnings") or "").split(WARNING_SEPARATOR) if w]
-        if r.get("error"):
-            msgs.append(f"failed: {r['error']}")
-        if r.get("spark_note"):
-            msgs.extend(n for n in r["spark_note"].split("; ") if n)
-        if r.get("exhaust_limit_held") is False:
-            msgs.append("exhaust-temperature limit not held (lambda at its floor)")
-        if r.get("spark_limit") == "MBT not found (clamp)":
-            msgs.append("MBT not found within the advance range (clamp): left out of the contours")
+    for label, msgs in items:
         for w in dict.fromkeys(msgs):
             kind = re.sub(r"[-+]?\d+(\.\d+)?(e[-+]?\d+)?", "#", w)
             g = groups.setdefault(kind, {"kind": kind, "example": w, "count": 0, "points": []})
@@ -92,13 +81,49 @@ def group_warnings(m) -> list[dict]:
     return list(groups.values())
 
 
-def warning_lines(groups, total: int) -> list[str]:
-    """Console lines of :func:`group_warnings`."""
+def group_warnings(m) -> list[dict]:
+    """The points' warnings and errors of a map, one entry per kind (:func:`group_labelled`)."""
+    from .sweep import WARNING_SEPARATOR
+
+    def items():
+        for r in m.rows:
+            label = (f"{r['speed_rpm']:g} rpm / {r['intake_pressure_bar']:.2f} bar" if m.kind == "part_load"
+                     else f"{r['speed_rpm']:g} rpm")
+            msgs = [w for w in (r.get("warnings") or "").split(WARNING_SEPARATOR) if w]
+            if r.get("error"):
+                msgs.append(f"failed: {r['error']}")
+            if r.get("spark_note"):
+                msgs.extend(n for n in r["spark_note"].split("; ") if n)
+            if r.get("exhaust_limit_held") is False:
+                msgs.append("exhaust-temperature limit not held (lambda at its floor)")
+            if r.get("spark_limit") == "MBT not found (clamp)":
+                msgs.append("MBT not found within the advance range (clamp): left out of the contours")
+            yield label, msgs
+
+    return group_labelled(items())
+
+
+def warning_lines(groups, total: int, noun: str = "points") -> list[str]:
+    """Console lines of :func:`group_warnings` (``noun``: what the labels count)."""
     lines = []
     for g in groups:
         pts = ", ".join(g["points"][:6]) + (f", ... ({len(g['points']) - 6} more)" if len(g["points"]) > 6 else "")
-        lines.append(f"warning ({g['count']} of {total} points): {g['example']}  [{pts}]")
+        lines.append(f"warning ({g['count']} of {total} {noun}): {g['example']}  [{pts}]")
     return lines
+
+
+def cylinder_warning_lines(warnings, n_cylinders: int) -> list[str]:
+    """An engine's warnings: the cylinders' own ("cylinder N: ...") grouped by kind with their count
+    and the cylinders that gave them, then the engine's own, each indented."""
+    per, rest = [], []
+    for w in warnings:
+        m = re.match(r"cylinder (\d+): (.*)", w, re.S)
+        if m:
+            per.append((f"cyl {m.group(1)}", [m.group(2)]))
+        else:
+            rest.append(w)
+    out = ["  " + x for x in warning_lines(group_labelled(per), n_cylinders, "cylinders")]
+    return out + [f"  warning: {w}" for w in rest]
 
 
 def map_text(m) -> str:

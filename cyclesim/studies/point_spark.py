@@ -72,8 +72,13 @@ def check_spark_mode(mode, case) -> str:
         return default_spark_mode(case)
     if mode not in SPARK_MODES:
         raise ConfigError(f"spark {mode!r}: expected one of {', '.join(SPARK_MODES)}")
-    if mode != "fixed" and "spark_advance_deg" not in case.submodels["burn"].params:
-        raise ConfigError(f"burn model {case.submodels['burn'].model!r} has no spark advance: use spark='fixed'")
+    if mode != "fixed":
+        from ..registry import spark_param
+
+        try:
+            spark_param(case, f"spark {mode!r}")
+        except ConfigError as e:
+            raise ConfigError(f"{e}: use spark='fixed'") from None
     if mode == "knock_limited" and case.submodels["knock"].model == "none":
         raise ConfigError("spark 'knock_limited' needs a knock model: add --set knock.model=livengood_wu,"
                           " or use spark 'mbt'")
@@ -191,10 +196,15 @@ def choose_spark(points, make_case, mode: str, *, advances=None, knock_margin_de
     points = list(points)
     lo_lim, hi_lim = (float(v) for v in advance_range)
     if mode == "fixed":
+        from ..registry import spark_param
+
         out = {}
         for pt in points:
             c = make_case(pt, fixed_advance)
-            a = c.submodels["burn"].params.get("spark_advance_deg")
+            try:
+                a = c.submodels["burn"].params.get(spark_param(c, "spark"))
+            except ConfigError:
+                a = None
             out[pt] = SparkPick(None if a is None else float(a), LIMIT_FIXED)
         return out
     tried = {pt: {} for pt in points}

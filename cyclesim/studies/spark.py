@@ -52,6 +52,7 @@ from ..output import CAUTION, atomic_write_text
 from ..outdir import folder_lock
 from .sweep import CSV_NAME, JSON_NAME, SweepResult, parse_values, sweep
 from .sweep_files import write_failed
+from .spark_console import case_warning_groups
 
 __all__ = ["spark_study", "SparkStudy", "fit_torque_peak", "crossing_up", "SPARK_CAUTION"]
 
@@ -235,6 +236,8 @@ class SparkStudy:
     fit: dict = field(default_factory=dict)
     statistical_knock: dict | None = None
     notes: list = field(default_factory=list)
+    warning_groups: list = field(default_factory=list)
+    """The cases' warnings by kind with the advances that gave them (spark_console.case_warning_groups)."""
     files: list = field(default_factory=list)
     base_config: str = ""
     caution: str = SPARK_CAUTION
@@ -295,6 +298,7 @@ class SparkStudy:
             "candidates_deg": dict(self.candidates),
             "fit": fit,
             "notes": list(self.notes),
+            "warnings_grouped": list(self.warning_groups),
             "advances_deg": [_f(v) for v in adv],
             tk: [_f(v) for v in self.table.column(tk)],
             "torque_loss_pct": [_f(v) for v in self.table.column("torque_loss_pct")],
@@ -338,6 +342,9 @@ class SparkStudy:
             row(f"  {_LABELS.get(tk, tk)} lost there", loss, "% of best", ".1f")
         if self.recommended_by:
             lines.append(f"  (set by: {self.recommended_by})")
+        from .spark_console import spark_table_lines, spark_warning_lines
+
+        lines += spark_table_lines(self) + spark_warning_lines(self)
         for n in self.notes:
             lines.append(f"note: {n}")
         lines.append(f"CAUTION: {self.caution}.")
@@ -460,22 +467,6 @@ def _knock_notes(st: SparkStudy, status: str, a: np.ndarray, criterion: str = ""
     elif status == "always":
         st.notes.append(f"knock onset{' with ' + criterion if criterion else ''} already at {a.min():g} deg BTDC,"
                         " the least advance swept: the knock limit lies below the sweep")
-
-
-def case_warnings(results) -> list[str]:
-    """The cases' own warnings, each kind once with the number of cases that gave it (the knock
-    model's per-case onset lines left out: the study reports knock itself)."""
-    import re
-
-    seen: dict[str, list] = {}
-    results = [r for r in results if r is not None]
-    for r in results:
-        for w in r.warnings:
-            if w.startswith("knock model: end-gas autoignition predicted"):
-                continue
-            key = re.sub(r"[-+]?\d+(\.\d+)?(e[-+]?\d+)?", "#", w)
-            seen.setdefault(key, [w, 0])[1] += 1
-    return [f"{w} (in {n} of {len(results)} cases)" if n > 1 else w for w, n in seen.values()]
 
 
 def _model_cutoff(table: SweepResult) -> float | None:
@@ -688,7 +679,7 @@ def _spark_study(case: Case, label: str, key: str, vals: list, options: dict, ov
                             f" {100 * knock_cycle_share:g} % of the cycles knock")
         elif kl.knocking_share[0] >= knock_cycle_share:
             st.knock_status = "always"
-    st.notes.extend(case_warnings(sub.results))
+    st.warning_groups = case_warning_groups(sub.results, adv_s)
     st.pmax_limited_deg, p_status = _limit(st, "peak pressure", "p_max_bar", p_max_limit_bar, sub, adv_s)
     st.dp_limited_deg, dp_status = _limit(st, "pressure-rise rate", "dp_dtheta_max_bar_per_deg",
                                           dp_limit_bar_per_deg, sub, adv_s)
@@ -746,7 +737,8 @@ def _spark_study(case: Case, label: str, key: str, vals: list, options: dict, ov
 
 
 def plot_spark_study(st: SparkStudy, out: Path, traces: int = 8) -> list[Path]:
-    """Torque with fit and markers, peak pressure and its angle, CA50, pressure traces."""
+    """Torque with fit and markers, peak pressure and its angle, CA50, pressure traces, and knock
+    onset with the unburned share at onset where a knock model ran."""
     from ..plots import _plt, _save
 
     plt = _plt()
@@ -831,4 +823,9 @@ def plot_spark_study(st: SparkStudy, out: Path, traces: int = 8) -> list[Path]:
         ax.set_title("cylinder pressure by spark advance")
         ax.legend(title="advance [deg BTDC]", fontsize=7, ncol=2)
         files.append(_save(fig, out / "spark_pressure_traces.png"))
+    from .spark_knock_plot import plot_knock_onset
+
+    kp = plot_knock_onset(st, out)
+    if kp is not None:
+        files.append(kp)
     return files

@@ -359,6 +359,21 @@ class SweepResult:
             lines.append("  " + "".join(cell(r.get(k), f, sc, w) for (k, _, f, sc), w in zip(cols, width)))
         return "\n".join(lines)
 
+    def warning_groups(self) -> list[dict]:
+        """The cases' warnings and errors grouped by kind, each with its count and the cases that gave
+        it, labelled by their varied values (:func:`cyclesim.studies.map_console.group_labelled`)."""
+        from .map_console import group_labelled
+
+        def items():
+            for r in self.rows:
+                label = " / ".join(f"{k.rsplit('.', 1)[-1]}={r.get(k)}" for k in self.keys) or f"case {r['case']}"
+                msgs = [w for w in (r.get("warnings") or "").split(WARNING_SEPARATOR) if w]
+                if r.get("error"):
+                    msgs.append(f"failed: {r['error']}")
+                yield label, msgs
+
+        return group_labelled(items())
+
     @property
     def failed(self) -> list[int]:
         """Case indices that have an error."""

@@ -48,6 +48,7 @@ FIGURES = ("torque_Nm", "imep_net_bar", "imep_closed_bar", "ca50_deg", "p_max_ba
 """Figures summarised per sweep point (those the cases report)."""
 
 SPARK_KEY = "burn.spark_advance_deg"
+"""The spark key of the built-in burn models (another burn model: ``burn.`` + its ``spark_param``)."""
 
 
 def _load_calibration(cal) -> dict:
@@ -299,7 +300,7 @@ def propagate(calibrated, calibration, study: str = "sweep", vary: Any = None, n
 
     base = _resolve(calibrated)
     cal = read_calibration(calibration, base)
-    key, spec = _parse_vary(vary, study)
+    key, spec = _parse_vary(vary, study, _spark_key(base) if study == "spark" else SPARK_KEY)
     values = parse_values(key, spec)
     info: dict = {}
     params, X = sample_parameters(cal, n_samples, seed, info)
@@ -410,14 +411,20 @@ def _outside_notes(figs: dict, values: list, key: str, cal: Mapping, params: lis
     return notes
 
 
-def _parse_vary(vary, study: str) -> tuple[str, Any]:
+def _spark_key(case) -> str:
+    from ..registry import spark_param
+
+    return "burn." + spark_param(case, "predict (spark study)")
+
+
+def _parse_vary(vary, study: str, spark_key: str = SPARK_KEY) -> tuple[str, Any]:
     if study not in ("sweep", "spark"):
         raise ConfigError(f"predict: study = {study!r}: choose sweep or spark")
     if study == "spark":
         if vary is None:
-            return SPARK_KEY, "10:40:2"
+            return spark_key, "10:40:2"
         if isinstance(vary, str) and "=" not in vary:
-            return SPARK_KEY, vary
+            return spark_key, vary
     if vary is None:
         raise ConfigError("predict: give the swept key and values, e.g. burn.spark_advance_deg=10:40:2")
     if isinstance(vary, str):
@@ -431,8 +438,8 @@ def _parse_vary(vary, study: str) -> tuple[str, Any]:
         (key, spec), = vary.items()
     else:
         key, spec = vary
-    if study == "spark" and key != SPARK_KEY:
-        raise ConfigError(f"predict: the spark study sweeps {SPARK_KEY}, not {key}")
+    if study == "spark" and key != spark_key:
+        raise ConfigError(f"predict: the spark study sweeps {spark_key}, not {key}")
     return key, spec
 
 
