@@ -190,10 +190,6 @@ def _exists(key: str, summary: dict, burn_share: float = 1.0) -> bool:
         return False
     if "onset" in key:
         return summary.get("knock_integral_max", 0.0) >= 1.0
-    from cyclesim.motoring import MOTORED_ONLY_KEYS
-
-    if key in MOTORED_ONLY_KEYS:          # the motoring figures describe a motored cycle only (NaN when fired)
-        return summary.get("mode") == "motored"
     m = re.fullmatch(r"ca(\d\d)_deg", key)
     # cyclesim.figures counts a cycle with less than half of its charge burned as not fired and
     # gives it no burn angles at all
