@@ -231,23 +231,6 @@ def _scalar_rows(d: dict, skip: Iterable[str] = ()) -> list[list]:
     return rows
 
 
-def energy_balance_section(eb) -> dict | None:
-    """The formatted energy-balance table of a run's summary (None where it has none)."""
-    if not isinstance(eb, dict):
-        return None
-    from .motoring import energy_basis
-
-    base_key, base_label = energy_basis(eb)
-    base = eb[base_key] or 1.0
-    terms = [(k, v) for k, v in eb.items() if k != "closure_fraction" and isinstance(v, (int, float))]
-    return {"heading": "Energy balance", "table": {
-        "main": True, "align": ["t", "n", "n"],
-        "columns": ["term", "energy [J]", f"share of the {base_label} [%]"],
-        "rows": [[k.replace("_J", "").replace("_", " "), f"{v:.2f}", f"{100 * v / base:.1f}"] for k, v in terms],
-        "notes": ([f"closure: {100 * eb['closure_fraction']:.3f} % of the {base_label} unaccounted for"]
-                  if isinstance(eb.get("closure_fraction"), (int, float)) else [])}}
-
-
 def report_for_run(result, plots: bool = True) -> list[dict]:
     """Sections for one simulated case (a :class:`cyclesim.api.CaseResult`)."""
     from .output import summary_table
@@ -266,6 +249,8 @@ def report_for_run(result, plots: bool = True) -> list[dict]:
     if plot_sec:
         secs.append(plot_sec)
     secs.append({"heading": "Figures by group", "pre": summary_table(result)})
+    from .report_views import energy_balance_section
+
     eb = energy_balance_section(s.get("energy_balance"))
     if eb:
         secs.append(eb)

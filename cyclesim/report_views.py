@@ -199,8 +199,6 @@ def _run_folder_view(folder: Path):
                             ("valves.png", "valve lifts")])
     if imgs:
         secs.append({"heading": "Plots", "images": imgs})
-    from .report import energy_balance_section
-
     eb = energy_balance_section(run.summary.get("energy_balance"))
     if eb:
         secs.append(eb)
@@ -251,3 +249,20 @@ def run_view(result) -> list:
         items.append(("knock (end gas)", "none predicted" if on is None or not math.isfinite(on)
                       else f"onset at {on:.1f} deg ATDC"))
     return items
+
+
+def energy_balance_section(eb) -> dict | None:
+    """The formatted energy-balance table of a run's summary (None where it has none)."""
+    if not isinstance(eb, dict):
+        return None
+    from .motoring import energy_basis
+
+    base_key, base_label = energy_basis(eb)
+    base = eb[base_key] or 1.0
+    terms = [(k, v) for k, v in eb.items() if k != "closure_fraction" and isinstance(v, (int, float))]
+    return {"heading": "Energy balance", "table": {
+        "main": True, "align": ["t", "n", "n"],
+        "columns": ["term", "energy [J]", f"share of the {base_label} [%]"],
+        "rows": [[k.replace("_J", "").replace("_", " "), f"{v:.2f}", f"{100 * v / base:.1f}"] for k, v in terms],
+        "notes": ([f"closure: {100 * eb['closure_fraction']:.3f} % of the {base_label} unaccounted for"]
+                  if isinstance(eb.get("closure_fraction"), (int, float)) else [])}}

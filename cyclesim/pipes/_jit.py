@@ -50,9 +50,9 @@ def compiled_kernels():
     if _compiled is None:
         from numba import njit
 
-        from . import kernels
+        from .kernels import __file__ as kernels_file
 
-        spec = importlib.util.spec_from_file_location("cyclesim.pipes._kernels_compiled", kernels.__file__)
+        spec = importlib.util.spec_from_file_location("cyclesim.pipes._kernels_compiled", kernels_file)
         mod = importlib.util.module_from_spec(spec)
         mod.jit = njit(cache=True)
         mod.where = _where

@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import kernels as k
+import cyclesim.pipes.kernels as k
 
 
 def _branch(p, rho, p_i, c_i, lam, g, area):

@@ -9,8 +9,8 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import ConfigError
-from . import kernels as k
-from . import scheme as s
+import cyclesim.pipes.kernels as k
+import cyclesim.pipes.scheme as s
 from .gas import PipeGas, constant_gamma
 
 DEFAULT_END_ITERATIONS = 24

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import kernels as k
+import cyclesim.pipes.kernels as k
 from ._jit import COMPILED, compiled_kernels
 
 # rows of the conserved state Q (B, NQ, N): cell totals

@@ -83,7 +83,7 @@ def group_labelled(items) -> list[dict]:
 
 def group_warnings(m) -> list[dict]:
     """The points' warnings and errors of a map, one entry per kind (:func:`group_labelled`)."""
-    from .sweep import WARNING_SEPARATOR
+    from .sweep_files import WARNING_SEPARATOR
 
     def items():
         for r in m.rows:

@@ -53,6 +53,7 @@ from ..outdir import folder_lock
 from .sweep import CSV_NAME, JSON_NAME, SweepResult, parse_values, sweep
 from .sweep_files import write_failed
 from .spark_console import case_warning_groups
+from .knock_onset import model_cutoff, unburned_at_onset
 
 __all__ = ["spark_study", "SparkStudy", "fit_torque_peak", "crossing_up", "SPARK_CAUTION"]
 
@@ -430,7 +431,7 @@ def _knock(st: SparkStudy, table: SweepResult, adv: np.ndarray, ok: np.ndarray, 
     onset = table.column("knock_onset_deg")[ok]
     a = adv[ok]
     if knock_min_unburned is not None:
-        share = _unburned_at_onset(table, ok, onset)
+        share = unburned_at_onset(table, ok, onset)
         if share is None:
             st.notes.append("knock_min_unburned ignored: the unburned share at knock onset is not available"
                             " for every case (no knock_unburned_fraction_at_onset figure and no trace)")
@@ -440,7 +441,7 @@ def _knock(st: SparkStudy, table: SweepResult, adv: np.ndarray, ok: np.ndarray, 
             st.knock_limited_deg, st.knock_status = x, status
             crit = f"at least {100 * knock_min_unburned:g} % of the charge unburned at onset"
             st.notes.append(f"knock counted with {crit}")
-            cut = _model_cutoff(table)
+            cut = model_cutoff(table)
             if cut is not None and knock_min_unburned <= cut:
                 st.notes.append(f"--knock-min-unburned {knock_min_unburned:g} is at or below the knock model's own"
                                 f" cut-off (knock.min_unburned_fraction = {cut:g}: the integral stops there), so"
@@ -467,28 +468,6 @@ def _knock_notes(st: SparkStudy, status: str, a: np.ndarray, criterion: str = ""
     elif status == "always":
         st.notes.append(f"knock onset{' with ' + criterion if criterion else ''} already at {a.min():g} deg BTDC,"
                         " the least advance swept: the knock limit lies below the sweep")
-
-
-def _model_cutoff(table: SweepResult) -> float | None:
-    """The knock model's unburned-fraction cut-off of the sweep's cases (None if it has none)."""
-    vals = {r.inputs.get("knock.min_unburned_fraction") for r in table.results if r is not None}
-    vals.discard(None)
-    return float(min(vals)) if vals else None
-
-
-def _unburned_at_onset(table: SweepResult, ok: np.ndarray, onset: np.ndarray):
-    if "knock_unburned_fraction_at_onset" in table.columns:
-        return np.nan_to_num(table.column("knock_unburned_fraction_at_onset")[ok], nan=0.0)
-    out = []
-    results = [r for r, good in zip(table.results, ok) if good]
-    for res, th in zip(results, onset):
-        if not np.isfinite(th):
-            out.append(0.0)
-            continue
-        if res is None or "mfb" not in res.trace:
-            return None
-        out.append(1.0 - float(np.interp(th, res.trace["crank_deg"], res.trace["mfb"])))
-    return np.array(out)
 
 
 _LIMIT_UNITS = {"p_max_bar": "bar", "dp_dtheta_max_bar_per_deg": "bar/deg"}

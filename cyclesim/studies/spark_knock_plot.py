@@ -22,7 +22,7 @@ KNOCK_PLOT = "spark_knock_onset.png"
 def knock_points(st) -> dict | None:
     """The advances [deg BTDC], onset angles [deg ATDC] and unburned shares at onset [-] of a spark
     study, sorted by advance (NaN where no onset); None where no knock model ran."""
-    from .spark import _model_cutoff, _unburned_at_onset
+    from .knock_onset import model_cutoff, unburned_at_onset
 
     t = st.table
     if st.knock_status == "no model" or "knock_onset_deg" not in t.columns:
@@ -30,10 +30,10 @@ def knock_points(st) -> dict | None:
     adv = t.column(st.spark_key)
     ok = np.isfinite(adv)
     onset = t.column("knock_onset_deg")[ok]
-    share = _unburned_at_onset(t, ok, onset)
+    share = unburned_at_onset(t, ok, onset)
     share = np.full(len(onset), np.nan) if share is None else np.where(np.isfinite(onset), share, np.nan)
     o = np.argsort(adv[ok])
-    return {"advance_deg": adv[ok][o], "onset_deg": onset[o], "unburned": share[o], "cutoff": _model_cutoff(t)}
+    return {"advance_deg": adv[ok][o], "onset_deg": onset[o], "unburned": share[o], "cutoff": model_cutoff(t)}
 
 
 def plot_knock_onset(st, out: Path) -> Path | None:

@@ -50,15 +50,12 @@ from ..params import suggestion
 from ..roles import ROLES
 from ..outdir import folder_lock
 from ..fingerprint import check_fingerprint, digest, study_record, write_fingerprint
-from .sweep_files import (CSV_NAME, JSON_NAME, CsvSink, check_out, read_sweep_csv, resumed_rows, rows_text,
-                          write_failed)
+from .sweep_files import (CSV_NAME, JSON_NAME, WARNING_SEPARATOR, CsvSink, check_out, read_sweep_csv, resumed_rows,
+                          rows_text, write_failed)
 
 __all__ = ["sweep", "SweepResult", "parse_values", "parse_vary_arg", "read_sweep_csv"]
 
 FIXED_COLUMNS = ("case", "error", "warnings")
-WARNING_SEPARATOR = " | "
-"""Between a case's warnings in the one ``warnings`` cell (messages use ';' themselves):
-``row["warnings"].split(WARNING_SEPARATOR)`` gives them back."""
 _MAX_CASES = 1_000_000
 
 

@@ -18,6 +18,10 @@ from ..errors import CyclesimError, InputFileError
 from ..output import atomic_write_text
 from ..outdir import folder_entries
 
+WARNING_SEPARATOR = " | "
+"""Between a case's warnings in the one ``warnings`` cell (messages use ';' themselves):
+``row["warnings"].split(WARNING_SEPARATOR)`` gives them back."""
+
 CSV_NAME = "sweep.csv"
 JSON_NAME = "sweep.json"
 _INT_RE = re.compile(r"^[+-]?\d+$")
