@@ -179,43 +179,33 @@ class DynoResult:
         def row(label, v, unit, spec=".2f"):
             lines.append(f"  {label:<40s}{'-' if v is None else format(v, spec):>10s}  {unit}")
 
-        if self.motored:
-            row("speed", r["speed_rpm"], "rpm", ".1f")
-            row("load-cell force", r["force_N"], "N", ".2f")
-            row("arm length", r["arm_m"], "m", ".3f")
-            row("motoring torque absorbed (-force x arm)", r["motoring_torque_Nm"], "N m", ".2f")
-            row("motoring power absorbed (2 pi N T)", r["motoring_power_kW"], "kW", ".2f")
-            if r.get("readings", 1) > 1:
-                row("readings averaged", r["readings"], "", "d")
-                row("standard error of torque", r.get("torque_se_Nm"), "N m", ".2f")
-            row("motoring MEP of the model (= -BMEP)", r.get("motoring_mep_bar"), "bar", ".3f")
-            for w in self.warnings:
-                lines.append(f"warning: {w}")
-            for n in self.notes:
-                lines.append(f"note: {n}")
-            lines.append(f"CAUTION: {self.caution}")
-            return "\n".join(lines)
-
         row("speed", r["speed_rpm"], "rpm", ".1f")
         row("load-cell force", r["force_N"], "N", ".2f")
         row("arm length", r["arm_m"], "m", ".3f")
-        row("brake torque (force x arm)", r["torque_Nm"], "N m", ".2f")
-        row("brake power (2 pi N T)", r["power_kW"], "kW", ".2f")
+        if self.motored:
+            row("motoring torque absorbed (-force x arm)", r["motoring_torque_Nm"], "N m", ".2f")
+            row("motoring power absorbed (2 pi N T)", r["motoring_power_kW"], "kW", ".2f")
+        else:
+            row("brake torque (force x arm)", r["torque_Nm"], "N m", ".2f")
+            row("brake power (2 pi N T)", r["power_kW"], "kW", ".2f")
         if r.get("readings", 1) > 1:
             row("readings averaged", r["readings"], "", "d")
             row("standard error of torque", r.get("torque_se_Nm"), "N m", ".2f")
-        row("fuel flow", r.get("fuel_flow_kg_per_h"), "kg/h", ".2f")
-        row("BSFC (observed)", r.get("bsfc_g_per_kWh"), "g/kWh", ".0f")
-        row("ambient pressure / dry-air pressure", c["ambient_pressure_kPa"], "kPa", ".2f")
-        lines[-1] += f"  {c['dry_air_pressure_kPa']:.2f} kPa"
-        row("ambient temperature / humidity", c["ambient_temperature_K"], "K", ".1f")
-        lines[-1] += f"  {100 * c['relative_humidity']:.0f} %"
-        row(f"correction factor ({c['standard']})", c["factor"], "-", ".4f")
-        row("corrected power", c["corrected_power_kW"], "kW", ".2f")
-        row("corrected torque", c["corrected_torque_Nm"], "N m", ".2f")
-        if self.settled:
-            row("settled speed (T_engine = T_load)", self.settled.get("speed_rpm"), "rpm", ".1f")
-            row("time to settle within 1 %", self.settled.get("settling_time_s"), "s", ".2f")
+        if self.motored:
+            row("motoring MEP of the model (= -BMEP)", r.get("motoring_mep_bar"), "bar", ".3f")
+        else:
+            row("fuel flow", r.get("fuel_flow_kg_per_h"), "kg/h", ".2f")
+            row("BSFC (observed)", r.get("bsfc_g_per_kWh"), "g/kWh", ".0f")
+            row("ambient pressure / dry-air pressure", c["ambient_pressure_kPa"], "kPa", ".2f")
+            lines[-1] += f"  {c['dry_air_pressure_kPa']:.2f} kPa"
+            row("ambient temperature / humidity", c["ambient_temperature_K"], "K", ".1f")
+            lines[-1] += f"  {100 * c['relative_humidity']:.0f} %"
+            row(f"correction factor ({c['standard']})", c["factor"], "-", ".4f")
+            row("corrected power", c["corrected_power_kW"], "kW", ".2f")
+            row("corrected torque", c["corrected_torque_Nm"], "N m", ".2f")
+            if self.settled:
+                row("settled speed (T_engine = T_load)", self.settled.get("speed_rpm"), "rpm", ".1f")
+                row("time to settle within 1 %", self.settled.get("settling_time_s"), "s", ".2f")
         for w in self.warnings:
             lines.append(f"warning: {w}")
         for n in self.notes:
