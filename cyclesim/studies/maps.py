@@ -207,6 +207,19 @@ def check_map_inputs(case: Case | str | Path = "demo", speeds=None, loads=None, 
     _BackPressure(case, exhaust)
 
 
+def _run_points(what, case, points, bp, mode, advances, knock_margin_deg, exhaust_limit_K, lambda_floor,
+                p_max_limit_bar, progress):
+    """Settle each point's back pressure, then its spark and mixture: (solutions, rows, passes, cases run)."""
+    run = CaseRunner(what, progress)
+    try:
+        p_exh, _, passes = bp.settle(case, points)
+        sol = _solve_points(case, points, p_exh, mode, advances, knock_margin_deg, exhaust_limit_K, lambda_floor,
+                            p_max_limit_bar, run)
+    finally:
+        run.close()
+    return sol, [_point_row(pt, p_exh, sol[pt]) for pt in points], passes, run.cases
+
+
 def _solve_points(case, points, p_exh, mode, advances, knock_margin_deg, exhaust_limit_K, lambda_floor,
                   p_max_limit_bar, run):
     """Spark (and mixture) of every (speed, intake pressure) point, then each point's row data."""
@@ -313,14 +326,9 @@ def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides:
     bp = _BackPressure(case, exhaust)
     pin = float(case.operating.intake_pressure_bar)
     points = [(n, pin) for n in sp]
-    run = CaseRunner("full-load curve", progress)
-    try:
-        p_exh, _, passes = bp.settle(case, points)
-        sol = _solve_points(case, points, p_exh, mode, advances, knock_margin_deg, exhaust_limit_K, lambda_floor,
-                            p_max_limit_bar, run)
-    finally:
-        run.close()
-    rows = [_point_row(pt, p_exh, sol[pt]) for pt in points]
+    sol, rows, passes, cases_run = _run_points("full-load curve", case, points, bp, mode, advances,
+                                               knock_margin_deg, exhaust_limit_K, lambda_floor, p_max_limit_bar,
+                                               progress)
     m = MapResult("full_load", rows, _columns([]), base_config=label)
     bad = [r for r in rows if r["error"]]
     if bad:
@@ -334,7 +342,7 @@ def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides:
     _spark_notes(m, mode, knock_margin_deg, exhaust_limit_K, lambda_floor, case)
     m.notes.append(f"the intake pressure is the case's {pin:g} bar at every speed (no boost control)")
     m.notes.append(bp.note(passes) + (" (found at the case's spark and lambda)" if bp.mode == "flow" else ""))
-    m.cases_run = run.cases
+    m.cases_run = cases_run
     if mode != "fixed":
         m.notes.append(f"{SPARK_CAUTION}")
     if out is not None:
@@ -378,14 +386,9 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
     ld = _numbers("loads", loads, DEFAULT_LOADS)
     points = [(n, p) for n in sp for p in ld]
     bp = _BackPressure(case, exhaust)
-    run = CaseRunner("part-load map", progress)
-    try:
-        p_exh, _, passes = bp.settle(case, points)
-        sol = _solve_points(case, points, p_exh, mode, advances, knock_margin_deg, exhaust_limit_K, lambda_floor,
-                            p_max_limit_bar, run)
-    finally:
-        run.close()
-    rows = [_point_row(pt, p_exh, sol[pt]) for pt in points]
+    sol, rows, passes, cases_run = _run_points("part-load map", case, points, bp, mode, advances,
+                                               knock_margin_deg, exhaust_limit_K, lambda_floor, p_max_limit_bar,
+                                               progress)
     m = MapResult("part_load", rows, _columns([]), base_config=label)
     m.full_load = full_load
     _spark_notes(m, mode, knock_margin_deg, exhaust_limit_K, lambda_floor, case)
@@ -406,7 +409,7 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
         m.notes.append(f"burn model {case.submodels['burn'].model!r} keeps its delay and duration at every"
                        " point, so MBT moves little with load; burn.model=wiebe_flame scales them with the"
                        " flame speed (dilution, load, speed)")
-    m.cases_run = run.cases
+    m.cases_run = cases_run
     m.notes.append(SPARK_CAUTION)
     if out is not None:
         from ..map_plots import plot_part_load
