@@ -111,6 +111,9 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
           sweepable=False),
         P("tolerance", "-", 5e-4, "full mode: relative change of net IMEP and trapped mass that counts as settled",
           0, 0.1, min_exclusive=True, sweepable=False),
+        P("start", "-", "plain", "full mode: first cylinder state: plain (residual at the exhaust plenum's"
+          " pressure and temperature) or estimate (the ideal cycle's residual, cyclesim.residual_start)",
+          kind="choice", choices=("plain", "estimate"), sweepable=False),
     ),
 }
 """Core sections and their declared keys (the single source for validation and docs)."""

@@ -1,0 +1,214 @@
+"""A closed-form first estimate of the cylinder state at the cycle start (-360 deg).
+
+The periodic full cycle starts at gas-exchange TDC with the cylinder full of residual gas.
+The plain start takes that gas at the exhaust plenum's pressure and temperature, all burned.
+This module estimates it instead from the ideal four-stroke cycle with gas exchange (Heywood
+1988, *Internal Combustion Engine Fundamentals*, sec. 5.4 [from memory for the section]),
+evaluated with the batch's own gas properties rather than a constant gamma:
+
+1. the residual (clearance volume ``Vc`` at the exhaust pressure ``p_e``, temperature ``T_r``)
+   mixes with the fresh charge (intake temperature and pressure ``T_i``, ``p_i``) into the
+   trapped charge at IVC at ``p_i``; the energy balance of that open system,
+   ``m_1 u_1 = m_r u_r + m_a h_i - p_i (V_ivc - Vc)``, is for a constant-property gas
+   Heywood's ``T_1 = (1 - x_r) T_i + x_r T_r [1 - (gamma - 1)/gamma (1 - p_i/p_e)]``
+   (derived again here; :func:`mixing_temperature_ideal` is that closed form, the test's
+   check of the general balance);
+2. adiabatic compression at frozen composition from ``V_ivc`` to ``Vc``;
+3. adiabatic burning at constant volume at TDC (absolute energies, so the heat of reaction
+   needs no separate term), of the fraction the burn model's ``combustion_efficiency`` sets;
+4. adiabatic expansion to ``V_evo``;
+5. blowdown: the gas left in the cylinder expands isentropically from the EVO pressure to
+   ``p_e``, which gives ``T_r`` (Heywood sec. 5.4 [from memory]); the residual mass is
+   ``m_r = p_e Vc / (R T_r)`` and ``x_r = m_r / m_1``.
+
+Steps 1-5 repeat a few times (``x_r`` and ``T_r`` feed step 1); each is algebra on the gas
+tables, a few dozen property look-ups per case, against the thousands of a cycle.  The
+ideal cycle has no wall heat loss: ``T_r`` comes out high by the gas's cooling over the
+expansion and the exhaust stroke, which a multiplier :data:`WALL_LOSS_FACTOR` takes back
+(its value and its measured effect are documented beside it).  The estimate is a start
+state, not a result: the cycles that follow settle it exactly as they settle the plain one.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .layout import CORE_ROWS
+
+ITERATIONS = 2
+"""Passes of the residual -> trapped charge -> residual chain (x_r changes by far less than
+1e-3 between the third and the fourth on the demo configs; measured)."""
+
+SUBSTEPS = 4
+"""Log-volume (or log-pressure) sub-steps of each adiabatic process (gamma varies with T)."""
+
+HEAT_POINTS = 3
+"""Wall-heat evaluations over the expansion and over the exhaust stroke."""
+
+
+@dataclass
+class ResidualEstimate:
+    """The estimate per case (arrays of shape (B,))."""
+
+    residual_fraction: np.ndarray
+    """Residual (burned) mass over trapped mass at IVC [-]."""
+    residual_temperature_K: np.ndarray
+    """Residual-gas temperature at exhaust TDC [K]."""
+    trapped_temperature_K: np.ndarray
+    """Trapped-charge temperature at IVC [K]."""
+    evo_temperature_K: np.ndarray
+    """Gas temperature at EVO [K]."""
+    evo_pressure_pa: np.ndarray
+    """Cylinder pressure at EVO [Pa]."""
+    burned_fraction: np.ndarray
+    """Burned mass fraction of the gas after combustion (and so of the residual) [-]."""
+
+
+def mixing_temperature_ideal(x_r, T_i, T_r, p_i, p_e, gamma):
+    """Trapped-charge temperature [K] of the ideal cycle with a constant-property gas.
+
+    ``T_1 = (1 - x_r) T_i + x_r T_r [1 - (gamma - 1)/gamma (1 - p_i/p_e)]``: the energy balance
+    ``m_1 c_v T_1 = m_r c_v T_r + m_a c_p T_i - p_i (V_1 - V_c)`` with ``p_i V_1 = m_1 R T_1``
+    and ``p_e V_c = m_r R T_r`` (Heywood 1988, sec. 5.4 [from memory]).
+    """
+    return (1 - x_r) * T_i + x_r * T_r * (1 - (gamma - 1) / gamma * (1 - p_i / p_e))
+
+
+def _adiabatic_volume(gas, T, m, V0, V1, y, substeps=None):
+    """Temperature after an adiabatic reversible volume change V0 -> V1 at frozen burned
+    fraction ``y``: d ln T = -(R/c_v) d ln V, in :data:`SUBSTEPS` midpoint steps."""
+    n = SUBSTEPS if substeps is None else substeps
+    dl = np.log(V1 / V0) / n
+    lnV = np.log(V0)
+    for _ in range(n):
+        rho = m / np.exp(lnV)
+        g = gas.mixture(T, rho, y)
+        Tm = T * np.exp(-0.5 * g.R / g.cv * dl)
+        gm = gas.mixture(Tm, m / np.exp(lnV + 0.5 * dl), y)
+        T = T * np.exp(-gm.R / gm.cv * dl)
+        lnV = lnV + dl
+    return T
+
+
+def _adiabatic_pressure(gas, T, p0, p1, y):
+    """Temperature after an isentropic expansion p0 -> p1 of the burned gas at frozen
+    composition: d ln T = (R/c_p) d ln p, in :data:`SUBSTEPS` midpoint steps."""
+    dl = np.log(p1 / p0) / SUBSTEPS
+    lnp = np.log(p0)
+    for _ in range(SUBSTEPS):
+        g = gas.mixture(T, np.exp(lnp) / (287.0 * T), y)
+        Tm = T * np.exp(0.5 * g.R / g.cp * dl)
+        rho_m = np.exp(lnp + 0.5 * dl) / (g.R * Tm)
+        gm = gas.mixture(Tm, rho_m, y)
+        T = T * np.exp(gm.R / gm.cp * dl)
+        lnp = lnp + dl
+    return T
+
+
+def _temperature_at_energy(gas, u_target, T, rho, y, steps=6):
+    """T with u(T, rho, y) = ``u_target`` (Newton from ``T``)."""
+    for _ in range(steps):
+        g = gas.mixture(T, rho, y)
+        T = np.clip(T + (u_target - g.u) / g.cv, 200.0, 3900.0)
+    return T
+
+
+def _wall_heat_per_deg(rhs, batch, theta, m, T, y):
+    """Heat from the gas to the walls [J/deg] (B,) at crank angle ``theta`` [deg] for the
+    cylinder state (m [kg], T [K], burned fraction y [-]), from the batch's own heat-transfer
+    model through the right-hand side ``rhs`` (valve flows off; only its wall-heat row is read)."""
+    geo = batch.geometry
+    V = geo.volume(theta).reshape(-1) * np.ones(batch.B)
+    dV = geo.dV_dtheta(theta).reshape(-1) * np.ones(batch.B)
+    areas = tuple(a.reshape(-1) * np.ones(batch.B) for a in geo.areas(theta))
+    z = np.zeros((rhs.n, batch.B))
+    z[0], z[1], z[2], z[3] = m, T, y * m, 1.0
+    from .solver import _initial_sub
+
+    _initial_sub(rhs, z)
+    with np.errstate(all="ignore"):
+        q = rhs(float(theta), z, (V, dV) + areas, False)[CORE_ROWS["Q_w"]]
+    return np.where(np.isfinite(q), q, 0.0)
+
+
+def estimate(batch, rhs=None) -> ResidualEstimate:
+    """The ideal-cycle residual state of every case of a full-cycle ``batch``.
+
+    With ``rhs`` (the batch's right-hand side, :class:`cyclesim.solver._RHS`) the expansion
+    and the exhaust stroke lose heat to the walls at the rate the batch's heat-transfer model
+    gives for the estimated states (:data:`HEAT_POINTS` evaluations per stroke); without it
+    the cycle is adiabatic.
+    """
+    g = batch.gas
+    op = batch.operating
+    geo = batch.geometry
+    B = batch.B
+    one = np.ones(B)
+    p_i = op.intake_pressure_bar * 1e5 * one
+    p_e = op.exhaust_pressure_bar * 1e5 * one
+    T_i = op.intake_temperature_K * one
+    y_egr = np.asarray(op.egr_fraction, float) * one
+    eta_c = np.asarray(batch.models["burn"].combustion_efficiency(), float) * one
+    Vc = geo.Vc * one
+    V1 = geo.volume_at(batch.valves.ivc_deg) * one
+    evo = np.asarray(batch.valves.evo_deg, float) * one
+    V4 = geo.volume_at(evo) * one
+    h_i = g.enthalpy_unburned(T_i)
+    T_r = op.exhaust_temperature_K * one
+    x_r = 0.05 * one
+    T1 = T_i.copy()
+    for _ in range(ITERATIONS):
+        rho_r = p_e / (g.mixture(T_r, p_e / (287.0 * T_r), one).R * T_r)
+        m_r = rho_r * Vc
+        u_r = g.mixture(T_r, rho_r, one).u
+        # 1. trapped charge at IVC, p_i: mass from the state equation, T from the energy balance
+        for _ in range(3):
+            mp = g.mixture(T1, p_i / (287.0 * T1), np.clip(x_r + (1 - x_r) * y_egr, 0, 1))
+            m1 = p_i * V1 / (mp.R * T1)
+            m_a = np.maximum(m1 - m_r, 1e-3 * m1)
+            y1 = np.clip((m_r + m_a * y_egr) / m1, 0, 1)
+            u1 = (m_r * u_r + m_a * h_i - p_i * (V1 - Vc)) / m1
+            T1 = _temperature_at_energy(g, u1, T1, m1 / V1, y1, steps=2)
+        x_r = m_r / m1
+        # 2. compression, 3. burning at TDC, 4. expansion to EVO
+        T2 = _adiabatic_volume(g, T1, m1, V1, Vc, y1)
+        y3 = y1 + eta_c * (1 - y1)
+        u2 = g.mixture(T2, m1 / Vc, y1).u
+        T3 = _temperature_at_energy(g, u2, 2.5 * T2, m1 / Vc, y3)
+        if rhs is None:
+            T4 = _adiabatic_volume(g, T3, m1, Vc, V4, y3)
+        else:
+            T4 = T3
+            th = np.linspace(0.0, evo, HEAT_POINTS + 1)
+            for k in range(HEAT_POINTS):
+                Va, Vb = geo.volume_at(th[k]) * one, geo.volume_at(th[k + 1]) * one
+                q = _wall_heat_per_deg(rhs, batch, float(np.mean(0.5 * (th[k] + th[k + 1]))), m1, T4, y3)
+                T4 = _adiabatic_volume(g, T4, m1, Va, Vb, y3, substeps=1)
+                T4 = T4 - q * (th[k + 1] - th[k]) / (m1 * g.mixture(T4, m1 / Vb, y3).cv)
+        p4 = g.pressure(T4, m1 / V4, y3)
+        # 5. blowdown to p_e, then the exhaust stroke at p_e
+        T_r = _adiabatic_pressure(g, T4, p4, np.minimum(p_e, p4), y3)
+        if rhs is not None:
+            th = np.linspace(evo, 360.0, HEAT_POINTS + 1)
+            for k in range(HEAT_POINTS):
+                tm = float(np.mean(0.5 * (th[k] + th[k + 1])))
+                mp = g.mixture(T_r, p_e / (287.0 * T_r), y3)
+                m = p_e * geo.volume_at(tm) / (mp.R * T_r)
+                q = _wall_heat_per_deg(rhs, batch, tm, m, T_r, y3)
+                T_r = T_r - q * (th[k + 1] - th[k]) / (m * mp.cp)
+    return ResidualEstimate(x_r, T_r, T1, T4, p4, y3)
+
+
+def start_state(batch, V0, rhs=None):
+    """Cylinder mass [kg], temperature [K] and burned fraction [-] at the cycle start (B,),
+    with the residual at the exhaust pressure in the volume ``V0`` [m^3], and the estimate."""
+    est = estimate(batch, rhs)
+    p_e = batch.operating.exhaust_pressure_bar * 1e5 * np.ones(batch.B)
+    y0 = est.burned_fraction
+    T = est.residual_temperature_K
+    rho = p_e / (287.0 * T)
+    for _ in range(3):
+        rho = p_e / (batch.gas.mixture(T, rho, y0).R * T)
+    return rho * V0, T, y0, est
