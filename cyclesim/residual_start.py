@@ -21,12 +21,15 @@ evaluated with the batch's own gas properties rather than a constant gamma:
    ``p_e``, which gives ``T_r`` (Heywood sec. 5.4 [from memory]); the residual mass is
    ``m_r = p_e Vc / (R T_r)`` and ``x_r = m_r / m_1``.
 
-Steps 1-5 repeat a few times (``x_r`` and ``T_r`` feed step 1); each is algebra on the gas
-tables, a few dozen property look-ups per case, against the thousands of a cycle.  The
-ideal cycle has no wall heat loss: ``T_r`` comes out high by the gas's cooling over the
-expansion and the exhaust stroke, which a multiplier :data:`WALL_LOSS_FACTOR` takes back
-(its value and its measured effect are documented beside it).  The estimate is a start
-state, not a result: the cycles that follow settle it exactly as they settle the plain one.
+Steps 1-5 repeat (``x_r`` and ``T_r`` feed step 1); each is algebra on the gas tables.  The
+ideal cycle has no wall heat loss, and its residual comes out 300-700 K too hot on the demo
+engine (measured); so, given the right-hand side, the expansion and the exhaust stroke (at
+``p_e``) lose heat to the walls at the rate the batch's own heat-transfer model gives for the
+estimated states, at :data:`HEAT_POINTS` points a stroke.  Backflow into the intake port
+during the overlap is not modelled: where it dominates (throttled, low speed) the estimated
+residual fraction is low (``python benchmarks/residual_start.py`` prints the errors).  The
+estimate is a start state, not a result: the cycles that follow settle it exactly as they
+settle the plain one.
 """
 
 from __future__ import annotations
@@ -115,6 +118,27 @@ def _temperature_at_energy(gas, u_target, T, rho, y, steps=6):
     return T
 
 
+def trapped_charge(gas, m_r, u_r, p_i, V1, Vc, h_i, y_egr, T1, x_r, passes=3):
+    """Mass [kg], temperature [K] and burned fraction [-] of the charge trapped at IVC.
+
+    The residual (mass ``m_r`` [kg], internal energy ``u_r`` [J/kg]) and fresh charge of
+    enthalpy ``h_i`` [J/kg] (EGR mass fraction ``y_egr``) fill ``V1`` [m^3] at the intake
+    pressure ``p_i`` [Pa], the piston having swept ``V1 - Vc`` at ``p_i``:
+    ``m_1 u_1 = m_r u_r + m_a h_i - p_i (V1 - Vc)`` with ``m_1 = p_i V1 / (R T_1)``; ``T1`` and
+    ``x_r`` are the first guesses.  For a constant-property gas this is
+    :func:`mixing_temperature_ideal`.
+    """
+    for _ in range(passes):
+        mp = gas.mixture(T1, p_i / (287.0 * T1), np.clip(x_r + (1 - x_r) * y_egr, 0, 1))
+        m1 = p_i * V1 / (mp.R * T1)
+        m_a = np.maximum(m1 - m_r, 1e-3 * m1)
+        y1 = np.clip((m_r + m_a * y_egr) / m1, 0, 1)
+        u1 = (m_r * u_r + m_a * h_i - p_i * (V1 - Vc)) / m1
+        T1 = _temperature_at_energy(gas, u1, T1, m1 / V1, y1, steps=2)
+        x_r = m_r / m1
+    return m1, T1, y1
+
+
 def _wall_heat_per_deg(rhs, batch, theta, m, T, y):
     """Heat from the gas to the walls [J/deg] (B,) at crank angle ``theta`` [deg] for the
     cylinder state (m [kg], T [K], burned fraction y [-]), from the batch's own heat-transfer
@@ -163,14 +187,8 @@ def estimate(batch, rhs=None) -> ResidualEstimate:
         rho_r = p_e / (g.mixture(T_r, p_e / (287.0 * T_r), one).R * T_r)
         m_r = rho_r * Vc
         u_r = g.mixture(T_r, rho_r, one).u
-        # 1. trapped charge at IVC, p_i: mass from the state equation, T from the energy balance
-        for _ in range(3):
-            mp = g.mixture(T1, p_i / (287.0 * T1), np.clip(x_r + (1 - x_r) * y_egr, 0, 1))
-            m1 = p_i * V1 / (mp.R * T1)
-            m_a = np.maximum(m1 - m_r, 1e-3 * m1)
-            y1 = np.clip((m_r + m_a * y_egr) / m1, 0, 1)
-            u1 = (m_r * u_r + m_a * h_i - p_i * (V1 - Vc)) / m1
-            T1 = _temperature_at_energy(g, u1, T1, m1 / V1, y1, steps=2)
+        # 1. trapped charge at IVC
+        m1, T1, y1 = trapped_charge(g, m_r, u_r, p_i, V1, Vc, h_i, y_egr, T1, x_r)
         x_r = m_r / m1
         # 2. compression, 3. burning at TDC, 4. expansion to EVO
         T2 = _adiabatic_volume(g, T1, m1, V1, Vc, y1)
