@@ -219,14 +219,32 @@ def estimate(batch, rhs=None) -> ResidualEstimate:
     return ResidualEstimate(x_r, T_r, T1, T4, p4, y3)
 
 
-def start_state(batch, V0, rhs=None):
+def start_state(batch, V0, rhs=None, plain=None):
     """Cylinder mass [kg], temperature [K] and burned fraction [-] at the cycle start (B,),
-    with the residual at the exhaust pressure in the volume ``V0`` [m^3], and the estimate."""
-    est = estimate(batch, rhs)
+    with the residual at the exhaust pressure in the volume ``V0`` [m^3], and the estimate.
+
+    ``plain`` = (m, T, y) of the plain start: a case whose estimate is not a physical state
+    (non-finite, or outside 200-4000 K) keeps it, and so does the whole batch where a submodel
+    refuses the estimated states (the estimate is None then).
+    """
+    from .errors import CyclesimError
+
+    try:
+        with np.errstate(all="ignore"):
+            est = estimate(batch, rhs)
+    except (CyclesimError, ArithmeticError, ValueError):
+        if plain is None:
+            raise
+        return (*plain, None)
     p_e = batch.operating.exhaust_pressure_bar * 1e5 * np.ones(batch.B)
     y0 = est.burned_fraction
     T = est.residual_temperature_K
     rho = p_e / (287.0 * T)
-    for _ in range(3):
-        rho = p_e / (batch.gas.mixture(T, rho, y0).R * T)
-    return rho * V0, T, y0, est
+    with np.errstate(all="ignore"):
+        for _ in range(3):
+            rho = p_e / (batch.gas.mixture(T, rho, y0).R * T)
+    m = rho * V0
+    if plain is not None:
+        ok = np.isfinite(m) & (m > 0) & np.isfinite(T) & (T > 200.0) & (T < 4000.0) & (y0 >= 0) & (y0 <= 1)
+        m, T, y0 = (np.where(ok, a, b) for a, b in zip((m, T, y0), plain))
+    return m, T, y0, est

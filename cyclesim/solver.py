@@ -502,7 +502,7 @@ def _initial_state(batch, rhs: _RHS, theta0: float, mode: str) -> np.ndarray:
     if mode == "full" and getattr(batch.simulation, "start", "plain") == "estimate":
         from .residual_start import start_state   # simulation.start: the ideal-cycle residual
 
-        m, T, yb, _ = start_state(batch, V, rhs)
+        m, T, yb, _ = start_state(batch, V, rhs, plain=(m, T, yb))
     y = np.zeros((rhs.n, batch.B))
     y[0], y[1], y[2] = m, T, yb * m
     _initial_sub(rhs, y)

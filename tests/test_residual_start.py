@@ -145,3 +145,44 @@ def test_start_option_sets_the_first_state_and_not_the_result():
 def test_start_option_rejects_an_unknown_value():
     with pytest.raises(ConfigError, match="start"):
         load_config("demo", ["simulation.start=guess"])
+
+
+def test_estimate_never_needs_more_cycles_than_plain():
+    # the condition for making the estimate the default: on the three full-cycle demos at 800,
+    # 3000 and 6000 rpm it never needs more cycles, and it settles to the same figures
+    pts = [(cfg, n) for cfg in ("demo", "demo_part_load", "demo_turbo") for n in (800, 3000, 6000)]
+    plain = cyclesim.simulate([load_config(c, [f"operating.speed_rpm={n}"]) for c, n in pts])
+    est = cyclesim.simulate([load_config(c, [f"operating.speed_rpm={n}", "simulation.start=estimate"])
+                             for c, n in pts])
+    for (cfg, n), rp, re_ in zip(pts, plain, est):
+        assert re_.summary["converged"] and rp.summary["converged"]
+        assert re_.summary["cycles_to_converge"] <= rp.summary["cycles_to_converge"], (cfg, n)
+        assert re_.summary["imep_net_bar"] == pytest.approx(rp.summary["imep_net_bar"], rel=1e-3)
+
+
+def test_a_refused_or_unphysical_estimate_falls_back_to_the_plain_start(monkeypatch):
+    from cyclesim.errors import PluginError
+
+    cases = [load_config("demo"), load_config("demo", ["operating.intake_pressure_bar=0.6"])]
+    batch = build_batch(cases, _registry_for(cases))
+    rhs = _RHS(batch, "full")
+    V0 = batch.geometry.volume(-360.0)              # (B,)
+    plain = (np.array([1e-5, 2e-5]), np.array([950.0, 950.0]), np.ones(2))
+    good = rs.estimate(batch, rhs)
+
+    def refuse(batch, rhs=None):
+        raise PluginError("heat_transfer model 'x' raised ValueError")
+
+    monkeypatch.setattr(rs, "estimate", refuse)
+    m, T, y, est = rs.start_state(batch, V0, rhs, plain=plain)
+    assert est is None and (T == plain[1]).all() and (m == plain[0]).all()
+    with pytest.raises(PluginError):
+        rs.start_state(batch, V0, rhs)               # without a fallback the error stands
+    bad_T = good.residual_temperature_K.copy()
+    bad_T[0] = np.nan
+    monkeypatch.setattr(rs, "estimate", lambda batch, rhs=None: rs.ResidualEstimate(
+        good.residual_fraction, bad_T, good.trapped_temperature_K, good.evo_temperature_K,
+        good.evo_pressure_pa, good.burned_fraction))
+    m, T, y, _ = rs.start_state(batch, V0, rhs, plain=plain)
+    assert T[0] == plain[1][0] and m[0] == plain[0][0] and y[0] == 1.0   # this case falls back
+    assert T[1] == pytest.approx(bad_T[1]) and y[1] < 1.0                  # its batch-mate does not
