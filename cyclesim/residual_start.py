@@ -47,7 +47,7 @@ residual fraction from the final residual temperature.  A second pass moves the 
 temperature by at most 1.1 % and the residual fraction by at most 0.001 on the demo configs at
 800, 3000 and 6000 rpm (measured), and doubles the cost."""
 
-SUBSTEPS = 4
+SUBSTEPS = 3
 """Log-volume (or log-pressure) sub-steps of each adiabatic process (gamma varies with T)."""
 
 HEAT_POINTS = 3
@@ -246,7 +246,7 @@ def estimate(batch, rhs=None) -> ResidualEstimate:
         T2 = _adiabatic_volume(g, T1, m1, V1, Vc, y1)
         y3 = y1 + eta_c * (1 - y1)
         u2 = g.mixture(T2, m1 / Vc, y1).u
-        T3 = _temperature_at_energy(g, u2, 2.5 * T2, m1 / Vc, y3)
+        T3 = _temperature_at_energy(g, u2, 2.5 * T2, m1 / Vc, y3, steps=4)
         if rhs is None:
             T4 = _adiabatic_volume(g, T3, m1, Vc, V4, y3)
         else:
