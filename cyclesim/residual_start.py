@@ -21,9 +21,9 @@ evaluated with the batch's own gas properties rather than a constant gamma:
    ``p_e``, which gives ``T_r`` (Heywood sec. 5.4 [from memory]); the residual mass is
    ``m_r = p_e Vc / (R T_r)`` plus the overlap backflow, and ``x_r = m_r / m_1``.
 
-Steps 1-5 repeat (``x_r`` and ``T_r`` feed step 1); each is algebra on the gas tables.  The
-ideal cycle has no wall heat loss, and its residual comes out 300-700 K too hot on the demo
-engine (measured); so, given the right-hand side, the expansion and the exhaust stroke (at
+Steps 1-5 run once from the plain start's ``T_r`` (:data:`ITERATIONS`), then ``x_r`` is updated
+from the final ``T_r``; each is algebra on the gas tables.  The ideal cycle has no wall heat
+loss, and its residual comes out 300-700 K too hot on the demo engine (measured); so, given the right-hand side, the expansion and the exhaust stroke (at
 ``p_e``) lose heat to the walls at the rate the batch's own heat-transfer model gives for the
 estimated states, at :data:`HEAT_POINTS` points a stroke.  The ideal cycle also misses the
 burned gas pushed into the intake port during the valve overlap, which dominates the residual
