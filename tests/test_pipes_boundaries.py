@@ -115,7 +115,7 @@ def test_a_case_gives_the_same_result_alone_and_in_a_batch():
     for b in (0, 2):
         alone, e1, d1 = _random_batch(7, B=4)
         sub = pipes.Pipes(alone.length_m[b], 0.03, alone.N)   # rebuilt with the single case's arrays
-        for name in ("G", "P", "C", "Q", "face_area", "volume"):
+        for name in ("G", "P", "C", "Q", "face_area", "volume", "T_cell"):
             setattr(sub, name, np.ascontiguousarray(getattr(alone, name)[b:b + 1]))
         rb = sub.advance(d1[b:b + 1], e1[b:b + 1])
         assert np.array_equal(sub.Q[0], pipe.Q[b])
