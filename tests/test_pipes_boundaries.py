@@ -115,7 +115,7 @@ def test_a_case_gives_the_same_result_alone_and_in_a_batch():
     for b in (0, 2):
         alone, e1, d1 = _random_batch(7, B=4)
         sub = pipes.Pipes(alone.length_m[b], 0.03, alone.N)   # rebuilt with the single case's arrays
-        for name in ("G", "P", "C", "Q", "face_area", "volume", "T_cell"):
+        for name in ("G", "P", "C", "Q", "face_area", "volume", "T_cell", "p_end"):
             setattr(sub, name, np.ascontiguousarray(getattr(alone, name)[b:b + 1]))
         rb = sub.advance(d1[b:b + 1], e1[b:b + 1])
         assert np.array_equal(sub.Q[0], pipe.Q[b])
@@ -144,7 +144,11 @@ def test_numpy_path_agrees_with_compiled_path():
                              env=env, capture_output=True, text=True, check=True)
         out[mode] = json.loads(res.stdout.strip().splitlines()[-1])
     assert out["auto"]["compiled"] and not out["python"]["compiled"]
-    np.testing.assert_allclose(out["python"]["Q"], out["auto"]["Q"], rtol=1e-9, atol=0)
+    qp, qa = np.array(out["python"]["Q"]), np.array(out["auto"]["Q"])
+    # each conserved quantity to 1e-9 of its largest magnitude (the compiled end solve and Newton steps
+    # stop early at their tolerances; the numpy form takes every step)
+    scale = np.abs(qa).max(axis=2, keepdims=True)
+    assert np.all(np.abs(qp - qa) <= 1e-9 * scale)
     np.testing.assert_allclose(out["python"]["m"], out["auto"]["m"], rtol=1e-9, atol=1e-18)
 
 

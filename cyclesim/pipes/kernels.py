@@ -272,7 +272,7 @@ def _inflow_residual(p, p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, 
 
 
 @jit
-def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry, n_iter):
+def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry, n_iter, p_guess):
     """State at a pipe end behind a nozzle to a reservoir: density, outward velocity, pressure.
 
     The pipe side follows the outgoing characteristic ``v + 2c/(gamma-1)`` of the
@@ -286,15 +286,19 @@ def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_
     or not.  The direction is known before the solve: gas leaves the pipe when
     ``p_r`` is below ``p_v0``, the pressure at which the characteristic gives
     zero velocity.  The boundary pressure then solves that direction's mass
-    balance by ``n_iter`` steps of the Illinois form of regula falsi (Dowell and
-    Jarratt 1971, BIT 11, 168) in ln p on the bracket: the pipe end's sonic state
+    balance in ln p by at most ``n_iter`` secant steps from ``p_guess`` [Pa]
+    (the end's pressure of the sub-step before; <= 0: none), kept inside the
+    bracket by a bisection wherever a step would leave it (a safeguarded
+    secant, common practice; e.g. Press et al. 2007, Numerical Recipes, sec. 9.2-9.3);
+    the bracket is the pipe end's sonic state
     to ``p_v0`` for outflow, ``p_v0`` to the smaller of ``p_r`` and the sonic
     inflow pressure for inflow (inflow is at most sonic at the pipe end,
     ``v >= -sqrt(2 g R T_r / (g + 1))``).  A pipe end that cannot pass what the
     nozzle takes stays at its sonic state.  ``cda = 0`` is a closed end (zero
     velocity exactly).  An open end is ``cda`` equal to the pipe's area.
-    Compiled (scalars), only the direction taken is iterated; the numpy form
-    iterates both and picks one.
+    Compiled (scalars), only the direction taken is iterated and the steps stop
+    once the residual is below 1e-10 of the pipe's sonic mass flow scale; the
+    numpy form iterates both and picks one (a converged step stays put).
     """
     gm = g_i
     c_i = np.sqrt(gm * p_i / rho_i)
@@ -313,26 +317,30 @@ def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_
     if SCALAR:
         n_out = n_iter if out else 0
         n_in = 0 if out else n_iter
-    # outflow on [ln p_lo, ln p_v0]: the residual falls with pressure and is <= 0 at p_v0 (v = 0)
+    x_guess = np.log(where(p_guess > 0.0, p_guess, 0.0 * p_guess + p_v0))
+    # outflow on [ln p_lo, ln p_v0]: the residual falls with pressure and is <= 0 at p_v0 (v = 0);
     # through a nozzle no wider than the pipe the pipe end's pressure is at least the reservoir's
     p_a = where(cda <= area, np.maximum(p_lo, np.minimum(p_r, 0.999999 * p_v0)), p_lo)
     a = np.log(p_a)
     b = np.log(p_v0)
     fa, _, _ = _outflow_residual(p_a, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
-    fb, _, _ = _outflow_residual(p_v0, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
-    fb = np.minimum(fb, -1e-300 + 0.0 * fb)
-    x_out = where(fa <= 0.0, a, b)              # the sonic end cannot pass what the nozzle takes
-    x_out = _illinois_outflow(a, b, fa, fb, x_out, n_out, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+    live = fa > 0.0                             # else the sonic end cannot pass what the nozzle takes
+    if SCALAR:
+        n_out = n_out if live else 0
+    x_out = _secant_outflow(a, b, x_guess, n_out, 1e-10 * rho_i * c_i * area,
+                            rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+    x_out = where(live, x_out, a)
     # inflow on [ln p_v0, ln min(p_r, p_cap)]: the residual is >= 0 at p_v0 and falls with pressure
     hi = np.maximum(np.minimum(p_r, np.maximum(p_cap, p_v0)), 1.000001 * p_v0)
     a2 = np.log(p_v0)
     b2 = np.log(hi)
     fb2, _, _ = _inflow_residual(hi, p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
-    fa2, _, _ = _inflow_residual(p_v0, p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
-    fa2 = np.maximum(fa2, 1e-300 + 0.0 * fa2)
-    x_in = where(fb2 >= 0.0, b2, a2)            # capped at the sonic inflow
-    x_in = _illinois_inflow(a2, b2, fa2, fb2, x_in, n_in, p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r,
-                            cp_r, k_entry)
+    live2 = fb2 < 0.0                           # else capped at the sonic inflow
+    if SCALAR:
+        n_in = n_in if live2 else 0
+    x_in = _secant_inflow(a2, b2, x_guess, n_in, 1e-10 * p_i / c_i * area,
+                          p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+    x_in = where(live2, x_in, b2)
     p_o = np.exp(x_out)
     p_n = np.exp(x_in)
     _, rho_o, v_o = _outflow_residual(p_o, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
@@ -347,79 +355,66 @@ def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_
 
 
 @jit
-def _bracket_step(i, a, b, fa, fb, ta, tb, side, xn, f):
-    """Update the bracket (a, b) of a root in ln p with the new point ``xn``, residual ``f``.
-
-    ``fa``, ``fb`` are the Illinois values (halved when the same end is kept
-    twice), ``ta``, ``tb`` the true residuals at the ends.
-    """
-    pos = f > 0.0
-    fb = where(pos & (side > 0.0), 0.5 * fb, fb)
-    fa = where((f <= 0.0) & (side < 0.0), 0.5 * fa, fa)
-    a = where(pos, xn, a)
-    fa = where(pos, f, fa)
-    ta = where(pos, f, ta)
-    b = where(pos, b, xn)
-    fb = where(pos, fb, f)
-    tb = where(pos, tb, f)
-    side = where(pos, 1.0 + 0.0 * side, -1.0 + 0.0 * side)
-    return a, b, fa, fb, ta, tb, side
+def _secant_point(x0, f0, x1, f1, a, b, ftol):
+    """Next point of the safeguarded secant in the bracket (a, b); stays at ``x1`` once converged."""
+    den = f1 - f0
+    ok = den != 0.0
+    xn = x1 - f1 * (x1 - x0) / where(ok, den, 1.0 + 0.0 * den)
+    inside = ok & (xn > a) & (xn < b)
+    xn = where(inside, xn, 0.5 * (a + b))
+    return where(np.abs(f1) <= ftol, x1, xn)
 
 
 @jit
-def _next_point(i, a, b, fa, fb):
-    """Illinois point of the bracket; every other step the midpoint, so the bracket at least halves."""
-    den = fb - fa
-    xn = (a * fb - b * fa) / where(den != 0.0, den, 1.0 + 0.0 * den)
-    xn = where(den != 0.0, xn, 0.5 * (a + b))
-    xn = np.minimum(np.maximum(xn, np.minimum(a, b)), np.maximum(a, b))
-    if i % 2 == 1:
-        xn = 0.5 * (a + b)
-    return xn
+def _narrow(a, b, x, f):
+    """The bracket (a, b) of a falling residual narrowed by the point ``x`` with residual ``f``."""
+    return where(f > 0.0, np.maximum(a, x), a), where(f > 0.0, b, np.minimum(b, x))
 
 
 @jit
-def _final_point(a, b, ta, tb, live, x):
-    """Secant of the final bracket on the true residuals (``x`` where there is no root inside)."""
-    den = tb - ta
-    xs = (a * tb - b * ta) / where(den != 0.0, den, 1.0 + 0.0 * den)
-    xs = where(den != 0.0, xs, 0.5 * (a + b))
-    return where(live, np.minimum(np.maximum(xs, np.minimum(a, b)), np.maximum(a, b)), x)
+def _start(a, b, x_guess):
+    """Two start points of the secant: the guess put inside the bracket and a point 1e-6 from it."""
+    x0 = np.minimum(np.maximum(x_guess, a), b)
+    x1 = where(x0 + 1e-6 < b, x0 + 1e-6, x0 - 1e-6)
+    return x0, np.minimum(np.maximum(x1, a), b)
 
 
 @jit
-def _illinois_outflow(a, b, fa, fb, x, n, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r):
-    """Root in ln p of the outflow residual on the bracket (a, b), f(a) > 0 > f(b), in ``n`` steps.
-
-    Compiled, it stops once the residual is below 1e-10 of the pipe's sonic mass flow scale.
-    """
-    live = fa > 0.0
-    ta, tb, side = fa, fb, 0.0 * fa
-    ftol = 1e-10 * rho_i * c_i * area
-    for i in range(n):
-        xn = _next_point(i, a, b, fa, fb)
-        f, _, _ = _outflow_residual(np.exp(xn), rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+def _secant_outflow(a, b, x_guess, n, ftol, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r):
+    """Root in ln p of the outflow residual in the bracket (a, b): ``n`` safeguarded secant steps."""
+    x0, x1 = _start(a, b, x_guess)
+    f0, _, _ = _outflow_residual(np.exp(x0), rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+    a, b = _narrow(a, b, x0, f0)
+    f1, _, _ = _outflow_residual(np.exp(x1), rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+    a, b = _narrow(a, b, x1, f1)
+    for _ in range(n):
         if SCALAR:
-            if abs(f) <= ftol:                   # converged to rounding: stop early (compiled only)
-                return where(live, xn, x)
-        a, b, fa, fb, ta, tb, side = _bracket_step(i, a, b, fa, fb, ta, tb, side, xn, f)
-    return _final_point(a, b, ta, tb, live, x)
+            if abs(f1) <= ftol:
+                break
+        xn = _secant_point(x0, f0, x1, f1, a, b, ftol)
+        fn, _, _ = _outflow_residual(np.exp(xn), rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+        a, b = _narrow(a, b, xn, fn)
+        x0, f0, x1, f1 = x1, f1, xn, fn
+    return x1
 
 
 @jit
-def _illinois_inflow(a, b, fa, fb, x, n, p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry):
-    """Root in ln p of the inflow residual on the bracket (a, b), f(a) > 0 > f(b), in ``n`` steps."""
-    live = fb < 0.0
-    ta, tb, side = fa, fb, 0.0 * fa
-    ftol = 1e-10 * p_i / c_i * area
-    for i in range(n):
-        xn = _next_point(i, a, b, fa, fb)
-        f, _, _ = _inflow_residual(np.exp(xn), p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+def _secant_inflow(a, b, x_guess, n, ftol, p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry):
+    """Root in ln p of the inflow residual in the bracket (a, b): ``n`` safeguarded secant steps."""
+    x0, x1 = _start(a, b, x_guess)
+    f0, _, _ = _inflow_residual(np.exp(x0), p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+    a, b = _narrow(a, b, x0, f0)
+    f1, _, _ = _inflow_residual(np.exp(x1), p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+    a, b = _narrow(a, b, x1, f1)
+    for _ in range(n):
         if SCALAR:
-            if abs(f) <= ftol:                   # converged to rounding: stop early (compiled only)
-                return where(live, xn, x)
-        a, b, fa, fb, ta, tb, side = _bracket_step(i, a, b, fa, fb, ta, tb, side, xn, f)
-    return _final_point(a, b, ta, tb, live, x)
+            if abs(f1) <= ftol:
+                break
+        xn = _secant_point(x0, f0, x1, f1, a, b, ftol)
+        fn, _, _ = _inflow_residual(np.exp(xn), p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+        a, b = _narrow(a, b, xn, fn)
+        x0, f0, x1, f1 = x1, f1, xn, fn
+    return x1
 
 
 @jit
@@ -494,8 +489,9 @@ def cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, diameter, rough_term, fric
 
 
 @jit
-def end_flux(rho, u, p, Y, g, side, area, cda, p_r, T_r, Y_r, k_entry, cf, cb, Rf, Rb, t_mid, n_iter):
-    """Fluxes through a pipe end in +x times the end's area: mass [kg/s], momentum [N], energy [W], burned mass [kg/s].
+def end_flux(rho, u, p, Y, g, side, area, cda, p_r, T_r, Y_r, k_entry, cf, cb, Rf, Rb, t_mid, n_iter, p_guess):
+    """Fluxes through a pipe end in +x times the end's area: mass [kg/s], momentum [N], energy [W], burned mass [kg/s];
+    then the end's pressure [Pa] (the ``p_guess`` of the next call).
 
     ``side`` is -1 at the left end (x = 0), +1 at the right; (rho, u, p, Y, g) the
     interior face state; the reservoir behind the nozzle ``cda`` [m^2] has
@@ -508,9 +504,10 @@ def end_flux(rho, u, p, Y, g, side, area, cda, p_r, T_r, Y_r, k_entry, cf, cb, R
     e_r, cv_r = energy(T_r, Y_r, cf, cb, t_mid)
     cp_r = cv_r + R_r
     rho_b, v_b, p_b = end_state(rho, side * u, p, g, R_i, cda, area, p_r, T_r, R_r, cp_r / cv_r,
-                                cp_r, k_entry, n_iter)
+                                cp_r, k_entry, n_iter, p_guess)
     e_b, _ = energy(p_b / (rho_b * R_i), Y, cf, cb, t_mid)
     out = v_b >= 0.0
     h0 = where(out, e_b + p_b / rho_b + 0.5 * v_b * v_b, e_r + R_r * T_r)
     m_out = rho_b * v_b * area
-    return side * m_out, (rho_b * v_b * v_b + p_b) * area, side * m_out * h0, side * m_out * where(out, Y, Y_r)
+    return (side * m_out, (rho_b * v_b * v_b + p_b) * area, side * m_out * h0, side * m_out * where(out, Y, Y_r),
+            p_b)

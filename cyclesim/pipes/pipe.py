@@ -13,11 +13,10 @@ import cyclesim.pipes.kernels as k
 import cyclesim.pipes.scheme as s
 from .gas import PipeGas, constant_gamma
 
-DEFAULT_END_ITERATIONS = 16
-"""Steps of the end-pressure solve (Illinois steps alternating with bisections, see
-:func:`cyclesim.pipes.kernels.end_state`): on 20 000 random end states the mass flux is within
-5e-6 of the sonic flux ``rho c A`` of a converged solve, and within 2e-11 for 99 % of them
-(``tests/test_pipes_boundaries.py``); conservation does not depend on it."""
+DEFAULT_END_ITERATIONS = 30
+"""Most steps of the end-pressure solve (safeguarded secant from the end's last pressure, see
+:func:`cyclesim.pipes.kernels.end_state`); compiled, it stops at its tolerance, typically after
+two or three; conservation does not depend on it."""
 
 
 def _per_case(name, value, B, positive=True, allow_zero=False):
@@ -108,6 +107,7 @@ class Pipes:
         self.C = np.ascontiguousarray(self.gas.coef)
         self.Q = np.zeros((B, s.NQ, N))
         self.T_cell = np.full((B, N), 300.0)          # each cell's last temperature [K]: its Newton start
+        self.p_end = np.zeros((B, 2))                 # each end's last pressure [Pa]: its solve's start
         self.ends = closed_ends(B)
         self.steps_taken = np.zeros(B, dtype=np.int64)
         self.fallback_steps = np.zeros(B, dtype=np.int64)
@@ -134,6 +134,7 @@ class Pipes:
         self.Q[:, s.ENERGY] = m * (e + 0.5 * u * u)
         self.Q[:, s.BURNED] = m * Y
         self.T_cell = np.ascontiguousarray(T, dtype=float).copy()
+        self.p_end = np.zeros((self.B, 2))
 
     def _coef_np(self):
         return (np.moveaxis(self.C[:, 0], 0, -1)[..., None], np.moveaxis(self.C[:, 1], 0, -1)[..., None])
@@ -182,7 +183,7 @@ class Pipes:
         if ends is not None:
             self.ends = np.ascontiguousarray(ends, dtype=float)
         acc, steps, fallbacks = s.advance_arrays(self.Q, self.G, self.face_area, self.P, self.ends, self.C,
-                                                 self.T_cell, self.gas.t_mid_K, self.gas.newton_steps,
+                                                 self.T_cell, self.p_end, self.gas.t_mid_K, self.gas.newton_steps,
                                                  end_iterations, dur, max_steps)
         self.steps_taken += steps
         self.fallback_steps += fallbacks

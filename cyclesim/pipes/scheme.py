@@ -31,7 +31,7 @@ from __future__ import annotations
 import numpy as np
 
 import cyclesim.pipes.kernels as k
-from ._jit import COMPILED, compiled_kernels
+from ._jit import COMPILED, FASTMATH, compiled_kernels
 
 # rows of the conserved state Q (B, NQ, N): cell totals
 MASS, MOMENTUM, ENERGY, BURNED = 0, 1, 2, 3
@@ -57,7 +57,7 @@ MAX_CUTS = 30
 """Halvings of a case's sub-step before the advance gives up."""
 
 
-def _advance_numpy(Q, G, Af, P, E, C, Tc, t_mid, n_newton, n_iter, duration, max_steps):
+def _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration, max_steps):
     """Advance every case by its ``duration`` [s] (arrays as in :func:`advance`); numpy over (case, cell)."""
     B, _, N = Q.shape
     acc = np.zeros((B, 2, NF))
@@ -124,7 +124,8 @@ def _advance_numpy(Q, G, Af, P, E, C, Tc, t_mid, n_newton, n_iter, duration, max
             _, cj = k.total_energy(rj, uj, pj, yj, cf1, cb1, Rf[:, 0], Rb[:, 0], t_mid)
             ef = k.end_flux(rj, uj, pj, yj, cj * cj * rj / pj, side, Af[:, face],
                             E[:, end, E_CDA], E[:, end, E_P], E[:, end, E_T], E[:, end, E_Y], E[:, end, E_K],
-                            cf1, cb1, Rf[:, 0], Rb[:, 0], t_mid, n_iter)
+                            cf1, cb1, Rf[:, 0], Rb[:, 0], t_mid, n_iter, Pe[:, end])
+            Pe[:, end] = ef[4]
             for q in range(4):
                 F[q, :, face] = ef[q]
         rh, uh, ph, yh = 0.5 * (rl + rr), 0.5 * (ul + ur), 0.5 * (pl + pr), 0.5 * (yl + yr)
@@ -147,7 +148,8 @@ def _advance_numpy(Q, G, Af, P, E, C, Tc, t_mid, n_newton, n_iter, duration, max
             for end, (side, j, face) in enumerate(ends):
                 ef = k.end_flux(rho[:, j], u[:, j], p[:, j], Y[:, j], g[:, j], side, Af[:, face],
                                 E[:, end, E_CDA], E[:, end, E_P], E[:, end, E_T], E[:, end, E_Y], E[:, end, E_K],
-                                cf1, cb1, Rf[:, 0], Rb[:, 0], t_mid, n_iter)
+                                cf1, cb1, Rf[:, 0], Rb[:, 0], t_mid, n_iter, Pe[:, end])
+                Pe[:, end] = np.where(flag[:, face], ef[4], Pe[:, end])
                 for q in range(4):
                     F1[q, :, face] = ef[q]
             F = np.where(flag[None], F1, F)
@@ -189,26 +191,28 @@ if COMPILED:
 
     kc = compiled_kernels()
 
-    @njit(cache=True, error_model="numpy")
-    def _end_into(F, face, side, end, rj, uj, pj, yj, gj, b, Af, E, cf, cb, Rf, Rb, t_mid, n_iter):
+    @njit(cache=True, error_model="numpy", fastmath=FASTMATH)
+    def _end_into(F, face, side, end, rj, uj, pj, yj, gj, b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter):
         """Flux of end ``end`` from the face state (rj, uj, pj, yj, gamma gj) into column ``face`` of F."""
         n_it = n_iter if E[b, end, E_CDA] > 0.0 else 0      # a closed end needs no pressure iteration
-        f0, f1, f2, f3 = kc.end_flux(rj, uj, pj, yj, gj, side, Af[b, face], E[b, end, E_CDA], E[b, end, E_P],
-                                    E[b, end, E_T], E[b, end, E_Y], E[b, end, E_K], cf, cb, Rf, Rb, t_mid, n_it)
+        f0, f1, f2, f3, pb = kc.end_flux(rj, uj, pj, yj, gj, side, Af[b, face], E[b, end, E_CDA], E[b, end, E_P],
+                                        E[b, end, E_T], E[b, end, E_Y], E[b, end, E_K], cf, cb, Rf, Rb, t_mid,
+                                        n_it, Pe[b, end])
+        Pe[b, end] = pb
         F[0, face] = f0
         F[1, face] = f1
         F[2, face] = f2
         F[3, face] = f3
 
-    @njit(cache=True, error_model="numpy")
+    @njit(cache=True, error_model="numpy", fastmath=FASTMATH)
     def _update_cell(Qn, Q, F, b, i, dt, ph, s_mom, s_E, Vi, dA):
         Qn[MASS, i] = Q[b, MASS, i] - dt * (F[0, i + 1] - F[0, i])
         Qn[MOMENTUM, i] = Q[b, MOMENTUM, i] - dt * (F[1, i + 1] - F[1, i] - ph * dA - Vi * s_mom)
         Qn[ENERGY, i] = Q[b, ENERGY, i] - dt * (F[2, i + 1] - F[2, i] - Vi * s_E)
         Qn[BURNED, i] = Q[b, BURNED, i] - dt * (F[3, i + 1] - F[3, i])
 
-    @njit(cache=True, error_model="numpy")
-    def _advance_compiled(Q, G, Af, P, E, C, Tc, t_mid, n_newton, n_iter, duration, max_steps):
+    @njit(cache=True, error_model="numpy", fastmath=FASTMATH)
+    def _advance_compiled(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration, max_steps):
         B, _, N = Q.shape
         acc = np.zeros((B, 2, NF))
         steps = np.zeros(B, dtype=np.int64)
@@ -301,10 +305,10 @@ if COMPILED:
                     F[2, i] = f2 * a
                     F[3, i] = f3 * a
                 _end_into(F, 0, -1.0, 0, L[0, 0], L[1, 0], L[2, 0], L[3, 0], cl[0] * cl[0] * L[0, 0] / L[2, 0],
-                          b, Af, E, cf, cb, Rf, Rb, t_mid, n_iter)
+                          b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter)
                 j = N - 1
                 _end_into(F, N, 1.0, 1, R[0, j], R[1, j], R[2, j], R[3, j], cr[j] * cr[j] * R[0, j] / R[2, j],
-                          b, Af, E, cf, cb, Rf, Rb, t_mid, n_iter)
+                          b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter)
                 n_bad = 0
                 for i in range(N):
                     Vi = G[b, G_VOLUME, i]
@@ -320,10 +324,10 @@ if COMPILED:
                             continue
                         if f == 0:
                             _end_into(F, 0, -1.0, 0, W[0, 0], W[1, 0], W[2, 0], W[3, 0], W[5, 0],
-                                      b, Af, E, cf, cb, Rf, Rb, t_mid, n_iter)
+                                      b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter)
                         elif f == N:
                             _end_into(F, N, 1.0, 1, W[0, j], W[1, j], W[2, j], W[3, j], W[5, j],
-                                      b, Af, E, cf, cb, Rf, Rb, t_mid, n_iter)
+                                      b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter)
                         else:
                             i0 = f - 1
                             E0 = W[0, i0] * kc.energy(W[4, i0], W[3, i0], cf, cb, t_mid)[0] \
@@ -369,22 +373,23 @@ if COMPILED:
         return acc, steps, fallbacks, -1, 0
 
 
-def advance_arrays(Q, G, Af, P, E, C, Tc, t_mid, n_newton, n_iter, duration, max_steps=1_000_000):
+def advance_arrays(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration, max_steps=1_000_000):
     """Advance the pipes of a batch in place by ``duration`` [s] per case; see :meth:`cyclesim.pipes.Pipes.advance`.
 
     ``Tc`` (B, N) holds each cell's last temperature [K], the start of its
-    Newton steps, and is updated.  Returns the time-integrated fluxes into the
+    Newton steps, and ``Pe`` (B, 2) each end's last pressure [Pa], the start of
+    its pressure solve (0: none); both are updated.  Returns the time-integrated fluxes into the
     pipe through each end (B, 2, NF) [kg, J, kg], the sub-steps taken per case
     (B,) (those taken again after a halving included) and the sub-steps per
     case that needed the first-order fallback (B,).
     """
     duration = np.ascontiguousarray(duration, dtype=float)
     if COMPILED:
-        acc, steps, fallbacks, failed, why = _advance_compiled(Q, G, Af, P, E, C, Tc, float(t_mid), int(n_newton),
+        acc, steps, fallbacks, failed, why = _advance_compiled(Q, G, Af, P, E, C, Tc, Pe, float(t_mid), int(n_newton),
                                                                int(n_iter), duration, int(max_steps))
         if failed >= 0:
             raise _lost_positivity() if why else _too_many_steps(int(max_steps))
         return acc, steps, fallbacks
     with np.errstate(all="ignore"):
-        return _advance_numpy(Q, G, Af, P, E, C, Tc, float(t_mid), int(n_newton), int(n_iter), duration,
+        return _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, float(t_mid), int(n_newton), int(n_iter), duration,
                               int(max_steps))
