@@ -65,11 +65,54 @@ class PipeSystem:
         return {key: sum(t[key] for t in tot) for key in ("mass_kg", "energy_J", "burned_mass_kg")}
 
 
-def _cases(name, value, B):
-    a = np.broadcast_to(np.asarray(value, dtype=float), (B,))
-    if not np.all(np.isfinite(a)):
-        raise SolverError(f"pipe coupling: {name} must be finite")
-    return a
+def _cases(value, B):
+    if isinstance(value, (float, int)):
+        return np.full(B, float(value))
+    a = np.asarray(value, dtype=float)
+    return a if a.shape == (B,) and a.flags.c_contiguous else np.ascontiguousarray(np.broadcast_to(a, (B,)))
+
+
+_INPUT_ERRORS = ("", "duration_s must be finite and >= 0", "valve_cda_m2 must be finite and >= 0",
+                 "cylinder pressure and temperature must be finite and > 0, burned fraction 0..1")
+
+
+def _check(dur, cda, p, T, Y):
+    """0 if the crank step's inputs are valid, else the index of the message in ``_INPUT_ERRORS``."""
+    if not (np.all(np.isfinite(dur)) and np.all(dur >= 0)):
+        return 1
+    if not (np.all(np.isfinite(cda)) and np.all(cda >= 0)):
+        return 2
+    ok = np.isfinite(p) & np.isfinite(T) & np.isfinite(Y)
+    if not (np.all(ok) and np.all(p > 0) and np.all(T > 0) and np.all(Y >= 0) and np.all(Y <= 1)):
+        return 3
+    return 0
+
+
+def _valve_step(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y):
+    """Set the valve end ``end`` of one runner (B cases) and advance it; numpy form."""
+    E[:, end, s.E_CDA] = cda
+    E[:, end, s.E_P] = p
+    E[:, end, s.E_T] = T
+    E[:, end, s.E_Y] = Y
+    E[:, end, s.E_K] = 0.0                              # the valve's discharge coefficient is in its area
+    return s.advance_arrays(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps)
+
+
+if s.COMPILED:
+    from numba import njit
+
+    _check = njit(cache=True)(_check)
+
+    @njit(cache=True)
+    def _valve_step_compiled(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y):
+        """:func:`_valve_step` in one compiled call (no Python between the valve and the sub-steps)."""
+        for b in range(Q.shape[0]):
+            E[b, end, s.E_CDA] = cda[b]
+            E[b, end, s.E_P] = p[b]
+            E[b, end, s.E_T] = T[b]
+            E[b, end, s.E_Y] = Y[b]
+            E[b, end, s.E_K] = 0.0
+        return s._advance_compiled(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps)
 
 
 def advance_crank_step(system: PipeSystem, duration_s, valve_cda_m2, cylinder_pressure_pa,
@@ -95,42 +138,44 @@ def advance_crank_step(system: PipeSystem, duration_s, valve_cda_m2, cylinder_pr
         each runner through its other end (``outer_mass_kg``,
         ``outer_energy_J``, ``outer_burned_mass_kg``) and ``steps``, the
         sub-steps each runner took.
+
+    Raises
+    ------
+    SolverError
+        On inputs that are not finite or out of range, and where a runner's
+        sub-steps collapse (:mod:`cyclesim.pipes.scheme`).
     """
     B, V = system.B, system.n_valves
-    dur = _cases("duration_s", duration_s, B)
-    if np.any(dur < 0):
-        raise SolverError("pipe coupling: duration_s must be >= 0")
-    cda = np.broadcast_to(np.asarray(valve_cda_m2, dtype=float), (B, V))
-    if not np.all(np.isfinite(cda)) or np.any(cda < 0):
-        raise SolverError("pipe coupling: valve_cda_m2 must be finite and >= 0")
-    p = _cases("cylinder_pressure_pa", cylinder_pressure_pa, B)
-    T = _cases("cylinder_temperature_K", cylinder_temperature_K, B)
-    Y = _cases("cylinder_burned_fraction", cylinder_burned_fraction, B)
-    if np.any(p <= 0) or np.any(T <= 0) or np.any((Y < 0) | (Y > 1)):
-        raise SolverError("pipe coupling: cylinder pressure and temperature must be > 0, burned fraction 0..1")
-    out = {key: np.zeros((B, V)) for key in ("mass_kg", "enthalpy_J", "burned_mass_kg", "outer_mass_kg",
-                                             "outer_energy_J", "outer_burned_mass_kg")}
-    out["steps"] = np.zeros((B, V), dtype=np.int64)
+    dur = _cases(duration_s, B)
+    cda = np.asarray(valve_cda_m2, dtype=float)
+    if cda.shape != (B, V):
+        cda = np.broadcast_to(cda, (B, V))
+    p = _cases(cylinder_pressure_pa, B)
+    T = _cases(cylinder_temperature_K, B)
+    Y = _cases(cylinder_burned_fraction, B)
+    bad = _check(dur, cda, p, T, Y)
+    if bad:
+        raise SolverError(f"pipe coupling: {_INPUT_ERRORS[int(bad)]}")
+    keys = ("mass_kg", "enthalpy_J", "burned_mass_kg", "outer_mass_kg", "outer_energy_J", "outer_burned_mass_kg")
+    res = np.empty((6, B, V))
+    steps = np.empty((B, V), dtype=np.int64)
     for j, (pipe, end) in enumerate(zip(system.runners, system.valve_ends)):
-        E = pipe.ends
-        E[:, end, s.E_CDA] = cda[:, j]
-        E[:, end, s.E_P] = p
-        E[:, end, s.E_T] = T
-        E[:, end, s.E_Y] = Y
-        E[:, end, s.E_K] = 0.0                          # the valve's discharge coefficient is in its area
-        acc, steps, fallbacks = s.advance_arrays(pipe.Q, pipe.G, pipe.face_area, pipe.P, E, pipe.C, pipe.T_cell,
-                                                 pipe.p_end, pipe.gas.t_mid_K, pipe.gas.newton_steps,
-                                                 end_iterations, dur)
-        pipe.steps_taken += steps
+        args = (pipe.Q, pipe.G, pipe.face_area, pipe.P, pipe.ends, pipe.C, pipe.T_cell, pipe.p_end,
+                pipe.gas.t_mid_K, pipe.gas.newton_steps, end_iterations, dur, 1_000_000, end,
+                np.ascontiguousarray(cda[:, j]), p, T, Y)
+        if s.COMPILED:
+            a, st, fallbacks, failed, why = _valve_step_compiled(*args)
+            if failed >= 0:
+                raise s._lost_positivity() if why else s._too_many_steps(1_000_000)
+        else:
+            a, st, fallbacks = _valve_step(*args)
+        pipe.steps_taken += st
         pipe.fallback_steps += fallbacks
-        other = 1 - end
-        out["mass_kg"][:, j] = -acc[:, end, s.F_MASS]
-        out["enthalpy_J"][:, j] = -acc[:, end, s.F_ENERGY]
-        out["burned_mass_kg"][:, j] = -acc[:, end, s.F_BURNED]
-        out["outer_mass_kg"][:, j] = acc[:, other, s.F_MASS]
-        out["outer_energy_J"][:, j] = acc[:, other, s.F_ENERGY]
-        out["outer_burned_mass_kg"][:, j] = acc[:, other, s.F_BURNED]
-        out["steps"][:, j] = steps
+        res[:3, :, j] = -a[:, end, :].T                # out of the pipe through the valve: into the cylinder
+        res[3:, :, j] = a[:, 1 - end, :].T
+        steps[:, j] = st
+    out = dict(zip(keys, res))
+    out["steps"] = steps
     return out
 
 
