@@ -28,13 +28,17 @@ def _want_compiled() -> bool:
     return True
 
 
+FASTMATH = {"contract", "arcp", "nsz", "afn"}
+"""LLVM's fast-math flags of the compiled kernels: fused multiply-adds, reciprocals, signless zeros and
+approximate functions; no assumption that values are finite (the kernels test for zeros and NaN)."""
+
 COMPILED = _want_compiled()
 """True where the kernels are compiled by numba in this process."""
 
 if COMPILED:
     from numba import njit as _njit
 
-    @_njit(cache=True)
+    @_njit(cache=True, error_model="numpy", fastmath=FASTMATH)
     def _where(cond, a, b):
         """``a`` if ``cond`` else ``b`` for scalars (the compiled form of ``np.where``)."""
         return a if cond else b
@@ -54,8 +58,9 @@ def compiled_kernels():
 
         spec = importlib.util.spec_from_file_location("cyclesim.pipes._kernels_compiled", kernels_file)
         mod = importlib.util.module_from_spec(spec)
-        mod.jit = njit(cache=True)
+        mod.jit = njit(cache=True, error_model="numpy", fastmath=FASTMATH)
         mod.where = _where
+        mod.SCALAR = True
         sys.modules[spec.name] = mod            # importable by name: numba's disk cache reloads through it
         spec.loader.exec_module(mod)
         _compiled = mod

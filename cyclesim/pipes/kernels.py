@@ -21,17 +21,25 @@ import numpy as np
 
 from ..flow import isentropic_flux
 
-if "jit" not in globals():          # the numpy form; the compiled loader sets both first
+if "jit" not in globals():          # the numpy form; the compiled loader sets all three first
     def jit(fn):
         return fn
 
     where = np.where
+    SCALAR = False
+    """True in the compiled form, whose functions see one cell at a time (branches may be skipped)."""
 
 SUTHERLAND_MU0 = 1.716e-5
 """Sutherland's law for air, reference viscosity [Pa s] at 273.15 K (White 2006, table 1-2; from memory)."""
 SUTHERLAND_T0 = 273.15
 SUTHERLAND_S = 110.4
 """Sutherland's constant of air [K] (White 2006, table 1-2; from memory)."""
+
+T_MIN_K = 20.0
+T_MAX_K = 2.0e4
+"""Bounds of the temperature recovered from a cell's energy [K] (a cell at T_MIN_K has lost positivity)."""
+NEWTON_TOL_K = 1e-6
+"""Newton step [K] below which the compiled temperature recovery stops."""
 
 isentropic_flux_c = jit(isentropic_flux)
 
@@ -57,21 +65,31 @@ def energy(T, Y, cf, cb, t_mid):
 
 
 @jit
-def temperature(e, Y, cf, cb, t_mid, n_newton):
-    """Temperature [K] whose mixture internal energy is ``e`` [J/kg]: ``n_newton`` Newton steps from 700 K.
+def temperature(e, Y, cf, cb, t_mid, n_newton, T_start):
+    """Temperature [K] whose mixture internal energy is ``e`` [J/kg]: Newton steps from ``T_start`` [K].
 
-    One step is exact for a constant-gamma gas (u linear in T).
+    At most ``n_newton`` steps; compiled (scalars), the steps stop once a step
+    is below ``NEWTON_TOL_K`` (quadratic convergence: the error left is then far
+    below rounding of the state).  One step is exact for a constant-gamma gas
+    (u linear in T).  The scheme starts each cell from its temperature of the
+    sub-step before.
     """
-    T = 700.0 + 0.0 * e
+    T = T_start + 0.0 * e
     for _ in range(n_newton):
         u, cv = energy(T, Y, cf, cb, t_mid)
-        T = np.minimum(np.maximum(T - (u - e) / cv, 20.0), 2.0e4)
+        dT = (u - e) / cv
+        T = np.minimum(np.maximum(T - dT, T_MIN_K), T_MAX_K)
+        if SCALAR:
+            if abs(dT) < NEWTON_TOL_K:
+                break
     return T
 
 
 @jit
-def primitives(m, mom, E, mb, V, cf, cb, Rf, Rb, t_mid, n_newton):
+def primitives(m, mom, E, mb, V, cf, cb, Rf, Rb, t_mid, n_newton, T_start):
     """Cell totals (mass [kg], momentum [kg m/s], energy [J], burned mass [kg]) in cell volume ``V`` [m^3].
+
+    ``T_start`` [K] starts the temperature's Newton steps (:func:`temperature`).
 
     Returns density [kg/m^3], velocity [m/s], pressure [Pa], burned fraction [-],
     temperature [K], ratio of specific heats [-] and sound speed [m/s].
@@ -80,7 +98,7 @@ def primitives(m, mom, E, mb, V, cf, cb, Rf, Rb, t_mid, n_newton):
     u = mom / m
     Y = np.minimum(np.maximum(mb / m, 0.0), 1.0)
     e = E / m - 0.5 * u * u
-    T = temperature(e, Y, cf, cb, t_mid, n_newton)
+    T = temperature(e, Y, cf, cb, t_mid, n_newton, T_start)
     R = (1.0 - Y) * Rf + Y * Rb
     _, cv = energy(T, Y, cf, cb, t_mid)
     g = (cv + R) / cv
@@ -100,7 +118,8 @@ def limited_slope(d_left, d_right):
 @jit
 def sutherland_viscosity(T):
     """Dynamic viscosity of air [Pa s] at ``T`` [K] (Sutherland's law; constants from White 2006)."""
-    return SUTHERLAND_MU0 * (T / SUTHERLAND_T0) ** 1.5 * (SUTHERLAND_T0 + SUTHERLAND_S) / (T + SUTHERLAND_S)
+    t = T / SUTHERLAND_T0
+    return SUTHERLAND_MU0 * t * np.sqrt(t) * (SUTHERLAND_T0 + SUTHERLAND_S) / (T + SUTHERLAND_S)
 
 
 @jit
@@ -113,16 +132,27 @@ def fanning_factor(reynolds, rel_roughness):
     for smooth pipes (no transition model: common practice for engine runners,
     whose flow is turbulent most of the cycle).
     """
+    return fanning_from_roughness_term(reynolds, roughness_term(rel_roughness))
+
+
+@jit
+def roughness_term(rel_roughness):
+    """The roughness part ``(eps/D / 3.7)^1.11`` of Haaland's formula [-] (constant per cell)."""
+    return (rel_roughness / 3.7) ** 1.11
+
+
+@jit
+def fanning_from_roughness_term(reynolds, rough_term):
+    """:func:`fanning_factor` given the :func:`roughness_term` of the wall."""
     re = np.maximum(reynolds, 1e-12)
-    x = (rel_roughness / 3.7) ** 1.11 + 6.9 / re
-    inv = -1.8 * np.log10(x)
-    f_turb = 0.25 / np.maximum(inv, 1e-3) ** 2
+    inv = -1.8 * np.log10(rough_term + 6.9 / re)
+    f_turb = 0.25 / (np.maximum(inv, 1e-3) * np.maximum(inv, 1e-3))
     return np.maximum(16.0 / re, f_turb)
 
 
 @jit
-def wall_sources(rho, u, T, cp, diameter, rel_roughness, friction_scale, fixed_fanning, loss_per_length,
-                 wall_T, prandtl, heat_scale):
+def wall_sources(rho, u, T, cp, diameter, rough_term, friction_scale, fixed_fanning, loss_per_length,
+                 wall_T, colburn, heat_scale):
     """Wall force and wall heat per unit volume: momentum [N/m^3] and energy [W/m^3] sources.
 
     Wall shear ``tau = f rho u |u| / 2`` on the perimeter ``pi D`` of the section
@@ -132,14 +162,15 @@ def wall_sources(rho, u, T, cp, diameter, rel_roughness, friction_scale, fixed_f
     2007, eq. 8.66), ``q = St rho |u| cp (4/D) (T_wall - T)``.  ``friction_scale``
     multiplies f (0: inviscid), ``heat_scale`` multiplies the heat (0: adiabatic);
     ``fixed_fanning`` > 0 replaces f(Re) by that constant (the Fanno reference case).
+    ``rough_term`` is the wall's :func:`roughness_term`, ``colburn`` the factor ``Pr^(-2/3)``.
     """
     au = np.abs(u)
     mu = sutherland_viscosity(T)
-    f_re = fanning_factor(rho * au * diameter / mu, rel_roughness)
+    f_re = fanning_from_roughness_term(rho * au * diameter / mu, rough_term)
     f = friction_scale * where(fixed_fanning > 0.0, fixed_fanning + 0.0 * f_re, f_re)
     s_mom = -(2.0 * f / diameter + 0.5 * loss_per_length) * rho * u * au
     # f rho |u| stays finite as u -> 0 (laminar: 16 mu / D)
-    st_flux = 0.5 * np.maximum(f * rho * au, friction_scale * 16.0 * mu / diameter) * prandtl ** (-2.0 / 3.0)
+    st_flux = 0.5 * np.maximum(f * rho * au, friction_scale * 16.0 * mu / diameter) * colburn
     s_E = heat_scale * st_flux * cp * (4.0 / diameter) * (wall_T - T)
     return s_mom, s_E
 
@@ -183,30 +214,65 @@ def hllc_flux(rl, ul, pl, El, Yl, cl, rr, ur, pr, Er, Yr, cr):
 
 
 @jit
-def _end_branch(p, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry):
-    """Pipe-end state at boundary pressure ``p`` and the residual of its mass balance."""
-    k = 0.5 * (gm - 1.0) / gm
-    c_b = c_i * (p / p_i) ** k
-    v = lam - 2.0 * c_b / (gm - 1.0)
-    out = v >= 0.0
-    # outflow: the pipe's own entropy; stagnation state of the boundary gas
-    rho_o = rho_i * (p / p_i) ** (1.0 / gm)
-    T_o = p / (rho_o * R_i)
-    T0_o = T_o + 0.5 * v * v / cp_i
-    p0_o = p * (T0_o / T_o) ** (gm / (gm - 1.0))
-    g_out = cda * p0_o / np.sqrt(R_i * T0_o) * isentropic_flux_c(p_r / p0_o, gm)
-    # inflow: the reservoir's stagnation temperature, stagnation pressure less the entry loss
-    T_in = np.maximum(T_r - 0.5 * v * v / cp_r, 0.05 * T_r)
-    rho_in = p / (R_r * T_in)
-    p0_in = np.maximum(p_r - k_entry * 0.5 * rho_in * v * v, 1e-6 * p_r)
-    g_in = -cda * p0_in / np.sqrt(R_r * T_r) * isentropic_flux_c(p / p0_in, g_r)
-    rho_b = where(out, rho_o, rho_in)
-    resid = rho_b * v * area - where(out, g_out, g_in)
-    return resid, rho_b, v
+def rusanov_flux(rl, ul, pl, El, Yl, cl, rr, ur, pr, Er, Yr, cr):
+    """First-order local Lax-Friedrichs (Rusanov 1961) flux per unit area; arguments as :func:`hllc_flux`.
+
+    ``F = (F_l + F_r)/2 - s/2 (U_r - U_l)`` with ``s = max(|u_l| + c_l, |u_r| + c_r)``.
+    With cell averages as its states it keeps density, pressure and each
+    species' partial density positive under a CFL condition (Perthame and
+    Shu 1996, Numer. Math. 73, 119, sec. 2): the scheme's fallback where the
+    second-order update would lose positivity.
+    """
+    sp = np.maximum(np.abs(ul) + cl, np.abs(ur) + cr)
+    fl_m = rl * ul
+    fr_m = rr * ur
+    f_m = 0.5 * (fl_m + fr_m) - 0.5 * sp * (rr - rl)
+    f_p = 0.5 * (fl_m * ul + pl + fr_m * ur + pr) - 0.5 * sp * (fr_m - fl_m)
+    f_e = 0.5 * (ul * (El + pl) + ur * (Er + pr)) - 0.5 * sp * (Er - El)
+    f_y = 0.5 * (fl_m * Yl + fr_m * Yr) - 0.5 * sp * (rr * Yr - rl * Yl)
+    return f_m, f_p, f_e, f_y
 
 
 @jit
-def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry, n_iter):
+def _outflow_residual(p, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r):
+    """Mass balance of an end at boundary pressure ``p`` with gas leaving the pipe.
+
+    The boundary gas has the pipe's entropy; the nozzle passes it from its
+    stagnation state to the reservoir pressure ``p_r``.  Returns the residual
+    ``m - g`` [kg/s] of the pipe's outflow ``m`` and the nozzle's ``g``, the
+    boundary density and the outward velocity.
+    """
+    c_b = c_i * (p / p_i) ** (0.5 * (gm - 1.0) / gm)
+    v = lam - 2.0 * c_b / (gm - 1.0)
+    rho_b = rho_i * (p / p_i) ** (1.0 / gm)
+    T_o = p / (rho_b * R_i)
+    T0_o = T_o + 0.5 * v * v / cp_i
+    p0_o = p * (T0_o / T_o) ** (gm / (gm - 1.0))
+    g_out = cda * p0_o / np.sqrt(R_i * T0_o) * isentropic_flux_c(p_r / p0_o, gm)
+    return rho_b * v * area - g_out, rho_b, v
+
+
+@jit
+def _inflow_residual(p, p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry):
+    """Mass balance of an end at boundary pressure ``p`` with gas entering the pipe.
+
+    The boundary gas has the reservoir's stagnation temperature; the nozzle
+    passes it from the reservoir's stagnation pressure, less ``k_entry`` dynamic
+    heads, to ``p``.  Returns the residual ``m + g`` [kg/s] of the pipe's
+    outflow ``m`` (negative here) and the nozzle's inflow ``g``, the boundary
+    density and the outward velocity.
+    """
+    c_b = c_i * (p / p_i) ** (0.5 * (gm - 1.0) / gm)
+    v = lam - 2.0 * c_b / (gm - 1.0)
+    T_in = np.maximum(T_r - 0.5 * v * v / cp_r, 0.05 * T_r)
+    rho_b = p / (R_r * T_in)
+    p0_in = np.maximum(p_r - k_entry * 0.5 * rho_b * v * v, 1e-6 * p_r)
+    g_in = cda * p0_in / np.sqrt(R_r * T_r) * isentropic_flux_c(p / p0_in, g_r)
+    return rho_b * v * area + g_in, rho_b, v
+
+
+@jit
+def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry, n_iter, p_guess):
     """State at a pipe end behind a nozzle to a reservoir: density, outward velocity, pressure.
 
     The pipe side follows the outgoing characteristic ``v + 2c/(gamma-1)`` of the
@@ -217,12 +283,22 @@ def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_
     outflow from the boundary's stagnation state to the reservoir pressure
     ``p_r``, inflow from the reservoir's stagnation state (``p_r`` less
     ``k_entry`` times the dynamic head, ``T_r``) to the boundary pressure, choked
-    or not.  The boundary pressure solves the mass balance by ``n_iter``
-    bisections in ln p between the pipe end's sonic state and the larger of the
-    reservoir and the stagnation pressures; a pipe end that cannot pass what the
-    nozzle takes stays at its sonic state, and inflow is at most sonic at the
-    pipe end (``v >= -sqrt(2 g R T_r / (g + 1))``).  ``cda = 0`` is a closed end (zero
+    or not.  The direction is known before the solve: gas leaves the pipe when
+    ``p_r`` is below ``p_v0``, the pressure at which the characteristic gives
+    zero velocity.  The boundary pressure then solves that direction's mass
+    balance in ln p by at most ``n_iter`` secant steps from ``p_guess`` [Pa]
+    (the end's pressure of the sub-step before; <= 0: none), kept inside the
+    bracket by a bisection wherever a step would leave it (a safeguarded
+    secant, common practice; e.g. Press et al. 2007, Numerical Recipes, sec. 9.2-9.3);
+    the bracket is the pipe end's sonic state
+    to ``p_v0`` for outflow, ``p_v0`` to the smaller of ``p_r`` and the sonic
+    inflow pressure for inflow (inflow is at most sonic at the pipe end,
+    ``v >= -sqrt(2 g R T_r / (g + 1))``).  A pipe end that cannot pass what the
+    nozzle takes stays at its sonic state.  ``cda = 0`` is a closed end (zero
     velocity exactly).  An open end is ``cda`` equal to the pipe's area.
+    Compiled (scalars), only the direction taken is iterated and the steps stop
+    once the residual is below 1e-10 of the pipe's sonic mass flow scale; the
+    numpy form iterates both and picks one (a converged step stays put).
     """
     gm = g_i
     c_i = np.sqrt(gm * p_i / rho_i)
@@ -232,26 +308,127 @@ def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_
     c_star = np.maximum(lam * (gm - 1.0) / (gm + 1.0), 1e-3 * c_i)
     c_zero = np.maximum(0.5 * lam * (gm - 1.0), 1e-3 * c_i)
     p_lo = p_i * (c_star / c_i) ** inv_k
-    p_v0 = p_i * (c_zero / c_i) ** inv_k
-    # inflow is at most sonic at the pipe end: v >= -c*, c* = sqrt(2 g R T_r / (g + 1))
+    p_v0 = np.maximum(p_i * (c_zero / c_i) ** inv_k, 1.000001 * p_lo)
     c_in = np.sqrt(2.0 * g_r * R_r * T_r / (g_r + 1.0))
     p_cap = p_i * (np.maximum(0.5 * (lam + c_in) * (gm - 1.0), 1e-3 * c_i) / c_i) ** inv_k
-    lo = np.log(p_lo)
-    hi = np.log(np.maximum(np.minimum(np.maximum(p_v0, p_r), np.maximum(p_cap, p_v0)), 1.000001 * p_lo))
-    args = (rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
-    for _ in range(n_iter):
-        mid = 0.5 * (lo + hi)
-        resid, _, _ = _end_branch(np.exp(mid), *args)
-        pos = resid > 0.0                          # residual falls with pressure
-        lo = where(pos, mid, lo)
-        hi = where(pos, hi, mid)
-    p_b = np.exp(0.5 * (lo + hi))
+    out = p_r < p_v0
+    n_out = n_iter
+    n_in = n_iter
+    if SCALAR:
+        n_out = n_iter if out else 0
+        n_in = 0 if out else n_iter
+    x_guess = np.log(where(p_guess > 0.0, p_guess, 0.0 * p_guess + p_v0))
+    # outflow on [ln p_lo, ln p_v0]: the residual falls with pressure and is <= 0 at p_v0 (v = 0);
+    # through a nozzle no wider than the pipe the pipe end's pressure is at least the reservoir's
+    p_a = where(cda <= area, np.maximum(p_lo, np.minimum(p_r, 0.999999 * p_v0)), p_lo)
+    a = np.log(p_a)
+    b = np.log(p_v0)
+    fa, _, _ = _outflow_residual(p_a, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+    live = fa > 0.0                             # else the sonic end cannot pass what the nozzle takes
+    if SCALAR:
+        n_out = n_out if live else 0
+    x_out = _secant_outflow(a, b, x_guess, n_out, 1e-10 * rho_i * c_i * area,
+                            rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+    x_out = where(live, x_out, a)
+    # inflow on [ln p_v0, ln min(p_r, p_cap)]: the residual is >= 0 at p_v0 and falls with pressure
+    hi = np.maximum(np.minimum(p_r, np.maximum(p_cap, p_v0)), 1.000001 * p_v0)
+    a2 = np.log(p_v0)
+    b2 = np.log(hi)
+    fb2, _, _ = _inflow_residual(hi, p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+    live2 = fb2 < 0.0                           # else capped at the sonic inflow
+    if SCALAR:
+        n_in = n_in if live2 else 0
+    x_in = _secant_inflow(a2, b2, x_guess, n_in, 1e-10 * p_i / c_i * area,
+                          p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+    x_in = where(live2, x_in, b2)
+    p_o = np.exp(x_out)
+    p_n = np.exp(x_in)
+    _, rho_o, v_o = _outflow_residual(p_o, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+    _, rho_n, v_n = _inflow_residual(p_n, p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+    v_o = np.maximum(v_o, 0.0)
+    v_n = np.minimum(v_n, 0.0)
     closed = cda <= 0.0
-    p_b = where(closed, p_v0, p_b)
-    _, rho_b, v_b = _end_branch(p_b, *args)
-    rho_b = where(closed, rho_i * (p_b / p_i) ** (1.0 / gm), rho_b)
-    v_b = where(closed, 0.0 * v_b, v_b)
+    p_b = where(closed, p_v0, where(out, p_o, p_n))
+    rho_b = where(closed, rho_i * (p_v0 / p_i) ** (1.0 / gm), where(out, rho_o, rho_n))
+    v_b = where(closed, 0.0 * v_o, where(out, v_o, v_n))
     return rho_b, v_b, p_b
+
+
+@jit
+def _secant_point(x0, f0, x1, f1, a, b, ftol):
+    """Next point of the safeguarded secant in the bracket (a, b); stays at ``x1`` once converged."""
+    den = f1 - f0
+    ok = den != 0.0
+    xn = x1 - f1 * (x1 - x0) / where(ok, den, 1.0 + 0.0 * den)
+    inside = ok & (xn > a) & (xn < b)
+    xn = where(inside, xn, 0.5 * (a + b))
+    return where(np.abs(f1) <= ftol, x1, xn)
+
+
+@jit
+def _narrow(a, b, x, f):
+    """The bracket (a, b) of a falling residual narrowed by the point ``x`` with residual ``f``."""
+    return where(f > 0.0, np.maximum(a, x), a), where(f > 0.0, b, np.minimum(b, x))
+
+
+@jit
+def _start(a, b, x_guess):
+    """Two start points of the secant: the guess put inside the bracket and a point 1e-6 from it."""
+    x0 = np.minimum(np.maximum(x_guess, a), b)
+    x1 = where(x0 + 1e-6 < b, x0 + 1e-6, x0 - 1e-6)
+    return x0, np.minimum(np.maximum(x1, a), b)
+
+
+@jit
+def _secant_outflow(a, b, x_guess, n, ftol, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r):
+    """Root in ln p of the outflow residual in the bracket (a, b): ``n`` safeguarded secant steps."""
+    x0, x1 = _start(a, b, x_guess)
+    f0, _, _ = _outflow_residual(np.exp(x0), rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+    a, b = _narrow(a, b, x0, f0)
+    f1, _, _ = _outflow_residual(np.exp(x1), rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+    a, b = _narrow(a, b, x1, f1)
+    for _ in range(n):
+        if SCALAR:
+            if abs(f1) <= ftol:
+                break
+        xn = _secant_point(x0, f0, x1, f1, a, b, ftol)
+        fn, _, _ = _outflow_residual(np.exp(xn), rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+        a, b = _narrow(a, b, xn, fn)
+        x0, f0, x1, f1 = x1, f1, xn, fn
+    return x1
+
+
+@jit
+def _secant_inflow(a, b, x_guess, n, ftol, p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry):
+    """Root in ln p of the inflow residual in the bracket (a, b): ``n`` safeguarded secant steps."""
+    x0, x1 = _start(a, b, x_guess)
+    f0, _, _ = _inflow_residual(np.exp(x0), p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+    a, b = _narrow(a, b, x0, f0)
+    f1, _, _ = _inflow_residual(np.exp(x1), p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+    a, b = _narrow(a, b, x1, f1)
+    for _ in range(n):
+        if SCALAR:
+            if abs(f1) <= ftol:
+                break
+        xn = _secant_point(x0, f0, x1, f1, a, b, ftol)
+        fn, _, _ = _inflow_residual(np.exp(xn), p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+        a, b = _narrow(a, b, xn, fn)
+        x0, f0, x1, f1 = x1, f1, xn, fn
+    return x1
+
+
+@jit
+def positive(m, mom, E, mb, T_floor, cf, cb, t_mid):
+    """Whether cell totals have positive mass and an internal energy above that at ``T_floor`` [K].
+
+    ``T_floor`` is raised to ``T_MIN_K`` at least.
+    """
+    ok_m = m > 0.0
+    ms = where(ok_m, m, 1.0 + 0.0 * m)
+    u = mom / ms
+    Y = np.minimum(np.maximum(mb / ms, 0.0), 1.0)
+    e_floor, _ = energy(np.maximum(T_floor, T_MIN_K), Y, cf, cb, t_mid)
+    return ok_m & (E / ms - 0.5 * u * u > e_floor)
 
 
 @jit
@@ -299,21 +476,22 @@ def predict(rho, u, p, Y, g, dr, du, dp, dY, ax, s_u, s_p, half_dt, dx):
 
 
 @jit
-def cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, diameter, rel_roughness, friction_scale,
-                 fixed_fanning, loss_per_length, wall_T, prandtl, heat_scale):
+def cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, diameter, rough_term, friction_scale,
+                 fixed_fanning, loss_per_length, wall_T, colburn, heat_scale):
     """Wall sources of a primitive state: momentum [N/m^3], energy [W/m^3], velocity [m/s^2], pressure [Pa/s]."""
     R = mixture_R(Y, Rf, Rb)
     T = p / (rho * R)
     _, cv = energy(T, Y, cf, cb, t_mid)
-    s_mom, s_E = wall_sources(rho, u, T, cv + R, diameter, rel_roughness, friction_scale,
-                             fixed_fanning, loss_per_length, wall_T, prandtl, heat_scale)
+    s_mom, s_E = wall_sources(rho, u, T, cv + R, diameter, rough_term, friction_scale,
+                             fixed_fanning, loss_per_length, wall_T, colburn, heat_scale)
     # friction turns kinetic into internal energy: dp/dt = (gamma-1) (q - u f)
     return s_mom, s_E, s_mom / rho, R / cv * (s_E - u * s_mom)
 
 
 @jit
-def end_flux(rho, u, p, Y, g, side, area, cda, p_r, T_r, Y_r, k_entry, cf, cb, Rf, Rb, t_mid, n_iter):
-    """Fluxes through a pipe end in +x times the end's area: mass [kg/s], momentum [N], energy [W], burned mass [kg/s].
+def end_flux(rho, u, p, Y, g, side, area, cda, p_r, T_r, Y_r, k_entry, cf, cb, Rf, Rb, t_mid, n_iter, p_guess):
+    """Fluxes through a pipe end in +x times the end's area: mass [kg/s], momentum [N], energy [W], burned mass [kg/s];
+    then the end's pressure [Pa] (the ``p_guess`` of the next call).
 
     ``side`` is -1 at the left end (x = 0), +1 at the right; (rho, u, p, Y, g) the
     interior face state; the reservoir behind the nozzle ``cda`` [m^2] has
@@ -326,9 +504,10 @@ def end_flux(rho, u, p, Y, g, side, area, cda, p_r, T_r, Y_r, k_entry, cf, cb, R
     e_r, cv_r = energy(T_r, Y_r, cf, cb, t_mid)
     cp_r = cv_r + R_r
     rho_b, v_b, p_b = end_state(rho, side * u, p, g, R_i, cda, area, p_r, T_r, R_r, cp_r / cv_r,
-                                cp_r, k_entry, n_iter)
+                                cp_r, k_entry, n_iter, p_guess)
     e_b, _ = energy(p_b / (rho_b * R_i), Y, cf, cb, t_mid)
     out = v_b >= 0.0
     h0 = where(out, e_b + p_b / rho_b + 0.5 * v_b * v_b, e_r + R_r * T_r)
     m_out = rho_b * v_b * area
-    return side * m_out, (rho_b * v_b * v_b + p_b) * area, side * m_out * h0, side * m_out * where(out, Y, Y_r)
+    return (side * m_out, (rho_b * v_b * v_b + p_b) * area, side * m_out * h0, side * m_out * where(out, Y, Y_r),
+            p_b)

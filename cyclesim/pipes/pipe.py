@@ -13,9 +13,10 @@ import cyclesim.pipes.kernels as k
 import cyclesim.pipes.scheme as s
 from .gas import PipeGas, constant_gamma
 
-DEFAULT_END_ITERATIONS = 24
-"""Bisections of the end-pressure solve: a bracket of a factor 10 narrows to 1.4e-7 relative
-(a velocity error near 4e-5 m/s at 300 K); conservation does not depend on it."""
+DEFAULT_END_ITERATIONS = 30
+"""Most steps of the end-pressure solve (safeguarded secant from the end's last pressure, see
+:func:`cyclesim.pipes.kernels.end_state`); compiled, it stops at its tolerance, typically after
+two or three; conservation does not depend on it."""
 
 
 def _per_case(name, value, B, positive=True, allow_zero=False):
@@ -52,10 +53,8 @@ class Pipes:
         Prandtl number of the gas for the Reynolds analogy [-] (0.7: common practice for air).
     cfl : array_like
         Courant number of the sub-steps on the cells' largest ``|u| + c`` (0 < cfl <= 0.9).
-        Known weakness: under harsh random end conditions (reservoirs at 0.5-3 bar and
-        up to 1100 K on both ends of a short tapered pipe; tests' ``_random_batch(seed,
-        harsh=True)``) 2 of 300 batches of 3 lose positivity near an end (seeds 264, 276),
-        at each Courant number tried (0.3-0.8); moderate conditions lost none of 300.
+        Where a cell's second-order update would lose positivity the scheme falls
+        back to first order there (:mod:`cyclesim.pipes.scheme`).
     fixed_fanning : array_like
         A constant Fanning factor instead of f(Re, roughness) where > 0 [-].
     """
@@ -90,8 +89,8 @@ class Pipes:
         G[:, s.G_VOLUME] = self.volume
         G[:, s.G_AREA_SLOPE] = (self.face_area[:, 1:] - self.face_area[:, :-1]) / (self.dx[:, None] * a_mean)
         G[:, s.G_DIAMETER] = np.sqrt(4.0 * a_mean / np.pi)
-        G[:, s.G_REL_ROUGHNESS] = _per_case("roughness_m", roughness_m, B, allow_zero=True)[:, None] \
-            / G[:, s.G_DIAMETER]
+        G[:, s.G_ROUGH_TERM] = k.roughness_term(_per_case("roughness_m", roughness_m, B, allow_zero=True)[:, None]
+                                                / G[:, s.G_DIAMETER])
         self.G = G
         P = np.empty((B, s.NP))
         P[:, s.P_DX] = self.dx
@@ -99,7 +98,7 @@ class Pipes:
         P[:, s.P_FIXED_FANNING] = _per_case("fixed_fanning", fixed_fanning, B, allow_zero=True)
         P[:, s.P_LOSS_PER_LENGTH] = _per_case("bend_loss", bend_loss, B, allow_zero=True) / L
         P[:, s.P_WALL_T] = _per_case("wall_temperature_K", wall_temperature_K, B)
-        P[:, s.P_PRANDTL] = _per_case("prandtl", prandtl, B)
+        P[:, s.P_COLBURN] = _per_case("prandtl", prandtl, B) ** (-2.0 / 3.0)
         P[:, s.P_HEAT] = _per_case("heat_scale", heat_scale, B, allow_zero=True)
         P[:, s.P_CFL] = cfl
         P[:, s.P_R_FRESH] = self.gas.R[:, 0]
@@ -107,8 +106,11 @@ class Pipes:
         self.P = P
         self.C = np.ascontiguousarray(self.gas.coef)
         self.Q = np.zeros((B, s.NQ, N))
+        self.T_cell = np.full((B, N), 300.0)          # each cell's last temperature [K]: its Newton start
+        self.p_end = np.zeros((B, 2))                 # each end's last pressure [Pa]: its solve's start
         self.ends = closed_ends(B)
         self.steps_taken = np.zeros(B, dtype=np.int64)
+        self.fallback_steps = np.zeros(B, dtype=np.int64)
 
     # -- state ------------------------------------------------------------------------------
     def set_state(self, pressure_pa, temperature_K, velocity_m_per_s=0.0, burned_fraction=0.0):
@@ -131,6 +133,8 @@ class Pipes:
         self.Q[:, s.MOMENTUM] = m * u
         self.Q[:, s.ENERGY] = m * (e + 0.5 * u * u)
         self.Q[:, s.BURNED] = m * Y
+        self.T_cell = np.ascontiguousarray(T, dtype=float).copy()
+        self.p_end = np.zeros((self.B, 2))
 
     def _coef_np(self):
         return (np.moveaxis(self.C[:, 0], 0, -1)[..., None], np.moveaxis(self.C[:, 1], 0, -1)[..., None])
@@ -142,7 +146,7 @@ class Pipes:
         cf, cb = self._coef_np()
         out = k.primitives(Q[:, s.MASS], Q[:, s.MOMENTUM], Q[:, s.ENERGY], Q[:, s.BURNED], self.volume,
                            cf, cb, self.gas.R[:, :1], self.gas.R[:, 1:], self.gas.t_mid_K,
-                           self.gas.newton_steps)
+                           self.gas.newton_steps, self.T_cell)
         names = ("density_kg_m3", "velocity_m_s", "pressure_pa", "burned_fraction", "temperature_K",
                  "gamma", "sound_speed_m_s")
         return dict(zip(names, out))
@@ -171,16 +175,20 @@ class Pipes:
             end 1 (x = L), shape (B, 2): ``mass_kg``, ``energy_J``,
             ``burned_mass_kg``; and ``steps`` (B,), the sub-steps taken.  The
             pipe's contents change by exactly the sum of the two ends' entries (to
-            rounding), so a coupled volume that books the opposite stays conservative.
+            rounding), so a coupled volume that books the opposite stays conservative;
+            ``fallback_steps`` (B,), the sub-steps that took the first-order
+            positivity fallback in some cells (:mod:`cyclesim.pipes.scheme`).
         """
         dur = _per_case("duration_s", duration_s, self.B, allow_zero=True)
         if ends is not None:
             self.ends = np.ascontiguousarray(ends, dtype=float)
-        acc, steps = s.advance_arrays(self.Q, self.G, self.face_area, self.P, self.ends, self.C,
-                                      self.gas.t_mid_K, self.gas.newton_steps, end_iterations, dur, max_steps)
+        acc, steps, fallbacks = s.advance_arrays(self.Q, self.G, self.face_area, self.P, self.ends, self.C,
+                                                 self.T_cell, self.p_end, self.gas.t_mid_K, self.gas.newton_steps,
+                                                 end_iterations, dur, max_steps)
         self.steps_taken += steps
+        self.fallback_steps += fallbacks
         return {"mass_kg": acc[:, :, s.F_MASS], "energy_J": acc[:, :, s.F_ENERGY],
-                "burned_mass_kg": acc[:, :, s.F_BURNED], "steps": steps}
+                "burned_mass_kg": acc[:, :, s.F_BURNED], "steps": steps, "fallback_steps": fallbacks}
 
 
 def closed_ends(n_cases: int) -> np.ndarray:
