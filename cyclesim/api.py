@@ -120,8 +120,8 @@ def _registry_for(cases: Sequence[Case]):
 def model_figures(batch, cols: dict, summary: Mapping | None = None) -> tuple[dict, list[list[str]]]:
     """The submodels' own figures and per-case warnings from a finished batch's trace columns.
 
-    The emissions model runs last, with the batch's ``summary`` figures (arrays (B,)); the trace
-    columns it returns are added to ``cols``.
+    The emissions model runs last, with the batch's ``summary`` figures (arrays (B,), ``mode``
+    ``"fired"`` or ``"motored"`` among them); the trace columns it returns are added to ``cols``.
     """
     figs: dict = {}
     warn: list[list[str]] = [[] for _ in range(batch.B)]
@@ -175,7 +175,7 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
     for got in registry.pm.hook.cyclesim_extra_figures(summary=figs, trace=cols, cases=cases):
         if got:
             extra.update(got)
-    model_figs, model_warn = model_figures(batch, cols, figs)
+    model_figs, model_warn = model_figures(batch, cols, {**figs, "mode": np.asarray(modes)})
     refs: list[str] = []
     for model in batch.models.values():
         for r in getattr(model, "references", ()):

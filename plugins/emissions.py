@@ -142,7 +142,8 @@ class ZeldovichNO(Emissions):
         idx = self.window(trace)
         with np.errstate(all="ignore"):
             zones = self.zone_history(trace, idx)
-        fired = zones.x[:, -1] > 0.05
+        motored = np.asarray(summary.get("mode", np.full(B, "fired"))) == "motored"
+        fired = (zones.x[:, -1] > 0.05) & ~motored
         if not fired.any():
             return EmissionsResult(figs, cols, warn)
         gas = self.ctx.gas
