@@ -254,12 +254,15 @@ def implicit_a_closed(a0, s, K):
 def interp_tables(Tg, lpg, tab, case, T, lp):
     """Bilinear interpolation in (T, ln p), clamped to the grid, of per-case tables.
 
-    ``tab`` (C, nT, np); ``case`` (index into C), ``T`` [K] and ``lp`` [ln Pa] broadcast.
+    ``tab`` (C, nT, np), or (C, nT, np, k) for k tables at once; ``case`` (index into C), ``T`` [K]
+    and ``lp`` [ln Pa] broadcast.
     """
     i = np.clip(np.searchsorted(Tg, T) - 1, 0, Tg.size - 2)
     j = np.clip(np.searchsorted(lpg, lp) - 1, 0, lpg.size - 2)
     u = np.clip((T - Tg[i]) / (Tg[i + 1] - Tg[i]), 0.0, 1.0)
     v = np.clip((lp - lpg[j]) / (lpg[j + 1] - lpg[j]), 0.0, 1.0)
+    if tab.ndim == 4:      # several tables stacked on a last axis
+        u, v = u[..., None], v[..., None]
     return ((1 - u) * (1 - v) * tab[case, i, j] + u * (1 - v) * tab[case, i + 1, j]
             + (1 - u) * v * tab[case, i, j + 1] + u * v * tab[case, i + 1, j + 1])
 
@@ -294,6 +297,7 @@ def integrate_growing_elements(t, p, T, x, T_freeze, Tg, lpg, ln_w, ln_K, ln_ne)
     """
     B, N, n = T.shape
     case = np.broadcast_to(np.arange(B)[:, None], (B, N))
+    tab3 = np.stack([ln_w, ln_K, ln_ne], axis=-1)          # one look-up gives all three
     Tf = np.broadcast_to(np.asarray(T_freeze, dtype=float), (B,))[:, None]
     no = np.zeros((B, N, n))
     cur = np.zeros((B, N))
@@ -308,9 +312,7 @@ def integrate_growing_elements(t, p, T, x, T_freeze, Tg, lpg, ln_w, ln_K, ln_ne)
             if go.any():
                 Tm = np.where(go, Tm, 2000.0)
                 lp = np.broadcast_to(np.log(0.5 * (p[:, k - 1] + p[:, k]))[:, None], (B, N))
-                w = np.exp(interp_tables(Tg, lpg, ln_w, case, Tm, lp))
-                K = np.exp(interp_tables(Tg, lpg, ln_K, case, Tm, lp))
-                ne = np.exp(interp_tables(Tg, lpg, ln_ne, case, Tm, lp))
+                w, K, ne = np.exp(np.moveaxis(interp_tables(Tg, lpg, tab3, case, Tm, lp), -1, 0))
                 dt = (t[:, k] - t[:, k - 1])[:, None]
                 stepped = ne * implicit_a_closed(cur / ne, dt * 2.0 * w / ne, K)
                 cur = np.where(go, stepped, cur)
