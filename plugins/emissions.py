@@ -83,7 +83,7 @@ class ZeldovichNO(Emissions):
         "Heywood, J. B. (1988). Internal Combustion Engine Fundamentals. McGraw-Hill: sec. 11.2, "
         "eq. 11.8 and table 11.1 (rate constants after Hanson & Salimian 1984; from memory).",
         "Lavoie, G. A., Heywood, J. B., Keck, J. C. (1970). Experimental and theoretical study of "
-        "nitric oxide formation in internal combustion engines. Combust. Sci. Technol. 1, 313-326.",
+        "nitric oxide formation in internal combustion engines. Combust. Sci. Technol. 1, 313-326 (from memory).",
         "Ferguson, C. R., Kirkpatrick, A. T. (2015). Internal Combustion Engines: Applied "
         "Thermosciences, 3rd ed. Wiley: two-zone model (wetted areas; from memory).",
     )
@@ -171,6 +171,11 @@ class ZeldovichNO(Emissions):
         T_el = el.T
         figs["burned_element_temperature_max_K"] = np.where(fired, np.nanmax(np.where(el.born, T_el, -np.inf),
                                                                               axis=(1, 2)), np.nan)
+        if gas.burned_model != "equilibrium":
+            for i in np.nonzero(fired)[0]:
+                warn[i].append(f"emissions zeldovich_no: burned gas '{gas.burned_model}' (no dissociation) makes the"
+                               f" burned-mass elements too hot for NO, whose rates use the equilibrium;"
+                               f" use gas.burned_gas: equilibrium for NO")
         # range of the NO tables while the elements are integrated
         n = zones.p.shape[1]
         live = el.born & (np.arange(n)[None, None, :] < frozen_at[:, :, None])

@@ -202,3 +202,26 @@ def test_growing_elements_give_finite_nonnegative_no(T0, p0, rate, n_el, seed):
     no, _ = z.integrate_growing_elements(t, p, T, x, 1700.0, *tabs)
     assert np.all(np.isfinite(no)) and np.all(no >= 0)
     assert np.all(no[x == 0] == 0)
+
+
+@settings(max_examples=8, deadline=None)
+@given(lam=st.floats(0.8, 1.4), spark=st.floats(-5.0, 45.0), egr=st.floats(0.0, 0.25),
+       speed=st.sampled_from([1200.0, 2500.0, 4500.0]), p_in=st.floats(0.35, 1.0))
+def test_operating_points_give_finite_nonnegative_no(lam, spark, egr, speed, p_in):
+    r = cyclesim.run("demo", ON + [f"operating.lambda={lam}", f"burn.spark_advance_deg={spark}",
+                                   f"operating.egr_fraction={egr}", f"operating.speed_rpm={speed}",
+                                   f"operating.intake_pressure_bar={p_in}"])
+    assert r.ok
+    s = r.summary
+    for k in ("no_ppm_wet", "no_ppm_dry", "no_mass_mg", "burned_element_temperature_max_K"):
+        assert np.isfinite(s[k]) and s[k] >= 0, (k, s[k])
+    assert s["no_ppm_dry"] >= s["no_ppm_wet"]
+    assert np.isnan(s["no_g_per_kWh"]) or s["no_g_per_kWh"] >= 0
+    T = r.trace["burned_element_01_temperature_K"]
+    assert np.all(np.isnan(T) | ((T > 500) & (T < 4000)))
+
+
+def test_complete_combustion_gas_is_warned_for_no():
+    r = cyclesim.run("demo", ON + ["gas.burned_gas=complete"])
+    assert any("no dissociation" in w for w in r.warnings)
+    assert not any("no dissociation" in w for w in cyclesim.run("demo", ON).warnings)
