@@ -8,7 +8,7 @@ Two steps, each replaceable (a two-zone cylinder gives :class:`ZoneHistory` dire
    burn (before it the charge *is* the unburned zone, so this is the isentrope from IVC with
    all the wall heat), losing its share of the wall heat.  The burned zone holds the rest of
    the mixture's volume and internal energy; the pressure at which both zones fill the volume
-   is solved at each point (secant iteration).
+   is solved at each point (Newton on the pressure and the burned-zone temperature).
 2. :func:`burned_elements` resolves the burned zone into ``count`` burned-mass elements.
    Element k takes the mass burned while the burned-zone fraction passes the k-th of ``count``
    equal slices of its final value; each piece is born at the constant-pressure adiabatic
@@ -247,35 +247,44 @@ def decompose_two_zone(gas, theta, speed_rpm, V, p, T, m, y, Q_w, T_wall):
 
         resolved = ~before & (xs >= X_RESOLVED)
         if resolved.any():
-            Tb_guess = Tb_w.copy()
-
-            def mismatch(pp, Tb0):
-                Tu = unburned_T(pp)
-                uu, _, Ru, _ = _unburned(gas, Tu, pp, y_u, R_u)
-                Vb = np.maximum(V[:, j] - m_u * Ru * Tu / pp, 1e-3 * V[:, j])
-                rb = np.maximum(m_b, 1e-300) / Vb
-                eb = (U[:, j] - m_u * uu) / np.maximum(m_b, 1e-300)
-                Tb = solve_T_urho(gas, eb, rb, Tb0)
-                Rb = gas.burned(Tb, rb)[3]
-                return rb * Rb * Tb - pp, Tu, Tb, m_u * uu
-            # start from the previous point's ratio of the two-zone to the one-zone pressure
+            # Newton on (ln p, T_b): the burned zone's energy and its equation of state, with the
+            # unburned zone on its isentrope at that pressure (one look-up of each zone per pass)
             ratio = np.where(np.isfinite(T_b[:, j - 1]) & (j - 1 > k0), p2[:, j - 1] / p[:, j - 1], 1.0)
-            pa = p[:, j] * ratio
-            fa, Tu, Tb_guess, Uu = mismatch(pa, Tb_guess)
-            pb = pa * (1.0 + 1e-5)
-            for _ in range(12):
-                fb, Tu, Tb_guess, Uu = mismatch(pb, Tb_guess)
-                den = fb - fa
-                step = np.where(resolved & (den != 0), -fb * (pb - pa) / np.where(den != 0, den, 1.0), 0.0)
-                pa, fa = pb, fb
-                pb = np.clip(pb + step, 0.5 * p[:, j], 2.0 * p[:, j])
-                if np.all(np.abs(step) <= 1e-11 * pb):
+            lnp = np.log(p[:, j] * ratio)
+            Tb = Tb_w.copy()
+            lnp0 = np.log(p0)
+            mb_safe = np.maximum(m_b, 1e-300)
+            q = dQ_u / (mu_safe * cp_u)
+            for _ in range(30):
+                pp = np.exp(lnp)
+                Tu = Tu0 * np.exp(kappa * (lnp - lnp0)) - q
+                dTu = kappa * (Tu + q)
+                uu, _, Ru, cpu = _unburned(gas, Tu, pp, y_u, R_u)
+                Vu = m_u * Ru * Tu / pp
+                Vb = np.maximum(V[:, j] - Vu, 1e-3 * V[:, j])
+                rb = mb_safe / Vb
+                dlr = m_u * Ru * (dTu - Tu) / pp / Vb
+                eb = (U[:, j] - m_u * uu) / mb_safe
+                deb = -m_u * (cpu - Ru) * dTu / mb_safe
+                u, u_T, u_lr, R, R_T, R_lr = gas.burned(np.clip(Tb, 300.0, 5000.0), rb)
+                f1 = u - eb
+                f2 = np.log(rb * R * Tb) - lnp
+                a11, a12 = u_T, u_lr * dlr - deb
+                a21, a22 = R_T / R + 1.0 / Tb, (1.0 + R_lr / R) * dlr - 1.0
+                det = a11 * a22 - a12 * a21
+                dT = np.where(resolved, -(f1 * a22 - a12 * f2) / det, 0.0)
+                dL = np.where(resolved, -(a11 * f2 - a21 * f1) / det, 0.0)
+                Tb = np.clip(Tb + dT, 300.0, 5000.0)
+                lnp = np.clip(lnp + dL, np.log(0.5 * p[:, j]), np.log(2.0 * p[:, j]))
+                if np.all(np.abs(dL) <= 1e-12) and np.all(np.abs(dT) <= 1e-9 * Tb):
                     break
-            fb, Tu, Tb, Uu = mismatch(pb, Tb_guess)
+            pb = np.exp(lnp)
+            Tu = Tu0 * np.exp(kappa * (lnp - lnp0)) - q
+            uu = _unburned(gas, Tu, pb, y_u, R_u)[0]
             p2[:, j] = np.where(resolved, pb, p[:, j])
             T_u[:, j] = np.where(resolved, Tu, unburned_T(p[:, j]))
             T_b[:, j] = np.where(resolved, Tb, np.nan)
-            U_b[:, j] = np.where(resolved, U[:, j] - Uu, np.nan)
+            U_b[:, j] = np.where(resolved, U[:, j] - m_u * uu, np.nan)
         else:
             T_u[:, j] = unburned_T(p[:, j])
         T_u[:, j] = np.where(before, T[:, j], T_u[:, j])
