@@ -5,7 +5,8 @@
 Times the demo point without and with the NO model, alone (B = 1) and as a batch of 8 points
 (a lambda sweep, one batch as a sweep runs it), after one warm-up run (the loop's compilation
 and the NO tables are built once per process).  Also prints the NO of the demo against spark
-advance and lambda, and against the number of elements and the integration step.
+advance and lambda, and against the number of elements and the integration step.  Times are the
+median CPU time of the process (CYCLESIM_THREADS=1 for one core).
 """
 
 from __future__ import annotations
@@ -21,11 +22,12 @@ ON = ["emissions.model=zeldovich_no"]
 
 
 def _time(fn, repeat):
+    """Median CPU time of this process [s] (steadier than wall time on a shared machine)."""
     out = []
     for _ in range(repeat):
-        t = time.perf_counter()
+        t = time.process_time()
         fn()
-        out.append(time.perf_counter() - t)
+        out.append(time.process_time() - t)
     return statistics.median(out)
 
 
