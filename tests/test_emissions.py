@@ -225,3 +225,23 @@ def test_complete_combustion_gas_is_warned_for_no():
     r = cyclesim.run("demo", ON + ["gas.burned_gas=complete"])
     assert any("no dissociation" in w for w in r.warnings)
     assert not any("no dissociation" in w for w in cyclesim.run("demo", ON).warnings)
+
+
+def test_zone_step_is_replaceable(demo):
+    # a cylinder that brings its own zones hands them to the model through zone_history(); here the
+    # decomposition's zones with a 100 K hotter unburned gas (higher flame temperature: more NO)
+    (r,), model = demo
+    trace = {k: np.asarray(v)[None, :] for k, v in r.trace.items()}
+    base = model.emissions(trace, {"bmep_bar": np.array([r.summary["bmep_bar"]])}).figures["no_ppm_wet"][0]
+    assert base == pytest.approx(r.summary["no_ppm_wet"], rel=1e-9)
+    own = model.zone_history
+
+    def hotter(tr, idx):
+        z0 = own(tr, idx)
+        return z0._replace(h_u=z0.h_u + 1100.0 * 100.0)       # cp of the charge about 1.1 kJ/(kg K)
+    model.zone_history = hotter
+    try:
+        more = model.emissions(trace, {"bmep_bar": np.array([r.summary["bmep_bar"]])}).figures["no_ppm_wet"][0]
+    finally:
+        del model.zone_history
+    assert more > 1.1 * base
