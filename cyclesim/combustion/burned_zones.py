@@ -23,10 +23,11 @@ Between the zones: in proportion to A_z (T_z - T_wall), with the burned zone's s
 wall area A_b/A = x^(1/2) and A_u/A = 1 - x^(1/2), x its mass fraction (the form of Ferguson's
 two-zone model, Ferguson & Kirkpatrick 2015, ch. 4, from memory); the sum is the one-zone heat
 flow of the trace.  Among the elements: the burned zone's energy not accounted for by the
-elements' own work and birth enthalpy is their heat loss, split in proportion to
+elements' own (isentropic) work and birth enthalpy is removed from them, split in proportion to
 m_k max(T_k - T_wall, 1 K) (one film coefficient and one wetted area per unit mass for all
-elements: a stated choice, common practice for want of a flame geometry).  So the
-mass-weighted internal energy of the elements equals the burned zone's at every resolved point
+elements: a stated choice, common practice for want of a flame geometry); at constant pressure
+their enthalpy falls by the heat they lose, their internal energy by that less the work of their
+contraction.  So the mass-weighted internal energy of the elements equals the burned zone's at every resolved point
 to the temperature solve's tolerance (about 1e-12).
 
 While the burned zone holds less than :data:`X_RESOLVED` of the charge its energy is the small
@@ -70,6 +71,8 @@ class ZoneHistory(NamedTuple):
         (before the burn and below :data:`X_RESOLVED`).
     y_u : ndarray (B,)
         Burned-gas (residual plus EGR) mass fraction of the unburned zone [-].
+    Q_u : ndarray (B, n) or None
+        Cumulative heat from the unburned zone to the walls [J], from the first point.
     """
 
     theta: np.ndarray
@@ -82,6 +85,7 @@ class ZoneHistory(NamedTuple):
     h_u: np.ndarray
     U_b: np.ndarray
     y_u: np.ndarray
+    Q_u: np.ndarray | None = None
 
 
 def _mix(gas, T, rho, y):
@@ -219,6 +223,7 @@ def decompose_two_zone(gas, theta, speed_rpm, V, p, T, m, y, Q_w, T_wall):
     T_b = np.full((B, n), np.nan)
     p2 = p.copy()
     U_b = np.full((B, n), np.nan)
+    Q_u = np.zeros((B, n))
     h_u = np.empty((B, n))
     _, h_u[:, 0], _, _ = _unburned(gas, T[:, 0], p[:, 0], y_u)
     k0 = _first_burn(x)
@@ -236,6 +241,7 @@ def decompose_two_zone(gas, theta, speed_rpm, V, p, T, m, y, Q_w, T_wall):
         wb = a_b * np.maximum(Tb_w - T_wall, 0.0)
         share = np.where(wu + wb > 0, wu / np.where(wu + wb > 0, wu + wb, 1.0), 1.0)
         dQ_u = (Q_w[:, j] - Q_w[:, j - 1]) * share
+        Q_u[:, j] = Q_u[:, j - 1] + dQ_u
         _, _, R_u, cp_u = _unburned(gas, T_u[:, j - 1], p2[:, j - 1], y_u, R_prev)
         R_prev = R_u
         kappa = R_u / cp_u
@@ -294,7 +300,7 @@ def decompose_two_zone(gas, theta, speed_rpm, V, p, T, m, y, Q_w, T_wall):
             Tf = flame_temperature(gas, h_u[:, j], p2[:, j], Tb_prev)
             Tb_prev = np.where(small, Tf, Tb_prev)
             T_b[:, j] = np.where(small, Tf, T_b[:, j])
-    return ZoneHistory(theta, t, p2, m, x, T_u, T_b, h_u, U_b, y_u)
+    return ZoneHistory(theta, t, p2, m, x, T_u, T_b, h_u, U_b, y_u, Q_u)
 
 
 class Elements(NamedTuple):
@@ -306,11 +312,16 @@ class Elements(NamedTuple):
         Element mass as a fraction of the cylinder mass [-] (sums to the zone's x).
     born : ndarray (B, N, n) of bool
         True where the element holds mass.
+    Q : ndarray (B, n)
+        Cumulative heat the elements gave up at constant pressure [J] (their enthalpy drop in the
+        heat-loss step): the burned zone's heat loss, plus the small difference between the
+        zone's and the elements' volume work.
     """
 
     T: np.ndarray
     x: np.ndarray
     born: np.ndarray
+    Q: np.ndarray
 
 
 def element_energy(gas, el: Elements, zones: ZoneHistory, j: int) -> np.ndarray:
@@ -336,7 +347,9 @@ def burned_elements(gas, zones: ZoneHistory, count: int, T_wall) -> Elements:
     lr = np.zeros((B, N))         # ln of the element density [ln kg/m^3]
     kv = np.zeros((B, N))         # isentropic d ln v / d ln p of the element [-]
     Tw = np.asarray(T_wall, float)[:, None]
+    Q = np.zeros((B, n))
     for j in range(1, n):
+        Q[:, j] = Q[:, j - 1]
         p0, p1 = zones.p[:, j - 1:j], zones.p[:, j:j + 1]
         P1 = np.broadcast_to(p1, (B, N))
         have = xk > 0
@@ -371,7 +384,10 @@ def burned_elements(gas, zones: ZoneHistory, count: int, T_wall) -> Elements:
             sel = have & fix[:, None]
             Tk2, lr2, _, h2, kv2 = _solve_T_p(gas, u + np.where(sel, du, 0.0), P1, Tk, False, lr)
             Tk, lr, kv = np.where(sel, Tk2, Tk), np.where(sel, lr2, lr), np.where(sel, kv2, kv)
+            # the heat at constant pressure is the enthalpy the elements lose (their internal energy
+            # falls by D, their contraction is work the pressure does on them)
+            Q[:, j] -= (np.where(sel, xk * (h2 - hh), 0.0) * m).sum(axis=1)
             h = np.where(sel, h2, h)
         T_out[:, :, j] = np.where(have, Tk, np.nan)
         x_out[:, :, j] = xk
-    return Elements(T_out, x_out, x_out > 0)
+    return Elements(T_out, x_out, x_out > 0, Q)
