@@ -117,8 +117,12 @@ def _registry_for(cases: Sequence[Case]):
     return get_registry(plugins)
 
 
-def model_figures(batch, cols: dict) -> tuple[dict, list[list[str]]]:
-    """The submodels' own figures and per-case warnings from a finished batch's trace columns."""
+def model_figures(batch, cols: dict, summary: Mapping | None = None) -> tuple[dict, list[list[str]]]:
+    """The submodels' own figures and per-case warnings from a finished batch's trace columns.
+
+    The emissions model runs last, with the batch's ``summary`` figures (arrays (B,), ``mode``
+    ``"fired"`` or ``"motored"`` among them); the trace columns it returns are added to ``cols``.
+    """
     figs: dict = {}
     warn: list[list[str]] = [[] for _ in range(batch.B)]
     for role, model in batch.models.items():
@@ -130,6 +134,19 @@ def model_figures(batch, cols: dict) -> tuple[dict, list[list[str]]]:
             raise
         except Exception as exc:  # noqa: BLE001
             raise PluginError(f"{role} model {model.name!r} raised {type(exc).__name__} in figures(): {exc}") from exc
+    em = batch.models.get("emissions")
+    if em is not None:
+        try:
+            got = em.emissions(cols, {**(summary or {}), **figs})
+        except CyclesimError:
+            raise
+        except Exception as exc:  # noqa: BLE001
+            raise PluginError(f"emissions model {em.name!r} raised {type(exc).__name__} in emissions():"
+                              f" {exc}") from exc
+        figs.update(got.figures)
+        cols.update(got.columns)
+        for i, w in enumerate(got.warnings):
+            warn[i].extend(w)
     return figs, warn
 
 
@@ -158,7 +175,7 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
     for got in registry.pm.hook.cyclesim_extra_figures(summary=figs, trace=cols, cases=cases):
         if got:
             extra.update(got)
-    model_figs, model_warn = model_figures(batch, cols)
+    model_figs, model_warn = model_figures(batch, cols, {**figs, "mode": np.asarray(modes)})
     refs: list[str] = []
     for model in batch.models.values():
         for r in getattr(model, "references", ()):

@@ -176,6 +176,7 @@ DEFAULT_MODELS = {
     "boundary": "constant",
     "friction": "components",
     "knock": "none",
+    "emissions": "none",
 }
 META_KEYS = ("name", "description", "extends", "plugins")
 OPTIONAL_SECTIONS = ("multi_cylinder",)

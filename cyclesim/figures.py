@@ -235,6 +235,7 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     out["ca50_deg"] = ca[0.50]
     out["ca90_deg"] = ca[0.90]
     out["burn_10_90_deg"] = ca[0.90] - ca[0.10]
+    out["burn_0_10_deg"] = ca[0.10] - out["spark_deg"]     # spark to 10 % burned (flame development)
     lo_win = -180.0 if mode == "full" else th[0]
     hi_win = 180.0 if mode == "full" else th[-1]
     t_pmax, p_max = hermite_peak(th, p, dp, lo_win, hi_win)

@@ -4,7 +4,8 @@
   what limited it, lambda and exhaust temperature against speed;
 * part load, on the speed-BMEP plane: BSFC islands at fixed levels
   (:data:`BSFC_LEVELS`), brake efficiency, spark advance with its limiting
-  reason at each point, knock margin, exhaust temperature.  Contours are
+  reason at each point, knock margin, exhaust temperature; with an emissions model NO [ppm] and
+  [g/kWh], and NO against torque (:mod:`cyclesim.burn_no_plots`).  Contours are
   triangulated on the scattered points, masked above the full-load line and
   below :data:`BMEP_FLOOR_BAR`; the full-load line is drawn.  Points whose MBT
   lies beyond the advance range (``in_contours`` False) are drawn as crosses
@@ -224,6 +225,13 @@ def plot_part_load(m, out: Path) -> list[Path]:
               cmap="RdYlGn")
     frame("exhaust temperature at the valve [K]", _col(m, "exhaust_temperature_K"), "exhaust temperature [K]",
           "map_exhaust_temperature.png", cmap="inferno")
+    if np.isfinite(_col(m, "no_ppm_wet")).any():
+        from .burn_no_plots import plot_no_against_torque
+
+        frame("NO [ppm, wet]", _col(m, "no_ppm_wet"), "NO [ppm]", "map_no.png", cmap="magma")
+        frame("brake-specific NO [g/kWh]", _col(m, "no_g_per_kWh"), "NO [g/kWh]", "map_no_g_per_kWh.png",
+              fmt="%.1f", cmap="magma")
+        files.append(plot_no_against_torque(m, out))
     # intake pressure - BMEP relation (the load axis the map was run on)
     fig, ax = plt.subplots(figsize=(7, 4.2))
     for v in sorted(set(n[np.isfinite(n)])):

@@ -47,7 +47,7 @@ POLYTROPIC_NULL_WARNING = "polytropic exponent not defined"
 
 COMBUSTION_ONLY_KEYS = (
     "spark_deg", "spark_advance_deg", "ca05_deg", "ca10_deg", "ca50_deg", "ca90_deg", "burn_10_90_deg",
-    "combustion_efficiency", "eta_indicated_net", "eta_indicated_gross", "eta_brake", "eta_closed_cycle",
+    "burn_0_10_deg", "combustion_efficiency", "eta_indicated_net", "eta_indicated_gross", "eta_brake", "eta_closed_cycle",
     "mechanical_efficiency", "bsfc_g_per_kWh",
 )
 """Summary keys with no meaning when no fuel burns: NaN (JSON null) in a motored case."""

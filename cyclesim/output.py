@@ -206,6 +206,12 @@ def summary_table(res) -> str:
             row("autoignition onset", "knock_onset_deg", "deg ATDC", ".1f")
             row("unburned charge at onset", "knock_unburned_fraction_at_onset", "%", ".0f", 100)
         row("end-gas peak temperature", "end_gas_temperature_max_K", "K", ".0f")
+    if "no_ppm_wet" in s and s.get("mode") != "motored":
+        head("Emissions (NO, extended Zeldovich, burned-mass elements)")
+        row("NO wet", "no_ppm_wet", "ppm", ".0f")
+        row("NO dry", "no_ppm_dry", "ppm", ".0f")
+        row("brake-specific NO", "no_g_per_kWh", "g/kWh", ".2f")
+        row("hottest burned-mass element", "burned_element_temperature_max_K", "K", ".0f")
     eb = s.get("energy_balance")
     if isinstance(eb, dict):
         lines.extend(energy_balance_lines(eb, s.get("unreleased_energy")))
@@ -251,6 +257,7 @@ def _fired_rows(s, mode, lines, row, head, loop_line) -> None:
             f"  {'CA10 / CA50 / CA90':<34s}{_fmt(s['ca10_deg'], '.1f'):>6s} /{_fmt(s['ca50_deg'], '.1f'):>6s}"
             f" /{_fmt(s['ca90_deg'], '.1f'):>6s}  deg"
         )
+    row("0-10 % burn (spark to CA10)", "burn_0_10_deg", "deg", ".1f")
     row("10-90 % burn duration", "burn_10_90_deg", "deg", ".1f")
     row("peak pressure", "p_max_bar", "bar", ".1f")
     row("angle of peak pressure", "theta_pmax_deg", "deg ATDC", ".1f")

@@ -61,7 +61,18 @@ SPARK_TABLE = [("burn.spark_advance_deg", "spark [deg BTDC]", ".1f", 1), ("torqu
                ("p_max_bar", "peak pressure [bar]", ".1f", 1), ("theta_pmax_deg", "at [deg ATDC]", ".1f", 1),
                ("knock_onset_deg", "knock onset [deg ATDC]", ".1f", 1),
                ("knock_unburned_fraction_at_onset", "unburned at onset [%]", ".0f", 100),
-               ("exhaust_temperature_K", "exhaust T [K]", ".0f", 1)]
+               ("exhaust_temperature_K", "exhaust T [K]", ".0f", 1),
+               ("burn_0_10_deg", "0-10 % burn [deg]", ".1f", 1), ("burn_10_90_deg", "10-90 % burn [deg]", ".1f", 1),
+               ("no_ppm_wet", "NO [ppm wet]", ".0f", 1), ("no_g_per_kWh", "NO [g/kWh]", ".2f", 1)]
+BURN_NO_TABLE = [("burn_0_10_deg", "0-10 % burn [deg]", ".1f", 1), ("burn_10_90_deg", "10-90 % burn [deg]", ".1f", 1),
+                 ("no_ppm_wet", "NO [ppm wet]", ".0f", 1), ("no_g_per_kWh", "NO [g/kWh]", ".2f", 1)]
+"""Columns a map's table adds where some point has them (NO with an emissions model)."""
+
+
+def _with_burn_no(rows, spec):
+    def has(k):
+        return any(isinstance(r.get(k), (int, float)) and math.isfinite(r[k]) for r in rows)
+    return list(spec) + [s for s in BURN_NO_TABLE if has(s[0])]
 
 
 def _images(folder: Path, names):
@@ -126,11 +137,14 @@ def _map_view(folder: Path) -> list[dict]:
         ("compressor_map.png", "compressor map with the full-load operating line"),
         ("map_bsfc.png", "BSFC islands"), ("map_spark.png", "spark advance and what set it"),
         ("map_knock_margin.png", "knock margin"), ("map_exhaust_temperature.png", "exhaust temperature"),
-        ("map_eta_brake.png", "brake efficiency"), ("map_bmep.png", "BMEP against intake pressure")])})
+        ("map_eta_brake.png", "brake efficiency"), ("map_bmep.png", "BMEP against intake pressure"),
+        ("map_no.png", "NO [ppm]"), ("map_no_g_per_kWh.png", "brake-specific NO"),
+        ("map_no_torque.png", "NO against torque")])})
     for data, title, spec in ((fl, "Full-load curve", FULL_LOAD_TABLE), (pm, "Part-load map", PART_LOAD_TABLE)):
         if not data:
             continue
-        secs.append({"heading": title, "table": table_spec(data["rows"], spec, data.get("notes", ()))})
+        secs.append({"heading": title, "table": table_spec(data["rows"], _with_burn_no(data["rows"], spec),
+                                                           data.get("notes", ()))})
         if data is fl and any("boost_limit" in r for r in data["rows"]):
             secs.append({"heading": "Turbocharger at each speed", "table": table_spec(data["rows"], BOOST_TABLE)})
         if data.get("warnings_grouped"):
@@ -155,7 +169,8 @@ def _spark_view(folder: Path) -> list[dict]:
     secs.append({"heading": "Plots", "images": _images(folder, [
         ("spark_torque.png", "torque against spark advance"), ("spark_peak_pressure.png", "peak pressure and its angle"),
         ("spark_ca50.png", "CA50 against spark advance"), ("spark_pressure_traces.png", "pressure traces"),
-        ("spark_knock_onset.png", "knock onset and unburned charge at onset")])})
+        ("spark_knock_onset.png", "knock onset and unburned charge at onset"),
+        ("spark_burn_no.png", "burn angles and NO against spark advance")])})
     sweep_json = folder / "sweep.json"
     if sweep_json.is_file():
         rows = json.loads(sweep_json.read_text()).get("rows", [])
@@ -216,6 +231,9 @@ RUN_SUMMARY = [("imep_net_bar", "net IMEP", "bar", ".2f", 1), ("bmep_bar", "BMEP
                ("eta_indicated_gross", "gross indicated efficiency", "%", ".1f", 100),
                ("imep_closed_bar", "closed-cycle IMEP", "bar", ".2f", 1),
                ("p_max_bar", "peak pressure", "bar", ".1f", 1), ("ca50_deg", "CA50", "deg ATDC", ".1f", 1),
+               ("burn_0_10_deg", "0-10 % burn (spark to CA10)", "deg", ".1f", 1),
+               ("burn_10_90_deg", "10-90 % burn", "deg", ".1f", 1),
+               ("no_ppm_wet", "NO (wet)", "ppm", ".0f", 1), ("no_g_per_kWh", "brake-specific NO", "g/kWh", ".2f", 1),
                ("exhaust_temperature_K", "exhaust temperature", "K", ".0f", 1),
                ("volumetric_efficiency", "volumetric efficiency", "%", ".1f", 100)]
 

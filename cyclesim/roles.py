@@ -1,7 +1,7 @@
 """Submodel roles: the small interfaces the solver knows submodels by.
 
 A *role* is one physical concern (burn rate, wall heat transfer, ring
-leakage, valve flow, boundary plenums, friction, end-gas knock).  A plug-in
+leakage, valve flow, boundary plenums, friction, end-gas knock, emissions).  A plug-in
 implements a role by subclassing its base class below, declaring ``name``,
 ``summary``, ``params`` and ``references``, and registering the class through
 the ``cyclesim_register_submodels`` hook (see :mod:`cyclesim.hookspecs`).
@@ -40,6 +40,7 @@ ROLES = (
     "boundary",
     "friction",
     "knock",
+    "emissions",
 )
 """Role names in the order they appear in a config."""
 
@@ -450,6 +451,40 @@ class Knock(Submodel):
     role = "knock"
 
 
+class Emissions(Submodel):
+    """Pollutant formation, computed once from the finished cycle (it does not feed back).
+
+    Contract: :meth:`emissions` takes the trace columns (as :meth:`Submodel.figures`) and the
+    batch's summary figures (arrays (B,), e.g. ``bmep_bar`` for brake-specific values) and
+    returns an :class:`EmissionsResult`.  The solver calls it after the last cycle; the
+    generic :meth:`Submodel.figures` and :meth:`Submodel.warnings` stay empty.
+    """
+
+    role = "emissions"
+    required_methods = (("emissions",),)
+
+    def emissions(self, trace: Mapping[str, np.ndarray], summary: Mapping[str, Any]) -> "EmissionsResult":
+        """Summary figures (unit in the key), extra trace columns (B, n) and per-case warnings."""
+        raise NotImplementedError
+
+
+@dataclass
+class EmissionsResult:
+    """What an emissions model adds to a batch's results.
+
+    figures : dict of ndarray (B,)
+        Summary figures, units in the keys (NaN where a case has no meaning, e.g. motored).
+    columns : dict of ndarray (B, n)
+        Trace columns on the trace's crank grid, units in the keys.
+    warnings : list of list of str
+        Per-case warning texts.
+    """
+
+    figures: dict
+    columns: dict
+    warnings: list
+
+
 ROLE_BASES: dict[str, type[Submodel]] = {
     "burn": BurnRate,
     "heat_transfer": WallHeatTransfer,
@@ -458,4 +493,5 @@ ROLE_BASES: dict[str, type[Submodel]] = {
     "boundary": Boundary,
     "friction": Friction,
     "knock": Knock,
+    "emissions": Emissions,
 }

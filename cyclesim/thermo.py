@@ -512,6 +512,11 @@ class GasTables:
         self.T_range = (self._T0, self._T_hi)
         self.rho_range = (float(np.exp(self._lr0)), float(np.exp(self._lr_hi)))
 
+    @property
+    def element_amounts(self) -> np.ndarray:
+        """Element amounts of each case's charge [mol/kg] (B, 5), columns :data:`ELEMENTS`."""
+        return np.stack([c.b for c in self._cases])
+
     # -- fresh charge ------------------------------------------------------
     def unburned(self, T) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Fresh-charge (u [J/kg], cv [J/(kg K)], R [J/(kg K)]) at ``T`` [K] of shape (B,) or (B, n)."""

@@ -21,6 +21,7 @@ _MODULES = (
     "boundaries",
     "friction",
     "knock",
+    "emissions",
 )
 
 

@@ -232,3 +232,91 @@ def mean_no_ppm(n_no, mass, n_tot, n_h2o):
     no = (m * n_no).sum()
     tot = (m * n_tot).sum()
     return 1e6 * no / tot, 1e6 * no / (tot - (m * n_h2o).sum())
+
+
+# -- vectorised forms for burned-mass elements that grow while they burn -----------------
+
+
+def implicit_a_closed(a0, s, K):
+    """The root of :func:`implicit_a` in closed form, arrays broadcast.
+
+    a - a0 = s (1 - a^2)/(1 + a K) is the quadratic (K + s) a^2 + (1 - a0 K) a - (a0 + s) = 0,
+    whose product of roots is negative: its one positive root, written without cancellation.
+    """
+    bq = 1.0 - a0 * K
+    c = a0 + s
+    d = np.sqrt(bq * bq + 4.0 * (K + s) * c)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        big = np.where(bq >= 0, 2.0 * c / (bq + d), (d - bq) / (2.0 * (K + s)))
+    return np.where(c > 0, big, 0.0)
+
+
+def interp_tables(Tg, lpg, tab, case, T, lp):
+    """Bilinear interpolation in (T, ln p), clamped to the grid, of per-case tables.
+
+    ``tab`` (C, nT, np), or (C, nT, np, k) for k tables at once; ``case`` (index into C), ``T`` [K]
+    and ``lp`` [ln Pa] broadcast.
+    """
+    i = np.clip(np.searchsorted(Tg, T) - 1, 0, Tg.size - 2)
+    j = np.clip(np.searchsorted(lpg, lp) - 1, 0, lpg.size - 2)
+    u = np.clip((T - Tg[i]) / (Tg[i + 1] - Tg[i]), 0.0, 1.0)
+    v = np.clip((lp - lpg[j]) / (lpg[j + 1] - lpg[j]), 0.0, 1.0)
+    if tab.ndim == 4:      # several tables stacked on a last axis
+        u, v = u[..., None], v[..., None]
+    return ((1 - u) * (1 - v) * tab[case, i, j] + u * (1 - v) * tab[case, i + 1, j]
+            + (1 - u) * v * tab[case, i, j + 1] + u * v * tab[case, i + 1, j + 1])
+
+
+def integrate_growing_elements(t, p, T, x, T_freeze, Tg, lpg, ln_w, ln_K, ln_ne):
+    """NO of burned-mass elements that take in NO-free burned gas while they burn [mol/kg].
+
+    Parameters
+    ----------
+    t, p : ndarray (B, n)
+        Times [s] (increasing) and pressure [Pa].
+    T : ndarray (B, N, n)
+        Element temperatures [K] (NaN before birth).
+    x : ndarray (B, N, n)
+        Element masses (any common scale, e.g. a fraction of the cylinder mass) [-].
+    T_freeze : float or ndarray (B,)
+        An element freezes (its NO is held) once, after its birth, the mean temperature of a
+        step falls below this [K].
+    Tg, lpg : ndarray
+        Grid of the tables [K], [ln Pa].
+    ln_w, ln_K, ln_ne : ndarray (B, nT, np)
+        Each case's table of :func:`no_table`.
+
+    Returns
+    -------
+    no : ndarray (B, N, n)
+        NO of each element [mol/kg], 0 before its birth.  A step integrates the element's NO
+        at the mean of its end temperatures and pressures (the implicit step of
+        :func:`no_step`), then dilutes it by the burned gas the element took in.
+    frozen_at : ndarray (B, N) of int
+        Index at which each element froze (n if it never did).
+    """
+    B, N, n = T.shape
+    case = np.broadcast_to(np.arange(B)[:, None], (B, N))
+    tab3 = np.stack([ln_w, ln_K, ln_ne], axis=-1)          # one look-up gives all three
+    Tf = np.broadcast_to(np.asarray(T_freeze, dtype=float), (B,))[:, None]
+    no = np.zeros((B, N, n))
+    cur = np.zeros((B, N))
+    frozen_at = np.full((B, N), n)
+    for k in range(1, n):
+        live = (x[:, :, k - 1] > 0) & (frozen_at == n)
+        if live.any():
+            Tm = 0.5 * (T[:, :, k - 1] + T[:, :, k])
+            now_frozen = live & (Tm < Tf)
+            frozen_at = np.where(now_frozen, k, frozen_at)
+            go = live & ~now_frozen
+            if go.any():
+                Tm = np.where(go, Tm, 2000.0)
+                lp = np.broadcast_to(np.log(0.5 * (p[:, k - 1] + p[:, k]))[:, None], (B, N))
+                w, K, ne = np.exp(np.moveaxis(interp_tables(Tg, lpg, tab3, case, Tm, lp), -1, 0))
+                dt = (t[:, k] - t[:, k - 1])[:, None]
+                stepped = ne * implicit_a_closed(cur / ne, dt * 2.0 * w / ne, K)
+                cur = np.where(go, stepped, cur)
+        grown = x[:, :, k] > x[:, :, k - 1]
+        cur = np.where(grown, cur * x[:, :, k - 1] / np.where(grown, x[:, :, k], 1.0), cur)
+        no[:, :, k] = cur
+    return no, frozen_at

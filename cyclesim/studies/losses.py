@@ -113,6 +113,16 @@ def otto_efficiency(compression_ratio, gamma=GAMMA_AIR):
     return 1.0 - r ** (1.0 - np.asarray(gamma, float))
 
 
+POINT_FIGURES = (("burn_0_10_deg", "0-10 % burn", ".1f", " deg"), ("burn_10_90_deg", "10-90 % burn", ".1f", " deg"),
+                 ("ca50_deg", "CA50", ".1f", " deg ATDC"), ("no_ppm_wet", "NO", ".0f", " ppm wet"),
+                 ("no_ppm_dry", "NO", ".0f", " ppm dry"), ("no_g_per_kWh", "NO", ".2f", " g/kWh"))
+"""Figures of the full cycle the breakdown reports beside its steps (key, label, format, unit)."""
+
+
+def _fmt_point(v, spec) -> str:
+    return "-" if v is None or not np.isfinite(v) else format(v, spec)
+
+
 @dataclass
 class LossBreakdown:
     """Efficiency after each step and the points of fuel energy lost at each.
@@ -140,6 +150,8 @@ class LossBreakdown:
     base_config: str = ""
     second: "LossBreakdown | None" = None
     unreleased: dict = field(default_factory=dict)
+    point: dict = field(default_factory=dict)
+    """Burn angles and NO of the full cycle (:data:`POINT_FIGURES`, those it has)."""
     notes: list = field(default_factory=list)
     files: list = field(default_factory=list)
     caution: str = CAUTION
@@ -174,6 +186,7 @@ class LossBreakdown:
             "brake_efficiency": self.steps[-1]["efficiency"],
             "sum_of_losses_points": float(np.sum(self.losses)),
             "unreleased_chemical_energy_points": dict(self.unreleased),
+            "full_cycle": dict(self.point),
             "notes": list(self.notes),
             "files": [Path(f).name for f in self.files],
         }
@@ -196,6 +209,9 @@ class LossBreakdown:
             lines.append(f"  unreleased chemical energy of the full cycle (exhaust, blowby): {u['total']:.2f} % of the fuel"
                          f" energy = CO {u['CO']:.2f} + H2 {u['H2']:.2f} + unburned fuel {u['unburned_fuel']:.2f}"
                          f" (energy, not efficiency points: an unreleased joule costs only its share of work)")
+        if self.point:
+            lines.append("  full cycle: " + ", ".join(f"{label} {_fmt_point(self.point.get(k), spec)}{unit}"
+                                                    for k, label, spec, unit in POINT_FIGURES if k in self.point))
         if self.second is not None:
             lines.append(f"second order: {' > '.join(self.second.order)}")
             for a in self.second.steps[1:]:
@@ -289,6 +305,7 @@ def _closed_case(case: Case, on: set, ivc_state: dict, step_deg: float) -> Case:
         else _off_section(case, "heat_transfer"),
         "blowby": _role_section(case, "blowby") if "blowby" in on else _off_section(case, "blowby"),
         "knock": {"model": "none"},
+        "emissions": {"model": "none"},       # NO belongs to the real full cycle, not to these steps
     }
     return _variant(case, ch, sections)
 
@@ -426,6 +443,7 @@ def loss_breakdown(
     lb.notes.append("the split of the losses depends on the order in which the effects are switched on;"
                     " the total from Otto to brake does not")
     lb.unreleased = _unreleased_points(full)
+    lb.point = {k: float(full.summary[k]) for k, *_ in POINT_FIGURES if k in full.summary}
     if lb.unreleased.get("CO", 0.0) + lb.unreleased.get("H2", 0.0) > 0.05:
         lb.notes.append("the CO and H2 a rich mixture's products keep are lost within the real-gas step (its"
                         " complete-combustion products with the water-gas shift frozen at K = 3.5, Heywood 1988"

@@ -33,6 +33,17 @@ _BOOST = (("speed rpm", "speed_rpm", ".0f", 1, 9), ("boost bar", "intake_pressur
           ("turbo rpm", "turbocharger_speed_rpm", ".0f", 1, 10))
 
 
+_BURN_NO = (("0-10 deg", "burn_0_10_deg", ".1f", 1, 9), ("10-90 deg", "burn_10_90_deg", ".1f", 1, 10),
+            ("NO ppm", "no_ppm_wet", ".0f", 1, 8), ("NO g/kWh", "no_g_per_kWh", ".2f", 1, 10))
+"""Burn angles and NO, shown where some point has them (NO with an emissions model)."""
+
+
+def _with_burn_no(rows, cols):
+    def has(key):
+        return any(isinstance(r.get(key), (int, float)) and math.isfinite(r[key]) for r in rows)
+    return tuple(cols) + tuple(c for c in _BURN_NO if has(c[1]))
+
+
 def _table(rows, cols) -> list[str]:
     out = ["  " + "".join(f"{h:>{w}s}" if s != "s" else f"  {h:<{w - 2}s}" for h, _, s, _, w in cols)]
     for r in rows:
@@ -130,7 +141,8 @@ def map_text(m) -> str:
     """The console report of a :class:`cyclesim.studies.maps.MapResult`."""
     cols = _FULL if m.kind == "full_load" else _PART
     what = "full-load curve" if m.kind == "full_load" else "part-load map"
-    lines = [f"{what}: {m.base_config} ({len(m.rows)} points, {m.cases_run} cases run)", *_table(m.rows, cols)]
+    lines = [f"{what}: {m.base_config} ({len(m.rows)} points, {m.cases_run} cases run)",
+             *_table(m.rows, _with_burn_no(m.rows, cols))]
     if "boost_limit" in m.columns:
         lines.append("turbocharger at each speed:")
         lines.extend(_table(m.rows, _BOOST))

@@ -52,7 +52,8 @@ DEFAULT_SPEEDS = (2000.0, 2500.0, 3000.0, 3500.0, 4000.0, 4500.0)
 DEFAULT_LOADS = (0.4, 0.55, 0.7, 0.85, 0.98)
 FIGURES = ("imep_net_bar", "imep_gross_bar", "pmep_bar", "fmep_bar", "bmep_bar", "torque_Nm", "power_kW",
            "bsfc_g_per_kWh", "eta_brake", "volumetric_efficiency", "exhaust_temperature_K", "p_max_bar",
-           "ca50_deg", "residual_fraction")
+           "ca50_deg", "residual_fraction", "burn_0_10_deg", "burn_10_90_deg", "no_ppm_wet", "no_ppm_dry",
+           "no_g_per_kWh")
 
 
 @dataclass

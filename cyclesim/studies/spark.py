@@ -802,8 +802,12 @@ def plot_spark_study(st: SparkStudy, out: Path, traces: int = 8) -> list[Path]:
         ax.set_title("cylinder pressure by spark advance")
         ax.legend(title="advance [deg BTDC]", fontsize=7, ncol=2)
         files.append(_save(fig, out / "spark_pressure_traces.png"))
+    from ..burn_no_plots import plot_spark_burn_no
     from .spark_knock_plot import plot_knock_onset
 
+    bp = plot_spark_burn_no(st, out)
+    if bp is not None:
+        files.append(bp)
     kp = plot_knock_onset(st, out)
     if kp is not None:
         files.append(kp)

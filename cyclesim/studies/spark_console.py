@@ -47,8 +47,9 @@ def _fmt(v, spec, scale=1.0, width=9):
 
 
 def spark_table_lines(st) -> list[str]:
-    """The short table: advance, torque, its loss from best, CA50, peak pressure and, with a knock
-    model, the knock onset and the unburned share at onset."""
+    """The short table: advance, torque, its loss from best, CA50, peak pressure, with a knock
+    model the knock onset and the unburned share at onset, the 0-10 % and 10-90 % burn angles and,
+    with an emissions model, NO."""
     t = st.table
     adv = t.column(st.spark_key)
     order = [int(i) for i in np.argsort(adv) if np.isfinite(adv[int(i)])]
@@ -60,6 +61,9 @@ def spark_table_lines(st) -> list[str]:
             ("loss %", "torque_loss_pct", ".1f", 1), ("CA50 ATDC", "ca50_deg", ".1f", 1), ("p_max bar", "p_max_bar", ".1f", 1)]
     if knock:
         cols += [("onset ATDC", "knock_onset_deg", ".1f", 1), ("unburned %", "knock_unburned_fraction_at_onset", ".0f", 100)]
+    cols += [("0-10 deg", "burn_0_10_deg", ".1f", 1), ("10-90 deg", "burn_10_90_deg", ".1f", 1)]
+    if "no_ppm_wet" in t.columns and np.isfinite(t.column("no_ppm_wet")).any():
+        cols += [("NO ppm", "no_ppm_wet", ".0f", 1), ("NO g/kWh", "no_g_per_kWh", ".2f", 1)]
     cols = [c for c in cols if c[1] in t.columns]
     rec = None
     if st.recommended_deg is not None:

@@ -295,7 +295,9 @@ def _scalar(v: Any) -> Any:
 SWEEP_TABLE = (("imep_net_bar", "net IMEP bar", ".2f", 1.0), ("bmep_bar", "BMEP bar", ".2f", 1.0),
                ("torque_Nm", "torque N m", ".1f", 1.0), ("bsfc_g_per_kWh", "BSFC g/kWh", ".0f", 1.0),
                ("ca50_deg", "CA50 deg", ".1f", 1.0), ("p_max_bar", "p_max bar", ".1f", 1.0),
-               ("residual_fraction", "residual %", ".1f", 100.0))
+               ("residual_fraction", "residual %", ".1f", 100.0), ("burn_0_10_deg", "0-10 deg", ".1f", 1.0),
+               ("burn_10_90_deg", "10-90 deg", ".1f", 1.0), ("no_ppm_wet", "NO ppm", ".0f", 1.0),
+               ("no_g_per_kWh", "NO g/kWh", ".2f", 1.0))
 """Figures in the printed sweep table: (summary key, heading, format, scale)."""
 
 

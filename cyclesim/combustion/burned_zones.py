@@ -1,0 +1,393 @@
+"""Unburned and burned zones, and burned-mass elements, from a finished one-zone cycle.
+
+Two steps, each replaceable (a two-zone cylinder gives :class:`ZoneHistory` directly):
+
+1. :func:`decompose_two_zone` splits the one-zone trace into an unburned and a burned zone at
+   one pressure.  The unburned zone (fresh charge plus the residual and EGR it holds, frozen)
+   follows its isentrope from the state it shares with the whole charge at the start of the
+   burn (before it the charge *is* the unburned zone, so this is the isentrope from IVC with
+   all the wall heat), losing its share of the wall heat.  The burned zone holds the rest of
+   the mixture's volume and internal energy; the pressure at which both zones fill the volume
+   is solved at each point (Newton on the pressure and the burned-zone temperature).
+2. :func:`burned_elements` resolves the burned zone into ``count`` burned-mass elements.
+   Element k takes the mass burned while the burned-zone fraction passes the k-th of ``count``
+   equal slices of its final value; each piece is born at the constant-pressure adiabatic
+   flame temperature of the unburned gas at that moment (h_b(T_ad, p) = h_u(T_u, p), the
+   tool's equilibrium burned gas) and mixes into its element at constant pressure; the
+   elements then follow the equilibrium isentrope with the pressure
+   (dh = v dp, trapezoidal in v).
+
+Heat-loss split
+---------------
+Between the zones: in proportion to A_z (T_z - T_wall), with the burned zone's share of the
+wall area A_b/A = x^(1/2) and A_u/A = 1 - x^(1/2), x its mass fraction (the form of Ferguson's
+two-zone model, Ferguson & Kirkpatrick 2015, ch. 4, from memory); the sum is the one-zone heat
+flow of the trace.  Among the elements: the burned zone's energy not accounted for by the
+elements' own (isentropic) work and birth enthalpy is removed from them, split in proportion to
+m_k max(T_k - T_wall, 1 K) (one film coefficient and one wetted area per unit mass for all
+elements: a stated choice, common practice for want of a flame geometry); at constant pressure
+their enthalpy falls by the heat they lose, their internal energy by that less the work of their
+contraction.  So the mass-weighted internal energy of the elements equals the burned zone's at every resolved point
+to the temperature solve's tolerance (about 1e-12).
+
+While the burned zone holds less than :data:`X_RESOLVED` of the charge its energy is the small
+difference of two large ones (a 1 K error in the unburned zone would move it by tens of
+kelvin): there the zone is taken as its elements, adiabatic, at the trace pressure.
+
+All arrays carry a leading case axis B; SI units.
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+import numpy as np
+
+X_RESOLVED = 0.02
+"""Burned-zone mass fraction [-] below which the zone is its elements' own (see the notes)."""
+
+_TOL_T = 1e-11  # relative tolerance of the temperature solves [-]
+
+
+class ZoneHistory(NamedTuple):
+    """Two zones at one pressure over the burn window, arrays (B, n).
+
+    theta : ndarray (n,)
+        Crank angle [deg].
+    t : ndarray (B, n)
+        Time [s] from theta = 0.
+    p : ndarray (B, n)
+        Pressure [Pa] (both zones).
+    m : ndarray (B, n)
+        Cylinder mass [kg].
+    x : ndarray (B, n)
+        Burned-zone mass fraction [-], non-decreasing.
+    T_u, T_b : ndarray (B, n)
+        Zone temperatures [K] (T_b NaN before the burn).
+    h_u : ndarray (B, n)
+        Absolute enthalpy of the unburned zone [J/kg] (the flame's enthalpy).
+    U_b : ndarray (B, n)
+        Absolute internal energy of the burned zone [J]; NaN where it is not resolved
+        (before the burn and below :data:`X_RESOLVED`).
+    y_u : ndarray (B,)
+        Burned-gas (residual plus EGR) mass fraction of the unburned zone [-].
+    Q_u : ndarray (B, n) or None
+        Cumulative heat from the unburned zone to the walls [J], from the first point.
+    """
+
+    theta: np.ndarray
+    t: np.ndarray
+    p: np.ndarray
+    m: np.ndarray
+    x: np.ndarray
+    T_u: np.ndarray
+    T_b: np.ndarray
+    h_u: np.ndarray
+    U_b: np.ndarray
+    y_u: np.ndarray
+    Q_u: np.ndarray | None = None
+
+
+def _mix(gas, T, rho, y):
+    """Mixture properties of (B,) or (B, n) arrays."""
+    if np.ndim(T) == 1:
+        return gas.mixture(T, rho, y)
+    return gas.mixture_grid(T, rho, y)
+
+
+def burned_state_p(gas, T, p, rho0=None):
+    """Burned gas at ``T`` [K] and ``p`` [Pa], arrays (B,) or (B, n).
+
+    Returns ``(rho, u, h, cp_eq)``: density [kg/m^3], absolute internal energy and enthalpy
+    [J/kg], and dh/dT at constant p [J/(kg K)] (composition shift included).
+    """
+    rho = p / (290.0 * T) if rho0 is None else rho0
+    for _ in range(3):   # rho = p/(R(T, rho) T); R varies with ln rho by under 1 % per decade
+        u, u_T, u_lr, R, R_T, R_lr = gas.burned(T, rho)
+        rho = p / (R * T)
+    u, u_T, u_lr, R, R_T, R_lr = gas.burned(T, rho)
+    # along constant p: d ln rho/dT = -(1/T + R_T/R) / (1 + R_lr/R)
+    dlr = -(1.0 / T + R_T / R) / (1.0 + R_lr / R)
+    h = u + R * T
+    cp = u_T + R + T * R_T + (u_lr + T * R_lr) * dlr
+    return rho, u, h, cp
+
+
+def _solve_T_p(gas, target, p, T0, enthalpy, lr0=None):
+    """Burned-gas state of enthalpy (or internal energy) ``target`` [J/kg] at ``p`` [Pa].
+
+    Newton on (T, ln rho) together, with the equation of state p = rho R(T, rho) T as the second
+    equation: one table look-up per iteration.  Returns ``(T, ln rho, u, h, dlnv_dlnp_s)``, the
+    last the isentropic d ln v / d ln p [-] there.
+    """
+    T = np.array(T0, dtype=float, copy=True)
+    lnp = np.log(p)
+    lr = lnp - np.log(290.0 * T) if lr0 is None else np.array(lr0, dtype=float, copy=True)
+    for _ in range(40):
+        u, u_T, u_lr, R, R_T, R_lr = gas.burned(T, np.exp(lr))
+        h = u + R * T
+        h_T, h_L = u_T + R + T * R_T, u_lr + T * R_lr
+        f1 = (h if enthalpy else u) - target
+        a11, a12 = (h_T, h_L) if enthalpy else (u_T, u_lr)
+        f2 = lr + np.log(R * T) - lnp
+        a21, a22 = R_T / R + 1.0 / T, 1.0 + R_lr / R
+        det = a11 * a22 - a12 * a21
+        dT = -(f1 * a22 - a12 * f2) / det
+        dL = -(a11 * f2 - a21 * f1) / det
+        if np.all(np.abs(dT) <= _TOL_T * T) and np.all(np.abs(dL) <= 1e-12):
+            break
+        T = np.clip(T + dT, 200.0, 6000.0)
+        lr = lr + dL
+    # isentrope (dh = v dp = R T d ln p): solve for dT, dL per unit d ln p
+    RT = R * T
+    c1, c2 = h_T - RT * a21, h_L - RT * a22
+    dL_s = 1.0 / (a22 - a21 * c2 / c1)
+    return T, lr, u, h, -dL_s
+
+
+def solve_T_hp(gas, h, p, T0):
+    """Burned-gas temperature [K] of enthalpy ``h`` [J/kg] at ``p`` [Pa] (Newton from ``T0``)."""
+    return _solve_T_p(gas, h, p, T0, True)[0]
+
+
+def solve_T_up(gas, u, p, T0):
+    """Burned-gas temperature [K] of internal energy ``u`` [J/kg] at ``p`` [Pa] (Newton)."""
+    return _solve_T_p(gas, u, p, T0, False)[0]
+
+
+def solve_T_urho(gas, u, rho, T0):
+    """Burned-gas temperature [K] of internal energy ``u`` [J/kg] at density ``rho`` (B,)."""
+    T = np.array(T0, dtype=float, copy=True)
+    for _ in range(30):
+        uu, u_T = gas.burned(T, rho)[:2]
+        dT = (u - uu) / u_T
+        T = np.clip(T + dT, 200.0, 6000.0)
+        if np.all(np.abs(dT) <= _TOL_T * T):
+            break
+    return T
+
+
+def flame_temperature(gas, h_u, p, T0=None):
+    """Constant-pressure adiabatic flame temperature [K] of unburned gas of enthalpy ``h_u``."""
+    return solve_T_hp(gas, h_u, p, np.full(np.shape(h_u), 2400.0) if T0 is None else T0)
+
+
+def _unburned(gas, T, p, y_u, R_u=None):
+    """Unburned zone (fresh charge with burned-gas fraction ``y_u``) at T, p: (u, h, R, cp).
+
+    ``R_u`` [J/(kg K)], if given, sets the density of the look-up (the residual's dissociation,
+    the only density dependence, is negligible at unburned temperatures).
+    """
+    if R_u is None:
+        mp = gas.mixture(T, p / (gas.R_unburned * T), y_u)
+        R_u = mp.R
+    mp = gas.mixture(T, p / (R_u * T), y_u)
+    return mp.u, mp.u + mp.R * T, mp.R, mp.u_T + mp.R
+
+
+def _first_burn(x):
+    """Index of the last point with no burned zone, per case (B,)."""
+    started = x > 0.0
+    k = np.argmax(started, axis=1) - 1
+    return np.where(started.any(axis=1), np.maximum(k, 0), x.shape[1] - 1)
+
+
+def decompose_two_zone(gas, theta, speed_rpm, V, p, T, m, y, Q_w, T_wall):
+    """Two zones at one pressure from a one-zone trace over the closed part (see the module notes).
+
+    Parameters
+    ----------
+    gas : cyclesim.thermo.GasTables
+    theta : ndarray (n,)
+        Crank angle [deg], from IVC (or the start of the burn) to EVO.
+    speed_rpm : ndarray (B,)
+    V, p, T, m, y : ndarray (B, n)
+        Volume [m^3], pressure [Pa], mean temperature [K], mass [kg], burned-gas mass
+        fraction [-] of the one-zone cylinder.
+    Q_w : ndarray (B, n)
+        Cumulative heat to the walls [J].
+    T_wall : ndarray (B,)
+        Mean wall temperature [K].
+
+    Returns
+    -------
+    ZoneHistory
+    """
+    B, n = p.shape
+    t = np.radians(theta)[None, :] / (2 * np.pi * np.asarray(speed_rpm, float)[:, None] / 60.0)
+    y_u = np.clip(y[:, 0], 0.0, 0.999)
+    x = np.clip((y - y_u[:, None]) / (1.0 - y_u[:, None]), 0.0, 1.0)
+    x = np.maximum.accumulate(x, axis=1)
+    U = m * _mix(gas, T, m / V, y).u
+    T_u = T.copy()
+    T_b = np.full((B, n), np.nan)
+    p2 = p.copy()
+    U_b = np.full((B, n), np.nan)
+    Q_u = np.zeros((B, n))
+    h_u = np.empty((B, n))
+    _, h_u[:, 0], _, _ = _unburned(gas, T[:, 0], p[:, 0], y_u)
+    k0 = _first_burn(x)
+    Tb_prev = np.full(B, 2400.0)
+    R_prev = None
+    for j in range(1, n):
+        before = j <= k0
+        # unburned zone over the step: isentrope from the previous point with its heat share
+        xs = x[:, j]
+        m_u = (1.0 - xs) * m[:, j]
+        m_b = xs * m[:, j]
+        a_b = np.sqrt(xs)
+        Tb_w = np.where(np.isfinite(T_b[:, j - 1]), T_b[:, j - 1], Tb_prev)
+        wu = (1.0 - a_b) * np.maximum(T_u[:, j - 1] - T_wall, 0.0)
+        wb = a_b * np.maximum(Tb_w - T_wall, 0.0)
+        share = np.where(wu + wb > 0, wu / np.where(wu + wb > 0, wu + wb, 1.0), 1.0)
+        dQ_u = (Q_w[:, j] - Q_w[:, j - 1]) * share
+        Q_u[:, j] = Q_u[:, j - 1] + dQ_u
+        _, _, R_u, cp_u = _unburned(gas, T_u[:, j - 1], p2[:, j - 1], y_u, R_prev)
+        R_prev = R_u
+        kappa = R_u / cp_u
+        Tu0, p0 = T_u[:, j - 1], p2[:, j - 1]
+        mu_safe = np.maximum(m_u, 1e-300)
+
+        def unburned_T(pp):
+            return Tu0 * np.exp(kappa * np.log(pp / p0)) - dQ_u / (mu_safe * cp_u)
+
+        resolved = ~before & (xs >= X_RESOLVED)
+        if resolved.any():
+            # Newton on (ln p, T_b): the burned zone's energy and its equation of state, with the
+            # unburned zone on its isentrope at that pressure (one look-up of each zone per pass)
+            ratio = np.where(np.isfinite(T_b[:, j - 1]) & (j - 1 > k0), p2[:, j - 1] / p[:, j - 1], 1.0)
+            lnp = np.log(p[:, j] * ratio)
+            Tb = Tb_w.copy()
+            lnp0 = np.log(p0)
+            mb_safe = np.maximum(m_b, 1e-300)
+            q = dQ_u / (mu_safe * cp_u)
+            for _ in range(30):
+                pp = np.exp(lnp)
+                Tu = Tu0 * np.exp(kappa * (lnp - lnp0)) - q
+                dTu = kappa * (Tu + q)
+                uu, _, Ru, cpu = _unburned(gas, Tu, pp, y_u, R_u)
+                Vu = m_u * Ru * Tu / pp
+                Vb = np.maximum(V[:, j] - Vu, 1e-3 * V[:, j])
+                rb = mb_safe / Vb
+                dlr = m_u * Ru * (dTu - Tu) / pp / Vb
+                eb = (U[:, j] - m_u * uu) / mb_safe
+                deb = -m_u * (cpu - Ru) * dTu / mb_safe
+                u, u_T, u_lr, R, R_T, R_lr = gas.burned(np.clip(Tb, 300.0, 5000.0), rb)
+                f1 = u - eb
+                f2 = np.log(rb * R * Tb) - lnp
+                a11, a12 = u_T, u_lr * dlr - deb
+                a21, a22 = R_T / R + 1.0 / Tb, (1.0 + R_lr / R) * dlr - 1.0
+                det = a11 * a22 - a12 * a21
+                dT = np.where(resolved, -(f1 * a22 - a12 * f2) / det, 0.0)
+                dL = np.where(resolved, -(a11 * f2 - a21 * f1) / det, 0.0)
+                Tb = np.clip(Tb + dT, 300.0, 5000.0)
+                lnp = np.clip(lnp + dL, np.log(0.5 * p[:, j]), np.log(2.0 * p[:, j]))
+                if np.all(np.abs(dL) <= 1e-12) and np.all(np.abs(dT) <= 1e-9 * Tb):
+                    break
+            pb = np.exp(lnp)
+            Tu = Tu0 * np.exp(kappa * (lnp - lnp0)) - q
+            uu = _unburned(gas, Tu, pb, y_u, R_u)[0]
+            p2[:, j] = np.where(resolved, pb, p[:, j])
+            T_u[:, j] = np.where(resolved, Tu, unburned_T(p[:, j]))
+            T_b[:, j] = np.where(resolved, Tb, np.nan)
+            U_b[:, j] = np.where(resolved, U[:, j] - m_u * uu, np.nan)
+        else:
+            T_u[:, j] = unburned_T(p[:, j])
+        T_u[:, j] = np.where(before, T[:, j], T_u[:, j])
+        _, h_u[:, j], _, _ = _unburned(gas, T_u[:, j], p2[:, j], y_u, R_u)
+        small = ~before & ~resolved
+        if small.any():   # the burned zone as its own first flame: its temperature for the heat split
+            Tf = flame_temperature(gas, h_u[:, j], p2[:, j], Tb_prev)
+            Tb_prev = np.where(small, Tf, Tb_prev)
+            T_b[:, j] = np.where(small, Tf, T_b[:, j])
+    return ZoneHistory(theta, t, p2, m, x, T_u, T_b, h_u, U_b, y_u, Q_u)
+
+
+class Elements(NamedTuple):
+    """Burned-mass elements over the burn window.
+
+    T : ndarray (B, N, n)
+        Element temperatures [K], NaN before birth.
+    x : ndarray (B, N, n)
+        Element mass as a fraction of the cylinder mass [-] (sums to the zone's x).
+    born : ndarray (B, N, n) of bool
+        True where the element holds mass.
+    Q : ndarray (B, n)
+        Cumulative heat the elements gave up at constant pressure [J] (their enthalpy drop in the
+        heat-loss step): the burned zone's heat loss, plus the small difference between the
+        zone's and the elements' volume work.
+    """
+
+    T: np.ndarray
+    x: np.ndarray
+    born: np.ndarray
+    Q: np.ndarray
+
+
+def element_energy(gas, el: Elements, zones: ZoneHistory, j: int) -> np.ndarray:
+    """Mass-weighted internal energy of the elements at point ``j`` [J] (B,)."""
+    B, N, _ = el.T.shape
+    T = np.where(el.born[:, :, j], el.T[:, :, j], 2000.0)
+    p = np.broadcast_to(zones.p[:, j:j + 1], (B, N))
+    _, u, _, _ = burned_state_p(gas, T, p)
+    return (np.where(el.born[:, :, j], el.x[:, :, j] * u, 0.0)).sum(axis=1) * zones.m[:, j]
+
+
+def burned_elements(gas, zones: ZoneHistory, count: int, T_wall) -> Elements:
+    """Burned-mass elements of a zone history (see the module notes)."""
+    B, n = zones.p.shape
+    N = int(count)
+    x_end = zones.x[:, -1]
+    edges = x_end[:, None] * np.arange(N + 1)[None, :] / N          # (B, N+1) slice edges
+    T_out = np.full((B, N, n), np.nan)
+    x_out = np.zeros((B, N, n))
+    xk = np.zeros((B, N))
+    h = np.zeros((B, N))          # element enthalpy [J/kg]
+    Tk = np.full((B, N), 2400.0)
+    lr = np.zeros((B, N))         # ln of the element density [ln kg/m^3]
+    kv = np.zeros((B, N))         # isentropic d ln v / d ln p of the element [-]
+    Tw = np.asarray(T_wall, float)[:, None]
+    Q = np.zeros((B, n))
+    for j in range(1, n):
+        Q[:, j] = Q[:, j - 1]
+        p0, p1 = zones.p[:, j - 1:j], zones.p[:, j:j + 1]
+        P1 = np.broadcast_to(p1, (B, N))
+        have = xk > 0
+        if have.any():
+            # existing elements along the equilibrium isentrope: dh = v dp, trapezoidal in v,
+            # v at the step's end from the local isentropic exponent (second order in the step)
+            v0 = np.exp(-lr)
+            v1 = v0 * np.exp(kv * np.log(p1 / p0))
+            h = np.where(have, h + 0.5 * (p1 - p0) * (v0 + v1), h)
+        # newly burned mass into the slices it falls in, at the flame enthalpy of the unburned gas
+        lo, hi = zones.x[:, j - 1:j], zones.x[:, j:j + 1]
+        dx = np.clip(np.minimum(hi, edges[:, 1:]) - np.maximum(lo, edges[:, :-1]), 0.0, None)
+        new = dx > 0
+        if new.any():
+            h = np.where(new, (xk * h + dx * zones.h_u[:, j:j + 1]) / np.where(new, xk + dx, 1.0), h)
+            xk = xk + dx
+        have = xk > 0
+        if not have.any():
+            continue
+        hh = np.where(have, h, zones.h_u[:, j:j + 1])
+        Tk, lr, u, _, kv = _solve_T_p(gas, hh, P1, np.where(have, Tk, 2400.0), True,
+                                      np.where(have, lr, np.log(P1 / (290.0 * 2400.0))))
+        U_b = zones.U_b[:, j]
+        fix = np.isfinite(U_b)
+        if fix.any():
+            # the zone's energy not in the elements' work and birth enthalpy: their heat loss
+            m = zones.m[:, j:j + 1]
+            D = U_b - (np.where(have, xk * u, 0.0) * m).sum(axis=1)
+            ex = np.maximum(Tk - Tw, 1.0)
+            w = np.where(have, xk * m * ex, 0.0).sum(axis=1)
+            du = (np.where(fix, D, 0.0) / np.where(fix & (w > 0), w, 1.0))[:, None] * ex
+            sel = have & fix[:, None]
+            Tk2, lr2, _, h2, kv2 = _solve_T_p(gas, u + np.where(sel, du, 0.0), P1, Tk, False, lr)
+            Tk, lr, kv = np.where(sel, Tk2, Tk), np.where(sel, lr2, lr), np.where(sel, kv2, kv)
+            # the heat at constant pressure is the enthalpy the elements lose (their internal energy
+            # falls by D, their contraction is work the pressure does on them)
+            Q[:, j] -= (np.where(sel, xk * (h2 - hh), 0.0) * m).sum(axis=1)
+            h = np.where(sel, h2, h)
+        T_out[:, :, j] = np.where(have, Tk, np.nan)
+        x_out[:, :, j] = xk
+    return Elements(T_out, x_out, x_out > 0, Q)
