@@ -111,6 +111,10 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
           sweepable=False),
         P("tolerance", "-", 5e-4, "full mode: relative change of net IMEP and trapped mass that counts as settled",
           0, 0.1, min_exclusive=True, sweepable=False),
+        P("periodic", "-", "anderson", "full mode: how the periodic state is reached: anderson (the next cycle's"
+          " start accelerated from the cycles before where plain repetition settles slowly) or plain"
+          " (each cycle from the end of the one before)", kind="choice", choices=("anderson", "plain"),
+          sweepable=False),
     ),
 }
 """Core sections and their declared keys (the single source for validation and docs)."""

@@ -240,7 +240,9 @@ def _packed(model, names: tuple[str, ...], B: int) -> dict[str, np.ndarray]:
 class Compiled:
     """The packed inputs of one batch's compiled cycle (built once per integration)."""
 
-    def __init__(self, mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at):
+    def __init__(self, mod, batch, rhs, pts):
+        half, Gu, geo_rows = pts.half, pts.Gu, pts.geo_rows
+        closed_pts, burning_pts, open_at = pts.closed, pts.burning, pts.open_at
         self.mod = mod
         self.rhs = rhs
         B = batch.B
@@ -317,9 +319,9 @@ class Compiled:
         self.IC = IC
         self.broken = False
         self.ready = False
-        from .solver import TABLEAU
+        from .stepper import CYCLE_TABLEAU
 
-        A, a_den, b, b_den, node = TABLEAU.arrays()
+        A, a_den, b, b_den, node = CYCLE_TABLEAU.arrays()
         self.tableau = (_cw(A), _cw(a_den), _cw(b), b_den, _cw(node, np.int64))
 
     def cycle(self, y: np.ndarray, Y: np.ndarray, F: np.ndarray) -> bool:
@@ -437,9 +439,10 @@ def _cached(mod) -> bool:
         return False
 
 
-def prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at) -> tuple[Compiled | None, str]:
-    """The compiled cycle of this batch (None for the Python path) and the loop's name (:func:`loop_for`)."""
+def prepare(batch, rhs, pts) -> tuple[Compiled | None, str]:
+    """The compiled cycle of this batch (None for the Python path) and the loop's name (:func:`loop_for`);
+    ``pts``: the grid's per-point data (:class:`cyclesim.cycle_grid.CyclePoints`)."""
     mod, loop = loop_for(batch, rhs)
     if mod is None:
         return None, loop
-    return Compiled(mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at), loop
+    return Compiled(mod, batch, rhs, pts), loop
