@@ -26,6 +26,7 @@ class CycleTrace:
     ivc_state: dict = field(default_factory=dict)
     loop: str = ""              # the cycle loop that ran: "compiled", or "numpy (why)"
     accelerated: np.ndarray | None = None   # (B,) cycles that started from an accelerated state
+    reported_from_accelerated: np.ndarray | None = None   # (B,) the reported cycle did (a case not settled)
 
     def row(self, name: str) -> int:
         return self.names.index(name)

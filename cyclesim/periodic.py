@@ -51,10 +51,12 @@ PERIODIC_METHODS = ("anderson", "plain")
 ANDERSON_MEMORY = 3
 """Differences of earlier cycles the acceleration keeps per case (Walker & Ni 2011 report
 small memories, 1-5, as effective on their fixed-point problems)."""
-ACCELERATE_ABOVE = 0.1
+ACCELERATE_ABOVE = 0.05
 """A case's next start is accelerated where its figures' change shrank by less than this factor
 over the last cycle (plain repetition contracting slowly); where plain repetition already
-contracts tenfold or more per cycle (the demo's ~30), it is kept."""
+contracts twentyfold or more per cycle (the demo at 3000 rpm: about 30), it is kept.  Measured on
+the demo configs at 800, 3000 and 6000 rpm (benchmarks/periodic_cycles.py): accelerating every
+cycle cost a cycle more at the default tolerance (the confirming plain cycle), this threshold none."""
 
 CARRIED = ("m", "T", "m_b", "m_ibuf", "mb_ibuf", "H_ibuf")
 """Core rows carried from one cycle to the next (the others are totals, reset at the start)."""
@@ -171,6 +173,7 @@ def run_cycles(system: CylinderSystem, progress, initial, cycles, step_scale, ma
     tr.end_state = book.Y[:, :, -1].copy()
     tr.ivc_state = book.ivc
     tr.accelerated = accel.count if accel is not None else np.zeros(b.B, dtype=int)
+    tr.reported_from_accelerated = book.from_accelerated
     return tr
 
 
@@ -188,6 +191,7 @@ def _closed_cycle(runner: CycleRunner, y: np.ndarray, progress) -> CycleTrace:
     tr.end_state = Y[:, :, -1].copy()
     tr.ivc_state = {"p": rhs.p_ivc, "T": rhs.T_ivc, "V": rhs.V_ivc}
     tr.accelerated = np.zeros(B, dtype=int)
+    tr.reported_from_accelerated = np.zeros(B, dtype=bool)
     return tr
 
 
@@ -217,6 +221,7 @@ class Settling:
         self.prev = None
         self.change = np.full(B, np.inf)        # largest relative change of the last cycle
         self.change_before = np.full(B, np.inf)
+        self.from_accelerated = np.zeros(B, dtype=bool)   # per case: its reported cycle began accelerated
 
     def judge(self, cyc: int, n_max: int, Y, F, accel) -> np.ndarray:
         """Book cycle ``cyc`` (in ``Y``, ``F``): the cases it settles, those done with it.
@@ -244,6 +249,8 @@ class Settling:
             newly |= ~self.done
         if newly.any():
             self._report(newly, cyc, n_max, Y, F, imep, m_tr)
+            if accel is not None:
+                self.from_accelerated[newly] = accel.from_accelerated[newly]
         self.prev = (imep, m_tr)
         return passed
 
@@ -308,9 +315,10 @@ class Acceleration:
         x, fx = start[rows] / s, end[rows] / s
         confirm = passed & self.from_accelerated
         self.aa.reset(confirm | ~self.rhs.alive)
-        nxt = self.aa.step(x, fx) * s
         slow = book.change > ACCELERATE_ABOVE * book.change_before
-        use = slow & ~passed & ~book.done & self.rhs.alive & _physical(nxt) & np.isfinite(nxt).all(axis=0)
+        want = slow & ~passed & ~book.done & self.rhs.alive
+        nxt = self.aa.step(x, fx, want) * s
+        use = want & self.aa.last & _physical(nxt) & np.isfinite(nxt).all(axis=0)
         y = end.copy()
         y[np.ix_(rows, use)] = nxt[:, use]
         self.from_accelerated = use
