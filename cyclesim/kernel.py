@@ -331,9 +331,10 @@ class Compiled:
         CB = self.CB
         CB[mod.R_IVC_P], CB[mod.R_IVC_T], CB[mod.R_IVC_V] = rhs.p_ivc, rhs.T_ivc, rhs.V_ivc
         G = self.Gc
-        args = (self.full, self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.closed, self.burning,
-                self.open_at, self.Ai, self.Ae, _cw(y), Y, F, CB, self.IC, self.reset, self.geo_rows,
-                self.PI, self.PE, self.gas_tab, self.gas_off, self.gc, self.uc4, self.status) + self.tableau
+        args = (self.full, (self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.geo_rows),
+                (self.closed, self.burning, self.open_at), (self.Ai, self.Ae, self.PI, self.PE),
+                (_cw(y), Y, F, self.status), (CB, self.IC, self.reset),
+                (self.gas_tab, self.gas_off, self.gc, self.uc4), self.tableau)
         B = self.status.size
         n_thr = min(threads(), B // MIN_CASES_PER_THREAD)
         if self.broken:
