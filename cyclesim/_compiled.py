@@ -427,17 +427,30 @@ def _weighted(coef, K, s, k):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, open_at, Ai_pts, Ae_pts,
-              y, Y, F, CB, IC, reset, geo_rows, PI, PE, gas_tab, gas_off, gc, uc4, status, tA, ta_den, tb, tb_den,
-              tnode, b0, b1):
-    """One cycle of cases b0..b1-1 by the Runge-Kutta tableau (tA, ta_den, tb, tb_den, tnode:
-    cyclesim.stepper.Tableau.arrays) on the grid, as the Python loop.
+def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
+    """One cycle of cases b0..b1-1 by the Runge-Kutta tableau on the grid, as the Python loop.
+
+    The inputs come in groups (tuples, see ``cyclesim.kernel.Compiled``):
+
+    - grid: (th, steps, Vp, dVp, Ahp, App, Alp, geo_rows): the points, the steps, the geometry
+      per point and distinct engine, and each case's engine;
+    - masks: (closed_pts, burning_pts, open_at) per point (and case);
+    - valves: (Ai_pts, Ae_pts, PI, PE): effective valve areas and plenum pressures [Pa] per point
+      and case (PI, PE one row (1 x B) where they are constant);
+    - state: (y, Y, F, status): the start state, the trace arrays written, the per-case status;
+    - consts: (CB, IC, reset): per-case constants, integer codes and rows, the IVC resets;
+    - gas: (gas_tab, gas_off, gc, uc4): the property tables;
+    - tableau: (tA, ta_den, tb, tb_den, tnode): cyclesim.stepper.Tableau.arrays.
 
     Cases touch only their own columns, so two threads may run disjoint ranges of one batch
-    (the GIL is released).
-
-    PI, PE: plenum pressures [Pa] per point and case (points x B), or one row (1 x B) where they
-    are constant."""
+    (the GIL is released)."""
+    th, steps, Vp, dVp, Ahp, App, Alp, geo_rows = grid
+    closed_pts, burning_pts, open_at = masks
+    Ai_pts, Ae_pts, PI, PE = valves
+    y, Y, F, status = state
+    CB, IC, reset = consts
+    gas_tab, gas_off, gc, uc4 = gas
+    tA, ta_den, tb, tb_den, tnode = tableau
     n, B = y.shape
     vary = PI.shape[0] > 1
     N = steps.shape[0]

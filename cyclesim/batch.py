@@ -102,7 +102,7 @@ def batch_key(case: Case, registry) -> tuple:
     from .config import effective_step_deg
 
     parts.append(("step", effective_step_deg(case.simulation, case.operating.speed_rpm)))
-    from .solver import closed_step_factor
+    from .cycle_grid import closed_step_factor
 
     classes = {role: registry.submodel_class(role, case.submodels[role].model) for role in ROLES}
     parts.append(("closed_step_factor", closed_step_factor(case, classes)))

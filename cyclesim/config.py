@@ -114,6 +114,10 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
         P("start", "-", "plain", "full mode: first cylinder state: plain (residual at the exhaust plenum's"
           " pressure and temperature) or estimate (the ideal cycle's residual, cyclesim.residual_start)",
           kind="choice", choices=("plain", "estimate"), sweepable=False),
+        P("periodic", "-", "anderson", "full mode: how the periodic state is reached: anderson (the next cycle's"
+          " start accelerated from the cycles before where plain repetition settles slowly) or plain"
+          " (each cycle from the end of the one before)", kind="choice", choices=("anderson", "plain"),
+          sweepable=False),
     ),
 }
 """Core sections and their declared keys (the single source for validation and docs)."""

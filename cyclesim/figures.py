@@ -15,7 +15,10 @@ import numpy as np
 from .errors import CyclesimError, PluginError
 from .motoring import apply_motored, compression_work, motored_cases, polytropic_exponents
 from .roles import FrictionInputs
-from .solver import CycleTrace, hermite, hermite_grid, is_uniform, raised_at
+from .cycle_trace import CycleTrace
+from .layout import CORE
+from .hermite import HermiteBasis, hermite, hermite_grid, is_uniform
+from .solver import raised_at
 
 
 def _columns(gas, T, rho, y):
@@ -477,17 +480,17 @@ def output_trace(batch, tr: CycleTrace, d: dict, step: float | None) -> dict[str
     if step and step > 0 and (not uniform or abs(step - h) > 1e-12):
         n = int(round((th[-1] - th[0]) / step))
         grid = np.linspace(th[0], th[-1], n + 1)
-
-        def at(row_y, row_f):
-            return hermite_grid(th, row_y, row_f, grid)
+        basis = HermiteBasis(th, grid)        # one basis for every column
+        at = basis.rows
     else:
         grid = th
 
         def at(row_y, row_f):
             return row_y
 
-    geo = batch.geometry
-    V = np.broadcast_to(geo.volume(grid), (B, len(grid)))
+    # the volume of each distinct engine of the batch, once
+    geo_u, geo_rows = batch.geometry.distinct()
+    V = geo_u.volume(grid)[geo_rows]
     m = at(Y[0], F[0])
     T = at(Y[1], F[1])
     mb = at(Y[2], F[2])
@@ -507,7 +510,7 @@ def output_trace(batch, tr: CycleTrace, d: dict, step: float | None) -> dict[str
             return F[row]
         if not uniform:
             return hermite_grid(th, Y[row], F[row], grid, derivative=True)
-        return np.stack([np.interp(grid, th, F[row][b]) for b in range(B)])
+        return basis.linear(F[row])
 
     cols["heat_release_rate_J_per_deg"] = rate(I["Q_burn"])
     cols["wall_heat_rate_J_per_deg"] = rate(I["Q_w"])
@@ -521,8 +524,6 @@ def output_trace(batch, tr: CycleTrace, d: dict, step: float | None) -> dict[str
         lifts = vf.lift(grid)
         cols["intake_lift_mm"] = np.broadcast_to(lifts["intake"], (B, len(grid))) * 1e3
         cols["exhaust_lift_mm"] = np.broadcast_to(lifts["exhaust"], (B, len(grid))) * 1e3
-    from .solver import CORE
-
     for k, name in enumerate(tr.names[len(CORE):], start=len(CORE)):
         cols[name] = at(Y[k], F[k])
     # Woschni-style motored pressure, when the heat-transfer model integrates it

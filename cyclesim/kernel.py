@@ -240,7 +240,9 @@ def _packed(model, names: tuple[str, ...], B: int) -> dict[str, np.ndarray]:
 class Compiled:
     """The packed inputs of one batch's compiled cycle (built once per integration)."""
 
-    def __init__(self, mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at):
+    def __init__(self, mod, batch, rhs, pts):
+        half, Gu, geo_rows = pts.half, pts.Gu, pts.geo_rows
+        closed_pts, burning_pts, open_at = pts.closed, pts.burning, pts.open_at
         self.mod = mod
         self.rhs = rhs
         B = batch.B
@@ -317,9 +319,9 @@ class Compiled:
         self.IC = IC
         self.broken = False
         self.ready = False
-        from .solver import TABLEAU
+        from .stepper import CYCLE_TABLEAU
 
-        A, a_den, b, b_den, node = TABLEAU.arrays()
+        A, a_den, b, b_den, node = CYCLE_TABLEAU.arrays()
         self.tableau = (_cw(A), _cw(a_den), _cw(b), b_den, _cw(node, np.int64))
 
     def cycle(self, y: np.ndarray, Y: np.ndarray, F: np.ndarray) -> bool:
@@ -329,9 +331,10 @@ class Compiled:
         CB = self.CB
         CB[mod.R_IVC_P], CB[mod.R_IVC_T], CB[mod.R_IVC_V] = rhs.p_ivc, rhs.T_ivc, rhs.V_ivc
         G = self.Gc
-        args = (self.full, self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.closed, self.burning,
-                self.open_at, self.Ai, self.Ae, _cw(y), Y, F, CB, self.IC, self.reset, self.geo_rows,
-                self.PI, self.PE, self.gas_tab, self.gas_off, self.gc, self.uc4, self.status) + self.tableau
+        args = (self.full, (self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.geo_rows),
+                (self.closed, self.burning, self.open_at), (self.Ai, self.Ae, self.PI, self.PE),
+                (_cw(y), Y, F, self.status), (CB, self.IC, self.reset),
+                (self.gas_tab, self.gas_off, self.gc, self.uc4), self.tableau)
         B = self.status.size
         n_thr = min(threads(), B // MIN_CASES_PER_THREAD)
         if self.broken:
@@ -437,9 +440,10 @@ def _cached(mod) -> bool:
         return False
 
 
-def prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at) -> tuple[Compiled | None, str]:
-    """The compiled cycle of this batch (None for the Python path) and the loop's name (:func:`loop_for`)."""
+def prepare(batch, rhs, pts) -> tuple[Compiled | None, str]:
+    """The compiled cycle of this batch (None for the Python path) and the loop's name (:func:`loop_for`);
+    ``pts``: the grid's per-point data (:class:`cyclesim.cycle_grid.CyclePoints`)."""
     mod, loop = loop_for(batch, rhs)
     if mod is None:
         return None, loop
-    return Compiled(mod, batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at), loop
+    return Compiled(mod, batch, rhs, pts), loop

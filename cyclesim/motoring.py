@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .solver import hermite, hermite_grid
+from .hermite import hermite, hermite_grid
 
 MODE_FIRED = "fired"
 MODE_MOTORED = "motored"

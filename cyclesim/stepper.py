@@ -100,12 +100,29 @@ def combine(y, h: float, coeffs, den: float, ks):
     return y + (h / den) * acc if den != 1.0 else y + h * acc
 
 
+def stages(fun, y, h: float, tableau: Tableau, k0=None) -> list:
+    """The stage derivatives of one step from ``y``: ``fun(i, y_i)`` is called for stage ``i``
+    on its stage state (``k0``: stage 0's, where the caller has it already)."""
+    ks = [fun(0, y) if k0 is None else k0]
+    for i in range(1, tableau.stages):
+        ks.append(fun(i, combine(y, h, tableau.a[i], tableau.a_den[i], ks)))
+    return ks
+
+
+def advance(y, h: float, tableau: Tableau, ks):
+    """The step's end state from its stages."""
+    return combine(y, h, tableau.b, tableau.b_den, ks)
+
+
 def step(fun, t: float, y, h: float, tableau: Tableau = KUTTA3, k0=None):
     """One step of ``dy/dt = fun(t, y)`` from ``(t, y)``: returns ``(y_new, stages)``.
 
     ``k0`` is ``fun(t, y)`` where the caller has it already.
     """
-    ks = [fun(t, y) if k0 is None else k0]
-    for i in range(1, tableau.stages):
-        ks.append(fun(t + tableau.c[i] * h, combine(y, h, tableau.a[i], tableau.a_den[i], ks)))
-    return combine(y, h, tableau.b, tableau.b_den, ks), ks
+    c = tableau.c
+    ks = stages(lambda i, ys: fun(t + c[i] * h, ys), y, h, tableau, k0)
+    return advance(y, h, tableau, ks), ks
+
+
+CYCLE_TABLEAU = KUTTA3
+"""The cycle loops' scheme (numpy and compiled alike)."""

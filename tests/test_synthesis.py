@@ -155,17 +155,18 @@ def test_fine_grid_interpolation_equals_the_solver_hermite_interpolant():
     # reference: cyclesim.solver.hermite_grid (all rows at once) on a non-uniform solver grid with
     # a coarser closed-valve part; the row-by-row fine-grid path must give the same values
     from cyclesim.solver import hermite_grid
-    from cyclesim.traces.synthesis import _FineGrid
+    from cyclesim.hermite import HermiteBasis
 
     rng = np.random.default_rng(8)
     th = np.concatenate([np.arange(-360.0, -120.0, 0.5), np.arange(-120.0, 120.0, 2.0), np.arange(120.0, 360.01, 0.5)])
     Y, F = rng.standard_normal((2, 5, th.size))
     grid = np.linspace(-360.0, 360.0, 7201)
     ref = hermite_grid(th, Y, F, grid)
-    fg = _FineGrid(th, grid)
+    fg = HermiteBasis(th, grid)
     out = np.empty_like(ref)
     for b in range(5):
-        fg.hermite(Y[b], F[b], out[b])
+        fg.row(Y[b], F[b], out[b])
+    assert np.array_equal(fg.rows(Y, F), ref)      # all rows at once: the same digits
     assert np.allclose(out, ref, rtol=0, atol=1e-13)
     at_node = np.isin(grid, th)
     assert at_node.sum() > 1000 and np.array_equal(out[:, at_node], Y[:, np.isin(th, grid)])   # the nodes' values

@@ -50,6 +50,7 @@ import numpy as np
 from ..batch import group_cases
 from ..config import Case, case_with
 from ..errors import ConfigError, CyclesimError
+from ..hermite import HermiteBasis
 
 # burn-parameter keys that carry the cycle-to-cycle variation, per burn model:
 # (start-type key varied by an absolute spread [deg], duration key varied by a relative spread)
@@ -184,43 +185,6 @@ def draw_parameters(case: Case, n: int, var: CycleVariation) -> tuple[list[dict]
     return changes, misfire, partial
 
 
-class _FineGrid:
-    """Cubic Hermite interpolation from the solver's crank grid onto the fine synthesis grid.
-
-    The same interpolant as :func:`cyclesim.solver.hermite_grid` (interval, basis
-    functions and order of the sums alike, so the values are identical), with the basis
-    evaluated once per grid pair and each cycle's row written in place: the working
-    arrays are one row long instead of (cycles, fine samples).
-    """
-
-    def __init__(self, theta: np.ndarray, grid: np.ndarray):
-        from ..solver import interval_of
-
-        i, h, t = interval_of(theta, np.asarray(grid, float))
-        self.i, self.i1 = i, i + 1
-        self.h00 = 2 * t**3 - 3 * t**2 + 1
-        self.h10h = (t**3 - 2 * t**2 + t) * h
-        self.h01 = -2 * t**3 + 3 * t**2
-        self.h11h = (t**3 - t**2) * h
-        self._tmp = np.empty(t.size)
-
-    def hermite(self, y: np.ndarray, f: np.ndarray, out: np.ndarray) -> np.ndarray:
-        """Values on the fine grid into ``out`` from values ``y`` and slopes ``f`` [per deg] of one row."""
-        tmp = self._tmp
-        np.take(y, self.i, out=out)
-        out *= self.h00
-        np.take(f, self.i, out=tmp)
-        tmp *= self.h10h
-        out += tmp
-        np.take(y, self.i1, out=tmp)
-        tmp *= self.h01
-        out += tmp
-        np.take(f, self.i1, out=tmp)
-        tmp *= self.h11h
-        out += tmp
-        return out
-
-
 def _steady_state(case: Case, registry):
     from ..batch import build_batch
     from ..solver import integrate
@@ -260,7 +224,8 @@ def _run_chain(cases: list[Case], registry, start: np.ndarray, tol: float = CHAI
     ([(indices, batch, trace, derived, figures) per group], end states (n_state, n), sweeps).
     """
     from ..batch import build_batch
-    from ..solver import _TOTALS, integrate
+    from ..layout import TOTALS as _TOTALS
+    from ..solver import integrate
 
     n = len(cases)
     groups = [(g, build_batch([cases[j] for j in g], registry)) for g in group_cases(cases, registry)]
@@ -482,13 +447,13 @@ def synthesize(
     def collect(idx, batch, tr, d, figs):
         """Fill the rows of cycles ``idx`` (global indices, in the batch's column order)."""
         # pressure and temperature: cubic Hermite from the solver's values and slopes; gamma: linear
-        fine_grid = _FineGrid(tr.theta, theta_f)
+        fine_grid = HermiteBasis(tr.theta, theta_f)
         p_sol, dp_sol, g_sol = d["p"], d["dp"], d["gamma"]
         I = {nm: k for k, nm in enumerate(tr.names)}
         w_per_deg = 6.0 * speed          # crank degrees per second
         for b, i in enumerate(idx):
-            fine_grid.hermite(p_sol[b], dp_sol[b], P[i])
-            fine_grid.hermite(tr.Y[1, b], tr.F[1, b], Tg[i])
+            fine_grid.row(p_sol[b], dp_sol[b], P[i])
+            fine_grid.row(tr.Y[1, b], tr.F[1, b], Tg[i])
             G[i] = np.interp(theta_f, tr.theta, g_sol[b])
             # wall heat rate: the solver's dQ_w/dtheta [J/deg] (linear between its nodes), in W
             W[i] = np.interp(theta_f, tr.theta, tr.F[I["Q_w"], b])
