@@ -47,8 +47,9 @@ import numpy as np
 
 from cyclesim.combustion import flame_geometry as fg
 from cyclesim.combustion import laminar_flame as lf
-from cyclesim.combustion.turbulence import (integral_length, kernel_turbulence_factor, kk_rates,
-                                            taylor_microscale, turbulence_intensity, viscosity_air)
+from cyclesim.combustion.laminar_flame import gulder, metghalchi_keck
+from cyclesim.combustion.turbulence import (INTEGRAL_SCALE_RATIO, integral_length, kernel_turbulence_factor,
+                                            kk_rates, taylor_microscale, turbulence_intensity, viscosity_air)
 from cyclesim.kernel_ops import where
 from cyclesim.params import Param, StateVar
 from cyclesim.roles import BurnRate, SetupContext
@@ -115,8 +116,8 @@ def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, m
     T_u = isentrope_temperature(T_ivc, p / p_ivc, cv0, cv1, cv2, R_u)
     rho_u = p / (R_u * T_u)
     f = np.minimum(np.maximum(1.0 - (1.0 - y_b) / np.maximum(1.0 - eff * x_b, 1e-9), 0.0), 0.6)
-    s_mk = lf.metghalchi_keck(phi, T_u, p, f, c_mk0, c_mk1, c_mk2)
-    s_g = lf.gulder(phi, T_u, p, f, c_g0, c_g1, c_g2, c_g3, c_g4)
+    s_mk = metghalchi_keck(phi, T_u, p, f, c_mk0, c_mk1, c_mk2)
+    s_g = gulder(phi, T_u, p, f, c_g0, c_g1, c_g2, c_g3, c_g4)
     s_l = np.maximum(where(mk > 0.5, s_mk, s_g), 1e-3)
     T_b = T_u + (1.0 - f) * dT_ad
     v_f = m * (x_b * R_b * T_b + np.maximum(x_e - x_b, 0.0) * R_u * T_u) / p
@@ -128,7 +129,7 @@ def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, m
     L = integral_length(V, bore_area, half_bore)
     u = turbulence_intensity(k)
     t = (theta - spark) / omega_deg
-    u_eff = u * kernel_turbulence_factor(r_f, t, L, u)
+    u_eff = u * kernel_turbulence_factor(r_f, t, INTEGRAL_SCALE_RATIO * L, u)
     nu = viscosity_air(T_u) / rho_u
     lam = taylor_microscale(u, L, nu)
     on = (theta >= spark) & (theta < CYCLE_END_DEG)

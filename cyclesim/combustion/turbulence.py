@@ -29,9 +29,12 @@ from memory) with eps = u'^3 / L, so lambda = L sqrt(15 / Re_L), Re_L = u' L / n
 is wrinkled only by the eddies smaller than itself, and only after they have had an eddy
 turnover time to act on it; the effective turbulence intensity is
 
-    u'_eff = u' sqrt(1 - exp(-r_f / L)) sqrt(1 - exp(-t / tau_L)),   tau_L = L / u',
+    u'_eff = u' sqrt(1 - exp(-r_f / L_I)) sqrt(1 - exp(-t / tau_L)),   tau_L = L_I / u',
 
-t the time since the spark, r_f the flame radius (form from memory).
+t the time since the spark, r_f the flame radius (form from memory), L_I the integral scale of the
+turbulence: about 0.2 of the chamber height near TDC (measurements reviewed by Heywood 1988,
+section 8.2, from memory), so L_I = 0.2 L here.  The Taylor microscale, by contrast, follows from
+the K-k model's own dissipation eps = u'^3 / L, so it uses L.
 
 All functions take floats or numpy arrays (broadcast together), SI units, are branch-free and
 compile with numba as they are.
@@ -43,6 +46,10 @@ import numpy as np
 
 PH_PRODUCTION_FACTOR = 0.3307
 """Poulos & Heywood (1983): the numerical factor of the production term P (from memory)."""
+
+INTEGRAL_SCALE_RATIO = 0.2
+"""Integral length scale of the turbulence / chamber height near TDC (Heywood 1988 sec. 8.2,
+from memory): the eddy size that wrinkles the early kernel (Herweg & Maly)."""
 
 TAYLOR_CONSTANT = 15.0
 """eps = 15 nu u'^2 / lambda^2 for isotropic turbulence (Tennekes & Lumley 1972, from memory)."""
@@ -98,6 +105,7 @@ def taylor_microscale(u, L, nu):
 
 
 def kernel_turbulence_factor(r_f, t, L, u):
-    """Herweg & Maly (1992) factor u'_eff / u' [-] of a kernel of radius r_f [m], t [s] after the spark."""
+    """Herweg & Maly (1992) factor u'_eff / u' [-] of a kernel of radius r_f [m], t [s] after the spark,
+    in turbulence of integral scale L [m] and intensity u [m/s]."""
     tau = L / np.maximum(u, 1e-6)
     return np.sqrt((1.0 - np.exp(-r_f / L)) * (1.0 - np.exp(-np.maximum(t, 0.0) / tau)))
