@@ -199,7 +199,9 @@ def fill_tables(q: np.ndarray, heights: np.ndarray, n_fill: int = N_FILL, n_radi
         s = s + np.arange(s.size) * 1e-12          # strictly increasing for the inversion
         r_s = np.interp(s_grid, s, r)
         out["r"][i] = r_s
-        out["a"][i] = np.interp(r_s, r, a)
+        # the front's share of a free sphere, ~1 while the flame is small: interpolates well at small r
+        share = np.where(r > 0, a / np.maximum(4.0 * np.pi * r * r, 1e-300), 1.0)
+        out["a"][i] = 4.0 * np.pi * r_s * r_s * np.interp(r_s, r, share)
         for name, val in zip(("head", "piston", "liner"), wet):
             out[name][i] = np.interp(r_s, r, val)
     out["a"][:, -1] = 0.0
