@@ -273,7 +273,7 @@ class EntrainmentBurn(BurnRate):
     params = (
         P_SPARK,
         P_EFF,
-        Param("production_coefficient", "-", 1.5,
+        Param("production_coefficient", "-", 0.5,
               "K-k model: production coefficient c_beta of turbulence from the mean flow", min=0.0, max=5.0),
         Param("ivc_turbulence_ratio", "-", 0.1,
               "K-k model: turbulent / mean-flow kinetic energy at IVC", min=0.0, max=10.0,
