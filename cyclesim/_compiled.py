@@ -36,7 +36,7 @@ FORMS = {
         "none": (),
         "wiebe_flame": ("spark", "delay_ref", "dur_ref", "a", "m", "eff", "kd", "sd", "kb", "sb", "visc", "phi",
                         "V_spark", "speed_ratio", "G_ref", "phi_m", "b_m", "b_phi", "dilution", "T0", "atm",
-                        "visc_exp", "V_tdc", "G_ref_dur"),
+                        "visc_exp", "V_tdc", "G_ref_dur", "dilution_exp"),
     },
     "heat_transfer": {
         "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
@@ -72,7 +72,7 @@ PARAM_ROWS = param_rows(FORMS, ("burn", "heat_transfer", "blowby", "knock"))
 """(role, form) -> {parameter name: row offset from R_P}."""
 (F_SPARK, F_DELAY, F_DUR, F_A, F_M, F_EFF, F_KD, F_SD, F_KB, F_SB, F_VISC, F_PHI, F_V_SPARK,
  F_SPEED_RATIO, F_G_REF, F_PHI_M, F_B_M, F_B_PHI, F_DILUTION, F_T0, F_ATM, F_VISC_EXP, F_V_TDC,
- F_G_REF_DUR) = PARAM_ROWS["burn", "wiebe_flame"].values()
+ F_G_REF_DUR, F_DILUTION_EXP) = PARAM_ROWS["burn", "wiebe_flame"].values()
 H_MULT, H_ANNAND_A, H_ANNAND_B, H_RAD, H_PRANDTL, H_BORE = PARAM_ROWS["heat_transfer", "annand"].values()
 B_CDA, B_P_CC = PARAM_ROWS["blowby", "orifice"].values()
 K_PRE, K_ACT, K_X_MAX, K_ATM, K_P_EXP = PARAM_ROWS["knock", "livengood_wu"].values()
@@ -221,7 +221,7 @@ def _flame_rate(theta, b, yb, xb, CB):
     s0 = max(CB[q + F_B_M, b] + CB[q + F_B_PHI, b] * (phi - CB[q + F_PHI_M, b]) ** 2, 0.0) * 1e-2
     alpha = 2.18 - 0.8 * (phi - 1.0)
     beta = -0.16 + 0.22 * (phi - 1.0)
-    dil = max(1.0 - CB[q + F_DILUTION, b] * f, 0.0)
+    dil = max(1.0 - CB[q + F_DILUTION, b] * f ** CB[q + F_DILUTION_EXP, b], 0.0)
     visc = CB[q + F_VISC, b] != 0.0
     g = _flame_length(T_s, p_s, s0, alpha, beta, dil, visc, q, b, CB) / CB[q + F_G_REF, b]
     g_c = _flame_length(CB[R_SPARK + 2, b], CB[R_SPARK + 3, b], s0, alpha, beta, dil, visc, q, b, CB) \

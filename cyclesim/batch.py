@@ -201,6 +201,7 @@ def build_batch(cases: Sequence[Case], registry) -> Batch:
     ctx = SetupContext(
         B=B, geometry=geometry, speed_rpm=op.speed_rpm, events=events, valves=val,
         operating=op, gas=gas, base_dir=cases[0].base_dir, walls=walls,
+        chamber=cases[0].chamber,
     )
     models: dict[str, Submodel] = {}
     for role in ROLES:

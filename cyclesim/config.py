@@ -24,6 +24,7 @@ from typing import Any, Mapping, Sequence
 
 import yaml
 
+from .combustion.flame_geometry import ChamberShape
 from .config_limits import check_expanded_size, check_extends_depth, count_alias
 from .errors import ConfigError, CyclesimError
 from .params import REQUIRED, Param, suggestion, validate_section
@@ -207,6 +208,9 @@ class Case:
         Core sections with every key filled in (units in the names).
     submodels : dict[str, SubmodelChoice]
         One per role.
+    chamber : ChamberShape
+        Combustion-chamber shape and spark-plug position (``engine.chamber``; defaults:
+        flat head and piston, central plug 3 mm below the head).
     plugins : tuple of str
         Extra plug-in modules listed explicitly in the config.
     raw : dict
@@ -233,6 +237,7 @@ class Case:
     raw: dict = field(default_factory=dict)
     base_dir: Path = field(default_factory=Path.cwd)
     multi_cylinder: SimpleNamespace | None = None
+    chamber: ChamberShape = field(default_factory=ChamberShape)
 
     def section(self, name: str) -> SimpleNamespace:
         return getattr(self, name)
@@ -569,7 +574,9 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None, _owned
         if kept(sec):
             sections[sec] = _copy_ns(prev.section(sec))
         else:
-            sections[sec] = SimpleNamespace(**validate_section(raw.get(sec), params, sec))
+            ignore = ("chamber",) if sec == "engine" else ()
+            sections[sec] = SimpleNamespace(**validate_section(raw.get(sec), params, sec, ignore=ignore))
+    chamber = prev.chamber if kept("engine") else _chamber(raw.get("engine"))
     plugins = raw.get("plugins") or ()
     if isinstance(plugins, str):
         plugins = (plugins,)
@@ -611,6 +618,7 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None, _owned
         raw=dict(raw) if _owned else copy.deepcopy(dict(raw)),
         base_dir=bdir,
         multi_cylinder=multi,
+        chamber=chamber,
         **sections,
     )
     _check_cross(case)
@@ -618,6 +626,14 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None, _owned
 
     check_rich_limit(case, getattr(registry, "fuels", None))
     return case
+
+
+def _chamber(engine: Any) -> ChamberShape:
+    """The ``engine.chamber`` mapping as a ChamberShape (defaults where absent)."""
+    sec = engine.get("chamber") if isinstance(engine, Mapping) else None
+    if sec is not None and not isinstance(sec, Mapping):
+        raise ConfigError(f"engine.chamber: expected a mapping (head, piston, plug_x_mm, ...), got {sec!r}")
+    return ChamberShape.from_mapping(sec)
 
 
 def load_config(path: str | Path = "demo", overrides: list[str] | tuple = (), registry=None) -> Case:
@@ -702,6 +718,8 @@ def flat_inputs(case: Case) -> dict[str, Any]:
     for sec in CORE_SCHEMA:
         for k, v in vars(case.section(sec)).items():
             out[f"{sec}.{k}"] = v
+    for k, v in vars(case.chamber).items():
+        out[f"engine.chamber.{k}"] = v
     for role, ch in case.submodels.items():
         out[f"{role}.model"] = ch.model
         for k, v in ch.params.items():

@@ -70,6 +70,11 @@ class SetupContext:
         Property tables of the batch's fresh charge and burned gas.
     base_dir : pathlib.Path
         Folder of the config file, for resolving relative paths.
+    walls : SimpleNamespace
+        The ``walls`` config section as arrays (B,).
+    chamber : cyclesim.combustion.flame_geometry.ChamberShape or None
+        Combustion-chamber shape and spark-plug position (config ``engine.chamber``), the
+        same for every case of a batch.
     """
 
     B: int
@@ -81,6 +86,7 @@ class SetupContext:
     gas: Any
     base_dir: Any
     walls: SimpleNamespace = field(default_factory=SimpleNamespace)
+    chamber: Any = None
 
 
 class GasState:

@@ -14,6 +14,7 @@ from cyclesim import hookimpl
 _MODULES = (
     "wiebe",
     "flame_burn",
+    "entrainment_burn",
     "burn_table",
     "heat_transfer",
     "ring_leakage",

@@ -1,12 +1,16 @@
-"""A Wiebe burn whose timing responds to flame speed and turbulence.
+"""A Wiebe burn whose timing responds to flame speed and turbulence (superseded by ``entrainment``).
+
+Superseded: the predictive burn ``entrainment`` (:mod:`.entrainment_burn`) computes the burn
+from the flame itself and needs no reference state copied from a run.
 
 The shape of burning is a single Wiebe function (see :mod:`.wiebe`); its
 flame-development angle (spark to start of the Wiebe burn) and its duration
 scale with the laminar flame speed of the charge at spark (Metghalchi &
 Keck 1982) and with the mean piston speed, which sets the turbulence.
 
-The pure function :func:`laminar_flame_speed` gives the Metghalchi-Keck
-burning velocity of fuel-air mixtures diluted with burned gas.
+The function :func:`laminar_flame_speed` gives the Metghalchi-Keck burning velocity of
+fuel-air mixtures diluted with burned gas, from :mod:`cyclesim.combustion.laminar_flame`
+(one copy of the correlation; Rhodes-Keck dilution).
 """
 
 from __future__ import annotations
@@ -15,29 +19,20 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from cyclesim.combustion import laminar_flame as lf
 from cyclesim.params import Param
 from cyclesim.roles import BurnRate, GasState, SetupContext
 
 from .knock import log_mean_temperature
 from .wiebe import CYCLE_END_DEG, P_A, P_EFF, P_M, P_SPARK
 
-ATM_PA = 101325.0
+ATM_PA = lf.P_REF_PA
 """One standard atmosphere [Pa]."""
-T0_K = 298.0
+T0_K = lf.MK_T0_K
 """Reference temperature of the Metghalchi-Keck correlation [K]."""
 
-MK_FUELS: dict[str, tuple[float, float, float]] = {
-    # fuel: (phi_m [-], B_m [cm/s], B_phi [cm/s]); Metghalchi & Keck 1982,
-    # as tabulated by Heywood 1988, table 9.3 (from memory)
-    "gasoline": (1.13, 27.58, -78.34),     # indolene
-    "isooctane": (1.13, 26.32, -84.72),
-    "methanol": (1.11, 36.92, -140.51),
-    "propane": (1.08, 34.22, -138.65),
-}
-"""Coefficients of S_L0 = B_m + B_phi (phi - phi_m)^2 by fuel."""
-
-MK_DILUTION = 2.1
-"""Burned-gas dilution coefficient of the 1982 paper: factor (1 - 2.1 f) (from memory)."""
+MK_FUELS = {name: lf.FUEL_CODES[name] for name in ("gasoline", "isooctane", "methanol", "propane")}
+"""Fuels with Metghalchi-Keck coefficients -> their row in :data:`laminar_flame.MK_CONSTANTS`."""
 
 MK_RANGE = {"p_atm": (0.4, 50.0), "T_K": (298.0, 700.0), "phi": (0.8, 1.5), "f": (0.0, 0.2)}
 """Conditions Metghalchi & Keck measured (from memory)."""
@@ -48,56 +43,16 @@ VISCOSITY_T_EXPONENT = 0.7
 
 def laminar_flame_speed(phi: Any, T_u: Any, p: Any, f_dil: Any = 0.0,
                         fuel: str = "gasoline") -> np.ndarray:
-    """Laminar burning velocity by Metghalchi & Keck (1982).
-
-    Parameters
-    ----------
-    phi : numeric
-        Fuel-air equivalence ratio [-].
-    T_u : numeric
-        Unburned-mixture temperature [K].
-    p : numeric
-        Pressure [Pa].
-    f_dil : numeric, optional
-        Mass fraction of burned gas (residual plus EGR) in the unburned
-        mixture [-].
-    fuel : str
-        One of ``gasoline`` (indolene), ``isooctane``, ``methanol``,
-        ``propane``.
-
-    Returns
-    -------
-    ndarray
-        Laminar flame speed [m/s],
-        ``S_L0 (T_u/298 K)^alpha (p/1 atm)^beta (1 - 2.1 f)``, with
-        ``S_L0 = B_m + B_phi (phi - phi_m)^2``,
-        ``alpha = 2.18 - 0.8 (phi - 1)``, ``beta = -0.16 + 0.22 (phi - 1)``.
-        Negative values of ``S_L0`` or of the dilution factor (mixtures
-        far outside the fit) are returned as 0.
-
-    Notes
-    -----
-    Measured in a constant-volume bomb at about 0.4-50 atm, 298-700 K and
-    phi 0.8-1.5 (from memory).  The dilution factor (1 - 2.1 f) is the one
-    of the 1982 paper, not the later (1 - 2.06 f^0.77) of Rhodes & Keck
-    (1985).  Coefficients from memory, as in Heywood (1988), table 9.3.
-
-    References
-    ----------
-    Metghalchi, M., Keck, J. C. (1982). Burning velocities of mixtures of air
-    with methanol, isooctane, and indolene at high pressure and temperature.
-    Combustion and Flame 48, 191-210. doi:10.1016/0010-2180(82)90127-4
-    """
+    """Laminar burning velocity [m/s] by Metghalchi & Keck (1982) with Rhodes & Keck (1985)
+    dilution: :func:`cyclesim.combustion.laminar_flame.metghalchi_keck` for a fuel by name
+    (``gasoline`` (indolene), ``isooctane``, ``methanol``, ``propane``); ``phi`` [-], ``T_u`` [K],
+    ``p`` [Pa], ``f_dil`` the burned-gas mass fraction of the charge [-]."""
     try:
-        phi_m, b_m, b_phi = MK_FUELS[fuel]
+        c = lf.MK_CONSTANTS[MK_FUELS[fuel]]
     except KeyError:
         raise ValueError(f"no flame-speed data for fuel {fuel!r}; known: {', '.join(MK_FUELS)}") from None
-    phi = np.asarray(phi, dtype=float)
-    s0 = np.maximum(b_m + b_phi * (phi - phi_m) ** 2, 0.0) * 1e-2
-    alpha = 2.18 - 0.8 * (phi - 1.0)
-    beta = -0.16 + 0.22 * (phi - 1.0)
-    dil = np.maximum(1.0 - MK_DILUTION * np.asarray(f_dil, dtype=float), 0.0)
-    return s0 * (np.asarray(T_u, dtype=float) / T0_K) ** alpha * (np.asarray(p, dtype=float) / ATM_PA) ** beta * dil
+    return lf.metghalchi_keck(np.asarray(phi, dtype=float), np.asarray(T_u, dtype=float),
+                              np.asarray(p, dtype=float), np.asarray(f_dil, dtype=float), c[0], c[1], c[2])
 
 
 def isentropic_compression(gas: Any, T0: Any, p0: Any, v_ratio: Any,
@@ -218,8 +173,8 @@ class WiebeFlame(BurnRate):
     name = "wiebe_flame"
     compiled_form = "wiebe_flame"
     spark_param = "spark_advance_deg"
-    summary = ("Wiebe burn with development angle and duration scaled by the Metghalchi-Keck"
-               " flame speed at spark and the mean piston speed")
+    summary = ("superseded by entrainment: Wiebe burn with development angle and duration scaled by"
+               " the Metghalchi-Keck flame speed at spark and the mean piston speed")
     params = (
         P_SPARK,
         Param("ref_ignition_delay_deg", "deg", 9.0,
@@ -357,13 +312,14 @@ class WiebeFlame(BurnRate):
 
     def pack(self) -> dict:
         """Parameters of the compiled form ``wiebe_flame`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
-        phi_m, b_m, b_phi = MK_FUELS[self.fuel]
+        phi_m, b_m, b_phi = lf.MK_CONSTANTS[MK_FUELS[self.fuel]] * np.array([1.0, 100.0, 100.0])
         return {"spark": self.spark, "delay_ref": self.delay_ref, "dur_ref": self.dur_ref, "a": self.a,
                 "m": self.m, "eff": self.eff, "kd": self.kd, "sd": self.sd, "kb": self.kb, "sb": self.sb,
                 "visc": 1.0 if self.visc else 0.0, "phi": self.phi, "V_spark": self.V_spark,
                 "speed_ratio": self.speed_ratio, "G_ref": self.G_ref, "phi_m": phi_m, "b_m": b_m,
-                "b_phi": b_phi, "dilution": MK_DILUTION, "T0": T0_K, "atm": ATM_PA,
-                "visc_exp": 1.0 + VISCOSITY_T_EXPONENT, "V_tdc": self.V_tdc, "G_ref_dur": self.G_ref_dur}
+                "b_phi": b_phi, "dilution": lf.DILUTION_COEFFICIENT, "T0": T0_K, "atm": ATM_PA,
+                "visc_exp": 1.0 + VISCOSITY_T_EXPONENT, "V_tdc": self.V_tdc, "G_ref_dur": self.G_ref_dur,
+                "dilution_exp": lf.DILUTION_EXPONENT}
 
     def combustion_efficiency(self) -> np.ndarray:
         """Fraction of the charge's fuel energy that is released (B,) [-]."""

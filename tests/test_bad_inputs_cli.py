@@ -30,6 +30,9 @@ CASES = [
     ("engine:\n  bore_mm: 80\n  bore_mm: 81", "duplicated key 'bore_mm'"),
     ("engine: [1, 2", "malformed YAML"),
     ("valve_flow: {model: poppet, intake_lift_table: lift.csv}", "lift.csv"),
+    ("engine: {chamber: {head: dome}}", "engine.chamber.head: expected flat or pent_roof"),
+    ("engine: {chamber: {piston: bowl}}", "a bowl piston needs bowl_diameter_mm"),
+    ("engine: {chamber: {plug_depth_mm: 20}}\nburn: {model: entrainment}", "plug gap would be below"),
 ]
 
 

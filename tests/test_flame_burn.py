@@ -30,10 +30,10 @@ def registered():
 
 def mk_speed_cm_s(phi, T, p_atm, f, phi_m, b_m, b_phi):
     """Metghalchi & Keck 1982 (Combust. Flame 48:191-210), form as in Heywood 1988 table 9.3 (from memory):
-    S_L = (B_m + B_phi (phi - phi_m)^2) (T/298)^alpha p^beta (1 - 2.1 f),
+    S_L = (B_m + B_phi (phi - phi_m)^2) (T/298)^alpha p^beta (1 - 2.06 f^0.77)  (Rhodes & Keck 1985 dilution),
     alpha = 2.18 - 0.8 (phi - 1), beta = -0.16 + 0.22 (phi - 1)."""
     s0 = b_m + b_phi * (phi - phi_m) ** 2
-    return s0 * (T / 298.0) ** (2.18 - 0.8 * (phi - 1)) * p_atm ** (-0.16 + 0.22 * (phi - 1)) * (1 - 2.1 * f)
+    return s0 * (T / 298.0) ** (2.18 - 0.8 * (phi - 1)) * p_atm ** (-0.16 + 0.22 * (phi - 1)) * (1 - 2.06 * f ** 0.77)
 
 
 # coefficients (phi_m, B_m [cm/s], B_phi [cm/s]): Metghalchi & Keck 1982 via Heywood 1988 table 9.3 (from memory)
@@ -55,12 +55,13 @@ def test_flame_speed_matches_published_form(fuel, phi, T, p_atm, f):
     assert FB.laminar_flame_speed(phi, T, p_atm * ATM, f, fuel) == pytest.approx(want, rel=1e-12)
 
 
-def test_dilution_lowers_flame_speed_by_the_1982_factor():
-    # Metghalchi & Keck 1982: factor (1 - 2.1 f); f = 0.1 gives 0.79
+def test_dilution_lowers_flame_speed_by_the_rhodes_keck_factor():
+    # Rhodes & Keck 1985 (SAE 850047, from memory): factor (1 - 2.06 f^0.77); f = 0.1 gives 0.6502
     clean = FB.laminar_flame_speed(1.0, 600.0, 10 * ATM, 0.0)
     diluted = FB.laminar_flame_speed(1.0, 600.0, 10 * ATM, 0.1)
     assert diluted < clean
-    assert diluted / clean == pytest.approx(0.79, rel=1e-12)
+    assert diluted / clean == pytest.approx(1 - 2.06 * 0.1 ** 0.77, rel=1e-12)
+    assert diluted / clean == pytest.approx(0.6502, abs=1e-4)
 
 
 def test_flame_speed_peaks_slightly_rich():
@@ -125,10 +126,10 @@ def test_residual_and_lean_mixture_lengthen_the_burn(plain_wiebe):
     assert egr.summary["burn_10_90_deg"] > d0 and lean.summary["burn_10_90_deg"] > d0
     assert egr.summary["ca50_deg"] > base.summary["ca50_deg"] and lean.summary["ca50_deg"] > base.summary["ca50_deg"]
     # same IVC state, so only the dilution factor changes S_L: the Wiebe 10-90 angle is
-    # proportional to the duration, so it scales by ((1 - 2.1 f0)/(1 - 2.1 f1))^(1/3)
-    # (Metghalchi & Keck 1982 dilution factor; exponent 1/3 after Hires et al. 1978, from memory)
+    # proportional to the duration, so it scales by ((1 - 2.06 f0^0.77)/(1 - 2.06 f1^0.77))^(1/3)
+    # (Rhodes & Keck 1985 dilution factor; exponent 1/3 after Hires et al. 1978, from memory)
     f0 = base.trace["burned_gas_fraction"][0]
-    want = ((1 - 2.1 * f0) / (1 - 2.1 * 0.15)) ** (1.0 / 3.0)
+    want = ((1 - 2.06 * f0 ** 0.77) / (1 - 2.06 * 0.15 ** 0.77)) ** (1.0 / 3.0)
     assert egr.summary["burn_10_90_deg"] / d0 == pytest.approx(want, rel=0.01)  # 1 %: CA10/CA90 on a 1 deg grid
 
 
@@ -175,9 +176,11 @@ def test_mbt_burns_half_the_charge_near_8_deg_atdc_at_any_load(intake_bar):
                                                    "simulation.step_deg=1.0"])
     assert st.mbt_deg is not None
     assert 6.0 < st.ca50_at_mbt_deg < 11.0
-    # and CA50 follows the spark: at least half a degree per degree of advance around MBT
+    # and CA50 follows the spark: at least 0.4 deg per degree of advance around MBT (0.45 measured at
+    # 0.5 bar with the Rhodes & Keck dilution, which lengthens the diluted part-load delay more than
+    # the 1982 factor did, and so the spark's share of it)
     adv = st.table.column("burn.spark_advance_deg")
     ca50 = st.table.column("ca50_deg")
     near = np.abs(adv - st.mbt_deg) <= 10.0
     slope = np.polyfit(adv[near], ca50[near], 1)[0]
-    assert slope < -0.5
+    assert slope < -0.4

@@ -1,0 +1,464 @@
+"""A predictive burn: turbulent flame entrainment and burn-up of the entrained eddies.
+
+The quasi-dimensional model of Blizard & Keck (1974), Tabaczynski, Ferguson & Radhakrishnan
+(1977) and Keck (1982).  A spherical flame centred at the spark plug entrains unburned charge
+at its front and the entrained eddies burn up behind it:
+
+    dm_e/dt = rho_u A_f (u'_eff + S_L)
+    dm_b/dt = (m_e - m_b) / tau_b,      tau_b = lambda / S_L
+
+- ``A_f`` the front area of a sphere in the chamber (the config's ``engine.chamber``), from
+  :mod:`cyclesim.combustion.flame_geometry`, tabulated at set-up against the fraction of the
+  chamber inside the front and the piston position;
+- ``S_L`` the laminar burning velocity (:mod:`cyclesim.combustion.laminar_flame`) of the
+  unburned charge, diluted by its burned gas (residual and EGR);
+- ``u'`` the turbulence intensity of the K-k model, ``lambda`` the Taylor microscale
+  (:mod:`cyclesim.combustion.turbulence`);
+- ``u'_eff`` the Herweg & Maly (1992) intensity felt by a kernel smaller than the eddies,
+  which grows to ``u'`` as the kernel outgrows the integral scale and the eddies have had
+  time to act on it: the spark-to-developed-flame phase (see the turbulence module).
+
+Burning, the entrainment and the burn-up all start at the spark; the kernel starts as a
+sphere of ``kernel_radius_mm`` (the breakdown and arc phases before it are not modelled).
+
+Unburned charge: fresh charge compressed isentropically from its IVC state (cp of the fresh
+charge as a quadratic in T fitted at set-up; the same isentrope as the knock model's
+:func:`cyclesim_plugins.knock.isentropic_temperature`), so wall heat loss from the end gas is
+neglected.  The burned gas behind the front is taken at the unburned temperature plus the
+adiabatic temperature rise at constant pressure, ``T_b = T_u + (1 - f) dT_ad``, with ``dT_ad``
+from the tool's equilibrium tables at 700 K and 20 bar at set-up (common practice for a
+one-zone cylinder; a two-zone cylinder will supply its own burned-zone state).  The front
+encloses ``V_f = m (x_b R_b T_b + (x_e - x_b) R_u T_u) / p``.
+
+States (reset at each IVC): ``x_e`` the entrained mass fraction [-], ``K`` and ``k`` the mean
+flow's and the turbulence's kinetic energy per kg [J/kg].  The core's ``x_b`` is the burned
+fraction.  At IVC the mean flow holds the kinetic energy of the intake jet, ``K = v_i^2 / 2``,
+``v_i = B^2 S_p / (4 n_v D_v L_v)`` the piston's displacement rate through the intake valves'
+full-lift curtain (the mean inlet flow velocity, Tabaczynski et al. 1977 took the turbulence at
+IVC proportional to it, from memory), and the turbulence ``k = ivc_turbulence_ratio x K``.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any, Mapping
+
+import numpy as np
+
+from cyclesim.combustion import flame_geometry as fg
+from cyclesim.combustion import laminar_flame as lf
+from cyclesim.combustion.laminar_flame import gulder, metghalchi_keck
+from cyclesim.combustion.turbulence import (INTEGRAL_SCALE_RATIO, integral_length, kernel_turbulence_factor,
+                                            kk_rates, taylor_microscale, turbulence_intensity, viscosity_air)
+from cyclesim.kernel_ops import where
+from cyclesim.params import Param, StateVar
+from cyclesim.roles import BurnRate, SetupContext
+
+from .wiebe import CYCLE_END_DEG, P_EFF, P_SPARK
+
+N_HEIGHT = 24
+"""Piston positions of the flame tables (uniform in clearance height)."""
+N_FILL = 65
+"""Points of the flame tables in s = (V_f / V_chamber)^(1/3), uniform from 0 to 1."""
+TABLE_LATEST_DEG = 100.0
+"""The tables reach the piston position of this crank angle after TDC [deg]; later the flame
+geometry of that position is used (the burn is then in its last few per cent)."""
+CV_FIT_RANGE_K = (280.0, 1300.0)
+"""Temperatures over which the fresh charge's cv is fitted by a quadratic [K]."""
+AD_REF_T_K = 700.0
+AD_REF_P_PA = 20e5
+"""State of the set-up adiabatic flame temperature rise [K, Pa] (typical unburned state at TDC)."""
+
+_TABLES: dict = {}
+
+
+def _arr(value: Any, B: int) -> np.ndarray:
+    return np.broadcast_to(np.asarray(value, dtype=float), (B,)).copy()
+
+
+# ----------------------------------------------------------------------------
+# kernels: plain, branch-free functions (arrays (B,) on the Python path, floats compiled)
+# ----------------------------------------------------------------------------
+def isentrope_temperature(T0, p_ratio, c0, c1, c2, R):
+    """Temperature [K] after an isentropic change of pressure by ``p_ratio`` from ``T0`` [K], for an
+    ideal gas with cv = c0 + c1 T + c2 T^2 [J/(kg K)] and gas constant R [J/(kg K)].
+
+    Solves (c0 + R) ln(T/T0) + c1 (T - T0) + c2 (T^2 - T0^2)/2 = R ln(p_ratio) by four Newton steps
+    from the constant-cp estimate (error below 1e-6 K for ratios up to 100)."""
+    target = R * np.log(p_ratio)
+    cp0 = c0 + R + c1 * T0 + c2 * T0 * T0
+    T = T0 * np.exp(target / cp0)
+    for _ in range(4):
+        f = (c0 + R) * np.log(T / T0) + c1 * (T - T0) + 0.5 * c2 * (T * T - T0 * T0) - target
+        T = T - f * T / (c0 + R + c1 * T + c2 * T * T)
+    return T
+
+
+def table_lookup(flat, idx, off, h, s, h0, inv_dh, nh, ns):
+    """Bilinear value of a flame table at clearance height ``h`` [m] and fill ``s`` [-].
+
+    ``flat`` holds the tables of all cases row after row ((case, height) rows of ``ns`` values in
+    s uniform on [0, 1]); ``off`` is the case's first index.  Interpolation along s by np.interp
+    on the flat index ``idx`` (0, 1, 2, ... as floats), so the same code serves arrays and floats."""
+    hp = np.minimum(np.maximum((h - h0) * inv_dh, 0.0), nh - 1.000001)
+    i = np.floor(hp)
+    w = hp - i
+    sp = np.minimum(np.maximum(s, 0.0), 1.0) * (ns - 1.0)
+    lo = np.interp(off + i * ns + sp, idx, flat)
+    hi = np.interp(off + (i + 1.0) * ns + sp, idx, flat)
+    return (1.0 - w) * lo + w * hi
+
+
+def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2,
+                 c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc,
+                 bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns):
+    """Shared quantities of the two kernels: (on, S_L, u'_eff, rho_u, A_f, lambda, T_u)."""
+    T_u = isentrope_temperature(T_ivc, p / p_ivc, cv0, cv1, cv2, R_u)
+    rho_u = p / (R_u * T_u)
+    f = np.minimum(np.maximum(1.0 - (1.0 - y_b) / np.maximum(1.0 - eff * x_b, 1e-9), 0.0), 0.6)
+    s_mk = metghalchi_keck(phi, T_u, p, f, c_mk0, c_mk1, c_mk2)
+    s_g = gulder(phi, T_u, p, f, c_g0, c_g1, c_g2, c_g3, c_g4)
+    s_l = np.maximum(where(mk > 0.5, s_mk, s_g), 1e-3)
+    T_b = T_u + (1.0 - f) * dT_ad
+    v_f = m * (x_b * R_b * T_b + np.maximum(x_e - x_b, 0.0) * R_u * T_u) / p
+    v_f = np.maximum(v_f, 4.18879 * r0 * r0 * r0)
+    h = (V - v_rb) / bore_area
+    s = np.minimum(v_f / V, 1.0) ** (1.0 / 3.0)
+    r_f = table_lookup(tab_r, tab_idx, off, h, s, h0, inv_dh, nh, ns)
+    a_f = table_lookup(tab_a, tab_idx, off, h, s, h0, inv_dh, nh, ns)
+    L = integral_length(V, bore_area, half_bore)
+    u = turbulence_intensity(k)
+    t = (theta - spark) / omega_deg
+    u_eff = u * kernel_turbulence_factor(r_f, t, INTEGRAL_SCALE_RATIO * L, u)
+    nu = viscosity_air(T_u) / rho_u
+    lam = taylor_microscale(u, L, nu)
+    on = (theta >= spark) & (theta < CYCLE_END_DEG)
+    return on, s_l, u_eff, rho_u, a_f, lam, T_u
+
+
+def burnup_rate(on, x_e, x_b, s_l, lam, omega_deg):
+    """dx_b/dtheta [1/deg] = (x_e - x_b) S_L / (lambda omega) after the spark, else 0; x_e counted
+    up to 1 (the entrainment may step past the whole charge), so x_b never exceeds 1."""
+    return where(on, np.maximum(np.minimum(x_e, 1.0) - x_b, 0.0) * s_l / (lam * omega_deg), 0.0)
+
+
+def state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_l, m, V, dV, omega_deg, closed, bore_area, half_bore,
+                c_beta):
+    """(dx_e/dt [1/s], dK/dt, dk/dt [W/kg]): entrainment rho_u A_f (u'_eff + S_L) / m after the spark
+    while x_e < 1; the K-k model while the valves are shut, with the closed cylinder's -dV/V."""
+    dxe = where(on & (x_e < 1.0), rho_u * a_f * (u_eff + s_l) / m, 0.0)
+    L = integral_length(V, bore_area, half_bore)
+    dK, dk = kk_rates(K, k, L, -dV * omega_deg / V, c_beta)
+    return dxe, where(closed, dK, 0.0), where(closed, dk, 0.0)
+
+
+def entrainment_rate(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1,
+                     c_mk2, c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc,
+                     bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns):
+    """Burn rate dx_b/dtheta [1/deg]: burn-up of the entrained eddies, (x_e - x_b) / tau_b, zero
+    before the spark and from 360 deg (the burn ``kernel``)."""
+    on, s_l, u_eff, rho_u, a_f, lam, T_u = _flame_state(
+        theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
+        c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, bore_area, half_bore, v_rb, r0,
+        tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns)
+    return burnup_rate(on, x_e, x_b, s_l, lam, omega_deg)
+
+
+def entrainment_states(theta, p, V, dV, m, y_b, x_b, omega_deg, closed, x_e, K, k, spark, eff, phi, mk,
+                       c_mk0, c_mk1, c_mk2, c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad,
+                       T_ivc, p_ivc, bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh,
+                       nh, ns, c_beta):
+    """Time derivatives of (x_e [1/s], K [W/kg], k [W/kg]) (the ``state_kernel``), see
+    :func:`state_rates`."""
+    on, s_l, u_eff, rho_u, a_f, lam, T_u = _flame_state(
+        theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
+        c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, bore_area, half_bore, v_rb, r0,
+        tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns)
+    return state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_l, m, V, dV, omega_deg, closed, bore_area,
+                       half_bore, c_beta)
+
+
+# ----------------------------------------------------------------------------
+# set-up helpers
+# ----------------------------------------------------------------------------
+def fill_tables(q: np.ndarray, heights: np.ndarray, n_fill: int = N_FILL, n_radius: int = 160):
+    """Flame radius, front area and wetted areas on a grid of heights (H,) x fills s (n_fill,).
+
+    s = (V_b / V_chamber)^(1/3) from 0 to 1; returns dict of (H, n_fill) arrays [m, m^2]."""
+    key = (q.tobytes(), heights.tobytes(), n_fill, n_radius)
+    got = _TABLES.get(key)
+    if got is not None:
+        return got
+    s_grid = np.linspace(0.0, 1.0, n_fill)
+    out = {name: np.empty((heights.size, n_fill)) for name in ("r", "a", "head", "piston", "liner")}
+    for i, h in enumerate(heights):
+        r = np.linspace(0.0, fg.max_radius(q, float(h)), n_radius)
+        v = fg.burned_volume(q, h, r, n_theta=720, n_sub=4)
+        a = fg.front_area(q, h, r, n_theta=720)
+        wet = fg.wetted_areas(q, h, r, n=400)
+        s = np.maximum.accumulate(np.clip(v / fg.chamber_volume(q, h), 0.0, 1.0) ** (1.0 / 3.0))
+        s = s + np.arange(s.size) * 1e-12          # strictly increasing for the inversion
+        r_s = np.interp(s_grid, s, r)
+        out["r"][i] = r_s
+        # the front's share of a free sphere, ~1 while the flame is small: interpolates well at small r
+        share = np.where(r > 0, a / np.maximum(4.0 * np.pi * r * r, 1e-300), 1.0)
+        out["a"][i] = 4.0 * np.pi * r_s * r_s * np.interp(r_s, r, share)
+        for name, val in zip(("head", "piston", "liner"), wet):
+            out[name][i] = np.interp(r_s, r, val)
+    out["a"][:, -1] = 0.0
+    _TABLES[key] = out
+    return out
+
+
+def fit_cv(gas: Any, B: int) -> np.ndarray:
+    """Fresh-charge cv as c0 + c1 T + c2 T^2 [J/(kg K)] per case, least squares on
+    :data:`CV_FIT_RANGE_K`: array (3, B)."""
+    T = np.linspace(*CV_FIT_RANGE_K, 41)
+    cv = np.stack([gas.unburned(np.full(B, t))[1] for t in T], axis=1)    # (B, 41)
+    A = np.stack([np.ones_like(T), T, T * T], axis=1)
+    coef, *_ = np.linalg.lstsq(A, cv.T, rcond=None)
+    return coef
+
+
+def adiabatic_rise(gas: Any, B: int) -> tuple[np.ndarray, np.ndarray]:
+    """Constant-pressure adiabatic temperature rise [K] of the fresh charge from
+    :data:`AD_REF_T_K` at :data:`AD_REF_P_PA` to equilibrium products, and their gas constant
+    [J/(kg K)], per case (B,), by bisection on h_b(T_b) = h_u(T_u)."""
+    h_u = gas.enthalpy_unburned(np.full(B, AD_REF_T_K))
+    lo, hi = np.full(B, AD_REF_T_K), np.full(B, 3500.0)
+    for _ in range(40):
+        mid = 0.5 * (lo + hi)
+        _, _, _, R, _, _ = gas.burned(mid, AD_REF_P_PA / (287.0 * mid))
+        rho = AD_REF_P_PA / (R * mid)
+        above = gas.enthalpy_burned(mid, rho) > h_u
+        hi = np.where(above, mid, hi)
+        lo = np.where(above, lo, mid)
+    T_b = 0.5 * (lo + hi)
+    R_b = gas.burned(T_b, AD_REF_P_PA / (287.0 * T_b))[3]
+    return T_b - AD_REF_T_K, np.asarray(R_b, float)
+
+
+class EntrainmentBurn(BurnRate):
+    """Predictive turbulent flame-entrainment burn (Blizard & Keck 1974, Tabaczynski et al. 1977,
+    Keck 1982), with a Herweg & Maly (1992) early kernel and K-k turbulence (Poulos & Heywood 1983).
+
+    Parameters
+    ----------
+    values : mapping
+        See ``params``.
+    ctx : SetupContext
+        Uses ``gas``, ``geometry``, ``speed_rpm``, ``valves``, ``chamber``.
+
+    Notes
+    -----
+    See the module notes for the equations.  The burn's duration is an output: the
+    shortest feature is not known before the run (0).  Defaults and their sources:
+
+    - ``production_coefficient`` c_beta = 0.5: the K-k production coefficient; Poulos & Heywood
+      fitted values of order 0.5 (from memory).
+    - ``ivc_turbulence_ratio`` = 0.1: k/K at IVC (a choice); the turbulence at TDC depends on it
+      only weakly, since dissipation erases most of k's IVC value within the compression stroke
+      (ten times more k at IVC gives about 20 % more u' at TDC on the demo, measured in the tests).
+    - ``kernel_radius_mm`` = 1.0: the kernel at the end of the spark's breakdown and arc phases,
+      about the electrode gap (Herweg & Maly 1992, from memory).
+    - Taylor constant 15 (isotropic turbulence), Sutherland viscosity, laminar burning velocity
+      with Rhodes & Keck dilution: see the combustion modules.
+    """
+
+    name = "entrainment"
+    summary = ("predictive turbulent flame-entrainment burn (Keck) with Herweg-Maly kernel, K-k"
+               " turbulence and the chamber's flame geometry; duration is an output")
+    spark_param = "spark_advance_deg"
+    compiled_form = None
+    kernel = staticmethod(entrainment_rate)
+    state_kernel = staticmethod(entrainment_states)
+    params = (
+        P_SPARK,
+        P_EFF,
+        Param("production_coefficient", "-", 0.5,
+              "K-k model: production coefficient c_beta of turbulence from the mean flow", min=0.0, max=5.0),
+        Param("ivc_turbulence_ratio", "-", 0.1,
+              "K-k model: turbulent / mean-flow kinetic energy at IVC", min=0.0, max=10.0,
+              min_exclusive=True),
+        Param("kernel_radius_mm", "mm", 1.0, "radius of the flame kernel at the spark", min=0.1, max=10.0),
+        Param("fuel_flame_data", "-", "gasoline", "laminar burning velocity correlation's fuel",
+              kind="choice", choices=tuple(lf.FUEL_CODES), sweepable=False),
+    )
+    references = (
+        "Blizard, N. C., Keck, J. C. (1974). Experimental and theoretical investigation of turbulent "
+        "burning model for internal combustion engines. SAE 740191.",
+        "Tabaczynski, R. J., Ferguson, C. R., Radhakrishnan, K. (1977). A turbulent entrainment model "
+        "for spark-ignition engine combustion. SAE 770647.",
+        "Keck, J. C. (1982). Turbulent flame structure and speed in spark-ignition engines. Nineteenth "
+        "Symposium (International) on Combustion, 1451-1466.",
+        "Herweg, R., Maly, R. R. (1992). A fundamental model for flame kernel formation in S.I. "
+        "engines. SAE 922243.",
+        "Poulos, S. G., Heywood, J. B. (1983). The effect of chamber geometry on spark-ignition "
+        "engine combustion. SAE 830334.",
+        "Metghalchi, M., Keck, J. C. (1982). Combustion and Flame 48, 191-210; Gülder, O. L. (1984), "
+        "SAE 841000; Rhodes, D. B., Keck, J. C. (1985), SAE 850047 (laminar burning velocity).",
+    )
+
+    def __init__(self, values: Mapping[str, Any], ctx: SetupContext) -> None:
+        super().__init__(values, ctx)
+        B = self.B
+        p = self.p
+        g = ctx.geometry
+        self.spark = -_arr(p.spark_advance_deg, B)
+        self.eff = _arr(p.combustion_efficiency, B)
+        chamber = getattr(ctx, "chamber", None) or fg.ChamberShape()
+        bore = _arr(g.bore_m, B)
+        self.bore_area = math.pi * bore ** 2 / 4.0
+        self.half_bore = 0.5 * bore
+        # flame tables per distinct geometry
+        V_tdc = _arr(g.volume_at(np.zeros(B)), B)
+        V_late = _arr(g.volume_at(np.full(B, TABLE_LATEST_DEG)), B)
+        keys: dict = {}
+        self.off = np.zeros(B)
+        self.v_rb = np.zeros(B)
+        self.h0 = np.zeros(B)
+        self.inv_dh = np.zeros(B)
+        rows_r, rows_a, rows_w = [], [], []
+        for b in range(B):
+            key = (bore[b], V_tdc[b], V_late[b])
+            if key not in keys:
+                q = chamber.parameters(float(bore[b]))
+                h_lo, h_hi = chamber.clearance_height_m(float(bore[b]), np.array([V_tdc[b], V_late[b]]))
+                heights = np.linspace(float(h_lo), float(h_hi), N_HEIGHT)
+                tab = fill_tables(q, heights)
+                keys[key] = (len(rows_r) * N_HEIGHT * N_FILL, fg.roof_volume(q) + fg.bowl_volume(q),
+                             float(h_lo), (N_HEIGHT - 1) / (float(h_hi) - float(h_lo)))
+                rows_r.append(tab["r"])
+                rows_a.append(tab["a"])
+                rows_w.append(np.stack([tab["head"], tab["piston"], tab["liner"]]))
+            self.off[b], self.v_rb[b], self.h0[b], self.inv_dh[b] = keys[key]
+        self.tab_r = np.concatenate([t.ravel() for t in rows_r])
+        self.tab_a = np.concatenate([t.ravel() for t in rows_a])
+        self.tab_wet = rows_w
+        # charge
+        gas = ctx.gas
+        self.phi = _arr(gas.phi, B)
+        code = lf.fuel_code(str(p.fuel_flame_data))
+        self.mk = 1.0 if code < 4 else 0.0
+        self.c_mk = lf.MK_CONSTANTS[min(code, 3)]
+        self.c_g = lf.GULDER_CONSTANTS[max(code - 4, 0)]
+        self.cv = fit_cv(gas, B)
+        self.R_u = _arr(gas.R_unburned, B)
+        self.dT_ad, self.R_b = adiabatic_rise(gas, B)
+        # turbulence at IVC from the mean inlet flow velocity
+        val = ctx.valves
+        Sp = _arr(g.mean_piston_speed(ctx.speed_rpm), B)
+        self.v_inlet = bore ** 2 * Sp / (4.0 * _arr(val.intake_count, B) * _arr(val.intake_diameter_mm, B)
+                                         * 1e-3 * _arr(val.intake_max_lift_mm, B) * 1e-3)
+        self.K_ivc = 0.5 * self.v_inlet ** 2
+        self.k_ivc = _arr(p.ivc_turbulence_ratio, B) * self.K_ivc
+        self.c_beta = _arr(p.production_coefficient, B)
+        self.r0 = _arr(p.kernel_radius_mm, B) * 1e-3
+        self._packed: dict | None = None
+        self._last: tuple | None = None
+
+    # -- contract -----------------------------------------------------------
+    def states(self):
+        return (StateVar("x_e", "-", initial=0.0, reset_at_ivc=True),
+                StateVar("K", "J/kg", initial=self.K_ivc.copy(), reset_at_ivc=True),
+                StateVar("k", "J/kg", initial=self.k_ivc.copy(), reset_at_ivc=True))
+
+    def pack(self) -> dict:
+        """Parameters of both kernels by name, arrays (B,) or flat tables [SI]."""
+        if self._packed is None:
+            c_mk, c_g = self.c_mk, self.c_g
+            self._packed = {
+                "spark": self.spark, "eff": self.eff, "phi": self.phi, "mk": self.mk,
+                "c_mk0": c_mk[0], "c_mk1": c_mk[1], "c_mk2": c_mk[2],
+                "c_g0": c_g[0], "c_g1": c_g[1], "c_g2": c_g[2], "c_g3": c_g[3], "c_g4": c_g[4],
+                "cv0": self.cv[0], "cv1": self.cv[1], "cv2": self.cv[2], "R_u": self.R_u, "R_b": self.R_b,
+                "dT_ad": self.dT_ad, "bore_area": self.bore_area, "half_bore": self.half_bore,
+                "v_rb": self.v_rb, "r0": self.r0, "tab_r": self.tab_r, "tab_a": self.tab_a,
+                "tab_idx": np.arange(self.tab_r.size, dtype=float), "off": self.off,
+                "h0": self.h0, "inv_dh": self.inv_dh, "nh": float(N_HEIGHT), "ns": float(N_FILL),
+                "c_beta": self.c_beta,
+            }
+        return self._packed
+
+    def start_deg(self) -> np.ndarray:
+        """Start of combustion [deg] (B,): the spark."""
+        return self.spark.copy()
+
+    def spark_deg(self) -> np.ndarray:
+        """Spark timing as a crank angle [deg] (negative = before TDC) (B,)."""
+        return self.spark.copy()
+
+    def combustion_efficiency(self) -> np.ndarray:
+        return self.eff.copy()
+
+    def _flame(self, s):
+        """The shared flame quantities of this right-hand-side evaluation (computed once per GasState)."""
+        from cyclesim.loopgen import call_on
+
+        if self._last is not None and self._last[0] is s:
+            return self._last[1]
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            got = call_on(_flame_state, s, self.pack(), self.role)
+        self._last = (s, got)
+        return got
+
+    def rate(self, s):
+        """dx_b/dtheta [1/deg] (B,): :func:`entrainment_rate` on arrays, its flame state shared with
+        :meth:`derivatives` within one evaluation."""
+        on, s_l, u_eff, rho_u, a_f, lam, T_u = self._flame(s)
+        x_e = s.sub[f"{self.role}.x_e"]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return burnup_rate(on, x_e, s.x_b, s_l, lam, s.omega_deg)
+
+    def derivatives(self, s):
+        """Time derivatives of x_e, K, k (:func:`entrainment_states` on arrays (B,))."""
+        sub = s.sub
+        K, k = sub[f"{self.role}.K"], sub[f"{self.role}.k"]
+        x_e = sub[f"{self.role}.x_e"]
+        P = self.pack()
+        if s.theta < float(np.min(self.spark)) or not np.any(s.closed):
+            # no case burns yet (or all valves are open): the flame terms are zero
+            on, rho_u, a_f, u_eff, s_l = False, 0.0, 0.0, 0.0, 0.0
+        else:
+            on, s_l, u_eff, rho_u, a_f, lam, T_u = self._flame(s)
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            dxe, dK, dk = state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_l, s.m, s.V, s.dV, s.omega_deg,
+                                      s.closed, P["bore_area"], P["half_bore"], P["c_beta"])
+        return {"x_e": dxe, "K": dK, "k": dk}
+
+    # -- figures -----------------------------------------------------------------
+    def figures(self, trace: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+        """Turbulence intensity at the spark and at TDC and its ratio to the mean piston speed,
+        the mean inlet flow velocity, flame-development (spark to 10 %) angle."""
+        th = np.broadcast_to(np.asarray(trace["crank_deg"], float), np.shape(trace["burn.k"]))
+        k = np.asarray(trace["burn.k"], float)
+        at = lambda a, x: np.array([np.interp(x[b], th[b], a[b]) for b in range(self.B)])  # noqa: E731
+        u_tdc = turbulence_intensity(at(k, np.zeros(self.B)))
+        u_sp = turbulence_intensity(at(k, self.spark))
+        Sp = _arr(self.ctx.geometry.mean_piston_speed(self.ctx.speed_rpm), self.B)
+        xb = np.asarray(trace["mfb"], float)
+        ca10 = np.array([np.interp(0.1, np.maximum.accumulate(xb[b]), th[b]) if xb[b].max() > 0.1 else np.nan
+                         for b in range(self.B)])
+        return {
+            "turbulence_intensity_at_spark_m_per_s": u_sp,
+            "turbulence_intensity_at_tdc_m_per_s": u_tdc,
+            "turbulence_to_piston_speed_at_tdc": u_tdc / Sp,
+            "inlet_flow_velocity_m_per_s": self.v_inlet.copy(),
+            "flame_development_angle_deg": ca10 - self.spark,
+        }
+
+    def warnings(self, trace: Mapping[str, np.ndarray]) -> list[list[str]]:
+        """Incomplete burn at EVO."""
+        out: list[list[str]] = [[] for _ in range(self.B)]
+        th = np.broadcast_to(np.asarray(trace["crank_deg"], float), np.shape(trace["mfb"]))
+        xb = np.asarray(trace["mfb"], float)
+        evo = _arr(self.ctx.events.evo, self.B)
+        for b in range(self.B):
+            x = float(np.interp(evo[b], th[b], xb[b]))
+            if x < 0.99:
+                out[b].append(f"burn law: only {100 * x:.1f} % burned at exhaust valve opening ({evo[b]:g} deg);"
+                              " the rest of the charge leaves unburned")
+        return out
+
+
+SUBMODELS = [EntrainmentBurn]
