@@ -28,8 +28,9 @@ SIGMA_SB = 5.670374419e-8
 # A built-in declares ``compiled_form`` (a name below) and ``pack()``, which returns its parameter
 # arrays by the names listed here; cyclesim.kernel fills the rows from those names.  The row
 # numbers are resolved here once, at import (numba reads them as constants).
-KERNEL_PARAMS = 16
-"""Most packed parameters of a plug-in's kernel (form ``kernel``, see cyclesim.loopgen)."""
+KERNEL_PARAMS = 24
+"""Most packed parameters of a model given as kernels (form ``kernel``: its kernel and its state
+kernel together, see cyclesim.loopgen)."""
 FORMS = {
     "burn": {
         "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
@@ -44,20 +45,16 @@ FORMS = {
         "annand": ("multiplier", "a", "b", "radiation_factor", "prandtl_number", "bore"),
     },
     "blowby": {"none": (), "orifice": ("cda", "p_cc")},
-    "knock": {"none": (), "livengood_wu": ("pre_ms", "act", "x_max", "atm", "p_exp")},
+    "knock": {"none": (), "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS))},
     "valve_flow": {"none": (), "poppet": ()},
     "boundary": {"constant": (), "pressure_trace": ()},
 }
 CODES = {role: {name: k for k, name in enumerate(forms)} for role, forms in FORMS.items()}
 """Integer code of each compiled form within its role (the loop branches on it)."""
-STATES = (("heat_transfer", "T_mot"), ("knock", "I"))
-"""Submodel state components the loop integrates, by (role, name): the motored temperature of
-a heat-transfer model (Woschni's kernel takes it by name) and the Livengood-Wu integral."""
 
 BURN_NONE, BURN_FLAME, BURN_KERNEL = (CODES["burn"][k] for k in ("none", "wiebe_flame", "kernel"))
 HT_NONE, HT_ANNAND, HT_KERNEL = (CODES["heat_transfer"][k] for k in ("none", "annand", "kernel"))
 BB_NONE, BB_ORIFICE = (CODES["blowby"][k] for k in ("none", "orifice"))
-KN_NONE, KN_LW = (CODES["knock"][k] for k in ("none", "livengood_wu"))
 
 # rows of the per-case constant array CB (see cyclesim.kernel.Compiled): named blocks, in order
 N_P = sum(max(len(v) for v in FORMS[r].values()) for r in ("burn", "heat_transfer", "blowby", "knock"))
@@ -75,15 +72,14 @@ PARAM_ROWS = param_rows(FORMS, ("burn", "heat_transfer", "blowby", "knock"))
  F_G_REF_DUR) = PARAM_ROWS["burn", "wiebe_flame"].values()
 H_MULT, H_ANNAND_A, H_ANNAND_B, H_RAD, H_PRANDTL, H_BORE = PARAM_ROWS["heat_transfer", "annand"].values()
 B_CDA, B_P_CC = PARAM_ROWS["blowby", "orifice"].values()
-K_PRE, K_ACT, K_X_MAX, K_ATM, K_P_EXP = PARAM_ROWS["knock", "livengood_wu"].values()
 # the plenum block: intake (p, T, y_b, R, gamma, h), exhaust (p, T, R, gamma, h)
 PL_PI, PL_TI, PL_YI, PL_RI, PL_GI, PL_HI, PL_PE, PL_TE, PL_RE, PL_GE, PL_HE = range(R_PLEN, R_PLEN + 11)
 R_IVC_P, R_IVC_T, R_IVC_V = R_IVC, R_IVC + 1, R_IVC + 2          # the IVC state: p [Pa], T [K], V [m^3]
 R_TW_HEAD, R_TW_PISTON, R_TW_LINER = R_TW, R_TW + 1, R_TW + 2     # wall temperatures [K]
-# the integer array IC: the form code of each role, the submodel state rows (-1: absent), the gas table width
-IC_ROWS, N_IC = block_rows((("burn", 1), ("heat_transfer", 1), ("blowby", 1), ("knock", 1),
-                            ("heat_transfer.T_mot", 1), ("knock.I", 1), ("gas_nRm1", 1)))
-IC_BURN, IC_HT, IC_BB, IC_KN, IC_TMOT, IC_KNOCK, IC_NRM1 = IC_ROWS.values()
+# the integer array IC: the form code of the roles the loop branches on, the gas table width
+# (a submodel's states have rows of their own, constants of the loop generated for them)
+IC_ROWS, N_IC = block_rows((("burn", 1), ("heat_transfer", 1), ("blowby", 1), ("gas_nRm1", 1)))
+IC_BURN, IC_HT, IC_BB, IC_NRM1 = IC_ROWS.values()
 # core state rows by name (cyclesim.layout.CORE)
 (S_M, S_T, S_MB, S_XB, S_W, S_QW, S_MBB, S_HBB, S_MUBB, S_MINT, S_HINT, S_MUINT, S_MEXH, S_HEXH, S_MUEXH,
  S_QBURN, S_MQ, S_MBQ, S_HQ) = _S.values()
@@ -300,7 +296,6 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     # wall heat
     hc = IC[IC_HT]
     Qw = 0.0
-    i_tmot = IC[IC_TMOT]
     if hc == HT_KERNEL:
         hcoef = heat_transfer_kernel(T)  # KERNEL CALL heat_transfer
         Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
@@ -380,31 +375,8 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     out[S_T] = ((dU - u * dm) / m - u_lnrho * dlnrho - u_y * dy) / u_T
     out[S_MB] = dmb
     out[S_MUBB] = fbb * (1.0 - yb)
-    # submodel states
-    if i_tmot >= 0:
-        if closed:
-            T_mot = yv[i_tmot]
-            _, Rm, cvm = _fresh(uc4, b, T_mot, gc[7])
-            out[i_tmot] = (-(Rm / cvm) * T_mot * (dV * om) / V) * dt
-    i_kn = IC[IC_KNOCK]
-    if i_kn >= 0 and IC[IC_KN] == KN_LW:
-        if closed and xb < CB[R_P + K_X_MAX, b]:
-            T0 = CB[R_IVC_T, b]
-            lnr = math.log(p / CB[R_IVC_P, b])
-            Tu = T0 * math.exp(lnr / 3.5)
-            for _ in range(4):
-                ln = math.log(Tu / T0)
-                if abs(ln) < 1e-6:
-                    Tm = math.sqrt(T0 * Tu)
-                else:
-                    Tm = (Tu - T0) / ln
-                _, Rm, cvm = _fresh(uc4, b, Tm, gc[7])
-                Tu = T0 * math.exp(Rm / (cvm + Rm) * lnr)
-            tau = (CB[R_P + K_PRE, b] * (p / CB[R_P + K_ATM, b]) ** CB[R_P + K_P_EXP, b]
-                   * math.exp(CB[R_P + K_ACT, b] / Tu))
-            rate = 1e3 / tau
-            if math.isfinite(rate):
-                out[i_kn] = rate * dt
+    # submodel states: each model's state kernel (cyclesim.loopgen writes their calls here)
+    pass  # STATE KERNEL CALLS
     for k in range(n):
         if not math.isfinite(out[k]):
             return False

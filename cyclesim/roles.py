@@ -124,6 +124,9 @@ class GasState:
     sub : dict[str, ndarray]
         Submodel state components by ``"role.name"``.
     geometry : cyclesim.geometry.Geometry
+    gas : cyclesim.thermo.GasTables
+        The batch's gas properties; a kernel takes it as the argument ``gas`` and reads the
+        fresh charge through ``cyclesim.kernel_ops.fresh_charge(gas, T)``.
     """
 
     __slots__ = (
@@ -134,7 +137,7 @@ class GasState:
         "p_int", "T_int", "R_int", "gamma_int", "y_b_int",
         "p_exh", "T_exh", "R_exh", "gamma_exh",
         "mdot_int", "mdot_exh", "mdot_blowby", "Qdot_wall",
-        "sub", "geometry",
+        "sub", "geometry", "gas",
     )
 
     def __init__(self, **kw: Any) -> None:
@@ -164,11 +167,16 @@ def _kernel_call(model, s: GasState):
     fn = kernel_of(type(model))
     if fn is None:
         raise NotImplementedError(f"{model.role} model {model.name!r} defines neither the method nor a kernel")
+    with np.errstate(invalid="ignore", divide="ignore"):   # a kernel is branch-free: masked values may be NaN
+        return call_on(fn, s, _packed_once(model), model.role, getattr(model.ctx, "gas", None))
+
+
+def _packed_once(model) -> dict:
+    """The model's ``pack()``, computed once per model."""
     packed = model.__dict__.get("_packed_kernel")
     if packed is None:
         packed = model.__dict__["_packed_kernel"] = dict(model.pack())
-    with np.errstate(invalid="ignore", divide="ignore"):   # a kernel is branch-free: masked values may be NaN
-        return call_on(fn, s, packed, model.role)
+    return packed
 
 
 class Submodel:
@@ -244,9 +252,33 @@ class Submodel:
         """State components this submodel integrates (default: none)."""
         return ()
 
+    state_kernel: ClassVar[Any] = None
+    """The time derivatives [unit/s] of the components of :meth:`states` as a plain function of
+    named arguments (as :attr:`BurnRate.kernel`: packed parameters from :meth:`pack` by name,
+    cylinder-state fields by their GasState name, this model's own states by their declared
+    names), returning one value for one state or a tuple in the order of :meth:`states`; None:
+    the model gives :meth:`derivatives` only and runs on the Python path."""
+
     def derivatives(self, s: GasState) -> Mapping[str, np.ndarray]:
-        """Time derivatives [unit/s] of the components named in :meth:`states`."""
-        return {}
+        """Time derivatives [unit/s] of the components named in :meth:`states` (default: the
+        :attr:`state_kernel` on arrays, else none)."""
+        from .loopgen import call_on, state_kernel_of
+
+        fn = state_kernel_of(type(self))
+        if fn is None:
+            return {}
+        names = [sv.name for sv in self.states()]
+        with np.errstate(invalid="ignore", divide="ignore"):   # branch-free: masked values may be NaN
+            got = call_on(fn, s, _packed_once(self), self.role, getattr(self.ctx, "gas", None))
+        if len(names) == 1:
+            return {names[0]: got}
+        if not isinstance(got, tuple) or len(got) != len(names):
+            from .errors import PluginError
+
+            raise PluginError(f"{self.role} model {self.name!r}: state_kernel {fn.__name__}() returned"
+                              f" {type(got).__name__}, expected a tuple of {len(names)} values"
+                              f" ({', '.join(names)})")
+        return dict(zip(names, got))
 
     # -- optional end-of-run figures ----------------------------------
     def figures(self, trace: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:

@@ -333,6 +333,7 @@ class _RHS:
         s.mdot_int = s.mdot_exh = s.mdot_blowby = s.Qdot_wall = None
         s.sub = sub
         s.geometry = self.b.geometry
+        s.gas = self.gas
         stage = ("burn", "rate")
         try:
             # the rate only matters where a case burns (it is masked below)

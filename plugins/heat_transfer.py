@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from cyclesim.kernel_ops import where
+from cyclesim.kernel_ops import fresh_charge, where
 from cyclesim.params import Param, StateVar
 from cyclesim.roles import GasState, WallHeatTransfer
 
@@ -108,6 +108,14 @@ def woschni_kernel(p, T, V, Sp, closed, burning, p_ivc, T_ivc, V_ivc, T_mot, k, 
     return woschni_h(k, p, w, T, t_exp)
 
 
+def woschni_motored_rate(T_mot, gas, dV, omega_deg, V, closed):
+    """dT_mot/dt [K/s] of the charge motored from IVC, ``-(R / cv) T_mot (dV/dt) / V`` with R and cv
+    of the fresh charge at ``T_mot``, zero outside the closed part: the state kernel of
+    :class:`Woschni` (isentropic compression of an ideal gas, Heywood 1988, sec. 3.4)."""
+    _, cv, R = fresh_charge(gas, T_mot)
+    return where(closed, -(R / cv) * T_mot * (dV * omega_deg) / V, 0.0)
+
+
 def hohenberg_kernel(V, p, T, Sp, multiplier):
     """Hohenberg's coefficient ``130 V^-0.06 p[bar]^0.8 T^-0.4 (Sp + 1.4)^0.8`` [W/(m^2 K)] times
     ``multiplier``: the kernel of :class:`Hohenberg` (V [m^3], p [Pa], T [K], Sp [m/s])."""
@@ -186,6 +194,7 @@ class Woschni(WallHeatTransfer):
     name = "woschni"
     summary = "Woschni 1967 (original form, T^-0.53), phase-dependent C1/C2, motored pressure integrated"
     kernel = woschni_kernel
+    state_kernel = woschni_motored_rate
     params = (
         _MULTIPLIER,
         Param("swirl_ratio", "-", 0.0, "swirl ratio (swirl speed / engine speed)", min=0.0, max=10.0),
@@ -231,13 +240,6 @@ class Woschni(WallHeatTransfer):
 
     def states(self):
         return (StateVar(self.STATE, "K", initial="T_ivc", reset_at_ivc=True),)
-
-    def derivatives(self, s: GasState):
-        T_mot = s.sub[f"{self.role}.{self.STATE}"]
-        _, cv, R = self.ctx.gas.unburned(T_mot)
-        dVdt = s.dV * s.omega_deg
-        rate = -(R / cv) * T_mot * dVdt / s.V
-        return {self.STATE: np.where(s.closed, rate, 0.0)}
 
     def motored_pressure(self, s: GasState) -> np.ndarray:
         """Pressure of the same charge motored from IVC [Pa] (B,)."""
