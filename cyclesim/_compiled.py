@@ -1,10 +1,11 @@
-"""Compiled cycle loop of the built-in submodels (imported only when numba is installed).
+"""The compiled cycle loop's template (imported only when numba is installed).
 
-The same arithmetic as :class:`cyclesim.solver._RHS` and the Runge-Kutta loop of
-:func:`cyclesim.solver.integrate`, written case by case in scalars for numba.  It
-covers the built-in submodels listed in :mod:`cyclesim.kernel`; each model here
-mirrors its Python class, whose docstring gives the equations and sources.  The
-Python path stays the reference: ``tests/test_kernel.py`` checks the two agree.
+The Runge-Kutta loop of :func:`cyclesim.solver.integrate` and the right-hand side
+:func:`_rhs`, written case by case in scalars for numba.  The submodels' physics is not here:
+each role's call site (``# KERNEL CALL``, ``# STATE KERNEL CALLS``) holds a stand-in, and
+:mod:`cyclesim.loopgen` writes a module per combination of models with their own kernels called
+there (the functions the Python path runs on arrays).  The Python path stays the reference:
+``tests/test_kernel.py`` checks the two agree.
 
 Status per case on return: 0 finished; 1 the state or a derivative stopped being
 finite or physical (the caller then re-runs the cycle on the Python path, which
@@ -22,39 +23,24 @@ from numba import njit
 from .layout import CORE_ROWS as _S
 from .layout import block_rows, param_rows
 
-SIGMA_SB = 5.670374419e-8
-
 # -- what the loop covers: the compiled forms, by role, and the packed-parameter rows of each --
-# A built-in declares ``compiled_form`` (a name below) and ``pack()``, which returns its parameter
-# arrays by the names listed here; cyclesim.kernel fills the rows from those names.  The row
-# numbers are resolved here once, at import (numba reads them as constants).
+# A model gives kernels (or declares ``compiled_form`` "none" / a valve or plenum form below) and
+# ``pack()``, which returns its parameter arrays by name; cyclesim.kernel fills the rows from
+# those names.  The row numbers are resolved here once, at import (numba reads them as constants).
 KERNEL_PARAMS = 24
 """Most packed parameters of a model given as kernels (form ``kernel``: its kernel and its state
 kernel together, see cyclesim.loopgen)."""
+KSLOTS = tuple(f"k{i}" for i in range(KERNEL_PARAMS))
 FORMS = {
-    "burn": {
-        "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
-        "none": (),
-        "wiebe_flame": ("spark", "delay_ref", "dur_ref", "a", "m", "eff", "kd", "sd", "kb", "sb", "visc", "phi",
-                        "V_spark", "speed_ratio", "G_ref", "phi_m", "b_m", "b_phi", "dilution", "T0", "atm",
-                        "visc_exp", "V_tdc", "G_ref_dur"),
-    },
-    "heat_transfer": {
-        "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
-        "none": (),
-        "annand": ("multiplier", "a", "b", "radiation_factor", "prandtl_number", "bore"),
-    },
-    "blowby": {"none": (), "orifice": ("cda", "p_cc")},
-    "knock": {"none": (), "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS))},
+    "burn": {"kernel": KSLOTS, "none": ()},
+    "heat_transfer": {"kernel": KSLOTS, "heat_flow_kernel": KSLOTS, "none": ()},
+    "blowby": {"kernel": KSLOTS, "none": ()},
+    "knock": {"none": (), "kernel": KSLOTS},
     "valve_flow": {"none": (), "poppet": ()},
     "boundary": {"constant": (), "pressure_trace": ()},
 }
-CODES = {role: {name: k for k, name in enumerate(forms)} for role, forms in FORMS.items()}
-"""Integer code of each compiled form within its role (the loop branches on it)."""
-
-BURN_NONE, BURN_FLAME, BURN_KERNEL = (CODES["burn"][k] for k in ("none", "wiebe_flame", "kernel"))
-HT_NONE, HT_ANNAND, HT_KERNEL = (CODES["heat_transfer"][k] for k in ("none", "annand", "kernel"))
-BB_NONE, BB_ORIFICE = (CODES["blowby"][k] for k in ("none", "orifice"))
+"""The compiled forms by role and their packed-parameter rows: a model's kernels fill the role's
+slots in the order they name their parameters (cyclesim.loopgen.param_rows_for)."""
 
 # rows of the per-case constant array CB (see cyclesim.kernel.Compiled): named blocks, in order
 N_P = sum(max(len(v) for v in FORMS[r].values()) for r in ("burn", "heat_transfer", "blowby", "knock"))
@@ -62,24 +48,18 @@ N_P = sum(max(len(v) for v in FORMS[r].values()) for r in ("burn", "heat_transfe
 ROWS, N_ROWS = block_rows((
     ("omega", 1), ("Sp", 1), ("T_wall", 3), ("eta", 1), ("dh298", 1), ("buf_scale", 1), ("plenum", 11),
     ("params", N_P), ("ivc", 3), ("ivc_deg", 1), ("V_at_ivc", 1),
-    ("spark", 4),        # the flame-speed burn's charge at spark and at TDC (T, p, T, p)
 ))
-R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC, R_SPARK = ROWS.values()
+R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC = ROWS.values()
 PARAM_ROWS = param_rows(FORMS, ("burn", "heat_transfer", "blowby", "knock"))
 """(role, form) -> {parameter name: row offset from R_P}."""
-(F_SPARK, F_DELAY, F_DUR, F_A, F_M, F_EFF, F_KD, F_SD, F_KB, F_SB, F_VISC, F_PHI, F_V_SPARK,
- F_SPEED_RATIO, F_G_REF, F_PHI_M, F_B_M, F_B_PHI, F_DILUTION, F_T0, F_ATM, F_VISC_EXP, F_V_TDC,
- F_G_REF_DUR) = PARAM_ROWS["burn", "wiebe_flame"].values()
-H_MULT, H_ANNAND_A, H_ANNAND_B, H_RAD, H_PRANDTL, H_BORE = PARAM_ROWS["heat_transfer", "annand"].values()
-B_CDA, B_P_CC = PARAM_ROWS["blowby", "orifice"].values()
 # the plenum block: intake (p, T, y_b, R, gamma, h), exhaust (p, T, R, gamma, h)
 PL_PI, PL_TI, PL_YI, PL_RI, PL_GI, PL_HI, PL_PE, PL_TE, PL_RE, PL_GE, PL_HE = range(R_PLEN, R_PLEN + 11)
 R_IVC_P, R_IVC_T, R_IVC_V = R_IVC, R_IVC + 1, R_IVC + 2          # the IVC state: p [Pa], T [K], V [m^3]
 R_TW_HEAD, R_TW_PISTON, R_TW_LINER = R_TW, R_TW + 1, R_TW + 2     # wall temperatures [K]
-# the integer array IC: the form code of the roles the loop branches on, the gas table width
-# (a submodel's states have rows of their own, constants of the loop generated for them)
-IC_ROWS, N_IC = block_rows((("burn", 1), ("heat_transfer", 1), ("blowby", 1), ("gas_nRm1", 1)))
-IC_BURN, IC_HT, IC_BB, IC_NRM1 = IC_ROWS.values()
+# the integer array IC: the gas table width (a submodel's states have rows of their own, constants
+# of the loop generated for them)
+IC_ROWS, N_IC = block_rows((("gas_nRm1", 1),))
+IC_NRM1 = IC_ROWS["gas_nRm1"]
 # core state rows by name (cyclesim.layout.CORE)
 (S_M, S_T, S_MB, S_XB, S_W, S_QW, S_MBB, S_HBB, S_MUBB, S_MINT, S_HINT, S_MUINT, S_MEXH, S_HEXH, S_MUEXH,
  S_QBURN, S_MQ, S_MBQ, S_HQ) = _S.values()
@@ -176,65 +156,6 @@ def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
 
 
 @njit(cache=True, error_model="numpy")
-def _log_mean(T0, T1):
-    ln = math.log(T1 / T0)
-    if abs(ln) < 1e-6:
-        return math.sqrt(T0 * T1)
-    return (T1 - T0) / ln
-
-
-@njit(cache=True, error_model="numpy")
-def _spark_state(b, CB, uc4, T_mid):
-    """Fresh charge at spark and at TDC, isentropic from the IVC state (flame_burn.WiebeFlame.spark_state)."""
-    T0 = CB[R_IVC_T, b]
-    p0 = CB[R_IVC_P, b]
-    for k, row in ((0, F_V_SPARK), (2, F_V_TDC)):
-        lnv = math.log(CB[R_IVC_V, b] / CB[R_P + row, b])
-        T = T0 * math.exp(lnv / 2.5)
-        for _ in range(4):
-            _, R, cv = _fresh(uc4, b, _log_mean(T0, T), T_mid)
-            T = T0 * math.exp(R / cv * lnv)
-        CB[R_SPARK + k, b] = T
-        CB[R_SPARK + k + 1, b] = p0 * math.exp(lnv) * T / T0
-
-
-@njit(cache=True, inline="always", error_model="numpy")
-def _flame_length(T, p, s0, alpha, beta, dil, visc, q, b, CB):
-    """Laminar scale G of the charge at (T, p): nu/S_L up to a constant, or 1/S_L (WiebeFlame._length)."""
-    s_l = max(s0 * (T / CB[q + F_T0, b]) ** alpha * (p / CB[q + F_ATM, b]) ** beta * dil, 1e-4)
-    return T ** CB[q + F_VISC_EXP, b] / p / s_l if visc else 1.0 / s_l
-
-
-@njit(cache=True, error_model="numpy")
-def _flame_rate(theta, b, yb, xb, CB):
-    """dx_b/dtheta of the flame-speed scaled Wiebe burn (flame_burn.WiebeFlame.rate)."""
-    q = R_P
-    T_s = CB[R_SPARK, b]
-    p_s = CB[R_SPARK + 1, b]
-    f = 1.0 - (1.0 - yb) / max(1.0 - CB[q + F_EFF, b] * xb, 1e-9)
-    f = min(max(f, 0.0), 1.0)
-    phi = CB[q + F_PHI, b]
-    s0 = max(CB[q + F_B_M, b] + CB[q + F_B_PHI, b] * (phi - CB[q + F_PHI_M, b]) ** 2, 0.0) * 1e-2
-    alpha = 2.18 - 0.8 * (phi - 1.0)
-    beta = -0.16 + 0.22 * (phi - 1.0)
-    dil = max(1.0 - CB[q + F_DILUTION, b] * f, 0.0)
-    visc = CB[q + F_VISC, b] != 0.0
-    g = _flame_length(T_s, p_s, s0, alpha, beta, dil, visc, q, b, CB) / CB[q + F_G_REF, b]
-    g_c = _flame_length(CB[R_SPARK + 2, b], CB[R_SPARK + 3, b], s0, alpha, beta, dil, visc, q, b, CB) \
-        / CB[q + F_G_REF_DUR, b]
-    delay = CB[q + F_DELAY, b] * g ** CB[q + F_KD, b] * CB[q + F_SPEED_RATIO, b] ** CB[q + F_SD, b]
-    dur = CB[q + F_DUR, b] * g_c ** CB[q + F_KB, b] * CB[q + F_SPEED_RATIO, b] ** CB[q + F_SB, b]
-    u = (theta - CB[q + F_SPARK, b] - delay) / dur
-    if not u > 0.0:
-        return 0.0
-    a = CB[q + F_A, b]
-    m = CB[q + F_M, b]
-    um = u ** m
-    r = a * (m + 1.0) / dur * um * math.exp(-a * um * u)
-    return r if math.isfinite(r) else 0.0
-
-
-@njit(cache=True, error_model="numpy")
 def burn_kernel(theta):
     """Stand-in for a plug-in's burn kernel: a generated loop (cyclesim.loopgen) calls the
     plug-in's own function here; in this module the branch is never taken."""
@@ -242,8 +163,14 @@ def burn_kernel(theta):
 
 
 @njit(cache=True, error_model="numpy")
-def heat_transfer_kernel(T):
-    """Stand-in for a plug-in's heat-transfer kernel (as :func:`burn_kernel`)."""
+def heat_flow_kernel(T):
+    """Stand-in for a heat-transfer model's kernel (as :func:`burn_kernel`): the wall heat flow [W]."""
+    return 0.0
+
+
+@njit(cache=True, error_model="numpy")
+def blowby_kernel(p):
+    """Stand-in for a blowby model's kernel (as :func:`burn_kernel`): the mass flow [kg/s]."""
     return 0.0
 
 
@@ -279,43 +206,18 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     dt = 1.0 / om
     for k in range(n):
         out[k] = 0.0
-    # burn
+    # burn: the model's kernel, dx_b/dtheta [1/deg] (cyclesim.loopgen writes its call in)
     dm_burn = 0.0
     if burning:
-        bc = IC[IC_BURN]
-        dxb = 0.0
-        if bc == BURN_FLAME:
-            if theta < CYCLE_END_DEG and theta >= CB[R_P + F_SPARK, b]:
-                dxb = _flame_rate(theta, b, yb, xb, CB)
-        elif bc == BURN_KERNEL:
-            dxb = burn_kernel(theta)  # KERNEL CALL burn
+        dxb = burn_kernel(theta)  # KERNEL CALL burn
         e_c = CB[R_ETA, b]
         dm_burn = e_c * dxb / max(1.0 - e_c * xb, 1e-3) * max(m - mb, 0.0)
         out[S_XB] = dxb
         out[S_QBURN] = dm_burn * CB[R_DH, b]
-    # wall heat
-    hc = IC[IC_HT]
-    Qw = 0.0
-    if hc == HT_KERNEL:
-        hcoef = heat_transfer_kernel(T)  # KERNEL CALL heat_transfer
-        Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
-    elif hc == HT_ANNAND:
-        mult = CB[R_P + H_MULT, b]
-        bore = CB[R_P + H_BORE, b]
-        mu = 1.458e-6 * T ** 1.5 / (T + 110.4)
-        kc = mu * cp / CB[R_P + H_PRANDTL, b]
-        Re = rho * sp * bore / mu
-        hconv = mult * CB[R_P + H_ANNAND_A, b] * kc / bore * Re ** CB[R_P + H_ANNAND_B, b]
-        c = mult * CB[R_P + H_RAD, b] * SIGMA_SB if (closed and burning) else 0.0
-        T4 = T ** 4
-        Qw = 0.0
-        Qw = Qw + Ah * (hconv * (T - CB[R_TW_HEAD, b]) + c * (T4 - CB[R_TW_HEAD, b] ** 4))
-        Qw = Qw + Ap * (hconv * (T - CB[R_TW_PISTON, b]) + c * (T4 - CB[R_TW_PISTON, b] ** 4))
-        Qw = Qw + Al * (hconv * (T - CB[R_TW_LINER, b]) + c * (T4 - CB[R_TW_LINER, b] ** 4))
-    # blowby (outflow only)
-    mbb = 0.0
-    if IC[IC_BB] == BB_ORIFICE:
-        mbb = max(_outflow(CB[R_P + B_CDA, b], p, T, R, gamma, min(p, CB[R_P + B_P_CC, b]), gc[8]), 0.0)
+    # wall heat [W] and blowby [kg/s, outflow only]: the models' kernels
+    Qw = heat_flow_kernel(T)  # KERNEL CALL heat_transfer
+    mbb = blowby_kernel(p)  # KERNEL CALL blowby
+    mbb = max(mbb, 0.0)
     fbb = mbb * dt
     out[S_MBB] = fbb
     if flows:
@@ -423,8 +325,6 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
         g = geo_rows[b]          # the case's column of the geometry arrays
         for k in range(n):
             yv[k] = y[k, b]
-        if IC[IC_BURN] == BURN_FLAME:
-            _spark_state(b, CB, uc4, gc[7])
         for i in range(N + 1):
             hs = steps[i] if i < N else 0.0
             # the stages at the grid's points (only the start at the last point)
@@ -472,8 +372,6 @@ def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, 
                     CB[R_IVC_P, b] = rhoi * mix[1] * Ti
                     CB[R_IVC_T, b] = Ti
                     CB[R_IVC_V, b] = Vi
-                    if IC[IC_BURN] == BURN_FLAME:
-                        _spark_state(b, CB, uc4, gc[7])
                     for k in range(n):
                         if reset[0, k] == 1.0:
                             yv[k] = yv[S_T]

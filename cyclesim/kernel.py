@@ -157,8 +157,11 @@ PHYSICS = {
 compiled from its ``state_kernel``, :func:`states_compile`)."""
 
 
-KERNEL_METHODS = {"burn": ("rate",), "heat_transfer": ("coefficient", "heat_flow")}
+KERNEL_METHODS = {"burn": ("rate",), "heat_transfer": ("coefficient", "heat_flow"), "blowby": ("mass_flow",)}
 """The role methods a kernel stands for (a model that overrides them is not its kernel)."""
+KERNEL_FORMS = {("heat_transfer", "heat_flow_kernel"): ("heat_flow",)}
+"""Other kernels a role may give, by (role, class attribute), and the methods each stands for
+(checked before the role's ``kernel``)."""
 
 
 def compiled_form(model) -> str | None:
@@ -181,6 +184,10 @@ def form_of_class(cls) -> str | None:
     role = cls.role
     if role in PHYSICS and not PHYSICS[role] and state_kernel_of(cls) is not None:
         return "kernel" if states_compile(cls) else None      # a role of states only (knock)
+    for (r, attr), methods in KERNEL_FORMS.items():
+        if r == role and kernel_of(cls, attr) is not None:
+            base = ROLE_BASES[role]
+            return attr if all(getattr(cls, n) is getattr(base, n) for n in methods) else None
     if role in KERNEL_METHODS and kernel_of(cls) is not None:
         base = ROLE_BASES[role]
         if all(getattr(cls, n) is getattr(base, n) for n in KERNEL_METHODS[role]):
@@ -215,10 +222,11 @@ def loop_status(cls) -> str:
     if cls.role not in PHYSICS:
         return "outside the cycle loop (evaluated once per case after it)"
     form = form_of_class(cls)
-    if form == "kernel":
-        from .loopgen import kernel_of
+    if form in ("kernel", "heat_flow_kernel"):
+        from .loopgen import kernel_of, state_kernel_of
 
-        return f"compiled: a loop generated from its kernel {kernel_of(cls).__name__}()"
+        fns = [f for f in (kernel_of(cls, form), state_kernel_of(cls)) if f is not None]
+        return f"compiled: a loop generated from its kernel {', '.join(f.__name__ + '()' for f in fns)}"
     if form is not None:
         return f"compiled (form {form!r})"
     return "numpy loop (no compiled form: give a kernel, see DEVELOPERS.md)"
@@ -247,7 +255,7 @@ def _packed(model, names: tuple[str, ...], B: int, form: str) -> dict[str, np.nd
     """A model's ``pack()``, checked against the parameter names its compiled form declares (a
     kernel's: those of the model's ``pack()`` its kernels read)."""
     got = dict(model.pack()) if names else {}
-    if form == "kernel":
+    if form in ("kernel", "heat_flow_kernel"):
         got = {k: v for k, v in got.items() if k in names}
     if set(got) != set(names):
         from .errors import PluginError
@@ -297,8 +305,6 @@ class Compiled:
         parts = loop_parts(batch, rhs)
         for role in ("burn", "heat_transfer", "blowby", "knock"):
             form = compiled_form(m[role])
-            if role in mod.IC_ROWS:
-                IC[mod.IC_ROWS[role]] = mod.CODES[role][form]
             rows = param_rows_for(role, parts, mod.PARAM_ROWS, form)
             for name, v in _packed(m[role], tuple(rows), B, form).items():
                 P[rows[name]] = v
@@ -360,7 +366,7 @@ class Compiled:
                     raise
                 self.broken = True
                 first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-                _notice(f"kernel:{mod.__name__}", f"a plug-in's kernel does not compile ({first}); this batch"
+                _notice(f"kernel:{mod.__name__}", f"a model's kernel does not compile ({first}); this batch"
                                                  f" runs on the numpy loop ({FALLBACK_SLOWDOWN})")
                 return False
             self.ready = True
@@ -435,9 +441,11 @@ def loop_parts(batch, rhs) -> tuple:
     for role, model in batch.models.items():
         if role not in PHYSICS:
             continue
-        packed = tuple(model.pack()) if (compiled_form(model) == "kernel" or own.get(role)) else ()
-        if compiled_form(model) == "kernel" and role in KERNEL_METHODS:
-            parts.append(Part(role, "kernel", kernel_of(type(model)), packed, own.get(role, ())))
+        form = compiled_form(model)
+        kernel_form = form in ("kernel", "heat_flow_kernel") and role in KERNEL_METHODS
+        packed = tuple(model.pack()) if (kernel_form or own.get(role)) else ()
+        if kernel_form:
+            parts.append(Part(role, form, kernel_of(type(model), form), packed, own.get(role, ())))
         if own.get(role):
             rows = own[role]
             parts.append(Part(role, "state", state_kernel_of(type(model)), packed, rows, [r for _, r in rows]))
@@ -454,7 +462,7 @@ def _generated(batch, rhs, mod):
         if not parts:
             return mod, None
         forms = {p.role: compiled_form(batch.models[p.role]) for p in parts}
-        gen, fresh = module_for(parts, {r: f for r, f in forms.items() if f != "kernel"})
+        gen, fresh = module_for(parts, {r: f for r, f in forms.items() if f not in ("kernel", "heat_flow_kernel")})
     except LoopGenError as exc:
         return None, f"{exc}"
     import numba

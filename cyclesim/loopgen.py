@@ -53,9 +53,9 @@ class LoopGenError(Exception):
     """A kernel that cannot go into a generated loop (the batch then runs on the Python path)."""
 
 
-def kernel_of(cls):
-    """The plain function a submodel class gives as its ``kernel``, or None."""
-    k = inspect.getattr_static(cls, "kernel", None)
+def kernel_of(cls, attr: str = "kernel"):
+    """The plain function a submodel class gives as its ``kernel`` (or as ``attr``), or None."""
+    k = inspect.getattr_static(cls, attr, None)
     if isinstance(k, staticmethod):
         k = k.__func__
     return k if isinstance(k, types.FunctionType) else None
@@ -84,10 +84,7 @@ def _kernel_args(fn) -> tuple[str, ...]:
 
 def state_kernel_of(cls):
     """The plain function a submodel class gives as its ``state_kernel``, or None."""
-    k = inspect.getattr_static(cls, "state_kernel", None)
-    if isinstance(k, staticmethod):
-        k = k.__func__
-    return k if isinstance(k, types.FunctionType) else None
+    return kernel_of(cls, "state_kernel")
 
 
 def kernel_params(fn, packed, own=()) -> tuple[str, ...]:
@@ -127,20 +124,31 @@ def _source(fn) -> str:
     return "\n".join(lines) + "\n"
 
 
+_GLOBAL_NAMES: dict = {}
+
+
 def _globals_read(fn) -> dict:
     """The module globals the function's code loads (LOAD_GLOBAL, nested code included), by name;
-    builtins (abs, min, ...) are left to numba."""
+    builtins (abs, min, ...) are left to numba.  The names are found once per code object, their
+    values read at each call (a changed global is seen)."""
+    names = _GLOBAL_NAMES.get(fn.__code__)
+    if names is None:
+        names = _GLOBAL_NAMES[fn.__code__] = _global_names(fn.__code__)
+    return {n: fn.__globals__[n] for n in names if n in fn.__globals__}
+
+
+def _global_names(code) -> tuple:
     import dis
 
     names: set = set()
-    codes = [fn.__code__]
+    codes = [code]
     while codes:
         code = codes.pop()
         for ins in dis.get_instructions(code):
             if ins.opname == "LOAD_GLOBAL":
                 names.add(ins.argval)
         codes += [c for c in code.co_consts if isinstance(c, types.CodeType)]
-    return {n: fn.__globals__[n] for n in names if n in fn.__globals__}
+    return tuple(sorted(names))
 
 
 def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
@@ -171,6 +179,15 @@ def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
         else:
             raise LoopGenError(f"kernel {fn.__name__}: reads global {name!r} of type {type(val).__name__}"
                                " (only numbers, tuples of numbers, numpy, math and plain functions compile)")
+
+
+INLINE_MAX_ARGS = 28
+"""Functions of more arguments are compiled as calls, not inlined by numba (its ``inline="always"``
+fails for a function of 30 or more arguments: measured with numba 0.68)."""
+
+KERNEL_SITES_FORMS = ("kernel", "heat_flow_kernel")
+"""Compiled forms whose packed parameters fill the role's kernel slots in the order the
+functions name them."""
 
 
 class Part(tuple):
@@ -204,14 +221,14 @@ def param_rows_for(role: str, parts, forms_rows: dict, form: str = "kernel") -> 
             for n in kernel_params(part.fn, part.packed, dict(part.own)):
                 if n not in names:
                     names.append(n)
-    if form != "kernel":
+    if form not in KERNEL_SITES_FORMS:
         rows = forms_rows[role, form]
         missing = [n for n in names if n not in rows]
         if missing:
             raise LoopGenError(f"{role}: the state kernel reads {', '.join(missing)}, which the compiled form"
                                f" {form!r} does not pack")
         return dict(rows)
-    slots = list(forms_rows[role, "kernel"].values())
+    slots = list(forms_rows[role, form].values())
     if len(names) > len(slots):
         fns = ", ".join(p.fn.__name__ for p in parts if p.role == role)
         raise LoopGenError(f"kernel {fns}: {len(names)} parameters, at most {len(slots)} compile")
@@ -309,8 +326,18 @@ def generate(parts, forms: dict | None = None) -> tuple[str, str]:
 
 
 KERNEL_MARKERS = {"burn": "burn_kernel(theta)  # KERNEL CALL burn",
-                  "heat_transfer": "heat_transfer_kernel(T)  # KERNEL CALL heat_transfer"}
-"""The call sites of each role's kernel in :func:`cyclesim._compiled._rhs`."""
+                  "heat_transfer": "heat_flow_kernel(T)  # KERNEL CALL heat_transfer",
+                  "blowby": "blowby_kernel(p)  # KERNEL CALL blowby"}
+"""The call site of each role's kernel in :func:`cyclesim._compiled._rhs` (the value of that
+role there: a burn rate [1/deg], a wall heat flow [W], a blowby mass flow [kg/s]); a role whose
+model gives no kernel (form ``none``) gets 0 there."""
+KERNEL_SITES = {("burn", "kernel"): "{call}",
+                ("heat_transfer", "kernel"): "wall_heat_flow({call}, T, Ah, Ap, Al, CB[R_TW_HEAD, b],"
+                                             " CB[R_TW_PISTON, b], CB[R_TW_LINER, b])",
+                ("heat_transfer", "heat_flow_kernel"): "{call}",
+                ("blowby", "kernel"): "{call}"}
+"""What goes at a role's call site for each kind of kernel: a heat-transfer coefficient kernel's
+value times the wall areas and temperature differences (:func:`cyclesim.roles.wall_heat_flow`)."""
 STATE_MARKER = "    pass  # STATE KERNEL CALLS"
 """Where the state kernels' calls go in :func:`cyclesim._compiled._rhs`."""
 
@@ -327,10 +354,15 @@ def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
             for role in dict.fromkeys(p.role for p in parts)}
     for k, part in enumerate(parts):
         _collect(part.fn, funcs, consts, imports)
-        if part.kind == "kernel":
-            if part.role not in KERNEL_MARKERS:
-                raise LoopGenError(f"the compiled loop has no call site for a {part.role} kernel")
-            calls[part.role] = _call(part, rows[part.role])
+        if part.kind != "state":
+            site = KERNEL_SITES.get((part.role, part.kind))
+            if site is None:
+                raise LoopGenError(f"the compiled loop has no call site for a {part.role} {part.kind}")
+            calls[part.role] = site.format(call=_call(part, rows[part.role]))
+            if "wall_heat_flow(" in site:
+                from .roles import wall_heat_flow
+
+                _collect(wall_heat_flow, funcs, consts, imports)
         else:
             states += _state_lines(k, part, rows[part.role])
     own = vars(base)
@@ -345,8 +377,7 @@ def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
     for role, marker in KERNEL_MARKERS.items():
         if marker not in rhs:
             raise LoopGenError(f"the compiled loop has no call site for the {role} kernel")
-        if role in calls:
-            rhs = rhs.replace(marker, calls[role])
+        rhs = rhs.replace(marker, calls.get(role, "0.0"))
     if STATE_MARKER not in rhs:
         raise LoopGenError("the compiled loop has no call site for state kernels")
     rhs = rhs.replace(STATE_MARKER, "\n".join(states) or STATE_MARKER)
@@ -369,7 +400,8 @@ def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
         parts_text.append(f"from {mod} import {attr} as {name}" if attr else f"import {target} as {name}")
     parts_text += [f"{n} = {v}" for n, v in sorted(consts.items())]
     for name, (fn, src) in funcs.items():
-        parts_text.append('\n@njit(cache=True, inline="always", error_model="numpy")\n' + src)
+        inline = ', inline="always"' if fn.__code__.co_argcount <= INLINE_MAX_ARGS else ""
+        parts_text.append(f'\n@njit(cache=True{inline}, error_model="numpy")\n' + src)
     parts_text.append('\n@njit(cache=True, error_model="numpy")\n' + rhs.split("\n", 1)[1] if rhs.startswith("@")
                       else '\n@njit(cache=True, error_model="numpy")\n' + rhs)
     parts_text.append('\n@njit(cache=True, nogil=True, error_model="numpy")\n'
@@ -409,8 +441,11 @@ def _quick_key(parts: tuple, forms: dict) -> str:
         else:
             h.update(repr(x).encode())
 
+    from .roles import wall_heat_flow
+
     feed(_memo(parts))
     feed(tuple(sorted(forms.items())))
+    feed(_fingerprint(wall_heat_flow))      # written into a loop with a heat-transfer coefficient kernel
     return h.hexdigest()[:24]
 
 

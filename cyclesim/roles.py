@@ -160,11 +160,18 @@ class ParamValues(SimpleNamespace):
         raise AttributeError(f"{self._owner} has no parameter {name!r}; declared: {declared}")
 
 
-def _kernel_call(model, s: GasState):
-    """A model's kernel on the Python path (arrays (B,)), its parameters from ``pack()`` (once)."""
+def wall_heat_flow(h, T, A_head, A_piston, A_liner, T_wall_head, T_wall_piston, T_wall_liner):
+    """Heat flow from the gas to the walls [W] for one coefficient h [W/(m^2 K)] on head, piston and
+    liner, ``h sum A (T - T_wall)`` (Newton's law of cooling, common practice); kernel form."""
+    return h * (A_head * (T - T_wall_head) + A_piston * (T - T_wall_piston) + A_liner * (T - T_wall_liner))
+
+
+def _kernel_call(model, s: GasState, attr: str = "kernel"):
+    """A model's kernel (the class attribute ``attr``) on the Python path (arrays (B,)), its
+    parameters from ``pack()`` (once)."""
     from .loopgen import call_on, kernel_of
 
-    fn = kernel_of(type(model))
+    fn = kernel_of(type(model), attr)
     if fn is None:
         raise NotImplementedError(f"{model.role} model {model.name!r} defines neither the method nor a kernel")
     with np.errstate(invalid="ignore", divide="ignore"):   # a kernel is branch-free: masked values may be NaN
@@ -351,7 +358,7 @@ class WallHeatTransfer(Submodel):
     """Convective (and optionally radiative) heat transfer from gas to walls."""
 
     role = "heat_transfer"
-    required_methods = (("coefficient", "heat_flow", "kernel"),)
+    required_methods = (("coefficient", "heat_flow", "kernel", "heat_flow_kernel"),)
 
     kernel: ClassVar[Any] = None
     """The heat-transfer coefficient [W/(m^2 K)] as a plain function of named arguments (as
@@ -361,25 +368,33 @@ class WallHeatTransfer(Submodel):
         """Heat-transfer coefficient [W/(m^2 K)] (B,) (default: the kernel)."""
         return _kernel_call(self, s)
 
+    heat_flow_kernel: ClassVar[Any] = None
+    """The heat flow from gas to walls [W] as a plain function of named arguments (as
+    :attr:`kernel`), for a model whose flow is not one coefficient times the temperature
+    differences (radiation per surface); :meth:`heat_flow` calls it where given."""
+
     def heat_flow(self, s: GasState) -> np.ndarray:
-        """Heat flow from gas to walls [W] (B,), positive = gas loses heat."""
-        h = self.coefficient(s)
-        return h * (
-            s.A_head * (s.T - s.T_wall_head)
-            + s.A_piston * (s.T - s.T_wall_piston)
-            + s.A_liner * (s.T - s.T_wall_liner)
-        )
+        """Heat flow from gas to walls [W] (B,), positive = gas loses heat (default: the
+        :attr:`heat_flow_kernel` where given, else :func:`wall_heat_flow` of the coefficient)."""
+        if type(self).heat_flow_kernel is not None:
+            return _kernel_call(self, s, "heat_flow_kernel")
+        return wall_heat_flow(self.coefficient(s), s.T, s.A_head, s.A_piston, s.A_liner,
+                              s.T_wall_head, s.T_wall_piston, s.T_wall_liner)
 
 
 class RingLeakage(Submodel):
     """Leakage (blowby) past the ring pack to the crankcase."""
 
     role = "blowby"
-    required_methods = (("mass_flow",),)
+    required_methods = (("mass_flow", "kernel"),)
+
+    kernel: ClassVar[Any] = None
+    """The mass flow [kg/s] as a plain function of named arguments (as :attr:`BurnRate.kernel`),
+    or None; a model with a kernel need not define :meth:`mass_flow`."""
 
     def mass_flow(self, s: GasState) -> np.ndarray:
-        """Mass flow from cylinder to crankcase [kg/s] (B,), >= 0."""
-        raise NotImplementedError
+        """Mass flow from cylinder to crankcase [kg/s] (B,), >= 0 (default: the kernel)."""
+        return _kernel_call(self, s)
 
 
 class ValveFlow(Submodel):
