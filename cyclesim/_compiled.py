@@ -155,26 +155,6 @@ def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
     return -_outflow(cda, p2, T2, R2, g2, p1, dp_lin)
 
 
-@njit(cache=True, error_model="numpy")
-def burn_kernel(theta):
-    """Stand-in for a plug-in's burn kernel: a generated loop (cyclesim.loopgen) calls the
-    plug-in's own function here; in this module the branch is never taken."""
-    return 0.0
-
-
-@njit(cache=True, error_model="numpy")
-def heat_flow_kernel(T):
-    """Stand-in for a heat-transfer model's kernel (as :func:`burn_kernel`): the wall heat flow [W]."""
-    return 0.0
-
-
-@njit(cache=True, error_model="numpy")
-def blowby_kernel(p):
-    """Stand-in for a blowby model's kernel (as :func:`burn_kernel`): the mass flow [kg/s]."""
-    return 0.0
-
-
-@njit(cache=True, error_model="numpy")
 def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, gas_tab,
          gas_off, gc, uc4, mix):
     """Derivatives of case b into out; False where they are not finite.
@@ -210,72 +190,37 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     dm_burn = 0.0
     if burning:
         dxb = burn_kernel(theta)  # KERNEL CALL burn
-        e_c = CB[R_ETA, b]
-        dm_burn = e_c * dxb / max(1.0 - e_c * xb, 1e-3) * max(m - mb, 0.0)
+        dm_burn = burned_mass_rate(CB[R_ETA, b], dxb, xb, m, mb)
         out[S_XB] = dxb
         out[S_QBURN] = dm_burn * CB[R_DH, b]
     # wall heat [W] and blowby [kg/s, outflow only]: the models' kernels
     Qw = heat_flow_kernel(T)  # KERNEL CALL heat_transfer
     mbb = blowby_kernel(p)  # KERNEL CALL blowby
-    mbb = max(mbb, 0.0)
-    fbb = mbb * dt
+    fbb = max(mbb, 0.0) * dt
     out[S_MBB] = fbb
+    # the valves (a shut one moves nothing) and the intake-port buffer
+    fi = 0.0
+    fe = 0.0
+    yin_i = yb
+    hin_i = h
+    yin_e = yb
+    hin_e = h
     if flows:
-        mi = _orifice(Ai, p_i, CB[PL_TI, b], CB[PL_RI, b], CB[PL_GI, b], p, T, R, gamma, gc[8])
-        me = _orifice(Ae, p_e, CB[PL_TE, b], CB[PL_RE, b], CB[PL_GE, b], p, T, R, gamma, gc[8])
-        fi = mi * dt
-        fe = me * dt
+        if Ai != 0.0:
+            fi = orifice_flow(Ai, p_i, CB[PL_TI, b], CB[PL_RI, b], CB[PL_GI, b], p, T, R, gamma, gc[8]) * dt
+        if Ae != 0.0:
+            fe = orifice_flow(Ae, p_e, CB[PL_TE, b], CB[PL_RE, b], CB[PL_GE, b], p, T, R, gamma, gc[8]) * dt
+        yin_i, hin_i, out[S_MQ], out[S_MBQ], out[S_HQ] = port_buffer(
+            fi, yv[S_MQ], yv[S_MBQ], yv[S_HQ], CB[R_BUF, b], CB[PL_YI, b], CB[PL_HI, b], yb, h)
+        yin_e, hin_e = exhaust_inflow(fe, CB[PL_HE, b], yb, h)
         out[S_MINT] = fi
         out[S_MEXH] = fe
-        mq = max(yv[S_MQ], 0.0)
-        wq = mq / (mq + CB[R_BUF, b])
-        mq_safe = mq if mq > 0 else 1.0
-        yq = min(max(yv[S_MBQ] / mq_safe, 0.0), 1.0)
-        hq = yv[S_HQ] / mq_safe
-        if fi > 0:
-            yin_i = wq * yq + (1.0 - wq) * CB[PL_YI, b]
-            hin_i = wq * hq + (1.0 - wq) * CB[PL_HI, b]
-            wfi = wq * fi
-            out[S_MQ] = -wfi
-            out[S_MBQ] = -(wfi * yq)
-            out[S_HQ] = -(wfi * hq)
-        else:
-            yin_i = yb
-            hin_i = h
-            out[S_MQ] = -fi
-            out[S_MBQ] = -(fi * yb)
-            out[S_HQ] = -(fi * h)
-        if fe > 0:
-            yin_e = 1.0
-            hin_e = CB[PL_HE, b]
-        else:
-            yin_e = yb
-            hin_e = h
-        dm = fi + fe - fbb
-        dmb = dm_burn + fi * yin_i + fe * yin_e - fbb * yb
-        dHi = fi * hin_i
-        dHe = fe * hin_e
-        out[S_HINT] = dHi
-        out[S_HEXH] = dHe
         out[S_MUINT] = fi * (1.0 - yin_i)
         out[S_MUEXH] = fe * (1.0 - yin_e)
-        dHflow = dHi + dHe
-    else:
-        dm = -fbb
-        dmb = dm_burn - fbb * yb
-        dHflow = 0.0
-    dHbb = fbb * h
-    out[S_HBB] = dHbb
     dQ = Qw * dt
     out[S_QW] = dQ
-    pdV = p * dV
-    out[S_W] = pdV
-    dU = dHflow - pdV - dQ - dHbb
-    dlnrho = dm / m - dV / V
-    dy = (dmb - yb * dm) / m
-    out[S_M] = dm
-    out[S_T] = ((dU - u * dm) / m - u_lnrho * dlnrho - u_y * dy) / u_T
-    out[S_MB] = dmb
+    out[S_M], out[S_T], out[S_MB], out[S_W], out[S_HBB], out[S_HINT], out[S_HEXH] = first_law(
+        m, V, dV, p, u, u_T, u_lnrho, u_y, yb, h, dm_burn, fi, yin_i, hin_i, fe, yin_e, hin_e, fbb, dQ)
     out[S_MUBB] = fbb * (1.0 - yb)
     # submodel states: each model's state kernel (cyclesim.loopgen writes their calls here)
     pass  # STATE KERNEL CALLS
@@ -300,7 +245,6 @@ def _weighted(coef, K, s, k):
     return acc
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
 def run_cycle(full, th, steps, Vp, dVp, Ahp, App, Alp, closed_pts, burning_pts, open_at, Ai_pts, Ae_pts,
               y, Y, F, CB, IC, reset, geo_rows, PI, PE, gas_tab, gas_off, gc, uc4, status, tA, ta_den, tb, tb_den,
               tnode, b0, b1):

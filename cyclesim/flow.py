@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .kernel_ops import where
+from .kernel_ops import max_above, where
 
 DP_LIN_DEFAULT = 1e-3
 """Default relative pressure difference below which the flow law is linear [-]."""
@@ -63,10 +63,16 @@ def isentropic_flux(pressure_ratio, gamma):
     """
     inv_g = 1.0 / gamma
     e = 1.0 - inv_g                                  # (g-1)/g
-    crit = (2.0 / (gamma + 1.0)) ** (1.0 / e)
-    pr = np.maximum(np.minimum(pressure_ratio, 1.0), crit)
+    # the critical ratio is below exp(-1/2) = 0.60653 for every g > 1: above 0.6066 the flow is
+    # subsonic without computing it
+    pr = max_above(np.minimum(pressure_ratio, 1.0), 0.6066, critical_ratio_of, gamma)
     pg = pr ** inv_g
     return pg * np.sqrt(np.maximum((2.0 / e) * (1.0 - pr / pg), 0.0))   # pr^e = pr / pr^(1/g)
+
+
+def critical_ratio_of(gamma):
+    """:func:`critical_pressure_ratio` in kernel form, ``(2 / (g + 1))^(1 / (1 - 1/g))`` [-]."""
+    return (2.0 / (gamma + 1.0)) ** (1.0 / (1.0 - 1.0 / gamma))
 
 
 def orifice_mass_flow(cd_area, p1, T1, R1, gamma1, p2, T2, R2, gamma2, dp_lin=DP_LIN_DEFAULT):

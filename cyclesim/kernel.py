@@ -1,20 +1,20 @@
 """Choice of the cycle loop: compiled (numba, optional) or Python.
 
-The compiled loop (:mod:`cyclesim._compiled`) integrates one cycle of every case of
-a batch in machine code.  It covers the built-in submodels below; any other
-submodel (a third-party plug-in, or a built-in not listed) runs on the Python path,
-which is always there and is the reference.  Results agree to rounding
-(``tests/test_kernel.py``).
+The compiled loop integrates one cycle of every case of a batch in machine code: a module
+that :mod:`cyclesim.loopgen` writes from the template in :mod:`cyclesim._compiled`, the
+balance of :mod:`cyclesim.balance` and the chosen models' kernels.  A model runs compiled where
+it gives its physics as kernels (any plug-in may); any other runs on the Python path, which is
+always there and is the reference.  Results agree to rounding (``tests/test_kernel.py``).
 
 ================  ==========================================================
-role              built-ins with a compiled form
+role              built-ins, all compiled
 ================  ==========================================================
-burn              ``wiebe``, ``wiebe_ca50``, ``wiebe_table``, ``double_wiebe``, ``wiebe_flame``,
-                  ``none``
-heat_transfer     ``woschni``, ``hohenberg`` (kernels; Woschni's T_mot a state kernel), ``annand``,
-                  ``none``
-blowby            ``orifice``, ``none``
-valve_flow        ``poppet``, ``none``
+burn              ``wiebe``, ``wiebe_ca50``, ``wiebe_table``, ``double_wiebe``, ``wiebe_flame``
+                  (kernels), ``none``
+heat_transfer     ``woschni``, ``hohenberg`` (kernels; Woschni's T_mot a state kernel),
+                  ``annand`` (a heat-flow kernel), ``none``
+blowby            ``orifice`` (a kernel), ``none``
+valve_flow        ``poppet``, ``none`` (areas read per point)
 boundary          ``constant``, ``manifold_trace`` (closed cycles: any)
 knock             ``livengood_wu`` (a state kernel), ``none``
 ================  ==========================================================
@@ -122,19 +122,6 @@ def _notice(key: str, text: str) -> None:
         import sys
 
         print(f"cyclesim: {text}", file=sys.stderr, flush=True)
-
-
-def _compile_notice(mod) -> None:
-    """One line on stderr where the compiled loop is not cached yet (the first run compiles it)."""
-    if "compiling" in _told:
-        return
-    try:
-        cached = bool(mod.run_cycle._cache._cache_file._load_index())
-    except Exception:  # noqa: BLE001 - numba internals: no notice rather than a failure
-        return
-    if not cached:
-        _notice("compiling", "compiling the cycle loop for this machine (once after installing; about 10-20 s)")
-    _told.add("compiling")
 
 
 def _b(x, B) -> np.ndarray:
@@ -356,7 +343,7 @@ class Compiled:
         n_thr = min(threads(), B // MIN_CASES_PER_THREAD)
         if self.broken:
             return False
-        if mod is not _mod and not self.ready:
+        if not self.ready:
             # a generated loop compiles on its first call: on one range, so that a kernel numba
             # cannot compile sends the batch to the Python path instead of failing it
             try:
@@ -423,8 +410,6 @@ def loop_for(batch, rhs) -> tuple[object, str]:
             _notice(reason, f"{reason}: this batch runs on the numpy loop ({FALLBACK_SLOWDOWN} than the"
                             " compiled loop of the built-in submodels)")
         return None, f"numpy ({reason})"
-    if mod is _mod:
-        _compile_notice(mod)
     return mod, "compiled"
 
 
@@ -459,8 +444,6 @@ def _generated(batch, rhs, mod):
 
     try:
         parts = loop_parts(batch, rhs)
-        if not parts:
-            return mod, None
         forms = {p.role: compiled_form(batch.models[p.role]) for p in parts}
         gen, fresh = module_for(parts, {r: f for r, f in forms.items() if f not in ("kernel", "heat_flow_kernel")})
     except LoopGenError as exc:
@@ -468,7 +451,8 @@ def _generated(batch, rhs, mod):
     import numba
 
     if (fresh or not _cached(gen)) and not numba.config.DISABLE_JIT:
-        names = ", ".join(f"{r} model {batch.models[r].name!r}" for r in dict.fromkeys(p.role for p in parts))
+        names = ", ".join(f"{r} model {batch.models[r].name!r}" for r in dict.fromkeys(p.role for p in parts)) \
+            or "the chosen models"
         _notice(f"compiling:{gen.__name__}", f"compiling the cycle loop for {names} (once per combination of"
                                             " models and kernel source; about 10-30 s)")
     return gen, None

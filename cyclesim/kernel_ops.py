@@ -25,6 +25,12 @@ def fresh_charge(gas, T):
     return gas.unburned(T)
 
 
+def max_above(x, bound, f, arg):
+    """``max(x, f(arg))`` for a function f known to stay below ``bound``: numpy evaluates f on
+    every element; the compiled loop skips f where ``x >= bound`` (the result is x there alike)."""
+    return np.maximum(x, f(arg))
+
+
 _registered = False
 
 
@@ -53,6 +59,14 @@ def register_compiled() -> None:
             def impl(gas, T):
                 u, R, cv = _fresh(gas[0], gas[1], T, gas[2])
                 return u, cv, R
+            return impl
+        return None
+
+    @overload(max_above)
+    def _max_above_scalar(x, bound, f, arg):
+        if isinstance(x, types.Number):
+            def impl(x, bound, f, arg):
+                return x if x >= bound else max(x, f(arg))
             return impl
         return None
 

@@ -168,7 +168,7 @@ def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
             if val.__name__ not in ("numpy", "math"):
                 raise LoopGenError(f"kernel {fn.__name__}: reads module {val.__name__!r}; only numpy and math compile")
             imports[name] = val.__name__
-        elif val in (kernel_ops.where, kernel_ops.fresh_charge):
+        elif val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above):
             imports[name] = f"cyclesim.kernel_ops.{val.__name__}"
         elif isinstance(val, types.FunctionType):
             _collect(val, funcs, consts, imports)
@@ -342,6 +342,16 @@ STATE_MARKER = "    pass  # STATE KERNEL CALLS"
 """Where the state kernels' calls go in :func:`cyclesim._compiled._rhs`."""
 
 
+def template_functions() -> tuple:
+    """The functions the loop's template (:func:`cyclesim._compiled._rhs`) calls besides the
+    models' kernels, written into every generated loop from their one source: the orifice flow
+    of the valves, the port buffer, the burned mass and the first law (:mod:`cyclesim.balance`)."""
+    from .balance import burned_mass_rate, exhaust_inflow, first_law, port_buffer
+    from .flow import orifice_flow
+
+    return (orifice_flow, port_buffer, exhaust_inflow, first_law, burned_mass_rate)
+
+
 def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
     from . import _compiled as base
 
@@ -352,6 +362,8 @@ def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
     states: list[str] = []
     rows = {role: param_rows_for(role, parts, base.PARAM_ROWS, forms.get(role, "kernel"))
             for role in dict.fromkeys(p.role for p in parts)}
+    for fn in template_functions():
+        _collect(fn, funcs, consts, imports)
     for k, part in enumerate(parts):
         _collect(part.fn, funcs, consts, imports)
         if part.kind != "state":
@@ -373,7 +385,7 @@ def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
     clash |= {n for n, target in imports.items() if n in own and getattr(own[n], "__name__", None) != target}
     if clash:
         raise LoopGenError(f"kernel names {sorted(clash)} clash with the compiled loop's own names; rename them")
-    rhs = textwrap.dedent(inspect.getsource(base._rhs.py_func))
+    rhs = textwrap.dedent(inspect.getsource(base._rhs))
     for role, marker in KERNEL_MARKERS.items():
         if marker not in rhs:
             raise LoopGenError(f"the compiled loop has no call site for the {role} kernel")
@@ -381,7 +393,7 @@ def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
     if STATE_MARKER not in rhs:
         raise LoopGenError("the compiled loop has no call site for state kernels")
     rhs = rhs.replace(STATE_MARKER, "\n".join(states) or STATE_MARKER)
-    cycle = textwrap.dedent(inspect.getsource(base.run_cycle.py_func))
+    cycle = textwrap.dedent(inspect.getsource(base.run_cycle))
     private = sorted(n for n, v in vars(base).items()
                      if n.startswith("_") and not n.startswith("__") and hasattr(v, "py_func"))
     names = ", ".join(dict.fromkeys(p.fn.__name__ for p in parts)) or "none"
@@ -445,7 +457,9 @@ def _quick_key(parts: tuple, forms: dict) -> str:
 
     feed(_memo(parts))
     feed(tuple(sorted(forms.items())))
-    feed(_fingerprint(wall_heat_flow))      # written into a loop with a heat-transfer coefficient kernel
+    # written into the loop as well: the template's functions, a coefficient kernel's wall heat flow
+    for fn in template_functions() + (wall_heat_flow,):
+        feed(_fingerprint(fn))
     return h.hexdigest()[:24]
 
 
