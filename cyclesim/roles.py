@@ -174,8 +174,11 @@ def _kernel_call(model, s: GasState, attr: str = "kernel"):
     fn = kernel_of(type(model), attr)
     if fn is None:
         raise NotImplementedError(f"{model.role} model {model.name!r} defines neither the method nor a kernel")
+    gas = getattr(model.ctx, "gas", None)
+    if np.geterr()["invalid"] == "ignore":       # the cycle loop's own setting: no second context
+        return call_on(fn, s, _packed_once(model), model.role, gas)
     with np.errstate(invalid="ignore", divide="ignore"):   # a kernel is branch-free: masked values may be NaN
-        return call_on(fn, s, _packed_once(model), model.role, getattr(model.ctx, "gas", None))
+        return call_on(fn, s, _packed_once(model), model.role, gas)
 
 
 def _packed_once(model) -> dict:
@@ -274,9 +277,15 @@ class Submodel:
         fn = state_kernel_of(type(self))
         if fn is None:
             return {}
-        names = [sv.name for sv in self.states()]
-        with np.errstate(invalid="ignore", divide="ignore"):   # branch-free: masked values may be NaN
-            got = call_on(fn, s, _packed_once(self), self.role, getattr(self.ctx, "gas", None))
+        names = self.__dict__.get("_state_names")
+        if names is None:
+            names = self.__dict__["_state_names"] = [sv.name for sv in self.states()]
+        gas = getattr(self.ctx, "gas", None)
+        if np.geterr()["invalid"] == "ignore":   # the cycle loop's own setting: no second context
+            got = call_on(fn, s, _packed_once(self), self.role, gas)
+        else:
+            with np.errstate(invalid="ignore", divide="ignore"):   # branch-free: masked values may be NaN
+                got = call_on(fn, s, _packed_once(self), self.role, gas)
         if len(names) == 1:
             return {names[0]: got}
         if not isinstance(got, tuple) or len(got) != len(names):
