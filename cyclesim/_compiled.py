@@ -1,10 +1,11 @@
-"""Compiled cycle loop of the built-in submodels (imported only when numba is installed).
+"""The compiled cycle loop's template (imported only when numba is installed).
 
-The same arithmetic as :class:`cyclesim.solver._RHS` and the Runge-Kutta loop of
-:func:`cyclesim.solver.integrate`, written case by case in scalars for numba.  It
-covers the built-in submodels listed in :mod:`cyclesim.kernel`; each model here
-mirrors its Python class, whose docstring gives the equations and sources.  The
-Python path stays the reference: ``tests/test_kernel.py`` checks the two agree.
+The Runge-Kutta loop of :func:`cyclesim.solver.integrate` and the right-hand side
+:func:`_rhs`, written case by case in scalars for numba.  The submodels' physics is not here:
+each role's call site (``# KERNEL CALL``, ``# STATE KERNEL CALLS``) holds a stand-in, and
+:mod:`cyclesim.loopgen` writes a module per combination of models with their own kernels called
+there (the functions the Python path runs on arrays).  The Python path stays the reference:
+``tests/test_kernel.py`` checks the two agree.
 
 Status per case on return: 0 finished; 1 the state or a derivative stopped being
 finite or physical (the caller then re-runs the cycle on the Python path, which
@@ -22,42 +23,24 @@ from numba import njit
 from .layout import CORE_ROWS as _S
 from .layout import block_rows, param_rows
 
-SIGMA_SB = 5.670374419e-8
-
 # -- what the loop covers: the compiled forms, by role, and the packed-parameter rows of each --
-# A built-in declares ``compiled_form`` (a name below) and ``pack()``, which returns its parameter
-# arrays by the names listed here; cyclesim.kernel fills the rows from those names.  The row
-# numbers are resolved here once, at import (numba reads them as constants).
-KERNEL_PARAMS = 16
-"""Most packed parameters of a plug-in's kernel (form ``kernel``, see cyclesim.loopgen)."""
+# A model gives kernels (or declares ``compiled_form`` "none" / a valve or plenum form below) and
+# ``pack()``, which returns its parameter arrays by name; cyclesim.kernel fills the rows from
+# those names.  The row numbers are resolved here once, at import (numba reads them as constants).
+KERNEL_PARAMS = 24
+"""Most packed parameters of a model given as kernels (form ``kernel``: its kernel and its state
+kernel together, see cyclesim.loopgen)."""
+KSLOTS = tuple(f"k{i}" for i in range(KERNEL_PARAMS))
 FORMS = {
-    "burn": {
-        "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
-        "none": (),
-        "wiebe_flame": ("spark", "delay_ref", "dur_ref", "a", "m", "eff", "kd", "sd", "kb", "sb", "visc", "phi",
-                        "V_spark", "speed_ratio", "G_ref", "phi_m", "b_m", "b_phi", "dilution", "T0", "atm",
-                        "visc_exp", "V_tdc", "G_ref_dur", "dilution_exp"),
-    },
-    "heat_transfer": {
-        "kernel": tuple(f"k{i}" for i in range(KERNEL_PARAMS)),
-        "none": (),
-        "annand": ("multiplier", "a", "b", "radiation_factor", "prandtl_number", "bore"),
-    },
-    "blowby": {"none": (), "orifice": ("cda", "p_cc")},
-    "knock": {"none": (), "livengood_wu": ("pre_ms", "act", "x_max", "atm", "p_exp")},
+    "burn": {"kernel": KSLOTS, "none": ()},
+    "heat_transfer": {"kernel": KSLOTS, "heat_flow_kernel": KSLOTS, "none": ()},
+    "blowby": {"kernel": KSLOTS, "none": ()},
+    "knock": {"none": (), "kernel": KSLOTS},
     "valve_flow": {"none": (), "poppet": ()},
     "boundary": {"constant": (), "pressure_trace": ()},
 }
-CODES = {role: {name: k for k, name in enumerate(forms)} for role, forms in FORMS.items()}
-"""Integer code of each compiled form within its role (the loop branches on it)."""
-STATES = (("heat_transfer", "T_mot"), ("knock", "I"))
-"""Submodel state components the loop integrates, by (role, name): the motored temperature of
-a heat-transfer model (Woschni's kernel takes it by name) and the Livengood-Wu integral."""
-
-BURN_NONE, BURN_FLAME, BURN_KERNEL = (CODES["burn"][k] for k in ("none", "wiebe_flame", "kernel"))
-HT_NONE, HT_ANNAND, HT_KERNEL = (CODES["heat_transfer"][k] for k in ("none", "annand", "kernel"))
-BB_NONE, BB_ORIFICE = (CODES["blowby"][k] for k in ("none", "orifice"))
-KN_NONE, KN_LW = (CODES["knock"][k] for k in ("none", "livengood_wu"))
+"""The compiled forms by role and their packed-parameter rows: a model's kernels fill the role's
+slots in the order they name their parameters (cyclesim.loopgen.param_rows_for)."""
 
 # rows of the per-case constant array CB (see cyclesim.kernel.Compiled): named blocks, in order
 N_P = sum(max(len(v) for v in FORMS[r].values()) for r in ("burn", "heat_transfer", "blowby", "knock"))
@@ -65,25 +48,18 @@ N_P = sum(max(len(v) for v in FORMS[r].values()) for r in ("burn", "heat_transfe
 ROWS, N_ROWS = block_rows((
     ("omega", 1), ("Sp", 1), ("T_wall", 3), ("eta", 1), ("dh298", 1), ("buf_scale", 1), ("plenum", 11),
     ("params", N_P), ("ivc", 3), ("ivc_deg", 1), ("V_at_ivc", 1),
-    ("spark", 4),        # the flame-speed burn's charge at spark and at TDC (T, p, T, p)
 ))
-R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC, R_SPARK = ROWS.values()
+R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC = ROWS.values()
 PARAM_ROWS = param_rows(FORMS, ("burn", "heat_transfer", "blowby", "knock"))
 """(role, form) -> {parameter name: row offset from R_P}."""
-(F_SPARK, F_DELAY, F_DUR, F_A, F_M, F_EFF, F_KD, F_SD, F_KB, F_SB, F_VISC, F_PHI, F_V_SPARK,
- F_SPEED_RATIO, F_G_REF, F_PHI_M, F_B_M, F_B_PHI, F_DILUTION, F_T0, F_ATM, F_VISC_EXP, F_V_TDC,
- F_G_REF_DUR, F_DILUTION_EXP) = PARAM_ROWS["burn", "wiebe_flame"].values()
-H_MULT, H_ANNAND_A, H_ANNAND_B, H_RAD, H_PRANDTL, H_BORE = PARAM_ROWS["heat_transfer", "annand"].values()
-B_CDA, B_P_CC = PARAM_ROWS["blowby", "orifice"].values()
-K_PRE, K_ACT, K_X_MAX, K_ATM, K_P_EXP = PARAM_ROWS["knock", "livengood_wu"].values()
 # the plenum block: intake (p, T, y_b, R, gamma, h), exhaust (p, T, R, gamma, h)
 PL_PI, PL_TI, PL_YI, PL_RI, PL_GI, PL_HI, PL_PE, PL_TE, PL_RE, PL_GE, PL_HE = range(R_PLEN, R_PLEN + 11)
 R_IVC_P, R_IVC_T, R_IVC_V = R_IVC, R_IVC + 1, R_IVC + 2          # the IVC state: p [Pa], T [K], V [m^3]
 R_TW_HEAD, R_TW_PISTON, R_TW_LINER = R_TW, R_TW + 1, R_TW + 2     # wall temperatures [K]
-# the integer array IC: the form code of each role, the submodel state rows (-1: absent), the gas table width
-IC_ROWS, N_IC = block_rows((("burn", 1), ("heat_transfer", 1), ("blowby", 1), ("knock", 1),
-                            ("heat_transfer.T_mot", 1), ("knock.I", 1), ("gas_nRm1", 1)))
-IC_BURN, IC_HT, IC_BB, IC_KN, IC_TMOT, IC_KNOCK, IC_NRM1 = IC_ROWS.values()
+# the integer array IC: the gas table width (a submodel's states have rows of their own, constants
+# of the loop generated for them)
+IC_ROWS, N_IC = block_rows((("gas_nRm1", 1),))
+IC_NRM1 = IC_ROWS["gas_nRm1"]
 # core state rows by name (cyclesim.layout.CORE)
 (S_M, S_T, S_MB, S_XB, S_W, S_QW, S_MBB, S_HBB, S_MUBB, S_MINT, S_HINT, S_MUINT, S_MEXH, S_HEXH, S_MUEXH,
  S_QBURN, S_MQ, S_MBQ, S_HQ) = _S.values()
@@ -179,79 +155,6 @@ def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
     return -_outflow(cda, p2, T2, R2, g2, p1, dp_lin)
 
 
-@njit(cache=True, error_model="numpy")
-def _log_mean(T0, T1):
-    ln = math.log(T1 / T0)
-    if abs(ln) < 1e-6:
-        return math.sqrt(T0 * T1)
-    return (T1 - T0) / ln
-
-
-@njit(cache=True, error_model="numpy")
-def _spark_state(b, CB, uc4, T_mid):
-    """Fresh charge at spark and at TDC, isentropic from the IVC state (flame_burn.WiebeFlame.spark_state)."""
-    T0 = CB[R_IVC_T, b]
-    p0 = CB[R_IVC_P, b]
-    for k, row in ((0, F_V_SPARK), (2, F_V_TDC)):
-        lnv = math.log(CB[R_IVC_V, b] / CB[R_P + row, b])
-        T = T0 * math.exp(lnv / 2.5)
-        for _ in range(4):
-            _, R, cv = _fresh(uc4, b, _log_mean(T0, T), T_mid)
-            T = T0 * math.exp(R / cv * lnv)
-        CB[R_SPARK + k, b] = T
-        CB[R_SPARK + k + 1, b] = p0 * math.exp(lnv) * T / T0
-
-
-@njit(cache=True, inline="always", error_model="numpy")
-def _flame_length(T, p, s0, alpha, beta, dil, visc, q, b, CB):
-    """Laminar scale G of the charge at (T, p): nu/S_L up to a constant, or 1/S_L (WiebeFlame._length)."""
-    s_l = max(s0 * (T / CB[q + F_T0, b]) ** alpha * (p / CB[q + F_ATM, b]) ** beta * dil, 1e-4)
-    return T ** CB[q + F_VISC_EXP, b] / p / s_l if visc else 1.0 / s_l
-
-
-@njit(cache=True, error_model="numpy")
-def _flame_rate(theta, b, yb, xb, CB):
-    """dx_b/dtheta of the flame-speed scaled Wiebe burn (flame_burn.WiebeFlame.rate)."""
-    q = R_P
-    T_s = CB[R_SPARK, b]
-    p_s = CB[R_SPARK + 1, b]
-    f = 1.0 - (1.0 - yb) / max(1.0 - CB[q + F_EFF, b] * xb, 1e-9)
-    f = min(max(f, 0.0), 1.0)
-    phi = CB[q + F_PHI, b]
-    s0 = max(CB[q + F_B_M, b] + CB[q + F_B_PHI, b] * (phi - CB[q + F_PHI_M, b]) ** 2, 0.0) * 1e-2
-    alpha = 2.18 - 0.8 * (phi - 1.0)
-    beta = -0.16 + 0.22 * (phi - 1.0)
-    dil = max(1.0 - CB[q + F_DILUTION, b] * f ** CB[q + F_DILUTION_EXP, b], 0.0)
-    visc = CB[q + F_VISC, b] != 0.0
-    g = _flame_length(T_s, p_s, s0, alpha, beta, dil, visc, q, b, CB) / CB[q + F_G_REF, b]
-    g_c = _flame_length(CB[R_SPARK + 2, b], CB[R_SPARK + 3, b], s0, alpha, beta, dil, visc, q, b, CB) \
-        / CB[q + F_G_REF_DUR, b]
-    delay = CB[q + F_DELAY, b] * g ** CB[q + F_KD, b] * CB[q + F_SPEED_RATIO, b] ** CB[q + F_SD, b]
-    dur = CB[q + F_DUR, b] * g_c ** CB[q + F_KB, b] * CB[q + F_SPEED_RATIO, b] ** CB[q + F_SB, b]
-    u = (theta - CB[q + F_SPARK, b] - delay) / dur
-    if not u > 0.0:
-        return 0.0
-    a = CB[q + F_A, b]
-    m = CB[q + F_M, b]
-    um = u ** m
-    r = a * (m + 1.0) / dur * um * math.exp(-a * um * u)
-    return r if math.isfinite(r) else 0.0
-
-
-@njit(cache=True, error_model="numpy")
-def burn_kernel(theta):
-    """Stand-in for a plug-in's burn kernel: a generated loop (cyclesim.loopgen) calls the
-    plug-in's own function here; in this module the branch is never taken."""
-    return 0.0
-
-
-@njit(cache=True, error_model="numpy")
-def heat_transfer_kernel(T):
-    """Stand-in for a plug-in's heat-transfer kernel (as :func:`burn_kernel`)."""
-    return 0.0
-
-
-@njit(cache=True, error_model="numpy")
 def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, gas_tab,
          gas_off, gc, uc4, mix):
     """Derivatives of case b into out; False where they are not finite.
@@ -283,128 +186,44 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     dt = 1.0 / om
     for k in range(n):
         out[k] = 0.0
-    # burn
+    # burn: the model's kernel, dx_b/dtheta [1/deg] (cyclesim.loopgen writes its call in)
     dm_burn = 0.0
     if burning:
-        bc = IC[IC_BURN]
-        dxb = 0.0
-        if bc == BURN_FLAME:
-            if theta < CYCLE_END_DEG and theta >= CB[R_P + F_SPARK, b]:
-                dxb = _flame_rate(theta, b, yb, xb, CB)
-        elif bc == BURN_KERNEL:
-            dxb = burn_kernel(theta)  # KERNEL CALL burn
-        e_c = CB[R_ETA, b]
-        dm_burn = e_c * dxb / max(1.0 - e_c * xb, 1e-3) * max(m - mb, 0.0)
+        dxb = burn_kernel(theta)  # KERNEL CALL burn
+        dm_burn = burned_mass_rate(CB[R_ETA, b], dxb, xb, m, mb)
         out[S_XB] = dxb
         out[S_QBURN] = dm_burn * CB[R_DH, b]
-    # wall heat
-    hc = IC[IC_HT]
-    Qw = 0.0
-    i_tmot = IC[IC_TMOT]
-    if hc == HT_KERNEL:
-        hcoef = heat_transfer_kernel(T)  # KERNEL CALL heat_transfer
-        Qw = hcoef * (Ah * (T - CB[R_TW_HEAD, b]) + Ap * (T - CB[R_TW_PISTON, b]) + Al * (T - CB[R_TW_LINER, b]))
-    elif hc == HT_ANNAND:
-        mult = CB[R_P + H_MULT, b]
-        bore = CB[R_P + H_BORE, b]
-        mu = 1.458e-6 * T ** 1.5 / (T + 110.4)
-        kc = mu * cp / CB[R_P + H_PRANDTL, b]
-        Re = rho * sp * bore / mu
-        hconv = mult * CB[R_P + H_ANNAND_A, b] * kc / bore * Re ** CB[R_P + H_ANNAND_B, b]
-        c = mult * CB[R_P + H_RAD, b] * SIGMA_SB if (closed and burning) else 0.0
-        T4 = T ** 4
-        Qw = 0.0
-        Qw = Qw + Ah * (hconv * (T - CB[R_TW_HEAD, b]) + c * (T4 - CB[R_TW_HEAD, b] ** 4))
-        Qw = Qw + Ap * (hconv * (T - CB[R_TW_PISTON, b]) + c * (T4 - CB[R_TW_PISTON, b] ** 4))
-        Qw = Qw + Al * (hconv * (T - CB[R_TW_LINER, b]) + c * (T4 - CB[R_TW_LINER, b] ** 4))
-    # blowby (outflow only)
-    mbb = 0.0
-    if IC[IC_BB] == BB_ORIFICE:
-        mbb = max(_outflow(CB[R_P + B_CDA, b], p, T, R, gamma, min(p, CB[R_P + B_P_CC, b]), gc[8]), 0.0)
-    fbb = mbb * dt
+    # wall heat [W] and blowby [kg/s, outflow only]: the models' kernels
+    Qw = heat_flow_kernel(T)  # KERNEL CALL heat_transfer
+    mbb = blowby_kernel(p)  # KERNEL CALL blowby
+    fbb = max(mbb, 0.0) * dt
     out[S_MBB] = fbb
+    # the valves (a shut one moves nothing) and the intake-port buffer
+    fi = 0.0
+    fe = 0.0
+    yin_i = yb
+    hin_i = h
+    yin_e = yb
+    hin_e = h
     if flows:
-        mi = _orifice(Ai, p_i, CB[PL_TI, b], CB[PL_RI, b], CB[PL_GI, b], p, T, R, gamma, gc[8])
-        me = _orifice(Ae, p_e, CB[PL_TE, b], CB[PL_RE, b], CB[PL_GE, b], p, T, R, gamma, gc[8])
-        fi = mi * dt
-        fe = me * dt
+        if Ai != 0.0:
+            fi = orifice_flow(Ai, p_i, CB[PL_TI, b], CB[PL_RI, b], CB[PL_GI, b], p, T, R, gamma, gc[8]) * dt
+        if Ae != 0.0:
+            fe = orifice_flow(Ae, p_e, CB[PL_TE, b], CB[PL_RE, b], CB[PL_GE, b], p, T, R, gamma, gc[8]) * dt
+        yin_i, hin_i, out[S_MQ], out[S_MBQ], out[S_HQ] = port_buffer(
+            fi, yv[S_MQ], yv[S_MBQ], yv[S_HQ], CB[R_BUF, b], CB[PL_YI, b], CB[PL_HI, b], yb, h)
+        yin_e, hin_e = exhaust_inflow(fe, CB[PL_HE, b], yb, h)
         out[S_MINT] = fi
         out[S_MEXH] = fe
-        mq = max(yv[S_MQ], 0.0)
-        wq = mq / (mq + CB[R_BUF, b])
-        mq_safe = mq if mq > 0 else 1.0
-        yq = min(max(yv[S_MBQ] / mq_safe, 0.0), 1.0)
-        hq = yv[S_HQ] / mq_safe
-        if fi > 0:
-            yin_i = wq * yq + (1.0 - wq) * CB[PL_YI, b]
-            hin_i = wq * hq + (1.0 - wq) * CB[PL_HI, b]
-            wfi = wq * fi
-            out[S_MQ] = -wfi
-            out[S_MBQ] = -(wfi * yq)
-            out[S_HQ] = -(wfi * hq)
-        else:
-            yin_i = yb
-            hin_i = h
-            out[S_MQ] = -fi
-            out[S_MBQ] = -(fi * yb)
-            out[S_HQ] = -(fi * h)
-        if fe > 0:
-            yin_e = 1.0
-            hin_e = CB[PL_HE, b]
-        else:
-            yin_e = yb
-            hin_e = h
-        dm = fi + fe - fbb
-        dmb = dm_burn + fi * yin_i + fe * yin_e - fbb * yb
-        dHi = fi * hin_i
-        dHe = fe * hin_e
-        out[S_HINT] = dHi
-        out[S_HEXH] = dHe
         out[S_MUINT] = fi * (1.0 - yin_i)
         out[S_MUEXH] = fe * (1.0 - yin_e)
-        dHflow = dHi + dHe
-    else:
-        dm = -fbb
-        dmb = dm_burn - fbb * yb
-        dHflow = 0.0
-    dHbb = fbb * h
-    out[S_HBB] = dHbb
     dQ = Qw * dt
     out[S_QW] = dQ
-    pdV = p * dV
-    out[S_W] = pdV
-    dU = dHflow - pdV - dQ - dHbb
-    dlnrho = dm / m - dV / V
-    dy = (dmb - yb * dm) / m
-    out[S_M] = dm
-    out[S_T] = ((dU - u * dm) / m - u_lnrho * dlnrho - u_y * dy) / u_T
-    out[S_MB] = dmb
+    out[S_M], out[S_T], out[S_MB], out[S_W], out[S_HBB], out[S_HINT], out[S_HEXH] = first_law(
+        m, V, dV, p, u, u_T, u_lnrho, u_y, yb, h, dm_burn, fi, yin_i, hin_i, fe, yin_e, hin_e, fbb, dQ)
     out[S_MUBB] = fbb * (1.0 - yb)
-    # submodel states
-    if i_tmot >= 0:
-        if closed:
-            T_mot = yv[i_tmot]
-            _, Rm, cvm = _fresh(uc4, b, T_mot, gc[7])
-            out[i_tmot] = (-(Rm / cvm) * T_mot * (dV * om) / V) * dt
-    i_kn = IC[IC_KNOCK]
-    if i_kn >= 0 and IC[IC_KN] == KN_LW:
-        if closed and xb < CB[R_P + K_X_MAX, b]:
-            T0 = CB[R_IVC_T, b]
-            lnr = math.log(p / CB[R_IVC_P, b])
-            Tu = T0 * math.exp(lnr / 3.5)
-            for _ in range(4):
-                ln = math.log(Tu / T0)
-                if abs(ln) < 1e-6:
-                    Tm = math.sqrt(T0 * Tu)
-                else:
-                    Tm = (Tu - T0) / ln
-                _, Rm, cvm = _fresh(uc4, b, Tm, gc[7])
-                Tu = T0 * math.exp(Rm / (cvm + Rm) * lnr)
-            tau = (CB[R_P + K_PRE, b] * (p / CB[R_P + K_ATM, b]) ** CB[R_P + K_P_EXP, b]
-                   * math.exp(CB[R_P + K_ACT, b] / Tu))
-            rate = 1e3 / tau
-            if math.isfinite(rate):
-                out[i_kn] = rate * dt
+    # submodel states: each model's state kernel (cyclesim.loopgen writes their calls here)
+    pass  # STATE KERNEL CALLS
     for k in range(n):
         if not math.isfinite(out[k]):
             return False
@@ -426,7 +245,6 @@ def _weighted(coef, K, s, k):
     return acc
 
 
-@njit(cache=True, nogil=True, error_model="numpy")
 def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
     """One cycle of cases b0..b1-1 by the Runge-Kutta tableau on the grid, as the Python loop.
 
@@ -464,8 +282,6 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
         g = geo_rows[b]          # the case's column of the geometry arrays
         for k in range(n):
             yv[k] = y[k, b]
-        if IC[IC_BURN] == BURN_FLAME:
-            _spark_state(b, CB, uc4, gc[7])
         for i in range(N + 1):
             hs = steps[i] if i < N else 0.0
             # the stages at the grid's points (only the start at the last point)
@@ -513,8 +329,6 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
                     CB[R_IVC_P, b] = rhoi * mix[1] * Ti
                     CB[R_IVC_T, b] = Ti
                     CB[R_IVC_V, b] = Vi
-                    if IC[IC_BURN] == BURN_FLAME:
-                        _spark_state(b, CB, uc4, gc[7])
                     for k in range(n):
                         if reset[0, k] == 1.0:
                             yv[k] = yv[S_T]

@@ -1,21 +1,22 @@
 """Choice of the cycle loop: compiled (numba, optional) or Python.
 
-The compiled loop (:mod:`cyclesim._compiled`) integrates one cycle of every case of
-a batch in machine code.  It covers the built-in submodels below; any other
-submodel (a third-party plug-in, or a built-in not listed) runs on the Python path,
-which is always there and is the reference.  Results agree to rounding
-(``tests/test_kernel.py``).
+The compiled loop integrates one cycle of every case of a batch in machine code: a module
+that :mod:`cyclesim.loopgen` writes from the template in :mod:`cyclesim._compiled`, the
+balance of :mod:`cyclesim.balance` and the chosen models' kernels.  A model runs compiled where
+it gives its physics as kernels (any plug-in may); any other runs on the Python path, which is
+always there and is the reference.  Results agree to rounding (``tests/test_kernel.py``).
 
 ================  ==========================================================
-role              built-ins with a compiled form
+role              built-ins, all compiled
 ================  ==========================================================
-burn              ``wiebe``, ``wiebe_ca50``, ``wiebe_table``, ``double_wiebe``, ``wiebe_flame``,
-                  ``none``
-heat_transfer     ``woschni``, ``hohenberg`` (kernels), ``annand``, ``none``
-blowby            ``orifice``, ``none``
-valve_flow        ``poppet``, ``none``
+burn              ``wiebe``, ``wiebe_ca50``, ``wiebe_table``, ``double_wiebe``, ``wiebe_flame``
+                  (kernels), ``none``
+heat_transfer     ``woschni``, ``hohenberg`` (kernels; Woschni's T_mot a state kernel),
+                  ``annand`` (a heat-flow kernel), ``none``
+blowby            ``orifice`` (a kernel), ``none``
+valve_flow        ``poppet``, ``none`` (areas read per point)
 boundary          ``constant``, ``manifold_trace`` (closed cycles: any)
-knock             ``livengood_wu``, ``none``
+knock             ``livengood_wu`` (a state kernel), ``none``
 ================  ==========================================================
 
 Choice: the environment variable ``CYCLESIM_KERNEL`` = ``auto`` (default: compiled
@@ -123,19 +124,6 @@ def _notice(key: str, text: str) -> None:
         print(f"cyclesim: {text}", file=sys.stderr, flush=True)
 
 
-def _compile_notice(mod) -> None:
-    """One line on stderr where the compiled loop is not cached yet (the first run compiles it)."""
-    if "compiling" in _told:
-        return
-    try:
-        cached = bool(mod.run_cycle._cache._cache_file._load_index())
-    except Exception:  # noqa: BLE001 - numba internals: no notice rather than a failure
-        return
-    if not cached:
-        _notice("compiling", "compiling the cycle loop for this machine (once after installing; about 10-20 s)")
-    _told.add("compiling")
-
-
 def _b(x, B) -> np.ndarray:
     return np.array(np.broadcast_to(np.asarray(x, dtype=float), (B,)), dtype=float)  # a writable copy
 
@@ -145,18 +133,22 @@ def _cw(a, dtype=float) -> np.ndarray:
 
 
 PHYSICS = {
-    "burn": ("rate", "start_deg", "combustion_efficiency", "states", "derivatives"),
-    "heat_transfer": ("coefficient", "heat_flow", "states", "derivatives"),
-    "blowby": ("mass_flow", "states", "derivatives"),
-    "valve_flow": ("mass_flows", "flow_area", "states", "derivatives"),
-    "boundary": ("intake", "exhaust", "states", "derivatives"),
-    "knock": ("states", "derivatives"),
+    "burn": ("rate", "start_deg", "combustion_efficiency"),
+    "heat_transfer": ("coefficient", "heat_flow"),
+    "blowby": ("mass_flow",),
+    "valve_flow": ("mass_flows", "flow_area"),
+    "boundary": ("intake", "exhaust"),
+    "knock": (),
 }
-"""The methods whose arithmetic a compiled form stands for, per role."""
+"""The methods whose arithmetic a compiled form stands for, per role (a model's own states are
+compiled from its ``state_kernel``, :func:`states_compile`)."""
 
 
-KERNEL_METHODS = {"burn": ("rate",), "heat_transfer": ("coefficient", "heat_flow")}
+KERNEL_METHODS = {"burn": ("rate",), "heat_transfer": ("coefficient", "heat_flow"), "blowby": ("mass_flow",)}
 """The role methods a kernel stands for (a model that overrides them is not its kernel)."""
+KERNEL_FORMS = {("heat_transfer", "heat_flow_kernel"): ("heat_flow",)}
+"""Other kernels a role may give, by (role, class attribute), and the methods each stands for
+(checked before the role's ``kernel``)."""
 
 
 def compiled_form(model) -> str | None:
@@ -173,10 +165,16 @@ def compiled_form(model) -> str | None:
 
 def form_of_class(cls) -> str | None:
     """:func:`compiled_form` of a submodel class."""
-    from .loopgen import kernel_of
+    from .loopgen import kernel_of, state_kernel_of
     from .roles import ROLE_BASES
 
     role = cls.role
+    if role in PHYSICS and not PHYSICS[role] and state_kernel_of(cls) is not None:
+        return "kernel" if states_compile(cls) else None      # a role of states only (knock)
+    for (r, attr), methods in KERNEL_FORMS.items():
+        if r == role and kernel_of(cls, attr) is not None:
+            base = ROLE_BASES[role]
+            return attr if all(getattr(cls, n) is getattr(base, n) for n in methods) else None
     if role in KERNEL_METHODS and kernel_of(cls) is not None:
         base = ROLE_BASES[role]
         if all(getattr(cls, n) is getattr(base, n) for n in KERNEL_METHODS[role]):
@@ -192,16 +190,30 @@ def form_of_class(cls) -> str | None:
     return form
 
 
+def states_compile(cls) -> bool:
+    """Whether a class's own states run compiled: it gives a ``state_kernel`` and its
+    ``derivatives()`` is that kernel's (defined in the class that gives the kernel or above it,
+    so a subclass that overrides ``derivatives()`` alone runs on the Python path)."""
+    from .loopgen import state_kernel_of
+
+    if state_kernel_of(cls) is None:
+        return False
+    owner_k = next(c for c in cls.__mro__ if "state_kernel" in vars(c))
+    owner_d = next(c for c in cls.__mro__ if "derivatives" in vars(c))
+    return owner_d in owner_k.__mro__
+
+
 def loop_status(cls) -> str:
     """How a submodel class runs, for ``cyclesim plugins``: compiled (and by which form), or on
     the numpy loop, or outside the cycle loop."""
     if cls.role not in PHYSICS:
         return "outside the cycle loop (evaluated once per case after it)"
     form = form_of_class(cls)
-    if form == "kernel":
-        from .loopgen import kernel_of
+    if form in ("kernel", "heat_flow_kernel"):
+        from .loopgen import kernel_of, state_kernel_of
 
-        return f"compiled: a loop generated from its kernel {kernel_of(cls).__name__}()"
+        fns = [f for f in (kernel_of(cls, form), state_kernel_of(cls)) if f is not None]
+        return f"compiled: a loop generated from its kernel {', '.join(f.__name__ + '()' for f in fns)}"
     if form is not None:
         return f"compiled (form {form!r})"
     return "numpy loop (no compiled form: give a kernel, see DEVELOPERS.md)"
@@ -221,14 +233,17 @@ def why_not(batch, rhs) -> str | None:
     if getattr(batch.gas, "_compiled_consts", None) is None:
         reasons.append("gas properties are not the built-in tables")
     for role, model, sv in rhs.sub_specs:
-        if mod is not None and (role, sv.name) not in mod.STATES and not any(role in r for r in reasons):
-            reasons.append(f"state {role}.{sv.name} has no compiled form")
+        if not states_compile(type(model)) and not any(r.startswith(f"{role} ") for r in reasons):
+            reasons.append(f"state {role}.{sv.name} has no compiled form (give a state_kernel)")
     return "; ".join(reasons) or None
 
 
-def _packed(model, names: tuple[str, ...], B: int) -> dict[str, np.ndarray]:
-    """A model's ``pack()``, checked against the parameter names its compiled form declares."""
+def _packed(model, names: tuple[str, ...], B: int, form: str) -> dict[str, np.ndarray]:
+    """A model's ``pack()``, checked against the parameter names its compiled form declares (a
+    kernel's: those of the model's ``pack()`` its kernels read)."""
     got = dict(model.pack()) if names else {}
+    if form in ("kernel", "heat_flow_kernel"):
+        got = {k: v for k, v in got.items() if k in names}
     if set(got) != set(names):
         from .errors import PluginError
 
@@ -274,25 +289,17 @@ class Compiled:
                 self.PI, self.PE = (_cw(a) for a in m["boundary"].pressures_at(half))
         P = np.zeros((mod.N_P, B))
         IC = np.zeros(mod.N_IC, dtype=np.int64)
+        from .loopgen import param_rows_for
+
+        parts = loop_parts(batch, rhs)
         for role in ("burn", "heat_transfer", "blowby", "knock"):
             form = compiled_form(m[role])
-            IC[mod.IC_ROWS[role]] = mod.CODES[role][form]
-            if form == "kernel":
-                from .loopgen import kernel_of, param_rows_for
-
-                rows = param_rows_for(role, kernel_of(type(m[role])), tuple(m[role].pack()), mod.PARAM_ROWS)
-            else:
-                rows = mod.PARAM_ROWS[role, form]
-            for name, v in _packed(m[role], tuple(rows), B).items():
+            rows = param_rows_for(role, parts, mod.PARAM_ROWS, form)
+            for name, v in _packed(m[role], tuple(rows), B, form).items():
                 P[rows[name]] = v
-        from .layout import CORE
-
         self.reset = np.zeros((2, rhs.n))
-        for state in mod.STATES:
-            IC[mod.IC_ROWS[".".join(state)]] = -1
         for k, (role, model, sv) in enumerate(rhs.sub_specs):
-            row = len(CORE) + k
-            IC[mod.IC_ROWS[f"{role}.{sv.name}"]] = row
+            row = rhs.names.index(f"{role}.{sv.name}")
             if sv.reset_at_ivc:
                 if isinstance(sv.initial, str):
                     self.reset[0, row] = 1.0          # the cylinder temperature ("T_ivc")
@@ -339,7 +346,7 @@ class Compiled:
         n_thr = min(threads(), B // MIN_CASES_PER_THREAD)
         if self.broken:
             return False
-        if mod is not _mod and not self.ready:
+        if not self.ready:
             # a generated loop compiles on its first call: on one range, so that a kernel numba
             # cannot compile sends the batch to the Python path instead of failing it
             try:
@@ -349,7 +356,7 @@ class Compiled:
                     raise
                 self.broken = True
                 first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-                _notice(f"kernel:{mod.__name__}", f"a plug-in's kernel does not compile ({first}); this batch"
+                _notice(f"kernel:{mod.__name__}", f"a model's kernel does not compile ({first}); this batch"
                                                  f" runs on the numpy loop ({FALLBACK_SLOWDOWN})")
                 return False
             self.ready = True
@@ -396,7 +403,7 @@ def loop_for(batch, rhs) -> tuple[object, str]:
     reason = why_not(batch, rhs)
     generated = False
     if reason is None:
-        mod, reason = _generated(batch, mod)
+        mod, reason = _generated(batch, rhs, mod)
         generated = reason is not None
     if reason is not None:
         if choice() == "compiled":
@@ -406,28 +413,49 @@ def loop_for(batch, rhs) -> tuple[object, str]:
             _notice(reason, f"{reason}: this batch runs on the numpy loop ({FALLBACK_SLOWDOWN} than the"
                             " compiled loop of the built-in submodels)")
         return None, f"numpy ({reason})"
-    if mod is _mod:
-        _compile_notice(mod)
     return mod, "compiled"
 
 
-def _generated(batch, mod):
-    """The loop module for the batch: the built-in one, or one generated for its kernels
-    (:mod:`cyclesim.loopgen`); and the reason where a kernel cannot go into one."""
-    from .loopgen import LoopGenError, kernel_of, module_for
+def loop_parts(batch, rhs) -> tuple:
+    """The functions of the batch's generated loop (:class:`cyclesim.loopgen.Part`): each role's
+    kernel and each model's state kernel, with the rows of that model's states (from the state
+    layout, ``rhs.names``)."""
+    from .loopgen import Part, kernel_of, state_kernel_of
 
-    kernels = {role: (kernel_of(type(model)), tuple(model.pack())) for role, model in batch.models.items()
-               if compiled_form(model) == "kernel"}
-    if not kernels:
-        return mod, None
+    parts = []
+    own: dict = {}
+    for role, model, sv in rhs.sub_specs:
+        own.setdefault(role, []).append((sv.name, rhs.names.index(f"{role}.{sv.name}")))
+    for role, model in batch.models.items():
+        if role not in PHYSICS:
+            continue
+        form = compiled_form(model)
+        kernel_form = form in ("kernel", "heat_flow_kernel") and role in KERNEL_METHODS
+        packed = tuple(model.pack()) if (kernel_form or own.get(role)) else ()
+        if kernel_form:
+            parts.append(Part(role, form, kernel_of(type(model), form), packed, own.get(role, ())))
+        if own.get(role):
+            rows = own[role]
+            parts.append(Part(role, "state", state_kernel_of(type(model)), packed, rows, [r for _, r in rows]))
+    return tuple(parts)
+
+
+def _generated(batch, rhs, mod):
+    """The loop module for the batch: the built-in one, or one generated for its kernels and state
+    kernels (:mod:`cyclesim.loopgen`); and the reason where they cannot go into one."""
+    from .loopgen import LoopGenError, module_for
+
     try:
-        gen, fresh = module_for(kernels)
+        parts = loop_parts(batch, rhs)
+        forms = {p.role: compiled_form(batch.models[p.role]) for p in parts}
+        gen, fresh = module_for(parts, {r: f for r, f in forms.items() if f not in ("kernel", "heat_flow_kernel")})
     except LoopGenError as exc:
         return None, f"{exc}"
     import numba
 
     if (fresh or not _cached(gen)) and not numba.config.DISABLE_JIT:
-        names = ", ".join(f"{r} model {batch.models[r].name!r}" for r in kernels)
+        names = ", ".join(f"{r} model {batch.models[r].name!r}" for r in dict.fromkeys(p.role for p in parts)) \
+            or "the chosen models"
         _notice(f"compiling:{gen.__name__}", f"compiling the cycle loop for {names} (once per combination of"
                                             " models and kernel source; about 10-30 s)")
     return gen, None

@@ -31,7 +31,8 @@ CACHE_ENV = "CYCLESIM_CACHE_DIR"
 
 ROLES = ("burn", "heat_transfer")
 """Roles whose models may give a kernel: the burn rate [1/deg] and the wall heat-transfer
-coefficient [W/(m^2 K)]."""
+coefficient [W/(m^2 K)].  A model of any role with states of its own may give a
+``state_kernel``: their time derivatives."""
 
 STATE_ARGS = {
     # kernel argument (a GasState field) -> the loop's local expression (cyclesim._compiled._rhs)
@@ -41,6 +42,7 @@ STATE_ARGS = {
     "T_wall_head": "CB[R_TW_HEAD, b]", "T_wall_piston": "CB[R_TW_PISTON, b]",
     "T_wall_liner": "CB[R_TW_LINER, b]",
     "p_ivc": "CB[R_IVC_P, b]", "T_ivc": "CB[R_IVC_T, b]", "V_ivc": "CB[R_IVC_V, b]",
+    "gas": "(uc4, b, gc[7])",
 }
 """What a kernel may take from the cylinder state, by the name of the GasState field [SI]; an
 argument that the model's ``pack()`` gives is that parameter instead (pack() names come first,
@@ -51,9 +53,9 @@ class LoopGenError(Exception):
     """A kernel that cannot go into a generated loop (the batch then runs on the Python path)."""
 
 
-def kernel_of(cls):
-    """The plain function a submodel class gives as its ``kernel``, or None."""
-    k = inspect.getattr_static(cls, "kernel", None)
+def kernel_of(cls, attr: str = "kernel"):
+    """The plain function a submodel class gives as its ``kernel`` (or as ``attr``), or None."""
+    k = inspect.getattr_static(cls, attr, None)
     if isinstance(k, staticmethod):
         k = k.__func__
     return k if isinstance(k, types.FunctionType) else None
@@ -80,33 +82,33 @@ def _kernel_args(fn) -> tuple[str, ...]:
     return tuple(out)
 
 
-def own_states(role: str) -> tuple[str, ...]:
-    """Submodel state components of ``role`` that the compiled loop integrates
-    (:data:`cyclesim._compiled.STATES`): a kernel of that role may take them by name."""
-    from ._compiled import STATES
-
-    return tuple(name for r, name in STATES if r == role)
+def state_kernel_of(cls):
+    """The plain function a submodel class gives as its ``state_kernel``, or None."""
+    return kernel_of(cls, "state_kernel")
 
 
-def kernel_params(fn, packed, role: str = "") -> tuple[str, ...]:
+def kernel_params(fn, packed, own=()) -> tuple[str, ...]:
     """The kernel's arguments that are packed parameters (named in ``packed``, the model's
     ``pack()``); every other argument must be a cylinder-state name (:data:`STATE_ARGS`) or
-    one of its role's integrated states (:func:`own_states`)."""
+    one of the model's own integrated states (the names in ``own``)."""
     args = kernel_args(fn)
-    known = set(STATE_ARGS) | set(own_states(role) if role else ())
+    own = () if isinstance(own, str) else own      # a role name (the earlier third argument): no states
+    known = set(STATE_ARGS) | set(own)
     unknown = [a for a in args if a not in packed and a not in known]
     if unknown:
+        own_text = f"; the model's states: {', '.join(own)}" if own else ""
         raise LoopGenError(f"kernel {fn.__name__}: argument(s) {', '.join(unknown)} are neither given by pack()"
-                           f" nor a state field ({', '.join(STATE_ARGS)})")
+                           f" nor a state field ({', '.join(STATE_ARGS)}){own_text}")
     return tuple(a for a in args if a in packed)
 
 
-def call_on(fn, state, packed, role: str = ""):
+def call_on(fn, state, packed, role: str = "", gas=None):
     """The kernel on the Python path: parameters from ``packed`` (the model's ``pack()``),
-    the role's own states from ``state.sub``, the other arguments from ``state`` (a GasState)."""
+    the model's own states from ``state.sub`` (by ``role.name``), the other arguments from
+    ``state`` (a GasState; ``gas`` where the state carries no gas tables)."""
     sub = getattr(state, "sub", None) or {}
     return fn(*[packed[a] if a in packed else sub[f"{role}.{a}"] if f"{role}.{a}" in sub
-                else getattr(state, a) for a in kernel_args(fn)])
+                else getattr(state, a, gas) if a == "gas" else getattr(state, a) for a in kernel_args(fn)])
 
 
 def _source(fn) -> str:
@@ -122,20 +124,31 @@ def _source(fn) -> str:
     return "\n".join(lines) + "\n"
 
 
+_GLOBAL_NAMES: dict = {}
+
+
 def _globals_read(fn) -> dict:
     """The module globals the function's code loads (LOAD_GLOBAL, nested code included), by name;
-    builtins (abs, min, ...) are left to numba."""
+    builtins (abs, min, ...) are left to numba.  The names are found once per code object, their
+    values read at each call (a changed global is seen)."""
+    names = _GLOBAL_NAMES.get(fn.__code__)
+    if names is None:
+        names = _GLOBAL_NAMES[fn.__code__] = _global_names(fn.__code__)
+    return {n: fn.__globals__[n] for n in names if n in fn.__globals__}
+
+
+def _global_names(code) -> tuple:
     import dis
 
     names: set = set()
-    codes = [fn.__code__]
+    codes = [code]
     while codes:
         code = codes.pop()
         for ins in dis.get_instructions(code):
             if ins.opname == "LOAD_GLOBAL":
                 names.add(ins.argval)
         codes += [c for c in code.co_consts if isinstance(c, types.CodeType)]
-    return {n: fn.__globals__[n] for n in names if n in fn.__globals__}
+    return tuple(sorted(names))
 
 
 def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
@@ -155,8 +168,8 @@ def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
             if val.__name__ not in ("numpy", "math"):
                 raise LoopGenError(f"kernel {fn.__name__}: reads module {val.__name__!r}; only numpy and math compile")
             imports[name] = val.__name__
-        elif val is kernel_ops.where:
-            imports[name] = "cyclesim.kernel_ops.where"
+        elif val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above):
+            imports[name] = f"cyclesim.kernel_ops.{val.__name__}"
         elif isinstance(val, types.FunctionType):
             _collect(val, funcs, consts, imports)
         elif isinstance(val, (bool, int, float)) and not isinstance(val, type):
@@ -168,27 +181,80 @@ def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
                                " (only numbers, tuples of numbers, numpy, math and plain functions compile)")
 
 
-def _call(role: str, fn, rows: dict[str, int], target: str) -> str:
-    from ._compiled import IC_ROWS
+INLINE_MAX_ARGS = 28
+"""Functions of more arguments are compiled as calls, not inlined by numba (its ``inline="always"``
+fails for a function of 30 or more arguments: measured with numba 0.68)."""
 
+KERNEL_SITES_FORMS = ("kernel", "heat_flow_kernel")
+"""Compiled forms whose packed parameters fill the role's kernel slots in the order the
+functions name them."""
+
+
+class Part(tuple):
+    """One function of a generated loop: ``(role, kind, fn, packed, own, out)``.
+
+    ``kind`` is ``"kernel"`` (the role's kernel, called where the loop computes that role) or
+    ``"state"`` (a state kernel: the time derivatives of the model's states); ``packed`` the
+    names of the model's ``pack()``; ``own`` the model's states as ``((name, row), ...)``;
+    ``out`` the rows a state kernel's results go to, in the order of ``states()``."""
+
+    __slots__ = ()
+
+    def __new__(cls, role, kind, fn, packed, own=(), out=()):
+        return super().__new__(cls, (role, kind, fn, tuple(packed), tuple(own), tuple(out)))
+
+    role = property(lambda self: self[0])
+    kind = property(lambda self: self[1])
+    fn = property(lambda self: self[2])
+    packed = property(lambda self: self[3])
+    own = property(lambda self: self[4])
+    out = property(lambda self: self[5])
+
+
+def param_rows_for(role: str, parts, forms_rows: dict, form: str = "kernel") -> dict[str, int]:
+    """Row offsets (from R_P) of the packed parameters the role's functions in ``parts`` read:
+    for the form ``kernel`` the role's kernel slots in the order the functions name them; for a
+    named form its declared rows, which must hold every name a state kernel reads."""
+    names: list = []
+    for part in parts:
+        if part.role == role:
+            for n in kernel_params(part.fn, part.packed, dict(part.own)):
+                if n not in names:
+                    names.append(n)
+    if form not in KERNEL_SITES_FORMS:
+        rows = forms_rows[role, form]
+        missing = [n for n in names if n not in rows]
+        if missing:
+            raise LoopGenError(f"{role}: the state kernel reads {', '.join(missing)}, which the compiled form"
+                               f" {form!r} does not pack")
+        return dict(rows)
+    slots = list(forms_rows[role, form].values())
+    if len(names) > len(slots):
+        fns = ", ".join(p.fn.__name__ for p in parts if p.role == role)
+        raise LoopGenError(f"kernel {fns}: {len(names)} parameters, at most {len(slots)} compile")
+    return {n: slots[k] for k, n in enumerate(names)}
+
+
+def _call(part: Part, rows: dict[str, int]) -> str:
+    own = dict(part.own)
     args = []
-    for a in kernel_args(fn):
-        if a in rows:
+    for a in kernel_args(part.fn):
+        if a in rows and a in part.packed:
             args.append(f"CB[R_P + {rows[a]}, b]")
-        elif a in own_states(role):
-            args.append(f"yv[IC[{IC_ROWS[f'{role}.{a}']}]]")     # the state's row, set per batch
+        elif a in own:
+            args.append(f"yv[{own[a]}]")          # the state's row, a constant of this loop
         else:
             args.append(STATE_ARGS[a])
-    return f"{target}({', '.join(args)})"
+    return f"{part.fn.__name__}({', '.join(args)})"
 
 
-def param_rows_for(role: str, fn, packed, forms_rows: dict) -> dict[str, int]:
-    """Row offsets (from R_P) of the kernel's packed parameters: the role's kernel slots in order."""
-    slots = list(forms_rows[role, "kernel"].values())
-    names = kernel_params(fn, packed, role)
-    if len(names) > len(slots):
-        raise LoopGenError(f"kernel {fn.__name__}: {len(names)} parameters, at most {len(slots)} compile")
-    return {n: slots[k] for k, n in enumerate(names)}
+def _state_lines(k: int, part: Part, rows: dict[str, int]) -> list[str]:
+    """The loop's lines for a state kernel: its call, each result times dt into its row."""
+    out = part.out
+    names = [f"_sd{k}_{j}" for j in range(len(out))]
+    lines = [f"    {', '.join(names)} = {_call(part, rows)}"]
+    lines += [f"    out[{r}] = {n} * dt" for n, r in zip(names, out)]
+    return lines
 
 
 def cache_dir() -> Path:
@@ -230,33 +296,87 @@ def _fingerprint(fn, seen=None) -> tuple:
 _generated: dict = {}
 
 
-def generate(kernels: dict) -> tuple[str, str]:
-    """(key, module source) of the loop for ``kernels`` (role -> (function, pack() names)).
+def _as_parts(parts) -> tuple:
+    """``parts`` as a tuple of :class:`Part`; a dict role -> (kernel, pack() names), the earlier
+    form of the argument, gives those roles' kernels."""
+    if isinstance(parts, dict):
+        return tuple(Part(role, "kernel", fn, names) for role, (fn, names) in parts.items())
+    return tuple(parts)
 
-    Remembered in the process by a fingerprint of the kernels (code objects and the values of
+
+def _memo(parts) -> tuple:
+    return tuple((p.role, p.kind, p.packed, p.own, p.out, _fingerprint(p.fn)) for p in parts)
+
+
+def generate(parts, forms: dict | None = None) -> tuple[str, str]:
+    """(key, module source) of the loop for ``parts`` (:class:`Part`; ``forms``: role -> the
+    compiled form of a role whose state kernel reads a named form's parameters, default
+    ``kernel``).
+
+    Remembered in the process by a fingerprint of the functions (code objects and the values of
     the globals they read), so a repeated batch does not read sources again.
     """
-    memo = tuple((role, kernels[role][1], _fingerprint(kernels[role][0])) for role in ROLES if role in kernels)
+    parts = _as_parts(parts)
+    forms = dict(forms or {})
+    memo = (_memo(parts), tuple(sorted(forms.items())))
     got = _generated.get(memo)
     if got is None:
-        got = _generated[memo] = _generate(kernels)
+        got = _generated[memo] = _generate(parts, forms)
     return got
 
 
-def _generate(kernels: dict) -> tuple[str, str]:
+KERNEL_MARKERS = {"burn": "burn_kernel(theta)  # KERNEL CALL burn",
+                  "heat_transfer": "heat_flow_kernel(T)  # KERNEL CALL heat_transfer",
+                  "blowby": "blowby_kernel(p)  # KERNEL CALL blowby"}
+"""The call site of each role's kernel in :func:`cyclesim._compiled._rhs` (the value of that
+role there: a burn rate [1/deg], a wall heat flow [W], a blowby mass flow [kg/s]); a role whose
+model gives no kernel (form ``none``) gets 0 there."""
+KERNEL_SITES = {("burn", "kernel"): "{call}",
+                ("heat_transfer", "kernel"): "wall_heat_flow({call}, T, Ah, Ap, Al, CB[R_TW_HEAD, b],"
+                                             " CB[R_TW_PISTON, b], CB[R_TW_LINER, b])",
+                ("heat_transfer", "heat_flow_kernel"): "{call}",
+                ("blowby", "kernel"): "{call}"}
+"""What goes at a role's call site for each kind of kernel: a heat-transfer coefficient kernel's
+value times the wall areas and temperature differences (:func:`cyclesim.roles.wall_heat_flow`)."""
+STATE_MARKER = "    pass  # STATE KERNEL CALLS"
+"""Where the state kernels' calls go in :func:`cyclesim._compiled._rhs`."""
+
+
+def template_functions() -> tuple:
+    """The functions the loop's template (:func:`cyclesim._compiled._rhs`) calls besides the
+    models' kernels, written into every generated loop from their one source: the orifice flow
+    of the valves, the port buffer, the burned mass and the first law (:mod:`cyclesim.balance`)."""
+    from .balance import burned_mass_rate, exhaust_inflow, first_law, port_buffer
+    from .flow import orifice_flow
+
+    return (orifice_flow, port_buffer, exhaust_inflow, first_law, burned_mass_rate)
+
+
+def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
     from . import _compiled as base
 
     funcs: dict = {}
     consts: dict = {}
     imports: dict = {}
     calls = {}
-    for role in ROLES:
-        if role not in kernels:
-            continue
-        fn, packed = kernels[role]
+    states: list[str] = []
+    rows = {role: param_rows_for(role, parts, base.PARAM_ROWS, forms.get(role, "kernel"))
+            for role in dict.fromkeys(p.role for p in parts)}
+    for fn in template_functions():
         _collect(fn, funcs, consts, imports)
-        rows = param_rows_for(role, fn, packed, base.PARAM_ROWS)
-        calls[role] = _call(role, fn, rows, fn.__name__)
+    for k, part in enumerate(parts):
+        _collect(part.fn, funcs, consts, imports)
+        if part.kind != "state":
+            site = KERNEL_SITES.get((part.role, part.kind))
+            if site is None:
+                raise LoopGenError(f"the compiled loop has no call site for a {part.role} {part.kind}")
+            calls[part.role] = site.format(call=_call(part, rows[part.role]))
+            if "wall_heat_flow(" in site:
+                from .roles import wall_heat_flow
+
+                _collect(wall_heat_flow, funcs, consts, imports)
+        else:
+            states += _state_lines(k, part, rows[part.role])
     own = vars(base)
     # a constant the loop's module defines alike (CYCLE_END_DEG) is the loop's own: not written again
     consts = {n: v for n, v in consts.items()
@@ -265,18 +385,20 @@ def _generate(kernels: dict) -> tuple[str, str]:
     clash |= {n for n, target in imports.items() if n in own and getattr(own[n], "__name__", None) != target}
     if clash:
         raise LoopGenError(f"kernel names {sorted(clash)} clash with the compiled loop's own names; rename them")
-    rhs = textwrap.dedent(inspect.getsource(base._rhs.py_func))
-    for role, marker in (("burn", "burn_kernel(theta)  # KERNEL CALL burn"),
-                         ("heat_transfer", "heat_transfer_kernel(T)  # KERNEL CALL heat_transfer")):
+    rhs = textwrap.dedent(inspect.getsource(base._rhs))
+    for role, marker in KERNEL_MARKERS.items():
         if marker not in rhs:
             raise LoopGenError(f"the compiled loop has no call site for the {role} kernel")
-        if role in calls:
-            rhs = rhs.replace(marker, calls[role])
-    cycle = textwrap.dedent(inspect.getsource(base.run_cycle.py_func))
+        rhs = rhs.replace(marker, calls.get(role, "0.0"))
+    if STATE_MARKER not in rhs:
+        raise LoopGenError("the compiled loop has no call site for state kernels")
+    rhs = rhs.replace(STATE_MARKER, "\n".join(states) or STATE_MARKER)
+    cycle = textwrap.dedent(inspect.getsource(base.run_cycle))
     private = sorted(n for n, v in vars(base).items()
                      if n.startswith("_") and not n.startswith("__") and hasattr(v, "py_func"))
-    parts = [
-        f'"""Cycle loop generated by cyclesim.loopgen for the kernels {", ".join(f.__name__ for f, _ in kernels.values())}."""',
+    names = ", ".join(dict.fromkeys(p.fn.__name__ for p in parts)) or "none"
+    parts_text = [
+        f'"""Cycle loop generated by cyclesim.loopgen for the kernels {names}."""',
         "import math",
         "import numpy as np",
         "from numba import njit",
@@ -286,16 +408,17 @@ def _generate(kernels: dict) -> tuple[str, str]:
         f"from cyclesim._compiled import {', '.join(private)}  # noqa: F401",
     ]
     for name, target in sorted(imports.items()):
-        mod, _, attr = target.rpartition(".") if target.endswith(".where") else (target, "", "")
-        parts.append(f"from {mod} import {attr} as {name}" if attr else f"import {target} as {name}")
-    parts += [f"{n} = {v}" for n, v in sorted(consts.items())]
+        mod, _, attr = target.rpartition(".") if target.startswith("cyclesim.kernel_ops.") else (target, "", "")
+        parts_text.append(f"from {mod} import {attr} as {name}" if attr else f"import {target} as {name}")
+    parts_text += [f"{n} = {v}" for n, v in sorted(consts.items())]
     for name, (fn, src) in funcs.items():
-        parts.append('\n@njit(cache=True, inline="always", error_model="numpy")\n' + src)
-    parts.append('\n@njit(cache=True, error_model="numpy")\n' + rhs.split("\n", 1)[1] if rhs.startswith("@")
-                 else '\n@njit(cache=True, error_model="numpy")\n' + rhs)
-    parts.append('\n@njit(cache=True, nogil=True, error_model="numpy")\n'
-                 + (cycle.split("\n", 1)[1] if cycle.startswith("@") else cycle))
-    text = "\n".join(parts) + "\n"
+        inline = ', inline="always"' if fn.__code__.co_argcount <= INLINE_MAX_ARGS else ""
+        parts_text.append(f'\n@njit(cache=True{inline}, error_model="numpy")\n' + src)
+    parts_text.append('\n@njit(cache=True, error_model="numpy")\n' + rhs.split("\n", 1)[1] if rhs.startswith("@")
+                      else '\n@njit(cache=True, error_model="numpy")\n' + rhs)
+    parts_text.append('\n@njit(cache=True, nogil=True, error_model="numpy")\n'
+                      + (cycle.split("\n", 1)[1] if cycle.startswith("@") else cycle))
+    text = "\n".join(parts_text) + "\n"
     h = hashlib.sha256()
     h.update(VERSION.encode())
     h.update(Path(base.__file__).read_bytes())
@@ -307,7 +430,7 @@ def _generate(kernels: dict) -> tuple[str, str]:
 _loaded: dict = {}
 
 
-def _quick_key(kernels: dict) -> str:
+def _quick_key(parts: tuple, forms: dict) -> str:
     """A cheap hash of what the loop depends on (the kernels' compiled code objects, the values of
     the globals they read, this module's and the compiled loop's files), naming an index entry
     that points at the loop's file: a new process finds its loop without reading any source."""
@@ -330,23 +453,28 @@ def _quick_key(kernels: dict) -> str:
         else:
             h.update(repr(x).encode())
 
-    for role in ROLES:
-        if role in kernels:
-            fn, names = kernels[role]
-            feed((role, names, _fingerprint(fn)))
+    from .roles import wall_heat_flow
+
+    feed(_memo(parts))
+    feed(tuple(sorted(forms.items())))
+    # written into the loop as well: the template's functions, a coefficient kernel's wall heat flow
+    for fn in template_functions() + (wall_heat_flow,):
+        feed(_fingerprint(fn))
     return h.hexdigest()[:24]
 
 
-def module_for(kernels: dict):
-    """The generated loop module for ``kernels`` (role -> (function, pack() names)): written on first use, then
+def module_for(parts, forms: dict | None = None):
+    """The generated loop module for ``parts`` (:func:`generate`): written on first use, then
     loaded from the cache folder; ``(module, freshly_written)``."""
+    parts = _as_parts(parts)
+    forms = dict(forms or {})
     d = cache_dir()
-    index = d / "index" / _quick_key(kernels)
+    index = d / "index" / _quick_key(parts, forms)
     key = index.read_text().strip() if index.is_file() else ""
     if key and key in _loaded:
         return _loaded[key], False
     if not key or not (d / f"loop_{key}.py").is_file():
-        key, text = generate(kernels)
+        key, text = generate(parts, forms)
         if key in _loaded:
             return _loaded[key], False
     d.mkdir(parents=True, exist_ok=True)

@@ -131,6 +131,9 @@ class GasState:
     sub : dict[str, ndarray]
         Submodel state components by ``"role.name"``.
     geometry : cyclesim.geometry.Geometry
+    gas : cyclesim.thermo.GasTables
+        The batch's gas properties; a kernel takes it as the argument ``gas`` and reads the
+        fresh charge through ``cyclesim.kernel_ops.fresh_charge(gas, T)``.
     """
 
     __slots__ = (
@@ -141,7 +144,7 @@ class GasState:
         "p_int", "T_int", "R_int", "gamma_int", "y_b_int",
         "p_exh", "T_exh", "R_exh", "gamma_exh",
         "mdot_int", "mdot_exh", "mdot_blowby", "Qdot_wall",
-        "sub", "geometry",
+        "sub", "geometry", "gas",
     )
 
     def __init__(self, **kw: Any) -> None:
@@ -164,18 +167,33 @@ class ParamValues(SimpleNamespace):
         raise AttributeError(f"{self._owner} has no parameter {name!r}; declared: {declared}")
 
 
-def _kernel_call(model, s: GasState):
-    """A model's kernel on the Python path (arrays (B,)), its parameters from ``pack()`` (once)."""
+def wall_heat_flow(h, T, A_head, A_piston, A_liner, T_wall_head, T_wall_piston, T_wall_liner):
+    """Heat flow from the gas to the walls [W] for one coefficient h [W/(m^2 K)] on head, piston and
+    liner, ``h sum A (T - T_wall)`` (Newton's law of cooling, common practice); kernel form."""
+    return h * (A_head * (T - T_wall_head) + A_piston * (T - T_wall_piston) + A_liner * (T - T_wall_liner))
+
+
+def _kernel_call(model, s: GasState, attr: str = "kernel"):
+    """A model's kernel (the class attribute ``attr``) on the Python path (arrays (B,)), its
+    parameters from ``pack()`` (once)."""
     from .loopgen import call_on, kernel_of
 
-    fn = kernel_of(type(model))
+    fn = kernel_of(type(model), attr)
     if fn is None:
         raise NotImplementedError(f"{model.role} model {model.name!r} defines neither the method nor a kernel")
+    gas = getattr(model.ctx, "gas", None)
+    if np.geterr()["invalid"] == "ignore":       # the cycle loop's own setting: no second context
+        return call_on(fn, s, _packed_once(model), model.role, gas)
+    with np.errstate(invalid="ignore", divide="ignore"):   # a kernel is branch-free: masked values may be NaN
+        return call_on(fn, s, _packed_once(model), model.role, gas)
+
+
+def _packed_once(model) -> dict:
+    """The model's ``pack()``, computed once per model."""
     packed = model.__dict__.get("_packed_kernel")
     if packed is None:
         packed = model.__dict__["_packed_kernel"] = dict(model.pack())
-    with np.errstate(invalid="ignore", divide="ignore"):   # a kernel is branch-free: masked values may be NaN
-        return call_on(fn, s, packed, model.role)
+    return packed
 
 
 class Submodel:
@@ -251,9 +269,39 @@ class Submodel:
         """State components this submodel integrates (default: none)."""
         return ()
 
+    state_kernel: ClassVar[Any] = None
+    """The time derivatives [unit/s] of the components of :meth:`states` as a plain function of
+    named arguments (as :attr:`BurnRate.kernel`: packed parameters from :meth:`pack` by name,
+    cylinder-state fields by their GasState name, this model's own states by their declared
+    names), returning one value for one state or a tuple in the order of :meth:`states`; None:
+    the model gives :meth:`derivatives` only and runs on the Python path."""
+
     def derivatives(self, s: GasState) -> Mapping[str, np.ndarray]:
-        """Time derivatives [unit/s] of the components named in :meth:`states`."""
-        return {}
+        """Time derivatives [unit/s] of the components named in :meth:`states` (default: the
+        :attr:`state_kernel` on arrays, else none)."""
+        from .loopgen import call_on, state_kernel_of
+
+        fn = state_kernel_of(type(self))
+        if fn is None:
+            return {}
+        names = self.__dict__.get("_state_names")
+        if names is None:
+            names = self.__dict__["_state_names"] = [sv.name for sv in self.states()]
+        gas = getattr(self.ctx, "gas", None)
+        if np.geterr()["invalid"] == "ignore":   # the cycle loop's own setting: no second context
+            got = call_on(fn, s, _packed_once(self), self.role, gas)
+        else:
+            with np.errstate(invalid="ignore", divide="ignore"):   # branch-free: masked values may be NaN
+                got = call_on(fn, s, _packed_once(self), self.role, gas)
+        if len(names) == 1:
+            return {names[0]: got}
+        if not isinstance(got, tuple) or len(got) != len(names):
+            from .errors import PluginError
+
+            raise PluginError(f"{self.role} model {self.name!r}: state_kernel {fn.__name__}() returned"
+                              f" {type(got).__name__}, expected a tuple of {len(names)} values"
+                              f" ({', '.join(names)})")
+        return dict(zip(names, got))
 
     # -- optional end-of-run figures ----------------------------------
     def figures(self, trace: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
@@ -326,7 +374,7 @@ class WallHeatTransfer(Submodel):
     """Convective (and optionally radiative) heat transfer from gas to walls."""
 
     role = "heat_transfer"
-    required_methods = (("coefficient", "heat_flow", "kernel"),)
+    required_methods = (("coefficient", "heat_flow", "kernel", "heat_flow_kernel"),)
 
     kernel: ClassVar[Any] = None
     """The heat-transfer coefficient [W/(m^2 K)] as a plain function of named arguments (as
@@ -336,25 +384,33 @@ class WallHeatTransfer(Submodel):
         """Heat-transfer coefficient [W/(m^2 K)] (B,) (default: the kernel)."""
         return _kernel_call(self, s)
 
+    heat_flow_kernel: ClassVar[Any] = None
+    """The heat flow from gas to walls [W] as a plain function of named arguments (as
+    :attr:`kernel`), for a model whose flow is not one coefficient times the temperature
+    differences (radiation per surface); :meth:`heat_flow` calls it where given."""
+
     def heat_flow(self, s: GasState) -> np.ndarray:
-        """Heat flow from gas to walls [W] (B,), positive = gas loses heat."""
-        h = self.coefficient(s)
-        return h * (
-            s.A_head * (s.T - s.T_wall_head)
-            + s.A_piston * (s.T - s.T_wall_piston)
-            + s.A_liner * (s.T - s.T_wall_liner)
-        )
+        """Heat flow from gas to walls [W] (B,), positive = gas loses heat (default: the
+        :attr:`heat_flow_kernel` where given, else :func:`wall_heat_flow` of the coefficient)."""
+        if type(self).heat_flow_kernel is not None:
+            return _kernel_call(self, s, "heat_flow_kernel")
+        return wall_heat_flow(self.coefficient(s), s.T, s.A_head, s.A_piston, s.A_liner,
+                              s.T_wall_head, s.T_wall_piston, s.T_wall_liner)
 
 
 class RingLeakage(Submodel):
     """Leakage (blowby) past the ring pack to the crankcase."""
 
     role = "blowby"
-    required_methods = (("mass_flow",),)
+    required_methods = (("mass_flow", "kernel"),)
+
+    kernel: ClassVar[Any] = None
+    """The mass flow [kg/s] as a plain function of named arguments (as :attr:`BurnRate.kernel`),
+    or None; a model with a kernel need not define :meth:`mass_flow`."""
 
     def mass_flow(self, s: GasState) -> np.ndarray:
-        """Mass flow from cylinder to crankcase [kg/s] (B,), >= 0."""
-        raise NotImplementedError
+        """Mass flow from cylinder to crankcase [kg/s] (B,), >= 0 (default: the kernel)."""
+        return _kernel_call(self, s)
 
 
 class ValveFlow(Submodel):

@@ -54,6 +54,7 @@ from typing import Any
 
 import numpy as np
 
+from .balance import burned_mass_rate, exhaust_inflow, first_law, port_buffer
 from .errors import CyclesimError, PluginError, SolverError
 from .layout import CORE  # the state's names, declared once  # noqa: F401
 from .layout import CORE_ROWS as IDX  # noqa: F401
@@ -214,11 +215,11 @@ class _RHS:
     def _bad_state(self, theta: float, y: np.ndarray) -> np.ndarray:
         """Stop the cases whose mass is not positive or whose mass or temperature is not finite
         (within a step's stages too); a harmless stand-in state."""
-        bad = ~(np.isfinite(y[1]) & np.isfinite(y[0]) & (y[0] > 0.0))
+        bad = ~(np.isfinite(y[_T]) & np.isfinite(y[_M]) & (y[_M] > 0.0))
         for i in np.flatnonzero(bad & self.alive):
-            if np.isfinite(y[0, i]) and y[0, i] <= 0.0:
+            if np.isfinite(y[_M, i]) and y[_M, i] <= 0.0:
                 self.failed[i] = (f"solver: the cylinder emptied within a step at crank angle {theta:.2f} deg"
-                                  f" (mass {y[0, i]:.3g} kg): the flow through the valves changes the cylinder"
+                                  f" (mass {y[_M, i]:.3g} kg): the flow through the valves changes the cylinder"
                                   f" faster than the step resolves; reduce simulation.step_deg, or check the"
                                   f" valve areas and plenum pressures")
             else:
@@ -226,8 +227,8 @@ class _RHS:
                                   f" try a smaller simulation.step_deg")
         self.kill(bad)
         y = np.where(bad[None, :], 1.0, y)
-        y[1] = np.where(bad, 1000.0, y[1])
-        y[2] = y[2] * 0.5
+        y[_T] = np.where(bad, 1000.0, y[_T])
+        y[IDX["m_b"]] = y[IDX["m_b"]] * 0.5
         return y
 
     def __call__(self, theta: float, y: np.ndarray, geo: tuple, valves_open: bool = True) -> np.ndarray:
@@ -243,12 +244,12 @@ class _RHS:
         else:
             V, dV, Ah, Ap, Al, closed, burning, any_burn = geo
         # one product catches a non-finite mass or temperature of any case, the least mass an emptied one
-        if not math.isfinite(float(np.dot(y[0], y[1]))) or not float(y[0].min()) > 0.0:
+        if not math.isfinite(float(np.dot(y[_M], y[_T]))) or not float(y[_M].min()) > 0.0:
             y = self._bad_state(theta, y)
-        m = y[0]
-        T = y[1]
-        mb = y[2]
-        xb = y[3]
+        m = y[_M]
+        T = y[_T]
+        mb = y[IDX["m_b"]]
+        xb = y[IDX["x_b"]]
         B = self.B
         rho = m / V
         yb = np.minimum(np.maximum(mb / m, 0.0), 1.0)
@@ -312,6 +313,7 @@ class _RHS:
         s.mdot_int = s.mdot_exh = s.mdot_blowby = s.Qdot_wall = None
         s.sub = sub
         s.geometry = self.b.geometry
+        s.gas = self.gas
         stage = ("burn", "rate")
         try:
             # the rate only matters where a case burns (it is masked below)
@@ -350,68 +352,36 @@ class _RHS:
         out = np.zeros((self.n, B))
         mul = np.multiply
         if dxb is not None:
-            # burn: fraction of the *remaining* fresh charge, so blowby cannot burn charge twice
-            eta = self.eta_c
             dxb = np.where(burning, dxb, 0.0)
-            # the floor of the denominator keeps the rate bounded when x_b reaches 1 between grid
-            # points (it only slows the last 0.1 % of a burn)
-            dm_burn = eta * dxb / np.maximum(1.0 - eta * xb, 1e-3) * np.maximum(m - mb, 0.0)
-            out[3] = dxb
-            mul(dm_burn, self._dh298, out=out[15])
+            dm_burn = burned_mass_rate(self.eta_c, dxb, xb, m, mb)
+            out[IDX["x_b"]] = dxb
+            mul(dm_burn, self._dh298, out=out[IDX["Q_burn"]])
         else:
             dxb = dm_burn = self._zeros
-        fbb = mul(mbb, dt, out=out[6])
-        if flows and not mi.any():
-            # intake shut for every case: only the exhaust valves exchange gas
-            fe = mul(me, dt, out=out[12])
-            ine = fe > 0
-            yin_e = np.where(ine, 1.0, yb)
-            dHe = mul(fe, np.where(ine, h_e, h), out=out[13])
-            mul(fe, 1.0 - yin_e, out=out[14])
-            dm = fe - fbb
-            dmb = dm_burn + fe * yin_e - fbb * yb
-            dHflow = dHe
-        elif flows:
-            fi = mul(mi, dt, out=out[9])
-            fe = mul(me, dt, out=out[12])
-            inn = fi > 0
-            # intake-port buffer of backflowed gas: returns first (smooth share w); with an
-            # empty buffer w = 0 and the plenum gas alone comes in
-            mq = np.maximum(y[16], 0.0)
-            w = mq / (mq + self._buf_scale)
-            mq_safe = np.where(mq > 0, mq, 1.0)
-            yq = np.minimum(np.maximum(y[17] / mq_safe, 0.0), 1.0)
-            hq = y[18] / mq_safe
-            yin_i = np.where(inn, w * yq + (1.0 - w) * y_i, yb)
-            hin_i = np.where(inn, w * hq + (1.0 - w) * h_i, h)
-            wfi = w * fi
-            np.negative(np.where(inn, wfi, fi), out=out[16])      # >0 leaves the buffer; <0 enters
-            np.negative(np.where(inn, wfi * yq, fi * yb), out=out[17])
-            np.negative(np.where(inn, wfi * hq, fi * h), out=out[18])
-            ine = fe > 0
-            yin_e = np.where(ine, 1.0, yb)
-            hin_e = np.where(ine, h_e, h)
-            dm = fi + fe - fbb
-            dmb = dm_burn + fi * yin_i + fe * yin_e - fbb * yb
-            dHi = mul(fi, hin_i, out=out[10])
-            dHe = mul(fe, hin_e, out=out[13])
-            mul(fi, 1.0 - yin_i, out=out[11])
-            mul(fe, 1.0 - yin_e, out=out[14])
-            dHflow = dHi + dHe
-        else:
-            dm = -fbb
-            dmb = dm_burn - fbb * yb
-            dHflow = 0.0
-        dHbb = mul(fbb, h, out=out[7])
-        dQ = mul(Qw, dt, out=out[5])
-        pdV = mul(p, dV, out=out[4])
-        dU = dHflow - pdV - dQ - dHbb
-        dlnrho = dm / m - dV / V
-        dy = (dmb - yb * dm) / m
-        out[0] = dm
-        out[1] = ((dU - u * dm) / m - mp.u_lnrho * dlnrho - mp.u_y * dy) / mp.u_T
-        out[2] = dmb
-        mul(fbb, 1.0 - yb, out=out[8])
+        fbb = mul(mbb, dt, out=out[IDX["m_bb"]])
+        fi = fe = self._zeros
+        yin_i = hin_i = yin_e = hin_e = None
+        if flows:
+            fi = mul(mi, dt, out=out[IDX["m_int"]])
+            fe = mul(me, dt, out=out[IDX["m_exh"]])
+            if mi.any():
+                # the intake-port buffer of backflowed gas returns first (cyclesim.balance.port_buffer)
+                yin_i, hin_i, *buf = port_buffer(fi, y[IDX["m_ibuf"]], y[IDX["mb_ibuf"]], y[IDX["H_ibuf"]],
+                                                 self._buf_scale, y_i, h_i, yb, h)
+                out[IDX["m_ibuf"]], out[IDX["mb_ibuf"]], out[IDX["H_ibuf"]] = buf
+                mul(fi, 1.0 - yin_i, out=out[IDX["mu_int"]])
+            yin_e, hin_e = exhaust_inflow(fe, h_e, yb, h)
+            mul(fe, 1.0 - yin_e, out=out[IDX["mu_exh"]])
+        # no flow through a valve: its inflow carries the cylinder's own gas (zero times it)
+        yin_i = yb if yin_i is None else yin_i
+        hin_i = h if hin_i is None else hin_i
+        yin_e = yb if yin_e is None else yin_e
+        hin_e = h if hin_e is None else hin_e
+        dQ = mul(Qw, dt, out=out[IDX["Q_w"]])
+        rows = [IDX[k] for k in ("m", "T", "m_b", "W", "H_bb", "H_int", "H_exh")]
+        out[rows] = first_law(m, V, dV, p, u, mp.u_T, mp.u_lnrho, mp.u_y, yb, h, dm_burn, fi, yin_i, hin_i,
+                              fe, yin_e, hin_e, fbb, dQ)
+        mul(fbb, 1.0 - yb, out=out[IDX["mu_bb"]])
         for k, val in enumerate(subd):
             mul(val, dt, out=out[ncore + k])
         if not math.isfinite(float(out.sum())):

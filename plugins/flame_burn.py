@@ -20,10 +20,12 @@ from typing import Any, Mapping
 import numpy as np
 
 from cyclesim.combustion import laminar_flame as lf
+from cyclesim.combustion.laminar_flame import metghalchi_keck
+from cyclesim.kernel_ops import fresh_charge, where
 from cyclesim.params import Param
-from cyclesim.roles import BurnRate, GasState, SetupContext
+from cyclesim.roles import BurnRate, SetupContext
 
-from .knock import log_mean_temperature
+from .knock import log_mean_of
 from .wiebe import CYCLE_END_DEG, P_A, P_EFF, P_M, P_SPARK
 
 ATM_PA = lf.P_REF_PA
@@ -51,8 +53,14 @@ def laminar_flame_speed(phi: Any, T_u: Any, p: Any, f_dil: Any = 0.0,
         c = lf.MK_CONSTANTS[MK_FUELS[fuel]]
     except KeyError:
         raise ValueError(f"no flame-speed data for fuel {fuel!r}; known: {', '.join(MK_FUELS)}") from None
-    return lf.metghalchi_keck(np.asarray(phi, dtype=float), np.asarray(T_u, dtype=float),
-                              np.asarray(p, dtype=float), np.asarray(f_dil, dtype=float), c[0], c[1], c[2])
+    return metghalchi_keck(np.asarray(phi, dtype=float), np.asarray(T_u, dtype=float), np.asarray(p, dtype=float),
+                           np.asarray(f_dil, dtype=float), c[0], c[1], c[2])
+
+
+def mk_flame_speed(phi, T_u, p, f_dil, phi_m, b_m, b_phi):
+    """:func:`laminar_flame_speed` in kernel form [m/s], the fuel's coefficients ``phi_m``,
+    ``b_m``, ``b_phi`` [-, cm/s, cm/s] given (:func:`cyclesim.combustion.laminar_flame.metghalchi_keck`)."""
+    return metghalchi_keck(phi, T_u, p, f_dil, phi_m, 1e-2 * b_m, 1e-2 * b_phi)
 
 
 def isentropic_compression(gas: Any, T0: Any, p0: Any, v_ratio: Any,
@@ -81,13 +89,59 @@ def isentropic_compression(gas: Any, T0: Any, p0: Any, v_ratio: Any,
     temperature ``(T - T0)/ln(T/T0)`` (exact for cv linear in T), solved by fixed-point iteration from ``cv/R = 2.5``;
     ``p = p0 (V0/V)(T/T0)``.
     """
-    T0 = np.asarray(T0, dtype=float)
-    lnv = np.log(np.asarray(v_ratio, dtype=float))
+    return compression_state(gas, np.asarray(T0, dtype=float), np.asarray(p0, dtype=float),
+                             np.log(np.asarray(v_ratio, dtype=float)), iterations)
+
+
+def compression_state(gas, T0, p0, lnv, iterations):
+    """:func:`isentropic_compression` from ``lnv = ln(V0 / V)`` in kernel form (arrays or floats;
+    ``gas`` as :func:`cyclesim.kernel_ops.fresh_charge` takes it): (T [K], p [Pa])."""
     T = T0 * np.exp(lnv / 2.5)
     for _ in range(iterations):
-        _, cv, R = gas.unburned(log_mean_temperature(T0, T))
+        _, cv, R = fresh_charge(gas, log_mean_of(T0, T))
         T = T0 * np.exp(R / cv * lnv)
-    return T, np.asarray(p0, dtype=float) * np.exp(lnv) * T / T0
+    return T, p0 * np.exp(lnv) * T / T0
+
+
+def flame_length(s_l, T, p, visc, visc_exp):
+    """Laminar scale G [s/m]: ``T^visc_exp / p / S_L`` (nu/S_L up to a constant) where ``visc`` is
+    nonzero, else ``1 / S_L``; S_L floored at 1e-4 m/s (kernel form)."""
+    s_l = np.maximum(s_l, 1e-4)
+    return where(visc != 0.0, T ** visc_exp / p / s_l, 1.0 / s_l)
+
+
+def flame_angles(T_s, p_s, T_c, p_c, f, phi, phi_m, b_m, b_phi, visc, visc_exp, G_ref,
+                 G_ref_dur, delay_ref, dur_ref, kd, sd, kb, sb, speed_ratio):
+    """(S_L at spark [m/s], development angle [deg], Wiebe duration [deg]) from the charge at spark
+    (T_s, p_s) and at TDC (T_c, p_c) and its dilution f (kernel form; see :class:`WiebeFlame`)."""
+    s_l = mk_flame_speed(phi, T_s, p_s, f, phi_m, b_m, b_phi)
+    g = flame_length(s_l, T_s, p_s, visc, visc_exp) / G_ref
+    g_c = flame_length(mk_flame_speed(phi, T_c, p_c, f, phi_m, b_m, b_phi),
+                       T_c, p_c, visc, visc_exp) / G_ref_dur
+    return s_l, delay_ref * g ** kd * speed_ratio ** sd, dur_ref * g_c ** kb * speed_ratio ** sb
+
+
+def wiebe_flame_rate(theta, y_b, x_b, p_ivc, T_ivc, V_ivc, gas, spark, delay_ref, dur_ref, a, m, eff, kd, sd,
+                     kb, sb, visc, phi, V_spark, speed_ratio, G_ref, phi_m, b_m, b_phi,
+                     visc_exp, V_tdc, G_ref_dur):
+    """dx_b/dtheta [1/deg] of the flame-speed scaled Wiebe burn: the kernel of :class:`WiebeFlame`.
+
+    The charge at spark and at TDC is isentropic from the IVC state (:func:`compression_state`),
+    its dilution ``f`` from the single-zone state; the development angle and duration scale with
+    the laminar scale there (:func:`flame_length`) and with the piston speed; zero before the
+    development angle has passed and from :data:`CYCLE_END_DEG`."""
+    T_s, p_s = compression_state(gas, T_ivc, p_ivc, np.log(V_ivc / V_spark), 4)
+    T_c, p_c = compression_state(gas, T_ivc, p_ivc, np.log(V_ivc / V_tdc), 4)
+    f = 1.0 - (1.0 - y_b) / np.maximum(1.0 - eff * x_b, 1e-9)
+    f = np.minimum(np.maximum(f, 0.0), 1.0)
+    _, delay, dur = flame_angles(T_s, p_s, T_c, p_c, f, phi, phi_m, b_m, b_phi, visc,
+                                 visc_exp, G_ref, G_ref_dur, delay_ref, dur_ref, kd, sd, kb, sb, speed_ratio)
+    u = (theta - spark - delay) / dur
+    on = (u > 0.0) & (theta < CYCLE_END_DEG)
+    up = where(on, u, 0.0)
+    um = up ** m
+    r = a * (m + 1.0) / dur * um * np.exp(-a * um * up)
+    return where(on & np.isfinite(r), r, 0.0)
 
 
 def _arr(value: Any, B: int) -> np.ndarray:
@@ -171,7 +225,7 @@ class WiebeFlame(BurnRate):
         return 0.5 * float(params["ref_duration_deg"])
 
     name = "wiebe_flame"
-    compiled_form = "wiebe_flame"
+    kernel = wiebe_flame_rate
     spark_param = "spark_advance_deg"
     summary = ("superseded by entrainment: Wiebe burn with development angle and duration scaled by"
                " the Metghalchi-Keck flame speed at spark and the mean piston speed")
@@ -259,15 +313,11 @@ class WiebeFlame(BurnRate):
         T_ref_c = _arr(p.ref_tdc_unburned_temperature_K, B)
         self.G_ref_dur = self._length(laminar_flame_speed(phi_ref, T_ref_c, p_ref_c, f_ref, self.fuel),
                                       T_ref_c, p_ref_c)
-        self._key: tuple | None = None
 
     # -- the law -----------------------------------------------------------
     def _length(self, s_l: np.ndarray, T: np.ndarray, p: np.ndarray) -> np.ndarray:
-        """Laminar scale G: nu/S_L up to a constant factor, or 1/S_L [s/m]."""
-        s_l = np.maximum(s_l, 1e-4)
-        if self.visc:
-            return T ** (1.0 + VISCOSITY_T_EXPONENT) / p / s_l
-        return 1.0 / s_l
+        """Laminar scale G: nu/S_L up to a constant factor, or 1/S_L [s/m] (:func:`flame_length`)."""
+        return flame_length(s_l, T, p, 1.0 if self.visc else 0.0, 1.0 + VISCOSITY_T_EXPONENT)
 
     def spark_state(self, p_ivc, T_ivc, V_ivc) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Unburned charge at spark and at TDC (T_s, p_s, T_c, p_c [K, Pa]) (B,), isentropic from IVC."""
@@ -277,29 +327,11 @@ class WiebeFlame(BurnRate):
 
     def angles(self, T_s, p_s, f, T_c, p_c) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(S_L at spark [m/s], development angle [deg], Wiebe duration [deg]) (B,), from the
-        charge at spark (T_s, p_s) and at TDC (T_c, p_c) and its dilution f."""
-        s_l = laminar_flame_speed(self.phi, T_s, p_s, f, self.fuel)
-        g = self._length(s_l, T_s, p_s) / self.G_ref
-        s_c = laminar_flame_speed(self.phi, T_c, p_c, f, self.fuel)
-        g_c = self._length(s_c, T_c, p_c) / self.G_ref_dur
-        delay = self.delay_ref * g ** self.kd * self.speed_ratio ** self.sd
-        dur = self.dur_ref * g_c ** self.kb * self.speed_ratio ** self.sb
-        return s_l, delay, dur
-
-    def _spark_cached(self, s: GasState) -> tuple[np.ndarray, ...]:
-        key = (s.p_ivc, s.T_ivc, s.V_ivc)
-        k = self._key
-        if k is None or not all(a is b for a, b in zip(k[0], key)):
-            with np.errstate(all="ignore"):
-                states = self.spark_state(*key)
-            self._key = (key, states)
-            k = self._key
-        return k[1]
-
-    def dilution(self, s: GasState) -> np.ndarray:
-        """Burned-gas fraction of the unburned charge f [-] (B,), from y_b and x_b."""
-        f = 1.0 - (1.0 - s.y_b) / np.maximum(1.0 - self.eff * s.x_b, 1e-9)
-        return np.clip(f, 0.0, 1.0)
+        charge at spark (T_s, p_s) and at TDC (T_c, p_c) and its dilution f (:func:`flame_angles`)."""
+        k = self.pack()
+        return flame_angles(T_s, p_s, T_c, p_c, f, *(k[n] for n in (
+            "phi", "phi_m", "b_m", "b_phi", "visc", "visc_exp", "G_ref", "G_ref_dur",
+            "delay_ref", "dur_ref", "kd", "sd", "kb", "sb", "speed_ratio")))
 
     # -- role interface ------------------------------------------------------
     def start_deg(self) -> np.ndarray:
@@ -311,34 +343,18 @@ class WiebeFlame(BurnRate):
         return self.spark.copy()
 
     def pack(self) -> dict:
-        """Parameters of the compiled form ``wiebe_flame`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        """The kernel's parameters (:func:`wiebe_flame_rate`) by name."""
         phi_m, b_m, b_phi = lf.MK_CONSTANTS[MK_FUELS[self.fuel]] * np.array([1.0, 100.0, 100.0])
         return {"spark": self.spark, "delay_ref": self.delay_ref, "dur_ref": self.dur_ref, "a": self.a,
                 "m": self.m, "eff": self.eff, "kd": self.kd, "sd": self.sd, "kb": self.kb, "sb": self.sb,
                 "visc": 1.0 if self.visc else 0.0, "phi": self.phi, "V_spark": self.V_spark,
                 "speed_ratio": self.speed_ratio, "G_ref": self.G_ref, "phi_m": phi_m, "b_m": b_m,
-                "b_phi": b_phi, "dilution": lf.DILUTION_COEFFICIENT, "T0": T0_K, "atm": ATM_PA,
-                "visc_exp": 1.0 + VISCOSITY_T_EXPONENT, "V_tdc": self.V_tdc, "G_ref_dur": self.G_ref_dur,
-                "dilution_exp": lf.DILUTION_EXPONENT}
+                "b_phi": b_phi, "visc_exp": 1.0 + VISCOSITY_T_EXPONENT, "V_tdc": self.V_tdc,
+                "G_ref_dur": self.G_ref_dur}
 
     def combustion_efficiency(self) -> np.ndarray:
         """Fraction of the charge's fuel energy that is released (B,) [-]."""
         return self.eff.copy()
-
-    def rate(self, s: GasState) -> np.ndarray:
-        """Burn rate dx_b/dtheta [1/deg] (B,); zero before the development angle and from 360 deg."""
-        th = s.theta
-        if th < float(np.min(self.spark)) or th >= CYCLE_END_DEG:
-            return np.zeros(self.B)
-        T_s, p_s, T_c, p_c = self._spark_cached(s)
-        with np.errstate(all="ignore"):
-            _, delay, dur = self.angles(T_s, p_s, self.dilution(s), T_c, p_c)
-            u = (th - self.spark - delay) / dur
-            on = u > 0.0
-            up = np.where(on, u, 0.0)
-            um = up ** self.m
-            r = self.a * (self.m + 1.0) / dur * um * np.exp(-self.a * um * up)
-        return np.where(on & np.isfinite(r), r, 0.0)
 
     # -- end-of-run figures ----------------------------------------------------
     def _from_trace(self, trace: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:

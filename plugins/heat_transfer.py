@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from cyclesim.kernel_ops import where
+from cyclesim.kernel_ops import fresh_charge, where
 from cyclesim.params import Param, StateVar
 from cyclesim.roles import GasState, WallHeatTransfer
 
@@ -108,6 +108,14 @@ def woschni_kernel(p, T, V, Sp, closed, burning, p_ivc, T_ivc, V_ivc, T_mot, k, 
     return woschni_h(k, p, w, T, t_exp)
 
 
+def woschni_motored_rate(T_mot, gas, dV, omega_deg, V, closed):
+    """dT_mot/dt [K/s] of the charge motored from IVC, ``-(R / cv) T_mot (dV/dt) / V`` with R and cv
+    of the fresh charge at ``T_mot``, zero outside the closed part: the state kernel of
+    :class:`Woschni` (isentropic compression of an ideal gas, Heywood 1988, sec. 3.4)."""
+    _, cv, R = fresh_charge(gas, T_mot)
+    return where(closed, -(R / cv) * T_mot * (dV * omega_deg) / V, 0.0)
+
+
 def hohenberg_kernel(V, p, T, Sp, multiplier):
     """Hohenberg's coefficient ``130 V^-0.06 p[bar]^0.8 T^-0.4 (Sp + 1.4)^0.8`` [W/(m^2 K)] times
     ``multiplier``: the kernel of :class:`Hohenberg` (V [m^3], p [Pa], T [K], Sp [m/s])."""
@@ -186,6 +194,7 @@ class Woschni(WallHeatTransfer):
     name = "woschni"
     summary = "Woschni 1967 (original form, T^-0.53), phase-dependent C1/C2, motored pressure integrated"
     kernel = woschni_kernel
+    state_kernel = woschni_motored_rate
     params = (
         _MULTIPLIER,
         Param("swirl_ratio", "-", 0.0, "swirl ratio (swirl speed / engine speed)", min=0.0, max=10.0),
@@ -231,13 +240,6 @@ class Woschni(WallHeatTransfer):
 
     def states(self):
         return (StateVar(self.STATE, "K", initial="T_ivc", reset_at_ivc=True),)
-
-    def derivatives(self, s: GasState):
-        T_mot = s.sub[f"{self.role}.{self.STATE}"]
-        _, cv, R = self.ctx.gas.unburned(T_mot)
-        dVdt = s.dV * s.omega_deg
-        rate = -(R / cv) * T_mot * dVdt / s.V
-        return {self.STATE: np.where(s.closed, rate, 0.0)}
 
     def motored_pressure(self, s: GasState) -> np.ndarray:
         """Pressure of the same charge motored from IVC [Pa] (B,)."""
@@ -287,8 +289,39 @@ def air_viscosity(T):
     used for the whole cycle, burned gas included, as an approximation, which
     is the usual level of detail of Annand's correlation (common practice).
     """
-    T = np.asarray(T, dtype=float)
-    return 1.458e-6 * T**1.5 / (T + 110.4)
+    return sutherland_viscosity(np.asarray(T, dtype=float))
+
+
+def sutherland_viscosity(T):
+    """:func:`air_viscosity` in kernel form (arrays or floats) [Pa s]."""
+    return 1.458e-6 * T ** 1.5 / (T + 110.4)
+
+
+def annand_convective(T, rho, cp, Sp, multiplier, a, b, prandtl_number, bore):
+    """Annand's convective coefficient ``multiplier a (k / B) Re^b`` [W/(m^2 K)] with
+    ``k = mu cp / Pr``, ``Re = rho Sp B / mu`` (kernel form)."""
+    mu = sutherland_viscosity(T)
+    k = mu * cp / prandtl_number
+    Re = rho * Sp * bore / mu
+    return multiplier * a * k / bore * Re ** b
+
+
+def annand_radiation(closed, burning, multiplier, radiation_factor):
+    """Annand's radiation constant c [W/(m^2 K^4)]: ``multiplier radiation_factor sigma`` while the
+    cylinder is closed and burning, else 0 (kernel form)."""
+    return where(closed & burning, multiplier * radiation_factor * SIGMA_SB, 0.0)
+
+
+def annand_heat_flow(T, rho, cp, Sp, closed, burning, A_head, A_piston, A_liner, T_wall_head, T_wall_piston,
+                     T_wall_liner, multiplier, a, b, radiation_factor, prandtl_number, bore):
+    """Heat flow to the walls [W] by Annand's correlation, ``sum A (h_c (T - T_w) + c (T^4 - T_w^4))``
+    per surface with its own wall temperature: the heat-flow kernel of :class:`Annand`."""
+    hc = annand_convective(T, rho, cp, Sp, multiplier, a, b, prandtl_number, bore)
+    c = annand_radiation(closed, burning, multiplier, radiation_factor)
+    T4 = T ** 4
+    q = A_head * (hc * (T - T_wall_head) + c * (T4 - T_wall_head ** 4))
+    q = q + A_piston * (hc * (T - T_wall_piston) + c * (T4 - T_wall_piston ** 4))
+    return q + A_liner * (hc * (T - T_wall_liner) + c * (T4 - T_wall_liner ** 4))
 
 
 class Annand(WallHeatTransfer):
@@ -315,7 +348,7 @@ class Annand(WallHeatTransfer):
 
     name = "annand"
     summary = "Annand 1963: a (k/B) Re^0.7 + radiation during combustion"
-    compiled_form = "annand"
+    heat_flow_kernel = annand_heat_flow
     params = (
         Param("a", "-", 0.49, "convective constant (0.35-0.8 in the original)", min=0.05, max=2.0),
         Param("b", "-", 0.7, "Reynolds-number exponent", min=0.5, max=0.9),
@@ -337,37 +370,22 @@ class Annand(WallHeatTransfer):
         self._bore = ctx.geometry.bore_m
 
     def pack(self) -> dict:
-        """Parameters of the compiled form ``annand`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        """The heat-flow kernel's parameters (:func:`annand_heat_flow`) by name."""
         p = self.p
         return {"multiplier": p.multiplier, "a": p.a, "b": p.b, "radiation_factor": p.radiation_factor,
                 "prandtl_number": p.prandtl_number, "bore": self._bore}
 
     def convective(self, s: GasState) -> np.ndarray:
         """Convective coefficient a (k/B) Re^b [W/(m^2 K)] (B,)."""
-        mu = air_viscosity(s.T)
-        k = mu * s.cp / self.p.prandtl_number
-        Re = s.rho * s.Sp * self._bore / mu
-        return self.p.multiplier * self.p.a * k / self._bore * Re**self.p.b
-
-    def _c_rad(self, s: GasState) -> np.ndarray:
-        on = np.logical_and(s.closed, s.burning)
-        return np.where(on, self.p.multiplier * self.p.radiation_factor * SIGMA_SB, 0.0)
+        p = self.p
+        return annand_convective(s.T, s.rho, s.cp, s.Sp, p.multiplier, p.a, p.b, p.prandtl_number, self._bore)
 
     def coefficient(self, s: GasState) -> np.ndarray:
         A = s.A_head + s.A_piston + s.A_liner
         Tw = (s.A_head * s.T_wall_head + s.A_piston * s.T_wall_piston + s.A_liner * s.T_wall_liner) / A
         # (T^4 - Tw^4) / (T - Tw) written without the division
-        rad = self._c_rad(s) * (s.T + Tw) * (s.T**2 + Tw**2)
-        return self.convective(s) + rad
-
-    def heat_flow(self, s: GasState) -> np.ndarray:
-        hc = self.convective(s)
-        c = self._c_rad(s)
-        T4 = s.T**4
-        q = np.zeros(self.B)
-        for A, Tw in ((s.A_head, s.T_wall_head), (s.A_piston, s.T_wall_piston), (s.A_liner, s.T_wall_liner)):
-            q = q + A * (hc * (s.T - Tw) + c * (T4 - Tw**4))
-        return q
+        c = annand_radiation(np.asarray(s.closed), np.asarray(s.burning), self.p.multiplier, self.p.radiation_factor)
+        return self.convective(s) + c * (s.T + Tw) * (s.T**2 + Tw**2)
 
 
 SUBMODELS = [NoHeatTransfer, Woschni, Hohenberg, Annand]

@@ -21,6 +21,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from cyclesim.kernel_ops import fresh_charge, where
 from cyclesim.params import Param, StateVar
 from cyclesim.roles import GasState, Knock, SetupContext
 
@@ -111,12 +112,34 @@ def isentropic_temperature(gas: Any, T0: Any, p_ratio: Any, iterations: int = 4)
     started from ``cp/R = 3.5``.
     """
     T0 = np.asarray(T0, dtype=float)
-    lnr = np.log(np.asarray(p_ratio, dtype=float))
+    return isentrope_temperature(gas, T0, np.log(np.asarray(p_ratio, dtype=float)), iterations)
+
+
+def isentrope_temperature(gas, T0, lnr, iterations):
+    """:func:`isentropic_temperature` from ``lnr = ln(p / p0)`` in kernel form (arrays or floats;
+    ``gas`` as :func:`cyclesim.kernel_ops.fresh_charge` takes it)."""
     T = T0 * np.exp(lnr / 3.5)
     for _ in range(iterations):
-        _, cv, R = gas.unburned(log_mean_temperature(T0, T))
+        _, cv, R = fresh_charge(gas, log_mean_of(T0, T))
         T = T0 * np.exp(R / (cv + R) * lnr)
     return T
+
+
+def log_mean_of(T0, T1):
+    """:func:`log_mean_temperature` in kernel form (arrays or floats)."""
+    ln = np.log(T1 / T0)
+    small = np.abs(ln) < 1e-6
+    return where(small, np.sqrt(T0 * T1), (T1 - T0) / where(small, 1.0, ln))
+
+
+def livengood_wu_rate(p, x_b, closed, T_ivc, p_ivc, gas, pre_ms, act, x_max, atm, p_exp):
+    """dI/dt [1/s] of the Livengood-Wu integral, ``1 / tau`` of the Douaud-Eyzat delay at the
+    cylinder pressure and the isentropic end-gas temperature, while the cylinder is closed and
+    ``x_b < x_max``: the state kernel of :class:`LivengoodWu` (``pre_ms`` = A (ON/100)^3.402 c [ms])."""
+    T_u = isentrope_temperature(gas, T_ivc, np.log(p / p_ivc), 4)
+    tau_ms = pre_ms * (p / atm) ** p_exp * np.exp(act / T_u)
+    rate = 1e3 / tau_ms
+    return where(closed & (x_b < x_max) & np.isfinite(rate), rate, 0.0)
 
 
 def log_mean_temperature(T0: Any, T1: Any) -> np.ndarray:
@@ -126,11 +149,7 @@ def log_mean_temperature(T0: Any, T1: Any) -> np.ndarray:
     its value at this temperature; so it is the point at which to evaluate
     cp (or cv) for an isentrope.
     """
-    T0 = np.asarray(T0, dtype=float)
-    T1 = np.asarray(T1, dtype=float)
-    ln = np.log(T1 / T0)
-    small = np.abs(ln) < 1e-6
-    return np.where(small, np.sqrt(T0 * T1), (T1 - T0) / np.where(small, 1.0, ln))
+    return log_mean_of(np.asarray(T0, dtype=float), np.asarray(T1, dtype=float))
 
 
 def _arr(value: Any, B: int) -> np.ndarray:
@@ -205,7 +224,7 @@ class LivengoodWu(Knock):
 
     name = "livengood_wu"
     summary = "Livengood-Wu knock integral of the Douaud-Eyzat ignition delay, isentropic end gas"
-    compiled_form = "livengood_wu"
+    state_kernel = livengood_wu_rate
     # the integral stops where the unburned fraction reaches its minimum, a jump in its rate
     # whose error grows with the step: keep the fine step through the closed part
     closed_step_limit = 1
@@ -249,20 +268,13 @@ class LivengoodWu(Knock):
         return (StateVar(self.STATE, "-", initial=0.0, reset_at_ivc=True),)
 
     def pack(self) -> dict:
-        """Parameters of the compiled form ``livengood_wu`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        """The state kernel's parameters (:func:`livengood_wu_rate`) by name."""
         return {"pre_ms": self._pre_ms, "act": self.act, "x_max": self.x_max, "atm": ATM_PA,
                 "p_exp": DE_PRESSURE_EXPONENT}
 
     def end_gas_temperature(self, s: GasState) -> np.ndarray:
         """End-gas temperature [K] (B,): fresh charge isentropic from the IVC state."""
         return isentropic_temperature(self.ctx.gas, s.T_ivc, s.p / s.p_ivc)
-
-    def derivatives(self, s: GasState):
-        T_u = self.end_gas_temperature(s)
-        tau_ms = self._pre_ms * (s.p / ATM_PA) ** DE_PRESSURE_EXPONENT * np.exp(self.act / T_u)
-        rate = 1e3 / tau_ms
-        on = s.closed & (s.x_b < self.x_max) & np.isfinite(rate)
-        return {self.STATE: np.where(on, rate, 0.0)}
 
     # -- figures --------------------------------------------------------
     def _window(self, trace: Mapping[str, np.ndarray]):

@@ -4,9 +4,16 @@ from __future__ import annotations
 
 import numpy as np
 
-from cyclesim.flow import orifice_outflow
+from cyclesim.flow import DP_LIN_DEFAULT, outflow
 from cyclesim.params import Param
 from cyclesim.roles import GasState, RingLeakage
+
+
+def orifice_blowby(p, T, R, gamma, cda, p_cc):
+    """Blowby [kg/s] through the ring pack's equivalent orifice, cylinder gas upstream, zero when
+    the crankcase pressure ``p_cc`` is the higher: the kernel of :class:`Orifice`
+    (:func:`cyclesim.flow.orifice_outflow`, Heywood 1988, App. C)."""
+    return outflow(cda, p, T, R, gamma, np.minimum(p, p_cc), DP_LIN_DEFAULT)
 
 
 class NoLeakage(RingLeakage):
@@ -46,7 +53,7 @@ class Orifice(RingLeakage):
 
     name = "orifice"
     summary = "ring-pack leakage through one equivalent orifice to the crankcase (outflow only)"
-    compiled_form = "orifice"
+    kernel = orifice_blowby
     params = (
         Param(
             "effective_area_mm2", "mm^2", 0.15,
@@ -69,12 +76,8 @@ class Orifice(RingLeakage):
         self._p_cc = np.asarray(self.p.crankcase_pressure_bar, dtype=float) * 1e5
 
     def pack(self) -> dict:
-        """Parameters of the compiled form ``orifice`` as arrays (B,) by name (cyclesim._compiled.FORMS)."""
+        """The kernel's parameters (:func:`orifice_blowby`) by name."""
         return {"cda": self._cda, "p_cc": self._p_cc}
-
-    def mass_flow(self, s: GasState) -> np.ndarray:
-        # outflow only: zero when the crankcase pressure is the higher
-        return orifice_outflow(self._cda, s.p, s.T, s.R, s.gamma, self._p_cc)
 
 
 SUBMODELS = [NoLeakage, Orifice]

@@ -121,3 +121,40 @@ RENAMED_SPARK_WIEBE = (KERNEL_WIEBE.replace("spark_advance_deg", "ignition_btdc_
                        .replace("tests_kernel_wiebe", "tests_renamed_spark_wiebe"))
 """A burn plug-in ``tests_renamed_spark_wiebe``: the Wiebe law above whose spark parameter (its
 ``spark_param``) is called ``ignition_btdc_deg``."""
+
+
+STATE_KNOCK = '''
+import numpy as np
+from cyclesim import hookimpl
+from cyclesim.kernel_ops import where
+from cyclesim.params import Param, StateVar
+from cyclesim.roles import Knock
+
+
+def closed_pressure_time(p, closed, p_ref):
+    """d/dt of the time integral of p / p_ref [s] and of the closed time [s] (a state kernel)."""
+    return where(closed, p / p_ref, 0.0), where(closed, 1.0, 0.0)
+
+
+class ClosedPressureTime(Knock):
+    """Two integrals of its own over the closed part of the cycle (test plug-in)."""
+    name = "tests_pressure_time"
+    summary = "time integral of the pressure and closed time"
+    params = (Param("p_ref_bar", "bar", 1.0, "reference pressure", 0.1, 10),)
+    references = ("test plug-in",)
+    state_kernel = closed_pressure_time
+
+    def states(self):
+        return (StateVar("P", "s", initial=0.0, reset_at_ivc=True),
+                StateVar("t", "s", initial=0.0, reset_at_ivc=True))
+
+    def pack(self):
+        return {"p_ref": self.p.p_ref_bar * 1e5}
+
+
+@hookimpl
+def cyclesim_register_submodels():
+    return [ClosedPressureTime]
+'''
+"""A knock-role plug-in ``tests_pressure_time`` with two states of its own given by a state kernel:
+``P``, the time integral of p / p_ref [s], and ``t``, the time spent closed [s]."""

@@ -581,8 +581,14 @@ def test_woschni_is_a_kernel_reading_its_own_motored_temperature_state():
     assert "woschni" not in _compiled.FORMS["heat_transfer"]
     fn = loopgen.kernel_of(wo)
     packed = ("k", "c1_closed", "c1_open", "c2", "Vd", "t_exp")
-    _, text = loopgen.generate({"heat_transfer": (fn, packed)})
-    row = _compiled.IC_ROWS["heat_transfer.T_mot"]
-    assert f"woschni_kernel(p, T, V, sp, closed, burning, CB[R_IVC_P, b], CB[R_IVC_T, b], CB[R_IVC_V, b], yv[IC[{row}]]" in text
+    from cyclesim.layout import CORE
+
+    row = len(CORE)                                # the first row after the cylinder's own state
+    parts = (loopgen.Part("heat_transfer", "kernel", fn, packed, (("T_mot", row),)),
+             loopgen.Part("heat_transfer", "state", loopgen.state_kernel_of(wo), packed, (("T_mot", row),), (row,)))
+    _, text = loopgen.generate(parts)
+    assert f"woschni_kernel(p, T, V, sp, closed, burning, CB[R_IVC_P, b], CB[R_IVC_T, b], CB[R_IVC_V, b], yv[{row}]" in text
+    assert f"_sd1_0 = woschni_motored_rate(yv[{row}], (uc4, b, gc[7]), dV, om, V, closed)" in text
+    assert f"out[{row}] = _sd1_0 * dt" in text
     with pytest.raises(loopgen.LoopGenError, match="T_mot"):
-        loopgen.kernel_params(fn, packed)          # not a state of a role given: refused
+        loopgen.kernel_params(fn, packed)          # not a state of the model given: refused

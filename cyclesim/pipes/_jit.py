@@ -53,8 +53,15 @@ def compiled_kernels():
         return None
     if _compiled is None:
         from numba import njit
+        from numba.extending import register_jitable
 
+        from .. import kernel_ops
+        from ..flow import critical_ratio_of
         from .kernels import __file__ as kernels_file
+
+        # flow.isentropic_flux, compiled here, reads these: kernel_ops' compiled forms and its helper
+        kernel_ops.register_compiled()
+        register_jitable(inline="always")(critical_ratio_of)
 
         spec = importlib.util.spec_from_file_location("cyclesim.pipes._kernels_compiled", kernels_file)
         mod = importlib.util.module_from_spec(spec)
