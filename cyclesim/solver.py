@@ -68,6 +68,8 @@ from .cycle_grid import (CLOSED_STEP_FACTOR, EVENT_FINE_DEG, MIN_FEATURE_STEPS, 
 from .periodic import COARSE_CYCLES, COARSE_SCHEDULE, COARSE_STEP_MAX_DEG, CylinderSystem, solve  # noqa: F401
 from .cycle_run import LOOP_RERUN  # noqa: F401 - re-exported
 
+_M, _T = IDX["m"], IDX["T"]
+
 
 def raised_at(exc: BaseException, model=None) -> str:
     """Where an exception was raised, as `` (in name, file.py:line)``: the innermost frame in the
