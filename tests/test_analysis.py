@@ -522,7 +522,7 @@ def test_analyser_wall_heat_uses_the_models_woschni_constants(monkeypatch):
     # so with no combustion term (start of combustion after the window) doubling the model's C1
     # scales h, and so the wall heat, by 2^0.8 (h ~ w^0.8, Woschni 1967, SAE 670931)
     from cyclesim.registry import get_registry
-    from cyclesim.traces import analysis as an
+    from cyclesim.traces import heat_release as an
     from cyclesim.traces.cycle_math import VolumeFunction
 
     g = Geometry(np.array([0.086]), np.array([0.086]), np.array([0.143]), np.array([10.5]))

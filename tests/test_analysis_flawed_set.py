@@ -172,7 +172,7 @@ def test_compression_release_is_zero_along_a_cantera_isentrope():
     # compression work (the tables' NASA-7 data are GRI-Mech 3.0's; the rest is the trapezoid rule)
     import cantera as ct
 
-    from cyclesim.traces.analysis import _gas_tables
+    from cyclesim.traces.heat_release import _gas_tables
     from cyclesim.traces.tdc_fired import _gas_lookup, compression_release
 
     g, _, _ = analysis_inputs(load_config("demo"))

@@ -213,7 +213,8 @@ def _ivc_state(case: Case, data: MeasuredData, row: int, keys: Sequence[str],
     temperature is kept (the analyser's assumption), and the trapped mass follows the
     pressure.  Returns the changes (dotted keys) and facts for the notes.
     """
-    from ..traces.analysis import _gas_tables, _mixture_temperature, with_measured_masses
+    from ..traces.analysis_settings import with_measured_masses
+    from ..traces.heat_release import _gas_tables, _mixture_temperature
 
     p_meas, p_sd = measured_ivc_pressure(data, row, float(case.valves.ivc_deg))
     changes: dict = {}
