@@ -9,8 +9,8 @@ import pytest
 from scipy.optimize import brentq
 
 import cyclesim
-from cyclesim.engine import (EngineSetup, _Manifolds, firing_offsets, run_engine, simulate_engines,
-                             throttle_area)
+from cyclesim.engine import EngineSetup, firing_offsets, run_engine, simulate_engines, throttle_area
+from cyclesim.engine.manifolds import _Manifolds
 from cyclesim.errors import ConfigError
 
 # a two-cylinder variant of the demo at a coarse step keeps these checks quick
