@@ -72,7 +72,7 @@ def threads() -> int:
         if n < 1:
             raise ConfigError(f"{THREADS_ENV}={v!r}: expected a whole number >= 1")
         return n
-    from .parallel import available_cpus
+    from .cpus import available_cpus
 
     return min(2, available_cpus())
 
@@ -98,7 +98,7 @@ def compiled_module():
         return None
     if _mod is None:
         try:
-            from . import _compiled
+            import cyclesim._compiled as _compiled
             _mod = _compiled
         except ImportError as exc:
             if c == "compiled":
@@ -317,7 +317,7 @@ class Compiled:
         self.IC = IC
         self.broken = False
         self.ready = False
-        from .solver import TABLEAU
+        from .stepper import TABLEAU
 
         A, a_den, b, b_den, node = TABLEAU.arrays()
         self.tableau = (_cw(A), _cw(a_den), _cw(b), b_den, _cw(node, np.int64))

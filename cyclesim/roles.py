@@ -65,7 +65,7 @@ class SetupContext:
     operating : SimpleNamespace
         The ``operating`` config section as arrays (B,) (SI-suffixed keys as
         written, e.g. ``intake_pressure_bar``).
-    gas : cyclesim.thermo.GasTables
+    gas : cyclesim.gas_tables.GasTables
         Property tables of the batch's fresh charge and burned gas.
     base_dir : pathlib.Path
         Folder of the config file, for resolving relative paths.

@@ -60,10 +60,7 @@ from .layout import CORE  # the state's names, declared once  # noqa: F401
 from .layout import CORE_ROWS as IDX  # noqa: F401
 from .layout import TOTALS as _TOTALS  # running totals, reset at the start of a cycle
 from .roles import GasState
-from .stepper import KUTTA3, combine
-
-TABLEAU = KUTTA3
-"""The cycle loops' Runge-Kutta scheme (:mod:`cyclesim.stepper`)."""
+from .stepper import KUTTA3, TABLEAU, combine  # noqa: F401
 
 
 @dataclass
@@ -774,7 +771,7 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
             return y
 
     # the compiled cycle where numba is installed and every submodel has a compiled form
-    from . import kernel
+    import cyclesim.kernel as kernel
 
     compiled, loop = kernel.prepare(batch, rhs, half, Gu, geo_rows, closed_pts, burning_pts, open_at)
     y = _initial_state(batch, rhs, theta[0], mode)
