@@ -13,7 +13,8 @@ import numpy as np
 import pytest
 
 import cyclesim
-from cyclesim.cli_traces import add_parsers, analysis_inputs, cmd_analyse
+from cyclesim.cli_traces import add_parsers, cmd_analyse
+from cyclesim.traces.analysis_settings import analysis_inputs
 from cyclesim.config import load_config
 from cyclesim.errors import CyclesimError
 from cyclesim.geometry import Geometry

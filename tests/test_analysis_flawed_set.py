@@ -14,7 +14,8 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from cyclesim.cli_traces import add_parsers, analysis_inputs, cmd_analyse
+from cyclesim.cli_traces import add_parsers, cmd_analyse
+from cyclesim.traces.analysis_settings import analysis_inputs
 from cyclesim.config import load_config
 from cyclesim.errors import CyclesimError
 from cyclesim.traces.analysis import (AnalysisSettings, VolumeFunction, analyse, wall_heat_scale_flag,

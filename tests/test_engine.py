@@ -269,7 +269,7 @@ def test_a_boosted_config_without_its_supply_pressure_is_warned():
 
 
 def test_engine_warnings_group_by_kind_with_the_cylinders():
-    from cyclesim.studies.map_console import cylinder_warning_lines
+    from cyclesim.warning_groups import cylinder_warning_lines
 
     lines = cylinder_warning_lines(["cylinder 1: exhaust choked for 12 deg", "cylinder 3: exhaust choked for 14.5 deg",
                                     "cylinder 3: trapped mass low", "manifolds not settled after 8 coupled cycles"], 4)

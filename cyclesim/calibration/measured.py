@@ -113,8 +113,8 @@ def measured_data(case: Case, traces, *, ensemble: str = "mean", peg: str | None
     The returned case carries the operating point stated by the trace metadata
     (speed, intake pressure and temperature, lambda) when ``use_trace_operating``.
     """
-    from ..cli_traces import analysis_inputs
     from ..traces.analysis import analyse, apparent_heat_release
+    from ..traces.analysis_settings import analysis_inputs
 
     ts = _load_traces(traces)
     changes = operating_from_trace(ts, case) if use_trace_operating else {}
