@@ -149,7 +149,7 @@ def main(argv=None):
         t_base, _ = timed(lambda: cyclesim.simulate([base]), max(5, args.repeat))
     res["plugin_kernel_one_point_s"] = t_plug
     res["plugin_kernel_vs_builtin_ratio"] = t_plug / t_base
-    res["step_check_imep_rel"] = step_check([base])[0]
+    res["step_check_imep_rel"] = step_check([base], simulate=cyclesim.simulate)[0]
 
     spark = [load_config("demo", [f"burn.spark_advance_deg={a}"]) for a in range(0, 41)]
     res["spark_sweep_41_s"], _ = timed(lambda: cyclesim.simulate(spark), args.repeat)

@@ -20,7 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
-from cyclesim.cli_traces import analysis_inputs
+from cyclesim.traces.analysis_settings import analysis_inputs
 from cyclesim.config import load_config
 from cyclesim.errors import CyclesimError
 from cyclesim.traces.analysis import VolumeFunction, tdc_from_fired, with_measured_masses

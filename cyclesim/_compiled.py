@@ -385,7 +385,7 @@ def manifold_lap(p0, h, k, A, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, 
 
 @njit(cache=True, error_model="numpy")
 def mixture_points(gas_tab, gas_off, gc, nRm1, uc4, case, T, rho, y, out):
-    """cyclesim.thermo.GasTables.mixture at N points, case ``case[k]``'s tables for point k.
+    """cyclesim.gas_tables.GasTables.mixture at N points, case ``case[k]``'s tables for point k.
 
     out (11, N): the MixProps fields u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cv, cp, gamma.
     """

@@ -303,7 +303,7 @@ def failed_result(case: Case, exc: BaseException) -> CaseResult:
 def _check_environment() -> None:
     """The environment's settings (loop, threads, memory budget), wrong for every case alike: raised
     here once rather than recorded as each case's failure."""
-    from . import kernel
+    import cyclesim.kernel as kernel
     from .budget import budget_bytes
 
     kernel.choice()
@@ -448,7 +448,7 @@ def simulate(cases, progress: Callable[[int], None] | None = None,
     from .stepcheck import requested, step_check
 
     if requested():           # CYCLESIM_STEP_CHECK=1: every case again at half its step
-        step_check(cases, out)
+        step_check(cases, out, simulate=simulate)
     return out  # type: ignore[return-value]
 
 

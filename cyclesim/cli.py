@@ -178,7 +178,7 @@ _FILE_OUT = ("report",)
 def _check_multi_cylinder(case) -> None:
     """The per-cylinder entries of ``multi_cylinder`` against ``engine.cylinders``, as the engine
     commands check them (a shown config is one they can run)."""
-    from .engine import _spread, exhaust_branches, firing_offsets
+    from .engine.setup import _spread, exhaust_branches, firing_offsets
     from .errors import ConfigError
 
     ms, n = case.multi_cylinder, int(case.engine.cylinders)

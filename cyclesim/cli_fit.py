@@ -12,7 +12,7 @@ __all__ = ["add_parsers", "cmd_fit", "cmd_predict", "HANDLERS"]
 
 def add_parsers(subparsers) -> None:
     """Add the ``fit`` and ``predict`` sub-commands to an ``argparse`` sub-parser set."""
-    from .fit import CALIBRATION_RULE
+    from .calibration.bounds import CALIBRATION_RULE
 
     f = subparsers.add_parser(
         "fit", help="fit submodel parameters to measured cylinder pressure; write a calibrated config",
@@ -92,7 +92,7 @@ def _pair(text: str, what: str) -> tuple[float, float]:
 def cmd_fit(args) -> int:
     """Handler of ``cyclesim fit``."""
     from .config import load_config
-    from .fit import check_calibratable
+    from .calibration import check_calibratable
     from .output import prepare_out_dir
 
     from .cli_checks import finite
@@ -133,7 +133,7 @@ def cmd_fit(args) -> int:
 
 def _fit_with(args, case, weights, status):
     """The fit of ``cyclesim fit``, with its iterations on a status line where one is given."""
-    from .fit import fit
+    from .calibration import fit
 
     def progress(it, done, total):
         status(f"fit iteration {it}: {done} of {total} problem(s) converged")

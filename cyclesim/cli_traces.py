@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from .errors import CyclesimError
+from .traces.analysis_settings import analysis_inputs
 
 __all__ = ["add_parsers", "cmd_analyse", "cmd_traces", "analysis_inputs", "HANDLERS"]
 
@@ -105,47 +106,6 @@ def _positive(name: str, value, unit: str) -> None:
         return
     if not (math.isfinite(value) and value > 0):
         raise CyclesimError(f"{name} {value:g}: expected a number > 0 [{unit}]")
-
-
-def analysis_inputs(case):
-    """Geometry and analyser settings from a config's engine, valves, walls and operating sections.
-
-    Returns
-    -------
-    (cyclesim.geometry.Geometry, cyclesim.traces.analysis.AnalysisSettings, speed_rpm [rpm])
-    """
-    from .geometry import Geometry
-    from .traces.analysis import AnalysisSettings
-
-    e, v, w, op = (case.section(n) for n in ("engine", "valves", "walls", "operating"))
-    g = Geometry(e.bore_mm / 1000.0, e.stroke_mm / 1000.0, e.conrod_mm / 1000.0, e.compression_ratio,
-                 pin_offset_m=e.pin_offset_mm / 1000.0, head_area_factor=e.head_area_factor,
-                 piston_area_factor=e.piston_area_factor)
-    hf, pf = e.head_area_factor, e.piston_area_factor
-    t_wall = (hf * w.head_temperature_K + pf * w.piston_temperature_K) / (hf + pf)
-    from .config import get_dotted
-
-    extra = {}
-    f = case.section("fuel")
-    if getattr(f, "C", None) is None:          # a built-in fuel by name (a custom one keeps the default)
-        extra["fuel"] = str(f.name)
-    extra["fuel_air_lambda"] = float(getattr(op, "lambda"))
-    # burned-gas share of the charge at IVC: the config's residual fraction when given (else the
-    # analyser's estimate), with external EGR mixed into the fresh part
-    xr = get_dotted(case.raw, "operating.residual_fraction")
-    xr = float(xr) if xr is not None else AnalysisSettings.residual_fraction
-    egr = float(op.egr_fraction)
-    extra["residual_fraction"] = xr + (1.0 - xr) * egr
-    gas = case.section("gas")
-    if getattr(gas, "burned_gas", None):
-        extra["burned_gas"] = str(gas.burned_gas)
-    spark = get_dotted(case.raw, "burn.spark_advance_deg")
-    if spark is not None and str(get_dotted(case.raw, "burn.model") or "") != "none":
-        extra["spark_advance_deg"] = float(spark)
-    s = AnalysisSettings(ivc_deg=float(v.ivc_deg), evo_deg=float(v.evo_deg),
-                         T_ivc_K=float(op.ivc_temperature_K), tdc_wall_temperature_K=float(t_wall),
-                         bore_m=e.bore_mm / 1000.0, **extra)
-    return g, s, float(op.speed_rpm)
 
 
 def cmd_analyse(args) -> int:

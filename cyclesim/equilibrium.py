@@ -35,7 +35,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from . import thermo
+import cyclesim.thermo as thermo
 from .errors import SolverError
 
 SPECIES = ("CO2", "H2O", "N2", "O2", "CO", "H2", "OH", "H", "O", "NO", "N", "AR")

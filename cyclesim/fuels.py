@@ -17,7 +17,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from . import thermo
+import cyclesim.thermo as thermo
 from .data.nasa7 import NASA7
 from .errors import ConfigError
 from .params import suggestion

@@ -163,7 +163,7 @@ class Geometry:
         for a fraction of the work where the cases share their geometry (a sweep of
         operating conditions).
         """
-        from .batch import distinct_rows
+        from .distinct import distinct_rows
 
         cols = (self.bore_m, self.stroke_m, self.conrod_m, self.compression_ratio, self.pin_offset_m,
                 self.head_area_factor, self.piston_area_factor)

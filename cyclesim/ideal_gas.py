@@ -4,7 +4,7 @@ Fresh charge and burned gas share one constant gas constant and one constant
 ratio of specific heats; burning releases the fuel's lower heating value and
 changes nothing else.  With this gas, an instant burn at TDC and no losses the
 cycle is the air-standard Otto cycle, eta = 1 - r^(1-gamma) (Heywood 1988,
-eq. 5.31).  Same interface as :class:`cyclesim.thermo.GasTables`.
+eq. 5.31).  Same interface as :class:`cyclesim.gas_tables.GasTables`.
 """
 
 from __future__ import annotations

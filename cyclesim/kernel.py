@@ -73,7 +73,7 @@ def threads() -> int:
         if n < 1:
             raise ConfigError(f"{THREADS_ENV}={v!r}: expected a whole number >= 1")
         return n
-    from .parallel import available_cpus
+    from .cpus import available_cpus
 
     return min(2, available_cpus())
 
@@ -99,7 +99,7 @@ def compiled_module():
         return None
     if _mod is None:
         try:
-            from . import _compiled
+            import cyclesim._compiled as _compiled
             _mod = _compiled
         except ImportError as exc:
             if c == "compiled":

@@ -153,7 +153,7 @@ def _global_names(code) -> tuple:
 
 def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
     """The function's source, the functions it calls and the globals it reads, recursively."""
-    from . import kernel_ops
+    import cyclesim.kernel_ops as kernel_ops
 
     if fn.__name__ in funcs:
         if funcs[fn.__name__][0] is not fn:
@@ -353,7 +353,7 @@ def template_functions() -> tuple:
 
 
 def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
-    from . import _compiled as base
+    import cyclesim._compiled as base
 
     funcs: dict = {}
     consts: dict = {}
@@ -436,7 +436,7 @@ def _quick_key(parts: tuple, forms: dict) -> str:
     that points at the loop's file: a new process finds its loop without reading any source."""
     import marshal
 
-    from . import _compiled as base
+    import cyclesim._compiled as base
 
     h = hashlib.sha256(VERSION.encode())
     for path in (base.__file__, __file__):

@@ -5,13 +5,13 @@ from __future__ import annotations
 import csv
 import io
 import json
-import os
-import tempfile
 from pathlib import Path
 from typing import Iterable
 
 import numpy as np
 
+from .atomic_files import atomic_write_text
+from .energy_labels import UNRELEASED_LABELS, energy_label
 from .errors import CyclesimError
 from .outdir import folder_entries
 
@@ -20,15 +20,6 @@ CAUTION = (
     " limits gradually, with knock detection, within the manufacturer's limits and the test"
     " cell's procedures, local codes and licensed practice."
 )
-
-
-ENERGY_LABELS = {"unreleased_chemical_energy_J": "unreleased chemical energy"}
-"""Energy-balance terms whose key does not read well as a label (table and plot share them)."""
-
-
-def energy_label(key: str) -> str:
-    """Label of an energy-balance term: ``wall_heat_J`` -> ``wall heat``."""
-    return ENERGY_LABELS.get(key, key.replace("_J", "").replace("_", " "))
 
 
 CONVENTIONS = {
@@ -59,44 +50,6 @@ def plain(x):
         v = float(x)
         return v if np.isfinite(v) else None
     return x
-
-
-def _current_umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
-
-
-_UMASK = _current_umask()
-
-
-def atomic_write_bytes(path: Path, data: bytes) -> None:
-    """Write a file through a temporary file and a rename (never half-written)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    except OSError as exc:    # named after the file meant, not the temporary one
-        raise type(exc)(exc.errno, exc.strerror, str(path)) from None
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-        # mkstemp makes the file private (0600); give it the mode a plain open() would
-        os.chmod(tmp, 0o666 & ~_UMASK)
-        os.replace(tmp, path)
-    except BaseException as exc:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        if isinstance(exc, OSError) and exc.errno is not None:
-            raise type(exc)(exc.errno, exc.strerror, str(path)) from None
-        raise
-
-
-def atomic_write_text(path: Path, text: str) -> None:
-    """Write a UTF-8 text file atomically (see :func:`atomic_write_bytes`)."""
-    atomic_write_bytes(path, text.encode("utf-8"))
 
 
 def prepare_out_dir(out: Path, force: bool, create: bool = True) -> Path:
@@ -308,10 +261,6 @@ def _motored_rows(s, mode, lines, row, head, loop_line) -> None:
     else:
         row("trapped mass", "trapped_mass_mg", "mg", ".1f")
         row("blowby (of trapped mass)", "blowby_fraction", "%", ".2f", 100)
-
-
-UNRELEASED_LABELS = (("CO_J", "CO"), ("H2_J", "H2"), ("unburned_fuel_J", "unburned fuel"))
-"""Carriers of the unreleased chemical energy, in the order the outputs list them."""
 
 
 def energy_balance_lines(eb: dict, unreleased: dict | None = None) -> list[str]:

@@ -67,6 +67,7 @@ import signal
 import sys
 from typing import Any, Callable, Iterable, Sequence
 
+from .cpus import available_cpus
 from .errors import ConfigError, CyclesimError
 
 __all__ = [
@@ -140,18 +141,10 @@ def run_chunk(cases: Sequence) -> list:
 def run_chunk_in_worker(cases: Sequence) -> list:
     """:func:`run_chunk` in a worker of a cluster: one thread per compiled cycle, as the
     cluster's workers fill the CPUs already."""
-    from . import kernel
+    import cyclesim.kernel as kernel
 
     kernel.set_threads(1)
     return run_chunk(cases)
-
-
-def available_cpus() -> int:
-    """CPUs this process may run on (its affinity mask where the system has one)."""
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except (AttributeError, OSError):
-        return max(1, os.cpu_count() or 1)
 
 
 def parse_workers(value: Any) -> int | str:
@@ -443,7 +436,7 @@ def _worker_init(parent: int | None = None) -> None:
 
     end_with_parent(parent)
     # the workers fill the CPUs already: one thread per compiled cycle each
-    from . import kernel
+    import cyclesim.kernel as kernel
 
     kernel.set_threads(1)
 

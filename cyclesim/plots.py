@@ -21,7 +21,7 @@ def _plt():
 
 
 def _save(fig, path: Path) -> Path:
-    from .output import atomic_write_bytes
+    from .atomic_files import atomic_write_bytes
     import io
 
     buf = io.BytesIO()
@@ -175,7 +175,7 @@ def plot_energy_balance(eb: dict, unreleased: dict | None, path: Path) -> Path:
     """Bars of the energy-balance terms in % of its basis (fuel energy, chemical energy released
     or, motored, the compression work); the unreleased chemical energy split by carrier."""
     from .motoring import energy_basis
-    from .output import UNRELEASED_LABELS, energy_label
+    from .energy_labels import UNRELEASED_LABELS, energy_label
 
     plt = _plt()
     base_key, base_label = energy_basis(eb)

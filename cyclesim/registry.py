@@ -15,7 +15,7 @@ from typing import Iterable
 
 import pluggy
 
-from . import hookspecs
+import cyclesim.hookspecs as hookspecs
 from .errors import PluginError
 from .params import suggestion
 from .roles import ROLE_BASES, ROLES, Submodel

@@ -66,7 +66,7 @@ class SetupContext:
     operating : SimpleNamespace
         The ``operating`` config section as arrays (B,) (SI-suffixed keys as
         written, e.g. ``intake_pressure_bar``).
-    gas : cyclesim.thermo.GasTables
+    gas : cyclesim.gas_tables.GasTables
         Property tables of the batch's fresh charge and burned gas.
     base_dir : pathlib.Path
         Folder of the config file, for resolving relative paths.
@@ -131,7 +131,7 @@ class GasState:
     sub : dict[str, ndarray]
         Submodel state components by ``"role.name"``.
     geometry : cyclesim.geometry.Geometry
-    gas : cyclesim.thermo.GasTables
+    gas : cyclesim.gas_tables.GasTables
         The batch's gas properties; a kernel takes it as the argument ``gas`` and reads the
         fresh charge through ``cyclesim.kernel_ops.fresh_charge(gas, T)``.
     """

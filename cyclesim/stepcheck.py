@@ -35,13 +35,14 @@ def _imep(res) -> float | None:
     return None
 
 
-def step_check(cases: Sequence, results: Sequence | None = None) -> list[float | None]:
+def step_check(cases: Sequence, results: Sequence | None = None, *, simulate) -> list[float | None]:
     """Relative change of IMEP [-] of each case when its step is halved (None: a run failed).
 
-    ``results`` are the cases' results at their own step, if already computed.  A case whose
-    change passes :data:`IMEP_BOUND` gets a warning in its result.
+    ``results`` are the cases' results at their own step, if already computed; ``simulate`` runs
+    a list of cases (:func:`cyclesim.simulate`; passed in, as the API calls this check).  A case
+    whose change passes :data:`IMEP_BOUND` gets a warning in its result.
     """
-    from .api import case_with, simulate
+    from .config import case_with
 
     cases = list(cases)
     if results is None:

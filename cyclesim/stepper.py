@@ -85,6 +85,9 @@ KUTTA3 = Tableau(
 for Ordinary Differential Equations, 2nd ed., sec. 23), stages at the step's start, middle and
 end like the cycle grid's points."""
 
+TABLEAU = KUTTA3
+"""The cycle loops' Runge-Kutta scheme."""
+
 
 def combine(y, h: float, coeffs, den: float, ks):
     """``y + (h / den) sum_j coeffs[j] ks[j]`` on arrays, the terms added in order (a

@@ -1,6 +1,6 @@
 """Wiebe burn law whose parameters are interpolated from a calibrated burn table.
 
-The table is the CSV that :func:`cyclesim.fit.write_burn_table` writes: one row
+The table is the CSV that :func:`cyclesim.calibration.write_burn_table` writes: one row
 per calibrated operating point with ``speed_rpm``, ``intake_pressure_bar`` and
 any of ``ignition_delay_deg``, ``duration_deg``, ``m``, ``a``,
 ``combustion_efficiency``.  Each case takes these by piecewise-linear

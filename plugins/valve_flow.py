@@ -423,7 +423,7 @@ class PoppetValves(ValveFlow):
         """Rows of the cases with distinct valve settings, and each case's row among them."""
         got = getattr(self, "_distinct_rows", None)
         if got is None:
-            from cyclesim.batch import distinct_rows
+            from cyclesim.distinct import distinct_rows
 
             cols = [self.threshold, self.dwell_arr, self.port_ratio, _arr(self.p.intake_area_factor, self.B)]
             for valve in _VALVES:

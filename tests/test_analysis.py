@@ -13,7 +13,8 @@ import numpy as np
 import pytest
 
 import cyclesim
-from cyclesim.cli_traces import add_parsers, analysis_inputs, cmd_analyse
+from cyclesim.cli_traces import add_parsers, cmd_analyse
+from cyclesim.traces.analysis_settings import analysis_inputs
 from cyclesim.config import load_config
 from cyclesim.errors import CyclesimError
 from cyclesim.geometry import Geometry
@@ -522,7 +523,7 @@ def test_analyser_wall_heat_uses_the_models_woschni_constants(monkeypatch):
     # so with no combustion term (start of combustion after the window) doubling the model's C1
     # scales h, and so the wall heat, by 2^0.8 (h ~ w^0.8, Woschni 1967, SAE 670931)
     from cyclesim.registry import get_registry
-    from cyclesim.traces import analysis as an
+    from cyclesim.traces import heat_release as an
     from cyclesim.traces.cycle_math import VolumeFunction
 
     g = Geometry(np.array([0.086]), np.array([0.086]), np.array([0.143]), np.array([10.5]))

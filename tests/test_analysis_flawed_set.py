@@ -14,7 +14,8 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from cyclesim.cli_traces import add_parsers, analysis_inputs, cmd_analyse
+from cyclesim.cli_traces import add_parsers, cmd_analyse
+from cyclesim.traces.analysis_settings import analysis_inputs
 from cyclesim.config import load_config
 from cyclesim.errors import CyclesimError
 from cyclesim.traces.analysis import (AnalysisSettings, VolumeFunction, analyse, wall_heat_scale_flag,
@@ -172,7 +173,7 @@ def test_compression_release_is_zero_along_a_cantera_isentrope():
     # compression work (the tables' NASA-7 data are GRI-Mech 3.0's; the rest is the trapezoid rule)
     import cantera as ct
 
-    from cyclesim.traces.analysis import _gas_tables
+    from cyclesim.traces.heat_release import _gas_tables
     from cyclesim.traces.tdc_fired import _gas_lookup, compression_release
 
     g, _, _ = analysis_inputs(load_config("demo"))

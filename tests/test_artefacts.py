@@ -253,9 +253,9 @@ def test_bad_grid_and_shapes_raise():
 @pytest.fixture
 def small_blocks(monkeypatch):
     """One cycle per block, so every block boundary of the stream is exercised."""
-    from cyclesim.traces import artefacts
+    from cyclesim.traces import signal_stream
 
-    monkeypatch.setattr(artefacts, "_BLOCK_SAMPLES", 1)
+    monkeypatch.setattr(signal_stream, "_BLOCK_SAMPLES", 1)
 
 
 def joined(P):
@@ -309,7 +309,7 @@ def test_stream_resampling_equals_the_not_a_knot_cubic_spline(small_blocks):
     # two first-order recursions and local end splines: equal to rounding, on rough data too.
     from scipy.interpolate import CubicSpline
 
-    from cyclesim.traces.artefacts import _resample_stream
+    from cyclesim.traces.signal_stream import _resample_stream
 
     rng = np.random.default_rng(5)
     nc, m = 4, 300

@@ -152,7 +152,7 @@ def test_step_self_check_warns_only_where_the_step_does_not_resolve_the_burn(sin
     # a 2 deg burn at a 1 deg step: two steps across it cannot resolve it
     bad = load_config(str(sine), ["burn.burn_length_deg=2", "simulation.step_deg=1.0"])
     res = simulate([good, bad])
-    d = step_check([good, bad], res)
+    d = step_check([good, bad], res, simulate=simulate)
     assert d[0] is not None and d[0] < IMEP_BOUND
     assert not any("step self-check" in w for w in res[0].warnings)
     assert d[1] is not None and d[1] > IMEP_BOUND

@@ -9,8 +9,8 @@ import pytest
 from scipy.optimize import brentq
 
 import cyclesim
-from cyclesim.engine import (EngineSetup, _Manifolds, firing_offsets, run_engine, simulate_engines,
-                             throttle_area)
+from cyclesim.engine import EngineSetup, firing_offsets, run_engine, simulate_engines, throttle_area
+from cyclesim.engine.manifolds import _Manifolds
 from cyclesim.errors import ConfigError
 
 # a two-cylinder variant of the demo at a coarse step keeps these checks quick
@@ -269,7 +269,7 @@ def test_a_boosted_config_without_its_supply_pressure_is_warned():
 
 
 def test_engine_warnings_group_by_kind_with_the_cylinders():
-    from cyclesim.studies.map_console import cylinder_warning_lines
+    from cyclesim.warning_groups import cylinder_warning_lines
 
     lines = cylinder_warning_lines(["cylinder 1: exhaust choked for 12 deg", "cylinder 3: exhaust choked for 14.5 deg",
                                     "cylinder 3: trapped mass low", "manifolds not settled after 8 coupled cycles"], 4)

@@ -98,7 +98,7 @@ def _reference_trace(theta):
 
 
 def test_recovers_burn_parameters_of_an_independent_reference_model():
-    from cyclesim.fit import fit
+    from cyclesim.calibration import fit
 
     theta = np.arange(-136.0, 134.0 + 1e-9, 0.5)
     p = _reference_trace(theta)
@@ -131,7 +131,7 @@ def _closed_trace(case, step=0.5):
 
 
 def test_heat_transfer_and_combustion_efficiency_raise_the_identifiability_warning():
-    from cyclesim.fit import fit
+    from cyclesim.calibration import fit
 
     case = load_config("demo_closed", ["simulation.step_deg=1.0"])
     truth = case_with(case, {"heat_transfer.multiplier": 1.2, "burn.combustion_efficiency": 0.95})
@@ -157,7 +157,7 @@ def test_heat_transfer_and_combustion_efficiency_raise_the_identifiability_warni
 
 
 def test_flat_parameter_is_reported():
-    from cyclesim.fit import fit
+    from cyclesim.calibration import fit
 
     case = load_config("demo_closed", ["simulation.step_deg=1.0", "blowby.model=none"])
     ts = _closed_trace(case)
@@ -169,7 +169,7 @@ def test_flat_parameter_is_reported():
 
 def test_calibrated_config_extends_the_original_and_runs(tmp_path):
     import cyclesim
-    from cyclesim.fit import fit
+    from cyclesim.calibration import fit
 
     case = load_config("demo_closed", ["simulation.step_deg=1.0"])
     truth = case_with(case, {"burn.duration_deg": 44.0, "heat_transfer.multiplier": 1.1})
@@ -200,7 +200,7 @@ def test_calibrated_config_extends_the_original_and_runs(tmp_path):
 
 
 def test_heat_release_target_and_weights_recover_the_burn():
-    from cyclesim.fit import fit
+    from cyclesim.calibration import fit
 
     case = load_config("demo_closed", ["simulation.step_deg=1.0"])
     truth = case_with(case, {"burn.ignition_delay_deg": 7.0, "burn.duration_deg": 52.0})
@@ -214,7 +214,7 @@ def test_heat_release_target_and_weights_recover_the_burn():
 
 
 def test_fit_points_shares_one_multiplier_and_writes_a_burn_table(tmp_path):
-    from cyclesim.fit import burn_table, fit_points, write_burn_table
+    from cyclesim.calibration import burn_table, fit_points, write_burn_table
 
     base = load_config("demo_closed", ["simulation.step_deg=1.0"])
     pts = [({"operating.speed_rpm": 2000.0, "burn.duration_deg": 42.0}),
@@ -239,7 +239,7 @@ def test_fit_points_shares_one_multiplier_and_writes_a_burn_table(tmp_path):
 
 
 def test_bounds_come_from_the_declared_ranges():
-    from cyclesim.fit import param_bounds
+    from cyclesim.calibration import param_bounds
 
     case = load_config("demo_closed")
     # declared in plugins/wiebe.py: ignition delay 0..60 deg; heat_transfer.multiplier 0..10;
@@ -255,7 +255,8 @@ def test_bounds_come_from_the_declared_ranges():
 
 
 def test_measurement_terms_are_estimated_and_remove_their_bias():
-    from cyclesim.fit import fit, thermal_lag
+    from cyclesim.calibration import fit
+    from cyclesim.calibration.problem import thermal_lag
     import cyclesim
 
     case = load_config("demo_closed", ["simulation.step_deg=1.0"])
@@ -289,7 +290,7 @@ def test_tdc_systematic_term_matches_the_effect_of_a_phasing_error():
     common practice)."""
     from scipy.interpolate import CubicSpline
 
-    from cyclesim.fit import fit
+    from cyclesim.calibration import fit
 
     case = load_config("demo_closed", ["simulation.step_deg=1.0"])
     ts = _closed_trace(case_with(case, {"burn.duration_deg": 50.0}))

@@ -26,7 +26,7 @@ def _trace(case, meta=None, noise_bar=0.0, seed=1):
 
 
 def test_closed_fit_starts_from_the_measured_ivc_pressure():
-    from cyclesim.fit import fit
+    from cyclesim.calibration import fit
 
     config = load_config("demo_closed", FAST)                        # states 0.95 bar at IVC
     truth = case_with(config, {"operating.ivc_pressure_bar": 1.07, "burn.duration_deg": 46.0})
@@ -45,7 +45,7 @@ def test_closed_fit_starts_from_the_measured_ivc_pressure():
 
 
 def test_ivc_temperature_follows_from_measured_air_and_fuel():
-    from cyclesim.fit import fit
+    from cyclesim.calibration import fit
 
     config = load_config("demo_closed", FAST)                        # 0.95 bar, 345 K, x_r 0.06
     truth = case_with(config, {"operating.ivc_pressure_bar": 1.07, "operating.ivc_temperature_K": 362.0})
@@ -69,7 +69,7 @@ def test_ivc_temperature_follows_from_measured_air_and_fuel():
 
 
 def test_ivc_pressure_uncertainty_is_in_the_intervals():
-    from cyclesim.fit import fit
+    from cyclesim.calibration import fit
 
     config = load_config("demo_closed", FAST)
     truth = case_with(config, {"burn.duration_deg": 45.0})
@@ -87,7 +87,7 @@ def test_ivc_pressure_uncertainty_is_in_the_intervals():
 
 
 def test_intervals_are_clipped_to_the_allowed_range(tmp_path):
-    from cyclesim.fit import fit
+    from cyclesim.calibration import fit
 
     config = load_config("demo_closed", FAST)
     truth = case_with(config, {"heat_transfer.multiplier": 0.0})

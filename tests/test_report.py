@@ -118,7 +118,7 @@ def test_fit_prediction_and_analysis_folders_show_their_results(tmp_path):
 
     import numpy as np
 
-    from cyclesim.fit import fit
+    from cyclesim.calibration import fit
     from cyclesim.studies.uncertainty import propagate
     from cyclesim.traces.export import TraceSet
 

@@ -27,7 +27,7 @@ from cyclesim.errors import ConfigError
 from cyclesim.fuels import get_fuel
 from cyclesim.ideal_gas import ConstantGammaGas
 from cyclesim.solver import _RHS, _initial_state, _interp_at, integrate
-from cyclesim.thermo import build_gas_tables
+from cyclesim.gas_tables import build_gas_tables
 
 AIR = {"O2": 0.2095, "N2": 0.7812, "AR": 0.0093}   # as tests/test_closed_cycle_reference.py
 

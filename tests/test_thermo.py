@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from cyclesim import equilibrium as eq
-from cyclesim import thermo
+from cyclesim import gas_tables, thermo
 from cyclesim.data.nasa7 import NASA7
 from cyclesim.errors import ConfigError
 from cyclesim.fuels import BUILTIN_FUELS
@@ -110,7 +110,7 @@ def test_fresh_charge_matches_cantera_mixture(gri, nasa):
     sp = [gri["O2"], gri["N2"], gri["AR"], nasa["C8H18,isooctane"]]
     gas = ct.Solution(thermo="ideal-gas", species=sp)
     X = {"O2": n["O2"], "N2": n["N2"], "AR": n["AR"], "C8H18,isooctane": 1.0}
-    g = thermo.build_gas_tables(fuel, [phi])
+    g = gas_tables.build_gas_tables(fuel, [phi])
     T = np.array([300.0, 500.0, 800.0, 999.0, 1001.0, 1500.0, 2500.0])
     u, cv, R = g.unburned(np.broadcast_to(T, (1, T.size)))
     for i, t in enumerate(T):
@@ -123,7 +123,7 @@ def test_fresh_charge_matches_cantera_mixture(gri, nasa):
 
 
 def test_properties_accept_case_by_point_arrays():
-    g = thermo.build_gas_tables(BUILTIN_FUELS["gasoline"], [0.9, 1.1])
+    g = gas_tables.build_gas_tables(BUILTIN_FUELS["gasoline"], [0.9, 1.1])
     T = np.array([[300.0, 600.0, 1200.0], [350.0, 900.0, 2000.0]])
     u2, cv2, R2 = g.unburned(T)
     for k in range(3):
@@ -158,7 +158,7 @@ def test_heat_of_reaction_equals_fuel_energy(fuel):
     # products' enthalpy is the fuel's LHV share (phi <= 1); rich, less the
     # chemical energy of the CO and H2 left (definition of chem_b).
     phi = np.array([0.5, 0.8, 1.0, 1.2, 1.6])
-    g = thermo.build_gas_tables(BUILTIN_FUELS[fuel], phi, "complete")
+    g = gas_tables.build_gas_tables(BUILTIN_FUELS[fuel], phi, "complete")
     lean = phi <= 1
     np.testing.assert_allclose((g.h298_u - g.h298_b)[lean], g.lhv_mix[lean], rtol=1e-10)
     assert np.all(g.chem_b[lean] == 0) and np.all(g.chem_b[~lean] > 0)
@@ -170,7 +170,7 @@ def test_heat_of_reaction_equals_fuel_energy(fuel):
 def test_complete_model_rich_products_obey_fixed_shift_constant():
     # Heywood 1988 section 4.9.1 (from memory): rich products with
     # [CO][H2O] = K [CO2][H2], K = 3.5; element balance by construction.
-    g = thermo.build_gas_tables(BUILTIN_FUELS["isooctane"], [1.3], "complete")
+    g = gas_tables.build_gas_tables(BUILTIN_FUELS["isooctane"], [1.3], "complete")
     x = g.burned_mole_fractions(np.array([1500.0]), np.array([5.0]))
     K = x["CO"] * x["H2O"] / (x["CO2"] * x["H2"])
     assert K[0] == pytest.approx(3.5, rel=1e-10)
@@ -183,7 +183,7 @@ def test_complete_model_rich_products_obey_fixed_shift_constant():
 # ---------------------------------------------------------------------------
 @pytest.fixture(scope="module")
 def stoich_tables():
-    return thermo.build_gas_tables(BUILTIN_FUELS["gasoline"], [1.0])
+    return gas_tables.build_gas_tables(BUILTIN_FUELS["gasoline"], [1.0])
 
 
 def _direct(fuel, phi, T, rho):
@@ -194,11 +194,11 @@ def _direct(fuel, phi, T, rho):
 def test_table_matches_direct_equilibrium(stoich_tables):
     rng = np.random.default_rng(7)
     N = 3000
-    g = thermo.build_gas_tables(BUILTIN_FUELS["gasoline"], np.ones(N))
+    g = gas_tables.build_gas_tables(BUILTIN_FUELS["gasoline"], np.ones(N))
     T = rng.uniform(300.0, 3900.0, N)
     # (a) at density nodes only the cubic Hermite in T acts: u within 1e-5 relative
     # to its scale |u| + cv T (u crosses zero), R within 1e-6
-    r0, r1, nR = thermo.RHO_GRID
+    r0, r1, nR = gas_tables.RHO_GRID
     rho_nodes = np.exp(np.linspace(np.log(r0), np.log(r1), nR))
     rho = rho_nodes[rng.integers(1, nR - 1, N)]
     d = _direct(BUILTIN_FUELS["gasoline"], 1.0, T, rho)
@@ -225,10 +225,10 @@ def test_table_derivatives_are_those_of_the_interpolant(stoich_tables):
     # ln(rho)-slopes of the interpolated u and R (energy consistency in the solver)
     rng = np.random.default_rng(3)
     N = 500
-    g = thermo.build_gas_tables(BUILTIN_FUELS["gasoline"], np.ones(N))
-    T0, T1, dT = thermo.T_GRID
+    g = gas_tables.build_gas_tables(BUILTIN_FUELS["gasoline"], np.ones(N))
+    T0, T1, dT = gas_tables.T_GRID
     T = T0 + dT * (rng.integers(0, int((T1 - T0) / dT), N) + rng.uniform(0.1, 0.9, N))
-    r0, r1, nR = thermo.RHO_GRID
+    r0, r1, nR = gas_tables.RHO_GRID
     dl = np.log(r1 / r0) / (nR - 1)
     lr = np.log(r0) + dl * (rng.integers(0, nR - 1, N) + rng.uniform(0.1, 0.9, N))
     rho = np.exp(lr)
@@ -252,7 +252,7 @@ def test_table_derivatives_are_those_of_the_interpolant(stoich_tables):
 
 
 def test_mixture_combines_fresh_and_burned_by_mass():
-    g = thermo.build_gas_tables(BUILTIN_FUELS["gasoline"], [0.9, 1.0, 1.2])
+    g = gas_tables.build_gas_tables(BUILTIN_FUELS["gasoline"], [0.9, 1.0, 1.2])
     T = np.array([900.0, 2400.0, 1700.0])
     rho = np.array([8.0, 25.0, 0.9])
     y = np.array([0.1, 0.6, 1.0])
@@ -283,8 +283,8 @@ def test_mixture_combines_fresh_and_burned_by_mass():
 
 def test_cases_are_independent_of_batch_mates_and_share_tables():
     f = BUILTIN_FUELS["gasoline"]
-    g1 = thermo.build_gas_tables(f, [1.0])
-    gb = thermo.build_gas_tables(f, [0.8, 1.0, 1.0, 1.3])
+    g1 = gas_tables.build_gas_tables(f, [1.0])
+    gb = gas_tables.build_gas_tables(f, [0.8, 1.0, 1.0, 1.3])
     assert gb._cases[1] is gb._cases[2] is g1._cases[0]  # equal phi: one build
     T = np.array([2300.0, 2300.0, 1000.0, 2300.0])
     rho = np.array([20.0, 20.0, 3.0, 20.0])
@@ -296,15 +296,15 @@ def test_cases_are_independent_of_batch_mates_and_share_tables():
 
 
 def test_range_clipping_and_model_names():
-    g = thermo.build_gas_tables(BUILTIN_FUELS["methane"], [1.0])
+    g = gas_tables.build_gas_tables(BUILTIN_FUELS["methane"], [1.0])
     lo = g.burned(np.array([100.0]), np.array([1e-4]))
     edge = g.burned(np.array([g.T_range[0]]), np.array([g.rho_range[0]]))
     assert lo[0][0] == pytest.approx(edge[0][0], rel=1e-12)
     assert all(np.isfinite(v).all() for v in g.burned(np.array([9000.0]), np.array([1e4])))
     with pytest.raises(ConfigError, match="did you mean 'complete'"):
-        thermo.build_gas_tables(BUILTIN_FUELS["methane"], [1.0], "compleat")
+        gas_tables.build_gas_tables(BUILTIN_FUELS["methane"], [1.0], "compleat")
     with pytest.raises(ConfigError):
-        thermo.build_gas_tables(BUILTIN_FUELS["methane"], [0.0])
+        gas_tables.build_gas_tables(BUILTIN_FUELS["methane"], [0.0])
 
 
 # ---------------------------------------------------------------------------
@@ -327,7 +327,7 @@ def test_adiabatic_constant_volume_combustion_matches_cantera(phi):
     # species set: HO2, NO2, N2O ... are missing from ours).
     T0 = np.array([700.0])
     rho = np.array([30.0])
-    g = thermo.build_gas_tables(BUILTIN_FUELS["methane"], [phi])
+    g = gas_tables.build_gas_tables(BUILTIN_FUELS["methane"], [phi])
     T = _burn_at_constant_volume(g, T0, rho)
     p = g.pressure(T, rho, np.ones(1))
     gas = ct.Solution("gri30.yaml")
@@ -339,7 +339,7 @@ def test_adiabatic_constant_volume_combustion_matches_cantera(phi):
     assert p[0] == pytest.approx(gas.P, rel=5e-3)
     # without dissociation the temperature comes out higher: by ~100-250 K
     # near phi = 1 (Heywood 1988, ch. 4, from memory)
-    gc = thermo.build_gas_tables(BUILTIN_FUELS["methane"], [phi], "complete")
+    gc = gas_tables.build_gas_tables(BUILTIN_FUELS["methane"], [phi], "complete")
     Tc = _burn_at_constant_volume(gc, T0, rho)
     assert Tc[0] > T[0]
     if phi == 1.0:

@@ -226,7 +226,7 @@ def test_interval_coverage_on_synthetic_traces_with_default_artefacts():
     import cyclesim
     from scipy import stats
 
-    from cyclesim.fit import fit
+    from cyclesim.calibration import fit
     from cyclesim.traces.artefacts import ArtefactSettings
     from cyclesim.traces.synthesis import CycleVariation, synthesize
 

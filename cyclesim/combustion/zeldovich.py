@@ -46,7 +46,8 @@ import math
 
 import numpy as np
 
-from .. import equilibrium, thermo
+import cyclesim.equilibrium as equilibrium
+import cyclesim.thermo as thermo
 
 _CM3 = 1e-6  # cm^3/mol -> m^3/mol
 _I = {s: i for i, s in enumerate(equilibrium.SPECIES)}

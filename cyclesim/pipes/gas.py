@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .. import thermo
+import cyclesim.thermo as thermo
 
 
 @dataclass(frozen=True)

@@ -121,7 +121,7 @@ def exhaust_gas_properties(case: Case, T):
     """Gas constant R [J/(kg K)], cp [J/(kg K)] and gamma [-] of the case's complete-combustion products at T [K]."""
     from ..fuels import get_fuel
     from ..registry import get_registry
-    from ..thermo import build_gas_tables
+    from ..gas_tables import build_gas_tables
 
     f = case.fuel
     spec = f.name if f.C is None else {"name": f.name, "C": f.C, "H": f.H, "O": f.O or 0.0,

@@ -4,10 +4,10 @@ by kind with their counts and the points they concern, the notes and the caution
 from __future__ import annotations
 
 import math
-import re
 
-__all__ = ["map_text", "group_labelled", "group_warnings", "warning_lines", "cylinder_warning_lines",
-           "knock_margin_text"]
+from ..warning_groups import group_labelled, warning_lines
+
+__all__ = ["map_text", "group_labelled", "group_warnings", "warning_lines", "knock_margin_text"]
 
 _SHORT_LIMITS = {"exhaust temperature (lambda at floor)": "T_exh, lambda floor", "fixed (config)": "fixed"}
 
@@ -76,22 +76,6 @@ def _cell(row, key, spec, scale, width):
     return f"{format(float(v) * scale, spec):>{width}s}"
 
 
-def group_labelled(items) -> list[dict]:
-    """Messages grouped by kind (numbers replaced by '#'), each with its count and the labels of the
-    points that gave it; ``items`` is an iterable of ``(label, messages)``.
-
-    Returns a list of ``{"kind", "example", "count", "points"}``.
-    """
-    groups: dict[str, dict] = {}
-    for label, msgs in items:
-        for w in dict.fromkeys(msgs):
-            kind = re.sub(r"[-+]?\d+(\.\d+)?(e[-+]?\d+)?", "#", w)
-            g = groups.setdefault(kind, {"kind": kind, "example": w, "count": 0, "points": []})
-            g["count"] += 1
-            g["points"].append(label)
-    return list(groups.values())
-
-
 def group_warnings(m) -> list[dict]:
     """The points' warnings and errors of a map, one entry per kind (:func:`group_labelled`)."""
     from .sweep_files import WARNING_SEPARATOR
@@ -112,29 +96,6 @@ def group_warnings(m) -> list[dict]:
             yield label, msgs
 
     return group_labelled(items())
-
-
-def warning_lines(groups, total: int, noun: str = "points") -> list[str]:
-    """Console lines of :func:`group_warnings` (``noun``: what the labels count)."""
-    lines = []
-    for g in groups:
-        pts = ", ".join(g["points"][:6]) + (f", ... ({len(g['points']) - 6} more)" if len(g["points"]) > 6 else "")
-        lines.append(f"warning ({g['count']} of {total} {noun}): {g['example']}  [{pts}]")
-    return lines
-
-
-def cylinder_warning_lines(warnings, n_cylinders: int) -> list[str]:
-    """An engine's warnings: the cylinders' own ("cylinder N: ...") grouped by kind with their count
-    and the cylinders that gave them, then the engine's own, each indented."""
-    per, rest = [], []
-    for w in warnings:
-        m = re.match(r"cylinder (\d+): (.*)", w, re.S)
-        if m:
-            per.append((f"cyl {m.group(1)}", [m.group(2)]))
-        else:
-            rest.append(w)
-    out = ["  " + x for x in warning_lines(group_labelled(per), n_cylinders, "cylinders")]
-    return out + [f"  warning: {w}" for w in rest]
 
 
 def map_text(m) -> str:

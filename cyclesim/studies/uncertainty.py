@@ -76,7 +76,7 @@ def check_calibration(cal: Mapping, case: Case | None = None, where: str = "cali
     """Refuse a calibration that ``cyclesim fit`` could not have written, in one line.
 
     It must name its ``parameters`` (each a model parameter a fit may estimate, see
-    :func:`cyclesim.fit.check_calibratable`, when ``case`` is given), their fitted ``values``
+    :func:`cyclesim.calibration.check_calibratable`, when ``case`` is given), their fitted ``values``
     (finite) and a ``covariance``: square, finite, symmetric and positive semi-definite, as any
     covariance matrix is (e.g. Seber & Lee 2003, *Linear Regression Analysis*, sec. 1.3); the
     eigenvalues may fall below zero only by rounding (1e-9 of the largest).
@@ -109,7 +109,7 @@ def check_calibration(cal: Mapping, case: Case | None = None, where: str = "cali
         if cal.get(b) is not None and (not isinstance(cal[b], list) or len(cal[b]) != len(keys)):
             raise CyclesimError(f"{where}: {b}: expected {len(keys)} entries (null for none)")
     if case is not None:
-        from ..fit import check_calibratable
+        from ..calibration import check_calibratable
 
         for k in keys:
             try:

@@ -10,7 +10,8 @@ from pathlib import Path
 import numpy as np
 
 from ..output import atomic_write_text, plain, write_rows_csv
-from .analysis import BAR, AnalysisResult
+from .analysis import AnalysisResult
+from .analysis_settings import BAR
 from .export import CRANK_CONVENTION
 
 __all__ = ["write_analysis"]

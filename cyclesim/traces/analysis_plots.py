@@ -16,7 +16,9 @@ from pathlib import Path
 import numpy as np
 
 from ..plots import _plain_log_ticks, _plt, _save
-from .analysis import BAR, AnalysisResult, _normalised
+from .analysis import AnalysisResult
+from .analysis_settings import BAR
+from .heat_release import _normalised
 from .analysis_files import fired_selection
 
 __all__ = ["plot_analysis"]

@@ -515,7 +515,7 @@ def synthesize(
             return
         import io
 
-        from ..output import atomic_write_bytes
+        from ..atomic_files import atomic_write_bytes
 
         buf = io.BytesIO()
         np.savez(buf, P=P[i0:i0 + n], T=Tg[i0:i0 + n], G=G[i0:i0 + n], W=W[i0:i0 + n],

@@ -1,0 +1,174 @@
+"""The shared intake and exhaust manifolds of a multi-cylinder engine: lumped volumes filled and emptied by the cylinders and by orifice flow through throttle and tail pipe."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .setup import throttle_area
+
+
+R_AIR = 287.0
+"""Gas constant of the intake air used by the throttle flow [J/(kg K)] (common practice)."""
+GAMMA_AIR = 1.4
+GAMMA_EXHAUST = 1.33
+"""Ratio of specific heats of exhaust gas at manifold temperatures (common practice)."""
+MANIFOLD_STEP_DEG = 1.0
+"""Crank step of the manifold filling-and-emptying integration [deg]."""
+
+
+# -- manifolds ----------------------------------------------------------------------
+
+
+def supply_pressure_bar(ms) -> float:
+    """Air pressure ahead of the throttle [bar]: ``intake_supply_pressure_bar``, else ambient."""
+    v = ms.intake_supply_pressure_bar
+    return float(ms.ambient_pressure_bar if v is None else v)
+
+
+class _Manifolds:
+    """Periodic filling-and-emptying of the coupled engines' manifolds, vectorised over engines."""
+
+    def __init__(self, engines: list, step: float):
+        self.E = len(engines)
+        self.h = step
+        self.n = int(round(720.0 / step))
+        self.phi = -360.0 + step * np.arange(self.n + 1)
+        e0 = engines
+        self.p_amb = np.array([e["ms"].ambient_pressure_bar * 1e5 for e in e0])
+        # the air ahead of the throttle: ambient, or the charge air of a boosted engine
+        self.p_sup = np.array([supply_pressure_bar(e["ms"]) * 1e5 for e in e0])
+        self.T_amb = np.array([e["T_int"] for e in e0])
+        self.T_int = self.T_amb.copy()
+        self.T_exh = np.array([e["T_exh"] for e in e0])
+        self.R_int = np.array([e["R_int"] for e in e0])
+        self.R_exh = np.array([e["R_exh"] for e in e0])
+        self.V_i = np.array([e["ms"].intake_manifold_volume_L * 1e-3 for e in e0])
+        ms = [e["ms"] for e in e0]
+        self.A_thr = np.array([m.throttle_discharge_coefficient * throttle_area(
+            m.throttle_diameter_mm * 1e-3, m.throttle_angle_deg, m.throttle_closed_angle_deg) for m in ms])
+        self.omega = np.array([6.0 * e["speed_rpm"] for e in e0])   # deg/s
+        # exhaust: one row per branch of each engine; a branch has its cylinders' share of the
+        # manifold volume and of the restriction's area
+        rows, self.ex_rows = [], []
+        for j, e in enumerate(e0):
+            br = np.asarray(e.get("branches", (0,)), dtype=int)
+            self.ex_rows.append([])
+            for b in range(int(br.max()) + 1):
+                share = float(np.sum(br == b)) / len(br)
+                self.ex_rows[j].append(len(rows))
+                rows.append((j, share))
+        ej = np.array([r[0] for r in rows], dtype=int)
+        share = np.array([r[1] for r in rows])
+        self.V_e = np.array([e0[j]["ms"].exhaust_manifold_volume_L * 1e-3 for j in ej]) * share
+        self.A_out = np.array([0.25 * math.pi * (e0[j]["ms"].exhaust_outlet_diameter_mm * 1e-3) ** 2
+                               for j in ej]) * share
+        self.X = len(rows)
+        self.T_exh_x, self.R_exh_x = self.T_exh[ej], self.R_exh[ej]
+        self.p_amb_x, self.T_amb_x, self.omega_x = self.p_amb[ej], self.T_amb[ej], self.omega[ej]
+
+    def q_throttle(self, p):
+        """Throttle flow into the intake manifold [kg/deg] (E,)."""
+        return self.q_throttle_rows(p, slice(None))
+
+    def q_outlet(self, p):
+        """Flow out of each exhaust branch to ambient [kg/deg] (X,)."""
+        return self.q_outlet_rows(p, slice(None))
+
+    def q_throttle_rows(self, p, rows):
+        """Throttle flow [kg/deg] of some engines (``rows`` a slice) at pressure p."""
+        from ..flow import orifice_mass_flow
+
+        return orifice_mass_flow(self.A_thr[rows], self.p_sup[rows], self.T_amb[rows], R_AIR, GAMMA_AIR,
+                                 p, self.T_int[rows], R_AIR, GAMMA_AIR) / self.omega[rows]
+
+    def q_outlet_rows(self, p, rows):
+        """Exhaust outlet flow [kg/deg] of some exhaust branches (``rows``) at pressure p."""
+        from ..flow import orifice_mass_flow
+
+        return orifice_mass_flow(self.A_out[rows], p, self.T_exh_x[rows], self.R_exh_x[rows], GAMMA_EXHAUST,
+                                 self.p_amb_x[rows], self.T_amb_x[rows], R_AIR, GAMMA_AIR) / self.omega_x[rows]
+
+    def _lap(self, p0, f):
+        """One implicit-Euler lap over 720 deg from p0; f(j, p) -> (rate, d rate/dp)."""
+        p = p0.copy()
+        out = np.empty((p.size, self.n + 1))
+        out[:, 0] = p
+        for j in range(self.n):
+            x = p.copy()
+            for _ in range(2):
+                r, dr = f(j, x)
+                g = x - p - self.h * r
+                x = x - g / (1.0 - self.h * dr)
+                x = np.maximum(x, 1e3)
+            p = x
+            out[:, j + 1] = p
+        return out
+
+    def _periodic(self, p0, lap, tol=1e-7, laps=4):
+        """Periodic solution p(phi) by secant iteration on the start value; ``lap(p0)`` -> one lap."""
+        a = p0.copy()
+        ga = lap(a)
+        b = ga[:, -1].copy()
+        gb = lap(b)
+        for _ in range(laps):
+            ra = ga[:, -1] - a
+            rb = gb[:, -1] - b
+            if np.all(np.abs(rb) < tol * b):
+                break
+            den = rb - ra
+            c = np.where(np.abs(den) > 1e-300, b - rb * (b - a) / np.where(den == 0, 1.0, den), gb[:, -1])
+            c = np.clip(c, 0.5 * b, 2.0 * b)
+            a, ga = b, gb
+            b = c
+            gb = lap(b)
+        return gb
+
+    def solve(self, Qi, pref_i, Qe, p0_i, p0_e):
+        """Periodic manifold pressures [Pa]: intake (E, n+1) and exhaust branches (X, n+1), for the
+        cylinder flows per interval [kg/deg]: ``Qi`` (E, n), ``Qe`` (X, n)."""
+        ki = self.R_int * self.T_int / self.V_i
+        ke = self.R_exh_x * self.T_exh_x / self.V_e
+        dp = 1.0
+        import cyclesim.kernel as kernel
+
+        mod = kernel.compiled_module()
+        if mod is not None:
+            # the same laps in compiled form (cyclesim._compiled), one Python call per lap
+            from ..flow import DP_LIN_DEFAULT
+
+            f64 = lambda a: np.ascontiguousarray(a, dtype=float)  # noqa: E731
+            Qi_, pr_, Qe_ = f64(Qi), f64(pref_i), f64(Qe)
+            R_int = np.full(self.E, R_AIR)
+
+            def lap_i(p0):      # the throttle fills the manifold with air from ambient
+                return mod.manifold_lap(f64(p0), self.h, f64(ki), f64(self.A_thr), f64(self.T_int), R_int,
+                                        GAMMA_AIR, f64(self.p_sup), f64(self.T_amb), R_AIR, GAMMA_AIR,
+                                        f64(self.omega), Qi_, pr_, True, dp, DP_LIN_DEFAULT)
+
+            def lap_e(p0):      # the outlet empties the branch to ambient (no reference pressure)
+                return mod.manifold_lap(f64(p0), self.h, f64(ke), f64(self.A_out), f64(self.T_exh_x),
+                                        f64(self.R_exh_x), GAMMA_EXHAUST, f64(self.p_amb_x), f64(self.T_amb_x),
+                                        R_AIR, GAMMA_AIR, f64(self.omega_x), Qe_, Qe_, False, dp, DP_LIN_DEFAULT)
+
+            return self._periodic(p0_i, lap_i), self._periodic(p0_e, lap_e)
+
+        def fi(j, p):
+            q = self.q_throttle(p)
+            dq = (self.q_throttle(p + dp) - q) / dp
+            pr = pref_i[:, j]
+            return ki * (q - Qi[:, j] * p / pr), ki * (dq - Qi[:, j] / pr)
+
+        def fe(j, p):
+            q = self.q_outlet(p)
+            dq = (self.q_outlet(p + dp) - q) / dp
+            return ke * (Qe[:, j] - q), -ke * dq
+
+        return (self._periodic(p0_i, lambda p0: self._lap(p0, fi)),
+                self._periodic(p0_e, lambda p0: self._lap(p0, fe)))
+
+
+def _periodic_interp(x_new, x, y):
+    """Linear interpolation of y(x) (periodic over 720 deg, x ascending over one period)."""
+    return np.interp(((x_new - x[0]) % 720.0) + x[0], x, y, period=720.0)
