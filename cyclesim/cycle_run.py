@@ -34,7 +34,7 @@ class CycleRunner:
     """
 
     def __init__(self, batch, rhs, pts, events: CycleEvents):
-        from . import kernel
+        import cyclesim.kernel as kernel
 
         self.batch = batch
         self.rhs = rhs
@@ -51,7 +51,7 @@ class CycleRunner:
 
     def cycle(self, y: np.ndarray, Y: np.ndarray, F: np.ndarray) -> np.ndarray:
         """One cycle from ``y`` into ``Y``, ``F`` (n_state, B, N+1); returns the end state."""
-        from . import kernel
+        import cyclesim.kernel as kernel
 
         if self.compiled is not None and self.rhs.all_alive and self.compiled.cycle(y, Y, F):
             return Y[:, :, self.pts.N].copy()

@@ -71,3 +71,9 @@ def register_compiled() -> None:
         return None
 
     _registered = True
+
+
+def wall_heat_flow(h, T, A_head, A_piston, A_liner, T_wall_head, T_wall_piston, T_wall_liner):
+    """Heat flow from the gas to the walls [W] for one coefficient h [W/(m^2 K)] on head, piston and
+    liner, ``h sum A (T - T_wall)`` (Newton's law of cooling, common practice); kernel form."""
+    return h * (A_head * (T - T_wall_head) + A_piston * (T - T_wall_piston) + A_liner * (T - T_wall_liner))

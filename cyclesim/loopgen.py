@@ -337,7 +337,7 @@ KERNEL_SITES = {("burn", "kernel"): "{call}",
                 ("heat_transfer", "heat_flow_kernel"): "{call}",
                 ("blowby", "kernel"): "{call}"}
 """What goes at a role's call site for each kind of kernel: a heat-transfer coefficient kernel's
-value times the wall areas and temperature differences (:func:`cyclesim.roles.wall_heat_flow`)."""
+value times the wall areas and temperature differences (:func:`cyclesim.kernel_ops.wall_heat_flow`)."""
 STATE_MARKER = "    pass  # STATE KERNEL CALLS"
 """Where the state kernels' calls go in :func:`cyclesim._compiled._rhs`."""
 
@@ -372,7 +372,7 @@ def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
                 raise LoopGenError(f"the compiled loop has no call site for a {part.role} {part.kind}")
             calls[part.role] = site.format(call=_call(part, rows[part.role]))
             if "wall_heat_flow(" in site:
-                from .roles import wall_heat_flow
+                from .kernel_ops import wall_heat_flow
 
                 _collect(wall_heat_flow, funcs, consts, imports)
         else:
@@ -453,7 +453,7 @@ def _quick_key(parts: tuple, forms: dict) -> str:
         else:
             h.update(repr(x).encode())
 
-    from .roles import wall_heat_flow
+    from .kernel_ops import wall_heat_flow
 
     feed(_memo(parts))
     feed(tuple(sorted(forms.items())))

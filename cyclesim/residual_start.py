@@ -152,7 +152,7 @@ def _wall_heat_per_deg(rhs, batch, theta, m, T, y):
     areas = tuple(a.reshape(-1) * np.ones(batch.B) for a in geo.areas(theta))
     z = np.zeros((rhs.n, batch.B))
     z[0], z[1], z[2], z[3] = m, T, y * m, 1.0
-    from .solver import _initial_sub
+    from .events import initial_sub as _initial_sub
 
     _initial_sub(rhs, z)
     with np.errstate(all="ignore"):

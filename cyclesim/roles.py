@@ -30,6 +30,7 @@ from typing import Any, ClassVar, Mapping
 
 import numpy as np
 
+from .kernel_ops import wall_heat_flow
 from .params import Param, StateVar
 
 ROLES = (
@@ -165,12 +166,6 @@ class ParamValues(SimpleNamespace):
             raise AttributeError(name)
         declared = ", ".join(k for k in vars(self) if k != "_owner") or "(none)"
         raise AttributeError(f"{self._owner} has no parameter {name!r}; declared: {declared}")
-
-
-def wall_heat_flow(h, T, A_head, A_piston, A_liner, T_wall_head, T_wall_piston, T_wall_liner):
-    """Heat flow from the gas to the walls [W] for one coefficient h [W/(m^2 K)] on head, piston and
-    liner, ``h sum A (T - T_wall)`` (Newton's law of cooling, common practice); kernel form."""
-    return h * (A_head * (T - T_wall_head) + A_piston * (T - T_wall_piston) + A_liner * (T - T_wall_liner))
 
 
 def _kernel_call(model, s: GasState, attr: str = "kernel"):
