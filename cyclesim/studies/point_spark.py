@@ -7,9 +7,9 @@ The rule is the spark study's (:mod:`cyclesim.studies.spark`): the recommended
 advance is the most retarded of MBT, the knock-limited advance less
 ``knock_margin_deg`` and, where a limit is given, the advance at which peak
 pressure reaches it.  MBT is read by the spark study's torque fit
-(:func:`~cyclesim.studies.spark.fit_torque_peak`) and refined on a finer grid
+(:func:`~cyclesim.studies.curve_reading.fit_torque_peak`) and refined on a finer grid
 round it; the knock-limited advance is where the knock model's integral
-reaches 1 (:func:`~cyclesim.studies.spark.crossing_up`), bracketed by
+reaches 1 (:func:`~cyclesim.studies.curve_reading.crossing_up`), bracketed by
 bisection until the last advance without knock and the first with it lie
 within ``search_step_deg``.
 
@@ -36,7 +36,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import ConfigError
-from .spark import crossing_up, fit_torque_peak
+from .curve_reading import crossing_up, fit_torque_peak
 
 __all__ = ["choose_spark", "SparkPick", "SPARK_MODES", "LIMITS", "default_spark_mode", "check_spark_mode",
            "CaseRunner", "ADVANCE_RANGE_DEG", "DEFAULT_ADVANCES"]

@@ -18,7 +18,7 @@ batches).  For each sweep point and figure the result holds the mean over the
 samples, the value of the calibrated (nominal) case, and the empirical
 quantiles ``lower``/``upper`` (default 5 % and 95 %).  ``study="spark"`` sweeps
 ``burn.spark_advance_deg`` and also gives the distribution of MBT (the advance
-of maximum torque from :func:`cyclesim.studies.spark.fit_torque_peak`).
+of maximum torque from :func:`cyclesim.studies.curve_reading.fit_torque_peak`).
 
 Sampling: the quantiles of n samples carry their own sampling error, about
 ``sqrt(q (1 - q) / n) / f(x_q)`` (the asymptotic variance of a sample quantile;
@@ -330,7 +330,7 @@ def propagate(calibrated, calibration, study: str = "sweep", vary: Any = None, n
                            "lower": np.nanquantile(smp, q_lo, axis=0), "upper": np.nanquantile(smp, q_hi, axis=0)}
     mbt: dict = {}
     if study == "spark":
-        from .spark import fit_torque_peak
+        from .curve_reading import fit_torque_peak
 
         tk = next((f for f in ("torque_Nm", "imep_net_bar", "imep_closed_bar") if f in figs), None)
         if tk is not None:
