@@ -184,6 +184,8 @@ def _exists(key: str, summary: dict, burn_share: float = 1.0) -> bool:
     CAxx (and the 10-90 % duration) exists only where that share of the charge (and at least
     half of it) burned before the exhaust valve opened; ``burn_share`` is the share that burned (the summary's combustion
     efficiency over the burn model's, an upper bound of it: a rich charge releases less still).
+    The 0-10 % angle exists where CA10 does; brake-specific NO where brake-specific fuel
+    consumption is finite (NaN in closed-cycle mode and where the brake work is not positive).
     """
     motored = summary.get("mode") == MODE_MOTORED
     if key in (COMBUSTION_ONLY_KEYS if motored else MOTORED_ONLY_KEYS):
@@ -197,6 +199,11 @@ def _exists(key: str, summary: dict, burn_share: float = 1.0) -> bool:
         return burn_share >= max(int(m.group(1)) / 100.0, 0.5)
     if key == "burn_10_90_deg":
         return burn_share >= 0.9
+    if key == "burn_0_10_deg":          # spark to CA10: exists where CA10 does
+        return burn_share >= 0.5
+    if key == "no_g_per_kWh":           # brake-specific NO exists where brake-specific fuel does
+        bsfc = summary.get("bsfc_g_per_kWh", float("nan"))
+        return isinstance(bsfc, float) and math.isfinite(bsfc)
     return True
 
 
