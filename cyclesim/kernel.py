@@ -9,8 +9,8 @@ always there and is the reference.  Results agree to rounding (``tests/test_kern
 ================  ==========================================================
 role              built-ins, all compiled
 ================  ==========================================================
-burn              ``wiebe``, ``wiebe_ca50``, ``wiebe_table``, ``double_wiebe``, ``wiebe_flame``
-                  (kernels), ``none``
+burn              ``wiebe``, ``wiebe_ca50``, ``wiebe_table``, ``double_wiebe``, ``wiebe_flame``,
+                  ``entrainment`` (kernels; entrainment's x_e, K, k a state kernel), ``none``
 heat_transfer     ``woschni``, ``hohenberg`` (kernels; Woschni's T_mot a state kernel),
                   ``annand`` (a heat-flow kernel), ``none``
 blowby            ``orifice`` (a kernel), ``none``
