@@ -299,7 +299,9 @@ class Compiled:
             for name, v in _packed(m[role], tuple(rows), B, form).items():
                 P[rows[name]] = v
         # the batch-wide arrays of pack(), end to end in the order the generated loop reads them
-        self.TB, self.TO = shared_blocks(m[role].pack()[name] for role, name in shared_slots(parts))
+        slots = shared_slots(parts)
+        packs = {role: dict(m[role].pack()) for role in dict.fromkeys(r for r, _ in slots)}
+        self.TB, self.TO = shared_blocks(packs[role][name] for role, name in slots)
         # IVC resets: row 0 the kind per state row, row 1 + b case b's value (an initial may be per case)
         self.reset = np.zeros((1 + B, rhs.n))
         for k, (role, model, sv) in enumerate(rhs.sub_specs):
