@@ -27,7 +27,7 @@ from .layout import block_rows, param_rows
 # A model gives kernels (or declares ``compiled_form`` "none" / a valve or plenum form below) and
 # ``pack()``, which returns its parameter arrays by name; cyclesim.kernel fills the rows from
 # those names.  The row numbers are resolved here once, at import (numba reads them as constants).
-KERNEL_PARAMS = 24
+KERNEL_PARAMS = 32
 """Most packed parameters of a model given as kernels (form ``kernel``: its kernel and its state
 kernel together, see cyclesim.loopgen)."""
 KSLOTS = tuple(f"k{i}" for i in range(KERNEL_PARAMS))
@@ -155,12 +155,13 @@ def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
     return -_outflow(cda, p2, T2, R2, g2, p1, dp_lin)
 
 
-def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, gas_tab,
-         gas_off, gc, uc4, mix):
+def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, TB, TO,
+         gas_tab, gas_off, gc, uc4, mix):
     """Derivatives of case b into out; False where they are not finite.
 
     CB (rows x B) holds the per-case constants (row numbers R_*), IC the model codes and
-    state rows."""
+    state rows; TB the batch-wide arrays of the models' ``pack()`` end to end, array k being
+    ``TB[TO[k]:TO[k + 1]]`` (cyclesim.layout.shared_blocks)."""
     n = yv.shape[0]
     m = yv[S_M]
     T = yv[S_T]
@@ -256,7 +257,9 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
     - valves: (Ai_pts, Ae_pts, PI, PE): effective valve areas and plenum pressures [Pa] per point
       and case (PI, PE one row (1 x B) where they are constant);
     - state: (y, Y, F, status): the start state, the trace arrays written, the per-case status;
-    - consts: (CB, IC, reset): per-case constants, integer codes and rows, the IVC resets;
+    - consts: (CB, IC, reset, TB, TO): per-case constants, integer codes and rows, the IVC resets
+      (row 0 the kind per state row, row 1 + b case b's value),
+      the batch-wide arrays end to end and their bounds;
     - gas: (gas_tab, gas_off, gc, uc4): the property tables;
     - tableau: (tA, ta_den, tb, tb_den, tnode): cyclesim.stepper.Tableau.arrays.
 
@@ -266,7 +269,7 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
     closed_pts, burning_pts, open_at = masks
     Ai_pts, Ae_pts, PI, PE = valves
     y, Y, F, status = state
-    CB, IC, reset = consts
+    CB, IC, reset, TB, TO = consts
     gas_tab, gas_off, gc, uc4 = gas
     tA, ta_den, tb, tb_den, tnode = tableau
     n, B = y.shape
@@ -297,7 +300,7 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
                 jp = j if vary else 0
                 ok = _rhs(b, th[j], yt, K[st], full and open_at[j], Vp[j, g], dVp[j, g], Ahp[j, g],
                           App[j, g], Alp[j, g], closed_pts[j, b], burning_pts[j, b], Ai_pts[j, b],
-                          Ae_pts[j, b], PI[jp, b], PE[jp, b], CB, IC, gas_tab, gas_off, gc, uc4, mix)
+                          Ae_pts[j, b], PI[jp, b], PE[jp, b], CB, IC, TB, TO, gas_tab, gas_off, gc, uc4, mix)
                 if not ok:
                     status[b] = 1
                     break
@@ -333,7 +336,7 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
                         if reset[0, k] == 1.0:
                             yv[k] = yv[S_T]
                         elif reset[0, k] == 2.0:
-                            yv[k] = reset[1, k]
+                            yv[k] = reset[1 + b, k]
 
 
 # -- the multi-cylinder engine's manifolds (cyclesim.engine._Manifolds) ---------------

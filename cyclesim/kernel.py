@@ -9,8 +9,8 @@ always there and is the reference.  Results agree to rounding (``tests/test_kern
 ================  ==========================================================
 role              built-ins, all compiled
 ================  ==========================================================
-burn              ``wiebe``, ``wiebe_ca50``, ``wiebe_table``, ``double_wiebe``, ``wiebe_flame``
-                  (kernels), ``none``
+burn              ``wiebe``, ``wiebe_ca50``, ``wiebe_table``, ``double_wiebe``, ``wiebe_flame``,
+                  ``entrainment`` (kernels; entrainment's x_e, K, k a state kernel), ``none``
 heat_transfer     ``woschni``, ``hohenberg`` (kernels; Woschni's T_mot a state kernel),
                   ``annand`` (a heat-flow kernel), ``none``
 blowby            ``orifice`` (a kernel), ``none``
@@ -289,7 +289,8 @@ class Compiled:
                 self.PI, self.PE = (_cw(a) for a in m["boundary"].pressures_at(half))
         P = np.zeros((mod.N_P, B))
         IC = np.zeros(mod.N_IC, dtype=np.int64)
-        from .loopgen import param_rows_for
+        from .layout import shared_blocks
+        from .loopgen import param_rows_for, shared_slots
 
         parts = loop_parts(batch, rhs)
         for role in ("burn", "heat_transfer", "blowby", "knock"):
@@ -297,7 +298,12 @@ class Compiled:
             rows = param_rows_for(role, parts, mod.PARAM_ROWS, form)
             for name, v in _packed(m[role], tuple(rows), B, form).items():
                 P[rows[name]] = v
-        self.reset = np.zeros((2, rhs.n))
+        # the batch-wide arrays of pack(), end to end in the order the generated loop reads them
+        slots = shared_slots(parts)
+        packs = {role: dict(m[role].pack()) for role in dict.fromkeys(r for r, _ in slots)}
+        self.TB, self.TO = shared_blocks(packs[role][name] for role, name in slots)
+        # IVC resets: row 0 the kind per state row, row 1 + b case b's value (an initial may be per case)
+        self.reset = np.zeros((1 + B, rhs.n))
         for k, (role, model, sv) in enumerate(rhs.sub_specs):
             row = rhs.names.index(f"{role}.{sv.name}")
             if sv.reset_at_ivc:
@@ -305,7 +311,7 @@ class Compiled:
                     self.reset[0, row] = 1.0          # the cylinder temperature ("T_ivc")
                 else:
                     self.reset[0, row] = 2.0
-                    self.reset[1, row] = float(sv.initial)
+                    self.reset[1:, row] = _b(sv.initial, B)
         self.gas_tab, self.gas_off, self.gc, nRm1, self.uc4 = batch.gas._compiled_consts()
         IC[mod.IC_NRM1] = nRm1
         ivc = _b(batch.valves.ivc_deg, B)
@@ -340,7 +346,7 @@ class Compiled:
         G = self.Gc
         args = (self.full, (self.th, self.steps, G[0], G[1], G[2], G[3], G[4], self.geo_rows),
                 (self.closed, self.burning, self.open_at), (self.Ai, self.Ae, self.PI, self.PE),
-                (_cw(y), Y, F, self.status), (CB, self.IC, self.reset),
+                (_cw(y), Y, F, self.status), (CB, self.IC, self.reset, self.TB, self.TO),
                 (self.gas_tab, self.gas_off, self.gc, self.uc4), self.tableau)
         B = self.status.size
         n_thr = min(threads(), B // MIN_CASES_PER_THREAD)
@@ -420,6 +426,7 @@ def loop_parts(batch, rhs) -> tuple:
     """The functions of the batch's generated loop (:class:`cyclesim.loopgen.Part`): each role's
     kernel and each model's state kernel, with the rows of that model's states (from the state
     layout, ``rhs.names``)."""
+    from .layout import is_shared_array
     from .loopgen import Part, kernel_of, state_kernel_of
 
     parts = []
@@ -431,12 +438,15 @@ def loop_parts(batch, rhs) -> tuple:
             continue
         form = compiled_form(model)
         kernel_form = form in ("kernel", "heat_flow_kernel") and role in KERNEL_METHODS
-        packed = tuple(model.pack()) if (kernel_form or own.get(role)) else ()
+        got = dict(model.pack()) if (kernel_form or own.get(role)) else {}
+        packed = tuple(got)
+        arrays = tuple(n for n, v in got.items() if is_shared_array(v))
         if kernel_form:
-            parts.append(Part(role, form, kernel_of(type(model), form), packed, own.get(role, ())))
+            parts.append(Part(role, form, kernel_of(type(model), form), packed, own.get(role, ()), (), arrays))
         if own.get(role):
             rows = own[role]
-            parts.append(Part(role, "state", state_kernel_of(type(model)), packed, rows, [r for _, r in rows]))
+            parts.append(Part(role, "state", state_kernel_of(type(model)), packed, rows, [r for _, r in rows],
+                              arrays))
     return tuple(parts)
 
 

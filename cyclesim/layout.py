@@ -12,6 +12,8 @@ from __future__ import annotations
 
 from typing import Iterable, Mapping
 
+import numpy as np
+
 CORE = ("m", "T", "m_b", "x_b", "W", "Q_w", "m_bb", "H_bb", "mu_bb",
         "m_int", "H_int", "mu_int", "m_exh", "H_exh", "mu_exh", "Q_burn",
         "m_ibuf", "mb_ibuf", "H_ibuf")
@@ -59,3 +61,38 @@ def param_rows(forms: Mapping[str, Mapping[str, tuple[str, ...]]],
             longest = max(longest, len(names))
         base += longest
     return out
+
+
+class SharedArray(np.ndarray):
+    """A packed parameter that is one 1-D float array shared by every case of a batch (a flame
+    table, say), rather than one value per case.  ``pack()`` marks such a parameter with
+    :func:`shared_array`; on the numpy loop it is the array itself, in the compiled loop a slice of
+    the batch's concatenated tables (``cyclesim.kernel.Compiled``).  A kernel reads it with
+    ``np.interp`` or by index, and finds its own case's part by a per-case offset it packs too."""
+
+
+def shared_array(values) -> SharedArray:
+    """``values`` as a C-contiguous 1-D float :class:`SharedArray` (a copy)."""
+    a = np.array(values, dtype=float).ravel()
+    if a.size == 0:
+        raise ValueError("a shared array needs at least one value")
+    return a.view(SharedArray)
+
+
+def is_shared_array(value) -> bool:
+    """Whether a packed parameter is a batch-wide array (:func:`shared_array`)."""
+    return isinstance(value, SharedArray)
+
+
+def shared_blocks(arrays: Iterable) -> tuple[np.ndarray, np.ndarray]:
+    """The arrays stacked end to end and the (start, end) index of each: ``(flat, bounds)`` with
+    ``bounds`` of length ``n + 1`` (array k is ``flat[bounds[k]:bounds[k + 1]]``).
+
+    >>> shared_blocks([np.array([1.0, 2.0]), np.array([3.0])])
+    (array([1., 2., 3.]), array([0, 2, 3]))
+    """
+    arrays = [np.asarray(a, dtype=float).ravel() for a in arrays]
+    rows, n = block_rows((str(k), a.size) for k, a in enumerate(arrays))
+    bounds = np.array(list(rows.values()) + [n], dtype=np.int64)
+    flat = np.concatenate(arrays) if arrays else np.zeros(1)
+    return np.ascontiguousarray(flat), bounds

@@ -191,17 +191,19 @@ functions name them."""
 
 
 class Part(tuple):
-    """One function of a generated loop: ``(role, kind, fn, packed, own, out)``.
+    """One function of a generated loop: ``(role, kind, fn, packed, own, out, arrays)``.
 
     ``kind`` is ``"kernel"`` (the role's kernel, called where the loop computes that role) or
     ``"state"`` (a state kernel: the time derivatives of the model's states); ``packed`` the
     names of the model's ``pack()``; ``own`` the model's states as ``((name, row), ...)``;
-    ``out`` the rows a state kernel's results go to, in the order of ``states()``."""
+    ``out`` the rows a state kernel's results go to, in the order of ``states()``; ``arrays`` the
+    names of ``packed`` that are batch-wide arrays (:func:`cyclesim.layout.shared_array`), passed
+    to the function as slices of the loop's shared-array block instead of per-case rows."""
 
     __slots__ = ()
 
-    def __new__(cls, role, kind, fn, packed, own=(), out=()):
-        return super().__new__(cls, (role, kind, fn, tuple(packed), tuple(own), tuple(out)))
+    def __new__(cls, role, kind, fn, packed, own=(), out=(), arrays=()):
+        return super().__new__(cls, (role, kind, fn, tuple(packed), tuple(own), tuple(out), tuple(arrays)))
 
     role = property(lambda self: self[0])
     kind = property(lambda self: self[1])
@@ -209,6 +211,19 @@ class Part(tuple):
     packed = property(lambda self: self[3])
     own = property(lambda self: self[4])
     out = property(lambda self: self[5])
+    arrays = property(lambda self: self[6])
+
+
+def shared_slots(parts) -> dict[tuple[str, str], int]:
+    """Index of each batch-wide array the functions in ``parts`` read, by ``(role, name)``, in the
+    order they first name them: array k is ``TB[TO[k]:TO[k + 1]]`` in the loop
+    (:func:`cyclesim.layout.shared_blocks` stacks them in this order)."""
+    out: dict[tuple[str, str], int] = {}
+    for part in _as_parts(parts):
+        for n in kernel_params(part.fn, part.packed, dict(part.own)):
+            if n in part.arrays and (part.role, n) not in out:
+                out[part.role, n] = len(out)
+    return out
 
 
 def param_rows_for(role: str, parts, forms_rows: dict, form: str = "kernel") -> dict[str, int]:
@@ -219,7 +234,7 @@ def param_rows_for(role: str, parts, forms_rows: dict, form: str = "kernel") -> 
     for part in parts:
         if part.role == role:
             for n in kernel_params(part.fn, part.packed, dict(part.own)):
-                if n not in names:
+                if n not in names and n not in part.arrays:
                     names.append(n)
     if form not in KERNEL_SITES_FORMS:
         rows = forms_rows[role, form]
@@ -235,11 +250,14 @@ def param_rows_for(role: str, parts, forms_rows: dict, form: str = "kernel") -> 
     return {n: slots[k] for k, n in enumerate(names)}
 
 
-def _call(part: Part, rows: dict[str, int]) -> str:
+def _call(part: Part, rows: dict[str, int], shared: dict | None = None) -> str:
     own = dict(part.own)
     args = []
     for a in kernel_args(part.fn):
-        if a in rows and a in part.packed:
+        if a in part.arrays and a in part.packed:
+            j = (shared or {})[part.role, a]
+            args.append(f"TB[TO[{j}]:TO[{j + 1}]]")     # a batch-wide array: its slice of the block
+        elif a in rows and a in part.packed:
             args.append(f"CB[R_P + {rows[a]}, b]")
         elif a in own:
             args.append(f"yv[{own[a]}]")          # the state's row, a constant of this loop
@@ -248,11 +266,11 @@ def _call(part: Part, rows: dict[str, int]) -> str:
     return f"{part.fn.__name__}({', '.join(args)})"
 
 
-def _state_lines(k: int, part: Part, rows: dict[str, int]) -> list[str]:
+def _state_lines(k: int, part: Part, rows: dict[str, int], shared: dict | None = None) -> list[str]:
     """The loop's lines for a state kernel: its call, each result times dt into its row."""
     out = part.out
     names = [f"_sd{k}_{j}" for j in range(len(out))]
-    lines = [f"    {', '.join(names)} = {_call(part, rows)}"]
+    lines = [f"    {', '.join(names)} = {_call(part, rows, shared)}"]
     lines += [f"    out[{r}] = {n} * dt" for n, r in zip(names, out)]
     return lines
 
@@ -305,7 +323,7 @@ def _as_parts(parts) -> tuple:
 
 
 def _memo(parts) -> tuple:
-    return tuple((p.role, p.kind, p.packed, p.own, p.out, _fingerprint(p.fn)) for p in parts)
+    return tuple((p.role, p.kind, p.packed, p.own, p.out, p.arrays, _fingerprint(p.fn)) for p in parts)
 
 
 def generate(parts, forms: dict | None = None) -> tuple[str, str]:
@@ -362,6 +380,7 @@ def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
     states: list[str] = []
     rows = {role: param_rows_for(role, parts, base.PARAM_ROWS, forms.get(role, "kernel"))
             for role in dict.fromkeys(p.role for p in parts)}
+    shared = shared_slots(parts)
     for fn in template_functions():
         _collect(fn, funcs, consts, imports)
     for k, part in enumerate(parts):
@@ -370,13 +389,13 @@ def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
             site = KERNEL_SITES.get((part.role, part.kind))
             if site is None:
                 raise LoopGenError(f"the compiled loop has no call site for a {part.role} {part.kind}")
-            calls[part.role] = site.format(call=_call(part, rows[part.role]))
+            calls[part.role] = site.format(call=_call(part, rows[part.role], shared))
             if "wall_heat_flow(" in site:
                 from .kernel_ops import wall_heat_flow
 
                 _collect(wall_heat_flow, funcs, consts, imports)
         else:
-            states += _state_lines(k, part, rows[part.role])
+            states += _state_lines(k, part, rows[part.role], shared)
     own = vars(base)
     # a constant the loop's module defines alike (CYCLE_END_DEG) is the loop's own: not written again
     consts = {n: v for n, v in consts.items()

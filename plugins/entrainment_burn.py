@@ -51,6 +51,7 @@ from cyclesim.combustion.laminar_flame import gulder, metghalchi_keck
 from cyclesim.combustion.turbulence import (INTEGRAL_SCALE_RATIO, integral_length, kernel_turbulence_factor,
                                             kk_rates, taylor_microscale, turbulence_intensity, viscosity_air)
 from cyclesim.kernel_ops import where
+from cyclesim.layout import shared_array
 from cyclesim.params import Param, StateVar
 from cyclesim.roles import BurnRate, SetupContext
 
@@ -269,7 +270,6 @@ class EntrainmentBurn(BurnRate):
     summary = ("predictive turbulent flame-entrainment burn (Keck) with Herweg-Maly kernel, K-k"
                " turbulence and the chamber's flame geometry; duration is an output")
     spark_param = "spark_advance_deg"
-    compiled_form = None
     kernel = staticmethod(entrainment_rate)
     state_kernel = staticmethod(entrainment_states)
     params = (
@@ -364,7 +364,8 @@ class EntrainmentBurn(BurnRate):
                 StateVar("k", "J/kg", initial=self.k_ivc.copy(), reset_at_ivc=True))
 
     def pack(self) -> dict:
-        """Parameters of both kernels by name, arrays (B,) or flat tables [SI]."""
+        """Parameters of both kernels by name, arrays (B,) or flat tables shared by the batch
+        (:func:`cyclesim.layout.shared_array`: each case reads its own part from ``off``) [SI]."""
         if self._packed is None:
             c_mk, c_g = self.c_mk, self.c_g
             self._packed = {
@@ -373,8 +374,9 @@ class EntrainmentBurn(BurnRate):
                 "c_g0": c_g[0], "c_g1": c_g[1], "c_g2": c_g[2], "c_g3": c_g[3], "c_g4": c_g[4],
                 "cv0": self.cv[0], "cv1": self.cv[1], "cv2": self.cv[2], "R_u": self.R_u, "R_b": self.R_b,
                 "dT_ad": self.dT_ad, "bore_area": self.bore_area, "half_bore": self.half_bore,
-                "v_rb": self.v_rb, "r0": self.r0, "tab_r": self.tab_r, "tab_a": self.tab_a,
-                "tab_idx": np.arange(self.tab_r.size, dtype=float), "off": self.off,
+                "v_rb": self.v_rb, "r0": self.r0, "tab_r": shared_array(self.tab_r),
+                "tab_a": shared_array(self.tab_a), "tab_idx": shared_array(np.arange(self.tab_r.size)),
+                "off": self.off,
                 "h0": self.h0, "inv_dh": self.inv_dh, "nh": float(N_HEIGHT), "ns": float(N_FILL),
                 "c_beta": self.c_beta,
             }
@@ -401,14 +403,6 @@ class EntrainmentBurn(BurnRate):
             got = call_on(_flame_state, s, self.pack(), self.role)
         self._last = (s, got)
         return got
-
-    def rate(self, s):
-        """dx_b/dtheta [1/deg] (B,): :func:`entrainment_rate` on arrays, its flame state shared with
-        :meth:`derivatives` within one evaluation."""
-        on, s_l, u_eff, rho_u, a_f, lam, T_u = self._flame(s)
-        x_e = s.sub[f"{self.role}.x_e"]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return burnup_rate(on, x_e, s.x_b, s_l, lam, s.omega_deg)
 
     def derivatives(self, s):
         """Time derivatives of x_e, K, k (:func:`entrainment_states` on arrays (B,))."""

@@ -293,3 +293,57 @@ def test_mbt_keeps_ca50_6_to_12_deg_atdc_at_low_speed(config):
     st_ = spark_study(config, "5:45:5", overrides=FAST + ["operating.speed_rpm=1500"], plots=False)
     assert st_.mbt_deg is not None
     assert 6.0 <= st_.ca50_at_mbt_deg <= 12.0
+
+
+# ----------------------------------------------------------------------------
+# the compiled loop (flame tables as batch-wide arrays) against the numpy loop
+# ----------------------------------------------------------------------------
+def test_runs_compiled_and_agrees_with_the_numpy_loop(monkeypatch, capsys, tmp_path_factory):
+    # the numpy loop is the reference (cyclesim/solver.py); one batch of two bores: two flame
+    # tables in the shared block, each case reading its own by offset, and per-case K, k at IVC
+    pytest.importorskip("numba")
+    from cyclesim import kernel
+    from cyclesim.batch import group_cases
+    from cyclesim.registry import get_registry
+
+    monkeypatch.setenv("CYCLESIM_CACHE_DIR", str(tmp_path_factory.getbasetemp() / "loops_entrainment"))
+    monkeypatch.setattr(kernel, "_told", set())
+    cases = [load_config("demo", FAST + [f"engine.bore_mm={d}"]) for d in (79.0, 86.0)]
+    assert group_cases(cases, get_registry()) == [[0, 1]]
+    before = kernel._used["compiled"]
+    comp = simulate(cases)
+    assert kernel._used["compiled"] > before                 # the compiled-cycle counter rose
+    assert "numpy loop" not in capsys.readouterr().err        # and no fall-back notice
+    monkeypatch.setenv(kernel.ENV, "python")
+    py = simulate(cases)
+    compared = 0
+    for c, p in zip(comp, py):
+        assert c.error is None and p.error is None
+        assert c.cycle_loop == "compiled" and p.cycle_loop.startswith("numpy")
+        for key, v in p.summary.items():
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+                continue
+            assert c.summary[key] == pytest.approx(v, rel=1e-9, abs=1e-12), key
+            compared += 1
+        np.testing.assert_allclose(c.trace["burn.k"], p.trace["burn.k"], rtol=1e-9, atol=1e-9)
+    assert compared > 50
+    # the cases differ, so the per-case tables and IVC turbulence reached the loop
+    assert comp[0].summary["imep_net_bar"] != pytest.approx(comp[1].summary["imep_net_bar"], rel=1e-3)
+    assert comp[0].trace["burn.K"][0] != pytest.approx(comp[1].trace["burn.K"][0], rel=1e-3)
+
+
+def test_packs_its_flame_tables_as_batch_wide_arrays():
+    from cyclesim.batch import build_batch
+    from cyclesim.kernel import compiled_form, loop_status
+    from cyclesim.layout import is_shared_array
+    from cyclesim.registry import get_registry
+
+    m = build_batch([load_config("demo", FAST)], get_registry()).models["burn"]
+    P = m.pack()
+    assert {n for n, v in P.items() if is_shared_array(v)} == {"tab_r", "tab_a", "tab_idx"}
+    assert P["tab_r"].size == P["tab_a"].size == P["tab_idx"].size == EB.N_HEIGHT * EB.N_FILL
+    assert compiled_form(m) == "kernel"
+    two = build_batch([load_config("demo", FAST + [f"engine.bore_mm={d}"]) for d in (79.0, 86.0)],
+                      get_registry()).models["burn"].pack()
+    assert two["tab_r"].size == 2 * P["tab_r"].size and list(two["off"]) == [0.0, P["tab_r"].size]
+    assert loop_status(EB.EntrainmentBurn).startswith("compiled")

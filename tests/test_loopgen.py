@@ -179,3 +179,52 @@ def test_an_unwritable_cache_folder_falls_back_to_the_temporary_directory(tmp_pa
     assert got.parent == __import__("pathlib").Path(tempfile.gettempdir()) and os.access(got, os.W_OK)
     monkeypatch.setenv("CYCLESIM_CACHE_DIR", str(tmp_path / "mine"))
     assert cache_dir() == tmp_path / "mine"
+
+
+# ----------------------------------------------------------------------------
+# batch-wide arrays of pack() (cyclesim.layout.shared_array)
+# ----------------------------------------------------------------------------
+def _table_burn(theta, tab, idx, off, scale):
+    """A test kernel: a rate read from a batch-wide table at the case's offset."""
+    return scale * np.interp(off + 0.0 * theta, idx, tab)
+
+
+def _table_state(theta, tab, idx, off):
+    return np.interp(off + 1.0 + 0.0 * theta, idx, tab)
+
+
+def test_a_batch_wide_array_is_passed_as_a_slice_of_the_shared_block():
+    from cyclesim.loopgen import Part, shared_slots
+
+    packed = ("tab", "idx", "off", "scale")
+    arrays = ("tab", "idx")
+    parts = (Part("burn", "kernel", _table_burn, packed, (), (), arrays),
+             Part("burn", "state", _table_state, packed, (("z", 30),), (30,), arrays))
+    assert shared_slots(parts) == {("burn", "tab"): 0, ("burn", "idx"): 1}
+    _, text = generate(parts)
+    assert "_table_burn(theta, TB[TO[0]:TO[1]], TB[TO[1]:TO[2]], CB[R_P + 0, b], CB[R_P + 1, b])" in text
+    assert "_table_state(theta, TB[TO[0]:TO[1]], TB[TO[1]:TO[2]], CB[R_P + 0, b])" in text
+    # the arrays take no per-case rows: off and scale only
+    from cyclesim import _compiled
+    from cyclesim.loopgen import param_rows_for
+
+    assert param_rows_for("burn", parts, _compiled.PARAM_ROWS) == {"off": 0, "scale": 1}
+
+
+def test_the_shared_block_slices_give_back_each_array():
+    from hypothesis import given
+    from hypothesis import strategies as st
+
+    from cyclesim.layout import is_shared_array, shared_array, shared_blocks
+
+    @given(st.lists(st.lists(st.floats(-1e6, 1e6), min_size=1, max_size=9), min_size=1, max_size=5))
+    def check(arrays):
+        flat, bounds = shared_blocks(shared_array(a) for a in arrays)
+        assert bounds.dtype == np.int64 and bounds.size == len(arrays) + 1
+        for k, a in enumerate(arrays):
+            assert flat[bounds[k]:bounds[k + 1]].tolist() == a
+
+    check()
+    assert is_shared_array(shared_array([1.0, 2.0])) and not is_shared_array(np.ones(2))
+    with pytest.raises(ValueError):
+        shared_array([])
