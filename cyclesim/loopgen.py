@@ -20,6 +20,7 @@ from __future__ import annotations
 import hashlib
 import importlib.util
 import inspect
+import operator
 import os
 import sys
 import textwrap
@@ -55,7 +56,12 @@ class LoopGenError(Exception):
 
 def kernel_of(cls, attr: str = "kernel"):
     """The plain function a submodel class gives as its ``kernel`` (or as ``attr``), or None."""
-    k = inspect.getattr_static(cls, attr, None)
+    k = None
+    for klass in cls.__mro__:            # the class attribute without running descriptors
+        d = klass.__dict__
+        if attr in d:
+            k = d[attr]
+            break
     if isinstance(k, staticmethod):
         k = k.__func__
     return k if isinstance(k, types.FunctionType) else None
@@ -106,9 +112,73 @@ def call_on(fn, state, packed, role: str = "", gas=None):
     """The kernel on the Python path: parameters from ``packed`` (the model's ``pack()``),
     the model's own states from ``state.sub`` (by ``role.name``), the other arguments from
     ``state`` (a GasState; ``gas`` where the state carries no gas tables)."""
-    sub = getattr(state, "sub", None) or {}
-    return fn(*[packed[a] if a in packed else sub[f"{role}.{a}"] if f"{role}.{a}" in sub
-                else getattr(state, a, gas) if a == "gas" else getattr(state, a) for a in kernel_args(fn)])
+    return fn(*_plan_for(fn, packed, role).args(state, packed, gas))
+
+
+_PLANS: dict = {}
+
+
+def _plan_for(fn, packed, role: str) -> "_ArgPlan":
+    """The argument plan of ``fn`` for ``role`` and the names of ``packed``, made once per kernel
+    and role (made again where a model of the same kernel packs other names)."""
+    key = (fn.__code__, role)
+    plan = _PLANS.get(key)
+    if plan is None or not plan.fits(packed):
+        plan = _PLANS[key] = _ArgPlan(kernel_args(fn), packed, role)
+    return plan
+
+
+def _tuple_getter(getter, n: int):
+    """``operator.itemgetter``/``attrgetter`` of n names that always gives a tuple."""
+    if n == 0:
+        return lambda obj: ()
+    if n == 1:
+        one = getter
+        return lambda obj: (one(obj),)
+    return getter
+
+
+class _ArgPlan:
+    """Where each kernel argument comes from: ``packed`` (by name), the model's own states in
+    ``state.sub`` (``role.name``), ``state.gas`` (else the model's gas) or a ``state`` field.
+
+    The packed and plain-field arguments are read by ``operator`` getters (one C call each);
+    a state that carries one of the arguments in ``state.sub`` goes the general way, argument
+    by argument, in the same order of precedence."""
+
+    __slots__ = ("names", "role", "in_packed", "not_packed", "sub_keys", "get_packed", "get_fields",
+                 "has_gas", "order")
+
+    def __init__(self, names: tuple, packed, role: str) -> None:
+        self.names, self.role = names, role
+        p_names = tuple(a for a in names if a in packed)
+        rest = tuple(a for a in names if a not in packed)
+        fields = tuple(a for a in rest if a != "gas")
+        self.in_packed, self.not_packed = frozenset(p_names), frozenset(rest)
+        self.sub_keys = frozenset(f"{role}.{a}" for a in rest)
+        self.get_packed = _tuple_getter(operator.itemgetter(*p_names), len(p_names)) if p_names else (lambda d: ())
+        self.get_fields = _tuple_getter(operator.attrgetter(*fields), len(fields)) if fields else (lambda s: ())
+        self.has_gas = "gas" in rest
+        # the values come as packed + fields (+ gas); `order` puts them back in the kernel's order
+        pos = {a: i for i, a in enumerate(p_names + fields + (("gas",) if self.has_gas else ()))}
+        idx = tuple(pos[a] for a in names)
+        self.order = _tuple_getter(operator.itemgetter(*idx), len(idx)) if idx else (lambda v: ())
+
+    def fits(self, packed) -> bool:
+        """Whether ``packed`` gives exactly this plan's packed arguments among the kernel's."""
+        keys = packed.keys()
+        return self.in_packed <= keys and self.not_packed.isdisjoint(keys)
+
+    def args(self, state, packed, gas) -> tuple:
+        sub = getattr(state, "sub", None)
+        if sub and not self.sub_keys.isdisjoint(sub):
+            role = self.role
+            return tuple(packed[a] if a in packed else sub[f"{role}.{a}"] if f"{role}.{a}" in sub
+                         else getattr(state, a, gas) if a == "gas" else getattr(state, a) for a in self.names)
+        vals = self.get_packed(packed) + self.get_fields(state)
+        if self.has_gas:
+            vals += (getattr(state, "gas", gas),)
+        return self.order(vals)
 
 
 def _source(fn) -> str:
