@@ -128,57 +128,64 @@ def _plan_for(fn, packed, role: str) -> "_ArgPlan":
     return plan
 
 
-def _tuple_getter(getter, n: int):
-    """``operator.itemgetter``/``attrgetter`` of n names that always gives a tuple."""
-    if n == 0:
+def _tuple_getter(make, keys: tuple):
+    """``make(*keys)`` (``operator.itemgetter`` or ``attrgetter``) that always gives a tuple."""
+    if not keys:
         return lambda obj: ()
-    if n == 1:
-        one = getter
+    if len(keys) == 1:
+        one = make(keys[0])
         return lambda obj: (one(obj),)
-    return getter
+    return make(*keys)
 
 
 class _ArgPlan:
-    """Where each kernel argument comes from: ``packed`` (by name), the model's own states in
-    ``state.sub`` (``role.name``), ``state.gas`` (else the model's gas) or a ``state`` field.
+    """Where each kernel argument comes from: ``packed`` (by name), else the model's own states in
+    ``state.sub`` (``role.name``), else ``state.gas`` (or the model's gas) for ``gas``, else a
+    ``state`` field.
 
-    The packed and plain-field arguments are read by ``operator`` getters (one C call each);
-    a state that carries one of the arguments in ``state.sub`` goes the general way, argument
-    by argument, in the same order of precedence."""
+    Each source is read by one ``operator`` getter and the values put back in the kernel's order
+    by another; which arguments ``state.sub`` gives is looked up per call (a set intersection)
+    and the getters for it are made once."""
 
-    __slots__ = ("names", "role", "in_packed", "not_packed", "sub_keys", "get_packed", "get_fields",
-                 "has_gas", "order")
+    __slots__ = ("names", "role", "in_packed", "not_packed", "sub_keys", "get_packed", "variants")
 
     def __init__(self, names: tuple, packed, role: str) -> None:
         self.names, self.role = names, role
         p_names = tuple(a for a in names if a in packed)
         rest = tuple(a for a in names if a not in packed)
-        fields = tuple(a for a in rest if a != "gas")
         self.in_packed, self.not_packed = frozenset(p_names), frozenset(rest)
         self.sub_keys = frozenset(f"{role}.{a}" for a in rest)
-        self.get_packed = _tuple_getter(operator.itemgetter(*p_names), len(p_names)) if p_names else (lambda d: ())
-        self.get_fields = _tuple_getter(operator.attrgetter(*fields), len(fields)) if fields else (lambda s: ())
-        self.has_gas = "gas" in rest
-        # the values come as packed + fields (+ gas); `order` puts them back in the kernel's order
-        pos = {a: i for i, a in enumerate(p_names + fields + (("gas",) if self.has_gas else ()))}
-        idx = tuple(pos[a] for a in names)
-        self.order = _tuple_getter(operator.itemgetter(*idx), len(idx)) if idx else (lambda v: ())
+        self.get_packed = _tuple_getter(operator.itemgetter, p_names)
+        self.variants: dict = {}
 
     def fits(self, packed) -> bool:
         """Whether ``packed`` gives exactly this plan's packed arguments among the kernel's."""
         keys = packed.keys()
         return self.in_packed <= keys and self.not_packed.isdisjoint(keys)
 
+    def _variant(self, present: frozenset) -> tuple:
+        """The getters where ``state.sub`` holds the keys ``present`` (of :attr:`sub_keys`)."""
+        role = self.role
+        p_names = tuple(a for a in self.names if a in self.in_packed)
+        rest = [a for a in self.names if a not in self.in_packed]
+        from_sub = tuple(a for a in rest if f"{role}.{a}" in present)
+        fields = tuple(a for a in rest if a not in from_sub and a != "gas")
+        has_gas = "gas" in rest and "gas" not in from_sub
+        pos = {a: i for i, a in enumerate(p_names + from_sub + fields + (("gas",) if has_gas else ()))}
+        got = (_tuple_getter(operator.itemgetter, tuple(f"{role}.{a}" for a in from_sub)),
+               _tuple_getter(operator.attrgetter, fields), has_gas,
+               _tuple_getter(operator.itemgetter, tuple(pos[a] for a in self.names)))
+        self.variants[present] = got
+        return got
+
     def args(self, state, packed, gas) -> tuple:
         sub = getattr(state, "sub", None)
-        if sub and not self.sub_keys.isdisjoint(sub):
-            role = self.role
-            return tuple(packed[a] if a in packed else sub[f"{role}.{a}"] if f"{role}.{a}" in sub
-                         else getattr(state, a, gas) if a == "gas" else getattr(state, a) for a in self.names)
-        vals = self.get_packed(packed) + self.get_fields(state)
-        if self.has_gas:
+        present = self.sub_keys.intersection(sub) if sub else frozenset()
+        v = self.variants.get(present) or self._variant(frozenset(present))
+        vals = self.get_packed(packed) + v[0](sub) + v[1](state)
+        if v[2]:
             vals += (getattr(state, "gas", gas),)
-        return self.order(vals)
+        return v[3](vals)
 
 
 def _source(fn) -> str:
