@@ -13,9 +13,15 @@ from __future__ import annotations
 import numpy as np
 
 
+_select = getattr(np.where, "_implementation", np.where)
+"""``np.where`` without numpy's ``__array_function__`` dispatch (the kernels get plain arrays and
+floats, for which the dispatch finds no override); ``np.where`` itself where numpy has no such
+attribute."""
+
+
 def where(condition, x, y):
     """``x`` where ``condition`` holds, else ``y`` (``np.where`` on arrays; a select on floats)."""
-    return np.where(condition, x, y)
+    return _select(condition, x, y)
 
 
 def fresh_charge(gas, T):

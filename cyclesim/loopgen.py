@@ -20,6 +20,7 @@ from __future__ import annotations
 import hashlib
 import importlib.util
 import inspect
+import operator
 import os
 import sys
 import textwrap
@@ -55,7 +56,12 @@ class LoopGenError(Exception):
 
 def kernel_of(cls, attr: str = "kernel"):
     """The plain function a submodel class gives as its ``kernel`` (or as ``attr``), or None."""
-    k = inspect.getattr_static(cls, attr, None)
+    k = None
+    for klass in cls.__mro__:            # the class attribute without running descriptors
+        d = klass.__dict__
+        if attr in d:
+            k = d[attr]
+            break
     if isinstance(k, staticmethod):
         k = k.__func__
     return k if isinstance(k, types.FunctionType) else None
@@ -106,9 +112,80 @@ def call_on(fn, state, packed, role: str = "", gas=None):
     """The kernel on the Python path: parameters from ``packed`` (the model's ``pack()``),
     the model's own states from ``state.sub`` (by ``role.name``), the other arguments from
     ``state`` (a GasState; ``gas`` where the state carries no gas tables)."""
-    sub = getattr(state, "sub", None) or {}
-    return fn(*[packed[a] if a in packed else sub[f"{role}.{a}"] if f"{role}.{a}" in sub
-                else getattr(state, a, gas) if a == "gas" else getattr(state, a) for a in kernel_args(fn)])
+    return fn(*_plan_for(fn, packed, role).args(state, packed, gas))
+
+
+_PLANS: dict = {}
+
+
+def _plan_for(fn, packed, role: str) -> "_ArgPlan":
+    """The argument plan of ``fn`` for ``role`` and the names of ``packed``, made once per kernel
+    and role (made again where a model of the same kernel packs other names)."""
+    key = (fn.__code__, role)
+    plan = _PLANS.get(key)
+    if plan is None or not plan.fits(packed):
+        plan = _PLANS[key] = _ArgPlan(kernel_args(fn), packed, role)
+    return plan
+
+
+def _tuple_getter(make, keys: tuple):
+    """``make(*keys)`` (``operator.itemgetter`` or ``attrgetter``) that always gives a tuple."""
+    if not keys:
+        return lambda obj: ()
+    if len(keys) == 1:
+        one = make(keys[0])
+        return lambda obj: (one(obj),)
+    return make(*keys)
+
+
+class _ArgPlan:
+    """Where each kernel argument comes from: ``packed`` (by name), else the model's own states in
+    ``state.sub`` (``role.name``), else ``state.gas`` (or the model's gas) for ``gas``, else a
+    ``state`` field.
+
+    Each source is read by one ``operator`` getter and the values put back in the kernel's order
+    by another; which arguments ``state.sub`` gives is looked up per call (a set intersection)
+    and the getters for it are made once."""
+
+    __slots__ = ("names", "role", "in_packed", "not_packed", "sub_keys", "get_packed", "variants")
+
+    def __init__(self, names: tuple, packed, role: str) -> None:
+        self.names, self.role = names, role
+        p_names = tuple(a for a in names if a in packed)
+        rest = tuple(a for a in names if a not in packed)
+        self.in_packed, self.not_packed = frozenset(p_names), frozenset(rest)
+        self.sub_keys = frozenset(f"{role}.{a}" for a in rest)
+        self.get_packed = _tuple_getter(operator.itemgetter, p_names)
+        self.variants: dict = {}
+
+    def fits(self, packed) -> bool:
+        """Whether ``packed`` gives exactly this plan's packed arguments among the kernel's."""
+        keys = packed.keys()
+        return self.in_packed <= keys and self.not_packed.isdisjoint(keys)
+
+    def _variant(self, present: frozenset) -> tuple:
+        """The getters where ``state.sub`` holds the keys ``present`` (of :attr:`sub_keys`)."""
+        role = self.role
+        p_names = tuple(a for a in self.names if a in self.in_packed)
+        rest = [a for a in self.names if a not in self.in_packed]
+        from_sub = tuple(a for a in rest if f"{role}.{a}" in present)
+        fields = tuple(a for a in rest if a not in from_sub and a != "gas")
+        has_gas = "gas" in rest and "gas" not in from_sub
+        pos = {a: i for i, a in enumerate(p_names + from_sub + fields + (("gas",) if has_gas else ()))}
+        got = (_tuple_getter(operator.itemgetter, tuple(f"{role}.{a}" for a in from_sub)),
+               _tuple_getter(operator.attrgetter, fields), has_gas,
+               _tuple_getter(operator.itemgetter, tuple(pos[a] for a in self.names)))
+        self.variants[present] = got
+        return got
+
+    def args(self, state, packed, gas) -> tuple:
+        sub = getattr(state, "sub", None)
+        present = self.sub_keys.intersection(sub) if sub else frozenset()
+        v = self.variants.get(present) or self._variant(frozenset(present))
+        vals = self.get_packed(packed) + v[0](sub) + v[1](state)
+        if v[2]:
+            vals += (getattr(state, "gas", gas),)
+        return v[3](vals)
 
 
 def _source(fn) -> str:
