@@ -28,10 +28,10 @@ def _median_ms(fn, repeat: int, per: int) -> float:
 def measure(repeat: int = 21) -> dict:
     import cyclesim
     from cyclesim.api import _registry_for, model_figures, results_from_trace
-    from cyclesim.batch import build_batch
+    from cyclesim.solve.batch import build_batch
     from cyclesim.config import load_config
-    from cyclesim.figures import compute_figures, derived_trace, output_trace
-    from cyclesim.solver import integrate
+    from cyclesim.results.figures import compute_figures, derived_trace, output_trace
+    from cyclesim.solve.solver import integrate
 
     cases = [load_config("demo_closed", [f"burn.spark_advance_deg={a}", "simulation.output_step_deg=0.1"])
              for a in range(41)]

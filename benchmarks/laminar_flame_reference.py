@@ -17,7 +17,7 @@ criteria ``COARSE`` and then, continuing from that solution, with ``FINE``
 zone).  The stored velocity is the fine one; ``grid_change`` is
 |S_fine - S_coarse| / S_fine, which the tests require below 1 %.
 
-Mixtures: fuel in the dry air of :data:`cyclesim.thermo.AIR_MOLE_FRACTIONS`
+Mixtures: fuel in the dry air of :data:`cyclesim.gas.thermo.AIR_MOLE_FRACTIONS`
 (O2 0.2095, N2 0.7812, Ar 0.0093 by mole).  Burned-gas dilution is a mass
 fraction ``f`` of the *complete-combustion* products (CO2, H2O, N2, O2, Ar:
 all the points diluted are lean or stoichiometric) of the same fuel-air

@@ -1,8 +1,8 @@
-"""Estimated against measured peak memory of runs, the figures behind cyclesim.budget.
+"""Estimated against measured peak memory of runs, the figures behind cyclesim.solve.budget.
 
     python benchmarks/memory_budget.py          # about a minute on 2 cores
 
-Each line runs one request in a fresh process and prints the estimate of cyclesim.budget, the
+Each line runs one request in a fresh process and prints the estimate of cyclesim.solve.budget, the
 peak resident memory measured (ru_maxrss) and their ratio; an estimate is meant to lie above
 the measurement (ratio > 1) and within about a factor 2 of it.
 """
@@ -16,7 +16,7 @@ import sys
 SIMULATE = """
 import json, resource, sys
 import cyclesim
-from cyclesim.budget import batch_bytes, steps_per_cycle
+from cyclesim.solve.budget import batch_bytes, steps_per_cycle
 from cyclesim.config import case_with, load_config
 cfg, rpm, n = sys.argv[1], float(sys.argv[2]), int(sys.argv[3])
 base = load_config(cfg, [f"operating.speed_rpm={rpm}"])
@@ -28,7 +28,7 @@ print(json.dumps({"estimate": est, "peak": resource.getrusage(resource.RUSAGE_SE
 
 TRACES = """
 import json, resource, sys
-from cyclesim import budget
+from cyclesim.solve import budget
 from cyclesim.traces.synthesis import synthesize, output_grid
 from cyclesim.config import load_config
 n, res = int(sys.argv[1]), float(sys.argv[2])

@@ -7,7 +7,7 @@ For the three full-cycle demo configs at 800, 3000 and 6000 rpm it prints, as JS
 - the settled state (plain start, run to periodic steady state): residual fraction at IVC,
   cylinder temperature and mass at the cycle start (-360 deg);
 - the errors of the plain start (exhaust plenum pressure and temperature, all burned) and of the
-  estimate (:mod:`cyclesim.residual_start`) against it;
+  estimate (:mod:`cyclesim.solve.residual_start`) against it;
 - cycles to converge with each start, with the solver's own driver (coarse start-up cycles first)
   and with fine cycles alone from the start state (``integrate(initial=...)``), which shows what
   the start is worth to a driver without start-up cycles;
@@ -28,7 +28,7 @@ SPEEDS_RPM = (800, 3000, 6000)
 
 def settled_residual(tr, batch) -> float:
     """Burned-gas (residual plus EGR) mass fraction at IVC of the reported cycle [-]."""
-    from cyclesim.solver import _interp_at
+    from cyclesim.solve.solver import _interp_at
 
     ivc = batch.valves.ivc_deg
     m = _interp_at(tr.theta, tr.Y[0], tr.F[0], ivc)
@@ -38,10 +38,10 @@ def settled_residual(tr, batch) -> float:
 
 def point(cfg: str, speed_rpm: float) -> dict:
     from cyclesim.api import _registry_for
-    from cyclesim.batch import build_batch
+    from cyclesim.solve.batch import build_batch
     from cyclesim.config import load_config
-    from cyclesim.residual_start import start_state
-    from cyclesim.solver import _RHS, _initial_state, integrate
+    from cyclesim.solve.residual_start import start_state
+    from cyclesim.solve.solver import _RHS, _initial_state, integrate
 
     out: dict = {}
     starts = {}

@@ -38,7 +38,7 @@ TARGETS = {
     "cli_run_s": 3.0,
     # a third-party burn written as a kernel (DEVELOPERS.md) against the built-in wiebe, one point
     "plugin_kernel_vs_builtin_ratio": 1.5,
-    # step self-check (cyclesim.stepcheck): IMEP change of the demo when the step is halved
+    # step self-check (cyclesim.solve.stepcheck): IMEP change of the demo when the step is halved
     "step_check_imep_rel": 2e-3,
 }
 
@@ -114,7 +114,7 @@ def main(argv=None):
     import cyclesim
     from cyclesim.config import load_config
 
-    from cyclesim import kernel
+    from cyclesim.solve import kernel
 
     mod = kernel.compiled_module()
     if mod is not None:
@@ -136,7 +136,7 @@ def main(argv=None):
     sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
     from plugin_sources import KERNEL_WIEBE
 
-    from cyclesim.stepcheck import step_check
+    from cyclesim.solve.stepcheck import step_check
 
     with tempfile.TemporaryDirectory() as tmp:
         (Path(tmp) / "kwiebe_bench.py").write_text(KERNEL_WIEBE)
@@ -167,8 +167,8 @@ def main(argv=None):
     # the part of the batch no batching can share: each case's own cycles (integration alone),
     # and the ratio it alone sets against one case run by itself
     from cyclesim.api import _registry_for
-    from cyclesim.batch import build_batch
-    from cyclesim.solver import integrate
+    from cyclesim.solve.batch import build_batch
+    from cyclesim.solve.solver import integrate
 
     reg = _registry_for(b100)
     t_int, _ = timed(lambda: integrate(build_batch(b100, reg)), args.repeat)

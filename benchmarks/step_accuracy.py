@@ -48,9 +48,9 @@ def main(argv=None):
 
     import cyclesim
     from cyclesim.api import _registry_for
-    from cyclesim.batch import build_batch
+    from cyclesim.solve.batch import build_batch
     from cyclesim.config import load_config
-    from cyclesim.solver import grid_for, integrate
+    from cyclesim.solve.solver import grid_for, integrate
 
     out: dict = {"bounds": BOUNDS, "reference_step_deg": 0.05, "steps": {}}
     for h in args.steps:

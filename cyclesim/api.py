@@ -52,7 +52,7 @@ class CaseResult:
         conditions, the energy balance's basis, the fitting windows).
 
     ``summary["mode"]`` is ``"fired"`` or ``"motored"`` (no fuel burns, see
-    :mod:`cyclesim.motoring`); figures with no meaning in that mode are NaN (``null`` in JSON).
+    :mod:`cyclesim.results.motoring`); figures with no meaning in that mode are NaN (``null`` in JSON).
     """
 
     name: str
@@ -151,8 +151,8 @@ def model_figures(batch, cols: dict, summary: Mapping | None = None) -> tuple[di
 
 
 def _run_batch(cases: list[Case], registry, progress=None) -> list[CaseResult]:
-    from .batch import build_batch
-    from .solver import integrate
+    from .solve.batch import build_batch
+    from .solve.solver import integrate
 
     batch = build_batch(cases, registry)
     tr = integrate(batch, progress=progress)
@@ -161,9 +161,9 @@ def _run_batch(cases: list[Case], registry, progress=None) -> list[CaseResult]:
 
 def results_from_trace(batch, tr, registry) -> list[CaseResult]:
     """Per-case results (figures, trace columns, warnings) of an integrated batch."""
-    from .figures import compute_figures, derived_trace, output_trace
-    from .motoring import MODE_MOTORED, motored_notes
-    from .plausibility import input_warnings
+    from .results.figures import compute_figures, derived_trace, output_trace
+    from .results.motoring import MODE_MOTORED, motored_notes
+    from .config.plausibility import input_warnings
 
     cases = batch.cases
     d = derived_trace(batch, tr)
@@ -230,7 +230,7 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
 
 def _gas_exchange_warnings(s: dict) -> list[str]:
     out = []
-    from .motoring import POLYTROPIC_NULL_WARNING, POLYTROPIC_WINDOWS_DEG
+    from .results.motoring import POLYTROPIC_NULL_WARNING, POLYTROPIC_WINDOWS_DEG
 
     for w, (a, b) in POLYTROPIC_WINDOWS_DEG.items():
         if not np.isfinite(s.get(f"polytropic_exponent_{w}", 0.0)):
@@ -264,7 +264,7 @@ def _gas_exchange_warnings(s: dict) -> list[str]:
 
 
 def _closure_basis(res: CaseResult) -> str:
-    from .motoring import energy_basis
+    from .results.motoring import energy_basis
 
     eb = res.summary.get("energy_balance") if res.ok else None
     return energy_basis(eb)[1] if eb else "fuel energy"
@@ -284,7 +284,7 @@ stable spark ignition (common practice: about 25-30 % for a homogeneous charge).
 
 REFINE_CLOSURE = 1e-3
 """Energy-balance miss above which a case is re-run at half the step: a fraction of the fuel energy
-(fired) or of the compression work (motored, see :mod:`cyclesim.motoring`)."""
+(fired) or of the compression work (motored, see :mod:`cyclesim.results.motoring`)."""
 REFINE_STEPS = 2
 """How many times a case's step is halved before it is reported as failed."""
 
@@ -303,8 +303,8 @@ def failed_result(case: Case, exc: BaseException) -> CaseResult:
 def _check_environment() -> None:
     """The environment's settings (loop, threads, memory budget), wrong for every case alike: raised
     here once rather than recorded as each case's failure."""
-    import cyclesim.kernel as kernel
-    from .budget import budget_bytes
+    import cyclesim.solve.kernel as kernel
+    from .solve.budget import budget_bytes
 
     kernel.choice()
     kernel.threads()
@@ -315,7 +315,7 @@ def _check_environment() -> None:
 def _within_budget(cases, groups, isolate):
     """Each batch as (indices, cases, None), split where the whole would be over the memory budget;
     a case that alone is over it is (indices, cases, [its failed result]) with ``isolate``."""
-    from .budget import WorkBudgetError, cases_per_batch
+    from .solve.budget import WorkBudgetError, cases_per_batch
 
     for idx in groups:
         group = [cases[i] for i in idx]
@@ -332,7 +332,7 @@ def _within_budget(cases, groups, isolate):
 
 
 def _simulate_once(cases, registry, progress, isolate):
-    from .batch import group_cases
+    from .solve.batch import group_cases
 
     out: list[CaseResult | None] = [None] * len(cases)
     try:
@@ -445,7 +445,7 @@ def simulate(cases, progress: Callable[[int], None] | None = None,
                        f" simulation.step_deg = {cases[i].simulation.step_deg:g}: numerically unreliable at this"
                        f" crank angle resolution; reduce simulation.step_deg")
             r.summary, r.trace = {}, {}
-    from .stepcheck import requested, step_check
+    from .solve.stepcheck import requested, step_check
 
     if requested():           # CYCLESIM_STEP_CHECK=1: every case again at half its step
         step_check(cases, out, simulate=simulate)

@@ -3,7 +3,7 @@
 The fuel enters the cylinder as vapour premixed with air (fresh charge).  Its
 lower heating value is derived from the same formation enthalpies the
 property code uses (the NASA-7 polynomials at 298.15 K, water as vapour), so
-the energy bookkeeping of :mod:`cyclesim.thermo` is consistent with
+the energy bookkeeping of :mod:`cyclesim.gas.thermo` is consistent with
 ``lhv_J_per_kg`` by construction.  That value is on a **vapour** basis;
 handbooks quote liquid fuels on a liquid basis, lower by the heat of
 vaporisation (``heat_of_vaporisation_J_per_kg``).
@@ -17,7 +17,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-import cyclesim.thermo as thermo
+import cyclesim.gas.thermo as thermo
 from .data.nasa7 import NASA7
 from .errors import ConfigError
 from .params import suggestion
@@ -38,7 +38,7 @@ class Fuel:
         Lower heating value of the vapour at 298.15 K [J/kg].
     afr_stoich : float
         Stoichiometric air-fuel mass ratio with the air of
-        :data:`cyclesim.thermo.AIR_MOLE_FRACTIONS` [-].
+        :data:`cyclesim.gas.thermo.AIR_MOLE_FRACTIONS` [-].
     nasa7 : tuple
         Vapour polynomial ``(T_low, T_mid, T_high, low7, high7)`` [K, -].
     source : str
@@ -86,7 +86,7 @@ def lhv_from_formation(C: float, H: float, O: float, N: float, hf_J_per_mol: flo
 
 
 def afr_stoich(C: float, H: float, O: float, M: float) -> float:
-    """Stoichiometric air-fuel mass ratio [-] with the dry air of :mod:`cyclesim.thermo`."""
+    """Stoichiometric air-fuel mass ratio [-] with the dry air of :mod:`cyclesim.gas.thermo`."""
     n_air = thermo.stoich_o2_per_fuel(C, H, O) / thermo.AIR_MOLE_FRACTIONS["O2"]
     return n_air * thermo.air_molar_mass() / M
 

@@ -60,7 +60,7 @@ def register_compiled() -> None:
     @overload(fresh_charge)
     def _fresh_charge_scalar(gas, T):
         if isinstance(gas, types.BaseTuple) and isinstance(T, types.Number):
-            from cyclesim._compiled import _fresh
+            from cyclesim.loops._compiled import _fresh
 
             def impl(gas, T):
                 u, R, cv = _fresh(gas[0], gas[1], T, gas[2])

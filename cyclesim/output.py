@@ -10,10 +10,10 @@ from typing import Iterable
 
 import numpy as np
 
-from .atomic_files import atomic_write_text
-from .energy_labels import UNRELEASED_LABELS, energy_label
+from .results.atomic_files import atomic_write_text
+from .results.energy_labels import UNRELEASED_LABELS, energy_label
 from .errors import CyclesimError
-from .outdir import folder_entries
+from .results.outdir import folder_entries
 
 CAUTION = (
     "Results are model estimates. On a real engine approach spark advance, boost and knock"
@@ -57,7 +57,7 @@ def prepare_out_dir(out: Path, force: bool, create: bool = True) -> Path:
 
     With ``create`` false only the checks run (nothing is made), for a command that creates the
     folder once its work has succeeded.  The lock file of a run holding the folder
-    (:func:`cyclesim.outdir.folder_lock`) does not count as content.
+    (:func:`cyclesim.results.outdir.folder_lock`) does not count as content.
     """
     out = Path(out)
     if out.exists():
@@ -265,7 +265,7 @@ def _motored_rows(s, mode, lines, row, head, loop_line) -> None:
 
 def energy_balance_lines(eb: dict, unreleased: dict | None = None) -> list[str]:
     """The energy balance as table lines, each term in % of the balance's basis."""
-    from .motoring import energy_basis
+    from .results.motoring import energy_basis
 
     base_key, base_label = energy_basis(eb)
     base = eb[base_key]

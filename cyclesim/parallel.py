@@ -67,7 +67,7 @@ import signal
 import sys
 from typing import Any, Callable, Iterable, Sequence
 
-from .cpus import available_cpus
+from .solve.cpus import available_cpus
 from .errors import ConfigError, CyclesimError
 
 __all__ = [
@@ -81,9 +81,9 @@ AUTO_MIN_CASES = 64
 
 # Modules the forkserver imports once, so that each worker forked from it starts warm (the
 # compiled loop's machine code is still loaded from its cache on each worker's first cycle).
-_PRELOAD = ("cyclesim.api", "cyclesim.batch", "cyclesim.solver", "cyclesim.figures", "cyclesim.thermo",
-            "cyclesim.equilibrium", "cyclesim.registry", "cyclesim.parallel", "cyclesim_plugins",
-            "cyclesim.kernel", "cyclesim._compiled")   # the last needs numba; skipped without it
+_PRELOAD = ("cyclesim.api", "cyclesim.solve.batch", "cyclesim.solve.solver", "cyclesim.results.figures", "cyclesim.gas.thermo",
+            "cyclesim.gas.equilibrium", "cyclesim.registry", "cyclesim.parallel", "cyclesim_plugins",
+            "cyclesim.solve.kernel", "cyclesim.loops._compiled")   # the last needs numba; skipped without it
 
 DASK_CONNECT_TIMEOUT = "30s"
 """How long to wait for a Dask scheduler given by address."""
@@ -141,7 +141,7 @@ def run_chunk(cases: Sequence) -> list:
 def run_chunk_in_worker(cases: Sequence) -> list:
     """:func:`run_chunk` in a worker of a cluster: one thread per compiled cycle, as the
     cluster's workers fill the CPUs already."""
-    import cyclesim.kernel as kernel
+    import cyclesim.solve.kernel as kernel
 
     kernel.set_threads(1)
     return run_chunk(cases)
@@ -252,7 +252,7 @@ def _batch_cost(cases: Sequence) -> float:
 def batch_chunks(cases: Sequence, max_size: int | None = None) -> list[list[int]]:
     """Case indices in chunks that follow the solver's batches, costliest first.
 
-    Each chunk is one batch of :func:`cyclesim.batch.group_cases` (split into
+    Each chunk is one batch of :func:`cyclesim.solve.batch.group_cases` (split into
     pieces of at most ``max_size`` cases if given).  Splitting a batch across
     workers repeats its fixed per-step cost in each of them, so whole batches
     are what is worth sharing out; with ``max_size`` None every case runs in
@@ -261,7 +261,7 @@ def batch_chunks(cases: Sequence, max_size: int | None = None) -> list[list[int]
     so that the workers finish close together.
     """
     from .api import _registry_for
-    from .batch import group_cases
+    from .solve.batch import group_cases
 
     cases = list(cases)
     if not cases:
@@ -436,7 +436,7 @@ def _worker_init(parent: int | None = None) -> None:
 
     end_with_parent(parent)
     # the workers fill the CPUs already: one thread per compiled cycle each
-    import cyclesim.kernel as kernel
+    import cyclesim.solve.kernel as kernel
 
     kernel.set_threads(1)
 

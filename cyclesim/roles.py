@@ -54,7 +54,7 @@ class SetupContext:
     ----------
     B : int
         Number of cases in the batch.
-    geometry : cyclesim.geometry.Geometry
+    geometry : cyclesim.cylinder.geometry.Geometry
         Engine geometry, arrays of shape (B,).
     speed_rpm : ndarray (B,)
         Engine speed [rpm].
@@ -67,7 +67,7 @@ class SetupContext:
     operating : SimpleNamespace
         The ``operating`` config section as arrays (B,) (SI-suffixed keys as
         written, e.g. ``intake_pressure_bar``).
-    gas : cyclesim.gas_tables.GasTables
+    gas : cyclesim.solve.gas_tables.GasTables
         Property tables of the batch's fresh charge and burned gas.
     base_dir : pathlib.Path
         Folder of the config file, for resolving relative paths.
@@ -131,8 +131,8 @@ class GasState:
         Exhaust plenum state.
     sub : dict[str, ndarray]
         Submodel state components by ``"role.name"``.
-    geometry : cyclesim.geometry.Geometry
-    gas : cyclesim.gas_tables.GasTables
+    geometry : cyclesim.cylinder.geometry.Geometry
+    gas : cyclesim.solve.gas_tables.GasTables
         The batch's gas properties; a kernel takes it as the argument ``gas`` and reads the
         fresh charge through ``cyclesim.kernel_ops.fresh_charge(gas, T)``.
     """
@@ -171,7 +171,7 @@ class ParamValues(SimpleNamespace):
 def _kernel_call(model, s: GasState, attr: str = "kernel"):
     """A model's kernel (the class attribute ``attr``) on the Python path (arrays (B,)), its
     parameters from ``pack()`` (once)."""
-    from .loopgen import call_on, kernel_of
+    from .loops.loopgen import call_on, kernel_of
 
     fn = kernel_of(type(model), attr)
     if fn is None:
@@ -210,15 +210,15 @@ class Submodel:
         caps that multiple, since the jump costs accuracy in proportion to the step.
     compiled_form : str or None
         The compiled loop's form of this model's physics (a name in
-        ``cyclesim._compiled.FORMS[role]``), with :meth:`pack` giving its parameters; None
+        ``cyclesim.loops._compiled.FORMS[role]``), with :meth:`pack` giving its parameters; None
         (the default) runs the batch on the Python path.  A subclass keeps its parent's form
-        unless it overrides one of the role's physics methods (``cyclesim.kernel.PHYSICS``).
+        unless it overrides one of the role's physics methods (``cyclesim.solve.kernel.PHYSICS``).
 
     Step-control contract
     ---------------------
     :meth:`shortest_feature_deg_for` gives, per case and at set-up, the shortest crank-angle
     feature of the model's output [deg] (a burn's duration, say); the solver keeps at least
-    ``cyclesim.solver.MIN_FEATURE_STEPS`` steps across it.  It is read from the case's
+    ``cyclesim.solve.solver.MIN_FEATURE_STEPS`` steps across it.  It is read from the case's
     parameters, never from a parameter's name.
     """
 
@@ -274,7 +274,7 @@ class Submodel:
     def derivatives(self, s: GasState) -> Mapping[str, np.ndarray]:
         """Time derivatives [unit/s] of the components named in :meth:`states` (default: the
         :attr:`state_kernel` on arrays, else none)."""
-        from .loopgen import call_on, state_kernel_of
+        from .loops.loopgen import call_on, state_kernel_of
 
         fn = state_kernel_of(type(self))
         if fn is None:
@@ -351,7 +351,7 @@ class BurnRate(Submodel):
     """The burn rate as a plain function (one source for both loops), or None.
 
     Its arguments are named: a GasState field (``theta``, ``p``, ``T``, ``x_b``, ... see
-    ``cyclesim.loopgen.STATE_ARGS``) or a parameter that :meth:`pack` gives by that name.  It
+    ``cyclesim.loops.loopgen.STATE_ARGS``) or a parameter that :meth:`pack` gives by that name.  It
     returns dx_b/dtheta [1/deg]; it is called with arrays (B,) on the Python path and with
     floats in the compiled loop, so per-case choices go through ``cyclesim.kernel_ops.where``.
     A model with a kernel need not define :meth:`rate`."""

@@ -7,7 +7,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from cyclesim import thermo
+from cyclesim.gas import thermo
 from cyclesim.combustion import burned_zones as bz
 from cyclesim.combustion import zeldovich as z
 from cyclesim.params import Param

@@ -51,7 +51,7 @@ from cyclesim.combustion.laminar_flame import gulder, metghalchi_keck
 from cyclesim.combustion.turbulence import (INTEGRAL_SCALE_RATIO, integral_length, kernel_turbulence_factor,
                                             kk_rates, taylor_microscale, turbulence_intensity, viscosity_air)
 from cyclesim.kernel_ops import where
-from cyclesim.layout import shared_array
+from cyclesim.loops.layout import shared_array
 from cyclesim.params import Param, StateVar
 from cyclesim.roles import BurnRate, SetupContext
 
@@ -365,7 +365,7 @@ class EntrainmentBurn(BurnRate):
 
     def pack(self) -> dict:
         """Parameters of both kernels by name, arrays (B,) or flat tables shared by the batch
-        (:func:`cyclesim.layout.shared_array`: each case reads its own part from ``off``) [SI]."""
+        (:func:`cyclesim.loops.layout.shared_array`: each case reads its own part from ``off``) [SI]."""
         if self._packed is None:
             c_mk, c_g = self.c_mk, self.c_g
             self._packed = {
@@ -395,7 +395,7 @@ class EntrainmentBurn(BurnRate):
 
     def _flame(self, s):
         """The shared flame quantities of this right-hand-side evaluation (computed once per GasState)."""
-        from cyclesim.loopgen import call_on
+        from cyclesim.loops.loopgen import call_on
 
         if self._last is not None and self._last[0] is s:
             return self._last[1]

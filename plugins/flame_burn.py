@@ -69,7 +69,7 @@ def isentropic_compression(gas: Any, T0: Any, p0: Any, v_ratio: Any,
 
     Parameters
     ----------
-    gas : cyclesim.gas_tables.GasTables
+    gas : cyclesim.solve.gas_tables.GasTables
         Property tables (``gas.unburned(T) -> (u, cv, R)``), arrays (B,).
     T0, p0 : ndarray (B,)
         Temperature [K] and pressure [Pa] at the start.

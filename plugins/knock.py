@@ -86,7 +86,7 @@ def isentropic_temperature(gas: Any, T0: Any, p_ratio: Any, iterations: int = 4)
 
     Parameters
     ----------
-    gas : cyclesim.gas_tables.GasTables
+    gas : cyclesim.solve.gas_tables.GasTables
         Property tables; ``gas.unburned(T) -> (u, cv, R)`` is used, for arrays
         of shape (B,).
     T0 : ndarray (B,)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from cyclesim.flow import DP_LIN_DEFAULT, outflow
+from cyclesim.cylinder.flow import DP_LIN_DEFAULT, outflow
 from cyclesim.params import Param
 from cyclesim.roles import GasState, RingLeakage
 
@@ -12,7 +12,7 @@ from cyclesim.roles import GasState, RingLeakage
 def orifice_blowby(p, T, R, gamma, cda, p_cc):
     """Blowby [kg/s] through the ring pack's equivalent orifice, cylinder gas upstream, zero when
     the crankcase pressure ``p_cc`` is the higher: the kernel of :class:`Orifice`
-    (:func:`cyclesim.flow.orifice_outflow`, Heywood 1988, App. C)."""
+    (:func:`cyclesim.cylinder.flow.orifice_outflow`, Heywood 1988, App. C)."""
     return outflow(cda, p, T, R, gamma, np.minimum(p, p_cc), DP_LIN_DEFAULT)
 
 
@@ -31,7 +31,7 @@ class Orifice(RingLeakage):
     """Ring pack as one equivalent orifice between cylinder and crankcase.
 
     ``mdot = orifice_mass_flow(CdA, cylinder -> crankcase)``
-    (:func:`cyclesim.flow.orifice_mass_flow`, the compressible-orifice
+    (:func:`cyclesim.cylinder.flow.orifice_mass_flow`, the compressible-orifice
     relation of Heywood 1988, App. C, with choking), upstream state = the
     cylinder gas.
 

@@ -12,7 +12,7 @@ Effective area
 
 Mass flow
     Isentropic compressible orifice flow in either direction (choked or
-    subsonic, backflow included) through :func:`cyclesim.flow.orifice_mass_flow`,
+    subsonic, backflow included) through :func:`cyclesim.cylinder.flow.orifice_mass_flow`,
     with its smooth linear law at vanishing pressure difference.
 
 The effective areas are tabulated once per batch on a fine uniform periodic
@@ -30,7 +30,7 @@ import numpy as np
 
 from cyclesim.errors import ConfigError, InputFileError
 from cyclesim.tables import read_table
-from cyclesim.flow import orifice_mass_flow
+from cyclesim.cylinder.flow import orifice_mass_flow
 from cyclesim.params import Param
 from cyclesim.roles import GasState, SetupContext, ValveFlow
 
@@ -423,7 +423,7 @@ class PoppetValves(ValveFlow):
         """Rows of the cases with distinct valve settings, and each case's row among them."""
         got = getattr(self, "_distinct_rows", None)
         if got is None:
-            from cyclesim.distinct import distinct_rows
+            from cyclesim.cylinder.distinct import distinct_rows
 
             cols = [self.threshold, self.dwell_arr, self.port_ratio, _arr(self.p.intake_area_factor, self.B)]
             for valve in _VALVES:

@@ -1,7 +1,7 @@
 """The closed cycle (IVC to EVO) on Cantera's reactor network: the reference of the speed ratio.
 
 The same work as cyclesim's closed cycle on :data:`OVERRIDES` of ``demo_closed``: the same
-slider-crank geometry (:class:`cyclesim.geometry.Geometry`), the same single-Wiebe burn law and
+slider-crank geometry (:class:`cyclesim.cylinder.geometry.Geometry`), the same single-Wiebe burn law and
 Woschni wall heat (the project's own correlation functions, ``cyclesim_plugins.wiebe`` and
 ``cyclesim_plugins.heat_transfer``, with the batch's packed parameters), methane-air with
 frozen composition: no chemical kinetics and no dissociation; the burn turns fresh charge into
@@ -52,8 +52,8 @@ def cases(advances_deg=range(0, 41)):
 
 def _compositions(fuel, phi):
     """Mass fractions (by species name) of the fresh charge and of its complete products (lean or
-    stoichiometric), from the fuel's CxHyOz and the package's air (cyclesim.thermo)."""
-    from cyclesim import thermo
+    stoichiometric), from the fuel's CxHyOz and the package's air (cyclesim.gas.thermo)."""
+    from cyclesim.gas import thermo
 
     n = thermo.fresh_charge(fuel, phi)
     if fuel.C + fuel.H / 4 - fuel.O / 2 > n["O2"] + 1e-12:
@@ -86,7 +86,7 @@ def run_case(case, output_step_deg=0.1, rtol=None, atol=None):
     import cantera as ct
 
     from cyclesim.api import _registry_for
-    from cyclesim.batch import build_batch
+    from cyclesim.solve.batch import build_batch
     from cyclesim_plugins.heat_transfer import woschni_kernel
     from cyclesim_plugins.wiebe import wiebe_rate
 

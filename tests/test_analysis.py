@@ -13,11 +13,11 @@ import numpy as np
 import pytest
 
 import cyclesim
-from cyclesim.cli_traces import add_parsers, cmd_analyse
+from cyclesim.cli.traces import add_parsers, cmd_analyse
 from cyclesim.traces.analysis_settings import analysis_inputs
 from cyclesim.config import load_config
 from cyclesim.errors import CyclesimError
-from cyclesim.geometry import Geometry
+from cyclesim.cylinder.geometry import Geometry
 from cyclesim.traces.analysis import AnalysisSettings, analyse, apparent_heat_release, with_measured_masses
 from cyclesim.traces.analysis_files import write_analysis
 from cyclesim.traces.artefacts import ArtefactSettings, apply_artefacts
@@ -250,7 +250,7 @@ def test_sensitivity_of_net_imep_to_a_tdc_phasing_error(fired):
     The written trace is integrated independently here (trapezoid of p dV) with its crank
     angles shifted by +-1 deg against the volume; the model shows the size and the sign.
     """
-    from cyclesim.geometry import Geometry
+    from cyclesim.cylinder.geometry import Geometry
 
     case = load_config("demo")
     e = case.engine

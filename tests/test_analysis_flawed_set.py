@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from cyclesim.cli_traces import add_parsers, cmd_analyse
+from cyclesim.cli.traces import add_parsers, cmd_analyse
 from cyclesim.traces.analysis_settings import analysis_inputs
 from cyclesim.config import load_config
 from cyclesim.errors import CyclesimError
@@ -321,7 +321,7 @@ def test_analyse_writes_classes_and_plots(mixed_set, tmp_path, capsys):
 
 
 def test_analysis_module_does_not_import_matplotlib():
-    code = "import sys, cyclesim.traces.analysis, cyclesim.cli_traces; print('matplotlib' in sys.modules)"
+    code = "import sys, cyclesim.traces.analysis, cyclesim.cli.traces; print('matplotlib' in sys.modules)"
     assert subprocess.run([sys.executable, "-c", code], capture_output=True, text=True).stdout.strip() == "False"
 
 

@@ -12,9 +12,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import cyclesim
-from cyclesim import api, budget
-from cyclesim.batch import build_batch
-from cyclesim.budget import BUDGET_ENV, WorkBudgetError, batch_bytes, cases_that_fit, steps_per_cycle
+from cyclesim import api
+from cyclesim.solve import budget
+from cyclesim.solve.batch import build_batch
+from cyclesim.solve.budget import BUDGET_ENV, WorkBudgetError, batch_bytes, cases_that_fit, steps_per_cycle
 from cyclesim.config import case_with, load_config
 from cyclesim.errors import ConfigError
 from cyclesim.registry import get_registry

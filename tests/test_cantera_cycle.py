@@ -39,7 +39,7 @@ def test_pressure_traces_agree(pair):
 
 
 def test_reference_piston_follows_the_slider_crank(pair):
-    # the tabulated piston velocity integrates to the slider-crank volume (cyclesim.geometry)
+    # the tabulated piston velocity integrates to the slider-crank volume (cyclesim.cylinder.geometry)
     for case, res, (th, _, V, _) in pair:
         V_geo = np.interp(th, res.trace["crank_deg"], res.trace["volume_m3"])
         # bound: measured 9e-7 near TDC (the table's linear velocity every 0.02 deg); 2e-6 moves the

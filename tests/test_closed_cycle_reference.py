@@ -223,7 +223,7 @@ def _crank_radius(S, l, e):
     (1.4, -15.0),
 ])
 def test_air_standard_otto_efficiency(gamma, pin_offset_mm):
-    from cyclesim.geometry import Geometry
+    from cyclesim.cylinder.geometry import Geometry
 
     r = 10.0
     base = load_config("demo_closed")

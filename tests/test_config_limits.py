@@ -13,8 +13,8 @@ import pytest
 import cyclesim
 from cyclesim import config as config_mod
 from cyclesim.config import load_config, parse_override, resolve_case
-from cyclesim.shell_hints import shell_split_hint
-from cyclesim.config_limits import MAX_ALIASES, MAX_EXPANDED_NODES, MAX_EXTENDS_DEPTH
+from cyclesim.config.shell_hints import shell_split_hint
+from cyclesim.config.limits import MAX_ALIASES, MAX_EXPANDED_NODES, MAX_EXTENDS_DEPTH
 from cyclesim.errors import ConfigError
 
 

@@ -14,7 +14,7 @@ from cyclesim.config import load_config
 from cyclesim.errors import ConfigError
 from cyclesim.registry import get_registry, spark_param
 from cyclesim.roles import ROLES
-from cyclesim.solver import CLOSED_STEP_FACTOR, MIN_FEATURE_STEPS, closed_step_factor
+from cyclesim.solve.solver import CLOSED_STEP_FACTOR, MIN_FEATURE_STEPS, closed_step_factor
 
 SHORT_BURN = '''
 import numpy as np
@@ -111,8 +111,8 @@ def test_the_built_in_burns_declare_their_durations():
 def test_a_short_plugin_burn_moves_imep_by_less_than_the_self_check_bound(sine):
     # the loss the step limit prevents: a 10 deg burn at 0.5 deg against a fourfold finer step
     # (without the limit the closed part would step 2 deg, five steps across the burn).  Bound:
-    # the step self-check's 0.2 % (cyclesim.stepcheck.IMEP_BOUND)
-    from cyclesim.stepcheck import IMEP_BOUND
+    # the step self-check's 0.2 % (cyclesim.solve.stepcheck.IMEP_BOUND)
+    from cyclesim.solve.stepcheck import IMEP_BOUND
 
     coarse, fine = simulate([load_config(str(sine)), load_config(str(sine), ["simulation.step_deg=0.125"])])
     assert coarse.error is None and fine.error is None
@@ -146,7 +146,7 @@ def test_engine_spark_spread_varies_the_declared_parameter(sine, tmp_path):
 
 
 def test_step_self_check_warns_only_where_the_step_does_not_resolve_the_burn(sine, monkeypatch):
-    from cyclesim.stepcheck import ENV, IMEP_BOUND, step_check
+    from cyclesim.solve.stepcheck import ENV, IMEP_BOUND, step_check
 
     good = load_config("demo_closed")
     # a 2 deg burn at a 1 deg step: two steps across it cannot resolve it

@@ -1,4 +1,4 @@
-"""The interface of a subsystem coupled at the valves with sub-steps of its own (cyclesim.coupling)."""
+"""The interface of a subsystem coupled at the valves with sub-steps of its own (cyclesim.solve.coupling)."""
 
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from cyclesim.coupling import CoupledSubsystem, ValveFlux, ValveSide, exchange
+from cyclesim.solve.coupling import CoupledSubsystem, ValveFlux, ValveSide, exchange
 
 R_AIR = 287.0    # J/(kg K), common practice
 

@@ -10,8 +10,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import cyclesim
-from cyclesim import thermo
-from cyclesim.gas_tables import build_gas_tables
+from cyclesim.gas import thermo
+from cyclesim.solve.gas_tables import build_gas_tables
 from cyclesim.combustion import burned_zones as bz
 from cyclesim.combustion import zeldovich as z
 from cyclesim.fuels import BUILTIN_FUELS
@@ -23,9 +23,9 @@ ON = ["emissions.model=zeldovich_no"]
 def _batch(overrides_list):
     """Run cases in one batch; return (results, the batch's emissions model)."""
     from cyclesim.api import results_from_trace
-    from cyclesim.batch import build_batch
+    from cyclesim.solve.batch import build_batch
     from cyclesim.registry import get_registry
-    from cyclesim.solver import integrate
+    from cyclesim.solve.solver import integrate
 
     cases = [cyclesim.load_config("demo", ON + list(o)) for o in overrides_list]
     reg = get_registry(())

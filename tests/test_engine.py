@@ -218,7 +218,7 @@ def test_progress_lines_replace_each_other_only_on_a_terminal():
     # the end so the results start on a clean line; into a file or pipe every message is kept as a line
     import io
 
-    from cyclesim.cli_engine import _Progress
+    from cyclesim.cli.engine import _Progress
 
     class Tty(io.StringIO):
         def isatty(self):
@@ -269,7 +269,7 @@ def test_a_boosted_config_without_its_supply_pressure_is_warned():
 
 
 def test_engine_warnings_group_by_kind_with_the_cylinders():
-    from cyclesim.warning_groups import cylinder_warning_lines
+    from cyclesim.results.warning_groups import cylinder_warning_lines
 
     lines = cylinder_warning_lines(["cylinder 1: exhaust choked for 12 deg", "cylinder 3: exhaust choked for 14.5 deg",
                                     "cylinder 3: trapped mass low", "manifolds not settled after 8 coupled cycles"], 4)

@@ -43,7 +43,7 @@ def test_isentrope_matches_the_knock_models_end_gas_temperature():
     # the same isentrope of the fresh charge as plugins/knock.isentropic_temperature (cp at the
     # log-mean temperature, exact for cp linear in T); the quadratic cv fit leaves under 1 K
     case = load_config("demo", FAST)
-    from cyclesim.batch import build_batch
+    from cyclesim.solve.batch import build_batch
     from cyclesim.registry import get_registry
 
     b = build_batch([case], get_registry())
@@ -148,8 +148,8 @@ def test_kernels_compile_and_agree_with_the_array_path():
     # the shared contract: the same kernel on arrays (B,) and, compiled, on floats
     pytest.importorskip("numba")
     case = load_config("demo", FAST)
-    from cyclesim.batch import build_batch
-    from cyclesim.loopgen import kernel_args
+    from cyclesim.solve.batch import build_batch
+    from cyclesim.loops.loopgen import kernel_args
     from cyclesim.registry import get_registry
 
     m = build_batch([case], get_registry()).models["burn"]
@@ -299,11 +299,11 @@ def test_mbt_keeps_ca50_6_to_12_deg_atdc_at_low_speed(config):
 # the compiled loop (flame tables as batch-wide arrays) against the numpy loop
 # ----------------------------------------------------------------------------
 def test_runs_compiled_and_agrees_with_the_numpy_loop(monkeypatch, capsys, tmp_path_factory):
-    # the numpy loop is the reference (cyclesim/solver.py); one batch of two bores: two flame
+    # the numpy loop is the reference (cyclesim/solve/solver.py); one batch of two bores: two flame
     # tables in the shared block, each case reading its own by offset, and per-case K, k at IVC
     pytest.importorskip("numba")
-    from cyclesim import kernel
-    from cyclesim.batch import group_cases
+    from cyclesim.solve import kernel
+    from cyclesim.solve.batch import group_cases
     from cyclesim.registry import get_registry
 
     monkeypatch.setenv("CYCLESIM_CACHE_DIR", str(tmp_path_factory.getbasetemp() / "loops_entrainment"))
@@ -333,9 +333,9 @@ def test_runs_compiled_and_agrees_with_the_numpy_loop(monkeypatch, capsys, tmp_p
 
 
 def test_packs_its_flame_tables_as_batch_wide_arrays():
-    from cyclesim.batch import build_batch
-    from cyclesim.kernel import compiled_form, loop_status
-    from cyclesim.layout import is_shared_array
+    from cyclesim.solve.batch import build_batch
+    from cyclesim.solve.kernel import compiled_form, loop_status
+    from cyclesim.loops.layout import is_shared_array
     from cyclesim.registry import get_registry
 
     m = build_batch([load_config("demo", FAST)], get_registry()).models["burn"]

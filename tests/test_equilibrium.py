@@ -6,8 +6,8 @@ import cantera as ct
 import numpy as np
 import pytest
 
-from cyclesim import equilibrium as eq
-from cyclesim import thermo
+from cyclesim.gas import equilibrium as eq
+from cyclesim.gas import thermo
 from cyclesim.fuels import BUILTIN_FUELS, custom_fuel
 
 STATES = [(1500.0, 5.0), (2200.0, 1.0), (2600.0, 30.0), (3000.0, 0.1), (3400.0, 100.0)]

@@ -1,4 +1,4 @@
-"""Events of the cycle (cyclesim.events): state created during the cycle, and the IVC capture."""
+"""Events of the cycle (cyclesim.solve.events): state created during the cycle, and the IVC capture."""
 
 from __future__ import annotations
 
@@ -6,11 +6,11 @@ import numpy as np
 import pytest
 
 from cyclesim.api import _registry_for
-from cyclesim.batch import build_batch
+from cyclesim.solve.batch import build_batch
 from cyclesim.config import load_config
 from cyclesim.errors import PluginError
-from cyclesim.events import StateCreation
-from cyclesim.solver import integrate
+from cyclesim.solve.events import StateCreation
+from cyclesim.solve.solver import integrate
 
 ELEMENT_PLUGIN = '''
 import numpy as np
@@ -72,7 +72,7 @@ def test_an_event_naming_an_unknown_state_is_refused(element_batch):
 def test_the_ivc_capture_event_keeps_the_state_at_intake_valve_closing(monkeypatch):
     # the compiled loop and the numpy loop's IVC event agree on the pressure and temperature at
     # IVC (both interpolate linearly within the step)
-    from cyclesim import kernel
+    from cyclesim.solve import kernel
 
     cases = [load_config("demo", ["simulation.step_deg=1.0"])]
     got = {}

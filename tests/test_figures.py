@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 import cyclesim
-from cyclesim.figures import hermite_peak, parabola_peak
+from cyclesim.results.figures import hermite_peak, parabola_peak
 
 
 def test_parabola_peak_is_exact_for_a_parabola_on_a_non_uniform_grid():

@@ -214,7 +214,8 @@ def test_heat_release_target_and_weights_recover_the_burn():
 
 
 def test_fit_points_shares_one_multiplier_and_writes_a_burn_table(tmp_path):
-    from cyclesim.calibration import burn_table, fit_points, write_burn_table
+    from cyclesim.calibration import burn_table
+    from cyclesim.calibration import fit_points, write_burn_table
 
     base = load_config("demo_closed", ["simulation.step_deg=1.0"])
     pts = [({"operating.speed_rpm": 2000.0, "burn.duration_deg": 42.0}),

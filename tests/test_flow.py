@@ -5,7 +5,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from cyclesim.flow import critical_pressure_ratio, flow_function, orifice_mass_flow
+from cyclesim.cylinder.flow import critical_pressure_ratio, flow_function, orifice_mass_flow
 
 R_AIR = 287.0
 CDA = 1e-4  # m^2

@@ -6,7 +6,8 @@ import cantera as ct
 import numpy as np
 import pytest
 
-from cyclesim import gas_tables, thermo
+from cyclesim.solve import gas_tables
+from cyclesim.gas import thermo
 from cyclesim.errors import ConfigError
 from cyclesim.fuels import BUILTIN_FUELS, GASOLINE_SURROGATE, Fuel, custom_fuel, get_fuel
 

@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from cyclesim.geometry import Geometry
+from cyclesim.cylinder.geometry import Geometry
 
 BORE, STROKE, ROD, RC = 0.086, 0.086, 0.145, 10.0
 

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from cyclesim.geometry import Geometry
+from cyclesim.cylinder.geometry import Geometry
 from cyclesim.roles import GasState, SetupContext, WallHeatTransfer
 from cyclesim_plugins import heat_transfer as ht
 

@@ -20,7 +20,7 @@ from hypothesis import strategies as st
 from cyclesim.fuels import get_fuel
 from cyclesim.params import validate_section
 from cyclesim.roles import GasState, SetupContext
-from cyclesim.gas_tables import build_gas_tables
+from cyclesim.solve.gas_tables import build_gas_tables
 from cyclesim_plugins import knock as K
 from cyclesim_plugins import wiebe as W
 

@@ -1,7 +1,7 @@
-"""The compiled cycle loop (cyclesim/_compiled.py, chosen in cyclesim/kernel.py) against the Python loop.
+"""The compiled cycle loop (cyclesim/loops/_compiled.py, chosen in cyclesim/solve/kernel.py) against the Python loop.
 
 The reference for every figure here is the project's own Python/numpy loop
-(:func:`cyclesim.solver.integrate` with :class:`cyclesim.solver._RHS`), the
+(:func:`cyclesim.solve.solver.integrate` with :class:`cyclesim.solve.solver._RHS`), the
 reference implementation, which the compiled loop mirrors case by case in
 scalars.  The two do the same arithmetic in a different order, so they agree to
 rounding (measured about 1e-14 relative on the demo and on every variant below);
@@ -21,12 +21,12 @@ import numpy as np
 import pytest
 
 import cyclesim
-from cyclesim import kernel
-from cyclesim.batch import build_batch, group_cases
+from cyclesim.solve import kernel
+from cyclesim.solve.batch import build_batch, group_cases
 from cyclesim.config import load_config
 from cyclesim.errors import ConfigError
 from cyclesim.registry import get_registry
-from cyclesim.solver import _RHS
+from cyclesim.solve.solver import _RHS
 from plugin_sources import CONSTANT_H
 
 RTOL = 1e-9
@@ -438,8 +438,8 @@ def test_mixed_batch_gives_each_case_its_own_figures(monkeypatch):
 def test_compiled_gas_lookup_matches_the_tables_in_and_out_of_range():
     # the compiled lookup against GasTables.mixture (the reference), including states outside
     # the tables (clamped to the edge nodes) and a negative density at a Runge-Kutta stage
-    from cyclesim import _compiled
-    from cyclesim.thermo import T_MID
+    from cyclesim.loops import _compiled
+    from cyclesim.gas.thermo import T_MID
 
     case = load_config("demo_closed")
     g = build_batch([case], _registry([case])).gas
@@ -508,7 +508,7 @@ def test_thread_count_setting(monkeypatch):
 def test_zero_mass_column_stops_that_case_alone_on_both_paths(monkeypatch):
     # a degenerate start state (one case with no mass): the compiled loop must not raise but hand
     # the cycle to the Python path, which stops that case with its message (reference: Python path)
-    from cyclesim.solver import integrate
+    from cyclesim.solve.solver import integrate
 
     cases = [cfg("demo", "simulation.step_deg=1.0"), cfg("demo", "simulation.step_deg=1.0",
                                                           "burn.spark_advance_deg=20")]
@@ -549,7 +549,7 @@ def test_gas_properties_at_many_points_agree_with_numpy(monkeypatch):
     # solver's mixture() column by column (the reference), over two cases' tables and states in and
     # out of the table range
     from cyclesim.fuels import BUILTIN_FUELS
-    from cyclesim.gas_tables import build_gas_tables
+    from cyclesim.solve.gas_tables import build_gas_tables
 
     g = build_gas_tables(BUILTIN_FUELS["gasoline"], [1.0, 0.85])
     rng = np.random.default_rng(3)
@@ -574,14 +574,14 @@ def test_gas_properties_at_many_points_agree_with_numpy(monkeypatch):
 def test_woschni_is_a_kernel_reading_its_own_motored_temperature_state():
     # one source: the Woschni model gives its kernel, the built-in loop has no Woschni branch, and the
     # generated loop passes the kernel the model's integrated T_mot from that state's row
-    from cyclesim import _compiled, loopgen
+    from cyclesim.loops import _compiled, loopgen
 
     wo = get_registry().submodel_class("heat_transfer", "woschni")
     assert kernel.form_of_class(wo) == "kernel"
     assert "woschni" not in _compiled.FORMS["heat_transfer"]
     fn = loopgen.kernel_of(wo)
     packed = ("k", "c1_closed", "c1_open", "c2", "Vd", "t_exp")
-    from cyclesim.layout import CORE
+    from cyclesim.loops.layout import CORE
 
     row = len(CORE)                                # the first row after the cylinder's own state
     parts = (loopgen.Part("heat_transfer", "kernel", fn, packed, (("T_mot", row),)),

@@ -11,7 +11,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from cyclesim import kernel_ops, loopgen
+from cyclesim import kernel_ops
+from cyclesim.loops import loopgen
 
 NAMES = ("a", "b", "T", "p", "gas", "z")
 

@@ -1,4 +1,4 @@
-"""Plug-in kernels in a generated compiled loop (cyclesim.loopgen).
+"""Plug-in kernels in a generated compiled loop (cyclesim.loops.loopgen).
 
 Checked against: the built-in ``wiebe`` law on the built-in compiled loop (the kernel is the
 same arithmetic, so the figures agree to rounding) and the kernel itself on the Python path.
@@ -14,9 +14,10 @@ import textwrap
 import numpy as np
 import pytest
 
-from cyclesim import kernel, simulate
+from cyclesim.solve import kernel
+from cyclesim import simulate
 from cyclesim.config import load_config
-from cyclesim.loopgen import LoopGenError, generate, kernel_args, kernel_params
+from cyclesim.loops.loopgen import LoopGenError, generate, kernel_args, kernel_params
 from cyclesim.registry import get_registry
 from plugin_sources import KERNEL_WIEBE, fake_install
 
@@ -103,7 +104,7 @@ EDITED = """
 import sys, json
 sys.path.insert(0, {site!r})
 import cyclesim
-from cyclesim import kernel
+from cyclesim.solve import kernel
 from cyclesim.config import load_config
 r = cyclesim.simulate([load_config("demo_closed", ["burn.model=tests_kernel_wiebe"])])[0]
 print(json.dumps([r.cycle_loop, r.summary["imep_closed_bar"], kernel._used["compiled"]]))
@@ -170,7 +171,7 @@ def test_an_unwritable_cache_folder_falls_back_to_the_temporary_directory(tmp_pa
     import os
     import tempfile
 
-    from cyclesim.loopgen import cache_dir
+    from cyclesim.loops.loopgen import cache_dir
 
     blocked = tmp_path / "file"
     blocked.write_text("not a folder")
@@ -182,7 +183,7 @@ def test_an_unwritable_cache_folder_falls_back_to_the_temporary_directory(tmp_pa
 
 
 # ----------------------------------------------------------------------------
-# batch-wide arrays of pack() (cyclesim.layout.shared_array)
+# batch-wide arrays of pack() (cyclesim.loops.layout.shared_array)
 # ----------------------------------------------------------------------------
 def _table_burn(theta, tab, idx, off, scale):
     """A test kernel: a rate read from a batch-wide table at the case's offset."""
@@ -194,7 +195,7 @@ def _table_state(theta, tab, idx, off):
 
 
 def test_a_batch_wide_array_is_passed_as_a_slice_of_the_shared_block():
-    from cyclesim.loopgen import Part, shared_slots
+    from cyclesim.loops.loopgen import Part, shared_slots
 
     packed = ("tab", "idx", "off", "scale")
     arrays = ("tab", "idx")
@@ -205,8 +206,8 @@ def test_a_batch_wide_array_is_passed_as_a_slice_of_the_shared_block():
     assert "_table_burn(theta, TB[TO[0]:TO[1]], TB[TO[1]:TO[2]], CB[R_P + 0, b], CB[R_P + 1, b])" in text
     assert "_table_state(theta, TB[TO[0]:TO[1]], TB[TO[1]:TO[2]], CB[R_P + 0, b])" in text
     # the arrays take no per-case rows: off and scale only
-    from cyclesim import _compiled
-    from cyclesim.loopgen import param_rows_for
+    from cyclesim.loops import _compiled
+    from cyclesim.loops.loopgen import param_rows_for
 
     assert param_rows_for("burn", parts, _compiled.PARAM_ROWS) == {"off": 0, "scale": 1}
 
@@ -215,7 +216,7 @@ def test_the_shared_block_slices_give_back_each_array():
     from hypothesis import given
     from hypothesis import strategies as st
 
-    from cyclesim.layout import is_shared_array, shared_array, shared_blocks
+    from cyclesim.loops.layout import is_shared_array, shared_array, shared_blocks
 
     @given(st.lists(st.lists(st.floats(-1e6, 1e6), min_size=1, max_size=9), min_size=1, max_size=5))
     def check(arrays):

@@ -32,8 +32,8 @@ import cyclesim
 from cyclesim.cli import main
 from cyclesim.config import apply_override, build_case, load_raw, parse_override
 from cyclesim.fuels import get_fuel
-from cyclesim.geometry import Geometry
-from cyclesim.motoring import COMBUSTION_ONLY_KEYS, MOTORED_ONLY_KEYS, motored_energy_balance
+from cyclesim.cylinder.geometry import Geometry
+from cyclesim.results.motoring import COMBUSTION_ONLY_KEYS, MOTORED_ONLY_KEYS, motored_energy_balance
 from cyclesim.output import summary_table
 from cyclesim.traces.analysis import AnalysisSettings, VolumeFunction, estimate_tdc_offset
 

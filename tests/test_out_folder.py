@@ -1,6 +1,6 @@
 """The output folder: one writer at a time, proven writable before any work, write failures in one line.
 
-The contract is cyclesim.outdir's (a lock file holding the process id; a live
+The contract is cyclesim.results.outdir's (a lock file holding the process id; a live
 holder refuses a second run, a dead one is taken over) and cyclesim.studies.
 sweep's (rows on disk kept on a failed write, the message says how to resume).
 Unwritable folders are made in ways that stop root too, since the tests run as
@@ -24,7 +24,7 @@ import pytest
 from cyclesim.cli import main
 from cyclesim.config import load_config
 from cyclesim.errors import CyclesimError
-from cyclesim.outdir import LOCK_NAME, folder_lock, made_by_lock
+from cyclesim.results.outdir import LOCK_NAME, folder_lock, made_by_lock
 from cyclesim.studies import sweep_files
 from cyclesim.studies.sweep import SweepResult, read_sweep_csv, sweep
 
@@ -36,7 +36,7 @@ linux_only = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="re
 
 HOLDER = textwrap.dedent("""
     import sys, time
-    from cyclesim.outdir import folder_lock
+    from cyclesim.results.outdir import folder_lock
     with folder_lock(sys.argv[1]):
         print("held", flush=True)
         if sys.argv[2] == "die":

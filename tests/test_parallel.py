@@ -115,7 +115,7 @@ def assert_same_results(a, b):
 
 
 def test_cases_and_results_survive_pickling(cases):
-    from cyclesim.batch import batch_key
+    from cyclesim.solve.batch import batch_key
     from cyclesim.config import flat_inputs
     from cyclesim.registry import get_registry
 
@@ -274,7 +274,7 @@ def test_bad_parallel_options_fail_before_the_out_folder_is_touched(base, tmp_pa
 
 
 def test_command_line_options():
-    from cyclesim.cli_studies import add_parsers
+    from cyclesim.cli.studies import add_parsers
 
     ap = argparse.ArgumentParser(prog="cyclesim")
     add_parsers(ap.add_subparsers(dest="command", required=True))

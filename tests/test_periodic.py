@@ -1,4 +1,4 @@
-"""The periodic-steady-state driver (cyclesim.periodic) and Anderson acceleration (cyclesim.anderson)."""
+"""The periodic-steady-state driver (cyclesim.solve.periodic) and Anderson acceleration (cyclesim.solve.anderson)."""
 
 from __future__ import annotations
 
@@ -8,11 +8,11 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import cyclesim
-from cyclesim.anderson import Anderson
+from cyclesim.solve.anderson import Anderson
 from cyclesim.api import _registry_for
-from cyclesim.batch import build_batch
+from cyclesim.solve.batch import build_batch
 from cyclesim.config import load_config
-from cyclesim.solver import integrate
+from cyclesim.solve.solver import integrate
 
 
 def _linear_problem(rng, n, radius):

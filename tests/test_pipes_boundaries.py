@@ -12,7 +12,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from cyclesim import flow, pipes
+from cyclesim.cylinder import flow
+from cyclesim import pipes
 from cyclesim.errors import ConfigError
 from cyclesim.pipes import scheme
 
@@ -180,7 +181,8 @@ def test_numpy_path_agrees_with_compiled_path():
 def test_burned_gas_properties_match_cantera():
     # frozen complete-combustion products of iso-octane at phi = 1 against GRI-Mech 3.0 in Cantera
     ct = pytest.importorskip("cantera")
-    from cyclesim import fuels, thermo
+    from cyclesim import fuels
+    from cyclesim.gas import thermo
     from cyclesim.pipes import kernels
 
     fuel = fuels.get_fuel("isooctane")

@@ -5,7 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from cyclesim import flow, pipes
+from cyclesim.cylinder import flow
+from cyclesim import pipes
 from cyclesim.errors import SolverError
 from cyclesim.studies import boost
 

@@ -9,7 +9,7 @@ import sys
 import pytest
 
 import cyclesim
-from cyclesim import kernel
+from cyclesim.solve import kernel
 from cyclesim.config import load_config
 from cyclesim.errors import PluginError
 from cyclesim.registry import Registry, get_plugin_manager, get_registry

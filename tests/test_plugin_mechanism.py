@@ -76,7 +76,8 @@ def test_every_model_declares_name_params_references():
 def test_duplicate_registration_is_an_error():
     import pluggy
 
-    from cyclesim import hookimpl, hookspecs
+    from cyclesim import hookimpl
+    from cyclesim import hookspecs
     from cyclesim.errors import PluginError
 
     class Dup(ROLE_BASES["friction"]):
@@ -135,7 +136,7 @@ def test_the_guides_example_package_works_as_written(tmp_path, monkeypatch):
         cfg.write_text(yml)
         import cyclesim
 
-        from cyclesim import kernel
+        from cyclesim.solve import kernel
 
         before = kernel._used["compiled"]
         res = cyclesim.run(load_config(cfg))

@@ -88,7 +88,7 @@ def _check_failure_message(res):
 
 
 def _check_finite(res, motored_window=None):
-    from cyclesim.motoring import COMBUSTION_ONLY_KEYS, MOTORED_ONLY_KEYS
+    from cyclesim.results.motoring import COMBUSTION_ONLY_KEYS, MOTORED_ONLY_KEYS
 
     # figures with no meaning in the case's mode (fired or motored) are NaN, every other one finite
     null = MOTORED_ONLY_KEYS if res.summary["mode"] == "fired" else COMBUSTION_ONLY_KEYS

@@ -1,10 +1,10 @@
-"""The ideal-cycle first estimate of the residual state (cyclesim.residual_start).
+"""The ideal-cycle first estimate of the residual state (cyclesim.solve.residual_start).
 
 References used here:
 * Heywood, J. B. (1988), Internal Combustion Engine Fundamentals, sec. 5.4 [from memory for the
   section]: the ideal cycle's trapped-charge temperature
   T_1 = (1 - x_r) T_i + x_r T_r [1 - (gamma - 1)/gamma (1 - p_i/p_e)], re-derived in
-  cyclesim.residual_start.mixing_temperature_ideal; with a constant-property gas the general
+  cyclesim.solve.residual_start.mixing_temperature_ideal; with a constant-property gas the general
   energy balance must give it exactly.
 * Adiabatic reversible processes of an ideal gas with constant gamma: T V^(gamma-1) and
   T p^((1-gamma)/gamma) constant (any thermodynamics text, common practice).
@@ -19,15 +19,15 @@ import numpy as np
 import pytest
 
 import cyclesim
-from cyclesim import residual_start as rs
+from cyclesim.solve import residual_start as rs
 from cyclesim.api import _registry_for
-from cyclesim.batch import build_batch
+from cyclesim.solve.batch import build_batch
 from cyclesim.config import load_config
 from cyclesim.errors import ConfigError
 from cyclesim.fuels import get_fuel
-from cyclesim.ideal_gas import ConstantGammaGas
-from cyclesim.solver import _RHS, _initial_state, _interp_at, integrate
-from cyclesim.gas_tables import build_gas_tables
+from cyclesim.gas.ideal_gas import ConstantGammaGas
+from cyclesim.solve.solver import _RHS, _initial_state, _interp_at, integrate
+from cyclesim.solve.gas_tables import build_gas_tables
 
 AIR = {"O2": 0.2095, "N2": 0.7812, "AR": 0.0093}   # as tests/test_closed_cycle_reference.py
 

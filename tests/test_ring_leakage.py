@@ -5,7 +5,7 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
-from cyclesim.geometry import Geometry
+from cyclesim.cylinder.geometry import Geometry
 from cyclesim.roles import GasState, RingLeakage
 from cyclesim_plugins import ring_leakage as rl
 

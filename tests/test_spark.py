@@ -127,7 +127,7 @@ def test_ca50_burn_model_cannot_be_spark_swept(tmp_path):
 
 
 def test_cli_spark_handler(tmp_path, capsys):
-    from cyclesim.cli_studies import HANDLERS, add_parsers
+    from cyclesim.cli.studies import HANDLERS, add_parsers
 
     ap = argparse.ArgumentParser()
     add_parsers(ap.add_subparsers(dest="command"))

@@ -1,4 +1,4 @@
-"""Submodel states compiled from their declarations and state kernels (cyclesim.loopgen).
+"""Submodel states compiled from their declarations and state kernels (cyclesim.loops.loopgen).
 
 Checked against: the time integral of the traced pressure by the trapezoidal rule
 (scipy.integrate.trapezoid) and the closed part's duration from the crank speed, (EVO - IVC) /
@@ -12,7 +12,8 @@ import sys
 import numpy as np
 import pytest
 
-from cyclesim import kernel, simulate
+from cyclesim.solve import kernel
+from cyclesim import simulate
 from cyclesim.config import load_config
 from cyclesim.registry import get_registry
 from plugin_sources import STATE_KNOCK, fake_install
@@ -63,8 +64,8 @@ def test_the_state_kernel_on_the_python_path_agrees(package, monkeypatch):
 
 
 def test_the_built_in_states_are_declared_by_their_models():
-    from cyclesim import _compiled
-    from cyclesim.loopgen import state_kernel_of
+    from cyclesim.loops import _compiled
+    from cyclesim.loops.loopgen import state_kernel_of
 
     reg = get_registry()
     for role, name, state in (("heat_transfer", "woschni", "T_mot"), ("knock", "livengood_wu", "I")):

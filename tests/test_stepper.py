@@ -1,4 +1,4 @@
-"""The Runge-Kutta stepper whose tableau is data (cyclesim.stepper)."""
+"""The Runge-Kutta stepper whose tableau is data (cyclesim.solve.stepper)."""
 
 from __future__ import annotations
 
@@ -7,7 +7,7 @@ import math
 import numpy as np
 import pytest
 
-from cyclesim.stepper import KUTTA3, Tableau, combine, step
+from cyclesim.solve.stepper import KUTTA3, Tableau, combine, step
 
 
 def _coeffs(t: Tableau):
@@ -70,13 +70,13 @@ def test_a_malformed_tableau_is_refused():
 
 def test_the_cylinder_system_with_the_stepper_reproduces_the_closed_cycle(monkeypatch):
     # the solver's closed cycle (numpy loop) against the cylinder system's fun(theta, y) stepped
-    # by cyclesim.stepper.step on the same grid from the same start: the same equations and
+    # by cyclesim.solve.stepper.step on the same grid from the same start: the same equations and
     # scheme, so the end state agrees to rounding
-    from cyclesim import kernel
+    from cyclesim.solve import kernel
     from cyclesim.api import _registry_for
-    from cyclesim.batch import build_batch
+    from cyclesim.solve.batch import build_batch
     from cyclesim.config import load_config
-    from cyclesim.solver import TABLEAU, _initial_state, _RHS, integrate
+    from cyclesim.solve.solver import TABLEAU, _initial_state, _RHS, integrate
 
     monkeypatch.setenv(kernel.ENV, "python")
     cases = [load_config("demo_closed", [f"burn.spark_advance_deg={a}"]) for a in (15, 30)]

@@ -217,7 +217,7 @@ def test_resume_refuses_a_different_sweep(base, tmp_path):
 
 
 def _cli(argv):
-    from cyclesim.cli_studies import HANDLERS, add_parsers
+    from cyclesim.cli.studies import HANDLERS, add_parsers
 
     ap = argparse.ArgumentParser()
     add_parsers(ap.add_subparsers(dest="command"))

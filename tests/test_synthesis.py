@@ -152,10 +152,10 @@ def test_interrupted_set_resumes_to_the_same_result(base, tmp_path, monkeypatch)
 
 
 def test_fine_grid_interpolation_equals_the_solver_hermite_interpolant():
-    # reference: cyclesim.solver.hermite_grid (all rows at once) on a non-uniform solver grid with
+    # reference: cyclesim.solve.solver.hermite_grid (all rows at once) on a non-uniform solver grid with
     # a coarser closed-valve part; the row-by-row fine-grid path must give the same values
-    from cyclesim.solver import hermite_grid
-    from cyclesim.hermite import HermiteBasis
+    from cyclesim.solve.solver import hermite_grid
+    from cyclesim.solve.hermite import HermiteBasis
 
     rng = np.random.default_rng(8)
     th = np.concatenate([np.arange(-360.0, -120.0, 0.5), np.arange(-120.0, 120.0, 2.0), np.arange(120.0, 360.01, 0.5)])

@@ -6,8 +6,9 @@ import cantera as ct
 import numpy as np
 import pytest
 
-from cyclesim import equilibrium as eq
-from cyclesim import gas_tables, thermo
+from cyclesim.gas import equilibrium as eq
+from cyclesim.solve import gas_tables
+from cyclesim.gas import thermo
 from cyclesim.data.nasa7 import NASA7
 from cyclesim.errors import ConfigError
 from cyclesim.fuels import BUILTIN_FUELS
@@ -349,7 +350,7 @@ def test_adiabatic_constant_volume_combustion_matches_cantera(phi):
 def test_constant_gamma_gas_grid_properties_equal_its_solver_properties():
     # the air-standard gas serves the same two calls as the tables: the whole-trace evaluation
     # of the figures must equal the solver's column-by-column one
-    from cyclesim.ideal_gas import ConstantGammaGas
+    from cyclesim.gas.ideal_gas import ConstantGammaGas
 
     g = ConstantGammaGas(BUILTIN_FUELS["gasoline"], np.array([1.0, 0.9]), np.array([1.4, 1.3]), 287.0)
     T = np.array([[300.0, 900.0, 2000.0], [400.0, 800.0, 1500.0]])

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from cyclesim.cli import main
-from cyclesim.cli_traces import add_parsers
+from cyclesim.cli.traces import add_parsers
 from cyclesim.config import load_config
 from cyclesim.errors import ConfigError
 from cyclesim.traces.artefacts import ArtefactSettings

@@ -116,7 +116,7 @@ def test_band_width_matches_linear_propagation(tmp_path):
 
 
 def _parser():
-    from cyclesim.cli_fit import add_parsers
+    from cyclesim.cli.fit import add_parsers
 
     ap = argparse.ArgumentParser(prog="cyclesim")
     add_parsers(ap.add_subparsers(dest="command", required=True))
@@ -125,7 +125,7 @@ def _parser():
 
 def test_fit_and_predict_commands(tmp_path, capsys):
     import cyclesim
-    from cyclesim.cli_fit import HANDLERS
+    from cyclesim.cli.fit import HANDLERS
     from cyclesim.traces.export import write_npz
 
     case = load_config("demo_closed", ["simulation.step_deg=1.0", "simulation.output_step_deg=0.5"])

@@ -32,7 +32,10 @@ from hypothesis import strategies as st
 import cyclesim
 from cyclesim.config import CORE_SCHEMA, MULTI_SCHEMA, builtin_configs, effective_step_deg, load_config
 from cyclesim.errors import CyclesimError
-from cyclesim.motoring import COMBUSTION_ONLY_KEYS, MODE_MOTORED, MOTORED_ONLY_KEYS, POLYTROPIC_NULL_WARNING
+from cyclesim.results.motoring import (COMBUSTION_ONLY_KEYS,
+    MODE_MOTORED,
+    MOTORED_ONLY_KEYS,
+    POLYTROPIC_NULL_WARNING)
 from cyclesim.params import Param
 from cyclesim.registry import get_registry
 
@@ -53,7 +56,7 @@ with CYCLESIM_HYPOTHESIS_ALL=1 (the long run reports them)."""
 
 EXHAUST_T_NULL = "exhaust temperature not defined"
 """The warning that declares exhaust_temperature_K null: the net outflow's mean enthalpy is no gas
-state within 250-4000 K (heavy exhaust backflow; cyclesim.figures).  Without it, a NaN there fails."""
+state within 250-4000 K (heavy exhaust backflow; cyclesim.results.figures).  Without it, a NaN there fails."""
 
 DECLARED_NULL = {"exhaust_temperature_K": EXHAUST_T_NULL,
                  "polytropic_exponent_compression": POLYTROPIC_NULL_WARNING,
@@ -176,8 +179,8 @@ def _exists(key: str, summary: dict, burn_share: float = 1.0) -> bool:
     """Whether a figure describes something that happened in this case.
 
     A motored case (``mode`` "motored": no fuel burns) declares the combustion figures null
-    (:data:`cyclesim.motoring.COMBUSTION_ONLY_KEYS`), a fired one the motored figures
-    (:data:`cyclesim.motoring.MOTORED_ONLY_KEYS`); exactly those keys may be NaN.
+    (:data:`cyclesim.results.motoring.COMBUSTION_ONLY_KEYS`), a fired one the motored figures
+    (:data:`cyclesim.results.motoring.MOTORED_ONLY_KEYS`); exactly those keys may be NaN.
 
     The figures at knock onset (``*onset*``) are NaN by definition when the knock integral stayed
     below 1 (no onset: Livengood & Wu 1955, onset where the integral reaches 1).  A burn angle
@@ -193,7 +196,7 @@ def _exists(key: str, summary: dict, burn_share: float = 1.0) -> bool:
     if "onset" in key:
         return summary.get("knock_integral_max", 0.0) >= 1.0
     m = re.fullmatch(r"ca(\d\d)_deg", key)
-    # cyclesim.figures counts a cycle with less than half of its charge burned as not fired and
+    # cyclesim.results.figures counts a cycle with less than half of its charge burned as not fired and
     # gives it no burn angles at all
     if m:
         return burn_share >= max(int(m.group(1)) / 100.0, 0.5)
@@ -275,7 +278,7 @@ def check_one(base: str, changes: dict) -> str | None:
         "combustion_efficiency") or 1.0)
     bad = _figures_finite(res.summary, share)
     closure = abs(eb.get("closure_fraction", 0.0))
-    # a documented null, with the warning that declares it (README, cyclesim.figures / motoring)
+    # a documented null, with the warning that declares it (README, cyclesim.results.figures / motoring)
     bad = [k for k in bad if not (k in DECLARED_NULL and any(w.startswith(DECLARED_NULL[k]) for w in res.warnings))]
     if bad:
         _record("NaN", f"{bad} [{corner or ''}] {what}")

@@ -8,7 +8,7 @@ import cantera as ct
 import numpy as np
 import pytest
 
-from cyclesim import thermo
+from cyclesim.gas import thermo
 from cyclesim.combustion import zeldovich as z
 from cyclesim.fuels import BUILTIN_FUELS
 

@@ -197,7 +197,7 @@ def decompose_two_zone(gas, theta, speed_rpm, V, p, T, m, y, Q_w, T_wall):
 
     Parameters
     ----------
-    gas : cyclesim.gas_tables.GasTables
+    gas : cyclesim.solve.gas_tables.GasTables
     theta : ndarray (n,)
         Crank angle [deg], from IVC (or the start of the burn) to EVO.
     speed_rpm : ndarray (B,)

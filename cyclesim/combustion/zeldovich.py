@@ -29,7 +29,7 @@ NO-free equilibrium products (2400-2800 K, 20-60 bar, phi 1) the routes
 through N2O, NNH and HNO add 20-40 % to it (the N2O route alone 5-9 %), and
 GRI's k1+ is about 1.5 times Heywood's (tests/test_zeldovich.py).
 
-Equilibrium inputs come from :func:`cyclesim.equilibrium.equilibrate_tv`
+Equilibrium inputs come from :func:`cyclesim.gas.equilibrium.equilibrate_tv`
 (its species include NO and N); :func:`equilibrium_tp` finds the density
 for a given pressure.  For burned-mass elements, :func:`no_table` tabulates
 ln R1, ln(R2 + R3) and ln [NO]e per unit density against T and ln p once per
@@ -46,8 +46,8 @@ import math
 
 import numpy as np
 
-import cyclesim.equilibrium as equilibrium
-import cyclesim.thermo as thermo
+import cyclesim.gas.equilibrium as equilibrium
+import cyclesim.gas.thermo as thermo
 
 _CM3 = 1e-6  # cm^3/mol -> m^3/mol
 _I = {s: i for i, s in enumerate(equilibrium.SPECIES)}
@@ -89,7 +89,7 @@ def equilibrium_tp(T, p, b, iterations: int = 30):
     Returns
     -------
     n : ndarray (N, 12)
-        Species amounts [mol/kg], columns :data:`cyclesim.equilibrium.SPECIES`.
+        Species amounts [mol/kg], columns :data:`cyclesim.gas.equilibrium.SPECIES`.
     rho : ndarray (N,)
         Density [kg/m^3].
     """

@@ -21,8 +21,8 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
                      tol: float | None = None) -> list[EngineResult]:
     """Simulate several engines; their cylinders share batches where their settings allow."""
     from ..api import _registry_for, results_from_trace
-    from ..batch import build_batch, group_cases
-    from ..solver import integrate
+    from ..solve.batch import build_batch, group_cases
+    from ..solve.solver import integrate
 
     setups = list(setups)
     cols = []       # (engine index, cylinder index, case)
@@ -267,7 +267,7 @@ def _start_state(batch, columns, info):
 
     States are matched by name; one the start engine does not have keeps its usual initial value.
     """
-    from ..solver import _RHS, _initial_state
+    from ..solve.solver import _RHS, _initial_state
 
     starts = []
     for e, k, _ in columns:

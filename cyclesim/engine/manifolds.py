@@ -78,14 +78,14 @@ class _Manifolds:
 
     def q_throttle_rows(self, p, rows):
         """Throttle flow [kg/deg] of some engines (``rows`` a slice) at pressure p."""
-        from ..flow import orifice_mass_flow
+        from ..cylinder.flow import orifice_mass_flow
 
         return orifice_mass_flow(self.A_thr[rows], self.p_sup[rows], self.T_amb[rows], R_AIR, GAMMA_AIR,
                                  p, self.T_int[rows], R_AIR, GAMMA_AIR) / self.omega[rows]
 
     def q_outlet_rows(self, p, rows):
         """Exhaust outlet flow [kg/deg] of some exhaust branches (``rows``) at pressure p."""
-        from ..flow import orifice_mass_flow
+        from ..cylinder.flow import orifice_mass_flow
 
         return orifice_mass_flow(self.A_out[rows], p, self.T_exh_x[rows], self.R_exh_x[rows], GAMMA_EXHAUST,
                                  self.p_amb_x[rows], self.T_amb_x[rows], R_AIR, GAMMA_AIR) / self.omega_x[rows]
@@ -131,12 +131,12 @@ class _Manifolds:
         ki = self.R_int * self.T_int / self.V_i
         ke = self.R_exh_x * self.T_exh_x / self.V_e
         dp = 1.0
-        import cyclesim.kernel as kernel
+        import cyclesim.solve.kernel as kernel
 
         mod = kernel.compiled_module()
         if mod is not None:
-            # the same laps in compiled form (cyclesim._compiled), one Python call per lap
-            from ..flow import DP_LIN_DEFAULT
+            # the same laps in compiled form (cyclesim.loops._compiled), one Python call per lap
+            from ..cylinder.flow import DP_LIN_DEFAULT
 
             f64 = lambda a: np.ascontiguousarray(a, dtype=float)  # noqa: E731
             Qi_, pr_, Qe_ = f64(Qi), f64(pref_i), f64(Qe)

@@ -145,7 +145,7 @@ class EngineResult:
                          f" {_or_dash(c['ca50_deg'], 5, '.1f')} {c['trapped_mass_mg']:8.1f} {c['wall_mean_K']:7.1f}")
         lines.append(f"  spread (max-min) of net IMEP over firing cylinders: {e['imep_net_spread_bar']:.3f} bar,"
                      f" COV {100 * e['imep_net_cov_cylinders']:.2f} %")
-        from ..warning_groups import cylinder_warning_lines
+        from ..results.warning_groups import cylinder_warning_lines
 
         lines.extend(cylinder_warning_lines(self.warnings, len(self.cylinders)))
         return "\n".join(lines)

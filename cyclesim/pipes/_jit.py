@@ -56,7 +56,7 @@ def compiled_kernels():
         from numba.extending import register_jitable
 
         from .. import kernel_ops
-        from ..flow import critical_ratio_of
+        from ..cylinder.flow import critical_ratio_of
         from .kernels import __file__ as kernels_file
 
         # flow.isentropic_flux, compiled here, reads these: kernel_ops' compiled forms and its helper

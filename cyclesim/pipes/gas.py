@@ -3,7 +3,7 @@
 A pipe gas is two frozen mixtures, fresh charge and burned gas, each with a
 constant gas constant and a two-range internal-energy polynomial; the pipe
 carries the burned-gas mass fraction and mixes the two by mass.  The
-coefficients come from the project's NASA-7 data (:mod:`cyclesim.thermo`):
+coefficients come from the project's NASA-7 data (:mod:`cyclesim.gas.thermo`):
 fresh charge of fuel vapour and air at the equivalence ratio, burned gas as
 its complete-combustion products, both at the polynomials' switch at 1000 K.
 The constant-gamma gas (the reference tests' gas) has linear u(T).
@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-import cyclesim.thermo as thermo
+import cyclesim.gas.thermo as thermo
 
 
 @dataclass(frozen=True)

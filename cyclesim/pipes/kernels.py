@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..flow import isentropic_flux
+from ..cylinder.flow import isentropic_flux
 
 if "jit" not in globals():          # the numpy form; the compiled loader sets all three first
     def jit(fn):

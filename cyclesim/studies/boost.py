@@ -24,9 +24,9 @@ a fixed point on the exhaust back pressure:
 4. **Turbine**, isentropic efficiency eta_t: ``T4s = T3 (p4/p3)^((g-1)/g)``,
    ``T4 = T3 - eta_t (T3 - T4s)``, power ``P_t = m_t cp_e (T3 - T4)`` with the
    exhaust gas's own g and cp from the complete-combustion products
-   (:mod:`cyclesim.thermo`) at the mean of T3 and T4.  The turbine passes
+   (:mod:`cyclesim.gas.thermo`) at the mean of T3 and T4.  The turbine passes
    ``m_t`` through one effective area as a compressible orifice
-   (:func:`cyclesim.flow.orifice_mass_flow`, Heywood 1988 App. C), which sets
+   (:func:`cyclesim.cylinder.flow.orifice_mass_flow`, Heywood 1988 App. C), which sets
    p3 for a given m_t.
 5. **Power balance** ``eta_m P_t = P_c``: the wastegate passes the share of the
    exhaust flow that the turbine must not take; with the wastegate closed and
@@ -121,7 +121,7 @@ def exhaust_gas_properties(case: Case, T):
     """Gas constant R [J/(kg K)], cp [J/(kg K)] and gamma [-] of the case's complete-combustion products at T [K]."""
     from ..fuels import get_fuel
     from ..registry import get_registry
-    from ..gas_tables import build_gas_tables
+    from ..solve.gas_tables import build_gas_tables
 
     f = case.fuel
     spec = f.name if f.C is None else {"name": f.name, "C": f.C, "H": f.H, "O": f.O or 0.0,
@@ -247,7 +247,7 @@ def _p3_for_flow(m_t, area, T3, R, g, p4):
     """Turbine inlet pressure [Pa] that passes ``m_t`` [kg/s] through ``area`` [m^2] to ``p4`` [Pa]."""
     from scipy.optimize import brentq
 
-    from ..flow import orifice_mass_flow
+    from ..cylinder.flow import orifice_mass_flow
 
     if m_t <= 0:
         return p4

@@ -78,8 +78,8 @@ import numpy as np
 from ..config import Case, case_with, resolve_case
 from ..engine import EngineResult, EngineSetup, simulate_engines
 from ..errors import ConfigError
-from ..figures import friction_components
-from ..motoring import is_motored_config
+from ..results.figures import friction_components
+from ..results.motoring import is_motored_config
 from ..output import CAUTION, atomic_write_text, write_rows_csv
 from ..output import plain as _plain
 
@@ -256,7 +256,7 @@ def _friction_fmep_bar(res: EngineResult, model: str, case: Case) -> float:
     """Engine FMEP [bar] from a friction model evaluated on each cylinder's own trace (mean over cylinders)."""
     from types import SimpleNamespace
 
-    from ..batch import build_batch
+    from ..solve.batch import build_batch
     from ..registry import get_registry
     from ..roles import FrictionInputs
 

@@ -79,8 +79,8 @@ def statistical_knock_limit(case: Case, advances, n_cycles: int = 50, share: flo
         raise ConfigError(f"knock limit: {adv.size} advance(s) given: at least 2 are needed to bracket the limit")
     var = variation or CycleVariation()
     registry = _registry_for([case])
-    from ..batch import build_batch
-    from ..solver import integrate
+    from ..solve.batch import build_batch
+    from ..solve.solver import integrate
 
     bases = [case_with(case, {spark: float(a)}) for a in adv]
     mean = integrate(build_batch(bases, registry))          # all mean cycles in one batch

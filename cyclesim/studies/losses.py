@@ -344,7 +344,7 @@ def _steps_from(order, closed_eta, full, comp_eff_note=None) -> list[dict]:
 
 def _unreleased_points(full) -> dict:
     """The full cycle's unreleased chemical energy (exhaust and blowby) by carrier, in points of the
-    inducted fuel energy (the basis of the energy balance's split, see :mod:`cyclesim.figures`)."""
+    inducted fuel energy (the basis of the energy balance's split, see :mod:`cyclesim.results.figures`)."""
     s = full.summary
     un, eb = s.get("unreleased_energy"), s.get("energy_balance", {})
     fuel = eb.get("fuel_energy_J")
@@ -421,7 +421,7 @@ def loss_breakdown(
         raise ConfigError(f"closed_step_deg {closed_step_deg!r}: expected 0.01 to 1 deg")
     order = _validate_order(order if order is not None else DEFAULT_ORDER)
     notes = []
-    from ..motoring import is_motored_config
+    from ..results.motoring import is_motored_config
 
     if is_motored_config(case):
         raise ConfigError("loss breakdown: the case is motored (burn.model 'none' or operating.fuel_cut): there is"

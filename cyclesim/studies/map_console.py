@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import math
 
-from ..warning_groups import group_labelled, warning_lines
+from ..results.warning_groups import group_labelled, warning_lines
 
 __all__ = ["map_text", "group_labelled", "group_warnings", "warning_lines", "knock_margin_text"]
 

@@ -347,7 +347,7 @@ def full_load_curve(case: Case | str | Path = "demo", speeds=None, *, overrides:
     if mode != "fixed":
         m.notes.append(f"{SPARK_CAUTION}")
     if out is not None:
-        from ..map_plots import plot_full_load
+        from ..plots.maps import plot_full_load
 
         _write(m, Path(out), "full_load", plots, plot_full_load)
     return m
@@ -413,7 +413,7 @@ def part_load_map(case: Case | str | Path = "demo", speeds=None, loads=None, spa
     m.cases_run = cases_run
     m.notes.append(SPARK_CAUTION)
     if out is not None:
-        from ..map_plots import plot_part_load
+        from ..plots.maps import plot_part_load
 
         _write(m, Path(out), "part_load_map", plots, plot_part_load)
     return m
@@ -477,7 +477,7 @@ def _boosted_full_load(case, label, speeds, *, mode, out, plots, advances, knock
     m.cases_run = run.cases
     m.notes.append(SPARK_CAUTION)
     if out is not None:
-        from ..map_plots import plot_full_load
+        from ..plots.maps import plot_full_load
 
         def plotter(m_, out_):
             files = plot_full_load(m_, out_)

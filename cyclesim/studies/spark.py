@@ -49,7 +49,7 @@ import numpy as np
 from ..config import Case, resolve_case
 from ..errors import ConfigError, CyclesimError
 from ..output import CAUTION, atomic_write_text
-from ..outdir import folder_lock
+from ..results.outdir import folder_lock
 from .sweep import CSV_NAME, JSON_NAME, SweepResult, parse_values, sweep
 from .sweep_files import write_failed
 from .spark_console import case_warning_groups
@@ -295,7 +295,7 @@ def _check_burn_model(case: Case) -> str:
     """The swept key of the spark timing (``burn.`` + the burn model's ``spark_param``)."""
     from ..registry import get_registry, spark_param
 
-    from ..motoring import is_motored_config
+    from ..results.motoring import is_motored_config
 
     if is_motored_config(case):
         raise ConfigError("the case is motored (operating.fuel_cut, or burn.model 'none'): no fuel burns and spark"
@@ -691,7 +691,7 @@ def plot_spark_study(st: SparkStudy, out: Path, traces: int = 8) -> list[Path]:
         ax.set_title("cylinder pressure by spark advance")
         ax.legend(title="advance [deg BTDC]", fontsize=7, ncol=2)
         files.append(_save(fig, out / "spark_pressure_traces.png"))
-    from ..burn_no_plots import plot_spark_burn_no
+    from ..plots.burn_no import plot_spark_burn_no
     from .spark_knock_plot import plot_knock_onset
 
     bp = plot_spark_burn_no(st, out)

@@ -17,7 +17,7 @@ continues where it stopped, provided the folder's ``study.fingerprint`` shows
 the same study (base case fully resolved, varied values, submodels, options,
 tool version; :mod:`cyclesim.fingerprint`): otherwise the resume is
 refused, naming what differs.  The folder is locked for the whole run
-(:func:`cyclesim.outdir.folder_lock`): a second sweep into it is refused.  A case that fails (invalid value, solver
+(:func:`cyclesim.results.outdir.folder_lock`): a second sweep into it is refused.  A case that fails (invalid value, solver
 failure) is recorded with its error message; the others go on.
 
 Chunks run on several cores (``workers=2``, ``workers="auto"``) or on a Dask
@@ -48,7 +48,7 @@ from ..errors import ConfigError, CyclesimError, InputFileError
 from ..output import CAUTION, atomic_write_text
 from ..params import suggestion
 from ..roles import ROLES
-from ..outdir import folder_lock
+from ..results.outdir import folder_lock
 from ..fingerprint import check_fingerprint, digest, study_record, write_fingerprint
 from .sweep_files import (CSV_NAME, JSON_NAME, WARNING_SEPARATOR, CsvSink, check_out, read_sweep_csv, resumed_rows,
                           rows_text, write_failed)

@@ -16,7 +16,7 @@ from typing import Any, Iterable, Mapping, Sequence
 
 from ..errors import CyclesimError, InputFileError
 from ..output import atomic_write_text
-from ..outdir import folder_entries
+from ..results.outdir import folder_entries
 
 WARNING_SEPARATOR = " | "
 """Between a case's warnings in the one ``warnings`` cell (messages use ';' themselves):

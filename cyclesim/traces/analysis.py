@@ -404,7 +404,7 @@ def analyse(traceset: TraceSet, geometry_or_volume, settings: AnalysisSettings |
     Parameters
     ----------
     traceset : TraceSet
-    geometry_or_volume : cyclesim.geometry.Geometry or array_like (n,)
+    geometry_or_volume : cyclesim.cylinder.geometry.Geometry or array_like (n,)
         Geometry of one case, or V(theta) [m^3] on ``traceset.theta``.
     settings : AnalysisSettings
     motored : TraceSet, optional

@@ -221,9 +221,9 @@ def analysis_inputs(case):
 
     Returns
     -------
-    (cyclesim.geometry.Geometry, cyclesim.traces.analysis.AnalysisSettings, speed_rpm [rpm])
+    (cyclesim.cylinder.geometry.Geometry, cyclesim.traces.analysis.AnalysisSettings, speed_rpm [rpm])
     """
-    from ..geometry import Geometry
+    from ..cylinder.geometry import Geometry
 
     e, v, w, op = (case.section(n) for n in ("engine", "valves", "walls", "operating"))
     g = Geometry(e.bore_mm / 1000.0, e.stroke_mm / 1000.0, e.conrod_mm / 1000.0, e.compression_ratio,

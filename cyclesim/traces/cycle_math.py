@@ -14,7 +14,7 @@ class VolumeFunction:
     """Cylinder volume V(theta) [m^3] and dV/dtheta from a Geometry or a sampled V(theta)."""
 
     def __init__(self, geometry_or_volume, theta=None, bore_m=None):
-        from ..geometry import Geometry
+        from ..cylinder.geometry import Geometry
 
         self.geometry = None
         if isinstance(geometry_or_volume, Geometry):

@@ -22,7 +22,7 @@ import numpy as np
 
 from ..errors import CyclesimError, InputFileError
 from ..textsafe import excerpt
-from ..atomic_files import atomic_write_bytes, atomic_write_text
+from ..results.atomic_files import atomic_write_bytes, atomic_write_text
 from ..output import plain as _plain
 
 __all__ = [

@@ -68,7 +68,7 @@ def _gas_tables(s: AnalysisSettings):
     key = (s.fuel, float(s.fuel_air_lambda), s.burned_gas)
     if key not in _TABLES:
         from ..fuels import get_fuel
-        from ..gas_tables import build_gas_tables
+        from ..solve.gas_tables import build_gas_tables
 
         if not s.fuel_air_lambda > 0:
             raise CyclesimError(f"analyse: fuel_air_lambda = {s.fuel_air_lambda!r}: expected > 0")

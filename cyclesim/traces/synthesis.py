@@ -47,10 +47,10 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from ..batch import group_cases
+from ..solve.batch import group_cases
 from ..config import Case, case_with
 from ..errors import ConfigError, CyclesimError
-from ..hermite import HermiteBasis
+from ..solve.hermite import HermiteBasis
 
 # burn-parameter keys that carry the cycle-to-cycle variation, per burn model:
 # (start-type key varied by an absolute spread [deg], duration key varied by a relative spread)
@@ -186,8 +186,8 @@ def draw_parameters(case: Case, n: int, var: CycleVariation) -> tuple[list[dict]
 
 
 def _steady_state(case: Case, registry):
-    from ..batch import build_batch
-    from ..solver import integrate
+    from ..solve.batch import build_batch
+    from ..solve.solver import integrate
 
     batch = build_batch([case], registry)
     tr = integrate(batch)
@@ -202,7 +202,7 @@ CHAIN_MAX_SWEEPS = 60
 
 
 def _figures_of(batch, tr):
-    from ..figures import compute_figures, derived_trace, output_trace
+    from ..results.figures import compute_figures, derived_trace, output_trace
     from ..roles import Submodel
 
     d = derived_trace(batch, tr)
@@ -223,9 +223,9 @@ def _run_chain(cases: list[Case], registry, start: np.ndarray, tol: float = CHAI
     state changes by more than ``tol`` relative to its row's largest value.  Returns
     ([(indices, batch, trace, derived, figures) per group], end states (n_state, n), sweeps).
     """
-    from ..batch import build_batch
-    from ..layout import TOTALS as _TOTALS
-    from ..solver import integrate
+    from ..solve.batch import build_batch
+    from ..loops.layout import TOTALS as _TOTALS
+    from ..solve.solver import integrate
 
     n = len(cases)
     groups = [(g, build_batch([cases[j] for j in g], registry)) for g in group_cases(cases, registry)]
@@ -260,8 +260,8 @@ def _run_chain(cases: list[Case], registry, start: np.ndarray, tol: float = CHAI
 
 def _run_cycles(cases: list[Case], registry, initial: np.ndarray):
     """One full cycle for each case from the given initial state(s); returns per-case pieces."""
-    from ..batch import build_batch
-    from ..solver import integrate
+    from ..solve.batch import build_batch
+    from ..solve.solver import integrate
 
     batch = build_batch(cases, registry)
     init = np.repeat(initial.reshape(initial.shape[0], 1), len(cases), axis=1) if initial.ndim == 1 else initial
@@ -366,7 +366,7 @@ def check_request(case: Case, n_cycles: int, variation: CycleVariation, resoluti
         )
     out_step, fine = output_grid(resolution_deg, sample_rate_hz, float(case.operating.speed_rpm), fine_step_deg,
                                  names)
-    from ..budget import check_traces
+    from ..solve.budget import check_traces
 
     check_traces(int(n_cycles), 720.0 / fine + 1, 720.0 / out_step + 1)       # before any array exists
     return out_step, fine
@@ -423,7 +423,7 @@ def synthesize(
     registry = _registry_for([case])
     speed = float(case.operating.speed_rpm)
     n_fine = int(round(720.0 / fine))
-    from ..budget import trace_chunk
+    from ..solve.budget import trace_chunk
 
     chunk = trace_chunk(case, n_cycles, n_fine + 1, 720.0 / out_step + 1, chunk)   # cycles per batch
     theta_f = np.linspace(-360.0, 360.0, n_fine + 1)
@@ -515,7 +515,7 @@ def synthesize(
             return
         import io
 
-        from ..atomic_files import atomic_write_bytes
+        from ..results.atomic_files import atomic_write_bytes
 
         buf = io.BytesIO()
         np.savez(buf, P=P[i0:i0 + n], T=Tg[i0:i0 + n], G=G[i0:i0 + n], W=W[i0:i0 + n],

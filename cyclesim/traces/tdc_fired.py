@@ -129,7 +129,7 @@ def fit_tdc_fired(theta, p_cycles_pa, volume, gas, mass_kg, burned_fraction: flo
         Pegged pressure of the fired cycles (or their mean) [Pa].
     volume : callable
         V(true crank angle [deg]) [m^3].
-    gas : cyclesim.gas_tables.GasTables
+    gas : cyclesim.solve.gas_tables.GasTables
         Property tables of the charge (``mixture_points``).
     mass_kg : float or None
         Trapped mass [kg]; None: from the mean pressure at the window's start and ``T_start_K``.

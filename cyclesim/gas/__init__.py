@@ -1,0 +1,1 @@
+"""Gas properties: NASA-7 species, fresh charge, burned-gas equilibrium, the constant-gamma gas."""

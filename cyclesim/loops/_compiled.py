@@ -1,0 +1,409 @@
+"""The compiled cycle loop's template (imported only when numba is installed).
+
+The Runge-Kutta loop of :func:`cyclesim.solve.solver.integrate` and the right-hand side
+:func:`_rhs`, written case by case in scalars for numba.  The submodels' physics is not here:
+each role's call site (``# KERNEL CALL``, ``# STATE KERNEL CALLS``) holds a stand-in, and
+:mod:`cyclesim.loops.loopgen` writes a module per combination of models with their own kernels called
+there (the functions the Python path runs on arrays).  The Python path stays the reference:
+``tests/test_kernel.py`` checks the two agree.
+
+Status per case on return: 0 finished; 1 the state or a derivative stopped being
+finite or physical (the caller then re-runs the cycle on the Python path, which
+names the cause).  Arithmetic follows numpy's rules (``error_model="numpy"``): a division
+by zero gives inf or NaN, as on the Python path, instead of raising.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from .layout import CORE_ROWS as _S
+from .layout import block_rows, param_rows
+
+# -- what the loop covers: the compiled forms, by role, and the packed-parameter rows of each --
+# A model gives kernels (or declares ``compiled_form`` "none" / a valve or plenum form below) and
+# ``pack()``, which returns its parameter arrays by name; cyclesim.solve.kernel fills the rows from
+# those names.  The row numbers are resolved here once, at import (numba reads them as constants).
+KERNEL_PARAMS = 32
+"""Most packed parameters of a model given as kernels (form ``kernel``: its kernel and its state
+kernel together, see cyclesim.loops.loopgen)."""
+KSLOTS = tuple(f"k{i}" for i in range(KERNEL_PARAMS))
+FORMS = {
+    "burn": {"kernel": KSLOTS, "none": ()},
+    "heat_transfer": {"kernel": KSLOTS, "heat_flow_kernel": KSLOTS, "none": ()},
+    "blowby": {"kernel": KSLOTS, "none": ()},
+    "knock": {"none": (), "kernel": KSLOTS},
+    "valve_flow": {"none": (), "poppet": ()},
+    "boundary": {"constant": (), "pressure_trace": ()},
+}
+"""The compiled forms by role and their packed-parameter rows: a model's kernels fill the role's
+slots in the order they name their parameters (cyclesim.loops.loopgen.param_rows_for)."""
+
+# rows of the per-case constant array CB (see cyclesim.solve.kernel.Compiled): named blocks, in order
+N_P = sum(max(len(v) for v in FORMS[r].values()) for r in ("burn", "heat_transfer", "blowby", "knock"))
+"""Submodel parameter rows: each role's block as long as its longest form (one form per role)."""
+ROWS, N_ROWS = block_rows((
+    ("omega", 1), ("Sp", 1), ("T_wall", 3), ("eta", 1), ("dh298", 1), ("buf_scale", 1), ("plenum", 11),
+    ("params", N_P), ("ivc", 3), ("ivc_deg", 1), ("V_at_ivc", 1),
+))
+R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC = ROWS.values()
+PARAM_ROWS = param_rows(FORMS, ("burn", "heat_transfer", "blowby", "knock"))
+"""(role, form) -> {parameter name: row offset from R_P}."""
+# the plenum block: intake (p, T, y_b, R, gamma, h), exhaust (p, T, R, gamma, h)
+PL_PI, PL_TI, PL_YI, PL_RI, PL_GI, PL_HI, PL_PE, PL_TE, PL_RE, PL_GE, PL_HE = range(R_PLEN, R_PLEN + 11)
+R_IVC_P, R_IVC_T, R_IVC_V = R_IVC, R_IVC + 1, R_IVC + 2          # the IVC state: p [Pa], T [K], V [m^3]
+R_TW_HEAD, R_TW_PISTON, R_TW_LINER = R_TW, R_TW + 1, R_TW + 2     # wall temperatures [K]
+# the integer array IC: the gas table width (a submodel's states have rows of their own, constants
+# of the loop generated for them)
+IC_ROWS, N_IC = block_rows((("gas_nRm1", 1),))
+IC_NRM1 = IC_ROWS["gas_nRm1"]
+# core state rows by name (cyclesim.loops.layout.CORE)
+(S_M, S_T, S_MB, S_XB, S_W, S_QW, S_MBB, S_HBB, S_MUBB, S_MINT, S_HINT, S_MUINT, S_MEXH, S_HEXH, S_MUEXH,
+ S_QBURN, S_MQ, S_MBQ, S_HQ) = _S.values()
+CYCLE_END_DEG = 360.0
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def _fresh(uc4, b, T, T_mid):
+    """Fresh charge (u, R, cv) at T from the per-case polynomial (rows 2b + (T > T_mid))."""
+    r = 2 * b + (1 if T > T_mid else 0)
+    u = 0.0
+    cv = 0.0
+    pw = 1.0
+    for k in range(6):
+        u += pw * uc4[r, k, 0]
+        cv += pw * uc4[r, k, 2]
+        pw *= T
+    return u, uc4[r, 0, 1], cv
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def _mix_at(gas_tab, off, gc, nRm1, uc4, b, T, rho, y):
+    """GasTables.mixture at one point of case b: (u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cp, gamma)."""
+    T0, inv_dT, lr0, inv_dlr, dlr, x_hi, z_hi, T_mid = gc[0], gc[1], gc[2], gc[3], gc[4], gc[5], gc[6], gc[7]
+    # clamped into the table; NaN (a state out of range) maps to the first node, as numpy's fmax
+    x = (T - T0) * inv_dT
+    if not x > 0.0:
+        x = 0.0
+    elif x > x_hi:
+        x = x_hi
+    i = int(x)
+    z = math.log(rho) - lr0 if rho > 0.0 else 0.0
+    if not z > 0.0:
+        z = 0.0
+    elif z > z_hi:
+        z = z_hi
+    j = int(z * inv_dlr)
+    g = gas_tab[off + i * nRm1 + j]
+    t = x - i
+    dz = z - j * dlr
+    # rows of g: [u, R, u_T, R_T] of the burned gas, then their ln(rho) slopes: cubics in t
+    su = g[16] + t * (g[17] + t * (g[18] + t * g[19]))
+    sR = g[20] + t * (g[21] + t * (g[22] + t * g[23]))
+    fu = g[0] + t * (g[1] + t * (g[2] + t * g[3])) + dz * su
+    fR = g[4] + t * (g[5] + t * (g[6] + t * g[7])) + dz * sR
+    fuT = g[8] + t * (g[9] + t * (g[10] + t * g[11])) + dz * (g[24] + t * (g[25] + t * (g[26] + t * g[27])))
+    fRT = g[12] + t * (g[13] + t * (g[14] + t * g[15])) + dz * (g[28] + t * (g[29] + t * (g[30] + t * g[31])))
+    uu, Ru, cvu = _fresh(uc4, b, T, T_mid)          # the fresh charge
+    u_y = fu - uu
+    R_y = fR - Ru
+    u_T = cvu + y * (fuT - cvu)
+    R = Ru + y * R_y
+    cp = u_T + R
+    return uu + y * u_y, u_T, y * su, u_y, R, y * fRT, y * sR, R_y, cp, cp / u_T
+
+
+@njit(cache=True, error_model="numpy")
+def _mixture(gas_tab, off, gc, nRm1, uc4, b, T, rho, y, out):
+    """Mixture properties into out: [u, R, u_T, u_lnrho, u_y, cp, gamma]."""
+    u, u_T, u_lnrho, u_y, R, _, _, _, cp, gamma = _mix_at(gas_tab, off, gc, nRm1, uc4, b, T, rho, y)
+    out[0] = u
+    out[1] = R
+    out[2] = u_T
+    out[3] = u_lnrho
+    out[4] = u_y
+    out[5] = cp
+    out[6] = gamma
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def _outflow(cda, p0, T0, R0, g0, pd, dp_lin):
+    x = 1.0 - pd / max(p0, 1e-300)
+    inv_g = 1.0 / g0
+    e = 1.0 - inv_g
+    pr = 1.0 - max(x, dp_lin)
+    if pr < 0.6066:
+        # the critical ratio (2/(g+1))^(g/(g-1)) is below exp(-1/2) = 0.60653 for every g > 1,
+        # so above that the flow is subsonic without computing it
+        pr = max(pr, (2.0 / (g0 + 1.0)) ** (1.0 / e))
+    pg = pr ** inv_g
+    psi = pg * math.sqrt(max((2.0 / e) * (1.0 - pr / pg), 0.0))   # pr^e = pr / pr^(1/g)
+    psi = psi * min(x * (1.0 / dp_lin), 1.0)
+    return cda * p0 / math.sqrt(R0 * T0) * psi
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
+    """Signed flow from side 1 to side 2 (cyclesim.cylinder.flow.orifice_mass_flow)."""
+    if cda == 0.0:
+        return 0.0   # a shut valve (the Python path skips it too)
+    if p1 >= p2:
+        return _outflow(cda, p1, T1, R1, g1, p2, dp_lin)
+    return -_outflow(cda, p2, T2, R2, g2, p1, dp_lin)
+
+
+def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, TB, TO,
+         gas_tab, gas_off, gc, uc4, mix):
+    """Derivatives of case b into out; False where they are not finite.
+
+    CB (rows x B) holds the per-case constants (row numbers R_*), IC the model codes and
+    state rows; TB the batch-wide arrays of the models' ``pack()`` end to end, array k being
+    ``TB[TO[k]:TO[k + 1]]`` (cyclesim.loops.layout.shared_blocks)."""
+    n = yv.shape[0]
+    m = yv[S_M]
+    T = yv[S_T]
+    mb = yv[S_MB]
+    xb = yv[S_XB]
+    if not (math.isfinite(m) and math.isfinite(T)):
+        return False
+    rho = m / V
+    yb = min(max(mb / m, 0.0), 1.0)
+    _mixture(gas_tab, gas_off[b], gc, IC[IC_NRM1], uc4, b, T, rho, yb, mix)
+    u = mix[0]
+    R = mix[1]
+    u_T = mix[2]
+    u_lnrho = mix[3]
+    u_y = mix[4]
+    cp = mix[5]
+    gamma = mix[6]
+    RT = R * T
+    p = rho * RT
+    h = u + RT
+    om = CB[R_OMEGA, b]
+    sp = CB[R_SP, b]
+    dt = 1.0 / om
+    for k in range(n):
+        out[k] = 0.0
+    # burn: the model's kernel, dx_b/dtheta [1/deg] (cyclesim.loops.loopgen writes its call in)
+    dm_burn = 0.0
+    if burning:
+        dxb = burn_kernel(theta)  # KERNEL CALL burn
+        dm_burn = burned_mass_rate(CB[R_ETA, b], dxb, xb, m, mb)
+        out[S_XB] = dxb
+        out[S_QBURN] = dm_burn * CB[R_DH, b]
+    # wall heat [W] and blowby [kg/s, outflow only]: the models' kernels
+    Qw = heat_flow_kernel(T)  # KERNEL CALL heat_transfer
+    mbb = blowby_kernel(p)  # KERNEL CALL blowby
+    fbb = max(mbb, 0.0) * dt
+    out[S_MBB] = fbb
+    # the valves (a shut one moves nothing) and the intake-port buffer
+    fi = 0.0
+    fe = 0.0
+    yin_i = yb
+    hin_i = h
+    yin_e = yb
+    hin_e = h
+    if flows:
+        if Ai != 0.0:
+            fi = orifice_flow(Ai, p_i, CB[PL_TI, b], CB[PL_RI, b], CB[PL_GI, b], p, T, R, gamma, gc[8]) * dt
+        if Ae != 0.0:
+            fe = orifice_flow(Ae, p_e, CB[PL_TE, b], CB[PL_RE, b], CB[PL_GE, b], p, T, R, gamma, gc[8]) * dt
+        yin_i, hin_i, out[S_MQ], out[S_MBQ], out[S_HQ] = port_buffer(
+            fi, yv[S_MQ], yv[S_MBQ], yv[S_HQ], CB[R_BUF, b], CB[PL_YI, b], CB[PL_HI, b], yb, h)
+        yin_e, hin_e = exhaust_inflow(fe, CB[PL_HE, b], yb, h)
+        out[S_MINT] = fi
+        out[S_MEXH] = fe
+        out[S_MUINT] = fi * (1.0 - yin_i)
+        out[S_MUEXH] = fe * (1.0 - yin_e)
+    dQ = Qw * dt
+    out[S_QW] = dQ
+    out[S_M], out[S_T], out[S_MB], out[S_W], out[S_HBB], out[S_HINT], out[S_HEXH] = first_law(
+        m, V, dV, p, u, u_T, u_lnrho, u_y, yb, h, dm_burn, fi, yin_i, hin_i, fe, yin_e, hin_e, fbb, dQ)
+    out[S_MUBB] = fbb * (1.0 - yb)
+    # submodel states: each model's state kernel (cyclesim.loops.loopgen writes their calls here)
+    pass  # STATE KERNEL CALLS
+    for k in range(n):
+        if not math.isfinite(out[k]):
+            return False
+    return True
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def _weighted(coef, K, s, k):
+    """sum_j coef[j] K[j, k] over the first s stages, in order (as cyclesim.solve.stepper.combine)."""
+    acc = 0.0
+    first = True
+    for q in range(s):
+        c = coef[q]
+        if c == 0.0:
+            continue
+        t = K[q, k] if c == 1.0 else c * K[q, k]
+        acc = t if first else acc + t
+        first = False
+    return acc
+
+
+def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
+    """One cycle of cases b0..b1-1 by the Runge-Kutta tableau on the grid, as the Python loop.
+
+    The inputs come in groups (tuples, see ``cyclesim.solve.kernel.Compiled``):
+
+    - grid: (th, steps, Vp, dVp, Ahp, App, Alp, geo_rows): the points, the steps, the geometry
+      per point and distinct engine, and each case's engine;
+    - masks: (closed_pts, burning_pts, open_at) per point (and case);
+    - valves: (Ai_pts, Ae_pts, PI, PE): effective valve areas and plenum pressures [Pa] per point
+      and case (PI, PE one row (1 x B) where they are constant);
+    - state: (y, Y, F, status): the start state, the trace arrays written, the per-case status;
+    - consts: (CB, IC, reset, TB, TO): per-case constants, integer codes and rows, the IVC resets
+      (row 0 the kind per state row, row 1 + b case b's value),
+      the batch-wide arrays end to end and their bounds;
+    - gas: (gas_tab, gas_off, gc, uc4): the property tables;
+    - tableau: (tA, ta_den, tb, tb_den, tnode): cyclesim.solve.stepper.Tableau.arrays.
+
+    Cases touch only their own columns, so two threads may run disjoint ranges of one batch
+    (the GIL is released)."""
+    th, steps, Vp, dVp, Ahp, App, Alp, geo_rows = grid
+    closed_pts, burning_pts, open_at = masks
+    Ai_pts, Ae_pts, PI, PE = valves
+    y, Y, F, status = state
+    CB, IC, reset, TB, TO = consts
+    gas_tab, gas_off, gc, uc4 = gas
+    tA, ta_den, tb, tb_den, tnode = tableau
+    n, B = y.shape
+    vary = PI.shape[0] > 1
+    N = steps.shape[0]
+    yv = np.empty(n)
+    yt = np.empty(n)
+    S = tA.shape[0]
+    K = np.empty((S, n))
+    mix = np.empty(7)
+    for b in range(b0, b1):
+        status[b] = 0
+        g = geo_rows[b]          # the case's column of the geometry arrays
+        for k in range(n):
+            yv[k] = y[k, b]
+        for i in range(N + 1):
+            hs = steps[i] if i < N else 0.0
+            # the stages at the grid's points (only the start at the last point)
+            for st in range(S if i < N else 1):
+                j = 2 * i + tnode[st]
+                if st == 0:
+                    for k in range(n):
+                        yt[k] = yv[k]
+                else:
+                    f = hs / ta_den[st]
+                    for k in range(n):
+                        yt[k] = yv[k] + f * _weighted(tA[st], K, st, k)
+                jp = j if vary else 0
+                ok = _rhs(b, th[j], yt, K[st], full and open_at[j], Vp[j, g], dVp[j, g], Ahp[j, g],
+                          App[j, g], Alp[j, g], closed_pts[j, b], burning_pts[j, b], Ai_pts[j, b],
+                          Ae_pts[j, b], PI[jp, b], PE[jp, b], CB, IC, TB, TO, gas_tab, gas_off, gc, uc4, mix)
+                if not ok:
+                    status[b] = 1
+                    break
+                if st == 0:
+                    for k in range(n):
+                        Y[k, b, i] = yv[k]
+                        F[k, b, i] = K[0, k]
+            if status[b] != 0 or i == N:
+                break
+            fb = hs / tb_den
+            for k in range(n):
+                yv[k] = yv[k] + fb * _weighted(tb, K, S, k)
+            m_ = yv[S_M]
+            T_ = yv[S_T]
+            if not (m_ > 0.0 and m_ < math.inf and T_ > 50.0 and T_ < 8000.0):
+                status[b] = 1
+                break
+            if full:
+                t0 = th[2 * i]
+                iv = CB[R_IVC_DEG, b]
+                if iv > t0 and iv <= th[2 * i + 2]:
+                    w = (iv - t0) / hs
+                    Vi = CB[R_V_AT_IVC, b]
+                    Ti = (1 - w) * Y[S_T, b, i] + w * yv[S_T]
+                    mi_ = (1 - w) * Y[S_M, b, i] + w * yv[S_M]
+                    ybi = min(max(((1 - w) * Y[S_MB, b, i] + w * yv[S_MB]) / mi_, 0.0), 1.0)
+                    rhoi = mi_ / Vi
+                    _mixture(gas_tab, gas_off[b], gc, IC[IC_NRM1], uc4, b, Ti, rhoi, ybi, mix)
+                    CB[R_IVC_P, b] = rhoi * mix[1] * Ti
+                    CB[R_IVC_T, b] = Ti
+                    CB[R_IVC_V, b] = Vi
+                    for k in range(n):
+                        if reset[0, k] == 1.0:
+                            yv[k] = yv[S_T]
+                        elif reset[0, k] == 2.0:
+                            yv[k] = reset[1 + b, k]
+
+
+# -- the multi-cylinder engine's manifolds (cyclesim.engine._Manifolds) ---------------
+
+
+@njit(cache=True, error_model="numpy")
+def manifold_lap(p0, h, k, A, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, Q, pref, intake, dp, dp_lin):
+    """One implicit-Euler lap of manifold pressures (rows), as _Manifolds._lap.
+
+    ``intake``: the throttle fills the manifold from ambient and the cylinders draw ``Q x / pref``;
+    else the cylinders fill it with ``Q`` and the outlet empties it to ambient.  Two Newton passes
+    per step on ``x - p - h r(x)``, the slope of the orifice flow by a difference of ``dp``.
+    """
+    E = p0.shape[0]
+    n = Q.shape[1]
+    out = np.empty((E, n + 1))
+    for e in range(E):
+        p = p0[e]
+        out[e, 0] = p
+        for j in range(n):
+            x = p
+            for _ in range(2):
+                if intake:
+                    q = _orifice(A[e], p_amb[e], T_amb[e], R_amb, g_amb, x, T_m[e], R_m[e], g_m,
+                                 dp_lin) / omega[e]
+                    q2 = _orifice(A[e], p_amb[e], T_amb[e], R_amb, g_amb, x + dp, T_m[e], R_m[e], g_m,
+                                  dp_lin) / omega[e]
+                    dq = (q2 - q) / dp
+                    pr = pref[e, j]
+                    r = k[e] * (q - Q[e, j] * x / pr)
+                    dr = k[e] * (dq - Q[e, j] / pr)
+                else:
+                    q = _orifice(A[e], x, T_m[e], R_m[e], g_m, p_amb[e], T_amb[e], R_amb, g_amb,
+                                 dp_lin) / omega[e]
+                    q2 = _orifice(A[e], x + dp, T_m[e], R_m[e], g_m, p_amb[e], T_amb[e], R_amb, g_amb,
+                                  dp_lin) / omega[e]
+                    dq = (q2 - q) / dp
+                    r = k[e] * (Q[e, j] - q)
+                    dr = -k[e] * dq
+                gx = x - p - h * r
+                x = max(x - gx / (1.0 - h * dr), 1e3)
+            p = x
+            out[e, j + 1] = p
+    return out
+
+
+# -- gas properties at many points (post-processing and the trace analyser) ------------
+
+
+@njit(cache=True, error_model="numpy")
+def mixture_points(gas_tab, gas_off, gc, nRm1, uc4, case, T, rho, y, out):
+    """cyclesim.solve.gas_tables.GasTables.mixture at N points, case ``case[k]``'s tables for point k.
+
+    out (11, N): the MixProps fields u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cv, cp, gamma.
+    """
+    for k in range(T.shape[0]):
+        b = case[k]
+        u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cp, gamma = _mix_at(
+            gas_tab, gas_off[b], gc, nRm1, uc4, b, T[k], rho[k], y[k])
+        out[0, k] = u
+        out[1, k] = u_T
+        out[2, k] = u_lnrho
+        out[3, k] = u_y
+        out[4, k] = R
+        out[5, k] = R_T
+        out[6, k] = R_lnrho
+        out[7, k] = R_y
+        out[8, k] = u_T          # cv
+        out[9, k] = cp
+        out[10, k] = gamma

@@ -1,0 +1,598 @@
+"""Cycle loops generated for plug-in kernels, compiled by numba and cached on disk.
+
+A submodel of the burn or heat-transfer role may give its physics as a *kernel*: a plain
+function of named arguments (``kernel = my_rate``, see ``BurnRate.kernel``).  The Python path
+calls it on arrays (B,); for the compiled loop this module writes a module file that holds the
+kernel's source, the globals it reads (numbers as literals, ``numpy`` / ``math`` as imports,
+helper functions as their own source) and the compiled loop's right-hand side and cycle from
+:mod:`cyclesim.loops._compiled` with the kernel's call written in: every argument resolved to a
+local variable of the loop or a packed-parameter row, as a constant.
+
+The file's name is a hash of everything it contains (the loop's own source, each kernel's and
+helper's source and the values of the globals they read), so an edited kernel gives a new file
+and can never run on a stale compiled loop; numba caches the compiled code beside the file, so
+later processes (sweep workers among them) load it instead of compiling.  The folder is
+``CYCLESIM_CACHE_DIR`` if set, else ``~/.cache/cyclesim/loops``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import importlib.util
+import inspect
+import operator
+import os
+import sys
+import textwrap
+import types
+from pathlib import Path
+
+VERSION = "1"
+CACHE_ENV = "CYCLESIM_CACHE_DIR"
+
+ROLES = ("burn", "heat_transfer")
+"""Roles whose models may give a kernel: the burn rate [1/deg] and the wall heat-transfer
+coefficient [W/(m^2 K)].  A model of any role with states of its own may give a
+``state_kernel``: their time derivatives."""
+
+STATE_ARGS = {
+    # kernel argument (a GasState field) -> the loop's local expression (cyclesim.loops._compiled._rhs)
+    "theta": "theta", "m": "m", "T": "T", "p": "p", "rho": "rho", "V": "V", "dV": "dV", "R": "R",
+    "cv": "u_T", "cp": "cp", "gamma": "gamma", "y_b": "yb", "x_b": "xb", "Sp": "sp", "omega_deg": "om",
+    "closed": "closed", "burning": "burning", "A_head": "Ah", "A_piston": "Ap", "A_liner": "Al",
+    "T_wall_head": "CB[R_TW_HEAD, b]", "T_wall_piston": "CB[R_TW_PISTON, b]",
+    "T_wall_liner": "CB[R_TW_LINER, b]",
+    "p_ivc": "CB[R_IVC_P, b]", "T_ivc": "CB[R_IVC_T, b]", "V_ivc": "CB[R_IVC_V, b]",
+    "gas": "(uc4, b, gc[7])",
+}
+"""What a kernel may take from the cylinder state, by the name of the GasState field [SI]; an
+argument that the model's ``pack()`` gives is that parameter instead (pack() names come first,
+so a Wiebe form factor may be called ``m``)."""
+
+
+class LoopGenError(Exception):
+    """A kernel that cannot go into a generated loop (the batch then runs on the Python path)."""
+
+
+def kernel_of(cls, attr: str = "kernel"):
+    """The plain function a submodel class gives as its ``kernel`` (or as ``attr``), or None."""
+    k = None
+    for klass in cls.__mro__:            # the class attribute without running descriptors
+        d = klass.__dict__
+        if attr in d:
+            k = d[attr]
+            break
+    if isinstance(k, staticmethod):
+        k = k.__func__
+    return k if isinstance(k, types.FunctionType) else None
+
+
+_ARGS: dict = {}
+
+
+def kernel_args(fn) -> tuple[str, ...]:
+    """The kernel's argument names, in order (positional arguments without defaults only)."""
+    got = _ARGS.get(fn.__code__)
+    if got is None:
+        got = _ARGS[fn.__code__] = _kernel_args(fn)
+    return got
+
+
+def _kernel_args(fn) -> tuple[str, ...]:
+    sig = inspect.signature(fn)
+    out = []
+    for p in sig.parameters.values():
+        if p.kind not in (p.POSITIONAL_ONLY, p.POSITIONAL_OR_KEYWORD) or p.default is not p.empty:
+            raise LoopGenError(f"kernel {fn.__name__}: argument {p.name!r} must be a plain positional argument")
+        out.append(p.name)
+    return tuple(out)
+
+
+def state_kernel_of(cls):
+    """The plain function a submodel class gives as its ``state_kernel``, or None."""
+    return kernel_of(cls, "state_kernel")
+
+
+def kernel_params(fn, packed, own=()) -> tuple[str, ...]:
+    """The kernel's arguments that are packed parameters (named in ``packed``, the model's
+    ``pack()``); every other argument must be a cylinder-state name (:data:`STATE_ARGS`) or
+    one of the model's own integrated states (the names in ``own``)."""
+    args = kernel_args(fn)
+    own = () if isinstance(own, str) else own      # a role name (the earlier third argument): no states
+    known = set(STATE_ARGS) | set(own)
+    unknown = [a for a in args if a not in packed and a not in known]
+    if unknown:
+        own_text = f"; the model's states: {', '.join(own)}" if own else ""
+        raise LoopGenError(f"kernel {fn.__name__}: argument(s) {', '.join(unknown)} are neither given by pack()"
+                           f" nor a state field ({', '.join(STATE_ARGS)}){own_text}")
+    return tuple(a for a in args if a in packed)
+
+
+def call_on(fn, state, packed, role: str = "", gas=None):
+    """The kernel on the Python path: parameters from ``packed`` (the model's ``pack()``),
+    the model's own states from ``state.sub`` (by ``role.name``), the other arguments from
+    ``state`` (a GasState; ``gas`` where the state carries no gas tables)."""
+    return fn(*_plan_for(fn, packed, role).args(state, packed, gas))
+
+
+_PLANS: dict = {}
+
+
+def _plan_for(fn, packed, role: str) -> "_ArgPlan":
+    """The argument plan of ``fn`` for ``role`` and the names of ``packed``, made once per kernel
+    and role (made again where a model of the same kernel packs other names)."""
+    key = (fn.__code__, role)
+    plan = _PLANS.get(key)
+    if plan is None or not plan.fits(packed):
+        plan = _PLANS[key] = _ArgPlan(kernel_args(fn), packed, role)
+    return plan
+
+
+def _tuple_getter(make, keys: tuple):
+    """``make(*keys)`` (``operator.itemgetter`` or ``attrgetter``) that always gives a tuple."""
+    if not keys:
+        return lambda obj: ()
+    if len(keys) == 1:
+        one = make(keys[0])
+        return lambda obj: (one(obj),)
+    return make(*keys)
+
+
+class _ArgPlan:
+    """Where each kernel argument comes from: ``packed`` (by name), else the model's own states in
+    ``state.sub`` (``role.name``), else ``state.gas`` (or the model's gas) for ``gas``, else a
+    ``state`` field.
+
+    Each source is read by one ``operator`` getter and the values put back in the kernel's order
+    by another; which arguments ``state.sub`` gives is looked up per call (a set intersection)
+    and the getters for it are made once."""
+
+    __slots__ = ("names", "role", "in_packed", "not_packed", "sub_keys", "get_packed", "variants")
+
+    def __init__(self, names: tuple, packed, role: str) -> None:
+        self.names, self.role = names, role
+        p_names = tuple(a for a in names if a in packed)
+        rest = tuple(a for a in names if a not in packed)
+        self.in_packed, self.not_packed = frozenset(p_names), frozenset(rest)
+        self.sub_keys = frozenset(f"{role}.{a}" for a in rest)
+        self.get_packed = _tuple_getter(operator.itemgetter, p_names)
+        self.variants: dict = {}
+
+    def fits(self, packed) -> bool:
+        """Whether ``packed`` gives exactly this plan's packed arguments among the kernel's."""
+        keys = packed.keys()
+        return self.in_packed <= keys and self.not_packed.isdisjoint(keys)
+
+    def _variant(self, present: frozenset) -> tuple:
+        """The getters where ``state.sub`` holds the keys ``present`` (of :attr:`sub_keys`)."""
+        role = self.role
+        p_names = tuple(a for a in self.names if a in self.in_packed)
+        rest = [a for a in self.names if a not in self.in_packed]
+        from_sub = tuple(a for a in rest if f"{role}.{a}" in present)
+        fields = tuple(a for a in rest if a not in from_sub and a != "gas")
+        has_gas = "gas" in rest and "gas" not in from_sub
+        pos = {a: i for i, a in enumerate(p_names + from_sub + fields + (("gas",) if has_gas else ()))}
+        got = (_tuple_getter(operator.itemgetter, tuple(f"{role}.{a}" for a in from_sub)),
+               _tuple_getter(operator.attrgetter, fields), has_gas,
+               _tuple_getter(operator.itemgetter, tuple(pos[a] for a in self.names)))
+        self.variants[present] = got
+        return got
+
+    def args(self, state, packed, gas) -> tuple:
+        sub = getattr(state, "sub", None)
+        present = self.sub_keys.intersection(sub) if sub else frozenset()
+        v = self.variants.get(present) or self._variant(frozenset(present))
+        vals = self.get_packed(packed) + v[0](sub) + v[1](state)
+        if v[2]:
+            vals += (getattr(state, "gas", gas),)
+        return v[3](vals)
+
+
+def _source(fn) -> str:
+    try:
+        src = textwrap.dedent(inspect.getsource(fn))
+    except (OSError, TypeError) as exc:
+        raise LoopGenError(f"kernel {fn.__name__}: its source cannot be read ({exc})") from None
+    lines = src.splitlines()
+    while lines and lines[0].lstrip().startswith("@"):
+        lines.pop(0)                # decorators: the generated file adds its own
+    if not lines or not lines[0].startswith(f"def {fn.__name__}("):
+        raise LoopGenError(f"kernel {fn.__name__}: must be a module-level function (def at column 0)")
+    return "\n".join(lines) + "\n"
+
+
+_GLOBAL_NAMES: dict = {}
+
+
+def _globals_read(fn) -> dict:
+    """The module globals the function's code loads (LOAD_GLOBAL, nested code included), by name;
+    builtins (abs, min, ...) are left to numba.  The names are found once per code object, their
+    values read at each call (a changed global is seen)."""
+    names = _GLOBAL_NAMES.get(fn.__code__)
+    if names is None:
+        names = _GLOBAL_NAMES[fn.__code__] = _global_names(fn.__code__)
+    return {n: fn.__globals__[n] for n in names if n in fn.__globals__}
+
+
+def _global_names(code) -> tuple:
+    import dis
+
+    names: set = set()
+    codes = [code]
+    while codes:
+        code = codes.pop()
+        for ins in dis.get_instructions(code):
+            if ins.opname == "LOAD_GLOBAL":
+                names.add(ins.argval)
+        codes += [c for c in code.co_consts if isinstance(c, types.CodeType)]
+    return tuple(sorted(names))
+
+
+def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
+    """The function's source, the functions it calls and the globals it reads, recursively."""
+    import cyclesim.kernel_ops as kernel_ops
+
+    if fn.__name__ in funcs:
+        if funcs[fn.__name__][0] is not fn:
+            raise LoopGenError(f"two kernel helpers are named {fn.__name__!r}")
+        return
+    if fn.__code__.co_freevars:
+        raise LoopGenError(f"kernel {fn.__name__}: reads variables of an enclosing function "
+                           f"({', '.join(fn.__code__.co_freevars)}); use module-level names")
+    funcs[fn.__name__] = (fn, _source(fn))
+    for name, val in sorted(_globals_read(fn).items()):
+        if isinstance(val, types.ModuleType):
+            if val.__name__ not in ("numpy", "math"):
+                raise LoopGenError(f"kernel {fn.__name__}: reads module {val.__name__!r}; only numpy and math compile")
+            imports[name] = val.__name__
+        elif val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above):
+            imports[name] = f"cyclesim.kernel_ops.{val.__name__}"
+        elif isinstance(val, types.FunctionType):
+            _collect(val, funcs, consts, imports)
+        elif isinstance(val, (bool, int, float)) and not isinstance(val, type):
+            consts[name] = repr(val)
+        elif isinstance(val, tuple) and all(isinstance(v, (int, float)) for v in val):
+            consts[name] = repr(val)
+        else:
+            raise LoopGenError(f"kernel {fn.__name__}: reads global {name!r} of type {type(val).__name__}"
+                               " (only numbers, tuples of numbers, numpy, math and plain functions compile)")
+
+
+INLINE_MAX_ARGS = 28
+"""Functions of more arguments are compiled as calls, not inlined by numba (its ``inline="always"``
+fails for a function of 30 or more arguments: measured with numba 0.68)."""
+
+KERNEL_SITES_FORMS = ("kernel", "heat_flow_kernel")
+"""Compiled forms whose packed parameters fill the role's kernel slots in the order the
+functions name them."""
+
+
+class Part(tuple):
+    """One function of a generated loop: ``(role, kind, fn, packed, own, out, arrays)``.
+
+    ``kind`` is ``"kernel"`` (the role's kernel, called where the loop computes that role) or
+    ``"state"`` (a state kernel: the time derivatives of the model's states); ``packed`` the
+    names of the model's ``pack()``; ``own`` the model's states as ``((name, row), ...)``;
+    ``out`` the rows a state kernel's results go to, in the order of ``states()``; ``arrays`` the
+    names of ``packed`` that are batch-wide arrays (:func:`cyclesim.loops.layout.shared_array`), passed
+    to the function as slices of the loop's shared-array block instead of per-case rows."""
+
+    __slots__ = ()
+
+    def __new__(cls, role, kind, fn, packed, own=(), out=(), arrays=()):
+        return super().__new__(cls, (role, kind, fn, tuple(packed), tuple(own), tuple(out), tuple(arrays)))
+
+    role = property(lambda self: self[0])
+    kind = property(lambda self: self[1])
+    fn = property(lambda self: self[2])
+    packed = property(lambda self: self[3])
+    own = property(lambda self: self[4])
+    out = property(lambda self: self[5])
+    arrays = property(lambda self: self[6])
+
+
+def shared_slots(parts) -> dict[tuple[str, str], int]:
+    """Index of each batch-wide array the functions in ``parts`` read, by ``(role, name)``, in the
+    order they first name them: array k is ``TB[TO[k]:TO[k + 1]]`` in the loop
+    (:func:`cyclesim.loops.layout.shared_blocks` stacks them in this order)."""
+    out: dict[tuple[str, str], int] = {}
+    for part in _as_parts(parts):
+        for n in kernel_params(part.fn, part.packed, dict(part.own)):
+            if n in part.arrays and (part.role, n) not in out:
+                out[part.role, n] = len(out)
+    return out
+
+
+def param_rows_for(role: str, parts, forms_rows: dict, form: str = "kernel") -> dict[str, int]:
+    """Row offsets (from R_P) of the packed parameters the role's functions in ``parts`` read:
+    for the form ``kernel`` the role's kernel slots in the order the functions name them; for a
+    named form its declared rows, which must hold every name a state kernel reads."""
+    names: list = []
+    for part in parts:
+        if part.role == role:
+            for n in kernel_params(part.fn, part.packed, dict(part.own)):
+                if n not in names and n not in part.arrays:
+                    names.append(n)
+    if form not in KERNEL_SITES_FORMS:
+        rows = forms_rows[role, form]
+        missing = [n for n in names if n not in rows]
+        if missing:
+            raise LoopGenError(f"{role}: the state kernel reads {', '.join(missing)}, which the compiled form"
+                               f" {form!r} does not pack")
+        return dict(rows)
+    slots = list(forms_rows[role, form].values())
+    if len(names) > len(slots):
+        fns = ", ".join(p.fn.__name__ for p in parts if p.role == role)
+        raise LoopGenError(f"kernel {fns}: {len(names)} parameters, at most {len(slots)} compile")
+    return {n: slots[k] for k, n in enumerate(names)}
+
+
+def _call(part: Part, rows: dict[str, int], shared: dict | None = None) -> str:
+    own = dict(part.own)
+    args = []
+    for a in kernel_args(part.fn):
+        if a in part.arrays and a in part.packed:
+            j = (shared or {})[part.role, a]
+            args.append(f"TB[TO[{j}]:TO[{j + 1}]]")     # a batch-wide array: its slice of the block
+        elif a in rows and a in part.packed:
+            args.append(f"CB[R_P + {rows[a]}, b]")
+        elif a in own:
+            args.append(f"yv[{own[a]}]")          # the state's row, a constant of this loop
+        else:
+            args.append(STATE_ARGS[a])
+    return f"{part.fn.__name__}({', '.join(args)})"
+
+
+def _state_lines(k: int, part: Part, rows: dict[str, int], shared: dict | None = None) -> list[str]:
+    """The loop's lines for a state kernel: its call, each result times dt into its row."""
+    out = part.out
+    names = [f"_sd{k}_{j}" for j in range(len(out))]
+    lines = [f"    {', '.join(names)} = {_call(part, rows, shared)}"]
+    lines += [f"    out[{r}] = {n} * dt" for n, r in zip(names, out)]
+    return lines
+
+
+def cache_dir() -> Path:
+    """The loop cache: ``CYCLESIM_CACHE_DIR``, else ``~/.cache/cyclesim/loops``; where that cannot
+    be written, a folder in the system's temporary directory."""
+    d = os.environ.get(CACHE_ENV, "").strip()
+    try:
+        path = Path(d) if d else Path.home() / ".cache" / "cyclesim" / "loops"
+        path.mkdir(parents=True, exist_ok=True)
+        if os.access(path, os.W_OK):
+            return path
+    except (OSError, RuntimeError):
+        pass
+    import tempfile
+
+    path = Path(tempfile.gettempdir()) / f"cyclesim-loops-{os.getuid() if hasattr(os, 'getuid') else 0}"
+    path.mkdir(parents=True, exist_ok=True)
+    return path
+
+
+def _fingerprint(fn, seen=None) -> tuple:
+    """What the generated text depends on, cheaply: the code objects (equal for equal source)
+    and the values of the globals read, of the kernel and of the helpers it calls."""
+    seen = set() if seen is None else seen
+    if fn in seen:
+        return ()
+    seen.add(fn)
+    out: list = [fn.__code__]
+    for name, val in sorted(_globals_read(fn).items()):
+        if isinstance(val, types.FunctionType):
+            out.append((name, _fingerprint(val, seen)))
+        elif isinstance(val, types.ModuleType):
+            out.append((name, val.__name__))
+        else:
+            out.append((name, type(val).__name__, repr(val)))
+    return tuple(out)
+
+
+_generated: dict = {}
+
+
+def _as_parts(parts) -> tuple:
+    """``parts`` as a tuple of :class:`Part`; a dict role -> (kernel, pack() names), the earlier
+    form of the argument, gives those roles' kernels."""
+    if isinstance(parts, dict):
+        return tuple(Part(role, "kernel", fn, names) for role, (fn, names) in parts.items())
+    return tuple(parts)
+
+
+def _memo(parts) -> tuple:
+    return tuple((p.role, p.kind, p.packed, p.own, p.out, p.arrays, _fingerprint(p.fn)) for p in parts)
+
+
+def generate(parts, forms: dict | None = None) -> tuple[str, str]:
+    """(key, module source) of the loop for ``parts`` (:class:`Part`; ``forms``: role -> the
+    compiled form of a role whose state kernel reads a named form's parameters, default
+    ``kernel``).
+
+    Remembered in the process by a fingerprint of the functions (code objects and the values of
+    the globals they read), so a repeated batch does not read sources again.
+    """
+    parts = _as_parts(parts)
+    forms = dict(forms or {})
+    memo = (_memo(parts), tuple(sorted(forms.items())))
+    got = _generated.get(memo)
+    if got is None:
+        got = _generated[memo] = _generate(parts, forms)
+    return got
+
+
+KERNEL_MARKERS = {"burn": "burn_kernel(theta)  # KERNEL CALL burn",
+                  "heat_transfer": "heat_flow_kernel(T)  # KERNEL CALL heat_transfer",
+                  "blowby": "blowby_kernel(p)  # KERNEL CALL blowby"}
+"""The call site of each role's kernel in :func:`cyclesim.loops._compiled._rhs` (the value of that
+role there: a burn rate [1/deg], a wall heat flow [W], a blowby mass flow [kg/s]); a role whose
+model gives no kernel (form ``none``) gets 0 there."""
+KERNEL_SITES = {("burn", "kernel"): "{call}",
+                ("heat_transfer", "kernel"): "wall_heat_flow({call}, T, Ah, Ap, Al, CB[R_TW_HEAD, b],"
+                                             " CB[R_TW_PISTON, b], CB[R_TW_LINER, b])",
+                ("heat_transfer", "heat_flow_kernel"): "{call}",
+                ("blowby", "kernel"): "{call}"}
+"""What goes at a role's call site for each kind of kernel: a heat-transfer coefficient kernel's
+value times the wall areas and temperature differences (:func:`cyclesim.kernel_ops.wall_heat_flow`)."""
+STATE_MARKER = "    pass  # STATE KERNEL CALLS"
+"""Where the state kernels' calls go in :func:`cyclesim.loops._compiled._rhs`."""
+
+
+def template_functions() -> tuple:
+    """The functions the loop's template (:func:`cyclesim.loops._compiled._rhs`) calls besides the
+    models' kernels, written into every generated loop from their one source: the orifice flow
+    of the valves, the port buffer, the burned mass and the first law (:mod:`cyclesim.loops.balance`)."""
+    from .balance import burned_mass_rate, exhaust_inflow, first_law, port_buffer
+    from ..cylinder.flow import orifice_flow
+
+    return (orifice_flow, port_buffer, exhaust_inflow, first_law, burned_mass_rate)
+
+
+def _generate(parts: tuple, forms: dict) -> tuple[str, str]:
+    import cyclesim.loops._compiled as base
+
+    funcs: dict = {}
+    consts: dict = {}
+    imports: dict = {}
+    calls = {}
+    states: list[str] = []
+    rows = {role: param_rows_for(role, parts, base.PARAM_ROWS, forms.get(role, "kernel"))
+            for role in dict.fromkeys(p.role for p in parts)}
+    shared = shared_slots(parts)
+    for fn in template_functions():
+        _collect(fn, funcs, consts, imports)
+    for k, part in enumerate(parts):
+        _collect(part.fn, funcs, consts, imports)
+        if part.kind != "state":
+            site = KERNEL_SITES.get((part.role, part.kind))
+            if site is None:
+                raise LoopGenError(f"the compiled loop has no call site for a {part.role} {part.kind}")
+            calls[part.role] = site.format(call=_call(part, rows[part.role], shared))
+            if "wall_heat_flow(" in site:
+                from ..kernel_ops import wall_heat_flow
+
+                _collect(wall_heat_flow, funcs, consts, imports)
+        else:
+            states += _state_lines(k, part, rows[part.role], shared)
+    own = vars(base)
+    # a constant the loop's module defines alike (CYCLE_END_DEG) is the loop's own: not written again
+    consts = {n: v for n, v in consts.items()
+              if not (n in own and isinstance(own[n], (int, float, tuple)) and repr(own[n]) == v)}
+    clash = {n for n in set(funcs) | set(consts) if n in own}
+    clash |= {n for n, target in imports.items() if n in own and getattr(own[n], "__name__", None) != target}
+    if clash:
+        raise LoopGenError(f"kernel names {sorted(clash)} clash with the compiled loop's own names; rename them")
+    rhs = textwrap.dedent(inspect.getsource(base._rhs))
+    for role, marker in KERNEL_MARKERS.items():
+        if marker not in rhs:
+            raise LoopGenError(f"the compiled loop has no call site for the {role} kernel")
+        rhs = rhs.replace(marker, calls.get(role, "0.0"))
+    if STATE_MARKER not in rhs:
+        raise LoopGenError("the compiled loop has no call site for state kernels")
+    rhs = rhs.replace(STATE_MARKER, "\n".join(states) or STATE_MARKER)
+    cycle = textwrap.dedent(inspect.getsource(base.run_cycle))
+    private = sorted(n for n, v in vars(base).items()
+                     if n.startswith("_") and not n.startswith("__") and hasattr(v, "py_func"))
+    names = ", ".join(dict.fromkeys(p.fn.__name__ for p in parts)) or "none"
+    parts_text = [
+        f'"""Cycle loop generated by cyclesim.loops.loopgen for the kernels {names}."""',
+        "import math",
+        "import numpy as np",
+        "from numba import njit",
+        "import cyclesim.kernel_ops",
+        "cyclesim.kernel_ops.register_compiled()",
+        "from cyclesim.loops._compiled import *  # noqa: F401,F403 - the layout constants and helpers",
+        f"from cyclesim.loops._compiled import {', '.join(private)}  # noqa: F401",
+    ]
+    for name, target in sorted(imports.items()):
+        mod, _, attr = target.rpartition(".") if target.startswith("cyclesim.kernel_ops.") else (target, "", "")
+        parts_text.append(f"from {mod} import {attr} as {name}" if attr else f"import {target} as {name}")
+    parts_text += [f"{n} = {v}" for n, v in sorted(consts.items())]
+    for name, (fn, src) in funcs.items():
+        inline = ', inline="always"' if fn.__code__.co_argcount <= INLINE_MAX_ARGS else ""
+        parts_text.append(f'\n@njit(cache=True{inline}, error_model="numpy")\n' + src)
+    parts_text.append('\n@njit(cache=True, error_model="numpy")\n' + rhs.split("\n", 1)[1] if rhs.startswith("@")
+                      else '\n@njit(cache=True, error_model="numpy")\n' + rhs)
+    parts_text.append('\n@njit(cache=True, nogil=True, error_model="numpy")\n'
+                      + (cycle.split("\n", 1)[1] if cycle.startswith("@") else cycle))
+    text = "\n".join(parts_text) + "\n"
+    h = hashlib.sha256()
+    h.update(VERSION.encode())
+    h.update(Path(base.__file__).read_bytes())
+    h.update(Path(__file__).read_bytes())
+    h.update(text.encode())
+    return h.hexdigest()[:24], text
+
+
+_loaded: dict = {}
+
+
+def _quick_key(parts: tuple, forms: dict) -> str:
+    """A cheap hash of what the loop depends on (the kernels' compiled code objects, the values of
+    the globals they read, this module's and the compiled loop's files), naming an index entry
+    that points at the loop's file: a new process finds its loop without reading any source."""
+    import marshal
+
+    import cyclesim.loops._compiled as base
+
+    h = hashlib.sha256(VERSION.encode())
+    for path in (base.__file__, __file__):
+        h.update(Path(path).read_bytes())
+
+    def feed(x):
+        if isinstance(x, types.CodeType):
+            h.update(marshal.dumps(x))
+        elif isinstance(x, tuple):
+            h.update(b"(")
+            for v in x:
+                feed(v)
+            h.update(b")")
+        else:
+            h.update(repr(x).encode())
+
+    from ..kernel_ops import wall_heat_flow
+
+    feed(_memo(parts))
+    feed(tuple(sorted(forms.items())))
+    # written into the loop as well: the template's functions, a coefficient kernel's wall heat flow
+    for fn in template_functions() + (wall_heat_flow,):
+        feed(_fingerprint(fn))
+    return h.hexdigest()[:24]
+
+
+def module_for(parts, forms: dict | None = None):
+    """The generated loop module for ``parts`` (:func:`generate`): written on first use, then
+    loaded from the cache folder; ``(module, freshly_written)``."""
+    parts = _as_parts(parts)
+    forms = dict(forms or {})
+    d = cache_dir()
+    index = d / "index" / _quick_key(parts, forms)
+    key = index.read_text().strip() if index.is_file() else ""
+    if key and key in _loaded:
+        return _loaded[key], False
+    if not key or not (d / f"loop_{key}.py").is_file():
+        key, text = generate(parts, forms)
+        if key in _loaded:
+            return _loaded[key], False
+    d.mkdir(parents=True, exist_ok=True)
+    path = d / f"loop_{key}.py"
+    fresh = not path.exists()
+    if fresh:
+        tmp = path.with_suffix(f".{os.getpid()}.tmp")
+        tmp.write_text(text)
+        os.replace(tmp, path)          # atomic: a sweep worker never reads half a file
+    if not index.is_file():
+        index.parent.mkdir(parents=True, exist_ok=True)
+        tmp = index.with_suffix(f".{os.getpid()}.tmp")
+        tmp.write_text(key)
+        os.replace(tmp, index)
+    name = f"cyclesim_loop_{key}"
+    spec = importlib.util.spec_from_file_location(name, path)
+    mod = importlib.util.module_from_spec(spec)
+    sys.modules[name] = mod
+    try:
+        spec.loader.exec_module(mod)
+    except Exception as exc:  # noqa: BLE001 - a kernel that is not valid Python here
+        sys.modules.pop(name, None)
+        raise LoopGenError(f"the generated loop does not load ({type(exc).__name__}: {exc})") from exc
+    _loaded[key] = mod
+    return mod, fresh

@@ -1,0 +1,107 @@
+"""One cycle of a batch on its grid: the compiled loop where it can run, else the numpy loop.
+
+:class:`CycleRunner` holds what one integration's cycles share (the cylinder system, the grid's
+per-point data, the events, the compiled cycle if any) and runs a cycle from a start state into
+the trace arrays ``Y`` and ``F`` (states and their crank-angle derivatives at the grid points).
+The numpy loop steps the cylinder system by the Runge-Kutta tableau (:mod:`cyclesim.solve.stepper`),
+applying the events after each step (:mod:`cyclesim.solve.events`); the compiled loop does the same
+in machine code (:mod:`cyclesim.solve.kernel`).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .events import CycleEvents, StepContext
+from .stepper import CYCLE_TABLEAU, advance, stages
+
+LOOP_RERUN = "compiled (a cycle re-run on the numpy loop to stop a failing case)"
+"""CycleTrace.loop of an integration whose compiled loop handed a cycle to the numpy loop."""
+
+
+class CycleRunner:
+    """The cycles of one integration.
+
+    Parameters
+    ----------
+    batch : Batch
+    rhs : the cylinder system (``cyclesim.solve.solver._RHS``), called at the grid's points
+    pts : CyclePoints
+        The grid and its per-point data (:func:`cyclesim.solve.cycle_grid.cycle_points`).
+    events : CycleEvents
+    """
+
+    def __init__(self, batch, rhs, pts, events: CycleEvents):
+        import cyclesim.solve.kernel as kernel
+
+        self.batch = batch
+        self.rhs = rhs
+        self.pts = pts
+        self.events = events
+        self.tableau = CYCLE_TABLEAU
+        self.th_pts = pts.half.tolist()
+        self.full = rhs.mode == "full"
+        why = events.why_not_compiled()
+        if why is None:
+            self.compiled, self.loop = kernel.prepare(batch, rhs, pts)
+        else:
+            self.compiled, self.loop = None, f"numpy ({why})"
+
+    def cycle(self, y: np.ndarray, Y: np.ndarray, F: np.ndarray) -> np.ndarray:
+        """One cycle from ``y`` into ``Y``, ``F`` (n_state, B, N+1); returns the end state."""
+        import cyclesim.solve.kernel as kernel
+
+        if self.compiled is not None and self.rhs.all_alive and self.compiled.cycle(y, Y, F):
+            return Y[:, :, self.pts.N].copy()
+        kernel._used["python"] += 1
+        if self.compiled is not None:
+            self.loop = LOOP_RERUN
+        with np.errstate(all="ignore"):
+            return self.python_cycle(y, Y, F)
+
+    def python_cycle(self, y: np.ndarray, Y: np.ndarray, F: np.ndarray) -> np.ndarray:
+        """One cycle on the numpy loop (the reference)."""
+        rhs, pts, tab, th_pts = self.rhs, self.pts, self.tableau, self.th_pts
+        geo_pts = pts.per_point()
+        open_at = pts.open_at
+        nodes = [int(v) for v in tab.arrays()[4]]
+        N = pts.N
+        for i in range(N):
+            th = th_pts[2 * i]
+            tn = th_pts[2 * i + 2]
+            h = float(pts.steps[i])
+
+            def at_stage(st, ys):
+                j = 2 * i + nodes[st]
+                return rhs(th_pts[j], ys, geo_pts[j], open_at[j])
+
+            ks = stages(at_stage, y, h, tab)
+            Y[:, :, i] = y
+            F[:, :, i] = ks[0]
+            y = advance(y, h, tab, ks)
+            self._stop_unphysical(y, Y[:, :, i], tn)
+            if self.events.actions:
+                self.events.after_step(StepContext(self.batch, rhs, th, tn, h, Y[:, :, i], y))
+        Y[:, :, N] = y
+        F[:, :, N] = rhs(th_pts[2 * N], y, geo_pts[2 * N], open_at[2 * N])
+        return y
+
+    def _stop_unphysical(self, y: np.ndarray, y_prev: np.ndarray, tn: float) -> None:
+        """Stop the cases whose end-of-step state left the physical range (they keep the state of
+        the step's start)."""
+        rhs = self.rhs
+        y0, y1 = y[0], y[1]
+        ok = (y0 > 0.0) & (y0 < math.inf) & (y1 > 50.0) & (y1 < 8000.0)  # NaN fails all
+        if ok.all():
+            return
+        bad = ~ok & rhs.alive
+        for j in np.flatnonzero(bad):
+            rhs.failed[j] = (
+                f"solver: state left the physical range at crank angle {tn:.2f} deg"
+                f" (T = {y[1, j]:.4g} K, m = {y[0, j]:.4g} kg); try a smaller"
+                f" simulation.step_deg or check the submodel parameters"
+            )
+        rhs.kill(bad)
+        y[:, bad] = y_prev[:, bad]
