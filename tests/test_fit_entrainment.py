@@ -151,3 +151,12 @@ def test_cli_traces_fit_and_predict_with_the_entrainment_burn(tmp_path, capsys):
     assert [r["operating.speed_rpm"] for r in js["rows"]] == [2000, 5000]
     for key in ("ca50_deg", "burn_0_10_deg", "burn_10_90_deg"):
         assert all(math.isfinite(r[key]) for r in js["rows"]), key
+
+
+def test_spreads_that_draw_outside_the_burns_ranges_end_in_one_clear_error():
+    from cyclesim.errors import ConfigError
+
+    # a kernel-radius spread of 400 % draws radii below the declared 0.1 mm within 30 cycles
+    with pytest.raises(ConfigError, match="too wide for this point"):
+        synthesize(load_config("demo", FAST), 30, CycleVariation(kernel_radius_cov=4.0, seed=1), resolution_deg=1.0,
+                   artefacts=art.ArtefactSettings.none())

@@ -465,7 +465,12 @@ def synthesize(
     mean = _steady_state(case, registry)
     start_state = mean.end_state[:, 0]
     changes, misfire, partial = draw_parameters(case, n_cycles, var)
-    cases = [case_with(case, ch, registry) for ch in changes]
+    try:
+        cases = [case_with(case, ch, registry) for ch in changes]
+    except ConfigError as exc:
+        spreads = ", ".join(f"{sp} = {getattr(var, sp):g}" for _, sp, _ in VARIED[case.submodels["burn"].model])
+        raise ConfigError(f"traces: a drawn cycle is outside the burn's ranges ({exc}); the spreads"
+                          f" ({spreads}) are too wide for this point") from None
     for c, i in zip(cases, range(n_cycles)):
         c.name = f"{case.name}#{i + 1}"
 
