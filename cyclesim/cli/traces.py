@@ -43,7 +43,8 @@ def add_parsers(subparsers) -> None:
     t.add_argument("--coupled", action="store_true",
                    help="couple consecutive cycles through their residual gas (default: independent cycles);"
                         " with a fixed-duration Wiebe burn (the demo's) the coupling moves the trapped mass"
-                        " and residual fraction, not the burn phasing")
+                        " and residual fraction, not the burn phasing; with burn.model entrainment the residual's dilution"
+                        " also changes the next cycle's burn")
     t.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
     t.add_argument("--artefacts", choices=("default", "none"), default="default",
                    help="measurement flaws: a realistic default set, or none (true pressure) (default: default)")
@@ -347,8 +348,11 @@ def cmd_traces(args) -> int:
         xr = np.array([r["residual_fraction"] for r in ss.truth], float)
         xr = xr[np.isfinite(xr)]
         sd = float(np.std(xr, ddof=1)) if xr.size > 1 else float("nan")
+        why = ("the residual's dilution and heat change the next cycle's flame"
+               if case.submodels["burn"].model == "entrainment"
+               else "moves trapped mass and residual; a fixed-duration Wiebe burn keeps its phasing")
         print(f"  residual fraction per cycle        mean {100 * np.mean(xr):.2f} %, sd {100 * sd:.3f} %"
-              f" (coupled: moves trapped mass and residual; a fixed-duration Wiebe burn keeps its phasing)")
+              f" (coupled: {why})")
     if skipped_mdf:
         print(f"  ASAM MDF 4 (.mf4) not written: {mdf_hint}")
     if stale:
