@@ -79,9 +79,9 @@ the same way in every cycle.  Two remedies:
 
 from .burn_table import burn_table, write_burn_table
 from .fitting import PointsFit, fit, fit_points
-from .bounds import check_calibratable, param_bounds
+from .bounds import check_calibratable, declared_fit_parameters, param_bounds
 from .measured import MeasuredData, measured_data
 from .result import FitResult, write_calibration
 
-__all__ = ["FitResult", "PointsFit", "fit", "fit_points", "param_bounds", "check_calibratable", "burn_table",
-           "write_burn_table", "measured_data", "MeasuredData", "write_calibration"]
+__all__ = ["FitResult", "PointsFit", "fit", "fit_points", "param_bounds", "check_calibratable",
+           "declared_fit_parameters", "burn_table", "write_burn_table", "measured_data", "MeasuredData", "write_calibration"]

@@ -102,6 +102,26 @@ def check_calibratable(case: Case, key: str, mode: str = "closed") -> None:
         raise ConfigError(f"fit parameter {key!r} cannot be fitted: {why}")
 
 
+def declared_fit_parameters(case: Case) -> list[str]:
+    """Dotted keys of the constants the config's submodels declare fittable (``fit_parameters``).
+
+    A model declares the few constants a pressure trace can identify (e.g. the entrainment
+    burn's turbulence production coefficient and kernel radius); raises ``ConfigError`` when
+    none of the chosen models declares any.
+    """
+    from ..api import _registry_for
+
+    reg = _registry_for([case])
+    keys = []
+    for sec, ch in case.submodels.items():
+        cls = reg.submodel_class(sec, ch.model)
+        keys += [f"{sec}.{name}" for name in getattr(cls, "fit_parameters", ()) or ()]
+    if not keys:
+        raise ConfigError(f"fit: no parameter named and the config's models declare none to fit (burn.model"
+                          f" {case.submodels['burn'].model!r}); name them with --param, e.g. burn.duration_deg")
+    return keys
+
+
 def _current_value(case: Case, key: str) -> float:
     sec, name = key.split(".")
     if sec in CORE_SCHEMA:

@@ -20,9 +20,12 @@ def add_parsers(subparsers) -> None:
                     " a calibrated config. Parameters: " + CALIBRATION_RULE + ".")
     f.add_argument("config", help="config (path or built-in name) of the engine and operating point")
     f.add_argument("traces", nargs="+", type=Path, help="measured trace file(s): .csv, .npz or .mf4")
-    f.add_argument("--param", dest="params", action="append", required=True, metavar="KEY",
+    f.add_argument("--param", dest="params", action="append", default=None, metavar="KEY",
                    help="dotted key of a model parameter to fit, e.g. burn.duration_deg (repeatable);"
-                        " operating conditions such as operating.speed_rpm are refused (see above)")
+                        " operating conditions such as operating.speed_rpm are refused (see above)."
+                        " Default: the constants the config's models declare fittable (burn.model"
+                        " entrainment: burn.production_coefficient and burn.kernel_radius_mm); a model"
+                        " that declares none needs --param")
     f.add_argument("--out", type=Path, required=True, help="folder for calibrated.yaml, calibration.json, plots")
     f.add_argument("--mode", choices=("closed", "full"), default="closed",
                    help="simulate the closed cycle IVC..EVO (default, fast) or the full cycle")
@@ -103,6 +106,11 @@ def cmd_fit(args) -> int:
     finite(args.thermal_tau, "--thermal-tau", 0.0, None, lo_open=True)
     finite(args.step, "--step", 0.0, None, lo_open=True)
     case = load_config(args.config, list(args.overrides))
+    if not args.params:
+        from ..calibration import declared_fit_parameters
+
+        args.params = declared_fit_parameters(case)
+        print(f"fitting the constants the models declare: {', '.join(args.params)}")
     for k in dict.fromkeys(args.params):       # refuse before anything is written
         check_calibratable(case, k, args.mode)
     weights = {}

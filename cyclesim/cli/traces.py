@@ -24,9 +24,16 @@ def add_parsers(subparsers) -> None:
     g.add_argument("--sample-rate", type=float, metavar="HZ",
                    help="sample in time at this rate instead [Hz], > 0 (default: off, crank-angle samples)")
     t.add_argument("--start-sd", type=float, default=3.0, metavar="DEG",
-                   help="spread (sd) of the burn start / ignition delay [deg] (default 3)")
+                   help="spread (sd) of the burn start / ignition delay [deg] (default 3); prescribed burns (wiebe,"
+                        " wiebe_ca50, wiebe_flame)")
     t.add_argument("--duration-cov", type=float, default=0.12, metavar="FRACTION",
-                   help="spread of the burn duration, coefficient of variation [-] (default 0.12)")
+                   help="spread of the burn duration, coefficient of variation [-] (default 0.12); prescribed burns")
+    t.add_argument("--kernel-cov", type=float, default=0.3, metavar="FRACTION",
+                   help="burn.model entrainment: spread of the flame kernel's radius at the spark, coefficient"
+                        " of variation [-] (default 0.3)")
+    t.add_argument("--turbulence-cov", type=float, default=0.05, metavar="FRACTION",
+                   help="burn.model entrainment: spread of the cycle's charge motion at IVC (and so of the"
+                        " turbulence intensity at the spark), coefficient of variation [-] (default 0.05)")
     t.add_argument("--efficiency-sd", type=float, default=0.004, metavar="FRACTION",
                    help="spread (sd) of the combustion efficiency [-] (default 0.004)")
     t.add_argument("--partial-rate", type=float, default=0.0, metavar="SHARE",
@@ -36,7 +43,8 @@ def add_parsers(subparsers) -> None:
     t.add_argument("--coupled", action="store_true",
                    help="couple consecutive cycles through their residual gas (default: independent cycles);"
                         " with a fixed-duration Wiebe burn (the demo's) the coupling moves the trapped mass"
-                        " and residual fraction, not the burn phasing")
+                        " and residual fraction, not the burn phasing; with burn.model entrainment the residual's dilution"
+                        " also changes the next cycle's burn")
     t.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
     t.add_argument("--artefacts", choices=("default", "none"), default="default",
                    help="measurement flaws: a realistic default set, or none (true pressure) (default: default)")
@@ -263,6 +271,7 @@ def cmd_traces(args) -> int:
         except ImportError as exc:
             raise CyclesimError(f"--formats mf4 (ASAM MDF 4): {mdf_hint}") from exc
     var = CycleVariation(start_sd_deg=args.start_sd, duration_cov=args.duration_cov,
+                         kernel_radius_cov=args.kernel_cov, turbulence_cov=args.turbulence_cov,
                          efficiency_sd=args.efficiency_sd, partial_burn_rate=args.partial_rate,
                          misfire_rate=args.misfire_rate, coupled=args.coupled, seed=args.seed)
     resolution = None if args.sample_rate is not None else args.resolution
@@ -273,6 +282,7 @@ def cmd_traces(args) -> int:
         msg = str(exc)
         for lib, opt in (("cycles", "--cycles"), ("start_sd_deg", "--start-sd"),
                          ("duration_cov", "--duration-cov"), ("efficiency_sd", "--efficiency-sd"),
+                         ("kernel_radius_cov", "--kernel-cov"), ("turbulence_cov", "--turbulence-cov"),
                          ("partial_burn_rate", "--partial-rate"), ("misfire_rate", "--misfire-rate")):
             msg = msg.replace(f"traces: {lib} =", f"{opt}")        # the option the user typed
         raise ConfigError(msg) from None
@@ -328,14 +338,21 @@ def cmd_traces(args) -> int:
           f" (all {n} cycles, misfires included)")
     print(f"  CA50 mean {st.get('ca50_mean_deg', float('nan')):.2f} deg; knocking share {100 * st['knocking_share']:.1f} %,"
           f" misfires {100 * st['misfire_share']:.1f} %, partial burns {100 * st['partial_burn_share']:.1f} %")
+    nan = float("nan")
+    print(f"  burn angles mean (sd): 0-10 % {st.get('burn_0_10_mean_deg', nan):.1f}"
+          f" ({st.get('burn_0_10_sd_deg', nan):.2f}) deg, 10-90 % {st.get('burn_10_90_mean_deg', nan):.1f}"
+          f" ({st.get('burn_10_90_sd_deg', nan):.2f}) deg, CA50 sd {st.get('ca50_sd_deg', nan):.2f} deg")
     if args.coupled:
         import numpy as np
 
         xr = np.array([r["residual_fraction"] for r in ss.truth], float)
         xr = xr[np.isfinite(xr)]
         sd = float(np.std(xr, ddof=1)) if xr.size > 1 else float("nan")
+        why = ("the residual's dilution and heat change the next cycle's flame"
+               if case.submodels["burn"].model == "entrainment"
+               else "moves trapped mass and residual; a fixed-duration Wiebe burn keeps its phasing")
         print(f"  residual fraction per cycle        mean {100 * np.mean(xr):.2f} %, sd {100 * sd:.3f} %"
-              f" (coupled: moves trapped mass and residual; a fixed-duration Wiebe burn keeps its phasing)")
+              f" (coupled: {why})")
     if skipped_mdf:
         print(f"  ASAM MDF 4 (.mf4) not written: {mdf_hint}")
     if stale:

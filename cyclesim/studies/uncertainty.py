@@ -44,7 +44,8 @@ from .sweep import parse_values
 __all__ = ["propagate", "UncertaintyResult", "sample_parameters", "FIGURES"]
 
 FIGURES = ("torque_Nm", "imep_net_bar", "imep_closed_bar", "ca50_deg", "p_max_bar", "theta_pmax_deg",
-           "ca10_deg", "ca90_deg", "bsfc_g_per_kWh")
+           "ca10_deg", "ca90_deg", "burn_0_10_deg", "burn_10_90_deg", "bsfc_g_per_kWh", "no_ppm_wet",
+           "no_g_per_kWh")
 """Figures summarised per sweep point (those the cases report)."""
 
 SPARK_KEY = "burn.spark_advance_deg"

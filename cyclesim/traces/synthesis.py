@@ -52,26 +52,53 @@ from ..config import Case, case_with
 from ..errors import ConfigError, CyclesimError
 from ..solve.hermite import HermiteBasis
 
-# burn-parameter keys that carry the cycle-to-cycle variation, per burn model:
-# (start-type key varied by an absolute spread [deg], duration key varied by a relative spread)
-BURN_KEYS = {
-    "wiebe": ("ignition_delay_deg", "duration_deg"),
-    "wiebe_ca50": ("ca50_deg", "burn_10_90_deg"),
-    "wiebe_flame": ("ref_ignition_delay_deg", "ref_duration_deg"),
+# burn parameters that carry the cycle-to-cycle variation, per burn model: (config key, the
+# CycleVariation field that gives its spread, "normal" = absolute spread [the key's unit] or
+# "lognormal" = relative spread, mean kept); the first draws z1, the second z2
+VARIED = {
+    "wiebe": (("ignition_delay_deg", "start_sd_deg", "normal"), ("duration_deg", "duration_cov", "lognormal")),
+    "wiebe_ca50": (("ca50_deg", "start_sd_deg", "normal"), ("burn_10_90_deg", "duration_cov", "lognormal")),
+    "wiebe_flame": (("ref_ignition_delay_deg", "start_sd_deg", "normal"),
+                    ("ref_duration_deg", "duration_cov", "lognormal")),
+    # the predictive burn's angles are outputs: what varies is what sets them, the early kernel
+    # and the charge motion (see CycleVariation)
+    "entrainment": (("kernel_radius_mm", "kernel_radius_cov", "lognormal"),
+                    ("ivc_flow_factor", "turbulence_cov", "lognormal")),
 }
+BURN_KEYS = {model: (a[0], b[0]) for model, (a, b) in VARIED.items()}
+"""(start-type key, duration-type key) per burn model that varies cycle to cycle."""
 
 
 @dataclass
 class CycleVariation:
     """Distributions of the per-cycle burn parameters (all seeded, reproducible).
 
+    The prescribed burns (``wiebe``, ``wiebe_ca50``, ``wiebe_flame``) vary their start and
+    duration.  The predictive burn (``entrainment``) gives its burn angles as outputs, so what
+    varies is what sets them in an engine: the early flame kernel (its radius when the spark
+    has done its work: spark energy and the flow at the plug differ from cycle to cycle, and
+    the spark-to-10 % phase is where cycle-to-cycle variation starts, Herweg & Maly 1992) and
+    the charge motion the intake leaves at IVC (``burn.ivc_flow_factor``, which scales the
+    mean-flow and turbulence velocities at IVC and so, nearly in proportion, the turbulence
+    intensity at the spark: u' at the spark changes by 0.80 and 1.19 times for factors 0.8
+    and 1.2 on the demo, measured).  The default spreads (kernel radius 30 %, charge motion
+    5 %) are a choice that gives a COV of net IMEP of about 1-1.5 % at the demo's full-load
+    point (a few % is typical of a good operating point, common practice).  The two draws are
+    independent.
+
     Attributes
     ----------
     start_sd_deg : float
         Standard deviation of the burn start (ignition delay, or CA50 for a
-        phasing-specified burn) [deg]; normal.
+        phasing-specified burn) [deg]; normal.  Prescribed burns.
     duration_cov : float
-        Coefficient of variation of the burn duration [-]; log-normal.
+        Coefficient of variation of the burn duration [-]; log-normal.  Prescribed burns.
+    kernel_radius_cov : float
+        Coefficient of variation of the flame kernel's radius at the spark
+        (``burn.kernel_radius_mm``) [-]; log-normal.  Predictive burn.
+    turbulence_cov : float
+        Coefficient of variation of the cycle's charge motion at IVC
+        (``burn.ivc_flow_factor``, mean 1 times the config's value) [-]; log-normal.  Predictive burn.
     efficiency_sd : float
         Standard deviation of the combustion efficiency [-]; normal, clipped.
     partial_burn_rate : float
@@ -89,6 +116,8 @@ class CycleVariation:
     start_sd_deg: float = 3.0
     duration_cov: float = 0.12
     efficiency_sd: float = 0.004
+    kernel_radius_cov: float = 0.3
+    turbulence_cov: float = 0.05
     partial_burn_rate: float = 0.0
     partial_burn_range: tuple = (0.3, 0.8)
     misfire_rate: float = 0.0
@@ -96,7 +125,7 @@ class CycleVariation:
     seed: int = 1
 
     def check(self) -> None:
-        for name in ("start_sd_deg", "duration_cov", "efficiency_sd"):
+        for name in ("start_sd_deg", "duration_cov", "efficiency_sd", "kernel_radius_cov", "turbulence_cov"):
             v = getattr(self, name)
             if not (v >= 0 and math.isfinite(v)):
                 raise ConfigError(f"traces: {name} = {v!r}: expected a number >= 0")
@@ -156,7 +185,6 @@ def draw_parameters(case: Case, n: int, var: CycleVariation) -> tuple[list[dict]
         raise ConfigError(
             f"burn.model = {model!r}: cycle-to-cycle variation is defined for {', '.join(BURN_KEYS)}"
         )
-    k_start, k_dur = BURN_KEYS[model]
     bp = case.submodels["burn"].params
     rng = np.random.default_rng(var.seed)
     z1 = rng.standard_normal(n)
@@ -165,11 +193,17 @@ def draw_parameters(case: Case, n: int, var: CycleVariation) -> tuple[list[dict]
     u_mis = rng.random(n)
     u_par = rng.random(n)
     u_frac = rng.random(n)
-    start = bp[k_start] + var.start_sd_deg * z1
-    if k_start.endswith("delay_deg"):
-        start = np.maximum(start, 0.0)
-    s = math.sqrt(math.log1p(var.duration_cov**2))
-    dur = bp[k_dur] * np.exp(s * z2 - 0.5 * s * s)
+    drawn = {}
+    for (key, spread, law), z in zip(VARIED[model], (z1, z2)):
+        sd = float(getattr(var, spread))
+        if law == "normal":
+            v = bp[key] + sd * z
+            if key.endswith("delay_deg"):
+                v = np.maximum(v, 0.0)
+        else:
+            s = math.sqrt(math.log1p(sd**2))
+            v = bp[key] * np.exp(s * z - 0.5 * s * s)
+        drawn[key] = v
     eff0 = float(bp.get("combustion_efficiency", 1.0))
     eff = np.clip(eff0 + var.efficiency_sd * z3, 0.0, 1.0)
     misfire = u_mis < var.misfire_rate
@@ -177,11 +211,8 @@ def draw_parameters(case: Case, n: int, var: CycleVariation) -> tuple[list[dict]
     lo, hi = var.partial_burn_range
     eff = np.where(partial, eff * (lo + (hi - lo) * u_frac), eff)
     eff = np.where(misfire, 0.0, eff)
-    changes = [
-        {f"burn.{k_start}": float(start[i]), f"burn.{k_dur}": float(dur[i]),
-         "burn.combustion_efficiency": float(eff[i])}
-        for i in range(n)
-    ]
+    changes = [{**{f"burn.{k}": float(v[i]) for k, v in drawn.items()},
+                "burn.combustion_efficiency": float(eff[i])} for i in range(n)]
     return changes, misfire, partial
 
 
@@ -195,6 +226,9 @@ def _steady_state(case: Case, registry):
         raise CyclesimError(f"mean cycle failed: {tr.failed[0]}")
     return tr
 
+
+TRUTH_MODEL_FIGURES = ("turbulence_intensity_at_spark_m_per_s",)
+"""Burn-model figures copied into the per-cycle truth where the model gives them."""
 
 CHAIN_TOLERANCE = 1e-10
 """Coupled cycles: largest relative change of a start state at which a chain counts as solved."""
@@ -431,7 +465,12 @@ def synthesize(
     mean = _steady_state(case, registry)
     start_state = mean.end_state[:, 0]
     changes, misfire, partial = draw_parameters(case, n_cycles, var)
-    cases = [case_with(case, ch, registry) for ch in changes]
+    try:
+        cases = [case_with(case, ch, registry) for ch in changes]
+    except ConfigError as exc:
+        spreads = ", ".join(f"{sp} = {getattr(var, sp):g}" for _, sp, _ in VARIED[case.submodels["burn"].model])
+        raise ConfigError(f"traces: a drawn cycle is outside the burn's ranges ({exc}); the spreads"
+                          f" ({spreads}) are too wide for this point") from None
     for c, i in zip(cases, range(n_cycles)):
         c.name = f"{case.name}#{i + 1}"
 
@@ -465,12 +504,15 @@ def synthesize(
             row = {"cycle": i + 1}
             mis = bool(misfire[i])
             for key in ("imep_net_bar", "imep_gross_bar", "pmep_bar", "p_max_bar", "theta_pmax_deg",
-                        "ca10_deg", "ca50_deg", "ca90_deg", "trapped_mass_mg", "residual_fraction",
-                        "fuel_energy_J"):
+                        "ca10_deg", "ca50_deg", "ca90_deg", "burn_0_10_deg", "burn_10_90_deg",
+                        "trapped_mass_mg", "residual_fraction", "fuel_energy_J"):
                 v = float(np.asarray(figs[key])[b])
-                if mis and key.startswith("ca"):
+                if mis and (key.startswith("ca") or key.startswith("burn_")):
                     v = float("nan")
                 row[key] = v
+            for key in TRUTH_MODEL_FIGURES:        # what a predictive burn drew: its turbulence
+                if key in figs:
+                    row[key] = float("nan") if mis else float(np.asarray(figs[key])[b])
             # fresh charge inducted over the cycle: fuel and air (the rest of the inducted mass is EGR)
             row["fuel_mass_mg"] = float(np.asarray(figs["fuel_mass_mg"])[b])
             row["air_mass_mg"] = float(Mu[b]) * 1e6 - row["fuel_mass_mg"]
@@ -665,10 +707,14 @@ def set_statistics(truth: Sequence[dict]) -> dict:
         "imep_net_sd_bar": sd,
         "cov_imep_net": sd / mean if mean else float("nan"),
     }
-    for key in ("imep_gross_bar", "p_max_bar", "theta_pmax_deg", "ca10_deg", "ca50_deg", "ca90_deg"):
-        v = np.array([r[key] for r in truth], dtype=float)
+    for key in ("imep_gross_bar", "p_max_bar", "theta_pmax_deg", "ca10_deg", "ca50_deg", "ca90_deg",
+                "burn_0_10_deg", "burn_10_90_deg"):
+        v = np.array([r.get(key, np.nan) for r in truth], dtype=float)
         out[f"{key.replace('_bar', '').replace('_deg', '')}_mean{key[key.rfind('_'):]}"] = (
             float(np.nanmean(v)) if np.isfinite(v).any() else float("nan"))
+        if key.startswith(("ca50", "burn_")):
+            out[f"{key[:key.rfind('_')]}_sd{key[key.rfind('_'):]}"] = (
+                float(np.nanstd(v, ddof=1)) if np.isfinite(v).sum() > 1 else float("nan"))
     kn = np.array([np.isfinite(r.get("knock_onset_deg", np.nan)) for r in truth])
     out["knocking_share"] = float(kn.mean()) if len(kn) else 0.0
     out["misfire_share"] = float(np.mean([r["misfire"] for r in truth]))
