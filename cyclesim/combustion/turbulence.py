@@ -104,6 +104,19 @@ def taylor_microscale(u, L, nu):
     return L * np.sqrt(TAYLOR_CONSTANT / re)
 
 
+def stretch_factor(s_l, u, L, nu, r_f):
+    """Herweg & Maly (1992) stretch factor I_0 [-] of the laminar burning velocity in a kernel of radius
+    r_f [m]: I_0 = 1 - sqrt(l_F / (15 L)) (u' / S_L)^(3/2) - 2 l_F / r_f, floored at 0.
+
+    The first term is the strain of the turbulence (intensity u [m/s], integral scale L [m]), the
+    second the curvature of the kernel; l_F = nu / S_L the laminar flame thickness, nu [m^2/s] the
+    unburned gas's kinematic viscosity, s_l [m/s] the unstretched laminar burning velocity."""
+    l_f = nu / np.maximum(s_l, 1e-6)
+    u_s = np.maximum(u, 0.0) / np.maximum(s_l, 1e-6)
+    strain = np.sqrt(l_f / (15.0 * L)) * u_s * np.sqrt(u_s)
+    return np.maximum(1.0 - strain - 2.0 * l_f / np.maximum(r_f, 1e-9), 0.0)
+
+
 def kernel_turbulence_factor(r_f, t, L, u):
     """Herweg & Maly (1992) factor u'_eff / u' [-] of a kernel of radius r_f [m], t [s] after the spark,
     in turbulence of integral scale L [m] and intensity u [m/s]."""
