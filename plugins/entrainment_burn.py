@@ -138,7 +138,7 @@ def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, m
     t = (theta - spark) / omega_deg
     u_eff = u * kernel_turbulence_factor(r_f, t, INTEGRAL_SCALE_RATIO * L, u)
     nu = viscosity_air(T_u) / rho_u
-    s_k = s_l * stretch_factor(s_l, u, INTEGRAL_SCALE_RATIO * L, nu, r_f)
+    s_k = s_l * stretch_factor(s_l, u_eff, INTEGRAL_SCALE_RATIO * L, nu, r_f)
     lam = taylor_microscale(u, L, nu)
     on = (theta >= spark) & (theta < CYCLE_END_DEG)
     return on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u
