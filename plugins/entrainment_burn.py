@@ -4,8 +4,12 @@ The quasi-dimensional model of Blizard & Keck (1974), Tabaczynski, Ferguson & Ra
 (1977) and Keck (1982).  A spherical flame centred at the spark plug entrains unburned charge
 at its front and the entrained eddies burn up behind it:
 
-    dm_e/dt = rho_u A_f (u'_eff + S_L)
-    dm_b/dt = (m_e - m_b) / tau_b,      tau_b = lambda / S_L
+    dm_e/dt = rho_u A_f (u'_eff + I_0 S_L)
+    dm_b/dt = rho_u A_f I_0 S_L + (m_e - m_b) / tau_b,      tau_b = lambda / S_L
+
+(Keck 1982, from memory: the front burns the charge it reaches at the laminar speed, the eddies
+entrained by the turbulence burn up behind it; with no turbulence a laminar flame burns exactly
+what it entrains.)
 
 - ``A_f`` the front area of a sphere in the chamber (the config's ``engine.chamber``), from
   :mod:`cyclesim.combustion.flame_geometry`, tabulated at set-up against the fraction of the
@@ -16,7 +20,17 @@ at its front and the entrained eddies burn up behind it:
   (:mod:`cyclesim.combustion.turbulence`);
 - ``u'_eff`` the Herweg & Maly (1992) intensity felt by a kernel smaller than the eddies,
   which grows to ``u'`` as the kernel outgrows the integral scale and the eddies have had
-  time to act on it: the spark-to-developed-flame phase (see the turbulence module).
+  time to act on it: the spark-to-developed-flame phase (see the turbulence module);
+- ``I_0`` Herweg & Maly's stretch factor of the laminar speed (strain by the turbulence the
+  kernel feels, ``u'_eff``, and the kernel's curvature), which slows thick flames: low density,
+  high dilution (:func:`cyclesim.combustion.turbulence.stretch_factor`).
+
+The front's position in the tables is its fill s^3 = V_f / (V_f + V_u), the volume of the
+entrained charge over that of the entrained and the not yet entrained charge, both from their
+masses at the cylinder pressure: the front reaches the last wall, where its area is zero, when
+the whole charge is entrained (taking V_f / V instead let the front fill the chamber at 99.4 %
+entrained on the demo, the burned gas's estimated temperature being a little high, and left the
+rest unburned).
 
 Burning, the entrainment and the burn-up all start at the spark; the kernel starts as a
 sphere of ``kernel_radius_mm`` (the breakdown and arc phases before it are not modelled).

@@ -33,7 +33,13 @@ turnover time to act on it; the effective turbulence intensity is
 
 t the time since the spark, r_f the flame radius (form from memory), L_I the integral scale of the
 turbulence: about 0.2 of the chamber height near TDC (measurements reviewed by Heywood 1988,
-section 8.2, from memory), so L_I = 0.2 L here.  The Taylor microscale, by contrast, follows from
+section 8.2, from memory), so L_I = 0.2 L here.  The kernel's laminar burning velocity is
+stretched (Herweg & Maly 1992, form from memory) by the factor
+
+    I_0 = 1 - sqrt(l_F / (15 L_I)) (u'_eff / S_L)^(3/2) - 2 l_F / r_f,   l_F = nu / S_L,
+
+strain by the turbulence the kernel feels and curvature of the kernel; thick flames (low
+density, much burned-gas dilution) are slowed the most.  The Taylor microscale, by contrast, follows from
 the K-k model's own dissipation eps = u'^3 / L, so it uses L.
 
 All functions take floats or numpy arrays (broadcast together), SI units, are branch-free and
