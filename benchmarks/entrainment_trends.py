@@ -2,7 +2,9 @@
 
 For 1500/3000/5000 rpm at full load (demo) and part load (demo_part_load) this runs the spark
 study on a coarse advance grid, reads MBT from its torque fit, and prints MBT, CA50 at MBT and
-the 0-10 % and 10-90 % burn angles of the case at MBT (one run per point at the rounded MBT).
+the 0-10 % and 10-90 % burn angles of the case at MBT (one run per point at the rounded MBT),
+its net IMEP, the combustion efficiency (share of the fuel's energy released) and the turbulence
+intensity at TDC over the mean piston speed.
 
     CYCLESIM_THREADS=1 python benchmarks/entrainment_trends.py [--speeds 1500,3000,5000]
 
@@ -31,7 +33,8 @@ def point(config: str, speed: float, extra=(), advances: str = "10:60:5"):
         r = simulate(load_config(config, ov + [f"burn.spark_advance_deg={mbt:.1f}"]))[0]
         f = r.summary
         row.update(ca10_deg=f["ca10_deg"], burn_0_10_deg=f["ca10_deg"] + mbt, burn_10_90_deg=f["burn_10_90_deg"],
-                   imep_net_bar=f["imep_net_bar"], u_tdc_over_sp=f["turbulence_to_piston_speed_at_tdc"])
+                   imep_net_bar=f["imep_net_bar"], u_tdc_over_sp=f["turbulence_to_piston_speed_at_tdc"],
+                   eff_pct=100.0 * f["combustion_efficiency"])
     return row
 
 
@@ -40,14 +43,14 @@ def main() -> None:
     ap.add_argument("--speeds", default="1500,3000,5000")
     ap.add_argument("--loads", default="full,part")
     a = ap.parse_args()
-    print(f"{'load':5} {'rpm':>5} {'MBT':>6} {'CA50':>6} {'0-10':>6} {'10-90':>6} {'IMEPn':>6} {'uT/Sp':>6}  s")
+    print(f"{'load':5} {'rpm':>5} {'MBT':>6} {'CA50':>6} {'0-10':>6} {'10-90':>6} {'IMEPn':>6} {'eff%':>6} {'uT/Sp':>6}  s")
     for load in a.loads.split(","):
         for n in (float(x) for x in a.speeds.split(",")):
             t = time.time()
             r = point(LOADS[load], n)
             fmt = lambda k: "   n/a" if r.get(k) is None else f"{r[k]:6.1f}"  # noqa: E731
             print(f"{load:5} {n:5.0f} {fmt('mbt_deg')} {fmt('ca50_at_mbt_deg')} {fmt('burn_0_10_deg')}"
-                  f" {fmt('burn_10_90_deg')} {fmt('imep_net_bar')} {r.get('u_tdc_over_sp', float('nan')):6.2f}"
+                  f" {fmt('burn_10_90_deg')} {fmt('imep_net_bar')} {fmt('eff_pct')} {r.get('u_tdc_over_sp', float('nan')):6.2f}"
                   f"  {time.time() - t:.0f}", flush=True)
     print("estimates only: approach spark limits gradually with knock detection, within the manufacturer's"
           " limits, following the test cell's procedures")

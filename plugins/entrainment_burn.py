@@ -4,8 +4,12 @@ The quasi-dimensional model of Blizard & Keck (1974), Tabaczynski, Ferguson & Ra
 (1977) and Keck (1982).  A spherical flame centred at the spark plug entrains unburned charge
 at its front and the entrained eddies burn up behind it:
 
-    dm_e/dt = rho_u A_f (u'_eff + S_L)
-    dm_b/dt = (m_e - m_b) / tau_b,      tau_b = lambda / S_L
+    dm_e/dt = rho_u A_f (u'_eff + I_0 S_L)
+    dm_b/dt = rho_u A_f I_0 S_L + (m_e - m_b) / tau_b,      tau_b = lambda / S_L
+
+(Keck 1982, from memory: the front burns the charge it reaches at the laminar speed, the eddies
+entrained by the turbulence burn up behind it; with no turbulence a laminar flame burns exactly
+what it entrains.)
 
 - ``A_f`` the front area of a sphere in the chamber (the config's ``engine.chamber``), from
   :mod:`cyclesim.combustion.flame_geometry`, tabulated at set-up against the fraction of the
@@ -16,7 +20,17 @@ at its front and the entrained eddies burn up behind it:
   (:mod:`cyclesim.combustion.turbulence`);
 - ``u'_eff`` the Herweg & Maly (1992) intensity felt by a kernel smaller than the eddies,
   which grows to ``u'`` as the kernel outgrows the integral scale and the eddies have had
-  time to act on it: the spark-to-developed-flame phase (see the turbulence module).
+  time to act on it: the spark-to-developed-flame phase (see the turbulence module);
+- ``I_0`` Herweg & Maly's stretch factor of the laminar speed (strain by the turbulence the
+  kernel feels, ``u'_eff``, and the kernel's curvature), which slows thick flames: low density,
+  high dilution (:func:`cyclesim.combustion.turbulence.stretch_factor`).
+
+The front's position in the tables is its fill s^3 = V_f / (V_f + V_u), the volume of the
+entrained charge over that of the entrained and the not yet entrained charge, both from their
+masses at the cylinder pressure: the front reaches the last wall, where its area is zero, when
+the whole charge is entrained (taking V_f / V instead let the front fill the chamber at 99.4 %
+entrained on the demo, the burned gas's estimated temperature being a little high, and left the
+rest unburned).
 
 Burning, the entrainment and the burn-up all start at the spark; the kernel starts as a
 sphere of ``kernel_radius_mm`` (the breakdown and arc phases before it are not modelled).
@@ -49,7 +63,7 @@ from cyclesim.combustion import flame_geometry as fg
 from cyclesim.combustion import laminar_flame as lf
 from cyclesim.combustion.laminar_flame import gulder, metghalchi_keck
 from cyclesim.combustion.turbulence import (INTEGRAL_SCALE_RATIO, integral_length, kernel_turbulence_factor,
-                                            kk_rates, taylor_microscale, turbulence_intensity, viscosity_air)
+                                            kk_rates, stretch_factor, taylor_microscale, turbulence_intensity, viscosity_air)
 from cyclesim.kernel_ops import where
 from cyclesim.loops.layout import shared_array
 from cyclesim.params import Param, StateVar
@@ -113,7 +127,12 @@ def table_lookup(flat, idx, off, h, s, h0, inv_dh, nh, ns):
 def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2,
                  c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc,
                  bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns):
-    """Shared quantities of the two kernels: (on, S_L, u'_eff, rho_u, A_f, lambda, T_u)."""
+    """Shared quantities of the two kernels: (on, S_L, I_0 S_L, u'_eff, rho_u, A_f, lambda, T_u).
+
+    The front's fill s^3 = V_f / (V_f + V_u): V_f the volume of the entrained charge (burned and
+    not yet burned), V_u that of the charge not yet entrained, both from their masses at the
+    pressure, so the front reaches the last wall (s = 1, no front left) exactly when the whole
+    charge is entrained, whatever the error of the burned gas's estimated temperature."""
     T_u = isentrope_temperature(T_ivc, p / p_ivc, cv0, cv1, cv2, R_u)
     rho_u = p / (R_u * T_u)
     f = np.minimum(np.maximum(1.0 - (1.0 - y_b) / np.maximum(1.0 - eff * x_b, 1e-9), 0.0), 0.6)
@@ -123,8 +142,9 @@ def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, m
     T_b = T_u + (1.0 - f) * dT_ad
     v_f = m * (x_b * R_b * T_b + np.maximum(x_e - x_b, 0.0) * R_u * T_u) / p
     v_f = np.maximum(v_f, 4.18879 * r0 * r0 * r0)
+    v_u = m * np.maximum(1.0 - x_e, 0.0) * R_u * T_u / p
     h = (V - v_rb) / bore_area
-    s = np.minimum(v_f / V, 1.0) ** (1.0 / 3.0)
+    s = (v_f / (v_f + v_u)) ** (1.0 / 3.0)
     r_f = table_lookup(tab_r, tab_idx, off, h, s, h0, inv_dh, nh, ns)
     a_f = table_lookup(tab_a, tab_idx, off, h, s, h0, inv_dh, nh, ns)
     L = integral_length(V, bore_area, half_bore)
@@ -132,22 +152,26 @@ def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, m
     t = (theta - spark) / omega_deg
     u_eff = u * kernel_turbulence_factor(r_f, t, INTEGRAL_SCALE_RATIO * L, u)
     nu = viscosity_air(T_u) / rho_u
+    s_k = s_l * stretch_factor(s_l, u_eff, INTEGRAL_SCALE_RATIO * L, nu, r_f)
     lam = taylor_microscale(u, L, nu)
     on = (theta >= spark) & (theta < CYCLE_END_DEG)
-    return on, s_l, u_eff, rho_u, a_f, lam, T_u
+    return on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u
 
 
-def burnup_rate(on, x_e, x_b, s_l, lam, omega_deg):
-    """dx_b/dtheta [1/deg] = (x_e - x_b) S_L / (lambda omega) after the spark, else 0; x_e counted
-    up to 1 (the entrainment may step past the whole charge), so x_b never exceeds 1."""
-    return where(on, np.maximum(np.minimum(x_e, 1.0) - x_b, 0.0) * s_l / (lam * omega_deg), 0.0)
+def burnup_rate(on, x_e, x_b, s_l, s_k, lam, rho_u, a_f, m, omega_deg):
+    """dx_b/dtheta [1/deg] = (rho_u A_f I_0 S_L / m + (x_e - x_b) S_L / lambda) / omega after the
+    spark, else 0 (Keck 1982: the front burns as it advances, the eddies behind it burn up); the
+    front's term while x_e < 1, x_e counted up to 1 in the burn-up, so x_b never exceeds 1."""
+    front = where(x_e < 1.0, rho_u * a_f * s_k / m, 0.0)
+    eddies = np.maximum(np.minimum(x_e, 1.0) - x_b, 0.0) * s_l / lam
+    return where(on, (front + eddies) / omega_deg, 0.0)
 
 
-def state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_l, m, V, dV, omega_deg, closed, bore_area, half_bore,
+def state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_k, m, V, dV, omega_deg, closed, bore_area, half_bore,
                 c_beta):
-    """(dx_e/dt [1/s], dK/dt, dk/dt [W/kg]): entrainment rho_u A_f (u'_eff + S_L) / m after the spark
-    while x_e < 1; the K-k model while the valves are shut, with the closed cylinder's -dV/V."""
-    dxe = where(on & (x_e < 1.0), rho_u * a_f * (u_eff + s_l) / m, 0.0)
+    """(dx_e/dt [1/s], dK/dt, dk/dt [W/kg]): entrainment rho_u A_f (u'_eff + I_0 S_L) / m after the
+    spark while x_e < 1; the K-k model while the valves are shut, with the closed cylinder's -dV/V."""
+    dxe = where(on & (x_e < 1.0), rho_u * a_f * (u_eff + s_k) / m, 0.0)
     L = integral_length(V, bore_area, half_bore)
     dK, dk = kk_rates(K, k, L, -dV * omega_deg / V, c_beta)
     return dxe, where(closed, dK, 0.0), where(closed, dk, 0.0)
@@ -158,11 +182,11 @@ def entrainment_rate(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, ph
                      bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns):
     """Burn rate dx_b/dtheta [1/deg]: burn-up of the entrained eddies, (x_e - x_b) / tau_b, zero
     before the spark and from 360 deg (the burn ``kernel``)."""
-    on, s_l, u_eff, rho_u, a_f, lam, T_u = _flame_state(
+    on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u = _flame_state(
         theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
         c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, bore_area, half_bore, v_rb, r0,
         tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns)
-    return burnup_rate(on, x_e, x_b, s_l, lam, omega_deg)
+    return burnup_rate(on, x_e, x_b, s_l, s_k, lam, rho_u, a_f, m, omega_deg)
 
 
 def entrainment_states(theta, p, V, dV, m, y_b, x_b, omega_deg, closed, x_e, K, k, spark, eff, phi, mk,
@@ -171,11 +195,11 @@ def entrainment_states(theta, p, V, dV, m, y_b, x_b, omega_deg, closed, x_e, K, 
                        nh, ns, c_beta):
     """Time derivatives of (x_e [1/s], K [W/kg], k [W/kg]) (the ``state_kernel``), see
     :func:`state_rates`."""
-    on, s_l, u_eff, rho_u, a_f, lam, T_u = _flame_state(
+    on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u = _flame_state(
         theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
         c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, bore_area, half_bore, v_rb, r0,
         tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns)
-    return state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_l, m, V, dV, omega_deg, closed, bore_area,
+    return state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_k, m, V, dV, omega_deg, closed, bore_area,
                        half_bore, c_beta)
 
 
@@ -428,11 +452,11 @@ class EntrainmentBurn(BurnRate):
         P = self.pack()
         if s.theta < float(np.min(self.spark)) or not np.any(s.closed):
             # no case burns yet (or all valves are open): the flame terms are zero
-            on, rho_u, a_f, u_eff, s_l = False, 0.0, 0.0, 0.0, 0.0
+            on, rho_u, a_f, u_eff, s_k = False, 0.0, 0.0, 0.0, 0.0
         else:
-            on, s_l, u_eff, rho_u, a_f, lam, T_u = self._flame(s)
+            on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u = self._flame(s)
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-            dxe, dK, dk = state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_l, s.m, s.V, s.dV, s.omega_deg,
+            dxe, dK, dk = state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_k, s.m, s.V, s.dV, s.omega_deg,
                                       s.closed, P["bore_area"], P["half_bore"], P["c_beta"])
         return {"x_e": dxe, "K": dK, "k": dk}
 

@@ -227,14 +227,6 @@ def _angles(r):
     return s["ca10_deg"] + s["spark_advance_deg"], s["burn_10_90_deg"]
 
 
-def test_full_load_angles_are_the_trades(trend_runs):
-    # full load, stoichiometric: 0-10 % about 15-30 deg, 10-90 % about 20-35 deg (Heywood 1988
-    # sec. 9.2, figs. 9-11/9-12, figures from memory)
-    for r in (trend_runs[0], trend_runs[3], trend_runs[4]):
-        d, b = _angles(r)
-        assert 15.0 <= d <= 30.0 and 20.0 <= b <= 35.0, (r.name, d, b)
-
-
 def test_lean_and_diluted_mixtures_burn_slower(trend_runs):
     # lower laminar burning velocity (Metghalchi & Keck 1982; Rhodes & Keck 1985): both angles grow
     base, lean, egr = (_angles(r) for r in trend_runs[:3])
@@ -244,8 +236,9 @@ def test_lean_and_diluted_mixtures_burn_slower(trend_runs):
 
 def test_angles_change_only_mildly_with_speed(trend_runs):
     # u' scales with the piston speed, so the angles in crank degrees change only mildly from
-    # 1500 to 5000 rpm (Heywood 1988 sec. 9.2, from memory): within about 40 % (measured: 0-10 %
-    # x1.21, 10-90 % x1.34, both longer at the higher speed)
+    # 1500 to 5000 rpm (Heywood 1988 sec. 9.2, from memory): within about 45 % at a fixed spark
+    # (measured at 30 deg BTDC: 0-10 % x1.32, 10-90 % x1.40, both longer at the higher speed; at
+    # MBT see tests/test_entrainment_trends.py)
     slow, fast = _angles(trend_runs[3]), _angles(trend_runs[4])
     for a, b in zip(slow, fast):
         assert 1.0 < b / a < 1.45
@@ -281,18 +274,6 @@ def test_burn_is_finite_and_monotone(spark, lam, p_ivc, speed):
     assert np.all(np.isfinite(x)) and np.all(np.isfinite(np.ravel(r.trace["pressure_bar"])))
     assert x.min() >= 0.0 and x.max() <= 1.0 + 1e-9 and np.all(np.diff(x) >= -1e-12)
     assert np.all(xe >= x - 1e-9)
-
-
-@pytest.mark.slow
-@pytest.mark.parametrize("config", ["demo", "demo_part_load"])
-def test_mbt_keeps_ca50_6_to_12_deg_atdc_at_low_speed(config):
-    # MBT puts CA50 about 6-12 deg ATDC at any speed and load (Heywood 1988 ch. 9, from memory);
-    # at 1500 rpm with the default constants (higher speeds: see the benchmark and README)
-    from cyclesim.studies.spark import spark_study
-
-    st_ = spark_study(config, "5:45:5", overrides=FAST + ["operating.speed_rpm=1500"], plots=False)
-    assert st_.mbt_deg is not None
-    assert 6.0 <= st_.ca50_at_mbt_deg <= 12.0
 
 
 # ----------------------------------------------------------------------------

@@ -33,7 +33,13 @@ turnover time to act on it; the effective turbulence intensity is
 
 t the time since the spark, r_f the flame radius (form from memory), L_I the integral scale of the
 turbulence: about 0.2 of the chamber height near TDC (measurements reviewed by Heywood 1988,
-section 8.2, from memory), so L_I = 0.2 L here.  The Taylor microscale, by contrast, follows from
+section 8.2, from memory), so L_I = 0.2 L here.  The kernel's laminar burning velocity is
+stretched (Herweg & Maly 1992, form from memory) by the factor
+
+    I_0 = 1 - sqrt(l_F / (15 L_I)) (u'_eff / S_L)^(3/2) - 2 l_F / r_f,   l_F = nu / S_L,
+
+strain by the turbulence the kernel feels and curvature of the kernel; thick flames (low
+density, much burned-gas dilution) are slowed the most.  The Taylor microscale, by contrast, follows from
 the K-k model's own dissipation eps = u'^3 / L, so it uses L.
 
 All functions take floats or numpy arrays (broadcast together), SI units, are branch-free and
@@ -102,6 +108,19 @@ def taylor_microscale(u, L, nu):
     """Taylor microscale lambda = L sqrt(15 / Re_L) [m], Re_L = u' L / nu; u' [m/s], L [m], nu [m^2/s]."""
     re = np.maximum(u * L / nu, 1e-6)
     return L * np.sqrt(TAYLOR_CONSTANT / re)
+
+
+def stretch_factor(s_l, u, L, nu, r_f):
+    """Herweg & Maly (1992) stretch factor I_0 [-] of the laminar burning velocity in a kernel of radius
+    r_f [m]: I_0 = 1 - sqrt(l_F / (15 L)) (u' / S_L)^(3/2) - 2 l_F / r_f, floored at 0.
+
+    The first term is the strain of the turbulence (intensity u [m/s], integral scale L [m]), the
+    second the curvature of the kernel; l_F = nu / S_L the laminar flame thickness, nu [m^2/s] the
+    unburned gas's kinematic viscosity, s_l [m/s] the unstretched laminar burning velocity."""
+    l_f = nu / np.maximum(s_l, 1e-6)
+    u_s = np.maximum(u, 0.0) / np.maximum(s_l, 1e-6)
+    strain = np.sqrt(l_f / (15.0 * L)) * u_s * np.sqrt(u_s)
+    return np.maximum(1.0 - strain - 2.0 * l_f / np.maximum(r_f, 1e-9), 0.0)
 
 
 def kernel_turbulence_factor(r_f, t, L, u):
