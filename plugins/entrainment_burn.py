@@ -24,7 +24,8 @@ sphere of ``kernel_radius_mm`` (the breakdown and arc phases before it are not m
 Unburned charge: fresh charge compressed isentropically from its IVC state (cp of the fresh
 charge as a quadratic in T fitted at set-up; the same isentrope as the knock model's
 :func:`cyclesim_plugins.knock.isentropic_temperature`), so wall heat loss from the end gas is
-neglected.  The burned gas behind the front is taken at the unburned temperature plus the
+neglected; where the cylinder runs two zones (``simulation.zones: two``) the unburned zone's own
+temperature (the state field ``T_u``) instead.  The burned gas behind the front is taken at the unburned temperature plus the
 adiabatic temperature rise at constant pressure, ``T_b = T_u + (1 - f) dT_ad``, with ``dT_ad``
 from the tool's equilibrium tables at 700 K and 20 bar at set-up (common practice for a
 one-zone cylinder; a two-zone cylinder will supply its own burned-zone state).  The front
@@ -111,10 +112,12 @@ def table_lookup(flat, idx, off, h, s, h0, inv_dh, nh, ns):
 
 
 def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2,
-                 c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc,
+                 c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u,
                  bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns):
-    """Shared quantities of the two kernels: (on, S_L, u'_eff, rho_u, A_f, lambda, T_u)."""
-    T_u = isentrope_temperature(T_ivc, p / p_ivc, cv0, cv1, cv2, R_u)
+    """Shared quantities of the two kernels: (on, S_L, u'_eff, rho_u, A_f, lambda, T_u); the unburned
+    gas is the unburned zone's own ``T_u`` where two zones run (``T_u > 0``), else the fresh charge
+    on its isentrope from IVC."""
+    T_u = where(T_u > 0.0, T_u, isentrope_temperature(T_ivc, p / p_ivc, cv0, cv1, cv2, R_u))
     rho_u = p / (R_u * T_u)
     f = np.minimum(np.maximum(1.0 - (1.0 - y_b) / np.maximum(1.0 - eff * x_b, 1e-9), 0.0), 0.6)
     s_mk = metghalchi_keck(phi, T_u, p, f, c_mk0, c_mk1, c_mk2)
@@ -154,26 +157,26 @@ def state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_l, m, V, dV, omega_deg, clos
 
 
 def entrainment_rate(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1,
-                     c_mk2, c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc,
+                     c_mk2, c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u,
                      bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns):
     """Burn rate dx_b/dtheta [1/deg]: burn-up of the entrained eddies, (x_e - x_b) / tau_b, zero
     before the spark and from 360 deg (the burn ``kernel``)."""
     on, s_l, u_eff, rho_u, a_f, lam, T_u = _flame_state(
         theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
-        c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, bore_area, half_bore, v_rb, r0,
+        c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0,
         tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns)
     return burnup_rate(on, x_e, x_b, s_l, lam, omega_deg)
 
 
 def entrainment_states(theta, p, V, dV, m, y_b, x_b, omega_deg, closed, x_e, K, k, spark, eff, phi, mk,
                        c_mk0, c_mk1, c_mk2, c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad,
-                       T_ivc, p_ivc, bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh,
+                       T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh,
                        nh, ns, c_beta):
     """Time derivatives of (x_e [1/s], K [W/kg], k [W/kg]) (the ``state_kernel``), see
     :func:`state_rates`."""
     on, s_l, u_eff, rho_u, a_f, lam, T_u = _flame_state(
         theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
-        c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, bore_area, half_bore, v_rb, r0,
+        c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0,
         tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns)
     return state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_l, m, V, dV, omega_deg, closed, bore_area,
                        half_bore, c_beta)

@@ -230,6 +230,8 @@ def why_not(batch, rhs) -> str | None:
         form = compiled_form(m[role])
         if form is None or form not in forms.get(role, {}):
             reasons.append(f"{role} model {m[role].name!r} has no compiled form")
+    if getattr(rhs, "zones", False):
+        reasons.append("the two-zone cylinder (simulation.zones: two) has no compiled form yet")
     if getattr(batch.gas, "_compiled_consts", None) is None:
         reasons.append("gas properties are not the built-in tables")
     for role, model, sv in rhs.sub_specs:

@@ -55,6 +55,7 @@ from typing import Any
 import numpy as np
 
 from ..loops.balance import burned_mass_rate, exhaust_inflow, first_law, port_buffer
+from ..loops import zones as _zones
 from ..errors import CyclesimError, PluginError, SolverError
 from ..loops.layout import CORE  # the state's names, declared once  # noqa: F401
 from ..loops.layout import CORE_ROWS as IDX  # noqa: F401
@@ -122,7 +123,10 @@ class _RHS:
         for role in ("burn", "heat_transfer", "blowby", "valve_flow", "boundary", "knock"):
             for sv in m[role].states():
                 self.sub_specs.append((role, m[role], sv))
-        self.names = CORE + tuple(f"{r}.{sv.name}" for r, _, sv in self.sub_specs)
+        # simulation.zones: two: the unburned and burned zones' own states (cyclesim.loops.zones)
+        self.zones = getattr(batch.simulation, "zones", "one") == "two"
+        self.zone_specs = [(_zones.ZONE_ROLE, None, sv) for sv in _zones.ZONE_STATES] if self.zones else []
+        self.names = CORE + tuple(f"{r}.{sv.name}" for r, _, sv in self.sub_specs + self.zone_specs)
         self.n = len(self.names)
         self.failed: list[Any] = [None] * self.B
         self.alive = np.ones(self.B, dtype=bool)
@@ -139,6 +143,11 @@ class _RHS:
         # is not stiff at the step, small against the trapped mass
         self._buf_scale = 1e-2 * batch.geometry.Vd * 1.1 * np.ones(self.B)
         self._dh298 = np.asarray(self.gas.h298_u - self.gas.h298_b, float) * np.ones(self.B)
+        if self.zones:
+            self.zone_tab = _zones.ZoneTables(self.gas)
+            self._zone_rows = [self.names.index(f"{_zones.ZONE_ROLE}.{sv.name}") for sv in _zones.ZONE_STATES]
+            self._T_wall_mean = sum(self.Tw) / 3.0
+            self._case = np.arange(self.B)
 
     def plenums(self, theta: float, sub):
         cache = self._plenum_cache
@@ -278,6 +287,14 @@ class _RHS:
         if burning is None:
             burning = (theta >= self.soc) & closed
             any_burn = bool(burning.any())
+        T_u = self._zeros
+        if self.zones:
+            # the two zones' pressure and temperatures from U, V and the zone states
+            m_bz, s_u = y[self._zone_rows[0]], y[self._zone_rows[1]]
+            p, T_u, T_b, y_u, active, _ = _zones.cylinder_zones(
+                self.gas, self.zone_tab, self._case, m, V, m * u, mb, m_bz, s_u, p, T, self.T_ivc, self.p_ivc,
+                closed)
+            h = np.where(active, u + p / rho, h)
         s = _new_state()
         s.theta = theta
         s.omega_deg = self.omega
@@ -290,6 +307,7 @@ class _RHS:
         s.m = m
         s.T = T
         s.p = p
+        s.T_u = T_u
         s.rho = rho
         s.R = R
         s.cv = mp.cv
@@ -386,6 +404,9 @@ class _RHS:
         mul(fbb, 1.0 - yb, out=out[IDX["mu_bb"]])
         for k, val in enumerate(subd):
             mul(val, dt, out=out[ncore + k])
+        if self.zones:
+            out[self._zone_rows] = _zones.zone_rates(closed, m, m_bz, y_u, T_u, T_b, self._T_wall_mean, dm_burn,
+                                                     fbb, dQ)
         if not math.isfinite(float(out.sum())):
             parts = [("burn", "burn rate", dxb), ("heat_transfer", "heat flow", Qw),
                      ("blowby", "mass flow", mbb), ("valve_flow", "intake mass flow", mi),
