@@ -287,14 +287,15 @@ def cylinder_zones(gas, tab: ZoneTables, case, m, V, U, m_b, m_bz, s_u, p1, T, T
     burned-gas mass [kg]; ``m_bz, s_u`` the zone states; ``p1, T`` the one-zone pressure [Pa] and
     mixture temperature [K]; ``closed`` where the valves are shut.  Outside the closed part both
     zone temperatures are the mixture's; once merged the burned zone's is the mixture's; before
-    the burn the unburned zone is the whole charge on its entropy.
+    the burn the unburned zone is the whole charge on its entropy; once merged both are the
+    mixture's (:func:`cyclesim.results.zone_trace.two_zone_columns` blanks the unburned zone there).
     """
     y_u = unburned_fraction_burned(m, m_b, m_bz)
     active, born = masks(closed, m, m_bz)
     p, T_u, T_b = solve(gas, tab, case, m, V, U, m_bz, y_u, s_u, p1, np.where(closed, T_ivc, T),
                         np.where(closed, p_ivc, p1), active, born)
     merged = closed & (m_bz >= X_MERGE * m)
-    T_u = np.where(closed, T_u, T)
+    T_u = np.where(closed & ~merged, T_u, T)
     T_b = np.where(born, T_b, np.where(merged | ~closed, T, np.nan))
     return p, T_u, T_b, y_u, active, born
 

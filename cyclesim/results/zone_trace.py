@@ -40,4 +40,21 @@ def two_zone_columns(batch, tr, d: dict) -> dict[str, np.ndarray]:
                                                     m_bz, s_u, p1, T, col(T_ivc), col(p_ivc), closed)
         ratio = p / p1
         dp = ratio * d["dp"] + p1 * np.gradient(ratio, th, axis=1)
-    return {"p": p, "dp": dp, "T_u": T_u, "T_b": T_b}
+    gone = closed & (m_bz >= zones.X_MERGE * m)      # merged: no unburned zone left
+    return {"p": p, "dp": dp, "T_u": np.where(gone, np.nan, T_u), "T_b": T_b}
+
+
+FIGURES = ("burned_zone_temperature_max_K", "burned_zone_temperature_max_deg")
+"""Summary figures of a two-zone run (NaN where no burned zone forms)."""
+
+
+def two_zone_figures(cols: dict) -> dict[str, np.ndarray]:
+    """Peak burned-zone temperature [K] and its crank angle [deg] from the output trace columns
+    (B, n); NaN where the burned zone never forms (a motored case)."""
+    Tb = np.asarray(cols["burned_temperature_K"], float)
+    th = np.broadcast_to(np.asarray(cols["crank_deg"], float), Tb.shape)
+    have = np.isfinite(Tb).any(axis=1)
+    k = np.argmax(np.where(np.isfinite(Tb), Tb, -np.inf), axis=1)
+    r = np.arange(Tb.shape[0])
+    return {"burned_zone_temperature_max_K": np.where(have, Tb[r, k], np.nan),
+            "burned_zone_temperature_max_deg": np.where(have, th[r, k], np.nan)}

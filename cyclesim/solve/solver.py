@@ -148,6 +148,8 @@ class _RHS:
             self._zone_rows = [self.names.index(f"{_zones.ZONE_ROLE}.{sv.name}") for sv in _zones.ZONE_STATES]
             self._T_wall_mean = sum(self.Tw) / 3.0
             self._case = np.arange(self.B)
+            # no flame where the fuel is cut: the charge stays one (unburned) zone
+            self._flame = ~(np.asarray(getattr(batch.operating, "fuel_cut", False), bool) * np.ones(self.B, bool))
 
     def plenums(self, theta: float, sub):
         cache = self._plenum_cache
@@ -405,8 +407,8 @@ class _RHS:
         for k, val in enumerate(subd):
             mul(val, dt, out=out[ncore + k])
         if self.zones:
-            out[self._zone_rows] = _zones.zone_rates(closed, m, m_bz, y_u, T_u, T_b, self._T_wall_mean, dm_burn,
-                                                     fbb, dQ)
+            out[self._zone_rows] = _zones.zone_rates(closed, m, m_bz, y_u, T_u, T_b, self._T_wall_mean,
+                                                     dm_burn * self._flame, fbb, dQ)
         if not math.isfinite(float(out.sum())):
             parts = [("burn", "burn rate", dxb), ("heat_transfer", "heat flow", Qw),
                      ("blowby", "mass flow", mbb), ("valve_flow", "intake mass flow", mi),
