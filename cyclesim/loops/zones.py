@@ -52,6 +52,12 @@ X_BIRTH = 1e-3
 X_MERGE = 0.999
 """Burned-zone mass fraction [-] above which the two zones merge into one."""
 
+OPEN_FADE_DEG = 5.0
+"""Crank angle [deg] over which the burned-zone mass fades while the valves are open."""
+
+X_BORN = 1e-12
+"""Burned-zone mass fraction [-] from which the zone exists."""
+
 ZONES = ("one", "two")
 """Values of ``simulation.zones``."""
 
@@ -167,7 +173,8 @@ class ZoneTables:
 
     def phi(self, T, y_u, case):
         """(phi [J/(kg K)], d phi/dT = cp/T [J/(kg K^2)]) of the unburned zone at ``T`` [K]."""
-        x = np.clip((T - self.T0) / self.dT, 0.0, self.n - 1 - 1e-9)
+        # fmax/fmin take NaN (no IVC state yet) into the table; the caller masks those points
+        x = np.fmin(np.fmax((T - self.T0) / self.dT, 0.0), self.n - 1 - 1e-9)
         i = x.astype(np.intp)
         t = x - i
         k = case * self.n + i
@@ -271,7 +278,7 @@ def solve(gas, tab: ZoneTables, case, m, V, U, m_bz, y_u, s_u, p1, T_ivc, p_ivc,
 def masks(closed, m, m_bz):
     """(active, born): where two zones are resolved, where the burned zone exists (bool arrays)."""
     x = m_bz / m
-    born = closed & (x > 0.0) & (x < X_MERGE)
+    born = closed & (x > X_BORN) & (x < X_MERGE)
     return born & (x >= X_BIRTH), born
 
 
@@ -292,8 +299,9 @@ def cylinder_zones(gas, tab: ZoneTables, case, m, V, U, m_b, m_bz, s_u, p1, T, T
     """
     y_u = unburned_fraction_burned(m, m_b, m_bz)
     active, born = masks(closed, m, m_bz)
-    p, T_u, T_b = solve(gas, tab, case, m, V, U, m_bz, y_u, s_u, p1, np.where(closed, T_ivc, T),
-                        np.where(closed, p_ivc, p1), active, born)
+    ref = closed & np.isfinite(T_ivc) & np.isfinite(p_ivc)   # no IVC state yet: the present one
+    p, T_u, T_b = solve(gas, tab, case, m, V, U, m_bz, y_u, s_u, p1, np.where(ref, T_ivc, T),
+                        np.where(ref, p_ivc, p1), active, born)
     merged = closed & (m_bz >= X_MERGE * m)
     T_u = np.where(closed & ~merged, T_u, T)
     T_b = np.where(born, T_b, np.where(merged | ~closed, T, np.nan))
@@ -307,6 +315,8 @@ def zone_rates(closed, m, m_bz, y_u, T_u, T_b, T_wall, dm_burn, fbb, dQ):
     x = m_bz / m
     share = unburned_heat_share(x, T_u, np.where(np.isfinite(T_b), T_b, T_u), T_wall)
     m_u = np.maximum(m - m_bz, 1e-300)
-    d_mbz = np.where(closed, dm_burn / (1.0 - y_u) - fbb * x, 0.0)
-    d_su = np.where(closed & (x < X_MERGE), -dQ * share / (m_u * T_u), 0.0)
+    # valves open: one zone; the zone states fade out (over OPEN_FADE_DEG) so that the step that
+    # crosses the next IVC, before they are reset there, sees no burned zone left
+    d_mbz = np.where(closed, dm_burn / (1.0 - y_u) - fbb * x, -m_bz / OPEN_FADE_DEG)
+    d_su = np.where(closed, np.where(x < X_MERGE, -dQ * share / (m_u * T_u), 0.0), 0.0)
     return d_mbz, d_su
