@@ -353,6 +353,12 @@ class BurnRate(Submodel):
         """Fraction of the charge's fuel energy that is released (B,) [-]."""
         return np.ones(self.B)
 
+    def burned_wall_share(self, s: "GasState", V_b: np.ndarray) -> np.ndarray | None:
+        """Share [-] (B,) of the chamber's wall area the burned zone wets at burned volume ``V_b``
+        [m^3], from the flame geometry of a burn that has one; None (the default): the two-zone
+        cylinder then takes x^(1/2) of the burned zone's mass fraction x."""
+        return None
+
     kernel: ClassVar[Any] = None
     """The burn rate as a plain function (one source for both loops), or None.
 

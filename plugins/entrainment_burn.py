@@ -359,6 +359,7 @@ class EntrainmentBurn(BurnRate):
         self.r0 = _arr(p.kernel_radius_mm, B) * 1e-3
         self._packed: dict | None = None
         self._last: tuple | None = None
+        self._wet: list | None = None
 
     # -- contract -----------------------------------------------------------
     def states(self):
@@ -395,6 +396,23 @@ class EntrainmentBurn(BurnRate):
 
     def combustion_efficiency(self) -> np.ndarray:
         return self.eff.copy()
+
+    def burned_wall_share(self, s, V_b):
+        """Share [-] (B,) of the chamber's wall (head, piston, liner) wetted by the spherical flame
+        that encloses ``V_b`` [m^3] at the present piston position (the flame tables of
+        :func:`fill_tables`, over their value for a flame that fills the chamber): the two-zone
+        cylinder's split of the wall heat."""
+        P = self.pack()
+        if self._wet is None:
+            self._wet = [np.concatenate([w[k].ravel() for w in self.tab_wet]) for k in range(3)]
+        h = (s.V - P["v_rb"]) / P["bore_area"]
+        fill = np.minimum(np.maximum(V_b, 0.0) / s.V, 1.0) ** (1.0 / 3.0)
+
+        def wetted(f):
+            return sum(table_lookup(t, P["tab_idx"], P["off"], h, f, P["h0"], P["inv_dh"], P["nh"], P["ns"])
+                       for t in self._wet)
+
+        return wetted(fill) / wetted(np.ones_like(fill))
 
     def _flame(self, s):
         """The shared flame quantities of this right-hand-side evaluation (computed once per GasState)."""

@@ -224,3 +224,33 @@ def test_mass_and_energy_close_over_operating_points(spark, lam, p_ivc, speed):
     assert np.all(np.isfinite(tr["pressure_bar"]))
     assert np.all(np.isfinite(tr["unburned_temperature_K"][x < zones.X_MERGE]))
     assert np.all(np.isfinite(tr["burned_temperature_K"][live]))
+
+
+def test_entrainment_flame_wets_the_walls_it_reaches():
+    # the burned zone's share of the wall from the entrainment burn's spherical flame centred at the plug
+    # (combustion.flame_geometry tables, whose wetted areas sum to the chamber's areas: checked in
+    # tests/test_flame_geometry.py): none at no burned volume, all of it when the flame fills the
+    # chamber, growing with the burned volume
+    from cyclesim.registry import get_registry
+    from cyclesim.roles import GasState
+    from cyclesim.solve.batch import build_batch
+
+    case = cyclesim.load_config("demo", ["burn.model=entrainment"])
+    batch = build_batch([case], get_registry())
+    burn, g = batch.models["burn"], batch.geometry
+    for theta in (-20.0, 0.0, 25.0):
+        V = np.atleast_1d(g.volume(theta)).astype(float)
+        s = GasState(V=V)
+        shares = [burn.burned_wall_share(s, f * V)[0] for f in np.linspace(0.0, 1.0, 11)]
+        assert shares[-1] == pytest.approx(1.0, abs=1e-9)
+        assert shares[0] == pytest.approx(0.0, abs=1e-3)
+        assert np.all(np.diff(shares) >= -1e-9)
+
+
+def test_entrainment_burn_runs_with_two_zones():
+    # the flame-geometry split of the wall heat in the running cycle: energy closes, zones finite
+    r = _run("demo_closed", TWO + ["burn.model=entrainment", "simulation.step_deg=1.0"])
+    assert abs(r.summary["energy_balance"]["closure_fraction"]) < 1e-4
+    x = r.trace["zones.m_bz"] / (r.trace["mass_mg"] * 1e-6)
+    live = (x > zones.X_BIRTH) & (x < zones.X_MERGE)
+    assert live.sum() > 20 and np.all(np.isfinite(r.trace["burned_temperature_K"][live]))

@@ -33,7 +33,9 @@ the zones merge (the mixture is then the burned gas).  Outside the closed part t
 one zone.
 
 Wall heat between the zones: in proportion to A_z (T_z - T_wall), the burned zone's share of the
-wall area ``x^(1/2)`` with x its mass fraction (the form of Ferguson's two-zone model, Ferguson &
+wall area from the burn's flame geometry where it has one (``BurnRate.burned_wall_share``: the
+``entrainment`` burn's spherical flame in the chamber, cyclesim/combustion/flame_geometry.py),
+else ``x^(1/2)`` with x its mass fraction (the form of Ferguson's two-zone model, Ferguson &
 Kirkpatrick 2015, ch. 4, from memory), :func:`unburned_heat_share`; the total is the heat-transfer
 model's, evaluated at the mixture temperature and the two-zone pressure.
 
@@ -77,11 +79,12 @@ _NEWTON_T = 4                      # passes on each zone temperature per pressur
 _TOL_T = 1e-11  # relative tolerance of the burned-gas temperature solves [-]
 
 
-def unburned_heat_share(x, T_u, T_b, T_wall):
+def unburned_heat_share(x, T_u, T_b, T_wall, area_b=None):
     """The unburned zone's share [-] of the wall heat: A_u (T_u - T_w) over the sum of both zones',
-    with A_b/A = x^(1/2), A_u/A = 1 - x^(1/2) (x the burned-zone mass fraction [-]); temperatures
-    [K].  1 where neither zone is hotter than the wall."""
-    a_b = np.sqrt(np.clip(x, 0.0, 1.0))
+    with A_b/A = ``area_b`` where given (the flame geometry's wetted share), else x^(1/2), and
+    A_u/A = 1 - A_b/A (x the burned-zone mass fraction [-]); temperatures [K].  1 where neither
+    zone is hotter than the wall."""
+    a_b = np.sqrt(np.clip(x, 0.0, 1.0)) if area_b is None else np.clip(area_b, 0.0, 1.0)
     wu = (1.0 - a_b) * np.maximum(T_u - T_wall, 0.0)
     wb = a_b * np.maximum(T_b - T_wall, 0.0)
     tot = wu + wb
@@ -308,12 +311,13 @@ def cylinder_zones(gas, tab: ZoneTables, case, m, V, U, m_b, m_bz, s_u, p1, T, T
     return p, T_u, T_b, y_u, active, born
 
 
-def zone_rates(closed, m, m_bz, y_u, T_u, T_b, T_wall, dm_burn, fbb, dQ):
+def zone_rates(closed, m, m_bz, y_u, T_u, T_b, T_wall, dm_burn, fbb, dQ, area_b=None):
     """Crank-angle rates of the zone states (:data:`ZONE_STATES`): (d m_bz [kg/deg], d s_u
     [J/(kg K deg)]) from the charge burned ``dm_burn`` [kg/deg], the blowby ``fbb`` [kg/deg] and
-    the wall heat ``dQ`` [J/deg] (its unburned share by :func:`unburned_heat_share`)."""
+    the wall heat ``dQ`` [J/deg] (its unburned share by :func:`unburned_heat_share`, with the
+    burned zone's share of the wall area ``area_b`` [-] where the burn's flame geometry gives it)."""
     x = m_bz / m
-    share = unburned_heat_share(x, T_u, np.where(np.isfinite(T_b), T_b, T_u), T_wall)
+    share = unburned_heat_share(x, T_u, np.where(np.isfinite(T_b), T_b, T_u), T_wall, area_b)
     m_u = np.maximum(m - m_bz, 1e-300)
     # valves open: one zone; the zone states fade out (over OPEN_FADE_DEG) so that the step that
     # crosses the next IVC, before they are reset there, sees no burned zone left

@@ -408,7 +408,8 @@ class _RHS:
             mul(val, dt, out=out[ncore + k])
         if self.zones:
             out[self._zone_rows] = _zones.zone_rates(closed, m, m_bz, y_u, T_u, T_b, self._T_wall_mean,
-                                                     dm_burn * self._flame, fbb, dQ)
+                                                     dm_burn * self._flame, fbb, dQ,
+                                                     self._burned_area(s, T_u, y_u, m_bz))
         if not math.isfinite(float(out.sum())):
             parts = [("burn", "burn rate", dxb), ("heat_transfer", "heat flow", Qw),
                      ("blowby", "mass flow", mbb), ("valve_flow", "intake mass flow", mi),
@@ -418,6 +419,17 @@ class _RHS:
         if not self.all_alive:
             out[:, ~self.alive] = 0.0
         return out
+
+    def _burned_area(self, s, T_u, y_u, m_bz):
+        """The burned zone's share [-] of the wall area where the burn's flame geometry gives it, else
+        None (:meth:`cyclesim.roles.BurnRate.burned_wall_share`)."""
+        V_b = s.V - (s.m - m_bz) * self.zone_tab.R_u(y_u, self._case) * T_u / s.p
+        try:
+            a = self.burn.burned_wall_share(s, V_b)
+        except Exception as exc:  # noqa: BLE001
+            raise PluginError(f"burn model {self.burn.name!r} raised {type(exc).__name__} in burned_wall_share():"
+                              f" {exc}") from exc
+        return None if a is None else self._shape(a, "burn", "burned wall share")
 
     def fun(self, theta: float, y: np.ndarray) -> np.ndarray:
         """dy/dtheta (n_state, B) at crank angle ``theta`` [deg], in the shape of scipy.integrate's
