@@ -125,6 +125,10 @@ def model_figures(batch, cols: dict, summary: Mapping | None = None) -> tuple[di
     """
     figs: dict = {}
     warn: list[list[str]] = [[] for _ in range(batch.B)]
+    if "burned_temperature_K" in cols:   # the two-zone cylinder's own figures
+        from .results.zone_trace import two_zone_figures
+
+        figs.update(two_zone_figures(cols))
     for role, model in batch.models.items():
         try:
             figs.update(model.figures(cols))

@@ -123,6 +123,11 @@ class GasState:
         True between intake valve closing and exhaust valve opening.
     p_ivc, T_ivc, V_ivc : ndarray
         State at the last intake valve closing [Pa, K, m^3] (Woschni's reference).
+    T_u : ndarray or float
+        The unburned zone's own temperature [K] where the cylinder runs two zones
+        (``simulation.zones: two``; the mixture temperature outside the closed part); 0 where it
+        runs one zone, and a model then takes the end gas on its own isentrope from IVC, as
+        ``livengood_wu`` and ``entrainment`` do (``where(T_u > 0, T_u, isentrope)``).
     T_wall_head, T_wall_piston, T_wall_liner : ndarray
         Wall temperatures [K].
     p_int, T_int, R_int, gamma_int, y_b_int : ndarray
@@ -140,7 +145,7 @@ class GasState:
     __slots__ = (
         "theta", "omega_deg", "V", "dV", "A_head", "A_piston", "A_liner", "Sp",
         "m", "T", "p", "rho", "R", "cv", "cp", "gamma", "y_b", "x_b",
-        "burning", "closed", "p_ivc", "T_ivc", "V_ivc",
+        "burning", "closed", "p_ivc", "T_ivc", "V_ivc", "T_u",
         "T_wall_head", "T_wall_piston", "T_wall_liner",
         "p_int", "T_int", "R_int", "gamma_int", "y_b_int",
         "p_exh", "T_exh", "R_exh", "gamma_exh",
@@ -149,6 +154,7 @@ class GasState:
     )
 
     def __init__(self, **kw: Any) -> None:
+        self.T_u = 0.0                      # one zone unless given
         for k, v in kw.items():
             setattr(self, k, v)
 
@@ -346,6 +352,12 @@ class BurnRate(Submodel):
     def combustion_efficiency(self) -> np.ndarray:
         """Fraction of the charge's fuel energy that is released (B,) [-]."""
         return np.ones(self.B)
+
+    def burned_wall_share(self, s: "GasState", V_b: np.ndarray) -> np.ndarray | None:
+        """Share [-] (B,) of the chamber's wall area the burned zone wets at burned volume ``V_b``
+        [m^3], from the flame geometry of a burn that has one; None (the default): the two-zone
+        cylinder then takes x^(1/2) of the burned zone's mass fraction x."""
+        return None
 
     kernel: ClassVar[Any] = None
     """The burn rate as a plain function (one source for both loops), or None.

@@ -122,6 +122,13 @@ class ZeldovichNO(Emissions):
         col = {k: np.asarray(trace[k], float)[:, idx] for k in
                ("volume_m3", "pressure_bar", "temperature_K", "mass_mg", "burned_gas_fraction",
                 "cumulative_wall_heat_J")}
+        if "zones.m_bz" in trace:   # a two-zone cylinder: its own zones
+            z = {k: np.asarray(trace[k], float)[:, idx] for k in
+                 ("zones.m_bz", "zones.s_u", "unburned_temperature_K", "burned_temperature_K")}
+            return bz.zones_from_trace(
+                self.ctx.gas, np.asarray(trace["crank_deg"], float)[0, idx], self.ctx.speed_rpm * np.ones(self.B),
+                col["volume_m3"], col["pressure_bar"] * 1e5, col["mass_mg"] * 1e-6, z["zones.m_bz"],
+                col["burned_gas_fraction"], z["unburned_temperature_K"], z["burned_temperature_K"], z["zones.s_u"])
         return bz.decompose_two_zone(
             self.ctx.gas, np.asarray(trace["crank_deg"], float)[0, idx], self.ctx.speed_rpm * np.ones(self.B),
             col["volume_m3"], col["pressure_bar"] * 1e5, col["temperature_K"], col["mass_mg"] * 1e-6,

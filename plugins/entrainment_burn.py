@@ -38,7 +38,8 @@ sphere of ``kernel_radius_mm`` (the breakdown and arc phases before it are not m
 Unburned charge: fresh charge compressed isentropically from its IVC state (cp of the fresh
 charge as a quadratic in T fitted at set-up; the same isentrope as the knock model's
 :func:`cyclesim_plugins.knock.isentropic_temperature`), so wall heat loss from the end gas is
-neglected.  The burned gas behind the front is taken at the unburned temperature plus the
+neglected; where the cylinder runs two zones (``simulation.zones: two``) the unburned zone's own
+temperature (the state field ``T_u``) instead.  The burned gas behind the front is taken at the unburned temperature plus the
 adiabatic temperature rise at constant pressure, ``T_b = T_u + (1 - f) dT_ad``, with ``dT_ad``
 from the tool's equilibrium tables at 700 K and 20 bar at set-up (common practice for a
 one-zone cylinder; a two-zone cylinder will supply its own burned-zone state).  The front
@@ -125,15 +126,17 @@ def table_lookup(flat, idx, off, h, s, h0, inv_dh, nh, ns):
 
 
 def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2,
-                 c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc,
+                 c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u,
                  bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns):
     """Shared quantities of the two kernels: (on, S_L, I_0 S_L, u'_eff, rho_u, A_f, lambda, T_u).
 
-    The front's fill s^3 = V_f / (V_f + V_u): V_f the volume of the entrained charge (burned and
-    not yet burned), V_u that of the charge not yet entrained, both from their masses at the
-    pressure, so the front reaches the last wall (s = 1, no front left) exactly when the whole
-    charge is entrained, whatever the error of the burned gas's estimated temperature."""
-    T_u = isentrope_temperature(T_ivc, p / p_ivc, cv0, cv1, cv2, R_u)
+    The unburned gas is the unburned zone's own ``T_u`` where two zones run (``T_u > 0``), else
+    the fresh charge on its isentrope from IVC.  The front's fill s^3 = V_f / (V_f + V_u): V_f the
+    volume of the entrained charge (burned and not yet burned), V_u that of the charge not yet
+    entrained, both from their masses at the pressure, so the front reaches the last wall (s = 1,
+    no front left) exactly when the whole charge is entrained, whatever the error of the burned
+    gas's estimated temperature."""
+    T_u = where(T_u > 0.0, T_u, isentrope_temperature(T_ivc, p / p_ivc, cv0, cv1, cv2, R_u))
     rho_u = p / (R_u * T_u)
     f = np.minimum(np.maximum(1.0 - (1.0 - y_b) / np.maximum(1.0 - eff * x_b, 1e-9), 0.0), 0.6)
     s_mk = metghalchi_keck(phi, T_u, p, f, c_mk0, c_mk1, c_mk2)
@@ -178,26 +181,26 @@ def state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_k, m, V, dV, omega_deg, clos
 
 
 def entrainment_rate(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1,
-                     c_mk2, c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc,
+                     c_mk2, c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u,
                      bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns):
     """Burn rate dx_b/dtheta [1/deg]: burn-up of the entrained eddies, (x_e - x_b) / tau_b, zero
     before the spark and from 360 deg (the burn ``kernel``)."""
     on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u = _flame_state(
         theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
-        c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, bore_area, half_bore, v_rb, r0,
+        c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0,
         tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns)
     return burnup_rate(on, x_e, x_b, s_l, s_k, lam, rho_u, a_f, m, omega_deg)
 
 
 def entrainment_states(theta, p, V, dV, m, y_b, x_b, omega_deg, closed, x_e, K, k, spark, eff, phi, mk,
                        c_mk0, c_mk1, c_mk2, c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad,
-                       T_ivc, p_ivc, bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh,
+                       T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh,
                        nh, ns, c_beta):
     """Time derivatives of (x_e [1/s], K [W/kg], k [W/kg]) (the ``state_kernel``), see
     :func:`state_rates`."""
     on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u = _flame_state(
         theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
-        c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, bore_area, half_bore, v_rb, r0,
+        c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0,
         tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns)
     return state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_k, m, V, dV, omega_deg, closed, bore_area,
                        half_bore, c_beta)
@@ -396,6 +399,7 @@ class EntrainmentBurn(BurnRate):
         self.r0 = _arr(p.kernel_radius_mm, B) * 1e-3
         self._packed: dict | None = None
         self._last: tuple | None = None
+        self._wet: list | None = None
 
     # -- contract -----------------------------------------------------------
     def states(self):
@@ -432,6 +436,23 @@ class EntrainmentBurn(BurnRate):
 
     def combustion_efficiency(self) -> np.ndarray:
         return self.eff.copy()
+
+    def burned_wall_share(self, s, V_b):
+        """Share [-] (B,) of the chamber's wall (head, piston, liner) wetted by the spherical flame
+        that encloses ``V_b`` [m^3] at the present piston position (the flame tables of
+        :func:`fill_tables`, over their value for a flame that fills the chamber): the two-zone
+        cylinder's split of the wall heat."""
+        P = self.pack()
+        if self._wet is None:
+            self._wet = [np.concatenate([w[k].ravel() for w in self.tab_wet]) for k in range(3)]
+        h = (s.V - P["v_rb"]) / P["bore_area"]
+        fill = np.minimum(np.maximum(V_b, 0.0) / s.V, 1.0) ** (1.0 / 3.0)
+
+        def wetted(f):
+            return sum(table_lookup(t, P["tab_idx"], P["off"], h, f, P["h0"], P["inv_dh"], P["nh"], P["ns"])
+                       for t in self._wet)
+
+        return wetted(fill) / wetted(np.ones_like(fill))
 
     def _flame(self, s):
         """The shared flame quantities of this right-hand-side evaluation (computed once per GasState)."""

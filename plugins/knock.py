@@ -132,11 +132,13 @@ def log_mean_of(T0, T1):
     return where(small, np.sqrt(T0 * T1), (T1 - T0) / where(small, 1.0, ln))
 
 
-def livengood_wu_rate(p, x_b, closed, T_ivc, p_ivc, gas, pre_ms, act, x_max, atm, p_exp):
+def livengood_wu_rate(p, x_b, closed, T_ivc, p_ivc, T_u, gas, pre_ms, act, x_max, atm, p_exp):
     """dI/dt [1/s] of the Livengood-Wu integral, ``1 / tau`` of the Douaud-Eyzat delay at the
-    cylinder pressure and the isentropic end-gas temperature, while the cylinder is closed and
-    ``x_b < x_max``: the state kernel of :class:`LivengoodWu` (``pre_ms`` = A (ON/100)^3.402 c [ms])."""
-    T_u = isentrope_temperature(gas, T_ivc, np.log(p / p_ivc), 4)
+    cylinder pressure and the end-gas temperature, while the cylinder is closed and
+    ``x_b < x_max``: the state kernel of :class:`LivengoodWu` (``pre_ms`` = A (ON/100)^3.402 c [ms]).
+    The end gas is the unburned zone's own ``T_u`` where two zones run (``T_u > 0``), else the
+    fresh charge on its isentrope from IVC."""
+    T_u = where(T_u > 0.0, T_u, isentrope_temperature(gas, T_ivc, np.log(p / p_ivc), 4))
     tau_ms = pre_ms * (p / atm) ** p_exp * np.exp(act / T_u)
     rate = 1e3 / tau_ms
     return where(closed & (x_b < x_max) & np.isfinite(rate), rate, 0.0)
@@ -197,7 +199,10 @@ class LivengoodWu(Knock):
     :func:`isentropic_temperature`).  This needs no extra state and cannot
     drift.  It neglects heat loss from the end gas (so T_u is an upper
     estimate, common practice for a single-zone knock check) and uses the
-    fresh-charge properties for the residual-diluted end gas.
+    fresh-charge properties for the residual-diluted end gas.  Where the
+    cylinder runs two zones (``simulation.zones: two``) the end gas is the
+    unburned zone's own temperature instead (the state field ``T_u``: its
+    entropy with its share of the wall heat, residual included).
 
     *Cut-off.*  The integral counts only while at least
     ``min_unburned_fraction`` (default 0.1) of the charge is unburned: once
@@ -273,8 +278,9 @@ class LivengoodWu(Knock):
                 "p_exp": DE_PRESSURE_EXPONENT}
 
     def end_gas_temperature(self, s: GasState) -> np.ndarray:
-        """End-gas temperature [K] (B,): fresh charge isentropic from the IVC state."""
-        return isentropic_temperature(self.ctx.gas, s.T_ivc, s.p / s.p_ivc)
+        """End-gas temperature [K] (B,): the unburned zone's where two zones run, else the fresh
+        charge isentropic from the IVC state."""
+        return where(np.asarray(s.T_u) > 0.0, s.T_u, isentropic_temperature(self.ctx.gas, s.T_ivc, s.p / s.p_ivc))
 
     # -- figures --------------------------------------------------------
     def _window(self, trace: Mapping[str, np.ndarray]):
@@ -298,6 +304,8 @@ class LivengoodWu(Knock):
         # end-gas temperature on the trace, same closed form as in the integration
         ratio = np.where(win, p / p_ivc[:, None], 1.0)
         Tu = isentropic_temperature(gas, np.broadcast_to(T_ivc[:, None], ratio.shape), ratio)
+        if "unburned_temperature_K" in trace:   # two zones: the unburned zone's own temperature
+            Tu = np.where(win, np.asarray(trace["unburned_temperature_K"], float), Tu)
         counting = win & (xb < self.x_max[:, None])
         Iw = np.where(win, I, -np.inf)
         out = {

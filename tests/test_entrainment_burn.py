@@ -156,7 +156,7 @@ def test_kernels_compile_and_agree_with_the_array_path():
     P = m.pack()
     state = {"theta": -5.0, "p": 25e5, "V": 6e-5, "dV": 5e-8, "m": 4.6e-4, "y_b": 0.06, "x_b": 0.2,
              "omega_deg": 18000.0, "closed": True, "x_e": 0.35, "K": 20.0, "k": 90.0, "T_ivc": 340.0,
-             "p_ivc": 0.95e5}
+             "p_ivc": 0.95e5, "T_u": 0.0}
     for fn in (EB.entrainment_rate, EB.entrainment_states):
         args = [P[a] if a in P else state[a] for a in kernel_args(fn)]
         arr = [np.atleast_1d(np.asarray(a, float)) if a is not P.get(n) or np.ndim(a) == 0 or np.size(a) == 1

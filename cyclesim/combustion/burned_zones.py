@@ -1,6 +1,7 @@
 """Unburned and burned zones, and burned-mass elements, from a finished one-zone cycle.
 
-Two steps, each replaceable (a two-zone cylinder gives :class:`ZoneHistory` directly):
+Two steps, each replaceable (a two-zone cylinder, ``simulation.zones: two``, gives its
+:class:`ZoneHistory` directly from its trace, :func:`zones_from_trace`):
 
 1. :func:`decompose_two_zone` splits the one-zone trace into an unburned and a burned zone at
    one pressure.  The unburned zone (fresh charge plus the residual and EGR it holds, frozen)
@@ -42,6 +43,8 @@ from __future__ import annotations
 from typing import NamedTuple
 
 import numpy as np
+
+from ..loops.zones import flame_temperature, solve_T_p as _solve_T_p  # noqa: F401 - re-exported
 
 X_RESOLVED = 0.02
 """Burned-zone mass fraction [-] below which the zone is its elements' own (see the notes)."""
@@ -113,38 +116,6 @@ def burned_state_p(gas, T, p, rho0=None):
     return rho, u, h, cp
 
 
-def _solve_T_p(gas, target, p, T0, enthalpy, lr0=None):
-    """Burned-gas state of enthalpy (or internal energy) ``target`` [J/kg] at ``p`` [Pa].
-
-    Newton on (T, ln rho) together, with the equation of state p = rho R(T, rho) T as the second
-    equation: one table look-up per iteration.  Returns ``(T, ln rho, u, h, dlnv_dlnp_s)``, the
-    last the isentropic d ln v / d ln p [-] there.
-    """
-    T = np.array(T0, dtype=float, copy=True)
-    lnp = np.log(p)
-    lr = lnp - np.log(290.0 * T) if lr0 is None else np.array(lr0, dtype=float, copy=True)
-    for _ in range(40):
-        u, u_T, u_lr, R, R_T, R_lr = gas.burned(T, np.exp(lr))
-        h = u + R * T
-        h_T, h_L = u_T + R + T * R_T, u_lr + T * R_lr
-        f1 = (h if enthalpy else u) - target
-        a11, a12 = (h_T, h_L) if enthalpy else (u_T, u_lr)
-        f2 = lr + np.log(R * T) - lnp
-        a21, a22 = R_T / R + 1.0 / T, 1.0 + R_lr / R
-        det = a11 * a22 - a12 * a21
-        dT = -(f1 * a22 - a12 * f2) / det
-        dL = -(a11 * f2 - a21 * f1) / det
-        if np.all(np.abs(dT) <= _TOL_T * T) and np.all(np.abs(dL) <= 1e-12):
-            break
-        T = np.clip(T + dT, 200.0, 6000.0)
-        lr = lr + dL
-    # isentrope (dh = v dp = R T d ln p): solve for dT, dL per unit d ln p
-    RT = R * T
-    c1, c2 = h_T - RT * a21, h_L - RT * a22
-    dL_s = 1.0 / (a22 - a21 * c2 / c1)
-    return T, lr, u, h, -dL_s
-
-
 def solve_T_hp(gas, h, p, T0):
     """Burned-gas temperature [K] of enthalpy ``h`` [J/kg] at ``p`` [Pa] (Newton from ``T0``)."""
     return _solve_T_p(gas, h, p, T0, True)[0]
@@ -165,11 +136,6 @@ def solve_T_urho(gas, u, rho, T0):
         if np.all(np.abs(dT) <= _TOL_T * T):
             break
     return T
-
-
-def flame_temperature(gas, h_u, p, T0=None):
-    """Constant-pressure adiabatic flame temperature [K] of unburned gas of enthalpy ``h_u``."""
-    return solve_T_hp(gas, h_u, p, np.full(np.shape(h_u), 2400.0) if T0 is None else T0)
 
 
 def _unburned(gas, T, p, y_u, R_u=None):
@@ -391,3 +357,29 @@ def burned_elements(gas, zones: ZoneHistory, count: int, T_wall) -> Elements:
         T_out[:, :, j] = np.where(have, Tk, np.nan)
         x_out[:, :, j] = xk
     return Elements(T_out, x_out, x_out > 0, Q)
+
+
+def zones_from_trace(gas, theta, speed_rpm, V, p, m, m_bz, y, T_u, T_b, s_u):
+    """:class:`ZoneHistory` of a two-zone run from its own trace columns (B, n): volume [m^3],
+    pressure [Pa], mass [kg], burned-zone mass [kg], burned-gas fraction of the cylinder [-], the
+    zone temperatures [K] and the unburned zone's entropy above IVC [J/(kg K)]; ``theta`` (n,)
+    [deg], from the start of the closed part or the burn.  The unburned zone's burned-gas fraction
+    is its value at the first point; its heat to the walls is ``-m_u T_u ds_u`` summed by the
+    trapezoidal rule; the burned zone's energy is given from :data:`X_RESOLVED` on, as in
+    :func:`decompose_two_zone`."""
+    B, n = p.shape
+    t = np.radians(theta)[None, :] / (2 * np.pi * np.asarray(speed_rpm, float)[:, None] / 60.0)
+    x = np.clip(m_bz / m, 0.0, 1.0)
+    m_u = m - m_bz
+    y_u = np.clip((y[:, 0] * m[:, 0] - m_bz[:, 0]) / m_u[:, 0], 0.0, 0.999)
+    yu = np.broadcast_to(y_u[:, None], (B, n))
+    u_u, h_u, R_u, _ = _unburned(gas, T_u, p, yu)
+    V_b = np.maximum(V - m_u * R_u * T_u / p, 1e-300)
+    resolved = np.isfinite(T_b) & (x >= X_RESOLVED)
+    T_bs = np.where(resolved, T_b, 2000.0)
+    u_b = gas.burned(T_bs, np.where(resolved, np.maximum(m_bz, 1e-300) / V_b, 1.0))[0]
+    U_b = np.where(resolved, m_bz * u_b, np.nan)
+    w = m_u * T_u
+    dQ = -0.5 * (w[:, 1:] + w[:, :-1]) * np.diff(s_u, axis=1)
+    Q_u = np.concatenate([np.zeros((B, 1)), np.cumsum(dQ, axis=1)], axis=1)
+    return ZoneHistory(theta, t, p, m, np.maximum.accumulate(x, axis=1), T_u, T_b, h_u, U_b, y_u, Q_u)

@@ -119,6 +119,9 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
           " start accelerated from the cycles before where plain repetition settles slowly) or plain"
           " (each cycle from the end of the one before)", kind="choice", choices=("anderson", "plain"),
           sweepable=False),
+        P("zones", "-", "one", "cylinder gas while the valves are shut: one zone (a mixture), or two (unburned"
+          " and burned zones at one pressure, each with its own temperature; runs on the numpy loop)",
+          kind="choice", choices=("one", "two"), sweepable=False),
     ),
 }
 """Core sections and their declared keys (the single source for validation and docs)."""

@@ -43,6 +43,7 @@ STATE_ARGS = {
     "T_wall_head": "CB[R_TW_HEAD, b]", "T_wall_piston": "CB[R_TW_PISTON, b]",
     "T_wall_liner": "CB[R_TW_LINER, b]",
     "p_ivc": "CB[R_IVC_P, b]", "T_ivc": "CB[R_IVC_T, b]", "V_ivc": "CB[R_IVC_V, b]",
+    "T_u": "0.0",   # one zone: the compiled loop runs the one-zone cylinder only
     "gas": "(uc4, b, gc[7])",
 }
 """What a kernel may take from the cylinder state, by the name of the GasState field [SI]; an

@@ -88,7 +88,12 @@ def plot_case(res, out: Path) -> list[Path]:
 
     if "temperature_K" in t:
         fig, ax = plt.subplots(figsize=(7.5, 4.2))
-        ax.plot(th, t["temperature_K"], color="tab:red", lw=1.4, label="mean gas temperature (one zone)")
+        ax.plot(th, t["temperature_K"], color="tab:red", lw=1.4,
+                label="mean gas temperature (" + ("mixture of the zones" if "burned_temperature_K" in t else "one zone")
+                + ")")
+        if "burned_temperature_K" in t:   # simulation.zones: two
+            ax.plot(th, t["burned_temperature_K"], color="tab:orange", lw=1.2, label="burned zone")
+            ax.plot(th, t["unburned_temperature_K"], color="tab:blue", lw=1.2, label="unburned zone (end gas)")
         if np.isfinite(s.get("exhaust_temperature_K", np.nan)):
             ax.axhline(s["exhaust_temperature_K"], color="tab:brown", lw=0.9, ls="--",
                        label=f"exhaust, enthalpy average at the valve {s['exhaust_temperature_K']:.0f} K")

@@ -44,7 +44,12 @@ def derived_trace(batch, tr: CycleTrace) -> dict[str, np.ndarray]:
     dy = (dmb - y * dm) / m
     dR = pr["R_T"] * dT + pr["R_lnrho"] * dlnrho + pr["R_y"] * dy
     dp = p * (dlnrho + dR / pr["R"] + dT / T)
-    return {"V": np.asarray(V), "dV": np.asarray(dV), "p": p, "dp": dp, "rho": rho, "y_b": y, **pr}
+    out = {"V": np.asarray(V), "dV": np.asarray(dV), "p": p, "dp": dp, "rho": rho, "y_b": y, **pr}
+    if getattr(batch.simulation, "zones", "one") == "two":
+        from .zone_trace import two_zone_columns
+
+        out.update(two_zone_columns(batch, tr, out))
+    return out
 
 
 def _grid_max(theta, Yr, lo, hi):
@@ -504,6 +509,9 @@ def output_trace(batch, tr: CycleTrace, d: dict, step: float | None) -> dict[str
         "mfb": at(Y[I["x_b"]], F[I["x_b"]]),
         "burned_gas_fraction": np.clip(mb / m, 0, 1),
     }
+    if "T_u" in d:   # two zones: their temperatures, linear between the solver's points
+        for key, col in (("T_u", "unburned_temperature_K"), ("T_b", "burned_temperature_K")):
+            cols[col] = d[key] if grid is th else np.stack([np.interp(grid, th, r) for r in d[key]])
     # rates: derivatives are per degree; interpolate linearly when resampling
     def rate(row):
         if grid is th:

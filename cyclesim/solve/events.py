@@ -222,7 +222,7 @@ def initial_sub(rhs, y: np.ndarray, which=None) -> None:
     """Give the submodel states their initial values (all, or where ``which`` (B,) holds those
     declared ``reset_at_ivc``)."""
     k = len(CORE)
-    for role, model, sv in rhs.sub_specs:
+    for role, model, sv in rhs.sub_specs + getattr(rhs, "zone_specs", []):
         if which is None or sv.reset_at_ivc:
             if isinstance(sv.initial, str):
                 src = {"T_ivc": y[1]}.get(sv.initial)

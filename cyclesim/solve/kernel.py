@@ -230,6 +230,8 @@ def why_not(batch, rhs) -> str | None:
         form = compiled_form(m[role])
         if form is None or form not in forms.get(role, {}):
             reasons.append(f"{role} model {m[role].name!r} has no compiled form")
+    if getattr(rhs, "zones", False):
+        reasons.append("the two-zone cylinder (simulation.zones: two) has no compiled form yet")
     if getattr(batch.gas, "_compiled_consts", None) is None:
         reasons.append("gas properties are not the built-in tables")
     for role, model, sv in rhs.sub_specs:
@@ -414,7 +416,8 @@ def loop_for(batch, rhs) -> tuple[object, str]:
     if reason is not None:
         if choice() == "compiled":
             raise ConfigError(f"{ENV}=compiled: {reason}")
-        if generated or any(type(m).__module__.split(".")[0] != "cyclesim_plugins" for m in batch.models.values()):
+        if generated or getattr(rhs, "zones", False) or any(type(m).__module__.split(".")[0] != "cyclesim_plugins"
+                                                            for m in batch.models.values()):
             # a plug-in of the user's: worth a word (a study's own built-in variants are not)
             _notice(reason, f"{reason}: this batch runs on the numpy loop ({FALLBACK_SLOWDOWN} than the"
                             " compiled loop of the built-in submodels)")

@@ -55,6 +55,7 @@ from typing import Any
 import numpy as np
 
 from ..loops.balance import burned_mass_rate, exhaust_inflow, first_law, port_buffer
+from ..loops import zones as _zones
 from ..errors import CyclesimError, PluginError, SolverError
 from ..loops.layout import CORE  # the state's names, declared once  # noqa: F401
 from ..loops.layout import CORE_ROWS as IDX  # noqa: F401
@@ -122,7 +123,10 @@ class _RHS:
         for role in ("burn", "heat_transfer", "blowby", "valve_flow", "boundary", "knock"):
             for sv in m[role].states():
                 self.sub_specs.append((role, m[role], sv))
-        self.names = CORE + tuple(f"{r}.{sv.name}" for r, _, sv in self.sub_specs)
+        # simulation.zones: two: the unburned and burned zones' own states (cyclesim.loops.zones)
+        self.zones = getattr(batch.simulation, "zones", "one") == "two"
+        self.zone_specs = [(_zones.ZONE_ROLE, None, sv) for sv in _zones.ZONE_STATES] if self.zones else []
+        self.names = CORE + tuple(f"{r}.{sv.name}" for r, _, sv in self.sub_specs + self.zone_specs)
         self.n = len(self.names)
         self.failed: list[Any] = [None] * self.B
         self.alive = np.ones(self.B, dtype=bool)
@@ -139,6 +143,13 @@ class _RHS:
         # is not stiff at the step, small against the trapped mass
         self._buf_scale = 1e-2 * batch.geometry.Vd * 1.1 * np.ones(self.B)
         self._dh298 = np.asarray(self.gas.h298_u - self.gas.h298_b, float) * np.ones(self.B)
+        if self.zones:
+            self.zone_tab = _zones.ZoneTables(self.gas)
+            self._zone_rows = [self.names.index(f"{_zones.ZONE_ROLE}.{sv.name}") for sv in _zones.ZONE_STATES]
+            self._T_wall_mean = sum(self.Tw) / 3.0
+            self._case = np.arange(self.B)
+            # no flame where the fuel is cut: the charge stays one (unburned) zone
+            self._flame = ~(np.asarray(getattr(batch.operating, "fuel_cut", False), bool) * np.ones(self.B, bool))
 
     def plenums(self, theta: float, sub):
         cache = self._plenum_cache
@@ -278,6 +289,14 @@ class _RHS:
         if burning is None:
             burning = (theta >= self.soc) & closed
             any_burn = bool(burning.any())
+        T_u = self._zeros
+        if self.zones:
+            # the two zones' pressure and temperatures from U, V and the zone states
+            m_bz, s_u = y[self._zone_rows[0]], y[self._zone_rows[1]]
+            p, T_u, T_b, y_u, active, _ = _zones.cylinder_zones(
+                self.gas, self.zone_tab, self._case, m, V, m * u, mb, m_bz, s_u, p, T, self.T_ivc, self.p_ivc,
+                closed)
+            h = np.where(active, u + p / rho, h)
         s = _new_state()
         s.theta = theta
         s.omega_deg = self.omega
@@ -290,6 +309,7 @@ class _RHS:
         s.m = m
         s.T = T
         s.p = p
+        s.T_u = T_u
         s.rho = rho
         s.R = R
         s.cv = mp.cv
@@ -386,6 +406,10 @@ class _RHS:
         mul(fbb, 1.0 - yb, out=out[IDX["mu_bb"]])
         for k, val in enumerate(subd):
             mul(val, dt, out=out[ncore + k])
+        if self.zones:
+            out[self._zone_rows] = _zones.zone_rates(closed, m, m_bz, y_u, T_u, T_b, self._T_wall_mean,
+                                                     dm_burn * self._flame, fbb, dQ,
+                                                     self._burned_area(s, T_u, y_u, m_bz))
         if not math.isfinite(float(out.sum())):
             parts = [("burn", "burn rate", dxb), ("heat_transfer", "heat flow", Qw),
                      ("blowby", "mass flow", mbb), ("valve_flow", "intake mass flow", mi),
@@ -395,6 +419,17 @@ class _RHS:
         if not self.all_alive:
             out[:, ~self.alive] = 0.0
         return out
+
+    def _burned_area(self, s, T_u, y_u, m_bz):
+        """The burned zone's share [-] of the wall area where the burn's flame geometry gives it, else
+        None (:meth:`cyclesim.roles.BurnRate.burned_wall_share`)."""
+        V_b = s.V - (s.m - m_bz) * self.zone_tab.R_u(y_u, self._case) * T_u / s.p
+        try:
+            a = self.burn.burned_wall_share(s, V_b)
+        except Exception as exc:  # noqa: BLE001
+            raise PluginError(f"burn model {self.burn.name!r} raised {type(exc).__name__} in burned_wall_share():"
+                              f" {exc}") from exc
+        return None if a is None else self._shape(a, "burn", "burned wall share")
 
     def fun(self, theta: float, y: np.ndarray) -> np.ndarray:
         """dy/dtheta (n_state, B) at crank angle ``theta`` [deg], in the shape of scipy.integrate's
