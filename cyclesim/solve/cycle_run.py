@@ -50,6 +50,8 @@ class CycleRunner:
         why = events.why_not_compiled()
         if self.coupling is not None:
             self.compiled, self.loop = None, "numpy (runners are advanced between the crank steps)"
+        elif not getattr(rhs, "port_buffer", True):
+            self.compiled, self.loop = None, "numpy (port buffer off)"
         elif why is None:
             self.compiled, self.loop = kernel.prepare(batch, rhs, pts)
         else:

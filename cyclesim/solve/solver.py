@@ -54,7 +54,7 @@ from typing import Any
 
 import numpy as np
 
-from ..loops.balance import burned_mass_rate, exhaust_inflow, first_law, port_buffer
+from ..loops.balance import burned_mass_rate, exhaust_inflow, first_law, plenum_inflow, port_buffer
 from ..errors import ConfigError, CyclesimError, PluginError, SolverError
 from ..loops.layout import CORE  # the state's names, declared once  # noqa: F401
 from ..loops.layout import CORE_ROWS as IDX  # noqa: F401
@@ -93,6 +93,10 @@ def raised_at(exc: BaseException, model=None) -> str:
 
 class _RHS:
     """Right-hand side for one batch; the hot loop of the whole program."""
+
+    port_buffer = True
+    """False: the intake side draws from the plenum without the port buffer (numpy loop only; a
+    reference for the runners' checks)."""
 
     def __init__(self, batch, mode: str):
         self.b = batch
@@ -375,6 +379,9 @@ class _RHS:
             if ext is not None and ext.has_int:
                 # a runner's step: its gas, no port buffer (the runner holds the backflow)
                 yin_i, hin_i = ext.y_int, ext.h_int
+                mul(fi, 1.0 - yin_i, out=out[IDX["mu_int"]])
+            elif mi.any() and not self.port_buffer:
+                yin_i, hin_i = plenum_inflow(fi, y_i, h_i, yb, h)
                 mul(fi, 1.0 - yin_i, out=out[IDX["mu_int"]])
             elif mi.any():
                 # the intake-port buffer of backflowed gas returns first (cyclesim.loops.balance.port_buffer)

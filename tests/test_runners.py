@@ -1,0 +1,142 @@
+"""Intake and exhaust runners solved in one dimension inside the cycle (cyclesim.pipes.runners).
+
+Checks:
+- config: intake.runner / exhaust.runner validated (none by default), one-line errors;
+- conservation: the mass, enthalpy and burned mass the cylinder books through each valve over a
+  cycle equal the sums of the pipe's boundary fluxes at the valve to 1e-10 (the coupling's
+  contract, cyclesim.solve.coupling; a first-law identity, Heywood 1988 sec. 14.4, eq. 14.32);
+- a case gives the same result alone and in a batch (each case's CFL sub-steps are its own;
+  architecture: batch first);
+- very short runners (4 cells, no entry loss, port buffer off on both sides) give the plenum
+  result within 0.5 % in volumetric efficiency: a pipe much shorter than the wavelength
+  (f L / c << 1) is a lumped connection at the plenum's state (Heywood 1988 sec. 7.6: the
+  intake's wave action scales with L / c; from memory);
+- with runners the settled state is periodic (the runners' mass, energy and valve-end pressure
+  at the reported cycle's start repeat at its end within the tolerance);
+- tuning (slow): the speed of the volumetric-efficiency peak falls with the intake runner's length
+  as L^-1 within +-0.2, the organ-pipe estimate stated in advance: the tuned speed is where a
+  fixed number of wave round trips 2 L / c fits the intake event, N_t ~ c / L (Heywood 1988
+  sec. 7.6, Winterbone & Pearson 1999 ch. 6; from memory).
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+import cyclesim
+from cyclesim.errors import ConfigError
+from cyclesim.registry import get_registry
+from cyclesim.solve.batch import build_batch
+from cyclesim.solve.solver import integrate
+
+RUN = ["intake.runner.length_mm=300", "intake.runner.diameter_mm=38", "exhaust.runner.length_mm=400",
+       "exhaust.runner.diameter_mm=34"]
+
+
+def _case(over=(), speed=None):
+    ov = list(RUN) + list(over)
+    if speed is not None:
+        ov.append(f"operating.speed_rpm={speed}")
+    return cyclesim.load_config("demo", ov)
+
+
+def _integrate(cases, **kw):
+    batch = build_batch(cases, get_registry(()))
+    return batch, integrate(batch, **kw)
+
+
+# -- config ---------------------------------------------------------------------------------------
+def test_runner_keys_default_none_and_validated():
+    c = cyclesim.load_config("demo")
+    assert c.runners == {"intake": None, "exhaust": None}
+    c = cyclesim.load_config("demo", ["intake.runner.length_mm=250", "intake.runner.cell_mm=10"])
+    assert c.runners["intake"].n_cells == 25 and c.runners["exhaust"] is None
+    assert cyclesim.load_config("demo", ["intake.runner=none"]).runners["intake"] is None
+    with pytest.raises(ConfigError, match="intake.runner.length_mm"):
+        cyclesim.load_config("demo", ["intake.runner.diameter_mm=30"])
+    with pytest.raises(ConfigError, match="intake.runner.lenght_mm: unknown key"):
+        cyclesim.load_config("demo", ["intake.runner.lenght_mm=30"])
+    with pytest.raises(ConfigError, match="exhaust.runner.cells"):
+        cyclesim.load_config("demo", ["exhaust.runner.length_mm=300", "exhaust.runner.cells=2"])
+
+
+def test_cli_error_is_one_line():
+    r = subprocess.run([sys.executable, "-m", "cyclesim", "run", "demo", "--set", "intake.runner.length_mm=-5"],
+                       capture_output=True, text=True)
+    assert r.returncode == 2
+    assert "Traceback" not in r.stderr and len(r.stderr.strip().splitlines()) == 1
+
+
+# -- conservation, batch independence ---------------------------------------------------------------
+def test_valve_flows_equal_the_pipe_fluxes_per_cycle():
+    batch, tr = _integrate([_case()], cycles=2)
+    rec = tr.runners
+    I = {n: i for i, n in enumerate(tr.names)}
+    f = rec["flows"]
+    for j, side in enumerate(rec["sides"]):
+        key = "int" if side == "intake" else "exh"
+        m_cyl = tr.Y[I[f"m_{key}"], 0, -1]
+        H_cyl = tr.Y[I[f"H_{key}"], 0, -1]
+        mu_cyl = tr.Y[I[f"mu_{key}"], 0, -1]
+        m_pipe, H_pipe, mb_pipe = f["mass_kg"][0, j], f["enthalpy_J"][0, j], f["burned_mass_kg"][0, j]
+        scale = abs(tr.Y[0, 0, 0])              # the cylinder's mass at the cycle's start
+        assert abs(m_cyl - m_pipe) < 1e-10 * scale
+        assert abs(mu_cyl - (m_pipe - mb_pipe)) < 1e-10 * scale
+        assert abs(H_cyl - H_pipe) < 1e-10 * scale * 3e6      # J: mass scale times ~3 MJ/kg
+    assert abs(f["mass_kg"][0, 0]) > 1e-4                    # the intake did carry the charge
+
+
+def test_case_alone_equals_case_in_batch():
+    a, b = _case(speed=3000), _case(["intake.runner.length_mm=450"], speed=4500)
+    _, alone = _integrate([b], cycles=2)
+    _, both = _integrate([a, b], cycles=2)
+    np.testing.assert_array_equal(alone.Y[:, 0], both.Y[:, 1])
+    np.testing.assert_array_equal(alone.runners["p_valve"][0], both.runners["p_valve"][1])
+
+
+def test_trace_columns_and_summary():
+    c = _case(["simulation.max_cycles=3"])
+    res = cyclesim.simulate([c])[0]
+    assert res.error is None
+    t, s = res.trace, res.summary
+    for side in ("intake", "exhaust"):
+        for what in ("valve", "mid"):
+            col = np.asarray(t[f"{side}_runner_{what}_pressure_bar"])
+            assert col.shape == np.asarray(t["crank_deg"]).shape and np.all(col > 0.3) and np.all(col < 5)
+        assert f"{side}_runner_mass_change_mg" in s
+    # the intake runner's pressure swings about its plenum's (a wave), the exhaust's exceeds it at EVO
+    p_int = np.asarray(t["intake_runner_valve_pressure_bar"])
+    assert p_int.max() - p_int.min() > 0.05
+    eb = s["runner_energy_balance"]
+    assert set(eb) == {"far_end_energy_in_J", "energy_to_cylinder_J", "stored_energy_change_J", "wall_heat_J"}
+
+
+# -- against the plenum -----------------------------------------------------------------------------
+@pytest.mark.slow
+def test_very_short_runners_match_the_plenum(monkeypatch):
+    import cyclesim.solve.solver as solver
+
+    monkeypatch.setattr(solver._RHS, "port_buffer", False)
+    short = ["intake.runner.length_mm=8", "intake.runner.diameter_mm=70", "intake.runner.cells=4",
+             "exhaust.runner.length_mm=8", "exhaust.runner.diameter_mm=70", "exhaust.runner.cells=4",
+             "simulation.max_cycles=12"]
+    plenum = cyclesim.simulate([cyclesim.load_config("demo", ["simulation.max_cycles=12"])])[0].summary
+    pipe = cyclesim.simulate([cyclesim.load_config("demo", short)])[0].summary
+    ve0, ve1 = plenum["volumetric_efficiency"], pipe["volumetric_efficiency"]
+    assert abs(ve1 - ve0) / ve0 < 5e-3, (ve0, ve1)
+
+
+@pytest.mark.slow
+def test_settled_state_is_periodic_with_runners():
+    c = cyclesim.load_config("demo_runners")
+    batch, tr = _integrate([c])
+    assert tr.converged[0]
+    rec = tr.runners
+    tol = c.simulation.tolerance
+    start, end = rec["start"], rec["end"]
+    assert np.all(np.abs(end["mass_kg"] - start["mass_kg"]) / end["mass_kg"] < tol)
+    assert np.all(np.abs(end["valve_pressure_pa"] - start["valve_pressure_pa"]) / end["valve_pressure_pa"] < tol)
