@@ -5,7 +5,8 @@ From the reported cycle's runner record (``CycleTrace.runners``, per case):
 - trace columns ``{side}_runner_valve_pressure_bar`` (at the runner's valve end) and
   ``{side}_runner_mid_pressure_bar`` (its middle cell), on the output grid;
 - figures ``{side}_runner_mass_change_mg`` and ``{side}_runner_energy_change_J`` over the reported
-  cycle (zero at a periodic state), and ``runner_energy_balance``: the energy that came in through
+  cycle (zero at a periodic state), ``{side}_runner_mean_mass_change`` (of the cycle-mean mass
+  against the cycle before, relative), ``{side}_runner_mean_valve_pressure_bar``, and ``runner_energy_balance``: the energy that came in through
   the runners' far ends, what they passed to the cylinder, their stored-energy change and, as the
   closing term, the heat their walls took (the pipe scheme conserves energy but for its wall heat).
 """
@@ -35,6 +36,11 @@ def runner_figures(tr) -> dict:
                                     "stored_energy_change_J": stored,
                                     "wall_heat_J": e_in - to_cyl - stored}
     out["runner_settle_change"] = rec["change"].copy()
+    cm, cb = rec["cycle_mean"], rec["cycle_mean_before"]
+    for j, side in enumerate(rec["sides"]):
+        m = np.abs(cm["mass_kg"][:, j])
+        out[f"{side}_runner_mean_mass_change"] = np.abs(cm["mass_kg"][:, j] - cb["mass_kg"][:, j]) / m
+        out[f"{side}_runner_mean_valve_pressure_bar"] = cm["valve_pressure_pa"][:, j] / 1e5
     return out
 
 

@@ -255,8 +255,8 @@ class Settling:
                 self.change_before, self.change = self.change, np.maximum(d_imep, d_m)
             rec = self.runner.pipe_record if self.runner is not None else None
             if rec is not None:
-                # the runners' state at the cycle's start repeats at its end (mass, energy and
-                # valve-end pressure, cyclesim.pipes.runners.RunnerSet.settle_change)
+                # the runners' cycle-mean valve-end pressures repeat
+                # (cyclesim.pipes.runners.RunnerSet.settle_change)
                 self.pipe_ok = rec["change"] < self.tol
                 passed &= self.pipe_ok
                 self.change = np.maximum(self.change, rec["change"])

@@ -74,6 +74,10 @@ class RunnerCoupling:
         self._q_mid = np.zeros((len(self.sides), B, 4, N + 1))
         self._t_mid = np.zeros((len(self.sides), B, N + 1))
         self.N = N
+        self.theta = pts.theta
+        self.prev_mean = None      # the cycle before's means (RunnerSet.settle_change)
+        self._m_pts = np.zeros_like(self.p_valve)
+        self._e_pts = np.zeros_like(self.p_valve)
 
     def start_cycle(self) -> None:
         self.runners.start_cycle()
@@ -86,6 +90,8 @@ class RunnerCoupling:
             self._q_mid[j, :, :, i] = pipe.Q[:, :, c]
             self._t_mid[j, :, i] = pipe.T_cell[:, c]
             self.p_valve[:, j, i] = pipe.p_end[:, 0]
+            self._m_pts[:, j, i] = pipe.Q[:, 0].sum(axis=1)
+            self._e_pts[:, j, i] = pipe.Q[:, 2].sum(axis=1)
 
     def step(self, i: int, y: np.ndarray, V: np.ndarray, h_deg: float) -> None:
         """Advance the runners over step ``i`` (``h_deg`` [deg]) from the cylinder state ``y``
@@ -116,7 +122,15 @@ class RunnerCoupling:
         end = r.contents()
         end_state = {"mass_kg": end["mass_kg"], "energy_J": end["energy_J"],
                      "valve_pressure_pa": r.valve_pressure()}
+        span = self.theta[-1] - self.theta[0]
+        mean = {key: np.trapezoid(a, x=self.theta, axis=2) / span for key, a in
+                (("mass_kg", self._m_pts), ("energy_J", self._e_pts), ("valve_pressure_pa", self.p_valve))}
+        change = r.settle_change(self.prev_mean, mean)
+        prev = mean if self.prev_mean is None else self.prev_mean
+        self.prev_mean = mean
         return {"sides": self.sides, "p_valve": self.p_valve.copy(), "p_mid": self.p_mid.copy(),
                 "flows": {k: v.copy() for k, v in r.cycle_flows.items()},
-                "start": r.cycle_start, "end": end_state,
-                "change": r.settle_change(r.cycle_start, end_state)}
+                "start": r.cycle_start, "end": end_state, "cycle_mean": mean, "cycle_mean_before": prev,
+                "change": change,
+                "substeps_total": np.stack([p.steps_taken for p in r.system.runners], axis=1).astype(float),
+                "cells": np.array([p.N for p in r.system.runners], dtype=float)}
