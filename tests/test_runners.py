@@ -151,3 +151,14 @@ def test_settled_state_is_periodic_with_runners():
     from cyclesim.pipes.runners import mean_changes
 
     assert np.all(mean_changes(rec["cycle_mean_before"], rec["cycle_mean"])["mass"] < 0.05)
+
+
+def test_sweep_accepts_runner_keys_and_refuses_unknown_ones(tmp_path):
+    from cyclesim.studies.sweep import _check_key
+
+    base = cyclesim.load_config("demo_runners")
+    _check_key(base, "intake.runner.length_mm", {"intake.runner.length_mm": [250.0, 400.0]})
+    with pytest.raises(ConfigError, match="unknown key"):
+        _check_key(base, "intake.runner.lenght_mm", {"intake.runner.lenght_mm": [250.0]})
+    with pytest.raises(ConfigError):
+        _check_key(base, "intake.runner.cells", {"intake.runner.cells": [10.5]})
