@@ -29,7 +29,11 @@ def _speeds(text: str) -> list[float]:
     return list(np.arange(a, b + 0.5 * c, c))
 
 
-def sweep(lengths_mm, speeds, extra=()):
+SETTLE = ("simulation.tolerance=0.003", "simulation.max_cycles=15")
+"""Settling of every point here: demo_runners' tolerance (the runners settle to a few 0.1 %)."""
+
+
+def sweep(lengths_mm, speeds, extra=SETTLE):
     """{label: (VE (n,), torque (n,))} over ``speeds`` for the plenum and each intake length."""
     import cyclesim
 
@@ -78,17 +82,18 @@ def speed_point(speed_rpm: float) -> dict:
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--lengths", default="250,400,650")
-    ap.add_argument("--speeds", default="2000:7000:500")
-    ap.add_argument("--quick", action="store_true", help="fewer speeds (2500:6500:1000), no speed points")
+    ap.add_argument("--lengths", default="350,500,700")
+    ap.add_argument("--speeds", default="3000:7000:500")
+    ap.add_argument("--quick", action="store_true", help="fewer speeds (3000:7000:1000), no speed points")
     a = ap.parse_args(argv)
     lengths = [float(x) for x in a.lengths.split(",")]
-    speeds = _speeds("2500:6500:1000" if a.quick else a.speeds)
+    speeds = _speeds("3000:7000:1000" if a.quick else a.speeds)
     t0 = time.perf_counter()
     res = sweep(lengths, speeds)
     import cyclesim
 
-    both = cyclesim.simulate([cyclesim.load_config("demo_runners", [f"operating.speed_rpm={n:g}"]) for n in speeds])
+    both = cyclesim.simulate([cyclesim.load_config("demo_runners", list(SETTLE) + [f"operating.speed_rpm={n:g}"])
+                              for n in speeds])
     res["demo_runners"] = (np.array([r.summary["volumetric_efficiency"] for r in both]),
                            np.array([r.summary["torque_Nm"] for r in both]),
                            np.array([r.summary["cycles_to_converge"] for r in both]))
