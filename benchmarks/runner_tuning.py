@@ -1,7 +1,7 @@
 """Runners solved in one dimension: volumetric efficiency and torque against speed, the tuned speed
 against the intake runner's length, and the speed of a run.
 
-    python benchmarks/runner_tuning.py [--lengths 250,400,600] [--speeds 1500:7000:500] [--quick]
+    python benchmarks/runner_tuning.py [--lengths 350,500,700] [--speeds 3000:7000:500] [--quick]
 
 Prints, on the demo engine (one cylinder; exhaust on its plenum so that the intake's tuning shows):
 
