@@ -241,18 +241,20 @@ def _gas_exchange_warnings(s: dict) -> list[str]:
             out.append(f"{POLYTROPIC_NULL_WARNING} for {w}: the volume hardly changes over its window"
                        f" ({a:g}..{b:g} deg, clipped to IVC..EVO), or the window holds less than 5 deg")
     m = s.get("trapped_mass_mg")
-    if m and s.get("intake_backflow_mass_mg", 0.0) > 0.25 * m:
+    # a side with a runner (cyclesim.pipes.runners) carries its backflow itself
+    run_i, run_e = "intake_runner_mass_change_mg" in s, "exhaust_runner_mass_change_mg" in s
+    if m and not run_i and s.get("intake_backflow_mass_mg", 0.0) > 0.25 * m:
         out.append(
             f"intake backflow {s['intake_backflow_mass_mg']:.1f} mg ({100 * s['intake_backflow_mass_mg'] / m:.0f} % of"
             f" trapped mass): it is held unmixed in the port and returns first; mixing with the port"
             f" and runner is not modelled (approximate)"
         )
-    if m and s.get("exhaust_backflow_mass_mg", 0.0) > 0.05 * m:
+    if m and not run_e and s.get("exhaust_backflow_mass_mg", 0.0) > 0.05 * m:
         out.append(
             f"exhaust backflow {s['exhaust_backflow_mass_mg']:.1f} mg into the cylinder: it enters at the exhaust"
             f" plenum's temperature as burned gas (approximate)"
         )
-    if s.get("exhaust_choked_deg", 0.0) > 90.0:
+    if not run_e and s.get("exhaust_choked_deg", 0.0) > 90.0:
         out.append(
             f"exhaust flow choked for {s['exhaust_choked_deg']:.0f} deg: quasi-steady orifice flow is approximate"
             f" in a strong unsteady blowdown"

@@ -127,9 +127,11 @@ def _print_params(params, indent: str) -> None:
 def cmd_keys(args) -> int:
     """``cyclesim keys [SECTION]``: the core config sections' keys with unit, default, range, meaning."""
     from ..config import CORE_SCHEMA, MULTI_SCHEMA
+    from ..config.runners import RUNNER_SCHEMA
     from ..params import suggestion
 
-    sections = {**CORE_SCHEMA, "multi_cylinder": MULTI_SCHEMA}
+    sections = {**CORE_SCHEMA, "multi_cylinder": MULTI_SCHEMA, "intake.runner": RUNNER_SCHEMA,
+                "exhaust.runner": RUNNER_SCHEMA}
     if args.section and args.section not in sections:
         raise CyclesimError(f"keys {args.section!r}: unknown section" + suggestion(args.section, sections)
                             + f"; sections: {', '.join(sections)} (submodel sections: cyclesim plugins ROLE)")

@@ -187,7 +187,7 @@ DEFAULT_MODELS = {
     "emissions": "none",
 }
 META_KEYS = ("name", "description", "extends", "plugins")
-OPTIONAL_SECTIONS = ("multi_cylinder",)
+OPTIONAL_SECTIONS = ("multi_cylinder", "intake", "exhaust")
 TOP_KEYS = tuple(CORE_SCHEMA) + OPTIONAL_SECTIONS + ROLES + META_KEYS
 
 
@@ -241,6 +241,8 @@ class Case:
     base_dir: Path = field(default_factory=Path.cwd)
     multi_cylinder: SimpleNamespace | None = None
     chamber: ChamberShape = field(default_factory=ChamberShape)
+    runners: dict = field(default_factory=lambda: {"intake": None, "exhaust": None})
+    """``intake.runner`` and ``exhaust.runner`` (:mod:`cyclesim.config.runners`): None for the plenum."""
 
     def section(self, name: str) -> SimpleNamespace:
         return getattr(self, name)
@@ -614,6 +616,9 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None, _owned
         multi = _copy_ns(prev.multi_cylinder)
     else:
         multi = SimpleNamespace(**validate_section(raw.get("multi_cylinder"), MULTI_SCHEMA, "multi_cylinder"))
+    from .runners import validate_runners
+
+    runners = validate_runners(raw)
     case = Case(
         name=str(raw.get("name") or "case"),
         submodels=subs,
@@ -622,6 +627,7 @@ def build_case(raw: Mapping, base_dir: Path | None = None, registry=None, _owned
         base_dir=bdir,
         multi_cylinder=multi,
         chamber=chamber,
+        runners=runners,
         **sections,
     )
     _check_cross(case)
@@ -723,6 +729,11 @@ def flat_inputs(case: Case) -> dict[str, Any]:
             out[f"{sec}.{k}"] = v
     for k, v in vars(case.chamber).items():
         out[f"engine.chamber.{k}"] = v
+    for side, ns in case.runners.items():
+        if ns is None:
+            out[f"{side}.runner"] = "none"
+        else:
+            out.update({f"{side}.runner.{k}": v for k, v in vars(ns).items()})
     for role, ch in case.submodels.items():
         out[f"{role}.model"] = ch.model
         for k, v in ch.params.items():

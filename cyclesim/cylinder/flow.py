@@ -171,3 +171,15 @@ def outflow(cd_area, p0, T0, R0, g0, pd, dp_lin):
     psi = isentropic_flux(1.0 - np.maximum(x, dp_lin), g0)
     psi = psi * np.minimum(x * (1.0 / dp_lin), 1.0)
     return cd_area * p0 / np.sqrt(R0 * T0) * psi
+
+
+def turbine_outlet_temperature(T3, expansion_ratio, eta_t, gamma):
+    """Turbine outlet temperature T4 [K] and its isentropic value T4s [K].
+
+    ``T4s = T3 (p4/p3)^((g-1)/g)`` with ``expansion_ratio = p3/p4``, and
+    ``T4 = T3 - eta_t (T3 - T4s)`` (eta_t = (T3 - T4)/(T3 - T4s)).
+    """
+    g = np.asarray(gamma, float)
+    T3 = np.asarray(T3, float)
+    T4s = T3 * np.asarray(expansion_ratio, float) ** (-(g - 1) / g)
+    return T3 - eta_t * (T3 - T4s), T4s

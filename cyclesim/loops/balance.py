@@ -46,6 +46,14 @@ def port_buffer(fi, m_buf, mb_buf, H_buf, buf_scale, y_plenum, h_plenum, y_b, h)
     return y_in, h_in, -where(inn, wfi, fi), -where(inn, wfi * yq, fi * y_b), -where(inn, wfi * hq, fi * h)
 
 
+def plenum_inflow(fi, y_plenum, h_plenum, y_b, h):
+    """The intake side without the port buffer: burned fraction [-] and enthalpy [J/kg] of the
+    gas the intake brings in, the plenum's for inflow (``fi > 0``), the cylinder's own for
+    backflow (which leaves the model: the plenum takes it at its fixed state)."""
+    inn = fi > 0
+    return where(inn, y_plenum, y_b), where(inn, h_plenum, h)
+
+
 def exhaust_inflow(fe, h_exh, y_b, h):
     """Burned fraction [-] and enthalpy [J/kg] of the gas the exhaust valves bring in: the exhaust
     plenum's burned gas for inflow (``fe > 0``), the cylinder's own gas for outflow."""

@@ -1,6 +1,7 @@
 """Quasi-one-dimensional unsteady compressible flow in pipes (intake and exhaust runners).
 
-Standalone: not yet coupled to the cylinder.  :class:`Pipes` holds a batch of
+Coupled to the cylinder as the intake and exhaust runners (:mod:`cyclesim.pipes.runners`).
+:class:`Pipes` holds a batch of
 pipes and advances them in CFL sub-steps (:meth:`Pipes.advance`), returning the
 time-integrated mass, energy and burned mass through each end so that a coupled
 volume can stay exactly conservative.  Ends are nozzles to reservoirs

@@ -55,7 +55,7 @@ def compiled_kernels():
         from numba import njit
         from numba.extending import register_jitable
 
-        from .. import kernel_ops
+        import cyclesim.kernel_ops as kernel_ops
         from ..cylinder.flow import critical_ratio_of
         from .kernels import __file__ as kernels_file
 

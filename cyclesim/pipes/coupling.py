@@ -26,7 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import ConfigError, SolverError
-from ..studies.boost import turbine_outlet_temperature
+from ..cylinder.flow import turbine_outlet_temperature
 import cyclesim.pipes.kernels as k
 import cyclesim.pipes.scheme as s
 from .pipe import DEFAULT_END_ITERATIONS, Pipes, set_end
@@ -221,7 +221,7 @@ def turbine_power_W(pipe: Pipes, end, mass_out_kg, energy_out_J, burned_out_kg, 
     The gas's mean stagnation temperature T3 follows from its enthalpy per mass; the
     expansion ratio is the stagnation pressure of the pipe's end cell at the end of
     the step over ``outlet_pressure_pa``; the outlet temperature comes from the boost
-    study's :func:`cyclesim.studies.boost.turbine_outlet_temperature` (fixed isentropic
+    study's :func:`cyclesim.cylinder.flow.turbine_outlet_temperature` (fixed isentropic
     ``efficiency``).  Power ``m cp (T3 - T4) / duration``.  A quasi-steady turbine on
     the step's means (no turbine map, no pulse averaging within the step).
     """

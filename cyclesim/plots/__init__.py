@@ -163,6 +163,23 @@ def plot_case(res, out: Path) -> list[Path]:
         _tdc_lines(a2, th, label=False)
         files.append(_save(fig, out / "valves.png"))
 
+    runners = [side for side in ("intake", "exhaust") if f"{side}_runner_valve_pressure_bar" in t]
+    if runners:
+        fig, axes = plt.subplots(len(runners), 1, figsize=(7.5, 2.8 * len(runners) + 0.6), sharex=True,
+                                 squeeze=False)
+        for ax, side in zip(axes[:, 0], runners):
+            ax.plot(th, t[f"{side}_runner_valve_pressure_bar"], color="tab:blue", label="at the valves")
+            ax.plot(th, t[f"{side}_runner_mid_pressure_bar"], color="tab:orange", lw=0.9, label="mid-length")
+            ax.plot(th, p, color="0.5", lw=0.6, label="cylinder")
+            ax.set_ylim(0.5 * min(np.min(t[f"{side}_runner_valve_pressure_bar"]), 1.0),
+                        1.3 * max(np.max(t[f"{side}_runner_valve_pressure_bar"]), np.max(t[f"{side}_runner_mid_pressure_bar"])))
+            ax.set_ylabel(f"{side} runner [bar]")
+            ax.legend(frameon=False, fontsize=8)
+            _tdc_lines(ax, th, label=ax is axes[0, 0])
+        axes[0, 0].set_title("Runner pressures", pad=14)
+        axes[-1, 0].set_xlabel("crank angle [deg]  (0 = firing TDC)")
+        files.append(_save(fig, out / "runners.png"))
+
     eb = s.get("energy_balance")
     if isinstance(eb, dict) and _basis_positive(eb):
         files.append(plot_energy_balance(eb, s.get("unreleased_energy"), out / "energy_balance.png"))

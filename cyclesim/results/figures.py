@@ -12,6 +12,7 @@ from __future__ import annotations
 import math
 import numpy as np
 
+from .runner_figures import runner_columns, runner_figures
 from ..errors import CyclesimError, PluginError
 from .motoring import apply_motored, compression_work, motored_cases, polytropic_exponents
 from ..roles import FrictionInputs
@@ -411,6 +412,7 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     # unreleased chemical energy leaving through the exhaust valves and past the rings, by carrier
     out["unreleased_energy"] = _unreleased_split(g, -mu_e + mu_bb, -(m_e - mu_e) + (m_bb - mu_bb))
     apply_motored(out, motored, W_comp, E1 - E0, mode)
+    out.update(runner_figures(tr))
     return out
 
 
@@ -547,4 +549,5 @@ def output_trace(batch, tr: CycleTrace, d: dict, step: float | None) -> dict[str
             evo = batch.valves.evo_deg * np.ones(B)
             pm = np.where((gth >= ivc[:, None]) & (gth <= evo[:, None]), pm, np.nan)
         cols["motored_pressure_bar"] = pm / 1e5
+    cols.update(runner_columns(tr, grid))
     return cols

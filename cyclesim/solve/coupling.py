@@ -11,8 +11,9 @@ Per case: the number of sub-steps comes from the case's own state (never its bat
 a case gives the same result alone and in any batch; cases that need fewer sub-steps sit out
 the later ones (a zero sub-step, which must exchange nothing).
 
-The cycle loops do not call a coupled subsystem yet; the contract is what a pipe model
-implements to be coupled in (see DEVELOPERS.md).
+The runners (:mod:`cyclesim.pipes.runners`) are coupled by the same rule through
+:mod:`cyclesim.solve.valve_source` (their sub-steps inside :func:`cyclesim.pipes.advance_crank_step`);
+this contract is the general form for another subsystem (see DEVELOPERS.md).
 """
 
 from __future__ import annotations

@@ -16,6 +16,7 @@ import numpy as np
 
 from .events import CycleEvents, StepContext
 from .stepper import CYCLE_TABLEAU, advance, stages
+from .valve_source import RunnerCoupling
 
 LOOP_RERUN = "compiled (a cycle re-run on the numpy loop to stop a failing case)"
 """CycleTrace.loop of an integration whose compiled loop handed a cycle to the numpy loop."""
@@ -33,7 +34,7 @@ class CycleRunner:
     events : CycleEvents
     """
 
-    def __init__(self, batch, rhs, pts, events: CycleEvents):
+    def __init__(self, batch, rhs, pts, events: CycleEvents, runners=None):
         import cyclesim.solve.kernel as kernel
 
         self.batch = batch
@@ -43,8 +44,15 @@ class CycleRunner:
         self.tableau = CYCLE_TABLEAU
         self.th_pts = pts.half.tolist()
         self.full = rhs.mode == "full"
+        # runners (cyclesim.pipes.runners): advanced between the steps, on the numpy loop
+        self.coupling = RunnerCoupling(rhs, pts, runners) if runners is not None and self.full else None
+        self.pipe_record = None
         why = events.why_not_compiled()
-        if why is None:
+        if self.coupling is not None:
+            self.compiled, self.loop = None, "numpy (runners are advanced between the crank steps)"
+        elif not getattr(rhs, "port_buffer", True):
+            self.compiled, self.loop = None, "numpy (port buffer off)"
+        elif why is None:
             self.compiled, self.loop = kernel.prepare(batch, rhs, pts)
         else:
             self.compiled, self.loop = None, f"numpy ({why})"
@@ -68,10 +76,15 @@ class CycleRunner:
         open_at = pts.open_at
         nodes = [int(v) for v in tab.arrays()[4]]
         N = pts.N
+        cpl = self.coupling
+        if cpl is not None:
+            cpl.start_cycle()
         for i in range(N):
             th = th_pts[2 * i]
             tn = th_pts[2 * i + 2]
             h = float(pts.steps[i])
+            if cpl is not None:
+                cpl.step(i, y, geo_pts[2 * i][0], h)
 
             def at_stage(st, ys):
                 j = 2 * i + nodes[st]
@@ -86,6 +99,8 @@ class CycleRunner:
                 self.events.after_step(StepContext(self.batch, rhs, th, tn, h, Y[:, :, i], y))
         Y[:, :, N] = y
         F[:, :, N] = rhs(th_pts[2 * N], y, geo_pts[2 * N], open_at[2 * N])
+        if cpl is not None:
+            self.pipe_record = cpl.finish_cycle()
         return y
 
     def _stop_unphysical(self, y: np.ndarray, y_prev: np.ndarray, tn: float) -> None:

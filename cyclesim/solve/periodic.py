@@ -82,6 +82,9 @@ class CylinderSystem:
     make_rhs: Callable
     initial_state: Callable
     extra_events: Sequence = ()
+    runners: object = None
+    """The batch's runners (:class:`cyclesim.pipes.runners.RunnerSet`) or None: their state runs on
+    from cycle to cycle, through the start-up cycles too."""
 
     @property
     def mode(self) -> str:
@@ -142,7 +145,7 @@ def run_cycles(system: CylinderSystem, progress, initial, cycles, step_scale, ma
     rhs = system.make_rhs(b, mode)
     events = CycleEvents(b, rhs, system.extra_events)
     pts = cycle_points(b, mode, events, step_scale)
-    runner = CycleRunner(b, rhs, pts, events)
+    runner = CycleRunner(b, rhs, pts, events, system.runners)
     y = system.initial_state(b, rhs, pts.theta[0], mode)
     if initial is not None:
         if initial.shape != y.shape:
@@ -153,8 +156,11 @@ def run_cycles(system: CylinderSystem, progress, initial, cycles, step_scale, ma
     n_max = int(b.simulation.max_cycles) if max_cycles is None else int(max_cycles)
     if cycles is not None:
         n_max = int(cycles)
-    book = Settling(b, rhs, pts, fixed=cycles is not None)
-    accel = Acceleration(rhs) if system.method == "anderson" and cycles is None else None
+    book = Settling(b, rhs, pts, fixed=cycles is not None, runner=runner)
+    # with runners every cycle starts from the end of the one before (the runners' state is not
+    # part of the accelerated start)
+    accel = Acceleration(rhs) if system.method == "anderson" and cycles is None and runner.coupling is None \
+        else None
     Y = np.empty((rhs.n, b.B, pts.N + 1))
     F = np.empty_like(Y)
     with np.errstate(all="ignore"):
@@ -175,6 +181,7 @@ def run_cycles(system: CylinderSystem, progress, initial, cycles, step_scale, ma
     tr.ivc_state = book.ivc
     tr.accelerated = accel.count if accel is not None else np.zeros(b.B, dtype=int)
     tr.reported_from_accelerated = book.from_accelerated
+    tr.runners = book.pipe_report
     return tr
 
 
@@ -205,9 +212,12 @@ class Settling:
         Run a fixed number of cycles: every case reports the last, without the test.
     """
 
-    def __init__(self, batch, rhs, pts, fixed: bool):
+    def __init__(self, batch, rhs, pts, fixed: bool, runner=None):
         B = batch.B
         self.rhs = rhs
+        self.runner = runner
+        self.pipe_report = None      # the reported cycle's runner record per case (with runners)
+        self.pipe_ok = np.ones(B, dtype=bool)
         self.theta = pts.theta
         self.fixed = fixed
         self.tol = float(batch.simulation.tolerance)
@@ -243,6 +253,13 @@ class Settling:
                 d_m = np.abs(m_tr - self.prev[1]) / np.abs(m_tr)
                 passed = (~self.done) & (d_imep < self.tol) & (d_m < self.tol)
                 self.change_before, self.change = self.change, np.maximum(d_imep, d_m)
+            rec = self.runner.pipe_record if self.runner is not None else None
+            if rec is not None:
+                # the runners' cycle-mean valve-end pressures repeat
+                # (cyclesim.pipes.runners.RunnerSet.settle_change)
+                self.pipe_ok = rec["change"] < self.tol
+                passed &= self.pipe_ok
+                self.change = np.maximum(self.change, rec["change"])
             # a case whose cycle began from an accelerated start confirms on a plain cycle
             newly = passed & ~accel.from_accelerated if accel is not None else passed.copy()
             newly |= (~self.done) & (~rhs.alive)
@@ -268,13 +285,39 @@ class Settling:
         # of the cycles its batch-mates still run)
         for key, arr in (("p", rhs.p_ivc), ("T", rhs.T_ivc), ("V", rhs.V_ivc)):
             self.ivc[key] = np.where(newly, arr, self.ivc[key])
+        rec = self.runner.pipe_record if self.runner is not None else None
+        if rec is not None:
+            self._report_runners(newly, rec)
         self.cycles_run[newly] = cyc
         if self.fixed:
             self.converged[newly] = rhs.alive[newly]
         else:
-            settled = np.ones(imep.size, dtype=bool) if cyc < n_max else _settled(imep, m_tr, self.prev, self.tol)
+            settled = np.ones(imep.size, dtype=bool) if cyc < n_max else \
+                _settled(imep, m_tr, self.prev, self.tol) & self.pipe_ok
             self.converged[newly] = rhs.alive[newly] & settled[newly]
         self.done |= newly
+
+
+    def _report_runners(self, newly, rec) -> None:
+        """Copy the runner record of cycle ``rec`` into the report of the cases ``newly`` done."""
+        if self.pipe_report is None:
+            self.pipe_report = _copy_record(rec)
+            return
+        _put_record(self.pipe_report, rec, newly)
+
+
+def _copy_record(rec):
+    if isinstance(rec, dict):
+        return {k: _copy_record(v) for k, v in rec.items()}
+    return rec.copy() if isinstance(rec, np.ndarray) else rec
+
+
+def _put_record(dst, src, rows):
+    for k, v in src.items():
+        if isinstance(v, dict):
+            _put_record(dst[k], v, rows)
+        elif isinstance(v, np.ndarray):
+            dst[k][rows] = v[rows]
 
 
 def _settled(imep, m_tr, prev, tol):

@@ -54,9 +54,9 @@ from typing import Any
 
 import numpy as np
 
-from ..loops.balance import burned_mass_rate, exhaust_inflow, first_law, port_buffer
+from ..loops.balance import burned_mass_rate, exhaust_inflow, first_law, plenum_inflow, port_buffer
 from ..loops import zones as _zones
-from ..errors import CyclesimError, PluginError, SolverError
+from ..errors import ConfigError, CyclesimError, PluginError, SolverError
 from ..loops.layout import CORE  # the state's names, declared once  # noqa: F401
 from ..loops.layout import CORE_ROWS as IDX  # noqa: F401
 from ..roles import GasState
@@ -94,6 +94,10 @@ def raised_at(exc: BaseException, model=None) -> str:
 
 class _RHS:
     """Right-hand side for one batch; the hot loop of the whole program."""
+
+    port_buffer = True
+    """False: the intake side draws from the plenum without the port buffer (numpy loop only; a
+    reference for the runners' checks)."""
 
     def __init__(self, batch, mode: str):
         self.b = batch
@@ -135,6 +139,7 @@ class _RHS:
         self.T_ivc = np.full(self.B, np.nan)
         self.V_ivc = np.full(self.B, np.nan)
         self._plenum_cache: dict | None = None
+        self.valve_source = None   # StepValveFlows of the runners' sides (cyclesim.solve.valve_source)
         self.sub_names = self.names[len(CORE):]
         self._shape_B = (self.B,)
         self._zeros = np.zeros(self.B)
@@ -275,7 +280,7 @@ class _RHS:
         ncore = len(CORE)
         sub = {nm: y[ncore + i] for i, nm in enumerate(self.sub_names)}
         full = self.mode == "full"
-        flows = full and valves_open
+        flows = full and (valves_open or self.valve_source is not None)
         if full:
             pl = self.plenums(theta, sub)
             p_i, T_i, y_i, R_i, g_i, h_i = pl["int"]
@@ -349,6 +354,10 @@ class _RHS:
                 mi, me = self.vf.mass_flows(s)
                 mi = self._shape(mi, "valve_flow", "intake mass flow")
                 me = self._shape(me, "valve_flow", "exhaust mass flow")
+                ext = self.valve_source
+                if ext is not None:
+                    mi = ext.mdot_int if ext.has_int else mi
+                    me = ext.mdot_exh if ext.has_exh else me
             else:
                 mi = me = self._zeros
             s.mdot_int, s.mdot_exh, s.mdot_blowby, s.Qdot_wall = mi, me, mbb, Qw
@@ -386,13 +395,22 @@ class _RHS:
         if flows:
             fi = mul(mi, dt, out=out[IDX["m_int"]])
             fe = mul(me, dt, out=out[IDX["m_exh"]])
-            if mi.any():
+            ext = self.valve_source
+            if ext is not None and ext.has_int:
+                # a runner's step: its gas, no port buffer (the runner holds the backflow)
+                yin_i, hin_i = ext.y_int, ext.h_int
+                mul(fi, 1.0 - yin_i, out=out[IDX["mu_int"]])
+            elif mi.any() and not self.port_buffer:
+                yin_i, hin_i = plenum_inflow(fi, y_i, h_i, yb, h)
+                mul(fi, 1.0 - yin_i, out=out[IDX["mu_int"]])
+            elif mi.any():
                 # the intake-port buffer of backflowed gas returns first (cyclesim.loops.balance.port_buffer)
                 yin_i, hin_i, *buf = port_buffer(fi, y[IDX["m_ibuf"]], y[IDX["mb_ibuf"]], y[IDX["H_ibuf"]],
                                                  self._buf_scale, y_i, h_i, yb, h)
                 out[IDX["m_ibuf"]], out[IDX["mb_ibuf"]], out[IDX["H_ibuf"]] = buf
                 mul(fi, 1.0 - yin_i, out=out[IDX["mu_int"]])
-            yin_e, hin_e = exhaust_inflow(fe, h_e, yb, h)
+            yin_e, hin_e = (ext.y_exh, ext.h_exh) if ext is not None and ext.has_exh else \
+                exhaust_inflow(fe, h_e, yb, h)
             mul(fe, 1.0 - yin_e, out=out[IDX["mu_exh"]])
         # no flow through a valve: its inflow carries the cylinder's own gas (zero times it)
         yin_i = yb if yin_i is None else yin_i
@@ -512,7 +530,14 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     which is the reference), the events (:mod:`cyclesim.solve.events`) and the periodic-steady-state
     driver (:mod:`cyclesim.solve.periodic`).
     """
-    system = CylinderSystem(batch, _RHS, _initial_state, tuple(events))
+    from ..pipes.runners import build_runners
+
+    runners = build_runners(batch)
+    if runners is not None and initial is not None:
+        raise ConfigError("runners: runs that start from a given cylinder state (the multi-cylinder engine,"
+                          " cycle-by-cycle traces) do not carry the runners yet; set intake.runner: none and"
+                          " exhaust.runner: none")
+    system = CylinderSystem(batch, _RHS, _initial_state, tuple(events), runners)
     return solve(system, progress, initial, cycles, step_scale, _max_cycles)
 
 

@@ -56,6 +56,7 @@ from typing import Sequence
 
 import numpy as np
 
+from ..cylinder.flow import turbine_outlet_temperature  # noqa: F401 - re-exported
 from ..config import Case, case_with, resolve_case
 from ..errors import ConfigError, SolverError
 from ..output import CAUTION, atomic_write_text, write_rows_csv
@@ -103,18 +104,6 @@ def compressor_outlet_temperature(T1, pressure_ratio, eta_c, gamma=GAMMA_AIR):
 def intercooler_outlet_temperature(T_in, T_coolant, effectiveness):
     """Charge-air cooler outlet temperature T_in - eps (T_in - T_coolant) [K]."""
     return np.asarray(T_in, float) - effectiveness * (np.asarray(T_in, float) - T_coolant)
-
-
-def turbine_outlet_temperature(T3, expansion_ratio, eta_t, gamma):
-    """Turbine outlet temperature T4 [K] and its isentropic value T4s [K].
-
-    ``T4s = T3 (p4/p3)^((g-1)/g)`` with ``expansion_ratio = p3/p4``, and
-    ``T4 = T3 - eta_t (T3 - T4s)`` (eta_t = (T3 - T4)/(T3 - T4s)).
-    """
-    g = np.asarray(gamma, float)
-    T3 = np.asarray(T3, float)
-    T4s = T3 * np.asarray(expansion_ratio, float) ** (-(g - 1) / g)
-    return T3 - eta_t * (T3 - T4s), T4s
 
 
 def exhaust_gas_properties(case: Case, T):

@@ -191,10 +191,18 @@ def _check_key(base: Case, key: str, vary: Mapping[str, list]) -> None:
     other values of the case).
     """
     parts = key.split(".")
+    if len(parts) == 3 and parts[0] in ("intake", "exhaust") and parts[1] == "runner":
+        from ..config.runners import RUNNER_SCHEMA
+
+        sec, name, declared = f"{parts[0]}.runner", parts[2], list(RUNNER_SCHEMA)
+        parts = [sec, name]
     if len(parts) != 2 or not all(parts):
-        raise ConfigError(f"--vary {key!r}: expected section.key, e.g. operating.speed_rpm")
+        raise ConfigError(f"--vary {key!r}: expected section.key (or intake.runner.key), e.g."
+                          " operating.speed_rpm")
     sec, name = parts
-    if sec in CORE_SCHEMA:
+    if sec in ("intake.runner", "exhaust.runner"):
+        pass
+    elif sec in CORE_SCHEMA:
         declared = list(CORE_SCHEMA[sec])
     elif sec in ROLES:
         from ..registry import get_registry

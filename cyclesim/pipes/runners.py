@@ -1,0 +1,195 @@
+"""A batch's intake and exhaust runners, coupled to the cylinder crank step by crank step.
+
+:func:`build_runners` makes a :class:`RunnerSet` from a batch whose cases have ``intake.runner``
+or ``exhaust.runner`` (:mod:`cyclesim.config.runners`), else None.  Each runner is a
+:class:`cyclesim.pipes.Pipes` batch with its valve end at x = 0 and its far end at x = L open to
+the operating point's plenum (intake: intake pressure, temperature and EGR fraction; exhaust:
+exhaust pressure and temperature, burned gas) through the runner's full area with its entry loss
+on inflow.  The runner stands for all the valves of its side (their effective areas added).
+
+The cycle loop (:class:`cyclesim.solve.cycle_run.CycleRunner`) calls :meth:`RunnerSet.step` once
+per crank step with the cylinder's state at the step's start and the valves' effective areas at
+the step's middle; :func:`cyclesim.pipes.advance_crank_step` sub-steps each case by its own CFL
+condition, and what went through each valve over the step becomes the cylinder's valve flow for
+the step at constant rates, so the cylinder receives exactly what the pipe gave.  The runners'
+state is carried from one cycle to the next (it is never reset between cycles).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..errors import ConfigError
+import cyclesim.pipes.scheme as s
+from .coupling import PipeSystem, advance_crank_step
+from .gas import constant_gamma, fuel_mixture
+from .pipe import Pipes, closed_ends, set_end
+
+SIDES = ("intake", "exhaust")
+_VALVE_END, _FAR_END = 0, 1
+
+
+class RunnerSet:
+    """The runners of one batch (B cases) and their bookkeeping over the cycle.
+
+    Attributes
+    ----------
+    sides : tuple of str
+        The sides that have a runner (``"intake"``, ``"exhaust"``), in valve order.
+    system : PipeSystem
+    cycle_flows : dict of ndarray (B, n_sides)
+        Over the current cycle, into the cylinder through each valve: ``mass_kg``,
+        ``enthalpy_J``, ``burned_mass_kg``; and into each runner through its far end:
+        ``outer_mass_kg``, ``outer_energy_J``.
+    cycle_start : dict of ndarray (B, n_sides)
+        The runners' ``mass_kg``, ``energy_J`` and valve-end pressure ``valve_pressure_pa``
+        at the current cycle's start.
+    """
+
+    def __init__(self, batch, sides, specs):
+        self.sides = tuple(sides)
+        B = batch.B
+        self.B = B
+        op = batch.operating
+        ones = np.ones(B)
+        far = {"intake": (op.intake_pressure_bar * 1e5 * ones, op.intake_temperature_K * ones,
+                          op.egr_fraction * ones),
+               "exhaust": (op.exhaust_pressure_bar * 1e5 * ones, op.exhaust_temperature_K * ones, ones)}
+        gas = _pipe_gas(batch)
+        runners = []
+        for side in self.sides:
+            rows = [c.runners[side] for c in batch.cases]
+            n = rows[0].n_cells
+            d0 = np.array([_diameters(r)[0] for r in rows])
+            d1 = np.array([_diameters(r)[1] for r in rows])
+            p_far, T_far, y_far = far[side]
+            Tw = np.array([r.wall_temperature_K if r.wall_temperature_K is not None else np.nan for r in rows])
+            Tw = np.where(np.isfinite(Tw), Tw, T_far)
+            pipe = Pipes(np.array([r.length_mm for r in rows]) * 1e-3, d0, n, diameter_out_m=d1, gas=gas,
+                         roughness_m=np.array([r.roughness_mm for r in rows]) * 1e-3, wall_temperature_K=Tw,
+                         bend_loss=np.array([r.bend_loss for r in rows]), n_cases=B)
+            ends = closed_ends(B)
+            set_end(ends, _FAR_END, pipe.face_area[:, -1], p_far, T_far, y_far,
+                    np.array([r.entry_loss for r in rows]))
+            pipe.ends = ends
+            pipe.set_state(p_far[:, None], T_far[:, None], 0.0, y_far[:, None])
+            runners.append(pipe)
+        self.system = PipeSystem(runners, [_VALVE_END] * len(runners))
+        self.mid = [p.N // 2 for p in runners]
+        self.cycle_flows: dict = {}
+        self.cycle_start: dict = {}
+        self.start_cycle()
+
+    # -- the cycle ----------------------------------------------------------------------------
+    def contents(self) -> dict:
+        """Per runner (B, n_sides): ``mass_kg``, ``energy_J``, ``burned_mass_kg`` stored."""
+        tot = [p.totals() for p in self.system.runners]
+        return {key: np.stack([t[key] for t in tot], axis=1) for key in ("mass_kg", "energy_J", "burned_mass_kg")}
+
+    def valve_pressure(self) -> np.ndarray:
+        """Pressure [Pa] (B, n_sides) at each runner's valve end (the end's last boundary pressure,
+        the first cell's where the end has not been solved yet)."""
+        out = np.empty((self.B, len(self.sides)))
+        for j, p in enumerate(self.system.runners):
+            pe = p.p_end[:, _VALVE_END]
+            out[:, j] = np.where(pe > 0, pe, self.cell_pressure(p, 0, p.Q[:, :, :1], p.T_cell[:, :1])[:, 0])
+        return out
+
+    def mid_pressure(self) -> np.ndarray:
+        """Pressure [Pa] (B, n_sides) in each runner's middle cell."""
+        return np.stack([self.cell_pressure(p, i, p.Q[:, :, i:i + 1], p.T_cell[:, i:i + 1])[:, 0]
+                         for p, i in zip(self.system.runners, self.mid)], axis=1)
+
+    @staticmethod
+    def cell_pressure(pipe: Pipes, i: int, Q, T_start) -> np.ndarray:
+        """Pressure [Pa] (B, n) of cell ``i`` of ``pipe`` at ``n`` saved states: its totals ``Q``
+        (B, NQ, n) and last temperatures ``T_start`` (B, n) [K]."""
+        import cyclesim.pipes.kernels as k
+
+        cf, cb = pipe._coef_np()
+        out = k.primitives(Q[:, s.MASS], Q[:, s.MOMENTUM], Q[:, s.ENERGY], Q[:, s.BURNED], pipe.volume[:, i:i + 1],
+                           cf, cb, pipe.gas.R[:, :1], pipe.gas.R[:, 1:], pipe.gas.t_mid_K, pipe.gas.newton_steps,
+                           T_start)
+        return out[2]
+
+    def start_cycle(self) -> None:
+        """Zero the cycle's flow totals and note the runners' state at the cycle's start."""
+        V = len(self.sides)
+        self.cycle_flows = {key: np.zeros((self.B, V)) for key in
+                            ("mass_kg", "enthalpy_J", "burned_mass_kg", "outer_mass_kg", "outer_energy_J")}
+        c = self.contents()
+        self.cycle_start = {"mass_kg": c["mass_kg"], "energy_J": c["energy_J"],
+                            "valve_pressure_pa": self.valve_pressure()}
+
+    def step(self, duration_s, valve_cda_m2, p, T, y_b) -> dict:
+        """Advance every runner over one crank step of ``duration_s`` (B,) [s] with the valves'
+        effective areas ``valve_cda_m2`` (B, n_sides) [m^2] and the cylinder at ``p`` [Pa], ``T``
+        [K], ``y_b`` [-] (B,); returns what went into the cylinder (B, n_sides): ``mass_kg``,
+        ``enthalpy_J``, ``burned_mass_kg``, and books it in :attr:`cycle_flows`."""
+        out = advance_crank_step(self.system, duration_s, valve_cda_m2, p, T, np.clip(y_b, 0.0, 1.0))
+        cf = self.cycle_flows
+        for key in ("mass_kg", "enthalpy_J", "burned_mass_kg"):
+            cf[key] += out[key]
+        cf["outer_mass_kg"] += out["outer_mass_kg"]
+        cf["outer_energy_J"] += out["outer_energy_J"]
+        return out
+
+    @staticmethod
+    def settle_change(before, after) -> np.ndarray:
+        """The settling test's change per case (B,) between the cycle means of two cycles (dicts of
+        (B, n_sides): ``mass_kg``, ``energy_J``, ``valve_pressure_pa``): the largest relative
+        change of a runner's cycle-mean valve-end pressure; inf without a cycle before.
+
+        Cycle means, not the state at the cycle's start: the waves of the cycles before still run
+        in the runners then (a one-dimensional open end reflects them without loss).  The runners'
+        mass and energy are not judged: on demo_runners the exhaust runner's cycle-mean mass (its
+        gas temperature) still moves by 1-2 % from cycle to cycle where net IMEP and the
+        valve-end pressures have settled to 0.1-0.2 % (:func:`mean_changes` gives them)."""
+        if before is None:
+            return np.full(after["mass_kg"].shape[0], np.inf)
+        pv = after["valve_pressure_pa"]
+        return np.max(np.abs(pv - before["valve_pressure_pa"]) / np.abs(pv), axis=1)
+
+
+def mean_changes(before, after) -> dict:
+    """Relative changes (B, n_sides) of the runners' cycle means between two cycles: ``mass``
+    (per mass), ``energy`` (per mass times 1 MJ/kg), ``valve_pressure`` (per itself)."""
+    m = np.abs(after["mass_kg"])
+    return {"mass": np.abs(after["mass_kg"] - before["mass_kg"]) / m,
+            "energy": np.abs(after["energy_J"] - before["energy_J"]) / (m * 1e6),
+            "valve_pressure": np.abs(after["valve_pressure_pa"] - before["valve_pressure_pa"])
+            / np.abs(after["valve_pressure_pa"])}
+
+
+def _diameters(ns):
+    from ..config.runners import runner_diameters_m
+
+    return runner_diameters_m(ns)
+
+
+def _pipe_gas(batch):
+    """The runners' gas: the batch's fuel at its equivalence ratio and its complete-combustion
+    products (frozen), or the constant-gamma gas of ``gas.properties: constant_gamma``."""
+    B = batch.B
+    g = batch.cases[0].gas
+    if getattr(g, "properties", None) == "constant_gamma":
+        return constant_gamma(np.array([c.gas.gamma for c in batch.cases]),
+                              np.array([c.gas.R_J_per_kgK for c in batch.cases]), B)
+    phi = 1.0 / np.asarray(batch.operating.__dict__["lambda"], float) * np.ones(B)
+    if getattr(batch.operating, "fuel_cut", False):
+        phi = np.full(B, 1e-6)
+    return fuel_mixture(batch.fuel, phi)
+
+
+def build_runners(batch) -> RunnerSet | None:
+    """The batch's runners, or None where its cases have none (a full-cycle batch only)."""
+    if batch.simulation.mode != "full":
+        return None
+    cases = batch.cases
+    sides = [side for side in SIDES if getattr(cases[0], "runners", {}).get(side) is not None]
+    if not sides:
+        return None
+    for c in cases:
+        if [side for side in SIDES if c.runners.get(side) is not None] != sides:
+            raise ConfigError("runners: the cases of one batch must have runners on the same sides")
+    return RunnerSet(batch, sides, None)
