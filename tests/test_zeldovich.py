@@ -200,11 +200,11 @@ def test_kernels_compile_with_numba():
     from jit_helpers import njit_with_callees
 
     b, tab = _table()
-    step = njit_with_callees(z.no_step, z, ("_interp", "implicit_a"))
+    step = njit_with_callees(z.no_step, z, ("_cell", "_bilinear", "_interp", "implicit_a"))
     for n0, T, p in [(0.0, 2500.0, 40e5), (1e-3, 2200.0, 20e5), (0.05, 2800.0, 60e5)]:
         assert step(n0, 1e-5, T, p, *tab[:5]) == pytest.approx(z.no_step(n0, 1e-5, T, p, *tab[:5]),
                                                                rel=1e-12)
-    elements = njit_with_callees(z.integrate_elements, z, ("_interp", "implicit_a", "no_step"))
+    elements = njit_with_callees(z.integrate_elements, z, ("_cell", "_bilinear", "_interp", "implicit_a", "no_step"))
     t, p, T, birth = _synthetic_history(4)
     np.testing.assert_allclose(elements(t, p, T, birth, 1700.0, *tab[:5]),
                                z.integrate_elements(t, p, T, birth, 1700.0, *tab[:5]), rtol=1e-12)

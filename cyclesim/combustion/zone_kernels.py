@@ -51,8 +51,8 @@ def solve_tp(gt, off, gc, nRm1, uc4, b, target, p, T0, lr0, enthalpy):
     """Burned gas of enthalpy (or internal energy) ``target`` [J/kg] at ``p`` [Pa].
 
     Newton on (T, ln rho) together, with p = rho R(T, rho) T as the second equation, from ``T0``
-    [K] and ``lr0`` [ln kg/m^3].  Returns ``(T, ln rho, u, h, dlnv_dlnp_s)``, the last the
-    isentropic d ln v / d ln p [-] there.
+    [K] and ``lr0`` [ln kg/m^3].  Returns ``(T, ln rho, u, h, dlnv_dlnp_s, dT_dlnp_s)``, the last
+    two the isentropic d ln v / d ln p [-] and dT / d ln p [K] there.
     """
     T = T0
     lr = lr0
@@ -77,11 +77,13 @@ def solve_tp(gt, off, gc, nRm1, uc4, b, target, p, T0, lr0, enthalpy):
             break
         T = min(max(T + dT, 200.0), 6000.0)
         lr = lr + dL
-    # isentrope (dh = v dp = R T d ln p): dT, dL per unit d ln p
+    # isentrope (dh = v dp = R T d ln p, with the equation of state): c1 dT + c2 dL = 0 and
+    # a21 dT + a22 dL = d ln p give dT, dL per unit d ln p
     RT = R * T
     c1 = h_T - RT * a21
     c2 = h_L - RT * a22
-    return T, lr, u, h, -1.0 / (a22 - a21 * c2 / c1)
+    dL_s = 1.0 / (a22 - a21 * c2 / c1)
+    return T, lr, u, h, -dL_s, -c2 / c1 * dL_s
 
 
 @jit
@@ -217,6 +219,7 @@ def elements(gt, off, gc, nRm1, uc4, p, m, x, h_u, U_b, T_wall, T_out, x_out, Q)
         Tk = np.full(N, 2400.0)
         lr = np.zeros(N)
         kv = np.zeros(N)
+        kT = np.zeros(N)          # isentropic dT/d ln p [K]: the predictor of the next solve
         u = np.zeros(N)
         hh = np.zeros(N)
         Q[b, 0] = 0.0
@@ -230,11 +233,12 @@ def elements(gt, off, gc, nRm1, uc4, p, m, x, h_u, U_b, T_wall, T_out, x_out, Q)
             lo = x[b, j - 1]
             hi = x[b, j]
             live = 0
+            dlnp = math.log(p1 / p0)
             for k in range(N):
                 had = xk[k] > 0.0
                 if had:
                     v0 = math.exp(-lr[k])
-                    v1 = v0 * math.exp(kv[k] * math.log(p1 / p0))
+                    v1 = v0 * math.exp(kv[k] * dlnp)
                     h[k] = h[k] + 0.5 * (p1 - p0) * (v0 + v1)
                 dx = min(hi, x_end * (k + 1) / N) - max(lo, x_end * k / N)
                 if dx > 0.0:
@@ -242,9 +246,10 @@ def elements(gt, off, gc, nRm1, uc4, p, m, x, h_u, U_b, T_wall, T_out, x_out, Q)
                     xk[k] = xk[k] + dx
                 if xk[k] > 0.0:
                     live += 1
-                    T0 = Tk[k] if had else 2400.0
-                    L0 = lr[k] if had else math.log(p1 / (290.0 * 2400.0))
-                    Tk[k], lr[k], u[k], _, kv[k] = solve_tp(gt, off, gc, nRm1, uc4, b, h[k], p1, T0, L0, True)
+                    T0 = Tk[k] + kT[k] * dlnp if had else 2400.0
+                    L0 = lr[k] - kv[k] * dlnp if had else math.log(p1 / (290.0 * 2400.0))
+                    Tk[k], lr[k], u[k], _, kv[k], kT[k] = solve_tp(gt, off, gc, nRm1, uc4, b, h[k], p1, T0,
+                                                                   L0, True)
                     hh[k] = h[k]
             if live > 0 and math.isfinite(U_b[b, j]):
                 mm = m[b, j]
@@ -258,8 +263,8 @@ def elements(gt, off, gc, nRm1, uc4, p, m, x, h_u, U_b, T_wall, T_out, x_out, Q)
                 for k in range(N):
                     if xk[k] > 0.0:
                         du = scale * max(Tk[k] - Tw, 1.0)
-                        Tk[k], lr[k], _, h2, kv[k] = solve_tp(gt, off, gc, nRm1, uc4, b, u[k] + du, p1,
-                                                              Tk[k], lr[k], False)
+                        Tk[k], lr[k], _, h2, kv[k], kT[k] = solve_tp(gt, off, gc, nRm1, uc4, b, u[k] + du, p1,
+                                                                     Tk[k], lr[k], False)
                         Q[b, j] -= xk[k] * (h2 - hh[k]) * mm
                         h[k] = h2
             for k in range(N):
