@@ -39,8 +39,9 @@ def demo():
     return _batch([[]])
 
 
-def test_none_is_the_default_and_adds_nothing():
-    r = cyclesim.run("demo")
+def test_demo_default_is_zeldovich_and_none_adds_nothing():
+    assert cyclesim.load_config("demo").submodels["emissions"].model == "zeldovich_no"
+    r = cyclesim.run("demo", ["emissions.model=none"])
     assert r.models["emissions"] == "none"
     assert not any(k.startswith("no_") for k in r.summary)
 
