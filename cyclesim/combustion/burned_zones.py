@@ -34,7 +34,9 @@ While the burned zone holds less than :data:`X_RESOLVED` of the charge its energ
 difference of two large ones (a 1 K error in the unburned zone would move it by tens of
 kelvin): there the zone is taken as its elements, adiabatic, at the trace pressure.
 
-All arrays carry a leading case axis B; SI units.
+All arrays carry a leading case axis B; SI units.  The loops are the scalar kernels of
+:mod:`cyclesim.combustion.zone_kernels`, compiled by numba where it runs (:mod:`cyclesim.combustion._jit`);
+the functions here prepare their arrays and return the named tuples.
 """
 
 from __future__ import annotations
