@@ -139,14 +139,19 @@ class ZeldovichNO(Emissions):
                 "burned_gas_no_ppm": np.full((B, th_all.size), np.nan)}
         for k in range(self.count):
             cols[f"burned_element_{k + 1:02d}_temperature_K"] = np.full((B, th_all.size), np.nan)
+        motored = np.asarray(summary.get("mode", np.full(B, "fired"))) == "motored"
+        gas = self.ctx.gas
+        if getattr(gas, "_compiled_consts", None) is None:     # not the real-gas tables
+            for i in np.nonzero(~motored)[0]:
+                warn[i].append(f"emissions zeldovich_no: the '{gas.burned_model}' gas has no equilibrium"
+                               f" products, so NO is not computed (gas.properties: real for NO)")
+            return EmissionsResult(figs, cols, warn)
         idx = self.window(trace)
         with np.errstate(all="ignore"):
             zones = self.zone_history(trace, idx)
-        motored = np.asarray(summary.get("mode", np.full(B, "fired"))) == "motored"
         fired = (zones.x[:, -1] > 0.05) & ~motored
         if not fired.any():
             return EmissionsResult(figs, cols, warn)
-        gas = self.ctx.gas
         with np.errstate(all="ignore"):
             el = bz.burned_elements(gas, zones, self.count, self.T_wall)
         tabs = tables_for(gas)

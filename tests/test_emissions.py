@@ -223,6 +223,12 @@ def test_operating_points_give_finite_nonnegative_no(lam, spark, egr, speed, p_i
     assert np.all(np.isnan(T) | ((T > 500) & (T < 4000)))
 
 
+def test_air_standard_gas_runs_without_no_and_says_so():
+    r = cyclesim.run("demo", ["gas.properties=constant_gamma"])
+    assert r.ok and math.isnan(r.summary["no_ppm_wet"])
+    assert any("no equilibrium products" in w for w in r.warnings)
+
+
 def test_complete_combustion_gas_is_warned_for_no():
     r = cyclesim.run("demo", ON + ["gas.burned_gas=complete"])
     assert any("no dissociation" in w for w in r.warnings)
