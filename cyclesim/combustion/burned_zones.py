@@ -48,6 +48,11 @@ import numpy as np
 X_RESOLVED = 0.02
 """Burned-zone mass fraction [-] below which the zone is its elements' own (see the notes)."""
 
+X_NONE = 1e-12
+"""Burned-zone fraction [-] below which there is none: the rounding noise of the trace's burned-gas
+fraction before the burn (about 1e-17), which would otherwise start the zones wherever the window
+starts (and so make a case's NO depend on its batch-mates)."""
+
 _TOL_T = 1e-11  # relative tolerance of the temperature solves at density [-]
 
 
@@ -202,7 +207,7 @@ def decompose_two_zone(gas, theta, speed_rpm, V, p, T, m, y, Q_w, T_wall):
     t = np.radians(theta)[None, :] / (2 * np.pi * np.asarray(speed_rpm, float)[:, None] / 60.0)
     y_u = np.clip(y[:, 0], 0.0, 0.999)
     x = np.clip((y - y_u[:, None]) / (1.0 - y_u[:, None]), 0.0, 1.0)
-    x = np.maximum.accumulate(x, axis=1)
+    x = np.maximum.accumulate(np.where(x > X_NONE, x, 0.0), axis=1)
     U = m * _mix(gas, T, m / V, y).u
     out = [np.empty((B, n)) for _ in range(6)]
     T_u, T_b, p2, U_b, Q_u, h_u = out
