@@ -99,21 +99,15 @@ class ZeldovichNO(Emissions):
 
     # -- the replaceable step: zones from the trace -------------------------------------------
     def window(self, trace: Mapping[str, np.ndarray]) -> np.ndarray:
-        """Indices of the trace's points the integration uses: IVC..EVO, from just before the
-        earliest burn, at least ``step_deg`` apart."""
+        """Indices of the trace's points the integration uses: IVC..EVO, at least ``step_deg``
+        apart (from IVC, not from the burn: the unburned zone's burned-gas fraction is the charge's
+        at IVC, and a case's window does not depend on when its batch-mates burn)."""
         th = np.asarray(trace["crank_deg"])[0]
         ivc = float(np.min(self.ctx.events.ivc))
         evo = float(np.max(self.ctx.events.evo))
         idx = np.nonzero((th >= ivc - 1e-9) & (th <= evo + 1e-9))[0]
         if idx.size < 3:
             idx = np.arange(th.size)
-        y = np.asarray(trace["burned_gas_fraction"])[:, idx]
-        rise = (y - y[:, :1]) > 1e-9
-        own = np.where(rise.any(axis=1), np.argmax(rise, axis=1), idx.size - 1)
-        # each case's own start (its zone columns begin there, whatever its batch-mates burn)
-        self.own_start_deg = th[idx[np.maximum(own - 2, 0)]]
-        first = int(np.min(own))
-        idx = idx[max(first - 2, 0):]
         dth = float(np.min(np.diff(th[idx]))) if idx.size > 1 else self.step_deg
         stride = max(1, int(round(self.step_deg / max(dth, 1e-9))))
         keep = idx[::stride]
@@ -216,7 +210,6 @@ class ZeldovichNO(Emissions):
                     out[i] = np.where(inside & (th_all >= th[ok][0]), v, np.nan)
 
         put("unburned_zone_temperature_K", zones.T_u)
-        cols["unburned_zone_temperature_K"][th_all[None, :] < self.own_start_deg[:, None] - 1e-9] = np.nan
         Tb_mean = np.nansum(np.where(el.born, el.x * T_el, 0.0), axis=1) / np.where(x_tot > 0, x_tot, np.nan)
         put("burned_zone_temperature_K", Tb_mean)
         put("burned_gas_no_ppm", np.where(x_tot > 0, 1e6 * n_mean / n_cp[:, None], np.nan))
