@@ -99,18 +99,15 @@ class ZeldovichNO(Emissions):
 
     # -- the replaceable step: zones from the trace -------------------------------------------
     def window(self, trace: Mapping[str, np.ndarray]) -> np.ndarray:
-        """Indices of the trace's points the integration uses: IVC..EVO, from just before the
-        earliest burn, at least ``step_deg`` apart."""
+        """Indices of the trace's points the integration uses: IVC..EVO, at least ``step_deg``
+        apart (from IVC, not from the burn: the unburned zone's burned-gas fraction is the charge's
+        at IVC, and a case's window does not depend on when its batch-mates burn)."""
         th = np.asarray(trace["crank_deg"])[0]
         ivc = float(np.min(self.ctx.events.ivc))
         evo = float(np.max(self.ctx.events.evo))
         idx = np.nonzero((th >= ivc - 1e-9) & (th <= evo + 1e-9))[0]
         if idx.size < 3:
             idx = np.arange(th.size)
-        y = np.asarray(trace["burned_gas_fraction"])[:, idx]
-        rise = (y - y[:, :1]) > 1e-9
-        first = int(np.min(np.where(rise.any(axis=1), np.argmax(rise, axis=1), idx.size - 1)))
-        idx = idx[max(first - 2, 0):]
         dth = float(np.min(np.diff(th[idx]))) if idx.size > 1 else self.step_deg
         stride = max(1, int(round(self.step_deg / max(dth, 1e-9))))
         keep = idx[::stride]
@@ -146,14 +143,19 @@ class ZeldovichNO(Emissions):
                 "burned_gas_no_ppm": np.full((B, th_all.size), np.nan)}
         for k in range(self.count):
             cols[f"burned_element_{k + 1:02d}_temperature_K"] = np.full((B, th_all.size), np.nan)
+        motored = np.asarray(summary.get("mode", np.full(B, "fired"))) == "motored"
+        gas = self.ctx.gas
+        if getattr(gas, "_compiled_consts", None) is None:     # not the real-gas tables
+            for i in np.nonzero(~motored)[0]:
+                warn[i].append(f"emissions zeldovich_no: the '{gas.burned_model}' gas has no equilibrium"
+                               f" products, so NO is not computed (gas.properties: real for NO)")
+            return EmissionsResult(figs, cols, warn)
         idx = self.window(trace)
         with np.errstate(all="ignore"):
             zones = self.zone_history(trace, idx)
-        motored = np.asarray(summary.get("mode", np.full(B, "fired"))) == "motored"
         fired = (zones.x[:, -1] > 0.05) & ~motored
         if not fired.any():
             return EmissionsResult(figs, cols, warn)
-        gas = self.ctx.gas
         with np.errstate(all="ignore"):
             el = bz.burned_elements(gas, zones, self.count, self.T_wall)
         tabs = tables_for(gas)
@@ -200,8 +202,13 @@ class ZeldovichNO(Emissions):
         th = zones.theta
         inside = (th_all >= th[0]) & (th_all <= th[-1])
 
+        contiguous = bool(np.all(np.diff(idx) == 1))
+
         def put(name, rows):
             out = cols[name]
+            if contiguous:        # the window is the trace's own points: placed as they are
+                out[:, idx] = rows
+                return
             for i in range(B):
                 r = rows[i]
                 ok = np.isfinite(r)

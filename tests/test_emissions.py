@@ -39,8 +39,9 @@ def demo():
     return _batch([[]])
 
 
-def test_none_is_the_default_and_adds_nothing():
-    r = cyclesim.run("demo")
+def test_demo_default_is_zeldovich_and_none_adds_nothing():
+    assert cyclesim.load_config("demo").submodels["emissions"].model == "zeldovich_no"
+    r = cyclesim.run("demo", ["emissions.model=none"])
     assert r.models["emissions"] == "none"
     assert not any(k.startswith("no_") for k in r.summary)
 
@@ -220,6 +221,12 @@ def test_operating_points_give_finite_nonnegative_no(lam, spark, egr, speed, p_i
     assert np.isnan(s["no_g_per_kWh"]) or s["no_g_per_kWh"] >= 0
     T = r.trace["burned_element_01_temperature_K"]
     assert np.all(np.isnan(T) | ((T > 500) & (T < 4000)))
+
+
+def test_air_standard_gas_runs_without_no_and_says_so():
+    r = cyclesim.run("demo", ["gas.properties=constant_gamma"])
+    assert r.ok and math.isnan(r.summary["no_ppm_wet"])
+    assert any("no equilibrium products" in w for w in r.warnings)
 
 
 def test_complete_combustion_gas_is_warned_for_no():

@@ -13,10 +13,12 @@ from cyclesim.studies.sweep import sweep
 from cyclesim.studies.map_console import map_text
 
 ON = ["emissions.model=zeldovich_no"]
+OFF = ["emissions.model=none"]
 
 
 def test_spark_study_table_and_plot_show_burn_angles_and_no(tmp_path):
-    st = spark_study("demo", "8:32:8", overrides=ON, out=tmp_path, traces=2)
+    # NO is on in the demo config itself: no override needed
+    st = spark_study("demo", "8:32:8", out=tmp_path, traces=2)
     head = spark_table_lines(st)[0]
     assert "0-10 deg" in head and "10-90 deg" in head and "NO ppm" in head and "NO g/kWh" in head
     assert (tmp_path / "spark_burn_no.png").is_file()
@@ -26,14 +28,14 @@ def test_spark_study_table_and_plot_show_burn_angles_and_no(tmp_path):
 
 
 def test_spark_study_without_emissions_shows_burn_angles_only(tmp_path):
-    st = spark_study("demo", "16:32:8", out=tmp_path, plots=True, traces=1)
+    st = spark_study("demo", "16:32:8", overrides=OFF, out=tmp_path, plots=True, traces=1)
     head = spark_table_lines(st)[0]
     assert "0-10 deg" in head and "NO ppm" not in head
     assert (tmp_path / "spark_burn_no.png").is_file()
 
 
 def test_sweep_table_shows_no_and_motored_points_leave_it_out():
-    res = sweep("demo", {"operating.fuel_cut": [False, True]}, overrides=ON)
+    res = sweep("demo", {"operating.fuel_cut": [False, True]})
     text = res.text()
     assert "NO ppm" in text and "0-10 deg" in text
     no = res.column("no_ppm_wet")
@@ -42,7 +44,7 @@ def test_sweep_table_shows_no_and_motored_points_leave_it_out():
 
 
 def test_loss_breakdown_reports_the_full_cycle_burn_angles_and_no():
-    lb = loss_breakdown("demo", overrides=ON)
+    lb = loss_breakdown("demo")
     assert lb.point["no_ppm_wet"] > 500 and lb.point["burn_0_10_deg"] > 10
     assert "NO" in lb.text() and "0-10 % burn" in lb.text()
     assert lb.figures()["full_cycle"]["no_g_per_kWh"] == pytest.approx(lb.point["no_g_per_kWh"])

@@ -63,51 +63,78 @@ def test_rate_constants_table_11_1_values():
 
 
 def _no_free_reactor(gas, T, p, phi):
-    """Constant-T, constant-p GRI-Mech 3.0 reactor from NO-free equilibrium products of CH4-air."""
+    """Constant-T, constant-p GRI-Mech 3.0 reactor from NO-free equilibrium products of CH4-air.
+
+    Returns the reactor network, the equilibrium NO [mol/m^3] and the equilibrium concentrations
+    [mol/m^3] of the full mixture (Cantera equilibrate('TP')); the gas holds the reactor's state.
+    """
     gas.set_equivalence_ratio(phi, "CH4", AIR)
     gas.TP = T, p
     gas.equilibrate("TP")
-    no_e = gas.concentrations[gas.species_index("NO")] * 1e3
+    c_eq = gas.concentrations * 1e3
+    no_e = c_eq[gas.species_index("NO")]
     Y = gas.Y.copy()
     for i, s in enumerate(gas.species_names):
         if "N" in gas.species(i).composition and s != "N2":
             Y[i] = 0.0
     gas.TPY = T, p, Y
     r = ct.IdealGasConstPressureReactor(gas, energy="off", clone=False)
-    net = ct.ReactorNet([r])
-    t = 1e-7
-    while gas.concentrations[gas.species_index("NO")] * 1e3 < 0.02 * no_e:
-        t *= 1.05
+    return ct.ReactorNet([r]), no_e, c_eq
+
+
+def _advance_to(net, gas, level, t):
+    """Advance until NO reaches ``level`` [mol/m^3]; returns the time [s]."""
+    while gas.concentrations[gas.species_index("NO")] * 1e3 < level:
+        t *= 1.02
         net.advance(t)
-    return no_e, t
+    return t
 
 
-@pytest.mark.parametrize("T", [2400.0, 2800.0])
-@pytest.mark.parametrize("p", [20e5, 60e5])
+def _eq_11_8(T, a, c, k1, k2r_, k3r_, I_O, I_N2, I_H, no_e):
+    """Heywood 1988 eq. 11.8 at a = [NO]/[NO]e with rate constants k1+, k2-, k3- [m^3/(mol s)]."""
+    r1 = k1 * c[I_O] * c[I_N2]
+    r23 = no_e * (k2r_ * c[I_O] + k3r_ * c[I_H])
+    return z.no_rate(a * no_e, no_e, r1, r23)
+
+
+@pytest.mark.parametrize("T", [2400.0, 2600.0, 2800.0])
+@pytest.mark.parametrize("p", [20e5, 40e5, 60e5])
 def test_rate_against_gri30_reactor(gri, T, p):
-    # Cantera constant-pressure reactor (GRI-Mech 3.0 kinetics, T held) from NO-free
-    # equilibrium products, read when NO reaches 2 % of equilibrium (N long in steady state:
-    # its net production is below 1e-3 of its creation).  The thermal route there is
-    # 2 x the net rate of O + N2 -> NO + N; its ratio to the tool's rate (Heywood's
-    # constants) must equal k1+(Heywood)/k1+(GRI) within 10 %.  GRI writes the reaction as
-    # N + NO <=> N2 + O, so its k1+ is the reverse constant.
-    no_e, t = _no_free_reactor(gri, T, p, 1.0)
-    i1 = [i for i, r in enumerate(gri.reactions()) if r.equation == "N + NO <=> N2 + O"][0]
-    c = gri.concentrations * 1e3
-    n_atom = gri.species_index("N")
-    assert abs(gri.net_production_rates[n_atom]) < 1e-3 * gri.creation_rates[n_atom]
-    thermal = -2.0 * gri.net_rates_of_progress[i1] * 1e3
-    k1_gri = gri.reverse_rate_constants[i1] * 1e-3
-    tool = 2 * z.k1f(T) * c[gri.species_index("O")] * c[gri.species_index("N2")]
-    assert (tool / thermal) / (z.k1f(T) / k1_gri) == pytest.approx(1.0, abs=0.10)
-    # reported: all NO production, and the share of the routes through N2O
-    i_no = gri.species_index("NO")
-    nu = gri.product_stoich_coeffs[i_no, :] - gri.reactant_stoich_coeffs[i_no, :]
-    w = gri.net_rates_of_progress * nu * 1e3
+    # Cantera 3.x constant-pressure reactor (GRI-Mech 3.0 kinetics, T held) started from NO-free
+    # equilibrium products of methane-air, phi 1, read at NO = 1, 2 and 4 % of equilibrium (all
+    # below 5 %), long after N reached its quasi-steady level (its net production under 1e-3 of
+    # its creation; microseconds against the 1.6-300 us of the readings).  The thermal route there
+    # is 2 x the net rate of O + N2 -> NO + N (each N atom it makes ends as NO, by N + O2, N + OH,
+    # or N + CO2 in GRI).  The ratio of the tool's rate (Heywood's constants, table 11.1, the
+    # tool's own equilibrium) to that must equal the ratio of eq. 11.8 evaluated at the same a
+    # with the two rate-constant sets (Heywood's; GRI's k1+, k2-, k3- as GRI writes the reactions
+    # N + NO <=> N2 + O, N + O2 <=> NO + O, N + OH <=> H + NO, so their reverse constants) on
+    # Cantera's equilibrium concentrations, within 10 % (measured within 2 %).  Reported: all NO
+    # production over the thermal route and the share of the routes through N2O.
+    net, no_e, ce = _no_free_reactor(gri, T, p, 1.0)
+    eqs = [r.equation for r in gri.reactions()]
+    i1, i2, i3 = (eqs.index(e) for e in ("N + NO <=> N2 + O", "N + O2 <=> NO + O", "N + OH <=> H + NO"))
+    I = {s: gri.species_index(s) for s in ("O", "N2", "H", "NO", "N")}
+    kr = gri.reverse_rate_constants * 1e-3                      # m^3/(kmol s) -> m^3/(mol s)
+    b, _ = thermo.fresh_charge_elements(BUILTIN_FUELS["methane"], 1.0)
+    n, rho = z.equilibrium_tp(T, p, b)
+    c_tool = n[0] * rho[0]
     n2o = np.array([("N2O" in r.reactants) or ("N2O" in r.products) for r in gri.reactions()])
-    print(f"T {T:.0f} K p {p / 1e5:.0f} bar: t {t * 1e6:.1f} us, tool/thermal {tool / thermal:.3f}, "
-          f"k1 ratio {z.k1f(T) / k1_gri:.3f}, total/thermal {w.sum() / thermal:.3f}, "
-          f"N2O-route share {w[n2o].sum() / w.sum():.3f}")
+    nu = gri.product_stoich_coeffs[I["NO"], :] - gri.reactant_stoich_coeffs[I["NO"], :]
+    t = 1e-7
+    for level in (0.01, 0.02, 0.04):
+        t = _advance_to(net, gri, level * no_e, t)
+        assert abs(gri.net_production_rates[I["N"]]) < 1e-3 * gri.creation_rates[I["N"]]
+        a = gri.concentrations[I["NO"]] * 1e3 / no_e
+        thermal = -2.0 * gri.net_rates_of_progress[i1] * 1e3
+        tool = _eq_11_8(T, a, c_tool, z.k1f(T), z.k2r(T), z.k3r(T), z.I_O, z.I_N2, z.I_H, c_tool[z.I_NO])
+        heywood = _eq_11_8(T, a, ce, z.k1f(T), z.k2r(T), z.k3r(T), I["O"], I["N2"], I["H"], no_e)
+        gri_set = _eq_11_8(T, a, ce, kr[i1], kr[i2], kr[i3], I["O"], I["N2"], I["H"], no_e)
+        assert (tool / thermal) / (heywood / gri_set) == pytest.approx(1.0, abs=0.10)
+        w = gri.net_rates_of_progress * nu * 1e3
+        print(f"T {T:.0f} K p {p / 1e5:.0f} bar NO/NOe {a:.3f}: t {t * 1e6:.1f} us, tool/thermal "
+              f"{tool / thermal:.3f}, constants ratio {heywood / gri_set:.3f}, total/thermal "
+              f"{w.sum() / thermal:.3f}, N2O-route share {w[n2o].sum() / w.sum():.3f}")
 
 
 def _table(fuel="methane", phi=1.0):
@@ -200,11 +227,11 @@ def test_kernels_compile_with_numba():
     from jit_helpers import njit_with_callees
 
     b, tab = _table()
-    step = njit_with_callees(z.no_step, z, ("_interp", "implicit_a"))
+    step = njit_with_callees(z.no_step, z, ("_cell", "_bilinear", "_interp", "implicit_a"))
     for n0, T, p in [(0.0, 2500.0, 40e5), (1e-3, 2200.0, 20e5), (0.05, 2800.0, 60e5)]:
         assert step(n0, 1e-5, T, p, *tab[:5]) == pytest.approx(z.no_step(n0, 1e-5, T, p, *tab[:5]),
                                                                rel=1e-12)
-    elements = njit_with_callees(z.integrate_elements, z, ("_interp", "implicit_a", "no_step"))
+    elements = njit_with_callees(z.integrate_elements, z, ("_cell", "_bilinear", "_interp", "implicit_a", "no_step"))
     t, p, T, birth = _synthetic_history(4)
     np.testing.assert_allclose(elements(t, p, T, birth, 1700.0, *tab[:5]),
                                z.integrate_elements(t, p, T, birth, 1700.0, *tab[:5]), rtol=1e-12)

@@ -35,7 +35,9 @@ While the burned zone holds less than :data:`X_RESOLVED` of the charge its energ
 difference of two large ones (a 1 K error in the unburned zone would move it by tens of
 kelvin): there the zone is taken as its elements, adiabatic, at the trace pressure.
 
-All arrays carry a leading case axis B; SI units.
+All arrays carry a leading case axis B; SI units.  The loops are the scalar kernels of
+:mod:`cyclesim.combustion.zone_kernels`, compiled by numba where it runs (:mod:`cyclesim.combustion._jit`);
+the functions here prepare their arrays and return the named tuples.
 """
 
 from __future__ import annotations
@@ -44,12 +46,17 @@ from typing import NamedTuple
 
 import numpy as np
 
-from ..loops.zones import flame_temperature, solve_T_p as _solve_T_p  # noqa: F401 - re-exported
+from ..loops.zones import solve_T_p as _solve_T_p  # noqa: F401 - re-exported
 
 X_RESOLVED = 0.02
 """Burned-zone mass fraction [-] below which the zone is its elements' own (see the notes)."""
 
-_TOL_T = 1e-11  # relative tolerance of the temperature solves [-]
+X_NONE = 1e-12
+"""Burned-zone fraction [-] below which there is none: the rounding noise of the trace's burned-gas
+fraction before the burn (about 1e-17), which would otherwise start the zones wherever the window
+starts (and so make a case's NO depend on its batch-mates)."""
+
+_TOL_T = 1e-11  # relative tolerance of the temperature solves at density [-]
 
 
 class ZoneHistory(NamedTuple):
@@ -116,14 +123,42 @@ def burned_state_p(gas, T, p, rho0=None):
     return rho, u, h, cp
 
 
+def _kernels():
+    from . import zone_kernels
+    from ._jit import kernels
+
+    return kernels(zone_kernels)
+
+
+def _gas_consts(gas) -> tuple:
+    """The gas tables as the scalar kernels take them (cyclesim.solve.gas_tables)."""
+    return gas._compiled_consts()
+
+
+def _solve_points(gas, target, p, T0, enthalpy):
+    """Temperature [K] of burned gas of enthalpy (or internal energy) ``target`` [J/kg] at ``p``
+    [Pa], arrays (B,) or (B, n), by :func:`cyclesim.combustion.zone_kernels.solve_tp`."""
+    target = np.asarray(target, dtype=float)
+    shape = target.shape
+    B = gas.B
+    case = np.broadcast_to(np.arange(B).reshape((B,) + (1,) * (len(shape) - 1)), shape).ravel()
+    out = np.empty(target.size)
+    _kernels().solve_tp_points(*_gas_consts(gas), np.ascontiguousarray(case, dtype=np.int64),
+                               np.ascontiguousarray(target.ravel()),
+                               np.ascontiguousarray(np.broadcast_to(np.asarray(p, float), shape).ravel()),
+                               np.ascontiguousarray(np.broadcast_to(np.asarray(T0, float), shape).ravel()),
+                               bool(enthalpy), out)
+    return out.reshape(shape)
+
+
 def solve_T_hp(gas, h, p, T0):
     """Burned-gas temperature [K] of enthalpy ``h`` [J/kg] at ``p`` [Pa] (Newton from ``T0``)."""
-    return _solve_T_p(gas, h, p, T0, True)[0]
+    return _solve_points(gas, h, p, T0, True)
 
 
 def solve_T_up(gas, u, p, T0):
     """Burned-gas temperature [K] of internal energy ``u`` [J/kg] at ``p`` [Pa] (Newton)."""
-    return _solve_T_p(gas, u, p, T0, False)[0]
+    return _solve_points(gas, u, p, T0, False)
 
 
 def solve_T_urho(gas, u, rho, T0):
@@ -149,6 +184,11 @@ def _unburned(gas, T, p, y_u, R_u=None):
         R_u = mp.R
     mp = gas.mixture(T, p / (R_u * T), y_u)
     return mp.u, mp.u + mp.R * T, mp.R, mp.u_T + mp.R
+
+
+def flame_temperature(gas, h_u, p, T0=None):
+    """Constant-pressure adiabatic flame temperature [K] of unburned gas of enthalpy ``h_u``."""
+    return solve_T_hp(gas, h_u, p, np.full(np.shape(h_u), 2400.0) if T0 is None else T0)
 
 
 def _first_burn(x):
@@ -183,89 +223,15 @@ def decompose_two_zone(gas, theta, speed_rpm, V, p, T, m, y, Q_w, T_wall):
     t = np.radians(theta)[None, :] / (2 * np.pi * np.asarray(speed_rpm, float)[:, None] / 60.0)
     y_u = np.clip(y[:, 0], 0.0, 0.999)
     x = np.clip((y - y_u[:, None]) / (1.0 - y_u[:, None]), 0.0, 1.0)
-    x = np.maximum.accumulate(x, axis=1)
+    x = np.maximum.accumulate(np.where(x > X_NONE, x, 0.0), axis=1)
     U = m * _mix(gas, T, m / V, y).u
-    T_u = T.copy()
-    T_b = np.full((B, n), np.nan)
-    p2 = p.copy()
-    U_b = np.full((B, n), np.nan)
-    Q_u = np.zeros((B, n))
-    h_u = np.empty((B, n))
-    _, h_u[:, 0], _, _ = _unburned(gas, T[:, 0], p[:, 0], y_u)
-    k0 = _first_burn(x)
-    Tb_prev = np.full(B, 2400.0)
-    R_prev = None
-    for j in range(1, n):
-        before = j <= k0
-        # unburned zone over the step: isentrope from the previous point with its heat share
-        xs = x[:, j]
-        m_u = (1.0 - xs) * m[:, j]
-        m_b = xs * m[:, j]
-        a_b = np.sqrt(xs)
-        Tb_w = np.where(np.isfinite(T_b[:, j - 1]), T_b[:, j - 1], Tb_prev)
-        wu = (1.0 - a_b) * np.maximum(T_u[:, j - 1] - T_wall, 0.0)
-        wb = a_b * np.maximum(Tb_w - T_wall, 0.0)
-        share = np.where(wu + wb > 0, wu / np.where(wu + wb > 0, wu + wb, 1.0), 1.0)
-        dQ_u = (Q_w[:, j] - Q_w[:, j - 1]) * share
-        Q_u[:, j] = Q_u[:, j - 1] + dQ_u
-        _, _, R_u, cp_u = _unburned(gas, T_u[:, j - 1], p2[:, j - 1], y_u, R_prev)
-        R_prev = R_u
-        kappa = R_u / cp_u
-        Tu0, p0 = T_u[:, j - 1], p2[:, j - 1]
-        mu_safe = np.maximum(m_u, 1e-300)
-
-        def unburned_T(pp):
-            return Tu0 * np.exp(kappa * np.log(pp / p0)) - dQ_u / (mu_safe * cp_u)
-
-        resolved = ~before & (xs >= X_RESOLVED)
-        if resolved.any():
-            # Newton on (ln p, T_b): the burned zone's energy and its equation of state, with the
-            # unburned zone on its isentrope at that pressure (one look-up of each zone per pass)
-            ratio = np.where(np.isfinite(T_b[:, j - 1]) & (j - 1 > k0), p2[:, j - 1] / p[:, j - 1], 1.0)
-            lnp = np.log(p[:, j] * ratio)
-            Tb = Tb_w.copy()
-            lnp0 = np.log(p0)
-            mb_safe = np.maximum(m_b, 1e-300)
-            q = dQ_u / (mu_safe * cp_u)
-            for _ in range(30):
-                pp = np.exp(lnp)
-                Tu = Tu0 * np.exp(kappa * (lnp - lnp0)) - q
-                dTu = kappa * (Tu + q)
-                uu, _, Ru, cpu = _unburned(gas, Tu, pp, y_u, R_u)
-                Vu = m_u * Ru * Tu / pp
-                Vb = np.maximum(V[:, j] - Vu, 1e-3 * V[:, j])
-                rb = mb_safe / Vb
-                dlr = m_u * Ru * (dTu - Tu) / pp / Vb
-                eb = (U[:, j] - m_u * uu) / mb_safe
-                deb = -m_u * (cpu - Ru) * dTu / mb_safe
-                u, u_T, u_lr, R, R_T, R_lr = gas.burned(np.clip(Tb, 300.0, 5000.0), rb)
-                f1 = u - eb
-                f2 = np.log(rb * R * Tb) - lnp
-                a11, a12 = u_T, u_lr * dlr - deb
-                a21, a22 = R_T / R + 1.0 / Tb, (1.0 + R_lr / R) * dlr - 1.0
-                det = a11 * a22 - a12 * a21
-                dT = np.where(resolved, -(f1 * a22 - a12 * f2) / det, 0.0)
-                dL = np.where(resolved, -(a11 * f2 - a21 * f1) / det, 0.0)
-                Tb = np.clip(Tb + dT, 300.0, 5000.0)
-                lnp = np.clip(lnp + dL, np.log(0.5 * p[:, j]), np.log(2.0 * p[:, j]))
-                if np.all(np.abs(dL) <= 1e-12) and np.all(np.abs(dT) <= 1e-9 * Tb):
-                    break
-            pb = np.exp(lnp)
-            Tu = Tu0 * np.exp(kappa * (lnp - lnp0)) - q
-            uu = _unburned(gas, Tu, pb, y_u, R_u)[0]
-            p2[:, j] = np.where(resolved, pb, p[:, j])
-            T_u[:, j] = np.where(resolved, Tu, unburned_T(p[:, j]))
-            T_b[:, j] = np.where(resolved, Tb, np.nan)
-            U_b[:, j] = np.where(resolved, U[:, j] - m_u * uu, np.nan)
-        else:
-            T_u[:, j] = unburned_T(p[:, j])
-        T_u[:, j] = np.where(before, T[:, j], T_u[:, j])
-        _, h_u[:, j], _, _ = _unburned(gas, T_u[:, j], p2[:, j], y_u, R_u)
-        small = ~before & ~resolved
-        if small.any():   # the burned zone as its own first flame: its temperature for the heat split
-            Tf = flame_temperature(gas, h_u[:, j], p2[:, j], Tb_prev)
-            Tb_prev = np.where(small, Tf, Tb_prev)
-            T_b[:, j] = np.where(small, Tf, T_b[:, j])
+    out = [np.empty((B, n)) for _ in range(6)]
+    T_u, T_b, p2, U_b, Q_u, h_u = out
+    c = np.ascontiguousarray
+    _kernels().decompose(*_gas_consts(gas), c(V, dtype=float), c(p, dtype=float), c(U), c(m, dtype=float), c(x),
+                         c(Q_w, dtype=float), c(T, dtype=float), c(y_u),
+                         c(np.broadcast_to(np.asarray(T_wall, float), (B,))),
+                         c(_first_burn(x), dtype=np.int64), X_RESOLVED, T_u, T_b, p2, U_b, Q_u, h_u)
     return ZoneHistory(theta, t, p2, m, x, T_u, T_b, h_u, U_b, y_u, Q_u)
 
 
@@ -303,59 +269,13 @@ def burned_elements(gas, zones: ZoneHistory, count: int, T_wall) -> Elements:
     """Burned-mass elements of a zone history (see the module notes)."""
     B, n = zones.p.shape
     N = int(count)
-    x_end = zones.x[:, -1]
-    edges = x_end[:, None] * np.arange(N + 1)[None, :] / N          # (B, N+1) slice edges
-    T_out = np.full((B, N, n), np.nan)
-    x_out = np.zeros((B, N, n))
-    xk = np.zeros((B, N))
-    h = np.zeros((B, N))          # element enthalpy [J/kg]
-    Tk = np.full((B, N), 2400.0)
-    lr = np.zeros((B, N))         # ln of the element density [ln kg/m^3]
-    kv = np.zeros((B, N))         # isentropic d ln v / d ln p of the element [-]
-    Tw = np.asarray(T_wall, float)[:, None]
-    Q = np.zeros((B, n))
-    for j in range(1, n):
-        Q[:, j] = Q[:, j - 1]
-        p0, p1 = zones.p[:, j - 1:j], zones.p[:, j:j + 1]
-        P1 = np.broadcast_to(p1, (B, N))
-        have = xk > 0
-        if have.any():
-            # existing elements along the equilibrium isentrope: dh = v dp, trapezoidal in v,
-            # v at the step's end from the local isentropic exponent (second order in the step)
-            v0 = np.exp(-lr)
-            v1 = v0 * np.exp(kv * np.log(p1 / p0))
-            h = np.where(have, h + 0.5 * (p1 - p0) * (v0 + v1), h)
-        # newly burned mass into the slices it falls in, at the flame enthalpy of the unburned gas
-        lo, hi = zones.x[:, j - 1:j], zones.x[:, j:j + 1]
-        dx = np.clip(np.minimum(hi, edges[:, 1:]) - np.maximum(lo, edges[:, :-1]), 0.0, None)
-        new = dx > 0
-        if new.any():
-            h = np.where(new, (xk * h + dx * zones.h_u[:, j:j + 1]) / np.where(new, xk + dx, 1.0), h)
-            xk = xk + dx
-        have = xk > 0
-        if not have.any():
-            continue
-        hh = np.where(have, h, zones.h_u[:, j:j + 1])
-        Tk, lr, u, _, kv = _solve_T_p(gas, hh, P1, np.where(have, Tk, 2400.0), True,
-                                      np.where(have, lr, np.log(P1 / (290.0 * 2400.0))))
-        U_b = zones.U_b[:, j]
-        fix = np.isfinite(U_b)
-        if fix.any():
-            # the zone's energy not in the elements' work and birth enthalpy: their heat loss
-            m = zones.m[:, j:j + 1]
-            D = U_b - (np.where(have, xk * u, 0.0) * m).sum(axis=1)
-            ex = np.maximum(Tk - Tw, 1.0)
-            w = np.where(have, xk * m * ex, 0.0).sum(axis=1)
-            du = (np.where(fix, D, 0.0) / np.where(fix & (w > 0), w, 1.0))[:, None] * ex
-            sel = have & fix[:, None]
-            Tk2, lr2, _, h2, kv2 = _solve_T_p(gas, u + np.where(sel, du, 0.0), P1, Tk, False, lr)
-            Tk, lr, kv = np.where(sel, Tk2, Tk), np.where(sel, lr2, lr), np.where(sel, kv2, kv)
-            # the heat at constant pressure is the enthalpy the elements lose (their internal energy
-            # falls by D, their contraction is work the pressure does on them)
-            Q[:, j] -= (np.where(sel, xk * (h2 - hh), 0.0) * m).sum(axis=1)
-            h = np.where(sel, h2, h)
-        T_out[:, :, j] = np.where(have, Tk, np.nan)
-        x_out[:, :, j] = xk
+    T_out = np.empty((B, N, n))
+    x_out = np.empty((B, N, n))
+    Q = np.empty((B, n))
+    c = np.ascontiguousarray
+    _kernels().elements(*_gas_consts(gas), c(zones.p, dtype=float), c(zones.m, dtype=float),
+                        c(zones.x, dtype=float), c(zones.h_u, dtype=float), c(zones.U_b, dtype=float),
+                        c(np.broadcast_to(np.asarray(T_wall, float), (B,))), T_out, x_out, Q)
     return Elements(T_out, x_out, x_out > 0, Q)
 
 

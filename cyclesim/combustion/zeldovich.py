@@ -49,6 +49,10 @@ import numpy as np
 import cyclesim.gas.equilibrium as equilibrium
 import cyclesim.gas.thermo as thermo
 
+if "jit" not in globals():          # the plain form; cyclesim.combustion._jit compiles a second copy
+    def jit(fn):
+        return fn
+
 _CM3 = 1e-6  # cm^3/mol -> m^3/mol
 _I = {s: i for i, s in enumerate(equilibrium.SPECIES)}
 I_O, I_H, I_N2, I_NO, I_H2O = _I["O"], _I["H"], _I["N2"], _I["NO"], _I["H2O"]
@@ -84,7 +88,8 @@ def equilibrium_tp(T, p, b, iterations: int = 30):
     """Equilibrium at temperature ``T`` [K] and pressure ``p`` [Pa] (arrays broadcast).
 
     Fixed-point iteration on the density rho = p / (R T) with the
-    equilibrium gas constant (converges to 1e-12 in a few steps).
+    equilibrium gas constant, to 1e-11 (the equilibrium's own tolerance: below it the
+    iteration stalls at about 4e-12), in about eight steps.
 
     Returns
     -------
@@ -103,7 +108,7 @@ def equilibrium_tp(T, p, b, iterations: int = 30):
         res = equilibrium.equilibrate_tv(T, rho, b, lam0=lam)
         lam = res.lam
         new = p / (thermo.R_U * res.n.sum(axis=1) * T)
-        done = np.max(np.abs(new / rho - 1.0)) < 1e-13
+        done = np.max(np.abs(new / rho - 1.0)) < 1e-11
         rho = new
         if done:
             break
@@ -134,14 +139,28 @@ def no_table(b, T_grid_K, p_grid_Pa):
             n[:, I_H2O].reshape(shape))
 
 
-def _interp(Tg, lpg, tab, T, lp):
-    """Bilinear interpolation in (T, ln p), clamped to the grid (scalar T, lp)."""
+@jit
+def _cell(Tg, lpg, T, lp):
+    """Cell (i, j) of the (T, ln p) grid holding a point and its weights (u, v), clamped to the grid."""
     i = min(max(np.searchsorted(Tg, T) - 1, 0), Tg.size - 2)
     j = min(max(np.searchsorted(lpg, lp) - 1, 0), lpg.size - 2)
     u = min(max((T - Tg[i]) / (Tg[i + 1] - Tg[i]), 0.0), 1.0)
     v = min(max((lp - lpg[j]) / (lpg[j + 1] - lpg[j]), 0.0), 1.0)
+    return i, j, u, v
+
+
+@jit
+def _bilinear(tab, i, j, u, v):
+    """Bilinear interpolation of ``tab`` in cell (i, j) with weights (u, v)."""
     return ((1 - u) * (1 - v) * tab[i, j] + u * (1 - v) * tab[i + 1, j]
             + (1 - u) * v * tab[i, j + 1] + u * v * tab[i + 1, j + 1])
+
+
+@jit
+def _interp(Tg, lpg, tab, T, lp):
+    """Bilinear interpolation in (T, ln p), clamped to the grid (scalar T, lp)."""
+    i, j, u, v = _cell(Tg, lpg, T, lp)
+    return _bilinear(tab, i, j, u, v)
 
 
 def implicit_a(a0, s, K):
@@ -235,37 +254,52 @@ def mean_no_ppm(n_no, mass, n_tot, n_h2o):
     return 1e6 * no / tot, 1e6 * no / (tot - (m * n_h2o).sum())
 
 
-# -- vectorised forms for burned-mass elements that grow while they burn -----------------
+# -- burned-mass elements that grow while they burn ---------------------------------------
 
 
+@jit
 def implicit_a_closed(a0, s, K):
-    """The root of :func:`implicit_a` in closed form, arrays broadcast.
+    """The root of :func:`implicit_a` in closed form (scalars).
 
     a - a0 = s (1 - a^2)/(1 + a K) is the quadratic (K + s) a^2 + (1 - a0 K) a - (a0 + s) = 0,
     whose product of roots is negative: its one positive root, written without cancellation.
     """
     bq = 1.0 - a0 * K
     c = a0 + s
-    d = np.sqrt(bq * bq + 4.0 * (K + s) * c)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        big = np.where(bq >= 0, 2.0 * c / (bq + d), (d - bq) / (2.0 * (K + s)))
-    return np.where(c > 0, big, 0.0)
+    if not c > 0.0:
+        return 0.0
+    d = math.sqrt(bq * bq + 4.0 * (K + s) * c)
+    if bq >= 0.0:
+        return 2.0 * c / (bq + d)
+    return (d - bq) / (2.0 * (K + s))
 
 
-def interp_tables(Tg, lpg, tab, case, T, lp):
-    """Bilinear interpolation in (T, ln p), clamped to the grid, of per-case tables.
-
-    ``tab`` (C, nT, np), or (C, nT, np, k) for k tables at once; ``case`` (index into C), ``T`` [K]
-    and ``lp`` [ln Pa] broadcast.
-    """
-    i = np.clip(np.searchsorted(Tg, T) - 1, 0, Tg.size - 2)
-    j = np.clip(np.searchsorted(lpg, lp) - 1, 0, lpg.size - 2)
-    u = np.clip((T - Tg[i]) / (Tg[i + 1] - Tg[i]), 0.0, 1.0)
-    v = np.clip((lp - lpg[j]) / (lpg[j + 1] - lpg[j]), 0.0, 1.0)
-    if tab.ndim == 4:      # several tables stacked on a last axis
-        u, v = u[..., None], v[..., None]
-    return ((1 - u) * (1 - v) * tab[case, i, j] + u * (1 - v) * tab[case, i + 1, j]
-            + (1 - u) * v * tab[case, i, j + 1] + u * v * tab[case, i + 1, j + 1])
+@jit
+def grow_elements(t, p, T, x, T_freeze, Tg, lpg, ln_w, ln_K, ln_ne, no, frozen_at):
+    """The loop of :func:`integrate_growing_elements`, case by case and element by element
+    (fills ``no`` (B, N, n) [mol/kg] and ``frozen_at`` (B, N))."""
+    B, N, n = T.shape
+    for b in range(B):
+        for e in range(N):
+            cur = 0.0
+            fz = n
+            no[b, e, 0] = 0.0
+            for k in range(1, n):
+                if x[b, e, k - 1] > 0.0 and fz == n:
+                    Tm = 0.5 * (T[b, e, k - 1] + T[b, e, k])
+                    if Tm < T_freeze[b]:
+                        fz = k
+                    else:
+                        lp = math.log(0.5 * (p[b, k - 1] + p[b, k]))
+                        i, j, u, v = _cell(Tg, lpg, Tm, lp)
+                        w = math.exp(_bilinear(ln_w[b], i, j, u, v))
+                        K = math.exp(_bilinear(ln_K[b], i, j, u, v))
+                        ne = math.exp(_bilinear(ln_ne[b], i, j, u, v))
+                        cur = ne * implicit_a_closed(cur / ne, (t[b, k] - t[b, k - 1]) * 2.0 * w / ne, K)
+                if x[b, e, k] > x[b, e, k - 1]:
+                    cur = cur * x[b, e, k - 1] / x[b, e, k]
+                no[b, e, k] = cur
+            frozen_at[b, e] = fz
 
 
 def integrate_growing_elements(t, p, T, x, T_freeze, Tg, lpg, ln_w, ln_K, ln_ne):
@@ -292,32 +326,24 @@ def integrate_growing_elements(t, p, T, x, T_freeze, Tg, lpg, ln_w, ln_K, ln_ne)
     no : ndarray (B, N, n)
         NO of each element [mol/kg], 0 before its birth.  A step integrates the element's NO
         at the mean of its end temperatures and pressures (the implicit step of
-        :func:`no_step`), then dilutes it by the burned gas the element took in.
+        :func:`no_step`, in closed form), then dilutes it by the burned gas the element took in.
     frozen_at : ndarray (B, N) of int
         Index at which each element froze (n if it never did).
+
+    Notes
+    -----
+    The loop is :func:`grow_elements`, compiled by numba where it runs
+    (:mod:`cyclesim.combustion._jit`).
     """
+    from . import zeldovich
+    from ._jit import kernels
+
     B, N, n = T.shape
-    case = np.broadcast_to(np.arange(B)[:, None], (B, N))
-    tab3 = np.stack([ln_w, ln_K, ln_ne], axis=-1)          # one look-up gives all three
-    Tf = np.broadcast_to(np.asarray(T_freeze, dtype=float), (B,))[:, None]
-    no = np.zeros((B, N, n))
-    cur = np.zeros((B, N))
-    frozen_at = np.full((B, N), n)
-    for k in range(1, n):
-        live = (x[:, :, k - 1] > 0) & (frozen_at == n)
-        if live.any():
-            Tm = 0.5 * (T[:, :, k - 1] + T[:, :, k])
-            now_frozen = live & (Tm < Tf)
-            frozen_at = np.where(now_frozen, k, frozen_at)
-            go = live & ~now_frozen
-            if go.any():
-                Tm = np.where(go, Tm, 2000.0)
-                lp = np.broadcast_to(np.log(0.5 * (p[:, k - 1] + p[:, k]))[:, None], (B, N))
-                w, K, ne = np.exp(np.moveaxis(interp_tables(Tg, lpg, tab3, case, Tm, lp), -1, 0))
-                dt = (t[:, k] - t[:, k - 1])[:, None]
-                stepped = ne * implicit_a_closed(cur / ne, dt * 2.0 * w / ne, K)
-                cur = np.where(go, stepped, cur)
-        grown = x[:, :, k] > x[:, :, k - 1]
-        cur = np.where(grown, cur * x[:, :, k - 1] / np.where(grown, x[:, :, k], 1.0), cur)
-        no[:, :, k] = cur
+    c = np.ascontiguousarray
+    no = np.empty((B, N, n))
+    frozen_at = np.empty((B, N), dtype=np.int64)
+    kernels(zeldovich).grow_elements(
+        c(t, dtype=float), c(p, dtype=float), c(T, dtype=float), c(x, dtype=float),
+        c(np.broadcast_to(np.asarray(T_freeze, dtype=float), (B,))), c(Tg, dtype=float), c(lpg, dtype=float),
+        c(ln_w, dtype=float), c(ln_K, dtype=float), c(ln_ne, dtype=float), no, frozen_at)
     return no, frozen_at
