@@ -171,3 +171,20 @@ def outflow(cd_area, p0, T0, R0, g0, pd, dp_lin):
     psi = isentropic_flux(1.0 - np.maximum(x, dp_lin), g0)
     psi = psi * np.minimum(x * (1.0 / dp_lin), 1.0)
     return cd_area * p0 / np.sqrt(R0 * T0) * psi
+
+
+_registered = False
+
+
+def register_compiled() -> None:
+    """Make the kernel-form functions of this module callable from numba-compiled code, as they
+    are (numba compiles their one source where a compiled function calls them); called by the
+    compiled loop's module, so that importing this module does not import numba."""
+    global _registered
+    if _registered:
+        return
+    from numba.extending import register_jitable
+
+    for fn in (critical_ratio_of, isentropic_flux, outflow, orifice_flow):
+        register_jitable(inline="always")(fn)
+    _registered = True

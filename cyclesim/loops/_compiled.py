@@ -20,8 +20,13 @@ import math
 import numpy as np
 from numba import njit
 
+from .. import kernel_ops as _kernel_ops
+from ..cylinder import flow as _flow
 from .layout import CORE_ROWS as _S
 from .layout import block_rows, param_rows
+
+_kernel_ops.register_compiled()   # where / max_above on floats, for the flow kernels below
+_flow.register_compiled()         # the orifice flow's kernels, callable from compiled code
 
 # -- what the loop covers: the compiled forms, by role, and the packed-parameter rows of each --
 # A model gives kernels (or declares ``compiled_form`` "none" / a valve or plenum form below) and
@@ -131,28 +136,18 @@ def _mixture(gas_tab, off, gc, nRm1, uc4, b, T, rho, y, out):
 
 @njit(cache=True, inline="always", error_model="numpy")
 def _outflow(cda, p0, T0, R0, g0, pd, dp_lin):
-    x = 1.0 - pd / max(p0, 1e-300)
-    inv_g = 1.0 / g0
-    e = 1.0 - inv_g
-    pr = 1.0 - max(x, dp_lin)
-    if pr < 0.6066:
-        # the critical ratio (2/(g+1))^(g/(g-1)) is below exp(-1/2) = 0.60653 for every g > 1,
-        # so above that the flow is subsonic without computing it
-        pr = max(pr, (2.0 / (g0 + 1.0)) ** (1.0 / e))
-    pg = pr ** inv_g
-    psi = pg * math.sqrt(max((2.0 / e) * (1.0 - pr / pg), 0.0))   # pr^e = pr / pr^(1/g)
-    psi = psi * min(x * (1.0 / dp_lin), 1.0)
-    return cda * p0 / math.sqrt(R0 * T0) * psi
+    """Isentropic orifice flow from stagnation p0, T0 to pd <= p0: :func:`cyclesim.cylinder.flow.outflow`
+    (its one source, compiled)."""
+    return _flow.outflow(cda, p0, T0, R0, g0, pd, dp_lin)
 
 
 @njit(cache=True, inline="always", error_model="numpy")
 def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
-    """Signed flow from side 1 to side 2 (cyclesim.cylinder.flow.orifice_mass_flow)."""
+    """Signed flow from side 1 to side 2: :func:`cyclesim.cylinder.flow.orifice_flow` (its one
+    source, compiled)."""
     if cda == 0.0:
         return 0.0   # a shut valve (the Python path skips it too)
-    if p1 >= p2:
-        return _outflow(cda, p1, T1, R1, g1, p2, dp_lin)
-    return -_outflow(cda, p2, T2, R2, g2, p1, dp_lin)
+    return _flow.orifice_flow(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin)
 
 
 def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, TB, TO,
