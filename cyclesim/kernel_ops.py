@@ -68,6 +68,11 @@ def register_compiled() -> None:
             return impl
         return None
 
+    from numba.extending import register_jitable
+
+    for fn in (fresh_charge_poly, table_coords, hermite_cubic, along_lnrho, blend, frozen_cp_gamma):
+        register_jitable(inline="always")(fn)
+
     @overload(max_above)
     def _max_above_scalar(x, bound, f, arg):
         if isinstance(x, types.Number):
@@ -83,3 +88,55 @@ def wall_heat_flow(h, T, A_head, A_piston, A_liner, T_wall_head, T_wall_piston, 
     """Heat flow from the gas to the walls [W] for one coefficient h [W/(m^2 K)] on head, piston and
     liner, ``h sum A (T - T_wall)`` (Newton's law of cooling, common practice); kernel form."""
     return h * (A_head * (T - T_wall_head) + A_piston * (T - T_wall_piston) + A_liner * (T - T_wall_liner))
+
+
+# -- the gas-property tables' arithmetic (cyclesim.solve.gas_tables.GasTables), written once: the
+# numpy lookup runs these on arrays (one call on a block of quantities where it can), the compiled
+# loop (cyclesim.loops._compiled._fresh, _mix_at) on floats, quantity by quantity --------------
+
+
+def fresh_charge_poly(c, T):
+    """Fresh-charge ``(u [J/kg], R [J/(kg K)], cv [J/(kg K)])`` at ``T`` [K] from its NASA-7
+    polynomial block ``c``: ``c[k, 0]`` the coefficient of ``T^k`` in u, ``c[k, 2]`` in cv
+    (``c[5, 2]`` is 0), ``c[0, 1]`` the gas constant (McBride, Gordon and Reno 1993, NASA TM-4513,
+    eqs. 2-4: u = h - R T of the mixture's polynomial).  ``c`` is (6, 4) with ``T`` a float, or
+    (6, 4, N) with ``T`` (N,).  Powers of T summed in rising order."""
+    T2 = T * T
+    T3 = T2 * T
+    T4 = T3 * T
+    u = c[0, 0] + T * c[1, 0] + T2 * c[2, 0] + T3 * c[3, 0] + T4 * c[4, 0] + (T4 * T) * c[5, 0]
+    cv = c[0, 2] + T * c[1, 2] + T2 * c[2, 2] + T3 * c[3, 2] + T4 * c[4, 2]
+    return u, c[0, 1], cv
+
+
+def table_coords(T, rho, T0, inv_dT, lr0, x_hi, z_hi):
+    """Position in a burned-gas table uniform in T and ln(rho): ``x`` [-] in temperature steps from
+    ``T0`` [K] and ``z`` = ln(rho) - ``lr0`` [-], clamped into the table (NaN, a state out of range,
+    maps to the first node)."""
+    x = np.fmin(np.fmax((T - T0) * inv_dT, 0.0), x_hi)
+    z = np.fmin(np.fmax(np.log(rho) - lr0, 0.0), z_hi)
+    return x, z
+
+
+def hermite_cubic(c0, c1, c2, c3, t):
+    """``c0 + c1 t + c2 t^2 + c3 t^3`` by Horner's rule: a table cell's cubic Hermite polynomial in the
+    local variable ``t`` in [0, 1] (cubic Hermite interpolation, common practice)."""
+    return c0 + t * (c1 + t * (c2 + t * c3))
+
+
+def along_lnrho(f, slope, dz):
+    """A node value ``f`` moved ``dz`` along ln(rho) with its ``slope`` (linear in ln(rho))."""
+    return f + dz * slope
+
+
+def blend(fresh, burned, y):
+    """Mass-weighted mix of a fresh-charge and a burned-gas property at burned fraction ``y`` [-]:
+    ``fresh + y (burned - fresh)``."""
+    return fresh + y * (burned - fresh)
+
+
+def frozen_cp_gamma(cv, R):
+    """``(cp, gamma)`` of the mixture from ``cv`` and ``R`` [J/(kg K)]: cp = cv + R, gamma = cp / cv
+    (the frozen ideal-gas relations, Heywood 1988, sec. 4.2)."""
+    cp = cv + R
+    return cp, cp / cv

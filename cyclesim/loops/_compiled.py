@@ -73,52 +73,36 @@ CYCLE_END_DEG = 360.0
 
 @njit(cache=True, inline="always", error_model="numpy")
 def _fresh(uc4, b, T, T_mid):
-    """Fresh charge (u, R, cv) at T from the per-case polynomial (rows 2b + (T > T_mid))."""
-    r = 2 * b + (1 if T > T_mid else 0)
-    u = 0.0
-    cv = 0.0
-    pw = 1.0
-    for k in range(6):
-        u += pw * uc4[r, k, 0]
-        cv += pw * uc4[r, k, 2]
-        pw *= T
-    return u, uc4[r, 0, 1], cv
+    """Fresh charge (u, R, cv) at T from the per-case polynomial (rows 2b + (T > T_mid)):
+    :func:`cyclesim.kernel_ops.fresh_charge_poly`."""
+    return _kernel_ops.fresh_charge_poly(uc4[2 * b + (1 if T > T_mid else 0)], T)
 
 
 @njit(cache=True, inline="always", error_model="numpy")
 def _mix_at(gas_tab, off, gc, nRm1, uc4, b, T, rho, y):
-    """GasTables.mixture at one point of case b: (u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cp, gamma)."""
+    """GasTables.mixture at one point of case b: (u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cp, gamma),
+    by the tables' arithmetic in :mod:`cyclesim.kernel_ops` (as the numpy lookup)."""
     T0, inv_dT, lr0, inv_dlr, dlr, x_hi, z_hi, T_mid = gc[0], gc[1], gc[2], gc[3], gc[4], gc[5], gc[6], gc[7]
-    # clamped into the table; NaN (a state out of range) maps to the first node, as numpy's fmax
-    x = (T - T0) * inv_dT
-    if not x > 0.0:
-        x = 0.0
-    elif x > x_hi:
-        x = x_hi
+    x, z = _kernel_ops.table_coords(T, rho, T0, inv_dT, lr0, x_hi, z_hi)
     i = int(x)
-    z = math.log(rho) - lr0 if rho > 0.0 else 0.0
-    if not z > 0.0:
-        z = 0.0
-    elif z > z_hi:
-        z = z_hi
     j = int(z * inv_dlr)
     g = gas_tab[off + i * nRm1 + j]
     t = x - i
     dz = z - j * dlr
     # rows of g: [u, R, u_T, R_T] of the burned gas, then their ln(rho) slopes: cubics in t
-    su = g[16] + t * (g[17] + t * (g[18] + t * g[19]))
-    sR = g[20] + t * (g[21] + t * (g[22] + t * g[23]))
-    fu = g[0] + t * (g[1] + t * (g[2] + t * g[3])) + dz * su
-    fR = g[4] + t * (g[5] + t * (g[6] + t * g[7])) + dz * sR
-    fuT = g[8] + t * (g[9] + t * (g[10] + t * g[11])) + dz * (g[24] + t * (g[25] + t * (g[26] + t * g[27])))
-    fRT = g[12] + t * (g[13] + t * (g[14] + t * g[15])) + dz * (g[28] + t * (g[29] + t * (g[30] + t * g[31])))
+    cub = _kernel_ops.hermite_cubic
+    lin = _kernel_ops.along_lnrho
+    su = cub(g[16], g[17], g[18], g[19], t)
+    sR = cub(g[20], g[21], g[22], g[23], t)
+    fu = lin(cub(g[0], g[1], g[2], g[3], t), su, dz)
+    fR = lin(cub(g[4], g[5], g[6], g[7], t), sR, dz)
+    fuT = lin(cub(g[8], g[9], g[10], g[11], t), cub(g[24], g[25], g[26], g[27], t), dz)
+    fRT = lin(cub(g[12], g[13], g[14], g[15], t), cub(g[28], g[29], g[30], g[31], t), dz)
     uu, Ru, cvu = _fresh(uc4, b, T, T_mid)          # the fresh charge
-    u_y = fu - uu
-    R_y = fR - Ru
-    u_T = cvu + y * (fuT - cvu)
-    R = Ru + y * R_y
-    cp = u_T + R
-    return uu + y * u_y, u_T, y * su, u_y, R, y * fRT, y * sR, R_y, cp, cp / u_T
+    u_T = _kernel_ops.blend(cvu, fuT, y)
+    R = _kernel_ops.blend(Ru, fR, y)
+    cp, gamma = _kernel_ops.frozen_cp_gamma(u_T, R)
+    return _kernel_ops.blend(uu, fu, y), u_T, y * su, fu - uu, R, y * fRT, y * sR, fR - Ru, cp, gamma
 
 
 @njit(cache=True, error_model="numpy")
