@@ -60,17 +60,17 @@ def register_compiled() -> None:
     @overload(fresh_charge)
     def _fresh_charge_scalar(gas, T):
         if isinstance(gas, types.BaseTuple) and isinstance(T, types.Number):
-            from cyclesim.loops._compiled import _fresh
-
             def impl(gas, T):
-                u, R, cv = _fresh(gas[0], gas[1], T, gas[2])
+                uc4, b, T_mid = gas
+                u, R, cv = fresh_charge_poly(uc4[2 * b + (1 if T > T_mid else 0)], T)
                 return u, cv, R
             return impl
         return None
 
     from numba.extending import register_jitable
 
-    for fn in (fresh_charge_poly, table_coords, hermite_cubic, along_lnrho, blend, frozen_cp_gamma):
+    for fn in (fresh_charge_poly, table_coords, hermite_cubic, along_lnrho, blend, frozen_cp_gamma,
+               critical_ratio_of, isentropic_flux, outflow, orifice_flow):
         register_jitable(inline="always")(fn)
 
     @overload(max_above)
@@ -140,3 +140,47 @@ def frozen_cp_gamma(cv, R):
     (the frozen ideal-gas relations, Heywood 1988, sec. 4.2)."""
     cp = cv + R
     return cp, cp / cv
+
+
+# -- compressible flow through a restriction (cyclesim.cylinder.flow documents the laws): kernel form,
+# run on arrays by the valve and ring-leakage models and compiled by the cycle loop and the
+# multi-cylinder engine's manifold laps -----------------------------------------------------
+
+
+def isentropic_flux(pressure_ratio, gamma):
+    """:func:`cyclesim.cylinder.flow.flow_function` in plain elementwise arithmetic (scalars or arrays, compiles with numba).
+
+    ``pressure_ratio`` above 1 counts as 1, below the critical ratio as critical (choked).
+    """
+    inv_g = 1.0 / gamma
+    e = 1.0 - inv_g                                  # (g-1)/g
+    # the critical ratio is below exp(-1/2) = 0.60653 for every g > 1: above 0.6066 the flow is
+    # subsonic without computing it
+    pr = max_above(np.minimum(pressure_ratio, 1.0), 0.6066, critical_ratio_of, gamma)
+    pg = pr ** inv_g
+    return pg * np.sqrt(np.maximum((2.0 / e) * (1.0 - pr / pg), 0.0))   # pr^e = pr / pr^(1/g)
+
+
+def critical_ratio_of(gamma):
+    """:func:`cyclesim.cylinder.flow.critical_pressure_ratio` in kernel form, ``(2 / (g + 1))^(1 / (1 - 1/g))`` [-]."""
+    return (2.0 / (gamma + 1.0)) ** (1.0 / (1.0 - 1.0 / gamma))
+
+
+def orifice_flow(cd_area, p1, T1, R1, gamma1, p2, T2, R2, gamma2, dp_lin):
+    """:func:`cyclesim.cylinder.flow.orifice_mass_flow` in kernel form (plain elementwise arithmetic on arrays or floats,
+    compiles with numba) [kg/s], positive from side 1 to side 2."""
+    forward = p1 >= p2
+    mdot = outflow(cd_area, np.maximum(p1, p2), where(forward, T1, T2), where(forward, R1, R2),
+                   where(forward, gamma1, gamma2), np.minimum(p1, p2), dp_lin)
+    return where(forward, mdot, -mdot)
+
+
+def outflow(cd_area, p0, T0, R0, g0, pd, dp_lin):
+    """:func:`cyclesim.cylinder.flow.orifice_outflow` with ``pd = min(p0, p_downstream)`` given, in kernel form (plain
+    elementwise arithmetic on arrays or floats, compiles with numba) [kg/s]."""
+    # relative pressure drop 0..1 (p0 > 0 for every physical state; a zero p0 gives zero flow)
+    x = 1.0 - pd / np.maximum(p0, 1e-300)
+    # one evaluation of the isentropic flux at pr = 1 - max(x, dp_lin), choked below critical
+    psi = isentropic_flux(1.0 - np.maximum(x, dp_lin), g0)
+    psi = psi * np.minimum(x * (1.0 / dp_lin), 1.0)
+    return cd_area * p0 / np.sqrt(R0 * T0) * psi

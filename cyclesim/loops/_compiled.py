@@ -20,13 +20,11 @@ import math
 import numpy as np
 from numba import njit
 
-from .. import kernel_ops as _kernel_ops
-from ..cylinder import flow as _flow
+import cyclesim.kernel_ops as _kernel_ops
 from .layout import CORE_ROWS as _S
 from .layout import block_rows, param_rows
 
-_kernel_ops.register_compiled()   # where / max_above on floats, for the flow kernels below
-_flow.register_compiled()         # the orifice flow's kernels, callable from compiled code
+_kernel_ops.register_compiled()   # the kernels of kernel_ops (orifice flow, gas tables) on floats
 
 # -- what the loop covers: the compiled forms, by role, and the packed-parameter rows of each --
 # A model gives kernels (or declares ``compiled_form`` "none" / a valve or plenum form below) and
@@ -120,18 +118,18 @@ def _mixture(gas_tab, off, gc, nRm1, uc4, b, T, rho, y, out):
 
 @njit(cache=True, inline="always", error_model="numpy")
 def _outflow(cda, p0, T0, R0, g0, pd, dp_lin):
-    """Isentropic orifice flow from stagnation p0, T0 to pd <= p0: :func:`cyclesim.cylinder.flow.outflow`
+    """Isentropic orifice flow from stagnation p0, T0 to pd <= p0: :func:`cyclesim.kernel_ops.outflow`
     (its one source, compiled)."""
-    return _flow.outflow(cda, p0, T0, R0, g0, pd, dp_lin)
+    return _kernel_ops.outflow(cda, p0, T0, R0, g0, pd, dp_lin)
 
 
 @njit(cache=True, inline="always", error_model="numpy")
 def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
-    """Signed flow from side 1 to side 2: :func:`cyclesim.cylinder.flow.orifice_flow` (its one
+    """Signed flow from side 1 to side 2: :func:`cyclesim.kernel_ops.orifice_flow` (its one
     source, compiled)."""
     if cda == 0.0:
         return 0.0   # a shut valve (the Python path skips it too)
-    return _flow.orifice_flow(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin)
+    return _kernel_ops.orifice_flow(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin)
 
 
 def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, TB, TO,
