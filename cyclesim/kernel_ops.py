@@ -70,7 +70,7 @@ def register_compiled() -> None:
     from numba.extending import register_jitable
 
     for fn in (fresh_charge_poly, table_coords, hermite_cubic, along_lnrho, blend, frozen_cp_gamma,
-               critical_ratio_of, isentropic_flux, outflow, orifice_flow):
+               critical_ratio_of, flux_below_one, isentropic_flux, outflow, orifice_flow):
         register_jitable(inline="always")(fn)
 
     @overload(max_above)
@@ -152,11 +152,16 @@ def isentropic_flux(pressure_ratio, gamma):
 
     ``pressure_ratio`` above 1 counts as 1, below the critical ratio as critical (choked).
     """
+    return flux_below_one(np.minimum(pressure_ratio, 1.0), gamma)
+
+
+def flux_below_one(pressure_ratio, gamma):
+    """:func:`isentropic_flux` for ``pressure_ratio`` <= 1 given (no clamp from above) [-]."""
     inv_g = 1.0 / gamma
     e = 1.0 - inv_g                                  # (g-1)/g
     # the critical ratio is below exp(-1/2) = 0.60653 for every g > 1: above 0.6066 the flow is
     # subsonic without computing it
-    pr = max_above(np.minimum(pressure_ratio, 1.0), 0.6066, critical_ratio_of, gamma)
+    pr = max_above(pressure_ratio, 0.6066, critical_ratio_of, gamma)
     pg = pr ** inv_g
     return pg * np.sqrt(np.maximum((2.0 / e) * (1.0 - pr / pg), 0.0))   # pr^e = pr / pr^(1/g)
 
@@ -181,6 +186,6 @@ def outflow(cd_area, p0, T0, R0, g0, pd, dp_lin):
     # relative pressure drop 0..1 (p0 > 0 for every physical state; a zero p0 gives zero flow)
     x = 1.0 - pd / np.maximum(p0, 1e-300)
     # one evaluation of the isentropic flux at pr = 1 - max(x, dp_lin), choked below critical
-    psi = isentropic_flux(1.0 - np.maximum(x, dp_lin), g0)
+    psi = flux_below_one(1.0 - np.maximum(x, dp_lin), g0)       # dp_lin > 0: below 1
     psi = psi * np.minimum(x * (1.0 / dp_lin), 1.0)
     return cd_area * p0 / np.sqrt(R0 * T0) * psi
