@@ -100,7 +100,7 @@ class CycleRunner:
         t0, t1 = pts[:-1, None], pts[1:, None]
         hit = np.zeros(N, dtype=bool)
         for ev in actions:
-            a = np.asarray(ev.angle_deg(), dtype=float)[None, :]
+            a = np.asarray(ev.angle_deg(), dtype=float).reshape(1, -1)   # (B,) or one angle for all
             hit |= ((a > t0) & (a <= t1)).any(axis=1)
         return frozenset(np.flatnonzero(hit).tolist())
 
