@@ -60,13 +60,18 @@ def register_compiled() -> None:
     @overload(fresh_charge)
     def _fresh_charge_scalar(gas, T):
         if isinstance(gas, types.BaseTuple) and isinstance(T, types.Number):
-            from cyclesim.loops._compiled import _fresh
-
             def impl(gas, T):
-                u, R, cv = _fresh(gas[0], gas[1], T, gas[2])
+                uc4, b, T_mid = gas
+                u, R, cv = fresh_charge_poly(uc4[2 * b + (1 if T > T_mid else 0)], T)
                 return u, cv, R
             return impl
         return None
+
+    from numba.extending import register_jitable
+
+    for fn in (fresh_charge_poly, table_coords, hermite_cubic, along_lnrho, blend, frozen_cp_gamma,
+               critical_ratio_of, flux_below_one, isentropic_flux, outflow, orifice_flow):
+        register_jitable(inline="always")(fn)
 
     @overload(max_above)
     def _max_above_scalar(x, bound, f, arg):
@@ -83,3 +88,104 @@ def wall_heat_flow(h, T, A_head, A_piston, A_liner, T_wall_head, T_wall_piston, 
     """Heat flow from the gas to the walls [W] for one coefficient h [W/(m^2 K)] on head, piston and
     liner, ``h sum A (T - T_wall)`` (Newton's law of cooling, common practice); kernel form."""
     return h * (A_head * (T - T_wall_head) + A_piston * (T - T_wall_piston) + A_liner * (T - T_wall_liner))
+
+
+# -- the gas-property tables' arithmetic (cyclesim.solve.gas_tables.GasTables), written once: the
+# numpy lookup runs these on arrays (one call on a block of quantities where it can), the compiled
+# loop (cyclesim.loops._compiled._fresh, _mix_at) on floats, quantity by quantity --------------
+
+
+def fresh_charge_poly(c, T):
+    """Fresh-charge ``(u [J/kg], R [J/(kg K)], cv [J/(kg K)])`` at ``T`` [K] from its NASA-7
+    polynomial block ``c``: ``c[k, 0]`` the coefficient of ``T^k`` in u, ``c[k, 2]`` in cv
+    (``c[5, 2]`` is 0), ``c[0, 1]`` the gas constant (McBride, Gordon and Reno 1993, NASA TM-4513,
+    eqs. 2-4: u = h - R T of the mixture's polynomial).  ``c`` is (6, 4) with ``T`` a float, or
+    (6, 4, N) with ``T`` (N,).  Powers of T summed in rising order."""
+    T2 = T * T
+    T3 = T2 * T
+    T4 = T3 * T
+    u = c[0, 0] + T * c[1, 0] + T2 * c[2, 0] + T3 * c[3, 0] + T4 * c[4, 0] + (T4 * T) * c[5, 0]
+    cv = c[0, 2] + T * c[1, 2] + T2 * c[2, 2] + T3 * c[3, 2] + T4 * c[4, 2]
+    return u, c[0, 1], cv
+
+
+def table_coords(T, rho, T0, inv_dT, lr0, x_hi, z_hi):
+    """Position in a burned-gas table uniform in T and ln(rho): ``x`` [-] in temperature steps from
+    ``T0`` [K] and ``z`` = ln(rho) - ``lr0`` [-], clamped into the table (NaN, a state out of range,
+    maps to the first node)."""
+    x = np.fmin(np.fmax((T - T0) * inv_dT, 0.0), x_hi)
+    z = np.fmin(np.fmax(np.log(rho) - lr0, 0.0), z_hi)
+    return x, z
+
+
+def hermite_cubic(c0, c1, c2, c3, t):
+    """``c0 + c1 t + c2 t^2 + c3 t^3`` by Horner's rule: a table cell's cubic Hermite polynomial in the
+    local variable ``t`` in [0, 1] (cubic Hermite interpolation, common practice)."""
+    return c0 + t * (c1 + t * (c2 + t * c3))
+
+
+def along_lnrho(f, slope, dz):
+    """A node value ``f`` moved ``dz`` along ln(rho) with its ``slope`` (linear in ln(rho))."""
+    return f + dz * slope
+
+
+def blend(fresh, burned, y):
+    """Mass-weighted mix of a fresh-charge and a burned-gas property at burned fraction ``y`` [-]:
+    ``fresh + y (burned - fresh)``."""
+    return fresh + y * (burned - fresh)
+
+
+def frozen_cp_gamma(cv, R):
+    """``(cp, gamma)`` of the mixture from ``cv`` and ``R`` [J/(kg K)]: cp = cv + R, gamma = cp / cv
+    (the frozen ideal-gas relations, Heywood 1988, sec. 4.2)."""
+    cp = cv + R
+    return cp, cp / cv
+
+
+# -- compressible flow through a restriction (cyclesim.cylinder.flow documents the laws): kernel form,
+# run on arrays by the valve and ring-leakage models and compiled by the cycle loop and the
+# multi-cylinder engine's manifold laps -----------------------------------------------------
+
+
+def isentropic_flux(pressure_ratio, gamma):
+    """:func:`cyclesim.cylinder.flow.flow_function` in plain elementwise arithmetic (scalars or arrays, compiles with numba).
+
+    ``pressure_ratio`` above 1 counts as 1, below the critical ratio as critical (choked).
+    """
+    return flux_below_one(np.minimum(pressure_ratio, 1.0), gamma)
+
+
+def flux_below_one(pressure_ratio, gamma):
+    """:func:`isentropic_flux` for ``pressure_ratio`` <= 1 given (no clamp from above) [-]."""
+    inv_g = 1.0 / gamma
+    e = 1.0 - inv_g                                  # (g-1)/g
+    # the critical ratio is below exp(-1/2) = 0.60653 for every g > 1: above 0.6066 the flow is
+    # subsonic without computing it
+    pr = max_above(pressure_ratio, 0.6066, critical_ratio_of, gamma)
+    pg = pr ** inv_g
+    return pg * np.sqrt(np.maximum((2.0 / e) * (1.0 - pr / pg), 0.0))   # pr^e = pr / pr^(1/g)
+
+
+def critical_ratio_of(gamma):
+    """:func:`cyclesim.cylinder.flow.critical_pressure_ratio` in kernel form, ``(2 / (g + 1))^(1 / (1 - 1/g))`` [-]."""
+    return (2.0 / (gamma + 1.0)) ** (1.0 / (1.0 - 1.0 / gamma))
+
+
+def orifice_flow(cd_area, p1, T1, R1, gamma1, p2, T2, R2, gamma2, dp_lin):
+    """:func:`cyclesim.cylinder.flow.orifice_mass_flow` in kernel form (plain elementwise arithmetic on arrays or floats,
+    compiles with numba) [kg/s], positive from side 1 to side 2."""
+    forward = p1 >= p2
+    mdot = outflow(cd_area, np.maximum(p1, p2), where(forward, T1, T2), where(forward, R1, R2),
+                   where(forward, gamma1, gamma2), np.minimum(p1, p2), dp_lin)
+    return where(forward, mdot, -mdot)
+
+
+def outflow(cd_area, p0, T0, R0, g0, pd, dp_lin):
+    """:func:`cyclesim.cylinder.flow.orifice_outflow` with ``pd = min(p0, p_downstream)`` given, in kernel form (plain
+    elementwise arithmetic on arrays or floats, compiles with numba) [kg/s]."""
+    # relative pressure drop 0..1 (p0 > 0 for every physical state; a zero p0 gives zero flow)
+    x = 1.0 - pd / np.maximum(p0, 1e-300)
+    # one evaluation of the isentropic flux at pr = 1 - max(x, dp_lin), choked below critical
+    psi = flux_below_one(1.0 - np.maximum(x, dp_lin), g0)       # dp_lin > 0: below 1
+    psi = psi * np.minimum(x * (1.0 / dp_lin), 1.0)
+    return cd_area * p0 / np.sqrt(R0 * T0) * psi

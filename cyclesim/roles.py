@@ -177,16 +177,32 @@ class ParamValues(SimpleNamespace):
 def _kernel_call(model, s: GasState, attr: str = "kernel"):
     """A model's kernel (the class attribute ``attr``) on the Python path (arrays (B,)), its
     parameters from ``pack()`` (once)."""
-    from .loops.loopgen import call_on, kernel_of
+    bound = model.__dict__.get("_kernel_" + attr)
+    if bound is None:
+        bound = _bind(model, attr)
+    plan, fn, packed, gas = bound
+    if _errors_ignored():          # the cycle loop's own setting: no second context
+        return plan.call(fn, s, packed, gas)
+    with np.errstate(invalid="ignore", divide="ignore"):   # a kernel is branch-free: masked values may be NaN
+        return plan.call(fn, s, packed, gas)
+
+
+def _bind(model, attr: str) -> tuple:
+    """(argument plan, kernel, packed parameters, gas tables) of a model for :func:`_kernel_call`,
+    found once per model (the kernel by the class attribute ``attr``, ``state_kernel`` for the
+    states; a model without a state kernel gets (None, None, None, None))."""
+    from .loops.loopgen import _plan_for, kernel_of
 
     fn = kernel_of(type(model), attr)
     if fn is None:
-        raise NotImplementedError(f"{model.role} model {model.name!r} defines neither the method nor a kernel")
-    gas = getattr(model.ctx, "gas", None)
-    if np.geterr()["invalid"] == "ignore":       # the cycle loop's own setting: no second context
-        return call_on(fn, s, _packed_once(model), model.role, gas)
-    with np.errstate(invalid="ignore", divide="ignore"):   # a kernel is branch-free: masked values may be NaN
-        return call_on(fn, s, _packed_once(model), model.role, gas)
+        if attr != "state_kernel":
+            raise NotImplementedError(f"{model.role} model {model.name!r} defines neither the method nor a kernel")
+        bound = (None, None, None, None)
+    else:
+        packed = _packed_once(model)
+        bound = (_plan_for(fn, packed, model.role), fn, packed, getattr(model.ctx, "gas", None))
+    model.__dict__["_kernel_" + attr] = bound
+    return bound
 
 
 def _packed_once(model) -> dict:
@@ -195,6 +211,28 @@ def _packed_once(model) -> dict:
     if packed is None:
         packed = model.__dict__["_packed_kernel"] = dict(model.pack())
     return packed
+
+
+try:        # numpy >= 2: the error state is a context variable, read without building a dict
+    from numpy._core._multiarray_umath import _extobj_contextvar as _EXTOBJ
+except ImportError:  # pragma: no cover - older numpy
+    _EXTOBJ = None
+_seen_errstate: tuple = (None, False)
+
+
+def _errors_ignored() -> bool:
+    """Whether numpy ignores invalid operations here (``np.geterr()["invalid"] == "ignore"``),
+    computed once per error-state context (the cycle loop enters one per cycle)."""
+    global _seen_errstate
+    if _EXTOBJ is None:  # pragma: no cover
+        return np.geterr()["invalid"] == "ignore"
+    ext = _EXTOBJ.get()
+    seen = _seen_errstate
+    if seen[0] is ext:
+        return seen[1]
+    got = np.geterr()["invalid"] == "ignore"
+    _seen_errstate = (ext, got)
+    return got
 
 
 class Submodel:
@@ -280,20 +318,20 @@ class Submodel:
     def derivatives(self, s: GasState) -> Mapping[str, np.ndarray]:
         """Time derivatives [unit/s] of the components named in :meth:`states` (default: the
         :attr:`state_kernel` on arrays, else none)."""
-        from .loops.loopgen import call_on, state_kernel_of
-
-        fn = state_kernel_of(type(self))
+        bound = self.__dict__.get("_kernel_state_kernel")
+        if bound is None:
+            bound = _bind(self, "state_kernel")
+        plan, fn, packed, gas = bound
         if fn is None:
             return {}
         names = self.__dict__.get("_state_names")
         if names is None:
             names = self.__dict__["_state_names"] = [sv.name for sv in self.states()]
-        gas = getattr(self.ctx, "gas", None)
-        if np.geterr()["invalid"] == "ignore":   # the cycle loop's own setting: no second context
-            got = call_on(fn, s, _packed_once(self), self.role, gas)
+        if _errors_ignored():   # the cycle loop's own setting: no second context
+            got = plan.call(fn, s, packed, gas)
         else:
             with np.errstate(invalid="ignore", divide="ignore"):   # branch-free: masked values may be NaN
-                got = call_on(fn, s, _packed_once(self), self.role, gas)
+                got = plan.call(fn, s, packed, gas)
         if len(names) == 1:
             return {names[0]: got}
         if not isinstance(got, tuple) or len(got) != len(names):

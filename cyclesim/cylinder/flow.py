@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..kernel_ops import max_above, where
+from ..kernel_ops import critical_ratio_of, isentropic_flux, orifice_flow, outflow  # noqa: F401 - the kernels, re-exported
 
 DP_LIN_DEFAULT = 1e-3
 """Default relative pressure difference below which the flow law is linear [-]."""
@@ -54,25 +54,6 @@ def flow_function(pressure_ratio, gamma):
         ``sqrt(g) (2/(g+1))^((g+1)/(2(g-1)))`` (Heywood 1988, App. C).
     """
     return isentropic_flux(np.asarray(pressure_ratio, dtype=float), np.asarray(gamma, dtype=float))
-
-
-def isentropic_flux(pressure_ratio, gamma):
-    """:func:`flow_function` in plain elementwise arithmetic (scalars or arrays, compiles with numba).
-
-    ``pressure_ratio`` above 1 counts as 1, below the critical ratio as critical (choked).
-    """
-    inv_g = 1.0 / gamma
-    e = 1.0 - inv_g                                  # (g-1)/g
-    # the critical ratio is below exp(-1/2) = 0.60653 for every g > 1: above 0.6066 the flow is
-    # subsonic without computing it
-    pr = max_above(np.minimum(pressure_ratio, 1.0), 0.6066, critical_ratio_of, gamma)
-    pg = pr ** inv_g
-    return pg * np.sqrt(np.maximum((2.0 / e) * (1.0 - pr / pg), 0.0))   # pr^e = pr / pr^(1/g)
-
-
-def critical_ratio_of(gamma):
-    """:func:`critical_pressure_ratio` in kernel form, ``(2 / (g + 1))^(1 / (1 - 1/g))`` [-]."""
-    return (2.0 / (gamma + 1.0)) ** (1.0 / (1.0 - 1.0 / gamma))
 
 
 def orifice_mass_flow(cd_area, p1, T1, R1, gamma1, p2, T2, R2, gamma2, dp_lin=DP_LIN_DEFAULT):
@@ -126,15 +107,6 @@ def orifice_mass_flow(cd_area, p1, T1, R1, gamma1, p2, T2, R2, gamma2, dp_lin=DP
                         np.asarray(gamma2, dtype=float), dp_lin)
 
 
-def orifice_flow(cd_area, p1, T1, R1, gamma1, p2, T2, R2, gamma2, dp_lin):
-    """:func:`orifice_mass_flow` in kernel form (plain elementwise arithmetic on arrays or floats,
-    compiles with numba) [kg/s], positive from side 1 to side 2."""
-    forward = p1 >= p2
-    mdot = outflow(cd_area, np.maximum(p1, p2), where(forward, T1, T2), where(forward, R1, R2),
-                   where(forward, gamma1, gamma2), np.minimum(p1, p2), dp_lin)
-    return where(forward, mdot, -mdot)
-
-
 def orifice_outflow(cd_area, p1, T1, R1, gamma1, p2, dp_lin=DP_LIN_DEFAULT):
     """Mass flow from side 1 to side 2 [kg/s], zero when ``p2 >= p1`` (one-way restriction).
 
@@ -160,17 +132,6 @@ def orifice_outflow(cd_area, p1, T1, R1, gamma1, p2, dp_lin=DP_LIN_DEFAULT):
 def _outflow(cd_area, p0, T0, R0, g0, pd, dp_lin):
     """Isentropic orifice flow [kg/s] from stagnation ``p0, T0`` to ``pd <= p0`` (arrays)."""
     return outflow(np.asarray(cd_area, dtype=float), p0, T0, R0, np.asarray(g0, dtype=float), pd, dp_lin)
-
-
-def outflow(cd_area, p0, T0, R0, g0, pd, dp_lin):
-    """:func:`orifice_outflow` with ``pd = min(p0, p_downstream)`` given, in kernel form (plain
-    elementwise arithmetic on arrays or floats, compiles with numba) [kg/s]."""
-    # relative pressure drop 0..1 (p0 > 0 for every physical state; a zero p0 gives zero flow)
-    x = 1.0 - pd / np.maximum(p0, 1e-300)
-    # one evaluation of the isentropic flux at pr = 1 - max(x, dp_lin), choked below critical
-    psi = isentropic_flux(1.0 - np.maximum(x, dp_lin), g0)
-    psi = psi * np.minimum(x * (1.0 / dp_lin), 1.0)
-    return cd_area * p0 / np.sqrt(R0 * T0) * psi
 
 
 def turbine_outlet_temperature(T3, expansion_ratio, eta_t, gamma):

@@ -20,8 +20,11 @@ import math
 import numpy as np
 from numba import njit
 
+import cyclesim.kernel_ops as _kernel_ops
 from .layout import CORE_ROWS as _S
 from .layout import block_rows, param_rows
+
+_kernel_ops.register_compiled()   # the kernels of kernel_ops (orifice flow, gas tables) on floats
 
 # -- what the loop covers: the compiled forms, by role, and the packed-parameter rows of each --
 # A model gives kernels (or declares ``compiled_form`` "none" / a valve or plenum form below) and
@@ -68,52 +71,36 @@ CYCLE_END_DEG = 360.0
 
 @njit(cache=True, inline="always", error_model="numpy")
 def _fresh(uc4, b, T, T_mid):
-    """Fresh charge (u, R, cv) at T from the per-case polynomial (rows 2b + (T > T_mid))."""
-    r = 2 * b + (1 if T > T_mid else 0)
-    u = 0.0
-    cv = 0.0
-    pw = 1.0
-    for k in range(6):
-        u += pw * uc4[r, k, 0]
-        cv += pw * uc4[r, k, 2]
-        pw *= T
-    return u, uc4[r, 0, 1], cv
+    """Fresh charge (u, R, cv) at T from the per-case polynomial (rows 2b + (T > T_mid)):
+    :func:`cyclesim.kernel_ops.fresh_charge_poly`."""
+    return _kernel_ops.fresh_charge_poly(uc4[2 * b + (1 if T > T_mid else 0)], T)
 
 
 @njit(cache=True, inline="always", error_model="numpy")
 def _mix_at(gas_tab, off, gc, nRm1, uc4, b, T, rho, y):
-    """GasTables.mixture at one point of case b: (u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cp, gamma)."""
+    """GasTables.mixture at one point of case b: (u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cp, gamma),
+    by the tables' arithmetic in :mod:`cyclesim.kernel_ops` (as the numpy lookup)."""
     T0, inv_dT, lr0, inv_dlr, dlr, x_hi, z_hi, T_mid = gc[0], gc[1], gc[2], gc[3], gc[4], gc[5], gc[6], gc[7]
-    # clamped into the table; NaN (a state out of range) maps to the first node, as numpy's fmax
-    x = (T - T0) * inv_dT
-    if not x > 0.0:
-        x = 0.0
-    elif x > x_hi:
-        x = x_hi
+    x, z = _kernel_ops.table_coords(T, rho, T0, inv_dT, lr0, x_hi, z_hi)
     i = int(x)
-    z = math.log(rho) - lr0 if rho > 0.0 else 0.0
-    if not z > 0.0:
-        z = 0.0
-    elif z > z_hi:
-        z = z_hi
     j = int(z * inv_dlr)
     g = gas_tab[off + i * nRm1 + j]
     t = x - i
     dz = z - j * dlr
     # rows of g: [u, R, u_T, R_T] of the burned gas, then their ln(rho) slopes: cubics in t
-    su = g[16] + t * (g[17] + t * (g[18] + t * g[19]))
-    sR = g[20] + t * (g[21] + t * (g[22] + t * g[23]))
-    fu = g[0] + t * (g[1] + t * (g[2] + t * g[3])) + dz * su
-    fR = g[4] + t * (g[5] + t * (g[6] + t * g[7])) + dz * sR
-    fuT = g[8] + t * (g[9] + t * (g[10] + t * g[11])) + dz * (g[24] + t * (g[25] + t * (g[26] + t * g[27])))
-    fRT = g[12] + t * (g[13] + t * (g[14] + t * g[15])) + dz * (g[28] + t * (g[29] + t * (g[30] + t * g[31])))
+    cub = _kernel_ops.hermite_cubic
+    lin = _kernel_ops.along_lnrho
+    su = cub(g[16], g[17], g[18], g[19], t)
+    sR = cub(g[20], g[21], g[22], g[23], t)
+    fu = lin(cub(g[0], g[1], g[2], g[3], t), su, dz)
+    fR = lin(cub(g[4], g[5], g[6], g[7], t), sR, dz)
+    fuT = lin(cub(g[8], g[9], g[10], g[11], t), cub(g[24], g[25], g[26], g[27], t), dz)
+    fRT = lin(cub(g[12], g[13], g[14], g[15], t), cub(g[28], g[29], g[30], g[31], t), dz)
     uu, Ru, cvu = _fresh(uc4, b, T, T_mid)          # the fresh charge
-    u_y = fu - uu
-    R_y = fR - Ru
-    u_T = cvu + y * (fuT - cvu)
-    R = Ru + y * R_y
-    cp = u_T + R
-    return uu + y * u_y, u_T, y * su, u_y, R, y * fRT, y * sR, R_y, cp, cp / u_T
+    u_T = _kernel_ops.blend(cvu, fuT, y)
+    R = _kernel_ops.blend(Ru, fR, y)
+    cp, gamma = _kernel_ops.frozen_cp_gamma(u_T, R)
+    return _kernel_ops.blend(uu, fu, y), u_T, y * su, fu - uu, R, y * fRT, y * sR, fR - Ru, cp, gamma
 
 
 @njit(cache=True, error_model="numpy")
@@ -131,28 +118,18 @@ def _mixture(gas_tab, off, gc, nRm1, uc4, b, T, rho, y, out):
 
 @njit(cache=True, inline="always", error_model="numpy")
 def _outflow(cda, p0, T0, R0, g0, pd, dp_lin):
-    x = 1.0 - pd / max(p0, 1e-300)
-    inv_g = 1.0 / g0
-    e = 1.0 - inv_g
-    pr = 1.0 - max(x, dp_lin)
-    if pr < 0.6066:
-        # the critical ratio (2/(g+1))^(g/(g-1)) is below exp(-1/2) = 0.60653 for every g > 1,
-        # so above that the flow is subsonic without computing it
-        pr = max(pr, (2.0 / (g0 + 1.0)) ** (1.0 / e))
-    pg = pr ** inv_g
-    psi = pg * math.sqrt(max((2.0 / e) * (1.0 - pr / pg), 0.0))   # pr^e = pr / pr^(1/g)
-    psi = psi * min(x * (1.0 / dp_lin), 1.0)
-    return cda * p0 / math.sqrt(R0 * T0) * psi
+    """Isentropic orifice flow from stagnation p0, T0 to pd <= p0: :func:`cyclesim.kernel_ops.outflow`
+    (its one source, compiled)."""
+    return _kernel_ops.outflow(cda, p0, T0, R0, g0, pd, dp_lin)
 
 
 @njit(cache=True, inline="always", error_model="numpy")
 def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
-    """Signed flow from side 1 to side 2 (cyclesim.cylinder.flow.orifice_mass_flow)."""
+    """Signed flow from side 1 to side 2: :func:`cyclesim.kernel_ops.orifice_flow` (its one
+    source, compiled)."""
     if cda == 0.0:
         return 0.0   # a shut valve (the Python path skips it too)
-    if p1 >= p2:
-        return _outflow(cda, p1, T1, R1, g1, p2, dp_lin)
-    return -_outflow(cda, p2, T2, R2, g2, p1, dp_lin)
+    return _kernel_ops.orifice_flow(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin)
 
 
 def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, TB, TO,

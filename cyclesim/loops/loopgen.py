@@ -20,7 +20,6 @@ from __future__ import annotations
 import hashlib
 import importlib.util
 import inspect
-import operator
 import os
 import sys
 import textwrap
@@ -113,7 +112,7 @@ def call_on(fn, state, packed, role: str = "", gas=None):
     """The kernel on the Python path: parameters from ``packed`` (the model's ``pack()``),
     the model's own states from ``state.sub`` (by ``role.name``), the other arguments from
     ``state`` (a GasState; ``gas`` where the state carries no gas tables)."""
-    return fn(*_plan_for(fn, packed, role).args(state, packed, gas))
+    return _plan_for(fn, packed, role).call(fn, state, packed, gas)
 
 
 _PLANS: dict = {}
@@ -129,64 +128,64 @@ def _plan_for(fn, packed, role: str) -> "_ArgPlan":
     return plan
 
 
-def _tuple_getter(make, keys: tuple):
-    """``make(*keys)`` (``operator.itemgetter`` or ``attrgetter``) that always gives a tuple."""
-    if not keys:
-        return lambda obj: ()
-    if len(keys) == 1:
-        one = make(keys[0])
-        return lambda obj: (one(obj),)
-    return make(*keys)
-
-
 class _ArgPlan:
     """Where each kernel argument comes from: ``packed`` (by name), else the model's own states in
     ``state.sub`` (``role.name``), else ``state.gas`` (or the model's gas) for ``gas``, else a
     ``state`` field.
 
-    Each source is read by one ``operator`` getter and the values put back in the kernel's order
-    by another; which arguments ``state.sub`` gives is looked up per call (a set intersection)
-    and the getters for it are made once."""
+    Which arguments ``state.sub`` gives is looked up per call (a set intersection); for each such
+    set the plan writes, once, a caller that reads every argument straight from its source
+    (``packed["a"]``, ``sub["role.a"]``, ``state.a``) in the kernel's order: one Python frame
+    per kernel call, values read at each call."""
 
-    __slots__ = ("names", "role", "in_packed", "not_packed", "sub_keys", "get_packed", "variants")
+    __slots__ = ("names", "role", "in_packed", "not_packed", "sub_keys", "variants", "no_sub")
 
     def __init__(self, names: tuple, packed, role: str) -> None:
         self.names, self.role = names, role
-        p_names = tuple(a for a in names if a in packed)
         rest = tuple(a for a in names if a not in packed)
-        self.in_packed, self.not_packed = frozenset(p_names), frozenset(rest)
+        self.in_packed = frozenset(a for a in names if a in packed)
+        self.not_packed = frozenset(rest)
         self.sub_keys = frozenset(f"{role}.{a}" for a in rest)
-        self.get_packed = _tuple_getter(operator.itemgetter, p_names)
         self.variants: dict = {}
+        self.no_sub = self._variant(frozenset())
 
     def fits(self, packed) -> bool:
         """Whether ``packed`` gives exactly this plan's packed arguments among the kernel's."""
         keys = packed.keys()
         return self.in_packed <= keys and self.not_packed.isdisjoint(keys)
 
-    def _variant(self, present: frozenset) -> tuple:
-        """The getters where ``state.sub`` holds the keys ``present`` (of :attr:`sub_keys`)."""
+    def _variant(self, present: frozenset):
+        """The caller where ``state.sub`` holds the keys ``present`` (of :attr:`sub_keys`)."""
         role = self.role
-        p_names = tuple(a for a in self.names if a in self.in_packed)
-        rest = [a for a in self.names if a not in self.in_packed]
-        from_sub = tuple(a for a in rest if f"{role}.{a}" in present)
-        fields = tuple(a for a in rest if a not in from_sub and a != "gas")
-        has_gas = "gas" in rest and "gas" not in from_sub
-        pos = {a: i for i, a in enumerate(p_names + from_sub + fields + (("gas",) if has_gas else ()))}
-        got = (_tuple_getter(operator.itemgetter, tuple(f"{role}.{a}" for a in from_sub)),
-               _tuple_getter(operator.attrgetter, fields), has_gas,
-               _tuple_getter(operator.itemgetter, tuple(pos[a] for a in self.names)))
-        self.variants[present] = got
-        return got
+        exprs = []
+        for a in self.names:
+            if a in self.in_packed:
+                exprs.append(f"packed[{a!r}]")
+            elif f"{role}.{a}" in present:
+                exprs.append(f"sub[{role + '.' + a!r}]")
+            elif a == "gas":
+                exprs.append("getattr(state, 'gas', gas)")
+            else:
+                exprs.append(f"state.{a}")
+        src = (f"def call(fn, state, packed, gas, sub):\n"
+               f"    return fn({', '.join(exprs)})\n")
+        ns: dict = {}
+        exec(compile(src, f"<kernel call of {', '.join(self.names) or 'no arguments'}>", "exec"), ns)  # noqa: S102
+        self.variants[present] = ns["call"]
+        return ns["call"]
+
+    def call(self, fn, state, packed, gas):
+        """``fn`` called on the arguments this plan reads from ``state``, ``packed`` and ``gas``."""
+        sub = getattr(state, "sub", None)
+        if not sub or not self.sub_keys:
+            return self.no_sub(fn, state, packed, gas, sub)
+        present = self.sub_keys.intersection(sub)
+        v = self.variants.get(present) or self._variant(frozenset(present))
+        return v(fn, state, packed, gas, sub)
 
     def args(self, state, packed, gas) -> tuple:
-        sub = getattr(state, "sub", None)
-        present = self.sub_keys.intersection(sub) if sub else frozenset()
-        v = self.variants.get(present) or self._variant(frozenset(present))
-        vals = self.get_packed(packed) + v[0](sub) + v[1](state)
-        if v[2]:
-            vals += (getattr(state, "gas", gas),)
-        return v[3](vals)
+        """The kernel's arguments, in order (as :meth:`call` passes them)."""
+        return self.call(lambda *a: a, state, packed, gas)
 
 
 def _source(fn) -> str:

@@ -79,6 +79,7 @@ class CycleRunner:
         cpl = self.coupling
         if cpl is not None:
             cpl.start_cycle()
+        acting = self._steps_with_events(th_pts, N)
         for i in range(N):
             th = th_pts[2 * i]
             tn = th_pts[2 * i + 2]
@@ -95,13 +96,28 @@ class CycleRunner:
             F[:, :, i] = ks[0]
             y = advance(y, h, tab, ks)
             self._stop_unphysical(y, Y[:, :, i], tn)
-            if self.events.actions:
+            if i in acting:
                 self.events.after_step(StepContext(self.batch, rhs, th, tn, h, Y[:, :, i], y))
         Y[:, :, N] = y
         F[:, :, N] = rhs(th_pts[2 * N], y, geo_pts[2 * N], open_at[2 * N])
         if cpl is not None:
             self.pipe_record = cpl.finish_cycle()
         return y
+
+    def _steps_with_events(self, th_pts, N: int) -> frozenset:
+        """The steps (indices) that cross the angle of an acting event for some case, found once per
+        cycle from the events' angles (``theta0 < angle <= theta1``, as
+        :meth:`cyclesim.solve.events.CycleEvents.after_step` tests it within the step)."""
+        actions = self.events.actions
+        if not actions:
+            return frozenset()
+        pts = np.asarray(th_pts[0:2 * N + 1:2], dtype=float)
+        t0, t1 = pts[:-1, None], pts[1:, None]
+        hit = np.zeros(N, dtype=bool)
+        for ev in actions:
+            a = np.asarray(ev.angle_deg(), dtype=float).reshape(1, -1)   # (B,) or one angle for all
+            hit |= ((a > t0) & (a <= t1)).any(axis=1)
+        return frozenset(np.flatnonzero(hit).tolist())
 
     def _stop_unphysical(self, y: np.ndarray, y_prev: np.ndarray, tn: float) -> None:
         """Stop the cases whose end-of-step state left the physical range (they keep the state of

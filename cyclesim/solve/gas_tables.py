@@ -16,6 +16,7 @@ from typing import Mapping
 import numpy as np
 
 from ..errors import ConfigError
+from ..kernel_ops import along_lnrho, blend, fresh_charge_poly, frozen_cp_gamma, hermite_cubic, table_coords
 from ..params import suggestion
 from ..gas.equilibrium import SPECIES, equilibrate_tv, equilibrium_properties
 from ..gas.thermo import (R_U,
@@ -128,7 +129,12 @@ class _CaseTable:
 
 
 def _poly_u(u_coef, cv_coef, T):
-    """u [J/kg] and cv [J/(kg K)] of a fixed-composition mixture, T any shape."""
+    """u [J/kg] and cv [J/(kg K)] of a fixed-composition mixture, T any shape, by Horner's rule.
+
+    Used once per table for the datum ``h298_u``; the solver's lookups evaluate the same
+    polynomial by :func:`cyclesim.kernel_ops.fresh_charge_poly` (rising powers, the compiled
+    loop's order).  The two orders differ by rounding only; this one is kept so that the datum,
+    and with it every figure, stays as it was to the last digit."""
     T = np.asarray(T, dtype=float)
     hi = (T > T_MID)[..., None]
     cu = np.where(hi, u_coef[1], u_coef[0])
@@ -219,11 +225,6 @@ class GasTables:
             uc4[b, :, 0, 1] = c.R_u
             uc4[b, :, :, 2] = c.cv_coef
         self._uc4 = uc4.reshape(2 * self.B, 6, 4)
-        self._uc_u = np.ascontiguousarray(self._uc4[:, :, 0])     # (2B, 6) u coefficients
-        self._uc_cv = np.ascontiguousarray(self._uc4[:, :, 2])    # (2B, 6) cv coefficients
-        self._uc_R = self._uc4[:, 0, 1].copy()                    # (2B,) gas constant
-        self._u_coef_case = np.stack([c.u_coef for c in cases])  # (B, 2, 6)
-        self._cv_coef_case = np.stack([c.cv_coef for c in cases])
         self._row2 = 2 * np.arange(self.B)
         # burned gas: one flat table of all distinct case tables
         nT, nR = tabs[0].shape
@@ -254,34 +255,20 @@ class GasTables:
             return U4[:, 0], U4[:, 2], self.R_unburned.copy()
         shape = T.shape
         T2 = T.reshape(self.B, -1)
-        hi = (T2 > T_MID)[..., None]
-        cu = np.where(hi, self._u_coef_case[:, None, 1], self._u_coef_case[:, None, 0])
-        cc = np.where(hi, self._cv_coef_case[:, None, 1], self._cv_coef_case[:, None, 0])
-        u = cu[..., 5]
-        cv = cc[..., 4]
-        for i in (4, 3, 2, 1, 0):
-            u = u * T2 + cu[..., i]
-        for i in (3, 2, 1, 0):
-            cv = cv * T2 + cc[..., i]
-        R = np.broadcast_to(self.R_unburned[:, None], T2.shape).copy()
-        return u.reshape(shape), cv.reshape(shape), R.reshape(shape)
+        U4 = self._unburned_rows(T2.ravel(), (self._row2[:, None] + (T2 > T_MID)).ravel())
+        return U4[:, 0].reshape(shape), U4[:, 2].reshape(shape), U4[:, 1].reshape(shape)
 
     def _unburned4(self, T: np.ndarray) -> np.ndarray:
-        """[u, R, cv, 0] of the fresh charge at ``T`` [K] (B,) -> (B, 4), by Horner's rule."""
+        """[u, R, cv, 0] of the fresh charge at ``T`` [K] (B,) -> (B, 4)."""
         return self._unburned_rows(T, self._row2 + (T > T_MID))
 
     def _unburned_rows(self, T: np.ndarray, rows: np.ndarray) -> np.ndarray:
         """[u, R, cv, 0] (N, 4) at ``T`` (N,) with the coefficient rows ``rows`` (N,)."""
-        cu = self._uc_u[rows]
-        cc = self._uc_cv[rows]
-        u = cu[:, 5]
-        cv = cc[:, 5]
-        for k in (4, 3, 2, 1, 0):
-            u = u * T + cu[:, k]
-            cv = cv * T + cc[:, k]
+        # the coefficient blocks (6, 4, N): c[k, q] of every point
+        u, R, cv = fresh_charge_poly(self._uc4[rows].transpose(1, 2, 0), T)
         out = np.empty((u.size, 4))
         out[:, 0] = u
-        out[:, 1] = self._uc_R[rows]
+        out[:, 1] = R
         out[:, 2] = cv
         out[:, 3] = 0.0
         return out
@@ -296,17 +283,15 @@ class GasTables:
         """[u, R, u_T, R_T] (N, 4) and [u_lnrho, R_lnrho] (N, 2) from the tables (T, rho (N,))."""
         # fmax/fmin map NaN (a state out of range) into the table, so the lookup stays valid and
         # the caller sees the non-finite input in its own results
-        x = np.fmin(np.fmax((T - self._T0) * self._inv_dT, 0.0), self._x_hi)
+        x, z = table_coords(T, rho, self._T0, self._inv_dT, self._lr0, self._x_hi, self._z_hi)
         i = x.astype(np.intp)
-        z = np.fmin(np.fmax(np.log(rho) - self._lr0, 0.0), self._z_hi)
         j = (z * self._inv_dlr).astype(np.intp)
         off = self._offset if offset is None else offset
         g = self._table[off + i * (self._nR - 1) + j].reshape(-1, 8, 4)
-        t = (x - i)[:, None]
-        # (N, 8): base [u, R, u_T, R_T], then slopes; the cubic in t by Horner's rule
-        v = g[:, :, 0] + t * (g[:, :, 1] + t * (g[:, :, 2] + t * g[:, :, 3]))
+        # (N, 8): base [u, R, u_T, R_T], then slopes: the cell's cubics in t, all in one block
+        v = hermite_cubic(g[:, :, 0], g[:, :, 1], g[:, :, 2], g[:, :, 3], (x - i)[:, None])
         s = v[:, 4:]
-        f = v[:, :4] + (z - j * self._dlr)[:, None] * s
+        f = along_lnrho(v[:, :4], s, (z - j * self._dlr)[:, None])
         return f, s
 
     def burned(self, T, rho):
@@ -432,11 +417,11 @@ def _mix(f: np.ndarray, s: np.ndarray, U: np.ndarray, y: np.ndarray) -> MixProps
     slopes ``s`` (N, 4), the fresh charge ``U`` = [u, R, cv, 0] (N, 4) and the burned fraction y."""
     D = f - U                               # [u_y, R_y, du_T, R_T of the burned gas]
     yc = y[:, None]
-    M = U + yc * D                          # [u, R, u_T, R_T] of the mixture
+    M = blend(U, f, yc)                     # [u, R, u_T, R_T] of the mixture
     S = yc * s[:, :2]                       # [u_lnrho, R_lnrho]
     u_T = M[:, 2]
-    cp = u_T + M[:, 1]
-    return MixProps(M[:, 0], u_T, S[:, 0], D[:, 0], M[:, 1], M[:, 3], S[:, 1], D[:, 1], u_T, cp, cp / u_T)
+    cp, gamma = frozen_cp_gamma(u_T, M[:, 1])
+    return MixProps(M[:, 0], u_T, S[:, 0], D[:, 0], M[:, 1], M[:, 3], S[:, 1], D[:, 1], u_T, cp, gamma)
 
 
 def build_gas_tables(fuel: "Fuel", phi, burned_model: str = "equilibrium") -> GasTables:

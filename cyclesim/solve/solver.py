@@ -70,6 +70,8 @@ from .periodic import COARSE_CYCLES, COARSE_SCHEDULE, COARSE_STEP_MAX_DEG, Cylin
 from .cycle_run import LOOP_RERUN  # noqa: F401 - re-exported
 
 _M, _T = IDX["m"], IDX["T"]
+_LAW_ROWS = tuple(IDX[k] for k in ("m", "T", "m_b", "W", "H_bb", "H_int", "H_exh"))
+"""The state rows of :func:`cyclesim.loops.balance.first_law`'s rates, in its order."""
 
 
 def raised_at(exc: BaseException, model=None) -> str:
@@ -418,9 +420,10 @@ class _RHS:
         yin_e = yb if yin_e is None else yin_e
         hin_e = h if hin_e is None else hin_e
         dQ = mul(Qw, dt, out=out[IDX["Q_w"]])
-        rows = [IDX[k] for k in ("m", "T", "m_b", "W", "H_bb", "H_int", "H_exh")]
-        out[rows] = first_law(m, V, dV, p, u, mp.u_T, mp.u_lnrho, mp.u_y, yb, h, dm_burn, fi, yin_i, hin_i,
-                              fe, yin_e, hin_e, fbb, dQ)
+        rates = first_law(m, V, dV, p, u, mp.u_T, mp.u_lnrho, mp.u_y, yb, h, dm_burn, fi, yin_i, hin_i,
+                          fe, yin_e, hin_e, fbb, dQ)
+        for r, val in zip(_LAW_ROWS, rates):
+            out[r] = val
         mul(fbb, 1.0 - yb, out=out[IDX["mu_bb"]])
         for k, val in enumerate(subd):
             mul(val, dt, out=out[ncore + k])
