@@ -458,7 +458,10 @@ def _generated(batch, rhs, mod):
     try:
         parts = loop_parts(batch, rhs)
         forms = {p.role: compiled_form(batch.models[p.role]) for p in parts}
-        gen, fresh = module_for(parts, {r: f for r, f in forms.items() if f not in ("kernel", "heat_flow_kernel")})
+        from .stepper import CYCLE_TABLEAU
+
+        gen, fresh = module_for(parts, {r: f for r, f in forms.items() if f not in ("kernel", "heat_flow_kernel")},
+                                CYCLE_TABLEAU)
     except LoopGenError as exc:
         return None, f"{exc}"
     import numba
