@@ -620,11 +620,27 @@ def _quick_key(parts: tuple, forms: dict, tableau=None) -> str:
     return h.hexdigest()[:24]
 
 
+_in_process: dict = {}
+"""Loop modules already loaded in this process, by the fingerprint of what they depend on (as
+:func:`generate` remembers its text) and the cache folder's setting: a repeated batch finds its
+loop without hashing or reading any file."""
+
+
 def module_for(parts, forms: dict | None = None, tableau=None):
     """The generated loop module for ``parts`` (:func:`generate`): written on first use, then
     loaded from the cache folder; ``(module, freshly_written)``."""
     parts = _as_parts(parts)
     forms = dict(forms or {})
+    memo = (_memo(parts), tuple(sorted(forms.items())), _tableau_key(tableau), os.environ.get(CACHE_ENV, ""))
+    got = _in_process.get(memo)
+    if got is not None:
+        return got, False
+    mod, fresh = _module_for(parts, forms, tableau)
+    _in_process[memo] = mod
+    return mod, fresh
+
+
+def _module_for(parts: tuple, forms: dict, tableau):
     d = cache_dir()
     index = d / "index" / _quick_key(parts, forms, tableau)
     key = index.read_text().strip() if index.is_file() else ""
