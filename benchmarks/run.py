@@ -175,6 +175,25 @@ def main(argv=None):
     res["batch100_integration_per_case_ms"] = 1e3 * t_int / 100
     res["batch100_ratio_floor_from_integration"] = (t_int / 100) / res["one_point_s"]
     if mod is not None:
+        # the compiled cycles alone (the numba loop, without the set-up between cycles), per case
+        # and cycle, over the same integrations
+        spent: list = []
+        plain_cycle = kernel.Compiled.cycle
+
+        def timed_cycle(self, y, Y, F):
+            t = time.perf_counter()
+            ok = plain_cycle(self, y, Y, F)
+            spent.append((time.perf_counter() - t, y.shape[1]))
+            return ok
+
+        kernel.Compiled.cycle = timed_cycle
+        try:
+            for _ in range(args.repeat):
+                integrate(build_batch(b100, reg))
+        finally:
+            kernel.Compiled.cycle = plain_cycle
+        res["batch100_compiled_cycle_ms"] = 1e3 * sum(t for t, _ in spent) / max(sum(b for _, b in spent), 1)
+    if mod is not None:
         # the same ratio and the agreement of the two loops, on the numpy loop
         os.environ[kernel.ENV] = "python"
         try:

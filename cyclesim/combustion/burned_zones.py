@@ -180,9 +180,9 @@ def _unburned(gas, T, p, y_u, R_u=None):
     the only density dependence, is negligible at unburned temperatures).
     """
     if R_u is None:
-        mp = gas.mixture(T, p / (gas.R_unburned * T), y_u)
+        mp = _mix(gas, T, p / (gas.R_unburned * T), y_u)
         R_u = mp.R
-    mp = gas.mixture(T, p / (R_u * T), y_u)
+    mp = _mix(gas, T, p / (R_u * T), y_u)
     return mp.u, mp.u + mp.R * T, mp.R, mp.u_T + mp.R
 
 

@@ -271,9 +271,11 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
                     for k in range(n):
                         yt[k] = yv[k]
                 else:
+                    # STAGE COMBINATION (a generated loop has the tableau's rows written out here)
                     f = hs / ta_den[st]
                     for k in range(n):
                         yt[k] = yv[k] + f * _weighted(tA[st], K, st, k)
+                    # END STAGE COMBINATION
                 jp = j if vary else 0
                 ok = _rhs(b, th[j], yt, K[st], full and open_at[j], Vp[j, g], dVp[j, g], Ahp[j, g],
                           App[j, g], Alp[j, g], closed_pts[j, b], burning_pts[j, b], Ai_pts[j, b],
@@ -287,9 +289,11 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
                         F[k, b, i] = K[0, k]
             if status[b] != 0 or i == N:
                 break
+            # STEP COMBINATION (a generated loop has the tableau's weights written out here)
             fb = hs / tb_den
             for k in range(n):
                 yv[k] = yv[k] + fb * _weighted(tb, K, S, k)
+            # END STEP COMBINATION
             m_ = yv[S_M]
             T_ = yv[S_T]
             if not (m_ > 0.0 and m_ < math.inf and T_ > 50.0 and T_ < 8000.0):

@@ -125,7 +125,13 @@ def _notice(key: str, text: str) -> None:
 
 
 def _b(x, B) -> np.ndarray:
-    return np.array(np.broadcast_to(np.asarray(x, dtype=float), (B,)), dtype=float)  # a writable copy
+    """``x`` as a writable float array (B,) of its own (a copy; a scalar repeated)."""
+    a = np.asarray(x, dtype=float)
+    if a.shape == (B,):
+        return a.copy()
+    if a.ndim == 0:
+        return np.full(B, a)
+    return np.array(np.broadcast_to(a, (B,)), dtype=float)
 
 
 def _cw(a, dtype=float) -> np.ndarray:
@@ -160,7 +166,19 @@ def compiled_form(model) -> str | None:
     ``kernel`` (and leaves the role's methods to it) has the form ``kernel``: a loop generated
     for it (:mod:`cyclesim.loops.loopgen`).
     """
-    return form_of_class(type(model))
+    cls = type(model)
+    memo = getattr(_setup, "forms", None)
+    if memo is None:
+        return form_of_class(cls)
+    got = memo.get(cls)
+    if got is None and cls not in memo:
+        got = memo[cls] = form_of_class(cls)
+    return got
+
+
+_setup = threading.local()
+"""``forms``: compiled_form by class while this thread sets up one batch's compiled cycle
+(:func:`prepare`), else None: a class changed between two runs is looked at again."""
 
 
 def form_of_class(cls) -> str | None:
@@ -257,7 +275,7 @@ def _packed(model, names: tuple[str, ...], B: int, form: str) -> dict[str, np.nd
 class Compiled:
     """The packed inputs of one batch's compiled cycle (built once per integration)."""
 
-    def __init__(self, mod, batch, rhs, pts):
+    def __init__(self, mod, batch, rhs, pts, parts=None):
         half, Gu, geo_rows = pts.half, pts.Gu, pts.geo_rows
         closed_pts, burning_pts, open_at = pts.closed, pts.burning, pts.open_at
         self.mod = mod
@@ -294,7 +312,7 @@ class Compiled:
         from ..loops.layout import shared_blocks
         from ..loops.loopgen import param_rows_for, shared_slots
 
-        parts = loop_parts(batch, rhs)
+        parts = loop_parts(batch, rhs) if parts is None else parts
         for role in ("burn", "heat_transfer", "blowby", "knock"):
             form = compiled_form(m[role])
             rows = param_rows_for(role, parts, mod.PARAM_ROWS, form)
@@ -333,11 +351,8 @@ class Compiled:
         self.CB = CB
         self.IC = IC
         self.broken = False
-        self.ready = False
-        from .stepper import CYCLE_TABLEAU
-
-        A, a_den, b, b_den, node = CYCLE_TABLEAU.arrays()
-        self.tableau = (_cw(A), _cw(a_den), _cw(b), b_den, _cw(node, np.int64))
+        self.ready = mod.__name__ in _ready
+        self.tableau = _tableau_arrays()
 
     def cycle(self, y: np.ndarray, Y: np.ndarray, F: np.ndarray) -> bool:
         """One cycle from ``y`` into ``Y``, ``F``; False (nothing kept) if any case needs the Python path."""
@@ -368,6 +383,7 @@ class Compiled:
                                                  f" runs on the numpy loop ({FALLBACK_SLOWDOWN})")
                 return False
             self.ready = True
+            _ready.add(mod.__name__)
         if n_thr <= 1:
             mod.run_cycle(*args, 0, B)
         else:
@@ -397,6 +413,19 @@ class Compiled:
         return True
 
 
+_TABLEAU: list = []
+
+
+def _tableau_arrays() -> tuple:
+    """The cycle scheme's arrays as the compiled loop takes them (made once; the loop only reads them)."""
+    from .stepper import CYCLE_TABLEAU
+
+    if not _TABLEAU or _TABLEAU[0] is not CYCLE_TABLEAU:
+        A, a_den, b, b_den, node = CYCLE_TABLEAU.arrays()
+        _TABLEAU[:] = [CYCLE_TABLEAU, (_cw(A), _cw(a_den), _cw(b), b_den, _cw(node, np.int64))]
+    return _TABLEAU[1]
+
+
 def loop_for(batch, rhs) -> tuple[object, str]:
     """The compiled module for this batch (or None) and the name of the loop it runs on.
 
@@ -404,14 +433,21 @@ def loop_for(batch, rhs) -> tuple[object, str]:
     installed but a submodel has no compiled form; that fall-back is also said once per
     process and reason on stderr, since it costs time.
     """
+    return _loop_for(batch, rhs)[:2]
+
+
+def _loop_for(batch, rhs) -> tuple[object, str, tuple | None]:
+    """:func:`loop_for` and the functions of the generated loop (:func:`loop_parts`; None where
+    there is none)."""
     mod = compiled_module()
     if mod is None:
         why = f"{ENV}=python" if choice() == "python" else "numba not installed: pip install -e \".[fast]\""
-        return None, f"numpy ({why})"
+        return None, f"numpy ({why})", None
     reason = why_not(batch, rhs)
     generated = False
+    parts = None
     if reason is None:
-        mod, reason = _generated(batch, rhs, mod)
+        mod, reason, parts = _generated(batch, rhs, mod)
         generated = reason is not None
     if reason is not None:
         if choice() == "compiled":
@@ -421,8 +457,8 @@ def loop_for(batch, rhs) -> tuple[object, str]:
             # a plug-in of the user's: worth a word (a study's own built-in variants are not)
             _notice(reason, f"{reason}: this batch runs on the numpy loop ({FALLBACK_SLOWDOWN} than the"
                             " compiled loop of the built-in submodels)")
-        return None, f"numpy ({reason})"
-    return mod, "compiled"
+        return None, f"numpy ({reason})", None
+    return mod, "compiled", parts
 
 
 def loop_parts(batch, rhs) -> tuple:
@@ -461,9 +497,12 @@ def _generated(batch, rhs, mod):
     try:
         parts = loop_parts(batch, rhs)
         forms = {p.role: compiled_form(batch.models[p.role]) for p in parts}
-        gen, fresh = module_for(parts, {r: f for r, f in forms.items() if f not in ("kernel", "heat_flow_kernel")})
+        from .stepper import CYCLE_TABLEAU
+
+        gen, fresh = module_for(parts, {r: f for r, f in forms.items() if f not in ("kernel", "heat_flow_kernel")},
+                                CYCLE_TABLEAU)
     except LoopGenError as exc:
-        return None, f"{exc}"
+        return None, f"{exc}", None
     import numba
 
     if (fresh or not _cached(gen)) and not numba.config.DISABLE_JIT:
@@ -471,20 +510,35 @@ def _generated(batch, rhs, mod):
             or "the chosen models"
         _notice(f"compiling:{gen.__name__}", f"compiling the cycle loop for {names} (once per combination of"
                                             " models and kernel source; about 10-30 s)")
-    return gen, None
+    return gen, None, parts
+
+
+_ready: set = set()
+"""Loop modules whose run_cycle compiled (or loaded) in this process: a later batch's cycle
+needs no trial call first."""
+_known_cached: set = set()   # names of loop modules found compiled in numba's cache (or compiled here)
 
 
 def _cached(mod) -> bool:
+    if mod.__name__ in _known_cached or mod.__name__ in _ready:
+        return True
     try:
-        return bool(mod.run_cycle._cache._cache_file._load_index())
+        got = bool(mod.run_cycle._cache._cache_file._load_index())
     except Exception:  # noqa: BLE001 - numba internals: treat as not cached
         return False
+    if got:
+        _known_cached.add(mod.__name__)
+    return got
 
 
 def prepare(batch, rhs, pts) -> tuple[Compiled | None, str]:
     """The compiled cycle of this batch (None for the Python path) and the loop's name (:func:`loop_for`);
     ``pts``: the grid's per-point data (:class:`cyclesim.solve.cycle_grid.CyclePoints`)."""
-    mod, loop = loop_for(batch, rhs)
-    if mod is None:
-        return None, loop
-    return Compiled(mod, batch, rhs, pts), loop
+    _setup.forms = {}
+    try:
+        mod, loop, parts = _loop_for(batch, rhs)
+        if mod is None:
+            return None, loop
+        return Compiled(mod, batch, rhs, pts, parts), loop
+    finally:
+        _setup.forms = None
