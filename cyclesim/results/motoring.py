@@ -49,6 +49,8 @@ COMBUSTION_ONLY_KEYS = (
     "spark_deg", "spark_advance_deg", "ca05_deg", "ca10_deg", "ca50_deg", "ca90_deg", "burn_10_90_deg",
     "burn_0_10_deg", "combustion_efficiency", "eta_indicated_net", "eta_indicated_gross", "eta_brake", "eta_closed_cycle",
     "mechanical_efficiency", "bsfc_g_per_kWh",
+    # the NO model's figures: no burned gas, no NO
+    "no_ppm_wet", "no_ppm_dry", "no_g_per_kWh", "no_mass_mg", "burned_element_temperature_max_K",
 )
 """Summary keys with no meaning when no fuel burns: NaN (JSON null) in a motored case."""
 
