@@ -92,8 +92,16 @@ def plot_case(res, out: Path) -> list[Path]:
                 label="mean gas temperature (" + ("mixture of the zones" if "burned_temperature_K" in t else "one zone")
                 + ")")
         if "burned_temperature_K" in t:   # simulation.zones: two
-            ax.plot(th, t["burned_temperature_K"], color="tab:orange", lw=1.2, label="burned zone")
-            ax.plot(th, t["unburned_temperature_K"], color="tab:blue", lw=1.2, label="unburned zone (end gas)")
+            # each zone is drawn while the two are distinct: once they merge (at EVO at the latest)
+            # the cylinder is one zone again and the mean line holds its temperature
+            T_b = np.array(t["burned_temperature_K"], dtype=float)
+            T_u = np.array(t["unburned_temperature_K"], dtype=float)
+            distinct = np.flatnonzero(np.isfinite(T_b) & (np.abs(T_b - T_u) > 1.0))
+            if distinct.size:
+                T_b[distinct[-1] + 1:] = np.nan
+                T_u[distinct[-1] + 1:] = np.nan
+            ax.plot(th, T_b, color="tab:orange", lw=1.2, label="burned zone")
+            ax.plot(th, T_u, color="tab:blue", lw=1.2, label="unburned zone (end gas)")
         if np.isfinite(s.get("exhaust_temperature_K", np.nan)):
             ax.axhline(s["exhaust_temperature_K"], color="tab:brown", lw=0.9, ls="--",
                        label=f"exhaust, enthalpy average at the valve {s['exhaust_temperature_K']:.0f} K")
