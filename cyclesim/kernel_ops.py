@@ -40,6 +40,22 @@ def max_above(x, bound, f, arg):
 _registered = False
 
 
+def compiled_wanted() -> bool:
+    """True where kernels are compiled by numba in this process: numba importable, and neither
+    ``CYCLESIM_KERNEL=python`` nor ``NUMBA_DISABLE_JIT`` set (the plain path otherwise)."""
+    import os
+
+    if os.environ.get("CYCLESIM_KERNEL", "auto").strip().lower() == "python":
+        return False
+    if os.environ.get("NUMBA_DISABLE_JIT", "0").strip() not in ("", "0"):
+        return False
+    try:
+        import numba  # noqa: F401
+    except Exception:  # noqa: BLE001 - a missing or broken numba: the plain path
+        return False
+    return True
+
+
 def register_compiled() -> None:
     """Teach numba the compiled form of :func:`where` (a select on floats); called by the generated
     loops before they compile, so that importing this module does not import numba."""

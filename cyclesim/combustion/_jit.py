@@ -12,24 +12,12 @@ whose ``jit`` is numba's ``njit`` and whose gas look-up is the compiled cycle lo
 from __future__ import annotations
 
 import importlib.util
-import os
 import sys
 import types
 
+from ..kernel_ops import compiled_wanted  # noqa: F401 - re-exported
+
 _loaded: dict[str, types.ModuleType] = {}
-
-
-def compiled_wanted() -> bool:
-    """True where the kernels are compiled by numba in this process."""
-    if os.environ.get("CYCLESIM_KERNEL", "auto").strip().lower() == "python":
-        return False
-    if os.environ.get("NUMBA_DISABLE_JIT", "0").strip() not in ("", "0"):
-        return False
-    try:
-        import numba  # noqa: F401
-    except Exception:  # noqa: BLE001 - a missing or broken numba: the plain path
-        return False
-    return True
 
 
 def _lookup():

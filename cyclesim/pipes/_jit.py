@@ -12,27 +12,15 @@ there is no compiled form and the numpy driver runs.
 from __future__ import annotations
 
 import importlib.util
-import os
 import sys
 
-
-def _want_compiled() -> bool:
-    if os.environ.get("CYCLESIM_KERNEL", "auto").strip().lower() == "python":
-        return False
-    if os.environ.get("NUMBA_DISABLE_JIT", "0").strip() not in ("", "0"):
-        return False
-    try:
-        import numba  # noqa: F401
-    except Exception:  # noqa: BLE001 - a missing or broken numba: the numpy path
-        return False
-    return True
-
+from ..kernel_ops import compiled_wanted
 
 FASTMATH = {"contract", "arcp", "nsz", "afn"}
 """LLVM's fast-math flags of the compiled kernels: fused multiply-adds, reciprocals, signless zeros and
 approximate functions; no assumption that values are finite (the kernels test for zeros and NaN)."""
 
-COMPILED = _want_compiled()
+COMPILED = compiled_wanted()
 """True where the kernels are compiled by numba in this process."""
 
 if COMPILED:
