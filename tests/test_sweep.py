@@ -287,3 +287,16 @@ def test_the_sweep_console_groups_the_cases_warnings_with_the_cases_that_gave_th
     octane = [line for line in out if "octane number 102" in line]
     assert len(octane) == 1 and octane[0].startswith("warning (2 of 4 cases)")
     assert "[spark_advance_deg=10 / octane_number=102, spark_advance_deg=20 / octane_number=102]" in octane[0]
+
+
+def test_an_interruption_before_any_row_says_nothing_was_written(base, tmp_path, capsys):
+    out = tmp_path / "z"
+
+    def stop(done, total, elapsed):
+        raise KeyboardInterrupt          # at the first report, before a case has finished
+
+    with pytest.raises(KeyboardInterrupt):
+        sweep(base, [(SPARK, "10:40:10")], out=out, chunk_size=2, progress=stop)
+    err = capsys.readouterr().err
+    assert "after 0 of 4 cases" in err and "nothing was written yet" in err
+    assert not (out / "sweep.csv").exists()

@@ -588,9 +588,11 @@ class _Run:
                 bar.close()
                 bar = None
             if out_path is not None:
+                held = (f"{out_path / CSV_NAME} holds the finished rows" if rows
+                        else "no case had finished, so nothing was written yet")
                 print(
-                    f"sweep interrupted after {len(rows)} of {len(plan)} cases; {out_path / CSV_NAME} holds"
-                    " the finished rows; run again with --resume to continue",
+                    f"sweep interrupted after {len(rows)} of {len(plan)} cases; {held};"
+                    " run again with --resume to continue",
                     file=sys.stderr,
                 )
             raise
