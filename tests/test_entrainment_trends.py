@@ -157,18 +157,22 @@ def test_a_laminar_front_burns_what_it_entrains():
 
 
 def test_stretch_factor_terms():
-    # Herweg & Maly (1992), form from memory: I_0 = 1 - sqrt(l_F / 15 L) (u'/S_L)^1.5 - 2 l_F / r
+    # Herweg & Maly (1992), form from memory: I_0 = 1 - sqrt(l_F / 15 L) (u'/S_L)^1.5 - 2 (l_F / r) (rho_u / rho_b);
+    # the curvature term the Karlovitz number of a sphere expanding at (rho_u / rho_b) S_L (Law 2006, sec. 10.2,
+    # from memory)
     s_l, L, nu = 0.5, 2e-3, 2e-6
     l_f = nu / s_l
-    assert tb.stretch_factor(s_l, 0.0, L, nu, 1e9) == pytest.approx(1.0, abs=1e-12)
-    assert tb.stretch_factor(s_l, 0.0, L, nu, 1e-3) == pytest.approx(1.0 - 2 * l_f / 1e-3, rel=1e-12)
-    assert tb.stretch_factor(s_l, 4.0, L, nu, 1e9) == pytest.approx(
+    assert tb.stretch_factor(s_l, 0.0, L, nu, 1e9, 5.0) == pytest.approx(1.0, abs=1e-12)
+    assert tb.stretch_factor(s_l, 0.0, L, nu, 1e-3, 1.0) == pytest.approx(1.0 - 2 * l_f / 1e-3, rel=1e-12)
+    assert tb.stretch_factor(s_l, 0.0, L, nu, 1e-3, 4.0) == pytest.approx(1.0 - 8 * l_f / 1e-3, rel=1e-12)
+    assert tb.stretch_factor(s_l, 4.0, L, nu, 1e9, 5.0) == pytest.approx(
         1.0 - np.sqrt(l_f / (15 * L)) * 8.0 ** 1.5, rel=1e-12)
 
 
 @given(s_l=st.floats(0.05, 3.0), u=st.floats(0.0, 30.0), L=st.floats(1e-4, 0.05), nu=st.floats(1e-7, 1e-4),
-       r=st.floats(1e-5, 0.05))
-def test_stretch_factor_lies_in_0_1_and_falls_with_turbulence(s_l, u, L, nu, r):
-    a = tb.stretch_factor(s_l, u, L, nu, r)
-    b = tb.stretch_factor(s_l, u * 1.5 + 0.1, L, nu, r)
-    assert 0.0 <= b <= a <= 1.0
+       r=st.floats(1e-5, 0.05), e=st.floats(1.0, 10.0))
+def test_stretch_factor_lies_in_0_1_and_falls_with_turbulence_and_expansion(s_l, u, L, nu, r, e):
+    a = tb.stretch_factor(s_l, u, L, nu, r, e)
+    b = tb.stretch_factor(s_l, u * 1.5 + 0.1, L, nu, r, e)
+    c = tb.stretch_factor(s_l, u, L, nu, r, e * 1.5)
+    assert 0.0 <= b <= a <= 1.0 and 0.0 <= c <= a
