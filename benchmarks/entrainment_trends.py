@@ -7,6 +7,9 @@ its net IMEP, the combustion efficiency (share of the fuel's energy released) an
 intensity at TDC over the mean piston speed.
 
     CYCLESIM_THREADS=1 python benchmarks/entrainment_trends.py [--speeds 1500,3000,5000]
+        [--loads full,part] [--advances 10:60:5] [--set operating.lambda=0.9 ...]
+
+``--set`` adds config overrides to every point (mixture, EGR, intake pressure, burn constants).
 
 Results are estimates; approach spark limits gradually with knock detection, within the
 manufacturer's limits, following the test cell's procedures.
@@ -42,12 +45,14 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--speeds", default="1500,3000,5000")
     ap.add_argument("--loads", default="full,part")
+    ap.add_argument("--advances", default="10:60:5", help="spark advances of each point's study [deg BTDC]")
+    ap.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", help="config override (repeatable)")
     a = ap.parse_args()
     print(f"{'load':5} {'rpm':>5} {'MBT':>6} {'CA50':>6} {'0-10':>6} {'10-90':>6} {'IMEPn':>6} {'eff%':>6} {'uT/Sp':>6}  s")
     for load in a.loads.split(","):
         for n in (float(x) for x in a.speeds.split(",")):
             t = time.time()
-            r = point(LOADS[load], n)
+            r = point(LOADS[load], n, a.set, a.advances)
             fmt = lambda k: "   n/a" if r.get(k) is None else f"{r[k]:6.1f}"  # noqa: E731
             print(f"{load:5} {n:5.0f} {fmt('mbt_deg')} {fmt('ca50_at_mbt_deg')} {fmt('burn_0_10_deg')}"
                   f" {fmt('burn_10_90_deg')} {fmt('imep_net_bar')} {fmt('eff_pct')} {r.get('u_tdc_over_sp', float('nan')):6.2f}"

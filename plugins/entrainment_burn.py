@@ -22,7 +22,8 @@ what it entrains.)
   which grows to ``u'`` as the kernel outgrows the integral scale and the eddies have had
   time to act on it: the spark-to-developed-flame phase (see the turbulence module);
 - ``I_0`` Herweg & Maly's stretch factor of the laminar speed (strain by the turbulence the
-  kernel feels, ``u'_eff``, and the kernel's curvature), which slows thick flames: low density,
+  kernel feels, ``u'_eff``, and the curvature of a kernel expanding at (rho_u / rho_b) S_L), which
+  slows thick flames: low density,
   high dilution (:func:`cyclesim.combustion.turbulence.stretch_factor`).
 
 The front's position in the tables is its fill s^3 = V_f / (V_f + V_u), the volume of the
@@ -155,7 +156,7 @@ def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, m
     t = (theta - spark) / omega_deg
     u_eff = u * kernel_turbulence_factor(r_f, t, INTEGRAL_SCALE_RATIO * L, u)
     nu = viscosity_air(T_u) / rho_u
-    s_k = s_l * stretch_factor(s_l, u_eff, INTEGRAL_SCALE_RATIO * L, nu, r_f)
+    s_k = s_l * stretch_factor(s_l, u_eff, INTEGRAL_SCALE_RATIO * L, nu, r_f, (R_b * T_b) / (R_u * T_u))
     lam = taylor_microscale(u, L, nu)
     on = (theta >= spark) & (theta < CYCLE_END_DEG)
     return on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u

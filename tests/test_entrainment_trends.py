@@ -31,9 +31,8 @@ SPEEDS = (1500, 3000, 5000)
 ADVANCES = "10:65:5"
 
 
-def _at_mbt(config, speed, model_overrides=()):
-    st_ = spark_study(config, ADVANCES, overrides=FAST + [f"operating.speed_rpm={speed}", *model_overrides],
-                      plots=False)
+def _study_point(st_):
+    """MBT, CA50 at MBT and the burn angles interpolated at MBT from a spark study's table."""
     assert st_.mbt_deg is not None, st_.notes
     t = st_.table
     ok = [i for i, r in enumerate(t.results) if r is not None and r.error is None]
@@ -43,6 +42,11 @@ def _at_mbt(config, speed, model_overrides=()):
     return {"mbt": st_.mbt_deg, "ca50": st_.ca50_at_mbt_deg,
             "d0_10": interp_at(adv[order], col("burn_0_10_deg"), st_.mbt_deg),
             "d10_90": interp_at(adv[order], col("burn_10_90_deg"), st_.mbt_deg)}
+
+
+def _at_mbt(config, speed, model_overrides=()):
+    return _study_point(spark_study(config, ADVANCES, overrides=FAST + [f"operating.speed_rpm={speed}",
+                                                                        *model_overrides], plots=False))
 
 
 @pytest.fixture(scope="module")
@@ -63,10 +67,18 @@ def test_full_load_burn_angles_at_mbt_are_the_trades(mbt_points, speed):
     assert 20.0 <= r["d10_90"] <= 35.0, r
 
 
+PART_LOAD_REASON = (
+    "at 0.5 bar intake the flame development is short at low and mid speed: 0-10 % {} deg at {} rpm, measured."
+    " The entrainment rate per unit charge, rho_u A_f (u' + S_L) / m, does not depend on the density, so"
+    " throttling slows the development only through S_L (residual dilution, Rhodes & Keck 1985; the hotter"
+    " unburned gas of a throttled charge speeds it) and the thicker flame's stretch (Herweg & Maly 1992); the"
+    " residual at 0.5 bar (15 % at 1500 rpm, 10 % at 3000 rpm, measured) is below the light-load figure (about 20 %, Heywood 1988 sec. 6.4, from"
+    " memory): at 0.35 bar intake the band is met (test_light_load_flame_development_at_mbt_is_the_trades)")
+
+
 @pytest.mark.parametrize("speed", [
-    pytest.param(1500, marks=_known(True, "part-load flame development short at low speed: 0-10 % 22.6 deg"
-                                          " at 1500 rpm, measured")),
-    pytest.param(3000, marks=_known(True, "0-10 % 29.0 deg at 3000 rpm, measured: just below the band")),
+    pytest.param(1500, marks=_known(True, PART_LOAD_REASON.format(22.9, 1500))),
+    pytest.param(3000, marks=_known(True, PART_LOAD_REASON.format(29.3, 3000))),
     5000])
 def test_part_load_flame_development_at_mbt_is_the_trades(mbt_points, speed):
     # light load: 0-10 % about 30-45 deg (issue band, Heywood 1988 sec. 9.3, from memory)
@@ -95,8 +107,12 @@ def test_burn_angles_change_only_mildly_with_speed(mbt_points, load):
 
 
 @pytest.mark.parametrize("load, speed", [
-    pytest.param(load, n, marks=_known(n == 5000, "CA50 at MBT 5.4-5.7 deg ATDC at 5000 rpm, measured; a"
-                                                  " fixed-shape Wiebe burn gives the same"))
+    pytest.param(load, n, marks=_known(n == 5000, "CA50 at MBT 5.7 (full) and 5.6 (0.5 bar) deg ATDC at 5000"
+                                                  " rpm, measured: the wall heat sets CA50 at MBT (1.4-1.8 deg"
+                                                  " ATDC without it at 1500 and 5000 rpm, measured), and Woschni's"
+                                                  " combustion term, which does not grow with speed, takes less"
+                                                  " heat per degree at 5000 rpm; not the fit (a 2-deg grid gives"
+                                                  " 5.75), not the burn's shape (a Wiebe burn gives the same)"))
     for load in LOADS for n in SPEEDS])
 def test_mbt_keeps_ca50_6_to_12_deg_atdc(mbt_points, load, speed):
     # CA50 about 6-12 deg ATDC at MBT (Heywood 1988 ch. 9, from memory; references.md rule of thumb)
@@ -112,6 +128,78 @@ def test_mbt_phasing_matches_a_fixed_shape_burn_of_the_same_length(mbt_points, s
     r = mbt_points[("full", speed)]
     w = _at_mbt("demo", speed, ["burn.model=wiebe", f"burn.duration_deg={r['d10_90'] / 0.4960:.2f}"])
     assert abs(w["ca50"] - r["ca50"]) < 1.5, (w, r)
+
+
+@pytest.mark.parametrize("speed", [1500, 3000])
+def test_light_load_flame_development_at_mbt_is_the_trades(speed):
+    # light load, 0.35 bar intake (residual 23 % at 1500 rpm, 15 % at 3000 rpm, measured; about 20 % is the
+    # light-load figure of Heywood 1988 sec. 6.4, from memory): 0-10 % about 30-45 deg (issue band, Heywood 1988 sec. 9.3, from memory); measured 35.1 deg at
+    # 1500 rpm and 36.9 deg at 3000 rpm
+    r = _at_mbt("demo_part_load", speed, ["operating.intake_pressure_bar=0.35"])
+    assert 30.0 <= r["d0_10"] <= 45.0, r
+
+
+@pytest.mark.slow
+def test_ca50_at_mbt_drifts_with_speed_through_the_wall_heat():
+    # why CA50 at MBT moves from about 11 deg ATDC at 1500 rpm to under 6 at 5000 rpm: without wall heat the
+    # MBT phasing is the same at both speeds (1.8 and 1.4 deg ATDC, measured), with Woschni's (1967) wall heat,
+    # whose combustion term C2 (Vd T_r / p_r V_r)(p - p_mot) does not grow with speed, the low speed loses more
+    # heat per degree near TDC and MBT moves later (measured spread 5.7 deg; wall heat from -30 to 40 deg at MBT
+    # 13.2 % of the heat released at 1500 rpm, 7.6 % at 5000 rpm)
+    adiabatic = [_at_mbt("demo", n, ["heat_transfer.model=none"])["ca50"] for n in (1500, 5000)]
+    assert abs(adiabatic[0] - adiabatic[1]) < 1.0, adiabatic
+    assert all(c < 4.0 for c in adiabatic), adiabatic
+
+
+def test_ca50_at_mbt_does_not_depend_on_the_advance_grid(mbt_points):
+    # the spark study's local torque fit (cyclesim/studies/curve_reading.py) reads the same MBT phasing on the
+    # tests' 5-deg grid as on a 2-deg grid around MBT (full load, 5000 rpm: CA50 at MBT 5.75 and 5.7 deg ATDC,
+    # MBT 38.7 and 38.8 deg BTDC, measured), so the low CA50 at MBT there is not the fit's
+    fine = _study_point(spark_study("demo", "28:50:2", overrides=FAST + ["operating.speed_rpm=5000"], plots=False))
+    coarse = mbt_points[("full", 5000)]
+    assert abs(fine["ca50"] - coarse["ca50"]) < 0.3 and abs(fine["mbt"] - coarse["mbt"]) < 0.5, (fine, coarse)
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "u' at TDC 1.04 x the mean piston speed at every speed, measured.  It comes from the IVC start (mean flow"
+    " at the intake jet's kinetic energy, k = 0.1 K) and the rapid-distortion amplification during compression;"
+    " running the K-k equations through the intake stroke with the valve jet as their source gives more, not"
+    " less (1.8 x S_p at TDC, 2.5 at IVC: benchmarks/turbulence_intake.py).  The burn angles of the"
+    " bands need this level: with the IVC charge motion scaled to give 0.57 x S_p (burn.ivc_flow_factor=0.5)"
+    " the full-load 3000 rpm point has MBT 76 deg BTDC and 0-10 % 63 deg, measured"))
+def test_turbulence_at_tdc_is_about_half_the_mean_piston_speed():
+    # open chamber without swirl: u' at TDC about 0.5 S_p (Heywood 1988 sec. 8.4, from memory)
+    (r,) = simulate([load_config("demo", FAST)])
+    assert 0.35 <= r.summary["turbulence_to_piston_speed_at_tdc"] <= 0.65, r.summary["turbulence_to_piston_speed_at_tdc"]
+
+
+def test_the_burn_is_fastest_slightly_rich(mbt_points):
+    # both burn angles are shortest slightly rich of stoichiometric and grow as the mixture leans, more on the lean
+    # side (Heywood 1988 ch. 9, from memory; the laminar speed peaks at phi 1.13 for gasoline, Metghalchi &
+    # Keck 1982); measured at MBT, 3000 rpm full load, lambda 0.8/0.9/1.0/1.1/1.2: 0-10 % 24.6/23.4/24.0/25.9/29.2,
+    # 10-90 % 23.8/23.5/23.5/25.0/26.7 deg
+    lams = (0.8, 0.9, 1.1, 1.2)
+    pts = {lam: _at_mbt("demo", 3000, [f"operating.lambda={lam}"]) for lam in lams}
+    pts[1.0] = mbt_points[("full", 3000)]
+    for key in ("d0_10", "d10_90"):
+        v = {lam: pts[lam][key] for lam in pts}
+        assert v[0.9] <= v[1.0] + 0.1 and v[0.9] < v[0.8], v          # fastest slightly rich
+        assert v[1.0] < v[1.1] < v[1.2], v                          # slower as it leans
+        assert v[1.2] - v[1.0] > v[0.8] - v[0.9], v                 # leaning costs more than enriching
+
+
+def test_dilution_slows_the_burn_and_its_development_most(mbt_points):
+    # EGR 0/10/20 %: both angles grow, the flame development (0-10 %) the most (Heywood 1988 sec. 9.3, from memory:
+    # dilution lowers S_L, Rhodes & Keck 1985, and the development phase is the one set by S_L); measured at MBT,
+    # 3000 rpm full load: 0-10 % 24.0/32.6/51.8 deg, 10-90 % 23.5/27.1/32.7 deg (MBT 30.5/41/64 deg BTDC)
+    pts = [mbt_points[("full", 3000)]]
+    for egr in (0.1, 0.2):
+        st_ = spark_study("demo", "20:80:5", overrides=FAST + ["operating.speed_rpm=3000", f"operating.egr_fraction={egr}"],
+                          plots=False)
+        pts.append(_study_point(st_))
+    for a, b in zip(pts, pts[1:]):
+        assert b["d0_10"] > a["d0_10"] and b["d10_90"] > a["d10_90"], pts
+        assert b["d0_10"] - a["d0_10"] > b["d10_90"] - a["d10_90"], pts
 
 
 def test_the_burn_completes_and_releases_its_combustion_efficiency():
@@ -157,18 +245,22 @@ def test_a_laminar_front_burns_what_it_entrains():
 
 
 def test_stretch_factor_terms():
-    # Herweg & Maly (1992), form from memory: I_0 = 1 - sqrt(l_F / 15 L) (u'/S_L)^1.5 - 2 l_F / r
+    # Herweg & Maly (1992), form from memory: I_0 = 1 - sqrt(l_F / 15 L) (u'/S_L)^1.5 - 2 (l_F / r) (rho_u / rho_b);
+    # the curvature term the Karlovitz number of a sphere expanding at (rho_u / rho_b) S_L (Law 2006, sec. 10.2,
+    # from memory)
     s_l, L, nu = 0.5, 2e-3, 2e-6
     l_f = nu / s_l
-    assert tb.stretch_factor(s_l, 0.0, L, nu, 1e9) == pytest.approx(1.0, abs=1e-12)
-    assert tb.stretch_factor(s_l, 0.0, L, nu, 1e-3) == pytest.approx(1.0 - 2 * l_f / 1e-3, rel=1e-12)
-    assert tb.stretch_factor(s_l, 4.0, L, nu, 1e9) == pytest.approx(
+    assert tb.stretch_factor(s_l, 0.0, L, nu, 1e9, 5.0) == pytest.approx(1.0, abs=1e-12)
+    assert tb.stretch_factor(s_l, 0.0, L, nu, 1e-3, 1.0) == pytest.approx(1.0 - 2 * l_f / 1e-3, rel=1e-12)
+    assert tb.stretch_factor(s_l, 0.0, L, nu, 1e-3, 4.0) == pytest.approx(1.0 - 8 * l_f / 1e-3, rel=1e-12)
+    assert tb.stretch_factor(s_l, 4.0, L, nu, 1e9, 5.0) == pytest.approx(
         1.0 - np.sqrt(l_f / (15 * L)) * 8.0 ** 1.5, rel=1e-12)
 
 
 @given(s_l=st.floats(0.05, 3.0), u=st.floats(0.0, 30.0), L=st.floats(1e-4, 0.05), nu=st.floats(1e-7, 1e-4),
-       r=st.floats(1e-5, 0.05))
-def test_stretch_factor_lies_in_0_1_and_falls_with_turbulence(s_l, u, L, nu, r):
-    a = tb.stretch_factor(s_l, u, L, nu, r)
-    b = tb.stretch_factor(s_l, u * 1.5 + 0.1, L, nu, r)
-    assert 0.0 <= b <= a <= 1.0
+       r=st.floats(1e-5, 0.05), e=st.floats(1.0, 10.0))
+def test_stretch_factor_lies_in_0_1_and_falls_with_turbulence_and_expansion(s_l, u, L, nu, r, e):
+    a = tb.stretch_factor(s_l, u, L, nu, r, e)
+    b = tb.stretch_factor(s_l, u * 1.5 + 0.1, L, nu, r, e)
+    c = tb.stretch_factor(s_l, u, L, nu, r, e * 1.5)
+    assert 0.0 <= b <= a <= 1.0 and 0.0 <= c <= a

@@ -36,9 +36,10 @@ turbulence: about 0.2 of the chamber height near TDC (measurements reviewed by H
 section 8.2, from memory), so L_I = 0.2 L here.  The kernel's laminar burning velocity is
 stretched (Herweg & Maly 1992, form from memory) by the factor
 
-    I_0 = 1 - sqrt(l_F / (15 L_I)) (u'_eff / S_L)^(3/2) - 2 l_F / r_f,   l_F = nu / S_L,
+    I_0 = 1 - sqrt(l_F / (15 L_I)) (u'_eff / S_L)^(3/2) - 2 (l_F / r_f) (rho_u / rho_b),   l_F = nu / S_L,
 
-strain by the turbulence the kernel feels and curvature of the kernel; thick flames (low
+strain by the turbulence the kernel feels and curvature of the kernel, the latter the Karlovitz
+number of an expanding sphere, whose front moves at (rho_u / rho_b) S_L; thick flames (low
 density, much burned-gas dilution) are slowed the most.  The Taylor microscale, by contrast, follows from
 the K-k model's own dissipation eps = u'^3 / L, so it uses L.
 
@@ -110,17 +111,21 @@ def taylor_microscale(u, L, nu):
     return L * np.sqrt(TAYLOR_CONSTANT / re)
 
 
-def stretch_factor(s_l, u, L, nu, r_f):
+def stretch_factor(s_l, u, L, nu, r_f, expansion):
     """Herweg & Maly (1992) stretch factor I_0 [-] of the laminar burning velocity in a kernel of radius
-    r_f [m]: I_0 = 1 - sqrt(l_F / (15 L)) (u' / S_L)^(3/2) - 2 l_F / r_f, floored at 0.
+    r_f [m]: I_0 = 1 - sqrt(l_F / (15 L)) (u' / S_L)^(3/2) - 2 (l_F / r_f) (rho_u / rho_b), floored at 0.
 
     The first term is the strain of the turbulence (intensity u [m/s], integral scale L [m]), the
-    second the curvature of the kernel; l_F = nu / S_L the laminar flame thickness, nu [m^2/s] the
-    unburned gas's kinematic viscosity, s_l [m/s] the unstretched laminar burning velocity."""
+    second the curvature of the kernel: the Karlovitz number of an outward-propagating sphere, whose
+    stretch rate (1/A) dA/dt = (2 / r_f) dr_f/dt with dr_f/dt = (rho_u / rho_b) S_L, the front's speed
+    in the burned gas it leaves behind (Law 2006, Combustion Physics, sec. 10.2, from memory);
+    l_F = nu / S_L the laminar flame thickness, nu [m^2/s] the unburned gas's kinematic viscosity,
+    s_l [m/s] the unstretched laminar burning velocity, ``expansion`` = rho_u / rho_b [-] the
+    density ratio across the flame."""
     l_f = nu / np.maximum(s_l, 1e-6)
     u_s = np.maximum(u, 0.0) / np.maximum(s_l, 1e-6)
     strain = np.sqrt(l_f / (15.0 * L)) * u_s * np.sqrt(u_s)
-    return np.maximum(1.0 - strain - 2.0 * l_f / np.maximum(r_f, 1e-9), 0.0)
+    return np.maximum(1.0 - strain - 2.0 * l_f * expansion / np.maximum(r_f, 1e-9), 0.0)
 
 
 def kernel_turbulence_factor(r_f, t, L, u):
