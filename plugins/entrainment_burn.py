@@ -325,8 +325,10 @@ class EntrainmentBurn(BurnRate):
               "the cycle's charge motion at IVC against the mean inlet flow velocity: scales the mean-flow"
               " and turbulence velocities at IVC (their energies by its square); 1 for the mean cycle, drawn"
               " per cycle by the synthetic traces", min=0.1, max=10.0),
-        Param("fuel_flame_data", "-", "gasoline", "laminar burning velocity correlation's fuel",
-              kind="choice", choices=tuple(lf.FUEL_CODES), sweepable=False),
+        Param("fuel_flame_data", "-", lf.AUTO,
+              "laminar burning velocity correlation's fuel; 'auto': the config's fuel where a correlation"
+              " covers it, else gasoline's with a warning",
+              kind="choice", choices=(lf.AUTO,) + tuple(lf.FUEL_CODES), sweepable=False),
     )
     references = (
         "Blizard, N. C., Keck, J. C. (1974). Experimental and theoretical investigation of turbulent "
@@ -382,7 +384,9 @@ class EntrainmentBurn(BurnRate):
         # charge
         gas = ctx.gas
         self.phi = _arr(gas.phi, B)
-        code = lf.fuel_code(str(p.fuel_flame_data))
+        fuel = getattr(gas, "fuel", None)
+        self.flame_fuel, self.flame_fuel_note = lf.flame_fuel(str(p.fuel_flame_data), getattr(fuel, "name", None))
+        code = lf.fuel_code(self.flame_fuel)
         self.mk = 1.0 if code < 4 else 0.0
         self.c_mk = lf.MK_CONSTANTS[min(code, 3)]
         self.c_g = lf.GULDER_CONSTANTS[max(code - 4, 0)]
@@ -504,8 +508,9 @@ class EntrainmentBurn(BurnRate):
         }
 
     def warnings(self, trace: Mapping[str, np.ndarray]) -> list[list[str]]:
-        """Incomplete burn at EVO."""
-        out: list[list[str]] = [[] for _ in range(self.B)]
+        """The laminar flame data of another fuel than the charge's; incomplete burn at EVO."""
+        out: list[list[str]] = [[] if self.flame_fuel_note is None else [self.flame_fuel_note]
+                                for _ in range(self.B)]
         th = np.broadcast_to(np.asarray(trace["crank_deg"], float), np.shape(trace["mfb"]))
         xb = np.asarray(trace["mfb"], float)
         evo = _arr(self.ctx.events.evo, self.B)

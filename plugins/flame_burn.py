@@ -267,8 +267,10 @@ class WiebeFlame(BurnRate):
               "exponent s_b on the mean piston speed for the burn duration", min=-3.0, max=3.0),
         Param("viscosity_scaling", "-", True,
               "scale with nu/S_L (true) or with 1/S_L alone (false)", kind="bool", sweepable=False),
-        Param("fuel_flame_data", "-", "gasoline", "Metghalchi-Keck coefficients to use",
-              kind="choice", choices=tuple(MK_FUELS), sweepable=False),
+        Param("fuel_flame_data", "-", lf.AUTO,
+              "Metghalchi-Keck coefficients to use; 'auto': the config's fuel where they cover it, else"
+              " gasoline's with a warning",
+              kind="choice", choices=(lf.AUTO,) + tuple(MK_FUELS), sweepable=False),
     )
     references = (
         "Metghalchi, M., Keck, J. C. (1982). Burning velocities of mixtures of air with "
@@ -287,7 +289,9 @@ class WiebeFlame(BurnRate):
         super().__init__(values, ctx)
         B = self.B
         p = self.p
-        self.fuel = str(p.fuel_flame_data)
+        fuel = getattr(ctx.gas, "fuel", None)
+        self.fuel, self.flame_fuel_note = lf.flame_fuel(str(p.fuel_flame_data), getattr(fuel, "name", None),
+                                                        MK_FUELS)
         self.spark = -_arr(p.spark_advance_deg, B)
         self.delay_ref = _arr(p.ref_ignition_delay_deg, B)
         self.dur_ref = _arr(p.ref_duration_deg, B)
@@ -389,8 +393,10 @@ class WiebeFlame(BurnRate):
         }
 
     def warnings(self, trace: Mapping[str, np.ndarray]) -> list[list[str]]:
-        """Flame-speed correlation outside its measured range; incomplete burn at EVO."""
-        out: list[list[str]] = [[] for _ in range(self.B)]
+        """Flame-speed data of another fuel than the charge's; correlation outside its measured range;
+        incomplete burn at EVO."""
+        out: list[list[str]] = [[] if self.flame_fuel_note is None else [self.flame_fuel_note]
+                                for _ in range(self.B)]
         d = self._from_trace(trace)
         r = MK_RANGE
         checks = (

@@ -328,3 +328,23 @@ def test_packs_its_flame_tables_as_batch_wide_arrays():
                       get_registry()).models["burn"].pack()
     assert two["tab_r"].size == 2 * P["tab_r"].size and list(two["off"]) == [0.0, P["tab_r"].size]
     assert loop_status(EB.EntrainmentBurn).startswith("compiled")
+
+
+# ----------------------------------------------------------------------------
+# the laminar flame data follow the charge's fuel
+# ----------------------------------------------------------------------------
+def test_auto_flame_data_follow_the_configs_fuel_and_say_when_they_cannot():
+    # methane is covered by Guelder (1984), so 'auto' takes it (methane-air burns slower than
+    # gasoline-air: S_L0 about 0.37 against 0.4-0.45 m/s at 1 atm, 300 K, Heywood 1988 table 9.3 /
+    # fig. 9-26, from memory); a custom fuel has no correlation and falls back to gasoline's, with a warning
+    meth = ["fuel.name=methane", "burn.spark_advance_deg=30"]
+    auto, gas, named = simulate([load_config("demo", FAST + meth),
+                                 load_config("demo", FAST + meth + ["burn.fuel_flame_data=gasoline"]),
+                                 load_config("demo", FAST + meth + ["burn.fuel_flame_data=methane"])])
+    f = lambda r: r.summary["burn_10_90_deg"]  # noqa: E731
+    assert f(auto) == f(named) and f(auto) > f(gas) + 1.0
+    assert not any("laminar burning velocity" in w for w in auto.warnings)
+    (cust,) = simulate(load_config("demo", FAST + ["fuel.name=blend", "fuel.C=7.5", "fuel.H=14.0",
+                                                    "fuel.lhv_MJ_per_kg=43.5"]))
+    assert cust.error is None
+    assert any("no laminar burning velocity correlation for fuel 'blend'" in w for w in cust.warnings)

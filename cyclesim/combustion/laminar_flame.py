@@ -135,6 +135,26 @@ def laminar_burning_velocity(phi, T_u, p, f, fuel_code):
     return gulder(phi, T_u, p, f, c[0], c[1], c[2], c[3], c[4])
 
 
+AUTO = "auto"
+"""The burn's ``fuel_flame_data`` choice that follows the config's fuel."""
+
+
+def flame_fuel(choice: str, fuel_name: str | None, covered=FUEL_CODES) -> tuple[str, str | None]:
+    """The fuel whose laminar burning velocity a burn uses, and a note when it is not the charge's.
+
+    ``choice`` is the burn's ``fuel_flame_data``: a fuel name of ``covered`` is taken as given;
+    :data:`AUTO` takes the config's fuel (``fuel_name``) where a correlation covers it, and
+    gasoline's otherwise, with a note saying so (a custom fuel, or a fuel outside ``covered``).
+    """
+    if choice != AUTO:
+        return choice, None
+    if fuel_name in covered:
+        return str(fuel_name), None
+    return "gasoline", (f"burn law: no laminar burning velocity correlation for fuel {fuel_name!r}; gasoline's"
+                        f" ({CORRELATION_OF_FUEL['gasoline']}) is used: set burn.fuel_flame_data to choose"
+                        f" one of {', '.join(covered)}")
+
+
 def outside_range(phi, T_u, p, fuel_code):
     """True where (phi, T_u [K], p [Pa]) lies beyond the correlation's measurements (extrapolation)."""
     r = RANGES[0] if fuel_code < 4 else RANGES[1]
