@@ -9,7 +9,8 @@ unshortened code (common practice for a pure optimisation: the result may not mo
 from __future__ import annotations
 
 import numpy as np
-from hypothesis import given, settings
+import pytest
+from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from cyclesim.api import _registry_for
@@ -48,7 +49,7 @@ def _outflow(b, T_K, y):
     return m, m * (mp.u + mp.R * T_K), m * (1.0 - y)
 
 
-@settings(max_examples=40, deadline=None)
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(st.lists(st.floats(300.0, 2500.0), min_size=B, max_size=B),
        st.lists(st.floats(0.0, 1.0), min_size=B, max_size=B))
 def test_exhaust_temperature_shortcut_is_bit_for_bit(T_list, y_list):
@@ -106,3 +107,62 @@ def _changes_on_one_more_pass(b, m, H, mu, T30):
     finally:
         figures.EXHAUST_T_PASSES = saved
     return not np.array_equal(T31, T30)
+
+
+KERNEL_MODULE = '''
+import math
+
+SCALE = 2.0
+TABLE = [1.0, 2.0]
+
+
+def helper(x):
+    return SCALE * x
+
+
+def rate(theta, a):
+    return helper(a) * math.sin(theta) + TABLE[0]
+'''
+
+
+@pytest.fixture
+def kernel_module(tmp_path):
+    import importlib.util
+
+    path = tmp_path / "kmod_shortcut.py"
+    path.write_text(KERNEL_MODULE)
+    spec = importlib.util.spec_from_file_location("kmod_shortcut", path)
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod
+
+
+def test_the_remembered_kernel_key_follows_every_edit(kernel_module):
+    """The loop's in-process key (loopgen._memo) is remembered per kernel function, and is made
+    again whenever what it was made from changes: a global rebound, a helper's code replaced, a
+    mutable global changed in place, a name defined that was missing."""
+    from cyclesim.loops import loopgen
+
+    mod = kernel_module
+    parts = (loopgen.Part("burn", "kernel", mod.rate, ("a",)),)
+
+    def key():
+        got = loopgen._memo(parts)
+        # the remembered key is always the one made from scratch
+        assert got[0][-1] == loopgen._fingerprint(mod.rate)
+        return got
+
+    k0 = key()
+    assert key() == k0                                    # unchanged: the same key
+    mod.SCALE = 3.0                                       # a global of a helper rebound
+    k1 = key()
+    assert k1 != k0
+    mod.SCALE = 2.0
+    assert key() == k0
+    mod.helper.__code__ = (lambda x: 2.0 * x + 0.0).__code__   # a helper's code edited in place
+    k2 = key()
+    assert k2 != k0
+    mod.TABLE[0] = 5.0                                    # a mutable global changed in place
+    assert key() != k2
+    mod.math = None                                       # a module global rebound
+    assert key()[0][-1] != k2[0][-1]
