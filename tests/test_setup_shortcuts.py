@@ -166,3 +166,32 @@ def test_the_remembered_kernel_key_follows_every_edit(kernel_module):
     assert key() != k2
     mod.math = None                                       # a module global rebound
     assert key()[0][-1] != k2[0][-1]
+
+
+def test_the_plenum_gas_is_worked_out_once_per_batch_and_follows_its_inputs():
+    """The constant plenums' gas, reused by a batch's later grids, is the one the cylinder
+    system works out afresh, and is worked out again when the boundary gives other values."""
+    from cyclesim.solve import kernel
+    from cyclesim.solve.solver import _RHS
+
+    b = _batch()
+    first = kernel._first_plenums(b, _RHS(b, "full"), -360.0)
+    rhs = _RHS(b, "full")
+    again = kernel._first_plenums(b, rhs, -360.0)
+    assert again is first                                   # reused, not worked out again
+    fresh = _RHS(b, "full").plenums(-360.0, {})
+    for side in ("int", "exh"):
+        for x, y in zip(again[side], fresh[side]):
+            np.testing.assert_array_equal(x, y)
+    bnd = rhs.bnd
+    saved = bnd.p_int
+    try:
+        bnd.p_int = saved * 1.5                              # the boundary gives another pressure
+        other = kernel._first_plenums(b, _RHS(b, "full"), -360.0)
+        assert other is not first
+        np.testing.assert_array_equal(other["int"][0], saved * 1.5)
+        ref = _RHS(b, "full").plenums(-360.0, {})
+        for x, y in zip(other["int"], ref["int"]):
+            np.testing.assert_array_equal(x, y)
+    finally:
+        bnd.p_int = saved
