@@ -442,8 +442,20 @@ def _plenum_density(batch) -> np.ndarray:
     return rho
 
 
-def _exhaust_temperature(batch, m_out, H_out, mu_out) -> np.ndarray:
-    """Enthalpy-averaged temperature of the net exhaust outflow [K]."""
+EXHAUST_T_PASSES = 30
+"""Most Newton passes of :func:`_exhaust_temperature` (from 900 K)."""
+
+
+def _exhaust_temperature(batch, m_out, H_out, mu_out, shortcut: bool = True) -> np.ndarray:
+    """Enthalpy-averaged temperature of the net exhaust outflow [K].
+
+    :data:`EXHAUST_T_PASSES` Newton passes on h(T) = H/m at the exhaust pressure, from 900 K.  A
+    pass maps each case's temperature by a fixed function of that case alone (element by element),
+    so once a case's temperature repeats bit for bit (a fixed point, or the short cycle of
+    neighbouring values rounding can leave it in) the value its last pass gives is known; with
+    ``shortcut`` the passes stop once every case has repeated, and the result is that of all the
+    passes, bit for bit.
+    """
     g = batch.gas
     op = batch.operating
     B = batch.B
@@ -454,7 +466,11 @@ def _exhaust_temperature(batch, m_out, H_out, mu_out) -> np.ndarray:
     ok = np.isfinite(h_mean)
     p = op.exhaust_pressure_bar * 1e5 * np.ones(B)
     T = np.full(B, 900.0)
-    for _ in range(30):
+    n = EXHAUST_T_PASSES
+    seen = [T]                          # the temperatures after each pass so far (pass 0: the start)
+    known = np.zeros(B, dtype=bool)     # cases whose value after pass n is known
+    last = np.empty(B)
+    for k in range(1, n + 1):
         rho = p / (287.0 * T)
         mp = g.mixture(T, rho, y)
         rho = p / (mp.R * T)
@@ -462,6 +478,19 @@ def _exhaust_temperature(batch, m_out, H_out, mu_out) -> np.ndarray:
         hT = mp.u + mp.R * T
         cp = mp.u_T + mp.R + T * mp.R_T
         T = np.where(ok, np.clip(T - (hT - np.where(ok, h_mean, hT)) / cp, 250.0, 4000.0), 900.0)
+        if not shortcut:
+            continue
+        before = np.asarray(seen)                    # (k, B)
+        again = (before == T) & ~known               # case b after pass k equals its value after pass j
+        rep = again.any(axis=0)
+        if rep.any():
+            j = np.argmax(again, axis=0)[rep]        # its values repeat with period k - j from pass j on
+            last[rep] = before[j + (n - j) % (k - j), rep]
+            known |= rep
+            if known.all():
+                T = last
+                break
+        seen.append(T)
     # a temperature pinned at a bound is no solution: the net outflow's enthalpy is not that of a gas
     # (most of the flow went out and came back)
     return np.where(ok & (T > 250.0) & (T < 4000.0), T, np.nan)

@@ -272,6 +272,22 @@ def _packed(model, names: tuple[str, ...], B: int, form: str) -> dict[str, np.nd
     return {k: _b(v, B) for k, v in got.items()}
 
 
+def _first_plenums(batch, rhs, theta: float) -> dict:
+    """The plenum gas at the cycle's first point (``rhs.plenums``).  A constant boundary's gas
+    depends only on the pressures, temperatures and burned fraction it gives and on the gas
+    tables, so it is worked out once per batch for those values and reused by the batch's later
+    grids (the coarse start-up cycles and the fine ones); any other boundary is asked each time."""
+    if not getattr(rhs.bnd, "constant", False):
+        return rhs.plenums(theta, {})
+    values = tuple(rhs.bnd.intake(theta, {})) + tuple(rhs.bnd.exhaust(theta, {}))
+    key = (theta, tuple(np.asarray(v, float).tobytes() for v in values))
+    memo = batch.__dict__.setdefault("_first_plenums", {})
+    got = memo.get(key)
+    if got is None or got[0] is not rhs.gas:
+        got = memo[key] = (rhs.gas, rhs.plenums(theta, {}))
+    return got[1]
+
+
 class Compiled:
     """The packed inputs of one batch's compiled cycle (built once per integration)."""
 
@@ -301,7 +317,7 @@ class Compiled:
         if self.full:
             # the plenum gas as the numpy loop sees it: properties fixed at its first call, at the
             # cycle's first point; a pressure trace (manifold_trace) read at every point
-            pl = rhs.plenums(float(half[0]), {})
+            pl = _first_plenums(batch, rhs, float(half[0]))
             plen[:] = np.stack([_b(a, B) for a in pl["int"] + pl["exh"][:2] + pl["exh"][3:]])
             self.PI = _cw(plen[0:1])
             self.PE = _cw(plen[6:7])
