@@ -27,3 +27,47 @@ def demo_result():
 @pytest.fixture(scope="session")
 def closed_result():
     return cyclesim.run("demo_closed")
+
+
+# --- loop-combination counter (test-only; on with CYCLESIM_COUNT_LOOPS=1) --------------------
+# Each distinct combination of model kernels is a generated cycle loop that numba compiles once
+# (seconds) and then loads from its disk cache. With CYCLESIM_COUNT_LOOPS=1 the session ends with
+# how many combinations this process loaded, how many were not yet compiled, and the test that
+# first needed each one: tests that could share a combination show up here. Subprocesses (CLI,
+# sweep workers) are not counted.
+import os as _os
+
+_loops_seen: dict = {}
+_current_test = [""]
+
+
+def pytest_configure(config):
+    if _os.environ.get("CYCLESIM_COUNT_LOOPS") != "1":
+        return
+    from cyclesim.loops import loopgen
+    from cyclesim.solve import kernel
+
+    inner = loopgen.module_for
+
+    def counted(parts, forms=None, tableau=None):
+        mod, fresh = inner(parts, forms, tableau)
+        if mod.__name__ not in _loops_seen:
+            _loops_seen[mod.__name__] = (_current_test[0], fresh or not kernel._cached(mod))
+        return mod, fresh
+
+    loopgen.module_for = counted
+
+
+@pytest.hookimpl(tryfirst=True)
+def pytest_runtest_setup(item):
+    _current_test[0] = item.nodeid
+
+
+def pytest_terminal_summary(terminalreporter):
+    if _os.environ.get("CYCLESIM_COUNT_LOOPS") != "1":
+        return
+    tr = terminalreporter
+    new = sum(1 for _, compiled in _loops_seen.values() if compiled)
+    tr.write_line(f"loop combinations loaded: {len(_loops_seen)} (not yet compiled: {new})")
+    for name, (test, compiled) in _loops_seen.items():
+        tr.write_line(f"  {name} {'COMPILE' if compiled else 'cached '} first in {test}")
