@@ -14,6 +14,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..pipes.coupling import step_rates
+
 
 class StepValveFlows:
     """One crank step's valve flows of the sides with a runner (arrays (B,)).
@@ -37,11 +39,7 @@ class StepValveFlows:
     def set_side(self, side: str, mass_kg, enthalpy_J, burned_kg, duration_s, y_cyl, h_cyl) -> None:
         """Take one side's crank-step totals (B,) over ``duration_s`` (B,) [s]; where no gas moved the
         inflow state is the cylinder's own (``y_cyl``, ``h_cyl``; times a zero flow)."""
-        moved = mass_kg != 0.0
-        ms = np.where(moved, mass_kg, 1.0)
-        mdot = np.where(duration_s > 0, mass_kg / np.where(duration_s > 0, duration_s, 1.0), 0.0)
-        y = np.where(moved, burned_kg / ms, y_cyl)
-        h = np.where(moved, enthalpy_J / ms, h_cyl)
+        mdot, y, h = step_rates(mass_kg, enthalpy_J, burned_kg, duration_s, y_cyl, h_cyl)
         if side == "intake":
             self.mdot_int, self.y_int, self.h_int = mdot, y, h
         else:
