@@ -29,8 +29,8 @@ def _speeds(text: str) -> list[float]:
     return list(np.arange(a, b + 0.5 * c, c))
 
 
-SETTLE = ("simulation.tolerance=0.003", "simulation.max_cycles=15")
-"""Settling of every point here: demo_runners' tolerance (the runners settle to a few 0.1 %)."""
+SETTLE = ("simulation.tolerance=0.0005", "simulation.max_cycles=15")
+"""Settling of every point here: demo_runners' tolerance (the demo's)."""
 
 
 def sweep(lengths_mm, speeds, extra=SETTLE):

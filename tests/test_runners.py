@@ -12,9 +12,9 @@ Checks:
   (f L / c << 1) is a lumped connection at the plenum's state (Heywood 1988 sec. 7.6: the
   intake's wave action scales with L / c; from memory);
 - with runners the settled state is periodic: the cycle means of the runners' valve-end
-  pressures repeat within the tolerance, their mass to a few % (their state at the cycle's start
-  also only to a few %: the waves of the cycles before still run, a 1-D open end reflects them
-  without loss);
+  pressures and mass repeat within the tolerance (their state at the cycle's start less closely:
+  the waves of the cycles before still run, a 1-D open end reflects them without loss), in at most
+  6 cycles by plain repetition (issue 23's bound with runners);
 - the compiled cycle loop with runners (cyclesim.pipes.loop_step) gives the numpy loop's results
   within 1e-9 in every summary figure and trace column (the numpy loop is the reference: the same
   pipe kernels, the cylinder on numpy arrays); conservation and "alone = in a batch" hold on both;
@@ -197,21 +197,20 @@ def test_very_short_runners_match_the_plenum(monkeypatch):
     assert abs(ve1 - ve0) / ve0 < 5e-3, (ve0, ve1)
 
 
-@pytest.mark.slow
 def test_settled_state_is_periodic_with_runners():
     c = cyclesim.load_config("demo_runners")
     batch, tr = _integrate([c])
-    assert tr.converged[0]
+    assert tr.converged[0] and tr.cycles[0] <= 6
     rec = tr.runners
-    # the cycle means of each runner's valve-end pressure repeat within the tolerance
+    # the cycle means of each runner's valve-end pressure and mass repeat within the tolerance
     # (cyclesim.pipes.runners.RunnerSet.settle_change), and the reported cycle's net IMEP did
     assert np.all(rec["change"] < c.simulation.tolerance)
-    imep = [h[0][0] for h in tr.history[-2:]]
-    assert abs(imep[1] - imep[0]) / abs(imep[1]) < c.simulation.tolerance
-    # the runners' cycle-mean mass repeats to a few % (not judged by the driver: see settle_change)
     from cyclesim.pipes.runners import mean_changes
 
-    assert np.all(mean_changes(rec["cycle_mean_before"], rec["cycle_mean"])["mass"] < 0.05)
+    ch = mean_changes(rec["cycle_mean_before"], rec["cycle_mean"])
+    assert np.all(ch["mass"] < c.simulation.tolerance) and np.all(ch["valve_pressure"] < c.simulation.tolerance)
+    imep = [h[0][0] for h in tr.history[-2:]]
+    assert abs(imep[1] - imep[0]) / abs(imep[1]) < c.simulation.tolerance
 
 
 def test_sweep_accepts_runner_keys_and_refuses_unknown_ones(tmp_path):
