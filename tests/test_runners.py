@@ -20,7 +20,7 @@ Checks:
   pipe kernels, the cylinder on numpy arrays); conservation and "alone = in a batch" hold on both;
 - tuning: not here; benchmarks/runner_tuning.py prints the tuned speed against the intake
   runner's length and its fitted exponent against the organ-pipe estimate -1 stated in advance
-  (measured: -0.66, outside +-0.2 of it).
+  (measured with --quick: -0.48, outside +-0.2 of it).
 """
 
 from __future__ import annotations
