@@ -240,3 +240,28 @@ def test_haaland_fanning_factor_against_colebrook():
             assert kernels.fanning_factor(re, eps) == pytest.approx(f_col, rel=0.02), (re, eps)
     # laminar: Hagen-Poiseuille, f = 16/Re (White 2006, eq. 3.49; from memory for the number)
     assert kernels.fanning_factor(500.0, 0.0) == pytest.approx(16.0 / 500.0, rel=1e-12)
+
+
+def test_friction_factor_is_laminar_at_low_reynolds_numbers():
+    # Hagen-Poiseuille f = 16/Re (White 2006, eq. 3.49; from memory for the number) down to creeping
+    # flow, for smooth and rough walls: Haaland's formula (stated for Re 4e3..1e8; Haaland 1983) is not
+    # taken below its range, where its logarithm changes sign near Re 7 and its value grows without bound
+    re = np.logspace(-6, 2.6, 60)
+    for eps in (0.0, 1e-3, 0.05):
+        np.testing.assert_allclose(kernels.fanning_factor(re, eps), 16.0 / re, rtol=1e-12)
+    # at and above the floor the value is unchanged: the larger of 16/Re and Haaland's
+    for r in (500.0, 1200.0, 3000.0, 1e5):
+        inv = -1.8 * np.log10(6.9 / r)
+        assert kernels.fanning_factor(r, 0.0) == pytest.approx(max(16.0 / r, 0.25 / inv ** 2), rel=1e-12)
+
+
+def test_wall_heat_stays_at_the_laminar_value_as_the_flow_stops():
+    # Reynolds-Colburn analogy St Pr^(2/3) = f/2 (Colburn 1933; Incropera et al. 2007, eq. 8.66): with
+    # f = 16/Re the wall flux tends to its laminar value 8 mu/D cp Pr^(-2/3) (T_w - T) 4/D as u -> 0;
+    # it must neither grow nor jump there (a cell at a velocity node of a standing wave)
+    rho, T, D, cp, Tw, colburn = 0.35, 980.0, 0.034, 1150.0, 700.0, 0.7 ** (-2.0 / 3.0)
+    mu = kernels.sutherland_viscosity(T)
+    lam = 0.5 * 16.0 * mu / D * colburn * cp * (4.0 / D) * (Tw - T)
+    for u in (0.0, 1e-9, 1e-3, 1e-2, 0.1):
+        _, q = kernels.wall_sources(rho, u, T, cp, D, kernels.roughness_term(1e-4), 1.0, 0.0, 0.0, Tw, colburn, 1.0)
+        assert float(q) == pytest.approx(lam, rel=1e-9), u

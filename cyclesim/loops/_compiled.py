@@ -133,12 +133,13 @@ def _orifice(cda, p1, T1, R1, g1, p2, T2, R2, g2, dp_lin):
 
 
 def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p_i, p_e, CB, IC, TB, TO,
-         gas_tab, gas_off, gc, uc4, mix):
+         gas_tab, gas_off, gc, uc4, mix, src):
     """Derivatives of case b into out; False where they are not finite.
 
     CB (rows x B) holds the per-case constants (row numbers R_*), IC the model codes and
     state rows; TB the batch-wide arrays of the models' ``pack()`` end to end, array k being
-    ``TB[TO[k]:TO[k + 1]]`` (cyclesim.loops.layout.shared_blocks)."""
+    ``TB[TO[k]:TO[k + 1]]`` (cyclesim.loops.layout.shared_blocks); src (8,) the crank step's valve
+    flows of the sides with a runner (cyclesim.pipes.loop_step; a zero flag: the valve model's)."""
     n = yv.shape[0]
     m = yv[S_M]
     T = yv[S_T]
@@ -184,13 +185,24 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     yin_e = yb
     hin_e = h
     if flows:
-        if Ai != 0.0:
-            fi = orifice_flow(Ai, p_i, CB[PL_TI, b], CB[PL_RI, b], CB[PL_GI, b], p, T, R, gamma, gc[8]) * dt
-        if Ae != 0.0:
-            fe = orifice_flow(Ae, p_e, CB[PL_TE, b], CB[PL_RE, b], CB[PL_GE, b], p, T, R, gamma, gc[8]) * dt
-        yin_i, hin_i, out[S_MQ], out[S_MBQ], out[S_HQ] = port_buffer(
-            fi, yv[S_MQ], yv[S_MBQ], yv[S_HQ], CB[R_BUF, b], CB[PL_YI, b], CB[PL_HI, b], yb, h)
-        yin_e, hin_e = exhaust_inflow(fe, CB[PL_HE, b], yb, h)
+        if src[0] != 0.0:
+            # an intake runner's crank step at constant rates, no port buffer (cyclesim.solve.valve_source)
+            fi = src[1] * dt
+            yin_i = src[2]
+            hin_i = src[3]
+        else:
+            if Ai != 0.0:
+                fi = orifice_flow(Ai, p_i, CB[PL_TI, b], CB[PL_RI, b], CB[PL_GI, b], p, T, R, gamma, gc[8]) * dt
+            yin_i, hin_i, out[S_MQ], out[S_MBQ], out[S_HQ] = port_buffer(
+                fi, yv[S_MQ], yv[S_MBQ], yv[S_HQ], CB[R_BUF, b], CB[PL_YI, b], CB[PL_HI, b], yb, h)
+        if src[4] != 0.0:
+            fe = src[5] * dt
+            yin_e = src[6]
+            hin_e = src[7]
+        else:
+            if Ae != 0.0:
+                fe = orifice_flow(Ae, p_e, CB[PL_TE, b], CB[PL_RE, b], CB[PL_GE, b], p, T, R, gamma, gc[8]) * dt
+            yin_e, hin_e = exhaust_inflow(fe, CB[PL_HE, b], yb, h)
         out[S_MINT] = fi
         out[S_MEXH] = fe
         out[S_MUINT] = fi * (1.0 - yin_i)
@@ -223,7 +235,7 @@ def _weighted(coef, K, s, k):
     return acc
 
 
-def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
+def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1, pipes=None):
     """One cycle of cases b0..b1-1 by the Runge-Kutta tableau on the grid, as the Python loop.
 
     The inputs come in groups (tuples, see ``cyclesim.solve.kernel.Compiled``):
@@ -238,7 +250,8 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
       (row 0 the kind per state row, row 1 + b case b's value),
       the batch-wide arrays end to end and their bounds;
     - gas: (gas_tab, gas_off, gc, uc4): the property tables;
-    - tableau: (tA, ta_den, tb, tb_den, tnode): cyclesim.solve.stepper.Tableau.arrays.
+    - tableau: (tA, ta_den, tb, tb_den, tnode): cyclesim.solve.stepper.Tableau.arrays;
+    - pipes: the runners (cyclesim.pipes.loop_step.pack), read only by a loop generated with them.
 
     Cases touch only their own columns, so two threads may run disjoint ranges of one batch
     (the GIL is released)."""
@@ -257,6 +270,7 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
     S = tA.shape[0]
     K = np.empty((S, n))
     mix = np.empty(7)
+    src = np.zeros(8)           # the step's valve flows from the runners (none: all zero)
     for b in range(b0, b1):
         status[b] = 0
         g = geo_rows[b]          # the case's column of the geometry arrays
@@ -264,6 +278,8 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
             yv[k] = y[k, b]
         for i in range(N + 1):
             hs = steps[i] if i < N else 0.0
+            # RUNNER STEP (a loop generated with runners advances them here: cyclesim.loops.loopgen)
+            # END RUNNER STEP
             # the stages at the grid's points (only the start at the last point)
             for st in range(S if i < N else 1):
                 j = 2 * i + tnode[st]
@@ -277,9 +293,10 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1):
                         yt[k] = yv[k] + f * _weighted(tA[st], K, st, k)
                     # END STAGE COMBINATION
                 jp = j if vary else 0
-                ok = _rhs(b, th[j], yt, K[st], full and open_at[j], Vp[j, g], dVp[j, g], Ahp[j, g],
-                          App[j, g], Alp[j, g], closed_pts[j, b], burning_pts[j, b], Ai_pts[j, b],
-                          Ae_pts[j, b], PI[jp, b], PE[jp, b], CB, IC, TB, TO, gas_tab, gas_off, gc, uc4, mix)
+                ok = _rhs(b, th[j], yt, K[st], full and (open_at[j] or src[0] != 0.0 or src[4] != 0.0), Vp[j, g],
+                          dVp[j, g], Ahp[j, g], App[j, g], Alp[j, g], closed_pts[j, b], burning_pts[j, b],
+                          Ai_pts[j, b], Ae_pts[j, b], PI[jp, b], PE[jp, b], CB, IC, TB, TO, gas_tab, gas_off, gc,
+                          uc4, mix, src)
                 if not ok:
                     status[b] = 1
                     break

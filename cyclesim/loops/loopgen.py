@@ -468,21 +468,24 @@ def _memo(parts) -> tuple:
     return tuple((p.role, p.kind, p.packed, p.own, p.out, p.arrays, _fingerprint_of(p.fn)) for p in parts)
 
 
-def generate(parts, forms: dict | None = None, tableau=None) -> tuple[str, str]:
+def generate(parts, forms: dict | None = None, tableau=None, runner_step=None) -> tuple[str, str]:
     """(key, module source) of the loop for ``parts`` (:class:`Part`; ``forms``: role -> the
     compiled form of a role whose state kernel reads a named form's parameters, default
     ``kernel``; ``tableau``: the Runge-Kutta scheme written into the loop, see
-    :func:`_tableau_blocks`; None leaves the loop reading the scheme it is passed).
+    :func:`_tableau_blocks`; None leaves the loop reading the scheme it is passed;
+    ``runner_step``: None, or ``(module, digest)`` of the runners' compiled crank step, whose
+    ``crank_step`` the loop then calls each step (:data:`RUNNER_STEP`; ``digest`` a hash of the
+    sources it runs, written into the loop so that it names the file)).
 
     Remembered in the process by a fingerprint of the functions (code objects and the values of
     the globals they read), so a repeated batch does not read sources again.
     """
     parts = _as_parts(parts)
     forms = dict(forms or {})
-    memo = (_memo(parts), tuple(sorted(forms.items())), _tableau_key(tableau))
+    memo = (_memo(parts), tuple(sorted(forms.items())), _tableau_key(tableau), runner_step)
     got = _generated.get(memo)
     if got is None:
-        got = _generated[memo] = _generate(parts, forms, tableau)
+        got = _generated[memo] = _generate(parts, forms, tableau, runner_step)
     return got
 
 
@@ -507,6 +510,29 @@ STAGE_BLOCK = ("                else:\n                    # STAGE COMBINATION",
 STEP_BLOCK = ("            # STEP COMBINATION", "            # END STEP COMBINATION\n")
 """Where :func:`cyclesim.loops._compiled.run_cycle` combines the stages (its generic form reads the
 tableau's arrays in a loop per state row); a loop generated for a tableau has them written out."""
+
+
+RUNNER_BLOCK = ("            # RUNNER STEP", "            # END RUNNER STEP\n")
+"""Where :func:`cyclesim.loops._compiled.run_cycle` advances the runners, in a loop generated with
+them (:data:`RUNNER_STEP`); elsewhere the block is left as it is (comments only)."""
+RUNNER_STEP = """\
+            if i < N:
+                # the runners over the crank step from the cylinder at the step's start, their valve
+                # totals the step's source (cyclesim.pipes.loop_step.crank_step)
+                m_r = yv[S_M]
+                T_r = yv[S_T]
+                rho_r = m_r / Vp[2 * i, g]
+                yb_r = min(max(yv[S_MB] / m_r, 0.0), 1.0)
+                _mixture(gas_tab, gas_off[b], gc, IC[IC_NRM1], uc4, b, T_r, rho_r, yb_r, mix)
+                if not _runner_crank_step(b, i, hs * (1.0 / CB[R_OMEGA, b]), rho_r * mix[1] * T_r, T_r, yb_r,
+                                          mix[0] + mix[1] * T_r, pipes, src):
+                    status[b] = 1
+                    break
+"""
+"""The runners' step in a generated loop: the cylinder's pressure, temperature, burned fraction and
+enthalpy at the step's start from the loop's gas tables (as the numpy loop's
+:meth:`cyclesim.solve.valve_source.RunnerCoupling.step`), then the compiled crank step of the
+module named by ``runner_step`` (:func:`generate`)."""
 
 
 def _weighted_text(coefs, s: int) -> str:
@@ -568,7 +594,7 @@ def template_functions() -> tuple:
     return (orifice_flow, port_buffer, exhaust_inflow, first_law, burned_mass_rate)
 
 
-def _generate(parts: tuple, forms: dict, tableau=None) -> tuple[str, str]:
+def _generate(parts: tuple, forms: dict, tableau=None, runner_step=None) -> tuple[str, str]:
     import cyclesim.loops._compiled as base
 
     funcs: dict = {}
@@ -614,6 +640,8 @@ def _generate(parts: tuple, forms: dict, tableau=None) -> tuple[str, str]:
     if tableau is not None:
         stage, step = _tableau_blocks(tableau)
         cycle = _replace_block(_replace_block(cycle, STAGE_BLOCK, stage), STEP_BLOCK, step)
+    if runner_step is not None:
+        cycle = _replace_block(cycle, RUNNER_BLOCK, RUNNER_STEP)
     private = sorted(n for n, v in vars(base).items()
                      if n.startswith("_") and not n.startswith("__") and hasattr(v, "py_func"))
     names = ", ".join(dict.fromkeys(p.fn.__name__ for p in parts)) or "none"
@@ -627,6 +655,9 @@ def _generate(parts: tuple, forms: dict, tableau=None) -> tuple[str, str]:
         "from cyclesim.loops._compiled import *  # noqa: F401,F403 - the layout constants and helpers",
         f"from cyclesim.loops._compiled import {', '.join(private)}  # noqa: F401",
     ]
+    if runner_step is not None:
+        parts_text.append(f"from {runner_step[0]} import crank_step as _runner_crank_step"
+                          f"  # sources {runner_step[1]}")
     for name, target in sorted(imports.items()):
         mod, _, attr = target.rpartition(".") if target.startswith("cyclesim.kernel_ops.") else (target, "", "")
         parts_text.append(f"from {mod} import {attr} as {name}" if attr else f"import {target} as {name}")
@@ -653,7 +684,7 @@ def _generate(parts: tuple, forms: dict, tableau=None) -> tuple[str, str]:
 _loaded: dict = {}
 
 
-def _quick_key(parts: tuple, forms: dict, tableau=None) -> str:
+def _quick_key(parts: tuple, forms: dict, tableau=None, runner_step=None) -> str:
     """A cheap hash of what the loop depends on (the kernels' compiled code objects, the values of
     the globals they read, this module's and the compiled loop's files), naming an index entry
     that points at the loop's file: a new process finds its loop without reading any source."""
@@ -681,6 +712,7 @@ def _quick_key(parts: tuple, forms: dict, tableau=None) -> str:
     feed(_memo(parts))
     feed(tuple(sorted(forms.items())))
     feed(_tableau_key(tableau))
+    feed(runner_step)
     # written into the loop as well: the template's functions, a coefficient kernel's wall heat flow
     for fn in template_functions() + (wall_heat_flow,):
         feed(_fingerprint(fn))
@@ -693,28 +725,29 @@ _in_process: dict = {}
 loop without hashing or reading any file."""
 
 
-def module_for(parts, forms: dict | None = None, tableau=None):
+def module_for(parts, forms: dict | None = None, tableau=None, runner_step=None):
     """The generated loop module for ``parts`` (:func:`generate`): written on first use, then
     loaded from the cache folder; ``(module, freshly_written)``."""
     parts = _as_parts(parts)
     forms = dict(forms or {})
-    memo = (_memo(parts), tuple(sorted(forms.items())), _tableau_key(tableau), os.environ.get(CACHE_ENV, ""))
+    memo = (_memo(parts), tuple(sorted(forms.items())), _tableau_key(tableau), runner_step,
+            os.environ.get(CACHE_ENV, ""))
     got = _in_process.get(memo)
     if got is not None:
         return got, False
-    mod, fresh = _module_for(parts, forms, tableau)
+    mod, fresh = _module_for(parts, forms, tableau, runner_step)
     _in_process[memo] = mod
     return mod, fresh
 
 
-def _module_for(parts: tuple, forms: dict, tableau):
+def _module_for(parts: tuple, forms: dict, tableau, runner_step=None):
     d = cache_dir()
-    index = d / "index" / _quick_key(parts, forms, tableau)
+    index = d / "index" / _quick_key(parts, forms, tableau, runner_step)
     key = index.read_text().strip() if index.is_file() else ""
     if key and key in _loaded:
         return _loaded[key], False
     if not key or not (d / f"loop_{key}.py").is_file():
-        key, text = generate(parts, forms, tableau)
+        key, text = generate(parts, forms, tableau, runner_step)
         if key in _loaded:
             return _loaded[key], False
     d.mkdir(parents=True, exist_ok=True)

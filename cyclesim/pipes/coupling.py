@@ -26,6 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import ConfigError, SolverError
+from ..kernel_ops import where
 from ..cylinder.flow import turbine_outlet_temperature
 import cyclesim.pipes.kernels as k
 import cyclesim.pipes.scheme as s
@@ -98,21 +99,52 @@ def _valve_step(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_ste
     return s.advance_arrays(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps)
 
 
+def step_rates(mass_kg, enthalpy_J, burned_kg, duration_s, y_cyl, h_cyl):
+    """One valve's crank-step totals as the cylinder's constant rates over the step (kernel form:
+    arrays on the numpy loop, floats in the compiled loop).
+
+    ``mass_kg``, ``enthalpy_J``, ``burned_kg`` went into the cylinder over ``duration_s`` [s];
+    returns the mass flow [kg/s], and the burned fraction [-] and enthalpy [J/kg] of what came in;
+    where no gas moved, the cylinder's own ``y_cyl`` and ``h_cyl`` (times a zero flow)."""
+    moved = mass_kg != 0.0
+    ms = where(moved, mass_kg, 1.0)
+    timed = duration_s > 0.0
+    mdot = where(timed, mass_kg / where(timed, duration_s, 1.0), 0.0)
+    return mdot, where(moved, burned_kg / ms, y_cyl), where(moved, enthalpy_J / ms, h_cyl)
+
+
 if s.COMPILED:
     from numba import njit
 
     _check = njit(cache=True)(_check)
 
     @njit(cache=True)
+    def valve_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y,
+                        acc, steps, fallbacks):
+        """Case ``b`` of :func:`_valve_step`, compiled: set its valve end from the cylinder (``cda``
+        [m^2], ``p`` [Pa], ``T`` [K], ``Y`` [-]) and advance it by ``dur`` [s]
+        (:func:`cyclesim.pipes.scheme.advance_case`; its return code)."""
+        E[b, end, s.E_CDA] = cda
+        E[b, end, s.E_P] = p
+        E[b, end, s.E_T] = T
+        E[b, end, s.E_Y] = Y
+        E[b, end, s.E_K] = 0.0                          # the valve's discharge coefficient is in its area
+        return s.advance_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, acc, steps,
+                              fallbacks)
+
+    @njit(cache=True)
     def _valve_step_compiled(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y):
         """:func:`_valve_step` in one compiled call (no Python between the valve and the sub-steps)."""
-        for b in range(Q.shape[0]):
-            E[b, end, s.E_CDA] = cda[b]
-            E[b, end, s.E_P] = p[b]
-            E[b, end, s.E_T] = T[b]
-            E[b, end, s.E_Y] = Y[b]
-            E[b, end, s.E_K] = 0.0
-        return s._advance_compiled(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps)
+        B = Q.shape[0]
+        acc = np.zeros((B, 2, s.NF))
+        steps = np.zeros(B, dtype=np.int64)
+        fallbacks = np.zeros(B, dtype=np.int64)
+        for b in range(B):
+            why = valve_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur[b], max_steps, end,
+                                  cda[b], p[b], T[b], Y[b], acc, steps, fallbacks)
+            if why >= 0:
+                return acc, steps, fallbacks, b, why
+        return acc, steps, fallbacks, -1, 0
 
 
 def advance_crank_step(system: PipeSystem, duration_s, valve_cda_m2, cylinder_pressure_pa,

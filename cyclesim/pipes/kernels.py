@@ -35,6 +35,11 @@ SUTHERLAND_T0 = 273.15
 SUTHERLAND_S = 110.4
 """Sutherland's constant of air [K] (White 2006, table 1-2; from memory)."""
 
+HAALAND_RE_FLOOR = 500.0
+"""Lowest Reynolds number at which the turbulent friction factor is evaluated [-]: below it the
+laminar 16/Re exceeds Haaland's value at this floor for any roughness up to eps/D 0.05 (so the
+friction factor is 16/Re there, as for Re from 500 to about 1200 before)."""
+
 T_MIN_K = 20.0
 T_MAX_K = 2.0e4
 """Bounds of the temperature recovered from a cell's energy [K] (a cell at T_MIN_K has lost positivity)."""
@@ -130,7 +135,10 @@ def fanning_factor(reynolds, rel_roughness):
     (1983) ``1/sqrt(4 f) = -1.8 log10((eps/D / 3.7)^1.11 + 6.9/Re)``, an explicit
     form of Colebrook (1939).  The maximum is continuous; it switches near Re 1200
     for smooth pipes (no transition model: common practice for engine runners,
-    whose flow is turbulent most of the cycle).
+    whose flow is turbulent most of the cycle).  Haaland's formula is evaluated at
+    ``Re >= HAALAND_RE_FLOOR`` only: below Re of about 7 its logarithm changes sign and
+    the turbulent value grows without bound (it is stated for Re 4e3 to 1e8;
+    Haaland 1983), where the laminar 16/Re holds and is larger anyway.
     """
     return fanning_from_roughness_term(reynolds, roughness_term(rel_roughness))
 
@@ -145,7 +153,7 @@ def roughness_term(rel_roughness):
 def fanning_from_roughness_term(reynolds, rough_term):
     """:func:`fanning_factor` given the :func:`roughness_term` of the wall."""
     re = np.maximum(reynolds, 1e-12)
-    inv = -1.8 * np.log10(rough_term + 6.9 / re)
+    inv = -1.8 * np.log10(rough_term + 6.9 / np.maximum(re, HAALAND_RE_FLOOR))
     f_turb = 0.25 / (np.maximum(inv, 1e-3) * np.maximum(inv, 1e-3))
     return np.maximum(16.0 / re, f_turb)
 

@@ -213,10 +213,24 @@ if COMPILED:
 
     @njit(cache=True, error_model="numpy", fastmath=FASTMATH)
     def _advance_compiled(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration, max_steps):
-        B, _, N = Q.shape
+        B = Q.shape[0]
         acc = np.zeros((B, 2, NF))
         steps = np.zeros(B, dtype=np.int64)
         fallbacks = np.zeros(B, dtype=np.int64)
+        for b in range(B):
+            why = advance_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration[b], max_steps,
+                               acc, steps, fallbacks)
+            if why >= 0:
+                return acc, steps, fallbacks, b, why
+        return acc, steps, fallbacks, -1, 0
+
+    @njit(cache=True, error_model="numpy", fastmath=FASTMATH)
+    def advance_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, T_end, max_steps, acc, steps,
+                     fallbacks):
+        """Advance case ``b`` of the arrays by ``T_end`` [s], adding its end fluxes to ``acc[b]`` (2, NF)
+        and its sub-steps to ``steps[b]`` and ``fallbacks[b]``; -1 done, 0 too many sub-steps, 1 lost
+        positivity (the compiled form of :func:`advance_arrays` for one case, called by the cycle loop too)."""
+        N = Q.shape[2]
         W = np.empty((7, N))            # rho, u, p, Y, T, gamma, c
         S = np.empty((4, N))            # limited slopes
         L = np.empty((5, N))            # left face: rho, u, p, Y, E
@@ -229,148 +243,146 @@ if COMPILED:
         SM = np.empty(N)                # momentum and energy sources of the update
         SE = np.empty(N)
         bad = np.zeros(N, dtype=np.bool_)
-        for b in range(B):
-            cf = C[b, 0]
-            cb = C[b, 1]
-            dx = P[b, P_DX]
-            Rf = P[b, P_R_FRESH]
-            Rb = P[b, P_R_BURNED]
-            fr, ff, kl, tw, prn, hs = (P[b, P_FRICTION], P[b, P_FIXED_FANNING], P[b, P_LOSS_PER_LENGTH],
-                                       P[b, P_WALL_T], P[b, P_COLBURN], P[b, P_HEAT])
-            t = 0.0
-            cut = 0
-            T_end = duration[b]
-            while t < T_end:
-                if steps[b] >= max_steps:
-                    return acc, steps, fallbacks, b, 0
-                if cut > MAX_CUTS:
-                    return acc, steps, fallbacks, b, 1
-                steps[b] += 1
-                vmax = 0.0
+        cf = C[b, 0]
+        cb = C[b, 1]
+        dx = P[b, P_DX]
+        Rf = P[b, P_R_FRESH]
+        Rb = P[b, P_R_BURNED]
+        fr, ff, kl, tw, prn, hs = (P[b, P_FRICTION], P[b, P_FIXED_FANNING], P[b, P_LOSS_PER_LENGTH],
+                                   P[b, P_WALL_T], P[b, P_COLBURN], P[b, P_HEAT])
+        t = 0.0
+        cut = 0
+        while t < T_end:
+            if steps[b] >= max_steps:
+                return 0
+            if cut > MAX_CUTS:
+                return 1
+            steps[b] += 1
+            vmax = 0.0
+            for i in range(N):
+                r_, u_, p_, y_, T_, g_, c_ = kc.primitives(
+                    Q[b, MASS, i], Q[b, MOMENTUM, i], Q[b, ENERGY, i], Q[b, BURNED, i],
+                    G[b, G_VOLUME, i], cf, cb, Rf, Rb, t_mid, n_newton, Tc[b, i])
+                Tc[b, i] = T_
+                W[0, i] = r_
+                W[1, i] = u_
+                W[2, i] = p_
+                W[3, i] = y_
+                W[4, i] = T_
+                W[5, i] = g_
+                W[6, i] = c_
+                vmax = max(vmax, abs(u_) + c_)
+            dt = P[b, P_CFL] * dx / vmax * 0.5 ** cut
+            rest = T_end - t
+            last = dt >= rest
+            if last:
+                dt = rest
+            for q in range(4):
+                S[q, 0] = kc.limited_slope(W[q, 1] - W[q, 0], W[q, 2] - W[q, 1])
+                S[q, N - 1] = kc.limited_slope(W[q, N - 1] - W[q, N - 2], W[q, N - 2] - W[q, N - 3])
+                for i in range(1, N - 1):
+                    S[q, i] = kc.limited_slope(W[q, i] - W[q, i - 1], W[q, i + 1] - W[q, i])
+            hdt = 0.5 * dt
+            for i in range(N):
+                D = G[b, G_DIAMETER, i]
+                rg = G[b, G_ROUGH_TERM, i]
+                _, _, s_u, s_p = kc.cell_sources(W[0, i], W[1, i], W[2, i], W[3, i], cf, cb, Rf, Rb,
+                                                t_mid, D, rg, fr, ff, kl, tw, prn, hs)
+                rl, ul, pl, yl, rr, ur, pr, yr = kc.predict(
+                    W[0, i], W[1, i], W[2, i], W[3, i], W[5, i], S[0, i], S[1, i], S[2, i], S[3, i],
+                    G[b, G_AREA_SLOPE, i], s_u, s_p, hdt, dx)
+                L[0, i] = rl
+                L[1, i] = ul
+                L[2, i] = pl
+                L[3, i] = yl
+                R[0, i] = rr
+                R[1, i] = ur
+                R[2, i] = pr
+                R[3, i] = yr
+                L[4, i], cl[i] = kc.total_energy(rl, ul, pl, yl, cf, cb, Rf, Rb, t_mid)
+                R[4, i], cr[i] = kc.total_energy(rr, ur, pr, yr, cf, cb, Rf, Rb, t_mid)
+                ph = 0.5 * (pl + pr)
+                s_mom, s_E, _, _ = kc.cell_sources(0.5 * (rl + rr), 0.5 * (ul + ur), ph, 0.5 * (yl + yr),
+                                                  cf, cb, Rf, Rb, t_mid, D, rg, fr, ff, kl, tw, prn, hs)
+                PH[i] = ph
+                SM[i] = s_mom
+                SE[i] = s_E
+            for i in range(1, N):
+                f0, f1, f2, f3 = kc.hllc_flux(R[0, i - 1], R[1, i - 1], R[2, i - 1], R[4, i - 1],
+                                             R[3, i - 1], cr[i - 1],
+                                             L[0, i], L[1, i], L[2, i], L[4, i], L[3, i], cl[i])
+                a = Af[b, i]
+                F[0, i] = f0 * a
+                F[1, i] = f1 * a
+                F[2, i] = f2 * a
+                F[3, i] = f3 * a
+            _end_into(F, 0, -1.0, 0, L[0, 0], L[1, 0], L[2, 0], L[3, 0], cl[0] * cl[0] * L[0, 0] / L[2, 0],
+                      b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter)
+            j = N - 1
+            _end_into(F, N, 1.0, 1, R[0, j], R[1, j], R[2, j], R[3, j], cr[j] * cr[j] * R[0, j] / R[2, j],
+                      b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter)
+            n_bad = 0
+            for i in range(N):
+                Vi = G[b, G_VOLUME, i]
+                _update_cell(Qn, Q, F, b, i, dt, PH[i], SM[i], SE[i], Vi, Af[b, i + 1] - Af[b, i])
+                bad[i] = not kc.positive(Qn[MASS, i], Qn[MOMENTUM, i], Qn[ENERGY, i], Qn[BURNED, i],
+                                         POSITIVITY_T_FRACTION * W[4, i], cf, cb, t_mid)
+                n_bad += bad[i]
+            if n_bad > 0:
+                fallbacks[b] += 1
+                # first-order faces around the cells that lost positivity; their sources of time n
+                for f in range(N + 1):
+                    if not ((f > 0 and bad[f - 1]) or (f < N and bad[f])):
+                        continue
+                    if f == 0:
+                        _end_into(F, 0, -1.0, 0, W[0, 0], W[1, 0], W[2, 0], W[3, 0], W[5, 0],
+                                  b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter)
+                    elif f == N:
+                        _end_into(F, N, 1.0, 1, W[0, j], W[1, j], W[2, j], W[3, j], W[5, j],
+                                  b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter)
+                    else:
+                        i0 = f - 1
+                        E0 = W[0, i0] * kc.energy(W[4, i0], W[3, i0], cf, cb, t_mid)[0] \
+                            + 0.5 * W[0, i0] * W[1, i0] * W[1, i0]
+                        E1 = W[0, f] * kc.energy(W[4, f], W[3, f], cf, cb, t_mid)[0] \
+                            + 0.5 * W[0, f] * W[1, f] * W[1, f]
+                        f0, f1, f2, f3 = kc.rusanov_flux(W[0, i0], W[1, i0], W[2, i0], E0, W[3, i0], W[6, i0],
+                                                        W[0, f], W[1, f], W[2, f], E1, W[3, f], W[6, f])
+                        a = Af[b, f]
+                        F[0, f] = f0 * a
+                        F[1, f] = f1 * a
+                        F[2, f] = f2 * a
+                        F[3, f] = f3 * a
                 for i in range(N):
-                    r_, u_, p_, y_, T_, g_, c_ = kc.primitives(
-                        Q[b, MASS, i], Q[b, MOMENTUM, i], Q[b, ENERGY, i], Q[b, BURNED, i],
-                        G[b, G_VOLUME, i], cf, cb, Rf, Rb, t_mid, n_newton, Tc[b, i])
-                    Tc[b, i] = T_
-                    W[0, i] = r_
-                    W[1, i] = u_
-                    W[2, i] = p_
-                    W[3, i] = y_
-                    W[4, i] = T_
-                    W[5, i] = g_
-                    W[6, i] = c_
-                    vmax = max(vmax, abs(u_) + c_)
-                dt = P[b, P_CFL] * dx / vmax * 0.5 ** cut
-                rest = T_end - t
-                last = dt >= rest
-                if last:
-                    dt = rest
-                for q in range(4):
-                    S[q, 0] = kc.limited_slope(W[q, 1] - W[q, 0], W[q, 2] - W[q, 1])
-                    S[q, N - 1] = kc.limited_slope(W[q, N - 1] - W[q, N - 2], W[q, N - 2] - W[q, N - 3])
-                    for i in range(1, N - 1):
-                        S[q, i] = kc.limited_slope(W[q, i] - W[q, i - 1], W[q, i + 1] - W[q, i])
-                hdt = 0.5 * dt
-                for i in range(N):
-                    D = G[b, G_DIAMETER, i]
-                    rg = G[b, G_ROUGH_TERM, i]
-                    _, _, s_u, s_p = kc.cell_sources(W[0, i], W[1, i], W[2, i], W[3, i], cf, cb, Rf, Rb,
-                                                    t_mid, D, rg, fr, ff, kl, tw, prn, hs)
-                    rl, ul, pl, yl, rr, ur, pr, yr = kc.predict(
-                        W[0, i], W[1, i], W[2, i], W[3, i], W[5, i], S[0, i], S[1, i], S[2, i], S[3, i],
-                        G[b, G_AREA_SLOPE, i], s_u, s_p, hdt, dx)
-                    L[0, i] = rl
-                    L[1, i] = ul
-                    L[2, i] = pl
-                    L[3, i] = yl
-                    R[0, i] = rr
-                    R[1, i] = ur
-                    R[2, i] = pr
-                    R[3, i] = yr
-                    L[4, i], cl[i] = kc.total_energy(rl, ul, pl, yl, cf, cb, Rf, Rb, t_mid)
-                    R[4, i], cr[i] = kc.total_energy(rr, ur, pr, yr, cf, cb, Rf, Rb, t_mid)
-                    ph = 0.5 * (pl + pr)
-                    s_mom, s_E, _, _ = kc.cell_sources(0.5 * (rl + rr), 0.5 * (ul + ur), ph, 0.5 * (yl + yr),
-                                                      cf, cb, Rf, Rb, t_mid, D, rg, fr, ff, kl, tw, prn, hs)
-                    PH[i] = ph
-                    SM[i] = s_mom
-                    SE[i] = s_E
-                for i in range(1, N):
-                    f0, f1, f2, f3 = kc.hllc_flux(R[0, i - 1], R[1, i - 1], R[2, i - 1], R[4, i - 1],
-                                                 R[3, i - 1], cr[i - 1],
-                                                 L[0, i], L[1, i], L[2, i], L[4, i], L[3, i], cl[i])
-                    a = Af[b, i]
-                    F[0, i] = f0 * a
-                    F[1, i] = f1 * a
-                    F[2, i] = f2 * a
-                    F[3, i] = f3 * a
-                _end_into(F, 0, -1.0, 0, L[0, 0], L[1, 0], L[2, 0], L[3, 0], cl[0] * cl[0] * L[0, 0] / L[2, 0],
-                          b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter)
-                j = N - 1
-                _end_into(F, N, 1.0, 1, R[0, j], R[1, j], R[2, j], R[3, j], cr[j] * cr[j] * R[0, j] / R[2, j],
-                          b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter)
+                    if bad[i]:
+                        s_mom, s_E, _, _ = kc.cell_sources(W[0, i], W[1, i], W[2, i], W[3, i], cf, cb, Rf, Rb,
+                                                          t_mid, G[b, G_DIAMETER, i], G[b, G_ROUGH_TERM, i],
+                                                          fr, ff, kl, tw, prn, hs)
+                        PH[i] = W[2, i]
+                        SM[i] = s_mom
+                        SE[i] = s_E
                 n_bad = 0
                 for i in range(N):
-                    Vi = G[b, G_VOLUME, i]
-                    _update_cell(Qn, Q, F, b, i, dt, PH[i], SM[i], SE[i], Vi, Af[b, i + 1] - Af[b, i])
+                    _update_cell(Qn, Q, F, b, i, dt, PH[i], SM[i], SE[i], G[b, G_VOLUME, i],
+                                 Af[b, i + 1] - Af[b, i])
                     bad[i] = not kc.positive(Qn[MASS, i], Qn[MOMENTUM, i], Qn[ENERGY, i], Qn[BURNED, i],
                                              POSITIVITY_T_FRACTION * W[4, i], cf, cb, t_mid)
                     n_bad += bad[i]
                 if n_bad > 0:
-                    fallbacks[b] += 1
-                    # first-order faces around the cells that lost positivity; their sources of time n
-                    for f in range(N + 1):
-                        if not ((f > 0 and bad[f - 1]) or (f < N and bad[f])):
-                            continue
-                        if f == 0:
-                            _end_into(F, 0, -1.0, 0, W[0, 0], W[1, 0], W[2, 0], W[3, 0], W[5, 0],
-                                      b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter)
-                        elif f == N:
-                            _end_into(F, N, 1.0, 1, W[0, j], W[1, j], W[2, j], W[3, j], W[5, j],
-                                      b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter)
-                        else:
-                            i0 = f - 1
-                            E0 = W[0, i0] * kc.energy(W[4, i0], W[3, i0], cf, cb, t_mid)[0] \
-                                + 0.5 * W[0, i0] * W[1, i0] * W[1, i0]
-                            E1 = W[0, f] * kc.energy(W[4, f], W[3, f], cf, cb, t_mid)[0] \
-                                + 0.5 * W[0, f] * W[1, f] * W[1, f]
-                            f0, f1, f2, f3 = kc.rusanov_flux(W[0, i0], W[1, i0], W[2, i0], E0, W[3, i0], W[6, i0],
-                                                            W[0, f], W[1, f], W[2, f], E1, W[3, f], W[6, f])
-                            a = Af[b, f]
-                            F[0, f] = f0 * a
-                            F[1, f] = f1 * a
-                            F[2, f] = f2 * a
-                            F[3, f] = f3 * a
-                    for i in range(N):
-                        if bad[i]:
-                            s_mom, s_E, _, _ = kc.cell_sources(W[0, i], W[1, i], W[2, i], W[3, i], cf, cb, Rf, Rb,
-                                                              t_mid, G[b, G_DIAMETER, i], G[b, G_ROUGH_TERM, i],
-                                                              fr, ff, kl, tw, prn, hs)
-                            PH[i] = W[2, i]
-                            SM[i] = s_mom
-                            SE[i] = s_E
-                    n_bad = 0
-                    for i in range(N):
-                        _update_cell(Qn, Q, F, b, i, dt, PH[i], SM[i], SE[i], G[b, G_VOLUME, i],
-                                     Af[b, i + 1] - Af[b, i])
-                        bad[i] = not kc.positive(Qn[MASS, i], Qn[MOMENTUM, i], Qn[ENERGY, i], Qn[BURNED, i],
-                                                 POSITIVITY_T_FRACTION * W[4, i], cf, cb, t_mid)
-                        n_bad += bad[i]
-                    if n_bad > 0:
-                        cut += 1                                # take the sub-step again, halved
-                        continue
-                cut = 0
-                for q in range(4):
-                    for i in range(N):
-                        Q[b, q, i] = Qn[q, i]
-                acc[b, 0, F_MASS] += dt * F[0, 0]
-                acc[b, 0, F_ENERGY] += dt * F[2, 0]
-                acc[b, 0, F_BURNED] += dt * F[3, 0]
-                acc[b, 1, F_MASS] -= dt * F[0, N]
-                acc[b, 1, F_ENERGY] -= dt * F[2, N]
-                acc[b, 1, F_BURNED] -= dt * F[3, N]
-                t = T_end if last else t + dt
-        return acc, steps, fallbacks, -1, 0
+                    cut += 1                                # take the sub-step again, halved
+                    continue
+            cut = 0
+            for q in range(4):
+                for i in range(N):
+                    Q[b, q, i] = Qn[q, i]
+            acc[b, 0, F_MASS] += dt * F[0, 0]
+            acc[b, 0, F_ENERGY] += dt * F[2, 0]
+            acc[b, 0, F_BURNED] += dt * F[3, 0]
+            acc[b, 1, F_MASS] -= dt * F[0, N]
+            acc[b, 1, F_ENERGY] -= dt * F[2, N]
+            acc[b, 1, F_BURNED] -= dt * F[3, N]
+            t = T_end if last else t + dt
+        return -1
 
 
 def advance_arrays(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration, max_steps=1_000_000):

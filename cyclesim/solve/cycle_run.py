@@ -44,16 +44,15 @@ class CycleRunner:
         self.tableau = CYCLE_TABLEAU
         self.th_pts = pts.half.tolist()
         self.full = rhs.mode == "full"
-        # runners (cyclesim.pipes.runners): advanced between the steps, on the numpy loop
+        # runners (cyclesim.pipes.runners): advanced each crank step, inside the compiled loop
+        # (cyclesim.pipes.loop_step) or between the numpy loop's steps
         self.coupling = RunnerCoupling(rhs, pts, runners) if runners is not None and self.full else None
         self.pipe_record = None
         why = events.why_not_compiled()
-        if self.coupling is not None:
-            self.compiled, self.loop = None, "numpy (runners are advanced between the crank steps)"
-        elif not getattr(rhs, "port_buffer", True):
+        if not getattr(rhs, "port_buffer", True):
             self.compiled, self.loop = None, "numpy (port buffer off)"
         elif why is None:
-            self.compiled, self.loop = kernel.prepare(batch, rhs, pts)
+            self.compiled, self.loop = kernel.prepare(batch, rhs, pts, self.coupling)
         else:
             self.compiled, self.loop = None, f"numpy ({why})"
 
@@ -61,8 +60,18 @@ class CycleRunner:
         """One cycle from ``y`` into ``Y``, ``F`` (n_state, B, N+1); returns the end state."""
         import cyclesim.solve.kernel as kernel
 
-        if self.compiled is not None and self.rhs.all_alive and self.compiled.cycle(y, Y, F):
-            return Y[:, :, self.pts.N].copy()
+        if self.compiled is not None and self.rhs.all_alive:
+            cpl = self.coupling
+            saved = None
+            if cpl is not None:
+                cpl.start_cycle()
+                saved = cpl.save()
+            if self.compiled.cycle(y, Y, F):
+                if cpl is not None:
+                    self.pipe_record = cpl.finish_compiled()
+                return Y[:, :, self.pts.N].copy()
+            if cpl is not None:
+                cpl.restore(saved)
         kernel._used["python"] += 1
         if self.compiled is not None:
             self.loop = LOOP_RERUN

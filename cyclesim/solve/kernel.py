@@ -291,8 +291,9 @@ def _first_plenums(batch, rhs, theta: float) -> dict:
 class Compiled:
     """The packed inputs of one batch's compiled cycle (built once per integration)."""
 
-    def __init__(self, mod, batch, rhs, pts, parts=None):
+    def __init__(self, mod, batch, rhs, pts, parts=None, pipes=None):
         half, Gu, geo_rows = pts.half, pts.Gu, pts.geo_rows
+        self.pipes = () if pipes is None else (pipes,)   # the runners (cyclesim.pipes.loop_step.pack)
         closed_pts, burning_pts, open_at = pts.closed, pts.burning, pts.open_at
         self.mod = mod
         self.rhs = rhs
@@ -389,7 +390,7 @@ class Compiled:
             # a generated loop compiles on its first call: on one range, so that a kernel numba
             # cannot compile sends the batch to the Python path instead of failing it
             try:
-                mod.run_cycle(*args, 0, 0)
+                mod.run_cycle(*args, 0, 0, *self.pipes)
             except Exception as exc:  # noqa: BLE001 - numba's typing and lowering errors
                 if type(exc).__module__.split(".")[0] != "numba":
                     raise
@@ -401,7 +402,7 @@ class Compiled:
             self.ready = True
             _ready.add(mod.__name__)
         if n_thr <= 1:
-            mod.run_cycle(*args, 0, B)
+            mod.run_cycle(*args, 0, B, *self.pipes)
         else:
             # disjoint case ranges on threads of their own (started and joined here, so no thread
             # outlives the call: worker processes may still be forked from this one)
@@ -410,7 +411,7 @@ class Compiled:
 
             def part(k):
                 try:
-                    mod.run_cycle(*args, cuts[k], cuts[k + 1])
+                    mod.run_cycle(*args, cuts[k], cuts[k + 1], *self.pipes)
                 except BaseException as exc:  # noqa: BLE001 - re-raised in the caller
                     errors.append(exc)
 
@@ -452,7 +453,7 @@ def loop_for(batch, rhs) -> tuple[object, str]:
     return _loop_for(batch, rhs)[:2]
 
 
-def _loop_for(batch, rhs) -> tuple[object, str, tuple | None]:
+def _loop_for(batch, rhs, runner_step=None) -> tuple[object, str, tuple | None]:
     """:func:`loop_for` and the functions of the generated loop (:func:`loop_parts`; None where
     there is none)."""
     mod = compiled_module()
@@ -463,7 +464,7 @@ def _loop_for(batch, rhs) -> tuple[object, str, tuple | None]:
     generated = False
     parts = None
     if reason is None:
-        mod, reason, parts = _generated(batch, rhs, mod)
+        mod, reason, parts = _generated(batch, rhs, mod, runner_step)
         generated = reason is not None
     if reason is not None:
         if choice() == "compiled":
@@ -505,7 +506,7 @@ def loop_parts(batch, rhs) -> tuple:
     return tuple(parts)
 
 
-def _generated(batch, rhs, mod):
+def _generated(batch, rhs, mod, runner_step=None):
     """The loop module for the batch: the built-in one, or one generated for its kernels and state
     kernels (:mod:`cyclesim.loops.loopgen`); and the reason where they cannot go into one."""
     from ..loops.loopgen import LoopGenError, module_for
@@ -516,7 +517,7 @@ def _generated(batch, rhs, mod):
         from .stepper import CYCLE_TABLEAU
 
         gen, fresh = module_for(parts, {r: f for r, f in forms.items() if f not in ("kernel", "heat_flow_kernel")},
-                                CYCLE_TABLEAU)
+                                CYCLE_TABLEAU, runner_step)
     except LoopGenError as exc:
         return None, f"{exc}", None
     import numba
@@ -547,14 +548,26 @@ def _cached(mod) -> bool:
     return got
 
 
-def prepare(batch, rhs, pts) -> tuple[Compiled | None, str]:
+def prepare(batch, rhs, pts, runners=None) -> tuple[Compiled | None, str]:
     """The compiled cycle of this batch (None for the Python path) and the loop's name (:func:`loop_for`);
-    ``pts``: the grid's per-point data (:class:`cyclesim.solve.cycle_grid.CyclePoints`)."""
+    ``pts``: the grid's per-point data (:class:`cyclesim.solve.cycle_grid.CyclePoints`); ``runners``:
+    the batch's :class:`cyclesim.solve.valve_source.RunnerCoupling` (a loop generated with the
+    runners' crank step, :mod:`cyclesim.pipes.loop_step`), or None."""
     _setup.forms = {}
     try:
-        mod, loop, parts = _loop_for(batch, rhs)
+        step = None
+        if runners is not None and compiled_module() is not None:
+            import cyclesim.pipes.scheme as scheme
+
+            if not scheme.COMPILED:
+                return None, "numpy (the runners' pipe kernels are not compiled in this process)"
+            import cyclesim.pipes.loop_step as loop_step
+
+            step = (loop_step.__name__, loop_step.source_digest())
+        mod, loop, parts = _loop_for(batch, rhs, step)
         if mod is None:
             return None, loop
-        return Compiled(mod, batch, rhs, pts, parts), loop
+        pipes = runners.compiled_pipes() if runners is not None else None
+        return Compiled(mod, batch, rhs, pts, parts, pipes), loop
     finally:
         _setup.forms = None

@@ -14,6 +14,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..pipes.coupling import step_rates
+
 
 class StepValveFlows:
     """One crank step's valve flows of the sides with a runner (arrays (B,)).
@@ -37,11 +39,7 @@ class StepValveFlows:
     def set_side(self, side: str, mass_kg, enthalpy_J, burned_kg, duration_s, y_cyl, h_cyl) -> None:
         """Take one side's crank-step totals (B,) over ``duration_s`` (B,) [s]; where no gas moved the
         inflow state is the cylinder's own (``y_cyl``, ``h_cyl``; times a zero flow)."""
-        moved = mass_kg != 0.0
-        ms = np.where(moved, mass_kg, 1.0)
-        mdot = np.where(duration_s > 0, mass_kg / np.where(duration_s > 0, duration_s, 1.0), 0.0)
-        y = np.where(moved, burned_kg / ms, y_cyl)
-        h = np.where(moved, enthalpy_J / ms, h_cyl)
+        mdot, y, h = step_rates(mass_kg, enthalpy_J, burned_kg, duration_s, y_cyl, h_cyl)
         if side == "intake":
             self.mdot_int, self.y_int, self.h_int = mdot, y, h
         else:
@@ -82,6 +80,44 @@ class RunnerCoupling:
     def start_cycle(self) -> None:
         self.runners.start_cycle()
         self.rhs.valve_source = self.source
+
+    # -- the compiled loop (cyclesim.pipes.loop_step): the same steps, advanced inside the loop ----
+    def compiled_pipes(self) -> tuple:
+        """The runners' arrays for the compiled loop (:func:`cyclesim.pipes.loop_step.pack`): it
+        advances the runners in place and writes the pressures at the grid points into this
+        object's records and the cycle's valve totals into :attr:`_flows`."""
+        from ..pipes.loop_step import SIDE_SLOT, pack
+
+        self._flows = np.zeros((self.rhs.B, len(self.sides), 5))
+        slots = [SIDE_SLOT[side] for side in self.sides]
+        return pack(self.runners, slots, self.cda, (self.p_valve, self._q_mid, self._t_mid, self._m_pts,
+                                                    self._e_pts), self._flows)
+
+    def save(self) -> list:
+        """The runners' state (taken before a compiled cycle, for :meth:`restore`)."""
+        return [(p.Q.copy(), p.T_cell.copy(), p.p_end.copy(), p.ends.copy(), p.steps_taken.copy(),
+                 p.fallback_steps.copy()) for p in self.runners.system.runners]
+
+    def restore(self, saved: list) -> None:
+        """Back to the state :meth:`save` took (in place: the compiled loop holds these arrays), where a
+        compiled cycle handed the cycle to the numpy loop."""
+        for p, (Q, Tc, Pe, E, st, fb) in zip(self.runners.system.runners, saved):
+            p.Q[...] = Q
+            p.T_cell[...] = Tc
+            p.p_end[...] = Pe
+            p.ends[...] = E
+            p.steps_taken[...] = st
+            p.fallback_steps[...] = fb
+        self._flows[...] = 0.0
+
+    def finish_compiled(self) -> dict:
+        """After a compiled cycle: its valve totals booked as the numpy loop books them per step
+        (:meth:`cyclesim.pipes.runners.RunnerSet.step`), then :meth:`finish_cycle`."""
+        cf = self.runners.cycle_flows
+        for k, key in enumerate(("mass_kg", "enthalpy_J", "burned_mass_kg", "outer_mass_kg", "outer_energy_J")):
+            cf[key] += self._flows[:, :, k]
+        self._flows[...] = 0.0
+        return self.finish_cycle()
 
     def record(self, i: int) -> None:
         """The runners' pressures at grid point ``i``."""
