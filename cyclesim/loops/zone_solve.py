@@ -20,8 +20,6 @@ The physics and its notes are in :mod:`cyclesim.loops.zones`.  SI units.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from ..kernel_ops import along_lnrho, blend, fresh_charge_poly, frozen_cp_gamma, hermite_cubic, table_coords, where
@@ -46,9 +44,6 @@ NEWTON_T = 4
 
 TOL_T = 1e-11
 """Relative tolerance of the burned-gas temperature solves [-]."""
-
-NAN = math.nan
-
 
 # -- the gas tables at one point (scalars) and on arrays ------------------------------------
 def mix_at(gas_tab, off, gc, nRm1, uc4, b, T, rho, y):
@@ -190,6 +185,12 @@ def unburned_T(phi_f, phi_r, k0, T0, dT, n, target, y_u, T_start):
     return T
 
 
+def unburned_R(y_u, R_f, R_r):
+    """Gas constant [J/(kg K)] of the unburned zone of burned-gas fraction ``y_u`` [-] from those of
+    its fresh charge ``R_f`` and of the burned gas it holds ``R_r`` (frozen)."""
+    return (1.0 - y_u) * R_f + y_u * R_r
+
+
 # -- the two-zone solve ---------------------------------------------------------------------
 def solve(gas, phi_f, phi_r, k0, T0, dT, n, R_f, R_r, m, V, U, m_bz, y_u, s_u, p1, T_ivc, p_ivc, active, born):
     """Pressure and zone temperatures of a two-zone cylinder: (p [Pa], T_u [K], T_b [K]).
@@ -206,7 +207,7 @@ def solve(gas, phi_f, phi_r, k0, T0, dT, n, R_f, R_r, m, V, U, m_bz, y_u, s_u, p
     lnp = np.log(p1)
     m_u = np.maximum(m - m_bz, 1e-300)
     m_b = where(active, np.maximum(m_bz, 1e-300), 1.0)
-    R_u = (1.0 - y_u) * R_f + y_u * R_r
+    R_u = unburned_R(y_u, R_f, R_r)
     base, dphi = zone_phi(phi_f, phi_r, k0, T0, dT, n, T_ivc, y_u)
     cp_ivc = dphi * T_ivc
     lnp_ivc = np.log(p_ivc)
@@ -242,7 +243,7 @@ def solve(gas, phi_f, phi_r, k0, T0, dT, n, R_f, R_r, m, V, U, m_bz, y_u, s_u, p
         T_start = T_b * 0.0 + 2400.0
         T_ad = solve_T_p(gas, u_u + R_u * T_u, p, T_start, np.log(p) - np.log(290.0 * T_start), True)[0]
         T_b = where(seed, T_ad, T_b)
-    return p, T_u, where(born, T_b, NAN)
+    return p, T_u, where(born, T_b, np.nan)
 
 
 def unburned_fraction_burned(m, m_b, m_bz):
@@ -270,7 +271,7 @@ def cylinder_zones(gas, phi_f, phi_r, k0, T0, dT, n, R_f, R_r, m, V, U, m_b, m_b
                         where(ref, T_ivc, T), where(ref, p_ivc, p1), active, born)
     merged = np.logical_and(closed, m_bz >= X_MERGE * m)
     T_u = where(np.logical_and(closed, np.logical_not(merged)), T_u, T)
-    T_b = where(born, T_b, where(np.logical_or(merged, np.logical_not(closed)), T, NAN))
+    T_b = where(born, T_b, where(np.logical_or(merged, np.logical_not(closed)), T, np.nan))
     return p, T_u, T_b, y_u, active, born
 
 

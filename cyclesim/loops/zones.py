@@ -122,7 +122,7 @@ class ZoneTables:
 
     def R_u(self, y_u, case):
         """Gas constant [J/(kg K)] of the unburned zone of burned-gas fraction ``y_u`` [-]."""
-        return (1.0 - y_u) * self.R_f[case] + y_u * self.R_r[case]
+        return _k.unburned_R(y_u, self.R_f[case], self.R_r[case])
 
     def args(self, case):
         """The tables as :func:`cyclesim.loops.zone_solve.solve` takes them, for points of cases
