@@ -81,12 +81,6 @@ def solve_T_p(gas, target, p, T0, enthalpy, lr0=None):
     return _k.solve_T_p(gas, target, p, T, lr, enthalpy)[:5]
 
 
-def flame_temperature(gas, h_u, p, T0=None):
-    """Constant-pressure adiabatic flame temperature [K] of unburned gas of enthalpy ``h_u``
-    [J/kg] at ``p`` [Pa]: the burned gas of the same enthalpy (Newton from ``T0``)."""
-    return solve_T_p(gas, h_u, p, np.full(np.shape(h_u), 2400.0) if T0 is None else T0, True)[0]
-
-
 # -- the unburned zone's entropy ------------------------------------------------------------
 class ZoneTables:
     """Per-case entropy functions of the unburned zone's two parts, built once per batch.
