@@ -37,10 +37,13 @@ OPEN_FADE_DEG = 5.0
 """Crank angle [deg] over which the burned-zone mass fades while the valves are open."""
 
 NEWTON_P = 8
-"""Newton passes on ln p of the two-zone solve."""
+"""Most Newton passes on ln p of the two-zone solve."""
+
+TOL_LNP = 1e-13
+"""Step in ln p [-] below which the two-zone solve has converged (the pressure to 1e-13)."""
 
 NEWTON_T = 4
-"""Newton passes on the unburned-zone temperature per pressure pass."""
+"""Most Newton passes on the unburned-zone temperature per pressure pass."""
 
 TOL_T = 1e-11
 """Relative tolerance of the burned-gas temperature solves [-]."""
@@ -181,7 +184,10 @@ def unburned_T(phi_f, phi_r, k0, T0, dT, n, target, y_u, T_start):
     T = T_start
     for _ in range(NEWTON_T):
         f, fT = zone_phi(phi_f, phi_r, k0, T0, dT, n, T, y_u)
-        T = np.minimum(np.maximum(T - (f - target) / fT, 200.0), 3500.0)
+        step = (f - target) / fT
+        T = np.minimum(np.maximum(T - step, 200.0), 3500.0)
+        if all_true(np.logical_not(np.abs(step) > TOL_T * T)):     # converged (or NaN: masked)
+            break
     return T
 
 
@@ -227,13 +233,19 @@ def solve(gas, phi_f, phi_r, k0, T0, dT, n, R_f, R_r, m, V, U, m_bz, y_u, s_u, p
                 _, _, _, R_b, R_T, _ = burned_gas(gas, T_b, rho_b)
                 g = np.log(rho_b * R_b * T_b) - lnp
                 T_b = np.minimum(np.maximum(T_b * np.exp(-g / (1.0 + T_b * R_T / R_b)), 250.0), 5500.0)
-            u_b, u_Tb, u_lr, _, _, _ = burned_gas(gas, T_b, rho_b)
+            u_b, u_Tb, u_lr, R_b, R_T, R_lr = burned_gas(gas, T_b, rho_b)
             F = m_u * u_u + m_b * u_b - U
+            # dF/d ln p: the unburned zone on its isentrope (d ln T_u = R_u/cp_u d ln p), the burned
+            # zone on its equation of state, ln p = ln rho_b + ln R_b(T_b, rho_b) + ln T_b
             dlnT_u = R_u / cp_u
             dV_u = V_u * (dlnT_u - 1.0)
             dlnrho_b = dV_u / V_b
-            dF = m_u * u_Tu * T_u * dlnT_u + m_b * (u_Tb * T_b * (1.0 - dlnrho_b) + u_lr * dlnrho_b)
-            lnp = where(active, lnp - F / dF, lnp)
+            dlnT_b = (1.0 - dlnrho_b * (1.0 + R_lr / R_b)) / (1.0 + T_b * R_T / R_b)
+            dF = m_u * u_Tu * T_u * dlnT_u + m_b * (u_Tb * T_b * dlnT_b + u_lr * dlnrho_b)
+            step = F / dF
+            lnp = where(active, lnp - step, lnp)
+            if all_true(np.logical_or(np.abs(step) <= TOL_LNP, np.logical_not(active))):
+                break
     p = where(active, np.exp(lnp), p1)
     T_u = unburned_T(phi_f, phi_r, k0, T0, dT, n, base + R_u * np.log(p / p_ivc) + s_u, y_u, T_u)
     seed = np.logical_and(born, np.logical_not(active))

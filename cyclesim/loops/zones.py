@@ -39,6 +39,10 @@ else ``x^(1/2)`` with x its mass fraction (the form of Ferguson's two-zone model
 Kirkpatrick 2015, ch. 4, from memory), :func:`unburned_heat_share`; the total is the heat-transfer
 model's, evaluated at the mixture temperature and the two-zone pressure.
 
+The arithmetic of the solve and of the zone rates is written once, in kernel form, in
+:mod:`cyclesim.loops.zone_solve`: the functions here run it on arrays (the numpy loop, the trace),
+the compiled loop on floats (:mod:`cyclesim.loops.loopgen` writes it in).
+
 All arrays: any shape, a case index ``case`` of the same shape picks each point's tables; SI.
 """
 
