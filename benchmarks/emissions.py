@@ -1,6 +1,15 @@
 """Cost of the NO model (emissions.model=zeldovich_no) per operating point, printed as JSON.
 
     python benchmarks/emissions.py [--repeat 3]
+    CYCLESIM_THREADS=1 python benchmarks/emissions.py --predictive [--repeat 5]
+
+``--predictive`` prints only the cost of the predictive model against the prescribed one: the
+entrainment burn with two zones and NO (``burn.model=entrainment``, ``simulation.zones=two``, NO on)
+against the one-zone Wiebe burn without NO (the demo as shipped, ``emissions.model=none``), on the
+demo at one point and as a 41-point spark sweep (advance 0..40 deg, one batch), with the two steps
+between them (entrainment one zone, entrainment two zones, both without NO): median CPU times of
+the process after a warm-up run of each, per point and per cycle (the cycles each case needs to
+settle differ between the models), and their ratios.
 
 Times the demo point without and with the NO model, alone (B = 1) and as a batch of 8 points
 (a lambda sweep, one batch as a sweep runs it), after one warm-up run (the loop's compilation
@@ -32,10 +41,52 @@ def _time(fn, repeat):
     return statistics.median(out)
 
 
+PRESCRIBED = ["emissions.model=none"]
+PREDICTIVE = {
+    "entrainment_one_zone": ["burn.model=entrainment", "emissions.model=none"],
+    "entrainment_two_zones": ["burn.model=entrainment", "simulation.zones=two", "emissions.model=none"],
+    "entrainment_two_zones_no": ["burn.model=entrainment", "simulation.zones=two"] + ON,
+}
+
+
+def predictive(repeat: int) -> dict:
+    """The predictive model's cost against the one-zone Wiebe case (see the module notes)."""
+    out: dict = {}
+    variants = {"wiebe_one_zone": PRESCRIBED, **PREDICTIVE}
+    for name, ov in variants.items():
+        one = [cyclesim.load_config("demo", ov)]
+        sweep = [cyclesim.load_config("demo", ov + [f"burn.spark_advance_deg={a}"]) for a in range(0, 41)]
+        first = cyclesim.simulate(one)[0]                 # compile / warm the caches
+        res = cyclesim.simulate(sweep)
+        assert first.error is None and first.cycle_loop == "compiled", (name, first.error, first.cycle_loop)
+        cyc1 = first.summary["cycles_to_converge"]
+        cyc41 = sum(r.summary["cycles_to_converge"] for r in res if r.error is None)
+        t1 = _time(lambda: cyclesim.simulate(one), repeat)
+        t41 = _time(lambda: cyclesim.simulate(sweep), repeat)
+        out[name] = {"one_point_s": round(t1, 4), "one_point_cycles": cyc1,
+                     "one_point_per_cycle_ms": round(1e3 * t1 / cyc1, 2),
+                     "sweep41_s": round(t41, 3), "sweep41_per_point_ms": round(1e3 * t41 / 41, 1),
+                     "sweep41_cycles": cyc41, "sweep41_per_cycle_ms": round(1e3 * t41 / cyc41, 2),
+                     "loop": first.cycle_loop}
+    base = out["wiebe_one_zone"]
+    for name in PREDICTIVE:
+        r = out[name]
+        r["ratio_one_point"] = round(r["one_point_s"] / base["one_point_s"], 2)
+        r["ratio_one_point_per_cycle"] = round(r["one_point_per_cycle_ms"] / base["one_point_per_cycle_ms"], 2)
+        r["ratio_sweep41"] = round(r["sweep41_s"] / base["sweep41_s"], 2)
+        r["ratio_sweep41_per_cycle"] = round(r["sweep41_per_cycle_ms"] / base["sweep41_per_cycle_ms"], 2)
+    return out
+
+
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--predictive", action="store_true",
+                    help="only the predictive model (entrainment, two zones, NO) against one-zone Wiebe")
     a = ap.parse_args()
+    if a.predictive:
+        print(json.dumps(predictive(a.repeat), indent=2))
+        return
     cyclesim.run("demo")
     cyclesim.run("demo", ON)
     lams = [0.85, 0.9, 0.95, 1.0, 1.05, 1.1, 1.2, 1.3]

@@ -126,6 +126,17 @@ def table_lookup(flat, idx, off, h, s, h0, inv_dh, nh, ns):
     return (1.0 - w) * lo + w * hi
 
 
+def flame_wall_share(V, V_b, v_rb, bore_area, tab_wet, tab_idx, off, h0, inv_dh, nh, ns):
+    """Share [-] of the chamber's wall (head, piston, liner) wetted by the spherical flame that
+    encloses ``V_b`` [m^3] in the volume ``V`` [m^3] (the ``wall_share_kernel``): the wetted-area
+    table ``tab_wet`` (head, piston and liner summed, :func:`fill_tables`) at the piston's clearance
+    height and the fill (V_b/V)^(1/3), over its value for a flame that fills the chamber."""
+    h = (V - v_rb) / bore_area
+    fill = np.minimum(np.maximum(V_b, 0.0) / V, 1.0) ** (1.0 / 3.0)
+    wet = table_lookup(tab_wet, tab_idx, off, h, fill, h0, inv_dh, nh, ns)
+    return wet / table_lookup(tab_wet, tab_idx, off, h, 1.0, h0, inv_dh, nh, ns)
+
+
 def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2,
                  c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u,
                  bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns):
@@ -312,6 +323,7 @@ class EntrainmentBurn(BurnRate):
     fit_parameters = ("production_coefficient", "kernel_radius_mm")
     kernel = staticmethod(entrainment_rate)
     state_kernel = staticmethod(entrainment_states)
+    wall_share_kernel = staticmethod(flame_wall_share)
     params = (
         P_SPARK,
         P_EFF,
@@ -404,7 +416,6 @@ class EntrainmentBurn(BurnRate):
         self.r0 = _arr(p.kernel_radius_mm, B) * 1e-3
         self._packed: dict | None = None
         self._last: tuple | None = None
-        self._wet: list | None = None
 
     # -- contract -----------------------------------------------------------
     def states(self):
@@ -425,6 +436,7 @@ class EntrainmentBurn(BurnRate):
                 "dT_ad": self.dT_ad, "bore_area": self.bore_area, "half_bore": self.half_bore,
                 "v_rb": self.v_rb, "r0": self.r0, "tab_r": shared_array(self.tab_r),
                 "tab_a": shared_array(self.tab_a), "tab_idx": shared_array(np.arange(self.tab_r.size)),
+                "tab_wet": shared_array(sum(np.concatenate([w[k].ravel() for w in self.tab_wet]) for k in range(3))),
                 "off": self.off,
                 "h0": self.h0, "inv_dh": self.inv_dh, "nh": float(N_HEIGHT), "ns": float(N_FILL),
                 "c_beta": self.c_beta,
@@ -444,20 +456,11 @@ class EntrainmentBurn(BurnRate):
 
     def burned_wall_share(self, s, V_b):
         """Share [-] (B,) of the chamber's wall (head, piston, liner) wetted by the spherical flame
-        that encloses ``V_b`` [m^3] at the present piston position (the flame tables of
-        :func:`fill_tables`, over their value for a flame that fills the chamber): the two-zone
-        cylinder's split of the wall heat."""
+        that encloses ``V_b`` [m^3] at the present piston position (:func:`flame_wall_share`, the
+        kernel the compiled loop runs): the two-zone cylinder's split of the wall heat."""
         P = self.pack()
-        if self._wet is None:
-            self._wet = [np.concatenate([w[k].ravel() for w in self.tab_wet]) for k in range(3)]
-        h = (s.V - P["v_rb"]) / P["bore_area"]
-        fill = np.minimum(np.maximum(V_b, 0.0) / s.V, 1.0) ** (1.0 / 3.0)
-
-        def wetted(f):
-            return sum(table_lookup(t, P["tab_idx"], P["off"], h, f, P["h0"], P["inv_dh"], P["nh"], P["ns"])
-                       for t in self._wet)
-
-        return wetted(fill) / wetted(np.ones_like(fill))
+        return flame_wall_share(s.V, V_b, P["v_rb"], P["bore_area"], P["tab_wet"], P["tab_idx"], P["off"], P["h0"],
+                                P["inv_dh"], P["nh"], P["ns"])
 
     def _flame(self, s):
         """The shared flame quantities of this right-hand-side evaluation (computed once per GasState)."""

@@ -321,8 +321,8 @@ def test_packs_its_flame_tables_as_batch_wide_arrays():
 
     m = build_batch([load_config("demo", FAST)], get_registry()).models["burn"]
     P = m.pack()
-    assert {n for n, v in P.items() if is_shared_array(v)} == {"tab_r", "tab_a", "tab_idx"}
-    assert P["tab_r"].size == P["tab_a"].size == P["tab_idx"].size == EB.N_HEIGHT * EB.N_FILL
+    assert {n for n, v in P.items() if is_shared_array(v)} == {"tab_r", "tab_a", "tab_idx", "tab_wet"}
+    assert P["tab_r"].size == P["tab_a"].size == P["tab_idx"].size == P["tab_wet"].size == EB.N_HEIGHT * EB.N_FILL
     assert compiled_form(m) == "kernel"
     two = build_batch([load_config("demo", FAST + [f"engine.bore_mm={d}"]) for d in (79.0, 86.0)],
                       get_registry()).models["burn"].pack()

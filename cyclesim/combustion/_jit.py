@@ -27,11 +27,37 @@ def _lookup():
     return _mix_at
 
 
+def _source_copy(module: types.ModuleType) -> str:
+    """The module's source as a file of the loop cache (:func:`cyclesim.loops.loopgen.cache_dir`)
+    named by a hash of it and of the sources its compiled form calls into (the gas look-up and the
+    zone solve, :mod:`cyclesim.loops.zone_solve`, :mod:`cyclesim.loops._compiled`,
+    :mod:`cyclesim.kernel_ops`): numba's disk cache is keyed by the file, so an edit of any of them
+    gives a new file and never a stale compiled kernel."""
+    import hashlib
+    import os
+    from pathlib import Path
+
+    from .. import kernel_ops
+    from ..loops import _compiled, loopgen, zone_solve
+
+    text = Path(module.__file__).read_bytes()
+    h = hashlib.sha256(text)
+    for dep in (zone_solve, _compiled, kernel_ops):
+        h.update(Path(dep.__file__).read_bytes())
+    path = loopgen.cache_dir() / f"{module.__name__.rpartition('.')[2]}_{h.hexdigest()[:20]}.py"
+    if not path.is_file():
+        tmp = path.with_suffix(f".{os.getpid()}.tmp")
+        tmp.write_bytes(text)
+        os.replace(tmp, path)          # atomic: a sweep worker never reads half a file
+    return str(path)
+
+
 def kernels(module: types.ModuleType) -> types.ModuleType:
     """``module`` (a kernel module of this package) in the form this process runs.
 
-    Compiled: the module's file executed again as ``<name>_compiled`` with ``jit`` = numba's
-    ``njit`` (disk-cached) and ``mix_at`` the compiled gas look-up; the plain module otherwise,
+    Compiled: the module's source executed again as ``<name>_compiled`` (from a copy in the loop
+    cache, :func:`_source_copy`) with ``jit`` = numba's ``njit`` (disk-cached) and ``mix_at`` the
+    compiled gas look-up; the plain module otherwise,
     its ``mix_at`` set to the look-up's Python source.
     """
     name = module.__name__
@@ -45,7 +71,7 @@ def kernels(module: types.ModuleType) -> types.ModuleType:
         return module
     from numba import njit
 
-    spec = importlib.util.spec_from_file_location(name + "_compiled", module.__file__)
+    spec = importlib.util.spec_from_file_location(name + "_compiled", _source_copy(module))
     mod = importlib.util.module_from_spec(spec)
     mod.jit = njit(cache=True, error_model="numpy")
     mod.mix_at = look

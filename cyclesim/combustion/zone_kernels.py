@@ -14,6 +14,8 @@ import math
 
 import numpy as np
 
+from ..loops.zone_solve import burned_gas, solve_T_p
+
 if "jit" not in globals():          # the plain form; the compiled loader sets both first
     def jit(fn):
         return fn
@@ -21,15 +23,11 @@ if "jit" not in globals():          # the plain form; the compiled loader sets b
     mix_at = None
     """The scalar gas look-up (set by :func:`cyclesim.combustion._jit.kernels`)."""
 
-TOL_T = 1e-11
-"""Relative tolerance of the burned-gas temperature solves [-]."""
-
-
 @jit
 def burned_props(gt, off, gc, nRm1, uc4, b, T, rho):
-    """Burned gas of case ``b`` at T [K], rho [kg/m^3]: (u, u_T, u_lnrho, R, R_T, R_lnrho) [SI]."""
-    r = mix_at(gt, off[b], gc, nRm1, uc4, b, T, rho, 1.0)
-    return r[0], r[1], r[2], r[4], r[5], r[6]
+    """Burned gas of case ``b`` at T [K], rho [kg/m^3]: (u, u_T, u_lnrho, R, R_T, R_lnrho) [SI]
+    (:func:`cyclesim.loops.zone_solve.burned_gas` on the case's tables)."""
+    return burned_gas((gt, off[b], gc, nRm1, uc4, b), T, rho)
 
 
 @jit
@@ -48,42 +46,12 @@ def unburned_props(gt, off, gc, nRm1, uc4, b, T, p, y_u, R_u):
 
 @jit
 def solve_tp(gt, off, gc, nRm1, uc4, b, target, p, T0, lr0, enthalpy):
-    """Burned gas of enthalpy (or internal energy) ``target`` [J/kg] at ``p`` [Pa].
-
-    Newton on (T, ln rho) together, with p = rho R(T, rho) T as the second equation, from ``T0``
-    [K] and ``lr0`` [ln kg/m^3].  Returns ``(T, ln rho, u, h, dlnv_dlnp_s, dT_dlnp_s)``, the last
-    two the isentropic d ln v / d ln p [-] and dT / d ln p [K] there.
+    """Burned gas of enthalpy (or internal energy) ``target`` [J/kg] at ``p`` [Pa], case ``b``:
+    :func:`cyclesim.loops.zone_solve.solve_T_p` (the one burned-gas T(h, p) solve) on the case's
+    tables, from ``T0`` [K] and ``lr0`` [ln kg/m^3].  Returns ``(T, ln rho, u, h, dlnv_dlnp_s,
+    dT_dlnp_s)``, the last two the isentropic d ln v / d ln p [-] and dT / d ln p [K] there.
     """
-    T = T0
-    lr = lr0
-    lnp = math.log(p)
-    u = h = R = h_T = h_L = a21 = a22 = 0.0
-    for _ in range(40):
-        u, u_T, u_lr, R, R_T, R_lr = burned_props(gt, off, gc, nRm1, uc4, b, T, math.exp(lr))
-        h = u + R * T
-        h_T = u_T + R + T * R_T
-        h_L = u_lr + T * R_lr
-        if enthalpy:
-            f1, a11, a12 = h - target, h_T, h_L
-        else:
-            f1, a11, a12 = u - target, u_T, u_lr
-        f2 = lr + math.log(R * T) - lnp
-        a21 = R_T / R + 1.0 / T
-        a22 = 1.0 + R_lr / R
-        det = a11 * a22 - a12 * a21
-        dT = -(f1 * a22 - a12 * f2) / det
-        dL = -(a11 * f2 - a21 * f1) / det
-        if abs(dT) <= TOL_T * T and abs(dL) <= 1e-12:
-            break
-        T = min(max(T + dT, 200.0), 6000.0)
-        lr = lr + dL
-    # isentrope (dh = v dp = R T d ln p, with the equation of state): c1 dT + c2 dL = 0 and
-    # a21 dT + a22 dL = d ln p give dT, dL per unit d ln p
-    RT = R * T
-    c1 = h_T - RT * a21
-    c2 = h_L - RT * a22
-    dL_s = 1.0 / (a22 - a21 * c2 / c1)
-    return T, lr, u, h, -dL_s, -c2 / c1 * dL_s
+    return solve_T_p((gt, off[b], gc, nRm1, uc4, b), target, p, T0, lr0, enthalpy)
 
 
 @jit

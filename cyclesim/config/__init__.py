@@ -120,7 +120,7 @@ CORE_SCHEMA: dict[str, tuple[Param, ...]] = {
           " (each cycle from the end of the one before)", kind="choice", choices=("anderson", "plain"),
           sweepable=False),
         P("zones", "-", "one", "cylinder gas while the valves are shut: one zone (a mixture), or two (unburned"
-          " and burned zones at one pressure, each with its own temperature; runs on the numpy loop)",
+          " and burned zones at one pressure, each with its own temperature)",
           kind="choice", choices=("one", "two"), sweepable=False),
     ),
 }

@@ -22,6 +22,7 @@ from numba import njit
 
 import cyclesim.kernel_ops as _kernel_ops
 from .layout import CORE_ROWS as _S
+from . import zone_solve as _zone_solve
 from .layout import block_rows, param_rows
 
 _kernel_ops.register_compiled()   # the kernels of kernel_ops (orifice flow, gas tables) on floats
@@ -50,9 +51,13 @@ N_P = sum(max(len(v) for v in FORMS[r].values()) for r in ("burn", "heat_transfe
 """Submodel parameter rows: each role's block as long as its longest form (one form per role)."""
 ROWS, N_ROWS = block_rows((
     ("omega", 1), ("Sp", 1), ("T_wall", 3), ("eta", 1), ("dh298", 1), ("buf_scale", 1), ("plenum", 11),
-    ("params", N_P), ("ivc", 3), ("ivc_deg", 1), ("V_at_ivc", 1),
+    ("params", N_P), ("ivc", 3), ("ivc_deg", 1), ("V_at_ivc", 1), ("zones", 6),
 ))
-R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC = ROWS.values()
+R_OMEGA, R_SP, R_TW, R_ETA, R_DH, R_BUF, R_PLEN, R_P, R_IVC, R_IVC_DEG, R_V_AT_IVC, R_ZONE = ROWS.values()
+# the two-zone block (simulation.zones: two, cyclesim.loops.zones.ZoneTables): the unburned zone's gas
+# constants (fresh charge, burned gas) [J/(kg K)], its entropy tables' first temperature [K], step [K]
+# and length, and 1 where the charge burns (0 for a fuel cut)
+R_ZONE_RF, R_ZONE_RR, R_ZONE_T0, R_ZONE_DT, R_ZONE_N, R_ZONE_FLAME = range(R_ZONE, R_ZONE + 6)
 PARAM_ROWS = param_rows(FORMS, ("burn", "heat_transfer", "blowby", "knock"))
 """(role, form) -> {parameter name: row offset from R_P}."""
 # the plenum block: intake (p, T, y_b, R, gamma, h), exhaust (p, T, R, gamma, h)
@@ -69,38 +74,60 @@ IC_NRM1 = IC_ROWS["gas_nRm1"]
 CYCLE_END_DEG = 360.0
 
 
-@njit(cache=True, inline="always", error_model="numpy")
-def _fresh(uc4, b, T, T_mid):
-    """Fresh charge (u, R, cv) at T from the per-case polynomial (rows 2b + (T > T_mid)):
-    :func:`cyclesim.kernel_ops.fresh_charge_poly`."""
-    return _kernel_ops.fresh_charge_poly(uc4[2 * b + (1 if T > T_mid else 0)], T)
+_mix_at = njit(cache=True, inline="always", error_model="numpy")(_zone_solve.mix_at)
+"""GasTables.mixture at one point of case b: (u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cp, gamma),
+by the tables' arithmetic (:func:`cyclesim.loops.zone_solve.mix_at`, its one source)."""
 
 
-@njit(cache=True, inline="always", error_model="numpy")
-def _mix_at(gas_tab, off, gc, nRm1, uc4, b, T, rho, y):
-    """GasTables.mixture at one point of case b: (u, u_T, u_lnrho, u_y, R, R_T, R_lnrho, R_y, cp, gamma),
-    by the tables' arithmetic in :mod:`cyclesim.kernel_ops` (as the numpy lookup)."""
-    T0, inv_dT, lr0, inv_dlr, dlr, x_hi, z_hi, T_mid = gc[0], gc[1], gc[2], gc[3], gc[4], gc[5], gc[6], gc[7]
-    x, z = _kernel_ops.table_coords(T, rho, T0, inv_dT, lr0, x_hi, z_hi)
-    i = int(x)
-    j = int(z * inv_dlr)
-    g = gas_tab[off + i * nRm1 + j]
-    t = x - i
-    dz = z - j * dlr
-    # rows of g: [u, R, u_T, R_T] of the burned gas, then their ln(rho) slopes: cubics in t
-    cub = _kernel_ops.hermite_cubic
-    lin = _kernel_ops.along_lnrho
-    su = cub(g[16], g[17], g[18], g[19], t)
-    sR = cub(g[20], g[21], g[22], g[23], t)
-    fu = lin(cub(g[0], g[1], g[2], g[3], t), su, dz)
-    fR = lin(cub(g[4], g[5], g[6], g[7], t), sR, dz)
-    fuT = lin(cub(g[8], g[9], g[10], g[11], t), cub(g[24], g[25], g[26], g[27], t), dz)
-    fRT = lin(cub(g[12], g[13], g[14], g[15], t), cub(g[28], g[29], g[30], g[31], t), dz)
-    uu, Ru, cvu = _fresh(uc4, b, T, T_mid)          # the fresh charge
-    u_T = _kernel_ops.blend(cvu, fuT, y)
-    R = _kernel_ops.blend(Ru, fR, y)
-    cp, gamma = _kernel_ops.frozen_cp_gamma(u_T, R)
-    return _kernel_ops.blend(uu, fu, y), u_T, y * su, fu - uu, R, y * fRT, y * sR, fR - Ru, cp, gamma
+def _register_zone_helpers() -> None:
+    """The compiled forms of the helpers of :mod:`cyclesim.loops.zone_solve` (the gas tables of one
+    case, a cell index, a point's own any/all) and its functions as jitable, so that the generated
+    loops and the burned-zone kernels call the same source on floats."""
+    from numba.core import types
+    from numba.extending import overload, register_jitable
+
+    zs = _zone_solve
+    if getattr(zs, "_compiled_registered", False):
+        return
+
+    @overload(zs.burned_gas)
+    def _burned_gas(gas, T, rho):
+        if isinstance(gas, types.BaseTuple):
+            def impl(gas, T, rho):
+                r = _mix_at(gas[0], gas[1], gas[2], gas[3], gas[4], gas[5], T, rho, 1.0)
+                return r[0], r[1], r[2], r[4], r[5], r[6]
+            return impl
+        return None
+
+    @overload(zs.mixture_gas)
+    def _mixture_gas(gas, T, rho, y):
+        if isinstance(gas, types.BaseTuple):
+            def impl(gas, T, rho, y):
+                r = _mix_at(gas[0], gas[1], gas[2], gas[3], gas[4], gas[5], T, rho, y)
+                return r[0], r[1]
+            return impl
+        return None
+
+    @overload(zs.cell_index)
+    def _cell_index(x):
+        if isinstance(x, types.Number):
+            return lambda x: int(x)
+        return None
+
+    for helper in (zs.any_true, zs.all_true):
+        @overload(helper)
+        def _own(c):
+            if isinstance(c, types.Boolean):
+                return lambda c: c
+            return None
+
+    for fn in (zs.solve_T_p, zs.zone_phi, zs.unburned_T, zs.solve, zs.unburned_fraction_burned,
+               zs.cylinder_zones, zs.burned_volume, zs.unburned_R, zs.unburned_heat_share, zs.zone_rates):
+        register_jitable(fn)
+    zs._compiled_registered = True
+
+
+_register_zone_helpers()
 
 
 @njit(cache=True, error_model="numpy")
@@ -160,6 +187,9 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     RT = R * T
     p = rho * RT
     h = u + RT
+    # two zones (simulation.zones: two): their pressure and temperatures, the enthalpy of the gas
+    # that leaves (cyclesim.loops.loopgen writes the solve of cyclesim.loops.zone_solve here)
+    T_u = 0.0  # ZONE SOLVE
     om = CB[R_OMEGA, b]
     sp = CB[R_SP, b]
     dt = 1.0 / om
@@ -212,6 +242,7 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     out[S_M], out[S_T], out[S_MB], out[S_W], out[S_HBB], out[S_HINT], out[S_HEXH] = first_law(
         m, V, dV, p, u, u_T, u_lnrho, u_y, yb, h, dm_burn, fi, yin_i, hin_i, fe, yin_e, hin_e, fbb, dQ)
     out[S_MUBB] = fbb * (1.0 - yb)
+    pass  # ZONE RATES
     # submodel states: each model's state kernel (cyclesim.loops.loopgen writes their calls here)
     pass  # STATE KERNEL CALLS
     for k in range(n):

@@ -44,12 +44,21 @@ STATE_ARGS = {
     "T_wall_head": "CB[R_TW_HEAD, b]", "T_wall_piston": "CB[R_TW_PISTON, b]",
     "T_wall_liner": "CB[R_TW_LINER, b]",
     "p_ivc": "CB[R_IVC_P, b]", "T_ivc": "CB[R_IVC_T, b]", "V_ivc": "CB[R_IVC_V, b]",
-    "T_u": "0.0",   # one zone: the compiled loop runs the one-zone cylinder only
+    "T_u": "T_u",   # the unburned zone's temperature with two zones, 0 with one (cyclesim.loops.zone_solve)
     "gas": "(uc4, b, gc[7])",
 }
 """What a kernel may take from the cylinder state, by the name of the GasState field [SI]; an
 argument that the model's ``pack()`` gives is that parameter instead (pack() names come first,
 so a Wiebe form factor may be called ``m``)."""
+
+
+ZONE_KINDS = ("zones", "wall_share")
+"""Parts of a two-zone loop (``simulation.zones: two``): ``zones``, the cylinder's zone solve
+(:func:`cyclesim.loops.zone_solve.cylinder_zones`, its ``own`` the rows of the zone states m_bz and
+s_u); ``wall_share``, a burn model's share of the wall area that the burned zone wets (its
+``wall_share_kernel``, which may also read the burned zone's volume ``V_b`` [m^3])."""
+WALL_SHARE_ARGS = {"V_b": "V_b"}
+"""What a wall-share kernel may take besides the state fields (:data:`STATE_ARGS`)."""
 
 
 class LoopGenError(Exception):
@@ -234,6 +243,8 @@ def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
     """The function's source, the functions it calls and the globals it reads, recursively."""
     import cyclesim.kernel_ops as kernel_ops
 
+    from . import zone_solve
+
     if fn.__name__ in funcs:
         if funcs[fn.__name__][0] is not fn:
             raise LoopGenError(f"two kernel helpers are named {fn.__name__!r}")
@@ -249,6 +260,8 @@ def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
             imports[name] = val.__name__
         elif val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above):
             imports[name] = f"cyclesim.kernel_ops.{val.__name__}"
+        elif val in zone_solve.OVERLOADED:
+            imports[name] = f"cyclesim.loops.zone_solve.{val.__name__}"     # compiled by overload
         elif isinstance(val, types.FunctionType):
             _collect(val, funcs, consts, imports)
         elif isinstance(val, (bool, int, float)) and not isinstance(val, type):
@@ -293,13 +306,22 @@ class Part(tuple):
     arrays = property(lambda self: self[6])
 
 
+def _part_params(part: "Part") -> tuple[str, ...]:
+    """The packed parameters a part's function reads (none for the zone solve, which reads the
+    loop's own zone rows)."""
+    if part.kind == "zones":
+        return ()
+    extra = tuple(WALL_SHARE_ARGS) if part.kind == "wall_share" else ()
+    return kernel_params(part.fn, part.packed, tuple(dict(part.own)) + extra)
+
+
 def shared_slots(parts) -> dict[tuple[str, str], int]:
     """Index of each batch-wide array the functions in ``parts`` read, by ``(role, name)``, in the
     order they first name them: array k is ``TB[TO[k]:TO[k + 1]]`` in the loop
     (:func:`cyclesim.loops.layout.shared_blocks` stacks them in this order)."""
     out: dict[tuple[str, str], int] = {}
     for part in _as_parts(parts):
-        for n in kernel_params(part.fn, part.packed, dict(part.own)):
+        for n in _part_params(part):
             if n in part.arrays and (part.role, n) not in out:
                 out[part.role, n] = len(out)
     return out
@@ -312,7 +334,7 @@ def param_rows_for(role: str, parts, forms_rows: dict, form: str = "kernel") -> 
     names: list = []
     for part in parts:
         if part.role == role:
-            for n in kernel_params(part.fn, part.packed, dict(part.own)):
+            for n in _part_params(part):
                 if n not in names and n not in part.arrays:
                     names.append(n)
     if form not in KERNEL_SITES_FORMS:
@@ -340,9 +362,51 @@ def _call(part: Part, rows: dict[str, int], shared: dict | None = None) -> str:
             args.append(f"CB[R_P + {rows[a]}, b]")
         elif a in own:
             args.append(f"yv[{own[a]}]")          # the state's row, a constant of this loop
+        elif part.kind == "wall_share" and a in WALL_SHARE_ARGS:
+            args.append(WALL_SHARE_ARGS[a])
         else:
             args.append(STATE_ARGS[a])
     return f"{part.fn.__name__}({', '.join(args)})"
+
+
+ZONE_SOLVE_MARKER = "    T_u = 0.0  # ZONE SOLVE"
+ZONE_RATES_MARKER = "    pass  # ZONE RATES"
+"""Where the two-zone solve and the zone states' rates go in :func:`cyclesim.loops._compiled._rhs`."""
+
+
+def zone_functions() -> tuple:
+    """The functions a two-zone loop calls (:mod:`cyclesim.loops.zone_solve`), written into it from
+    their one source."""
+    from . import zone_solve as zs
+
+    return (zs.cylinder_zones, zs.zone_rates, zs.burned_volume, zs.unburned_R)
+
+
+def _zone_lines(part: Part, table: int, wall: str | None) -> tuple[str, str]:
+    """The two-zone loop's lines: the solve (after the one-zone mixture; its pressure then is the
+    zones') and the rates of the zone states (after the first law).  ``table``: the index of the
+    zones' entropy tables among the loop's batch-wide arrays (phi_f, then phi_r); ``wall``: the
+    call of the burn's wall-share kernel, None for the x^(1/2) split."""
+    own = dict(part.own)
+    r_m, r_s = own["m_bz"], own["s_u"]
+    j = table
+    gas = "(gas_tab, gas_off[b], gc, IC[IC_NRM1], uc4, b)"
+    tabs = (f"TB[TO[{j}]:TO[{j + 1}]], TB[TO[{j + 1}]:TO[{j + 2}]], b * int(CB[R_ZONE_N, b]), CB[R_ZONE_T0, b],"
+            " CB[R_ZONE_DT, b], CB[R_ZONE_N, b], CB[R_ZONE_RF, b], CB[R_ZONE_RR, b]")
+    solve = [f"    m_bz = yv[{r_m}]",
+             f"    s_u = yv[{r_s}]",
+             f"    p, T_u, T_b, y_u, active, born = {part.fn.__name__}({gas}, {tabs}, m, V, m * u, mb, m_bz, s_u,"
+             " p, T, CB[R_IVC_T, b], CB[R_IVC_P, b], closed)",
+             "    h = where(active, u + p / rho, h)"]
+    rates = []
+    if wall is not None:
+        rates += ["    V_b = burned_volume(V, m, m_bz, unburned_R(y_u, CB[R_ZONE_RF, b], CB[R_ZONE_RR, b]), T_u, p)",
+                  f"    area_b = {wall}"]
+    else:
+        rates.append("    area_b = -1.0")
+    rates.append(f"    out[{r_m}], out[{r_s}] = zone_rates(closed, m, m_bz, y_u, T_u, T_b, (CB[R_TW_HEAD, b]"
+                 " + CB[R_TW_PISTON, b] + CB[R_TW_LINER, b]) / 3.0, dm_burn * CB[R_ZONE_FLAME, b], fbb, dQ, area_b)")
+    return "\n".join(solve), "\n".join(rates)
 
 
 def _state_lines(k: int, part: Part, rows: dict[str, int], shared: dict | None = None) -> list[str]:
@@ -603,13 +667,20 @@ def _generate(parts: tuple, forms: dict, tableau=None, runner_step=None) -> tupl
     calls = {}
     states: list[str] = []
     rows = {role: param_rows_for(role, parts, base.PARAM_ROWS, forms.get(role, "kernel"))
-            for role in dict.fromkeys(p.role for p in parts)}
+            for role in dict.fromkeys(p.role for p in parts if p.kind != "zones")}
     shared = shared_slots(parts)
     for fn in template_functions():
         _collect(fn, funcs, consts, imports)
+    zone_part = wall = None
     for k, part in enumerate(parts):
         _collect(part.fn, funcs, consts, imports)
-        if part.kind != "state":
+        if part.kind == "zones":
+            zone_part = part
+            for fn in zone_functions():
+                _collect(fn, funcs, consts, imports)
+        elif part.kind == "wall_share":
+            wall = _call(part, rows[part.role], shared)
+        elif part.kind != "state":
             site = KERNEL_SITES.get((part.role, part.kind))
             if site is None:
                 raise LoopGenError(f"the compiled loop has no call site for a {part.role} {part.kind}")
@@ -636,6 +707,13 @@ def _generate(parts: tuple, forms: dict, tableau=None, runner_step=None) -> tupl
     if STATE_MARKER not in rhs:
         raise LoopGenError("the compiled loop has no call site for state kernels")
     rhs = rhs.replace(STATE_MARKER, "\n".join(states) or STATE_MARKER)
+    if zone_part is not None:
+        if ZONE_SOLVE_MARKER not in rhs or ZONE_RATES_MARKER not in rhs:
+            raise LoopGenError("the compiled loop has no call site for the two-zone solve")
+        solve, rates = _zone_lines(zone_part, len(shared), wall)
+        rhs = rhs.replace(ZONE_SOLVE_MARKER, solve).replace(ZONE_RATES_MARKER, rates)
+    elif wall is not None:
+        raise LoopGenError("a wall-share kernel needs the two-zone solve")
     cycle = textwrap.dedent(inspect.getsource(base.run_cycle))
     if tableau is not None:
         stage, step = _tableau_blocks(tableau)
@@ -659,7 +737,7 @@ def _generate(parts: tuple, forms: dict, tableau=None, runner_step=None) -> tupl
         parts_text.append(f"from {runner_step[0]} import crank_step as _runner_crank_step"
                           f"  # sources {runner_step[1]}")
     for name, target in sorted(imports.items()):
-        mod, _, attr = target.rpartition(".") if target.startswith("cyclesim.kernel_ops.") else (target, "", "")
+        mod, _, attr = target.rpartition(".") if target.startswith("cyclesim.") else (target, "", "")
         parts_text.append(f"from {mod} import {attr} as {name}" if attr else f"import {target} as {name}")
     parts_text += [f"{n} = {v}" for n, v in sorted(consts.items())]
     for name, (fn, src) in funcs.items():
@@ -714,7 +792,7 @@ def _quick_key(parts: tuple, forms: dict, tableau=None, runner_step=None) -> str
     feed(_tableau_key(tableau))
     feed(runner_step)
     # written into the loop as well: the template's functions, a coefficient kernel's wall heat flow
-    for fn in template_functions() + (wall_heat_flow,):
+    for fn in template_functions() + (wall_heat_flow,) + zone_functions():
         feed(_fingerprint(fn))
     return h.hexdigest()[:24]
 

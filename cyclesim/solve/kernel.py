@@ -248,14 +248,33 @@ def why_not(batch, rhs) -> str | None:
         form = compiled_form(m[role])
         if form is None or form not in forms.get(role, {}):
             reasons.append(f"{role} model {m[role].name!r} has no compiled form")
-    if getattr(rhs, "zones", False):
-        reasons.append("the two-zone cylinder (simulation.zones: two) has no compiled form yet")
+    if getattr(rhs, "zones", False) and wall_share_form(m["burn"]) is False:
+        reasons.append(f"burn model {m['burn'].name!r} gives the two zones' wall split (burned_wall_share)"
+                       " without a wall_share_kernel")
     if getattr(batch.gas, "_compiled_consts", None) is None:
         reasons.append("gas properties are not the built-in tables")
     for role, model, sv in rhs.sub_specs:
         if not states_compile(type(model)) and not any(r.startswith(f"{role} ") for r in reasons):
             reasons.append(f"state {role}.{sv.name} has no compiled form (give a state_kernel)")
     return "; ".join(reasons) or None
+
+
+def wall_share_form(burn):
+    """The burn model's wall-share kernel for two zones (its ``wall_share_kernel``: the burned zone's
+    share of the wall area, :meth:`cyclesim.roles.BurnRate.burned_wall_share` in kernel form), None
+    where it gives no wall share (the zones then split by x^(1/2)), False where it gives one only
+    as a method (no compiled form)."""
+    from ..loops.loopgen import kernel_of
+    from ..roles import ROLE_BASES
+
+    cls = type(burn)
+    fn = kernel_of(cls, "wall_share_kernel")
+    own = cls.burned_wall_share is not ROLE_BASES["burn"].burned_wall_share
+    if fn is None:
+        return False if own else None
+    owner_k = next(c for c in cls.__mro__ if "wall_share_kernel" in vars(c))
+    owner_m = next(c for c in cls.__mro__ if "burned_wall_share" in vars(c))
+    return fn if owner_m in owner_k.__mro__ else False     # a subclass that overrides the method only
 
 
 def _packed(model, names: tuple[str, ...], B: int, form: str) -> dict[str, np.ndarray]:
@@ -338,10 +357,14 @@ class Compiled:
         # the batch-wide arrays of pack(), end to end in the order the generated loop reads them
         slots = shared_slots(parts)
         packs = {role: dict(m[role].pack()) for role in dict.fromkeys(r for r, _ in slots)}
-        self.TB, self.TO = shared_blocks(packs[role][name] for role, name in slots)
+        arrays = [packs[role][name] for role, name in slots]
+        zt = getattr(rhs, "zone_tab", None) if getattr(rhs, "zones", False) else None
+        if zt is not None:
+            arrays += [zt._flat_f, zt._flat_r]      # after the models' arrays (loopgen._zone_lines)
+        self.TB, self.TO = shared_blocks(arrays)
         # IVC resets: row 0 the kind per state row, row 1 + b case b's value (an initial may be per case)
         self.reset = np.zeros((1 + B, rhs.n))
-        for k, (role, model, sv) in enumerate(rhs.sub_specs):
+        for k, (role, model, sv) in enumerate(rhs.sub_specs + getattr(rhs, "zone_specs", [])):
             row = rhs.names.index(f"{role}.{sv.name}")
             if sv.reset_at_ivc:
                 if isinstance(sv.initial, str):
@@ -365,6 +388,11 @@ class Compiled:
         CB[mod.R_P:mod.R_P + P.shape[0]] = P
         CB[mod.R_IVC_DEG] = ivc
         CB[mod.R_V_AT_IVC] = _b(batch.geometry.volume_at(ivc), B) if self.full else 0.0
+        if zt is not None:
+            # the two-zone block (cyclesim.loops._compiled.R_ZONE_*)
+            CB[mod.R_ZONE_RF], CB[mod.R_ZONE_RR] = zt.R_f, zt.R_r
+            CB[mod.R_ZONE_T0], CB[mod.R_ZONE_DT], CB[mod.R_ZONE_N] = zt.T0, zt.dT, zt.n
+            CB[mod.R_ZONE_FLAME] = _b(rhs._flame, B)
         self.CB = CB
         self.IC = IC
         self.broken = False
@@ -503,6 +531,18 @@ def loop_parts(batch, rhs) -> tuple:
             rows = own[role]
             parts.append(Part(role, "state", state_kernel_of(type(model)), packed, rows, [r for _, r in rows],
                               arrays))
+    if getattr(rhs, "zones", False):
+        from ..loops import zone_solve
+        from ..loops.zones import ZONE_ROLE, ZONE_STATES
+
+        rows = tuple((sv.name, rhs.names.index(f"{ZONE_ROLE}.{sv.name}")) for sv in ZONE_STATES)
+        parts.append(Part(ZONE_ROLE, "zones", zone_solve.cylinder_zones, (), rows, [r for _, r in rows]))
+        fn = wall_share_form(batch.models["burn"])
+        if fn:
+            burn = batch.models["burn"]
+            got = dict(burn.pack())
+            parts.append(Part("burn", "wall_share", fn, tuple(got), own.get("burn", ()), (),
+                              tuple(n for n, v in got.items() if is_shared_array(v))))
     return tuple(parts)
 
 
@@ -513,7 +553,7 @@ def _generated(batch, rhs, mod, runner_step=None):
 
     try:
         parts = loop_parts(batch, rhs)
-        forms = {p.role: compiled_form(batch.models[p.role]) for p in parts}
+        forms = {p.role: compiled_form(batch.models[p.role]) for p in parts if p.role in batch.models}
         from .stepper import CYCLE_TABLEAU
 
         gen, fresh = module_for(parts, {r: f for r, f in forms.items() if f not in ("kernel", "heat_flow_kernel")},
@@ -523,7 +563,8 @@ def _generated(batch, rhs, mod, runner_step=None):
     import numba
 
     if (fresh or not _cached(gen)) and not numba.config.DISABLE_JIT:
-        names = ", ".join(f"{r} model {batch.models[r].name!r}" for r in dict.fromkeys(p.role for p in parts)) \
+        names = ", ".join(f"{r} model {batch.models[r].name!r}" if r in batch.models else "two zones"
+                          for r in dict.fromkeys(p.role for p in parts)) \
             or "the chosen models"
         _notice(f"compiling:{gen.__name__}", f"compiling the cycle loop for {names} (once per combination of"
                                             " models and kernel source; about 10-30 s)")
