@@ -7,7 +7,8 @@ Each timing is the median of ``--repeat`` runs, in-process unless named
 otherwise.  Targets (2-core machine) are printed beside the figures.
 ``grid_1000_workers2_s`` runs the 1000-case grid on 2 worker processes in
 chunks of 64 cases, as ``cyclesim sweep`` does; its speed-up is against
-``grid_1000_s`` (one process) and depends on how busy the cores are.
+``grid_1000_s`` (one process) and depends on how busy the cores are.  The ``*_cpu_s`` /
+``*_cpu_ms`` figures are CPU time (with the workers'), which a shared machine disturbs less.
 ``closed_cycle_vs_cantera`` times the closed cycle (41 cases, 0.1 deg output) against Cantera's
 reactor network doing the same work (tests/cantera_cycle.py), after checking that the two
 pressure traces agree; ``issue23_targets`` prints issue 23's targets beside their figures.
@@ -92,6 +93,12 @@ def issue23_targets(res: dict) -> dict:
     return out
 
 
+def _cpu_s() -> float:
+    """CPU seconds of this process and of its ended child processes (user + system)."""
+    me, ch = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+    return me.ru_utime + me.ru_stime + ch.ru_utime + ch.ru_stime
+
+
 def timed(fn, repeat=1):
     ts = []
     out = None
@@ -137,6 +144,10 @@ def main(argv=None):
     base = _cfg("demo")
     cyclesim.simulate([base])  # warm caches (gas tables, the compiled loop)
     res["one_point_s"], one = timed(lambda: cyclesim.simulate([base])[0], args.repeat)
+    cpu0 = time.process_time()
+    for _ in range(args.repeat):
+        cyclesim.simulate([base])
+    res["one_point_cpu_ms"] = 1e3 * (time.process_time() - cpu0) / args.repeat
     res["one_point_cycles"] = one.summary["cycles_to_converge"]
 
     # the built-in single Wiebe law as a third-party plug-in's kernel (tests/plugin_sources.py):
@@ -240,13 +251,20 @@ def main(argv=None):
                                      f"burn.spark_advance_deg={a}"])
                 for n in np.linspace(1500, 6000, 10) for p in np.linspace(0.4, 1.0, 10)
                 for a in np.linspace(10, 40, 10)]
+        # CPU seconds beside the wall-clock ones: on a shared machine the wall clock measures the
+        # other users too, the CPU time (this process and its finished workers) only this work
+        cpu0 = _cpu_s()
         res["grid_1000_s"], _ = timed(lambda: cyclesim.simulate(grid), 1)
+        res["grid_1000_cpu_s"] = _cpu_s() - cpu0
         # The same grid on 2 worker processes as `cyclesim sweep` runs it (above 64 cases): chunks
         # of 64 consecutive cases, each chunk one simulate() call in a worker
         from cyclesim.parallel import run_chunks
 
         chunks = [grid[i:i + 64] for i in range(0, len(grid), 64)]
+        cpu0, par0 = _cpu_s(), time.process_time()
         res["grid_1000_workers2_s"], _ = timed(lambda: run_chunks(chunks, workers=2, backend="process"), 1)
+        res["grid_1000_workers2_cpu_s"] = _cpu_s() - cpu0
+        res["grid_1000_workers2_parent_cpu_s"] = time.process_time() - par0
         res["grid_1000_workers2_speedup"] = res["grid_1000_s"] / res["grid_1000_workers2_s"]
 
     # synthetic cycles at 0.1 deg output (cyclesim.traces.synthesis.synthesize): independent

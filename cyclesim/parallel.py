@@ -147,6 +147,14 @@ def run_chunk_in_worker(cases: Sequence) -> list:
     return run_chunk(cases)
 
 
+def run_chunk_spooled(cases: Sequence, folder: str | None) -> tuple:
+    """:func:`run_chunk` in a worker process: the results with their trace arrays in one file of
+    ``folder`` (:mod:`cyclesim.spool`; None: in the results, as pickled)."""
+    from .spool import pack
+
+    return pack(run_chunk(cases), folder)
+
+
 def parse_workers(value: Any) -> int | str:
     """``"auto"`` or a whole number >= 1, from an int or a command-line word."""
     if isinstance(value, str):
@@ -498,6 +506,18 @@ def _end_workers(ex) -> None:
 
 def _run_process(chunks: Iterable[Sequence], n: int, on_result: OnResult | None, max_pending: int,
                  method: str | None) -> list[list]:
+    from .spool import TraceSpool
+
+    # the workers hand their trace arrays over in files of a folder in memory, not through the pipe
+    spool = TraceSpool.create()
+    try:
+        return _run_pool(chunks, n, on_result, max_pending, method, spool)
+    finally:
+        spool.remove()
+
+
+def _run_pool(chunks: Iterable[Sequence], n: int, on_result: OnResult | None, max_pending: int,
+              method: str | None, spool) -> list[list]:
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
     from concurrent.futures.process import BrokenProcessPool
 
@@ -521,7 +541,7 @@ def _run_process(chunks: Iterable[Sequence], n: int, on_result: OnResult | None,
                 if not chunk:   # nothing to simulate: report it without a round trip
                     results.put(k, [])
                     continue
-                pending[ex.submit(run_chunk, chunk)] = k
+                pending[ex.submit(run_chunk_spooled, chunk, spool.folder)] = k
             if not pending:
                 break
             done, _ = wait(pending, return_when=FIRST_COMPLETED)
@@ -537,7 +557,7 @@ def _run_process(chunks: Iterable[Sequence], n: int, on_result: OnResult | None,
                         " the rows of the finished chunks are kept: run again with --resume"
                         f" (--workers 1 runs in one process){hint}"
                     ) from exc
-                results.put(k, res)
+                results.put(k, spool.unpack(res))
         ok = True
     finally:
         if ok:

@@ -146,11 +146,18 @@ def run_cycles(system: CylinderSystem, progress, initial, cycles, step_scale, ma
     events = CycleEvents(b, rhs, system.extra_events)
     pts = cycle_points(b, mode, events, step_scale)
     runner = CycleRunner(b, rhs, pts, events, system.runners)
-    y = system.initial_state(b, rhs, pts.theta[0], mode)
-    if initial is not None:
-        if initial.shape != y.shape:
-            raise SolverError(f"initial state has shape {initial.shape}, expected {y.shape}")
+    if initial is not None and mode == "full":
+        # a given start needs no default one (with simulation.start: estimate that is the
+        # residual estimate, dearer than a cycle)
+        if initial.shape != (rhs.n, b.B):
+            raise SolverError(f"initial state has shape {initial.shape}, expected {(rhs.n, b.B)}")
         y = np.array(initial, dtype=float)
+    else:
+        y = system.initial_state(b, rhs, pts.theta[0], mode)
+        if initial is not None:
+            if initial.shape != y.shape:
+                raise SolverError(f"initial state has shape {initial.shape}, expected {y.shape}")
+            y = np.array(initial, dtype=float)
     if mode == "closed":
         return _closed_cycle(runner, y, progress)
     n_max = int(b.simulation.max_cycles) if max_cycles is None else int(max_cycles)
@@ -161,20 +168,23 @@ def run_cycles(system: CylinderSystem, progress, initial, cycles, step_scale, ma
     # part of the accelerated start)
     accel = Acceleration(rhs) if system.method == "anderson" and cycles is None and runner.coupling is None \
         else None
-    Y = np.empty((rhs.n, b.B, pts.N + 1))
-    F = np.empty_like(Y)
+    bufs = Buffers((rhs.n, b.B, pts.N + 1))
     with np.errstate(all="ignore"):
         for cyc in range(1, n_max + 1):
             y[TOTALS] = 0.0
             y[CORE_ROWS["x_b"]] = 0.0
+            Y, F = bufs.now()
             y = runner.cycle(y, Y, F)
             if progress is not None:
                 progress(cyc)
+            book.slot_now = bufs.slot
             settled = book.judge(cyc, n_max, Y, F, accel)
             if book.done.all():
                 break
             if accel is not None:
                 y = accel.next_start(Y[:, :, 0], y, book, settled)
+            bufs.next_cycle(book)
+    book.assemble(bufs)
     tr = CycleTrace(pts.theta, book.Y, book.F, rhs.names, book.cycles_run, book.converged, book.history,
                     rhs.failed, loop=runner.loop)
     tr.end_state = book.Y[:, :, -1].copy()
@@ -233,6 +243,8 @@ class Settling:
         self.change = np.full(B, np.inf)        # largest relative change of the last cycle
         self.change_before = np.full(B, np.inf)
         self.from_accelerated = np.zeros(B, dtype=bool)   # per case: its reported cycle began accelerated
+        self.slot = np.full(B, -1)      # per done case: the buffer (Buffers) that holds its reported cycle
+        self.slot_now = 0               # the buffer of the cycle being judged
 
     def judge(self, cyc: int, n_max: int, Y, F, accel) -> np.ndarray:
         """Book cycle ``cyc`` (in ``Y``, ``F``): the cases it settles, those done with it.
@@ -274,13 +286,8 @@ class Settling:
 
     def _report(self, newly, cyc, n_max, Y, F, imep, m_tr) -> None:
         rhs = self.rhs
-        if self.Y is None and newly.all():
-            self.Y, self.F = Y, F               # every case ends with this cycle: no copy
-        else:
-            if self.Y is None:
-                self.Y, self.F = np.empty_like(Y), np.empty_like(F)
-            self.Y[:, newly] = Y[:, newly]
-            self.F[:, newly] = F[:, newly]
+        # the reported cycle stays in the buffer it was written to (Buffers): nothing copied here
+        self.slot[newly] = self.slot_now
         # the IVC state of the reported cycle (a case done early keeps its own, not that
         # of the cycles its batch-mates still run)
         for key, arr in (("p", rhs.p_ivc), ("T", rhs.T_ivc), ("V", rhs.V_ivc)):
@@ -298,12 +305,64 @@ class Settling:
         self.done |= newly
 
 
+    def assemble(self, bufs: "Buffers") -> None:
+        """The reported cycles of every case in one pair of arrays (``self.Y``, ``self.F``): the buffer
+        that holds most of them, the others' copied into it."""
+        counts = [int(np.count_nonzero(self.slot == k)) for k in (0, 1)]
+        base = int(np.argmax(counts))
+        self.Y, self.F = bufs.pairs[base]
+        if counts[1 - base]:
+            _copy_cases(bufs.pairs[base], bufs.pairs[1 - base], np.flatnonzero(self.slot == 1 - base))
+
     def _report_runners(self, newly, rec) -> None:
         """Copy the runner record of cycle ``rec`` into the report of the cases ``newly`` done."""
         if self.pipe_report is None:
             self.pipe_report = _copy_record(rec)
             return
         _put_record(self.pipe_report, rec, newly)
+
+
+class Buffers:
+    """The arrays a batch's cycles are written into: states and slopes (n_state, B, N+1) of one cycle,
+    and a second pair once some cases are done while others run on.
+
+    A done case's reported cycle stays in the pair it was written to; the next cycle goes to the other
+    pair.  Before a pair is written again, the reported cycles it holds move to the pair of the cycle
+    just judged (whose columns of done cases are free), so two pairs always suffice and each case's
+    trace is copied at most once per cycle its batch-mates still run, typically never.  (Copying every
+    done case's trace out after each cycle cost about a tenth of a 100-case batch's integration.)
+    """
+
+    def __init__(self, shape: tuple):
+        self.shape = shape
+        self.pairs: list = [(np.empty(shape), np.empty(shape)), None]
+        self.slot = 0
+
+    def now(self) -> tuple:
+        """The pair the next cycle is written to."""
+        return self.pairs[self.slot]
+
+    def next_cycle(self, book: Settling) -> None:
+        """Choose the pair of the next cycle, keeping every reported cycle of ``book``."""
+        here = self.slot
+        if not (book.slot == here).any():
+            return                      # no reported cycle in this pair: the next cycle overwrites it
+        other = 1 - here
+        if self.pairs[other] is None:
+            self.pairs[other] = (np.empty(self.shape), np.empty(self.shape))
+        else:
+            moving = np.flatnonzero(book.slot == other)
+            _copy_cases(self.pairs[here], self.pairs[other], moving)
+            book.slot[moving] = here
+        self.slot = other
+
+
+def _copy_cases(dst: tuple, src: tuple, cases: np.ndarray) -> None:
+    """Copy the columns ``cases`` of the pair ``src`` into ``dst`` (one case's rows at a time: no
+    temporary of the whole selection)."""
+    for b in cases:
+        for d, s in zip(dst, src):
+            d[:, b] = s[:, b]
 
 
 def _copy_record(rec):
