@@ -41,26 +41,15 @@ closed-part step is taken only as far as this allows."""
 def closed_step_factor(case, classes: dict) -> int:
     """Multiple of the step used where all valves are shut, for one case.
 
-    :data:`CLOSED_STEP_FACTOR` times the low-speed refinement (``simulation.step_deg`` over the
-    step at this speed, :func:`cyclesim.config.effective_step_deg`), capped by every chosen
-    submodel's ``closed_step_limit_for(params, step)`` and so that :data:`MIN_FEATURE_STEPS`
-    steps span its ``shortest_feature_deg_for(params)``; ``classes`` maps role -> submodel class.
+    :data:`CLOSED_STEP_FACTOR`, capped by every chosen submodel's
+    ``closed_step_limit_for(params, step)`` and so that :data:`MIN_FEATURE_STEPS` steps span
+    its ``shortest_feature_deg_for(params)``; ``classes`` maps role -> submodel class.
     Depends only on the case's own settings (cases share a batch only if it is equal).
-
-    The low-speed refinement is for the gas exchange (flow through an open valve); with the
-    valves shut the closed part keeps the step it has at the reference speed, for 9-15 % fewer
-    steps per cycle at 800-2500 rpm.  Against a tenfold finer step the errors stay within 4e-5 in
-    net IMEP (3.9e-4 on the part-load demo at 800 rpm, as with the refined closed part), 1e-6 deg
-    in CA50 and 2e-3 deg in the angle of peak pressure on the three demo configs at 800, 1500,
-    2000 and 2500 rpm (measured; tests/test_step_per_phase.py checks two of them).  The angle of
-    the largest pressure rise rate, read from the grid, then errs by up to 0.07 deg at 40 deg
-    advance, as it already did at 3000 rpm and above with this closed step (measured).
     """
     from ..config import effective_step_deg
 
     step = effective_step_deg(case.simulation, float(case.operating.speed_rpm))
-    refined = max(int(round(float(case.simulation.step_deg) / step)), 1)
-    k = CLOSED_STEP_FACTOR * refined
+    k = CLOSED_STEP_FACTOR
     for role, cls in classes.items():
         params = case.submodels[role].params
         lim = cls.closed_step_limit_for(params, step)
