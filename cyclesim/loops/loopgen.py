@@ -247,7 +247,7 @@ def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
             if val.__name__ not in ("numpy", "math"):
                 raise LoopGenError(f"kernel {fn.__name__}: reads module {val.__name__!r}; only numpy and math compile")
             imports[name] = val.__name__
-        elif val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above):
+        elif val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above, kernel_ops.where_lazy):
             imports[name] = f"cyclesim.kernel_ops.{val.__name__}"
         elif isinstance(val, types.FunctionType):
             _collect(val, funcs, consts, imports)
