@@ -19,7 +19,8 @@ arrays (n_state, B); :mod:`cyclesim.loops.loopgen` writes the same text into eve
 compiled loop, where numba compiles the functions and inlines them on one state row's floats.
 Why text and not one function that loops over the tableau's arrays: numba then needs no loop
 over stages per state row nor reads of the coefficients, and numpy no Python loop over the
-terms (measured on the numpy loop: the generated row is the cheaper of the two forms).
+terms (the three rows of Kutta's scheme on arrays (20, 1): about 5-25 % less time than such a
+loop, timed with timeit on a busy 2-core machine).
 
 The cycle's grid precomputes geometry and masks at each step's start, middle and end, so the
 stage nodes of a tableau used there must be among 0, 1/2 and 1 (:meth:`Tableau.arrays`).
