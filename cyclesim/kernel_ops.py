@@ -19,6 +19,10 @@ floats, for which the dispatch finds no override); ``np.where`` itself where num
 attribute."""
 
 
+_any = np.logical_or.reduce
+"""``condition.any()`` in one call (without numpy's Python-level method wrapper)."""
+
+
 def where(condition, x, y):
     """``x`` where ``condition`` holds, else ``y`` (``np.where`` on arrays; a select on floats)."""
     return _select(condition, x, y)
@@ -44,8 +48,8 @@ def where_lazy(condition, f, args, otherwise):
     a case whose condition holds.  For a term that most of the cycle leaves unused (Woschni's
     combustion velocity outside the burn)."""
     try:
-        hit = condition.any()
-    except AttributeError:          # a plain bool
+        hit = _any(condition, axis=None)
+    except (TypeError, ValueError):     # a plain bool or a 0-d value
         hit = bool(condition)
     if not hit:
         return otherwise

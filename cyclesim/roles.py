@@ -183,6 +183,8 @@ def _kernel_call(model, s: GasState, attr: str = "kernel"):
     plan, fn, packed, gas = bound
     seen = _seen_errstate         # the cycle loop's own setting (errors ignored): no second context
     if (seen[1] and _EXTOBJ is not None and seen[0] is _EXTOBJ.get()) or _errors_ignored():
+        if not plan.sub_keys:     # no states of its own: the plan's one caller, directly
+            return plan.no_sub(fn, s, packed, gas, None)
         return plan.call(fn, s, packed, gas)
     with np.errstate(invalid="ignore", divide="ignore"):   # a kernel is branch-free: masked values may be NaN
         return plan.call(fn, s, packed, gas)
