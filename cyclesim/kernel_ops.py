@@ -19,6 +19,10 @@ floats, for which the dispatch finds no override); ``np.where`` itself where num
 attribute."""
 
 
+_any = np.logical_or.reduce
+"""``condition.any()`` in one call (without numpy's Python-level method wrapper)."""
+
+
 def where(condition, x, y):
     """``x`` where ``condition`` holds, else ``y`` (``np.where`` on arrays; a select on floats)."""
     return _select(condition, x, y)
@@ -35,6 +39,21 @@ def max_above(x, bound, f, arg):
     """``max(x, f(arg))`` for a function f known to stay below ``bound``: numpy evaluates f on
     every element; the compiled loop skips f where ``x >= bound`` (the result is x there alike)."""
     return np.maximum(x, f(arg))
+
+
+def where_lazy(condition, f, args, otherwise):
+    """``f(*args)`` where ``condition`` holds, else ``otherwise`` (a number), computing ``f`` only
+    where it is used: numpy evaluates f on every element, and not at all where no element holds
+    (the result is then ``otherwise`` for all, as a number); the compiled loop evaluates f only for
+    a case whose condition holds.  For a term that most of the cycle leaves unused (Woschni's
+    combustion velocity outside the burn)."""
+    try:
+        hit = _any(condition, axis=None)
+    except (TypeError, ValueError):     # a plain bool or a 0-d value
+        hit = bool(condition)
+    if not hit:
+        return otherwise
+    return _select(condition, f(*args), otherwise)
 
 
 _registered = False
@@ -94,6 +113,14 @@ def register_compiled() -> None:
         if isinstance(x, types.Number):
             def impl(x, bound, f, arg):
                 return x if x >= bound else max(x, f(arg))
+            return impl
+        return None
+
+    @overload(where_lazy)
+    def _where_lazy_scalar(condition, f, args, otherwise):
+        if isinstance(condition, types.Boolean):
+            def impl(condition, f, args, otherwise):
+                return f(*args) if condition else otherwise
             return impl
         return None
 

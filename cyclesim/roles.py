@@ -177,14 +177,21 @@ class ParamValues(SimpleNamespace):
 def _kernel_call(model, s: GasState, attr: str = "kernel"):
     """A model's kernel (the class attribute ``attr``) on the Python path (arrays (B,)), its
     parameters from ``pack()`` (once)."""
-    bound = model.__dict__.get("_kernel_" + attr)
+    bound = model.__dict__.get(_BOUND_KEYS.get(attr) or "_kernel_" + attr)
     if bound is None:
         bound = _bind(model, attr)
     plan, fn, packed, gas = bound
-    if _errors_ignored():          # the cycle loop's own setting: no second context
+    seen = _seen_errstate         # the cycle loop's own setting (errors ignored): no second context
+    if (seen[1] and _EXTOBJ is not None and seen[0] is _EXTOBJ.get()) or _errors_ignored():
+        if not plan.sub_keys:     # no states of its own: the plan's one caller, directly
+            return plan.no_sub(fn, s, packed, gas, None)
         return plan.call(fn, s, packed, gas)
     with np.errstate(invalid="ignore", divide="ignore"):   # a kernel is branch-free: masked values may be NaN
         return plan.call(fn, s, packed, gas)
+
+
+_BOUND_KEYS = {a: "_kernel_" + a for a in ("kernel", "heat_flow_kernel", "state_kernel")}
+"""The instance attribute that holds a model's bound kernel, by class attribute (made once)."""
 
 
 def _bind(model, attr: str) -> tuple:
@@ -327,7 +334,8 @@ class Submodel:
         names = self.__dict__.get("_state_names")
         if names is None:
             names = self.__dict__["_state_names"] = [sv.name for sv in self.states()]
-        if _errors_ignored():   # the cycle loop's own setting: no second context
+        seen = _seen_errstate   # the cycle loop's own setting (errors ignored): no second context
+        if (seen[1] and _EXTOBJ is not None and seen[0] is _EXTOBJ.get()) or _errors_ignored():
             got = plan.call(fn, s, packed, gas)
         else:
             with np.errstate(invalid="ignore", divide="ignore"):   # branch-free: masked values may be NaN

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from cyclesim.kernel_ops import fresh_charge, where
+from cyclesim.kernel_ops import fresh_charge, where, where_lazy
 from cyclesim.params import Param, StateVar
 from cyclesim.roles import GasState, WallHeatTransfer
 
@@ -95,25 +95,37 @@ def woschni_motored_pressure(p_ivc, V_ivc, V, T_mot, T_ivc):
     return p_ivc * (V_ivc / V) * (T_mot / T_ivc)
 
 
+def woschni_firing_velocity(c2, Vd, p, p_ivc, V_ivc, V, T_mot, T_ivc):
+    """Woschni's combustion term [m/s] where the cylinder is closed and burning: ``C2 Vd T_r /
+    (p_r V_r) (p - p_mot)`` with the rise over the motored pressure clamped at 0, and 0 where the
+    IVC state is not yet known (the step that crosses intake closing gives a non-finite term)."""
+    dp = np.maximum(p - woschni_motored_pressure(p_ivc, V_ivc, V, T_mot, T_ivc), 0.0)
+    comb = woschni_combustion_velocity(c2, Vd, T_ivc, p_ivc, V_ivc, dp)
+    return where(np.isfinite(comb), comb, 0.0)
+
+
 def woschni_kernel(p, T, V, Sp, closed, burning, p_ivc, T_ivc, V_ivc, T_mot, k, c1_closed, c1_open, c2, Vd,
                    t_exp):
     """Woschni's coefficient [W/(m^2 K)] in the cycle: the kernel of :class:`Woschni` (arrays on the
     Python path, floats in the compiled loop).  ``T_mot`` is the model's integrated motored
-    temperature [K]; the combustion term counts only while the cylinder is closed and burning,
-    and not where the IVC state is not yet known (the step that crosses intake closing)."""
+    temperature [K]; the combustion term (:func:`woschni_firing_velocity`) counts only while the
+    cylinder is closed and burning, and is computed only there (:func:`where_lazy`)."""
     w = where(closed, c1_closed, c1_open) * Sp
-    dp = np.maximum(p - woschni_motored_pressure(p_ivc, V_ivc, V, T_mot, T_ivc), 0.0)
-    comb = woschni_combustion_velocity(c2, Vd, T_ivc, p_ivc, V_ivc, dp)
-    w = w + where(closed & burning & np.isfinite(comb), comb, 0.0)
+    w = w + where_lazy(closed & burning, woschni_firing_velocity, (c2, Vd, p, p_ivc, V_ivc, V, T_mot, T_ivc), 0.0)
     return woschni_h(k, p, w, T, t_exp)
 
 
-def woschni_motored_rate(T_mot, gas, dV, omega_deg, V, closed):
-    """dT_mot/dt [K/s] of the charge motored from IVC, ``-(R / cv) T_mot (dV/dt) / V`` with R and cv
-    of the fresh charge at ``T_mot``, zero outside the closed part: the state kernel of
-    :class:`Woschni` (isentropic compression of an ideal gas, Heywood 1988, sec. 3.4)."""
+def woschni_compression_rate(gas, T_mot, dV, omega_deg, V):
+    """``-(R / cv) T_mot (dV/dt) / V`` [K/s] with R and cv of the fresh charge at ``T_mot``."""
     _, cv, R = fresh_charge(gas, T_mot)
-    return where(closed, -(R / cv) * T_mot * (dV * omega_deg) / V, 0.0)
+    return -(R / cv) * T_mot * (dV * omega_deg) / V
+
+
+def woschni_motored_rate(T_mot, gas, dV, omega_deg, V, closed):
+    """dT_mot/dt [K/s] of the charge motored from IVC (:func:`woschni_compression_rate`), zero
+    outside the closed part (and computed only inside it): the state kernel of :class:`Woschni`
+    (isentropic compression of an ideal gas, Heywood 1988, sec. 3.4)."""
+    return where_lazy(closed, woschni_compression_rate, (gas, T_mot, dV, omega_deg, V), 0.0)
 
 
 def hohenberg_kernel(V, p, T, Sp, multiplier):

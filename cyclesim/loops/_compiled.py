@@ -251,21 +251,6 @@ def _rhs(b, theta, yv, out, flows, V, dV, Ah, Ap, Al, closed, burning, Ai, Ae, p
     return True
 
 
-@njit(cache=True, inline="always", error_model="numpy")
-def _weighted(coef, K, s, k):
-    """sum_j coef[j] K[j, k] over the first s stages, in order (as cyclesim.solve.stepper.combine)."""
-    acc = 0.0
-    first = True
-    for q in range(s):
-        c = coef[q]
-        if c == 0.0:
-            continue
-        t = K[q, k] if c == 1.0 else c * K[q, k]
-        acc = t if first else acc + t
-        first = False
-    return acc
-
-
 def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1, pipes=None):
     """One cycle of cases b0..b1-1 by the Runge-Kutta tableau on the grid, as the Python loop.
 
@@ -281,7 +266,8 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1, pi
       (row 0 the kind per state row, row 1 + b case b's value),
       the batch-wide arrays end to end and their bounds;
     - gas: (gas_tab, gas_off, gc, uc4): the property tables;
-    - tableau: (tA, ta_den, tb, tb_den, tnode): cyclesim.solve.stepper.Tableau.arrays;
+    - tableau: (tA, ta_den, tb, tb_den, tnode): cyclesim.loops.tableau.Tableau.arrays (the loop
+      reads the stage count and the nodes; the coefficients are constants of its stage functions).
     - pipes: the runners (cyclesim.pipes.loop_step.pack), read only by a loop generated with them.
 
     Cases touch only their own columns, so two threads may run disjoint ranges of one batch
@@ -318,10 +304,9 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1, pi
                     for k in range(n):
                         yt[k] = yv[k]
                 else:
-                    # STAGE COMBINATION (a generated loop has the tableau's rows written out here)
-                    f = hs / ta_den[st]
-                    for k in range(n):
-                        yt[k] = yv[k] + f * _weighted(tA[st], K, st, k)
+                    # STAGE COMBINATION (cyclesim.loops.loopgen writes the tableau's rows in here: a
+                    # call per stage of the functions cyclesim.loops.tableau.stage_source generates)
+                    pass
                     # END STAGE COMBINATION
                 jp = j if vary else 0
                 ok = _rhs(b, th[j], yt, K[st], full and (open_at[j] or src[0] != 0.0 or src[4] != 0.0), Vp[j, g],
@@ -337,10 +322,8 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1, pi
                         F[k, b, i] = K[0, k]
             if status[b] != 0 or i == N:
                 break
-            # STEP COMBINATION (a generated loop has the tableau's weights written out here)
-            fb = hs / tb_den
-            for k in range(n):
-                yv[k] = yv[k] + fb * _weighted(tb, K, S, k)
+            # STEP COMBINATION (cyclesim.loops.loopgen writes the step's function call in here)
+            pass
             # END STEP COMBINATION
             m_ = yv[S_M]
             T_ = yv[S_T]

@@ -20,13 +20,14 @@ from __future__ import annotations
 import hashlib
 import importlib.util
 import inspect
-import math
 import operator
 import os
 import sys
 import textwrap
 import types
 from pathlib import Path
+
+from .tableau import CYCLE_TABLEAU, STEP_NAME, stage_name, stage_source, tableau_key
 
 VERSION = "1"
 CACHE_ENV = "CYCLESIM_CACHE_DIR"
@@ -258,7 +259,7 @@ def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
             if val.__name__ not in ("numpy", "math"):
                 raise LoopGenError(f"kernel {fn.__name__}: reads module {val.__name__!r}; only numpy and math compile")
             imports[name] = val.__name__
-        elif val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above):
+        elif val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above, kernel_ops.where_lazy):
             imports[name] = f"cyclesim.kernel_ops.{val.__name__}"
         elif val in zone_solve.OVERLOADED:
             imports[name] = f"cyclesim.loops.zone_solve.{val.__name__}"     # compiled by overload
@@ -535,8 +536,8 @@ def _memo(parts) -> tuple:
 def generate(parts, forms: dict | None = None, tableau=None, runner_step=None) -> tuple[str, str]:
     """(key, module source) of the loop for ``parts`` (:class:`Part`; ``forms``: role -> the
     compiled form of a role whose state kernel reads a named form's parameters, default
-    ``kernel``; ``tableau``: the Runge-Kutta scheme written into the loop, see
-    :func:`_tableau_blocks`; None leaves the loop reading the scheme it is passed;
+    ``kernel``; ``tableau``: the Runge-Kutta scheme whose stage functions the loop calls, see
+    :func:`_tableau_blocks`; None: the cycle's scheme, :data:`cyclesim.loops.tableau.CYCLE_TABLEAU`;
     ``runner_step``: None, or ``(module, digest)`` of the runners' compiled crank step, whose
     ``crank_step`` the loop then calls each step (:data:`RUNNER_STEP`; ``digest`` a hash of the
     sources it runs, written into the loop so that it names the file)).
@@ -572,8 +573,8 @@ STATE_MARKER = "    pass  # STATE KERNEL CALLS"
 
 STAGE_BLOCK = ("                else:\n                    # STAGE COMBINATION", "                    # END STAGE COMBINATION\n")
 STEP_BLOCK = ("            # STEP COMBINATION", "            # END STEP COMBINATION\n")
-"""Where :func:`cyclesim.loops._compiled.run_cycle` combines the stages (its generic form reads the
-tableau's arrays in a loop per state row); a loop generated for a tableau has them written out."""
+"""Where :func:`cyclesim.loops._compiled.run_cycle` combines the stages (a stand-in there): a
+generated loop calls the stage functions of its tableau there (:func:`_tableau_blocks`)."""
 
 
 RUNNER_BLOCK = ("            # RUNNER STEP", "            # END RUNNER STEP\n")
@@ -599,36 +600,22 @@ enthalpy at the step's start from the loop's gas tables (as the numpy loop's
 module named by ``runner_step`` (:func:`generate`)."""
 
 
-def _weighted_text(coefs, s: int) -> str:
-    """``sum_j coefs[j] K[j, k]`` over the first ``s`` stages as the text of one expression, with the
-    terms and their order of :func:`cyclesim.loops._compiled._weighted` (a coefficient 1 not
-    multiplied, 0 skipped), so the sums are identical to the digit."""
-    terms = []
-    for q in range(s):
-        c = float(coefs[q])
-        if not math.isfinite(c):
-            raise LoopGenError(f"tableau coefficient {c!r} is not finite")
-        if c == 0.0:
-            continue
-        terms.append(f"K[{q}, k]" if c == 1.0 else f"({c!r}) * K[{q}, k]")
-    return " + ".join(terms) or "0.0"
-
 
 def _tableau_blocks(tableau) -> tuple[str, str]:
-    """The stage and step combinations of ``tableau`` (a :class:`cyclesim.solve.stepper.Tableau`:
-    ``a``, ``a_den``, ``b``, ``b_den``) as the loop's lines: one branch per stage, each the
-    tableau's row with its coefficients as constants (numba then needs no loop over stages per
-    state row, nor reads of the coefficients)."""
-    S = len(tableau.a)
+    """The loop's lines that combine the stages of ``tableau`` (a
+    :class:`cyclesim.loops.tableau.Tableau`): one branch per stage calling that stage's generated
+    function (:func:`cyclesim.loops.tableau.stage_source`, written into the loop's module and
+    inlined by numba) on each state row, and the step's function likewise."""
+    S = tableau.stages
     stage = []
     for st in range(1, S):
+        ks = "".join(f", K[{q}, k]" for q in range(st))
         stage += [f"                elif st == {st}:",
-                  f"                    f = hs / {float(tableau.a_den[st])!r}",
                   "                    for k in range(n):",
-                  f"                        yt[k] = yv[k] + f * ({_weighted_text(tableau.a[st], st)})"]
-    step = [f"            fb = hs / {float(tableau.b_den)!r}",
-            "            for k in range(n):",
-            f"                yv[k] = yv[k] + fb * ({_weighted_text(tableau.b, S)})"]
+                  f"                        yt[k] = {stage_name(st)}(yv[k], hs{ks})"]
+    ks = "".join(f", K[{q}, k]" for q in range(S))
+    step = ["            for k in range(n):",
+            f"                yv[k] = {STEP_NAME}(yv[k], hs{ks})"]
     return "\n".join(stage) + ("\n" if stage else ""), "\n".join(step) + "\n"
 
 
@@ -642,10 +629,10 @@ def _replace_block(text: str, block: tuple[str, str], new: str) -> str:
 
 
 def _tableau_key(tableau) -> tuple:
+    """The scheme's part of a loop's key: its coefficients and the text of its stage functions."""
     if tableau is None:
-        return ()
-    return (tuple(tuple(map(float, r)) for r in tableau.a), tuple(map(float, tableau.a_den)),
-            tuple(map(float, tableau.b)), float(tableau.b_den), tuple(map(float, tableau.c)))
+        tableau = CYCLE_TABLEAU
+    return tableau_key(tableau) + (stage_source(tableau),)
 
 
 def template_functions() -> tuple:
@@ -715,9 +702,13 @@ def _generate(parts: tuple, forms: dict, tableau=None, runner_step=None) -> tupl
     elif wall is not None:
         raise LoopGenError("a wall-share kernel needs the two-zone solve")
     cycle = textwrap.dedent(inspect.getsource(base.run_cycle))
-    if tableau is not None:
-        stage, step = _tableau_blocks(tableau)
-        cycle = _replace_block(_replace_block(cycle, STAGE_BLOCK, stage), STEP_BLOCK, step)
+    tableau = CYCLE_TABLEAU if tableau is None else tableau
+    stage, step = _tableau_blocks(tableau)
+    cycle = _replace_block(_replace_block(cycle, STAGE_BLOCK, stage), STEP_BLOCK, step)
+    rk_names = [stage_name(st) for st in range(1, tableau.stages)] + [STEP_NAME]
+    clash = {n for n in rk_names if n in funcs or n in consts or n in imports}
+    if clash:
+        raise LoopGenError(f"kernel names {sorted(clash)} clash with the loop's stage functions; rename them")
     if runner_step is not None:
         cycle = _replace_block(cycle, RUNNER_BLOCK, RUNNER_STEP)
     private = sorted(n for n, v in vars(base).items()
@@ -743,6 +734,9 @@ def _generate(parts: tuple, forms: dict, tableau=None, runner_step=None) -> tupl
     for name, (fn, src) in funcs.items():
         inline = ', inline="always"' if fn.__code__.co_argcount <= INLINE_MAX_ARGS else ""
         parts_text.append(f'\n@njit(cache=True{inline}, error_model="numpy")\n' + src)
+    # the scheme's stage combination: the same text the numpy loop runs (cyclesim.loops.tableau)
+    for src in stage_source(tableau).split("\n\n"):
+        parts_text.append('\n@njit(cache=True, inline="always", error_model="numpy")\n' + src)
     # the right-hand side inlined into the cycle (measured: the closed cycle about 9 % faster, the
     # first compile about as long)
     rhs_inline = ', inline="always"' if base._rhs.__code__.co_argcount <= INLINE_MAX_ARGS else ""

@@ -4,8 +4,10 @@
 per-point data, the events, the compiled cycle if any) and runs a cycle from a start state into
 the trace arrays ``Y`` and ``F`` (states and their crank-angle derivatives at the grid points).
 The numpy loop steps the cylinder system by the Runge-Kutta tableau (:mod:`cyclesim.solve.stepper`),
-applying the events after each step (:mod:`cyclesim.solve.events`); the compiled loop does the same
-in machine code (:mod:`cyclesim.solve.kernel`).
+its stages combined by the functions generated from the tableau (:func:`cyclesim.loops.tableau.stage_functions`,
+the text the compiled loop has written in), applying the events after each step
+(:mod:`cyclesim.solve.events`); the compiled loop does the same in machine code
+(:mod:`cyclesim.solve.kernel`).
 """
 
 from __future__ import annotations
@@ -15,7 +17,8 @@ import math
 import numpy as np
 
 from .events import CycleEvents, StepContext
-from .stepper import CYCLE_TABLEAU, advance, stages
+from ..loops.tableau import stage_functions
+from .stepper import CYCLE_TABLEAU
 from .valve_source import RunnerCoupling
 
 LOOP_RERUN = "compiled (a cycle re-run on the numpy loop to stop a failing case)"
@@ -83,30 +86,33 @@ class CycleRunner:
         rhs, pts, tab, th_pts = self.rhs, self.pts, self.tableau, self.th_pts
         geo_pts = pts.per_point()
         open_at = pts.open_at
-        nodes = [int(v) for v in tab.arrays()[4]]
+        rows = stage_functions(tab)
+        stage_rows, step_row = rows.stage, rows.step
+        # each stage after the first: (its row, its grid point's offset from the step's start)
+        later = [(stage_rows[st], int(v)) for st, v in enumerate(tab.arrays()[4]) if st > 0]
+        steps = pts.steps.tolist()
         N = pts.N
         cpl = self.coupling
         if cpl is not None:
             cpl.start_cycle()
         acting = self._steps_with_events(th_pts, N)
+        stop = self._stop_unphysical
         for i in range(N):
-            th = th_pts[2 * i]
-            tn = th_pts[2 * i + 2]
-            h = float(pts.steps[i])
+            j0 = 2 * i
+            h = steps[i]
             if cpl is not None:
-                cpl.step(i, y, geo_pts[2 * i][0], h)
-
-            def at_stage(st, ys):
-                j = 2 * i + nodes[st]
-                return rhs(th_pts[j], ys, geo_pts[j], open_at[j])
-
-            ks = stages(at_stage, y, h, tab)
+                cpl.step(i, y, geo_pts[j0][0], h)
+            k = rhs(th_pts[j0], y, geo_pts[j0], open_at[j0])
             Y[:, :, i] = y
-            F[:, :, i] = ks[0]
-            y = advance(y, h, tab, ks)
-            self._stop_unphysical(y, Y[:, :, i], tn)
+            F[:, :, i] = k
+            ks = [k]
+            for row, node in later:
+                j = j0 + node
+                ks.append(rhs(th_pts[j], row(y, h, *ks), geo_pts[j], open_at[j]))
+            y = step_row(y, h, *ks)
+            stop(y, Y[:, :, i], th_pts[j0 + 2])
             if i in acting:
-                self.events.after_step(StepContext(self.batch, rhs, th, tn, h, Y[:, :, i], y))
+                self.events.after_step(StepContext(self.batch, rhs, th_pts[j0], th_pts[j0 + 2], h, Y[:, :, i], y))
         Y[:, :, N] = y
         F[:, :, N] = rhs(th_pts[2 * N], y, geo_pts[2 * N], open_at[2 * N])
         if cpl is not None:
