@@ -20,13 +20,13 @@ from __future__ import annotations
 import hashlib
 import importlib.util
 import inspect
-import operator
 import os
 import sys
 import textwrap
 import types
 from pathlib import Path
 
+from .kernel_key import _FINGERPRINTS, _fingerprint, _fingerprint_of, _globals_read  # noqa: F401
 from .tableau import CYCLE_TABLEAU, STEP_NAME, stage_name, stage_source, tableau_key
 
 VERSION = "1"
@@ -211,33 +211,6 @@ def _source(fn) -> str:
     if not lines or not lines[0].startswith(f"def {fn.__name__}("):
         raise LoopGenError(f"kernel {fn.__name__}: must be a module-level function (def at column 0)")
     return "\n".join(lines) + "\n"
-
-
-_GLOBAL_NAMES: dict = {}
-
-
-def _globals_read(fn) -> dict:
-    """The module globals the function's code loads (LOAD_GLOBAL, nested code included), by name;
-    builtins (abs, min, ...) are left to numba.  The names are found once per code object, their
-    values read at each call (a changed global is seen)."""
-    names = _GLOBAL_NAMES.get(fn.__code__)
-    if names is None:
-        names = _GLOBAL_NAMES[fn.__code__] = _global_names(fn.__code__)
-    return {n: fn.__globals__[n] for n in names if n in fn.__globals__}
-
-
-def _global_names(code) -> tuple:
-    import dis
-
-    names: set = set()
-    codes = [code]
-    while codes:
-        code = codes.pop()
-        for ins in dis.get_instructions(code):
-            if ins.opname == "LOAD_GLOBAL":
-                names.add(ins.argval)
-        codes += [c for c in code.co_consts if isinstance(c, types.CodeType)]
-    return tuple(sorted(names))
 
 
 def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
@@ -437,24 +410,6 @@ def cache_dir() -> Path:
     return path
 
 
-def _fingerprint(fn, seen=None) -> tuple:
-    """What the generated text depends on, cheaply: the code objects (equal for equal source)
-    and the values of the globals read, of the kernel and of the helpers it calls."""
-    seen = set() if seen is None else seen
-    if fn in seen:
-        return ()
-    seen.add(fn)
-    out: list = [fn.__code__]
-    for name, val in sorted(_globals_read(fn).items()):
-        if isinstance(val, types.FunctionType):
-            out.append((name, _fingerprint(val, seen)))
-        elif isinstance(val, types.ModuleType):
-            out.append((name, val.__name__))
-        else:
-            out.append((name, type(val).__name__, repr(val)))
-    return tuple(out)
-
-
 _generated: dict = {}
 
 
@@ -464,69 +419,6 @@ def _as_parts(parts) -> tuple:
     if isinstance(parts, dict):
         return tuple(Part(role, "kernel", fn, names) for role, (fn, names) in parts.items())
     return tuple(parts)
-
-
-_MISSING = object()
-_IMMUTABLE = (bool, int, float, complex, str, bytes, type(None), types.FunctionType, types.ModuleType)
-_FINGERPRINTS: dict = {}
-""":func:`_fingerprint` by kernel function, with what it was read from (:func:`_reads`): checked
-by identity at each use, so a repeated batch does not read and ``repr`` every global again."""
-
-
-def _reads(fn, seen=None) -> tuple:
-    """What :func:`_fingerprint` of ``fn`` reads: ``(function, code object)`` of the kernel and of
-    every helper it calls, and ``(globals, name, value)`` of every global name their code loads
-    (a name not defined there as ``_MISSING``, so defining it later is seen too)."""
-    seen = set() if seen is None else seen
-    if fn in seen:
-        return ()
-    seen.add(fn)
-    names = _GLOBAL_NAMES.get(fn.__code__)
-    if names is None:
-        names = _GLOBAL_NAMES[fn.__code__] = _global_names(fn.__code__)
-    out: list = [(fn, fn.__code__)]
-    for n in names:
-        val = fn.__globals__.get(n, _MISSING)
-        out.append((fn.__globals__, n, val))
-        if isinstance(val, types.FunctionType):
-            out += _reads(val, seen)
-    return tuple(out)
-
-
-def _unchanged(reads: tuple, texts: tuple) -> bool:
-    """Whether everything in ``reads`` is still what it was: the same code objects, the same
-    objects under the same global names, and for a value that can change in place (anything but
-    numbers, strings, functions, modules and tuples of numbers) the same ``repr`` (``texts``)."""
-    for r, text in zip(reads, texts):
-        if len(r) == 2:
-            if r[0].__code__ is not r[1]:
-                return False
-        elif r[0].get(r[1], _MISSING) is not r[2] or (text is not None and repr(r[2]) != text):
-            return False
-    return True
-
-
-def _mutable_text(r: tuple):
-    if len(r) == 2:
-        return None
-    v = r[2]
-    if v is _MISSING or isinstance(v, _IMMUTABLE):
-        return None
-    if isinstance(v, tuple) and all(isinstance(x, (bool, int, float)) for x in v):
-        return None
-    return repr(v)
-
-
-def _fingerprint_of(fn) -> tuple:
-    """:func:`_fingerprint` of a kernel, remembered while the functions and globals it was made
-    from are unchanged (an edited function, a rebound global, a reloaded module: made again)."""
-    got = _FINGERPRINTS.get(fn)
-    if got is not None and _unchanged(got[0], got[1]):
-        return got[2]
-    reads = _reads(fn)
-    fp = _fingerprint(fn)
-    _FINGERPRINTS[fn] = (reads, tuple(_mutable_text(r) for r in reads), fp)
-    return fp
 
 
 def _memo(parts) -> tuple:
