@@ -20,13 +20,10 @@ TWO = ["simulation.zones=two"]
 METHANE = ["fuel.name=methane"]
 
 
-def _run(config, overrides):
-    return cyclesim.run(config, list(overrides))
-
-
-@pytest.fixture(scope="module")
-def closed_pair():
-    return _run("demo_closed", []), _run("demo_closed", TWO)
+@pytest.fixture
+def closed_pair(shared_runs):
+    """The closed-cycle demo in one zone and in two, run once per session (tests/conftest.py)."""
+    return shared_runs.run("demo_closed"), shared_runs.run("demo_closed", TWO)
 
 
 def _cantera():
@@ -56,10 +53,10 @@ def test_the_key_is_validated_in_one_line():
         cyclesim.load_config("demo_closed", ["simulation.zones=three"])
 
 
-def test_without_a_burn_two_zones_equal_one_zone():
+def test_without_a_burn_two_zones_equal_one_zone(shared_runs):
     # no burn (fuel cut): the cylinder is its unburned zone; within 1e-4 (the issue's check)
-    one = _run("demo_closed", ["operating.fuel_cut=true"])
-    two = _run("demo_closed", ["operating.fuel_cut=true"] + TWO)
+    one = shared_runs.run("demo_closed", ["operating.fuel_cut=true"])
+    two = shared_runs.run("demo_closed", ["operating.fuel_cut=true"] + TWO)
     p1, p2 = one.trace["pressure_bar"], two.trace["pressure_bar"]
     assert np.max(np.abs(p2 - p1) / p1) < 1e-4
     assert np.max(np.abs(two.trace["unburned_temperature_K"] / one.trace["temperature_K"] - 1.0)) < 1e-4
@@ -155,12 +152,12 @@ def test_constant_volume_complete_burn_gives_cantera_uv_state():
         assert p_x[0] == pytest.approx(gri.P, rel=2e-3)
 
 
-def test_unburned_zone_follows_cantera_isentrope_without_heat():
+def test_unburned_zone_follows_cantera_isentrope_without_heat(shared_runs):
     # no wall heat and no blowby: the unburned zone (methane-air with 6 % residual as frozen complete
     # products) follows Cantera's isentrope (GRI-Mech 3.0, gri.SP) from IVC to the end of the burn,
     # within 1 K (the 5 K entropy-table step and the explicit step)
     gri = _cantera()
-    r = _run("demo_closed", METHANE + TWO + ["heat_transfer.model=none", "blowby.model=none"])
+    r = shared_runs.run("demo_closed", METHANE + TWO + ["heat_transfer.model=none", "blowby.model=none"])
     tr = r.trace
     Tu, p = tr["unburned_temperature_K"], tr["pressure_bar"] * 1e5
     m = tr["mass_mg"] * 1e-6
@@ -183,12 +180,12 @@ def test_wall_heat_cools_the_unburned_zone(closed_pair):
     assert np.min(tr["zones.s_u"]) < 0.0
 
 
-def test_knock_integral_uses_the_unburned_zone_temperature():
+def test_knock_integral_uses_the_unburned_zone_temperature(shared_runs):
     # the knock integral of a two-zone run is the integral of 1/tau (Douaud & Eyzat 1978, the kernel's
     # own correlation) at the trace's p and T_u: within 1 % (the trapezoidal rule on the output grid)
     from cyclesim_plugins import knock as kn
 
-    r = _run("demo_turbo", TWO + ["simulation.mode=closed", "knock.model=livengood_wu"])
+    r = shared_runs.run("demo_turbo", TWO + ["simulation.mode=closed", "knock.model=livengood_wu"])
     tr = r.trace
     th = tr["crank_deg"]
     p, Tu, xb = tr["pressure_bar"] * 1e5, tr["unburned_temperature_K"], tr["mfb"]
@@ -211,8 +208,8 @@ def test_knock_integral_uses_the_unburned_zone_temperature():
 def test_mass_and_energy_close_over_operating_points(spark, lam, p_ivc, speed):
     # the first law holds for every drawn point (energy closure as in one zone, about 1e-5 of the
     # released heat), the zones never hold more than the cylinder, and nothing is NaN where they live
-    r = _run("demo_closed", TWO + [f"burn.spark_advance_deg={spark}", f"operating.lambda={lam}",
-                                   f"operating.ivc_pressure_bar={p_ivc}", f"operating.speed_rpm={speed}"])
+    r = cyclesim.run("demo_closed", TWO + [f"burn.spark_advance_deg={spark}", f"operating.lambda={lam}",
+                                           f"operating.ivc_pressure_bar={p_ivc}", f"operating.speed_rpm={speed}"])
     assert r.error is None
     eb = r.summary["energy_balance"]
     assert abs(eb["closure_fraction"]) < 1e-4
@@ -247,10 +244,19 @@ def test_entrainment_flame_wets_the_walls_it_reaches():
         assert np.all(np.diff(shares) >= -1e-9)
 
 
-def test_entrainment_burn_runs_with_two_zones():
+def test_entrainment_burn_runs_with_two_zones(shared_runs):
     # the flame-geometry split of the wall heat in the running cycle: energy closes, zones finite
-    r = _run("demo_closed", TWO + ["burn.model=entrainment", "simulation.step_deg=1.0"])
+    r = shared_runs.run("demo_closed", TWO + ["burn.model=entrainment", "simulation.step_deg=1.0"])
     assert abs(r.summary["energy_balance"]["closure_fraction"]) < 1e-4
     x = r.trace["zones.m_bz"] / (r.trace["mass_mg"] * 1e-6)
     live = (x > zones.X_BIRTH) & (x < zones.X_MERGE)
     assert live.sum() > 20 and np.all(np.isfinite(r.trace["burned_temperature_K"][live]))
+
+
+def test_shared_runs_are_made_once(shared_runs, closed_pair):
+    # the session's runs (tests/conftest.py SharedRuns) are made once: asking again returns the same
+    # result without a new simulation
+    made = shared_runs.made
+    assert shared_runs.run("demo_closed", TWO) is closed_pair[1]
+    assert shared_runs.run("demo_closed") is closed_pair[0]
+    assert shared_runs.made == made
