@@ -41,10 +41,6 @@ def hermite(theta: np.ndarray, Yr: np.ndarray, Fr: np.ndarray, at) -> np.ndarray
     return h00 * Yr[r, i] + h10h * Fr[r, i] + h01 * Yr[r, i + 1] + h11h * Fr[r, i + 1]
 
 
-def _interp_at(theta, Yr, Fr, at):
-    return hermite(theta, Yr, Fr, np.asarray(at, float))
-
-
 def hermite_grid(theta: np.ndarray, Yr: np.ndarray, Fr: np.ndarray, grid: np.ndarray,
                  derivative: bool = False) -> np.ndarray:
     """Hermite interpolation of a row (B, N+1) onto a common grid (n,) -> (B, n).
