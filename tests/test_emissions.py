@@ -20,23 +20,17 @@ from cyclesim_plugins import emissions as em
 ON = ["emissions.model=zeldovich_no"]
 
 
-def _batch(overrides_list):
-    """Run cases in one batch; return (results, the batch's emissions model)."""
-    from cyclesim.api import results_from_trace
-    from cyclesim.solve.batch import build_batch
-    from cyclesim.registry import get_registry
-    from cyclesim.solve.solver import integrate
-
-    cases = [cyclesim.load_config("demo", ON + list(o)) for o in overrides_list]
-    reg = get_registry(())
-    batch = build_batch(cases, reg)
-    res = results_from_trace(batch, integrate(batch), reg)
-    return res, batch.models["emissions"]
+def _batch(shared_runs, overrides_list):
+    """Demo cases with NO on, run once per session as one batch (tests/conftest.py SharedRuns);
+    return (results, the batch's emissions model)."""
+    res, models = shared_runs.batch("demo", [ON + list(o) for o in overrides_list])
+    return res, models["emissions"]
 
 
-@pytest.fixture(scope="module")
-def demo():
-    return _batch([[]])
+@pytest.fixture
+def demo(shared_runs):
+    """The demo with NO on: (results, its emissions model), shared by the tests that read it."""
+    return _batch(shared_runs, [[]])
 
 
 def test_demo_default_is_zeldovich_and_none_adds_nothing():
@@ -110,14 +104,14 @@ def test_flame_temperature_matches_cantera_hp_equilibrium():
         assert Tad == pytest.approx(gri.T, abs=5.0)
 
 
-def test_no_converges_with_element_count(demo):
+def test_no_converges_with_element_count(demo, shared_runs):
     # NO changes by less than 2 % from 20 to 40 burned-mass elements (the issue's check)
     (r20,), _ = demo
-    (r40,), _ = _batch([["emissions.count=40"]])
+    (r40,), _ = _batch(shared_runs, [["emissions.count=40"]])
     assert r40.summary["no_ppm_wet"] == pytest.approx(r20.summary["no_ppm_wet"], rel=0.02)
 
 
-def test_no_trends_lambda_spark_egr():
+def test_no_trends_lambda_spark_egr(shared_runs):
     # NO peaks slightly lean of stoichiometric and falls with spark retard and with EGR
     # (Heywood 1988, figs. 11-7 to 11-9; from memory)
     lams = [0.85, 0.95, 1.0, 1.05, 1.1, 1.2, 1.3]
@@ -125,7 +119,7 @@ def test_no_trends_lambda_spark_egr():
     egrs = [0.0, 0.1, 0.2]
     ovs = ([[f"operating.lambda={v}"] for v in lams] + [[f"burn.spark_advance_deg={a}"] for a in sparks]
            + [[f"operating.egr_fraction={e}"] for e in egrs])
-    res, _ = _batch(ovs)
+    res, _ = _batch(shared_runs, ovs)
     no = [r.summary["no_ppm_wet"] for r in res]
     by_lam = no[:len(lams)]
     by_spark = no[len(lams):len(lams) + len(sparks)]
@@ -229,10 +223,11 @@ def test_air_standard_gas_runs_without_no_and_says_so():
     assert any("no equilibrium products" in w for w in r.warnings)
 
 
-def test_complete_combustion_gas_is_warned_for_no():
+def test_complete_combustion_gas_is_warned_for_no(demo):
     r = cyclesim.run("demo", ON + ["gas.burned_gas=complete"])
     assert any("no dissociation" in w for w in r.warnings)
-    assert not any("no dissociation" in w for w in cyclesim.run("demo", ON).warnings)
+    (plain,), _ = demo
+    assert not any("no dissociation" in w for w in plain.warnings)
 
 
 def test_zone_step_is_replaceable(demo):
@@ -243,6 +238,7 @@ def test_zone_step_is_replaceable(demo):
     base = model.emissions(trace, {"bmep_bar": np.array([r.summary["bmep_bar"]])}).figures["no_ppm_wet"][0]
     assert base == pytest.approx(r.summary["no_ppm_wet"], rel=1e-9)
     own = model.zone_history
+    record = model.last_zones, model.last_elements, model.last_no     # the shared run's, restored below
 
     def hotter(tr, idx):
         z0 = own(tr, idx)
@@ -252,15 +248,16 @@ def test_zone_step_is_replaceable(demo):
         more = model.emissions(trace, {"bmep_bar": np.array([r.summary["bmep_bar"]])}).figures["no_ppm_wet"][0]
     finally:
         del model.zone_history
+        model.last_zones, model.last_elements, model.last_no = record
     assert more > 1.1 * base
 
 
-def test_unburned_zone_follows_cantera_isentrope_without_wall_heat():
+def test_unburned_zone_follows_cantera_isentrope_without_wall_heat(shared_runs):
     # with no wall heat and no blowby the unburned zone (methane-air with its residual) follows its
     # isentrope: against Cantera's (GRI-Mech 3.0; the residual as complete-combustion products,
     # frozen) from the start of the burn to EVO within 0.5 K (measured 0.21 K: the explicit step)
     ct = pytest.importorskip("cantera")
-    _, model = _batch([["fuel.name=methane", "heat_transfer.model=none", "blowby.model=none"]])
+    _, model = _batch(shared_runs, [["fuel.name=methane", "heat_transfer.model=none", "blowby.model=none"]])
     zn = model.last_zones
     fuel = BUILTIN_FUELS["methane"]
     fresh = thermo.fresh_charge(fuel, 1.0)
@@ -285,17 +282,17 @@ def test_unburned_zone_follows_cantera_isentrope_without_wall_heat():
     assert worst < 0.5
 
 
-def test_element_heat_loss_is_the_burned_zones_share_of_the_wall_heat():
+def test_element_heat_loss_is_the_burned_zones_share_of_the_wall_heat(demo, shared_runs):
     # the energy the elements give up is the burned zone's wall heat: with no wall heat it is
     # nearly none; what is left is the elements' and the zone's different volume work (elements of
     # spread temperatures at one pressure and the zone's mean energy fill slightly different volumes;
     # measured 0.4 % of the fuel energy over the expansion).  With Woschni's the two zones' heat adds
     # up to the trace's wall heat over the resolved burn and expansion
-    res, model = _batch([["heat_transfer.model=none"]])
+    res, model = _batch(shared_runs, [["heat_transfer.model=none"]])
     zn, el = model.last_zones, model.last_elements
     fuel_J = res[0].summary["fuel_energy_J"]
     assert abs(el.Q[0, -1]) < 0.006 * fuel_J
-    (r,), model = _batch([[]])
+    (r,), model = demo
     zn, el = model.last_zones, model.last_elements
     j0 = int(np.argmax(np.isfinite(zn.U_b[0])))
     idx = model.window({k: np.asarray(v)[None, :] for k, v in r.trace.items()})

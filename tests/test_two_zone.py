@@ -55,9 +55,10 @@ def _figures(summary, prefix=""):
     return out
 
 
-@pytest.fixture(scope="module")
-def closed_pair():
-    return _run("demo_closed", []), _run("demo_closed", TWO)
+@pytest.fixture
+def closed_pair(shared_runs):
+    """The closed-cycle demo in one zone and in two, run once per session (tests/conftest.py)."""
+    return shared_runs.run("demo_closed"), shared_runs.run("demo_closed", TWO)
 
 
 def _cantera():
@@ -273,8 +274,8 @@ def test_knock_integral_uses_the_unburned_zone_temperature(monkeypatch, loop):
 def test_mass_and_energy_close_over_operating_points(spark, lam, p_ivc, speed):
     # the first law holds for every drawn point (energy closure as in one zone, about 1e-5 of the
     # released heat), the zones never hold more than the cylinder, and nothing is NaN where they live
-    r = _run("demo_closed", TWO + [f"burn.spark_advance_deg={spark}", f"operating.lambda={lam}",
-                                   f"operating.ivc_pressure_bar={p_ivc}", f"operating.speed_rpm={speed}"])
+    r = cyclesim.run("demo_closed", TWO + [f"burn.spark_advance_deg={spark}", f"operating.lambda={lam}",
+                                           f"operating.ivc_pressure_bar={p_ivc}", f"operating.speed_rpm={speed}"])
     assert r.error is None
     eb = r.summary["energy_balance"]
     assert abs(eb["closure_fraction"]) < 1e-4
@@ -309,10 +310,19 @@ def test_entrainment_flame_wets_the_walls_it_reaches():
         assert np.all(np.diff(shares) >= -1e-9)
 
 
-def test_entrainment_burn_runs_with_two_zones():
+def test_entrainment_burn_runs_with_two_zones(shared_runs):
     # the flame-geometry split of the wall heat in the running cycle: energy closes, zones finite
-    r = _run("demo_closed", TWO + ["burn.model=entrainment", "simulation.step_deg=1.0"])
+    r = shared_runs.run("demo_closed", TWO + ["burn.model=entrainment", "simulation.step_deg=1.0"])
     assert abs(r.summary["energy_balance"]["closure_fraction"]) < 1e-4
     x = r.trace["zones.m_bz"] / (r.trace["mass_mg"] * 1e-6)
     live = (x > zones.X_BIRTH) & (x < zones.X_MERGE)
     assert live.sum() > 20 and np.all(np.isfinite(r.trace["burned_temperature_K"][live]))
+
+
+def test_shared_runs_are_made_once(shared_runs, closed_pair):
+    # the session's runs (tests/conftest.py SharedRuns) are made once: asking again returns the same
+    # result without a new simulation
+    made = shared_runs.made
+    assert shared_runs.run("demo_closed", TWO) is closed_pair[1]
+    assert shared_runs.run("demo_closed") is closed_pair[0]
+    assert shared_runs.made == made

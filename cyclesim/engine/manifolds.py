@@ -6,6 +6,8 @@ import math
 
 import numpy as np
 
+from ..cylinder.flow import DP_LIN_DEFAULT
+from ..loops import filling
 from .setup import throttle_area
 
 
@@ -78,33 +80,14 @@ class _Manifolds:
 
     def q_throttle_rows(self, p, rows):
         """Throttle flow [kg/deg] of some engines (``rows`` a slice) at pressure p."""
-        from ..cylinder.flow import orifice_mass_flow
-
-        return orifice_mass_flow(self.A_thr[rows], self.p_sup[rows], self.T_amb[rows], R_AIR, GAMMA_AIR,
-                                 p, self.T_int[rows], R_AIR, GAMMA_AIR) / self.omega[rows]
+        return filling.boundary_flow(True, self.A_thr[rows], p, self.T_int[rows], R_AIR, GAMMA_AIR, self.p_sup[rows],
+                                     self.T_amb[rows], R_AIR, GAMMA_AIR, self.omega[rows], DP_LIN_DEFAULT)
 
     def q_outlet_rows(self, p, rows):
         """Exhaust outlet flow [kg/deg] of some exhaust branches (``rows``) at pressure p."""
-        from ..cylinder.flow import orifice_mass_flow
-
-        return orifice_mass_flow(self.A_out[rows], p, self.T_exh_x[rows], self.R_exh_x[rows], GAMMA_EXHAUST,
-                                 self.p_amb_x[rows], self.T_amb_x[rows], R_AIR, GAMMA_AIR) / self.omega_x[rows]
-
-    def _lap(self, p0, f):
-        """One implicit-Euler lap over 720 deg from p0; f(j, p) -> (rate, d rate/dp)."""
-        p = p0.copy()
-        out = np.empty((p.size, self.n + 1))
-        out[:, 0] = p
-        for j in range(self.n):
-            x = p.copy()
-            for _ in range(2):
-                r, dr = f(j, x)
-                g = x - p - self.h * r
-                x = x - g / (1.0 - self.h * dr)
-                x = np.maximum(x, 1e3)
-            p = x
-            out[:, j + 1] = p
-        return out
+        return filling.boundary_flow(False, self.A_out[rows], p, self.T_exh_x[rows], self.R_exh_x[rows],
+                                     GAMMA_EXHAUST, self.p_amb_x[rows], self.T_amb_x[rows], R_AIR, GAMMA_AIR,
+                                     self.omega_x[rows], DP_LIN_DEFAULT)
 
     def _periodic(self, p0, lap, tol=1e-7, laps=4):
         """Periodic solution p(phi) by secant iteration on the start value; ``lap(p0)`` -> one lap."""
@@ -127,46 +110,32 @@ class _Manifolds:
 
     def solve(self, Qi, pref_i, Qe, p0_i, p0_e):
         """Periodic manifold pressures [Pa]: intake (E, n+1) and exhaust branches (X, n+1), for the
-        cylinder flows per interval [kg/deg]: ``Qi`` (E, n), ``Qe`` (X, n)."""
-        ki = self.R_int * self.T_int / self.V_i
-        ke = self.R_exh_x * self.T_exh_x / self.V_e
-        dp = 1.0
+        cylinder flows per interval [kg/deg]: ``Qi`` (E, n), ``Qe`` (X, n).
+
+        The laps are :func:`cyclesim.loops.filling.lap`, compiled where kernels compile (one call
+        per lap), else run on the rows' arrays."""
         import cyclesim.solve.kernel as kernel
 
         mod = kernel.compiled_module()
-        if mod is not None:
-            # the same laps in compiled form (cyclesim.loops._compiled), one Python call per lap
-            from ..cylinder.flow import DP_LIN_DEFAULT
+        run_lap = filling.lap if mod is None else mod.manifold_lap
+        f64 = lambda a: np.ascontiguousarray(a, dtype=float)  # noqa: E731
+        ki = f64(self.R_int * self.T_int / self.V_i)
+        ke = f64(self.R_exh_x * self.T_exh_x / self.V_e)
+        Qi_, pr_, Qe_ = f64(Qi), f64(pref_i), f64(Qe)
+        R_int = np.full(self.E, R_AIR)
+        dp = 1.0
 
-            f64 = lambda a: np.ascontiguousarray(a, dtype=float)  # noqa: E731
-            Qi_, pr_, Qe_ = f64(Qi), f64(pref_i), f64(Qe)
-            R_int = np.full(self.E, R_AIR)
+        def lap_i(p0):      # the throttle fills the manifold with air from the supply
+            return run_lap(f64(p0), self.h, ki, f64(self.A_thr), f64(self.T_int), R_int, GAMMA_AIR,
+                           f64(self.p_sup), f64(self.T_amb), R_AIR, GAMMA_AIR, f64(self.omega), Qi_, pr_, True,
+                           dp, DP_LIN_DEFAULT)
 
-            def lap_i(p0):      # the throttle fills the manifold with air from ambient
-                return mod.manifold_lap(f64(p0), self.h, f64(ki), f64(self.A_thr), f64(self.T_int), R_int,
-                                        GAMMA_AIR, f64(self.p_sup), f64(self.T_amb), R_AIR, GAMMA_AIR,
-                                        f64(self.omega), Qi_, pr_, True, dp, DP_LIN_DEFAULT)
+        def lap_e(p0):      # the outlet empties the branch to ambient (no reference pressure)
+            return run_lap(f64(p0), self.h, ke, f64(self.A_out), f64(self.T_exh_x), f64(self.R_exh_x),
+                           GAMMA_EXHAUST, f64(self.p_amb_x), f64(self.T_amb_x), R_AIR, GAMMA_AIR,
+                           f64(self.omega_x), Qe_, Qe_, False, dp, DP_LIN_DEFAULT)
 
-            def lap_e(p0):      # the outlet empties the branch to ambient (no reference pressure)
-                return mod.manifold_lap(f64(p0), self.h, f64(ke), f64(self.A_out), f64(self.T_exh_x),
-                                        f64(self.R_exh_x), GAMMA_EXHAUST, f64(self.p_amb_x), f64(self.T_amb_x),
-                                        R_AIR, GAMMA_AIR, f64(self.omega_x), Qe_, Qe_, False, dp, DP_LIN_DEFAULT)
-
-            return self._periodic(p0_i, lap_i), self._periodic(p0_e, lap_e)
-
-        def fi(j, p):
-            q = self.q_throttle(p)
-            dq = (self.q_throttle(p + dp) - q) / dp
-            pr = pref_i[:, j]
-            return ki * (q - Qi[:, j] * p / pr), ki * (dq - Qi[:, j] / pr)
-
-        def fe(j, p):
-            q = self.q_outlet(p)
-            dq = (self.q_outlet(p + dp) - q) / dp
-            return ke * (Qe[:, j] - q), -ke * dq
-
-        return (self._periodic(p0_i, lambda p0: self._lap(p0, fi)),
-                self._periodic(p0_e, lambda p0: self._lap(p0, fe)))
+        return self._periodic(p0_i, lap_i), self._periodic(p0_e, lap_e)
 
 
 def _periodic_interp(x_new, x, y):

@@ -21,6 +21,7 @@ import numpy as np
 from numba import njit
 
 import cyclesim.kernel_ops as _kernel_ops
+import cyclesim.loops.filling as _filling
 from .layout import CORE_ROWS as _S
 from . import zone_solve as _zone_solve
 from .layout import block_rows, param_rows
@@ -351,48 +352,12 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1, pi
                             yv[k] = reset[1 + b, k]
 
 
-# -- the multi-cylinder engine's manifolds (cyclesim.engine._Manifolds) ---------------
+# -- the multi-cylinder engine's manifolds (cyclesim.engine.manifolds) ---------------
 
-
-@njit(cache=True, error_model="numpy")
-def manifold_lap(p0, h, k, A, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, Q, pref, intake, dp, dp_lin):
-    """One implicit-Euler lap of manifold pressures (rows), as _Manifolds._lap.
-
-    ``intake``: the throttle fills the manifold from ambient and the cylinders draw ``Q x / pref``;
-    else the cylinders fill it with ``Q`` and the outlet empties it to ambient.  Two Newton passes
-    per step on ``x - p - h r(x)``, the slope of the orifice flow by a difference of ``dp``.
-    """
-    E = p0.shape[0]
-    n = Q.shape[1]
-    out = np.empty((E, n + 1))
-    for e in range(E):
-        p = p0[e]
-        out[e, 0] = p
-        for j in range(n):
-            x = p
-            for _ in range(2):
-                if intake:
-                    q = _orifice(A[e], p_amb[e], T_amb[e], R_amb, g_amb, x, T_m[e], R_m[e], g_m,
-                                 dp_lin) / omega[e]
-                    q2 = _orifice(A[e], p_amb[e], T_amb[e], R_amb, g_amb, x + dp, T_m[e], R_m[e], g_m,
-                                  dp_lin) / omega[e]
-                    dq = (q2 - q) / dp
-                    pr = pref[e, j]
-                    r = k[e] * (q - Q[e, j] * x / pr)
-                    dr = k[e] * (dq - Q[e, j] / pr)
-                else:
-                    q = _orifice(A[e], x, T_m[e], R_m[e], g_m, p_amb[e], T_amb[e], R_amb, g_amb,
-                                 dp_lin) / omega[e]
-                    q2 = _orifice(A[e], x + dp, T_m[e], R_m[e], g_m, p_amb[e], T_amb[e], R_amb, g_amb,
-                                  dp_lin) / omega[e]
-                    dq = (q2 - q) / dp
-                    r = k[e] * (Q[e, j] - q)
-                    dr = -k[e] * dq
-                gx = x - p - h * r
-                x = max(x - gx / (1.0 - h * dr), 1e3)
-            p = x
-            out[e, j + 1] = p
-    return out
+_filling.register_compiled()
+manifold_lap = njit(cache=True, error_model="numpy")(_filling.lap)
+"""One implicit-Euler lap of manifold pressures (rows): :func:`cyclesim.loops.filling.lap`, its one
+source, compiled (numba keys its cache on that function's own file)."""
 
 
 # -- gas properties at many points (post-processing and the trace analyser) ------------

@@ -25,20 +25,20 @@ def interval_of(theta: np.ndarray, at) -> tuple[np.ndarray, np.ndarray, np.ndarr
     return i, h, (a - theta[i]) / h
 
 
+def basis(h, t):
+    """The cubic Hermite basis in an interval of width ``h`` [deg] at local coordinate ``t`` (0..1):
+    ``(h00, h10 h, h01, h11 h)``, the weights of the start value, start slope, end value and end
+    slope (Press et al. 2007, Numerical Recipes, 3rd ed., sec. 3.5); every interpolant here uses it."""
+    return (2 * t**3 - 3 * t**2 + 1, (t**3 - 2 * t**2 + t) * h, -2 * t**3 + 3 * t**2, (t**3 - t**2) * h)
+
+
 def hermite(theta: np.ndarray, Yr: np.ndarray, Fr: np.ndarray, at) -> np.ndarray:
     """Cubic Hermite interpolation of one state row (B, N+1) at per-case angles ``at`` (B,)."""
     a = np.asarray(at, float) * np.ones(Yr.shape[0])
     i, h, t = interval_of(theta, a)
-    h00 = 2 * t**3 - 3 * t**2 + 1
-    h10 = t**3 - 2 * t**2 + t
-    h01 = -2 * t**3 + 3 * t**2
-    h11 = t**3 - t**2
+    h00, h10h, h01, h11h = basis(h, t)
     r = np.arange(Yr.shape[0])
-    return h00 * Yr[r, i] + h10 * h * Fr[r, i] + h01 * Yr[r, i + 1] + h11 * h * Fr[r, i + 1]
-
-
-def _interp_at(theta, Yr, Fr, at):
-    return hermite(theta, Yr, Fr, np.asarray(at, float))
+    return h00 * Yr[r, i] + h10h * Fr[r, i] + h01 * Yr[r, i + 1] + h11h * Fr[r, i + 1]
 
 
 def hermite_grid(theta: np.ndarray, Yr: np.ndarray, Fr: np.ndarray, grid: np.ndarray,
@@ -54,11 +54,8 @@ def hermite_grid(theta: np.ndarray, Yr: np.ndarray, Fr: np.ndarray, grid: np.nda
         d01 = (-6 * t**2 + 6 * t) / h
         d11 = 3 * t**2 - 2 * t
         return d00 * Yr[:, i] + d10 * Fr[:, i] + d01 * Yr[:, i + 1] + d11 * Fr[:, i + 1]
-    h00 = 2 * t**3 - 3 * t**2 + 1
-    h10 = t**3 - 2 * t**2 + t
-    h01 = -2 * t**3 + 3 * t**2
-    h11 = t**3 - t**2
-    return h00 * Yr[:, i] + h10 * h * Fr[:, i] + h01 * Yr[:, i + 1] + h11 * h * Fr[:, i + 1]
+    h00, h10h, h01, h11h = basis(h, t)
+    return h00 * Yr[:, i] + h10h * Fr[:, i] + h01 * Yr[:, i + 1] + h11h * Fr[:, i + 1]
 
 
 def is_uniform(theta: np.ndarray) -> bool:
@@ -80,10 +77,7 @@ class HermiteBasis:
         i, h, t = interval_of(theta, np.asarray(grid, float))
         self.n = t.size
         self.i, self.i1 = i, i + 1
-        self.h00 = 2 * t**3 - 3 * t**2 + 1
-        self.h10h = (t**3 - 2 * t**2 + t) * h
-        self.h01 = -2 * t**3 + 3 * t**2
-        self.h11h = (t**3 - t**2) * h
+        self.h00, self.h10h, self.h01, self.h11h = basis(h, t)
         self._tmp = np.empty(t.size)
         self.grid = np.asarray(grid, float)
         self.theta = np.asarray(theta, float)
