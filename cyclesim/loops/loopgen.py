@@ -213,38 +213,96 @@ def _source(fn) -> str:
     return "\n".join(lines) + "\n"
 
 
-def _collect(fn, funcs: dict, consts: dict, imports: dict) -> None:
-    """The function's source, the functions it calls and the globals it reads, recursively."""
+def _collect(fn, funcs: dict, consts: dict, imports: dict, taken=frozenset()) -> str:
+    """The function's source, the functions it calls and the globals it reads, recursively; returns
+    the function's name in the generated loop.
+
+    All kernels and helpers share the generated loop's one namespace.  Two different functions of
+    one name (two plug-ins' helpers called ``interp``), or two constants of one name and different
+    values, would otherwise collide: the later one is written under a free name (``interp_2``) and
+    the source of every function that reads it is rewritten to call it by that name.  Sources with
+    no collision are written as they are.  ``taken``: names the loop itself defines."""
     import cyclesim.kernel_ops as kernel_ops
+    import cyclesim.loops._compiled as base
 
     from . import zone_solve
 
-    if fn.__name__ in funcs:
-        if funcs[fn.__name__][0] is not fn:
-            raise LoopGenError(f"two kernel helpers are named {fn.__name__!r}")
-        return
+    own = vars(base)
+    for gen, (known, _) in funcs.items():
+        if known is fn:
+            return gen
     if fn.__code__.co_freevars:
         raise LoopGenError(f"kernel {fn.__name__}: reads variables of an enclosing function "
                            f"({', '.join(fn.__code__.co_freevars)}); use module-level names")
-    funcs[fn.__name__] = (fn, _source(fn))
+
+    def free(name):
+        gen, k = name, 1
+        while gen in funcs or gen in consts or gen in imports or gen in taken:
+            k += 1
+            gen = f"{name}_{k}"
+        return gen
+
+    me = free(fn.__name__)
+    funcs[me] = (fn, None)              # seen (a recursive call finds it); the source follows
+    renames = {}
     for name, val in sorted(_globals_read(fn).items()):
         if isinstance(val, types.ModuleType):
             if val.__name__ not in ("numpy", "math"):
                 raise LoopGenError(f"kernel {fn.__name__}: reads module {val.__name__!r}; only numpy and math compile")
-            imports[name] = val.__name__
+            target = val.__name__
         elif val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above, kernel_ops.where_lazy):
-            imports[name] = f"cyclesim.kernel_ops.{val.__name__}"
+            target = f"cyclesim.kernel_ops.{val.__name__}"
         elif val in zone_solve.OVERLOADED:
-            imports[name] = f"cyclesim.loops.zone_solve.{val.__name__}"     # compiled by overload
+            target = f"cyclesim.loops.zone_solve.{val.__name__}"     # compiled by overload
         elif isinstance(val, types.FunctionType):
-            _collect(val, funcs, consts, imports)
-        elif isinstance(val, (bool, int, float)) and not isinstance(val, type):
-            consts[name] = repr(val)
-        elif isinstance(val, tuple) and all(isinstance(v, (int, float)) for v in val):
-            consts[name] = repr(val)
+            gen = _collect(val, funcs, consts, imports, taken)
+            if gen != name:
+                renames[name] = gen
+            continue
+        elif (isinstance(val, (bool, int, float)) and not isinstance(val, type)) or (
+                isinstance(val, tuple) and all(isinstance(v, (int, float)) for v in val)):
+            text = repr(val)
+            if name in own and isinstance(own[name], (int, float, tuple)) and repr(own[name]) == text:
+                continue                # the loop's module defines it alike (CYCLE_END_DEG)
+            gen = name if consts.get(name) == text else next(
+                (n for n, v in consts.items() if v == text and (n == name or n.startswith(name + "_"))), None)
+            if gen is None:
+                gen = free(name)
+                consts[gen] = text
+            if gen != name:
+                renames[name] = gen
+            continue
         else:
             raise LoopGenError(f"kernel {fn.__name__}: reads global {name!r} of type {type(val).__name__}"
                                " (only numbers, tuples of numbers, numpy, math and plain functions compile)")
+        if name in own and getattr(own[name], "__name__", None) == target:
+            imports[name] = target
+            continue
+        gen = name if imports.get(name) == target else next(
+            (n for n, t in imports.items() if t == target and n.startswith(name + "_")), None)
+        if gen is None:
+            gen = free(name)
+            imports[gen] = target
+        if gen != name:
+            renames[name] = gen
+    src = _source(fn)
+    if me != fn.__name__ or renames:
+        src = _renamed(src, fn.__name__, me, renames)
+    funcs[me] = (fn, src)
+    return me
+
+
+def _renamed(src: str, name: str, new_name: str, renames: dict) -> str:
+    """``src`` (one function) defined as ``new_name`` and reading the globals ``renames`` names
+    under their new names (each is a global throughout the function: Python's scoping)."""
+    import ast
+
+    tree = ast.parse(src)
+    tree.body[0].name = new_name
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Name) and node.id in renames:
+            node.id = renames[node.id]
+    return ast.unparse(tree) + "\n"
 
 
 INLINE_MAX_ARGS = 28
@@ -325,7 +383,8 @@ def param_rows_for(role: str, parts, forms_rows: dict, form: str = "kernel") -> 
     return {n: slots[k] for k, n in enumerate(names)}
 
 
-def _call(part: Part, rows: dict[str, int], shared: dict | None = None) -> str:
+def _call(part: Part, rows: dict[str, int], shared: dict | None = None, name: str | None = None) -> str:
+    """The call of the part's function (by ``name`` in the generated loop, its own by default)."""
     own = dict(part.own)
     args = []
     for a in kernel_args(part.fn):
@@ -340,7 +399,7 @@ def _call(part: Part, rows: dict[str, int], shared: dict | None = None) -> str:
             args.append(WALL_SHARE_ARGS[a])
         else:
             args.append(STATE_ARGS[a])
-    return f"{part.fn.__name__}({', '.join(args)})"
+    return f"{name or part.fn.__name__}({', '.join(args)})"
 
 
 ZONE_SOLVE_MARKER = "    T_u = 0.0  # ZONE SOLVE"
@@ -356,7 +415,7 @@ def zone_functions() -> tuple:
     return (zs.cylinder_zones, zs.zone_rates, zs.burned_volume, zs.unburned_R)
 
 
-def _zone_lines(part: Part, table: int, wall: str | None) -> tuple[str, str]:
+def _zone_lines(part: Part, table: int, wall: str | None, name: str | None = None) -> tuple[str, str]:
     """The two-zone loop's lines: the solve (after the one-zone mixture; its pressure then is the
     zones') and the rates of the zone states (after the first law).  ``table``: the index of the
     zones' entropy tables among the loop's batch-wide arrays (phi_f, then phi_r); ``wall``: the
@@ -369,7 +428,7 @@ def _zone_lines(part: Part, table: int, wall: str | None) -> tuple[str, str]:
             " CB[R_ZONE_DT, b], CB[R_ZONE_N, b], CB[R_ZONE_RF, b], CB[R_ZONE_RR, b]")
     solve = [f"    m_bz = yv[{r_m}]",
              f"    s_u = yv[{r_s}]",
-             f"    p, T_u, T_b, y_u, active, born = {part.fn.__name__}({gas}, {tabs}, m, V, m * u, mb, m_bz, s_u,"
+             f"    p, T_u, T_b, y_u, active, born = {name or part.fn.__name__}({gas}, {tabs}, m, V, m * u, mb, m_bz, s_u,"
              " p, T, CB[R_IVC_T, b], CB[R_IVC_P, b], closed)",
              "    h = where(active, u + p / rho, h)"]
     rates = []
@@ -383,11 +442,12 @@ def _zone_lines(part: Part, table: int, wall: str | None) -> tuple[str, str]:
     return "\n".join(solve), "\n".join(rates)
 
 
-def _state_lines(k: int, part: Part, rows: dict[str, int], shared: dict | None = None) -> list[str]:
+def _state_lines(k: int, part: Part, rows: dict[str, int], shared: dict | None = None,
+                 name: str | None = None) -> list[str]:
     """The loop's lines for a state kernel: its call, each result times dt into its row."""
     out = part.out
     names = [f"_sd{k}_{j}" for j in range(len(out))]
-    lines = [f"    {', '.join(names)} = {_call(part, rows, shared)}"]
+    lines = [f"    {', '.join(names)} = {_call(part, rows, shared, name)}"]
     lines += [f"    out[{r}] = {n} * dt" for n, r in zip(names, out)]
     return lines
 
@@ -548,29 +608,35 @@ def _generate(parts: tuple, forms: dict, tableau=None, runner_step=None) -> tupl
     rows = {role: param_rows_for(role, parts, base.PARAM_ROWS, forms.get(role, "kernel"))
             for role in dict.fromkeys(p.role for p in parts if p.kind != "zones")}
     shared = shared_slots(parts)
-    for fn in template_functions():
-        _collect(fn, funcs, consts, imports)
+    tableau = CYCLE_TABLEAU if tableau is None else tableau
+    rk_names = [stage_name(st) for st in range(1, tableau.stages)] + [STEP_NAME]
+    own = vars(base)
+    taken = {n for n, v in own.items() if not isinstance(v, types.ModuleType)} | set(rk_names)
+    # the functions the loop calls by their own names come first, so that they keep them
+    fixed = list(template_functions())
+    if any(p.kind == "zones" for p in parts):
+        fixed += zone_functions()
+    if any("wall_heat_flow(" in KERNEL_SITES.get((p.role, p.kind), "") for p in parts):
+        from ..kernel_ops import wall_heat_flow
+
+        fixed.append(wall_heat_flow)
+    for fn in fixed:
+        if _collect(fn, funcs, consts, imports, taken) != fn.__name__:
+            raise LoopGenError(f"the compiled loop's own function {fn.__name__!r} clashes with one of its names")
     zone_part = wall = None
     for k, part in enumerate(parts):
-        _collect(part.fn, funcs, consts, imports)
+        name = _collect(part.fn, funcs, consts, imports, taken)
         if part.kind == "zones":
-            zone_part = part
-            for fn in zone_functions():
-                _collect(fn, funcs, consts, imports)
+            zone_part, zone_name = part, name
         elif part.kind == "wall_share":
-            wall = _call(part, rows[part.role], shared)
+            wall = _call(part, rows[part.role], shared, name)
         elif part.kind != "state":
             site = KERNEL_SITES.get((part.role, part.kind))
             if site is None:
                 raise LoopGenError(f"the compiled loop has no call site for a {part.role} {part.kind}")
-            calls[part.role] = site.format(call=_call(part, rows[part.role], shared))
-            if "wall_heat_flow(" in site:
-                from ..kernel_ops import wall_heat_flow
-
-                _collect(wall_heat_flow, funcs, consts, imports)
+            calls[part.role] = site.format(call=_call(part, rows[part.role], shared, name))
         else:
-            states += _state_lines(k, part, rows[part.role], shared)
-    own = vars(base)
+            states += _state_lines(k, part, rows[part.role], shared, name)
     # a constant the loop's module defines alike (CYCLE_END_DEG) is the loop's own: not written again
     consts = {n: v for n, v in consts.items()
               if not (n in own and isinstance(own[n], (int, float, tuple)) and repr(own[n]) == v)}
@@ -589,15 +655,13 @@ def _generate(parts: tuple, forms: dict, tableau=None, runner_step=None) -> tupl
     if zone_part is not None:
         if ZONE_SOLVE_MARKER not in rhs or ZONE_RATES_MARKER not in rhs:
             raise LoopGenError("the compiled loop has no call site for the two-zone solve")
-        solve, rates = _zone_lines(zone_part, len(shared), wall)
+        solve, rates = _zone_lines(zone_part, len(shared), wall, zone_name)
         rhs = rhs.replace(ZONE_SOLVE_MARKER, solve).replace(ZONE_RATES_MARKER, rates)
     elif wall is not None:
         raise LoopGenError("a wall-share kernel needs the two-zone solve")
     cycle = textwrap.dedent(inspect.getsource(base.run_cycle))
-    tableau = CYCLE_TABLEAU if tableau is None else tableau
     stage, step = _tableau_blocks(tableau)
     cycle = _replace_block(_replace_block(cycle, STAGE_BLOCK, stage), STEP_BLOCK, step)
-    rk_names = [stage_name(st) for st in range(1, tableau.stages)] + [STEP_NAME]
     clash = {n for n in rk_names if n in funcs or n in consts or n in imports}
     if clash:
         raise LoopGenError(f"kernel names {sorted(clash)} clash with the loop's stage functions; rename them")
