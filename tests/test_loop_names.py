@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 import cyclesim
-from cyclesim.loops.loopgen import _collect
+from cyclesim.loops.kernel_collect import _collect
 from cyclesim.solve import kernel
 
 

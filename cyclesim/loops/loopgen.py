@@ -27,6 +27,7 @@ import types
 from pathlib import Path
 
 from .kernel_key import _FINGERPRINTS, _fingerprint, _fingerprint_of, _globals_read  # noqa: F401
+from .kernel_collect import LoopGenError, _collect  # noqa: F401 - LoopGenError is public here
 from .tableau import CYCLE_TABLEAU, STEP_NAME, stage_name, stage_source, tableau_key
 
 VERSION = "1"
@@ -60,10 +61,6 @@ s_u); ``wall_share``, a burn model's share of the wall area that the burned zone
 ``wall_share_kernel``, which may also read the burned zone's volume ``V_b`` [m^3])."""
 WALL_SHARE_ARGS = {"V_b": "V_b"}
 """What a wall-share kernel may take besides the state fields (:data:`STATE_ARGS`)."""
-
-
-class LoopGenError(Exception):
-    """A kernel that cannot go into a generated loop (the batch then runs on the Python path)."""
 
 
 def kernel_of(cls, attr: str = "kernel"):
@@ -198,111 +195,6 @@ class _ArgPlan:
     def args(self, state, packed, gas) -> tuple:
         """The kernel's arguments, in order (as :meth:`call` passes them)."""
         return self.call(lambda *a: a, state, packed, gas)
-
-
-def _source(fn) -> str:
-    try:
-        src = textwrap.dedent(inspect.getsource(fn))
-    except (OSError, TypeError) as exc:
-        raise LoopGenError(f"kernel {fn.__name__}: its source cannot be read ({exc})") from None
-    lines = src.splitlines()
-    while lines and lines[0].lstrip().startswith("@"):
-        lines.pop(0)                # decorators: the generated file adds its own
-    if not lines or not lines[0].startswith(f"def {fn.__name__}("):
-        raise LoopGenError(f"kernel {fn.__name__}: must be a module-level function (def at column 0)")
-    return "\n".join(lines) + "\n"
-
-
-def _collect(fn, funcs: dict, consts: dict, imports: dict, taken=frozenset()) -> str:
-    """The function's source, the functions it calls and the globals it reads, recursively; returns
-    the function's name in the generated loop.
-
-    All kernels and helpers share the generated loop's one namespace.  Two different functions of
-    one name (two plug-ins' helpers called ``interp``), or two constants of one name and different
-    values, would otherwise collide: the later one is written under a free name (``interp_2``) and
-    the source of every function that reads it is rewritten to call it by that name.  Sources with
-    no collision are written as they are.  ``taken``: names the loop itself defines."""
-    import cyclesim.kernel_ops as kernel_ops
-    import cyclesim.loops._compiled as base
-
-    from . import zone_solve
-
-    own = vars(base)
-    for gen, (known, _) in funcs.items():
-        if known is fn:
-            return gen
-    if fn.__code__.co_freevars:
-        raise LoopGenError(f"kernel {fn.__name__}: reads variables of an enclosing function "
-                           f"({', '.join(fn.__code__.co_freevars)}); use module-level names")
-
-    def free(name):
-        gen, k = name, 1
-        while gen in funcs or gen in consts or gen in imports or gen in taken:
-            k += 1
-            gen = f"{name}_{k}"
-        return gen
-
-    me = free(fn.__name__)
-    funcs[me] = (fn, None)              # seen (a recursive call finds it); the source follows
-    renames = {}
-    for name, val in sorted(_globals_read(fn).items()):
-        if isinstance(val, types.ModuleType):
-            if val.__name__ not in ("numpy", "math"):
-                raise LoopGenError(f"kernel {fn.__name__}: reads module {val.__name__!r}; only numpy and math compile")
-            target = val.__name__
-        elif val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above, kernel_ops.where_lazy):
-            target = f"cyclesim.kernel_ops.{val.__name__}"
-        elif val in zone_solve.OVERLOADED:
-            target = f"cyclesim.loops.zone_solve.{val.__name__}"     # compiled by overload
-        elif isinstance(val, types.FunctionType):
-            gen = _collect(val, funcs, consts, imports, taken)
-            if gen != name:
-                renames[name] = gen
-            continue
-        elif (isinstance(val, (bool, int, float)) and not isinstance(val, type)) or (
-                isinstance(val, tuple) and all(isinstance(v, (int, float)) for v in val)):
-            text = repr(val)
-            if name in own and isinstance(own[name], (int, float, tuple)) and repr(own[name]) == text:
-                continue                # the loop's module defines it alike (CYCLE_END_DEG)
-            gen = name if consts.get(name) == text else next(
-                (n for n, v in consts.items() if v == text and (n == name or n.startswith(name + "_"))), None)
-            if gen is None:
-                gen = free(name)
-                consts[gen] = text
-            if gen != name:
-                renames[name] = gen
-            continue
-        else:
-            raise LoopGenError(f"kernel {fn.__name__}: reads global {name!r} of type {type(val).__name__}"
-                               " (only numbers, tuples of numbers, numpy, math and plain functions compile)")
-        if name in own and getattr(own[name], "__name__", None) == target:
-            imports[name] = target
-            continue
-        gen = name if imports.get(name) == target else next(
-            (n for n, t in imports.items() if t == target and n.startswith(name + "_")), None)
-        if gen is None:
-            gen = free(name)
-            imports[gen] = target
-        if gen != name:
-            renames[name] = gen
-    src = _source(fn)
-    if me != fn.__name__ or renames:
-        src = _renamed(src, fn.__name__, me, renames)
-    funcs[me] = (fn, src)
-    return me
-
-
-def _renamed(src: str, name: str, new_name: str, renames: dict) -> str:
-    """``src`` (one function) defined as ``new_name`` and reading the globals ``renames`` names
-    under their new names (each is a global throughout the function: Python's scoping)."""
-    import ast
-
-    tree = ast.parse(src)
-    tree.body[0].name = new_name
-    for node in ast.walk(tree):
-        if isinstance(node, ast.Name) and node.id in renames:
-            node.id = renames[node.id]
-    return ast.unparse(tree) + "\n"
 
 
 INLINE_MAX_ARGS = 28
@@ -720,8 +612,10 @@ def _quick_key(parts: tuple, forms: dict, tableau=None, runner_step=None) -> str
 
     import cyclesim.loops._compiled as base
 
+    from . import kernel_collect
+
     h = hashlib.sha256(VERSION.encode())
-    for path in (base.__file__, __file__):
+    for path in (base.__file__, __file__, kernel_collect.__file__):      # the files that write the text
         h.update(Path(path).read_bytes())
 
     def feed(x):
