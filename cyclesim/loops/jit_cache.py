@@ -189,7 +189,7 @@ class _Stamp:
 class DependencyLocator:
     """A numba cache locator for this package's functions: numba's own choice of folder and file
     names (the first of its locators that accepts the function), with the source stamp of
-    :class:`_Stamp` (numba calls a locator only through these five methods)."""
+    :class:`_Stamp` (numba calls a locator through these methods; other attributes are the base's)."""
 
     _numba_locators: tuple = ()
 
@@ -218,6 +218,9 @@ class DependencyLocator:
 
     def get_source_stamp(self):
         return _Stamp(self._base.get_source_stamp(), self._py_func)
+
+    def __getattr__(self, name):        # anything else numba reads (``_py_file`` in its warnings)
+        return getattr(self._base, name)
 
 
 def install() -> bool:
