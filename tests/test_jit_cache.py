@@ -84,9 +84,10 @@ def test_every_cached_function_of_the_package_is_stamped_with_its_callees():
     names = ("cyclesim.loops._compiled", "cyclesim.pipes._jit", "cyclesim.pipes.scheme",
              "cyclesim.pipes.coupling", "cyclesim.pipes.loop_step")
     mods = [importlib.import_module(n) for n in names]
+    from cyclesim.combustion import _jit, zeldovich, zone_kernels
     from cyclesim.pipes._jit import compiled_kernels
 
-    mods.append(compiled_kernels())
+    mods += [compiled_kernels(), _jit.kernels(zone_kernels), _jit.kernels(zeldovich)]
     found = 0
     for mod in mods:
         for val in vars(mod).values():

@@ -189,7 +189,7 @@ class _Stamp:
 class DependencyLocator:
     """A numba cache locator for this package's functions: numba's own choice of folder and file
     names (the first of its locators that accepts the function), with the source stamp of
-    :class:`_Stamp` (numba calls a locator through these methods; other attributes are the base's)."""
+    :class:`_Stamp`."""
 
     _numba_locators: tuple = ()
 
@@ -207,19 +207,14 @@ class DependencyLocator:
                 return cls(base, py_func)
         return None
 
-    def ensure_cache_path(self):
-        return self._base.ensure_cache_path()
-
-    def get_cache_path(self):
-        return self._base.get_cache_path()
-
-    def get_disambiguator(self):
-        return self._base.get_disambiguator()
-
     def get_source_stamp(self):
         return _Stamp(self._base.get_source_stamp(), self._py_func)
 
-    def __getattr__(self, name):        # anything else numba reads (``_py_file`` in its warnings)
+    def __getattr__(self, name):
+        # the rest is the base locator's: get_cache_path, ensure_cache_path, get_disambiguator, and
+        # what numba reads besides (``_py_file`` in its warning on an uncachable function)
+        if name == "_base":
+            raise AttributeError(name)
         return getattr(self._base, name)
 
 
