@@ -260,7 +260,9 @@ def plenum_plugin(tmp_path):
                           "extends: demo\nplugins: [myplenums.py]\nboundary: {model: copied_plenums}\n")
 
 
-def test_why_not_names_the_submodel_without_compiled_form(plenum_plugin, heat_plugin):
+def test_why_not_names_the_submodel_without_compiled_form(plenum_plugin, heat_plugin, monkeypatch):
+    # as in a fresh process, where no batch has loaded the compiled template yet: why_not loads it
+    monkeypatch.setattr(kernel, "_mod", None)
     # the built-in demo is fully covered, in both modes (so the reasons below are not a default)
     assert _why_not(load_config("demo")) is None
     assert _why_not(load_config("demo_closed")) is None

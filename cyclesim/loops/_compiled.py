@@ -24,8 +24,10 @@ import cyclesim.kernel_ops as _kernel_ops
 import cyclesim.loops.filling as _filling
 from .layout import CORE_ROWS as _S
 from . import zone_solve as _zone_solve
+from .jit_cache import install as _install_jit_cache
 from .layout import block_rows, param_rows
 
+_install_jit_cache()              # disk caches stamped with the callees' files (cyclesim.loops.jit_cache)
 _kernel_ops.register_compiled()   # the kernels of kernel_ops (orifice flow, gas tables) on floats
 
 # -- what the loop covers: the compiled forms, by role, and the packed-parameter rows of each --
@@ -357,7 +359,7 @@ def run_cycle(full, grid, masks, valves, state, consts, gas, tableau, b0, b1, pi
 _filling.register_compiled()
 manifold_lap = njit(cache=True, error_model="numpy")(_filling.lap)
 """One implicit-Euler lap of manifold pressures (rows): :func:`cyclesim.loops.filling.lap`, its one
-source, compiled (numba keys its cache on that function's own file)."""
+source, compiled (its disk cache stamped with filling.py and the files it calls into)."""
 
 
 # -- gas properties at many points (post-processing and the trace analyser) ------------

@@ -26,6 +26,10 @@ COMPILED = compiled_wanted()
 if COMPILED:
     from numba import njit as _njit
 
+    from ..loops.jit_cache import install
+
+    install()                   # disk caches stamped with the callees' files (cyclesim.loops.jit_cache)
+
     @_njit(cache=True, error_model="numpy", fastmath=FASTMATH)
     def _where(cond, a, b):
         """``a`` if ``cond`` else ``b`` for scalars (the compiled form of ``np.where``)."""

@@ -335,8 +335,8 @@ def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_
     live = fa > 0.0                             # else the sonic end cannot pass what the nozzle takes
     if SCALAR:
         n_out = n_out if live else 0
-    x_out = _secant_outflow(a, b, x_guess, n_out, 1e-10 * rho_i * c_i * area,
-                            rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
+    q = (rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+    x_out = _secant(False, q, a, b, x_guess, n_out, 1e-10 * rho_i * c_i * area)
     x_out = where(live, x_out, a)
     # inflow on [ln p_v0, ln min(p_r, p_cap)]: the residual is >= 0 at p_v0 and falls with pressure
     hi = np.maximum(np.minimum(p_r, np.maximum(p_cap, p_v0)), 1.000001 * p_v0)
@@ -346,8 +346,7 @@ def end_state(rho_i, v_i, p_i, g_i, R_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_
     live2 = fb2 < 0.0                           # else capped at the sonic inflow
     if SCALAR:
         n_in = n_in if live2 else 0
-    x_in = _secant_inflow(a2, b2, x_guess, n_in, 1e-10 * p_i / c_i * area,
-                          p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+    x_in = _secant(True, q, a2, b2, x_guess, n_in, 1e-10 * p_i / c_i * area)
     x_in = where(live2, x_in, b2)
     p_o = np.exp(x_out)
     p_n = np.exp(x_in)
@@ -388,38 +387,30 @@ def _start(a, b, x_guess):
 
 
 @jit
-def _secant_outflow(a, b, x_guess, n, ftol, rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r):
-    """Root in ln p of the outflow residual in the bracket (a, b): ``n`` safeguarded secant steps."""
-    x0, x1 = _start(a, b, x_guess)
-    f0, _, _ = _outflow_residual(np.exp(x0), rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
-    a, b = _narrow(a, b, x0, f0)
-    f1, _, _ = _outflow_residual(np.exp(x1), rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
-    a, b = _narrow(a, b, x1, f1)
-    for _ in range(n):
-        if SCALAR:
-            if abs(f1) <= ftol:
-                break
-        xn = _secant_point(x0, f0, x1, f1, a, b, ftol)
-        fn, _, _ = _outflow_residual(np.exp(xn), rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r)
-        a, b = _narrow(a, b, xn, fn)
-        x0, f0, x1, f1 = x1, f1, xn, fn
-    return x1
+def _end_residual(inflow, p, q):
+    """The end's mass-balance residual [kg/s] at boundary pressure ``p`` [Pa]: of the inflow
+    (:func:`_inflow_residual`) if ``inflow``, else of the outflow (:func:`_outflow_residual`);
+    ``q`` = (rho_i, p_i, c_i, lam, gm, R_i, cp_i, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)."""
+    if inflow:
+        return _inflow_residual(p, q[1], q[2], q[3], q[4], q[7], q[8], q[9], q[10], q[11], q[12], q[13], q[14])[0]
+    return _outflow_residual(p, q[0], q[1], q[2], q[3], q[4], q[5], q[6], q[7], q[8], q[9])[0]
 
 
 @jit
-def _secant_inflow(a, b, x_guess, n, ftol, p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry):
-    """Root in ln p of the inflow residual in the bracket (a, b): ``n`` safeguarded secant steps."""
+def _secant(inflow, q, a, b, x_guess, n, ftol):
+    """Root in ln p of the end's residual (:func:`_end_residual`, falling with pressure) in the
+    bracket (a, b): ``n`` safeguarded secant steps from ``x_guess``."""
     x0, x1 = _start(a, b, x_guess)
-    f0, _, _ = _inflow_residual(np.exp(x0), p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+    f0 = _end_residual(inflow, np.exp(x0), q)
     a, b = _narrow(a, b, x0, f0)
-    f1, _, _ = _inflow_residual(np.exp(x1), p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+    f1 = _end_residual(inflow, np.exp(x1), q)
     a, b = _narrow(a, b, x1, f1)
     for _ in range(n):
         if SCALAR:
             if abs(f1) <= ftol:
                 break
         xn = _secant_point(x0, f0, x1, f1, a, b, ftol)
-        fn, _, _ = _inflow_residual(np.exp(xn), p_i, c_i, lam, gm, cda, area, p_r, T_r, R_r, g_r, cp_r, k_entry)
+        fn = _end_residual(inflow, np.exp(xn), q)
         a, b = _narrow(a, b, xn, fn)
         x0, f0, x1, f1 = x1, f1, xn, fn
     return x1

@@ -115,6 +115,11 @@ def compiled_module():
     return _mod or None
 
 
+def _no_module_reason() -> str:
+    """Why no batch runs compiled in this process (:func:`compiled_module` gave None)."""
+    return f"{ENV}=python" if choice() == "python" else "numba not installed: pip install -e \".[fast]\""
+
+
 def _notice(key: str, text: str) -> None:
     """One line on stderr, once per process and ``key``."""
     if key not in _told:
@@ -239,8 +244,10 @@ def loop_status(cls) -> str:
 
 def why_not(batch, rhs) -> str | None:
     """None if the batch's submodels all have a compiled form, else every reason they do not."""
-    mod = _mod or None
-    forms = mod.FORMS if mod is not None else {}
+    mod = compiled_module()           # the template's forms (loaded here if no batch has loaded it yet)
+    if mod is None:
+        return _no_module_reason()
+    forms = mod.FORMS
     m = batch.models
     reasons = []
     roles = ["burn", "heat_transfer", "blowby", "knock"] + (["valve_flow", "boundary"] if rhs.mode == "full" else [])
@@ -486,8 +493,7 @@ def _loop_for(batch, rhs, runner_step=None) -> tuple[object, str, tuple | None]:
     there is none)."""
     mod = compiled_module()
     if mod is None:
-        why = f"{ENV}=python" if choice() == "python" else "numba not installed: pip install -e \".[fast]\""
-        return None, f"numpy ({why})", None
+        return None, f"numpy ({_no_module_reason()})", None
     reason = why_not(batch, rhs)
     generated = False
     parts = None
