@@ -26,6 +26,19 @@ what it entrains.)
   slows thick flames: low density,
   high dilution (:func:`cyclesim.combustion.turbulence.stretch_factor`).
 
+The front is a brush: the eddies displace it from its mean position with the rms displacement
+sigma of Taylor's (1921) dispersion (:func:`cyclesim.combustion.turbulence.brush_displacement`,
+with ``u'_eff`` and the integral scale ``L_I``), so where it meets the walls its area is the
+average over that displacement (:func:`brush_average`, tabulated at set-up against sigma as
+well) and falls to zero over a part of the fill that grows with sigma, not at the last wall
+contact of a thin sphere.  ``flame_brush`` says how long the displacement builds up:
+``burn_up`` (default), over the burn-up time tau_b only, since a wrinkle of the front older than
+that has burned out (a brush of about u' tau_b, 1.5-2 mm on the demo: the heat-release rate
+still falls from its peak to half in about half the degrees it took to rise); ``spark``, since
+the spark, the brush of a turbulent flame growing by turbulent diffusion (Lipatnikov & Chomiak
+2002, Prog. Energy Combust. Sci. 28, 1-74, from memory), which gives a bell-shaped rate but
+longer 10-90 % angles (benchmarks/entrainment_heat_release.py).
+
 The front's position in the tables is its fill s^3 = V_f / (V_f + V_u), the volume of the
 entrained charge over that of the entrained and the not yet entrained charge, both from their
 masses at the cylinder pressure: the front reaches the last wall, where its area is zero, when
@@ -407,6 +420,9 @@ class EntrainmentBurn(BurnRate):
       about the electrode gap (Herweg & Maly 1992, from memory).
     - ``ivc_flow_factor`` = 1: the mean cycle's charge motion; the synthetic traces draw it per
       cycle (cycle-to-cycle variation of the intake flow).
+    - ``flame_brush`` = ``burn_up``: the front's displacement by the eddies builds up over the
+      burn-up time (see the module notes); ``spark`` gives the thicker brush of turbulent
+      diffusion since the spark.
     - Taylor constant 15 (isotropic turbulence), Sutherland viscosity, laminar burning velocity
       with Rhodes & Keck dilution: see the combustion modules.
 
