@@ -222,7 +222,8 @@ def test_the_burn_completes_and_releases_its_combustion_efficiency():
 def test_the_heat_release_rounds_off_at_the_walls():
     # the burn rate after its peak falls over about as many degrees as the eddies take to burn up
     # (tau_b = lambda / S_L, Tabaczynski et al. 1977): from the peak to half the peak takes several
-    # degrees, not a single step (measured at the demo point, 3000 rpm, spark 30: 5 deg, peak at 18 deg ATDC)
+    # degrees, not a single step (measured at the demo point, 3000 rpm, spark 30: 6 deg, peak at 17 deg ATDC;
+    # 5 deg and 18 with a thin front)
     (r,) = simulate([load_config("demo", FAST)])
     th, q = np.ravel(r.trace["crank_deg"]), np.ravel(r.trace["heat_release_rate_J_per_deg"])
     i = int(np.argmax(q))
