@@ -167,7 +167,12 @@ def test_ca50_at_mbt_does_not_depend_on_the_advance_grid(mbt_points):
     " less (1.8 x S_p at TDC, 2.5 at IVC: benchmarks/turbulence_intake.py).  The burn angles of the"
     " bands need this level: with the IVC charge motion scaled to give 0.57 x S_p (burn.ivc_flow_factor=0.5)"
     " the full-load 3000 rpm point has MBT 76 deg BTDC and 0-10 % 63 deg, measured; with the thicker brush of"
-    " burn.flame_brush=spark as well, MBT is beyond 90 deg BTDC at 3000 rpm (benchmarks/entrainment_trends.py)"))
+    " burn.flame_brush=spark as well, MBT is beyond 90 deg BTDC at 3000 rpm (benchmarks/entrainment_trends.py)."
+    " The K-k dissipation u'^3 / L takes L as the chamber height, five times the integral scale 0.2 L the kernel"
+    " model uses (Heywood 1988 sec. 8.2, from memory); dissipating on 0.2 L gives 0.43 x S_p at TDC (0.77 without"
+    " the rapid-distortion term, 0.88-1.20 for c_beta 0.25-4), measured, but then the burn is slow: MBT 41 and"
+    " 65 deg BTDC, 0-10 % 31 and 48 deg at 1500 and 3000 rpm, full load, with the Taylor microscale on 0.2 L"
+    " too"))
 def test_turbulence_at_tdc_is_about_half_the_mean_piston_speed():
     # open chamber without swirl: u' at TDC about 0.5 S_p (Heywood 1988 sec. 8.4, from memory)
     (r,) = simulate([load_config("demo", FAST)])
