@@ -26,6 +26,19 @@ what it entrains.)
   slows thick flames: low density,
   high dilution (:func:`cyclesim.combustion.turbulence.stretch_factor`).
 
+The front is a brush: the eddies displace it from its mean position with the rms displacement
+sigma of Taylor's (1921) dispersion (:func:`cyclesim.combustion.turbulence.brush_displacement`,
+with ``u'_eff`` and the integral scale ``L_I``), so where it meets the walls its area is the
+average over that displacement (:func:`brush_average`, tabulated at set-up against sigma as
+well) and falls to zero over a part of the fill that grows with sigma, not at the last wall
+contact of a thin sphere.  ``flame_brush`` says how long the displacement builds up:
+``burn_up`` (default), over the burn-up time tau_b only, since a wrinkle of the front older than
+that has burned out (a brush of about u' tau_b, 1.5-2 mm on the demo: the heat-release rate
+still falls from its peak to half in about half the degrees it took to rise); ``spark``, since
+the spark, the brush of a turbulent flame growing by turbulent diffusion (Lipatnikov & Chomiak
+2002, Prog. Energy Combust. Sci. 28, 1-74, from memory), which gives a bell-shaped rate but
+longer 10-90 % angles (benchmarks/entrainment_heat_release.py).
+
 The front's position in the tables is its fill s^3 = V_f / (V_f + V_u), the volume of the
 entrained charge over that of the entrained and the not yet entrained charge, both from their
 masses at the cylinder pressure: the front reaches the last wall, where its area is zero, when
@@ -64,8 +77,9 @@ import numpy as np
 from cyclesim.combustion import flame_geometry as fg
 from cyclesim.combustion import laminar_flame as lf
 from cyclesim.combustion.laminar_flame import gulder, metghalchi_keck
-from cyclesim.combustion.turbulence import (INTEGRAL_SCALE_RATIO, integral_length, kernel_turbulence_factor,
-                                            kk_rates, stretch_factor, taylor_microscale, turbulence_intensity, viscosity_air)
+from cyclesim.combustion.turbulence import (INTEGRAL_SCALE_RATIO, brush_displacement, integral_length,
+                                            kernel_turbulence_factor, kk_rates, stretch_factor, taylor_microscale,
+                                            turbulence_intensity, viscosity_air)
 from cyclesim.kernel_ops import where
 from cyclesim.loops.layout import shared_array
 from cyclesim.params import Param, StateVar
@@ -77,6 +91,11 @@ N_HEIGHT = 24
 """Piston positions of the flame tables (uniform in clearance height)."""
 N_FILL = 65
 """Points of the flame tables in s = (V_f / V_chamber)^(1/3), uniform from 0 to 1."""
+N_BRUSH = 21
+"""Front displacements of the brush-averaged area table, uniform from 0 to :data:`BRUSH_MAX`."""
+BRUSH_MAX = 0.5
+"""Largest rms front displacement of the area table, over the bore radius [-]; a larger one reads
+the table's last row (the table's range, not a model constant)."""
 TABLE_LATEST_DEG = 100.0
 """The tables reach the piston position of this crank angle after TDC [deg]; later the flame
 geometry of that position is used (the burn is then in its last few per cent)."""
@@ -126,6 +145,25 @@ def table_lookup(flat, idx, off, h, s, h0, inv_dh, nh, ns):
     return (1.0 - w) * lo + w * hi
 
 
+def brush_table_lookup(flat, idx, off, h, sg, s, h0, inv_dh, nh, nb, ns):
+    """Value of a brush-averaged table at clearance height ``h`` [m], front displacement position
+    ``sg`` (0 to ``nb`` - 1, floats) and fill ``s`` [-]: rows (case, height, displacement) of ``ns``
+    values, bilinear in height and displacement, linear in s (see :func:`table_lookup`)."""
+    hp = np.minimum(np.maximum((h - h0) * inv_dh, 0.0), nh - 1.000001)
+    i = np.floor(hp)
+    w = hp - i
+    gp = np.minimum(np.maximum(sg, 0.0), nb - 1.000001)
+    j = np.floor(gp)
+    v = gp - j
+    sp = np.minimum(np.maximum(s, 0.0), 1.0) * (ns - 1.0)
+    r00 = off + (i * nb + j) * ns + sp
+    a00 = np.interp(r00, idx, flat)
+    a01 = np.interp(r00 + ns, idx, flat)
+    a10 = np.interp(r00 + nb * ns, idx, flat)
+    a11 = np.interp(r00 + (nb + 1.0) * ns, idx, flat)
+    return (1.0 - w) * ((1.0 - v) * a00 + v * a01) + w * ((1.0 - v) * a10 + v * a11)
+
+
 def flame_wall_share(V, V_b, v_rb, bore_area, tab_wet, tab_idx, off, h0, inv_dh, nh, ns):
     """Share [-] of the chamber's wall (head, piston, liner) wetted by the spherical flame that
     encloses ``V_b`` [m^3] in the volume ``V`` [m^3] (the ``wall_share_kernel``): the wetted-area
@@ -139,7 +177,8 @@ def flame_wall_share(V, V_b, v_rb, bore_area, tab_wet, tab_idx, off, h0, inv_dh,
 
 def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2,
                  c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u,
-                 bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns):
+                 bore_area, half_bore, v_rb, r0, brush_spark, tab_r, tab_a, tab_idx, tab_ia, off, off_a, h0, inv_dh, nh,
+                 nb, ns):
     """Shared quantities of the two kernels: (on, S_L, I_0 S_L, u'_eff, rho_u, A_f, lambda, T_u).
 
     The unburned gas is the unburned zone's own ``T_u`` where two zones run (``T_u > 0``), else
@@ -161,14 +200,19 @@ def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, m
     h = (V - v_rb) / bore_area
     s = (v_f / (v_f + v_u)) ** (1.0 / 3.0)
     r_f = table_lookup(tab_r, tab_idx, off, h, s, h0, inv_dh, nh, ns)
-    a_f = table_lookup(tab_a, tab_idx, off, h, s, h0, inv_dh, nh, ns)
     L = integral_length(V, bore_area, half_bore)
     u = turbulence_intensity(k)
     t = (theta - spark) / omega_deg
     u_eff = u * kernel_turbulence_factor(r_f, t, INTEGRAL_SCALE_RATIO * L, u)
     nu = viscosity_air(T_u) / rho_u
-    s_k = s_l * stretch_factor(s_l, u_eff, INTEGRAL_SCALE_RATIO * L, nu, r_f, (R_b * T_b) / (R_u * T_u))
     lam = taylor_microscale(u, L, nu)
+    # the front's rms displacement by the eddies: over the burn-up time (the wrinkles older than an
+    # eddy's burn-up have burned out), or since the spark (turbulent diffusion of the whole brush)
+    t_brush = where(brush_spark > 0.5, t, np.minimum(t, lam / s_l))
+    sigma = brush_displacement(u_eff, t_brush, INTEGRAL_SCALE_RATIO * L)
+    a_f = brush_table_lookup(tab_a, tab_ia, off_a, h, sigma / (BRUSH_MAX * half_bore) * (nb - 1.0), s, h0, inv_dh,
+                             nh, nb, ns)
+    s_k = s_l * stretch_factor(s_l, u_eff, INTEGRAL_SCALE_RATIO * L, nu, r_f, (R_b * T_b) / (R_u * T_u))
     on = (theta >= spark) & (theta < CYCLE_END_DEG)
     return on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u
 
@@ -194,26 +238,27 @@ def state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_k, m, V, dV, omega_deg, clos
 
 def entrainment_rate(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1,
                      c_mk2, c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u,
-                     bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns):
+                     bore_area, half_bore, v_rb, r0, brush_spark, tab_r, tab_a, tab_idx, tab_ia, off, off_a, h0,
+                     inv_dh, nh, nb, ns):
     """Burn rate dx_b/dtheta [1/deg]: burn-up of the entrained eddies, (x_e - x_b) / tau_b, zero
     before the spark and from 360 deg (the burn ``kernel``)."""
     on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u = _flame_state(
         theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
         c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0,
-        tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns)
+        brush_spark, tab_r, tab_a, tab_idx, tab_ia, off, off_a, h0, inv_dh, nh, nb, ns)
     return burnup_rate(on, x_e, x_b, s_l, s_k, lam, rho_u, a_f, m, omega_deg)
 
 
 def entrainment_states(theta, p, V, dV, m, y_b, x_b, omega_deg, closed, x_e, K, k, spark, eff, phi, mk,
                        c_mk0, c_mk1, c_mk2, c_g0, c_g1, c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad,
-                       T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0, tab_r, tab_a, tab_idx, off, h0, inv_dh,
-                       nh, ns, c_beta):
+                       T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0, brush_spark, tab_r, tab_a, tab_idx, tab_ia,
+                       off, off_a, h0, inv_dh, nh, nb, ns, c_beta):
     """Time derivatives of (x_e [1/s], K [W/kg], k [W/kg]) (the ``state_kernel``), see
     :func:`state_rates`."""
     on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u = _flame_state(
         theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
         c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0,
-        tab_r, tab_a, tab_idx, off, h0, inv_dh, nh, ns)
+        brush_spark, tab_r, tab_a, tab_idx, tab_ia, off, off_a, h0, inv_dh, nh, nb, ns)
     return state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_k, m, V, dV, omega_deg, closed, bore_area,
                        half_bore, c_beta)
 
@@ -221,16 +266,56 @@ def entrainment_states(theta, p, V, dV, m, y_b, x_b, omega_deg, closed, x_e, K, 
 # ----------------------------------------------------------------------------
 # set-up helpers
 # ----------------------------------------------------------------------------
-def fill_tables(q: np.ndarray, heights: np.ndarray, n_fill: int = N_FILL, n_radius: int = 160):
-    """Flame radius, front area and wetted areas on a grid of heights (H,) x fills s (n_fill,).
+def brush_average(r, v, a, v_chamber, sigma, s_grid, n_rbar: int = 600, n_nodes: int = 48):
+    """Front area [m^2] of a flame brush meeting the chamber's walls, against its fill, on
+    ``s_grid`` (n_fill,).
 
-    s = (V_b / V_chamber)^(1/3) from 0 to 1; returns dict of (H, n_fill) arrays [m, m^2]."""
-    key = (q.tobytes(), heights.tobytes(), n_fill, n_radius)
+    The front of a thin-sphere flame at radius r has the area a(r) and encloses v(r) (arrays on the
+    radii ``r``, 0 to the chamber's farthest point, where a = 0).  The brush's front lies at
+    r_mean + xi, xi normal with rms ``sigma`` [m]
+    (:func:`cyclesim.combustion.turbulence.brush_displacement`): its mean area and enclosed volume
+    are the averages of a and v over xi (Gauss-Hermite; a = 0 beyond the chamber and v its volume,
+    a = v = 0 below r = 0), the mean area taken against the mean fill (v_mean / v_chamber)^(1/3).
+    It falls smoothly to zero as the fill goes to 1.  The walls are the brush's only effect here:
+    in free space the average of a sphere's area at a given enclosed volume is less than the thin
+    sphere's (by 4 pi sigma^2 at large radii), so the result is multiplied by the thin free
+    sphere's area over the brush's free-space mean area at the same fill: a front the brush does
+    not carry to a wall keeps the thin sphere's area 4 pi r^2."""
+    x, w = np.polynomial.hermite_e.hermegauss(n_nodes)
+    w = w / w.sum()
+    rbar = np.linspace(0.0, r[-1] + 6.0 * sigma, n_rbar)
+    rr = rbar[:, None] + sigma * x[None, :]
+    pos = np.maximum(rr, 0.0)
+
+    def against_fill(v_m, a_m):
+        fill = np.maximum.accumulate(np.maximum(v_m / v_chamber, 0.0) ** (1.0 / 3.0))
+        return np.interp(s_grid, fill + np.arange(fill.size) * 1e-12, a_m)
+
+    walls = against_fill(np.interp(rr, r, v, left=0.0, right=v_chamber) @ w,
+                         np.interp(rr, r, a, left=0.0, right=0.0) @ w)
+    free = against_fill((4.0 / 3.0 * np.pi * pos ** 3) @ w, (4.0 * np.pi * pos ** 2) @ w)
+    thin = 4.0 * np.pi * (0.75 / np.pi * v_chamber * s_grid ** 3) ** (2.0 / 3.0)
+    out = walls * np.where(free > 0.0, thin / np.maximum(free, 1e-300), 1.0)
+    out[-1] = 0.0
+    return out
+
+
+def fill_tables(q: np.ndarray, heights: np.ndarray, n_fill: int = N_FILL, n_radius: int = 160,
+                n_brush: int = N_BRUSH):
+    """Flame radius, front area and wetted areas on a grid of heights (H,) x fills s (n_fill,),
+    and the brush-averaged front area on heights x front displacements (n_brush,) x fills.
+
+    s = (V_b / V_chamber)^(1/3) from 0 to 1; returns dict of (H, n_fill) arrays [m, m^2] and
+    ``a_brush`` (H, n_brush, n_fill) [m^2], its displacements sigma uniform from 0 to
+    :data:`BRUSH_MAX` times the bore radius q[0] (at sigma = 0, ``a`` itself)."""
+    key = (q.tobytes(), heights.tobytes(), n_fill, n_radius, n_brush)
     got = _TABLES.get(key)
     if got is not None:
         return got
     s_grid = np.linspace(0.0, 1.0, n_fill)
     out = {name: np.empty((heights.size, n_fill)) for name in ("r", "a", "head", "piston", "liner")}
+    out["a_brush"] = np.empty((heights.size, n_brush, n_fill))
+    sigmas = np.linspace(0.0, BRUSH_MAX * float(q[0]), n_brush)
     for i, h in enumerate(heights):
         r = np.linspace(0.0, fg.max_radius(q, float(h)), n_radius)
         v = fg.burned_volume(q, h, r, n_theta=720, n_sub=4)
@@ -245,7 +330,10 @@ def fill_tables(q: np.ndarray, heights: np.ndarray, n_fill: int = N_FILL, n_radi
         out["a"][i] = 4.0 * np.pi * r_s * r_s * np.interp(r_s, r, share)
         for name, val in zip(("head", "piston", "liner"), wet):
             out[name][i] = np.interp(r_s, r, val)
-    out["a"][:, -1] = 0.0
+        out["a"][i, -1] = 0.0
+        out["a_brush"][i, 0] = out["a"][i]
+        for j in range(1, n_brush):
+            out["a_brush"][i, j] = brush_average(r, v, a, fg.chamber_volume(q, h), sigmas[j], s_grid)
     _TABLES[key] = out
     return out
 
@@ -278,6 +366,35 @@ def adiabatic_rise(gas: Any, B: int) -> tuple[np.ndarray, np.ndarray]:
     return T_b - AD_REF_T_K, np.asarray(R_b, float)
 
 
+def heat_release_shape(theta, rate, dip: float = 0.02) -> dict:
+    """Shape figures of a heat-release-rate trace ``rate`` [any unit] against ``theta`` [deg]:
+    ``peak_deg``, ``rise_deg`` (from the last point below half the peak before it to the peak),
+    ``fall_deg`` (from the peak to the first point below half the peak after it), their ratio
+    ``fall_to_rise`` and ``maxima``, the number of humps above half the peak (a hump ends where the
+    rate falls by more than ``dip`` of the peak below its own maximum before rising again)."""
+    th, q = np.asarray(theta, float), np.asarray(rate, float)
+    i = int(np.argmax(q))
+    half = 0.5 * q[i]
+    before = np.nonzero(q[:i] < half)[0]
+    after = np.nonzero(q[i:] < half)[0]
+    rise = th[i] - th[before[-1]] if before.size else np.nan
+    fall = th[i + after[0]] - th[i] if after.size else np.nan
+    d = dip * q[i]
+    humps, up, top, low = 0, True, -np.inf, np.inf
+    for v in q:
+        if up:
+            top = max(top, v)
+            if v < top - d:
+                humps, up, low = humps + (top >= half), False, v
+        else:
+            low = min(low, v)
+            if v > low + d:
+                up, top = True, v
+    humps += up and top >= half
+    return {"peak_deg": float(th[i]), "rise_deg": float(rise), "fall_deg": float(fall),
+            "fall_to_rise": float(fall / rise), "maxima": int(humps)}
+
+
 class EntrainmentBurn(BurnRate):
     """Predictive turbulent flame-entrainment burn (Blizard & Keck 1974, Tabaczynski et al. 1977,
     Keck 1982), with a Herweg & Maly (1992) early kernel and K-k turbulence (Poulos & Heywood 1983).
@@ -303,6 +420,9 @@ class EntrainmentBurn(BurnRate):
       about the electrode gap (Herweg & Maly 1992, from memory).
     - ``ivc_flow_factor`` = 1: the mean cycle's charge motion; the synthetic traces draw it per
       cycle (cycle-to-cycle variation of the intake flow).
+    - ``flame_brush`` = ``burn_up``: the front's displacement by the eddies builds up over the
+      burn-up time (see the module notes); ``spark`` gives the thicker brush of turbulent
+      diffusion since the spark.
     - Taylor constant 15 (isotropic turbulence), Sutherland viscosity, laminar burning velocity
       with Rhodes & Keck dilution: see the combustion modules.
 
@@ -341,6 +461,10 @@ class EntrainmentBurn(BurnRate):
               "laminar burning velocity correlation's fuel; 'auto': the config's fuel where a correlation"
               " covers it, else gasoline's with a warning",
               kind="choice", choices=(lf.AUTO,) + tuple(lf.FUEL_CODES), sweepable=False),
+        Param("flame_brush", "-", "burn_up",
+              "how long the front's displacement by the eddies accumulates: 'burn_up', over the eddies' burn-up"
+              " time lambda / S_L (a brush about u' tau_b thick); 'spark', since the spark (turbulent diffusion"
+              " of the whole brush, Taylor 1921)", kind="choice", choices=("burn_up", "spark"), sweepable=False),
     )
     references = (
         "Blizard, N. C., Keck, J. C. (1974). Experimental and theoretical investigation of turbulent "
@@ -373,6 +497,7 @@ class EntrainmentBurn(BurnRate):
         V_late = _arr(g.volume_at(np.full(B, TABLE_LATEST_DEG)), B)
         keys: dict = {}
         self.off = np.zeros(B)
+        self.off_a = np.zeros(B)
         self.v_rb = np.zeros(B)
         self.h0 = np.zeros(B)
         self.inv_dh = np.zeros(B)
@@ -384,12 +509,13 @@ class EntrainmentBurn(BurnRate):
                 h_lo, h_hi = chamber.clearance_height_m(float(bore[b]), np.array([V_tdc[b], V_late[b]]))
                 heights = np.linspace(float(h_lo), float(h_hi), N_HEIGHT)
                 tab = fill_tables(q, heights)
-                keys[key] = (len(rows_r) * N_HEIGHT * N_FILL, fg.roof_volume(q) + fg.bowl_volume(q),
-                             float(h_lo), (N_HEIGHT - 1) / (float(h_hi) - float(h_lo)))
+                keys[key] = (len(rows_r) * N_HEIGHT * N_FILL, len(rows_r) * N_HEIGHT * N_BRUSH * N_FILL,
+                             fg.roof_volume(q) + fg.bowl_volume(q), float(h_lo),
+                             (N_HEIGHT - 1) / (float(h_hi) - float(h_lo)))
                 rows_r.append(tab["r"])
-                rows_a.append(tab["a"])
+                rows_a.append(tab["a_brush"])
                 rows_w.append(np.stack([tab["head"], tab["piston"], tab["liner"]]))
-            self.off[b], self.v_rb[b], self.h0[b], self.inv_dh[b] = keys[key]
+            self.off[b], self.off_a[b], self.v_rb[b], self.h0[b], self.inv_dh[b] = keys[key]
         self.tab_r = np.concatenate([t.ravel() for t in rows_r])
         self.tab_a = np.concatenate([t.ravel() for t in rows_a])
         self.tab_wet = rows_w
@@ -414,6 +540,7 @@ class EntrainmentBurn(BurnRate):
         self.k_ivc = _arr(p.ivc_turbulence_ratio, B) * self.K_ivc
         self.c_beta = _arr(p.production_coefficient, B)
         self.r0 = _arr(p.kernel_radius_mm, B) * 1e-3
+        self.brush_spark = 1.0 if str(p.flame_brush) == "spark" else 0.0
         self._packed: dict | None = None
         self._last: tuple | None = None
 
@@ -434,11 +561,13 @@ class EntrainmentBurn(BurnRate):
                 "c_g0": c_g[0], "c_g1": c_g[1], "c_g2": c_g[2], "c_g3": c_g[3], "c_g4": c_g[4],
                 "cv0": self.cv[0], "cv1": self.cv[1], "cv2": self.cv[2], "R_u": self.R_u, "R_b": self.R_b,
                 "dT_ad": self.dT_ad, "bore_area": self.bore_area, "half_bore": self.half_bore,
-                "v_rb": self.v_rb, "r0": self.r0, "tab_r": shared_array(self.tab_r),
+                "v_rb": self.v_rb, "r0": self.r0, "brush_spark": self.brush_spark, "tab_r": shared_array(self.tab_r),
                 "tab_a": shared_array(self.tab_a), "tab_idx": shared_array(np.arange(self.tab_r.size)),
+                "tab_ia": shared_array(np.arange(self.tab_a.size)),
                 "tab_wet": shared_array(sum(np.concatenate([w[k].ravel() for w in self.tab_wet]) for k in range(3))),
-                "off": self.off,
-                "h0": self.h0, "inv_dh": self.inv_dh, "nh": float(N_HEIGHT), "ns": float(N_FILL),
+                "off": self.off, "off_a": self.off_a,
+                "h0": self.h0, "inv_dh": self.inv_dh, "nh": float(N_HEIGHT), "nb": float(N_BRUSH),
+                "ns": float(N_FILL),
                 "c_beta": self.c_beta,
             }
         return self._packed

@@ -163,7 +163,7 @@ def test_kernels_compile_and_agree_with_the_array_path():
                else a for a, n in zip(args, kernel_args(fn))]
         arr = [np.array([True]) if n == "closed" else a for a, n in zip(arr, kernel_args(fn))]
         want = fn(*arr)
-        flo = [float(np.ravel(a)[0]) if np.size(a) == 1 and n not in ("tab_r", "tab_a", "tab_idx")
+        flo = [float(np.ravel(a)[0]) if np.size(a) == 1 and n not in ("tab_r", "tab_a", "tab_idx", "tab_ia")
                else a for a, n in zip(args, kernel_args(fn))]
         flo = [True if n == "closed" else a for a, n in zip(flo, kernel_args(fn))]
         got = _compiled(fn)(*flo)
@@ -321,12 +321,14 @@ def test_packs_its_flame_tables_as_batch_wide_arrays():
 
     m = build_batch([load_config("demo", FAST)], get_registry()).models["burn"]
     P = m.pack()
-    assert {n for n, v in P.items() if is_shared_array(v)} == {"tab_r", "tab_a", "tab_idx", "tab_wet"}
-    assert P["tab_r"].size == P["tab_a"].size == P["tab_idx"].size == P["tab_wet"].size == EB.N_HEIGHT * EB.N_FILL
+    assert {n for n, v in P.items() if is_shared_array(v)} == {"tab_r", "tab_a", "tab_idx", "tab_ia", "tab_wet"}
+    assert P["tab_r"].size == P["tab_idx"].size == P["tab_wet"].size == EB.N_HEIGHT * EB.N_FILL
+    assert P["tab_a"].size == P["tab_ia"].size == EB.N_HEIGHT * EB.N_BRUSH * EB.N_FILL
     assert compiled_form(m) == "kernel"
     two = build_batch([load_config("demo", FAST + [f"engine.bore_mm={d}"]) for d in (79.0, 86.0)],
                       get_registry()).models["burn"].pack()
     assert two["tab_r"].size == 2 * P["tab_r"].size and list(two["off"]) == [0.0, P["tab_r"].size]
+    assert list(two["off_a"]) == [0.0, P["tab_a"].size]
     assert loop_status(EB.EntrainmentBurn).startswith("compiled")
 
 

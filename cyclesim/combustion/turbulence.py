@@ -43,6 +43,18 @@ number of an expanding sphere, whose front moves at (rho_u / rho_b) S_L; thick f
 density, much burned-gas dilution) are slowed the most.  The Taylor microscale, by contrast, follows from
 the K-k model's own dissipation eps = u'^3 / L, so it uses L.
 
+**Flame brush** (Taylor 1921, Proc. London Math. Soc. s2-20, 196-212: dispersion by continuous
+movements): the wrinkled front is displaced from its mean position by the eddies as fluid
+particles are, so its displacement has the variance
+
+    sigma^2 = 2 u'^2 tau_L^2 (t / tau_L - 1 + exp(-t / tau_L)),   tau_L = L_I / u',
+
+for an exponential Lagrangian autocorrelation exp(-s / tau_L) (the exponential form and the
+time scale L_I / u' are common practice); sigma grows as u' t at first and as
+sqrt(2 u'^2 tau_L t) once t >> tau_L.  That the turbulent premixed flame brush thickens by
+turbulent diffusion in this way is the reading of Lipatnikov & Chomiak (2002), Prog. Energy
+Combust. Sci. 28, 1-74 (from memory).
+
 All functions take floats or numpy arrays (broadcast together), SI units, are branch-free and
 compile with numba as they are.
 """
@@ -126,6 +138,16 @@ def stretch_factor(s_l, u, L, nu, r_f, expansion):
     u_s = np.maximum(u, 0.0) / np.maximum(s_l, 1e-6)
     strain = np.sqrt(l_f / (15.0 * L)) * u_s * np.sqrt(u_s)
     return np.maximum(1.0 - strain - 2.0 * l_f * expansion / np.maximum(r_f, 1e-9), 0.0)
+
+
+def brush_displacement(u, t, L):
+    """RMS displacement sigma [m] of the flame front from its mean position, t [s] after the
+    spark, by turbulence of intensity u [m/s] and integral scale L [m] (Taylor 1921 with the
+    exponential Lagrangian correlation, tau_L = L / u').  x - 1 + exp(-x) is taken as
+    x + expm1(-x), whose rounding error relative to its value x^2 / 2 is about 4e-16 / x."""
+    tau = L / np.maximum(u, 1e-6)
+    x = np.maximum(t, 0.0) / tau
+    return u * tau * np.sqrt(np.maximum(2.0 * (x + np.expm1(-x)), 0.0))
 
 
 def kernel_turbulence_factor(r_f, t, L, u):
