@@ -111,6 +111,8 @@ class EngineResult:
     manifold_traces: tuple | None = None
     wall_mean_K: np.ndarray | None = None
     end_states: list = field(default_factory=list)
+    coupling_history: list = field(default_factory=list)
+    """Per coupled cycle (:func:`cyclesim.engine.runner_links.coupling_history`)."""
 
     def summary_json(self) -> dict:
         from ..output import plain
