@@ -147,38 +147,44 @@ def far_end_admittance(manifolds, infos: list, cases_of) -> tuple[np.ndarray, np
     return Zi, Ze
 
 
-def _lap(p0, h, k, q_orifice, Q, pref, Z, intake):
+def _lap(p0, h, k, q_orifice, Q, pref, Z, shift, intake):
     """One lap [Pa] (rows, n+1) of the shared volumes from ``p0`` (rows,): implicit Euler in steps of
     ``h`` [deg] of ``dp/dphi = k (inflow - outflow)``, the orifice flow ``q_orifice(p)`` [kg/deg]
     (into an intake volume, out of an exhaust one) and the runners' far-end flow ``Q`` (rows, n)
-    [kg/deg] (out of an intake volume, into an exhaust one) seen at the pressures ``pref`` (rows, n),
-    answering the volume's pressure ``x`` by ``Z (x - pref)`` [kg/deg] (``Z`` (rows,),
-    :func:`far_end_admittance`); a row without runners (``Z`` 0) draws ``Q x / pref`` on the intake
-    side and gives ``Q`` on the exhaust side, as :func:`cyclesim.loops.filling.pressure_rate`."""
+    [kg/deg] (out of an intake volume, into an exhaust one) seen at the pressures ``pref`` (rows, n).
+
+    The runners' answer to the volume's pressure ``x``: over the cycle as without runners (the intake
+    draw in proportion to ``x / pref``, the exhaust's unchanged, as
+    :func:`cyclesim.loops.filling.pressure_rate`), and to its swings about that mean ``Z (x - pref -
+    shift)`` [kg/deg] (``Z`` (rows,), :func:`far_end_admittance`; ``shift`` (rows,) [Pa], the lap's
+    mean of ``x - pref``, so the swings' term adds nothing over the cycle)."""
     from ..loops.filling import NEWTON_PASSES, P_FLOOR
 
     n = Q.shape[1]
     out = np.empty((p0.shape[0], n + 1))
     out[:, 0] = p0
     dp = 1.0
-    has = Z > 0
     for j in range(n):
         p = out[:, j]
         x = p
         for _ in range(NEWTON_PASSES):
             q = q_orifice(x)
             dq = (q_orifice(x + dp) - q) / dp
+            swing = Z * (x - pref[:, j] - shift)
             if intake:
-                draw = np.where(has, Q[:, j] + Z * (x - pref[:, j]), Q[:, j] * x / pref[:, j])
-                ddraw = np.where(has, Z, Q[:, j] / pref[:, j])
-                r, dr = k * (q - draw), k * (dq - ddraw)
+                r = k * (q - Q[:, j] * x / pref[:, j] - swing)
+                dr = k * (dq - Q[:, j] / pref[:, j] - Z)
             else:
-                give = Q[:, j] - Z * (x - pref[:, j])
-                r, dr = k * (give - q), -k * (Z + dq)
+                r, dr = k * (Q[:, j] - swing - q), -k * (Z + dq)
             g = x - p - h * r
             x = np.maximum(x - g / (1.0 - h * dr), P_FLOOR)
         out[:, j + 1] = x
     return out
+
+
+SHIFT_PASSES = 4
+"""Most passes of the volumes' periodic solve that update the mean ``shift`` of :func:`_lap`
+(it stops once the shift moves by less than 1 Pa)."""
 
 
 def solve_volumes(man, Qi, pref_i, Qe, pref_e, Zi, Ze, p0_i, p0_e):
@@ -200,6 +206,59 @@ def solve_volumes(man, Qi, pref_i, Qe, pref_e, Zi, Ze, p0_i, p0_e):
         return filling.boundary_flow(False, man.A_out, p, man.T_exh_x, man.R_exh_x, GAMMA_EXHAUST, man.p_amb_x,
                                      man.T_amb_x, R_AIR, GAMMA_AIR, man.omega_x, DP_LIN_DEFAULT)
 
-    pi = man._periodic(np.asarray(p0_i, float), lambda p0: _lap(p0, man.h, ki, q_thr, Qi, pref_i, Zi, True))
-    pe = man._periodic(np.asarray(p0_e, float), lambda p0: _lap(p0, man.h, ke, q_out, Qe, pref_e, Ze, False))
-    return pi, pe
+    out = []
+    for p0, k, q, Q, pref, Z, intake in ((p0_i, ki, q_thr, Qi, pref_i, Zi, True),
+                                         (p0_e, ke, q_out, Qe, pref_e, Ze, False)):
+        shift = np.zeros(len(Z))
+        start = np.asarray(p0, float)
+        for _ in range(SHIFT_PASSES):
+            tr = man._periodic(start, lambda a: _lap(a, man.h, k, q, Q, pref, Z, shift, intake))
+            new = np.mean(0.5 * (tr[:, :-1] + tr[:, 1:]) - pref, axis=1)
+            start = tr[:, 0].copy()
+            moved = np.max(np.abs(new - shift))
+            shift = new
+            if moved < 1.0:
+                break
+        out.append(tr)
+    return out[0], out[1]
+
+
+ANDERSON_MEMORY = 3
+"""Pairs the traces' Anderson acceleration keeps (:func:`relaxed_traces`)."""
+
+
+def relaxed_traces(accel: dict, key, p_int, p_exh, new_int, new_exh, relaxation: float):
+    """The volumes' next traces [Pa] of engine ``key``: the relaxed fixed-point step ``P + w (G(P) - P)``
+    accelerated by Anderson's method over the last coupled cycles (:class:`cyclesim.solve.anderson.Anderson`,
+    Walker & Ni 2011), held within 0.5..2 times the relaxed step; ``accel`` keeps each engine's history."""
+    from ..solve.anderson import Anderson
+
+    shape_e = p_exh.shape
+    x = np.concatenate([p_int, p_exh.ravel()]) / 1e5
+    g = np.concatenate([new_int, new_exh.ravel()]) / 1e5
+    fx = x + relaxation * (g - x)
+    acc = accel.setdefault(key, Anderson(ANDERSON_MEMORY))
+    nxt = acc.step(x[:, None], fx[:, None])[:, 0]
+    nxt = np.clip(nxt, 0.5 * fx, 2.0 * fx) * 1e5
+    n = len(p_int)
+    return nxt[:n], nxt[n:].reshape(shape_e)
+
+
+def mass_balance(tr, pos: int, names: dict) -> dict:
+    """The reported cycle's mass bookkeeping of case ``pos`` [kg]: the cylinder's valve counters, its
+    blow-by and mass change, each runner's valve-end and far-end fluxes and stored change, and what
+    the shared volumes took and got (:func:`far_end_draws`); ``throughput_kg`` the intake valve's."""
+    I = names
+    Y = tr.Y
+    tot = lambda row: float(Y[I[row], pos, -1] - Y[I[row], pos, 0])  # noqa: E731
+    out = {"valve_intake_kg": tot("m_int"), "valve_exhaust_kg": tot("m_exh"), "blowby_kg": tot("m_bb"),
+           "cylinder_change_kg": tot("m")}
+    for side, f in runner_far_flux_kg(tr, pos).items():
+        out[f"runner_to_cylinder_{side}_kg"] = f["to_cylinder"]
+        out[f"far_end_in_{side}_kg"] = f["far_end_in"]
+        out[f"stored_change_{side}_kg"] = f["stored_change"]
+    cum_i, cum_e = far_end_draws(tr, pos, I)
+    out["volume_draw_kg"] = float(cum_i[-1] - cum_i[0])
+    out["volume_gain_kg"] = float(cum_e[-1] - cum_e[0])
+    out["throughput_kg"] = abs(out["valve_intake_kg"])
+    return out
