@@ -72,7 +72,7 @@ def pack(runners, slots, cda, records, flows) -> tuple:
         rows.append((pipe.Q, pipe.G, pipe.face_area, pipe.P, pipe.ends, pipe.C, pipe.T_cell, pipe.p_end,
                      pipe.steps_taken, pipe.fallback_steps, float(pipe.gas.t_mid_K), int(pipe.gas.newton_steps),
                      int(DEFAULT_END_ITERATIONS), int(end), int(mid), np.zeros((B, 2, s.NF)),
-                     np.zeros(B, dtype=np.int64), np.zeros(B, dtype=np.int64), far, int(far.shape[0] == B)))
+                     np.zeros(B, dtype=np.int64), np.zeros(B, dtype=np.int64), far, int(runners.far_pressure is not None)))
     return (np.ascontiguousarray(slots, dtype=np.int64), np.ascontiguousarray(cda, dtype=float), tuple(rows),
             records, flows)
 
