@@ -145,6 +145,10 @@ MULTI_SCHEMA: tuple[Param, ...] = (
     P("throttle_discharge_coefficient", "-", 0.8, "discharge coefficient of the throttle", 0, 1,
       min_exclusive=True),
     P("exhaust_manifold_volume_L", "L", 1.5, "exhaust manifold volume", 0, 100, min_exclusive=True),
+    P("plenum_volume_L", "L", None, "with intake runners: the shared plenum they draw from (a junction"
+      " volume at one pressure; default intake_manifold_volume_L)", 0, 100, min_exclusive=True),
+    P("collector_volume_L", "L", None, "with exhaust runners: the collector they discharge into, shared"
+      " by each exhaust branch's runners (default exhaust_manifold_volume_L)", 0, 100, min_exclusive=True),
     P("exhaust_outlet_diameter_mm", "mm", 30.0, "effective diameter of the exhaust system's restriction",
       0, 500, min_exclusive=True),
     P("exhaust_branches", "-", None, "per cylinder (in number order): the exhaust branch it discharges into;"

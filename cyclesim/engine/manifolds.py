@@ -46,7 +46,7 @@ class _Manifolds:
         self.T_exh = np.array([e["T_exh"] for e in e0])
         self.R_int = np.array([e["R_int"] for e in e0])
         self.R_exh = np.array([e["R_exh"] for e in e0])
-        self.V_i = np.array([e["ms"].intake_manifold_volume_L * 1e-3 for e in e0])
+        self.V_i = np.array([e.get("V_int_L", e["ms"].intake_manifold_volume_L) * 1e-3 for e in e0])
         ms = [e["ms"] for e in e0]
         self.A_thr = np.array([m.throttle_discharge_coefficient * throttle_area(
             m.throttle_diameter_mm * 1e-3, m.throttle_angle_deg, m.throttle_closed_angle_deg) for m in ms])
@@ -63,7 +63,8 @@ class _Manifolds:
                 rows.append((j, share))
         ej = np.array([r[0] for r in rows], dtype=int)
         share = np.array([r[1] for r in rows])
-        self.V_e = np.array([e0[j]["ms"].exhaust_manifold_volume_L * 1e-3 for j in ej]) * share
+        self.V_e = np.array([e0[j].get("V_exh_L", e0[j]["ms"].exhaust_manifold_volume_L) * 1e-3
+                             for j in ej]) * share
         self.A_out = np.array([0.25 * math.pi * (e0[j]["ms"].exhaust_outlet_diameter_mm * 1e-3) ** 2
                                for j in ej]) * share
         self.X = len(rows)

@@ -111,6 +111,8 @@ class EngineResult:
     manifold_traces: tuple | None = None
     wall_mean_K: np.ndarray | None = None
     end_states: list = field(default_factory=list)
+    coupling_history: list = field(default_factory=list)
+    """Per coupled cycle (:func:`cyclesim.engine.runner_links.coupling_history`)."""
 
     def summary_json(self) -> dict:
         from ..output import plain
@@ -135,6 +137,9 @@ class EngineResult:
                          f" exhaust manifold {e['exhaust_manifold_mean_bar']:.4f} bar mean"
                          f" ({e['exhaust_manifold_min_bar']:.3f}..{e['exhaust_manifold_max_bar']:.3f});"
                          f" settled after {e['coupled_cycles']} coupled cycles")
+        if e.get("runners"):
+            lines.append("  runners: each cylinder's intake runner from the plenum, exhaust runner into its"
+                         " branch's collector (1-D; relaxed with the volumes cycle by cycle)")
         if e["manifolds"] == "coupled" and len(set(e.get("exhaust_branches", [1]))) > 1:
             lines.append("  exhaust branches (cylinder: branch): "
                          + ", ".join(f"{k + 1}: {b}" for k, b in enumerate(e["exhaust_branches"])))

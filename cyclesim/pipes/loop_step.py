@@ -11,7 +11,9 @@ its valve totals are booked over the cycle and handed to the cylinder as constan
 step (:func:`cyclesim.pipes.coupling.step_rates`, the function the numpy loop calls).
 
 The runners' arrays come packed by :func:`pack` (one tuple per runner, the same types for
-both); ``src`` (8,) is the step's source the loop's right-hand side reads: per side
+both; its last two, the far end's reservoir pressure per crank step (B, N) [Pa] and a flag, set
+it before the step where the far end follows a shared volume, the multi-cylinder engine's);
+``src`` (8,) is the step's source the loop's right-hand side reads: per side
 (intake at 0, exhaust at 4) a flag, the mass flow [kg/s], burned fraction [-] and enthalpy
 [J/kg] of what comes in.
 """
@@ -65,11 +67,12 @@ def pack(runners, slots, cda, records, flows) -> tuple:
     loop advances them in place."""
     B = runners.B
     rows = []
-    for pipe, end, mid in zip(runners.system.runners, runners.system.valve_ends, runners.mid):
+    for j, (pipe, end, mid) in enumerate(zip(runners.system.runners, runners.system.valve_ends, runners.mid)):
+        far = runners.far_row(j)
         rows.append((pipe.Q, pipe.G, pipe.face_area, pipe.P, pipe.ends, pipe.C, pipe.T_cell, pipe.p_end,
                      pipe.steps_taken, pipe.fallback_steps, float(pipe.gas.t_mid_K), int(pipe.gas.newton_steps),
                      int(DEFAULT_END_ITERATIONS), int(end), int(mid), np.zeros((B, 2, s.NF)),
-                     np.zeros(B, dtype=np.int64), np.zeros(B, dtype=np.int64)))
+                     np.zeros(B, dtype=np.int64), np.zeros(B, dtype=np.int64), far, int(runners.far_pressure is not None)))
     return (np.ascontiguousarray(slots, dtype=np.int64), np.ascontiguousarray(cda, dtype=float), tuple(rows),
             records, flows)
 
@@ -83,7 +86,10 @@ def crank_step(b, i, dur, p, T, Y, h_cyl, pipes, src):
     slots, cda, runners, records, flows = pipes
     PV, QM, TM, MP, EP = records
     for j in range(slots.shape[0]):
-        (Q, G, Af, P, E, C, Tc, Pe, taken, fell, t_mid, n_newton, n_iter, end, mid, acc, st, fb) = runners[j]
+        (Q, G, Af, P, E, C, Tc, Pe, taken, fell, t_mid, n_newton, n_iter, end, mid, acc, st, fb, far,
+         far_on) = runners[j]
+        if far_on:                                 # the far end's reservoir follows a shared volume
+            E[b, 1 - end, s.E_P] = far[b, i]
         # the runner at grid point i (RunnerCoupling.record)
         for q in range(s.NQ):
             QM[j, b, q, i] = Q[b, q, mid]

@@ -76,6 +76,12 @@ class RunnerSet:
             runners.append(pipe)
         self.system = PipeSystem(runners, [_VALVE_END] * len(runners))
         self.mid = [p.N // 2 for p in runners]
+        self.far_pressure: np.ndarray | None = None
+        """Far-end reservoir pressure per crank step [Pa] (n_sides, B, N), or None (constant, as set)."""
+        self.far_trace: tuple | None = None
+        self.theta: np.ndarray | None = None
+        self.carried = False
+        """True where the runners' state is carried from one integration to the next (the engine)."""
         self.cycle_flows: dict = {}
         self.cycle_start: dict = {}
         self.start_cycle()
@@ -121,11 +127,54 @@ class RunnerSet:
         self.cycle_start = {"mass_kg": c["mass_kg"], "energy_J": c["energy_J"],
                             "valve_pressure_pa": self.valve_pressure()}
 
-    def step(self, duration_s, valve_cda_m2, p, T, y_b) -> dict:
+    # -- far ends that follow a shared volume (the multi-cylinder engine) -----------------------
+    def bind_grid(self, theta) -> None:
+        """The crank grid [deg] (N+1,) the cycle steps on (the far-end pressures are per step)."""
+        self.theta = np.asarray(theta, dtype=float)
+        self._resample()
+
+    def set_far_traces(self, phi0_deg: float, step_deg: float, pressure_pa) -> None:
+        """Far-end reservoir pressures that vary over the cycle: ``pressure_pa`` (B, n_sides, M) [Pa]
+        on the periodic grid ``phi0_deg + step_deg * m`` of each case's own crank frame (720 deg
+        long); each crank step takes the value at its middle (linear interpolation)."""
+        p = np.asarray(pressure_pa, dtype=float)
+        if p.shape[:2] != (self.B, len(self.sides)) or not np.all(np.isfinite(p)) or np.any(p <= 0):
+            raise ConfigError("runners: far-end pressures must be finite, > 0 and (cases, sides, points)")
+        self.far_trace = (float(phi0_deg), float(step_deg), p)
+        self._resample()
+
+    def _resample(self) -> None:
+        if self.far_trace is None or self.theta is None:
+            return
+        phi0, h, p = self.far_trace
+        M = p.shape[2]
+        x = phi0 + h * np.arange(M + 1)
+        mid = 0.5 * (self.theta[:-1] + self.theta[1:])
+        at = ((mid - phi0) % (h * M)) + phi0
+        far = np.empty((len(self.sides), self.B, len(mid)))
+        for b in range(self.B):
+            for j in range(len(self.sides)):
+                far[j, b] = np.interp(at, x, np.append(p[b, j], p[b, j, 0]))
+        if self.far_pressure is not None and self.far_pressure.shape == far.shape:
+            self.far_pressure[...] = far            # in place: a compiled loop may hold this array
+        else:
+            self.far_pressure = np.ascontiguousarray(far)
+
+    def far_row(self, j: int) -> np.ndarray:
+        """Runner ``j``'s far-end pressures per crank step (B, N) [Pa] for the compiled loop; (1, 1)
+        zeros where its far end keeps the pressure it was set to."""
+        if self.far_pressure is None:
+            return np.zeros((1, 1))
+        return self.far_pressure[j]
+
+    def step(self, duration_s, valve_cda_m2, p, T, y_b, i: int | None = None) -> dict:
         """Advance every runner over one crank step of ``duration_s`` (B,) [s] with the valves'
         effective areas ``valve_cda_m2`` (B, n_sides) [m^2] and the cylinder at ``p`` [Pa], ``T``
         [K], ``y_b`` [-] (B,); returns what went into the cylinder (B, n_sides): ``mass_kg``,
         ``enthalpy_J``, ``burned_mass_kg``, and books it in :attr:`cycle_flows`."""
+        if self.far_pressure is not None and i is not None:
+            for j, pipe in enumerate(self.system.runners):
+                pipe.ends[:, _FAR_END, s.E_P] = self.far_pressure[j, :, i]
         out = advance_crank_step(self.system, duration_s, valve_cda_m2, p, T, np.clip(y_b, 0.0, 1.0))
         cf = self.cycle_flows
         for key in ("mass_kg", "enthalpy_J", "burned_mass_kg"):
@@ -181,8 +230,25 @@ def _pipe_gas(batch):
     return fuel_mixture(batch.fuel, phi)
 
 
+def carry_runners(batch) -> RunnerSet | None:
+    """The batch's runners, built once and kept with the batch, so that the integrations that follow
+    one another (the multi-cylinder engine's coupled cycles) carry the runners' state on; None
+    where its cases have none."""
+    rs = getattr(batch, "carried_runners", None)
+    if rs is None:
+        rs = build_runners(batch)
+        if rs is not None:
+            rs.carried = True
+            batch.carried_runners = rs
+    return rs
+
+
 def build_runners(batch) -> RunnerSet | None:
-    """The batch's runners, or None where its cases have none (a full-cycle batch only)."""
+    """The batch's runners, or None where its cases have none (a full-cycle batch only); those kept
+    with the batch by :func:`carry_runners` where there are such."""
+    kept = getattr(batch, "carried_runners", None)
+    if kept is not None:
+        return kept
     if batch.simulation.mode != "full":
         return None
     cases = batch.cases

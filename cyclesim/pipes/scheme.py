@@ -22,7 +22,9 @@ flux of the cell averages (positive under a CFL condition; Perthame and Shu
 1996) and the cell its wall sources and wall pressure of time n, an a
 posteriori limiting in the manner of MOOD (Clain, Diot and Loubere 2011,
 J. Comput. Phys. 230, 4028); where even that fails, the case's sub-step is
-halved and taken again (at most ``MAX_CUTS`` times).  Fluxes stay single valued
+halved and taken again (at most ``MAX_CUTS`` times).  An end whose face state leaves the pipe at
+or above its sound speed takes the interior's own flux (:func:`outflow_flux`), not the
+characteristic end solve, which assumes a subsonic interior.  Fluxes stay single valued
 per face, so conservation is untouched.
 """
 
@@ -122,9 +124,8 @@ def _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration,
             st = (rl, ul, pl, yl) if side < 0 else (rr, ur, pr, yr)
             rj, uj, pj, yj = (w[:, j] for w in st)
             _, cj = k.total_energy(rj, uj, pj, yj, cf1, cb1, Rf[:, 0], Rb[:, 0], t_mid)
-            ef = k.end_flux(rj, uj, pj, yj, cj * cj * rj / pj, side, Af[:, face],
-                            E[:, end, E_CDA], E[:, end, E_P], E[:, end, E_T], E[:, end, E_Y], E[:, end, E_K],
-                            cf1, cb1, Rf[:, 0], Rb[:, 0], t_mid, n_iter, Pe[:, end])
+            ef = _end_or_outflow(rj, uj, pj, yj, cj, side, Af[:, face], E[:, end], cf1, cb1, Rf[:, 0], Rb[:, 0],
+                                 t_mid, n_iter, Pe[:, end])
             Pe[:, end] = ef[4]
             for q in range(4):
                 F[q, :, face] = ef[q]
@@ -146,9 +147,8 @@ def _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration,
             for q in range(4):
                 F1[q, :, 1:-1] = fr[q] * Af[:, 1:-1]
             for end, (side, j, face) in enumerate(ends):
-                ef = k.end_flux(rho[:, j], u[:, j], p[:, j], Y[:, j], g[:, j], side, Af[:, face],
-                                E[:, end, E_CDA], E[:, end, E_P], E[:, end, E_T], E[:, end, E_Y], E[:, end, E_K],
-                                cf1, cb1, Rf[:, 0], Rb[:, 0], t_mid, n_iter, Pe[:, end])
+                ef = _end_or_outflow(rho[:, j], u[:, j], p[:, j], Y[:, j], c[:, j], side, Af[:, face], E[:, end],
+                                     cf1, cb1, Rf[:, 0], Rb[:, 0], t_mid, n_iter, Pe[:, end])
                 Pe[:, end] = np.where(flag[:, face], ef[4], Pe[:, end])
                 for q in range(4):
                     F1[q, :, face] = ef[q]
@@ -172,6 +172,32 @@ def _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration,
     return acc, steps, fallbacks
 
 
+def outflow_flux(rho, u, p, Y, area, cf, cb, Rf, Rb, t_mid):
+    """Fluxes through a pipe end where the gas leaves it supersonically, as :func:`cyclesim.pipes.kernels.end_flux`
+    returns them (in +x times ``area``; the end's pressure last): the interior state's own Euler fluxes.
+
+    With the outflow at or above the sound speed every characteristic leaves the pipe, so nothing
+    outside reaches the end (a transmissive boundary; Toro 2009, sec. 6.3.3, from memory).  The
+    characteristic end solve assumes a subsonic interior; applied to a supersonic end cell its
+    sonic state is hotter and denser than the cell and takes out more than the cell holds, which
+    drained such cells to the temperature floor (harsh nozzles larger than the pipe's end)."""
+    e, _ = k.energy(p / (rho * k.mixture_R(Y, Rf, Rb)), Y, cf, cb, t_mid)
+    m = rho * u * area
+    return m, (rho * u * u + p) * area, m * (e + p / rho + 0.5 * u * u), m * Y, p
+
+
+def _end_or_outflow(rj, uj, pj, yj, cj, side, area, Ej, cf, cb, Rf, Rb, t_mid, n_iter, p_guess):
+    """End fluxes (numpy, per case): :func:`cyclesim.pipes.kernels.end_flux`, or :func:`outflow_flux`
+    where the face state leaves the pipe at or above its sound speed through an open nozzle."""
+    ef = k.end_flux(rj, uj, pj, yj, cj * cj * rj / pj, side, area, Ej[:, E_CDA], Ej[:, E_P], Ej[:, E_T],
+                    Ej[:, E_Y], Ej[:, E_K], cf, cb, Rf, Rb, t_mid, n_iter, p_guess)
+    sup = (Ej[:, E_CDA] > 0.0) & (side * uj >= cj)
+    if not sup.any():
+        return ef
+    of = outflow_flux(rj, uj, pj, yj, area, cf, cb, Rf, Rb, t_mid)
+    return tuple(np.where(sup, o, e) for o, e in zip(of, ef))
+
+
 def _too_many_steps(n):
     from ..errors import SolverError
 
@@ -192,12 +218,23 @@ if COMPILED:
     kc = compiled_kernels()
 
     @njit(cache=True, error_model="numpy", fastmath=FASTMATH)
+    def _outflow_flux(rho, u, p, Y, area, cf, cb, Rf, Rb, t_mid):
+        """:func:`outflow_flux` on scalars, compiled."""
+        e, _ = kc.energy(p / (rho * kc.mixture_R(Y, Rf, Rb)), Y, cf, cb, t_mid)
+        m = rho * u * area
+        return m, (rho * u * u + p) * area, m * (e + p / rho + 0.5 * u * u), m * Y, p
+
+    @njit(cache=True, error_model="numpy", fastmath=FASTMATH)
     def _end_into(F, face, side, end, rj, uj, pj, yj, gj, b, Af, E, Pe, cf, cb, Rf, Rb, t_mid, n_iter):
         """Flux of end ``end`` from the face state (rj, uj, pj, yj, gamma gj) into column ``face`` of F."""
         n_it = n_iter if E[b, end, E_CDA] > 0.0 else 0      # a closed end needs no pressure iteration
-        f0, f1, f2, f3, pb = kc.end_flux(rj, uj, pj, yj, gj, side, Af[b, face], E[b, end, E_CDA], E[b, end, E_P],
-                                        E[b, end, E_T], E[b, end, E_Y], E[b, end, E_K], cf, cb, Rf, Rb, t_mid,
-                                        n_it, Pe[b, end])
+        if E[b, end, E_CDA] > 0.0 and side * uj * abs(side * uj) >= gj * pj / rj:
+            # supersonic outflow: every characteristic leaves the pipe, the face is the interior state
+            f0, f1, f2, f3, pb = _outflow_flux(rj, uj, pj, yj, Af[b, face], cf, cb, Rf, Rb, t_mid)
+        else:
+            f0, f1, f2, f3, pb = kc.end_flux(rj, uj, pj, yj, gj, side, Af[b, face], E[b, end, E_CDA],
+                                            E[b, end, E_P], E[b, end, E_T], E[b, end, E_Y], E[b, end, E_K],
+                                            cf, cb, Rf, Rb, t_mid, n_it, Pe[b, end])
         Pe[b, end] = pb
         F[0, face] = f0
         F[1, face] = f1

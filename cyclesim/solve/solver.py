@@ -536,9 +536,9 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     from ..pipes.runners import build_runners
 
     runners = build_runners(batch)
-    if runners is not None and initial is not None:
-        raise ConfigError("runners: runs that start from a given cylinder state (the multi-cylinder engine,"
-                          " cycle-by-cycle traces) do not carry the runners yet; set intake.runner: none and"
+    if runners is not None and initial is not None and not runners.carried:
+        raise ConfigError("runners: runs that start from a given cylinder state (cycle-by-cycle traces) do"
+                          " not carry the runners yet; set intake.runner: none and"
                           " exhaust.runner: none")
     system = CylinderSystem(batch, _RHS, _initial_state, tuple(events), runners)
     return solve(system, progress, initial, cycles, step_scale, _max_cycles)

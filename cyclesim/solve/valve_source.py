@@ -76,6 +76,7 @@ class RunnerCoupling:
         self.prev_mean = None      # the cycle before's means (RunnerSet.settle_change)
         self._m_pts = np.zeros_like(self.p_valve)
         self._e_pts = np.zeros_like(self.p_valve)
+        runners.bind_grid(pts.theta)
 
     def start_cycle(self) -> None:
         self.runners.start_cycle()
@@ -144,7 +145,7 @@ class RunnerCoupling:
         p = m / V * mp.R * T
         h_cyl = mp.u + mp.R * T
         dur = np.where(ok, h_deg * rhs.dt_dth, 0.0)
-        out = self.runners.step(dur, self.cda[:, :, i], p, T, yb)
+        out = self.runners.step(dur, self.cda[:, :, i], p, T, yb, i)
         for j, side in enumerate(self.sides):
             self.source.set_side(side, out["mass_kg"][:, j], out["enthalpy_J"][:, j], out["burned_mass_kg"][:, j],
                                  dur, yb, h_cyl)
@@ -166,7 +167,7 @@ class RunnerCoupling:
         self.prev_mean = mean
         return {"sides": self.sides, "p_valve": self.p_valve.copy(), "p_mid": self.p_mid.copy(),
                 "flows": {k: v.copy() for k, v in r.cycle_flows.items()},
-                "start": r.cycle_start, "end": end_state, "cycle_mean": mean, "cycle_mean_before": prev,
+                "start": r.cycle_start, "end": end_state, "mass_pts": self._m_pts.copy(), "cycle_mean": mean, "cycle_mean_before": prev,
                 "change": change,
                 "substeps_total": np.stack([p.steps_taken for p in r.system.runners], axis=1).astype(float),
                 "cells": np.array([p.N for p in r.system.runners], dtype=float)}

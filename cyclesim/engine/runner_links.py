@@ -1,0 +1,264 @@
+"""The cylinders' runners of a multi-cylinder engine joined at the shared plenum and exhaust collector.
+
+With ``intake.runner`` / ``exhaust.runner`` set (:mod:`cyclesim.config.runners`) and coupled
+manifolds, each cylinder's intake runner draws from the shared intake plenum and its exhaust
+runner discharges into the exhaust collector (one per exhaust branch).  Each shared volume is a
+junction of the runners that meet it, modelled as a lumped volume at one pressure: the
+filling-and-emptying manifold of :mod:`cyclesim.engine.manifolds` (isothermal, its throttle or
+outlet on the other side), whose pressure is the stagnation pressure of the reservoir at every
+runner's far end (an open end with the runner's entry loss on inflow into the runner, the
+nozzle relation of :func:`cyclesim.pipes.set_end`), and whose inflow and outflow are the
+runners' far-end fluxes.  Constant-pressure junction volume (Benson 1982, vol. 1, ch. 4: the
+junction as a pressure common to its branches; the lumped volume between them is filling and
+emptying, Heywood 1988, sec. 14.3; both from memory).
+
+Coupling: waveform relaxation through the 0-D volumes, as without runners.  A coupled cycle runs
+every cylinder with its runners over one cycle, each runner's far end following the volume's
+pressure trace of the iteration before (in the cylinder's own crank frame); then the volumes'
+periodic pressure traces are solved for the runners' far-end flows of that cycle.  The runners'
+state is carried from one coupled cycle to the next (:func:`cyclesim.pipes.runners.carry_runners`).
+A pulse of one cylinder travels up its runner into the collector, raises the collector's trace,
+and reaches the other cylinders' runners at their far ends in the next iteration; at the fixed
+point the traces, the cylinders and the runners repeat together.
+
+What the volumes receive: the mass through a runner's far end per engine-frame interval, the
+cylinder's valve mass (the cylinder's counters ``m_int``, ``m_exh``, which equal the runner's valve
+fluxes, :mod:`cyclesim.solve.valve_source`) plus the change of the runner's stored mass at the
+crank grid's points; over a cycle this equals the runner's far-end flux to rounding.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def has_runners(case) -> bool:
+    """True where the case has a runner on either side."""
+    return any(v is not None for v in getattr(case, "runners", {}).values())
+
+
+def far_end_draws(tr, pos: int, names: dict):
+    """Cumulative masses [kg] over the reported cycle of case ``pos`` of trace ``tr`` at its crank
+    points: drawn from the intake volume, and discharged into the exhaust volume.
+
+    Without a runner on a side: the valve's (and the intake port buffer's) counters, as the 0-D
+    manifolds take them.  With one: plus the runner's change of stored mass (into the runner's far
+    end = through the valve + stored)."""
+    I = names
+    cum_i = tr.Y[I["m_int"], pos] + tr.Y[I["m_ibuf"], pos] - tr.Y[I["m_ibuf"], pos, 0]
+    cum_e = -tr.Y[I["m_exh"], pos]
+    rec = getattr(tr, "runners", None)
+    if rec is not None:
+        for j, side in enumerate(rec["sides"]):
+            m = rec["mass_pts"][pos, j]
+            if side == "intake":
+                cum_i = cum_i + (m - m[0])
+            else:
+                cum_e = cum_e - (m - m[0])
+    return cum_i, cum_e
+
+
+def runner_cycle_means(tr, pos: int):
+    """The runners' cycle-mean stored mass [kg] and valve-end pressure [Pa] of case ``pos``
+    (n_sides,) each, or None without runners."""
+    rec = getattr(tr, "runners", None)
+    if rec is None:
+        return None
+    cm = rec["cycle_mean"]
+    return np.asarray(cm["mass_kg"][pos], float).copy(), np.asarray(cm["valve_pressure_pa"][pos], float).copy()
+
+
+def runner_far_flux_kg(tr, pos: int) -> dict:
+    """Over the reported cycle of case ``pos``: per side, the mass into the runner through its far end
+    (the pipe's own boundary flux), through its valve into the cylinder, and its stored-mass change
+    [kg]; empty without runners."""
+    rec = getattr(tr, "runners", None)
+    if rec is None:
+        return {}
+    out = {}
+    for j, side in enumerate(rec["sides"]):
+        out[side] = {"far_end_in": float(rec["flows"]["outer_mass_kg"][pos, j]),
+                     "to_cylinder": float(rec["flows"]["mass_kg"][pos, j]),
+                     "stored_change": float(rec["end"]["mass_kg"][pos, j] - rec["start"]["mass_kg"][pos, j])}
+    return out
+
+
+def push_far_traces(batch, phi0: float, step: float, pi, pe) -> None:
+    """Give the batch's carried runners their far-end reservoir pressures: the intake volume's
+    ``pi`` and the exhaust volume's ``pe`` (B, M) [Pa], on the grid ``phi0 + step m`` of each
+    case's own frame."""
+    rs = getattr(batch, "carried_runners", None)
+    if rs is None:
+        return
+    traces = np.stack([pi if side == "intake" else pe for side in rs.sides], axis=1)
+    rs.set_far_traces(phi0, step, traces)
+
+
+def coupling_history(per_cylinder: list) -> list[dict]:
+    """The convergence of the coupled cycles: one row per cycle with the relative change from the
+    cycle before of each cylinder's net IMEP and volumetric efficiency (the mass drawn from the
+    intake volume, relative) and the manifold traces' largest relative change.
+
+    ``per_cylinder``: per cylinder, per coupled cycle ``(imep_net_bar, drawn_kg, manifold_change)``."""
+    if not per_cylinder or not per_cylinder[0]:
+        return []
+    rows = []
+    for c in range(len(per_cylinder[0])):
+        row = {"cycle": c + 1, "manifold_change": max(h[c][2] for h in per_cylinder),
+               "imep_net_bar": [h[c][0] for h in per_cylinder],
+               "imep_change": [], "ve_change": []}
+        for h in per_cylinder:
+            if c == 0:
+                row["imep_change"].append(float("nan"))
+                row["ve_change"].append(float("nan"))
+            else:
+                row["imep_change"].append(abs(h[c][0] - h[c - 1][0]) / max(abs(h[c][0]), 0.1))
+                row["ve_change"].append(abs(h[c][1] - h[c - 1][1]) / abs(h[c][1]))
+        rows.append(row)
+    return rows
+
+
+def far_end_admittance(manifolds, infos: list, cases_of) -> tuple[np.ndarray, np.ndarray]:
+    """How strongly the runners meeting each shared volume answer a change of its pressure [kg/(Pa deg)]:
+    intake rows (E,) and exhaust-branch rows (X,) of ``manifolds`` (:class:`cyclesim.engine.manifolds._Manifolds`).
+
+    A pressure step ``dp`` at a pipe's open end sends a simple wave into it that moves the gas by
+    ``du = dp / (rho c)``, so the mass flow changes by ``A dp / c`` (the pipe's characteristic
+    admittance; acoustic impedance ``rho c / A``, Kinsler et al. 2000, *Fundamentals of Acoustics*,
+    sec. 10.2; from memory).  Summed over the runners of a volume, divided by the crank speed.
+    ``cases_of(e)``: the cylinder cases of engine ``e``'s info, in number order."""
+    from ..config.runners import runner_diameters_m
+    from .manifolds import GAMMA_AIR, GAMMA_EXHAUST
+
+    Zi = np.zeros(manifolds.E)
+    Ze = np.zeros(manifolds.X)
+    for j, inf in enumerate(infos):
+        w = manifolds.omega[j]
+        c_i = np.sqrt(GAMMA_AIR * inf["R_int"] * inf["T_int"])
+        c_e = np.sqrt(GAMMA_EXHAUST * inf["R_exh"] * inf["T_exh"])
+        for k, case in enumerate(cases_of(j)):
+            run = getattr(case, "runners", {})
+            if run.get("intake") is not None:
+                d = runner_diameters_m(run["intake"])[1]
+                Zi[j] += 0.25 * np.pi * d * d / c_i / w
+            if run.get("exhaust") is not None:
+                d = runner_diameters_m(run["exhaust"])[1]
+                Ze[manifolds.ex_rows[j][inf["branches"][k]]] += 0.25 * np.pi * d * d / c_e / w
+    return Zi, Ze
+
+
+def _lap(p0, h, k, q_orifice, Q, pref, Z, shift, intake):
+    """One lap [Pa] (rows, n+1) of the shared volumes from ``p0`` (rows,): implicit Euler in steps of
+    ``h`` [deg] of ``dp/dphi = k (inflow - outflow)``, the orifice flow ``q_orifice(p)`` [kg/deg]
+    (into an intake volume, out of an exhaust one) and the runners' far-end flow ``Q`` (rows, n)
+    [kg/deg] (out of an intake volume, into an exhaust one) seen at the pressures ``pref`` (rows, n).
+
+    The runners' answer to the volume's pressure ``x``: over the cycle as without runners (the intake
+    draw in proportion to ``x / pref``, the exhaust's unchanged, as
+    :func:`cyclesim.loops.filling.pressure_rate`), and to its swings about that mean ``Z (x - pref -
+    shift)`` [kg/deg] (``Z`` (rows,), :func:`far_end_admittance`; ``shift`` (rows,) [Pa], the lap's
+    mean of ``x - pref``, so the swings' term adds nothing over the cycle)."""
+    from ..loops.filling import NEWTON_PASSES, P_FLOOR
+
+    n = Q.shape[1]
+    out = np.empty((p0.shape[0], n + 1))
+    out[:, 0] = p0
+    dp = 1.0
+    for j in range(n):
+        p = out[:, j]
+        x = p
+        for _ in range(NEWTON_PASSES):
+            q = q_orifice(x)
+            dq = (q_orifice(x + dp) - q) / dp
+            swing = Z * (x - pref[:, j] - shift)
+            if intake:
+                r = k * (q - Q[:, j] * x / pref[:, j] - swing)
+                dr = k * (dq - Q[:, j] / pref[:, j] - Z)
+            else:
+                r, dr = k * (Q[:, j] - swing - q), -k * (Z + dq)
+            g = x - p - h * r
+            x = np.maximum(x - g / (1.0 - h * dr), P_FLOOR)
+        out[:, j + 1] = x
+    return out
+
+
+SHIFT_PASSES = 4
+"""Most passes of the volumes' periodic solve that update the mean ``shift`` of :func:`_lap`
+(it stops once the shift moves by less than 1 Pa)."""
+
+
+def solve_volumes(man, Qi, pref_i, Qe, pref_e, Zi, Ze, p0_i, p0_e):
+    """Periodic pressures [Pa] of the shared intake volumes (E, n+1) and exhaust volumes (X, n+1) for
+    the runners' far-end flows (:func:`_lap`), each lap's start found as
+    :meth:`cyclesim.engine.manifolds._Manifolds.solve` finds it."""
+    from .manifolds import GAMMA_AIR, GAMMA_EXHAUST, R_AIR
+    from ..loops import filling
+    from ..cylinder.flow import DP_LIN_DEFAULT
+
+    ki = man.R_int * man.T_int / man.V_i
+    ke = man.R_exh_x * man.T_exh_x / man.V_e
+
+    def q_thr(p):
+        return filling.boundary_flow(True, man.A_thr, p, man.T_int, R_AIR, GAMMA_AIR, man.p_sup, man.T_amb, R_AIR,
+                                     GAMMA_AIR, man.omega, DP_LIN_DEFAULT)
+
+    def q_out(p):
+        return filling.boundary_flow(False, man.A_out, p, man.T_exh_x, man.R_exh_x, GAMMA_EXHAUST, man.p_amb_x,
+                                     man.T_amb_x, R_AIR, GAMMA_AIR, man.omega_x, DP_LIN_DEFAULT)
+
+    out = []
+    for p0, k, q, Q, pref, Z, intake in ((p0_i, ki, q_thr, Qi, pref_i, Zi, True),
+                                         (p0_e, ke, q_out, Qe, pref_e, Ze, False)):
+        shift = np.zeros(len(Z))
+        start = np.asarray(p0, float)
+        for _ in range(SHIFT_PASSES):
+            tr = man._periodic(start, lambda a: _lap(a, man.h, k, q, Q, pref, Z, shift, intake))
+            new = np.mean(0.5 * (tr[:, :-1] + tr[:, 1:]) - pref, axis=1)
+            start = tr[:, 0].copy()
+            moved = np.max(np.abs(new - shift))
+            shift = new
+            if moved < 1.0:
+                break
+        out.append(tr)
+    return out[0], out[1]
+
+
+ANDERSON_MEMORY = 3
+"""Pairs the traces' Anderson acceleration keeps (:func:`relaxed_traces`)."""
+
+
+def relaxed_traces(accel: dict, key, p_int, p_exh, new_int, new_exh, relaxation: float):
+    """The volumes' next traces [Pa] of engine ``key``: the relaxed fixed-point step ``P + w (G(P) - P)``
+    accelerated by Anderson's method over the last coupled cycles (:class:`cyclesim.solve.anderson.Anderson`,
+    Walker & Ni 2011), held within 0.5..2 times the relaxed step; ``accel`` keeps each engine's history."""
+    from ..solve.anderson import Anderson
+
+    shape_e = p_exh.shape
+    x = np.concatenate([p_int, p_exh.ravel()]) / 1e5
+    g = np.concatenate([new_int, new_exh.ravel()]) / 1e5
+    fx = x + relaxation * (g - x)
+    acc = accel.setdefault(key, Anderson(ANDERSON_MEMORY))
+    nxt = acc.step(x[:, None], fx[:, None])[:, 0]
+    nxt = np.clip(nxt, 0.5 * fx, 2.0 * fx) * 1e5
+    n = len(p_int)
+    return nxt[:n], nxt[n:].reshape(shape_e)
+
+
+def mass_balance(tr, pos: int, names: dict) -> dict:
+    """The reported cycle's mass bookkeeping of case ``pos`` [kg]: the cylinder's valve counters, its
+    blow-by and mass change, each runner's valve-end and far-end fluxes and stored change, and what
+    the shared volumes took and got (:func:`far_end_draws`); ``throughput_kg`` the intake valve's."""
+    I = names
+    Y = tr.Y
+    tot = lambda row: float(Y[I[row], pos, -1] - Y[I[row], pos, 0])  # noqa: E731
+    out = {"valve_intake_kg": tot("m_int"), "valve_exhaust_kg": tot("m_exh"), "blowby_kg": tot("m_bb"),
+           "cylinder_change_kg": tot("m")}
+    for side, f in runner_far_flux_kg(tr, pos).items():
+        out[f"runner_to_cylinder_{side}_kg"] = f["to_cylinder"]
+        out[f"far_end_in_{side}_kg"] = f["far_end_in"]
+        out[f"stored_change_{side}_kg"] = f["stored_change"]
+    cum_i, cum_e = far_end_draws(tr, pos, I)
+    out["volume_draw_kg"] = float(cum_i[-1] - cum_i[0])
+    out["volume_gain_kg"] = float(cum_e[-1] - cum_e[0])
+    out["throughput_kg"] = abs(out["valve_intake_kg"])
+    return out
