@@ -68,6 +68,7 @@ from cyclesim.combustion.turbulence import (INTEGRAL_SCALE_RATIO, integral_lengt
                                             kk_rates, stretch_factor, taylor_microscale, turbulence_intensity, viscosity_air)
 from cyclesim.kernel_ops import where
 from cyclesim.loops.layout import shared_array
+from cyclesim.loops.zone_solve import cell_index
 from cyclesim.params import Param, StateVar
 from cyclesim.roles import BurnRate, SetupContext
 
@@ -111,18 +112,33 @@ def isentrope_temperature(T0, p_ratio, c0, c1, c2, R):
     return T
 
 
+def flat_interp(flat, q):
+    """``np.interp(q, idx, flat)`` for the flat index ``idx`` = 0, 1, 2, ... (as floats), by direct
+    indexing instead of a search: the same arithmetic, ``(flat[j+1] - flat[j]) (q - j) + flat[j]``
+    with j the integer part of ``q`` (``flat[j]`` where q is a node, the last value at or beyond
+    the end, the first below 0, NaN for NaN), for arrays and floats."""
+    last = flat.shape[0] - 1
+    qc = np.fmin(np.fmax(q, 0.0), last)             # NaN -> 0 (a valid index), restored below
+    j = np.minimum(cell_index(qc), last - 1)
+    t = qc - j
+    a = flat[j]
+    b = flat[j + 1]
+    return where(q == q, where(t >= 1.0, b, (b - a) * t + a), q)
+
+
 def table_lookup(flat, idx, off, h, s, h0, inv_dh, nh, ns):
     """Bilinear value of a flame table at clearance height ``h`` [m] and fill ``s`` [-].
 
     ``flat`` holds the tables of all cases row after row ((case, height) rows of ``ns`` values in
-    s uniform on [0, 1]); ``off`` is the case's first index.  Interpolation along s by np.interp
-    on the flat index ``idx`` (0, 1, 2, ... as floats), so the same code serves arrays and floats."""
+    s uniform on [0, 1]); ``off`` is the case's first index.  Interpolation along s on the flat
+    index ``idx`` (0, 1, 2, ... as floats; :func:`flat_interp` indexes it directly), so the same
+    code serves arrays and floats."""
     hp = np.minimum(np.maximum((h - h0) * inv_dh, 0.0), nh - 1.000001)
     i = np.floor(hp)
     w = hp - i
     sp = np.minimum(np.maximum(s, 0.0), 1.0) * (ns - 1.0)
-    lo = np.interp(off + i * ns + sp, idx, flat)
-    hi = np.interp(off + (i + 1.0) * ns + sp, idx, flat)
+    lo = flat_interp(flat, off + i * ns + sp)
+    hi = flat_interp(flat, off + (i + 1.0) * ns + sp)
     return (1.0 - w) * lo + w * hi
 
 

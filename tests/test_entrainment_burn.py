@@ -348,3 +348,19 @@ def test_auto_flame_data_follow_the_configs_fuel_and_say_when_they_cannot():
                                                     "fuel.lhv_MJ_per_kg=43.5"]))
     assert cust.error is None
     assert any("no laminar burning velocity correlation for fuel 'blend'" in w for w in cust.warnings)
+
+
+@settings(max_examples=60, deadline=None)
+@given(n=st.integers(2, 300), seed=st.integers(0, 2 ** 31 - 1))
+def test_flat_interp_is_numpys_interp_on_the_flat_index(n, seed):
+    # the flame tables' direct-index look-up gives np.interp's values on the index 0, 1, 2, ...
+    # bit for bit: inside, at the nodes, at and beyond both ends, and NaN for NaN (arrays here,
+    # floats in the compiled loop, the same source)
+    rng = np.random.default_rng(seed)
+    flat = rng.normal(size=n) * 10.0 ** rng.uniform(-3, 3)
+    q = np.concatenate([rng.uniform(-2.0, n + 1.0, 200), np.arange(-1.0, n + 1.0), [np.nan, n - 1.0,
+                        np.nextafter(n - 1.0, 0.0), np.nextafter(0.0, 1.0)]])
+    got = EB.flat_interp(flat, q)
+    assert np.array_equal(got, np.interp(q, np.arange(float(n)), flat), equal_nan=True)
+    assert [float(EB.flat_interp(flat, float(v))) for v in q[-4:-1]] == pytest.approx(
+        list(np.interp(q[-4:-1], np.arange(float(n)), flat)), nan_ok=True, rel=0, abs=0)
