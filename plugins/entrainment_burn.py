@@ -66,7 +66,7 @@ from cyclesim.combustion import laminar_flame as lf
 from cyclesim.combustion.laminar_flame import gulder, metghalchi_keck
 from cyclesim.combustion.turbulence import (INTEGRAL_SCALE_RATIO, integral_length, kernel_turbulence_factor,
                                             kk_rates, stretch_factor, taylor_microscale, turbulence_intensity, viscosity_air)
-from cyclesim.kernel_ops import where
+from cyclesim.kernel_ops import where, where_lazy
 from cyclesim.loops.layout import shared_array
 from cyclesim.loops.zone_solve import cell_index
 from cyclesim.params import Param, StateVar
@@ -164,12 +164,14 @@ def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, m
     entrained, both from their masses at the pressure, so the front reaches the last wall (s = 1,
     no front left) exactly when the whole charge is entrained, whatever the error of the burned
     gas's estimated temperature."""
-    T_u = where(T_u > 0.0, T_u, isentrope_temperature(T_ivc, p / p_ivc, cv0, cv1, cv2, R_u))
+    # (where_lazy: the compiled loop computes the isentrope only without the zone's T_u, and only
+    # the fuel's own laminar-speed correlation)
+    T_u = where_lazy(np.logical_not(T_u > 0.0), isentrope_temperature, (T_ivc, p / p_ivc, cv0, cv1, cv2, R_u), T_u)
     rho_u = p / (R_u * T_u)
     f = np.minimum(np.maximum(1.0 - (1.0 - y_b) / np.maximum(1.0 - eff * x_b, 1e-9), 0.0), 0.6)
-    s_mk = metghalchi_keck(phi, T_u, p, f, c_mk0, c_mk1, c_mk2)
-    s_g = gulder(phi, T_u, p, f, c_g0, c_g1, c_g2, c_g3, c_g4)
-    s_l = np.maximum(where(mk > 0.5, s_mk, s_g), 1e-3)
+    use_mk = mk > 0.5
+    s_g = where_lazy(np.logical_not(use_mk), gulder, (phi, T_u, p, f, c_g0, c_g1, c_g2, c_g3, c_g4), 0.0)
+    s_l = np.maximum(where_lazy(use_mk, metghalchi_keck, (phi, T_u, p, f, c_mk0, c_mk1, c_mk2), s_g), 1e-3)
     T_b = T_u + (1.0 - f) * dT_ad
     v_f = m * (x_b * R_b * T_b + np.maximum(x_e - x_b, 0.0) * R_u * T_u) / p
     v_f = np.maximum(v_f, 4.18879 * r0 * r0 * r0)

@@ -127,7 +127,8 @@ def test_flame_tables_give_a_free_sphere_while_small_and_fill_the_chamber():
 
 def _compiled(fn, done=None):
     """numba.njit of ``fn`` with every plain function it calls compiled the same way (the module
-    globals each reads, as the generated loops take them; kernel_ops.where by its overload)."""
+    globals each reads, as the generated loops take them; kernel_ops.where and where_lazy by their
+    overloads)."""
     import numba
 
     from cyclesim import kernel_ops
@@ -137,7 +138,7 @@ def _compiled(fn, done=None):
     env = dict(fn.__globals__)
     for ins in dis.get_instructions(fn):
         v = env.get(ins.argval) if ins.opname == "LOAD_GLOBAL" else None
-        if isinstance(v, types.FunctionType) and v is not kernel_ops.where:
+        if isinstance(v, types.FunctionType) and v not in (kernel_ops.where, kernel_ops.where_lazy):
             if v not in done:
                 done[v] = _compiled(v, done)
             env[ins.argval] = done[v]
