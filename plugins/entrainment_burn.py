@@ -296,6 +296,27 @@ def adiabatic_rise(gas: Any, B: int) -> tuple[np.ndarray, np.ndarray]:
     return T_b - AD_REF_T_K, np.asarray(R_b, float)
 
 
+_CHARGE_MEMO: dict = {}
+_CHARGE_MEMO_MAX = 32
+
+
+def _charge_constants(gas: Any, B: int) -> tuple:
+    """:func:`fit_cv` and :func:`adiabatic_rise` of a batch's charges, remembered for a batch of
+    the same charges (the gas tables' per-charge tables, held by the key: a spark or speed sweep
+    run again does not refit them); computed as before otherwise."""
+    cases = getattr(gas, "_cases", None)
+    key = (tuple(cases), B) if cases is not None and len(cases) == B else None
+    got = _CHARGE_MEMO.get(key) if key is not None else None
+    if got is None:
+        got = (fit_cv(gas, B), adiabatic_rise(gas, B))
+        if key is not None:
+            if len(_CHARGE_MEMO) >= _CHARGE_MEMO_MAX:
+                _CHARGE_MEMO.pop(next(iter(_CHARGE_MEMO)))
+            _CHARGE_MEMO[key] = got
+    cv, (dT_ad, R_b) = got
+    return cv.copy(), (dT_ad.copy(), R_b.copy())          # each model its own arrays
+
+
 class EntrainmentBurn(BurnRate):
     """Predictive turbulent flame-entrainment burn (Blizard & Keck 1974, Tabaczynski et al. 1977,
     Keck 1982), with a Herweg & Maly (1992) early kernel and K-k turbulence (Poulos & Heywood 1983).
@@ -420,9 +441,8 @@ class EntrainmentBurn(BurnRate):
         self.mk = 1.0 if code < 4 else 0.0
         self.c_mk = lf.MK_CONSTANTS[min(code, 3)]
         self.c_g = lf.GULDER_CONSTANTS[max(code - 4, 0)]
-        self.cv = fit_cv(gas, B)
+        self.cv, (self.dT_ad, self.R_b) = _charge_constants(gas, B)
         self.R_u = _arr(gas.R_unburned, B)
-        self.dT_ad, self.R_b = adiabatic_rise(gas, B)
         # turbulence at IVC from the mean inlet flow velocity
         val = ctx.valves
         Sp = _arr(g.mean_piston_speed(ctx.speed_rpm), B)

@@ -365,3 +365,21 @@ def test_flat_interp_is_numpys_interp_on_the_flat_index(n, seed):
     assert np.array_equal(got, np.interp(q, np.arange(float(n)), flat), equal_nan=True)
     assert [float(EB.flat_interp(flat, float(v))) for v in q[-4:-1]] == pytest.approx(
         list(np.interp(q[-4:-1], np.arange(float(n)), flat)), nan_ok=True, rel=0, abs=0)
+
+
+def test_charge_constants_are_remembered_only_for_the_same_charges():
+    # a batch of the same charges reuses the fresh-charge cv fit and the adiabatic rise (equal to a
+    # fresh computation), a batch of other charges (lambda) computes its own
+    from cyclesim.fuels import BUILTIN_FUELS
+    from cyclesim.solve.gas_tables import build_gas_tables
+
+    g1 = build_gas_tables(BUILTIN_FUELS["gasoline"], [1.0, 0.8])
+    g2 = build_gas_tables(BUILTIN_FUELS["gasoline"], [1.0, 0.8])     # the same per-charge tables
+    g3 = build_gas_tables(BUILTIN_FUELS["gasoline"], [1.0, 0.7])
+    cv1, (dT1, R1) = EB._charge_constants(g1, 2)
+    cv2, (dT2, R2) = EB._charge_constants(g2, 2)
+    assert np.array_equal(cv2, EB.fit_cv(g2, 2)) and np.array_equal(dT2, EB.adiabatic_rise(g2, 2)[0])
+    assert np.array_equal(cv1, cv2) and np.array_equal(R1, R2) and cv1 is not cv2
+    cv3, (dT3, _) = EB._charge_constants(g3, 2)
+    assert dT3[0] == dT1[0] and dT3[1] != dT1[1]
+    assert np.array_equal(dT3, EB.adiabatic_rise(g3, 2)[0])
