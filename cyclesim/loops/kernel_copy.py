@@ -37,7 +37,7 @@ def _source_copy(module: types.ModuleType) -> str:
     import os
     from pathlib import Path
 
-    from .. import kernel_ops
+    import cyclesim.kernel_ops as kernel_ops
     from . import _compiled, loopgen, zone_solve
 
     text = Path(module.__file__).read_bytes()
