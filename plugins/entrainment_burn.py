@@ -57,6 +57,7 @@ IVC proportional to it, from memory), and the turbulence ``k = ivc_turbulence_ra
 from __future__ import annotations
 
 import math
+import weakref
 from typing import Any, Mapping
 
 import numpy as np
@@ -302,17 +303,24 @@ _CHARGE_MEMO_MAX = 32
 
 def _charge_constants(gas: Any, B: int) -> tuple:
     """:func:`fit_cv` and :func:`adiabatic_rise` of a batch's charges, remembered for a batch of
-    the same charges (the gas tables' per-charge tables, held by the key: a spark or speed sweep
-    run again does not refit them); computed as before otherwise."""
+    the same charges (the gas tables' per-charge tables, known by identity through weak references,
+    so the memo keeps none of them alive: a spark or speed sweep run again does not refit them);
+    computed as before otherwise."""
     cases = getattr(gas, "_cases", None)
-    key = (tuple(cases), B) if cases is not None and len(cases) == B else None
-    got = _CHARGE_MEMO.get(key) if key is not None else None
+    key = (tuple(id(c) for c in cases), B) if cases is not None and len(cases) == B else None
+    hit = _CHARGE_MEMO.get(key) if key is not None else None
+    got = hit[1] if hit is not None and all(r() is c for r, c in zip(hit[0], cases)) else None
     if got is None:
         got = (fit_cv(gas, B), adiabatic_rise(gas, B))
         if key is not None:
-            if len(_CHARGE_MEMO) >= _CHARGE_MEMO_MAX:
-                _CHARGE_MEMO.pop(next(iter(_CHARGE_MEMO)))
-            _CHARGE_MEMO[key] = got
+            try:
+                refs = tuple(weakref.ref(c) for c in cases)
+            except TypeError:                 # tables that take no weak reference: not remembered
+                refs = None
+            if refs is not None:
+                if len(_CHARGE_MEMO) >= _CHARGE_MEMO_MAX and key not in _CHARGE_MEMO:
+                    _CHARGE_MEMO.pop(next(iter(_CHARGE_MEMO)))
+                _CHARGE_MEMO[key] = (refs, got)
     cv, (dT_ad, R_b) = got
     return cv.copy(), (dT_ad.copy(), R_b.copy())          # each model its own arrays
 
