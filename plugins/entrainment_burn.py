@@ -70,6 +70,7 @@ IVC proportional to it, from memory), and the turbulence ``k = ivc_turbulence_ra
 from __future__ import annotations
 
 import math
+import weakref
 from typing import Any, Mapping
 
 import numpy as np
@@ -80,8 +81,9 @@ from cyclesim.combustion.laminar_flame import gulder, metghalchi_keck
 from cyclesim.combustion.turbulence import (INTEGRAL_SCALE_RATIO, brush_displacement, integral_length,
                                             kernel_turbulence_factor, kk_rates, stretch_factor, taylor_microscale,
                                             turbulence_intensity, viscosity_air)
-from cyclesim.kernel_ops import where
+from cyclesim.kernel_ops import where, where_lazy
 from cyclesim.loops.layout import shared_array
+from cyclesim.loops.zone_solve import cell_index
 from cyclesim.params import Param, StateVar
 from cyclesim.roles import BurnRate, SetupContext
 
@@ -130,18 +132,33 @@ def isentrope_temperature(T0, p_ratio, c0, c1, c2, R):
     return T
 
 
+def flat_interp(flat, q):
+    """``np.interp(q, idx, flat)`` for the flat index ``idx`` = 0, 1, 2, ... (as floats), by direct
+    indexing instead of a search: the same arithmetic, ``(flat[j+1] - flat[j]) (q - j) + flat[j]``
+    with j the integer part of ``q`` (``flat[j]`` where q is a node, the last value at or beyond
+    the end, the first below 0, NaN for NaN), for arrays and floats."""
+    last = flat.shape[0] - 1
+    qc = np.fmin(np.fmax(q, 0.0), last)             # NaN -> 0 (a valid index), restored below
+    j = np.minimum(cell_index(qc), last - 1)
+    t = qc - j
+    a = flat[j]
+    b = flat[j + 1]
+    return where(q == q, where(t >= 1.0, b, (b - a) * t + a), q)
+
+
 def table_lookup(flat, idx, off, h, s, h0, inv_dh, nh, ns):
     """Bilinear value of a flame table at clearance height ``h`` [m] and fill ``s`` [-].
 
     ``flat`` holds the tables of all cases row after row ((case, height) rows of ``ns`` values in
-    s uniform on [0, 1]); ``off`` is the case's first index.  Interpolation along s by np.interp
-    on the flat index ``idx`` (0, 1, 2, ... as floats), so the same code serves arrays and floats."""
+    s uniform on [0, 1]); ``off`` is the case's first index.  Interpolation along s on the flat
+    index ``idx`` (0, 1, 2, ... as floats; :func:`flat_interp` indexes it directly), so the same
+    code serves arrays and floats."""
     hp = np.minimum(np.maximum((h - h0) * inv_dh, 0.0), nh - 1.000001)
     i = np.floor(hp)
     w = hp - i
     sp = np.minimum(np.maximum(s, 0.0), 1.0) * (ns - 1.0)
-    lo = np.interp(off + i * ns + sp, idx, flat)
-    hi = np.interp(off + (i + 1.0) * ns + sp, idx, flat)
+    lo = flat_interp(flat, off + i * ns + sp)
+    hi = flat_interp(flat, off + (i + 1.0) * ns + sp)
     return (1.0 - w) * lo + w * hi
 
 
@@ -187,12 +204,14 @@ def _flame_state(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, m
     entrained, both from their masses at the pressure, so the front reaches the last wall (s = 1,
     no front left) exactly when the whole charge is entrained, whatever the error of the burned
     gas's estimated temperature."""
-    T_u = where(T_u > 0.0, T_u, isentrope_temperature(T_ivc, p / p_ivc, cv0, cv1, cv2, R_u))
+    # (where_lazy: the compiled loop computes the isentrope only without the zone's T_u, and only
+    # the fuel's own laminar-speed correlation)
+    T_u = where_lazy(np.logical_not(T_u > 0.0), isentrope_temperature, (T_ivc, p / p_ivc, cv0, cv1, cv2, R_u), T_u)
     rho_u = p / (R_u * T_u)
     f = np.minimum(np.maximum(1.0 - (1.0 - y_b) / np.maximum(1.0 - eff * x_b, 1e-9), 0.0), 0.6)
-    s_mk = metghalchi_keck(phi, T_u, p, f, c_mk0, c_mk1, c_mk2)
-    s_g = gulder(phi, T_u, p, f, c_g0, c_g1, c_g2, c_g3, c_g4)
-    s_l = np.maximum(where(mk > 0.5, s_mk, s_g), 1e-3)
+    use_mk = mk > 0.5
+    s_g = where_lazy(np.logical_not(use_mk), gulder, (phi, T_u, p, f, c_g0, c_g1, c_g2, c_g3, c_g4), 0.0)
+    s_l = np.maximum(where_lazy(use_mk, metghalchi_keck, (phi, T_u, p, f, c_mk0, c_mk1, c_mk2), s_g), 1e-3)
     T_b = T_u + (1.0 - f) * dT_ad
     v_f = m * (x_b * R_b * T_b + np.maximum(x_e - x_b, 0.0) * R_u * T_u) / p
     v_f = np.maximum(v_f, 4.18879 * r0 * r0 * r0)
@@ -395,6 +414,34 @@ def heat_release_shape(theta, rate, dip: float = 0.02) -> dict:
             "fall_to_rise": float(fall / rise), "maxima": int(humps)}
 
 
+_CHARGE_MEMO: dict = {}
+_CHARGE_MEMO_MAX = 32
+
+
+def _charge_constants(gas: Any, B: int) -> tuple:
+    """:func:`fit_cv` and :func:`adiabatic_rise` of a batch's charges, remembered for a batch of
+    the same charges (the gas tables' per-charge tables, known by identity through weak references,
+    so the memo keeps none of them alive: a spark or speed sweep run again does not refit them);
+    computed as before otherwise."""
+    cases = getattr(gas, "_cases", None)
+    key = (tuple(id(c) for c in cases), B) if cases is not None and len(cases) == B else None
+    hit = _CHARGE_MEMO.get(key) if key is not None else None
+    got = hit[1] if hit is not None and all(r() is c for r, c in zip(hit[0], cases)) else None
+    if got is None:
+        got = (fit_cv(gas, B), adiabatic_rise(gas, B))
+        if key is not None:
+            try:
+                refs = tuple(weakref.ref(c) for c in cases)
+            except TypeError:                 # tables that take no weak reference: not remembered
+                refs = None
+            if refs is not None:
+                if len(_CHARGE_MEMO) >= _CHARGE_MEMO_MAX and key not in _CHARGE_MEMO:
+                    _CHARGE_MEMO.pop(next(iter(_CHARGE_MEMO)))
+                _CHARGE_MEMO[key] = (refs, got)
+    cv, (dT_ad, R_b) = got
+    return cv.copy(), (dT_ad.copy(), R_b.copy())          # each model its own arrays
+
+
 class EntrainmentBurn(BurnRate):
     """Predictive turbulent flame-entrainment burn (Blizard & Keck 1974, Tabaczynski et al. 1977,
     Keck 1982), with a Herweg & Maly (1992) early kernel and K-k turbulence (Poulos & Heywood 1983).
@@ -528,9 +575,8 @@ class EntrainmentBurn(BurnRate):
         self.mk = 1.0 if code < 4 else 0.0
         self.c_mk = lf.MK_CONSTANTS[min(code, 3)]
         self.c_g = lf.GULDER_CONSTANTS[max(code - 4, 0)]
-        self.cv = fit_cv(gas, B)
+        self.cv, (self.dT_ad, self.R_b) = _charge_constants(gas, B)
         self.R_u = _arr(gas.R_unburned, B)
-        self.dT_ad, self.R_b = adiabatic_rise(gas, B)
         # turbulence at IVC from the mean inlet flow velocity
         val = ctx.valves
         Sp = _arr(g.mean_piston_speed(ctx.speed_rpm), B)

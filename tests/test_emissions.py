@@ -300,3 +300,18 @@ def test_element_heat_loss_is_the_burned_zones_share_of_the_wall_heat(demo, shar
     zone_sum = (el.Q[0, -1] - el.Q[0, j0]) + (zn.Q_u[0, -1] - zn.Q_u[0, j0])
     assert zone_sum == pytest.approx(Qw[-1] - Qw[j0], rel=0.03)
     assert el.Q[0, -1] > 0.5 * (Qw[-1] - Qw[j0])          # the hot burned gas takes most of it
+
+
+def test_two_zone_no_in_a_batch_equals_each_case_alone(shared_runs):
+    # a two-zone cylinder's NO runs as one batch (no case falls back to running alone) and each
+    # case's figures are its own, whatever its batch-mates (architecture: a case's result never
+    # depends on its batch-mates); rtol 1e-9: the same arithmetic, in a different array shape
+    base = ON + ["simulation.zones=two", "burn.model=entrainment", "simulation.step_deg=1.0"]
+    sparks = [16, 28]
+    res, _ = shared_runs.batch("demo_closed", [base + [f"burn.spark_advance_deg={a}"] for a in sparks])
+    for a, r in zip(sparks, res):
+        alone = shared_runs.run("demo_closed", base + [f"burn.spark_advance_deg={a}"])
+        assert r.ok and alone.ok
+        for k in ("no_ppm_wet", "no_ppm_dry", "burned_element_temperature_max_K", "imep_closed_bar"):
+            assert np.isfinite(r.summary[k]) and r.summary[k] == pytest.approx(alone.summary[k], rel=1e-9), k
+    assert res[0].summary["no_ppm_wet"] < res[1].summary["no_ppm_wet"]      # more advance, more NO

@@ -127,7 +127,8 @@ def test_flame_tables_give_a_free_sphere_while_small_and_fill_the_chamber():
 
 def _compiled(fn, done=None):
     """numba.njit of ``fn`` with every plain function it calls compiled the same way (the module
-    globals each reads, as the generated loops take them; kernel_ops.where by its overload)."""
+    globals each reads, as the generated loops take them; kernel_ops.where and where_lazy by their
+    overloads)."""
     import numba
 
     from cyclesim import kernel_ops
@@ -137,7 +138,7 @@ def _compiled(fn, done=None):
     env = dict(fn.__globals__)
     for ins in dis.get_instructions(fn):
         v = env.get(ins.argval) if ins.opname == "LOAD_GLOBAL" else None
-        if isinstance(v, types.FunctionType) and v is not kernel_ops.where:
+        if isinstance(v, types.FunctionType) and v not in (kernel_ops.where, kernel_ops.where_lazy):
             if v not in done:
                 done[v] = _compiled(v, done)
             env[ins.argval] = done[v]
@@ -350,3 +351,37 @@ def test_auto_flame_data_follow_the_configs_fuel_and_say_when_they_cannot():
                                                     "fuel.lhv_MJ_per_kg=43.5"]))
     assert cust.error is None
     assert any("no laminar burning velocity correlation for fuel 'blend'" in w for w in cust.warnings)
+
+
+@settings(max_examples=60, deadline=None)
+@given(n=st.integers(2, 300), seed=st.integers(0, 2 ** 31 - 1))
+def test_flat_interp_is_numpys_interp_on_the_flat_index(n, seed):
+    # the flame tables' direct-index look-up gives np.interp's values on the index 0, 1, 2, ...
+    # bit for bit: inside, at the nodes, at and beyond both ends, and NaN for NaN (arrays here,
+    # floats in the compiled loop, the same source)
+    rng = np.random.default_rng(seed)
+    flat = rng.normal(size=n) * 10.0 ** rng.uniform(-3, 3)
+    q = np.concatenate([rng.uniform(-2.0, n + 1.0, 200), np.arange(-1.0, n + 1.0), [np.nan, n - 1.0,
+                        np.nextafter(n - 1.0, 0.0), np.nextafter(0.0, 1.0)]])
+    got = EB.flat_interp(flat, q)
+    assert np.array_equal(got, np.interp(q, np.arange(float(n)), flat), equal_nan=True)
+    assert [float(EB.flat_interp(flat, float(v))) for v in q[-4:-1]] == pytest.approx(
+        list(np.interp(q[-4:-1], np.arange(float(n)), flat)), nan_ok=True, rel=0, abs=0)
+
+
+def test_charge_constants_are_remembered_only_for_the_same_charges():
+    # a batch of the same charges reuses the fresh-charge cv fit and the adiabatic rise (equal to a
+    # fresh computation), a batch of other charges (lambda) computes its own
+    from cyclesim.fuels import BUILTIN_FUELS
+    from cyclesim.solve.gas_tables import build_gas_tables
+
+    g1 = build_gas_tables(BUILTIN_FUELS["gasoline"], [1.0, 0.8])
+    g2 = build_gas_tables(BUILTIN_FUELS["gasoline"], [1.0, 0.8])     # the same per-charge tables
+    g3 = build_gas_tables(BUILTIN_FUELS["gasoline"], [1.0, 0.7])
+    cv1, (dT1, R1) = EB._charge_constants(g1, 2)
+    cv2, (dT2, R2) = EB._charge_constants(g2, 2)
+    assert np.array_equal(cv2, EB.fit_cv(g2, 2)) and np.array_equal(dT2, EB.adiabatic_rise(g2, 2)[0])
+    assert np.array_equal(cv1, cv2) and np.array_equal(R1, R2) and cv1 is not cv2
+    cv3, (dT3, _) = EB._charge_constants(g3, 2)
+    assert dT3[0] == dT1[0] and dT3[1] != dT1[1]
+    assert np.array_equal(dT3, EB.adiabatic_rise(g3, 2)[0])

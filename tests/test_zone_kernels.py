@@ -102,3 +102,34 @@ def test_numba_disabled_process_runs_the_plain_kernels():
     g = build_gas_tables(BUILTIN_FUELS["gasoline"], [1.0])
     here = bz.flame_temperature(g, g.enthalpy_unburned(np.array([750.0])), np.array([40e5]))[0]
     assert float(val) == pytest.approx(here, rel=1e-12)
+
+
+@pytest.mark.skipif(not _jit.compiled_wanted(), reason="numba not compiling in this process")
+def test_zone_columns_point_loop_equals_the_array_solve(monkeypatch):
+    # a finished two-zone trace's pressure and zone temperatures: the compiled point loop
+    # (cyclesim.loops.zone_points) against the same solve on whole arrays; each point stops at its
+    # own tolerance there (ln p to 1e-13, T to 1e-11), hence rtol 1e-9; NaN (no burned zone) alike
+    from cyclesim.loops import zones
+    from cyclesim.registry import get_registry
+    from cyclesim.results.figures import derived_trace
+    from cyclesim.results.zone_trace import two_zone_columns
+    from cyclesim.solve.batch import build_batch
+    from cyclesim.solve.solver import integrate
+
+    cases = [cyclesim.load_config("demo", ["simulation.zones=two", f"burn.spark_advance_deg={a}"]) for a in (10, 30)]
+    batch = build_batch(cases, get_registry(()))
+    tr = integrate(batch)
+    d = derived_trace(batch, tr)
+    calls = []
+    inner = zones._zones_points
+    monkeypatch.setattr(zones, "_zones_points", lambda *a: calls.append(1) or inner(*a))
+    fast = two_zone_columns(batch, tr, d)
+    monkeypatch.setattr(zones, "MIN_POINTS", 10 ** 12)      # the array solve
+    ref = two_zone_columns(batch, tr, d)
+    assert calls == [1]
+    for k in ("p", "T_u", "T_b"):
+        assert np.array_equal(np.isfinite(fast[k]), np.isfinite(ref[k])), k
+        ok = np.isfinite(ref[k])
+        np.testing.assert_allclose(fast[k][ok], ref[k][ok], rtol=1e-9, err_msg=k)
+    burning = np.isfinite(ref["T_b"]).sum(axis=1)
+    assert np.all(burning > 20)

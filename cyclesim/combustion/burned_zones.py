@@ -180,7 +180,9 @@ def _unburned(gas, T, p, y_u, R_u=None):
     the only density dependence, is negligible at unburned temperatures).
     """
     if R_u is None:
-        mp = _mix(gas, T, p / (gas.R_unburned * T), y_u)
+        R0 = np.asarray(gas.R_unburned, float)
+        R0 = R0.reshape(R0.shape + (1,) * (np.ndim(T) - 1))     # (B,) against (B,) or (B, n)
+        mp = _mix(gas, T, p / (R0 * T), y_u)
         R_u = mp.R
     mp = _mix(gas, T, p / (R_u * T), y_u)
     return mp.u, mp.u + mp.R * T, mp.R, mp.u_T + mp.R

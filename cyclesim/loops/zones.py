@@ -51,7 +51,9 @@ from __future__ import annotations
 import numpy as np
 
 from ..params import StateVar
-from . import zone_solve as _k
+from . import zone_points, zone_solve as _k
+from .kernel_copy import compiled_wanted, kernels
+from .zone_points import MIN_POINTS
 from .zone_solve import OPEN_FADE_DEG, X_BIRTH, X_BORN, X_MERGE  # noqa: F401 - the zones' constants
 
 ZONES = ("one", "two")
@@ -100,6 +102,10 @@ class ZoneTables:
     def __init__(self, gas):
         T0, T1, dT = _PHI_GRID
         n = int(round((T1 - T0) / dT)) + 1
+        got = getattr(gas, "_zone_tables", None)     # the gas's tables do not change: built once
+        if got is not None:
+            self.__dict__.update(got)
+            return
         Tn = T0 + dT * np.arange(n)
         B = gas.B
         TT = np.broadcast_to(Tn, (B, n)).copy()
@@ -117,6 +123,10 @@ class ZoneTables:
         self.phi_f, self.phi_r = out
         self._flat_f = self.phi_f.ravel()
         self._flat_r = self.phi_r.ravel()
+        try:
+            gas._zone_tables = dict(self.__dict__)
+        except AttributeError:       # a gas object that takes no attributes: built each time
+            pass
 
     def R_u(self, y_u, case):
         """Gas constant [J/(kg K)] of the unburned zone of burned-gas fraction ``y_u`` [-]."""
@@ -198,7 +208,25 @@ def cylinder_zones(gas, tab: ZoneTables, case, m, V, U, m_b, m_bz, s_u, p1, T, T
     merged both are the mixture's (:func:`cyclesim.results.zone_trace.two_zone_columns` blanks the
     unburned zone there).
     """
+    arrays = np.broadcast_arrays(case, m, V, U, m_b, m_bz, s_u, p1, T, T_ivc, p_ivc, closed)
+    if arrays[0].size >= MIN_POINTS and getattr(gas, "_compiled_consts", None) is not None and compiled_wanted():
+        return _zones_points(gas, tab, arrays)
     return _k.cylinder_zones(gas, *tab.args(case), m, V, U, m_b, m_bz, s_u, p1, T, T_ivc, p_ivc, closed)
+
+
+def _zones_points(gas, tab: ZoneTables, arrays):
+    """:func:`cylinder_zones` by the compiled point loop (:mod:`cyclesim.loops.zone_points`): the
+    pressure and zone temperatures there, the masks and y_u on arrays as before."""
+    shape = arrays[0].shape
+    case, m, V, U, m_b, m_bz, s_u, p1, T, T_ivc, p_ivc, closed = (np.ascontiguousarray(a).ravel() for a in arrays)
+    out = [np.empty(case.size) for _ in range(3)]
+    kernels(zone_points).cylinder_zones_points(
+        *gas._compiled_consts(), tab._flat_f, tab._flat_r, int(tab.n), float(tab.T0), float(tab.dT), tab.R_f,
+        tab.R_r, case.astype(np.int64), *(a.astype(float) for a in (m, V, U, m_b, m_bz, s_u, p1, T, T_ivc, p_ivc)),
+        closed.astype(np.bool_), *out)
+    y_u = _k.unburned_fraction_burned(m, m_b, m_bz)
+    active, born = masks(closed, m, m_bz)
+    return tuple(a.reshape(shape) for a in (*out, y_u, active, born))
 
 
 def zone_rates(closed, m, m_bz, y_u, T_u, T_b, T_wall, dm_burn, fbb, dQ, area_b=None):
