@@ -132,14 +132,23 @@ def hermite_peak(theta, Yr, Fr, lo=None, hi=None):
 
 def hermite_crossing(theta, Yr, Fr, level, start=None):
     """First angle where a non-decreasing row (B, N+1) reaches ``level`` (NaN if never)."""
+    return hermite_crossings(theta, Yr, Fr, (level,), start)[0]
+
+
+def hermite_crossings(theta, Yr, Fr, levels, start=None):
+    """:func:`hermite_crossing` at several levels at once: (len(levels), B) angles.
+
+    All levels go through one bracketing and Newton pass (the same element-wise arithmetic as one
+    level at a time, so the same angles to the digit, for one set of array operations)."""
     B, n1 = Yr.shape
-    ok = Yr >= level
+    lev = np.asarray(levels, float).reshape(-1, 1)          # (L, 1)
+    ok = Yr[None, :, :] >= lev[:, :, None]                   # (L, B, N+1)
     if start is not None:
-        ok &= theta[None, :] >= np.asarray(start).reshape(-1, 1)
-    has = ok.any(axis=1)
-    k = np.argmax(ok, axis=1)
+        ok &= (theta[None, :] >= np.asarray(start).reshape(-1, 1))[None]
+    has = ok.any(axis=2)
+    k = np.argmax(ok, axis=2)
     j = np.clip(k - 1, 0, n1 - 2)
-    r = np.arange(B)
+    r = np.arange(B)[None, :]
     h = theta[j + 1] - theta[j]
     y0, y1 = Yr[r, j], Yr[r, j + 1]
     d0, d1 = Fr[r, j] * h, Fr[r, j + 1] * h
@@ -147,9 +156,9 @@ def hermite_crossing(theta, Yr, Fr, level, start=None):
     c1 = d0
     c2 = 3 * (y1 - y0) - 2 * d0 - d1
     c3 = 2 * (y0 - y1) + d0 + d1
-    r0 = y0 - level
-    lo = np.zeros(B)
-    hi = np.ones(B)
+    r0 = y0 - lev
+    lo = np.zeros(r0.shape)
+    hi = np.ones(r0.shape)
     # bisection brackets the first crossing to 2^-12, then Newton steps kept inside the
     # bracket converge quadratically (to rounding after two)
     for _ in range(12):
@@ -234,9 +243,8 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     xb, dxb = Y[I["x_b"]], F[I["x_b"]]
     motored = motored_cases(batch, soc)
     fired = ~motored & (xb[:, -1] > 0.5)
-    ca = {}
-    for lvl in (0.05, 0.10, 0.50, 0.90):
-        ca[lvl] = np.where(fired, hermite_crossing(th, xb, dxb, lvl), np.nan)
+    levels = (0.05, 0.10, 0.50, 0.90)
+    ca = dict(zip(levels, np.where(fired[None, :], hermite_crossings(th, xb, dxb, levels), np.nan)))
     out["spark_deg"] = np.asarray(burn.spark_deg(), float) * np.ones(B)
     out["spark_advance_deg"] = -out["spark_deg"]
     out["ca05_deg"] = ca[0.05]
