@@ -80,7 +80,8 @@ def _grid_and_lattice(batch, mode: str, step_scale: float = 1.0):
     model's ``flow_area(half)``."""
     from ..config import effective_step_deg
 
-    h = effective_step_deg(batch.simulation, float(batch.operating.speed_rpm[0])) * step_scale
+    h1 = effective_step_deg(batch.simulation, float(batch.operating.speed_rpm[0]))
+    h = h1 * step_scale
     k = getattr(batch, "_closed_step_k", None)       # fixed by the cases' settings: once per batch
     if k is None:
         classes = {role: type(model) for role, model in batch.models.items()}
@@ -92,7 +93,7 @@ def _grid_and_lattice(batch, mode: str, step_scale: float = 1.0):
         if k <= 1 or n % k:
             return fine, None
         half = np.linspace(-360.0, 360.0, 2 * n + 1)
-        areas = batch.models["valve_flow"].flow_area(half)
+        areas = _lattice_areas(batch, half, n, max(int(round(720.0 / h1)), 8))
         # where any case of the batch has its intake (ai) or exhaust (ae) valves open
         ai = (np.asarray(areas["intake"]) > 0).any(axis=0)
         ae = (np.asarray(areas["exhaust"]) > 0).any(axis=0)
@@ -121,6 +122,24 @@ def _grid_and_lattice(batch, mode: str, step_scale: float = 1.0):
     H = h * k
     n = max(int(math.ceil((b - a) / H - 1e-9)), 8)
     return np.linspace(a, b, n + 1), None
+
+
+def _lattice_areas(batch, half: np.ndarray, n: int, n_fine: int) -> dict:
+    """The valve model's ``flow_area(half)`` on a lattice of ``n`` steps per cycle.
+
+    The fine cycles' lattice (``n_fine`` steps) is evaluated once per batch; a longer-step lattice
+    of the start-up cycles (``n`` dividing ``n_fine``) reads its areas from it where its points
+    are (to the bit) the fine lattice's (:func:`_areas_on`)."""
+    if n_fine < n or n_fine % n:
+        return batch.models["valve_flow"].flow_area(half)
+    memo = batch.__dict__.setdefault("_fine_lattice_areas", {})
+    fine = memo.get(n_fine)
+    if fine is None:
+        fine_half = half if n == n_fine else np.linspace(-360.0, 360.0, 2 * n_fine + 1)
+        fine = memo[n_fine] = (fine_half, batch.models["valve_flow"].flow_area(fine_half))
+    if n == n_fine:
+        return fine[1]
+    return _areas_on(batch, half, fine)
 
 
 def _areas_on(batch, half: np.ndarray, lattice) -> dict:
