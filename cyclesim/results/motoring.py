@@ -87,10 +87,10 @@ def compression_work(batch, th, Y, F, i_w: int) -> np.ndarray:
     ivc = batch.valves.ivc_deg * np.ones(B)
     W, dW = Y[i_w], F[i_w]
     if batch.simulation.mode == "full":
-        w_ivc = hermite(th, W, dW, ivc)
-    else:
-        w_ivc = W[:, 0]
-    return w_ivc - hermite(th, W, dW, np.zeros(B))
+        # IVC and TDC in one interpolation (rows stacked: the same arithmetic per row)
+        w = hermite(th, np.concatenate([W, W]), np.concatenate([dW, dW]), np.concatenate([ivc, np.zeros(B)]))
+        return w[:B] - w[B:]
+    return W[:, 0] - hermite(th, W, dW, np.zeros(B))
 
 
 def polytropic_exponents(batch, th, p, dp) -> dict[str, np.ndarray]:
