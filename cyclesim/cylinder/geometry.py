@@ -163,6 +163,13 @@ class Geometry:
         for a fraction of the work where the cases share their geometry (a sweep of
         operating conditions).
         """
+        got = self.__dict__.get("_distinct")
+        if got is not None:         # a geometry is fixed once made: its distinct rows are too
+            return got
+        self._distinct = got = self._find_distinct()
+        return got
+
+    def _find_distinct(self) -> tuple["Geometry", np.ndarray]:
         from .distinct import distinct_rows
 
         cols = (self.bore_m, self.stroke_m, self.conrod_m, self.compression_ratio, self.pin_offset_m,

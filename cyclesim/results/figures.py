@@ -132,14 +132,23 @@ def hermite_peak(theta, Yr, Fr, lo=None, hi=None):
 
 def hermite_crossing(theta, Yr, Fr, level, start=None):
     """First angle where a non-decreasing row (B, N+1) reaches ``level`` (NaN if never)."""
+    return hermite_crossings(theta, Yr, Fr, (level,), start)[0]
+
+
+def hermite_crossings(theta, Yr, Fr, levels, start=None):
+    """:func:`hermite_crossing` at several levels at once: (len(levels), B) angles.
+
+    All levels go through one bracketing and Newton pass (the same element-wise arithmetic as one
+    level at a time, so the same angles to the digit, for one set of array operations)."""
     B, n1 = Yr.shape
-    ok = Yr >= level
+    lev = np.asarray(levels, float).reshape(-1, 1)          # (L, 1)
+    ok = Yr[None, :, :] >= lev[:, :, None]                   # (L, B, N+1)
     if start is not None:
-        ok &= theta[None, :] >= np.asarray(start).reshape(-1, 1)
-    has = ok.any(axis=1)
-    k = np.argmax(ok, axis=1)
+        ok &= (theta[None, :] >= np.asarray(start).reshape(-1, 1))[None]
+    has = ok.any(axis=2)
+    k = np.argmax(ok, axis=2)
     j = np.clip(k - 1, 0, n1 - 2)
-    r = np.arange(B)
+    r = np.arange(B)[None, :]
     h = theta[j + 1] - theta[j]
     y0, y1 = Yr[r, j], Yr[r, j + 1]
     d0, d1 = Fr[r, j] * h, Fr[r, j + 1] * h
@@ -147,9 +156,9 @@ def hermite_crossing(theta, Yr, Fr, level, start=None):
     c1 = d0
     c2 = 3 * (y1 - y0) - 2 * d0 - d1
     c3 = 2 * (y0 - y1) + d0 + d1
-    r0 = y0 - level
-    lo = np.zeros(B)
-    hi = np.ones(B)
+    r0 = y0 - lev
+    lo = np.zeros(r0.shape)
+    hi = np.ones(r0.shape)
     # bisection brackets the first crossing to 2^-12, then Newton steps kept inside the
     # bracket converge quadratically (to rounding after two)
     for _ in range(12):
@@ -234,9 +243,8 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     xb, dxb = Y[I["x_b"]], F[I["x_b"]]
     motored = motored_cases(batch, soc)
     fired = ~motored & (xb[:, -1] > 0.5)
-    ca = {}
-    for lvl in (0.05, 0.10, 0.50, 0.90):
-        ca[lvl] = np.where(fired, hermite_crossing(th, xb, dxb, lvl), np.nan)
+    levels = (0.05, 0.10, 0.50, 0.90)
+    ca = dict(zip(levels, np.where(fired[None, :], hermite_crossings(th, xb, dxb, levels), np.nan)))
     out["spark_deg"] = np.asarray(burn.spark_deg(), float) * np.ones(B)
     out["spark_advance_deg"] = -out["spark_deg"]
     out["ca05_deg"] = ca[0.05]
@@ -247,13 +255,15 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     out["burn_0_10_deg"] = ca[0.10] - out["spark_deg"]     # spark to 10 % burned (flame development)
     lo_win = -180.0 if mode == "full" else th[0]
     hi_win = 180.0 if mode == "full" else th[-1]
-    t_pmax, p_max = hermite_peak(th, p, dp, lo_win, hi_win)
+    # peak pressure and peak temperature in one search (rows stacked: the same arithmetic per row)
+    t_peaks, v_peaks = hermite_peak(th, np.concatenate([p, Y[1]]), np.concatenate([dp, F[1]]), lo_win, hi_win)
+    t_pmax, p_max = t_peaks[:B], v_peaks[:B]
     out["p_max_bar"] = p_max / 1e5
     out["theta_pmax_deg"] = t_pmax
     t_dp, dp_max = parabola_peak(th, dp, lo_win, hi_win)
     out["dp_dtheta_max_bar_per_deg"] = dp_max / 1e5
     out["theta_dp_max_deg"] = t_dp
-    out["T_max_K"] = hermite_peak(th, Y[1], F[1], lo_win, hi_win)[1]
+    out["T_max_K"] = v_peaks[B:]
     for k, v in polytropic_exponents(batch, th, p, dp).items():
         out[f"polytropic_exponent_{k}"] = v
     W_comp = compression_work(batch, th, Y, F, I["W"])
@@ -263,7 +273,9 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     dW = F[I["W"]]
     if mode == "full":
         W_net = W[:, -1] - W[:, 0]
-        W_gross = hermite(th, W, dW, 180.0) - hermite(th, W, dW, -180.0)
+        w_bdc = hermite(th, np.concatenate([W, W]), np.concatenate([dW, dW]),
+                        np.repeat([180.0, -180.0], B))        # both BDCs in one interpolation
+        W_gross = w_bdc[:B] - w_bdc[B:]
         out["imep_net_bar"] = W_net / Vd / 1e5
         out["imep_gross_bar"] = W_gross / Vd / 1e5
         out["pmep_bar"] = (W_gross - W_net) / Vd / 1e5
@@ -272,9 +284,10 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
         out["imep_closed_bar"] = W_net / Vd / 1e5
     ivc = batch.valves.ivc_deg * np.ones(B)
     if mode == "full":
-        m_tr = hermite(th, Y[0], F[0], ivc)
-        mb_tr = hermite(th, Y[2], F[2], ivc)
-        mint_tr = hermite(th, Y[I["m_int"]], F[I["m_int"]], ivc)
+        # the three masses at IVC in one interpolation (rows stacked: the same arithmetic per row)
+        rows = [0, 2, I["m_int"]]
+        m_tr, mb_tr, mint_tr = hermite(th, Y[rows].reshape(3 * B, -1), F[rows].reshape(3 * B, -1),
+                                       np.tile(ivc, 3)).reshape(3, B)
     else:
         m_tr, mb_tr, mint_tr = Y[0, :, 0], Y[2, :, 0], np.zeros(B)
     out["trapped_mass_mg"] = m_tr * 1e6

@@ -87,10 +87,10 @@ def compression_work(batch, th, Y, F, i_w: int) -> np.ndarray:
     ivc = batch.valves.ivc_deg * np.ones(B)
     W, dW = Y[i_w], F[i_w]
     if batch.simulation.mode == "full":
-        w_ivc = hermite(th, W, dW, ivc)
-    else:
-        w_ivc = W[:, 0]
-    return w_ivc - hermite(th, W, dW, np.zeros(B))
+        # IVC and TDC in one interpolation (rows stacked: the same arithmetic per row)
+        w = hermite(th, np.concatenate([W, W]), np.concatenate([dW, dW]), np.concatenate([ivc, np.zeros(B)]))
+        return w[:B] - w[B:]
+    return W[:, 0] - hermite(th, W, dW, np.zeros(B))
 
 
 def polytropic_exponents(batch, th, p, dp) -> dict[str, np.ndarray]:
@@ -103,7 +103,9 @@ def polytropic_exponents(batch, th, p, dp) -> dict[str, np.ndarray]:
     :data:`POLYTROPIC_MIN_LN_V_SPAN` over it (a compression ratio next to 1: no slope to fit).
     """
     B = batch.B
-    geo = batch.geometry
+    # ln V per distinct engine of the batch (one row in a sweep of operating conditions), each
+    # case reading its engine's row: the same numbers as evaluated per case, at a fraction of the cost
+    geo_u, geo_rows = batch.geometry.distinct()
     ivc = float(np.min(batch.valves.ivc_deg))
     evo = float(np.max(batch.valves.evo_deg))
     out = {}
@@ -113,7 +115,7 @@ def polytropic_exponents(batch, th, p, dp) -> dict[str, np.ndarray]:
             out[name] = np.full(B, np.nan)
             continue
         g = np.linspace(a, b, int(round((b - a) * POLYTROPIC_POINTS_PER_DEG)) + 1)
-        x = np.log(np.broadcast_to(geo.volume(g), (B, g.size)))
+        x = np.log(geo_u.volume(g))[geo_rows]
         y = np.log(np.maximum(hermite_grid(th, p, dp, g), 1e-300))
         xc = x - x.mean(axis=1, keepdims=True)
         yc = y - y.mean(axis=1, keepdims=True)

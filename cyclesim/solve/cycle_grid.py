@@ -71,9 +71,17 @@ def grid_for(batch, mode: str, step_scale: float = 1.0) -> np.ndarray:
     Closed mode: uniform at ``CLOSED_STEP_FACTOR * h``.  A submodel's
     ``closed_step_limit`` caps the factor.
     """
+    return _grid_and_lattice(batch, mode, step_scale)[0]
+
+
+def _grid_and_lattice(batch, mode: str, step_scale: float = 1.0):
+    """:func:`grid_for`'s grid and the valve areas it was cut by: ``(theta, None)``, or
+    ``(theta, (half, areas))`` with the lattice's points and midpoints ``half`` and the valve
+    model's ``flow_area(half)``."""
     from ..config import effective_step_deg
 
-    h = effective_step_deg(batch.simulation, float(batch.operating.speed_rpm[0])) * step_scale
+    h1 = effective_step_deg(batch.simulation, float(batch.operating.speed_rpm[0]))
+    h = h1 * step_scale
     k = getattr(batch, "_closed_step_k", None)       # fixed by the cases' settings: once per batch
     if k is None:
         classes = {role: type(model) for role, model in batch.models.items()}
@@ -83,9 +91,9 @@ def grid_for(batch, mode: str, step_scale: float = 1.0) -> np.ndarray:
         n = max(int(round(720.0 / h)), 8)
         fine = np.linspace(-360.0, 360.0, n + 1)
         if k <= 1 or n % k:
-            return fine
+            return fine, None
         half = np.linspace(-360.0, 360.0, 2 * n + 1)
-        areas = batch.models["valve_flow"].flow_area(half)
+        areas = _lattice_areas(batch, half, n, max(int(round(720.0 / h1)), 8))
         # where any case of the batch has its intake (ai) or exhaust (ae) valves open
         ai = (np.asarray(areas["intake"]) > 0).any(axis=0)
         ae = (np.asarray(areas["exhaust"]) > 0).any(axis=0)
@@ -108,12 +116,42 @@ def grid_for(batch, mode: str, step_scale: float = 1.0) -> np.ndarray:
             evb = ev[: 4 * nb].reshape(nb, 4).any(axis=1) | ev[4::4][:nb]
             mid_inner = (j % 2 == 1) & ~evb[np.minimum(j // 2, nb - 1)]
             inner = inner | mid_inner
-        return fine[~inner]
+        return fine[~inner], (half, areas)
     a = float(batch.valves.ivc_deg[0])
     b = float(batch.valves.evo_deg[0])
     H = h * k
     n = max(int(math.ceil((b - a) / H - 1e-9)), 8)
-    return np.linspace(a, b, n + 1)
+    return np.linspace(a, b, n + 1), None
+
+
+def _lattice_areas(batch, half: np.ndarray, n: int, n_fine: int) -> dict:
+    """The valve model's ``flow_area(half)`` on a lattice of ``n`` steps per cycle.
+
+    The fine cycles' lattice (``n_fine`` steps) is evaluated once per batch; a longer-step lattice
+    of the start-up cycles (``n`` dividing ``n_fine``) reads its areas from it where its points
+    are (to the bit) the fine lattice's (:func:`_areas_on`)."""
+    if n_fine < n or n_fine % n:
+        return batch.models["valve_flow"].flow_area(half)
+    memo = batch.__dict__.setdefault("_fine_lattice_areas", {})
+    fine = memo.get(n_fine)
+    if fine is None:
+        fine_half = half if n == n_fine else np.linspace(-360.0, 360.0, 2 * n_fine + 1)
+        fine = memo[n_fine] = (fine_half, batch.models["valve_flow"].flow_area(fine_half))
+    if n == n_fine:
+        return fine[1]
+    return _areas_on(batch, half, fine)
+
+
+def _areas_on(batch, half: np.ndarray, lattice) -> dict:
+    """The valve model's ``flow_area(half)``: read from the lattice's areas where every point of
+    ``half`` is (to the bit) one of the lattice's points, which the grid and its midpoints are
+    wherever their sums round exactly (the demo's steps); else evaluated."""
+    if lattice is not None:
+        lat, areas = lattice
+        j = np.minimum(np.searchsorted(lat, half), lat.size - 1)
+        if np.array_equal(lat[j], half):
+            return {k: np.asarray(v)[:, j] for k, v in areas.items()}
+    return batch.models["valve_flow"].flow_area(half)
 
 
 def _points(theta: np.ndarray) -> np.ndarray:
@@ -174,7 +212,7 @@ class CyclePoints:
 def cycle_points(batch, mode: str, events, step_scale: float = 1.0) -> CyclePoints:
     """The grid of one cycle (:func:`grid_for`) and its per-point data; ``events`` the cycle's
     :class:`cyclesim.solve.events.CycleEvents` (their angles set the masks)."""
-    theta = grid_for(batch, mode, step_scale)
+    theta, lattice = _grid_and_lattice(batch, mode, step_scale)
     N = len(theta) - 1
     half = _points(theta)
     B = batch.B
@@ -185,7 +223,7 @@ def cycle_points(batch, mode: str, events, step_scale: float = 1.0) -> CyclePoin
     if mode == "full":
         closed = events.closed_at(half)
         # where no valve of any case is open, the valve-flow terms are skipped
-        areas = batch.models["valve_flow"].flow_area(half)
+        areas = _areas_on(batch, half, lattice)
         op_ = (np.asarray(areas["intake"]) > 0).any(axis=0) | (np.asarray(areas["exhaust"]) > 0).any(axis=0)
         op_ = op_ | np.roll(op_, 1) | np.roll(op_, -1)
         open_at = [bool(v) for v in op_]

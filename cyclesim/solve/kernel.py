@@ -611,7 +611,14 @@ def prepare(batch, rhs, pts, runners=None) -> tuple[Compiled | None, str]:
             import cyclesim.pipes.loop_step as loop_step
 
             step = (loop_step.__name__, loop_step.source_digest())
-        mod, loop, parts = _loop_for(batch, rhs, step)
+        # the loop depends on the batch's models and the state layout only: the start-up grids and
+        # the fine grid of one integration share it (looked up, and its kernels' key checked, once)
+        key = (rhs.mode, tuple(rhs.names), bool(getattr(rhs, "zones", False)), step, choice())
+        memo = batch.__dict__.setdefault("_loop_for", {})
+        got = memo.get(key)
+        if got is None:
+            got = memo[key] = _loop_for(batch, rhs, step)
+        mod, loop, parts = got
         if mod is None:
             return None, loop
         pipes = runners.compiled_pipes() if runners is not None else None

@@ -118,7 +118,7 @@ def _startup(system: CylinderSystem, step_scale: float):
     from ..config import effective_step_deg
 
     b = system.batch
-    fresh = system.initial_state(b, system.make_rhs(b, "full"), -360.0, "full")
+    fresh = None       # the default start state, made only if a case fails a start-up cycle
     start = None
     history: list = []
     reran = False
@@ -130,7 +130,10 @@ def _startup(system: CylinderSystem, step_scale: float):
         coarse = run_cycles(system, None, start, n_cyc, scale * step_scale, None)
         start = coarse.end_state.copy()
         bad = np.array([f is not None for f in coarse.failed]) | ~np.isfinite(start).all(axis=0)
-        start[:, bad] = fresh[:, bad]         # a case that failed a coarse cycle starts afresh
+        if bad.any():                         # a case that failed a coarse cycle starts afresh
+            if fresh is None:
+                fresh = system.initial_state(b, system.make_rhs(b, "full"), -360.0, "full")
+            start[:, bad] = fresh[:, bad]
         start[TOTALS] = 0.0
         history += coarse.history
         reran = reran or coarse.loop == LOOP_RERUN

@@ -533,9 +533,13 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     which is the reference), the events (:mod:`cyclesim.solve.events`) and the periodic-steady-state
     driver (:mod:`cyclesim.solve.periodic`).
     """
-    from ..pipes.runners import build_runners
+    runners = None
+    if any(ns is not None for ns in getattr(batch.cases[0], "runners", {}).values()):
+        # the pipe package (its compiled kernels loaded at import) only for a batch with runners:
+        # build_runners gives None for a batch whose first case has none
+        from ..pipes.runners import build_runners
 
-    runners = build_runners(batch)
+        runners = build_runners(batch)
     if runners is not None and initial is not None and not runners.carried:
         raise ConfigError("runners: runs that start from a given cylinder state (cycle-by-cycle traces) do"
                           " not carry the runners yet; set intake.runner: none and"

@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..pipes.coupling import step_rates
 
 
 class StepValveFlows:
@@ -39,6 +38,8 @@ class StepValveFlows:
     def set_side(self, side: str, mass_kg, enthalpy_J, burned_kg, duration_s, y_cyl, h_cyl) -> None:
         """Take one side's crank-step totals (B,) over ``duration_s`` (B,) [s]; where no gas moved the
         inflow state is the cylinder's own (``y_cyl``, ``h_cyl``; times a zero flow)."""
+        from ..pipes.coupling import step_rates   # (the pipe package loads only with runners)
+
         mdot, y, h = step_rates(mass_kg, enthalpy_J, burned_kg, duration_s, y_cyl, h_cyl)
         if side == "intake":
             self.mdot_int, self.y_int, self.h_int = mdot, y, h
