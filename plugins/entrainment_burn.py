@@ -487,6 +487,14 @@ class EntrainmentBurn(BurnRate):
     summary = ("predictive turbulent flame-entrainment burn (Keck) with Herweg-Maly kernel, K-k"
                " turbulence and the chamber's flame geometry; duration is an output")
     spark_param = "spark_advance_deg"
+
+    @classmethod
+    def shortest_feature_deg_for(cls, params):
+        """The predicted burn's angles are not known before the run; 16 deg, below the shortest
+        10-90 % angle of a spark-ignition burn (about 20 deg at full load, Heywood 1988 ch. 9,
+        from memory) and of every 0-10 % angle, lets the closed part take twice the step (16 steps
+        across it, :data:`cyclesim.solve.cycle_grid.MIN_FEATURE_STEPS`)."""
+        return 16.0
     fit_parameters = ("production_coefficient", "kernel_radius_mm")
     kernel = staticmethod(entrainment_rate)
     state_kernel = staticmethod(entrainment_states)
