@@ -1,6 +1,6 @@
 """The source of a kernel and of everything it reads, for the generated cycle loop.
 
-:func:`collect` gathers a kernel's function, the functions it calls and the globals it reads,
+:func:`_collect` gathers a kernel's function, the functions it calls and the globals it reads,
 recursively, into the three tables the generated module is written from (functions, constants,
 imports), keeping apart same-named helpers and constants of different plug-ins.  Used by
 :mod:`cyclesim.loops.loopgen`.
@@ -60,57 +60,56 @@ def _collect(fn, funcs: dict, consts: dict, imports: dict, taken=frozenset()) ->
             gen = f"{name}_{k}"
         return gen
 
+    def place(table, name, value):
+        """The name under which ``table`` holds ``value`` for ``name``: its own, one given to an
+        equal value before, or a free one."""
+        gen = next((n for n, v in table.items() if v == value and (n == name or n.startswith(name + "_"))), None)
+        if gen is None:
+            gen = free(name)
+            table[gen] = value
+        return gen
+
     me = free(fn.__name__)
     funcs[me] = (fn, None)              # seen (a recursive call finds it); the source follows
     renames = {}
     for name, val in sorted(_globals_read(fn).items()):
-        if isinstance(val, types.ModuleType):
-            if val.__name__ not in ("numpy", "math"):
-                raise LoopGenError(f"kernel {fn.__name__}: reads module {val.__name__!r}; only numpy and math compile")
-            target = val.__name__
-        elif val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above, kernel_ops.where_lazy):
-            target = f"cyclesim.kernel_ops.{val.__name__}"
-        elif val in zone_solve.OVERLOADED:
-            target = f"cyclesim.loops.zone_solve.{val.__name__}"     # compiled by overload
-        elif isinstance(val, types.FunctionType):
+        if isinstance(val, types.FunctionType) and not (
+                val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above, kernel_ops.where_lazy)
+                or val in zone_solve.OVERLOADED):
             gen = _collect(val, funcs, consts, imports, taken)
-            if gen != name:
-                renames[name] = gen
-            continue
         elif (isinstance(val, (bool, int, float)) and not isinstance(val, type)) or (
                 isinstance(val, tuple) and all(isinstance(v, (int, float)) for v in val)):
             text = repr(val)
             if name in own and isinstance(own[name], (int, float, tuple)) and repr(own[name]) == text:
                 continue                # the loop's module defines it alike (CYCLE_END_DEG)
-            gen = name if consts.get(name) == text else next(
-                (n for n, v in consts.items() if v == text and (n == name or n.startswith(name + "_"))), None)
-            if gen is None:
-                gen = free(name)
-                consts[gen] = text
-            if gen != name:
-                renames[name] = gen
-            continue
+            gen = place(consts, name, text)
         else:
-            raise LoopGenError(f"kernel {fn.__name__}: reads global {name!r} of type {type(val).__name__}"
-                               " (only numbers, tuples of numbers, numpy, math and plain functions compile)")
-        if name in own and getattr(own[name], "__name__", None) == target:
-            imports[name] = target
-            continue
-        gen = name if imports.get(name) == target else next(
-            (n for n, t in imports.items() if t == target and n.startswith(name + "_")), None)
-        if gen is None:
-            gen = free(name)
-            imports[gen] = target
+            if isinstance(val, types.ModuleType):
+                if val.__name__ not in ("numpy", "math"):
+                    raise LoopGenError(f"kernel {fn.__name__}: reads module {val.__name__!r}; only numpy and math"
+                                       " compile")
+                target = val.__name__
+            elif val in (kernel_ops.where, kernel_ops.fresh_charge, kernel_ops.max_above, kernel_ops.where_lazy):
+                target = f"cyclesim.kernel_ops.{val.__name__}"
+            elif val in zone_solve.OVERLOADED:
+                target = f"cyclesim.loops.zone_solve.{val.__name__}"     # compiled by overload
+            else:
+                raise LoopGenError(f"kernel {fn.__name__}: reads global {name!r} of type {type(val).__name__}"
+                                   " (only numbers, tuples of numbers, numpy, math and plain functions compile)")
+            if name in own and getattr(own[name], "__name__", None) == target:
+                imports[name] = target          # the loop's module imports it alike (np, math)
+                continue
+            gen = place(imports, name, target)
         if gen != name:
             renames[name] = gen
     src = _source(fn)
     if me != fn.__name__ or renames:
-        src = _renamed(src, fn.__name__, me, renames)
+        src = _renamed(src, me, renames)
     funcs[me] = (fn, src)
     return me
 
 
-def _renamed(src: str, name: str, new_name: str, renames: dict) -> str:
+def _renamed(src: str, new_name: str, renames: dict) -> str:
     """``src`` (one function) defined as ``new_name`` and reading the globals ``renames`` names
     under their new names (each is a global throughout the function: Python's scoping)."""
     import ast
