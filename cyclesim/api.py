@@ -129,11 +129,14 @@ def model_figures(batch, cols: dict, summary: Mapping | None = None) -> tuple[di
         from .results.zone_trace import two_zone_figures
 
         figs.update(two_zone_figures(cols))
+    # a motored case burns no fuel: a burn law's own warnings (e.g. unburned at EVO) do not apply
+    cut = np.asarray(getattr(batch.operating, "fuel_cut", False), dtype=bool) * np.ones(batch.B, dtype=bool)
     for role, model in batch.models.items():
         try:
             figs.update(model.figures(cols))
             for i, w in enumerate(model.warnings(cols)):
-                warn[i].extend(w)
+                if not (role == "burn" and cut[i]):
+                    warn[i].extend(w)
         except CyclesimError:
             raise
         except Exception as exc:  # noqa: BLE001

@@ -179,6 +179,18 @@ def fuel_cut():
     return cyclesim.run("demo", ["operating.fuel_cut=true"])
 
 
+@pytest.mark.parametrize("fuel_cut", [True, False])
+def test_burn_law_warning_only_where_fuel_burns(fuel_cut):
+    """A motored case burns no fuel (Heywood 1988 sec. 2.7): the predictive burn's "only x %
+    burned at EVO" is its law's warning and does not apply; a fired case whose spark comes too late
+    to finish (30 deg ATDC) keeps it."""
+    over = ["burn.model=entrainment", "simulation.mode=closed"]
+    over += ["operating.fuel_cut=true"] if fuel_cut else ["burn.spark_advance_deg=-30"]
+    res = cyclesim.run("demo", over)
+    assert res.summary["mode"] == ("motored" if fuel_cut else "fired")
+    assert any("burned at exhaust valve opening" in w for w in res.warnings) is not fuel_cut
+
+
 def test_motored_mep_identities(fuel_cut):
     s = fuel_cut.summary
     assert s["mode"] == "motored"
