@@ -273,6 +273,18 @@ def test_engine_warnings_group_by_kind_with_the_cylinders():
 
     lines = cylinder_warning_lines(["cylinder 1: exhaust choked for 12 deg", "cylinder 3: exhaust choked for 14.5 deg",
                                     "cylinder 3: trapped mass low", "manifolds not settled after 8 coupled cycles"], 4)
-    assert lines == ["  warning (2 of 4 cylinders): exhaust choked for 12 deg  [cyl 1, cyl 3]",
+    assert lines == ["  warning (2 of 4 cylinders): exhaust choked for 12-14.5 deg  [cyl 1, cyl 3]",
                      "  warning (1 of 4 cylinders): trapped mass low  [cyl 3]",
                      "  warning: manifolds not settled after 8 coupled cycles"]
+
+
+def test_grouped_warning_states_the_range_of_what_differs():
+    """One line stands for a group: numbers shared by all its messages stay, those that differ are
+    written as their range (a negative bound with "to"), so "only 98.7 %" does not stand for 52 %."""
+    from cyclesim.results.warning_groups import group_labelled, warning_lines
+
+    msgs = [("a", ["only 98.7 % burned at EVO (140 deg)"]), ("b", ["only 52.1 % burned at EVO (140 deg)"]),
+            ("c", ["only 60.0 % burned at EVO (140 deg)", "knock margin -3 deg"]), ("d", ["knock margin 2 deg"])]
+    assert warning_lines(group_labelled(msgs), 4) == [
+        "warning (3 of 4 points): only 52.1-98.7 % burned at EVO (140 deg)  [a, b, c]",
+        "warning (2 of 4 points): knock margin -3 to 2 deg  [c, d]"]
