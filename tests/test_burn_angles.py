@@ -25,3 +25,16 @@ def test_burn_0_10_is_delay_plus_wiebe_ten_percent_point(delay, duration):
 def test_motored_case_has_no_burn_angles():
     r = cyclesim.run("demo", ["operating.fuel_cut=true"])
     assert math.isnan(r.summary["burn_0_10_deg"]) and math.isnan(r.summary["burn_10_90_deg"])
+
+
+def test_partial_burn_keeps_the_levels_it_reaches():
+    """A burn cut short by EVO keeps the angles of the levels the charge reaches and has none of
+    the others. Wiebe (1970) law, a = 5, m = 2, 48 deg from 90 deg ATDC (spark 30 ATDC, 60 deg
+    delay): at EVO (110 deg) the fraction is 1 - exp(-5 (20/48)^3) = 0.30; 10 % burned 0.2762 of
+    the duration after the start."""
+    r = cyclesim.run("demo", ["burn.spark_advance_deg=-30", "burn.ignition_delay_deg=60", "valves.evo_deg=110",
+                              "simulation.mode=closed"])
+    s = r.summary
+    assert s["ca10_deg"] == pytest.approx(90.0 + 0.2762 * 48.0, abs=0.05)
+    assert s["ca05_deg"] < s["ca10_deg"]
+    assert math.isnan(s["ca50_deg"]) and math.isnan(s["ca90_deg"]) and math.isnan(s["burn_10_90_deg"])

@@ -242,9 +242,10 @@ def compute_figures(batch, tr: CycleTrace, d: dict) -> dict[str, np.ndarray]:
     soc = np.asarray(burn.start_deg(), float) * np.ones(B)
     xb, dxb = Y[I["x_b"]], F[I["x_b"]]
     motored = motored_cases(batch, soc)
-    fired = ~motored & (xb[:, -1] > 0.5)
     levels = (0.05, 0.10, 0.50, 0.90)
-    ca = dict(zip(levels, np.where(fired[None, :], hermite_crossings(th, xb, dxb, levels), np.nan)))
+    # a level is an angle where the charge reaches it: a partial burn (26 % at EVO) keeps its CA05 and CA10
+    reached = ~motored[None, :] & (xb[:, -1][None, :] > np.array(levels)[:, None])
+    ca = dict(zip(levels, np.where(reached, hermite_crossings(th, xb, dxb, levels), np.nan)))
     out["spark_deg"] = np.asarray(burn.spark_deg(), float) * np.ones(B)
     out["spark_advance_deg"] = -out["spark_deg"]
     out["ca05_deg"] = ca[0.05]
