@@ -147,72 +147,32 @@ def far_end_admittance(manifolds, infos: list, cases_of) -> tuple[np.ndarray, np
     return Zi, Ze
 
 
-def _lap(p0, h, k, q_orifice, Q, pref, Z, shift, intake):
-    """One lap [Pa] (rows, n+1) of the shared volumes from ``p0`` (rows,): implicit Euler in steps of
-    ``h`` [deg] of ``dp/dphi = k (inflow - outflow)``, the orifice flow ``q_orifice(p)`` [kg/deg]
-    (into an intake volume, out of an exhaust one) and the runners' far-end flow ``Q`` (rows, n)
-    [kg/deg] (out of an intake volume, into an exhaust one) seen at the pressures ``pref`` (rows, n).
-
-    The runners' answer to the volume's pressure ``x``: over the cycle as without runners (the intake
-    draw in proportion to ``x / pref``, the exhaust's unchanged, as
-    :func:`cyclesim.loops.filling.pressure_rate`), and to its swings about that mean ``Z (x - pref -
-    shift)`` [kg/deg] (``Z`` (rows,), :func:`far_end_admittance`; ``shift`` (rows,) [Pa], the lap's
-    mean of ``x - pref``, so the swings' term adds nothing over the cycle)."""
-    from ..loops.filling import NEWTON_PASSES, P_FLOOR
-
-    n = Q.shape[1]
-    out = np.empty((p0.shape[0], n + 1))
-    out[:, 0] = p0
-    dp = 1.0
-    for j in range(n):
-        p = out[:, j]
-        x = p
-        for _ in range(NEWTON_PASSES):
-            q = q_orifice(x)
-            dq = (q_orifice(x + dp) - q) / dp
-            swing = Z * (x - pref[:, j] - shift)
-            if intake:
-                r = k * (q - Q[:, j] * x / pref[:, j] - swing)
-                dr = k * (dq - Q[:, j] / pref[:, j] - Z)
-            else:
-                r, dr = k * (Q[:, j] - swing - q), -k * (Z + dq)
-            g = x - p - h * r
-            x = np.maximum(x - g / (1.0 - h * dr), P_FLOOR)
-        out[:, j + 1] = x
-    return out
-
-
 SHIFT_PASSES = 4
-"""Most passes of the volumes' periodic solve that update the mean ``shift`` of :func:`_lap`
-(it stops once the shift moves by less than 1 Pa)."""
+"""Most passes of the volumes' periodic solve that update the swings' mean ``shift``
+(:func:`cyclesim.loops.filling.pressure_rate`; it stops once the shift moves by less than 1 Pa)."""
 
 
 def solve_volumes(man, Qi, pref_i, Qe, pref_e, Zi, Ze, p0_i, p0_e):
     """Periodic pressures [Pa] of the shared intake volumes (E, n+1) and exhaust volumes (X, n+1) for
-    the runners' far-end flows (:func:`_lap`), each lap's start found as
-    :meth:`cyclesim.engine.manifolds._Manifolds.solve` finds it."""
-    from .manifolds import GAMMA_AIR, GAMMA_EXHAUST, R_AIR
-    from ..loops import filling
-    from ..cylinder.flow import DP_LIN_DEFAULT
+    the runners' far-end flows ``Qi``, ``Qe`` [kg/deg] seen at the pressures ``pref_i``, ``pref_e``,
+    each lap's start found as :meth:`cyclesim.engine.manifolds._Manifolds.solve` finds it.
 
-    ki = man.R_int * man.T_int / man.V_i
-    ke = man.R_exh_x * man.T_exh_x / man.V_e
-
-    def q_thr(p):
-        return filling.boundary_flow(True, man.A_thr, p, man.T_int, R_AIR, GAMMA_AIR, man.p_sup, man.T_amb, R_AIR,
-                                     GAMMA_AIR, man.omega, DP_LIN_DEFAULT)
-
-    def q_out(p):
-        return filling.boundary_flow(False, man.A_out, p, man.T_exh_x, man.R_exh_x, GAMMA_EXHAUST, man.p_amb_x,
-                                     man.T_amb_x, R_AIR, GAMMA_AIR, man.omega_x, DP_LIN_DEFAULT)
-
+    The laps are the manifolds' own (:meth:`cyclesim.engine.manifolds._Manifolds.laps`) with the
+    runners' admittance ``Zi``, ``Ze`` (:func:`far_end_admittance`): over the cycle the runners
+    draw as lumped cylinders do, and they answer the volume's swings about the pressures they saw
+    (:func:`cyclesim.loops.filling.pressure_rate`).  The swings' mean ``shift`` is updated by up to
+    :data:`SHIFT_PASSES` periodic solves."""
     out = []
-    for p0, k, q, Q, pref, Z, intake in ((p0_i, ki, q_thr, Qi, pref_i, Zi, True),
-                                         (p0_e, ke, q_out, Qe, pref_e, Ze, False)):
+    for side, p0, Z in (("intake", p0_i, Zi), ("exhaust", p0_e, Ze)):
         shift = np.zeros(len(Z))
         start = np.asarray(p0, float)
+        pref = pref_i if side == "intake" else pref_e
         for _ in range(SHIFT_PASSES):
-            tr = man._periodic(start, lambda a: _lap(a, man.h, k, q, Q, pref, Z, shift, intake))
+            if side == "intake":
+                lap = man.laps(Qi, pref_i, Qe, pref_e, Zi, Ze, shift, None)[0]
+            else:
+                lap = man.laps(Qi, pref_i, Qe, pref_e, Zi, Ze, None, shift)[1]
+            tr = man._periodic(start, lap)
             new = np.mean(0.5 * (tr[:, :-1] + tr[:, 1:]) - pref, axis=1)
             start = tr[:, 0].copy()
             moved = np.max(np.abs(new - shift))
