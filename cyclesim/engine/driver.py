@@ -9,8 +9,8 @@ import numpy as np
 
 from ..config import resolve_case
 from ..errors import ConfigError, SolverError
-from .runner_links import (coupling_history, far_end_admittance, far_end_draws, has_runners, push_far_traces,
-                           mass_balance, relaxed_traces, runner_cycle_means, solve_volumes)
+from .runner_links import (coupling_history, far_end_admittance, far_end_draws, has_runners, lumped_starts,
+                           push_far_traces, mass_balance, relaxed_traces, runner_cycle_means, solve_volumes)
 from .manifolds import MANIFOLD_STEP_DEG, R_AIR, _Manifolds, _periodic_interp, supply_pressure_bar
 from .setup import EngineResult, EngineSetup, cylinder_cases, cylinder_modes, exhaust_branches, firing_offsets
 
@@ -32,7 +32,7 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
     from ..solve.batch import build_batch, group_cases
     from ..solve.solver import integrate
 
-    setups = list(setups)
+    setups = lumped_starts(list(setups), lambda sts: simulate_engines(sts, progress, tol))
     cols = []       # (engine index, cylinder index, case)
     info = []
     for e, st in enumerate(setups):
@@ -61,7 +61,8 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
     where = {}      # column -> (batch index, position)
     for bi, idx in enumerate(groups):
         batches.append(build_batch([all_cases[i] for i in idx], registry))
-        if any(info[cols[i][0]]["manifolds"] in ("coupled", "frozen") for i in idx):
+        if any(info[cols[i][0]]["manifolds"] in ("coupled", "frozen") or info[cols[i][0]]["walls"] == "lumped"
+               for i in idx):
             from ..pipes.runners import carry_runners
 
             carry_runners(batches[-1])          # the runners' state runs on over the coupled cycles
@@ -316,6 +317,8 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
         out[-1].end_states = ends
         out[-1].coupling_history = coupling_history([hist.get(i, []) for i in inf["cols"]])
         out[-1].engine["runners"] = bool(inf["runners"])
+        if getattr(inf["setup"].start, "lumped_start", False):
+            out[-1].engine["lumped_start_coupled_cycles"] = inf["setup"].start.engine["coupled_cycles"]
         if inf["runners"]:
             out[-1].engine["runner_mass_balance"] = [
                 mass_balance(trs[where[i][0]], where[i][1], rows[where[i][0]])
