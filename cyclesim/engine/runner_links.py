@@ -37,6 +37,11 @@ def has_runners(case) -> bool:
     return any(v is not None for v in getattr(case, "runners", {}).values())
 
 
+LUMPED_START = True
+"""Whether :func:`lumped_starts` gives engines with runners the 0-D engine's settled state (off:
+the coupled cycles start from the operating point's constant pressures, as benchmarks compare)."""
+
+
 def lumped_starts(setups: list, simulate) -> list:
     """The setups, each engine with runners and coupled manifolds that has no start of its own
     given the settled state of the same engine without runners (its 0-D manifolds and lumped
@@ -51,7 +56,7 @@ def lumped_starts(setups: list, simulate) -> list:
     from ..config import case_with
 
     todo = [k for k, st in enumerate(setups)
-            if has_runners(st.case) and st.start is None and st.frozen_traces is None
+            if LUMPED_START and has_runners(st.case) and st.start is None and st.frozen_traces is None
             and (st.manifolds or st.case.multi_cylinder.manifolds) == "coupled"]
     if not todo:
         return list(setups)
