@@ -93,3 +93,13 @@ def test_cut_test_with_runners():
     assert np.allclose(ideal["cylinder_estimates_kW"], ideal["cylinder_truth_kW"], rtol=1e-8)
     assert abs(ideal["cylinder_truth_kW"][0] - ideal["cylinder_truth_kW"][1]) > 1e-3    # the spread is seen
     assert ct.step("pumping")["friction_bias_step_kW"] > 0
+
+
+def test_convergence_history_of_a_cylinder_that_draws_nothing():
+    # a deactivated cylinder (valves shut) draws no mass: its change is 0, not a division by zero
+    fired = [(12.0, 4.5e-4, 0.1), (12.1, 4.6e-4, 0.05)]
+    shut = [(-0.03, 0.0, 0.1), (-0.03, 0.0, 0.05)]
+    rows = runner_links.coupling_history([fired, shut])
+    assert rows[1]["ve_change"][1] == 0.0
+    assert rows[1]["ve_change"][0] == pytest.approx(0.1e-4 / 4.6e-4)
+    assert rows[1]["imep_change"][1] == 0.0 and rows[1]["manifold_change"] == 0.05

@@ -128,8 +128,9 @@ def push_far_traces(batch, phi0: float, step: float, pi, pe) -> None:
 
 def coupling_history(per_cylinder: list) -> list[dict]:
     """The convergence of the coupled cycles: one row per cycle with the relative change from the
-    cycle before of each cylinder's net IMEP and volumetric efficiency (the mass drawn from the
-    intake volume, relative) and the manifold traces' largest relative change.
+    cycle before of each cylinder's net IMEP (relative to at least 0.1 bar) and volumetric efficiency
+    (the mass drawn from the intake volume, relative to at least 1e-9 kg) and the manifold traces'
+    largest relative change.
 
     ``per_cylinder``: per cylinder, per coupled cycle ``(imep_net_bar, drawn_kg, manifold_change)``."""
     if not per_cylinder or not per_cylinder[0]:
@@ -145,7 +146,8 @@ def coupling_history(per_cylinder: list) -> list[dict]:
                 row["ve_change"].append(float("nan"))
             else:
                 row["imep_change"].append(abs(h[c][0] - h[c - 1][0]) / max(abs(h[c][0]), 0.1))
-                row["ve_change"].append(abs(h[c][1] - h[c - 1][1]) / abs(h[c][1]))
+                # a deactivated cylinder draws nothing: its change is measured against 1 microgram
+                row["ve_change"].append(abs(h[c][1] - h[c - 1][1]) / max(abs(h[c][1]), 1e-9))
         rows.append(row)
     return rows
 
