@@ -32,7 +32,8 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
     from ..solve.batch import build_batch, group_cases
     from ..solve.solver import integrate
 
-    setups = lumped_starts(list(setups), lambda sts: simulate_engines(sts, progress, tol))
+    start_progress = None if progress is None else (lambda msg: progress(f"start without runners: {msg}"))
+    setups = lumped_starts(list(setups), lambda sts: simulate_engines(sts, start_progress, tol))
     cols = []       # (engine index, cylinder index, case)
     info = []
     for e, st in enumerate(setups):
