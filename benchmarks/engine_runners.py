@@ -1,13 +1,17 @@
 """The multi-cylinder engine with runners, and the demo_turbo full-load curve with and without runners.
 
     python benchmarks/engine_runners.py [--engine] [--full-load] [--speeds 1500:6000:750] [--spark fixed]
+                                        [--cold-start] [--anderson-memory N]
 
 --engine (default with neither flag): one point of configs/demo_engine_runners.yaml (four cylinders,
 each with its intake runner from the shared plenum and its exhaust runner into its branch's
 collector) in-process: wall and CPU time, coupled cycles to settle, and the convergence table
 (per coupled cycle: the largest relative change of the plenum and collector traces, and each
 cylinder's relative change of volumetric efficiency and net IMEP from the cycle before); then the
-same engine without runners (configs/demo.yaml's 0-D manifolds) for comparison.
+same engine without runners (configs/demo.yaml's 0-D manifolds) for comparison.  The coupled cycles
+with runners start from the 0-D engine's settled state (its coupled cycles are printed);
+``--cold-start`` starts them from the operating point's constant pressures instead, and
+``--anderson-memory`` sets the pairs the traces' acceleration keeps (default 8), for comparison.
 
 --full-load: the single-cylinder full-load curve of demo_turbo (cyclesim.studies.maps.full_load_curve)
 without runners and with demo_runners' intake and exhaust runners: torque [N m] and VE [%] against
@@ -44,7 +48,9 @@ def engine_point(config: str, overrides=()) -> None:
     wall, cpu = time.perf_counter() - t0, time.process_time() - c0
     e = eng.engine
     print(f"{config} {' '.join(overrides)}")
-    print(f"  wall {wall:.1f} s, CPU {cpu:.1f} s, coupled cycles {e['coupled_cycles']}, runners {e['runners']},"
+    start = (f" after a 0-D start of {e['lumped_start_coupled_cycles']}" if "lumped_start_coupled_cycles" in e
+             else "")
+    print(f"  wall {wall:.1f} s, CPU {cpu:.1f} s, coupled cycles {e['coupled_cycles']}{start}, runners {e['runners']},"
           f" brake torque {e['brake_torque_Nm']:.2f} N m, air {e['air_flow_g_per_s']:.2f} g/s")
     ve = [r.summary["volumetric_efficiency"] for r in eng.cylinder_results]
     print("  VE per cylinder [%]: " + " ".join(f"{100 * v:.2f}" for v in ve)
@@ -81,7 +87,14 @@ def main() -> None:
     ap.add_argument("--full-load", action="store_true")
     ap.add_argument("--speeds", default="1500:6000:750")
     ap.add_argument("--spark", default="fixed", choices=("fixed", "mbt", "knock_limited"))
+    ap.add_argument("--cold-start", action="store_true", help="coupled cycles from constant traces")
+    ap.add_argument("--anderson-memory", type=int, default=None, metavar="N")
     a = ap.parse_args()
+    from cyclesim.engine import runner_links
+
+    runner_links.LUMPED_START = not a.cold_start
+    if a.anderson_memory is not None:
+        runner_links.ANDERSON_MEMORY = a.anderson_memory
     if a.engine or not a.full_load:
         engine_point("configs/demo_engine_runners.yaml")
         engine_point("demo")

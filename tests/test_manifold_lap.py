@@ -35,13 +35,16 @@ def _subsonic_flow(cda, p0, T0, g, pt):
     return cda * p0 / math.sqrt(R * T0) * r ** (1.0 / g) * math.sqrt(2.0 * g / (g - 1.0) * (1.0 - r ** ((g - 1.0) / g)))
 
 
-def _vessel(E, n, *, cda, V, omega, p_out, g, intake, Q=None, pref=None):
-    """Arguments of filling.lap for E identical isothermal vessels at T, n steps."""
+def _vessel(E, n, *, cda, V, omega, p_out, g, intake, Q=None, pref=None, Z=None, shift=None):
+    """Arguments of filling.lap for E identical isothermal vessels at T, n steps (no runners'
+    admittance unless ``Z`` is given)."""
     Q = np.zeros((E, n)) if Q is None else Q
     pref = np.full((E, n), 1e5) if pref is None else pref
+    Z = np.zeros(E) if Z is None else Z
+    shift = np.zeros(E) if shift is None else shift
     return dict(k=np.full(E, R * T / V), A=np.full(E, cda), T_m=np.full(E, T), R_m=np.full(E, R), g_m=g,
                 p_amb=np.full(E, p_out), T_amb=np.full(E, T), R_amb=R, g_amb=g, omega=np.full(E, omega),
-                Q=Q, pref=pref, intake=intake, dp=1.0, dp_lin=DP_LIN_DEFAULT)
+                Q=Q, pref=pref, Z=Z, shift=shift, intake=intake, dp=1.0, dp_lin=DP_LIN_DEFAULT)
 
 
 def _crossing(p, level, h):
@@ -170,3 +173,107 @@ def test_the_lap_arithmetic_is_written_once():
     for src in srcs:
         for formula in ("1.0 - h * dr", "1.0 - self.h * dr", "x / pr", "x - p - "):
             assert formula not in src
+
+
+def _step_without_admittance(p, h, k, A, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, Q, pref, intake, dp,
+                             dp_lin):
+    """One step of the lumped manifolds' lap as it stood before the runners' admittance joined it:
+    implicit Euler of dp/dphi = k (q_in - q_out) by NEWTON_PASSES Newton passes held above P_FLOOR,
+    the intake's draw in proportion to p / pref (a reference written out here, on floats or rows)."""
+    x = p
+    for _ in range(filling.NEWTON_PASSES):
+        q = filling.boundary_flow(intake, A, x, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, dp_lin)
+        q2 = filling.boundary_flow(intake, A, x + dp, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, dp_lin)
+        dq = (q2 - q) / dp
+        if intake:
+            r, dr = k * (q - Q * x / pref), k * (dq - Q / pref)
+        else:
+            r, dr = k * (Q - q), -k * dq
+        x = np.maximum(x - (x - p - h * r) / (1.0 - h * dr), filling.P_FLOOR)
+    return x
+
+
+def _lap_without_admittance(p0, h, k, A, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, Q, pref, Z, shift,
+                            intake, dp, dp_lin):
+    """The reference lap on numpy rows (``Z`` and ``shift`` taken and ignored)."""
+    out = np.empty((p0.shape[0], Q.shape[1] + 1))
+    out[:, 0] = p0
+    for j in range(Q.shape[1]):
+        out[:, j + 1] = _step_without_admittance(out[:, j], h, k, A, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb,
+                                                 omega, Q[:, j], pref[:, j], intake, dp, dp_lin)
+    return out
+
+
+def _compiled_lap_without_admittance():
+    """The reference lap compiled as the lap is (numba, numpy error model, a loop over rows on floats)."""
+    import numba
+
+    from cyclesim.loops import _compiled  # noqa: F401  (teaches numba the filling functions)
+
+    step = numba.njit(error_model="numpy")(_step_without_admittance)
+
+    @numba.njit(error_model="numpy")
+    def lap(p0, h, k, A, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, Q, pref, Z, shift, intake, dp, dp_lin):
+        out = np.empty((p0.shape[0], Q.shape[1] + 1))
+        out[:, 0] = p0
+        for j in range(Q.shape[1]):
+            for e in range(p0.shape[0]):
+                out[e, j + 1] = step(out[e, j], h, k[e], A[e], T_m[e], R_m[e], g_m, p_amb[e], T_amb[e], R_amb,
+                                     g_amb, omega[e], Q[e, j], pref[e, j], intake, dp, dp_lin)
+        return out
+
+    return lap
+
+
+def _random_laps(seed, E=3, n=120):
+    """Random but physical lap arguments: manifolds of 40 deg and more (see the compiled test)."""
+    rng = np.random.default_rng(seed)
+    for intake in (True, False):
+        p_out = rng.uniform(0.5e5, 2.5e5)
+        kw = _vessel(E, n, cda=rng.uniform(1e-4, 1e-3), V=rng.uniform(1e-3, 4e-3), omega=6.0 * rng.uniform(1e3, 6e3),
+                     p_out=p_out, g=1.4 if intake else 1.33, intake=intake,
+                     Q=rng.uniform(0.0, 3e-6, (E, n)), pref=rng.uniform(0.7, 1.3, (E, n)) * p_out,
+                     shift=rng.uniform(-2e3, 2e3, E))
+        yield rng.uniform(0.6, 1.4, E) * p_out, kw
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_zero_admittance_is_the_lumped_lap_bit_for_bit(seed):
+    # with Z = 0 the one lap (runners' admittance term included) is the lumped manifolds' lap to the
+    # bit on numpy arrays, whatever the shift and the exhaust's reference pressures
+    for p0, kw in _random_laps(seed):
+        got = filling.lap(p0, 1.0, **kw)
+        ref = _lap_without_admittance(p0, 1.0, **kw)
+        assert np.array_equal(got, ref)
+        # and the term is live: an admittance changes the lap
+        kw["Z"] = np.full(len(p0), 1e-9)
+        assert not np.allclose(filling.lap(p0, 1.0, **kw), ref, rtol=1e-6, atol=0.0)
+
+
+@needs_numba
+def test_zero_admittance_compiled_is_the_lumped_lap_compiled_bit_for_bit():
+    # the same reference compiled as the lap is compiled (numba, same error model): equal to the bit
+    from cyclesim.loops import _compiled
+
+    ref_c = _compiled_lap_without_admittance()
+    for seed in (0, 1):
+        for p0, kw in _random_laps(seed):
+            args = (p0, 1.0, *kw.values())
+            assert np.array_equal(_compiled.manifold_lap(*args), ref_c(*args))
+
+
+def test_admittance_relaxes_a_shut_vessel_to_the_reference_pressure():
+    # a shut vessel (CdA 0, no cylinder flow) whose runners answer its swing about pref by Z (p - pref):
+    # dp/dphi = -k Z (p - pref), a linear relaxation.  Implicit Euler of it is exact in one Newton pass:
+    # (p - pref) falls by 1 / (1 + h k Z) per step (first-order linear ODE; common practice), and the
+    # continuous solution exp(-k Z phi) lies within its first-order step error
+    n, h, V, Z, p_ref = 360, 0.5, 1e-3, 1e-9, 1.0e5
+    kw = _vessel(1, n, cda=0.0, V=V, omega=18000.0, p_out=1e5, g=1.4, intake=False,
+                 pref=np.full((1, n), p_ref), Z=np.array([Z]))
+    out = filling.lap(np.array([1.3e5]), h, **kw)[0]
+    kz = R * T / V * Z                                   # [1/deg]
+    j = np.arange(n + 1)
+    np.testing.assert_allclose(out - p_ref, 0.3e5 * (1.0 + h * kz) ** -j, rtol=1e-10, atol=1e-10 * p_ref)
+    assert 5.0 < kz * h * n < 60.0                      # relaxed well within the lap, not to rounding
+    exact = 0.3e5 * np.exp(-kz * h * j)
+    assert np.max(np.abs(out - p_ref - exact)) < 0.3e5 * kz * h

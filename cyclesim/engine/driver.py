@@ -9,8 +9,8 @@ import numpy as np
 
 from ..config import resolve_case
 from ..errors import ConfigError, SolverError
-from .runner_links import (coupling_history, far_end_admittance, far_end_draws, has_runners, push_far_traces,
-                           mass_balance, relaxed_traces, runner_cycle_means, solve_volumes)
+from .runner_links import (coupling_history, far_end_admittance, far_end_draws, has_runners, lumped_starts,
+                           push_far_traces, mass_balance, relaxed_traces, runner_cycle_means, solve_volumes)
 from .manifolds import MANIFOLD_STEP_DEG, R_AIR, _Manifolds, _periodic_interp, supply_pressure_bar
 from .setup import EngineResult, EngineSetup, cylinder_cases, cylinder_modes, exhaust_branches, firing_offsets
 
@@ -32,7 +32,8 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
     from ..solve.batch import build_batch, group_cases
     from ..solve.solver import integrate
 
-    setups = list(setups)
+    start_progress = None if progress is None else (lambda msg: progress(f"start without runners: {msg}"))
+    setups = lumped_starts(list(setups), lambda sts: simulate_engines(sts, start_progress, tol))
     cols = []       # (engine index, cylinder index, case)
     info = []
     for e, st in enumerate(setups):
@@ -61,7 +62,8 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
     where = {}      # column -> (batch index, position)
     for bi, idx in enumerate(groups):
         batches.append(build_batch([all_cases[i] for i in idx], registry))
-        if any(info[cols[i][0]]["manifolds"] in ("coupled", "frozen") for i in idx):
+        if any(info[cols[i][0]]["manifolds"] in ("coupled", "frozen") or info[cols[i][0]]["walls"] == "lumped"
+               for i in idx):
             from ..pipes.runners import carry_runners
 
             carry_runners(batches[-1])          # the runners' state runs on over the coupled cycles
@@ -166,6 +168,14 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
             progress(f"batch {bi + 1}/{len(batches)}: start-up cycles")
         y0 = _start_state(b, [cols[i] for i in groups[bi]], info)
         trs.append(integrate(b) if y0 is None else integrate(b, initial=y0))
+    rows = [_row_names(tr) for tr in trs]      # per batch: its trace's row of each state name
+
+    def draws_of(i):
+        """Column ``i``'s cumulative far-end masses of the last cycle (far_end_draws)."""
+        bi, pos = where[i]
+        return far_end_draws(trs[bi], pos, rows[bi])
+
+    draws = {i: draws_of(i) for i in range(len(cols)) if man is not None and cols[i][0] in coupled_e}
     tol = float(tol if tol is not None else min(b.simulation.tolerance for b in batches))
     n_coupled = {e: 0 for e in interacting}
     if interacting:
@@ -189,10 +199,8 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
                     Pi, _ = traces_eng[e]
                     pref[j] = 0.5 * (Pi[:-1] + Pi[1:])
                     for k, i in enumerate(info[e]["cols"]):
-                        bi, pos = where[i]
-                        tr = trs[bi]
-                        I = {nm: r for r, nm in enumerate(tr.names)}
-                        cum_i, cum_e = far_end_draws(tr, pos, I)
+                        tr = trs[where[i][0]]
+                        cum_i, cum_e = draws[i]
                         off = info[e]["offsets"][k]
                         for cum, Q, row in ((cum_i, Qi, j), (cum_e, Qe, man.ex_rows[j][info[e]["branches"][k]])):
                             # cylinder mass per engine-frame interval, exactly conserved over the cycle
@@ -230,7 +238,7 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
                 e, k, _ = cols[i]
                 bi, pos = where[i]
                 tr = trs[bi]
-                I = {nm: r for r, nm in enumerate(tr.names)}
+                I = rows[bi]
                 ms = info[e]["ms"]
                 st = info[e]["setup"]
                 qdot = tr.Y[I["Q_w"], pos, -1] * info[e]["speed_rpm"] / 120.0     # W
@@ -244,6 +252,7 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
             # one cycle of every interacting batch
             for bi in active:
                 trs[bi] = integrate(batches[bi], initial=trs[bi].end_state, cycles=1)
+                rows[bi] = _row_names(trs[bi])
             for i in range(len(cols)):
                 e = cols[i][0]
                 if e not in interacting:
@@ -259,8 +268,10 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
                     change[e] = max(change[e], 1.0)
                 prev_imep[i] = (imep, m_tr)
                 tr = trs[bi]
-                I = {nm: r for r, nm in enumerate(tr.names)}
-                draw = far_end_draws(tr, pos, I)[0]
+                d_i = draws_of(i)                  # once per column and cycle: history and next flows
+                if i in draws:
+                    draws[i] = d_i
+                draw = d_i[0]
                 hist[i].append((float(imep) / 1e5, float(draw[-1] - draw[0]), change_man.get(e, 0.0)))
                 rm = runner_cycle_means(tr, pos)
                 if rm is not None:
@@ -307,11 +318,18 @@ def simulate_engines(setups: Sequence[EngineSetup], progress: Callable[[str], No
         out[-1].end_states = ends
         out[-1].coupling_history = coupling_history([hist.get(i, []) for i in inf["cols"]])
         out[-1].engine["runners"] = bool(inf["runners"])
+        if getattr(inf["setup"].start, "lumped_start", False):
+            out[-1].engine["lumped_start_coupled_cycles"] = inf["setup"].start.engine["coupled_cycles"]
         if inf["runners"]:
             out[-1].engine["runner_mass_balance"] = [
-                mass_balance(trs[where[i][0]], where[i][1], {nm: r for r, nm in enumerate(trs[where[i][0]].names)})
+                mass_balance(trs[where[i][0]], where[i][1], rows[where[i][0]])
                 for i in inf["cols"]]
     return out
+
+
+def _row_names(tr) -> dict:
+    """A trace's row of each state name."""
+    return {nm: r for r, nm in enumerate(tr.names)}
 
 
 def _start_state(batch, columns, info):

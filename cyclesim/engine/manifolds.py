@@ -109,9 +109,15 @@ class _Manifolds:
             gb = lap(b)
         return gb
 
-    def solve(self, Qi, pref_i, Qe, p0_i, p0_e):
-        """Periodic manifold pressures [Pa]: intake (E, n+1) and exhaust branches (X, n+1), for the
-        cylinder flows per interval [kg/deg]: ``Qi`` (E, n), ``Qe`` (X, n).
+    def laps(self, Qi, pref_i, Qe, pref_e=None, Z_i=None, Z_e=None, shift_i=None, shift_e=None):
+        """The two lap functions ``p0 -> (rows, n+1)`` [Pa] of the intake volumes (E rows) and the
+        exhaust branches (X rows), for the cylinders' flows per interval [kg/deg] ``Qi`` (E, n) and
+        ``Qe`` (X, n) seen at the pressures ``pref_i``, ``pref_e`` [Pa] (rows, n).
+
+        ``Z_i``, ``Z_e`` (rows,) [kg/(Pa deg)]: the admittance of runners meeting the volumes, and
+        ``shift_i``, ``shift_e`` (rows,) [Pa] the laps' mean of ``p - pref``
+        (:func:`cyclesim.loops.filling.pressure_rate`); left out, they are 0 (lumped cylinders'
+        flows) and ``pref_e`` is unused.
 
         The laps are :func:`cyclesim.loops.filling.lap`, compiled where kernels compile (one call
         per lap), else run on the rows' arrays."""
@@ -120,22 +126,32 @@ class _Manifolds:
         mod = kernel.compiled_module()
         run_lap = filling.lap if mod is None else mod.manifold_lap
         f64 = lambda a: np.ascontiguousarray(a, dtype=float)  # noqa: E731
+        zero_i, zero_e = np.zeros(self.E), np.zeros(self.X)
         ki = f64(self.R_int * self.T_int / self.V_i)
         ke = f64(self.R_exh_x * self.T_exh_x / self.V_e)
         Qi_, pr_, Qe_ = f64(Qi), f64(pref_i), f64(Qe)
+        pe_ = Qe_ if pref_e is None else f64(pref_e)
+        Zi_, Ze_ = (zero_i if Z_i is None else f64(Z_i)), (zero_e if Z_e is None else f64(Z_e))
+        si_, se_ = (zero_i if shift_i is None else f64(shift_i)), (zero_e if shift_e is None else f64(shift_e))
         R_int = np.full(self.E, R_AIR)
         dp = 1.0
 
         def lap_i(p0):      # the throttle fills the manifold with air from the supply
             return run_lap(f64(p0), self.h, ki, f64(self.A_thr), f64(self.T_int), R_int, GAMMA_AIR,
-                           f64(self.p_sup), f64(self.T_amb), R_AIR, GAMMA_AIR, f64(self.omega), Qi_, pr_, True,
-                           dp, DP_LIN_DEFAULT)
+                           f64(self.p_sup), f64(self.T_amb), R_AIR, GAMMA_AIR, f64(self.omega), Qi_, pr_, Zi_, si_,
+                           True, dp, DP_LIN_DEFAULT)
 
-        def lap_e(p0):      # the outlet empties the branch to ambient (no reference pressure)
+        def lap_e(p0):      # the outlet empties the branch to ambient
             return run_lap(f64(p0), self.h, ke, f64(self.A_out), f64(self.T_exh_x), f64(self.R_exh_x),
                            GAMMA_EXHAUST, f64(self.p_amb_x), f64(self.T_amb_x), R_AIR, GAMMA_AIR,
-                           f64(self.omega_x), Qe_, Qe_, False, dp, DP_LIN_DEFAULT)
+                           f64(self.omega_x), Qe_, pe_, Ze_, se_, False, dp, DP_LIN_DEFAULT)
 
+        return lap_i, lap_e
+
+    def solve(self, Qi, pref_i, Qe, p0_i, p0_e):
+        """Periodic manifold pressures [Pa]: intake (E, n+1) and exhaust branches (X, n+1), for the
+        cylinder flows per interval [kg/deg]: ``Qi`` (E, n), ``Qe`` (X, n) (:meth:`laps`)."""
+        lap_i, lap_e = self.laps(Qi, pref_i, Qe)
         return self._periodic(p0_i, lap_i), self._periodic(p0_e, lap_e)
 
 

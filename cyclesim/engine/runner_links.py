@@ -37,6 +37,38 @@ def has_runners(case) -> bool:
     return any(v is not None for v in getattr(case, "runners", {}).values())
 
 
+LUMPED_START = True
+"""Whether :func:`lumped_starts` gives engines with runners the 0-D engine's settled state (off:
+the coupled cycles start from the operating point's constant pressures, as benchmarks compare)."""
+
+
+def lumped_starts(setups: list, simulate) -> list:
+    """The setups, each engine with runners and coupled manifolds that has no start of its own
+    given the settled state of the same engine without runners (its 0-D manifolds and lumped
+    cylinder flows, :func:`simulate` on those setups together) as its start.
+
+    A 0-D engine settles in a few cheap coupled cycles; from its manifold traces and cylinder
+    states the coupled cycles with runners begin near their fixed point instead of at the
+    operating point's constant pressures (demo_engine_runners at 3000 rpm: the first cycle's
+    trace change 6.8e-2 instead of 2.1e-1)."""
+    from dataclasses import replace
+
+    from ..config import case_with
+
+    todo = [k for k, st in enumerate(setups)
+            if LUMPED_START and has_runners(st.case) and st.start is None and st.frozen_traces is None
+            and (st.manifolds or st.case.multi_cylinder.manifolds) == "coupled"]
+    if not todo:
+        return list(setups)
+    lumped = [replace(setups[k], case=case_with(setups[k].case, {"intake.runner": "none", "exhaust.runner": "none"}))
+              for k in todo]
+    out = list(setups)
+    for k, res in zip(todo, simulate(lumped)):
+        res.lumped_start = True           # reported with the engine it starts (its coupled cycles)
+        out[k] = replace(setups[k], start=res)
+    return out
+
+
 def far_end_draws(tr, pos: int, names: dict):
     """Cumulative masses [kg] over the reported cycle of case ``pos`` of trace ``tr`` at its crank
     points: drawn from the intake volume, and discharged into the exhaust volume.
@@ -96,8 +128,9 @@ def push_far_traces(batch, phi0: float, step: float, pi, pe) -> None:
 
 def coupling_history(per_cylinder: list) -> list[dict]:
     """The convergence of the coupled cycles: one row per cycle with the relative change from the
-    cycle before of each cylinder's net IMEP and volumetric efficiency (the mass drawn from the
-    intake volume, relative) and the manifold traces' largest relative change.
+    cycle before of each cylinder's net IMEP (relative to at least 0.1 bar) and volumetric efficiency
+    (the mass drawn from the intake volume, relative to at least 1e-9 kg) and the manifold traces'
+    largest relative change.
 
     ``per_cylinder``: per cylinder, per coupled cycle ``(imep_net_bar, drawn_kg, manifold_change)``."""
     if not per_cylinder or not per_cylinder[0]:
@@ -113,7 +146,8 @@ def coupling_history(per_cylinder: list) -> list[dict]:
                 row["ve_change"].append(float("nan"))
             else:
                 row["imep_change"].append(abs(h[c][0] - h[c - 1][0]) / max(abs(h[c][0]), 0.1))
-                row["ve_change"].append(abs(h[c][1] - h[c - 1][1]) / abs(h[c][1]))
+                # a deactivated cylinder draws nothing: its change is measured against 1 microgram
+                row["ve_change"].append(abs(h[c][1] - h[c - 1][1]) / max(abs(h[c][1]), 1e-9))
         rows.append(row)
     return rows
 
@@ -147,72 +181,32 @@ def far_end_admittance(manifolds, infos: list, cases_of) -> tuple[np.ndarray, np
     return Zi, Ze
 
 
-def _lap(p0, h, k, q_orifice, Q, pref, Z, shift, intake):
-    """One lap [Pa] (rows, n+1) of the shared volumes from ``p0`` (rows,): implicit Euler in steps of
-    ``h`` [deg] of ``dp/dphi = k (inflow - outflow)``, the orifice flow ``q_orifice(p)`` [kg/deg]
-    (into an intake volume, out of an exhaust one) and the runners' far-end flow ``Q`` (rows, n)
-    [kg/deg] (out of an intake volume, into an exhaust one) seen at the pressures ``pref`` (rows, n).
-
-    The runners' answer to the volume's pressure ``x``: over the cycle as without runners (the intake
-    draw in proportion to ``x / pref``, the exhaust's unchanged, as
-    :func:`cyclesim.loops.filling.pressure_rate`), and to its swings about that mean ``Z (x - pref -
-    shift)`` [kg/deg] (``Z`` (rows,), :func:`far_end_admittance`; ``shift`` (rows,) [Pa], the lap's
-    mean of ``x - pref``, so the swings' term adds nothing over the cycle)."""
-    from ..loops.filling import NEWTON_PASSES, P_FLOOR
-
-    n = Q.shape[1]
-    out = np.empty((p0.shape[0], n + 1))
-    out[:, 0] = p0
-    dp = 1.0
-    for j in range(n):
-        p = out[:, j]
-        x = p
-        for _ in range(NEWTON_PASSES):
-            q = q_orifice(x)
-            dq = (q_orifice(x + dp) - q) / dp
-            swing = Z * (x - pref[:, j] - shift)
-            if intake:
-                r = k * (q - Q[:, j] * x / pref[:, j] - swing)
-                dr = k * (dq - Q[:, j] / pref[:, j] - Z)
-            else:
-                r, dr = k * (Q[:, j] - swing - q), -k * (Z + dq)
-            g = x - p - h * r
-            x = np.maximum(x - g / (1.0 - h * dr), P_FLOOR)
-        out[:, j + 1] = x
-    return out
-
-
 SHIFT_PASSES = 4
-"""Most passes of the volumes' periodic solve that update the mean ``shift`` of :func:`_lap`
-(it stops once the shift moves by less than 1 Pa)."""
+"""Most passes of the volumes' periodic solve that update the swings' mean ``shift``
+(:func:`cyclesim.loops.filling.pressure_rate`; it stops once the shift moves by less than 1 Pa)."""
 
 
 def solve_volumes(man, Qi, pref_i, Qe, pref_e, Zi, Ze, p0_i, p0_e):
     """Periodic pressures [Pa] of the shared intake volumes (E, n+1) and exhaust volumes (X, n+1) for
-    the runners' far-end flows (:func:`_lap`), each lap's start found as
-    :meth:`cyclesim.engine.manifolds._Manifolds.solve` finds it."""
-    from .manifolds import GAMMA_AIR, GAMMA_EXHAUST, R_AIR
-    from ..loops import filling
-    from ..cylinder.flow import DP_LIN_DEFAULT
+    the runners' far-end flows ``Qi``, ``Qe`` [kg/deg] seen at the pressures ``pref_i``, ``pref_e``,
+    each lap's start found as :meth:`cyclesim.engine.manifolds._Manifolds.solve` finds it.
 
-    ki = man.R_int * man.T_int / man.V_i
-    ke = man.R_exh_x * man.T_exh_x / man.V_e
-
-    def q_thr(p):
-        return filling.boundary_flow(True, man.A_thr, p, man.T_int, R_AIR, GAMMA_AIR, man.p_sup, man.T_amb, R_AIR,
-                                     GAMMA_AIR, man.omega, DP_LIN_DEFAULT)
-
-    def q_out(p):
-        return filling.boundary_flow(False, man.A_out, p, man.T_exh_x, man.R_exh_x, GAMMA_EXHAUST, man.p_amb_x,
-                                     man.T_amb_x, R_AIR, GAMMA_AIR, man.omega_x, DP_LIN_DEFAULT)
-
+    The laps are the manifolds' own (:meth:`cyclesim.engine.manifolds._Manifolds.laps`) with the
+    runners' admittance ``Zi``, ``Ze`` (:func:`far_end_admittance`): over the cycle the runners
+    draw as lumped cylinders do, and they answer the volume's swings about the pressures they saw
+    (:func:`cyclesim.loops.filling.pressure_rate`).  The swings' mean ``shift`` is updated by up to
+    :data:`SHIFT_PASSES` periodic solves."""
     out = []
-    for p0, k, q, Q, pref, Z, intake in ((p0_i, ki, q_thr, Qi, pref_i, Zi, True),
-                                         (p0_e, ke, q_out, Qe, pref_e, Ze, False)):
+    for side, p0, Z in (("intake", p0_i, Zi), ("exhaust", p0_e, Ze)):
         shift = np.zeros(len(Z))
         start = np.asarray(p0, float)
+        pref = pref_i if side == "intake" else pref_e
         for _ in range(SHIFT_PASSES):
-            tr = man._periodic(start, lambda a: _lap(a, man.h, k, q, Q, pref, Z, shift, intake))
+            if side == "intake":
+                lap = man.laps(Qi, pref_i, Qe, pref_e, Zi, Ze, shift, None)[0]
+            else:
+                lap = man.laps(Qi, pref_i, Qe, pref_e, Zi, Ze, None, shift)[1]
+            tr = man._periodic(start, lap)
             new = np.mean(0.5 * (tr[:, :-1] + tr[:, 1:]) - pref, axis=1)
             start = tr[:, 0].copy()
             moved = np.max(np.abs(new - shift))
@@ -223,8 +217,11 @@ def solve_volumes(man, Qi, pref_i, Qe, pref_e, Zi, Ze, p0_i, p0_e):
     return out[0], out[1]
 
 
-ANDERSON_MEMORY = 3
-"""Pairs the traces' Anderson acceleration keeps (:func:`relaxed_traces`)."""
+ANDERSON_MEMORY = 8
+"""Pairs the traces' Anderson acceleration keeps (:func:`relaxed_traces`).  Measured on
+demo_engine_runners at 3000 rpm from constant traces (benchmarks/engine_runners.py --engine):
+28 coupled cycles with 3 pairs, 23 with 8 or 16; from the 0-D engine's state
+(:func:`lumped_starts`) 18 with 8."""
 
 
 def relaxed_traces(accel: dict, key, p_int, p_exh, new_int, new_exh, relaxation: float):

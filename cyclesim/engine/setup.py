@@ -138,8 +138,10 @@ class EngineResult:
                          f" ({e['exhaust_manifold_min_bar']:.3f}..{e['exhaust_manifold_max_bar']:.3f});"
                          f" settled after {e['coupled_cycles']} coupled cycles")
         if e.get("runners"):
+            start = (f", from the 0-D engine's state settled in {e['lumped_start_coupled_cycles']} coupled cycles"
+                     if "lumped_start_coupled_cycles" in e else "")
             lines.append("  runners: each cylinder's intake runner from the plenum, exhaust runner into its"
-                         " branch's collector (1-D; relaxed with the volumes cycle by cycle)")
+                         f" branch's collector (1-D; relaxed with the volumes cycle by cycle{start})")
         if e["manifolds"] == "coupled" and len(set(e.get("exhaust_branches", [1]))) > 1:
             lines.append("  exhaust branches (cylinder: branch): "
                          + ", ".join(f"{k + 1}: {b}" for k, b in enumerate(e["exhaust_branches"])))

@@ -43,51 +43,64 @@ def boundary_flow(intake, cda, p, T_m, R_m, g_m, p_out, T_out, R_out, g_out, ome
     return kernel_ops.orifice_flow(cda, p, T_m, R_m, g_m, p_out, T_out, R_out, g_out, dp_lin) / omega
 
 
-def pressure_rate(intake, x, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, Q, pref, dp, dp_lin):
+def pressure_rate(intake, x, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, Q, pref, Z, shift, dp,
+                  dp_lin):
     """``(dp/dphi [Pa/deg], its slope in p [1/deg])`` of a manifold at pressure ``x`` [Pa].
 
     ``Q`` [kg/deg]: the cylinders' flow in the interval, out of an intake manifold (drawn in
     proportion to the manifold pressure about the reference ``pref`` [Pa] they saw, a Newton-like
-    estimate of their response) or into an exhaust manifold (``pref`` unused).  The orifice
-    flow's slope is a forward difference over ``dp`` [Pa].
+    estimate of their response) or into an exhaust manifold.  The orifice flow's slope is a
+    forward difference over ``dp`` [Pa].
+
+    ``Z`` [kg/(Pa deg)]: the admittance of pipes whose open ends meet the volume (runners,
+    :func:`cyclesim.engine.runner_links.far_end_admittance`): they answer the volume's swings
+    about the pressure they saw by an extra outflow ``Z (x - pref - shift)``, ``shift`` [Pa] the
+    lap's mean of ``x - pref`` (so the term adds nothing over a cycle).  With ``Z = 0`` (lumped
+    cylinders' flows) ``pref`` of an exhaust manifold and ``shift`` are unused, and the rate is
+    the plain filling-and-emptying balance bit for bit.
     """
     q = boundary_flow(intake, cda, x, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, dp_lin)
     dq = (boundary_flow(intake, cda, x + dp, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, dp_lin) - q) / dp
+    swing = Z * (x - pref - shift)
     if intake:
-        return k * (q - Q * x / pref), k * (dq - Q / pref)
-    return k * (Q - q), -k * dq
+        return k * (q - Q * x / pref - swing), k * (dq - Q / pref - Z)
+    return k * (Q - swing - q), -k * (Z + dq)
 
 
-def implicit_step(p, h, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, Q, pref, intake, dp, dp_lin):
+def implicit_step(p, h, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, Q, pref, Z, shift, intake, dp,
+                  dp_lin):
     """Manifold pressure [Pa] one step ``h`` [deg] on from ``p`` [Pa]: the implicit-Euler equation
     ``x = p + h r(x)`` by :data:`NEWTON_PASSES` Newton passes from ``x = p``, each held above
     :data:`P_FLOOR`."""
     x = p
     for _ in range(NEWTON_PASSES):
-        r, dr = pressure_rate(intake, x, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, Q, pref,
-                              dp, dp_lin)
+        r, dr = pressure_rate(intake, x, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, Q, pref, Z,
+                              shift, dp, dp_lin)
         g = x - p - h * r
         x = np.maximum(x - g / (1.0 - h * dr), P_FLOOR)
     return x
 
 
-def step_rows(out, j, h, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, Q, pref, intake, dp, dp_lin):
+def step_rows(out, j, h, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, Q, pref, Z, shift, intake, dp,
+              dp_lin):
     """``out[:, j + 1]`` from ``out[:, j]``: one :func:`implicit_step` of every row (arrays of rows
     for the per-manifold arguments; ``R_out, g_out, g_m, h, dp, dp_lin`` shared floats)."""
     out[:, j + 1] = implicit_step(out[:, j], h, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega,
-                                  Q[:, j], pref[:, j], intake, dp, dp_lin)
+                                  Q[:, j], pref[:, j], Z, shift, intake, dp, dp_lin)
 
 
-def lap(p0, h, k, A, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, Q, pref, intake, dp, dp_lin):
+def lap(p0, h, k, A, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, Q, pref, Z, shift, intake, dp, dp_lin):
     """Manifold pressures over one lap [Pa], (rows, n + 1) from ``p0`` (rows,), for the cylinders'
     flows ``Q`` (rows, n) per step of ``h`` [deg]: ``A`` the orifice's effective area [m^2] to the
     outside at ``p_amb, T_amb`` (gas ``R_amb, g_amb``), the manifold at ``T_m`` (gas ``R_m, g_m``),
-    ``k = R T / V`` [Pa/kg] (see :func:`pressure_rate` for ``pref`` and ``intake``)."""
+    ``k = R T / V`` [Pa/kg] (see :func:`pressure_rate` for ``pref``, ``Z`` and ``shift`` (rows,),
+    and ``intake``)."""
     n = Q.shape[1]
     out = np.empty((p0.shape[0], n + 1))
     out[:, 0] = p0
     for j in range(n):
-        step_rows(out, j, h, k, A, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, Q, pref, intake, dp, dp_lin)
+        step_rows(out, j, h, k, A, T_m, R_m, g_m, p_amb, T_amb, R_amb, g_amb, omega, Q, pref, Z, shift, intake, dp,
+                  dp_lin)
     return out
 
 
@@ -108,12 +121,14 @@ def register_compiled() -> None:
         register_jitable(inline="always")(fn)
 
     @overload(step_rows)
-    def _step_rows_floats(out, j, h, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, Q, pref, intake,
-                          dp, dp_lin):
-        def impl(out, j, h, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, Q, pref, intake, dp, dp_lin):
+    def _step_rows_floats(out, j, h, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, Q, pref, Z, shift,
+                          intake, dp, dp_lin):
+        def impl(out, j, h, k, cda, T_m, R_m, g_m, p_out, T_out, R_out, g_out, omega, Q, pref, Z, shift, intake, dp,
+                 dp_lin):
             for e in range(out.shape[0]):
                 out[e, j + 1] = implicit_step(out[e, j], h, k[e], cda[e], T_m[e], R_m[e], g_m, p_out[e], T_out[e],
-                                              R_out, g_out, omega[e], Q[e, j], pref[e, j], intake, dp, dp_lin)
+                                              R_out, g_out, omega[e], Q[e, j], pref[e, j], Z[e], shift[e], intake,
+                                              dp, dp_lin)
         return impl
 
     _registered = True
