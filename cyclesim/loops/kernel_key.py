@@ -52,8 +52,23 @@ def _fingerprint(fn, seen=None) -> tuple:
         elif isinstance(val, types.ModuleType):
             out.append((name, val.__name__))
         else:
-            out.append((name, type(val).__name__, repr(val)))
+            out.append((name, type(val).__name__, _value_text(val)))
     return tuple(out)
+
+
+def _value_text(val) -> str:
+    """``repr`` of a global's value, except for a built-in function or method (``math.exp``,
+    ``np.logical_or.reduce``), named by its owner and name instead: its ``repr`` holds the
+    object's memory address, which differs in every process, so a key made from it would never
+    be found again by a later process."""
+    if isinstance(val, types.BuiltinFunctionType):      # built-in methods are of this type too
+        owner = getattr(val, "__self__", None)
+        if owner is None or isinstance(owner, types.ModuleType):
+            where = getattr(val, "__module__", None) or ""
+        else:
+            where = repr(owner)                         # a ufunc's repr is its name
+        return f"builtin:{where}.{val.__qualname__}"
+    return repr(val)
 
 
 _MISSING = object()
