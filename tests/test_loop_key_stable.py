@@ -64,3 +64,38 @@ def test_a_built_in_function_is_named_not_addressed(value, text):
     assert _value_text(np.logical_and.reduce) != _value_text(np.logical_or.reduce)
     assert _value_text(2.5) == repr(2.5)
 
+
+
+def _reference_global_names(code):
+    import dis
+
+    names, codes = set(), [code]
+    while codes:
+        c = codes.pop()
+        names.update(ins.argval for ins in dis.get_instructions(c) if ins.opname == "LOAD_GLOBAL")
+        codes += [k for k in c.co_consts if isinstance(k, types.CodeType)]
+    return tuple(sorted(names))
+
+
+def test_global_names_from_raw_bytecode_equal_those_dis_gives():
+    """The key's fast scan of LOAD_GLOBAL against the standard library's disassembler, on every
+    function of the package's kernel modules and of this test (an EXTENDED_ARG case included)."""
+    import cyclesim.kernel_ops
+    import cyclesim.loops._compiled
+    import cyclesim.loops.zone_solve
+    from cyclesim.loops.kernel_key import _global_names
+
+    many = "\n".join(f"g{i} = {i}" for i in range(300))
+    space: dict = {}
+    exec(many + "\ndef wide():\n    return " + " + ".join(f"g{i}" for i in range(300)) + "\n", space)
+    codes = [space["wide"].__code__]
+    for mod in (cyclesim.kernel_ops, cyclesim.loops.zone_solve, cyclesim.loops._compiled):
+        for v in vars(mod).values():
+            fn = getattr(v, "py_func", v)
+            if isinstance(fn, types.FunctionType):
+                codes.append(fn.__code__)
+    codes += [fn.__code__ for fn in _kernel_functions()]
+    assert len(codes) > 60
+    for code in codes:
+        assert _global_names(code) == _reference_global_names(code), code.co_name
+    assert len(_global_names(space["wide"].__code__)) == 300

@@ -9,9 +9,16 @@ still makes it again.  Used by :mod:`cyclesim.loops.loopgen`.
 
 from __future__ import annotations
 
+import dis
+import sys
 import types
 
 _GLOBAL_NAMES: dict = {}
+_LOAD_GLOBAL = dis.opmap["LOAD_GLOBAL"]
+_EXTENDED_ARG = dis.EXTENDED_ARG
+_NAME_SHIFT = 1 if sys.version_info >= (3, 11) else 0
+"""From Python 3.11 on LOAD_GLOBAL's argument is the name's index times two (its low bit says
+whether a NULL is pushed first); before, the index itself (the ``dis`` module's documentation)."""
 
 
 def _globals_read(fn) -> dict:
@@ -25,15 +32,22 @@ def _globals_read(fn) -> dict:
 
 
 def _global_names(code) -> tuple:
-    import dis
-
+    """The names the code's LOAD_GLOBAL instructions load, nested code included, sorted: read from
+    the raw bytecode (what ``dis.get_instructions`` gives as their ``argval``, at a small part of
+    its cost: the loop's key reads every kernel and helper of a run)."""
     names: set = set()
     codes = [code]
     while codes:
         code = codes.pop()
-        for ins in dis.get_instructions(code):
-            if ins.opname == "LOAD_GLOBAL":
-                names.add(ins.argval)
+        raw, co_names, ext = code.co_code, code.co_names, 0
+        for i in range(0, len(raw), 2):
+            op = raw[i]
+            if op == _EXTENDED_ARG:
+                ext = (ext | raw[i + 1]) << 8
+                continue
+            if op == _LOAD_GLOBAL:
+                names.add(co_names[(ext | raw[i + 1]) >> _NAME_SHIFT])
+            ext = 0
         codes += [c for c in code.co_consts if isinstance(c, types.CodeType)]
     return tuple(sorted(names))
 
