@@ -2,7 +2,7 @@
 
 Every module a command imports is read (and without a bytecode cache, compiled) in every process;
 the parser of the whole command line must not pull in the fitting, the trace analysis, the
-studies, the reports or the plots.
+studies, the reports or the plots, and a run without runners not the pipe package.
 """
 
 from __future__ import annotations
@@ -19,12 +19,12 @@ PROBE = """
 import contextlib, io, json, sys
 from cyclesim.cli import main
 with contextlib.redirect_stdout(io.StringIO()):
-    rc = main(["run", "demo", "--set", "emissions.model=none"])
+    rc = main(["run", "demo"])
 print(json.dumps({"rc": rc, "loaded": sorted(m for m in sys.modules if m.startswith(tuple(sys.argv[1:])))}))
 """
 
 
-def test_run_demo_loads_no_fitting_analysis_studies_or_plots():
+def test_run_demo_loads_no_fitting_analysis_studies_plots_or_pipes():
     out = subprocess.run([sys.executable, "-c", PROBE, *NOT_FOR_A_RUN], capture_output=True, text=True,
                          timeout=600)
     assert out.returncode == 0, out.stderr[-2000:]
