@@ -82,7 +82,13 @@ def test_one_case_over_the_budget_is_refused_before_allocating(monkeypatch):
         build_batch([base], get_registry(()))                 # every path through a batch (engine, traces)
 
 
-def test_command_line_refusals_are_one_line(tmp_path):
+def test_command_line_refusals_are_one_line(tmp_path, monkeypatch, capsys):
+    # the command line's own entry (cyclesim.cli.main, what ``python -m cyclesim`` exits with), in
+    # this process: one line on stderr, nothing on stdout, no warning, status 2
+    import warnings
+
+    from cyclesim.cli import main
+
     for args, env, words in [
         (("run", "demo", "--set", "simulation.step_deg=0.01", "--set", "operating.speed_rpm=100"), None,
          "one case at 100 rpm (18,432,000 crank steps per cycle) needs about"),
@@ -92,10 +98,20 @@ def test_command_line_refusals_are_one_line(tmp_path):
          "even one cycle is over it"),
         (("run", "demo"), {BUDGET_ENV: "lots"}, f"{BUDGET_ENV}='lots': expected a number of GiB > 0"),
     ]:
-        r = cli(*args, env=env)
-        lines = r.stderr.strip().splitlines()
-        assert r.returncode == 2 and len(lines) == 1 and words in lines[0], (args, r.stderr)
+        with monkeypatch.context() as m:
+            for k, v in (env or {}).items():
+                m.setenv(k, v)
+            with warnings.catch_warnings(record=True) as seen:
+                warnings.simplefilter("always")
+                rc = main(list(args))
+        out, err = capsys.readouterr()
+        lines = err.strip().splitlines()
+        assert rc == 2 and len(lines) == 1 and words in lines[0], (args, err)
+        assert out == "" and not seen, (args, out, [str(w.message) for w in seen])
     assert not (tmp_path / "a").exists() and not (tmp_path / "b").exists()
+    # and as a process of its own, for one of them: the same line, status 2
+    r = cli("run", "demo", env={BUDGET_ENV: "lots"})
+    assert r.returncode == 2 and r.stderr.strip().splitlines() == [lines[0]]
 
 
 def test_traces_within_the_budget_pass_the_check():

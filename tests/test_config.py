@@ -161,19 +161,21 @@ def test_case_with_still_validates_the_changed_section():
         case_with(load_config("demo"), {"engine.conrod_mm": 30.0})
 
 
-def test_keys_lists_every_core_key_with_unit_and_meaning():
-    import subprocess
-    import sys
-
+def test_keys_lists_every_core_key_with_unit_and_meaning(capsys):
+    # the command line's entry in this process (the one-line error as a process of its own is
+    # test_cli_error_is_one_line_exit_2)
+    from cyclesim.cli import main
     from cyclesim.config import CORE_SCHEMA, MULTI_SCHEMA
 
-    r = subprocess.run([sys.executable, "-m", "cyclesim", "keys"], capture_output=True, text=True)
-    assert r.returncode == 0
+    assert main(["keys"]) == 0
+    out = capsys.readouterr().out
     for params in (*CORE_SCHEMA.values(), MULTI_SCHEMA):
         for p in params:
-            line = next(ln for ln in r.stdout.splitlines() if ln.split() and ln.split()[0] == p.name)
+            line = next(ln for ln in out.splitlines() if ln.split() and ln.split()[0] == p.name)
             assert f"[{p.unit}]" in line and p.doc in line
-    bad = subprocess.run([sys.executable, "-m", "cyclesim", "keys", "operatin"], capture_output=True, text=True)
-    assert bad.returncode == 2 and "did you mean 'operating'" in bad.stderr
-    shown = subprocess.run([sys.executable, "-m", "cyclesim", "show", "demo"], capture_output=True, text=True)
-    assert "multi_cylinder:" in shown.stdout and "firing_order" in shown.stdout
+    assert main(["keys", "operatin"]) == 2
+    err = capsys.readouterr().err
+    assert "did you mean 'operating'" in err and len(err.strip().splitlines()) == 1
+    assert main(["show", "demo"]) == 0
+    shown = capsys.readouterr().out
+    assert "multi_cylinder:" in shown and "firing_order" in shown

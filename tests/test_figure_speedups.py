@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import subprocess
-import sys
 
 import numpy as np
 from hypothesis import given, settings
@@ -63,9 +61,3 @@ def test_grid_valve_areas_read_from_the_lattice_equal_the_valve_models():
         for side in ("intake", "exhaust"):
             np.testing.assert_array_equal(got[side], want[side])
 
-
-def test_a_run_without_runners_does_not_load_the_pipe_package():
-    code = ("import sys, cyclesim; r = cyclesim.simulate(['demo'])[0]; assert r.ok, r.error;"
-            " print('cyclesim.pipes' in sys.modules)")
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    assert out.stdout.strip() == "False"

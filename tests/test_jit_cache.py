@@ -122,3 +122,60 @@ def test_stamp_follows_a_global_value_and_a_helper_in_another_module(tmp_path, m
     (pkg / "helper.py").write_text("SCALE = 2.0\n\ndef scaled(x):\n    return SCALE * x * 1.0\n")
     os.utime(pkg / "helper.py", ns=(1, 1))        # a new stat key even within the clock's resolution
     assert jit_cache.dependency_digest(caller.f) not in (d0, d1)
+
+
+def _copy_dispatchers(module):
+    """The disk-cached compiled functions of the compiled copy of a kernel module."""
+    from cyclesim.loops.kernel_copy import kernels
+
+    mod = kernels(module)
+    return [v for v in vars(mod).values()
+            if getattr(v, "py_func", None) is not None and getattr(v, "__module__", "") == mod.__name__]
+
+
+def test_kernel_copies_are_stamped_with_the_sources_they_call():
+    """The compiled copies of the zone kernels reach the zone solve and the kernel helpers through
+    the call walk, so those files need no place in the copy's file name; the files the walk cannot
+    reach (the copy's njit options, the registered compiled forms of the gas helpers) are kept by hand."""
+    from cyclesim.combustion import zone_kernels
+    from cyclesim.loops import jit_cache, kernel_copy, zone_points
+
+    for module in (zone_kernels, zone_points):
+        fns = _copy_dispatchers(module)
+        assert fns, module.__name__
+        files = set().union(*(jit_cache.dependency_files(f) for f in fns))
+        assert {PACKAGE / "loops" / "zone_solve.py", PACKAGE / "kernel_ops.py"} <= {Path(f) for f in files}
+    assert {Path(f) for f in kernel_copy._beyond_the_walk()} == {PACKAGE / "loops" / "kernel_copy.py",
+                                                                 PACKAGE / "loops" / "_compiled.py"}
+
+
+def test_an_edit_of_a_called_source_changes_the_kernel_copy_stamp(monkeypatch):
+    """An edit of zone_solve.py (seen as its content hash) changes the stamp of the compiled zone
+    kernels that call into it; an unedited tree gives the same stamp again."""
+    from cyclesim.combustion import zone_kernels
+    from cyclesim.loops import jit_cache
+
+    fn = next(f for f in _copy_dispatchers(zone_kernels)
+              if str(PACKAGE / "loops" / "zone_solve.py") in jit_cache.dependency_files(f))
+    before = jit_cache.dependency_digest(fn)
+    assert jit_cache.dependency_digest(fn) == before
+    real = jit_cache._file_hash
+    edited = str(PACKAGE / "loops" / "zone_solve.py")
+    monkeypatch.setattr(jit_cache, "_file_hash", lambda p: real(p) + ("-edited" if p == edited else ""))
+    assert jit_cache.dependency_digest(fn) != before
+
+
+def test_an_edit_of_a_hand_kept_file_names_a_new_kernel_copy(tmp_path, monkeypatch):
+    from cyclesim.combustion import zeldovich
+    from cyclesim.loops import kernel_copy
+
+    monkeypatch.setenv("CYCLESIM_CACHE_DIR", str(tmp_path / "cache"))
+    kept = tmp_path / "kept.py"
+    monkeypatch.setattr(kernel_copy, "_beyond_the_walk", lambda: (str(kept),))
+    kept.write_text("OPTIONS = 1\n")
+    first = kernel_copy._source_copy(zeldovich)
+    assert kernel_copy._source_copy(zeldovich) == first
+    kept.write_text("OPTIONS = 2\n")
+    second = kernel_copy._source_copy(zeldovich)
+    assert second != first
+    assert Path(first).read_bytes() == Path(second).read_bytes() == Path(zeldovich.__file__).read_bytes()

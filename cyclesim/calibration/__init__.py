@@ -77,11 +77,33 @@ the same way in every cycle.  Two remedies:
   (:data:`TDC_LOSS_ANGLE_REL_SD`).
 """
 
-from .burn_table import burn_table, write_burn_table
-from .fitting import PointsFit, fit, fit_points
-from .bounds import check_calibratable, declared_fit_parameters, param_bounds
-from .measured import MeasuredData, measured_data
-from .result import FitResult, write_calibration
+from .burn_table import burn_table, write_burn_table   # a submodule of the same name as the function
+
+_EXPORTS = {
+    "burn_table": "burn_table", "write_burn_table": "burn_table",
+    "PointsFit": "fitting", "fit": "fitting", "fit_points": "fitting",
+    "check_calibratable": "bounds", "declared_fit_parameters": "bounds", "param_bounds": "bounds",
+    "MeasuredData": "measured", "measured_data": "measured",
+    "FitResult": "result", "write_calibration": "result",
+}
+"""Public name -> the submodule that defines it, imported at the name's first use: a command that
+only reads :data:`cyclesim.calibration.bounds.CALIBRATION_RULE` (the command line's help) does not
+load the fitting machinery."""
 
 __all__ = ["FitResult", "PointsFit", "fit", "fit_points", "param_bounds", "check_calibratable",
            "declared_fit_parameters", "burn_table", "write_burn_table", "measured_data", "MeasuredData", "write_calibration"]
+
+
+def __getattr__(name: str):
+    sub = _EXPORTS.get(name)
+    if sub is None:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    import importlib
+
+    value = getattr(importlib.import_module(f"{__name__}.{sub}"), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_EXPORTS))

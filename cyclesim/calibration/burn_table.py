@@ -5,8 +5,6 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Sequence
 
-from .fitting import PointsFit
-
 
 # --------------------------------------------------------------------------
 # Burn table
@@ -32,6 +30,8 @@ def burn_table(fits: Sequence) -> list[dict]:
         IMEP in closed mode), the burn model, every burn parameter of that
         model, and for fitted ones ``<name>_stderr``.
     """
+    from .fitting import PointsFit
+
     if isinstance(fits, PointsFit):
         fits = fits.points
     rows = []

@@ -5,9 +5,8 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..errors import CyclesimError
-from ..traces.analysis_settings import analysis_inputs
 
-__all__ = ["add_parsers", "cmd_analyse", "cmd_traces", "analysis_inputs", "HANDLERS"]
+__all__ = ["add_parsers", "cmd_analyse", "cmd_traces", "HANDLERS"]
 
 
 def add_parsers(subparsers) -> None:
@@ -124,6 +123,7 @@ def cmd_analyse(args) -> int:
     from ..output import prepare_out_dir
     from ..traces.analysis import analyse, with_measured_masses
     from ..traces.analysis_files import write_analysis
+    from ..traces.analysis_settings import analysis_inputs
     from ..traces.export import read_trace
 
     tau = getattr(args, "thermal_tau", None)

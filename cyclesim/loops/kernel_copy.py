@@ -27,23 +27,35 @@ def _lookup():
     return _mix_at
 
 
+def _beyond_the_walk() -> tuple[str, ...]:
+    """The files a compiled kernel depends on that the call walk of its cache stamp
+    (:func:`cyclesim.loops.jit_cache.dependency_digest`) cannot reach, so they are kept here by
+    hand: this file (the ``njit`` options of :func:`kernels`, which numba's cache index does not
+    record) and :mod:`cyclesim.loops._compiled`, whose ``overload`` registrations are the compiled
+    forms of :mod:`cyclesim.loops.zone_solve`'s gas helpers (registered, never called by name, so no
+    walk finds them).  What the kernels call (zone_solve, kernel_ops, the gas look-up's source) the
+    walk finds, and numba's stamp of each compiled kernel holds it."""
+    from . import _compiled
+
+    return (__file__, _compiled.__file__)
+
+
 def _source_copy(module: types.ModuleType) -> str:
     """The module's source as a file of the loop cache (:func:`cyclesim.loops.loopgen.cache_dir`)
-    named by a hash of it and of the sources its compiled form calls into (the gas look-up and the
-    zone solve, :mod:`cyclesim.loops.zone_solve`, :mod:`cyclesim.loops._compiled`,
-    :mod:`cyclesim.kernel_ops`): numba's disk cache is keyed by the file, so an edit of any of them
-    gives a new file and never a stale compiled kernel."""
+    named by a hash of it and of the files of :func:`_beyond_the_walk`: numba's disk cache is keyed
+    by the file (and, through :mod:`cyclesim.loops.jit_cache`, by every source the compiled kernels
+    call into), so an edit of any of them gives a new file or a new stamp, never a stale compiled
+    kernel."""
     import hashlib
     import os
     from pathlib import Path
 
-    import cyclesim.kernel_ops as kernel_ops
-    from . import _compiled, loopgen, zone_solve
+    from . import loopgen
 
     text = Path(module.__file__).read_bytes()
     h = hashlib.sha256(text)
-    for dep in (zone_solve, _compiled, kernel_ops):
-        h.update(Path(dep.__file__).read_bytes())
+    for dep in _beyond_the_walk():
+        h.update(Path(dep).read_bytes())
     path = loopgen.cache_dir() / f"{module.__name__.rpartition('.')[2]}_{h.hexdigest()[:20]}.py"
     if not path.is_file():
         tmp = path.with_suffix(f".{os.getpid()}.tmp")

@@ -9,9 +9,16 @@ still makes it again.  Used by :mod:`cyclesim.loops.loopgen`.
 
 from __future__ import annotations
 
+import dis
+import sys
 import types
 
 _GLOBAL_NAMES: dict = {}
+_LOAD_GLOBAL = dis.opmap["LOAD_GLOBAL"]
+_EXTENDED_ARG = dis.EXTENDED_ARG
+_NAME_SHIFT = 1 if sys.version_info >= (3, 11) else 0
+"""From Python 3.11 on LOAD_GLOBAL's argument is the name's index times two (its low bit says
+whether a NULL is pushed first); before, the index itself (the ``dis`` module's documentation)."""
 
 
 def _globals_read(fn) -> dict:
@@ -25,15 +32,22 @@ def _globals_read(fn) -> dict:
 
 
 def _global_names(code) -> tuple:
-    import dis
-
+    """The names the code's LOAD_GLOBAL instructions load, nested code included, sorted: read from
+    the raw bytecode (what ``dis.get_instructions`` gives as their ``argval``, at a small part of
+    its cost: the loop's key reads every kernel and helper of a run)."""
     names: set = set()
     codes = [code]
     while codes:
         code = codes.pop()
-        for ins in dis.get_instructions(code):
-            if ins.opname == "LOAD_GLOBAL":
-                names.add(ins.argval)
+        raw, co_names, ext = code.co_code, code.co_names, 0
+        for i in range(0, len(raw), 2):
+            op = raw[i]
+            if op == _EXTENDED_ARG:
+                ext = (ext | raw[i + 1]) << 8
+                continue
+            if op == _LOAD_GLOBAL:
+                names.add(co_names[(ext | raw[i + 1]) >> _NAME_SHIFT])
+            ext = 0
         codes += [c for c in code.co_consts if isinstance(c, types.CodeType)]
     return tuple(sorted(names))
 
@@ -52,8 +66,23 @@ def _fingerprint(fn, seen=None) -> tuple:
         elif isinstance(val, types.ModuleType):
             out.append((name, val.__name__))
         else:
-            out.append((name, type(val).__name__, repr(val)))
+            out.append((name, type(val).__name__, _value_text(val)))
     return tuple(out)
+
+
+def _value_text(val) -> str:
+    """``repr`` of a global's value, except for a built-in function or method (``math.exp``,
+    ``np.logical_or.reduce``), named by its owner and name instead: its ``repr`` holds the
+    object's memory address, which differs in every process, so a key made from it would never
+    be found again by a later process."""
+    if isinstance(val, types.BuiltinFunctionType):      # built-in methods are of this type too
+        owner = getattr(val, "__self__", None)
+        if owner is None or isinstance(owner, types.ModuleType):
+            where = getattr(val, "__module__", None) or ""
+        else:
+            where = repr(owner)                         # a ufunc's repr is its name
+        return f"builtin:{where}.{val.__qualname__}"
+    return repr(val)
 
 
 _MISSING = object()
