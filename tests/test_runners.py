@@ -223,3 +223,29 @@ def test_sweep_accepts_runner_keys_and_refuses_unknown_ones(tmp_path):
     with pytest.raises(ConfigError):
         _check_key(base, "intake.runner.cells", {"intake.runner.cells": [10.5]})
 
+
+
+# -- the compiled loop's key --------------------------------------------------------------------------
+@pytest.mark.skipif(not HAS_NUMBA, reason="numba not installed")
+@pytest.mark.parametrize("name", ["pipes/loop_step.py", "pipes/scheme.py", "pipes/kernels.py", "pipes/coupling.py",
+                                  "pipes/_jit.py", "kernel_ops.py"])
+def test_editing_a_source_of_the_runner_step_changes_the_loops_key(monkeypatch, name):
+    """The generated loop with runners is named by loop_step.source_digest: the files the walk of
+    crank_step's calls reaches and the decorator options' file.  An edit is stood in for by a
+    changed content hash of that one file (the digest reads files only through that hash)."""
+    from pathlib import Path
+
+    import cyclesim.pipes.loop_step as loop_step
+    from cyclesim.loops import jit_cache
+
+    target = str(Path(cyclesim.__file__).parent / name)
+    assert Path(target).is_file()
+    before = loop_step.source_digest()
+    assert loop_step.source_digest() == before
+    real = jit_cache._file_hash
+    monkeypatch.setattr(jit_cache, "_file_hash", lambda p: "edited" if str(p) == target else real(p))
+    assert loop_step.source_digest() != before
+    # a file the step does not run leaves the key as it is
+    monkeypatch.setattr(jit_cache, "_file_hash",
+                        lambda p: "edited" if str(p).endswith("studies/sweep.py") else real(p))
+    assert loop_step.source_digest() == before

@@ -41,16 +41,24 @@ MAX_SUBSTEPS = 1_000_000
 """Sub-steps of one runner's advance before it gives up (as :func:`cyclesim.pipes.advance_crank_step`)."""
 
 
-def source_digest() -> str:
-    """A hash of the sources the compiled crank step runs (this module, the pipes' drivers and
-    kernels, the valve flow they call): part of the generated loop's name, so an edited pipe
-    kernel never runs on a stale compiled loop."""
-    from ..cylinder import flow
+UNREACHED_SOURCES = ("_jit.py",)
+"""Files of this folder the compiled crank step depends on that the walk of its calls
+(:func:`cyclesim.loops.jit_cache.dependency_files`) cannot find: ``_jit.py`` holds the kernels'
+decorator options (fast-math flags, the scalar ``where``), which are no function's code."""
 
-    h = hashlib.sha256()
-    for mod in (__file__, s.__file__, _coupling.__file__, s.k.__file__, _kernel_ops.__file__, flow.__file__,
-                str(Path(s.__file__).with_name("_jit.py"))):
-        h.update(Path(mod).read_bytes())
+
+def source_digest() -> str:
+    """A hash of the sources the compiled crank step runs: every file of this package's functions
+    that :func:`crank_step` reaches, transitively, and the values of the plain globals read on
+    the way (:func:`cyclesim.loops.jit_cache.dependency_digest`), with the files of
+    :data:`UNREACHED_SOURCES`.  Part of the generated loop's name, so an edited pipe kernel
+    never runs on a stale compiled loop."""
+    from ..loops import jit_cache
+
+    h = hashlib.sha256(jit_cache.dependency_digest(crank_step).encode())
+    for name in UNREACHED_SOURCES:
+        path = str(Path(__file__).with_name(name))
+        h.update(f"{name}:{jit_cache._file_hash(path)}\n".encode())
     return h.hexdigest()[:16]
 
 
