@@ -49,3 +49,35 @@ def test_fit_exponent_recovers_a_power_law(b, k, lengths):
     assert got == pytest.approx(b, abs=1e-9) and se < 1e-9
     noisy = [p * (1.0 + 0.05 * (-1) ** i) for i, p in enumerate(peaks)]
     assert fit_exponent(lengths, noisy)[1] > 0.0
+
+
+TUNING_WINDOWS = {280.0: 6250.0, 400.0: 5550.0, 560.0: 4100.0, 800.0: 3800.0}
+"""Runner length [mm]: middle of the speed window [rpm] searched for its tuned speed; the windows are
+centred on the full-resolution study's peaks (benchmarks/runner_tuning.py, speeds 50 rpm apart over
+2000-7500 rpm: 6247, 5526, 4119 and 3779 rpm; fitted b = -0.516 +- 0.083)."""
+
+
+def test_tuned_speed_follows_the_helmholtz_estimate():
+    """Five speeds 100 rpm apart about each length's peak, 30 cells (the default), the exhaust on
+    its plenum: each window's highest point is inside it (else the peak moved away and the check
+    fails), and the exponent fitted over the four lengths is within +-0.2 of -1/2."""
+    import cyclesim
+
+    cases, index = [], []
+    for L, mid in TUNING_WINDOWS.items():
+        for n in mid + 100.0 * np.arange(-2, 3):
+            cases.append(cyclesim.load_config("demo", [f"intake.runner.length_mm={L:g}", "intake.runner.diameter_mm=38",
+                                                       "intake.runner.entry_loss=0.05", "simulation.tolerance=0.0005",
+                                                       "simulation.max_cycles=15", f"operating.speed_rpm={n:g}"]))
+            index.append((L, n))
+    res = cyclesim.simulate(cases)
+    assert all(r.error is None for r in res)
+    peaks = []
+    for L in TUNING_WINDOWS:
+        rows = [(n, r.summary["volumetric_efficiency"]) for (Lr, n), r in zip(index, res) if Lr == L]
+        speed, inside = peak_speed([n for n, _ in rows], [v for _, v in rows])
+        assert inside, (L, rows)
+        peaks.append(speed)
+    b, se = fit_exponent(list(TUNING_WINDOWS), peaks)
+    assert math.isfinite(se)
+    assert abs(b - HELMHOLTZ_EXPONENT) <= EXPONENT_TOLERANCE, (b, se, peaks)
