@@ -110,7 +110,8 @@ def _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration,
             sl[:, 0] = k.limited_slope(d[:, 0], d[:, 1])              # end cells: the stencil shifted inwards
             sl[:, -1] = k.limited_slope(d[:, -1], d[:, -2])
             slopes.append(sl)
-        _, _, s_u, s_p = k.cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, D, rough, *wall)
+        R = k.mixture_R(Y, Rf, Rb)
+        _, _, s_u, s_p = k.sources_at(rho, u, T, R / (g - 1.0), R, D, rough, *wall)
         hdt = col(0.5 * dt)
         rl, ul, pl, yl, rr, ur, pr, yr = k.predict(rho, u, p, Y, g, *slopes, ax, s_u, s_p, hdt, dx)
         El, cl = k.total_energy(rl, ul, pl, yl, cf, cb, Rf, Rb, t_mid)
@@ -153,7 +154,7 @@ def _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration,
                 for q in range(4):
                     F1[q, :, face] = ef[q]
             F = np.where(flag[None], F1, F)
-            s_mom0, s_E0, _, _ = k.cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, D, rough, *wall)
+            s_mom0, s_E0, _, _ = k.sources_at(rho, u, T, R / (g - 1.0), R, D, rough, *wall)
             Qn = update(F, np.where(bad, p, ph), np.where(bad, s_mom0, s_mom), np.where(bad, s_E0, s_E), dtc)
             bad = ~k.positive(Qn[:, MASS], Qn[:, MOMENTUM], Qn[:, ENERGY], Qn[:, BURNED],
                               POSITIVITY_T_FRACTION * T, cf, cb, t_mid) & col(active)
@@ -323,8 +324,9 @@ if COMPILED:
             for i in range(N):
                 D = G[b, G_DIAMETER, i]
                 rg = G[b, G_ROUGH_TERM, i]
-                _, _, s_u, s_p = kc.cell_sources(W[0, i], W[1, i], W[2, i], W[3, i], cf, cb, Rf, Rb,
-                                                t_mid, D, rg, fr, ff, kl, tw, prn, hs)
+                Ri = kc.mixture_R(W[3, i], Rf, Rb)
+                _, _, s_u, s_p = kc.sources_at(W[0, i], W[1, i], W[4, i], Ri / (W[5, i] - 1.0), Ri, D, rg,
+                                               fr, ff, kl, tw, prn, hs)
                 rl, ul, pl, yl, rr, ur, pr, yr = kc.predict(
                     W[0, i], W[1, i], W[2, i], W[3, i], W[5, i], S[0, i], S[1, i], S[2, i], S[3, i],
                     G[b, G_AREA_SLOPE, i], s_u, s_p, hdt, dx)
@@ -392,9 +394,10 @@ if COMPILED:
                         F[3, f] = f3 * a
                 for i in range(N):
                     if bad[i]:
-                        s_mom, s_E, _, _ = kc.cell_sources(W[0, i], W[1, i], W[2, i], W[3, i], cf, cb, Rf, Rb,
-                                                          t_mid, G[b, G_DIAMETER, i], G[b, G_ROUGH_TERM, i],
-                                                          fr, ff, kl, tw, prn, hs)
+                        Ri = kc.mixture_R(W[3, i], Rf, Rb)
+                        s_mom, s_E, _, _ = kc.sources_at(W[0, i], W[1, i], W[4, i], Ri / (W[5, i] - 1.0), Ri,
+                                                         G[b, G_DIAMETER, i], G[b, G_ROUGH_TERM, i],
+                                                         fr, ff, kl, tw, prn, hs)
                         PH[i] = W[2, i]
                         SM[i] = s_mom
                         SE[i] = s_E
