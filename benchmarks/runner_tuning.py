@@ -91,7 +91,8 @@ def speed_point(speed_rpm: float) -> dict:
     rec = tr.runners
     updates = float((rec["substeps_total"][0] * rec["cells"]).sum())
     return {"speed_rpm": speed_rpm, "seconds": dt, "cpu_seconds": cpu, "cycles": int(tr.cycles[0]), "converged": bool(tr.converged[0]),
-            "cell_updates_per_s": updates / dt, "loop": tr.loop}
+            "cell_updates_per_s": updates / dt, "cell_updates_per_cpu_s": updates / cpu, "loop": tr.loop,
+            "substeps": rec["substeps_total"][0].tolist()}
 
 
 def main(argv=None) -> int:

@@ -54,7 +54,7 @@ def test_fit_exponent_recovers_a_power_law(b, k, lengths):
 TUNING_WINDOWS = {280.0: 6250.0, 400.0: 5550.0, 560.0: 4100.0, 800.0: 3800.0}
 """Runner length [mm]: middle of the speed window [rpm] searched for its tuned speed; the windows are
 centred on the full-resolution study's peaks (benchmarks/runner_tuning.py, speeds 50 rpm apart over
-2000-7500 rpm: 6247, 5526, 4119 and 3779 rpm; fitted b = -0.516 +- 0.083)."""
+2000-7500 rpm: 6247, 5525, 4119 and 3781 rpm; fitted b = -0.515 +- 0.083)."""
 
 
 def test_tuned_speed_follows_the_helmholtz_estimate():
