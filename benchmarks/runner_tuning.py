@@ -1,18 +1,25 @@
 """Runners solved in one dimension: volumetric efficiency and torque against speed, the tuned speed
 against the intake runner's length, and the speed of a run.
 
-    python benchmarks/runner_tuning.py [--lengths 350,500,700] [--speeds 3000:7000:500] [--quick]
+    python benchmarks/runner_tuning.py [--lengths 280,400,560,800] [--speeds 2000:7500:50] [--quick]
 
 Prints, on the demo engine (one cylinder; exhaust on its plenum so that the intake's tuning shows):
 
 1. VE [%] and brake torque [N m] against speed for the plenum (no runner), for each intake
    runner length, and for configs/demo_runners.yaml (intake and exhaust runners);
-2. per length, the speed of the VE peak (a parabola through the highest point and its two
-   neighbours) and the exponent b of N_peak ~ L^b fitted in log-log; the estimate stated in
-   advance is the organ-pipe one, b = -1 (a fixed number of wave round trips 2 L / c in the
-   intake event; Heywood 1988 sec. 7.6, Winterbone & Pearson 1999 ch. 6; from memory);
+2. per length, the tuned speed (:func:`cyclesim.pipes.tuning.peak_speed`: the vertex of the
+   parabola through the highest point and its two neighbours) and the Helmholtz estimate's
+   frequency ratio f_H / (N / 60) there; the exponent b of N_t ~ L^b fitted in log-log with its
+   standard error, against the estimate stated in advance (:mod:`cyclesim.pipes.tuning`:
+   Helmholtz, b = -1/2 +- 0.2; the organ-pipe estimate b = -1 stated before the quick run was
+   refuted by it, b = -0.48);
 3. one operating point of demo_runners at 1500 and 6000 rpm in-process: wall time, cycles to
    converge and the pipe cell updates per second.
+
+The full study (the defaults) runs lengths the quick run (350, 500, 700 mm, speeds 1000 rpm
+apart: ``--quick``) did not, with speeds 50 rpm apart: the VE curve of a runner has several
+humps (waves left from the cycle before: a 1-D open end reflects them without loss), some
+300-500 rpm wide, so coarse speeds can miss the highest one.
 """
 
 from __future__ import annotations
@@ -22,6 +29,8 @@ import math
 import time
 
 import numpy as np
+
+from cyclesim.pipes.tuning import EXPONENT_TOLERANCE, HELMHOLTZ_EXPONENT, fit_exponent, peak_speed
 
 
 def _speeds(text: str) -> list[float]:
@@ -50,17 +59,20 @@ def sweep(lengths_mm, speeds, extra=SETTLE):
     return out
 
 
-def peak_speed(speeds, ve) -> float:
-    """Speed of the VE peak: the vertex of the parabola through the highest point and its neighbours."""
-    i = int(np.argmax(ve))
-    i = min(max(i, 1), len(ve) - 2)
-    x, y = np.asarray(speeds[i - 1:i + 2], float), ve[i - 1:i + 2]
-    a, b, _ = np.polyfit(x, y, 2)
-    return float(-b / (2 * a)) if a < 0 else float(x[1])
+def helmholtz_ratio(length_mm: float, speed_rpm: float, diameter_mm: float = 38.0) -> float:
+    """f_H / (N / 60) of the demo cylinder at mid-stroke with an intake runner of ``length_mm``
+    at ``speed_rpm`` (:func:`cyclesim.pipes.tuning.helmholtz_frequency_hz`; the plenum's sound
+    speed, air at its temperature, gamma 1.4)."""
+    import cyclesim
+    from cyclesim.pipes.tuning import helmholtz_frequency_hz
 
-
-def fitted_exponent(lengths_mm, peaks) -> float:
-    return float(np.polyfit(np.log(lengths_mm), np.log(peaks), 1)[0])
+    c = cyclesim.load_config("demo")
+    bore, stroke, r = c.engine.bore_mm * 1e-3, c.engine.stroke_mm * 1e-3, c.engine.compression_ratio
+    vd = math.pi / 4 * bore ** 2 * stroke
+    v_mid = vd * (r + 1) / (2 * (r - 1))
+    a = math.pi / 4 * (diameter_mm * 1e-3) ** 2
+    sound = math.sqrt(1.4 * 287.0 * c.operating.intake_temperature_K)
+    return float(helmholtz_frequency_hz(sound, a, length_mm * 1e-3, v_mid)) / (speed_rpm / 60.0)
 
 
 def speed_point(speed_rpm: float) -> dict:
@@ -79,16 +91,18 @@ def speed_point(speed_rpm: float) -> dict:
     rec = tr.runners
     updates = float((rec["substeps_total"][0] * rec["cells"]).sum())
     return {"speed_rpm": speed_rpm, "seconds": dt, "cpu_seconds": cpu, "cycles": int(tr.cycles[0]), "converged": bool(tr.converged[0]),
-            "cell_updates_per_s": updates / dt, "loop": tr.loop}
+            "cell_updates_per_s": updates / dt, "cell_updates_per_cpu_s": updates / cpu, "loop": tr.loop,
+            "substeps": rec["substeps_total"][0].tolist()}
 
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--lengths", default="350,500,700")
-    ap.add_argument("--speeds", default="3000:7000:500")
-    ap.add_argument("--quick", action="store_true", help="fewer speeds (3000:7000:1000), no speed points")
+    ap.add_argument("--lengths", default="280,400,560,800")
+    ap.add_argument("--speeds", default="2000:7500:50")
+    ap.add_argument("--quick", action="store_true",
+                    help="the quick run: lengths 350,500,700, speeds 3000:7000:1000, no speed points")
     a = ap.parse_args(argv)
-    lengths = [float(x) for x in a.lengths.split(",")]
+    lengths = [float(x) for x in ("350,500,700" if a.quick else a.lengths).split(",")]
     speeds = _speeds("3000:7000:1000" if a.quick else a.speeds)
     t0 = time.perf_counter()
     res = sweep(lengths, speeds)
@@ -105,11 +119,19 @@ def main(argv=None) -> int:
         print(f"VE %  {label:<14s}" + " ".join(f"{100 * v:8.1f}" for v in ve))
         print(f"T Nm  {label:<14s}" + " ".join(f"{v:8.1f}" for v in tq))
         print(f"cyc   {label:<14s}" + " ".join(f"{v:8.0f}" for v in cyc))
-    peaks = [peak_speed(speeds, res[f"L={L:g} mm"][0]) for L in lengths]
-    for L, n in zip(lengths, peaks):
-        print(f"tuned speed at L = {L:g} mm: {n:.0f} rpm")
-    b = fitted_exponent(lengths, peaks)
-    print(f"fitted exponent of N_peak ~ L^b: b = {b:.2f} (organ-pipe estimate -1, Helmholtz -0.5)")
+    peaks = []
+    for L in lengths:
+        ve = res[f"L={L:g} mm"][0]
+        n, inside = peak_speed(speeds, ve)
+        peaks.append(n)
+        print(f"tuned speed at L = {L:g} mm: {n:.0f} rpm (VE {100 * ve.max():.1f} %"
+              + ("" if inside else ", at the sweep's end: not resolved")
+              + f"), f_H / (N/60) = {helmholtz_ratio(L, n):.2f}")
+    b, se = fit_exponent(lengths, peaks)
+    ok = abs(b - HELMHOLTZ_EXPONENT) <= EXPONENT_TOLERANCE
+    print(f"fitted exponent of N_t ~ L^b: b = {b:.3f} +- {se:.3f} (standard error); stated estimate"
+          f" Helmholtz {HELMHOLTZ_EXPONENT:g} +- {EXPONENT_TOLERANCE:g}: {'within' if ok else 'OUTSIDE'}"
+          " (organ-pipe -1)")
     if not a.quick:
         for n in (1500.0, 6000.0):
             r = speed_point(n)

@@ -8,7 +8,8 @@ Prints, each beside its target:
 1. one operating point to periodic steady state in-process at 1500 and 6000 rpm (median of
    ``--repeat`` runs after one untimed run that loads the compiled loop): wall seconds and the
    process's CPU seconds (one thread: the wall time on an idle core), cycles to
-   converge (start-up cycles included), pipe cell updates per second, and the loop it ran on;
+   converge (start-up cycles included), pipe cell updates per wall and per CPU second, the
+   runners' sub-steps, and the loop it ran on;
 2. a 41-point speed sweep 1500-6000 rpm on ``--workers`` worker processes (wall time of
    :func:`cyclesim.parallel.run_cases`, the workers' start included, and the workers' CPU time);
 3. volumetric efficiency and brake torque at 30 and at 60 cells per runner (1500, 3000, 4500,
@@ -44,6 +45,7 @@ def one_point(speed_rpm: float, repeat: int) -> dict:
     out["seconds"] = statistics.median(r["seconds"] for r in runs)
     out["cpu_seconds"] = statistics.median(r["cpu_seconds"] for r in runs)
     out["cell_updates_per_s"] = statistics.median(r["cell_updates_per_s"] for r in runs)
+    out["cell_updates_per_cpu_s"] = statistics.median(r["cell_updates_per_cpu_s"] for r in runs)
     return out
 
 
@@ -93,8 +95,9 @@ def main(argv=None) -> int:
         ok &= r["seconds"] <= target
         print(f"one point {n:.0f} rpm: {r['seconds']:.3f} s in-process (target {target:g} s; CPU time of the"
               f" process {r['cpu_seconds']:.3f} s), {r['cycles']} cycles"
-              f" (converged {r['converged']}), {r['cell_updates_per_s'] / 1e6:.2f} M cell updates/s,"
-              f" loop {r['loop']}")
+              f" (converged {r['converged']}), {r['cell_updates_per_s'] / 1e6:.2f} M cell updates per wall s"
+              f" ({r['cell_updates_per_cpu_s'] / 1e6:.2f} M per CPU s; sub-steps intake, exhaust"
+              f" {r['substeps'][0]:.0f}, {r['substeps'][1]:.0f}), loop {r['loop']}")
     if not a.no_sweep:
         dt, cpu, res = sweep(a.workers)
         errors = sum(r.error is not None for r in res)

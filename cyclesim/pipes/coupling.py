@@ -89,14 +89,30 @@ def _check(dur, cda, p, T, Y):
     return 0
 
 
-def _valve_step(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y):
-    """Set the valve end ``end`` of one runner (B cases) and advance it; numpy form."""
+def _valve_step(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y, lag):
+    """Set the valve end ``end`` of one runner (B cases) and advance it; numpy form of
+    :func:`runner_step_case` (the same sequence of sub-steps)."""
+    shut = cda == 0.0
+    acc = np.zeros((Q.shape[0], 2, s.NF))
+    steps = np.zeros(Q.shape[0], dtype=np.int64)
+    fallbacks = np.zeros(Q.shape[0], dtype=np.int64)
+    catch = ~shut & (lag > 0.0)
+    if catch.any():                                     # the time it lags, with the valve still shut
+        E[:, end, s.E_CDA] = 0.0
+        a, st, fb = s.advance_arrays(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter,
+                                     np.where(catch, lag, 0.0), max_steps)
+        acc += a
+        steps += st
+        fallbacks += fb
+        lag[catch] = 0.0
     E[:, end, s.E_CDA] = cda
     E[:, end, s.E_P] = p
     E[:, end, s.E_T] = T
     E[:, end, s.E_Y] = Y
     E[:, end, s.E_K] = 0.0                              # the valve's discharge coefficient is in its area
-    return s.advance_arrays(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps)
+    a, st, fb = s.advance_arrays(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, np.where(shut, lag + dur, dur),
+                                 max_steps, whole=shut, left=lag)
+    return acc + a, steps + st, fallbacks + fb
 
 
 def step_rates(mass_kg, enthalpy_J, burned_kg, duration_s, y_cyl, h_cyl):
@@ -120,28 +136,52 @@ if s.COMPILED:
 
     @njit(cache=True)
     def valve_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y,
-                        acc, steps, fallbacks):
-        """Case ``b`` of :func:`_valve_step`, compiled: set its valve end from the cylinder (``cda``
+                        acc, steps, fallbacks, whole, left):
+        """Case ``b`` of the valve step, compiled: set its valve end from the cylinder (``cda``
         [m^2], ``p`` [Pa], ``T`` [K], ``Y`` [-]) and advance it by ``dur`` [s]
-        (:func:`cyclesim.pipes.scheme.advance_case`; its return code)."""
+        (:func:`cyclesim.pipes.scheme.advance_case`, with its ``whole`` and ``left``; its return code)."""
         E[b, end, s.E_CDA] = cda
         E[b, end, s.E_P] = p
         E[b, end, s.E_T] = T
         E[b, end, s.E_Y] = Y
         E[b, end, s.E_K] = 0.0                          # the valve's discharge coefficient is in its area
         return s.advance_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, acc, steps,
-                              fallbacks)
+                              fallbacks, whole, left)
 
     @njit(cache=True)
-    def _valve_step_compiled(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y):
+    def runner_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y,
+                         acc, steps, fallbacks, lag):
+        """One crank step of ``dur`` [s] of case ``b``'s runner at the cylinder's valve (its return code).
+
+        With the valve shut (``cda`` 0) nothing passes the valve end, so the runner steps on its
+        own time: whole CFL sub-steps over the time it lagged plus ``dur``, the time left over
+        kept in ``lag[b]`` [s] (less than one sub-step).  At the first step with the valve open
+        the runner first catches up over ``lag[b]`` with the valve still shut, then takes the
+        step as before (sub-steps ending on the step's end), so what passes the valve each step
+        is the cylinder's for that step."""
+        if cda == 0.0:
+            return valve_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, lag[b] + dur, max_steps,
+                                   end, 0.0, p, T, Y, acc, steps, fallbacks, True, lag)
+        if lag[b] > 0.0:
+            why = valve_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, lag[b], max_steps, end, 0.0,
+                                  p, T, Y, acc, steps, fallbacks, False, lag)
+            lag[b] = 0.0
+            if why >= 0:
+                return why
+        return valve_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T,
+                               Y, acc, steps, fallbacks, False, lag)
+
+    @njit(cache=True)
+    def _valve_step_compiled(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y,
+                             lag):
         """:func:`_valve_step` in one compiled call (no Python between the valve and the sub-steps)."""
         B = Q.shape[0]
         acc = np.zeros((B, 2, s.NF))
         steps = np.zeros(B, dtype=np.int64)
         fallbacks = np.zeros(B, dtype=np.int64)
         for b in range(B):
-            why = valve_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur[b], max_steps, end,
-                                  cda[b], p[b], T[b], Y[b], acc, steps, fallbacks)
+            why = runner_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur[b], max_steps, end,
+                                   cda[b], p[b], T[b], Y[b], acc, steps, fallbacks, lag)
             if why >= 0:
                 return acc, steps, fallbacks, b, why
         return acc, steps, fallbacks, -1, 0
@@ -194,7 +234,7 @@ def advance_crank_step(system: PipeSystem, duration_s, valve_cda_m2, cylinder_pr
     for j, (pipe, end) in enumerate(zip(system.runners, system.valve_ends)):
         args = (pipe.Q, pipe.G, pipe.face_area, pipe.P, pipe.ends, pipe.C, pipe.T_cell, pipe.p_end,
                 pipe.gas.t_mid_K, pipe.gas.newton_steps, end_iterations, dur, 1_000_000, end,
-                np.ascontiguousarray(cda[:, j]), p, T, Y)
+                np.ascontiguousarray(cda[:, j]), p, T, Y, pipe.lag)
         if s.COMPILED:
             a, st, fallbacks, failed, why = _valve_step_compiled(*args)
             if failed >= 0:

@@ -70,6 +70,23 @@ def energy(T, Y, cf, cb, t_mid):
 
 
 @jit
+def temperature_cv(e, Y, cf, cb, t_mid, n_newton, T_start):
+    """Temperature [K] whose mixture internal energy is ``e`` [J/kg], and cv [J/(kg K)] at the
+    start of the last Newton step (:func:`temperature`; compiled, within ``NEWTON_TOL_K`` of the
+    temperature returned: cv changes by some 1e-10 of itself over that step)."""
+    T = T_start + 0.0 * e
+    cv = 0.0 * e
+    for _ in range(n_newton):
+        u, cv = energy(T, Y, cf, cb, t_mid)
+        dT = (u - e) / cv
+        T = np.minimum(np.maximum(T - dT, T_MIN_K), T_MAX_K)
+        if SCALAR:
+            if abs(dT) < NEWTON_TOL_K:
+                break
+    return T, cv
+
+
+@jit
 def temperature(e, Y, cf, cb, t_mid, n_newton, T_start):
     """Temperature [K] whose mixture internal energy is ``e`` [J/kg]: Newton steps from ``T_start`` [K].
 
@@ -79,15 +96,7 @@ def temperature(e, Y, cf, cb, t_mid, n_newton, T_start):
     (u linear in T).  The scheme starts each cell from its temperature of the
     sub-step before.
     """
-    T = T_start + 0.0 * e
-    for _ in range(n_newton):
-        u, cv = energy(T, Y, cf, cb, t_mid)
-        dT = (u - e) / cv
-        T = np.minimum(np.maximum(T - dT, T_MIN_K), T_MAX_K)
-        if SCALAR:
-            if abs(dT) < NEWTON_TOL_K:
-                break
-    return T
+    return temperature_cv(e, Y, cf, cb, t_mid, n_newton, T_start)[0]
 
 
 @jit
@@ -103,9 +112,8 @@ def primitives(m, mom, E, mb, V, cf, cb, Rf, Rb, t_mid, n_newton, T_start):
     u = mom / m
     Y = np.minimum(np.maximum(mb / m, 0.0), 1.0)
     e = E / m - 0.5 * u * u
-    T = temperature(e, Y, cf, cb, t_mid, n_newton, T_start)
+    T, cv = temperature_cv(e, Y, cf, cb, t_mid, n_newton, T_start)
     R = (1.0 - Y) * Rf + Y * Rb
-    _, cv = energy(T, Y, cf, cb, t_mid)
     g = (cv + R) / cv
     p = rho * R * T
     return rho, u, p, Y, T, g, np.sqrt(g * p / rho)
@@ -481,6 +489,15 @@ def cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, diameter, rough_term, fric
     R = mixture_R(Y, Rf, Rb)
     T = p / (rho * R)
     _, cv = energy(T, Y, cf, cb, t_mid)
+    return sources_at(rho, u, T, cv, R, diameter, rough_term, friction_scale, fixed_fanning, loss_per_length,
+                      wall_T, colburn, heat_scale)
+
+
+@jit
+def sources_at(rho, u, T, cv, R, diameter, rough_term, friction_scale, fixed_fanning, loss_per_length, wall_T,
+               colburn, heat_scale):
+    """:func:`cell_sources` of a state whose temperature ``T`` [K], cv [J/(kg K)] and gas constant
+    ``R`` [J/(kg K)] are known (a cell's own, from :func:`primitives`)."""
     s_mom, s_E = wall_sources(rho, u, T, cv + R, diameter, rough_term, friction_scale,
                              fixed_fanning, loss_per_length, wall_T, colburn, heat_scale)
     # friction turns kinetic into internal energy: dp/dt = (gamma-1) (q - u f)

@@ -6,13 +6,15 @@ start.  It does for that case what the numpy loop does between its steps
 (:class:`cyclesim.solve.valve_source.RunnerCoupling` through :func:`cyclesim.pipes.advance_crank_step`):
 the runners' pressures at the grid point are recorded, each runner's valve end is set from the
 cylinder and the valves' effective area and the runner is advanced by the same compiled code
-(:func:`cyclesim.pipes.coupling.valve_step_case`, :func:`cyclesim.pipes.scheme.advance_case`),
+(:func:`cyclesim.pipes.coupling.runner_step_case`, :func:`cyclesim.pipes.scheme.advance_case`:
+with its valve shut a runner steps on its own time, in whole sub-steps),
 its valve totals are booked over the cycle and handed to the cylinder as constant rates over the
 step (:func:`cyclesim.pipes.coupling.step_rates`, the function the numpy loop calls).
 
 The runners' arrays come packed by :func:`pack` (one tuple per runner, the same types for
-both; its last two, the far end's reservoir pressure per crank step (B, N) [Pa] and a flag, set
-it before the step where the far end follows a shared volume, the multi-cylinder engine's);
+both; near its end the far end's reservoir pressure per crank step (B, N) [Pa] and a flag, set
+it before the step where the far end follows a shared volume, the multi-cylinder engine's; last
+the runner's lag behind the cylinder (B,) [s], :attr:`cyclesim.pipes.Pipes.lag`);
 ``src`` (8,) is the step's source the loop's right-hand side reads: per side
 (intake at 0, exhaust at 4) a flag, the mass flow [kg/s], burned fraction [-] and enthalpy
 [J/kg] of what comes in.
@@ -29,7 +31,7 @@ from numba import njit
 import cyclesim.kernel_ops as _kernel_ops
 import cyclesim.pipes.scheme as s
 from . import coupling as _coupling
-from .coupling import valve_step_case
+from .coupling import runner_step_case
 from .pipe import DEFAULT_END_ITERATIONS
 
 _kernel_ops.register_compiled()
@@ -41,16 +43,24 @@ MAX_SUBSTEPS = 1_000_000
 """Sub-steps of one runner's advance before it gives up (as :func:`cyclesim.pipes.advance_crank_step`)."""
 
 
-def source_digest() -> str:
-    """A hash of the sources the compiled crank step runs (this module, the pipes' drivers and
-    kernels, the valve flow they call): part of the generated loop's name, so an edited pipe
-    kernel never runs on a stale compiled loop."""
-    from ..cylinder import flow
+UNREACHED_SOURCES = ("_jit.py",)
+"""Files of this folder the compiled crank step depends on that the walk of its calls
+(:func:`cyclesim.loops.jit_cache.dependency_files`) cannot find: ``_jit.py`` holds the kernels'
+decorator options (fast-math flags, the scalar ``where``), which are no function's code."""
 
-    h = hashlib.sha256()
-    for mod in (__file__, s.__file__, _coupling.__file__, s.k.__file__, _kernel_ops.__file__, flow.__file__,
-                str(Path(s.__file__).with_name("_jit.py"))):
-        h.update(Path(mod).read_bytes())
+
+def source_digest() -> str:
+    """A hash of the sources the compiled crank step runs: every file of this package's functions
+    that :func:`crank_step` reaches, transitively, and the values of the plain globals read on
+    the way (:func:`cyclesim.loops.jit_cache.dependency_digest`), with the files of
+    :data:`UNREACHED_SOURCES`.  Part of the generated loop's name, so an edited pipe kernel
+    never runs on a stale compiled loop."""
+    from ..loops import jit_cache
+
+    h = hashlib.sha256(jit_cache.dependency_digest(crank_step).encode())
+    for name in UNREACHED_SOURCES:
+        path = str(Path(__file__).with_name(name))
+        h.update(f"{name}:{jit_cache._file_hash(path)}\n".encode())
     return h.hexdigest()[:16]
 
 
@@ -72,7 +82,8 @@ def pack(runners, slots, cda, records, flows) -> tuple:
         rows.append((pipe.Q, pipe.G, pipe.face_area, pipe.P, pipe.ends, pipe.C, pipe.T_cell, pipe.p_end,
                      pipe.steps_taken, pipe.fallback_steps, float(pipe.gas.t_mid_K), int(pipe.gas.newton_steps),
                      int(DEFAULT_END_ITERATIONS), int(end), int(mid), np.zeros((B, 2, s.NF)),
-                     np.zeros(B, dtype=np.int64), np.zeros(B, dtype=np.int64), far, int(runners.far_pressure is not None)))
+                     np.zeros(B, dtype=np.int64), np.zeros(B, dtype=np.int64), far, int(runners.far_pressure is not None),
+                     pipe.lag))
     return (np.ascontiguousarray(slots, dtype=np.int64), np.ascontiguousarray(cda, dtype=float), tuple(rows),
             records, flows)
 
@@ -87,7 +98,7 @@ def crank_step(b, i, dur, p, T, Y, h_cyl, pipes, src):
     PV, QM, TM, MP, EP = records
     for j in range(slots.shape[0]):
         (Q, G, Af, P, E, C, Tc, Pe, taken, fell, t_mid, n_newton, n_iter, end, mid, acc, st, fb, far,
-         far_on) = runners[j]
+         far_on, lag) = runners[j]
         if far_on:                                 # the far end's reservoir follows a shared volume
             E[b, 1 - end, s.E_P] = far[b, i]
         # the runner at grid point i (RunnerCoupling.record)
@@ -107,8 +118,8 @@ def crank_step(b, i, dur, p, T, Y, h_cyl, pipes, src):
                 acc[b, e, f] = 0.0
         st[b] = 0
         fb[b] = 0
-        why = valve_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, MAX_SUBSTEPS, end,
-                              cda[b, j, i], p, T, Y, acc, st, fb)
+        why = runner_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, MAX_SUBSTEPS, end,
+                               cda[b, j, i], p, T, Y, acc, st, fb, lag)
         if why >= 0:
             return False
         taken[b] += st[b]

@@ -109,6 +109,9 @@ class Pipes:
         self.T_cell = np.full((B, N), 300.0)          # each cell's last temperature [K]: its Newton start
         self.p_end = np.zeros((B, 2))                 # each end's last pressure [Pa]: its solve's start
         self.ends = closed_ends(B)
+        self.lag = np.zeros(B)
+        """Time [s] by which the state lags behind a coupled cylinder's: crank steps with the valve
+        shut are taken in whole sub-steps (:func:`cyclesim.pipes.coupling.runner_step_case`)."""
         self.steps_taken = np.zeros(B, dtype=np.int64)
         self.fallback_steps = np.zeros(B, dtype=np.int64)
 

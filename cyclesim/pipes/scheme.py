@@ -59,14 +59,16 @@ MAX_CUTS = 30
 """Halvings of a case's sub-step before the advance gives up."""
 
 
-def _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration, max_steps):
-    """Advance every case by its ``duration`` [s] (arrays as in :func:`advance`); numpy over (case, cell)."""
+def _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration, max_steps, whole=None, left=None):
+    """Advance every case by its ``duration`` [s] (arrays as in :func:`advance_arrays`); numpy over (case, cell)."""
     B, _, N = Q.shape
     acc = np.zeros((B, 2, NF))
     steps = np.zeros(B, dtype=np.int64)
     fallbacks = np.zeros(B, dtype=np.int64)
     cut = np.zeros(B)
     t = np.zeros(B)
+    if whole is not None:
+        left[whole] = 0.0
     col = lambda a: a[:, None]  # noqa: E731 - per case, broadcast over cells
     cf = np.moveaxis(C[:, 0], 0, -1)[..., None]      # (2, 6, B, 1)
     cb = np.moveaxis(C[:, 1], 0, -1)[..., None]
@@ -100,6 +102,15 @@ def _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration,
         Tc[:] = T
         dt_cfl = P[:, P_CFL] * P[:, P_DX] / np.max(np.abs(u) + c, axis=1) * 0.5 ** cut
         rest = duration - t
+        if whole is not None:
+            stop = active & whole & (dt_cfl > rest)
+            if stop.any():                      # whole sub-steps only: the rest is left over
+                left[stop] = rest[stop]
+                duration = np.where(stop, t, duration)
+                active = active & ~stop
+                if not active.any():
+                    break
+                rest = duration - t
         last = dt_cfl >= rest
         dt = np.where(active, np.where(last, rest, dt_cfl), 0.0)
         slopes = []
@@ -110,7 +121,8 @@ def _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration,
             sl[:, 0] = k.limited_slope(d[:, 0], d[:, 1])              # end cells: the stencil shifted inwards
             sl[:, -1] = k.limited_slope(d[:, -1], d[:, -2])
             slopes.append(sl)
-        _, _, s_u, s_p = k.cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, D, rough, *wall)
+        R = k.mixture_R(Y, Rf, Rb)
+        _, _, s_u, s_p = k.sources_at(rho, u, T, R / (g - 1.0), R, D, rough, *wall)
         hdt = col(0.5 * dt)
         rl, ul, pl, yl, rr, ur, pr, yr = k.predict(rho, u, p, Y, g, *slopes, ax, s_u, s_p, hdt, dx)
         El, cl = k.total_energy(rl, ul, pl, yl, cf, cb, Rf, Rb, t_mid)
@@ -153,7 +165,7 @@ def _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration,
                 for q in range(4):
                     F1[q, :, face] = ef[q]
             F = np.where(flag[None], F1, F)
-            s_mom0, s_E0, _, _ = k.cell_sources(rho, u, p, Y, cf, cb, Rf, Rb, t_mid, D, rough, *wall)
+            s_mom0, s_E0, _, _ = k.sources_at(rho, u, T, R / (g - 1.0), R, D, rough, *wall)
             Qn = update(F, np.where(bad, p, ph), np.where(bad, s_mom0, s_mom), np.where(bad, s_E0, s_E), dtc)
             bad = ~k.positive(Qn[:, MASS], Qn[:, MOMENTUM], Qn[:, ENERGY], Qn[:, BURNED],
                               POSITIVITY_T_FRACTION * T, cf, cb, t_mid) & col(active)
@@ -249,24 +261,26 @@ if COMPILED:
         Qn[BURNED, i] = Q[b, BURNED, i] - dt * (F[3, i + 1] - F[3, i])
 
     @njit(cache=True, error_model="numpy", fastmath=FASTMATH)
-    def _advance_compiled(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration, max_steps):
+    def _advance_compiled(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration, max_steps, whole, left):
         B = Q.shape[0]
         acc = np.zeros((B, 2, NF))
         steps = np.zeros(B, dtype=np.int64)
         fallbacks = np.zeros(B, dtype=np.int64)
         for b in range(B):
             why = advance_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration[b], max_steps,
-                               acc, steps, fallbacks)
+                               acc, steps, fallbacks, whole[b], left)
             if why >= 0:
                 return acc, steps, fallbacks, b, why
         return acc, steps, fallbacks, -1, 0
 
     @njit(cache=True, error_model="numpy", fastmath=FASTMATH)
     def advance_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, T_end, max_steps, acc, steps,
-                     fallbacks):
+                     fallbacks, whole, left):
         """Advance case ``b`` of the arrays by ``T_end`` [s], adding its end fluxes to ``acc[b]`` (2, NF)
         and its sub-steps to ``steps[b]`` and ``fallbacks[b]``; -1 done, 0 too many sub-steps, 1 lost
-        positivity (the compiled form of :func:`advance_arrays` for one case, called by the cycle loop too)."""
+        positivity (the compiled form of :func:`advance_arrays` for one case, called by the cycle loop too).
+        With ``whole`` only whole CFL sub-steps are taken: the advance stops before a sub-step that
+        would pass ``T_end`` and writes the time left over [s] to ``left[b]``."""
         N = Q.shape[2]
         W = np.empty((7, N))            # rho, u, p, Y, T, gamma, c
         S = np.empty((4, N))            # limited slopes
@@ -289,6 +303,8 @@ if COMPILED:
                                    P[b, P_WALL_T], P[b, P_COLBURN], P[b, P_HEAT])
         t = 0.0
         cut = 0
+        if whole:
+            left[b] = 0.0
         while t < T_end:
             if steps[b] >= max_steps:
                 return 0
@@ -311,6 +327,10 @@ if COMPILED:
                 vmax = max(vmax, abs(u_) + c_)
             dt = P[b, P_CFL] * dx / vmax * 0.5 ** cut
             rest = T_end - t
+            if whole and dt > rest:
+                steps[b] -= 1                   # not taken
+                left[b] = rest
+                return -1
             last = dt >= rest
             if last:
                 dt = rest
@@ -323,8 +343,9 @@ if COMPILED:
             for i in range(N):
                 D = G[b, G_DIAMETER, i]
                 rg = G[b, G_ROUGH_TERM, i]
-                _, _, s_u, s_p = kc.cell_sources(W[0, i], W[1, i], W[2, i], W[3, i], cf, cb, Rf, Rb,
-                                                t_mid, D, rg, fr, ff, kl, tw, prn, hs)
+                Ri = kc.mixture_R(W[3, i], Rf, Rb)
+                _, _, s_u, s_p = kc.sources_at(W[0, i], W[1, i], W[4, i], Ri / (W[5, i] - 1.0), Ri, D, rg,
+                                               fr, ff, kl, tw, prn, hs)
                 rl, ul, pl, yl, rr, ur, pr, yr = kc.predict(
                     W[0, i], W[1, i], W[2, i], W[3, i], W[5, i], S[0, i], S[1, i], S[2, i], S[3, i],
                     G[b, G_AREA_SLOPE, i], s_u, s_p, hdt, dx)
@@ -392,9 +413,10 @@ if COMPILED:
                         F[3, f] = f3 * a
                 for i in range(N):
                     if bad[i]:
-                        s_mom, s_E, _, _ = kc.cell_sources(W[0, i], W[1, i], W[2, i], W[3, i], cf, cb, Rf, Rb,
-                                                          t_mid, G[b, G_DIAMETER, i], G[b, G_ROUGH_TERM, i],
-                                                          fr, ff, kl, tw, prn, hs)
+                        Ri = kc.mixture_R(W[3, i], Rf, Rb)
+                        s_mom, s_E, _, _ = kc.sources_at(W[0, i], W[1, i], W[4, i], Ri / (W[5, i] - 1.0), Ri,
+                                                         G[b, G_DIAMETER, i], G[b, G_ROUGH_TERM, i],
+                                                         fr, ff, kl, tw, prn, hs)
                         PH[i] = W[2, i]
                         SM[i] = s_mom
                         SE[i] = s_E
@@ -422,7 +444,8 @@ if COMPILED:
         return -1
 
 
-def advance_arrays(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration, max_steps=1_000_000):
+def advance_arrays(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration, max_steps=1_000_000, whole=None,
+                   left=None):
     """Advance the pipes of a batch in place by ``duration`` [s] per case; see :meth:`cyclesim.pipes.Pipes.advance`.
 
     ``Tc`` (B, N) holds each cell's last temperature [K], the start of its
@@ -431,14 +454,22 @@ def advance_arrays(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, duration,
     pipe through each end (B, 2, NF) [kg, J, kg], the sub-steps taken per case
     (B,) (those taken again after a halving included) and the sub-steps per
     case that needed the first-order fallback (B,).
+
+    ``whole`` (B,) bool, where given: those cases take whole CFL sub-steps only and stop before
+    one that would pass their ``duration``; the time left over [s] goes to ``left`` (B,) (0 where
+    a case's whole sub-steps ended on its duration), which the other cases leave as it is.
     """
     duration = np.ascontiguousarray(duration, dtype=float)
+    if whole is not None:
+        whole = np.ascontiguousarray(whole, dtype=bool)
     if COMPILED:
+        w = whole if whole is not None else np.zeros(duration.shape[0], dtype=np.bool_)
+        lft = left if left is not None else np.zeros(duration.shape[0])
         acc, steps, fallbacks, failed, why = _advance_compiled(Q, G, Af, P, E, C, Tc, Pe, float(t_mid), int(n_newton),
-                                                               int(n_iter), duration, int(max_steps))
+                                                               int(n_iter), duration, int(max_steps), w, lft)
         if failed >= 0:
             raise _lost_positivity() if why else _too_many_steps(int(max_steps))
         return acc, steps, fallbacks
     with np.errstate(all="ignore"):
         return _advance_numpy(Q, G, Af, P, E, C, Tc, Pe, float(t_mid), int(n_newton), int(n_iter), duration,
-                              int(max_steps))
+                              int(max_steps), whole, left)
