@@ -68,3 +68,23 @@ def test_small_outputs_and_non_contiguous_rows():
     big = hm.HermiteBasis(theta, np.linspace(0.0, 10.0, 5000))
     Y4 = np.random.default_rng(1).normal(size=(4, 11))
     assert np.array_equal(big.rows(Y4[::2], Y4[::2]), _numpy_rows(big, Y4[::2].copy(), Y4[::2].copy()))
+
+
+@settings(max_examples=30, deadline=None)
+@given(seed=st.integers(0, 10_000), rows=st.integers(1, 5), points=st.integers(10, 3000))
+def test_basis_derivative_equals_hermite_grid_to_the_bit(seed, rows, points):
+    # HermiteBasis.derivative (compiled above MIN_VALUES, numpy below) against hermite_grid's
+    # derivative on a non-uniform grid; and the derivative of a cubic is exact (Press et al. 2007,
+    # Numerical Recipes, 3rd ed., sec. 3.5: the cubic Hermite interpolant reproduces cubics)
+    rng = np.random.default_rng(seed)
+    theta = np.unique(np.concatenate([[-1.0, 1.0], rng.uniform(-1.0, 1.0, 25)]))
+    grid = np.linspace(-1.0, 1.0, points)
+    Y = rng.normal(size=(rows, theta.size))
+    F = rng.normal(size=(rows, theta.size))
+    b = hm.HermiteBasis(theta, grid)
+    assert np.array_equal(b.derivative(Y, F), hm.hermite_grid(theta, Y, F, grid, derivative=True))
+    c = rng.normal(size=4)
+    f = c[0] + theta * (c[1] + theta * (c[2] + theta * c[3]))
+    df = c[1] + theta * (2 * c[2] + theta * 3 * c[3])
+    exact = c[1] + grid * (2 * c[2] + grid * 3 * c[3])
+    np.testing.assert_allclose(b.derivative(f[None, :], df[None, :])[0], exact, rtol=0, atol=1e-8 * (1 + abs(c).sum()))

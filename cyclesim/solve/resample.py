@@ -65,14 +65,21 @@ def _c(a, dtype=float):
     return np.ascontiguousarray(a, dtype=dtype)
 
 
+def weighted_rows(i: np.ndarray, w: tuple, Yr: np.ndarray, Fr: np.ndarray):
+    """``w[0] Y[:, i] + w[1] F[:, i] + w[2] Y[:, i + 1] + w[3] F[:, i + 1]`` (B, n), summed in that
+    order, for rows ``Yr`` with slopes ``Fr`` (B, N+1), output points in intervals ``i`` (n,) with
+    weights ``w`` (four arrays (n,)); None where the compiled loop does not run."""
+    if Yr.ndim != 2 or Yr.shape[0] * i.shape[0] < MIN_VALUES or _kernels()[0] is None:
+        return None
+    out = np.empty((Yr.shape[0], i.shape[0]))
+    _kernels()[0](i, w[0], w[1], w[2], w[3], _c(Yr), _c(Fr), out)
+    return out
+
+
 def hermite_rows(basis, Yr: np.ndarray, Fr: np.ndarray):
     """The Hermite interpolant (B, n) of rows ``Yr`` with slopes ``Fr`` (B, N+1) on ``basis``'s grid
     (:class:`cyclesim.solve.hermite.HermiteBasis`), or None where the compiled loop does not run."""
-    if Yr.ndim != 2 or Yr.shape[0] * basis.n < MIN_VALUES or _kernels()[0] is None:
-        return None
-    out = np.empty((Yr.shape[0], basis.n))
-    _kernels()[0](basis.i, basis.h00, basis.h10h, basis.h01, basis.h11h, _c(Yr), _c(Fr), out)
-    return out
+    return weighted_rows(basis.i, (basis.h00, basis.h10h, basis.h01, basis.h11h), Yr, Fr)
 
 
 def linear_rows(basis, Fr: np.ndarray):
