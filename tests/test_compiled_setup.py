@@ -29,12 +29,19 @@ def test_grids_share_the_batch_constants_and_keep_their_own_case_block():
     kernel.Compiled.__init__ = init
     try:
         tr = integrate(b)
-        again = integrate(b)                    # the same batch once more: its memo is reused
+        first = dict(b.__dict__["_compiled_consts"])
+        again = integrate(b)                    # the same batch once more: packed afresh
+        # a change of the batch between integrations is seen (the engine driver sets the walls)
+        b.walls.head_temperature_K = np.asarray(b.walls.head_temperature_K, float) + 50.0
+        hotter = integrate(b)
     finally:
         kernel.Compiled.__init__ = plain
-    assert len(made) == 6                       # 2 start-up grids and the fine grid, twice
-    assert len(b.__dict__["_compiled_consts"]) == 1
-    assert all(c.TB is made[0].TB and c.reset is made[0].reset for c in made)
+    assert len(made) == 9                       # 2 start-up grids and the fine grid, three times
+    assert len(first) == 1
+    for k in (0, 3, 6):                         # one integration's grids share, the next packs again
+        assert all(c.TB is made[k].TB and c.reset is made[k].reset for c in made[k:k + 3])
+    assert made[3].TB is not made[0].TB
+    assert not np.array_equal(hotter.Y[5], tr.Y[5])           # the wall heat follows the walls
     assert len({id(c.CB) for c in made}) == len(made)      # the IVC rows are written per grid
     fresh = integrate(build_batch(cases, reg))
     for t in (tr, again):

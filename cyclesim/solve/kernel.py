@@ -412,8 +412,9 @@ class Compiled:
             if compiled_form(m["boundary"]) == "pressure_trace":
                 self.PI, self.PE = (_cw(a) for a in m["boundary"].pressures_at(half))
         # what depends on the batch alone (the models' packed parameters, the state layout, the gas
-        # tables) is packed once and shared by the batch's grids (start-up and fine); each grid
-        # has its own copy of the case block, whose IVC rows a cycle writes
+        # tables, the walls) is packed once per integration and shared by its grids (start-up and
+        # fine; periodic.solve empties the memo); each grid has its own copy of the case block,
+        # whose IVC rows a cycle writes
         key = (mod.__name__, self.full, tuple(rhs.names))
         memo = batch.__dict__.setdefault("_compiled_consts", {})
         got = memo.get(key)
