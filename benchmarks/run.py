@@ -90,6 +90,12 @@ def issue23_targets(res: dict) -> dict:
         out["grid_1000_2cores_s"]["threads"] = os.environ.get("CYCLESIM_THREADS", "2 (default)")
     if ratio is None:
         out["closed_cycle_vs_cantera_ratio"]["note"] = "not run (Cantera is not installed)"
+    else:
+        # the same ratio in process CPU time (each side's own work, whatever else the cores run)
+        out["closed_cycle_vs_cantera_ratio"]["cpu_ratio"] = res["closed_cycle_vs_cantera"].get("ratio_cpu")
+    out["one_point_ms"]["cpu_ms"] = res.get("one_point_cpu_ms")
+    if "grid_1000_cpu_s" in res:
+        out["grid_1000_2cores_s"]["cpu_s"] = {k: res[k] for k in ("grid_1000_cpu_s", "grid_1000_workers2_cpu_s")}
     return out
 
 

@@ -1,6 +1,7 @@
 """Where one simulate() spends its time outside the compiled cycle, phase by phase, as JSON.
 
-    python benchmarks/setup_phases.py                 # one point, closed 41, spark sweep 41
+    python benchmarks/setup_phases.py                 # one point, closed 41, spark sweep 41, and
+                                                      # the closed 41 of the Cantera comparison
     python benchmarks/setup_phases.py --repeat 30
 
 Each figure is the least process CPU time [ms] over ``--repeat`` calls of that phase alone on
@@ -128,6 +129,14 @@ def main(argv=None):
         "closed_41": [load_config("demo_closed", [f"burn.spark_advance_deg={a}"] + SAME_WORK) for a in range(41)],
         "spark_sweep_41": [load_config("demo", [f"burn.spark_advance_deg={a}"] + SAME_WORK) for a in range(41)],
     }
+    # the closed cycle the Cantera comparison times (benchmarks/run.py): 0.1 deg output, methane
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
+    from cantera_cycle import cases as cantera_cases
+
+    sets["closed_cantera_41"] = cantera_cases()
     res = {name: phases(cases, args.repeat) for name, cases in sets.items()}
     res["unit"] = "ms, least process CPU time over the repeats"
     print(json.dumps(res, indent=1))

@@ -178,6 +178,7 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
     modes = [str(m) for m in figs.pop("mode")]
     step = float(batch.simulation.output_step_deg) or None
     cols = output_trace(batch, tr, d, step)
+    made = {k: id(v) for k, v in cols.items()}     # the columns this output made (the models' may be kept by them)
     extra = {}
     for got in registry.pm.hook.cyclesim_extra_figures(summary=figs, trace=cols, cases=cases):
         if got:
@@ -196,6 +197,10 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
         else:
             a = np.asarray(v)
             per_key[k] = (False, a.tolist() if a.dtype == bool else a.astype(float).tolist())
+    # each trace column as one block of rows of its own (a column made here for this output is used as
+    # it is, any other copied once): every case's trace is its rows, not a copy per case and column
+    ids = [id(v) for v in cols.values()]
+    blocks = {k: _own_rows(v, made.get(k) == id(v) and ids.count(id(v)) == 1) for k, v in cols.items()}
     results = []
     for i, case in enumerate(cases):
         res = CaseResult(
@@ -216,7 +221,7 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
         res.summary = summ
         if modes[i] == MODE_MOTORED:
             res.notes = motored_notes(summ, res.inputs, case.submodels["friction"].model)
-        res.trace = {k: np.array(v[i]) for k, v in cols.items()}
+        res.trace = {k: v[i] for k, v in blocks.items()}
         if batch.simulation.mode == "full" and not tr.converged[i]:
             res.warnings.append(
                 f"not settled: net IMEP or trapped mass still changed by more than"
@@ -233,6 +238,15 @@ def results_from_trace(batch, tr, registry) -> list[CaseResult]:
             res.warnings.append("no net fresh charge enters through the intake valves at this point")
         results.append(res)
     return results
+
+
+def _own_rows(a, ours: bool) -> np.ndarray:
+    """``a`` (B, n) as a writable C-contiguous block that no other array shares: ``a`` itself where
+    it is ``ours`` (made for this output and held nowhere else) and owns its data so, else a copy
+    (a view of the solver's trace, a broadcast grid, a model's column)."""
+    if ours and isinstance(a, np.ndarray) and a.base is None and a.flags.c_contiguous and a.flags.writeable:
+        return a
+    return np.array(a)
 
 
 def _gas_exchange_warnings(s: dict) -> list[str]:

@@ -18,7 +18,7 @@ from .motoring import apply_motored, compression_work, motored_cases, polytropic
 from ..roles import FrictionInputs
 from ..solve.cycle_trace import CycleTrace
 from ..loops.layout import CORE
-from ..solve.hermite import HermiteBasis, hermite, hermite_grid, is_uniform
+from ..solve.hermite import HermiteBasis, hermite, is_uniform
 from ..solve.solver import raised_at
 
 
@@ -562,7 +562,7 @@ def output_trace(batch, tr: CycleTrace, d: dict, step: float | None) -> dict[str
         if grid is th:
             return F[row]
         if not uniform:
-            return hermite_grid(th, Y[row], F[row], grid, derivative=True)
+            return basis.derivative(Y[row], F[row])      # hermite_grid's derivative, one basis for all
         return basis.linear(F[row])
 
     cols["heat_release_rate_J_per_deg"] = rate(I["Q_burn"])

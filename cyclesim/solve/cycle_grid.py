@@ -226,7 +226,7 @@ def cycle_points(batch, mode: str, events, step_scale: float = 1.0) -> CyclePoin
         areas = _areas_on(batch, half, lattice)
         op_ = (np.asarray(areas["intake"]) > 0).any(axis=0) | (np.asarray(areas["exhaust"]) > 0).any(axis=0)
         op_ = op_ | np.roll(op_, 1) | np.roll(op_, -1)
-        open_at = [bool(v) for v in op_]
+        open_at = op_.tolist()          # Python bools
     else:
         closed = np.ones((2 * N + 1, B), dtype=bool)
         open_at = [False] * (2 * N + 1)

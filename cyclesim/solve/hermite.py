@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from .resample import hermite_rows, linear_rows, weighted_rows
+
 
 def interval_of(theta: np.ndarray, at) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Grid interval index, its width [deg] and the local coordinate 0..1 of angles ``at``.
@@ -82,7 +84,10 @@ class HermiteBasis:
         self.grid = np.asarray(grid, float)
         self.theta = np.asarray(theta, float)
         self.dx = self.grid - self.theta[i]
+        self.dth = self.theta[i + 1] - self.theta[i]
         self.at_end = self.grid >= self.theta[-1]
+        self._h, self._t = h, t
+        self._slope_basis = None
 
     def row(self, y: np.ndarray, f: np.ndarray, out: np.ndarray) -> np.ndarray:
         """Values on the output grid into ``out`` (n,) from values ``y`` and slopes ``f`` [per deg]
@@ -103,13 +108,34 @@ class HermiteBasis:
 
     def rows(self, Yr: np.ndarray, Fr: np.ndarray) -> np.ndarray:
         """Values on the output grid (B, n) of a row (B, N+1) and its slopes [per deg]."""
+        got = hermite_rows(self, Yr, Fr)         # the same arithmetic in one compiled pass
+        if got is not None:
+            return got
         i, i1 = self.i, self.i1
         return self.h00 * Yr[:, i] + self.h10h * Fr[:, i] + self.h01 * Yr[:, i1] + self.h11h * Fr[:, i1]
+
+    def derivative(self, Yr: np.ndarray, Fr: np.ndarray) -> np.ndarray:
+        """The derivative of the interpolant [unit/deg] on the output grid (B, n) of a row (B, N+1)
+        and its slopes, as :func:`hermite_grid` with ``derivative`` gives it (the same weights and
+        order of the sums)."""
+        if self._slope_basis is None:
+            h, t = self._h, self._t
+            self._slope_basis = ((6 * t**2 - 6 * t) / h, 3 * t**2 - 4 * t + 1, (-6 * t**2 + 6 * t) / h,
+                                 3 * t**2 - 2 * t)
+        w = self._slope_basis
+        got = weighted_rows(self.i, w, Yr, Fr)
+        if got is not None:
+            return got
+        i, i1 = self.i, self.i1
+        return w[0] * Yr[:, i] + w[1] * Fr[:, i] + w[2] * Yr[:, i1] + w[3] * Fr[:, i1]
 
     def linear(self, Fr: np.ndarray) -> np.ndarray:
         """Linear interpolation (B, n) of a row (B, N+1) known at the solver's points, in the form
         of ``numpy.interp`` (the slope of the interval times the distance from its start, plus
         its start value; the end value at and beyond the last point)."""
+        got = linear_rows(self, Fr)
+        if got is not None:
+            return got
         i, i1 = self.i, self.i1
         th = self.theta
         slope = (Fr[:, i1] - Fr[:, i]) / (th[i1] - th[i])

@@ -314,6 +314,67 @@ def _first_plenums(batch, rhs, theta: float) -> dict:
     return got[1]
 
 
+class _BatchConsts:
+    """The parts of a compiled cycle's inputs that depend on the batch alone, not on the grid: the
+    case block (:data:`cyclesim.loops._compiled` rows) without the plenum gas, the integer
+    constants, the IVC resets, the shared arrays of the models' ``pack()`` and the gas tables."""
+
+    def __init__(self, mod, batch, rhs, parts):
+        from ..loops.layout import shared_blocks
+        from ..loops.loopgen import param_rows_for, shared_slots
+
+        B = batch.B
+        m = batch.models
+        full = rhs.mode == "full"
+        P = np.zeros((mod.N_P, B))
+        IC = np.zeros(mod.N_IC, dtype=np.int64)
+        parts = loop_parts(batch, rhs) if parts is None else parts
+        for role in ("burn", "heat_transfer", "blowby", "knock"):
+            form = compiled_form(m[role])
+            rows = param_rows_for(role, parts, mod.PARAM_ROWS, form)
+            for name, v in _packed(m[role], tuple(rows), B, form).items():
+                P[rows[name]] = v
+        # the batch-wide arrays of pack(), end to end in the order the generated loop reads them
+        slots = shared_slots(parts)
+        packs = {role: dict(m[role].pack()) for role in dict.fromkeys(r for r, _ in slots)}
+        arrays = [packs[role][name] for role, name in slots]
+        zt = getattr(rhs, "zone_tab", None) if getattr(rhs, "zones", False) else None
+        if zt is not None:
+            arrays += [zt._flat_f, zt._flat_r]      # after the models' arrays (loopgen._zone_lines)
+        self.TB, self.TO = shared_blocks(arrays)
+        # IVC resets: row 0 the kind per state row, row 1 + b case b's value (an initial may be per case)
+        self.reset = np.zeros((1 + B, rhs.n))
+        for k, (role, model, sv) in enumerate(rhs.sub_specs + getattr(rhs, "zone_specs", [])):
+            row = rhs.names.index(f"{role}.{sv.name}")
+            if sv.reset_at_ivc:
+                if isinstance(sv.initial, str):
+                    self.reset[0, row] = 1.0          # the cylinder temperature ("T_ivc")
+                else:
+                    self.reset[0, row] = 2.0
+                    self.reset[1:, row] = _b(sv.initial, B)
+        gas_tab, gas_off, gc, nRm1, uc4 = batch.gas._compiled_consts()
+        self.gas = (gas_tab, gas_off, gc, uc4)
+        IC[mod.IC_NRM1] = nRm1
+        ivc = _b(batch.valves.ivc_deg, B)
+        CB = np.zeros((mod.N_ROWS, B))
+        CB[mod.R_OMEGA] = _b(rhs.omega, B)
+        CB[mod.R_SP] = _b(rhs.Sp, B)
+        CB[mod.R_TW:mod.R_TW + 3] = np.stack([_b(t, B) for t in rhs.Tw])
+        CB[mod.R_ETA] = _b(rhs.eta_c, B)
+        CB[mod.R_DH] = _b(rhs._dh298, B)
+        CB[mod.R_BUF] = _b(rhs._buf_scale, B)
+        CB[mod.R_P:mod.R_P + P.shape[0]] = P
+        CB[mod.R_IVC_DEG] = ivc
+        CB[mod.R_V_AT_IVC] = _b(batch.geometry.volume_at(ivc), B) if full else 0.0
+        if zt is not None:
+            # the two-zone block (cyclesim.loops._compiled.R_ZONE_*)
+            CB[mod.R_ZONE_RF], CB[mod.R_ZONE_RR] = zt.R_f, zt.R_r
+            CB[mod.R_ZONE_T0], CB[mod.R_ZONE_DT], CB[mod.R_ZONE_N] = zt.T0, zt.dT, zt.n
+            CB[mod.R_ZONE_FLAME] = _b(rhs._flame, B)
+        self.CB = CB
+        self.IC = IC
+
+
 class Compiled:
     """The packed inputs of one batch's compiled cycle (built once per integration)."""
 
@@ -350,58 +411,22 @@ class Compiled:
             self.PE = _cw(plen[6:7])
             if compiled_form(m["boundary"]) == "pressure_trace":
                 self.PI, self.PE = (_cw(a) for a in m["boundary"].pressures_at(half))
-        P = np.zeros((mod.N_P, B))
-        IC = np.zeros(mod.N_IC, dtype=np.int64)
-        from ..loops.layout import shared_blocks
-        from ..loops.loopgen import param_rows_for, shared_slots
-
-        parts = loop_parts(batch, rhs) if parts is None else parts
-        for role in ("burn", "heat_transfer", "blowby", "knock"):
-            form = compiled_form(m[role])
-            rows = param_rows_for(role, parts, mod.PARAM_ROWS, form)
-            for name, v in _packed(m[role], tuple(rows), B, form).items():
-                P[rows[name]] = v
-        # the batch-wide arrays of pack(), end to end in the order the generated loop reads them
-        slots = shared_slots(parts)
-        packs = {role: dict(m[role].pack()) for role in dict.fromkeys(r for r, _ in slots)}
-        arrays = [packs[role][name] for role, name in slots]
-        zt = getattr(rhs, "zone_tab", None) if getattr(rhs, "zones", False) else None
-        if zt is not None:
-            arrays += [zt._flat_f, zt._flat_r]      # after the models' arrays (loopgen._zone_lines)
-        self.TB, self.TO = shared_blocks(arrays)
-        # IVC resets: row 0 the kind per state row, row 1 + b case b's value (an initial may be per case)
-        self.reset = np.zeros((1 + B, rhs.n))
-        for k, (role, model, sv) in enumerate(rhs.sub_specs + getattr(rhs, "zone_specs", [])):
-            row = rhs.names.index(f"{role}.{sv.name}")
-            if sv.reset_at_ivc:
-                if isinstance(sv.initial, str):
-                    self.reset[0, row] = 1.0          # the cylinder temperature ("T_ivc")
-                else:
-                    self.reset[0, row] = 2.0
-                    self.reset[1:, row] = _b(sv.initial, B)
-        self.gas_tab, self.gas_off, self.gc, nRm1, self.uc4 = batch.gas._compiled_consts()
-        IC[mod.IC_NRM1] = nRm1
-        ivc = _b(batch.valves.ivc_deg, B)
+        # what depends on the batch alone (the models' packed parameters, the state layout, the gas
+        # tables, the walls) is packed once per integration and shared by its grids (start-up and
+        # fine; periodic.solve empties the memo); each grid has its own copy of the case block,
+        # whose IVC rows a cycle writes
+        key = (mod.__name__, self.full, tuple(rhs.names))
+        memo = batch.__dict__.setdefault("_compiled_consts", {})
+        got = memo.get(key)
+        if got is None:
+            got = memo[key] = _BatchConsts(mod, batch, rhs, parts)
+        CB = got.CB.copy()
+        CB[mod.R_PLEN:mod.R_PLEN + 11] = plen
+        self.CB = CB
+        self.IC, self.reset, self.TB, self.TO = got.IC, got.reset, got.TB, got.TO
+        self.gas_tab, self.gas_off, self.gc, self.uc4 = got.gas
         self.steps = _cw(np.diff(half[::2]))
         self.status = np.zeros(B, dtype=np.int64)
-        CB = np.zeros((mod.N_ROWS, B))
-        CB[mod.R_OMEGA] = _b(rhs.omega, B)
-        CB[mod.R_SP] = _b(rhs.Sp, B)
-        CB[mod.R_TW:mod.R_TW + 3] = np.stack([_b(t, B) for t in rhs.Tw])
-        CB[mod.R_ETA] = _b(rhs.eta_c, B)
-        CB[mod.R_DH] = _b(rhs._dh298, B)
-        CB[mod.R_BUF] = _b(rhs._buf_scale, B)
-        CB[mod.R_PLEN:mod.R_PLEN + 11] = plen
-        CB[mod.R_P:mod.R_P + P.shape[0]] = P
-        CB[mod.R_IVC_DEG] = ivc
-        CB[mod.R_V_AT_IVC] = _b(batch.geometry.volume_at(ivc), B) if self.full else 0.0
-        if zt is not None:
-            # the two-zone block (cyclesim.loops._compiled.R_ZONE_*)
-            CB[mod.R_ZONE_RF], CB[mod.R_ZONE_RR] = zt.R_f, zt.R_r
-            CB[mod.R_ZONE_T0], CB[mod.R_ZONE_DT], CB[mod.R_ZONE_N] = zt.T0, zt.dT, zt.n
-            CB[mod.R_ZONE_FLAME] = _b(rhs._flame, B)
-        self.CB = CB
-        self.IC = IC
         self.broken = False
         self.ready = mod.__name__ in _ready
         self.tableau = _tableau_arrays()

@@ -100,6 +100,9 @@ def solve(system: CylinderSystem, progress=None, initial=None, cycles=None, step
     """Integrate a batch: one closed cycle, or full cycles to periodic steady state
     (arguments as :func:`cyclesim.solve.solver.integrate`)."""
     b = system.batch
+    # the compiled cycle's batch-only inputs are shared by the grids of this integration only: between
+    # integrations a caller may change the batch (the engine driver sets lumped wall temperatures)
+    b.__dict__["_compiled_consts"] = {}
     if system.mode == "full" and initial is None and cycles is None and COARSE_CYCLES > 0 \
             and int(b.simulation.max_cycles) > COARSE_CYCLES + 1:
         start, history, reran = _startup(system, step_scale)
