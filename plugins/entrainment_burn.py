@@ -165,7 +165,8 @@ def table_lookup(flat, idx, off, h, s, h0, inv_dh, nh, ns):
 def brush_table_lookup(flat, idx, off, h, sg, s, h0, inv_dh, nh, nb, ns):
     """Value of a brush-averaged table at clearance height ``h`` [m], front displacement position
     ``sg`` (0 to ``nb`` - 1, floats) and fill ``s`` [-]: rows (case, height, displacement) of ``ns``
-    values, bilinear in height and displacement, linear in s (see :func:`table_lookup`)."""
+    values, bilinear in height and displacement, linear in s (see :func:`table_lookup`; indexed
+    directly, :func:`flat_interp`, not searched: a batch's tables take megabytes)."""
     hp = np.minimum(np.maximum((h - h0) * inv_dh, 0.0), nh - 1.000001)
     i = np.floor(hp)
     w = hp - i
@@ -174,10 +175,10 @@ def brush_table_lookup(flat, idx, off, h, sg, s, h0, inv_dh, nh, nb, ns):
     v = gp - j
     sp = np.minimum(np.maximum(s, 0.0), 1.0) * (ns - 1.0)
     r00 = off + (i * nb + j) * ns + sp
-    a00 = np.interp(r00, idx, flat)
-    a01 = np.interp(r00 + ns, idx, flat)
-    a10 = np.interp(r00 + nb * ns, idx, flat)
-    a11 = np.interp(r00 + (nb + 1.0) * ns, idx, flat)
+    a00 = flat_interp(flat, r00)
+    a01 = flat_interp(flat, r00 + ns)
+    a10 = flat_interp(flat, r00 + nb * ns)
+    a11 = flat_interp(flat, r00 + (nb + 1.0) * ns)
     return (1.0 - w) * ((1.0 - v) * a00 + v * a01) + w * ((1.0 - v) * a10 + v * a11)
 
 
