@@ -83,7 +83,7 @@ from cyclesim.combustion.turbulence import (INTEGRAL_SCALE_RATIO, brush_displace
                                             turbulence_intensity, viscosity_air)
 from cyclesim.kernel_ops import where, where_lazy
 from cyclesim.loops.layout import shared_array
-from cyclesim.loops.zone_solve import cell_index
+from cyclesim.loops.zone_solve import any_true, cell_index
 from cyclesim.params import Param, StateVar
 from cyclesim.roles import BurnRate, SetupContext
 
@@ -165,7 +165,8 @@ def table_lookup(flat, idx, off, h, s, h0, inv_dh, nh, ns):
 def brush_table_lookup(flat, idx, off, h, sg, s, h0, inv_dh, nh, nb, ns):
     """Value of a brush-averaged table at clearance height ``h`` [m], front displacement position
     ``sg`` (0 to ``nb`` - 1, floats) and fill ``s`` [-]: rows (case, height, displacement) of ``ns``
-    values, bilinear in height and displacement, linear in s (see :func:`table_lookup`)."""
+    values, bilinear in height and displacement, linear in s (see :func:`table_lookup`; indexed
+    directly, :func:`flat_interp`, not searched: a batch's tables take megabytes)."""
     hp = np.minimum(np.maximum((h - h0) * inv_dh, 0.0), nh - 1.000001)
     i = np.floor(hp)
     w = hp - i
@@ -174,10 +175,10 @@ def brush_table_lookup(flat, idx, off, h, sg, s, h0, inv_dh, nh, nb, ns):
     v = gp - j
     sp = np.minimum(np.maximum(s, 0.0), 1.0) * (ns - 1.0)
     r00 = off + (i * nb + j) * ns + sp
-    a00 = np.interp(r00, idx, flat)
-    a01 = np.interp(r00 + ns, idx, flat)
-    a10 = np.interp(r00 + nb * ns, idx, flat)
-    a11 = np.interp(r00 + (nb + 1.0) * ns, idx, flat)
+    a00 = flat_interp(flat, r00)
+    a01 = flat_interp(flat, r00 + ns)
+    a10 = flat_interp(flat, r00 + nb * ns)
+    a11 = flat_interp(flat, r00 + (nb + 1.0) * ns)
     return (1.0 - w) * ((1.0 - v) * a00 + v * a01) + w * ((1.0 - v) * a10 + v * a11)
 
 
@@ -245,14 +246,23 @@ def burnup_rate(on, x_e, x_b, s_l, s_k, lam, rho_u, a_f, m, omega_deg):
     return where(on, (front + eddies) / omega_deg, 0.0)
 
 
-def state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_k, m, V, dV, omega_deg, closed, bore_area, half_bore,
-                c_beta):
-    """(dx_e/dt [1/s], dK/dt, dk/dt [W/kg]): entrainment rho_u A_f (u'_eff + I_0 S_L) / m after the
-    spark while x_e < 1; the K-k model while the valves are shut, with the closed cylinder's -dV/V."""
-    dxe = where(on & (x_e < 1.0), rho_u * a_f * (u_eff + s_k) / m, 0.0)
+def entrainment_speed(on, x_e, rho_u, a_f, u_eff, s_k, m):
+    """dx_e/dt [1/s]: entrainment rho_u A_f (u'_eff + I_0 S_L) / m after the spark while x_e < 1."""
+    return where(on & (x_e < 1.0), rho_u * a_f * (u_eff + s_k) / m, 0.0)
+
+
+def turbulence_rates(K, k, V, dV, omega_deg, closed, bore_area, half_bore, c_beta):
+    """(dK/dt, dk/dt [W/kg]): the K-k model while the valves are shut, with the closed cylinder's -dV/V."""
     L = integral_length(V, bore_area, half_bore)
     dK, dk = kk_rates(K, k, L, -dV * omega_deg / V, c_beta)
-    return dxe, where(closed, dK, 0.0), where(closed, dk, 0.0)
+    return where(closed, dK, 0.0), where(closed, dk, 0.0)
+
+
+def state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_k, m, V, dV, omega_deg, closed, bore_area, half_bore,
+                c_beta):
+    """(dx_e/dt [1/s], dK/dt, dk/dt [W/kg]): :func:`entrainment_speed` and :func:`turbulence_rates`."""
+    dK, dk = turbulence_rates(K, k, V, dV, omega_deg, closed, bore_area, half_bore, c_beta)
+    return entrainment_speed(on, x_e, rho_u, a_f, u_eff, s_k, m), dK, dk
 
 
 def entrainment_rate(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1,
@@ -260,12 +270,16 @@ def entrainment_rate(theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, ph
                      bore_area, half_bore, v_rb, r0, brush_spark, tab_r, tab_a, tab_idx, tab_ia, off, off_a, h0,
                      inv_dh, nh, nb, ns):
     """Burn rate dx_b/dtheta [1/deg]: burn-up of the entrained eddies, (x_e - x_b) / tau_b, zero
-    before the spark and from 360 deg (the burn ``kernel``)."""
-    on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u = _flame_state(
-        theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
-        c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0,
-        brush_spark, tab_r, tab_a, tab_idx, tab_ia, off, off_a, h0, inv_dh, nh, nb, ns)
-    return burnup_rate(on, x_e, x_b, s_l, s_k, lam, rho_u, a_f, m, omega_deg)
+    before the spark and from 360 deg (the burn ``kernel``).  The flame state is computed only
+    where some case burns (a point's own condition in the compiled loop, the batch's on arrays:
+    :func:`cyclesim.loops.zone_solve.any_true`); the rate is zero elsewhere anyway."""
+    if any_true((theta >= spark) & (theta < CYCLE_END_DEG)):
+        on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u = _flame_state(
+            theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
+            c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0,
+            brush_spark, tab_r, tab_a, tab_idx, tab_ia, off, off_a, h0, inv_dh, nh, nb, ns)
+        return burnup_rate(on, x_e, x_b, s_l, s_k, lam, rho_u, a_f, m, omega_deg)
+    return 0.0 * m
 
 
 def entrainment_states(theta, p, V, dV, m, y_b, x_b, omega_deg, closed, x_e, K, k, spark, eff, phi, mk,
@@ -273,13 +287,16 @@ def entrainment_states(theta, p, V, dV, m, y_b, x_b, omega_deg, closed, x_e, K, 
                        T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0, brush_spark, tab_r, tab_a, tab_idx, tab_ia,
                        off, off_a, h0, inv_dh, nh, nb, ns, c_beta):
     """Time derivatives of (x_e [1/s], K [W/kg], k [W/kg]) (the ``state_kernel``), see
-    :func:`state_rates`."""
-    on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u = _flame_state(
-        theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
-        c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0,
-        brush_spark, tab_r, tab_a, tab_idx, tab_ia, off, off_a, h0, inv_dh, nh, nb, ns)
-    return state_rates(on, x_e, K, k, rho_u, a_f, u_eff, s_k, m, V, dV, omega_deg, closed, bore_area,
-                       half_bore, c_beta)
+    :func:`state_rates`.  The flame state is computed only where some case entrains (after the
+    spark, before 360 deg, x_e < 1; as in :func:`entrainment_rate`)."""
+    dK, dk = turbulence_rates(K, k, V, dV, omega_deg, closed, bore_area, half_bore, c_beta)
+    if any_true((theta >= spark) & (theta < CYCLE_END_DEG) & (x_e < 1.0)):
+        on, s_l, s_k, u_eff, rho_u, a_f, lam, T_u = _flame_state(
+            theta, p, V, m, y_b, x_b, omega_deg, x_e, k, spark, eff, phi, mk, c_mk0, c_mk1, c_mk2, c_g0, c_g1,
+            c_g2, c_g3, c_g4, cv0, cv1, cv2, R_u, R_b, dT_ad, T_ivc, p_ivc, T_u, bore_area, half_bore, v_rb, r0,
+            brush_spark, tab_r, tab_a, tab_idx, tab_ia, off, off_a, h0, inv_dh, nh, nb, ns)
+        return entrainment_speed(on, x_e, rho_u, a_f, u_eff, s_k, m), dK, dk
+    return 0.0 * m, dK, dk
 
 
 # ----------------------------------------------------------------------------

@@ -400,3 +400,82 @@ def test_charge_constants_are_remembered_only_for_the_same_charges():
     cv3, (dT3, _) = EB._charge_constants(g3, 2)
     assert dT3[0] == dT1[0] and dT3[1] != dT1[1]
     assert np.array_equal(dT3, EB.adiabatic_rise(g3, 2)[0])
+
+
+@settings(max_examples=40, deadline=None)
+@given(nh=st.integers(2, 6), nb=st.integers(2, 5), ns=st.integers(2, 9), seed=st.integers(0, 2 ** 31 - 1))
+def test_brush_table_lookup_equals_the_searched_interpolation(nh, nb, ns, seed):
+    # the brush table read by direct indexing gives the values of np.interp's search on the flat
+    # index, bit for bit, for arrays and floats, inside, at and beyond the table's edges
+    rng = np.random.default_rng(seed)
+    n_case = 2
+    flat = rng.normal(size=n_case * nh * nb * ns)
+    idx = np.arange(float(flat.size))
+    off = float(nh * nb * ns) * rng.integers(0, n_case, 50)
+    h0, inv_dh = 0.002, 1.0 / 0.003
+    h = rng.uniform(h0 - 0.002, h0 + 0.003 * nh, 50)
+    sg = rng.uniform(-1.0, nb + 1.0, 50)
+    s = rng.uniform(-0.2, 1.2, 50)
+
+    def searched(h, sg, s, off):
+        hp = np.minimum(np.maximum((h - h0) * inv_dh, 0.0), nh - 1.000001)
+        i = np.floor(hp)
+        w = hp - i
+        gp = np.minimum(np.maximum(sg, 0.0), nb - 1.000001)
+        j = np.floor(gp)
+        v = gp - j
+        r00 = off + (i * nb + j) * ns + np.minimum(np.maximum(s, 0.0), 1.0) * (ns - 1.0)
+        a = [np.interp(r00 + d, idx, flat) for d in (0.0, ns, nb * ns, (nb + 1.0) * ns)]
+        return (1.0 - w) * ((1.0 - v) * a[0] + v * a[1]) + w * ((1.0 - v) * a[2] + v * a[3])
+
+    got = EB.brush_table_lookup(flat, idx, off, h, sg, s, h0, inv_dh, float(nh), float(nb), float(ns))
+    assert np.array_equal(got, searched(h, sg, s, off))
+    for k in range(5):
+        one = EB.brush_table_lookup(flat, idx, off[k], float(h[k]), float(sg[k]), float(s[k]), h0, inv_dh,
+                                    float(nh), float(nb), float(ns))
+        assert float(one) == float(searched(h[k], sg[k], s[k], off[k]))
+
+
+def test_kernels_compute_the_flame_state_only_where_used_with_the_same_values():
+    # the burn and state kernels skip the flame state before the spark (and the state kernel once
+    # the charge is entrained); where they compute it, their values are the eager combination's
+    # bit for bit, on arrays (three sparks in one batch) and on floats (each case alone)
+    import inspect
+
+    from cyclesim.api import _registry_for
+    from cyclesim.solve.batch import build_batch
+
+    cases = [load_config("demo", FAST + [f"burn.spark_advance_deg={a}"]) for a in (10, 25, 40)]
+    burn = build_batch(cases, _registry_for(cases)).models["burn"]
+    P = burn.pack()
+    B = 3
+    for theta in (-90.0, -30.0, -20.0, -5.0, 10.0, 40.0, 359.0, 361.0):
+        st_ = {"theta": theta, "p": np.array([20e5, 25e5, 30e5]), "V": np.full(B, 1.0e-4),
+               "dV": np.full(B, -2e-7), "m": np.full(B, 5.0e-4), "y_b": np.array([0.08, 0.3, 0.6]),
+               "x_b": np.array([0.0, 0.25, 0.55]), "omega_deg": np.full(B, 18000.0),
+               "closed": np.array([True, True, True]), "x_e": np.array([0.0, 0.4, 1.0]),
+               "K": np.full(B, 30.0), "k": np.full(B, 12.0), "T_u": np.full(B, -1.0),
+               "T_ivc": np.full(B, 330.0), "p_ivc": np.full(B, 1.0e5)}
+
+        def named(b):
+            """Every kernel argument by name: all cases (b None) or case b's floats."""
+            out = {**P, **st_}
+            if b is not None:
+                out = {k: (v[b].item() if np.ndim(v) == 1 and np.size(v) == B else v) for k, v in out.items()}
+            return out
+
+        def call(fn, a):
+            return fn(*[a[n] for n in inspect.signature(fn).parameters])
+
+        with np.errstate(all="ignore"):
+            for b in (None, 0, 1, 2):
+                a = named(b)
+                on, s_l, s_k, u_eff, rho_u, a_f, lam, _ = call(EB._flame_state, a)
+                eager = EB.burnup_rate(on, a["x_e"], a["x_b"], s_l, s_k, lam, rho_u, a_f, a["m"], a["omega_deg"])
+                lazy = call(EB.entrainment_rate, a)
+                assert np.array_equal(np.broadcast_to(lazy, np.shape(eager)), eager)
+                eager_s = EB.state_rates(on, a["x_e"], a["K"], a["k"], rho_u, a_f, u_eff, s_k, a["m"], a["V"],
+                                         a["dV"], a["omega_deg"], a["closed"], a["bore_area"], a["half_bore"],
+                                         a["c_beta"])
+                for x, y in zip(call(EB.entrainment_states, a), eager_s):
+                    assert np.array_equal(np.broadcast_to(x, np.shape(y)), y)

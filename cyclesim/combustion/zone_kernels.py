@@ -14,7 +14,7 @@ import math
 
 import numpy as np
 
-from ..loops.zone_solve import burned_gas, solve_T_p
+from ..loops.zone_solve import burned_gas, solve_T_p, solve_T_p_from
 
 if "jit" not in globals():          # the plain form; the compiled loader sets both first
     def jit(fn):
@@ -190,6 +190,9 @@ def elements(gt, off, gc, nRm1, uc4, p, m, x, h_u, U_b, T_wall, T_out, x_out, Q)
         kT = np.zeros(N)          # isentropic dT/d ln p [K]: the predictor of the next solve
         u = np.zeros(N)
         hh = np.zeros(N)
+        ev = np.zeros((N, 6))     # the burned gas at each element's state (its solve's last look-up)
+        ok = np.zeros(N, dtype=np.bool_)
+        g = (gt, off[b], gc, nRm1, uc4, b)
         Q[b, 0] = 0.0
         for k in range(N):
             T_out[b, k, 0] = nan
@@ -216,8 +219,9 @@ def elements(gt, off, gc, nRm1, uc4, p, m, x, h_u, U_b, T_wall, T_out, x_out, Q)
                     live += 1
                     T0 = Tk[k] + kT[k] * dlnp if had else 2400.0
                     L0 = lr[k] - kv[k] * dlnp if had else math.log(p1 / (290.0 * 2400.0))
-                    Tk[k], lr[k], u[k], _, kv[k], kT[k] = solve_tp(gt, off, gc, nRm1, uc4, b, h[k], p1, T0,
-                                                                   L0, True)
+                    Tk[k], lr[k], u[k], _, kv[k], kT[k], ok[k], e = solve_T_p_from(
+                        g, h[k], p1, T0, L0, True, burned_gas(g, T0, math.exp(L0)))
+                    ev[k, 0], ev[k, 1], ev[k, 2], ev[k, 3], ev[k, 4], ev[k, 5] = e
                     hh[k] = h[k]
             if live > 0 and math.isfinite(U_b[b, j]):
                 mm = m[b, j]
@@ -231,8 +235,11 @@ def elements(gt, off, gc, nRm1, uc4, p, m, x, h_u, U_b, T_wall, T_out, x_out, Q)
                 for k in range(N):
                     if xk[k] > 0.0:
                         du = scale * max(Tk[k] - Tw, 1.0)
-                        Tk[k], lr[k], _, h2, kv[k], kT[k] = solve_tp(gt, off, gc, nRm1, uc4, b, u[k] + du, p1,
-                                                                     Tk[k], lr[k], False)
+                        # from the state of the isentropic step, whose last look-up is there
+                        first = ((ev[k, 0], ev[k, 1], ev[k, 2], ev[k, 3], ev[k, 4], ev[k, 5]) if ok[k]
+                                 else burned_gas(g, Tk[k], math.exp(lr[k])))
+                        Tk[k], lr[k], _, h2, kv[k], kT[k], _, _ = solve_T_p_from(g, u[k] + du, p1, Tk[k], lr[k],
+                                                                                 False, first)
                         Q[b, j] -= xk[k] * (h2 - hh[k]) * mm
                         h[k] = h2
             for k in range(N):

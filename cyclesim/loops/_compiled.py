@@ -124,7 +124,7 @@ def _register_zone_helpers() -> None:
                 return lambda c: c
             return None
 
-    for fn in (zs.solve_T_p, zs.zone_phi, zs.unburned_T, zs.solve, zs.unburned_fraction_burned,
+    for fn in (zs.solve_T_p_from, zs.solve_T_p, zs.zone_phi, zs.unburned_T, zs.solve, zs.unburned_fraction_burned,
                zs.cylinder_zones, zs.burned_volume, zs.unburned_R, zs.unburned_heat_share, zs.zone_rates):
         register_jitable(fn)
     zs._compiled_registered = True

@@ -129,10 +129,25 @@ def solve_T_p(gas, target, p, T0, lr0, enthalpy):
     """
     T = T0 + 0.0
     lr = lr0 + 0.0
+    T, lr, u, h, dlnv, dT_s, _, _ = solve_T_p_from(gas, target, p, T, lr, enthalpy, burned_gas(gas, T, np.exp(lr)))
+    return T, lr, u, h, dlnv, dT_s
+
+
+def solve_T_p_from(gas, target, p, T0, lr0, enthalpy, first):
+    """:func:`solve_T_p` given the burned gas at its start, ``first`` = :func:`burned_gas` at
+    (``T0``, exp(``lr0``)): a solve that starts where an earlier one ended needs no look-up there.
+    Returns the six values of :func:`solve_T_p`, then whether it converged and the burned gas at
+    the returned state (valid where it converged: the state of its last look-up)."""
+    T = T0 + 0.0
+    lr = lr0 + 0.0
     lnp = np.log(p)
+    ev = first
+    done = False
     u = h = R = h_T = h_L = a21 = a22 = 0.0 * T
-    for _ in range(40):
-        u, u_T, u_lr, R, R_T, R_lr = burned_gas(gas, T, np.exp(lr))
+    for it in range(40):
+        if it > 0:
+            ev = burned_gas(gas, T, np.exp(lr))
+        u, u_T, u_lr, R, R_T, R_lr = ev
         h = u + R * T
         h_T = u_T + R + T * R_T
         h_L = u_lr + T * R_lr
@@ -147,6 +162,7 @@ def solve_T_p(gas, target, p, T0, lr0, enthalpy):
         dT = -(f1 * a22 - a12 * f2) / det
         dL = -(a11 * f2 - a21 * f1) / det
         if all_true(np.logical_and(np.abs(dT) <= TOL_T * T, np.abs(dL) <= 1e-12)):
+            done = True
             break
         T = np.minimum(np.maximum(T + dT, 200.0), 6000.0)
         lr = lr + dL
@@ -156,7 +172,7 @@ def solve_T_p(gas, target, p, T0, lr0, enthalpy):
     c1 = h_T - RT * a21
     c2 = h_L - RT * a22
     dL_s = 1.0 / (a22 - a21 * c2 / c1)
-    return T, lr, u, h, -dL_s, -c2 / c1 * dL_s
+    return T, lr, u, h, -dL_s, -c2 / c1 * dL_s, done, ev
 
 
 # -- the unburned zone's entropy tables (cyclesim.loops.zones.ZoneTables) -------------------
