@@ -597,6 +597,7 @@ class EntrainmentBurn(BurnRate):
         fuel = getattr(gas, "fuel", None)
         self.flame_fuel, self.flame_fuel_note = lf.flame_fuel(str(p.fuel_flame_data), getattr(fuel, "name", None))
         code = lf.fuel_code(self.flame_fuel)
+        self.flame_code = code
         self.mk = 1.0 if code < 4 else 0.0
         self.c_mk = lf.MK_CONSTANTS[min(code, 3)]
         self.c_g = lf.GULDER_CONSTANTS[max(code - 4, 0)]
@@ -711,13 +712,28 @@ class EntrainmentBurn(BurnRate):
         }
 
     def warnings(self, trace: Mapping[str, np.ndarray]) -> list[list[str]]:
-        """The laminar flame data of another fuel than the charge's; incomplete burn at EVO."""
+        """The laminar flame data of another fuel than the charge's; the laminar correlation used
+        beyond its measurements between the spark and 90 % burned (or EVO); incomplete burn
+        at EVO."""
         out: list[list[str]] = [[] if self.flame_fuel_note is None else [self.flame_fuel_note]
                                 for _ in range(self.B)]
         th = np.broadcast_to(np.asarray(trace["crank_deg"], float), np.shape(trace["mfb"]))
         xb = np.asarray(trace["mfb"], float)
         evo = _arr(self.ctx.events.evo, self.B)
+        # the unburned zone's own temperature with two zones; with one, the charge's at the spark
+        # (the unburned gas is compressed further: a lower bound)
+        two = "unburned_temperature_K" in trace
+        T_u = np.broadcast_to(np.asarray(trace["unburned_temperature_K" if two else "temperature_K"], float),
+                              th.shape)
+        p = np.broadcast_to(np.asarray(trace["pressure_bar"], float), th.shape) * 1e5
         for b in range(self.B):
+            burning = (th[b] >= self.spark[b]) & (th[b] <= evo[b]) & (xb[b] < 0.9)
+            if burning.any():
+                T_max = float(np.nanmax(T_u[b][burning])) if two else float(np.interp(self.spark[b], th[b], T_u[b]))
+                note = lf.extrapolation_note(float(self.phi[b]), T_max, float(np.nanmax(p[b][burning])),
+                                             self.flame_code, at_spark=not two)
+                if note is not None:
+                    out[b].append(note)
             x = float(np.interp(evo[b], th[b], xb[b]))
             if x < 0.99:
                 out[b].append(f"burn law: only {100 * x:.1f} % burned at exhaust valve opening ({evo[b]:g} deg);"

@@ -361,7 +361,7 @@ def test_auto_flame_data_follow_the_configs_fuel_and_say_when_they_cannot():
                                  load_config("demo", FAST + meth + ["burn.fuel_flame_data=methane"])])
     f = lambda r: r.summary["burn_10_90_deg"]  # noqa: E731
     assert f(auto) == f(named) and f(auto) > f(gas) + 1.0
-    assert not any("laminar burning velocity" in w for w in auto.warnings)
+    assert not any("no laminar burning velocity correlation" in w for w in auto.warnings)
     (cust,) = simulate(load_config("demo", FAST + ["fuel.name=blend", "fuel.C=7.5", "fuel.H=14.0",
                                                     "fuel.lhv_MJ_per_kg=43.5"]))
     assert cust.error is None

@@ -162,6 +162,27 @@ def outside_range(phi, T_u, p, fuel_code):
             | (p < r[4]) | (p > r[5]))
 
 
+def extrapolation_note(phi: float, T_u_max: float, p_max: float, code: int, at_spark: bool = False) -> str | None:
+    """A warning where a burn's charge goes beyond the measurements of its laminar burning velocity
+    correlation (:data:`RANGES`): the equivalence ratio ``phi``, the highest unburned temperature
+    ``T_u_max`` [K] (``at_spark``: only the temperature at the spark is known, a lower bound) and
+    pressure ``p_max`` [Pa] it meets; ``None`` within them."""
+    r = RANGES[0] if code < 4 else RANGES[1]
+    name = "Metghalchi & Keck (1982)" if code < 4 else "Gülder (1984)"
+    beyond = []
+    if phi < r[0] or phi > r[1]:
+        beyond.append(f"phi {phi:.2f}")
+    if T_u_max > r[3]:
+        beyond.append(f"unburned gas {T_u_max:.0f} K at the spark" if at_spark else f"unburned gas up to {T_u_max:.0f} K")
+    if p_max > r[5]:
+        beyond.append(f"pressure up to {p_max / P_REF_PA:.0f} atm")
+    if not beyond:
+        return None
+    return (f"laminar burning velocity extrapolated: {name} measured phi {r[0]:g}-{r[1]:g},"
+            f" {r[2]:.0f}-{r[3]:.0f} K, {r[4] / P_REF_PA:g}-{r[5] / P_REF_PA:g} atm (from memory); this burn meets "
+            + ", ".join(beyond))
+
+
 def fuel_code(name: str) -> int:
     """The integer code of a fuel name; unknown names raise ConfigError with the known ones."""
     if name not in FUEL_CODES:
