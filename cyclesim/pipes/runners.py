@@ -183,6 +183,36 @@ class RunnerSet:
         cf["outer_energy_J"] += out["outer_energy_J"]
         return out
 
+    # -- the state as rows under the cylinder's (runs that start from a given state) ------------
+    def _state_arrays(self):
+        for p in self.system.runners:
+            yield from (p.Q, p.T_cell, p.p_end, p.lag)
+
+    @property
+    def n_state_rows(self) -> int:
+        """Rows of :meth:`state_rows`."""
+        return sum(a[0].size if a.ndim > 1 else 1 for a in self._state_arrays())
+
+    def state_rows(self) -> np.ndarray:
+        """The runners' state as rows (n_state_rows, B), to stack under the cylinder's state: per
+        runner its cells' totals (mass, momentum, energy, burned mass), its cells' last temperatures
+        and its ends' last pressures (the Newton starts, so a run from these rows repeats the run
+        that left them to the bit) and its lag behind the cylinder [s] (:attr:`Pipes.lag`)."""
+        return np.concatenate([a.reshape(self.B, -1) for a in self._state_arrays()], axis=1).T.copy()
+
+    def set_state_rows(self, rows) -> None:
+        """Put the runners in the state ``rows`` (n_state_rows, B) of :meth:`state_rows`, in place
+        (the compiled loop holds these arrays), and start the cycle's bookkeeping from there."""
+        rows = np.asarray(rows, dtype=float)
+        if rows.shape != (self.n_state_rows, self.B):
+            raise ValueError(f"runner state rows of shape {rows.shape}, expected {(self.n_state_rows, self.B)}")
+        k = 0
+        for a in self._state_arrays():
+            n = a[0].size if a.ndim > 1 else 1
+            a[...] = rows[k:k + n].T.reshape(a.shape)
+            k += n
+        self.start_cycle()
+
     @staticmethod
     def settle_change(before, after) -> np.ndarray:
         """The settling test's change per case (B,) between the cycle means of two cycles (dicts of

@@ -541,9 +541,9 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
 
         runners = build_runners(batch)
     if runners is not None and initial is not None and not runners.carried:
-        raise ConfigError("runners: runs that start from a given cylinder state (cycle-by-cycle traces) do"
-                          " not carry the runners yet; set intake.runner: none and"
-                          " exhaust.runner: none")
+        raise ConfigError("runners: a run from a given cylinder state needs the runners' state too: keep the"
+                          " batch's runners (cyclesim.pipes.runners.carry_runners) and set their rows"
+                          " (cyclesim.traces.synthesis.one_cycle)")
     system = CylinderSystem(batch, _RHS, _initial_state, tuple(events), runners)
     return solve(system, progress, initial, cycles, step_scale, _max_cycles)
 

@@ -98,18 +98,19 @@ class RunnerCoupling:
     def save(self) -> list:
         """The runners' state (taken before a compiled cycle, for :meth:`restore`)."""
         return [(p.Q.copy(), p.T_cell.copy(), p.p_end.copy(), p.ends.copy(), p.steps_taken.copy(),
-                 p.fallback_steps.copy()) for p in self.runners.system.runners]
+                 p.fallback_steps.copy(), p.lag.copy()) for p in self.runners.system.runners]
 
     def restore(self, saved: list) -> None:
         """Back to the state :meth:`save` took (in place: the compiled loop holds these arrays), where a
         compiled cycle handed the cycle to the numpy loop."""
-        for p, (Q, Tc, Pe, E, st, fb) in zip(self.runners.system.runners, saved):
+        for p, (Q, Tc, Pe, E, st, fb, lag) in zip(self.runners.system.runners, saved):
             p.Q[...] = Q
             p.T_cell[...] = Tc
             p.p_end[...] = Pe
             p.ends[...] = E
             p.steps_taken[...] = st
             p.fallback_steps[...] = fb
+            p.lag[...] = lag
         self._flows[...] = 0.0
 
     def finish_compiled(self) -> dict:

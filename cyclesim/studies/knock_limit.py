@@ -80,10 +80,10 @@ def statistical_knock_limit(case: Case, advances, n_cycles: int = 50, share: flo
     var = variation or CycleVariation()
     registry = _registry_for([case])
     from ..solve.batch import build_batch
-    from ..solve.solver import integrate
+    from ..traces.synthesis import settle
 
     bases = [case_with(case, {spark: float(a)}) for a in adv]
-    mean = integrate(build_batch(bases, registry))          # all mean cycles in one batch
+    mean = settle(build_batch(bases, registry))          # all mean cycles in one batch
     for k, msg in enumerate(mean.failed):
         if msg:
             raise ConfigError(f"knock limit: mean cycle at {adv[k]:g} deg failed: {msg}")
@@ -91,7 +91,7 @@ def statistical_knock_limit(case: Case, advances, n_cycles: int = 50, share: flo
     for k, base in enumerate(bases):
         changes, _, _ = draw_parameters(base, n_cycles, var)
         cases += [case_with(base, ch) for ch in changes]
-        starts += [mean.end_state[:, k]] * n_cycles
+        starts += [mean.end_rows[:, k]] * n_cycles
     _, _, _, figs = _run_cycles(cases, registry, np.stack(starts, axis=1))
     onset = np.asarray(figs.get("knock_onset_deg", np.full(len(cases), np.nan)), float).reshape(len(adv), n_cycles)
     shares = np.isfinite(onset).mean(axis=1)

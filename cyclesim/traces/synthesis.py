@@ -216,12 +216,50 @@ def draw_parameters(case: Case, n: int, var: CycleVariation) -> tuple[list[dict]
     return changes, misfire, partial
 
 
-def _steady_state(case: Case, registry):
-    from ..solve.batch import build_batch
+def _runner_set(batch):
+    """The batch's runners, kept with it so that its integrations carry their state on
+    (:func:`cyclesim.pipes.runners.carry_runners`), or None where its cases have none (the pipe
+    package is loaded only then)."""
+    if not any(ns is not None for ns in getattr(batch.cases[0], "runners", {}).values()):
+        return None
+    from ..pipes.runners import carry_runners
+
+    return carry_runners(batch)
+
+
+def _with_runner_rows(tr, runners):
+    """The trace with ``end_rows``: its end states, and with runners the runners' state rows below
+    them (:meth:`cyclesim.pipes.runners.RunnerSet.state_rows`), the start of the next cycle."""
+    tr.end_rows = tr.end_state if runners is None else np.concatenate([tr.end_state, runners.state_rows()])
+    return tr
+
+
+def settle(batch):
+    """The batch's cases to periodic steady state; the trace's ``end_rows`` start the cycles after it."""
     from ..solve.solver import integrate
 
-    batch = build_batch([case], registry)
-    tr = integrate(batch)
+    runners = _runner_set(batch)
+    return _with_runner_rows(integrate(batch), runners)
+
+
+def one_cycle(batch, initial: np.ndarray):
+    """One cycle of every case of ``batch`` from the start rows ``initial`` (n, B): the cylinder's state
+    and, with runners, the runners' state rows below it (as ``end_rows`` of :func:`settle`); the
+    trace's ``end_rows`` are the end states in the same rows."""
+    from ..solve.solver import integrate
+
+    runners = _runner_set(batch)
+    if runners is not None:
+        k = initial.shape[0] - runners.n_state_rows
+        runners.set_state_rows(initial[k:])
+        initial = initial[:k]
+    return _with_runner_rows(integrate(batch, initial=np.ascontiguousarray(initial), cycles=1), runners)
+
+
+def _steady_state(case: Case, registry):
+    from ..solve.batch import build_batch
+
+    tr = settle(build_batch([case], registry))
     if tr.failed[0]:
         raise CyclesimError(f"mean cycle failed: {tr.failed[0]}")
     return tr
@@ -256,23 +294,35 @@ def _run_chain(cases: list[Case], registry, start: np.ndarray, tol: float = CHAI
     can share one); then start_i = end_{i-1} (start_0 = ``start``).  Repeats until no start
     state changes by more than ``tol`` relative to its row's largest value.  Returns
     ([(indices, batch, trace, derived, figures) per group], end states (n_state, n), sweeps).
+
+    With runners the cycles run one after the other instead (one sweep): the waves left in a
+    runner carry a disturbance on for many cycles (on demo_runners a 20-cycle chain needed all 20
+    sweeps to repeat within ``tol``, measured), and a runner's cost is per case, so a batch saves
+    little while each sweep costs the whole chain again.
     """
     from ..solve.batch import build_batch
     from ..loops.layout import TOTALS as _TOTALS
-    from ..solve.solver import integrate
 
     n = len(cases)
+    if any(ns is not None for ns in getattr(cases[0], "runners", {}).values()):
+        out, ends, state = [], np.empty((start.shape[0], n)), start.reshape(-1, 1)
+        for j, c in enumerate(cases):
+            batch = build_batch([c], registry)
+            tr = one_cycle(batch, state)
+            state = ends[:, j:j + 1] = tr.end_rows
+            out.append(([j], batch, tr, *_figures_of(batch, tr)))
+        return out, ends, 1
     groups = [(g, build_batch([cases[j] for j in g], registry)) for g in group_cases(cases, registry)]
     inits = np.repeat(start.reshape(-1, 1), n, axis=1)
     ends = np.empty_like(inits)
     rows = np.ones(start.shape[0], dtype=bool)
     rows[_TOTALS] = False          # running totals and the burned fraction restart every cycle
-    rows[3] = False
+    rows[3] = False                # (the runners' rows, below the cylinder's, all carry on)
     for sweep in range(1, max_sweeps + 1):
         trs = []
         for g, batch in groups:
-            tr = integrate(batch, initial=inits[:, g], cycles=1)
-            ends[:, g] = tr.end_state
+            tr = one_cycle(batch, inits[:, g])
+            ends[:, g] = tr.end_rows
             trs.append(tr)
         new = np.concatenate([start.reshape(-1, 1), ends[:, :-1]], axis=1)
         a, b = new[rows], inits[rows]
@@ -293,13 +343,13 @@ def _run_chain(cases: list[Case], registry, start: np.ndarray, tol: float = CHAI
 
 
 def _run_cycles(cases: list[Case], registry, initial: np.ndarray):
-    """One full cycle for each case from the given initial state(s); returns per-case pieces."""
+    """One full cycle for each case from the given start rows (cylinder state, then the runners'
+    where there are runners: :func:`one_cycle`); returns per-case pieces."""
     from ..solve.batch import build_batch
-    from ..solve.solver import integrate
 
     batch = build_batch(cases, registry)
     init = np.repeat(initial.reshape(initial.shape[0], 1), len(cases), axis=1) if initial.ndim == 1 else initial
-    tr = integrate(batch, initial=init, cycles=1)
+    tr = one_cycle(batch, init)
     d, figs = _figures_of(batch, tr)
     return batch, tr, d, figs
 
@@ -463,7 +513,7 @@ def synthesize(
     theta_f = np.linspace(-360.0, 360.0, n_fine + 1)
 
     mean = _steady_state(case, registry)
-    start_state = mean.end_state[:, 0]
+    start_state = mean.end_rows[:, 0]     # with runners their state rows too: every cycle carries them
     changes, misfire, partial = draw_parameters(case, n_cycles, var)
     try:
         cases = [case_with(case, ch, registry) for ch in changes]
@@ -582,7 +632,7 @@ def synthesize(
                 for g in group_cases(part, registry):
                     batch, tr, d, figs = _run_cycles([part[j] for j in g], registry, start_state)
                     groups.append((g, batch, tr, d, figs))
-                    end[:, g] = tr.end_state
+                    end[:, g] = tr.end_rows
             for g, batch, tr, d, figs in groups:
                 collect([i0 + j for j in g], batch, tr, d, figs)
             save_part(f, i0, len(part), end)
