@@ -89,7 +89,7 @@ def speed_point(speed_rpm: float) -> dict:
     dt = time.perf_counter() - t
     cpu = time.process_time() - c
     rec = tr.runners
-    updates = float((rec["substeps_total"][0] * rec["cells"]).sum())
+    updates = float((rec["substeps_total"][0] * rec["cells"][0]).sum())
     return {"speed_rpm": speed_rpm, "seconds": dt, "cpu_seconds": cpu, "cycles": int(tr.cycles[0]), "converged": bool(tr.converged[0]),
             "cell_updates_per_s": updates / dt, "cell_updates_per_cpu_s": updates / cpu, "loop": tr.loop,
             "substeps": rec["substeps_total"][0].tolist()}

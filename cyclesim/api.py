@@ -16,7 +16,7 @@ from typing import Callable, Mapping, Sequence
 import numpy as np
 
 from .config import Case, case_with, flat_inputs, load_config, resolve_case
-from .errors import CyclesimError, PluginError, SolverError
+from .errors import ConfigError, CyclesimError, PluginError, SolverError
 from .output import CAUTION, CONVENTIONS
 from .output import plain as _plain
 
@@ -384,6 +384,16 @@ def _simulate_once(cases, registry, progress, isolate):
     return out
 
 
+def _refuse_shut_valves(cases, registry) -> None:
+    """A full cycle with a valve-flow model that keeps the valves shut cannot run: said before any
+    compiling or simulating (the balance check after the run stays for what this misses)."""
+    for c in cases:
+        vf = c.submodels["valve_flow"].model
+        if c.simulation.mode == "full" and not getattr(registry.submodel_class("valve_flow", vf), "exchanges_gas", True):
+            raise ConfigError(f"valve_flow.model = {vf!r} keeps the valves shut: a full cycle needs a valve-flow"
+                              " model (e.g. poppet), or simulation.mode=closed for IVC to EVO alone")
+
+
 def simulate(cases, progress: Callable[[int], None] | None = None,
              isolate: bool = True, refine: bool = True) -> list[CaseResult]:
     """Simulate cases, batched where they share submodels and grid; results in input order.
@@ -419,6 +429,7 @@ def simulate(cases, progress: Callable[[int], None] | None = None,
         cases = [cases]
     cases = [c if isinstance(c, Case) else load_config(c) for c in cases]
     registry = _registry_for(cases)
+    _refuse_shut_valves(cases, registry)
     _check_environment()
     out = _simulate_once(cases, registry, progress, isolate)
     if not refine:

@@ -214,6 +214,19 @@ def test_settled_state_is_periodic_with_runners():
     assert abs(imep[1] - imep[0]) / abs(imep[1]) < c.simulation.tolerance
 
 
+def test_cases_settling_at_different_cycles_keep_their_own_runner_record():
+    # a batch whose cases settle after different numbers of cycles: each case's record is of its own
+    # reported cycle (a per-batch entry of the record once failed to index by case, and ended a
+    # cylinder-cut test with runners in a traceback)
+    cases = [cyclesim.load_config("demo_runners", ["simulation.step_deg=1.0", f"operating.intake_pressure_bar={p}"])
+             for p in (0.4, 0.7, 1.0, 1.5)]
+    batch, tr = _integrate(cases)
+    assert len(set(tr.cycles.tolist())) > 1, tr.cycles          # the premise: not all settle together
+    rec = tr.runners
+    assert rec["cells"].shape == (4, 2) and np.all(rec["cells"] == 30)
+    assert np.all(tr.converged) and np.all(rec["change"] < cases[0].simulation.tolerance)
+
+
 def test_sweep_accepts_runner_keys_and_refuses_unknown_ones(tmp_path):
     from cyclesim.studies.sweep import _check_key
 

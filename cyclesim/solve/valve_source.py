@@ -172,4 +172,5 @@ class RunnerCoupling:
                 "start": r.cycle_start, "end": end_state, "mass_pts": self._m_pts.copy(), "cycle_mean": mean, "cycle_mean_before": prev,
                 "change": change,
                 "substeps_total": np.stack([p.steps_taken for p in r.system.runners], axis=1).astype(float),
-                "cells": np.array([p.N for p in r.system.runners], dtype=float)}
+                # per case like every other entry (the report keeps each case's record of its own cycle)
+                "cells": np.tile(np.array([p.N for p in r.system.runners], dtype=float), (r.B, 1))}
