@@ -89,10 +89,11 @@ def _check(dur, cda, p, T, Y):
     return 0
 
 
-def _valve_step(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y, lag):
+def _valve_step(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y, lag,
+                own_time):
     """Set the valve end ``end`` of one runner (B cases) and advance it; numpy form of
     :func:`runner_step_case` (the same sequence of sub-steps)."""
-    shut = cda == 0.0
+    shut = (cda == 0.0) & bool(own_time)
     acc = np.zeros((Q.shape[0], 2, s.NF))
     steps = np.zeros(Q.shape[0], dtype=np.int64)
     fallbacks = np.zeros(Q.shape[0], dtype=np.int64)
@@ -150,16 +151,20 @@ if s.COMPILED:
 
     @njit(cache=True)
     def runner_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y,
-                         acc, steps, fallbacks, lag):
+                         acc, steps, fallbacks, lag, own_time):
         """One crank step of ``dur`` [s] of case ``b``'s runner at the cylinder's valve (its return code).
 
-        With the valve shut (``cda`` 0) nothing passes the valve end, so the runner steps on its
+        With ``own_time`` and the valve shut (``cda`` 0) nothing passes the valve end, so the runner steps on its
         own time: whole CFL sub-steps over the time it lagged plus ``dur``, the time left over
         kept in ``lag[b]`` [s] (less than one sub-step).  At the first step with the valve open
         the runner first catches up over ``lag[b]`` with the valve still shut, then takes the
         step as before (sub-steps ending on the step's end), so what passes the valve each step
-        is the cylinder's for that step."""
-        if cda == 0.0:
+        is the cylinder's for that step.  Without ``own_time`` (a far end that follows a shared
+        volume's pressure crank step by crank step: the multi-cylinder engine) every crank step
+        ends on the step's end: the whole sub-steps' left-over time, which moves with the state
+        from one coupled cycle to the next, kept the engine's relaxation from settling (a change
+        of about 2e-3 after 40 coupled cycles on demo_engine_runners, against 18 cycles to 5e-4)."""
+        if own_time and cda == 0.0:
             return valve_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, lag[b] + dur, max_steps,
                                    end, 0.0, p, T, Y, acc, steps, fallbacks, True, lag)
         if lag[b] > 0.0:
@@ -173,7 +178,7 @@ if s.COMPILED:
 
     @njit(cache=True)
     def _valve_step_compiled(Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, max_steps, end, cda, p, T, Y,
-                             lag):
+                             lag, own_time):
         """:func:`_valve_step` in one compiled call (no Python between the valve and the sub-steps)."""
         B = Q.shape[0]
         acc = np.zeros((B, 2, s.NF))
@@ -181,7 +186,7 @@ if s.COMPILED:
         fallbacks = np.zeros(B, dtype=np.int64)
         for b in range(B):
             why = runner_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur[b], max_steps, end,
-                                   cda[b], p[b], T[b], Y[b], acc, steps, fallbacks, lag)
+                                   cda[b], p[b], T[b], Y[b], acc, steps, fallbacks, lag, own_time)
             if why >= 0:
                 return acc, steps, fallbacks, b, why
         return acc, steps, fallbacks, -1, 0
@@ -189,7 +194,7 @@ if s.COMPILED:
 
 def advance_crank_step(system: PipeSystem, duration_s, valve_cda_m2, cylinder_pressure_pa,
                        cylinder_temperature_K, cylinder_burned_fraction,
-                       end_iterations: int = DEFAULT_END_ITERATIONS) -> dict:
+                       end_iterations: int = DEFAULT_END_ITERATIONS, own_time: bool = True) -> dict:
     """Advance every runner of ``system`` by one crank step with the cylinder held at its state.
 
     Parameters
@@ -201,6 +206,9 @@ def advance_crank_step(system: PipeSystem, duration_s, valve_cda_m2, cylinder_pr
         Effective flow area of each valve over the step [m^2] (0: shut).
     cylinder_pressure_pa, cylinder_temperature_K, cylinder_burned_fraction : array_like (B,)
         The cylinder's state, its stagnation state at the valves, over the step.
+    own_time : bool
+        A runner behind a shut valve steps on its own time (:func:`runner_step_case`); off where
+        the far ends follow a shared volume.
 
     Returns
     -------
@@ -234,7 +242,7 @@ def advance_crank_step(system: PipeSystem, duration_s, valve_cda_m2, cylinder_pr
     for j, (pipe, end) in enumerate(zip(system.runners, system.valve_ends)):
         args = (pipe.Q, pipe.G, pipe.face_area, pipe.P, pipe.ends, pipe.C, pipe.T_cell, pipe.p_end,
                 pipe.gas.t_mid_K, pipe.gas.newton_steps, end_iterations, dur, 1_000_000, end,
-                np.ascontiguousarray(cda[:, j]), p, T, Y, pipe.lag)
+                np.ascontiguousarray(cda[:, j]), p, T, Y, pipe.lag, bool(own_time))
         if s.COMPILED:
             a, st, fallbacks, failed, why = _valve_step_compiled(*args)
             if failed >= 0:

@@ -119,7 +119,7 @@ def crank_step(b, i, dur, p, T, Y, h_cyl, pipes, src):
         st[b] = 0
         fb[b] = 0
         why = runner_step_case(b, Q, G, Af, P, E, C, Tc, Pe, t_mid, n_newton, n_iter, dur, MAX_SUBSTEPS, end,
-                               cda[b, j, i], p, T, Y, acc, st, fb, lag)
+                               cda[b, j, i], p, T, Y, acc, st, fb, lag, far_on == 0)
         if why >= 0:
             return False
         taken[b] += st[b]

@@ -175,7 +175,8 @@ class RunnerSet:
         if self.far_pressure is not None and i is not None:
             for j, pipe in enumerate(self.system.runners):
                 pipe.ends[:, _FAR_END, s.E_P] = self.far_pressure[j, :, i]
-        out = advance_crank_step(self.system, duration_s, valve_cda_m2, p, T, np.clip(y_b, 0.0, 1.0))
+        out = advance_crank_step(self.system, duration_s, valve_cda_m2, p, T, np.clip(y_b, 0.0, 1.0),
+                                 own_time=self.far_pressure is None)
         cf = self.cycle_flows
         for key in ("mass_kg", "enthalpy_J", "burned_mass_kg"):
             cf[key] += out[key]
