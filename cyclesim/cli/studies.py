@@ -77,6 +77,9 @@ def add_parsers(subparsers) -> None:
                         " several keys give the full grid)")
     s.add_argument("--paired", action="store_true",
                    help="one case per position of the value lists (equal lengths) instead of the grid")
+    s.add_argument("--no-plots", action="store_true",
+                   help="skip the PNG plots (one key: volumetric efficiency and torque against it; two keys"
+                        " on a grid: their surfaces)")
     _common(s)
     _parallel_options(s)
 
@@ -130,7 +133,12 @@ def cmd_sweep(args) -> int:
         print(line)
 
     print(f"note: {CAUTION}")
-    print(f"wrote {args.out / 'sweep.csv'} and {args.out / 'sweep.json'}")
+    files = []
+    if not args.no_plots:
+        from ..plots.sweep import plot_sweep
+
+        files = [Path(f).name for f in plot_sweep(res, args.out, paired=args.paired)]
+    print(f"wrote {args.out / 'sweep.csv'} and {args.out / 'sweep.json'}" + "".join(f", {f}" for f in files))
     return 0
 
 
