@@ -130,7 +130,9 @@ def test_compiled_loop_with_runners_gives_the_numpy_loops_results(monkeypatch):
 
     # demo_runners at two speeds and one with the exhaust runner only (the intake on its plenum and
     # port buffer), three fine cycles each
-    cases = [cyclesim.load_config("demo_runners", ["simulation.max_cycles=3", f"operating.speed_rpm={n}"])
+    cases = [cyclesim.load_config("demo_runners", ["simulation.max_cycles=3", f"operating.speed_rpm={n}",
+                                                   "intake.runner.stations_mm=[0, 100, 299]",
+                                                   "exhaust.runner.stations_mm=[350]"])
              for n in (2000, 5500)]
     cases.append(cyclesim.load_config("demo_runners", ["simulation.max_cycles=3", "intake.runner=none"]))
     got = {}
@@ -160,6 +162,10 @@ def test_compiled_loop_with_runners_gives_the_numpy_loops_results(monkeypatch):
     assert len({round(r.summary["volumetric_efficiency"], 6) for r in got["auto"]}) == 3
     assert "exhaust_runner_mass_change_mg" in got["auto"][2].summary
     assert "intake_runner_mass_change_mg" not in got["auto"][2].summary
+    # the stations' columns are among the trace columns compared (a station in the far end's own cell
+    # agrees to about 1e-8, the end solve's tolerance: measured 8e-9 at 400 mm, so 350 mm here)
+    assert "intake_runner_at_100mm_velocity_m_per_s" in got["python"][0].trace
+    assert "exhaust_runner_at_350mm_pressure_bar" in got["auto"][1].trace
 
 
 def test_trace_columns_and_summary():
@@ -307,3 +313,36 @@ def test_runner_behind_a_shut_valve_steps_on_its_own_time():
     got = pipes.advance_crank_step(system, dur, np.full((2, 1), 2e-4), np.full(2, 0.9e5), np.full(2, 300.0),
                                    np.zeros(2))
     assert np.all(lagged.lag == 0.0) and np.all(got["mass_kg"] != 0.0)
+
+
+def test_station_columns_pressure_and_velocity():
+    # stations along the intake runner (300 mm, 30 cells; cyclesim.config.runners.station_cell) and
+    # one on the exhaust runner: pressure and gas velocity on the output grid
+    c = _case(["intake.runner.stations_mm=[0, 150, 300]", "exhaust.runner.stations_mm=[200]"])
+    res = cyclesim.simulate([c])[0]
+    assert res.error is None
+    t, s = res.trace, res.summary
+    col = lambda k: np.asarray(t[k], float)  # noqa: E731
+    # 150 mm is the middle cell: the station's columns are the mid-length ones
+    assert np.array_equal(col("intake_runner_at_150mm_pressure_bar"), col("intake_runner_mid_pressure_bar"))
+    assert np.array_equal(col("intake_runner_at_150mm_velocity_m_per_s"), col("intake_runner_mid_velocity_m_per_s"))
+    # continuity at a periodic state (common practice): the mass through a station over the cycle is
+    # what the cylinder inducted; here from rho u A with the gas at the plenum's temperature (the
+    # runner's wall is at it) and the runner's fresh-charge gas constant, so within a few percent
+    from cyclesim.pipes.runners import build_runners
+
+    R = float(build_runners(build_batch([c], get_registry(()))).system.runners[0].gas.R[0, 0])
+    theta = col("crank_deg")
+    dt = np.gradient(theta) / (6.0 * c.operating.speed_rpm)
+    area = np.pi / 4.0 * (c.runners["intake"].diameter_mm * 1e-3) ** 2
+    for x in (0, 150, 300):
+        p = col(f"intake_runner_at_{x}mm_pressure_bar") * 1e5
+        u = col(f"intake_runner_at_{x}mm_velocity_m_per_s")
+        m = float(np.sum(p / (R * c.operating.intake_temperature_K) * u * area * dt))
+        assert m * 1e6 == pytest.approx(s["inducted_mass_mg"], rel=0.02), x     # measured 0.3-0.6 %
+    # the exhaust station sees the blowdown leave the cylinder (positive: away from the valve)
+    u_e = col("exhaust_runner_at_200mm_velocity_m_per_s")
+    blow = (theta > c.valves.evo_deg + 10.0) & (theta < 180.0)
+    assert u_e[blow].mean() > 50.0 and u_e.max() > 100.0
+    with pytest.raises(ConfigError, match="beyond"):
+        _case(["intake.runner.stations_mm=[400]"])

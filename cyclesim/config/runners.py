@@ -41,6 +41,9 @@ RUNNER_SCHEMA: tuple[Param, ...] = (
     P("entry_loss", "-", 0.0, "loss coefficient of the plenum end on flow into the runner (dynamic heads of"
       " stagnation pressure; about 0.05 for a bellmouth, 0.5 for a sharp edge, common practice)", 0, 2),
     P("bend_loss", "-", 0.0, "total loss coefficient of the runner's bends, spread over its length", 0, 10),
+    P("stations_mm", "mm", None, "positions along the runner, from its valve end, where the trace gives the"
+      " pressure and the gas velocity (the cell holding each; columns <side>_runner_at_<x>mm_pressure_bar"
+      " and _velocity_m_per_s); each at most length_mm", 0, 10000, kind="list"),
 )
 """Keys of ``intake.runner`` and ``exhaust.runner``."""
 
@@ -81,7 +84,19 @@ def runner_from(value: Any, where: str) -> SimpleNamespace | None:
         ns.n_cells = int(ns.cells)
     if ns.n_cells > 2000:
         raise ConfigError(f"{where}.cell_mm = {ns.cell_mm:g}: gives {ns.n_cells} cells, at most 2000")
+    ns.stations_mm = tuple(ns.stations_mm or ())
+    for x in ns.stations_mm:
+        if x > ns.length_mm:
+            raise ConfigError(f"{where}.stations_mm: {x:g} mm lies beyond the runner's length_mm = {ns.length_mm:g}")
+    if len(set(ns.stations_mm)) != len(ns.stations_mm):
+        raise ConfigError(f"{where}.stations_mm: a position is given twice ({list(ns.stations_mm)})")
     return ns
+
+
+def station_cell(ns: SimpleNamespace, x_mm: float) -> int:
+    """The cell (0 at the valve end) that holds position ``x_mm`` of a validated runner (the last
+    cell for its far end)."""
+    return min(ns.n_cells - 1, int(x_mm / ns.length_mm * ns.n_cells))
 
 
 def runner_diameters_m(ns: SimpleNamespace) -> tuple[float, float]:

@@ -70,18 +70,19 @@ def pack(runners, slots, cda, records, flows) -> tuple:
     ``runners`` is a :class:`cyclesim.pipes.runners.RunnerSet`; ``slots`` (n_sides,) int64 the
     side slot of each (:data:`SIDE_SLOT`); ``cda`` (B, n_sides, N) the valves' effective areas per
     crank step [m^2]; ``records`` the arrays the pressures at the grid points go to
-    (``p_valve`` (B, n_sides, N+1), the middle cells' totals (n_sides, B, 4, N+1) and
-    temperatures (n_sides, B, N+1), the runners' mass and energy (B, n_sides, N+1) each);
+    (``p_valve`` (B, n_sides, N+1), the recorded cells' totals (n_sides, K, B, 4, N+1) and
+    temperatures (n_sides, K, B, N+1) (:attr:`RunnerSet.record_cells`), the runners' mass and energy (B, n_sides, N+1) each);
     ``flows`` (B, n_sides, 5) the cycle's totals (into the cylinder: mass, enthalpy, burned mass;
     into the runner at its far end: mass, energy).  The runners' own arrays are passed, so the
     loop advances them in place."""
     B = runners.B
     rows = []
-    for j, (pipe, end, mid) in enumerate(zip(runners.system.runners, runners.system.valve_ends, runners.mid)):
+    for j, (pipe, end, rec) in enumerate(zip(runners.system.runners, runners.system.valve_ends,
+                                             runners.record_cells)):
         far = runners.far_row(j)
         rows.append((pipe.Q, pipe.G, pipe.face_area, pipe.P, pipe.ends, pipe.C, pipe.T_cell, pipe.p_end,
                      pipe.steps_taken, pipe.fallback_steps, float(pipe.gas.t_mid_K), int(pipe.gas.newton_steps),
-                     int(DEFAULT_END_ITERATIONS), int(end), int(mid), np.zeros((B, 2, s.NF)),
+                     int(DEFAULT_END_ITERATIONS), int(end), rec, np.zeros((B, 2, s.NF)),
                      np.zeros(B, dtype=np.int64), np.zeros(B, dtype=np.int64), far, int(runners.far_pressure is not None),
                      pipe.lag))
     return (np.ascontiguousarray(slots, dtype=np.int64), np.ascontiguousarray(cda, dtype=float), tuple(rows),
@@ -97,14 +98,16 @@ def crank_step(b, i, dur, p, T, Y, h_cyl, pipes, src):
     slots, cda, runners, records, flows = pipes
     PV, QM, TM, MP, EP = records
     for j in range(slots.shape[0]):
-        (Q, G, Af, P, E, C, Tc, Pe, taken, fell, t_mid, n_newton, n_iter, end, mid, acc, st, fb, far,
+        (Q, G, Af, P, E, C, Tc, Pe, taken, fell, t_mid, n_newton, n_iter, end, rec, acc, st, fb, far,
          far_on, lag) = runners[j]
         if far_on:                                 # the far end's reservoir follows a shared volume
             E[b, 1 - end, s.E_P] = far[b, i]
-        # the runner at grid point i (RunnerCoupling.record)
-        for q in range(s.NQ):
-            QM[j, b, q, i] = Q[b, q, mid]
-        TM[j, b, i] = Tc[b, mid]
+        # the runner at grid point i (RunnerCoupling.record): its recorded cells (middle, stations)
+        for r in range(rec.shape[1]):
+            c = rec[b, r]
+            for q in range(s.NQ):
+                QM[j, r, b, q, i] = Q[b, q, c]
+            TM[j, r, b, i] = Tc[b, c]
         PV[b, j, i] = Pe[b, 0]
         m_sum = 0.0
         e_sum = 0.0

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..config.runners import station_cell
 from ..errors import ConfigError
 import cyclesim.pipes.scheme as s
 from .coupling import PipeSystem, advance_crank_step
@@ -76,6 +77,21 @@ class RunnerSet:
             runners.append(pipe)
         self.system = PipeSystem(runners, [_VALVE_END] * len(runners))
         self.mid = [p.N // 2 for p in runners]
+        self.stations: list[tuple] = []
+        """Per runner, the positions [mm] of its stations (``stations_mm``; the same in every case)."""
+        cells = []
+        for side, pipe, mid in zip(self.sides, runners, self.mid):
+            rows = [c.runners[side] for c in batch.cases]
+            st = rows[0].stations_mm
+            if any(r.stations_mm != st for r in rows):
+                raise ConfigError(f"{side}.runner.stations_mm: the cases of one batch must have the same stations")
+            self.stations.append(st)
+            cells.append([[mid] + [station_cell(r, x) for x in st] for r in rows])
+        k = max(len(c[0]) for c in cells)
+        self.record_cells = [np.ascontiguousarray([row + [row[0]] * (k - len(row)) for row in c], dtype=np.int64)
+                             for c in cells]
+        """Per runner (B, K) the cells recorded at every grid point: its middle cell, then its stations
+        (padded with the middle cell to the longest list of the runners)."""
         self.far_pressure: np.ndarray | None = None
         """Far-end reservoir pressure per crank step [Pa] (n_sides, B, N), or None (constant, as set)."""
         self.far_trace: tuple | None = None
@@ -107,13 +123,14 @@ class RunnerSet:
                          for p, i in zip(self.system.runners, self.mid)], axis=1)
 
     @staticmethod
-    def cell_pressure(pipe: Pipes, i: int, Q, T_start) -> np.ndarray:
-        """Pressure [Pa] (B, n) of cell ``i`` of ``pipe`` at ``n`` saved states: its totals ``Q``
-        (B, NQ, n) and last temperatures ``T_start`` (B, n) [K]."""
+    def cell_pressure(pipe: Pipes, i, Q, T_start) -> np.ndarray:
+        """Pressure [Pa] (B, n) of cell ``i`` (an index, or one per case (B,)) of ``pipe`` at ``n``
+        saved states: its totals ``Q`` (B, NQ, n) and last temperatures ``T_start`` (B, n) [K]."""
         import cyclesim.pipes.kernels as k
 
         cf, cb = pipe._coef_np()
-        out = k.primitives(Q[:, s.MASS], Q[:, s.MOMENTUM], Q[:, s.ENERGY], Q[:, s.BURNED], pipe.volume[:, i:i + 1],
+        vol = pipe.volume[np.arange(pipe.B), np.broadcast_to(np.asarray(i), (pipe.B,))][:, None]
+        out = k.primitives(Q[:, s.MASS], Q[:, s.MOMENTUM], Q[:, s.ENERGY], Q[:, s.BURNED], vol,
                            cf, cb, pipe.gas.R[:, :1], pipe.gas.R[:, 1:], pipe.gas.t_mid_K, pipe.gas.newton_steps,
                            T_start)
         return out[2]

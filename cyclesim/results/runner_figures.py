@@ -2,8 +2,11 @@
 
 From the reported cycle's runner record (``CycleTrace.runners``, per case):
 
-- trace columns ``{side}_runner_valve_pressure_bar`` (at the runner's valve end) and
-  ``{side}_runner_mid_pressure_bar`` (its middle cell), on the output grid;
+- trace columns ``{side}_runner_valve_pressure_bar`` (at the runner's valve end),
+  ``{side}_runner_mid_pressure_bar`` and ``{side}_runner_mid_velocity_m_per_s`` (its middle cell), and
+  at each station of ``stations_mm`` ``{side}_runner_at_<x>mm_pressure_bar`` and
+  ``..._velocity_m_per_s`` (the cell holding it), on the output grid; velocities are positive in
+  the side's normal flow (towards the valve on the intake, away from it on the exhaust);
 - figures ``{side}_runner_mass_change_mg`` and ``{side}_runner_energy_change_J`` over the reported
   cycle (zero at a periodic state), ``{side}_runner_mean_mass_change`` (of the cycle-mean mass
   against the cycle before, relative), ``{side}_runner_mean_valve_pressure_bar``, and ``runner_energy_balance``: the energy that came in through
@@ -53,10 +56,16 @@ def runner_columns(tr, grid: np.ndarray) -> dict:
     th = tr.theta
     cols = {}
     same = grid is th or (len(grid) == len(th) and np.allclose(grid, th))
+    def on_grid(rows):
+        return rows if same else np.stack([np.interp(grid, th, row) for row in rows])
+
     for j, side in enumerate(rec["sides"]):
         for what, key in (("valve", "p_valve"), ("mid", "p_mid")):
-            p = rec[key][:, j, :]
-            if not same:
-                p = np.stack([np.interp(grid, th, row) for row in p])
-            cols[f"{side}_runner_{what}_pressure_bar"] = p / 1e5
+            cols[f"{side}_runner_{what}_pressure_bar"] = on_grid(rec[key][:, j, :]) / 1e5
+        cols[f"{side}_runner_mid_velocity_m_per_s"] = on_grid(rec["u_mid"][:, j, :])
+        st = rec["stations"][side]
+        for k, x in enumerate(st["x_mm"]):
+            name = f"{side}_runner_at_{x:g}mm"
+            cols[f"{name}_pressure_bar"] = on_grid(st["pressure_pa"][:, k, :]) / 1e5
+            cols[f"{name}_velocity_m_per_s"] = on_grid(st["velocity_m_per_s"][:, k, :])
     return cols

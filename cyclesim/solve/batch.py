@@ -85,8 +85,8 @@ def batch_key(case: Case, registry) -> tuple:
         vcls = registry.submodel_class("valve_flow", vf.model)
         parts.append(("valve_flow_numbers",) + tuple(
             (name, _freeze(vf.params[name])) for name in _class_names(vcls, True)))
-    # runners: cases of one batch share which sides have one and its cell count
-    parts.append(("runners",) + tuple((side, None if ns is None else ns.n_cells)
+    # runners: cases of one batch share which sides have one, its cell count and its stations
+    parts.append(("runners",) + tuple((side, None if ns is None else (ns.n_cells, tuple(ns.stations_mm)))
                                       for side, ns in sorted(getattr(case, "runners", {}).items())))
     from ..config import effective_step_deg
 

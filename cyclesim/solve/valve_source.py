@@ -68,10 +68,11 @@ class RunnerCoupling:
         self.source = StepValveFlows(B, "intake" in self.sides, "exhaust" in self.sides)
         self.p_valve = np.zeros((B, len(self.sides), N + 1))
         self.p_mid = np.zeros_like(self.p_valve)
-        # the middle cells' totals and last temperatures at the grid points: their pressures are
-        # found once per cycle (finish_cycle), in one call
-        self._q_mid = np.zeros((len(self.sides), B, 4, N + 1))
-        self._t_mid = np.zeros((len(self.sides), B, N + 1))
+        # the recorded cells' (middle, stations: RunnerSet.record_cells) totals and last temperatures
+        # at the grid points: their pressures are found once per cycle (finish_cycle), in one call
+        K = runners.record_cells[0].shape[1]
+        self._q_mid = np.zeros((len(self.sides), K, B, 4, N + 1))
+        self._t_mid = np.zeros((len(self.sides), K, B, N + 1))
         self.N = N
         self.theta = pts.theta
         self.prev_mean = None      # the cycle before's means (RunnerSet.settle_change)
@@ -125,9 +126,11 @@ class RunnerCoupling:
     def record(self, i: int) -> None:
         """The runners' pressures at grid point ``i``."""
         r = self.runners
-        for j, (pipe, c) in enumerate(zip(r.system.runners, r.mid)):
-            self._q_mid[j, :, :, i] = pipe.Q[:, :, c]
-            self._t_mid[j, :, i] = pipe.T_cell[:, c]
+        cases = np.arange(r.B)
+        for j, (pipe, cells) in enumerate(zip(r.system.runners, r.record_cells)):
+            for k in range(cells.shape[1]):
+                self._q_mid[j, k, :, :, i] = pipe.Q[cases, :, cells[:, k]]
+                self._t_mid[j, k, :, i] = pipe.T_cell[cases, cells[:, k]]
             self.p_valve[:, j, i] = pipe.p_end[:, 0]
             self._m_pts[:, j, i] = pipe.Q[:, 0].sum(axis=1)
             self._e_pts[:, j, i] = pipe.Q[:, 2].sum(axis=1)
@@ -156,8 +159,18 @@ class RunnerCoupling:
         """The cycle's record: pressures at the grid points and the runners' flows and states."""
         self.record(self.N)
         r = self.runners
-        for j, (pipe, c) in enumerate(zip(r.system.runners, r.mid)):
-            self.p_mid[:, j] = r.cell_pressure(pipe, c, self._q_mid[j], self._t_mid[j])
+        u_mid = np.empty_like(self.p_mid)
+        stations = {}
+        for j, (side, pipe, cells) in enumerate(zip(self.sides, r.system.runners, r.record_cells)):
+            p_k = [r.cell_pressure(pipe, cells[:, k], self._q_mid[j, k], self._t_mid[j, k])
+                   for k in range(1 + len(r.stations[j]))]
+            # velocity = momentum / mass of the cell, positive in the side's normal flow: towards
+            # the valve on the intake (against x, which runs from the valve end), away on the exhaust
+            sign = -1.0 if side == "intake" else 1.0
+            u_k = [sign * self._q_mid[j, k, :, 1] / self._q_mid[j, k, :, 0] for k in range(len(p_k))]
+            self.p_mid[:, j], u_mid[:, j] = p_k[0], u_k[0]
+            stations[side] = {"x_mm": r.stations[j], "pressure_pa": np.stack(p_k[1:], axis=1) if p_k[1:] else None,
+                              "velocity_m_per_s": np.stack(u_k[1:], axis=1) if u_k[1:] else None}
         end = r.contents()
         end_state = {"mass_kg": end["mass_kg"], "energy_J": end["energy_J"],
                      "valve_pressure_pa": r.valve_pressure()}
@@ -167,7 +180,8 @@ class RunnerCoupling:
         change = r.settle_change(self.prev_mean, mean)
         prev = mean if self.prev_mean is None else self.prev_mean
         self.prev_mean = mean
-        return {"sides": self.sides, "p_valve": self.p_valve.copy(), "p_mid": self.p_mid.copy(),
+        return {"sides": self.sides, "p_valve": self.p_valve.copy(), "p_mid": self.p_mid.copy(), "u_mid": u_mid,
+                "stations": stations,
                 "flows": {k: v.copy() for k, v in r.cycle_flows.items()},
                 "start": r.cycle_start, "end": end_state, "mass_pts": self._m_pts.copy(), "cycle_mean": mean, "cycle_mean_before": prev,
                 "change": change,
