@@ -88,6 +88,9 @@ def test_convergence_history_is_reported(identical_engine):
     assert all(len(r["ve_change"]) == 4 and len(r["imep_change"]) == 4 for r in hist)
     assert all(np.isfinite(r["ve_change"]).all() for r in hist[1:])
     assert coupling_history([]) == []
+    # four coupled cycles do not settle it: the engine says so in its table, not "settled after 4"
+    assert identical_engine.engine["settled"] is False and identical_engine.warnings
+    assert "NOT settled after 4 coupled cycles" in identical_engine.text()
 
 
 @pytest.mark.slow

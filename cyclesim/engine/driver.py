@@ -432,6 +432,7 @@ def _engine_result(inf, res, man_tr, phi, walls_T, n_coupled, settled) -> Engine
         "imep_net_spread_bar": float(imf.max() - imf.min()),
         "imep_net_cov_cylinders": float(imf.std(ddof=0) / imf.mean()) if imf.mean() != 0 else float("nan"),
         "coupled_cycles": n_coupled,
+        "settled": bool(settled),
         "cylinder_draw_mg_per_cycle": float(sum(r.summary.get("inducted_mass_mg", 0.0) for r in res)),
         "cylinder_exhaust_mg_per_cycle": float(sum(r.summary.get("inducted_mass_mg", 0.0)
                                                    - r.summary.get("blowby_mass_mg", 0.0) for r in res)),

@@ -136,7 +136,8 @@ class EngineResult:
                          f" ({e['intake_manifold_min_bar']:.3f}..{e['intake_manifold_max_bar']:.3f}),"
                          f" exhaust manifold {e['exhaust_manifold_mean_bar']:.4f} bar mean"
                          f" ({e['exhaust_manifold_min_bar']:.3f}..{e['exhaust_manifold_max_bar']:.3f});"
-                         f" settled after {e['coupled_cycles']} coupled cycles")
+                         + (f" settled after {e['coupled_cycles']} coupled cycles" if e.get("settled", True)
+                            else f" NOT settled after {e['coupled_cycles']} coupled cycles (see the warning)"))
         if e.get("runners"):
             start = (f", from the 0-D engine's state settled in {e['lumped_start_coupled_cycles']} coupled cycles"
                      if "lumped_start_coupled_cycles" in e else "")
