@@ -123,6 +123,20 @@ def test_set_statistics_from_rows():
     assert st["knocking_share"] == pytest.approx(1 / 3)
 
 
+def interrupt_after(real, calls: int):
+    """``real`` that raises KeyboardInterrupt on its call after ``calls`` calls (a user's Ctrl-C
+    between two chunks of a set)."""
+    done = {"n": 0}
+
+    def wrapped(*a, **k):
+        done["n"] += 1
+        if done["n"] > calls:
+            raise KeyboardInterrupt
+        return real(*a, **k)
+
+    return wrapped
+
+
 def test_interrupted_set_resumes_to_the_same_result(base, tmp_path, monkeypatch):
     from cyclesim.traces import synthesis as syn
 
@@ -130,15 +144,7 @@ def test_interrupted_set_resumes_to_the_same_result(base, tmp_path, monkeypatch)
     whole = synthesize(base, 6, var, resolution_deg=1.0, artefacts=art.ArtefactSettings.default(), chunk=2)
     ck = tmp_path / "chunks"
     real = syn._run_cycles
-    calls = {"n": 0}
-
-    def stop_after_two(*a, **k):
-        calls["n"] += 1
-        if calls["n"] > 2:
-            raise KeyboardInterrupt
-        return real(*a, **k)
-
-    monkeypatch.setattr(syn, "_run_cycles", stop_after_two)
+    monkeypatch.setattr(syn, "_run_cycles", interrupt_after(real, 2))
     with pytest.raises(KeyboardInterrupt):
         synthesize(base, 6, var, resolution_deg=1.0, artefacts=art.ArtefactSettings.default(), chunk=2,
                    checkpoint_dir=ck)

@@ -97,17 +97,11 @@ def test_interrupted_coupled_set_with_runners_resumes_to_the_same_result(base, t
     var = CycleVariation(seed=3, coupled=True)
     kw = dict(resolution_deg=1.0, artefacts=art.ArtefactSettings.none(), chunk=2)
     whole = synthesize(base, 4, var, **kw)
+    from test_synthesis import interrupt_after
+
     real = syn._run_chain
-    calls = {"n": 0}
-
-    def stop_after_one(*a, **k):
-        calls["n"] += 1
-        if calls["n"] > 1:
-            raise KeyboardInterrupt
-        return real(*a, **k)
-
     ck = tmp_path / "chunks"
-    monkeypatch.setattr(syn, "_run_chain", stop_after_one)
+    monkeypatch.setattr(syn, "_run_chain", interrupt_after(real, 1))
     with pytest.raises(KeyboardInterrupt):
         synthesize(base, 4, var, checkpoint_dir=ck, **kw)
     assert len(list(ck.glob("cycles_*.npz"))) == 1
