@@ -93,6 +93,11 @@ def runner_from(value: Any, where: str) -> SimpleNamespace | None:
     return ns
 
 
+def has_runners(case) -> bool:
+    """True where the case has a runner on either side."""
+    return any(v is not None for v in getattr(case, "runners", {}).values())
+
+
 def station_cell(ns: SimpleNamespace, x_mm: float) -> int:
     """The cell (0 at the valve end) that holds position ``x_mm`` of a validated runner (the last
     cell for its far end)."""

@@ -31,10 +31,7 @@ from __future__ import annotations
 
 import numpy as np
 
-
-def has_runners(case) -> bool:
-    """True where the case has a runner on either side."""
-    return any(v is not None for v in getattr(case, "runners", {}).values())
+from ..config.runners import has_runners
 
 
 LUMPED_START = True

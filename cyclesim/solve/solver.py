@@ -533,8 +533,10 @@ def integrate(batch, progress=None, initial: np.ndarray | None = None,
     which is the reference), the events (:mod:`cyclesim.solve.events`) and the periodic-steady-state
     driver (:mod:`cyclesim.solve.periodic`).
     """
+    from ..config.runners import has_runners
+
     runners = None
-    if any(ns is not None for ns in getattr(batch.cases[0], "runners", {}).values()):
+    if has_runners(batch.cases[0]):
         # the pipe package (its compiled kernels loaded at import) only for a batch with runners:
         # build_runners gives None for a batch whose first case has none
         from ..pipes.runners import build_runners

@@ -220,7 +220,9 @@ def _runner_set(batch):
     """The batch's runners, kept with it so that its integrations carry their state on
     (:func:`cyclesim.pipes.runners.carry_runners`), or None where its cases have none (the pipe
     package is loaded only then)."""
-    if not any(ns is not None for ns in getattr(batch.cases[0], "runners", {}).values()):
+    from ..config.runners import has_runners
+
+    if not has_runners(batch.cases[0]):
         return None
     from ..pipes.runners import carry_runners
 
@@ -303,8 +305,10 @@ def _run_chain(cases: list[Case], registry, start: np.ndarray, tol: float = CHAI
     from ..solve.batch import build_batch
     from ..loops.layout import TOTALS as _TOTALS
 
+    from ..config.runners import has_runners
+
     n = len(cases)
-    if any(ns is not None for ns in getattr(cases[0], "runners", {}).values()):
+    if has_runners(cases[0]):
         out, ends, state = [], np.empty((start.shape[0], n)), start.reshape(-1, 1)
         for j, c in enumerate(cases):
             batch = build_batch([c], registry)
