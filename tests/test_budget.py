@@ -3,6 +3,7 @@ split (a batch) or refused in one line with its estimate and the option that red
 anything is allocated."""
 
 from __future__ import annotations
+from cli_helpers import error_lines
 
 import subprocess
 import sys
@@ -105,7 +106,7 @@ def test_command_line_refusals_are_one_line(tmp_path, monkeypatch, capsys):
                 warnings.simplefilter("always")
                 rc = main(list(args))
         out, err = capsys.readouterr()
-        lines = err.strip().splitlines()
+        lines = error_lines(err)
         assert rc == 2 and len(lines) == 1 and words in lines[0], (args, err)
         assert out == "" and not seen, (args, out, [str(w.message) for w in seen])
     assert not (tmp_path / "a").exists() and not (tmp_path / "b").exists()

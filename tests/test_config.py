@@ -1,6 +1,7 @@
 """Config loading, inheritance, overrides and one-line errors (exit code 2)."""
 
 from __future__ import annotations
+from cli_helpers import error_lines
 
 import copy
 import subprocess
@@ -175,7 +176,7 @@ def test_keys_lists_every_core_key_with_unit_and_meaning(capsys):
             assert f"[{p.unit}]" in line and p.doc in line
     assert main(["keys", "operatin"]) == 2
     err = capsys.readouterr().err
-    assert "did you mean 'operating'" in err and len(err.strip().splitlines()) == 1
+    assert "did you mean 'operating'" in err and len(error_lines(err)) == 1
     assert main(["show", "demo"]) == 0
     shown = capsys.readouterr().out
     assert "multi_cylinder:" in shown and "firing_order" in shown

@@ -7,6 +7,7 @@ plug-in entries, which fail at their first call.  The count of kinds is
 """
 
 from __future__ import annotations
+from cli_helpers import error_lines
 
 import pytest
 
@@ -149,7 +150,7 @@ def test_hostile_input_gets_one_line_and_exit_2(tmp_path, capsys, kind, files, a
     _write(tmp_path, files)
     rc = main([a.replace("{d}", str(tmp_path)) for a in argv])
     err = capsys.readouterr().err
-    lines = err.strip().splitlines()
+    lines = error_lines(err)
     assert rc == 2, err
     assert len(lines) == 1 and lines[0].startswith("cyclesim: error: ") and expect in lines[0], err
     assert "\x1b" not in err and "hashhash" not in err and "saltsalt" not in err

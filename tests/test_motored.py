@@ -18,6 +18,7 @@ References used here:
 """
 
 from __future__ import annotations
+from cli_helpers import error_lines
 
 import json
 import math
@@ -395,7 +396,7 @@ def test_sweep_and_report_of_motored_cases(fuel_cut):
 def test_spark_study_of_a_motored_engine_is_refused_in_one_line(tmp_path, capsys):
     assert main(["spark", "demo", "--set", "operating.fuel_cut=true", "--advance", "10:30:10",
                  "--out", str(tmp_path / "s")]) == 2
-    err = capsys.readouterr().err.strip().splitlines()
+    err = error_lines(capsys.readouterr().err)
     assert len(err) == 1 and "motored" in err[0]
 
 

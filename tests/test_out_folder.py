@@ -11,6 +11,7 @@ read-only disk does.  Plumbing checks: the closed-cycle demo on a 1 deg step.
 """
 
 from __future__ import annotations
+from cli_helpers import error_lines
 
 import errno
 import os
@@ -79,7 +80,7 @@ def test_a_folder_held_by_a_live_process_is_refused_naming_it(base, tmp_path, ca
             sweep(base, [(SPARK, "10,20")], out=out)
         assert main(["run", "demo_closed", "--set", "simulation.step_deg=1.0", "--out", str(out)]) == 2
         err = capsys.readouterr().err.strip()
-        assert len(err.splitlines()) == 1 and f"process {p.pid}" in err
+        assert len(error_lines(err)) == 1 and f"process {p.pid}" in err
         assert sorted(f.name for f in out.iterdir()) == [LOCK_NAME]      # nothing written by the refused runs
     finally:
         p.kill()
@@ -155,7 +156,7 @@ def test_an_impossible_folder_is_refused_before_anything_runs(base, tmp_path, mo
         sweep(base, [(SPARK, "10,20")], out=out)
     assert main(["sweep", "demo_closed", "--vary", f"{SPARK}=10,20", "--out", str(out)]) == 2
     err = capsys.readouterr().err.strip()
-    assert len(err.splitlines()) == 1 and "Traceback" not in err
+    assert len(error_lines(err)) == 1 and "Traceback" not in err
     assert main(["run", "demo_closed", "--out", str(tmp_path / "afile")]) == 2
     assert "exists and is not a folder" in capsys.readouterr().err
 
@@ -206,7 +207,7 @@ def test_a_write_that_fails_mid_sweep_keeps_the_rows_and_says_how_to_resume(base
             "--chunk", "2", "--out", str(tmp_path / "cli")]
     assert main(argv) == 2
     err = capsys.readouterr().err.strip()
-    assert len(err.splitlines()) == 1 and err.startswith("cyclesim: error: --out") and "--resume" in err
+    assert len(error_lines(err)) == 1 and err.startswith("cyclesim: error: --out") and "--resume" in err
     monkeypatch.undo()
     res = sweep(base, [(SPARK, "10:40:5")], out=out, chunk_size=2, resume=True)
     assert res.results[:2] == [None, None] and res.rows == sweep(base, [(SPARK, "10:40:5")]).rows
@@ -245,7 +246,7 @@ def test_a_folder_made_immutable_mid_sweep_keeps_the_rows_and_resumes(tmp_path):
         pt.end(run)
         subprocess.run(["chattr", "-i", str(out)], check=True)
     assert run.returncode == 2
-    lines = err.strip().splitlines()
+    lines = error_lines(err)
     assert len(lines) == 1 and "Traceback" not in err
     assert "Operation not permitted" in lines[0] and "16 finished rows are kept" in lines[0]
     assert "--resume" in lines[0]

@@ -9,6 +9,7 @@ reduced grid.
 """
 
 from __future__ import annotations
+from cli_helpers import error_lines
 
 import json
 
@@ -160,7 +161,7 @@ def test_issue_reproduction_on_the_command_line(tmp_path, capsys, monkeypatch):
     turbo = ["sweep", "demo_turbo", *argv[2:], "--resume"]
     assert main(turbo) == 2
     err = capsys.readouterr().err.strip()
-    assert len(err.splitlines()) == 1 and "different study" in err and "base name" in err
+    assert len(error_lines(err)) == 1 and "different study" in err and "base name" in err
     assert main([*argv, "--set", "operating.lambda=0.9", "--resume"]) == 2
     assert "base operating.lambda: 1.0 there, 0.9 here" in capsys.readouterr().err
     assert (tmp_path / "rs" / "sweep.csv").read_text() == rows

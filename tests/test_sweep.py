@@ -8,6 +8,7 @@ case simulated alone.
 """
 
 from __future__ import annotations
+from cli_helpers import error_lines
 
 import argparse
 import json
@@ -267,7 +268,7 @@ def test_a_value_of_the_wrong_kind_is_refused_before_anything_runs(base, tmp_pat
     from cyclesim.cli import main
 
     assert main(["sweep", "demo", "--vary", "operating.speed_rpm=1000,abc", "--out", str(out)]) == 2
-    err = capsys.readouterr().err.strip().splitlines()
+    err = error_lines(capsys.readouterr().err)
     assert len(err) == 1 and "'abc'" in err[0] and "nothing was run" in err[0]
     # a value of the right kind outside the range stays a failed case of its own (the contract above)
     res = sweep(base, [("burn.duration_deg", "40,-5")])

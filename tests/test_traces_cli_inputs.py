@@ -1,6 +1,7 @@
 """`cyclesim traces` / `cyclesim analyse`: bad inputs refused early, labels, warnings and help texts."""
 
 from __future__ import annotations
+from cli_helpers import error_lines
 
 import argparse
 import json
@@ -42,7 +43,7 @@ def test_bad_traces_values_exit_2_in_one_line_and_make_no_folder(tmp_path, capsy
     rc = main(["traces", "demo", "--cycles", "2", *bad, "--out", str(out)])
     err = capsys.readouterr().err
     assert rc == 2
-    assert says in err and len(err.strip().splitlines()) == 1 and "Traceback" not in err
+    assert says in err and len(error_lines(err)) == 1 and "Traceback" not in err
     assert not out.exists()
 
 

@@ -2,6 +2,7 @@
 line, and the coverage of the fit's confidence intervals on synthetic traces."""
 
 from __future__ import annotations
+from cli_helpers import error_lines
 
 import argparse
 import json
@@ -182,7 +183,7 @@ def test_fit_refuses_operating_conditions_with_one_line_and_status_2(tmp_path, c
                 "engine.bore_mm", "simulation.tolerance"):
         out = tmp_path / "out"
         assert main(["fit", "demo_closed", str(trace), "--param", key, "--out", str(out)]) == 2, key
-        err = capsys.readouterr().err.strip().splitlines()
+        err = error_lines(capsys.readouterr().err)
         assert len(err) == 1 and "cannot be fitted" in err[0] and key in err[0]
         assert not out.exists()          # refused before anything is written
     # the IVC state is a model parameter in closed mode, and refused in full mode
